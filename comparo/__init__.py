@@ -1,0 +1,44 @@
+"""comparo: cross-taxa compilations of muscle mechanics.
+
+Validated tables with provenance, harmonisation, derived time scales with
+uncertainty, scaling fits with honest confidence intervals, and the audit of
+which sources each conclusion rests on.
+
+Heavy modules are imported lazily, so ``import comparo`` and ``comparo --help``
+stay fast; the public names below resolve on first use.
+"""
+
+from __future__ import annotations
+
+from importlib import import_module
+from typing import Any
+
+__version__ = "0.1.0"
+
+# public name -> module that defines it
+_API = {
+    "load": "comparo.io",
+    "Dataset": "comparo.io",
+    "check": "comparo.validate",
+    "InputError": "comparo.errors",
+    "Catalog": "comparo.catalog",
+    "load_catalog": "comparo.catalog",
+    "per_taxon": "comparo.curate",
+    "audit": "comparo.provenance",
+    "derive": "comparo.derive",
+    "fit": "comparo.fit",
+}
+
+__all__ = sorted(_API) + ["__version__"]
+
+
+def __getattr__(name: str) -> Any:
+    try:
+        module = _API[name]
+    except KeyError:
+        raise AttributeError(f"module 'comparo' has no attribute {name!r}") from None
+    return getattr(import_module(module), name)
+
+
+def __dir__() -> list[str]:
+    return __all__

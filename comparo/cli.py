@@ -1,0 +1,160 @@
+"""The ``comparo`` command line: a thin shell over the Python API.
+
+Only argparse is imported at start-up; each command's module (and pandas,
+pint, statsmodels...) is imported when that command runs, so ``comparo
+--help`` is instant.
+
+Exit codes: 0 success; 1 the analysis ran but found problems under
+``--strict``; 2 bad input or usage (a clear message, never a traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from importlib import import_module
+
+EXIT_OK, EXIT_STRICT, EXIT_INPUT = 0, 1, 2
+EXIT_INTERNAL = 3
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with usage errors on exit code 2 and one clear line (argparse's default)."""
+
+
+def _dataset_arg(p: argparse.ArgumentParser) -> None:
+    p.add_argument("dataset", metavar="DATASET", help="dataset folder (observations + sources, optional taxa, tree, comparo.toml)")
+
+
+def _output_arg(p: argparse.ArgumentParser, what: str = "output file (default: standard output)") -> None:
+    p.add_argument("-o", "--output", metavar="FILE", default=None, help=what)
+
+
+def _temperature_arg(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--no-temperature", action="store_true", help="do not normalise rates and frequencies to the reference temperature")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from comparo import __version__
+
+    parser = _Parser(
+        prog="comparo",
+        description="Cross-taxa compilations of muscle mechanics: check, harmonise, derive, fit, report.",
+        epilog="Run 'comparo COMMAND --help' for the options of one command.",
+    )
+    parser.add_argument("--version", action="version", version=f"comparo {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p = sub.add_parser("check", help="validate a dataset; list every problem (exit 2 on errors)")
+    _dataset_arg(p)
+    p.add_argument("--format", choices=["text", "csv", "json"], default="text", help="output format (default text)")
+    p.add_argument("--strict", action="store_true", help="exit 1 when there are warnings")
+
+    p = sub.add_parser("audit", help="provenance audit: coverage, basis mix, conflicts, row accounting")
+    _dataset_arg(p)
+    p.add_argument("--format", choices=["text", "json", "csv"], default="text")
+    _temperature_arg(p)
+    p.add_argument("--strict", action="store_true", help="exit 1 when conflicts or unit slips are found")
+
+    p = sub.add_parser("table", help="per-taxon harmonised table (CSV)")
+    _dataset_arg(p)
+    _output_arg(p)
+    _temperature_arg(p)
+    p.add_argument("--aggregate", choices=["mean", "median"], default=None, help="how repeated values combine (default: settings, else weighted mean)")
+
+    p = sub.add_parser("derive", help="per-taxon table plus derived time scales and ratios (CSV)")
+    _dataset_arg(p)
+    _output_arg(p)
+    _temperature_arg(p)
+    p.add_argument("--mc", type=int, default=0, metavar="N", help="Monte Carlo draws for uncertainty (0: first-order only)")
+    p.add_argument("--seed", type=int, default=20240601, help="random seed for Monte Carlo")
+
+    p = sub.add_parser("fit", help="scaling fit of y on x with confidence intervals and tests")
+    p.add_argument("data", metavar="DATA", help="dataset folder (quantities by key) or a plain CSV (columns by name)")
+    p.add_argument("--x", required=True, help="x quantity key or column")
+    p.add_argument("--y", required=True, help="y quantity key or column")
+    p.add_argument("--method", choices=["ols", "sma", "ma", "robust", "lts", "pgls"], default="sma")
+    p.add_argument("--tree", metavar="FILE", default=None, help="Newick tree for pgls (default: the dataset's tree.nwk)")
+    p.add_argument("--lambda", dest="lambda_", default="ml", metavar="ml|VALUE", help="Pagel's lambda for pgls: 'ml' or a value in [0, 1]")
+    p.add_argument("--reml", action="store_true", help="pgls: REML for the lambda search and the reported likelihood")
+    p.add_argument("--by", metavar="COLUMN", default=None, help="fit per group and test for a common slope")
+    p.add_argument("--test-slope", type=float, default=None, metavar="VALUE", help="test the slope against this exponent")
+    p.add_argument("--ci", type=float, default=0.95, metavar="LEVEL", help="confidence level (default 0.95)")
+    p.add_argument("--bootstrap", type=int, default=0, metavar="N", help="add percentile and BCa bootstrap CIs from N resamples")
+    p.add_argument("--seed", type=int, default=20240601, help="random seed for resampling")
+    p.add_argument("--log", choices=["10", "e", "none"], default="10", help="log transform of both axes (default 10)")
+    p.add_argument("--taxon-col", default="taxon", help="label column of a plain CSV (default taxon)")
+    p.add_argument("--breakpoint", action="store_true", help="also fit a broken-line (segmented) model")
+    p.add_argument("--sensitivity", action="store_true", help="source-level sensitivity of the fit")
+    p.add_argument("--format", choices=["text", "json", "csv"], default="text")
+    _temperature_arg(p)
+
+    p = sub.add_parser("report", help="full analysis: HTML report, figures and tables")
+    _dataset_arg(p)
+    p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
+    p.add_argument("--seed", type=int, default=20240601)
+    _temperature_arg(p)
+
+    p = sub.add_parser("export", help="export to open data standards")
+    _dataset_arg(p)
+    p.add_argument("--to", choices=["datapackage", "dwc"], required=True, help="Frictionless Data Package or Darwin Core MeasurementOrFact")
+    p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
+
+    p = sub.add_parser("demo", help="write the synthetic demo compilation and run the analysis on it")
+    p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
+
+    p = sub.add_parser("units", help="list the quantity catalogue with canonical units")
+    p.add_argument("dataset", metavar="DATASET", nargs="?", default=None, help="include a dataset's own quantities")
+    p.add_argument("--format", choices=["text", "csv", "json"], default="text")
+
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``comparo`` console script; returns the exit code."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not args.command:
+        parser.print_help()
+        return EXIT_OK
+    try:
+        module = import_module(f"comparo.commands.{args.command}")
+    except ModuleNotFoundError as exc:
+        if exc.name == f"comparo.commands.{args.command}":
+            print(f"comparo {args.command}: not available in this version yet", file=sys.stderr)
+            return EXIT_INPUT
+        raise
+    from comparo.errors import ComparoError, InputError, UsageError
+
+    try:
+        return int(module.run(args) or 0)
+    except InputError as exc:
+        from comparo.commands._common import print_problems
+
+        print_problems(exc.problems, stream=sys.stderr)
+        return EXIT_INPUT
+    except UsageError as exc:
+        print(f"comparo {args.command}: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except ComparoError as exc:
+        print(f"comparo {args.command}: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return EXIT_OK
+    except Exception as exc:  # a bug in comparo, not the user's fault
+        if os.environ.get("COMPARO_DEBUG"):
+            raise
+        print(
+            f"comparo {args.command}: internal error ({type(exc).__name__}: {exc}). "
+            "This is a bug in comparo; rerun with COMPARO_DEBUG=1 for the traceback and report it.",
+            file=sys.stderr,
+        )
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
