@@ -1,0 +1,43 @@
+"""``comparo units [DATASET]``: the quantity catalogue and its canonical units."""
+
+from __future__ import annotations
+
+import sys
+
+from comparo.commands._common import dumps, emit
+
+
+def run(args) -> int:
+    from comparo import units
+    from comparo.catalog import load_catalog
+
+    if args.dataset:
+        from pathlib import Path
+
+        from comparo.io import read_settings
+
+        path = Path(args.dataset) / "comparo.toml"
+        settings = read_settings(path)[0] if path.is_file() else {}
+        catalog = load_catalog(settings.get("quantities"), file=str(path))
+    else:
+        catalog = load_catalog()
+    frame = catalog.to_frame()
+    if args.format == "json":
+        emit(dumps(frame.to_dict("records")))
+        return 0
+    if args.format == "csv":
+        sys.stdout.write(frame.to_csv(index=False))
+        return 0
+    from rich.console import Console
+    from rich.table import Table
+
+    table = Table(title="comparo quantity catalogue", title_justify="left")
+    for col in ("key", "unit", "kind", "plausible range", "T-sensitive (Q10)", "label"):
+        table.add_column(col)
+    for q in catalog.values():
+        rng = f"{q.range[0]:g} - {q.range[1]:g}" if q.range else ""
+        ts = f"yes ({q.q10:g})" if q.temperature_sensitive and q.q10 else ("yes" if q.temperature_sensitive else "")
+        label = q.label + (f" -> stored as {q.converts_to}" if q.converts_to else "")
+        table.add_row(q.key, units.pretty(q.unit), q.kind, rng, ts, label)
+    Console().print(table)
+    return 0

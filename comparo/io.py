@@ -1,0 +1,471 @@
+"""Read a dataset folder: observations (CSV/TSV/XLSX), sources (CSV or BibTeX),
+optional taxa.csv, tree.nwk and comparo.toml.
+
+Reading never modifies a file and never guesses silently: every cell is kept as
+the text the user typed (validation parses numbers later and says where it
+could not), spreadsheet row numbers are kept (header = row 1), and anything
+that makes a file unreadable becomes a :class:`~comparo.errors.Problem` naming
+the file, line and rule.
+"""
+
+from __future__ import annotations
+
+import csv
+import io as _io
+import logging
+import re
+import tomllib
+from dataclasses import dataclass, field
+from functools import lru_cache
+from pathlib import Path
+from typing import Any
+
+from comparo.errors import InputError, Problem, problems_frame
+
+OBSERVATION_NAMES = ("observations.csv", "observations.tsv", "observations.txt", "observations.xlsx")
+SOURCE_NAMES = ("sources.csv", "sources.tsv", "sources.bib", "sources.xlsx")
+TAXA_NAMES = ("taxa.csv", "taxa.tsv", "taxa.xlsx")
+TREE_NAMES = ("tree.nwk", "tree.newick", "tree.tre")
+SETTINGS_NAME = "comparo.toml"
+
+SETTINGS_KEYS = {
+    "reference_temperature_c", "q10", "derive", "quantities", "ratios", "analysis",
+    "aggregate", "conflict_factor", "temperature_model", "activation_energy_kj_mol",
+    "title", "seed",
+}
+
+MAX_CELL = 10_000  # characters; longer cells are an error (pasted garbage)
+
+
+@dataclass
+class RawTable:
+    """A table as typed: every cell a string (empty string for blank), the row
+    number a spreadsheet shows for each row, and the file it came from."""
+
+    file: str
+    frame: Any  # pandas.DataFrame of str
+    rows: list[int]
+
+    def __len__(self) -> int:
+        return len(self.frame)
+
+
+@dataclass
+class RawDataset:
+    """Everything read from a folder before validation."""
+
+    folder: Path
+    observations: RawTable | None = None
+    sources: RawTable | None = None
+    taxa: RawTable | None = None
+    tree: Any = None
+    tree_text: str | None = None
+    settings: dict[str, Any] = field(default_factory=dict)
+    files: dict[str, Path] = field(default_factory=dict)
+    problems: list[Problem] = field(default_factory=list)
+
+
+def _err(file: str, rule: str, message: str, hint: str = "", row: int | None = None, column: str | None = None, value: str | None = None, severity: str = "error") -> Problem:
+    return Problem(severity, file, row, column, value, rule, message, hint)
+
+
+# --------------------------------------------------------------------------- text files
+
+def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
+    """Decode a text file: UTF-8 (with or without BOM), UTF-16 with BOM; other
+    8-bit text is decoded as Windows-1252 with a warning. Binary data is an error."""
+    probs: list[Problem] = []
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            return data.decode("utf-16"), probs
+        except UnicodeDecodeError as exc:
+            return None, [_err(file, "encoding", f"file starts with a UTF-16 byte-order mark but is not valid UTF-16 ({exc.reason})", "re-save the file as UTF-8 CSV")]
+    if data.startswith(b"PK\x03\x04"):
+        return None, [_err(file, "file-format", "this is a zip/XLSX workbook, not a text table", "name it .xlsx, or export the sheet as CSV (UTF-8)")]
+    if b"\x00" in data[:4096]:
+        return None, [_err(file, "file-format", "file contains NUL bytes: not a text table", "export the table as CSV (UTF-8)")]
+    if data.startswith(b"\xef\xbb\xbf"):
+        data = data[3:]
+    try:
+        return data.decode("utf-8"), probs
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        try:
+            text = data.decode("cp1252")
+        except UnicodeDecodeError:
+            return None, [_err(file, "encoding", f"file is not UTF-8 text (byte 0x{data[exc.start]:02X} on line {line})", "re-save the file as UTF-8", row=line)]
+        probs.append(_err(file, "encoding", f"file is not UTF-8 (first non-UTF-8 byte 0x{data[exc.start]:02X} on line {line}); read as Windows-1252/Latin-1", "check accented names, and re-save as UTF-8 to silence this", row=line, severity="warning"))
+        return text, probs
+
+
+def _delimiter(header: str, path: Path) -> str:
+    if path.suffix.lower() in (".tsv", ".tab"):
+        return "\t"
+    counts = {d: header.count(d) for d in (",", "\t", ";")}
+    best = max(counts, key=counts.get)
+    return best if counts[best] > 0 else ","
+
+
+def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | None, list[Problem]]:
+    """Read a CSV/TSV file into a :class:`RawTable` of strings."""
+    import pandas as pd
+
+    file = name or path.name
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        return None, [_err(file, "file-read", f"cannot read file ({exc.strerror})")]
+    text, probs = decode_bytes(data, file)
+    if text is None:
+        return None, probs
+    text = text.replace("\r\n", "\n").replace("\r", "\n")
+    lines = text.split("\n")
+    first = next((i for i, ln in enumerate(lines) if ln.strip()), None)
+    if first is None:
+        return None, probs + [_err(file, "empty-file", "file is empty", "add a header row with the column names")]
+    header = lines[first]
+    delim = _delimiter(header, path)
+    if delim == ";":
+        decimal_comma = bool(re.search(r"\d,\d", text))
+        hint = "save it comma-separated with '.' as the decimal mark (spreadsheet: CSV UTF-8, English locale)"
+        msg = "file is semicolon-delimited" + (" with decimal commas" if decimal_comma else "")
+        return None, probs + [_err(file, "delimiter", msg, hint, row=first + 1)]
+    if delim == "\t" and path.suffix.lower() == ".csv" and "," not in header:
+        delim = "\t"
+    hdr = next(csv.reader([header], delimiter=delim))
+    names = [h.strip().lstrip("\ufeff") for h in hdr]
+    seen: dict[str, int] = {}
+    for i, h in enumerate(names):
+        if not h:
+            probs.append(_err(file, "column-name", f"column {i + 1} has no header", "name the column or delete it", row=first + 1, column=f"#{i + 1}", severity="warning"))
+            names[i] = f"unnamed_{i + 1}"
+        key = names[i].lower()
+        if key in seen:
+            probs.append(_err(file, "duplicate-column", f"column name {names[i]!r} appears more than once (columns {seen[key] + 1} and {i + 1})", "rename or delete one of them", row=first + 1, column=names[i]))
+        seen.setdefault(key, i)
+    if any(p.rule == "duplicate-column" for p in probs):
+        return None, probs
+    try:
+        frame = pd.read_csv(
+            _io.StringIO("\n".join(lines[first + 1:])), sep=delim, header=None, names=names,
+            dtype=str, keep_default_na=False, na_filter=False, skip_blank_lines=False,
+            engine="c", quoting=csv.QUOTE_MINIMAL, index_col=False,
+        )
+    except pd.errors.ParserError as exc:
+        m = re.search(r"line (\d+), saw (\d+)", str(exc))
+        if m:
+            line = int(m.group(1)) + first + 1
+            return None, probs + [_err(file, "field-count", f"row has {m.group(2)} fields but the header has {len(names)}", "a stray delimiter or an unquoted comma inside a cell", row=line)]
+        return None, probs + [_err(file, "csv-syntax", f"cannot parse the table ({exc})")]
+    except (ValueError, csv.Error) as exc:
+        return None, probs + [_err(file, "csv-syntax", f"cannot parse the table ({exc})")]
+    rows = list(range(first + 2, first + 2 + len(frame)))
+    return _finish(file, frame, rows, probs)
+
+
+def _finish(file: str, frame, rows: list[int], probs: list[Problem]) -> tuple[RawTable, list[Problem]]:
+    frame = frame.fillna("").astype(str)
+    for col in frame.columns:
+        frame[col] = frame[col].str.strip()
+    # blank rows (every cell empty) are layout, not data: drop them, keep row numbers
+    keep = (frame != "").any(axis=1).to_numpy()
+    frame = frame.loc[keep].reset_index(drop=True)
+    rows = [r for r, k in zip(rows, keep, strict=True) if k]
+    long = frame.apply(lambda s: s.str.len() > MAX_CELL)
+    if long.to_numpy().any():
+        for ci, col in enumerate(frame.columns):
+            for ri in frame.index[long.iloc[:, ci].to_numpy()]:
+                probs.append(_err(file, "cell-length", f"cell has {len(frame.at[ri, col])} characters (limit {MAX_CELL})", "shorten it; long notes belong in a separate file", row=rows[ri], column=col, value=frame.at[ri, col][:40] + "..."))
+                frame.at[ri, col] = frame.at[ri, col][:MAX_CELL]
+    known = _known_columns()
+    frame.columns = [c.lower() if c.lower() in known else c for c in (str(c).strip() for c in frame.columns)]
+    return RawTable(file, frame, rows), probs
+
+
+@lru_cache(maxsize=1)
+def _known_columns() -> frozenset[str]:
+    """Column names declared in schema/tables.toml (matched case-insensitively)."""
+    from comparo.catalog import read_schema
+
+    spec = read_schema("tables.toml")
+    return frozenset(c for t in spec.values() if isinstance(t, dict) for c in t.get("columns", {}))
+
+
+def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Problem]]:
+    """Read the sheet named *sheet* (else the first sheet) of an XLSX workbook."""
+    import pandas as pd
+
+    file = path.name
+    try:
+        book = pd.ExcelFile(path, engine="openpyxl")
+    except Exception as exc:  # openpyxl raises many types for a broken workbook
+        return None, [_err(file, "xlsx-read", f"cannot open the workbook ({type(exc).__name__}: {exc})", "check that it is an .xlsx file (not .xls or CSV renamed)")]
+    names = book.sheet_names
+    chosen = sheet if sheet in names else (names[0] if names else None)
+    if chosen is None:
+        return None, [_err(file, "empty-file", "workbook has no sheets")]
+    file = f"{path.name}[{chosen}]"
+    try:
+        frame = pd.read_excel(book, sheet_name=chosen, header=None, dtype=object)
+    except Exception as exc:
+        return None, [_err(file, "xlsx-read", f"cannot read sheet ({type(exc).__name__}: {exc})")]
+    if frame.empty:
+        return None, [_err(file, "empty-file", "sheet is empty", "put the table on the first sheet, header in row 1")]
+    frame = frame.map(_excel_cell)
+    nonblank = (frame != "").any(axis=1).to_numpy()
+    first = int(nonblank.argmax())
+    header = [str(h).strip() for h in frame.iloc[first].tolist()]
+    probs: list[Problem] = []
+    seen: dict[str, int] = {}
+    for i, h in enumerate(header):
+        if not h:
+            header[i] = f"unnamed_{i + 1}"
+            if (frame.iloc[first + 1:, i] != "").any():
+                probs.append(_err(file, "column-name", f"column {i + 1} has no header (a merged header cell?)", "give every column its own header cell", row=first + 1, column=f"#{i + 1}", severity="warning"))
+        key = header[i].lower()
+        if key in seen:
+            probs.append(_err(file, "duplicate-column", f"column name {header[i]!r} appears more than once", "rename or delete one of them", row=first + 1, column=header[i]))
+        seen.setdefault(key, i)
+    if any(p.rule == "duplicate-column" for p in probs):
+        return None, probs
+    body = frame.iloc[first + 1:].reset_index(drop=True)
+    body.columns = header
+    body = body.loc[:, [not (h.startswith("unnamed_") and (body[h] == "").all()) for h in header]]
+    rows = list(range(first + 2, first + 2 + len(body)))
+    return _finish(file, body, rows, probs)
+
+
+def _excel_cell(v: Any) -> str:
+    import datetime as _dt
+    import math
+
+    if v is None:
+        return ""
+    if isinstance(v, float):
+        if math.isnan(v):
+            return ""
+        return repr(v) if not v.is_integer() else str(int(v)) if abs(v) < 1e15 else repr(v)
+    if isinstance(v, _dt.datetime | _dt.date):
+        return v.isoformat()[:10] if isinstance(v, _dt.datetime) and v.time() == _dt.time() else v.isoformat()
+    return str(v)
+
+
+def read_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Problem]]:
+    """Read a table by its extension (.csv/.tsv/.txt text, .xlsx workbook)."""
+    if path.suffix.lower() in (".xlsx", ".xlsm"):
+        return read_excel_table(path, sheet)
+    return read_text_table(path)
+
+
+# --------------------------------------------------------------------------- sources
+
+def read_bibtex(path: Path) -> tuple[RawTable | None, list[Problem]]:
+    """Read ``sources.bib`` into a sources table (entry keys are source_ids)."""
+    import bibtexparser
+    import pandas as pd
+
+    file = path.name
+    data = path.read_bytes()
+    text, probs = decode_bytes(data, file)
+    if text is None:
+        return None, probs
+    if not text.strip():
+        return None, probs + [_err(file, "empty-file", "BibTeX file is empty")]
+    logging.getLogger("bibtexparser").setLevel(logging.CRITICAL)  # its problems become ours
+    try:
+        lib = bibtexparser.parse_string(text)
+    except Exception as exc:
+        return None, probs + [_err(file, "bibtex-syntax", f"cannot parse BibTeX ({type(exc).__name__}: {exc})")]
+    for block in lib.failed_blocks:
+        lines = [ln for ln in str(getattr(block, "error", "") or "").splitlines() if ln.strip()]
+        reason = lines[-1].strip()[:200] if lines else "syntax error"
+        probs.append(_err(file, "bibtex-syntax", f"BibTeX entry cannot be read: {reason}", "check braces and commas of this entry", row=(block.start_line or 0) + 1, value=block.raw[:60]))
+    recs, rows = [], []
+    for entry in lib.entries:
+        f = {k.lower(): _strip_braces(fld.value) for k, fld in entry.fields_dict.items()}
+        author, year, title = f.get("author", ""), f.get("year", ""), f.get("title", "")
+        venue = f.get("journal") or f.get("booktitle") or f.get("publisher") or ""
+        parts = [p for p in (author, f"({year})" if year else "", title, venue) if p]
+        recs.append({"source_id": entry.key, "citation": ". ".join(parts), "year": year, "doi": f.get("doi", ""), "url": f.get("url", ""), "notes": f.get("note", "")})
+        rows.append((entry.start_line or 0) + 1)
+    if not recs:
+        return None, probs or [_err(file, "empty-file", "BibTeX file holds no entries")]
+    frame = pd.DataFrame(recs, columns=["source_id", "citation", "year", "doi", "url", "notes"])
+    return RawTable(file, frame.astype(str), rows), probs
+
+
+def _strip_braces(v: Any) -> str:
+    return re.sub(r"\s+", " ", str(v).replace("{", "").replace("}", "")).strip()
+
+
+# --------------------------------------------------------------------------- tree, settings
+
+def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
+    """Parse a Newick tree with dendropy. Returns (tree, text, problems)."""
+    file = path.name
+    text, probs = decode_bytes(path.read_bytes(), file)
+    if text is None:
+        return None, None, probs
+    if not text.strip():
+        return None, None, probs + [_err(file, "empty-file", "tree file is empty")]
+    if text.count("(") != text.count(")"):
+        return None, text, probs + [_err(file, "newick-syntax", f"unbalanced parentheses ({text.count('(')} '(' vs {text.count(')')} ')')", "check the Newick string")]
+    import dendropy
+
+    try:
+        tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True, rooting="force-rooted")
+    except RecursionError:
+        return None, text, probs + [_err(file, "newick-depth", "tree is too deeply nested to parse")]
+    except Exception as exc:
+        msg = str(exc).splitlines()[0][:200] if str(exc) else type(exc).__name__
+        return None, text, probs + [_err(file, "newick-syntax", f"cannot parse the Newick tree: {msg}", "check the Newick string")]
+    return tree, text, probs
+
+
+def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
+    """Parse comparo.toml; unknown top-level keys are warnings."""
+    file = path.name
+    text, probs = decode_bytes(path.read_bytes(), file)
+    if text is None:
+        return {}, probs
+    try:
+        settings = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        m = re.search(r"line (\d+)", str(exc))
+        return {}, probs + [_err(file, "toml-syntax", f"cannot parse settings: {exc}", "see docs/data-format.md for the settings format", row=int(m.group(1)) if m else None)]
+    for key in settings:
+        if key not in SETTINGS_KEYS:
+            probs.append(_err(file, "settings-key", f"unknown setting {key!r} (ignored)", f"known settings: {', '.join(sorted(SETTINGS_KEYS))}", column=key, severity="warning"))
+    t = settings.get("reference_temperature_c")
+    if t is not None and (not isinstance(t, int | float) or isinstance(t, bool) or not -5 <= t <= 60):
+        probs.append(_err(file, "settings-value", "reference_temperature_c must be a number of degrees Celsius between -5 and 60", column="reference_temperature_c", value=str(t)))
+    return settings, probs
+
+
+# --------------------------------------------------------------------------- folder
+
+def _first(folder: Path, names: tuple[str, ...]) -> Path | None:
+    found = [folder / n for n in names if (folder / n).is_file()]
+    return found[0] if found else None
+
+
+def read_folder(folder: str | Path) -> RawDataset:
+    """Read every file of a dataset folder (no validation of the cells yet).
+
+    Raises
+    ------
+    InputError
+        If the folder does not exist or is not a folder.
+    """
+    folder = Path(folder)
+    if not folder.exists():
+        raise InputError([_err(str(folder), "missing-folder", "dataset folder does not exist", "give the path of a folder holding observations.csv and sources.csv")])
+    if not folder.is_dir():
+        raise InputError([_err(str(folder), "not-a-folder", "expected a dataset folder, got a file", "give the folder that holds observations.csv and sources.csv")])
+    raw = RawDataset(folder=folder)
+    obs = _first(folder, OBSERVATION_NAMES)
+    if obs is None:
+        raw.problems.append(_err(str(folder), "missing-file", "no observations table", f"add one of {', '.join(OBSERVATION_NAMES)}"))
+    else:
+        raw.files["observations"] = obs
+        raw.observations, p = read_table(obs, "observations")
+        raw.problems += p
+    src = _first(folder, SOURCE_NAMES)
+    if src is None:
+        raw.problems.append(_err(str(folder), "missing-file", "no sources table", "add sources.csv (source_id, citation, ...) or sources.bib"))
+    else:
+        raw.files["sources"] = src
+        raw.sources, p = read_bibtex(src) if src.suffix == ".bib" else read_table(src, "sources")
+        raw.problems += p
+    tax = _first(folder, TAXA_NAMES)
+    if tax is not None:
+        raw.files["taxa"] = tax
+        raw.taxa, p = read_table(tax, "taxa")
+        raw.problems += p
+    tree = _first(folder, TREE_NAMES)
+    if tree is not None:
+        raw.files["tree"] = tree
+        raw.tree, raw.tree_text, p = read_newick(tree)
+        raw.problems += p
+    settings = folder / SETTINGS_NAME
+    if settings.is_file():
+        raw.files["settings"] = settings
+        raw.settings, p = read_settings(settings)
+        raw.problems += p
+    return raw
+
+
+# --------------------------------------------------------------------------- the dataset
+
+@dataclass
+class Dataset:
+    """A validated dataset folder.
+
+    Attributes
+    ----------
+    observations : pandas.DataFrame
+        The observation rows as typed (numbers parsed) plus, added by comparo:
+        ``row`` (spreadsheet row), ``quantity_key`` (catalogue key the value is
+        stored as, e.g. ``fiber_radius`` for a reported ``fiber_diameter``),
+        ``value_canonical`` and ``uncertainty_canonical`` (in ``unit_canonical``,
+        the catalogue's canonical unit) and ``basis_effective`` (``computed`` where
+        comparo converted a diameter).
+    sources, taxa : pandas.DataFrame
+        Bibliography and the optional taxa table (``None`` when absent).
+    tree : dendropy.Tree or None
+    settings : dict
+        Parsed comparo.toml (empty when absent).
+    catalog : comparo.catalog.Catalog
+    problems : pandas.DataFrame
+        Warnings found while loading (and errors when loaded with ``strict=False``).
+    """
+
+    folder: Path
+    observations: Any
+    sources: Any
+    taxa: Any
+    tree: Any
+    settings: dict[str, Any]
+    catalog: Any
+    problems: Any
+    files: dict[str, Path]
+    tree_text: str | None = None
+
+    @property
+    def rows_read(self) -> int:
+        """Number of observation rows read (blank lines excluded)."""
+        return len(self.observations)
+
+    @property
+    def reference_temperature_c(self) -> float:
+        """Reference temperature in °C for normalising rates (settings, default 25)."""
+        return float(self.settings.get("reference_temperature_c", 25.0))
+
+
+def load(folder: str | Path, *, strict: bool = True) -> Dataset:
+    """Read and validate a dataset folder.
+
+    Parameters
+    ----------
+    folder : path
+        Folder holding observations (.csv/.tsv/.xlsx), sources (.csv/.bib) and
+        optionally taxa.csv, tree.nwk and comparo.toml.
+    strict : bool
+        Raise on any error (default). With ``strict=False`` the rows with errors
+        are kept with the problems attached (``ds.problems``) so that the audit
+        can account for them.
+
+    Raises
+    ------
+    comparo.InputError
+        With every problem found (``.problems`` DataFrame), when errors exist.
+    """
+    from comparo.validate import validate
+
+    raw = read_folder(folder)
+    ds, problems = validate(raw)
+    frame = problems_frame(problems)
+    if ds is None or (strict and (frame["severity"] == "error").any()):
+        raise InputError(frame)
+    ds.problems = frame
+    return ds

@@ -1,0 +1,423 @@
+"""Validation: every problem of a dataset found in one pass.
+
+Column rules (required, type, allowed values, sign, uniqueness) are read from
+``schema/tables.toml`` and turned into pandera schemas; pandera runs them
+lazily so that all failures come back at once. Rules that span columns or
+tables (units against the quantity catalogue, sources, computed and proxy
+rows, temperature, plausible ranges, DOIs, binomial names) are vectorised
+checks below. Each failure becomes a :class:`~comparo.errors.Problem` at the
+row a spreadsheet shows.
+"""
+
+from __future__ import annotations
+
+import difflib
+import re
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from comparo.catalog import Catalog, load_catalog, read_schema
+from comparo.errors import InputError, Problem, problems_frame
+from comparo.io import Dataset, RawDataset, RawTable, read_folder
+
+BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
+_MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
+_DOI = re.compile(r"^10\.\d{4,9}/\S+$")
+_BINOMIAL = re.compile(r"^[A-Z][a-z]+(?:\s[a-z][a-z-]+){1,2}$")
+
+
+# --------------------------------------------------------------------------- helpers
+
+def parse_numbers(s: pd.Series) -> pd.Series:
+    """Cells as float (NaN where empty or not a finite number)."""
+    num = pd.to_numeric(s.where(s != ""), errors="coerce").astype(float)
+    return num.where(np.isfinite(num))
+
+
+def _number_hint(value: str) -> str:
+    v = value.strip()
+    if re.fullmatch(r"[-+]?\d+,\d+", v):
+        return f"a decimal comma? write {v.replace(',', '.')}"
+    if v[:1] in "<>≤≥~":
+        return "a censored or approximate value cannot be used as a number: give the number and put the qualifier in notes"
+    if v.lower() in _MISSING_WORDS:
+        return "no value: delete the row (an empty measurement is not an observation) or give the number"
+    if v.lower().lstrip("+-") in {"inf", "infinity"}:
+        return "give a finite number"
+    if re.search(r"\d\s*[a-zA-Zµ%]+$", v):
+        return "put the unit in the unit column, the number alone in this one"
+    if "±" in v or "+/-" in v:
+        return "put the spread in the uncertainty column"
+    return "enter a plain number such as 12.5 or 1.2e-3"
+
+
+@dataclass(frozen=True)
+class _Rule:
+    rule: str
+    message: str
+
+
+# --------------------------------------------------------------------------- pandera
+
+def _schema(table: str, frame: pd.DataFrame):
+    """pandera DataFrameSchema for *table* built from schema/tables.toml."""
+    import pandera.pandas as pa
+
+    spec = read_schema("tables.toml")[table]["columns"]
+    cols = {}
+    for name, c in spec.items():
+        checks = []
+        if c.get("required"):
+            checks.append(pa.Check(lambda s: s != "", name="required-cell"))
+        kind = c.get("type", "string")
+        if kind in ("number", "integer"):
+            checks.append(pa.Check(lambda s: (s == "") | parse_numbers(s).notna(), name="number"))
+            if kind == "integer":
+                checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n == np.round(n)))(parse_numbers(s)), name="integer"))
+            if c.get("positive"):
+                checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n > 0))(parse_numbers(s)), name="positive"))
+            if c.get("nonnegative"):
+                checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n >= 0))(parse_numbers(s)), name="nonnegative"))
+        if kind == "enum":
+            allowed = list(c["values"])
+            checks.append(pa.Check(lambda s, allowed=allowed: (s == "") | s.isin(allowed), name="enum"))
+        cols[name] = pa.Column(
+            str, checks=checks, required=bool(c.get("required")), nullable=False,
+            unique=bool(c.get("unique")), report_duplicates="exclude_first", coerce=False,
+        )
+    return pa.DataFrameSchema(cols, strict=False, ordered=False)
+
+
+_MESSAGES = {
+    "required-cell": ("required cell is empty", "fill it in"),
+    "number": ("not a number", None),
+    "integer": ("not a whole number", "sample sizes are counts"),
+    "positive": ("must be greater than 0", ""),
+    "nonnegative": ("must not be negative", "give the spread as a positive number"),
+    "enum": ("not an allowed value", None),
+    "field_uniqueness": ("duplicate value; this column must be unique", "give every row its own id"),
+}
+
+
+def _column_problems(table: RawTable, name: str) -> list[Problem]:
+    """Run the pandera schema of *name* on a raw table; one Problem per failure."""
+    import pandera.errors as pe
+
+    spec = read_schema("tables.toml")[name]["columns"]
+    frame = table.frame
+    try:
+        _schema(name, frame).validate(frame, lazy=True)
+        return []
+    except pe.SchemaErrors as exc:
+        fc = exc.failure_cases
+    probs: list[Problem] = []
+    first_row: dict[tuple[str, str], int] = {}
+    for rec in fc.to_dict("records"):
+        col, check, case, idx = rec.get("column"), str(rec.get("check")), rec.get("failure_case"), rec.get("index")
+        if check == "column_in_dataframe":
+            probs.append(Problem("error", table.file, None, str(case), None, "missing-column", f"required column {case!r} is missing", f"add a column named {case!r} ({spec.get(str(case), {}).get('description', '')})"))
+            continue
+        if idx is None or (isinstance(idx, float) and np.isnan(idx)):
+            continue
+        rule = check.split("(")[0]
+        row = table.rows[int(idx)]
+        value = None if case is None else str(case)
+        message, hint = _MESSAGES.get(rule, (f"breaks rule {rule}", ""))
+        if rule == "number":
+            hint = _number_hint(value or "")
+        elif rule == "enum":
+            allowed = spec[col]["values"]
+            close = difflib.get_close_matches((value or "").lower(), allowed, n=1)
+            hint = f"use one of: {', '.join(allowed)}" + (f" (did you mean {close[0]!r}?)" if close else "")
+        elif rule == "field_uniqueness":
+            rule = "unique"
+            key = (col, value)
+            if key not in first_row:
+                where = frame.index[frame[col] == value]
+                first_row[key] = table.rows[int(where[0])]
+            hint = f"the same value is on row {first_row[key]}"
+        probs.append(Problem("error", table.file, row, col, value, f"{col}-{rule}" if rule in ("number", "integer", "enum") else rule, message, hint))
+    return probs
+
+
+# --------------------------------------------------------------------------- observations
+
+def _typed_observations(raw: RawTable) -> pd.DataFrame:
+    spec = read_schema("tables.toml")["observations"]["columns"]
+    obs = raw.frame.copy()
+    for name, c in spec.items():
+        if name not in obs.columns:
+            obs[name] = ""
+        if c.get("type") in ("number", "integer"):
+            obs[name] = parse_numbers(obs[name])
+    obs.insert(0, "row", np.asarray(raw.rows, dtype=int))
+    return obs
+
+
+def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, source_ids: set[str] | None, settings: dict[str, Any]) -> tuple[pd.DataFrame, list[Problem]]:
+    """Cross-column rules; returns the observations with canonical columns added."""
+    from comparo import units
+
+    file = raw.file
+    probs: list[Problem] = []
+    rows = obs["row"].to_numpy()
+
+    def add(mask, severity, column, rule, message, hint="", values=None):
+        idx = np.flatnonzero(np.asarray(mask, dtype=bool))
+        vals = obs[column].astype(str).to_numpy() if values is None and column in obs else values
+        for i in idx:
+            m = message(i) if callable(message) else message
+            h = hint(i) if callable(hint) else hint
+            probs.append(Problem(severity, file, int(rows[i]), column, None if vals is None else str(vals[i]), rule, m, h))
+
+    # quantity known?
+    qty = obs["quantity"]
+    known = qty.isin(list(catalog))
+    unknown = ~known & (qty != "")
+    if unknown.any():
+        keys = list(catalog)
+
+        def qhint(i):
+            close = difflib.get_close_matches(qty.iat[i], keys, n=1)
+            return (f"did you mean {close[0]!r}? " if close else "") + "see 'comparo units' for the catalogue, or declare it in comparo.toml [quantities.KEY]"
+
+        add(unknown, "error", "quantity", "quantity-unknown", lambda i: f"unknown quantity {qty.iat[i]!r}", qhint)
+
+    # units: parse each distinct string once, dimension-check each distinct (quantity, unit)
+    factor = np.full(len(obs), np.nan)
+    unit_col = obs["unit"]
+    target_key = qty.map(lambda k: catalog.target(k).key if k in catalog else "")
+    canon = target_key.map(lambda k: catalog[k].unit if k else "")
+    alias = qty.map(lambda k: catalog[k].factor if k in catalog else np.nan).astype(float)
+    pairs = pd.DataFrame({"q": qty, "u": unit_col})[known & (unit_col != "")].drop_duplicates()
+    bad_unit: dict[str, str] = {}
+    fac: dict[tuple[str, str], float] = {}
+    for q, u in pairs.itertuples(index=False):
+        if u in bad_unit:
+            continue
+        try:
+            units.parse_unit(u)
+        except units.UnitParseError as exc:
+            bad_unit[u] = str(exc)
+            continue
+        own = catalog[q].unit
+        try:
+            fac[(q, u)] = units.conversion_factor(u, own)
+        except Exception:
+            fac[(q, u)] = np.nan
+    if bad_unit:
+        mask = unit_col.isin(list(bad_unit))
+        add(mask, "error", "unit", "unit-unknown", lambda i: bad_unit[unit_col.iat[i]], "write units as pint reads them: um, µm, nm, mm, kPa, Pa, 1/s, Hz, mPa*s, nm**2, kg, mg")
+    if fac:
+        keys = pd.MultiIndex.from_arrays([qty, unit_col])
+        factor = pd.Series(fac).reindex(keys).to_numpy(dtype=float)
+        mism = known.to_numpy() & ~unit_col.isin(list(bad_unit)).to_numpy() & (unit_col != "").to_numpy() & np.isnan(factor)
+
+        def dim_msg(i):
+            q = catalog[qty.iat[i]]
+            return f"unit {unit_col.iat[i]!r} does not measure a {q.kind} (the quantity {q.key!r} is in {q.unit})"
+
+        add(mism, "error", "unit", "unit-dimension", dim_msg, lambda i: f"give {qty.iat[i]} in a {catalog[qty.iat[i]].kind} unit such as {units.pretty(catalog[qty.iat[i]].unit)}")
+    # own unit -> target canonical unit (aliases such as diameter -> radius keep the unit kind)
+    to_target = np.array([units.conversion_factor(catalog[q].unit, catalog.target(q).unit) if q in catalog else np.nan for q in qty.drop_duplicates()])
+    tmap = dict(zip(qty.drop_duplicates(), to_target, strict=True))
+    total = factor * alias.to_numpy() * qty.map(tmap).to_numpy(dtype=float)
+    value = obs["value"].to_numpy(dtype=float)
+    obs["quantity_key"] = target_key.to_numpy()
+    obs["value_canonical"] = value * total
+    obs["uncertainty_canonical"] = obs["uncertainty"].to_numpy(dtype=float) * total
+    obs["unit_canonical"] = canon.to_numpy()
+    is_alias = qty.map(lambda k: bool(k in catalog and catalog[k].converts_to)).to_numpy(dtype=bool)
+    basis = obs["basis"].where(obs["basis"].isin(BASIS_ORDER), "assumed")
+    rank = basis.map(BASIS_ORDER.index).to_numpy()
+    eff_rank = np.where(is_alias, np.maximum(rank, BASIS_ORDER.index("computed")), rank)
+    obs["basis_effective"] = np.array(BASIS_ORDER, dtype=object)[eff_rank]
+
+    # sign: physical magnitudes in the catalogue are positive (temperatures excepted)
+    positive_kind = target_key.map(lambda k: bool(k) and catalog[k].kind != "temperature").to_numpy(dtype=bool)
+    nonpos = positive_kind & (value <= 0)
+    add(nonpos, "error", "value", "value-positive", lambda i: f"{qty.iat[i]} must be greater than 0", "a zero or negative value is impossible for this quantity: check the sign and the unit", obs["value"].to_numpy())
+
+    # sources
+    if source_ids is not None:
+        sid = obs["source_id"]
+        missing_src = (sid != "") & ~sid.isin(list(source_ids))
+        add(missing_src, "error", "source_id", "source-unknown", lambda i: f"source {sid.iat[i]!r} is not in the sources table", "add it to sources.csv / sources.bib or correct the id")
+
+    # computed rows need their inputs; proxies need the proxy taxon
+    b = obs["basis"]
+    comp = (b == "computed").to_numpy()
+    no_inputs = comp & (obs["inputs"] == "").to_numpy()
+    add(no_inputs, "error", "inputs", "computed-inputs", "basis is 'computed' but inputs is empty", "list the obs_ids the value was computed from, ';'-separated")
+    ids = set(obs["obs_id"])
+    has_inputs = (obs["inputs"] != "").to_numpy()
+    for i in np.flatnonzero(has_inputs):
+        refs = [r.strip() for r in obs["inputs"].iat[i].split(";") if r.strip()]
+        missing = [r for r in refs if r not in ids]
+        if missing:
+            probs.append(Problem("error", file, int(rows[i]), "inputs", obs["inputs"].iat[i], "inputs-unknown", f"inputs name obs_id(s) not in the table: {', '.join(missing)}", "each input must be an obs_id of another row"))
+        if obs["obs_id"].iat[i] in refs:
+            probs.append(Problem("error", file, int(rows[i]), "inputs", obs["inputs"].iat[i], "inputs-self", "a row cannot be computed from itself", ""))
+    no_proxy = (b == "proxy").to_numpy() & (obs["proxy_taxon"] == "").to_numpy()
+    add(no_proxy, "error", "proxy_taxon", "proxy-taxon", "basis is 'proxy' but proxy_taxon is empty", "name the taxon whose value stands in")
+
+    # temperature-sensitive values need a temperature
+    ts = target_key.map(lambda k: bool(k) and catalog[k].temperature_sensitive).to_numpy(dtype=bool)
+    temp = obs["temperature_c"].to_numpy(dtype=float)
+    raw_temp = raw.frame["temperature_c"] if "temperature_c" in raw.frame else pd.Series([""] * len(obs))
+    no_temp = ts & (raw_temp.to_numpy() == "")
+    add(no_temp, "warning", "temperature_c", "temperature-missing", lambda i: f"{qty.iat[i]} is temperature-sensitive but has no temperature_c", "give the measurement temperature; otherwise the value is used un-normalised", raw_temp.to_numpy())
+    odd_temp = ~np.isnan(temp) & ((temp < -5) | (temp > 60))
+    add(odd_temp, "warning", "temperature_c", "temperature-range", "temperature outside -5 to 60 °C for muscle", "temperature_c is in degrees Celsius (a Fahrenheit or kelvin value?)", obs["temperature_c"].to_numpy())
+    q10_set = ~np.isnan(obs["q10"].to_numpy(dtype=float)) & ~ts & (target_key != "").to_numpy()
+    add(q10_set, "warning", "q10", "q10-unused", lambda i: f"a Q10 is given but {qty.iat[i]} is not temperature-sensitive (ignored)")
+
+    # uncertainty and its kind go together
+    unc = obs["uncertainty"].to_numpy(dtype=float)
+    kind = obs["uncertainty_kind"]
+    add(~np.isnan(unc) & (kind == "").to_numpy(), "warning", "uncertainty_kind", "uncertainty-kind", "uncertainty given without uncertainty_kind: treated as a standard deviation", "give sd, se, ci95 or range_half", obs["uncertainty"].to_numpy())
+    add(np.isnan(unc) & (kind != "").to_numpy() & (raw.frame.get("uncertainty", pd.Series([""] * len(obs))) == "").to_numpy(), "warning", "uncertainty", "uncertainty-missing", "uncertainty_kind given without an uncertainty value")
+
+    # plausible range (in canonical units)
+    lo = target_key.map(lambda k: catalog[k].range[0] if k and catalog[k].range else np.nan).to_numpy(dtype=float)
+    hi = target_key.map(lambda k: catalog[k].range[1] if k and catalog[k].range else np.nan).to_numpy(dtype=float)
+    vc = obs["value_canonical"].to_numpy(dtype=float)
+    out = ~np.isnan(vc) & ((vc < lo) | (vc > hi))
+
+    def range_msg(i):
+        q = catalog[target_key.iat[i]]
+        return f"{vc[i]:.4g} {units.pretty(q.unit)} is outside the plausible range {q.range[0]:g}-{q.range[1]:g} {units.pretty(q.unit)} for {q.key} ({q.range_source})"
+
+    add(out, "warning", "value", "out-of-range", range_msg, "check the value and its unit (a slip by a factor of 1000?)", obs["value"].to_numpy())
+
+    # names: a binomial (Genus species) is expected
+    tax = obs["taxon"]
+    first = ~tax.duplicated() & (tax != "")
+    nonbin = first & ~tax.str.match(_BINOMIAL)
+    counts = tax.value_counts()
+    add(nonbin, "warning", "taxon", "taxon-binomial", lambda i: f"taxon name is not a binomial 'Genus species' ({counts[tax.iat[i]]} row(s))", "use the scientific name; map reported names to accepted ones in taxa.csv")
+    return obs, probs
+
+
+def _source_problems(raw: RawTable) -> list[Problem]:
+    probs: list[Problem] = []
+    if "doi" not in raw.frame:
+        return probs
+    doi = raw.frame["doi"].str.replace(r"^(https?://(dx\.)?doi\.org/|doi:\s*)", "", regex=True, flags=re.I)
+    bad = (doi != "") & ~doi.str.match(_DOI)
+    for i in np.flatnonzero(bad.to_numpy()):
+        probs.append(Problem("warning", raw.file, raw.rows[i], "doi", raw.frame["doi"].iat[i], "doi-format", "malformed DOI", "a DOI looks like 10.1234/abcd (a https://doi.org/ prefix is fine)"))
+    return probs
+
+
+def _settings_problems(settings: dict[str, Any], catalog: Catalog) -> list[Problem]:
+    probs: list[Problem] = []
+    q10 = settings.get("q10", {})
+    if not isinstance(q10, dict):
+        return [Problem("error", "comparo.toml", None, "q10", str(q10), "settings-value", "[q10] must be a table of quantity = Q10", "")]
+    for key, v in q10.items():
+        if key not in catalog:
+            probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", f"Q10 given for unknown quantity {key!r}", "use a catalogue key"))
+        elif not isinstance(v, int | float) or isinstance(v, bool) or v <= 0:
+            probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", "Q10 must be a positive number", "typical biological Q10 is 2-3 (from memory)"))
+        elif not catalog[key].temperature_sensitive:
+            probs.append(Problem("warning", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", f"{key} is not temperature-sensitive; its Q10 is ignored", ""))
+    return probs
+
+
+# --------------------------------------------------------------------------- entry points
+
+def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
+    """Validate what :func:`comparo.io.read_folder` read.
+
+    Returns the :class:`~comparo.io.Dataset` (``None`` when a table could not be
+    read at all) and every problem found; each observation row also carries
+    ``problem`` (its first error, empty when none).
+    """
+    problems = list(raw.problems)
+    try:
+        catalog = load_catalog(raw.settings.get("quantities"))
+    except InputError as exc:
+        problems += [Problem(**{k: (None if pd.isna(v) else v) if not isinstance(v, str) else v for k, v in r.items()}) for r in exc.problems.to_dict("records")]
+        catalog = load_catalog()
+    problems += _settings_problems(raw.settings, catalog)
+    if raw.observations is None or raw.sources is None:
+        return None, problems
+    problems += _column_problems(raw.observations, "observations")
+    problems += _column_problems(raw.sources, "sources")
+    problems += _source_problems(raw.sources)
+    if raw.taxa is not None:
+        problems += _column_problems(raw.taxa, "taxa")
+    missing_cols = {p.column for p in problems if p.rule == "missing-column" and p.file == raw.observations.file}
+    obs = _typed_observations(raw.observations)
+    source_ids = set(raw.sources.frame["source_id"]) if "source_id" in raw.sources.frame else None
+    if not missing_cols & {"quantity", "unit", "value"}:
+        obs, p = _observation_problems(raw.observations, obs, catalog, source_ids, raw.settings)
+        problems += p
+    else:
+        for c in ("quantity_key", "unit_canonical", "basis_effective"):
+            obs[c] = ""
+        obs["value_canonical"] = np.nan
+        obs["uncertainty_canonical"] = np.nan
+    first_error = {}
+    for p in problems:
+        if p.severity == "error" and p.file == raw.observations.file and p.row is not None and p.row not in first_error:
+            first_error[p.row] = f"{p.rule}: {p.message}"
+    obs["problem"] = [first_error.get(r, "") for r in obs["row"]]
+    sources = raw.sources.frame.copy()
+    taxa = raw.taxa.frame.copy() if raw.taxa is not None else None
+    ds = Dataset(folder=raw.folder, observations=obs, sources=sources, taxa=taxa, tree=raw.tree, settings=raw.settings, catalog=catalog, problems=None, files=raw.files, tree_text=raw.tree_text)
+    return ds, problems
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """Outcome of checking a dataset folder.
+
+    Attributes
+    ----------
+    folder : str
+    rows_read : int
+        Observation rows read (blank lines are not rows).
+    problems : pandas.DataFrame
+        Every problem, errors first (columns of :data:`comparo.errors.PROBLEM_COLUMNS`).
+    """
+
+    folder: str
+    rows_read: int
+    problems: pd.DataFrame
+
+    @property
+    def n_errors(self) -> int:
+        return int((self.problems["severity"] == "error").sum())
+
+    @property
+    def n_warnings(self) -> int:
+        return int((self.problems["severity"] == "warning").sum())
+
+    @property
+    def ok(self) -> bool:
+        return self.n_errors == 0
+
+    def to_dict(self) -> dict[str, Any]:
+        recs = self.problems.astype(object).where(self.problems.notna(), None).to_dict("records")
+        return {"folder": self.folder, "rows_read": self.rows_read, "errors": self.n_errors, "warnings": self.n_warnings, "problems": recs}
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.problems
+
+    def summary(self) -> str:
+        verdict = "no errors" if self.ok else f"{self.n_errors} error(s)"
+        return f"{self.folder}: {self.rows_read} observation row(s) read; {verdict}, {self.n_warnings} warning(s)"
+
+
+def check(folder) -> CheckResult:
+    """Validate a dataset folder and return every problem found (never raises for
+    bad cells; raises :class:`~comparo.InputError` only when the folder itself is missing)."""
+    raw = read_folder(folder)
+    ds, problems = validate(raw)
+    rows = len(raw.observations) if raw.observations is not None else 0
+    return CheckResult(str(folder), rows, problems_frame(problems))

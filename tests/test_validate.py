@@ -1,0 +1,231 @@
+"""comparo.validate and `comparo check`: every problem found in one pass, at the
+row and column a spreadsheet shows; bad files give exit 2 and one clear message."""
+
+from __future__ import annotations
+
+import json
+import string
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from support import OBS_HEADER, SOURCES, VALID_ROWS, run_cli, tree_hash, write_dataset
+
+from comparo.validate import check
+
+
+def test_valid_tiny_dataset_passes(tiny):
+    res = check(tiny)
+    assert res.ok, res.problems.to_string()
+    assert res.rows_read == len(VALID_ROWS)
+
+
+def test_all_problems_found_in_one_pass(tmp_path):
+    rows = list(VALID_ROWS)
+    rows[0] = rows[0].replace("100,mg", "abc,mg")  # row 2: value not a number
+    rows[1] = rows[1].replace(",um,", ",kPa,")  # row 3: unit of wrong dimension
+    rows[3] = rows[3].replace("s2,Table 1", "s9,Table 1")  # row 5: unknown source
+    folder = write_dataset(tmp_path / "d", rows)
+    res = check(folder)
+    found = {(p["row"], p["column"], p["rule"]) for p in res.problems.to_dict("records")}
+    assert (2, "value", "value-number") in found
+    assert (3, "unit", "unit-dimension") in found
+    assert (5, "source_id", "source-unknown") in found
+    assert res.n_errors == 3
+
+
+def test_blank_lines_keep_spreadsheet_row_numbers(tmp_path):
+    rows = [VALID_ROWS[0], "", ",,,,,,,,,,,,,", VALID_ROWS[1].replace("12,um", "-12,um")]
+    res = check(write_dataset(tmp_path / "d", rows))
+    bad = res.problems[res.problems["rule"] == "value-positive"]
+    assert list(bad["row"]) == [5]
+
+
+# ------------------------------------------------------------------ the malformed battery
+# Each case: (name, rows or a writer, expected rule, expected row, expected column).
+def _rows(i, old, new):
+    rows = list(VALID_ROWS)
+    rows[i] = rows[i].replace(old, new, 1)
+    return rows
+
+
+CELL_CASES = [
+    ("value-not-number", _rows(0, "100,mg", "1oo,mg"), "value-number", 2, "value"),
+    ("value-decimal-comma", _rows(0, "100,mg", '"1,5",mg'), "value-number", 2, "value"),
+    ("value-censored", _rows(0, "100,mg", "<5,mg"), "value-number", 2, "value"),
+    ("value-nd", _rows(0, "100,mg", "n.d.,mg"), "value-number", 2, "value"),
+    ("value-inf", _rows(0, "100,mg", "inf,mg"), "value-number", 2, "value"),
+    ("value-empty", _rows(0, "100,mg", ",mg"), "required-cell", 2, "value"),
+    ("value-zero", _rows(1, "12,um", "0,um"), "value-positive", 3, "value"),
+    ("value-negative", _rows(1, "12,um", "-3,um"), "value-positive", 3, "value"),
+    ("unit-unknown", _rows(1, ",um,", ",furlong per fortnight,"), "unit-unknown", 3, "unit"),
+    ("unit-dimension", _rows(1, ",um,", ",Hz,"), "unit-dimension", 3, "unit"),
+    ("unit-empty", _rows(1, ",um,", ",,"), "required-cell", 3, "unit"),
+    ("quantity-unknown", _rows(2, "frequency_observed", "wingbeat"), "quantity-unknown", 4, "quantity"),
+    ("duplicate-obs-id", _rows(2, "o3,", "o1,"), "unique", 4, "obs_id"),
+    ("source-unknown", _rows(3, ",s2,", ",nosuch,"), "source-unknown", 5, "source_id"),
+    ("basis-bad", _rows(3, "reported", "measured"), "basis-enum", 5, "basis"),
+    ("computed-no-inputs", _rows(5, "computed,o5", "computed,"), "computed-inputs", 7, "inputs"),
+    ("computed-bad-inputs", _rows(5, "computed,o5", "computed,o5;o77"), "inputs-unknown", 7, "inputs"),
+    ("proxy-no-taxon", _rows(0, "reported", "proxy"), "proxy-taxon", 2, "proxy_taxon"),
+    ("n-not-integer", _rows(1, ",10,", ",2.5,"), "n-integer", 3, "n"),
+    ("n-zero", _rows(1, ",10,", ",0,"), "positive", 3, "n"),
+    ("uncertainty-negative", _rows(1, ",1,sd", ",-1,sd"), "nonnegative", 3, "uncertainty"),
+    ("uncertainty-kind-bad", _rows(1, ",1,sd", ",1,stdev"), "uncertainty_kind-enum", 3, "uncertainty_kind"),
+    ("temperature-not-number", _rows(2, ",30", ",warm"), "temperature_c-number", 4, "temperature_c"),
+    ("field-count", _rows(2, "Fig. 2", "Fig. 2,extra,extra"), "field-count", 4, None),
+]
+
+
+@pytest.mark.parametrize("name,rows,rule,row,column", CELL_CASES, ids=[c[0] for c in CELL_CASES])
+def test_malformed_cell_exit_2_names_file_row_column(tmp_path, name, rows, rule, row, column):
+    folder = write_dataset(tmp_path / name, rows)
+    before = tree_hash(folder)
+    proc = run_cli("check", str(folder), "--format", "json")
+    assert proc.returncode == 2, proc.stdout + proc.stderr
+    assert "Traceback" not in proc.stderr + proc.stdout
+    out = json.loads(proc.stdout)
+    hits = [p for p in out["problems"] if p["rule"] == rule and p["severity"] == "error"]
+    assert hits, out["problems"]
+    assert hits[0]["file"] == "observations.csv" and hits[0]["row"] == row
+    if column:
+        assert hits[0]["column"] == column
+    assert tree_hash(folder) == before  # inputs unchanged on disk
+
+
+def _write_bytes(folder, name, data: bytes):
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / name).write_bytes(data)
+    if name != "sources.csv":
+        (folder / "sources.csv").write_text(SOURCES)
+
+
+FILE_CASES = [
+    ("empty-file", lambda f: _write_bytes(f, "observations.csv", b""), "empty-file"),
+    ("semicolon-decimal-comma", lambda f: _write_bytes(f, "observations.csv", (OBS_HEADER.replace(",", ";") + "\no1;Apis mellifera;body_mass;1,5;mg;;;;s1;T1;reported;;;\n").encode()), "delimiter"),
+    ("binary", lambda f: _write_bytes(f, "observations.csv", b"\x00\x01\x02garbage\x00" * 50), "file-format"),
+    ("xlsx-renamed", lambda f: _write_bytes(f, "observations.csv", b"PK\x03\x04" + b"\x00" * 100), "file-format"),
+    ("missing-columns", lambda f: write_dataset(f, ["o1,Apis mellifera,12"], header="obs_id,taxon,value"), "missing-column"),
+    ("duplicate-column", lambda f: write_dataset(f, [VALID_ROWS[0] + ",x"], header=OBS_HEADER + ",value"), "duplicate-column"),
+    ("no-sources", lambda f: (write_dataset(f), (f / "sources.csv").unlink()), "missing-file"),
+    ("no-observations", lambda f: _write_bytes(f, "sources.csv", SOURCES.encode()), "missing-file"),
+    ("bad-toml", lambda f: (write_dataset(f), (f / "comparo.toml").write_text("reference_temperature_c = = 3\n")), "toml-syntax"),
+    ("bad-newick", lambda f: (write_dataset(f), (f / "tree.nwk").write_text("((A:1,B:2):1,(C:1\n")), "newick-syntax"),
+    ("bad-bibtex", lambda f: (write_dataset(f), (f / "sources.csv").unlink(), (f / "sources.bib").write_text("@article{s1, title={unclosed, year=2000}\n")), "bibtex-syntax"),
+    ("bad-user-quantity", lambda f: (write_dataset(f), (f / "comparo.toml").write_text('[quantities.twitch]\nunit = "blorp"\n')), "quantity-unit"),
+]
+
+
+@pytest.mark.parametrize("name,make,rule", FILE_CASES, ids=[c[0] for c in FILE_CASES])
+def test_bad_files_exit_2_with_clear_message(tmp_path, name, make, rule):
+    folder = tmp_path / name
+    make(folder)
+    before = tree_hash(folder)
+    proc = run_cli("check", str(folder))
+    assert proc.returncode == 2, proc.stdout + proc.stderr
+    text = proc.stdout + proc.stderr
+    assert "Traceback" not in text
+    assert rule in text
+    assert tree_hash(folder) == before
+
+
+def test_missing_folder_exit_2(tmp_path):
+    proc = run_cli("check", str(tmp_path / "nope"))
+    assert proc.returncode == 2 and "does not exist" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_warnings_do_not_fail_but_strict_does(tmp_path):
+    folder = write_dataset(tmp_path / "w", _rows(2, ",30", ","))  # frequency without temperature
+    assert run_cli("check", str(folder)).returncode == 0
+    assert run_cli("check", str(folder), "--strict").returncode == 1
+
+
+def test_encodings_utf16_bom_and_latin1(tmp_path):
+    text = OBS_HEADER + "\n" + "\n".join(VALID_ROWS).replace("Apis mellifera", "Apis melliféra") + "\n"
+    for enc, expect_warning in (("utf-16", False), ("utf-8-sig", False), ("cp1252", True)):
+        f = tmp_path / enc
+        _write_bytes(f, "observations.csv", text.encode(enc))
+        res = check(f)
+        assert res.ok, res.problems.to_string()
+        assert ("encoding" in set(res.problems["rule"])) is expect_warning
+
+
+def test_tsv_and_xlsx_read_like_csv(tmp_path):
+    import pandas as pd
+
+    tsv = tmp_path / "tsv"
+    _write_bytes(tsv, "observations.tsv", (OBS_HEADER + "\n" + "\n".join(VALID_ROWS) + "\n").replace(",", "\t").encode())
+    assert check(tsv).ok
+    xl = tmp_path / "xl"
+    xl.mkdir()
+    frame = pd.read_csv(write_dataset(tmp_path / "src") / "observations.csv", dtype=str, keep_default_na=False)
+    with pd.ExcelWriter(xl / "observations.xlsx") as w:
+        pd.DataFrame({"a": [1]}).to_excel(w, sheet_name="notes", index=False)
+        frame.to_excel(w, sheet_name="observations", index=False)
+    (xl / "sources.csv").write_text(SOURCES)
+    res = check(xl)
+    assert res.ok, res.problems.to_string()
+    assert res.rows_read == len(VALID_ROWS)
+
+
+def test_bibtex_sources(tmp_path):
+    folder = write_dataset(tmp_path / "bib")
+    (folder / "sources.csv").unlink()
+    (folder / "sources.bib").write_text("@article{s1, author={Invented, A.}, title={One}, journal={J}, year={2001}, doi={10.1000/xyz}}\n@book{s2, title={Two}, year=2002}\n")
+    res = check(folder)
+    assert res.ok, res.problems.to_string()
+
+
+def test_warnings_doi_binomial_range_temperature(tmp_path):
+    rows = _rows(1, "12,um", "12,mm")  # 12 mm radius: outside the plausible range
+    rows = [r.replace("Bombus terrestris", "bumblebee") for r in rows]
+    folder = write_dataset(tmp_path / "w", rows, sources=SOURCES.replace("10.1000/abc", "doi-missing"))
+    res = check(folder)
+    assert res.ok
+    rules = set(res.problems["rule"])
+    assert {"out-of-range", "taxon-binomial", "doi-format"} <= rules
+
+
+# ------------------------------------------------------------------ property tests
+names = st.from_regex(r"[A-Z][a-z]{2,8} [a-z]{3,9}", fullmatch=True)
+good_row = st.tuples(names, st.sampled_from([("body_mass", "mg"), ("fiber_radius", "um"), ("lattice_spacing_d10", "nm")]),
+                     st.floats(min_value=1e-3, max_value=1e3, allow_nan=False), st.sampled_from(["s1", "s2"]),
+                     st.sampled_from(["reported", "digitized"]))
+BAD_CELLS = [("value", "x1"), ("value", "-4"), ("unit", "parsec per hertz"), ("source_id", "zzz"), ("basis", "guessed"), ("quantity", "wing_colour")]
+
+
+def _table(rows):
+    lines = []
+    for i, (taxon, (q, u), v, s, b) in enumerate(rows):
+        lines.append(f"o{i},{taxon},{q},{v!r},{u},,,,{s},Table 1,{b},,,")
+    return lines
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(rows=st.lists(good_row, min_size=1, max_size=12), data=st.data())
+def test_property_valid_rows_pass_and_one_bad_cell_is_found(tmp_path_factory, rows, data):
+    folder = write_dataset(tmp_path_factory.mktemp("prop"), _table(rows))
+    res = check(folder)
+    assert res.ok, res.problems.to_string()
+    i = data.draw(st.integers(0, len(rows) - 1))
+    column, bad = data.draw(st.sampled_from(BAD_CELLS))
+    lines = _table(rows)
+    cols = OBS_HEADER.split(",")
+    cells = lines[i].split(",")
+    cells[cols.index(column)] = bad
+    lines[i] = ",".join(cells)
+    res = check(write_dataset(tmp_path_factory.mktemp("bad"), lines))
+    errors = res.problems[res.problems["severity"] == "error"]
+    assert len(errors) >= 1
+    assert set(errors["row"]) == {i + 2}
+    assert set(errors["column"]) == {column}
+
+
+@settings(max_examples=20, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.text(alphabet=string.printable + "µ²é", max_size=30))
+def test_property_any_cell_text_never_crashes(tmp_path_factory, text):
+    cell = '"' + text.replace('"', '""') + '"'
+    rows = list(VALID_ROWS)
+    rows[0] = rows[0].replace("100,mg", f"{cell},mg")
+    res = check(write_dataset(tmp_path_factory.mktemp("any"), rows))
+    assert res.rows_read >= 1
