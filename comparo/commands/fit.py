@@ -1,0 +1,67 @@
+"""``comparo fit DATA --x Q --y Q``: scaling fit with CIs, tests and flags."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from comparo.commands._common import dumps, emit
+from comparo.errors import UsageError
+
+
+def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True):
+    """A per-taxon table from a dataset folder, or a plain CSV read as it is."""
+    import pandas as pd
+
+    path = Path(data)
+    if path.is_dir():
+        from comparo.curate import per_taxon
+        from comparo.io import load
+
+        return per_taxon(load(path), temperature=temperature)
+    if not path.is_file():
+        raise UsageError(f"DATA {data!r} is neither a dataset folder nor a CSV file")
+    try:
+        return pd.read_csv(path)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise UsageError(f"cannot read {data!r} as CSV: {exc}") from None
+
+
+def _pgls_options(args) -> dict:
+    lam = args.lambda_
+    if lam != "ml":
+        try:
+            lam = float(lam)
+        except ValueError:
+            raise UsageError(f"--lambda must be 'ml' or a number in [0, 1] (got {args.lambda_!r})") from None
+        if not 0 <= lam <= 1:
+            raise UsageError(f"--lambda must lie in [0, 1] (got {lam})")
+    opts = {"lambda_": lam, "reml": bool(args.reml)}
+    tree = args.tree
+    if tree is None and Path(args.data).is_dir() and (Path(args.data) / "tree.nwk").is_file():
+        tree = str(Path(args.data) / "tree.nwk")
+    if tree is None:
+        raise UsageError("method pgls needs a tree: give --tree FILE or put tree.nwk in the dataset folder")
+    opts["tree"] = tree
+    return opts
+
+
+def run(args) -> int:
+    from comparo.fit import fit
+
+    if args.sensitivity:
+        raise UsageError("--sensitivity is not available yet")
+    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
+    pgls = _pgls_options(args) if args.method == "pgls" else {}
+    result = fit(
+        table, args.x, args.y, args.method, by=args.by, test_slope=args.test_slope, ci=args.ci, log=args.log,
+        bootstrap=args.bootstrap, seed=args.seed, taxon_col=args.taxon_col, breakpoint=args.breakpoint,
+        progress=sys.stderr.isatty(), **pgls,
+    )
+    if args.format == "json":
+        emit(dumps(result.to_dict()))
+    elif args.format == "csv":
+        sys.stdout.write(result.to_frame().to_csv(index=False))
+    else:
+        emit(result.summary())
+    return 0

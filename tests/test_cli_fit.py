@@ -1,0 +1,83 @@
+"""The ``comparo fit`` command on small CSV files."""
+
+from __future__ import annotations
+
+import io
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from comparo.cli import main
+
+
+@pytest.fixture
+def csv(tmp_path):
+    rng = np.random.default_rng(12)
+    lx = rng.uniform(-1, 3, 24)
+    t = pd.DataFrame({
+        "taxon": [f"sp{i}" for i in range(24)],
+        "mass": 10**lx,
+        "freq": 10 ** (1.0 - 0.3 * lx + rng.normal(0, 0.05, 24)),
+        "clade": np.where(np.arange(24) < 12, "a", "b"),
+        "label": ["x"] * 24,
+    })
+    t.loc[0, "mass"] = 0.0
+    t.loc[1, "freq"] = np.nan
+    path = tmp_path / "t.csv"
+    t.to_csv(path, index=False)
+    return path
+
+
+def test_json_output_keys_and_excluded_rows(csv, capsys):
+    code = main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--test-slope", "-0.3",
+                 "--format", "json"])
+    assert code == 0
+    d = json.loads(capsys.readouterr().out)
+    assert {"method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2", "ci_level",
+            "test_slope", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded", "breakpoint",
+            "sensitivity"} == set(d)
+    assert d["n"] == 22
+    assert {e["label"] for e in d["excluded"]} == {"sp0", "sp1"}
+    assert d["slope_ci"][0] < -0.3 < d["slope_ci"][1]
+    assert d["test_slope"]["value"] == -0.3
+
+
+def test_text_csv_and_options(csv, capsys):
+    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "ols", "--by", "clade",
+                 "--breakpoint", "--bootstrap", "200", "--log", "e"]) == 0
+    out = capsys.readouterr().out
+    assert "OLS fit of freq on mass (ln axes)" in out and "bootstrap (200 resamples" in out and "excluded (2)" in out
+    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--format", "csv", "--by", "clade"]) == 0
+    frame = pd.read_csv(io.StringIO(capsys.readouterr().out))
+    assert {"slope", "intercept"} <= set(frame["term"]) and {"a", "b", "(common)"} <= set(frame["group"].dropna())
+
+
+@pytest.mark.parametrize(
+    "extra, message",
+    [
+        (["--x", "nope", "--y", "freq"], "'nope' is not in the table"),
+        (["--x", "label", "--y", "freq"], "not numeric"),
+        (["--x", "mass", "--y", "freq", "--sensitivity"], "--sensitivity is not available yet"),
+        (["--x", "mass", "--y", "freq", "--ci", "95"], "--ci"),
+        (["--x", "mass", "--y", "freq", "--method", "pgls"], "needs a tree"),
+    ],
+)
+def test_bad_input_exit_2_with_message(csv, capsys, extra, message):
+    assert main(["fit", str(csv), *extra]) == 2
+    err = capsys.readouterr().err
+    assert message in err and "Traceback" not in err
+
+
+def test_missing_file_and_too_few_points(tmp_path, capsys):
+    assert main(["fit", str(tmp_path / "none.csv"), "--x", "a", "--y", "b"]) == 2
+    assert "neither a dataset folder nor a CSV" in capsys.readouterr().err
+    p = tmp_path / "small.csv"
+    pd.DataFrame({"taxon": ["a", "b", "c"], "m": [1.0, 2.0, -1.0], "f": [1.0, 2.0, 3.0]}).to_csv(p, index=False)
+    assert main(["fit", str(p), "--x", "m", "--y", "f"]) == 2
+    assert "at least 3 usable points" in capsys.readouterr().err
+    q = tmp_path / "same.csv"
+    pd.DataFrame({"taxon": list("abcd"), "m": [2.0] * 4, "f": [1.0, 2.0, 3.0, 4.0]}).to_csv(q, index=False)
+    assert main(["fit", str(q), "--x", "m", "--y", "f"]) == 2
+    assert "identical" in capsys.readouterr().err
