@@ -56,6 +56,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = [
     "read_tree",
+    "check_tree",
     "TipMatch",
     "match_tips",
     "FlatTree",
@@ -217,8 +218,54 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
     if len(trees) != 1:
         raise _tree_problem(name, "tree-count", f"the file holds {len(trees)} trees; exactly one is needed")
     tree = trees[0]
-    tips = [nd for nd in tree.leaf_node_iter()]
-    labels = [nd.label for nd in tips]
+    _check(_topology(tree), name)
+    return tree
+
+
+@dataclass(frozen=True, eq=False)
+class _Topo:
+    """One pre-order pass over a dendropy tree: parent index, edge length (None if
+    absent) and, for leaves, the label (None if absent)."""
+
+    parent: list[int]
+    length: list[float | None]
+    leaf: dict[int, str | None]
+    inner_label: list[str | None]
+
+    @property
+    def tips(self) -> list[str]:
+        return [str(v) for v in self.leaf.values()]
+
+
+def _topology(tree: Any) -> _Topo:
+    nodes = _preorder(tree)
+    index = {id(nd): i for i, nd in enumerate(nodes)}
+    parent = [-1] * len(nodes)
+    length: list[float | None] = [None] * len(nodes)
+    leaf: dict[int, str | None] = {}
+    inner: list[str | None] = [None] * len(nodes)
+    for i, nd in enumerate(nodes):
+        p = nd.parent_node
+        if p is not None:
+            parent[i] = index[id(p)]
+            length[i] = nd.edge.length
+        if nd.child_nodes():
+            inner[i] = nd.label
+        else:
+            lab = nd.label if nd.label is not None else (nd.taxon.label if nd.taxon is not None else None)
+            leaf[i] = None if lab is None else str(lab)
+    return _Topo(parent, length, leaf, inner)
+
+
+def check_tree(tree: Any, name: str = "tree") -> None:
+    """Raise :class:`InputError` unless every tip has a unique label and every edge
+    (except the root's) a finite, non-negative length. *name* is the file named in
+    the problem."""
+    _check(_topology(tree), name)
+
+
+def _check(topo: _Topo, name: str) -> None:
+    labels = list(topo.leaf.values())
     if any(lab is None or str(lab).strip() == "" for lab in labels):
         raise _tree_problem(name, "tree-tip-label", f"{sum(lab is None or not str(lab).strip() for lab in labels)} tip(s) without a label")
     seen: dict[str, int] = {}
@@ -230,12 +277,9 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
             name, "tree-duplicate-tip", f"duplicate tip label(s): {', '.join(dups[:10])}", "each tip label must occur once", value=dups[0]
         )
     missing, negative = [], []
-    root = tree.seed_node
-    for nd in tree.preorder_node_iter():
-        if nd is root:
-            continue
-        length = nd.edge.length
-        where = nd.label if nd.label is not None else "an internal node"
+    for i in range(1, len(topo.parent)):
+        length = topo.length[i]
+        where = topo.leaf.get(i) or topo.inner_label[i] or "an internal node"
         if length is None:
             missing.append(where)
         elif not math.isfinite(length) or length < 0:
@@ -251,13 +295,17 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
         raise _tree_problem(
             name, "tree-branch-lengths", f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {negative[0]!r})"
         )
-    return tree
 
 
-def _as_tree(tree: Any) -> Any:
+def _as_topo(tree: Any) -> _Topo:
+    """The checked topology of a tree, a Newick file name or Newick text."""
+    if isinstance(tree, _Topo):
+        return tree
     if isinstance(tree, str | Path):
-        return read_tree(tree)
-    return tree
+        tree = read_tree(tree)
+    topo = _topology(tree)
+    _check(topo, "tree")
+    return topo
 
 
 # --------------------------------------------------------------------------- tip matching
@@ -316,12 +364,7 @@ def _preorder(tree: Any) -> list:
     return out
 
 
-def _leaf_label(nd: Any) -> str:
-    return str(nd.label if nd.label is not None or nd.taxon is None else nd.taxon.label)
 
-
-def _tip_labels(tree: Any) -> list[str]:
-    return [_leaf_label(nd) for nd in _preorder(tree) if not nd.child_nodes()]
 
 
 def match_tips(tree: Any, labels: Sequence[str], tree_labels: Mapping[str, str] | None = None) -> TipMatch:
@@ -354,8 +397,11 @@ def match_tips(tree: Any, labels: Sequence[str], tree_labels: Mapping[str, str] 
     >>> m.pairs[0], m.taxa_without_tips, m.tips_without_data
     (('apis mellifera', 'Apis_mellifera', 'name'), ('Homo',), ('Bombus',))
     """
-    tree = _as_tree(tree)
-    tips = _tip_labels(tree)
+    return _match(_as_topo(tree), labels, tree_labels)
+
+
+def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | None) -> TipMatch:
+    tips = topo.tips
     tip_set = set(tips)
     by_key: dict[str, list[str]] = {}
     for tip in tips:
@@ -506,20 +552,14 @@ def flat_tree(tree: Any, tips: Sequence[str] | None = None) -> FlatTree:
     UsageError
         A requested tip is not in the tree, or fewer than 2 tips are kept.
     """
-    tree = _as_tree(tree)
-    nodes = _preorder(tree)
-    index = {id(nd): i for i, nd in enumerate(nodes)}
-    m = len(nodes)
-    par_l = [-1] * m
-    ln_l = [0.0] * m
-    leaf_label: dict[int, str] = {}
-    for i, nd in enumerate(nodes):
-        p = nd.parent_node
-        if p is not None:
-            par_l[i] = index[id(p)]
-            ln_l[i] = float(nd.edge.length or 0.0)
-        if not nd.child_nodes():
-            leaf_label[i] = _leaf_label(nd)
+    return _flat(_as_topo(tree), tips)
+
+
+def _flat(topo: _Topo, tips: Sequence[str] | None) -> FlatTree:
+    par_l = topo.parent
+    m = len(par_l)
+    ln_l = [0.0 if v is None else float(v) for v in topo.length]
+    leaf_label = topo.leaf
     by_label = {lab: i for i, lab in leaf_label.items()}
     if tips is None:
         tips = [leaf_label[i] for i in sorted(leaf_label)]
@@ -961,7 +1001,9 @@ def pgls_fit(
         ``intercept_se``, ``sigma2`` (BM rate, fitted-scale units² per branch-length
         unit), ``df``, ``likelihood`` ("ML" or "REML"), ``loglik_convention``,
         ``r2_kind``, ``lambda_tests`` (``lambda_0``, ``lambda_1``: loglik, statistic,
-        p; None for a fixed lambda), ``group_tests``, ``measurement_error``,
+        p; None for a fixed lambda), ``group_tests`` (with *by*: ``common_slope``
+        with the equal-slopes F test, ``elevation`` F test given the common slope,
+        and the lambda of the interaction model), ``measurement_error``,
         ``tips_pruned`` (tips without usable data) and ``taxa_without_tips``.
 
     Notes
@@ -1004,9 +1046,9 @@ def pgls_fit(
     if se_col is not None and se_col not in table.columns:
         raise UsageError(f"measurement-error column {se_col!r} not in the table")
 
-    tree = _as_tree(tree)
+    topo = _as_topo(tree)
     labels = [str(v) for v in table[taxon_col].tolist()]
-    match = match_tips(tree, labels, tree_labels)
+    match = _match(topo, labels, tree_labels)
     tip_of = match.tip_of
     xv = np.asarray(table[x], dtype=float)
     yv = np.asarray(table[y], dtype=float)
@@ -1048,12 +1090,12 @@ def pgls_fit(
                          f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in all)")
     keep_labels = [labels[i] for i in keep]
     tips = [tip_of[lab] for lab in keep_labels]
-    ft = flat_tree(tree, tips)
+    ft = _flat(topo, tips)
     row_of = {t: i for i, t in zip(keep, tips, strict=True)}
     keep = [row_of[t] for t in ft.tips]  # table rows in the tree's tip order
     keep_labels = [labels[i] for i in keep]
     used_tips = set(tips)
-    pruned = [t for t in _tip_labels(tree) if t not in used_tips]
+    pruned = [t for t in topo.tips if t not in used_tips]
     X1 = _transform(xv[keep], log)
     Y = _transform(yv[keep], log)
 
@@ -1183,15 +1225,22 @@ def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lamb
     tq_add = float(tdist.ppf(0.5 + ci / 2.0, n - G - 1))
     sc = float(add.beta[G])
     sc_se = math.sqrt(add.cov[G, G])
+    slopes = ftest(add, full, G - 1, df_full, slope_pairs)
+    elev = ftest(pooled, add, G - 1, n - G - 1, elev_pairs)
     tests = {
+        "common_slope": {
+            "slope": _f(sc), "slope_ci": [_f(sc - tq_add * sc_se), _f(sc + tq_add * sc_se)],
+            "test": "F (interaction)", "statistic": slopes["statistic"], "df": [slopes["df1"], slopes["df2"]], "p": slopes["p"],
+        },
+        "elevation": {
+            "test": "F", "statistic": elev["statistic"], "df": [elev["df1"], elev["df2"]], "p": elev["p"],
+            "means": [_f(v) for v in add.beta[:G]],
+        },
+        "shift": None,
         "lambda": _f(lam),
         "lambda_ci": None if lf.ci is None else [_f(lf.ci[0]), _f(lf.ci[1])],
         "loglik": _f(lf.loglik),
-        "slope_difference": ftest(add, full, G - 1, df_full, slope_pairs),
-        "common_slope": _f(sc),
-        "common_slope_ci": [_f(sc - tq_add * sc_se), _f(sc + tq_add * sc_se)],
-        "elevation_difference": ftest(pooled, add, G - 1, n - G - 1, elev_pairs),
-        "method": "F tests at the lambda of the interaction model",
+        "note": "F tests at the lambda of the interaction model (separate slopes and intercepts per group)",
     }
     return rows, tests
 
@@ -1202,17 +1251,17 @@ def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lamb
 def _values_on_tree(tree: Any, values: Mapping[str, float]) -> tuple[FlatTree, np.ndarray, TipMatch, list[str], list[str]]:
     """Flat tree pruned to the tips with finite values; the values in tip order; the
     match; labels with non-finite values; pruned tips."""
-    tree = _as_tree(tree)
+    topo = _as_topo(tree)
     labels = [str(k) for k in values]
     vals = {str(k): float(v) for k, v in values.items()}
-    match = match_tips(tree, labels)
+    match = _match(topo, labels, None)
     pairs = [(a, b) for a, b, _ in match.pairs if math.isfinite(vals[a])]
     missing = [a for a, _, _ in match.pairs if not math.isfinite(vals[a])]
     if len(pairs) < 3:
         raise UsageError(f"{len(pairs)} values match tips of the tree; at least 3 are needed")
-    ft = flat_tree(tree, [b for _, b in pairs])
+    ft = _flat(topo, [b for _, b in pairs])
     used = set(ft.tips)
-    pruned = [t for t in _tip_labels(tree) if t not in used]
+    pruned = [t for t in topo.tips if t not in used]
     label_of = {b: a for a, b in pairs}
     return ft, np.array([vals[label_of[t]] for t in ft.tips]), match, missing, pruned
 

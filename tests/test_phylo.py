@@ -202,8 +202,9 @@ def test_pgls_groups():
     assert [g["group"] for g in r["groups"]] == ["a", "b", "c"]
     assert sum(g["n"] for g in r["groups"]) == r["n"] == 44
     assert any("only taxon of group" in e["reason"] for e in r["excluded"])
-    t = r["group_tests"]["slope_difference"]
-    assert t["df1"] == 2 and 0 <= t["p"] <= 1
+    t = r["group_tests"]["common_slope"]
+    assert t["df"] == [2, 44 - 6] and 0 <= t["p"] <= 1
+    assert r["group_tests"]["elevation"]["df"] == [2, 44 - 4]
     json.dumps(r, allow_nan=False)
 
 
@@ -276,3 +277,41 @@ def test_signal_detects_bm_and_no_signal():
     noise = rng.normal(size=ft.n_tips)
     s0 = phylo.signal(nw, dict(zip(ft.tips, noise, strict=True)), permutations=99, seed=1)
     assert s0.lambda_ < 0.5
+
+
+def test_accepts_dendropy_tree_with_taxa_and_checks_it():
+    """Trees read elsewhere (dendropy with a taxon namespace, as the dataset reader does) are
+    accepted and checked the same way."""
+    import dendropy
+
+    t = dendropy.Tree.get(data=FOUR, schema="newick", preserve_underscores=True, rooting="force-rooted")
+    df = pd.DataFrame({"taxon": list("ABCD"), "x": [0.0, 1, 2, 3], "y": [0.5, 1.9, 2.2, 3.8]})
+    a = phylo.pgls_fit(df, "x", "y", tree=t, log="none", lambda_=1.0)
+    b = phylo.pgls_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
+    assert a["slope"] == b["slope"]
+    bad = dendropy.Tree.get(data="((A,B),(C:1,D:1));", schema="newick", rooting="force-rooted")
+    with pytest.raises(InputError):
+        phylo.pgls_fit(df, "x", "y", tree=bad, log="none")
+    with pytest.raises(InputError):
+        phylo.check_tree(bad)
+
+
+def test_cli_fit_pgls_bad_tree_exits_2(tmp_path, capsys):
+    """Through the command line: a malformed tree is exit 2 with a message, no traceback."""
+    pytest.importorskip("comparo.commands.fit")
+    from comparo.cli import main
+
+    nw, df = small_table()
+    data = tmp_path / "t.csv"
+    df.to_csv(data, index=False)
+    tree = tmp_path / "bad.nwk"
+    tree.write_text("((t1:1,t2:1):1,t3:1;")
+    code = main(["fit", str(data), "--x", "mass", "--y", "freq", "--method", "pgls", "--tree", str(tree)])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "bad.nwk" in err and "Traceback" not in err
+    good = tmp_path / "good.nwk"
+    good.write_text(nw)
+    code = main(["fit", str(data), "--x", "mass", "--y", "freq", "--method", "pgls", "--tree", str(good), "--format", "json"])
+    out = json.loads(capsys.readouterr().out)
+    assert code == 0 and out["method"] == "pgls" and out["lambda_ci"] is not None

@@ -356,11 +356,15 @@ def test_groups_interaction_f_matches_statsmodels():
     full = sm.GLS(y, np.column_stack([D, D * x[:, None]]), sigma=S).fit()
     add = sm.GLS(y, np.column_stack([D, x]), sigma=S).fit()
     F, p, dfd = full.compare_f_test(add)
-    t = r["group_tests"]["slope_difference"]
+    t = r["group_tests"]["common_slope"]
     assert t["statistic"] == pytest.approx(F, rel=1e-8)
     assert t["p"] == pytest.approx(p, rel=1e-6)
     np.testing.assert_allclose([row["slope"] for row in r["groups"]], full.params[3:], rtol=1e-8)
-    assert r["group_tests"]["common_slope"] == pytest.approx(add.params[3], rel=1e-8)
+    assert t["slope"] == pytest.approx(add.params[3], rel=1e-8)
+    assert t["slope_ci"] == pytest.approx(list(add.conf_int(0.05)[3]), rel=1e-8)
+    pooled = sm.GLS(y, sm.add_constant(x), sigma=S).fit()
+    Fe, pe, _ = add.compare_f_test(pooled)
+    assert r["group_tests"]["elevation"]["statistic"] == pytest.approx(Fe, rel=1e-8)
 
 
 # --------------------------------------------------------------------------- contrasts and K
