@@ -69,6 +69,8 @@ __all__ = [
     "pic",
     "SignalResult",
     "signal",
+    "blomberg_k",
+    "random_newick",
 ]
 
 _NEWICK_SOURCE = "<newick text>"
@@ -169,7 +171,7 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
     Parameters
     ----------
     path_or_newick : str or Path
-        A file name, or Newick text itself (recognised by its leading ``(``).
+        A file name, or Newick text itself (recognised by its leading ``(`` or ``[``).
         A missing final ``;`` is tolerated.
 
     Returns
@@ -194,7 +196,7 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
     from dendropy.utility.error import DataParseError
 
     src = str(path_or_newick)
-    if src.lstrip().startswith("("):
+    if src.lstrip().startswith(("(", "[")):
         name, text = _NEWICK_SOURCE, src
     else:
         name = src
@@ -1279,16 +1281,16 @@ class Contrasts:
         sqrt(v_first + v_second), the contrast's standard deviation under BM with
         unit rate (sqrt(branch-length unit)).
     node_height : numpy array
-        Height of the node above its deepest tip... measured as
-        max root-to-tip distance minus the node's distance from the root.
+        Height of the contrast's node: the largest root-to-tip distance minus the
+        node's distance from the root (its age on an ultrametric tree), branch-length units.
     root_value, root_variance : float
         Root estimate (= the GLS mean under BM) and its extra variance (times sigma²).
     r_abs_sd, p_abs_sd : float
         Pearson correlation of |u| with sd, and its p: a standardisation check
         (Garland, Harvey & Ives 1992, Syst Biol 41:18-32): it should be near 0.
     r_abs_height, p_abs_height : float
-        Correlation of |u| with node height (Freckleton 2000-style diagnostic of
-        rate change through time; near 0 under BM).
+        Pearson correlation of |u| with node height, and its p: near 0 under BM; a
+        trend suggests the rate of evolution changed through time.
     tips_used, taxa_without_tips, tips_pruned : tuple of str
     """
 
@@ -1491,7 +1493,7 @@ def blomberg_k(ft: FlatTree, Y: np.ndarray) -> np.ndarray:
 def signal(tree: Any, values: Mapping[str, float], permutations: int = 999, seed: int | None = 20240601, ci: float = 0.95) -> SignalResult:
     """Pagel's lambda (ML, with LR tests of 0 and 1) and Blomberg's K with a
     seeded permutation test (tip values shuffled; permutations share passes of
-    the linear-time engine, in blocks of 512 columns).
+    the linear-time engine, in blocks of up to 512 columns).
 
     Parameters
     ----------
@@ -1517,8 +1519,9 @@ def signal(tree: Any, values: Mapping[str, float], permutations: int = 999, seed
         rng = np.random.default_rng(seed)
         hits = 0
         done = 0
+        block = int(max(1, min(512, 10_000_000 // (2 * ft.n_nodes))))  # ~160 MB of state at most
         while done < permutations:
-            m = min(512, permutations - done)
+            m = min(block, permutations - done)
             Yp = rng.permuted(np.tile(yv, (m, 1)), axis=1).T
             hits += int(np.sum(blomberg_k(ft, Yp) >= K - 1e-12 * abs(K)))
             done += m
@@ -1539,12 +1542,13 @@ def random_newick(n_tips: int, seed: int | None = None, *, ultrametric: bool = F
     """A random rooted tree with branch lengths, as Newick text (for simulation
     checks and benchmarks).
 
-    Lineages are joined at random, two at a time, until one remains (a coalescent-
-    like topology). With ``ultrametric`` each join happens after an exponential
-    waiting time (rate = number of lineage pairs... here 1/lineages, scaled) and all
-    tips end at height 0; otherwise every edge length is drawn from an exponential
-    (mean 1) and tips sit at different depths. With probability ``polytomy`` a join
-    takes three lineages instead of two (a multifurcation). Tips are ``t1 .. tn``.
+    Lineages are joined at random, two at a time, until one remains. With
+    ``ultrametric`` each join happens after an exponential waiting time of mean
+    2/(m - 1) for m lineages (pure-birth-like spacing) and all tips end at height 0;
+    otherwise every edge length is 0.001 plus an exponential of mean 1, so tips sit at
+    different depths. With probability ``polytomy`` a join takes three lineages
+    instead of two (a multifurcation). Tips are ``t1 .. tn``. Seeded with
+    ``numpy.random.default_rng(seed)``.
     """
     rng = np.random.default_rng(seed)
     if n_tips < 2:
@@ -1556,7 +1560,7 @@ def random_newick(n_tips: int, seed: int | None = None, *, ultrametric: bool = F
         k = 3 if (len(clusters) >= 3 and rng.random() < polytomy) else 2
         m = len(clusters)
         pick = rng.choice(m, size=k, replace=False)
-        now += rng.exponential(2.0 / (m * (m - 1) / 2 + 1.0) * m / 2.0) if ultrametric else 0.0
+        now += float(rng.exponential(2.0 / (m - 1))) if ultrametric else 0.0
         parts = []
         new_height = now if ultrametric else max(heights[i] for i in pick) + 1.0
         for i in pick:
