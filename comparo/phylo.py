@@ -850,6 +850,7 @@ class _LambdaFit:
     ll0: float | None
     ll1: float | None
     fit: _Gls
+    top: float | None  # upper end of the search (1, or 1 - 1e-6 with zero-length tip edges)
 
 
 def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: np.ndarray | None, reml: bool, ci: float) -> _LambdaFit:
@@ -867,17 +868,23 @@ def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: n
         if not 0.0 <= lam <= 1.0:
             raise UsageError(f"--lambda must be in [0, 1], got {lam}")
         g = _gls(ft, X, y, lam, se2, reml)
-        return _LambdaFit(lam, None, _ll(g, reml), None, None, g)
+        return _LambdaFit(lam, None, _ll(g, reml), None, None, g, None)
 
+    # a zero-length tip edge has zero variance at lambda = 1 (no measurement error):
+    # the engine needs t > 0 there, so the search stops just short of 1
+    zero = ft.length[: ft.n_tips] <= 0
+    if se2 is not None:
+        zero &= se2 <= 0
+    top = 1.0 - 1e-6 if np.any(zero) else 1.0
     cache: dict[float, float] = {}
 
     def ll(lam: float) -> float:
-        lam = float(min(1.0, max(0.0, lam)))
+        lam = float(min(top, max(0.0, lam)))
         if lam not in cache:
             cache[lam] = _ll(_gls(ft, X, y, lam, se2, reml), reml)
         return cache[lam]
 
-    grid = np.linspace(0.0, 1.0, 11)
+    grid = np.linspace(0.0, top, 11)
     vals = np.array([ll(v) for v in grid])
     i = int(np.nanargmax(vals))
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
@@ -899,7 +906,7 @@ def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: n
             lower = brentq(g, v, right, xtol=1e-6) if g(right) < 0 else right
             break
     above = [v for v in grid if v > lam_hat]
-    upper = 1.0
+    upper = top
     for v in above:
         if g(v) > 0:
             left = max([w for w in grid if w < v] + [lam_hat])
@@ -907,7 +914,7 @@ def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: n
             upper = brentq(g, left, v, xtol=1e-6) if g(left) < 0 else left
             break
     fit = _gls(ft, X, y, lam_hat, se2, reml)
-    return _LambdaFit(lam_hat, (float(lower), float(upper)), ll_max, ll(0.0), ll(1.0), fit)
+    return _LambdaFit(lam_hat, (float(lower), float(upper)), ll_max, ll(0.0), ll(top), fit, top)
 
 
 def _lr(ll_max: float, ll_h: float | None) -> dict | None:
@@ -1138,7 +1145,10 @@ def pgls_fit(
     lam_tests = None
     if lf.ll0 is not None:
         lam_tests = {"lambda_0": _lr(lf.loglik, lf.ll0), "lambda_1": _lr(lf.loglik, lf.ll1),
-                     "null_distribution": "chi2(1); conservative on the boundary of [0, 1]"}
+                     "null_distribution": "chi2(1); conservative on the boundary of [0, 1]",
+                     "search_interval": [0.0, lf.top],
+                     "note": None if lf.top == 1.0 else
+                     "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is evaluated there"}
     return {
         "method": "pgls",
         "x": x,

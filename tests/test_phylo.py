@@ -216,6 +216,10 @@ def test_zero_tip_edge_is_clear_error():
     # lambda < 1 gives the tip a positive variance
     r = phylo.pgls_fit(df, "x", "y", tree="((A:0,B:1):1,(C:1,D:1):1);", log="none", lambda_=0.5)
     assert np.isfinite(r["slope"])
+    # the ML search stops short of 1 and says so
+    r = phylo.pgls_fit(df, "x", "y", tree="((A:0,B:1):1,(C:1,D:1):1);", log="none", lambda_="ml")
+    assert r["lambda_tests"]["search_interval"] == [0.0, 1.0 - 1e-6]
+    assert r["lambda_ci"][1] <= 1.0 - 1e-6 and r["lambda_tests"]["note"]
 
 
 # --------------------------------------------------------------------------- flat tree
