@@ -18,15 +18,21 @@ from typing import Any
 from comparo.errors import InputError, Problem
 
 
-def schema_path(name: str) -> Path:
-    """Path of a file in ``schema/`` (inside the installed package, or the source tree)."""
+def package_folder(name: str) -> Path:
+    """A top-level data folder shipped in the wheel as ``comparo.<name>``
+    (``schema``, ``demo_tables``), or found in the source tree."""
     try:
-        p = Path(str(resources.files("comparo.schema").joinpath(name)))
-        if p.exists():
+        p = Path(str(resources.files(f"comparo.{name}")))
+        if p.is_dir():
             return p
     except ModuleNotFoundError:  # pragma: no cover - source tree without install
         pass
-    return Path(__file__).resolve().parent.parent / "schema" / name
+    return Path(__file__).resolve().parent.parent / name
+
+
+def schema_path(name: str) -> Path:
+    """Path of a file in ``schema/``."""
+    return package_folder("schema") / name
 
 
 @lru_cache(maxsize=8)

@@ -25,7 +25,7 @@ class Problem:
     file or column.
     """
 
-    severity: str  # "error" | "warning"
+    severity: str  # "error" (stops the analysis) | "warning" | "note" (information)
     file: str
     row: int | None
     column: str | None
@@ -61,9 +61,22 @@ def problems_frame(problems: list[Problem]) -> pd.DataFrame:
     if frame.empty:
         return frame
     frame["row"] = frame["row"].astype("Int64")
-    order = frame["severity"].map({"error": 0, "warning": 1}).fillna(2)
+    order = frame["severity"].map({"error": 0, "warning": 1, "note": 2}).fillna(3)
     frame = frame.assign(_o=order).sort_values(["_o", "file", "row"], kind="stable")
     return frame.drop(columns="_o").reset_index(drop=True)
+
+
+def problems_from_frame(frame: pd.DataFrame) -> list[Problem]:
+    """The inverse of :func:`problems_frame` (missing cells become None)."""
+    import pandas as pd
+
+    out = []
+    for rec in frame.to_dict("records"):
+        clean = {k: (None if not isinstance(v, str) and pd.isna(v) else v) for k, v in rec.items()}
+        if clean.get("row") is not None:
+            clean["row"] = int(clean["row"])
+        out.append(Problem(**clean))
+    return out
 
 
 class ComparoError(Exception):

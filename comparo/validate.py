@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from comparo.catalog import Catalog, load_catalog, read_schema
-from comparo.errors import InputError, Problem, problems_frame
+from comparo.errors import InputError, Problem, problems_frame, problems_from_frame
 from comparo.io import Dataset, RawDataset, RawTable, read_folder
 
 BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
@@ -341,7 +341,7 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
     try:
         catalog = load_catalog(raw.settings.get("quantities"))
     except InputError as exc:
-        problems += [Problem(**{k: (None if pd.isna(v) else v) if not isinstance(v, str) else v for k, v in r.items()}) for r in exc.problems.to_dict("records")]
+        problems += problems_from_frame(exc.problems)
         catalog = load_catalog()
     problems += _settings_problems(raw.settings, catalog)
     if raw.observations is None or raw.sources is None:
@@ -389,6 +389,7 @@ class CheckResult:
     folder: str
     rows_read: int
     problems: pd.DataFrame
+    dataset: Dataset | None = None  # the validated dataset (None when unreadable)
 
     @property
     def n_errors(self) -> int:
@@ -399,19 +400,23 @@ class CheckResult:
         return int((self.problems["severity"] == "warning").sum())
 
     @property
+    def n_notes(self) -> int:
+        return int((self.problems["severity"] == "note").sum())
+
+    @property
     def ok(self) -> bool:
         return self.n_errors == 0
 
     def to_dict(self) -> dict[str, Any]:
         recs = self.problems.astype(object).where(self.problems.notna(), None).to_dict("records")
-        return {"folder": self.folder, "rows_read": self.rows_read, "errors": self.n_errors, "warnings": self.n_warnings, "problems": recs}
+        return {"folder": self.folder, "rows_read": self.rows_read, "errors": self.n_errors, "warnings": self.n_warnings, "notes": self.n_notes, "problems": recs}
 
     def to_frame(self) -> pd.DataFrame:
         return self.problems
 
     def summary(self) -> str:
         verdict = "no errors" if self.ok else f"{self.n_errors} error(s)"
-        return f"{self.folder}: {self.rows_read} observation row(s) read; {verdict}, {self.n_warnings} warning(s)"
+        return f"{self.folder}: {self.rows_read} observation row(s) read; {verdict}, {self.n_warnings} warning(s), {self.n_notes} note(s)"
 
 
 def check(folder) -> CheckResult:
@@ -420,4 +425,7 @@ def check(folder) -> CheckResult:
     raw = read_folder(folder)
     ds, problems = validate(raw)
     rows = len(raw.observations) if raw.observations is not None else 0
-    return CheckResult(str(folder), rows, problems_frame(problems))
+    frame = problems_frame(problems)
+    if ds is not None:
+        ds.problems = frame
+    return CheckResult(str(folder), rows, frame, ds)

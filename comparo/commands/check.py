@@ -21,7 +21,7 @@ def render_problems(result) -> None:
 
     console = Console(soft_wrap=False, width=None if sys.stdout.isatty() else 140)
     frame = result.problems
-    for severity, style in (("error", "bold red"), ("warning", "yellow")):
+    for severity, style in (("error", "bold red"), ("warning", "yellow"), ("note", "cyan")):
         part = frame[frame["severity"] == severity]
         if part.empty:
             continue
@@ -42,9 +42,9 @@ def render_problems(result) -> None:
 
 
 def run(args) -> int:
-    from comparo.validate import check
+    from comparo.curate import review
 
-    result = check(args.dataset)
+    result = review(args.dataset)
     if args.format == "json":
         emit(dumps(result.to_dict()))
     elif args.format == "csv":

@@ -1,0 +1,65 @@
+"""``comparo audit DATASET``: provenance audit and row accounting."""
+
+from __future__ import annotations
+
+import sys
+
+from comparo.commands._common import dumps, emit
+
+
+def run(args) -> int:
+    from comparo.io import load
+    from comparo.provenance import audit
+
+    ds = load(args.dataset, strict=False)
+    report = audit(ds, temperature=not args.no_temperature)
+    if args.format == "json":
+        emit(dumps(report.to_dict()))
+    elif args.format == "csv":
+        sys.stdout.write(report.to_frame().to_csv(index=False))
+    else:
+        _render(report)
+    errors = (ds.problems["severity"] == "error").sum() if len(ds.problems) else 0
+    if errors:
+        print(f"{errors} row-level error(s): those rows are excluded (run 'comparo check' for details)", file=sys.stderr)
+        return 2
+    if args.strict and (report.conflicts or report.unit_slips):
+        return 1
+    return 0
+
+
+def _render(report) -> None:
+    from rich.console import Console
+    from rich.table import Table
+
+    console = Console(width=None if sys.stdout.isatty() else 120)
+    console.print(report.summary())
+    if report.rows_excluded:
+        t = Table(title="excluded rows", title_justify="left")
+        for c in ("obs_id", "row", "reason"):
+            t.add_column(c)
+        for r in report.rows_excluded:
+            t.add_row(r["obs_id"], str(r["row"]), r["reason"])
+        console.print(t)
+    if report.conflicts:
+        t = Table(title="conflicts", title_justify="left")
+        for c in ("taxon", "quantity", "obs_ids", "sources"):
+            t.add_column(c)
+        for c in report.conflicts:
+            t.add_row(c["taxon"], c["quantity"], "; ".join(c["obs_ids"]), "; ".join(c["sources"]))
+        console.print(t)
+    t = Table(title="basis mix per quantity (share of used values)", title_justify="left")
+    t.add_column("quantity")
+    from comparo.validate import BASIS_ORDER
+
+    for b in BASIS_ORDER:
+        t.add_column(b, justify="right")
+    for q, s in report.basis_shares.items():
+        t.add_row(q, *[f"{100 * s[b]:.0f}%" if b in s else "" for b in BASIS_ORDER])
+    console.print(t)
+    t = Table(title="sources", title_justify="left")
+    for c in ("source_id", "values", "taxa"):
+        t.add_column(c, justify="right" if c != "source_id" else "left")
+    for sid, v in sorted(report.sources.items(), key=lambda kv: -kv[1]["values"]):
+        t.add_row(sid, str(v["values"]), str(v["taxa"]))
+    console.print(t)

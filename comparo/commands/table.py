@@ -1,0 +1,15 @@
+"""``comparo table DATASET``: the per-taxon harmonised table as CSV."""
+
+from __future__ import annotations
+
+from comparo.commands._common import emit
+
+
+def run(args) -> int:
+    from comparo.curate import per_taxon
+    from comparo.io import load
+
+    ds = load(args.dataset)
+    table = per_taxon(ds, temperature=not args.no_temperature, aggregate=args.aggregate)
+    emit(table.to_csv(index=False, float_format="%.6g"), args.output)
+    return 0

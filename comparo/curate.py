@@ -1,0 +1,439 @@
+"""Harmonise a validated dataset and aggregate it to one row per taxon.
+
+Steps, each a pure function over the observation frame of a
+:class:`~comparo.io.Dataset`:
+
+1. names: reported names -> accepted names (taxa.csv), the mapping recorded;
+2. temperature: temperature-sensitive values -> the reference temperature
+   (Q10, or Arrhenius where an activation energy is given), factor recorded;
+3. standard uncertainty: sd/se/ci95/range_half -> a standard uncertainty of
+   the reported value (GUM, JCGM 100:2008);
+4. diagnostics: duplicates (merged), suspected unit slips, conflicts;
+5. :func:`per_taxon`: one row per accepted taxon with value, uncertainty,
+   count, sources, weakest basis and obs ids per quantity.
+
+Every row ends as ``used``, ``merged`` (a duplicate of another row) or
+``excluded`` (with a reason): see :func:`harmonise`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from comparo.errors import Problem, problems_frame, problems_from_frame
+from comparo.io import Dataset
+from comparo.validate import BASIS_ORDER, CheckResult
+
+R_GAS = 8.314462618  # J mol^-1 K^-1 (CODATA 2018, exact)
+SLIP_POWERS = (3, 6, 1)  # orders of magnitude a unit slip typically shifts a value by
+DEFAULT_CONFLICT_FACTOR = 1.5  # common practice: values of one taxon differing by > 50% with no uncertainty given
+CONFLICT_COVERAGE = 2.0  # common practice: |a - b| > 2 u_c (about 95% for normal errors)
+
+
+# --------------------------------------------------------------------------- names
+
+def accepted_names(ds: Dataset) -> pd.Series:
+    """Accepted name per observation row (taxa.csv ``accepted_name`` where given)."""
+    taxon = ds.observations["taxon"]
+    if ds.taxa is None or "accepted_name" not in ds.taxa:
+        return taxon.copy()
+    mapping = {t: a for t, a in zip(ds.taxa["taxon"], ds.taxa["accepted_name"], strict=True) if a}
+    return taxon.map(lambda t: mapping.get(t, t))
+
+
+def grouping_columns(ds: Dataset) -> list[str]:
+    """Columns of taxa.csv that group taxa (everything except the name columns)."""
+    if ds.taxa is None:
+        return []
+    return [c for c in ds.taxa.columns if c not in ("taxon", "accepted_name", "tree_label")]
+
+
+def taxon_groups(ds: Dataset) -> pd.DataFrame:
+    """Grouping columns per accepted name (the accepted name's own row wins)."""
+    cols = grouping_columns(ds)
+    if not cols:
+        return pd.DataFrame(columns=["taxon"])
+    t = ds.taxa.copy()
+    t["accepted"] = [a or n for n, a in zip(t["taxon"], t.get("accepted_name", t["taxon"]), strict=True)]
+    t["own"] = t["taxon"] == t["accepted"]
+    t = t.sort_values("own", ascending=False, kind="stable").drop_duplicates("accepted")
+    return t[["accepted", *cols]].rename(columns={"accepted": "taxon"})
+
+
+# --------------------------------------------------------------------------- uncertainty
+
+def standard_uncertainty(u: pd.Series, kind: pd.Series, n: pd.Series) -> pd.Series:
+    """Standard uncertainty of a reported value from its spread.
+
+    ``se``: as is. ``sd``: sd/sqrt(n) when n is known (the value is a mean of n),
+    else sd. ``ci95``: half-width / t(0.975, n-1), or / 1.96 when n is unknown.
+    ``range_half``: a/sqrt(3), the rectangular distribution (GUM 4.3.7). An
+    uncertainty without a kind is taken as a standard deviation.
+    """
+    from scipy.special import stdtrit  # Student t quantile (lighter import than scipy.stats)
+
+    u = u.astype(float)
+    n = n.astype(float)
+    kind = kind.fillna("").replace("", "sd")
+    out = pd.Series(np.nan, index=u.index)
+    has_n = n.notna() & (n >= 1)
+    sd = kind == "sd"
+    out[sd] = np.where(has_n[sd], u[sd] / np.sqrt(n[sd].where(has_n[sd], 1.0)), u[sd])
+    out[kind == "se"] = u[kind == "se"]
+    ci = kind == "ci95"
+    dof = (n[ci] - 1).where(n[ci] >= 2)
+    tq = pd.Series(np.where(dof.notna(), stdtrit(dof.fillna(1.0), 0.975), 1.959963984540054), index=dof.index)
+    out[ci] = u[ci] / tq
+    rh = kind == "range_half"
+    out[rh] = u[rh] / math.sqrt(3.0)
+    return out
+
+
+# --------------------------------------------------------------------------- temperature
+
+@dataclass(frozen=True)
+class TemperatureRule:
+    """How one quantity is brought to the reference temperature."""
+
+    q10: float | None = None
+    activation_energy_kj_mol: float | None = None
+
+
+def temperature_factor(t_meas: np.ndarray, t_ref: float, q10: np.ndarray, ea_kj: np.ndarray, is_time: np.ndarray) -> np.ndarray:
+    """Factor that brings a rate measured at ``t_meas`` °C to ``t_ref`` °C.
+
+    Q10: R(T_ref) = R(T)·Q10^((T_ref − T)/10). Arrhenius (where an activation
+    energy Ea in kJ/mol is given): R(T_ref)/R(T) = exp(−Ea/R·(1/T_ref − 1/T)),
+    T in kelvin. A time (kinetic_time) gets the reciprocal factor.
+    NaN where the temperature is unknown.
+    """
+    arr = np.exp(-(ea_kj * 1e3) / R_GAS * (1.0 / (t_ref + 273.15) - 1.0 / (t_meas + 273.15)))
+    fac = np.where(np.isfinite(ea_kj), arr, q10 ** ((t_ref - t_meas) / 10.0))
+    return np.where(is_time, 1.0 / fac, fac)
+
+
+def q10_from_activation_energy(ea_kj_mol: float, t1_c: float, t2_c: float) -> float:
+    """Q10 implied by an Arrhenius activation energy over [t1, t2] °C:
+    Q10 = (k2/k1)^(10/(T2−T1)) with k = A exp(−Ea/(R T))."""
+    k = math.exp(-(ea_kj_mol * 1e3) / R_GAS * (1 / (t2_c + 273.15) - 1 / (t1_c + 273.15)))
+    return k ** (10.0 / (t2_c - t1_c))
+
+
+# --------------------------------------------------------------------------- harmonise
+
+@dataclass
+class Harmonised:
+    """The observation rows after harmonisation, with their fate.
+
+    Attributes
+    ----------
+    rows : pandas.DataFrame
+        One row per observation read, with ``accepted`` (accepted name),
+        ``value_h`` / ``u_h`` (value and standard uncertainty in the canonical
+        unit, at the reference temperature where normalised),
+        ``temperature_factor``, ``temperature_note``, ``status``
+        (``used``/``merged``/``excluded``), ``merged_into`` and ``reason``.
+    conflicts, unit_slips : list of dict
+    reference_temperature_c : float or None
+        None when temperature normalisation is off.
+    """
+
+    rows: pd.DataFrame
+    conflicts: list[dict[str, Any]] = field(default_factory=list)
+    unit_slips: list[dict[str, Any]] = field(default_factory=list)
+    reference_temperature_c: float | None = None
+
+
+def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool = True) -> Harmonised:
+    """Names, temperature, uncertainty, duplicates, slips and conflicts (see module doc)."""
+    cat = ds.catalog
+    obs = ds.observations.copy()
+    obs["accepted"] = accepted_names(ds)
+    obs["u_h"] = standard_uncertainty(obs["uncertainty_canonical"], obs["uncertainty_kind"], obs["n"]).to_numpy()
+    keys = obs["quantity_key"]
+    ts = keys.map(lambda k: bool(k) and k in cat and cat[k].temperature_sensitive).to_numpy(dtype=bool)
+    is_time = keys.map(lambda k: bool(k) and k in cat and cat[k].is_time).to_numpy(dtype=bool)
+    settings = ds.settings
+    q10_set = settings.get("q10", {}) if isinstance(settings.get("q10", {}), dict) else {}
+    ea_set = settings.get("activation_energy_kj_mol", {}) if isinstance(settings.get("activation_energy_kj_mol", {}), dict) else {}
+    q10 = keys.map(lambda k: float(q10_set.get(k, cat[k].q10 or np.nan)) if k in cat else np.nan).to_numpy(dtype=float)
+    q10 = np.where(np.isfinite(obs["q10"].to_numpy(dtype=float)), obs["q10"].to_numpy(dtype=float), q10)
+    ea = keys.map(lambda k: float(ea_set.get(k, np.nan))).to_numpy(dtype=float)
+    t_meas = obs["temperature_c"].to_numpy(dtype=float)
+    t_ref = ds.reference_temperature_c
+    factor = np.ones(len(obs))
+    note = np.full(len(obs), "", dtype=object)
+    if temperature:
+        f = temperature_factor(t_meas, t_ref, q10, ea, is_time)
+        known = ts & np.isfinite(t_meas)
+        factor = np.where(known, f, 1.0)
+        note[known] = [f"x{fa:.4g} ({'Arrhenius' if np.isfinite(e) else f'Q10 {q:g}'}, {t:g} -> {t_ref:g} °C)" for fa, q, e, t in zip(factor[known], q10[known], ea[known], t_meas[known], strict=True)]
+        note[ts & ~np.isfinite(t_meas)] = "no temperature: used un-normalised"
+    obs["temperature_factor"] = factor
+    obs["temperature_note"] = note
+    obs["value_h"] = obs["value_canonical"].to_numpy(dtype=float) * factor
+    obs["u_h"] = obs["u_h"].to_numpy(dtype=float) * factor
+
+    status = np.where(obs["problem"] != "", "excluded", "used").astype(object)
+    reason = obs["problem"].to_numpy(dtype=object).copy()
+    merged_into = np.full(len(obs), "", dtype=object)
+
+    # duplicates: same source, locator, taxon, quantity and value (to 6 significant digits)
+    v6 = obs["value_canonical"].map(lambda v: f"{v:.6g}" if np.isfinite(v) else "")
+    dkey = obs["source_id"] + "\x1f" + obs["locator"].str.lower().str.replace(r"\s+", "", regex=True) + "\x1f" + obs["accepted"] + "\x1f" + keys + "\x1f" + v6
+    live = status == "used"
+    first = {}
+    for i in np.flatnonzero(live):
+        k = dkey.iat[i]
+        if k in first:
+            status[i] = "merged"
+            merged_into[i] = obs["obs_id"].iat[first[k]]
+            reason[i] = f"duplicate of {merged_into[i]} (same source, locator, taxon, quantity, value)"
+        else:
+            first[k] = i
+    obs["status"], obs["reason"], obs["merged_into"] = status, reason, merged_into
+
+    h = Harmonised(obs, reference_temperature_c=t_ref if temperature else None)
+    h.unit_slips = find_unit_slips(obs, ds)
+    if exclude_unit_slips:
+        slip_ids = {s["obs_id"]: s for s in h.unit_slips}
+        m = obs["obs_id"].isin(list(slip_ids)) & (obs["status"] == "used")
+        obs.loc[m, "status"] = "excluded"
+        obs.loc[m, "reason"] = [f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit {slip_ids[o]['likely_unit']}" for o in obs.loc[m, "obs_id"]]
+    h.conflicts = find_conflicts(obs, ds)
+    return h
+
+
+_SLIP_UNITS = {
+    "length": ["nm", "um", "mm", "cm", "m"], "mass": ["ug", "mg", "g", "kg"], "stress": ["Pa", "kPa", "MPa", "GPa"],
+    "time": ["us", "ms", "s"], "rate": ["1/s", "1/ms"], "frequency": ["Hz", "kHz"], "area": ["nm**2", "um**2", "mm**2", "m**2"],
+    "viscosity": ["uPa*s", "mPa*s", "Pa*s"],
+}
+
+
+def find_unit_slips(obs: pd.DataFrame, ds: Dataset) -> list[dict[str, Any]]:
+    """Values off their group's median by close to a power of ten typical of a unit slip.
+
+    For each quantity, the log10 distance d of a value from the median of its
+    group (taxa.csv's first grouping column when that group has at least 5
+    values of the quantity, else all taxa) is compared with 10^3 and 10^6
+    (|d| within 0.5 decade of 3 or 6, and more than 4 robust spreads from the
+    median). A shift of 10^1 is flagged only when the value is also outside the
+    catalogue's plausible range: size-dependent quantities legitimately vary
+    tenfold across taxa. The likely unit is the one that removes the shift.
+    """
+    from comparo import units
+
+    cat = ds.catalog
+    gcols = grouping_columns(ds)
+    df = obs[(obs["status"] == "used") & np.isfinite(obs["value_h"]) & (obs["value_h"] > 0)].copy()
+    if df.empty:
+        return []
+    df["_lv"] = np.log10(df["value_h"].to_numpy(float))
+    if gcols:
+        g = taxon_groups(ds).set_index("taxon")[gcols[0]]
+        df["_g"] = df["accepted"].map(g).fillna("")
+    else:
+        df["_g"] = ""
+
+    def centre(keys):
+        grp = df.groupby(keys, sort=False)["_lv"]
+        med = grp.transform("median")
+        mad = 1.4826 * (df["_lv"] - med).abs().groupby([df[k] for k in keys], sort=False).transform("median")
+        return med, mad, grp.transform("size")
+
+    med_all, mad_all, n_all = centre(["quantity_key"])
+    med_g, mad_g, n_g = centre(["quantity_key", "_g"])
+    use_g = n_g >= 5
+    med = med_g.where(use_g, med_all)
+    spread = mad_g.where(use_g, mad_all)
+    n = n_g.where(use_g, n_all)
+    d = df["_lv"] - med
+    lo = df["quantity_key"].map(lambda k: cat[k].range[0] if cat[k].range else 0.0).astype(float)
+    hi = df["quantity_key"].map(lambda k: cat[k].range[1] if cat[k].range else np.inf).astype(float)
+    outside = (df["value_h"] < lo) | (df["value_h"] > hi)
+    out = []
+    cand = (n >= 5) & (d.abs() > 0.85) & (d.abs() > 4 * np.maximum(spread, 0.05))
+    for i in np.flatnonzero(cand.to_numpy()):
+        r = df.iloc[i]
+        di = float(d.iat[i])
+        for p in SLIP_POWERS:
+            ok = abs(abs(di) - p) < 0.5 if p >= 3 else (abs(abs(di) - p) < 0.15 and bool(outside.iat[i]))
+            if ok:
+                power = -p if di < 0 else p
+                likely = _likely_unit(r["unit"], cat[r["quantity_key"]].kind, -power, units)
+                out.append({"obs_id": r["obs_id"], "row": int(r["row"]), "taxon": r["accepted"], "quantity": r["quantity_key"],
+                            "value": float(r["value"]), "unit": r["unit"], "power": power,
+                            "likely_unit": likely or f"{r['unit']} x 10^{-power}", "group_median": float(10 ** med.iat[i])})
+                break
+    return out
+
+
+def _likely_unit(unit: str, kind: str, power: int, units) -> str | None:
+    """Unit u' with value[u'] = value[unit] x 10^power, i.e. conversion u' -> unit = 10^power."""
+    for cand in _SLIP_UNITS.get(kind, []):
+        try:
+            f = units.conversion_factor(cand, unit)
+        except Exception:
+            continue
+        if f > 0 and abs(math.log10(f) - power) < 1e-6:
+            return cand
+    return None
+
+
+def find_conflicts(obs: pd.DataFrame, ds: Dataset, factor: float | None = None) -> list[dict[str, Any]]:
+    """Pairs of values of one taxon and quantity (from different rows) that disagree.
+
+    With both uncertainties known: |a − b| > 2·sqrt(u_a² + u_b²) (common
+    practice). Otherwise: max/min > ``conflict_factor`` (settings, default 1.5).
+    One entry per (taxon, quantity) listing every row and source involved.
+    """
+    factor = float(factor or ds.settings.get("conflict_factor", DEFAULT_CONFLICT_FACTOR))
+    df = obs[(obs["status"] == "used") & np.isfinite(obs["value_h"])]
+    out = []
+    for (taxon, q), part in df.groupby(["accepted", "quantity_key"], sort=False):
+        if len(part) < 2:
+            continue
+        v, u = part["value_h"].to_numpy(float), part["u_h"].to_numpy(float)
+        ids, src = part["obs_id"].tolist(), part["source_id"].tolist()
+        involved = set()
+        for i in range(len(v)):
+            for j in range(i + 1, len(v)):
+                if np.isfinite(u[i]) and np.isfinite(u[j]) and (u[i] > 0 or u[j] > 0):
+                    bad = abs(v[i] - v[j]) > CONFLICT_COVERAGE * math.hypot(u[i], u[j])
+                else:
+                    bad = max(v[i], v[j]) / min(v[i], v[j]) > factor if min(v[i], v[j]) > 0 else False
+                if bad:
+                    involved |= {i, j}
+        if involved:
+            k = sorted(involved)
+            out.append({"taxon": taxon, "quantity": q, "obs_ids": [ids[i] for i in k], "sources": sorted({src[i] for i in k}),
+                        "values": [float(v[i]) for i in k], "rows": [int(part["row"].iat[i]) for i in k]})
+    return out
+
+
+def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
+    """Curation findings as Problems for ``comparo check``: duplicates, suspected unit
+    slips and conflicts (warnings), digitized/proxy/assumed values and synonyms (notes)."""
+    h = harmonise(ds, temperature=temperature)
+    file = ds.files["observations"].name if "observations" in ds.files else "observations"
+    rows = h.rows
+    out: list[Problem] = []
+    for r in rows[rows["status"] == "merged"].itertuples():
+        out.append(Problem("warning", file, int(r.row), "obs_id", r.obs_id, "duplicate-row", r.reason, "it is merged, not double counted; delete one of the two rows"))
+    for s in h.unit_slips:
+        out.append(Problem("warning", file, s["row"], "unit", s["unit"], "unit-slip", f"{s['quantity']} of {s['taxon']} is ~10^{s['power']} off the group median ({s['group_median']:.3g}); likely unit {s['likely_unit']}", "check the unit; the value is excluded from aggregation until fixed"))
+    for c in h.conflicts:
+        for oid, row in zip(c["obs_ids"], c["rows"], strict=True):
+            others = ", ".join(o for o in c["obs_ids"] if o != oid)
+            out.append(Problem("warning", file, row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']} disagrees with {others} (sources {', '.join(c['sources'])})", "check both sources; the per-taxon value combines them"))
+    for b in ("digitized", "proxy", "assumed"):
+        for r in rows[rows["basis"] == b].itertuples():
+            extra = f" (stands in from {r.proxy_taxon})" if b == "proxy" else ""
+            out.append(Problem("note", file, int(r.row), "basis", b, f"basis-{b}", f"{r.quantity_key} of {r.accepted} is {b}{extra}", ""))
+    syn = rows[rows["accepted"] != rows["taxon"]]
+    for name, part in syn.groupby("taxon"):
+        out.append(Problem("note", file, int(part["row"].iat[0]), "taxon", name, "synonym", f"reported name mapped to accepted name {part['accepted'].iat[0]!r} ({len(part)} row(s))", ""))
+    return out
+
+
+def review(folder) -> CheckResult:
+    """:func:`comparo.validate.check` plus, when the table has no errors, the
+    curation :func:`diagnostics` (what ``comparo check`` prints)."""
+    from dataclasses import replace
+
+    from comparo.validate import check
+
+    result = check(folder)
+    if result.ok and result.dataset is not None:
+        found = problems_from_frame(result.problems) + diagnostics(result.dataset)
+        result = replace(result, problems=problems_frame(found))
+    return result
+
+
+# --------------------------------------------------------------------------- per taxon
+
+def _combine(part: pd.DataFrame, how: str) -> tuple[float, float]:
+    v = part["value_h"].to_numpy(float)
+    u = part["u_h"].to_numpy(float)
+    n = part["n"].to_numpy(float)
+    if len(v) == 1:
+        return float(v[0]), float(u[0])
+    if how == "median":
+        med = float(np.median(v))
+        # standard uncertainty of a median ~ 1.2533 x that of the mean (normal errors; from memory)
+        return med, float(1.2533 * np.std(v, ddof=1) / math.sqrt(len(v)))
+    if np.all(np.isfinite(u) & (u > 0)):
+        w = 1.0 / u**2
+        mean = float(np.sum(w * v) / np.sum(w))
+        u_c = 1.0 / math.sqrt(np.sum(w))
+        chi2 = float(np.sum(w * (v - mean) ** 2))
+        birge = math.sqrt(chi2 / (len(v) - 1))  # Birge ratio: inflate when values scatter more than their uncertainties
+        return mean, u_c * max(1.0, birge)
+    w = np.where(np.isfinite(n) & (n > 0), n, 1.0)
+    mean = float(np.sum(w * v) / np.sum(w))
+    return mean, float(np.std(v, ddof=1) / math.sqrt(len(v)))
+
+
+def per_taxon(ds: Dataset, *, temperature: bool = True, aggregate: str | None = None, harmonised: Harmonised | None = None) -> pd.DataFrame:
+    """One row per accepted taxon: per quantity Q the columns ``Q`` (value in the
+    catalogue's canonical unit), ``Q_u`` (standard uncertainty), ``Q_n`` (values
+    behind it), ``Q_nsrc`` (sources behind it), ``Q_basis`` (weakest basis:
+    reported > computed > digitized > proxy > assumed) and ``Q_obs`` (';'-joined
+    obs_ids). Also ``taxon``, the grouping columns of taxa.csv and
+    ``temperature_c`` (°C the temperature-sensitive values refer to).
+
+    Aggregation (``aggregate`` or settings ``aggregate``): ``mean`` (default) is
+    the inverse-variance weighted mean when every value has an uncertainty
+    (standard uncertainty 1/sqrt(sum w), inflated by the Birge ratio when the
+    values scatter more than their uncertainties allow), else the n-weighted
+    mean (uncertainty: sd of the values / sqrt(k)); ``median`` the median.
+    """
+    how = aggregate or ds.settings.get("aggregate", "mean")
+    if how not in ("mean", "median"):
+        from comparo.errors import UsageError
+
+        raise UsageError(f"aggregate must be 'mean' or 'median', not {how!r}")
+    h = harmonised or harmonise(ds, temperature=temperature)
+    used = h.rows[h.rows["status"] == "used"]
+    cat = ds.catalog
+    taxa = sorted(set(h.rows.loc[h.rows["status"] != "excluded", "accepted"]) | set(used["accepted"]))
+    out = pd.DataFrame({"taxon": taxa})
+    groups = taxon_groups(ds)
+    if len(groups.columns) > 1:
+        out = out.merge(groups, on="taxon", how="left")
+        for c in groups.columns[1:]:
+            out[c] = out[c].fillna("")
+    if h.reference_temperature_c is not None:
+        out["temperature_c"] = h.reference_temperature_c
+    else:
+        ts = used[used["quantity_key"].map(lambda k: k in cat and cat[k].temperature_sensitive)]
+        out["temperature_c"] = out["taxon"].map(ts.groupby("accepted")["temperature_c"].mean())
+    rank = {b: i for i, b in enumerate(BASIS_ORDER)}
+    order = [k for k in cat if not cat[k].converts_to]
+    blocks = []
+    for q in order:
+        part = used[used["quantity_key"] == q]
+        if part.empty:
+            continue
+        recs = {}
+        for taxon, g in part.groupby("accepted", sort=False):
+            val, u = _combine(g, how)
+            recs[taxon] = (val, u, len(g), g["source_id"].nunique(), BASIS_ORDER[max(rank[b] for b in g["basis_effective"])], ";".join(g["obs_id"]))
+        block = pd.DataFrame.from_dict(recs, orient="index", columns=[q, f"{q}_u", f"{q}_n", f"{q}_nsrc", f"{q}_basis", f"{q}_obs"])
+        blocks.append(block)
+    if blocks:
+        wide = pd.concat(blocks, axis=1)
+        out = out.merge(wide, left_on="taxon", right_index=True, how="left")
+        for c in out.columns:
+            if c.endswith(("_n", "_nsrc")):
+                out[c] = out[c].fillna(0).astype(int)
+            elif c.endswith(("_basis", "_obs")):
+                out[c] = out[c].fillna("")
+    out.attrs["reference_temperature_c"] = h.reference_temperature_c
+    return out

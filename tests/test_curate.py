@@ -1,0 +1,160 @@
+"""comparo.curate: synonyms, temperature, duplicates, slips, conflicts, per-taxon table;
+comparo.provenance: row accounting and the audit contract."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from support import SOURCES, run_cli, write_dataset
+
+import comparo
+from comparo.curate import harmonise, per_taxon
+from comparo.provenance import audit
+
+HDR = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,inputs,proxy_taxon,temperature_c"
+
+
+def _ds(tmp_path, rows, taxa=None, settings_text=None):
+    folder = write_dataset(tmp_path / "d", rows, header=HDR)
+    if taxa:
+        (folder / "taxa.csv").write_text(taxa)
+    if settings_text:
+        (folder / "comparo.toml").write_text(settings_text)
+    return comparo.load(folder, strict=False)
+
+
+def test_inverse_variance_mean_and_uncertainty(tmp_path):
+    """Weighted mean sum(v/u^2)/sum(1/u^2) and u = 1/sqrt(sum 1/u^2) (numpy as the independent route)."""
+    rows = ["a,Apis mellifera,fiber_radius,10,um,1,se,,s1,T1,reported,,,",
+            "b,Apis mellifera,fiber_radius,11,um,2,se,,s2,T2,reported,,,"]
+    tab = per_taxon(_ds(tmp_path, rows))
+    v, u = np.array([10.0, 11.0]), np.array([1.0, 2.0])
+    w = 1 / u**2
+    assert tab["fiber_radius"].iat[0] == pytest.approx(np.sum(w * v) / np.sum(w))
+    assert tab["fiber_radius_u"].iat[0] == pytest.approx(1 / np.sqrt(np.sum(w)))
+    assert tab["fiber_radius_n"].iat[0] == 2 and tab["fiber_radius_nsrc"].iat[0] == 2
+    assert tab["fiber_radius_obs"].iat[0] == "a;b"
+
+
+def test_n_weighted_mean_without_uncertainties_and_median(tmp_path):
+    rows = ["a,Apis mellifera,fiber_radius,10,um,,,3,s1,T1,reported,,,",
+            "b,Apis mellifera,fiber_radius,20,um,,,1,s2,T2,digitized,,,",
+            "c,Apis mellifera,fiber_radius,12,um,,,,s2,T3,reported,,,"]
+    ds = _ds(tmp_path, rows)
+    tab = per_taxon(ds)
+    assert tab["fiber_radius"].iat[0] == pytest.approx((3 * 10 + 20 + 12) / 5)
+    assert tab["fiber_radius_basis"].iat[0] == "digitized"  # the weakest basis
+    assert per_taxon(ds, aggregate="median")["fiber_radius"].iat[0] == pytest.approx(12.0)
+
+
+def test_units_converted_and_diameter_halved(tmp_path):
+    rows = ["a,Apis mellifera,fiber_diameter,0.04,mm,,,,s1,T1,reported,,,",
+            "b,Apis mellifera,body_mass,250,mg,,,,s1,T1,reported,,,"]
+    tab = per_taxon(_ds(tmp_path, rows))
+    assert tab["fiber_radius"].iat[0] == pytest.approx(20.0)  # µm
+    assert tab["fiber_radius_basis"].iat[0] == "computed"
+    assert tab["body_mass"].iat[0] == pytest.approx(2.5e-4)  # kg
+
+
+def test_temperature_normalised_or_left_alone(tmp_path):
+    rows = ["a,Apis mellifera,attach_rate,100,1/s,,,,s1,T1,reported,,,15",
+            "b,Apis mellifera,detach_rate,100,1/s,,,,s1,T1,reported,,,"]
+    ds = _ds(tmp_path, rows, settings_text="reference_temperature_c = 25\n[q10]\nattach_rate = 2.0\n")
+    tab = per_taxon(ds)
+    assert tab["attach_rate"].iat[0] == pytest.approx(200.0)
+    assert tab["detach_rate"].iat[0] == pytest.approx(100.0)  # no temperature: un-normalised
+    assert per_taxon(ds, temperature=False)["attach_rate"].iat[0] == pytest.approx(100.0)
+    rep = audit(ds)
+    assert rep.temperature["without_temperature"] == ["b"]
+
+
+def test_synonyms_map_to_accepted_names(tmp_path):
+    rows = ["a,Apis mellifera,body_mass,100,mg,,,,s1,T1,reported,,,",
+            "b,Apis mellifica,fiber_radius,10,um,,,,s1,T1,reported,,,"]
+    taxa = "taxon,accepted_name,clade\nApis mellifera,,bees\nApis mellifica,Apis mellifera,bees\n"
+    tab = per_taxon(_ds(tmp_path, rows, taxa=taxa))
+    assert list(tab["taxon"]) == ["Apis mellifera"]
+    assert tab["clade"].iat[0] == "bees"
+    assert tab["fiber_radius"].iat[0] == 10
+
+
+def test_duplicates_merged_not_double_counted(tmp_path):
+    rows = ["a,Apis mellifera,fiber_radius,10,um,,,,s1,Table 1,reported,,,",
+            "b,Apis mellifera,fiber_radius,10,um,,,,s1,table 1,reported,,,"]
+    ds = _ds(tmp_path, rows)
+    tab = per_taxon(ds)
+    assert tab["fiber_radius_n"].iat[0] == 1
+    rep = audit(ds)
+    assert rep.rows_merged == 1 and rep.merged[0]["into"] == "a"
+
+
+def test_conflict_with_and_without_uncertainty(tmp_path):
+    rows = ["a,Apis mellifera,fiber_radius,10,um,0.5,se,,s1,T1,reported,,,",
+            "b,Apis mellifera,fiber_radius,14,um,0.5,se,,s2,T2,reported,,,",
+            "c,Bombus terrestris,fiber_radius,10,um,,,,s1,T1,reported,,,",
+            "d,Bombus terrestris,fiber_radius,14,um,,,,s2,T2,reported,,,"]
+    conflicts = harmonise(_ds(tmp_path, rows)).conflicts
+    assert [c["taxon"] for c in conflicts] == ["Apis mellifera"]  # 14/10 < 1.5 without uncertainties
+    assert conflicts[0]["obs_ids"] == ["a", "b"] and conflicts[0]["sources"] == ["s1", "s2"]
+
+
+def test_unit_slip_flagged_with_likely_unit(tmp_path):
+    rows = [f"r{i},Apis sp{chr(97 + i)}a,fiber_radius,{v},um,,,,s1,T1,reported,,," for i, v in enumerate([20, 25, 18, 30, 22, 0.024])]
+    h = harmonise(_ds(tmp_path, rows))
+    assert [(s["obs_id"], s["likely_unit"]) for s in h.unit_slips] == [("r5", "mm")]
+    rep = audit(_ds(tmp_path, rows))
+    assert rep.rows_excluded[0]["obs_id"] == "r5" and "mm" in rep.rows_excluded[0]["reason"]
+
+
+def test_error_rows_are_excluded_with_reason(tmp_path):
+    rows = ["a,Apis mellifera,fiber_radius,10,um,,,,s1,T1,reported,,,",
+            "b,Apis mellifera,fiber_radius,10,kPa,,,,s1,T2,reported,,,"]
+    rep = audit(_ds(tmp_path, rows))
+    assert rep.balanced
+    assert rep.rows_excluded == [{"obs_id": "b", "row": 3, "reason": rep.rows_excluded[0]["reason"]}]
+    assert rep.rows_excluded[0]["reason"].startswith("unit-dimension")
+
+
+def test_audit_json_contract(tmp_path):
+    folder = write_dataset(tmp_path / "j")
+    proc = run_cli("audit", str(folder), "--format", "json")
+    assert proc.returncode == 0, proc.stderr
+    d = json.loads(proc.stdout)
+    for key in ("rows_read", "rows_used", "rows_merged", "rows_excluded", "conflicts", "unit_slips", "out_of_range", "basis_shares", "sources", "coverage"):
+        assert key in d
+    assert d["rows_used"] + d["rows_merged"] + len(d["rows_excluded"]) == d["rows_read"]
+    assert d["sources"]["s1"] == {"values": 2, "taxa": 1, "quantities": ["body_mass", "fiber_radius"]}
+    assert d["coverage"]["Apis mellifera"]["frequency_observed"] == "digitized"
+    assert abs(sum(d["basis_shares"]["body_mass"].values()) - 1) < 1e-12
+
+
+def test_table_command_csv(tmp_path):
+    folder = write_dataset(tmp_path / "t")
+    out = tmp_path / "per_taxon.csv"
+    proc = run_cli("table", str(folder), "-o", str(out))
+    assert proc.returncode == 0, proc.stderr
+    import pandas as pd
+
+    tab = pd.read_csv(out)
+    assert list(tab["taxon"]) == ["Apis mellifera", "Bombus terrestris"]
+    assert {"fiber_radius", "fiber_radius_u", "fiber_radius_n", "fiber_radius_basis", "fiber_radius_obs"} <= set(tab.columns)
+
+
+values = st.sampled_from(["10", "12", "0", "-1", "abc", "1e3", "10"])
+units_ = st.sampled_from(["um", "mm", "kPa", "um"])
+locs = st.sampled_from(["T1", "T2"])
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.lists(st.tuples(st.sampled_from(["Apis mellifera", "Bombus terrestris"]), values, units_, locs, st.sampled_from(["s1", "s2", "s3"])), min_size=1, max_size=15))
+def test_property_row_accounting(tmp_path_factory, rows):
+    """rows read = used + merged + excluded, for any table (valid or not)."""
+    lines = [f"o{i},{t},fiber_radius,{v},{u},,,,{s},{loc},reported,,," for i, (t, v, u, loc, s) in enumerate(rows)]
+    folder = write_dataset(tmp_path_factory.mktemp("acc"), lines, header=HDR, sources=SOURCES)
+    rep = audit(comparo.load(folder, strict=False))
+    assert rep.rows_read == len(rows)
+    assert rep.balanced
