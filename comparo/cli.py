@@ -56,6 +56,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=["text", "json", "csv"], default="text")
     _temperature_arg(p)
     p.add_argument("--strict", action="store_true", help="exit 1 when conflicts or unit slips are found")
+    p.add_argument("-o", "--output", metavar="DIR", default=None, help="also write audit.json, coverage.csv, sources.csv, excluded.csv and lineage.csv to DIR")
 
     p = sub.add_parser("table", help="per-taxon harmonised table (CSV)")
     _dataset_arg(p)

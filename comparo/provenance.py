@@ -40,6 +40,11 @@ class AuditReport:
     coverage: dict[str, dict[str, str]]
     synonyms: dict[str, str] = field(default_factory=dict)
     temperature: dict[str, Any] = field(default_factory=dict)
+    rows_missing_locator: list[str] = field(default_factory=list)
+    rows_missing_temperature: list[str] = field(default_factory=list)
+    sources_uncited: list[str] = field(default_factory=list)
+    sources_missing: list[str] = field(default_factory=list)
+    trust: dict[str, str] = field(default_factory=dict)
 
     @property
     def balanced(self) -> bool:
@@ -53,12 +58,15 @@ class AuditReport:
             "conflicts": self.conflicts, "unit_slips": self.unit_slips, "out_of_range": self.out_of_range,
             "basis_shares": self.basis_shares, "sources": self.sources, "coverage": self.coverage,
             "synonyms": self.synonyms, "temperature": self.temperature,
+            "rows_missing_locator": self.rows_missing_locator, "rows_missing_temperature": self.rows_missing_temperature,
+            "sources_uncited": self.sources_uncited, "sources_missing": self.sources_missing, "trust": self.trust,
         }
 
     def to_frame(self) -> pd.DataFrame:
         """Coverage as a table: taxon x quantity, cells = weakest basis ('' = no value)."""
         frame = pd.DataFrame.from_dict(self.coverage, orient="index").fillna("")
         frame.index.name = "taxon"
+        frame.insert(0, "trust", [self.trust.get(t, "") for t in frame.index])
         return frame.reset_index()
 
     def sources_frame(self) -> pd.DataFrame:
@@ -75,7 +83,38 @@ class AuditReport:
         shaky = [f"{q} {100 * w:.0f}%" for q, w in sorted(weak.items(), key=lambda kv: -kv[1]) if w > 0]
         if shaky:
             lines.append("share not printed in a source (computed, digitized, proxy or assumed): " + ", ".join(shaky))
+        if self.sources_uncited or self.sources_missing:
+            lines.append(f"sources never cited: {len(self.sources_uncited)}; cited but missing from the sources table: {len(self.sources_missing)}")
+        grades = pd.Series(self.trust).value_counts()
+        lines.append("trust grades: " + ", ".join(f"{g} {grades.get(g, 0)}" for g in TRUST_GRADES))
         return "\n".join(lines)
+
+
+TRUST_GRADES = ("firm", "read-off", "borrowed", "contested", "sparse")
+TRUST_MEANING = {
+    "firm": "every value printed in a source or computed from printed values; at least 3 quantities",
+    "read-off": "at least one value read off a figure (digitized); none borrowed or contested",
+    "borrowed": "at least one value is a proxy (from a related taxon) or assumed",
+    "contested": "a conflict between sources, or a suspected unit slip, touches this taxon",
+    "sparse": "values printed in sources, but fewer than 3 quantities",
+}
+
+
+def trust_grade(coverage: dict[str, str], contested: bool) -> str:
+    """One-word trust grade of a taxon (comparo's own scheme; see :data:`TRUST_MEANING`).
+
+    Checked in order: contested > borrowed > read-off > sparse > firm.
+    """
+    bases = set(coverage.values())
+    if contested:
+        return "contested"
+    if bases & {"proxy", "assumed"}:
+        return "borrowed"
+    if "digitized" in bases:
+        return "read-off"
+    if len(coverage) < 3:
+        return "sparse"
+    return "firm"
 
 
 def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | None = None) -> AuditReport:
@@ -109,6 +148,13 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
         row_to_id = dict(zip(rows["row"], rows["obs_id"], strict=True))
         oor = [row_to_id[int(r)] for r in rws if int(r) in row_to_id]
     synonyms = {t: a for t, a in zip(rows["taxon"], rows["accepted"], strict=True) if t != a}
+    contested = {c["taxon"] for c in h.conflicts} | {s["taxon"] for s in h.unit_slips}
+    trust = {t: trust_grade(cov, t in contested) for t, cov in coverage.items()}
+    cited = set(rows["source_id"]) - {""}
+    listed = set(ds.sources["source_id"]) if "source_id" in ds.sources else set()
+    cat = ds.catalog
+    ts = rows["quantity_key"].map(lambda k: bool(k) and k in cat and cat[k].temperature_sensitive)
+    missing_temp = rows.loc[ts & rows["temperature_c"].isna(), "obs_id"].tolist()
     ts = rows[rows["temperature_note"] != ""]
     temp = {
         "reference_temperature_c": h.reference_temperature_c,
@@ -129,6 +175,11 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
         coverage=coverage,
         synonyms=synonyms,
         temperature=temp,
+        rows_missing_locator=rows.loc[rows["locator"] == "", "obs_id"].tolist(),
+        rows_missing_temperature=missing_temp,
+        sources_uncited=sorted(listed - cited),
+        sources_missing=sorted(cited - listed),
+        trust=trust,
     )
 
 

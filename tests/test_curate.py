@@ -158,3 +158,35 @@ def test_property_row_accounting(tmp_path_factory, rows):
     rep = audit(comparo.load(folder, strict=False))
     assert rep.rows_read == len(rows)
     assert rep.balanced
+
+
+def test_demo_audit_finds_every_planted_fault():
+    from support import DEMO
+
+    rep = audit(comparo.load(DEMO))
+    assert rep.balanced
+    assert {"obs_id": "DEMO-SLIP", "likely_unit": "mm"}.items() <= rep.unit_slips[0].items()
+    assert any(set(c["obs_ids"]) == {"DEMO-CONFLICT-A", "DEMO-CONFLICT-B"} for c in rep.conflicts)
+    assert any(m["obs_id"] == "DEMO-DUP" for m in rep.merged)
+    assert rep.basis_shares["lattice_spacing_d10"].get("proxy", 0) > 0
+    assert rep.basis_shares["frequency_observed"].get("digitized", 0) > 0
+    assert "DEMO-NOTEMP" in rep.rows_missing_temperature
+    assert len(comparo.per_taxon(comparo.load(DEMO))) == len(rep.coverage) == 60
+    assert set(rep.trust.values()) <= {"firm", "read-off", "borrowed", "contested", "sparse"}
+
+
+def test_trust_grade_order():
+    from comparo.provenance import trust_grade
+
+    assert trust_grade({"a": "reported", "b": "proxy"}, contested=True) == "contested"
+    assert trust_grade({"a": "reported", "b": "proxy", "c": "digitized"}, contested=False) == "borrowed"
+    assert trust_grade({"a": "reported", "b": "digitized", "c": "reported"}, contested=False) == "read-off"
+    assert trust_grade({"a": "reported"}, contested=False) == "sparse"
+    assert trust_grade({"a": "reported", "b": "computed", "c": "reported"}, contested=False) == "firm"
+
+
+def test_sources_uncited_and_missing(tmp_path):
+    rows = ["a,Apis mellifera,fiber_radius,10,um,,,,s1,T1,reported,,,",
+            "b,Apis mellifera,body_mass,1,g,,,,s9,T1,reported,,,"]
+    rep = audit(_ds(tmp_path, rows))
+    assert rep.sources_uncited == ["s2"] and rep.sources_missing == ["s9"]

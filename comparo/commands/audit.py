@@ -13,10 +13,25 @@ def run(args) -> int:
 
     ds = load(args.dataset, strict=False)
     report = audit(ds, temperature=not args.no_temperature)
+    if args.output:
+        from pathlib import Path
+
+        from comparo.commands._common import atomic_write_text
+        from comparo.csvsafe import to_csv
+        from comparo.provenance import lineage
+
+        out = Path(args.output)
+        atomic_write_text(out / "audit.json", dumps(report.to_dict()))
+        atomic_write_text(out / "coverage.csv", to_csv(report.to_frame()))
+        atomic_write_text(out / "sources.csv", to_csv(report.sources_frame()))
+        atomic_write_text(out / "excluded.csv", to_csv(__import__("pandas").DataFrame(report.rows_excluded, columns=["obs_id", "row", "reason"])))
+        atomic_write_text(out / "lineage.csv", to_csv(lineage(ds, temperature=not args.no_temperature)))
     if args.format == "json":
         emit(dumps(report.to_dict()))
     elif args.format == "csv":
-        sys.stdout.write(report.to_frame().to_csv(index=False))
+        from comparo.csvsafe import to_csv
+
+        sys.stdout.write(to_csv(report.to_frame()))
     else:
         _render(report)
     errors = (ds.problems["severity"] == "error").sum() if len(ds.problems) else 0
@@ -56,6 +71,15 @@ def _render(report) -> None:
         t.add_column(b, justify="right")
     for q, s in report.basis_shares.items():
         t.add_row(q, *[f"{100 * s[b]:.0f}%" if b in s else "" for b in BASIS_ORDER])
+    console.print(t)
+    from comparo.provenance import TRUST_GRADES, TRUST_MEANING
+
+    t = Table(title="trust grades per taxon", title_justify="left")
+    for c in ("grade", "taxa", "meaning"):
+        t.add_column(c)
+    counts = {g: sum(1 for v in report.trust.values() if v == g) for g in TRUST_GRADES}
+    for g in TRUST_GRADES:
+        t.add_row(g, str(counts[g]), TRUST_MEANING[g])
     console.print(t)
     t = Table(title="sources", title_justify="left")
     for c in ("source_id", "values", "taxa"):

@@ -48,7 +48,9 @@ def run(args) -> int:
     if args.format == "json":
         emit(dumps(result.to_dict()))
     elif args.format == "csv":
-        sys.stdout.write(result.problems.to_csv(index=False))
+        from comparo.csvsafe import to_csv
+
+        sys.stdout.write(to_csv(result.problems))
     else:
         render_problems(result)
     if not result.ok:

@@ -17,6 +17,7 @@ def demo_source() -> Path:
 
 def run(args) -> int:
     from comparo.commands.check import render_problems
+    from comparo.csvsafe import to_csv
     from comparo.curate import per_taxon, review
     from comparo.provenance import audit, lineage
 
@@ -33,9 +34,9 @@ def run(args) -> int:
     ds = result.dataset
     render_problems(result)
     tables = out / "tables"
-    atomic_write_text(tables / "problems.csv", result.problems.to_csv(index=False))
-    atomic_write_text(tables / "per_taxon.csv", per_taxon(ds).to_csv(index=False, float_format="%.6g"))
-    atomic_write_text(tables / "lineage.csv", lineage(ds).to_csv(index=False, float_format="%.6g"))
+    atomic_write_text(tables / "problems.csv", to_csv(result.problems))
+    atomic_write_text(tables / "per_taxon.csv", to_csv(per_taxon(ds)))
+    atomic_write_text(tables / "lineage.csv", to_csv(lineage(ds)))
     report = audit(ds)
     atomic_write_text(tables / "audit.json", dumps(report.to_dict()))
     print(report.summary())

@@ -11,5 +11,7 @@ def run(args) -> int:
 
     ds = load(args.dataset)
     table = per_taxon(ds, temperature=not args.no_temperature, aggregate=args.aggregate)
-    emit(table.to_csv(index=False, float_format="%.6g"), args.output)
+    from comparo.csvsafe import to_csv
+
+    emit(to_csv(table), args.output)
     return 0

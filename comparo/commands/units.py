@@ -26,7 +26,9 @@ def run(args) -> int:
         emit(dumps(frame.to_dict("records")))
         return 0
     if args.format == "csv":
-        sys.stdout.write(frame.to_csv(index=False))
+        from comparo.csvsafe import to_csv
+
+        sys.stdout.write(to_csv(frame))
         return 0
     from rich.console import Console
     from rich.table import Table

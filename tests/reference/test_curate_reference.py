@@ -58,3 +58,23 @@ def test_ci95_without_n_uses_normal_quantile():
     """common practice: a 95% half-width with unknown n is divided by 1.96."""
     got = standard_uncertainty(pd.Series([1.96]), pd.Series(["ci95"]), pd.Series([np.nan]))
     assert got.iat[0] == pytest.approx(1.0, rel=1e-3)
+
+
+def test_inverse_variance_mean_equals_intercept_only_wls(tmp_path):
+    """The per-taxon inverse-variance weighted mean and its standard error equal an
+    intercept-only weighted least squares fit (statsmodels WLS, weights 1/u^2) with
+    the scale fixed at 1 (the u are known standard uncertainties)."""
+    import statsmodels.api as sm
+    from support import write_dataset
+
+    import comparo
+
+    v = np.array([10.0, 11.0, 10.4])
+    u = np.array([0.5, 0.8, 0.6])
+    hdr = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,inputs,proxy_taxon,temperature_c"
+    rows = [f"o{i},Apis mellifera,fiber_radius,{a},um,{b},se,,s1,T{i},reported,,," for i, (a, b) in enumerate(zip(v, u, strict=True))]
+    tab = comparo.per_taxon(comparo.load(write_dataset(tmp_path / "w", rows, header=hdr)))
+    wls = sm.WLS(v, np.ones((3, 1)), weights=1 / u**2).fit(cov_type="fixed scale", cov_kwds={"scale": 1.0})
+    assert tab["fiber_radius"].iat[0] == pytest.approx(wls.params[0], rel=1e-12)
+    # the values agree within their uncertainties (Birge ratio < 1), so no inflation
+    assert tab["fiber_radius_u"].iat[0] == pytest.approx(wls.bse[0], rel=1e-12)
