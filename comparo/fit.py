@@ -1116,6 +1116,10 @@ def fit(
     if method == "pgls":
         from comparo.phylo import pgls_fit
 
+        if bootstrap or breakpoint:
+            raise UsageError("--bootstrap and --breakpoint are not available for method pgls")
+        if by is not None:
+            pgls_options["by"] = by
         d = pgls_fit(table=table, x=x, y=y, log=log, ci=ci, test_slope=test_slope, taxon_col=taxon_col, **pgls_options)
         return FitResult.from_dict(d)
     if pgls_options:
