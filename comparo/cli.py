@@ -79,6 +79,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--tree", metavar="FILE", default=None, help="Newick tree for pgls (default: the dataset's tree.nwk)")
     p.add_argument("--lambda", dest="lambda_", default="ml", metavar="ml|VALUE", help="Pagel's lambda for pgls: 'ml' or a value in [0, 1]")
     p.add_argument("--reml", action="store_true", help="pgls: REML for the lambda search and the reported likelihood")
+    p.add_argument("--tip-se", action="store_true", help="pgls: add the per-taxon standard uncertainties of y (column Y_u) as measurement-error variance")
     p.add_argument("--by", metavar="COLUMN", default=None, help="fit per group and test for a common slope")
     p.add_argument("--test-slope", type=float, default=None, metavar="VALUE", help="test the slope against this exponent")
     p.add_argument("--ci", type=float, default=0.95, metavar="LEVEL", help="confidence level (default 0.95)")

@@ -103,6 +103,10 @@ class FitResult:
         Percentile and BCa intervals when resampling was asked.
     sensitivity : dict or None
         Filled by the sensitivity analysis (not by :func:`fit`).
+    phylo : dict or None
+        PGLS only: the further results of :func:`comparo.phylo.pgls_fit`
+        (likelihood-ratio tests of lambda = 0 and 1, pruned tips, taxa without
+        tips, sigma2, likelihood convention, measurement error).
     points : tuple of dict
         Per-point values: label, x_fit, y_fit, fitted, residual and, where
         the method has them, weight and lts_std.
@@ -130,6 +134,7 @@ class FitResult:
     breakpoint: dict | None = None
     bootstrap: dict | None = None
     sensitivity: dict | None = None
+    phylo: dict | None = None
     points: tuple[dict, ...] = field(default=(), repr=False)
     notes: tuple[str, ...] = ()
 
@@ -165,6 +170,8 @@ class FitResult:
             out["group_tests"] = _json(self.group_tests)
         if self.bootstrap is not None:
             out["bootstrap"] = _json(self.bootstrap)
+        if self.phylo is not None:
+            out["phylo"] = _json(self.phylo)
         return out
 
     @classmethod
@@ -177,6 +184,9 @@ class FitResult:
                 kw[k] = tuple(_nan(v) for v in kw[k])
         for k in ("outliers", "excluded"):
             kw[k] = list(kw.get(k) or [])
+        rest = {k: v for k, v in d.items() if ("lambda_" if k == "lambda" else k) not in names}
+        if rest:
+            kw["phylo"] = rest
         return cls(**kw, points=points)
 
     def to_frame(self) -> pd.DataFrame:

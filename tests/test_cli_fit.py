@@ -81,3 +81,28 @@ def test_missing_file_and_too_few_points(tmp_path, capsys):
     pd.DataFrame({"taxon": list("abcd"), "m": [2.0] * 4, "f": [1.0, 2.0, 3.0, 4.0]}).to_csv(q, index=False)
     assert main(["fit", str(q), "--x", "m", "--y", "f"]) == 2
     assert "identical" in capsys.readouterr().err
+
+
+def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
+    """The fit front end returns what comparo.phylo.pgls_fit computes (one source of
+    truth), with the demo's taxa.csv tree labels, and the extra PGLS keys kept."""
+    import json
+
+    from support import DEMO, run_cli
+
+    import comparo
+    from comparo.phylo import pgls_fit
+
+    tab = comparo.per_taxon(comparo.load(DEMO))
+    direct = pgls_fit(table=tab, x="body_mass", y="frequency_observed", tree=str(DEMO / "tree.nwk"), log="10", ci=0.95,
+                      test_slope=None, taxon_col="taxon", lambda_="ml")
+    proc = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--format", "json")
+    assert proc.returncode == 0, proc.stderr
+    got = json.loads(proc.stdout)
+    assert got["slope"] == pytest.approx(direct["slope"], rel=1e-9)
+    assert got["lambda"] == pytest.approx(direct["lambda"], rel=1e-6)
+    assert got["n"] == 60 and got["excluded"] == []
+    assert "lambda_tests" in got["phylo"]
+    with_me = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--tip-se", "--format", "json")
+    assert with_me.returncode == 0, with_me.stderr
+    assert json.loads(with_me.stdout)["phylo"]["measurement_error"]

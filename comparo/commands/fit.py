@@ -37,12 +37,23 @@ def _pgls_options(args) -> dict:
         if not 0 <= lam <= 1:
             raise UsageError(f"--lambda must lie in [0, 1] (got {lam})")
     opts = {"lambda_": lam, "reml": bool(args.reml)}
+    if getattr(args, "tip_se", False):
+        opts["tip_se"] = True
     tree = args.tree
     if tree is None and Path(args.data).is_dir() and (Path(args.data) / "tree.nwk").is_file():
         tree = str(Path(args.data) / "tree.nwk")
     if tree is None:
         raise UsageError("method pgls needs a tree: give --tree FILE or put tree.nwk in the dataset folder")
     opts["tree"] = tree
+    taxa = Path(args.data) / "taxa.csv" if Path(args.data).is_dir() else None
+    if taxa is not None and taxa.is_file():
+        from comparo.io import load
+
+        ds = load(args.data)
+        if ds.taxa is not None and "tree_label" in ds.taxa:
+            t = ds.taxa  # the per-taxon table holds accepted names
+            acc = [a or n for n, a in zip(t["taxon"], t.get("accepted_name", t["taxon"]), strict=True)]
+            opts["tree_labels"] = {a: lab for a, lab in zip(acc, t["tree_label"], strict=True) if lab}
     return opts
 
 
@@ -61,7 +72,9 @@ def run(args) -> int:
     if args.format == "json":
         emit(dumps(result.to_dict()))
     elif args.format == "csv":
-        sys.stdout.write(result.to_frame().to_csv(index=False))
+        from comparo.csvsafe import to_csv
+
+        sys.stdout.write(to_csv(result.to_frame()))
     else:
         emit(result.summary())
     return 0
