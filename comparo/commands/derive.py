@@ -1,0 +1,18 @@
+"""``comparo derive DATASET``: per-taxon table plus derived time scales and ratios (CSV)."""
+
+from __future__ import annotations
+
+
+def run(args) -> int:
+    from comparo.commands._common import emit
+    from comparo.curate import per_taxon
+    from comparo.derive import derive
+    from comparo.io import load
+
+    ds = load(args.dataset)
+    table = per_taxon(ds, temperature=not args.no_temperature)
+    settings = {**ds.settings.get("derive", {}), "ratios": ds.settings.get("ratios", {}),
+                "quantities": ds.settings.get("quantities", {})}
+    out = derive(table, settings, mc=args.mc, seed=args.seed)
+    emit(out.to_csv(index=False), args.output)
+    return 0
