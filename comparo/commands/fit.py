@@ -61,7 +61,9 @@ def run(args) -> int:
     from comparo.fit import fit
 
     if args.sensitivity:
-        raise UsageError("--sensitivity is not available yet")
+        from comparo.sensitivity import run_command
+
+        return run_command(args)
     table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
     pgls = _pgls_options(args) if args.method == "pgls" else {}
     result = fit(

@@ -1,0 +1,515 @@
+"""Which sources drive a scaling fit: leave-one-source-out, basis filters,
+leave-one-taxon-out jackknife and Monte Carlo propagation of measurement error.
+
+Every number here comes from refitting the same line (:func:`comparo.fit.fit`)
+on a changed input; the verdict line is built only from those numbers.
+
+References
+----------
+Quenouille, M. H. (1956) Notes on bias in estimation. Biometrika 43, 353-360.
+Efron, B. (1982) The Jackknife, the Bootstrap and Other Resampling Plans. SIAM.
+JCGM 101:2008 Evaluation of measurement data - Supplement 1 to the GUM:
+propagation of distributions using a Monte Carlo method.
+Fuller, W. A. (1987) Measurement Error Models. Wiley.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from comparo.errors import UsageError
+from comparo.fit import FitResult, _jackknife_moments, _json, _progress_bar, fit, slope_from_moments
+
+BASIS_STEPS = ("reported", "computed", "digitized", "proxy", "assumed")
+#: A refit that moves the slope by at least this many analytic SEs counts as influential.
+SHIFT_THRESHOLD = 1.0
+_MOMENT_METHODS = ("ols", "sma", "ma")
+
+
+@dataclass(frozen=True)
+class SensitivityResult:
+    """How much the fitted slope depends on single sources, bases, taxa and measurement error.
+
+    Attributes
+    ----------
+    method, x, y : str
+    slope : float
+        Slope of the fit on all data (dimensionless on log-log axes).
+    slope_se : float
+        Its analytic standard error (see :func:`analytic_se`).
+    ci_level : float
+    test : dict or None
+        ``{"value", "p"}`` of the full fit's slope test.
+    leave_one_source_out : list of dict or None
+        ``{"source_id", "n", "slope", "slope_ci", "p", "shift_se", "flips"}``,
+        most influential (largest ``|shift_se|``) first; ``shift_se`` = (slope
+        without the source - slope) / slope_se. None for a plain table.
+    by_basis : list of dict or None
+        ``{"bases", "n", "slope", "slope_ci", "p", "shift_se", "ci_change"}``,
+        one step per cumulative basis set (reported, + computed, ...);
+        ``shift_se`` and ``ci_change`` (relative change of CI width) against
+        the step before. None for a plain table.
+    jackknife_se : dict
+        ``{"slope_jackknife", "slope_analytic", "ratio", "n"}``.
+    measurement_error : dict
+        ``{"draws", "seed", "slope_mean", "spread", "sampling_se", "total_se",
+        "share", "fixed_x", "fixed_y", "note"}``.
+    verdict : str
+    """
+
+    method: str
+    x: str
+    y: str
+    slope: float
+    slope_se: float
+    ci_level: float
+    test: dict | None
+    leave_one_source_out: list[dict] | None
+    by_basis: list[dict] | None
+    jackknife_se: dict
+    measurement_error: dict
+    verdict: str
+    unavailable: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        """JSON-safe dict with the keys of the ``"sensitivity"`` contract (DESIGN.md)."""
+        return _json({
+            "leave_one_source_out": self.leave_one_source_out,
+            "by_basis": self.by_basis,
+            "jackknife_se": self.jackknife_se,
+            "measurement_error": self.measurement_error,
+            "verdict": self.verdict,
+        })
+
+    def to_frame(self):
+        """One row per refit: part (source/basis), what was changed, n, slope, CI, p, shift_se."""
+        import pandas as pd
+
+        rows = []
+        for r in self.leave_one_source_out or []:
+            rows.append({"part": "leave_one_source_out", "changed": f"without {r['source_id']}", "n": r["n"], "slope": r["slope"],
+                         "ci_low": r["slope_ci"][0], "ci_high": r["slope_ci"][1], "p": r["p"], "shift_se": r["shift_se"]})
+        for r in self.by_basis or []:
+            rows.append({"part": "by_basis", "changed": "+".join(r["bases"]), "n": r["n"], "slope": r["slope"],
+                         "ci_low": r["slope_ci"][0], "ci_high": r["slope_ci"][1], "p": r["p"], "shift_se": r["shift_se"]})
+        return pd.DataFrame(rows, columns=["part", "changed", "n", "slope", "ci_low", "ci_high", "p", "shift_se"])
+
+    def summary(self, top: int = 5) -> str:
+        """Plain-text account for people."""
+        f = _fmt
+        lines = [f"sensitivity of the {self.method.upper()} slope {f(self.slope)} (SE {f(self.slope_se)})"]
+        if self.leave_one_source_out is not None:
+            lines.append(f"  leave one source out ({len(self.leave_one_source_out)} sources), most influential first:")
+            for r in self.leave_one_source_out[:top]:
+                lo, hi = r["slope_ci"]
+                flip = "  flips the test" if r["flips"] else ""
+                lines.append(f"    without {r['source_id']:<12} n {r['n']:>4}  slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}  "
+                             f"p {f(r['p'])}  shift {f(r['shift_se'])} SE{flip}")
+        if self.by_basis is not None:
+            lines.append("  by basis (cumulative):")
+            for r in self.by_basis:
+                lo, hi = r["slope_ci"]
+                lines.append(f"    {'+'.join(r['bases']):<40} n {r['n']:>4}  slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}")
+        j = self.jackknife_se
+        lines.append(f"  jackknife SE (leave one taxon out) {f(j['slope_jackknife'])}; analytic SE {f(j['slope_analytic'])}")
+        m = self.measurement_error
+        if m.get("spread") is not None:
+            lines.append(f"  measurement error ({m['draws']} draws, seed {m['seed']}): spread {f(m['spread'])}, "
+                         f"sampling SE {f(m['sampling_se'])}, total {f(m['total_se'])}")
+        if m.get("note"):
+            lines.append(f"    note: {m['note']}")
+        lines += [f"  not available: {u}" for u in self.unavailable]
+        lines.append(f"  verdict: {self.verdict}")
+        return "\n".join(lines)
+
+
+def _fmt(v: Any) -> str:
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "-"
+    return f"{v:.4g}"
+
+
+# --------------------------------------------------------------------------- pieces
+
+
+def analytic_se(result: FitResult) -> float:
+    """Analytic standard error of the slope of a fit.
+
+    OLS: s_e / (s_X sqrt(n - 1)), i.e. |b| sqrt((1 - r^2) / ((n - 2) r^2));
+    SMA: |b| sqrt((1 - r^2)/(n - 2)) (Warton et al. 2006, Biol. Rev. 81, 259-291);
+    other methods: CI width / (2 t(n - 2)), the normal-theory reading of the interval.
+    """
+    from scipy import stats
+
+    n, b, r2 = result.n, result.slope, result.r2
+    if result.method == "ols" and 0 < r2 <= 1 and n > 2:
+        return abs(b) * math.sqrt((1 - r2) / ((n - 2) * r2)) if r2 < 1 else 0.0
+    if result.method == "sma" and 0 <= r2 <= 1 and n > 2:
+        return abs(b) * math.sqrt((1 - r2) / (n - 2))
+    lo, hi = result.slope_ci
+    if not (math.isfinite(lo) and math.isfinite(hi)) or n < 3:
+        return float("nan")
+    return (hi - lo) / (2 * stats.t.ppf(0.5 + result.ci_level / 2, n - 2))
+
+
+def jackknife_se(values: np.ndarray) -> float:
+    """Jackknife standard error from leave-one-out estimates theta_(i).
+
+    SE = sqrt((n - 1)/n * sum_i (theta_(i) - theta_bar)^2)  (Quenouille 1956; Efron 1982, ch. 2).
+    """
+    v = np.asarray(values, dtype=float)
+    n = len(v)
+    return float(math.sqrt((n - 1) / n * np.sum((v - v.mean()) ** 2)))
+
+
+def lognormal_draws(value: np.ndarray, u: np.ndarray, draws: int, rng: np.random.Generator) -> np.ndarray:
+    """Draws (draws x n) with mean ``value`` and standard deviation ``u``.
+
+    Positive values: log-normal with sigma^2 = ln(1 + (u/v)^2), mu = ln v - sigma^2/2, the
+    log-normal of given mean and standard deviation (JCGM 101:2008, 6.4.9 uses the same
+    moment matching); zero or non-positive values: normal. u = 0 returns v exactly.
+    """
+    v = np.asarray(value, dtype=float)
+    s = np.nan_to_num(np.asarray(u, dtype=float), nan=0.0)
+    z = rng.standard_normal((draws, len(v)))
+    pos = v > 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sig2 = np.where(pos, np.log1p((s / np.where(pos, v, 1.0)) ** 2), 0.0)
+        logn = np.where(pos, v, 1.0) * np.exp(np.sqrt(sig2) * z - sig2 / 2)
+    return np.where(pos, np.where(s > 0, logn, v), v + s * z)
+
+
+def _transform(log: str, a: np.ndarray) -> np.ndarray:
+    if log == "10":
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.log10(a)
+    if log == "e":
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.log(a)
+    return a
+
+
+def measurement_error_mc(table, result: FitResult, *, log: str, mc: int, seed: int, taxon_col: str = "taxon",
+                         progress: bool = False) -> dict:
+    """Monte Carlo propagation of the per-taxon uncertainties ``Q_u`` into the slope.
+
+    Each draw replaces every used x and y value by a draw of mean value, sd ``Q_u``
+    (:func:`lognormal_draws`), refits on the same taxa (moments, vectorised) and
+    keeps the slope. ``spread`` is the sd of those slopes, ``sampling_se`` the
+    fit's analytic SE, ``total_se`` = sqrt(spread^2 + sampling_se^2) (the two
+    treated as independent; JCGM 101:2008, 5.11).
+    """
+    x, y, method = result.x, result.y, result.method
+    out = {"draws": int(mc), "seed": int(seed), "slope_mean": None, "spread": None, "sampling_se": analytic_se(result),
+           "total_se": None, "share": None, "fixed_x": 0, "fixed_y": 0, "note": None}
+    if method not in _MOMENT_METHODS:
+        out["note"] = f"measurement-error Monte Carlo is computed for ols, sma and ma only (not {method})"
+        return out
+    if mc < 2:
+        out["note"] = "fewer than 2 draws asked"
+        return out
+    labels = [p["label"] for p in result.points]
+    t = table.set_index(table[taxon_col].astype(str)) if taxon_col in table.columns else table
+    idx = t.index.get_indexer(labels) if taxon_col in table.columns else np.arange(len(labels))
+    if (idx < 0).any() or t.index.has_duplicates:
+        out["note"] = "taxon labels do not match the table one to one; Monte Carlo skipped"
+        return out
+    rows = t.iloc[idx]
+    vals, us = {}, {}
+    for q in (x, y):
+        vals[q] = np.asarray(rows[q], dtype=float)
+        us[q] = np.asarray(rows[f"{q}_u"], dtype=float) if f"{q}_u" in rows.columns else np.full(len(rows), np.nan)
+        out[f"fixed_{'x' if q == x else 'y'}"] = int(np.sum(~(np.nan_to_num(us[q], nan=0.0) > 0)))
+    rng = np.random.default_rng(seed)
+    slopes = np.empty(mc)
+    chunk = max(1, min(mc, 2_000_000 // max(1, len(labels))))
+    with _progress_bar(progress, mc) as bar:
+        task = bar.add_task("measurement error", total=mc) if bar is not None else None
+        for start in range(0, mc, chunk):
+            k = min(chunk, mc - start)
+            X = _transform(log, lognormal_draws(vals[x], us[x], k, rng))
+            Y = _transform(log, lognormal_draws(vals[y], us[y], k, rng))
+            n = X.shape[1]
+            xc, yc = X - X.mean(axis=1, keepdims=True), Y - Y.mean(axis=1, keepdims=True)
+            sxx, syy, sxy = (xc * xc).sum(1) / (n - 1), (yc * yc).sum(1) / (n - 1), (xc * yc).sum(1) / (n - 1)
+            slopes[start:start + k] = slope_from_moments(method, sxx, syy, sxy)
+            if bar is not None:
+                bar.update(task, advance=k)
+    ok = np.isfinite(slopes)
+    if ok.sum() < 2:
+        out["note"] = "no finite slopes among the draws"
+        return out
+    good = slopes[ok]
+    spread = float(np.std(good - good[0], ddof=1))  # centred on one draw: identical draws give exactly 0
+    se = out["sampling_se"]
+    total = math.sqrt(spread**2 + se**2) if math.isfinite(se) else float("nan")
+    out.update(slope_mean=float(np.mean(slopes[ok])), spread=spread, total_se=total,
+               share=(spread**2 / total**2) if total > 0 else 0.0)
+    if ok.sum() < mc:
+        out["note"] = f"{mc - int(ok.sum())} draw(s) gave no finite slope (non-positive draws on log axes) and were left out"
+    return out
+
+
+def taxon_jackknife(result: FitResult, fit_kwargs: dict) -> dict:
+    """Leave-one-taxon-out slopes and their jackknife SE beside the analytic SE."""
+    pts = result.points_frame()
+    X, Y = pts["x_fit"].to_numpy(float), pts["y_fit"].to_numpy(float)
+    n = len(X)
+    if result.method in _MOMENT_METHODS:
+        b, _ = _jackknife_moments(result.method, X, Y)
+    else:
+        import pandas as pd
+
+        b = np.empty(n)
+        kw = {k: v for k, v in fit_kwargs.items() if k not in ("log", "taxon_col", "test_slope")}
+        for i in range(n):
+            keep = np.arange(n) != i
+            t = pd.DataFrame({"taxon": pts["label"][keep], "x": X[keep], "y": Y[keep]})
+            b[i] = fit(t, "x", "y", log="none", **kw).slope
+    se_a = analytic_se(result)
+    se_j = jackknife_se(b)
+    return {"slope_jackknife": se_j, "slope_analytic": se_a, "ratio": se_j / se_a if se_a > 0 else None, "n": int(n)}
+
+
+def _refit(ds, h, rows, x, y, method, kwargs):
+    from comparo.curate import per_taxon
+
+    table = per_taxon(ds, harmonised=dataclasses.replace(h, rows=rows))
+    if x not in table.columns or y not in table.columns:
+        return None
+    try:
+        return fit(table, x, y, method, **kwargs)
+    except UsageError:
+        return None
+
+
+def _p(r: FitResult | None) -> float | None:
+    return r.test_slope["p"] if r is not None and r.test_slope else None
+
+
+def _record(r: FitResult | None, base_slope: float, se: float) -> dict:
+    if r is None:
+        return {"n": 0, "slope": None, "slope_ci": [None, None], "p": None, "shift_se": None}
+    shift = (r.slope - base_slope) / se if se > 0 else float("nan")
+    return {"n": int(r.n), "slope": r.slope, "slope_ci": list(r.slope_ci), "p": _p(r), "shift_se": shift}
+
+
+def _flips(p_full: float | None, p: float | None, alpha: float) -> bool:
+    return p_full is not None and p is not None and (p_full < alpha) != (p < alpha)
+
+
+# --------------------------------------------------------------------------- entry point
+
+
+def sensitivity(
+    dataset_or_table: Any,
+    x: str,
+    y: str,
+    method: str = "sma",
+    *,
+    test_slope: float | None = None,
+    ci: float = 0.95,
+    log: str = "10",
+    mc: int = 1000,
+    seed: int = 20240601,
+    progress: bool = False,
+    temperature: bool = True,
+    taxon_col: str = "taxon",
+    **fit_options: Any,
+) -> SensitivityResult:
+    """Source-level sensitivity and measurement-error propagation of a scaling fit.
+
+    Parameters
+    ----------
+    dataset_or_table : comparo.io.Dataset or pandas.DataFrame
+        A loaded dataset (all parts) or a per-taxon table (no source-level parts:
+        a plain table does not say which source each value came from).
+    x, y, method, test_slope, ci, log
+        As for :func:`comparo.fit.fit`.
+    mc : int
+        Monte Carlo draws for the measurement-error part (0: skip).
+    seed : int
+        Seed of ``numpy.random.default_rng``.
+    progress : bool
+        Rich progress bars on standard error.
+    **fit_options
+        Further options of :func:`comparo.fit.fit` (e.g. ``tree`` for pgls).
+
+    Returns
+    -------
+    SensitivityResult
+
+    Notes
+    -----
+    Leave-one-source-out drops every row of a source and rebuilds the per-taxon
+    table, so a taxon measured by two sources keeps the other source's value.
+    ``shift_se`` = (b_without - b) / SE(b). A source "flips" the test when the
+    slope test's p falls on the other side of alpha = 1 - ci. The jackknife
+    leaves out one taxon at a time (Quenouille 1956; Efron 1982). The Monte Carlo
+    follows JCGM 101:2008.
+    """
+    from comparo.io import Dataset
+
+    alpha = 1 - ci
+    kw = dict(test_slope=test_slope, ci=ci, log=str(log), taxon_col=taxon_col, **fit_options)
+    unavailable = []
+    ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
+    if ds is not None:
+        from comparo.curate import harmonise, per_taxon
+
+        h = harmonise(ds, temperature=temperature)
+        table = per_taxon(ds, harmonised=h)
+    else:
+        table = dataset_or_table
+        unavailable.append("leave-one-source-out and basis filters need a dataset folder "
+                           "(a plain table does not record the source and basis of each value)")
+    base = fit(table, x, y, method, **kw)
+    se = analytic_se(base)
+    p_full = _p(base)
+    loso = by_basis = None
+    if ds is not None:
+        if x not in table.columns or y not in table.columns:
+            raise UsageError(f"{x!r} and {y!r} must both be quantities of the dataset for the source-level parts")
+        rows = h.rows[h.rows["quantity_key"].isin([x, y])].copy()
+        used = rows[rows["status"] == "used"]
+        sources = sorted(used["source_id"].astype(str).unique())
+        loso = []
+        with _progress_bar(progress, len(sources)) as bar:
+            task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
+            for sid in sources:
+                r = rows.copy()
+                r.loc[r["source_id"].astype(str) == sid, "status"] = "excluded"
+                res = _refit(ds, h, r, x, y, method, kw)
+                rec = {"source_id": sid, **_record(res, base.slope, se)}
+                rec["flips"] = _flips(p_full, rec["p"], alpha)
+                loso.append(rec)
+                if bar is not None:
+                    bar.update(task, advance=1)
+        loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None and math.isfinite(d["shift_se"]) else 0.0)
+        by_basis = []
+        prev = None
+        present = set(used["basis_effective"])
+        for k in range(len(BASIS_STEPS)):
+            bases = BASIS_STEPS[: k + 1]
+            if k > 0 and BASIS_STEPS[k] not in present:
+                continue
+            r = rows.copy()
+            r.loc[~r["basis_effective"].isin(bases), "status"] = "excluded"
+            res = base if set(present) <= set(bases) else _refit(ds, h, r, x, y, method, kw)
+            ref_se = analytic_se(prev) if prev is not None else float("nan")
+            rec = {"bases": list(bases), **_record(res, prev.slope if prev is not None else float("nan"), ref_se)}
+            if prev is None:
+                rec["shift_se"] = None
+            width = (res.slope_ci[1] - res.slope_ci[0]) if res is not None else float("nan")
+            pw = (prev.slope_ci[1] - prev.slope_ci[0]) if prev is not None else float("nan")
+            rec["ci_change"] = width / pw - 1 if prev is not None and pw > 0 else None
+            rec["flips"] = _flips(_p(prev), rec["p"], alpha) if prev is not None else False
+            by_basis.append(rec)
+            if res is not None:
+                prev = res
+    jack = taxon_jackknife(base, kw)
+    me = measurement_error_mc(table, base, log=str(log), mc=mc, seed=seed, taxon_col=taxon_col, progress=progress)
+    verdict = make_verdict(loso, by_basis, jack, me, test_slope=test_slope, unavailable=bool(unavailable))
+    test = {"value": test_slope, "p": p_full} if test_slope is not None else None
+    return SensitivityResult(method=method, x=x, y=y, slope=base.slope, slope_se=se, ci_level=float(ci), test=test,
+                             leave_one_source_out=loso, by_basis=by_basis, jackknife_se=jack, measurement_error=me,
+                             verdict=verdict, unavailable=tuple(unavailable))
+
+
+def make_verdict(loso, by_basis, jack, me, *, test_slope=None, unavailable: bool = False) -> str:
+    """One plain-language line built only from the sensitivity numbers.
+
+    A source (or a basis step) counts as influential when it moves the slope by
+    at least ``SHIFT_THRESHOLD`` analytic SEs or flips the slope test.
+    """
+    parts = []
+    if loso is not None:
+        hit = [r for r in loso if r["flips"] or (r["shift_se"] is not None and math.isfinite(r["shift_se"])
+                                                 and abs(r["shift_se"]) >= SHIFT_THRESHOLD)]
+        if not loso:
+            parts.append("no sources to leave out")
+        elif not hit:
+            parts.append("slope robust to every single source")
+        else:
+            words = []
+            for r in hit[:3]:
+                w = f"{r['source_id']} (shift {r['shift_se']:+.1f} SE" if r["shift_se"] is not None else f"{r['source_id']} ("
+                words.append(w + (", flips the test" if r["flips"] else "") + ")")
+            more = f" and {len(hit) - 3} more" if len(hit) > 3 else ""
+            parts.append(f"slope depends on single sources: {', '.join(words)}{more}")
+    elif unavailable:
+        parts.append("source-level checks not available for a plain table")
+    for r in (by_basis or [])[1:]:
+        added = r["bases"][-1]
+        moved = r["shift_se"] is not None and math.isfinite(r["shift_se"]) and abs(r["shift_se"]) >= SHIFT_THRESHOLD
+        widened = r["ci_change"] is not None and r["ci_change"] >= 0.2
+        if moved or r["flips"] or widened:
+            bits = []
+            if moved:
+                bits.append(f"slope moves {r['shift_se']:+.1f} SE")
+            if r["flips"]:
+                bits.append("flips the test")
+            if r["ci_change"] is not None:
+                bits.append(f"CI {'widens' if r['ci_change'] >= 0 else 'narrows'} {abs(100 * r['ci_change']):.0f}%")
+            parts.append(f"sensitive to {added} values ({', '.join(bits)})")
+    if jack.get("ratio") is not None and math.isfinite(jack["ratio"]) and jack["ratio"] > 1.5:
+        parts.append(f"jackknife SE {jack['ratio']:.1f}x the analytic SE (a few taxa carry the fit)")
+    if me.get("share") is not None:
+        share = me["share"]
+        if share >= 0.5:
+            parts.append(f"measurement error dominates the slope uncertainty ({100 * share:.0f}% of the variance)")
+        elif share >= 0.1:
+            parts.append(f"measurement error adds {100 * (math.sqrt(1 / (1 - share)) - 1):.0f}% to the slope SE")
+        else:
+            parts.append("measurement error negligible")
+    return "; ".join(parts) if parts else "nothing to report"
+
+
+def with_sensitivity(fit_result: FitResult, sens: SensitivityResult) -> FitResult:
+    """The fit result with its ``sensitivity`` field filled from ``sens.to_dict()``."""
+    return dataclasses.replace(fit_result, sensitivity=sens.to_dict())
+
+
+def run_command(args) -> int:
+    """``comparo fit ... --sensitivity``: the fit with its ``sensitivity`` field filled.
+
+    Called from :mod:`comparo.commands.fit`; text output is the fit's summary
+    followed by :meth:`SensitivityResult.summary`, JSON the fit object with
+    ``"sensitivity"`` filled, CSV the table of :meth:`SensitivityResult.to_frame`.
+    """
+    import sys
+    from pathlib import Path
+
+    from comparo.commands._common import dumps, emit
+    from comparo.commands.fit import _pgls_options, read_table
+
+    pgls = _pgls_options(args) if args.method == "pgls" else {}
+    if Path(args.data).is_dir():
+        from comparo.io import load
+
+        data = load(args.data)
+    else:
+        data = read_table(args.data, args.taxon_col)
+    progress = sys.stderr.isatty()
+    sens = sensitivity(data, args.x, args.y, args.method, test_slope=args.test_slope, ci=args.ci, log=args.log,
+                       seed=args.seed, progress=progress, temperature=not args.no_temperature,
+                       taxon_col=args.taxon_col, **pgls)
+    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
+    result = fit(table, args.x, args.y, args.method, by=args.by, test_slope=args.test_slope, ci=args.ci, log=args.log,
+                 bootstrap=args.bootstrap, seed=args.seed, taxon_col=args.taxon_col, breakpoint=args.breakpoint,
+                 progress=progress, **pgls)
+    result = with_sensitivity(result, sens)
+    if args.format == "json":
+        emit(dumps(result.to_dict()))
+    elif args.format == "csv":
+        from comparo.csvsafe import to_csv
+
+        sys.stdout.write(to_csv(sens.to_frame()))
+    else:
+        emit(result.summary() + "\n" + sens.summary())
+    return 0

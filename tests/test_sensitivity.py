@@ -1,0 +1,206 @@
+"""Behaviour of comparo.sensitivity: source influence, basis steps, jackknife, Monte Carlo."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from support import DEMO, run_cli, write_dataset
+
+from comparo.fit import fit
+from comparo.io import load
+from comparo.sensitivity import (
+    jackknife_se,
+    lognormal_draws,
+    measurement_error_mc,
+    sensitivity,
+    with_sensitivity,
+)
+
+TRUE_SLOPE = -0.25
+
+
+def _compilation(folder, *, biased: bool, seed: int = 7, n_taxa: int = 48, n_src: int = 8):
+    """Invented compilation: frequency = 30 Hz (M/g)^-0.25 with 5% scatter, values spread over
+    n_src sources; with ``biased`` one source (SRC1) reports frequencies that scale as M^-0.45
+    (a mass-dependent bias, 2.5-fold too high at 1 mg), steepening the slope."""
+    rng = np.random.default_rng(seed)
+    logm = np.linspace(-3, 3, n_taxa)
+    rows, src_rows = [], ["source_id,citation,year,doi"]
+    for s in range(n_src):
+        src_rows.append(f"SRC{s},Invented source {s} (2000) for tests,2000,")
+    for i, lm in enumerate(logm):
+        taxon = f"Fictus sp{chr(97 + i // 26)}{chr(97 + i % 26)}"
+        mass = 10**lm
+        src = f"SRC{i % n_src}"
+        f = 30 * mass**TRUE_SLOPE * math.exp(rng.normal(0, 0.05))
+        if biased and src == "SRC1":
+            f *= 10 ** (-0.2 * lm)
+        rows.append(f"m{i},{taxon},body_mass,{mass:.6g},g,{0.02 * mass:.3g},sd,5,{src},Table 1,reported,,,")
+        rows.append(f"f{i},{taxon},frequency_observed,{f:.6g},Hz,{0.03 * f:.3g},sd,5,{src},Table 2,"
+                    f"{'digitized' if i % 5 == 0 else 'reported'},,,25")
+    write_dataset(folder, rows, sources="\n".join(src_rows) + "\n")
+    return load(folder)
+
+
+@pytest.fixture(scope="module")
+def biased(tmp_path_factory):
+    ds = _compilation(tmp_path_factory.mktemp("biased"), biased=True)
+    return sensitivity(ds, "body_mass", "frequency_observed", "ols", test_slope=TRUE_SLOPE, mc=200)
+
+
+@pytest.fixture(scope="module")
+def clean(tmp_path_factory):
+    ds = _compilation(tmp_path_factory.mktemp("clean"), biased=False)
+    return sensitivity(ds, "body_mass", "frequency_observed", "ols", test_slope=TRUE_SLOPE, mc=200)
+
+
+def test_biased_source_ranked_first_and_flips_test(biased):
+    """The planted source moves the slope most and its removal reverses the test of slope = -0.25."""
+    top = biased.leave_one_source_out[0]
+    assert top["source_id"] == "SRC1"
+    assert biased.test["p"] < 0.05  # the biased compilation rejects the true exponent
+    assert top["flips"] and top["p"] >= 0.05
+    assert abs(top["shift_se"]) >= 1
+    assert not any(r["flips"] for r in biased.leave_one_source_out[1:])
+    assert "SRC1" in biased.verdict and "flips" in biased.verdict
+
+
+def test_clean_dataset_flags_no_source(clean):
+    assert clean.test["p"] >= 0.05
+    assert len(clean.leave_one_source_out) == 8
+    assert all(abs(r["shift_se"]) < 1 and not r["flips"] for r in clean.leave_one_source_out)
+    assert clean.verdict.startswith("slope robust to every single source")
+
+
+def test_by_basis_steps(clean):
+    steps = clean.by_basis
+    assert [s["bases"] for s in steps] == [["reported"], ["reported", "computed", "digitized"]]
+    assert steps[0]["n"] < steps[1]["n"] == 48
+    assert steps[1]["slope"] == pytest.approx(clean.slope)
+
+
+def test_jackknife_se_matches_analytic_ols():
+    """Homoscedastic simulated data, n = 200, seed 11: the jackknife SE of the OLS slope
+    agrees with the analytic se(b) = s_e/(s_x sqrt(n-1)) within 15% (both estimate the
+    same SE; Efron 1982, ch. 3; tolerance: the jackknife SE's own sampling spread at
+    n = 200 is about 5-10%, common practice)."""
+    rng = np.random.default_rng(11)
+    x = rng.uniform(0, 3, 200)
+    y = 1 + 0.7 * x + rng.normal(0, 0.3, 200)
+    t = pd.DataFrame({"taxon": [f"t{i}" for i in range(200)], "x": x, "y": y})
+    s = sensitivity(t, "x", "y", "ols", log="none", mc=0)
+    j = s.jackknife_se
+    import statsmodels.api as sm
+
+    se_sm = sm.OLS(y, sm.add_constant(x)).fit().bse[1]
+    assert j["slope_analytic"] == pytest.approx(se_sm, rel=1e-9)
+    assert j["slope_jackknife"] == pytest.approx(se_sm, rel=0.15)
+    assert s.leave_one_source_out is None and s.by_basis is None
+    assert "plain table" in s.verdict
+
+
+def test_jackknife_formula_hand_case():
+    """Leave-one-out estimates 1, 2, 3, 4: mean 2.5, sum of squares 5, SE = sqrt(3/4 * 5)
+    = 1.9365 (computed by hand from Efron 1982, eq. 2.2); for the mean of data the jackknife
+    SE equals s/sqrt(n) exactly (Efron 1982, ch. 2)."""
+    assert jackknife_se(np.array([1.0, 2.0, 3.0, 4.0])) == pytest.approx(math.sqrt(0.75 * 5))
+    d = np.array([2.0, 4.0, 9.0, 1.0, 5.0])
+    loo = (d.sum() - d) / (len(d) - 1)
+    assert jackknife_se(loo) == pytest.approx(d.std(ddof=1) / math.sqrt(len(d)))
+
+
+def test_taxon_jackknife_loo_slopes_by_hand():
+    """The moment-based leave-one-out slopes equal refits without each point (numpy polyfit)."""
+    rng = np.random.default_rng(3)
+    x = rng.uniform(0, 2, 9)
+    y = 2 * x + rng.normal(0, 0.2, 9)
+    t = pd.DataFrame({"taxon": [f"t{i}" for i in range(9)], "x": x, "y": y})
+    s = sensitivity(t, "x", "y", "ols", log="none", mc=0)
+    loo = [np.polyfit(np.delete(x, i), np.delete(y, i), 1)[0] for i in range(9)]
+    assert s.jackknife_se["slope_jackknife"] == pytest.approx(jackknife_se(np.array(loo)), rel=1e-10)
+
+
+def _line_table(n=200, u_x=0.0, u_y=0.0):
+    x = 10 ** np.linspace(0, 2, n)
+    y = 3 * x**0.5
+    return pd.DataFrame({"taxon": [f"t{i}" for i in range(n)], "x": x, "x_u": u_x * x, "y": y, "y_u": u_y * y})
+
+
+@pytest.mark.parametrize("method", ["ols", "sma", "ma"])
+def test_mc_zero_uncertainty_reproduces_fit(method):
+    t = _line_table()
+    t["y"] = t["y"] * np.exp(np.random.default_rng(1).normal(0, 0.05, len(t)))
+    r = fit(t, "x", "y", method)
+    me = measurement_error_mc(t, r, log="10", mc=50, seed=1)
+    assert me["spread"] == 0.0
+    assert me["slope_mean"] == pytest.approx(r.slope, rel=1e-12)
+    assert me["total_se"] == pytest.approx(me["sampling_se"])
+    assert me["fixed_x"] == me["fixed_y"] == len(t)
+
+
+def test_mc_attenuation_matches_reliability_ratio():
+    """Classical error in x attenuates the OLS slope by the reliability ratio
+    lambda = var(x)/(var(x) + var(u)) (Fuller 1987, Measurement Error Models, sec. 1.1.1).
+    A constant relative uncertainty c is, on log10 axes, an additive error of variance
+    ln(1 + c^2)/ln(10)^2. Tolerance: 4 Monte Carlo standard errors plus the O(1/n) bias
+    of the ratio estimator."""
+    c = 0.4
+    t = _line_table(n=200, u_x=c)
+    r = fit(t, "x", "y", "ols")
+    me = measurement_error_mc(t, r, log="10", mc=2000, seed=5)
+    var_x = np.var(np.log10(t["x"]), ddof=1)
+    var_u = math.log1p(c * c) / math.log(10) ** 2
+    expected = 0.5 * var_x / (var_x + var_u)
+    assert abs(me["slope_mean"] - expected) < 4 * me["spread"] / math.sqrt(2000) + 0.01 * expected
+    assert expected < 0.95 * 0.5  # the check has power: attenuation is visible
+
+
+def test_lognormal_draws_moments():
+    """Draws keep the stated mean and standard deviation (JCGM 101:2008, 6.4.9 moment matching)."""
+    d = lognormal_draws(np.array([10.0, 0.0]), np.array([3.0, 2.0]), 200_000, np.random.default_rng(2))
+    assert d[:, 0].mean() == pytest.approx(10, rel=0.01)
+    assert d[:, 0].std() == pytest.approx(3, rel=0.02)
+    assert (d[:, 0] > 0).all()
+    assert d[:, 1].std() == pytest.approx(2, rel=0.02)  # zero value: normal
+
+
+def test_seed_reproduces(tmp_path):
+    t = _line_table(n=30, u_x=0.1, u_y=0.1)
+    a = sensitivity(t, "x", "y", "sma", mc=100, seed=9).to_dict()
+    b = sensitivity(t, "x", "y", "sma", mc=100, seed=9).to_dict()
+    c = sensitivity(t, "x", "y", "sma", mc=100, seed=10).to_dict()
+    assert a == b
+    assert a["measurement_error"]["spread"] != c["measurement_error"]["spread"]
+
+
+def test_json_keys_match_contract(biased):
+    d = json.loads(json.dumps(biased.to_dict()))
+    assert set(d) == {"leave_one_source_out", "by_basis", "jackknife_se", "measurement_error", "verdict"}
+    for r in d["leave_one_source_out"]:
+        assert {"source_id", "slope", "slope_ci", "p", "shift_se"} <= set(r)
+    shifts = [abs(r["shift_se"]) for r in d["leave_one_source_out"]]
+    assert shifts == sorted(shifts, reverse=True)
+    assert isinstance(d["verdict"], str)
+    frame = biased.to_frame()
+    assert len(frame) == len(d["leave_one_source_out"]) + len(d["by_basis"])
+    assert "verdict" in biased.summary()
+
+
+def test_with_sensitivity_fills_fit_result(clean, tmp_path):
+    t = _line_table(n=10)
+    r = with_sensitivity(fit(t, "x", "y", "ols"), clean)
+    assert r.to_dict()["sensitivity"]["verdict"] == clean.verdict
+
+
+def test_cli_sensitivity_on_demo():
+    """The demo run prints the fit, the sensitivity section and the JSON field."""
+    out = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "sma",
+                  "--sensitivity", "--format", "json")
+    assert out.returncode == 0, out.stderr
+    d = json.loads(out.stdout)["sensitivity"]
+    assert len(d["leave_one_source_out"]) >= 2
+    assert d["measurement_error"]["draws"] == 1000
