@@ -1,0 +1,326 @@
+"""Figures of the report: scaling plots, residual diagnostics, the regime picture,
+coverage and source contributions (matplotlib, Agg backend).
+
+Every function takes result objects or DataFrames and returns a
+:class:`matplotlib.figure.Figure`; :func:`render` turns a figure into PNG and SVG
+bytes that are identical from run to run (fixed SVG hash salt, no date or
+software stamp in the file metadata).
+
+Colours are the eight-colour palette for colour-blind readers of Okabe and Ito
+(2002, "Color Universal Design", J*FLY). Marker fill shows the weakest basis of
+a point: filled = reported, half-filled = computed or digitized, open = proxy or
+assumed.
+
+References
+----------
+Okabe M, Ito K (2002). Color Universal Design (CUD): how to make figures and
+presentations that are friendly to colorblind people. J*FLY Data Depository.
+Cook RD (1977). Detection of influential observation in linear regression.
+Technometrics 19: 15-18.
+"""
+
+from __future__ import annotations
+
+import io
+from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+    from matplotlib.figure import Figure
+
+#: Okabe-Ito colours (black first; yellow last, it is faint on white).
+PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000", "#F0E442")
+#: Basis -> colour of the coverage map (strong to weak: dark blue to vermillion; missing is white).
+BASIS_COLOURS = {"reported": "#0072B2", "computed": "#56B4E9", "digitized": "#009E73",
+                 "proxy": "#E69F00", "assumed": "#D55E00", "": "#FFFFFF"}
+#: Basis -> marker fill style of a point.
+BASIS_FILL = {"reported": "full", "computed": "left", "digitized": "left", "proxy": "none", "assumed": "none"}
+BASIS_ORDER = ("reported", "computed", "digitized", "proxy", "assumed")
+
+_STYLE = {
+    "font.size": 9.5, "axes.titlesize": 10.5, "axes.labelsize": 9.5, "legend.fontsize": 8,
+    "axes.spines.top": False, "axes.spines.right": False, "axes.grid": True, "grid.color": "#DDDDDD",
+    "grid.linewidth": 0.6, "axes.axisbelow": True, "figure.dpi": 100, "savefig.dpi": 150,
+    "svg.hashsalt": "comparo", "svg.fonttype": "path", "lines.markersize": 5.5, "font.family": "DejaVu Sans",
+}
+
+
+def _plt():
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _figure(w: float = 6.4, h: float = 4.4, ncols: int = 1):
+    plt = _plt()
+    with plt.rc_context(_STYLE):
+        fig, axes = plt.subplots(1, ncols, figsize=(w, h), layout="constrained")
+    return fig, axes
+
+
+def render(fig: Figure) -> tuple[bytes, bytes]:
+    """PNG and SVG bytes of *fig*, byte-identical across runs; the figure is closed."""
+    plt = _plt()
+    with plt.rc_context(_STYLE):
+        png, svg = io.BytesIO(), io.BytesIO()
+        fig.savefig(png, format="png", metadata={"Software": None})
+        fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
+    plt.close(fig)
+    return png.getvalue(), svg.getvalue()
+
+
+def axis_label(key: str, catalog: Mapping[str, Any] | None) -> str:
+    """``Label (unit)`` from the catalogue; a key outside it is shown as it is, marked."""
+    from comparo.units import pretty
+
+    q = catalog.get(key) if catalog is not None else None
+    if q is None:
+        return f"{key} (unit: see derived table)"
+    unit = pretty(q.unit)
+    return f"{q.label} ({'dimensionless' if unit == '1' else unit})"
+
+
+def weakest_basis(*bases: str) -> str:
+    """The weakest of the given bases (order reported < computed < digitized < proxy < assumed)."""
+    rank = {b: i for i, b in enumerate(BASIS_ORDER)}
+    known = [b for b in bases if b in rank]
+    return max(known, key=rank.__getitem__) if known else ""
+
+
+def _inverse(log: str):
+    return {"10": lambda v: np.power(10.0, v), "e": np.exp, "none": lambda v: v}[log]
+
+
+def line_band(X: np.ndarray, Y: np.ndarray, method: str, grid: np.ndarray, *, ci: float = 0.95,
+              resamples: int = 999, seed: int = 20240601) -> tuple[np.ndarray, np.ndarray] | None:
+    """Pointwise percentile band of a bootstrapped OLS, SMA or MA line on the fitted scale.
+
+    Pairs (X, Y) are resampled with replacement (``numpy.random.default_rng(seed)``,
+    vectorised); each resample's line passes through its means with the slope of
+    :func:`comparo.fit.slope_from_moments`. Returns (low, high) at *grid*, or None
+    for other methods (no band is drawn for them).
+    """
+    from comparo.fit import slope_from_moments
+
+    if method not in ("ols", "sma", "ma") or len(X) < 3:
+        return None
+    rng = np.random.default_rng(seed)
+    idx = rng.integers(0, len(X), size=(resamples, len(X)))
+    xs, ys = X[idx], Y[idx]
+    mx, my = xs.mean(axis=1), ys.mean(axis=1)
+    dx, dy = xs - mx[:, None], ys - my[:, None]
+    b = slope_from_moments(method, (dx * dx).sum(1), (dy * dy).sum(1), (dx * dy).sum(1))
+    ok = np.isfinite(b)
+    lines = my[ok, None] + b[ok, None] * (grid[None, :] - mx[ok, None])
+    a = (1 - ci) / 2
+    return np.quantile(lines, a, axis=0), np.quantile(lines, 1 - a, axis=0)
+
+
+def _fmt(v: Any, digits: int = 3) -> str:
+    return "n/a" if v is None or not np.isfinite(v) else f"{v:.{digits}g}"
+
+
+def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] | None = None,
+                 by: str | None = None, seed: int = 20240601, title: str | None = None) -> Figure:
+    """Log-log scaling plot of one fit.
+
+    Parameters
+    ----------
+    fit : comparo.fit.FitResult
+    points : DataFrame
+        The plotted points: ``label``, ``x_fit``, ``y_fit`` (fitted scale),
+        ``basis`` (weakest basis of x and y) and, with *by*, ``group``.
+    catalog : quantity catalogue, for axis labels with units.
+    by : grouping column name (per-group lines in group colours).
+    seed : seed of the bootstrap band (:func:`line_band`).
+
+    Notes
+    -----
+    The line is y = 10^a x^b (log 10) drawn on the data scale; the band is the
+    pointwise bootstrap interval of the overall line at the fit's CI level.
+    Flagged points (``fit.outliers``) are labelled.
+    """
+    fig, ax = _figure(9.2, 4.6)
+    inv = _inverse(fit.log)
+    groups = list(dict.fromkeys(points["group"])) if by and "group" in points else [None]
+    colour = {g: PALETTE[i % len(PALETTE)] for i, g in enumerate(groups)}
+    for g in groups:
+        part = points if g is None else points[points["group"] == g]
+        for basis in BASIS_ORDER:
+            sel = part[part["basis"] == basis]
+            if len(sel):
+                ax.plot(inv(sel["x_fit"].to_numpy()), inv(sel["y_fit"].to_numpy()), ls="", marker="o",
+                        color=colour[g], fillstyle=BASIS_FILL[basis], markeredgewidth=1.0)
+    X, Y = points["x_fit"].to_numpy(float), points["y_fit"].to_numpy(float)
+    grid = np.linspace(X.min(), X.max(), 120)
+    pct = f"{100 * fit.ci_level:g}%"
+    lo, hi = fit.slope_ci
+    eq = f"all: b = {_fmt(fit.slope)} ({pct} CI {_fmt(lo)} to {_fmt(hi)}), a = {_fmt(fit.intercept)}"
+    if fit.lambda_ is not None:
+        eq += f", λ = {_fmt(fit.lambda_)}"
+    ax.plot(inv(grid), inv(fit.intercept + fit.slope * grid), color="#000000", lw=1.6, label=eq)
+    band = line_band(X, Y, fit.method, grid, ci=fit.ci_level, seed=seed)
+    if band is not None:
+        ax.fill_between(inv(grid), inv(band[0]), inv(band[1]), color="#000000", alpha=0.12, lw=0,
+                        label=f"{pct} bootstrap band of the line")
+    for gr in fit.groups or []:
+        g = gr["group"]
+        if g not in colour or gr.get("slope") is None:
+            continue
+        gx = points.loc[points["group"] == g, "x_fit"].to_numpy(float)
+        gg = np.linspace(gx.min(), gx.max(), 40)
+        glo, ghi = gr.get("slope_ci") or (None, None)
+        ax.plot(inv(gg), inv(gr["intercept"] + gr["slope"] * gg), color=colour[g], lw=1.2, ls="--",
+                label=f"{g}: b = {_fmt(gr['slope'])} ({_fmt(glo)} to {_fmt(ghi)})")
+    flagged = {o["label"] for o in fit.outliers}
+    for rec in points[points["label"].isin(flagged)].itertuples():
+        ax.annotate(rec.label, (inv(rec.x_fit), inv(rec.y_fit)), xytext=(4, 4), textcoords="offset points",
+                    fontsize=7, color="#333333")
+    from matplotlib.lines import Line2D
+
+    handles, labels = ax.get_legend_handles_labels()
+    for basis in dict.fromkeys(points["basis"]):
+        if basis in BASIS_FILL:
+            handles.append(Line2D([], [], ls="", marker="o", color="#555555", fillstyle=BASIS_FILL[basis]))
+            labels.append(f"basis: {basis}")
+    if fit.log != "none":
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+    ax.set_xlabel(axis_label(fit.x, catalog))
+    ax.set_ylabel(axis_label(fit.y, catalog))
+    ax.set_title(title or f"{fit.method.upper()}: {fit.y} against {fit.x} (n = {fit.n})")
+    ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
+    return fig
+
+
+def diagnostics(points: pd.DataFrame, *, title: str = "") -> Figure:
+    """Residual against fitted, normal QQ, and leverage against Cook's distance.
+
+    Leverage is that of x in a straight-line fit, h_i = 1/n + (x_i - x̄)²/Σ(x - x̄)²;
+    Cook's distance D_i = e_i² h_i / (p s² (1 - h_i)²) with p = 2 and
+    s² = Σe²/(n - 2) (Cook 1977), from the residuals of the fitted line.
+    """
+    from scipy import stats
+
+    fig, axes = _figure(9.6, 3.4, ncols=3)
+    x = points["x_fit"].to_numpy(float)
+    e = points["residual"].to_numpy(float)
+    fitted = points["fitted"].to_numpy(float)
+    n = len(x)
+    ax = axes[0]
+    ax.axhline(0, color="#777777", lw=0.8)
+    ax.plot(fitted, e, ls="", marker="o", color=PALETTE[0])
+    ax.set_xlabel("fitted value (log scale of y)")
+    ax.set_ylabel("residual (log scale of y)")
+    ax.set_title("residual against fitted")
+    ax = axes[1]
+    (osm, osr), (slope, icpt, _) = stats.probplot(e, dist="norm")
+    ax.plot(osm, osr, ls="", marker="o", color=PALETTE[0])
+    ax.plot(osm, icpt + slope * osm, color="#000000", lw=1)
+    ax.set_xlabel("normal quantile (standard units)")
+    ax.set_ylabel("ordered residual (log scale of y)")
+    ax.set_title("normal QQ")
+    ax = axes[2]
+    dx = x - x.mean()
+    h = 1.0 / n + dx * dx / (dx * dx).sum()
+    s2 = (e * e).sum() / max(n - 2, 1)
+    cook = e * e * h / (2 * s2 * (1 - h) ** 2)
+    ax.plot(h, cook, ls="", marker="o", color=PALETTE[3])
+    ax.axhline(4 / n, color="#777777", lw=0.8, ls=":", label="4/n")
+    for i in np.argsort(-cook)[: min(3, n)]:
+        ax.annotate(str(points["label"].iat[i]), (h[i], cook[i]), xytext=(3, 3), textcoords="offset points", fontsize=7)
+    ax.set_xlabel("leverage h (dimensionless)")
+    ax.set_ylabel("Cook's distance (dimensionless)")
+    ax.set_title("leverage and influence")
+    ax.legend(frameon=False)
+    if title:
+        fig.suptitle(title)
+    return fig
+
+
+def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | None:
+    """Observed frequency over the kinetic bound against the poro-kinetic ratio.
+
+    y = frequency_observed / frequency_kinetic_bound, x = poro_kinetic_ratio
+    (poroelastic_time / kinetic_time), both dimensionless, log axes. The kinetic
+    bound is the line y = 1; the hydraulic bound is drawn from each taxon's own
+    frequency_hydraulic_bound / frequency_kinetic_bound. Points are coloured by
+    the derived ``regime``. Returns None when the derived columns hold no usable row.
+    """
+    need = ["frequency_observed", "frequency_kinetic_bound", "frequency_hydraulic_bound", "poro_kinetic_ratio"]
+    if any(c not in derived for c in need):
+        return None
+    d = derived.copy()
+    vals = {c: np.asarray(d[c], dtype=float) for c in need}
+    with np.errstate(divide="ignore", invalid="ignore"):
+        yk = vals["frequency_observed"] / vals["frequency_kinetic_bound"]
+        yh = vals["frequency_hydraulic_bound"] / vals["frequency_kinetic_bound"]
+    xr = vals["poro_kinetic_ratio"]
+    ok = np.isfinite(yk) & np.isfinite(xr) & (yk > 0) & (xr > 0)
+    if not ok.any():
+        return None
+    fig, ax = _figure(9.2, 4.6)
+    regime = d["regime"].astype("string").fillna("").to_numpy() if "regime" in d else np.array([""] * len(d))
+    for i, r in enumerate(sorted(set(regime[ok]))):
+        m = ok & (regime == r)
+        ax.plot(xr[m], yk[m], ls="", marker="o", color=PALETTE[i % len(PALETTE)], label=f"{r or 'no regime'} limited (n = {m.sum()})")
+    ax.axhline(1.0, color="#000000", lw=1.4, label="kinetic bound (observed = kinetic bound)")
+    okh = ok & np.isfinite(yh) & (yh > 0)
+    if okh.any():
+        order = np.argsort(xr[okh])
+        ax.plot(xr[okh][order], yh[okh][order], color=PALETTE[3], lw=1.4, ls="--", label="hydraulic bound (per taxon)")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("poro-kinetic ratio, poroelastic time / kinetic time (dimensionless)")
+    ax.set_ylabel("observed frequency / kinetic bound (dimensionless)")
+    ax.set_title(f"Regime: which bound is closer ({int(ok.sum())} taxa)")
+    ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
+    return fig
+
+
+def coverage_map(coverage: Mapping[str, Mapping[str, str]], quantities: Sequence[str] | None = None) -> Figure:
+    """Taxon by quantity grid coloured by the weakest basis (white: no value).
+
+    *coverage* is the audit's ``{taxon: {quantity: basis}}``.
+    """
+    from matplotlib.colors import ListedColormap
+    from matplotlib.patches import Patch
+
+    taxa = sorted(coverage)
+    qs = list(quantities) if quantities else sorted({q for v in coverage.values() for q in v})
+    keys = list(BASIS_ORDER) + [""]
+    code = np.array([[keys.index(coverage[t].get(q) or "") if (coverage[t].get(q) or "") in keys else len(keys) - 1
+                      for q in qs] for t in taxa], dtype=float)
+    fig, ax = _figure(max(5.0, 0.42 * len(qs) + 3.2), max(4.0, 0.16 * len(taxa) + 1.8))
+    cmap = ListedColormap([BASIS_COLOURS[k] for k in keys])
+    ax.imshow(code, aspect="auto", cmap=cmap, vmin=-0.5, vmax=len(keys) - 0.5, interpolation="nearest")
+    ax.set_xticks(range(len(qs)), qs, rotation=60, ha="right", fontsize=7)
+    ax.set_yticks(range(len(taxa)), taxa, fontsize=6 if len(taxa) > 30 else 8)
+    ax.grid(False)
+    ax.set_xlabel("quantity")
+    ax.set_ylabel("taxon")
+    ax.set_title("Coverage: weakest basis of each value")
+    ax.legend([Patch(facecolor=BASIS_COLOURS[k], edgecolor="#999999") for k in keys],
+              [k or "no value" for k in keys], loc="upper left", bbox_to_anchor=(1.01, 1), frameon=False)
+    return fig
+
+
+def source_chart(sources: pd.DataFrame) -> Figure:
+    """Horizontal bars: values and taxa contributed by each source (audit ``sources_frame()``)."""
+    s = sources.sort_values(["values", "source_id"], ascending=[True, True])
+    fig, ax = _figure(6.4, max(3.0, 0.28 * len(s) + 1.2))
+    yy = np.arange(len(s))
+    ax.barh(yy - 0.2, s["values"], height=0.4, color=PALETTE[0], label="values")
+    ax.barh(yy + 0.2, s["taxa"], height=0.4, color=PALETTE[1], label="taxa")
+    ax.set_yticks(yy, s["source_id"].astype(str))
+    ax.set_xlabel("count (values or taxa)")
+    ax.set_ylabel("source")
+    ax.set_title("Contribution of each source")
+    ax.legend(frameon=False, loc="lower right")
+    return fig

@@ -1,0 +1,563 @@
+"""The HTML report: the whole pipeline on one dataset folder, written as one
+self-contained HTML file with its figures, tables and a provenance appendix.
+
+:func:`build_report` runs check -> harmonise -> audit -> per-taxon -> derive ->
+the fits declared in ``comparo.toml`` (``[[analysis]]``) or a default set, and
+writes, under the output folder::
+
+    report.html        self-contained (figures as base64 PNG, inline sorting script)
+    figures/*.png|svg  every figure, byte-identical across runs
+    tables/*.csv       per_taxon, derived, fits, flags, points, audit, sources, problems
+    tables/fits.json   each fit's ``to_dict()`` (the ``comparo fit --format json`` object)
+    run.json           input SHA-256 hashes, settings, package versions, seed
+
+Every number in the HTML is read from the same result objects that are written
+to ``tables/``. The report is a research aid; it does not replace reading the sources.
+"""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import html
+import platform
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+#: Fits run when ``comparo.toml`` declares no ``[[analysis]]`` (kept when the columns exist).
+DEFAULT_ANALYSES = (
+    {"x": "body_mass", "y": "frequency_observed", "method": "sma"},
+    {"x": "fiber_radius", "y": "frequency_observed", "method": "sma"},
+    {"x": "frequency_kinetic_bound", "y": "frequency_observed", "method": "sma"},
+    {"x": "frequency_hydraulic_bound", "y": "frequency_observed", "method": "sma"},
+)
+
+DISCLAIMER = ("This report is a research aid: it summarises a compilation and the fits run on it. "
+              "Check every value against its source before relying on it.")
+
+
+@dataclass(frozen=True)
+class ReportResult:
+    """What :func:`build_report` wrote.
+
+    Attributes
+    ----------
+    out_dir : str
+    ok : bool
+        False when validation found errors (only the error page was written).
+    n_errors, n_warnings : int
+    figures, tables : tuple of str
+        Paths relative to *out_dir*.
+    fits : tuple of dict
+        ``{"id", "x", "y", "method", "by", "result"}`` (``result``: ``to_dict()``) or
+        ``{"id", ..., "error"}`` for a fit that could not run.
+    notes : tuple of str
+        What the report could not do, and why.
+    """
+
+    out_dir: str
+    ok: bool
+    n_errors: int
+    n_warnings: int
+    figures: tuple[str, ...] = ()
+    tables: tuple[str, ...] = ()
+    fits: tuple[dict, ...] = ()
+    notes: tuple[str, ...] = field(default=())
+
+    def to_dict(self) -> dict:
+        return {"out_dir": self.out_dir, "ok": self.ok, "n_errors": self.n_errors, "n_warnings": self.n_warnings,
+                "figures": list(self.figures), "tables": list(self.tables), "fits": list(self.fits),
+                "notes": list(self.notes)}
+
+    def summary(self) -> str:
+        if not self.ok:
+            return f"validation found {self.n_errors} error(s); the report lists them: {self.out_dir}/report.html"
+        lines = [f"report written to {self.out_dir}/report.html ({len(self.figures)} figures, {len(self.tables)} tables)"]
+        for f in self.fits:
+            if "error" in f:
+                lines.append(f"  {f['id']}: not fitted ({f['error']})")
+            else:
+                r = f["result"]
+                lo, hi = r["slope_ci"]
+                lines.append(f"  {f['id']}: slope {_num(r['slope'])} (CI {_num(lo)} to {_num(hi)}), n = {r['n']}")
+        lines += [f"  note: {n}" for n in self.notes]
+        return "\n".join(lines)
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _num(v: Any, digits: int = 4) -> str:
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return "n/a"
+    return "n/a" if v != v or v in (float("inf"), float("-inf")) else f"{v:.{digits}g}"
+
+
+def _e(v: Any) -> str:
+    return html.escape("" if v is None else str(v))
+
+
+def _cell(v: Any) -> str:
+    """A table cell; numbers keep their full value in ``data-value`` (for sorting and checks)."""
+    if isinstance(v, bool) or v is None:
+        return f"<td>{_e(v)}</td>"
+    if isinstance(v, int | float) or hasattr(v, "dtype"):
+        try:
+            f = float(v)
+        except (TypeError, ValueError):
+            return f"<td>{_e(v)}</td>"
+        if f != f:
+            return "<td></td>"
+        return f'<td class="n" data-value="{f!r}">{_num(f)}</td>'
+    return f"<td>{_e(v)}</td>"
+
+
+def _table(frame, cls: str = "sortable", limit: int | None = None) -> str:
+    rows = frame if limit is None else frame.head(limit)
+    head = "".join(f"<th>{_e(c)}</th>" for c in rows.columns)
+    body = "".join("<tr>" + "".join(_cell(v) for v in rec) + "</tr>" for rec in rows.itertuples(index=False))
+    return f'<table class="{cls}"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
+
+
+def _sha256(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def input_hashes(folder: str | Path) -> dict[str, str]:
+    """SHA-256 of every regular, non-hidden file at the top of the dataset folder."""
+    folder = Path(folder)
+    return {p.name: _sha256(p) for p in sorted(folder.iterdir()) if p.is_file() and not p.name.startswith(".")}
+
+
+def package_versions() -> dict[str, str]:
+    """Versions of comparo, Python and the libraries the report relies on."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"python": platform.python_version()}
+    for name in ("comparo", "numpy", "scipy", "pandas", "statsmodels", "matplotlib", "dendropy", "pint"):
+        try:
+            out[name] = version(name)
+        except PackageNotFoundError:
+            out[name] = "not installed"
+    return out
+
+
+def _tree_labels(ds) -> dict[str, str] | None:
+    t = ds.taxa
+    if t is None or "tree_label" not in t:
+        return None
+    acc = t["accepted_name"] if "accepted_name" in t else t["taxon"]
+    labels = {}
+    for name, a, lab in zip(t["taxon"], acc, t["tree_label"], strict=True):
+        a = a if isinstance(a, str) and a else name
+        if isinstance(lab, str) and lab:
+            labels[a] = lab
+    return labels or None
+
+
+def _analyses(settings: dict, table) -> tuple[list[dict], str]:
+    declared = settings.get("analysis") or []
+    if declared:
+        return [dict(a) for a in declared], "declared in comparo.toml"
+    chosen = [dict(a) for a in DEFAULT_ANALYSES if a["x"] in table and a["y"] in table]
+    return chosen, "default set (comparo.toml declares no [[analysis]])"
+
+
+def _analysis_id(i: int, a: dict) -> str:
+    by = f"_by_{a['by']}" if a.get("by") else ""
+    return f"fit{i + 1}_{a.get('method', 'sma')}_{a['y']}_vs_{a['x']}{by}"
+
+
+def fit_points(result, table, x: str, y: str, by: str | None, taxon_col: str = "taxon"):
+    """The points of a fit with their data values, weakest basis and obs_ids.
+
+    Uses ``result.points`` when the method gives them; otherwise (PGLS) the rows
+    of *table* with positive finite x and y that the fit neither excluded nor
+    pruned, with residuals from the fitted line (ordinary, not phylogenetically
+    transformed, residuals).
+    """
+    import numpy as np
+    import pandas as pd
+
+    from comparo.plots import weakest_basis
+
+    if result.points:
+        pts = pd.DataFrame(list(result.points))
+    else:
+        drop = {e["label"] for e in result.excluded}
+        ph = result.phylo or {}
+        for key in ("tips_pruned", "taxa_without_tips"):
+            drop |= {str(v) for v in (ph.get(key) or [])}
+        xs = pd.to_numeric(table[x], errors="coerce").to_numpy(float)
+        ys = pd.to_numeric(table[y], errors="coerce").to_numpy(float)
+        ok = np.isfinite(xs) & np.isfinite(ys)
+        if result.log != "none":
+            ok &= (xs > 0) & (ys > 0)
+        ok &= ~table[taxon_col].astype(str).isin(drop).to_numpy()
+        tf = {"10": np.log10, "e": np.log, "none": lambda v: v}[result.log]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            X, Y = tf(xs[ok]), tf(ys[ok])
+        fitted = result.intercept + result.slope * X
+        pts = pd.DataFrame({"label": table[taxon_col].astype(str).to_numpy()[ok], "x_fit": X, "y_fit": Y,
+                            "fitted": fitted, "residual": Y - fitted})
+        if by and by in table:
+            pts["group"] = table[by].to_numpy()[ok]
+    idx = table.set_index(table[taxon_col].astype(str))
+    lab = pts["label"].astype(str)
+    pts["x_value"] = idx.loc[lab, x].to_numpy()
+    pts["y_value"] = idx.loc[lab, y].to_numpy()
+    for q, col in ((x, "x_basis"), (y, "y_basis")):
+        pts[col] = idx.loc[lab, f"{q}_basis"].to_numpy() if f"{q}_basis" in idx else ""
+    for q, col in ((x, "x_obs"), (y, "y_obs")):
+        pts[col] = idx.loc[lab, f"{q}_obs"].fillna("").to_numpy() if f"{q}_obs" in idx else ""
+    pts["basis"] = [weakest_basis(str(a), str(b)) for a, b in zip(pts["x_basis"], pts["y_basis"], strict=True)]
+    if by and "group" not in pts and by in idx:
+        pts["group"] = idx.loc[lab, by].to_numpy()
+    return pts
+
+
+# --------------------------------------------------------------------------- HTML pieces
+
+_CSS = """
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#1a1a1a;line-height:1.45}
+h1{font-size:1.6em;border-bottom:3px solid #0072B2;padding-bottom:.2em}h2{margin-top:2em;color:#0072B2}
+.banner{background:#FFF4D6;border-left:5px solid #E69F00;padding:.6em 1em;margin:1em 0}
+.errors{background:#FCE4DC;border-left:5px solid #D55E00;padding:.6em 1em}
+table{border-collapse:collapse;font-size:.85em;margin:.6em 0}th,td{border:1px solid #ccc;padding:2px 6px;text-align:left}
+th{background:#EEF4FA;cursor:pointer}td.n{text-align:right;font-variant-numeric:tabular-nums}
+img{max-width:100%;height:auto;border:1px solid #eee}pre{background:#f6f6f6;padding:.6em;overflow-x:auto;font-size:.85em}
+nav a{margin-right:1em}
+"""
+
+_SORT_JS = """
+document.querySelectorAll('table.sortable th').forEach(function(th){th.addEventListener('click',function(){
+var t=th.closest('table'),b=t.tBodies[0],i=Array.prototype.indexOf.call(th.parentNode.children,th),d=th.dataset.dir==='a'?-1:1;
+th.dataset.dir=d===1?'a':'d';var rows=Array.prototype.slice.call(b.rows);
+rows.sort(function(r,s){var p=r.cells[i],q=s.cells[i],x=p.dataset.value,y=q.dataset.value;
+if(x!==undefined&&y!==undefined){return d*(parseFloat(x)-parseFloat(y));}return d*p.textContent.localeCompare(q.textContent);});
+rows.forEach(function(r){b.appendChild(r);});});});
+"""
+
+
+def _page(title: str, body: str) -> str:
+    return (f'<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8"><title>{_e(title)}</title>'
+            f"<style>{_CSS}</style></head><body>{body}<script>{_SORT_JS}</script></body></html>\n")
+
+
+def _img(png: bytes, alt: str) -> str:
+    return f'<figure><img alt="{_e(alt)}" src="data:image/png;base64,{base64.b64encode(png).decode()}"></figure>'
+
+
+def _banner(settings: dict, folder: Path) -> str:
+    synthetic = "synthetic" in str(settings.get("title", "")).lower() or "invented" in str(settings.get("title", "")).lower()
+    extra = (" <strong>The data of this compilation are invented (synthetic demo data): no number in it "
+             "describes a real animal.</strong>") if synthetic else ""
+    return f'<div class="banner">{_e(DISCLAIMER)}{extra}</div>'
+
+
+_METHODS = """
+<h2 id="methods">Methods</h2>
+<ul>
+<li>Validation, harmonisation to canonical units (one unit registry), standard uncertainties from the reported
+spread, merging of duplicates and temperature normalisation of rates and frequencies with Q10 to the reference
+temperature.</li>
+<li>Scaling fits on log-log axes: ordinary least squares (OLS), standardised major axis (SMA) and major axis (MA)
+with their confidence intervals and tests for a common slope, elevation and shift among groups
+(Warton DI, Wright IJ, Falster DS, Westoby M 2006, Bivariate line-fitting methods for allometry, Biological Reviews 81: 259-291).</li>
+<li>Phylogenetic generalised least squares (Grafen A 1989, The phylogenetic regression, Philosophical Transactions of
+the Royal Society B 326: 119-157) with Pagel's lambda (Pagel M 1999, Inferring the historical patterns of biological
+evolution, Nature 401: 877-884), estimated by maximum likelihood with a profile-likelihood interval.</li>
+<li>Influence: leverage and Cook's distance (Cook RD 1977, Detection of influential observation in linear regression,
+Technometrics 19: 15-18); points above 4/n are flagged (common practice).</li>
+<li>Band of a line in the figures: pointwise percentile bootstrap of the OLS, SMA or MA line from resampled pairs
+(Efron B, Tibshirani RJ 1993, An Introduction to the Bootstrap, Chapman &amp; Hall), seeded; no band is drawn for other methods.</li>
+<li>Derived time scales: poroelastic time l²·η/(k·M) and kinetic time 1/(f + g) with frequency bounds, the hydraulic
+permeability of fibre arrays (Happel J 1959, Viscous flow relative to arrays of cylinders, AIChE Journal 5: 174-177)
+and the viscosity of water (Huber ML et al. 2009, New international formulation for the viscosity of H2O,
+Journal of Physical and Chemical Reference Data 38: 101-125), with GUM propagation of uncertainty
+(JCGM 100:2008, Evaluation of measurement data - Guide to the expression of uncertainty in measurement).</li>
+<li>Colours: palette for colour-blind readers of Okabe M and Ito K (2002), Color Universal Design.</li>
+</ul>
+"""
+
+
+# --------------------------------------------------------------------------- the report
+
+
+def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: bool) -> ReportResult:
+    from comparo.commands._common import atomic_write_text
+    from comparo.csvsafe import to_csv
+
+    probs = result.problems
+    errs = probs[probs["severity"] == "error"]
+    body = (f"<h1>comparo report: validation failed</h1>{_banner({}, folder)}"
+            f'<div class="errors"><p><strong>{len(errs)} error(s)</strong> in <code>{_e(folder)}</code> stop the analysis. '
+            "Fix them (each row says file, row, column, value, rule and a hint) and run the report again.</p></div>"
+            f"<h2>Errors</h2>{_table(errs)}<h2>All problems</h2>{_table(probs)}")
+    atomic_write_text(out / "report.html", _page("comparo report: validation failed", body))
+    atomic_write_text(out / "tables" / "problems.csv", to_csv(probs))
+    _write_run(out, folder, {}, seed, temperature, ok=False)
+    return ReportResult(str(out), False, result.n_errors, result.n_warnings, tables=("tables/problems.csv",))
+
+
+def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, ok: bool) -> None:
+    from comparo.commands._common import atomic_write_text, dumps
+
+    record = {"created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"), "dataset": folder.name,
+              "inputs_sha256": input_hashes(folder), "settings": settings, "seed": int(seed),
+              "temperature_normalised": bool(temperature), "validation_ok": ok, "versions": package_versions()}
+    atomic_write_text(out / "run.json", dumps(record) + "\n")
+
+
+def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 20240601, temperature: bool = True) -> ReportResult:
+    """Run the pipeline on a dataset folder and write the report into *out_dir*.
+
+    Parameters
+    ----------
+    folder : path of the dataset (observations, sources, optional taxa, tree, comparo.toml).
+    out_dir : output folder (created; files in it are replaced atomically).
+    seed : seed of every random step (figure bands; fits that resample).
+    temperature : normalise rates and frequencies to the reference temperature.
+
+    Returns
+    -------
+    ReportResult
+        ``ok`` is False when validation found errors; then report.html lists them.
+    """
+    import pandas as pd
+
+    from comparo import plots
+    from comparo.commands._common import atomic_write_bytes, atomic_write_text, dumps
+    from comparo.csvsafe import to_csv
+    from comparo.curate import harmonise, per_taxon, review
+    from comparo.errors import ComparoError
+    from comparo.fit import fit
+    from comparo.provenance import audit
+
+    folder, out = Path(folder), Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    checked = review(folder)
+    if not checked.ok or checked.dataset is None:
+        return _write_error_page(out, folder, checked, seed, temperature)
+    ds = checked.dataset
+    settings = ds.settings or {}
+    notes: list[str] = []
+    h = harmonise(ds, temperature=temperature)
+    table = per_taxon(ds, temperature=temperature, harmonised=h)
+    aud = audit(ds, temperature=temperature, harmonised=h)
+    derived = None
+    try:
+        from comparo.derive import derive
+
+        dset = {**settings.get("derive", {}), "ratios": settings.get("ratios", {}), "quantities": settings.get("quantities", {})}
+        derived = derive(table, dset, seed=seed)
+    except (ImportError, ComparoError, ValueError, KeyError) as exc:  # the section says why
+        notes.append(f"derived quantities unavailable: {type(exc).__name__}: {exc}")
+    data = derived if derived is not None else table
+
+    tables: dict[str, str] = {"per_taxon": to_csv(table), "audit": to_csv(aud.to_frame()),
+                              "sources": to_csv(aud.sources_frame()), "problems": to_csv(checked.problems)}
+    if derived is not None:
+        tables["derived"] = to_csv(derived)
+    figures: dict[str, tuple[bytes, bytes]] = {}
+
+    analyses, origin = _analyses(settings, data)
+    fits: list[dict] = []
+    fit_frames, flag_rows, point_frames = [], [], []
+    sections = []
+    labels = _tree_labels(ds)
+    for i, a in enumerate(analyses):
+        aid = _analysis_id(i, a)
+        method, by = a.get("method", "sma"), a.get("by")
+        rec = {"id": aid, "x": a["x"], "y": a["y"], "method": method, "by": by}
+        opts: dict[str, Any] = {}
+        if method == "pgls":
+            if ds.tree is None:
+                rec["error"] = "method pgls needs a tree (tree.nwk)"
+                fits.append(rec)
+                continue
+            opts["tree"] = ds.tree
+            if labels:
+                opts["tree_labels"] = labels
+        try:
+            res = fit(data, a["x"], a["y"], method, by=by, test_slope=a.get("test_slope"), seed=seed, **opts)
+        except ComparoError as exc:
+            rec["error"] = str(exc)
+            fits.append(rec)
+            continue
+        rec["result"] = res.to_dict()
+        fits.append(rec)
+        frame = res.to_frame()
+        frame.insert(0, "analysis", aid)
+        fit_frames.append(frame)
+        for o in res.outliers:
+            flag_rows.append({"analysis": aid, "label": o["label"], "kind": "flag", "reason": o["reason"], "statistic": o.get("statistic")})
+        for e in res.excluded:
+            flag_rows.append({"analysis": aid, "label": e["label"], "kind": "excluded", "reason": e["reason"], "statistic": None})
+        pts = fit_points(res, data, a["x"], a["y"], by)
+        pf = pts.copy()
+        pf.insert(0, "analysis", aid)
+        point_frames.append(pf)
+        figures[f"{aid}_scaling"] = plots.render(plots.scaling_plot(res, pts, catalog=ds.catalog, by=by, seed=seed))
+        figures[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(pts, title=f"{aid}: residual diagnostics"))
+        sections.append((aid, res, frame, pts))
+
+    fits_frame = pd.concat(fit_frames, ignore_index=True) if fit_frames else pd.DataFrame()
+    flags_frame = pd.DataFrame(flag_rows, columns=["analysis", "label", "kind", "reason", "statistic"])
+    points_frame = pd.concat(point_frames, ignore_index=True) if point_frames else pd.DataFrame()
+    tables |= {"fits": to_csv(fits_frame), "flags": to_csv(flags_frame), "points": to_csv(points_frame)}
+
+    if derived is not None:
+        fig = plots.regime_plot(derived)
+        if fig is not None:
+            figures["regime"] = plots.render(fig)
+        else:
+            notes.append("regime plot not drawn: no taxon has the observed frequency, both bounds and the poro-kinetic ratio")
+    ad = aud.to_dict()
+    figures["coverage"] = plots.render(plots.coverage_map(ad["coverage"]))
+    figures["sources"] = plots.render(plots.source_chart(aud.sources_frame()))
+
+    for name, text in tables.items():
+        atomic_write_text(out / "tables" / f"{name}.csv", text)
+    atomic_write_text(out / "tables" / "fits.json", dumps([f for f in fits]) + "\n")
+    for stem, (png, svg) in figures.items():
+        atomic_write_bytes(out / "figures" / f"{stem}.png", png)
+        atomic_write_bytes(out / "figures" / f"{stem}.svg", svg)
+
+    html_text = _render_html(folder, settings, checked, aud, table, derived, fits, origin, sections, fits_frame,
+                             flags_frame, points_frame, figures, notes, ds, seed)
+    atomic_write_text(out / "report.html", html_text)
+    _write_run(out, folder, settings, seed, temperature, ok=True)
+    return ReportResult(str(out), True, checked.n_errors, checked.n_warnings,
+                        figures=tuple(f"figures/{s}.{ext}" for s in figures for ext in ("png", "svg")),
+                        tables=tuple(f"tables/{n}.csv" for n in tables) + ("tables/fits.json",),
+                        fits=tuple(fits), notes=tuple(notes))
+
+
+def _regime_lines(derived, by: str | None) -> list[str]:
+    if derived is None or "regime" not in derived:
+        return []
+    reg = derived["regime"].astype("string").fillna("undetermined").replace("", "undetermined")
+    keys = derived[by] if by and by in derived else pd_series_all(len(derived))
+    out = []
+    for g in dict.fromkeys(keys):
+        counts = reg[keys == g].value_counts()
+        kin, hyd = int(counts.get("kinetic", 0)), int(counts.get("hydraulic", 0))
+        und = int(counts.sum()) - kin - hyd
+        verdict = "kinetic limited" if kin > hyd else "hydraulic limited" if hyd > kin else "no majority"
+        out.append(f"<li><strong>{_e(g)}</strong>: {verdict} ({kin} kinetic, {hyd} hydraulic, {und} undetermined)</li>")
+    return out
+
+
+def pd_series_all(n: int):
+    import pandas as pd
+
+    return pd.Series(["all taxa"] * n)
+
+
+def _render_html(folder, settings, checked, aud, table, derived, fits, origin, sections, fits_frame, flags_frame,
+                 points_frame, figures, notes, ds, seed) -> str:
+    title = settings.get("title") or f"comparo report: {folder.name}"
+    parts = [f"<h1>{_e(title)}</h1>", _banner(settings, folder),
+             '<nav><a href="#summary">Summary</a><a href="#analyses">Analyses</a><a href="#regime">Regime</a>'
+             '<a href="#data">Data quality</a><a href="#appendix">Provenance appendix</a><a href="#methods">Methods</a></nav>']
+    # summary
+    parts.append('<h2 id="summary">Summary</h2>')
+    parts.append(f"<p>Dataset <code>{_e(folder.name)}</code>: {len(table)} taxa. Fits {_e(origin)}; seed {int(seed)}.</p>")
+    rows = []
+    for f in fits:
+        if "error" in f:
+            rows.append(f"<tr><td>{_e(f['id'])}</td><td colspan='6'>not fitted: {_e(f['error'])}</td></tr>")
+            continue
+        r = f["result"]
+        cs = (r.get("group_tests") or {}).get("common_slope") or {}
+        test = f"equal slopes: p = {_num(cs.get('p'), 3)}" if cs else ""
+        if r.get("lambda") is not None:
+            test = f"lambda = {_num(r['lambda'], 3)}"
+        if r.get("test_slope"):
+            test += f"; slope = {r['test_slope']['value']:g}: p = {_num(r['test_slope']['p'], 3)}"
+        rows.append(f"<tr><td>{_e(f['id'])}</td><td>{_e(f['method'].upper())}</td>{_cell(r['n'])}{_cell(r['slope'])}"
+                    f"{_cell(r['slope_ci'][0])}{_cell(r['slope_ci'][1])}<td>{_e(test)}</td></tr>")
+    parts.append('<table class="sortable" id="summary-fits"><thead><tr><th>analysis</th><th>method</th><th>n</th>'
+                 "<th>exponent (slope)</th><th>CI low</th><th>CI high</th><th>tests</th></tr></thead><tbody>"
+                 + "".join(rows) + "</tbody></table>")
+    by = next((f["by"] for f in fits if f.get("by")), None)
+    reg = _regime_lines(derived, by)
+    if reg:
+        parts.append("<p>Kinetic or hydraulic limited (majority of taxa with a derived regime):</p><ul>" + "".join(reg) + "</ul>")
+    else:
+        parts.append("<p>Kinetic or hydraulic limited: not determined (no derived regime).</p>")
+    parts.append(f"<p>Data quality: {checked.n_warnings} warning(s), {checked.n_notes} note(s).</p><pre>{_e(aud.summary())}</pre>")
+    for n in notes:
+        parts.append(f'<p class="banner">{_e(n)}</p>')
+    # analyses
+    parts.append('<h2 id="analyses">Analyses</h2>')
+    for aid, res, frame, _pts in sections:
+        parts.append(f'<h3 id="{_e(aid)}">{_e(aid)}</h3>')
+        parts.append(_img(figures[f"{aid}_scaling"][0], f"scaling plot {aid}"))
+        parts.append(f"<pre>{_e(res.summary())}</pre>")
+        parts.append(_table(frame))
+        parts.append(_img(figures[f"{aid}_diagnostics"][0], f"residual diagnostics {aid}"))
+        if res.method == "pgls":
+            parts.append("<p>Residuals of the PGLS line are the ordinary residuals y - (a + b x); a profile of the "
+                         "lambda likelihood is not drawn (the fit result does not carry one).</p>")
+    fl = flags_frame
+    parts.append("<h3>Flags and exclusions</h3>" + (_table(fl) if len(fl) else "<p>None.</p>"))
+    # regime
+    parts.append('<h2 id="regime">Regime</h2>')
+    if "regime" in figures:
+        parts.append(_img(figures["regime"][0], "regime plot"))
+    else:
+        why = "; ".join(n for n in notes if "deriv" in n or "regime" in n) or "no derived values"
+        parts.append(f"<p>The regime plot is unavailable: {_e(why)}.</p>")
+    # data quality
+    parts.append('<h2 id="data">Data quality and coverage</h2>')
+    parts.append(_img(figures["coverage"][0], "coverage map"))
+    parts.append(_img(figures["sources"][0], "source contributions"))
+    parts.append("<h3>Problems found by the check</h3>" + (_table(checked.problems) if len(checked.problems) else "<p>None.</p>"))
+    # appendix
+    parts.append('<h2 id="appendix">Provenance appendix</h2><p>Every plotted point: its values (canonical units), '
+                 "the observation rows behind them, their sources, locators and basis.</p>")
+    parts.append(_appendix(points_frame, ds))
+    parts.append(_METHODS)
+    parts.append(f"<p><small>comparo {_e(_version())}. {_e(DISCLAIMER)}</small></p>")
+    return _page(title, "".join(parts))
+
+
+def _version() -> str:
+    from comparo import __version__
+
+    return __version__
+
+
+def _appendix(points, ds) -> str:
+    if points is None or not len(points):
+        return "<p>No plotted points.</p>"
+    obs = ds.observations.set_index("obs_id")
+    src = ds.sources.set_index("source_id")
+    rows = []
+    seen = set()
+    for p in points.itertuples(index=False):
+        for val, ids in ((p.x_value, p.x_obs), (p.y_value, p.y_obs)):
+            for oid in [s for s in str(ids).split(";") if s]:
+                key = (p.label, oid)
+                if key in seen or oid not in obs.index:
+                    continue
+                seen.add(key)
+                o = obs.loc[oid]
+                sid = o["source_id"]
+                s = src.loc[sid] if sid in src.index else None
+                cite = _e(s["citation"]) if s is not None else "(source missing)"
+                doi = s.get("doi") if s is not None else None
+                if isinstance(doi, str) and doi:
+                    cite += f' <a href="https://doi.org/{_e(doi)}">doi:{_e(doi)}</a>'
+                rows.append(f"<tr><td>{_e(p.label)}</td><td>{_e(o['quantity_key'])}</td>{_cell(val)}<td>{_e(oid)}</td>"
+                            f"<td>{_e(o['value'])} {_e(o['unit'])}</td><td>{_e(o['basis_effective'])}</td>"
+                            f"<td>{_e(sid)}</td><td>{cite}</td><td>{_e(o['locator'])}</td></tr>")
+    head = "".join(f"<th>{h}</th>" for h in ("taxon", "quantity", "value used", "obs_id", "as reported", "basis",
+                                              "source", "citation", "locator"))
+    return f'<table class="sortable" id="appendix-table"><thead><tr>{head}</tr></thead><tbody>{"".join(rows)}</tbody></table>'

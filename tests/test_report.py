@@ -1,0 +1,166 @@
+"""Behaviour of the HTML report on a copy of the synthetic demo compilation (invented data)."""
+
+from __future__ import annotations
+
+import json
+import shutil
+import struct
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pandas as pd
+import pytest
+from support import DEMO
+
+from comparo.cli import main
+from comparo.report import build_report
+
+
+class _Collect(HTMLParser):
+    """Collects img sources, every cell's data-value and the appendix table's taxa; checks tag balance."""
+
+    VOID = {"meta", "img", "br", "hr", "link", "input"}
+
+    def __init__(self):
+        super().__init__()
+        self.stack, self.imgs, self.values, self.appendix_taxa = [], [], [], set()
+        self.in_appendix, self.row, self.cell_text, self.mismatched = False, [], None, 0
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "img":
+            self.imgs.append(a.get("src", ""))
+        if tag not in self.VOID:
+            self.stack.append(tag)
+        if tag == "table" and a.get("id") == "appendix-table":
+            self.in_appendix = True
+        if tag == "td":
+            self.cell_text = ""
+            if "data-value" in a:
+                self.values.append(float(a["data-value"]))
+
+    def handle_data(self, data):
+        if self.cell_text is not None:
+            self.cell_text += data
+
+    def handle_endtag(self, tag):
+        if tag in self.VOID:
+            return
+        if not self.stack or self.stack.pop() != tag:
+            self.mismatched += 1
+        if tag == "td" and self.cell_text is not None:
+            self.row.append(self.cell_text)
+            self.cell_text = None
+        if tag == "tr" and self.in_appendix:
+            if self.row:
+                self.appendix_taxa.add(self.row[0])
+            self.row = []
+        if tag == "table":
+            self.in_appendix = False
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory):
+    base = tmp_path_factory.mktemp("report")
+    data = base / "demo"
+    shutil.copytree(DEMO, data)
+    first = build_report(data, base / "out1", seed=7)
+    second = build_report(data, base / "out2", seed=7)
+    return data, base / "out1", base / "out2", first, second
+
+
+@pytest.fixture(scope="module")
+def parsed(runs):
+    p = _Collect()
+    p.feed((runs[1] / "report.html").read_text(encoding="utf-8"))
+    p.close()
+    return p
+
+
+def _png_size(path: Path) -> tuple[int, int]:
+    head = path.read_bytes()[:24]
+    assert head[:8] == b"\x89PNG\r\n\x1a\n", f"{path.name} is not a PNG"
+    return struct.unpack(">II", head[16:24])
+
+
+def test_report_renders_every_figure_as_png_and_embeds_it(runs, parsed):
+    """Each figure is a PNG of print-readable size (width 400-3000 px) and appears base64-embedded in the HTML."""
+    _, out, _, res, _ = runs
+    assert res.ok
+    pngs = sorted((out / "figures").glob("*.png"))
+    assert len(pngs) == len([f for f in res.figures if f.endswith(".png")]) >= 5
+    for png in pngs:
+        w, h = _png_size(png)
+        assert 400 <= w <= 3000 and 300 <= h <= 3000, (png.name, w, h)
+        assert (png.with_suffix(".svg")).read_bytes().lstrip().startswith(b"<?xml")
+    embedded = {src for src in parsed.imgs if src.startswith("data:image/png;base64,")}
+    import base64
+
+    for png in pngs:
+        if png.stem.endswith(("_scaling", "_diagnostics")) or png.stem in ("regime", "coverage", "sources"):
+            assert "data:image/png;base64," + base64.b64encode(png.read_bytes()).decode() in embedded, png.name
+    assert all(not s.startswith("http") for s in parsed.imgs), "no figure is fetched from the network"
+
+
+def test_html_parses_and_states_it_is_a_research_aid_on_invented_data(runs, parsed):
+    html = (runs[1] / "report.html").read_text(encoding="utf-8")
+    assert parsed.mismatched == 0 and parsed.stack == []
+    assert "research aid" in html and "invented" in html
+    assert html.index('id="summary"') < html.index('id="analyses"') < html.index('id="appendix"') < html.index('id="methods"')
+    assert "<script src" not in html and "<link" not in html
+
+
+def test_every_plotted_taxon_is_in_the_appendix(runs, parsed):
+    points = pd.read_csv(runs[1] / "tables" / "points.csv")
+    assert set(points["label"]) <= parsed.appendix_taxa
+    assert "doi.org/10.99999/comparo.demo." in (runs[1] / "report.html").read_text(encoding="utf-8")
+
+
+def test_numbers_in_html_equal_the_tables(runs, parsed):
+    """Every slope, intercept and CI of tables/fits.csv is a data-value of a cell in the HTML, exactly."""
+    fits = pd.read_csv(runs[1] / "tables" / "fits.csv")
+    values = set(parsed.values)
+    for col in ("estimate", "ci_low", "ci_high"):
+        for v in fits[col].dropna():
+            assert float(v) in values, (col, v)
+    per = json.loads((runs[1] / "tables" / "fits.json").read_text())
+    slopes = fits[(fits["term"] == "slope") & fits["group"].isna()]["estimate"].tolist()
+    assert slopes == [f["result"]["slope"] for f in per if "result" in f]
+
+
+def test_report_fit_equals_the_fit_command_json(runs, capsys):
+    """The same fit through ``comparo fit --format json`` gives the object in tables/fits.json."""
+    data, out = runs[0], runs[1]
+    per = {f["id"]: f["result"] for f in json.loads((out / "tables" / "fits.json").read_text()) if "result" in f}
+    rid = next(k for k in per if k.startswith("fit2_"))
+    assert main(["fit", str(data), "--x", "fiber_radius", "--y", "frequency_observed", "--method", "sma", "--format", "json"]) == 0
+    cli = json.loads(capsys.readouterr().out)
+    assert cli == per[rid]
+
+
+def test_two_runs_are_byte_identical(runs):
+    """Tables and figures equal byte for byte; run.json equal apart from its timestamp."""
+    _, out1, out2, _, _ = runs
+    for sub in ("tables", "figures"):
+        names = sorted(p.name for p in (out1 / sub).iterdir())
+        assert names == sorted(p.name for p in (out2 / sub).iterdir())
+        for n in names:
+            assert (out1 / sub / n).read_bytes() == (out2 / sub / n).read_bytes(), n
+    r1, r2 = (json.loads((o / "run.json").read_text()) for o in (out1, out2))
+    r1.pop("created_utc"), r2.pop("created_utc")
+    assert r1 == r2
+    assert r1["seed"] == 7 and set(r1["inputs_sha256"]) >= {"observations.csv", "sources.csv"}
+
+
+def test_invalid_dataset_renders_an_error_page_and_exits_2(tmp_path, capsys):
+    data = tmp_path / "bad"
+    shutil.copytree(DEMO, data)
+    obs = data / "observations.csv"
+    lines = obs.read_text(encoding="utf-8").splitlines()
+    lines[1] = lines[1].replace(",reported,", ",guessed,", 1)
+    obs.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    code = main(["report", str(data), "-o", str(tmp_path / "out")])
+    assert code == 2
+    html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert "validation failed" in html and "guessed" in html
+    assert "error" in capsys.readouterr().err
