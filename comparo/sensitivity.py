@@ -276,10 +276,23 @@ def taxon_jackknife(result: FitResult, fit_kwargs: dict) -> dict:
     return {"slope_jackknife": se_j, "slope_analytic": se_a, "ratio": se_j / se_a if se_a > 0 else None, "n": int(n)}
 
 
-def _refit(ds, h, rows, x, y, method, kwargs):
+def _refit(ds, h, rows, changed, base_table, x, y, method, kwargs):
+    """Refit after a change of the rows flagged ``changed``.
+
+    Aggregation is per taxon, so only the taxa with a changed row are rebuilt
+    (:func:`comparo.curate.per_taxon` on their rows); the others keep their
+    per-taxon values from ``base_table``.
+    """
+    import pandas as pd
+
     from comparo.curate import per_taxon
 
-    table = per_taxon(ds, harmonised=dataclasses.replace(h, rows=rows))
+    touched = set(rows.loc[changed, "accepted"])
+    sub_rows = rows[rows["accepted"].isin(touched)]
+    sub = per_taxon(ds, harmonised=dataclasses.replace(h, rows=sub_rows))
+    keep = base_table[~base_table["taxon"].isin(touched)]
+    sub = sub[[c for c in keep.columns if c in sub.columns]]
+    table = pd.concat([keep, sub], ignore_index=True).sort_values("taxon", kind="stable")
     if x not in table.columns or y not in table.columns:
         return None
     try:
@@ -376,6 +389,8 @@ def sensitivity(
         if x not in table.columns or y not in table.columns:
             raise UsageError(f"{x!r} and {y!r} must both be quantities of the dataset for the source-level parts")
         rows = h.rows[h.rows["quantity_key"].isin([x, y])].copy()
+        cols = [taxon_col] + [c for c in table.columns if c.startswith((f"{x}", f"{y}")) and c != taxon_col]
+        xy_table = table[[c for c in dict.fromkeys(["taxon", *cols]) if c in table.columns]]
         used = rows[rows["status"] == "used"]
         sources = sorted(used["source_id"].astype(str).unique())
         loso = []
@@ -383,8 +398,9 @@ def sensitivity(
             task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
             for sid in sources:
                 r = rows.copy()
-                r.loc[r["source_id"].astype(str) == sid, "status"] = "excluded"
-                res = _refit(ds, h, r, x, y, method, kw)
+                changed = (r["source_id"].astype(str) == sid).to_numpy()
+                r.loc[changed, "status"] = "excluded"
+                res = _refit(ds, h, r, changed, xy_table, x, y, method, kw)
                 rec = {"source_id": sid, **_record(res, base.slope, se)}
                 rec["flips"] = _flips(p_full, rec["p"], alpha)
                 loso.append(rec)
@@ -399,8 +415,9 @@ def sensitivity(
             if k > 0 and BASIS_STEPS[k] not in present:
                 continue
             r = rows.copy()
-            r.loc[~r["basis_effective"].isin(bases), "status"] = "excluded"
-            res = base if set(present) <= set(bases) else _refit(ds, h, r, x, y, method, kw)
+            changed = (~r["basis_effective"].isin(bases)).to_numpy()
+            r.loc[changed, "status"] = "excluded"
+            res = base if set(present) <= set(bases) else _refit(ds, h, r, changed, xy_table, x, y, method, kw)
             ref_se = analytic_se(prev) if prev is not None else float("nan")
             rec = {"bases": list(bases), **_record(res, prev.slope if prev is not None else float("nan"), ref_se)}
             if prev is None:
