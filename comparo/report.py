@@ -449,7 +449,8 @@ def _regime_lines(derived, by: str | None) -> list[str]:
         kin, hyd = int(counts.get("kinetic", 0)), int(counts.get("hydraulic", 0))
         und = int(counts.sum()) - kin - hyd
         verdict = "kinetic limited" if kin > hyd else "hydraulic limited" if hyd > kin else "no majority"
-        out.append(f"<li><strong>{_e(g)}</strong>: {verdict} ({kin} kinetic, {hyd} hydraulic, {und} undetermined)</li>")
+        out.append(f"<li><strong>{_e(g)}</strong>: {verdict} among the {kin + hyd} taxa with a derived regime "
+                   f"({kin} kinetic, {hyd} hydraulic; {und} undetermined for lack of inputs)</li>")
     return out
 
 

@@ -113,6 +113,8 @@ def test_html_parses_and_states_it_is_a_research_aid_on_invented_data(runs, pars
 def test_every_plotted_taxon_is_in_the_appendix(runs, parsed):
     points = pd.read_csv(runs[1] / "tables" / "points.csv")
     assert set(points["label"]) <= parsed.appendix_taxa
+    per = {f["id"]: f["result"]["n"] for f in json.loads((runs[1] / "tables" / "fits.json").read_text()) if "result" in f}
+    assert points.groupby("analysis").size().to_dict() == per, "one plotted point per fitted taxon"
     assert "doi.org/10.99999/comparo.demo." in (runs[1] / "report.html").read_text(encoding="utf-8")
 
 
