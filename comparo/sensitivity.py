@@ -202,7 +202,7 @@ def measurement_error_mc(table, result: FitResult, *, log: str, mc: int, seed: i
     (:func:`lognormal_draws`), refits on the same taxa (moments, vectorised) and
     keeps the slope. ``spread`` is the sd of those slopes, ``sampling_se`` the
     fit's analytic SE, ``total_se`` = sqrt(spread^2 + sampling_se^2) (the two
-    treated as independent; JCGM 101:2008, 5.11).
+    treated as independent; the propagation of distributions of JCGM 101:2008).
     """
     x, y, method = result.x, result.y, result.method
     out = {"draws": int(mc), "seed": int(seed), "slope_mean": None, "spread": None, "sampling_se": analytic_se(result),

@@ -144,7 +144,7 @@ def test_mc_zero_uncertainty_reproduces_fit(method):
 
 def test_mc_attenuation_matches_reliability_ratio():
     """Classical error in x attenuates the OLS slope by the reliability ratio
-    lambda = var(x)/(var(x) + var(u)) (Fuller 1987, Measurement Error Models, sec. 1.1.1).
+    lambda = var(x)/(var(x) + var(u)) (Fuller 1987, Measurement Error Models, ch. 1; section from memory).
     A constant relative uncertainty c is, on log10 axes, an additive error of variance
     ln(1 + c^2)/ln(10)^2. Tolerance: 4 Monte Carlo standard errors plus the O(1/n) bias
     of the ratio estimator."""
@@ -160,7 +160,7 @@ def test_mc_attenuation_matches_reliability_ratio():
 
 
 def test_lognormal_draws_moments():
-    """Draws keep the stated mean and standard deviation (JCGM 101:2008, 6.4.9 moment matching)."""
+    """Draws keep the stated mean and standard deviation (log-normal moment matching, as stated in JCGM 101:2008; clause not checked, from memory)."""
     d = lognormal_draws(np.array([10.0, 0.0]), np.array([3.0, 2.0]), 200_000, np.random.default_rng(2))
     assert d[:, 0].mean() == pytest.approx(10, rel=0.01)
     assert d[:, 0].std() == pytest.approx(3, rel=0.02)
