@@ -171,8 +171,8 @@ def lognormal_draws(value: np.ndarray, u: np.ndarray, draws: int, rng: np.random
     """Draws (draws x n) with mean ``value`` and standard deviation ``u``.
 
     Positive values: log-normal with sigma^2 = ln(1 + (u/v)^2), mu = ln v - sigma^2/2, the
-    log-normal of given mean and standard deviation (JCGM 101:2008, 6.4.9 uses the same
-    moment matching); zero or non-positive values: normal. u = 0 returns v exactly.
+    log-normal of given mean and standard deviation (moment matching); zero or
+    non-positive values: normal. u = 0 returns v exactly.
     """
     v = np.asarray(value, dtype=float)
     s = np.nan_to_num(np.asarray(u, dtype=float), nan=0.0)
