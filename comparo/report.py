@@ -404,6 +404,8 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
         point_frames.append(pf)
         figures[f"{aid}_scaling"] = plots.render(plots.scaling_plot(res, pts, catalog=ds.catalog, by=by, seed=seed))
         figures[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(pts, title=f"{aid}: residual diagnostics"))
+        if method == "pgls" and res.lambda_ is not None and res.loglik is not None:
+            figures[f"{aid}_lambda"] = plots.render(_lambda_figure(res, data, a, by, opts, aid))
         sections.append((aid, res, frame, pts))
 
     fits_frame = pd.concat(fit_frames, ignore_index=True) if fit_frames else pd.DataFrame()
@@ -436,6 +438,20 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
                         figures=tuple(f"figures/{s}.{ext}" for s in figures for ext in ("png", "svg")),
                         tables=tuple(f"tables/{n}.csv" for n in tables) + ("tables/fits.json",),
                         fits=tuple(fits), notes=tuple(notes))
+
+
+#: Fixed lambda values at which the PGLS profile likelihood is drawn.
+LAMBDA_GRID = tuple(i / 10 for i in range(11))
+
+
+def _lambda_figure(res, data, a: dict, by: str | None, opts: dict, aid: str):
+    """Profile log-likelihood of lambda: the PGLS of *res* refitted at each lambda of :data:`LAMBDA_GRID`."""
+    from comparo import plots
+    from comparo.fit import fit
+
+    lls = [fit(data, a["x"], a["y"], "pgls", by=by, **{**opts, "lambda_": lam}).loglik for lam in LAMBDA_GRID]
+    return plots.lambda_profile(LAMBDA_GRID, lls, lam_hat=res.lambda_, loglik_hat=res.loglik, lam_ci=res.lambda_ci,
+                                ci=res.ci_level)
 
 
 def _regime_lines(derived, by: str | None) -> list[str]:
@@ -504,8 +520,11 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
         parts.append(_table(frame))
         parts.append(_img(figures[f"{aid}_diagnostics"][0], f"residual diagnostics {aid}"))
         if res.method == "pgls":
-            parts.append("<p>Residuals of the PGLS line are the ordinary residuals y - (a + b x); a profile of the "
-                         "lambda likelihood is not drawn (the fit result does not carry one).</p>")
+            parts.append("<p>Residuals of the PGLS line are the ordinary residuals y - (a + b x), not the "
+                         "phylogenetically transformed ones.</p>")
+            if f"{aid}_lambda" in figures:
+                parts.append(_img(figures[f"{aid}_lambda"][0], f"lambda profile {aid}"))
+                parts.append(f"<p>Profile: the same PGLS refitted at fixed lambda = {', '.join(f'{v:g}' for v in LAMBDA_GRID)}.</p>")
     fl = flags_frame
     parts.append("<h3>Flags and exclusions</h3>" + (_table(fl) if len(fl) else "<p>None.</p>"))
     # regime

@@ -79,3 +79,9 @@ def test_diagnostics_and_coverage_and_sources(table):
     assert plots.render(plots.coverage_map(cov))[0][:4] == b"\x89PNG"
     src = pd.DataFrame({"source_id": ["s1", "s2"], "values": [5, 3], "taxa": [2, 1]})
     assert plots.render(plots.source_chart(src))[0][:4] == b"\x89PNG"
+
+
+def test_lambda_profile_renders_with_interval():
+    png, svg = plots.render(plots.lambda_profile([0, 0.5, 1], [1.0, 3.0, 2.0], lam_hat=0.6, loglik_hat=3.1,
+                                                 lam_ci=[0.3, 0.9]))
+    assert png[:4] == b"\x89PNG" and b"<svg" in svg

@@ -97,8 +97,9 @@ def test_report_renders_every_figure_as_png_and_embeds_it(runs, parsed):
     import base64
 
     for png in pngs:
-        if png.stem.endswith(("_scaling", "_diagnostics")) or png.stem in ("regime", "coverage", "sources"):
+        if png.stem.endswith(("_scaling", "_diagnostics", "_lambda")) or png.stem in ("regime", "coverage", "sources"):
             assert "data:image/png;base64," + base64.b64encode(png.read_bytes()).decode() in embedded, png.name
+    assert any(p.stem.endswith("_lambda") for p in pngs), "the PGLS fit of the demo has a lambda profile"
     assert all(not s.startswith("http") for s in parsed.imgs), "no figure is fetched from the network"
 
 
