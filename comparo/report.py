@@ -313,7 +313,30 @@ def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: 
     atomic_write_text(out / "run.json", dumps(record) + "\n")
 
 
-def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 20240601, temperature: bool = True) -> ReportResult:
+class _Steps:
+    """A rich progress bar on standard error when asked (a terminal), else nothing."""
+
+    def __init__(self, on: bool, total: int):
+        self.bar = None
+        if on:
+            from rich.console import Console
+            from rich.progress import Progress
+
+            self.bar = Progress(console=Console(stderr=True), transient=True)
+            self.bar.start()
+            self.task = self.bar.add_task("report", total=total)
+
+    def step(self, what: str) -> None:
+        if self.bar is not None:
+            self.bar.update(self.task, advance=1, description=what)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.stop()
+
+
+def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 20240601, temperature: bool = True,
+                 progress: bool = False) -> ReportResult:
     """Run the pipeline on a dataset folder and write the report into *out_dir*.
 
     Parameters
@@ -322,12 +345,23 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     out_dir : output folder (created; files in it are replaced atomically).
     seed : seed of every random step (figure bands; fits that resample).
     temperature : normalise rates and frequencies to the reference temperature.
+    progress : show a progress bar on standard error (for a terminal).
 
     Returns
     -------
     ReportResult
         ``ok`` is False when validation found errors; then report.html lists them.
     """
+    folder, out = Path(folder), Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    steps = _Steps(progress, 6)
+    try:
+        return _build(folder, out, seed, temperature, steps)
+    finally:
+        steps.close()
+
+
+def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps) -> ReportResult:
     import pandas as pd
 
     from comparo import plots
@@ -338,18 +372,19 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     from comparo.fit import fit
     from comparo.provenance import audit
 
-    folder, out = Path(folder), Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
+    steps.step("checking")
     checked = review(folder)
     if not checked.ok or checked.dataset is None:
         return _write_error_page(out, folder, checked, seed, temperature)
     ds = checked.dataset
     settings = ds.settings or {}
     notes: list[str] = []
+    steps.step("harmonising and auditing")
     h = harmonise(ds, temperature=temperature)
     table = per_taxon(ds, temperature=temperature, harmonised=h)
     aud = audit(ds, temperature=temperature, harmonised=h)
     derived = None
+    steps.step("deriving time scales")
     try:
         from comparo.derive import derive
 
@@ -370,6 +405,7 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     fit_frames, flag_rows, point_frames = [], [], []
     sections = []
     labels = _tree_labels(ds)
+    steps.step("fitting and drawing")
     for i, a in enumerate(analyses):
         aid = _analysis_id(i, a)
         method, by = a.get("method", "sma"), a.get("by")
@@ -413,6 +449,7 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     points_frame = pd.concat(point_frames, ignore_index=True) if point_frames else pd.DataFrame()
     tables |= {"fits": to_csv(fits_frame), "flags": to_csv(flags_frame), "points": to_csv(points_frame)}
 
+    steps.step("drawing the regime and coverage")
     if derived is not None:
         fig = plots.regime_plot(derived)
         if fig is not None:
@@ -423,6 +460,7 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     figures["coverage"] = plots.render(plots.coverage_map(ad["coverage"]))
     figures["sources"] = plots.render(plots.source_chart(aud.sources_frame()))
 
+    steps.step("writing")
     for name, text in tables.items():
         atomic_write_text(out / "tables" / f"{name}.csv", text)
     atomic_write_text(out / "tables" / "fits.json", dumps([f for f in fits]) + "\n")
@@ -531,6 +569,12 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
     parts.append('<h2 id="regime">Regime</h2>')
     if "regime" in figures:
         parts.append(_img(figures["regime"][0], "regime plot"))
+        cols = [c for c in ("taxon", "poroelastic_time", "kinetic_time", "poro_kinetic_ratio", "frequency_observed",
+                            "frequency_kinetic_bound", "frequency_hydraulic_bound", "frequency_ratio", "regime")
+                if c in derived]
+        shown = derived.loc[derived["regime"].notna() & (derived["regime"].astype("string") != ""), cols]
+        parts.append("<p>Taxa with a derived regime (times in s, frequencies in Hz, ratios dimensionless; "
+                     "uncertainties and inputs in tables/derived.csv):</p>" + _table(shown))
     else:
         why = "; ".join(n for n in notes if "deriv" in n or "regime" in n) or "no derived values"
         parts.append(f"<p>The regime plot is unavailable: {_e(why)}.</p>")
