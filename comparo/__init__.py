@@ -27,6 +27,12 @@ _API = {
     "audit": "comparo.provenance",
     "derive": "comparo.derive",
     "fit": "comparo.fit",
+    "sensitivity": "comparo.sensitivity",
+    "build_report": "comparo.report",
+    "pgls_fit": "comparo.phylo",
+    "pic": "comparo.phylo",
+    "signal": "comparo.phylo",
+    "read_tree": "comparo.phylo",
 }
 
 __all__ = sorted(_API) + ["__version__"]

@@ -96,6 +96,7 @@ def build_parser() -> argparse.ArgumentParser:
     _dataset_arg(p)
     p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
     p.add_argument("--seed", type=int, default=20240601)
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
     _temperature_arg(p)
 
     p = sub.add_parser("export", help="export to open data standards")
@@ -103,8 +104,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--to", choices=["datapackage", "dwc"], required=True, help="Frictionless Data Package or Darwin Core MeasurementOrFact")
     p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
 
-    p = sub.add_parser("demo", help="write the synthetic demo compilation and run the analysis on it")
+    p = sub.add_parser("demo", help="write the synthetic demo compilation and run the report on it")
     p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
+    p.add_argument("--seed", type=int, default=20240601, help="random seed for resampling")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
     p = sub.add_parser("units", help="list the quantity catalogue with canonical units")
     p.add_argument("dataset", metavar="DATASET", nargs="?", default=None, help="include a dataset's own quantities")

@@ -59,7 +59,6 @@ def test_text_csv_and_options(csv, capsys):
     [
         (["--x", "nope", "--y", "freq"], "'nope' is not in the table"),
         (["--x", "label", "--y", "freq"], "not numeric"),
-        (["--x", "mass", "--y", "freq", "--sensitivity"], "--sensitivity is not available yet"),
         (["--x", "mass", "--y", "freq", "--ci", "95"], "--ci"),
         (["--x", "mass", "--y", "freq", "--method", "pgls"], "needs a tree"),
     ],

@@ -78,9 +78,10 @@ def test_clean_copy_passes_strictly(demo_copy):
     assert not [p for p in problems if p["severity"] != "note"]
 
 
-def test_demo_command_writes_tables(tmp_path):
-    proc = run_cli("demo", "-o", str(tmp_path / "out"))
+def test_demo_command_runs_the_report(tmp_path):
+    proc = run_cli("demo", "-o", str(tmp_path / "out"), "--quiet", timeout=180)
     assert proc.returncode == 0, proc.stderr
-    audit = json.loads((tmp_path / "out" / "tables" / "audit.json").read_text())
-    assert audit["rows_used"] + audit["rows_merged"] + len(audit["rows_excluded"]) == audit["rows_read"]
-    assert (tmp_path / "out" / "tables" / "per_taxon.csv").stat().st_size > 0
+    out = tmp_path / "out"
+    assert (out / "report.html").stat().st_size > 10_000
+    assert (out / "tables" / "per_taxon.csv").stat().st_size > 0
+    assert json.loads((out / "run.json").read_text())["seed"] == 20240601

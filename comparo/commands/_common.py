@@ -23,6 +23,9 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp creates 0600; give the usual file mode
         os.replace(tmp, path)
     except BaseException:
         try:

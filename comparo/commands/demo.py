@@ -1,11 +1,10 @@
-"""``comparo demo -o DIR``: copy the synthetic demo compilation out and analyse it."""
+"""``comparo demo -o DIR``: copy the synthetic demo compilation out and run the report on it."""
 
 from __future__ import annotations
 
 import shutil
+import sys
 from pathlib import Path
-
-from comparo.commands._common import atomic_write_text, dumps
 
 
 def demo_source() -> Path:
@@ -16,10 +15,7 @@ def demo_source() -> Path:
 
 
 def run(args) -> int:
-    from comparo.commands.check import render_problems
-    from comparo.csvsafe import to_csv
-    from comparo.curate import per_taxon, review
-    from comparo.provenance import audit, lineage
+    from comparo.report import build_report
 
     out = Path(args.output)
     data = out / "synthetic_cyclers"
@@ -27,18 +23,6 @@ def run(args) -> int:
         shutil.rmtree(data)
     shutil.copytree(demo_source(), data)
     print(f"demo compilation (synthetic, invented data) copied to {data}")
-    result = review(data)
-    if not result.ok:  # pragma: no cover - the shipped demo is valid (tested)
-        render_problems(result)
-        return 2
-    ds = result.dataset
-    render_problems(result)
-    tables = out / "tables"
-    atomic_write_text(tables / "problems.csv", to_csv(result.problems))
-    atomic_write_text(tables / "per_taxon.csv", to_csv(per_taxon(ds)))
-    atomic_write_text(tables / "lineage.csv", to_csv(lineage(ds)))
-    report = audit(ds)
-    atomic_write_text(tables / "audit.json", dumps(report.to_dict()))
-    print(report.summary())
-    print(f"tables written to {tables}")
-    return 0
+    res = build_report(data, out, seed=args.seed, progress=sys.stderr.isatty() and not args.quiet)
+    print(res.summary())
+    return 0 if res.ok else 2
