@@ -232,7 +232,7 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     obs["unit_canonical"] = canon.to_numpy()
     is_alias = qty.map(lambda k: bool(k in catalog and catalog[k].converts_to)).to_numpy(dtype=bool)
     basis = obs["basis"].where(obs["basis"].isin(BASIS_ORDER), "assumed")
-    rank = basis.map(BASIS_ORDER.index).to_numpy()
+    rank = basis.map(BASIS_ORDER.index).to_numpy(dtype=int)  # int even when there are no rows
     eff_rank = np.where(is_alias, np.maximum(rank, BASIS_ORDER.index("computed")), rank)
     obs["basis_effective"] = np.array(BASIS_ORDER, dtype=object)[eff_rank]
 
