@@ -16,6 +16,8 @@ def run(args) -> int:
     if args.output:
         from pathlib import Path
 
+        import pandas as pd
+
         from comparo.commands._common import atomic_write_text
         from comparo.csvsafe import to_csv
         from comparo.provenance import lineage
@@ -24,7 +26,8 @@ def run(args) -> int:
         atomic_write_text(out / "audit.json", dumps(report.to_dict()))
         atomic_write_text(out / "coverage.csv", to_csv(report.to_frame()))
         atomic_write_text(out / "sources.csv", to_csv(report.sources_frame()))
-        atomic_write_text(out / "excluded.csv", to_csv(__import__("pandas").DataFrame(report.rows_excluded, columns=["obs_id", "row", "reason"])))
+        atomic_write_text(out / "excluded.csv", to_csv(
+            pd.DataFrame(report.rows_excluded, columns=["obs_id", "row", "reason"])))
         atomic_write_text(out / "lineage.csv", to_csv(lineage(ds, temperature=not args.no_temperature)))
     if args.format == "json":
         emit(dumps(report.to_dict()))
