@@ -5,6 +5,7 @@ from __future__ import annotations
 
 def run(args) -> int:
     from comparo.commands._common import emit
+    from comparo.csvsafe import to_csv
     from comparo.curate import per_taxon
     from comparo.derive import derive
     from comparo.io import load
@@ -14,5 +15,5 @@ def run(args) -> int:
     settings = {**ds.settings.get("derive", {}), "ratios": ds.settings.get("ratios", {}),
                 "quantities": ds.settings.get("quantities", {})}
     out = derive(table, settings, mc=args.mc, seed=args.seed)
-    emit(out.to_csv(index=False), args.output)
+    emit(to_csv(out), args.output)
     return 0
