@@ -137,12 +137,14 @@ class FitResult:
     phylo: dict | None = None
     points: tuple[dict, ...] = field(default=(), repr=False)
     notes: tuple[str, ...] = ()
+    refit_without_flagged: FlaggedRefit | None = None
 
     def to_dict(self) -> dict:
         """JSON-safe dict with the keys of the ``fit --format json`` contract.
 
-        ``group_tests`` (with ``by``) and ``bootstrap`` (with resampling) are
-        added only when they were computed.
+        ``group_tests`` (with ``by``), ``bootstrap`` (with resampling) and
+        ``refit_without_flagged`` (with ``drop_flagged``) are added only when
+        they were computed.
         """
         out = {
             "method": self.method,
@@ -172,6 +174,8 @@ class FitResult:
             out["bootstrap"] = _json(self.bootstrap)
         if self.phylo is not None:
             out["phylo"] = _json(self.phylo)
+        if self.refit_without_flagged is not None:
+            out["refit_without_flagged"] = self.refit_without_flagged.to_dict()
         return out
 
     @classmethod
@@ -211,6 +215,8 @@ class FitResult:
             for term, key in (("breakpoint_x", "x"), ("slope_left", "slope_left"), ("slope_right", "slope_right")):
                 lo, hi = bp.get(f"{key}_ci") or (_NAN, _NAN)
                 rows.append({"group": "(segmented)", "term": term, "estimate": bp.get(key), "ci_low": lo, "ci_high": hi, "n": self.n})
+        if self.refit_without_flagged is not None:
+            rows += self.refit_without_flagged.frame_rows()
         frame = pd.DataFrame(rows)
         frame.insert(0, "method", self.method)
         return frame
@@ -274,6 +280,80 @@ class FitResult:
             lines.append(f"  excluded ({len(self.excluded)}):")
             lines += [f"    {e['label']}: {e['reason']}" for e in self.excluded]
         lines += [f"  note: {s}" for s in self.notes]
+        if self.refit_without_flagged is not None:
+            lines.append(self.refit_without_flagged.summary(self))
+        return "\n".join(lines)
+
+
+@dataclass(frozen=True)
+class FlaggedRefit:
+    """The fit repeated without the points that broke the chosen flag rules.
+
+    Asked with ``fit(..., drop_flagged=...)`` / ``--drop-flagged``; the original
+    fit is kept and this refit is reported beside it. One pass: the refit's own
+    flags are reported (in ``fit.outliers``) but nothing more is dropped.
+
+    Attributes
+    ----------
+    rules : tuple of str
+        Rule ids that caused a drop (see :func:`comparo.flags.drop_rules`).
+    dropped : tuple of dict
+        ``{"label", "rules", "reasons"}`` per dropped point, in point order.
+    fit : FitResult or None
+        The refit (None when nothing was dropped or the refit was impossible;
+        ``note`` says why).
+    slope_change : float or None
+        Refit slope minus original slope (dimensionless on log-log axes).
+    note : str or None
+    """
+
+    rules: tuple[str, ...]
+    dropped: tuple[dict, ...]
+    fit: FitResult | None
+    slope_change: float | None = None
+    note: str | None = None
+
+    def to_dict(self) -> dict:
+        """``{"rules", "dropped", "n_dropped", "slope_change", "fit", "note"}``; ``fit`` is a fit object."""
+        return {
+            "rules": list(self.rules),
+            "dropped": _json([dict(d) for d in self.dropped]),
+            "n_dropped": len(self.dropped),
+            "slope_change": _num(self.slope_change),
+            "fit": self.fit.to_dict() if self.fit is not None else None,
+            "note": self.note,
+        }
+
+    def frame_rows(self) -> list[dict]:
+        """Rows for :meth:`FitResult.to_frame`: the refit's estimates, then one row per dropped point."""
+        rows = []
+        r = self.fit
+        if r is not None:
+            for term, est, ci in (("slope", r.slope, r.slope_ci), ("intercept", r.intercept, r.intercept_ci),
+                                  ("r2", r.r2, (_NAN, _NAN))):
+                rows.append({"group": "(without flagged)", "term": term, "estimate": est, "ci_low": ci[0], "ci_high": ci[1], "n": r.n})
+        for d in self.dropped:
+            rows.append({"group": "(dropped)", "term": d["label"], "estimate": _NAN, "ci_low": _NAN, "ci_high": _NAN,
+                         "n": _NAN, "flags": "; ".join(d["rules"])})
+        return rows
+
+    def summary(self, original: FitResult | None = None) -> str:
+        pct = f"{100 * original.ci_level:g}%" if original is not None else "CI"
+        lines = [f"  refit without flagged points (rules: {', '.join(self.rules) or 'none'}): "
+                 f"{len(self.dropped)} dropped"]
+        lines += [f"    dropped {d['label']}: {'; '.join(d['rules'])}" for d in self.dropped]
+        r = self.fit
+        if r is not None:
+            was = f" (was {_f(original.slope)}, change {_f(self.slope_change)})" if original is not None else ""
+            lines.append(f"    n = {r.n}  slope {_f(r.slope)}   {pct} CI {_f(r.slope_ci[0])} .. {_f(r.slope_ci[1])}{was}")
+            lines.append(f"    intercept {_f(r.intercept)}   {pct} CI {_f(r.intercept_ci[0])} .. {_f(r.intercept_ci[1])}   r2 {_f(r.r2)}")
+            if r.test_slope:
+                t = r.test_slope
+                lines.append(f"    slope = {t['value']:g}?  statistic {_f(t['statistic'])}, p = {_p(t['p'])}")
+            if r.outliers:
+                lines.append(f"    flags of the refit (not dropped): {', '.join(dict.fromkeys(o['label'] for o in r.outliers))}")
+        if self.note:
+            lines.append(f"    note: {self.note}")
         return "\n".join(lines)
 
 
@@ -1044,7 +1124,7 @@ def _prepare(table: pd.DataFrame, x: str, y: str, log: str, taxon_col: str, by: 
     Y = tf(values[y][1][keep_arr])
     labs = [labels[i] for i in keep]
     groups = table[by].iloc[keep_arr].astype(str).to_numpy() if by else None
-    return X, Y, labs, groups, excluded
+    return X, Y, labs, groups, excluded, keep_arr
 
 
 def fit(
@@ -1062,6 +1142,7 @@ def fit(
     taxon_col: str = "taxon",
     breakpoint: bool = False,
     progress: bool = False,
+    drop_flagged: bool | str | list[str] | None = None,
     **pgls_options: Any,
 ) -> FitResult:
     """Fit the scaling line log y = alpha + beta log x.
@@ -1093,6 +1174,13 @@ def fit(
         Also fit a broken line (least squares, Muggeo 2003) with Davies' test.
     progress : bool
         Show a progress bar on standard error for a long bootstrap.
+    drop_flagged : bool, str or list of str, optional
+        Also refit without the points flagged by these rules and report the
+        refit in ``refit_without_flagged`` beside the original (which is
+        unchanged). ``True`` means the misfit rules (``bonferroni``,
+        ``robust_weight``, ``lts_residual``); a comma list or list may name
+        rules and groups (:func:`comparo.flags.drop_rules`). Default: no refit,
+        nothing is ever dropped.
     **pgls_options
         Passed to :func:`comparo.phylo.pgls_fit` (tree, lambda, REML...).
 
@@ -1131,13 +1219,23 @@ def fit(
         if by is not None:
             pgls_options["by"] = by
         d = pgls_fit(table=table, x=x, y=y, log=log, ci=ci, test_slope=test_slope, taxon_col=taxon_col, **pgls_options)
-        return FitResult.from_dict(d)
+        res = FitResult.from_dict(d)
+        if drop_flagged:
+            from dataclasses import replace
+
+            from comparo.flags import drop_rules
+
+            res = replace(res, refit_without_flagged=FlaggedRefit(
+                drop_rules(drop_flagged), (), None,
+                note="pgls fits carry no outlier or influence flags here; nothing was dropped and no refit was made"))
+        return res
     if pgls_options:
         raise UsageError(f"options {', '.join(sorted(pgls_options))} apply only to method pgls")
 
-    from comparo.flags import flag_points
+    from comparo.flags import drop_rules, flag_points
 
-    X, Y, labels, groups, excluded = _prepare(table, x, y, log, taxon_col, by)
+    rules = drop_rules(drop_flagged)
+    X, Y, labels, groups, excluded, rows_used = _prepare(table, x, y, log, taxon_col, by)
     n = len(X)
     if n < 3:
         raise UsageError(f"{method} needs at least 3 usable points; {n} remain after excluding {len(excluded)} row(s)"
@@ -1179,9 +1277,36 @@ def fit(
         if core.lts_std is not None:
             rec["lts_std"] = float(core.lts_std[i])
         points.append(rec)
+    refit = None
+    if drop_flagged:
+        refit = _refit_without_flagged(
+            table, flags.flags, rules, rows_used, core.slope,
+            dict(x=x, y=y, method=method, by=by, test_slope=test_slope, ci=ci, log=log, bootstrap=bootstrap, seed=seed,
+                 taxon_col=taxon_col, breakpoint=breakpoint, progress=progress))
     return FitResult(
         method=method, x=x, y=y, log=log, n=n, slope=core.slope, slope_ci=core.slope_ci, intercept=core.intercept,
         intercept_ci=core.intercept_ci, r2=core.r2, ci_level=float(ci), test_slope=core.test,
         groups=group_rows, group_tests=group_tests, outliers=[f.to_dict() for f in flags.flags], excluded=excluded,
-        breakpoint=bp, bootstrap=boot, points=tuple(points), notes=tuple(notes),
+        breakpoint=bp, bootstrap=boot, points=tuple(points), notes=tuple(notes), refit_without_flagged=refit,
     )
+
+
+def _refit_without_flagged(table, flags, rules: tuple[str, ...], rows_used: np.ndarray, slope: float, kw: dict) -> FlaggedRefit:
+    """Drop the rows of the points flagged by *rules* and fit again with the same options."""
+    per_point: dict[int, dict] = {}
+    for f in flags:
+        if f.rule in rules:
+            d = per_point.setdefault(f.index, {"label": f.label, "rules": [], "reasons": []})
+            if f.rule not in d["rules"]:
+                d["rules"].append(f.rule)
+            d["reasons"].append(f.reason)
+    dropped = tuple(per_point[i] for i in sorted(per_point))
+    if not dropped:
+        return FlaggedRefit(rules, (), None, None, note="no point breaks the chosen rules; nothing was dropped")
+    pos = rows_used[sorted(per_point)]
+    sub = table.drop(index=table.index[pos])
+    try:
+        r = fit(sub, **kw)
+    except UsageError as exc:
+        return FlaggedRefit(rules, dropped, None, None, note=f"no refit: {exc}")
+    return FlaggedRefit(rules, dropped, r, r.slope - slope)

@@ -40,6 +40,17 @@ if TYPE_CHECKING:  # pragma: no cover
 
 #: reasons that mean "this point does not fit the line" (not merely "it pulls on it")
 OUTLIER_RULES = ("bonferroni", "robust_weight", "lts_residual")
+#: every rule id :func:`flag_points` can emit
+ALL_RULES = ("bonferroni", "leverage", "cooks_d", "robust_weight", "lts_residual")
+#: what ``drop_flagged=True`` (``--drop-flagged`` without a value) drops: the misfit rules only.
+#: Leverage and Cook's distance measure how hard a point pulls on the line, not that it is
+#: wrong; the smallest and largest taxa of a scaling study have high leverage by design.
+DEFAULT_DROP_RULES = OUTLIER_RULES
+_RULE_NAMES = {
+    "outlier": OUTLIER_RULES, "outliers": OUTLIER_RULES, "default": DEFAULT_DROP_RULES,
+    "all": ALL_RULES, "any": ALL_RULES, "cook": ("cooks_d",), "cooks": ("cooks_d",),
+    **{r: (r,) for r in ALL_RULES},
+}
 
 
 @dataclass(frozen=True)
@@ -57,12 +68,15 @@ class Flag:
         The rule in words, with its cut-off.
     statistic : float
         The point's value of the statistic the rule tests (dimensionless).
+    index : int
+        Position of the point in the arrays given to :func:`flag_points` (-1: unknown).
     """
 
     label: str
     rule: str
     reason: str
     statistic: float
+    index: int = -1
 
     def to_dict(self) -> dict:
         """``{"label", "reason", "statistic"}`` as in the fit JSON contract."""
@@ -110,6 +124,37 @@ class FlagReport:
         lines = [f"{len(self.flags)} flag(s):"]
         lines += [f"  {f.label}: {f.reason} (statistic {f.statistic:.4g})" for f in self.flags]
         return "\n".join(lines)
+
+
+def drop_rules(spec: bool | str | list[str] | tuple[str, ...] | None) -> tuple[str, ...]:
+    """Rule ids selected by a ``drop_flagged`` / ``--drop-flagged`` value.
+
+    ``True``, ``"default"`` or ``""`` give :data:`DEFAULT_DROP_RULES` (``bonferroni``,
+    ``robust_weight``, ``lts_residual``: points that do not fit the line); a comma list
+    may name rule ids (``bonferroni``, ``leverage``, ``cooks_d``, ``robust_weight``,
+    ``lts_residual``) and the groups ``outlier`` (the misfit rules), ``cook`` (=
+    ``cooks_d``) and ``all``. ``None`` or ``False`` give ``()``.
+
+    Raises
+    ------
+    UsageError
+        For a name that is not a rule or group.
+    """
+    from comparo.errors import UsageError
+
+    if spec is None or spec is False:
+        return ()
+    if spec is True:
+        return DEFAULT_DROP_RULES
+    names = [p.strip().lower() for p in (spec.split(",") if isinstance(spec, str) else spec)]
+    names = [p for p in names if p] or ["default"]
+    out: list[str] = []
+    for name in names:
+        if name not in _RULE_NAMES:
+            raise UsageError(f"--drop-flagged: unknown rule {name!r}; choose from "
+                             f"{', '.join(ALL_RULES)}, or the groups outlier, cook, all")
+        out += [r for r in _RULE_NAMES[name] if r not in out]
+    return tuple(r for r in ALL_RULES if r in out)
 
 
 def bonferroni_cut(n: int, p: int = 2, alpha: float = 0.05) -> float:
@@ -185,20 +230,20 @@ def flag_points(
     for i, lab in enumerate(labels):
         rec = {"label": lab, "leverage": float(lev[i]), "studentized": float(t_ext[i]), "cooks_d": float(cooks[i])}
         if abs(t_ext[i]) > cuts["bonferroni"]:
-            flags.append(Flag(lab, "bonferroni", f"externally studentized residual beyond the Bonferroni cut {cuts['bonferroni']:.4f} (alpha {alpha:g})", t_ext[i]))
+            flags.append(Flag(lab, "bonferroni", f"externally studentized residual beyond the Bonferroni cut {cuts['bonferroni']:.4f} (alpha {alpha:g})", t_ext[i], i))
         if lev[i] > cuts["leverage"]:
-            flags.append(Flag(lab, "leverage", f"leverage above 2p/n = {cuts['leverage']:.4f}", lev[i]))
+            flags.append(Flag(lab, "leverage", f"leverage above 2p/n = {cuts['leverage']:.4f}", lev[i], i))
         if cooks[i] > cuts["cooks_f"]:
-            flags.append(Flag(lab, "cooks_d", f"Cook's distance above F(0.5; {p}, {n - p}) = {cuts['cooks_f']:.4f}", cooks[i]))
+            flags.append(Flag(lab, "cooks_d", f"Cook's distance above F(0.5; {p}, {n - p}) = {cuts['cooks_f']:.4f}", cooks[i], i))
         elif cooks[i] > cuts["cooks_4n"]:
-            flags.append(Flag(lab, "cooks_d", f"Cook's distance above 4/n = {cuts['cooks_4n']:.4f}", cooks[i]))
+            flags.append(Flag(lab, "cooks_d", f"Cook's distance above 4/n = {cuts['cooks_4n']:.4f}", cooks[i], i))
         if weights is not None:
             rec["weight"] = float(weights[i])
             if weights[i] < weight_cut:
-                flags.append(Flag(lab, "robust_weight", f"robust (Huber) weight below {weight_cut:g}", weights[i]))
+                flags.append(Flag(lab, "robust_weight", f"robust (Huber) weight below {weight_cut:g}", weights[i], i))
         if lts_std is not None:
             rec["lts_std"] = float(lts_std[i])
             if abs(lts_std[i]) > lts_cut:
-                flags.append(Flag(lab, "lts_residual", f"|LTS residual / LTS scale| above {lts_cut:g}", lts_std[i]))
+                flags.append(Flag(lab, "lts_residual", f"|LTS residual / LTS scale| above {lts_cut:g}", lts_std[i], i))
         table.append(rec)
     return FlagReport(flags=tuple(flags), table=tuple(table), cuts=cuts)

@@ -71,3 +71,84 @@ def test_weight_and_lts_rules():
     assert {"label", "leverage", "studentized", "cooks_d", "weight", "lts_std"} <= set(tab.columns)
     assert "flag(s)" in rep.summary()
     assert rep.to_dict()["cuts"]["leverage"] == pytest.approx(0.4)
+
+
+# --------------------------------------------------------------------------- --drop-flagged
+
+
+def test_drop_flagged_drops_planted_and_refit_is_closer_to_true_slope():
+    """Planted vertical outliers (as above; invented data, seed 5, true slope 0.75): the refit without the
+    points breaking a misfit rule drops exactly the planted points, lists each with its rule, moves the OLS
+    slope toward 0.75 and leaves the original fit untouched."""
+    rng = np.random.default_rng(5)
+    n = 60
+    x = rng.normal(0, 1, n)
+    y = 0.5 + 0.75 * x + rng.normal(0, 0.1, n)
+    planted = [2, 30, 51]
+    x[planted] = [1.0, 1.6, 2.2]  # at high x, so they pull the slope down
+    y[planted] = 0.5 + 0.75 * x[planted] - np.array([1.6, 1.8, 2.0])
+    labels = [f"p{i}" for i in range(n)]
+    t = pd.DataFrame({"taxon": labels, "m": 10**x, "f": 10**y})
+    plain = fit(t, "m", "f", "ols")
+    r = fit(t, "m", "f", "ols", drop_flagged=True)
+    rf = r.refit_without_flagged
+    assert [d["label"] for d in rf.dropped] == [labels[i] for i in planted]
+    assert all(d["rules"] == ["bonferroni"] for d in rf.dropped)
+    assert rf.fit.n == n - 3 and abs(rf.fit.slope - 0.75) < abs(r.slope - 0.75)
+    assert rf.slope_change == pytest.approx(rf.fit.slope - r.slope)
+    assert r.slope == plain.slope and r.n == plain.n == n  # the original is reported as it was
+    d = r.to_dict()
+    assert {"label", "rules", "reasons"} <= set(d["refit_without_flagged"]["dropped"][0])
+    assert d["refit_without_flagged"]["fit"]["n"] == n - 3
+    assert {k: v for k, v in d.items() if k != "refit_without_flagged"} == plain.to_dict()
+    text = r.summary()
+    assert "refit without flagged points" in text and all(f"dropped {labels[i]}" in text for i in planted)
+    frame = r.to_frame()
+    assert set(frame.loc[frame["group"] == "(dropped)", "term"]) == {labels[i] for i in planted}
+    assert frame.loc[(frame["group"] == "(without flagged)") & (frame["term"] == "slope"), "estimate"].item() == rf.fit.slope
+
+
+def test_nothing_dropped_without_the_option():
+    x, y, labels, planted = _planted(2)
+    t = pd.DataFrame({"taxon": labels, "m": 10**x, "f": 10**y})
+    r = fit(t, "m", "f", "ols")
+    assert r.refit_without_flagged is None and "refit_without_flagged" not in r.to_dict()
+    assert r.n == len(labels) and {labels[i] for i in planted} <= {o["label"] for o in r.outliers}
+
+
+def test_drop_rule_selection_and_clean_case():
+    from comparo.errors import UsageError
+    from comparo.flags import ALL_RULES, DEFAULT_DROP_RULES, drop_rules
+
+    assert drop_rules(True) == drop_rules("default") == DEFAULT_DROP_RULES == OUTLIER_RULES
+    assert drop_rules("outlier,cook") == ("bonferroni", "cooks_d", "robust_weight", "lts_residual")
+    assert drop_rules("all") == ALL_RULES and drop_rules(None) == drop_rules(False) == ()
+    with pytest.raises(UsageError, match="unknown rule 'bogus'"):
+        drop_rules("bogus")
+    x, y, labels, planted = _planted(3)
+    t = pd.DataFrame({"taxon": labels, "m": 10**x, "f": 10**y})
+    lev = fit(t, "m", "f", "ols", drop_flagged="leverage").refit_without_flagged
+    flagged = {o["label"] for o in fit(t, "m", "f", "ols").outliers if "leverage" in o["reason"]}
+    assert {d["label"] for d in lev.dropped} == flagged and all(d["rules"] == ["leverage"] for d in lev.dropped)
+    rng = np.random.default_rng(4)
+    xc = rng.uniform(0, 2, 40)
+    clean = pd.DataFrame({"taxon": [f"c{i}" for i in range(40)], "m": 10**xc, "f": 10 ** (0.3 * xc + rng.normal(0, 0.05, 40))})
+    rc = fit(clean, "m", "f", "sma", drop_flagged="bonferroni").refit_without_flagged
+    assert rc.dropped == () and rc.fit is None and "nothing was dropped" in rc.note
+
+
+def test_drop_flagged_lts_exposes_and_drops_a_masked_cluster():
+    """A cluster of 5 bad leverage points (invented, seed 8) masks itself under OLS diagnostics; the LTS
+    residual rule flags it (Rousseeuw & Leroy 1987 describe this masking) and the LTS refit without it keeps
+    the slope of the clean points."""
+    rng = np.random.default_rng(8)
+    x = np.r_[rng.uniform(0, 2, 35), rng.normal(4, 0.05, 5)]
+    y = np.r_[1 + 0.5 * x[:35] + rng.normal(0, 0.05, 35), rng.normal(0.5, 0.05, 5)]
+    t = pd.DataFrame({"taxon": [f"q{i}" for i in range(40)], "m": 10**x, "f": 10**y})
+    r = fit(t, "m", "f", "lts", drop_flagged="lts_residual")
+    dropped = {d["label"] for d in r.refit_without_flagged.dropped}
+    cluster = {f"q{i}" for i in range(35, 40)}
+    assert cluster <= dropped and len(dropped - cluster) <= 2  # |z| > 2.5 hits ~1% of clean normal points
+    assert r.refit_without_flagged.fit.slope == pytest.approx(0.5, abs=0.05)
+    ols = fit(t, "m", "f", "ols", drop_flagged="bonferroni").refit_without_flagged
+    assert not {d["label"] for d in ols.dropped} & {f"q{i}" for i in range(35, 40)}  # masked under OLS
