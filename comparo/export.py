@@ -96,7 +96,10 @@ def _obs_fields(frame: pd.DataFrame) -> list[dict[str, Any]]:
 def _observations_for_export(ds: Dataset) -> pd.DataFrame:
     obs = ds.observations.drop(columns=["problem"], errors="ignore").copy()
     if "n" in obs:
-        obs["n"] = obs["n"].astype("Int64")
+        n = pd.to_numeric(obs["n"], errors="coerce").astype(float)
+        whole = n.isna() | ((n == n.round()) & (n.abs() <= 2**53 - 1))
+        if bool(whole.all()):  # validation guarantees this for a strictly loaded dataset
+            obs["n"] = n.astype("Int64")
     return obs
 
 

@@ -27,6 +27,7 @@ BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
 _MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
 _DOI = re.compile(r"^10\.\d{4,9}/\S+$")
 _BINOMIAL = re.compile(r"^[A-Z][a-z]+(?:\s[a-z][a-z-]+){1,2}$")
+INT_EXACT = 2**53 - 1  # largest whole number a float64 holds exactly (IEEE 754); fits a 64-bit integer
 
 
 # --------------------------------------------------------------------------- helpers
@@ -77,6 +78,11 @@ def _schema(table: str, frame: pd.DataFrame):
             checks.append(pa.Check(lambda s: (s == "") | parse_numbers(s).notna(), name="number"))
             if kind == "integer":
                 checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n == np.round(n)))(parse_numbers(s)), name="integer"))
+            top = c.get("max")
+            if top is not None:
+                checks.append(pa.Check(lambda s, top=float(top): (lambda n: n.isna() | (n <= top))(parse_numbers(s)), name="maximum"))
+            if kind == "integer" and (top is None or float(top) > INT_EXACT):
+                checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n.abs() <= INT_EXACT))(parse_numbers(s)), name="integer_range"))
             if c.get("positive"):
                 checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n > 0))(parse_numbers(s)), name="positive"))
             if c.get("nonnegative"):
@@ -99,6 +105,7 @@ _MESSAGES = {
     "nonnegative": ("must not be negative", "give the spread as a positive number"),
     "enum": ("not an allowed value", None),
     "field_uniqueness": ("duplicate value; this column must be unique", "give every row its own id"),
+    "integer_range": (f"whole number too large (limit {INT_EXACT:,})", "check for a pasted or mistyped number"),
 }
 
 
@@ -128,6 +135,9 @@ def _column_problems(table: RawTable, name: str) -> list[Problem]:
         message, hint = _MESSAGES.get(rule, (f"breaks rule {rule}", ""))
         if rule == "number":
             hint = _number_hint(value or "")
+        elif rule == "maximum":
+            top = float(spec[col]["max"])
+            message, hint = f"larger than the largest plausible value ({top:g})", f"{spec[col].get('description', col)} Check for a pasted or mistyped number."
         elif rule == "enum":
             allowed = spec[col]["values"]
             close = difflib.get_close_matches((value or "").lower(), allowed, n=1)
@@ -139,7 +149,7 @@ def _column_problems(table: RawTable, name: str) -> list[Problem]:
                 where = frame.index[frame[col] == value]
                 first_row[key] = table.rows[int(where[0])]
             hint = f"the same value is on row {first_row[key]}"
-        probs.append(Problem("error", table.file, row, col, value, f"{col}-{rule}" if rule in ("number", "integer", "enum") else rule, message, hint))
+        probs.append(Problem("error", table.file, row, col, value, f"{col}-{rule.replace('_', '-')}" if rule in ("number", "integer", "enum", "maximum", "integer_range") else rule, message, hint))
     return probs
 
 
