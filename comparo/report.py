@@ -9,6 +9,9 @@ writes, under the output folder::
     figures/*.png|svg  every figure, byte-identical across runs
     tables/*.csv       per_taxon, derived, fits, flags, points, audit, sources, problems
     tables/fits.json   each fit's ``to_dict()`` (the ``comparo fit --format json`` object)
+    tables/sensitivity_*.csv, sensitivity.json
+                       leave-one-source-out, basis filters, jackknife and measurement-error
+                       parts of each fit (:func:`comparo.sensitivity.sensitivity`)
     run.json           input SHA-256 hashes, settings, package versions, seed
 
 Every number in the HTML is read from the same result objects that are written
@@ -20,6 +23,7 @@ from __future__ import annotations
 import base64
 import hashlib
 import html
+import math
 import platform
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -33,6 +37,11 @@ DEFAULT_ANALYSES = (
     {"x": "frequency_kinetic_bound", "y": "frequency_observed", "method": "sma"},
     {"x": "frequency_hydraulic_bound", "y": "frequency_observed", "method": "sma"},
 )
+
+#: Monte Carlo draws of the measurement-error part of the report's sensitivity section. A modest
+#: number keeps the report fast; ``comparo fit --sensitivity`` uses 1000. The spread of the
+#: slopes is estimated to about 1/sqrt(2 (draws - 1)) relative, 5% at 200 draws (common practice).
+SENSITIVITY_DRAWS = 200
 
 DISCLAIMER = ("This report is a research aid: it summarises a compilation and the fits run on it. "
               "Check every value against its source before relying on it.")
@@ -55,6 +64,8 @@ class ReportResult:
         ``{"id", ..., "error"}`` for a fit that could not run.
     notes : tuple of str
         What the report could not do, and why.
+    sensitivity : tuple of dict
+        ``{"id", "verdict"}`` per fit whose sensitivity ran.
     """
 
     out_dir: str
@@ -65,11 +76,12 @@ class ReportResult:
     tables: tuple[str, ...] = ()
     fits: tuple[dict, ...] = ()
     notes: tuple[str, ...] = field(default=())
+    sensitivity: tuple[dict, ...] = field(default=())
 
     def to_dict(self) -> dict:
         return {"out_dir": self.out_dir, "ok": self.ok, "n_errors": self.n_errors, "n_warnings": self.n_warnings,
                 "figures": list(self.figures), "tables": list(self.tables), "fits": list(self.fits),
-                "notes": list(self.notes)}
+                "notes": list(self.notes), "sensitivity": list(self.sensitivity)}
 
     def summary(self) -> str:
         if not self.ok:
@@ -82,6 +94,7 @@ class ReportResult:
                 r = f["result"]
                 lo, hi = r["slope_ci"]
                 lines.append(f"  {f['id']}: slope {_num(r['slope'])} (CI {_num(lo)} to {_num(hi)}), n = {r['n']}")
+        lines += [f"  {s['id']} sensitivity: {s['verdict']}" for s in self.sensitivity]
         lines += [f"  note: {n}" for n in self.notes]
         return "\n".join(lines)
 
@@ -116,11 +129,12 @@ def _cell(v: Any) -> str:
     return f"<td>{_e(v)}</td>"
 
 
-def _table(frame, cls: str = "sortable", limit: int | None = None) -> str:
+def _table(frame, cls: str = "sortable", limit: int | None = None, tid: str | None = None) -> str:
     rows = frame if limit is None else frame.head(limit)
     head = "".join(f"<th>{_e(c)}</th>" for c in rows.columns)
     body = "".join("<tr>" + "".join(_cell(v) for v in rec) + "</tr>" for rec in rows.itertuples(index=False))
-    return f'<table class="{cls}"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
+    ident = f' id="{_e(tid)}"' if tid else ""
+    return f'<table class="{cls}"{ident}><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
 
 
 def _sha256(path: Path) -> str:
@@ -280,7 +294,16 @@ permeability of fibre arrays (Happel J 1959, Viscous flow relative to arrays of 
 and the viscosity of water (Huber ML et al. 2009, New international formulation for the viscosity of H2O,
 Journal of Physical and Chemical Reference Data 38: 101-125), with GUM propagation of uncertainty
 (JCGM 100:2008, Evaluation of measurement data - Guide to the expression of uncertainty in measurement).</li>
-<li>Colours: palette for colour-blind readers of Okabe M and Ito K (2002), Color Universal Design.</li>
+<li>Sensitivity of each fit: the line refitted without each source in turn (per-taxon table rebuilt) and
+with the values of each basis added step by step; the leave-one-taxon-out jackknife standard error
+(Quenouille MH 1956, Notes on bias in estimation, Biometrika 43: 353-360; Efron B 1982, The Jackknife, the Bootstrap
+and Other Resampling Plans, SIAM) beside the analytic one; and Monte Carlo propagation of the per-taxon standard
+uncertainties into the slope, log-normal draws for positive values (JCGM 101:2008, Evaluation of measurement data -
+Supplement 1 to the GUM: propagation of distributions using a Monte Carlo method; errors in x attenuate an OLS slope as
+Fuller WA 1987, Measurement Error Models, Wiley, describes).</li>
+<li>Colours: palette for colour-blind readers of Okabe M and Ito K (2002), Color Universal Design; traits on the tree
+in the cividis colour map (Nuñez JR, Anderton CR, Renslow RS 2018, Optimizing colormaps with consideration for color
+vision deficiency to enable accurate interpretation of scientific data, PLoS ONE 13: e0199239).</li>
 </ul>
 """
 
@@ -288,7 +311,7 @@ Journal of Physical and Chemical Reference Data 38: 101-125), with GUM propagati
 # --------------------------------------------------------------------------- the report
 
 
-def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: bool) -> ReportResult:
+def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: bool, draws: int) -> ReportResult:
     from comparo.commands._common import atomic_write_text
     from comparo.csvsafe import to_csv
 
@@ -300,16 +323,17 @@ def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: b
             f"<h2>Errors</h2>{_table(errs)}<h2>All problems</h2>{_table(probs)}")
     atomic_write_text(out / "report.html", _page("comparo report: validation failed", body))
     atomic_write_text(out / "tables" / "problems.csv", to_csv(probs))
-    _write_run(out, folder, {}, seed, temperature, ok=False)
+    _write_run(out, folder, {}, seed, temperature, draws, ok=False)
     return ReportResult(str(out), False, result.n_errors, result.n_warnings, tables=("tables/problems.csv",))
 
 
-def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, ok: bool) -> None:
+def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, draws: int, ok: bool) -> None:
     from comparo.commands._common import atomic_write_text, dumps
 
     record = {"created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"), "dataset": folder.name,
               "inputs_sha256": input_hashes(folder), "settings": settings, "seed": int(seed),
-              "temperature_normalised": bool(temperature), "validation_ok": ok, "versions": package_versions()}
+              "temperature_normalised": bool(temperature), "sensitivity_draws": int(draws), "validation_ok": ok,
+              "versions": package_versions()}
     atomic_write_text(out / "run.json", dumps(record) + "\n")
 
 
@@ -336,7 +360,7 @@ class _Steps:
 
 
 def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 20240601, temperature: bool = True,
-                 progress: bool = False) -> ReportResult:
+                 progress: bool = False, sensitivity_draws: int = SENSITIVITY_DRAWS) -> ReportResult:
     """Run the pipeline on a dataset folder and write the report into *out_dir*.
 
     Parameters
@@ -346,6 +370,8 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     seed : seed of every random step (figure bands; fits that resample).
     temperature : normalise rates and frequencies to the reference temperature.
     progress : show a progress bar on standard error (for a terminal).
+    sensitivity_draws : Monte Carlo draws of the measurement-error part of each fit's
+        sensitivity (0 skips that part); recorded in run.json.
 
     Returns
     -------
@@ -354,14 +380,14 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     """
     folder, out = Path(folder), Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    steps = _Steps(progress, 6)
+    steps = _Steps(progress, 7)
     try:
-        return _build(folder, out, seed, temperature, steps)
+        return _build(folder, out, seed, temperature, steps, int(sensitivity_draws))
     finally:
         steps.close()
 
 
-def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps) -> ReportResult:
+def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps, draws: int) -> ReportResult:
     import pandas as pd
 
     from comparo import plots
@@ -375,7 +401,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps)
     steps.step("checking")
     checked = review(folder)
     if not checked.ok or checked.dataset is None:
-        return _write_error_page(out, folder, checked, seed, temperature)
+        return _write_error_page(out, folder, checked, seed, temperature, draws)
     ds = checked.dataset
     settings = ds.settings or {}
     notes: list[str] = []
@@ -405,6 +431,8 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps)
     fit_frames, flag_rows, point_frames = [], [], []
     sections = []
     labels = _tree_labels(ds)
+    tree_drawn, tree_notes = False, {}
+    any_pgls = any(b.get("method") == "pgls" for b in analyses)
     steps.step("fitting and drawing")
     for i, a in enumerate(analyses):
         aid = _analysis_id(i, a)
@@ -442,12 +470,44 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps)
         figures[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(pts, title=f"{aid}: residual diagnostics"))
         if method == "pgls" and res.lambda_ is not None and res.loglik is not None:
             figures[f"{aid}_lambda"] = plots.render(_lambda_figure(res, data, a, by, opts, aid))
-        sections.append((aid, res, frame, pts))
+        if ds.tree is not None and (method == "pgls" or (not tree_drawn and not any_pgls)):
+            drawn = _tree_figure(ds, pts, a, labels, aid, notes, res.log)
+            if drawn is not None:
+                figures[f"{aid}_tree"] = plots.render(drawn[0])
+                tree_notes[aid] = drawn[1]
+                tree_drawn = True
+        sections.append((aid, res, frame, pts, a, opts))
 
     fits_frame = pd.concat(fit_frames, ignore_index=True) if fit_frames else pd.DataFrame()
     flags_frame = pd.DataFrame(flag_rows, columns=["analysis", "label", "kind", "reason", "statistic"])
     points_frame = pd.concat(point_frames, ignore_index=True) if point_frames else pd.DataFrame()
     tables |= {"fits": to_csv(fits_frame), "flags": to_csv(flags_frame), "points": to_csv(points_frame)}
+
+    steps.step("sensitivity: sources, bases, taxa, measurement error")
+    sens: dict[str, dict] = {}
+    sens_json, sens_rows = [], []
+    for aid, res, _frame, _pts, a, opts in sections:
+        s, snotes = _sensitivity(ds, table, data, a, res, opts, seed, draws, temperature)
+        entry = {"id": aid, "x": a["x"], "y": a["y"], "method": res.method, "draws": draws, "seed": int(seed),
+                 "notes": snotes}
+        if s is None:
+            entry["error"] = snotes[-1]
+            notes.append(f"{aid}: {snotes[-1]}")
+            sens_json.append(entry)
+            continue
+        entry["result"] = s.to_dict()
+        sens_json.append(entry)
+        refits = sensitivity_frame(s)
+        summary_row = sensitivity_summary_row(aid, s, snotes)
+        sens_rows.append(summary_row)
+        tables[f"sensitivity_{aid}"] = to_csv(refits)
+        sens[aid] = {"result": s, "refits": refits, "summary": pd.DataFrame([summary_row]), "notes": snotes}
+        if s.leave_one_source_out:
+            figures[f"{aid}_sensitivity"] = plots.render(plots.forest_plot(
+                s.leave_one_source_out, slope=res.slope, slope_ci=res.slope_ci, ci=res.ci_level,
+                xlabel=_slope_label(res), title=f"{res.method.upper()}, {res.y} on {res.x}: leave one source out"))
+    if sens_rows:
+        tables["sensitivity_summary"] = to_csv(pd.DataFrame(sens_rows))
 
     steps.step("drawing the regime and coverage")
     if derived is not None:
@@ -464,18 +524,116 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps)
     for name, text in tables.items():
         atomic_write_text(out / "tables" / f"{name}.csv", text)
     atomic_write_text(out / "tables" / "fits.json", dumps([f for f in fits]) + "\n")
+    atomic_write_text(out / "tables" / "sensitivity.json", dumps(sens_json) + "\n")
     for stem, (png, svg) in figures.items():
         atomic_write_bytes(out / "figures" / f"{stem}.png", png)
         atomic_write_bytes(out / "figures" / f"{stem}.svg", svg)
 
     html_text = _render_html(folder, settings, checked, aud, table, derived, fits, origin, sections, fits_frame,
-                             flags_frame, points_frame, figures, notes, ds, seed)
+                             flags_frame, points_frame, figures, notes, ds, seed, sens, tree_notes, draws)
     atomic_write_text(out / "report.html", html_text)
-    _write_run(out, folder, settings, seed, temperature, ok=True)
+    _write_run(out, folder, settings, seed, temperature, draws, ok=True)
     return ReportResult(str(out), True, checked.n_errors, checked.n_warnings,
                         figures=tuple(f"figures/{s}.{ext}" for s in figures for ext in ("png", "svg")),
-                        tables=tuple(f"tables/{n}.csv" for n in tables) + ("tables/fits.json",),
-                        fits=tuple(fits), notes=tuple(notes))
+                        tables=tuple(f"tables/{n}.csv" for n in tables) + ("tables/fits.json", "tables/sensitivity.json"),
+                        fits=tuple(fits), notes=tuple(notes),
+                        sensitivity=tuple({"id": k, "verdict": v["result"].verdict} for k, v in sens.items()))
+
+
+def _slope_label(res) -> str:
+    unit = "dimensionless on log-log axes" if res.log != "none" else f"units of {res.y} per unit of {res.x}"
+    return f"slope of {res.y} on {res.x} ({unit})"
+
+
+def _tree_figure(ds, pts, a: dict, labels: dict | None, aid: str, notes: list[str], log: str):
+    """The tree with the fit's y value of each fitted taxon at its tip, or None (with a note) if it cannot be drawn.
+
+    Returns (figure, text under the figure).
+    """
+    from comparo import plots
+    from comparo.errors import ComparoError
+    from comparo.phylo import match_tips
+
+    y = a["y"]
+    try:
+        m = match_tips(ds.tree, [str(v) for v in pts["label"]], labels)
+    except ComparoError as exc:
+        notes.append(f"{aid}: tree not drawn: {exc}")
+        return None
+    yv = dict(zip(pts["label"].astype(str), _floats(pts["y_value"]), strict=True))
+    tip_of = m.tip_of
+    values = {tip: yv[lab] for lab, tip in tip_of.items()}
+    names = {tip: lab for lab, tip in tip_of.items()}
+    label = plots.axis_label(y, ds.catalog)
+    positive = all(v > 0 for v in values.values() if v == v)
+    fig = plots.tree_trait(ds.tree, values, label=label, names=names, log=log != "none" and positive,
+                           title=f"{str(a.get('method', 'sma')).upper()} fit: {y} of each fitted taxon at its tip")
+    text = (f"Tips coloured by {y} of the {len(values)} fitted taxa ({_e(label)}); open tiles: "
+            f"{len(m.tips_without_data)} tips without a fitted value.")
+    if m.taxa_without_tips:
+        text += f" Fitted taxa not in the tree ({len(m.taxa_without_tips)}): {', '.join(m.taxa_without_tips)}."
+    return fig, text
+
+
+def _floats(values) -> list[float]:
+    import pandas as pd
+
+    return pd.to_numeric(pd.Series(values), errors="coerce").astype(float).tolist()
+
+
+def _sensitivity(ds, table, data, a: dict, res, opts: dict, seed: int, draws: int, temperature: bool):
+    """Run :func:`comparo.sensitivity.sensitivity` for one report fit: (result or None, notes).
+
+    Source-level parts need x and y recorded in the dataset; a derived x or y gets the
+    jackknife and the Monte Carlo only (on the derived table). A grouped fit is checked on
+    its pooled line; a PGLS fit keeps lambda at its full-data estimate in every refit.
+    """
+    from comparo.sensitivity import sensitivity
+
+    x, y = a["x"], a["y"]
+    notes: list[str] = []
+    kw = dict(opts)
+    if a.get("by"):
+        notes.append(f"checked on the line of all taxa pooled; the groups by {a['by']} are not refitted one by one")
+    if res.method == "pgls" and res.lambda_ is not None:
+        kw["lambda_"] = res.lambda_
+        notes.append(f"Pagel's lambda held at the full-data estimate {_num(res.lambda_)} in every refit")
+    if x in table.columns and y in table.columns:
+        source = ds
+    else:
+        source = data
+        derived = ", ".join(q for q in (x, y) if q not in table.columns)
+        notes.append(f"{derived} is derived, so the values behind it have no single source or basis: "
+                     "only the jackknife and the Monte Carlo parts run (on the derived table)")
+    try:
+        s = sensitivity(source, x, y, res.method, test_slope=a.get("test_slope"), ci=res.ci_level, log=res.log,
+                        mc=draws, seed=seed, temperature=temperature, **kw)
+    except Exception as exc:  # noqa: BLE001 - any failure is shown in the report and the command's notes
+        return None, notes + [f"sensitivity could not run: {type(exc).__name__}: {exc}"]
+    if not math.isclose(s.slope, res.slope, rel_tol=1e-9, abs_tol=1e-12):
+        notes.append(f"the sensitivity's fit on all data has slope {s.slope!r}, the report's fit {res.slope!r}")
+    return s, notes
+
+
+def sensitivity_frame(s):
+    """One row per refit (:meth:`SensitivityResult.to_frame`) with ``ci_change`` and ``flips`` added."""
+    f = s.to_frame()
+    loso, basis = s.leave_one_source_out or [], s.by_basis or []
+    f["ci_change"] = [None] * len(loso) + [r.get("ci_change") for r in basis]
+    f["flips"] = [bool(r.get("flips")) for r in loso] + [bool(r.get("flips")) for r in basis]
+    return f
+
+
+def sensitivity_summary_row(aid: str, s, notes: list[str]) -> dict:
+    """One row of tables/sensitivity_summary.csv: jackknife and measurement-error parts and the verdict."""
+    j, m = s.jackknife_se, s.measurement_error
+    return {"analysis": aid, "method": s.method, "x": s.x, "y": s.y, "n": j.get("n"), "slope": s.slope,
+            "slope_se": s.slope_se, "jackknife_se": j.get("slope_jackknife"), "analytic_se": j.get("slope_analytic"),
+            "se_ratio": j.get("ratio"), "mc_draws": m.get("draws"), "mc_seed": m.get("seed"),
+            "mc_slope_mean": m.get("slope_mean"), "me_spread": m.get("spread"), "sampling_se": m.get("sampling_se"),
+            "total_se": m.get("total_se"), "me_share": m.get("share"), "fixed_x": m.get("fixed_x"),
+            "fixed_y": m.get("fixed_y"), "mc_note": m.get("note") or "", "verdict": s.verdict,
+            "notes": "; ".join(notes + list(s.unavailable))}
 
 
 #: Fixed lambda values at which the PGLS profile likelihood is drawn.
@@ -515,10 +673,11 @@ def pd_series_all(n: int):
 
 
 def _render_html(folder, settings, checked, aud, table, derived, fits, origin, sections, fits_frame, flags_frame,
-                 points_frame, figures, notes, ds, seed) -> str:
+                 points_frame, figures, notes, ds, seed, sens, tree_notes, draws) -> str:
     title = settings.get("title") or f"comparo report: {folder.name}"
     parts = [f"<h1>{_e(title)}</h1>", _banner(settings, folder),
-             '<nav><a href="#summary">Summary</a><a href="#analyses">Analyses</a><a href="#regime">Regime</a>'
+             '<nav><a href="#summary">Summary</a><a href="#analyses">Analyses</a><a href="#sensitivity">Sensitivity</a>'
+             '<a href="#regime">Regime</a>'
              '<a href="#data">Data quality</a><a href="#appendix">Provenance appendix</a><a href="#methods">Methods</a></nav>']
     # summary
     parts.append('<h2 id="summary">Summary</h2>')
@@ -540,6 +699,11 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
     parts.append('<table class="sortable" id="summary-fits"><thead><tr><th>analysis</th><th>method</th><th>n</th>'
                  "<th>exponent (slope)</th><th>CI low</th><th>CI high</th><th>tests</th></tr></thead><tbody>"
                  + "".join(rows) + "</tbody></table>")
+    if sens:
+        parts.append('<p>Which sources drive each fit (details in <a href="#sensitivity">Sensitivity</a>):</p>'
+                     '<ul id="summary-verdicts">' + "".join(
+                         f'<li><strong>{_e(k)}</strong>: <span class="verdict">{_e(v["result"].verdict)}</span></li>'
+                         for k, v in sens.items()) + "</ul>")
     by = next((f["by"] for f in fits if f.get("by")), None)
     reg = _regime_lines(derived, by)
     if reg:
@@ -551,7 +715,7 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
         parts.append(f'<p class="banner">{_e(n)}</p>')
     # analyses
     parts.append('<h2 id="analyses">Analyses</h2>')
-    for aid, res, frame, _pts in sections:
+    for aid, res, frame, _pts, _a, _opts in sections:
         parts.append(f'<h3 id="{_e(aid)}">{_e(aid)}</h3>')
         parts.append(_img(figures[f"{aid}_scaling"][0], f"scaling plot {aid}"))
         parts.append(f"<pre>{_e(res.summary())}</pre>")
@@ -563,8 +727,13 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
             if f"{aid}_lambda" in figures:
                 parts.append(_img(figures[f"{aid}_lambda"][0], f"lambda profile {aid}"))
                 parts.append(f"<p>Profile: the same PGLS refitted at fixed lambda = {', '.join(f'{v:g}' for v in LAMBDA_GRID)}.</p>")
+        if f"{aid}_tree" in figures:
+            parts.append(_img(figures[f"{aid}_tree"][0], f"tree with {res.y} mapped {aid}"))
+            parts.append(f"<p>{tree_notes.get(aid, '')} Colour map cividis (readable with colour-vision deficiency); "
+                         "the colours show the values as compiled, not a reconstruction of ancestral states.</p>")
     fl = flags_frame
     parts.append("<h3>Flags and exclusions</h3>" + (_table(fl) if len(fl) else "<p>None.</p>"))
+    parts.append(_sensitivity_html(sections, sens, figures, notes, draws, seed))
     # regime
     parts.append('<h2 id="regime">Regime</h2>')
     if "regime" in figures:
@@ -590,6 +759,52 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
     parts.append(_METHODS)
     parts.append(f"<p><small>comparo {_e(_version())}. {_e(DISCLAIMER)}</small></p>")
     return _page(title, "".join(parts))
+
+
+def _sensitivity_html(sections, sens, figures, notes, draws: int, seed: int) -> str:
+    """The sensitivity section: per fit the verdict, forest plot and the tables of tables/sensitivity_*.csv."""
+    out = ['<h2 id="sensitivity">Sensitivity: which sources, bases and taxa drive each fit</h2>',
+           f"<p>Each fit is refitted without each source in turn, with the values of each basis added step by step "
+           f"(reported first), without each taxon in turn (jackknife), and {int(draws)} times with every per-taxon value "
+           f"redrawn from its standard uncertainty (Monte Carlo, seed {int(seed)}). Shifts are in units of the full fit's "
+           "analytic standard error (SE); a shift of 1 SE or more, or a slope test whose conclusion changes, counts as "
+           "influential. The same numbers are in tables/sensitivity_*.csv and tables/sensitivity.json.</p>"
+           "<p>What this does not establish: a bias shared by many sources is invisible to leaving one out; the 1 SE mark "
+           "is a flag, not a test (among many sources some pass it by chance); the Monte Carlo carries only the stated "
+           "uncertainties (values without one are held fixed) and no error shared across taxa.</p>"]
+    for aid, *_ in sections:
+        out.append(f'<h3 id="sens-{_e(aid)}">{_e(aid)}</h3>')
+        if aid not in sens:
+            why = next((n for n in notes if n.startswith(f"{aid}: sensitivity")), "sensitivity not available")
+            out.append(f"<p>{_e(why)}</p>")
+            continue
+        v = sens[aid]
+        s, refits, summ = v["result"], v["refits"], v["summary"]
+        out.append(f'<p><strong>Verdict:</strong> <span class="verdict">{_e(s.verdict)}</span></p>')
+        for n in v["notes"] + list(s.unavailable):
+            out.append(f"<p><em>Note:</em> {_e(n)}.</p>")
+        if f"{aid}_sensitivity" in figures:
+            out.append(_img(figures[f"{aid}_sensitivity"][0], f"leave one source out {aid}"))
+        cols = ["changed", "n", "slope", "ci_low", "ci_high", "p", "shift_se", "flips"]
+        lo = refits[refits["part"] == "leave_one_source_out"]
+        if len(lo):
+            out.append("<h4>Leave one source out</h4><p>Most influential first; slope and CI of the refit without the "
+                       "source; p of the slope test (empty: no test asked); shift in SE of the full fit.</p>"
+                       + _table(lo[cols], tid=f"sens-loso-{aid}"))
+        bb = refits[refits["part"] == "by_basis"]
+        if len(bb):
+            out.append("<h4>Basis filters</h4><p>Cumulative: each row adds one basis to the rows above; shift in SE and "
+                       "relative change of CI width (ci_change) against the row before.</p>"
+                       + _table(bb[cols[:-1] + ["ci_change", "flips"]], tid=f"sens-basis-{aid}"))
+        out.append("<h4>Jackknife and analytic standard error of the slope</h4>"
+                   + _table(summ[["n", "slope", "jackknife_se", "analytic_se", "se_ratio"]], tid=f"sens-jack-{aid}"))
+        me = summ[["mc_draws", "mc_seed", "mc_slope_mean", "me_spread", "sampling_se", "total_se", "me_share",
+                   "fixed_x", "fixed_y"]]
+        note = summ["mc_note"].iat[0]
+        out.append("<h4>Measurement error</h4><p>spread: SD of the Monte Carlo slopes; total SE = sqrt(spread² + "
+                   "sampling SE²); share: spread² / total²; fixed_x, fixed_y: taxa whose value has no uncertainty "
+                   "(held fixed).</p>" + _table(me, tid=f"sens-me-{aid}") + (f"<p>{_e(note)}</p>" if note else ""))
+    return "".join(out)
 
 
 def _version() -> str:
