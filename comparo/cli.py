@@ -88,7 +88,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--log", choices=["10", "e", "none"], default="10", help="log transform of both axes (default 10)")
     p.add_argument("--taxon-col", default="taxon", help="label column of a plain CSV (default taxon)")
     p.add_argument("--breakpoint", action="store_true", help="also fit a broken-line (segmented) model")
+    p.add_argument("--drop-flagged", nargs="?", const="default", default=None, metavar="RULES",
+                   help="also refit without flagged points and report it beside the original; RULES: comma list of "
+                        "bonferroni, leverage, cooks_d, robust_weight, lts_residual, or outlier (default), cook, all")
     p.add_argument("--sensitivity", action="store_true", help="source-level sensitivity of the fit")
+    p.add_argument("--mc", type=int, default=1000, metavar="N", help="--sensitivity: Monte Carlo draws for measurement error (default 1000; 0: skip)")
     p.add_argument("--format", choices=["text", "json", "csv"], default="text")
     _temperature_arg(p)
 

@@ -500,7 +500,7 @@ def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, tes
 
     n = len(X)
     xm, ym, sxx, syy, sxy = _moments(X, Y)
-    r = sxy / math.sqrt(sxx * syy)
+    r = max(-1.0, min(1.0, sxy / math.sqrt(sxx * syy)))  # rounding can push |r| past 1 on a perfect line
     b = float(slope_from_moments(method, sxx, syy, sxy))
     fq = stats.f.ppf(ci, 1, n - 2)
     if method == "sma":
@@ -509,7 +509,7 @@ def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, tes
         var_b = b * b * (1 - r * r) / (n - 2)
     else:
         theta = math.atan(b)
-        Q = fq * (sxx * syy - sxy * sxy) / (n - 2)
+        Q = max(0.0, fq * (sxx * syy - sxy * sxy) / (n - 2))
         D = math.sqrt((syy - sxx) ** 2 + 4 * sxy * sxy)
         ratio = 2 * math.sqrt(Q) / D if D > 0 else math.inf
         if ratio >= 1:
@@ -518,7 +518,7 @@ def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, tes
             half = 0.5 * math.asin(ratio)
             lo_t, hi_t = theta - half, theta + half
             lims = [math.tan(lo_t) if lo_t > -math.pi / 2 else _NAN, math.tan(hi_t) if hi_t < math.pi / 2 else _NAN]
-        l1, l2 = 0.5 * (sxx + syy + D), 0.5 * (sxx + syy - D)
+        l1, l2 = 0.5 * (sxx + syy + D), max(0.0, 0.5 * (sxx + syy - D))
         var_b = (1 + b * b) ** 2 * l1 * l2 / ((n - 2) * (l1 - l2) ** 2) if l1 > l2 else math.inf
     a = float(ym - b * xm)
     s_rho2 = float(np.var(Y - b * X, ddof=1))
@@ -544,7 +544,7 @@ def huber_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, test_slope: float
     res = sm.RLM(Y, exog, M=sm.robust.norms.HuberT(t=c)).fit()
     a, b = (float(v) for v in res.params)
     lo, hi = np.asarray(res.conf_int(alpha=1 - ci)).T
-    w = np.asarray(res.weights, dtype=float)
+    w = np.broadcast_to(np.asarray(res.weights, dtype=float), np.shape(Y)).copy()  # a scalar after a perfect fit
     yw = np.sum(w * Y) / np.sum(w)
     fitted = a + b * X
     r2 = 1 - np.sum(w * (Y - fitted) ** 2) / np.sum(w * (Y - yw) ** 2)

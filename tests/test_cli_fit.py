@@ -105,3 +105,44 @@ def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
     with_me = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--tip-se", "--format", "json")
     assert with_me.returncode == 0, with_me.stderr
     assert json.loads(with_me.stdout)["phylo"]["measurement_error"]
+
+
+@pytest.fixture
+def outlier_csv(tmp_path):
+    """Invented: 30 points on freq = 10 mass^-0.3 (sd 0.03 in log10), two planted 10-fold outliers (seed 21)."""
+    rng = np.random.default_rng(21)
+    lx = rng.uniform(-1, 3, 30)
+    ly = 1.0 - 0.3 * lx + rng.normal(0, 0.03, 30)
+    ly[[4, 17]] += 1.0
+    t = pd.DataFrame({"taxon": [f"sp{i}" for i in range(30)], "mass": 10**lx, "freq": 10**ly})
+    path = tmp_path / "o.csv"
+    t.to_csv(path, index=False)
+    return path
+
+
+def test_drop_flagged_cli_text_json_csv(outlier_csv, capsys):
+    base = ["fit", str(outlier_csv), "--x", "mass", "--y", "freq", "--method", "ols"]
+    assert main([*base, "--format", "json"]) == 0
+    assert "refit_without_flagged" not in json.loads(capsys.readouterr().out)
+    assert main([*base, "--drop-flagged", "--format", "json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    rf = d["refit_without_flagged"]
+    assert {x["label"] for x in rf["dropped"]} == {"sp4", "sp17"} and rf["n_dropped"] == 2
+    assert rf["rules"] == ["bonferroni", "robust_weight", "lts_residual"]
+    assert d["n"] == 30 and rf["fit"]["n"] == 28
+    assert abs(rf["fit"]["slope"] + 0.3) < abs(d["slope"] + 0.3)
+    assert main([*base, "--drop-flagged=outlier,cook"]) == 0
+    out = capsys.readouterr().out
+    assert "rules: bonferroni, cooks_d, robust_weight, lts_residual" in out
+    assert "dropped sp4:" in out and "dropped sp17:" in out and "(was " in out
+    assert main([*base, "--drop-flagged", "--format", "csv"]) == 0
+    frame = pd.read_csv(io.StringIO(capsys.readouterr().out))
+    dropped = frame[frame["group"] == "(dropped)"]
+    assert set(dropped["term"]) == {"sp4", "sp17"} and dropped["flags"].str.contains("bonferroni").all()
+    assert (frame["group"] == "(without flagged)").sum() == 3
+
+
+def test_drop_flagged_bad_rule_exit_2(outlier_csv, capsys):
+    assert main(["fit", str(outlier_csv), "--x", "mass", "--y", "freq", "--drop-flagged=nonsense"]) == 2
+    err = capsys.readouterr().err
+    assert "unknown rule 'nonsense'" in err and "Traceback" not in err

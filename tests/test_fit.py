@@ -297,3 +297,14 @@ def test_elevation_test_size_when_groups_lie_apart_on_one_line():
         _, tests, _ = group_fits(x, y, g, "sma", 0.95, None, 0)
         rejects += tests["elevation"]["p"] < 0.05
     assert 0.02 <= rejects / 400 <= 0.08
+
+
+@pytest.mark.parametrize("method", ["ols", "sma", "ma", "robust", "lts"])
+def test_perfect_line_gives_a_zero_width_ci(method):
+    """y = 3 x^0.5 exactly: rounding may push |r| a hair past 1; every method returns slope 0.5 with a
+    degenerate interval instead of failing."""
+    x = 10 ** np.linspace(0, 2, 40)
+    t = pd.DataFrame({"taxon": [str(i) for i in range(40)], "x": x, "y": 3 * x**0.5})
+    r = fit(t, "x", "y", method)
+    assert r.slope == pytest.approx(0.5, abs=1e-12)
+    assert r.slope_ci[0] == pytest.approx(0.5, abs=1e-9) and r.slope_ci[1] == pytest.approx(0.5, abs=1e-9)

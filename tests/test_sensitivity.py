@@ -196,14 +196,27 @@ def test_with_sensitivity_fills_fit_result(clean, tmp_path):
     assert r.to_dict()["sensitivity"]["verdict"] == clean.verdict
 
 
+def _planted_demo_sources(x: str, y: str) -> set[str]:
+    """Sources of the demo rows the generator marks as planted faults (obs_id DEMO-...) on the fitted quantities."""
+    obs = pd.read_csv(DEMO / "observations.csv", dtype=str)
+    planted = obs[obs["obs_id"].str.startswith("DEMO-") & obs["quantity"].isin([x, y])]
+    return set(planted["source_id"])
+
+
 def test_cli_sensitivity_on_demo():
-    """The demo run prints the fit, the sensitivity section and the JSON field."""
+    """Done-when check: on the demo, ``fit --method sma --sensitivity`` names a source carrying a planted fault
+    (any row the generator marks DEMO-... on mass or frequency: the conflicting and the duplicated values)
+    among the three most influential sources; 1000 Monte Carlo draws by default."""
+    planted = _planted_demo_sources("body_mass", "frequency_observed")
+    assert planted
     out = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "sma",
                   "--sensitivity", "--format", "json")
     assert out.returncode == 0, out.stderr
     d = json.loads(out.stdout)["sensitivity"]
     assert len(d["leave_one_source_out"]) >= 2
     assert d["measurement_error"]["draws"] == 1000
+    top = [r["source_id"] for r in d["leave_one_source_out"][:3]]
+    assert planted & set(top), (planted, top)
 
 
 def test_loso_matches_full_rebuild(tmp_path):
@@ -221,3 +234,120 @@ def test_loso_matches_full_rebuild(tmp_path):
     rec = next(r for r in s.leave_one_source_out if r["source_id"] == "SRC3")
     assert rec["slope"] == pytest.approx(full.slope, rel=1e-12)
     assert rec["n"] == full.n
+
+
+# --------------------------------------------------------------------------- every fit method, groups, layering
+
+
+@pytest.mark.parametrize("method", ["robust", "lts"])
+def test_mc_zero_uncertainty_reproduces_fit_robust_and_lts(method):
+    """Zero uncertainties: every draw is the data, so the spread is 0 and the mean slope is the plain fit's."""
+    t = _line_table(n=60)
+    t["y"] = t["y"] * np.exp(np.random.default_rng(1).normal(0, 0.05, len(t)))
+    r = fit(t, "x", "y", method)
+    me = measurement_error_mc(t, r, log="10", mc=50, seed=1)
+    assert me["spread"] == 0.0
+    assert me["slope_mean"] == pytest.approx(r.slope, rel=1e-7)  # IRLS stops at a 1e-10 step
+
+
+def test_huber_slopes_match_statsmodels_rlm():
+    """The vectorised IRLS gives the slope of statsmodels RLM (HuberT, MAD scale) on each data set."""
+    from comparo.fit import huber_line
+    from comparo.sensitivity import huber_slopes
+
+    rng = np.random.default_rng(6)
+    X = rng.uniform(0, 2, (6, 40))
+    Y = 0.4 * X + rng.standard_t(3, (6, 40)) * 0.1
+    expected = [huber_line(X[i], Y[i]).slope for i in range(6)]
+    assert huber_slopes(X, Y) == pytest.approx(expected, rel=1e-7)
+
+
+@pytest.mark.parametrize("method", ["robust", "lts"])
+def test_mc_robust_and_lts_attenuate_like_ols_on_clean_data(method):
+    """Without outliers the robust and LTS lines estimate the OLS line, so classical x-error attenuates them by
+    the same reliability ratio (Fuller 1987, ch. 1; from memory); looser tolerance for the capped LTS draws."""
+    c = 0.4
+    t = _line_table(n=200 if method == "robust" else 60, u_x=c)  # LTS refits one draw at a time
+    t["y"] = t["y"] * np.exp(np.random.default_rng(2).normal(0, 0.02, len(t)))
+    r = fit(t, "x", "y", method)
+    me = measurement_error_mc(t, r, log="10", mc=1000, seed=5)
+    var_x = np.var(np.log10(t["x"]), ddof=1)
+    expected = r.slope * var_x / (var_x + math.log1p(c * c) / math.log(10) ** 2)
+    draws = me["draws"]
+    assert abs(me["slope_mean"] - expected) < 4 * me["spread"] / math.sqrt(draws) + 0.02 * expected
+    if method == "lts":
+        assert draws == 200 and me["draws_asked"] == 1000 and "200 of the 1000 draws" in me["note"]
+    else:
+        assert draws == 1000 and me["note"] is None
+
+
+def test_mc_pgls_on_demo_says_lambda_is_held():
+    s = sensitivity(load(DEMO), "body_mass", "frequency_observed", "pgls", tree=str(DEMO / "tree.nwk"), mc=20)
+    me = s.measurement_error
+    assert me["spread"] is not None and me["spread"] > 0 and me["draws"] == 20
+    assert "lambda at the full-data estimate" in me["note"]
+    assert s.jackknife_se["slope_jackknife"] is None and "not computed for pgls" in s.jackknife_se["note"]
+    assert "not computed for pgls" in s.summary()
+
+
+def test_sensitivity_by_group_restricts_to_the_group(biased, tmp_path):
+    """Per-group sensitivity equals the sensitivity of the group's taxa on their own."""
+    from comparo.sensitivity import sensitivity_by_group
+
+    t = _line_table(n=40, u_x=0.1, u_y=0.1)
+    t["grp"] = np.where(np.arange(40) < 20, "a", "b")
+    t.loc[[0, 1, 2], "grp"] = None
+    g = sensitivity_by_group(t, "x", "y", "ols", by="grp", mc=30, seed=3)
+    alone = sensitivity(t[t["grp"] == "b"], "x", "y", "ols", mc=30, seed=3)
+    assert set(g) == {"a", "b"} and g["b"].to_dict() == alone.to_dict()
+    tiny = t.assign(grp=["c"] * 2 + ["d"] * 38)
+    g2 = sensitivity_by_group(tiny, "x", "y", "ols", by="grp", mc=0)
+    assert isinstance(g2["c"], str) and "at least 3 usable points" in g2["c"]
+    d = with_sensitivity(fit(t, "x", "y", "ols"), alone, by_group=g2).to_dict()["sensitivity"]
+    assert set(d["by_group"]) == {"c", "d"} and "note" in d["by_group"]["c"] and "verdict" in d["by_group"]["d"]
+
+
+def test_sensitivity_by_group_dataset_uses_only_group_rows(tmp_path):
+    """On a dataset, a group's leave-one-source-out refits use only that group's taxa."""
+    from comparo.sensitivity import sensitivity_by_group
+
+    ds = _compilation(tmp_path / "d", biased=True)
+    table = __import__("comparo").per_taxon(ds)
+    half = set(table["taxon"][:24])
+    g = sensitivity(ds, "body_mass", "frequency_observed", "ols", mc=0, taxa=sorted(half))
+    assert g.jackknife_se["n"] == 24 and all(r["n"] <= 24 for r in g.leave_one_source_out)
+    with pytest.raises(Exception, match="not in the per-taxon table"):
+        sensitivity_by_group(ds, "body_mass", "frequency_observed", "ols", by="nope", mc=0)
+
+
+def test_cli_sensitivity_by_group(tmp_path, capsys):
+    from comparo.cli import main
+
+    t = _line_table(n=40, u_x=0.1, u_y=0.1)
+    t["grp"] = np.where(np.arange(40) < 20, "a", "b")
+    p = tmp_path / "g.csv"
+    t.to_csv(p, index=False)
+    assert main(["fit", str(p), "--x", "x", "--y", "y", "--method", "ols", "--by", "grp", "--sensitivity",
+                 "--mc", "50", "--format", "json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert set(d["sensitivity"]["by_group"]) == {"a", "b"} and d["sensitivity"]["measurement_error"]["draws"] == 50
+    assert main(["fit", str(p), "--x", "x", "--y", "y", "--by", "grp", "--sensitivity", "--mc", "20"]) == 0
+    text = capsys.readouterr().out
+    assert "group grp = a:" in text and "group grp = b:" in text
+    assert main(["fit", str(p), "--x", "x", "--y", "y", "--by", "grp", "--sensitivity", "--mc", "0", "--format", "csv"]) == 0
+    frame = pd.read_csv(__import__("io").StringIO(capsys.readouterr().out))
+    assert "group" in frame.columns
+
+
+def test_api_layer_does_not_import_the_cli():
+    """comparo.sensitivity sits below the command layer (DEVELOPERS.md module order)."""
+    import ast
+    import inspect
+
+    import comparo.sensitivity as mod
+
+    tree = ast.parse(inspect.getsource(mod))
+    names = [n.module for n in ast.walk(tree) if isinstance(n, ast.ImportFrom)]
+    names += [a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names]
+    assert not [m for m in names if m and (m.startswith("comparo.commands") or m == "comparo.cli")]
+

@@ -57,20 +57,22 @@ def _pgls_options(args) -> dict:
     return opts
 
 
-def run(args) -> int:
+def _fit(args, table, pgls: dict, progress: bool):
     from comparo.fit import fit
 
-    if args.sensitivity:
-        from comparo.sensitivity import run_command
-
-        return run_command(args)
-    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
-    pgls = _pgls_options(args) if args.method == "pgls" else {}
-    result = fit(
+    return fit(
         table, args.x, args.y, args.method, by=args.by, test_slope=args.test_slope, ci=args.ci, log=args.log,
         bootstrap=args.bootstrap, seed=args.seed, taxon_col=args.taxon_col, breakpoint=args.breakpoint,
-        progress=sys.stderr.isatty(), **pgls,
+        progress=progress, drop_flagged=getattr(args, "drop_flagged", None), **pgls,
     )
+
+
+def run(args) -> int:
+    if args.sensitivity:
+        return run_sensitivity(args)
+    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
+    pgls = _pgls_options(args) if args.method == "pgls" else {}
+    result = _fit(args, table, pgls, sys.stderr.isatty())
     if args.format == "json":
         emit(dumps(result.to_dict()))
     elif args.format == "csv":
@@ -79,4 +81,53 @@ def run(args) -> int:
         sys.stdout.write(to_csv(result.to_frame()))
     else:
         emit(result.summary())
+    return 0
+
+
+def run_sensitivity(args) -> int:
+    """``comparo fit ... --sensitivity``: the fit with its ``sensitivity`` field filled.
+
+    Text output is the fit's summary followed by the sensitivity summary, JSON
+    the fit object with ``"sensitivity"`` filled, CSV the table of
+    :meth:`comparo.sensitivity.SensitivityResult.to_frame`. With ``--by`` the
+    sensitivity of the pooled fit is followed by that of each group (JSON:
+    ``"sensitivity"`` also holds ``"by_group"``; CSV: a ``group`` column; see
+    docs/sensitivity.md).
+    """
+    from comparo.sensitivity import sensitivity, sensitivity_by_group, with_sensitivity
+
+    pgls = _pgls_options(args) if args.method == "pgls" else {}
+    if Path(args.data).is_dir():
+        from comparo.io import load
+
+        data = load(args.data)
+    else:
+        data = read_table(args.data, args.taxon_col)
+    if args.mc < 0:
+        raise UsageError(f"--mc must be 0 or a positive number of draws (got {args.mc})")
+    progress = sys.stderr.isatty()
+    opts = dict(test_slope=args.test_slope, ci=args.ci, log=args.log, mc=args.mc, seed=args.seed, progress=progress,
+                temperature=not args.no_temperature, taxon_col=args.taxon_col, **pgls)
+    sens = sensitivity(data, args.x, args.y, args.method, **opts)
+    groups = sensitivity_by_group(data, args.x, args.y, args.method, by=args.by, **opts) if args.by else None
+    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
+    result = with_sensitivity(_fit(args, table, pgls, progress), sens, by_group=groups)
+    if args.format == "json":
+        emit(dumps(result.to_dict()))
+    elif args.format == "csv":
+        import pandas as pd
+
+        from comparo.csvsafe import to_csv
+
+        frame = sens.to_frame()
+        if groups is not None:  # a group column, blank for the pooled fit; groups not computed are not rows
+            frames = [frame.assign(group=None)] + [s.to_frame().assign(group=g) for g, s in groups.items()
+                                                   if not isinstance(s, str)]
+            frame = pd.concat([f for f in frames if len(f)] or frames[:1], ignore_index=True)
+        sys.stdout.write(to_csv(frame))
+    else:
+        text = [result.summary(), sens.summary()]
+        for g, s in (groups or {}).items():
+            text.append(f"group {args.by} = {g}:\n" + s.summary())
+        emit("\n".join(text))
     return 0
