@@ -641,31 +641,48 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None):
     *mirrors* maps an output to (source output, decreasing function): its order
     statistics are read off the sorted source draws at the mirrored ranks, which is
     exact and saves a sort.
+
+    The draws are made in one thread, block after block, in a fixed order (so a seed
+    gives the same numbers whatever the timing); the sorting of one block's outputs
+    runs on worker threads while the next block is drawn (numpy releases the GIL in
+    both), with at most two blocks in flight to bound memory.
     """
     mirrors = mirrors or {}
     n = len(next(iter(leaves.values())))
     block = max(1, 1_000_000 // mc)
     drawn = [k for k, r in rel_u.items() if np.any(np.isfinite(r) & (r > 0))]
     res = {k: {s: np.full(n, np.nan) for s in (*_MC_SUFFIXES, "_mc_u")} for k in outputs}
-    # sorting dominates; numpy releases the GIL there, so outputs are summarised on two threads
-    pool = ThreadPoolExecutor(max_workers=min(2, os.cpu_count() or 1))
-    for start in range(0, n, block):
-        stop = min(n, start + block)
-        rows = stop - start
-        vals = {k: v[start:stop] for k, v in leaves.items()}
-        samples = sample_inputs({k: vals[k] for k in drawn},
-                                {k: vals[k] * rel_u[k][start:stop] for k in drawn}, mc, rng, dtype=np.float32)
-        args = {k: (samples[k] if k in samples else v.astype(np.float32)[:, None]) for k, v in vals.items()}
-        with np.errstate(all="ignore"):
-            out = compute(args)
-        tasks = [(key, np.broadcast_to(out[key], (rows, mc))) for key in outputs if key not in mirrors]
-        sl = slice(start, stop)
-        list(pool.map(lambda kv, sl=sl: _summarise(kv[0], kv[1], mc, mirrors, res, sl), tasks))
-        for key in mirrors:
-            if key in res:
-                res[key]["_mc_u"][start:stop] = _sd(np.broadcast_to(out[key], (rows, mc)))
-    pool.shutdown()
+    in_flight: list[list[Any]] = []
+    with ThreadPoolExecutor(max_workers=min(2, os.cpu_count() or 1)) as pool:
+        for start in range(0, n, block):
+            stop = min(n, start + block)
+            rows = stop - start
+            vals = {k: v[start:stop] for k, v in leaves.items()}
+            samples = sample_inputs({k: vals[k] for k in drawn},
+                                    {k: vals[k] * rel_u[k][start:stop] for k in drawn}, mc, rng, dtype=np.float32)
+            args = {k: (samples[k] if k in samples else v.astype(np.float32)[:, None]) for k, v in vals.items()}
+            del samples
+            with np.errstate(all="ignore"):
+                out = compute(args)
+            del args
+            sl = slice(start, stop)
+            futures = [pool.submit(_summarise, key, np.broadcast_to(out[key], (rows, mc)), mc, mirrors, res, sl)
+                       for key in outputs if key not in mirrors]
+            futures += [pool.submit(_mirror_sd, res[key]["_mc_u"], sl, np.broadcast_to(out[key], (rows, mc)))
+                        for key in mirrors if key in res]
+            del out
+            in_flight.append(futures)
+            if len(in_flight) > 1:  # wait for the previous block before drawing the next one
+                for f in in_flight.pop(0):
+                    f.result()
+        for futures in in_flight:
+            for f in futures:
+                f.result()
     return res
+
+
+def _mirror_sd(target: np.ndarray, sl: slice, y: np.ndarray) -> None:
+    target[sl] = _sd(y)
 
 
 def _sd(y: np.ndarray) -> np.ndarray:
@@ -1196,6 +1213,7 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     display = {leaf: names.get(leaf, leaf) for leaf in leaves}
     new: dict[str, Any] = {}
     units: dict[str, str] = {}
+    lineage_cache: dict[str, Any] = {}
     for key in _SI:
         unit = keys[key]["unit"]
         units[key] = unit
@@ -1206,7 +1224,7 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
             rep = ~np.isnan(leaves["kinetic_time"])
             u = np.where(rep, leaves["kinetic_time"] * rel_u["kinetic_time"], u)
         through = {"kinetic_time": "kinetic_time", "drained_modulus": "transverse_modulus"}.get(key)
-        cols = _lineage_columns(key, y, prop, basis, obs, display, reasons[key], methods[key],
+        cols = _lineage_columns(key, y, prop, basis, obs, display, reasons[key], methods[key], cache=lineage_cache,
                                 passthrough=(through, leaves[through], basis[through]) if through else None)
         cols = {key: y * f, f"{key}_u": u * f, **cols}
         if mc > 0:
@@ -1215,7 +1233,8 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     score = vals["_regime_score"]
     regime = np.where(score < 1.0, "hydraulic", "kinetic").astype(object)
     regime[~np.isfinite(score)] = None
-    reg = _lineage_columns("_regime_score", score, prop, basis, obs, display, reasons["regime"], methods["regime"])
+    reg = _lineage_columns("_regime_score", score, prop, basis, obs, display, reasons["regime"], methods["regime"],
+                           cache=lineage_cache)
     new["regime"] = regime
     new.update({c.replace("_regime_score", "regime"): v for c, v in reg.items()})
     units["regime"] = "dimensionless"
@@ -1239,8 +1258,12 @@ def pd_concat(frame: pd.DataFrame, columns: Mapping[str, Any]) -> pd.DataFrame:
 
 
 def _lineage_columns(key: str, y: np.ndarray, prop: _Propagation, basis, obs, display, reason, method,
-                     passthrough=None) -> dict[str, Any]:
-    """KEY_basis, KEY_obs, KEY_method and KEY_missing of one output."""
+                     passthrough=None, cache: dict | None = None) -> dict[str, Any]:
+    """KEY_basis, KEY_obs, KEY_method and KEY_missing of one output.
+
+    *cache* (one dict per derive() call) keeps each leaf's basis ranks and obs_id
+    tokens, which every output reuses.
+    """
     n = len(y)
     has = np.isfinite(y)
     reason = np.where(has, "", np.where(reason == "", "not computable from the inputs", reason))
@@ -1249,17 +1272,30 @@ def _lineage_columns(key: str, y: np.ndarray, prop: _Propagation, basis, obs, di
         lacking = prop.unknown_u[key][i]
         if lacking:
             reason[i] = "uncertainty: no " + ", ".join(f"{display[lf]}_u" for lf in lacking)
-    b_col, o_col = [""] * n, [""] * n
+    cache = {} if cache is None else cache
     deps = prop.deps[key]
+    names = list(deps)
+    rank = {b: i for i, b in enumerate(BASIS_ORDER)}
+    for lf in names:
+        if lf not in cache:
+            cache[lf] = ([rank.get(b or "assumed", -1) for b in basis[lf]],
+                         [tuple(t.strip() for t in o.split(";") if t.strip()) for o in obs[lf]])
+    ranks = np.array([cache[lf][0] for lf in names], dtype=np.int64).reshape(len(names), n)
+    dep = np.array([deps[lf] for lf in names], dtype=bool).reshape(len(names), n)
+    if (ranks[dep] < 0).any():  # a basis outside BASIS_ORDER: fall back to the row-wise rule
+        weakest = [_weakest([basis[lf][i] or "assumed" for lf in names if deps[lf][i]] + ["computed"]) for i in range(n)]
+    else:
+        top = np.max(np.where(dep, ranks, rank["computed"]), axis=0, initial=rank["computed"])
+        weakest = [BASIS_ORDER[t] for t in top]
+    b_col, o_col = [""] * n, [""] * n
     for i in np.flatnonzero(has):
-        used = [lf for lf, dep in deps.items() if dep[i]]
         if passthrough is not None and not np.isnan(passthrough[1][i]):
             b_col[i] = passthrough[2][i] or "assumed"
-            used = [passthrough[0]]
+            used = [passthrough[0]]  # a leaf too, so in the cache
         else:
-            b_col[i] = _weakest([basis[lf][i] or "assumed" for lf in used] + ["computed"])
-        tokens = dict.fromkeys(t.strip() for lf in used for t in obs[lf][i].split(";") if t.strip())
-        o_col[i] = ";".join(tokens)
+            b_col[i] = weakest[i]
+            used = [names[j] for j in np.flatnonzero(dep[:, i])]
+        o_col[i] = ";".join(dict.fromkeys(t for lf in used for t in cache[lf][1][i]))
     method = np.broadcast_to(np.asarray(method, dtype=object), (n,))
     return {f"{key}_basis": b_col, f"{key}_obs": o_col, f"{key}_method": np.where(has, method, ""),
             f"{key}_missing": reason}
