@@ -25,6 +25,7 @@ class _Collect(HTMLParser):
         super().__init__()
         self.stack, self.imgs, self.values, self.appendix_taxa = [], [], [], set()
         self.in_appendix, self.row, self.cell_text, self.mismatched = False, [], None, 0
+        self.table_id, self.table_values, self.verdicts, self.in_verdict = None, {}, [], False
 
     def handle_starttag(self, tag, attrs):
         a = dict(attrs)
@@ -34,18 +35,29 @@ class _Collect(HTMLParser):
             self.stack.append(tag)
         if tag == "table" and a.get("id") == "appendix-table":
             self.in_appendix = True
+        if tag == "table":
+            self.table_id = a.get("id")
+            self.table_values.setdefault(self.table_id, [])
+        if tag == "span" and a.get("class") == "verdict":
+            self.verdicts.append("")
+            self.in_verdict = True
         if tag == "td":
             self.cell_text = ""
             if "data-value" in a:
                 self.values.append(float(a["data-value"]))
+                self.table_values[self.table_id].append(float(a["data-value"]))
 
     def handle_data(self, data):
         if self.cell_text is not None:
             self.cell_text += data
+        if self.in_verdict:
+            self.verdicts[-1] += data
 
     def handle_endtag(self, tag):
         if tag in self.VOID:
             return
+        if tag == "span":
+            self.in_verdict = False
         if not self.stack or self.stack.pop() != tag:
             self.mismatched += 1
         if tag == "td" and self.cell_text is not None:
@@ -57,6 +69,7 @@ class _Collect(HTMLParser):
             self.row = []
         if tag == "table":
             self.in_appendix = False
+            self.table_id = None
 
 
 @pytest.fixture(scope="module")
@@ -97,9 +110,10 @@ def test_report_renders_every_figure_as_png_and_embeds_it(runs, parsed):
     import base64
 
     for png in pngs:
-        if png.stem.endswith(("_scaling", "_diagnostics", "_lambda")) or png.stem in ("regime", "coverage", "sources"):
-            assert "data:image/png;base64," + base64.b64encode(png.read_bytes()).decode() in embedded, png.name
+        assert "data:image/png;base64," + base64.b64encode(png.read_bytes()).decode() in embedded, png.name
     assert any(p.stem.endswith("_lambda") for p in pngs), "the PGLS fit of the demo has a lambda profile"
+    assert any(p.stem.startswith("fit3_pgls") and p.stem.endswith("_tree") for p in pngs), "the PGLS fit has its tree"
+    assert sum(p.stem.endswith("_sensitivity") for p in pngs) >= 2, "forest plots of the SMA fits"
     assert all(not s.startswith("http") for s in parsed.imgs), "no figure is fetched from the network"
 
 
@@ -129,6 +143,61 @@ def test_numbers_in_html_equal_the_tables(runs, parsed):
     per = json.loads((runs[1] / "tables" / "fits.json").read_text())
     slopes = fits[(fits["term"] == "slope") & fits["group"].isna()]["estimate"].tolist()
     assert slopes == [f["result"]["slope"] for f in per if "result" in f]
+
+
+def _same(csv_value, json_value) -> bool:
+    """A CSV cell equals a JSON value exactly; an empty cell (NaN) stands for null."""
+    if json_value is None:
+        return csv_value != csv_value
+    return float(csv_value) == float(json_value)
+
+
+def _sens_csv(out: Path, aid: str) -> pd.DataFrame:
+    return pd.read_csv(out / "tables" / f"sensitivity_{aid}.csv")
+
+
+def test_sensitivity_numbers_in_html_equal_the_tables(runs, parsed):
+    """Each sensitivity table of the HTML holds exactly the numbers of tables/sensitivity_*.csv (both ways)."""
+    out = runs[1]
+    entries = json.loads((out / "tables" / "sensitivity.json").read_text())
+    done = [e for e in entries if "result" in e]
+    assert {e["id"][:4] for e in done} >= {"fit1", "fit2"}, "the SMA fits of the demo have a sensitivity"
+    summary = pd.read_csv(out / "tables" / "sensitivity_summary.csv").set_index("analysis")
+    for e in done:
+        aid, res = e["id"], e["result"]
+        refits = _sens_csv(out, aid)
+        loso = refits[refits["part"] == "leave_one_source_out"]
+        cols = ["n", "slope", "ci_low", "ci_high", "p", "shift_se"]
+        want = sorted(float(v) for v in loso[cols].to_numpy().ravel() if v == v)
+        assert sorted(parsed.table_values[f"sens-loso-{aid}"]) == want
+        assert [r["source_id"] for r in res["leave_one_source_out"]] == [c.removeprefix("without ") for c in loso["changed"]]
+        assert loso["slope"].tolist() == [r["slope"] for r in res["leave_one_source_out"]]
+        basis = refits[refits["part"] == "by_basis"]
+        want = sorted(float(v) for v in basis[cols + ["ci_change"]].to_numpy().ravel() if v == v)
+        assert sorted(parsed.table_values[f"sens-basis-{aid}"]) == want
+        row = summary.loc[aid]
+        jack = [row[c] for c in ("n", "slope", "jackknife_se", "analytic_se", "se_ratio") if row[c] == row[c]]
+        assert sorted(parsed.table_values[f"sens-jack-{aid}"]) == sorted(float(v) for v in jack)
+        assert _same(row["jackknife_se"], res["jackknife_se"]["slope_jackknife"])
+        me = res["measurement_error"]
+        for col, key in (("me_spread", "spread"), ("total_se", "total_se"), ("mc_draws", "draws"), ("me_share", "share")):
+            assert _same(row[col], me[key]), col
+        if me["spread"] is not None:
+            assert me["spread"] in parsed.table_values[f"sens-me-{aid}"]
+        assert row["verdict"] == res["verdict"]
+        assert parsed.verdicts.count(res["verdict"]) == 2, "verdict in the summary and in the section"
+    assert json.loads((out / "run.json").read_text())["sensitivity_draws"] == done[0]["draws"]
+
+
+def test_report_sensitivity_equals_the_fit_command(runs, capsys):
+    """``comparo fit --sensitivity --format json`` gives the report's leave-one-source-out, basis and jackknife parts."""
+    data, out = runs[0], runs[1]
+    entry = next(e for e in json.loads((out / "tables" / "sensitivity.json").read_text()) if e["id"].startswith("fit2_"))
+    assert main(["fit", str(data), "--x", "fiber_radius", "--y", "frequency_observed", "--method", "sma",
+                 "--sensitivity", "--format", "json"]) == 0
+    cli = json.loads(capsys.readouterr().out)["sensitivity"]
+    for key in ("leave_one_source_out", "by_basis", "jackknife_se"):
+        assert cli[key] == entry["result"][key], key
 
 
 def test_report_fit_equals_the_fit_command_json(runs, capsys):
