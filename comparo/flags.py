@@ -3,7 +3,8 @@
 Each flag names the point (its taxon label), the rule it breaks and the
 statistic behind it. Flags never remove a point; they tell the user where to
 look. The diagnostics are those of the ordinary least-squares line on the
-fitted (e.g. log) scale, computed with statsmodels' ``OLSInfluence``; a robust
+fitted (e.g. log) scale, computed in closed form (:func:`influence`; equal to
+statsmodels' ``OLSInfluence``, which refits n times); a robust
 or LTS fit adds its own evidence (low weight, large robust residual).
 
 Rules (p = 2 coefficients, n points):
@@ -167,6 +168,30 @@ def bonferroni_cut(n: int, p: int = 2, alpha: float = 0.05) -> float:
     return float(stats.t.ppf(1.0 - alpha / (2.0 * n), n - p - 1))
 
 
+def influence(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Externally studentized residuals, leverages and Cook's distances of the OLS line y = a + b x.
+
+    Closed forms for a straight line (p = 2), the same numbers as statsmodels'
+    ``OLSInfluence`` without its n leave-one-out refits:
+    h_i = 1/n + (x_i - xbar)^2 / Sxx; s_(i)^2 = ((n - p) s^2 - e_i^2/(1 - h_i)) / (n - p - 1);
+    t_i = e_i / (s_(i) sqrt(1 - h_i)); D_i = e_i^2 h_i / (p s^2 (1 - h_i)^2)
+    (Cook & Weisberg 1982, ch. 2 and 3). Dimensionless.
+    """
+    n, p = len(x), 2
+    xc = x - x.mean()
+    sxx = float(xc @ xc)
+    b = float(xc @ (y - y.mean())) / sxx
+    e = y - y.mean() - b * xc
+    lev = 1.0 / n + xc * xc / sxx
+    s2 = float(e @ e) / (n - p)
+    one_h = 1.0 - lev
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s2_i = np.maximum(((n - p) * s2 - e * e / one_h) / (n - p - 1), 0.0)
+        t_ext = e / np.sqrt(s2_i * one_h)
+        cooks = e * e * lev / (p * s2 * one_h * one_h)
+    return t_ext, lev, cooks
+
+
 def flag_points(
     x: np.ndarray,
     y: np.ndarray,
@@ -207,18 +232,12 @@ def flag_points(
     t_i = e_i / (s_(i) sqrt(1 - h_ii)) ~ t(n - p - 1) and
     D_i = r_i^2 h_ii / (p (1 - h_ii)) with r_i the internally studentized residual.
     """
-    import statsmodels.api as sm
     from scipy import stats
-    from statsmodels.stats.outliers_influence import OLSInfluence
 
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     n, p = len(x), 2
-    res = sm.OLS(y, sm.add_constant(x, has_constant="add")).fit()
-    infl = OLSInfluence(res)
-    t_ext = np.asarray(infl.resid_studentized_external)
-    lev = np.asarray(infl.hat_matrix_diag)
-    cooks = np.asarray(infl.cooks_distance[0])
+    t_ext, lev, cooks = influence(x, y)
     cuts = {
         "bonferroni": bonferroni_cut(n, p, alpha),
         "leverage": 2.0 * p / n,

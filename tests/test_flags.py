@@ -152,3 +152,19 @@ def test_drop_flagged_lts_exposes_and_drops_a_masked_cluster():
     assert r.refit_without_flagged.fit.slope == pytest.approx(0.5, abs=0.05)
     ols = fit(t, "m", "f", "ols", drop_flagged="bonferroni").refit_without_flagged
     assert not {d["label"] for d in ols.dropped} & {f"q{i}" for i in range(35, 40)}  # masked under OLS
+
+
+def test_closed_form_influence_matches_statsmodels():
+    """The closed-form leverages, externally studentized residuals and Cook's distances equal statsmodels'
+    OLSInfluence (an independent library that refits without each point)."""
+    from statsmodels.api import OLS, add_constant
+    from statsmodels.stats.outliers_influence import OLSInfluence
+
+    from comparo.flags import influence
+
+    x, y, _, _ = _planted(9)
+    ref = OLSInfluence(OLS(y, add_constant(x)).fit())
+    t_ext, lev, cooks = influence(x, y)
+    assert t_ext == pytest.approx(np.asarray(ref.resid_studentized_external), rel=1e-9)
+    assert lev == pytest.approx(np.asarray(ref.hat_matrix_diag), rel=1e-9)
+    assert cooks == pytest.approx(np.asarray(ref.cooks_distance[0]), rel=1e-9)
