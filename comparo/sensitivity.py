@@ -310,9 +310,8 @@ def measurement_error_mc(table, result: FitResult, *, log: str, mc: int, seed: i
         out["note"] = "fewer than 2 draws asked"
         return out
     labels = [p["label"] for p in result.points]
-    if method == "pgls" and taxon_col in table.columns:  # a PGLS result keeps no per-point table
-        gone = {e["label"] for e in result.excluded} | set((result.phylo or {}).get("taxa_without_tips") or [])
-        labels = [lab for lab in table[taxon_col].astype(str) if lab not in gone]
+    if method == "pgls":
+        labels = _pgls_labels(table, result, taxon_col)
         if len(labels) != result.n:
             out["note"] = "; ".join(notes + ["the PGLS taxa could not be matched to the table; Monte Carlo not computed"])
             return out
@@ -355,8 +354,36 @@ def measurement_error_mc(table, result: FitResult, *, log: str, mc: int, seed: i
     return out
 
 
-def taxon_jackknife(result: FitResult, fit_kwargs: dict) -> dict:
-    """Leave-one-taxon-out slopes and their jackknife SE beside the analytic SE."""
+def _pgls_labels(table, result: FitResult, taxon_col: str) -> list[str]:
+    """The taxa a PGLS fit used (a PGLS result keeps no per-point table)."""
+    if taxon_col not in table.columns:
+        return []
+    gone = {e["label"] for e in result.excluded} | set((result.phylo or {}).get("taxa_without_tips") or [])
+    return [lab for lab in table[taxon_col].astype(str) if lab not in gone]
+
+
+def taxon_jackknife(result: FitResult, fit_kwargs: dict, table=None) -> dict:
+    """Leave-one-taxon-out slopes and their jackknife SE beside the analytic SE.
+
+    PGLS (needs *table*): each taxon is left out of the table and the PGLS line
+    refitted on the pruned tree with Pagel's lambda held at the full-data estimate.
+    """
+    if result.method == "pgls" and table is not None:
+        taxon_col = fit_kwargs.get("taxon_col", "taxon")
+        labels = _pgls_labels(table, result, taxon_col)
+        if len(labels) == result.n and result.n >= 4:
+            kw = dict(fit_kwargs)
+            kw["lambda_"] = result.lambda_ if result.lambda_ is not None else kw.get("lambda_", "ml")
+            if isinstance(kw.get("tree"), str):
+                from comparo.phylo import read_tree
+
+                kw["tree"] = read_tree(kw["tree"])
+            names = table[taxon_col].astype(str)
+            b = np.array([fit(table[names != lab], result.x, result.y, "pgls", **kw).slope for lab in labels])
+            se_a = analytic_se(result)
+            se_j = jackknife_se(b)
+            return {"slope_jackknife": se_j, "slope_analytic": se_a, "ratio": se_j / se_a if se_a > 0 else None,
+                    "n": int(result.n), "note": "PGLS leave-one-out refits hold Pagel's lambda at the full-data estimate"}
     pts = result.points_frame()
     if pts.empty:
         return {"slope_jackknife": None, "slope_analytic": analytic_se(result), "ratio": None, "n": int(result.n),
@@ -538,7 +565,7 @@ def sensitivity(
             by_basis.append(rec)
             if res is not None:
                 prev = res
-    jack = taxon_jackknife(base, kw)
+    jack = taxon_jackknife(base, kw, table=table)
     me = measurement_error_mc(table, base, log=str(log), mc=mc, seed=seed, taxon_col=taxon_col, progress=progress,
                               fit_options=fit_options)
     verdict = make_verdict(loso, by_basis, jack, me, test_slope=test_slope, unavailable=bool(unavailable))
