@@ -6,10 +6,26 @@ random generator, to show what comparo does. None of it is a measurement.
 
 The scenario: 60 fictional taxa in 6 fictional clades, body masses from 1 mg
 to ~100 kg; observed cycle frequency falls with mass as M^-0.2 (clade offsets
-added); fiber radius grows as M^0.08; cross-bridge rates fall as M^-0.15;
-rates and frequencies are reported at measurement temperatures of 10-35 °C
-(true values at 25 °C scaled with Q10 = 2.5 for rates, 2.0 for frequencies);
-units are mixed as in real compilations.
+added); fiber radius grows as M^0.08. Each taxon's two frequency bounds are
+set relative to its true cycle frequency (at 25 °C):
+
+* kinetic bound (f + g)/(2 pi) = frequency x 10^N(0.3, 0.12): cross-bridges
+  cycle about twice as fast as the animal drives them; detach/attach 10^N(0.4, 0.1);
+* hydraulic bound 1/(2 pi tau_p) = frequency x 10^(0.3 + clade + N(0, 0.25)),
+  clade offsets N(0, 0.15); the transverse (drained) modulus M is the value
+  that gives this bound through tau_p = l^2 eta/(k M), with l the fiber radius,
+  k the Happel (1959) parallel-flow permeability of the hexagonal lattice
+  (thick 8 nm, thin 5 nm, 2 thin per thick) and eta water at 25 °C;
+  the longitudinal modulus is M x 10^N(0.2, 0.1).
+
+So about half the taxa come out kinetic-limited and half hydraulic-limited,
+poroelastic/kinetic ratios span roughly 0.2-5, and most observed frequencies
+lie below both bounds. The true (generating) values per taxon are written to
+``truth.csv`` (:func:`truth_rows`); reported values scatter around them as
+their stated uncertainties say. Rates and frequencies are reported at
+measurement temperatures of 10-35 °C (true values at 25 °C scaled with
+Q10 = 2.5 for rates, 2.0 for frequencies); units are mixed as in real
+compilations.
 
 Planted curation faults (comparo must find each one; see tests/test_demo.py):
   * a unit slip: one fiber radius typed in mm but labelled um     (obs_id DEMO-SLIP)
@@ -46,6 +62,20 @@ EPITHETS = [
 ]
 Q10 = {"attach_rate": 2.5, "detach_rate": 2.5, "kinetic_time": 2.5, "frequency_observed": 2.0}
 T_REF = 25.0
+# the synthetic world's lattice and fluid (the defaults of schema/derived.toml)
+R_THICK_NM, R_THIN_NM, THIN_PER_THICK = 8.0, 5.0, 2
+ETA_25C = 0.890023e-3  # Pa s, water at 25 °C and 0.1 MPa (IAPWS R12-08, via iapws 1.5.5)
+
+
+def lattice_permeability_nm2(d10_nm):
+    """Happel (1959, AIChE J 5:174-177) parallel-flow permeability (nm²) of the
+    hexagonal filament lattice of spacing d10: phi = pi(r_m² + 2 r_a²)/((sqrt 3/2) d²),
+    d = 2 d10/sqrt 3, a = (r_m² + 2 r_a²)/(r_m + 2 r_a)."""
+    d = 2.0 * np.asarray(d10_nm, dtype=float) / np.sqrt(3.0)
+    s2 = R_THICK_NM**2 + THIN_PER_THICK * R_THIN_NM**2
+    phi = np.pi * s2 / (np.sqrt(3.0) / 2.0 * d**2)
+    a = s2 / (R_THICK_NM + THIN_PER_THICK * R_THIN_NM)
+    return a**2 / (4.0 * phi) * (-np.log(phi) - 1.5 + 2.0 * phi - 0.5 * phi**2)
 
 
 def g(x: float, digits: int = 4) -> str:
@@ -81,11 +111,22 @@ def make(rng: np.random.Generator) -> dict[str, str]:
     length = 8.0 * m**0.25 * 10 ** rng.normal(0, 0.1, n_taxa)  # mm
     d10 = rng.normal(42.0, 3.0, n_taxa)  # nm
     sl = rng.normal(2.6, 0.25, n_taxa)  # µm
-    e_long = 10 ** rng.normal(2.3, 0.25, n_taxa)  # kPa
-    e_trans = e_long * 10 ** rng.normal(-0.2, 0.1, n_taxa)  # kPa
-    f_att = 80.0 * m**-0.15 * 10 ** rng.normal(0, 0.08, n_taxa)  # 1/s
-    g_det = f_att * 10 ** rng.normal(0.4, 0.1, n_taxa)  # 1/s
+    # frequency bounds relative to the true frequency (the generating parameters)
+    kin_margin = rng.normal(0.3, 0.12, n_taxa)  # log10(kinetic bound / frequency)
+    hyd_clade = {c: v for c, v in zip(CLADES, rng.normal(0.0, 0.15, len(CLADES)), strict=True)}
+    hyd_margin = 0.3 + np.array([hyd_clade[c] for c in clades]) + rng.normal(0, 0.25, n_taxa)
+    f_kin = freq * 10**kin_margin  # Hz
+    f_hyd = freq * 10**hyd_margin  # Hz
+    tau_x = 1.0 / (2.0 * np.pi * f_kin)  # s
+    tau_p = 1.0 / (2.0 * np.pi * f_hyd)  # s
+    k_m2 = lattice_permeability_nm2(d10) * 1e-18
+    e_trans = (radius * 1e-6) ** 2 * ETA_25C / (k_m2 * tau_p) / 1e3  # kPa: M = l² eta/(k tau_p)
+    e_long = e_trans * 10 ** rng.normal(0.2, 0.1, n_taxa)  # kPa
+    g_over_f = 10 ** rng.normal(0.4, 0.1, n_taxa)
+    f_att = 1.0 / (tau_x * (1.0 + g_over_f))  # 1/s
+    g_det = f_att * g_over_f  # 1/s
     vfrac = np.clip(rng.normal(0.7, 0.08, n_taxa), 0.35, 0.92)
+    truth = truth_rows(names, clades, m, freq, radius, d10, e_trans, f_att, g_det, tau_p, tau_x, f_kin, f_hyd)
 
     # --- sources ------------------------------------------------------------------------
     n_src = 25
@@ -135,33 +176,36 @@ def make(rng: np.random.Generator) -> dict[str, str]:
                 uncertainty=g(0.05 * r, 2), uncertainty_kind="se", n=str(int(rng.integers(5, 40))))
         if rng.random() < 0.7:
             add(taxon, "fiber_length", g(length[i], 3), "mm", pick("morph"), locator())
-        if rng.random() < 0.75:
+        if rng.random() < 0.8:
             dig = rng.random() < 0.2
             add(taxon, "lattice_spacing_d10", g(d10[i], 3), "nm", pick("lattice"), locator(dig),
                 basis="digitized" if dig else "reported", uncertainty=g(abs(rng.normal(1.0, 0.3)), 2), uncertainty_kind="sd", n=str(int(rng.integers(3, 12))),
                 preparation="intact_fiber")
             add(taxon, "sarcomere_length", g(sl[i], 3), "um", pick("lattice"), locator())
-        if rng.random() < 0.6:
+        if rng.random() < 0.7:
             src = pick("mech")
             add(taxon, "elastic_modulus", g(e_long[i] * 1e3, 3), "Pa", src, locator(), preparation="intact_fiber")
-            add(taxon, "transverse_modulus", g(e_trans[i] / 1e3, 3), "MPa", src, locator(),
-                uncertainty=g(0.15 * e_trans[i] / 1e3, 2), uncertainty_kind="sd", n=str(int(rng.integers(4, 15))), preparation="intact_fiber")
+            n_m = int(rng.integers(4, 15))
+            mt = e_trans[i] * (1.0 + 0.15 / np.sqrt(n_m) * rng.normal())  # sd 15%, n_m fibers
+            add(taxon, "transverse_modulus", g(mt / 1e3, 3), "MPa", src, locator(),
+                uncertainty=g(0.15 * mt / 1e3, 2), uncertainty_kind="sd", n=str(n_m), preparation="intact_fiber")
         if rng.random() < 0.3:
             add(taxon, "myofibril_volume_fraction", g(vfrac[i], 2), "fraction", pick("morph"), locator())
-        if rng.random() < 0.7:
+        if rng.random() < 0.75:
             t = temp()
             dig = rng.random() < 0.15
             src = pick("kin")
             for q, v in (("attach_rate", f_att[i]), ("detach_rate", g_det[i])):
-                at_t = v * Q10[q] ** ((t - T_REF) / 10.0)
+                at_t = v * Q10[q] ** ((t - T_REF) / 10.0) * (1.0 + 0.1 * rng.normal())  # se 10%
                 add(taxon, q, g(at_t, 3), str(rng.choice(["1/s", "s^-1"])), src, locator(dig),
                     basis="digitized" if dig else "reported", temperature_c=g(t, 3), preparation="skinned_fiber",
                     uncertainty=g(0.1 * at_t, 2), uncertainty_kind="se", n=str(int(rng.integers(4, 12))))
         t = temp()
-        fo = freq[i] * Q10["frequency_observed"] ** ((t - T_REF) / 10.0)
+        n_f = int(rng.integers(3, 25))
+        fo = freq[i] * Q10["frequency_observed"] ** ((t - T_REF) / 10.0) * (1.0 + 0.08 / np.sqrt(n_f) * rng.normal())
         dig = rng.random() < 0.15
         add(taxon, "frequency_observed", g(fo, 3), "Hz", pick("freq"), locator(dig), basis="digitized" if dig else "reported",
-            temperature_c=g(t, 3), preparation="in_vivo", uncertainty=g(0.08 * fo, 2), uncertainty_kind="sd", n=str(int(rng.integers(3, 25))))
+            temperature_c=g(t, 3), preparation="in_vivo", uncertainty=g(0.08 * fo, 2), uncertainty_kind="sd", n=str(n_f))
 
     # --- planted faults -------------------------------------------------------------------
     rows_by = {}
@@ -207,8 +251,11 @@ def make(rng: np.random.Generator) -> dict[str, str]:
             r["obs_id"] = r.pop("_id")
         r.setdefault("entered_by", "demo generator")
         r.setdefault("entered_on", "2026-12-01")
-    kt_value = 1.0 / (float(a_row["value"]) + float(d_row["value"]))
+    fa, fd = float(a_row["value"]), float(d_row["value"])
+    kt_value = 1.0 / (fa + fd)
+    kt_rel = np.hypot(float(a_row["uncertainty"]), float(d_row["uncertainty"])) / (fa + fd)  # first order, as the curator would
     rows.append({"obs_id": "DEMO-COMPUTED", "taxon": kt, "quantity": "kinetic_time", "value": g(kt_value * 1e3, 3), "unit": "ms",
+                 "uncertainty": g(kt_value * 1e3 * kt_rel, 2), "uncertainty_kind": "se",
                  "source_id": a_row["source_id"], "locator": a_row["locator"], "basis": "computed",
                  "inputs": f"{a_row['obs_id']};{d_row['obs_id']}", "temperature_c": a_row.get("temperature_c", ""),
                  "notes": "1/(f+g) from the two rate rows", "entered_by": "demo generator", "entered_on": "2026-12-01"})
@@ -267,6 +314,13 @@ Every taxon, clade, source and number in this folder is INVENTED by
 `demo_tables/generate.py` (seeded) to demonstrate comparo. Nothing here is a
 measurement, and no conclusion about real animals can be drawn from it.
 The planted curation faults are listed in the generator's docstring.
+
+`truth.csv` holds the invented generating values per taxon (true values at
+25 °C before measurement noise: frequency, fiber radius, d10, transverse
+modulus, rates, and the poroelastic and kinetic times, their ratio, the
+frequency bounds and the limiting process they imply). It is not part of the
+compilation (comparo does not read it); it lets a user check how well
+`comparo derive` recovers a known answer.
 """
     return {
         "observations.csv": "\n".join(obs_lines) + "\n",
@@ -275,7 +329,23 @@ The planted curation faults are listed in the generator's docstring.
         "tree.nwk": newick + "\n",
         "comparo.toml": settings,
         "README.md": readme,
+        "truth.csv": truth,
     }
+
+
+def truth_rows(names, clades, m, freq, radius, d10, e_trans, f_att, g_det, tau_p, tau_x, f_kin, f_hyd) -> str:
+    """The generating (true, 25 °C, noise-free) values per taxon as CSV text; all invented."""
+    cols = ["taxon", "clade", "body_mass_kg", "frequency_hz", "fiber_radius_um", "lattice_spacing_d10_nm",
+            "transverse_modulus_kpa", "attach_rate_per_s", "detach_rate_per_s", "poroelastic_time_s", "kinetic_time_s",
+            "poro_kinetic_ratio", "frequency_kinetic_bound_hz", "frequency_hydraulic_bound_hz", "frequency_ratio", "regime"]
+    lines = [",".join(cols)]
+    for i, name in enumerate(names):
+        f_min = min(f_kin[i], f_hyd[i])
+        vals = [m[i], freq[i], radius[i], d10[i], e_trans[i], f_att[i], g_det[i], tau_p[i], tau_x[i], tau_p[i] / tau_x[i],
+                f_kin[i], f_hyd[i], freq[i] / f_min]
+        regime = "kinetic" if f_kin[i] <= f_hyd[i] else "hydraulic"
+        lines.append(",".join([name, clades[i], *(f"{float(v):.8g}" for v in vals), regime]))
+    return "\n".join(lines) + "\n"
 
 
 def random_tree(rng: np.random.Generator, names: list[str], clades: list[str]) -> str:

@@ -85,3 +85,14 @@ def test_demo_command_runs_the_report(tmp_path):
     assert (out / "report.html").stat().st_size > 10_000
     assert (out / "tables" / "per_taxon.csv").stat().st_size > 0
     assert json.loads((out / "run.json").read_text())["seed"] == 20240601
+
+
+def test_sma_exponent_ci_covers_the_generating_exponent():
+    """The generator draws frequency = 30 M^-0.2 (clade offsets, noise; demo_tables/generate.py):
+    the 95% CI of the fitted frequency-mass SMA slope (log10) covers -0.2."""
+    import comparo
+    from comparo.fit import fit
+
+    res = fit(comparo.per_taxon(comparo.load(DEMO)), x="body_mass", y="frequency_observed", method="sma")
+    lo, hi = res.slope_ci
+    assert lo < -0.2 < hi
