@@ -643,46 +643,44 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None):
     exact and saves a sort.
 
     The draws are made in one thread, block after block, in a fixed order (so a seed
-    gives the same numbers whatever the timing); the sorting of one block's outputs
-    runs on worker threads while the next block is drawn (numpy releases the GIL in
-    both), with at most two blocks in flight to bound memory.
+    gives the same numbers whatever the timing); each drawn block is evaluated and
+    its outputs sorted on a worker thread while the next block is drawn (numpy
+    releases the GIL in both), with at most two blocks in flight to bound memory.
     """
     mirrors = mirrors or {}
     n = len(next(iter(leaves.values())))
     block = max(1, 1_000_000 // mc)
     drawn = [k for k, r in rel_u.items() if np.any(np.isfinite(r) & (r > 0))]
     res = {k: {s: np.full(n, np.nan) for s in (*_MC_SUFFIXES, "_mc_u")} for k in outputs}
-    in_flight: list[list[Any]] = []
+    in_flight: list[Any] = []
     with ThreadPoolExecutor(max_workers=min(2, os.cpu_count() or 1)) as pool:
         for start in range(0, n, block):
             stop = min(n, start + block)
-            rows = stop - start
             vals = {k: v[start:stop] for k, v in leaves.items()}
             samples = sample_inputs({k: vals[k] for k in drawn},
                                     {k: vals[k] * rel_u[k][start:stop] for k in drawn}, mc, rng, dtype=np.float32)
             args = {k: (samples[k] if k in samples else v.astype(np.float32)[:, None]) for k, v in vals.items()}
             del samples
-            with np.errstate(all="ignore"):
-                out = compute(args)
+            in_flight.append(pool.submit(_mc_block, compute, args, slice(start, stop), mc, outputs, mirrors, res))
             del args
-            sl = slice(start, stop)
-            futures = [pool.submit(_summarise, key, np.broadcast_to(out[key], (rows, mc)), mc, mirrors, res, sl)
-                       for key in outputs if key not in mirrors]
-            futures += [pool.submit(_mirror_sd, res[key]["_mc_u"], sl, np.broadcast_to(out[key], (rows, mc)))
-                        for key in mirrors if key in res]
-            del out
-            in_flight.append(futures)
-            if len(in_flight) > 1:  # wait for the previous block before drawing the next one
-                for f in in_flight.pop(0):
-                    f.result()
-        for futures in in_flight:
-            for f in futures:
-                f.result()
+            if len(in_flight) > 1:  # at most two blocks drawn and not yet summarised
+                in_flight.pop(0).result()
+        for f in in_flight:
+            f.result()
     return res
 
 
-def _mirror_sd(target: np.ndarray, sl: slice, y: np.ndarray) -> None:
-    target[sl] = _sd(y)
+def _mc_block(compute, args, sl, mc, outputs, mirrors, res) -> None:
+    """Evaluate one block of draws and write every output's summaries (a worker thread)."""
+    rows = sl.stop - sl.start
+    with np.errstate(all="ignore"):
+        out = compute(args)
+    for key in outputs:
+        if key not in mirrors:
+            _summarise(key, np.broadcast_to(out[key], (rows, mc)), mc, mirrors, res, sl)
+    for key in mirrors:
+        if key in res:
+            res[key]["_mc_u"][sl] = _sd(np.broadcast_to(out[key], (rows, mc)))
 
 
 def _sd(y: np.ndarray) -> np.ndarray:
