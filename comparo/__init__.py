@@ -10,6 +10,8 @@ stay fast; the public names below resolve on first use.
 
 from __future__ import annotations
 
+import sys
+import types
 from importlib import import_module
 from typing import Any
 
@@ -48,3 +50,22 @@ def __getattr__(name: str) -> Any:
 
 def __dir__() -> list[str]:
     return __all__
+
+
+# ``fit``, ``derive`` and ``sensitivity`` are both public functions and the
+# submodules that define them. Importing a submodule makes Python bind the
+# module object on the package, which would turn ``comparo.fit(...)`` into
+# "'module' object is not callable". The package keeps the function instead;
+# the submodule itself stays reachable as ``sys.modules["comparo.fit"]`` and
+# through ``from comparo.fit import ...``.
+_SHADOWED = frozenset(name for name, module in _API.items() if module == f"{__name__}.{name}")
+
+
+class _Package(types.ModuleType):
+    def __setattr__(self, name: str, value: Any) -> None:
+        if name in _SHADOWED and isinstance(value, types.ModuleType):
+            value = getattr(value, name)
+        super().__setattr__(name, value)
+
+
+sys.modules[__name__].__class__ = _Package
