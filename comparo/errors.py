@@ -57,7 +57,7 @@ def problems_frame(problems: list[Problem]) -> pd.DataFrame:
     errors first, then by file and row."""
     import pandas as pd
 
-    frame = pd.DataFrame([p.to_dict() for p in problems], columns=PROBLEM_COLUMNS)
+    frame = pd.DataFrame([(p.severity, p.file, p.row, p.column, p.value, p.rule, p.message, p.hint) for p in problems], columns=PROBLEM_COLUMNS)
     if frame.empty:
         return frame
     frame["row"] = frame["row"].astype("Int64")

@@ -16,7 +16,7 @@ import pandas as pd
 
 from comparo.curate import Harmonised, harmonise, per_taxon
 from comparo.io import Dataset
-from comparo.validate import BASIS_ORDER
+from comparo.validate import BASIS_ORDER, map_distinct
 
 
 @dataclass(frozen=True)
@@ -133,9 +133,11 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
         counts = part["basis_effective"].value_counts(normalize=True)
         shares[q] = {b: float(counts.get(b, 0.0)) for b in BASIS_ORDER if counts.get(b, 0.0) > 0}
     sources: dict[str, dict[str, Any]] = {}
+    by_src = used.groupby("source_id", sort=False)
+    n_values, n_taxa = by_src.size(), by_src["accepted"].nunique()
+    quantities = by_src["quantity_key"].agg(lambda s: sorted(s.unique().tolist()))
     for sid in ds.sources["source_id"]:
-        part = used[used["source_id"] == sid]
-        sources[sid] = {"values": int(len(part)), "taxa": int(part["accepted"].nunique()), "quantities": sorted(part["quantity_key"].unique().tolist())}
+        sources[sid] = {"values": int(n_values.get(sid, 0)), "taxa": int(n_taxa.get(sid, 0)), "quantities": list(quantities.get(sid, []))}
     tab = per_taxon(ds, temperature=temperature, harmonised=h)
     coverage: dict[str, dict[str, str]] = {}
     basis_cols = [c for c in tab.columns if c.endswith("_basis")]
@@ -153,7 +155,7 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
     cited = set(rows["source_id"]) - {""}
     listed = set(ds.sources["source_id"]) if "source_id" in ds.sources else set()
     cat = ds.catalog
-    ts = rows["quantity_key"].map(lambda k: bool(k) and k in cat and cat[k].temperature_sensitive)
+    ts = map_distinct(rows["quantity_key"], lambda k: bool(k) and k in cat and cat[k].temperature_sensitive)
     missing_temp = rows.loc[ts & rows["temperature_c"].isna(), "obs_id"].tolist()
     ts = rows[rows["temperature_note"] != ""]
     temp = {

@@ -32,6 +32,12 @@ INT_EXACT = 2**53 - 1  # largest whole number a float64 holds exactly (IEEE 754)
 
 # --------------------------------------------------------------------------- helpers
 
+def map_distinct(s: pd.Series, fn) -> pd.Series:
+    """``s.map(fn)`` with *fn* called once per distinct value (a 100,000-row column
+    holds a few dozen quantity keys)."""
+    return s.map({k: fn(k) for k in pd.unique(s)}) if len(s) else s.map(fn)
+
+
 def parse_numbers(s: pd.Series) -> pd.Series:
     """Cells as float (NaN where empty or not a finite number)."""
     num = pd.to_numeric(s.where(s != ""), errors="coerce").astype(float)
@@ -199,9 +205,9 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     # units: parse each distinct string once, dimension-check each distinct (quantity, unit)
     factor = np.full(len(obs), np.nan)
     unit_col = obs["unit"]
-    target_key = qty.map(lambda k: catalog.target(k).key if k in catalog else "")
-    canon = target_key.map(lambda k: catalog[k].unit if k else "")
-    alias = qty.map(lambda k: catalog[k].factor if k in catalog else np.nan).astype(float)
+    target_key = map_distinct(qty, lambda k: catalog.target(k).key if k in catalog else "")
+    canon = map_distinct(target_key, lambda k: catalog[k].unit if k else "")
+    alias = map_distinct(qty, lambda k: catalog[k].factor if k in catalog else np.nan).astype(float)
     pairs = pd.DataFrame({"q": qty, "u": unit_col})[known & (unit_col != "")].drop_duplicates()
     bad_unit: dict[str, str] = {}
     fac: dict[tuple[str, str], float] = {}
@@ -240,14 +246,14 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     obs["value_canonical"] = value * total
     obs["uncertainty_canonical"] = obs["uncertainty"].to_numpy(dtype=float) * total
     obs["unit_canonical"] = canon.to_numpy()
-    is_alias = qty.map(lambda k: bool(k in catalog and catalog[k].converts_to)).to_numpy(dtype=bool)
+    is_alias = map_distinct(qty, lambda k: bool(k in catalog and catalog[k].converts_to)).to_numpy(dtype=bool)
     basis = obs["basis"].where(obs["basis"].isin(BASIS_ORDER), "assumed")
-    rank = basis.map(BASIS_ORDER.index).to_numpy(dtype=int)  # int even when there are no rows
+    rank = basis.map({b: i for i, b in enumerate(BASIS_ORDER)}).to_numpy(dtype=int)  # int even when there are no rows
     eff_rank = np.where(is_alias, np.maximum(rank, BASIS_ORDER.index("computed")), rank)
     obs["basis_effective"] = np.array(BASIS_ORDER, dtype=object)[eff_rank]
 
     # sign: physical magnitudes in the catalogue are positive (temperatures excepted)
-    positive_kind = target_key.map(lambda k: bool(k) and catalog[k].kind != "temperature").to_numpy(dtype=bool)
+    positive_kind = map_distinct(target_key, lambda k: bool(k) and catalog[k].kind != "temperature").to_numpy(dtype=bool)
     nonpos = positive_kind & (value <= 0)
     add(nonpos, "error", "value", "value-positive", lambda i: f"{qty.iat[i]} must be greater than 0", "a zero or negative value is impossible for this quantity: check the sign and the unit", obs["value"].to_numpy())
 
@@ -275,7 +281,7 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     add(no_proxy, "error", "proxy_taxon", "proxy-taxon", "basis is 'proxy' but proxy_taxon is empty", "name the taxon whose value stands in")
 
     # temperature-sensitive values need a temperature
-    ts = target_key.map(lambda k: bool(k) and catalog[k].temperature_sensitive).to_numpy(dtype=bool)
+    ts = map_distinct(target_key, lambda k: bool(k) and catalog[k].temperature_sensitive).to_numpy(dtype=bool)
     temp = obs["temperature_c"].to_numpy(dtype=float)
     raw_temp = raw.frame["temperature_c"] if "temperature_c" in raw.frame else pd.Series([""] * len(obs))
     no_temp = ts & (raw_temp.to_numpy() == "")
@@ -292,8 +298,8 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     add(np.isnan(unc) & (kind != "").to_numpy() & (raw.frame.get("uncertainty", pd.Series([""] * len(obs))) == "").to_numpy(), "warning", "uncertainty", "uncertainty-missing", "uncertainty_kind given without an uncertainty value")
 
     # plausible range (in canonical units)
-    lo = target_key.map(lambda k: catalog[k].range[0] if k and catalog[k].range else np.nan).to_numpy(dtype=float)
-    hi = target_key.map(lambda k: catalog[k].range[1] if k and catalog[k].range else np.nan).to_numpy(dtype=float)
+    lo = map_distinct(target_key, lambda k: catalog[k].range[0] if k and catalog[k].range else np.nan).to_numpy(dtype=float)
+    hi = map_distinct(target_key, lambda k: catalog[k].range[1] if k and catalog[k].range else np.nan).to_numpy(dtype=float)
     vc = obs["value_canonical"].to_numpy(dtype=float)
     out = ~np.isnan(vc) & ((vc < lo) | (vc > hi))
 
