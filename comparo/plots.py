@@ -64,6 +64,12 @@ def _figure(w: float = 6.4, h: float = 4.4, ncols: int = 1):
     return fig, axes
 
 
+def short(label: object, limit: int = 40) -> str:
+    """*label* as text, cut to *limit* characters with an ellipsis (long names would crush the axes)."""
+    text = str(label)
+    return text if len(text) <= limit else text[: limit - 1] + "\u2026"
+
+
 def render(fig: Figure) -> tuple[bytes, bytes]:
     """PNG and SVG bytes of *fig*, byte-identical across runs; the figure is closed."""
     plt = _plt()
@@ -182,7 +188,7 @@ def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] |
                 label=f"{g}: b = {_fmt(gr['slope'])} ({_fmt(glo)} to {_fmt(ghi)})")
     flagged = {o["label"] for o in fit.outliers}
     for rec in points[points["label"].isin(flagged)].itertuples():
-        ax.annotate(rec.label, (inv(rec.x_fit), inv(rec.y_fit)), xytext=(4, 4), textcoords="offset points",
+        ax.annotate(short(rec.label), (inv(rec.x_fit), inv(rec.y_fit)), xytext=(4, 4), textcoords="offset points",
                     fontsize=7, color="#333333")
     from matplotlib.lines import Line2D
 
@@ -236,7 +242,7 @@ def diagnostics(points: pd.DataFrame, *, title: str = "") -> Figure:
     ax.plot(h, cook, ls="", marker="o", color=PALETTE[3])
     ax.axhline(4 / n, color="#777777", lw=0.8, ls=":", label="4/n")
     for i in np.argsort(-cook)[: min(3, n)]:
-        ax.annotate(str(points["label"].iat[i]), (h[i], cook[i]), xytext=(3, 3), textcoords="offset points", fontsize=7)
+        ax.annotate(short(points["label"].iat[i]), (h[i], cook[i]), xytext=(3, 3), textcoords="offset points", fontsize=7)
     ax.set_xlabel("leverage h (dimensionless)")
     ax.set_ylabel("Cook's distance (dimensionless)")
     ax.set_title("leverage and influence")
@@ -297,13 +303,19 @@ def coverage_map(coverage: Mapping[str, Mapping[str, str]], quantities: Sequence
     taxa = sorted(coverage)
     qs = list(quantities) if quantities else sorted({q for v in coverage.values() for q in v})
     keys = list(BASIS_ORDER) + [""]
+    if not taxa or not qs:
+        fig, ax = _figure(5.0, 3.0)
+        ax.set_axis_off()
+        ax.text(0.5, 0.5, "no values to map", ha="center", va="center", transform=ax.transAxes)
+        ax.set_title("Coverage: weakest basis of each value")
+        return fig
     code = np.array([[keys.index(coverage[t].get(q) or "") if (coverage[t].get(q) or "") in keys else len(keys) - 1
                       for q in qs] for t in taxa], dtype=float)
     fig, ax = _figure(max(5.0, 0.42 * len(qs) + 3.2), max(4.0, 0.16 * len(taxa) + 1.8))
     cmap = ListedColormap([BASIS_COLOURS[k] for k in keys])
     ax.imshow(code, aspect="auto", cmap=cmap, vmin=-0.5, vmax=len(keys) - 0.5, interpolation="nearest")
-    ax.set_xticks(range(len(qs)), qs, rotation=60, ha="right", fontsize=7)
-    ax.set_yticks(range(len(taxa)), taxa, fontsize=6 if len(taxa) > 30 else 8)
+    ax.set_xticks(range(len(qs)), [short(q) for q in qs], rotation=60, ha="right", fontsize=7)
+    ax.set_yticks(range(len(taxa)), [short(t) for t in taxa], fontsize=6 if len(taxa) > 30 else 8)
     ax.grid(False)
     ax.set_xlabel("quantity")
     ax.set_ylabel("taxon")
@@ -320,7 +332,7 @@ def source_chart(sources: pd.DataFrame) -> Figure:
     yy = np.arange(len(s))
     ax.barh(yy - 0.2, s["values"], height=0.4, color=PALETTE[0], label="values")
     ax.barh(yy + 0.2, s["taxa"], height=0.4, color=PALETTE[1], label="taxa")
-    ax.set_yticks(yy, s["source_id"].astype(str))
+    ax.set_yticks(yy, [short(v) for v in s["source_id"]])
     ax.set_xlabel("count (values or taxa)")
     ax.set_ylabel("source")
     ax.set_title("Contribution of each source")
@@ -473,7 +485,7 @@ def tree_trait(tree: Any, values: Mapping[str, float], *, label: str, names: Map
     ax.yaxis.tick_right()
     if labelled:
         shown = [(names or {}).get(t) or t.replace("_", " ") for t in tips]
-        ax.set_yticks(ty, shown, fontsize=min(8.0, max(3.0, 0.8 * row_pt)))
+        ax.set_yticks(ty, [short(v) for v in shown], fontsize=min(8.0, max(3.0, 0.8 * row_pt)))
         ax.tick_params(axis="y", length=0, pad=2 + 0.3 * np.sqrt(size))
     else:
         ax.set_yticks([])
@@ -524,7 +536,7 @@ def forest_plot(rows: Sequence[Mapping[str, Any]], *, slope: float, slope_ci: Se
             lab = "without the source: flips the slope test" if flip else f"without the source: slope and {pct} CI"
             drawn[flip] = True
         ax.plot([s], [i], ls="", marker=marker, color=colour, label=lab)
-    ax.set_yticks(yy, names, fontsize=8 if n <= 40 else 6)
+    ax.set_yticks(yy, [short(v) for v in names], fontsize=8 if n <= 40 else 6)
     ax.set_ylim(n - 0.5, -0.5)
     ax.grid(axis="y", visible=False)
     ax.set_xlabel(xlabel)

@@ -159,3 +159,14 @@ def test_forest_plot_draws_each_refit_against_the_full_data_line_and_band():
     assert (x0, x1) == pytest.approx((-0.23, -0.19))
     labels = [t.get_text() for t in ax.get_yticklabels()]
     assert labels[2] == "without S3 (n = 0, not refitted)"
+
+
+def test_empty_coverage_renders_a_placeholder():
+    png, svg = plots.render(plots.coverage_map({}))
+    assert png[:4] == b"\x89PNG" and b"no values to map" in svg
+
+
+def test_long_labels_are_cut_with_an_ellipsis():
+    assert plots.short("Apis mellifera") == "Apis mellifera"
+    cut = plots.short("x" * 10_000)
+    assert len(cut) == 40 and cut.endswith("\u2026")
