@@ -50,6 +50,8 @@ def build_parser() -> argparse.ArgumentParser:
     _dataset_arg(p)
     p.add_argument("--format", choices=["text", "csv", "json"], default="text", help="output format (default text)")
     p.add_argument("--strict", action="store_true", help="exit 1 when there are warnings")
+    p.add_argument("--all", action="store_true",
+                   help="text output: list every problem row (default: the first 25 per rule, then a count)")
 
     p = sub.add_parser("audit", help="provenance audit: coverage, basis mix, conflicts, row accounting")
     _dataset_arg(p)

@@ -229,3 +229,20 @@ def test_property_any_cell_text_never_crashes(tmp_path_factory, text):
     rows[0] = rows[0].replace("100,mg", f"{cell},mg")
     res = check(write_dataset(tmp_path_factory.mktemp("any"), rows))
     assert res.rows_read >= 1
+
+
+def test_text_view_caps_rows_per_rule_and_all_lists_them(tmp_path, capsys):
+    """30 digitized rows: text shows 25 of that rule and counts the rest; --all and csv show all 30."""
+    from comparo.cli import main
+
+    rows = [f"d{i},Taxon{i} alpha,body_mass,{i + 1},mg,,,,s1,Fig. {i},digitized,,," for i in range(30)]
+    folder = write_dataset(tmp_path / "many", rows=rows)
+    assert main(["check", str(folder)]) == 0
+    out = capsys.readouterr().out
+    assert out.count("[basis-digitized]") == 26  # 25 rows plus the "more" line
+    assert "and 5 more note(s) [basis-digitized] not shown" in out
+    assert main(["check", str(folder), "--all"]) == 0
+    out = capsys.readouterr().out
+    assert out.count("[basis-digitized]") == 30 and "not shown" not in out
+    assert main(["check", str(folder), "--format", "csv"]) == 0
+    assert capsys.readouterr().out.count("basis-digitized") == 30

@@ -13,8 +13,13 @@ def _text(v) -> str:
     return "" if v is None or (not isinstance(v, str) and pd.isna(v)) else str(v)
 
 
-def render_problems(result) -> None:
-    """Rich table of problems grouped by severity, then the one-line summary."""
+def render_problems(result, limit: int | None = 25) -> None:
+    """Rich table of problems grouped by severity, then the one-line summary.
+
+    At most *limit* rows per (severity, rule) are printed, followed by a line
+    saying how many more there are; ``None`` prints every row. The full list is
+    always in ``--format csv`` and ``--format json``.
+    """
     from rich.console import Console
     from rich.table import Table
     from rich.text import Text
@@ -25,7 +30,14 @@ def render_problems(result) -> None:
         part = frame[frame["severity"] == severity]
         if part.empty:
             continue
-        table = Table(title=f"{len(part)} {severity}(s)", title_style=style, title_justify="left", header_style="bold", expand=False)
+        total = len(part)
+        hidden: dict[str, int] = {}
+        if limit is not None:
+            rank = part.groupby("rule", sort=False, dropna=False).cumcount()
+            over = part[rank >= limit]
+            hidden = over["rule"].fillna("").value_counts(sort=False).to_dict()
+            part = part[rank < limit]
+        table = Table(title=f"{total} {severity}(s)", title_style=style, title_justify="left", header_style="bold", expand=False)
         table.add_column("where", no_wrap=True)
         table.add_column("column", no_wrap=True)
         table.add_column("value", max_width=28, overflow="ellipsis", no_wrap=True)
@@ -38,6 +50,9 @@ def render_problems(result) -> None:
                 problem.append("\n" + _text(rec["hint"]), style="italic cyan")
             table.add_row(where, _text(rec["column"]), _text(rec["value"]), problem)
         console.print(table)
+        for rule, count in hidden.items():
+            console.print(Text(f"  ... and {count} more {severity}(s) [{rule}] not shown "
+                               "(--all lists every row; --format csv writes them all)", style="dim"))
     console.print(result.summary(), style="bold green" if result.ok else "bold red")
 
 
@@ -52,7 +67,7 @@ def run(args) -> int:
 
         sys.stdout.write(to_csv(result.problems))
     else:
-        render_problems(result)
+        render_problems(result, limit=None if args.all else 25)
     if not result.ok:
         return 2
     if args.strict and result.n_warnings:
