@@ -209,20 +209,25 @@ def _good_lines(rows):
 
 
 @settings(max_examples=30, deadline=None, suppress_health_check=FIXTURE_OK)
-@given(rows=st.lists(GOOD_ROW, min_size=1, max_size=10), data=st.data())
+@given(rows=st.lists(GOOD_ROW, min_size=1, max_size=12), data=st.data())
 def test_property_more_bad_cells_found_at_row_and_column(tmp_path_factory, rows, data):
-    assert len(VALID_ROWS[0].split(",")) == len(OBS_HEADER.split(","))
-    i = data.draw(st.integers(0, len(rows) - 1))
-    column, bad, rule, at = data.draw(st.sampled_from(MORE_BAD_CELLS))
+    """Several bad cells, each on its own row: every one is reported at its spreadsheet row
+    (data row i is row i + 2) and column with its rule, and no error appears anywhere else."""
+    k = data.draw(st.integers(1, min(len(rows), len(MORE_BAD_CELLS))))
+    where = data.draw(st.lists(st.integers(0, len(rows) - 1), min_size=k, max_size=k, unique=True))
+    cases = data.draw(st.lists(st.sampled_from(MORE_BAD_CELLS), min_size=k, max_size=k, unique=True))
     lines = _good_lines(rows)
     cols = OBS_HEADER.split(",")
-    cells = lines[i].split(",")
-    cells[cols.index(column)] = bad
-    lines[i] = ",".join(cells)
+    assert len(cols) == len(VALID_ROWS[0].split(","))
+    for i, (column, bad, _rule, _at) in zip(where, cases, strict=True):
+        cells = lines[i].split(",")
+        cells[cols.index(column)] = bad
+        lines[i] = ",".join(cells)
     res = check(write_dataset(tmp_path_factory.mktemp("more"), lines))
     errors = res.problems[res.problems["severity"] == "error"]
     assert not res.ok
-    assert set(errors["row"]) == {i + 2}, errors.to_string()
-    assert set(errors["column"]) == {at}, errors.to_string()
-    assert rule in set(errors["rule"]), errors.to_string()
+    assert set(zip(errors["row"], errors["column"], strict=True)) == {(i + 2, at) for i, (*_, at) in zip(where, cases, strict=True)}, errors.to_string()
+    for i, (_c, _b, rule, at) in zip(where, cases, strict=True):
+        at_cell = errors[(errors["row"] == i + 2) & (errors["column"] == at)]
+        assert rule in set(at_cell["rule"]), (rule, errors.to_string())
     assert all(errors["file"] == "observations.csv")
