@@ -33,7 +33,7 @@ _API = {
     "build_report": "comparo.report",
     "pgls_fit": "comparo.phylo",
     "pic": "comparo.phylo",
-    "signal": "comparo.phylo",
+    "tree_signal": "comparo.phylo",
     "read_tree": "comparo.phylo",
 }
 

@@ -68,7 +68,7 @@ __all__ = [
     "Contrasts",
     "pic",
     "SignalResult",
-    "signal",
+    "tree_signal",
     "blomberg_k",
     "random_newick",
 ]
@@ -1500,7 +1500,7 @@ def blomberg_k(ft: FlatTree, Y: np.ndarray) -> np.ndarray:
     return (num / den) / expected
 
 
-def signal(tree: Any, values: Mapping[str, float], permutations: int = 999, seed: int | None = 20240601, ci: float = 0.95) -> SignalResult:
+def tree_signal(tree: Any, values: Mapping[str, float], permutations: int = 999, seed: int | None = 20240601, ci: float = 0.95) -> SignalResult:
     """Pagel's lambda (ML, with LR tests of 0 and 1) and Blomberg's K with a
     seeded permutation test (tip values shuffled; permutations share passes of
     the linear-time engine, in blocks of up to 512 columns).

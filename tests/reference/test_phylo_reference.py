@@ -159,7 +159,7 @@ def test_four_tip_worked_example_contrasts_and_k():
     Yt = np.empty((4, 2))
     Yt[idx] = np.column_stack([Y4, X4])
     np.testing.assert_allclose(phylo.blomberg_k(ft, Yt), [0.783913, 0.957122], atol=1e-6)
-    s = phylo.signal(tree, dict(zip("ABCD", Y4, strict=True)), permutations=0)
+    s = phylo.tree_signal(tree, dict(zip("ABCD", Y4, strict=True)), permutations=0)
     assert s.K == pytest.approx(0.783913, abs=1e-6)
 
 
@@ -404,7 +404,7 @@ def test_blomberg_k_matches_dense_formula_and_permutations():
         r = v - a
         return (r @ r / (r @ Ci @ r)) / ((np.trace(C) - len(v) / (one @ Ci @ one)) / (len(v) - 1))
 
-    s = phylo.signal(nw, dict(zip(names, y, strict=True)), permutations=200, seed=5)
+    s = phylo.tree_signal(nw, dict(zip(names, y, strict=True)), permutations=200, seed=5)
     assert s.K == pytest.approx(kdense(y), rel=1e-10)
     ft = phylo.flat_tree(phylo.read_tree(nw), names)
     yt = np.empty_like(y)
