@@ -2,30 +2,47 @@
 
 Everything here is INVENTED: the taxa, clades, sources and numbers are a
 scenario of our own, drawn from stated scaling laws with noise by a seeded
-random generator, to show what comparo does. None of it is a measurement.
+random generator, to show what comparo does. None of it is a measurement, and
+every name is constructed (stems such as *Fict-*, *Synth-*, *Imagin-*: fictitious,
+synthetic, imagined) so that none should be mistaken for a real animal group.
 
-The scenario: 60 fictional taxa in 6 fictional clades, body masses from 1 mg
-to ~100 kg; observed cycle frequency falls with mass as M^-0.2 (clade offsets
-added); fiber radius grows as M^0.08. Each taxon's two frequency bounds are
-set relative to its true cycle frequency (at 25 °C):
+The scenario is built tree first, as evolution would have it:
 
-* kinetic bound (f + g)/(2 pi) = frequency x 10^N(0.3, 0.12): cross-bridges
-  cycle about twice as fast as the animal drives them; detach/attach 10^N(0.4, 0.1);
-* hydraulic bound 1/(2 pi tau_p) = frequency x 10^(0.3 + clade + N(0, 0.25)),
-  clade offsets N(0, 0.15); the transverse (drained) modulus M is the value
-  that gives this bound through tau_p = l^2 eta/(k M), with l the fiber radius,
-  k the Happel (1959) parallel-flow permeability of the hexagonal lattice
-  (thick 8 nm, thin 5 nm, 2 thin per thick) and eta water at 25 °C;
-  the longitudinal modulus is M x 10^N(0.2, 0.1).
+1. **The tree.** An ultrametric tree 100 time units deep: 6 clades (crown ages
+   35-55), each with 2-4 genera (crown ages 8-20), each genus with 2-7 species
+   (crown ages 1-6); 60 species in all. Clades and genera are monophyletic and
+   the taxa are named from their place on it (a genus's species share its name;
+   a clade's genera share its stem), so ``taxa.csv``'s ``clade`` column and the
+   tree agree.
+2. **Traits along the tree.** Body mass (log10 kg) evolves by Brownian motion
+   from the root (tip standard deviation about 2.2 decades). Every other trait
+   is a scaling law on the mass plus a residual that is partly Brownian along
+   the same tree (shared by relatives) and partly independent:
+   frequency = 30 Hz x M^-0.2 x 10^(e), e = BM (tip sd 0.10) + independent
+   (sd 0.05), so the phylogenetic signal of the residual is real and its
+   Pagel's lambda is 0.10² / (0.10² + 0.05²) = 0.8 (exactly, on an ultrametric
+   tree) before measurement noise; fiber radius = 25 µm x M^0.08 (BM residual);
+   fiber length = 8 mm x M^0.25; lattice spacing d10 and sarcomere length are
+   Brownian around 42 nm and 2.6 µm.
+3. **Frequency bounds.** Each taxon's two bounds are set relative to its true
+   cycle frequency (at 25 °C): kinetic bound (f + g)/(2 pi) = frequency x
+   10^(0.3 + BM), detach/attach 10^N(0.4, 0.1); hydraulic bound 1/(2 pi tau_p) =
+   frequency x 10^(0.3 + BM); the transverse (drained) modulus M is the value that
+   gives this bound through tau_p = l² eta/(k M), with l the fiber radius, k the
+   Happel (1959) parallel-flow permeability of the hexagonal lattice (thick 8 nm,
+   thin 5 nm, 2 thin per thick) and eta water at 25 °C; the longitudinal modulus
+   is M x 10^N(0.2, 0.1). So both regimes occur and most observed frequencies lie
+   below both bounds.
+4. **Gaps as in a real compilation.** Body mass and frequency are reported for
+   (almost) every taxon; lattice spacing, moduli and cross-bridge rates for fewer,
+   and unevenly across clades (some groups are little studied). Each source works
+   on one or two clades.
 
-So about half the taxa come out kinetic-limited and half hydraulic-limited,
-poroelastic/kinetic ratios span roughly 0.2-5, and most observed frequencies
-lie below both bounds. The true (generating) values per taxon are written to
-``truth.csv`` (:func:`truth_rows`); reported values scatter around them as
-their stated uncertainties say. Rates and frequencies are reported at
-measurement temperatures of 10-35 °C (true values at 25 °C scaled with
-Q10 = 2.5 for rates, 2.0 for frequencies); units are mixed as in real
-compilations.
+The true (generating) values per taxon are written to ``truth.csv``
+(:func:`truth_rows`); reported values scatter around them as their stated
+uncertainties say. Rates and frequencies are reported at measurement
+temperatures of 10-35 °C (true values at 25 °C scaled with Q10 = 2.5 for rates,
+2.0 for frequencies); units are mixed as in real compilations.
 
 Planted curation faults (comparo must find each one; see tests/test_demo.py):
   * a unit slip: one fiber radius typed in mm but labelled um     (obs_id DEMO-SLIP)
@@ -34,6 +51,7 @@ Planted curation faults (comparo must find each one; see tests/test_demo.py):
   * a proxy value borrowed from a related taxon                   (DEMO-PROXY)
   * several values read off figures (basis = digitized)
   * one rate without a measurement temperature                    (DEMO-NOTEMP)
+  * one taxon reported under an older synonym in one source
 
 Run ``python demo_tables/generate.py`` to recreate the files byte for byte
 (``--check`` compares instead of writing).
@@ -43,6 +61,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -51,17 +70,23 @@ SEED = 20261202
 HERE = Path(__file__).resolve().parent
 OUT = HERE / "synthetic_cyclers"
 
-CLADES = ["Alatoria", "Sonifera", "Tremulida", "Natatoria", "Stridulida", "Saltatoria"]
-GENERA = [
-    "Velocimyia", "Pulsifex", "Vibrathorax", "Ictopteron", "Crebrodes", "Tinnulus", "Celerina",
-    "Oscillaria", "Fremitor", "Rapidonta", "Quassator", "Sonoptera",
-]
+N_TAXA = 60
+# constructed clade names: a stem meaning "invented" plus a descriptive Latin-looking ending
+CLADES = ["Fictalata", "Synthonata", "Imaginostrida", "Exemplotrema", "Inventosalta", "Simulocanta"]
+# genus names: the clade's stem with one of these endings (so relatives look related)
+STEMS = dict(zip(CLADES, ["Fictal", "Synthon", "Imagin", "Exempl", "Invent", "Simulac"], strict=True))
+GENUS_ENDINGS = ["ella", "opsis", "ina", "odes"]
 EPITHETS = [
     "ficta", "inventa", "simulata", "fabricata", "imaginaria", "commenticia", "fictilis",
-    "synthetica", "exempli", "putativa",
+    "synthetica", "exempli", "putativa", "confecta", "demonstrans",
 ]
 Q10 = {"attach_rate": 2.5, "detach_rate": 2.5, "kinetic_time": 2.5, "frequency_observed": 2.0}
 T_REF = 25.0
+TREE_DEPTH = 100.0
+# the generating scaling laws (log10 units) and the residual structure of frequency
+FREQ_EXPONENT, FREQ_AT_1KG = -0.2, 30.0  # Hz
+FREQ_BM_SD, FREQ_WHITE_SD = 0.10, 0.05  # tip standard deviations of the residual (log10)
+LAMBDA_TRUE = FREQ_BM_SD**2 / (FREQ_BM_SD**2 + FREQ_WHITE_SD**2)  # 0.8, before measurement noise
 # the synthetic world's lattice and fluid (the defaults of schema/derived.toml)
 R_THICK_NM, R_THIN_NM, THIN_PER_THICK = 8.0, 5.0, 2
 ETA_25C = 0.890023e-3  # Pa s, water at 25 °C and 0.1 MPa (IAPWS R12-08, via iapws 1.5.5)
@@ -83,52 +108,168 @@ def g(x: float, digits: int = 4) -> str:
     return f"{float(x):.{digits}g}"
 
 
-def make(rng: np.random.Generator) -> dict[str, str]:
-    n_taxa = 60
-    # --- taxa: clade, name, tree label ------------------------------------------------
-    names, clades = [], []
-    used = set()
-    for i in range(n_taxa):
-        clade = CLADES[i % len(CLADES)]
-        while True:
-            name = f"{GENERA[int(rng.integers(len(GENERA)))]} {EPITHETS[int(rng.integers(len(EPITHETS)))]}"
-            if name not in used:
-                break
-        used.add(name)
-        names.append(name)
-        clades.append(clade)
-    order = np.argsort(np.array(clades), kind="stable")
-    names = [names[i] for i in order]
-    clades = [clades[i] for i in order]
+# ----------------------------------------------------------------------------- the tree
 
-    # --- true per-taxon values (at 25 °C) ----------------------------------------------
-    logm = rng.uniform(-6.0, 2.0, n_taxa)  # log10 kg: 1 mg to 100 kg
-    offset = {c: v for c, v in zip(CLADES, rng.normal(0.0, 0.12, len(CLADES)), strict=True)}
-    clade_off = np.array([offset[c] for c in clades])
-    m = 10**logm
-    freq = 30.0 * m**-0.2 * 10 ** (clade_off + rng.normal(0, 0.06, n_taxa))  # Hz
-    radius = 25.0 * m**0.08 * 10 ** rng.normal(0, 0.05, n_taxa)  # µm
-    length = 8.0 * m**0.25 * 10 ** rng.normal(0, 0.1, n_taxa)  # mm
-    d10 = rng.normal(42.0, 3.0, n_taxa)  # nm
-    sl = rng.normal(2.6, 0.25, n_taxa)  # µm
-    # frequency bounds relative to the true frequency (the generating parameters)
-    kin_margin = rng.normal(0.3, 0.12, n_taxa)  # log10(kinetic bound / frequency)
-    hyd_clade = {c: v for c, v in zip(CLADES, rng.normal(0.0, 0.15, len(CLADES)), strict=True)}
-    hyd_margin = 0.3 + np.array([hyd_clade[c] for c in clades]) + rng.normal(0, 0.25, n_taxa)
-    f_kin = freq * 10**kin_margin  # Hz
-    f_hyd = freq * 10**hyd_margin  # Hz
-    tau_x = 1.0 / (2.0 * np.pi * f_kin)  # s
-    tau_p = 1.0 / (2.0 * np.pi * f_hyd)  # s
+
+@dataclass
+class Node:
+    """A node of the generating tree; ``height`` is its age above the tips (time units)."""
+
+    height: float
+    children: list[Node] = field(default_factory=list)
+    label: str = ""
+
+
+def random_subtree(rng: np.random.Generator, parts: list[Node], crown: float) -> Node:
+    """Join ``parts`` (subtrees, each with its own height) into one binary subtree
+    whose root is at height ``crown``: random sequential splits, each child's root
+    placed at a random fraction of its parent's height (never below its own parts)."""
+    if len(parts) == 1:
+        return parts[0]
+    order = [parts[i] for i in rng.permutation(len(parts))]
+    k = int(rng.integers(1, len(order)))
+    kids = []
+    for side in (order[:k], order[k:]):
+        floor = max(p.height for p in side)
+        if len(side) == 1:
+            kids.append(side[0])
+        else:
+            h = floor + (crown - floor) * float(rng.uniform(0.3, 0.85))
+            kids.append(random_subtree(rng, side, h))
+    return Node(crown, kids)
+
+
+def build_tree(rng: np.random.Generator) -> tuple[Node, list[str], list[str], list[str]]:
+    """The tree and, in tip order, each species' name, genus and clade."""
+    # species per clade, then genera per clade and species per genus
+    per_clade = rng.multinomial(N_TAXA - 6 * 5, np.full(6, 1 / 6)) + 5  # at least 5 species a clade
+    clade_nodes, names, genera, clades = [], [], [], []
+    for c, clade in enumerate(CLADES):
+        n_c = int(per_clade[c])
+        n_gen = int(min(len(GENUS_ENDINGS), max(2, round(n_c / 3.5))))
+        sizes = rng.multinomial(n_c - 2 * n_gen, np.full(n_gen, 1 / n_gen)) + 2
+        stem = STEMS[clade]
+        genus_nodes = []
+        for j in range(n_gen):
+            genus = stem + GENUS_ENDINGS[j]
+            epithets = [EPITHETS[i] for i in rng.choice(len(EPITHETS), int(sizes[j]), replace=False)]
+            tips = [Node(0.0, label=f"{genus}_{e}") for e in epithets]
+            genus_nodes.append(random_subtree(rng, tips, float(rng.uniform(1.0, 6.0))))
+        clade_nodes.append(random_subtree(rng, genus_nodes, float(rng.uniform(35.0, 55.0))))
+    root = random_subtree(rng, clade_nodes, TREE_DEPTH)
+    for tip in tips_of(root):
+        genus, epithet = tip.label.split("_")
+        names.append(f"{genus} {epithet}")
+        genera.append(genus)
+        clades.append(next(c for c in CLADES if genus.startswith(STEMS[c])))
+    return root, names, genera, clades
+
+
+def tips_of(node: Node) -> list[Node]:
+    if not node.children:
+        return [node]
+    return [t for child in node.children for t in tips_of(child)]
+
+
+def newick(node: Node, parent_height: float | None = None) -> str:
+    edge = "" if parent_height is None else f":{parent_height - node.height:.4f}"
+    if not node.children:
+        return node.label + edge
+    return "(" + ",".join(newick(c, node.height) for c in node.children) + ")" + edge
+
+
+def brownian(rng: np.random.Generator, root: Node, tip_sd: np.ndarray) -> np.ndarray:
+    """Brownian motion along the tree for several traits at once: each trait's
+    increments have variance (tip_sd² / depth) x edge length, so its variance
+    at every tip is tip_sd² (the tree is ultrametric). Rows follow tips_of(root)."""
+    rate = np.asarray(tip_sd, dtype=float) ** 2 / TREE_DEPTH
+    out: list[np.ndarray] = []
+
+    def walk(node: Node, value: np.ndarray, parent_height: float) -> None:
+        value = value + rng.normal(0.0, 1.0, len(rate)) * np.sqrt(rate * (parent_height - node.height))
+        if not node.children:
+            out.append(value)
+        for child in node.children:
+            walk(child, value, node.height)
+
+    walk(root, np.zeros(len(rate)), root.height)
+    return np.array(out)
+
+
+# ----------------------------------------------------------------------------- traits
+
+
+@dataclass
+class World:
+    """The generating (true, 25 °C) values per taxon, in tip order; all invented."""
+
+    names: list[str]
+    genera: list[str]
+    clades: list[str]
+    logm: np.ndarray  # log10 kg
+    freq: np.ndarray  # Hz
+    radius: np.ndarray  # µm
+    length: np.ndarray  # mm
+    d10: np.ndarray  # nm
+    sl: np.ndarray  # µm
+    e_trans: np.ndarray  # kPa
+    e_long: np.ndarray  # kPa
+    f_att: np.ndarray  # 1/s
+    g_det: np.ndarray  # 1/s
+    vfrac: np.ndarray
+    tau_p: np.ndarray  # s
+    tau_x: np.ndarray  # s
+    f_kin: np.ndarray  # Hz
+    f_hyd: np.ndarray  # Hz
+
+
+def draw_world(rng: np.random.Generator, root: Node, names, genera, clades) -> World:
+    n = len(names)
+    # Brownian parts, one column per trait: log mass, frequency residual, log radius,
+    # log length, d10, sarcomere length, kinetic margin, hydraulic margin
+    bm = brownian(rng, root, [2.2, FREQ_BM_SD, 0.05, 0.08, 3.0, 0.25, 0.12, 0.28])
+    logm = -2.0 + bm[:, 0]
+    freq = FREQ_AT_1KG * 10 ** (FREQ_EXPONENT * logm + bm[:, 1] + rng.normal(0.0, FREQ_WHITE_SD, n))
+    radius = 25.0 * 10 ** (0.08 * logm + bm[:, 2])
+    length = 8.0 * 10 ** (0.25 * logm + bm[:, 3] + rng.normal(0.0, 0.05, n))
+    d10 = 42.0 + bm[:, 4]
+    sl = 2.6 + bm[:, 5]
+    f_kin = freq * 10 ** (0.3 + bm[:, 6])
+    f_hyd = freq * 10 ** (0.3 + bm[:, 7])
+    tau_x = 1.0 / (2.0 * np.pi * f_kin)
+    tau_p = 1.0 / (2.0 * np.pi * f_hyd)
     k_m2 = lattice_permeability_nm2(d10) * 1e-18
     e_trans = (radius * 1e-6) ** 2 * ETA_25C / (k_m2 * tau_p) / 1e3  # kPa: M = l² eta/(k tau_p)
-    e_long = e_trans * 10 ** rng.normal(0.2, 0.1, n_taxa)  # kPa
-    g_over_f = 10 ** rng.normal(0.4, 0.1, n_taxa)
-    f_att = 1.0 / (tau_x * (1.0 + g_over_f))  # 1/s
-    g_det = f_att * g_over_f  # 1/s
-    vfrac = np.clip(rng.normal(0.7, 0.08, n_taxa), 0.35, 0.92)
-    truth = truth_rows(names, clades, m, freq, radius, d10, e_trans, f_att, g_det, tau_p, tau_x, f_kin, f_hyd)
+    e_long = e_trans * 10 ** rng.normal(0.2, 0.1, n)
+    g_over_f = 10 ** rng.normal(0.4, 0.1, n)
+    f_att = 1.0 / (tau_x * (1.0 + g_over_f))
+    vfrac = np.clip(rng.normal(0.7, 0.08, n), 0.35, 0.92)
+    return World(names, genera, clades, logm, freq, radius, length, d10, sl, e_trans, e_long, f_att,
+                 f_att * g_over_f, vfrac, tau_p, tau_x, f_kin, f_hyd)
 
-    # --- sources ------------------------------------------------------------------------
+
+# how often a quantity family is reported, per clade (some groups are little studied)
+COVERAGE = {
+    #            Fictalata Synthonata Imaginostrida Exemplotrema Inventosalta Simulocanta
+    "length":   (0.9, 0.6, 0.8, 0.5, 0.7, 0.6),
+    "lattice":  (0.95, 0.9, 0.85, 0.6, 0.9, 0.7),
+    "mech":     (0.9, 0.8, 0.7, 0.4, 0.85, 0.5),
+    "kin":      (0.95, 0.85, 0.6, 0.5, 0.9, 0.4),
+    "vfrac":    (0.5, 0.3, 0.2, 0.1, 0.4, 0.2),
+}
+
+
+# ----------------------------------------------------------------------------- the compilation
+
+
+def make(rng: np.random.Generator) -> dict[str, str]:
+    root, names, genera, clades = build_tree(rng)
+    w = draw_world(rng, root, names, genera, clades)
+    n_taxa = len(names)
+    ci = [CLADES.index(c) for c in clades]
+    truth = truth_rows(w)
+
+    # --- sources: each works on one quantity family and one or two clades -----------------
     n_src = 25
     src_ids = [f"SYN{i + 1:02d}" for i in range(n_src)]
     years = rng.integers(1975, 2025, n_src)
@@ -138,11 +279,12 @@ def make(rng: np.random.Generator) -> dict[str, str]:
     for i, sid in enumerate(src_ids):
         topic = topics[i % len(topics)]
         sources.append(f"{sid},\"Synthetic source {i + 1:02d} ({years[i]}). Invented {topic} study for the comparo demo; synthetic, not a real publication.\",{years[i]},10.99999/comparo.demo.{i + 1:02d},,synthetic")
-    # which sources supply which quantity family
     fam = {
         "mass": src_ids[20:25], "morph": src_ids[0:5], "lattice": src_ids[5:9],
         "mech": src_ids[9:13], "kin": src_ids[13:17], "freq": src_ids[17:21],
     }
+    # source k of a family studies clades k*6/len .. (+1): relatives are measured together
+    studies = {sid: {(k * 6 // len(ids) + j) % 6 for j in (0, 1)} for ids in fam.values() for k, sid in enumerate(ids)}
 
     rows: list[dict[str, str]] = []
 
@@ -150,8 +292,9 @@ def make(rng: np.random.Generator) -> dict[str, str]:
         rows.append({"taxon": taxon, "quantity": quantity, "value": value, "unit": unit, "source_id": source,
                      "locator": locator, "basis": basis, **extra})
 
-    def pick(family):
-        return fam[family][int(rng.integers(len(fam[family])))]
+    def pick(family, i):
+        mine = [s for s in fam[family] if ci[i] in studies[s]] or fam[family]
+        return mine[int(rng.integers(len(mine)))]
 
     def locator(digitized=False):
         if digitized:
@@ -161,50 +304,64 @@ def make(rng: np.random.Generator) -> dict[str, str]:
     def temp():
         return float(rng.choice([10.0, 15.0, 20.0, 22.0, 25.0, 30.0, 35.0]))
 
+    def has(family, i):
+        return rng.random() < COVERAGE[family][ci[i]]
+
+    # a few taxa lack a frequency, one lacks a body mass, a few a fiber radius (never the fault taxa)
+    spare = [i for i in range(n_taxa) if i not in (5, 7, 12, 20, 30, 31, 40)]
+    no_freq = set(rng.choice(spare, 2, replace=False).tolist())
+    no_mass = {int(rng.choice([i for i in spare if i not in no_freq]))}
+    no_radius = set(rng.choice([i for i in spare if i not in no_freq | no_mass], 3, replace=False).tolist())
+
     for i, taxon in enumerate(names):
-        # body mass: mixed units
-        mu = ["kg", "g", "mg"][0 if logm[i] > 0 else (1 if logm[i] > -3 else 2)]
-        scale = {"kg": 1.0, "g": 1e3, "mg": 1e6}[mu]
-        add(taxon, "body_mass", g(m[i] * scale), mu, pick("mass"), locator(), n=str(int(rng.integers(3, 30))))
+        if i not in no_mass:
+            mu = ["kg", "g", "mg"][0 if w.logm[i] > 0 else (1 if w.logm[i] > -3 else 2)]
+            scale = {"kg": 1.0, "g": 1e3, "mg": 1e6}[mu]
+            add(taxon, "body_mass", g(10 ** w.logm[i] * scale), mu, pick("mass", i), locator(), n=str(int(rng.integers(3, 30))))
         # fiber radius, or a diameter (converted by comparo and recorded as computed)
-        r = radius[i] * 10 ** rng.normal(0, 0.02)
-        if rng.random() < 0.25:
-            add(taxon, "fiber_diameter", g(2 * r, 3), rng.choice(["um", "µm", "micron"]), pick("morph"), locator(),
+        r = w.radius[i] * 10 ** rng.normal(0, 0.02)
+        if i in no_radius:
+            pass
+        elif rng.random() < 0.25:
+            add(taxon, "fiber_diameter", g(2 * r, 3), rng.choice(["um", "µm", "micron"]), pick("morph", i), locator(),
                 uncertainty=g(0.2 * 2 * r, 2), uncertainty_kind="sd", n=str(int(rng.integers(5, 40))))
         else:
-            add(taxon, "fiber_radius", g(r, 3), str(rng.choice(["um", "µm"])), pick("morph"), locator(),
+            add(taxon, "fiber_radius", g(r, 3), str(rng.choice(["um", "µm"])), pick("morph", i), locator(),
                 uncertainty=g(0.05 * r, 2), uncertainty_kind="se", n=str(int(rng.integers(5, 40))))
-        if rng.random() < 0.7:
-            add(taxon, "fiber_length", g(length[i], 3), "mm", pick("morph"), locator())
-        if rng.random() < 0.8:
+        if has("length", i):
+            add(taxon, "fiber_length", g(w.length[i], 3), "mm", pick("morph", i), locator())
+        if has("lattice", i) or i == 31:
             dig = rng.random() < 0.2
-            add(taxon, "lattice_spacing_d10", g(d10[i], 3), "nm", pick("lattice"), locator(dig),
-                basis="digitized" if dig else "reported", uncertainty=g(abs(rng.normal(1.0, 0.3)), 2), uncertainty_kind="sd", n=str(int(rng.integers(3, 12))),
-                preparation="intact_fiber")
-            add(taxon, "sarcomere_length", g(sl[i], 3), "um", pick("lattice"), locator())
-        if rng.random() < 0.7:
-            src = pick("mech")
-            add(taxon, "elastic_modulus", g(e_long[i] * 1e3, 3), "Pa", src, locator(), preparation="intact_fiber")
+            src = pick("lattice", i)
+            add(taxon, "lattice_spacing_d10", g(w.d10[i], 3), "nm", src, locator(dig),
+                basis="digitized" if dig else "reported", uncertainty=g(abs(rng.normal(1.0, 0.3)), 2), uncertainty_kind="sd",
+                n=str(int(rng.integers(3, 12))), preparation="intact_fiber")
+            add(taxon, "sarcomere_length", g(w.sl[i], 3), "um", src, locator())
+        if has("mech", i):
+            src = pick("mech", i)
+            add(taxon, "elastic_modulus", g(w.e_long[i] * 1e3, 3), "Pa", src, locator(), preparation="intact_fiber")
             n_m = int(rng.integers(4, 15))
-            mt = e_trans[i] * (1.0 + 0.15 / np.sqrt(n_m) * rng.normal())  # sd 15%, n_m fibers
+            mt = w.e_trans[i] * (1.0 + 0.15 / np.sqrt(n_m) * rng.normal())  # sd 15%, n_m fibers
             add(taxon, "transverse_modulus", g(mt / 1e3, 3), "MPa", src, locator(),
                 uncertainty=g(0.15 * mt / 1e3, 2), uncertainty_kind="sd", n=str(n_m), preparation="intact_fiber")
-        if rng.random() < 0.3:
-            add(taxon, "myofibril_volume_fraction", g(vfrac[i], 2), "fraction", pick("morph"), locator())
-        if rng.random() < 0.75:
+        if has("vfrac", i):
+            add(taxon, "myofibril_volume_fraction", g(w.vfrac[i], 2), "fraction", pick("morph", i), locator())
+        if has("kin", i):
             t = temp()
             dig = rng.random() < 0.15
-            src = pick("kin")
-            for q, v in (("attach_rate", f_att[i]), ("detach_rate", g_det[i])):
+            src = pick("kin", i)
+            for q, v in (("attach_rate", w.f_att[i]), ("detach_rate", w.g_det[i])):
                 at_t = v * Q10[q] ** ((t - T_REF) / 10.0) * (1.0 + 0.1 * rng.normal())  # se 10%
                 add(taxon, q, g(at_t, 3), str(rng.choice(["1/s", "s^-1"])), src, locator(dig),
                     basis="digitized" if dig else "reported", temperature_c=g(t, 3), preparation="skinned_fiber",
                     uncertainty=g(0.1 * at_t, 2), uncertainty_kind="se", n=str(int(rng.integers(4, 12))))
+        if i in no_freq:
+            continue
         t = temp()
         n_f = int(rng.integers(3, 25))
-        fo = freq[i] * Q10["frequency_observed"] ** ((t - T_REF) / 10.0) * (1.0 + 0.08 / np.sqrt(n_f) * rng.normal())
+        fo = w.freq[i] * Q10["frequency_observed"] ** ((t - T_REF) / 10.0) * (1.0 + 0.08 / np.sqrt(n_f) * rng.normal())
         dig = rng.random() < 0.15
-        add(taxon, "frequency_observed", g(fo, 3), "Hz", pick("freq"), locator(dig), basis="digitized" if dig else "reported",
+        add(taxon, "frequency_observed", g(fo, 3), "Hz", pick("freq", i), locator(dig), basis="digitized" if dig else "reported",
             temperature_c=g(t, 3), preparation="in_vivo", uncertainty=g(0.08 * fo, 2), uncertainty_kind="sd", n=str(n_f))
 
     # --- planted faults -------------------------------------------------------------------
@@ -214,7 +371,7 @@ def make(rng: np.random.Generator) -> dict[str, str]:
     slip_taxon = names[7]
     k = rows_by.get((slip_taxon, "fiber_radius"))
     if k is None:
-        add(slip_taxon, "fiber_radius", g(radius[7], 3), "um", pick("morph"), "Table 2")
+        add(slip_taxon, "fiber_radius", g(w.radius[7], 3), "um", pick("morph", 7), "Table 2")
         k = len(rows) - 1
     # a radius typed in mm (e.g. 0.0231) under the unit um
     rows[k].update(value=g(float(rows[k]["value"]) / 1e3, 3), uncertainty="", uncertainty_kind="", _id="DEMO-SLIP")
@@ -229,15 +386,18 @@ def make(rng: np.random.Generator) -> dict[str, str]:
     dup["_id"] = "DEMO-DUP"
     dup["notes"] = "typed in twice"
     rows.append(dup)
-    proxy_taxon, donor = names[30], names[31]
-    donor_row = rows[rows_by[(donor, "frequency_observed")]]
-    add(proxy_taxon, "lattice_spacing_d10", g(d10[31], 3), "nm", pick("lattice"), "Table 1", basis="proxy", proxy_taxon=donor,
-        _id="DEMO-PROXY", notes="lattice spacing of a related taxon")
-    add(names[40], "attach_rate", g(f_att[40], 3), "1/s", pick("kin"), "p. 4", _id="DEMO-NOTEMP", notes="temperature not stated")
+    # a lattice spacing borrowed from a species of the same genus (the nearest relative on the tree)
+    proxy_i = next(i for i in range(30, n_taxa) if (names[i], "lattice_spacing_d10") not in rows_by
+                   and any(genera[j] == genera[i] and (names[j], "lattice_spacing_d10") in rows_by for j in range(n_taxa)))
+    donor_i = next(j for j in sorted(range(n_taxa), key=lambda j: abs(j - proxy_i))
+                   if genera[j] == genera[proxy_i] and (names[j], "lattice_spacing_d10") in rows_by)
+    donor_row = rows[rows_by[(names[donor_i], "lattice_spacing_d10")]]
+    add(names[proxy_i], "lattice_spacing_d10", donor_row["value"], "nm", donor_row["source_id"], donor_row["locator"],
+        basis="proxy", proxy_taxon=names[donor_i], _id="DEMO-PROXY", notes="lattice spacing of a species of the same genus")
+    add(names[40], "attach_rate", g(w.f_att[40], 3), "1/s", pick("kin", 40), "p. 4", _id="DEMO-NOTEMP", notes="temperature not stated")
     # a curator-computed kinetic time from the attach and detach rows of one taxon
     kt = next(t for t in names if (t, "attach_rate") in rows_by and (t, "detach_rate") in rows_by)
     a_row, d_row = rows[rows_by[(kt, "attach_rate")]], rows[rows_by[(kt, "detach_rate")]]
-    del donor_row
 
     # --- ids, synonyms --------------------------------------------------------------------
     columns = ["obs_id", "taxon", "quantity", "value", "unit", "uncertainty", "uncertainty_kind", "n", "source_id",
@@ -272,11 +432,11 @@ def make(rng: np.random.Generator) -> dict[str, str]:
     obs_lines = [",".join(columns)] + [",".join(cell(r.get(c, "")) for c in columns) for r in rows]
 
     # --- taxa table and tree --------------------------------------------------------------
-    taxa = ["taxon,accepted_name,tree_label,clade"]
-    for name, clade in zip(names, clades, strict=True):
-        taxa.append(f"{name},,{name.replace(' ', '_')},{clade}")
-    taxa.append(f"{old_name},{syn_target},,{clades[5]}")
-    newick = random_tree(rng, names, clades)
+    taxa = ["taxon,accepted_name,tree_label,clade,genus"]
+    for name, genus, clade in zip(names, genera, clades, strict=True):
+        taxa.append(f"{name},,{name.replace(' ', '_')},{clade},{genus}")
+    taxa.append(f"{old_name},{syn_target},,{clades[5]},{genera[5]}")
+    tree_text = newick(root) + ";"
 
     settings = f"""# Settings of the synthetic demo compilation (all invented data; see demo_tables/generate.py)
 title = "Synthetic cyclers: an invented compilation for the comparo demo"
@@ -326,64 +486,28 @@ compilation (comparo does not read it); it lets a user check how well
         "observations.csv": "\n".join(obs_lines) + "\n",
         "sources.csv": "\n".join(sources) + "\n",
         "taxa.csv": "\n".join(taxa) + "\n",
-        "tree.nwk": newick + "\n",
+        "tree.nwk": tree_text + "\n",
         "comparo.toml": settings,
         "README.md": readme,
         "truth.csv": truth,
     }
 
 
-def truth_rows(names, clades, m, freq, radius, d10, e_trans, f_att, g_det, tau_p, tau_x, f_kin, f_hyd) -> str:
+
+
+def truth_rows(w: World) -> str:
     """The generating (true, 25 °C, noise-free) values per taxon as CSV text; all invented."""
-    cols = ["taxon", "clade", "body_mass_kg", "frequency_hz", "fiber_radius_um", "lattice_spacing_d10_nm",
+    cols = ["taxon", "clade", "genus", "body_mass_kg", "frequency_hz", "fiber_radius_um", "lattice_spacing_d10_nm",
             "transverse_modulus_kpa", "attach_rate_per_s", "detach_rate_per_s", "poroelastic_time_s", "kinetic_time_s",
             "poro_kinetic_ratio", "frequency_kinetic_bound_hz", "frequency_hydraulic_bound_hz", "frequency_ratio", "regime"]
     lines = [",".join(cols)]
-    for i, name in enumerate(names):
-        f_min = min(f_kin[i], f_hyd[i])
-        vals = [m[i], freq[i], radius[i], d10[i], e_trans[i], f_att[i], g_det[i], tau_p[i], tau_x[i], tau_p[i] / tau_x[i],
-                f_kin[i], f_hyd[i], freq[i] / f_min]
-        regime = "kinetic" if f_kin[i] <= f_hyd[i] else "hydraulic"
-        lines.append(",".join([name, clades[i], *(f"{float(v):.8g}" for v in vals), regime]))
+    for i, name in enumerate(w.names):
+        f_min = min(w.f_kin[i], w.f_hyd[i])
+        vals = [10 ** w.logm[i], w.freq[i], w.radius[i], w.d10[i], w.e_trans[i], w.f_att[i], w.g_det[i], w.tau_p[i],
+                w.tau_x[i], w.tau_p[i] / w.tau_x[i], w.f_kin[i], w.f_hyd[i], w.freq[i] / f_min]
+        regime = "kinetic" if w.f_kin[i] <= w.f_hyd[i] else "hydraulic"
+        lines.append(",".join([name, w.clades[i], w.genera[i], *(f"{float(v):.8g}" for v in vals), regime]))
     return "\n".join(lines) + "\n"
-
-
-def random_tree(rng: np.random.Generator, names: list[str], clades: list[str]) -> str:
-    """An ultrametric random tree (depth 100 time units): clades are monophyletic,
-    topologies inside and among clades from random sequential splits."""
-
-    def build(labels: list[str], depth: float) -> tuple[str, float]:
-        # returns newick of the subtree and the height of its root above the tips
-        if len(labels) == 1:
-            return labels[0], 0.0
-        k = int(rng.integers(1, len(labels)))
-        perm = [labels[i] for i in rng.permutation(len(labels))]
-        left, right = perm[:k], perm[k:]
-        h = depth
-        child_depth = h * float(rng.uniform(0.35, 0.85))
-        parts = []
-        for side in (left, right):
-            sub, sh = build(side, child_depth if len(side) > 1 else 0.0)
-            parts.append(f"{sub}:{h - sh:.4f}")
-        return f"({parts[0]},{parts[1]})", h
-
-    groups = {}
-    for n, c in zip(names, clades, strict=True):
-        groups.setdefault(c, []).append(n.replace(" ", "_"))
-    clade_trees = []
-    for c in CLADES:
-        sub, h = build(groups[c], 40.0 * float(rng.uniform(0.6, 1.0)))
-        clade_trees.append((sub, h))
-    # join clades at random with a root at height 100
-    nodes = list(clade_trees)
-    height = 60.0
-    while len(nodes) > 1:
-        i, j = sorted(rng.choice(len(nodes), 2, replace=False))
-        (a, ha), (b, hb) = nodes[i], nodes[j]
-        height = max(height, ha, hb) + float(rng.uniform(2.0, 8.0))
-        new = (f"({a}:{height - ha:.4f},{b}:{height - hb:.4f})", height)
-        nodes = [n for k, n in enumerate(nodes) if k not in (i, j)] + [new]
-    return nodes[0][0] + ";"
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -100,7 +100,10 @@ def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
     got = json.loads(proc.stdout)
     assert got["slope"] == pytest.approx(direct["slope"], rel=1e-9)
     assert got["lambda"] == pytest.approx(direct["lambda"], rel=1e-6)
-    assert got["n"] == 60 and got["excluded"] == []
+    # the demo has gaps: taxa lacking either value are listed as excluded, none silently dropped
+    both = tab[["body_mass", "frequency_observed"]].notna().all(axis=1)
+    assert got["n"] == int(both.sum()) and len(got["excluded"]) == int((~both).sum()) > 0
+    assert {e["label"] for e in got["excluded"]} == set(tab.loc[~both, "taxon"])
     assert "lambda_tests" in got["phylo"]
     with_me = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--tip-se", "--format", "json")
     assert with_me.returncode == 0, with_me.stderr
