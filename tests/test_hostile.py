@@ -64,6 +64,11 @@ def _empty_sheet(ws):
     pass
 
 
+def _taxa(folder, text: str, rows=None):
+    write_dataset(folder, rows)
+    (folder / "taxa.csv").write_text(text, encoding="utf-8")
+
+
 def _ladder(n: int) -> str:
     s = "t0:1"
     for i in range(1, n):
@@ -116,6 +121,9 @@ CASES = {
     "formula-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "=HYPERLINK(1)")),
     "quote-unbalanced": lambda f: write_dataset(f, _rows_with(0, "Table 1", '"Table 1')),
     "toml-binary": lambda f: (write_dataset(f), (f / "comparo.toml").write_bytes(b"\xff\xfe\x00garbage")),
+    "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
+    "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
+    "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
 }
 
 COMMANDS = ["check", "table", "audit", "derive", "fit", "export"]
@@ -155,7 +163,7 @@ def test_hostile_input_every_command(tmp_path, capsys, case):
         captured = capsys.readouterr()
         _assert_clean(code, captured.out + captured.err, case)
         if code == 2 and cmd == "check":
-            assert "observations" in captured.out + captured.err or "sources" in captured.out + captured.err or ".nwk" in captured.out + captured.err or ".toml" in captured.out + captured.err or ".bib" in captured.out + captured.err
+            assert any(name in captured.out + captured.err for name in ("observations", "sources", ".nwk", ".toml", ".bib", "taxa.csv"))
         assert tree_hash(folder) == before, f"{cmd} changed the input"
 
 
@@ -266,3 +274,45 @@ def test_check_subprocess_bounded_time_on_ladder_tree(tmp_path):
         pytest.fail("check hung on a 50,000-deep tree")
     _assert_clean(proc.returncode, proc.stdout + proc.stderr, "ladder")
     assert tree_hash(folder) == before
+
+
+# --------------------------------------------------------------------------- input reading and validation
+
+def _problems(folder) -> pd.DataFrame:
+    from comparo.curate import review
+
+    return review(folder).problems
+
+
+def test_synonym_chain_resolves_to_its_end(tmp_path):
+    """A -> B and B -> C in taxa.csv: A's values belong to C (not to B), with a warning
+    naming both rows; the per-taxon table has one row, C."""
+    from comparo.curate import per_taxon
+    from comparo.dataset import load
+
+    folder = tmp_path / "chain"
+    CASES["taxa-synonym-chain"](folder)
+    before = tree_hash(folder)
+    probs = _problems(folder)
+    chain = probs[probs["rule"] == "synonym-chain"]
+    assert len(chain) == 1 and chain["severity"].iat[0] == "warning"
+    assert "rows 2, 3" in chain["message"].iat[0] and "Apis ligustica" in chain["message"].iat[0]
+    tab = per_taxon(load(folder))
+    assert sorted(tab["taxon"]) == ["Apis ligustica", "Bombus terrestris"]
+    assert tab.set_index("taxon").at["Apis ligustica", "body_mass"] == pytest.approx(1e-4)  # 100 mg
+    assert tree_hash(folder) == before
+
+
+@pytest.mark.parametrize("case,rows", [("taxa-synonym-cycle", "rows 2, 3"), ("taxa-synonym-cycle-3", "rows 2, 3, 4")])
+def test_synonym_cycle_is_an_error_naming_its_rows(tmp_path, capsys, case, rows):
+    """A -> B, B -> A used to swap the two species' data silently; now check fails naming
+    every row of the cycle, and table refuses to run."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    cyc = probs[probs["rule"] == "synonym-cycle"]
+    assert len(cyc) == 1 and cyc["severity"].iat[0] == "error" and cyc["file"].iat[0] == "taxa.csv"
+    assert rows in cyc["message"].iat[0]
+    assert main(["check", str(folder)]) == 2
+    assert main(["table", str(folder)]) == 2
+    assert "synonym-cycle" in capsys.readouterr().err
