@@ -15,6 +15,7 @@ import io as _io
 import logging
 import re
 import tomllib
+import unicodedata
 from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
@@ -45,6 +46,8 @@ class RawTable:
     file: str
     frame: Any  # pandas.DataFrame of str
     rows: list[int]
+    # cells not typed in Unicode NFC: NFC text -> {text as typed: [(column, row), ...]}
+    respelled: dict[str, dict[str, list[tuple[str, int]]]] = field(default_factory=dict)
 
     def __len__(self) -> int:
         return len(self.frame)
@@ -98,6 +101,33 @@ def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
         return text, probs
 
 
+def nfc(text: str) -> str:
+    """*text* in Unicode normalisation form C (composed: 'é' as one code point).
+
+    Every cell, column name, key and id is read in this form, so a name typed
+    with a decomposed accent (e + combining acute, as some systems write it) is
+    the same name as the composed one.
+    """
+    return text if text.isascii() else unicodedata.normalize("NFC", text)
+
+
+def _nfc_cells(frame, rows: list[int]) -> dict[str, dict[str, list[tuple[str, int]]]]:
+    """Normalise every cell of *frame* (strings) to NFC in place; return what changed."""
+    import pandas as pd
+
+    changed: dict[str, dict[str, list[tuple[str, int]]]] = {}
+    for col in frame.columns:
+        s = frame[col]
+        fix = {u: nfc(u) for u in pd.unique(s) if isinstance(u, str) and not u.isascii()}
+        fix = {k: v for k, v in fix.items() if k != v}
+        if not fix:
+            continue
+        for i in map(int, (s.isin(list(fix))).to_numpy().nonzero()[0]):
+            changed.setdefault(fix[s.iat[i]], {}).setdefault(s.iat[i], []).append((str(col), rows[i]))
+        frame[col] = s.map(lambda v, fix=fix: fix.get(v, v))
+    return changed
+
+
 def _delimiter(header: str, path: Path) -> str:
     if path.suffix.lower() in (".tsv", ".tab"):
         return "\t"
@@ -133,7 +163,7 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     if delim == "\t" and path.suffix.lower() == ".csv" and "," not in header:
         delim = "\t"
     hdr = next(csv.reader([header], delimiter=delim))
-    names = [h.strip().lstrip("\ufeff") for h in hdr]
+    names = [nfc(h.strip().lstrip("\ufeff")) for h in hdr]
     seen: dict[str, int] = {}
     for i, h in enumerate(names):
         if not h:
@@ -171,6 +201,7 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem]) -> tuple[Ra
     keep = (frame != "").any(axis=1).to_numpy()
     frame = frame.loc[keep].reset_index(drop=True)
     rows = [r for r, k in zip(rows, keep, strict=True) if k]
+    respelled = _nfc_cells(frame, rows)
     long = frame.apply(lambda s: s.str.len() > MAX_CELL)
     if long.to_numpy().any():
         for ci, col in enumerate(frame.columns):
@@ -179,7 +210,7 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem]) -> tuple[Ra
                 frame.at[ri, col] = frame.at[ri, col][:MAX_CELL]
     known = _known_columns()
     frame.columns = [c.lower() if c.lower() in known else c for c in (str(c).strip() for c in frame.columns)]
-    return RawTable(file, frame, rows), probs
+    return RawTable(file, frame, rows, respelled), probs
 
 
 @lru_cache(maxsize=1)
@@ -214,7 +245,7 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     frame = frame.map(_excel_cell)
     nonblank = (frame != "").any(axis=1).to_numpy()
     first = int(nonblank.argmax())
-    header = [str(h).strip() for h in frame.iloc[first].tolist()]
+    header = [nfc(str(h).strip()) for h in frame.iloc[first].tolist()]
     probs: list[Problem] = []
     seen: dict[str, int] = {}
     for i, h in enumerate(header):
@@ -290,8 +321,8 @@ def read_bibtex(path: Path) -> tuple[RawTable | None, list[Problem]]:
         rows.append((entry.start_line or 0) + 1)
     if not recs:
         return None, probs or [_err(file, "empty-file", "BibTeX file holds no entries")]
-    frame = pd.DataFrame(recs, columns=["source_id", "citation", "year", "doi", "url", "notes"])
-    return RawTable(file, frame.astype(str), rows), probs
+    frame = pd.DataFrame(recs, columns=["source_id", "citation", "year", "doi", "url", "notes"]).astype(str)
+    return RawTable(file, frame, rows, _nfc_cells(frame, rows)), probs
 
 
 def _strip_braces(v: Any) -> str:
@@ -308,6 +339,9 @@ def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
         return None, None, probs
     if not text.strip():
         return None, None, probs + [_err(file, "empty-file", "tree file is empty")]
+    if nfc(text) != text:
+        text = nfc(text)
+        probs.append(_err(file, "unicode-unified", "some tip labels are typed with decomposed accents; read in Unicode NFC (composed) so that they match the same names typed composed", "nothing to do unless two labels differed only in this way", severity="warning"))
     if text.count("(") != text.count(")"):
         return None, text, probs + [_err(file, "newick-syntax", f"unbalanced parentheses ({text.count('(')} '(' vs {text.count(')')} ')')", "check the Newick string")]
     import dendropy
@@ -333,6 +367,7 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
         return {}, probs + [_err(file, "toml-syntax", f"cannot parse settings: {exc}", "see docs/data-format.md for the settings format", row=int(m.group(1)) if m else None)]
+    settings = _nfc_value(settings)
     for key in settings:
         if key not in SETTINGS_KEYS:
             probs.append(_err(file, "settings-key", f"unknown setting {key!r} (ignored)", f"known settings: {', '.join(sorted(SETTINGS_KEYS))}", column=key, severity="warning"))
@@ -342,7 +377,45 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
     return settings, probs
 
 
+def _nfc_value(v: Any) -> Any:
+    """Keys and strings of parsed settings in NFC (numbers and booleans as they are)."""
+    if isinstance(v, dict):
+        return {nfc(k): _nfc_value(x) for k, x in v.items()}
+    if isinstance(v, list):
+        return [_nfc_value(x) for x in v]
+    return nfc(v) if isinstance(v, str) else v
+
+
 # --------------------------------------------------------------------------- folder
+
+def unified_spellings(tables: list[RawTable]) -> list[Problem]:
+    """Warnings for names typed in two Unicode forms (composed and decomposed) that
+    reading made one: each names the places of every spelling."""
+    wanted: set[str] = set()
+    for t in tables:
+        wanted.update(t.respelled)
+    if not wanted:
+        return []
+    where: dict[str, dict[str, list[str]]] = {}
+    for t in tables:
+        moved = {(c, r) for sp in t.respelled.values() for places in sp.values() for c, r in places}
+        for col in t.frame.columns:
+            s = t.frame[col]
+            for i in map(int, s.isin(list(wanted)).to_numpy().nonzero()[0]):
+                v, row = s.iat[i], t.rows[i]
+                typed = "composed (NFC)" if (str(col), row) not in moved else "decomposed"
+                where.setdefault(v, {}).setdefault(typed, []).append(f"{t.file} row {row}")
+    probs = []
+    for v, forms in where.items():
+        typed_as = {sp for t in tables for sp in t.respelled.get(v, {})}
+        if len(forms) < 2 and len(typed_as) < 2:  # one spelling only: normalised, nothing unified
+            continue
+        first = next(t for t in tables if v in t.respelled)
+        col, row = next(iter(next(iter(first.respelled[v].values()))))
+        places = "; ".join(f"{form}: {', '.join(p[:3])}{' ...' if len(p) > 3 else ''}" for form, p in forms.items())
+        probs.append(_err(first.file, "unicode-unified", f"{v!r} is typed in two Unicode forms ({places}); read as one name", "nothing to do if they are the same name; retype one if they were meant to differ", row=row, column=col, value=v, severity="warning"))
+    return probs
+
 
 def _first(folder: Path, names: tuple[str, ...]) -> Path | None:
     found = [folder / n for n in names if (folder / n).is_file()]
@@ -392,6 +465,7 @@ def read_folder(folder: str | Path) -> RawDataset:
         raw.files["settings"] = settings
         raw.settings, p = read_settings(settings)
         raw.problems += p
+    raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa) if t is not None])
     return raw
 
 

@@ -9,6 +9,7 @@ import importlib.util
 import json
 import subprocess
 import time
+import unicodedata
 
 import pandas as pd
 import pytest
@@ -62,6 +63,10 @@ def _formulas(ws):
 
 def _empty_sheet(ws):
     pass
+
+
+_NFC = unicodedata.normalize("NFC", "Apis mellifêra")
+_NFD = unicodedata.normalize("NFD", "Apis mellifêra")
 
 
 def _taxa(folder, text: str, rows=None):
@@ -121,6 +126,8 @@ CASES = {
     "formula-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "=HYPERLINK(1)")),
     "quote-unbalanced": lambda f: write_dataset(f, _rows_with(0, "Table 1", '"Table 1')),
     "toml-binary": lambda f: (write_dataset(f), (f / "comparo.toml").write_bytes(b"\xff\xfe\x00garbage")),
+    "unicode-nfd-and-nfc": lambda f: _taxa(f, f"taxon,clade\n{_NFC},bees\nBombus terrestris,bees\n", [r.replace("Apis mellifera", _NFD if i == 0 else _NFC) for i, r in enumerate(VALID_ROWS)]),
+    "unicode-nfd-header": lambda f: _taxa(f, f"taxon,{unicodedata.normalize('NFC', 'región')},{unicodedata.normalize('NFD', 'región')}\nApis mellifera,a,b\n"),
     "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
     "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
@@ -316,3 +323,46 @@ def test_synonym_cycle_is_an_error_naming_its_rows(tmp_path, capsys, case, rows)
     assert main(["check", str(folder)]) == 2
     assert main(["table", str(folder)]) == 2
     assert "synonym-cycle" in capsys.readouterr().err
+
+
+def test_unicode_forms_are_one_name_with_a_warning(tmp_path):
+    """'ê' typed composed (U+00EA) on some rows and decomposed (e + U+0302) on one used to
+    make two taxa; reading puts every cell in Unicode NFC (Unicode Standard Annex #15) and
+    warns where two spellings became one, naming the rows of each."""
+    from comparo.curate import per_taxon
+    from comparo.dataset import load
+
+    assert _NFC != _NFD and unicodedata.normalize("NFC", _NFD) == _NFC
+    folder = tmp_path / "nfd"
+    CASES["unicode-nfd-and-nfc"](folder)
+    probs = _problems(folder)
+    hit = probs[probs["rule"] == "unicode-unified"]
+    assert len(hit) == 1 and hit["severity"].iat[0] == "warning"
+    assert (hit["file"].iat[0], hit["row"].iat[0], hit["column"].iat[0]) == ("observations.csv", 2, "taxon")
+    assert "observations.csv row 2" in hit["message"].iat[0] and "taxa.csv row 2" in hit["message"].iat[0]
+    tab = per_taxon(load(folder))
+    assert sorted(tab["taxon"]) == sorted([_NFC, "Bombus terrestris"])
+    assert tab.set_index("taxon").at[_NFC, "clade"] == "bees"
+    assert tab.set_index("taxon").at[_NFC, "body_mass"] == pytest.approx(1e-4)  # 100 mg, the decomposed row
+
+
+def test_column_names_in_two_unicode_forms_are_duplicates(tmp_path):
+    """Two header cells that differ only in Unicode form are one column name twice."""
+    folder = tmp_path / "hdr"
+    CASES["unicode-nfd-header"](folder)
+    probs = _problems(folder)
+    assert "duplicate-column" in set(probs.loc[probs["file"] == "taxa.csv", "rule"])
+    assert main(["check", str(folder)]) == 2
+
+
+def test_tree_labels_and_settings_read_in_nfc(tmp_path):
+    """A decomposed tip label and a decomposed settings key are read composed."""
+    from comparo.io import read_newick, read_settings
+
+    (tmp_path / "tree.nwk").write_text(f"({_NFD.replace(' ', '_')}:1,B_b:1);\n", encoding="utf-8")
+    tree, _, probs = read_newick(tmp_path / "tree.nwk")
+    assert _NFC.replace(" ", "_") in [t.taxon.label for t in tree.leaf_node_iter()]
+    assert [p.rule for p in probs] == ["unicode-unified"]
+    (tmp_path / "comparo.toml").write_text(f'title = "{_NFD}"\n', encoding="utf-8")
+    settings, _ = read_settings(tmp_path / "comparo.toml")
+    assert settings["title"] == _NFC
