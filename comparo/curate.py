@@ -27,7 +27,7 @@ import pandas as pd
 
 from comparo.errors import Problem, problems_frame, problems_from_frame
 from comparo.io import Dataset
-from comparo.validate import BASIS_ORDER, CheckResult, map_distinct
+from comparo.validate import BASIS_ORDER, WORKING_RANGE, CheckResult, map_distinct
 
 R_GAS = 8.314462618  # J mol^-1 K^-1 (CODATA 2018, exact)
 SLIP_POWERS = (3, 6, 1)  # orders of magnitude a unit slip typically shifts a value by
@@ -112,9 +112,10 @@ def temperature_factor(t_meas: np.ndarray, t_ref: float, q10: np.ndarray, ea_kj:
     T in kelvin. A time (kinetic_time) gets the reciprocal factor.
     NaN where the temperature is unknown.
     """
-    arr = np.exp(-(ea_kj * 1e3) / R_GAS * (1.0 / (t_ref + 273.15) - 1.0 / (t_meas + 273.15)))
-    fac = np.where(np.isfinite(ea_kj), arr, q10 ** ((t_ref - t_meas) / 10.0))
-    return np.where(is_time, 1.0 / fac, fac)
+    with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
+        arr = np.exp(-(ea_kj * 1e3) / R_GAS * (1.0 / (t_ref + 273.15) - 1.0 / (t_meas + 273.15)))
+        fac = np.where(np.isfinite(ea_kj), arr, q10 ** ((t_ref - t_meas) / 10.0))
+        return np.where(is_time, 1.0 / fac, fac)
 
 
 def q10_from_activation_energy(ea_kj_mol: float, t1_c: float, t2_c: float) -> float:
@@ -176,11 +177,16 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         note[ts & ~np.isfinite(t_meas)] = "no temperature: used un-normalised"
     obs["temperature_factor"] = factor
     obs["temperature_note"] = note
-    obs["value_h"] = obs["value_canonical"].to_numpy(dtype=float) * factor
-    obs["u_h"] = obs["u_h"].to_numpy(dtype=float) * factor
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        obs["value_h"] = obs["value_canonical"].to_numpy(dtype=float) * factor
+        obs["u_h"] = obs["u_h"].to_numpy(dtype=float) * factor
 
     status = np.where(obs["problem"] != "", "excluded", "used").astype(object)
     reason = obs["problem"].to_numpy(dtype=object).copy()
+    for bad, why in _beyond_range(obs):
+        take = bad & (status == "used")
+        status[take] = "excluded"
+        reason[take] = why
     merged_into = np.full(len(obs), "", dtype=object)
 
     # duplicates: same source, locator, taxon, quantity and value (to 6 significant digits)
@@ -206,6 +212,21 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         obs.loc[m, "reason"] = [f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit {slip_ids[o]['likely_unit']}" for o in obs.loc[m, "obs_id"]]
     h.conflicts = find_conflicts(obs, ds)
     return h
+
+
+def _beyond_range(obs: pd.DataFrame) -> list[tuple[np.ndarray, str]]:
+    """Rows whose harmonised value or uncertainty left the range of a double or
+    :data:`~comparo.validate.WORKING_RANGE` (an extreme temperature factor), with the reason."""
+    lo, hi = WORKING_RANGE
+    vc = obs["value_canonical"].to_numpy(dtype=float)
+    out = []
+    for col, name in (("value_h", "value"), ("u_h", "uncertainty")):
+        h = obs[col].to_numpy(dtype=float)
+        src = vc if col == "value_h" else obs["uncertainty_canonical"].to_numpy(dtype=float)
+        with np.errstate(invalid="ignore"):
+            bad = np.isfinite(src) & (src != 0) & (~np.isfinite(h) | (np.abs(h) < lo) | (np.abs(h) > hi))
+        out.append((bad, f"temperature normalisation takes the {name} outside the range comparo computes with ({lo:g} to {hi:g} in the canonical unit): check temperature_c and the Q10"))
+    return out
 
 
 _SLIP_UNITS = {
@@ -374,6 +395,9 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
     file = ds.files["observations"].name if "observations" in ds.files else "observations"
     rows = h.rows
     out: list[Problem] = []
+    beyond = (rows["status"] == "excluded") & (rows["problem"] == "") & rows["reason"].str.startswith("temperature normalisation")
+    for r in rows[beyond].itertuples():
+        out.append(Problem("error", file, int(r.row), "temperature_c", _cell(r.temperature_c), "temperature-factor-range", r.reason, "the row is excluded from every table and fit until fixed"))
     for r in rows[rows["status"] == "merged"].itertuples():
         out.append(Problem("warning", file, int(r.row), "obs_id", r.obs_id, "duplicate-row", r.reason, "it is merged, not double counted; delete one of the two rows"))
     for s in h.unit_slips:
@@ -390,6 +414,10 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
     for name, part in syn.groupby("taxon"):
         out.append(Problem("note", file, int(part["row"].iat[0]), "taxon", name, "synonym", f"reported name mapped to accepted name {part['accepted'].iat[0]!r} ({len(part)} row(s))", ""))
     return out
+
+
+def _cell(v) -> str:
+    return "" if v is None or (isinstance(v, float) and not np.isfinite(v)) else f"{v:g}" if isinstance(v, float) else str(v)
 
 
 def review(folder) -> CheckResult:
@@ -430,6 +458,18 @@ def _combine(part: pd.DataFrame, how: str) -> tuple[float, float]:
     return mean, float(np.std(v, ddof=1) / math.sqrt(len(v)))
 
 
+def _ivw_scaled(V: np.ndarray, U: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Inverse-variance weighted mean and its Birge-inflated standard uncertainty per row,
+    with weights (min u / u)^2 <= 1 so that no weight over- or underflows."""
+    k = V.shape[1]
+    umin = U.min(axis=1, keepdims=True)
+    W = (umin / U) ** 2
+    sw = W.sum(axis=1)
+    mean = np.sum(W * V, axis=1) / sw
+    spread = np.sqrt(np.sum(W * (V - mean[:, None]) ** 2, axis=1) / (k - 1))  # = Birge ratio x min u
+    return mean, np.maximum(umin[:, 0], spread) / np.sqrt(sw)
+
+
 def _aggregate(part: pd.DataFrame, q: str, how: str, rank: dict[str, int]) -> pd.DataFrame:
     """:func:`_combine` for every taxon of one quantity at once.
 
@@ -467,8 +507,12 @@ def _aggregate(part: pd.DataFrame, q: str, how: str, rank: dict[str, int]) -> pd
                 mean = np.sum(W * Vi, axis=1) / sw
                 chi2 = np.sum(W * (Vi - mean[:, None]) ** 2, axis=1)
                 birge = np.sqrt(chi2 / (k - 1))  # Birge ratio: inflate when values scatter more than their uncertainties
+                u_c = (1.0 / np.sqrt(sw)) * np.where(birge > 1.0, birge, 1.0)
+                off = ~(np.isfinite(mean) & np.isfinite(u_c))
+                if off.any():  # weights 1/u^2 over- or underflowed: the same mean with weights scaled by min(u)^2
+                    mean[off], u_c[off] = _ivw_scaled(Vi[off], U[ivw][off])
                 val[gs[ivw]] = mean
-                unc[gs[ivw]] = (1.0 / np.sqrt(sw)) * np.where(birge > 1.0, birge, 1.0)
+                unc[gs[ivw]] = u_c
             if (~ivw).any():
                 Vn, Nn = V[~ivw], N[~ivw]
                 W = np.where(np.isfinite(Nn) & (Nn > 0), Nn, 1.0)

@@ -12,6 +12,7 @@ row a spreadsheet shows.
 from __future__ import annotations
 
 import difflib
+import math
 import re
 from dataclasses import dataclass
 from typing import Any
@@ -28,6 +29,11 @@ _MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "�
 _DOI = re.compile(r"^10\.\d{4,9}/\S+$")
 _BINOMIAL = re.compile(r"^[A-Z][a-z]+(?:\s[a-z][a-z-]+){1,2}$")
 INT_EXACT = 2**53 - 1  # largest whole number a float64 holds exactly (IEEE 754); fits a 64-bit integer
+DOUBLE_MAX = float(np.finfo(float).max)  # about 1.8e308 (IEEE 754 binary64)
+# Magnitudes comparo computes with, in canonical units: their squares and products of two stay
+# inside a double (1e-300 to 1e300), so no weight, variance or derived time over- or underflows.
+WORKING_RANGE = (1e-150, 1e150)
+_MANTISSA = re.compile(r"^\s*[-+]?(\d*\.?\d*)(?:[eE][-+]?\d+)?\s*$")
 
 
 # --------------------------------------------------------------------------- helpers
@@ -39,15 +45,57 @@ def map_distinct(s: pd.Series, fn) -> pd.Series:
 
 
 def parse_numbers(s: pd.Series) -> pd.Series:
-    """Cells as float (NaN where empty or not a finite number)."""
+    """Cells as float (NaN where empty or not a finite number, and where a non-zero
+    number such as ``1e-400`` is too small for a double and would read as 0)."""
     num = pd.to_numeric(s.where(s != ""), errors="coerce").astype(float)
-    return num.where(np.isfinite(num))
+    num = num.where(np.isfinite(num))
+    zero = (num == 0).to_numpy()
+    if zero.any():
+        under = s[zero].str.match(r"^[^eE]*[1-9]").to_numpy(dtype=bool)
+        num.iloc[np.flatnonzero(zero)[under]] = np.nan
+    return num
+
+
+def beyond_double(text: str) -> str:
+    """``'over'`` when *text* is a finite-looking number too large for a double
+    (``1e400``), ``'under'`` when it is non-zero but too small (``1e-400`` reads as 0),
+    else ``''``."""
+    m = _MANTISSA.match(text or "")
+    if not m or not re.search(r"\d", m.group(1)):
+        return ""
+    try:
+        v = float(text)
+    except ValueError:
+        return ""
+    if math.isinf(v):
+        return "over"
+    if v == 0 and re.search(r"[1-9]", m.group(1)):
+        return "under"
+    return ""
+
+
+def _number_message(value: str) -> tuple[str, str]:
+    """Message and hint for a cell that is not a usable number."""
+    side = beyond_double(value)
+    if side == "over":
+        return (f"beyond the range of a double (largest about {DOUBLE_MAX:.3g})",
+                "a pasted or mistyped exponent? give the number in a unit that keeps it below 1e150")
+    if side == "under":
+        return ("below the smallest number a double holds (about 5e-324): it would read as 0",
+                "a mistyped exponent? give the number in a unit that keeps it above 1e-150")
+    return "not a number", _number_hint(value)
 
 
 def _number_hint(value: str) -> str:
     v = value.strip()
     if re.fullmatch(r"[-+]?\d+,\d+", v):
         return f"a decimal comma? write {v.replace(',', '.')}"
+    if re.fullmatch(r"[-+]?\d{1,3}(\.\d{3})+,\d+", v):
+        return f"a decimal comma with '.' between thousands? write {v.replace('.', '').replace(',', '.')}"
+    if re.fullmatch(r"[-+]?\d{1,3}(,\d{3})+(\.\d+)?", v):
+        return f"a ',' between thousands? write {v.replace(',', '')}"
+    if re.fullmatch(r"[-+]?0[xX][0-9a-fA-F]+", v):
+        return f"a hexadecimal number is not read: write it in decimal ({int(v, 16)})"
     if v[:1] in "<>≤≥~":
         return "a censored or approximate value cannot be used as a number: give the number and put the qualifier in notes"
     if v.lower() in _MISSING_WORDS:
@@ -140,7 +188,7 @@ def _column_problems(table: RawTable, name: str) -> list[Problem]:
         value = None if case is None else str(case)
         message, hint = _MESSAGES.get(rule, (f"breaks rule {rule}", ""))
         if rule == "number":
-            hint = _number_hint(value or "")
+            message, hint = _number_message(value or "")
         elif rule == "maximum":
             top = float(spec[col]["max"])
             message, hint = f"larger than the largest plausible value ({top:g})", f"{spec[col].get('description', col)} Check for a pasted or mistyped number."
@@ -160,6 +208,15 @@ def _column_problems(table: RawTable, name: str) -> list[Problem]:
 
 
 # --------------------------------------------------------------------------- observations
+
+def _beyond_working_range(value: np.ndarray, converted: np.ndarray, factor: np.ndarray) -> np.ndarray:
+    """Non-zero finite values whose conversion over- or underflows a double or leaves
+    :data:`WORKING_RANGE`."""
+    mag = np.abs(converted)
+    with np.errstate(invalid="ignore"):
+        return (np.isfinite(value) & (value != 0) & np.isfinite(factor)
+                & (~np.isfinite(converted) | (mag < WORKING_RANGE[0]) | (mag > WORKING_RANGE[1])))
+
 
 def _typed_observations(raw: RawTable) -> pd.DataFrame:
     spec = read_schema("tables.toml")["observations"]["columns"]
@@ -243,8 +300,28 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     total = factor * alias.to_numpy() * qty.map(tmap).to_numpy(dtype=float)
     value = obs["value"].to_numpy(dtype=float)
     obs["quantity_key"] = target_key.to_numpy()
-    obs["value_canonical"] = value * total
-    obs["uncertainty_canonical"] = obs["uncertainty"].to_numpy(dtype=float) * total
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        obs["value_canonical"] = value * total
+        obs["uncertainty_canonical"] = obs["uncertainty"].to_numpy(dtype=float) * total
+    not_temperature = map_distinct(target_key, lambda k: bool(k) and catalog[k].kind != "temperature").to_numpy(dtype=bool)
+    for col, canon_col in (("value", "value_canonical"), ("uncertainty", "uncertainty_canonical")):
+        bad = _beyond_working_range(obs[col].to_numpy(dtype=float), obs[canon_col].to_numpy(dtype=float), total) & not_temperature
+        if bad.any():
+            vc_all = obs[canon_col].to_numpy(dtype=float)
+
+            def conv_msg(i, col=col, vc_all=vc_all):
+                unit = units.pretty(canon.iat[i]) if canon.iat[i] else canon.iat[i]
+                vc = vc_all[i]
+                if not np.isfinite(vc):
+                    what = f"overflows a double (becomes inf {unit})"
+                elif vc == 0:
+                    what = f"underflows a double (becomes 0 {unit})"
+                else:
+                    what = f"gives {vc:.3g} {unit}, outside the range comparo computes with ({WORKING_RANGE[0]:g} to {WORKING_RANGE[1]:g} {unit})"
+                return f"{col} {raw.frame[col].iat[i]} {unit_col.iat[i]} converted to {unit} {what}"
+
+            add(bad, "error", col, f"{col}-conversion-range", conv_msg, "check the number and its unit (a mistyped exponent or unit prefix?)", raw.frame[col].to_numpy() if col in raw.frame else None)
+            obs.loc[bad, canon_col] = np.nan  # never carried into a table, an export or a fit
     obs["unit_canonical"] = canon.to_numpy()
     is_alias = map_distinct(qty, lambda k: bool(k in catalog and catalog[k].converts_to)).to_numpy(dtype=bool)
     basis = obs["basis"].where(obs["basis"].isin(BASIS_ORDER), "assumed")
@@ -286,7 +363,9 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     raw_temp = raw.frame["temperature_c"] if "temperature_c" in raw.frame else pd.Series([""] * len(obs))
     no_temp = ts & (raw_temp.to_numpy() == "")
     add(no_temp, "warning", "temperature_c", "temperature-missing", lambda i: f"{qty.iat[i]} is temperature-sensitive but has no temperature_c", "give the measurement temperature; otherwise the value is used un-normalised", raw_temp.to_numpy())
-    odd_temp = ~np.isnan(temp) & ((temp < -5) | (temp > 60))
+    impossible = ~np.isnan(temp) & ((temp < -273.15) | (temp > 1000))
+    add(impossible, "error", "temperature_c", "temperature-impossible", "temperature below absolute zero (-273.15 °C) or above 1000 °C", "temperature_c is in degrees Celsius", obs["temperature_c"].to_numpy())
+    odd_temp = ~np.isnan(temp) & ~impossible & ((temp < -5) | (temp > 60))
     add(odd_temp, "warning", "temperature_c", "temperature-range", "temperature outside -5 to 60 °C for muscle", "temperature_c is in degrees Celsius (a Fahrenheit or kelvin value?)", obs["temperature_c"].to_numpy())
     q10_set = ~np.isnan(obs["q10"].to_numpy(dtype=float)) & ~ts & (target_key != "").to_numpy()
     add(q10_set, "warning", "q10", "q10-unused", lambda i: f"a Q10 is given but {qty.iat[i]} is not temperature-sensitive (ignored)")

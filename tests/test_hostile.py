@@ -128,6 +128,14 @@ CASES = {
     "toml-binary": lambda f: (write_dataset(f), (f / "comparo.toml").write_bytes(b"\xff\xfe\x00garbage")),
     "unicode-nfd-and-nfc": lambda f: _taxa(f, f"taxon,clade\n{_NFC},bees\nBombus terrestris,bees\n", [r.replace("Apis mellifera", _NFD if i == 0 else _NFC) for i, r in enumerate(VALID_ROWS)]),
     "unicode-nfd-header": lambda f: _taxa(f, f"taxon,{unicodedata.normalize('NFC', 'región')},{unicodedata.normalize('NFD', 'región')}\nApis mellifera,a,b\n"),
+    "unit-underflow": lambda f: write_dataset(f, _rows_with(0, ",100,mg", ",1e-320,mg")),
+    "unit-overflow": lambda f: write_dataset(f, _rows_with(0, ",100,mg", ",1e308,Mg")),
+    "uncertainty-overflow": lambda f: write_dataset(f, _rows_with(1, ",12,um,1,sd", ",12,um,1e307,sd")),
+    "value-1e-400": lambda f: write_dataset(f, _rows_with(0, ",100,", ",1e-400,")),
+    "value-hex": lambda f: write_dataset(f, _rows_with(0, ",100,", ",0x1A,")),
+    "value-thousands-dot-decimal-comma": lambda f: write_dataset(f, _rows_with(0, ",100,", ',"1.234,5",')),
+    "temperature-factor-extreme": lambda f: write_dataset(f, [r + ("," if i != 4 else ",1e10") for i, r in enumerate(_rows_with(4, ",25", ",1000"))], header=OBS_HEADER + ",q10"),
+    "weights-extreme": lambda f: write_dataset(f, [*VALID_ROWS, "o7,Apis mellifera,muscle_mass,1e140,mg,1e-133,sd,,s1,Table 3,reported,,,", "o8,Apis mellifera,muscle_mass,2e140,mg,1e-133,sd,,s2,Table 3,reported,,,"]),
     "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
     "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
@@ -366,3 +374,82 @@ def test_tree_labels_and_settings_read_in_nfc(tmp_path):
     (tmp_path / "comparo.toml").write_text(f'title = "{_NFD}"\n', encoding="utf-8")
     settings, _ = read_settings(tmp_path / "comparo.toml")
     assert settings["title"] == _NFC
+
+
+@pytest.mark.parametrize("case,row,column,rule,words", [
+    ("unit-underflow", 2, "value", "value-conversion-range", "underflows a double (becomes 0 kg)"),
+    ("unit-overflow", 2, "value", "value-conversion-range", "overflows a double (becomes inf kg)"),
+    ("uncertainty-overflow", 3, "uncertainty", "uncertainty-conversion-range", "outside the range comparo computes with"),
+    ("value-1e400", 2, "value", "value-number", "beyond the range of a double"),
+    ("value-1e-400", 2, "value", "value-number", "below the smallest number a double holds"),
+])
+def test_conversion_beyond_a_double_is_an_error_at_its_cell(tmp_path, case, row, column, rule, words):
+    """1e-320 mg is 1e-326 kg, below the smallest double (IEEE 754 binary64, about
+    4.9e-324), and 1e308 Mg is 1e311 kg, above the largest (about 1.8e308): once converted
+    they became 0 and inf and bypassed "value must be > 0". Each is now one error at its cell."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    errors = probs[probs["severity"] == "error"]
+    assert [(int(r), c, ru) for r, c, ru in zip(errors["row"], errors["column"], errors["rule"], strict=True)] == [(row, column, rule)]
+    assert words in errors["message"].iat[0]
+    assert main(["table", str(folder)]) == 2
+
+
+@pytest.mark.parametrize("case,hint", [("value-hex", "hexadecimal"), ("value-thousands-dot-decimal-comma", "write 1234.5")])
+def test_number_hints(tmp_path, case, hint):
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    assert hint in probs.loc[probs["rule"] == "value-number", "hint"].iat[0]
+
+
+def _numbers_in(path) -> list[str]:
+    """Cells (CSV) or values (JSON) of *path* that read as a non-finite number."""
+    import math
+
+    text = path.read_text(encoding="utf-8")
+    if path.suffix == ".json":
+        bad: list[str] = []
+        json.loads(text, parse_constant=lambda c: bad.append(c))
+        return bad
+    frame = pd.read_csv(path, dtype=str, keep_default_na=False)
+    out = []
+    for v in frame.to_numpy().ravel():
+        try:
+            if not math.isfinite(float(v)):
+                out.append(v)
+        except ValueError:
+            pass
+    return out
+
+
+@pytest.mark.parametrize("case", ["temperature-factor-extreme", "weights-extreme", "unit-overflow", "unit-underflow"])
+def test_no_inf_or_nan_reaches_an_output(tmp_path, capsys, case):
+    """A temperature factor of (1e10)^-97.5 (Q10 1e10 over 975 degrees) and inverse-variance
+    weights of 1e266 per kg^-2 used to give 0, inf or NaN in the per-taxon table; now the first
+    is an error at its row (check) and excluded with that reason, the second is combined with
+    scaled weights. No table, export or audit file written holds inf or NaN."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    out = tmp_path / "out"
+    out.mkdir()
+    main(["table", str(folder), "-o", str(out / "table.csv")])
+    main(["derive", str(folder), "-o", str(out / "derive.csv")])
+    main(["audit", str(folder), "-o", str(out / "audit")])
+    main(["export", str(folder), "--to", "dwc", "-o", str(out / "dwc")])
+    capsys.readouterr()
+    written = [p for p in out.rglob("*") if p.is_file() and p.suffix in (".csv", ".json")]
+    assert written or case.startswith("unit-")
+    for p in written:
+        assert _numbers_in(p) == [], (p.name, _numbers_in(p))
+    if case == "weights-extreme":
+        import pandas as pd
+
+        tab = pd.read_csv(out / "table.csv").set_index("taxon")
+        # inverse-variance mean of 1e134 and 2e134 kg with equal u: their midpoint
+        assert tab.at["Apis mellifera", "muscle_mass"] == pytest.approx(1.5e134, rel=1e-12)
+    if case == "temperature-factor-extreme":
+        probs = _problems(folder)
+        hit = probs[probs["rule"] == "temperature-factor-range"]
+        assert list(hit["row"]) == [6] and (hit["severity"] == "error").all()
