@@ -379,13 +379,38 @@ def find_conflicts(obs: pd.DataFrame, ds: Dataset, factor: float | None = None) 
     src = df["source_id"].to_numpy(object)
     val = df["value_h"].to_numpy(float)
     rw = df["row"].to_numpy()
+    unit = df["unit_canonical"].to_numpy(object)
+    typed = (df["value"].map(lambda v: f"{v:g}") + " " + df["unit"]).to_numpy(object)
     out = []
     cuts = np.flatnonzero(np.diff(gi)) + 1
     for part in np.split(rows_of, cuts):
         out.append({"taxon": acc[part[0]], "quantity": qk[part[0]], "obs_ids": [oid[i] for i in part],
                     "sources": sorted({src[i] for i in part}), "values": [float(val[i]) for i in part],
-                    "rows": [int(rw[i]) for i in part]})
+                    "unit": _pretty(unit[part[0]]), "rows": [int(rw[i]) for i in part],
+                    "source_ids": [src[i] for i in part], "reported": [typed[i] for i in part]})
     return out
+
+
+def _pretty(unit: str) -> str:
+    from comparo import units
+
+    try:
+        return units.pretty(unit)
+    except Exception:  # a unit the catalogue accepted always parses; keep the text otherwise
+        return unit
+
+
+def describe_value(conflict: dict[str, Any], i: int) -> str:
+    """One value of a conflict as a reader needs it: ``o3: 0.0001 kg (reported as 100 mg,
+    row 2, source s1)``; the value is the harmonised one, in the canonical unit."""
+    v = f"{conflict['values'][i]:.4g} {conflict['unit']}"
+    typed = conflict.get("reported", [None] * (i + 1))[i]
+    where = [f"reported as {typed}"] if typed and typed.replace(" ", "") != v.replace(" ", "") else []
+    where.append(f"row {conflict['rows'][i]}")
+    src = conflict.get("source_ids", [None] * (i + 1))[i]
+    if src:
+        where.append(f"source {src}")
+    return f"{conflict['obs_ids'][i]}: {v} ({', '.join(where)})"
 
 
 def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
@@ -403,9 +428,9 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
     for s in h.unit_slips:
         out.append(Problem("warning", file, s["row"], "unit", s["unit"], "unit-slip", f"{s['quantity']} of {s['taxon']} is ~10^{s['power']} off the group median ({s['group_median']:.3g}); likely unit {s['likely_unit']}", "check the unit; the value is excluded from aggregation until fixed"))
     for c in h.conflicts:
-        for oid, row in zip(c["obs_ids"], c["rows"], strict=True):
-            others = ", ".join(o for o in c["obs_ids"] if o != oid)
-            out.append(Problem("warning", file, row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']} disagrees with {others} (sources {', '.join(c['sources'])})", "check both sources; the per-taxon value combines them"))
+        for i, (oid, row) in enumerate(zip(c["obs_ids"], c["rows"], strict=True)):
+            others = "; ".join(describe_value(c, j) for j in range(len(c["obs_ids"])) if j != i)
+            out.append(Problem("warning", file, row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']}: {describe_value(c, i)} disagrees with {others}", "check both sources; the per-taxon value combines them"))
     for b in ("digitized", "proxy", "assumed"):
         for r in rows[rows["basis"] == b].itertuples():
             extra = f" (stands in from {r.proxy_taxon})" if b == "proxy" else ""

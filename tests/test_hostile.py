@@ -74,6 +74,16 @@ def _taxa(folder, text: str, rows=None):
     (folder / "taxa.csv").write_text(text, encoding="utf-8")
 
 
+def _markup(folder):
+    """Console markup in names, ids, cells, column names, sources, taxa and settings."""
+    rows = [r.replace("Table 1", "[/b]").replace("Bombus terrestris", "Bombus [/red]terrestris").replace(",s1,", ",[/i]s1,") + ",[bold]x[/]" for r in VALID_ROWS]
+    rows[0] = rows[0].replace("o1,", "[/i]o1,", 1)
+    write_dataset(folder, rows, header=OBS_HEADER + ",[/red]notes",
+                  sources="source_id,citation,year\n[/i]s1,[/b] One [link=x],2001\ns2,Two [/red],2002\n")
+    (folder / "taxa.csv").write_text("taxon,clade\nApis mellifera,[/red]\nBombus [/red]terrestris,[b]\n", encoding="utf-8")
+    (folder / "comparo.toml").write_text('title = "[/b]"\n[quantities.twitch_x]\nunit = "ms"\nlabel = "[/red] twitch"\n', encoding="utf-8")
+
+
 def _ladder(n: int) -> str:
     s = "t0:1"
     for i in range(1, n):
@@ -136,6 +146,7 @@ CASES = {
     "value-thousands-dot-decimal-comma": lambda f: write_dataset(f, _rows_with(0, ",100,", ',"1.234,5",')),
     "temperature-factor-extreme": lambda f: write_dataset(f, [r + ("," if i != 4 else ",1e10") for i, r in enumerate(_rows_with(4, ",25", ",1000"))], header=OBS_HEADER + ",q10"),
     "weights-extreme": lambda f: write_dataset(f, [*VALID_ROWS, "o7,Apis mellifera,muscle_mass,1e140,mg,1e-133,sd,,s1,Table 3,reported,,,", "o8,Apis mellifera,muscle_mass,2e140,mg,1e-133,sd,,s2,Table 3,reported,,,"]),
+    "markup-in-cells": lambda f: _markup(f),
     "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
     "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
@@ -453,3 +464,18 @@ def test_no_inf_or_nan_reaches_an_output(tmp_path, capsys, case):
         probs = _problems(folder)
         hit = probs[probs["rule"] == "temperature-factor-range"]
         assert list(hit["row"]) == [6] and (hit["severity"] == "error").all()
+
+
+def test_console_markup_in_cells_is_printed_as_typed(tmp_path, capsys):
+    """'[/red]' or '[/b]' in a cell used to crash check with a markup error (exit 3); every
+    command that prints through the console now shows such text literally."""
+    folder = tmp_path / "markup"
+    _markup(folder)
+    before = tree_hash(folder)
+    for argv, shown in ((["check", str(folder)], "Bombus [/red]terrestris"), (["audit", str(folder)], "[/i]s1"),
+                        (["units", str(folder)], "[/red]")):
+        code = main(argv)
+        out = capsys.readouterr()
+        _assert_clean(code, out.out + out.err, "markup")
+        assert shown in out.out, (argv, out.out[-2000:])
+    assert tree_hash(folder) == before
