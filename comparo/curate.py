@@ -40,7 +40,7 @@ CONFLICT_COVERAGE = 2.0  # common practice: |a - b| > 2 u_c (about 95% for norma
 def accepted_names(ds: Dataset) -> pd.Series:
     """Accepted name per observation row (taxa.csv ``accepted_name`` where given)."""
     taxon = ds.observations["taxon"]
-    if ds.taxa is None or "accepted_name" not in ds.taxa:
+    if ds.taxa is None or "accepted_name" not in ds.taxa or "taxon" not in ds.taxa:
         return taxon.copy()
     mapping = {t: a for t, a in zip(ds.taxa["taxon"], ds.taxa["accepted_name"], strict=True) if a}
     return map_distinct(taxon, lambda t: mapping.get(t, t))
@@ -48,7 +48,7 @@ def accepted_names(ds: Dataset) -> pd.Series:
 
 def grouping_columns(ds: Dataset) -> list[str]:
     """Columns of taxa.csv that group taxa (everything except the name columns)."""
-    if ds.taxa is None:
+    if ds.taxa is None or "taxon" not in ds.taxa:  # without names, nothing can be grouped
         return []
     return [c for c in ds.taxa.columns if c not in ("taxon", "accepted_name", "tree_label")]
 

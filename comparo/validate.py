@@ -423,6 +423,48 @@ def _settings_problems(settings: dict[str, Any], catalog: Catalog) -> list[Probl
     return probs
 
 
+# --------------------------------------------------------------------------- reserved names
+
+# Columns comparo adds to the observation rows (validation, harmonisation, lineage).
+RESERVED_OBSERVATION_COLUMNS = frozenset({
+    "row", "quantity_key", "value_canonical", "uncertainty_canonical", "unit_canonical", "basis_effective",
+    "problem", "accepted", "u_h", "value_h", "temperature_factor", "temperature_note", "status", "reason",
+    "merged_into", "value_harmonised", "u_standard",
+})
+# Columns of the per-taxon table that are not quantities (a taxa.csv grouping column is copied into it).
+RESERVED_TAXA_COLUMNS = frozenset({"temperature_c", "accepted", "own"})
+
+
+def _reserved(name: str, fixed: frozenset[str], keys: frozenset[str]) -> bool:
+    return name in fixed or name.startswith("_") or name in keys or any(name.startswith(k + "_") for k in keys)
+
+
+def reserved_column_problems(raw: RawDataset, catalog: Catalog) -> list[Problem]:
+    """Column names a user's table may not use because comparo adds a column of that
+    name: in observations the columns listed in :data:`RESERVED_OBSERVATION_COLUMNS`; in
+    taxa.csv (whose extra columns join the per-taxon table) any quantity, derived or
+    ratio key, ``KEY_...`` for such a key and ``temperature_c``; in both, names starting
+    with ``_``. Each is renamed ``NAME (yours)`` in the working copy so that checking
+    goes on (the problem is an error: nothing is analysed until it is renamed)."""
+    probs: list[Problem] = []
+    derived = read_schema("derived.toml").get("keys", {})
+    ratios = raw.settings.get("ratios") if isinstance(raw.settings.get("ratios"), dict) else {}
+    keys = frozenset(catalog) | frozenset(derived) | frozenset(map(str, ratios))
+    spec = read_schema("tables.toml")
+    for table, fixed, scope in ((raw.observations, RESERVED_OBSERVATION_COLUMNS, frozenset()), (raw.taxa, RESERVED_TAXA_COLUMNS, keys)):
+        if table is None:
+            continue
+        own = spec["observations" if table is raw.observations else "taxa"]["columns"]
+        clash = [c for c in table.frame.columns if c not in own and _reserved(str(c), fixed, scope)]
+        for c in clash:
+            probs.append(Problem("error", table.file, None, str(c), None, "column-reserved",
+                                 f"column name {c!r} is used by comparo for a column of its own",
+                                 f"rename the column (for example to 'my_{str(c).lstrip('_')}')"))
+        if clash:
+            table.frame = table.frame.rename(columns={c: f"{c} (yours)" for c in clash})
+    return probs
+
+
 # --------------------------------------------------------------------------- synonyms
 
 def resolve_synonyms(taxa: RawTable) -> tuple[dict[str, str], list[Problem]]:
@@ -492,6 +534,7 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
     problems += _settings_problems(raw.settings, catalog)
     if raw.observations is None or raw.sources is None:
         return None, problems
+    problems += reserved_column_problems(raw, catalog)
     problems += _column_problems(raw.observations, "observations")
     problems += _column_problems(raw.sources, "sources")
     problems += _source_problems(raw.sources)

@@ -147,6 +147,11 @@ CASES = {
     "temperature-factor-extreme": lambda f: write_dataset(f, [r + ("," if i != 4 else ",1e10") for i, r in enumerate(_rows_with(4, ",25", ",1000"))], header=OBS_HEADER + ",q10"),
     "weights-extreme": lambda f: write_dataset(f, [*VALID_ROWS, "o7,Apis mellifera,muscle_mass,1e140,mg,1e-133,sd,,s1,Table 3,reported,,,", "o8,Apis mellifera,muscle_mass,2e140,mg,1e-133,sd,,s2,Table 3,reported,,,"]),
     "markup-in-cells": lambda f: _markup(f),
+    "column-named-row": lambda f: write_dataset(f, [r + f",{i}" for i, r in enumerate(VALID_ROWS)], header=OBS_HEADER + ",row"),
+    "column-named-status": lambda f: write_dataset(f, [r + ",x,y" for r in VALID_ROWS], header=OBS_HEADER + ",status,_lv"),
+    "taxa-column-named-quantity": lambda f: _taxa(f, "taxon,body_mass,temperature_c,fiber_radius_u\nApis mellifera,1,2,3\n"),
+    "taxa-without-taxon-column": lambda f: _taxa(f, "name,clade\nApis mellifera,bees\n"),
+    "taxa-column-accepted": lambda f: _taxa(f, "taxon,accepted\nApis mellifera,x\n"),
     "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
     "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
@@ -479,3 +484,35 @@ def test_console_markup_in_cells_is_printed_as_typed(tmp_path, capsys):
         _assert_clean(code, out.out + out.err, "markup")
         assert shown in out.out, (argv, out.out[-2000:])
     assert tree_hash(folder) == before
+
+
+@pytest.mark.parametrize("case,names", [
+    ("column-named-row", {("observations.csv", "row")}),
+    ("column-named-status", {("observations.csv", "status"), ("observations.csv", "_lv")}),
+    ("taxa-column-named-quantity", {("taxa.csv", "body_mass"), ("taxa.csv", "temperature_c"), ("taxa.csv", "fiber_radius_u")}),
+    ("taxa-column-accepted", {("taxa.csv", "accepted")}),
+])
+def test_column_names_comparo_uses_are_refused_by_name(tmp_path, capsys, case, names):
+    """A user column named like one comparo adds ('row', 'status', a quantity key in
+    taxa.csv, which would overwrite the per-taxon value) used to crash or be overwritten;
+    now one error per such column, naming it, and every command exits 2."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    hit = probs[probs["rule"] == "column-reserved"]
+    assert set(zip(hit["file"], hit["column"], strict=True)) == names
+    assert (hit["severity"] == "error").all()
+    for cmd in ("check", "table", "audit"):
+        assert main([cmd, str(folder)]) == 2
+        err = capsys.readouterr()
+        assert "column-reserved" in err.out + err.err
+
+
+def test_audit_without_a_taxon_column_in_taxa_is_a_clear_exit_2(tmp_path, capsys):
+    """taxa.csv without its taxon column used to end audit with a KeyError (exit 3)."""
+    folder = tmp_path / "notaxon"
+    CASES["taxa-without-taxon-column"](folder)
+    assert main(["audit", str(folder)]) == 2
+    err = capsys.readouterr().err
+    assert "taxa.csv" in err and "'taxon'" in err and "missing" in err
+    assert "Traceback" not in err and "internal error" not in err

@@ -12,6 +12,7 @@ def run(args) -> int:
     from comparo.provenance import audit
 
     ds = load(args.dataset, strict=False)
+    refuse_file_errors(ds)
     report = audit(ds, temperature=not args.no_temperature)
     if args.output:
         from pathlib import Path
@@ -44,6 +45,22 @@ def run(args) -> int:
     if args.strict and (report.conflicts or report.unit_slips):
         return 1
     return 0
+
+
+def refuse_file_errors(ds) -> None:
+    """Raise :class:`~comparo.InputError` for errors the audit cannot account for as
+    excluded rows: anything not on a row of the observations (a taxa.csv without its
+    taxon column, a sources table without source_id, bad settings, reserved names)."""
+    from comparo.errors import InputError
+
+    probs = ds.problems
+    if probs is None or not len(probs):
+        return
+    obs_file = ds.files["observations"].name if "observations" in ds.files else None
+    err = probs["severity"] == "error"
+    on_rows = probs["file"].astype(str).str.startswith(obs_file or "\0") & probs["row"].notna()
+    if (err & ~on_rows).any():
+        raise InputError(probs[err & ~on_rows].reset_index(drop=True))
 
 
 def _row(table, *cells) -> None:
