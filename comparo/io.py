@@ -85,10 +85,18 @@ def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
             return None, [_err(file, "encoding", f"file starts with a UTF-16 byte-order mark but is not valid UTF-16 ({exc.reason})", "re-save the file as UTF-8 CSV")]
     if data.startswith(b"PK\x03\x04"):
         return None, [_err(file, "file-format", "this is a zip/XLSX workbook, not a text table", "name it .xlsx, or export the sheet as CSV (UTF-8)")]
-    if b"\x00" in data[:4096]:
-        return None, [_err(file, "file-format", "file contains NUL bytes: not a text table", "export the table as CSV (UTF-8)")]
+    nul = data.find(b"\x00")
+    if nul >= 0:
+        endian = _utf16_without_bom(data)
+        if endian:
+            return None, [_err(file, "encoding", f"file is UTF-16 ({endian}-endian) text without a byte-order mark", "re-save the file as UTF-8 (or as UTF-16 with a byte-order mark)")]
+        line = data[:nul].count(b"\n") + 1
+        return None, [_err(file, "file-format", f"file contains NUL bytes (first on line {line}, byte {nul + 1}): not a text table", "export the table as CSV (UTF-8); a NUL byte is often a binary file or a broken copy", row=line)]
     if data.startswith(b"\xef\xbb\xbf"):
         data = data[3:]
+    if data.endswith(b"\x1a"):  # Ctrl-Z, an old end-of-file marker
+        data = data.rstrip(b"\x1a")
+        probs.append(_err(file, "end-of-file-marker", "file ends with a Ctrl-Z (byte 0x1A) end-of-file marker; ignored", "nothing to do; re-saving the file removes it", severity="warning"))
     try:
         return data.decode("utf-8"), probs
     except UnicodeDecodeError as exc:
@@ -128,6 +136,22 @@ def _nfc_cells(frame, rows: list[int]) -> dict[str, dict[str, list[tuple[str, in
     return changed
 
 
+def _utf16_without_bom(data: bytes) -> str:
+    """``'little'`` or ``'big'`` when *data* reads as UTF-16 text of mostly ASCII
+    characters without a byte-order mark (every other byte NUL), else ``''``."""
+    if len(data) < 4:
+        return ""
+    even, odd = data[0::2], data[1::2]
+    for endian, zeros, chars, codec in (("little", odd, even, "utf-16-le"), ("big", even, odd, "utf-16-be")):
+        if zeros.count(0) >= 0.6 * len(zeros) and chars.count(0) <= 0.05 * len(chars):
+            try:
+                data[: len(data) // 2 * 2].decode(codec)
+            except UnicodeDecodeError:
+                continue
+            return endian
+    return ""
+
+
 def _delimiter(header: str, path: Path) -> str:
     if path.suffix.lower() in (".tsv", ".tab"):
         return "\t"
@@ -154,6 +178,8 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     if first is None:
         return None, probs + [_err(file, "empty-file", "file is empty", "add a header row with the column names")]
     header = lines[first]
+    if header.count('"') % 2:
+        return None, probs + [_err(file, "header-line-break", "the header row has an unclosed quote: a column name holds a line break inside quotes (or a stray '\"')", "give every column a one-line name without quotes", row=first + 1, value=header[:60])]
     delim = _delimiter(header, path)
     if delim == ";":
         decimal_comma = bool(re.search(r"\d,\d", text))
@@ -202,6 +228,7 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem]) -> tuple[Ra
     frame = frame.loc[keep].reset_index(drop=True)
     rows = [r for r, k in zip(rows, keep, strict=True) if k]
     respelled = _nfc_cells(frame, rows)
+    probs += _control_characters(file, frame, rows)
     long = frame.apply(lambda s: s.str.len() > MAX_CELL)
     if long.to_numpy().any():
         for ci, col in enumerate(frame.columns):
@@ -220,6 +247,21 @@ def _known_columns() -> frozenset[str]:
 
     spec = read_schema("tables.toml")
     return frozenset(c for t in spec.values() if isinstance(t, dict) for c in t.get("columns", {}))
+
+
+_CONTROL = re.compile(r"[\x01-\x08\x0b\x0c\x0e-\x1f\x7f]")
+
+
+def _control_characters(file: str, frame, rows: list[int]) -> list[Problem]:
+    """Invisible control characters in cells (a binary paste, a Ctrl-Z): errors at the cell."""
+    probs = []
+    for col in frame.columns:
+        hit = frame[col].str.contains(_CONTROL, regex=True).to_numpy(dtype=bool)
+        for i in map(int, hit.nonzero()[0]):
+            v = frame[col].iat[i]
+            c = _CONTROL.search(v).group(0)
+            probs.append(_err(file, "control-character", f"cell holds the invisible control character 0x{ord(c):02X}", "delete it (retype the cell)", row=rows[i], column=str(col), value=v.encode("unicode_escape").decode("ascii")[:60]))
+    return probs
 
 
 def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Problem]]:
@@ -417,9 +459,28 @@ def unified_spellings(tables: list[RawTable]) -> list[Problem]:
     return probs
 
 
-def _first(folder: Path, names: tuple[str, ...]) -> Path | None:
-    found = [folder / n for n in names if (folder / n).is_file()]
-    return found[0] if found else None
+def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Path | None:
+    """The first of *names* in *folder* that is a regular file. A name that exists but
+    is a folder, a FIFO or device, or a symbolic link that loops or leads nowhere is a
+    problem (an error), never read and never silently skipped."""
+    for n in names:
+        p = folder / n
+        try:
+            st = p.stat()
+        except OSError as exc:
+            if p.is_symlink():
+                why = "a symbolic link that loops" if exc.errno == 40 else "a symbolic link to nothing"
+                problems.append(_err(n, "not-a-file", f"{n} is {why}", "replace the link with the file itself"))
+            elif exc.errno not in (2, 20):  # ENOENT, ENOTDIR: simply absent
+                problems.append(_err(n, "file-read", f"cannot read {n} ({exc.strerror})"))
+            continue
+        import stat as _stat
+
+        if _stat.S_ISREG(st.st_mode):
+            return p
+        what = "a folder" if _stat.S_ISDIR(st.st_mode) else "a named pipe (FIFO)" if _stat.S_ISFIFO(st.st_mode) else "a device or socket"
+        problems.append(_err(n, "not-a-file", f"{n} is {what}, not a file", f"put the table in a regular file named {n}"))
+    return None
 
 
 def read_folder(folder: str | Path) -> RawDataset:
@@ -436,32 +497,36 @@ def read_folder(folder: str | Path) -> RawDataset:
     if not folder.is_dir():
         raise InputError([_err(str(folder), "not-a-folder", "expected a dataset folder, got a file", "give the folder that holds observations.csv and sources.csv")])
     raw = RawDataset(folder=folder)
-    obs = _first(folder, OBSERVATION_NAMES)
+    found = len(raw.problems)
+    obs = _first(folder, OBSERVATION_NAMES, raw.problems)
     if obs is None:
-        raw.problems.append(_err(str(folder), "missing-file", "no observations table", f"add one of {', '.join(OBSERVATION_NAMES)}"))
+        if len(raw.problems) == found:
+            raw.problems.append(_err(str(folder), "missing-file", "no observations table", f"add one of {', '.join(OBSERVATION_NAMES)}"))
     else:
         raw.files["observations"] = obs
         raw.observations, p = read_table(obs, "observations")
         raw.problems += p
-    src = _first(folder, SOURCE_NAMES)
+    found = len(raw.problems)
+    src = _first(folder, SOURCE_NAMES, raw.problems)
     if src is None:
-        raw.problems.append(_err(str(folder), "missing-file", "no sources table", "add sources.csv (source_id, citation, ...) or sources.bib"))
+        if len(raw.problems) == found:
+            raw.problems.append(_err(str(folder), "missing-file", "no sources table", "add sources.csv (source_id, citation, ...) or sources.bib"))
     else:
         raw.files["sources"] = src
         raw.sources, p = read_bibtex(src) if src.suffix == ".bib" else read_table(src, "sources")
         raw.problems += p
-    tax = _first(folder, TAXA_NAMES)
+    tax = _first(folder, TAXA_NAMES, raw.problems)
     if tax is not None:
         raw.files["taxa"] = tax
         raw.taxa, p = read_table(tax, "taxa")
         raw.problems += p
-    tree = _first(folder, TREE_NAMES)
+    tree = _first(folder, TREE_NAMES, raw.problems)
     if tree is not None:
         raw.files["tree"] = tree
         raw.tree, raw.tree_text, p = read_newick(tree)
         raw.problems += p
-    settings = folder / SETTINGS_NAME
-    if settings.is_file():
+    settings = _first(folder, (SETTINGS_NAME,), raw.problems)
+    if settings is not None:
         raw.files["settings"] = settings
         raw.settings, p = read_settings(settings)
         raw.problems += p

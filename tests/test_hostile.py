@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import importlib.util
 import json
+import os
 import subprocess
 import time
 import unicodedata
@@ -152,6 +153,15 @@ CASES = {
     "taxa-column-named-quantity": lambda f: _taxa(f, "taxon,body_mass,temperature_c,fiber_radius_u\nApis mellifera,1,2,3\n"),
     "taxa-without-taxon-column": lambda f: _taxa(f, "name,clade\nApis mellifera,bees\n"),
     "taxa-column-accepted": lambda f: _taxa(f, "taxon,accepted\nApis mellifera,x\n"),
+    "utf16-le-no-bom": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode("utf-16-le")),
+    "utf16-be-no-bom": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode("utf-16-be")),
+    "nul-after-4kib": lambda f: _bytes(f, "observations.csv", _text(_rows_with(0, "Table 1", "T" * 5000) + ["o9,Apis mellifera,body_mass,1\x00,mg,,,,s1,T,reported,,,"]).encode()),
+    "observations-is-a-folder": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), (f / "observations.csv").mkdir()),
+    "observations-symlink-loop": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), (f / "observations.csv").symlink_to("observations.csv")),
+    "observations-fifo": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), os.mkfifo(f / "observations.csv")),
+    "header-quoted-newline": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS, OBS_HEADER.replace(",taxon,", ',"tax\non",')).encode()),
+    "ctrl-z-at-end": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode() + b"\x1a"),
+    "control-character-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "Table\x071")),
     "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
     "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
@@ -516,3 +526,40 @@ def test_audit_without_a_taxon_column_in_taxa_is_a_clear_exit_2(tmp_path, capsys
     err = capsys.readouterr().err
     assert "taxa.csv" in err and "'taxon'" in err and "missing" in err
     assert "Traceback" not in err and "internal error" not in err
+
+
+@pytest.mark.parametrize("case,rule,words,row", [
+    ("utf16-le-no-bom", "encoding", "UTF-16 (little-endian) text without a byte-order mark", None),
+    ("utf16-be-no-bom", "encoding", "UTF-16 (big-endian) text without a byte-order mark", None),
+    ("nul-after-4kib", "file-format", "NUL bytes (first on line 8", 8),
+    ("observations-is-a-folder", "not-a-file", "observations.csv is a folder", None),
+    ("observations-symlink-loop", "not-a-file", "observations.csv is a symbolic link that loops", None),
+    ("observations-fifo", "not-a-file", "observations.csv is a named pipe", None),
+    ("header-quoted-newline", "header-line-break", "the header row has an unclosed quote", 1),
+    ("control-character-in-cell", "control-character", "control character 0x07", 2),
+])
+def test_unreadable_files_say_why(tmp_path, case, rule, words, row):
+    """Each unreadable observations file gets one error that says what it is, at the
+    place it is (UTF-16 without a byte-order mark used to be called 'NUL bytes'; a NUL
+    after the first 4 KiB went unnoticed; a folder named observations.csv was 'missing')."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    errors = probs[probs["severity"] == "error"]
+    assert len(errors) == 1, errors.to_dict("records")
+    assert errors["rule"].iat[0] == rule and words in errors["message"].iat[0]
+    assert errors["file"].iat[0].startswith("observations.csv")
+    got = errors["row"].iat[0]
+    assert (None if pd.isna(got) else int(got)) == row
+    assert main(["check", str(folder)]) == 2
+
+
+def test_ctrl_z_at_the_end_is_ignored_with_a_warning(tmp_path):
+    """A trailing Ctrl-Z (0x1A, the end-of-file marker of old editors) is not a row."""
+    folder = tmp_path / "z"
+    CASES["ctrl-z-at-end"](folder)
+    res = _read_as(folder)
+    plain = _read_as(write_dataset(tmp_path / "plain"))
+    pd.testing.assert_frame_equal(res[0], plain[0])
+    probs = _problems(folder)
+    assert list(probs.loc[probs["rule"] == "end-of-file-marker", "severity"]) == ["warning"]
