@@ -356,15 +356,49 @@ def read_bibtex(path: Path) -> tuple[RawTable | None, list[Problem]]:
     recs, rows = [], []
     for entry in lib.entries:
         f = {k.lower(): _strip_braces(fld.value) for k, fld in entry.fields_dict.items()}
-        author, year, title = f.get("author", ""), f.get("year", ""), f.get("title", "")
-        venue = f.get("journal") or f.get("booktitle") or f.get("publisher") or ""
-        parts = [p for p in (author, f"({year})" if year else "", title, venue) if p]
-        recs.append({"source_id": entry.key, "citation": ". ".join(parts), "year": year, "doi": f.get("doi", ""), "url": f.get("url", ""), "notes": f.get("note", "")})
+        recs.append({"source_id": entry.key, "citation": bibtex_citation(f), "year": f.get("year", ""), "doi": f.get("doi", ""), "url": f.get("url", ""), "notes": f.get("note", "")})
         rows.append((entry.start_line or 0) + 1)
     if not recs:
         return None, probs or [_err(file, "empty-file", "BibTeX file holds no entries")]
     frame = pd.DataFrame(recs, columns=["source_id", "citation", "year", "doi", "url", "notes"]).astype(str)
     return RawTable(file, frame, rows, _nfc_cells(frame, rows)), probs
+
+
+def _sentence(text: str) -> str:
+    """*text* ending in exactly one full stop (or its own '?' or '!')."""
+    t = text.strip().rstrip(".").rstrip()
+    return "" if not t else t if t[-1] in "?!" else t + "."
+
+
+def _authors(text: str) -> str:
+    """BibTeX's 'A and B and C' as 'A, B and C'."""
+    names = [n.strip() for n in re.split(r"\s+and\s+", text.strip()) if n.strip()]
+    return names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1] if names else ""
+
+
+def bibtex_citation(f: dict[str, str]) -> str:
+    """A citation that reads like one, from the fields of a BibTeX entry (lower-case keys):
+    ``Authors (year). Title. Journal volume(issue): pages.`` Each part ends in one full
+    stop; missing parts are left out; page ranges get an en dash."""
+    head = _authors(f.get("author", "") or f.get("editor", ""))
+    year = f.get("year", "")
+    if year:
+        head = f"{head} ({year})" if head else f"({year})"
+    venue = f.get("journal", "")
+    if not venue and f.get("booktitle"):
+        venue = "In " + f["booktitle"]
+    volume, number = f.get("volume", ""), f.get("number", "") or f.get("issue", "")
+    pages = re.sub(r"\s*-{1,3}\s*", "\u2013", f.get("pages", ""))
+    where = venue
+    if volume:
+        where += f" {volume}" if where else f"Vol. {volume}"
+    if number:
+        where += f"({number})"
+    if pages:
+        where += f": {pages}" if where else f"pp. {pages}"
+    publisher = f.get("publisher", "") if not f.get("journal") else ""
+    parts = [_sentence(p) for p in (head, f.get("title", ""), where.strip(), publisher) if p and p.strip()]
+    return " ".join(p for p in parts if p)
 
 
 def _strip_braces(v: Any) -> str:

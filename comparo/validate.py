@@ -397,14 +397,31 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     return obs, probs
 
 
+_DOI_PREFIX = re.compile(r"^\s*(?:(?:https?://)?(?:dx\.)?doi\.org/|doi:\s*)", re.I)
+
+
+def normalise_doi(text: str) -> str:
+    """A DOI as the bare name ``10.xxxx/...``: a ``https://doi.org/`` (or ``dx.doi.org``)
+    URL and a ``doi:`` prefix are removed, once; anything else is kept as typed."""
+    t = (text or "").strip()
+    return _DOI_PREFIX.sub("", t, count=1).strip()
+
+
+def normalise_dois(s: pd.Series) -> pd.Series:
+    """:func:`normalise_doi` over a column of DOIs."""
+    return map_distinct(s.fillna("").astype(str), normalise_doi)
+
+
 def _source_problems(raw: RawTable) -> list[Problem]:
     probs: list[Problem] = []
     if "doi" not in raw.frame:
         return probs
-    doi = raw.frame["doi"].str.replace(r"^(https?://(dx\.)?doi\.org/|doi:\s*)", "", regex=True, flags=re.I)
+    doi = normalise_dois(raw.frame["doi"])
     bad = (doi != "") & ~doi.str.match(_DOI)
     for i in np.flatnonzero(bad.to_numpy()):
-        probs.append(Problem("warning", raw.file, raw.rows[i], "doi", raw.frame["doi"].iat[i], "doi-format", "malformed DOI", "a DOI looks like 10.1234/abcd (a https://doi.org/ prefix is fine)"))
+        probs.append(Problem("warning", raw.file, raw.rows[i], "doi", raw.frame["doi"].iat[i], "doi-format",
+                             f"{doi.iat[i]!r} does not look like a DOI (10.xxxx/...)",
+                             "a DOI starts with 10., a registrant code of 4-9 digits and '/' (a https://doi.org/ or doi: prefix is fine)"))
     return probs
 
 
@@ -417,7 +434,7 @@ def _settings_problems(settings: dict[str, Any], catalog: Catalog) -> list[Probl
         if key not in catalog:
             probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", f"Q10 given for unknown quantity {key!r}", "use a catalogue key"))
         elif not isinstance(v, int | float) or isinstance(v, bool) or v <= 0:
-            probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", "Q10 must be a positive number", "typical biological Q10 is 2-3 (from memory)"))
+            probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", "Q10 must be a positive number", "typical biological Q10 is 2-3 (rule of thumb)"))
         elif not catalog[key].temperature_sensitive:
             probs.append(Problem("warning", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", f"{key} is not temperature-sensitive; its Q10 is ignored", ""))
     return probs
@@ -557,6 +574,8 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
             first_error[p.row] = f"{p.rule}: {p.message}"
     obs["problem"] = [first_error.get(r, "") for r in obs["row"]]
     sources = raw.sources.frame.copy()
+    if "doi" in sources:  # one form for links and exports: the bare 10.xxxx/... name
+        sources["doi"] = normalise_dois(sources["doi"])
     taxa = None
     if raw.taxa is not None:
         taxa = raw.taxa.frame.copy()

@@ -75,6 +75,28 @@ def _taxa(folder, text: str, rows=None):
     (folder / "taxa.csv").write_text(text, encoding="utf-8")
 
 
+_DOI_SOURCES = ("source_id,citation,year,doi\n"
+                "s1,Invented A. (2001) One,2001,https://doi.org/10.1000/abc\n"
+                "s2,Invented B. (2002) Two,2002,doi: 10.1000/XYZ.2\n"
+                "s3,Invented C. (2003) Three,2003,http://dx.doi.org/10.12345/q-1\n"
+                "s4,Invented D. (2004) Four,2004,see the journal\n")
+_BIB = """@article{s1,
+  author = {Invented, A. and Madeup, B. and Notreal, C.},
+  title = {A {made-up} study of fibres.},
+  journal = {J. Invented Biol.},
+  year = {2001}, volume = {204}, number = {3}, pages = {117--125},
+  doi = {https://doi.org/10.1000/abc}
+}
+@book{s2,
+  author = {Invented, B.},
+  title = {Is this a book?},
+  publisher = {Nowhere Press},
+  year = {2002},
+  doi = {doi:10.1000/def}
+}
+"""
+
+
 def _markup(folder):
     """Console markup in names, ids, cells, column names, sources, taxa and settings."""
     rows = [r.replace("Table 1", "[/b]").replace("Bombus terrestris", "Bombus [/red]terrestris").replace(",s1,", ",[/i]s1,") + ",[bold]x[/]" for r in VALID_ROWS]
@@ -162,6 +184,8 @@ CASES = {
     "header-quoted-newline": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS, OBS_HEADER.replace(",taxon,", ',"tax\non",')).encode()),
     "ctrl-z-at-end": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode() + b"\x1a"),
     "control-character-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "Table\x071")),
+    "doi-forms": lambda f: write_dataset(f, sources=_DOI_SOURCES),
+    "bibtex-doi-url": lambda f: (write_dataset(f), (f / "sources.csv").unlink(), (f / "sources.bib").write_text(_BIB, encoding="utf-8")),
     "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
     "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
@@ -563,3 +587,70 @@ def test_ctrl_z_at_the_end_is_ignored_with_a_warning(tmp_path):
     pd.testing.assert_frame_equal(res[0], plain[0])
     probs = _problems(folder)
     assert list(probs.loc[probs["rule"] == "end-of-file-marker", "severity"]) == ["warning"]
+
+
+def test_dois_are_bare_names_and_odd_ones_warned(tmp_path):
+    """DOIs typed as doi.org URLs or with a 'doi:' prefix are stored once as the bare name
+    10.xxxx/... (the DOI Handbook's syntax, prefix '10.' + registrant code), so links are
+    https://doi.org/10.xxxx/..., never doubled; a DOI that is not 10.xxxx/... is a warning."""
+    from comparo.dataset import load
+
+    folder = tmp_path / "doi"
+    CASES["doi-forms"](folder)
+    ds = load(folder)
+    assert list(ds.sources["doi"]) == ["10.1000/abc", "10.1000/XYZ.2", "10.12345/q-1", "see the journal"]
+    probs = _problems(folder)
+    bad = probs[probs["rule"] == "doi-format"]
+    assert list(zip(bad["file"], bad["row"], bad["severity"], strict=True)) == [("sources.csv", 5, "warning")]
+    bib = tmp_path / "bib"
+    CASES["bibtex-doi-url"](bib)
+    assert list(load(bib).sources["doi"]) == ["10.1000/abc", "10.1000/def"]
+
+
+def test_citations_from_bibtex_read_like_citations(tmp_path):
+    """Author list, year, title, journal, volume(issue): pages, each part ending in one
+    full stop (no '..'), a page range with an en dash; a book keeps its publisher."""
+    from comparo.dataset import load
+
+    folder = tmp_path / "bib"
+    CASES["bibtex-doi-url"](folder)
+    cites = list(load(folder).sources["citation"])
+    assert cites == [
+        "Invented, A., Madeup, B. and Notreal, C. (2001). A made-up study of fibres. J. Invented Biol. 204(3): 117\u2013125.",
+        "Invented, B. (2002). Is this a book? Nowhere Press.",
+    ]
+
+
+def test_conflict_messages_show_both_values_units_rows_and_sources(tmp_path):
+    """100 mg and 0.5 g of one bee's body mass disagree (ratio 5 > 1.5): each side of the
+    conflict is shown with its value in kg, the value as reported, its row and source."""
+    folder = write_dataset(tmp_path / "c", [*VALID_ROWS, "o7,Apis mellifera,body_mass,0.5,g,,,,s2,Table 9,reported,,,"])
+    probs = _problems(folder)
+    msgs = list(probs.loc[probs["rule"] == "conflict", "message"])
+    assert len(msgs) == 2
+    for m in msgs:
+        assert "o1: 0.0001 kg (reported as 100 mg, row 2, source s1)" in m
+        assert "o7: 0.0005 kg (reported as 0.5 g, row 8, source s2)" in m
+
+
+def test_no_user_facing_text_says_from_memory(tmp_path, capsys):
+    """Plausible ranges cite a named source or call themselves a typical range (rule of
+    thumb); the phrase 'from memory' belongs in test comments only."""
+    import re as _re
+
+    from comparo.catalog import load_catalog, read_schema
+
+    for q in load_catalog().values():
+        if q.range:
+            assert "from memory" not in q.range_source
+            assert "rule of thumb" in q.range_source or _re.search(r"[A-Z][a-z]+.* (19|20)\d\d", q.range_source), q.key
+    derived = read_schema("derived.toml")
+    texts = [v for v in derived.get("settings_sources", {}).values() if isinstance(v, str)]
+    assert texts and not [t for t in texts if "from memory" in t]
+    folder = write_dataset(tmp_path / "oor", _rows_with(0, ",100,mg", ",100,Mg"))
+    (folder / "comparo.toml").write_text("[q10]\nattach_rate = -1\n", encoding="utf-8")
+    for cmd in ("check", "audit"):
+        main([cmd, str(folder)])
+        out = capsys.readouterr()
+        assert "from memory" not in out.out + out.err
+        assert cmd == "audit" or "rule of thumb" in out.out
