@@ -1,7 +1,7 @@
 """Harmonise a validated dataset and aggregate it to one row per taxon.
 
 Steps, each a pure function over the observation frame of a
-:class:`~comparo.io.Dataset`:
+:class:`~comparo.validate.Dataset`:
 
 1. names: reported names -> accepted names (taxa.csv), the mapping recorded;
 2. temperature: temperature-sensitive values -> the reference temperature
@@ -26,8 +26,7 @@ import numpy as np
 import pandas as pd
 
 from comparo.errors import Problem, problems_frame, problems_from_frame
-from comparo.io import Dataset
-from comparo.validate import BASIS_ORDER, WORKING_RANGE, CheckResult, map_distinct
+from comparo.validate import BASIS_ORDER, WORKING_RANGE, CheckResult, Dataset, map_distinct
 
 R_GAS = 8.314462618  # J mol^-1 K^-1 (CODATA 2018, exact)
 SLIP_POWERS = (3, 6, 1)  # orders of magnitude a unit slip typically shifts a value by

@@ -21,7 +21,7 @@ from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
-from comparo.errors import InputError, Problem, problems_frame
+from comparo.errors import InputError, Problem
 
 OBSERVATION_NAMES = ("observations.csv", "observations.tsv", "observations.txt", "observations.xlsx")
 SOURCE_NAMES = ("sources.csv", "sources.tsv", "sources.bib", "sources.xlsx")
@@ -566,79 +566,3 @@ def read_folder(folder: str | Path) -> RawDataset:
         raw.problems += p
     raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa) if t is not None])
     return raw
-
-
-# --------------------------------------------------------------------------- the dataset
-
-@dataclass
-class Dataset:
-    """A validated dataset folder.
-
-    Attributes
-    ----------
-    observations : pandas.DataFrame
-        The observation rows as typed (numbers parsed) plus, added by comparo:
-        ``row`` (spreadsheet row), ``quantity_key`` (catalogue key the value is
-        stored as, e.g. ``fiber_radius`` for a reported ``fiber_diameter``),
-        ``value_canonical`` and ``uncertainty_canonical`` (in ``unit_canonical``,
-        the catalogue's canonical unit) and ``basis_effective`` (``computed`` where
-        comparo converted a diameter).
-    sources, taxa : pandas.DataFrame
-        Bibliography and the optional taxa table (``None`` when absent).
-    tree : dendropy.Tree or None
-    settings : dict
-        Parsed comparo.toml (empty when absent).
-    catalog : comparo.catalog.Catalog
-    problems : pandas.DataFrame
-        Warnings found while loading (and errors when loaded with ``strict=False``).
-    """
-
-    folder: Path
-    observations: Any
-    sources: Any
-    taxa: Any
-    tree: Any
-    settings: dict[str, Any]
-    catalog: Any
-    problems: Any
-    files: dict[str, Path]
-    tree_text: str | None = None
-
-    @property
-    def rows_read(self) -> int:
-        """Number of observation rows read (blank lines excluded)."""
-        return len(self.observations)
-
-    @property
-    def reference_temperature_c(self) -> float:
-        """Reference temperature in °C for normalising rates (settings, default 25)."""
-        return float(self.settings.get("reference_temperature_c", 25.0))
-
-
-def load(folder: str | Path, *, strict: bool = True) -> Dataset:
-    """Read and validate a dataset folder.
-
-    Parameters
-    ----------
-    folder : path
-        Folder holding observations (.csv/.tsv/.xlsx), sources (.csv/.bib) and
-        optionally taxa.csv, tree.nwk and comparo.toml.
-    strict : bool
-        Raise on any error (default). With ``strict=False`` the rows with errors
-        are kept with the problems attached (``ds.problems``) so that the audit
-        can account for them.
-
-    Raises
-    ------
-    comparo.InputError
-        With every problem found (``.problems`` DataFrame), when errors exist.
-    """
-    from comparo.validate import validate
-
-    raw = read_folder(folder)
-    ds, problems = validate(raw)
-    frame = problems_frame(problems)
-    if ds is None or (strict and (frame["severity"] == "error").any()):
-        raise InputError(frame)
-    ds.problems = frame
-    return ds

@@ -15,6 +15,7 @@ import difflib
 import math
 import re
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -22,7 +23,7 @@ import pandas as pd
 
 from comparo.catalog import Catalog, load_catalog, read_schema
 from comparo.errors import InputError, Problem, problems_frame, problems_from_frame
-from comparo.io import Dataset, RawDataset, RawTable, read_folder
+from comparo.io import RawDataset, RawTable, read_folder
 
 BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
 _MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
@@ -535,10 +536,56 @@ def resolve_synonyms(taxa: RawTable) -> tuple[dict[str, str], list[Problem]]:
 
 # --------------------------------------------------------------------------- entry points
 
+@dataclass
+class Dataset:
+    """A validated dataset folder.
+
+    Attributes
+    ----------
+    observations : pandas.DataFrame
+        The observation rows as typed (numbers parsed) plus, added by comparo:
+        ``row`` (spreadsheet row), ``quantity_key`` (catalogue key the value is
+        stored as, e.g. ``fiber_radius`` for a reported ``fiber_diameter``),
+        ``value_canonical`` and ``uncertainty_canonical`` (in ``unit_canonical``,
+        the catalogue's canonical unit) and ``basis_effective`` (``computed`` where
+        comparo converted a diameter).
+    sources, taxa : pandas.DataFrame
+        Bibliography and the optional taxa table (``None`` when absent).
+    tree : dendropy.Tree or None
+    settings : dict
+        Parsed comparo.toml (empty when absent).
+    catalog : comparo.catalog.Catalog
+    problems : pandas.DataFrame
+        Warnings found while loading (and errors when loaded with ``strict=False``).
+    """
+
+    folder: Path
+    observations: Any
+    sources: Any
+    taxa: Any
+    tree: Any
+    settings: dict[str, Any]
+    catalog: Any
+    problems: Any
+    files: dict[str, Path]
+    tree_text: str | None = None
+
+    @property
+    def rows_read(self) -> int:
+        """Number of observation rows read (blank lines excluded)."""
+        return len(self.observations)
+
+    @property
+    def reference_temperature_c(self) -> float:
+        """Reference temperature in °C for normalising rates (settings, default 25)."""
+        return float(self.settings.get("reference_temperature_c", 25.0))
+
+
+
 def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
     """Validate what :func:`comparo.io.read_folder` read.
 
-    Returns the :class:`~comparo.io.Dataset` (``None`` when a table could not be
+    Returns the :class:`Dataset` (``None`` when a table could not be
     read at all) and every problem found; each observation row also carries
     ``problem`` (its first error, empty when none).
     """
@@ -627,6 +674,14 @@ class CheckResult:
 
     def to_frame(self) -> pd.DataFrame:
         return self.problems
+
+    def _repr_html_(self) -> str:
+        """Compact HTML for notebooks: the summary line and the first 20 problems."""
+        import html
+
+        shown = self.problems.head(20)[["severity", "file", "row", "column", "value", "rule", "message"]]
+        more = f"<p>... and {len(self.problems) - 20} more</p>" if len(self.problems) > 20 else ""
+        return f"<p>{html.escape(self.summary())}</p>" + shown.to_html(index=False, escape=True, na_rep="") + more
 
     def summary(self) -> str:
         verdict = "no errors" if self.ok else f"{self.n_errors} error(s)"

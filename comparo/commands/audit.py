@@ -8,7 +8,7 @@ from comparo.commands._common import dumps, emit
 
 
 def run(args) -> int:
-    from comparo.io import load
+    from comparo.dataset import load
     from comparo.provenance import audit
 
     ds = load(args.dataset, strict=False)
