@@ -444,17 +444,39 @@ def _cell(v) -> str:
     return "" if v is None or (isinstance(v, float) and not np.isfinite(v)) else f"{v:g}" if isinstance(v, float) else str(v)
 
 
+def gate_problems(ds: Dataset) -> list[Problem]:
+    """What a later step (derive, fit, report) would reject in this dataset, found by
+    ``comparo check`` first: settings types and ratio expressions, tree branch lengths
+    and tips. Each step contributes one function ``(Dataset) -> list[Problem]``; they
+    run whenever the dataset could be read, so every problem comes in one pass."""
+    found: list[Problem] = []
+    for hook in _gate_hooks():
+        found += hook(ds)
+    return found
+
+
+def _gate_hooks() -> list:
+    """The gate's checks, imported when ``check`` runs (one line per step)."""
+    hooks: list = []
+    return hooks
+
+
 def review(folder) -> CheckResult:
-    """:func:`comparo.validate.check` plus, when the table has no errors, the
-    curation :func:`diagnostics` (what ``comparo check`` prints)."""
+    """:func:`comparo.validate.check`, plus :func:`gate_problems`, plus (when the table
+    has no errors) the curation :func:`diagnostics`: what ``comparo check`` prints."""
     from dataclasses import replace
 
     from comparo.validate import check
 
     result = check(folder)
-    if result.ok and result.dataset is not None:
-        found = problems_from_frame(result.problems) + diagnostics(result.dataset)
-        result = replace(result, problems=problems_frame(found))
+    if result.dataset is None:
+        return result
+    gate = gate_problems(result.dataset)
+    extra = gate if (not result.ok or any(p.severity == "error" for p in gate)) else gate + diagnostics(result.dataset)
+    if not extra:
+        return result
+    result = replace(result, problems=problems_frame(problems_from_frame(result.problems) + extra))
+    result.dataset.problems = result.problems
     return result
 
 
