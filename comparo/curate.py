@@ -149,6 +149,13 @@ class Harmonised:
     reference_temperature_c: float | None = None
 
 
+def _numbers_only(table: Any) -> dict[str, float]:
+    """The numeric entries of a settings table (anything else is an error in check)."""
+    if not isinstance(table, dict):
+        return {}
+    return {k: float(v) for k, v in table.items() if isinstance(v, int | float) and not isinstance(v, bool)}
+
+
 def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool = True) -> Harmonised:
     """Names, temperature, uncertainty, duplicates, slips and conflicts (see module doc)."""
     cat = ds.catalog
@@ -159,8 +166,8 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
     ts = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].temperature_sensitive).to_numpy(dtype=bool)
     is_time = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].is_time).to_numpy(dtype=bool)
     settings = ds.settings
-    q10_set = settings.get("q10", {}) if isinstance(settings.get("q10", {}), dict) else {}
-    ea_set = settings.get("activation_energy_kj_mol", {}) if isinstance(settings.get("activation_energy_kj_mol", {}), dict) else {}
+    q10_set = _numbers_only(settings.get("q10", {}))
+    ea_set = _numbers_only(settings.get("activation_energy_kj_mol", {}))
     q10 = map_distinct(keys, lambda k: float(q10_set.get(k, cat[k].q10 or np.nan)) if k in cat else np.nan).to_numpy(dtype=float)
     q10 = np.where(np.isfinite(obs["q10"].to_numpy(dtype=float)), obs["q10"].to_numpy(dtype=float), q10)
     ea = map_distinct(keys, lambda k: float(ea_set.get(k, np.nan))).to_numpy(dtype=float)
@@ -327,7 +334,9 @@ def find_conflicts(obs: pd.DataFrame, ds: Dataset, factor: float | None = None) 
     the order the (taxon, quantity) first appears; rows in table order.
     Every pair within a group is compared (vectorised, in blocks).
     """
-    factor = float(factor or ds.settings.get("conflict_factor", DEFAULT_CONFLICT_FACTOR))
+    given = ds.settings.get("conflict_factor", DEFAULT_CONFLICT_FACTOR)
+    ok = isinstance(given, int | float) and not isinstance(given, bool) and math.isfinite(given) and given > 1
+    factor = float(factor or (given if ok else DEFAULT_CONFLICT_FACTOR))  # a bad setting is an error in check
     df = obs[(obs["status"] == "used") & np.isfinite(obs["value_h"])]
     if len(df) < 2:
         return []

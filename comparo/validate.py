@@ -426,18 +426,47 @@ def _source_problems(raw: RawTable) -> list[Problem]:
     return probs
 
 
+def _number(v: Any) -> bool:
+    return isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
+
+
 def _settings_problems(settings: dict[str, Any], catalog: Catalog) -> list[Problem]:
+    """Types and values of the settings that reading and harmonisation use (q10,
+    activation_energy_kj_mol, conflict_factor, aggregate, quantities, title, seed)."""
     probs: list[Problem] = []
-    q10 = settings.get("q10", {})
-    if not isinstance(q10, dict):
-        return [Problem("error", "comparo.toml", None, "q10", str(q10), "settings-value", "[q10] must be a table of quantity = Q10", "")]
-    for key, v in q10.items():
-        if key not in catalog:
-            probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", f"Q10 given for unknown quantity {key!r}", "use a catalogue key"))
-        elif not isinstance(v, int | float) or isinstance(v, bool) or v <= 0:
-            probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", "Q10 must be a positive number", "typical biological Q10 is 2-3 (rule of thumb)"))
-        elif not catalog[key].temperature_sensitive:
-            probs.append(Problem("warning", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", f"{key} is not temperature-sensitive; its Q10 is ignored", ""))
+
+    def bad(key: str, value: Any, message: str, hint: str = "", severity: str = "error") -> None:
+        probs.append(Problem(severity, "comparo.toml", None, key, str(value), "settings-value", message, hint))
+
+    for table, what, low, high, hint in (("q10", "Q10", 0.0, 100.0, "typical biological Q10 is 2-3 (rule of thumb)"),
+                                         ("activation_energy_kj_mol", "an activation energy in kJ/mol", 0.0, 1000.0, "muscle rate processes are of the order of 50-100 kJ/mol (rule of thumb)")):
+        given = settings.get(table, {})
+        if not isinstance(given, dict):
+            bad(table, given, f"[{table}] must be a table of quantity = number", f"for example [{table}] followed by attach_rate = 2.0")
+            continue
+        for key, v in given.items():
+            if key not in catalog:
+                close = difflib.get_close_matches(key, list(catalog), n=1)
+                bad(f"{table}.{key}", v, f"{what} given for unknown quantity {key!r}", f"did you mean {close[0]!r}?" if close else "use a catalogue key")
+            elif not _number(v) or not low < v <= high:
+                bad(f"{table}.{key}", v, f"{what} must be a number greater than {low:g} and at most {high:g}", hint)
+            elif not catalog[key].temperature_sensitive:
+                bad(f"{table}.{key}", v, f"{key} is not temperature-sensitive; this value is ignored", "", "warning")
+    cf = settings.get("conflict_factor")
+    if cf is not None and (not _number(cf) or cf <= 1):
+        bad("conflict_factor", cf, "conflict_factor must be a number greater than 1 (the ratio max/min above which two values of a taxon conflict)", "the default is 1.5 (common practice)")
+    agg = settings.get("aggregate")
+    if agg is not None and agg not in ("mean", "median"):
+        bad("aggregate", agg, "aggregate must be \"mean\" or \"median\"")
+    qs = settings.get("quantities")
+    if qs is not None and not isinstance(qs, dict):
+        bad("quantities", qs, "[quantities] must hold one table per quantity key", "for example [quantities.twitch_time] followed by unit = \"ms\"")
+    title = settings.get("title")
+    if title is not None and not isinstance(title, str):
+        bad("title", title, "title must be text in quotes")
+    seed = settings.get("seed")
+    if seed is not None and (not isinstance(seed, int) or isinstance(seed, bool) or not 0 <= seed < 2**63):
+        bad("seed", seed, "seed must be a whole number from 0 to 2^63 - 1")
     return probs
 
 
@@ -591,7 +620,8 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
     """
     problems = list(raw.problems)
     try:
-        catalog = load_catalog(raw.settings.get("quantities"))
+        extra = raw.settings.get("quantities")
+        catalog = load_catalog(extra if isinstance(extra, dict) else None)
     except InputError as exc:
         problems += problems_from_frame(exc.problems)
         catalog = load_catalog()

@@ -97,6 +97,11 @@ _BIB = """@article{s1,
 """
 
 
+def _toml(folder, text: str):
+    write_dataset(folder)
+    (folder / "comparo.toml").write_text(text, encoding="utf-8")
+
+
 def _markup(folder):
     """Console markup in names, ids, cells, column names, sources, taxa and settings."""
     rows = [r.replace("Table 1", "[/b]").replace("Bombus terrestris", "Bombus [/red]terrestris").replace(",s1,", ",[/i]s1,") + ",[bold]x[/]" for r in VALID_ROWS]
@@ -186,6 +191,15 @@ CASES = {
     "control-character-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "Table\x071")),
     "doi-forms": lambda f: write_dataset(f, sources=_DOI_SOURCES),
     "bibtex-doi-url": lambda f: (write_dataset(f), (f / "sources.csv").unlink(), (f / "sources.bib").write_text(_BIB, encoding="utf-8")),
+    "settings-conflict-factor-text": lambda f: _toml(f, 'conflict_factor = "abc"\n'),
+    "settings-conflict-factor-below-1": lambda f: _toml(f, "conflict_factor = 0.5\n"),
+    "settings-aggregate-number": lambda f: _toml(f, "aggregate = 5\n"),
+    "settings-q10-list": lambda f: _toml(f, "q10 = [1, 2]\n"),
+    "settings-q10-inf": lambda f: _toml(f, "[q10]\nattach_rate = inf\n"),
+    "settings-activation-text": lambda f: _toml(f, '[activation_energy_kj_mol]\nattach_rate = "high"\n'),
+    "settings-quantities-string": lambda f: _toml(f, 'quantities = "twitch"\n'),
+    "settings-seed-text": lambda f: _toml(f, 'seed = "abc"\n'),
+    "settings-title-table": lambda f: _toml(f, "[title]\nx = 1\n"),
     "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
     "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
@@ -682,3 +696,21 @@ def test_check_is_the_gate(tmp_path, capsys, case):
         if cmd == "fit" and code == 2 and any(m in text for m in _NOTHING_TO_FIT):
             continue
         assert code == 0, f"check passed (exit {gate}) but {cmd} exits {code}: {text[-2000:]}"
+
+
+@pytest.mark.parametrize("case,column", [
+    ("settings-conflict-factor-text", "conflict_factor"), ("settings-conflict-factor-below-1", "conflict_factor"),
+    ("settings-aggregate-number", "aggregate"), ("settings-q10-list", "q10"), ("settings-q10-inf", "q10.attach_rate"),
+    ("settings-activation-text", "activation_energy_kj_mol.attach_rate"), ("settings-quantities-string", "quantities"),
+    ("settings-seed-text", "seed"), ("settings-title-table", "title"),
+])
+def test_settings_of_the_wrong_type_are_one_error_each(tmp_path, case, column):
+    """A string where a number belongs, a list where a table belongs, an infinite Q10, a
+    conflict factor of 1 or less: one error naming the setting (conflict_factor = "abc"
+    used to end table with exit 3)."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    errors = probs[probs["severity"] == "error"]
+    assert list(zip(errors["file"], errors["column"], strict=True)) == [("comparo.toml", column)]
+    assert main(["check", str(folder)]) == 2
