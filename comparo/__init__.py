@@ -19,9 +19,9 @@ __version__ = "0.1.0"
 
 # public name -> module that defines it
 _API = {
-    "load": "comparo.io",
-    "Dataset": "comparo.io",
-    "check": "comparo.validate",
+    "load": "comparo.dataset",
+    "Dataset": "comparo.dataset",
+    "check": "comparo.dataset",
     "InputError": "comparo.errors",
     "Catalog": "comparo.catalog",
     "load_catalog": "comparo.catalog",

@@ -1,7 +1,7 @@
 """Harmonise a validated dataset and aggregate it to one row per taxon.
 
 Steps, each a pure function over the observation frame of a
-:class:`~comparo.io.Dataset`:
+:class:`~comparo.validate.Dataset`:
 
 1. names: reported names -> accepted names (taxa.csv), the mapping recorded;
 2. temperature: temperature-sensitive values -> the reference temperature
@@ -26,8 +26,7 @@ import numpy as np
 import pandas as pd
 
 from comparo.errors import Problem, problems_frame, problems_from_frame
-from comparo.io import Dataset
-from comparo.validate import BASIS_ORDER, CheckResult, map_distinct
+from comparo.validate import BASIS_ORDER, WORKING_RANGE, CheckResult, Dataset, map_distinct
 
 R_GAS = 8.314462618  # J mol^-1 K^-1 (CODATA 2018, exact)
 SLIP_POWERS = (3, 6, 1)  # orders of magnitude a unit slip typically shifts a value by
@@ -40,7 +39,7 @@ CONFLICT_COVERAGE = 2.0  # common practice: |a - b| > 2 u_c (about 95% for norma
 def accepted_names(ds: Dataset) -> pd.Series:
     """Accepted name per observation row (taxa.csv ``accepted_name`` where given)."""
     taxon = ds.observations["taxon"]
-    if ds.taxa is None or "accepted_name" not in ds.taxa:
+    if ds.taxa is None or "accepted_name" not in ds.taxa or "taxon" not in ds.taxa:
         return taxon.copy()
     mapping = {t: a for t, a in zip(ds.taxa["taxon"], ds.taxa["accepted_name"], strict=True) if a}
     return map_distinct(taxon, lambda t: mapping.get(t, t))
@@ -48,7 +47,7 @@ def accepted_names(ds: Dataset) -> pd.Series:
 
 def grouping_columns(ds: Dataset) -> list[str]:
     """Columns of taxa.csv that group taxa (everything except the name columns)."""
-    if ds.taxa is None:
+    if ds.taxa is None or "taxon" not in ds.taxa:  # without names, nothing can be grouped
         return []
     return [c for c in ds.taxa.columns if c not in ("taxon", "accepted_name", "tree_label")]
 
@@ -112,9 +111,10 @@ def temperature_factor(t_meas: np.ndarray, t_ref: float, q10: np.ndarray, ea_kj:
     T in kelvin. A time (kinetic_time) gets the reciprocal factor.
     NaN where the temperature is unknown.
     """
-    arr = np.exp(-(ea_kj * 1e3) / R_GAS * (1.0 / (t_ref + 273.15) - 1.0 / (t_meas + 273.15)))
-    fac = np.where(np.isfinite(ea_kj), arr, q10 ** ((t_ref - t_meas) / 10.0))
-    return np.where(is_time, 1.0 / fac, fac)
+    with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
+        arr = np.exp(-(ea_kj * 1e3) / R_GAS * (1.0 / (t_ref + 273.15) - 1.0 / (t_meas + 273.15)))
+        fac = np.where(np.isfinite(ea_kj), arr, q10 ** ((t_ref - t_meas) / 10.0))
+        return np.where(is_time, 1.0 / fac, fac)
 
 
 def q10_from_activation_energy(ea_kj_mol: float, t1_c: float, t2_c: float) -> float:
@@ -149,6 +149,13 @@ class Harmonised:
     reference_temperature_c: float | None = None
 
 
+def _numbers_only(table: Any) -> dict[str, float]:
+    """The numeric entries of a settings table (anything else is an error in check)."""
+    if not isinstance(table, dict):
+        return {}
+    return {k: float(v) for k, v in table.items() if isinstance(v, int | float) and not isinstance(v, bool)}
+
+
 def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool = True) -> Harmonised:
     """Names, temperature, uncertainty, duplicates, slips and conflicts (see module doc)."""
     cat = ds.catalog
@@ -159,8 +166,8 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
     ts = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].temperature_sensitive).to_numpy(dtype=bool)
     is_time = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].is_time).to_numpy(dtype=bool)
     settings = ds.settings
-    q10_set = settings.get("q10", {}) if isinstance(settings.get("q10", {}), dict) else {}
-    ea_set = settings.get("activation_energy_kj_mol", {}) if isinstance(settings.get("activation_energy_kj_mol", {}), dict) else {}
+    q10_set = _numbers_only(settings.get("q10", {}))
+    ea_set = _numbers_only(settings.get("activation_energy_kj_mol", {}))
     q10 = map_distinct(keys, lambda k: float(q10_set.get(k, cat[k].q10 or np.nan)) if k in cat else np.nan).to_numpy(dtype=float)
     q10 = np.where(np.isfinite(obs["q10"].to_numpy(dtype=float)), obs["q10"].to_numpy(dtype=float), q10)
     ea = map_distinct(keys, lambda k: float(ea_set.get(k, np.nan))).to_numpy(dtype=float)
@@ -176,11 +183,16 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         note[ts & ~np.isfinite(t_meas)] = "no temperature: used un-normalised"
     obs["temperature_factor"] = factor
     obs["temperature_note"] = note
-    obs["value_h"] = obs["value_canonical"].to_numpy(dtype=float) * factor
-    obs["u_h"] = obs["u_h"].to_numpy(dtype=float) * factor
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        obs["value_h"] = obs["value_canonical"].to_numpy(dtype=float) * factor
+        obs["u_h"] = obs["u_h"].to_numpy(dtype=float) * factor
 
     status = np.where(obs["problem"] != "", "excluded", "used").astype(object)
     reason = obs["problem"].to_numpy(dtype=object).copy()
+    for bad, why in _beyond_range(obs):
+        take = bad & (status == "used")
+        status[take] = "excluded"
+        reason[take] = why
     merged_into = np.full(len(obs), "", dtype=object)
 
     # duplicates: same source, locator, taxon, quantity and value (to 6 significant digits)
@@ -206,6 +218,21 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         obs.loc[m, "reason"] = [f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit {slip_ids[o]['likely_unit']}" for o in obs.loc[m, "obs_id"]]
     h.conflicts = find_conflicts(obs, ds)
     return h
+
+
+def _beyond_range(obs: pd.DataFrame) -> list[tuple[np.ndarray, str]]:
+    """Rows whose harmonised value or uncertainty left the range of a double or
+    :data:`~comparo.validate.WORKING_RANGE` (an extreme temperature factor), with the reason."""
+    lo, hi = WORKING_RANGE
+    vc = obs["value_canonical"].to_numpy(dtype=float)
+    out = []
+    for col, name in (("value_h", "value"), ("u_h", "uncertainty")):
+        h = obs[col].to_numpy(dtype=float)
+        src = vc if col == "value_h" else obs["uncertainty_canonical"].to_numpy(dtype=float)
+        with np.errstate(invalid="ignore"):
+            bad = np.isfinite(src) & (src != 0) & (~np.isfinite(h) | (np.abs(h) < lo) | (np.abs(h) > hi))
+        out.append((bad, f"temperature normalisation takes the {name} outside the range comparo computes with ({lo:g} to {hi:g} in the canonical unit): check temperature_c and the Q10"))
+    return out
 
 
 _SLIP_UNITS = {
@@ -307,7 +334,9 @@ def find_conflicts(obs: pd.DataFrame, ds: Dataset, factor: float | None = None) 
     the order the (taxon, quantity) first appears; rows in table order.
     Every pair within a group is compared (vectorised, in blocks).
     """
-    factor = float(factor or ds.settings.get("conflict_factor", DEFAULT_CONFLICT_FACTOR))
+    given = ds.settings.get("conflict_factor", DEFAULT_CONFLICT_FACTOR)
+    ok = isinstance(given, int | float) and not isinstance(given, bool) and math.isfinite(given) and given > 1
+    factor = float(factor or (given if ok else DEFAULT_CONFLICT_FACTOR))  # a bad setting is an error in check
     df = obs[(obs["status"] == "used") & np.isfinite(obs["value_h"])]
     if len(df) < 2:
         return []
@@ -358,13 +387,38 @@ def find_conflicts(obs: pd.DataFrame, ds: Dataset, factor: float | None = None) 
     src = df["source_id"].to_numpy(object)
     val = df["value_h"].to_numpy(float)
     rw = df["row"].to_numpy()
+    unit = df["unit_canonical"].to_numpy(object)
+    typed = (df["value"].map(lambda v: f"{v:g}") + " " + df["unit"]).to_numpy(object)
     out = []
     cuts = np.flatnonzero(np.diff(gi)) + 1
     for part in np.split(rows_of, cuts):
         out.append({"taxon": acc[part[0]], "quantity": qk[part[0]], "obs_ids": [oid[i] for i in part],
                     "sources": sorted({src[i] for i in part}), "values": [float(val[i]) for i in part],
-                    "rows": [int(rw[i]) for i in part]})
+                    "unit": _pretty(unit[part[0]]), "rows": [int(rw[i]) for i in part],
+                    "source_ids": [src[i] for i in part], "reported": [typed[i] for i in part]})
     return out
+
+
+def _pretty(unit: str) -> str:
+    from comparo import units
+
+    try:
+        return units.pretty(unit)
+    except Exception:  # a unit the catalogue accepted always parses; keep the text otherwise
+        return unit
+
+
+def describe_value(conflict: dict[str, Any], i: int) -> str:
+    """One value of a conflict as a reader needs it: ``o3: 0.0001 kg (reported as 100 mg,
+    row 2, source s1)``; the value is the harmonised one, in the canonical unit."""
+    v = f"{conflict['values'][i]:.4g} {conflict['unit']}"
+    typed = conflict.get("reported", [None] * (i + 1))[i]
+    where = [f"reported as {typed}"] if typed and typed.replace(" ", "") != v.replace(" ", "") else []
+    where.append(f"row {conflict['rows'][i]}")
+    src = conflict.get("source_ids", [None] * (i + 1))[i]
+    if src:
+        where.append(f"source {src}")
+    return f"{conflict['obs_ids'][i]}: {v} ({', '.join(where)})"
 
 
 def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
@@ -374,14 +428,17 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
     file = ds.files["observations"].name if "observations" in ds.files else "observations"
     rows = h.rows
     out: list[Problem] = []
+    beyond = (rows["status"] == "excluded") & (rows["problem"] == "") & rows["reason"].str.startswith("temperature normalisation")
+    for r in rows[beyond].itertuples():
+        out.append(Problem("error", file, int(r.row), "temperature_c", _cell(r.temperature_c), "temperature-factor-range", r.reason, "the row is excluded from every table and fit until fixed"))
     for r in rows[rows["status"] == "merged"].itertuples():
         out.append(Problem("warning", file, int(r.row), "obs_id", r.obs_id, "duplicate-row", r.reason, "it is merged, not double counted; delete one of the two rows"))
     for s in h.unit_slips:
         out.append(Problem("warning", file, s["row"], "unit", s["unit"], "unit-slip", f"{s['quantity']} of {s['taxon']} is ~10^{s['power']} off the group median ({s['group_median']:.3g}); likely unit {s['likely_unit']}", "check the unit; the value is excluded from aggregation until fixed"))
     for c in h.conflicts:
-        for oid, row in zip(c["obs_ids"], c["rows"], strict=True):
-            others = ", ".join(o for o in c["obs_ids"] if o != oid)
-            out.append(Problem("warning", file, row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']} disagrees with {others} (sources {', '.join(c['sources'])})", "check both sources; the per-taxon value combines them"))
+        for i, (oid, row) in enumerate(zip(c["obs_ids"], c["rows"], strict=True)):
+            others = "; ".join(describe_value(c, j) for j in range(len(c["obs_ids"])) if j != i)
+            out.append(Problem("warning", file, row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']}: {describe_value(c, i)} disagrees with {others}", "check both sources; the per-taxon value combines them"))
     for b in ("digitized", "proxy", "assumed"):
         for r in rows[rows["basis"] == b].itertuples():
             extra = f" (stands in from {r.proxy_taxon})" if b == "proxy" else ""
@@ -392,17 +449,43 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
     return out
 
 
+def _cell(v) -> str:
+    return "" if v is None or (isinstance(v, float) and not np.isfinite(v)) else f"{v:g}" if isinstance(v, float) else str(v)
+
+
+def gate_problems(ds: Dataset) -> list[Problem]:
+    """What a later step (derive, fit, report) would reject in this dataset, found by
+    ``comparo check`` first: settings types and ratio expressions, tree branch lengths
+    and tips. Each step contributes one function ``(Dataset) -> list[Problem]``; they
+    run whenever the dataset could be read, so every problem comes in one pass."""
+    found: list[Problem] = []
+    for hook in _gate_hooks():
+        found += hook(ds)
+    return found
+
+
+def _gate_hooks() -> list:
+    """The gate's checks, imported when ``check`` runs (one line per step)."""
+    hooks: list = []
+    return hooks
+
+
 def review(folder) -> CheckResult:
-    """:func:`comparo.validate.check` plus, when the table has no errors, the
-    curation :func:`diagnostics` (what ``comparo check`` prints)."""
+    """:func:`comparo.validate.check`, plus :func:`gate_problems`, plus (when the table
+    has no errors) the curation :func:`diagnostics`: what ``comparo check`` prints."""
     from dataclasses import replace
 
     from comparo.validate import check
 
     result = check(folder)
-    if result.ok and result.dataset is not None:
-        found = problems_from_frame(result.problems) + diagnostics(result.dataset)
-        result = replace(result, problems=problems_frame(found))
+    if result.dataset is None:
+        return result
+    gate = gate_problems(result.dataset)
+    extra = gate if (not result.ok or any(p.severity == "error" for p in gate)) else gate + diagnostics(result.dataset)
+    if not extra:
+        return result
+    result = replace(result, problems=problems_frame(problems_from_frame(result.problems) + extra))
+    result.dataset.problems = result.problems
     return result
 
 
@@ -428,6 +511,18 @@ def _combine(part: pd.DataFrame, how: str) -> tuple[float, float]:
     w = np.where(np.isfinite(n) & (n > 0), n, 1.0)
     mean = float(np.sum(w * v) / np.sum(w))
     return mean, float(np.std(v, ddof=1) / math.sqrt(len(v)))
+
+
+def _ivw_scaled(V: np.ndarray, U: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Inverse-variance weighted mean and its Birge-inflated standard uncertainty per row,
+    with weights (min u / u)^2 <= 1 so that no weight over- or underflows."""
+    k = V.shape[1]
+    umin = U.min(axis=1, keepdims=True)
+    W = (umin / U) ** 2
+    sw = W.sum(axis=1)
+    mean = np.sum(W * V, axis=1) / sw
+    spread = np.sqrt(np.sum(W * (V - mean[:, None]) ** 2, axis=1) / (k - 1))  # = Birge ratio x min u
+    return mean, np.maximum(umin[:, 0], spread) / np.sqrt(sw)
 
 
 def _aggregate(part: pd.DataFrame, q: str, how: str, rank: dict[str, int]) -> pd.DataFrame:
@@ -467,8 +562,12 @@ def _aggregate(part: pd.DataFrame, q: str, how: str, rank: dict[str, int]) -> pd
                 mean = np.sum(W * Vi, axis=1) / sw
                 chi2 = np.sum(W * (Vi - mean[:, None]) ** 2, axis=1)
                 birge = np.sqrt(chi2 / (k - 1))  # Birge ratio: inflate when values scatter more than their uncertainties
+                u_c = (1.0 / np.sqrt(sw)) * np.where(birge > 1.0, birge, 1.0)
+                off = ~(np.isfinite(mean) & np.isfinite(u_c))
+                if off.any():  # weights 1/u^2 over- or underflowed: the same mean with weights scaled by min(u)^2
+                    mean[off], u_c[off] = _ivw_scaled(Vi[off], U[ivw][off])
                 val[gs[ivw]] = mean
-                unc[gs[ivw]] = (1.0 / np.sqrt(sw)) * np.where(birge > 1.0, birge, 1.0)
+                unc[gs[ivw]] = u_c
             if (~ivw).any():
                 Vn, Nn = V[~ivw], N[~ivw]
                 W = np.where(np.isfinite(Nn) & (Nn > 0), Nn, 1.0)

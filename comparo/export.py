@@ -27,7 +27,7 @@ import pandas as pd
 from comparo.catalog import read_schema
 from comparo.csvsafe import to_csv
 from comparo.curate import per_taxon
-from comparo.io import Dataset
+from comparo.dataset import Dataset
 
 DWC_TERMS = [
     "measurementID", "scientificName", "measurementType", "measurementValue", "measurementUnit",

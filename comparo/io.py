@@ -15,12 +15,13 @@ import io as _io
 import logging
 import re
 import tomllib
+import unicodedata
 from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
-from comparo.errors import InputError, Problem, problems_frame
+from comparo.errors import InputError, Problem
 
 OBSERVATION_NAMES = ("observations.csv", "observations.tsv", "observations.txt", "observations.xlsx")
 SOURCE_NAMES = ("sources.csv", "sources.tsv", "sources.bib", "sources.xlsx")
@@ -45,6 +46,8 @@ class RawTable:
     file: str
     frame: Any  # pandas.DataFrame of str
     rows: list[int]
+    # cells not typed in Unicode NFC: NFC text -> {text as typed: [(column, row), ...]}
+    respelled: dict[str, dict[str, list[tuple[str, int]]]] = field(default_factory=dict)
 
     def __len__(self) -> int:
         return len(self.frame)
@@ -82,10 +85,18 @@ def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
             return None, [_err(file, "encoding", f"file starts with a UTF-16 byte-order mark but is not valid UTF-16 ({exc.reason})", "re-save the file as UTF-8 CSV")]
     if data.startswith(b"PK\x03\x04"):
         return None, [_err(file, "file-format", "this is a zip/XLSX workbook, not a text table", "name it .xlsx, or export the sheet as CSV (UTF-8)")]
-    if b"\x00" in data[:4096]:
-        return None, [_err(file, "file-format", "file contains NUL bytes: not a text table", "export the table as CSV (UTF-8)")]
+    nul = data.find(b"\x00")
+    if nul >= 0:
+        endian = _utf16_without_bom(data)
+        if endian:
+            return None, [_err(file, "encoding", f"file is UTF-16 ({endian}-endian) text without a byte-order mark", "re-save the file as UTF-8 (or as UTF-16 with a byte-order mark)")]
+        line = data[:nul].count(b"\n") + 1
+        return None, [_err(file, "file-format", f"file contains NUL bytes (first on line {line}, byte {nul + 1}): not a text table", "export the table as CSV (UTF-8); a NUL byte is often a binary file or a broken copy", row=line)]
     if data.startswith(b"\xef\xbb\xbf"):
         data = data[3:]
+    if data.endswith(b"\x1a"):  # Ctrl-Z, an old end-of-file marker
+        data = data.rstrip(b"\x1a")
+        probs.append(_err(file, "end-of-file-marker", "file ends with a Ctrl-Z (byte 0x1A) end-of-file marker; ignored", "nothing to do; re-saving the file removes it", severity="warning"))
     try:
         return data.decode("utf-8"), probs
     except UnicodeDecodeError as exc:
@@ -96,6 +107,49 @@ def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
             return None, [_err(file, "encoding", f"file is not UTF-8 text (byte 0x{data[exc.start]:02X} on line {line})", "re-save the file as UTF-8", row=line)]
         probs.append(_err(file, "encoding", f"file is not UTF-8 (first non-UTF-8 byte 0x{data[exc.start]:02X} on line {line}); read as Windows-1252/Latin-1", "check accented names, and re-save as UTF-8 to silence this", row=line, severity="warning"))
         return text, probs
+
+
+def nfc(text: str) -> str:
+    """*text* in Unicode normalisation form C (composed: 'é' as one code point).
+
+    Every cell, column name, key and id is read in this form, so a name typed
+    with a decomposed accent (e + combining acute, as some systems write it) is
+    the same name as the composed one.
+    """
+    return text if text.isascii() else unicodedata.normalize("NFC", text)
+
+
+def _nfc_cells(frame, rows: list[int]) -> dict[str, dict[str, list[tuple[str, int]]]]:
+    """Normalise every cell of *frame* (strings) to NFC in place; return what changed."""
+    import pandas as pd
+
+    changed: dict[str, dict[str, list[tuple[str, int]]]] = {}
+    for col in frame.columns:
+        s = frame[col]
+        fix = {u: nfc(u) for u in pd.unique(s) if isinstance(u, str) and not u.isascii()}
+        fix = {k: v for k, v in fix.items() if k != v}
+        if not fix:
+            continue
+        for i in map(int, (s.isin(list(fix))).to_numpy().nonzero()[0]):
+            changed.setdefault(fix[s.iat[i]], {}).setdefault(s.iat[i], []).append((str(col), rows[i]))
+        frame[col] = s.map(lambda v, fix=fix: fix.get(v, v))
+    return changed
+
+
+def _utf16_without_bom(data: bytes) -> str:
+    """``'little'`` or ``'big'`` when *data* reads as UTF-16 text of mostly ASCII
+    characters without a byte-order mark (every other byte NUL), else ``''``."""
+    if len(data) < 4:
+        return ""
+    even, odd = data[0::2], data[1::2]
+    for endian, zeros, chars, codec in (("little", odd, even, "utf-16-le"), ("big", even, odd, "utf-16-be")):
+        if zeros.count(0) >= 0.6 * len(zeros) and chars.count(0) <= 0.05 * len(chars):
+            try:
+                data[: len(data) // 2 * 2].decode(codec)
+            except UnicodeDecodeError:
+                continue
+            return endian
+    return ""
 
 
 def _delimiter(header: str, path: Path) -> str:
@@ -124,6 +178,8 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     if first is None:
         return None, probs + [_err(file, "empty-file", "file is empty", "add a header row with the column names")]
     header = lines[first]
+    if header.count('"') % 2:
+        return None, probs + [_err(file, "header-line-break", "the header row has an unclosed quote: a column name holds a line break inside quotes (or a stray '\"')", "give every column a one-line name without quotes", row=first + 1, value=header[:60])]
     delim = _delimiter(header, path)
     if delim == ";":
         decimal_comma = bool(re.search(r"\d,\d", text))
@@ -133,7 +189,7 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     if delim == "\t" and path.suffix.lower() == ".csv" and "," not in header:
         delim = "\t"
     hdr = next(csv.reader([header], delimiter=delim))
-    names = [h.strip().lstrip("\ufeff") for h in hdr]
+    names = [nfc(h.strip().lstrip("\ufeff")) for h in hdr]
     seen: dict[str, int] = {}
     for i, h in enumerate(names):
         if not h:
@@ -171,6 +227,8 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem]) -> tuple[Ra
     keep = (frame != "").any(axis=1).to_numpy()
     frame = frame.loc[keep].reset_index(drop=True)
     rows = [r for r, k in zip(rows, keep, strict=True) if k]
+    respelled = _nfc_cells(frame, rows)
+    probs += _control_characters(file, frame, rows)
     long = frame.apply(lambda s: s.str.len() > MAX_CELL)
     if long.to_numpy().any():
         for ci, col in enumerate(frame.columns):
@@ -179,7 +237,7 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem]) -> tuple[Ra
                 frame.at[ri, col] = frame.at[ri, col][:MAX_CELL]
     known = _known_columns()
     frame.columns = [c.lower() if c.lower() in known else c for c in (str(c).strip() for c in frame.columns)]
-    return RawTable(file, frame, rows), probs
+    return RawTable(file, frame, rows, respelled), probs
 
 
 @lru_cache(maxsize=1)
@@ -189,6 +247,21 @@ def _known_columns() -> frozenset[str]:
 
     spec = read_schema("tables.toml")
     return frozenset(c for t in spec.values() if isinstance(t, dict) for c in t.get("columns", {}))
+
+
+_CONTROL = re.compile(r"[\x01-\x08\x0b\x0c\x0e-\x1f\x7f]")
+
+
+def _control_characters(file: str, frame, rows: list[int]) -> list[Problem]:
+    """Invisible control characters in cells (a binary paste, a Ctrl-Z): errors at the cell."""
+    probs = []
+    for col in frame.columns:
+        hit = frame[col].str.contains(_CONTROL, regex=True).to_numpy(dtype=bool)
+        for i in map(int, hit.nonzero()[0]):
+            v = frame[col].iat[i]
+            c = _CONTROL.search(v).group(0)
+            probs.append(_err(file, "control-character", f"cell holds the invisible control character 0x{ord(c):02X}", "delete it (retype the cell)", row=rows[i], column=str(col), value=v.encode("unicode_escape").decode("ascii")[:60]))
+    return probs
 
 
 def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Problem]]:
@@ -214,7 +287,7 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     frame = frame.map(_excel_cell)
     nonblank = (frame != "").any(axis=1).to_numpy()
     first = int(nonblank.argmax())
-    header = [str(h).strip() for h in frame.iloc[first].tolist()]
+    header = [nfc(str(h).strip()) for h in frame.iloc[first].tolist()]
     probs: list[Problem] = []
     seen: dict[str, int] = {}
     for i, h in enumerate(header):
@@ -283,15 +356,49 @@ def read_bibtex(path: Path) -> tuple[RawTable | None, list[Problem]]:
     recs, rows = [], []
     for entry in lib.entries:
         f = {k.lower(): _strip_braces(fld.value) for k, fld in entry.fields_dict.items()}
-        author, year, title = f.get("author", ""), f.get("year", ""), f.get("title", "")
-        venue = f.get("journal") or f.get("booktitle") or f.get("publisher") or ""
-        parts = [p for p in (author, f"({year})" if year else "", title, venue) if p]
-        recs.append({"source_id": entry.key, "citation": ". ".join(parts), "year": year, "doi": f.get("doi", ""), "url": f.get("url", ""), "notes": f.get("note", "")})
+        recs.append({"source_id": entry.key, "citation": bibtex_citation(f), "year": f.get("year", ""), "doi": f.get("doi", ""), "url": f.get("url", ""), "notes": f.get("note", "")})
         rows.append((entry.start_line or 0) + 1)
     if not recs:
         return None, probs or [_err(file, "empty-file", "BibTeX file holds no entries")]
-    frame = pd.DataFrame(recs, columns=["source_id", "citation", "year", "doi", "url", "notes"])
-    return RawTable(file, frame.astype(str), rows), probs
+    frame = pd.DataFrame(recs, columns=["source_id", "citation", "year", "doi", "url", "notes"]).astype(str)
+    return RawTable(file, frame, rows, _nfc_cells(frame, rows)), probs
+
+
+def _sentence(text: str) -> str:
+    """*text* ending in exactly one full stop (or its own '?' or '!')."""
+    t = text.strip().rstrip(".").rstrip()
+    return "" if not t else t if t[-1] in "?!" else t + "."
+
+
+def _authors(text: str) -> str:
+    """BibTeX's 'A and B and C' as 'A, B and C'."""
+    names = [n.strip() for n in re.split(r"\s+and\s+", text.strip()) if n.strip()]
+    return names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1] if names else ""
+
+
+def bibtex_citation(f: dict[str, str]) -> str:
+    """A citation that reads like one, from the fields of a BibTeX entry (lower-case keys):
+    ``Authors (year). Title. Journal volume(issue): pages.`` Each part ends in one full
+    stop; missing parts are left out; page ranges get an en dash."""
+    head = _authors(f.get("author", "") or f.get("editor", ""))
+    year = f.get("year", "")
+    if year:
+        head = f"{head} ({year})" if head else f"({year})"
+    venue = f.get("journal", "")
+    if not venue and f.get("booktitle"):
+        venue = "In " + f["booktitle"]
+    volume, number = f.get("volume", ""), f.get("number", "") or f.get("issue", "")
+    pages = re.sub(r"\s*-{1,3}\s*", "\u2013", f.get("pages", ""))
+    where = venue
+    if volume:
+        where += f" {volume}" if where else f"Vol. {volume}"
+    if number:
+        where += f"({number})"
+    if pages:
+        where += f": {pages}" if where else f"pp. {pages}"
+    publisher = f.get("publisher", "") if not f.get("journal") else ""
+    parts = [_sentence(p) for p in (head, f.get("title", ""), where.strip(), publisher) if p and p.strip()]
+    return " ".join(p for p in parts if p)
 
 
 def _strip_braces(v: Any) -> str:
@@ -308,6 +415,9 @@ def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
         return None, None, probs
     if not text.strip():
         return None, None, probs + [_err(file, "empty-file", "tree file is empty")]
+    if nfc(text) != text:
+        text = nfc(text)
+        probs.append(_err(file, "unicode-unified", "some tip labels are typed with decomposed accents; read in Unicode NFC (composed) so that they match the same names typed composed", "nothing to do unless two labels differed only in this way", severity="warning"))
     if text.count("(") != text.count(")"):
         return None, text, probs + [_err(file, "newick-syntax", f"unbalanced parentheses ({text.count('(')} '(' vs {text.count(')')} ')')", "check the Newick string")]
     import dendropy
@@ -333,6 +443,7 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
         return {}, probs + [_err(file, "toml-syntax", f"cannot parse settings: {exc}", "see docs/data-format.md for the settings format", row=int(m.group(1)) if m else None)]
+    settings = _nfc_value(settings)
     for key in settings:
         if key not in SETTINGS_KEYS:
             probs.append(_err(file, "settings-key", f"unknown setting {key!r} (ignored)", f"known settings: {', '.join(sorted(SETTINGS_KEYS))}", column=key, severity="warning"))
@@ -342,11 +453,68 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
     return settings, probs
 
 
+def _nfc_value(v: Any) -> Any:
+    """Keys and strings of parsed settings in NFC (numbers and booleans as they are)."""
+    if isinstance(v, dict):
+        return {nfc(k): _nfc_value(x) for k, x in v.items()}
+    if isinstance(v, list):
+        return [_nfc_value(x) for x in v]
+    return nfc(v) if isinstance(v, str) else v
+
+
 # --------------------------------------------------------------------------- folder
 
-def _first(folder: Path, names: tuple[str, ...]) -> Path | None:
-    found = [folder / n for n in names if (folder / n).is_file()]
-    return found[0] if found else None
+def unified_spellings(tables: list[RawTable]) -> list[Problem]:
+    """Warnings for names typed in two Unicode forms (composed and decomposed) that
+    reading made one: each names the places of every spelling."""
+    wanted: set[str] = set()
+    for t in tables:
+        wanted.update(t.respelled)
+    if not wanted:
+        return []
+    where: dict[str, dict[str, list[str]]] = {}
+    for t in tables:
+        moved = {(c, r) for sp in t.respelled.values() for places in sp.values() for c, r in places}
+        for col in t.frame.columns:
+            s = t.frame[col]
+            for i in map(int, s.isin(list(wanted)).to_numpy().nonzero()[0]):
+                v, row = s.iat[i], t.rows[i]
+                typed = "composed (NFC)" if (str(col), row) not in moved else "decomposed"
+                where.setdefault(v, {}).setdefault(typed, []).append(f"{t.file} row {row}")
+    probs = []
+    for v, forms in where.items():
+        typed_as = {sp for t in tables for sp in t.respelled.get(v, {})}
+        if len(forms) < 2 and len(typed_as) < 2:  # one spelling only: normalised, nothing unified
+            continue
+        first = next(t for t in tables if v in t.respelled)
+        col, row = next(iter(next(iter(first.respelled[v].values()))))
+        places = "; ".join(f"{form}: {', '.join(p[:3])}{' ...' if len(p) > 3 else ''}" for form, p in forms.items())
+        probs.append(_err(first.file, "unicode-unified", f"{v!r} is typed in two Unicode forms ({places}); read as one name", "nothing to do if they are the same name; retype one if they were meant to differ", row=row, column=col, value=v, severity="warning"))
+    return probs
+
+
+def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Path | None:
+    """The first of *names* in *folder* that is a regular file. A name that exists but
+    is a folder, a FIFO or device, or a symbolic link that loops or leads nowhere is a
+    problem (an error), never read and never silently skipped."""
+    for n in names:
+        p = folder / n
+        try:
+            st = p.stat()
+        except OSError as exc:
+            if p.is_symlink():
+                why = "a symbolic link that loops" if exc.errno == 40 else "a symbolic link to nothing"
+                problems.append(_err(n, "not-a-file", f"{n} is {why}", "replace the link with the file itself"))
+            elif exc.errno not in (2, 20):  # ENOENT, ENOTDIR: simply absent
+                problems.append(_err(n, "file-read", f"cannot read {n} ({exc.strerror})"))
+            continue
+        import stat as _stat
+
+        if _stat.S_ISREG(st.st_mode):
+            return p
+        what = "a folder" if _stat.S_ISDIR(st.st_mode) else "a named pipe (FIFO)" if _stat.S_ISFIFO(st.st_mode) else "a device or socket"
+        problems.append(_err(n, "not-a-file", f"{n} is {what}, not a file", f"put the table in a regular file named {n}"))
+    return None
 
 
 def read_folder(folder: str | Path) -> RawDataset:
@@ -363,109 +531,38 @@ def read_folder(folder: str | Path) -> RawDataset:
     if not folder.is_dir():
         raise InputError([_err(str(folder), "not-a-folder", "expected a dataset folder, got a file", "give the folder that holds observations.csv and sources.csv")])
     raw = RawDataset(folder=folder)
-    obs = _first(folder, OBSERVATION_NAMES)
+    found = len(raw.problems)
+    obs = _first(folder, OBSERVATION_NAMES, raw.problems)
     if obs is None:
-        raw.problems.append(_err(str(folder), "missing-file", "no observations table", f"add one of {', '.join(OBSERVATION_NAMES)}"))
+        if len(raw.problems) == found:
+            raw.problems.append(_err(str(folder), "missing-file", "no observations table", f"add one of {', '.join(OBSERVATION_NAMES)}"))
     else:
         raw.files["observations"] = obs
         raw.observations, p = read_table(obs, "observations")
         raw.problems += p
-    src = _first(folder, SOURCE_NAMES)
+    found = len(raw.problems)
+    src = _first(folder, SOURCE_NAMES, raw.problems)
     if src is None:
-        raw.problems.append(_err(str(folder), "missing-file", "no sources table", "add sources.csv (source_id, citation, ...) or sources.bib"))
+        if len(raw.problems) == found:
+            raw.problems.append(_err(str(folder), "missing-file", "no sources table", "add sources.csv (source_id, citation, ...) or sources.bib"))
     else:
         raw.files["sources"] = src
         raw.sources, p = read_bibtex(src) if src.suffix == ".bib" else read_table(src, "sources")
         raw.problems += p
-    tax = _first(folder, TAXA_NAMES)
+    tax = _first(folder, TAXA_NAMES, raw.problems)
     if tax is not None:
         raw.files["taxa"] = tax
         raw.taxa, p = read_table(tax, "taxa")
         raw.problems += p
-    tree = _first(folder, TREE_NAMES)
+    tree = _first(folder, TREE_NAMES, raw.problems)
     if tree is not None:
         raw.files["tree"] = tree
         raw.tree, raw.tree_text, p = read_newick(tree)
         raw.problems += p
-    settings = folder / SETTINGS_NAME
-    if settings.is_file():
+    settings = _first(folder, (SETTINGS_NAME,), raw.problems)
+    if settings is not None:
         raw.files["settings"] = settings
         raw.settings, p = read_settings(settings)
         raw.problems += p
+    raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa) if t is not None])
     return raw
-
-
-# --------------------------------------------------------------------------- the dataset
-
-@dataclass
-class Dataset:
-    """A validated dataset folder.
-
-    Attributes
-    ----------
-    observations : pandas.DataFrame
-        The observation rows as typed (numbers parsed) plus, added by comparo:
-        ``row`` (spreadsheet row), ``quantity_key`` (catalogue key the value is
-        stored as, e.g. ``fiber_radius`` for a reported ``fiber_diameter``),
-        ``value_canonical`` and ``uncertainty_canonical`` (in ``unit_canonical``,
-        the catalogue's canonical unit) and ``basis_effective`` (``computed`` where
-        comparo converted a diameter).
-    sources, taxa : pandas.DataFrame
-        Bibliography and the optional taxa table (``None`` when absent).
-    tree : dendropy.Tree or None
-    settings : dict
-        Parsed comparo.toml (empty when absent).
-    catalog : comparo.catalog.Catalog
-    problems : pandas.DataFrame
-        Warnings found while loading (and errors when loaded with ``strict=False``).
-    """
-
-    folder: Path
-    observations: Any
-    sources: Any
-    taxa: Any
-    tree: Any
-    settings: dict[str, Any]
-    catalog: Any
-    problems: Any
-    files: dict[str, Path]
-    tree_text: str | None = None
-
-    @property
-    def rows_read(self) -> int:
-        """Number of observation rows read (blank lines excluded)."""
-        return len(self.observations)
-
-    @property
-    def reference_temperature_c(self) -> float:
-        """Reference temperature in °C for normalising rates (settings, default 25)."""
-        return float(self.settings.get("reference_temperature_c", 25.0))
-
-
-def load(folder: str | Path, *, strict: bool = True) -> Dataset:
-    """Read and validate a dataset folder.
-
-    Parameters
-    ----------
-    folder : path
-        Folder holding observations (.csv/.tsv/.xlsx), sources (.csv/.bib) and
-        optionally taxa.csv, tree.nwk and comparo.toml.
-    strict : bool
-        Raise on any error (default). With ``strict=False`` the rows with errors
-        are kept with the problems attached (``ds.problems``) so that the audit
-        can account for them.
-
-    Raises
-    ------
-    comparo.InputError
-        With every problem found (``.problems`` DataFrame), when errors exist.
-    """
-    from comparo.validate import validate
-
-    raw = read_folder(folder)
-    ds, problems = validate(raw)
-    frame = problems_frame(problems)
-    if ds is None or (strict and (frame["severity"] == "error").any()):
-        raise InputError(frame)
-    ds.problems = frame
-    return ds

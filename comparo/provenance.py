@@ -15,8 +15,7 @@ from typing import Any
 import pandas as pd
 
 from comparo.curate import Harmonised, harmonise, per_taxon
-from comparo.io import Dataset
-from comparo.validate import BASIS_ORDER, map_distinct
+from comparo.validate import BASIS_ORDER, Dataset, map_distinct
 
 
 @dataclass(frozen=True)
@@ -68,6 +67,23 @@ class AuditReport:
         frame.index.name = "taxon"
         frame.insert(0, "trust", [self.trust.get(t, "") for t in frame.index])
         return frame.reset_index()
+
+    def counts_frame(self) -> pd.DataFrame:
+        """The audit in numbers, one row per count (what a notebook shows)."""
+        grades = pd.Series(self.trust, dtype=object).value_counts()
+        rows = [
+            ("rows read", self.rows_read), ("rows used", self.rows_used), ("rows merged (duplicates)", self.rows_merged),
+            ("rows excluded", len(self.rows_excluded)), ("conflicts", len(self.conflicts)),
+            ("suspected unit slips", len(self.unit_slips)), ("out of plausible range", len(self.out_of_range)),
+            ("taxa", len(self.coverage)), ("sources", len(self.sources)),
+            *[(f"taxa graded {g}", int(grades.get(g, 0))) for g in TRUST_GRADES],
+        ]
+        return pd.DataFrame(rows, columns=["count", "value"])
+
+    def _repr_html_(self) -> str:
+        """Compact HTML table for notebooks: the counts, and whether they add up."""
+        head = "<p><b>comparo audit</b>: rows " + ("balanced" if self.balanced else "<b>do not add up</b>") + "</p>"
+        return head + self.counts_frame().to_html(index=False, escape=True)
 
     def sources_frame(self) -> pd.DataFrame:
         """Per source: values used and taxa covered."""

@@ -470,7 +470,7 @@ def sensitivity(
 
     Parameters
     ----------
-    dataset_or_table : comparo.io.Dataset or pandas.DataFrame
+    dataset_or_table : comparo.Dataset or pandas.DataFrame
         A loaded dataset (all parts) or a per-taxon table (no source-level parts:
         a plain table does not say which source each value came from).
     x, y, method, test_slope, ci, log
@@ -500,7 +500,7 @@ def sensitivity(
     leaves out one taxon at a time (Quenouille 1956; Efron 1982). The Monte Carlo
     follows JCGM 101:2008.
     """
-    from comparo.io import Dataset
+    from comparo.dataset import Dataset
 
     alpha = 1 - ci
     kw = dict(test_slope=test_slope, ci=ci, log=str(log), taxon_col=taxon_col, **fit_options)
@@ -648,7 +648,7 @@ def sensitivity_by_group(dataset_or_table: Any, x: str, y: str, method: str = "s
     group could not be analysed (e.g. fewer than 3 usable taxa); every group
     of the per-taxon table appears, in sorted order.
     """
-    from comparo.io import Dataset
+    from comparo.dataset import Dataset
 
     if isinstance(dataset_or_table, Dataset):
         from comparo.curate import per_taxon

@@ -12,8 +12,10 @@ row a spreadsheet shows.
 from __future__ import annotations
 
 import difflib
+import math
 import re
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -21,13 +23,18 @@ import pandas as pd
 
 from comparo.catalog import Catalog, load_catalog, read_schema
 from comparo.errors import InputError, Problem, problems_frame, problems_from_frame
-from comparo.io import Dataset, RawDataset, RawTable, read_folder
+from comparo.io import RawDataset, RawTable, read_folder
 
 BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
 _MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
 _DOI = re.compile(r"^10\.\d{4,9}/\S+$")
 _BINOMIAL = re.compile(r"^[A-Z][a-z]+(?:\s[a-z][a-z-]+){1,2}$")
 INT_EXACT = 2**53 - 1  # largest whole number a float64 holds exactly (IEEE 754); fits a 64-bit integer
+DOUBLE_MAX = float(np.finfo(float).max)  # about 1.8e308 (IEEE 754 binary64)
+# Magnitudes comparo computes with, in canonical units: their squares and products of two stay
+# inside a double (1e-300 to 1e300), so no weight, variance or derived time over- or underflows.
+WORKING_RANGE = (1e-150, 1e150)
+_MANTISSA = re.compile(r"^\s*[-+]?(\d*\.?\d*)(?:[eE][-+]?\d+)?\s*$")
 
 
 # --------------------------------------------------------------------------- helpers
@@ -39,15 +46,57 @@ def map_distinct(s: pd.Series, fn) -> pd.Series:
 
 
 def parse_numbers(s: pd.Series) -> pd.Series:
-    """Cells as float (NaN where empty or not a finite number)."""
+    """Cells as float (NaN where empty or not a finite number, and where a non-zero
+    number such as ``1e-400`` is too small for a double and would read as 0)."""
     num = pd.to_numeric(s.where(s != ""), errors="coerce").astype(float)
-    return num.where(np.isfinite(num))
+    num = num.where(np.isfinite(num))
+    zero = (num == 0).to_numpy()
+    if zero.any():
+        under = s[zero].str.match(r"^[^eE]*[1-9]").to_numpy(dtype=bool)
+        num.iloc[np.flatnonzero(zero)[under]] = np.nan
+    return num
+
+
+def beyond_double(text: str) -> str:
+    """``'over'`` when *text* is a finite-looking number too large for a double
+    (``1e400``), ``'under'`` when it is non-zero but too small (``1e-400`` reads as 0),
+    else ``''``."""
+    m = _MANTISSA.match(text or "")
+    if not m or not re.search(r"\d", m.group(1)):
+        return ""
+    try:
+        v = float(text)
+    except ValueError:
+        return ""
+    if math.isinf(v):
+        return "over"
+    if v == 0 and re.search(r"[1-9]", m.group(1)):
+        return "under"
+    return ""
+
+
+def _number_message(value: str) -> tuple[str, str]:
+    """Message and hint for a cell that is not a usable number."""
+    side = beyond_double(value)
+    if side == "over":
+        return (f"beyond the range of a double (largest about {DOUBLE_MAX:.3g})",
+                "a pasted or mistyped exponent? give the number in a unit that keeps it below 1e150")
+    if side == "under":
+        return ("below the smallest number a double holds (about 5e-324): it would read as 0",
+                "a mistyped exponent? give the number in a unit that keeps it above 1e-150")
+    return "not a number", _number_hint(value)
 
 
 def _number_hint(value: str) -> str:
     v = value.strip()
     if re.fullmatch(r"[-+]?\d+,\d+", v):
         return f"a decimal comma? write {v.replace(',', '.')}"
+    if re.fullmatch(r"[-+]?\d{1,3}(\.\d{3})+,\d+", v):
+        return f"a decimal comma with '.' between thousands? write {v.replace('.', '').replace(',', '.')}"
+    if re.fullmatch(r"[-+]?\d{1,3}(,\d{3})+(\.\d+)?", v):
+        return f"a ',' between thousands? write {v.replace(',', '')}"
+    if re.fullmatch(r"[-+]?0[xX][0-9a-fA-F]+", v):
+        return f"a hexadecimal number is not read: write it in decimal ({int(v, 16)})"
     if v[:1] in "<>≤≥~":
         return "a censored or approximate value cannot be used as a number: give the number and put the qualifier in notes"
     if v.lower() in _MISSING_WORDS:
@@ -140,7 +189,7 @@ def _column_problems(table: RawTable, name: str) -> list[Problem]:
         value = None if case is None else str(case)
         message, hint = _MESSAGES.get(rule, (f"breaks rule {rule}", ""))
         if rule == "number":
-            hint = _number_hint(value or "")
+            message, hint = _number_message(value or "")
         elif rule == "maximum":
             top = float(spec[col]["max"])
             message, hint = f"larger than the largest plausible value ({top:g})", f"{spec[col].get('description', col)} Check for a pasted or mistyped number."
@@ -160,6 +209,15 @@ def _column_problems(table: RawTable, name: str) -> list[Problem]:
 
 
 # --------------------------------------------------------------------------- observations
+
+def _beyond_working_range(value: np.ndarray, converted: np.ndarray, factor: np.ndarray) -> np.ndarray:
+    """Non-zero finite values whose conversion over- or underflows a double or leaves
+    :data:`WORKING_RANGE`."""
+    mag = np.abs(converted)
+    with np.errstate(invalid="ignore"):
+        return (np.isfinite(value) & (value != 0) & np.isfinite(factor)
+                & (~np.isfinite(converted) | (mag < WORKING_RANGE[0]) | (mag > WORKING_RANGE[1])))
+
 
 def _typed_observations(raw: RawTable) -> pd.DataFrame:
     spec = read_schema("tables.toml")["observations"]["columns"]
@@ -243,8 +301,28 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     total = factor * alias.to_numpy() * qty.map(tmap).to_numpy(dtype=float)
     value = obs["value"].to_numpy(dtype=float)
     obs["quantity_key"] = target_key.to_numpy()
-    obs["value_canonical"] = value * total
-    obs["uncertainty_canonical"] = obs["uncertainty"].to_numpy(dtype=float) * total
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        obs["value_canonical"] = value * total
+        obs["uncertainty_canonical"] = obs["uncertainty"].to_numpy(dtype=float) * total
+    not_temperature = map_distinct(target_key, lambda k: bool(k) and catalog[k].kind != "temperature").to_numpy(dtype=bool)
+    for col, canon_col in (("value", "value_canonical"), ("uncertainty", "uncertainty_canonical")):
+        bad = _beyond_working_range(obs[col].to_numpy(dtype=float), obs[canon_col].to_numpy(dtype=float), total) & not_temperature
+        if bad.any():
+            vc_all = obs[canon_col].to_numpy(dtype=float)
+
+            def conv_msg(i, col=col, vc_all=vc_all):
+                unit = units.pretty(canon.iat[i]) if canon.iat[i] else canon.iat[i]
+                vc = vc_all[i]
+                if not np.isfinite(vc):
+                    what = f"overflows a double (becomes inf {unit})"
+                elif vc == 0:
+                    what = f"underflows a double (becomes 0 {unit})"
+                else:
+                    what = f"gives {vc:.3g} {unit}, outside the range comparo computes with ({WORKING_RANGE[0]:g} to {WORKING_RANGE[1]:g} {unit})"
+                return f"{col} {raw.frame[col].iat[i]} {unit_col.iat[i]} converted to {unit} {what}"
+
+            add(bad, "error", col, f"{col}-conversion-range", conv_msg, "check the number and its unit (a mistyped exponent or unit prefix?)", raw.frame[col].to_numpy() if col in raw.frame else None)
+            obs.loc[bad, canon_col] = np.nan  # never carried into a table, an export or a fit
     obs["unit_canonical"] = canon.to_numpy()
     is_alias = map_distinct(qty, lambda k: bool(k in catalog and catalog[k].converts_to)).to_numpy(dtype=bool)
     basis = obs["basis"].where(obs["basis"].isin(BASIS_ORDER), "assumed")
@@ -286,7 +364,9 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     raw_temp = raw.frame["temperature_c"] if "temperature_c" in raw.frame else pd.Series([""] * len(obs))
     no_temp = ts & (raw_temp.to_numpy() == "")
     add(no_temp, "warning", "temperature_c", "temperature-missing", lambda i: f"{qty.iat[i]} is temperature-sensitive but has no temperature_c", "give the measurement temperature; otherwise the value is used un-normalised", raw_temp.to_numpy())
-    odd_temp = ~np.isnan(temp) & ((temp < -5) | (temp > 60))
+    impossible = ~np.isnan(temp) & ((temp < -273.15) | (temp > 1000))
+    add(impossible, "error", "temperature_c", "temperature-impossible", "temperature below absolute zero (-273.15 °C) or above 1000 °C", "temperature_c is in degrees Celsius", obs["temperature_c"].to_numpy())
+    odd_temp = ~np.isnan(temp) & ~impossible & ((temp < -5) | (temp > 60))
     add(odd_temp, "warning", "temperature_c", "temperature-range", "temperature outside -5 to 60 °C for muscle", "temperature_c is in degrees Celsius (a Fahrenheit or kelvin value?)", obs["temperature_c"].to_numpy())
     q10_set = ~np.isnan(obs["q10"].to_numpy(dtype=float)) & ~ts & (target_key != "").to_numpy()
     add(q10_set, "warning", "q10", "q10-unused", lambda i: f"a Q10 is given but {qty.iat[i]} is not temperature-sensitive (ignored)")
@@ -318,50 +398,237 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     return obs, probs
 
 
+_DOI_PREFIX = re.compile(r"^\s*(?:(?:https?://)?(?:dx\.)?doi\.org/|doi:\s*)", re.I)
+
+
+def normalise_doi(text: str) -> str:
+    """A DOI as the bare name ``10.xxxx/...``: a ``https://doi.org/`` (or ``dx.doi.org``)
+    URL and a ``doi:`` prefix are removed, once; anything else is kept as typed."""
+    t = (text or "").strip()
+    return _DOI_PREFIX.sub("", t, count=1).strip()
+
+
+def normalise_dois(s: pd.Series) -> pd.Series:
+    """:func:`normalise_doi` over a column of DOIs."""
+    return map_distinct(s.fillna("").astype(str), normalise_doi)
+
+
 def _source_problems(raw: RawTable) -> list[Problem]:
     probs: list[Problem] = []
     if "doi" not in raw.frame:
         return probs
-    doi = raw.frame["doi"].str.replace(r"^(https?://(dx\.)?doi\.org/|doi:\s*)", "", regex=True, flags=re.I)
+    doi = normalise_dois(raw.frame["doi"])
     bad = (doi != "") & ~doi.str.match(_DOI)
     for i in np.flatnonzero(bad.to_numpy()):
-        probs.append(Problem("warning", raw.file, raw.rows[i], "doi", raw.frame["doi"].iat[i], "doi-format", "malformed DOI", "a DOI looks like 10.1234/abcd (a https://doi.org/ prefix is fine)"))
+        probs.append(Problem("warning", raw.file, raw.rows[i], "doi", raw.frame["doi"].iat[i], "doi-format",
+                             f"{doi.iat[i]!r} does not look like a DOI (10.xxxx/...)",
+                             "a DOI starts with 10., a registrant code of 4-9 digits and '/' (a https://doi.org/ or doi: prefix is fine)"))
     return probs
+
+
+def _number(v: Any) -> bool:
+    return isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
 
 
 def _settings_problems(settings: dict[str, Any], catalog: Catalog) -> list[Problem]:
+    """Types and values of the settings that reading and harmonisation use (q10,
+    activation_energy_kj_mol, conflict_factor, aggregate, quantities, title, seed)."""
     probs: list[Problem] = []
-    q10 = settings.get("q10", {})
-    if not isinstance(q10, dict):
-        return [Problem("error", "comparo.toml", None, "q10", str(q10), "settings-value", "[q10] must be a table of quantity = Q10", "")]
-    for key, v in q10.items():
-        if key not in catalog:
-            probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", f"Q10 given for unknown quantity {key!r}", "use a catalogue key"))
-        elif not isinstance(v, int | float) or isinstance(v, bool) or v <= 0:
-            probs.append(Problem("error", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", "Q10 must be a positive number", "typical biological Q10 is 2-3 (from memory)"))
-        elif not catalog[key].temperature_sensitive:
-            probs.append(Problem("warning", "comparo.toml", None, f"q10.{key}", str(v), "settings-value", f"{key} is not temperature-sensitive; its Q10 is ignored", ""))
+
+    def bad(key: str, value: Any, message: str, hint: str = "", severity: str = "error") -> None:
+        probs.append(Problem(severity, "comparo.toml", None, key, str(value), "settings-value", message, hint))
+
+    for table, what, low, high, hint in (("q10", "Q10", 0.0, 100.0, "typical biological Q10 is 2-3 (rule of thumb)"),
+                                         ("activation_energy_kj_mol", "an activation energy in kJ/mol", 0.0, 1000.0, "muscle rate processes are of the order of 50-100 kJ/mol (rule of thumb)")):
+        given = settings.get(table, {})
+        if not isinstance(given, dict):
+            bad(table, given, f"[{table}] must be a table of quantity = number", f"for example [{table}] followed by attach_rate = 2.0")
+            continue
+        for key, v in given.items():
+            if key not in catalog:
+                close = difflib.get_close_matches(key, list(catalog), n=1)
+                bad(f"{table}.{key}", v, f"{what} given for unknown quantity {key!r}", f"did you mean {close[0]!r}?" if close else "use a catalogue key")
+            elif not _number(v) or not low < v <= high:
+                bad(f"{table}.{key}", v, f"{what} must be a number greater than {low:g} and at most {high:g}", hint)
+            elif not catalog[key].temperature_sensitive:
+                bad(f"{table}.{key}", v, f"{key} is not temperature-sensitive; this value is ignored", "", "warning")
+    cf = settings.get("conflict_factor")
+    if cf is not None and (not _number(cf) or cf <= 1):
+        bad("conflict_factor", cf, "conflict_factor must be a number greater than 1 (the ratio max/min above which two values of a taxon conflict)", "the default is 1.5 (common practice)")
+    agg = settings.get("aggregate")
+    if agg is not None and agg not in ("mean", "median"):
+        bad("aggregate", agg, "aggregate must be \"mean\" or \"median\"")
+    qs = settings.get("quantities")
+    if qs is not None and not isinstance(qs, dict):
+        bad("quantities", qs, "[quantities] must hold one table per quantity key", "for example [quantities.twitch_time] followed by unit = \"ms\"")
+    title = settings.get("title")
+    if title is not None and not isinstance(title, str):
+        bad("title", title, "title must be text in quotes")
+    seed = settings.get("seed")
+    if seed is not None and (not isinstance(seed, int) or isinstance(seed, bool) or not 0 <= seed < 2**63):
+        bad("seed", seed, "seed must be a whole number from 0 to 2^63 - 1")
     return probs
+
+
+# --------------------------------------------------------------------------- reserved names
+
+# Columns comparo adds to the observation rows (validation, harmonisation, lineage).
+RESERVED_OBSERVATION_COLUMNS = frozenset({
+    "row", "quantity_key", "value_canonical", "uncertainty_canonical", "unit_canonical", "basis_effective",
+    "problem", "accepted", "u_h", "value_h", "temperature_factor", "temperature_note", "status", "reason",
+    "merged_into", "value_harmonised", "u_standard",
+})
+# Columns of the per-taxon table that are not quantities (a taxa.csv grouping column is copied into it).
+RESERVED_TAXA_COLUMNS = frozenset({"temperature_c", "accepted", "own"})
+
+
+def _reserved(name: str, fixed: frozenset[str], keys: frozenset[str]) -> bool:
+    return name in fixed or name.startswith("_") or name in keys or any(name.startswith(k + "_") for k in keys)
+
+
+def reserved_column_problems(raw: RawDataset, catalog: Catalog) -> list[Problem]:
+    """Column names a user's table may not use because comparo adds a column of that
+    name: in observations the columns listed in :data:`RESERVED_OBSERVATION_COLUMNS`; in
+    taxa.csv (whose extra columns join the per-taxon table) any quantity, derived or
+    ratio key, ``KEY_...`` for such a key and ``temperature_c``; in both, names starting
+    with ``_``. Each is renamed ``NAME (yours)`` in the working copy so that checking
+    goes on (the problem is an error: nothing is analysed until it is renamed)."""
+    probs: list[Problem] = []
+    derived = read_schema("derived.toml").get("keys", {})
+    ratios = raw.settings.get("ratios") if isinstance(raw.settings.get("ratios"), dict) else {}
+    keys = frozenset(catalog) | frozenset(derived) | frozenset(map(str, ratios))
+    spec = read_schema("tables.toml")
+    for table, fixed, scope in ((raw.observations, RESERVED_OBSERVATION_COLUMNS, frozenset()), (raw.taxa, RESERVED_TAXA_COLUMNS, keys)):
+        if table is None:
+            continue
+        own = spec["observations" if table is raw.observations else "taxa"]["columns"]
+        clash = [c for c in table.frame.columns if c not in own and _reserved(str(c), fixed, scope)]
+        for c in clash:
+            probs.append(Problem("error", table.file, None, str(c), None, "column-reserved",
+                                 f"column name {c!r} is used by comparo for a column of its own",
+                                 f"rename the column (for example to 'my_{str(c).lstrip('_')}')"))
+        if clash:
+            table.frame = table.frame.rename(columns={c: f"{c} (yours)" for c in clash})
+    return probs
+
+
+# --------------------------------------------------------------------------- synonyms
+
+def resolve_synonyms(taxa: RawTable) -> tuple[dict[str, str], list[Problem]]:
+    """Follow ``taxon -> accepted_name`` links of taxa.csv to their end.
+
+    A chain (A -> B, B -> C) resolves to its last name (A and B both become C),
+    with a warning naming the rows; a cycle (A -> B, B -> A, or longer) is an
+    error naming every row in it, and its names are left unmapped. Returns the
+    resolved map (only names whose accepted name differs from themselves) and
+    the problems.
+    """
+    frame = taxa.frame
+    if "taxon" not in frame or "accepted_name" not in frame:
+        return {}, []
+    row_of: dict[str, int] = {}
+    step: dict[str, str] = {}
+    for t, a, r in zip(frame["taxon"], frame["accepted_name"], taxa.rows, strict=True):
+        row_of.setdefault(t, r)
+        if t and a and a != t:
+            step.setdefault(t, a)
+    probs: list[Problem] = []
+    resolved: dict[str, str] = {}
+    in_cycle: set[str] = set()
+    for start in step:
+        path = [start]
+        seen = {start}
+        while path[-1] in step and step[path[-1]] not in seen:
+            nxt = step[path[-1]]
+            path.append(nxt)
+            seen.add(nxt)
+        if path[-1] in step:  # the next link returns into the path: a cycle
+            loop = path[path.index(step[path[-1]]):]
+            if loop[0] not in in_cycle:
+                in_cycle.update(loop)
+                rows = [row_of[n] for n in loop]
+                chain = " -> ".join([*loop, loop[0]])
+                probs.append(Problem("error", taxa.file, rows[0], "accepted_name", step[loop[0]], "synonym-cycle",
+                                     f"accepted names form a cycle: {chain} (rows {', '.join(map(str, rows))})",
+                                     "one name of the cycle must be the accepted one: leave its accepted_name blank"))
+            continue
+        resolved[start] = path[-1]
+        if len(path) > 2 and start not in step.values():  # report each chain once, from its first name
+            rows = [row_of[n] for n in path[:-1]]
+            probs.append(Problem("warning", taxa.file, rows[0], "accepted_name", step[start], "synonym-chain",
+                                 f"synonym chain {' -> '.join(path)} (rows {', '.join(map(str, rows))}): every name in it is mapped to {path[-1]!r}",
+                                 f"write {path[-1]!r} as the accepted_name of each of these rows to silence this"))
+    for name in in_cycle:
+        resolved.pop(name, None)
+    return {t: a for t, a in resolved.items() if t not in in_cycle}, probs
 
 
 # --------------------------------------------------------------------------- entry points
 
+@dataclass
+class Dataset:
+    """A validated dataset folder.
+
+    Attributes
+    ----------
+    observations : pandas.DataFrame
+        The observation rows as typed (numbers parsed) plus, added by comparo:
+        ``row`` (spreadsheet row), ``quantity_key`` (catalogue key the value is
+        stored as, e.g. ``fiber_radius`` for a reported ``fiber_diameter``),
+        ``value_canonical`` and ``uncertainty_canonical`` (in ``unit_canonical``,
+        the catalogue's canonical unit) and ``basis_effective`` (``computed`` where
+        comparo converted a diameter).
+    sources, taxa : pandas.DataFrame
+        Bibliography and the optional taxa table (``None`` when absent).
+    tree : dendropy.Tree or None
+    settings : dict
+        Parsed comparo.toml (empty when absent).
+    catalog : comparo.catalog.Catalog
+    problems : pandas.DataFrame
+        Warnings found while loading (and errors when loaded with ``strict=False``).
+    """
+
+    folder: Path
+    observations: Any
+    sources: Any
+    taxa: Any
+    tree: Any
+    settings: dict[str, Any]
+    catalog: Any
+    problems: Any
+    files: dict[str, Path]
+    tree_text: str | None = None
+
+    @property
+    def rows_read(self) -> int:
+        """Number of observation rows read (blank lines excluded)."""
+        return len(self.observations)
+
+    @property
+    def reference_temperature_c(self) -> float:
+        """Reference temperature in °C for normalising rates (settings, default 25)."""
+        return float(self.settings.get("reference_temperature_c", 25.0))
+
+
+
 def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
     """Validate what :func:`comparo.io.read_folder` read.
 
-    Returns the :class:`~comparo.io.Dataset` (``None`` when a table could not be
+    Returns the :class:`Dataset` (``None`` when a table could not be
     read at all) and every problem found; each observation row also carries
     ``problem`` (its first error, empty when none).
     """
     problems = list(raw.problems)
     try:
-        catalog = load_catalog(raw.settings.get("quantities"))
+        extra = raw.settings.get("quantities")
+        catalog = load_catalog(extra if isinstance(extra, dict) else None)
     except InputError as exc:
         problems += problems_from_frame(exc.problems)
         catalog = load_catalog()
     problems += _settings_problems(raw.settings, catalog)
     if raw.observations is None or raw.sources is None:
         return None, problems
+    problems += reserved_column_problems(raw, catalog)
     problems += _column_problems(raw.observations, "observations")
     problems += _column_problems(raw.sources, "sources")
     problems += _source_problems(raw.sources)
@@ -384,7 +651,15 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
             first_error[p.row] = f"{p.rule}: {p.message}"
     obs["problem"] = [first_error.get(r, "") for r in obs["row"]]
     sources = raw.sources.frame.copy()
-    taxa = raw.taxa.frame.copy() if raw.taxa is not None else None
+    if "doi" in sources:  # one form for links and exports: the bare 10.xxxx/... name
+        sources["doi"] = normalise_dois(sources["doi"])
+    taxa = None
+    if raw.taxa is not None:
+        taxa = raw.taxa.frame.copy()
+        synonyms, p = resolve_synonyms(raw.taxa)
+        problems += p
+        if "accepted_name" in taxa:  # chains resolved to their end; names in a cycle stay unmapped
+            taxa["accepted_name"] = [synonyms.get(t, "" if a != t else a) for t, a in zip(taxa["taxon"], taxa["accepted_name"], strict=True)]
     ds = Dataset(folder=raw.folder, observations=obs, sources=sources, taxa=taxa, tree=raw.tree, settings=raw.settings, catalog=catalog, problems=None, files=raw.files, tree_text=raw.tree_text)
     return ds, problems
 
@@ -429,6 +704,14 @@ class CheckResult:
 
     def to_frame(self) -> pd.DataFrame:
         return self.problems
+
+    def _repr_html_(self) -> str:
+        """Compact HTML for notebooks: the summary line and the first 20 problems."""
+        import html
+
+        shown = self.problems.head(20)[["severity", "file", "row", "column", "value", "rule", "message"]]
+        more = f"<p>... and {len(self.problems) - 20} more</p>" if len(self.problems) > 20 else ""
+        return f"<p>{html.escape(self.summary())}</p>" + shown.to_html(index=False, escape=True, na_rep="") + more
 
     def summary(self) -> str:
         verdict = "no errors" if self.ok else f"{self.n_errors} error(s)"

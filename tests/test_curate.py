@@ -190,3 +190,17 @@ def test_sources_uncited_and_missing(tmp_path):
             "b,Apis mellifera,body_mass,1,g,,,,s9,T1,reported,,,"]
     rep = audit(_ds(tmp_path, rows))
     assert rep.sources_uncited == ["s2"] and rep.sources_missing == ["s9"]
+
+
+def test_audit_report_notebook_views(tmp_path):
+    """The audit shows itself in a notebook as a compact table whose counts are the
+    attributes (and add up), with to_frame() and to_dict() beside it."""
+    folder = write_dataset(tmp_path / "d")
+    rep = audit(comparo.load(folder))
+    counts = rep.counts_frame().set_index("count")["value"]
+    assert counts["rows read"] == rep.rows_read == 6
+    assert counts["rows used"] + counts["rows merged (duplicates)"] + counts["rows excluded"] == counts["rows read"]
+    html = rep._repr_html_()
+    assert html.count("<tr") == len(counts) + 1 and "balanced" in html
+    assert list(rep.to_frame()["taxon"]) == sorted(rep.coverage)
+    json.dumps(rep.to_dict())

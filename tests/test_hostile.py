@@ -7,8 +7,10 @@ from __future__ import annotations
 
 import importlib.util
 import json
+import os
 import subprocess
 import time
+import unicodedata
 
 import pandas as pd
 import pytest
@@ -64,6 +66,52 @@ def _empty_sheet(ws):
     pass
 
 
+_NFC = unicodedata.normalize("NFC", "Apis mellifêra")
+_NFD = unicodedata.normalize("NFD", "Apis mellifêra")
+
+
+def _taxa(folder, text: str, rows=None):
+    write_dataset(folder, rows)
+    (folder / "taxa.csv").write_text(text, encoding="utf-8")
+
+
+_DOI_SOURCES = ("source_id,citation,year,doi\n"
+                "s1,Invented A. (2001) One,2001,https://doi.org/10.1000/abc\n"
+                "s2,Invented B. (2002) Two,2002,doi: 10.1000/XYZ.2\n"
+                "s3,Invented C. (2003) Three,2003,http://dx.doi.org/10.12345/q-1\n"
+                "s4,Invented D. (2004) Four,2004,see the journal\n")
+_BIB = """@article{s1,
+  author = {Invented, A. and Madeup, B. and Notreal, C.},
+  title = {A {made-up} study of fibres.},
+  journal = {J. Invented Biol.},
+  year = {2001}, volume = {204}, number = {3}, pages = {117--125},
+  doi = {https://doi.org/10.1000/abc}
+}
+@book{s2,
+  author = {Invented, B.},
+  title = {Is this a book?},
+  publisher = {Nowhere Press},
+  year = {2002},
+  doi = {doi:10.1000/def}
+}
+"""
+
+
+def _toml(folder, text: str):
+    write_dataset(folder)
+    (folder / "comparo.toml").write_text(text, encoding="utf-8")
+
+
+def _markup(folder):
+    """Console markup in names, ids, cells, column names, sources, taxa and settings."""
+    rows = [r.replace("Table 1", "[/b]").replace("Bombus terrestris", "Bombus [/red]terrestris").replace(",s1,", ",[/i]s1,") + ",[bold]x[/]" for r in VALID_ROWS]
+    rows[0] = rows[0].replace("o1,", "[/i]o1,", 1)
+    write_dataset(folder, rows, header=OBS_HEADER + ",[/red]notes",
+                  sources="source_id,citation,year\n[/i]s1,[/b] One [link=x],2001\ns2,Two [/red],2002\n")
+    (folder / "taxa.csv").write_text("taxon,clade\nApis mellifera,[/red]\nBombus [/red]terrestris,[b]\n", encoding="utf-8")
+    (folder / "comparo.toml").write_text('title = "[/b]"\n[quantities.twitch_x]\nunit = "ms"\nlabel = "[/red] twitch"\n', encoding="utf-8")
+
+
 def _ladder(n: int) -> str:
     s = "t0:1"
     for i in range(1, n):
@@ -116,6 +164,45 @@ CASES = {
     "formula-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "=HYPERLINK(1)")),
     "quote-unbalanced": lambda f: write_dataset(f, _rows_with(0, "Table 1", '"Table 1')),
     "toml-binary": lambda f: (write_dataset(f), (f / "comparo.toml").write_bytes(b"\xff\xfe\x00garbage")),
+    "unicode-nfd-and-nfc": lambda f: _taxa(f, f"taxon,clade\n{_NFC},bees\nBombus terrestris,bees\n", [r.replace("Apis mellifera", _NFD if i == 0 else _NFC) for i, r in enumerate(VALID_ROWS)]),
+    "unicode-nfd-header": lambda f: _taxa(f, f"taxon,{unicodedata.normalize('NFC', 'región')},{unicodedata.normalize('NFD', 'región')}\nApis mellifera,a,b\n"),
+    "unit-underflow": lambda f: write_dataset(f, _rows_with(0, ",100,mg", ",1e-320,mg")),
+    "unit-overflow": lambda f: write_dataset(f, _rows_with(0, ",100,mg", ",1e308,Mg")),
+    "uncertainty-overflow": lambda f: write_dataset(f, _rows_with(1, ",12,um,1,sd", ",12,um,1e307,sd")),
+    "value-1e-400": lambda f: write_dataset(f, _rows_with(0, ",100,", ",1e-400,")),
+    "value-hex": lambda f: write_dataset(f, _rows_with(0, ",100,", ",0x1A,")),
+    "value-thousands-dot-decimal-comma": lambda f: write_dataset(f, _rows_with(0, ",100,", ',"1.234,5",')),
+    "temperature-factor-extreme": lambda f: write_dataset(f, [r + ("," if i != 4 else ",1e10") for i, r in enumerate(_rows_with(4, ",25", ",1000"))], header=OBS_HEADER + ",q10"),
+    "weights-extreme": lambda f: write_dataset(f, [*VALID_ROWS, "o7,Apis mellifera,muscle_mass,1e140,mg,1e-133,sd,,s1,Table 3,reported,,,", "o8,Apis mellifera,muscle_mass,2e140,mg,1e-133,sd,,s2,Table 3,reported,,,"]),
+    "markup-in-cells": lambda f: _markup(f),
+    "column-named-row": lambda f: write_dataset(f, [r + f",{i}" for i, r in enumerate(VALID_ROWS)], header=OBS_HEADER + ",row"),
+    "column-named-status": lambda f: write_dataset(f, [r + ",x,y" for r in VALID_ROWS], header=OBS_HEADER + ",status,_lv"),
+    "taxa-column-named-quantity": lambda f: _taxa(f, "taxon,body_mass,temperature_c,fiber_radius_u\nApis mellifera,1,2,3\n"),
+    "taxa-without-taxon-column": lambda f: _taxa(f, "name,clade\nApis mellifera,bees\n"),
+    "taxa-column-accepted": lambda f: _taxa(f, "taxon,accepted\nApis mellifera,x\n"),
+    "utf16-le-no-bom": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode("utf-16-le")),
+    "utf16-be-no-bom": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode("utf-16-be")),
+    "nul-after-4kib": lambda f: _bytes(f, "observations.csv", _text(_rows_with(0, "Table 1", "T" * 5000) + ["o9,Apis mellifera,body_mass,1\x00,mg,,,,s1,T,reported,,,"]).encode()),
+    "observations-is-a-folder": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), (f / "observations.csv").mkdir()),
+    "observations-symlink-loop": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), (f / "observations.csv").symlink_to("observations.csv")),
+    "observations-fifo": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), os.mkfifo(f / "observations.csv")),
+    "header-quoted-newline": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS, OBS_HEADER.replace(",taxon,", ',"tax\non",')).encode()),
+    "ctrl-z-at-end": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode() + b"\x1a"),
+    "control-character-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "Table\x071")),
+    "doi-forms": lambda f: write_dataset(f, sources=_DOI_SOURCES),
+    "bibtex-doi-url": lambda f: (write_dataset(f), (f / "sources.csv").unlink(), (f / "sources.bib").write_text(_BIB, encoding="utf-8")),
+    "settings-conflict-factor-text": lambda f: _toml(f, 'conflict_factor = "abc"\n'),
+    "settings-conflict-factor-below-1": lambda f: _toml(f, "conflict_factor = 0.5\n"),
+    "settings-aggregate-number": lambda f: _toml(f, "aggregate = 5\n"),
+    "settings-q10-list": lambda f: _toml(f, "q10 = [1, 2]\n"),
+    "settings-q10-inf": lambda f: _toml(f, "[q10]\nattach_rate = inf\n"),
+    "settings-activation-text": lambda f: _toml(f, '[activation_energy_kj_mol]\nattach_rate = "high"\n'),
+    "settings-quantities-string": lambda f: _toml(f, 'quantities = "twitch"\n'),
+    "settings-seed-text": lambda f: _toml(f, 'seed = "abc"\n'),
+    "settings-title-table": lambda f: _toml(f, "[title]\nx = 1\n"),
+    "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
+    "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
+    "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
 }
 
 COMMANDS = ["check", "table", "audit", "derive", "fit", "export"]
@@ -155,7 +242,7 @@ def test_hostile_input_every_command(tmp_path, capsys, case):
         captured = capsys.readouterr()
         _assert_clean(code, captured.out + captured.err, case)
         if code == 2 and cmd == "check":
-            assert "observations" in captured.out + captured.err or "sources" in captured.out + captured.err or ".nwk" in captured.out + captured.err or ".toml" in captured.out + captured.err or ".bib" in captured.out + captured.err
+            assert any(name in captured.out + captured.err for name in ("observations", "sources", ".nwk", ".toml", ".bib", "taxa.csv"))
         assert tree_hash(folder) == before, f"{cmd} changed the input"
 
 
@@ -266,3 +353,364 @@ def test_check_subprocess_bounded_time_on_ladder_tree(tmp_path):
         pytest.fail("check hung on a 50,000-deep tree")
     _assert_clean(proc.returncode, proc.stdout + proc.stderr, "ladder")
     assert tree_hash(folder) == before
+
+
+# --------------------------------------------------------------------------- input reading and validation
+
+def _problems(folder) -> pd.DataFrame:
+    from comparo.curate import review
+
+    return review(folder).problems
+
+
+def test_synonym_chain_resolves_to_its_end(tmp_path):
+    """A -> B and B -> C in taxa.csv: A's values belong to C (not to B), with a warning
+    naming both rows; the per-taxon table has one row, C."""
+    from comparo.curate import per_taxon
+    from comparo.dataset import load
+
+    folder = tmp_path / "chain"
+    CASES["taxa-synonym-chain"](folder)
+    before = tree_hash(folder)
+    probs = _problems(folder)
+    chain = probs[probs["rule"] == "synonym-chain"]
+    assert len(chain) == 1 and chain["severity"].iat[0] == "warning"
+    assert "rows 2, 3" in chain["message"].iat[0] and "Apis ligustica" in chain["message"].iat[0]
+    tab = per_taxon(load(folder))
+    assert sorted(tab["taxon"]) == ["Apis ligustica", "Bombus terrestris"]
+    assert tab.set_index("taxon").at["Apis ligustica", "body_mass"] == pytest.approx(1e-4)  # 100 mg
+    assert tree_hash(folder) == before
+
+
+@pytest.mark.parametrize("case,rows", [("taxa-synonym-cycle", "rows 2, 3"), ("taxa-synonym-cycle-3", "rows 2, 3, 4")])
+def test_synonym_cycle_is_an_error_naming_its_rows(tmp_path, capsys, case, rows):
+    """A -> B, B -> A used to swap the two species' data silently; now check fails naming
+    every row of the cycle, and table refuses to run."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    cyc = probs[probs["rule"] == "synonym-cycle"]
+    assert len(cyc) == 1 and cyc["severity"].iat[0] == "error" and cyc["file"].iat[0] == "taxa.csv"
+    assert rows in cyc["message"].iat[0]
+    assert main(["check", str(folder)]) == 2
+    assert main(["table", str(folder)]) == 2
+    assert "synonym-cycle" in capsys.readouterr().err
+
+
+def test_unicode_forms_are_one_name_with_a_warning(tmp_path):
+    """'ê' typed composed (U+00EA) on some rows and decomposed (e + U+0302) on one used to
+    make two taxa; reading puts every cell in Unicode NFC (Unicode Standard Annex #15) and
+    warns where two spellings became one, naming the rows of each."""
+    from comparo.curate import per_taxon
+    from comparo.dataset import load
+
+    assert _NFC != _NFD and unicodedata.normalize("NFC", _NFD) == _NFC
+    folder = tmp_path / "nfd"
+    CASES["unicode-nfd-and-nfc"](folder)
+    probs = _problems(folder)
+    hit = probs[probs["rule"] == "unicode-unified"]
+    assert len(hit) == 1 and hit["severity"].iat[0] == "warning"
+    assert (hit["file"].iat[0], hit["row"].iat[0], hit["column"].iat[0]) == ("observations.csv", 2, "taxon")
+    assert "observations.csv row 2" in hit["message"].iat[0] and "taxa.csv row 2" in hit["message"].iat[0]
+    tab = per_taxon(load(folder))
+    assert sorted(tab["taxon"]) == sorted([_NFC, "Bombus terrestris"])
+    assert tab.set_index("taxon").at[_NFC, "clade"] == "bees"
+    assert tab.set_index("taxon").at[_NFC, "body_mass"] == pytest.approx(1e-4)  # 100 mg, the decomposed row
+
+
+def test_column_names_in_two_unicode_forms_are_duplicates(tmp_path):
+    """Two header cells that differ only in Unicode form are one column name twice."""
+    folder = tmp_path / "hdr"
+    CASES["unicode-nfd-header"](folder)
+    probs = _problems(folder)
+    assert "duplicate-column" in set(probs.loc[probs["file"] == "taxa.csv", "rule"])
+    assert main(["check", str(folder)]) == 2
+
+
+def test_tree_labels_and_settings_read_in_nfc(tmp_path):
+    """A decomposed tip label and a decomposed settings key are read composed."""
+    from comparo.io import read_newick, read_settings
+
+    (tmp_path / "tree.nwk").write_text(f"({_NFD.replace(' ', '_')}:1,B_b:1);\n", encoding="utf-8")
+    tree, _, probs = read_newick(tmp_path / "tree.nwk")
+    assert _NFC.replace(" ", "_") in [t.taxon.label for t in tree.leaf_node_iter()]
+    assert [p.rule for p in probs] == ["unicode-unified"]
+    (tmp_path / "comparo.toml").write_text(f'title = "{_NFD}"\n', encoding="utf-8")
+    settings, _ = read_settings(tmp_path / "comparo.toml")
+    assert settings["title"] == _NFC
+
+
+@pytest.mark.parametrize("case,row,column,rule,words", [
+    ("unit-underflow", 2, "value", "value-conversion-range", "underflows a double (becomes 0 kg)"),
+    ("unit-overflow", 2, "value", "value-conversion-range", "overflows a double (becomes inf kg)"),
+    ("uncertainty-overflow", 3, "uncertainty", "uncertainty-conversion-range", "outside the range comparo computes with"),
+    ("value-1e400", 2, "value", "value-number", "beyond the range of a double"),
+    ("value-1e-400", 2, "value", "value-number", "below the smallest number a double holds"),
+])
+def test_conversion_beyond_a_double_is_an_error_at_its_cell(tmp_path, case, row, column, rule, words):
+    """1e-320 mg is 1e-326 kg, below the smallest double (IEEE 754 binary64, about
+    4.9e-324), and 1e308 Mg is 1e311 kg, above the largest (about 1.8e308): once converted
+    they became 0 and inf and bypassed "value must be > 0". Each is now one error at its cell."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    errors = probs[probs["severity"] == "error"]
+    assert [(int(r), c, ru) for r, c, ru in zip(errors["row"], errors["column"], errors["rule"], strict=True)] == [(row, column, rule)]
+    assert words in errors["message"].iat[0]
+    assert main(["table", str(folder)]) == 2
+
+
+@pytest.mark.parametrize("case,hint", [("value-hex", "hexadecimal"), ("value-thousands-dot-decimal-comma", "write 1234.5")])
+def test_number_hints(tmp_path, case, hint):
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    assert hint in probs.loc[probs["rule"] == "value-number", "hint"].iat[0]
+
+
+def _numbers_in(path) -> list[str]:
+    """Cells (CSV) or values (JSON) of *path* that read as a non-finite number."""
+    import math
+
+    text = path.read_text(encoding="utf-8")
+    if path.suffix == ".json":
+        bad: list[str] = []
+        json.loads(text, parse_constant=lambda c: bad.append(c))
+        return bad
+    frame = pd.read_csv(path, dtype=str, keep_default_na=False)
+    out = []
+    for v in frame.to_numpy().ravel():
+        try:
+            if not math.isfinite(float(v)):
+                out.append(v)
+        except ValueError:
+            pass
+    return out
+
+
+@pytest.mark.parametrize("case", ["temperature-factor-extreme", "weights-extreme", "unit-overflow", "unit-underflow"])
+def test_no_inf_or_nan_reaches_an_output(tmp_path, capsys, case):
+    """A temperature factor of (1e10)^-97.5 (Q10 1e10 over 975 degrees) and inverse-variance
+    weights of 1e266 per kg^-2 used to give 0, inf or NaN in the per-taxon table; now the first
+    is an error at its row (check) and excluded with that reason, the second is combined with
+    scaled weights. No table, export or audit file written holds inf or NaN."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    out = tmp_path / "out"
+    out.mkdir()
+    main(["table", str(folder), "-o", str(out / "table.csv")])
+    main(["derive", str(folder), "-o", str(out / "derive.csv")])
+    main(["audit", str(folder), "-o", str(out / "audit")])
+    main(["export", str(folder), "--to", "dwc", "-o", str(out / "dwc")])
+    capsys.readouterr()
+    written = [p for p in out.rglob("*") if p.is_file() and p.suffix in (".csv", ".json")]
+    assert written or case.startswith("unit-")
+    for p in written:
+        assert _numbers_in(p) == [], (p.name, _numbers_in(p))
+    if case == "weights-extreme":
+        import pandas as pd
+
+        tab = pd.read_csv(out / "table.csv").set_index("taxon")
+        # inverse-variance mean of 1e134 and 2e134 kg with equal u: their midpoint
+        assert tab.at["Apis mellifera", "muscle_mass"] == pytest.approx(1.5e134, rel=1e-12)
+    if case == "temperature-factor-extreme":
+        probs = _problems(folder)
+        hit = probs[probs["rule"] == "temperature-factor-range"]
+        assert list(hit["row"]) == [6] and (hit["severity"] == "error").all()
+
+
+def test_console_markup_in_cells_is_printed_as_typed(tmp_path, capsys):
+    """'[/red]' or '[/b]' in a cell used to crash check with a markup error (exit 3); every
+    command that prints through the console now shows such text literally."""
+    folder = tmp_path / "markup"
+    _markup(folder)
+    before = tree_hash(folder)
+    for argv, shown in ((["check", str(folder)], "Bombus [/red]terrestris"), (["audit", str(folder)], "[/i]s1"),
+                        (["units", str(folder)], "[/red]")):
+        code = main(argv)
+        out = capsys.readouterr()
+        _assert_clean(code, out.out + out.err, "markup")
+        assert shown in out.out, (argv, out.out[-2000:])
+    assert tree_hash(folder) == before
+
+
+@pytest.mark.parametrize("case,names", [
+    ("column-named-row", {("observations.csv", "row")}),
+    ("column-named-status", {("observations.csv", "status"), ("observations.csv", "_lv")}),
+    ("taxa-column-named-quantity", {("taxa.csv", "body_mass"), ("taxa.csv", "temperature_c"), ("taxa.csv", "fiber_radius_u")}),
+    ("taxa-column-accepted", {("taxa.csv", "accepted")}),
+])
+def test_column_names_comparo_uses_are_refused_by_name(tmp_path, capsys, case, names):
+    """A user column named like one comparo adds ('row', 'status', a quantity key in
+    taxa.csv, which would overwrite the per-taxon value) used to crash or be overwritten;
+    now one error per such column, naming it, and every command exits 2."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    hit = probs[probs["rule"] == "column-reserved"]
+    assert set(zip(hit["file"], hit["column"], strict=True)) == names
+    assert (hit["severity"] == "error").all()
+    for cmd in ("check", "table", "audit"):
+        assert main([cmd, str(folder)]) == 2
+        err = capsys.readouterr()
+        assert "column-reserved" in err.out + err.err
+
+
+def test_audit_without_a_taxon_column_in_taxa_is_a_clear_exit_2(tmp_path, capsys):
+    """taxa.csv without its taxon column used to end audit with a KeyError (exit 3)."""
+    folder = tmp_path / "notaxon"
+    CASES["taxa-without-taxon-column"](folder)
+    assert main(["audit", str(folder)]) == 2
+    err = capsys.readouterr().err
+    assert "taxa.csv" in err and "'taxon'" in err and "missing" in err
+    assert "Traceback" not in err and "internal error" not in err
+
+
+@pytest.mark.parametrize("case,rule,words,row", [
+    ("utf16-le-no-bom", "encoding", "UTF-16 (little-endian) text without a byte-order mark", None),
+    ("utf16-be-no-bom", "encoding", "UTF-16 (big-endian) text without a byte-order mark", None),
+    ("nul-after-4kib", "file-format", "NUL bytes (first on line 8", 8),
+    ("observations-is-a-folder", "not-a-file", "observations.csv is a folder", None),
+    ("observations-symlink-loop", "not-a-file", "observations.csv is a symbolic link that loops", None),
+    ("observations-fifo", "not-a-file", "observations.csv is a named pipe", None),
+    ("header-quoted-newline", "header-line-break", "the header row has an unclosed quote", 1),
+    ("control-character-in-cell", "control-character", "control character 0x07", 2),
+])
+def test_unreadable_files_say_why(tmp_path, case, rule, words, row):
+    """Each unreadable observations file gets one error that says what it is, at the
+    place it is (UTF-16 without a byte-order mark used to be called 'NUL bytes'; a NUL
+    after the first 4 KiB went unnoticed; a folder named observations.csv was 'missing')."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    errors = probs[probs["severity"] == "error"]
+    assert len(errors) == 1, errors.to_dict("records")
+    assert errors["rule"].iat[0] == rule and words in errors["message"].iat[0]
+    assert errors["file"].iat[0].startswith("observations.csv")
+    got = errors["row"].iat[0]
+    assert (None if pd.isna(got) else int(got)) == row
+    assert main(["check", str(folder)]) == 2
+
+
+def test_ctrl_z_at_the_end_is_ignored_with_a_warning(tmp_path):
+    """A trailing Ctrl-Z (0x1A, the end-of-file marker of old editors) is not a row."""
+    folder = tmp_path / "z"
+    CASES["ctrl-z-at-end"](folder)
+    res = _read_as(folder)
+    plain = _read_as(write_dataset(tmp_path / "plain"))
+    pd.testing.assert_frame_equal(res[0], plain[0])
+    probs = _problems(folder)
+    assert list(probs.loc[probs["rule"] == "end-of-file-marker", "severity"]) == ["warning"]
+
+
+def test_dois_are_bare_names_and_odd_ones_warned(tmp_path):
+    """DOIs typed as doi.org URLs or with a 'doi:' prefix are stored once as the bare name
+    10.xxxx/... (the DOI Handbook's syntax, prefix '10.' + registrant code), so links are
+    https://doi.org/10.xxxx/..., never doubled; a DOI that is not 10.xxxx/... is a warning."""
+    from comparo.dataset import load
+
+    folder = tmp_path / "doi"
+    CASES["doi-forms"](folder)
+    ds = load(folder)
+    assert list(ds.sources["doi"]) == ["10.1000/abc", "10.1000/XYZ.2", "10.12345/q-1", "see the journal"]
+    probs = _problems(folder)
+    bad = probs[probs["rule"] == "doi-format"]
+    assert list(zip(bad["file"], bad["row"], bad["severity"], strict=True)) == [("sources.csv", 5, "warning")]
+    bib = tmp_path / "bib"
+    CASES["bibtex-doi-url"](bib)
+    assert list(load(bib).sources["doi"]) == ["10.1000/abc", "10.1000/def"]
+
+
+def test_citations_from_bibtex_read_like_citations(tmp_path):
+    """Author list, year, title, journal, volume(issue): pages, each part ending in one
+    full stop (no '..'), a page range with an en dash; a book keeps its publisher."""
+    from comparo.dataset import load
+
+    folder = tmp_path / "bib"
+    CASES["bibtex-doi-url"](folder)
+    cites = list(load(folder).sources["citation"])
+    assert cites == [
+        "Invented, A., Madeup, B. and Notreal, C. (2001). A made-up study of fibres. J. Invented Biol. 204(3): 117\u2013125.",
+        "Invented, B. (2002). Is this a book? Nowhere Press.",
+    ]
+
+
+def test_conflict_messages_show_both_values_units_rows_and_sources(tmp_path):
+    """100 mg and 0.5 g of one bee's body mass disagree (ratio 5 > 1.5): each side of the
+    conflict is shown with its value in kg, the value as reported, its row and source."""
+    folder = write_dataset(tmp_path / "c", [*VALID_ROWS, "o7,Apis mellifera,body_mass,0.5,g,,,,s2,Table 9,reported,,,"])
+    probs = _problems(folder)
+    msgs = list(probs.loc[probs["rule"] == "conflict", "message"])
+    assert len(msgs) == 2
+    for m in msgs:
+        assert "o1: 0.0001 kg (reported as 100 mg, row 2, source s1)" in m
+        assert "o7: 0.0005 kg (reported as 0.5 g, row 8, source s2)" in m
+
+
+def test_no_user_facing_text_says_from_memory(tmp_path, capsys):
+    """Plausible ranges cite a named source or call themselves a typical range (rule of
+    thumb); the phrase 'from memory' belongs in test comments only."""
+    import re as _re
+
+    from comparo.catalog import load_catalog, read_schema
+
+    for q in load_catalog().values():
+        if q.range:
+            assert "from memory" not in q.range_source
+            assert "rule of thumb" in q.range_source or _re.search(r"[A-Z][a-z]+.* (19|20)\d\d", q.range_source), q.key
+    derived = read_schema("derived.toml")
+    texts = [v for v in derived.get("settings_sources", {}).values() if isinstance(v, str)]
+    assert texts and not [t for t in texts if "from memory" in t]
+    folder = write_dataset(tmp_path / "oor", _rows_with(0, ",100,mg", ",100,Mg"))
+    (folder / "comparo.toml").write_text("[q10]\nattach_rate = -1\n", encoding="utf-8")
+    for cmd in ("check", "audit"):
+        main([cmd, str(folder)])
+        out = capsys.readouterr()
+        assert "from memory" not in out.out + out.err
+        assert cmd == "audit" or "rule of thumb" in out.out
+
+
+GATED = ["table", "audit", "derive", "fit", "export"]
+# fit's answers when too few taxa carry both requested quantities, or none carries one: about
+# the request on this dataset, not a defect of it (the plain valid dataset gets the first too)
+_NOTHING_TO_FIT = ("needs at least", "is not in the table")
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_check_is_the_gate(tmp_path, capsys, case):
+    """For every hostile case: either check exits 2, or every command succeeds. The only
+    exit 2 a passing dataset may still get is fit saying that too few taxa carry both
+    requested quantities, or none carries one (it says the first on the plain valid
+    dataset too)."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    gate = main(["check", str(folder)])
+    capsys.readouterr()
+    if gate == 2:
+        return
+    for cmd in GATED:
+        code = main(_argv(cmd, folder, tmp_path / f"out-{cmd}"))
+        out = capsys.readouterr()
+        text = out.out + out.err
+        assert code != 3 and "Traceback" not in text, (cmd, text[-2000:])
+        if cmd == "fit" and code == 2 and any(m in text for m in _NOTHING_TO_FIT):
+            continue
+        assert code == 0, f"check passed (exit {gate}) but {cmd} exits {code}: {text[-2000:]}"
+
+
+@pytest.mark.parametrize("case,column", [
+    ("settings-conflict-factor-text", "conflict_factor"), ("settings-conflict-factor-below-1", "conflict_factor"),
+    ("settings-aggregate-number", "aggregate"), ("settings-q10-list", "q10"), ("settings-q10-inf", "q10.attach_rate"),
+    ("settings-activation-text", "activation_energy_kj_mol.attach_rate"), ("settings-quantities-string", "quantities"),
+    ("settings-seed-text", "seed"), ("settings-title-table", "title"),
+])
+def test_settings_of_the_wrong_type_are_one_error_each(tmp_path, case, column):
+    """A string where a number belongs, a list where a table belongs, an infinite Q10, a
+    conflict factor of 1 or less: one error naming the setting (conflict_factor = "abc"
+    used to end table with exit 3)."""
+    folder = tmp_path / case
+    CASES[case](folder)
+    probs = _problems(folder)
+    errors = probs[probs["severity"] == "error"]
+    assert list(zip(errors["file"], errors["column"], strict=True)) == [("comparo.toml", column)]
+    assert main(["check", str(folder)]) == 2

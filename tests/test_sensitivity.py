@@ -10,8 +10,8 @@ import pandas as pd
 import pytest
 from support import DEMO, run_cli, write_dataset
 
+from comparo.dataset import load
 from comparo.fit import fit
-from comparo.io import load
 from comparo.sensitivity import (
     jackknife_se,
     lognormal_draws,

@@ -246,3 +246,39 @@ def test_text_view_caps_rows_per_rule_and_all_lists_them(tmp_path, capsys):
     assert out.count("[basis-digitized]") == 30 and "not shown" not in out
     assert main(["check", str(folder), "--format", "csv"]) == 0
     assert capsys.readouterr().out.count("basis-digitized") == 30
+
+
+def _imports(module: str) -> set[str]:
+    """Every comparo module *module* imports, at the top or inside a function."""
+    import ast
+    import importlib.util
+
+    src = open(importlib.util.find_spec(module).origin, encoding="utf-8").read()
+    out = set()
+    for node in ast.walk(ast.parse(src)):
+        if isinstance(node, ast.ImportFrom) and node.module and node.module.startswith("comparo"):
+            out.add(node.module)
+        elif isinstance(node, ast.Import):
+            out.update(a.name for a in node.names if a.name.startswith("comparo"))
+    return out
+
+
+def test_reading_never_imports_validation():
+    """One-way flow: reading returns raw tables; validation imports reading; the
+    dataset module sits on both (no import cycle, not even a lazy one)."""
+    assert not _imports("comparo.io") & {"comparo.validate", "comparo.dataset", "comparo.curate"}
+    assert "comparo.io" in _imports("comparo.validate")
+    assert "comparo.dataset" not in _imports("comparo.validate")
+    assert {"comparo.io", "comparo.validate"} <= _imports("comparo.dataset")
+    import comparo
+    from comparo.dataset import Dataset, load
+
+    assert comparo.load is load and comparo.Dataset is Dataset
+
+
+def test_check_result_shows_itself_in_a_notebook(tiny):
+    from comparo.dataset import check
+
+    res = check(tiny)
+    html = res._repr_html_()
+    assert "<table" in html and res.summary().split(":")[-1].strip() in html

@@ -8,10 +8,11 @@ from comparo.commands._common import dumps, emit
 
 
 def run(args) -> int:
-    from comparo.io import load
+    from comparo.dataset import load
     from comparo.provenance import audit
 
     ds = load(args.dataset, strict=False)
+    refuse_file_errors(ds)
     report = audit(ds, temperature=not args.no_temperature)
     if args.output:
         from pathlib import Path
@@ -46,25 +47,49 @@ def run(args) -> int:
     return 0
 
 
+def refuse_file_errors(ds) -> None:
+    """Raise :class:`~comparo.InputError` for errors the audit cannot account for as
+    excluded rows: anything not on a row of the observations (a taxa.csv without its
+    taxon column, a sources table without source_id, bad settings, reserved names)."""
+    from comparo.errors import InputError
+
+    probs = ds.problems
+    if probs is None or not len(probs):
+        return
+    obs_file = ds.files["observations"].name if "observations" in ds.files else None
+    err = probs["severity"] == "error"
+    on_rows = probs["file"].astype(str).str.startswith(obs_file or "\0") & probs["row"].notna()
+    if (err & ~on_rows).any():
+        raise InputError(probs[err & ~on_rows].reset_index(drop=True))
+
+
+def _row(table, *cells) -> None:
+    """Add a row of plain text: data (names, ids, reasons) never read as console markup."""
+    from rich.text import Text
+
+    table.add_row(*(Text(str(c)) for c in cells))
+
+
 def _render(report) -> None:
     from rich.console import Console
     from rich.table import Table
+    from rich.text import Text
 
     console = Console(width=None if sys.stdout.isatty() else 120)
-    console.print(report.summary())
+    console.print(Text(report.summary()))
     if report.rows_excluded:
         t = Table(title="excluded rows", title_justify="left")
         for c in ("obs_id", "row", "reason"):
             t.add_column(c)
         for r in report.rows_excluded:
-            t.add_row(r["obs_id"], str(r["row"]), r["reason"])
+            _row(t, r["obs_id"], r["row"], r["reason"])
         console.print(t)
     if report.conflicts:
         t = Table(title="conflicts", title_justify="left")
-        for c in ("taxon", "quantity", "obs_ids", "sources"):
+        for c in ("taxon", "quantity", "values", "sources"):
             t.add_column(c)
         for c in report.conflicts:
-            t.add_row(c["taxon"], c["quantity"], "; ".join(c["obs_ids"]), "; ".join(c["sources"]))
+            _row(t, c["taxon"], c["quantity"], conflict_values(c), "; ".join(c["sources"]))
         console.print(t)
     t = Table(title="basis mix per quantity (share of used values)", title_justify="left")
     t.add_column("quantity")
@@ -73,7 +98,7 @@ def _render(report) -> None:
     for b in BASIS_ORDER:
         t.add_column(b, justify="right")
     for q, s in report.basis_shares.items():
-        t.add_row(q, *[f"{100 * s[b]:.0f}%" if b in s else "" for b in BASIS_ORDER])
+        _row(t, q, *[f"{100 * s[b]:.0f}%" if b in s else "" for b in BASIS_ORDER])
     console.print(t)
     from comparo.provenance import TRUST_GRADES, TRUST_MEANING
 
@@ -82,11 +107,18 @@ def _render(report) -> None:
         t.add_column(c)
     counts = {g: sum(1 for v in report.trust.values() if v == g) for g in TRUST_GRADES}
     for g in TRUST_GRADES:
-        t.add_row(g, str(counts[g]), TRUST_MEANING[g])
+        _row(t, g, counts[g], TRUST_MEANING[g])
     console.print(t)
     t = Table(title="sources", title_justify="left")
     for c in ("source_id", "values", "taxa"):
         t.add_column(c, justify="right" if c != "source_id" else "left")
     for sid, v in sorted(report.sources.items(), key=lambda kv: -kv[1]["values"]):
-        t.add_row(sid, str(v["values"]), str(v["taxa"]))
+        _row(t, sid, v["values"], v["taxa"])
     console.print(t)
+
+
+def conflict_values(c: dict) -> str:
+    """The values of one conflict as ``obs_id: value unit (row, source)`` joined by '; '."""
+    from comparo.curate import describe_value
+
+    return "; ".join(describe_value(c, i) for i in range(len(c["obs_ids"])))

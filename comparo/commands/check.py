@@ -16,6 +16,9 @@ def _text(v) -> str:
 def render_problems(result, limit: int | None = 25) -> None:
     """Rich table of problems grouped by severity, then the one-line summary.
 
+    Every text from the data goes in as :class:`rich.text.Text`, never as markup,
+    so a cell holding ``[/red]`` prints as typed.
+
     At most *limit* rows per (severity, rule) are printed, followed by a line
     saying how many more there are; ``None`` prints every row. The full list is
     always in ``--format csv`` and ``--format json``.
@@ -48,12 +51,12 @@ def render_problems(result, limit: int | None = 25) -> None:
             problem.append(f"  [{_text(rec['rule'])}]", style="dim")
             if _text(rec["hint"]):
                 problem.append("\n" + _text(rec["hint"]), style="italic cyan")
-            table.add_row(where, _text(rec["column"]), _text(rec["value"]), problem)
+            table.add_row(Text(where), Text(_text(rec["column"])), Text(_text(rec["value"])), problem)
         console.print(table)
         for rule, count in hidden.items():
             console.print(Text(f"  ... and {count} more {severity}(s) [{rule}] not shown "
                                "(--all lists every row; --format csv writes them all)", style="dim"))
-    console.print(result.summary(), style="bold green" if result.ok else "bold red")
+    console.print(Text(result.summary(), style="bold green" if result.ok else "bold red"))
 
 
 def run(args) -> int:

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 
 def run(args) -> int:
+    from comparo.dataset import load
     from comparo.export import to_datapackage, to_dwc
-    from comparo.io import load
 
     ds = load(args.dataset)
     result = to_datapackage(ds, args.output) if args.to == "datapackage" else to_dwc(ds, args.output)

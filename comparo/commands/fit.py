@@ -16,7 +16,7 @@ def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True):
     path = Path(data)
     if path.is_dir():
         from comparo.curate import per_taxon
-        from comparo.io import load
+        from comparo.dataset import load
 
         return per_taxon(load(path), temperature=temperature)
     if not path.is_file():
@@ -47,7 +47,7 @@ def _pgls_options(args) -> dict:
     opts["tree"] = tree
     taxa = Path(args.data) / "taxa.csv" if Path(args.data).is_dir() else None
     if taxa is not None and taxa.is_file():
-        from comparo.io import load
+        from comparo.dataset import load
 
         ds = load(args.data)
         if ds.taxa is not None and "tree_label" in ds.taxa:
@@ -98,7 +98,7 @@ def run_sensitivity(args) -> int:
 
     pgls = _pgls_options(args) if args.method == "pgls" else {}
     if Path(args.data).is_dir():
-        from comparo.io import load
+        from comparo.dataset import load
 
         data = load(args.data)
     else:

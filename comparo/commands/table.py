@@ -7,7 +7,7 @@ from comparo.commands._common import emit
 
 def run(args) -> int:
     from comparo.curate import per_taxon
-    from comparo.io import load
+    from comparo.dataset import load
 
     ds = load(args.dataset)
     table = per_taxon(ds, temperature=not args.no_temperature, aggregate=args.aggregate)

@@ -32,6 +32,7 @@ def run(args) -> int:
         return 0
     from rich.console import Console
     from rich.table import Table
+    from rich.text import Text
 
     table = Table(title="comparo quantity catalogue", title_justify="left")
     for col in ("key", "unit", "kind", "plausible range", "T-sensitive (Q10)", "label"):
@@ -40,6 +41,6 @@ def run(args) -> int:
         rng = f"{q.range[0]:g} - {q.range[1]:g}" if q.range else ""
         ts = f"yes ({q.q10:g})" if q.temperature_sensitive and q.q10 else ("yes" if q.temperature_sensitive else "")
         label = q.label + (f" -> stored as {q.converts_to}" if q.converts_to else "")
-        table.add_row(q.key, units.pretty(q.unit), q.kind, rng, ts, label)
+        table.add_row(*(Text(c) for c in (q.key, units.pretty(q.unit), q.kind, rng, ts, label)))  # data, never markup
     Console().print(table)
     return 0

@@ -22,7 +22,7 @@ from _bigtable import write_table  # noqa: E402
 
 
 def main(rows: int = 100_000) -> None:
-    from comparo.io import load
+    from comparo.dataset import load
     from comparo.provenance import audit
 
     with tempfile.TemporaryDirectory() as tmp:

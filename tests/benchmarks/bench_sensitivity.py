@@ -81,8 +81,8 @@ def main(argv: list[str] | None = None) -> int:
     args = ap.parse_args(argv)
 
     from comparo.curate import per_taxon
+    from comparo.dataset import load
     from comparo.fit import fit
-    from comparo.io import load
     from comparo.sensitivity import sensitivity
 
     x, y = "body_mass", "frequency_observed"
