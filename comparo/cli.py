@@ -27,8 +27,14 @@ def _dataset_arg(p: argparse.ArgumentParser) -> None:
     p.add_argument("dataset", metavar="DATASET", help="dataset folder (observations + sources, optional taxa, tree, comparo.toml)")
 
 
-def _output_arg(p: argparse.ArgumentParser, what: str = "output file (default: standard output)") -> None:
+def _output_arg(p: argparse.ArgumentParser, what: str = "output file (default: standard output; '-' also means it)") -> None:
     p.add_argument("-o", "--output", metavar="FILE", default=None, help=what)
+    p.set_defaults(output_kind="file")
+
+
+def _output_dir_arg(p: argparse.ArgumentParser, what: str = "output folder", required: bool = True) -> None:
+    p.add_argument("-o", "--output", metavar="DIR", required=required, default=None, help=what)
+    p.set_defaults(output_kind="dir")
 
 
 def _temperature_arg(p: argparse.ArgumentParser) -> None:
@@ -58,7 +64,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=["text", "json", "csv"], default="text")
     _temperature_arg(p)
     p.add_argument("--strict", action="store_true", help="exit 1 when conflicts or unit slips are found")
-    p.add_argument("-o", "--output", metavar="DIR", default=None, help="also write audit.json, coverage.csv, sources.csv, excluded.csv and lineage.csv to DIR")
+    _output_dir_arg(p, "also write audit.json, coverage.csv, sources.csv, excluded.csv and lineage.csv to DIR", required=False)
 
     p = sub.add_parser("table", help="per-taxon harmonised table (CSV)")
     _dataset_arg(p)
@@ -100,7 +106,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("report", help="full analysis: HTML report, figures and tables")
     _dataset_arg(p)
-    p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
+    _output_dir_arg(p)
     p.add_argument("--seed", type=int, default=20240601)
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     _temperature_arg(p)
@@ -108,10 +114,10 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("export", help="export to open data standards")
     _dataset_arg(p)
     p.add_argument("--to", choices=["datapackage", "dwc"], required=True, help="Frictionless Data Package or Darwin Core MeasurementOrFact")
-    p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
+    _output_dir_arg(p)
 
     p = sub.add_parser("demo", help="write the synthetic demo compilation and run the report on it")
-    p.add_argument("-o", "--output", metavar="DIR", required=True, help="output folder")
+    _output_dir_arg(p)
     p.add_argument("--seed", type=int, default=20240601, help="random seed for resampling")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
@@ -120,6 +126,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=["text", "csv", "json"], default="text")
 
     return parser
+
+
+def _guard_output(args: argparse.Namespace) -> None:
+    """Refuse an output inside an input (and wrong kinds of output path) before any work."""
+    output = getattr(args, "output", None)
+    if output is None:
+        return
+    from comparo.outputs import guard_output
+
+    inputs = [getattr(args, name, None) for name in ("dataset", "data", "tree", "wide", "sources", "map")]
+    guard_output(output, kind=getattr(args, "output_kind", "file"), inputs=inputs)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -139,9 +156,10 @@ def main(argv: list[str] | None = None) -> int:
     from comparo.errors import ComparoError, InputError, UsageError
 
     try:
+        _guard_output(args)
         return int(module.run(args) or 0)
     except InputError as exc:
-        from comparo.commands._common import print_problems
+        from comparo.outputs import print_problems
 
         print_problems(exc.problems, stream=sys.stderr)
         return EXIT_INPUT

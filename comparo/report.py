@@ -312,8 +312,8 @@ vision deficiency to enable accurate interpretation of scientific data, PLoS ONE
 
 
 def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: bool, draws: int) -> ReportResult:
-    from comparo.commands._common import atomic_write_text
     from comparo.csvsafe import to_csv
+    from comparo.outputs import atomic_write_text
 
     probs = result.problems
     errs = probs[probs["severity"] == "error"]
@@ -328,7 +328,7 @@ def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: b
 
 
 def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, draws: int, ok: bool) -> None:
-    from comparo.commands._common import atomic_write_text, dumps
+    from comparo.outputs import atomic_write_text, dumps
 
     record = {"created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"), "dataset": folder.name,
               "inputs_sha256": input_hashes(folder), "settings": settings, "seed": int(seed),
@@ -391,11 +391,11 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     import pandas as pd
 
     from comparo import plots
-    from comparo.commands._common import atomic_write_bytes, atomic_write_text, dumps
     from comparo.csvsafe import to_csv
     from comparo.curate import harmonise, per_taxon, review
     from comparo.errors import ComparoError
     from comparo.fit import fit
+    from comparo.outputs import atomic_write_bytes, atomic_write_text, dumps
     from comparo.provenance import audit
 
     steps.step("checking")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from comparo.commands._common import dumps, emit
+from comparo.outputs import dumps, emit
 
 
 def run(args) -> int:
@@ -19,8 +19,8 @@ def run(args) -> int:
 
         import pandas as pd
 
-        from comparo.commands._common import atomic_write_text
         from comparo.csvsafe import to_csv
+        from comparo.outputs import atomic_write_text
         from comparo.provenance import lineage
 
         out = Path(args.output)

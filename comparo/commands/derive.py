@@ -4,11 +4,11 @@ from __future__ import annotations
 
 
 def run(args) -> int:
-    from comparo.commands._common import emit
     from comparo.csvsafe import to_csv
     from comparo.curate import per_taxon
     from comparo.dataset import load
     from comparo.derive import derive
+    from comparo.outputs import emit
 
     ds = load(args.dataset)
     table = per_taxon(ds, temperature=not args.no_temperature)

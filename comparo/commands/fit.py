@@ -5,8 +5,8 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from comparo.commands._common import dumps, emit
 from comparo.errors import UsageError
+from comparo.outputs import dumps, emit
 
 
 def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True):

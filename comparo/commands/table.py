@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from comparo.commands._common import emit
+from comparo.outputs import emit
 
 
 def run(args) -> int:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from comparo.commands._common import dumps, emit
+from comparo.outputs import dumps, emit
 
 
 def run(args) -> int:

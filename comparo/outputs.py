@@ -1,0 +1,224 @@
+"""Where results go: output-path checks and safe, atomic writes.
+
+Every command and the report write through this module, so one set of rules
+holds everywhere:
+
+* **An output never lands in an input.** A path that is, or is inside, an input
+  dataset folder (or equals an input file) is refused before any work, symlinks
+  resolved (:func:`guard_output`). A folder output that already holds a dataset
+  (an ``observations`` table) is refused too: results are not mixed into data.
+* **Wrong kinds of path are refused up front**: an existing folder where a file is
+  expected and the reverse, a parent that is a file, a folder that cannot be
+  written (checked before the work starts, not after it).
+* **Regular files are replaced atomically** (temporary file in the same folder,
+  then rename), so a crash never leaves half a file. A symlink is written
+  *through*: its target is replaced atomically and the link itself is kept. A
+  FIFO, device or socket is written in place, never replaced by a regular file.
+  ``-`` and ``/dev/stdout`` mean standard output.
+* **Write failures** (full device, read-only file system, permission) become a
+  :class:`~comparo.errors.UsageError` naming the path (exit 2), not a traceback.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import os
+import stat
+import sys
+import tempfile
+from collections.abc import Iterable
+from pathlib import Path
+from typing import IO, Any
+
+from comparo.errors import UsageError
+
+STDOUT_NAMES = frozenset({"-", "/dev/stdout"})
+_DATASET_TABLES = ("observations.csv", "observations.tsv", "observations.xlsx")
+
+
+def is_stdout(path: str | os.PathLike | None) -> bool:
+    """True for ``-`` and ``/dev/stdout`` (standard output)."""
+    return path is not None and str(path) in STDOUT_NAMES
+
+
+def _resolved(path: str | os.PathLike) -> Path:
+    return Path(os.path.realpath(os.path.expanduser(str(path))))
+
+
+def _inside(child: Path, parent: Path) -> bool:
+    return child == parent or parent in child.parents
+
+
+def _nearest_existing(path: Path) -> Path:
+    p = path
+    while not p.exists() and p != p.parent:
+        p = p.parent
+    return p
+
+
+def guard_output(path: str | os.PathLike | None, *, kind: str = "file",
+                 inputs: Iterable[str | os.PathLike | None] = ()) -> None:
+    """Refuse an output path before any work is done.
+
+    Parameters
+    ----------
+    path : output given by the user (``None`` or ``-``: standard output, nothing to check).
+    kind : ``"file"`` or ``"dir"``: what the command will write there.
+    inputs : the command's input paths (dataset folders, data or tree files).
+
+    Raises
+    ------
+    UsageError
+        Naming the path and the rule broken (exit 2).
+    """
+    if path is None or is_stdout(path):
+        return
+    raw = Path(os.path.expanduser(str(path)))
+    out = _resolved(raw)
+    for given in inputs:
+        if not given or is_stdout(given):
+            continue
+        src = _resolved(given)
+        if src.is_dir() and _inside(out, src):
+            raise UsageError(f"output {path} is inside the input dataset folder {given}; "
+                             "comparo never writes into its inputs: choose a path outside it")
+        if not src.is_dir() and out == src:
+            raise UsageError(f"output {path} is the input file {given}; comparo never overwrites its inputs")
+    if kind == "dir" and out.is_dir() and any((out / t).exists() for t in _DATASET_TABLES):
+        raise UsageError(f"output folder {path} holds a dataset (an observations table); "
+                         "results are not written into data folders: choose another folder")
+    _check_kind(raw, out, kind, str(path))
+
+
+def _check_kind(raw: Path, out: Path, kind: str, shown: str) -> None:
+    if kind == "file":
+        if out.is_dir():
+            raise UsageError(f"output {shown} is a folder; give a file name")
+    elif out.exists() and not out.is_dir():
+        raise UsageError(f"output {shown} is a file; this command writes a folder")
+    base = _nearest_existing(out if kind == "dir" else out.parent)
+    if not base.is_dir():
+        raise UsageError(f"cannot write {shown}: {base} is a file, not a folder")
+    target_dir = out if (kind == "dir" and out.is_dir()) else base
+    if kind == "file" and out.exists() and not out.is_file():
+        return  # FIFO, device or socket: written in place
+    if not os.access(target_dir, os.W_OK | os.X_OK):
+        raise UsageError(f"cannot write {shown}: the folder {target_dir} is not writable")
+
+
+def _write_error(path: str | os.PathLike, exc: OSError) -> UsageError:
+    reason = {errno.ENOSPC: "the device is full", errno.EROFS: "the file system is read-only",
+              errno.EACCES: "permission denied", errno.EPERM: "permission denied",
+              errno.EISDIR: "it is a folder", errno.ENOTDIR: "a parent is not a folder",
+              errno.EDQUOT: "the disk quota is exceeded"}.get(exc.errno, exc.strerror or str(exc))
+    return UsageError(f"cannot write {path}: {reason}")
+
+
+def atomic_write_text(path: str | os.PathLike, text: str, encoding: str = "utf-8") -> None:
+    """Write *text* to *path* (see :func:`atomic_write_bytes`)."""
+    atomic_write_bytes(path, text.encode(encoding))
+
+
+def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
+    """Write *data* to *path*: standard output for ``-``/``/dev/stdout``; in place for a
+    FIFO, device or socket; otherwise atomically (temporary file in the target's folder,
+    then rename), writing through a symlink to its target. OS errors become UsageError."""
+    if is_stdout(path):
+        sys.stdout.flush()
+        sys.stdout.buffer.write(data)
+        sys.stdout.buffer.flush()
+        return
+    given = Path(path)
+    target = _resolved(given) if given.is_symlink() else given
+    try:
+        mode = target.stat().st_mode if target.exists() else None
+        if mode is not None and not stat.S_ISREG(mode):
+            if stat.S_ISDIR(mode):
+                raise UsageError(f"cannot write {path}: it is a folder")
+            with open(target, "wb") as fh:  # FIFO, device, socket: in place
+                fh.write(data)
+            return
+        target.parent.mkdir(parents=True, exist_ok=True)
+        _replace_atomically(target, data)
+    except OSError as exc:
+        raise _write_error(path, exc) from None
+
+
+def _replace_atomically(path: Path, data: bytes) -> None:
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp creates 0600; give the usual file mode
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def emit(text: str, output: str | None = None) -> None:
+    """Text to standard output, or to *output* (see :func:`atomic_write_text`)."""
+    if output and not is_stdout(output):
+        atomic_write_text(output, text)
+        return
+    if text and not text.endswith("\n"):
+        text += "\n"
+    sys.stdout.write(text)
+
+
+def dumps(obj: Any) -> str:
+    """JSON with NaN/inf written as null (strict JSON)."""
+    return json.dumps(_clean(obj), indent=2, ensure_ascii=False, allow_nan=False)
+
+
+def _clean(obj: Any) -> Any:
+    import math
+
+    if isinstance(obj, dict):
+        return {str(k): _clean(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_clean(v) for v in obj]
+    if hasattr(obj, "item") and not isinstance(obj, str | bytes):
+        try:
+            obj = obj.item()
+        except (ValueError, AttributeError):
+            pass
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    try:
+        import pandas as pd
+
+        if obj is pd.NA or obj is pd.NaT:
+            return None
+    except ImportError:  # pragma: no cover
+        pass
+    return obj
+
+
+def print_problems(problems, stream: IO[str] | None = None, limit: int = 200) -> None:
+    """Problems table as one readable line each (errors first), to *stream*."""
+    from comparo.errors import Problem
+
+    stream = stream or sys.stderr
+    n = len(problems)
+    for i, rec in enumerate(problems.to_dict("records")):
+        if i >= limit:
+            stream.write(f"... and {n - limit} more problem(s); use 'comparo check --format csv' for all\n")
+            break
+        rec = {k: (None if _is_missing(v) else v) for k, v in rec.items()}
+        stream.write(Problem(**rec).line() + "\n")
+
+
+def _is_missing(v: Any) -> bool:
+    try:
+        import pandas as pd
+
+        return v is None or (not isinstance(v, str) and bool(pd.isna(v)))
+    except (TypeError, ValueError):
+        return False
