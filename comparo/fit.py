@@ -44,6 +44,7 @@ Efron, B. (1987). Better bootstrap confidence intervals. Journal of the
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
@@ -1016,18 +1017,22 @@ def group_fits(X: np.ndarray, Y: np.ndarray, groups: np.ndarray, method: str, ci
 # --------------------------------------------------------------------------- breakpoint
 
 
-def segmented_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, psi0: float | None = None, n_grid: int = 10, max_iter: int = 50) -> dict:
+def segmented_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, psi0: float | None = None, n_grid: int = 10) -> dict:
     """Broken-line fit Y = b0 + b1 X + b2 (X - psi)_+ (Muggeo 2003) with Davies' test.
 
-    The breakpoint is the global least-squares optimum: the profile RSS is
-    scanned over the interior data range (between the 3rd smallest and 3rd
-    largest x), and Muggeo's linearisation is iterated from the best grid
-    point (and from ``psi0`` if given); the start with the smaller RSS wins.
+    The breakpoint is the global least-squares optimum over the interior data
+    range (between the 3rd smallest and 3rd largest x), found by
+    :func:`_global_breakpoint`: the profile RSS is smooth between consecutive
+    data values, so each such interval is minimised by bounded Brent search and
+    the best of these (and of a 200-point grid, and of ``psi0`` if given) wins.
+    Muggeo's iteration is not used to locate it: it can cycle (period 3 seen in
+    simulation) and stop above the optimum.
 
     Notes
     -----
-    Muggeo step: OLS on [1, X, U, V], U = (X - psi)_+, V = -I(X > psi); psi <- psi + gamma/b2.
-    At convergence se(psi) = se(gamma)/|b2| and CI psi -/+ t(ci; n - 4) se(psi). Slopes
+    At the optimum, Muggeo's (2003) linearisation, OLS on [1, X, U, V] with
+    U = (X - psi)_+ and V = -I(X > psi), gives se(psi) = se(gamma)/|b2| and the CI
+    psi -/+ t(ci; n - 4) se(psi). Slopes
     b1 (left) and b1 + b2 (right) with t(n - 4) CIs from the same fit.
     Davies (1987) test of b2 = 0 with psi absent under H0: S_k = Wald t of b2 at ``n_grid``
     points evenly spread over the interior range; M = max |S_k|, V = sum |S_k - S_(k-1)|,
@@ -1046,32 +1051,10 @@ def segmented_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, psi0: float |
         d = np.column_stack([np.ones(n), X, np.clip(X - psi, 0, None)])
         return float(np.linalg.lstsq(d, Y, rcond=None)[1].sum()) if n > 3 else 0.0
 
-    grid = np.linspace(lo_b, hi_b, 200)
-    starts = [float(grid[int(np.argmin([rss(g) for g in grid]))])]
-    if psi0 is not None:
-        starts.append(float(psi0))
-
-    def muggeo(psi: float):
-        res = None
-        for _ in range(max_iter):
-            U = np.clip(X - psi, 0, None)
-            V = -(X > psi).astype(float)
-            res = sm.OLS(Y, np.column_stack([np.ones(n), X, U, V])).fit()
-            b2, gam = res.params[2], res.params[3]
-            if b2 == 0:
-                break
-            new = float(np.clip(psi + gam / b2, lo_b, hi_b))
-            if abs(new - psi) < 1e-10 * (1 + abs(psi)):
-                psi = new
-                break
-            psi = new
-        U = np.clip(X - psi, 0, None)
-        V = -(X > psi).astype(float)
-        res = sm.OLS(Y, np.column_stack([np.ones(n), X, U, V])).fit()
-        return psi, res
-
-    best = min((muggeo(s) for s in starts), key=lambda pr: rss(pr[0]))
-    psi, res = best
+    psi = _global_breakpoint(rss, X, lo_b, hi_b, psi0)
+    U = np.clip(X - psi, 0, None)
+    V = -(X > psi).astype(float)
+    res = sm.OLS(Y, np.column_stack([np.ones(n), X, U, V])).fit()  # Muggeo's linearisation at the optimum
     cov = np.asarray(res.cov_params())
     b1, b2 = res.params[1], res.params[2]
     se_psi = float(res.bse[3] / abs(b2)) if b2 != 0 else _NAN
@@ -1100,6 +1083,40 @@ def segmented_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, psi0: float |
         "p_single_line": float(p),
         "davies_max_abs_t": M,
     }
+
+
+def _global_breakpoint(rss: Callable[[float], float], X: np.ndarray, lo: float, hi: float,
+                       psi0: float | None = None, max_intervals: int = 400) -> float:
+    """The psi in [lo, hi] minimising the profile RSS of a broken line (fitted scale).
+
+    Between consecutive distinct data values the profile RSS is a smooth function of
+    psi; each interval is minimised by bounded Brent search (scipy ``minimize_scalar``).
+    With more than ``max_intervals`` intervals, a 400-point grid is refined around its
+    8 best points instead. The result is never worse than any grid point or ``psi0``.
+    """
+    from scipy.optimize import minimize_scalar
+
+    grid = np.linspace(lo, hi, 200)
+    inner = np.unique(X[(X > lo) & (X < hi)])
+    edges = np.unique(np.concatenate([[lo, hi], inner]))
+    if len(edges) - 1 > max_intervals:
+        fine = np.linspace(lo, hi, 401)
+        vals = np.array([rss(g) for g in fine])
+        keep = np.argsort(vals)[:8]
+        spans = [(fine[max(k - 1, 0)], fine[min(k + 1, len(fine) - 1)]) for k in keep]
+    else:
+        spans = list(zip(edges[:-1], edges[1:], strict=True))
+    cands = [float(g) for g in grid] + [float(e) for e in edges]
+    if psi0 is not None and lo <= psi0 <= hi:
+        cands.append(float(psi0))
+    tol = 1e-10 * max(1.0, hi - lo)
+    for a, b in spans:
+        if b - a <= tol:
+            continue
+        opt = minimize_scalar(rss, bounds=(a, b), method="bounded", options={"xatol": tol})
+        cands.append(float(opt.x))
+    vals = [rss(c) for c in cands]
+    return cands[int(np.argmin(vals))]
 
 
 # --------------------------------------------------------------------------- table handling

@@ -389,3 +389,37 @@ def test_vectorised_bootstrap_equals_per_resample_loop():
         c = np.cov(X[row], Y[row])
         slopes.append(np.sign(c[0, 1]) * math.sqrt(c[1, 1] / c[0, 0]))
     assert out["slope"]["percentile"] == pytest.approx(list(np.quantile(slopes, [0.025, 0.975])), rel=1e-10)
+
+
+def _brute_force_breakpoint(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """Independent route: the profile RSS on a 20,001-point grid over the interior range
+    (3rd smallest to 3rd largest x), each point by numpy lstsq; returns (psi, RSS)."""
+    xs = np.sort(x)
+    grid = np.linspace(xs[2], xs[-3], 20001)
+    best = (math.nan, math.inf)
+    for g in grid:
+        d = np.column_stack([np.ones_like(x), x, np.clip(x - g, 0, None)])
+        r = float(np.sum((y - d @ np.linalg.lstsq(d, y, rcond=None)[0]) ** 2))
+        if r < best[1]:
+            best = (float(g), r)
+    return best
+
+
+def test_broken_line_is_the_global_optimum_on_simulated_sets():
+    """60 invented sets (seed 20261202), n = 40, one true breakpoint at x = 0.3-0.7 of the
+    range, slope change and noise varied: the returned breakpoint's RSS is never above the
+    brute-force minimum (grid of 20,001 points, a finer search than comparo's) by more than
+    1e-9 relative, and where it differs the brute-force grid's spacing explains it. The
+    reported RSS is that of the returned breakpoint, and the SE is computed there."""
+    rng = np.random.default_rng(20261202)
+    for _ in range(60):
+        x = np.sort(rng.uniform(0, 10, 40))
+        psi_true = rng.uniform(3, 7)
+        y = 1 + 0.5 * x + rng.uniform(0.3, 2) * np.clip(x - psi_true, 0, None) + rng.normal(0, rng.uniform(0.2, 1.5), 40)
+        s = segmented_line(x, y)
+        _, rss_bf = _brute_force_breakpoint(x, y)
+        d = np.column_stack([np.ones_like(x), x, np.clip(x - s["x_log"], 0, None)])
+        rss_here = float(np.sum((y - d @ np.linalg.lstsq(d, y, rcond=None)[0]) ** 2))
+        assert s["rss"] == pytest.approx(rss_here, rel=1e-9)
+        assert rss_here <= rss_bf * (1 + 1e-9)
+        assert math.isfinite(s["se_x_log"]) or s["slope_right"] == pytest.approx(s["slope_left"])
