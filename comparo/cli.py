@@ -85,7 +85,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--y", required=True, help="y quantity key or column")
     p.add_argument("--method", choices=["ols", "sma", "ma", "robust", "lts", "pgls"], default="sma")
     p.add_argument("--tree", metavar="FILE", default=None, help="Newick tree for pgls (default: the dataset's tree.nwk)")
-    p.add_argument("--lambda", dest="lambda_", default="ml", metavar="ml|VALUE", help="Pagel's lambda for pgls: 'ml' or a value in [0, 1]")
+    p.add_argument("--lambda", dest="lambda_", default=None, metavar="ml|VALUE", help="Pagel's lambda for pgls: 'ml' (default) or a value in [0, 1]")
     p.add_argument("--reml", action="store_true", help="pgls: REML for the lambda search and the reported likelihood")
     p.add_argument("--tip-se", action="store_true", help="pgls: add the per-taxon standard uncertainties of y (column Y_u) as measurement-error variance")
     p.add_argument("--by", metavar="COLUMN", default=None, help="fit per group and test for a common slope")
@@ -129,7 +129,11 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _guard_output(args: argparse.Namespace) -> None:
-    """Refuse an output inside an input (and wrong kinds of output path) before any work."""
+    """Refuse a bad seed, an output inside an input and wrong kinds of output path before any work."""
+    if getattr(args, "seed", None) is not None:
+        from comparo.bounds import check_seed
+
+        check_seed(args.seed)
     output = getattr(args, "output", None)
     if output is None:
         return

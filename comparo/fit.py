@@ -1259,6 +1259,10 @@ def fit(
     >>> round(r.slope, 3)
     0.301
     """
+    from comparo.bounds import check_finite, check_seed
+
+    seed = check_seed(seed)
+    test_slope = check_finite(test_slope, "the slope to test against")
     if method not in METHODS:
         raise UsageError(f"unknown method {method!r}; choose one of {', '.join(METHODS)}")
     log = str(log)
@@ -1294,6 +1298,9 @@ def fit(
     rules = drop_rules(drop_flagged)
     X, Y, labels, groups, excluded, rows_used = _prepare(table, x, y, log, taxon_col, by)
     n = len(X)
+    from comparo.bounds import check_bootstrap
+
+    bootstrap = check_bootstrap(bootstrap, n, method)
     if n < 3:
         raise UsageError(f"{method} needs at least 3 usable points; {n} remain after excluding {len(excluded)} row(s)"
                          + (f" ({excluded[0]['label']}: {excluded[0]['reason']}, ...)" if excluded else ""))

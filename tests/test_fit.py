@@ -109,7 +109,7 @@ def test_bootstrap_is_seeded():
 
 
 def test_bootstrap_robust_loop_route():
-    r = fit(_table(15), "body_mass", "freq", "robust", bootstrap=40)
+    r = fit(_table(15), "body_mass", "freq", "robust", bootstrap=200)
     lo, hi = r.bootstrap["slope"]["percentile"]
     assert lo < r.slope < hi
 

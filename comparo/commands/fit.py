@@ -27,8 +27,17 @@ def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True):
         raise UsageError(f"cannot read {data!r} as CSV: {exc}") from None
 
 
+def _phylo_only_options(args) -> None:
+    """--lambda, --reml, --tip-se and --tree mean something only for pgls: refuse them otherwise."""
+    given = [flag for flag, on in (("--lambda", args.lambda_ is not None), ("--reml", args.reml),
+                                   ("--tip-se", getattr(args, "tip_se", False)), ("--tree", args.tree is not None)) if on]
+    if given and args.method != "pgls":
+        raise UsageError(f"{', '.join(given)} {'applies' if len(given) == 1 else 'apply'} only to --method pgls "
+                         f"(the method here is {args.method})")
+
+
 def _pgls_options(args) -> dict:
-    lam = args.lambda_
+    lam = "ml" if args.lambda_ is None else args.lambda_
     if lam != "ml":
         try:
             lam = float(lam)
@@ -68,6 +77,7 @@ def _fit(args, table, pgls: dict, progress: bool):
 
 
 def run(args) -> int:
+    _phylo_only_options(args)
     if args.sensitivity:
         return run_sensitivity(args)
     table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
