@@ -466,7 +466,9 @@ def gate_problems(ds: Dataset) -> list[Problem]:
 
 def _gate_hooks() -> list:
     """The gate's checks, imported when ``check`` runs (one line per step)."""
-    hooks: list = []
+    from comparo.phylo import tree_problems
+
+    hooks: list = [tree_problems]
     return hooks
 
 

@@ -14,6 +14,8 @@ import csv
 import io as _io
 import logging
 import re
+import sys
+import threading
 import tomllib
 import unicodedata
 from dataclasses import dataclass, field
@@ -407,6 +409,70 @@ def _strip_braces(v: Any) -> str:
 
 # --------------------------------------------------------------------------- tree, settings
 
+_DEEP = 400  # nesting depth above which the Newick parser runs on a big stack
+_parse_lock = threading.Lock()
+
+
+def _nesting_depth(text: str) -> int:
+    """Largest parenthesis nesting depth of *text* (quotes and comments ignored: an
+    upper bound is all that is needed to size the parser's stack)."""
+    import numpy as np
+
+    b = np.frombuffer(text.encode("utf-8", "replace"), dtype=np.uint8)
+    if b.size == 0:
+        return 0
+    step = (b == ord("(")).astype(np.int64) - (b == ord(")")).astype(np.int64)
+    return int(np.cumsum(step).max(initial=0))
+
+
+def parse_newick(text: str) -> Any:
+    """Parse Newick *text* with dendropy into a TreeList; deep trees on a thread with a big stack.
+
+    dendropy's Newick reader recurses once per nesting level, so a ladder
+    (caterpillar) tree of depth 50,000 exceeds Python's default recursion limit.
+    The parse then runs on its own thread with a stack and recursion limit sized
+    to the nesting depth; the limits are restored afterwards.
+    """
+    import dendropy
+
+    def parse() -> Any:
+        return dendropy.TreeList.get(
+            data=text,
+            schema="newick",
+            preserve_underscores=True,
+            suppress_leaf_node_taxa=True,
+            suppress_internal_node_taxa=True,
+            rooting="force-rooted",
+        )
+
+    depth = _nesting_depth(text)
+    if depth < _DEEP:
+        return parse()
+    out: dict[str, Any] = {}
+
+    def work() -> None:
+        try:
+            out["trees"] = parse()
+        except BaseException as exc:  # re-raised on the calling thread
+            out["error"] = exc
+
+    with _parse_lock:
+        old_limit = sys.getrecursionlimit()
+        old_stack = threading.stack_size()
+        try:
+            sys.setrecursionlimit(max(old_limit, 30 * depth + 10_000))
+            threading.stack_size(int(min(2**31 - 1, max(64 * 2**20, 6_000 * depth))))
+            worker = threading.Thread(target=work, name="comparo-newick")
+            worker.start()
+            worker.join()
+        finally:
+            threading.stack_size(old_stack)
+            sys.setrecursionlimit(old_limit)
+    if "error" in out:
+        raise out["error"]
+    return out["trees"]
+
+
 def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
     """Parse a Newick tree with dendropy. Returns (tree, text, problems)."""
     file = path.name
@@ -420,10 +486,11 @@ def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
         probs.append(_err(file, "unicode-unified", "some tip labels are typed with decomposed accents; read in Unicode NFC (composed) so that they match the same names typed composed", "nothing to do unless two labels differed only in this way", severity="warning"))
     if text.count("(") != text.count(")"):
         return None, text, probs + [_err(file, "newick-syntax", f"unbalanced parentheses ({text.count('(')} '(' vs {text.count(')')} ')')", "check the Newick string")]
-    import dendropy
-
     try:
-        tree = dendropy.Tree.get(data=text, schema="newick", preserve_underscores=True, rooting="force-rooted")
+        trees = parse_newick(text if text.rstrip().endswith(";") else text.rstrip() + ";")
+        if len(trees) != 1:
+            return None, text, probs + [_err(file, "newick-syntax", f"the file holds {len(trees)} trees; exactly one is needed")]
+        tree = trees[0]
     except RecursionError:
         return None, text, probs + [_err(file, "newick-depth", "tree is too deeply nested to parse")]
     except Exception as exc:

@@ -39,8 +39,6 @@ evolution models. Syst Biol 63:397-408.
 from __future__ import annotations
 
 import math
-import sys
-import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -48,7 +46,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.errors import InputError, Problem, UsageError
+from comparo.errors import InputError, Problem, UsageError, problems_from_frame
 
 if TYPE_CHECKING:  # pragma: no cover
     import dendropy
@@ -74,8 +72,6 @@ __all__ = [
 ]
 
 _NEWICK_SOURCE = "<newick text>"
-_DEEP = 400  # nesting depth above which the parser runs on a big stack
-_parse_lock = threading.Lock()
 
 
 # --------------------------------------------------------------------------- helpers
@@ -107,62 +103,12 @@ def _norm(label: str) -> str:
 # --------------------------------------------------------------------------- reading
 
 
-def _nesting_depth(text: str) -> int:
-    """Largest parenthesis nesting depth of *text* (quotes and comments ignored: an
-    upper bound is all that is needed to size the parser's stack)."""
-    b = np.frombuffer(text.encode("utf-8", "replace"), dtype=np.uint8)
-    if b.size == 0:
-        return 0
-    step = (b == ord("(")).astype(np.int64) - (b == ord(")")).astype(np.int64)
-    return int(np.cumsum(step).max(initial=0))
-
-
 def _parse(text: str) -> Any:
-    """Parse Newick *text* with dendropy; deep trees on a thread with a big stack.
+    """Parse Newick *text* with dendropy (deep trees on a big stack): the one reader,
+    shared with the dataset folder reader (:func:`comparo.io.parse_newick`)."""
+    from comparo.io import parse_newick
 
-    dendropy's Newick reader recurses once per nesting level, so a ladder
-    (caterpillar) tree of depth 50,000 exceeds Python's default recursion limit.
-    The parse then runs on its own thread with a stack and recursion limit sized
-    to the nesting depth; the limits are restored afterwards.
-    """
-    import dendropy
-
-    def parse() -> Any:
-        return dendropy.TreeList.get(
-            data=text,
-            schema="newick",
-            preserve_underscores=True,
-            suppress_leaf_node_taxa=True,
-            suppress_internal_node_taxa=True,
-            rooting="force-rooted",
-        )
-
-    depth = _nesting_depth(text)
-    if depth < _DEEP:
-        return parse()
-    out: dict[str, Any] = {}
-
-    def work() -> None:
-        try:
-            out["trees"] = parse()
-        except BaseException as exc:  # re-raised on the calling thread
-            out["error"] = exc
-
-    with _parse_lock:
-        old_limit = sys.getrecursionlimit()
-        old_stack = threading.stack_size()
-        try:
-            sys.setrecursionlimit(max(old_limit, 30 * depth + 10_000))
-            threading.stack_size(int(min(2**31 - 1, max(64 * 2**20, 6_000 * depth))))
-            worker = threading.Thread(target=work, name="comparo-newick")
-            worker.start()
-            worker.join()
-        finally:
-            threading.stack_size(old_stack)
-            sys.setrecursionlimit(old_limit)
-    if "error" in out:
-        raise out["error"]
-    return out["trees"]
+    return parse_newick(text)
 
 
 def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
@@ -455,6 +401,113 @@ def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | 
         raise InputError(problems)
     without = tuple(t for t in tips if t not in used)
     return TipMatch(tuple(pairs), tuple(unmatched), without)
+
+
+def dataset_tree_labels(taxa: Any, tips: Sequence[str], file: str = "taxa.csv") -> dict[str, str]:
+    """Accepted taxon -> tip label from a taxa table, refusing one taxon on two tips.
+
+    Every row of ``taxa`` (columns ``taxon``, optional ``accepted_name`` and
+    ``tree_label``) names a tip for its accepted taxon: its ``tree_label`` if given,
+    else a tip whose name equals the row's name once underscores, spaces and case
+    are folded. When the rows of one accepted taxon (the name itself and its
+    synonyms) point at two different tips, the tree holds that species twice, and
+    keeping either tip silently would drop or swap data: that is an
+    :class:`InputError` naming both labels and the rows.
+
+    Returns
+    -------
+    dict
+        Accepted name -> tip label, for the taxa that have a tip (only the explicit
+        ``tree_label`` entries and synonym-matched tips; plain name matches are left
+        to :func:`match_tips`).
+    """
+    if taxa is None or "taxon" not in taxa:
+        return {}
+    tip_set = set(tips)
+    by_key: dict[str, list[str]] = {}
+    for tip in tips:
+        by_key.setdefault(_norm(tip), []).append(tip)
+    acc_col = taxa["accepted_name"] if "accepted_name" in taxa else taxa["taxon"]
+    lab_col = taxa["tree_label"] if "tree_label" in taxa else [None] * len(taxa)
+    found: dict[str, dict[str, list[int]]] = {}  # accepted -> tip -> rows (spreadsheet numbering)
+    explicit: dict[str, str] = {}
+    for k, (name, acc, lab) in enumerate(zip(taxa["taxon"], acc_col, lab_col, strict=True)):
+        name = str(name)
+        acc = acc if isinstance(acc, str) and acc.strip() else name
+        row = k + 2
+        tip = None
+        if isinstance(lab, str) and lab.strip():
+            tip = lab if lab in tip_set else (by_key[_norm(lab)][0] if len(by_key.get(_norm(lab), [])) == 1 else None)
+            if tip is not None:
+                explicit[acc] = tip
+        elif len(by_key.get(_norm(name), [])) == 1:
+            tip = by_key[_norm(name)][0]
+        if tip is not None:
+            found.setdefault(acc, {}).setdefault(tip, []).append(row)
+    problems = []
+    for acc, tips_of in found.items():
+        if len(tips_of) > 1:
+            shown = "; ".join(f"{t!r} (row {', '.join(map(str, r))})" for t, r in tips_of.items())
+            first = min(min(r) for r in tips_of.values())
+            problems.append(Problem(
+                "error", file, first, "tree_label", acc, "tree-two-tips",
+                f"accepted taxon {acc!r} matches {len(tips_of)} tips of the tree: {shown}; a fit would keep one "
+                "and silently prune the other",
+                "remove the duplicate tip from the tree, or correct the tree_label / synonym row"))
+    if problems:
+        raise InputError(problems)
+    return {acc: next(iter(t)) for acc, t in found.items() if acc in explicit or next(iter(t)) != acc}
+
+
+def tip_labels(tree: Any) -> tuple[str, ...]:
+    """The tip labels of a tree (dendropy tree, Newick file or text), in pre-order."""
+    return tuple(_as_topo(tree).tips)
+
+
+def nearest_tip(label: str, tips: Sequence[str]) -> str | None:
+    """The tip label most like *label* (difflib ratio >= 0.6 on folded names), or None."""
+    import difflib
+
+    keys = {_norm(t): t for t in tips}
+    hit = difflib.get_close_matches(_norm(label), list(keys), n=1, cutoff=0.6)
+    return keys[hit[0]] if hit else None
+
+
+def tree_problems(ds: Any) -> list[Problem]:
+    """What a tree-based fit would reject or silently drop, for ``comparo check``.
+
+    Errors: tip labels or branch lengths a PGLS fit refuses; one accepted taxon on two
+    tips. Warnings: each taxon of the compilation without a tip (it would be left out
+    of every tree-based fit), with the nearest tip label as a suggestion.
+    """
+    tree = getattr(ds, "tree", None)
+    if tree is None:
+        return []
+    file = "tree.nwk"
+    try:
+        topo = _topology(tree)
+        _check(topo, file)
+    except InputError as exc:
+        return problems_from_frame(exc.problems)
+    try:
+        labels_map = dataset_tree_labels(ds.taxa, topo.tips)
+    except InputError as exc:
+        return problems_from_frame(exc.problems)
+    from comparo.curate import accepted_names
+
+    names = sorted(set(accepted_names(ds).dropna().astype(str)))
+    try:
+        m = _match(topo, names, labels_map)
+    except InputError as exc:
+        return problems_from_frame(exc.problems)
+    out = []
+    for lab in m.taxa_without_tips:
+        near = nearest_tip(lab, m.tips_without_data or topo.tips)
+        hint = (f"did you mean tip {near!r}? fix the spelling or give a tree_label in taxa.csv" if near
+                else "add the taxon to the tree or accept that tree-based fits leave it out")
+        out.append(Problem("warning", file, None, None, lab, "taxon-without-tip",
+                           f"taxon {lab!r} has no tip in the tree; PGLS and other tree-based fits leave it out", hint))
+    return out
 
 
 # --------------------------------------------------------------------------- flat tree

@@ -161,16 +161,12 @@ def package_versions() -> dict[str, str]:
 
 
 def _tree_labels(ds) -> dict[str, str] | None:
-    t = ds.taxa
-    if t is None or "tree_label" not in t:
+    """Accepted taxon -> tip, from taxa.csv (one taxon on two tips is an InputError)."""
+    if ds.taxa is None or ds.tree is None:
         return None
-    acc = t["accepted_name"] if "accepted_name" in t else t["taxon"]
-    labels = {}
-    for name, a, lab in zip(t["taxon"], acc, t["tree_label"], strict=True):
-        a = a if isinstance(a, str) and a else name
-        if isinstance(lab, str) and lab:
-            labels[a] = lab
-    return labels or None
+    from comparo.phylo import dataset_tree_labels, tip_labels
+
+    return dataset_tree_labels(ds.taxa, tip_labels(ds.tree)) or None
 
 
 def _analyses(settings: dict, table) -> tuple[list[dict], str]:

@@ -433,7 +433,7 @@ def test_tree_labels_and_settings_read_in_nfc(tmp_path):
 
     (tmp_path / "tree.nwk").write_text(f"({_NFD.replace(' ', '_')}:1,B_b:1);\n", encoding="utf-8")
     tree, _, probs = read_newick(tmp_path / "tree.nwk")
-    assert _NFC.replace(" ", "_") in [t.taxon.label for t in tree.leaf_node_iter()]
+    assert _NFC.replace(" ", "_") in [t.label if t.label is not None else t.taxon.label for t in tree.leaf_node_iter()]
     assert [p.rule for p in probs] == ["unicode-unified"]
     (tmp_path / "comparo.toml").write_text(f'title = "{_NFD}"\n', encoding="utf-8")
     settings, _ = read_settings(tmp_path / "comparo.toml")

@@ -57,12 +57,14 @@ def _pgls_options(args) -> dict:
     taxa = Path(args.data) / "taxa.csv" if Path(args.data).is_dir() else None
     if taxa is not None and taxa.is_file():
         from comparo.dataset import load
+        from comparo.phylo import dataset_tree_labels, read_tree, tip_labels
 
         ds = load(args.data)
-        if ds.taxa is not None and "tree_label" in ds.taxa:
-            t = ds.taxa  # the per-taxon table holds accepted names
-            acc = [a or n for n, a in zip(t["taxon"], t.get("accepted_name", t["taxon"]), strict=True)]
-            opts["tree_labels"] = {a: lab for a, lab in zip(acc, t["tree_label"], strict=True) if lab}
+        if ds.taxa is not None:  # the per-taxon table holds accepted names; one taxon on two tips is an error
+            own = ds.tree is not None and Path(tree).resolve() == (Path(args.data) / "tree.nwk").resolve()
+            labels = dataset_tree_labels(ds.taxa, tip_labels(ds.tree if own else read_tree(tree)))
+            if labels:
+                opts["tree_labels"] = labels
     return opts
 
 
