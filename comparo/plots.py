@@ -111,10 +111,10 @@ def line_band(X: np.ndarray, Y: np.ndarray, method: str, grid: np.ndarray, *, ci
 
     Pairs (X, Y) are resampled with replacement (``numpy.random.default_rng(seed)``,
     vectorised); each resample's line passes through its means with the slope of
-    :func:`comparo.fit.slope_from_moments`. Returns (low, high) at *grid*, or None
+    :func:`comparo.lines.slope_from_moments`. Returns (low, high) at *grid*, or None
     for other methods (no band is drawn for them).
     """
-    from comparo.fit import slope_from_moments
+    from comparo.lines.core import slope_from_moments
 
     if method not in ("ols", "sma", "ma") or len(X) < 3:
         return None
@@ -140,7 +140,7 @@ def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] |
 
     Parameters
     ----------
-    fit : comparo.fit.FitResult
+    fit : comparo.lines.FitResult
     points : DataFrame
         The plotted points: ``label``, ``x_fit``, ``y_fit`` (fitted scale),
         ``basis`` (weakest basis of x and y) and, with *by*, ``group``.

@@ -390,7 +390,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     from comparo.csvsafe import to_csv
     from comparo.curate import harmonise, per_taxon, review
     from comparo.errors import ComparoError
-    from comparo.fit import fit
+    from comparo.lines import fit
     from comparo.outputs import atomic_write_bytes, atomic_write_text, dumps
     from comparo.provenance import audit
 
@@ -639,7 +639,7 @@ LAMBDA_GRID = tuple(i / 10 for i in range(11))
 def _lambda_figure(res, data, a: dict, by: str | None, opts: dict, aid: str):
     """Profile log-likelihood of lambda: the PGLS of *res* refitted at each lambda of :data:`LAMBDA_GRID`."""
     from comparo import plots
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     lls = [fit(data, a["x"], a["y"], "pgls", by=by, **{**opts, "lambda_": lam}).loglik for lam in LAMBDA_GRID]
     return plots.lambda_profile(LAMBDA_GRID, lls, lam_hat=res.lambda_, loglik_hat=res.loglik, lam_ci=res.lambda_ci,

@@ -1,7 +1,7 @@
 """Which sources drive a scaling fit: leave-one-source-out, basis filters,
 leave-one-taxon-out jackknife and Monte Carlo propagation of measurement error.
 
-Every number here comes from refitting the same line (:func:`comparo.fit.fit`)
+Every number here comes from refitting the same line (:func:`comparo.lines.fit`)
 on a changed input; the verdict line is built only from those numbers.
 
 References
@@ -23,7 +23,11 @@ from typing import Any
 import numpy as np
 
 from comparo.errors import UsageError
-from comparo.fit import FitResult, _jackknife_moments, _json, _progress_bar, fit, slope_from_moments
+from comparo.lines.core import slope_from_moments
+from comparo.lines.numbers import _json
+from comparo.lines.resampling import _jackknife_moments, _progress_bar
+from comparo.lines.result import FitResult
+from comparo.lines.scaling import fit
 
 BASIS_STEPS = ("reported", "computed", "digitized", "proxy", "assumed")
 #: A refit that moves the slope by at least this many analytic SEs counts as influential.
@@ -209,7 +213,7 @@ def huber_slopes(X: np.ndarray, Y: np.ndarray, c: float = 1.345, max_iter: int =
 
     The IRLS of statsmodels RLM (HuberT, scale = median|r|/0.6745 re-estimated
     each step, OLS start), run for all rows together until no coefficient moves
-    more than *tol* (or *max_iter* steps); matches :func:`comparo.fit.huber_line`
+    more than *tol* (or *max_iter* steps); matches :func:`comparo.lines.huber_line`
     to about 1e-8.
     """
     def wls(w):
@@ -249,7 +253,7 @@ def _draw_slopes(method: str, X: np.ndarray, Y: np.ndarray, labels: list[str], r
             out[ok] = huber_slopes(X[ok], Y[ok])
         return out
     if method == "lts":
-        from comparo.fit import LTS_CUT, lts_fit, ols_line
+        from comparo.lines import LTS_CUT, lts_fit, ols_line
 
         for k in np.flatnonzero(ok):
             raw = lts_fit(X[k], Y[k], max_starts=MC_LTS_STARTS, seed=seed + k)
@@ -474,7 +478,7 @@ def sensitivity(
         A loaded dataset (all parts) or a per-taxon table (no source-level parts:
         a plain table does not say which source each value came from).
     x, y, method, test_slope, ci, log
-        As for :func:`comparo.fit.fit`.
+        As for :func:`comparo.lines.fit`.
     mc : int
         Monte Carlo draws for the measurement-error part (0: skip).
     seed : int
@@ -485,7 +489,7 @@ def sensitivity(
         Restrict a dataset to these accepted taxon names (used per group by
         :func:`sensitivity_by_group`).
     **fit_options
-        Further options of :func:`comparo.fit.fit` (e.g. ``tree`` for pgls).
+        Further options of :func:`comparo.lines.fit` (e.g. ``tree`` for pgls).
 
     Returns
     -------

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import importlib
+import importlib.util
 import subprocess
 import sys
 import types
@@ -17,7 +18,7 @@ def test_every_public_name_resolves():
 
 def test_function_names_survive_submodule_imports():
     """``comparo.fit(...)`` as DESIGN.md writes it, even after ``comparo.fit`` the module is imported."""
-    for name in ("fit", "derive", "sensitivity"):
+    for name in ("derive", "sensitivity"):
         module = importlib.import_module(f"comparo.{name}")
         assert isinstance(module, types.ModuleType)
         public = getattr(comparo, name)
@@ -28,9 +29,18 @@ def test_function_names_survive_submodule_imports():
 def test_fresh_interpreter_submodule_first():
     """In a new process, importing the submodule first still leaves the function on the package."""
     code = (
-        "import comparo.report, comparo.fit, comparo.derive, comparo.sensitivity\n"
+        "import comparo.report, comparo.lines, comparo.derive, comparo.sensitivity\n"
         "import comparo, types\n"
         "bad = [n for n in ('fit', 'derive', 'sensitivity') if isinstance(getattr(comparo, n), types.ModuleType)]\n"
         "assert not bad, bad\n"
     )
     subprocess.run([sys.executable, "-c", code], check=True)
+
+
+def test_fit_lives_in_the_lines_package():
+    """``comparo.fit`` is the function of :mod:`comparo.lines`; no module shares its name."""
+    import comparo.lines
+
+    assert comparo.fit is comparo.lines.fit
+    assert comparo.FitResult is comparo.lines.FitResult
+    assert importlib.util.find_spec("comparo.fit") is None

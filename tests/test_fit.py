@@ -1,4 +1,4 @@
-"""Behaviour of comparo.fit: the result object, input handling, simulations of CI coverage and test size."""
+"""Behaviour of comparo.lines (comparo.fit): the result object, input handling, simulations of CI coverage and test size."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from comparo.errors import UsageError
-from comparo.fit import FitResult, common_slope_model2, fit, model2_line, ols_line
+from comparo.lines import FitResult, common_slope_model2, fit, model2_line, ols_line
 
 CONTRACT_KEYS = {
     "method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2", "ci_level",
@@ -285,7 +285,7 @@ def test_elevation_test_size_when_groups_lie_apart_on_one_line():
     groups of 25 bivariate-normal points on one SMA line (error on both axes, sd ratio = slope), 2 units apart
     along it. The test
     allows for the error of the common slope, so it rejects in 2-8% at 5% (binomial sd 1.1 points)."""
-    from comparo.fit import group_fits
+    from comparo.lines import group_fits
 
     rng = np.random.default_rng(31)
     g = np.repeat(["A", "B"], 25)

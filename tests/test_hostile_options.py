@@ -34,7 +34,7 @@ def test_bad_option_is_exit_2_with_the_rule(tmp_path, case):
 def test_api_refuses_the_same_values():
     import comparo
     from comparo.errors import UsageError
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     tab = comparo.per_taxon(comparo.load(DEMO))
     for kw in ({"seed": -1}, {"test_slope": float("nan")}, {"bootstrap": 10}, {"bootstrap": 10**12}):

@@ -11,7 +11,7 @@ import pytest
 from support import DEMO, run_cli, write_dataset
 
 from comparo.dataset import load
-from comparo.fit import fit
+from comparo.lines import fit
 from comparo.sensitivity import (
     jackknife_se,
     lognormal_draws,
@@ -252,7 +252,7 @@ def test_mc_zero_uncertainty_reproduces_fit_robust_and_lts(method):
 
 def test_huber_slopes_match_statsmodels_rlm():
     """The vectorised IRLS gives the slope of statsmodels RLM (HuberT, MAD scale) on each data set."""
-    from comparo.fit import huber_line
+    from comparo.lines import huber_line
     from comparo.sensitivity import huber_slopes
 
     rng = np.random.default_rng(6)

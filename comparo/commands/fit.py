@@ -69,7 +69,7 @@ def _pgls_options(args) -> dict:
 
 
 def _fit(args, table, pgls: dict, progress: bool):
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     return fit(
         table, args.x, args.y, args.method, by=args.by, test_slope=args.test_slope, ci=args.ci, log=args.log,

