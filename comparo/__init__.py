@@ -27,7 +27,7 @@ _API = {
     "load_catalog": "comparo.catalog",
     "per_taxon": "comparo.curate",
     "audit": "comparo.provenance",
-    "derive": "comparo.derive",
+    "derive": "comparo.derivation",
     "fit": "comparo.lines",
     "FitResult": "comparo.lines",
     "sensitivity": "comparo.sensitivity",

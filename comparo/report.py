@@ -408,7 +408,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     derived = None
     steps.step("deriving time scales")
     try:
-        from comparo.derive import derive
+        from comparo.derivation import derive
 
         dset = {**settings.get("derive", {}), "ratios": settings.get("ratios", {}), "quantities": settings.get("quantities", {})}
         derived = derive(table, dset, seed=seed)
