@@ -504,7 +504,7 @@ def forest_plot(rows: Sequence[Mapping[str, Any]], *, slope: float, slope_ci: Se
     ----------
     rows : sequence of mapping
         ``{"source_id", "n", "slope", "slope_ci", "flips"}`` as in
-        :attr:`comparo.sensitivity.SensitivityResult.leave_one_source_out`, drawn top to
+        :attr:`comparo.reliance.SensitivityResult.leave_one_source_out`, drawn top to
         bottom in the given order (most influential first). A row with no slope (the
         refit could not run) is named but has no point.
     slope, slope_ci : the fit on all data: a vertical line and a shaded band.

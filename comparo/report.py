@@ -11,7 +11,7 @@ writes, under the output folder::
     tables/fits.json   each fit's ``to_dict()`` (the ``comparo fit --format json`` object)
     tables/sensitivity_*.csv, sensitivity.json
                        leave-one-source-out, basis filters, jackknife and measurement-error
-                       parts of each fit (:func:`comparo.sensitivity.sensitivity`)
+                       parts of each fit (:func:`comparo.reliance.sensitivity`)
     run.json           input SHA-256 hashes, settings, package versions, seed
 
 Every number in the HTML is read from the same result objects that are written
@@ -578,13 +578,13 @@ def _floats(values) -> list[float]:
 
 
 def _sensitivity(ds, table, data, a: dict, res, opts: dict, seed: int, draws: int, temperature: bool):
-    """Run :func:`comparo.sensitivity.sensitivity` for one report fit: (result or None, notes).
+    """Run :func:`comparo.reliance.sensitivity` for one report fit: (result or None, notes).
 
     Source-level parts need x and y recorded in the dataset; a derived x or y gets the
     jackknife and the Monte Carlo only (on the derived table). A grouped fit is checked on
     its pooled line; a PGLS fit keeps lambda at its full-data estimate in every refit.
     """
-    from comparo.sensitivity import sensitivity
+    from comparo.reliance import sensitivity
 
     x, y = a["x"], a["y"]
     notes: list[str] = []

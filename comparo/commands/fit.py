@@ -101,12 +101,12 @@ def run_sensitivity(args) -> int:
 
     Text output is the fit's summary followed by the sensitivity summary, JSON
     the fit object with ``"sensitivity"`` filled, CSV the table of
-    :meth:`comparo.sensitivity.SensitivityResult.to_frame`. With ``--by`` the
+    :meth:`comparo.reliance.SensitivityResult.to_frame`. With ``--by`` the
     sensitivity of the pooled fit is followed by that of each group (JSON:
     ``"sensitivity"`` also holds ``"by_group"``; CSV: a ``group`` column; see
     docs/sensitivity.md).
     """
-    from comparo.sensitivity import sensitivity, sensitivity_by_group, with_sensitivity
+    from comparo.reliance import sensitivity, sensitivity_by_group, with_sensitivity
 
     pgls = _pgls_options(args) if args.method == "pgls" else {}
     if Path(args.data).is_dir():

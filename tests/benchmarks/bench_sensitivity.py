@@ -9,7 +9,7 @@ frequencies digitized, standard uncertainties on every value.
 
 Timed:
 
-* ``comparo.sensitivity`` with SMA: every source left out, the basis steps, the
+* ``comparo.reliance`` with SMA: every source left out, the basis steps, the
   taxon jackknife and ``--mc`` Monte Carlo draws (the target: under 10 s for 500
   taxa, 50 sources, 1000 draws);
 * baseline: the naive route to the leave-one-source-out part alone, rebuilding the
@@ -83,7 +83,7 @@ def main(argv: list[str] | None = None) -> int:
     from comparo.curate import per_taxon
     from comparo.dataset import load
     from comparo.lines import fit
-    from comparo.sensitivity import sensitivity
+    from comparo.reliance import sensitivity
 
     x, y = "body_mass", "frequency_observed"
     with tempfile.TemporaryDirectory() as tmp:
