@@ -34,8 +34,8 @@ _API = {
     "FitResult": "comparo.lines",
     "sensitivity": "comparo.reliance",
     "build_report": "comparo.report",
-    "pgls_fit": "comparo.phylo",
-    "pic": "comparo.phylo",
+    "phylo_fit": "comparo.phylo",
+    "contrasts": "comparo.phylo",
     "tree_signal": "comparo.phylo",
     "read_tree": "comparo.phylo",
 }

@@ -27,7 +27,7 @@ from comparo.lines.core import slope_from_moments
 from comparo.lines.numbers import _json
 from comparo.lines.resampling import _jackknife_moments, _progress_bar
 from comparo.lines.result import FitResult
-from comparo.lines.scaling import fit
+from comparo.lines.scaling import fit, renamed_against
 
 BASIS_STEPS = ("reported", "computed", "digitized", "proxy", "assumed")
 #: A refit that moves the slope by at least this many analytic SEs counts as influential.
@@ -266,7 +266,7 @@ def _draw_slopes(method: str, X: np.ndarray, Y: np.ndarray, labels: list[str], r
     if method == "pgls":
         import pandas as pd
 
-        from comparo.phylo import pgls_fit, read_tree
+        from comparo.phylo import phylo_fit, read_tree
 
         opts = {k: v for k, v in fit_options.items() if k in ("tree", "tree_labels", "reml")}
         if isinstance(opts.get("tree"), str):
@@ -274,7 +274,7 @@ def _draw_slopes(method: str, X: np.ndarray, Y: np.ndarray, labels: list[str], r
         lam = result.lambda_ if result.lambda_ is not None else "ml"
         for k in np.flatnonzero(ok):
             t = pd.DataFrame({"taxon": labels, "x": X[k], "y": Y[k]})
-            out[k] = pgls_fit(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
+            out[k] = phylo_fit(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
         return out
     raise UsageError(f"measurement-error Monte Carlo: unknown method {method!r}")
 
@@ -400,7 +400,7 @@ def taxon_jackknife(result: FitResult, fit_kwargs: dict, table=None) -> dict:
         import pandas as pd
 
         b = np.empty(n)
-        kw = {k: v for k, v in fit_kwargs.items() if k not in ("log", "taxon_col", "test_slope")}
+        kw = {k: v for k, v in fit_kwargs.items() if k not in ("log", "taxon_col", "against")}
         for i in range(n):
             keep = np.arange(n) != i
             t = pd.DataFrame({"taxon": pts["label"][keep], "x": X[keep], "y": Y[keep]})
@@ -436,7 +436,7 @@ def _refit(ds, h, rows, changed, base_table, x, y, method, kwargs):
 
 
 def _p(r: FitResult | None) -> float | None:
-    return r.test_slope["p"] if r is not None and r.test_slope else None
+    return r.against["p"] if r is not None and r.against else None
 
 
 def _record(r: FitResult | None, base_slope: float, se: float) -> dict:
@@ -459,7 +459,7 @@ def sensitivity(
     y: str,
     method: str = "sma",
     *,
-    test_slope: float | None = None,
+    against: float | None = None,
     ci: float = 0.95,
     log: str = "10",
     mc: int = 1000,
@@ -477,7 +477,7 @@ def sensitivity(
     dataset_or_table : comparo.Dataset or pandas.DataFrame
         A loaded dataset (all parts) or a per-taxon table (no source-level parts:
         a plain table does not say which source each value came from).
-    x, y, method, test_slope, ci, log
+    x, y, method, against, ci, log
         As for :func:`comparo.lines.fit`.
     mc : int
         Monte Carlo draws for the measurement-error part (0: skip).
@@ -506,8 +506,9 @@ def sensitivity(
     """
     from comparo.dataset import Dataset
 
+    against = renamed_against(fit_options, against)
     alpha = 1 - ci
-    kw = dict(test_slope=test_slope, ci=ci, log=str(log), taxon_col=taxon_col, **fit_options)
+    kw = dict(against=against, ci=ci, log=str(log), taxon_col=taxon_col, **fit_options)
     unavailable = []
     ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
     if ds is not None:
@@ -572,14 +573,14 @@ def sensitivity(
     jack = taxon_jackknife(base, kw, table=table)
     me = measurement_error_mc(table, base, log=str(log), mc=mc, seed=seed, taxon_col=taxon_col, progress=progress,
                               fit_options=fit_options)
-    verdict = make_verdict(loso, by_basis, jack, me, test_slope=test_slope, unavailable=bool(unavailable))
-    test = {"value": test_slope, "p": p_full} if test_slope is not None else None
+    verdict = make_verdict(loso, by_basis, jack, me, against=against, unavailable=bool(unavailable))
+    test = {"value": against, "p": p_full} if against is not None else None
     return SensitivityResult(method=method, x=x, y=y, slope=base.slope, slope_se=se, ci_level=float(ci), test=test,
                              leave_one_source_out=loso, by_basis=by_basis, jackknife_se=jack, measurement_error=me,
                              verdict=verdict, unavailable=tuple(unavailable))
 
 
-def make_verdict(loso, by_basis, jack, me, *, test_slope=None, unavailable: bool = False) -> str:
+def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool = False) -> str:
     """One plain-language line built only from the sensitivity numbers.
 
     A source (or a basis step) counts as influential when it moves the slope by

@@ -102,6 +102,11 @@ class ReportResult:
 # --------------------------------------------------------------------------- helpers
 
 
+def _against(analysis: dict) -> float | None:
+    """The exponent an ``[[analysis]]`` entry tests against: ``against``, or its old name ``test_slope``."""
+    return analysis.get("against", analysis.get("test_slope"))
+
+
 def _num(v: Any, digits: int = 4) -> str:
     try:
         v = float(v)
@@ -444,7 +449,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
             if labels:
                 opts["tree_labels"] = labels
         try:
-            res = fit(data, a["x"], a["y"], method, by=by, test_slope=a.get("test_slope"), seed=seed, **opts)
+            res = fit(data, a["x"], a["y"], method, by=by, against=_against(a), seed=seed, **opts)
         except ComparoError as exc:
             rec["error"] = str(exc)
             fits.append(rec)
@@ -602,7 +607,7 @@ def _sensitivity(ds, table, data, a: dict, res, opts: dict, seed: int, draws: in
         notes.append(f"{derived} is derived, so the values behind it have no single source or basis: "
                      "only the jackknife and the Monte Carlo parts run (on the derived table)")
     try:
-        s = sensitivity(source, x, y, res.method, test_slope=a.get("test_slope"), ci=res.ci_level, log=res.log,
+        s = sensitivity(source, x, y, res.method, against=_against(a), ci=res.ci_level, log=res.log,
                         mc=draws, seed=seed, temperature=temperature, **kw)
     except Exception as exc:  # noqa: BLE001 - any failure is shown in the report and the command's notes
         return None, notes + [f"sensitivity could not run: {type(exc).__name__}: {exc}"]
@@ -688,8 +693,8 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
         test = f"equal slopes: p = {_num(cs.get('p'), 3)}" if cs else ""
         if r.get("lambda") is not None:
             test = f"lambda = {_num(r['lambda'], 3)}"
-        if r.get("test_slope"):
-            test += f"; slope = {r['test_slope']['value']:g}: p = {_num(r['test_slope']['p'], 3)}"
+        if r.get("against"):
+            test += f"; slope = {r['against']['value']:g}: p = {_num(r['against']['p'], 3)}"
         rows.append(f"<tr><td>{_e(f['id'])}</td><td>{_e(f['method'].upper())}</td>{_cell(r['n'])}{_cell(r['slope'])}"
                     f"{_cell(r['slope_ci'][0])}{_cell(r['slope_ci'][1])}<td>{_e(test)}</td></tr>")
     parts.append('<table class="sortable" id="summary-fits"><thead><tr><th>analysis</th><th>method</th><th>n</th>'

@@ -49,13 +49,13 @@ def _compilation(folder, *, biased: bool, seed: int = 7, n_taxa: int = 48, n_src
 @pytest.fixture(scope="module")
 def biased(tmp_path_factory):
     ds = _compilation(tmp_path_factory.mktemp("biased"), biased=True)
-    return sensitivity(ds, "body_mass", "frequency_observed", "ols", test_slope=TRUE_SLOPE, mc=200)
+    return sensitivity(ds, "body_mass", "frequency_observed", "ols", against=TRUE_SLOPE, mc=200)
 
 
 @pytest.fixture(scope="module")
 def clean(tmp_path_factory):
     ds = _compilation(tmp_path_factory.mktemp("clean"), biased=False)
-    return sensitivity(ds, "body_mass", "frequency_observed", "ols", test_slope=TRUE_SLOPE, mc=200)
+    return sensitivity(ds, "body_mass", "frequency_observed", "ols", against=TRUE_SLOPE, mc=200)
 
 
 def test_biased_source_ranked_first_and_flips_test(biased):

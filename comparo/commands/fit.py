@@ -72,13 +72,25 @@ def _fit(args, table, pgls: dict, progress: bool):
     from comparo.lines import fit
 
     return fit(
-        table, args.x, args.y, args.method, by=args.by, test_slope=args.test_slope, ci=args.ci, log=args.log,
+        table, args.x, args.y, args.method, by=args.by, against=args.against, ci=args.ci, log=args.log,
         bootstrap=args.bootstrap, seed=args.seed, taxon_col=args.taxon_col, breakpoint=args.breakpoint,
         progress=progress, drop_flagged=getattr(args, "drop_flagged", None), **pgls,
     )
 
 
+def _renamed_options(args) -> None:
+    """``--test-slope`` is the old name of ``--against``: a note on standard error, then the value is used."""
+    old = getattr(args, "test_slope_renamed", None)
+    if old is None:
+        return
+    print("comparo: note: --test-slope is renamed --against and will be removed; "
+          "the JSON key is now \"against\"", file=sys.stderr)
+    if args.against is None:
+        args.against = old
+
+
 def run(args) -> int:
+    _renamed_options(args)
     _phylo_only_options(args)
     if args.sensitivity:
         return run_sensitivity(args)
@@ -118,7 +130,7 @@ def run_sensitivity(args) -> int:
     if args.mc < 0:
         raise UsageError(f"--mc must be 0 or a positive number of draws (got {args.mc})")
     progress = sys.stderr.isatty()
-    opts = dict(test_slope=args.test_slope, ci=args.ci, log=args.log, mc=args.mc, seed=args.seed, progress=progress,
+    opts = dict(against=args.against, ci=args.ci, log=args.log, mc=args.mc, seed=args.seed, progress=progress,
                 temperature=not args.no_temperature, taxon_col=args.taxon_col, **pgls)
     sens = sensitivity(data, args.x, args.y, args.method, **opts)
     groups = sensitivity_by_group(data, args.x, args.y, args.method, by=args.by, **opts) if args.by else None

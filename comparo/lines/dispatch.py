@@ -12,13 +12,13 @@ from comparo.lines.model2 import model2_line
 from comparo.lines.robust import huber_line, lts_line
 
 
-def _core(method: str, X: np.ndarray, Y: np.ndarray, ci: float, test_slope: float | None, seed: int) -> _Core:
+def _core(method: str, X: np.ndarray, Y: np.ndarray, ci: float, against: float | None, seed: int) -> _Core:
     if method == "ols":
-        return ols_line(X, Y, ci, test_slope)
+        return ols_line(X, Y, ci, against)
     if method in ("sma", "ma"):
-        return model2_line(X, Y, method, ci, test_slope)
+        return model2_line(X, Y, method, ci, against)
     if method == "robust":
-        return huber_line(X, Y, ci, test_slope)
+        return huber_line(X, Y, ci, against)
     if method == "lts":
-        return lts_line(X, Y, ci, test_slope, seed)
+        return lts_line(X, Y, ci, against, seed)
     raise UsageError(f"unknown method {method!r}; choose one of {', '.join(METHODS)}")

@@ -138,7 +138,7 @@ def _group_tests_ols(X: np.ndarray, Y: np.ndarray, codes: np.ndarray, g: int, ci
     }
 
 
-def group_fits(X: np.ndarray, Y: np.ndarray, groups: np.ndarray, method: str, ci: float, test_slope: float | None, seed: int) -> tuple[list[dict], dict | None, list[str]]:
+def group_fits(X: np.ndarray, Y: np.ndarray, groups: np.ndarray, method: str, ci: float, against: float | None, seed: int) -> tuple[list[dict], dict | None, list[str]]:
     """Per-group fits and, for ols/sma/ma, the common-slope, elevation and shift tests."""
     names = list(dict.fromkeys(groups.tolist()))
     rows, usable, notes = [], [], []
@@ -146,12 +146,12 @@ def group_fits(X: np.ndarray, Y: np.ndarray, groups: np.ndarray, method: str, ci
         m = groups == name
         row: dict = {"group": name, "n": int(m.sum())}
         if m.sum() < 3 or np.ptp(X[m]) == 0:
-            row.update(slope=None, slope_ci=None, intercept=None, intercept_ci=None, r2=None, test_slope=None)
+            row.update(slope=None, slope_ci=None, intercept=None, intercept_ci=None, r2=None, against=None)
             notes.append(f"group {name!r} has fewer than 3 distinct x values: no per-group line, left out of group tests")
         else:
-            c = _core(method, X[m], Y[m], ci, test_slope, seed)
+            c = _core(method, X[m], Y[m], ci, against, seed)
             row.update(slope=c.slope, slope_ci=list(c.slope_ci), intercept=c.intercept, intercept_ci=list(c.intercept_ci),
-                       r2=c.r2, test_slope=c.test)
+                       r2=c.r2, against=c.test)
             usable.append(name)
         rows.append(row)
     tests = None

@@ -62,7 +62,7 @@ def model2_test(X: np.ndarray, Y: np.ndarray, b0: float, method: str) -> tuple[f
     return float(F), float(stats.f.sf(F, 1, n - 2))
 
 
-def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, test_slope: float | None = None) -> _Core:
+def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, against: float | None = None) -> _Core:
     """SMA or MA line with the exact (bivariate-normal) CIs of Warton et al. (2006).
 
     Notes
@@ -112,9 +112,9 @@ def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, tes
     s_rho2 = float(np.var(Y - b * X, ddof=1))
     half_a = stats.t.ppf(0.5 + ci / 2, n - 2) * math.sqrt(s_rho2 / n + xm * xm * var_b)
     test = None
-    if test_slope is not None:
-        F, p = model2_test(X, Y, test_slope, method)
-        test = {"value": float(test_slope), "statistic": F, "p": p}
+    if against is not None:
+        F, p = model2_test(X, Y, against, method)
+        test = {"value": float(against), "statistic": F, "test": "F(1, n-2)", "df": [1, n - 2], "p": p}
     note = "SMA slope is meaningless when x and y are uncorrelated; test r first" if method == "sma" and abs(r) < 0.3 else None
     if ci_note:
         note = f"{note}; {ci_note}" if note else ci_note

@@ -33,9 +33,11 @@ class FitResult:
         Squared correlation (ols, sma, ma), weighted R^2 (robust) or R^2 of
         the reweighted fit (lts).
     ci_level : float
-    test_slope : dict or None
-        ``{"value", "statistic", "p"}``: t (ols, lts), z (robust) or F(1, n-2)
-        (sma, ma) against slope = value.
+    against : dict or None
+        The test of slope = value (``against=``, ``--against``):
+        ``{"value", "statistic", "test", "df", "p"}`` where ``test`` names the
+        statistic: ``"t"`` (ols, lts, pgls; ``df`` an integer), ``"F(1, n-2)"``
+        (sma, ma; ``df`` the pair [1, n - 2]) or ``"z"`` (robust; ``df`` None).
     lambda_, lambda_ci, loglik : PGLS only.
     groups : list of dict or None
         Per-group fits when ``by`` is given.
@@ -52,7 +54,7 @@ class FitResult:
     sensitivity : dict or None
         Filled by the sensitivity analysis (not by :func:`fit`).
     phylo : dict or None
-        PGLS only: the further results of :func:`comparo.phylo.pgls_fit`
+        PGLS only: the further results of :func:`comparo.phylo.phylo_fit`
         (likelihood-ratio tests of lambda = 0 and 1, pruned tips, taxa without
         tips, sigma2, likelihood convention, measurement error).
     points : tuple of dict
@@ -71,7 +73,7 @@ class FitResult:
     intercept_ci: tuple[float, float]
     r2: float
     ci_level: float
-    test_slope: dict | None = None
+    against: dict | None = None
     lambda_: float | None = None
     lambda_ci: tuple[float, float] | None = None
     loglik: float | None = None
@@ -106,7 +108,7 @@ class FitResult:
             "intercept_ci": _pair(self.intercept_ci),
             "r2": _num(self.r2),
             "ci_level": float(self.ci_level),
-            "test_slope": _json(self.test_slope),
+            "against": _json(self.against),
             "lambda": _num(self.lambda_) if self.lambda_ is not None else None,
             "lambda_ci": _pair(self.lambda_ci) if self.lambda_ci is not None else None,
             "loglik": _num(self.loglik) if self.loglik is not None else None,
@@ -188,9 +190,8 @@ class FitResult:
         if self.lambda_ is not None:
             lam_ci = self.lambda_ci or (_NAN, _NAN)
             lines.append(f"  lambda     {_f(self.lambda_)}   CI {_f(lam_ci[0])} .. {_f(lam_ci[1])}   loglik {_f(self.loglik)}")
-        if self.test_slope:
-            t = self.test_slope
-            lines.append(f"  slope = {t['value']:g}?  statistic {_f(t['statistic'])}, p = {_p(t['p'])}")
+        if self.against:
+            lines.append(f"  {_against_text(self.against)}")
         if self.bootstrap:
             b = self.bootstrap
             lines.append(f"  bootstrap ({b['resamples']} resamples, seed {b['seed']}):")
@@ -203,16 +204,7 @@ class FitResult:
                 lo, hi = g.get("slope_ci") or (_NAN, _NAN)
                 lines.append(f"    {str(g['group']):<16} n {g['n']:>4}  slope {_f(g.get('slope'))}  CI {_f(lo)} .. {_f(hi)}")
         if self.group_tests:
-            gt = self.group_tests
-            cs = gt.get("common_slope")
-            if cs:
-                lo, hi = cs.get("slope_ci") or (_NAN, _NAN)
-                lines.append(f"  common slope {_f(cs.get('slope'))}  CI {_f(lo)} .. {_f(hi)}; "
-                             f"equal slopes? {cs['test']} {_f(cs['statistic'])}, df {cs['df']}, p = {_p(cs['p'])}")
-            for key, what in (("elevation", "equal elevation"), ("shift", "no shift along the common axis")):
-                t = gt.get(key)
-                if t:
-                    lines.append(f"  {what}? {t['test']} {_f(t['statistic'])}, df {t['df']}, p = {_p(t['p'])}")
+            lines += _group_comparison_lines(self.group_tests)
         if self.breakpoint:
             bp = self.breakpoint
             lines.append(
@@ -295,11 +287,41 @@ class FlaggedRefit:
             was = f" (was {_f(original.slope)}, change {_f(self.slope_change)})" if original is not None else ""
             lines.append(f"    n = {r.n}  slope {_f(r.slope)}   {pct} CI {_f(r.slope_ci[0])} .. {_f(r.slope_ci[1])}{was}")
             lines.append(f"    intercept {_f(r.intercept)}   {pct} CI {_f(r.intercept_ci[0])} .. {_f(r.intercept_ci[1])}   r2 {_f(r.r2)}")
-            if r.test_slope:
-                t = r.test_slope
-                lines.append(f"    slope = {t['value']:g}?  statistic {_f(t['statistic'])}, p = {_p(t['p'])}")
+            if r.against:
+                lines.append(f"    {_against_text(r.against)}")
             if r.outliers:
                 lines.append(f"    flags of the refit (not dropped): {', '.join(dict.fromkeys(o['label'] for o in r.outliers))}")
         if self.note:
             lines.append(f"    note: {self.note}")
         return "\n".join(lines)
+
+
+#: How the group comparisons read in printed summaries (the published test names are
+#: in docs/methods/fitting.md): key of ``group_tests`` -> question.
+GROUP_QUESTIONS = {
+    "common_slope": "one exponent for all groups?",
+    "elevation": "same height at the common exponent?",
+    "shift": "groups offset along the common line?",
+}
+
+
+def _against_text(t: dict) -> str:
+    """``slope = 1?  t = 2.31 (df 10), p = 0.04`` (the statistic named as the test is)."""
+    name = t.get("test") or "statistic"
+    df = t.get("df")
+    dft = "" if df is None or name.startswith("F(") else f" (df {df})"
+    return f"slope = {t['value']:g}?  {name} = {_f(t['statistic'])}{dft}, p = {_p(t['p'])}"
+
+
+def _group_comparison_lines(gt: dict) -> list[str]:
+    """The group comparisons in comparo's phrasing, one line each."""
+    lines = []
+    cs = gt.get("common_slope")
+    if cs:
+        lo, hi = cs.get("slope_ci") or (_NAN, _NAN)
+        lines.append(f"  common exponent {_f(cs.get('slope'))}  CI {_f(lo)} .. {_f(hi)}")
+    for key, question in GROUP_QUESTIONS.items():
+        t = gt.get(key)
+        if t:
+            lines.append(f"  {question} {t['test']} {_f(t['statistic'])}, df {t['df']}, p = {_p(t['p'])}")
+    return lines

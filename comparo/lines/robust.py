@@ -22,7 +22,7 @@ HUBER_C = 1.345
 LTS_CUT = 2.5
 
 
-def huber_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, test_slope: float | None = None, c: float = HUBER_C) -> _Core:
+def huber_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, against: float | None = None, c: float = HUBER_C) -> _Core:
     """Huber M-estimate (statsmodels RLM, MAD scale) with normal-theory CIs and weights.
 
     psi(u) = clip(u, -c, c); IRLS weights min(1, c/|u|). The test of slope = b0
@@ -40,9 +40,9 @@ def huber_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, test_slope: float
     fitted = a + b * X
     r2 = 1 - np.sum(w * (Y - fitted) ** 2) / np.sum(w * (Y - yw) ** 2)
     test = None
-    if test_slope is not None:
-        z = (b - test_slope) / res.bse[1]
-        test = {"value": float(test_slope), "statistic": float(z), "p": float(2 * stats.norm.sf(abs(z)))}
+    if against is not None:
+        z = (b - against) / res.bse[1]
+        test = {"value": float(against), "statistic": float(z), "test": "z", "df": None, "p": float(2 * stats.norm.sf(abs(z)))}
     return _Core(b, (float(lo[1]), float(hi[1])), a, (float(lo[0]), float(hi[0])), float(r2), test, fitted, weights=w)
 
 
@@ -127,7 +127,7 @@ def lts_fit(X: np.ndarray, Y: np.ndarray, h: int | None = None, *, max_starts: i
     return LTSLine(float(a[k]), float(b[k]), h, float(obj[k]), float(scale), subset)
 
 
-def lts_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, test_slope: float | None = None, seed: int = 20240601) -> _Core:
+def lts_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, against: float | None = None, seed: int = 20240601) -> _Core:
     """Reweighted LTS: raw LTS, then OLS on the points with |r/s| <= 2.5 (Rousseeuw & Leroy 1987).
 
     The reported line, CIs and test are those of the reweighted least-squares
@@ -138,7 +138,7 @@ def lts_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, test_slope: float |
     kept = np.abs(std) <= LTS_CUT
     if kept.sum() < 3 or np.ptp(X[kept]) == 0:
         kept = raw.subset
-    core = ols_line(X[kept], Y[kept], ci, test_slope)
+    core = ols_line(X[kept], Y[kept], ci, against)
     a, b = core.intercept, core.slope
     note = (f"LTS raw line (h = {raw.h}): intercept {raw.intercept:.5g}, slope {raw.slope:.5g}, scale {raw.scale:.4g}; "
             f"reweighted fit on {int(kept.sum())} of {len(X)} points")

@@ -25,6 +25,18 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
 
+def renamed_against(options: dict, against: float | None) -> float | None:
+    """Take the old keyword ``test_slope=`` out of *options* (renamed ``against=``), with a
+    deprecation warning; ``against`` wins when both are given."""
+    if "test_slope" not in options:
+        return against
+    import warnings
+
+    old = options.pop("test_slope")
+    warnings.warn("test_slope= is renamed against=; the old keyword will be removed", DeprecationWarning, stacklevel=3)
+    return old if against is None else against
+
+
 def fit(
     table: pd.DataFrame,
     x: str,
@@ -32,7 +44,7 @@ def fit(
     method: str = "sma",
     *,
     by: str | None = None,
-    test_slope: float | None = None,
+    against: float | None = None,
     ci: float = 0.95,
     log: str = "10",
     bootstrap: int = 0,
@@ -56,7 +68,7 @@ def fit(
     by : str, optional
         Grouping column: per-group fits and tests for a common slope, equal
         elevation and no shift along the common axis.
-    test_slope : float, optional
+    against : float, optional
         Hypothesised exponent to test against (e.g. 1 for isometry).
     ci : float
         Confidence level, in (0, 1).
@@ -80,7 +92,7 @@ def fit(
         rules and groups (:func:`comparo.flags.drop_rules`). Default: no refit,
         nothing is ever dropped.
     **pgls_options
-        Passed to :func:`comparo.phylo.pgls_fit` (tree, lambda, REML...).
+        Passed to :func:`comparo.phylo.phylo_fit` (tree, lambda, REML...).
 
     Returns
     -------
@@ -103,7 +115,7 @@ def fit(
     from comparo.bounds import check_finite, check_seed
 
     seed = check_seed(seed)
-    test_slope = check_finite(test_slope, "the slope to test against")
+    against = check_finite(renamed_against(pgls_options, against), "the slope to test against")
     if method not in METHODS:
         raise UsageError(f"unknown method {method!r}; choose one of {', '.join(METHODS)}")
     log = str(log)
@@ -114,13 +126,13 @@ def fit(
     if bootstrap < 0:
         raise UsageError(f"--bootstrap must be 0 or a positive number of resamples (got {bootstrap})")
     if method == "pgls":
-        from comparo.phylo import pgls_fit
+        from comparo.phylo import phylo_fit
 
         if bootstrap or breakpoint:
             raise UsageError("--bootstrap and --breakpoint are not available for method pgls")
         if by is not None:
             pgls_options["by"] = by
-        d = pgls_fit(table=table, x=x, y=y, log=log, ci=ci, test_slope=test_slope, taxon_col=taxon_col, **pgls_options)
+        d = phylo_fit(table=table, x=x, y=y, log=log, ci=ci, against=against, taxon_col=taxon_col, **pgls_options)
         res = FitResult.from_dict(d)
         if drop_flagged:
             from dataclasses import replace
@@ -152,13 +164,13 @@ def fit(
     if method == "lts" and n < 5:
         raise UsageError(f"lts needs at least 5 usable points; {n} remain")
 
-    core = _core(method, X, Y, ci, test_slope, seed)
+    core = _core(method, X, Y, ci, against, seed)
     notes = [core.note] if core.note else []
     flags = flag_points(X, Y, labels, weights=core.weights if method == "robust" else None,
                         lts_std=core.lts_std if method == "lts" else None)
     group_rows = group_tests = None
     if by:
-        group_rows, group_tests, gnotes = group_fits(X, Y, groups, method, ci, test_slope, seed)
+        group_rows, group_tests, gnotes = group_fits(X, Y, groups, method, ci, against, seed)
         notes += gnotes
     bp = None
     if breakpoint:
@@ -186,11 +198,11 @@ def fit(
     if drop_flagged:
         refit = _refit_without_flagged(
             table, flags.flags, rules, rows_used, core.slope,
-            dict(x=x, y=y, method=method, by=by, test_slope=test_slope, ci=ci, log=log, bootstrap=bootstrap, seed=seed,
+            dict(x=x, y=y, method=method, by=by, against=against, ci=ci, log=log, bootstrap=bootstrap, seed=seed,
                  taxon_col=taxon_col, breakpoint=breakpoint, progress=progress))
     return FitResult(
         method=method, x=x, y=y, log=log, n=n, slope=core.slope, slope_ci=core.slope_ci, intercept=core.intercept,
-        intercept_ci=core.intercept_ci, r2=core.r2, ci_level=float(ci), test_slope=core.test,
+        intercept_ci=core.intercept_ci, r2=core.r2, ci_level=float(ci), against=core.test,
         groups=group_rows, group_tests=group_tests, outliers=[f.to_dict() for f in flags.flags], excluded=excluded,
         breakpoint=bp, bootstrap=boot, points=tuple(points), notes=tuple(notes), refit_without_flagged=refit,
     )

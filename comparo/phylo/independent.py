@@ -122,7 +122,7 @@ def _pearson(a: np.ndarray, b: np.ndarray) -> tuple[float, float]:
     return float(r.statistic), float(r.pvalue)
 
 
-def pic(tree: Any, values: Mapping[str, float]) -> Contrasts:
+def contrasts(tree: Any, values: Mapping[str, float]) -> Contrasts:
     """Phylogenetically independent contrasts (Felsenstein 1985, Am Nat 125:1-15).
 
     Parameters

@@ -49,7 +49,7 @@ def _se_on_scale(u: np.ndarray, v: np.ndarray, log: str) -> np.ndarray:
     return u
 
 
-def pgls_fit(
+def phylo_fit(
     table: pd.DataFrame,
     x: str,
     y: str,
@@ -57,7 +57,7 @@ def pgls_fit(
     tree: Any,
     log: str = "10",
     ci: float = 0.95,
-    test_slope: float | None = None,
+    against: float | None = None,
     taxon_col: str = "taxon",
     lambda_: str | float = "ml",
     reml: bool = False,
@@ -83,7 +83,7 @@ def pgls_fit(
         Transform of both axes; the intercept is on that scale (lg a for "10").
     ci : float
         Confidence level of every interval.
-    test_slope : float, optional
+    against : float, optional
         H0 slope value: t = (b - b0)/se(b), two-sided p from t(n - p).
     taxon_col : str
         Label column matched to tips (:func:`match_tips`).
@@ -233,9 +233,9 @@ def pgls_fit(
     se_b = np.sqrt(np.diag(g.cov))
     b0, b1 = float(g.beta[0]), float(g.beta[1])
     ts = None
-    if test_slope is not None:
-        stat = (b1 - float(test_slope)) / se_b[1]
-        ts = {"value": float(test_slope), "statistic": _f(stat), "p": _f(2.0 * tdist.sf(abs(stat), df))}
+    if against is not None:
+        stat = (b1 - float(against)) / se_b[1]
+        ts = {"value": float(against), "statistic": _f(stat), "test": "t", "df": int(df), "p": _f(2.0 * tdist.sf(abs(stat), df))}
     r2 = 1.0 - g.rss / g.rss_null if g.rss_null > 0 else math.nan
 
     groups = None
@@ -262,7 +262,7 @@ def pgls_fit(
         "intercept_ci": [_f(b0 - tq * se_b[0]), _f(b0 + tq * se_b[0])],
         "r2": _f(r2),
         "ci_level": float(ci),
-        "test_slope": ts,
+        "against": ts,
         "lambda": _f(lf.lam),
         "lambda_ci": None if lf.ci is None else [_f(lf.ci[0]), _f(lf.ci[1])],
         "loglik": _f(lf.loglik),
