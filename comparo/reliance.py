@@ -16,6 +16,7 @@ Fuller, W. A. (1987) Measurement Error Models. Wiley.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 from dataclasses import dataclass
 from typing import Any
@@ -23,8 +24,8 @@ from typing import Any
 import numpy as np
 
 from comparo.errors import UsageError
+from comparo.jsonsafe import json_safe as _json
 from comparo.lines.core import slope_from_moments
-from comparo.lines.numbers import _json
 from comparo.lines.resampling import _jackknife_moments, _progress_bar
 from comparo.lines.result import FitResult
 from comparo.lines.scaling import fit, renamed_against
@@ -104,6 +105,20 @@ class SensitivityResult:
             rows.append({"part": "by_basis", "changed": "+".join(r["bases"]), "n": r["n"], "slope": r["slope"],
                          "ci_low": r["slope_ci"][0], "ci_high": r["slope_ci"][1], "p": r["p"], "shift_se": r["shift_se"]})
         return pd.DataFrame(rows, columns=["part", "changed", "n", "slope", "ci_low", "ci_high", "p", "shift_se"])
+
+    def _repr_html_(self) -> str:
+        """Compact table for notebooks: the refits of :meth:`to_frame`, the jackknife and
+        measurement-error standard errors, and the verdict."""
+        from comparo.display import frame_html
+
+        j, m = self.jackknife_se, self.measurement_error
+        notes = [f"jackknife SE {_fmt(j.get('slope_jackknife'))}; analytic SE {_fmt(j.get('slope_analytic'))}"]
+        if m.get("spread") is not None:
+            notes.append(f"measurement error ({m['draws']} draws): spread {_fmt(m['spread'])}, total SE {_fmt(m['total_se'])}")
+        notes += [f"not available: {u}" for u in self.unavailable]
+        notes.append(f"verdict: {self.verdict}")
+        title = f"sensitivity of the {self.method.upper()} slope {_fmt(self.slope)} (SE {_fmt(self.slope_se)})"
+        return frame_html(title, self.to_frame(), notes)
 
     def summary(self, top: int = 5) -> str:
         """Plain-text account for people."""
@@ -533,43 +548,9 @@ def sensitivity(
         cols = [taxon_col] + [c for c in table.columns if c.startswith((f"{x}", f"{y}")) and c != taxon_col]
         xy_table = table[[c for c in dict.fromkeys(["taxon", *cols]) if c in table.columns]]
         used = rows[rows["status"] == "used"]
-        sources = sorted(used["source_id"].astype(str).unique())
-        loso = []
-        with _progress_bar(progress, len(sources)) as bar:
-            task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
-            for sid in sources:
-                r = rows.copy()
-                changed = (r["source_id"].astype(str) == sid).to_numpy()
-                r.loc[changed, "status"] = "excluded"
-                res = _refit(ds, h, r, changed, xy_table, x, y, method, kw)
-                rec = {"source_id": sid, **_record(res, base.slope, se)}
-                rec["flips"] = _flips(p_full, rec["p"], alpha)
-                loso.append(rec)
-                if bar is not None:
-                    bar.update(task, advance=1)
-        loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None and math.isfinite(d["shift_se"]) else 0.0)
-        by_basis = []
-        prev = None
-        present = set(used["basis_effective"])
-        for k in range(len(BASIS_STEPS)):
-            bases = BASIS_STEPS[: k + 1]
-            if k > 0 and BASIS_STEPS[k] not in present:
-                continue
-            r = rows.copy()
-            changed = (~r["basis_effective"].isin(bases)).to_numpy()
-            r.loc[changed, "status"] = "excluded"
-            res = base if set(present) <= set(bases) else _refit(ds, h, r, changed, xy_table, x, y, method, kw)
-            ref_se = analytic_se(prev) if prev is not None else float("nan")
-            rec = {"bases": list(bases), **_record(res, prev.slope if prev is not None else float("nan"), ref_se)}
-            if prev is None:
-                rec["shift_se"] = None
-            width = (res.slope_ci[1] - res.slope_ci[0]) if res is not None else float("nan")
-            pw = (prev.slope_ci[1] - prev.slope_ci[0]) if prev is not None else float("nan")
-            rec["ci_change"] = width / pw - 1 if prev is not None and pw > 0 else None
-            rec["flips"] = _flips(_p(prev), rec["p"], alpha) if prev is not None else False
-            by_basis.append(rec)
-            if res is not None:
-                prev = res
+        refit = functools.partial(_refit, ds, h, base_table=xy_table, x=x, y=y, method=method, kwargs=kw)
+        loso = _leave_one_source_out(rows, used, refit, base, se, p_full, alpha, progress)
+        by_basis = _basis_steps(rows, used, refit, base, alpha)
     jack = taxon_jackknife(base, kw, table=table)
     me = measurement_error_mc(table, base, log=str(log), mc=mc, seed=seed, taxon_col=taxon_col, progress=progress,
                               fit_options=fit_options)
@@ -578,6 +559,53 @@ def sensitivity(
     return SensitivityResult(method=method, x=x, y=y, slope=base.slope, slope_se=se, ci_level=float(ci), test=test,
                              leave_one_source_out=loso, by_basis=by_basis, jackknife_se=jack, measurement_error=me,
                              verdict=verdict, unavailable=tuple(unavailable))
+
+
+def _leave_one_source_out(rows, used, refit, base: FitResult, se: float, p_full, alpha: float, progress: bool) -> list[dict]:
+    """Refit without each source in turn; most influential (largest |shift_se|) first."""
+    sources = sorted(used["source_id"].astype(str).unique())
+    loso = []
+    with _progress_bar(progress, len(sources)) as bar:
+        task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
+        for sid in sources:
+            r = rows.copy()
+            changed = (r["source_id"].astype(str) == sid).to_numpy()
+            r.loc[changed, "status"] = "excluded"
+            res = refit(rows=r, changed=changed)
+            rec = {"source_id": sid, **_record(res, base.slope, se)}
+            rec["flips"] = _flips(p_full, rec["p"], alpha)
+            loso.append(rec)
+            if bar is not None:
+                bar.update(task, advance=1)
+    loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None and math.isfinite(d["shift_se"]) else 0.0)
+    return loso
+
+
+def _basis_steps(rows, used, refit, base: FitResult, alpha: float) -> list[dict]:
+    """Refit on the reported values only, then adding one weaker basis at a time."""
+    by_basis = []
+    prev = None
+    present = set(used["basis_effective"])
+    for k in range(len(BASIS_STEPS)):
+        bases = BASIS_STEPS[: k + 1]
+        if k > 0 and BASIS_STEPS[k] not in present:
+            continue
+        r = rows.copy()
+        changed = (~r["basis_effective"].isin(bases)).to_numpy()
+        r.loc[changed, "status"] = "excluded"
+        res = base if set(present) <= set(bases) else refit(rows=r, changed=changed)
+        ref_se = analytic_se(prev) if prev is not None else float("nan")
+        rec = {"bases": list(bases), **_record(res, prev.slope if prev is not None else float("nan"), ref_se)}
+        if prev is None:
+            rec["shift_se"] = None
+        width = (res.slope_ci[1] - res.slope_ci[0]) if res is not None else float("nan")
+        pw = (prev.slope_ci[1] - prev.slope_ci[0]) if prev is not None else float("nan")
+        rec["ci_change"] = width / pw - 1 if prev is not None and pw > 0 else None
+        rec["flips"] = _flips(_p(prev), rec["p"], alpha) if prev is not None else False
+        by_basis.append(rec)
+        if res is not None:
+            prev = res
+    return by_basis
 
 
 def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool = False) -> str:

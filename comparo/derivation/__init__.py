@@ -35,11 +35,7 @@ from comparo.derivation.lattice import (
     unit_cell_area,
 )
 from comparo.derivation.lineage import BASIS_ORDER
-from comparo.derivation.permeability_models import (
-    J01_SQUARED,
-    PERMEABILITY_MODELS,
-    permeability,
-)
+from comparo.derivation.permeability_models import J01_SQUARED, PERMEABILITY_MODELS, permeability
 from comparo.derivation.timescales import (
     constrained_modulus,
     frequency_bound,

@@ -5,14 +5,11 @@ model, propagation, reasons for missing values, routes and the assembled columns
 from __future__ import annotations
 
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.errors import InputError, Problem
-
-if TYPE_CHECKING:  # pragma: no cover
-    import pandas as pd
 from comparo.derivation.lattice import effective_radius, filament_spacing, filament_volume_fraction
 from comparo.derivation.lineage import (
     _column,
@@ -35,6 +32,10 @@ from comparo.derivation.timescales import (
 )
 from comparo.derivation.uncertainty import _propagate
 from comparo.derivation.water import WATER_RANGE_C, water_viscosity_at
+from comparo.errors import InputError, Problem
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
 
 _TABLE_LEAVES = {  # leaf -> (quantity key, SI unit); "length" is set from the settings
     "lattice_spacing_d10": "m",
@@ -107,30 +108,55 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     """
     from comparo.catalog import load_catalog, read_schema
     from comparo.errors import UsageError
-    from comparo.units import conversion_factor
 
     if not isinstance(mc, int | np.integer) or mc < 0:
         raise UsageError("the number of Monte Carlo draws must be 0 or a positive integer")
     s, ratio_settings, user_quantities = _settings(settings)
     catalog = load_catalog(user_quantities)
     keys = read_schema("derived.toml")["keys"]
-    n = len(table)
     rng = np.random.default_rng(seed)
     ignore_unknown = s["unknown_uncertainty"] == "ignore"
-
     length_key = s["length"]
     if length_key not in catalog or catalog.target(length_key).kind != "length":
         raise InputError([Problem("error", "comparo.toml", None, "derive.length", str(length_key), "derive-setting",
                                   f"length {length_key!r} is not a length quantity of the catalogue",
                                   "use a key such as 'fiber_radius'")])
-
-    # ---- leaves in SI units, relative uncertainty, basis, obs, why missing
-    leaves: dict[str, np.ndarray] = {}
-    rel_u: dict[str, np.ndarray] = {}
-    basis: dict[str, list[str]] = {}
-    obs: dict[str, list[str]] = {}
-    absent: dict[str, np.ndarray] = {}
     names = {leaf: leaf for leaf in _TABLE_LEAVES} | {"length": length_key}
+    lv = _table_leaves(table, catalog, names)
+    thin_per_thick, temperature, t_reason = _assumed_leaves(table, s, lv)
+    compute, mirrors = _physics(s)
+    prop = _propagate(compute, lv.values, lv.rel_u, ignore_unknown, mc, rng, list(_SI), mirrors)
+    reasons = _missing_reasons(s, prop.values, lv.absent, t_reason)
+    methods = _routes(s, lv.values, prop.values, thin_per_thick, temperature, length_key)
+    new, units = _assemble(keys, prop, lv, names, reasons, methods, mc)
+    out = table.drop(columns=[c for c in new if c in table.columns])
+    out = pd_concat(out, new)
+    if ratio_settings:
+        ratio_cols, ratio_units = _ratios(out, ratio_settings, catalog, keys, mc, rng, ignore_unknown)
+        out = pd_concat(out, ratio_cols)
+        units.update(ratio_units)
+    out.attrs = {**table.attrs, "units": {**table.attrs.get("units", {}), **units}}
+    return out
+
+
+@dataclass
+class _Leaves:
+    """Inputs of the derivation per leaf (SI units): values, relative standard uncertainty,
+    basis, obs_ids and why a table value is absent."""
+
+    values: dict[str, np.ndarray] = field(default_factory=dict)
+    rel_u: dict[str, np.ndarray] = field(default_factory=dict)
+    basis: dict[str, list[str]] = field(default_factory=dict)
+    obs: dict[str, list[str]] = field(default_factory=dict)
+    absent: dict[str, np.ndarray] = field(default_factory=dict)
+
+
+def _table_leaves(table: pd.DataFrame, catalog, names: dict[str, str]) -> _Leaves:
+    """The leaves read from the table, in SI units (non-positive values set to NaN with a reason)."""
+    from comparo.units import conversion_factor
+
+    lv = _Leaves()
+    leaves, rel_u, basis, obs, absent = lv.values, lv.rel_u, lv.basis, lv.obs, lv.absent
     for leaf, si in {**_TABLE_LEAVES, "length": "m"}.items():
         key = names[leaf]
         f = conversion_factor(catalog[key].unit, si)
@@ -145,6 +171,16 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
         basis[leaf] = _text_column(table, f"{key}_basis")
         obs[leaf] = _text_column(table, f"{key}_obs")
 
+    return lv
+
+
+def _assumed_leaves(table: pd.DataFrame, s: dict[str, Any], lv: _Leaves) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The assumed leaves (filament radii, thin per thick, viscosity of the cytosol and of water);
+    returns thin per thick, the temperature (°C) and why the water viscosity is missing."""
+    from comparo.units import conversion_factor
+
+    n = len(table)
+    leaves, rel_u, basis, obs = lv.values, lv.rel_u, lv.basis, lv.obs
     tpt = s["thin_per_thick"]
     if isinstance(tpt, str):
         if tpt not in table.columns:
@@ -177,8 +213,13 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
                         np.where(np.isnan(leaves["water_viscosity"]),
                                  f"temperature_c outside {lo:g}-{hi:g} C (liquid water at 0.1 MPa)", "")).astype(object)
 
+    return thin_per_thick, temperature, t_reason
+
+
+def _physics(s: dict[str, Any]):
+    """The physical model as a function of the leaves (all taxa at once, SI units), and the
+    outputs that mirror another (a frequency bound from its time scale)."""
     model = s["permeability_model"]
-    spec = PERMEABILITY_MODELS[model]
     fallback = s["modulus_fallback"]
     nu = float(s["poisson_ratio"])
     rule = s["frequency_bound"]
@@ -222,10 +263,15 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
 
     mirrors = {"frequency_kinetic_bound": ("kinetic_time", lambda t: frequency_bound(t, rule)),
                "frequency_hydraulic_bound": ("poroelastic_time", lambda t: frequency_bound(t, rule, mode))}
-    prop = _propagate(compute, leaves, rel_u, ignore_unknown, mc, rng, list(_SI), mirrors)
-    vals = prop.values
+    return compute, mirrors
 
-    # ---- why values are missing
+
+def _missing_reasons(s: dict[str, Any], vals: dict[str, np.ndarray], absent: dict[str, np.ndarray],
+                     t_reason: np.ndarray) -> dict[str, np.ndarray]:
+    """Per output key, why a value is missing (empty where it is not)."""
+    model = s["permeability_model"]
+    spec = PERMEABILITY_MODELS[model]
+    fallback = s["modulus_fallback"]
     phi_out = np.array([
         f"filament_volume_fraction {_fmt(p)} outside ({spec.phi_min:g}, {spec.phi_max:.4g}] of {model}"
         if np.isfinite(p) and not (spec.phi_min < p <= spec.phi_max) else "" for p in vals["filament_volume_fraction"]],
@@ -252,7 +298,17 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
         "regime": _join(r_tx, r_tp),
     }
 
-    # ---- routes
+    return reasons
+
+
+def _routes(s: dict[str, Any], leaves: dict[str, np.ndarray], vals: dict[str, np.ndarray], thin_per_thick: np.ndarray,
+            temperature: np.ndarray, length_key: str) -> dict[str, Any]:
+    """Per output key, the route by which it was computed (the ``_method`` column)."""
+    model = s["permeability_model"]
+    fallback = s["modulus_fallback"]
+    nu = float(s["poisson_ratio"])
+    rule = s["frequency_bound"]
+    mode = float(s["hydraulic_mode_factor"])
     k_route = np.where(~np.isnan(leaves["permeability"]), "k = permeability", f"k = permeability_est ({model})")
     m_fb_text = {"elastic_modulus": "M = elastic_modulus", "constrained": f"M = constrained from elastic_modulus (nu {nu:g})",
                  "none": ""}[fallback]
@@ -280,7 +336,17 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
         "regime": "the smaller frequency bound limits",
     }
 
-    # ---- assemble
+    return methods
+
+
+def _assemble(keys: dict, prop, lv: _Leaves, names: dict[str, str], reasons: dict, methods: dict,
+              mc: int) -> tuple[dict[str, Any], dict[str, str]]:
+    """The new columns (values and uncertainty in the units of derived.toml, lineage, Monte
+    Carlo summaries, the regime) and the unit of each added key."""
+    from comparo.units import conversion_factor
+
+    leaves, rel_u, basis, obs = lv.values, lv.rel_u, lv.basis, lv.obs
+    vals = prop.values
     display = {leaf: names.get(leaf, leaf) for leaf in leaves}
     new: dict[str, Any] = {}
     units: dict[str, str] = {}
@@ -310,11 +376,4 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     new.update({c.replace("_regime_score", "regime"): v for c, v in reg.items()})
     units["regime"] = "dimensionless"
 
-    out = table.drop(columns=[c for c in new if c in table.columns])
-    out = pd_concat(out, new)
-    if ratio_settings:
-        ratio_cols, ratio_units = _ratios(out, ratio_settings, catalog, keys, mc, rng, ignore_unknown)
-        out = pd_concat(out, ratio_cols)
-        units.update(ratio_units)
-    out.attrs = {**table.attrs, "units": {**table.attrs.get("units", {}), **units}}
-    return out
+    return new, units

@@ -10,9 +10,10 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from comparo.derivation.uncertainty import _MC_SUFFIXES, _Propagation
+
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
-from comparo.derivation.uncertainty import _MC_SUFFIXES, _Propagation
 
 #: Bases from strongest to weakest (the weakest one among a value's inputs is its basis).
 BASIS_ORDER = ("reported", "computed", "digitized", "proxy", "assumed")

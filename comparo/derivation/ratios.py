@@ -10,13 +10,13 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from comparo.derivation.expressions import Ratio, parse_ratio
+from comparo.derivation.lineage import _column, _join, _lineage_columns, _mc_columns, _text_column
+from comparo.derivation.uncertainty import _propagate
 from comparo.errors import InputError, Problem
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
-from comparo.derivation.expressions import Ratio, parse_ratio
-from comparo.derivation.lineage import _column, _join, _lineage_columns, _mc_columns, _text_column
-from comparo.derivation.uncertainty import _propagate
 
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 

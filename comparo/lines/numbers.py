@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-import numpy as np
+from comparo.jsonsafe import finite_or_none as _num
 
 _NAN = float("nan")
 
@@ -15,29 +15,10 @@ def _nan(v: Any) -> float:
     return _NAN if v is None else float(v)
 
 
-def _num(v: Any) -> float | None:
-    if v is None:
-        return None
-    v = float(v)
-    return v if math.isfinite(v) else None
-
-
 def _pair(p: Any) -> list | None:
     if p is None:
         return None
     return [_num(p[0]), _num(p[1])]
-
-
-def _json(obj: Any) -> Any:
-    if isinstance(obj, dict):
-        return {str(k): _json(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_json(v) for v in obj]
-    if isinstance(obj, np.generic):
-        obj = obj.item()
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    return obj
 
 
 def _f(v: Any) -> str:

@@ -6,7 +6,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
-from comparo.lines.numbers import _NAN, _f, _json, _nan, _num, _p, _pair
+from comparo.jsonsafe import json_safe as _json
+from comparo.lines.numbers import _NAN, _f, _nan, _num, _p, _pair
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd

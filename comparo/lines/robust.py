@@ -1,11 +1,5 @@
-"""Lines that resist outliers: Huber M-estimation and (reweighted) least trimmed squares.
-
-Huber, P. J. (1964). Robust estimation of a location parameter. Annals of
-    Mathematical Statistics 35, 73-101.
-Rousseeuw, P. J. (1984). Least median of squares regression. Journal of the
-    American Statistical Association 79, 871-880.
-Rousseeuw, P. J. & Van Driessen, K. (2006). Computing LTS regression for large
-    data sets. Data Mining and Knowledge Discovery 12, 29-45.
+"""Lines that resist outliers: Huber M-estimation (Huber 1964) and (reweighted) least trimmed
+squares (Rousseeuw 1984; Rousseeuw & Van Driessen 2006); full references in :mod:`comparo.lines`.
 """
 
 from __future__ import annotations

@@ -12,12 +12,8 @@ from comparo.errors import UsageError
 from comparo.lines.broken import segmented_line
 from comparo.lines.core import LOGS, METHODS
 from comparo.lines.dispatch import _core
-from comparo.lines.groups import (
-    group_fits,
-)
-from comparo.lines.resampling import (
-    bootstrap_line,
-)
+from comparo.lines.groups import group_fits
+from comparo.lines.resampling import bootstrap_line
 from comparo.lines.result import FitResult, FlaggedRefit
 from comparo.lines.table import _inverse, _prepare
 
@@ -116,6 +112,48 @@ def fit(
 
     seed = check_seed(seed)
     against = check_finite(renamed_against(pgls_options, against), "the slope to test against")
+    log = _check_options(method, log, ci, bootstrap)
+    if method == "pgls":
+        return _pgls(table, x, y, log, ci, against, taxon_col, by, bootstrap, breakpoint, drop_flagged, pgls_options)
+    if pgls_options:
+        raise UsageError(f"options {', '.join(sorted(pgls_options))} apply only to method pgls")
+
+    from comparo.bounds import check_bootstrap
+    from comparo.flags import drop_rules, flag_points
+
+    rules = drop_rules(drop_flagged)
+    X, Y, labels, groups, excluded, rows_used = _prepare(table, x, y, log, taxon_col, by)
+    bootstrap = check_bootstrap(bootstrap, len(X), method)
+    _check_points(method, X, Y, x, y, excluded)
+    core = _core(method, X, Y, ci, against, seed)
+    notes = [core.note] if core.note else []
+    flags = flag_points(X, Y, labels, weights=core.weights if method == "robust" else None,
+                        lts_std=core.lts_std if method == "lts" else None)
+    group_rows = group_tests = None
+    if by:
+        group_rows, group_tests, gnotes = group_fits(X, Y, groups, method, ci, against, seed)
+        notes += gnotes
+    bp = _breakpoint(X, Y, ci, log) if breakpoint else None
+    boot = None
+    if bootstrap:
+        boot = bootstrap_line(method, X, Y, bootstrap, ci=ci, seed=seed, progress=progress and bootstrap * len(X) >= 200_000)
+    refit = None
+    if drop_flagged:
+        refit = _refit_without_flagged(
+            table, flags.flags, rules, rows_used, core.slope,
+            dict(x=x, y=y, method=method, by=by, against=against, ci=ci, log=log, bootstrap=bootstrap, seed=seed,
+                 taxon_col=taxon_col, breakpoint=breakpoint, progress=progress))
+    return FitResult(
+        method=method, x=x, y=y, log=log, n=len(X), slope=core.slope, slope_ci=core.slope_ci, intercept=core.intercept,
+        intercept_ci=core.intercept_ci, r2=core.r2, ci_level=float(ci), against=core.test,
+        groups=group_rows, group_tests=group_tests, outliers=[f.to_dict() for f in flags.flags], excluded=excluded,
+        breakpoint=bp, bootstrap=boot, points=_points(X, Y, labels, groups if by else None, core),
+        notes=tuple(notes), refit_without_flagged=refit,
+    )
+
+
+def _check_options(method: str, log: Any, ci: float, bootstrap: int) -> str:
+    """Method, log base, confidence level and resample count; returns the log base as text."""
     if method not in METHODS:
         raise UsageError(f"unknown method {method!r}; choose one of {', '.join(METHODS)}")
     log = str(log)
@@ -125,35 +163,33 @@ def fit(
         raise UsageError(f"--ci must lie strictly between 0 and 1 (got {ci})")
     if bootstrap < 0:
         raise UsageError(f"--bootstrap must be 0 or a positive number of resamples (got {bootstrap})")
-    if method == "pgls":
-        from comparo.phylo import phylo_fit
+    return log
 
-        if bootstrap or breakpoint:
-            raise UsageError("--bootstrap and --breakpoint are not available for method pgls")
-        if by is not None:
-            pgls_options["by"] = by
-        d = phylo_fit(table=table, x=x, y=y, log=log, ci=ci, against=against, taxon_col=taxon_col, **pgls_options)
-        res = FitResult.from_dict(d)
-        if drop_flagged:
-            from dataclasses import replace
 
-            from comparo.flags import drop_rules
+def _pgls(table, x, y, log, ci, against, taxon_col, by, bootstrap, breakpoint, drop_flagged, options) -> FitResult:
+    """The PGLS fit, computed by :func:`comparo.phylo.phylo_fit`, as a :class:`FitResult`."""
+    from comparo.phylo import phylo_fit
 
-            res = replace(res, refit_without_flagged=FlaggedRefit(
-                drop_rules(drop_flagged), (), None,
-                note="pgls fits carry no outlier or influence flags here; nothing was dropped and no refit was made"))
-        return res
-    if pgls_options:
-        raise UsageError(f"options {', '.join(sorted(pgls_options))} apply only to method pgls")
+    if bootstrap or breakpoint:
+        raise UsageError("--bootstrap and --breakpoint are not available for method pgls")
+    if by is not None:
+        options["by"] = by
+    d = phylo_fit(table=table, x=x, y=y, log=log, ci=ci, against=against, taxon_col=taxon_col, **options)
+    res = FitResult.from_dict(d)
+    if drop_flagged:
+        from dataclasses import replace
 
-    from comparo.flags import drop_rules, flag_points
+        from comparo.flags import drop_rules
 
-    rules = drop_rules(drop_flagged)
-    X, Y, labels, groups, excluded, rows_used = _prepare(table, x, y, log, taxon_col, by)
+        res = replace(res, refit_without_flagged=FlaggedRefit(
+            drop_rules(drop_flagged), (), None,
+            note="pgls fits carry no outlier or influence flags here; nothing was dropped and no refit was made"))
+    return res
+
+
+def _check_points(method: str, X: np.ndarray, Y: np.ndarray, x: str, y: str, excluded: list[dict]) -> None:
+    """Enough usable points, and x (and for model II, y) not all equal."""
     n = len(X)
-    from comparo.bounds import check_bootstrap
-
-    bootstrap = check_bootstrap(bootstrap, n, method)
     if n < 3:
         raise UsageError(f"{method} needs at least 3 usable points; {n} remain after excluding {len(excluded)} row(s)"
                          + (f" ({excluded[0]['label']}: {excluded[0]['reason']}, ...)" if excluded else ""))
@@ -164,49 +200,31 @@ def fit(
     if method == "lts" and n < 5:
         raise UsageError(f"lts needs at least 5 usable points; {n} remain")
 
-    core = _core(method, X, Y, ci, against, seed)
-    notes = [core.note] if core.note else []
-    flags = flag_points(X, Y, labels, weights=core.weights if method == "robust" else None,
-                        lts_std=core.lts_std if method == "lts" else None)
-    group_rows = group_tests = None
-    if by:
-        group_rows, group_tests, gnotes = group_fits(X, Y, groups, method, ci, against, seed)
-        notes += gnotes
-    bp = None
-    if breakpoint:
-        if n < 8:
-            raise UsageError(f"a breakpoint fit needs at least 8 usable points; {n} remain")
-        bp = segmented_line(X, Y, ci)
-        inv = _inverse(log)
-        bp = {"x_log": bp["x_log"], "x": float(inv(bp["x_log"])), "x_ci": [float(inv(v)) for v in bp["x_log_ci"]],
-              **{k: v for k, v in bp.items() if k not in ("x_log",)}}
-    boot = None
-    if bootstrap:
-        boot = bootstrap_line(method, X, Y, bootstrap, ci=ci, seed=seed, progress=progress and bootstrap * n >= 200_000)
+
+def _breakpoint(X: np.ndarray, Y: np.ndarray, ci: float, log: str) -> dict:
+    """The broken-line fit with its breakpoint also on the data scale (``x``, ``x_ci``)."""
+    if len(X) < 8:
+        raise UsageError(f"a breakpoint fit needs at least 8 usable points; {len(X)} remain")
+    bp = segmented_line(X, Y, ci)
+    inv = _inverse(log)
+    return {"x_log": bp["x_log"], "x": float(inv(bp["x_log"])), "x_ci": [float(inv(v)) for v in bp["x_log_ci"]],
+            **{k: v for k, v in bp.items() if k not in ("x_log",)}}
+
+
+def _points(X: np.ndarray, Y: np.ndarray, labels: list[str], groups, core) -> tuple[dict, ...]:
+    """Per-point records on the fitted scale (label, x_fit, y_fit, fitted, residual, ...)."""
     points = []
     for i, lab in enumerate(labels):
         rec = {"label": lab, "x_fit": float(X[i]), "y_fit": float(Y[i]), "fitted": float(core.fitted[i]),
                "residual": float(Y[i] - core.fitted[i])}
-        if by:
+        if groups is not None:
             rec["group"] = groups[i]
         if core.weights is not None:
             rec["weight"] = float(core.weights[i])
         if core.lts_std is not None:
             rec["lts_std"] = float(core.lts_std[i])
         points.append(rec)
-    refit = None
-    if drop_flagged:
-        refit = _refit_without_flagged(
-            table, flags.flags, rules, rows_used, core.slope,
-            dict(x=x, y=y, method=method, by=by, against=against, ci=ci, log=log, bootstrap=bootstrap, seed=seed,
-                 taxon_col=taxon_col, breakpoint=breakpoint, progress=progress))
-    return FitResult(
-        method=method, x=x, y=y, log=log, n=n, slope=core.slope, slope_ci=core.slope_ci, intercept=core.intercept,
-        intercept_ci=core.intercept_ci, r2=core.r2, ci_level=float(ci), against=core.test,
-        groups=group_rows, group_tests=group_tests, outliers=[f.to_dict() for f in flags.flags], excluded=excluded,
-        breakpoint=bp, bootstrap=boot, points=tuple(points), notes=tuple(notes), refit_without_flagged=refit,
-    )
-
+    return tuple(points)
 
 def _refit_without_flagged(table, flags, rules: tuple[str, ...], rows_used: np.ndarray, slope: float, kw: dict) -> FlaggedRefit:
     """Drop the rows of the points flagged by *rules* and fit again with the same options."""

@@ -14,10 +14,7 @@ from typing import Any
 import numpy as np
 
 from comparo.errors import UsageError
-from comparo.phylo.trees import (
-    _as_topo,
-    _Topo,
-)
+from comparo.phylo.trees import _as_topo, _Topo
 
 
 @dataclass(frozen=True, eq=False)

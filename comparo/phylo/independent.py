@@ -13,15 +13,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from comparo.errors import InputError, Problem, UsageError
+from comparo.jsonsafe import finite_list as _fl
+from comparo.jsonsafe import finite_or_none as _f
 from comparo.phylo.flat import FlatTree, _flat
-from comparo.phylo.numbers import _f, _fl
-from comparo.phylo.tips import (
-    TipMatch,
-    _match,
-)
-from comparo.phylo.trees import (
-    _as_topo,
-)
+from comparo.phylo.tips import TipMatch, _match
+from comparo.phylo.trees import _as_topo
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd

@@ -16,9 +16,9 @@ from typing import Any
 import numpy as np
 
 from comparo.errors import UsageError
+from comparo.jsonsafe import finite_or_none as _f
 from comparo.phylo.engine import GLSQuantities, gls_quantities
 from comparo.phylo.flat import FlatTree, pagel_edges
-from comparo.phylo.numbers import _f
 
 
 @dataclass(frozen=True, eq=False)

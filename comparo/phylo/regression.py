@@ -13,26 +13,21 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from comparo.errors import InputError, Problem, UsageError
+from comparo.jsonsafe import finite_or_none as _f
 from comparo.phylo.flat import FlatTree, _flat
-from comparo.phylo.likelihood import (
-    _fit_lambda,
-    _Gls,
-    _gls,
-    _lr,
-)
-from comparo.phylo.numbers import _f
-from comparo.phylo.tips import (
-    _match,
-)
-from comparo.phylo.trees import (
-    _as_topo,
-)
+from comparo.phylo.likelihood import _fit_lambda, _Gls, _gls, _lr
+from comparo.phylo.tips import _match
+from comparo.phylo.trees import _as_topo
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
 
 _LOGS = {"10": np.log10, "e": np.log, "none": None}
+_CONVENTION = {  # REML? -> how the reported log-likelihood is defined
+    True: "REML: -1/2[(n-p)ln(2*pi*s2) + ln|V| + ln|X'V^-1X| + (n-p)], no +1/2 ln|X'X| term",
+    False: "ML: -1/2[n ln(2*pi*RSS/n) + ln|V| + n]",
+}
 
 
 def _transform(v: np.ndarray, log: str) -> np.ndarray:
@@ -127,16 +122,90 @@ def phylo_fit(
     squares under the fitted V, RSS_0 of the intercept-only model: the share of
     phylogenetically weighted variance the line explains (not the OLS R²).
     All quantities come from :func:`gls_quantities` in O(n) per likelihood.
-
-    References
-    ----------
-    Grafen A (1989) Phil Trans R Soc B 326:119-157. Pagel M (1999) Nature
-    401:877-884. Freckleton RP, Harvey PH, Pagel M (2002) Am Nat 160:712-726.
-    Ives AR, Midford PE, Garland T (2007) Syst Biol 56:252-270. Ho LST, Ané C
-    (2014) Syst Biol 63:397-408.
+    References (Grafen 1989; Pagel 1999; Freckleton et al. 2002; Ives et al. 2007;
+    Ho & Ané 2014) in full in :mod:`comparo.phylo`.
     """
+    log = _check_options(table, x, y, log, ci, taxon_col, by)
+    se_col, se_map = _tip_se_source(table, y, tip_se)
+    topo = _as_topo(tree)
+    labels = [str(v) for v in table[taxon_col].tolist()]
+    match = _match(topo, labels, tree_labels)
+    xv = np.asarray(table[x], dtype=float)
+    yv = np.asarray(table[y], dtype=float)
+    keep, excluded, groups_of = _usable_rows(table, labels, xv, yv, x, y, log, by, match.tip_of)
+    n = len(keep)
+    need = 3 if by is None else 2 * len({groups_of[i] for i in keep}) + 1
+    if n < need:
+        raise UsageError(f"PGLS needs at least {need} taxa with x, y and a tip in the tree; {n} remain "
+                         f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in all)")
+    ft, keep, pruned = _pruned_tree(topo, keep, [match.tip_of[labels[i]] for i in keep])
+    keep_labels = [labels[i] for i in keep]
+    X1 = _transform(xv[keep], log)
+    Y = _transform(yv[keep], log)
+    se2, me_info = _measurement_error(table, keep, keep_labels, yv, log, se_col, se_map)
+
+    lf = _fit_lambda(ft, np.column_stack([np.ones(n), X1]), Y, lambda_, se2, reml, ci)
+    line, extras = _line_keys(lf, n, ci, against)
+    groups = group_tests = None
+    if by is not None:
+        groups, group_tests = _group_fit(ft, X1, Y, [groups_of[i] for i in keep], lambda_, se2, reml, ci)
+    return {
+        "method": "pgls", "x": x, "y": y, "log": log, "n": n, **line, "groups": groups, "outliers": [],
+        "excluded": excluded, "breakpoint": None, "sensitivity": None,
+        **extras,
+        "likelihood": "REML" if reml else "ML",
+        "loglik_convention": _CONVENTION[bool(reml)],
+        "r2_kind": "generalised: 1 - RSS/RSS_null under the fitted phylogenetic covariance",
+        "lambda_tests": _lambda_tests(lf),
+        "group_tests": group_tests,
+        "measurement_error": me_info,
+        "tips_pruned": pruned,
+        "taxa_without_tips": list(match.taxa_without_tips),
+    }
+
+
+def _pruned_tree(topo, keep: list[int], tips: list[str]):
+    """The tree pruned to *tips* as a :class:`FlatTree`, the table rows in its tip order,
+    and the tips pruned away."""
+    ft = _flat(topo, tips)
+    row_of = {t: i for i, t in zip(keep, tips, strict=True)}
+    used = set(tips)
+    return ft, [row_of[t] for t in ft.tips], [t for t in topo.tips if t not in used]
+
+
+def _line_keys(lf, n: int, ci: float, against: float | None) -> tuple[dict, dict]:
+    """The line's contract keys (slope .. loglik) and its extras (standard errors, sigma², df)."""
     from scipy.stats import t as tdist
 
+    g = lf.fit
+    df = n - 2
+    tq = float(tdist.ppf(0.5 + ci / 2.0, df))
+    se_b = np.sqrt(np.diag(g.cov))
+    b0, b1 = float(g.beta[0]), float(g.beta[1])
+    ts = None
+    if against is not None:
+        stat = (b1 - float(against)) / se_b[1]
+        ts = {"value": float(against), "statistic": _f(stat), "test": "t", "df": int(df), "p": _f(2.0 * tdist.sf(abs(stat), df))}
+    r2 = 1.0 - g.rss / g.rss_null if g.rss_null > 0 else math.nan
+    line = {
+        "slope": _f(b1),
+        "slope_ci": [_f(b1 - tq * se_b[1]), _f(b1 + tq * se_b[1])],
+        "intercept": _f(b0),
+        "intercept_ci": [_f(b0 - tq * se_b[0]), _f(b0 + tq * se_b[0])],
+        "r2": _f(r2),
+        "ci_level": float(ci),
+        "against": ts,
+        "lambda": _f(lf.lam),
+        "lambda_ci": None if lf.ci is None else [_f(lf.ci[0]), _f(lf.ci[1])],
+        "loglik": _f(lf.loglik),
+    }
+    extras = {"slope_se": _f(se_b[1]), "intercept_se": _f(se_b[0]), "sigma2": _f(g.sigma2), "df": df}
+    return line, extras
+
+
+
+def _check_options(table: pd.DataFrame, x: str, y: str, log: Any, ci: float, taxon_col: str, by: str | None) -> str:
+    """Log base, confidence level and the columns named; returns the log base as text."""
     log = "none" if log is None else str(log)
     if log not in _LOGS:
         raise UsageError(f"log must be one of 10, e, none; got {log!r}")
@@ -145,6 +214,11 @@ def phylo_fit(
     for col in [taxon_col, x, y] + ([by] if by else []):
         if col not in table.columns:
             raise UsageError(f"column {col!r} not in the table (columns: {', '.join(map(str, table.columns))})")
+    return log
+
+
+def _tip_se_source(table: pd.DataFrame, y: str, tip_se: Any) -> tuple[str | None, Mapping[str, float] | None]:
+    """Where the tip standard uncertainties come from: a column, or a mapping label -> value."""
     se_col = None
     se_map: Mapping[str, float] | None = None
     if tip_se is True:
@@ -155,13 +229,14 @@ def phylo_fit(
         se_map = {str(k): v for k, v in tip_se.items()}
     if se_col is not None and se_col not in table.columns:
         raise UsageError(f"measurement-error column {se_col!r} not in the table")
+    return se_col, se_map
 
-    topo = _as_topo(tree)
-    labels = [str(v) for v in table[taxon_col].tolist()]
-    match = _match(topo, labels, tree_labels)
-    tip_of = match.tip_of
-    xv = np.asarray(table[x], dtype=float)
-    yv = np.asarray(table[y], dtype=float)
+
+def _usable_rows(table, labels: list[str], xv: np.ndarray, yv: np.ndarray, x: str, y: str, log: str,
+                 by: str | None, tip_of: Mapping[str, str]) -> tuple[list[int], list[dict], np.ndarray | None]:
+    """Rows with x, y (positive under a log), a group and a tip; the others with reasons.
+
+    A group with a single usable taxon is excluded too (named in the reason)."""
     excluded: list[dict] = []
     keep: list[int] = []
     for i, lab in enumerate(labels):
@@ -181,113 +256,47 @@ def phylo_fit(
             excluded.append({"label": lab, "reason": "; ".join(reasons)})
         else:
             keep.append(i)
-    groups_of = None
-    if by is not None:
-        gcol = table[by].astype(str).to_numpy()
-        counts: dict[str, int] = {}
-        for i in keep:
-            counts[gcol[i]] = counts.get(gcol[i], 0) + 1
-        small = {g for g, c in counts.items() if c < 2}
-        if small:
-            for i in [i for i in keep if gcol[i] in small]:
-                excluded.append({"label": labels[i], "reason": f"only taxon of group {gcol[i]!r} in {by}"})
-            keep = [i for i in keep if gcol[i] not in small]
-        groups_of = gcol
-    n = len(keep)
-    need = 3 if by is None else 2 * len({groups_of[i] for i in keep}) + 1
-    if n < need:
-        raise UsageError(f"PGLS needs at least {need} taxa with x, y and a tip in the tree; {n} remain "
-                         f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in all)")
-    keep_labels = [labels[i] for i in keep]
-    tips = [tip_of[lab] for lab in keep_labels]
-    ft = _flat(topo, tips)
-    row_of = {t: i for i, t in zip(keep, tips, strict=True)}
-    keep = [row_of[t] for t in ft.tips]  # table rows in the tree's tip order
-    keep_labels = [labels[i] for i in keep]
-    used_tips = set(tips)
-    pruned = [t for t in topo.tips if t not in used_tips]
-    X1 = _transform(xv[keep], log)
-    Y = _transform(yv[keep], log)
+    if by is None:
+        return keep, excluded, None
+    gcol = table[by].astype(str).to_numpy()
+    counts: dict[str, int] = {}
+    for i in keep:
+        counts[gcol[i]] = counts.get(gcol[i], 0) + 1
+    small = {g for g, c in counts.items() if c < 2}
+    if small:
+        for i in [i for i in keep if gcol[i] in small]:
+            excluded.append({"label": labels[i], "reason": f"only taxon of group {gcol[i]!r} in {by}"})
+        keep = [i for i in keep if gcol[i] not in small]
+    return keep, excluded, gcol
 
-    se2 = None
-    me_info = None
-    if se_col is not None or se_map is not None:
-        if se_col is not None:
-            u = np.asarray(table[se_col], dtype=float)[keep]
-        else:
-            u = np.array([float(se_map.get(lab, math.nan)) for lab in keep_labels])
-        if np.any(u < 0):
-            bad = [keep_labels[i] for i in np.flatnonzero(u < 0)]
-            raise InputError([Problem("error", "table", None, se_col, bad[0], "se-negative", f"negative standard uncertainty for {', '.join(bad[:5])}")])
-        missing_se = [keep_labels[i] for i in np.flatnonzero(~np.isfinite(u))]
-        u = np.where(np.isfinite(u), u, 0.0)
-        se2 = _se_on_scale(u, yv[keep], log) ** 2
-        me_info = {"source": se_col if se_col else "mapping", "tips_with_error": int(np.sum(se2 > 0)), "missing_set_to_zero": missing_se}
 
-    Xpool = np.column_stack([np.ones(n), X1])
-    lf = _fit_lambda(ft, Xpool, Y, lambda_, se2, reml, ci)
-    g = lf.fit
-    p = 2
-    df = n - p
-    tq = float(tdist.ppf(0.5 + ci / 2.0, df))
-    se_b = np.sqrt(np.diag(g.cov))
-    b0, b1 = float(g.beta[0]), float(g.beta[1])
-    ts = None
-    if against is not None:
-        stat = (b1 - float(against)) / se_b[1]
-        ts = {"value": float(against), "statistic": _f(stat), "test": "t", "df": int(df), "p": _f(2.0 * tdist.sf(abs(stat), df))}
-    r2 = 1.0 - g.rss / g.rss_null if g.rss_null > 0 else math.nan
+def _measurement_error(table, keep: list[int], keep_labels: list[str], yv: np.ndarray, log: str,
+                       se_col: str | None, se_map: Mapping[str, float] | None) -> tuple[np.ndarray | None, dict | None]:
+    """Tip variances on the fitted scale (se²) and their account, or (None, None) without tip errors."""
+    if se_col is None and se_map is None:
+        return None, None
+    if se_col is not None:
+        u = np.asarray(table[se_col], dtype=float)[keep]
+    else:
+        u = np.array([float(se_map.get(lab, math.nan)) for lab in keep_labels])
+    if np.any(u < 0):
+        bad = [keep_labels[i] for i in np.flatnonzero(u < 0)]
+        raise InputError([Problem("error", "table", None, se_col, bad[0], "se-negative", f"negative standard uncertainty for {', '.join(bad[:5])}")])
+    missing_se = [keep_labels[i] for i in np.flatnonzero(~np.isfinite(u))]
+    u = np.where(np.isfinite(u), u, 0.0)
+    se2 = _se_on_scale(u, yv[keep], log) ** 2
+    return se2, {"source": se_col if se_col else "mapping", "tips_with_error": int(np.sum(se2 > 0)), "missing_set_to_zero": missing_se}
 
-    groups = None
-    group_tests = None
-    if by is not None:
-        groups, group_tests = _group_fit(ft, X1, Y, [groups_of[i] for i in keep], lambda_, se2, reml, ci)
 
-    lam_tests = None
-    if lf.ll0 is not None:
-        lam_tests = {"lambda_0": _lr(lf.loglik, lf.ll0), "lambda_1": _lr(lf.loglik, lf.ll1),
-                     "null_distribution": "chi2(1); conservative on the boundary of [0, 1]",
-                     "search_interval": [0.0, lf.top],
-                     "note": None if lf.top == 1.0 else
-                     "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is evaluated there"}
-    return {
-        "method": "pgls",
-        "x": x,
-        "y": y,
-        "log": log,
-        "n": n,
-        "slope": _f(b1),
-        "slope_ci": [_f(b1 - tq * se_b[1]), _f(b1 + tq * se_b[1])],
-        "intercept": _f(b0),
-        "intercept_ci": [_f(b0 - tq * se_b[0]), _f(b0 + tq * se_b[0])],
-        "r2": _f(r2),
-        "ci_level": float(ci),
-        "against": ts,
-        "lambda": _f(lf.lam),
-        "lambda_ci": None if lf.ci is None else [_f(lf.ci[0]), _f(lf.ci[1])],
-        "loglik": _f(lf.loglik),
-        "groups": groups,
-        "outliers": [],
-        "excluded": excluded,
-        "breakpoint": None,
-        "sensitivity": None,
-        # extras
-        "slope_se": _f(se_b[1]),
-        "intercept_se": _f(se_b[0]),
-        "sigma2": _f(g.sigma2),
-        "df": df,
-        "likelihood": "REML" if reml else "ML",
-        "loglik_convention": (
-            "REML: -1/2[(n-p)ln(2*pi*s2) + ln|V| + ln|X'V^-1X| + (n-p)], no +1/2 ln|X'X| term"
-            if reml else "ML: -1/2[n ln(2*pi*RSS/n) + ln|V| + n]"
-        ),
-        "r2_kind": "generalised: 1 - RSS/RSS_null under the fitted phylogenetic covariance",
-        "lambda_tests": lam_tests,
-        "group_tests": group_tests,
-        "measurement_error": me_info,
-        "tips_pruned": pruned,
-        "taxa_without_tips": list(match.taxa_without_tips),
-    }
+def _lambda_tests(lf) -> dict | None:
+    """Likelihood-ratio tests of lambda = 0 and 1 (None when lambda was fixed)."""
+    if lf.ll0 is None:
+        return None
+    return {"lambda_0": _lr(lf.loglik, lf.ll0), "lambda_1": _lr(lf.loglik, lf.ll1),
+            "null_distribution": "chi2(1); conservative on the boundary of [0, 1]",
+            "search_interval": [0.0, lf.top],
+            "note": None if lf.top == 1.0 else
+            "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is evaluated there"}
 
 
 def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lambda_: Any, se2: np.ndarray | None, reml: bool, ci: float) -> tuple[list, dict]:

@@ -13,14 +13,12 @@ from typing import Any
 
 import numpy as np
 
+from comparo.jsonsafe import finite_list as _fl
+from comparo.jsonsafe import finite_or_none as _f
 from comparo.phylo.engine import gls_quantities
 from comparo.phylo.flat import FlatTree
 from comparo.phylo.independent import _values_on_tree
-from comparo.phylo.likelihood import (
-    _fit_lambda,
-    _lr,
-)
-from comparo.phylo.numbers import _f, _fl
+from comparo.phylo.likelihood import _fit_lambda, _lr
 
 
 @dataclass(frozen=True)

@@ -8,13 +8,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from comparo.errors import InputError, Problem, problems_from_frame
-from comparo.phylo.trees import (
-    _as_topo,
-    _check,
-    _norm,
-    _Topo,
-    _topology,
-)
+from comparo.phylo.trees import _as_topo, _check, _norm, _Topo, _topology
 
 
 @dataclass(frozen=True)
