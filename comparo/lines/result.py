@@ -4,7 +4,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from comparo.jsonsafe import json_safe as _json
 from comparo.lines.numbers import _NAN, _f, _nan, _num, _p, _pair
@@ -172,6 +172,50 @@ class FitResult:
         frame.insert(0, "method", self.method)
         return frame
 
+    def _repr_html_(self) -> str:
+        """Compact table for notebooks: the estimates of :meth:`to_frame`, the slope test and the flags."""
+        from comparo.display import frame_html
+
+        scale = {"10": "log10", "e": "ln", "none": "untransformed"}[self.log]
+        notes = [_against_text(self.against)] if self.against else []
+        if self.group_tests:
+            notes += [line.strip() for line in _group_comparison_lines(self.group_tests)]
+        notes.append(f"flags: {len(self.outliers)}; excluded rows: {len(self.excluded)}")
+        notes += list(self.notes)
+        title = f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}, CI {100 * self.ci_level:g}%"
+        return frame_html(title, self.to_frame().drop(columns=["method"]), notes)
+
+    def plot(self, ax: Any = None, *, table: pd.DataFrame | None = None, catalog: Any = None,
+             taxon_col: str = "taxon", seed: int = 20240601) -> Any:
+        """The scaling figure of the report on a matplotlib Axes; returns the Axes.
+
+        Parameters
+        ----------
+        ax : matplotlib Axes, optional
+            Where to draw; a new figure (9.2 x 4.6 in) when None.
+        table : DataFrame, optional
+            The fitted table: with ``{x}_basis`` and ``{y}_basis`` columns the
+            markers show the weakest basis of each point, as in the report.
+        catalog : quantity catalogue, optional
+            For axis labels with units.
+        seed : int
+            Seed of the bootstrap band of the line.
+        """
+        from comparo import plots
+
+        points = self.points_frame()
+        if table is not None and f"{self.x}_basis" in table and f"{self.y}_basis" in table and taxon_col in table:
+            by_label = {str(r[taxon_col]): plots.weakest_basis(str(r[f"{self.x}_basis"]), str(r[f"{self.y}_basis"]))
+                        for _, r in table.iterrows()}
+            points["basis"] = [by_label.get(str(lab), "") for lab in points["label"]]
+        if ax is None:
+            import matplotlib.pyplot as plt
+
+            with plt.rc_context(plots.STYLE):
+                _, ax = plt.subplots(figsize=(9.2, 4.6), layout="constrained")
+        by = "group" if self.groups else None
+        return plots.draw_scaling(ax, self, points, catalog=catalog, by=by, seed=seed)
+
     def points_frame(self) -> pd.DataFrame:
         """Per-point table (fitted scale): label, x_fit, y_fit, fitted, residual, ..."""
         import pandas as pd
@@ -307,10 +351,12 @@ GROUP_QUESTIONS = {
 
 
 def _against_text(t: dict) -> str:
-    """``slope = 1?  t = 2.31 (df 10), p = 0.04`` (the statistic named as the test is)."""
+    """``slope = 1?  t = 2.31 (df 10), p = 0.04`` or ``F(1, 10) = ...`` (the statistic named as the test is)."""
     name = t.get("test") or "statistic"
     df = t.get("df")
-    dft = "" if df is None or name.startswith("F(") else f" (df {df})"
+    if name.startswith("F(") and isinstance(df, list | tuple) and len(df) == 2:
+        name, df = f"F({df[0]}, {df[1]})", None
+    dft = "" if df is None else f" (df {df})"
     return f"slope = {t['value']:g}?  {name} = {_f(t['statistic'])}{dft}, p = {_p(t['p'])}"
 
 
