@@ -25,7 +25,7 @@ obs_ids, methods, missing reasons), :mod:`.ratios` (user ratio columns) and
 from __future__ import annotations
 
 from comparo.derivation.compute import derive
-from comparo.derivation.expressions import Ratio, parse_ratio
+from comparo.derivation.expressions import DOUBLE_DECADES, Ratio, parse_ratio, ratio_overflow
 from comparo.derivation.lattice import (
     HEXAGONAL_PACKING_LIMIT,
     effective_radius,
@@ -61,6 +61,8 @@ __all__ = [
     "gum_relative",
     "kinetic_time_two_state",
     "parse_ratio",
+    "ratio_overflow",
+    "DOUBLE_DECADES",
     "permeability",
     "poroelastic_diffusivity",
     "poroelastic_time",

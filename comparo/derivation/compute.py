@@ -59,7 +59,7 @@ _SI = {  # derived key -> SI unit of the internal computation
 
 
 def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc: int = 0,
-           seed: int = 20240601) -> pd.DataFrame:
+           seed: int = 20240601, progress: bool = False) -> pd.DataFrame:
     """Add derived time scales, ratios, their uncertainty and lineage to a per-taxon table.
 
     Parameters
@@ -74,7 +74,11 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
         ``expression`` and ``unit``) and ``quantities`` (a dataset's own catalogue
         entries, for the units of ratio operands and of the length setting).
     mc : int
-        Monte Carlo draws per taxon (0: first-order uncertainty only).
+        Monte Carlo draws per taxon (0: first-order uncertainty only). Refused above a
+        cap computed from this machine's memory and a 600 s time budget
+        (:func:`comparo.bounds.check_mc`; the message states the cap and how).
+    progress : bool
+        Show a progress bar on standard error for a long Monte Carlo run.
     seed : int
         Seed of ``numpy.random.default_rng``.
 
@@ -106,11 +110,12 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     uncertainty in measurement. JCGM 101:2008 Supplement 1 to the GUM — Propagation
     of distributions using a Monte Carlo method.
     """
+    from comparo.bounds import check_mc
     from comparo.catalog import load_catalog, read_schema
-    from comparo.errors import UsageError
 
-    if not isinstance(mc, int | np.integer) or mc < 0:
-        raise UsageError("the number of Monte Carlo draws must be 0 or a positive integer")
+    if isinstance(mc, np.integer):
+        mc = int(mc)
+    mc = check_mc(mc, len(table), option="mc")
     s, ratio_settings, user_quantities = _settings(settings)
     catalog = load_catalog(user_quantities)
     keys = read_schema("derived.toml")["keys"]
@@ -125,7 +130,7 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     lv = _table_leaves(table, catalog, names)
     thin_per_thick, temperature, t_reason = _assumed_leaves(table, s, lv)
     compute, mirrors = _physics(s)
-    prop = _propagate(compute, lv.values, lv.rel_u, ignore_unknown, mc, rng, list(_SI), mirrors)
+    prop = _propagate(compute, lv.values, lv.rel_u, ignore_unknown, mc, rng, list(_SI), mirrors, progress=progress)
     reasons = _missing_reasons(s, prop.values, lv.absent, t_reason)
     methods = _routes(s, lv.values, prop.values, thin_per_thick, temperature, length_key)
     new, units = _assemble(keys, prop, lv, names, reasons, methods, mc)

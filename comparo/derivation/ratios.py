@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.derivation.expressions import Ratio, parse_ratio
+from comparo.derivation.expressions import Ratio, parse_ratio, ratio_overflow
 from comparo.derivation.lineage import _column, _join, _lineage_columns, _mc_columns, _text_column
 from comparo.derivation.uncertainty import _propagate
 from comparo.errors import InputError, Problem
@@ -58,6 +58,10 @@ def _ratios(out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys,
         if not ratio.exponents:
             bad(f"ratio {name!r} has no quantity in it")
         if len(op_units) != len(ratio.exponents):
+            continue
+        span = ratio_overflow(ratio, catalog)
+        if span:
+            bad(span, "use smaller powers")
             continue
         q = parse_unit("dimensionless")
         for k, p in ratio.exponents:

@@ -101,7 +101,8 @@ class _Propagation:
 def _propagate(compute: Callable[[dict[str, Any]], dict[str, Any]], leaves: dict[str, np.ndarray],
                rel_u: dict[str, np.ndarray], ignore_unknown: bool, mc: int,
                rng: np.random.Generator | None, mc_outputs: list[str] | None = None,
-               mirrors: dict[str, tuple[str, Callable[[Any], Any]]] | None = None) -> _Propagation:
+               mirrors: dict[str, tuple[str, Callable[[Any], Any]]] | None = None,
+               progress: bool = False) -> _Propagation:
     """Values, GUM uncertainties, lineage and Monte Carlo summaries of compute(leaves).
 
     First order on the log scale: cᵢ = ∂ln y/∂ln xᵢ by central differences of step
@@ -141,7 +142,7 @@ def _propagate(compute: Callable[[dict[str, Any]], dict[str, Any]], leaves: dict
         u[key] = np.where(np.isnan(y), np.nan, uu)
     summaries: dict[str, dict[str, np.ndarray]] = {}
     if mc > 0:
-        summaries = _monte_carlo(compute, leaves, rel_u, mc, rng, mc_outputs or list(base), mirrors)
+        summaries = _monte_carlo(compute, leaves, rel_u, mc, rng, mc_outputs or list(base), mirrors, progress)
         for key, s in summaries.items():
             bad = np.isnan(u[key])
             for arr in s.values():
@@ -149,7 +150,7 @@ def _propagate(compute: Callable[[dict[str, Any]], dict[str, Any]], leaves: dict
     return _Propagation(base, u, deps, unknown_names, summaries)
 
 
-def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None):
+def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None, progress: bool = False):
     """Vectorised Monte Carlo over taxa in blocks of about 1e6 float32 draws (JCGM 101:2008).
 
     Intervals are order statistics of the sorted draws (JCGM 101:2008, 7.7):
@@ -169,7 +170,9 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None):
     drawn = [k for k, r in rel_u.items() if np.any(np.isfinite(r) & (r > 0))]
     res = {k: {s: np.full(n, np.nan) for s in (*_MC_SUFFIXES, "_mc_u")} for k in outputs}
     in_flight: list[Any] = []
-    with ThreadPoolExecutor(max_workers=min(2, os.cpu_count() or 1)) as pool:
+    bar = _mc_bar(progress and n * mc >= 2_000_000, -(-n // block))
+    with bar, ThreadPoolExecutor(max_workers=min(2, os.cpu_count() or 1)) as pool:
+        task = bar.add_task(f"Monte Carlo, {mc} draws", total=-(-n // block))
         for start in range(0, n, block):
             stop = min(n, start + block)
             vals = {k: v[start:stop] for k, v in leaves.items()}
@@ -181,9 +184,36 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None):
             del args
             if len(in_flight) > 1:  # at most two blocks drawn and not yet summarised
                 in_flight.pop(0).result()
+                bar.advance(task)
         for f in in_flight:
             f.result()
+            bar.advance(task)
     return res
+
+
+class _NoBar:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> bool:
+        return False
+
+    def add_task(self, *args, **kwargs) -> int:
+        return 0
+
+    def advance(self, *args) -> None:
+        return None
+
+
+def _mc_bar(enabled: bool, total: int):
+    """A transient rich progress bar on standard error (for a terminal), else a no-op."""
+    if not enabled or total < 2:
+        return _NoBar()
+    from rich.console import Console
+    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+
+    return Progress(TextColumn("{task.description}"), BarColumn(), TimeRemainingColumn(),
+                    console=Console(stderr=True), transient=True)
 
 
 def _mc_block(compute, args, sl, mc, outputs, mirrors, res) -> None:
