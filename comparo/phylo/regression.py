@@ -132,13 +132,14 @@ def phylo_fit(
     match = _match(topo, labels, tree_labels)
     xv = np.asarray(table[x], dtype=float)
     yv = np.asarray(table[y], dtype=float)
-    keep, excluded, groups_of = _usable_rows(table, labels, xv, yv, x, y, log, by, match.tip_of)
+    tip_of = match.tip_of  # built on each access: once here
+    keep, excluded, groups_of = _usable_rows(table, labels, xv, yv, x, y, log, by, tip_of)
     n = len(keep)
     need = 3 if by is None else 2 * len({groups_of[i] for i in keep}) + 1
     if n < need:
         raise UsageError(f"PGLS needs at least {need} taxa with x, y and a tip in the tree; {n} remain "
                          f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in all)")
-    ft, keep, pruned = _pruned_tree(topo, keep, [match.tip_of[labels[i]] for i in keep])
+    ft, keep, pruned = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     keep_labels = [labels[i] for i in keep]
     X1 = _transform(xv[keep], log)
     Y = _transform(yv[keep], log)
