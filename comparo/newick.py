@@ -62,16 +62,20 @@ def _tokens(text: str) -> list[tuple[str, str]] | None:
     if _ODD.search(text):  # characters dendropy's tokenizer treats as its own tokens
         return None
     if "'" not in text and "[" not in text:  # the common case: split on punctuation in C
+        pieces = _SPLIT.split(text)
+        words = pieces[0::2]
+        if _SPACE.search(text):
+            words = [w.strip(" \t\n\r") for w in words]
+            if any(_SPACE.search(w) for w in words if w):
+                return None
         out = []
-        for i, piece in enumerate(_SPLIT.split(text)):
-            if i % 2:
-                out.append(("punct", piece))
-            else:
-                word = piece.strip(" \t\n\r")
-                if word:
-                    if _SPACE.search(word):
-                        return None
-                    out.append(("word", word))
+        append = out.append
+        for word, punct in zip(words, pieces[1::2], strict=False):  # one more word than punctuation
+            if word:
+                append(("word", word))
+            append(("punct", punct))
+        if words[-1]:
+            append(("word", words[-1]))
         return out
     pos = 0
     out = []
