@@ -3,6 +3,7 @@ row and column a spreadsheet shows; bad files give exit 2 and one clear message.
 
 from __future__ import annotations
 
+import functools
 import json
 import string
 
@@ -291,6 +292,16 @@ _HOSTILE = ["", "abc", "2.5", "-1", "0", "1e400", "nan", "12 um", "±3", "zz", "
             "9" * 20, "OBS0001", "measured", " 3", "<5", "1,5"]
 
 
+@functools.lru_cache(maxsize=1)
+def _demo_raw():
+    """The demo folder as read (once per test process; callers copy the frames they change)."""
+    from support import DEMO
+
+    from comparo.io import read_folder
+
+    return read_folder(DEMO)
+
+
 def _pandera_failures(schema, frame) -> list[tuple]:
     import pandera.errors as pe
 
@@ -314,17 +325,14 @@ def _ours(schema, frame) -> list[tuple]:
              None if r["failure_case"] is None else str(r["failure_case"])) for r in schema_failures(schema, frame)]
 
 
-@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=25, deadline=None)
 @given(data=st.data())
 def test_schema_failures_match_pandera_validation(data):
     """Random hostile cells and dropped columns in the demo's three tables: the same failure
     cases as pandera's ``validate(lazy=True)``, as a multiset, and the same order per column."""
-    from support import DEMO
-
-    from comparo.io import read_folder
     from comparo.validate import _schema
 
-    raw = read_folder(DEMO)
+    raw = _demo_raw()
     for name, table in (("observations", raw.observations), ("sources", raw.sources), ("taxa", raw.taxa)):
         frame = table.frame.copy()
         n_bad = data.draw(st.integers(0, 12), label=f"{name} bad cells")
