@@ -74,8 +74,6 @@ def standard_uncertainty(u: pd.Series, kind: pd.Series, n: pd.Series) -> pd.Seri
     ``range_half``: a/sqrt(3), the rectangular distribution (GUM 4.3.7). An
     uncertainty without a kind is taken as a standard deviation.
     """
-    from scipy.special import stdtrit  # Student t quantile (lighter import than scipy.stats)
-
     u = u.astype(float)
     n = n.astype(float)
     kind = kind.fillna("").replace("", "sd")
@@ -86,7 +84,11 @@ def standard_uncertainty(u: pd.Series, kind: pd.Series, n: pd.Series) -> pd.Seri
     out[kind == "se"] = u[kind == "se"]
     ci = kind == "ci95"
     dof = (n[ci] - 1).where(n[ci] >= 2)
-    tq = pd.Series(np.where(dof.notna(), stdtrit(dof.fillna(1.0), 0.975), 1.959963984540054), index=dof.index)
+    tq = pd.Series(1.959963984540054, index=dof.index, dtype=float)
+    if dof.notna().any():  # scipy only when a CI with a sample size is there to convert
+        from scipy.special import stdtrit  # Student t quantile (lighter import than scipy.stats)
+
+        tq[dof.notna()] = stdtrit(dof[dof.notna()].to_numpy(dtype=float), 0.975)
     out[ci] = u[ci] / tq
     rh = kind == "range_half"
     out[rh] = u[rh] / math.sqrt(3.0)

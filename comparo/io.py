@@ -473,8 +473,37 @@ def parse_newick(text: str) -> Any:
     return out["trees"]
 
 
+class DeferredTree:
+    """A tree read by :func:`comparo.newick.parse`, built as a dendropy tree on first use.
+
+    ``topology`` (pre-order lists) is there at once; any dendropy attribute
+    (``seed_node``, ``leaf_nodes()``...) builds the dendropy tree from the same
+    text with :func:`parse_newick` and answers from it, so code written for a
+    dendropy tree keeps working while commands that never walk the tree skip
+    dendropy altogether.
+    """
+
+    def __init__(self, text: str, topology: Any) -> None:
+        self.text = text
+        self.topology = topology
+        self._tree = None
+
+    @property
+    def tree(self) -> Any:
+        """The dendropy tree (built once)."""
+        if self._tree is None:
+            self._tree = parse_newick(self.text)[0]
+        return self._tree
+
+    def __getattr__(self, name: str) -> Any:
+        if name.startswith("__") or name in ("text", "topology", "_tree"):
+            raise AttributeError(name)
+        return getattr(self.tree, name)
+
+
 def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
-    """Parse a Newick tree with dendropy. Returns (tree, text, problems)."""
+    """Parse a Newick tree: plain Newick by :func:`comparo.newick.parse` (a
+    :class:`DeferredTree`), anything else by dendropy. Returns (tree, text, problems)."""
     file = path.name
     text, probs = decode_bytes(path.read_bytes(), file)
     if text is None:
@@ -486,6 +515,11 @@ def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
         probs.append(_err(file, "unicode-unified", "some tip labels are typed with decomposed accents; read in Unicode NFC (composed) so that they match the same names typed composed", "nothing to do unless two labels differed only in this way", severity="warning"))
     if text.count("(") != text.count(")"):
         return None, text, probs + [_err(file, "newick-syntax", f"unbalanced parentheses ({text.count('(')} '(' vs {text.count(')')} ')')", "check the Newick string")]
+    from comparo.newick import parse
+
+    topology = parse(text)
+    if topology is not None:
+        return DeferredTree(text if text.rstrip().endswith(";") else text.rstrip() + ";", topology), text, probs
     try:
         trees = parse_newick(text if text.rstrip().endswith(";") else text.rstrip() + ";")
         if len(trees) != 1:

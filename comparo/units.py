@@ -3,13 +3,22 @@
 Everything that converts a unit asks this module; no conversion factor is
 written anywhere else. Parsing is cached per distinct unit string, so a
 100,000-row table with a dozen distinct units costs a dozen parses.
+
+The registry is pint's full default registry. Reading pint's definitions file
+takes about 0.15 s per process, so the parsed definitions are kept in pint's own
+disk cache (a folder per pint version under the user cache folder, or under
+``COMPARO_CACHE_DIR``; ``COMPARO_CACHE_DIR=""`` turns the cache off). The cache
+holds what pint parsed from its own file, so the conversions are the same;
+when the folder cannot be written or read, the registry is built without it.
 """
 
 from __future__ import annotations
 
 import math
+import os
 import re
 from functools import lru_cache
+from pathlib import Path
 
 import pint
 
@@ -47,8 +56,70 @@ def registry() -> pint.UnitRegistry:
     Adds nothing but a few spellings biologists use; ``micron``, ``µm``,
     ``um``, ``Hz``, ``kPa``, ``1/s`` and ``s^-1`` are pint's own.
     """
-    ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    ureg = None
+    folder = cache_folder()
+    if folder is not None:
+        try:
+            ureg = _cached_registry(folder)
+        except Exception:  # an unwritable or damaged cache costs time, never a result
+            _forget(folder)
+            ureg = None
+    if ureg is None:
+        ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
     ureg.define("fraction_unit = 1 = fraction")
+    return ureg
+
+
+_READY = "complete"
+
+
+def cache_folder() -> Path | None:
+    """Folder of the registry cache: ``$COMPARO_CACHE_DIR/pint-VERSION`` or the user
+    cache folder's ``comparo/pint-VERSION``; ``None`` when ``COMPARO_CACHE_DIR`` is empty."""
+    env = os.environ.get("COMPARO_CACHE_DIR")
+    if env == "":
+        return None
+    if env is None:
+        import platformdirs  # a dependency of pint
+
+        base = platformdirs.user_cache_path(appname="comparo", appauthor=False)
+    else:
+        base = Path(env)
+    return base / f"pint-{pint.__version__}"
+
+
+def _forget(folder: Path) -> None:
+    """Drop the marker of a cache that failed to load, so the next process rebuilds it."""
+    try:
+        (folder / _READY).unlink(missing_ok=True)
+    except OSError:
+        pass
+
+
+def _cached_registry(folder: Path) -> pint.UnitRegistry:
+    """pint's registry with its definitions cache in *folder*.
+
+    A complete cache (marked by the file ``complete``) is read directly. Otherwise
+    the cache is written to a private folder first and its files are moved in with
+    ``os.replace``, so a process starting at the same moment never reads a half-written
+    file; the marker comes last.
+    """
+    if (folder / _READY).is_file():
+        return pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=folder)
+    import shutil
+    import tempfile
+
+    folder.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=".build-", dir=folder))
+    try:
+        ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=tmp)
+        for f in sorted(tmp.iterdir()):
+            os.replace(f, folder / f.name)
+        marker = tmp / _READY
+        marker.write_text(f"pint {pint.__version__}\n", encoding="utf-8")
+        os.replace(marker, folder / _READY)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
     return ureg
 
 

@@ -15,6 +15,7 @@ import difflib
 import math
 import re
 from dataclasses import dataclass
+from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -118,8 +119,9 @@ class _Rule:
 
 # --------------------------------------------------------------------------- pandera
 
-def _schema(table: str, frame: pd.DataFrame):
-    """pandera DataFrameSchema for *table* built from schema/tables.toml."""
+@lru_cache(maxsize=8)
+def _schema(table: str):
+    """pandera DataFrameSchema for *table* built from schema/tables.toml (built once)."""
     import pandera.pandas as pa
 
     spec = read_schema("tables.toml")[table]["columns"]
@@ -164,20 +166,53 @@ _MESSAGES = {
 }
 
 
-def _column_problems(table: RawTable, name: str) -> list[Problem]:
-    """Run the pandera schema of *name* on a raw table; one Problem per failure."""
-    import pandera.errors as pe
+def schema_failures(schema, frame: pd.DataFrame) -> list[dict[str, Any]]:
+    """The failures of *frame* against a pandera *schema*, found by running the schema's
+    declared rules on whole columns.
 
+    The records are those of pandera's lazy validation (``SchemaErrors.failure_cases``:
+    ``column``, ``check``, ``index``, ``failure_case``) in its order: missing required
+    columns, then per column in schema order the null cells, the repeated values
+    (all but the first) and each check's failing cells. Running the declared checks
+    directly keeps pandera the declaration of the rules while skipping the start-up
+    of its validation backends (which imports pandera's data-synthesis strategies).
+    Missing cells are skipped by the checks, as pandera's ``ignore_na`` does.
+    """
+    out = [{"column": None, "check": "column_in_dataframe", "index": None, "failure_case": name}
+           for name, col in schema.columns.items() if col.required and name not in frame.columns]
+    for name, col in schema.columns.items():
+        if name not in frame.columns:
+            continue
+        s = frame[name]
+        null = s.isna().to_numpy()
+
+        def add(mask: np.ndarray, check: str, s=s, name=name) -> None:
+            for i in np.flatnonzero(mask):
+                out.append({"column": name, "check": check, "index": s.index[i], "failure_case": s.iat[i]})
+
+        if not col.nullable:
+            add(null, "not_nullable")
+        if col.unique:
+            add(s.duplicated(keep="first").to_numpy() & ~null, "field_uniqueness")
+        present = s[~null] if null.any() else s
+        for check in col.checks:
+            ok = np.asarray(check._check_fn(present), dtype=bool)
+            bad = np.zeros(len(s), dtype=bool)
+            bad[np.flatnonzero(~null)[~ok]] = True
+            add(bad, check.name)
+    return out
+
+
+def _column_problems(table: RawTable, name: str) -> list[Problem]:
+    """Check a raw table against the pandera schema of *name*; one Problem per failure."""
     spec = read_schema("tables.toml")[name]["columns"]
     frame = table.frame
-    try:
-        _schema(name, frame).validate(frame, lazy=True)
+    fc = schema_failures(_schema(name), frame)
+    if not fc:
         return []
-    except pe.SchemaErrors as exc:
-        fc = exc.failure_cases
     probs: list[Problem] = []
     first_row: dict[tuple[str, str], int] = {}
-    for rec in fc.to_dict("records"):
+    for rec in fc:
         col, check, case, idx = rec.get("column"), str(rec.get("check")), rec.get("failure_case"), rec.get("index")
         if check == "column_in_dataframe":
             probs.append(Problem("error", table.file, None, str(case), None, "missing-column", f"required column {case!r} is missing", f"add a column named {case!r} ({spec.get(str(case), {}).get('description', '')})"))

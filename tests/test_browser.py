@@ -13,18 +13,18 @@ import shutil
 from pathlib import Path
 
 import pytest
-from support import DEMO
-
-from comparo.report import build_report
 
 CHROMIUM = next((p for p in ("/usr/bin/chromium", shutil.which("chromium") or "") if p and os.access(p, os.X_OK)), None)
 DRIVER = next((p for p in ("/usr/bin/chromedriver", shutil.which("chromedriver") or "") if p and os.access(p, os.X_OK)), None)
 
-pytestmark = pytest.mark.skipif(
-    CHROMIUM is None or DRIVER is None,
-    reason=f"headless browser check needs /usr/bin/chromium and /usr/bin/chromedriver (Debian packages chromium, "
-           f"chromium-driver); found chromium={CHROMIUM}, chromedriver={DRIVER}",
-)
+pytestmark = [
+    pytest.mark.skipif(
+        CHROMIUM is None or DRIVER is None,
+        reason=f"headless browser check needs /usr/bin/chromium and /usr/bin/chromedriver (Debian packages chromium, "
+               f"chromium-driver); found chromium={CHROMIUM}, chromedriver={DRIVER}",
+    ),
+    pytest.mark.xdist_group("demo_report"),  # on the worker that builds the shared demo report
+]
 
 FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync",
@@ -39,13 +39,11 @@ return Array.from(document.querySelectorAll('figure img')).map(function (im) {
 
 
 @pytest.fixture(scope="module")
-def report(tmp_path_factory) -> Path:
-    base = tmp_path_factory.mktemp("browser")
-    data = base / "demo"
-    shutil.copytree(DEMO, data)
-    res = build_report(data, base / "out", seed=3)
+def report(demo_report) -> Path:
+    """The shared demo report (tests/conftest.py), opened read-only."""
+    _, out, res = demo_report
     assert res.ok
-    return base / "out" / "report.html"
+    return out / "report.html"
 
 
 @pytest.fixture(scope="module")

@@ -204,3 +204,28 @@ def test_audit_report_notebook_views(tmp_path):
     assert html.count("<tr") == len(counts) + 1 and "balanced" in html
     assert list(rep.to_frame()["taxon"]) == sorted(rep.coverage)
     json.dumps(rep.to_dict())
+
+
+def test_standard_uncertainty_of_a_ci95_uses_student_t_with_n_minus_1():
+    """ci95 half-width / t(0.975, n - 1) (GUM G.3; quantile from scipy.stats, an independent
+    route from the scipy.special function comparo calls); 1.96 when n is unknown or below 2;
+    sd / sqrt(n); range_half / sqrt(3) (GUM 4.3.7)."""
+    import math
+
+    import pandas as pd
+    from scipy import stats
+
+    from comparo.curate import standard_uncertainty
+
+    u = pd.Series([2.0, 2.0, 2.0, 2.0, 3.0, 1.5])
+    kind = pd.Series(["ci95", "ci95", "ci95", "sd", "range_half", "se"])
+    n = pd.Series([5.0, None, 1.0, 4.0, None, None])
+    out = standard_uncertainty(u, kind, n)
+    assert out[0] == pytest.approx(2.0 / stats.t.ppf(0.975, 4), rel=1e-12)
+    assert out[1] == pytest.approx(2.0 / stats.norm.ppf(0.975), rel=1e-12)
+    assert out[2] == pytest.approx(2.0 / stats.norm.ppf(0.975), rel=1e-12)
+    assert out[3] == pytest.approx(1.0)
+    assert out[4] == pytest.approx(3.0 / math.sqrt(3.0))
+    assert out[5] == 1.5
+    no_n = standard_uncertainty(u[:2], kind[:2], pd.Series([None, None]))
+    assert no_n.tolist() == pytest.approx([2.0 / 1.959963984540054] * 2)

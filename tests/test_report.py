@@ -72,14 +72,15 @@ class _Collect(HTMLParser):
             self.table_id = None
 
 
+pytestmark = pytest.mark.xdist_group("demo_report")  # shares the demo report with test_browser.py
+
 @pytest.fixture(scope="module")
-def runs(tmp_path_factory):
+def runs(demo_report, tmp_path_factory):
+    """The shared demo report (seed 7) and a second run with the same seed, for byte identity."""
+    data, out1, first = demo_report
     base = tmp_path_factory.mktemp("report")
-    data = base / "demo"
-    shutil.copytree(DEMO, data)
-    first = build_report(data, base / "out1", seed=7)
     second = build_report(data, base / "out2", seed=7)
-    return data, base / "out1", base / "out2", first, second
+    return data, out1, base / "out2", first, second
 
 
 @pytest.fixture(scope="module")

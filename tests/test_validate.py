@@ -3,6 +3,7 @@ row and column a spreadsheet shows; bad files give exit 2 and one clear message.
 
 from __future__ import annotations
 
+import functools
 import json
 import string
 
@@ -282,3 +283,84 @@ def test_check_result_shows_itself_in_a_notebook(tiny):
     res = check(tiny)
     html = res._repr_html_()
     assert "<table" in html and res.summary().split(":")[-1].strip() in html
+
+
+# --- the declared pandera rules, run column-wise, against pandera's own lazy validation
+# (independent route: pandera's validation backends report the failure cases) ---------------
+
+_HOSTILE = ["", "abc", "2.5", "-1", "0", "1e400", "nan", "12 um", "±3", "zz", "sd", "ci95",
+            "9" * 20, "OBS0001", "measured", " 3", "<5", "1,5"]
+
+
+@functools.lru_cache(maxsize=1)
+def _demo_raw():
+    """The demo folder as read (once per test process; callers copy the frames they change)."""
+    from support import DEMO
+
+    from comparo.io import read_folder
+
+    return read_folder(DEMO)
+
+
+def _pandera_failures(schema, frame) -> list[tuple]:
+    import pandera.errors as pe
+
+    try:
+        schema.validate(frame, lazy=True)
+        return []
+    except pe.SchemaErrors as exc:
+        fc = exc.failure_cases
+    recs = []
+    for r in fc.to_dict("records"):
+        idx = r["index"]
+        recs.append((r["column"], str(r["check"]), None if idx is None else int(idx),
+                     None if r["failure_case"] is None else str(r["failure_case"])))
+    return recs
+
+
+def _ours(schema, frame) -> list[tuple]:
+    from comparo.validate import schema_failures
+
+    return [(r["column"], r["check"], None if r["index"] is None else int(r["index"]),
+             None if r["failure_case"] is None else str(r["failure_case"])) for r in schema_failures(schema, frame)]
+
+
+@settings(max_examples=25, deadline=None)
+@given(data=st.data())
+def test_schema_failures_match_pandera_validation(data):
+    """Random hostile cells and dropped columns in the demo's three tables: the same failure
+    cases as pandera's ``validate(lazy=True)``, as a multiset, and the same order per column."""
+    from comparo.validate import _schema
+
+    raw = _demo_raw()
+    for name, table in (("observations", raw.observations), ("sources", raw.sources), ("taxa", raw.taxa)):
+        frame = table.frame.copy()
+        n_bad = data.draw(st.integers(0, 12), label=f"{name} bad cells")
+        for _ in range(n_bad):
+            r = data.draw(st.integers(0, len(frame) - 1))
+            c = data.draw(st.sampled_from(list(frame.columns)))
+            frame.iat[r, frame.columns.get_loc(c)] = data.draw(st.sampled_from(_HOSTILE))
+        drop = data.draw(st.lists(st.sampled_from(list(frame.columns)), max_size=2, unique=True))
+        frame = frame.drop(columns=drop)
+        schema = _schema(name)
+        theirs, ours = _pandera_failures(schema, frame), _ours(schema, frame)
+        assert sorted(ours, key=repr) == sorted(theirs, key=repr)
+        for col in {c for c, *_ in theirs}:
+            assert [t for t in ours if t[0] == col] == [t for t in theirs if t[0] == col]
+
+
+def test_schema_failures_of_a_known_bad_table_match_pandera():
+    """Fixed case with one of each kind of failure, so the comparison above is never empty."""
+    from support import DEMO
+
+    from comparo.io import read_folder
+    from comparo.validate import _schema
+
+    frame = read_folder(DEMO).observations.frame.copy()
+    frame.loc[3, "value"], frame.loc[5, "value"], frame.loc[2, "n"] = "abc", "", "2.5"
+    frame.loc[7, "basis"], frame.loc[1, "obs_id"] = "zz", frame.loc[0, "obs_id"]
+    frame = frame.drop(columns=["source_id"])
+    schema = _schema("observations")
+    theirs = _pandera_failures(schema, frame)
+    assert len(theirs) == 6
+    assert sorted(_ours(schema, frame), key=repr) == sorted(theirs, key=repr)
