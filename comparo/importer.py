@@ -484,6 +484,8 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
     long = to_long(grid, columns, decimal_comma)
     src_table, src_name, src_bytes, stubs, sprobs = _sources(src, [r["source_id"] for r in long.records], grid)
     problems = long.problems + sprobs
+    if not long.records and not problems:
+        problems.append(Problem("error", grid.file, None, None, None, "no-values", f"no trait cell holds a value ({len(grid.rows)} data row(s))", "fill the trait columns, one row per taxon"))
     if problems or src_table is None:
         raise InputError(problems)
     extra = [c for c in LONG_COLUMNS[12:] if any(c in r for r in long.records)]

@@ -23,7 +23,7 @@ import pandas as pd
 
 from comparo.catalog import Catalog, load_catalog, read_schema
 from comparo.errors import InputError, Problem, problems_frame, problems_from_frame
-from comparo.io import RawDataset, RawTable, read_folder
+from comparo.io import RawDataset, RawTable, cell_coordinates, read_folder
 
 BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
 _MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
@@ -627,7 +627,7 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
         catalog = load_catalog()
     problems += _settings_problems(raw.settings, catalog)
     if raw.observations is None or raw.sources is None:
-        return None, problems
+        return None, cell_coordinates(raw, problems)
     problems += reserved_column_problems(raw, catalog)
     problems += _column_problems(raw.observations, "observations")
     problems += _column_problems(raw.sources, "sources")
@@ -661,7 +661,7 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
         if "accepted_name" in taxa:  # chains resolved to their end; names in a cycle stay unmapped
             taxa["accepted_name"] = [synonyms.get(t, "" if a != t else a) for t, a in zip(taxa["taxon"], taxa["accepted_name"], strict=True)]
     ds = Dataset(folder=raw.folder, observations=obs, sources=sources, taxa=taxa, tree=raw.tree, settings=raw.settings, catalog=catalog, problems=None, files=raw.files, tree_text=raw.tree_text)
-    return ds, problems
+    return ds, cell_coordinates(raw, problems)
 
 
 @dataclass(frozen=True)
