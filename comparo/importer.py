@@ -284,8 +284,9 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
                     out.problems.append(Problem("error", grid.file, rownum, tc.header, "", "taxon-missing", f"cell {grid.coordinate(i, tc.index)} is empty, but {coord} holds a value", "give the taxon name"))
                 continue
             rec = {"taxon": taxon, "quantity": c.key, "value": value, "unit": c.unit, "basis": copies.get("basis") or c.basis or "reported"}
-            src_col = per_key.get(("source", c.key)) or single["source"]
-            loc_col = per_key.get(("locator", c.key)) or single["locator"]
+            # a trait's own source or locator column; where its cell is empty, the row's
+            src_col = _filled(per_key.get(("source", c.key)), single["source"], lambda col, i=i: text(i, col))
+            loc_col = _filled(per_key.get(("locator", c.key)), single["locator"], lambda col, i=i: text(i, col))
             rec["source_id"] = text(i, src_col)
             if not rec["source_id"] and src_col is not None:
                 out.problems.append(Problem("error", grid.file, rownum, src_col.header, "", "source-missing", f"cell {grid.coordinate(i, src_col.index)} is empty, but {coord} holds a value", "give the source id of the value"))
@@ -322,6 +323,13 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
             out.records.append(rec)
             out.origin.append(origin)
     return out
+
+
+def _filled(own: Column | None, row: Column | None, text) -> Column | None:
+    """The trait's own column when its cell is filled (or there is no row column), else the row's."""
+    if own is None or (row is not None and not text(own)):
+        return row
+    return own
 
 
 # --------------------------------------------------------------------------- validation, in memory

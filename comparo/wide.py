@@ -453,6 +453,8 @@ def apply_map(columns: list[Column], mapping: dict[str, dict[str, str]], catalog
         elif role == "column" and key not in (*COPY_COLUMNS, "uncertainty_kind"):
             probs.append(_problem(map_file, "map-key", f"role 'column' copies into one of {', '.join(COPY_COLUMNS)}, uncertainty_kind; got {key!r}", row=row, column="key", value=key))
             new = replace(new, role="")
+        elif role == "taxa" and not key:
+            new = replace(new, key=normalise(split_unit(c.header)[0]).replace(" ", "_"))
         if new.basis and new.basis not in BASES:
             probs.append(_problem(map_file, "map-basis", f"basis {new.basis!r} is not one of {', '.join(BASES)}", row=row, column="basis", value=new.basis))
         out.append(new)

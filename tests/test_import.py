@@ -326,3 +326,16 @@ def test_hostile_options_exit_2_not_3(tmp_path: Path, case: str, capsys) -> None
         assert "F2" in err and "formula" in err
     if case == "map-bad-role":
         assert "speciez" in err and "Not a header" in err
+
+
+def test_trait_source_falls_back_to_the_row_source(tmp_path: Path) -> None:
+    rows = [["Species", "Source", "Body mass (g)", "Frequency (Hz)", "Frequency source", "Clade"],
+            ["Apis mellifera", "s1", "0.1", "230", "s2", "Apidae"], ["Bombus terrestris", "s1", "0.2", "150", "", "Apidae"]]
+    wide = write_text(tmp_path / "wide.csv", rows)
+    map_file = tmp_path / "m.csv"
+    map_file.write_text("header,role,key\nClade,taxa,\n", encoding="utf-8")  # key defaults to the header's name
+    out = imported(tmp_path, wide, "--map", map_file)
+    obs = pd.read_csv(out / "observations.csv").set_index(["taxon", "quantity"])
+    assert obs.loc[("Apis mellifera", "frequency_observed"), "source_id"] == "s2"
+    assert obs.loc[("Bombus terrestris", "frequency_observed"), "source_id"] == "s1"
+    assert pd.read_csv(out / "taxa.csv").columns.tolist() == ["taxon", "clade"]
