@@ -339,3 +339,29 @@ def test_trait_source_falls_back_to_the_row_source(tmp_path: Path) -> None:
     assert obs.loc[("Apis mellifera", "frequency_observed"), "source_id"] == "s2"
     assert obs.loc[("Bombus terrestris", "frequency_observed"), "source_id"] == "s1"
     assert pd.read_csv(out / "taxa.csv").columns.tolist() == ["taxon", "clade"]
+
+
+def test_demo_wide_companion_imports_to_the_demo_values(tmp_path: Path) -> None:
+    """The wide companion (demo_tables/make_wide.py, seeded) matches its generator, imports
+    cleanly with the demo's sources, and every imported value is, in canonical units, the
+    demo row it was laid out from (same taxon, quantity and source)."""
+    import importlib.util
+
+    from support import DEMO, ROOT
+
+    import comparo
+
+    spec = importlib.util.spec_from_file_location("make_wide", ROOT / "demo_tables" / "make_wide.py")
+    make_wide = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(make_wide)
+    assert make_wide.main(["--check"]) == 0
+    out = imported(tmp_path, ROOT / "demo_tables" / "synthetic_cyclers_wide.csv", "--sources", DEMO / "sources.csv")
+    assert run("check", out) == 0
+    got = comparo.load(out).observations
+    demo = comparo.load(DEMO).observations
+    demo = demo[demo["basis"] == "reported"].drop_duplicates(["taxon", "quantity_key", "source_id"])
+    ref = demo.set_index(["taxon", "quantity_key", "source_id"])["value_canonical"]
+    keys = list(zip(got["taxon"], got["quantity_key"], got["source_id"], strict=True))
+    assert len(keys) > 250
+    for k, v in zip(keys, got["value_canonical"], strict=True):
+        assert v == pytest.approx(ref[k], rel=1e-9), k  # the companion writes 10 significant digits
