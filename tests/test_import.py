@@ -365,3 +365,18 @@ def test_demo_wide_companion_imports_to_the_demo_values(tmp_path: Path) -> None:
     assert len(keys) > 250
     for k, v in zip(keys, got["value_canonical"], strict=True):
         assert v == pytest.approx(ref[k], rel=1e-9), k  # the companion writes 10 significant digits
+
+
+def test_json_result_lists_every_decision(tmp_path: Path, capsys) -> None:
+    import json
+
+    wide = write_text(tmp_path / "wide.csv", [HEADER, *ROWS])
+    assert run("import", wide, "-o", tmp_path / "out", "--format", "json") == 0
+    res = json.loads(capsys.readouterr().out)
+    assert res["observations"] == len(expected_canonical()) and res["rows_read"] == 3
+    by = {c["header"]: c for c in res["columns"]}
+    assert [c["header"] for c in res["columns"]] == HEADER
+    assert by["Fibre diameter [µm]"] == {"header": "Fibre diameter [µm]", "column": "H", "role": "value", "key": "fiber_diameter",
+                                         "unit": "µm", "basis": "", "how": "key"}
+    assert by["Body mass SD (mg)"]["role"] == "sd" and by["Body mass SD (mg)"]["key"] == "body_mass"
+    assert by["Young's modulus (MPa)"]["how"] == "synonym"
