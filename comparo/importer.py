@@ -35,7 +35,7 @@ from comparo.wide import (
 )
 
 NOT_STATED = "not stated"  # locator written when the wide table gives none
-STUB_CITATION = "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"
+STUB_CITATION = "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"  # check warns (citation-stub)
 LONG_COLUMNS = ("obs_id", "taxon", "quantity", "value", "unit", "uncertainty", "uncertainty_kind", "n", "source_id",
                 "locator", "basis", "temperature_c", "preparation", "muscle", "notes", "entered_by", "entered_on")
 _EMPTY_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}

@@ -413,8 +413,17 @@ def normalise_dois(s: pd.Series) -> pd.Series:
     return map_distinct(s.fillna("").astype(str), normalise_doi)
 
 
+STUB_CITATION_PREFIX = "NEEDS CITATION"  # how comparo import marks the stub sources it writes
+
+
 def _source_problems(raw: RawTable) -> list[Problem]:
     probs: list[Problem] = []
+    if "citation" in raw.frame:
+        stub = raw.frame["citation"].str.startswith(STUB_CITATION_PREFIX).to_numpy(dtype=bool)
+        for i in np.flatnonzero(stub):
+            probs.append(Problem("warning", raw.file, raw.rows[i], "citation", raw.frame["source_id"].iat[i] if "source_id" in raw.frame else "",
+                                 "citation-stub", "the citation is a stub written by comparo import",
+                                 "replace it with the full citation of the source"))
     if "doi" not in raw.frame:
         return probs
     doi = normalise_dois(raw.frame["doi"])

@@ -119,6 +119,10 @@ def test_csv_round_trip_gives_pint_values_in_canonical_units(tmp_path: Path) -> 
     assert wide.read_bytes() == before  # the input is never modified
     src = pd.read_csv(out / "sources.csv")
     assert sorted(src.source_id) == ["s1", "s2"] and src.citation.str.startswith("NEEDS CITATION").all()
+    import comparo
+
+    found = comparo.check(out).problems
+    assert sorted(found[found.rule == "citation-stub"].value) == ["s1", "s2"]  # a warning until replaced
 
 
 def test_tsv_with_bracket_units_and_other_spellings(tmp_path: Path) -> None:
