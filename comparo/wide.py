@@ -20,6 +20,7 @@ import difflib
 import io as _io
 import re
 from dataclasses import dataclass, field, replace
+from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -35,6 +36,7 @@ BASES = ("reported", "computed", "digitized", "proxy", "assumed")
 MAP_COLUMNS = ("header", "role", "key", "unit", "basis", "candidates")
 
 
+@lru_cache(maxsize=4096)
 def column_letter(index: int) -> str:
     """Spreadsheet letters of a 0-based column index (0 -> A, 26 -> AA)."""
     s, i = "", index + 1
