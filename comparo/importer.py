@@ -179,6 +179,12 @@ def _structure(grid: Grid, columns: list[Column]) -> list[Problem]:
 
     if not values:
         file_problem("no-trait-column", "no column holds a catalogue quantity", "headers such as 'Body mass (g)'; 'comparo units' lists the quantities")
+    for key, cols in values.items():
+        auto = [c for c in cols if c.how != "map file"]
+        if len(cols) > 1 and auto:
+            for c in auto:
+                probs.append(_header_problem(grid, c, "quantity-twice", f"{len(cols)} columns hold {key}: {', '.join(repr(x.header) for x in cols)}",
+                                             "if both are values of it, map each with role 'value' in the map file; else set role 'ignore' for one"))
     for role, what in (("taxon", "taxon (species) names"), ("source", "source ids"), ("locator", "locators"), ("temperature", "temperatures"), ("n", "sample sizes")):
         glob = [c for c in columns if c.role == role and not (role in ("source", "locator", "n") and c.key)]
         if role == "taxon" and not glob:

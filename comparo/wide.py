@@ -204,7 +204,7 @@ def _grid(file: str, cells: list[list[Any]]) -> tuple[Grid | None, list[Problem]
 def normalise(text: str) -> str:
     """A header or name for matching: case-folded, British spellings American
     (fibre -> fiber), apostrophes, dots and commas dropped, other punctuation a space."""
-    t = nfc(str(text)).casefold().replace("μ", "µ")
+    t = nfc(str(text)).casefold().replace("μ", "µ").replace("±", " pm ").replace("+/-", " pm ")
     t = re.sub(r"fibre", "fiber", t)
     t = re.sub(r"[’'`.,]", "", t)
     t = re.sub(r"[^0-9a-zµ]+", " ", t)
@@ -214,7 +214,7 @@ def normalise(text: str) -> str:
 # whole-header names of the long-format columns (normalised form)
 _ROLE_NAMES: dict[str, tuple[str, str]] = {}
 for _role, _key, _names in (
-    ("taxon", "", "taxon|taxa|species|species name|scientific name|binomial|organism|taxon name|name"),
+    ("taxon", "", "taxon|taxa|species|species name|scientific name|binomial|organism|taxon name"),
     ("source", "", "source|source id|sources|reference|references|ref|refs|citation|citation key|study|paper|source key"),
     ("locator", "", "locator|where|where in source|table|figure|fig|page|pages|table figure|table or figure|location in source"),
     ("temperature", "degC", "temperature c|temp c|t c"),
@@ -239,7 +239,7 @@ _SUFFIXES: list[tuple[str, str]] = sorted(
     + [(w, "se") for w in ("se", "sem", "standard error", "std error", "std err")]
     + [(w, "ci95") for w in ("ci95", "95 ci", "ci 95", "95 confidence interval")]
     + [(w, "range_half") for w in ("range half", "half range")]
-    + [(w, "?spread") for w in ("error", "err", "uncertainty", "spread")]
+    + [(w, "?spread") for w in ("error", "err", "uncertainty", "spread", "pm")]
     + [(w, "n") for w in ("n", "sample size")]
     + [(w, "source") for w in ("source", "ref", "reference")]
     + [(w, "locator") for w in ("locator", "where", "table", "figure", "fig", "page")],

@@ -384,3 +384,22 @@ def test_json_result_lists_every_decision(tmp_path: Path, capsys) -> None:
                                          "unit": "µm", "basis": "", "how": "key"}
     assert by["Body mass SD (mg)"]["role"] == "sd" and by["Body mass SD (mg)"]["key"] == "body_mass"
     assert by["Young's modulus (MPa)"]["how"] == "synonym"
+
+
+@pytest.mark.parametrize("spread", ["Body mass ± (g)", "Body mass +/- (g)", "Body mass error (g)"])
+def test_a_spread_of_unstated_kind_is_not_taken_for_values(tmp_path: Path, spread: str, capsys) -> None:
+    rows = [["Species", "Source", "Body mass (g)", spread], ["Apis mellifera", "s1", "0.1", "0.01"]]
+    assert run("import", write_text(tmp_path / "wide.csv", rows), "-o", tmp_path / "out") == 2
+    err = capsys.readouterr().err
+    assert "not which kind" in err and "sd:body_mass" in err
+
+
+def test_two_columns_of_one_quantity_need_a_decision(tmp_path: Path, capsys) -> None:
+    rows = [["Species", "Source", "Body mass (g)", "Mass (mg)"], ["Apis mellifera", "s1", "0.1", "100"]]
+    wide = write_text(tmp_path / "wide.csv", rows)
+    assert run("import", wide, "-o", tmp_path / "out") == 2
+    assert "2 columns hold body_mass" in capsys.readouterr().err
+    map_file = tmp_path / "m.csv"
+    map_file.write_text("header,role,key,unit\nBody mass (g),value,body_mass,g\nMass (mg),value,body_mass,mg\n", encoding="utf-8")
+    out = imported(tmp_path, wide, "--map", map_file)
+    assert len(pd.read_csv(out / "observations.csv")) == 2
