@@ -479,6 +479,10 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
         When *output* exists and is not empty (unless *overwrite*).
     """
 
+    from comparo.outputs import is_stdout
+
+    if is_stdout(output):
+        raise UsageError("comparo import writes a dataset folder: give its path with -o FOLDER (not standard output)")
     wide, out = Path(wide), Path(output)
     src = Path(sources) if sources else None
     mp = Path(map_file) if map_file else None

@@ -300,11 +300,18 @@ def test_hostile_wide_tables_exit_2_not_3(tmp_path: Path, case: str, capsys) -> 
     assert tree_hash(wide.parent) == before  # the input is never modified
 
 
-@pytest.mark.parametrize("case", ["broken-xlsx", "missing-sheet", "map-garbage", "map-bad-role", "missing-wide", "folder-as-wide", "formula-no-value"])
+@pytest.mark.parametrize("case", ["stdout", "output-is-a-file", "output-is-the-input", "broken-xlsx", "missing-sheet", "map-garbage", "map-bad-role", "missing-wide", "folder-as-wide", "formula-no-value"])
 def test_hostile_options_exit_2_not_3(tmp_path: Path, case: str, capsys) -> None:
     wide = write_xlsx(tmp_path / "wide.xlsx", [HEADER, *ROWS])
     args = ["import", wide, "-o", tmp_path / "out"]
-    if case == "broken-xlsx":
+    if case == "stdout":
+        args[3] = "-"
+    elif case == "output-is-a-file":
+        (tmp_path / "f").write_text("x")
+        args[3] = tmp_path / "f"
+    elif case == "output-is-the-input":
+        args[3] = wide
+    elif case == "broken-xlsx":
         (tmp_path / "bad.xlsx").write_bytes(b"PK\x03\x04 truncated")
         args[1] = tmp_path / "bad.xlsx"
     elif case == "missing-sheet":
@@ -326,6 +333,7 @@ def test_hostile_options_exit_2_not_3(tmp_path: Path, case: str, capsys) -> None
     assert run(*args) == 2
     err = capsys.readouterr().err
     assert err.strip() and "internal error" not in err
+    assert not Path("-").exists() and (tmp_path / "wide.xlsx").is_file()
     if case == "formula-no-value":
         assert "F2" in err and "formula" in err
     if case == "map-bad-role":
