@@ -184,3 +184,21 @@ def test_template_bad_requests_exit_2(tmp_path: Path, case: str, capsys) -> None
     captured = capsys.readouterr()
     assert "internal error" not in captured.err and captured.err.strip()
     assert not (tmp_path / "t.xlsx").exists() and not (ds / "t.xlsx").exists()
+
+
+def test_fit_reads_a_filled_template(template: Path, tmp_path: Path, capsys) -> None:
+    """OLS slope on log10 axes from the workbook equals numpy's least-squares polyfit of the same numbers."""
+    import json
+
+    import numpy as np
+
+    data = {"Apis mellifera": (100e-6, 230), "Bombus terrestris": (200e-6, 150), "Musca domestica": (12e-6, 190), "Vespa crabro": (500e-6, 120)}
+    rows = []
+    for i, (t, (m, f)) in enumerate(data.items()):
+        rows.append({"obs_id": f"m{i}", "taxon": t, "quantity": "body_mass", "value": m, "unit": "kg", "source_id": "s1", "locator": "T1", "basis": "reported"})
+        rows.append({"obs_id": f"f{i}", "taxon": t, "quantity": "frequency_observed", "value": f, "unit": "Hz", "source_id": "s1", "locator": "T1", "basis": "reported", "temperature_c": 25})
+    filled = fill(template, tmp_path / "filled.xlsx", rows, SOURCES)
+    assert run("fit", filled, "--x", "body_mass", "--y", "frequency_observed", "--method", "ols", "--format", "json") == 0
+    res = json.loads(capsys.readouterr().out)
+    x, y = np.log10([m for m, _ in data.values()]), np.log10([f for _, f in data.values()])
+    assert res["n"] == 4 and res["slope"] == pytest.approx(np.polyfit(x, y, 1)[0], rel=1e-9)
