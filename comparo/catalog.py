@@ -58,6 +58,7 @@ class Quantity:
     converts_to: str | None = None
     factor: float = 1.0
     origin: str = "catalogue"  # or "comparo.toml"
+    synonyms: tuple[str, ...] = ()  # other names a column header may use (``comparo import``)
 
     @property
     def is_time(self) -> bool:
@@ -67,12 +68,13 @@ class Quantity:
     def to_dict(self) -> dict[str, Any]:
         d = asdict(self)
         d["range"] = list(self.range) if self.range else None
+        d["synonyms"] = list(self.synonyms)
         return d
 
 
 _FIELDS = {
     "label", "unit", "kind", "range", "range_source", "temperature_sensitive", "q10",
-    "description", "converts_to", "factor",
+    "description", "converts_to", "factor", "synonyms",
 }
 
 
@@ -107,6 +109,9 @@ def _entry(key: str, raw: Mapping[str, Any], origin: str, file: str) -> tuple[Qu
         if not ok:
             bad("range", rng, "quantity-range", "range must be [low, high] with low < high")
             rng = None
+    syn = raw.get("synonyms", [])
+    if not isinstance(syn, list) or not all(isinstance(v, str) and v.strip() for v in syn):
+        bad("synonyms", syn, "quantity-synonyms", "synonyms must be a list of non-empty strings")
     if probs:
         return None, probs
     if kind is None:  # a user's own quantity may omit the kind: it is then read off the unit
@@ -127,6 +132,7 @@ def _entry(key: str, raw: Mapping[str, Any], origin: str, file: str) -> tuple[Qu
         converts_to=raw.get("converts_to"),
         factor=float(raw.get("factor", 1.0)),
         origin=origin,
+        synonyms=tuple(v.strip() for v in syn),
     )
     return q, probs
 

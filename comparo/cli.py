@@ -138,6 +138,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, default=20240601, help="random seed for resampling")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
+    p = sub.add_parser("import", help="a wide table (one column per trait, units in the headers) to a new dataset folder")
+    p.add_argument("wide", metavar="WIDE", help="wide table: .csv, .tsv or .xlsx (first sheet unless --sheet)")
+    p.add_argument("-o", "--output", metavar="FOLDER", required=True, help="dataset folder to write (new, or empty)")
+    p.set_defaults(output_kind="dataset")
+    p.add_argument("--sources", metavar="FILE", default=None, help="sources table to copy in (.csv, .tsv, .bib, .xlsx); default: stub rows needing a citation")
+    p.add_argument("--map", metavar="FILE", default=None, help="header decisions: a map CSV (header,role,key,unit,basis) or an earlier import.toml")
+    p.add_argument("--sheet", metavar="NAME", default=None, help="sheet of an .xlsx workbook (default: the first)")
+    p.add_argument("--decimal-comma", action="store_true", help="read ',' as the decimal mark (semicolon-delimited spreadsheet exports)")
+    p.add_argument("--overwrite", action="store_true", help="write into an existing non-empty folder, replacing the tables an import writes")
+    p.add_argument("--format", choices=["text", "json"], default="text")
+
+    p = sub.add_parser("template", help="an entry workbook (.xlsx) with drop-down lists from the catalogue")
+    _output_arg(p, "workbook to write (.xlsx)")
+    p.add_argument("--dataset", metavar="DS", default=None, help="also offer this dataset's own comparo.toml quantities")
+
     p = sub.add_parser("units", help="list the quantity catalogue with canonical units")
     p.add_argument("dataset", metavar="DATASET", nargs="?", default=None, help="include a dataset's own quantities")
     p.add_argument("--format", choices=["text", "csv", "json"], default="text", help="output format")

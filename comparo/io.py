@@ -50,6 +50,8 @@ class RawTable:
     rows: list[int]
     # cells not typed in Unicode NFC: NFC text -> {text as typed: [(column, row), ...]}
     respelled: dict[str, dict[str, list[tuple[str, int]]]] = field(default_factory=dict)
+    # workbook sheets: column name -> spreadsheet column letters (for cell coordinates, 'C7')
+    letters: dict[str, str] = field(default_factory=dict)
 
     def __len__(self) -> int:
         return len(self.frame)
@@ -305,9 +307,15 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
         return None, probs
     body = frame.iloc[first + 1:].reset_index(drop=True)
     body.columns = header
-    body = body.loc[:, [not (h.startswith("unnamed_") and (body[h] == "").all()) for h in header]]
+    keep = [not (h.startswith("unnamed_") and (body[h] == "").all()) for h in header]
+    body = body.loc[:, keep]
     rows = list(range(first + 2, first + 2 + len(body)))
-    return _finish(file, body, rows, probs)
+    table, probs = _finish(file, body, rows, probs)
+    from openpyxl.utils import get_column_letter
+
+    positions = [i for i, k in enumerate(keep) if k]
+    table.letters = {str(c): get_column_letter(i + 1) for c, i in zip(table.frame.columns, positions, strict=True)}
+    return table, probs
 
 
 def _excel_cell(v: Any) -> str:
@@ -618,6 +626,54 @@ def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Pat
     return None
 
 
+WORKBOOK_SHEETS = ("observations", "sources", "taxa")
+
+
+def read_workbook(path: Path) -> RawDataset:
+    """A whole dataset in one workbook (a filled entry template): sheets ``observations``
+    and ``sources``, and ``taxa`` when it holds rows. Messages name the sheet and cell."""
+    import openpyxl
+
+    raw = RawDataset(folder=path)
+    try:
+        book = openpyxl.load_workbook(path, read_only=True)
+        names = list(book.sheetnames)
+        book.close()
+    except Exception as exc:  # openpyxl raises many types for a broken workbook
+        raw.problems.append(_err(path.name, "xlsx-read", f"cannot open the workbook ({type(exc).__name__}: {exc})", "check that it is an .xlsx file (not .xls, or CSV renamed)"))
+        return raw
+    for sheet in WORKBOOK_SHEETS:
+        if sheet not in names:
+            if sheet != "taxa":
+                raw.problems.append(_err(path.name, "missing-sheet", f"the workbook has no sheet {sheet!r} (its sheets: {', '.join(names)})", "a dataset workbook holds the sheets observations and sources (comparo template writes one)"))
+            continue
+        table, p = read_excel_table(path, sheet)
+        if sheet == "taxa" and (table is None or len(table) == 0) and not any(x.severity == "error" and x.rule != "empty-file" for x in p):
+            continue  # an empty optional sheet: no taxa table
+        raw.problems += p
+        setattr(raw, sheet, table)
+        raw.files[sheet] = path
+    raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa) if t is not None])
+    return raw
+
+
+def cell_coordinates(raw: RawDataset, problems: list[Problem]) -> list[Problem]:
+    """Problems at a cell of a workbook sheet, with the cell's coordinates ('cell C7: ...')
+    put before the message."""
+    from dataclasses import replace
+
+    tables = {t.file: t.letters for t in (raw.observations, raw.sources, raw.taxa) if t is not None and t.letters}
+    if not tables:
+        return problems
+    out = []
+    for p in problems:
+        letter = tables.get(p.file, {}).get(p.column or "")
+        if letter and p.row is not None and not p.message.startswith("cell "):
+            p = replace(p, message=f"cell {letter}{p.row}: {p.message}")
+        out.append(p)
+    return out
+
+
 def read_folder(folder: str | Path) -> RawDataset:
     """Read every file of a dataset folder (no validation of the cells yet).
 
@@ -629,8 +685,10 @@ def read_folder(folder: str | Path) -> RawDataset:
     folder = Path(folder)
     if not folder.exists():
         raise InputError([_err(str(folder), "missing-folder", "dataset folder does not exist", "give the path of a folder holding observations.csv and sources.csv")])
+    if folder.is_file() and folder.suffix.lower() in (".xlsx", ".xlsm"):
+        return read_workbook(folder)
     if not folder.is_dir():
-        raise InputError([_err(str(folder), "not-a-folder", "expected a dataset folder, got a file", "give the folder that holds observations.csv and sources.csv")])
+        raise InputError([_err(str(folder), "not-a-folder", "expected a dataset folder (or a dataset workbook .xlsx), got a file", "give the folder that holds observations.csv and sources.csv")])
     raw = RawDataset(folder=folder)
     found = len(raw.problems)
     obs = _first(folder, OBSERVATION_NAMES, raw.problems)

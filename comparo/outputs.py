@@ -64,7 +64,9 @@ def guard_output(path: str | os.PathLike | None, *, kind: str = "file",
     Parameters
     ----------
     path : output given by the user (``None`` or ``-``: standard output, nothing to check).
-    kind : ``"file"`` or ``"dir"``: what the command will write there.
+    kind : ``"file"`` or ``"dir"``: what the command will write there; ``"dataset"``: a
+        folder that becomes a dataset (``comparo import``; the dataset-folder rule is left
+        to the command, which refuses any non-empty folder unless asked).
     inputs : the command's input paths (dataset folders, data or tree files).
 
     Raises
@@ -85,7 +87,9 @@ def guard_output(path: str | os.PathLike | None, *, kind: str = "file",
                              "comparo never writes into its inputs: choose a path outside it")
         if not src.is_dir() and out == src:
             raise UsageError(f"output {path} is the input file {given}; comparo never overwrites its inputs")
-    if kind == "dir" and out.is_dir() and any((out / t).exists() for t in _DATASET_TABLES):
+    if kind == "dataset":  # a command that writes a dataset folder checks what is in it itself
+        kind = "dir"
+    elif kind == "dir" and out.is_dir() and any((out / t).exists() for t in _DATASET_TABLES):
         raise UsageError(f"output folder {path} holds a dataset (an observations table); "
                          "results are not written into data folders: choose another folder")
     _check_kind(raw, out, kind, str(path))

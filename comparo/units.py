@@ -41,6 +41,26 @@ KIND_DIMENSIONS: dict[str, str] = {
     "energy_per_mol": "[mass] * [length] ** 2 / [time] ** 2 / [substance]",
 }
 
+# Units curators usually type, per kind (offered as choices in the entry workbook; any
+# other unit pint reads is still accepted). Written as users type them.
+USUAL_UNITS: dict[str, tuple[str, ...]] = {
+    "length": ("nm", "µm", "mm", "cm", "m"),
+    "area": ("nm²", "µm²", "m²"),
+    "volume": ("µm³", "mm³", "mL"),
+    "mass": ("µg", "mg", "g", "kg"),
+    "time": ("µs", "ms", "s", "min"),
+    "rate": ("1/s",),
+    "frequency": ("Hz", "kHz"),
+    "stress": ("Pa", "kPa", "MPa", "GPa"),
+    "viscosity": ("mPa·s", "Pa·s", "cP"),
+    "diffusivity": ("µm²/s", "mm²/s", "m²/s"),
+    "fraction": ("1", "%"),
+    "ratio": ("1",),
+    "count": ("1",),
+    "temperature": ("degC", "K"),
+    "energy_per_mol": ("kJ/mol",),
+}
+
 _SUPERSCRIPTS = str.maketrans({"²": "**2", "³": "**3", "¹": "**1"})
 _WORDS_DIMENSIONLESS = {"1", "-", "dimensionless", "fraction", "ratio", "unitless", "none", "count"}
 
@@ -195,6 +215,16 @@ def conversion_factor(unit: str, canonical: str) -> float:
 def same_dimension(unit: str, canonical: str) -> bool:
     """True when *unit* and *canonical* measure the same kind of thing."""
     return parse_unit(unit).dimensionality == parse_unit(canonical).dimensionality
+
+
+def usual_units(kinds) -> list[str]:
+    """The usual units (:data:`USUAL_UNITS`) of the given kinds, in order, without repeats."""
+    out: list[str] = []
+    for k in kinds:
+        for u in USUAL_UNITS.get(k, ()):
+            if u not in out:
+                out.append(u)
+    return out
 
 
 def pretty(unit: str) -> str:

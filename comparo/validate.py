@@ -24,7 +24,7 @@ import pandas as pd
 
 from comparo.catalog import Catalog, load_catalog, read_schema
 from comparo.errors import InputError, Problem, problems_frame, problems_from_frame
-from comparo.io import RawDataset, RawTable, read_folder
+from comparo.io import RawDataset, RawTable, cell_coordinates, read_folder
 
 BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
 _MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
@@ -500,8 +500,17 @@ def normalise_dois(s: pd.Series) -> pd.Series:
     return map_distinct(s.fillna("").astype(str), normalise_doi)
 
 
+STUB_CITATION_PREFIX = "NEEDS CITATION"  # how comparo import marks the stub sources it writes
+
+
 def _source_problems(raw: RawTable) -> list[Problem]:
     probs: list[Problem] = []
+    if "citation" in raw.frame:
+        stub = raw.frame["citation"].str.startswith(STUB_CITATION_PREFIX).to_numpy(dtype=bool)
+        for i in np.flatnonzero(stub):
+            probs.append(Problem("warning", raw.file, raw.rows[i], "citation", raw.frame["source_id"].iat[i] if "source_id" in raw.frame else "",
+                                 "citation-stub", "the citation is a stub written by comparo import",
+                                 "replace it with the full citation of the source"))
     if "doi" not in raw.frame:
         return probs
     doi = normalise_dois(raw.frame["doi"])
@@ -714,7 +723,7 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
         catalog = load_catalog()
     problems += _settings_problems(raw.settings, catalog)
     if raw.observations is None or raw.sources is None:
-        return None, problems
+        return None, cell_coordinates(raw, problems)
     problems += reserved_column_problems(raw, catalog)
     problems += _column_problems(raw.observations, "observations")
     problems += _column_problems(raw.sources, "sources")
@@ -748,7 +757,7 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
         if "accepted_name" in taxa:  # chains resolved to their end; names in a cycle stay unmapped
             taxa["accepted_name"] = [synonyms.get(t, "" if a != t else a) for t, a in zip(taxa["taxon"], taxa["accepted_name"], strict=True)]
     ds = Dataset(folder=raw.folder, observations=obs, sources=sources, taxa=taxa, tree=raw.tree, settings=raw.settings, catalog=catalog, problems=None, files=raw.files, tree_text=raw.tree_text)
-    return ds, problems
+    return ds, cell_coordinates(raw, problems)
 
 
 @dataclass(frozen=True)

@@ -9,8 +9,14 @@ from comparo.errors import UsageError
 from comparo.outputs import dumps, emit
 
 
+def is_dataset(data: str) -> bool:
+    """A dataset folder, or a dataset workbook (.xlsx with observations and sources sheets)."""
+    path = Path(data)
+    return path.is_dir() or (path.is_file() and path.suffix.lower() in (".xlsx", ".xlsm"))
+
+
 def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True, say: bool = True):
-    """A per-taxon table from a dataset folder, or a plain CSV read as it is.
+    """A per-taxon table from a dataset folder or workbook, or a plain CSV read as it is.
 
     A plain CSV without the label column names its points by its first column when
     that holds distinct text (copied as the label column), else by CSV line; a note
@@ -19,7 +25,7 @@ def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True, sa
     import pandas as pd
 
     path = Path(data)
-    if path.is_dir():
+    if is_dataset(data):
         from comparo.curate import per_taxon
         from comparo.dataset import load
 
@@ -164,7 +170,7 @@ def run_sensitivity(args) -> int:
     from comparo.reliance import sensitivity, sensitivity_by_group, with_sensitivity
 
     pgls = _pgls_options(args) if args.method == "pgls" else {}
-    if Path(args.data).is_dir():
+    if is_dataset(args.data):
         from comparo.dataset import load
 
         data = load(args.data)

@@ -1,0 +1,20 @@
+"""``comparo import WIDE -o FOLDER``: a wide table (one column per trait) to a dataset folder."""
+
+from __future__ import annotations
+
+import sys
+
+
+def run(args) -> int:
+    from comparo.importer import import_wide
+    from comparo.outputs import dumps
+
+    res = import_wide(args.wide, args.output, sources=args.sources, map_file=args.map, sheet=args.sheet,
+                      decimal_comma=args.decimal_comma, overwrite=args.overwrite)
+    for p in res.warnings:
+        print(p.line(), file=sys.stderr)
+    if args.format == "json":
+        print(dumps(res.to_dict()))
+    else:
+        print(res.summary())
+    return 0
