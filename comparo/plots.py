@@ -17,6 +17,8 @@ Okabe M, Ito K (2002). Color Universal Design (CUD): how to make figures and
 presentations that are friendly to colorblind people. J*FLY Data Depository.
 Cook RD (1977). Detection of influential observation in linear regression.
 Technometrics 19: 15-18.
+Blom G (1958). Statistical Estimates and Transformed Beta-Variables. Wiley
+(plotting positions (i - 3/8)/(n + 1/4) of the normal QQ plot).
 """
 
 from __future__ import annotations
@@ -207,48 +209,96 @@ def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] |
     return fig
 
 
-def diagnostics(points: pd.DataFrame, *, title: str = "") -> Figure:
-    """Residual against fitted, normal QQ, and leverage against Cook's distance.
+#: Residual kinds of :class:`comparo.flags.FlagReport`, as the figure names them.
+RESIDUAL_NAMES = {"ols": "least-squares residuals of y on x (fitted scale)",
+                  "whitened": "phylogenetically whitened residuals (PGLS)"}
+#: At most this many flagged points are named in the diagnostics figure (all are coloured).
+DIAGNOSTIC_LABELS = 15
 
-    Leverage is that of x in a straight-line fit, h_i = 1/n + (x_i - x̄)²/Σ(x - x̄)²;
-    Cook's distance D_i = e_i² h_i / (p s² (1 - h_i)²) with p = 2 and
-    s² = Σe²/(n - 2) (Cook 1977), from the residuals of the fitted line.
+
+def diagnostics(report: Any, *, title: str = "") -> Figure:
+    """Studentized residual against fitted value, its normal QQ plot, and leverage against
+    Cook's distance, drawn from the statistics and cut-offs of a flag report.
+
+    Parameters
+    ----------
+    report : comparo.flags.FlagReport
+        Its ``table`` (fitted, studentized, leverage, cooks_d per point), ``cuts`` and
+        ``flags``: the figure shows exactly the statistics the flags test, the cut-offs
+        they use, and marks exactly the flagged points (vermillion; named up to
+        :data:`DIAGNOSTIC_LABELS`).
+
+    Notes
+    -----
+    For SVG readers: every named point is a text with ``gid="flag-label:<label>"``, every
+    cut-off line has ``gid="cut:<name>:<value>"`` (value as Python ``repr``).
     """
+    import pandas as pd
     from scipy import stats
 
-    fig, axes = _figure(9.6, 3.4, ncols=3)
-    x = points["x_fit"].to_numpy(float)
-    e = points["residual"].to_numpy(float)
-    fitted = points["fitted"].to_numpy(float)
-    n = len(x)
+    t = pd.DataFrame(list(report.table))
+    cuts = report.cuts
+    flagged = list(dict.fromkeys(f.label for f in report.flags))
+    mark = t["label"].isin(flagged).to_numpy()
+    fig, axes = _figure(10.4, 4.0, ncols=3)
+    stud, fitted = t["studentized"].to_numpy(float), t["fitted"].to_numpy(float)
+    lev, cook = t["leverage"].to_numpy(float), t["cooks_d"].to_numpy(float)
+    scale = "fitted value a + b x (log scale of y)"
+
+    def dots(ax, xs, ys):
+        ax.plot(xs[~mark], ys[~mark], ls="", marker="o", color=PALETTE[0])
+        if mark.any():
+            ax.plot(xs[mark], ys[mark], ls="", marker="o", color=PALETTE[3], label=f"flagged ({len(flagged)})")
+
     ax = axes[0]
     ax.axhline(0, color="#777777", lw=0.8)
-    ax.plot(fitted, e, ls="", marker="o", color=PALETTE[0])
-    ax.set_xlabel("fitted value (log scale of y)")
-    ax.set_ylabel("residual (log scale of y)")
+    bc = cuts["bonferroni"]
+    for sign in (1, -1):
+        ax.axhline(sign * bc, color="#777777", lw=0.8, ls="--", gid=f"cut:bonferroni:{bc!r}",
+                   label=f"Bonferroni cut ±{bc:.3g}" if sign > 0 else None)
+    dots(ax, fitted, stud)
+    ax.set_xlabel(scale)
+    ax.set_ylabel("studentized residual (dimensionless)")
     ax.set_title("residual against fitted")
     ax = axes[1]
-    (osm, osr), (slope, icpt, _) = stats.probplot(e, dist="norm")
-    ax.plot(osm, osr, ls="", marker="o", color=PALETTE[0])
-    ax.plot(osm, icpt + slope * osm, color="#000000", lw=1)
+    order = np.argsort(stud)
+    q = stats.norm.ppf((np.arange(1, len(stud) + 1) - 0.375) / (len(stud) + 0.25))  # Blom (1958) positions
+    ax.plot(q, q, color="#000000", lw=1)
+    ax.plot(q[~mark[order]], stud[order][~mark[order]], ls="", marker="o", color=PALETTE[0])
+    ax.plot(q[mark[order]], stud[order][mark[order]], ls="", marker="o", color=PALETTE[3])
     ax.set_xlabel("normal quantile (standard units)")
-    ax.set_ylabel("ordered residual (log scale of y)")
+    ax.set_ylabel("ordered studentized residual")
     ax.set_title("normal QQ")
     ax = axes[2]
-    dx = x - x.mean()
-    h = 1.0 / n + dx * dx / (dx * dx).sum()
-    s2 = (e * e).sum() / max(n - 2, 1)
-    cook = e * e * h / (2 * s2 * (1 - h) ** 2)
-    ax.plot(h, cook, ls="", marker="o", color=PALETTE[3])
-    ax.axhline(4 / n, color="#777777", lw=0.8, ls=":", label="4/n")
-    for i in np.argsort(-cook)[: min(3, n)]:
-        ax.annotate(short(points["label"].iat[i]), (h[i], cook[i]), xytext=(3, 3), textcoords="offset points", fontsize=7)
+    dots(ax, lev, cook)
+    c4, cf, cl = cuts["cooks_4n"], cuts["cooks_f"], cuts["leverage"]
+    ax.axhline(c4, color="#777777", lw=0.8, ls=":", gid=f"cut:cooks_4n:{c4!r}", label=f"Cook's D 4/n = {c4:.3g}")
+    ax.axvline(cl, color="#777777", lw=0.8, ls="--", gid=f"cut:leverage:{cl!r}", label=f"leverage 2p/n = {cl:.3g}")
+    top = max(float(np.nanmax(cook)) if len(cook) else 0.0, c4) * 1.15
+    if cf <= top:
+        ax.axhline(cf, color="#000000", lw=0.8, ls=":", gid=f"cut:cooks_f:{cf!r}", label=f"Cook's D F(0.5) = {cf:.3g}")
+    else:  # the stronger cut lies above every point: named, not drawn (it would flatten the panel)
+        ax.plot([], [], ls="", gid=f"cut:cooks_f:{cf!r}", label=f"Cook's D F(0.5) = {cf:.3g} (above the panel)")
+    named = [i for i in np.argsort(-cook) if mark[i]][:DIAGNOSTIC_LABELS]
+    span_x = float(np.ptp(lev)) or 1.0
+    span_y = max(float(np.ptp(cook)), c4) or 1.0
+    placed: list[tuple[float, float]] = []
+    for i in named:  # a label near an earlier one moves down a line (no overlapping names)
+        near = sum(abs(lev[i] - px) < 0.3 * span_x and abs(cook[i] - py) < 0.06 * span_y for px, py in placed)
+        placed.append((lev[i], cook[i]))
+        ax.annotate(short(t["label"].iat[i], 24), (lev[i], cook[i]), xytext=(3, 3 - 8 * near), textcoords="offset points",
+                    fontsize=6.5, gid=f"flag-label:{t['label'].iat[i]}")
     ax.set_xlabel("leverage h (dimensionless)")
     ax.set_ylabel("Cook's distance (dimensionless)")
     ax.set_title("leverage and influence")
-    ax.legend(frameon=False)
-    if title:
-        fig.suptitle(title)
+    handles, names = [], []
+    for a in axes:
+        for hd, nm in zip(*a.get_legend_handles_labels(), strict=True):
+            if nm not in names:
+                handles.append(hd)
+                names.append(nm)
+    fig.legend(handles, names, loc="outside lower center", ncols=min(len(names), 5), frameon=False, fontsize=7.5)
+    fig.suptitle((title + ": " if title else "") + RESIDUAL_NAMES.get(report.residuals, report.residuals), fontsize=10)
     return fig
 
 

@@ -281,8 +281,17 @@ with their confidence intervals and tests for a common slope, elevation and shif
 <li>Phylogenetic generalised least squares (Grafen A 1989, The phylogenetic regression, Philosophical Transactions of
 the Royal Society B 326: 119-157) with Pagel's lambda (Pagel M 1999, Inferring the historical patterns of biological
 evolution, Nature 401: 877-884), estimated by maximum likelihood with a profile-likelihood interval.</li>
-<li>Influence: leverage and Cook's distance (Cook RD 1977, Detection of influential observation in linear regression,
-Technometrics 19: 15-18); points above 4/n are flagged (common practice).</li>
+<li>Flags (never removed from a fit): externally studentized residual beyond the Bonferroni cut
+t(1 - 0.05/(2n); n - 3) (Cook RD, Weisberg S 1982, Residuals and Influence in Regression, Chapman &amp; Hall); leverage above
+2p/n (Hoaglin DC, Welsch RE 1978, The hat matrix in regression and ANOVA, The American Statistician 32: 17-22); Cook's
+distance above F(0.5; p, n - p) or, weaker, above 4/n (Cook RD 1977, Detection of influential observation in linear
+regression, Technometrics 19: 15-18; 4/n is common practice), with p = 2. For OLS, SMA, MA, robust and LTS fits these
+statistics are those of the least-squares line of y on x on the fitted scale (leverage and Cook's distance are defined
+for least squares; the SMA or MA line of the scaling plot is not the line they refer to). For PGLS they are those of
+the phylogenetically whitened regression: both sides multiplied by C(λ)^(-1/2), the symmetric inverse square root of the
+fitted Pagel-λ covariance, whose least-squares fit is the PGLS fit (normalised residuals, Pinheiro JC, Bates DM 2000,
+Mixed-Effects Models in S and S-PLUS, Springer). The diagnostics figure of each fit draws the same statistics, the same
+cut-offs, and marks the same taxa as the flags table.</li>
 <li>Band of a line in the figures: pointwise percentile bootstrap of the OLS, SMA or MA line from resampled pairs
 (Efron B, Tibshirani RJ 1993, An Introduction to the Bootstrap, Chapman &amp; Hall), seeded; no band is drawn for other methods.</li>
 <li>Derived time scales: poroelastic time l²·η/(k·M) and kinetic time 1/(f + g) with frequency bounds, the hydraulic
@@ -424,7 +433,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
 
     analyses, origin = _analyses(settings, data)
     fits: list[dict] = []
-    fit_frames, flag_rows, point_frames = [], [], []
+    fit_frames, flag_rows, point_frames, diag_frames = [], [], [], []
     sections = []
     labels = _tree_labels(ds)
     tree_drawn, tree_notes = False, {}
@@ -449,21 +458,30 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
             rec["error"] = str(exc)
             fits.append(rec)
             continue
+        pts = fit_points(res, data, a["x"], a["y"], by)
+        res, frep = _flag_report(res, pts, opts, aid, notes)
         rec["result"] = res.to_dict()
         fits.append(rec)
         frame = res.to_frame()
         frame.insert(0, "analysis", aid)
         fit_frames.append(frame)
-        for o in res.outliers:
-            flag_rows.append({"analysis": aid, "label": o["label"], "kind": "flag", "reason": o["reason"], "statistic": o.get("statistic")})
+        kind = "" if frep is None else plots.RESIDUAL_NAMES[frep.residuals]
+        for f in frep.flags if frep is not None else ():
+            flag_rows.append({"analysis": aid, "label": f.label, "kind": "flag", "rule": f.rule, "reason": f.reason,
+                              "statistic": float(f.statistic), "residuals": kind})
         for e in res.excluded:
-            flag_rows.append({"analysis": aid, "label": e["label"], "kind": "excluded", "reason": e["reason"], "statistic": None})
-        pts = fit_points(res, data, a["x"], a["y"], by)
+            flag_rows.append({"analysis": aid, "label": e["label"], "kind": "excluded", "rule": "", "reason": e["reason"],
+                              "statistic": None, "residuals": ""})
         pf = pts.copy()
         pf.insert(0, "analysis", aid)
         point_frames.append(pf)
         figures[f"{aid}_scaling"] = plots.render(plots.scaling_plot(res, pts, catalog=ds.catalog, by=by, seed=seed))
-        figures[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(pts, title=f"{aid}: residual diagnostics"))
+        if frep is not None:
+            diag = frep.to_frame()
+            diag.insert(0, "analysis", aid)
+            diag.insert(1, "residuals", kind)
+            diag_frames.append(diag)
+            figures[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(frep, title=aid))
         if method == "pgls" and res.lambda_ is not None and res.loglik is not None:
             figures[f"{aid}_lambda"] = plots.render(_lambda_figure(res, data, a, by, opts, aid))
         if ds.tree is not None and (method == "pgls" or (not tree_drawn and not any_pgls)):
@@ -475,9 +493,11 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
         sections.append((aid, res, frame, pts, a, opts))
 
     fits_frame = pd.concat(fit_frames, ignore_index=True) if fit_frames else pd.DataFrame()
-    flags_frame = pd.DataFrame(flag_rows, columns=["analysis", "label", "kind", "reason", "statistic"])
+    flags_frame = pd.DataFrame(flag_rows, columns=["analysis", "label", "kind", "rule", "reason", "statistic", "residuals"])
     points_frame = pd.concat(point_frames, ignore_index=True) if point_frames else pd.DataFrame()
-    tables |= {"fits": to_csv(fits_frame), "flags": to_csv(flags_frame), "points": to_csv(points_frame)}
+    diag_frame = pd.concat(diag_frames, ignore_index=True) if diag_frames else pd.DataFrame()
+    tables |= {"fits": to_csv(fits_frame), "flags": to_csv(flags_frame), "points": to_csv(points_frame),
+               "diagnostics": to_csv(diag_frame)}
 
     steps.step("sensitivity: sources, bases, taxa, measurement error")
     sens: dict[str, dict] = {}
@@ -534,6 +554,47 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
                         tables=tuple(f"tables/{n}.csv" for n in tables) + ("tables/fits.json", "tables/sensitivity.json"),
                         fits=tuple(fits), notes=tuple(notes),
                         sensitivity=tuple({"id": k, "verdict": v["result"].verdict} for k, v in sens.items()))
+
+
+def _flag_report(res, pts, opts: dict, aid: str, notes: list[str]):
+    """(result, FlagReport or None): the flags the figure and the flags table share.
+
+    For least-squares-type fits the flags are those the fit computed (checked equal); a
+    PGLS fit gets the flags of its whitened regression, set as its ``outliers``.
+    """
+    from dataclasses import replace
+
+    from comparo.flags import fit_flags
+
+    try:
+        frep = fit_flags(res, pts, tree=opts.get("tree"), tree_labels=opts.get("tree_labels"))
+    except ValueError as exc:
+        notes.append(f"{aid}: no outlier or influence flags and no diagnostics figure: {exc}")
+        return res, None
+    found = [f.to_dict() for f in frep.flags]
+    if res.method == "pgls":
+        return replace(res, outliers=found), frep
+    if [(o["label"], o["reason"]) for o in res.outliers] != [(o["label"], o["reason"]) for o in found]:
+        notes.append(f"{aid}: the flags recomputed from the plotted points differ from the fit's flags")
+    return res, frep
+
+
+def _diagnostics_caption(res, flags_frame, aid: str) -> str:
+    """The words under a diagnostics figure: which residuals, which cut-offs, which taxa are marked."""
+    fl = flags_frame[(flags_frame["analysis"] == aid) & (flags_frame["kind"] == "flag")]
+    marked = list(dict.fromkeys(fl["label"]))
+    if res.method == "pgls":
+        what = ("Phylogenetically whitened residuals: the PGLS regression multiplied on both sides by C(λ)^(-1/2) at "
+                f"λ = {_num(res.lambda_, 3)}; its least-squares fit is the PGLS line.")
+    else:
+        what = ("Residuals, leverage and Cook's distance of the least-squares line of y on x on the fitted scale"
+                + (f" (the {res.method.upper()} line of the scaling plot is not the line these statistics refer to)."
+                   if res.method != "ols" else "."))
+    cuts = ("Dashed: Bonferroni cut of the studentized residual and leverage 2p/n; dotted: Cook's distance 4/n and "
+            "F(0.5; 2, n - 2).")
+    who = (f"Marked in vermillion, as in the flags table: {', '.join(marked)}." if marked
+           else "No taxon breaks a rule; none is marked.")
+    return f"{what} {cuts} {who}"
 
 
 def _slope_label(res) -> str:
@@ -716,10 +777,10 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
         parts.append(_img(figures[f"{aid}_scaling"][0], f"scaling plot {aid}"))
         parts.append(f"<pre>{_e(res.summary())}</pre>")
         parts.append(_table(frame))
-        parts.append(_img(figures[f"{aid}_diagnostics"][0], f"residual diagnostics {aid}"))
+        if f"{aid}_diagnostics" in figures:
+            parts.append(_img(figures[f"{aid}_diagnostics"][0], f"residual diagnostics {aid}"))
+            parts.append(f"<p>{_e(_diagnostics_caption(res, flags_frame, aid))}</p>")
         if res.method == "pgls":
-            parts.append("<p>Residuals of the PGLS line are the ordinary residuals y - (a + b x), not the "
-                         "phylogenetically transformed ones.</p>")
             if f"{aid}_lambda" in figures:
                 parts.append(_img(figures[f"{aid}_lambda"][0], f"lambda profile {aid}"))
                 parts.append(f"<p>Profile: the same PGLS refitted at fixed lambda = {', '.join(f'{v:g}' for v in LAMBDA_GRID)}.</p>")

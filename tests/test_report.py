@@ -236,3 +236,46 @@ def test_invalid_dataset_renders_an_error_page_and_exits_2(tmp_path, capsys):
     html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
     assert "validation failed" in html and "guessed" in html
     assert "error" in capsys.readouterr().err
+
+
+def test_diagnostics_figure_marks_exactly_the_flagged_taxa_at_the_cuts_used(runs):
+    """For every fit (SMA with groups, SMA, PGLS): the taxa named in the drawn diagnostics figure (its SVG,
+    gid "flag-label:...") are exactly the taxa of tables/flags.csv flagged for that fit; the cut-off lines drawn
+    (gid "cut:NAME:VALUE") are the cut-offs written in the flags' reasons and equal the textbook values recomputed
+    here from n: 4/n and 2p/n (common practice; Hoaglin & Welsch 1978), t(1 - 0.05/(2n); n - 3) (Bonferroni,
+    Cook & Weisberg 1982) and F(0.5; 2, n - 2) (Cook 1977), via scipy.stats. The HTML caption names the same taxa
+    and the fit's summary never says "flags: none" beside a figure that marks taxa."""
+    import re
+
+    from scipy import stats
+
+    out = runs[1]
+    flags = pd.read_csv(out / "tables" / "flags.csv")
+    html_text = (out / "report.html").read_text(encoding="utf-8")
+    fits = {f["id"]: f for f in json.loads((out / "tables" / "fits.json").read_text()) if "result" in f}
+    methods = set()
+    for aid, f in fits.items():
+        svg = (out / "figures" / f"{aid}_diagnostics.svg").read_text(encoding="utf-8")
+        drawn = set(re.findall(r'id="flag-label:([^"]+)"', svg))
+        flagged = set(flags.loc[(flags["analysis"] == aid) & (flags["kind"] == "flag"), "label"])
+        assert drawn == flagged, aid
+        assert {o["label"] for o in f["result"]["outliers"]} == flagged, aid
+        n = f["result"]["n"]
+        cuts = {k: float(v) for k, v in re.findall(r'id="cut:([a-z_0-9]+):([^"]+)"', svg)}
+        assert cuts["cooks_4n"] == pytest.approx(4 / n, rel=1e-12)
+        assert cuts["leverage"] == pytest.approx(4 / n, rel=1e-12)
+        assert cuts["bonferroni"] == pytest.approx(stats.t.ppf(1 - 0.05 / (2 * n), n - 3), rel=1e-12)
+        assert cuts["cooks_f"] == pytest.approx(stats.f.ppf(0.5, 2, n - 2), rel=1e-12)
+        for reason in flags.loc[(flags["analysis"] == aid) & (flags["kind"] == "flag"), "reason"]:
+            value = float(re.search(r"= ([0-9.]+)$|cut ([0-9.]+)", reason).group(0).split()[-1])
+            assert any(abs(value - c) < 1e-4 for c in cuts.values()), (aid, reason)
+        section = html_text.split(f'<h3 id="{aid}">', 1)[1].split("<h3", 1)[0]
+        for lab in flagged:
+            assert lab in section.split("residual diagnostics", 1)[1], (aid, lab)
+        if flagged:
+            assert "flags: none" not in section
+        methods.add(f["method"])
+        kinds = set(flags.loc[(flags["analysis"] == aid) & (flags["kind"] == "flag"), "residuals"])
+        assert kinds <= {"phylogenetically whitened residuals (PGLS)" if f["method"] == "pgls"
+                         else "least-squares residuals of y on x (fitted scale)"}
+    assert {"sma", "pgls"} <= methods
