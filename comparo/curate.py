@@ -471,9 +471,10 @@ def gate_problems(ds: Dataset) -> list[Problem]:
 
 def _gate_hooks() -> list:
     """The gate's checks, imported when ``check`` runs (one line per step)."""
+    from comparo.config import settings_problems
     from comparo.phylo import tree_problems
 
-    hooks: list = [tree_problems]
+    hooks: list = [settings_problems, tree_problems]
     return hooks
 
 

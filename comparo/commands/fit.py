@@ -106,6 +106,7 @@ def run_sensitivity(args) -> int:
     ``"sensitivity"`` also holds ``"by_group"``; CSV: a ``group`` column; see
     docs/sensitivity.md).
     """
+    from comparo.bounds import check_draws
     from comparo.sensitivity import sensitivity, sensitivity_by_group, with_sensitivity
 
     pgls = _pgls_options(args) if args.method == "pgls" else {}
@@ -115,8 +116,9 @@ def run_sensitivity(args) -> int:
         data = load(args.data)
     else:
         data = read_table(args.data, args.taxon_col)
-    if args.mc < 0:
-        raise UsageError(f"--mc must be 0 or a positive number of draws (got {args.mc})")
+    obs = getattr(data, "observations", data)
+    n_taxa = obs[args.taxon_col].nunique() if args.taxon_col in obs else len(obs)
+    check_draws(args.mc, int(n_taxa), args.method, "--mc")
     progress = sys.stderr.isatty()
     opts = dict(test_slope=args.test_slope, ci=args.ci, log=args.log, mc=args.mc, seed=args.seed, progress=progress,
                 temperature=not args.no_temperature, taxon_col=args.taxon_col, **pgls)

@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from comparo.report import pieces, render
-from comparo.report.result import DEFAULT_ANALYSES, SENSITIVITY_DRAWS, ReportResult
+from comparo.report.result import SENSITIVITY_DRAWS, ReportResult
 
 
 def _sha256(path: Path) -> str:
@@ -37,15 +37,16 @@ def package_versions() -> dict[str, str]:
     return out
 
 
-def analyses(settings: dict, table, catalog=None) -> tuple[list[dict], str, list[str]]:
-    """The fits to run, where they come from, and the defaults used in words.
+def analyses(settings: dict, table, catalog=None, taxa_columns: set[str] | None = None) -> tuple[list[dict], str, list[str]]:
+    """The fits to run (:func:`comparo.config.analyses`), where they come from, and the defaults used in words.
 
     Without ``[[analysis]]`` in comparo.toml: :data:`DEFAULT_ANALYSES` whose columns exist.
     """
-    declared = settings.get("analysis") or []
-    if declared:
-        return [dict(a) for a in declared], "declared in comparo.toml", []
-    chosen = [dict(a) for a in DEFAULT_ANALYSES if a["x"] in table and a["y"] in table]
+    from comparo.config import analyses as choose
+
+    chosen, origin = choose(settings, table, catalog, taxa_columns)
+    if (settings or {}).get("analysis"):
+        return chosen, origin, []
     fits = ", ".join(pieces.fit_title(a, catalog) for a in chosen) or "none (no default pair of columns is present)"
     return chosen, "from the default set", [f"fits ([[analysis]]): the default set, here {fits}; log10 axes, 95% CIs"]
 
@@ -139,6 +140,7 @@ class _Run:
     aud: Any = None
     derived: Any = None
     data: Any = None
+    analyses: list[dict] = field(default_factory=list)
     origin: str = ""
     defaults: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
@@ -182,14 +184,14 @@ def _derive(run: _Run) -> None:
 
     settings = run.ds.settings or {}
     try:
+        from comparo.config import derive_settings
         from comparo.derive import derive
 
-        dset = {**settings.get("derive", {}), "ratios": settings.get("ratios", {}), "quantities": settings.get("quantities", {})}
-        run.derived = derive(run.table, dset, seed=run.seed)
+        run.derived = derive(run.table, derive_settings(settings), seed=run.seed)
     except (ImportError, ComparoError, ValueError, KeyError) as exc:  # the section says why
         run.notes.append(f"derived quantities unavailable: {type(exc).__name__}: {exc}")
     run.data = run.derived if run.derived is not None else run.table
-    _, run.origin, run.defaults = analyses(settings, run.data, run.ds.catalog)
+    run.analyses, run.origin, run.defaults = analyses(settings, run.data, run.ds.catalog, _taxa_columns(run.ds))
     run.tables |= {"per_taxon": to_csv(run.table), "audit": to_csv(run.aud.to_frame()),
                    "sources": to_csv(run.aud.sources_frame()), "problems": to_csv(run.checked.problems)}
     if run.derived is not None:
@@ -199,13 +201,17 @@ def _derive(run: _Run) -> None:
                             "temperature-sensitive quantity from the catalogue")
 
 
+def _taxa_columns(ds) -> set[str]:
+    return set(ds.taxa.columns) if ds.taxa is not None else set()
+
+
 def _fit_all(run: _Run) -> None:
     """Every analysis: the fit, its flags and figures (one section each)."""
     import pandas as pd
 
     from comparo.csvsafe import to_csv
 
-    todo, _, _ = analyses(run.ds.settings or {}, run.data, run.ds.catalog)
+    todo = run.analyses
     labels = pieces.tree_labels(run.ds)
     any_pgls = any(b.get("method") == "pgls" for b in todo)
     state = {"tree_drawn": False}

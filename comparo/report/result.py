@@ -4,15 +4,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from comparo.config import DEFAULT_ANALYSES  # noqa: F401  (the default fits, kept importable here)
 from comparo.report.fmt import num
-
-#: Fits run when ``comparo.toml`` declares no ``[[analysis]]`` (kept when the columns exist).
-DEFAULT_ANALYSES = (
-    {"x": "body_mass", "y": "frequency_observed", "method": "sma"},
-    {"x": "fiber_radius", "y": "frequency_observed", "method": "sma"},
-    {"x": "frequency_kinetic_bound", "y": "frequency_observed", "method": "sma"},
-    {"x": "frequency_hydraulic_bound", "y": "frequency_observed", "method": "sma"},
-)
 
 #: Monte Carlo draws of the measurement-error part of the report's sensitivity section. A modest
 #: number keeps the report fast; ``comparo fit --sensitivity`` uses 1000. The spread of the
