@@ -8,8 +8,8 @@ software stamp in the file metadata).
 
 Colours are the eight-colour palette for colour-blind readers of Okabe and Ito
 (2002, "Color Universal Design", J*FLY). Marker fill shows the weakest basis of
-a point: filled = reported, half-filled = computed or digitized, open = proxy or
-assumed.
+a point: filled = reported, left half filled = digitized, lower half filled =
+computed, open = proxy or assumed.
 
 References
 ----------
@@ -39,7 +39,7 @@ PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#0
 BASIS_COLOURS = {"reported": "#0072B2", "computed": "#56B4E9", "digitized": "#009E73",
                  "proxy": "#E69F00", "assumed": "#D55E00", "": "#FFFFFF"}
 #: Basis -> marker fill style of a point.
-BASIS_FILL = {"reported": "full", "computed": "left", "digitized": "left", "proxy": "none", "assumed": "none"}
+BASIS_FILL = {"reported": "full", "computed": "bottom", "digitized": "left", "proxy": "none", "assumed": "none"}
 BASIS_ORDER = ("reported", "computed", "digitized", "proxy", "assumed")
 
 _STYLE = {
@@ -101,6 +101,50 @@ def weakest_basis(*bases: str) -> str:
     rank = {b: i for i, b in enumerate(BASIS_ORDER)}
     known = [b for b in bases if b in rank]
     return max(known, key=rank.__getitem__) if known else ""
+
+
+def label_points(ax: Any, xs: Sequence[float], ys: Sequence[float], texts: Sequence[str], *, fontsize: float = 7.0,
+                 gids: Sequence[str] | None = None, color: str = "#333333") -> None:
+    """Name points beside them without two names overlapping.
+
+    Greedy, in display units: each name starts 4 points up and right of its point and moves
+    down a line at a time while its box (width estimated at 0.6 em per character) would
+    overlap a name already placed. Call after the axes' scales are set.
+    """
+    ax.autoscale_view()
+    pts = ax.transData.transform(np.column_stack([np.asarray(xs, float), np.asarray(ys, float)]))
+    per_pt = ax.figure.dpi / 72.0
+    line, placed = 1.25 * fontsize, []
+    order = np.argsort(-pts[:, 1], kind="stable")
+    for i in order:
+        w = 0.6 * fontsize * len(texts[i])
+        x0, dy = pts[i, 0] / per_pt + 4, 4.0
+        for _ in range(len(texts)):
+            y0 = pts[i, 1] / per_pt + dy
+            if not any(x0 < bx + bw and bx < x0 + w and y0 < by + line and by < y0 + line for bx, by, bw in placed):
+                break
+            dy -= line
+        placed.append((x0, y0, w))
+        ax.annotate(texts[i], (xs[i], ys[i]), xytext=(4, dy), textcoords="offset points", fontsize=fontsize,
+                    color=color, gid=None if gids is None else gids[i],
+                    arrowprops=None if dy == 4.0 else {"arrowstyle": "-", "color": "#999999", "lw": 0.5})
+
+
+def plain_log_ticks(ax: Any, axis: str = "both") -> None:
+    """Tick labels of log axes as plain numbers (600, not 6 x 10^2) when every tick lies in [0.001, 100000]."""
+    from matplotlib.ticker import FuncFormatter, NullFormatter
+
+    for name in ("x", "y") if axis == "both" else (axis,):
+        a = getattr(ax, f"{name}axis")
+        if a.get_scale() != "log":
+            continue
+        lo, hi = sorted(getattr(ax, f"get_{name}lim")())
+        if lo < 1e-3 or hi > 1e5:
+            continue
+        a.set_major_formatter(FuncFormatter(lambda t, _: f"{t:g}"))
+        wide = hi / lo > 30
+        a.set_minor_formatter(NullFormatter() if wide else FuncFormatter(
+            lambda t, _: f"{t:g}" if round(t / 10 ** np.floor(np.log10(t) + 1e-9)) in (2, 3, 5) else ""))
 
 
 def _inverse(log: str):
@@ -188,10 +232,6 @@ def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] |
         glo, ghi = gr.get("slope_ci") or (None, None)
         ax.plot(inv(gg), inv(gr["intercept"] + gr["slope"] * gg), color=colour[g], lw=1.2, ls="--",
                 label=f"{g}: b = {_fmt(gr['slope'])} ({_fmt(glo)} to {_fmt(ghi)})")
-    flagged = {o["label"] for o in fit.outliers}
-    for rec in points[points["label"].isin(flagged)].itertuples():
-        ax.annotate(short(rec.label), (inv(rec.x_fit), inv(rec.y_fit)), xytext=(4, 4), textcoords="offset points",
-                    fontsize=7, color="#333333")
     from matplotlib.lines import Line2D
 
     handles, labels = ax.get_legend_handles_labels()
@@ -204,7 +244,13 @@ def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] |
         ax.set_yscale("log")
     ax.set_xlabel(axis_label(fit.x, catalog))
     ax.set_ylabel(axis_label(fit.y, catalog))
-    ax.set_title(title or f"{fit.method.upper()}: {fit.y} against {fit.x} (n = {fit.n})")
+    ax.set_title(title or f"{fit.method.upper()}: {fit.y} against {fit.x} (n = {fit.n})", loc="left")
+    plain_log_ticks(ax)
+    flagged = {o["label"] for o in fit.outliers}
+    sel = points[points["label"].isin(flagged)]
+    if len(sel):
+        label_points(ax, inv(sel["x_fit"].to_numpy(float)), inv(sel["y_fit"].to_numpy(float)),
+                     [short(v) for v in sel["label"]])
     ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
     return fig
 
@@ -280,14 +326,9 @@ def diagnostics(report: Any, *, title: str = "") -> Figure:
     else:  # the stronger cut lies above every point: named, not drawn (it would flatten the panel)
         ax.plot([], [], ls="", gid=f"cut:cooks_f:{cf!r}", label=f"Cook's D F(0.5) = {cf:.3g} (above the panel)")
     named = [i for i in np.argsort(-cook) if mark[i]][:DIAGNOSTIC_LABELS]
-    span_x = float(np.ptp(lev)) or 1.0
-    span_y = max(float(np.ptp(cook)), c4) or 1.0
-    placed: list[tuple[float, float]] = []
-    for i in named:  # a label near an earlier one moves down a line (no overlapping names)
-        near = sum(abs(lev[i] - px) < 0.3 * span_x and abs(cook[i] - py) < 0.06 * span_y for px, py in placed)
-        placed.append((lev[i], cook[i]))
-        ax.annotate(short(t["label"].iat[i], 24), (lev[i], cook[i]), xytext=(3, 3 - 8 * near), textcoords="offset points",
-                    fontsize=6.5, gid=f"flag-label:{t['label'].iat[i]}")
+    if named:
+        label_points(ax, lev[named], cook[named], [short(t["label"].iat[i], 24) for i in named], fontsize=6.5,
+                     gids=[f"flag-label:{t['label'].iat[i]}" for i in named], color="#000000")
     ax.set_xlabel("leverage h (dimensionless)")
     ax.set_ylabel("Cook's distance (dimensionless)")
     ax.set_title("leverage and influence")
@@ -298,7 +339,8 @@ def diagnostics(report: Any, *, title: str = "") -> Figure:
                 handles.append(hd)
                 names.append(nm)
     fig.legend(handles, names, loc="outside lower center", ncols=min(len(names), 5), frameon=False, fontsize=7.5)
-    fig.suptitle((title + ": " if title else "") + RESIDUAL_NAMES.get(report.residuals, report.residuals), fontsize=10)
+    kind = RESIDUAL_NAMES.get(report.residuals, report.residuals)
+    fig.suptitle(f"Diagnostics: {title}; {kind}" if title else f"Diagnostics: {kind}", fontsize=10)
     return fig
 
 
@@ -338,6 +380,7 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
     ax.set_xlabel("poro-kinetic ratio, poroelastic time / kinetic time (dimensionless)")
     ax.set_ylabel("observed frequency / kinetic bound (dimensionless)")
     ax.set_title(f"Regime: which bound is closer ({int(ok.sum())} taxa)")
+    plain_log_ticks(ax)
     ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
 

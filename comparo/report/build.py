@@ -272,7 +272,7 @@ def _fit_one(run: _Run, i: int, a: dict, labels, any_pgls: bool, state: dict) ->
         diag = frep.to_frame()
         diag.insert(0, "analysis", aid)
         diag.insert(1, "residuals", kind)
-        figs[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(frep, title=f"Diagnostics of the fit: {title}"))
+        figs[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(frep, title=title))
     sec = {"id": aid, "title": title, "res": res, "frame": frame, "points": pts, "a": a, "opts": opts,
            "flag_rows": flag_rows, "diag": diag, "lambda_note": "", "tree_caption": ""}
     if method == "pgls" and res.lambda_ is not None and res.loglik is not None:
