@@ -362,3 +362,24 @@ def test_without_settings_the_report_runs_the_default_fits_and_names_the_default
     assert "the default set" in para and "against body mass (SMA)" in para and "25 °C" in para and "Q10" in para
     assert "Fits from the default set" in html_text
     assert "(default: <code>reference_temperature_c</code> not set)" in html_text
+
+
+def test_numbers_read_as_people_write_them():
+    """4 significant figures without an exponent between 1e-4 and 1e6; integers (a seed, a count) in full;
+    booleans as yes/no; a full-precision data-value stays in the cell (common practice for tables)."""
+    import numpy as np
+
+    from comparo.report.fmt import cell, num
+
+    assert num(20240601) == "20240601" and num(20240601.0) == "20240601" and num(np.int64(57)) == "57"
+    assert num(-0.18796) == "-0.188" and num(0.000112) == "0.000112" and num(1410.3) == "1410"
+    assert num(3.92e-17) == "3.92e-17" and num(2.0) == "2" and num(float("nan")) == "n/a"
+    assert num(True) == "yes" and num(np.bool_(False)) == "no"
+    assert str(cell(np.bool_(True))) == "<td>yes</td>"
+    assert str(cell(-0.18796)) == '<td class="n" data-value="-0.18796">-0.188</td>'
+
+
+def test_console_counts_each_figure_once(runs):
+    res = runs[3]
+    assert res.n_figures == len(list((runs[1] / "figures").glob("*.png")))
+    assert f"({res.n_figures} figures, each as PNG and SVG;" in res.summary()

@@ -46,7 +46,7 @@ def _sensitivity_view(run, sec: dict) -> dict:
     me = summ[["mc_draws", "mc_seed", "mc_slope_mean", "me_spread", "sampling_se", "total_se", "me_share", "fixed_x",
                "fixed_y"]]
     return view | {
-        "verdict": s.verdict, "notes": v["notes"] + list(s.unavailable),
+        "verdict": s.verdict, "extra": render.verdict_extra(s), "notes": v["notes"] + list(s.unavailable),
         "forest": render.fig(run.figures, f"{aid}_sensitivity", f"leave one source out: {sec['title']}"),
         "loso": refits.loc[refits["part"] == "leave_one_source_out", cols],
         "basis": refits.loc[refits["part"] == "by_basis", cols[:-1] + ["ci_change", "flips"]],
@@ -79,6 +79,7 @@ def report_html(run) -> str:
         "report.html.j2", title=settings.get("title") or f"comparo report: {run.folder.name}",
         synthetic=_synthetic(settings), dataset=run.folder.name, n_taxa=len(run.table), origin=run.origin,
         defaults=run.defaults, seed=int(run.seed), summary_rows=render.summary_rows(run.fits, titles), verdicts=verdicts,
+        any_groups=any(f.get("by") and "result" in f for f in run.fits),
         regime_lines=render.regime_lines(run.derived, by),
         temperature=render.temperature_view(run.h, run.ds, run.temperature),
         n_warnings=run.checked.n_warnings, n_notes=run.checked.n_notes, audit_summary=run.aud.summary(),

@@ -63,8 +63,15 @@ def summary_rows(fits: list[dict], titles: dict[str, str]) -> list[dict]:
         row = {"id": f["id"], "title": titles.get(f["id"], f["id"]), "error": f.get("error")}
         if "error" not in f:
             r = f["result"]
-            cs = (r.get("group_tests") or {}).get("common_slope") or {}
-            test = f"equal slopes across groups: p = {fmt.num(cs.get('p'), 3)}" if cs else ""
+            gt = r.get("group_tests") or {}
+            cs, el = gt.get("common_slope") or {}, gt.get("elevation") or {}
+            test = ""
+            if cs:
+                lo, hi = cs.get("slope_ci") or (None, None)
+                test = (f"common slope of the {len(r.get('groups') or [])} groups {fmt.num(cs.get('slope'))} "
+                        f"(CI {fmt.num(lo)} to {fmt.num(hi)}); equal slopes across groups: p = {fmt.num(cs.get('p'), 3)}")
+                if el:
+                    test += f"; equal elevations at the common slope: p = {fmt.num(el.get('p'), 3)}"
             if r.get("lambda") is not None:
                 test = f"Pagel's λ = {fmt.num(r['lambda'], 3)}"
             ts = r.get("test_slope")
