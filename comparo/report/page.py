@@ -46,7 +46,7 @@ def _sensitivity_view(run, sec: dict) -> dict:
     me = summ[["mc_draws", "mc_seed", "mc_slope_mean", "me_spread", "sampling_se", "total_se", "me_share", "fixed_x",
                "fixed_y"]]
     return view | {
-        "verdict": s.verdict, "extra": render.verdict_extra(s), "notes": v["notes"] + list(s.unavailable),
+        "verdict": s.verdict, "notes": v["notes"] + list(s.unavailable),
         "forest": render.fig(run.figures, f"{aid}_sensitivity", f"leave one source out: {sec['title']}"),
         "loso": refits.loc[refits["part"] == "leave_one_source_out", cols],
         "basis": refits.loc[refits["part"] == "by_basis", cols[:-1] + ["ci_change", "flips"]],
@@ -73,8 +73,7 @@ def report_html(run) -> str:
     for f in run.fits:
         titles.setdefault(f["id"], f["id"])
     by = next((f["by"] for f in run.fits if f.get("by")), None)
-    verdicts = [{"title": titles[k], "verdict": v["result"].verdict, "extra": render.verdict_extra(v["result"])}
-                for k, v in run.sens.items()]
+    verdicts = [{"title": titles[k], "verdict": v["result"].verdict} for k, v in run.sens.items()]
     return render.render(
         "report.html.j2", title=settings.get("title") or f"comparo report: {run.folder.name}",
         synthetic=_synthetic(settings), dataset=run.folder.name, n_taxa=len(run.table), origin=run.origin,

@@ -146,15 +146,3 @@ def lambda_caption(res) -> str:
     grid = ", ".join(f"{v:g}" for v in LAMBDA_GRID)
     return (f"Profile log-likelihood of Pagel's λ: the same PGLS refitted at fixed λ = {grid}; maximum at "
             f"λ = {fmt.num(res.lambda_, 3)}.")
-
-
-def verdict_extra(s) -> str:
-    """Words that keep a verdict honest: which taxa held x or y fixed in the measurement-error part."""
-    m = s.measurement_error or {}
-    n = (s.jackknife_se or {}).get("n")
-    parts = []
-    for axis, key in (("x", "fixed_x"), ("y", "fixed_y")):
-        k = m.get(key)
-        if k:
-            parts.append(f"{k} of {n} taxa have no uncertainty in {axis} ({s.x if axis == 'x' else s.y}) and were held fixed")
-    return ("(" + "; ".join(parts) + ", so the measurement-error part covers only the stated uncertainties.)") if parts else ""
