@@ -138,7 +138,9 @@ class Harmonised:
         One row per observation read, with ``accepted`` (accepted name),
         ``value_h`` / ``u_h`` (value and standard uncertainty in the canonical
         unit, at the reference temperature where normalised),
-        ``temperature_factor``, ``temperature_note``, ``status``
+        ``temperature_factor``, ``temperature_note``, ``q10_used`` (the Q10 applied,
+        dimensionless; NaN where none was), ``ea_kj_mol_used`` (the Arrhenius activation
+        energy applied, kJ/mol; NaN where none was), ``status``
         (``used``/``merged``/``excluded``), ``merged_into`` and ``reason``.
     conflicts, unit_slips : list of dict
     reference_temperature_c : float or None
@@ -185,6 +187,9 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         note[ts & ~np.isfinite(t_meas)] = "no temperature: used un-normalised"
     obs["temperature_factor"] = factor
     obs["temperature_note"] = note
+    applied = (ts & np.isfinite(t_meas)) if temperature else np.zeros(len(obs), dtype=bool)
+    obs["q10_used"] = np.where(applied & ~np.isfinite(ea), q10, np.nan)
+    obs["ea_kj_mol_used"] = np.where(applied & np.isfinite(ea), ea, np.nan)
     with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         obs["value_h"] = obs["value_canonical"].to_numpy(dtype=float) * factor
         obs["u_h"] = obs["u_h"].to_numpy(dtype=float) * factor

@@ -7,6 +7,13 @@ fitted (e.g. log) scale, computed in closed form (:func:`influence`; equal to
 statsmodels' ``OLSInfluence``, which refits n times); a robust
 or LTS fit adds its own evidence (low weight, large robust residual).
 
+For a phylogenetic (PGLS) fit the same rules apply to the phylogenetically
+whitened regression W y = W [1 x] beta + e, W = C(lambda)^(-1/2) the symmetric
+inverse square root of the fitted Pagel-lambda covariance (:func:`phylo_whitener`):
+ordinary least squares on the whitened values is the PGLS fit, and its residuals
+W (y - a - b x) are the normalised residuals of a generalised least-squares fit
+(Pinheiro & Bates 2000, section 5.2.1, there with a Cholesky factor).
+
 Rules (p = 2 coefficients, n points):
 
 * externally studentized residual t_i beyond the Bonferroni cut
@@ -23,6 +30,8 @@ Cook, R. D. (1977). Detection of influential observation in linear regression.
     Technometrics 19, 15-18.
 Cook, R. D. & Weisberg, S. (1982). *Residuals and Influence in Regression*.
     Chapman & Hall.
+Pinheiro, J. C. & Bates, D. M. (2000). *Mixed-Effects Models in S and S-PLUS*.
+    Springer.
 Hoaglin, D. C. & Welsch, R. E. (1978). The hat matrix in regression and ANOVA.
     The American Statistician 32, 17-22.
 Rousseeuw, P. J. & Leroy, A. M. (1987). *Robust Regression and Outlier
@@ -31,8 +40,9 @@ Rousseeuw, P. J. & Leroy, A. M. (1987). *Robust Regression and Outlier
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -96,15 +106,20 @@ class FlagReport:
         One record per point: label, leverage, studentized (external),
         cooks_d, and weight / lts_std when given.
     cuts : dict
-        The cut-offs used (``bonferroni``, ``leverage``, ``cooks_4n``, ``cooks_f``).
+        The cut-offs used (``bonferroni``, ``leverage``, ``cooks_4n``, ``cooks_f``; dimensionless)
+        and ``alpha``.
+    residuals : str
+        ``"ols"`` (least-squares line of y on x on the fitted scale) or ``"whitened"``
+        (phylogenetically whitened regression, :func:`phylo_whitener`).
     """
 
     flags: tuple[Flag, ...]
     table: tuple[dict, ...] = field(repr=False)
     cuts: dict
+    residuals: str = "ols"
 
     def to_dict(self) -> dict:
-        return {"flags": [f.to_dict() for f in self.flags], "cuts": dict(self.cuts)}
+        return {"flags": [f.to_dict() for f in self.flags], "cuts": dict(self.cuts), "residuals": self.residuals}
 
     def to_frame(self) -> pd.DataFrame:
         import pandas as pd
@@ -192,6 +207,61 @@ def influence(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.
     return t_ext, lev, cooks
 
 
+def influence_design(Z: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Coefficients, residuals, externally studentized residuals, leverages and Cook's
+    distances of the least-squares fit y = Z beta (any full-rank n x p design Z).
+
+    The hat matrix H = Z (Z'Z)^-1 Z' comes from a thin QR factorisation (H = Q Q');
+    then the formulas of :func:`influence` with this p (Cook & Weisberg 1982, ch. 2-3).
+    Dimensionless except the coefficients and residuals (units of y).
+    """
+    n, p = Z.shape
+    q, r = np.linalg.qr(Z)
+    beta = np.linalg.solve(r, q.T @ y)
+    e = y - Z @ beta
+    lev = np.einsum("ij,ij->i", q, q)
+    s2 = float(e @ e) / (n - p)
+    one_h = 1.0 - lev
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s2_i = np.maximum(((n - p) * s2 - e * e / one_h) / (n - p - 1), 0.0)
+        t_ext = e / np.sqrt(s2_i * one_h)
+        cooks = e * e * lev / (p * s2 * one_h * one_h)
+    return beta, e, t_ext, lev, cooks
+
+
+def phylo_whitener(ft, lam: float, *, max_tips: int = 2000) -> np.ndarray:
+    """W = C(lambda)^(-1/2), the symmetric inverse square root of the Pagel-lambda covariance.
+
+    *ft* is a :class:`comparo.phylo.FlatTree` of the fitted taxa (rows of W follow
+    ``ft.tips``); C(lambda) = lambda C + (1 - lambda) diag(C) with C_ij the root-to-MRCA
+    distance (Pagel 1999). The scale sigma^2 cancels in every flag statistic. The
+    symmetric root (not a Cholesky factor) keeps W independent of the order of the
+    taxa, so that whitened residual i belongs most to taxon i.
+
+    Raises
+    ------
+    ValueError
+        More than *max_tips* tips (dense n x n algebra), or C(lambda) singular
+        (for instance lambda = 1 on a tree with zero-length tip edges).
+    """
+    n = ft.n_tips
+    if n > max_tips:
+        raise ValueError(f"whitened diagnostics need a dense {n} x {n} covariance; computed up to {max_tips} taxa")
+    m = ft.n_nodes
+    below = np.zeros((m, n))
+    below[np.arange(n), np.arange(n)] = 1.0
+    for k in range(len(ft.bounds) - 1):  # levels in post-order: children before parents
+        sl = np.arange(ft.bounds[k], ft.bounds[k + 1])
+        ch = sl[ft.parent[sl] >= 0]
+        np.add.at(below, ft.parent[ch], below[ch])
+    cov = (below.T * ft.length) @ below  # C = sum over edges of length * (tips below)(tips below)'
+    cov = lam * cov + (1.0 - lam) * np.diag(np.diag(cov))
+    w, v = np.linalg.eigh(cov)
+    if w.min() <= 1e-12 * max(w.max(), 1e-300):
+        raise ValueError(f"the covariance of the tree at lambda = {lam:g} is singular (zero-length tip edges?)")
+    return (v / np.sqrt(w)) @ v.T
+
+
 def flag_points(
     x: np.ndarray,
     y: np.ndarray,
@@ -202,6 +272,7 @@ def flag_points(
     weight_cut: float = 0.5,
     lts_std: np.ndarray | None = None,
     lts_cut: float = 2.5,
+    whiten: np.ndarray | None = None,
 ) -> FlagReport:
     """Flag outlying and influential points of the line y = a + b x.
 
@@ -221,10 +292,16 @@ def flag_points(
         LTS residuals divided by the LTS scale.
     lts_cut : float
         |lts_std| above this is flagged (Rousseeuw & Leroy 1987: 2.5).
+    whiten : array (n, n), optional
+        W of a phylogenetic fit (:func:`phylo_whitener`): the rules are applied to the
+        whitened regression W y = W [1 x] beta (residuals ``"whitened"``).
 
     Returns
     -------
     FlagReport
+        ``table`` holds per point: label, fitted (a + b x of the line the rules refer
+        to, fitted scale), residual (y - fitted; the whitened residual with *whiten*), leverage, studentized (external), cooks_d, and
+        weight / lts_std when given.
 
     Notes
     -----
@@ -237,25 +314,22 @@ def flag_points(
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     n, p = len(x), 2
-    t_ext, lev, cooks = influence(x, y)
+    Z = np.column_stack([np.ones(n), x])
+    beta, resid, t_ext, lev, cooks = influence_design(Z, y) if whiten is None else influence_design(whiten @ Z, whiten @ y)
+    fitted = Z @ beta
     cuts = {
         "bonferroni": bonferroni_cut(n, p, alpha),
         "leverage": 2.0 * p / n,
         "cooks_4n": 4.0 / n,
         "cooks_f": float(stats.f.ppf(0.5, p, n - p)),
+        "alpha": float(alpha),
     }
     flags: list[Flag] = []
     table: list[dict] = []
     for i, lab in enumerate(labels):
-        rec = {"label": lab, "leverage": float(lev[i]), "studentized": float(t_ext[i]), "cooks_d": float(cooks[i])}
-        if abs(t_ext[i]) > cuts["bonferroni"]:
-            flags.append(Flag(lab, "bonferroni", f"externally studentized residual beyond the Bonferroni cut {cuts['bonferroni']:.4f} (alpha {alpha:g})", t_ext[i], i))
-        if lev[i] > cuts["leverage"]:
-            flags.append(Flag(lab, "leverage", f"leverage above 2p/n = {cuts['leverage']:.4f}", lev[i], i))
-        if cooks[i] > cuts["cooks_f"]:
-            flags.append(Flag(lab, "cooks_d", f"Cook's distance above F(0.5; {p}, {n - p}) = {cuts['cooks_f']:.4f}", cooks[i], i))
-        elif cooks[i] > cuts["cooks_4n"]:
-            flags.append(Flag(lab, "cooks_d", f"Cook's distance above 4/n = {cuts['cooks_4n']:.4f}", cooks[i], i))
+        rec = {"label": lab, "x": float(x[i]), "fitted": float(fitted[i]), "residual": float(resid[i]), "leverage": float(lev[i]),
+               "studentized": float(t_ext[i]), "cooks_d": float(cooks[i])}
+        flags += _point_flags(i, lab, t_ext[i], lev[i], cooks[i], cuts, p, n)
         if weights is not None:
             rec["weight"] = float(weights[i])
             if weights[i] < weight_cut:
@@ -265,4 +339,69 @@ def flag_points(
             if abs(lts_std[i]) > lts_cut:
                 flags.append(Flag(lab, "lts_residual", f"|LTS residual / LTS scale| above {lts_cut:g}", lts_std[i], i))
         table.append(rec)
-    return FlagReport(flags=tuple(flags), table=tuple(table), cuts=cuts)
+    return FlagReport(flags=tuple(flags), table=tuple(table), cuts=cuts,
+                      residuals="ols" if whiten is None else "whitened")
+
+
+def _point_flags(i: int, lab: str, t: float, h: float, d: float, cuts: dict, p: int, n: int) -> list[Flag]:
+    """The Bonferroni, leverage and Cook's distance flags of point *i* (the stronger Cook cut once)."""
+    out = []
+    if abs(t) > cuts["bonferroni"]:
+        out.append(Flag(lab, "bonferroni", f"externally studentized residual beyond the Bonferroni cut "
+                                           f"{cuts['bonferroni']:.4f} (alpha {cuts['alpha']:g})", t, i))
+    if h > cuts["leverage"]:
+        out.append(Flag(lab, "leverage", f"leverage above 2p/n = {cuts['leverage']:.4f}", h, i))
+    if d > cuts["cooks_f"]:
+        out.append(Flag(lab, "cooks_d", f"Cook's distance above F(0.5; {p}, {n - p}) = {cuts['cooks_f']:.4f}", d, i))
+    elif d > cuts["cooks_4n"]:
+        out.append(Flag(lab, "cooks_d", f"Cook's distance above 4/n = {cuts['cooks_4n']:.4f}", d, i))
+    return out
+
+
+def fit_flags(result: Any, points: pd.DataFrame, *, tree: Any = None,
+              tree_labels: Mapping[str, str] | None = None) -> FlagReport:
+    """The flags of a fitted line, from its plotted points (one source for figure and flags).
+
+    Parameters
+    ----------
+    result : comparo.lines.FitResult
+    points : DataFrame
+        ``label``, ``x_fit``, ``y_fit`` of every fitted point (and ``weight`` /
+        ``lts_std`` for robust and LTS fits), as in ``result.points``.
+    tree, tree_labels : the tree of a PGLS fit and its taxon -> tip map.
+
+    Returns
+    -------
+    FlagReport
+        For OLS, SMA, MA, robust and LTS: the rules on the least-squares line of y on x
+        on the fitted scale (leverage and Cook's distance are least-squares quantities;
+        the same flags as ``result.outliers``). For PGLS: the rules on the
+        phylogenetically whitened regression at the fitted lambda (:func:`phylo_whitener`).
+
+    Raises
+    ------
+    ValueError
+        PGLS without a tree, a whitened fit that does not reproduce the PGLS slope, or a
+        covariance that cannot be whitened.
+    """
+    from comparo.phylo import flat_tree, match_tips
+
+    labels = [str(v) for v in points["label"]]
+    X, Y = points["x_fit"].to_numpy(float), points["y_fit"].to_numpy(float)
+    if result.method != "pgls":
+        w = points["weight"].to_numpy(float) if result.method == "robust" and "weight" in points else None
+        s = points["lts_std"].to_numpy(float) if result.method == "lts" and "lts_std" in points else None
+        return flag_points(X, Y, labels, weights=w, lts_std=s)
+    if tree is None:
+        raise ValueError("a PGLS fit needs its tree for whitened residuals")
+    tip_of = match_tips(tree, labels, tree_labels).tip_of
+    tips = [tip_of[lab] for lab in labels]
+    ft = flat_tree(tree, tips)
+    idx = ft.index(tips)
+    lam = 1.0 if result.lambda_ is None else float(result.lambda_)
+    W = phylo_whitener(ft, lam)[np.ix_(idx, idx)]
+    rep = flag_points(X, Y, labels, whiten=W)
+    slope = np.linalg.lstsq(W @ np.column_stack([np.ones(len(X)), X]), W @ Y, rcond=None)[0][1]
+    if not np.isclose(slope, result.slope, rtol=1e-6, atol=1e-9):
+        raise ValueError(f"the whitened regression gives slope {slope:.6g}, the PGLS fit {result.slope:.6g}")
+    return rep

@@ -8,8 +8,8 @@ software stamp in the file metadata).
 
 Colours are the eight-colour palette for colour-blind readers of Okabe and Ito
 (2002, "Color Universal Design", J*FLY). Marker fill shows the weakest basis of
-a point: filled = reported, half-filled = computed or digitized, open = proxy or
-assumed.
+a point: filled = reported, left half filled = digitized, lower half filled =
+computed, open = proxy or assumed.
 
 References
 ----------
@@ -17,6 +17,8 @@ Okabe M, Ito K (2002). Color Universal Design (CUD): how to make figures and
 presentations that are friendly to colorblind people. J*FLY Data Depository.
 Cook RD (1977). Detection of influential observation in linear regression.
 Technometrics 19: 15-18.
+Blom G (1958). Statistical Estimates and Transformed Beta-Variables. Wiley
+(plotting positions (i - 3/8)/(n + 1/4) of the normal QQ plot).
 """
 
 from __future__ import annotations
@@ -37,7 +39,7 @@ PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#0
 BASIS_COLOURS = {"reported": "#0072B2", "computed": "#56B4E9", "digitized": "#009E73",
                  "proxy": "#E69F00", "assumed": "#D55E00", "": "#FFFFFF"}
 #: Basis -> marker fill style of a point.
-BASIS_FILL = {"reported": "full", "computed": "left", "digitized": "left", "proxy": "none", "assumed": "none"}
+BASIS_FILL = {"reported": "full", "computed": "bottom", "digitized": "left", "proxy": "none", "assumed": "none"}
 BASIS_ORDER = ("reported", "computed", "digitized", "proxy", "assumed")
 
 STYLE = {  # the house style of every figure
@@ -99,6 +101,50 @@ def weakest_basis(*bases: str) -> str:
     rank = {b: i for i, b in enumerate(BASIS_ORDER)}
     known = [b for b in bases if b in rank]
     return max(known, key=rank.__getitem__) if known else ""
+
+
+def label_points(ax: Any, xs: Sequence[float], ys: Sequence[float], texts: Sequence[str], *, fontsize: float = 7.0,
+                 gids: Sequence[str] | None = None, color: str = "#333333") -> None:
+    """Name points beside them without two names overlapping.
+
+    Greedy, in display units: each name starts 4 points up and right of its point and moves
+    down a line at a time while its box (width estimated at 0.6 em per character) would
+    overlap a name already placed. Call after the axes' scales are set.
+    """
+    ax.autoscale_view()
+    pts = ax.transData.transform(np.column_stack([np.asarray(xs, float), np.asarray(ys, float)]))
+    per_pt = ax.figure.dpi / 72.0
+    line, placed = 1.25 * fontsize, []
+    order = np.argsort(-pts[:, 1], kind="stable")
+    for i in order:
+        w = 0.6 * fontsize * len(texts[i])
+        x0, dy = pts[i, 0] / per_pt + 4, 4.0
+        for _ in range(len(texts)):
+            y0 = pts[i, 1] / per_pt + dy
+            if not any(x0 < bx + bw and bx < x0 + w and y0 < by + line and by < y0 + line for bx, by, bw in placed):
+                break
+            dy -= line
+        placed.append((x0, y0, w))
+        ax.annotate(texts[i], (xs[i], ys[i]), xytext=(4, dy), textcoords="offset points", fontsize=fontsize,
+                    color=color, gid=None if gids is None else gids[i],
+                    arrowprops=None if dy == 4.0 else {"arrowstyle": "-", "color": "#999999", "lw": 0.5})
+
+
+def plain_log_ticks(ax: Any, axis: str = "both") -> None:
+    """Tick labels of log axes as plain numbers (600, not 6 x 10^2) when every tick lies in [0.001, 100000]."""
+    from matplotlib.ticker import FuncFormatter, NullFormatter
+
+    for name in ("x", "y") if axis == "both" else (axis,):
+        a = getattr(ax, f"{name}axis")
+        if a.get_scale() != "log":
+            continue
+        lo, hi = sorted(getattr(ax, f"get_{name}lim")())
+        if lo < 1e-3 or hi > 1e5:
+            continue
+        a.set_major_formatter(FuncFormatter(lambda t, _: f"{t:g}"))
+        wide = hi / lo > 30
+        a.set_minor_formatter(NullFormatter() if wide else FuncFormatter(
+            lambda t, _: f"{t:g}" if round(t / 10 ** np.floor(np.log10(t) + 1e-9)) in (2, 3, 5) else ""))
 
 
 def _inverse(log: str):
@@ -196,10 +242,6 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
         glo, ghi = gr.get("slope_ci") or (None, None)
         ax.plot(inv(gg), inv(gr["intercept"] + gr["slope"] * gg), color=colour[g], lw=1.2, ls="--",
                 label=f"{g}: b = {_fmt(gr['slope'])} ({_fmt(glo)} to {_fmt(ghi)})")
-    flagged = {o["label"] for o in fit.outliers}
-    for rec in points[points["label"].isin(flagged)].itertuples():
-        ax.annotate(short(rec.label), (inv(rec.x_fit), inv(rec.y_fit)), xytext=(4, 4), textcoords="offset points",
-                    fontsize=7, color="#333333")
     from matplotlib.lines import Line2D
 
     handles, labels = ax.get_legend_handles_labels()
@@ -212,53 +254,103 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
         ax.set_yscale("log")
     ax.set_xlabel(axis_label(fit.x, catalog))
     ax.set_ylabel(axis_label(fit.y, catalog))
-    ax.set_title(title or f"{fit.method.upper()}: {fit.y} against {fit.x} (n = {fit.n})")
+    ax.set_title(title or f"{fit.method.upper()}: {fit.y} against {fit.x} (n = {fit.n})", loc="left")
+    plain_log_ticks(ax)
+    flagged = {o["label"] for o in fit.outliers}
+    sel = points[points["label"].isin(flagged)]
+    if len(sel):
+        label_points(ax, inv(sel["x_fit"].to_numpy(float)), inv(sel["y_fit"].to_numpy(float)),
+                     [short(v) for v in sel["label"]])
     ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
     return ax
 
 
-def diagnostics(points: pd.DataFrame, *, title: str = "") -> Figure:
-    """Residual against fitted, normal QQ, and leverage against Cook's distance.
+#: Residual kinds of :class:`comparo.flags.FlagReport`, as the figure names them.
+RESIDUAL_NAMES = {"ols": "least-squares residuals of y on x (fitted scale)",
+                  "whitened": "phylogenetically whitened residuals (PGLS)"}
+#: At most this many flagged points are named in the diagnostics figure (all are coloured).
+DIAGNOSTIC_LABELS = 15
 
-    Leverage is that of x in a straight-line fit, h_i = 1/n + (x_i - x̄)²/Σ(x - x̄)²;
-    Cook's distance D_i = e_i² h_i / (p s² (1 - h_i)²) with p = 2 and
-    s² = Σe²/(n - 2) (Cook 1977), from the residuals of the fitted line.
+
+def diagnostics(report: Any, *, title: str = "") -> Figure:
+    """Studentized residual against fitted value, its normal QQ plot, and leverage against
+    Cook's distance, drawn from the statistics and cut-offs of a flag report.
+
+    Parameters
+    ----------
+    report : comparo.flags.FlagReport
+        Its ``table`` (fitted, studentized, leverage, cooks_d per point), ``cuts`` and
+        ``flags``: the figure shows exactly the statistics the flags test, the cut-offs
+        they use, and marks exactly the flagged points (vermillion; named up to
+        :data:`DIAGNOSTIC_LABELS`).
+
+    Notes
+    -----
+    For SVG readers: every named point is a text with ``gid="flag-label:<label>"``, every
+    cut-off line has ``gid="cut:<name>:<value>"`` (value as Python ``repr``).
     """
+    import pandas as pd
     from scipy import stats
 
-    fig, axes = _figure(9.6, 3.4, ncols=3)
-    x = points["x_fit"].to_numpy(float)
-    e = points["residual"].to_numpy(float)
-    fitted = points["fitted"].to_numpy(float)
-    n = len(x)
+    t = pd.DataFrame(list(report.table))
+    cuts = report.cuts
+    flagged = list(dict.fromkeys(f.label for f in report.flags))
+    mark = t["label"].isin(flagged).to_numpy()
+    fig, axes = _figure(10.4, 4.0, ncols=3)
+    stud, fitted = t["studentized"].to_numpy(float), t["fitted"].to_numpy(float)
+    lev, cook = t["leverage"].to_numpy(float), t["cooks_d"].to_numpy(float)
+    scale = "fitted value a + b x (log scale of y)"
+
+    def dots(ax, xs, ys):
+        ax.plot(xs[~mark], ys[~mark], ls="", marker="o", color=PALETTE[0])
+        if mark.any():
+            ax.plot(xs[mark], ys[mark], ls="", marker="o", color=PALETTE[3], label=f"flagged ({len(flagged)})")
+
     ax = axes[0]
     ax.axhline(0, color="#777777", lw=0.8)
-    ax.plot(fitted, e, ls="", marker="o", color=PALETTE[0])
-    ax.set_xlabel("fitted value (log scale of y)")
-    ax.set_ylabel("residual (log scale of y)")
+    bc = cuts["bonferroni"]
+    for sign in (1, -1):
+        ax.axhline(sign * bc, color="#777777", lw=0.8, ls="--", gid=f"cut:bonferroni:{bc!r}",
+                   label=f"Bonferroni cut ±{bc:.3g}" if sign > 0 else None)
+    dots(ax, fitted, stud)
+    ax.set_xlabel(scale)
+    ax.set_ylabel("studentized residual (dimensionless)")
     ax.set_title("residual against fitted")
     ax = axes[1]
-    (osm, osr), (slope, icpt, _) = stats.probplot(e, dist="norm")
-    ax.plot(osm, osr, ls="", marker="o", color=PALETTE[0])
-    ax.plot(osm, icpt + slope * osm, color="#000000", lw=1)
+    order = np.argsort(stud)
+    q = stats.norm.ppf((np.arange(1, len(stud) + 1) - 0.375) / (len(stud) + 0.25))  # Blom (1958) positions
+    ax.plot(q, q, color="#000000", lw=1)
+    ax.plot(q[~mark[order]], stud[order][~mark[order]], ls="", marker="o", color=PALETTE[0])
+    ax.plot(q[mark[order]], stud[order][mark[order]], ls="", marker="o", color=PALETTE[3])
     ax.set_xlabel("normal quantile (standard units)")
-    ax.set_ylabel("ordered residual (log scale of y)")
+    ax.set_ylabel("ordered studentized residual")
     ax.set_title("normal QQ")
     ax = axes[2]
-    dx = x - x.mean()
-    h = 1.0 / n + dx * dx / (dx * dx).sum()
-    s2 = (e * e).sum() / max(n - 2, 1)
-    cook = e * e * h / (2 * s2 * (1 - h) ** 2)
-    ax.plot(h, cook, ls="", marker="o", color=PALETTE[3])
-    ax.axhline(4 / n, color="#777777", lw=0.8, ls=":", label="4/n")
-    for i in np.argsort(-cook)[: min(3, n)]:
-        ax.annotate(short(points["label"].iat[i]), (h[i], cook[i]), xytext=(3, 3), textcoords="offset points", fontsize=7)
+    dots(ax, lev, cook)
+    c4, cf, cl = cuts["cooks_4n"], cuts["cooks_f"], cuts["leverage"]
+    ax.axhline(c4, color="#777777", lw=0.8, ls=":", gid=f"cut:cooks_4n:{c4!r}", label=f"Cook's D 4/n = {c4:.3g}")
+    ax.axvline(cl, color="#777777", lw=0.8, ls="--", gid=f"cut:leverage:{cl!r}", label=f"leverage 2p/n = {cl:.3g}")
+    top = max(float(np.nanmax(cook)) if len(cook) else 0.0, c4) * 1.15
+    if cf <= top:
+        ax.axhline(cf, color="#000000", lw=0.8, ls=":", gid=f"cut:cooks_f:{cf!r}", label=f"Cook's D F(0.5) = {cf:.3g}")
+    else:  # the stronger cut lies above every point: named, not drawn (it would flatten the panel)
+        ax.plot([], [], ls="", gid=f"cut:cooks_f:{cf!r}", label=f"Cook's D F(0.5) = {cf:.3g} (above the panel)")
+    named = [i for i in np.argsort(-cook) if mark[i]][:DIAGNOSTIC_LABELS]
+    if named:
+        label_points(ax, lev[named], cook[named], [short(t["label"].iat[i], 24) for i in named], fontsize=6.5,
+                     gids=[f"flag-label:{t['label'].iat[i]}" for i in named], color="#000000")
     ax.set_xlabel("leverage h (dimensionless)")
     ax.set_ylabel("Cook's distance (dimensionless)")
     ax.set_title("leverage and influence")
-    ax.legend(frameon=False)
-    if title:
-        fig.suptitle(title)
+    handles, names = [], []
+    for a in axes:
+        for hd, nm in zip(*a.get_legend_handles_labels(), strict=True):
+            if nm not in names:
+                handles.append(hd)
+                names.append(nm)
+    fig.legend(handles, names, loc="outside lower center", ncols=min(len(names), 5), frameon=False, fontsize=7.5)
+    kind = RESIDUAL_NAMES.get(report.residuals, report.residuals)
+    fig.suptitle(f"Diagnostics: {title}; {kind}" if title else f"Diagnostics: {kind}", fontsize=10)
     return fig
 
 
@@ -298,6 +390,7 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
     ax.set_xlabel("poro-kinetic ratio, poroelastic time / kinetic time (dimensionless)")
     ax.set_ylabel("observed frequency / kinetic bound (dimensionless)")
     ax.set_title(f"Regime: which bound is closer ({int(ok.sum())} taxa)")
+    plain_log_ticks(ax)
     ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
 

@@ -203,10 +203,38 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
 
 def lineage(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | None = None) -> pd.DataFrame:
     """Every observation row with its fate and the harmonisation applied: accepted
-    name, quantity key, canonical value and unit, temperature factor, standard
+    name, quantity key, canonical value and unit, temperature factor with the Q10
+    (``q10_used``) or activation energy (``ea_kj_mol_used``, kJ/mol) applied, standard
     uncertainty, status (used/merged/excluded) and reason."""
     h = harmonised or harmonise(ds, temperature=temperature)
     cols = ["obs_id", "row", "taxon", "accepted", "quantity", "quantity_key", "value", "unit", "value_canonical", "unit_canonical",
-            "temperature_c", "temperature_factor", "temperature_note", "value_h", "u_h", "basis", "basis_effective", "source_id",
+            "temperature_c", "temperature_factor", "q10_used", "ea_kj_mol_used", "temperature_note", "value_h", "u_h", "basis",
+            "basis_effective", "source_id",
             "locator", "status", "merged_into", "reason"]
     return h.rows[cols].rename(columns={"value_h": "value_harmonised", "u_h": "u_standard"})
+
+
+def temperature_rules(harmonised: Harmonised) -> pd.DataFrame:
+    """How each temperature-sensitive quantity was brought to the reference temperature.
+
+    One row per quantity and rule applied: ``quantity_key``, ``reference_temperature_c``
+    (°C), ``rule`` (``Q10``, ``Arrhenius`` or ``none``: no temperature given, or
+    normalisation off), ``q10`` (dimensionless), ``ea_kj_mol`` (kJ/mol), ``rows`` (observation
+    rows used or merged), ``factor_min`` and ``factor_max`` (the temperature factors applied,
+    dimensionless). Rows that were excluded are not counted.
+    """
+    import numpy as np
+
+    rows = harmonised.rows
+    rows = rows[(rows["temperature_note"] != "") & (rows["status"] != "excluded")]
+    cols = ["quantity_key", "reference_temperature_c", "rule", "q10", "ea_kj_mol", "rows", "factor_min", "factor_max"]
+    if not len(rows):
+        return pd.DataFrame(columns=cols)
+    q10, ea = rows["q10_used"].to_numpy(float), rows["ea_kj_mol_used"].to_numpy(float)
+    rule = np.where(np.isfinite(ea), "Arrhenius", np.where(np.isfinite(q10), "Q10", "none"))
+    part = pd.DataFrame({"quantity_key": rows["quantity_key"].to_numpy(), "rule": rule, "q10": q10, "ea_kj_mol": ea,
+                         "factor": rows["temperature_factor"].to_numpy(float)})
+    out = (part.groupby(["quantity_key", "rule", "q10", "ea_kj_mol"], dropna=False, sort=True)["factor"]
+           .agg(rows="size", factor_min="min", factor_max="max").reset_index())
+    out.insert(1, "reference_temperature_c", harmonised.reference_temperature_c)
+    return out[cols]

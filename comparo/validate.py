@@ -572,7 +572,7 @@ def _settings_problems(settings: dict[str, Any], catalog: Catalog) -> list[Probl
 RESERVED_OBSERVATION_COLUMNS = frozenset({
     "row", "quantity_key", "value_canonical", "uncertainty_canonical", "unit_canonical", "basis_effective",
     "problem", "accepted", "u_h", "value_h", "temperature_factor", "temperature_note", "status", "reason",
-    "merged_into", "value_harmonised", "u_standard",
+    "merged_into", "value_harmonised", "u_standard", "q10_used", "ea_kj_mol_used",
 })
 # Columns of the per-taxon table that are not quantities (a taxa.csv grouping column is copied into it).
 RESERVED_TAXA_COLUMNS = frozenset({"temperature_c", "accepted", "own"})

@@ -33,6 +33,12 @@ FORBIDDEN = {
     "plots": ("report", "export", "commands", "cli"),
     "report": ("export", "commands", "cli"),
     "export": ("report", "commands", "cli"),
+    # reading plain Newick: beside io, below every rule
+    "newick": ABOVE_READ,
+    # the curator's spreadsheets: read and validate, never analyse
+    "wide": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
+    "importer": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
+    "template": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
 }
 # the one sanctioned upward import: FitResult.plot draws with the report's figure code
 ALLOWED = {("comparo.lines.result", "plots")}

@@ -72,6 +72,39 @@ def test_temperature_normalised_or_left_alone(tmp_path):
     assert rep.temperature["without_temperature"] == ["b"]
 
 
+def test_q10_and_activation_energy_used_are_recorded_per_row_and_per_quantity(tmp_path):
+    """Each normalised row records the Q10 or activation energy applied; the factors equal the textbook forms
+    Q10^((T_ref - T)/10) and exp(-Ea/R (1/T_ref - 1/T)) with T in kelvin and R = 8.314462618 J/(mol K)
+    (CODATA 2018 molar gas constant), written here independently; temperature_rules groups them per quantity."""
+    from comparo.provenance import lineage, temperature_rules
+
+    rows = ["a,Apis mellifera,attach_rate,100,1/s,,,,s1,T1,reported,,,15",
+            "b,Apis mellifera,detach_rate,100,1/s,,,,s1,T1,reported,,,",
+            "c,Bombus terrestris,attach_rate,80,1/s,,,,s1,T2,reported,,,35",
+            "d,Bombus terrestris,frequency_observed,150,Hz,,,,s1,T3,reported,,,20",
+            "e,Apis mellifera,body_mass,100,mg,,,,s1,T1,reported,,,"]
+    settings = ("reference_temperature_c = 25\n[q10]\nattach_rate = 2.0\n"
+                "[activation_energy_kj_mol]\nfrequency_observed = 50.0\n")
+    ds = _ds(tmp_path, rows, settings_text=settings)
+    h = harmonise(ds)
+    r = h.rows.set_index("obs_id")
+    assert r.loc["a", "q10_used"] == 2.0 and r.loc["a", "temperature_factor"] == pytest.approx(2.0 ** 1.0)
+    assert r.loc["c", "temperature_factor"] == pytest.approx(2.0 ** -1.0)
+    arr = np.exp(-50e3 / 8.314462618 * (1 / 298.15 - 1 / 293.15))
+    assert r.loc["d", "ea_kj_mol_used"] == 50.0 and np.isnan(r.loc["d", "q10_used"])
+    assert r.loc["d", "temperature_factor"] == pytest.approx(arr, rel=1e-6)
+    assert np.isnan(r.loc["b", "q10_used"]) and np.isnan(r.loc["e", "q10_used"]) and np.isnan(r.loc["e", "ea_kj_mol_used"])
+    assert {"q10_used", "ea_kj_mol_used"} <= set(lineage(ds, harmonised=h).columns)
+    rules = temperature_rules(h).set_index("quantity_key")
+    assert rules.loc["attach_rate", "rule"] == "Q10" and rules.loc["attach_rate", "rows"] == 2
+    assert rules.loc["attach_rate", "factor_min"] == pytest.approx(0.5) and rules.loc["attach_rate", "factor_max"] == pytest.approx(2.0)
+    assert rules.loc["frequency_observed", "rule"] == "Arrhenius" and rules.loc["frequency_observed", "ea_kj_mol"] == 50.0
+    assert rules.loc["detach_rate", "rule"] == "none"  # no temperature given: used un-normalised
+    assert set(rules["reference_temperature_c"]) == {25.0} and "body_mass" not in rules.index
+    off = harmonise(ds, temperature=False).rows
+    assert off["q10_used"].isna().all() and off["ea_kj_mol_used"].isna().all()
+
+
 def test_synonyms_map_to_accepted_names(tmp_path):
     rows = ["a,Apis mellifera,body_mass,100,mg,,,,s1,T1,reported,,,",
             "b,Apis mellifica,fiber_radius,10,um,,,,s1,T1,reported,,,"]

@@ -168,3 +168,66 @@ def test_closed_form_influence_matches_statsmodels():
     assert t_ext == pytest.approx(np.asarray(ref.resid_studentized_external), rel=1e-9)
     assert lev == pytest.approx(np.asarray(ref.hat_matrix_diag), rel=1e-9)
     assert cooks == pytest.approx(np.asarray(ref.cooks_distance[0]), rel=1e-9)
+
+
+# --------------------------------------------------------------------------- PGLS: whitened residuals
+
+
+def test_whitened_flags_equal_an_independent_gls_route():
+    """Flags of a PGLS fit use the regression whitened by C(lambda)^(-1/2). Independent route: the BM covariance
+    of a hand-drawn 7-tip tree written out by hand (C_ij = root-to-MRCA distance, Grafen 1989), Pagel's transform
+    lambda C + (1 - lambda) diag(C) (Pagel 1999), scipy.linalg.sqrtm for the inverse root, and statsmodels'
+    OLSInfluence on the whitened data (leverage, external studentized residual, Cook's distance); the whitened least
+    squares slope equals comparo's PGLS slope at the same fixed lambda (Aitken's theorem: GLS = OLS on whitened data)."""
+    from scipy.linalg import sqrtm
+    from statsmodels.regression.linear_model import OLS
+    from statsmodels.stats.outliers_influence import OLSInfluence
+
+    from comparo.flags import fit_flags
+
+    newick = "(((a:1,b:1):1,c:2):1.5,((d:0.5,e:0.5):2,(f:1.2,g:1.2):1.3):1);"
+    tips = list("abcdefg")
+    # root-to-MRCA distances read off the tree by hand
+    C = np.array([
+        [3.5, 2.5, 1.5, 0, 0, 0, 0],
+        [2.5, 3.5, 1.5, 0, 0, 0, 0],
+        [1.5, 1.5, 3.5, 0, 0, 0, 0],
+        [0, 0, 0, 3.5, 3.0, 1.0, 1.0],
+        [0, 0, 0, 3.0, 3.5, 1.0, 1.0],
+        [0, 0, 0, 1.0, 1.0, 3.5, 2.3],
+        [0, 0, 0, 1.0, 1.0, 2.3, 3.5],
+    ])
+    lam = 0.7
+    Cl = lam * C + (1 - lam) * np.diag(np.diag(C))
+    rng = np.random.default_rng(11)
+    x = rng.uniform(0, 3, 7)
+    y = 0.4 + 0.8 * x + rng.normal(0, 0.3, 7)
+    y[2] += 1.5
+    t = pd.DataFrame({"taxon": tips[::-1], "m": 10 ** x[::-1], "f": 10 ** y[::-1]})  # rows not in tip order
+    res = fit(t, "m", "f", "pgls", tree=newick, lambda_=lam)
+    pts = pd.DataFrame({"label": t["taxon"], "x_fit": np.log10(t["m"]), "y_fit": np.log10(t["f"])})
+    rep = fit_flags(res, pts, tree=newick)
+    assert rep.residuals == "whitened"
+    W = np.real(np.linalg.inv(sqrtm(Cl)))
+    Z = np.column_stack([np.ones(7), x])
+    ols = OLS(W @ y, W @ Z).fit()
+    assert ols.params[1] == pytest.approx(res.slope, rel=1e-9)
+    inf = OLSInfluence(ols)
+    got = {r["label"]: r for r in rep.table}
+    for i, lab in enumerate(tips):
+        assert got[lab]["leverage"] == pytest.approx(inf.hat_matrix_diag[i], rel=1e-8)
+        assert got[lab]["studentized"] == pytest.approx(inf.resid_studentized_external[i], rel=1e-7)
+        assert got[lab]["cooks_d"] == pytest.approx(inf.cooks_distance[0][i], rel=1e-7)
+        assert got[lab]["residual"] == pytest.approx(ols.resid[i], rel=1e-8, abs=1e-12)
+
+
+def test_whitening_refuses_a_singular_covariance():
+    """Two tips with zero-length edges to the same parent have identical rows of C: at lambda = 1 the covariance
+    is singular and no whitened residual exists (a clear ValueError, not a wrong number)."""
+    from comparo.flags import phylo_whitener
+    from comparo.phylo import flat_tree
+
+    ft = flat_tree("((a:0,b:0):1,(c:0.5,d:0.5):0.5);")
+    with pytest.raises(ValueError, match="singular"):
+        phylo_whitener(ft, 1.0)
+    assert np.all(np.isfinite(phylo_whitener(ft, 0.5)))

@@ -73,7 +73,9 @@ def test_regime_plot_needs_derived_columns(table):
 
 def test_diagnostics_and_coverage_and_sources(table):
     res = fit(table, "body_mass", "frequency_observed", "ols")
-    png, _ = plots.render(plots.diagnostics(_points(res, table)))
+    from comparo.flags import fit_flags
+
+    png, _ = plots.render(plots.diagnostics(fit_flags(res, _points(res, table))))
     assert len(png) > 5000
     cov = {"t1": {"body_mass": "reported", "fiber_radius": "proxy"}, "t2": {"body_mass": "digitized"}}
     assert plots.render(plots.coverage_map(cov))[0][:4] == b"\x89PNG"

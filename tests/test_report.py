@@ -19,13 +19,14 @@ from comparo.report import build_report
 class _Collect(HTMLParser):
     """Collects img sources, every cell's data-value and the appendix table's taxa; checks tag balance."""
 
-    VOID = {"meta", "img", "br", "hr", "link", "input"}
+    VOID = {"meta", "img", "br", "hr", "link", "input", "wbr"}
 
     def __init__(self):
         super().__init__()
         self.stack, self.imgs, self.values, self.appendix_taxa = [], [], [], set()
         self.in_appendix, self.row, self.cell_text, self.mismatched = False, [], None, 0
         self.table_id, self.table_values, self.verdicts, self.in_verdict = None, {}, [], False
+        self.appendix_rows, self.cell_value = [], None
 
     def handle_starttag(self, tag, attrs):
         a = dict(attrs)
@@ -33,7 +34,7 @@ class _Collect(HTMLParser):
             self.imgs.append(a.get("src", ""))
         if tag not in self.VOID:
             self.stack.append(tag)
-        if tag == "table" and a.get("id") == "appendix-table":
+        if tag == "table" and "appendix" in (a.get("class") or "").split():
             self.in_appendix = True
         if tag == "table":
             self.table_id = a.get("id")
@@ -43,6 +44,7 @@ class _Collect(HTMLParser):
             self.in_verdict = True
         if tag == "td":
             self.cell_text = ""
+            self.cell_value = float(a["data-value"]) if "data-value" in a else None
             if "data-value" in a:
                 self.values.append(float(a["data-value"]))
                 self.table_values[self.table_id].append(float(a["data-value"]))
@@ -61,11 +63,12 @@ class _Collect(HTMLParser):
         if not self.stack or self.stack.pop() != tag:
             self.mismatched += 1
         if tag == "td" and self.cell_text is not None:
-            self.row.append(self.cell_text)
+            self.row.append(self.cell_text if self.cell_value is None else (self.cell_text, self.cell_value))
             self.cell_text = None
         if tag == "tr" and self.in_appendix:
             if self.row:
                 self.appendix_taxa.add(self.row[0])
+                self.appendix_rows.append(self.row)
             self.row = []
         if tag == "table":
             self.in_appendix = False
@@ -237,3 +240,147 @@ def test_invalid_dataset_renders_an_error_page_and_exits_2(tmp_path, capsys):
     html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
     assert "validation failed" in html and "guessed" in html
     assert "error" in capsys.readouterr().err
+
+
+def test_diagnostics_figure_marks_exactly_the_flagged_taxa_at_the_cuts_used(runs):
+    """For every fit (SMA with groups, SMA, PGLS): the taxa named in the drawn diagnostics figure (its SVG,
+    gid "flag-label:...") are exactly the taxa of tables/flags.csv flagged for that fit; the cut-off lines drawn
+    (gid "cut:NAME:VALUE") are the cut-offs written in the flags' reasons and equal the textbook values recomputed
+    here from n: 4/n and 2p/n (common practice; Hoaglin & Welsch 1978), t(1 - 0.05/(2n); n - 3) (Bonferroni,
+    Cook & Weisberg 1982) and F(0.5; 2, n - 2) (Cook 1977), via scipy.stats. The HTML caption names the same taxa
+    and the fit's summary never says "flags: none" beside a figure that marks taxa."""
+    import re
+
+    from scipy import stats
+
+    out = runs[1]
+    flags = pd.read_csv(out / "tables" / "flags.csv")
+    html_text = (out / "report.html").read_text(encoding="utf-8")
+    fits = {f["id"]: f for f in json.loads((out / "tables" / "fits.json").read_text()) if "result" in f}
+    methods = set()
+    for aid, f in fits.items():
+        svg = (out / "figures" / f"{aid}_diagnostics.svg").read_text(encoding="utf-8")
+        drawn = set(re.findall(r'id="flag-label:([^"]+)"', svg))
+        flagged = set(flags.loc[(flags["analysis"] == aid) & (flags["kind"] == "flag"), "label"])
+        assert drawn == flagged, aid
+        assert {o["label"] for o in f["result"]["outliers"]} == flagged, aid
+        n = f["result"]["n"]
+        cuts = {k: float(v) for k, v in re.findall(r'id="cut:([a-z_0-9]+):([^"]+)"', svg)}
+        assert cuts["cooks_4n"] == pytest.approx(4 / n, rel=1e-12)
+        assert cuts["leverage"] == pytest.approx(4 / n, rel=1e-12)
+        assert cuts["bonferroni"] == pytest.approx(stats.t.ppf(1 - 0.05 / (2 * n), n - 3), rel=1e-12)
+        assert cuts["cooks_f"] == pytest.approx(stats.f.ppf(0.5, 2, n - 2), rel=1e-12)
+        for reason in flags.loc[(flags["analysis"] == aid) & (flags["kind"] == "flag"), "reason"]:
+            value = float(re.search(r"= ([0-9.]+)$|cut ([0-9.]+)", reason).group(0).split()[-1])
+            assert any(abs(value - c) < 1e-4 for c in cuts.values()), (aid, reason)
+        section = html_text.split(f'<h3 id="{aid}">', 1)[1].split("<h3", 1)[0]
+        for lab in flagged:
+            assert lab in section.split("residual diagnostics", 1)[1], (aid, lab)
+        if flagged:
+            assert "flags: none" not in section
+        methods.add(f["method"])
+        kinds = set(flags.loc[(flags["analysis"] == aid) & (flags["kind"] == "flag"), "residuals"])
+        assert kinds <= {"phylogenetically whitened residuals (PGLS)" if f["method"] == "pgls"
+                         else "least-squares residuals of y on x (fitted scale)"}
+    assert {"sma", "pgls"} <= methods
+
+
+def test_tree_with_zero_length_tip_edges_reports_without_the_lambda_1_point(tmp_path):
+    """Two sister tips with zero-length edges make the covariance singular at lambda = 1 (identical rows of C):
+    the report still runs, the lambda profile is drawn without lambda = 1 and says why, and the PGLS fit keeps
+    its whitened flags (lambda is estimated below 1)."""
+    import re
+
+    data = tmp_path / "demo"
+    shutil.copytree(DEMO, data)
+    tree = (data / "tree.nwk").read_text(encoding="utf-8")
+    tree, k = re.subn(r"\(Exemplella_inventa:[0-9.]+,Exemplella_demonstrans:[0-9.]+\)",
+                      "(Exemplella_inventa:0,Exemplella_demonstrans:0)", tree)
+    assert k == 1
+    (data / "tree.nwk").write_text(tree, encoding="utf-8")
+    res = build_report(data, tmp_path / "out", seed=5, sensitivity_draws=0)
+    assert res.ok
+    pgls = [f for f in res.fits if f["method"] == "pgls"]
+    assert pgls and all("result" in f for f in pgls)
+    aid = pgls[0]["id"]
+    assert (tmp_path / "out" / "figures" / f"{aid}_lambda.png").exists()
+    html_text = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert "λ = 1 not drawn: the tree has tip edges of length 0" in html_text
+    assert (tmp_path / "out" / "figures" / f"{aid}_diagnostics.svg").exists()
+
+
+def test_report_package_imports_nothing_from_the_command_layer():
+    """The report is a core module: no file of comparo/report imports comparo.commands (read with ast)."""
+    import ast
+
+    import comparo.report
+
+    folder = Path(comparo.report.__file__).parent
+    for path in folder.glob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.ImportFrom):
+                assert not (node.module or "").startswith("comparo.commands"), path.name
+            if isinstance(node, ast.Import):
+                assert not any(a.name.startswith("comparo.commands") for a in node.names), path.name
+    assert {p.name for p in (folder / "templates").iterdir()} >= {"report.html.j2", "base.html.j2", "report.css"}
+
+
+def test_appendix_shows_each_value_from_as_reported_to_used_with_the_temperature_factor(runs, parsed):
+    """Every plotted frequency in Hz: value used = value reported x Q10^((T_ref - T)/10), the textbook Q10 rule
+    written here, with T_ref and Q10 read from the demo's comparo.toml (25 °C, 2.0); the summary states both."""
+    import tomllib
+
+    settings = tomllib.loads((runs[0] / "comparo.toml").read_text(encoding="utf-8"))
+    t_ref, q10 = settings["reference_temperature_c"], settings["q10"]["frequency_observed"]
+    checked = 0
+    for row in parsed.appendix_rows:
+        taxon, quantity, reported, temp, factor, used = row[:6]
+        if quantity != "frequency_observed" or not reported.endswith(" Hz"):
+            continue
+        value = float(reported.split()[0])
+        assert isinstance(temp, tuple) and isinstance(used, tuple), row
+        assert used[1] == pytest.approx(value * q10 ** ((t_ref - temp[1]) / 10), rel=1e-9), row
+        assert f"Q10 {q10:g}" in factor
+        checked += 1
+    assert checked >= 40
+    html_text = (runs[1] / "report.html").read_text(encoding="utf-8")
+    assert f"reference temperature {t_ref:g} °C" in html_text and f"Q10 = {q10:g}" in html_text
+
+
+def test_without_settings_the_report_runs_the_default_fits_and_names_the_defaults(tmp_path):
+    """No comparo.toml: the default SMA fits run, and the summary says which defaults were used (the fits,
+    the reference temperature 25 °C and the catalogue's Q10 values)."""
+    data = tmp_path / "demo"
+    shutil.copytree(DEMO, data)
+    (data / "comparo.toml").unlink()
+    res = build_report(data, tmp_path / "out", seed=5, sensitivity_draws=0)
+    assert res.ok and res.fits and all(f["method"] == "sma" for f in res.fits)
+    from comparo.report import DEFAULT_ANALYSES
+
+    assert [(f["x"], f["y"]) for f in res.fits] == [(a["x"], a["y"]) for a in DEFAULT_ANALYSES][: len(res.fits)]
+    html_text = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    para = html_text.split('<p id="defaults">', 1)[1].split("</p>", 1)[0]
+    assert "the default set" in para and "against body mass (SMA)" in para and "25 °C" in para and "Q10" in para
+    assert "Fits from the default set" in html_text
+    assert "(default: <code>reference_temperature_c</code> not set)" in html_text
+
+
+def test_numbers_read_as_people_write_them():
+    """4 significant figures without an exponent between 1e-4 and 1e6; integers (a seed, a count) in full;
+    booleans as yes/no; a full-precision data-value stays in the cell (common practice for tables)."""
+    import numpy as np
+
+    from comparo.report.fmt import cell, num
+
+    assert num(20240601) == "20240601" and num(20240601.0) == "20240601" and num(np.int64(57)) == "57"
+    assert num(-0.18796) == "-0.188" and num(0.000112) == "0.000112" and num(1410.3) == "1410"
+    assert num(3.92e-17) == "3.92e-17" and num(2.0) == "2" and num(float("nan")) == "n/a"
+    assert num(True) == "yes" and num(np.bool_(False)) == "no"
+    assert str(cell(np.bool_(True))) == "<td>yes</td>"
+    assert str(cell(-0.18796)) == '<td class="n" data-value="-0.18796">-0.188</td>'
+
+
+def test_console_counts_each_figure_once(runs):
+    res = runs[3]
+    assert res.n_figures == len(list((runs[1] / "figures").glob("*.png")))
+    assert f"({res.n_figures} figures, each as PNG and SVG;" in res.summary()

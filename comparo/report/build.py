@@ -1,0 +1,355 @@
+"""The report pipeline: check -> harmonise -> audit -> per-taxon -> derive -> fits -> flags
+-> sensitivity -> figures -> tables and HTML, written atomically under the output folder."""
+
+from __future__ import annotations
+
+import hashlib
+import platform
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+from comparo.report import pieces, render
+from comparo.report.result import SENSITIVITY_DRAWS, ReportResult
+
+
+def _sha256(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def input_hashes(folder: str | Path) -> dict[str, str]:
+    """SHA-256 of every regular, non-hidden file at the top of the dataset folder."""
+    folder = Path(folder)
+    return {p.name: _sha256(p) for p in sorted(folder.iterdir()) if p.is_file() and not p.name.startswith(".")}
+
+
+def package_versions() -> dict[str, str]:
+    """Versions of comparo, Python and the libraries the report relies on."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"python": platform.python_version()}
+    for name in ("comparo", "numpy", "scipy", "pandas", "statsmodels", "matplotlib", "dendropy", "pint", "jinja2"):
+        try:
+            out[name] = version(name)
+        except PackageNotFoundError:
+            out[name] = "not installed"
+    return out
+
+
+def analyses(settings: dict, table, catalog=None, taxa_columns: set[str] | None = None) -> tuple[list[dict], str, list[str]]:
+    """The fits to run (:func:`comparo.config.analyses`), where they come from, and the defaults used in words.
+
+    Without ``[[analysis]]`` in comparo.toml: :data:`DEFAULT_ANALYSES` whose columns exist.
+    """
+    from comparo.config import analyses as choose
+
+    chosen, origin = choose(settings, table, catalog, taxa_columns)
+    if (settings or {}).get("analysis"):
+        return chosen, origin, []
+    fits = ", ".join(pieces.fit_title(a, catalog) for a in chosen) or "none (no default pair of columns is present)"
+    return chosen, "from the default set", [f"fits ([[analysis]]): the default set, here {fits}; log10 axes, 95% CIs"]
+
+
+def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: bool, draws: int) -> ReportResult:
+    from comparo.csvsafe import to_csv
+    from comparo.outputs import atomic_write_text
+
+    probs = result.problems
+    errs = probs[probs["severity"] == "error"]
+    page = render.render("error.html.j2", title="comparo report: validation failed", folder=str(folder),
+                         n_errors=len(errs), errors=errs, problems=probs)
+    atomic_write_text(out / "report.html", page)
+    atomic_write_text(out / "tables" / "problems.csv", to_csv(probs))
+    _write_run(out, folder, {}, seed, temperature, draws, ok=False)
+    return ReportResult(str(out), False, result.n_errors, result.n_warnings, tables=("tables/problems.csv",))
+
+
+def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, draws: int, ok: bool) -> None:
+    from comparo.outputs import atomic_write_text, dumps
+
+    record = {"created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"), "dataset": folder.name,
+              "inputs_sha256": input_hashes(folder), "settings": settings, "seed": int(seed),
+              "temperature_normalised": bool(temperature), "sensitivity_draws": int(draws), "validation_ok": ok,
+              "versions": package_versions()}
+    atomic_write_text(out / "run.json", dumps(record) + "\n")
+
+
+class _Steps:
+    """A rich progress bar on standard error when asked (a terminal), else nothing."""
+
+    def __init__(self, on: bool, total: int):
+        self.bar = None
+        if on:
+            from rich.console import Console
+            from rich.progress import Progress
+
+            self.bar = Progress(console=Console(stderr=True), transient=True)
+            self.bar.start()
+            self.task = self.bar.add_task("report", total=total)
+
+    def step(self, what: str) -> None:
+        if self.bar is not None:
+            self.bar.update(self.task, advance=1, description=what)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.stop()
+
+
+def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 20240601, temperature: bool = True,
+                 progress: bool = False, sensitivity_draws: int = SENSITIVITY_DRAWS) -> ReportResult:
+    """Run the pipeline on a dataset folder and write the report into *out_dir*.
+
+    Parameters
+    ----------
+    folder : path of the dataset (observations, sources, optional taxa, tree, comparo.toml).
+    out_dir : output folder (created; files in it are replaced atomically).
+    seed : seed of every random step (figure bands; fits that resample).
+    temperature : normalise rates and frequencies to the reference temperature.
+    progress : show a progress bar on standard error (for a terminal).
+    sensitivity_draws : Monte Carlo draws of the measurement-error part of each fit's
+        sensitivity (0 skips that part); recorded in run.json.
+
+    Returns
+    -------
+    ReportResult
+        ``ok`` is False when validation found errors; then report.html lists them.
+    """
+    folder, out = Path(folder), Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    steps = _Steps(progress, 7)
+    try:
+        return _build(folder, out, seed, temperature, steps, int(sensitivity_draws))
+    finally:
+        steps.close()
+
+
+@dataclass
+class _Run:
+    """Everything one report run computes, gathered for the tables and the HTML."""
+
+    folder: Path
+    ds: Any
+    seed: int
+    temperature: bool
+    draws: int
+    checked: Any = None
+    h: Any = None
+    table: Any = None
+    aud: Any = None
+    derived: Any = None
+    data: Any = None
+    analyses: list[dict] = field(default_factory=list)
+    origin: str = ""
+    defaults: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    tables: dict[str, str] = field(default_factory=dict)
+    figures: dict[str, tuple[bytes, bytes]] = field(default_factory=dict)
+    fits: list[dict] = field(default_factory=list)
+    sections: list[dict] = field(default_factory=list)
+    sens: dict[str, dict] = field(default_factory=dict)
+    sens_json: list[dict] = field(default_factory=list)
+    frames: dict[str, Any] = field(default_factory=dict)
+
+
+def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps, draws: int) -> ReportResult:
+    from comparo.curate import harmonise, per_taxon, review
+    from comparo.provenance import audit
+
+    steps.step("checking")
+    checked = review(folder)
+    if not checked.ok or checked.dataset is None:
+        return _write_error_page(out, folder, checked, seed, temperature, draws)
+    run = _Run(folder, checked.dataset, seed, temperature, draws, checked=checked)
+    steps.step("harmonising and auditing")
+    run.h = harmonise(run.ds, temperature=temperature)
+    run.table = per_taxon(run.ds, temperature=temperature, harmonised=run.h)
+    run.aud = audit(run.ds, temperature=temperature, harmonised=run.h)
+    steps.step("deriving time scales")
+    _derive(run)
+    steps.step("fitting and drawing")
+    _fit_all(run)
+    steps.step("sensitivity: sources, bases, taxa, measurement error")
+    _sensitivity_all(run)
+    steps.step("drawing the regime and coverage")
+    _overview_figures(run)
+    steps.step("writing")
+    return _write(run, out)
+
+
+def _derive(run: _Run) -> None:
+    from comparo.csvsafe import to_csv
+    from comparo.errors import ComparoError
+
+    settings = run.ds.settings or {}
+    try:
+        from comparo.config import derive_settings
+        from comparo.derivation import derive
+
+        run.derived = derive(run.table, derive_settings(settings), seed=run.seed)
+    except (ImportError, ComparoError, ValueError, KeyError) as exc:  # the section says why
+        run.notes.append(f"derived quantities unavailable: {type(exc).__name__}: {exc}")
+    run.data = run.derived if run.derived is not None else run.table
+    run.analyses, run.origin, run.defaults = analyses(settings, run.data, run.ds.catalog, _taxa_columns(run.ds))
+    run.tables |= {"per_taxon": to_csv(run.table), "audit": to_csv(run.aud.to_frame()),
+                   "sources": to_csv(run.aud.sources_frame()), "problems": to_csv(run.checked.problems)}
+    if run.derived is not None:
+        run.tables["derived"] = to_csv(run.derived)
+    if not settings:
+        run.defaults.append(f"the reference temperature ({run.ds.reference_temperature_c:g} °C) and the Q10 of each "
+                            "temperature-sensitive quantity from the catalogue")
+
+
+def _taxa_columns(ds) -> set[str]:
+    return set(ds.taxa.columns) if ds.taxa is not None else set()
+
+
+def _fit_all(run: _Run) -> None:
+    """Every analysis: the fit, its flags and figures (one section each)."""
+    import pandas as pd
+
+    from comparo.csvsafe import to_csv
+
+    todo = run.analyses
+    labels = pieces.tree_labels(run.ds)
+    any_pgls = any(b.get("method") == "pgls" for b in todo)
+    state = {"tree_drawn": False}
+    fit_frames, flag_rows, point_frames, diag_frames = [], [], [], []
+    for i, a in enumerate(todo):
+        sec = _fit_one(run, i, a, labels, any_pgls, state)
+        if sec is None:
+            continue
+        run.sections.append(sec)
+        fit_frames.append(sec["frame"])
+        flag_rows += sec["flag_rows"]
+        point_frames.append(sec["points"].assign(analysis=sec["id"])[["analysis", *sec["points"].columns]])
+        if sec["diag"] is not None:
+            diag_frames.append(sec["diag"])
+    cat = lambda frames: pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()  # noqa: E731
+    run.frames = {"fits": cat(fit_frames), "points": cat(point_frames), "diagnostics": cat(diag_frames),
+                  "flags": pd.DataFrame(flag_rows, columns=["analysis", "label", "kind", "rule", "reason", "statistic",
+                                                            "residuals"])}
+    run.tables |= {k: to_csv(run.frames[k]) for k in ("fits", "flags", "points", "diagnostics")}
+
+
+def _fit_one(run: _Run, i: int, a: dict, labels, any_pgls: bool, state: dict) -> dict | None:
+    from comparo import plots
+    from comparo.errors import ComparoError
+    from comparo.lines import fit
+
+    ds, aid = run.ds, pieces.analysis_id(i, a)
+    method, by = a.get("method", "sma"), a.get("by")
+    rec = {"id": aid, "x": a["x"], "y": a["y"], "method": method, "by": by}
+    run.fits.append(rec)
+    opts: dict[str, Any] = {}
+    if method == "pgls":
+        if ds.tree is None:
+            rec["error"] = "method pgls needs a tree (tree.nwk)"
+            return None
+        opts = {"tree": ds.tree, **({"tree_labels": labels} if labels else {})}
+    try:
+        res = fit(run.data, a["x"], a["y"], method, by=by, against=a.get("against", a.get("test_slope")), seed=run.seed, **opts)
+    except ComparoError as exc:
+        rec["error"] = str(exc)
+        return None
+    pts = pieces.fit_points(res, run.data, a["x"], a["y"], by)
+    res, frep = pieces.flag_report(res, pts, opts, aid, run.notes)
+    rec["result"] = res.to_dict()
+    frame = res.to_frame()
+    frame.insert(0, "analysis", aid)
+    title = pieces.fit_title(a, ds.catalog)
+    kind = "" if frep is None else plots.RESIDUAL_NAMES[frep.residuals]
+    flag_rows = [{"analysis": aid, "label": f.label, "kind": "flag", "rule": f.rule, "reason": f.reason,
+                  "statistic": float(f.statistic), "residuals": kind} for f in (frep.flags if frep else ())]
+    flag_rows += [{"analysis": aid, "label": e["label"], "kind": "excluded", "rule": "", "reason": e["reason"],
+                   "statistic": None, "residuals": ""} for e in res.excluded]
+    figs = run.figures
+    figs[f"{aid}_scaling"] = plots.render(plots.scaling_plot(res, pts, catalog=ds.catalog, by=by, seed=run.seed,
+                                                             title=f"{title}, n = {res.n}"))
+    diag = None
+    if frep is not None:
+        diag = frep.to_frame()
+        diag.insert(0, "analysis", aid)
+        diag.insert(1, "residuals", kind)
+        figs[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(frep, title=title))
+    sec = {"id": aid, "title": title, "res": res, "frame": frame, "points": pts, "a": a, "opts": opts,
+           "flag_rows": flag_rows, "diag": diag, "lambda_note": "", "tree_caption": ""}
+    if method == "pgls" and res.lambda_ is not None and res.loglik is not None:
+        lf, sec["lambda_note"] = pieces.lambda_figure(res, run.data, a, by, opts)
+        if lf is not None:
+            figs[f"{aid}_lambda"] = plots.render(lf)
+    if ds.tree is not None and (method == "pgls" or (not state["tree_drawn"] and not any_pgls)):
+        drawn = pieces.tree_figure(ds, pts, a, labels, aid, run.notes, res.log)
+        if drawn is not None:
+            figs[f"{aid}_tree"] = plots.render(drawn[0])
+            sec["tree_caption"] = drawn[1]
+            state["tree_drawn"] = True
+    return sec
+
+
+def _sensitivity_all(run: _Run) -> None:
+    import pandas as pd
+
+    from comparo import plots
+    from comparo.csvsafe import to_csv
+
+    rows = []
+    for sec in run.sections:
+        aid, res, a = sec["id"], sec["res"], sec["a"]
+        s, snotes = pieces.run_sensitivity(run.ds, run.table, run.data, a, res, sec["opts"], run.seed, run.draws,
+                                           run.temperature)
+        entry = {"id": aid, "x": a["x"], "y": a["y"], "method": res.method, "draws": run.draws, "seed": int(run.seed),
+                 "notes": snotes}
+        run.sens_json.append(entry)
+        if s is None:
+            entry["error"] = snotes[-1]
+            run.notes.append(f"{aid}: {snotes[-1]}")
+            continue
+        entry["result"] = s.to_dict()
+        refits = pieces.sensitivity_frame(s)
+        row = pieces.sensitivity_summary_row(aid, s, snotes)
+        rows.append(row)
+        run.tables[f"sensitivity_{aid}"] = to_csv(refits)
+        run.sens[aid] = {"result": s, "refits": refits, "summary": pd.DataFrame([row]), "notes": snotes}
+        if s.leave_one_source_out:
+            run.figures[f"{aid}_sensitivity"] = plots.render(plots.forest_plot(
+                s.leave_one_source_out, slope=res.slope, slope_ci=res.slope_ci, ci=res.ci_level,
+                xlabel=pieces.slope_label(res), title=f"{sec['title']}: leave one source out"))
+    if rows:
+        run.tables["sensitivity_summary"] = to_csv(pd.DataFrame(rows))
+
+
+def _overview_figures(run: _Run) -> None:
+    from comparo import plots
+
+    if run.derived is not None:
+        fig = plots.regime_plot(run.derived)
+        if fig is not None:
+            run.figures["regime"] = plots.render(fig)
+        else:
+            run.notes.append("regime plot not drawn: no taxon has the observed frequency, both bounds and the "
+                             "poro-kinetic ratio")
+    run.figures["coverage"] = plots.render(plots.coverage_map(run.aud.to_dict()["coverage"]))
+    run.figures["sources"] = plots.render(plots.source_chart(run.aud.sources_frame()))
+
+
+def _write(run: _Run, out: Path) -> ReportResult:
+    from comparo.outputs import atomic_write_bytes, atomic_write_text, dumps
+    from comparo.report.page import report_html
+
+    for name, text in run.tables.items():
+        atomic_write_text(out / "tables" / f"{name}.csv", text)
+    atomic_write_text(out / "tables" / "fits.json", dumps(list(run.fits)) + "\n")
+    atomic_write_text(out / "tables" / "sensitivity.json", dumps(run.sens_json) + "\n")
+    for stem, (png, svg) in run.figures.items():
+        atomic_write_bytes(out / "figures" / f"{stem}.png", png)
+        atomic_write_bytes(out / "figures" / f"{stem}.svg", svg)
+    atomic_write_text(out / "report.html", report_html(run))
+    _write_run(out, run.folder, run.ds.settings or {}, run.seed, run.temperature, run.draws, ok=True)
+    c = run.checked
+    return ReportResult(str(out), True, c.n_errors, c.n_warnings,
+                        figures=tuple(f"figures/{s}.{ext}" for s in run.figures for ext in ("png", "svg")),
+                        tables=tuple(f"tables/{n}.csv" for n in run.tables) + ("tables/fits.json", "tables/sensitivity.json"),
+                        fits=tuple(run.fits), notes=tuple(run.notes),
+                        sensitivity=tuple({"id": k, "verdict": v["result"].verdict} for k, v in run.sens.items()))

@@ -1,0 +1,91 @@
+"""The context of report.html: the sections of one run, arranged for the templates."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from comparo.report import render
+from comparo.report.appendix import appendix
+from comparo.report.pieces import diagnostics_caption
+
+#: Columns of the regime table (times in s, frequencies in Hz, ratios dimensionless).
+REGIME_COLUMNS = ("taxon", "poroelastic_time", "kinetic_time", "poro_kinetic_ratio", "frequency_observed",
+                  "frequency_kinetic_bound", "frequency_hydraulic_bound", "frequency_ratio", "regime")
+
+
+def _synthetic(settings: dict) -> bool:
+    title = str(settings.get("title", "")).lower()
+    return "synthetic" in title or "invented" in title
+
+
+def _analysis_view(run, sec: dict) -> dict:
+    aid, res, figs = sec["id"], sec["res"], run.figures
+    tree_caption = ""
+    if f"{aid}_tree" in figs:
+        tree_caption = (f"{sec['tree_caption']} Colour map cividis (readable with colour-vision deficiency); the colours "
+                        "show the values as compiled, not a reconstruction of ancestral states.")
+    return {"id": aid, "title": sec["title"], "summary": res.summary(), "frame": sec["frame"],
+            "scaling": render.fig(figs, f"{aid}_scaling", f"scaling plot: {sec['title']}"),
+            "diagnostics": render.fig(figs, f"{aid}_diagnostics", f"residual diagnostics: {sec['title']}"),
+            "diagnostics_caption": diagnostics_caption(res, run.frames["flags"], aid),
+            "lambda_fig": render.fig(figs, f"{aid}_lambda", f"lambda profile: {sec['title']}"),
+            "lambda_caption": render.lambda_caption(res) if res.method == "pgls" else "",
+            "lambda_note": sec["lambda_note"],
+            "tree": render.fig(figs, f"{aid}_tree", f"tree with {res.y}: {sec['title']}"), "tree_caption": tree_caption}
+
+
+def _sensitivity_view(run, sec: dict) -> dict:
+    aid = sec["id"]
+    view: dict[str, Any] = {"id": aid, "title": sec["title"], "unavailable": ""}
+    if aid not in run.sens:
+        view["unavailable"] = next((n for n in run.notes if n.startswith(f"{aid}: sensitivity")), "sensitivity not available")
+        return view
+    v = run.sens[aid]
+    s, refits, summ = v["result"], v["refits"], v["summary"]
+    cols = ["changed", "n", "slope", "ci_low", "ci_high", "p", "shift_se", "flips"]
+    me = summ[["mc_draws", "mc_seed", "mc_slope_mean", "me_spread", "sampling_se", "total_se", "me_share", "fixed_x",
+               "fixed_y"]]
+    return view | {
+        "verdict": s.verdict, "notes": v["notes"] + list(s.unavailable),
+        "forest": render.fig(run.figures, f"{aid}_sensitivity", f"leave one source out: {sec['title']}"),
+        "loso": refits.loc[refits["part"] == "leave_one_source_out", cols],
+        "basis": refits.loc[refits["part"] == "by_basis", cols[:-1] + ["ci_change", "flips"]],
+        "jack": summ[["n", "slope", "jackknife_se", "analytic_se", "se_ratio"]], "me": me,
+        "me_note": summ["mc_note"].iat[0]}
+
+
+def _regime_view(run) -> dict:
+    d = run.derived
+    if "regime" not in run.figures:
+        why = "; ".join(n for n in run.notes if "deriv" in n or "regime" in n) or "no derived values"
+        return {"fig": None, "why": why}
+    cols = [c for c in REGIME_COLUMNS if c in d]
+    shown = d.loc[d["regime"].notna() & (d["regime"].astype("string") != ""), cols]
+    return {"fig": render.fig(run.figures, "regime", "regime plot"), "frame": shown}
+
+
+def report_html(run) -> str:
+    """The whole report.html of a run."""
+    from comparo import __version__
+
+    settings = run.ds.settings or {}
+    titles = {s["id"]: s["title"] for s in run.sections}
+    for f in run.fits:
+        titles.setdefault(f["id"], f["id"])
+    by = next((f["by"] for f in run.fits if f.get("by")), None)
+    verdicts = [{"title": titles[k], "verdict": v["result"].verdict} for k, v in run.sens.items()]
+    return render.render(
+        "report.html.j2", title=settings.get("title") or f"comparo report: {run.folder.name}",
+        synthetic=_synthetic(settings), dataset=run.folder.name, n_taxa=len(run.table), origin=run.origin,
+        defaults=run.defaults, seed=int(run.seed), summary_rows=render.summary_rows(run.fits, titles), verdicts=verdicts,
+        any_groups=any(f.get("by") and "result" in f for f in run.fits),
+        regime_lines=render.regime_lines(run.derived, by),
+        temperature=render.temperature_view(run.h, run.ds, run.temperature),
+        n_warnings=run.checked.n_warnings, n_notes=run.checked.n_notes, audit_summary=run.aud.summary(),
+        notes=render.grouped_notes(run.notes), analyses=[_analysis_view(run, s) for s in run.sections],
+        flags_frame=run.frames["flags"], sensitivity=[_sensitivity_view(run, s) for s in run.sections],
+        draws=int(run.draws), regime=_regime_view(run),
+        coverage=render.fig(run.figures, "coverage", "coverage map"),
+        sources_fig=render.fig(run.figures, "sources", "source contributions"),
+        problems=render.problems_view(run.checked.problems),
+        appendix=appendix(run.frames["points"], run.ds, run.h), version=__version__)
