@@ -30,6 +30,7 @@ import numpy as np
 
 MIN_CYCLES = 2  # whole cycles needed for a mean and an SD over cycles
 MIN_SAMPLES_PER_CYCLE = 8  # common practice: fewer samples cannot trace a loop's shape
+MIN_EXPLAINED = 0.25  # rule of thumb: a cycle needs a fundamental explaining a quarter of the variance
 
 
 class CycleError(ValueError):
@@ -115,9 +116,10 @@ def cycle_frequency(t: np.ndarray, signals: list[np.ndarray]) -> float:
     spectrum = None
     scaled = []
     for y in signals:
-        d = _detrended(tc, np.asarray(y, float))
+        y = np.asarray(y, float)
+        d = _detrended(tc, y)
         sd = float(np.std(d))
-        if not sd > 0 or not math.isfinite(sd):
+        if not sd > 1e-9 * float(np.max(np.abs(y))) or not math.isfinite(sd):  # rounding residue only
             continue
         scaled.append(d / sd)
         u = np.interp(grid, tc, d / sd) * np.hanning(n)
@@ -134,6 +136,10 @@ def cycle_frequency(t: np.ndarray, signals: list[np.ndarray]) -> float:
     lo, hi = max(freqs[i] - 1.5 * step, 0.5 * freqs[i]), freqs[i] + 1.5 * step
     best = minimize_scalar(lambda f: -_explained(tc, scaled, f), bounds=(lo, hi), method="bounded",
                            options={"xatol": 1e-10 * freqs[i]})
+    share = -best.fun / len(scaled)
+    if share < MIN_EXPLAINED:
+        raise CycleError(f"no clear oscillation: a sinusoid at the best frequency ({best.x:.6g} Hz) explains "
+                         f"{100 * share:.0f}% of the signals' variance (at least {100 * MIN_EXPLAINED:.0f}% is needed)")
     return float(best.x)
 
 
