@@ -29,17 +29,18 @@ from comparo.errors import InputError, Problem
 TRACES_FILE = "traces.csv"
 MAX_LISTED = 20  # problems listed per column of one trace file before a count
 KINDS = ("strain_cycle", "work_loop")
-# quantity keys a trace contributes to the table, per kind (canonical SI values)
+# quantity keys a trace contributes to the table, per kind. The cycle frequency is not one: it is
+# a condition the experimenter imposed (or the preparation ran at), not a trait of the taxon, and
+# two traces of one taxon would "conflict" in it at the precision of a fit.
 TABLE_KEYS = {
-    "strain_cycle": ("cycle_frequency", "loop_area", "volume_strain_amplitude", "isochoric_departure", "work_density"),
-    "work_loop": ("cycle_frequency", "net_work", "power", "mass_specific_power"),
+    "strain_cycle": ("loop_area", "volume_strain_amplitude", "isochoric_departure", "work_density"),
+    "work_loop": ("net_work", "power", "mass_specific_power"),
 }
 SI_UNITS = {
     "frequency": "Hz", "loop_area": "1", "volume_strain_amplitude": "1", "isochoric_departure": "1",
     "net_work": "J", "power": "W", "work_density": "J/m**3", "odd_modulus": "Pa", "odd_modulus_implied": "Pa",
     "mass_specific_power": "W/kg", "muscle_mass": "kg", "cycle_bounds": "s",
 }
-_CATALOGUE_KEY = {"frequency": "cycle_frequency"}
 
 
 @dataclass(frozen=True)
@@ -424,13 +425,12 @@ def trace_observations(ds, obs):
     recs = []
     for r in ts.results:
         for key in TABLE_KEYS[r.kind]:
-            src = "frequency" if key == "cycle_frequency" else key
-            if src not in r.values:
+            if key not in r.values:
                 continue
-            mean, sd = r.values[src]
+            mean, sd = r.values[key]
             q = ds.catalog[key]
-            f = 1.0 / units.conversion_factor(q.unit, SI_UNITS.get(src, q.unit))
-            n = r.cycles if src != "frequency" else max(r.cycles - 1, 1)
+            f = 1.0 / units.conversion_factor(q.unit, SI_UNITS[key])
+            n = r.cycles
             se = sd / math.sqrt(n) * abs(f) if math.isfinite(sd) else math.nan
             ids = ";".join([f"trace:{r.trace_id}", *[i for v in r.inputs.values() for i in v]])
             recs.append({
