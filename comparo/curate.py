@@ -476,10 +476,11 @@ def gate_problems(ds: Dataset) -> list[Problem]:
 
 def _gate_hooks() -> list:
     """The gate's checks, imported when ``check`` runs (one line per step)."""
+    from comparo.config import settings_problems
     from comparo.phylo import tree_problems
     from comparo.traces import trace_problems
 
-    hooks: list = [tree_problems, trace_problems]
+    hooks: list = [settings_problems, tree_problems, trace_problems]
     return hooks
 
 

@@ -867,6 +867,41 @@ def parse_ratio(name: str, expression: str) -> Ratio:
     return Ratio(name, expression, float(c), tuple(e.items()))
 
 
+#: Decimal exponent beyond which a ratio value over- or underflows a double (1.8e308, 2.2e-308).
+DOUBLE_DECADES = 307.0
+#: Decades assumed for a quantity without a plausible range when bounding a ratio (SI units).
+_NO_RANGE_DECADES = (-30.0, 30.0)
+
+
+def _decades(catalog, key: str) -> tuple[float, float]:
+    """log10 of the plausible range of *key* in SI base units (wide when unknown)."""
+    from comparo.units import parse_unit
+
+    if key not in catalog or catalog[key].range is None:
+        return _NO_RANGE_DECADES
+    q = catalog[key]
+    lo, hi = q.range
+    if not (lo > 0 and hi > 0):
+        return _NO_RANGE_DECADES
+    to_si = float(parse_unit(q.unit).to_base_units().magnitude)
+    return math.log10(lo * to_si), math.log10(hi * to_si)
+
+
+def ratio_overflow(ratio: Ratio, catalog) -> str:
+    """Why *ratio* can leave the range of a double (1e-307..1e307, SI) over the plausible
+    ranges of its quantities, or ``""`` when it cannot."""
+    if not (math.isfinite(ratio.constant) and ratio.constant > 0):
+        return f"the constant of ratio {ratio.name!r} is beyond a double"
+    lo = hi = math.log10(ratio.constant)
+    for k, p in ratio.exponents:
+        a, b = (p * d for d in _decades(catalog, k))
+        lo, hi = lo + min(a, b), hi + max(a, b)
+    if hi <= DOUBLE_DECADES and lo >= -DOUBLE_DECADES:
+        return ""
+    return (f"ratio {ratio.name!r} would span 1e{lo:.0f} to 1e{hi:.0f} (SI) over the plausible ranges of its "
+            "quantities, beyond what a double holds (1e-307 to 1e307)")
+
+
 # ------------------------------------------------------------------------ settings
 
 _OPTIONAL_SETTINGS = {"fallback_temperature_c"}
@@ -1348,6 +1383,10 @@ def _ratios(out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys,
         if not ratio.exponents:
             bad(f"ratio {name!r} has no quantity in it")
         if len(op_units) != len(ratio.exponents):
+            continue
+        span = ratio_overflow(ratio, catalog)
+        if span:
+            bad(span, "use smaller powers")
             continue
         q = parse_unit("dimensionless")
         for k, p in ratio.exponents:

@@ -30,13 +30,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-#: Fits run when ``comparo.toml`` declares no ``[[analysis]]`` (kept when the columns exist).
-DEFAULT_ANALYSES = (
-    {"x": "body_mass", "y": "frequency_observed", "method": "sma"},
-    {"x": "fiber_radius", "y": "frequency_observed", "method": "sma"},
-    {"x": "frequency_kinetic_bound", "y": "frequency_observed", "method": "sma"},
-    {"x": "frequency_hydraulic_bound", "y": "frequency_observed", "method": "sma"},
-)
+from comparo.config import DEFAULT_ANALYSES  # noqa: F401  (the default fits, kept importable here)
 
 #: Monte Carlo draws of the measurement-error part of the report's sensitivity section. A modest
 #: number keeps the report fast; ``comparo fit --sensitivity`` uses 1000. The spread of the
@@ -167,14 +161,6 @@ def _tree_labels(ds) -> dict[str, str] | None:
     from comparo.phylo import dataset_tree_labels, tip_labels
 
     return dataset_tree_labels(ds.taxa, tip_labels(ds.tree)) or None
-
-
-def _analyses(settings: dict, table) -> tuple[list[dict], str]:
-    declared = settings.get("analysis") or []
-    if declared:
-        return [dict(a) for a in declared], "declared in comparo.toml"
-    chosen = [dict(a) for a in DEFAULT_ANALYSES if a["x"] in table and a["y"] in table]
-    return chosen, "default set (comparo.toml declares no [[analysis]])"
 
 
 def _analysis_id(i: int, a: dict) -> str:
@@ -387,6 +373,8 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     import pandas as pd
 
     from comparo import plots
+    from comparo.config import analyses as choose_analyses
+    from comparo.config import derive_settings
     from comparo.csvsafe import to_csv
     from comparo.curate import harmonise, per_taxon, review
     from comparo.errors import ComparoError
@@ -410,7 +398,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     try:
         from comparo.derive import derive
 
-        dset = {**settings.get("derive", {}), "ratios": settings.get("ratios", {}), "quantities": settings.get("quantities", {})}
+        dset = derive_settings(settings)
         derived = derive(table, dset, seed=seed)
     except (ImportError, ComparoError, ValueError, KeyError) as exc:  # the section says why
         notes.append(f"derived quantities unavailable: {type(exc).__name__}: {exc}")
@@ -422,7 +410,8 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
         tables["derived"] = to_csv(derived)
     figures: dict[str, tuple[bytes, bytes]] = {}
 
-    analyses, origin = _analyses(settings, data)
+    analyses, origin = choose_analyses(settings, data, ds.catalog,
+                                       set(ds.taxa.columns) if ds.taxa is not None else set())
     fits: list[dict] = []
     fit_frames, flag_rows, point_frames = [], [], []
     sections = []

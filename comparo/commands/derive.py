@@ -4,6 +4,7 @@ from __future__ import annotations
 
 
 def run(args) -> int:
+    from comparo.config import derive_settings
     from comparo.csvsafe import to_csv
     from comparo.curate import per_taxon
     from comparo.dataset import load
@@ -12,8 +13,7 @@ def run(args) -> int:
 
     ds = load(args.dataset)
     table = per_taxon(ds, temperature=not args.no_temperature)
-    settings = {**ds.settings.get("derive", {}), "ratios": ds.settings.get("ratios", {}),
-                "quantities": ds.settings.get("quantities", {})}
+    settings = derive_settings(ds.settings)
     out = derive(table, settings, mc=args.mc, seed=args.seed)
     emit(to_csv(out), args.output)
     return 0
