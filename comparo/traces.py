@@ -36,6 +36,7 @@ TABLE_KEYS = {
     "strain_cycle": ("loop_area", "volume_strain_amplitude", "isochoric_departure", "work_density"),
     "work_loop": ("net_work", "power", "mass_specific_power"),
 }
+KEY_INPUTS = {"work_density": "odd_modulus", "mass_specific_power": "muscle_mass"}  # the taxon value each rests on
 SI_UNITS = {
     "frequency": "Hz", "loop_area": "1", "volume_strain_amplitude": "1", "isochoric_departure": "1",
     "net_work": "J", "power": "W", "work_density": "J/m**3", "odd_modulus": "Pa", "odd_modulus_implied": "Pa",
@@ -432,7 +433,7 @@ def trace_observations(ds, obs):
             f = 1.0 / units.conversion_factor(q.unit, SI_UNITS[key])
             n = r.cycles
             se = sd / math.sqrt(n) * abs(f) if math.isfinite(sd) else math.nan
-            ids = ";".join([f"trace:{r.trace_id}", *[i for v in r.inputs.values() for i in v]])
+            ids = ";".join([f"trace:{r.trace_id}", *r.inputs.get(KEY_INPUTS.get(key, ""), ())])
             recs.append({
                 "obs_id": f"{r.trace_id}:{key}", "row": r.row, "taxon": r.taxon, "accepted": _accepted(ds, r.taxon),
                 "quantity": key, "quantity_key": key, "value": mean * f, "unit": q.unit, "value_canonical": mean * f,

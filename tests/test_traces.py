@@ -105,6 +105,22 @@ def test_results_enter_the_table_as_computed_values_with_lineage(traced, tmp_pat
     note = rows.loc["W1:net_work", "notes"]
     assert "loops/w1.csv" in note and "whole cycle" in note
     assert rows.loc["W1:mass_specific_power", "inputs"].split(";") == ["trace:W1", "o7"]
+    assert rows.loc["W1:net_work", "inputs"] == "trace:W1"  # net work rests on the trace alone
+    assert rows.loc["S1:work_density", "inputs"].split(";") == ["trace:S1", "o8"]
+
+
+def test_exports_carry_the_trace_results(traced, tmp_path):
+    assert run_cli("export", str(traced), "--to", "dwc", "-o", str(tmp_path / "dwc")).returncode == 0
+    import pandas as pd
+
+    mof = pd.read_csv(tmp_path / "dwc" / "measurementorfact.csv").set_index("measurementID")
+    assert mof.loc["W1:net_work", "measurementUnit"] == "J"
+    assert "trace W1" in mof.loc["W1:net_work", "measurementRemarks"]
+    assert run_cli("export", str(traced), "--to", "datapackage", "-o", str(tmp_path / "dp")).returncode == 0
+    pkg = json.loads((tmp_path / "dp" / "datapackage.json").read_text())
+    assert "cycles" in [r["name"] for r in pkg["resources"]]
+    cyc = pd.read_csv(tmp_path / "dp" / "cycles.csv")
+    assert list(cyc["trace_id"]) == ["W1", "W2", "S1"]
 
 
 def test_check_passes_and_csv_output_file(traced, tmp_path):
