@@ -35,6 +35,7 @@ _API = {
     "pic": "comparo.phylo",
     "tree_signal": "comparo.phylo",
     "read_tree": "comparo.phylo",
+    "cycles": "comparo.traces",
 }
 
 __all__ = sorted(_API) + ["__version__"]

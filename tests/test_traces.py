@@ -203,3 +203,24 @@ def test_many_bad_cells_are_counted_not_dropped(traced):
     assert proc.returncode == 2
     probs = [p for p in json.loads(proc.stdout)["problems"] if p["file"] == "s1.csv"]
     assert len(probs) == 21 and "80 more" in probs[-1]["message"]
+
+
+def test_loop_figures_render_with_direction_arrows(traced):
+    from comparo import cycles, load
+    from comparo.plots import loop_plot, render
+
+    for r in cycles(load(traced)).results:
+        fig = loop_plot(r)
+        ax = fig.axes[0]
+        arrows = [a for a in ax.texts if getattr(a, "arrow_patch", None) is not None]
+        assert len(arrows) == 4
+        # the arrows turn the way the loop runs: their summed cross product has the sign of the area
+        turn = 0.0
+        cx, cy = np.mean([a.xyann for a in arrows], axis=0)
+        for a in arrows:
+            (x0, y0), (x1, y1) = a.xyann, a.xy
+            turn += (x0 - cx) * (y1 - y0) - (y0 - cy) * (x1 - x0)
+        key = "loop_area" if r.kind == "strain_cycle" else "net_work"
+        assert np.sign(turn) == np.sign(r.values[key][0])
+        png, svg = render(fig)
+        assert png[:8] == b"\x89PNG\r\n\x1a\n" and b"<svg" in svg
