@@ -25,8 +25,10 @@ from typing import Any
 import numpy as np
 
 from comparo.errors import InputError, Problem
+from comparo.validate import WORKING_RANGE
 
 TRACES_FILE = "traces.csv"
+WORKING = WORKING_RANGE  # magnitudes comparo computes with
 MAX_LISTED = 20  # problems listed per column of one trace file before a count
 KINDS = ("strain_cycle", "work_loop")
 # quantity keys a trace contributes to the table, per kind. The cycle frequency is not one: it is
@@ -250,16 +252,46 @@ def _read_one(ds, rec: dict[str, str], row: int) -> tuple[TraceResult | None, li
     strain = rec["kind"] == "strain_cycle"
     x = nums[cols[1]] * units.conversion_factor(rec["x_unit"], "1" if strain else "m")
     y = nums[cols[2]] * units.conversion_factor(rec["y_unit"], "1" if strain else "N")
+    p = _range_problems(rec, row, {cols[0]: t, cols[1]: x, cols[2]: y}, table.rows, strain)
+    probs += p
+    if any(q.severity == "error" for q in p):
+        return None, probs
     try:
         red = loops.strain_loop(t, x, y) if strain else loops.work_loop(t, x, y)
     except loops.CycleError as exc:
         return None, probs + [_p(TRACES_FILE, row, "file", rel, "trace-cycles", f"trace {rec['trace_id']!r} cannot be split into cycles: {exc}",
                                  "record more whole cycles (at least 2, with at least 8 samples each), or check the columns and units")]
-    if strain and np.any(1.0 + x <= 0) or strain and np.any(1.0 + y <= 0):
-        return None, probs + [_p(TRACES_FILE, row, "x_unit", rec["x_unit"], "trace-strain-range",
-                                 "a strain at or below -1 (-100%) cannot be a deformation",
-                                 "strain typed in % with unit 1? give the unit as %")]
-    return _result(rec, row, red, t, x, y), probs
+    res = _result(rec, row, red, t, x, y)
+    bad = [k for k, (m, _) in res.values.items() if not (math.isfinite(m) and (m == 0 or WORKING[0] <= abs(m) <= WORKING[1]))]
+    if bad:
+        return None, probs + [_p(TRACES_FILE, row, "file", rel, "trace-result-range",
+                                 f"the reduced {', '.join(bad)} of trace {rec['trace_id']!r} leave the range comparo computes in "
+                                 f"({WORKING[0]:g} to {WORKING[1]:g} in SI units)", "check the units of the columns")]
+    return res, probs
+
+
+def _range_problems(rec: dict[str, str], row: int, columns: dict[str, np.ndarray], rows: list[int], strain: bool) -> list[Problem]:
+    """Samples beyond what a double can take through the reduction (|v| > 1e100 in SI) are errors at
+    their cell; strains at or below -100% errors at their cell, strains above 50% one warning."""
+    probs = []
+    for col, v in columns.items():
+        far = np.flatnonzero(np.abs(v) > 1e100)
+        if len(far):
+            probs.append(_p(rec["file"], rows[int(far[0])], col, f"{v[far[0]]:g}", "trace-value-range",
+                            f"{len(far)} sample(s) beyond 1e100 in SI units (first shown)", "check the unit of the column"))
+    if strain:
+        for col, name in ((list(columns)[1], "x_unit"), (list(columns)[2], "y_unit")):
+            v = columns[col]
+            low = np.flatnonzero(v <= -1.0)
+            if len(low):
+                probs.append(_p(rec["file"], rows[int(low[0])], col, f"{v[low[0]]:g}", "trace-strain-range",
+                                f"{len(low)} strain(s) at or below -1 (-100%): not a deformation (first shown)",
+                                f"strain typed in % with {name} 1? give the unit as %"))
+            elif np.max(np.abs(v)) > 0.5:
+                probs.append(_p(TRACES_FILE, row, name, rec[name], "trace-strain-large",
+                                f"strains in {col} reach {100 * np.max(np.abs(v)):.3g}%: typed in % with unit 1?",
+                                "give the unit as % if the numbers are percentages", severity="warning"))
+    return probs
 
 
 def _result(rec: dict[str, str], row: int, red, t, x, y) -> TraceResult:
@@ -325,7 +357,7 @@ def read_traces(ds) -> TraceSet:
         if whole_file or row in bad_rows or up:
             continue
         res, p = _read_one(ds, rec, row)
-        probs += p
+        probs += [replace(q, message=f"{q.message} (trace {rec['trace_id']!r}, {file} row {row})") if q.file != file else q for q in p]
         if res is not None:
             results.append(res)
     out = TraceSet(tuple(results), tuple(probs))
