@@ -638,5 +638,5 @@ def read_folder(folder: str | Path) -> RawDataset:
         raw.files["settings"] = settings
         raw.settings, p = read_settings(settings)
         raw.problems += p
-    raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa) if t is not None])
+    raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa, raw.traces) if t is not None])
     return raw
