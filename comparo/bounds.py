@@ -89,3 +89,71 @@ def check_bootstrap(n_boot: int, n_points: int, method: str) -> int:
             f"(time: {TIME_BUDGET_S:.0f} s at about {how}; memory: half of {memory_bytes() / 2**30:.1f} GiB "
             "at 16 bytes a resample)")
     return n_boot
+
+
+# Measurement-error Monte Carlo of `comparo fit --sensitivity` (the demo, 61 points, 2 cores under
+# load): 200,000 draws took about 9 s more than none (1.4e6 point-draws per second) and peak
+# memory grew by about 550 bytes a draw (x and y draws, 8 bytes each per point). Round figures:
+SENSITIVITY_POINT_DRAWS_PER_S = 1.0e6
+SENSITIVITY_BYTES_PER_POINT_DRAW = 16.0
+
+
+def check_draws(n_draws: int, n_points: int, method: str, option: str = "--mc") -> int:
+    """Monte Carlo draws of the measurement-error sensitivity: 0 or up to a cap.
+
+    The cap is the smaller of the draws whose estimated time exceeds TIME_BUDGET_S
+    (SENSITIVITY_POINT_DRAWS_PER_S for ols/sma/ma; REFITS_PER_S otherwise) and those
+    whose draws (16 bytes per point) exceed half of physical memory.
+    """
+    if isinstance(n_draws, bool) or not isinstance(n_draws, int):
+        raise UsageError(f"{option} must be a whole number (got {n_draws!r})")
+    if n_draws < 0:
+        raise UsageError(f"{option} must be 0 or a positive number of draws (got {n_draws})")
+    n = max(n_points, 1)
+    if method in ("ols", "sma", "ma"):
+        by_time = int(TIME_BUDGET_S * SENSITIVITY_POINT_DRAWS_PER_S / n)
+        how = f"{SENSITIVITY_POINT_DRAWS_PER_S:.0e} point-draws per second"
+    else:
+        by_time = int(TIME_BUDGET_S * REFITS_PER_S)
+        how = f"{REFITS_PER_S:.0f} refits per second for {method}"
+    by_memory = int(MEMORY_SHARE * memory_bytes() / (SENSITIVITY_BYTES_PER_POINT_DRAW * n))
+    cap = min(by_time, by_memory)
+    if n_draws > cap:
+        raise UsageError(
+            f"{option} {n_draws} exceeds this machine's cap of {cap} draws for {n_points} taxa (time: "
+            f"{TIME_BUDGET_S:.0f} s at about {how}; memory: half of {memory_bytes() / 2**30:.1f} GiB at "
+            f"{SENSITIVITY_BYTES_PER_POINT_DRAW:.0f} bytes per point and draw)")
+    return n_draws
+
+
+# Derivation Monte Carlo: measured with `comparo derive` on the 60-taxon demo on 2 cores
+# under load (tests/benchmarks/bench_derive.py route): 2e6 draws took 167 s (7e5 taxon-draws
+# per second) and peak memory grew by about 270 bytes per draw of one taxon block.
+# Conservative round figures:
+MC_TAXON_DRAWS_PER_S = 5.0e5
+MC_BYTES_PER_DRAW = 300.0
+
+
+def check_mc(mc: int, n_taxa: int, option: str = "--mc") -> int:
+    """Monte Carlo draws per taxon for :func:`comparo.derive`: 0 (first order only) up to a cap.
+
+    The cap is the smaller of (a) the draws whose estimated time for *n_taxa* taxa
+    exceeds TIME_BUDGET_S at MC_TAXON_DRAWS_PER_S, and (b) the draws whose block (one
+    taxon at a time at the largest sizes, two blocks in flight) exceeds half of physical
+    memory at MC_BYTES_PER_DRAW.
+    """
+    if isinstance(mc, bool) or not isinstance(mc, int):
+        raise UsageError(f"{option} must be a whole number (got {mc!r})")
+    if mc < 0:
+        raise UsageError(f"{option} must be 0 or a positive number of draws (got {mc})")
+    if mc == 0:
+        return 0
+    by_time = int(TIME_BUDGET_S * MC_TAXON_DRAWS_PER_S / max(n_taxa, 1))
+    by_memory = int(MEMORY_SHARE * memory_bytes() / (2 * MC_BYTES_PER_DRAW))
+    cap = min(by_time, by_memory)
+    if mc > cap:
+        raise UsageError(
+            f"{option} {mc} exceeds this machine's cap of {cap} draws for {n_taxa} taxa (time: "
+            f"{TIME_BUDGET_S:.0f} s at about {MC_TAXON_DRAWS_PER_S:.0e} taxon-draws per second; memory: half of "
+            f"{memory_bytes() / 2**30:.1f} GiB at about {MC_BYTES_PER_DRAW:.0f} bytes a draw, two blocks in flight)")
+    return mc

@@ -585,7 +585,8 @@ class _Propagation:
 def _propagate(compute: Callable[[dict[str, Any]], dict[str, Any]], leaves: dict[str, np.ndarray],
                rel_u: dict[str, np.ndarray], ignore_unknown: bool, mc: int,
                rng: np.random.Generator | None, mc_outputs: list[str] | None = None,
-               mirrors: dict[str, tuple[str, Callable[[Any], Any]]] | None = None) -> _Propagation:
+               mirrors: dict[str, tuple[str, Callable[[Any], Any]]] | None = None,
+               progress: bool = False) -> _Propagation:
     """Values, GUM uncertainties, lineage and Monte Carlo summaries of compute(leaves).
 
     First order on the log scale: cᵢ = ∂ln y/∂ln xᵢ by central differences of step
@@ -625,7 +626,7 @@ def _propagate(compute: Callable[[dict[str, Any]], dict[str, Any]], leaves: dict
         u[key] = np.where(np.isnan(y), np.nan, uu)
     summaries: dict[str, dict[str, np.ndarray]] = {}
     if mc > 0:
-        summaries = _monte_carlo(compute, leaves, rel_u, mc, rng, mc_outputs or list(base), mirrors)
+        summaries = _monte_carlo(compute, leaves, rel_u, mc, rng, mc_outputs or list(base), mirrors, progress)
         for key, s in summaries.items():
             bad = np.isnan(u[key])
             for arr in s.values():
@@ -633,7 +634,7 @@ def _propagate(compute: Callable[[dict[str, Any]], dict[str, Any]], leaves: dict
     return _Propagation(base, u, deps, unknown_names, summaries)
 
 
-def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None):
+def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None, progress: bool = False):
     """Vectorised Monte Carlo over taxa in blocks of about 1e6 float32 draws (JCGM 101:2008).
 
     Intervals are order statistics of the sorted draws (JCGM 101:2008, 7.7):
@@ -653,7 +654,9 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None):
     drawn = [k for k, r in rel_u.items() if np.any(np.isfinite(r) & (r > 0))]
     res = {k: {s: np.full(n, np.nan) for s in (*_MC_SUFFIXES, "_mc_u")} for k in outputs}
     in_flight: list[Any] = []
-    with ThreadPoolExecutor(max_workers=min(2, os.cpu_count() or 1)) as pool:
+    bar = _mc_bar(progress and n * mc >= 2_000_000, -(-n // block))
+    with bar, ThreadPoolExecutor(max_workers=min(2, os.cpu_count() or 1)) as pool:
+        task = bar.add_task(f"Monte Carlo, {mc} draws", total=-(-n // block))
         for start in range(0, n, block):
             stop = min(n, start + block)
             vals = {k: v[start:stop] for k, v in leaves.items()}
@@ -665,9 +668,36 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None):
             del args
             if len(in_flight) > 1:  # at most two blocks drawn and not yet summarised
                 in_flight.pop(0).result()
+                bar.advance(task)
         for f in in_flight:
             f.result()
+            bar.advance(task)
     return res
+
+
+class _NoBar:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> bool:
+        return False
+
+    def add_task(self, *args, **kwargs) -> int:
+        return 0
+
+    def advance(self, *args) -> None:
+        return None
+
+
+def _mc_bar(enabled: bool, total: int):
+    """A transient rich progress bar on standard error (for a terminal), else a no-op."""
+    if not enabled or total < 2:
+        return _NoBar()
+    from rich.console import Console
+    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
+
+    return Progress(TextColumn("{task.description}"), BarColumn(), TimeRemainingColumn(),
+                    console=Console(stderr=True), transient=True)
 
 
 def _mc_block(compute, args, sl, mc, outputs, mirrors, res) -> None:
@@ -1020,7 +1050,7 @@ def _fmt(x: float) -> str:
 
 
 def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc: int = 0,
-           seed: int = 20240601) -> pd.DataFrame:
+           seed: int = 20240601, progress: bool = False) -> pd.DataFrame:
     """Add derived time scales, ratios, their uncertainty and lineage to a per-taxon table.
 
     Parameters
@@ -1035,9 +1065,13 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
         ``expression`` and ``unit``) and ``quantities`` (a dataset's own catalogue
         entries, for the units of ratio operands and of the length setting).
     mc : int
-        Monte Carlo draws per taxon (0: first-order uncertainty only).
+        Monte Carlo draws per taxon (0: first-order uncertainty only). Refused above a
+        cap computed from this machine's memory and a 600 s time budget
+        (:func:`comparo.bounds.check_mc`; the message states the cap and how).
     seed : int
         Seed of ``numpy.random.default_rng``.
+    progress : bool
+        Show a progress bar on standard error for a long Monte Carlo run.
 
     Returns
     -------
@@ -1067,12 +1101,13 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     uncertainty in measurement. JCGM 101:2008 Supplement 1 to the GUM — Propagation
     of distributions using a Monte Carlo method.
     """
+    from comparo.bounds import check_mc
     from comparo.catalog import load_catalog, read_schema
-    from comparo.errors import UsageError
     from comparo.units import conversion_factor
 
-    if not isinstance(mc, int | np.integer) or mc < 0:
-        raise UsageError("the number of Monte Carlo draws must be 0 or a positive integer")
+    if isinstance(mc, np.integer):
+        mc = int(mc)
+    mc = check_mc(mc, len(table), option="mc")
     s, ratio_settings, user_quantities = _settings(settings)
     catalog = load_catalog(user_quantities)
     keys = read_schema("derived.toml")["keys"]
@@ -1184,7 +1219,7 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
 
     mirrors = {"frequency_kinetic_bound": ("kinetic_time", lambda t: frequency_bound(t, rule)),
                "frequency_hydraulic_bound": ("poroelastic_time", lambda t: frequency_bound(t, rule, mode))}
-    prop = _propagate(compute, leaves, rel_u, ignore_unknown, mc, rng, list(_SI), mirrors)
+    prop = _propagate(compute, leaves, rel_u, ignore_unknown, mc, rng, list(_SI), mirrors, progress=progress)
     vals = prop.values
 
     # ---- why values are missing

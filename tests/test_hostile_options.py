@@ -52,3 +52,47 @@ def test_minimum_bootstrap_runs():
     assert b["resamples"] == 200
     lo, hi = b["slope"]["percentile"]
     assert lo < hi
+
+
+@pytest.mark.parametrize("argv,words", [
+    (["derive", "{ds}", "--mc", "100000000"], ["--mc 100000000", "cap of", "taxon-draws per second", "GiB"]),
+    (["derive", "{ds}", "--mc", "-3"], ["--mc", "0 or a positive"]),
+    (["fit", "{ds}", "--x", "body_mass", "--y", "frequency_observed", "--sensitivity", "--mc", "1000000000"],
+     ["--mc 1000000000", "cap of", "point-draws per second"]),
+])
+def test_monte_carlo_sizes_beyond_the_machine_are_refused_at_once(tmp_path, capsys, argv, words):
+    """A typo such as --mc 100000000 (21 GB and hours of derive) fails before any work, with
+    the cap and how it was computed (the estimate of comparo.bounds)."""
+    import time
+
+    from support import DEMO
+
+    from comparo.cli import main
+
+    t0 = time.perf_counter()
+    code = main([a.replace("{ds}", str(DEMO)) for a in argv])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert time.perf_counter() - t0 < 30
+    for w in words:
+        assert w in err, err
+
+
+def test_derive_api_caps_draws_too():
+    import re
+
+    import pandas as pd
+
+    from comparo.bounds import check_mc
+    from comparo.derive import derive
+    from comparo.errors import UsageError
+
+    with pytest.raises(UsageError, match="cap of") as info:
+        check_mc(10**12, 10)
+    cap = int(re.search(r"cap of (\d+)", str(info.value)).group(1))
+    assert 0 < cap <= 600 * 5e5 / 10  # never above the time budget's count
+    assert check_mc(cap, 10) == cap  # the stated cap itself is accepted
+    with pytest.raises(UsageError, match="cap of"):
+        check_mc(cap + 1, 10)
+    with pytest.raises(UsageError, match="cap of"):
+        derive(pd.DataFrame({"taxon": ["a"] * 10}), mc=10**9)
