@@ -208,10 +208,6 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         merged_into[d] = first_id[dup]
         reason[d] = [f"duplicate of {m} (same source, locator, taxon, quantity, value)" for m in first_id[dup]]
     obs["status"], obs["reason"], obs["merged_into"] = status, reason, merged_into
-    if ds.traces is not None:  # per-trace cycle results join as computed rows (comparo.traces)
-        from comparo.traces import trace_observations
-
-        obs = trace_observations(ds, obs)
 
     h = Harmonised(obs, reference_temperature_c=t_ref if temperature else None)
     h.unit_slips = find_unit_slips(obs, ds)
@@ -220,6 +216,11 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         m = obs["obs_id"].isin(list(slip_ids)) & (obs["status"] == "used")
         obs.loc[m, "status"] = "excluded"
         obs.loc[m, "reason"] = [f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit {slip_ids[o]['likely_unit']}" for o in obs.loc[m, "obs_id"]]
+    if ds.traces is not None:  # per-trace cycle results join as computed rows (comparo.traces), using
+        from comparo.traces import trace_observations  # only the taxon values still in use
+
+        obs = trace_observations(ds, obs)
+        h.rows = obs
     h.conflicts = find_conflicts(obs, ds)
     return h
 
