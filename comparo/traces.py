@@ -132,6 +132,25 @@ class TraceSet:
         return pd.DataFrame(rows)
 
 
+    def by_taxon(self):
+        """Per taxon (as reported in traces.csv) and kind: number of traces, and per quantity the
+        mean of the per-trace means and their SD across traces (``KEY``, ``KEY_sd``; SI units,
+        NaN where a taxon has one trace or the quantity does not apply). For the report's table."""
+        import pandas as pd
+
+        frame = self.to_frame()
+        if frame.empty:
+            return pd.DataFrame(columns=["taxon", "kind", "traces"])
+        keys = [k for k in ("frequency", "loop_area", "volume_strain_amplitude", "isochoric_departure", "work_density",
+                            "net_work", "power", "mass_specific_power") if k in frame]
+        grp = frame.groupby(["taxon", "kind"], sort=True)
+        out = grp.size().rename("traces").to_frame()
+        for k in keys:
+            out[k] = grp[k].mean()
+            out[f"{k}_sd"] = grp[k].std(ddof=1)
+        return out.reset_index()
+
+
 # --------------------------------------------------------------------------- validation
 
 def _p(file: str, row: int | None, column: str | None, value: Any, rule: str, message: str, hint: str = "",

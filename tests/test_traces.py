@@ -224,3 +224,17 @@ def test_loop_figures_render_with_direction_arrows(traced):
         assert np.sign(turn) == np.sign(r.values[key][0])
         png, svg = render(fig)
         assert png[:8] == b"\x89PNG\r\n\x1a\n" and b"<svg" in svg
+
+
+def test_per_taxon_summary_of_traces(traced):
+    from comparo import cycles, load
+
+    ts = cycles(load(traced))
+    tab = ts.by_taxon().set_index(["taxon", "kind"])
+    apis = tab.loc[("Apis mellifera", "work_loop")]
+    w = [r.values["net_work"][0] for r in ts.results if r.taxon == "Apis mellifera"]
+    assert apis["traces"] == 2
+    assert apis["net_work"] == pytest.approx(np.mean(w), rel=1e-12)
+    assert apis["net_work_sd"] == pytest.approx(np.std(w, ddof=1), rel=1e-9)
+    assert tab.loc[("Bombus terrestris", "strain_cycle"), "traces"] == 1
+    assert np.isnan(tab.loc[("Bombus terrestris", "strain_cycle"), "net_work"])
