@@ -5,13 +5,15 @@ uncertainty, scaling fits with honest confidence intervals, and the audit of
 which sources each conclusion rests on.
 
 Heavy modules are imported lazily, so ``import comparo`` and ``comparo --help``
-stay fast; the public names below resolve on first use.
+stay fast; the public names below resolve on first use. No module shares its
+name with a public function: ``comparo.fit`` is the function of
+:mod:`comparo.lines`, ``comparo.derive`` that of :mod:`comparo.derivation`,
+``comparo.sensitivity`` that of :mod:`comparo.reliance` (the module map is
+docs/architecture.md).
 """
 
 from __future__ import annotations
 
-import sys
-import types
 from importlib import import_module
 from typing import Any
 
@@ -27,12 +29,13 @@ _API = {
     "load_catalog": "comparo.catalog",
     "per_taxon": "comparo.curate",
     "audit": "comparo.provenance",
-    "derive": "comparo.derive",
-    "fit": "comparo.fit",
-    "sensitivity": "comparo.sensitivity",
+    "derive": "comparo.derivation",
+    "fit": "comparo.lines",
+    "FitResult": "comparo.lines",
+    "sensitivity": "comparo.reliance",
     "build_report": "comparo.report",
-    "pgls_fit": "comparo.phylo",
-    "pic": "comparo.phylo",
+    "phylo_fit": "comparo.phylo",
+    "contrasts": "comparo.phylo",
     "tree_signal": "comparo.phylo",
     "read_tree": "comparo.phylo",
     "cycles": "comparo.traces",
@@ -52,21 +55,3 @@ def __getattr__(name: str) -> Any:
 def __dir__() -> list[str]:
     return __all__
 
-
-# ``fit``, ``derive`` and ``sensitivity`` are both public functions and the
-# submodules that define them. Importing a submodule makes Python bind the
-# module object on the package, which would turn ``comparo.fit(...)`` into
-# "'module' object is not callable". The package keeps the function instead;
-# the submodule itself stays reachable as ``sys.modules["comparo.fit"]`` and
-# through ``from comparo.fit import ...``.
-_SHADOWED = frozenset(name for name, module in _API.items() if module == f"{__name__}.{name}")
-
-
-class _Package(types.ModuleType):
-    def __setattr__(self, name: str, value: Any) -> None:
-        if name in _SHADOWED and isinstance(value, types.ModuleType):
-            value = getattr(value, name)
-        super().__setattr__(name, value)
-
-
-sys.modules[__name__].__class__ = _Package

@@ -103,7 +103,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--reml", action="store_true", help="pgls: REML for the lambda search and the reported likelihood")
     p.add_argument("--tip-se", action="store_true", help="pgls: add the per-taxon standard uncertainties of y (column Y_u) as measurement-error variance")
     p.add_argument("--by", metavar="COLUMN", default=None, help="fit per group and test for a common slope")
-    p.add_argument("--test-slope", type=float, default=None, metavar="VALUE", help="test the slope against this exponent")
+    p.add_argument("--against", type=float, default=None, metavar="VALUE",
+                   help="test the slope against this exponent (e.g. 1 for isometry)")
+    # the old name of --against, kept one release; hidden from --help, warns on use
+    p.add_argument("--test-slope", dest="test_slope_renamed", type=float, default=None, help=argparse.SUPPRESS)
     p.add_argument("--ci", type=float, default=0.95, metavar="LEVEL", help="confidence level (default 0.95)")
     p.add_argument("--bootstrap", type=int, default=0, metavar="N", help="add percentile and BCa bootstrap CIs from N resamples")
     p.add_argument("--seed", type=int, default=20240601, help="random seed for resampling")

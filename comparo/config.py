@@ -5,11 +5,11 @@ settings (q10, conflict_factor, ...). This module checks the settings of the lat
 steps so that ``comparo check`` can report them before ``derive``, ``fit`` or
 ``report`` would stop on them:
 
-* ``[derive]``: names, choices and ranges (:func:`comparo.derive` defaults, schema/derived.toml);
+* ``[derive]``: names, choices and ranges (defaults of :func:`comparo.derive`, schema/derived.toml);
 * ``[ratios]``: each expression parsed, its quantities known, and its values kept
   inside the range of a double over the plausible ranges of its quantities;
 * ``[[analysis]]``: each fit a table with ``x`` and ``y`` naming quantities, a known
-  ``method``, a ``by`` column that exists and a finite ``test_slope``.
+  ``method``, a ``by`` column that exists and a finite ``against`` (old name ``test_slope``).
 
 :func:`settings_problems` is the gate hook (``comparo check``); :func:`derive_settings`
 and :func:`analyses` are what ``derive`` and ``report`` call, raising the same problems.
@@ -25,7 +25,7 @@ from typing import Any
 from comparo.errors import InputError, Problem, problems_from_frame
 
 #: Keys one ``[[analysis]]`` entry may hold.
-ANALYSIS_KEYS = ("x", "y", "method", "by", "test_slope")
+ANALYSIS_KEYS = ("x", "y", "method", "by", "against", "test_slope")  # test_slope: the old name of against
 
 #: Fits run when ``comparo.toml`` declares no ``[[analysis]]`` (kept when the columns exist).
 DEFAULT_ANALYSES = (
@@ -89,7 +89,7 @@ def ratio_problems(ratios: Mapping[str, Any], catalog) -> list[Problem]:
     """Problems of the ``[ratios]`` expressions that need no data: syntax, unknown
     quantities, names taken, and values that would leave the range of a double
     (1e-307..1e307) somewhere inside the plausible ranges of their quantities."""
-    from comparo.derive import parse_ratio, ratio_overflow
+    from comparo.derivation import parse_ratio, ratio_overflow
 
     known = _known_quantities(catalog)
     probs: list[Problem] = []
@@ -121,7 +121,7 @@ def ratio_problems(ratios: Mapping[str, Any], catalog) -> list[Problem]:
 
 
 def _analysis_problems(i: int, a: Mapping[str, Any], quantities: set[str], columns: set[str] | None) -> list[Problem]:
-    from comparo.fit import METHODS
+    from comparo.lines import METHODS
 
     probs = []
     where = f"analysis[{i + 1}]"
@@ -148,9 +148,10 @@ def _analysis_problems(i: int, a: Mapping[str, Any], quantities: set[str], colum
     if by is not None and (not isinstance(by, str) or (columns is not None and by not in columns)):
         probs.append(_problem(f"{where}.by", by, "analysis-setting", "by must name a column of taxa.csv",
                               f"columns: {', '.join(sorted(columns))}" if columns else "add the column to taxa.csv"))
-    ts = a.get("test_slope")
-    if ts is not None and (isinstance(ts, bool) or not isinstance(ts, int | float) or not math.isfinite(ts)):
-        probs.append(_problem(f"{where}.test_slope", ts, "analysis-setting", "test_slope must be a finite number"))
+    for key in ("against", "test_slope"):
+        ts = a.get(key)
+        if ts is not None and (isinstance(ts, bool) or not isinstance(ts, int | float) or not math.isfinite(ts)):
+            probs.append(_problem(f"{where}.{key}", ts, "analysis-setting", f"{key} must be a finite number"))
     return probs
 
 
@@ -171,7 +172,7 @@ def analyses(settings: Mapping[str, Any] | None, table, catalog=None,
              taxa_columns: set[str] | None = None) -> tuple[list[dict], str]:
     """The fits to run: the ``[[analysis]]`` entries, else the default set whose columns exist.
 
-    Returns the list of fits (dicts with x, y, method, by, test_slope) and a phrase saying
+    Returns the list of fits (dicts with x, y, method, by, against) and a phrase saying
     where they came from. Raises :class:`InputError` for a bad entry (as ``check`` reports).
     """
     settings = settings or {}
@@ -189,7 +190,7 @@ def analyses(settings: Mapping[str, Any] | None, table, catalog=None,
 
 def settings_problems(ds) -> list[Problem]:
     """Gate hook: every problem of the derive, ratio and analysis settings of a dataset."""
-    from comparo.derive import _settings
+    from comparo.derivation.settings import _settings
 
     settings = ds.settings or {}
     # [quantities] is checked by validation (the catalogue is built from it)

@@ -40,7 +40,7 @@ BASIS_COLOURS = {"reported": "#0072B2", "computed": "#56B4E9", "digitized": "#00
 BASIS_FILL = {"reported": "full", "computed": "left", "digitized": "left", "proxy": "none", "assumed": "none"}
 BASIS_ORDER = ("reported", "computed", "digitized", "proxy", "assumed")
 
-_STYLE = {
+STYLE = {  # the house style of every figure
     "font.size": 9.5, "axes.titlesize": 10.5, "axes.labelsize": 9.5, "legend.fontsize": 8,
     "axes.spines.top": False, "axes.spines.right": False, "axes.grid": True, "grid.color": "#DDDDDD",
     "grid.linewidth": 0.6, "axes.axisbelow": True, "figure.dpi": 100, "savefig.dpi": 150,
@@ -59,7 +59,7 @@ def _plt():
 
 def _figure(w: float = 6.4, h: float = 4.4, ncols: int = 1):
     plt = _plt()
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(STYLE):
         fig, axes = plt.subplots(1, ncols, figsize=(w, h), layout="constrained")
     return fig, axes
 
@@ -73,7 +73,7 @@ def short(label: object, limit: int = 40) -> str:
 def render(fig: Figure) -> tuple[bytes, bytes]:
     """PNG and SVG bytes of *fig*, byte-identical across runs; the figure is closed."""
     plt = _plt()
-    with plt.rc_context(_STYLE):
+    with plt.rc_context(STYLE):
         png, svg = io.BytesIO(), io.BytesIO()
         fig.savefig(png, format="png", metadata={"Software": None})
         # the layout found for the PNG holds for the SVG (same size in inches): skip a second solve
@@ -111,10 +111,10 @@ def line_band(X: np.ndarray, Y: np.ndarray, method: str, grid: np.ndarray, *, ci
 
     Pairs (X, Y) are resampled with replacement (``numpy.random.default_rng(seed)``,
     vectorised); each resample's line passes through its means with the slope of
-    :func:`comparo.fit.slope_from_moments`. Returns (low, high) at *grid*, or None
+    :func:`comparo.lines.slope_from_moments`. Returns (low, high) at *grid*, or None
     for other methods (no band is drawn for them).
     """
-    from comparo.fit import slope_from_moments
+    from comparo.lines.core import slope_from_moments
 
     if method not in ("ols", "sma", "ma") or len(X) < 3:
         return None
@@ -136,14 +136,23 @@ def _fmt(v: Any, digits: int = 3) -> str:
 
 def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] | None = None,
                  by: str | None = None, seed: int = 20240601, title: str | None = None) -> Figure:
-    """Log-log scaling plot of one fit.
+    """Log-log scaling plot of one fit on a new figure (see :func:`draw_scaling`)."""
+    fig, ax = _figure(9.2, 4.6)
+    draw_scaling(ax, fit, points, catalog=catalog, by=by, seed=seed, title=title)
+    return fig
+
+
+def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] | None = None,
+                 by: str | None = None, seed: int = 20240601, title: str | None = None) -> Any:
+    """Draw the log-log scaling plot of one fit on the matplotlib Axes *ax*; returns *ax*.
 
     Parameters
     ----------
-    fit : comparo.fit.FitResult
+    fit : comparo.lines.FitResult
     points : DataFrame
         The plotted points: ``label``, ``x_fit``, ``y_fit`` (fitted scale),
-        ``basis`` (weakest basis of x and y) and, with *by*, ``group``.
+        ``basis`` (weakest basis of x and y; without it every point is drawn
+        filled and the legend names no basis) and, with *by*, ``group``.
     catalog : quantity catalogue, for axis labels with units.
     by : grouping column name (per-group lines in group colours).
     seed : seed of the bootstrap band (:func:`line_band`).
@@ -154,17 +163,18 @@ def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] |
     pointwise bootstrap interval of the overall line at the fit's CI level.
     Flagged points (``fit.outliers``) are labelled.
     """
-    fig, ax = _figure(9.2, 4.6)
+    if "basis" not in points:
+        points = points.assign(basis="")
     inv = _inverse(fit.log)
     groups = list(dict.fromkeys(points["group"])) if by and "group" in points else [None]
     colour = {g: PALETTE[i % len(PALETTE)] for i, g in enumerate(groups)}
     for g in groups:
         part = points if g is None else points[points["group"] == g]
-        for basis in BASIS_ORDER:
+        for basis in ("", *BASIS_ORDER):
             sel = part[part["basis"] == basis]
             if len(sel):
                 ax.plot(inv(sel["x_fit"].to_numpy()), inv(sel["y_fit"].to_numpy()), ls="", marker="o",
-                        color=colour[g], fillstyle=BASIS_FILL[basis], markeredgewidth=1.0)
+                        color=colour[g], fillstyle=BASIS_FILL.get(basis, "full"), markeredgewidth=1.0)
     X, Y = points["x_fit"].to_numpy(float), points["y_fit"].to_numpy(float)
     grid = np.linspace(X.min(), X.max(), 120)
     pct = f"{100 * fit.ci_level:g}%"
@@ -204,7 +214,7 @@ def scaling_plot(fit: Any, points: pd.DataFrame, *, catalog: Mapping[str, Any] |
     ax.set_ylabel(axis_label(fit.y, catalog))
     ax.set_title(title or f"{fit.method.upper()}: {fit.y} against {fit.x} (n = {fit.n})")
     ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
-    return fig
+    return ax
 
 
 def diagnostics(points: pd.DataFrame, *, title: str = "") -> Figure:
@@ -504,7 +514,7 @@ def forest_plot(rows: Sequence[Mapping[str, Any]], *, slope: float, slope_ci: Se
     ----------
     rows : sequence of mapping
         ``{"source_id", "n", "slope", "slope_ci", "flips"}`` as in
-        :attr:`comparo.sensitivity.SensitivityResult.leave_one_source_out`, drawn top to
+        :attr:`comparo.reliance.SensitivityResult.leave_one_source_out`, drawn top to
         bottom in the given order (most influential first). A row with no slope (the
         refit could not run) is named but has no point.
     slope, slope_ci : the fit on all data: a vertical line and a shaded band.

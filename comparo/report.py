@@ -11,7 +11,7 @@ writes, under the output folder::
     tables/fits.json   each fit's ``to_dict()`` (the ``comparo fit --format json`` object)
     tables/sensitivity_*.csv, sensitivity.json
                        leave-one-source-out, basis filters, jackknife and measurement-error
-                       parts of each fit (:func:`comparo.sensitivity.sensitivity`)
+                       parts of each fit (:func:`comparo.reliance.sensitivity`)
     run.json           input SHA-256 hashes, settings, package versions, seed
 
 Every number in the HTML is read from the same result objects that are written
@@ -94,6 +94,11 @@ class ReportResult:
 
 
 # --------------------------------------------------------------------------- helpers
+
+
+def _against(analysis: dict) -> float | None:
+    """The exponent an ``[[analysis]]`` entry tests against: ``against``, or its old name ``test_slope``."""
+    return analysis.get("against", analysis.get("test_slope"))
 
 
 def _num(v: Any, digits: int = 4) -> str:
@@ -378,7 +383,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     from comparo.csvsafe import to_csv
     from comparo.curate import harmonise, per_taxon, review
     from comparo.errors import ComparoError
-    from comparo.fit import fit
+    from comparo.lines import fit
     from comparo.outputs import atomic_write_bytes, atomic_write_text, dumps
     from comparo.provenance import audit
 
@@ -396,7 +401,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     derived = None
     steps.step("deriving time scales")
     try:
-        from comparo.derive import derive
+        from comparo.derivation import derive
 
         dset = derive_settings(settings)
         derived = derive(table, dset, seed=seed)
@@ -433,7 +438,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
             if labels:
                 opts["tree_labels"] = labels
         try:
-            res = fit(data, a["x"], a["y"], method, by=by, test_slope=a.get("test_slope"), seed=seed, **opts)
+            res = fit(data, a["x"], a["y"], method, by=by, against=_against(a), seed=seed, **opts)
         except ComparoError as exc:
             rec["error"] = str(exc)
             fits.append(rec)
@@ -567,13 +572,13 @@ def _floats(values) -> list[float]:
 
 
 def _sensitivity(ds, table, data, a: dict, res, opts: dict, seed: int, draws: int, temperature: bool):
-    """Run :func:`comparo.sensitivity.sensitivity` for one report fit: (result or None, notes).
+    """Run :func:`comparo.reliance.sensitivity` for one report fit: (result or None, notes).
 
     Source-level parts need x and y recorded in the dataset; a derived x or y gets the
     jackknife and the Monte Carlo only (on the derived table). A grouped fit is checked on
     its pooled line; a PGLS fit keeps lambda at its full-data estimate in every refit.
     """
-    from comparo.sensitivity import sensitivity
+    from comparo.reliance import sensitivity
 
     x, y = a["x"], a["y"]
     notes: list[str] = []
@@ -591,7 +596,7 @@ def _sensitivity(ds, table, data, a: dict, res, opts: dict, seed: int, draws: in
         notes.append(f"{derived} is derived, so the values behind it have no single source or basis: "
                      "only the jackknife and the Monte Carlo parts run (on the derived table)")
     try:
-        s = sensitivity(source, x, y, res.method, test_slope=a.get("test_slope"), ci=res.ci_level, log=res.log,
+        s = sensitivity(source, x, y, res.method, against=_against(a), ci=res.ci_level, log=res.log,
                         mc=draws, seed=seed, temperature=temperature, **kw)
     except Exception as exc:  # noqa: BLE001 - any failure is shown in the report and the command's notes
         return None, notes + [f"sensitivity could not run: {type(exc).__name__}: {exc}"]
@@ -628,7 +633,7 @@ LAMBDA_GRID = tuple(i / 10 for i in range(11))
 def _lambda_figure(res, data, a: dict, by: str | None, opts: dict, aid: str):
     """Profile log-likelihood of lambda: the PGLS of *res* refitted at each lambda of :data:`LAMBDA_GRID`."""
     from comparo import plots
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     lls = [fit(data, a["x"], a["y"], "pgls", by=by, **{**opts, "lambda_": lam}).loglik for lam in LAMBDA_GRID]
     return plots.lambda_profile(LAMBDA_GRID, lls, lam_hat=res.lambda_, loglik_hat=res.loglik, lam_ci=res.lambda_ci,
@@ -677,8 +682,8 @@ def _render_html(folder, settings, checked, aud, table, derived, fits, origin, s
         test = f"equal slopes: p = {_num(cs.get('p'), 3)}" if cs else ""
         if r.get("lambda") is not None:
             test = f"lambda = {_num(r['lambda'], 3)}"
-        if r.get("test_slope"):
-            test += f"; slope = {r['test_slope']['value']:g}: p = {_num(r['test_slope']['p'], 3)}"
+        if r.get("against"):
+            test += f"; slope = {r['against']['value']:g}: p = {_num(r['against']['p'], 3)}"
         rows.append(f"<tr><td>{_e(f['id'])}</td><td>{_e(f['method'].upper())}</td>{_cell(r['n'])}{_cell(r['slope'])}"
                     f"{_cell(r['slope_ci'][0])}{_cell(r['slope_ci'][1])}<td>{_e(test)}</td></tr>")
     parts.append('<table class="sortable" id="summary-fits"><thead><tr><th>analysis</th><th>method</th><th>n</th>'

@@ -231,25 +231,48 @@ def _typed_observations(raw: RawTable) -> pd.DataFrame:
     return obs
 
 
-def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, source_ids: set[str] | None, settings: dict[str, Any]) -> tuple[pd.DataFrame, list[Problem]]:
-    """Cross-column rules; returns the observations with canonical columns added."""
-    from comparo import units
+class _Problems:
+    """The problems of one observations table, collected in one pass."""
 
-    file = raw.file
-    probs: list[Problem] = []
-    rows = obs["row"].to_numpy()
+    def __init__(self, file: str, obs: pd.DataFrame) -> None:
+        self.file = file
+        self.obs = obs
+        self.rows = obs["row"].to_numpy()
+        self.problems: list[Problem] = []
 
-    def add(mask, severity, column, rule, message, hint="", values=None):
+    def add(self, mask, severity, column, rule, message, hint="", values=None) -> None:
+        """One problem per row where *mask* holds; *message* and *hint* may be functions of the row index."""
+        obs, rows = self.obs, self.rows
         idx = np.flatnonzero(np.asarray(mask, dtype=bool))
         vals = obs[column].astype(str).to_numpy() if values is None and column in obs else values
         for i in idx:
             m = message(i) if callable(message) else message
             h = hint(i) if callable(hint) else hint
-            probs.append(Problem(severity, file, int(rows[i]), column, None if vals is None else str(vals[i]), rule, m, h))
+            self.problems.append(Problem(severity, self.file, int(rows[i]), column, None if vals is None else str(vals[i]), rule, m, h))
 
-    # quantity known?
+
+def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, source_ids: set[str] | None, settings: dict[str, Any]) -> tuple[pd.DataFrame, list[Problem]]:
+    """Cross-column rules; returns the observations with canonical columns added."""
+    c = _Problems(raw.file, obs)
     qty = obs["quantity"]
     known = qty.isin(list(catalog))
+    target_key = map_distinct(qty, lambda k: catalog.target(k).key if k in catalog else "")
+    _check_quantity_names(c, qty, known, catalog)
+    _to_canonical_units(c, raw, obs, catalog, qty, known, target_key)
+    _check_sign(c, obs, catalog, qty, target_key)
+    if source_ids is not None:
+        _check_sources(c, obs, source_ids)
+    _check_lineage_columns(c, obs)
+    _check_temperature(c, raw, obs, catalog, qty, target_key)
+    _check_uncertainty(c, raw, obs)
+    _check_plausible_range(c, obs, catalog, target_key)
+    _check_names(c, obs)
+    return obs, c.problems
+
+
+def _check_quantity_names(c: _Problems, qty: pd.Series, known: pd.Series, catalog: Catalog) -> None:
+    """Every quantity is a key of the catalogue (with the closest key as a hint)."""
+    # quantity known?
     unknown = ~known & (qty != "")
     if unknown.any():
         keys = list(catalog)
@@ -258,12 +281,18 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
             close = difflib.get_close_matches(qty.iat[i], keys, n=1)
             return (f"did you mean {close[0]!r}? " if close else "") + "see 'comparo units' for the catalogue, or declare it in comparo.toml [quantities.KEY]"
 
-        add(unknown, "error", "quantity", "quantity-unknown", lambda i: f"unknown quantity {qty.iat[i]!r}", qhint)
+        c.add(unknown, "error", "quantity", "quantity-unknown", lambda i: f"unknown quantity {qty.iat[i]!r}", qhint)
+
+
+def _to_canonical_units(c: _Problems, raw: RawTable, obs: pd.DataFrame, catalog: Catalog, qty: pd.Series,
+                        known: pd.Series, target_key: pd.Series) -> None:
+    """Units parsed and dimension-checked; value_canonical, uncertainty_canonical, unit_canonical,
+    quantity_key and basis_effective added to *obs* (values beyond the working range set to NaN)."""
+    from comparo import units
 
     # units: parse each distinct string once, dimension-check each distinct (quantity, unit)
     factor = np.full(len(obs), np.nan)
     unit_col = obs["unit"]
-    target_key = map_distinct(qty, lambda k: catalog.target(k).key if k in catalog else "")
     canon = map_distinct(target_key, lambda k: catalog[k].unit if k else "")
     alias = map_distinct(qty, lambda k: catalog[k].factor if k in catalog else np.nan).astype(float)
     pairs = pd.DataFrame({"q": qty, "u": unit_col})[known & (unit_col != "")].drop_duplicates()
@@ -284,7 +313,7 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
             fac[(q, u)] = np.nan
     if bad_unit:
         mask = unit_col.isin(list(bad_unit))
-        add(mask, "error", "unit", "unit-unknown", lambda i: bad_unit[unit_col.iat[i]], "write units as pint reads them: um, µm, nm, mm, kPa, Pa, 1/s, Hz, mPa*s, nm**2, kg, mg")
+        c.add(mask, "error", "unit", "unit-unknown", lambda i: bad_unit[unit_col.iat[i]], "write units as pint reads them: um, µm, nm, mm, kPa, Pa, 1/s, Hz, mPa*s, nm**2, kg, mg")
     if fac:
         keys = pd.MultiIndex.from_arrays([qty, unit_col])
         factor = pd.Series(fac).reindex(keys).to_numpy(dtype=float)
@@ -294,7 +323,7 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
             q = catalog[qty.iat[i]]
             return f"unit {unit_col.iat[i]!r} does not measure a {q.kind} (the quantity {q.key!r} is in {q.unit})"
 
-        add(mism, "error", "unit", "unit-dimension", dim_msg, lambda i: f"give {qty.iat[i]} in a {catalog[qty.iat[i]].kind} unit such as {units.pretty(catalog[qty.iat[i]].unit)}")
+        c.add(mism, "error", "unit", "unit-dimension", dim_msg, lambda i: f"give {qty.iat[i]} in a {catalog[qty.iat[i]].kind} unit such as {units.pretty(catalog[qty.iat[i]].unit)}")
     # own unit -> target canonical unit (aliases such as diameter -> radius keep the unit kind)
     to_target = np.array([units.conversion_factor(catalog[q].unit, catalog.target(q).unit) if q in catalog else np.nan for q in qty.drop_duplicates()])
     tmap = dict(zip(qty.drop_duplicates(), to_target, strict=True))
@@ -321,7 +350,7 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
                     what = f"gives {vc:.3g} {unit}, outside the range comparo computes with ({WORKING_RANGE[0]:g} to {WORKING_RANGE[1]:g} {unit})"
                 return f"{col} {raw.frame[col].iat[i]} {unit_col.iat[i]} converted to {unit} {what}"
 
-            add(bad, "error", col, f"{col}-conversion-range", conv_msg, "check the number and its unit (a mistyped exponent or unit prefix?)", raw.frame[col].to_numpy() if col in raw.frame else None)
+            c.add(bad, "error", col, f"{col}-conversion-range", conv_msg, "check the number and its unit (a mistyped exponent or unit prefix?)", raw.frame[col].to_numpy() if col in raw.frame else None)
             obs.loc[bad, canon_col] = np.nan  # never carried into a table, an export or a fit
     obs["unit_canonical"] = canon.to_numpy()
     is_alias = map_distinct(qty, lambda k: bool(k in catalog and catalog[k].converts_to)).to_numpy(dtype=bool)
@@ -330,52 +359,73 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     eff_rank = np.where(is_alias, np.maximum(rank, BASIS_ORDER.index("computed")), rank)
     obs["basis_effective"] = np.array(BASIS_ORDER, dtype=object)[eff_rank]
 
+
+def _check_sign(c: _Problems, obs: pd.DataFrame, catalog: Catalog, qty: pd.Series, target_key: pd.Series) -> None:
+    """Physical magnitudes of the catalogue are positive (temperatures excepted)."""
+    value = obs["value"].to_numpy(dtype=float)
     # sign: physical magnitudes in the catalogue are positive (temperatures excepted)
     positive_kind = map_distinct(target_key, lambda k: bool(k) and catalog[k].kind != "temperature").to_numpy(dtype=bool)
     nonpos = positive_kind & (value <= 0)
-    add(nonpos, "error", "value", "value-positive", lambda i: f"{qty.iat[i]} must be greater than 0", "a zero or negative value is impossible for this quantity: check the sign and the unit", obs["value"].to_numpy())
+    c.add(nonpos, "error", "value", "value-positive", lambda i: f"{qty.iat[i]} must be greater than 0", "a zero or negative value is impossible for this quantity: check the sign and the unit", obs["value"].to_numpy())
 
+
+def _check_sources(c: _Problems, obs: pd.DataFrame, source_ids: set[str]) -> None:
+    """Every source_id is in the sources table."""
     # sources
-    if source_ids is not None:
-        sid = obs["source_id"]
-        missing_src = (sid != "") & ~sid.isin(list(source_ids))
-        add(missing_src, "error", "source_id", "source-unknown", lambda i: f"source {sid.iat[i]!r} is not in the sources table", "add it to sources.csv / sources.bib or correct the id")
+    sid = obs["source_id"]
+    missing_src = (sid != "") & ~sid.isin(list(source_ids))
+    c.add(missing_src, "error", "source_id", "source-unknown", lambda i: f"source {sid.iat[i]!r} is not in the sources table", "add it to sources.csv / sources.bib or correct the id")
 
+
+def _check_lineage_columns(c: _Problems, obs: pd.DataFrame) -> None:
+    """Computed rows name their inputs (existing obs_ids, not themselves); proxies name the proxy taxon."""
     # computed rows need their inputs; proxies need the proxy taxon
     b = obs["basis"]
     comp = (b == "computed").to_numpy()
     no_inputs = comp & (obs["inputs"] == "").to_numpy()
-    add(no_inputs, "error", "inputs", "computed-inputs", "basis is 'computed' but inputs is empty", "list the obs_ids the value was computed from, ';'-separated")
+    c.add(no_inputs, "error", "inputs", "computed-inputs", "basis is 'computed' but inputs is empty", "list the obs_ids the value was computed from, ';'-separated")
     ids = set(obs["obs_id"])
     has_inputs = (obs["inputs"] != "").to_numpy()
     for i in np.flatnonzero(has_inputs):
         refs = [r.strip() for r in obs["inputs"].iat[i].split(";") if r.strip()]
         missing = [r for r in refs if r not in ids]
         if missing:
-            probs.append(Problem("error", file, int(rows[i]), "inputs", obs["inputs"].iat[i], "inputs-unknown", f"inputs name obs_id(s) not in the table: {', '.join(missing)}", "each input must be an obs_id of another row"))
+            c.problems.append(Problem("error", c.file, int(c.rows[i]), "inputs", obs["inputs"].iat[i], "inputs-unknown", f"inputs name obs_id(s) not in the table: {', '.join(missing)}", "each input must be an obs_id of another row"))
         if obs["obs_id"].iat[i] in refs:
-            probs.append(Problem("error", file, int(rows[i]), "inputs", obs["inputs"].iat[i], "inputs-self", "a row cannot be computed from itself", ""))
+            c.problems.append(Problem("error", c.file, int(c.rows[i]), "inputs", obs["inputs"].iat[i], "inputs-self", "a row cannot be computed from itself", ""))
     no_proxy = (b == "proxy").to_numpy() & (obs["proxy_taxon"] == "").to_numpy()
-    add(no_proxy, "error", "proxy_taxon", "proxy-taxon", "basis is 'proxy' but proxy_taxon is empty", "name the taxon whose value stands in")
+    c.add(no_proxy, "error", "proxy_taxon", "proxy-taxon", "basis is 'proxy' but proxy_taxon is empty", "name the taxon whose value stands in")
 
+
+def _check_temperature(c: _Problems, raw: RawTable, obs: pd.DataFrame, catalog: Catalog, qty: pd.Series,
+                       target_key: pd.Series) -> None:
+    """Temperature-sensitive values need a temperature; impossible and unusual temperatures; unused Q10."""
     # temperature-sensitive values need a temperature
     ts = map_distinct(target_key, lambda k: bool(k) and catalog[k].temperature_sensitive).to_numpy(dtype=bool)
     temp = obs["temperature_c"].to_numpy(dtype=float)
     raw_temp = raw.frame["temperature_c"] if "temperature_c" in raw.frame else pd.Series([""] * len(obs))
     no_temp = ts & (raw_temp.to_numpy() == "")
-    add(no_temp, "warning", "temperature_c", "temperature-missing", lambda i: f"{qty.iat[i]} is temperature-sensitive but has no temperature_c", "give the measurement temperature; otherwise the value is used un-normalised", raw_temp.to_numpy())
+    c.add(no_temp, "warning", "temperature_c", "temperature-missing", lambda i: f"{qty.iat[i]} is temperature-sensitive but has no temperature_c", "give the measurement temperature; otherwise the value is used un-normalised", raw_temp.to_numpy())
     impossible = ~np.isnan(temp) & ((temp < -273.15) | (temp > 1000))
-    add(impossible, "error", "temperature_c", "temperature-impossible", "temperature below absolute zero (-273.15 °C) or above 1000 °C", "temperature_c is in degrees Celsius", obs["temperature_c"].to_numpy())
+    c.add(impossible, "error", "temperature_c", "temperature-impossible", "temperature below absolute zero (-273.15 °C) or above 1000 °C", "temperature_c is in degrees Celsius", obs["temperature_c"].to_numpy())
     odd_temp = ~np.isnan(temp) & ~impossible & ((temp < -5) | (temp > 60))
-    add(odd_temp, "warning", "temperature_c", "temperature-range", "temperature outside -5 to 60 °C for muscle", "temperature_c is in degrees Celsius (a Fahrenheit or kelvin value?)", obs["temperature_c"].to_numpy())
+    c.add(odd_temp, "warning", "temperature_c", "temperature-range", "temperature outside -5 to 60 °C for muscle", "temperature_c is in degrees Celsius (a Fahrenheit or kelvin value?)", obs["temperature_c"].to_numpy())
     q10_set = ~np.isnan(obs["q10"].to_numpy(dtype=float)) & ~ts & (target_key != "").to_numpy()
-    add(q10_set, "warning", "q10", "q10-unused", lambda i: f"a Q10 is given but {qty.iat[i]} is not temperature-sensitive (ignored)")
+    c.add(q10_set, "warning", "q10", "q10-unused", lambda i: f"a Q10 is given but {qty.iat[i]} is not temperature-sensitive (ignored)")
 
+
+def _check_uncertainty(c: _Problems, raw: RawTable, obs: pd.DataFrame) -> None:
+    """An uncertainty and its kind go together."""
     # uncertainty and its kind go together
     unc = obs["uncertainty"].to_numpy(dtype=float)
     kind = obs["uncertainty_kind"]
-    add(~np.isnan(unc) & (kind == "").to_numpy(), "warning", "uncertainty_kind", "uncertainty-kind", "uncertainty given without uncertainty_kind: treated as a standard deviation", "give sd, se, ci95 or range_half", obs["uncertainty"].to_numpy())
-    add(np.isnan(unc) & (kind != "").to_numpy() & (raw.frame.get("uncertainty", pd.Series([""] * len(obs))) == "").to_numpy(), "warning", "uncertainty", "uncertainty-missing", "uncertainty_kind given without an uncertainty value")
+    c.add(~np.isnan(unc) & (kind == "").to_numpy(), "warning", "uncertainty_kind", "uncertainty-kind", "uncertainty given without uncertainty_kind: treated as a standard deviation", "give sd, se, ci95 or range_half", obs["uncertainty"].to_numpy())
+    c.add(np.isnan(unc) & (kind != "").to_numpy() & (raw.frame.get("uncertainty", pd.Series([""] * len(obs))) == "").to_numpy(), "warning", "uncertainty", "uncertainty-missing", "uncertainty_kind given without an uncertainty value")
+
+
+def _check_plausible_range(c: _Problems, obs: pd.DataFrame, catalog: Catalog, target_key: pd.Series) -> None:
+    """Values outside the catalogue's plausible range (canonical units) are warned of."""
+    from comparo import units
 
     # plausible range (in canonical units)
     lo = map_distinct(target_key, lambda k: catalog[k].range[0] if k and catalog[k].range else np.nan).to_numpy(dtype=float)
@@ -387,15 +437,17 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
         q = catalog[target_key.iat[i]]
         return f"{vc[i]:.4g} {units.pretty(q.unit)} is outside the plausible range {q.range[0]:g}-{q.range[1]:g} {units.pretty(q.unit)} for {q.key} ({q.range_source})"
 
-    add(out, "warning", "value", "out-of-range", range_msg, "check the value and its unit (a slip by a factor of 1000?)", obs["value"].to_numpy())
+    c.add(out, "warning", "value", "out-of-range", range_msg, "check the value and its unit (a slip by a factor of 1000?)", obs["value"].to_numpy())
 
+
+def _check_names(c: _Problems, obs: pd.DataFrame) -> None:
+    """Taxon names are expected as binomials (Genus species)."""
     # names: a binomial (Genus species) is expected
     tax = obs["taxon"]
     first = ~tax.duplicated() & (tax != "")
     nonbin = first & ~tax.str.match(_BINOMIAL)
     counts = tax.value_counts()
-    add(nonbin, "warning", "taxon", "taxon-binomial", lambda i: f"taxon name is not a binomial 'Genus species' ({counts[tax.iat[i]]} row(s))", "use the scientific name; map reported names to accepted ones in taxa.csv")
-    return obs, probs
+    c.add(nonbin, "warning", "taxon", "taxon-binomial", lambda i: f"taxon name is not a binomial 'Genus species' ({counts[tax.iat[i]]} row(s))", "use the scientific name; map reported names to accepted ones in taxa.csv")
 
 
 _DOI_PREFIX = re.compile(r"^\s*(?:(?:https?://)?(?:dx\.)?doi\.org/|doi:\s*)", re.I)

@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import importlib
+import importlib.util
 import subprocess
 import sys
-import types
 
 import comparo
 
@@ -15,22 +15,38 @@ def test_every_public_name_resolves():
         assert getattr(comparo, name) is not None, name
 
 
-def test_function_names_survive_submodule_imports():
-    """``comparo.fit(...)`` as DESIGN.md writes it, even after ``comparo.fit`` the module is imported."""
+def test_no_module_shares_a_public_function_name():
+    """``comparo.fit(...)`` as DESIGN.md writes it: no module of the API layer is named like
+    a public function, so importing every module cannot turn a function into a module.
+    (comparo.commands holds one module per CLI verb, reached only by its full name.)"""
+    import pkgutil
+
+    names = {m.name.rsplit(".", 1)[-1] for m in pkgutil.walk_packages(comparo.__path__, "comparo.")
+             if not m.name.startswith("comparo.commands.")}
+    functions = {n for n in comparo.__all__ if callable(getattr(comparo, n)) and not isinstance(getattr(comparo, n), type)}
+    assert "fit" in functions and "derive" in functions and "sensitivity" in functions
+    assert not functions & names, functions & names
     for name in ("fit", "derive", "sensitivity"):
-        module = importlib.import_module(f"comparo.{name}")
-        assert isinstance(module, types.ModuleType)
-        public = getattr(comparo, name)
-        assert callable(public) and not isinstance(public, types.ModuleType), name
-        assert public is getattr(module, name)
+        assert importlib.util.find_spec(f"comparo.{name}") is None, name
 
 
 def test_fresh_interpreter_submodule_first():
-    """In a new process, importing the submodule first still leaves the function on the package."""
+    """In a new process, importing the defining packages first still leaves the functions on the package."""
     code = (
-        "import comparo.report, comparo.fit, comparo.derive, comparo.sensitivity\n"
+        "import comparo.report, comparo.lines, comparo.derivation, comparo.reliance\n"
         "import comparo, types\n"
         "bad = [n for n in ('fit', 'derive', 'sensitivity') if isinstance(getattr(comparo, n), types.ModuleType)]\n"
         "assert not bad, bad\n"
+        "assert comparo.fit is comparo.lines.fit and comparo.derive is comparo.derivation.derive\n"
+        "assert comparo.sensitivity is comparo.reliance.sensitivity\n"
     )
     subprocess.run([sys.executable, "-c", code], check=True)
+
+
+def test_fit_lives_in_the_lines_package():
+    """``comparo.fit`` is the function of :mod:`comparo.lines`; no module shares its name."""
+    import comparo.lines
+
+    assert comparo.fit is comparo.lines.fit
+    assert comparo.FitResult is comparo.lines.FitResult
+    assert importlib.util.find_spec("comparo.fit") is None

@@ -31,17 +31,17 @@ def csv(tmp_path):
 
 
 def test_json_output_keys_and_excluded_rows(csv, capsys):
-    code = main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--test-slope", "-0.3",
+    code = main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--against", "-0.3",
                  "--format", "json"])
     assert code == 0
     d = json.loads(capsys.readouterr().out)
     assert {"method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2", "ci_level",
-            "test_slope", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded", "breakpoint",
+            "against", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded", "breakpoint",
             "sensitivity"} == set(d)
     assert d["n"] == 22
     assert {e["label"] for e in d["excluded"]} == {"sp0", "sp1"}
     assert d["slope_ci"][0] < -0.3 < d["slope_ci"][1]
-    assert d["test_slope"]["value"] == -0.3
+    assert d["against"]["value"] == -0.3
 
 
 def test_text_csv_and_options(csv, capsys):
@@ -83,18 +83,18 @@ def test_missing_file_and_too_few_points(tmp_path, capsys):
 
 
 def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
-    """The fit front end returns what comparo.phylo.pgls_fit computes (one source of
+    """The fit front end returns what comparo.phylo.phylo_fit computes (one source of
     truth), with the demo's taxa.csv tree labels, and the extra PGLS keys kept."""
     import json
 
     from support import DEMO, run_cli
 
     import comparo
-    from comparo.phylo import pgls_fit
+    from comparo.phylo import phylo_fit
 
     tab = comparo.per_taxon(comparo.load(DEMO))
-    direct = pgls_fit(table=tab, x="body_mass", y="frequency_observed", tree=str(DEMO / "tree.nwk"), log="10", ci=0.95,
-                      test_slope=None, taxon_col="taxon", lambda_="ml")
+    direct = phylo_fit(table=tab, x="body_mass", y="frequency_observed", tree=str(DEMO / "tree.nwk"), log="10", ci=0.95,
+                      against=None, taxon_col="taxon", lambda_="ml")
     proc = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--format", "json")
     assert proc.returncode == 0, proc.stderr
     got = json.loads(proc.stdout)
@@ -184,3 +184,53 @@ def test_fit_help_shows_defaults():
     text = " ".join(run_cli("fit", "--help").stdout.split())
     for part in ("(default: sma)", "(default: 0)", "(default: 20240601)", "(default: text)", "(default 0.95)"):
         assert part in text, part
+
+
+@pytest.mark.parametrize("method, test, df", [("ols", "t", 20), ("lts", "t", None), ("sma", "F(1, n-2)", [1, 20]),
+                                              ("ma", "F(1, n-2)", [1, 20]), ("robust", "z", None)])
+def test_against_names_its_statistic(csv, capsys, method, test, df):
+    """``--against`` reports {value, statistic, test, df, p}; the test is named as the method
+    computes it (t on n - 2 df for OLS, F(1, n - 2) for SMA/MA: Warton et al. 2006, Table 5;
+    a Wald z for the M-estimate) and the printed text names it too."""
+    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", method, "--against", "-0.3",
+                 "--format", "json"]) == 0
+    a = json.loads(capsys.readouterr().out)["against"]
+    assert set(a) == {"value", "statistic", "test", "df", "p"} and a["test"] == test and 0 <= a["p"] <= 1
+    if df is not None:
+        assert a["df"] == df
+    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", method, "--against", "-0.3"]) == 0
+    shown = f"F(1, {df[1]})" if test.startswith("F") else test
+    assert f"slope = -0.3?  {shown} = " in capsys.readouterr().out
+
+
+def test_old_test_slope_flag_still_works_with_a_note(csv, capsys):
+    """The old flag gives the same numbers, says on stderr that it was renamed, and is not in --help."""
+    args = ["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--format", "json"]
+    assert main(args + ["--against", "-0.3"]) == 0
+    new = json.loads(capsys.readouterr().out)
+    assert main(args + ["--test-slope", "-0.3"]) == 0
+    cap = capsys.readouterr()
+    assert json.loads(cap.out) == new
+    assert "--test-slope is renamed --against" in cap.err
+    with pytest.raises(SystemExit):
+        main(["fit", "--help"])
+    helptext = capsys.readouterr().out
+    assert "--against" in helptext and "--test-slope" not in helptext
+
+
+def test_old_keyword_warns_and_gives_the_same_fit(csv):
+    from comparo.lines import fit
+
+    t = pd.read_csv(csv)
+    new = fit(t, "mass", "freq", "sma", against=-0.3).to_dict()
+    with pytest.warns(DeprecationWarning, match="renamed against"):
+        old = fit(t, "mass", "freq", "sma", test_slope=-0.3).to_dict()
+    assert old == new
+
+
+def test_group_comparisons_read_as_questions(csv, capsys):
+    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--by", "clade"]) == 0
+    out = capsys.readouterr().out
+    for question in ("one exponent for all groups?", "same height at the common exponent?",
+                     "groups offset along the common line?"):
+        assert question in out

@@ -92,7 +92,7 @@ def test_sma_exponent_ci_covers_the_generating_exponent():
     """The generator draws frequency = 30 M^-0.2 (clade offsets, noise; demo_tables/generate.py):
     the 95% CI of the fitted frequency-mass SMA slope (log10) covers -0.2."""
     import comparo
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     res = fit(comparo.per_taxon(comparo.load(DEMO)), x="body_mass", y="frequency_observed", method="sma")
     lo, hi = res.slope_ci

@@ -1,4 +1,4 @@
-"""Behaviour of comparo.derive and ``comparo derive``: why a value is missing, lineage,
+"""Behaviour of comparo.derivation (comparo.derive) and ``comparo derive``: why a value is missing, lineage,
 inputs untouched, clear errors for bad settings and ratio expressions (never
 evaluated as code), seeded Monte Carlo, and the CSV the command writes.
 
@@ -22,8 +22,8 @@ from support import DEMO, run_cli, tree_hash, write_dataset
 from comparo.cli import main
 from comparo.errors import InputError
 
-# the module (comparo.derive on the package is the function of that name)
-dv = importlib.import_module("comparo.derive")
+# the package of the derivation (comparo.derive is its function derive)
+dv = importlib.import_module("comparo.derivation")
 
 
 def _q(row: dict, key: str, value: float, u: float | None = None, basis: str = "reported", obs: str | None = None) -> None:

@@ -1,4 +1,4 @@
-"""Behaviour of comparo.fit: the result object, input handling, simulations of CI coverage and test size."""
+"""Behaviour of comparo.lines (comparo.fit): the result object, input handling, simulations of CI coverage and test size."""
 
 from __future__ import annotations
 
@@ -10,11 +10,11 @@ import pandas as pd
 import pytest
 
 from comparo.errors import UsageError
-from comparo.fit import FitResult, common_slope_model2, fit, model2_line, ols_line
+from comparo.lines import FitResult, common_slope_model2, fit, model2_line, ols_line
 
 CONTRACT_KEYS = {
     "method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2", "ci_level",
-    "test_slope", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded", "breakpoint", "sensitivity",
+    "against", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded", "breakpoint", "sensitivity",
 }
 
 
@@ -32,12 +32,12 @@ def _table(n: int = 30, slope: float = 0.75, seed: int = 1, sd: float = 0.1) -> 
 @pytest.mark.parametrize("method", ["ols", "sma", "ma", "robust", "lts"])
 def test_to_dict_has_exactly_the_contract_keys_and_is_strict_json(method):
     """Common practice: the JSON contract of DESIGN.md; strict JSON (no NaN)."""
-    r = fit(_table(), "body_mass", "freq", method, test_slope=0.75)
+    r = fit(_table(), "body_mass", "freq", method, against=0.75)
     d = r.to_dict()
     assert set(d) == CONTRACT_KEYS
     json.dumps(d, allow_nan=False)
     assert d["method"] == method and d["n"] == 30 and d["ci_level"] == 0.95
-    assert set(d["test_slope"]) == {"value", "statistic", "p"}
+    assert set(d["against"]) == {"value", "statistic", "test", "df", "p"}
     assert d["lambda"] is None and d["groups"] is None and d["breakpoint"] is None
     lo, hi = d["slope_ci"]
     assert lo < d["slope"] < hi
@@ -52,7 +52,7 @@ def test_optional_keys_appear_only_when_computed():
 
 def test_from_dict_round_trip_adapter():
     """The adapter used for PGLS results rebuilds an equal result from a contract dict."""
-    r = fit(_table(), "body_mass", "freq", "ols", test_slope=1.0)
+    r = fit(_table(), "body_mass", "freq", "ols", against=1.0)
     back = FitResult.from_dict(r.to_dict())
     assert back.to_dict() == r.to_dict()
     pg = dict(r.to_dict(), method="pgls", **{"lambda": 0.4, "lambda_ci": [0.1, 0.9], "loglik": -3.2})
@@ -69,7 +69,7 @@ def test_frame_points_and_summary():
     pts = r.points_frame()
     assert len(pts) == 30 and np.allclose(pts["residual"], pts["y_fit"] - pts["fitted"])
     text = r.summary()
-    assert "SMA" in text and "common slope" in text and "breakpoint" in text
+    assert "SMA" in text and "common exponent" in text and "one exponent for all groups?" in text and "breakpoint" in text
 
 
 def test_log_base_changes_intercept_not_slope():
@@ -285,7 +285,7 @@ def test_elevation_test_size_when_groups_lie_apart_on_one_line():
     groups of 25 bivariate-normal points on one SMA line (error on both axes, sd ratio = slope), 2 units apart
     along it. The test
     allows for the error of the common slope, so it rejects in 2-8% at 5% (binomial sd 1.1 points)."""
-    from comparo.fit import group_fits
+    from comparo.lines import group_fits
 
     rng = np.random.default_rng(31)
     g = np.repeat(["A", "B"], 25)

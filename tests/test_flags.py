@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from comparo.fit import fit
 from comparo.flags import OUTLIER_RULES, bonferroni_cut, flag_points
+from comparo.lines import fit
 
 
 def _planted(seed: int, n: int = 100):

@@ -263,6 +263,7 @@ CASES = {
     "settings-analysis-by": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nby = "clade"\n'),
     "settings-analysis-typo": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nmethd = "sma"\n'),
     "settings-analysis-test-slope": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\ntest_slope = "one"\n'),
+    "settings-analysis-against": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nagainst = inf\n'),
     "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
     "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
@@ -773,7 +774,7 @@ def test_check_is_the_gate(tmp_path, capsys, case):
     ("settings-analysis-string", "analysis"), ("settings-analysis-list-of-numbers", "analysis"),
     ("settings-analysis-without-y", "analysis[1].y"), ("settings-analysis-method", "analysis[1].method"),
     ("settings-analysis-by", "analysis[1].by"), ("settings-analysis-typo", "analysis[1].methd"),
-    ("settings-analysis-test-slope", "analysis[1].test_slope"),
+    ("settings-analysis-test-slope", "analysis[1].test_slope"), ("settings-analysis-against", "analysis[1].against"),
 ])
 def test_settings_of_the_wrong_type_are_one_error_each(tmp_path, case, column):
     """A string where a number belongs, a list where a table belongs, an infinite Q10, a

@@ -11,8 +11,8 @@ CASES = {
     "seed-negative": (FIT + ["--seed", "-1"], "--seed must be >= 0"),
     "derive-seed-negative": (["derive", str(DEMO), "--seed", "-1"], "--seed must be >= 0"),
     "report-seed-negative": (["report", str(DEMO), "-o", "{tmp}/rep", "--seed", "-1"], "--seed must be >= 0"),
-    "against-nan": (FIT + ["--test-slope", "nan"], "finite number"),
-    "against-inf": (FIT + ["--test-slope", "inf"], "finite number"),
+    "against-nan": (FIT + ["--against", "nan"], "finite number"),
+    "against-inf": (FIT + ["--against", "inf"], "finite number"),
     "lambda-with-sma": (FIT + ["--lambda", "0.5"], "--lambda applies only to --method pgls"),
     "reml-with-ols": (FIT + ["--method", "ols", "--reml"], "only to --method pgls"),
     "bootstrap-one": (FIT + ["--bootstrap", "1"], "too few resamples"),
@@ -34,10 +34,10 @@ def test_bad_option_is_exit_2_with_the_rule(tmp_path, case):
 def test_api_refuses_the_same_values():
     import comparo
     from comparo.errors import UsageError
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     tab = comparo.per_taxon(comparo.load(DEMO))
-    for kw in ({"seed": -1}, {"test_slope": float("nan")}, {"bootstrap": 10}, {"bootstrap": 10**12}):
+    for kw in ({"seed": -1}, {"against": float("nan")}, {"bootstrap": 10}, {"bootstrap": 10**12}):
         with pytest.raises(UsageError):
             fit(tab, "body_mass", "frequency_observed", "sma", **kw)
 
@@ -84,7 +84,7 @@ def test_derive_api_caps_draws_too():
     import pandas as pd
 
     from comparo.bounds import check_mc
-    from comparo.derive import derive
+    from comparo.derivation import derive
     from comparo.errors import UsageError
 
     with pytest.raises(UsageError, match="cap of") as info:

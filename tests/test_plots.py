@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 
 from comparo import plots
-from comparo.fit import fit
+from comparo.lines import fit
 
 
 @pytest.fixture(scope="module")

@@ -21,7 +21,7 @@ from support import OBS_HEADER, SOURCES, VALID_ROWS, write_dataset
 import comparo
 from comparo import units
 from comparo.catalog import load_catalog
-from comparo.fit import fit
+from comparo.lines import fit
 from comparo.validate import check
 
 FIXTURE_OK = [HealthCheck.function_scoped_fixture]

@@ -1,4 +1,4 @@
-"""Behaviour of comparo.sensitivity: source influence, basis steps, jackknife, Monte Carlo."""
+"""Behaviour of comparo.reliance (comparo.sensitivity): source influence, basis steps, jackknife, Monte Carlo."""
 
 from __future__ import annotations
 
@@ -11,8 +11,8 @@ import pytest
 from support import DEMO, run_cli, write_dataset
 
 from comparo.dataset import load
-from comparo.fit import fit
-from comparo.sensitivity import (
+from comparo.lines import fit
+from comparo.reliance import (
     jackknife_se,
     lognormal_draws,
     measurement_error_mc,
@@ -49,13 +49,13 @@ def _compilation(folder, *, biased: bool, seed: int = 7, n_taxa: int = 48, n_src
 @pytest.fixture(scope="module")
 def biased(tmp_path_factory):
     ds = _compilation(tmp_path_factory.mktemp("biased"), biased=True)
-    return sensitivity(ds, "body_mass", "frequency_observed", "ols", test_slope=TRUE_SLOPE, mc=200)
+    return sensitivity(ds, "body_mass", "frequency_observed", "ols", against=TRUE_SLOPE, mc=200)
 
 
 @pytest.fixture(scope="module")
 def clean(tmp_path_factory):
     ds = _compilation(tmp_path_factory.mktemp("clean"), biased=False)
-    return sensitivity(ds, "body_mass", "frequency_observed", "ols", test_slope=TRUE_SLOPE, mc=200)
+    return sensitivity(ds, "body_mass", "frequency_observed", "ols", against=TRUE_SLOPE, mc=200)
 
 
 def test_biased_source_ranked_first_and_flips_test(biased):
@@ -252,8 +252,8 @@ def test_mc_zero_uncertainty_reproduces_fit_robust_and_lts(method):
 
 def test_huber_slopes_match_statsmodels_rlm():
     """The vectorised IRLS gives the slope of statsmodels RLM (HuberT, MAD scale) on each data set."""
-    from comparo.fit import huber_line
-    from comparo.sensitivity import huber_slopes
+    from comparo.lines import huber_line
+    from comparo.reliance import huber_slopes
 
     rng = np.random.default_rng(6)
     X = rng.uniform(0, 2, (6, 40))
@@ -293,7 +293,7 @@ def test_mc_and_jackknife_pgls_on_demo_say_lambda_is_held():
 
 def test_sensitivity_by_group_restricts_to_the_group(biased, tmp_path):
     """Per-group sensitivity equals the sensitivity of the group's taxa on their own."""
-    from comparo.sensitivity import sensitivity_by_group
+    from comparo.reliance import sensitivity_by_group
 
     t = _line_table(n=40, u_x=0.1, u_y=0.1)
     t["grp"] = np.where(np.arange(40) < 20, "a", "b")
@@ -310,7 +310,7 @@ def test_sensitivity_by_group_restricts_to_the_group(biased, tmp_path):
 
 def test_sensitivity_by_group_dataset_uses_only_group_rows(tmp_path):
     """On a dataset, a group's leave-one-source-out refits use only that group's taxa."""
-    from comparo.sensitivity import sensitivity_by_group
+    from comparo.reliance import sensitivity_by_group
 
     ds = _compilation(tmp_path / "d", biased=True)
     table = __import__("comparo").per_taxon(ds)
@@ -341,12 +341,12 @@ def test_cli_sensitivity_by_group(tmp_path, capsys):
 
 
 def test_api_layer_does_not_import_the_cli():
-    """comparo.sensitivity sits below the command layer (DEVELOPERS.md module order)."""
+    """comparo.reliance sits below the command layer (DEVELOPERS.md module order)."""
     import ast
     import importlib
     import inspect
 
-    mod = importlib.import_module("comparo.sensitivity")
+    mod = importlib.import_module("comparo.reliance")
 
     tree = ast.parse(inspect.getsource(mod))
     names = [n.module for n in ast.walk(tree) if isinstance(n, ast.ImportFrom)]
@@ -361,7 +361,7 @@ def test_a_source_that_cannot_be_left_out_counts_the_taxa_left(tmp_path):
     from support import write_dataset
 
     from comparo.dataset import load
-    from comparo.sensitivity import sensitivity
+    from comparo.reliance import sensitivity
 
     rows = []
     for i, (m, f) in enumerate([(1, 200), (2, 180), (4, 150), (8, 140), (16, 120), (32, 100)]):
@@ -378,7 +378,7 @@ def test_a_source_that_cannot_be_left_out_counts_the_taxa_left(tmp_path):
 
 
 def test_verdict_says_which_uncertainties_were_not_propagated():
-    from comparo.sensitivity import make_verdict
+    from comparo.reliance import make_verdict
 
     me = {"share": 0.01, "fixed_x": 12, "fixed_y": 0, "points": 57}
     v = make_verdict([], None, {}, me)

@@ -11,7 +11,7 @@ def run(args) -> int:
     from comparo.csvsafe import to_csv
     from comparo.curate import per_taxon
     from comparo.dataset import load
-    from comparo.derive import derive
+    from comparo.derivation import derive
     from comparo.outputs import emit
 
     ds = load(args.dataset)

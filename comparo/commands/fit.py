@@ -88,16 +88,28 @@ def _pgls_options(args) -> dict:
 
 
 def _fit(args, table, pgls: dict, progress: bool):
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     return fit(
-        table, args.x, args.y, args.method, by=args.by, test_slope=args.test_slope, ci=args.ci, log=args.log,
+        table, args.x, args.y, args.method, by=args.by, against=args.against, ci=args.ci, log=args.log,
         bootstrap=args.bootstrap, seed=args.seed, taxon_col=args.taxon_col, breakpoint=args.breakpoint,
         progress=progress, drop_flagged=getattr(args, "drop_flagged", None), **pgls,
     )
 
 
+def _renamed_options(args) -> None:
+    """``--test-slope`` is the old name of ``--against``: a note on standard error, then the value is used."""
+    old = getattr(args, "test_slope_renamed", None)
+    if old is None:
+        return
+    print("comparo: note: --test-slope is renamed --against and will be removed; "
+          "the JSON key is now \"against\"", file=sys.stderr)
+    if args.against is None:
+        args.against = old
+
+
 def run(args) -> int:
+    _renamed_options(args)
     _phylo_only_options(args)
     if args.sensitivity:
         return run_sensitivity(args)
@@ -120,13 +132,13 @@ def run_sensitivity(args) -> int:
 
     Text output is the fit's summary followed by the sensitivity summary, JSON
     the fit object with ``"sensitivity"`` filled, CSV the table of
-    :meth:`comparo.sensitivity.SensitivityResult.to_frame`. With ``--by`` the
+    :meth:`comparo.reliance.SensitivityResult.to_frame`. With ``--by`` the
     sensitivity of the pooled fit is followed by that of each group (JSON:
     ``"sensitivity"`` also holds ``"by_group"``; CSV: a ``group`` column; see
     docs/sensitivity.md).
     """
     from comparo.bounds import check_draws
-    from comparo.sensitivity import sensitivity, sensitivity_by_group, with_sensitivity
+    from comparo.reliance import sensitivity, sensitivity_by_group, with_sensitivity
 
     pgls = _pgls_options(args) if args.method == "pgls" else {}
     if Path(args.data).is_dir():
@@ -139,7 +151,7 @@ def run_sensitivity(args) -> int:
     n_taxa = obs[args.taxon_col].nunique() if args.taxon_col in obs else len(obs)
     check_draws(args.mc, int(n_taxa), args.method, "--mc")
     progress = sys.stderr.isatty()
-    opts = dict(test_slope=args.test_slope, ci=args.ci, log=args.log, mc=args.mc, seed=args.seed, progress=progress,
+    opts = dict(against=args.against, ci=args.ci, log=args.log, mc=args.mc, seed=args.seed, progress=progress,
                 temperature=not args.no_temperature, taxon_col=args.taxon_col, **pgls)
     sens = sensitivity(data, args.x, args.y, args.method, **opts)
     groups = sensitivity_by_group(data, args.x, args.y, args.method, by=args.by, **opts) if args.by else None

@@ -11,7 +11,7 @@ import time
 
 import numpy as np
 
-from comparo.fit import bootstrap_line
+from comparo.lines import bootstrap_line
 
 
 def naive_sma_bootstrap(x: np.ndarray, y: np.ndarray, n_boot: int, seed: int, chunk_elems: int = 2_000_000) -> np.ndarray:

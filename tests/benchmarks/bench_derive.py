@@ -1,4 +1,4 @@
-"""Speed of comparo.derive with Monte Carlo: 10,000 draws over 1,000 taxa.
+"""Speed of comparo.derivation.derive with Monte Carlo: 10,000 draws over 1,000 taxa.
 
 Prints the wall time of ``derive(table, mc=10_000)`` and its ratio to a baseline
 measured in the same run: the bare numpy cost of drawing and summarising the same
@@ -13,7 +13,7 @@ import time
 import numpy as np
 import pandas as pd
 
-from comparo.derive import derive
+from comparo.derivation import derive
 
 N_TAXA, DRAWS = 1_000, 10_000
 

@@ -9,7 +9,7 @@ frequencies digitized, standard uncertainties on every value.
 
 Timed:
 
-* ``comparo.sensitivity`` with SMA: every source left out, the basis steps, the
+* ``comparo.reliance`` with SMA: every source left out, the basis steps, the
   taxon jackknife and ``--mc`` Monte Carlo draws (the target: under 10 s for 500
   taxa, 50 sources, 1000 draws);
 * baseline: the naive route to the leave-one-source-out part alone, rebuilding the
@@ -59,7 +59,7 @@ def write_compilation(folder: Path, n_taxa: int, n_src: int, seed: int = 2024060
 def naive_loso(ds, x: str, y: str, method: str) -> dict[str, float]:
     """Leave one source out by rebuilding the whole per-taxon table each time."""
     from comparo.curate import harmonise, per_taxon
-    from comparo.fit import fit
+    from comparo.lines import fit
 
     h = harmonise(ds)
     rows = h.rows[h.rows["quantity_key"].isin([x, y])]
@@ -82,8 +82,8 @@ def main(argv: list[str] | None = None) -> int:
 
     from comparo.curate import per_taxon
     from comparo.dataset import load
-    from comparo.fit import fit
-    from comparo.sensitivity import sensitivity
+    from comparo.lines import fit
+    from comparo.reliance import sensitivity
 
     x, y = "body_mass", "frequency_observed"
     with tempfile.TemporaryDirectory() as tmp:

@@ -15,7 +15,7 @@ import sys
 
 import numpy as np
 
-from comparo.fit import bootstrap_line, model2_line
+from comparo.lines import bootstrap_line, model2_line
 
 
 def main(reps: int = 1000, n: int = 30, n_boot: int = 1000) -> None:

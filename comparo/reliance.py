@@ -1,7 +1,7 @@
 """Which sources drive a scaling fit: leave-one-source-out, basis filters,
 leave-one-taxon-out jackknife and Monte Carlo propagation of measurement error.
 
-Every number here comes from refitting the same line (:func:`comparo.fit.fit`)
+Every number here comes from refitting the same line (:func:`comparo.lines.fit`)
 on a changed input; the verdict line is built only from those numbers.
 
 References
@@ -16,6 +16,7 @@ Fuller, W. A. (1987) Measurement Error Models. Wiley.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 from dataclasses import dataclass
 from typing import Any
@@ -23,7 +24,11 @@ from typing import Any
 import numpy as np
 
 from comparo.errors import UsageError
-from comparo.fit import FitResult, _jackknife_moments, _json, _progress_bar, fit, slope_from_moments
+from comparo.jsonsafe import json_safe as _json
+from comparo.lines.core import slope_from_moments
+from comparo.lines.resampling import _jackknife_moments, _progress_bar
+from comparo.lines.result import FitResult
+from comparo.lines.scaling import fit, renamed_against
 
 BASIS_STEPS = ("reported", "computed", "digitized", "proxy", "assumed")
 #: A refit that moves the slope by at least this many analytic SEs counts as influential.
@@ -103,6 +108,20 @@ class SensitivityResult:
             rows.append({"part": "by_basis", "changed": "+".join(r["bases"]), "n": r["n"], "slope": r["slope"],
                          "ci_low": r["slope_ci"][0], "ci_high": r["slope_ci"][1], "p": r["p"], "shift_se": r["shift_se"]})
         return pd.DataFrame(rows, columns=["part", "changed", "n", "slope", "ci_low", "ci_high", "p", "shift_se"])
+
+    def _repr_html_(self) -> str:
+        """Compact table for notebooks: the refits of :meth:`to_frame`, the jackknife and
+        measurement-error standard errors, and the verdict."""
+        from comparo.display import frame_html
+
+        j, m = self.jackknife_se, self.measurement_error
+        notes = [f"jackknife SE {_fmt(j.get('slope_jackknife'))}; analytic SE {_fmt(j.get('slope_analytic'))}"]
+        if m.get("spread") is not None:
+            notes.append(f"measurement error ({m['draws']} draws): spread {_fmt(m['spread'])}, total SE {_fmt(m['total_se'])}")
+        notes += [f"not available: {u}" for u in self.unavailable]
+        notes.append(f"verdict: {self.verdict}")
+        title = f"sensitivity of the {self.method.upper()} slope {_fmt(self.slope)} (SE {_fmt(self.slope_se)})"
+        return frame_html(title, self.to_frame(), notes)
 
     def summary(self, top: int = 5) -> str:
         """Plain-text account for people."""
@@ -215,7 +234,7 @@ def huber_slopes(X: np.ndarray, Y: np.ndarray, c: float = 1.345, max_iter: int =
 
     The IRLS of statsmodels RLM (HuberT, scale = median|r|/0.6745 re-estimated
     each step, OLS start), run for all rows together until no coefficient moves
-    more than *tol* (or *max_iter* steps); matches :func:`comparo.fit.huber_line`
+    more than *tol* (or *max_iter* steps); matches :func:`comparo.lines.huber_line`
     to about 1e-8.
     """
     def wls(w):
@@ -255,7 +274,7 @@ def _draw_slopes(method: str, X: np.ndarray, Y: np.ndarray, labels: list[str], r
             out[ok] = huber_slopes(X[ok], Y[ok])
         return out
     if method == "lts":
-        from comparo.fit import LTS_CUT, lts_fit, ols_line
+        from comparo.lines import LTS_CUT, lts_fit, ols_line
 
         for k in np.flatnonzero(ok):
             raw = lts_fit(X[k], Y[k], max_starts=MC_LTS_STARTS, seed=seed + k)
@@ -268,7 +287,7 @@ def _draw_slopes(method: str, X: np.ndarray, Y: np.ndarray, labels: list[str], r
     if method == "pgls":
         import pandas as pd
 
-        from comparo.phylo import pgls_fit, read_tree
+        from comparo.phylo import phylo_fit, read_tree
 
         opts = {k: v for k, v in fit_options.items() if k in ("tree", "tree_labels", "reml")}
         if isinstance(opts.get("tree"), str):
@@ -276,7 +295,7 @@ def _draw_slopes(method: str, X: np.ndarray, Y: np.ndarray, labels: list[str], r
         lam = result.lambda_ if result.lambda_ is not None else "ml"
         for k in np.flatnonzero(ok):
             t = pd.DataFrame({"taxon": labels, "x": X[k], "y": Y[k]})
-            out[k] = pgls_fit(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
+            out[k] = phylo_fit(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
         return out
     raise UsageError(f"measurement-error Monte Carlo: unknown method {method!r}")
 
@@ -403,7 +422,7 @@ def taxon_jackknife(result: FitResult, fit_kwargs: dict, table=None) -> dict:
         import pandas as pd
 
         b = np.empty(n)
-        kw = {k: v for k, v in fit_kwargs.items() if k not in ("log", "taxon_col", "test_slope")}
+        kw = {k: v for k, v in fit_kwargs.items() if k not in ("log", "taxon_col", "against")}
         for i in range(n):
             keep = np.arange(n) != i
             t = pd.DataFrame({"taxon": pts["label"][keep], "x": X[keep], "y": Y[keep]})
@@ -449,7 +468,7 @@ def _points(table, x: str, y: str) -> int:
 
 
 def _p(r: FitResult | None) -> float | None:
-    return r.test_slope["p"] if r is not None and r.test_slope else None
+    return r.against["p"] if r is not None and r.against else None
 
 
 def _record(r: FitResult | None, base_slope: float, se: float, n_left: int = 0, why: str | None = None) -> dict:
@@ -474,7 +493,7 @@ def sensitivity(
     y: str,
     method: str = "sma",
     *,
-    test_slope: float | None = None,
+    against: float | None = None,
     ci: float = 0.95,
     log: str = "10",
     mc: int = 1000,
@@ -492,8 +511,8 @@ def sensitivity(
     dataset_or_table : comparo.Dataset or pandas.DataFrame
         A loaded dataset (all parts) or a per-taxon table (no source-level parts:
         a plain table does not say which source each value came from).
-    x, y, method, test_slope, ci, log
-        As for :func:`comparo.fit.fit`.
+    x, y, method, against, ci, log
+        As for :func:`comparo.lines.fit`.
     mc : int
         Monte Carlo draws for the measurement-error part (0: skip).
     seed : int
@@ -504,7 +523,7 @@ def sensitivity(
         Restrict a dataset to these accepted taxon names (used per group by
         :func:`sensitivity_by_group`).
     **fit_options
-        Further options of :func:`comparo.fit.fit` (e.g. ``tree`` for pgls).
+        Further options of :func:`comparo.lines.fit` (e.g. ``tree`` for pgls).
 
     Returns
     -------
@@ -521,8 +540,9 @@ def sensitivity(
     """
     from comparo.dataset import Dataset
 
+    against = renamed_against(fit_options, against)
     alpha = 1 - ci
-    kw = dict(test_slope=test_slope, ci=ci, log=str(log), taxon_col=taxon_col, **fit_options)
+    kw = dict(against=against, ci=ci, log=str(log), taxon_col=taxon_col, **fit_options)
     unavailable = []
     ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
     if ds is not None:
@@ -547,56 +567,68 @@ def sensitivity(
         cols = [taxon_col] + [c for c in table.columns if c.startswith((f"{x}", f"{y}")) and c != taxon_col]
         xy_table = table[[c for c in dict.fromkeys(["taxon", *cols]) if c in table.columns]]
         used = rows[rows["status"] == "used"]
-        sources = sorted(used["source_id"].astype(str).unique())
-        loso = []
-        with _progress_bar(progress, len(sources)) as bar:
-            task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
-            for sid in sources:
-                r = rows.copy()
-                changed = (r["source_id"].astype(str) == sid).to_numpy()
-                r.loc[changed, "status"] = "excluded"
-                res, n_left, why = _refit(ds, h, r, changed, xy_table, x, y, method, kw)
-                rec = {"source_id": sid, **_record(res, base.slope, se, n_left, why)}
-                rec["flips"] = _flips(p_full, rec["p"], alpha)
-                loso.append(rec)
-                if bar is not None:
-                    bar.update(task, advance=1)
-        loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None and math.isfinite(d["shift_se"]) else 0.0)
-        by_basis = []
-        prev = None
-        present = set(used["basis_effective"])
-        for k in range(len(BASIS_STEPS)):
-            bases = BASIS_STEPS[: k + 1]
-            if k > 0 and BASIS_STEPS[k] not in present:
-                continue
-            r = rows.copy()
-            changed = (~r["basis_effective"].isin(bases)).to_numpy()
-            r.loc[changed, "status"] = "excluded"
-            res, n_left, why = ((base, base.n, None) if set(present) <= set(bases)
-                                else _refit(ds, h, r, changed, xy_table, x, y, method, kw))
-            ref_se = analytic_se(prev) if prev is not None else float("nan")
-            rec = {"bases": list(bases), **_record(res, prev.slope if prev is not None else float("nan"), ref_se,
-                                                   n_left, why)}
-            if prev is None:
-                rec["shift_se"] = None
-            width = (res.slope_ci[1] - res.slope_ci[0]) if res is not None else float("nan")
-            pw = (prev.slope_ci[1] - prev.slope_ci[0]) if prev is not None else float("nan")
-            rec["ci_change"] = width / pw - 1 if prev is not None and pw > 0 else None
-            rec["flips"] = _flips(_p(prev), rec["p"], alpha) if prev is not None else False
-            by_basis.append(rec)
-            if res is not None:
-                prev = res
+        refit = functools.partial(_refit, ds, h, base_table=xy_table, x=x, y=y, method=method, kwargs=kw)
+        loso = _leave_one_source_out(rows, used, refit, base, se, p_full, alpha, progress)
+        by_basis = _basis_steps(rows, used, refit, base, alpha)
     jack = taxon_jackknife(base, kw, table=table)
     me = measurement_error_mc(table, base, log=str(log), mc=mc, seed=seed, taxon_col=taxon_col, progress=progress,
                               fit_options=fit_options)
-    verdict = make_verdict(loso, by_basis, jack, me, test_slope=test_slope, unavailable=bool(unavailable))
-    test = {"value": test_slope, "p": p_full} if test_slope is not None else None
+    verdict = make_verdict(loso, by_basis, jack, me, against=against, unavailable=bool(unavailable))
+    test = {"value": against, "p": p_full} if against is not None else None
     return SensitivityResult(method=method, x=x, y=y, slope=base.slope, slope_se=se, ci_level=float(ci), test=test,
                              leave_one_source_out=loso, by_basis=by_basis, jackknife_se=jack, measurement_error=me,
                              verdict=verdict, unavailable=tuple(unavailable))
 
 
-def make_verdict(loso, by_basis, jack, me, *, test_slope=None, unavailable: bool = False) -> str:
+def _leave_one_source_out(rows, used, refit, base: FitResult, se: float, p_full, alpha: float, progress: bool) -> list[dict]:
+    """Refit without each source in turn; most influential (largest |shift_se|) first."""
+    sources = sorted(used["source_id"].astype(str).unique())
+    loso = []
+    with _progress_bar(progress, len(sources)) as bar:
+        task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
+        for sid in sources:
+            r = rows.copy()
+            changed = (r["source_id"].astype(str) == sid).to_numpy()
+            r.loc[changed, "status"] = "excluded"
+            res, n_left, why = refit(rows=r, changed=changed)
+            rec = {"source_id": sid, **_record(res, base.slope, se, n_left, why)}
+            rec["flips"] = _flips(p_full, rec["p"], alpha)
+            loso.append(rec)
+            if bar is not None:
+                bar.update(task, advance=1)
+    loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None and math.isfinite(d["shift_se"]) else 0.0)
+    return loso
+
+
+def _basis_steps(rows, used, refit, base: FitResult, alpha: float) -> list[dict]:
+    """Refit on the reported values only, then adding one weaker basis at a time."""
+    by_basis = []
+    prev = None
+    present = set(used["basis_effective"])
+    for k in range(len(BASIS_STEPS)):
+        bases = BASIS_STEPS[: k + 1]
+        if k > 0 and BASIS_STEPS[k] not in present:
+            continue
+        r = rows.copy()
+        changed = (~r["basis_effective"].isin(bases)).to_numpy()
+        r.loc[changed, "status"] = "excluded"
+        res, n_left, why = (base, base.n, None) if set(present) <= set(bases) else refit(rows=r, changed=changed)
+        ref_se = analytic_se(prev) if prev is not None else float("nan")
+        rec = {"bases": list(bases), **_record(res, prev.slope if prev is not None else float("nan"), ref_se,
+                                               n_left, why)}
+        if prev is None:
+            rec["shift_se"] = None
+        width = (res.slope_ci[1] - res.slope_ci[0]) if res is not None else float("nan")
+        pw = (prev.slope_ci[1] - prev.slope_ci[0]) if prev is not None else float("nan")
+        rec["ci_change"] = width / pw - 1 if prev is not None and pw > 0 else None
+        rec["flips"] = _flips(_p(prev), rec["p"], alpha) if prev is not None else False
+        by_basis.append(rec)
+        if res is not None:
+            prev = res
+    return by_basis
+
+
+def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool = False) -> str:
     """One plain-language line built only from the sensitivity numbers.
 
     A source (or a basis step) counts as influential when it moves the slope by
@@ -606,7 +638,7 @@ def make_verdict(loso, by_basis, jack, me, *, test_slope=None, unavailable: bool
     if loso is not None:
         hit = [r for r in loso if r["flips"] or (r["shift_se"] is not None and math.isfinite(r["shift_se"])
                                                  and abs(r["shift_se"]) >= SHIFT_THRESHOLD)]
-        mark = f"{SHIFT_THRESHOLD:g} SE or more" + (" or flips the test" if test_slope is not None else "")
+        mark = f"{SHIFT_THRESHOLD:g} SE or more" + (" or flips the test" if against is not None else "")
         if not loso:
             parts.append("no sources to leave out")
         elif not hit:

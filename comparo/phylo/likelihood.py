@@ -1,0 +1,181 @@
+"""GLS on a tree at a given lambda, with measurement error, ML or REML, and the search for
+lambda with its profile interval and likelihood-ratio tests.
+
+Freckleton RP, Harvey PH, Pagel M (2002) Phylogenetic analysis and comparative
+data: a test and review of evidence. Am Nat 160:712-726.
+Ives AR, Midford PE, Garland T (2007) Within-species variation and measurement
+error in phylogenetic comparative methods. Syst Biol 56:252-270.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from comparo.errors import UsageError
+from comparo.jsonsafe import finite_or_none as _f
+from comparo.phylo.engine import GLSQuantities, gls_quantities
+from comparo.phylo.flat import FlatTree, pagel_edges
+
+
+@dataclass(frozen=True, eq=False)
+class _Gls:
+    beta: np.ndarray
+    cov: np.ndarray  # covariance of beta
+    rss: float  # generalised RSS (y-Xb)'V⁻¹(y-Xb), V as scaled (= C(λ) without ME)
+    rss_null: float  # same for the intercept-only model
+    sigma2: float  # BM rate (REML estimate without ME, ML/REML optimum with ME)
+    loglik_ml: float
+    loglik_reml: float
+    logdet: float
+
+
+def _solve_from(gq: GLSQuantities, p: int) -> tuple[np.ndarray, np.ndarray, float, float, float]:
+    """beta, X'V⁻¹X, RSS, intercept-only RSS and ln|X'V⁻¹X| from the root quantities
+    of Z = [X | y] (X with p columns)."""
+    W = gq.W
+    XtX, Xty, yty = W[:p, :p], W[:p, p], W[p, p]
+    beta = np.linalg.solve(XtX, Xty)
+    rss = float(yty - Xty @ beta)
+    rss = max(rss, 0.0)
+    rss_null = float(yty - gq.q[p] ** 2 / gq.p)
+    logdet_x = np.linalg.slogdet(XtX)[1]
+    return beta, XtX, rss, rss_null, float(logdet_x)
+
+
+def _gls_fixed(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float) -> _Gls:
+    """GLS with V = sigma²·C(lambda), sigma² profiled out (no measurement error)."""
+    n, p = X.shape
+    gq = gls_quantities(ft, np.column_stack([X, y]), pagel_edges(ft, lam))
+    beta, XtX, rss, rss_null, ldx = _solve_from(gq, p)
+    s2_ml = rss / n
+    s2_r = rss / (n - p) if n > p else math.nan
+    tiny = 1e-300
+    ll_ml = -0.5 * (n * math.log(2 * math.pi * max(s2_ml, tiny)) + gq.logdet + n)
+    ll_r = -0.5 * ((n - p) * math.log(2 * math.pi * max(s2_r, tiny)) + gq.logdet + ldx + (n - p)) if n > p else math.nan
+    cov = s2_r * np.linalg.inv(XtX)
+    return _Gls(beta, cov, rss, rss_null, s2_r, ll_ml, ll_r, gq.logdet)
+
+
+def _gls_me(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, s2: float, se2: np.ndarray) -> _Gls:
+    """GLS with V = sigma²·C(lambda) + diag(se²) at a given sigma² (Ives et al. 2007)."""
+    n, p = X.shape
+    e = s2 * pagel_edges(ft, lam)
+    e[:n] += se2
+    gq = gls_quantities(ft, np.column_stack([X, y]), e)
+    beta, XtX, rss, rss_null, ldx = _solve_from(gq, p)
+    ll_ml = -0.5 * (n * math.log(2 * math.pi) + gq.logdet + rss)
+    ll_r = -0.5 * ((n - p) * math.log(2 * math.pi) + gq.logdet + ldx + rss)
+    return _Gls(beta, np.linalg.inv(XtX), rss, rss_null, s2, ll_ml, ll_r, gq.logdet)
+
+
+def _gls(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, se2: np.ndarray | None, reml: bool) -> _Gls:
+    """GLS at lambda; with measurement error, sigma² maximises the (RE)ML likelihood."""
+    if se2 is None or not np.any(se2 > 0):
+        return _gls_fixed(ft, X, y, lam)
+    from scipy.optimize import minimize_scalar
+
+    base = _gls_fixed(ft, X, y, lam)
+    s0 = max(base.rss / X.shape[0], 1e-300)
+    u0 = math.log(s0)
+
+    def negll(u: float) -> float:
+        g = _gls_me(ft, X, y, lam, math.exp(u), se2)
+        return -(g.loglik_reml if reml else g.loglik_ml)
+
+    res = minimize_scalar(negll, bounds=(u0 - 25.0, u0 + 5.0), method="bounded", options={"xatol": 1e-7})
+    return _gls_me(ft, X, y, lam, math.exp(float(res.x)), se2)
+
+
+def _ll(g: _Gls, reml: bool) -> float:
+    return g.loglik_reml if reml else g.loglik_ml
+
+
+@dataclass(frozen=True, eq=False)
+class _LambdaFit:
+    lam: float
+    ci: tuple[float, float] | None
+    loglik: float
+    ll0: float | None
+    ll1: float | None
+    fit: _Gls
+    top: float | None  # upper end of the search (1, or 1 - 1e-6 with zero-length tip edges)
+
+
+def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: np.ndarray | None, reml: bool, ci: float) -> _LambdaFit:
+    """Pagel's lambda: fixed, or maximising the (RE)ML profile likelihood on [0, 1]
+    (a grid of 11 points, then a bounded Brent refinement around the best), with the profile CI
+    {lambda: 2(l_max - l(lambda)) <= chi²_1(ci)}."""
+    from scipy.optimize import brentq, minimize_scalar
+    from scipy.stats import chi2
+
+    if not (isinstance(lambda_, str) and lambda_.strip().lower() == "ml"):
+        try:
+            lam = float(lambda_)
+        except (TypeError, ValueError):
+            raise UsageError(f"--lambda must be 'ml' or a number in [0, 1], got {lambda_!r}") from None
+        if not 0.0 <= lam <= 1.0:
+            raise UsageError(f"--lambda must be in [0, 1], got {lam}")
+        g = _gls(ft, X, y, lam, se2, reml)
+        return _LambdaFit(lam, None, _ll(g, reml), None, None, g, None)
+
+    # a zero-length tip edge has zero variance at lambda = 1 (no measurement error):
+    # the engine needs t > 0 there, so the search stops just short of 1
+    zero = ft.length[: ft.n_tips] <= 0
+    if se2 is not None:
+        zero &= se2 <= 0
+    top = 1.0 - 1e-6 if np.any(zero) else 1.0
+    cache: dict[float, float] = {}
+
+    def ll(lam: float) -> float:
+        lam = float(min(top, max(0.0, lam)))
+        if lam not in cache:
+            cache[lam] = _ll(_gls(ft, X, y, lam, se2, reml), reml)
+        return cache[lam]
+
+    grid = np.linspace(0.0, top, 11)
+    vals = np.array([ll(v) for v in grid])
+    i = int(np.nanargmax(vals))
+    lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
+    res = minimize_scalar(lambda v: -ll(v), bounds=(lo, hi), method="bounded", options={"xatol": 1e-6})
+    best = max([(float(res.x), ll(float(res.x))), (float(grid[i]), float(vals[i]))], key=lambda t: t[1])
+    lam_hat, ll_max = best
+    crit = float(chi2.ppf(ci, 1))
+
+    def g(v: float) -> float:
+        return 2.0 * (ll_max - ll(v)) - crit
+
+    # lower limit: last grid point below lam_hat outside the region, root between it and the next
+    below = [v for v in grid if v < lam_hat]
+    lower = 0.0
+    for v in reversed(below):
+        if g(v) > 0:
+            right = min([w for w in grid if w > v] + [lam_hat])
+            right = min(right, lam_hat)
+            lower = brentq(g, v, right, xtol=1e-6) if g(right) < 0 else right
+            break
+    above = [v for v in grid if v > lam_hat]
+    upper = top
+    for v in above:
+        if g(v) > 0:
+            left = max([w for w in grid if w < v] + [lam_hat])
+            left = max(left, lam_hat)
+            upper = brentq(g, left, v, xtol=1e-6) if g(left) < 0 else left
+            break
+    fit = _gls(ft, X, y, lam_hat, se2, reml)
+    return _LambdaFit(lam_hat, (float(lower), float(upper)), ll_max, ll(0.0), ll(top), fit, top)
+
+
+def _lr(ll_max: float, ll_h: float | None) -> dict | None:
+    """Likelihood-ratio test of a fixed lambda; p from chi²_1. On the boundary of
+    [0, 1] the null distribution is the 50:50 mixture of chi²_0 and chi²_1 (Self &
+    Liang 1987, JASA 82:605-610), so this p is conservative (twice the mixture's)."""
+    from scipy.stats import chi2
+
+    if ll_h is None:
+        return None
+    stat = max(0.0, 2.0 * (ll_max - ll_h))
+    return {"loglik": _f(ll_h), "statistic": _f(stat), "p": _f(chi2.sf(stat, 1))}

@@ -1,0 +1,193 @@
+"""Reading a Newick tree (branch lengths required, deep trees supported) and checking it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from comparo.errors import InputError, Problem
+
+if TYPE_CHECKING:  # pragma: no cover
+    import dendropy
+
+
+_NEWICK_SOURCE = "<newick text>"
+
+
+def _tree_problem(file: str, rule: str, message: str, hint: str = "", value: str | None = None) -> InputError:
+    return InputError([Problem("error", file, None, None, value, rule, message, hint)])
+
+
+def _norm(label: str) -> str:
+    """Matching key: underscores as spaces, runs of white space collapsed, case folded."""
+    return " ".join(str(label).replace("_", " ").split()).casefold()
+
+
+
+def _parse(text: str) -> Any:
+    """Parse Newick *text* with dendropy (deep trees on a big stack): the one reader,
+    shared with the dataset folder reader (:func:`comparo.io.parse_newick`)."""
+    from comparo.io import parse_newick
+
+    return parse_newick(text)
+
+
+def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
+    """Read one rooted tree with branch lengths from a Newick file or string.
+
+    Parameters
+    ----------
+    path_or_newick : str or Path
+        A file name, or Newick text itself (recognised by its leading ``(`` or ``[``).
+        A missing final ``;`` is tolerated.
+
+    Returns
+    -------
+    dendropy.Tree
+        Tip labels are kept as written (underscores are not turned into spaces);
+        they are stored on the leaf nodes' ``label`` attribute.
+
+    Raises
+    ------
+    InputError
+        File missing or unreadable; malformed Newick (unbalanced parentheses,
+        bad edge length...) with dendropy's line and column; more or fewer than
+        one tree; a tip without a label; duplicate tip labels; an edge without
+        a length or with a negative length (the root edge is ignored).
+
+    Notes
+    -----
+    Polytomies, unary nodes and non-ultrametric trees are accepted. Very deep
+    trees (ladders of 50,000 levels) parse on a thread with a larger stack.
+    """
+    from dendropy.utility.error import DataParseError
+
+    src = str(path_or_newick)
+    if src.lstrip().startswith(("(", "[")):
+        name, text = _NEWICK_SOURCE, src
+    else:
+        name = src
+        try:
+            text = Path(src).read_text(encoding="utf-8-sig")
+        except FileNotFoundError:
+            raise _tree_problem(name, "tree-file", "tree file not found", "check the path given with --tree") from None
+        except (OSError, UnicodeDecodeError) as exc:
+            raise _tree_problem(name, "tree-file", f"cannot read the tree file ({exc})") from None
+    text = text.strip()
+    if text and not text.endswith(";"):
+        text += ";"
+    try:
+        trees = _parse(text)
+    except DataParseError as exc:
+        raise _tree_problem(
+            name, "tree-newick", f"malformed Newick: {exc}", "check parentheses, commas, ':' before each length and the final ';'"
+        ) from None
+    except RecursionError:  # pragma: no cover - guarded by _parse
+        raise _tree_problem(name, "tree-newick", "tree nested too deeply to parse") from None
+    if len(trees) != 1:
+        raise _tree_problem(name, "tree-count", f"the file holds {len(trees)} trees; exactly one is needed")
+    tree = trees[0]
+    _check(_topology(tree), name)
+    return tree
+
+
+@dataclass(frozen=True, eq=False)
+class _Topo:
+    """One pre-order pass over a dendropy tree: parent index, edge length (None if
+    absent) and, for leaves, the label (None if absent)."""
+
+    parent: list[int]
+    length: list[float | None]
+    leaf: dict[int, str | None]
+    inner_label: list[str | None]
+
+    @property
+    def tips(self) -> list[str]:
+        return [str(v) for v in self.leaf.values()]
+
+
+def _preorder(tree: Any) -> list:
+    """Nodes of a dendropy tree in pre-order (children in their order), iteratively."""
+    out = []
+    stack = [tree.seed_node]
+    while stack:
+        nd = stack.pop()
+        out.append(nd)
+        ch = nd.child_nodes()
+        if ch:
+            stack.extend(reversed(ch))
+    return out
+
+
+def _topology(tree: Any) -> _Topo:
+    nodes = _preorder(tree)
+    index = {id(nd): i for i, nd in enumerate(nodes)}
+    parent = [-1] * len(nodes)
+    length: list[float | None] = [None] * len(nodes)
+    leaf: dict[int, str | None] = {}
+    inner: list[str | None] = [None] * len(nodes)
+    for i, nd in enumerate(nodes):
+        p = nd.parent_node
+        if p is not None:
+            parent[i] = index[id(p)]
+            length[i] = nd.edge.length
+        if nd.child_nodes():
+            inner[i] = nd.label
+        else:
+            lab = nd.label if nd.label is not None else (nd.taxon.label if nd.taxon is not None else None)
+            leaf[i] = None if lab is None else str(lab)
+    return _Topo(parent, length, leaf, inner)
+
+
+def check_tree(tree: Any, name: str = "tree") -> None:
+    """Raise :class:`InputError` unless every tip has a unique label and every edge
+    (except the root's) a finite, non-negative length. *name* is the file named in
+    the problem."""
+    _check(_topology(tree), name)
+
+
+def _check(topo: _Topo, name: str) -> None:
+    labels = list(topo.leaf.values())
+    if any(lab is None or str(lab).strip() == "" for lab in labels):
+        raise _tree_problem(name, "tree-tip-label", f"{sum(lab is None or not str(lab).strip() for lab in labels)} tip(s) without a label")
+    seen: dict[str, int] = {}
+    for lab in labels:
+        seen[lab] = seen.get(lab, 0) + 1
+    dups = sorted(k for k, c in seen.items() if c > 1)
+    if dups:
+        raise _tree_problem(
+            name, "tree-duplicate-tip", f"duplicate tip label(s): {', '.join(dups[:10])}", "each tip label must occur once", value=dups[0]
+        )
+    missing, negative = [], []
+    for i in range(1, len(topo.parent)):
+        length = topo.length[i]
+        where = topo.leaf.get(i) or topo.inner_label[i] or "an internal node"
+        if length is None:
+            missing.append(where)
+        elif not math.isfinite(length) or length < 0:
+            negative.append(where)
+    if missing:
+        raise _tree_problem(
+            name,
+            "tree-branch-lengths",
+            f"{len(missing)} edge(s) without a branch length (e.g. above {missing[0]!r}); phylogenetic fits need branch lengths",
+            "write every edge as label:length, e.g. (A:1.2,B:0.8):0.5",
+        )
+    if negative:
+        raise _tree_problem(
+            name, "tree-branch-lengths", f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {negative[0]!r})"
+        )
+
+
+def _as_topo(tree: Any) -> _Topo:
+    """The checked topology of a tree, a Newick file name or Newick text."""
+    if isinstance(tree, _Topo):
+        return tree
+    if isinstance(tree, str | Path):
+        tree = read_tree(tree)
+    topo = _topology(tree)
+    _check(topo, "tree")
+    return topo
