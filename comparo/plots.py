@@ -566,7 +566,7 @@ def loop_plot(trace: Any) -> Figure:
     strain = trace.kind == "strain_cycle"
     sx, sy = (100.0, 100.0) if strain else (1e3, 1e3)
     fig, ax = _figure(4.6, 3.8)
-    with _plt().rc_context(_STYLE):
+    with _plt().rc_context(STYLE):
         for k, (a, b) in enumerate(trace.cycle_bounds):
             inside = (t >= a) & (t <= b)
             xs, ys = x[inside] * sx, y[inside] * sy
