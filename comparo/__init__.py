@@ -38,6 +38,7 @@ _API = {
     "contrasts": "comparo.phylo",
     "tree_signal": "comparo.phylo",
     "read_tree": "comparo.phylo",
+    "cycles": "comparo.traces",
 }
 
 __all__ = sorted(_API) + ["__version__"]

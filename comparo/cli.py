@@ -121,6 +121,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=["text", "json", "csv"], default="text", help="output format")
     _temperature_arg(p)
 
+    p = sub.add_parser("cycles", help="strain cycles and work loops reduced from the traces of a dataset (traces.csv)")
+    _dataset_arg(p)
+    p.add_argument("--format", choices=["text", "json", "csv"], default="text", help="output format (default text)")
+    _output_arg(p)
+    _temperature_arg(p)
+
     p = sub.add_parser("report", help="full analysis: HTML report, figures and tables")
     _dataset_arg(p)
     _output_dir_arg(p)

@@ -223,6 +223,11 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         m = obs["obs_id"].isin(list(slip_ids)) & (obs["status"] == "used")
         obs.loc[m, "status"] = "excluded"
         obs.loc[m, "reason"] = [f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit {slip_ids[o]['likely_unit']}" for o in obs.loc[m, "obs_id"]]
+    if ds.traces is not None:  # per-trace cycle results join as computed rows (comparo.traces), using
+        from comparo.traces import trace_observations  # only the taxon values still in use
+
+        obs = trace_observations(ds, obs)
+        h.rows = obs
     h.conflicts = find_conflicts(obs, ds)
     return h
 
@@ -432,25 +437,31 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
     """Curation findings as Problems for ``comparo check``: duplicates, suspected unit
     slips and conflicts (warnings), digitized/proxy/assumed values and synonyms (notes)."""
     h = harmonise(ds, temperature=temperature)
-    file = ds.files["observations"].name if "observations" in ds.files else "observations"
+    obs_file = ds.files["observations"].name if "observations" in ds.files else "observations"
     rows = h.rows
+    origin = dict(zip(rows["obs_id"], rows["_origin"], strict=True)) if "_origin" in rows else {}
+
+    def file_of(obs_id: str) -> str:  # trace results point at their row of traces.csv
+        return origin.get(obs_id) or obs_file
+
+    file = obs_file
     out: list[Problem] = []
     beyond = (rows["status"] == "excluded") & (rows["problem"] == "") & rows["reason"].str.startswith("temperature normalisation")
     for r in rows[beyond].itertuples():
         out.append(Problem("error", file, int(r.row), "temperature_c", _cell(r.temperature_c), "temperature-factor-range", r.reason, "the row is excluded from every table and fit until fixed"))
     for r in rows[rows["status"] == "merged"].itertuples():
-        out.append(Problem("warning", file, int(r.row), "obs_id", r.obs_id, "duplicate-row", r.reason, "it is merged, not double counted; delete one of the two rows"))
+        out.append(Problem("warning", file_of(r.obs_id), int(r.row), "obs_id", r.obs_id, "duplicate-row", r.reason, "it is merged, not double counted; delete one of the two rows"))
     for s in h.unit_slips:
-        out.append(Problem("warning", file, s["row"], "unit", s["unit"], "unit-slip", f"{s['quantity']} of {s['taxon']} is ~10^{s['power']} off the group median ({s['group_median']:.3g}); likely unit {s['likely_unit']}", "check the unit; the value is excluded from aggregation until fixed"))
+        out.append(Problem("warning", file_of(s["obs_id"]), s["row"], "unit", s["unit"], "unit-slip", f"{s['quantity']} of {s['taxon']} is ~10^{s['power']} off the group median ({s['group_median']:.3g}); likely unit {s['likely_unit']}", "check the unit; the value is excluded from aggregation until fixed"))
     for c in h.conflicts:
         for i, (oid, row) in enumerate(zip(c["obs_ids"], c["rows"], strict=True)):
             others = "; ".join(describe_value(c, j) for j in range(len(c["obs_ids"])) if j != i)
-            out.append(Problem("warning", file, row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']}: {describe_value(c, i)} disagrees with {others}", "check both sources; the per-taxon value combines them"))
+            out.append(Problem("warning", file_of(oid), row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']}: {describe_value(c, i)} disagrees with {others}", "check both sources; the per-taxon value combines them"))
     for b in ("digitized", "proxy", "assumed"):
         for r in rows[rows["basis"] == b].itertuples():
             extra = f" (stands in from {r.proxy_taxon})" if b == "proxy" else ""
             out.append(Problem("note", file, int(r.row), "basis", b, f"basis-{b}", f"{r.quantity_key} of {r.accepted} is {b}{extra}", ""))
-    syn = rows[rows["accepted"] != rows["taxon"]]
+    syn = rows[(rows["accepted"] != rows["taxon"]) & (rows["_origin"] == "" if "_origin" in rows else True)]
     for name, part in syn.groupby("taxon"):
         out.append(Problem("note", file, int(part["row"].iat[0]), "taxon", name, "synonym", f"reported name mapped to accepted name {part['accepted'].iat[0]!r} ({len(part)} row(s))", ""))
     return out
@@ -475,8 +486,9 @@ def _gate_hooks() -> list:
     """The gate's checks, imported when ``check`` runs (one line per step)."""
     from comparo.config import settings_problems
     from comparo.phylo import tree_problems
+    from comparo.traces import trace_problems
 
-    hooks: list = [settings_problems, tree_problems]
+    hooks: list = [settings_problems, tree_problems, trace_problems]
     return hooks
 
 

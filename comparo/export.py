@@ -153,6 +153,8 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
         resources.append({"name": "per_taxon", "path": "per_taxon.csv", "profile": "tabular-data-resource", "format": "csv", "mediatype": "text/csv", "encoding": "utf-8",
                           "description": "One row per accepted taxon, harmonised (comparo per-taxon table).",
                           "schema": {"fields": fields, "primaryKey": ["taxon"]}})
+        if ds.traces is not None:
+            resources.append(_cycles_resource(ds, tmp, temperature))
         package = {
             "profile": "tabular-data-package",
             "name": _slug(ds.settings.get("title") or ds.folder.name),
@@ -167,6 +169,26 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
     return ExportResult("datapackage", str(out), files)
 
 
+def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool) -> dict:
+    """``cycles.csv``: one row per trace reduced by comparo cycles (SI units, KEY_sd = SD over cycles)."""
+    from comparo.traces import SI_UNITS, cycles
+
+    frame = cycles(ds, temperature=temperature).to_frame()
+    (tmp / "cycles.csv").write_text(to_csv(frame), encoding="utf-8")
+    fields = []
+    for col in frame.columns:
+        base = col[:-3] if col.endswith("_sd") else col
+        f: dict = {"name": col, "type": "number" if pd.api.types.is_numeric_dtype(frame[col]) else "string"}
+        if base in SI_UNITS:
+            f["unit"] = SI_UNITS[base]
+        fields.append(f)
+    return {"name": "cycles", "path": "cycles.csv", "profile": "tabular-data-resource", "format": "csv",
+            "mediatype": "text/csv", "encoding": "utf-8",
+            "description": "One row per oscillation trace of traces.csv reduced to whole cycles (comparo cycles): "
+                           "means over cycles in SI units, KEY_sd the SD over cycles.",
+            "schema": {"fields": fields, "primaryKey": ["trace_id"]}}
+
+
 def _slug(text: str) -> str:
     import re
 
@@ -175,7 +197,8 @@ def _slug(text: str) -> str:
 
 
 def dwc_frame(ds: Dataset) -> pd.DataFrame:
-    """Darwin Core MeasurementOrFact rows (one per observation, values as reported)."""
+    """Darwin Core MeasurementOrFact rows: one per observation (values as reported), then one
+    per computed result of the dataset's traces (``TRACE_ID:quantity``, see comparo.traces)."""
     from comparo.curate import accepted_names
 
     obs = ds.observations
@@ -211,6 +234,11 @@ def dwc_frame(ds: Dataset) -> pd.DataFrame:
         return "; ".join(parts)
 
     frame = obs.assign(accepted=accepted_names(ds))
+    if ds.traces is not None:  # the computed rows of the reduced traces (comparo cycles), with their lineage
+        from comparo.curate import harmonise
+
+        rows = harmonise(ds).rows
+        frame = pd.concat([frame, rows.loc[rows["_origin"] == "traces.csv", list(frame.columns)]], ignore_index=True)
     recs = []
     for r in frame.itertuples(index=False):
         q = cat[r.quantity] if r.quantity in cat else None

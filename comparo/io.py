@@ -29,6 +29,7 @@ OBSERVATION_NAMES = ("observations.csv", "observations.tsv", "observations.txt",
 SOURCE_NAMES = ("sources.csv", "sources.tsv", "sources.bib", "sources.xlsx")
 TAXA_NAMES = ("taxa.csv", "taxa.tsv", "taxa.xlsx")
 TREE_NAMES = ("tree.nwk", "tree.newick", "tree.tre")
+TRACES_NAMES = ("traces.csv", "traces.tsv")
 SETTINGS_NAME = "comparo.toml"
 
 SETTINGS_KEYS = {
@@ -65,6 +66,7 @@ class RawDataset:
     observations: RawTable | None = None
     sources: RawTable | None = None
     taxa: RawTable | None = None
+    traces: RawTable | None = None  # the index of trace files (traces.csv); the files are read by comparo.traces
     tree: Any = None
     tree_text: str | None = None
     settings: dict[str, Any] = field(default_factory=dict)
@@ -713,6 +715,11 @@ def read_folder(folder: str | Path) -> RawDataset:
         raw.files["taxa"] = tax
         raw.taxa, p = read_table(tax, "taxa")
         raw.problems += p
+    traces = _first(folder, TRACES_NAMES, raw.problems)
+    if traces is not None:
+        raw.files["traces"] = traces
+        raw.traces, p = read_table(traces, "traces")
+        raw.problems += p
     tree = _first(folder, TREE_NAMES, raw.problems)
     if tree is not None:
         raw.files["tree"] = tree
@@ -723,5 +730,5 @@ def read_folder(folder: str | Path) -> RawDataset:
         raw.files["settings"] = settings
         raw.settings, p = read_settings(settings)
         raw.problems += p
-    raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa) if t is not None])
+    raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa, raw.traces) if t is not None])
     return raw

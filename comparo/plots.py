@@ -646,3 +646,41 @@ def forest_plot(rows: Sequence[Mapping[str, Any]], *, slope: float, slope_ci: Se
     ax.set_title(f"{title or 'Leave one source out'}\n({n} sources, most influential at the top)")
     ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
+
+
+def loop_plot(trace: Any) -> Figure:
+    """One trace's whole cycles (a :class:`comparo.traces.TraceResult`, drift removed) with
+    arrows giving the direction of travel. Strain cycles: axial strain (%) across, radial (%)
+    up, with the isochoric curve (1+e_a)^(-1/2) - 1; work loops: length (mm) across, force
+    (mN) up. The title gives the mean signed area or net work (counter-clockwise positive)."""
+    from comparo.loops import isochoric_radial
+
+    t, x, y = trace.signals
+    strain = trace.kind == "strain_cycle"
+    sx, sy = (100.0, 100.0) if strain else (1e3, 1e3)
+    fig, ax = _figure(4.6, 3.8)
+    with _plt().rc_context(STYLE):
+        for k, (a, b) in enumerate(trace.cycle_bounds):
+            inside = (t >= a) & (t <= b)
+            xs, ys = x[inside] * sx, y[inside] * sy
+            ax.plot(xs, ys, color=PALETTE[0], lw=0.9, alpha=0.75, label="whole cycles" if k == 0 else None)
+            step = max(2, len(xs) // 25)
+            for j in ((len(xs) * q) // 8 for q in (1, 3, 5, 7)) if k == 0 else ():  # direction of travel
+                if j + step < len(xs):
+                    ax.annotate("", xy=(xs[j + step], ys[j + step]), xytext=(xs[j], ys[j]),
+                                arrowprops={"arrowstyle": "-|>", "color": PALETTE[6], "lw": 1.2, "mutation_scale": 16})
+        if strain:
+            grid = np.linspace(float(np.min(x)), float(np.max(x)), 200)
+            ax.plot(grid * 100, isochoric_radial(grid) * 100, color=PALETTE[3], lw=1.2, ls="--",
+                    label="isochoric: (1+ε_a)^(-1/2) − 1")
+            ax.set_xlabel("axial strain ε_a (%)")
+            ax.set_ylabel("radial strain ε_r (%)")
+            area = trace.values["loop_area"][0]
+            what = f"signed area {area:.3g}"
+        else:
+            ax.set_xlabel("length (mm)")
+            ax.set_ylabel("force (mN)")
+            what = f"net work {trace.values['net_work'][0] * 1e6:.4g} µJ per cycle"
+        ax.set_title(short(f"{trace.trace_id} · {trace.taxon}", 48) + f"\n{what} ({trace.cycles} cycles)", fontsize=9)
+        ax.legend(loc="best", frameon=False)
+    return fig

@@ -163,7 +163,8 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
     if ds.problems is not None and len(ds.problems):
         file = ds.files["observations"].name if "observations" in ds.files else ""
         rws = ds.problems[(ds.problems["rule"] == "out-of-range") & ds.problems["file"].astype(str).str.startswith(file)]["row"]
-        row_to_id = dict(zip(rows["row"], rows["obs_id"], strict=True))
+        own = rows[rows["_origin"] == ""] if "_origin" in rows else rows  # rows of the observations table
+        row_to_id = dict(zip(own["row"], own["obs_id"], strict=True))
         oor = [row_to_id[int(r)] for r in rws if int(r) in row_to_id]
     synonyms = {t: a for t, a in zip(rows["taxon"], rows["accepted"], strict=True) if t != a}
     contested = {c["taxon"] for c in h.conflicts} | {s["taxon"] for s in h.unit_slips}

@@ -38,6 +38,10 @@ KIND_DIMENSIONS: dict[str, str] = {
     "ratio": "",
     "count": "",
     "temperature": "[temperature]",
+    "energy": "[mass] * [length] ** 2 / [time] ** 2",
+    "power": "[mass] * [length] ** 2 / [time] ** 3",
+    "power_per_mass": "[length] ** 2 / [time] ** 3",
+    "force": "[mass] * [length] / [time] ** 2",
     "energy_per_mol": "[mass] * [length] ** 2 / [time] ** 2 / [substance]",
 }
 

@@ -14,7 +14,7 @@ from __future__ import annotations
 import difflib
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
 from typing import Any
@@ -694,6 +694,8 @@ class Dataset:
     problems: Any
     files: dict[str, Path]
     tree_text: str | None = None
+    traces: Any = None  # comparo.io.RawTable of traces.csv, or None (reduced by comparo.traces)
+    cache: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)  # results computed once per load
 
     @property
     def rows_read(self) -> int:
@@ -756,7 +758,8 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
         problems += p
         if "accepted_name" in taxa:  # chains resolved to their end; names in a cycle stay unmapped
             taxa["accepted_name"] = [synonyms.get(t, "" if a != t else a) for t, a in zip(taxa["taxon"], taxa["accepted_name"], strict=True)]
-    ds = Dataset(folder=raw.folder, observations=obs, sources=sources, taxa=taxa, tree=raw.tree, settings=raw.settings, catalog=catalog, problems=None, files=raw.files, tree_text=raw.tree_text)
+    ds = Dataset(folder=raw.folder, observations=obs, sources=sources, taxa=taxa, tree=raw.tree, settings=raw.settings,
+                 catalog=catalog, problems=None, files=raw.files, tree_text=raw.tree_text, traces=raw.traces)
     return ds, cell_coordinates(raw, problems)
 
 

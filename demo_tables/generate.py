@@ -38,6 +38,11 @@ The scenario is built tree first, as evolution would have it:
    and unevenly across clades (some groups are little studied). Each source works
    on one or two clades.
 
+5. **Traces.** Three work loops and two strain cycles (``traces.csv`` and
+   ``trace_*.csv``), with the muscle masses and one odd modulus they rely on, are
+   drawn from their own seeded stream (:func:`make_traces`), so adding them left
+   every other number of the demo as it was.
+
 The true (generating) values per taxon are written to ``truth.csv``
 (:func:`truth_rows`); reported values scatter around them as their stated
 uncertainties say. Rates and frequencies are reported at measurement
@@ -419,6 +424,8 @@ def make(rng: np.random.Generator) -> dict[str, str]:
                  "source_id": a_row["source_id"], "locator": a_row["locator"], "basis": "computed",
                  "inputs": f"{a_row['obs_id']};{d_row['obs_id']}", "temperature_c": a_row.get("temperature_c", ""),
                  "notes": "1/(f+g) from the two rate rows", "entered_by": "demo generator", "entered_on": "2026-12-01"})
+    trace_files, trace_rows = make_traces(w)
+    rows.extend(trace_rows)
     # a synonym: one taxon reported under an older name in one source
     syn_target = names[5]
     k = rows_by[(syn_target, "fiber_length")] if (syn_target, "fiber_length") in rows_by else rows_by[(syn_target, "body_mass")]
@@ -481,6 +488,10 @@ modulus, rates, and the poroelastic and kinetic times, their ratio, the
 frequency bounds and the limiting process they imply). It is not part of the
 compilation (comparo does not read it); it lets a user check how well
 `comparo derive` recovers a known answer.
+
+`traces.csv` and the `trace_*.csv` files are invented oscillation traces (three
+work loops, two strain cycles) for `comparo cycles`; their generating phase lags
+and loop openings are in the notes column of `traces.csv`.
 """
     return {
         "observations.csv": "\n".join(obs_lines) + "\n",
@@ -490,9 +501,83 @@ compilation (comparo does not read it); it lets a user check how well
         "comparo.toml": settings,
         "README.md": readme,
         "truth.csv": truth,
+        **trace_files,
     }
 
 
+
+
+TRACE_SEED = (SEED, 17)  # the traces draw from their own stream, so the rest of the demo is unchanged
+MUSCLE_FRACTION = 0.08  # invented: the studied muscle is 8% of body mass
+STRESS_AMPLITUDE_KPA = 60.0  # invented force amplitude per cross-sectional area
+MUSCLE_DENSITY = 1060.0  # kg/m^3 (common practice value for muscle)
+
+
+def _trace_csv(header: str, columns: list[np.ndarray], digits: list[int]) -> str:
+    lines = [header]
+    for vals in zip(*columns, strict=True):
+        lines.append(",".join(f"{v:.{d}g}" for v, d in zip(vals, digits, strict=True)))
+    return "\n".join(lines) + "\n"
+
+
+def make_traces(w: World) -> tuple[dict[str, str], list[dict[str, str]]]:
+    """Invented oscillation traces for `comparo cycles`: three work loops and two strain cycles,
+    the files, traces.csv and the observation rows they rely on (muscle masses, one odd modulus).
+
+    Work loops: muscle length L0 (the taxon's fiber length) +- 4% sinusoidally at the taxon's
+    frequency, force = 60 kPa x cross-section (muscle mass / (density x L0)) x sin(wt - phi), phi
+    drawn in 0.6-1.2 rad (so the muscle delivers work: W = pi dL dF sin phi), plus noise and a slow
+    drift; 8.4 cycles, 200 samples per cycle; the length amplitude is 4% x (50 Hz / f)^0.5 (at most
+    6%). Strain cycles: axial strain 3% sinusoidal; radial strain on the isochoric curve plus a
+    quarter-cycle-shifted part that opens a loop (0.2% counter-clockwise, 0.5% clockwise). Nothing
+    here is a measurement.
+    """
+    rng = np.random.default_rng(list(TRACE_SEED))
+    order = np.argsort(w.logm)
+    taken = {5, 7, 12, 20, 40}
+    pick = [int(i) for i in order if int(i) not in taken]
+    wl = [pick[5], pick[len(pick) // 2], pick[-6]]
+    sc = [pick[15], pick[-16]]
+    index = ["trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,y_column,y_unit,"
+             "temperature_c,preparation,muscle,notes"]
+    files: dict[str, str] = {}
+    rows: list[dict[str, str]] = []
+    units = [("ms", "mm", "mN", 1e3, 1.0, 1e3), ("s", "um", "mN", 1.0, 1e3, 1e3), ("s", "mm", "N", 1.0, 1.0, 1.0)]
+    for k, i in enumerate(wl):
+        f = float(w.freq[i])
+        mass = MUSCLE_FRACTION * 10 ** float(w.logm[i])  # kg
+        l0 = float(w.length[i]) * 1e-3  # m
+        area = mass / (MUSCLE_DENSITY * l0)  # m^2
+        df = STRESS_AMPLITUDE_KPA * 1e3 * area  # N
+        dl = min(0.06, 0.04 * (50.0 / f) ** 0.5) * l0  # invented: smaller strains at higher frequencies
+        phi = float(rng.uniform(0.6, 1.2))
+        t = np.arange(0, 8.4 / f, 1 / (200 * f)) + float(rng.uniform(0, 1 / f))
+        wt = 2 * np.pi * f * t
+        length = l0 + dl * np.sin(wt) + 0.002 * l0 * f * (t - t[0])
+        force = 0.5 * df + df * np.sin(wt - phi) + rng.normal(0, 0.02 * df, len(t)) + 0.05 * df * f * (t - t[0])
+        tu, lu, fu, tf, lf, ff = units[k]
+        name = f"trace_WL{k + 1}.csv"
+        files[name] = _trace_csv(f"time_{tu},length_{lu},force_{fu}", [t * tf, length * 1e3 * lf, force * ff], [8, 7, 6])
+        index.append(f"WL{k + 1},{name},{w.names[i]},SYN09,Fig. {k + 2},work_loop,time_{tu},{tu},length_{lu},{lu},"
+                     f"force_{fu},{fu},25,in_vitro,synthetic flight muscle,invented work loop (phase lag {phi:.2f} rad)")
+        rows.append({"taxon": w.names[i], "quantity": "muscle_mass", "value": g(mass * 1e6, 3), "unit": "mg",
+                     "source_id": "SYN09", "locator": "Table 1", "basis": "reported", "obs_id": f"TRC{k + 1:04d}",
+                     "entered_by": "demo generator", "entered_on": "2026-12-01"})
+    for k, (i, opening) in enumerate(zip(sc, (0.2, -0.5), strict=True)):
+        f = float(w.freq[i])
+        t = np.arange(0, 6.3 / f, 1 / (150 * f))
+        wt = 2 * np.pi * f * t
+        ea = 3.0 * np.sin(wt) + rng.normal(0, 0.03, len(t))  # %
+        er = 100 * ((1 + ea / 100) ** -0.5 - 1) - opening * np.cos(wt) + rng.normal(0, 0.03, len(t))  # %
+        name = f"trace_SC{k + 1}.csv"
+        files[name] = _trace_csv("time_s,axial_pct,radial_pct", [t, ea, er], [8, 6, 6])
+        index.append(f"SC{k + 1},{name},{w.names[i]},SYN08,Fig. {k + 5},strain_cycle,time_s,s,axial_pct,%,radial_pct,%,"
+                     f"25,intact_fiber,synthetic flight muscle,invented strain cycle ({'counter-clockwise' if opening > 0 else 'clockwise'} loop; opening {abs(opening):g}%)")
+    rows.append({"taxon": w.names[sc[0]], "quantity": "odd_modulus", "value": "40", "unit": "kPa", "source_id": "SYN08",
+                 "locator": "Table 2", "basis": "reported", "obs_id": "TRC0004", "notes": "invented odd modulus",
+                 "entered_by": "demo generator", "entered_on": "2026-12-01"})
+    files["traces.csv"] = "\n".join(index) + "\n"
+    return files, rows
 
 
 def truth_rows(w: World) -> str:

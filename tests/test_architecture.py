@@ -30,6 +30,8 @@ FORBIDDEN = {
     "lines": ("reliance", *PRESENTATION),
     "reliance": PRESENTATION,
     "config": ("reliance", *PRESENTATION),
+    "loops": ("io", "traces", *ABOVE_READ),
+    "traces": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
     "plots": ("report", "export", "commands", "cli"),
     "report": ("export", "commands", "cli"),
     "export": ("report", "commands", "cli"),

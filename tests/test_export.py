@@ -53,7 +53,11 @@ def test_dwc_terms_and_values(demo_ds, tmp_path):
     to_dwc(demo_ds, tmp_path / "dwc")
     mof = pd.read_csv(tmp_path / "dwc" / "measurementorfact.csv", dtype=str, keep_default_na=False)
     assert list(mof.columns) == DWC_TERMS
-    assert len(mof) == len(demo_ds.observations)
+    # one row per observation, then one per computed result of the demo's traces (TRACE_ID:quantity)
+    traced = mof["measurementID"].str.contains(":")
+    assert (~traced).sum() == len(demo_ds.observations)
+    assert list(mof["measurementID"][~traced]) == list(demo_ds.observations["obs_id"])
+    assert traced.sum() > 0 and mof.loc[traced, "measurementMethod"].str.contains("computed from: trace:").all()
     row = mof[mof["measurementID"] == "DEMO-PROXY"].iloc[0]
     assert "proxy taxon" in row["measurementMethod"] and "synthetic" in row["bibliographicCitation"]
     assert float(mof["measurementValue"].iloc[0]) == demo_ds.observations["value"].iloc[0]

@@ -119,7 +119,56 @@ def _ladder(n: int) -> str:
     return s + ";\n"
 
 
+_TRACE_HEADER = "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,y_column,y_unit"
+
+
+def _traces(folder, index_rows: list[str], files: dict[str, bytes | str]):
+    """The valid dataset plus traces.csv and trace files (hostile ones by case)."""
+    write_dataset(folder)
+    (folder / "traces.csv").write_text("\n".join([_TRACE_HEADER, *index_rows]) + "\n", encoding="utf-8")
+    for name, data in files.items():
+        path = folder / name
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_bytes(data if isinstance(data, bytes) else data.encode("utf-8"))
+
+
+def _loop_text(n: int = 400, *, scale: float = 1.0, cycles: float = 6.3, time_scale: float = 1.0) -> str:
+    import math
+
+    return "t,x,y\n" + "\n".join(f"{i * time_scale / n!r},{scale * math.sin(2 * math.pi * cycles * i / n)!r},{scale * math.cos(2 * math.pi * cycles * i / n)!r}" for i in range(n)) + "\n"
+
+
+_WL = "W1,{file},Apis mellifera,s1,Fig. 1,work_loop,t,s,x,mm,y,mN"
+_SC = "S1,{file},Bombus terrestris,s2,Fig. 2,strain_cycle,t,s,x,{u},y,{u}"
+TRACE_CASES = {
+    "trace-valid": lambda f: _traces(f, [_WL.format(file="w.csv"), _SC.format(file="s.csv", u="%")], {"w.csv": _loop_text(), "s.csv": _loop_text()}),
+    "trace-missing-file": lambda f: _traces(f, [_WL.format(file="gone.csv")], {}),
+    "trace-path-escape": lambda f: _traces(f, [_WL.format(file="../../etc/passwd")], {}),
+    "trace-absolute-path": lambda f: _traces(f, [_WL.format(file="/etc/hostname")], {}),
+    "trace-is-a-folder": lambda f: (_traces(f, [_WL.format(file="d")], {}), (f / "d").mkdir()),
+    "trace-empty-file": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": ""}),
+    "trace-binary-file": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": b"\x00\x01\x02PK"}),
+    "trace-time-backwards": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(time_scale=-1.0)}),
+    "trace-text-cell": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text().replace("\n0.5,", "\n0.5x,")}),
+    "trace-one-cycle": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(cycles=1.2)}),
+    "trace-flat": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=0.0)}),
+    "trace-huge-values": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=1e200)}),
+    "trace-tiny-values": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=1e-100)}),
+    "trace-strain-below-minus-one": lambda f: _traces(f, [_SC.format(file="s.csv", u="1")], {"s.csv": _loop_text(scale=1.5)}),
+    "trace-strain-percent-as-one": lambda f: _traces(f, [_SC.format(file="s.csv", u="1")], {"s.csv": _loop_text(scale=0.9)}),
+    "trace-unit-unknown": lambda f: _traces(f, [_WL.format(file="w.csv").replace(",mm,", ",blorp,")], {"w.csv": _loop_text()}),
+    "trace-unit-wrong-kind": lambda f: _traces(f, [_SC.format(file="s.csv", u="mm")], {"s.csv": _loop_text()}),
+    "trace-kind-unknown": lambda f: _traces(f, [_WL.format(file="w.csv").replace("work_loop", "loop")], {"w.csv": _loop_text()}),
+    "trace-column-missing": lambda f: _traces(f, [_WL.format(file="w.csv").replace(",y,", ",force,")], {"w.csv": _loop_text()}),
+    "trace-index-without-file-column": lambda f: _traces(f, ["W1"], {}),
+    "trace-source-unknown": lambda f: _traces(f, [_WL.format(file="w.csv").replace(",s1,", ",s9,")], {"w.csv": _loop_text()}),
+    "trace-duplicate-id": lambda f: _traces(f, [_WL.format(file="w.csv")] * 2, {"w.csv": _loop_text()}),
+    "trace-taxon-only-in-traces": lambda f: _traces(f, [_WL.format(file="w.csv").replace("Apis mellifera", "Vespa crabro")], {"w.csv": _loop_text()}),
+    "trace-nested-folder-and-ms": lambda f: _traces(f, [_WL.format(file="sub/w.csv").replace(",t,s,", ",t,ms,")], {"sub/w.csv": _loop_text(time_scale=1000.0)}),
+}
+
 CASES = {
+    **TRACE_CASES,
     "semicolon-delimiter": lambda f: _bytes(f, "observations.csv", _text([r.replace(",", ";") for r in VALID_ROWS], OBS_HEADER.replace(",", ";")).encode()),
     "tab-in-csv": lambda f: _bytes(f, "observations.csv", _text([r.replace(",", "\t") for r in VALID_ROWS], OBS_HEADER.replace(",", "\t")).encode()),
     "pipe-delimiter": lambda f: _bytes(f, "observations.csv", _text([r.replace(",", "|") for r in VALID_ROWS], OBS_HEADER.replace(",", "|")).encode()),
@@ -220,7 +269,7 @@ CASES = {
     "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
 }
 
-COMMANDS = ["check", "table", "audit", "derive", "fit", "export"]
+COMMANDS = ["check", "table", "audit", "derive", "fit", "export", "cycles"]
 
 
 def _available(cmd: str) -> bool:
@@ -257,7 +306,7 @@ def test_hostile_input_every_command(tmp_path, capsys, case):
         captured = capsys.readouterr()
         _assert_clean(code, captured.out + captured.err, case)
         if code == 2 and cmd == "check":
-            assert any(name in captured.out + captured.err for name in ("observations", "sources", ".nwk", ".toml", ".bib", "taxa.csv"))
+            assert any(name in captured.out + captured.err for name in ("observations", "sources", ".nwk", ".toml", ".bib", "taxa.csv", "traces.csv"))
         assert tree_hash(folder) == before, f"{cmd} changed the input"
 
 
@@ -685,7 +734,7 @@ def test_no_user_facing_text_says_from_memory(tmp_path, capsys):
         assert cmd == "audit" or "rule of thumb" in out.out
 
 
-GATED = ["table", "audit", "derive", "fit", "export"]
+GATED = ["table", "audit", "derive", "fit", "export", "cycles"]
 # fit's answers when too few taxa carry both requested quantities, or none carries one: about
 # the request on this dataset, not a defect of it (the plain valid dataset gets the first too)
 _NOTHING_TO_FIT = ("needs at least", "is not in the table")

@@ -97,10 +97,15 @@ TYPED_UNITS = {
     "fraction": [("%", "percent"), ("1", "dimensionless"), ("fraction", "dimensionless")],
 }
 TYPED_UNITS["frequency"] = TYPED_UNITS["rate"]
+TYPED_UNITS["ratio"] = TYPED_UNITS["fraction"]
+TYPED_UNITS["energy"] = [("J", "joule"), ("mJ", "millijoule"), ("uJ", "microjoule"), ("µJ", "microjoule"), ("N*m", "newton * meter")]
+TYPED_UNITS["power"] = [("W", "watt"), ("mW", "milliwatt"), ("µW", "microwatt"), ("J/s", "joule / second")]
+TYPED_UNITS["power_per_mass"] = [("W/kg", "watt / kilogram"), ("mW/g", "milliwatt / gram"), ("W/g", "watt / gram")]
 # canonical units of the catalogue, spelled out for the independent registry
 CANONICAL_SPELLED = {"kg": "kilogram", "um": "micrometer", "mm": "millimeter", "nm": "nanometer", "kPa": "kilopascal",
                      "nm**2": "nanometer ** 2", "mPa*s": "millipascal * second", "1/s": "1 / second", "s": "second",
-                     "Hz": "hertz", "dimensionless": "dimensionless"}
+                     "Hz": "hertz", "dimensionless": "dimensionless", "1": "dimensionless", "J/m**3": "joule / meter ** 3",
+                     "J": "joule", "W": "watt", "W/kg": "watt / kilogram"}
 CATALOG = load_catalog()
 QUANTITY_KEYS = sorted(CATALOG)
 REF = pint.UnitRegistry()  # a registry of its own: nothing comparo defines

@@ -1,0 +1,324 @@
+"""Cycle reduction of oscillatory traces: strain loops and work loops (arrays in, numbers out).
+
+Pure numerical functions over numpy arrays in SI units (seconds, dimensionless
+strain, metres, newtons); reading, validation and provenance live in
+:mod:`comparo.traces`. Formulas, citations and limits: docs/methods/cycles.md.
+
+Steps for one trace (:func:`reduce_trace`):
+
+1. **Frequency** (:func:`cycle_frequency`): a coarse peak of the Hann-windowed
+   periodogram of the detrended signals, refined by maximising the variance a
+   sinusoid at frequency f explains in a least-squares fit that also holds an
+   offset and a quadratic drift (so offset and drift do not bias f).
+2. **Drift removal**: the linear and quadratic drift terms of that fit are
+   subtracted (the mean level is kept).
+3. **Cycles** (:func:`cycle_bounds`): every cycle starts at the same phase, the
+   maximum of the fitted fundamental of x; only whole cycles inside the record
+   are kept (partial cycles at either end are dropped).
+4. **Per cycle**: the loop closed by values interpolated at both bounds; its
+   signed area by the shoelace formula (positive counter-clockwise, x on the
+   horizontal axis).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+MIN_CYCLES = 2  # whole cycles needed for a mean and an SD over cycles
+MIN_SAMPLES_PER_CYCLE = 8  # common practice: fewer samples cannot trace a loop's shape
+MIN_EXPLAINED = 0.25  # rule of thumb: a cycle needs a fundamental explaining a quarter of the variance
+
+
+class CycleError(ValueError):
+    """A trace that cannot be reduced (too short, too few cycles, no oscillation)."""
+
+
+# --------------------------------------------------------------------------- geometry
+
+def shoelace_area(x: np.ndarray, y: np.ndarray) -> float:
+    """Signed area enclosed by the closed polygon (x_i, y_i), in units of x times y.
+
+    Positive when the polygon runs counter-clockwise with x on the horizontal
+    axis and y on the vertical (Gauss's area formula); the last point joins the first.
+    """
+    x = np.asarray(x, float)
+    y = np.asarray(y, float)
+    return 0.5 * float(np.dot(x, np.roll(y, -1)) - np.dot(np.roll(x, -1), y))
+
+
+def volume_strain(axial: np.ndarray, radial: np.ndarray) -> np.ndarray:
+    """Volumetric strain (dimensionless) of a cylinder with axial strain ε_a and radial
+    (transverse, both transverse directions equal) strain ε_r: (1+ε_a)(1+ε_r)² − 1."""
+    return (1.0 + np.asarray(axial, float)) * (1.0 + np.asarray(radial, float)) ** 2 - 1.0
+
+
+def isochoric_radial(axial: np.ndarray) -> np.ndarray:
+    """Radial strain (dimensionless) that keeps the volume constant at axial strain ε_a:
+    (1+ε_a)^(−1/2) − 1."""
+    return (1.0 + np.asarray(axial, float)) ** -0.5 - 1.0
+
+
+# --------------------------------------------------------------------------- frequency
+
+def _design(t: np.ndarray, f: float) -> np.ndarray:
+    """Columns 1, t, t², cos(2πft), sin(2πft) (t centred and scaled to [-1, 1])."""
+    w = 2.0 * math.pi * f * t
+    span = max(float(np.max(np.abs(t))), 1e-300)
+    s = t / span
+    return np.column_stack([np.ones_like(t), s, s * s, np.cos(w), np.sin(w)])
+
+
+def _explained(t: np.ndarray, signals: list[np.ndarray], f: float) -> float:
+    """Share of each signal's drift-free variance a sinusoid at *f* explains, summed."""
+    a = _design(t, f)
+    total = 0.0
+    for y in signals:
+        coef, *_ = np.linalg.lstsq(a, y, rcond=None)
+        drift = a[:, :3] @ coef[:3]
+        wave = a[:, 3:] @ coef[3:]
+        base = float(np.sum((y - drift) ** 2))
+        total += float(np.sum(wave**2)) / base if base > 0 else 0.0
+    return total
+
+
+def _detrended(t: np.ndarray, y: np.ndarray) -> np.ndarray:
+    a = np.column_stack([np.ones_like(t), t, t * t])
+    coef, *_ = np.linalg.lstsq(a, y, rcond=None)
+    return y - a @ coef
+
+
+def cycle_frequency(t: np.ndarray, signals: list[np.ndarray]) -> float:
+    """Fundamental frequency in Hz of one or more signals sampled at times *t* (s).
+
+    Coarse: peak of the summed Hann-windowed periodograms of the signals after a
+    quadratic detrend (each scaled to unit variance), on a uniform resampling
+    zero-padded eightfold, searched above 1.5 cycles per record. Fine: bounded
+    maximisation of the variance explained by a sinusoid at f fitted together with
+    an offset and a quadratic drift, within one coarse bin of the peak.
+
+    Raises
+    ------
+    CycleError
+        When the signals do not oscillate (no variance left after detrending).
+    """
+    from scipy.optimize import minimize_scalar
+
+    t = np.asarray(t, float)
+    tc = t - 0.5 * (t[0] + t[-1])
+    duration = float(t[-1] - t[0])
+    n = len(t)
+    grid = np.linspace(tc[0], tc[-1], n)
+    dt = duration / (n - 1)
+    spectrum = None
+    scaled = []
+    for y in signals:
+        y = np.asarray(y, float)
+        d = _detrended(tc, y)
+        sd = float(np.std(d))
+        if not sd > 1e-9 * float(np.max(np.abs(y))) or not math.isfinite(sd):  # rounding residue only
+            continue
+        scaled.append(d / sd)
+        u = np.interp(grid, tc, d / sd) * np.hanning(n)
+        p = np.abs(np.fft.rfft(u, 8 * n)) ** 2
+        spectrum = p if spectrum is None else spectrum + p
+    if spectrum is None:
+        raise CycleError("the signals do not oscillate (constant after removing offset and drift)")
+    freqs = np.fft.rfftfreq(8 * n, dt)
+    ok = freqs >= 1.5 / duration
+    if not ok.any():
+        raise CycleError("the record is too short to hold 1.5 cycles of any frequency it resolves")
+    i = int(np.flatnonzero(ok)[np.argmax(spectrum[ok])])
+    step = freqs[1] - freqs[0]
+    lo, hi = max(freqs[i] - 1.5 * step, 0.5 * freqs[i]), freqs[i] + 1.5 * step
+    best = minimize_scalar(lambda f: -_explained(tc, scaled, f), bounds=(lo, hi), method="bounded",
+                           options={"xatol": 1e-10 * freqs[i]})
+    share = -best.fun / len(scaled)
+    if share < MIN_EXPLAINED:
+        raise CycleError(f"no clear oscillation: a sinusoid at the best frequency ({best.x:.6g} Hz) explains "
+                         f"{100 * share:.0f}% of the signals' variance (at least {100 * MIN_EXPLAINED:.0f}% is needed)")
+    return float(best.x)
+
+
+# --------------------------------------------------------------------------- cycles
+
+@dataclass(frozen=True)
+class Stat:
+    """Per-cycle values of one quantity, their mean, SD (ddof 1) and count; unit as stated."""
+
+    values: tuple[float, ...]
+    mean: float
+    sd: float
+    n: int
+
+    @classmethod
+    def of(cls, values: Any) -> Stat:
+        v = tuple(float(x) for x in values)
+        arr = np.asarray(v, float)
+        return cls(v, float(arr.mean()) if len(v) else math.nan, float(arr.std(ddof=1)) if len(v) > 1 else math.nan, len(v))
+
+    def scaled(self, factor: float) -> Stat:
+        """The same values times *factor* (a unit change or a constant)."""
+        return Stat.of([v * factor for v in self.values])
+
+
+@dataclass(frozen=True)
+class Cycles:
+    """A trace split into whole cycles at one phase.
+
+    ``frequency`` in Hz; ``bounds`` the start and end time (s) of each whole cycle;
+    ``x`` and ``y`` the signals after drift removal (mean level kept), same units as given;
+    ``frequency_cycles`` per-cycle frequencies in Hz from the phase of each cycle.
+    """
+
+    frequency: float
+    bounds: tuple[tuple[float, float], ...]
+    t: np.ndarray = field(repr=False)
+    x: np.ndarray = field(repr=False)
+    y: np.ndarray = field(repr=False)
+    frequency_cycles: tuple[float, ...] = ()
+
+    def loop(self, k: int) -> tuple[np.ndarray, np.ndarray]:
+        """The closed loop of cycle *k*: samples inside it plus values interpolated at both bounds."""
+        a, b = self.bounds[k]
+        inside = (self.t > a) & (self.t < b)
+        ts = np.concatenate([[a], self.t[inside], [b]])
+        return np.interp(ts, self.t, self.x), np.interp(ts, self.t, self.y)
+
+    def samples(self, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Times and signals of cycle *k* (the loop without its closing point)."""
+        a, b = self.bounds[k]
+        inside = (self.t >= a) & (self.t < b)
+        return self.t[inside], self.x[inside], self.y[inside]
+
+
+def _phase(t: np.ndarray, y: np.ndarray, f: float) -> float:
+    """Phase θ (rad) of the fundamental of y at f: y ≈ c + R cos(2πft − θ)."""
+    w = 2.0 * math.pi * f * t
+    a = np.column_stack([np.ones_like(t), np.cos(w), np.sin(w)])
+    coef, *_ = np.linalg.lstsq(a, y, rcond=None)
+    return math.atan2(coef[2], coef[1])
+
+
+def cycle_bounds(t: np.ndarray, x: np.ndarray, y: np.ndarray, *, detrend: bool = True) -> Cycles:
+    """Frequency, drift removal and whole cycles of one trace (see the module doc).
+
+    Parameters
+    ----------
+    t : times in s, strictly increasing.
+    x, y : the two signals (any units; x sets the phase at which cycles start).
+    detrend : subtract the fitted linear and quadratic drift of each signal.
+
+    Raises
+    ------
+    CycleError
+        Fewer than :data:`MIN_CYCLES` whole cycles, fewer than
+        :data:`MIN_SAMPLES_PER_CYCLE` samples per cycle, or no oscillation.
+    """
+    t = np.asarray(t, float)
+    x = np.asarray(x, float)
+    y = np.asarray(y, float)
+    if len(t) < MIN_CYCLES * MIN_SAMPLES_PER_CYCLE:
+        raise CycleError(f"{len(t)} samples: at least {MIN_CYCLES * MIN_SAMPLES_PER_CYCLE} are needed "
+                         f"({MIN_CYCLES} cycles of {MIN_SAMPLES_PER_CYCLE} samples)")
+    f = cycle_frequency(t, [x, y])
+    t0 = 0.5 * (t[0] + t[-1])
+    tc = t - t0
+    if detrend:
+        a = _design(tc, f)
+        fixed = []
+        for s in (x, y):
+            coef, *_ = np.linalg.lstsq(a, s, rcond=None)
+            drift = a[:, 1:3] @ coef[1:3]
+            fixed.append(s - drift + float(np.mean(drift)))
+        x, y = fixed
+    theta = _phase(tc, x, f)  # x fundamental peaks where 2πf tc = θ + 2πk
+    period = 1.0 / f
+    k0 = math.ceil((tc[0] * f) - theta / (2 * math.pi) - 1e-9)
+    starts = []
+    k = k0
+    while True:
+        s = (theta / (2 * math.pi) + k) * period
+        if s + period > tc[-1] + 1e-12 * period:
+            break
+        if s >= tc[0] - 1e-12 * period:
+            starts.append(s)
+        k += 1
+    if len(starts) < MIN_CYCLES:
+        raise CycleError(f"{len(starts)} whole cycle(s) at {f:.6g} Hz in a record of {t[-1] - t[0]:.6g} s; "
+                         f"at least {MIN_CYCLES} are needed")
+    per = len(t) / ((t[-1] - t[0]) * f)
+    if per < MIN_SAMPLES_PER_CYCLE:
+        raise CycleError(f"{per:.1f} samples per cycle at {f:.6g} Hz; at least {MIN_SAMPLES_PER_CYCLE} are needed")
+    bounds = tuple((s + t0, s + period + t0) for s in starts)
+    phases = []
+    for a_, b_ in bounds:
+        inside = (t >= a_) & (t < b_)
+        phases.append(_phase(tc[inside], x[inside], f))
+    dphi = np.angle(np.exp(1j * np.diff(phases)))  # wrapped to (-π, π]
+    fk = tuple(float(f / (1.0 + d / (2 * math.pi))) for d in dphi)
+    return Cycles(f, bounds, t, x, y, fk)
+
+
+# --------------------------------------------------------------------------- reductions
+
+@dataclass(frozen=True)
+class StrainLoop:
+    """Reduction of a strain cycle (axial x, radial y; dimensionless strains).
+
+    ``area``: signed loop area in strain space (dimensionless; positive counter-
+    clockwise, axial horizontal). ``volume_strain_amplitude``: amplitude of the
+    fundamental of ε_v within each cycle (dimensionless). ``isochoric_departure``:
+    root-mean-square over the cycle of ε_r minus the isochoric ε_r at the same ε_a
+    (dimensionless).
+    """
+
+    cycles: Cycles
+    area: Stat
+    volume_strain_amplitude: Stat
+    isochoric_departure: Stat
+
+
+@dataclass(frozen=True)
+class WorkLoop:
+    """Reduction of a work loop (length x in m, force y in N).
+
+    ``net_work``: J per cycle, positive when the muscle delivers work (force higher
+    during shortening: the loop runs counter-clockwise, length horizontal).
+    ``power``: net work times the cycle frequency, W.
+    """
+
+    cycles: Cycles
+    net_work: Stat
+    power: Stat
+
+
+def _fundamental_amplitude(t: np.ndarray, v: np.ndarray, f: float) -> float:
+    w = 2.0 * math.pi * f * t
+    a = np.column_stack([np.ones_like(t), np.cos(w), np.sin(w)])
+    coef, *_ = np.linalg.lstsq(a, v, rcond=None)
+    return float(math.hypot(coef[1], coef[2]))
+
+
+def strain_loop(t: np.ndarray, axial: np.ndarray, radial: np.ndarray, *, detrend: bool = True) -> StrainLoop:
+    """Reduce a strain cycle: *t* in s, *axial* and *radial* strains dimensionless (not %)."""
+    c = cycle_bounds(t, axial, radial, detrend=detrend)
+    areas, amps, deps = [], [], []
+    for k in range(len(c.bounds)):
+        lx, ly = c.loop(k)
+        areas.append(shoelace_area(lx, ly))
+        ts, xs, ys = c.samples(k)
+        amps.append(_fundamental_amplitude(ts, volume_strain(xs, ys), c.frequency))
+        deps.append(float(np.sqrt(np.mean((ys - isochoric_radial(xs)) ** 2))))
+    return StrainLoop(c, Stat.of(areas), Stat.of(amps), Stat.of(deps))
+
+
+def work_loop(t: np.ndarray, length: np.ndarray, force: np.ndarray, *, detrend: bool = True) -> WorkLoop:
+    """Reduce a work loop: *t* in s, *length* in m, *force* in N (net work in J, power in W)."""
+    c = cycle_bounds(t, length, force, detrend=detrend)
+    work = [shoelace_area(*c.loop(k)) for k in range(len(c.bounds))]
+    w = Stat.of(work)
+    return WorkLoop(c, w, w.scaled(c.frequency))
