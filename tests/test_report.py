@@ -384,3 +384,22 @@ def test_console_counts_each_figure_once(runs):
     res = runs[3]
     assert res.n_figures == len(list((runs[1] / "figures").glob("*.png")))
     assert f"({res.n_figures} figures, each as PNG and SVG;" in res.summary()
+
+
+def test_cycles_section_draws_every_trace_and_tabulates_them(runs):
+    """Every row of the demo's traces.csv has its loop figure, and the section's per-taxon table
+    (tables/cycles_by_taxon.csv) counts the same traces as traces.csv lists per taxon."""
+    import pandas as pd
+
+    data, out1 = runs[0], runs[1]
+    listed = pd.read_csv(Path(data) / "traces.csv")
+    for tid in listed["trace_id"]:
+        assert (out1 / "figures" / f"cycle_{tid}.png").is_file(), tid
+    html = (out1 / "report.html").read_text(encoding="utf-8")
+    assert 'id="cycles"' in html and 'href="#cycles"' in html
+    assert html.count("whole cycles; source") == len(listed)
+    by_taxon = pd.read_csv(out1 / "tables" / "cycles_by_taxon.csv")
+    assert by_taxon["traces"].sum() == len(listed)
+    assert dict(by_taxon.groupby("taxon")["traces"].sum()) == dict(listed.groupby("taxon").size())
+    per_trace = pd.read_csv(out1 / "tables" / "cycles.csv")
+    assert set(per_trace["trace_id"]) == set(listed["trace_id"])

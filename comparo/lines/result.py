@@ -259,6 +259,9 @@ class FitResult:
         if self.outliers:
             lines.append("  flags:")
             lines += [f"    {o['label']}: {o['reason']} ({_f(o['statistic'])})" for o in self.outliers]
+        elif self.method == "pgls":  # the report flags PGLS fits on whitened residuals (comparo.flags.fit_flags)
+            lines.append("  flags: not computed by this command for pgls (comparo report flags PGLS fits on "
+                         "phylogenetically whitened residuals)")
         else:
             lines.append("  flags: none")
         if self.excluded:

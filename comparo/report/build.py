@@ -151,6 +151,7 @@ class _Run:
     sens: dict[str, dict] = field(default_factory=dict)
     sens_json: list[dict] = field(default_factory=list)
     frames: dict[str, Any] = field(default_factory=dict)
+    cycles: Any = None  # comparo.traces.TraceSet when the dataset has traces.csv
 
 
 def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps, draws: int) -> ReportResult:
@@ -172,8 +173,9 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     _fit_all(run)
     steps.step("sensitivity: sources, bases, taxa, measurement error")
     _sensitivity_all(run)
-    steps.step("drawing the regime and coverage")
+    steps.step("drawing the regime, coverage and cycles")
     _overview_figures(run)
+    _cycles(run)
     steps.step("writing")
     return _write(run, out)
 
@@ -332,6 +334,26 @@ def _overview_figures(run: _Run) -> None:
                              "poro-kinetic ratio")
     run.figures["coverage"] = plots.render(plots.coverage_map(run.aud.to_dict()["coverage"]))
     run.figures["sources"] = plots.render(plots.source_chart(run.aud.sources_frame()))
+
+
+def _cycles(run: _Run) -> None:
+    """The dataset's traces reduced (comparo.traces.cycles) and each one's loop drawn."""
+    if getattr(run.ds, "traces", None) is None:
+        return
+    from comparo import plots
+    from comparo.csvsafe import to_csv
+    from comparo.errors import ComparoError
+    from comparo.traces import cycles
+
+    try:
+        run.cycles = cycles(run.ds, temperature=run.temperature)
+    except ComparoError as exc:  # check is the gate; a trace problem here is reported, not raised
+        run.notes.append(f"cycles unavailable: {exc}")
+        return
+    for t in run.cycles.results:
+        run.figures[f"cycle_{t.trace_id}"] = plots.render(plots.loop_plot(t))
+    run.tables["cycles"] = to_csv(run.cycles.to_frame())
+    run.tables["cycles_by_taxon"] = to_csv(run.cycles.by_taxon())
 
 
 def _write(run: _Run, out: Path) -> ReportResult:

@@ -64,6 +64,19 @@ def _regime_view(run) -> dict:
     return {"fig": render.fig(run.figures, "regime", "regime plot"), "frame": shown}
 
 
+def _cycles_view(run) -> dict | None:
+    """Each trace's loop figure and the per-taxon table of the cycles section (None: no traces)."""
+    if run.cycles is None:
+        return None
+    loops = []
+    for t in run.cycles.results:
+        what = "strain cycle" if t.kind == "strain_cycle" else "work loop"
+        loops.append({"fig": render.fig(run.figures, f"cycle_{t.trace_id}", f"{what} {t.trace_id} of {t.taxon}"),
+                      "caption": f"{t.trace_id}: {what} of {t.taxon} ({t.cycles} whole cycles; source {t.source_id}, "
+                                 f"{t.locator}; file {t.file})"})
+    return {"loops": loops, "frame": run.cycles.by_taxon()}
+
+
 def report_html(run) -> str:
     """The whole report.html of a run."""
     from comparo import __version__
@@ -84,7 +97,7 @@ def report_html(run) -> str:
         n_warnings=run.checked.n_warnings, n_notes=run.checked.n_notes, audit_summary=run.aud.summary(),
         notes=render.grouped_notes(run.notes), analyses=[_analysis_view(run, s) for s in run.sections],
         flags_frame=run.frames["flags"], sensitivity=[_sensitivity_view(run, s) for s in run.sections],
-        draws=int(run.draws), regime=_regime_view(run),
+        draws=int(run.draws), regime=_regime_view(run), cycles=_cycles_view(run),
         coverage=render.fig(run.figures, "coverage", "coverage map"),
         sources_fig=render.fig(run.figures, "sources", "source contributions"),
         problems=render.problems_view(run.checked.problems),
