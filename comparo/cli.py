@@ -23,6 +23,19 @@ class _Parser(argparse.ArgumentParser):
     """argparse with usage errors on exit code 2 and one clear line (argparse's default)."""
 
 
+class _DefaultsFormatter(argparse.HelpFormatter):
+    """Help that shows each option's default, unless its text already states it."""
+
+    def _get_help_string(self, action: argparse.Action) -> str:
+        text = action.help or ""
+        default = action.default
+        if ("default" in text or default is None or default is False or default == argparse.SUPPRESS
+                or not action.option_strings
+                or isinstance(action, argparse._HelpAction | argparse._VersionAction)):
+            return text
+        return f"{text} (default: %(default)s)" if text else "default: %(default)s"
+
+
 def _dataset_arg(p: argparse.ArgumentParser) -> None:
     p.add_argument("dataset", metavar="DATASET", help="dataset folder (observations + sources, optional taxa, tree, comparo.toml)")
 
@@ -61,7 +74,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("audit", help="provenance audit: coverage, basis mix, conflicts, row accounting")
     _dataset_arg(p)
-    p.add_argument("--format", choices=["text", "json", "csv"], default="text")
+    p.add_argument("--format", choices=["text", "json", "csv"], default="text", help="output format")
     _temperature_arg(p)
     p.add_argument("--strict", action="store_true", help="exit 1 when conflicts or unit slips are found")
     _output_dir_arg(p, "also write audit.json, coverage.csv, sources.csv, excluded.csv and lineage.csv to DIR", required=False)
@@ -83,7 +96,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("data", metavar="DATA", help="dataset folder (quantities by key) or a plain CSV (columns by name)")
     p.add_argument("--x", required=True, help="x quantity key or column")
     p.add_argument("--y", required=True, help="y quantity key or column")
-    p.add_argument("--method", choices=["ols", "sma", "ma", "robust", "lts", "pgls"], default="sma")
+    p.add_argument("--method", choices=["ols", "sma", "ma", "robust", "lts", "pgls"], default="sma",
+                   help="line: ols, sma or ma (model II), robust (Huber), lts, pgls (phylogenetic)")
     p.add_argument("--tree", metavar="FILE", default=None, help="Newick tree for pgls (default: the dataset's tree.nwk)")
     p.add_argument("--lambda", dest="lambda_", default=None, metavar="ml|VALUE", help="Pagel's lambda for pgls: 'ml' (default) or a value in [0, 1]")
     p.add_argument("--reml", action="store_true", help="pgls: REML for the lambda search and the reported likelihood")
@@ -104,7 +118,7 @@ def build_parser() -> argparse.ArgumentParser:
                         "bonferroni, leverage, cooks_d, robust_weight, lts_residual, or outlier (default), cook, all")
     p.add_argument("--sensitivity", action="store_true", help="source-level sensitivity of the fit")
     p.add_argument("--mc", type=int, default=1000, metavar="N", help="--sensitivity: Monte Carlo draws for measurement error (default 1000; 0: skip)")
-    p.add_argument("--format", choices=["text", "json", "csv"], default="text")
+    p.add_argument("--format", choices=["text", "json", "csv"], default="text", help="output format")
     _temperature_arg(p)
 
     p = sub.add_parser("report", help="full analysis: HTML report, figures and tables")
@@ -126,8 +140,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("units", help="list the quantity catalogue with canonical units")
     p.add_argument("dataset", metavar="DATASET", nargs="?", default=None, help="include a dataset's own quantities")
-    p.add_argument("--format", choices=["text", "csv", "json"], default="text")
+    p.add_argument("--format", choices=["text", "csv", "json"], default="text", help="output format")
 
+    for command in sub.choices.values():
+        command.formatter_class = _DefaultsFormatter
     return parser
 
 

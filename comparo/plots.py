@@ -532,8 +532,8 @@ def forest_plot(rows: Sequence[Mapping[str, Any]], *, slope: float, slope_ci: Se
     drawn = {False: False, True: False}
     for i, r in enumerate(rows):
         s = r.get("slope")
-        note = "" if s is not None and np.isfinite(s) else ", not refitted"
-        names.append(f"without {r['source_id']} (n = {r.get('n', 0)}{note})")
+        note = "" if s is not None and np.isfinite(s) else "not refitted"
+        names.append(f"without {r['source_id']} (" + (f"{note}; {r.get('n', 0)} taxa left)" if note else f"n = {r.get('n', 0)})"))
         if note:
             continue
         flip = bool(r.get("flips"))

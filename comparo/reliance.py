@@ -51,9 +51,11 @@ class SensitivityResult:
     test : dict or None
         ``{"value", "p"}`` of the full fit's slope test.
     leave_one_source_out : list of dict or None
-        ``{"source_id", "n", "slope", "slope_ci", "p", "shift_se", "flips"}``,
+        ``{"source_id", "n", "slope", "slope_ci", "p", "shift_se", "flips", "note"}``,
         most influential (largest ``|shift_se|``) first; ``shift_se`` = (slope
-        without the source - slope) / slope_se. None for a plain table.
+        without the source - slope) / slope_se. ``n`` is the taxa refitted, or when
+        the line could not be refitted (``slope`` None) the taxa left with both
+        values, ``note`` saying why. None for a plain table.
     by_basis : list of dict or None
         ``{"bases", "n", "slope", "slope_ci", "p", "shift_se", "ci_change"}``,
         one step per cumulative basis set (reported, + computed, ...);
@@ -64,8 +66,9 @@ class SensitivityResult:
         when not computed, e.g. for pgls).
     measurement_error : dict
         ``{"draws", "seed", "slope_mean", "spread", "sampling_se", "total_se",
-        "share", "fixed_x", "fixed_y", "note"}``; ``"draws_asked"`` as well when
-        the method's draws were capped (lts, pgls: :data:`MC_CAP`).
+        "share", "fixed_x", "fixed_y", "note"}`` (``fixed_x``/``fixed_y``: taxa whose x/y
+        has no uncertainty and is held fixed; ``"points"``: taxa drawn, once matched);
+        ``"draws_asked"`` as well when the method's draws were capped (lts, pgls: :data:`MC_CAP`).
     verdict : str
     """
 
@@ -127,6 +130,9 @@ class SensitivityResult:
         if self.leave_one_source_out is not None:
             lines.append(f"  leave one source out ({len(self.leave_one_source_out)} sources), most influential first:")
             for r in self.leave_one_source_out[:top]:
+                if r["slope"] is None:
+                    lines.append(f"    without {r['source_id']:<12} {r['n']} taxa left  {r.get('note') or 'not refitted'}")
+                    continue
                 lo, hi = r["slope_ci"]
                 flip = "  flips the test" if r["flips"] else ""
                 lines.append(f"    without {r['source_id']:<12} n {r['n']:>4}  slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}  "
@@ -340,6 +346,7 @@ def measurement_error_mc(table, result: FitResult, *, log: str, mc: int, seed: i
         out["note"] = "; ".join(notes + ["taxon labels do not match the table one to one; Monte Carlo not computed"])
         return out
     rows = t.iloc[idx]
+    out["points"] = len(labels)
     vals, us = {}, {}
     for q in (x, y):
         vals[q] = np.asarray(rows[q], dtype=float)
@@ -425,7 +432,7 @@ def taxon_jackknife(result: FitResult, fit_kwargs: dict, table=None) -> dict:
     return {"slope_jackknife": se_j, "slope_analytic": se_a, "ratio": se_j / se_a if se_a > 0 else None, "n": int(n)}
 
 
-def _refit(ds, h, rows, changed, base_table, x, y, method, kwargs):
+def _refit(ds, h, rows, changed, base_table, x, y, method, kwargs) -> tuple[FitResult | None, int, str | None]:
     """Refit after a change of the rows flagged ``changed``.
 
     Aggregation is per taxon, so only the taxa with a changed row are rebuilt
@@ -443,22 +450,34 @@ def _refit(ds, h, rows, changed, base_table, x, y, method, kwargs):
     sub = sub[[c for c in keep.columns if c in sub.columns]]
     table = pd.concat([keep, sub], ignore_index=True).sort_values("taxon", kind="stable")
     if x not in table.columns or y not in table.columns:
-        return None
+        return None, 0, f"no {x if x not in table.columns else y} values remain"
+    n_left = _points(table, x, y)
     try:
-        return fit(table, x, y, method, **kwargs)
-    except UsageError:
-        return None
+        return fit(table, x, y, method, **kwargs), n_left, None
+    except UsageError as exc:
+        return None, n_left, str(exc)
+
+
+def _points(table, x: str, y: str) -> int:
+    """Taxa with a positive finite x and y (the points a log-log refit could use)."""
+    import pandas as pd
+
+    xs = pd.to_numeric(table[x], errors="coerce").to_numpy(dtype=float)
+    ys = pd.to_numeric(table[y], errors="coerce").to_numpy(dtype=float)
+    return int(np.sum(np.isfinite(xs) & np.isfinite(ys) & (xs > 0) & (ys > 0)))
 
 
 def _p(r: FitResult | None) -> float | None:
     return r.against["p"] if r is not None and r.against else None
 
 
-def _record(r: FitResult | None, base_slope: float, se: float) -> dict:
+def _record(r: FitResult | None, base_slope: float, se: float, n_left: int = 0, why: str | None = None) -> dict:
+    """One refit's numbers; *n_left* points remained when it could not be refitted (*why*)."""
     if r is None:
-        return {"n": 0, "slope": None, "slope_ci": [None, None], "p": None, "shift_se": None}
+        return {"n": int(n_left), "slope": None, "slope_ci": [None, None], "p": None, "shift_se": None,
+                "note": f"not refitted: {why}" if why else "not refitted"}
     shift = (r.slope - base_slope) / se if se > 0 else float("nan")
-    return {"n": int(r.n), "slope": r.slope, "slope_ci": list(r.slope_ci), "p": _p(r), "shift_se": shift}
+    return {"n": int(r.n), "slope": r.slope, "slope_ci": list(r.slope_ci), "p": _p(r), "shift_se": shift, "note": None}
 
 
 def _flips(p_full: float | None, p: float | None, alpha: float) -> bool:
@@ -571,8 +590,8 @@ def _leave_one_source_out(rows, used, refit, base: FitResult, se: float, p_full,
             r = rows.copy()
             changed = (r["source_id"].astype(str) == sid).to_numpy()
             r.loc[changed, "status"] = "excluded"
-            res = refit(rows=r, changed=changed)
-            rec = {"source_id": sid, **_record(res, base.slope, se)}
+            res, n_left, why = refit(rows=r, changed=changed)
+            rec = {"source_id": sid, **_record(res, base.slope, se, n_left, why)}
             rec["flips"] = _flips(p_full, rec["p"], alpha)
             loso.append(rec)
             if bar is not None:
@@ -593,9 +612,10 @@ def _basis_steps(rows, used, refit, base: FitResult, alpha: float) -> list[dict]
         r = rows.copy()
         changed = (~r["basis_effective"].isin(bases)).to_numpy()
         r.loc[changed, "status"] = "excluded"
-        res = base if set(present) <= set(bases) else refit(rows=r, changed=changed)
+        res, n_left, why = (base, base.n, None) if set(present) <= set(bases) else refit(rows=r, changed=changed)
         ref_se = analytic_se(prev) if prev is not None else float("nan")
-        rec = {"bases": list(bases), **_record(res, prev.slope if prev is not None else float("nan"), ref_se)}
+        rec = {"bases": list(bases), **_record(res, prev.slope if prev is not None else float("nan"), ref_se,
+                                               n_left, why)}
         if prev is None:
             rec["shift_se"] = None
         width = (res.slope_ci[1] - res.slope_ci[0]) if res is not None else float("nan")
@@ -618,17 +638,19 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool = 
     if loso is not None:
         hit = [r for r in loso if r["flips"] or (r["shift_se"] is not None and math.isfinite(r["shift_se"])
                                                  and abs(r["shift_se"]) >= SHIFT_THRESHOLD)]
+        mark = f"{SHIFT_THRESHOLD:g} SE or more" + (" or flips the test" if against is not None else "")
         if not loso:
             parts.append("no sources to leave out")
         elif not hit:
-            parts.append("slope robust to every single source")
+            parts.append(f"no single source moves the slope by {mark}")
         else:
             words = []
             for r in hit[:3]:
-                w = f"{r['source_id']} (shift {r['shift_se']:+.1f} SE" if r["shift_se"] is not None else f"{r['source_id']} ("
-                words.append(w + (", flips the test" if r["flips"] else "") + ")")
+                bits = [f"{r['shift_se']:+.1f} SE"] if r["shift_se"] is not None and math.isfinite(r["shift_se"]) else []
+                bits += ["flips the test"] if r["flips"] else []
+                words.append(f"{r['source_id']} ({', '.join(bits)})")
             more = f" and {len(hit) - 3} more" if len(hit) > 3 else ""
-            parts.append(f"slope depends on single sources: {', '.join(words)}{more}")
+            parts.append(f"leaving out one source moves the slope by {mark}: {', '.join(words)}{more}")
     elif unavailable:
         parts.append("source-level checks not available for a plain table")
     for r in (by_basis or [])[1:]:
@@ -648,13 +670,26 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool = 
         parts.append(f"jackknife SE {jack['ratio']:.1f}x the analytic SE (a few taxa carry the fit)")
     if me.get("share") is not None:
         share = me["share"]
+        fixed = _not_propagated(me)
+        where = " where known" if fixed else ""
         if share >= 0.5:
-            parts.append(f"measurement error dominates the slope uncertainty ({100 * share:.0f}% of the variance)")
+            parts.append(f"measurement error{where} dominates the slope uncertainty ({100 * share:.0f}% of the variance)")
         elif share >= 0.1:
-            parts.append(f"measurement error adds {100 * (math.sqrt(1 / (1 - share)) - 1):.0f}% to the slope SE")
+            parts.append(f"measurement error{where} adds {100 * (math.sqrt(1 / (1 - share)) - 1):.0f}% to the slope SE")
         else:
-            parts.append("measurement error negligible")
+            parts.append(f"measurement error{where} under 10% of the slope variance"
+                         if fixed else "measurement error negligible (under 10% of the slope variance)")
+        if fixed:
+            parts.append(fixed)
     return "; ".join(parts) if parts else "nothing to report"
+
+
+def _not_propagated(me: dict) -> str:
+    """'not propagated: no x uncertainty for 12 of 57 taxa, ...' or '' when every value had one."""
+    n = me.get("points")
+    of = f" of {n}" if n else ""
+    bits = [f"no {axis} uncertainty for {me[f'fixed_{axis}']}{of} taxa" for axis in ("x", "y") if me.get(f"fixed_{axis}")]
+    return f"not propagated: {', '.join(bits)} (held fixed in the draws)" if bits else ""
 
 
 def with_sensitivity(fit_result: FitResult, sens: SensitivityResult,

@@ -199,3 +199,38 @@ def test_group_comparisons_read_as_questions(csv, capsys):
     for question in ("one exponent for all groups?", "same height at the common exponent?",
                      "groups offset along the common line?"):
         assert question in out
+
+
+def test_plain_csv_without_taxon_column_names_points_by_first_column(tmp_path):
+    from support import run_cli
+
+    named = tmp_path / "named.csv"
+    named.write_text("species,mass,freq\nA a,1,200\nB b,2,180\nC c,4,150\nD d,8,140\nE e,16,1200\n")
+    r = run_cli("fit", str(named), "--x", "mass", "--y", "freq", "--method", "ols")
+    assert r.returncode == 0, r.stderr
+    assert "named by its first column 'species'" in r.stderr
+    assert "E e:" in r.stdout  # the flagged point by its name, not its line
+    bare = tmp_path / "bare.csv"
+    bare.write_text("mass,freq\n1,200\n2,180\n4,150\n8,140\n16,1200\n")
+    r = run_cli("fit", str(bare), "--x", "mass", "--y", "freq", "--method", "ols")
+    assert r.returncode == 0 and "named by CSV line" in r.stderr and "row 6:" in r.stdout
+
+
+def test_units_piped_is_a_plain_table_with_every_key_whole():
+    from support import run_cli
+
+    from comparo.catalog import load_catalog
+
+    r = run_cli("units")
+    assert r.returncode == 0
+    first_cells = [line.split("  ")[0] for line in r.stdout.splitlines()[1:]]
+    assert first_cells == list(load_catalog())
+    assert not any(c in r.stdout for c in "┃│━")
+
+
+def test_fit_help_shows_defaults():
+    from support import run_cli
+
+    text = " ".join(run_cli("fit", "--help").stdout.split())
+    for part in ("(default: sma)", "(default: 0)", "(default: 20240601)", "(default: text)", "(default 0.95)"):
+        assert part in text, part

@@ -146,7 +146,7 @@ def test_tree_trait_drops_tip_labels_above_the_limit():
 def test_forest_plot_draws_each_refit_against_the_full_data_line_and_band():
     rows = [{"source_id": "S1", "n": 40, "slope": -0.20, "slope_ci": [-0.25, -0.15], "flips": False},
             {"source_id": "S2", "n": 30, "slope": -0.30, "slope_ci": [-0.35, -0.22], "flips": True},
-            {"source_id": "S3", "n": 0, "slope": None, "slope_ci": [None, None], "flips": False}]
+            {"source_id": "S3", "n": 2, "slope": None, "slope_ci": [None, None], "flips": False}]
     fig = plots.forest_plot(rows, slope=-0.21, slope_ci=[-0.23, -0.19])
     ax = fig.axes[0]
     points = [ln for ln in ax.get_lines() if ln.get_marker() in ("o", "D")]
@@ -158,7 +158,9 @@ def test_forest_plot_draws_each_refit_against_the_full_data_line_and_band():
     x0, x1 = band.get_x(), band.get_x() + band.get_width()
     assert (x0, x1) == pytest.approx((-0.23, -0.19))
     labels = [t.get_text() for t in ax.get_yticklabels()]
-    assert labels[2] == "without S3 (n = 0, not refitted)"
+    assert labels[0] == "without S1 (n = 40)"
+    # a source whose removal leaves too few taxa: the taxa left, not a misleading n = 0
+    assert labels[2] == "without S3 (not refitted; 2 taxa left)"
 
 
 def test_empty_coverage_renders_a_placeholder():

@@ -73,7 +73,7 @@ def test_clean_dataset_flags_no_source(clean):
     assert clean.test["p"] >= 0.05
     assert len(clean.leave_one_source_out) == 8
     assert all(abs(r["shift_se"]) < 1 and not r["flips"] for r in clean.leave_one_source_out)
-    assert clean.verdict.startswith("slope robust to every single source")
+    assert clean.verdict.startswith("no single source moves the slope by 1 SE or more")
 
 
 def test_by_basis_steps(clean):
@@ -353,3 +353,35 @@ def test_api_layer_does_not_import_the_cli():
     names += [a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names]
     assert not [m for m in names if m and (m.startswith("comparo.commands") or m == "comparo.cli")]
 
+
+
+def test_a_source_that_cannot_be_left_out_counts_the_taxa_left(tmp_path):
+    """Leaving out the only source of most y values leaves 2 taxa: the record says it was not
+    refitted, with n = the taxa left with both values (not 0) and the reason."""
+    from support import write_dataset
+
+    from comparo.dataset import load
+    from comparo.reliance import sensitivity
+
+    rows = []
+    for i, (m, f) in enumerate([(1, 200), (2, 180), (4, 150), (8, 140), (16, 120), (32, 100)]):
+        src = "s1" if i < 2 else "s2"
+        rows.append(f"m{i},Genus species{i},body_mass,{m},g,,,,s1,T1,reported,,,")
+        rows.append(f"f{i},Genus species{i},frequency_observed,{f},Hz,,,,{src},T2,reported,,,25")
+    folder = write_dataset(tmp_path / "ds", rows)
+    res = sensitivity(load(folder), "body_mass", "frequency_observed", "ols", mc=0)
+    by_source = {r["source_id"]: r for r in res.leave_one_source_out}
+    assert by_source["s2"]["slope"] is None
+    assert by_source["s2"]["n"] == 2
+    assert "not refitted" in by_source["s2"]["note"]
+    assert by_source["s1"]["slope"] is None and by_source["s1"]["n"] == 0  # s1 holds every body mass
+
+
+def test_verdict_says_which_uncertainties_were_not_propagated():
+    from comparo.reliance import make_verdict
+
+    me = {"share": 0.01, "fixed_x": 12, "fixed_y": 0, "points": 57}
+    v = make_verdict([], None, {}, me)
+    assert "negligible" not in v
+    assert "not propagated: no x uncertainty for 12 of 57 taxa" in v
+    assert "negligible" in make_verdict([], None, {}, {**me, "fixed_x": 0})

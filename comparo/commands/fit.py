@@ -9,8 +9,13 @@ from comparo.errors import UsageError
 from comparo.outputs import dumps, emit
 
 
-def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True):
-    """A per-taxon table from a dataset folder, or a plain CSV read as it is."""
+def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True, say: bool = True):
+    """A per-taxon table from a dataset folder, or a plain CSV read as it is.
+
+    A plain CSV without the label column names its points by its first column when
+    that holds distinct text (copied as the label column), else by CSV line; a note
+    on standard error says which (when *say*).
+    """
     import pandas as pd
 
     path = Path(data)
@@ -22,9 +27,23 @@ def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True):
     if not path.is_file():
         raise UsageError(f"DATA {data!r} is neither a dataset folder nor a CSV file")
     try:
-        return pd.read_csv(path)
+        frame = pd.read_csv(path)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise UsageError(f"cannot read {data!r} as CSV: {exc}") from None
+    if taxon_col in frame.columns or frame.empty:
+        return frame
+    first = frame.columns[0]
+    text = frame[first]
+    named = (not pd.api.types.is_numeric_dtype(text) and text.notna().all() and text.is_unique
+             and pd.to_numeric(text, errors="coerce").isna().all())
+    if named:
+        frame[taxon_col] = text.astype(str)
+        note = f"points are named by its first column {first!r}"
+    else:
+        note = "its first column is not a column of distinct names, so points are named by CSV line (row N)"
+    if say:
+        sys.stderr.write(f"note: {path.name} has no {taxon_col!r} column: {note} (--taxon-col chooses the label column)\n")
+    return frame
 
 
 def _phylo_only_options(args) -> None:
@@ -136,7 +155,7 @@ def run_sensitivity(args) -> int:
                 temperature=not args.no_temperature, taxon_col=args.taxon_col, **pgls)
     sens = sensitivity(data, args.x, args.y, args.method, **opts)
     groups = sensitivity_by_group(data, args.x, args.y, args.method, by=args.by, **opts) if args.by else None
-    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
+    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature, say=False)
     result = with_sensitivity(_fit(args, table, pgls, progress), sens, by_group=groups)
     if args.format == "json":
         emit(dumps(result.to_dict()))
