@@ -37,6 +37,8 @@ FORBIDDEN = {
     "export": ("report", "commands", "cli"),
     # reading plain Newick: beside io, below every rule
     "newick": ABOVE_READ,
+    # synonym chains and cycles: a part of validation
+    "synonyms": ABOVE_READ,
     # the curator's spreadsheets: read and validate, never analyse
     "wide": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
     "importer": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
