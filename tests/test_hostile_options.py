@@ -96,3 +96,19 @@ def test_derive_api_caps_draws_too():
         check_mc(cap + 1, 10)
     with pytest.raises(UsageError, match="cap of"):
         derive(pd.DataFrame({"taxon": ["a"] * 10}), mc=10**9)
+
+
+def test_signal_permutations_are_bounded():
+    """A permutation count whose estimated time exceeds the budget is refused before any work."""
+    import dendropy
+
+    from comparo.errors import UsageError
+    from comparo.phylo import random_newick, tree_signal
+
+    tree = dendropy.Tree.get(data=random_newick(30, seed=2), schema="newick", preserve_underscores=True)
+    values = {leaf.taxon.label: float(i) for i, leaf in enumerate(tree.leaf_node_iter())}
+    with pytest.raises(UsageError, match="cap of"):
+        tree_signal(tree, values, permutations=10**12)
+    with pytest.raises(UsageError, match="0 or a positive"):
+        tree_signal(tree, values, permutations=-1)
+    assert tree_signal(tree, values, permutations=99).permutations == 99

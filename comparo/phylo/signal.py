@@ -120,8 +120,13 @@ def tree_signal(tree: Any, values: Mapping[str, float], permutations: int = 999,
     Pagel M (1999) Nature 401:877-884. Blomberg SP, Garland T, Ives AR (2003)
     Evolution 57:717-745.
     """
+    from comparo.bounds import check_permutations
+
+    if isinstance(permutations, np.integer):
+        permutations = int(permutations)
     ft, yv, match, missing, pruned = _values_on_tree(tree, values)
     n = ft.n_tips
+    permutations = check_permutations(permutations, n)
     K = float(blomberg_k(ft, yv)[0])
     pval = math.nan
     if permutations > 0:
