@@ -185,3 +185,23 @@ def test_too_few_cycles_and_no_oscillation_are_refused():
         loops.work_loop(t, np.full_like(t, 3.0), np.full_like(t, 1.0))
     with pytest.raises(loops.CycleError, match="samples"):
         loops.work_loop(t[:10], np.sin(t[:10]), np.cos(t[:10]))
+
+
+def test_frequency_refinement_matches_scipy_bounded_search():
+    """The golden-section refinement of the cycle frequency gives the maximum that
+    scipy.optimize.minimize_scalar (bounded) finds on the same objective (independent route)."""
+    from scipy.optimize import minimize_scalar
+
+    from comparo import loops
+
+    rng = np.random.default_rng(3)
+    for f0 in (7.3, 24.0, 151.7):
+        t = np.sort(rng.uniform(0, 8 / f0, 900))
+        y = np.sin(2 * np.pi * f0 * t + 0.4) + 0.05 * rng.normal(size=t.size) + 0.3 * t * f0
+        f = loops.cycle_frequency(t, [y])
+        tc = t - 0.5 * (t[0] + t[-1])
+        d = loops._detrended(tc, y)
+        ref = minimize_scalar(lambda q, d=d, tc=tc: -loops._explained(tc, [d / np.std(d)], q),
+                              bounds=(0.99 * f, 1.01 * f), method="bounded", options={"xatol": 1e-12 * f})
+        assert f == pytest.approx(ref.x, rel=1e-8)
+        assert f == pytest.approx(f0, rel=1e-3)
