@@ -138,7 +138,7 @@ REAL_GROUP_NAMES = {
     "cicadidae", "blattodea", "mantodea", "crustacea", "decapoda", "arachnida", "mollusca", "cephalopoda",
     "chordata", "vertebrata", "actinopterygii", "teleostei", "amphibia", "anura", "reptilia", "squamata",
     "serpentes", "aves", "passeriformes", "trochilidae", "mammalia", "chiroptera", "rodentia", "primates",
-    "cetacea", "carnivora", "natantia", "reptantia", "apis", "bombus", "drosophila", "manduca", "musca",
+    "cetacea", "carnivora", "natantia", "reptantia", "apis", "bombus", "manduca", "musca",
     "anopheles", "aedes", "forcipomyia", "lethocerus", "crotalus", "opsanus", "homo", "mus", "rattus",
     "oscillaria", "oscillatoria", "simulium", "tettigonia", "gryllus", "locusta", "schistocerca",
 }

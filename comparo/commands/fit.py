@@ -102,7 +102,7 @@ def checked_tree(path: str):
     Read as :func:`comparo.phylo.read_tree` reads it (UTF-8, an optional BOM, the final
     ';' optional) and checked by the same rules (labels, duplicates, branch lengths)."""
     from comparo import newick
-    from comparo.phylo.trees import _check, _Topo
+    from comparo.phylo.trees import _check
 
     try:
         text = Path(path).read_text(encoding="utf-8-sig").strip()
@@ -111,7 +111,6 @@ def checked_tree(path: str):
     topo = newick.parse(text)
     if topo is None:
         return path
-    topo = _Topo(topo.parent, topo.length, topo.leaf, topo.inner_label)
     _check(topo, path)
     return topo
 

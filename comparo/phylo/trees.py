@@ -4,11 +4,11 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from comparo.errors import InputError, Problem
+from comparo.newick import Topology
 
 if TYPE_CHECKING:  # pragma: no cover
     import dendropy
@@ -94,19 +94,9 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
     return tree
 
 
-@dataclass(frozen=True, eq=False)
-class _Topo:
-    """One pre-order pass over a dendropy tree: parent index, edge length (None if
-    absent) and, for leaves, the label (None if absent)."""
-
-    parent: list[int]
-    length: list[float | None]
-    leaf: dict[int, str | None]
-    inner_label: list[str | None]
-
-    @property
-    def tips(self) -> list[str]:
-        return [str(v) for v in self.leaf.values()]
+#: One pre-order pass over a tree: parent index, edge length (None if absent), leaf labels
+#: and inner-node labels; the same record the plain-Newick reader builds.
+_Topo = Topology
 
 
 def _preorder(tree: Any) -> list:
