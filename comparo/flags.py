@@ -198,13 +198,21 @@ def influence(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.
     b = float(xc @ (y - y.mean())) / sxx
     e = y - y.mean() - b * xc
     lev = 1.0 / n + xc * xc / sxx
+    t_ext, cooks = _studentized(e, lev, p)
+    return t_ext, lev, cooks
+
+
+def _studentized(e: np.ndarray, lev: np.ndarray, p: int) -> tuple[np.ndarray, np.ndarray]:
+    """Externally studentized residuals and Cook's distances from residuals *e* and
+    leverages *lev* of a least-squares fit with *p* coefficients (formulas of :func:`influence`)."""
+    n = len(e)
     s2 = float(e @ e) / (n - p)
     one_h = 1.0 - lev
     with np.errstate(divide="ignore", invalid="ignore"):
         s2_i = np.maximum(((n - p) * s2 - e * e / one_h) / (n - p - 1), 0.0)
         t_ext = e / np.sqrt(s2_i * one_h)
         cooks = e * e * lev / (p * s2 * one_h * one_h)
-    return t_ext, lev, cooks
+    return t_ext, cooks
 
 
 def influence_design(Z: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -220,12 +228,7 @@ def influence_design(Z: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarr
     beta = np.linalg.solve(r, q.T @ y)
     e = y - Z @ beta
     lev = np.einsum("ij,ij->i", q, q)
-    s2 = float(e @ e) / (n - p)
-    one_h = 1.0 - lev
-    with np.errstate(divide="ignore", invalid="ignore"):
-        s2_i = np.maximum(((n - p) * s2 - e * e / one_h) / (n - p - 1), 0.0)
-        t_ext = e / np.sqrt(s2_i * one_h)
-        cooks = e * e * lev / (p * s2 * one_h * one_h)
+    t_ext, cooks = _studentized(e, lev, p)
     return beta, e, t_ext, lev, cooks
 
 
