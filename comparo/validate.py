@@ -1,8 +1,9 @@
 """Validation: every problem of a dataset found in one pass.
 
 Column rules (required, type, allowed values, sign, uniqueness) are read from
-``schema/tables.toml`` and turned into pandera schemas; pandera runs them
-lazily so that all failures come back at once. Rules that span columns or
+``schema/tables.toml`` and run on whole columns, so that all failures come back
+at once; :func:`pandera_schema` states the same rules as pandera schemas, and
+the tests check that pandera's lazy validation finds the same failures. Rules that span columns or
 tables (units against the quantity catalogue, sources, computed and proxy
 rows, temperature, plausible ranges, DOIs, binomial names) are vectorised
 checks below. Each failure becomes a :class:`~comparo.errors.Problem` at the
@@ -118,40 +119,83 @@ class _Rule:
     message: str
 
 
-# --------------------------------------------------------------------------- pandera
+# --------------------------------------------------------------------------- column rules
+
+@dataclass(frozen=True)
+class ColumnCheck:
+    """One declared rule on a column: *fn* maps the present cells (strings) to True where they pass."""
+
+    name: str
+    fn: Any
+
+
+@dataclass(frozen=True)
+class ColumnRules:
+    """The declared rules of one column of a table (from ``schema/tables.toml``)."""
+
+    name: str
+    required: bool
+    unique: bool
+    checks: tuple[ColumnCheck, ...]
+    nullable: bool = False
+
+
+def _number_checks(c: dict[str, Any]) -> list[ColumnCheck]:
+    kind = c.get("type", "string")
+    checks = [ColumnCheck("number", lambda s: (s == "") | parse_numbers(s).notna())]
+    if kind == "integer":
+        checks.append(ColumnCheck("integer", lambda s: (lambda n: n.isna() | (n == np.round(n)))(parse_numbers(s))))
+    top = c.get("max")
+    if top is not None:
+        checks.append(ColumnCheck("maximum", lambda s, top=float(top): (lambda n: n.isna() | (n <= top))(parse_numbers(s))))
+    if kind == "integer" and (top is None or float(top) > INT_EXACT):
+        checks.append(ColumnCheck("integer_range", lambda s: (lambda n: n.isna() | (n.abs() <= INT_EXACT))(parse_numbers(s))))
+    if c.get("positive"):
+        checks.append(ColumnCheck("positive", lambda s: (lambda n: n.isna() | (n > 0))(parse_numbers(s))))
+    if c.get("nonnegative"):
+        checks.append(ColumnCheck("nonnegative", lambda s: (lambda n: n.isna() | (n >= 0))(parse_numbers(s))))
+    return checks
+
 
 @lru_cache(maxsize=8)
-def _schema(table: str):
-    """pandera DataFrameSchema for *table* built from schema/tables.toml (built once)."""
+def column_rules(table: str) -> tuple[ColumnRules, ...]:
+    """The column rules of *table* (``observations``, ``sources``, ``taxa``, ...) as declared in
+    ``schema/tables.toml``: required cell, number, whole number, maximum, sign, allowed values,
+    uniqueness. Built once per table; :func:`pandera_schema` states the same rules as a pandera
+    schema."""
+    spec = read_schema("tables.toml")[table]["columns"]
+    out = []
+    for name, c in spec.items():
+        checks: list[ColumnCheck] = []
+        if c.get("required"):
+            checks.append(ColumnCheck("required-cell", lambda s: s != ""))
+        if c.get("type", "string") in ("number", "integer"):
+            checks += _number_checks(c)
+        if c.get("type") == "enum":
+            allowed = list(c["values"])
+            checks.append(ColumnCheck("enum", lambda s, allowed=allowed: (s == "") | s.isin(allowed)))
+        out.append(ColumnRules(name, bool(c.get("required")), bool(c.get("unique")), tuple(checks)))
+    return tuple(out)
+
+
+@lru_cache(maxsize=8)
+def pandera_schema(table: str):
+    """The rules of :func:`column_rules` as a pandera ``DataFrameSchema`` (imports pandera).
+
+    For users who validate their own frames with pandera, and for the tests, which check
+    that :func:`schema_failures` finds the same failure cases as pandera's lazy validation.
+    comparo's commands run the rules with :func:`schema_failures` and do not import
+    pandera (its import alone takes about 0.2 s, a command's whole budget).
+    """
     import pandera.pandas as pa
 
-    spec = read_schema("tables.toml")[table]["columns"]
-    cols = {}
-    for name, c in spec.items():
-        checks = []
-        if c.get("required"):
-            checks.append(pa.Check(lambda s: s != "", name="required-cell"))
-        kind = c.get("type", "string")
-        if kind in ("number", "integer"):
-            checks.append(pa.Check(lambda s: (s == "") | parse_numbers(s).notna(), name="number"))
-            if kind == "integer":
-                checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n == np.round(n)))(parse_numbers(s)), name="integer"))
-            top = c.get("max")
-            if top is not None:
-                checks.append(pa.Check(lambda s, top=float(top): (lambda n: n.isna() | (n <= top))(parse_numbers(s)), name="maximum"))
-            if kind == "integer" and (top is None or float(top) > INT_EXACT):
-                checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n.abs() <= INT_EXACT))(parse_numbers(s)), name="integer_range"))
-            if c.get("positive"):
-                checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n > 0))(parse_numbers(s)), name="positive"))
-            if c.get("nonnegative"):
-                checks.append(pa.Check(lambda s: (lambda n: n.isna() | (n >= 0))(parse_numbers(s)), name="nonnegative"))
-        if kind == "enum":
-            allowed = list(c["values"])
-            checks.append(pa.Check(lambda s, allowed=allowed: (s == "") | s.isin(allowed), name="enum"))
-        cols[name] = pa.Column(
-            str, checks=checks, required=bool(c.get("required")), nullable=False,
-            unique=bool(c.get("unique")), report_duplicates="exclude_first", coerce=False,
+    cols = {
+        r.name: pa.Column(
+            str, checks=[pa.Check(k.fn, name=k.name) for k in r.checks], required=r.required,
+            nullable=r.nullable, unique=r.unique, report_duplicates="exclude_first", coerce=False,
         )
+        for r in column_rules(table)
+    }
     return pa.DataFrameSchema(cols, strict=False, ordered=False)
 
 
@@ -167,21 +211,21 @@ _MESSAGES = {
 }
 
 
-def schema_failures(schema, frame: pd.DataFrame) -> list[dict[str, Any]]:
-    """The failures of *frame* against a pandera *schema*, found by running the schema's
-    declared rules on whole columns.
+def schema_failures(rules: tuple[ColumnRules, ...], frame: pd.DataFrame) -> list[dict[str, Any]]:
+    """The failures of *frame* against the column *rules* (:func:`column_rules`), run on
+    whole columns.
 
-    The records are those of pandera's lazy validation (``SchemaErrors.failure_cases``:
-    ``column``, ``check``, ``index``, ``failure_case``) in its order: missing required
-    columns, then per column in schema order the null cells, the repeated values
-    (all but the first) and each check's failing cells. Running the declared checks
-    directly keeps pandera the declaration of the rules while skipping the start-up
-    of its validation backends (which imports pandera's data-synthesis strategies).
-    Missing cells are skipped by the checks, as pandera's ``ignore_na`` does.
+    The records have the form and order of pandera's lazy validation
+    (``SchemaErrors.failure_cases``: ``column``, ``check``, ``index``, ``failure_case``):
+    missing required columns, then per column in declared order the null cells, the
+    repeated values (all but the first) and each check's failing cells. Missing cells are
+    skipped by the checks, as pandera's ``ignore_na`` does. A test checks that the records
+    equal pandera's own validation with :func:`pandera_schema` on random hostile tables.
     """
-    out = [{"column": None, "check": "column_in_dataframe", "index": None, "failure_case": name}
-           for name, col in schema.columns.items() if col.required and name not in frame.columns]
-    for name, col in schema.columns.items():
+    out = [{"column": None, "check": "column_in_dataframe", "index": None, "failure_case": r.name}
+           for r in rules if r.required and r.name not in frame.columns]
+    for r in rules:
+        name = r.name
         if name not in frame.columns:
             continue
         s = frame[name]
@@ -191,13 +235,13 @@ def schema_failures(schema, frame: pd.DataFrame) -> list[dict[str, Any]]:
             for i in np.flatnonzero(mask):
                 out.append({"column": name, "check": check, "index": s.index[i], "failure_case": s.iat[i]})
 
-        if not col.nullable:
+        if not r.nullable:
             add(null, "not_nullable")
-        if col.unique:
+        if r.unique:
             add(s.duplicated(keep="first").to_numpy() & ~null, "field_uniqueness")
         present = s[~null] if null.any() else s
-        for check in col.checks:
-            ok = np.asarray(check._check_fn(present), dtype=bool)
+        for check in r.checks:
+            ok = np.asarray(check.fn(present), dtype=bool)
             bad = np.zeros(len(s), dtype=bool)
             bad[np.flatnonzero(~null)[~ok]] = True
             add(bad, check.name)
@@ -205,10 +249,10 @@ def schema_failures(schema, frame: pd.DataFrame) -> list[dict[str, Any]]:
 
 
 def _column_problems(table: RawTable, name: str) -> list[Problem]:
-    """Check a raw table against the pandera schema of *name*; one Problem per failure."""
+    """Check a raw table against the column rules of *name*; one Problem per failure."""
     spec = read_schema("tables.toml")[name]["columns"]
     frame = table.frame
-    fc = schema_failures(_schema(name), frame)
+    fc = schema_failures(column_rules(name), frame)
     if not fc:
         return []
     probs: list[Problem] = []

@@ -318,11 +318,11 @@ def _pandera_failures(schema, frame) -> list[tuple]:
     return recs
 
 
-def _ours(schema, frame) -> list[tuple]:
-    from comparo.validate import schema_failures
+def _ours(name, frame) -> list[tuple]:
+    from comparo.validate import column_rules, schema_failures
 
     return [(r["column"], r["check"], None if r["index"] is None else int(r["index"]),
-             None if r["failure_case"] is None else str(r["failure_case"])) for r in schema_failures(schema, frame)]
+             None if r["failure_case"] is None else str(r["failure_case"])) for r in schema_failures(column_rules(name), frame)]
 
 
 @settings(max_examples=25, deadline=None)
@@ -330,7 +330,7 @@ def _ours(schema, frame) -> list[tuple]:
 def test_schema_failures_match_pandera_validation(data):
     """Random hostile cells and dropped columns in the demo's three tables: the same failure
     cases as pandera's ``validate(lazy=True)``, as a multiset, and the same order per column."""
-    from comparo.validate import _schema
+    from comparo.validate import pandera_schema
 
     raw = _demo_raw()
     for name, table in (("observations", raw.observations), ("sources", raw.sources), ("taxa", raw.taxa)):
@@ -342,8 +342,7 @@ def test_schema_failures_match_pandera_validation(data):
             frame.iat[r, frame.columns.get_loc(c)] = data.draw(st.sampled_from(_HOSTILE))
         drop = data.draw(st.lists(st.sampled_from(list(frame.columns)), max_size=2, unique=True))
         frame = frame.drop(columns=drop)
-        schema = _schema(name)
-        theirs, ours = _pandera_failures(schema, frame), _ours(schema, frame)
+        theirs, ours = _pandera_failures(pandera_schema(name), frame), _ours(name, frame)
         assert sorted(ours, key=repr) == sorted(theirs, key=repr)
         for col in {c for c, *_ in theirs}:
             assert [t for t in ours if t[0] == col] == [t for t in theirs if t[0] == col]
@@ -354,13 +353,12 @@ def test_schema_failures_of_a_known_bad_table_match_pandera():
     from support import DEMO
 
     from comparo.io import read_folder
-    from comparo.validate import _schema
+    from comparo.validate import pandera_schema
 
     frame = read_folder(DEMO).observations.frame.copy()
     frame.loc[3, "value"], frame.loc[5, "value"], frame.loc[2, "n"] = "abc", "", "2.5"
     frame.loc[7, "basis"], frame.loc[1, "obs_id"] = "zz", frame.loc[0, "obs_id"]
     frame = frame.drop(columns=["source_id"])
-    schema = _schema("observations")
-    theirs = _pandera_failures(schema, frame)
+    theirs = _pandera_failures(pandera_schema("observations"), frame)
     assert len(theirs) == 6
-    assert sorted(_ours(schema, frame), key=repr) == sorted(theirs, key=repr)
+    assert sorted(_ours("observations", frame), key=repr) == sorted(theirs, key=repr)
