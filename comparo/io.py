@@ -222,21 +222,47 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     except (ValueError, csv.Error) as exc:
         return None, probs + [_err(file, "csv-syntax", f"cannot parse the table ({exc})")]
     rows = list(range(first + 2, first + 2 + len(frame)))
-    return _finish(file, frame, rows, probs)
+    return _finish(file, frame, rows, probs, _TextFacts.of(text))
 
 
-def _finish(file: str, frame, rows: list[int], probs: list[Problem]) -> tuple[RawTable, list[Problem]]:
+@dataclass(frozen=True)
+class _TextFacts:
+    """What a whole file's text rules out for every cell, so the per-cell passes can be skipped
+    (a trace file of plain ASCII numbers needs none of them)."""
+
+    padded: bool = True  # some cell may have leading or trailing blanks
+    non_ascii: bool = True  # some cell may need NFC normalisation
+    control: bool = True  # some cell may hold a control character
+    long: bool = True  # some cell may exceed MAX_CELL characters
+
+    @classmethod
+    def of(cls, text: str) -> _TextFacts:
+        longest = max(map(len, text.split("\n"))) if text else 0
+        control = _CONTROL.search(text) is not None
+        return cls(
+            padded=" " in text or "\t" in text or '"' in text or control,  # a quoted cell may hold a line break
+            non_ascii=not text.isascii(),
+            control=control,
+            long=len(text) > MAX_CELL and ('"' in text or longest > MAX_CELL),
+        )
+
+
+def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _TextFacts | None = None) -> tuple[RawTable, list[Problem]]:
+    facts = facts or _TextFacts()
     frame = frame.fillna("").astype(str)
-    for col in frame.columns:
-        frame[col] = frame[col].str.strip()
+    if facts.padded or facts.non_ascii:  # non-ASCII text may hold Unicode blanks
+        for col in frame.columns:
+            frame[col] = frame[col].str.strip()
     # blank rows (every cell empty) are layout, not data: drop them, keep row numbers
     keep = (frame != "").any(axis=1).to_numpy()
-    frame = frame.loc[keep].reset_index(drop=True)
-    rows = [r for r, k in zip(rows, keep, strict=True) if k]
-    respelled = _nfc_cells(frame, rows)
-    probs += _control_characters(file, frame, rows)
-    long = frame.apply(lambda s: s.str.len() > MAX_CELL)
-    if long.to_numpy().any():
+    if not keep.all():
+        frame = frame.loc[keep].reset_index(drop=True)
+        rows = [r for r, k in zip(rows, keep, strict=True) if k]
+    respelled = _nfc_cells(frame, rows) if facts.non_ascii else {}
+    if facts.control:
+        probs += _control_characters(file, frame, rows)
+    long = frame.apply(lambda s: s.str.len() > MAX_CELL) if facts.long else None
+    if long is not None and long.to_numpy().any():
         for ci, col in enumerate(frame.columns):
             for ri in frame.index[long.iloc[:, ci].to_numpy()]:
                 probs.append(_err(file, "cell-length", f"cell has {len(frame.at[ri, col])} characters (limit {MAX_CELL})", "shorten it; long notes belong in a separate file", row=rows[ri], column=col, value=frame.at[ri, col][:40] + "..."))

@@ -75,14 +75,13 @@ def _design(t: np.ndarray, f: float) -> np.ndarray:
 def _explained(t: np.ndarray, signals: list[np.ndarray], f: float) -> float:
     """Share of each signal's drift-free variance a sinusoid at *f* explains, summed."""
     a = _design(t, f)
-    total = 0.0
-    for y in signals:
-        coef, *_ = np.linalg.lstsq(a, y, rcond=None)
-        drift = a[:, :3] @ coef[:3]
-        wave = a[:, 3:] @ coef[3:]
-        base = float(np.sum((y - drift) ** 2))
-        total += float(np.sum(wave**2)) / base if base > 0 else 0.0
-    return total
+    ys = np.column_stack(signals)
+    coef, *_ = np.linalg.lstsq(a, ys, rcond=None)  # one factorisation for every signal
+    drift = a[:, :3] @ coef[:3]
+    wave = a[:, 3:] @ coef[3:]
+    base = np.sum((ys - drift) ** 2, axis=0)
+    share = np.divide(np.sum(wave**2, axis=0), base, out=np.zeros_like(base), where=base > 0)
+    return float(sum(share.tolist()))
 
 
 def _detrended(t: np.ndarray, y: np.ndarray) -> np.ndarray:

@@ -362,3 +362,35 @@ def test_schema_failures_of_a_known_bad_table_match_pandera():
     theirs = _pandera_failures(pandera_schema("observations"), frame)
     assert len(theirs) == 6
     assert sorted(_ours("observations", frame), key=repr) == sorted(theirs, key=repr)
+
+
+# --- the whole-file shortcuts of the text reader skip only passes that cannot change a cell --------
+
+@pytest.mark.parametrize("text, cells", [
+    ("a,b\n 1 ,2\n", ["1", "2"]),  # blanks around a cell
+    ('a,b\n"\n1",2\n', ["1", "2"]),  # a quoted cell that starts with a line break
+    ("a,b\n1\x0b1,2\n", None),  # a control character inside a cell (an error)
+    ("a,b\n1\u00a0,2\n", ["1", "2"]),  # a no-break space (Unicode whitespace)
+    ("a,b\ncafe\u0301,2\n", ["caf\u00e9", "2"]),  # decomposed accent -> NFC
+    ("a,b\n1.5,2e-3\n", ["1.5", "2e-3"]),  # plain ASCII numbers: every pass skipped
+])
+def test_text_reader_shortcuts_give_the_same_cells_as_the_full_passes(tmp_path, text, cells):
+    """Reading with the whole-file facts and with every per-cell pass forced gives the same
+    table and the same problems."""
+    from comparo import io
+
+    path = tmp_path / "t.csv"
+    path.write_text(text, encoding="utf-8")
+    fast, p_fast = io.read_text_table(path)
+    real = io._TextFacts.of
+    try:
+        io._TextFacts.of = classmethod(lambda cls, t: cls())  # every pass on
+        full, p_full = io.read_text_table(path)
+    finally:
+        io._TextFacts.of = real
+    assert fast.frame.equals(full.frame) and fast.rows == full.rows and fast.respelled == full.respelled
+    assert p_fast == p_full
+    if cells is not None:
+        assert fast.frame.iloc[0].tolist() == cells
+    else:
+        assert any(p.rule == "control-character" for p in p_fast)
