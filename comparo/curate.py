@@ -85,10 +85,10 @@ def standard_uncertainty(u: pd.Series, kind: pd.Series, n: pd.Series) -> pd.Seri
     ci = kind == "ci95"
     dof = (n[ci] - 1).where(n[ci] >= 2)
     tq = pd.Series(1.959963984540054, index=dof.index, dtype=float)
-    if dof.notna().any():  # scipy only when a CI with a sample size is there to convert
-        from scipy.special import stdtrit  # Student t quantile (lighter import than scipy.stats)
+    if dof.notna().any():  # a t quantile per distinct sample size
+        from comparo.quantiles import t_quantile
 
-        tq[dof.notna()] = stdtrit(dof[dof.notna()].to_numpy(dtype=float), 0.975)
+        tq[dof.notna()] = map_distinct(dof[dof.notna()].astype(float), lambda d: t_quantile(d, 0.975))
     out[ci] = u[ci] / tq
     rh = kind == "range_half"
     out[rh] = u[rh] / math.sqrt(3.0)

@@ -178,9 +178,9 @@ def bonferroni_cut(n: int, p: int = 2, alpha: float = 0.05) -> float:
 
     Returns t(1 - alpha/(2n); n - p - 1).
     """
-    from scipy.special import stdtrit  # the t quantile, without importing scipy.stats
+    from comparo.quantiles import t_quantile
 
-    return float(stdtrit(n - p - 1, 1.0 - alpha / (2.0 * n)))
+    return t_quantile(n - p - 1, 1.0 - alpha / (2.0 * n))
 
 
 def influence(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -312,7 +312,7 @@ def flag_points(
     t_i = e_i / (s_(i) sqrt(1 - h_ii)) ~ t(n - p - 1) and
     D_i = r_i^2 h_ii / (p (1 - h_ii)) with r_i the internally studentized residual.
     """
-    from scipy.special import fdtri  # the F quantile, without importing scipy.stats
+    from comparo.quantiles import f_quantile
 
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
@@ -324,7 +324,7 @@ def flag_points(
         "bonferroni": bonferroni_cut(n, p, alpha),
         "leverage": 2.0 * p / n,
         "cooks_4n": 4.0 / n,
-        "cooks_f": float(fdtri(p, n - p, 0.5)),
+        "cooks_f": f_quantile(p, n - p, 0.5),
         "alpha": float(alpha),
     }
     flags: list[Flag] = []

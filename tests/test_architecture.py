@@ -13,7 +13,7 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[1] / "comparo"
 
-FOUNDATIONS = ("errors", "units", "catalog", "csvsafe", "bounds", "outputs", "display", "jsonsafe")
+FOUNDATIONS = ("errors", "units", "catalog", "csvsafe", "bounds", "outputs", "display", "jsonsafe", "quantiles")
 ABOVE_READ = ("validate", "dataset", "curate", "provenance", "derivation", "phylo", "lines", "flags",
               "reliance", "plots", "report", "export", "commands", "cli")
 PRESENTATION = ("plots", "report", "export", "commands", "cli")

@@ -78,14 +78,14 @@ def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, aga
     (1 + b^2)^2 l1 l2 / ((n - 2)(l1 - l2)^2) (MA; delta method on the angle, l1 > l2 the
     covariance eigenvalues).
     """
-    from scipy.special import fdtri, stdtrit  # F and t quantiles, without importing scipy.stats
+    from comparo.quantiles import f_quantile, t_quantile
 
     n = len(X)
     ci_note = None
     xm, ym, sxx, syy, sxy = _moments(X, Y)
     r = max(-1.0, min(1.0, sxy / math.sqrt(sxx * syy)))  # rounding can push |r| past 1 on a perfect line
     b = float(slope_from_moments(method, sxx, syy, sxy))
-    fq = fdtri(1, n - 2, ci)
+    fq = f_quantile(1, n - 2, ci)
     if method == "sma":
         B = fq * (1 - r * r) / (n - 2)
         lims = sorted((b * (math.sqrt(B + 1) - math.sqrt(B)), b * (math.sqrt(B + 1) + math.sqrt(B))))
@@ -110,7 +110,7 @@ def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, aga
         var_b = (1 + b * b) ** 2 * l1 * l2 / ((n - 2) * (l1 - l2) ** 2) if l1 > l2 else math.inf
     a = float(ym - b * xm)
     s_rho2 = float(np.var(Y - b * X, ddof=1))
-    half_a = stdtrit(n - 2, 0.5 + ci / 2) * math.sqrt(s_rho2 / n + xm * xm * var_b)
+    half_a = t_quantile(n - 2, 0.5 + ci / 2) * math.sqrt(s_rho2 / n + xm * xm * var_b)
     test = None
     if against is not None:
         F, p = model2_test(X, Y, against, method)
