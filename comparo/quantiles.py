@@ -22,6 +22,11 @@ import math
 EXACT_DF_MAX = 1000  # above this, the sums (df / 2 terms and more) are left to scipy.special
 
 
+def _ratio(k: int, even: bool) -> float:
+    """c_k / c_(k-1) = (2k - 1) / (2k) (even df) or d_k / d_(k-1) = 2k / (2k + 1) (odd df)."""
+    return (2 * k - 1) / (2 * k) if even else (2 * k) / (2 * k + 1)
+
+
 def _two_sided(t: float, df: int) -> tuple[float, float]:
     """A = P(|T| <= t) and its complement Q = 1 - A for t >= 0, each without cancellation.
 
@@ -45,7 +50,7 @@ def _two_sided(t: float, df: int) -> tuple[float, float]:
     term = 1.0 if even else c
     for k in range(m):
         if k:
-            term *= x * ((2 * k - 1) / (2 * k) if even else (2 * k) / (2 * k + 1))
+            term *= x * _ratio(k, even)
         terms.append(term)
     if even:
         a = s * math.fsum(terms)
@@ -54,13 +59,13 @@ def _two_sided(t: float, df: int) -> tuple[float, float]:
     a = min(max(a, 0.0), 1.0)
     if a <= 0.5:
         return a, 1.0 - a
-    k = m  # the remainder of the series, from k = m
-    term = term * x * ((2 * k - 1) / (2 * k) if even else (2 * k) / (2 * k + 1)) if k else term
-    rest = []
+    rest = []  # the remainder of the series, from k = m (m >= 1 here)
+    k = m
+    term *= x * _ratio(k, even)
     while term > 1e-18 * (rest[0] if rest else term) and len(rest) < 1_000_000:
         rest.append(term)
         k += 1
-        term *= x * ((2 * k - 1) / (2 * k) if even else (2 * k) / (2 * k + 1))
+        term *= x * _ratio(k, even)
     q = s * math.fsum(rest) if even else 2.0 / math.pi * s * math.fsum(rest)
     return 1.0 - q, q
 
@@ -105,7 +110,7 @@ def t_quantile(df: float, q: float) -> float:
     Exact (to a few units of the last place) for whole df up to :data:`EXACT_DF_MAX`;
     otherwise ``scipy.special.stdtrit``. NaN when df <= 0 or q is outside (0, 1).
     """
-    if not (df > 0) or not (0.0 < q < 1.0) or math.isnan(q):
+    if not (df > 0) or not (0.0 < q < 1.0):  # NaN fails both comparisons
         return math.nan
     if float(df).is_integer() and df <= EXACT_DF_MAX:
         if q == 0.5:
