@@ -87,7 +87,7 @@ def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
     truth), with the demo's taxa.csv tree labels, and the extra PGLS keys kept."""
     import json
 
-    from support import DEMO, run_cli
+    from support import DEMO, run_main
 
     import comparo
     from comparo.phylo import phylo_fit
@@ -95,7 +95,7 @@ def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
     tab = comparo.per_taxon(comparo.load(DEMO))
     direct = phylo_fit(table=tab, x="body_mass", y="frequency_observed", tree=str(DEMO / "tree.nwk"), log="10", ci=0.95,
                       against=None, taxon_col="taxon", lambda_="ml")
-    proc = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--format", "json")
+    proc = run_main("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--format", "json")
     assert proc.returncode == 0, proc.stderr
     got = json.loads(proc.stdout)
     assert got["slope"] == pytest.approx(direct["slope"], rel=1e-9)
@@ -105,7 +105,7 @@ def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
     assert got["n"] == int(both.sum()) and len(got["excluded"]) == int((~both).sum()) > 0
     assert {e["label"] for e in got["excluded"]} == set(tab.loc[~both, "taxon"])
     assert "lambda_tests" in got["phylo"]
-    with_me = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--tip-se", "--format", "json")
+    with_me = run_main("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--tip-se", "--format", "json")
     assert with_me.returncode == 0, with_me.stderr
     assert json.loads(with_me.stdout)["phylo"]["measurement_error"]
 
@@ -152,26 +152,26 @@ def test_drop_flagged_bad_rule_exit_2(outlier_csv, capsys):
 
 
 def test_plain_csv_without_taxon_column_names_points_by_first_column(tmp_path):
-    from support import run_cli
+    from support import run_main
 
     named = tmp_path / "named.csv"
     named.write_text("species,mass,freq\nA a,1,200\nB b,2,180\nC c,4,150\nD d,8,140\nE e,16,1200\n")
-    r = run_cli("fit", str(named), "--x", "mass", "--y", "freq", "--method", "ols")
+    r = run_main("fit", str(named), "--x", "mass", "--y", "freq", "--method", "ols")
     assert r.returncode == 0, r.stderr
     assert "named by its first column 'species'" in r.stderr
     assert "E e:" in r.stdout  # the flagged point by its name, not its line
     bare = tmp_path / "bare.csv"
     bare.write_text("mass,freq\n1,200\n2,180\n4,150\n8,140\n16,1200\n")
-    r = run_cli("fit", str(bare), "--x", "mass", "--y", "freq", "--method", "ols")
+    r = run_main("fit", str(bare), "--x", "mass", "--y", "freq", "--method", "ols")
     assert r.returncode == 0 and "named by CSV line" in r.stderr and "row 6:" in r.stdout
 
 
 def test_units_piped_is_a_plain_table_with_every_key_whole():
-    from support import run_cli
+    from support import run_main
 
     from comparo.catalog import load_catalog
 
-    r = run_cli("units")
+    r = run_main("units")
     assert r.returncode == 0
     first_cells = [line.split("  ")[0] for line in r.stdout.splitlines()[1:]]
     assert first_cells == list(load_catalog())
@@ -179,9 +179,9 @@ def test_units_piped_is_a_plain_table_with_every_key_whole():
 
 
 def test_fit_help_shows_defaults():
-    from support import run_cli
+    from support import run_main
 
-    text = " ".join(run_cli("fit", "--help").stdout.split())
+    text = " ".join(run_main("fit", "--help").stdout.split())
     for part in ("(default: sma)", "(default: 0)", "(default: 20240601)", "(default: text)", "(default 0.95)"):
         assert part in text, part
 

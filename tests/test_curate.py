@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from support import SOURCES, run_cli, write_dataset
+from support import SOURCES, run_main, write_dataset
 
 import comparo
 from comparo.curate import harmonise, per_taxon
@@ -154,7 +154,7 @@ def test_error_rows_are_excluded_with_reason(tmp_path):
 
 def test_audit_json_contract(tmp_path):
     folder = write_dataset(tmp_path / "j")
-    proc = run_cli("audit", str(folder), "--format", "json")
+    proc = run_main("audit", str(folder), "--format", "json")
     assert proc.returncode == 0, proc.stderr
     d = json.loads(proc.stdout)
     for key in ("rows_read", "rows_used", "rows_merged", "rows_excluded", "conflicts", "unit_slips", "out_of_range", "basis_shares", "sources", "coverage"):
@@ -168,7 +168,7 @@ def test_audit_json_contract(tmp_path):
 def test_table_command_csv(tmp_path):
     folder = write_dataset(tmp_path / "t")
     out = tmp_path / "per_taxon.csv"
-    proc = run_cli("table", str(folder), "-o", str(out))
+    proc = run_main("table", str(folder), "-o", str(out))
     assert proc.returncode == 0, proc.stderr
     import pandas as pd
 

@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from support import DEMO, run_cli, tree_hash, write_dataset
+from support import DEMO, run_main, tree_hash, write_dataset
 
 from comparo.cli import main
 from comparo.errors import InputError
@@ -170,7 +170,7 @@ def test_cli_leaves_the_dataset_untouched_and_writes_csv(demo_copy, tmp_path):
     before = tree_hash(demo_copy)
     target = tmp_path / "out" / "derived.csv"
     target.parent.mkdir()
-    proc = run_cli("derive", str(demo_copy), "--mc", "200", "--seed", "5", "-o", str(target))
+    proc = run_main("derive", str(demo_copy), "--mc", "200", "--seed", "5", "-o", str(target))
     assert proc.returncode == 0, proc.stderr
     assert tree_hash(demo_copy) == before
     with open(target, newline="", encoding="utf-8") as fh:
@@ -196,7 +196,7 @@ def test_cli_leaves_the_dataset_untouched_and_writes_csv(demo_copy, tmp_path):
             assert r["poro_kinetic_ratio_missing"].startswith("no ") or "; no " in r["poro_kinetic_ratio_missing"] \
                 or ", and " in r["poro_kinetic_ratio_missing"]
     # the same table on standard output
-    proc = run_cli("derive", str(demo_copy))
+    proc = run_main("derive", str(demo_copy))
     assert proc.returncode == 0 and proc.stdout.startswith("taxon,")
 
 

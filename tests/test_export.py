@@ -9,7 +9,7 @@ import frictionless
 import numpy as np
 import pandas as pd
 import pytest
-from support import DEMO, run_cli, tree_hash, write_dataset
+from support import DEMO, run_main, tree_hash, write_dataset
 
 import comparo
 from comparo.csvsafe import neutralise, to_csv
@@ -76,7 +76,7 @@ def test_numbers_and_plain_text_untouched(cell):
 def test_export_neutralises_injected_cells(tmp_path):
     rows = ["o1,Apis mellifera,body_mass,100,mg,,,,s1,=HYPERLINK(1),reported,,,"]
     folder = write_dataset(tmp_path / "inj", rows)
-    proc = run_cli("export", str(folder), "--to", "dwc", "-o", str(tmp_path / "out"))
+    proc = run_main("export", str(folder), "--to", "dwc", "-o", str(tmp_path / "out"))
     assert proc.returncode == 0, proc.stderr
     text = (tmp_path / "out" / "measurementorfact.csv").read_text()
     assert "locator: =HYPERLINK" in text  # inside a longer cell: harmless
@@ -88,9 +88,9 @@ def test_export_leaves_inputs_and_replaces_only_on_success(tmp_path):
     folder = write_dataset(tmp_path / "ds")
     before = tree_hash(folder)
     out = tmp_path / "out"
-    assert run_cli("export", str(folder), "--to", "datapackage", "-o", str(out)).returncode == 0
+    assert run_main("export", str(folder), "--to", "datapackage", "-o", str(out)).returncode == 0
     first = tree_hash(out)
     (folder / "observations.csv").write_text("obs_id\n")  # now invalid
-    assert run_cli("export", str(folder), "--to", "datapackage", "-o", str(out)).returncode == 2
+    assert run_main("export", str(folder), "--to", "datapackage", "-o", str(out)).returncode == 2
     assert tree_hash(out) == first  # the failed export did not touch the old output
     assert before != tree_hash(folder)  # (we changed it ourselves above)

@@ -14,7 +14,7 @@ import unicodedata
 
 import pandas as pd
 import pytest
-from support import OBS_HEADER, SOURCES, VALID_ROWS, run_cli, tree_hash, write_dataset
+from support import OBS_HEADER, SOURCES, VALID_ROWS, run_cli, run_main, tree_hash, write_dataset
 
 from comparo.cli import main
 
@@ -315,7 +315,7 @@ def test_huge_sample_size_is_rejected_at_its_cell(tmp_path):
     column and value (it used to pass check and crash export with exit 3)."""
     folder = tmp_path / "n"
     CASES["n-huge"](folder)
-    proc = run_cli("check", str(folder), "--format", "json")
+    proc = run_main("check", str(folder), "--format", "json")
     assert proc.returncode == 2, proc.stdout + proc.stderr
     hits = [p for p in json.loads(proc.stdout)["problems"] if p["severity"] == "error"]
     assert [(p["file"], p["row"], p["column"], p["value"], p["rule"]) for p in hits] == [

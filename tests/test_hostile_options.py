@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import pytest
-from support import DEMO, run_cli
+from support import DEMO, run_main
 
 FIT = ["fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed"]
 
@@ -25,7 +25,7 @@ CASES = {
 @pytest.mark.parametrize("case", sorted(CASES))
 def test_bad_option_is_exit_2_with_the_rule(tmp_path, case):
     argv, words = CASES[case]
-    proc = run_cli(*[a.format(tmp=tmp_path) for a in argv], timeout=60)
+    proc = run_main(*[a.format(tmp=tmp_path) for a in argv])
     assert proc.returncode == 2, (proc.stdout[-500:], proc.stderr)
     assert words in proc.stderr and "Traceback" not in proc.stderr, proc.stderr
     assert not (tmp_path / "rep").exists()
@@ -44,7 +44,7 @@ def test_api_refuses_the_same_values():
 
 def test_minimum_bootstrap_runs():
     """200 resamples (the floor) is accepted and gives ordered percentile and BCa ends."""
-    proc = run_cli(*FIT, "--bootstrap", "200", "--format", "json")
+    proc = run_main(*FIT, "--bootstrap", "200", "--format", "json")
     assert proc.returncode == 0, proc.stderr
     import json
 

@@ -2,7 +2,11 @@
 
 Every command that writes is pointed at its own input, at special files and at
 paths of the wrong kind. The dataset must stay byte-identical, special files
-must keep their kind, and every refusal is exit 2 naming the path."""
+must keep their kind, and every refusal is exit 2 naming the path.
+
+The path checks run in this process (``support.run_main``); the writes to a FIFO, to
+standard output and to character devices go through a fresh interpreter (``run_cli``), whose
+file descriptors 1 and 2 are real pipes."""
 
 from __future__ import annotations
 
@@ -11,7 +15,7 @@ import shutil
 import stat
 
 import pytest
-from support import DEMO, run_cli, tree_hash, write_dataset
+from support import DEMO, run_cli, run_main, tree_hash, write_dataset
 
 
 @pytest.fixture
@@ -36,7 +40,7 @@ INTO_INPUT = {
 def test_output_inside_the_input_is_refused_and_the_input_unchanged(ds, case):
     before = tree_hash(ds)
     argv = [a.format(ds=ds) for a in INTO_INPUT[case]]
-    proc = run_cli(*argv, timeout=120)
+    proc = run_main(*argv)
     assert proc.returncode == 2, (proc.stdout, proc.stderr)
     assert "inside the input dataset folder" in proc.stderr and "Traceback" not in proc.stderr
     assert tree_hash(ds) == before
@@ -47,7 +51,7 @@ def test_symlinked_dataset_and_output_are_resolved(ds, tmp_path):
     link.symlink_to(ds, target_is_directory=True)
     before = tree_hash(ds)
     for argv in (["table", str(link), "-o", str(ds / "t.csv")], ["table", str(ds), "-o", str(link / "t.csv")]):
-        proc = run_cli(*argv)
+        proc = run_main(*argv)
         assert proc.returncode == 2 and "inside the input dataset folder" in proc.stderr, proc.stderr
     assert tree_hash(ds) == before
 
@@ -55,9 +59,9 @@ def test_symlinked_dataset_and_output_are_resolved(ds, tmp_path):
 def test_a_folder_holding_a_dataset_is_not_an_output_folder(ds, tmp_path):
     other = write_dataset(tmp_path / "other")
     before = tree_hash(other)
-    proc = run_cli("export", str(ds), "--to", "dwc", "-o", str(other))
+    proc = run_main("export", str(ds), "--to", "dwc", "-o", str(other))
     assert proc.returncode == 2 and "holds a dataset" in proc.stderr
-    proc = run_cli("demo", "-o", str(other), "--quiet")
+    proc = run_main("demo", "-o", str(other), "--quiet")
     assert proc.returncode == 2 and "holds a dataset" in proc.stderr
     assert tree_hash(other) == before
 
@@ -82,7 +86,7 @@ def test_symlink_is_written_through_and_kept(ds, tmp_path):
     real.write_text("old\n")
     link = tmp_path / "link.csv"
     link.symlink_to(real)
-    proc = run_cli("table", str(ds), "-o", str(link))
+    proc = run_main("table", str(ds), "-o", str(link))
     assert proc.returncode == 0, proc.stderr
     assert link.is_symlink() and os.readlink(link) == str(real)
     assert real.read_text().startswith("taxon")
@@ -120,7 +124,7 @@ def test_wrong_kinds_of_output_path(ds, tmp_path):
         (["report", str(ds), "-o", str(a_file / "rep")], "is a file, not a folder"),
     ]
     for argv, words in cases:
-        proc = run_cli(*argv)
+        proc = run_main(*argv)
         assert proc.returncode == 2, (argv, proc.stderr)
         assert words in proc.stderr and "Traceback" not in proc.stderr, proc.stderr
     assert a_file.read_text() == "x"
@@ -132,7 +136,7 @@ def test_read_only_folder_is_refused_before_the_work(ds, tmp_path):
     ro.mkdir()
     ro.chmod(0o500)
     try:
-        proc = run_cli("report", str(ds), "-o", str(ro / "rep"))
+        proc = run_main("report", str(ds), "-o", str(ro / "rep"))
         assert proc.returncode == 2 and "not writable" in proc.stderr
     finally:
         ro.chmod(0o700)

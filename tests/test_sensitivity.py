@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
-from support import DEMO, run_cli, write_dataset
+from support import DEMO, run_main, write_dataset
 
 from comparo.dataset import load
 from comparo.lines import fit
@@ -209,7 +209,7 @@ def test_cli_sensitivity_on_demo():
     among the three most influential sources; 1000 Monte Carlo draws by default."""
     planted = _planted_demo_sources("body_mass", "frequency_observed")
     assert planted
-    out = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "sma",
+    out = run_main("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "sma",
                   "--sensitivity", "--format", "json")
     assert out.returncode == 0, out.stderr
     d = json.loads(out.stdout)["sensitivity"]

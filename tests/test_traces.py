@@ -9,7 +9,7 @@ import os
 
 import numpy as np
 import pytest
-from support import VALID_ROWS, run_cli, tree_hash, write_dataset
+from support import VALID_ROWS, run_main, tree_hash, write_dataset
 
 HEADER = "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,y_column,y_unit,temperature_c,muscle"
 DL_MM, DF_MN, PHI, F_HZ = 0.3, 40.0, 0.7, 18.0  # work loop: length amplitude mm, force amplitude mN, force lag rad
@@ -58,7 +58,7 @@ def _traces(proc):
 
 def test_cycles_json_in_si_with_unit_conversions(traced):
     before = tree_hash(traced)
-    got = _traces(run_cli("cycles", str(traced), "--format", "json"))
+    got = _traces(run_main("cycles", str(traced), "--format", "json"))
     w_expected = math.pi * (DL_MM * 1e-3) * (DF_MN * 1e-3) * math.sin(PHI)  # J, analytic sinusoid loop
     w1, w2, s1 = got["W1"], got["W2"], got["S1"]
     assert w1["frequency"] == pytest.approx(F_HZ, rel=1e-3)
@@ -81,7 +81,7 @@ def test_cycles_json_in_si_with_unit_conversions(traced):
 
 
 def test_results_enter_the_table_as_computed_values_with_lineage(traced, tmp_path):
-    proc = run_cli("table", str(traced), "-o", str(tmp_path / "t.csv"))
+    proc = run_main("table", str(traced), "-o", str(tmp_path / "t.csv"))
     assert proc.returncode == 0, proc.stderr
     import pandas as pd
 
@@ -91,7 +91,7 @@ def test_results_enter_the_table_as_computed_values_with_lineage(traced, tmp_pat
     assert set(apis["net_work_obs"].split(";")) == {"W1:net_work", "W2:net_work"}
     assert apis["net_work_n"] == 2
     assert tab.loc["Bombus terrestris", "loop_area_basis"] == "computed"
-    audit = json.loads(run_cli("audit", str(traced), "--format", "json").stdout)
+    audit = json.loads(run_main("audit", str(traced), "--format", "json").stdout)
     assert audit["balanced"] and audit["basis_shares"]["net_work"] == {"computed": 1.0}
     from comparo import load
     from comparo.provenance import lineage
@@ -110,13 +110,13 @@ def test_results_enter_the_table_as_computed_values_with_lineage(traced, tmp_pat
 
 
 def test_exports_carry_the_trace_results(traced, tmp_path):
-    assert run_cli("export", str(traced), "--to", "dwc", "-o", str(tmp_path / "dwc")).returncode == 0
+    assert run_main("export", str(traced), "--to", "dwc", "-o", str(tmp_path / "dwc")).returncode == 0
     import pandas as pd
 
     mof = pd.read_csv(tmp_path / "dwc" / "measurementorfact.csv").set_index("measurementID")
     assert mof.loc["W1:net_work", "measurementUnit"] == "J"
     assert "trace W1" in mof.loc["W1:net_work", "measurementRemarks"]
-    assert run_cli("export", str(traced), "--to", "datapackage", "-o", str(tmp_path / "dp")).returncode == 0
+    assert run_main("export", str(traced), "--to", "datapackage", "-o", str(tmp_path / "dp")).returncode == 0
     pkg = json.loads((tmp_path / "dp" / "datapackage.json").read_text())
     assert "cycles" in [r["name"] for r in pkg["resources"]]
     cyc = pd.read_csv(tmp_path / "dp" / "cycles.csv")
@@ -124,24 +124,24 @@ def test_exports_carry_the_trace_results(traced, tmp_path):
 
 
 def test_check_passes_and_csv_output_file(traced, tmp_path):
-    assert run_cli("check", str(traced)).returncode == 0
+    assert run_main("check", str(traced)).returncode == 0
     out = tmp_path / "c.csv"
-    proc = run_cli("cycles", str(traced), "--format", "csv", "-o", str(out))
+    proc = run_main("cycles", str(traced), "--format", "csv", "-o", str(out))
     assert proc.returncode == 0, proc.stderr
     import pandas as pd
 
     frame = pd.read_csv(out)
     assert list(frame["trace_id"]) == ["W1", "W2", "S1"] and "net_work_sd" in frame
-    text = run_cli("cycles", str(traced))
+    text = run_main("cycles", str(traced))
     assert text.returncode == 0 and "W1" in text.stdout and "net work" in text.stdout
-    inside = run_cli("cycles", str(traced), "-o", str(traced / "out.json"))
+    inside = run_main("cycles", str(traced), "-o", str(traced / "out.json"))
     assert inside.returncode == 2 and not (traced / "out.json").exists()
 
 
 def test_implied_odd_modulus_from_a_measured_work_density(traced):
     obs = traced / "observations.csv"
     obs.write_text(obs.read_text() + "o9,Bombus terrestris,work_density,2,J/m^3,,,,s2,Table 4,reported,,,\n")
-    s1 = _traces(run_cli("cycles", str(traced), "--format", "json"))["S1"]
+    s1 = _traces(run_main("cycles", str(traced), "--format", "json"))["S1"]
     assert s1["odd_modulus_implied"] == pytest.approx(2.0 / s1["loop_area"], rel=1e-12)
 
 
@@ -169,7 +169,7 @@ def test_hostile_traces_all_reported_in_one_pass(traced, tmp_path):
     ]
     (traced / "traces.csv").write_text("\n".join(lines + bad) + "\n")
     before = tree_hash(traced)
-    proc = run_cli("check", str(traced), "--format", "json")
+    proc = run_main("check", str(traced), "--format", "json")
     assert proc.returncode == 2
     probs = json.loads(proc.stdout)["problems"]
     found = {(p["file"], p["row"], p["column"], p["rule"]) for p in probs if p["severity"] == "error"}
@@ -191,7 +191,7 @@ def test_hostile_traces_all_reported_in_one_pass(traced, tmp_path):
     assert ("traces.csv", r["W1b"], "temperature_c", "temperature_c-number") in found
     # every later command refuses with the same messages (exit 2, never a traceback)
     for cmd in (["cycles", str(traced)], ["table", str(traced)], ["audit", str(traced)], ["derive", str(traced)]):
-        p = run_cli(*cmd)
+        p = run_main(*cmd)
         assert p.returncode == 2, (cmd, p.stderr)
         assert "Traceback" not in p.stderr and "traces.csv" in p.stderr
     assert tree_hash(traced) == before
@@ -199,7 +199,7 @@ def test_hostile_traces_all_reported_in_one_pass(traced, tmp_path):
 
 def test_many_bad_cells_are_counted_not_dropped(traced):
     (traced / "s1.csv").write_text("t_s,axial_pct,radial_pct\n" + "\n".join(f"{i},x{i},1" for i in range(100)) + "\n")
-    proc = run_cli("check", str(traced), "--format", "json")
+    proc = run_main("check", str(traced), "--format", "json")
     assert proc.returncode == 2
     probs = [p for p in json.loads(proc.stdout)["problems"] if p["file"] == "s1.csv"]
     assert len(probs) == 21 and "80 more" in probs[-1]["message"]

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import json
 
-from support import run_cli, tree_hash, write_dataset
+from support import run_main, tree_hash, write_dataset
 
 TREE = "((Apis_mellifera:1,Bombus_terrestris:1):1,Musca_domestica:2);\n"
 
@@ -20,7 +20,7 @@ def _ds(tmp_path, taxa: str | None, tree: str = TREE):
 
 
 def _problems(ds):
-    proc = run_cli("check", str(ds), "--format", "json")
+    proc = run_main("check", str(ds), "--format", "json")
     return proc, json.loads(proc.stdout)["problems"]
 
 
@@ -36,7 +36,7 @@ def test_one_accepted_taxon_on_two_tips_is_an_error_naming_both(tmp_path):
     two = [p for p in probs if p["rule"] == "tree-two-tips"]
     assert len(two) == 1 and "Bombus_terrestris" in two[0]["message"] and "Musca_domestica" in two[0]["message"]
     assert two[0]["file"] == "taxa.csv" and two[0]["row"] == 2
-    fit = run_cli("fit", str(ds), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls")
+    fit = run_main("fit", str(ds), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls")
     assert fit.returncode == 2 and "tree-two-tips" in fit.stderr, fit.stderr
     assert tree_hash(ds) == before
 

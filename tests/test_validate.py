@@ -10,7 +10,7 @@ import string
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from support import OBS_HEADER, SOURCES, VALID_ROWS, run_cli, tree_hash, write_dataset
+from support import OBS_HEADER, SOURCES, VALID_ROWS, run_cli, run_main, tree_hash, write_dataset
 
 from comparo.validate import check
 
@@ -82,7 +82,7 @@ CELL_CASES = [
 def test_malformed_cell_exit_2_names_file_row_column(tmp_path, name, rows, rule, row, column):
     folder = write_dataset(tmp_path / name, rows)
     before = tree_hash(folder)
-    proc = run_cli("check", str(folder), "--format", "json")
+    proc = run_main("check", str(folder), "--format", "json")
     assert proc.returncode == 2, proc.stdout + proc.stderr
     assert "Traceback" not in proc.stderr + proc.stdout
     out = json.loads(proc.stdout)
@@ -122,7 +122,7 @@ def test_bad_files_exit_2_with_clear_message(tmp_path, name, make, rule):
     folder = tmp_path / name
     make(folder)
     before = tree_hash(folder)
-    proc = run_cli("check", str(folder))
+    proc = run_main("check", str(folder))
     assert proc.returncode == 2, proc.stdout + proc.stderr
     text = proc.stdout + proc.stderr
     assert "Traceback" not in text
@@ -131,14 +131,14 @@ def test_bad_files_exit_2_with_clear_message(tmp_path, name, make, rule):
 
 
 def test_missing_folder_exit_2(tmp_path):
-    proc = run_cli("check", str(tmp_path / "nope"))
+    proc = run_cli("check", str(tmp_path / "nope"))  # the real entry point: exit status of the process
     assert proc.returncode == 2 and "does not exist" in proc.stderr and "Traceback" not in proc.stderr
 
 
 def test_warnings_do_not_fail_but_strict_does(tmp_path):
     folder = write_dataset(tmp_path / "w", _rows(2, ",30", ","))  # frequency without temperature
-    assert run_cli("check", str(folder)).returncode == 0
-    assert run_cli("check", str(folder), "--strict").returncode == 1
+    assert run_main("check", str(folder)).returncode == 0
+    assert run_main("check", str(folder), "--strict").returncode == 1
 
 
 def test_encodings_utf16_bom_and_latin1(tmp_path):
