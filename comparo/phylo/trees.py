@@ -113,6 +113,14 @@ def _preorder(tree: Any) -> list:
 
 
 def _topology(tree: Any) -> _Topo:
+    """The pre-order record of a tree: a :class:`Topology` as it is, the one a
+    :class:`comparo.io.DeferredTree` already holds (read by :mod:`comparo.newick`, so
+    dendropy is neither imported nor walked), else one pass over the dendropy tree."""
+    if isinstance(tree, _Topo):
+        return tree
+    held = tree.__dict__.get("topology") if hasattr(tree, "__dict__") else None
+    if isinstance(held, _Topo):
+        return held
     nodes = _preorder(tree)
     index = {id(nd): i for i, nd in enumerate(nodes)}
     parent = [-1] * len(nodes)
