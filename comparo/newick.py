@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
+from functools import cached_property
 
 _TOKEN = re.compile(
     r"""[ \t\n\r]*(?:
@@ -51,9 +52,15 @@ class Topology:
     leaf: dict[int, str | None]
     inner_label: list[str | None]
 
-    @property
+    @cached_property
     def tips(self) -> list[str]:
+        """Leaf labels in pre-order (computed once; do not modify the list)."""
         return [str(v) for v in self.leaf.values()]
+
+    @cached_property
+    def node_of(self) -> dict[str, int]:
+        """Leaf label -> node index (the last leaf of a label written twice)."""
+        return {str(lab): i for i, lab in self.leaf.items()}
 
 
 def _tokens(text: str) -> list[tuple[str, str]] | None:

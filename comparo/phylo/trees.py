@@ -4,6 +4,8 @@
 from __future__ import annotations
 
 import math
+import re
+from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -24,6 +26,23 @@ def _tree_problem(file: str, rule: str, message: str, hint: str = "", value: str
 def _norm(label: str) -> str:
     """Matching key: underscores as spaces, runs of white space collapsed, case folded."""
     return " ".join(str(label).replace("_", " ").split()).casefold()
+
+
+_WHITE = re.compile(r"\s+")  # the same characters as str.split() splits on
+_EDGE_WHITE = re.compile(r" ?\x00 ?")
+
+
+def _norm_all(labels: Sequence[str]) -> list[str]:
+    """:func:`_norm` of every label, in a few passes over one joined string (case folding
+    and white space are per character, so the joined text folds as its parts do)."""
+    labels = [str(v) for v in labels]
+    text = "\x00".join(labels)
+    if not labels or text.count("\x00") != len(labels) - 1:  # a label holding the separator
+        return [_norm(v) for v in labels]
+    text = text.replace("_", " ")
+    if _WHITE.search(text):
+        text = _EDGE_WHITE.sub("\x00", _WHITE.sub(" ", text)).strip(" ")
+    return text.casefold().split("\x00")
 
 
 
