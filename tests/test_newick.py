@@ -198,3 +198,13 @@ def test_check_on_the_demo_does_not_import_dendropy(demo_copy):
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert proc.stdout.strip().splitlines()[-1] == "RESULT 0 False True"  # tree rules ran, without dendropy
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.text(alphabet=st.sampled_from(list("aAbB_ -ÉéßΣσς\t\n\xa0\u2003\x1c\x85İ\x00")), max_size=6), max_size=8))
+def test_folding_many_labels_at_once_equals_folding_each(labels):
+    """Tip matching folds all labels in one pass over a joined string; the keys equal
+    those of folding each label alone (str.split, str.casefold: Python's own rules)."""
+    from comparo.phylo.trees import _norm, _norm_all
+
+    assert _norm_all(labels) == [_norm(v) for v in labels]

@@ -170,32 +170,34 @@ def _check(topo: _Topo, name: str) -> None:
     labels = list(topo.leaf.values())
     if any(lab is None or str(lab).strip() == "" for lab in labels):
         raise _tree_problem(name, "tree-tip-label", f"{sum(lab is None or not str(lab).strip() for lab in labels)} tip(s) without a label")
-    seen: dict[str, int] = {}
-    for lab in labels:
-        seen[lab] = seen.get(lab, 0) + 1
-    dups = sorted(k for k, c in seen.items() if c > 1)
+    dups: list[str] = []
+    if len(set(labels)) < len(labels):
+        seen: dict[str, int] = {}
+        for lab in labels:
+            seen[lab] = seen.get(lab, 0) + 1
+        dups = sorted(k for k, c in seen.items() if c > 1)
     if dups:
         raise _tree_problem(
             name, "tree-duplicate-tip", f"duplicate tip label(s): {', '.join(dups[:10])}", "each tip label must occur once", value=dups[0]
         )
-    missing, negative = [], []
-    for i in range(1, len(topo.parent)):
-        length = topo.length[i]
-        where = topo.leaf.get(i) or topo.inner_label[i] or "an internal node"
-        if length is None:
-            missing.append(where)
-        elif not math.isfinite(length) or length < 0:
-            negative.append(where)
+    lengths = topo.length
+    inf = math.inf
+    missing = [i for i, v in enumerate(lengths) if v is None and i > 0]
+    negative = [i for i, v in enumerate(lengths) if v is not None and not 0 <= v < inf and i > 0]  # also NaN, inf
+
+    def where(i: int) -> str:
+        return topo.leaf.get(i) or topo.inner_label[i] or "an internal node"
+
     if missing:
         raise _tree_problem(
             name,
             "tree-branch-lengths",
-            f"{len(missing)} edge(s) without a branch length (e.g. above {missing[0]!r}); phylogenetic fits need branch lengths",
+            f"{len(missing)} edge(s) without a branch length (e.g. above {where(missing[0])!r}); phylogenetic fits need branch lengths",
             "write every edge as label:length, e.g. (A:1.2,B:0.8):0.5",
         )
     if negative:
         raise _tree_problem(
-            name, "tree-branch-lengths", f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {negative[0]!r})"
+            name, "tree-branch-lengths", f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {where(negative[0])!r})"
         )
 
 
