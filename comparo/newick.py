@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
+from functools import cached_property
 
 _TOKEN = re.compile(
     r"""[ \t\n\r]*(?:
@@ -51,9 +52,27 @@ class Topology:
     leaf: dict[int, str | None]
     inner_label: list[str | None]
 
-    @property
+    @cached_property
     def tips(self) -> list[str]:
+        """Leaf labels in pre-order (computed once; do not modify the list)."""
         return [str(v) for v in self.leaf.values()]
+
+    @cached_property
+    def node_of(self) -> dict[str, int]:
+        """Leaf label -> node index (the last leaf of a label written twice)."""
+        return {str(lab): i for i, lab in self.leaf.items()}
+
+
+def _plain_words(text: str) -> list[str] | None:
+    """Text without quotes or comments split into [word, punct, word, ..., punct, word]
+    (words may be empty); ``None`` when a word holds white space."""
+    pieces = _SPLIT.split(text)
+    if _SPACE.search(text):
+        words = [w.strip(" \t\n\r") for w in pieces[0::2]]
+        if any(_SPACE.search(w) for w in words if w):
+            return None
+        pieces[0::2] = words
+    return pieces
 
 
 def _tokens(text: str) -> list[tuple[str, str]] | None:
@@ -62,12 +81,10 @@ def _tokens(text: str) -> list[tuple[str, str]] | None:
     if _ODD.search(text):  # characters dendropy's tokenizer treats as its own tokens
         return None
     if "'" not in text and "[" not in text:  # the common case: split on punctuation in C
-        pieces = _SPLIT.split(text)
+        pieces = _plain_words(text)
+        if pieces is None:
+            return None
         words = pieces[0::2]
-        if _SPACE.search(text):
-            words = [w.strip(" \t\n\r") for w in words]
-            if any(_SPACE.search(w) for w in words if w):
-                return None
         out = []
         append = out.append
         for word, punct in zip(words, pieces[1::2], strict=False):  # one more word than punctuation
@@ -91,6 +108,9 @@ def parse(text: str) -> Topology | None:
     """The topology of one Newick tree, or ``None`` when *text* is not plain Newick
     this reader is sure of (the caller then uses dendropy). A missing final ``;``
     is accepted; the length of a root edge is not kept (``length[0]`` is ``None``)."""
+    if "'" not in text and "[" not in text and not _ODD.search(text):
+        pieces = _plain_words(text)
+        return None if pieces is None else _parse_plain(pieces)
     tokens = _tokens(text)
     if tokens is None:
         return None
@@ -145,6 +165,78 @@ def parse(text: str) -> Topology | None:
             label[cur] = value.replace("''", "'") if kind == "quoted" else value
     if expect_length or parent[cur] >= 0:
         return None
+    length[0] = None
+    leaf = {i: label[i] for i in range(len(parent)) if n_child[i] == 0}
+    if any(lab is None for lab in leaf.values()):
+        return None  # dendropy reads empty leaves its own way; it also reports them
+    inner = [None if n_child[i] == 0 else label[i] for i in range(len(parent))]
+    return Topology(parent, length, leaf, inner)
+
+
+_NUMBERS = re.compile(r"[0-9.eE+\n-]*")  # the characters of the lengths (the grammar is float's)
+
+
+def _parse_plain(pieces: list[str]) -> Topology | None:
+    """:func:`parse` for text without quotes or comments, from [word, punct, word, ...]:
+    the same rules, one step per punctuation mark with the word after it."""
+    parent = [-1]
+    label: list[str | None] = [pieces[0] or None]
+    has_len = [False]
+    n_child = [0]
+    len_node: list[int] = []
+    len_word: list[str] = []
+    cur = 0
+    ended = False
+    for j in range(1, len(pieces), 2):
+        p = pieces[j]
+        w = pieces[j + 1]
+        if ended:
+            return None  # a second tree or text after the ';'
+        if p == ":":
+            if not w or has_len[cur]:
+                return None
+            has_len[cur] = True
+            len_node.append(cur)
+            len_word.append(w)
+            continue
+        if p == "(" or p == ",":
+            if p == "(":
+                if label[cur] is not None or has_len[cur] or n_child[cur]:
+                    return None
+                up = cur
+            else:
+                up = parent[cur]
+                if up < 0:
+                    return None
+            parent.append(up)
+            label.append(None)
+            has_len.append(False)
+            n_child.append(0)
+            n_child[up] += 1
+            cur = len(parent) - 1
+        elif p == ")":
+            cur = parent[cur]
+            if cur < 0:
+                return None
+        else:  # ';'
+            if parent[cur] >= 0:
+                return None  # before the tree is closed
+            ended = True
+        if w:
+            if ended or label[cur] is not None or has_len[cur]:
+                return None
+            label[cur] = w
+    if parent[cur] >= 0:
+        return None
+    if len_word and not _NUMBERS.fullmatch("\n".join(len_word)):
+        return None
+    try:
+        values = list(map(float, len_word))  # with only those characters, float's grammar is _NUMBER's
+    except ValueError:
+        return None
+    length: list[float | None] = [None] * len(parent)
+    for node, v in zip(len_node, values, strict=True):
+        length[node] = v
     length[0] = None
     leaf = {i: label[i] for i in range(len(parent)) if n_child[i] == 0}
     if any(lab is None for lab in leaf.values()):

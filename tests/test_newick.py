@@ -3,6 +3,9 @@ reader: an independent, general-purpose library) on random and hand-written tree
 
 from __future__ import annotations
 
+import subprocess
+import sys
+
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -133,3 +136,75 @@ def test_read_newick_still_reports_dendropy_syntax_errors(tmp_path):
     path.write_text("(A:1,B:1);(C:1,D:1);", encoding="utf-8")
     tree, _, probs = read_newick(path)
     assert tree is None and [p.rule for p in probs] == ["newick-syntax"]
+
+
+# ------------------------------------------------------------------ the gate's tree rules
+
+def _mutated_tree(seed: int) -> str:
+    """A random tree whose tips partly carry the dataset's taxon names (as written,
+    with underscores, or folded), sometimes with a duplicate tip, an edge without a
+    length or a negative length: the cases the tree rules of ``check`` report."""
+    import re
+
+    import numpy as np
+
+    rng = np.random.default_rng(seed)
+    text = phylo.random_newick(int(rng.integers(3, 40)), seed, ultrametric=bool(rng.integers(2)), polytomy=0.2)
+    names = ["Apis_mellifera", "Bombus terrestris", "'apis mellifera'", "Bombus_terrestris", "Musca_domestica", "Apis_melifera"]
+    tips = re.findall(r"t\d+(?=:)", text)
+    for tip in rng.choice(tips, size=min(len(tips), int(rng.integers(0, 4))), replace=False):
+        name = str(rng.choice(names))
+        text = re.sub(rf"\b{tip}(?=:)", name if " " not in name or name.startswith("'") else f"'{name}'", text)
+    kind = int(rng.integers(0, 5))
+    if kind == 1:  # a duplicate tip
+        text = re.sub(rf"\b{tips[0]}(?=:)", tips[-1], text) if len(tips) > 1 else text
+    elif kind == 2:  # an edge without a length
+        text = re.sub(r":[0-9.e-]+", "", text, count=1)
+    elif kind == 3:  # a negative length
+        text = re.sub(r":([0-9])", r":-\1", text, count=1)
+    return text
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_tree_rules_of_check_on_the_fast_topology_equal_those_on_dendropys_tree(tmp_path, seed):
+    """``check``'s tree rules (labels, duplicates, branch lengths, tips per taxon) read
+    the topology the one-pass reader built, without building dendropy's tree; the
+    problems are the same as on the tree dendropy (the reference reader) builds from
+    the same text."""
+    from support import write_dataset
+
+    from comparo.dataset import load
+
+    folder = write_dataset(tmp_path / "ds")
+    (folder / "tree.nwk").write_text(_mutated_tree(seed), encoding="utf-8")
+    if seed % 3 == 0:
+        (folder / "taxa.csv").write_text("taxon,accepted_name,tree_label\nApis mellifera,,Apis_mellifera\n"
+                                         "Bombus terrestris,,\n", encoding="utf-8")
+    ds = load(folder, strict=False)
+    if not isinstance(ds.tree, DeferredTree):  # a case the fast reader leaves to dendropy
+        return
+    ours = phylo.tree_problems(ds)
+    assert ds.tree._tree is None  # dendropy's tree was not built
+    ds.tree = ds.tree.tree  # the same text read by dendropy
+    assert ours == phylo.tree_problems(ds)
+
+
+def test_check_on_the_demo_does_not_import_dendropy(demo_copy):
+    """The demo's tree is plain Newick: ``comparo check`` runs its tree rules on the
+    one-pass reader's topology, and dendropy is never imported."""
+    code = ("import sys\nfrom comparo.cli import main\n"
+            f"rc = main(['check', {str(demo_copy)!r}, '--format', 'json'])\n"
+            "print('RESULT', rc, 'dendropy' in sys.modules, 'comparo.phylo.tips' in sys.modules)\n")
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    assert proc.stdout.strip().splitlines()[-1] == "RESULT 0 False True"  # tree rules ran, without dendropy
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.text(alphabet=st.sampled_from(list("aAbB_ -ÉéßΣσς\t\n\xa0\u2003\x1c\x85İ\x00")), max_size=6), max_size=8))
+def test_folding_many_labels_at_once_equals_folding_each(labels):
+    """Tip matching folds all labels in one pass over a joined string; the keys equal
+    those of folding each label alone (str.split, str.casefold: Python's own rules)."""
+    from comparo.phylo.trees import _norm, _norm_all
+
+    assert _norm_all(labels) == [_norm(v) for v in labels]

@@ -80,12 +80,14 @@ def gls_quantities(ft: FlatTree, Z: np.ndarray, edges: np.ndarray | None = None,
                      f"tip edge(s) of length 0 ({', '.join(bad)}): the tip variance is 0 and the covariance cannot be inverted this way",
                      "give tip edges a positive length, use lambda < 1, or add measurement error")]
         )
-    w = m if diag_only else m * m
+    # W is symmetric: only its upper triangle (row-major) is carried, or only its diagonal
+    iu, ju = (np.arange(m), np.arange(m)) if diag_only else np.triu_indices(m)
+    w = iu.size
     S = np.zeros((N, 2 + m + w))  # packed per-node state: L, p, q (m), W (w)
     S[:n, 0] = np.log(tt)
     S[:n, 1] = 1.0 / tt
     S[:n, 2 : 2 + m] = Z / tt[:, None]
-    S[:n, 2 + m :] = (Z * Z / tt[:, None]) if diag_only else (Z[:, :, None] * Z[:, None, :]).reshape(n, w) / tt[:, None]
+    S[:n, 2 + m :] = Z[:, iu] * Z[:, ju] / tt[:, None]
     bounds = ft.bounds
     for k in range(len(bounds) - 1):
         a, b = int(bounds[k]), int(bounds[k + 1])
@@ -96,14 +98,16 @@ def gls_quantities(ft: FlatTree, Z: np.ndarray, edges: np.ndarray | None = None,
             blk[:, 0] += np.log(d)
             qa = blk[:, 2 : 2 + m]
             c = (te / d)[:, None]
-            if diag_only:
-                blk[:, 2 + m :] -= c * qa * qa
-            else:
-                blk[:, 2 + m :] -= c * (qa[:, :, None] * qa[:, None, :]).reshape(b - a, w)
+            blk[:, 2 + m :] -= c * (qa * qa if diag_only else qa[:, iu] * qa[:, ju])
             blk[:, 1:2 + m] /= d[:, None]
         if k < len(bounds) - 2:
             starts, parents = ft.segments[k]
             S[parents] += np.add.reduceat(blk, starts, axis=0)
     root = S[N - 1]
     Wr = root[2 + m :].copy()
-    return GLSQuantities(float(root[0]), float(root[1]), root[2 : 2 + m].copy(), Wr if diag_only else Wr.reshape(m, m))
+    if not diag_only:
+        full = np.empty((m, m))
+        full[iu, ju] = Wr
+        full[ju, iu] = Wr
+        Wr = full
+    return GLSQuantities(float(root[0]), float(root[1]), root[2 : 2 + m].copy(), Wr)

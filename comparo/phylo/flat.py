@@ -114,69 +114,96 @@ def flat_tree(tree: Any, tips: Sequence[str] | None = None) -> FlatTree:
     return _flat(_as_topo(tree), tips)
 
 
+def _up(par: np.ndarray, w: np.ndarray, stop: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """For every node, its nearest proper ancestor in *stop* (-1 when none; every
+    ancestor when *stop* is None means the search runs to the root, so -1) and the sum
+    of *w* over the edges up to it, by pointer jumping: about log2(depth) numpy passes."""
+    anc = par.copy()
+    d = w.astype(float, copy=True)
+    while True:
+        move = anc >= 0
+        if stop is not None:
+            move[move] = ~stop[anc[move]]
+        if not move.any():
+            return anc, d
+        up = anc[move]
+        d[move] += d[up]
+        anc[move] = anc[up]
+
+
+def _subtree_end(par: np.ndarray) -> np.ndarray:
+    """One past the last descendant of each node, for pre-order *par* (a subtree is
+    the range [i, end[i])): the last child's last descendant, by pointer jumping."""
+    m = par.size
+    last = np.arange(m)
+    np.maximum.at(last, par[1:], np.arange(1, m))
+    while True:
+        nxt = last[last]
+        if np.array_equal(nxt, last):
+            return last + 1
+        last = nxt
+
+
+def _range_max(a: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """max(a[lo[k]:hi[k]]) for non-empty ranges, with a sparse table (O(m log m))."""
+    table = [a]
+    span = 1
+    while 2 * span <= a.size:
+        prev = table[-1]
+        table.append(np.maximum(prev[:-span], prev[span:]))
+        span *= 2
+    length = hi - lo
+    k = np.floor(np.log2(length)).astype(np.int64)
+    k = np.where((1 << (k + 1)) <= length, k + 1, k)  # guard the float log at powers of two
+    k = np.where((1 << k) > length, k - 1, k)
+    out = np.empty(lo.size, dtype=a.dtype)
+    for j in np.unique(k).tolist():
+        sel = np.flatnonzero(k == j)
+        t = table[j]
+        out[sel] = np.maximum(t[lo[sel]], t[hi[sel] - (1 << j)])
+    return out
+
+
 def _flat(topo: _Topo, tips: Sequence[str] | None) -> FlatTree:
-    par_l = topo.parent
-    m = len(par_l)
-    ln_l = [0.0 if v is None else float(v) for v in topo.length]
-    leaf_label = topo.leaf
-    by_label = {lab: i for i, lab in leaf_label.items()}
-    if tips is None:
-        tips = [leaf_label[i] for i in sorted(leaf_label)]
-    tips = [str(t) for t in tips]
-    absent = [t for t in tips if t not in by_label]
-    if absent:
+    """Prune and flatten in numpy over the pre-order arrays (pointer jumping for the
+    root-ward sums, pre-order ranges for the subtrees): no loop over nodes in Python."""
+    par = np.asarray(topo.parent, dtype=np.int64)
+    m = par.size
+    ln = np.array(topo.length, dtype=float)  # None (no length written) reads as nan
+    ln[np.isnan(ln)] = 0.0
+    ln[0] = 0.0
+    by_label = topo.node_of
+    tips = list(topo.tips) if tips is None else [str(t) for t in tips]
+    where = [by_label.get(t, -1) for t in tips]
+    if -1 in where:
+        absent = [t for t, i in zip(tips, where, strict=True) if i < 0]
         raise UsageError(f"tip(s) not in the tree: {', '.join(absent[:10])}")
     if len(set(tips)) < 2:
         raise UsageError("fewer than 2 tips of the tree are kept: no tree-based fit is possible")
     keep_tip = np.zeros(m, dtype=bool)
-    keep_tip[[by_label[t] for t in tips]] = True
-    # kept children counts, post-order (reverse pre-order)
-    n_kept_child = [0] * m
-    kept_l = keep_tip.tolist()
-    for i in range(m - 1, 0, -1):
-        if kept_l[i]:
-            p = par_l[i]
-            n_kept_child[p] += 1
-            kept_l[p] = True
-    tip_l = keep_tip.tolist()
-    ret_l = [k and (t or c >= 2) for k, t, c in zip(kept_l, tip_l, n_kept_child, strict=True)]
-    # nearest retained ancestor-or-self (anc) and path length below it (off), pre-order
-    anc_l = [-1] * m
-    off_l = [0.0] * m
-    np_l = [-1] * m
-    nl_l = [0.0] * m
-    if ret_l[0]:
-        anc_l[0] = 0
-    for i in range(1, m):
-        if not kept_l[i]:
-            continue
-        p = par_l[i]
-        if ret_l[i]:
-            np_l[i] = anc_l[p]
-            nl_l[i] = (off_l[p] + ln_l[i]) if anc_l[p] >= 0 else 0.0
-            anc_l[i], off_l[i] = i, 0.0
-        else:
-            anc_l[i] = anc_l[p]
-            off_l[i] = off_l[p] + ln_l[i] if anc_l[p] >= 0 else 0.0
-    old = [i for i in range(m) if ret_l[i]]  # pre-order among retained nodes
-    pos = {o: k for k, o in enumerate(old)}
-    r = len(old)
-    rpar = [pos[np_l[o]] if np_l[o] >= 0 else -1 for o in old]
-    rlen = [nl_l[o] for o in old]
-    if sum(1 for x in rpar if x < 0) != 1:  # pragma: no cover - guaranteed by construction
+    keep_tip[where] = True
+    # kept: the subtree holds a kept tip; retained: a kept tip, or >= 2 kept children
+    end = _subtree_end(par)
+    cs = np.concatenate([[0], np.cumsum(keep_tip)])
+    kept = cs[end] > cs[:-1]
+    n_kept_child = np.bincount(par[1:][kept[1:]], minlength=m)
+    ret = kept & (keep_tip | (n_kept_child >= 2))
+    # nearest retained proper ancestor and the path length up to it
+    anc, off = _up(par, ln, ret)
+    old = np.flatnonzero(ret)  # pre-order among retained nodes
+    r = old.size
+    new_of = np.cumsum(ret) - 1
+    up = anc[old]
+    rpar_a = np.where(up >= 0, new_of[np.maximum(up, 0)], -1).astype(np.int64)
+    rlen = np.where(up >= 0, off[old], 0.0)
+    if int(np.sum(rpar_a < 0)) != 1:  # pragma: no cover - guaranteed by construction
         raise RuntimeError("pruned tree has no unique root")
-    level = [0] * r
-    for k in range(r - 1, 0, -1):
-        p = rpar[k]
-        if level[k] + 1 > level[p]:
-            level[p] = level[k] + 1
-    dist = [0.0] * r
-    for k in range(1, r):
-        dist[k] = dist[rpar[k]] + rlen[k]
+    # level = edges on the longest path down to a tip = max depth in the subtree - depth
+    depth = _up(rpar_a, np.ones(r))[1].astype(np.int64)
+    level_a = _range_max(depth, np.arange(r), _subtree_end(rpar_a)) - depth
+    dist = _up(rpar_a, rlen)[1]
     # layout: level by level from the root down; within a level, nodes sorted by
     # their parent's position (children of one parent are contiguous)
-    level_a = np.asarray(level)
-    rpar_a = np.asarray(rpar, dtype=np.int64)
     top = int(level_a.max())
     counts = np.bincount(level_a, minlength=top + 1)
     bounds = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
@@ -190,22 +217,22 @@ def _flat(topo: _Topo, tips: Sequence[str] | None) -> FlatTree:
     perm = np.empty(r, dtype=np.int64)
     perm[pos] = np.arange(r)  # new position -> retained index
     parent = np.where(rpar_a[perm] >= 0, pos[np.maximum(rpar_a[perm], 0)], -1)
-    length = np.asarray(rlen)[perm]
+    length = rlen[perm]
     length[parent < 0] = 0.0
     segments = []
     for k in range(top + 1):
         pa = parent[bounds[k]:bounds[k + 1]]
         starts = np.concatenate([[0], np.flatnonzero(np.diff(pa)) + 1]).astype(np.int64)
         segments.append((starts, pa[starts]))
-    old_a = np.asarray(old)
-    labels_by_old = [leaf_label[o] for o in old_a[perm[: len(tips)]].tolist()]
+    label_of = np.empty(m, dtype=object)
+    label_of[where] = tips
     return FlatTree(
-        tips=tuple(labels_by_old),
+        tips=tuple(label_of[old[perm[: len(tips)]]].tolist()),
         parent=parent.astype(np.int64),
         length=length,
         bounds=bounds,
-        root_dist=np.asarray(dist)[perm],
-        order=old_a[perm],
+        root_dist=dist[perm],
+        order=old[perm],
         segments=tuple(segments),
     )
 

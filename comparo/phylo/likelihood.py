@@ -76,7 +76,7 @@ def _gls(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, se2: np.ndarray
     """GLS at lambda; with measurement error, sigma² maximises the (RE)ML likelihood."""
     if se2 is None or not np.any(se2 > 0):
         return _gls_fixed(ft, X, y, lam)
-    from scipy.optimize import minimize_scalar
+    from comparo.phylo.search import minimize_bounded
 
     base = _gls_fixed(ft, X, y, lam)
     s0 = max(base.rss / X.shape[0], 1e-300)
@@ -86,8 +86,8 @@ def _gls(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, se2: np.ndarray
         g = _gls_me(ft, X, y, lam, math.exp(u), se2)
         return -(g.loglik_reml if reml else g.loglik_ml)
 
-    res = minimize_scalar(negll, bounds=(u0 - 25.0, u0 + 5.0), method="bounded", options={"xatol": 1e-7})
-    return _gls_me(ft, X, y, lam, math.exp(float(res.x)), se2)
+    u = minimize_bounded(negll, u0 - 25.0, u0 + 5.0, 1e-7)
+    return _gls_me(ft, X, y, lam, math.exp(u), se2)
 
 
 def _ll(g: _Gls, reml: bool) -> float:
@@ -105,12 +105,16 @@ class _LambdaFit:
     top: float | None  # upper end of the search (1, or 1 - 1e-6 with zero-length tip edges)
 
 
+#: Absolute tolerance of the lambda search and of the ends of its profile interval.
+LAMBDA_XTOL = 1e-6
+
+
 def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: np.ndarray | None, reml: bool, ci: float) -> _LambdaFit:
     """Pagel's lambda: fixed, or maximising the (RE)ML profile likelihood on [0, 1]
-    (a grid of 11 points, then a bounded Brent refinement around the best), with the profile CI
-    {lambda: 2(l_max - l(lambda)) <= chi²_1(ci)}."""
-    from scipy.optimize import brentq, minimize_scalar
-    from scipy.stats import chi2
+    (a grid of 11 points, then a bounded Brent refinement around the best, to
+    :data:`LAMBDA_XTOL`), with the profile CI {lambda: 2(l_max - l(lambda)) <= chi²_1(ci)}
+    (ends to the same tolerance). Every lambda is evaluated once (one linear-time pass)."""
+    from scipy.special import chdtri  # the chi² quantile, without importing scipy.stats
 
     if not (isinstance(lambda_, str) and lambda_.strip().lower() == "ml"):
         try:
@@ -128,54 +132,94 @@ def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: n
     if se2 is not None:
         zero &= se2 <= 0
     top = 1.0 - 1e-6 if np.any(zero) else 1.0
-    cache: dict[float, float] = {}
+    cache: dict[float, _Gls] = {}
 
-    def ll(lam: float) -> float:
+    def fit_at(lam: float) -> _Gls:
         lam = float(min(top, max(0.0, lam)))
         if lam not in cache:
-            cache[lam] = _ll(_gls(ft, X, y, lam, se2, reml), reml)
+            cache[lam] = _gls(ft, X, y, lam, se2, reml)
         return cache[lam]
+
+    def ll(lam: float) -> float:
+        return _ll(fit_at(lam), reml)
 
     grid = np.linspace(0.0, top, 11)
     vals = np.array([ll(v) for v in grid])
+    lam_hat, ll_max = _maximise(ll, grid, vals)
+    crit = float(chdtri(1, 1.0 - ci))
+    lower, upper = _profile_limits(ll, grid, sorted(cache), lam_hat, ll_max, crit, top)
+    return _LambdaFit(lam_hat, (float(lower), float(upper)), ll_max, ll(0.0), ll(top), fit_at(lam_hat), top)
+
+
+def _maximise(ll, grid: np.ndarray, vals: np.ndarray) -> tuple[float, float]:
+    """The maximiser of *ll* around the best grid point: Brent's bounded search on the
+    two grid intervals beside it, to :data:`LAMBDA_XTOL`.
+
+    When the best grid point is an end of [0, top] and *ll* falls from it both one
+    tolerance inwards and at the search's first probe (0.382 of the way to the next
+    grid point), the end is the maximiser on that interval to within the tolerance
+    (for a profile unimodal there, as the search itself assumes) and no search is run:
+    the Brent search would only creep towards the end, about 25 evaluations for 1e-6."""
+    from comparo.phylo.search import minimize_bounded
+
     i = int(np.nanargmax(vals))
-    lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
-    res = minimize_scalar(lambda v: -ll(v), bounds=(lo, hi), method="bounded", options={"xatol": 1e-6})
-    best = max([(float(res.x), ll(float(res.x))), (float(grid[i]), float(vals[i]))], key=lambda t: t[1])
-    lam_hat, ll_max = best
-    crit = float(chi2.ppf(ci, 1))
+    last = len(grid) - 1
+    lo, hi = float(grid[max(i - 1, 0)]), float(grid[min(i + 1, last)])
+    best = (float(grid[i]), float(vals[i]))
+    if i in (0, last):
+        inward = LAMBDA_XTOL if i == 0 else -LAMBDA_XTOL
+        probe = lo + 0.5 * (3.0 - math.sqrt(5.0)) * (hi - lo)  # the search's first point
+        if ll(best[0] + inward) <= best[1] and ll(probe) <= best[1]:
+            return best
+    x = minimize_bounded(lambda v: -ll(v), lo, hi, LAMBDA_XTOL)
+    return max([(float(x), ll(float(x))), best], key=lambda t: t[1])
+
+
+def _profile_limits(ll, grid: np.ndarray, seen: list[float], lam_hat: float, ll_max: float, crit: float,
+                    top: float) -> tuple[float, float]:
+    """Ends of the profile interval: on each side of *lam_hat*, the root of
+    g = 2(l_max - l) - crit between the nearest grid point outside the region (g > 0)
+    and the next grid point inwards, bracketed as tightly as the lambdas already
+    evaluated (*seen*) allow; 0 or *top* when no grid point on that side is outside."""
+    from comparo.phylo.search import root_bracketed
 
     def g(v: float) -> float:
         return 2.0 * (ll_max - ll(v)) - crit
 
-    # lower limit: last grid point below lam_hat outside the region, root between it and the next
-    below = [v for v in grid if v < lam_hat]
-    lower = 0.0
-    for v in reversed(below):
-        if g(v) > 0:
-            right = min([w for w in grid if w > v] + [lam_hat])
-            right = min(right, lam_hat)
-            lower = brentq(g, v, right, xtol=1e-6) if g(right) < 0 else right
+    def root(out: float, inner: float) -> float:
+        """Root between *out* (g > 0) and *inner* (the next grid point or lam_hat)."""
+        if g(inner) >= 0:
+            return inner
+        d = 1.0 if inner > out else -1.0  # the direction from out to inner
+        between = sorted((v for v in seen if min(out, inner) < v < max(out, inner)), key=lambda v: d * v)
+        for v in between:  # the known point outside the region nearest to inner
+            if g(v) > 0:
+                out = v
+        inner = next((v for v in between if d * v > d * out and g(v) <= 0), inner)  # then the nearest inside
+        a, b = sorted((out, inner))
+        return root_bracketed(g, a, b, LAMBDA_XTOL, g(a), g(b))
+
+    lower, upper = 0.0, top
+    below = [float(v) for v in grid if v < lam_hat]
+    for k in range(len(below) - 1, -1, -1):
+        if g(below[k]) > 0:
+            lower = root(below[k], min(below[k + 1] if k + 1 < len(below) else lam_hat, lam_hat))
             break
-    above = [v for v in grid if v > lam_hat]
-    upper = top
-    for v in above:
+    above = [float(v) for v in grid if v > lam_hat]
+    for k, v in enumerate(above):
         if g(v) > 0:
-            left = max([w for w in grid if w < v] + [lam_hat])
-            left = max(left, lam_hat)
-            upper = brentq(g, left, v, xtol=1e-6) if g(left) < 0 else left
+            upper = root(v, max(above[k - 1] if k > 0 else lam_hat, lam_hat))
             break
-    fit = _gls(ft, X, y, lam_hat, se2, reml)
-    return _LambdaFit(lam_hat, (float(lower), float(upper)), ll_max, ll(0.0), ll(top), fit, top)
+    return lower, upper
 
 
 def _lr(ll_max: float, ll_h: float | None) -> dict | None:
     """Likelihood-ratio test of a fixed lambda; p from chi²_1. On the boundary of
     [0, 1] the null distribution is the 50:50 mixture of chi²_0 and chi²_1 (Self &
     Liang 1987, JASA 82:605-610), so this p is conservative (twice the mixture's)."""
-    from scipy.stats import chi2
+    from scipy.special import chdtrc  # chi² upper tail, without importing scipy.stats
 
     if ll_h is None:
         return None
     stat = max(0.0, 2.0 * (ll_max - ll_h))
-    return {"loglik": _f(ll_h), "statistic": _f(stat), "p": _f(chi2.sf(stat, 1))}
+    return {"loglik": _f(ll_h), "statistic": _f(stat), "p": _f(chdtrc(1, stat))}

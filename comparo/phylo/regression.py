@@ -176,17 +176,17 @@ def _pruned_tree(topo, keep: list[int], tips: list[str]):
 
 def _line_keys(lf, n: int, ci: float, against: float | None) -> tuple[dict, dict]:
     """The line's contract keys (slope .. loglik) and its extras (standard errors, sigma², df)."""
-    from scipy.stats import t as tdist
+    from scipy.special import stdtr, stdtrit  # t distribution, without importing scipy.stats
 
     g = lf.fit
     df = n - 2
-    tq = float(tdist.ppf(0.5 + ci / 2.0, df))
+    tq = float(stdtrit(df, 0.5 + ci / 2.0))
     se_b = np.sqrt(np.diag(g.cov))
     b0, b1 = float(g.beta[0]), float(g.beta[1])
     ts = None
     if against is not None:
         stat = (b1 - float(against)) / se_b[1]
-        ts = {"value": float(against), "statistic": _f(stat), "test": "t", "df": int(df), "p": _f(2.0 * tdist.sf(abs(stat), df))}
+        ts = {"value": float(against), "statistic": _f(stat), "test": "t", "df": int(df), "p": _f(2.0 * stdtr(df, -abs(stat)))}
     r2 = 1.0 - g.rss / g.rss_null if g.rss_null > 0 else math.nan
     line = {
         "slope": _f(b1),
@@ -304,8 +304,7 @@ def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lamb
     """Interaction model Y ~ group + group:X (lambda estimated in it); F tests of
     equal slopes (interaction) and, in the common-slope model, of equal elevations.
     With V fixed at the fitted lambda each F is the extra-sum-of-squares (Wald) F."""
-    from scipy.stats import f as fdist
-    from scipy.stats import t as tdist
+    from scipy.special import fdtrc, stdtrit  # F and t, without importing scipy.stats
 
     levels = sorted(set(grp))
     G = len(levels)
@@ -331,9 +330,9 @@ def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lamb
             stat = float(d @ np.linalg.solve(Cm @ big.cov @ Cm.T, d)) / q
         else:
             stat = ((small.rss - big.rss) / q) / (big.rss / df2)
-        return {"statistic": _f(stat), "df1": q, "df2": df2, "p": _f(fdist.sf(stat, q, df2))}
+        return {"statistic": _f(stat), "df1": q, "df2": df2, "p": _f(fdtrc(q, df2, stat))}
 
-    tq = float(tdist.ppf(0.5 + ci / 2.0, df_full))
+    tq = float(stdtrit(df_full, 0.5 + ci / 2.0))
     rows = []
     for j, lv in enumerate(levels):
         bi, bs = full.beta[j], full.beta[G + j]
@@ -345,7 +344,7 @@ def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lamb
         })
     slope_pairs = [(G + j, G + j + 1) for j in range(G - 1)]
     elev_pairs = [(j, j + 1) for j in range(G - 1)]
-    tq_add = float(tdist.ppf(0.5 + ci / 2.0, n - G - 1))
+    tq_add = float(stdtrit(n - G - 1, 0.5 + ci / 2.0))
     sc = float(add.beta[G])
     sc_se = math.sqrt(add.cov[G, G])
     slopes = ftest(add, full, G - 1, df_full, slope_pairs)

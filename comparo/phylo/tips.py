@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from comparo.errors import InputError, Problem, problems_from_frame
-from comparo.phylo.trees import _as_topo, _check, _norm, _Topo, _topology
+from comparo.phylo.trees import _as_topo, _check, _norm, _norm_all, _Topo, _topology
 
 
 @dataclass(frozen=True)
@@ -91,42 +91,41 @@ def match_tips(tree: Any, labels: Sequence[str], tree_labels: Mapping[str, str] 
 
 def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | None) -> TipMatch:
     tips = topo.tips
-    tip_set = set(tips)
-    by_key: dict[str, list[str]] = {}
-    for tip in tips:
-        by_key.setdefault(_norm(tip), []).append(tip)
+    tip_set = topo.node_of
+    tip_keys = _norm_all(tips)
+    by_key = dict(zip(tip_keys, tips, strict=True))  # folded name -> tip, when no two tips share one
     problems: list[Problem] = []
-    for group in by_key.values():
-        if len(group) > 1:
-            problems.append(
-                Problem("error", "tree", None, None, group[0], "tree-ambiguous-tip",
-                        f"tips {group} are the same name once underscores, spaces and case are folded", "rename one of them")
-            )
+    if len(by_key) < len(tips):
+        groups: dict[str, list[str]] = {}
+        for key, tip in zip(tip_keys, tips, strict=True):
+            groups.setdefault(key, []).append(tip)
+        for group in groups.values():
+            if len(group) > 1:
+                problems.append(
+                    Problem("error", "tree", None, None, group[0], "tree-ambiguous-tip",
+                            f"tips {group} are the same name once underscores, spaces and case are folded", "rename one of them")
+                )
     labels = [str(lab) for lab in labels]
-    counts: dict[str, int] = {}
-    for lab in labels:
-        counts[lab] = counts.get(lab, 0) + 1
-    for lab, c in counts.items():
-        if c > 1:
-            problems.append(Problem("error", "table", None, "taxon", lab, "taxon-duplicate", f"taxon {lab!r} occurs {c} times", "give one row per taxon"))
+    if len(set(labels)) < len(labels):
+        counts: dict[str, int] = {}
+        for lab in labels:
+            counts[lab] = counts.get(lab, 0) + 1
+        for lab, c in counts.items():
+            if c > 1:
+                problems.append(Problem("error", "table", None, "taxon", lab, "taxon-duplicate", f"taxon {lab!r} occurs {c} times", "give one row per taxon"))
     if problems:
         raise InputError(problems)
     explicit = {str(k): str(v) for k, v in (tree_labels or {}).items() if v is not None and str(v).strip() != "" and str(v) != "nan"}
     pairs: list[tuple[str, str, str]] = []
     used: dict[str, str] = {}
     unmatched: list[str] = []
-    for lab in labels:
-        tip, how = None, "name"
+    for lab, key in zip(labels, _norm_all(labels), strict=True):
+        how = "name"
         if lab in explicit:
             want, how = explicit[lab], "tree_label"
-            if want in tip_set:
-                tip = want
-            elif len(by_key.get(_norm(want), [])) == 1:
-                tip = by_key[_norm(want)][0]
+            tip = want if want in tip_set else by_key.get(_norm(want))
         else:
-            cand = by_key.get(_norm(lab), [])
-            if len(cand) == 1:
-                tip = cand[0]
+            tip = by_key.get(key)
         if tip is None:
             unmatched.append(lab)
             continue

@@ -4,6 +4,8 @@
 from __future__ import annotations
 
 import math
+import re
+from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -24,6 +26,23 @@ def _tree_problem(file: str, rule: str, message: str, hint: str = "", value: str
 def _norm(label: str) -> str:
     """Matching key: underscores as spaces, runs of white space collapsed, case folded."""
     return " ".join(str(label).replace("_", " ").split()).casefold()
+
+
+_WHITE = re.compile(r"\s+")  # the same characters as str.split() splits on
+_EDGE_WHITE = re.compile(r" ?\x00 ?")
+
+
+def _norm_all(labels: Sequence[str]) -> list[str]:
+    """:func:`_norm` of every label, in a few passes over one joined string (case folding
+    and white space are per character, so the joined text folds as its parts do)."""
+    labels = [str(v) for v in labels]
+    text = "\x00".join(labels)
+    if not labels or text.count("\x00") != len(labels) - 1:  # a label holding the separator
+        return [_norm(v) for v in labels]
+    text = text.replace("_", " ")
+    if _WHITE.search(text):
+        text = _EDGE_WHITE.sub("\x00", _WHITE.sub(" ", text)).strip(" ")
+    return text.casefold().split("\x00")
 
 
 
@@ -113,6 +132,14 @@ def _preorder(tree: Any) -> list:
 
 
 def _topology(tree: Any) -> _Topo:
+    """The pre-order record of a tree: a :class:`Topology` as it is, the one a
+    :class:`comparo.io.DeferredTree` already holds (read by :mod:`comparo.newick`, so
+    dendropy is neither imported nor walked), else one pass over the dendropy tree."""
+    if isinstance(tree, _Topo):
+        return tree
+    held = tree.__dict__.get("topology") if hasattr(tree, "__dict__") else None
+    if isinstance(held, _Topo):
+        return held
     nodes = _preorder(tree)
     index = {id(nd): i for i, nd in enumerate(nodes)}
     parent = [-1] * len(nodes)
@@ -143,32 +170,34 @@ def _check(topo: _Topo, name: str) -> None:
     labels = list(topo.leaf.values())
     if any(lab is None or str(lab).strip() == "" for lab in labels):
         raise _tree_problem(name, "tree-tip-label", f"{sum(lab is None or not str(lab).strip() for lab in labels)} tip(s) without a label")
-    seen: dict[str, int] = {}
-    for lab in labels:
-        seen[lab] = seen.get(lab, 0) + 1
-    dups = sorted(k for k, c in seen.items() if c > 1)
+    dups: list[str] = []
+    if len(set(labels)) < len(labels):
+        seen: dict[str, int] = {}
+        for lab in labels:
+            seen[lab] = seen.get(lab, 0) + 1
+        dups = sorted(k for k, c in seen.items() if c > 1)
     if dups:
         raise _tree_problem(
             name, "tree-duplicate-tip", f"duplicate tip label(s): {', '.join(dups[:10])}", "each tip label must occur once", value=dups[0]
         )
-    missing, negative = [], []
-    for i in range(1, len(topo.parent)):
-        length = topo.length[i]
-        where = topo.leaf.get(i) or topo.inner_label[i] or "an internal node"
-        if length is None:
-            missing.append(where)
-        elif not math.isfinite(length) or length < 0:
-            negative.append(where)
+    lengths = topo.length
+    inf = math.inf
+    missing = [i for i, v in enumerate(lengths) if v is None and i > 0]
+    negative = [i for i, v in enumerate(lengths) if v is not None and not 0 <= v < inf and i > 0]  # also NaN, inf
+
+    def where(i: int) -> str:
+        return topo.leaf.get(i) or topo.inner_label[i] or "an internal node"
+
     if missing:
         raise _tree_problem(
             name,
             "tree-branch-lengths",
-            f"{len(missing)} edge(s) without a branch length (e.g. above {missing[0]!r}); phylogenetic fits need branch lengths",
+            f"{len(missing)} edge(s) without a branch length (e.g. above {where(missing[0])!r}); phylogenetic fits need branch lengths",
             "write every edge as label:length, e.g. (A:1.2,B:0.8):0.5",
         )
     if negative:
         raise _tree_problem(
-            name, "tree-branch-lengths", f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {negative[0]!r})"
+            name, "tree-branch-lengths", f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {where(negative[0])!r})"
         )
 
 
