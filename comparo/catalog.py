@@ -98,7 +98,7 @@ def _entry(key: str, raw: Mapping[str, Any], origin: str, file: str) -> tuple[Qu
         bad("unit", unit, "quantity-unit", f"quantity {key!r} needs a canonical unit")
     else:
         try:
-            units.parse_unit(unit)
+            units.check_unit(unit)
         except units.UnitParseError as exc:
             bad("unit", unit, "quantity-unit", str(exc))
     if kind is not None and kind not in units.KIND_DIMENSIONS:
@@ -115,8 +115,8 @@ def _entry(key: str, raw: Mapping[str, Any], origin: str, file: str) -> tuple[Qu
     if probs:
         return None, probs
     if kind is None:  # a user's own quantity may omit the kind: it is then read off the unit
-        kind = next((k for k in units.KIND_DIMENSIONS if units.parse_unit(unit).dimensionality == units.dimensionality(k)), "other")
-    elif units.parse_unit(unit).dimensionality != units.dimensionality(kind):
+        kind = next((k for k in units.KIND_DIMENSIONS if units.measures(unit, k)), "other")
+    elif not units.measures(unit, kind):
         bad("unit", unit, "quantity-unit-kind", f"unit {unit!r} does not measure a {kind}")
         return None, probs
     q = Quantity(

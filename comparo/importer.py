@@ -149,7 +149,7 @@ def resolve(grid: Grid, columns: list[Column], catalog: Catalog) -> tuple[list[C
                 probs.append(_header_problem(grid, c, "header-unit", f"{c.key} needs a unit in the header, e.g. '{c.header} ({catalog[c.key].unit})'", "write the unit in parentheses or brackets, or in the map file"))
             elif c.unit:
                 try:
-                    ok = units.parse_unit(c.unit).dimensionality == units.dimensionality(kind)
+                    ok = units.measures(c.unit, kind)
                 except units.UnitParseError as exc:
                     probs.append(_header_problem(grid, c, "header-unit", str(exc), "write a unit pint reads: um, µm, mg, kPa, 1/s, Hz ..."))
                     ok = True
@@ -157,7 +157,7 @@ def resolve(grid: Grid, columns: list[Column], catalog: Catalog) -> tuple[list[C
                     probs.append(_header_problem(grid, c, "header-unit-kind", f"unit {c.unit!r} does not measure a {kind} ({c.key} is in {catalog[c.key].unit})"))
         elif c.role == "temperature":
             try:
-                ok = bool(c.unit) and units.parse_unit(c.unit).dimensionality == units.dimensionality("temperature")
+                ok = bool(c.unit) and units.measures(c.unit, "temperature")
             except units.UnitParseError:
                 ok = False
             if not ok:
@@ -240,7 +240,6 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
         by_role.setdefault(c.role, []).append(c)
     single = {r: next((c for c in by_role.get(r, []) if not c.key), None) for r in ("taxon", "source", "locator", "temperature", "n")}
     per_key = {(c.role, c.key): c for c in columns if c.role in (*UNCERTAINTY_ROLES, "n", "source", "locator") and c.key}
-    ureg = units.registry()
 
     def text(i: int, c: Column | None) -> str:
         if c is None:
@@ -266,7 +265,7 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
         temp = number(i, single["temperature"]) if single["temperature"] else None
         if temp is not None:
             t_unit = units.parse_unit(single["temperature"].unit).units
-            temp = f"{ureg.Quantity(float(temp), t_unit).to('degC').magnitude:.12g}"
+            temp = f"{units.registry().Quantity(float(temp), t_unit).to('degC').magnitude:.12g}"  # pint converts offsets
         n_all = number(i, single["n"]) if single["n"] else None
         copies = {c.key: text(i, c) for c in by_role.get("column", [])}
         for c in by_role.get("taxa", []):

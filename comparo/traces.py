@@ -163,25 +163,23 @@ def _unit_problems(rec: dict[str, str], row: int, file: str) -> list[Problem]:
     from comparo import units
 
     kind = rec.get("kind", "")
-    want = {"time_unit": ("[time]", "a time unit such as s or ms")}
+    want = {"time_unit": ("time", "a time unit such as s or ms")}  # column -> (kind of unit, hint)
     if kind == "strain_cycle":
-        want["x_unit"] = want["y_unit"] = ("", "1 (strain as a fraction) or %")
+        want["x_unit"] = want["y_unit"] = ("fraction", "1 (strain as a fraction) or %")
     elif kind == "work_loop":
-        want["x_unit"] = ("[length]", "a length unit such as m, mm or um")
-        want["y_unit"] = ("[length] * [mass] / [time] ** 2", "a force unit such as N or mN")
+        want["x_unit"] = ("length", "a length unit such as m, mm or um")
+        want["y_unit"] = ("force", "a force unit such as N or mN")
     probs = []
-    reg = units.registry()
-    for col, (dim, what) in want.items():
+    for col, (unit_kind, what) in want.items():
         text = rec.get(col, "")
         if not text:
             continue  # reported as a required cell
         try:
-            q = units.parse_unit(text)
+            fits = units.measures(text, unit_kind)
         except units.UnitParseError as exc:
             probs.append(_p(file, row, col, text, "trace-unit", str(exc), f"give {what}"))
             continue
-        target = reg.Quantity(1.0, "dimensionless").dimensionality if not dim else reg.get_dimensionality(dim)
-        if q.dimensionality != target:
+        if not fits:
             probs.append(_p(file, row, col, text, "trace-unit-kind", f"unit {text!r} does not fit a {kind or 'trace'} here",
                             f"give {what}"))
     return probs

@@ -4,23 +4,41 @@ Everything that converts a unit asks this module; no conversion factor is
 written anywhere else. Parsing is cached per distinct unit string, so a
 100,000-row table with a dozen distinct units costs a dozen parses.
 
-The registry is pint's full default registry. Reading pint's definitions file
-takes about 0.15 s per process, so the parsed definitions are kept in pint's own
-disk cache (a folder per pint version under the user cache folder, or under
-``COMPARO_CACHE_DIR``; ``COMPARO_CACHE_DIR=""`` turns the cache off). The cache
-holds what pint parsed from its own file, so the conversions are the same;
-when the folder cannot be written or read, the registry is built without it.
+The registry is pint's full default registry. Importing pint and starting its
+registry costs about 0.2 s per process, more than the everyday commands spend on
+anything else, so two things keep it off their path:
+
+- **The unit facts** (``comparo/unit_facts.json``, package data): for every unit
+  string comparo itself uses or usually sees (the catalogue's canonical units, the
+  usual units per kind, the SI units of the derivation and of the traces, the demo's
+  units and common spellings), pint's own answers, computed once by pint with
+  ``python -m comparo.unitfacts``: the factor to SI base units, the dimensionality,
+  the offset of offset units (°C) and the short rendering. :func:`facts`,
+  :func:`conversion_factor`, :func:`same_dimension`, :func:`measures`,
+  :func:`base_factor` and :func:`pretty` answer from the table when every unit they
+  are given is in it, and ask pint otherwise. The table is used only when the
+  installed pint is the version that computed it; the test suite recomputes it with a
+  fresh full registry and fails when it is stale.
+- **pint's disk cache**: when pint is needed, its parsed definitions are kept in
+  pint's own cache (a folder per pint version under the user cache folder, or under
+  ``COMPARO_CACHE_DIR``; ``COMPARO_CACHE_DIR=""`` turns the cache off). The cache
+  holds what pint parsed from its own file, so the conversions are the same; when the
+  folder cannot be written or read, the registry is built without it.
 """
 
 from __future__ import annotations
 
+import json
 import math
 import os
 import re
+from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pint
+if TYPE_CHECKING:  # pint is imported only when a unit is not in the unit facts
+    import pint
 
 # What kind of quantity a catalogue entry is -> the pint dimensionality it must have.
 KIND_DIMENSIONS: dict[str, str] = {
@@ -69,29 +87,65 @@ _SUPERSCRIPTS = str.maketrans({"²": "**2", "³": "**3", "¹": "**1"})
 _WORDS_DIMENSIONLESS = {"1", "-", "dimensionless", "fraction", "ratio", "unitless", "none", "count"}
 
 
+#: Definitions comparo adds to pint's default registry.
+EXTRA_DEFINITIONS: tuple[str, ...] = ("fraction_unit = 1 = fraction",)
+
+#: The unit facts shipped with the package (written by ``python -m comparo.unitfacts``).
+FACTS_FILE = Path(__file__).with_name("unit_facts.json")
+
+
 class UnitParseError(ValueError):
     """A unit string pint cannot read."""
 
 
+@dataclass(frozen=True)
+class UnitFacts:
+    """What pint says about one unit string (as parsed by :func:`parse_unit`).
+
+    ``factor``: the magnitude of pint's ``to_base_units()`` of the parsed unit (a value
+    of 1 in the unit, in SI base units; for an offset unit such as °C the offset is
+    included, as pint's conversions with offsets converted to base units give it).
+    ``dimensions``: pint's dimensionality as sorted ``(dimension, exponent)`` pairs
+    (empty when dimensionless). ``offset``: the SI base-unit value of 0 in the unit
+    (273.15 for °C), ``None`` for a unit without one. ``pretty``: :func:`pretty`'s text.
+    """
+
+    factor: float
+    dimensions: tuple[tuple[str, float], ...]
+    offset: float | None
+    pretty: str
+
+    def to_dict(self) -> dict:
+        return {"factor": self.factor, "dimensions": dict(self.dimensions), "offset": self.offset,
+                "pretty": self.pretty}
+
+
+def new_registry(cache_folder: Path | None = None) -> pint.UnitRegistry:
+    """A new pint default registry as comparo uses it (offset units converted to base
+    units in products, :data:`EXTRA_DEFINITIONS` added), with pint's definitions cache in
+    *cache_folder* when given."""
+    import pint
+
+    ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=cache_folder)
+    for line in EXTRA_DEFINITIONS:
+        ureg.define(line)
+    return ureg
+
+
 @lru_cache(maxsize=1)
 def registry() -> pint.UnitRegistry:
-    """The shared pint registry (created once).
+    """The shared pint registry (created once, the first time a unit is not in the unit facts).
 
     Adds nothing but a few spellings biologists use; ``micron``, ``µm``,
     ``um``, ``Hz``, ``kPa``, ``1/s`` and ``s^-1`` are pint's own.
     """
-    ureg = None
     folder = cache_folder()
     if folder is not None:
         try:
-            ureg = _cached_registry(folder)
+            return _cached_registry(folder)
         except Exception:  # an unwritable or damaged cache costs time, never a result
             _forget(folder)
-            ureg = None
-    if ureg is None:
-        ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
-    ureg.define("fraction_unit = 1 = fraction")
-    return ureg
+    return new_registry()
 
 
 _READY = "complete"
@@ -103,6 +157,8 @@ def cache_folder() -> Path | None:
     env = os.environ.get("COMPARO_CACHE_DIR")
     if env == "":
         return None
+    import pint
+
     if env is None:
         import platformdirs  # a dependency of pint
 
@@ -129,14 +185,16 @@ def _cached_registry(folder: Path) -> pint.UnitRegistry:
     file; the marker comes last.
     """
     if (folder / _READY).is_file():
-        return pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=folder)
+        return new_registry(folder)
     import shutil
     import tempfile
+
+    import pint
 
     folder.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=".build-", dir=folder))
     try:
-        ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=tmp)
+        ureg = new_registry(tmp)
         for f in sorted(tmp.iterdir()):
             os.replace(f, folder / f.name)
         marker = tmp / _READY
@@ -158,17 +216,29 @@ def _normalise(text: str) -> str:
     return t
 
 
+def facts_key(text: str) -> str:
+    """The key of *text* in the unit facts: the string :func:`parse_unit` hands to pint
+    (``"1"`` for the words it reads as dimensionless)."""
+    t = _normalise("" if text is None else str(text))
+    return "1" if t.lower() in _WORDS_DIMENSIONLESS else t
+
+
 @lru_cache(maxsize=4096)
 def parse_unit(text: str) -> pint.Quantity:
     """Parse a unit as typed, returning a pint Quantity of magnitude 1 (or of the
-    numeric factor written in the string, e.g. ``"1e-3 m"``).
+    numeric factor written in the string, e.g. ``"1e-3 m"``). Imports pint; the
+    everyday questions about units have pint-free answers (:func:`facts`).
 
     Raises
     ------
     UnitParseError
         When pint cannot read it; the message says what was read.
     """
-    ureg = registry()
+    return parse_with(registry(), text)
+
+
+def parse_with(ureg: pint.UnitRegistry, text: str) -> pint.Quantity:
+    """:func:`parse_unit` with the registry *ureg* (the unit facts are computed with this)."""
     raw = "" if text is None else str(text)
     t = _normalise(raw)
     if not t:
@@ -191,8 +261,103 @@ def parse_unit(text: str) -> pint.Quantity:
     return q
 
 
+def _dims(container) -> tuple[tuple[str, float], ...]:
+    """pint's dimensionality as sorted (dimension, exponent) pairs."""
+    return tuple(sorted((str(d), e) for d, e in container.items()))
+
+
+def facts_of(q: pint.Quantity) -> UnitFacts:
+    """The facts of a parsed unit, asked of pint (the registry of *q*)."""
+    try:
+        factor = float(q.to_base_units().magnitude)
+        zero = float(q._REGISTRY.Quantity(0.0, q.units).to_base_units().magnitude)
+    except Exception:  # a unit pint reads but cannot bring to base units: no factor (NaN)
+        factor, zero = math.nan, 0.0
+    shown = "1" if q.dimensionless and q.magnitude == 1 else f"{q.units:~P}"
+    return UnitFacts(factor, _dims(q.dimensionality), zero if zero else None, shown)
+
+
+def _installed_pint_is(version: str) -> bool:
+    """True when the pint found on the path is *version* (its ``dist-info`` folder, one
+    stat: no import of pint)."""
+    from importlib.util import find_spec
+
+    try:
+        spec = find_spec("pint")
+    except (ImportError, ValueError):
+        return False
+    if spec is None or not spec.origin:
+        return False
+    return (Path(spec.origin).parent.parent / f"pint-{version}.dist-info").is_dir()
+
+
+@lru_cache(maxsize=1)
+def _table() -> tuple[dict[str, UnitFacts], dict[str, tuple]] | None:
+    """The unit facts and the dimensions of each kind, or ``None`` when the file is
+    missing or damaged or was computed by another pint version (pint then answers)."""
+    try:
+        doc = json.loads(FACTS_FILE.read_text(encoding="utf-8"))
+        if not _installed_pint_is(str(doc["pint"])):
+            return None
+        table = {k: UnitFacts(float(v["factor"]), tuple(sorted(v["dimensions"].items())),
+                              None if v["offset"] is None else float(v["offset"]), str(v["pretty"]))
+                 for k, v in doc["units"].items()}
+        kinds = {k: tuple(sorted(v.items())) for k, v in doc["kinds"].items()}
+    except (OSError, ValueError, KeyError, TypeError, AttributeError):
+        return None
+    return table, kinds
+
+
+@lru_cache(maxsize=4096)
+def facts(text: str) -> UnitFacts:
+    """pint's facts about a unit as typed: from the unit facts when the unit is in them,
+    else from pint (imported then).
+
+    Raises
+    ------
+    UnitParseError
+        When pint cannot read it (the message of :func:`parse_unit`).
+    """
+    t = _table()
+    if t is not None:
+        hit = t[0].get(facts_key(text))
+        if hit is not None:
+            return hit
+    return facts_of(parse_unit(text))
+
+
+def check_unit(text: str) -> None:
+    """Raise :class:`UnitParseError` (the message of :func:`parse_unit`) when pint cannot
+    read *text*."""
+    facts(text)
+
+
+def unit_dimensions(text: str) -> tuple[tuple[str, float], ...]:
+    """pint's dimensionality of a unit as sorted ``(dimension, exponent)`` pairs."""
+    return facts(text).dimensions
+
+
+def kind_dimensions(kind: str) -> tuple[tuple[str, float], ...]:
+    """The dimensionality a quantity of this *kind* must have, as :func:`unit_dimensions` gives it."""
+    t = _table()
+    if t is not None and kind in t[1]:
+        return t[1][kind]
+    return _dims(dimensionality(kind))
+
+
+def measures(unit: str, kind: str) -> bool:
+    """True when *unit* measures a quantity of *kind* (its dimensionality is the kind's)."""
+    return unit_dimensions(unit) == kind_dimensions(kind)
+
+
+def base_factor(unit: str) -> float:
+    """A value of 1 in *unit*, in SI base units (pint's ``to_base_units()``)."""
+    return facts(unit).factor
+
+
 def dimensionality(kind: str) -> pint.util.UnitsContainer:
-    """The pint dimensionality a quantity of this *kind* must have."""
+    """The pint dimensionality a quantity of this *kind* must have (imports pint;
+    :func:`kind_dimensions` does not)."""
     ureg = registry()
     expr = KIND_DIMENSIONS[kind]
     if not expr:
@@ -202,7 +367,10 @@ def dimensionality(kind: str) -> pint.util.UnitsContainer:
 
 @lru_cache(maxsize=4096)
 def conversion_factor(unit: str, canonical: str) -> float:
-    """Multiply a value in *unit* by this to get it in *canonical*.
+    """Multiply a value in *unit* by this to get it in *canonical* (dimensionless).
+
+    When both units are in the unit facts and measure the same thing, the ratio of their
+    factors to SI base units; otherwise pint's ``(unit / canonical).to("dimensionless")``.
 
     Raises
     ------
@@ -211,6 +379,11 @@ def conversion_factor(unit: str, canonical: str) -> float:
     pint.DimensionalityError
         If the two units do not measure the same kind of thing.
     """
+    t = _table()
+    if t is not None:
+        a, b = t[0].get(facts_key(unit)), t[0].get(facts_key(canonical))
+        if a is not None and b is not None and a.dimensions == b.dimensions:
+            return a.factor / b.factor
     q = parse_unit(unit)
     target = parse_unit(canonical)
     return float((q / target).to("dimensionless").magnitude)
@@ -218,7 +391,7 @@ def conversion_factor(unit: str, canonical: str) -> float:
 
 def same_dimension(unit: str, canonical: str) -> bool:
     """True when *unit* and *canonical* measure the same kind of thing."""
-    return parse_unit(unit).dimensionality == parse_unit(canonical).dimensionality
+    return unit_dimensions(unit) == unit_dimensions(canonical)
 
 
 def usual_units(kinds) -> list[str]:
@@ -233,7 +406,4 @@ def usual_units(kinds) -> list[str]:
 
 def pretty(unit: str) -> str:
     """A short, readable rendering of a unit for axis labels and tables (``µm``, ``m²``)."""
-    q = parse_unit(unit)
-    if q.dimensionless and q.magnitude == 1:
-        return "1"
-    return f"{q.units:~P}"
+    return facts(unit).pretty

@@ -382,7 +382,7 @@ def _to_canonical_units(c: _Problems, raw: RawTable, obs: pd.DataFrame, catalog:
         if u in bad_unit:
             continue
         try:
-            units.parse_unit(u)
+            units.check_unit(u)
         except units.UnitParseError as exc:
             bad_unit[u] = str(exc)
             continue

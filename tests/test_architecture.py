@@ -43,6 +43,8 @@ FORBIDDEN = {
     "wide": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
     "importer": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
     "template": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
+    # the generator of the unit facts: reads the SI units of the derivation and the traces
+    "unitfacts": ("phylo", "lines", "flags", "reliance", "curate", *PRESENTATION),
 }
 # the one sanctioned upward import: FitResult.plot draws with the report's figure code
 ALLOWED = {("comparo.lines.result", "plots")}

@@ -132,7 +132,7 @@ _NO_RANGE_DECADES = (-30.0, 30.0)
 
 def _decades(catalog, key: str) -> tuple[float, float]:
     """log10 of the plausible range of *key* in SI base units (wide when unknown)."""
-    from comparo.units import parse_unit
+    from comparo.units import base_factor
 
     if key not in catalog or catalog[key].range is None:
         return _NO_RANGE_DECADES
@@ -140,7 +140,7 @@ def _decades(catalog, key: str) -> tuple[float, float]:
     lo, hi = q.range
     if not (lo > 0 and hi > 0):
         return _NO_RANGE_DECADES
-    to_si = float(parse_unit(q.unit).to_base_units().magnitude)
+    to_si = base_factor(q.unit)
     return math.log10(lo * to_si), math.log10(hi * to_si)
 
 
