@@ -33,3 +33,20 @@ def demo_report(tmp_path_factory) -> tuple[Path, Path, object]:
     shutil.copytree(DEMO, data)
     result = build_report(data, base / "out", seed=7)
     return data, base / "out", result
+
+
+# Session fixtures that are costly to build (seconds each), and the xdist group of the
+# tests that use them: with ``--dist loadgroup`` each group runs on one worker, so the
+# fixture is built once per run instead of once per worker.
+_SHARED_FIXTURE_GROUPS = {"demo_report": "demo_report"}
+
+
+@pytest.hookimpl(tryfirst=True)  # before pytest-xdist reads the groups off the marks
+def pytest_collection_modifyitems(config, items):
+    """Put every test that uses a shared costly fixture (directly or through another
+    fixture) in that fixture's xdist group; the others are spread over the workers."""
+    for item in items:
+        for fixture, group in _SHARED_FIXTURE_GROUPS.items():
+            if fixture in getattr(item, "fixturenames", ()):
+                item.add_marker(pytest.mark.xdist_group(group))
+

@@ -23,7 +23,6 @@ pytestmark = [
         reason=f"headless browser check needs /usr/bin/chromium and /usr/bin/chromedriver (Debian packages chromium, "
                f"chromium-driver); found chromium={CHROMIUM}, chromedriver={DRIVER}",
     ),
-    pytest.mark.xdist_group("demo_report"),  # on the worker that builds the shared demo report
 ]
 
 FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",

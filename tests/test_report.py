@@ -75,8 +75,6 @@ class _Collect(HTMLParser):
             self.table_id = None
 
 
-pytestmark = pytest.mark.xdist_group("demo_report")  # shares the demo report with test_browser.py
-
 @pytest.fixture(scope="module")
 def runs(demo_report, tmp_path_factory):
     """The shared demo report (seed 7) and a second run with the same seed, for byte identity."""

@@ -25,6 +25,9 @@ from pathlib import Path
 import pytest
 from support import DEMO, run_cli, tree_hash
 
+# one worker builds the module fixture (the ten commands, ~15 s) instead of each worker
+pytestmark = pytest.mark.xdist_group("repro")
+
 SEED, OTHER = 11, 12
 FIT = ("--x", "body_mass", "--y", "frequency_observed", "--method", "sma", "--format", "json")
 # bootstrap and sensitivity in one invocation: each draws from its own default_rng(seed), so one run
