@@ -133,20 +133,11 @@ def parse(text: str) -> Topology | None:
             expect_length = False
         elif kind == "punct":
             if value == "(" or value == ",":
-                if value == "(":
-                    if label[cur] is not None or length[cur] is not None or n_child[cur]:
-                        return None
-                    up = cur
-                else:
-                    up = parent[cur]
-                    if up < 0:
-                        return None
-                parent.append(up)
+                cur = _open(value, cur, parent, n_child, label[cur] is not None or length[cur] is not None)
+                if cur < 0:
+                    return None
                 length.append(None)
                 label.append(None)
-                n_child.append(0)
-                n_child[up] += 1
-                cur = len(parent) - 1
             elif value == ")":
                 cur = parent[cur]
                 if cur < 0:
@@ -165,6 +156,29 @@ def parse(text: str) -> Topology | None:
             label[cur] = value.replace("''", "'") if kind == "quoted" else value
     if expect_length or parent[cur] >= 0:
         return None
+    return _finish(parent, length, label, n_child)
+
+
+def _open(p: str, cur: int, parent: list[int], n_child: list[int], taken: bool) -> int:
+    """Add the node that *p* (``(`` or ``,``) opens at node *cur* (*taken*: *cur* already
+    has a label or a length) and return its index; -1 where no tree can have it."""
+    if p == "(":
+        if taken or n_child[cur]:
+            return -1
+        up = cur
+    else:
+        up = parent[cur]
+        if up < 0:
+            return -1
+    parent.append(up)
+    n_child.append(0)
+    n_child[up] += 1
+    return len(parent) - 1
+
+
+def _finish(parent: list[int], length: list[float | None], label: list[str | None], n_child: list[int]) -> Topology | None:
+    """The topology of the nodes read (the root edge's length dropped), or ``None`` when a
+    leaf has no label."""
     length[0] = None
     leaf = {i: label[i] for i in range(len(parent)) if n_child[i] == 0}
     if any(lab is None for lab in leaf.values()):
@@ -200,20 +214,11 @@ def _parse_plain(pieces: list[str]) -> Topology | None:
             len_word.append(w)
             continue
         if p == "(" or p == ",":
-            if p == "(":
-                if label[cur] is not None or has_len[cur] or n_child[cur]:
-                    return None
-                up = cur
-            else:
-                up = parent[cur]
-                if up < 0:
-                    return None
-            parent.append(up)
+            cur = _open(p, cur, parent, n_child, label[cur] is not None or has_len[cur])
+            if cur < 0:
+                return None
             label.append(None)
             has_len.append(False)
-            n_child.append(0)
-            n_child[up] += 1
-            cur = len(parent) - 1
         elif p == ")":
             cur = parent[cur]
             if cur < 0:
@@ -237,9 +242,4 @@ def _parse_plain(pieces: list[str]) -> Topology | None:
     length: list[float | None] = [None] * len(parent)
     for node, v in zip(len_node, values, strict=True):
         length[node] = v
-    length[0] = None
-    leaf = {i: label[i] for i in range(len(parent)) if n_child[i] == 0}
-    if any(lab is None for lab in leaf.values()):
-        return None  # dendropy reads empty leaves its own way; it also reports them
-    inner = [None if n_child[i] == 0 else label[i] for i in range(len(parent))]
-    return Topology(parent, length, leaf, inner)
+    return _finish(parent, length, label, n_child)
