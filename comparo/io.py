@@ -237,13 +237,12 @@ class _TextFacts:
 
     @classmethod
     def of(cls, text: str) -> _TextFacts:
-        longest = max(map(len, text.split("\n"))) if text else 0
         control = _CONTROL.search(text) is not None
         return cls(
             padded=" " in text or "\t" in text or '"' in text or control,  # a quoted cell may hold a line break
             non_ascii=not text.isascii(),
             control=control,
-            long=len(text) > MAX_CELL and ('"' in text or longest > MAX_CELL),
+            long=len(text) > MAX_CELL and ('"' in text or max(map(len, text.split("\n"))) > MAX_CELL),
         )
 
 

@@ -137,7 +137,6 @@ class ColumnRules:
     required: bool
     unique: bool
     checks: tuple[ColumnCheck, ...]
-    nullable: bool = False
 
 
 def _number_checks(c: dict[str, Any]) -> list[ColumnCheck]:
@@ -192,7 +191,7 @@ def pandera_schema(table: str):
     cols = {
         r.name: pa.Column(
             str, checks=[pa.Check(k.fn, name=k.name) for k in r.checks], required=r.required,
-            nullable=r.nullable, unique=r.unique, report_duplicates="exclude_first", coerce=False,
+            nullable=False, unique=r.unique, report_duplicates="exclude_first", coerce=False,
         )
         for r in column_rules(table)
     }
@@ -235,8 +234,7 @@ def schema_failures(rules: tuple[ColumnRules, ...], frame: pd.DataFrame) -> list
             for i in np.flatnonzero(mask):
                 out.append({"column": name, "check": check, "index": s.index[i], "failure_case": s.iat[i]})
 
-        if not r.nullable:
-            add(null, "not_nullable")
+        add(null, "not_nullable")  # no column declares missing cells allowed
         if r.unique:
             add(s.duplicated(keep="first").to_numpy() & ~null, "field_uniqueness")
         present = s[~null] if null.any() else s
