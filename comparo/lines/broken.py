@@ -21,7 +21,10 @@ def segmented_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, psi0: float |
     """Broken-line fit Y = b0 + b1 X + b2 (X - psi)_+ (Muggeo 2003) with Davies' test.
 
     The breakpoint is the global least-squares optimum over the interior data
-    range (between the 3rd smallest and 3rd largest x), found by
+    range: at least :data:`MIN_DISTINCT_SIDE` (3) distinct x values at or below psi and as
+    many at or above it, i.e. psi between the 3rd smallest and the 3rd largest *distinct* x
+    (tied x count once, so three equal x at an end never leave a side without a slope).
+    It is found by
     :func:`_global_breakpoint`: the profile RSS is smooth between consecutive
     data values, so each such interval is minimised by bounded Brent search and
     the best of these (and of a 200-point grid, and of ``psi0`` if given) wins.
@@ -32,8 +35,11 @@ def segmented_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, psi0: float |
     -----
     At the optimum, Muggeo's (2003) linearisation, OLS on [1, X, U, V] with
     U = (X - psi)_+ and V = -I(X > psi), gives se(psi) = se(gamma)/|b2| and the CI
-    psi -/+ t(ci; n - 4) se(psi). Slopes
-    b1 (left) and b1 + b2 (right) with t(n - 4) CIs from the same fit.
+    psi -/+ t(ci; n - 4) se(psi). The intercept, the slopes b1 (left) and b1 + b2 (right)
+    and the RSS are those of the least-squares broken line at psi-hat (three columns); the
+    linearisation supplies only the standard errors, so the t(n - 4) CIs are centred on the
+    broken line's own slopes (where psi-hat sits on a data value the linearisation's step
+    term is not zero and its slopes differ from the fitted line's).
     Davies (1987) test of b2 = 0 with psi absent under H0: S_k = Wald t of b2 at ``n_grid``
     points evenly spread over the interior range; M = max |S_k|, V = sum |S_k - S_(k-1)|,
     two-sided p ~ 2 [Phi(-M) + V exp(-M^2/2)/sqrt(8 pi)] (an upper bound, capped at 1).
@@ -42,22 +48,19 @@ def segmented_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, psi0: float |
     from scipy import stats
 
     n = len(X)
-    xs = np.sort(X)
-    lo_b, hi_b = xs[2], xs[-3]
-    if not hi_b > lo_b:
-        raise UsageError("a breakpoint needs at least 3 distinct x values on each side; too few points")
+    lo_b, hi_b = breakpoint_range(X)
 
     def rss(psi: float) -> float:
-        d = np.column_stack([np.ones(n), X, np.clip(X - psi, 0, None)])
-        return float(np.linalg.lstsq(d, Y, rcond=None)[1].sum()) if n > 3 else 0.0
+        return broken_line_at(X, Y, psi)[1]
 
     psi = _global_breakpoint(rss, X, lo_b, hi_b, psi0)
+    coef, rss_hat = broken_line_at(X, Y, psi)  # the fitted broken line: its numbers are reported
+    b0, b1, b2 = (float(c) for c in coef)
     U = np.clip(X - psi, 0, None)
     V = -(X > psi).astype(float)
-    res = sm.OLS(Y, np.column_stack([np.ones(n), X, U, V])).fit()  # Muggeo's linearisation at the optimum
+    res = sm.OLS(Y, np.column_stack([np.ones(n), X, U, V])).fit()  # Muggeo's linearisation: SEs only
     cov = np.asarray(res.cov_params())
-    b1, b2 = res.params[1], res.params[2]
-    se_psi = float(res.bse[3] / abs(b2)) if b2 != 0 else _NAN
+    se_psi = float(res.bse[3] / abs(res.params[2])) if res.params[2] != 0 else _NAN
     tq = stats.t.ppf(0.5 + ci / 2, n - 4)
     se_right = math.sqrt(cov[1, 1] + cov[2, 2] + 2 * cov[1, 2])
     # Davies' test
@@ -69,20 +72,54 @@ def segmented_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, psi0: float |
     M = float(np.max(np.abs(S)))
     Vt = float(np.sum(np.abs(np.diff(S))))
     p = min(1.0, 2 * (stats.norm.sf(M) + Vt * math.exp(-M * M / 2) / math.sqrt(8 * math.pi)))
-    fit_final = sm.OLS(Y, np.column_stack([np.ones(n), X, np.clip(X - psi, 0, None)])).fit()
     return {
         "x_log": float(psi),
         "x_log_ci": [float(psi - tq * se_psi), float(psi + tq * se_psi)],
         "se_x_log": se_psi,
-        "slope_left": float(b1),
-        "slope_left_ci": [float(b1 - tq * res.bse[1]), float(b1 + tq * res.bse[1])],
+        "slope_left": b1,
+        "slope_left_ci": [b1 - tq * float(res.bse[1]), b1 + tq * float(res.bse[1])],
         "slope_right": float(b1 + b2),
         "slope_right_ci": [float(b1 + b2 - tq * se_right), float(b1 + b2 + tq * se_right)],
-        "intercept": float(fit_final.params[0]),
-        "rss": float(fit_final.ssr),
+        "intercept": b0,
+        "rss": rss_hat,
         "p_single_line": float(p),
         "davies_max_abs_t": M,
     }
+
+
+MIN_DISTINCT_SIDE = 3  # distinct x values at or below, and at or above, a breakpoint
+
+
+def breakpoint_range(X: np.ndarray) -> tuple[float, float]:
+    """The range of admissible breakpoints (fitted scale): from the
+    :data:`MIN_DISTINCT_SIDE`-th smallest to the :data:`MIN_DISTINCT_SIDE`-th largest
+    distinct x, so that each side holds at least that many distinct x (a value at psi
+    counts on both sides) and the design [1, x, (x - psi)+] has full rank.
+
+    Raises
+    ------
+    UsageError
+        With fewer than 2 * MIN_DISTINCT_SIDE distinct x values (no interval is left).
+    """
+    u = np.unique(np.asarray(X, float))
+    k = MIN_DISTINCT_SIDE
+    if len(u) < 2 * k:
+        raise UsageError(f"a breakpoint needs at least {k} distinct x values on each side "
+                         f"({2 * k} distinct in all); the data have {len(u)}")
+    return float(u[k - 1]), float(u[-k])
+
+
+def broken_line_at(X: np.ndarray, Y: np.ndarray, psi: float) -> tuple[np.ndarray, float]:
+    """Least-squares broken line Y = b0 + b1 X + b2 (X - psi)+ at a given psi.
+
+    Returns the coefficients (b0, b1, b2) and the residual sum of squares, computed from
+    the residuals themselves (numpy's lstsq returns no residual sum for a rank-deficient
+    design, which must never read as a perfect fit).
+    """
+    d = np.column_stack([np.ones(len(X)), X, np.clip(X - psi, 0, None)])
+    coef = np.linalg.lstsq(d, Y, rcond=None)[0]
+    r = Y - d @ coef
+    return coef, float(r @ r)
 
 
 def _global_breakpoint(rss: Callable[[float], float], X: np.ndarray, lo: float, hi: float,
