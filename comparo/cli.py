@@ -124,6 +124,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("cycles", help="strain cycles and work loops reduced from the traces of a dataset (traces.csv)")
     _dataset_arg(p)
     p.add_argument("--format", choices=["text", "json", "csv"], default="text", help="output format (default text)")
+    p.add_argument("--no-drift-removal", action="store_true",
+                   help="reduce the signals as recorded (no linear or quadratic drift subtracted)")
     _output_arg(p)
     _temperature_arg(p)
 

@@ -234,7 +234,7 @@ def _time_problems(t: np.ndarray, rows: list[int], file: str, column: str) -> li
     return probs
 
 
-def _read_one(ds, rec: dict[str, str], row: int) -> tuple[TraceResult | None, list[Problem]]:
+def _read_one(ds, rec: dict[str, str], row: int, drift_removal: bool = True) -> tuple[TraceResult | None, list[Problem]]:
     """Validate and reduce one trace (one row of traces.csv)."""
     from comparo import loops, units
     from comparo.io import read_text_table
@@ -274,7 +274,8 @@ def _read_one(ds, rec: dict[str, str], row: int) -> tuple[TraceResult | None, li
     if any(q.severity == "error" for q in p):
         return None, probs
     try:
-        red = loops.strain_loop(t, x, y) if strain else loops.work_loop(t, x, y)
+        reduce = loops.strain_loop if strain else loops.work_loop
+        red = reduce(t, x, y, detrend=drift_removal)
     except loops.CycleError as exc:
         return None, probs + [_p(TRACES_FILE, row, "file", rel, "trace-cycles", f"trace {rec['trace_id']!r} cannot be split into cycles: {exc}",
                                  "record more whole cycles (at least 2, with at least 8 samples each), or check the columns and units")]
@@ -333,8 +334,11 @@ def _result(rec: dict[str, str], row: int, red, t, x, y) -> TraceResult:
     )
 
 
-def read_traces(ds) -> TraceSet:
+def read_traces(ds, *, drift_removal: bool = True) -> TraceSet:
     """Validate traces.csv and every trace file it names, and reduce the good traces.
+
+    With ``drift_removal=False`` the signals are reduced as recorded (no linear or
+    quadratic drift subtracted; docs/methods/cycles.md).
 
     Rows of traces.csv with errors (a missing cell, an unknown kind or unit, a
     source_id not in sources, a file missing or outside the folder) and trace files
@@ -342,8 +346,9 @@ def read_traces(ds) -> TraceSet:
     than 2 whole cycles) are problems naming file, row, column and value; all of
     them are collected in one pass. The result is cached on the dataset.
     """
-    if "traces" in ds.cache:
-        return ds.cache["traces"]
+    key = "traces" if drift_removal else "traces_with_drift"
+    if key in ds.cache:
+        return ds.cache[key]
     raw = ds.traces
     if raw is None:
         return TraceSet()
@@ -373,12 +378,12 @@ def read_traces(ds) -> TraceSet:
         probs += up
         if whole_file or row in bad_rows or up:
             continue
-        res, p = _read_one(ds, rec, row)
+        res, p = _read_one(ds, rec, row, drift_removal)
         probs += [replace(q, message=f"{q.message} (trace {rec['trace_id']!r}, {file} row {row})") if q.file != file else q for q in p]
         if res is not None:
             results.append(res)
     out = TraceSet(tuple(results), tuple(probs))
-    ds.cache["traces"] = out
+    ds.cache[key] = out
     return out
 
 
@@ -504,8 +509,12 @@ def trace_observations(ds, obs):
     return pd.concat([base, add[[*base.columns]]], ignore_index=True)
 
 
-def cycles(ds, *, temperature: bool = True) -> TraceSet:
+def cycles(ds, *, temperature: bool = True, drift_removal: bool = True) -> TraceSet:
     """Every trace of a loaded dataset reduced, with the taxon values added (SI units).
+
+    ``drift_removal=False`` (``comparo cycles --no-drift-removal``) reduces the signals as
+    recorded. It changes what this returns only: the values that join the harmonised
+    table (``table``, ``derive``, ``fit``, ``report``) always come with drift removal.
 
     Raises
     ------
@@ -517,5 +526,8 @@ def cycles(ds, *, temperature: bool = True) -> TraceSet:
     ts = read_traces(ds)
     if not ts.ok:
         raise InputError([p for p in ts.problems if p.severity == "error"])
-    harmonise(ds, temperature=temperature)
-    return ds.cache.get("traces_full", ts)
+    h = harmonise(ds, temperature=temperature)
+    if drift_removal:
+        return ds.cache.get("traces_full", ts)
+    rows = h.rows[h.rows["_origin"] != TRACES_FILE] if "_origin" in h.rows else h.rows
+    return with_taxon_values(ds, read_traces(ds, drift_removal=False), rows)

@@ -16,7 +16,7 @@ _TEXT_COLUMNS = (  # (JSON key, heading, factor from SI, unit shown)
 )
 
 
-def render(traces) -> str:
+def render(traces, drift_removal: bool = True) -> str:
     """Plain-text table: one block per trace, mean ± SD over cycles."""
     if not traces.results:
         return "no traces (add traces.csv and the trace files it names; see docs/data-format.md)\n"
@@ -34,6 +34,8 @@ def render(traces) -> str:
         if d["odd_modulus_implied"] is not None:
             lines.append(f"  {'implied odd modulus':<22}{d['odd_modulus_implied']:.6g} Pa")
     lines.append("(mean ± SD over cycles; --format json gives every number in SI with the per-cycle values)")
+    if not drift_removal:
+        lines.append("(signals as recorded: no drift removed; the table and report use drift removal)")
     return "\n".join(lines) + "\n"
 
 
@@ -42,7 +44,7 @@ def run(args) -> int:
     from comparo.traces import cycles
 
     ds = load(args.dataset)
-    traces = cycles(ds, temperature=not args.no_temperature)
+    traces = cycles(ds, temperature=not args.no_temperature, drift_removal=not args.no_drift_removal)
     if args.format == "json":
         emit(dumps(traces.to_dict()), args.output)
     elif args.format == "csv":
@@ -50,5 +52,5 @@ def run(args) -> int:
 
         emit(to_csv(traces.to_frame()), args.output)
     else:
-        emit(render(traces), args.output)
+        emit(render(traces, not args.no_drift_removal), args.output)
     return 0
