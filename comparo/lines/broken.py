@@ -105,7 +105,7 @@ def breakpoint_range(X: np.ndarray) -> tuple[float, float]:
     k = MIN_DISTINCT_SIDE
     if len(u) < 2 * k:
         raise UsageError(f"a breakpoint needs at least {k} distinct x values on each side "
-                         f"({2 * k} distinct in all); the data have {len(u)}")
+                         f"({2 * k} distinct in all); the usable data have {len(u)} distinct x values")
     return float(u[k - 1]), float(u[-k])
 
 
