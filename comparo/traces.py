@@ -529,5 +529,8 @@ def cycles(ds, *, temperature: bool = True, drift_removal: bool = True) -> Trace
     h = harmonise(ds, temperature=temperature)
     if drift_removal:
         return ds.cache.get("traces_full", ts)
+    raw = read_traces(ds, drift_removal=False)
+    if not raw.ok:  # a trace that splits into cycles only with its drift removed
+        raise InputError([p for p in raw.problems if p.severity == "error"])
     rows = h.rows[h.rows["_origin"] != TRACES_FILE] if "_origin" in h.rows else h.rows
-    return with_taxon_values(ds, read_traces(ds, drift_removal=False), rows)
+    return with_taxon_values(ds, raw, rows)
