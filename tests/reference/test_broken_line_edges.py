@@ -125,7 +125,7 @@ def test_stack_loss_open_data(stackloss):
     for X, Y in ((x, y), (np.log(x), np.log(y))):
         s = segmented_line(X, Y)
         psi, _, _ = _agrees(s, X, Y)
-        assert psi > np.log(50.0) + 1e-6 if X is not x else psi > 50.0 + 1e-6
+        assert psi > X.min() + 1e-6 * np.ptp(X)  # not the degenerate end (five runs at air flow 50)
     assert segmented_line(np.log(x), np.log(y))["x_log"] == pytest.approx(math.log(62.0), abs=1e-9)
 
 
