@@ -377,9 +377,18 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
         return None
     fig, ax = _figure(9.2, 4.6)
     regime = d["regime"].astype("string").fillna("").to_numpy() if "regime" in d else np.array([""] * len(d))
+    words = {"kinetic": "kinetic limited", "hydraulic": "hydraulic limited",
+             "undetermined": "undetermined (95% interval of the ratio holds the boundary)", "": "no regime"}
+    pos = (d["frequency_vs_bound"].astype("string").fillna("").to_numpy() if "frequency_vs_bound" in d
+           else np.array([""] * len(d)))
+    above = ok & (pos == "above")
     for i, r in enumerate(sorted(set(regime[ok]))):
         m = ok & (regime == r)
-        ax.plot(xr[m], yk[m], ls="", marker="o", color=PALETTE[i % len(PALETTE)], label=f"{r or 'no regime'} limited (n = {m.sum()})")
+        ax.plot(xr[m], yk[m], ls="", marker="o", color=PALETTE[i % len(PALETTE)],
+                label=f"{words.get(r, r)} (n = {m.sum()})")
+    if above.any():
+        ax.plot(xr[above], yk[above], ls="", marker="o", markersize=11, markerfacecolor="none",
+                color="#000000", label=f"above its smaller bound: limited by neither (n = {above.sum()})")
     ax.axhline(1.0, color="#000000", lw=1.4, label="kinetic bound (observed = kinetic bound)")
     okh = ok & np.isfinite(yh) & (yh > 0)
     if okh.any():

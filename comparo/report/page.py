@@ -10,7 +10,8 @@ from comparo.report.pieces import diagnostics_caption
 
 #: Columns of the regime table (times in s, frequencies in Hz, ratios dimensionless).
 REGIME_COLUMNS = ("taxon", "poroelastic_time", "kinetic_time", "poro_kinetic_ratio", "frequency_observed",
-                  "frequency_kinetic_bound", "frequency_hydraulic_bound", "frequency_ratio", "regime")
+                  "frequency_kinetic_bound", "frequency_hydraulic_bound", "frequency_ratio", "regime",
+                  "frequency_vs_bound")
 
 
 def _synthetic(settings: dict) -> bool:

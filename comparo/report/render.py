@@ -84,24 +84,36 @@ def summary_rows(fits: list[dict], titles: dict[str, str]) -> list[dict]:
 
 
 def regime_lines(derived, by: str | None) -> list[dict]:
-    """Per group (or all taxa): which bound most taxa with a derived regime are closer to."""
+    """Per group (or all taxa): how many taxa are kinetic limited, hydraulic limited,
+    undetermined (the 95% interval of Π holds the boundary) or cycle above their smaller
+    bound (counted apart: limited by neither), and which of these holds a majority."""
     if derived is None or "regime" not in derived:
         return []
     import pandas as pd
 
-    reg = derived["regime"].astype("string").fillna("undetermined").replace("", "undetermined")
+    reg = derived["regime"].astype("string").fillna("").to_numpy()
+    pos = (derived["frequency_vs_bound"].astype("string").fillna("").to_numpy()
+           if "frequency_vs_bound" in derived else [""] * len(derived))
+    cat = pd.Series(["above" if p == "above" else r for r, p in zip(reg, pos, strict=True)], index=derived.index)
     keys = derived[by] if by and by in derived else pd.Series(["all taxa"] * len(derived), index=derived.index)
+    words = {"kinetic": "kinetic limited", "hydraulic": "hydraulic limited",
+             "undetermined": "undetermined", "above": "above its smaller bound"}
     out = []
     for g in dict.fromkeys(keys):
-        counts = reg[keys == g].value_counts()
-        kin, hyd = int(counts.get("kinetic", 0)), int(counts.get("hydraulic", 0))
-        und = int(counts.sum()) - kin - hyd
-        if kin + hyd == 0:
-            text = f"not determined: none of its {und} taxa has the inputs of a regime"
-        else:
-            verdict = "kinetic limited" if kin > hyd else "hydraulic limited" if hyd > kin else "no majority"
-            text = (f"{verdict} ({kin} kinetic, {hyd} hydraulic of the {kin + hyd} taxa with a derived regime"
-                    + (f"; {und} more without the inputs)" if und else ")"))
+        counts = cat[keys == g].value_counts()
+        n = {k: int(counts.get(k, 0)) for k in words}
+        missing = int(counts.sum()) - sum(n.values())
+        total = sum(n.values())
+        if total == 0:
+            out.append({"group": g, "text": f"not determined: none of its {missing} taxa has the inputs of a regime"})
+            continue
+        parts = [f"{n['kinetic']} kinetic", f"{n['hydraulic']} hydraulic", f"{n['undetermined']} undetermined"]
+        if n["above"]:
+            parts.append(f"{n['above']} above its smaller bound (limited by neither)")
+        top = max(words, key=lambda k: n[k])
+        verdict = (f"{words[top]} for most" if 2 * n[top] > total else "no majority")
+        text = f"{verdict} ({', '.join(parts)}; of {total} taxa with a derived regime"
+        text += f"; {missing} without the inputs)" if missing else ")"
         out.append({"group": g, "text": text})
     return out
 
