@@ -66,19 +66,28 @@ def summary_rows(fits: list[dict], titles: dict[str, str]) -> list[dict]:
             gt = r.get("group_tests") or {}
             cs, el = gt.get("common_slope") or {}, gt.get("elevation") or {}
             test = ""
-            if cs:
+            differ = bool(gt.get("slopes_differ"))
+            if cs and differ:
+                slopes = ", ".join(f"{g['group']} {fmt.num(g.get('slope'))}" for g in r.get("groups") or []
+                                   if g.get("slope") is not None)
+                test = (f"the groups differ in slope (equal slopes rejected: p = {fmt.num(cs.get('p'), 3)}); "
+                        f"group slopes: {slopes}; no common slope, and no elevation test (it assumes one)")
+            elif cs:
                 lo, hi = cs.get("slope_ci") or (None, None)
                 test = (f"common slope of the {len(r.get('groups') or [])} groups {fmt.num(cs.get('slope'))} "
                         f"(CI {fmt.num(lo)} to {fmt.num(hi)}); equal slopes across groups: p = {fmt.num(cs.get('p'), 3)}")
                 if el:
-                    test += f"; equal elevations at the common slope: p = {fmt.num(el.get('p'), 3)}"
+                    test += (f"; equal elevations, assuming the common slope: p = {fmt.num(el.get('p'), 3)}")
             if r.get("lambda") is not None:
                 test = f"Pagel's λ = {fmt.num(r['lambda'], 3)}"
             ts = r.get("against") or r.get("test_slope")
             if ts:
                 test += f"{'; ' if test else ''}slope = {ts['value']:g}: p = {fmt.num(ts['p'], 3)}"
+            caution = "; ".join(c["message"] for c in r.get("cautions") or [])
             row |= {"method": f["method"].upper(), "n": r["n"], "slope": r["slope"], "lo": r["slope_ci"][0],
-                    "hi": r["slope_ci"][1], "test": test}
+                    "hi": r["slope_ci"][1], "test": test, "differ": differ, "caution": caution}
+            if differ:  # the pooled line is no group's exponent: the row does not headline it
+                row |= {"slope": None, "lo": None, "hi": None}
         rows.append(row)
     return rows
 
