@@ -86,14 +86,21 @@ def render(fig: Figure) -> tuple[bytes, bytes]:
 
 
 def axis_label(key: str, catalog: Mapping[str, Any] | None) -> str:
-    """``Label (unit)`` from the catalogue; a key outside it is shown as it is, marked."""
+    """``Label (unit)`` from the catalogue, else from the derived keys (schema/derived.toml);
+    a column of a plain table (no catalogue) is named as it is, ``(unit as in the table)``."""
     from comparo.units import pretty
 
     q = catalog.get(key) if catalog is not None else None
-    if q is None:
-        return f"{key} (unit: see derived table)"
-    unit = pretty(q.unit)
-    return f"{q.label} ({'dimensionless' if unit == '1' else unit})"
+    if q is not None:
+        label, unit = q.label, pretty(q.unit)
+    else:
+        from comparo.catalog import read_schema
+
+        spec = read_schema("derived.toml")["keys"].get(key) if catalog is not None else None
+        if spec is None or spec.get("unit") is None:
+            return f"{key} (unit as in the table)"
+        label, unit = spec.get("label", key), pretty(spec["unit"])
+    return f"{label} ({'dimensionless' if unit in ('1', 'dimensionless') else unit})"
 
 
 def weakest_basis(*bases: str) -> str:
@@ -245,6 +252,9 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
     from matplotlib.lines import Line2D
 
     handles, labels = ax.get_legend_handles_labels()
+    for g in groups:  # every point colour is named: each group, with or without a line of its own
+        handles.append(Line2D([], [], ls="", marker="o", color=colour[g]))
+        labels.append(f"taxa (n = {len(points)})" if g is None else f"{g} (n = {int((points['group'] == g).sum())})")
     for basis in dict.fromkeys(points["basis"]):
         if basis in BASIS_FILL:
             handles.append(Line2D([], [], ls="", marker="o", color="#555555", fillstyle=BASIS_FILL[basis]))
@@ -302,7 +312,7 @@ def diagnostics(report: Any, *, title: str = "") -> Figure:
     scale = "fitted value a + b x (log scale of y)"
 
     def dots(ax, xs, ys):
-        ax.plot(xs[~mark], ys[~mark], ls="", marker="o", color=PALETTE[0])
+        ax.plot(xs[~mark], ys[~mark], ls="", marker="o", color=PALETTE[0], label=f"not flagged ({int((~mark).sum())})")
         if mark.any():
             ax.plot(xs[mark], ys[mark], ls="", marker="o", color=PALETTE[3], label=f"flagged ({len(flagged)})")
 
@@ -323,7 +333,7 @@ def diagnostics(report: Any, *, title: str = "") -> Figure:
     ax.plot(q[~mark[order]], stud[order][~mark[order]], ls="", marker="o", color=PALETTE[0])
     ax.plot(q[mark[order]], stud[order][mark[order]], ls="", marker="o", color=PALETTE[3])
     ax.set_xlabel("normal quantile (standard units)")
-    ax.set_ylabel("ordered studentized residual")
+    ax.set_ylabel("ordered studentized residual (dimensionless)")
     ax.set_title("normal QQ")
     ax = axes[2]
     dots(ax, lev, cook)
@@ -429,8 +439,8 @@ def coverage_map(coverage: Mapping[str, Mapping[str, str]], quantities: Sequence
     ax.set_xticks(range(len(qs)), [short(q) for q in qs], rotation=60, ha="right", fontsize=7)
     ax.set_yticks(range(len(taxa)), [short(t) for t in taxa], fontsize=6 if len(taxa) > 30 else 8)
     ax.grid(False)
-    ax.set_xlabel("quantity")
-    ax.set_ylabel("taxon")
+    ax.set_xlabel("quantity (catalogue key)")
+    ax.set_ylabel("taxon (accepted name)")
     ax.set_title("Coverage: weakest basis of each value")
     ax.legend([Patch(facecolor=BASIS_COLOURS[k], edgecolor="#999999") for k in keys],
               [k or "no value" for k in keys], loc="upper left", bbox_to_anchor=(1.01, 1), frameon=False)
@@ -446,7 +456,7 @@ def source_chart(sources: pd.DataFrame) -> Figure:
     ax.barh(yy + 0.2, s["taxa"], height=0.4, color=PALETTE[1], label="taxa")
     ax.set_yticks(yy, [short(v) for v in s["source_id"]])
     ax.set_xlabel("count (values or taxa)")
-    ax.set_ylabel("source")
+    ax.set_ylabel("source (source_id)")
     ax.set_title("Contribution of each source")
     ax.legend(frameon=False, loc="lower right")
     return fig
@@ -598,6 +608,8 @@ def tree_trait(tree: Any, values: Mapping[str, float], *, label: str, names: Map
     if labelled:
         shown = [(names or {}).get(t) or t.replace("_", " ") for t in tips]
         ax.set_yticks(ty, [short(v) for v in shown], fontsize=min(8.0, max(3.0, 0.8 * row_pt)))
+        ax.yaxis.set_label_position("right")
+        ax.set_ylabel("tip (taxon)")
         ax.tick_params(axis="y", length=0, pad=2 + 0.3 * np.sqrt(size))
     else:
         ax.set_yticks([])
@@ -652,6 +664,7 @@ def forest_plot(rows: Sequence[Mapping[str, Any]], *, slope: float, slope_ci: Se
     ax.set_ylim(n - 0.5, -0.5)
     ax.grid(axis="y", visible=False)
     ax.set_xlabel(xlabel)
+    ax.set_ylabel("refit without one source (source_id)")
     ax.set_title(f"{title or 'Leave one source out'}\n({n} sources, most influential at the top)")
     ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
@@ -684,8 +697,8 @@ def loop_plot(trace: Any) -> Figure:
                     label="isochoric: (1+ε_a)^(-1/2) − 1")
             ax.set_xlabel("axial strain ε_a (%)")
             ax.set_ylabel("radial strain ε_r (%)")
-            area = trace.values["loop_area"][0]
-            what = f"signed area {area:.3g}"
+            area = trace.values["loop_area"][0] * sx * sy  # strain fraction² -> %², the axes' units
+            what = f"signed area {area:.4g} %²"
         else:
             ax.set_xlabel("length (mm)")
             ax.set_ylabel("force (mN)")

@@ -139,9 +139,10 @@ def test_a_folder_is_never_called_a_plain_table():
     """The report's sensitivity of a fit on a derived quantity of a dataset folder (the
     demo) runs on the derived table; its verdict says why the source-level parts are
     missing without calling the folder a plain table."""
+    from support import DEMO
+
     import comparo
     from comparo.report.pieces import run_sensitivity
-    from support import DEMO
 
     ds = comparo.load(DEMO)
     table = comparo.per_taxon(ds)

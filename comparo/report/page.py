@@ -26,6 +26,7 @@ def _analysis_view(run, sec: dict) -> dict:
         tree_caption = (f"{sec['tree_caption']} Colour map cividis (readable with colour-vision deficiency); the colours "
                         "show the values as compiled, not a reconstruction of ancestral states.")
     return {"id": aid, "title": sec["title"], "summary": res.summary(), "frame": sec["frame"],
+            "cautions": [c["message"] for c in res.cautions],
             "scaling": render.fig(figs, f"{aid}_scaling", f"scaling plot: {sec['title']}"),
             "diagnostics": render.fig(figs, f"{aid}_diagnostics", f"residual diagnostics: {sec['title']}"),
             "diagnostics_caption": diagnostics_caption(res, run.frames["flags"], aid),
