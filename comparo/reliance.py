@@ -687,7 +687,7 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool | 
             parts.append(f"measurement error{where} dominates the slope uncertainty "
                          f"({100 * share:.0f}% of the slope variance)")
         elif share >= 0.1:
-            parts.append(f"measurement error{where} {100 * share:.0f}% of the slope variance")
+            parts.append(f"measurement error{where} accounts for {100 * share:.0f}% of the slope variance")
         else:
             parts.append(f"measurement error{where} under 10% of the slope variance"
                          if fixed else "measurement error negligible (under 10% of the slope variance)")

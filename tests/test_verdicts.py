@@ -62,6 +62,11 @@ def test_slopes_differ_no_common_slope_headline_and_no_elevation_test():
     assert "differ in slope" in row["test"] and "common slope " not in row["test"]
     for name, b in slopes_sm.items():
         assert f"{name} {b:.3g}"[:6] in row["test"]
+    # the report command's printed summary does not headline the pooled slope either
+    from comparo.report.result import ReportResult
+
+    printed = ReportResult("out", True, 0, 0, fits=({"id": "a", "result": r.to_dict()},)).summary()
+    assert "differ in slope" in printed and f"slope {r.slope:.4g}"[:10] not in printed
 
 
 def test_slopes_equal_elevation_shown_with_its_assumption():

@@ -54,3 +54,14 @@ def fit_cautions(method: str, n: int, X: np.ndarray | None = None, Y: np.ndarray
     if X is not None and Y is not None:
         out.append(weak_correlation(method, X, Y))
     return tuple(c for c in out if c is not None)
+
+
+def caution_lines(cautions: Sequence[dict]) -> list[str]:
+    """The cautions for people, one line each; the groups with few taxa share one line."""
+    groups = [c for c in cautions if c["rule"] == "few_taxa" and c.get("group") is not None]
+    out = [c["message"] for c in cautions if c not in groups]
+    if groups:
+        named = ", ".join(f"{c['group']} ({c['n']})" for c in groups)
+        out.append(f"groups with fewer than {MIN_TAXA} taxa (a rule of thumb for a scaling exponent), whose own "
+                   f"exponents rest on few points: {named}")
+    return out

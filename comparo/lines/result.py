@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from comparo.jsonsafe import json_safe as _json
+from comparo.lines.cautions import caution_lines
 from comparo.lines.numbers import _NAN, _f, _nan, _num, _p, _pair
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -185,7 +186,7 @@ class FitResult:
         from comparo.display import frame_html
 
         scale = {"10": "log10", "e": "ln", "none": "untransformed"}[self.log]
-        notes = [f"CAUTION: {c['message']}" for c in self.cautions]
+        notes = [f"CAUTION: {line}" for line in caution_lines(self.cautions)]
         notes += [_against_text(self.against)] if self.against else []
         if self.group_tests:
             notes += [line.strip() for line in _group_comparison_lines(self.group_tests)]
@@ -240,7 +241,7 @@ class FitResult:
             f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}",
             *(["  the groups differ in slope: the line below pools all taxa and is the exponent of no group"]
               if differ else []),
-            *[f"  CAUTION: {c['message']}" for c in self.cautions],
+            *[f"  CAUTION: {line}" for line in caution_lines(self.cautions)],
             f"  slope      {_f(self.slope)}   {pct} CI {_f(self.slope_ci[0])} .. {_f(self.slope_ci[1])}",
             f"  intercept  {_f(self.intercept)}   {pct} CI {_f(self.intercept_ci[0])} .. {_f(self.intercept_ci[1])}",
             f"  r2         {_f(self.r2)}",

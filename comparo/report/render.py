@@ -12,6 +12,7 @@ from typing import Any
 
 from markupsafe import Markup
 
+from comparo.lines.cautions import caution_lines
 from comparo.report import fmt
 from comparo.report.pieces import quantity_name
 from comparo.report.result import DISCLAIMER, LAMBDA_GRID
@@ -83,7 +84,7 @@ def summary_rows(fits: list[dict], titles: dict[str, str]) -> list[dict]:
             ts = r.get("against") or r.get("test_slope")
             if ts:
                 test += f"{'; ' if test else ''}slope = {ts['value']:g}: p = {fmt.num(ts['p'], 3)}"
-            caution = "; ".join(c["message"] for c in r.get("cautions") or [])
+            caution = "; ".join(caution_lines(r.get("cautions") or []))
             row |= {"method": f["method"].upper(), "n": r["n"], "slope": r["slope"], "lo": r["slope_ci"][0],
                     "hi": r["slope_ci"][1], "test": test, "differ": differ, "caution": caution}
             if differ:  # the pooled line is no group's exponent: the row does not headline it
@@ -106,7 +107,7 @@ def regime_lines(derived, by: str | None) -> list[dict]:
     cat = pd.Series(["above" if p == "above" else r for r, p in zip(reg, pos, strict=True)], index=derived.index)
     keys = derived[by] if by and by in derived else pd.Series(["all taxa"] * len(derived), index=derived.index)
     words = {"kinetic": "kinetic limited", "hydraulic": "hydraulic limited",
-             "undetermined": "undetermined", "above": "above its smaller bound"}
+             "undetermined": "undetermined", "above": "above their smaller bound"}
     out = []
     for g in dict.fromkeys(keys):
         counts = cat[keys == g].value_counts()
@@ -120,8 +121,8 @@ def regime_lines(derived, by: str | None) -> list[dict]:
         if n["above"]:
             parts.append(f"{n['above']} above its smaller bound (limited by neither)")
         top = max(words, key=lambda k: n[k])
-        verdict = (f"{words[top]} for most" if 2 * n[top] > total else "no majority")
-        text = f"{verdict} ({', '.join(parts)}; of {total} taxa with a derived regime"
+        verdict = (f"mostly {words[top]}" if 2 * n[top] > total else "no majority")
+        text = f"{verdict} (of {total} taxa with a derived regime: {', '.join(parts)}"
         text += f"; {missing} without the inputs)" if missing else ")"
         out.append({"group": g, "text": text})
     return out
