@@ -232,7 +232,9 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
     grid = np.linspace(X.min(), X.max(), 120)
     pct = f"{100 * fit.ci_level:g}%"
     lo, hi = fit.slope_ci
-    eq = f"all: b = {_fmt(fit.slope)} ({pct} CI {_fmt(lo)} to {_fmt(hi)}), a = {_fmt(fit.intercept)}"
+    differ = bool(getattr(fit, "group_tests", None) and fit.group_tests.get("slopes_differ"))
+    who = "all taxa pooled (the groups differ in slope)" if differ else "all"
+    eq = f"{who}: b = {_fmt(fit.slope)} ({pct} CI {_fmt(lo)} to {_fmt(hi)}), a = {_fmt(fit.intercept)}"
     if fit.lambda_ is not None:
         eq += f", λ = {_fmt(fit.lambda_)}"
     ax.plot(inv(grid), inv(fit.intercept + fit.slope * grid), color="#000000", lw=1.6, label=eq)

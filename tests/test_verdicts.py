@@ -62,6 +62,12 @@ def test_slopes_differ_no_common_slope_headline_and_no_elevation_test():
     assert "differ in slope" in row["test"] and "common slope " not in row["test"]
     for name, b in slopes_sm.items():
         assert f"{name} {b:.3g}"[:6] in row["test"]
+    # the scaling figure's legend names the pooled line as such
+    from comparo import plots
+
+    fig = plots.scaling_plot(r, pd.DataFrame(list(r.points)), by="g", seed=1)
+    texts = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert any(t.startswith("all taxa pooled (the groups differ in slope): b = ") for t in texts)
     # the report command's printed summary does not headline the pooled slope either
     from comparo.report.result import ReportResult
 

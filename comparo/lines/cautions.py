@@ -41,7 +41,7 @@ def weak_correlation(method: str, X: np.ndarray, Y: np.ndarray) -> dict | None:
         return None
     return {"rule": "weak_correlation", "r": r, "threshold": WEAK_R,
             "message": f"weak correlation (|r| = {abs(r):.2f} < {WEAK_R:g}): the {method.upper()} slope is poorly "
-                       "determined and its test rejects too often; test r first"}
+                       "determined and its slope test may reject more often than its level; test r first"}
 
 
 def fit_cautions(method: str, n: int, X: np.ndarray | None = None, Y: np.ndarray | None = None,
