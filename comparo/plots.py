@@ -390,13 +390,15 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
     fig, ax = _figure(9.2, 4.6)
     regime = d["regime"].astype("string").fillna("").to_numpy() if "regime" in d else np.array([""] * len(d))
     words = {"kinetic": "kinetic limited", "hydraulic": "hydraulic limited",
-             "undetermined": "undetermined (95% interval of the ratio holds the boundary)", "": "no regime"}
+             "undetermined": "undetermined (95% interval of Π holds the boundary)", "": "no regime"}
     pos = (d["frequency_vs_bound"].astype("string").fillna("").to_numpy() if "frequency_vs_bound" in d
            else np.array([""] * len(d)))
     above = ok & (pos == "above")
-    for i, r in enumerate(sorted(set(regime[ok]))):
+    colours = {"kinetic": PALETTE[1], "hydraulic": PALETTE[0], "undetermined": PALETTE[2], "": "#999999"}
+    present = set(regime[ok])
+    for r in [k for k in colours if k in present] + sorted(present - set(colours)):  # fixed colours
         m = ok & (regime == r)
-        ax.plot(xr[m], yk[m], ls="", marker="o", color=PALETTE[i % len(PALETTE)],
+        ax.plot(xr[m], yk[m], ls="", marker="o", color=colours.get(r, PALETTE[4]),
                 label=f"{words.get(r, r)} (n = {m.sum()})")
     if above.any():
         ax.plot(xr[above], yk[above], ls="", marker="o", markersize=11, markerfacecolor="none",
@@ -408,9 +410,9 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
         ax.plot(xr[okh][order], yh[okh][order], color=PALETTE[3], lw=1.4, ls="--", label="hydraulic bound (per taxon)")
     ax.set_xscale("log")
     ax.set_yscale("log")
-    ax.set_xlabel("poro-kinetic ratio, poroelastic time / kinetic time (dimensionless)")
+    ax.set_xlabel("Π = poroelastic / kinetic time (dimensionless)")
     ax.set_ylabel("observed frequency / kinetic bound (dimensionless)")
-    ax.set_title(f"Regime: which bound is closer ({int(ok.sum())} taxa)")
+    ax.set_title(f"Regime within the uncertainty of Π ({int(ok.sum())} taxa)")
     plain_log_ticks(ax)
     ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
