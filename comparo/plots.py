@@ -234,7 +234,8 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
     lo, hi = fit.slope_ci
     differ = bool(getattr(fit, "group_tests", None) and fit.group_tests.get("slopes_differ"))
     who = "all taxa pooled (the groups differ in slope)" if differ else "all"
-    eq = f"{who}: b = {_fmt(fit.slope)} ({pct} CI {_fmt(lo)} to {_fmt(hi)}), a = {_fmt(fit.intercept)}"
+    eq = (f"{who}: b = {_fmt(fit.slope)} ({pct} CI {_fmt(lo)} to {_fmt(hi)}), "
+          f"a = {_fmt(fit.intercept)}")
     if fit.lambda_ is not None:
         eq += f", λ = {_fmt(fit.lambda_)}"
     ax.plot(inv(grid), inv(fit.intercept + fit.slope * grid), color="#000000", lw=1.6, label=eq)
@@ -256,7 +257,8 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
     handles, labels = ax.get_legend_handles_labels()
     for g in groups:  # every point colour is named: each group, with or without a line of its own
         handles.append(Line2D([], [], ls="", marker="o", color=colour[g]))
-        labels.append(f"taxa (n = {len(points)})" if g is None else f"{g} (n = {int((points['group'] == g).sum())})")
+        k = len(points) if g is None else int((points["group"] == g).sum())
+        labels.append(f"{'taxa' if g is None else g} (n = {k})")
     for basis in dict.fromkeys(points["basis"]):
         if basis in BASIS_FILL:
             handles.append(Line2D([], [], ls="", marker="o", color="#555555", fillstyle=BASIS_FILL[basis]))
@@ -314,7 +316,8 @@ def diagnostics(report: Any, *, title: str = "") -> Figure:
     scale = "fitted value a + b x (log scale of y)"
 
     def dots(ax, xs, ys):
-        ax.plot(xs[~mark], ys[~mark], ls="", marker="o", color=PALETTE[0], label=f"not flagged ({int((~mark).sum())})")
+        ax.plot(xs[~mark], ys[~mark], ls="", marker="o", color=PALETTE[0],
+                label=f"not flagged ({int((~mark).sum())})")
         if mark.any():
             ax.plot(xs[mark], ys[mark], ls="", marker="o", color=PALETTE[3], label=f"flagged ({len(flagged)})")
 
@@ -391,10 +394,11 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
     regime = d["regime"].astype("string").fillna("").to_numpy() if "regime" in d else np.array([""] * len(d))
     words = {"kinetic": "kinetic limited", "hydraulic": "hydraulic limited",
              "undetermined": "undetermined (95% interval of Π holds the boundary)", "": "no regime"}
-    pos = (d["frequency_vs_bound"].astype("string").fillna("").to_numpy() if "frequency_vs_bound" in d
-           else np.array([""] * len(d)))
+    pos = (d["frequency_vs_bound"].astype("string").fillna("").to_numpy()
+           if "frequency_vs_bound" in d else np.array([""] * len(d)))
     above = ok & (pos == "above")
-    colours = {"kinetic": PALETTE[1], "hydraulic": PALETTE[0], "undetermined": PALETTE[2], "": "#999999"}
+    colours = {"kinetic": PALETTE[1], "hydraulic": PALETTE[0], "undetermined": PALETTE[2],
+               "": "#999999"}
     present = set(regime[ok])
     for r in [k for k in colours if k in present] + sorted(present - set(colours)):  # fixed colours
         m = ok & (regime == r)
@@ -402,7 +406,8 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
                 label=f"{words.get(r, r)} (n = {m.sum()})")
     if above.any():
         ax.plot(xr[above], yk[above], ls="", marker="o", markersize=11, markerfacecolor="none",
-                color="#000000", label=f"above its smaller bound: limited by neither (n = {above.sum()})")
+                color="#000000",
+                label=f"above its smaller bound: limited by neither (n = {above.sum()})")
     ax.axhline(1.0, color="#000000", lw=1.4, label="kinetic bound (observed = kinetic bound)")
     okh = ok & np.isfinite(yh) & (yh > 0)
     if okh.any():

@@ -560,7 +560,8 @@ def sensitivity(
     else:
         table = dataset_or_table
         why = no_sources or "a plain table does not record the source and basis of each value"
-        unavailable.append(f"leave-one-source-out and basis filters need values with one source each ({why})")
+        unavailable.append("leave-one-source-out and basis filters need values with one source "
+                           f"each ({why})")
     base = fit(table, x, y, method, **kw)
     se = analytic_se(base)
     p_full = _p(base)
@@ -687,7 +688,8 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool | 
             parts.append(f"measurement error{where} dominates the slope uncertainty "
                          f"({100 * share:.0f}% of the slope variance)")
         elif share >= 0.1:
-            parts.append(f"measurement error{where} accounts for {100 * share:.0f}% of the slope variance")
+            parts.append(f"measurement error{where} accounts for {100 * share:.0f}% of the slope "
+                         "variance")
         else:
             parts.append(f"measurement error{where} under 10% of the slope variance"
                          if fixed else "measurement error negligible (under 10% of the slope variance)")

@@ -39,7 +39,8 @@ def _axes_labelled(fig) -> list[str]:
 
 def _legend_colours(fig) -> set[str]:
     out = set()
-    legends = [ax.get_legend() for ax in fig.axes if ax.get_legend() is not None] + list(fig.legends)
+    legends = [ax.get_legend() for ax in fig.axes if ax.get_legend() is not None]
+    legends += list(fig.legends)
     for leg in legends:
         for h in leg.legend_handles:
             for get in ("get_color", "get_markerfacecolor", "get_markeredgecolor", "get_facecolor"):
@@ -56,7 +57,8 @@ def _point_colours(fig) -> set[str]:
     out = set()
     for ax in fig.axes:
         for line in ax.get_lines():
-            if line.get_marker() in (None, "None", "", " ") or line.get_linestyle() not in ("None", "", " "):
+            no_marker = line.get_marker() in (None, "None", "", " ")
+            if no_marker or line.get_linestyle() not in ("None", "", " "):
                 continue
             if len(line.get_xdata()):
                 out.add(to_hex(line.get_color()))
@@ -75,8 +77,8 @@ def table():
     m = 10 ** rng.uniform(-4, 2, 32)
     f = 30 * m ** -0.2 * 10 ** rng.normal(0, 0.05, 32)
     clade = ["A", "B", "C"] * 10 + ["D", "D"]  # D: two taxa, no line of its own
-    return pd.DataFrame({"taxon": [f"t{i:02d}" for i in range(32)], "body_mass": m, "frequency_observed": f,
-                         "clade": clade})
+    return pd.DataFrame({"taxon": [f"t{i:02d}" for i in range(32)], "body_mass": m,
+                         "frequency_observed": f, "clade": clade})
 
 
 def test_scaling_plot_names_every_group_colour_and_units(table):
@@ -116,8 +118,10 @@ def test_regime_coverage_sources_lambda_forest_and_tree_figures():
                       "frequency_vs_bound": ["below", "above", "undetermined", None]})
     _check(plots.regime_plot(d))
     _check(plots.coverage_map({"t1": {"body_mass": "reported", "fiber_radius": "proxy"}}))
-    _check(plots.source_chart(pd.DataFrame({"source_id": ["s1", "s2"], "values": [5, 3], "taxa": [2, 1]})))
-    _check(plots.lambda_profile([0, 0.5, 1], [1.0, 3.0, 2.0], lam_hat=0.6, loglik_hat=3.1, lam_ci=[0.3, 0.9]))
+    sources = pd.DataFrame({"source_id": ["s1", "s2"], "values": [5, 3], "taxa": [2, 1]})
+    _check(plots.source_chart(sources))
+    _check(plots.lambda_profile([0, 0.5, 1], [1.0, 3.0, 2.0], lam_hat=0.6, loglik_hat=3.1,
+                                lam_ci=[0.3, 0.9]))
     rows = [{"source_id": "S1", "n": 9, "slope": -0.2, "slope_ci": [-0.25, -0.15], "flips": False},
             {"source_id": "S2", "n": 9, "slope": -0.1, "slope_ci": [-0.2, 0.0], "flips": True}]
     _check(plots.forest_plot(rows, slope=-0.21, slope_ci=[-0.23, -0.19]))
@@ -129,7 +133,8 @@ def _ellipse_trace(kind: str, a: float, b: float, value: float) -> SimpleNamespa
     t = np.linspace(0, 3, 3 * 400 + 1)
     x, y = a * np.cos(2 * np.pi * t), b * np.sin(2 * np.pi * t)
     key = "loop_area" if kind == "strain_cycle" else "net_work"
-    return SimpleNamespace(signals=(t, x, y), kind=kind, cycle_bounds=[(0.0, 1.0), (1.0, 2.0), (2.0, 3.0)],
+    return SimpleNamespace(signals=(t, x, y), kind=kind,
+                           cycle_bounds=[(0.0, 1.0), (1.0, 2.0), (2.0, 3.0)],
                            values={key: (value, 0.0)}, trace_id="e1", taxon="Ellipsia", cycles=3)
 
 

@@ -100,7 +100,8 @@ def test_regime_with_monte_carlo_uses_the_mc_interval():
     for taxa whose own 95% interval is far enough from 1 that the draws cannot disagree
     (tolerance: the interval end is at least 10% from 1 with 20,000 own draws)."""
     cases = [("a", 2.0, 0.08), ("b", 0.45, 0.08), ("c", 1.05, 0.08), ("d", 3.0, 0.3)]
-    out = derive(pd.DataFrame([_row(t, p, r) for t, p, r in cases]), mc=20000, seed=5).set_index("taxon")
+    table = pd.DataFrame([_row(t, p, r) for t, p, r in cases])
+    out = derive(table, mc=20000, seed=5).set_index("taxon")
     rng = np.random.default_rng(11)
     for t, p, r in cases:
         s2 = math.log1p(r * r)
@@ -117,7 +118,8 @@ def test_regime_with_monte_carlo_uses_the_mc_interval():
 def test_frequency_above_the_smaller_bound_beyond_its_uncertainty():
     """A taxon cycling 26% above its smaller bound with a 2% frequency uncertainty is
     above it (own log-scale 95% interval of f_obs / min bound, first order)."""
-    rows = [_row("above", 0.3, 0.01, f_rel_to_bound=1.26), _row("below", 0.3, 0.01, f_rel_to_bound=0.5),
+    rows = [_row("above", 0.3, 0.01, f_rel_to_bound=1.26),
+            _row("below", 0.3, 0.01, f_rel_to_bound=0.5),
             _row("at", 3.0, 0.01, f_rel_to_bound=1.02), _row("none", 3.0, 0.01)]
     out = derive(pd.DataFrame(rows)).set_index("taxon")
     for t, want in (("above", "above"), ("below", "below"), ("at", "undetermined")):

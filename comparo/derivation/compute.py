@@ -95,7 +95,8 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
         ``regime`` is text ('kinetic', 'hydraulic', or 'undetermined' when the 95%
         interval of poro_kinetic_ratio, first order or Monte Carlo, holds the boundary)
         with basis, obs, method and missing columns only; ``frequency_vs_bound`` is text
-        ('below', 'above', 'undetermined': the 95% interval of frequency_ratio against 1). ``attrs['units']`` maps each added key to its unit.
+        ('below', 'above', 'undetermined': the 95% interval of frequency_ratio against
+        1). ``attrs['units']`` maps each added key to its unit.
 
     Raises
     ------
@@ -137,7 +138,8 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     prop = _propagate(compute, lv.values, lv.rel_u, ignore_unknown, mc, rng, list(_SI), mirrors, progress=progress)
     reasons = _missing_reasons(s, prop.values, lv.absent, t_reason)
     methods = _routes(s, lv.values, prop.values, thin_per_thick, temperature, length_key)
-    new, units = _assemble(keys, prop, lv, names, reasons, methods, mc, float(s["hydraulic_mode_factor"]))
+    mode = float(s["hydraulic_mode_factor"])
+    new, units = _assemble(keys, prop, lv, names, reasons, methods, mc, mode)
     out = table.drop(columns=[c for c in new if c in table.columns])
     out = pd_concat(out, new)
     if ratio_settings:
@@ -383,16 +385,16 @@ def _assemble(keys: dict, prop, lv: _Leaves, names: dict[str, str], reasons: dic
                              pi_mc.get("_mc_lo95"), pi_mc.get("_mc_hi95"))
     regime[~np.isfinite(score)] = None
     route = "Monte Carlo 95% interval" if mc > 0 else "first-order 95% interval"
-    how = (f"the smaller frequency bound limits; undetermined when the {route} of poro_kinetic_ratio "
-           f"holds {mode:g}")
+    how = (f"the smaller frequency bound limits; undetermined when the {route} of "
+           f"poro_kinetic_ratio holds {mode:g}")
     no_u = np.isfinite(score) & ~np.isfinite(prop.u["poro_kinetic_ratio"])
     reg_method = np.where(no_u, how + " (no uncertainty of poro_kinetic_ratio: undetermined)", how)
-    reg = _lineage_columns("_regime_score", score, prop, basis, obs, display, reasons["regime"], reg_method,
-                           cache=lineage_cache)
+    reg = _lineage_columns("_regime_score", score, prop, basis, obs, display, reasons["regime"],
+                           reg_method, cache=lineage_cache)
     new["regime"] = regime
     new.update({c.replace("_regime_score", "regime"): v for c, v in reg.items()})
     units["regime"] = "dimensionless"
-    new["frequency_vs_bound"] = frequency_vs_bound(vals["frequency_ratio"], prop.u["frequency_ratio"],
-                                                   fr_mc.get("_mc_lo95"), fr_mc.get("_mc_hi95"))
+    new["frequency_vs_bound"] = frequency_vs_bound(
+        vals["frequency_ratio"], prop.u["frequency_ratio"], fr_mc.get("_mc_lo95"), fr_mc.get("_mc_hi95"))
 
     return new, units

@@ -16,8 +16,8 @@ import numpy as np
 MIN_TAXA = 10
 
 #: |r| below which an SMA or MA slope is flagged: the line's direction is then poorly
-#: determined and the slope test's size is inflated (Warton et al. 2006, section on
-#: testing; the cut-off 0.3 is common practice).
+#: determined (Warton et al. 2006) and the slope test may reject more often than its
+#: level; the cut-off 0.3 is common practice.
 WEAK_R = 0.3
 
 
@@ -27,8 +27,8 @@ def few_taxa(n: int, group: str | None = None) -> dict | None:
         return None
     who = f"group {group!r}: " if group is not None else ""
     return {"rule": "few_taxa", "group": group, "n": int(n), "minimum": MIN_TAXA,
-            "message": f"{who}only {n} taxa (fewer than {MIN_TAXA}, a rule of thumb for a scaling exponent): "
-                       "the exponent rests on few points"}
+            "message": f"{who}only {n} taxa (fewer than {MIN_TAXA}, a rule of thumb for a scaling "
+                       "exponent): the exponent rests on few points"}
 
 
 def weak_correlation(method: str, X: np.ndarray, Y: np.ndarray) -> dict | None:
@@ -40,8 +40,9 @@ def weak_correlation(method: str, X: np.ndarray, Y: np.ndarray) -> dict | None:
     if not math.isfinite(r) or abs(r) >= WEAK_R:
         return None
     return {"rule": "weak_correlation", "r": r, "threshold": WEAK_R,
-            "message": f"weak correlation (|r| = {abs(r):.2f} < {WEAK_R:g}): the {method.upper()} slope is poorly "
-                       "determined and its slope test may reject more often than its level; test r first"}
+            "message": f"weak correlation (|r| = {abs(r):.2f} < {WEAK_R:g}): the {method.upper()} "
+                       "slope is poorly determined and its slope test may reject more often than its "
+                       "level; test r first"}
 
 
 def fit_cautions(method: str, n: int, X: np.ndarray | None = None, Y: np.ndarray | None = None,
@@ -62,6 +63,6 @@ def caution_lines(cautions: Sequence[dict]) -> list[str]:
     out = [c["message"] for c in cautions if c not in groups]
     if groups:
         named = ", ".join(f"{c['group']} ({c['n']})" for c in groups)
-        out.append(f"groups with fewer than {MIN_TAXA} taxa (a rule of thumb for a scaling exponent), whose own "
-                   f"exponents rest on few points: {named}")
+        out.append(f"groups with fewer than {MIN_TAXA} taxa (a rule of thumb for a scaling "
+                   f"exponent), whose own exponents rest on few points: {named}")
     return out

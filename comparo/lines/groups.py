@@ -187,7 +187,7 @@ def judge_slopes(tests: dict | None, ci: float) -> dict | None:
     elevation and shift tests compare groups along one common slope, so they are
     meaningful only when equal slopes are not rejected: then ``assumes`` says so;
     when equal slopes are rejected both are set to None and ``omitted`` says why
-    (rule of docs/methods/fitting.md, "Groups"). The common-slope estimate stays in
+    (rule of docs/methods/fitting.md, "Comparing groups"). The common-slope estimate stays in
     the dict beside its test, but no summary presents it as the groups' exponent.
     """
     if not tests or not tests.get("common_slope"):
@@ -205,9 +205,10 @@ def judge_slopes(tests: dict | None, ci: float) -> dict | None:
         if dropped:
             tests_word = (f"the {' and '.join(dropped)} tests, which assume" if len(dropped) > 1
                           else f"the {dropped[0]} test, which assumes")
-            out["omitted"] = (f"equal slopes rejected (p = {p:.3g} < {alpha:g}): the groups differ in slope, so "
-                              f"{tests_word} one common slope, {'are' if len(dropped) > 1 else 'is'} not given")
+            verb = "are" if len(dropped) > 1 else "is"
+            out["omitted"] = (f"equal slopes rejected (p = {p:.3g} < {alpha:g}): the groups differ in "
+                              f"slope, so {tests_word} one common slope, {verb} not given")
     else:
-        out["assumes"] = (f"equal slopes not rejected (p = {p:.3g} >= {alpha:g}): the elevation and shift tests "
-                          "assume the groups share the common slope")
+        out["assumes"] = (f"equal slopes not rejected (p = {p:.3g} >= {alpha:g}): the elevation and "
+                          "shift tests assume the groups share the common slope")
     return out

@@ -166,8 +166,9 @@ class FitResult:
             for term in ("slope", "intercept"):
                 lo, hi = g.get(f"{term}_ci") or (_NAN, _NAN)
                 rows.append({"group": g["group"], "term": term, "estimate": g.get(term), "ci_low": lo, "ci_high": hi, "n": g["n"]})
-        if self.group_tests and self.group_tests.get("common_slope") and not self.group_tests.get("slopes_differ"):
-            cs = self.group_tests["common_slope"]
+        gt = self.group_tests or {}
+        if gt.get("common_slope") and not gt.get("slopes_differ"):
+            cs = gt["common_slope"]
             lo, hi = cs.get("slope_ci") or (_NAN, _NAN)
             rows.append({"group": "(common)", "term": "slope", "estimate": cs.get("slope"), "ci_low": lo, "ci_high": hi, "n": self.n})
         if self.breakpoint:
@@ -239,8 +240,8 @@ class FitResult:
         differ = bool(self.group_tests and self.group_tests.get("slopes_differ"))
         lines = [
             f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}",
-            *(["  the groups differ in slope: the line below pools all taxa and is the exponent of no group"]
-              if differ else []),
+            *(["  the groups differ in slope: the line below pools all taxa and is the exponent of "
+               "no group"] if differ else []),
             *[f"  CAUTION: {line}" for line in caution_lines(self.cautions)],
             f"  slope      {_f(self.slope)}   {pct} CI {_f(self.slope_ci[0])} .. {_f(self.slope_ci[1])}",
             f"  intercept  {_f(self.intercept)}   {pct} CI {_f(self.intercept_ci[0])} .. {_f(self.intercept_ci[1])}",
@@ -388,8 +389,9 @@ def _group_comparison_lines(gt: dict) -> list[str]:
     cs = gt.get("common_slope")
     differ = bool(gt.get("slopes_differ"))
     if differ:
-        lines.append(f"  the groups differ in slope (equal slopes rejected at {_f(gt.get('alpha'))}): "
-                     "no exponent shared by the groups; see the group slopes")
+        alpha = _f(gt.get("alpha"))
+        lines.append(f"  the groups differ in slope (equal slopes rejected at {alpha}): no exponent "
+                     "shared by the groups; see the group slopes")
     elif cs:
         lo, hi = cs.get("slope_ci") or (_NAN, _NAN)
         lines.append(f"  common exponent {_f(cs.get('slope'))}  CI {_f(lo)} .. {_f(hi)}")
@@ -397,7 +399,8 @@ def _group_comparison_lines(gt: dict) -> list[str]:
         t = gt.get(key)
         if t:
             assumed = " (assuming the common slope)" if key != "common_slope" else ""
-            lines.append(f"  {question}{assumed} {t['test']} {_f(t['statistic'])}, df {t['df']}, p = {_p(t['p'])}")
+            lines.append(f"  {question}{assumed} {t['test']} {_f(t['statistic'])}, df {t['df']}, "
+                         f"p = {_p(t['p'])}")
     if gt.get("omitted"):
         lines.append(f"  {gt['omitted']}")
     return lines

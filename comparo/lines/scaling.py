@@ -151,7 +151,8 @@ def fit(
         intercept_ci=core.intercept_ci, r2=core.r2, ci_level=float(ci), against=core.test,
         groups=group_rows, group_tests=group_tests, outliers=[f.to_dict() for f in flags.flags], excluded=excluded,
         breakpoint=bp, bootstrap=boot, points=_points(X, Y, labels, groups if by else None, core),
-        notes=tuple(notes), refit_without_flagged=refit, cautions=fit_cautions(method, len(X), X, Y, group_rows),
+        notes=tuple(notes), refit_without_flagged=refit,
+        cautions=fit_cautions(method, len(X), X, Y, group_rows),
     )
 
 

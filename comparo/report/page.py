@@ -10,9 +10,10 @@ from comparo.report.appendix import appendix
 from comparo.report.pieces import diagnostics_caption
 
 #: Columns of the regime table (times in s, frequencies in Hz, ratios dimensionless).
-REGIME_COLUMNS = ("taxon", "poroelastic_time", "kinetic_time", "poro_kinetic_ratio", "poro_kinetic_ratio_u",
-                  "frequency_observed", "frequency_kinetic_bound", "frequency_hydraulic_bound", "frequency_ratio",
-                  "frequency_ratio_u", "regime", "frequency_vs_bound")
+REGIME_COLUMNS = ("taxon", "poroelastic_time", "kinetic_time", "poro_kinetic_ratio",
+                  "poro_kinetic_ratio_u", "frequency_observed", "frequency_kinetic_bound",
+                  "frequency_hydraulic_bound", "frequency_ratio", "frequency_ratio_u", "regime",
+                  "frequency_vs_bound")
 
 
 def _synthetic(settings: dict) -> bool:
@@ -90,8 +91,9 @@ def report_html(run) -> str:
         titles.setdefault(f["id"], f["id"])
     by = next((f["by"] for f in run.fits if f.get("by")), None)
     grouped = {f["id"] for f in run.fits if f.get("by")}
-    verdicts = [{"title": titles[k], "scope": "on the line of all taxa pooled" if k in grouped else "",
-                 "verdict": v["result"].verdict} for k, v in run.sens.items()]
+    verdicts = [{"title": titles[k], "verdict": v["result"].verdict,
+                 "scope": "on the line of all taxa pooled" if k in grouped else ""}
+                for k, v in run.sens.items()]
     return render.render(
         "report.html.j2", title=settings.get("title") or f"comparo report: {run.folder.name}",
         synthetic=_synthetic(settings), dataset=run.folder.name, n_taxa=len(run.table), origin=run.origin,

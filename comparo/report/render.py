@@ -69,16 +69,18 @@ def summary_rows(fits: list[dict], titles: dict[str, str]) -> list[dict]:
             test = ""
             differ = bool(gt.get("slopes_differ"))
             if cs and differ:
-                slopes = ", ".join(f"{g['group']} {fmt.num(g.get('slope'))}" for g in r.get("groups") or []
-                                   if g.get("slope") is not None)
-                test = (f"the groups differ in slope (equal slopes rejected: p = {fmt.num(cs.get('p'), 3)}); "
-                        f"group slopes: {slopes}; no common slope, and no elevation test (it assumes one)")
+                slopes = ", ".join(f"{g['group']} {fmt.num(g.get('slope'))}"
+                                   for g in r.get("groups") or [] if g.get("slope") is not None)
+                test = (f"the groups differ in slope (equal slopes rejected: "
+                        f"p = {fmt.num(cs.get('p'), 3)}); group slopes: {slopes}; no common slope, "
+                        "and no elevation test (it assumes one)")
             elif cs:
                 lo, hi = cs.get("slope_ci") or (None, None)
                 test = (f"common slope of the {len(r.get('groups') or [])} groups {fmt.num(cs.get('slope'))} "
                         f"(CI {fmt.num(lo)} to {fmt.num(hi)}); equal slopes across groups: p = {fmt.num(cs.get('p'), 3)}")
                 if el:
-                    test += (f"; equal elevations, assuming the common slope: p = {fmt.num(el.get('p'), 3)}")
+                    test += ("; equal elevations, assuming the common slope: "
+                             f"p = {fmt.num(el.get('p'), 3)}")
             if r.get("lambda") is not None:
                 test = f"Pagel's λ = {fmt.num(r['lambda'], 3)}"
             ts = r.get("against") or r.get("test_slope")
@@ -104,7 +106,8 @@ def regime_lines(derived, by: str | None) -> list[dict]:
     reg = derived["regime"].astype("string").fillna("").to_numpy()
     pos = (derived["frequency_vs_bound"].astype("string").fillna("").to_numpy()
            if "frequency_vs_bound" in derived else [""] * len(derived))
-    cat = pd.Series(["above" if p == "above" else r for r, p in zip(reg, pos, strict=True)], index=derived.index)
+    cat = pd.Series(["above" if p == "above" else r for r, p in zip(reg, pos, strict=True)],
+                    index=derived.index)
     keys = derived[by] if by and by in derived else pd.Series(["all taxa"] * len(derived), index=derived.index)
     words = {"kinetic": "kinetic limited", "hydraulic": "hydraulic limited",
              "undetermined": "undetermined", "above": "above their smaller bound"}
@@ -115,9 +118,11 @@ def regime_lines(derived, by: str | None) -> list[dict]:
         missing = int(counts.sum()) - sum(n.values())
         total = sum(n.values())
         if total == 0:
-            out.append({"group": g, "text": f"not determined: none of its {missing} taxa has the inputs of a regime"})
+            out.append({"group": g,
+                        "text": f"not determined: none of its {missing} taxa has the inputs of a regime"})
             continue
-        parts = [f"{n['kinetic']} kinetic", f"{n['hydraulic']} hydraulic", f"{n['undetermined']} undetermined"]
+        parts = [f"{n['kinetic']} kinetic", f"{n['hydraulic']} hydraulic",
+                 f"{n['undetermined']} undetermined"]
         if n["above"]:
             parts.append(f"{n['above']} above its smaller bound (limited by neither)")
         top = max(words, key=lambda k: n[k])

@@ -75,12 +75,14 @@ class ReportResult:
                 lo, hi = r["slope_ci"]
                 gt = r.get("group_tests") or {}
                 if gt.get("slopes_differ"):  # no single exponent to headline
-                    slopes = ", ".join(f"{g['group']} {num(g['slope'])}" for g in r.get("groups") or []
-                                       if g.get("slope") is not None)
+                    slopes = ", ".join(f"{g['group']} {num(g['slope'])}"
+                                       for g in r.get("groups") or [] if g.get("slope") is not None)
+                    p = num(gt["common_slope"]["p"], 3)
                     lines.append(f"  {f['id']}: the groups differ in slope (equal slopes rejected: "
-                                 f"p = {num(gt['common_slope']['p'], 3)}); group slopes {slopes}; n = {r['n']}")
+                                 f"p = {p}); group slopes {slopes}; n = {r['n']}")
                 else:
-                    lines.append(f"  {f['id']}: slope {num(r['slope'])} (CI {num(lo)} to {num(hi)}), n = {r['n']}")
+                    lines.append(f"  {f['id']}: slope {num(r['slope'])} (CI {num(lo)} to {num(hi)}), "
+                                 f"n = {r['n']}")
                 lines += [f"    caution: {line}" for line in caution_lines(r.get("cautions") or [])]
         lines += [f"  {s['id']} sensitivity: {s['verdict']}" for s in self.sensitivity]
         lines += [f"  note: {n}" for n in self.notes]
