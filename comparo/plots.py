@@ -86,14 +86,21 @@ def render(fig: Figure) -> tuple[bytes, bytes]:
 
 
 def axis_label(key: str, catalog: Mapping[str, Any] | None) -> str:
-    """``Label (unit)`` from the catalogue; a key outside it is shown as it is, marked."""
+    """``Label (unit)`` from the catalogue, else from the derived keys (schema/derived.toml);
+    a column of a plain table (no catalogue) is named as it is, ``(unit as in the table)``."""
     from comparo.units import pretty
 
     q = catalog.get(key) if catalog is not None else None
-    if q is None:
-        return f"{key} (unit: see derived table)"
-    unit = pretty(q.unit)
-    return f"{q.label} ({'dimensionless' if unit == '1' else unit})"
+    if q is not None:
+        label, unit = q.label, pretty(q.unit)
+    else:
+        from comparo.catalog import read_schema
+
+        spec = read_schema("derived.toml")["keys"].get(key) if catalog is not None else None
+        if spec is None or spec.get("unit") is None:
+            return f"{key} (unit as in the table)"
+        label, unit = spec.get("label", key), pretty(spec["unit"])
+    return f"{label} ({'dimensionless' if unit in ('1', 'dimensionless') else unit})"
 
 
 def weakest_basis(*bases: str) -> str:
@@ -225,7 +232,10 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
     grid = np.linspace(X.min(), X.max(), 120)
     pct = f"{100 * fit.ci_level:g}%"
     lo, hi = fit.slope_ci
-    eq = f"all: b = {_fmt(fit.slope)} ({pct} CI {_fmt(lo)} to {_fmt(hi)}), a = {_fmt(fit.intercept)}"
+    differ = bool(getattr(fit, "group_tests", None) and fit.group_tests.get("slopes_differ"))
+    who = "all taxa pooled (the groups differ in slope)" if differ else "all"
+    eq = (f"{who}: b = {_fmt(fit.slope)} ({pct} CI {_fmt(lo)} to {_fmt(hi)}), "
+          f"a = {_fmt(fit.intercept)}")
     if fit.lambda_ is not None:
         eq += f", λ = {_fmt(fit.lambda_)}"
     ax.plot(inv(grid), inv(fit.intercept + fit.slope * grid), color="#000000", lw=1.6, label=eq)
@@ -245,6 +255,10 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
     from matplotlib.lines import Line2D
 
     handles, labels = ax.get_legend_handles_labels()
+    for g in groups:  # every point colour is named: each group, with or without a line of its own
+        handles.append(Line2D([], [], ls="", marker="o", color=colour[g]))
+        k = len(points) if g is None else int((points["group"] == g).sum())
+        labels.append(f"{'taxa' if g is None else g} (n = {k})")
     for basis in dict.fromkeys(points["basis"]):
         if basis in BASIS_FILL:
             handles.append(Line2D([], [], ls="", marker="o", color="#555555", fillstyle=BASIS_FILL[basis]))
@@ -302,7 +316,8 @@ def diagnostics(report: Any, *, title: str = "") -> Figure:
     scale = "fitted value a + b x (log scale of y)"
 
     def dots(ax, xs, ys):
-        ax.plot(xs[~mark], ys[~mark], ls="", marker="o", color=PALETTE[0])
+        ax.plot(xs[~mark], ys[~mark], ls="", marker="o", color=PALETTE[0],
+                label=f"not flagged ({int((~mark).sum())})")
         if mark.any():
             ax.plot(xs[mark], ys[mark], ls="", marker="o", color=PALETTE[3], label=f"flagged ({len(flagged)})")
 
@@ -323,7 +338,7 @@ def diagnostics(report: Any, *, title: str = "") -> Figure:
     ax.plot(q[~mark[order]], stud[order][~mark[order]], ls="", marker="o", color=PALETTE[0])
     ax.plot(q[mark[order]], stud[order][mark[order]], ls="", marker="o", color=PALETTE[3])
     ax.set_xlabel("normal quantile (standard units)")
-    ax.set_ylabel("ordered studentized residual")
+    ax.set_ylabel("ordered studentized residual (dimensionless)")
     ax.set_title("normal QQ")
     ax = axes[2]
     dots(ax, lev, cook)
@@ -377,9 +392,22 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
         return None
     fig, ax = _figure(9.2, 4.6)
     regime = d["regime"].astype("string").fillna("").to_numpy() if "regime" in d else np.array([""] * len(d))
-    for i, r in enumerate(sorted(set(regime[ok]))):
+    words = {"kinetic": "kinetic limited", "hydraulic": "hydraulic limited",
+             "undetermined": "undetermined (95% interval of Π holds the boundary)", "": "no regime"}
+    pos = (d["frequency_vs_bound"].astype("string").fillna("").to_numpy()
+           if "frequency_vs_bound" in d else np.array([""] * len(d)))
+    above = ok & (pos == "above")
+    colours = {"kinetic": PALETTE[1], "hydraulic": PALETTE[0], "undetermined": PALETTE[2],
+               "": "#999999"}
+    present = set(regime[ok])
+    for r in [k for k in colours if k in present] + sorted(present - set(colours)):  # fixed colours
         m = ok & (regime == r)
-        ax.plot(xr[m], yk[m], ls="", marker="o", color=PALETTE[i % len(PALETTE)], label=f"{r or 'no regime'} limited (n = {m.sum()})")
+        ax.plot(xr[m], yk[m], ls="", marker="o", color=colours.get(r, PALETTE[4]),
+                label=f"{words.get(r, r)} (n = {m.sum()})")
+    if above.any():
+        ax.plot(xr[above], yk[above], ls="", marker="o", markersize=11, markerfacecolor="none",
+                color="#000000",
+                label=f"above its smaller bound: limited by neither (n = {above.sum()})")
     ax.axhline(1.0, color="#000000", lw=1.4, label="kinetic bound (observed = kinetic bound)")
     okh = ok & np.isfinite(yh) & (yh > 0)
     if okh.any():
@@ -387,9 +415,9 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
         ax.plot(xr[okh][order], yh[okh][order], color=PALETTE[3], lw=1.4, ls="--", label="hydraulic bound (per taxon)")
     ax.set_xscale("log")
     ax.set_yscale("log")
-    ax.set_xlabel("poro-kinetic ratio, poroelastic time / kinetic time (dimensionless)")
+    ax.set_xlabel("Π = poroelastic / kinetic time (dimensionless)")
     ax.set_ylabel("observed frequency / kinetic bound (dimensionless)")
-    ax.set_title(f"Regime: which bound is closer ({int(ok.sum())} taxa)")
+    ax.set_title(f"Regime within the uncertainty of Π ({int(ok.sum())} taxa)")
     plain_log_ticks(ax)
     ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
@@ -420,8 +448,8 @@ def coverage_map(coverage: Mapping[str, Mapping[str, str]], quantities: Sequence
     ax.set_xticks(range(len(qs)), [short(q) for q in qs], rotation=60, ha="right", fontsize=7)
     ax.set_yticks(range(len(taxa)), [short(t) for t in taxa], fontsize=6 if len(taxa) > 30 else 8)
     ax.grid(False)
-    ax.set_xlabel("quantity")
-    ax.set_ylabel("taxon")
+    ax.set_xlabel("quantity (catalogue key)")
+    ax.set_ylabel("taxon (accepted name)")
     ax.set_title("Coverage: weakest basis of each value")
     ax.legend([Patch(facecolor=BASIS_COLOURS[k], edgecolor="#999999") for k in keys],
               [k or "no value" for k in keys], loc="upper left", bbox_to_anchor=(1.01, 1), frameon=False)
@@ -437,7 +465,7 @@ def source_chart(sources: pd.DataFrame) -> Figure:
     ax.barh(yy + 0.2, s["taxa"], height=0.4, color=PALETTE[1], label="taxa")
     ax.set_yticks(yy, [short(v) for v in s["source_id"]])
     ax.set_xlabel("count (values or taxa)")
-    ax.set_ylabel("source")
+    ax.set_ylabel("source (source_id)")
     ax.set_title("Contribution of each source")
     ax.legend(frameon=False, loc="lower right")
     return fig
@@ -589,6 +617,8 @@ def tree_trait(tree: Any, values: Mapping[str, float], *, label: str, names: Map
     if labelled:
         shown = [(names or {}).get(t) or t.replace("_", " ") for t in tips]
         ax.set_yticks(ty, [short(v) for v in shown], fontsize=min(8.0, max(3.0, 0.8 * row_pt)))
+        ax.yaxis.set_label_position("right")
+        ax.set_ylabel("tip (taxon)")
         ax.tick_params(axis="y", length=0, pad=2 + 0.3 * np.sqrt(size))
     else:
         ax.set_yticks([])
@@ -643,6 +673,7 @@ def forest_plot(rows: Sequence[Mapping[str, Any]], *, slope: float, slope_ci: Se
     ax.set_ylim(n - 0.5, -0.5)
     ax.grid(axis="y", visible=False)
     ax.set_xlabel(xlabel)
+    ax.set_ylabel("refit without one source (source_id)")
     ax.set_title(f"{title or 'Leave one source out'}\n({n} sources, most influential at the top)")
     ax.legend(frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
@@ -675,8 +706,8 @@ def loop_plot(trace: Any) -> Figure:
                     label="isochoric: (1+ε_a)^(-1/2) − 1")
             ax.set_xlabel("axial strain ε_a (%)")
             ax.set_ylabel("radial strain ε_r (%)")
-            area = trace.values["loop_area"][0]
-            what = f"signed area {area:.3g}"
+            area = trace.values["loop_area"][0] * sx * sy  # strain fraction² -> %², the axes' units
+            what = f"signed area {area:.4g} %²"
         else:
             ax.set_xlabel("length (mm)")
             ax.set_ylabel("force (mN)")

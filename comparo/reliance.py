@@ -502,6 +502,7 @@ def sensitivity(
     temperature: bool = True,
     taxon_col: str = "taxon",
     taxa: list[str] | None = None,
+    no_sources: str | None = None,
     **fit_options: Any,
 ) -> SensitivityResult:
     """Source-level sensitivity and measurement-error propagation of a scaling fit.
@@ -522,6 +523,10 @@ def sensitivity(
     taxa : list of str, optional
         Restrict a dataset to these accepted taxon names (used per group by
         :func:`sensitivity_by_group`).
+    no_sources : str, optional
+        For a table: why it records no source or basis per value (default: it is a
+        plain table). Said in ``unavailable`` and the verdict; e.g. a table derived
+        from a dataset folder, whose derived values rest on several sources each.
     **fit_options
         Further options of :func:`comparo.lines.fit` (e.g. ``tree`` for pgls).
 
@@ -554,8 +559,9 @@ def sensitivity(
         table = per_taxon(ds, harmonised=h)
     else:
         table = dataset_or_table
-        unavailable.append("leave-one-source-out and basis filters need a dataset folder "
-                           "(a plain table does not record the source and basis of each value)")
+        why = no_sources or "a plain table does not record the source and basis of each value"
+        unavailable.append("leave-one-source-out and basis filters need values with one source "
+                           f"each ({why})")
     base = fit(table, x, y, method, **kw)
     se = analytic_se(base)
     p_full = _p(base)
@@ -573,7 +579,8 @@ def sensitivity(
     jack = taxon_jackknife(base, kw, table=table)
     me = measurement_error_mc(table, base, log=str(log), mc=mc, seed=seed, taxon_col=taxon_col, progress=progress,
                               fit_options=fit_options)
-    verdict = make_verdict(loso, by_basis, jack, me, against=against, unavailable=bool(unavailable))
+    verdict = make_verdict(loso, by_basis, jack, me, against=against,
+                           unavailable=(no_sources or "a plain table") if unavailable else False)
     test = {"value": against, "p": p_full} if against is not None else None
     return SensitivityResult(method=method, x=x, y=y, slope=base.slope, slope_se=se, ci_level=float(ci), test=test,
                              leave_one_source_out=loso, by_basis=by_basis, jackknife_se=jack, measurement_error=me,
@@ -628,8 +635,11 @@ def _basis_steps(rows, used, refit, base: FitResult, alpha: float) -> list[dict]
     return by_basis
 
 
-def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool = False) -> str:
+def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool | str = False) -> str:
     """One plain-language line built only from the sensitivity numbers.
+
+    *unavailable*: the source-level parts did not run; a string says why (True: a
+    plain table).
 
     A source (or a basis step) counts as influential when it moves the slope by
     at least ``SHIFT_THRESHOLD`` analytic SEs or flips the slope test.
@@ -652,7 +662,9 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool = 
             more = f" and {len(hit) - 3} more" if len(hit) > 3 else ""
             parts.append(f"leaving out one source moves the slope by {mark}: {', '.join(words)}{more}")
     elif unavailable:
-        parts.append("source-level checks not available for a plain table")
+        why = unavailable if isinstance(unavailable, str) else "a plain table"
+        parts.append(f"source-level checks not available ({why})" if why != "a plain table"
+                     else "source-level checks not available for a plain table")
     for r in (by_basis or [])[1:]:
         added = r["bases"][-1]
         moved = r["shift_se"] is not None and math.isfinite(r["shift_se"]) and abs(r["shift_se"]) >= SHIFT_THRESHOLD
@@ -672,10 +684,12 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool = 
         share = me["share"]
         fixed = _not_propagated(me)
         where = " where known" if fixed else ""
-        if share >= 0.5:
-            parts.append(f"measurement error{where} dominates the slope uncertainty ({100 * share:.0f}% of the variance)")
+        if share >= 0.5:  # one measure throughout: the share of the slope variance
+            parts.append(f"measurement error{where} dominates the slope uncertainty "
+                         f"({100 * share:.0f}% of the slope variance)")
         elif share >= 0.1:
-            parts.append(f"measurement error{where} adds {100 * (math.sqrt(1 / (1 - share)) - 1):.0f}% to the slope SE")
+            parts.append(f"measurement error{where} accounts for {100 * share:.0f}% of the slope "
+                         "variance")
         else:
             parts.append(f"measurement error{where} under 10% of the slope variance"
                          if fixed else "measurement error negligible (under 10% of the slope variance)")

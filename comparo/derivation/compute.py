@@ -22,6 +22,8 @@ from comparo.derivation.lineage import (
 )
 from comparo.derivation.permeability_models import PERMEABILITY_MODELS, permeability
 from comparo.derivation.ratios import _ratios
+from comparo.derivation.regime import frequency_vs_bound
+from comparo.derivation.regime import regime as classify_regime
 from comparo.derivation.settings import _settings
 from comparo.derivation.timescales import (
     constrained_modulus,
@@ -90,8 +92,11 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
         D_basis, D_obs, D_method, D_missing, and with ``mc > 0`` also D_mc_median,
         D_mc_lo68, D_mc_hi68, D_mc_lo95, D_mc_hi95, D_mc_u (MC standard deviation)
         and D_nonlinear (GUM and MC standard uncertainties differ by more than 20%).
-        ``regime`` is text ('kinetic' or 'hydraulic') with basis, obs, method and
-        missing columns only. ``attrs['units']`` maps each added key to its unit.
+        ``regime`` is text ('kinetic', 'hydraulic', or 'undetermined' when the 95%
+        interval of poro_kinetic_ratio, first order or Monte Carlo, holds the boundary)
+        with basis, obs, method and missing columns only; ``frequency_vs_bound`` is text
+        ('below', 'above', 'undetermined': the 95% interval of frequency_ratio against
+        1). ``attrs['units']`` maps each added key to its unit.
 
     Raises
     ------
@@ -133,7 +138,8 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     prop = _propagate(compute, lv.values, lv.rel_u, ignore_unknown, mc, rng, list(_SI), mirrors, progress=progress)
     reasons = _missing_reasons(s, prop.values, lv.absent, t_reason)
     methods = _routes(s, lv.values, prop.values, thin_per_thick, temperature, length_key)
-    new, units = _assemble(keys, prop, lv, names, reasons, methods, mc)
+    mode = float(s["hydraulic_mode_factor"])
+    new, units = _assemble(keys, prop, lv, names, reasons, methods, mc, mode)
     out = table.drop(columns=[c for c in new if c in table.columns])
     out = pd_concat(out, new)
     if ratio_settings:
@@ -345,7 +351,7 @@ def _routes(s: dict[str, Any], leaves: dict[str, np.ndarray], vals: dict[str, np
 
 
 def _assemble(keys: dict, prop, lv: _Leaves, names: dict[str, str], reasons: dict, methods: dict,
-              mc: int) -> tuple[dict[str, Any], dict[str, str]]:
+              mc: int, mode: float = 1.0) -> tuple[dict[str, Any], dict[str, str]]:
     """The new columns (values and uncertainty in the units of derived.toml, lineage, Monte
     Carlo summaries, the regime) and the unit of each added key."""
     from comparo.units import conversion_factor
@@ -373,12 +379,22 @@ def _assemble(keys: dict, prop, lv: _Leaves, names: dict[str, str], reasons: dic
             cols.update(_mc_columns(key, prop.mc[key], cols[f"{key}_u"], f))
         new.update(cols)
     score = vals["_regime_score"]
-    regime = np.where(score < 1.0, "hydraulic", "kinetic").astype(object)
+    mcs = prop.mc if mc > 0 else {}
+    pi_mc, fr_mc = mcs.get("poro_kinetic_ratio", {}), mcs.get("frequency_ratio", {})
+    regime = classify_regime(vals["poro_kinetic_ratio"], prop.u["poro_kinetic_ratio"], mode,
+                             pi_mc.get("_mc_lo95"), pi_mc.get("_mc_hi95"))
     regime[~np.isfinite(score)] = None
-    reg = _lineage_columns("_regime_score", score, prop, basis, obs, display, reasons["regime"], methods["regime"],
-                           cache=lineage_cache)
+    route = "Monte Carlo 95% interval" if mc > 0 else "first-order 95% interval"
+    how = (f"the smaller frequency bound limits; undetermined when the {route} of "
+           f"poro_kinetic_ratio holds {mode:g}")
+    no_u = np.isfinite(score) & ~np.isfinite(prop.u["poro_kinetic_ratio"])
+    reg_method = np.where(no_u, how + " (no uncertainty of poro_kinetic_ratio: undetermined)", how)
+    reg = _lineage_columns("_regime_score", score, prop, basis, obs, display, reasons["regime"],
+                           reg_method, cache=lineage_cache)
     new["regime"] = regime
     new.update({c.replace("_regime_score", "regime"): v for c, v in reg.items()})
     units["regime"] = "dimensionless"
+    new["frequency_vs_bound"] = frequency_vs_bound(
+        vals["frequency_ratio"], prop.u["frequency_ratio"], fr_mc.get("_mc_lo95"), fr_mc.get("_mc_hi95"))
 
     return new, units

@@ -139,7 +139,8 @@ def _group_tests_ols(X: np.ndarray, Y: np.ndarray, codes: np.ndarray, g: int, ci
 
 
 def group_fits(X: np.ndarray, Y: np.ndarray, groups: np.ndarray, method: str, ci: float, against: float | None, seed: int) -> tuple[list[dict], dict | None, list[str]]:
-    """Per-group fits and, for ols/sma/ma, the common-slope, elevation and shift tests."""
+    """Per-group fits and, for ols/sma/ma, the common-slope, elevation and shift tests (all of
+    them, whatever the equal-slopes test says; :func:`judge_slopes` applies the rule)."""
     names = list(dict.fromkeys(groups.tolist()))
     rows, usable, notes = [], [], []
     for name in names:
@@ -177,3 +178,37 @@ def group_fits(X: np.ndarray, Y: np.ndarray, groups: np.ndarray, method: str, ci
     elif len(usable) >= 2:
         notes.append(f"common-slope tests are available for ols, sma and ma, not {method}")
     return rows, tests, notes
+
+
+def judge_slopes(tests: dict | None, ci: float) -> dict | None:
+    """The group tests with the verdict on equal slopes, at alpha = 1 - ci.
+
+    Adds ``slopes_differ`` (equal slopes rejected: p < alpha) and ``alpha``. The
+    elevation and shift tests compare groups along one common slope, so they are
+    meaningful only when equal slopes are not rejected: then ``assumes`` says so;
+    when equal slopes are rejected both are set to None and ``omitted`` says why
+    (rule of docs/methods/fitting.md, "Comparing groups"). The common-slope estimate stays in
+    the dict beside its test, but no summary presents it as the groups' exponent.
+    """
+    if not tests or not tests.get("common_slope"):
+        return tests
+    p = tests["common_slope"].get("p")
+    alpha = 1.0 - float(ci)
+    out = dict(tests, alpha=alpha)
+    if p is None or not math.isfinite(p):
+        out["slopes_differ"] = None
+        return out
+    out["slopes_differ"] = bool(p < alpha)
+    if out["slopes_differ"]:
+        dropped = [k for k in ("elevation", "shift") if out.get(k)]
+        out["elevation"] = out["shift"] = None
+        if dropped:
+            tests_word = (f"the {' and '.join(dropped)} tests, which assume" if len(dropped) > 1
+                          else f"the {dropped[0]} test, which assumes")
+            verb = "are" if len(dropped) > 1 else "is"
+            out["omitted"] = (f"equal slopes rejected (p = {p:.3g} < {alpha:g}): the groups differ in "
+                              f"slope, so {tests_word} one common slope, {verb} not given")
+    else:
+        out["assumes"] = (f"equal slopes not rejected (p = {p:.3g} >= {alpha:g}): the elevation and "
+                          "shift tests assume the groups share the common slope")
+    return out

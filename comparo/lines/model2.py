@@ -115,7 +115,5 @@ def model2_line(X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, aga
     if against is not None:
         F, p = model2_test(X, Y, against, method)
         test = {"value": float(against), "statistic": F, "test": "F(1, n-2)", "df": [1, n - 2], "p": p}
-    note = "SMA slope is meaningless when x and y are uncorrelated; test r first" if method == "sma" and abs(r) < 0.3 else None
-    if ci_note:
-        note = f"{note}; {ci_note}" if note else ci_note
+    note = ci_note  # the weak-correlation caution is the fit's (comparo.lines.cautions)
     return _Core(b, (float(lims[0]), float(lims[1])), a, (float(a - half_a), float(a + half_a)), float(r * r), test, a + b * X, note=note)

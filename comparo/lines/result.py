@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from comparo.jsonsafe import json_safe as _json
+from comparo.lines.cautions import caution_lines
 from comparo.lines.numbers import _NAN, _f, _nan, _num, _p, _pair
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -61,6 +62,10 @@ class FitResult:
     points : tuple of dict
         Per-point values: label, x_fit, y_fit, fitted, residual and, where
         the method has them, weight and lts_std.
+    cautions : tuple of dict
+        ``{"rule", "message", ...}`` per caution (:mod:`comparo.lines.cautions`):
+        ``few_taxa`` (``n``, ``minimum``, ``group``) and ``weak_correlation``
+        (``r``, ``threshold``). In the JSON as ``cautions`` when there is one.
     """
 
     method: str
@@ -89,6 +94,7 @@ class FitResult:
     points: tuple[dict, ...] = field(default=(), repr=False)
     notes: tuple[str, ...] = ()
     refit_without_flagged: FlaggedRefit | None = None
+    cautions: tuple[dict, ...] = ()
 
     def to_dict(self) -> dict:
         """JSON-safe dict with the keys of the ``fit --format json`` contract.
@@ -121,6 +127,8 @@ class FitResult:
         }
         if self.group_tests is not None:
             out["group_tests"] = _json(self.group_tests)
+        if self.cautions:
+            out["cautions"] = _json([dict(c) for c in self.cautions])
         if self.bootstrap is not None:
             out["bootstrap"] = _json(self.bootstrap)
         if self.phylo is not None:
@@ -139,6 +147,7 @@ class FitResult:
                 kw[k] = tuple(_nan(v) for v in kw[k])
         for k in ("outliers", "excluded"):
             kw[k] = list(kw.get(k) or [])
+        kw["cautions"] = tuple(kw.get("cautions") or ())
         rest = {k: v for k, v in d.items() if ("lambda_" if k == "lambda" else k) not in names}
         if rest:
             kw["phylo"] = rest
@@ -157,8 +166,9 @@ class FitResult:
             for term in ("slope", "intercept"):
                 lo, hi = g.get(f"{term}_ci") or (_NAN, _NAN)
                 rows.append({"group": g["group"], "term": term, "estimate": g.get(term), "ci_low": lo, "ci_high": hi, "n": g["n"]})
-        if self.group_tests and self.group_tests.get("common_slope"):
-            cs = self.group_tests["common_slope"]
+        gt = self.group_tests or {}
+        if gt.get("common_slope") and not gt.get("slopes_differ"):
+            cs = gt["common_slope"]
             lo, hi = cs.get("slope_ci") or (_NAN, _NAN)
             rows.append({"group": "(common)", "term": "slope", "estimate": cs.get("slope"), "ci_low": lo, "ci_high": hi, "n": self.n})
         if self.breakpoint:
@@ -177,7 +187,8 @@ class FitResult:
         from comparo.display import frame_html
 
         scale = {"10": "log10", "e": "ln", "none": "untransformed"}[self.log]
-        notes = [_against_text(self.against)] if self.against else []
+        notes = [f"CAUTION: {line}" for line in caution_lines(self.cautions)]
+        notes += [_against_text(self.against)] if self.against else []
         if self.group_tests:
             notes += [line.strip() for line in _group_comparison_lines(self.group_tests)]
         notes.append(f"flags: {len(self.outliers)}; excluded rows: {len(self.excluded)}")
@@ -226,8 +237,12 @@ class FitResult:
         """Plain-text account of the fit for people."""
         pct = f"{100 * self.ci_level:g}%"
         scale = {"10": "log10", "e": "ln", "none": "untransformed"}[self.log]
+        differ = bool(self.group_tests and self.group_tests.get("slopes_differ"))
         lines = [
             f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}",
+            *(["  the groups differ in slope: the line below pools all taxa and is the exponent of "
+               "no group"] if differ else []),
+            *[f"  CAUTION: {line}" for line in caution_lines(self.cautions)],
             f"  slope      {_f(self.slope)}   {pct} CI {_f(self.slope_ci[0])} .. {_f(self.slope_ci[1])}",
             f"  intercept  {_f(self.intercept)}   {pct} CI {_f(self.intercept_ci[0])} .. {_f(self.intercept_ci[1])}",
             f"  r2         {_f(self.r2)}",
@@ -364,14 +379,28 @@ def _against_text(t: dict) -> str:
 
 
 def _group_comparison_lines(gt: dict) -> list[str]:
-    """The group comparisons in comparo's phrasing, one line each."""
+    """The group comparisons in comparo's phrasing, one line each.
+
+    When equal slopes are rejected (``slopes_differ``) there is no common exponent to
+    show: the lines say the groups differ in slope (their slopes are in the groups
+    block) and why the elevation and shift tests are not given.
+    """
     lines = []
     cs = gt.get("common_slope")
-    if cs:
+    differ = bool(gt.get("slopes_differ"))
+    if differ:
+        alpha = _f(gt.get("alpha"))
+        lines.append(f"  the groups differ in slope (equal slopes rejected at {alpha}): no exponent "
+                     "shared by the groups; see the group slopes")
+    elif cs:
         lo, hi = cs.get("slope_ci") or (_NAN, _NAN)
         lines.append(f"  common exponent {_f(cs.get('slope'))}  CI {_f(lo)} .. {_f(hi)}")
     for key, question in GROUP_QUESTIONS.items():
         t = gt.get(key)
         if t:
-            lines.append(f"  {question} {t['test']} {_f(t['statistic'])}, df {t['df']}, p = {_p(t['p'])}")
+            assumed = " (assuming the common slope)" if key != "common_slope" else ""
+            lines.append(f"  {question}{assumed} {t['test']} {_f(t['statistic'])}, df {t['df']}, "
+                         f"p = {_p(t['p'])}")
+    if gt.get("omitted"):
+        lines.append(f"  {gt['omitted']}")
     return lines

@@ -4,15 +4,17 @@ flags, group comparisons, a breakpoint, a bootstrap and the refit without flagge
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from comparo.errors import UsageError
 from comparo.lines.broken import segmented_line
+from comparo.lines.cautions import fit_cautions
 from comparo.lines.core import LOGS, METHODS
 from comparo.lines.dispatch import _core
-from comparo.lines.groups import group_fits
+from comparo.lines.groups import group_fits, judge_slopes
 from comparo.lines.resampling import bootstrap_line
 from comparo.lines.result import FitResult, FlaggedRefit
 from comparo.lines.table import _inverse, _prepare
@@ -132,6 +134,7 @@ def fit(
     group_rows = group_tests = None
     if by:
         group_rows, group_tests, gnotes = group_fits(X, Y, groups, method, ci, against, seed)
+        group_tests = judge_slopes(group_tests, ci)
         notes += gnotes
     bp = _breakpoint(X, Y, ci, log) if breakpoint else None
     boot = None
@@ -149,6 +152,7 @@ def fit(
         groups=group_rows, group_tests=group_tests, outliers=[f.to_dict() for f in flags.flags], excluded=excluded,
         breakpoint=bp, bootstrap=boot, points=_points(X, Y, labels, groups if by else None, core),
         notes=tuple(notes), refit_without_flagged=refit,
+        cautions=fit_cautions(method, len(X), X, Y, group_rows),
     )
 
 
@@ -175,10 +179,11 @@ def _pgls(table, x, y, log, ci, against, taxon_col, by, bootstrap, breakpoint, d
     if by is not None:
         options["by"] = by
     d = phylo_fit(table=table, x=x, y=y, log=log, ci=ci, against=against, taxon_col=taxon_col, **options)
+    if d.get("group_tests"):
+        d["group_tests"] = judge_slopes(d["group_tests"], ci)
     res = FitResult.from_dict(d)
+    res = replace(res, cautions=fit_cautions("pgls", res.n, groups=res.groups))
     if drop_flagged:
-        from dataclasses import replace
-
         from comparo.flags import drop_rules
 
         res = replace(res, refit_without_flagged=FlaggedRefit(

@@ -4,13 +4,16 @@ from __future__ import annotations
 
 from typing import Any
 
+from comparo.lines.cautions import caution_lines
 from comparo.report import render
 from comparo.report.appendix import appendix
 from comparo.report.pieces import diagnostics_caption
 
 #: Columns of the regime table (times in s, frequencies in Hz, ratios dimensionless).
-REGIME_COLUMNS = ("taxon", "poroelastic_time", "kinetic_time", "poro_kinetic_ratio", "frequency_observed",
-                  "frequency_kinetic_bound", "frequency_hydraulic_bound", "frequency_ratio", "regime")
+REGIME_COLUMNS = ("taxon", "poroelastic_time", "kinetic_time", "poro_kinetic_ratio",
+                  "poro_kinetic_ratio_u", "frequency_observed", "frequency_kinetic_bound",
+                  "frequency_hydraulic_bound", "frequency_ratio", "frequency_ratio_u", "regime",
+                  "frequency_vs_bound")
 
 
 def _synthetic(settings: dict) -> bool:
@@ -25,6 +28,7 @@ def _analysis_view(run, sec: dict) -> dict:
         tree_caption = (f"{sec['tree_caption']} Colour map cividis (readable with colour-vision deficiency); the colours "
                         "show the values as compiled, not a reconstruction of ancestral states.")
     return {"id": aid, "title": sec["title"], "summary": res.summary(), "frame": sec["frame"],
+            "cautions": caution_lines(res.cautions),
             "scaling": render.fig(figs, f"{aid}_scaling", f"scaling plot: {sec['title']}"),
             "diagnostics": render.fig(figs, f"{aid}_diagnostics", f"residual diagnostics: {sec['title']}"),
             "diagnostics_caption": diagnostics_caption(res, run.frames["flags"], aid),
@@ -86,7 +90,10 @@ def report_html(run) -> str:
     for f in run.fits:
         titles.setdefault(f["id"], f["id"])
     by = next((f["by"] for f in run.fits if f.get("by")), None)
-    verdicts = [{"title": titles[k], "verdict": v["result"].verdict} for k, v in run.sens.items()]
+    grouped = {f["id"] for f in run.fits if f.get("by")}
+    verdicts = [{"title": titles[k], "verdict": v["result"].verdict,
+                 "scope": "on the line of all taxa pooled" if k in grouped else ""}
+                for k, v in run.sens.items()]
     return render.render(
         "report.html.j2", title=settings.get("title") or f"comparo report: {run.folder.name}",
         synthetic=_synthetic(settings), dataset=run.folder.name, n_taxa=len(run.table), origin=run.origin,

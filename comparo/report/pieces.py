@@ -192,6 +192,7 @@ def run_sensitivity(ds, table, data, a: dict, res, opts: dict, seed: int, draws:
     else:
         source = data
         derived = ", ".join(q for q in (x, y) if q not in table.columns)
+        kw["no_sources"] = f"{derived} is derived from several sources per taxon"
         notes.append(f"{derived} is derived, so the values behind it have no single source or basis: "
                      "only the jackknife and the Monte Carlo parts run (on the derived table)")
     try:

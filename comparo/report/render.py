@@ -12,6 +12,7 @@ from typing import Any
 
 from markupsafe import Markup
 
+from comparo.lines.cautions import caution_lines
 from comparo.report import fmt
 from comparo.report.pieces import quantity_name
 from comparo.report.result import DISCLAIMER, LAMBDA_GRID
@@ -66,42 +67,68 @@ def summary_rows(fits: list[dict], titles: dict[str, str]) -> list[dict]:
             gt = r.get("group_tests") or {}
             cs, el = gt.get("common_slope") or {}, gt.get("elevation") or {}
             test = ""
-            if cs:
+            differ = bool(gt.get("slopes_differ"))
+            if cs and differ:
+                slopes = ", ".join(f"{g['group']} {fmt.num(g.get('slope'))}"
+                                   for g in r.get("groups") or [] if g.get("slope") is not None)
+                test = (f"the groups differ in slope (equal slopes rejected: "
+                        f"p = {fmt.num(cs.get('p'), 3)}); group slopes: {slopes}; no common slope, "
+                        "and no elevation test (it assumes one)")
+            elif cs:
                 lo, hi = cs.get("slope_ci") or (None, None)
                 test = (f"common slope of the {len(r.get('groups') or [])} groups {fmt.num(cs.get('slope'))} "
                         f"(CI {fmt.num(lo)} to {fmt.num(hi)}); equal slopes across groups: p = {fmt.num(cs.get('p'), 3)}")
                 if el:
-                    test += f"; equal elevations at the common slope: p = {fmt.num(el.get('p'), 3)}"
+                    test += ("; equal elevations, assuming the common slope: "
+                             f"p = {fmt.num(el.get('p'), 3)}")
             if r.get("lambda") is not None:
                 test = f"Pagel's λ = {fmt.num(r['lambda'], 3)}"
             ts = r.get("against") or r.get("test_slope")
             if ts:
                 test += f"{'; ' if test else ''}slope = {ts['value']:g}: p = {fmt.num(ts['p'], 3)}"
+            caution = "; ".join(caution_lines(r.get("cautions") or []))
             row |= {"method": f["method"].upper(), "n": r["n"], "slope": r["slope"], "lo": r["slope_ci"][0],
-                    "hi": r["slope_ci"][1], "test": test}
+                    "hi": r["slope_ci"][1], "test": test, "differ": differ, "caution": caution}
+            if differ:  # the pooled line is no group's exponent: the row does not headline it
+                row |= {"slope": None, "lo": None, "hi": None}
         rows.append(row)
     return rows
 
 
 def regime_lines(derived, by: str | None) -> list[dict]:
-    """Per group (or all taxa): which bound most taxa with a derived regime are closer to."""
+    """Per group (or all taxa): how many taxa are kinetic limited, hydraulic limited,
+    undetermined (the 95% interval of Π holds the boundary) or cycle above their smaller
+    bound (counted apart: limited by neither), and which of these holds a majority."""
     if derived is None or "regime" not in derived:
         return []
     import pandas as pd
 
-    reg = derived["regime"].astype("string").fillna("undetermined").replace("", "undetermined")
+    reg = derived["regime"].astype("string").fillna("").to_numpy()
+    pos = (derived["frequency_vs_bound"].astype("string").fillna("").to_numpy()
+           if "frequency_vs_bound" in derived else [""] * len(derived))
+    cat = pd.Series(["above" if p == "above" else r for r, p in zip(reg, pos, strict=True)],
+                    index=derived.index)
     keys = derived[by] if by and by in derived else pd.Series(["all taxa"] * len(derived), index=derived.index)
+    words = {"kinetic": "kinetic limited", "hydraulic": "hydraulic limited",
+             "undetermined": "undetermined", "above": "above their smaller bound"}
     out = []
     for g in dict.fromkeys(keys):
-        counts = reg[keys == g].value_counts()
-        kin, hyd = int(counts.get("kinetic", 0)), int(counts.get("hydraulic", 0))
-        und = int(counts.sum()) - kin - hyd
-        if kin + hyd == 0:
-            text = f"not determined: none of its {und} taxa has the inputs of a regime"
-        else:
-            verdict = "kinetic limited" if kin > hyd else "hydraulic limited" if hyd > kin else "no majority"
-            text = (f"{verdict} ({kin} kinetic, {hyd} hydraulic of the {kin + hyd} taxa with a derived regime"
-                    + (f"; {und} more without the inputs)" if und else ")"))
+        counts = cat[keys == g].value_counts()
+        n = {k: int(counts.get(k, 0)) for k in words}
+        missing = int(counts.sum()) - sum(n.values())
+        total = sum(n.values())
+        if total == 0:
+            out.append({"group": g,
+                        "text": f"not determined: none of its {missing} taxa has the inputs of a regime"})
+            continue
+        parts = [f"{n['kinetic']} kinetic", f"{n['hydraulic']} hydraulic",
+                 f"{n['undetermined']} undetermined"]
+        if n["above"]:
+            parts.append(f"{n['above']} above its smaller bound (limited by neither)")
+        top = max(words, key=lambda k: n[k])
+        verdict = (f"mostly {words[top]}" if 2 * n[top] > total else "no majority")
+        text = f"{verdict} (of {total} taxa with a derived regime: {', '.join(parts)}"
+        text += f"; {missing} without the inputs)" if missing else ")"
         out.append({"group": g, "text": text})
     return out
 

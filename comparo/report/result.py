@@ -63,6 +63,8 @@ class ReportResult:
     def summary(self) -> str:
         if not self.ok:
             return f"validation found {self.n_errors} error(s); the report lists them: {self.out_dir}/report.html"
+        from comparo.lines.cautions import caution_lines
+
         lines = [f"report written to {self.out_dir}/report.html ({self.n_figures} figures, each as PNG and SVG; "
                  f"{len(self.tables)} tables)"]
         for f in self.fits:
@@ -71,7 +73,17 @@ class ReportResult:
             else:
                 r = f["result"]
                 lo, hi = r["slope_ci"]
-                lines.append(f"  {f['id']}: slope {num(r['slope'])} (CI {num(lo)} to {num(hi)}), n = {r['n']}")
+                gt = r.get("group_tests") or {}
+                if gt.get("slopes_differ"):  # no single exponent to headline
+                    slopes = ", ".join(f"{g['group']} {num(g['slope'])}"
+                                       for g in r.get("groups") or [] if g.get("slope") is not None)
+                    p = num(gt["common_slope"]["p"], 3)
+                    lines.append(f"  {f['id']}: the groups differ in slope (equal slopes rejected: "
+                                 f"p = {p}); group slopes {slopes}; n = {r['n']}")
+                else:
+                    lines.append(f"  {f['id']}: slope {num(r['slope'])} (CI {num(lo)} to {num(hi)}), "
+                                 f"n = {r['n']}")
+                lines += [f"    caution: {line}" for line in caution_lines(r.get("cautions") or [])]
         lines += [f"  {s['id']} sensitivity: {s['verdict']}" for s in self.sensitivity]
         lines += [f"  note: {n}" for n in self.notes]
         return "\n".join(lines)
