@@ -680,8 +680,47 @@ def read_workbook(path: Path) -> RawDataset:
         raw.problems += p
         setattr(raw, sheet, table)
         raw.files[sheet] = path
+    _read_tree_and_settings(raw, path.parent)
     raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa) if t is not None])
     return raw
+
+
+def _read_tree_and_settings(raw: RawDataset, folder: Path) -> None:
+    """The tree (tree.nwk ...) and comparo.toml of a dataset: in its folder, or beside its workbook."""
+    tree = _first(folder, TREE_NAMES, raw.problems)
+    if tree is not None:
+        raw.files["tree"] = tree
+        raw.tree, raw.tree_text, p = read_newick(tree)
+        raw.problems += p
+    settings = _first(folder, (SETTINGS_NAME,), raw.problems)
+    if settings is not None:
+        raw.files["settings"] = settings
+        raw.settings, p = read_settings(settings)
+        raw.problems += p
+
+
+def is_workbook(path: str | Path) -> bool:
+    """Whether *path* names a dataset workbook (an existing .xlsx/.xlsm file), not a folder."""
+    path = Path(path)
+    return path.is_file() and path.suffix.lower() in (".xlsx", ".xlsm")
+
+
+def companion_file(dataset: str | Path, names: tuple[str, ...]) -> Path | None:
+    """The first of *names* that belongs to *dataset*: inside a dataset folder, or beside a
+    dataset workbook (``tree.nwk`` and ``comparo.toml`` next to ``entry.xlsx``); None if absent."""
+    dataset = Path(dataset)
+    folder = dataset.parent if is_workbook(dataset) else dataset
+    return next((folder / n for n in names if (folder / n).is_file()), None)
+
+
+def input_files(dataset: str | Path) -> list[Path]:
+    """The files a dataset is read from: every regular, non-hidden file at the top of a
+    dataset folder; for a workbook, the workbook and the tree and comparo.toml beside it."""
+    dataset = Path(dataset)
+    if is_workbook(dataset):
+        extra = [companion_file(dataset, TREE_NAMES), companion_file(dataset, (SETTINGS_NAME,))]
+        return [dataset] + [p for p in extra if p is not None]
+    return [p for p in sorted(dataset.iterdir()) if p.is_file() and not p.name.startswith(".")]
 
 
 def cell_coordinates(raw: RawDataset, problems: list[Problem]) -> list[Problem]:
@@ -745,15 +784,6 @@ def read_folder(folder: str | Path) -> RawDataset:
         raw.files["traces"] = traces
         raw.traces, p = read_table(traces, "traces")
         raw.problems += p
-    tree = _first(folder, TREE_NAMES, raw.problems)
-    if tree is not None:
-        raw.files["tree"] = tree
-        raw.tree, raw.tree_text, p = read_newick(tree)
-        raw.problems += p
-    settings = _first(folder, (SETTINGS_NAME,), raw.problems)
-    if settings is not None:
-        raw.files["settings"] = settings
-        raw.settings, p = read_settings(settings)
-        raw.problems += p
+    _read_tree_and_settings(raw, folder)
     raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa, raw.traces) if t is not None])
     return raw

@@ -12,13 +12,11 @@ def run(args) -> int:
     from comparo.catalog import load_catalog
 
     if args.dataset:
-        from pathlib import Path
+        from comparo.io import SETTINGS_NAME, companion_file, read_settings
 
-        from comparo.io import read_settings
-
-        path = Path(args.dataset) / "comparo.toml"
-        settings = read_settings(path)[0] if path.is_file() else {}
-        catalog = load_catalog(settings.get("quantities"), file=str(path))
+        path = companion_file(args.dataset, (SETTINGS_NAME,))
+        settings = read_settings(path)[0] if path is not None else {}
+        catalog = load_catalog(settings.get("quantities"), file=str(path or SETTINGS_NAME))
     else:
         catalog = load_catalog()
     frame = catalog.to_frame()

@@ -19,9 +19,11 @@ def _sha256(path: Path) -> str:
 
 
 def input_hashes(folder: str | Path) -> dict[str, str]:
-    """SHA-256 of every regular, non-hidden file at the top of the dataset folder."""
-    folder = Path(folder)
-    return {p.name: _sha256(p) for p in sorted(folder.iterdir()) if p.is_file() and not p.name.startswith(".")}
+    """SHA-256 of every file the dataset is read from: each regular, non-hidden file at the
+    top of a dataset folder; a dataset workbook and the tree and comparo.toml beside it."""
+    from comparo.io import input_files
+
+    return {p.name: _sha256(p) for p in input_files(folder)}
 
 
 def package_versions() -> dict[str, str]:
