@@ -35,7 +35,7 @@ SETTINGS_NAME = "comparo.toml"
 SETTINGS_KEYS = {
     "reference_temperature_c", "q10", "derive", "quantities", "ratios", "analysis",
     "aggregate", "conflict_factor", "temperature_model", "activation_energy_kj_mol",
-    "title", "seed",
+    "title", "seed", "header_synonyms",
 }
 
 MAX_CELL = 10_000  # characters; longer cells are an error (pasted garbage)
