@@ -564,7 +564,7 @@ def apply_map(columns: list[Column], mapping: dict[str, dict[str, str]], catalog
         role = rec.get("role", "").strip().lower()
         key = rec.get("key", "").strip()
         row = int(rec["_row"])
-        new = replace(c, role=role, key=key, unit=rec.get("unit", "").strip(), basis=rec.get("basis", "").strip().lower(), how="map file", problem="", candidates=())
+        new = replace(c, role=role, key=key, unit=rec.get("unit", "").strip() or c.unit, basis=rec.get("basis", "").strip().lower(), how="map file", problem="", candidates=())
         if role not in ROLES:
             probs.append(_problem(map_file, "map-role", f"role {role!r} of header {c.header!r} is not one of {', '.join(ROLES)}", row=row, column="role", value=role))
             new = replace(new, role="")
