@@ -81,7 +81,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("table", help="per-taxon harmonised table (CSV)")
     _dataset_arg(p)
-    _output_arg(p)
+    _output_arg(p, "output file (default: standard output): a CSV gets its units in NAME.units.csv beside it; "
+                   "a name ending in .xlsx writes a workbook with the units in the headers")
     _temperature_arg(p)
     p.add_argument("--aggregate", choices=["mean", "median"], default=None, help="how repeated values combine (default: settings, else weighted mean)")
 

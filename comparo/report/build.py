@@ -184,6 +184,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
 
 def _derive(run: _Run) -> None:
     from comparo.csvsafe import to_csv
+    from comparo.curate import column_units
     from comparo.errors import ComparoError
 
     settings = run.ds.settings or {}
@@ -196,10 +197,12 @@ def _derive(run: _Run) -> None:
         run.notes.append(f"derived quantities unavailable: {type(exc).__name__}: {exc}")
     run.data = run.derived if run.derived is not None else run.table
     run.analyses, run.origin, run.defaults = analyses(settings, run.data, run.ds.catalog, _taxa_columns(run.ds))
-    run.tables |= {"per_taxon": to_csv(run.table), "audit": to_csv(run.aud.to_frame()),
+    run.tables |= {"per_taxon": to_csv(run.table), "per_taxon.units": to_csv(column_units(run.table, run.ds.catalog)),
+                   "audit": to_csv(run.aud.to_frame()),
                    "sources": to_csv(run.aud.sources_frame()), "problems": to_csv(run.checked.problems)}
     if run.derived is not None:
         run.tables["derived"] = to_csv(run.derived)
+        run.tables["derived.units"] = to_csv(column_units(run.derived, run.ds.catalog))
     if not settings:
         run.defaults.append(f"the reference temperature ({run.ds.reference_temperature_c:g} °C) and the Q10 of each "
                             "temperature-sensitive quantity from the catalogue")
