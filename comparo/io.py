@@ -80,6 +80,12 @@ def _err(file: str, rule: str, message: str, hint: str = "", row: int | None = N
 
 # --------------------------------------------------------------------------- text files
 
+def exception_reason(exc: Exception) -> str:
+    """What a library said went wrong, in its words but without its exception class name."""
+    text = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else ""
+    return text or "the file is damaged or not of this format"
+
+
 def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
     """Decode a text file: UTF-8 (with or without BOM), UTF-16 with BOM; other
     8-bit text is decoded as Windows-1252 with a warning. Binary data is an error."""
@@ -303,7 +309,7 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     try:
         book = pd.ExcelFile(path, engine="openpyxl")
     except Exception as exc:  # openpyxl raises many types for a broken workbook
-        return None, [_err(file, "xlsx-read", f"cannot open the workbook ({type(exc).__name__}: {exc})", "check that it is an .xlsx file (not .xls or CSV renamed)")]
+        return None, [_err(file, "xlsx-read", f"cannot open the workbook ({exception_reason(exc)})", "check that it is an .xlsx file (not .xls or CSV renamed)")]
     names = book.sheet_names
     chosen = sheet if sheet in names else (names[0] if names else None)
     if chosen is None:
@@ -312,7 +318,7 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     try:
         frame = pd.read_excel(book, sheet_name=chosen, header=None, dtype=object)
     except Exception as exc:
-        return None, [_err(file, "xlsx-read", f"cannot read sheet ({type(exc).__name__}: {exc})")]
+        return None, [_err(file, "xlsx-read", f"cannot read sheet ({exception_reason(exc)})")]
     if frame.empty:
         return None, [_err(file, "empty-file", "sheet is empty", "put the table on the first sheet, header in row 1")]
     frame = frame.map(_excel_cell)
@@ -385,7 +391,7 @@ def read_bibtex(path: Path) -> tuple[RawTable | None, list[Problem]]:
     try:
         lib = bibtexparser.parse_string(text)
     except Exception as exc:
-        return None, probs + [_err(file, "bibtex-syntax", f"cannot parse BibTeX ({type(exc).__name__}: {exc})")]
+        return None, probs + [_err(file, "bibtex-syntax", f"cannot parse BibTeX ({exception_reason(exc)})")]
     for block in lib.failed_blocks:
         lines = [ln for ln in str(getattr(block, "error", "") or "").splitlines() if ln.strip()]
         reason = lines[-1].strip()[:200] if lines else "syntax error"
@@ -667,7 +673,7 @@ def read_workbook(path: Path) -> RawDataset:
         names = list(book.sheetnames)
         book.close()
     except Exception as exc:  # openpyxl raises many types for a broken workbook
-        raw.problems.append(_err(path.name, "xlsx-read", f"cannot open the workbook ({type(exc).__name__}: {exc})", "check that it is an .xlsx file (not .xls, or CSV renamed)"))
+        raw.problems.append(_err(path.name, "xlsx-read", f"cannot open the workbook ({exception_reason(exc)})", "check that it is an .xlsx file (not .xls, or CSV renamed)"))
         return raw
     for sheet in WORKBOOK_SHEETS:
         if sheet not in names:

@@ -26,7 +26,7 @@ from typing import Any
 
 from comparo.catalog import Catalog
 from comparo.errors import Problem
-from comparo.io import MAX_CELL, decode_bytes, nfc
+from comparo.io import MAX_CELL, decode_bytes, exception_reason, nfc
 
 UNCERTAINTY_ROLES = ("sd", "se", "ci95", "range_half")
 ROLES = ("value", *UNCERTAINTY_ROLES, "n", "source", "locator", "taxon", "temperature", "taxa", "column", "ignore")
@@ -143,7 +143,7 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
         book = openpyxl.load_workbook(path, read_only=True, data_only=True)
         formulas = openpyxl.load_workbook(path, read_only=True, data_only=False)
     except Exception as exc:  # openpyxl raises many types for a broken workbook
-        return None, file, [_problem(file, "xlsx-read", f"cannot open the workbook ({type(exc).__name__}: {exc})", "check that it is an .xlsx file (not .xls, or CSV renamed)")]
+        return None, file, [_problem(file, "xlsx-read", f"cannot open the workbook ({exception_reason(exc)})", "check that it is an .xlsx file (not .xls, or CSV renamed)")]
     names = book.sheetnames
     if sheet is not None and sheet not in names:
         return None, file, [_problem(file, "sheet-missing", f"the workbook has no sheet {sheet!r}", f"its sheets: {', '.join(names)}")]
