@@ -374,12 +374,14 @@ class NameIndex:
     def ranked(self, keys: list[str], unit: str, limit: int = 5) -> list[str]:
         """*keys* ranked by words and by dimension together: keys whose kind the header's
         *unit* measures first (a frequency in Hz before a rate, a rate in 1/s before a
-        frequency), the words' order kept within each rank; with a unit and no key left by
-        the words, the quantities the unit measures."""
+        frequency), the words' order kept within each rank; keys the unit cannot measure are
+        dropped, and with none left, the quantities the unit measures are offered."""
         if not unit:
             return keys[:limit]
         fits = {k: unit_fit(unit, kind) for k, kind in self.kinds.items()}
-        pool = keys or [k for k in self.kinds if fits[k] == 2]
+        if not any(fits.values()):  # a unit of no catalogue kind (or unreadable): the words alone
+            return keys[:limit]
+        pool = [k for k in keys if fits.get(k, 0)] or [k for k in self.kinds if fits[k] == 2]
         return sorted(pool, key=lambda k: -fits.get(k, 0))[:limit]
 
 
@@ -457,6 +459,8 @@ def match_header(header: str, index: int, names: NameIndex, roles: dict[str, str
             return replace(col, role=role, key=bkey, unit=unit, how=f"{bhow} + {role}")
         if bproblem.startswith("ambiguous"):
             return replace(col, unit=unit, problem=bproblem, candidates=bcands)
+    if not cands and unit and unit_fit(unit, "temperature"):
+        problem += "; its unit is a temperature: set role 'temperature' if it is the measurement temperature"
     return replace(col, unit=unit, problem=problem, candidates=cands)
 
 

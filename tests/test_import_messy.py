@@ -165,6 +165,11 @@ def test_one_letter_symbols_never_match_and_a_unit_ranks_the_candidates() -> Non
     k = match_header("k (s-1)", 0, names)
     assert not k.role and set(k.candidates[:2]) == {"attach_rate", "detach_rate"}
     assert "frequency_observed" not in k.candidates[:2]
+    # words alone would offer a power for 'passive'; the unit keeps only what a stress measures
+    stiff = match_header("Passive stiffness (kN m-2)", 0, names)
+    assert stiff.candidates and all(names.kinds[k] == "stress" for k in stiff.candidates)
+    temp = match_header("T (°C)", 0, names)
+    assert not temp.role and "set role 'temperature'" in temp.problem
 
 
 def test_own_header_synonyms_in_comparo_toml_and_in_the_map(tmp_path, capsys) -> None:
