@@ -547,7 +547,9 @@ def header_synonyms(wide: Path, mapping: dict[str, dict[str, str]], catalog: Cat
         probs += more
     rows = {h: rec.get("key", "").strip() for h, rec in mapping.items() if rec.get("role", "").strip().lower() == "synonym"}
     own, more = read_synonyms(rows, catalog, map_file, where="key")
-    probs += [replace(p, row=int(mapping[p.value or ""]["_row"]) if (p.value or "") in mapping else None) for p in more]
+    for p in more:  # at the map row of the name (or of the target) the problem names
+        h = next((h for h, k in rows.items() if p.value in (h, k)), None)
+        probs.append(replace(p, row=int(mapping[h]["_row"]) if h is not None else None))
     return {**synonyms, **own}, probs
 
 
