@@ -214,7 +214,7 @@ def _normalise(text: str) -> str:
     t = text.strip()
     t = t.replace("⁻¹", "**-1").replace("⁻²", "**-2").replace("⁻³", "**-3")
     t = t.translate(_SUPERSCRIPTS)
-    t = t.replace("·", "*").replace("⋅", "*").replace("×", "*")
+    t = t.replace("·", "*").replace("⋅", "*").replace("×", "*").replace("−", "-")  # U+2212, the printed minus
     t = t.replace("μ", "µ")  # Greek mu -> micro sign (pint knows both; keep one)
     t = re.sub(r"\s*\*\s*", "*", t)
     t = re.sub(r"(?<=[A-Za-zµ])\s+(?=[A-Za-zµ])", "*", t)  # "mPa s" -> "mPa*s"
