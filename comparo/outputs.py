@@ -206,6 +206,19 @@ def _clean(obj: Any) -> Any:
     return obj
 
 
+def row_list(rows: list[int], most: int = 12) -> str:
+    """Spreadsheet rows as a short text: runs as ranges, at most *most* items
+    (``[2, 3, 4, 5, 9]`` -> ``'2-5, 9'``)."""
+    runs: list[list[int]] = []
+    for r in sorted(dict.fromkeys(int(x) for x in rows)):
+        if runs and r == runs[-1][1] + 1:
+            runs[-1][1] = r
+        else:
+            runs.append([r, r])
+    items = [f"{a}-{b}" if b > a else str(a) for a, b in runs]
+    return ", ".join(items[:most]) + (" ..." if len(items) > most else "")
+
+
 #: warnings (and notes) of one rule in one column printed in full; the rest are counted
 PER_COLUMN = 5
 _CELL = re.compile(r"^cell ([A-Z]{1,3}\d+): ")
@@ -254,8 +267,7 @@ def print_problems(problems, stream: IO[str] | None = None, limit: int = 200) ->
         known = [r for r in rows if r is not None]
         at = [c for _, c in cells[key] if c]
         if len(rows) > 1 and known:
-            known = list(dict.fromkeys(known))
-            listed = ", ".join(str(int(r)) for r in known[:12]) + (" ..." if len(known) > 12 else "")
+            listed = row_list(known)
             head = f"{rec['severity']}: {rec['file']}"
             if at:  # the cells name their rows
                 rec["message"] = f"cells {', '.join(at[:12])}{' ...' if len(at) > 12 else ''}: {rec['message']}"

@@ -97,3 +97,17 @@ def test_table_as_a_workbook_with_units_in_the_headers(tiny, tmp_path) -> None:
     assert [ws.cell(row=r, column=col).value for r in (2, 3)] == pytest.approx(list(csv_tab["body_mass"]))
     sheet = [[c.value or "" for c in row] for row in wb["columns"].iter_rows()]
     assert sheet[1:] == units.to_numpy().tolist()
+
+
+def test_check_prints_a_problem_repeated_on_many_rows_once(tmp_path, capsys) -> None:
+    """A source id missing from sources.csv on eight rows: one line naming rows 2-9; the JSON
+    still holds one problem per row."""
+    rows = [f"o{i},Apis mellifera,body_mass,{100 + i},mg,,,,s9,Table 1,reported,,," for i in range(8)]
+    ds = write_dataset(tmp_path / "ds", rows=rows)
+    assert run("check", ds) == 2
+    out = capsys.readouterr().out
+    assert out.count("source 's9' is not in the sources table") == 1
+    assert "observations.csv:2-9" in out and "(8 rows)" in out
+    assert run("check", ds, "--format", "json") == 2
+    probs = json.loads(capsys.readouterr().out)["problems"]
+    assert sorted(p["row"] for p in probs if p["rule"] == "source-unknown") == list(range(2, 10))
