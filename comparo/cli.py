@@ -81,7 +81,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("table", help="per-taxon harmonised table (CSV)")
     _dataset_arg(p)
-    _output_arg(p)
+    _output_arg(p, "output file (default: standard output): a CSV gets its units in NAME.units.csv beside it; "
+                   "a name ending in .xlsx writes a workbook with the units in the headers")
     _temperature_arg(p)
     p.add_argument("--aggregate", choices=["mean", "median"], default=None, help="how repeated values combine (default: settings, else weighted mean)")
 
@@ -154,6 +155,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--map", metavar="FILE", default=None, help="header decisions: a map CSV (header,role,key,unit,basis) or an earlier import.toml")
     p.add_argument("--sheet", metavar="NAME", default=None, help="sheet of an .xlsx workbook (default: the first)")
     p.add_argument("--decimal-comma", action="store_true", help="read ',' as the decimal mark (semicolon-delimited spreadsheet exports)")
+    p.add_argument("--header-row", metavar="N", type=int, default=None, help="the column headers are on row N, as the spreadsheet numbers it (title rows above are ignored); default: the first non-blank row")
+    p.add_argument("--plus-minus", metavar="KIND", choices=["sd", "se", "ci95", "range_half"], default=None, help="split cells such as '12.5 ± 0.3' (also +/-, +-) into value and uncertainty of this kind: sd, se, ci95 or range_half")
     p.add_argument("--overwrite", action="store_true", help="write into an existing non-empty folder, replacing the tables an import writes")
     p.add_argument("--format", choices=["text", "json"], default="text")
 

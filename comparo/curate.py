@@ -464,7 +464,16 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
     syn = rows[(rows["accepted"] != rows["taxon"]) & (rows["_origin"] == "" if "_origin" in rows else True)]
     for name, part in syn.groupby("taxon"):
         out.append(Problem("note", file, int(part["row"].iat[0]), "taxon", name, "synonym", f"reported name mapped to accepted name {part['accepted'].iat[0]!r} ({len(part)} row(s))", ""))
+    n_traces = int((rows["_origin"] != "").sum()) if "_origin" in rows else 0
+    if n_traces:
+        out.append(Problem("note", TRACE_ROWS_FILE, None, None, str(n_traces), TRACE_ROWS_RULE,
+                           f"{n_traces} row(s) computed from the traces (frequency, loop area, work ...) join the "
+                           f"{int((rows['_origin'] == '').sum())} rows of the observations table", "audit and the report count both"))
     return out
+
+
+TRACE_ROWS_RULE = "trace-rows"  # the note of diagnostics() counting the rows computed from traces
+TRACE_ROWS_FILE = "traces.csv"
 
 
 def _cell(v) -> str:
@@ -506,7 +515,8 @@ def review(folder) -> CheckResult:
     extra = gate if (not result.ok or any(p.severity == "error" for p in gate)) else gate + diagnostics(result.dataset)
     if not extra:
         return result
-    result = replace(result, problems=problems_frame(problems_from_frame(result.problems) + extra))
+    traces = sum(int(p.value or 0) for p in extra if p.rule == TRACE_ROWS_RULE)
+    result = replace(result, problems=problems_frame(problems_from_frame(result.problems) + extra), rows_from_traces=traces)
     result.dataset.problems = result.problems
     return result
 
@@ -660,3 +670,52 @@ def per_taxon(ds: Dataset, *, temperature: bool = True, aggregate: str | None = 
                 out[c] = out[c].fillna("")
     out.attrs["reference_temperature_c"] = h.reference_temperature_c
     return out
+
+
+# what the columns of the per-taxon and derived tables hold, by suffix (longest first)
+_SUFFIX_MEANING: tuple[tuple[str, bool, str], ...] = (  # suffix, in the quantity's unit?, meaning
+    ("_mc_median", True, "Monte Carlo median"), ("_mc_lo68", True, "Monte Carlo 68% interval, low end"),
+    ("_mc_hi68", True, "Monte Carlo 68% interval, high end"), ("_mc_lo95", True, "Monte Carlo 95% interval, low end"),
+    ("_mc_hi95", True, "Monte Carlo 95% interval, high end"), ("_mc_u", True, "Monte Carlo standard deviation"),
+    ("_nonlinear", False, "first-order and Monte Carlo uncertainties differ by more than 20%"),
+    ("_temp_c", False, "temperature (°C) the per-taxon value refers to"),
+    ("_nsrc", False, "number of distinct sources behind the value"),
+    ("_basis", False, "weakest basis of the values behind it (reported > computed > digitized > proxy > assumed)"),
+    ("_method", False, "how the derived value was computed"), ("_missing", False, "inputs missing for the derived value"),
+    ("_obs", False, "obs_ids of the values behind it (;-joined)"), ("_n", False, "number of values combined"),
+    ("_u", True, "standard uncertainty"),
+)
+
+
+def column_units(table: pd.DataFrame, catalog) -> pd.DataFrame:
+    """What each column of a per-taxon (or derived) table holds: columns ``column``, ``unit``
+    (the canonical unit as pint reads it; empty for text, counts and dimensionless columns)
+    and ``meaning``. Units of derived keys come from ``table.attrs['units']``; the
+    catalogue gives the others. This is the table written beside a per-taxon CSV
+    (``table.units.csv``)."""
+    derived = dict(table.attrs.get("units", {}))
+    keys = {k: catalog[k].unit for k in catalog} | derived
+    groups = set(table.columns) - {"taxon", "temperature_c"}
+    rows = []
+    for col in table.columns:
+        unit, meaning = "", ""
+        if col == "taxon":
+            meaning = "accepted taxon name"
+        elif col == "temperature_c":
+            unit, meaning = "degC", "temperature the temperature-sensitive values refer to"
+        elif col in keys:
+            unit, meaning = keys[col], "value in the canonical unit" if col not in derived else "derived value"
+        elif col == "regime":
+            meaning = "kinetic, hydraulic or undetermined"
+        else:
+            for suffix, same, what in _SUFFIX_MEANING:
+                base = col[: -len(suffix)]
+                if col.endswith(suffix) and base in keys | {"regime": ""}:
+                    unit = keys.get(base, "") if same else ("degC" if suffix == "_temp_c" else "")
+                    meaning = f"{base}: {what}"
+                    break
+            else:
+                if col in groups:
+                    meaning = "grouping column (taxa.csv)"
+        rows.append({"column": col, "unit": "" if unit in ("1", "dimensionless") else unit, "meaning": meaning})
+    return pd.DataFrame(rows, columns=["column", "unit", "meaning"])

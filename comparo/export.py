@@ -267,3 +267,53 @@ def to_dwc(ds: Dataset, out_dir: str | Path) -> ExportResult:
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return ExportResult("dwc", str(out), files)
+
+
+def table_workbook(table: pd.DataFrame, units: pd.DataFrame) -> bytes:
+    """A per-taxon (or derived) table as an ``.xlsx`` workbook: sheet ``table`` with one row
+    per taxon and the unit in each header (``body_mass (kg)``; columns without a unit keep
+    their name), and sheet ``columns`` with what each column holds (:func:`comparo.curate.column_units`).
+    Every text cell is stored as a plain string, never as a formula (a cell ``=1+1`` stays
+    the text ``=1+1``); numbers are numbers, missing values empty cells."""
+    import io
+    import math
+
+    from openpyxl import Workbook
+    from openpyxl.styles import Font
+
+    from comparo.units import pretty
+
+    unit_of = dict(zip(units["column"], units["unit"], strict=True))
+    wb = Workbook()
+    ws = wb.active
+    ws.title = "table"
+    sheet_columns = wb.create_sheet("columns")
+
+    def put(sheet, row: int, col: int, value: Any) -> None:
+        cell = sheet.cell(row=row, column=col)
+        if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NA:
+            return
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            cell.value = str(value)
+            cell.data_type = "s"  # a string, even when it starts with '='
+        else:
+            cell.value = float(value) if isinstance(value, float) else int(value)
+
+    bold = Font(bold=True)
+    for j, col in enumerate(table.columns, start=1):
+        u = unit_of.get(col, "")
+        put(ws, 1, j, f"{col} ({pretty(u)})" if u else str(col))
+        ws.cell(row=1, column=j).font = bold
+    for i, rec in enumerate(table.itertuples(index=False), start=2):
+        for j, v in enumerate(rec, start=1):
+            put(ws, i, j, v.item() if hasattr(v, "item") else v)
+    ws.freeze_panes = "B2"
+    for j, name in enumerate(units.columns, start=1):
+        put(sheet_columns, 1, j, name)
+        sheet_columns.cell(row=1, column=j).font = bold
+    for i, rec in enumerate(units.itertuples(index=False), start=2):
+        for j, v in enumerate(rec, start=1):
+            put(sheet_columns, i, j, v)
+    buf = io.BytesIO()
+    wb.save(buf)
+    return buf.getvalue()

@@ -32,6 +32,7 @@ from comparo.wide import (
     match_headers,
     read_grid,
     read_map,
+    read_synonyms,
 )
 
 NOT_STATED = "not stated"  # locator written when the wide table gives none
@@ -108,6 +109,18 @@ def parse_cell(v: Any, decimal_comma: bool) -> tuple[str | None, str, str]:
     return t, "", ""
 
 
+PLUS_MINUS_KINDS = ("sd", "se", "ci95", "range_half")
+_PLUS_MINUS = re.compile(r"^\s*(?P<value>[^±+]*?\S)\s*(?:±|\+\s*/\s*[-−]|\+\s*[-−])\s*(?P<spread>\S.*?)\s*$")
+
+
+def split_plus_minus(v: Any) -> tuple[str, str] | None:
+    """``'12.5 ± 0.3'`` (also ``+/-``, ``+-``) -> ``('12.5', '0.3')``; None for any other cell."""
+    if not isinstance(v, str):
+        return None
+    m = _PLUS_MINUS.match(v)
+    return (m.group("value"), m.group("spread")) if m else None
+
+
 def _hint(t: str, decimal_comma: bool) -> str:
     if not decimal_comma and re.fullmatch(r"[-+]?\d+,\d+", t):
         return "a decimal comma? rerun with --decimal-comma if the whole table uses them, or write '.'"
@@ -115,8 +128,9 @@ def _hint(t: str, decimal_comma: bool) -> str:
         return "a ',' between thousands? remove it"
     if t[:1] in "<>≤≥~":
         return "a bound or approximate value is not a number: put the number in the cell and the qualifier in a notes column"
-    if "±" in t or "+/-" in t:
-        return "put the spread in its own column, e.g. 'Body mass SD (g)'"
+    if split_plus_minus(t) is not None:
+        return ("a value with its spread: rerun with --plus-minus KIND (sd, se, ci95 or range_half: what the ± "
+                "means in the source) to split such cells, or put the spread in its own column, e.g. 'Body mass SD (g)'")
     if re.match(r"^[-+]?\d[\d.,]*\s*[A-Za-zµμ%°]", t):
         return "a unit typed into the cell? the unit belongs in the header, e.g. 'Body mass (g)'"
     return "give a plain number (empty cells make no row)"
@@ -139,8 +153,9 @@ def resolve(grid: Grid, columns: list[Column], catalog: Catalog) -> tuple[list[C
     for c in columns:
         if not c.role:
             cands = ", ".join(f"{k} ({catalog[k].label})" if k in catalog else k for k in c.candidates)
+            why = c.problem or ("the map file gives it no role" if c.how == "map file" else "no role decided")
             probs.append(_header_problem(grid, c, "header-ambiguous" if c.problem.startswith("ambiguous") else "header-unknown",
-                                         c.problem + (f"; closest: {cands}" if cands else ""), "set its role (and key, unit) in the map file"))
+                                         why + (f"; closest: {cands}" if cands else ""), "set its role (and key, unit) in the map file"))
             out.append(c)
             continue
         if c.role in ("value", *UNCERTAINTY_ROLES):
@@ -230,8 +245,10 @@ def _number_problem(grid: Grid, c: Column, i: int, v: Any, msg: str, hint: str) 
     return Problem("error", grid.file, grid.row_numbers[i], c.header, str(v)[:60], "not-a-number", f"cell {coord} is {msg}", hint)
 
 
-def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _Long:
-    """One long-format record per filled trait cell (see the module docstring)."""
+def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False, plus_minus: str | None = None) -> _Long:
+    """One long-format record per filled trait cell (see the module docstring). With
+    *plus_minus* (one of :data:`PLUS_MINUS_KINDS`), a trait cell ``12.5 ± 0.3`` is the value
+    12.5 with the uncertainty 0.3 of that kind."""
     from comparo import units
 
     out = _Long()
@@ -277,7 +294,13 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
                 have.setdefault(c.key, val)
                 out.taxa_origin.setdefault(taxon, rownum)
         for c in by_role.get("value", []):
-            value = number(i, c)
+            pm = split_plus_minus(grid.rows[i][c.index]) if plus_minus else None
+            if pm is not None:
+                value, pm_spread = _split_cell(grid, c, i, pm, decimal_comma, out.problems)
+                if value is None:
+                    continue
+            else:
+                value, pm_spread = number(i, c), None
             if value is None:
                 out.empty += 1 if isinstance(grid.rows[i][c.index], str) and not grid.rows[i][c.index] else 0
                 continue
@@ -301,7 +324,14 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
                 if src is not None:
                     origin[col] = (src.header, grid.coordinate(i, src.index), rownum)
             spread = next((per_key[(r, c.key)] for r in UNCERTAINTY_ROLES if (r, c.key) in per_key), None)
-            if spread is not None:
+            if pm_spread is not None:
+                rec["uncertainty"], rec["uncertainty_kind"] = pm_spread, plus_minus
+                origin["uncertainty"] = origin["value"]
+                if spread is not None and text(i, spread):
+                    out.problems.append(Problem("error", grid.file, rownum, spread.header, text(i, spread), "spread-twice",
+                                                f"cell {coord} gives a spread after ± and cell {grid.coordinate(i, spread.index)} gives one too",
+                                                "keep one of them"))
+            elif spread is not None:
                 u = number(i, spread)
                 if u is not None:
                     if spread.unit and spread.unit != c.unit:
@@ -328,6 +358,18 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
             out.records.append(rec)
             out.origin.append(origin)
     return out
+
+
+def _split_cell(grid: Grid, c: Column, i: int, pm: tuple[str, str], decimal_comma: bool,
+                problems: list[Problem]) -> tuple[str | None, str | None]:
+    """The value and spread texts of a ``12.5 ± 0.3`` cell, or (None, None) with a problem."""
+    value, msg, hint = parse_cell(pm[0], decimal_comma)
+    spread, smsg, shint = parse_cell(pm[1], decimal_comma)
+    if value is None or spread is None:
+        part, why, how = ("the value before ±", msg, hint) if value is None else ("the spread after ±", smsg, shint)
+        problems.append(_number_problem(grid, c, i, grid.rows[i][c.index], f"a value ± spread whose {part} is {why}", how))
+        return None, None
+    return value, spread
 
 
 def _filled(own: Column | None, row: Column | None, text) -> Column | None:
@@ -368,6 +410,54 @@ def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -
         else:
             out.append(p)
     return out
+
+
+def column_unit_slips(found: list[Problem], long: _Long, columns: list[Column], catalog: Catalog, grid: Grid) -> list[Problem]:
+    """A whole column in the wrong unit is one warning for the column, not one per cell.
+
+    When at least two, and at least half, of a trait column's values are outside the
+    quantity's plausible range as read in the header's unit, and another usual unit of the
+    kind (``units.USUAL_UNITS``) puts at least 80% of them inside it (and more than the
+    header's unit does), the column's out-of-range warnings are replaced by one naming that
+    unit. The values are imported as the header says; the curator decides."""
+    from comparo import units
+
+    by_col: dict[str, list[Problem]] = {}
+    for p in found:
+        if p.rule == "out-of-range" and p.file == grid.file and p.column:
+            by_col.setdefault(p.column, []).append(p)
+    replaced: set[str] = set()
+    extra: list[Problem] = []
+    for c in columns:
+        bad = by_col.get(c.header, [])
+        q = catalog[c.key] if c.role == "value" and c.key in catalog else None
+        if q is None or not q.range or len(bad) < 2:
+            continue
+        values = [float(r["value"]) for r, o in zip(long.records, long.origin, strict=True) if o["value"][0] == c.header]
+        if 2 * len(bad) < len(values):
+            continue
+        lo, hi = q.range
+        own = units.conversion_factor(c.unit, q.unit)
+        best, best_in = "", len(values) - len(bad)
+        for u in units.USUAL_UNITS.get(q.kind, ()):
+            try:
+                f = units.conversion_factor(u, q.unit)
+            except Exception:  # a usual unit of another dimension (never for a catalogue kind)
+                continue
+            if math.isclose(f, own, rel_tol=1e-9):
+                continue
+            inside = sum(lo <= v * f <= hi for v in values)
+            if inside > best_in:
+                best, best_in = u, inside
+        if not best or best_in < 0.8 * len(values):
+            continue
+        replaced.add(c.header)
+        canon = units.pretty(q.unit)
+        extra.append(Problem("warning", grid.file, grid.header_row, c.header, c.unit, "column-unit",
+                             f"header in column {c.letter}: {len(bad)} of {len(values)} values of {q.key} are outside its plausible range "
+                             f"({lo:g}-{hi:g} {canon}) read in {c.unit}; read in {best}, {best_in} of them are inside: is the column's unit {best}?",
+                             f"if so, write ({best}) in the header (or the unit in the map file) and import again; they were imported in {c.unit}"))
+    return [p for p in found if not (p.rule == "out-of-range" and p.column in replaced)] + extra
 
 
 # --------------------------------------------------------------------------- sources, taxa, import.toml
@@ -415,7 +505,8 @@ def _toml_value(v: Any) -> str:
     return json.dumps(str(v), ensure_ascii=False)
 
 
-def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, sources: Path | None, columns: list[Column], counts: dict[str, Any]) -> str:
+def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, sources: Path | None, columns: list[Column], counts: dict[str, Any],
+                plus_minus: str | None = None) -> str:
     """import.toml: the input (name, sheet, SHA-256), the options, the counts, and per column
     the decision taken (role, key, unit, basis and how the header was matched)."""
     from comparo import __version__
@@ -427,6 +518,7 @@ def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, 
              f"file = {_toml_value(wide.name)}", f"sheet = {_toml_value(sheet or '')}",
              f"sha256 = {_toml_value(hashlib.sha256(wide.read_bytes()).hexdigest())}",
              f"decimal_comma = {_toml_value(decimal_comma)}", f"delimiter = {_toml_value(grid.delimiter)}",
+             f"header_row = {grid.header_row}", f"plus_minus = {_toml_value(plus_minus or '')}",
              f"sources = {_toml_value(sources.name if sources else '')}", "", "[defaults]",
              'basis = "reported"', f"locator = {_toml_value(NOT_STATED)}",
              "obs_id = \"imp_ + first 10 hex digits of SHA-256(taxon|source|locator|header|muscle|occurrence)\"", "", "[counts]"]
@@ -438,12 +530,40 @@ def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, 
 
 # --------------------------------------------------------------------------- the import
 
-def _decide(grid: Grid, catalog: Catalog, map_file: Path | None) -> tuple[list[Column], list[Problem]]:
-    columns = match_headers(grid.header, catalog)
+def header_synonyms(wide: Path, mapping: dict[str, dict[str, str]], catalog: Catalog,
+                    map_file: str) -> tuple[dict[str, str], list[Problem]]:
+    """The user's own header synonyms: ``[header_synonyms]`` of a comparo.toml beside the wide
+    table, and the rows of role ``synonym`` in the map file (header = the name, key = a catalogue
+    key or taxon/source/locator/temperature/n), which win over the file's."""
+    from comparo.io import SETTINGS_NAME, read_settings
+
+    synonyms: dict[str, str] = {}
     probs: list[Problem] = []
+    toml = wide.parent / SETTINGS_NAME
+    if toml.is_file():
+        settings, sprobs = read_settings(toml)
+        probs += [p for p in sprobs if p.severity == "error"]
+        synonyms, more = read_synonyms(settings.get("header_synonyms"), catalog, SETTINGS_NAME)
+        probs += more
+    rows = {h: rec.get("key", "").strip() for h, rec in mapping.items() if rec.get("role", "").strip().lower() == "synonym"}
+    own, more = read_synonyms(rows, catalog, map_file, where="key")
+    for p in more:  # at the map row of the name (or of the target) the problem names
+        h = next((h for h, k in rows.items() if p.value in (h, k)), None)
+        probs.append(replace(p, row=int(mapping[h]["_row"]) if h is not None else None))
+    return {**synonyms, **own}, probs
+
+
+def _decide(grid: Grid, catalog: Catalog, map_file: Path | None, wide: Path) -> tuple[list[Column], list[Problem]]:
+    probs: list[Problem] = []
+    mapping: dict[str, dict[str, str]] = {}
     if map_file is not None:
         mapping, probs = read_map(map_file)
-        columns, more = apply_map(columns, mapping, catalog, map_file.name)
+    synonyms, more = header_synonyms(wide, mapping, catalog, map_file.name if map_file else "")
+    probs += more
+    columns = match_headers(grid.header, catalog, synonyms)
+    if map_file is not None:
+        decisions = {h: rec for h, rec in mapping.items() if rec.get("role", "").strip().lower() != "synonym"}
+        columns, more = apply_map(columns, decisions, catalog, map_file.name)
         probs += more
     columns, more = resolve(grid, columns, catalog)
     return columns, probs + more
@@ -465,8 +585,14 @@ def _suggest_map(columns: list[Column], output: str, avoid: list[Path | None]) -
 
 def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: str | os.PathLike | None = None,
                 map_file: str | os.PathLike | None = None, sheet: str | None = None, decimal_comma: bool = False,
-                overwrite: bool = False, catalog: Catalog | None = None) -> ImportResult:
+                overwrite: bool = False, catalog: Catalog | None = None, header_row: int | None = None,
+                plus_minus: str | None = None) -> ImportResult:
     """Import the wide table *wide* into a new dataset folder *output*.
+
+    *header_row*: the row of the column headers (1-based, as a spreadsheet shows it; rows
+    above are ignored); default the first non-blank row. *plus_minus*: what a ``±`` in a
+    trait cell means (one of :data:`PLUS_MINUS_KINDS`); cells such as ``12.5 ± 0.3`` are then
+    split into value and uncertainty; without it they are refused.
 
     Raises
     ------
@@ -489,16 +615,20 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
     if out.is_dir() and any(out.iterdir()) and not overwrite:
         raise UsageError(f"output folder {output} exists and is not empty; comparo import writes a new dataset folder: "
                          "give a new folder, or --overwrite to replace the tables it writes there")
-    grid, problems = read_grid(wide, sheet, decimal_comma)
+    if header_row is not None and (isinstance(header_row, bool) or not isinstance(header_row, int) or header_row < 1):
+        raise UsageError(f"--header-row is the row number of the column headers, 1 or more (got {header_row!r})")
+    if plus_minus is not None and plus_minus not in PLUS_MINUS_KINDS:
+        raise UsageError(f"--plus-minus is one of {', '.join(PLUS_MINUS_KINDS)} (got {plus_minus!r})")
+    grid, problems = read_grid(wide, sheet, decimal_comma, header_row)
     if grid is None or any(p.severity == "error" for p in problems):
         raise InputError(problems)
-    columns, more = _decide(grid, catalog, mp)
+    columns, more = _decide(grid, catalog, mp, wide)
     if more:
         written = _suggest_map(columns, str(output), [mp, wide, src])
         if written:
             more.append(Problem("note", grid.file, None, None, None, "map-file-written", written))
         raise InputError(more)
-    long = to_long(grid, columns, decimal_comma)
+    long = to_long(grid, columns, decimal_comma, plus_minus)
     src_table, src_name, src_bytes, stubs, sprobs = _sources(src, [r["source_id"] for r in long.records], grid)
     problems = long.problems + sprobs
     if not long.records and not problems:
@@ -511,6 +641,7 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
     found = _validate(long, obs, src_table, taxa, grid, out)
     if any(p.severity == "error" for p in found):
         raise InputError(found)
+    found = column_unit_slips(found, long, columns, catalog, grid)
     warnings = [p for p in found if p.severity != "error" and p.rule != "citation-stub"]  # the summary counts the stubs
     for header, cells in long.empty_words.items():
         warnings.append(Problem("warning", grid.file, None, header, None, "missing-word", f"{len(cells)} cell(s) say the value is missing ({', '.join(cells[:5])}{' ...' if len(cells) > 5 else ''}); no row made", "nothing to do if they are missing values"))
@@ -522,7 +653,7 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
     files = {"observations.csv": _csv(obs), src_name: src_bytes if src_bytes is not None else _csv(src_table.frame)}
     if taxa is not None:
         files["taxa.csv"] = _csv(taxa)
-    files["import.toml"] = import_toml(grid, wide, sheet, decimal_comma, src, columns, counts).encode("utf-8")
+    files["import.toml"] = import_toml(grid, wide, sheet, decimal_comma, src, columns, counts, plus_minus).encode("utf-8")
     _write_folder(out, files, overwrite)
     return ImportResult(str(output), len(grid.rows), len(obs), long.empty, counts["taxa"], len(src_table), stubs,
                         columns, warnings, list(files))

@@ -35,7 +35,7 @@ SETTINGS_NAME = "comparo.toml"
 SETTINGS_KEYS = {
     "reference_temperature_c", "q10", "derive", "quantities", "ratios", "analysis",
     "aggregate", "conflict_factor", "temperature_model", "activation_energy_kj_mol",
-    "title", "seed",
+    "title", "seed", "header_synonyms",
 }
 
 MAX_CELL = 10_000  # characters; longer cells are an error (pasted garbage)
@@ -79,6 +79,12 @@ def _err(file: str, rule: str, message: str, hint: str = "", row: int | None = N
 
 
 # --------------------------------------------------------------------------- text files
+
+def exception_reason(exc: Exception) -> str:
+    """What a library said went wrong, in its words but without its exception class name."""
+    text = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else ""
+    return text or "the file is damaged or not of this format"
+
 
 def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
     """Decode a text file: UTF-8 (with or without BOM), UTF-16 with BOM; other
@@ -303,7 +309,7 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     try:
         book = pd.ExcelFile(path, engine="openpyxl")
     except Exception as exc:  # openpyxl raises many types for a broken workbook
-        return None, [_err(file, "xlsx-read", f"cannot open the workbook ({type(exc).__name__}: {exc})", "check that it is an .xlsx file (not .xls or CSV renamed)")]
+        return None, [_err(file, "xlsx-read", f"cannot open the workbook ({exception_reason(exc)})", "check that it is an .xlsx file (not .xls or CSV renamed)")]
     names = book.sheet_names
     chosen = sheet if sheet in names else (names[0] if names else None)
     if chosen is None:
@@ -312,7 +318,7 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     try:
         frame = pd.read_excel(book, sheet_name=chosen, header=None, dtype=object)
     except Exception as exc:
-        return None, [_err(file, "xlsx-read", f"cannot read sheet ({type(exc).__name__}: {exc})")]
+        return None, [_err(file, "xlsx-read", f"cannot read sheet ({exception_reason(exc)})")]
     if frame.empty:
         return None, [_err(file, "empty-file", "sheet is empty", "put the table on the first sheet, header in row 1")]
     frame = frame.map(_excel_cell)
@@ -385,7 +391,7 @@ def read_bibtex(path: Path) -> tuple[RawTable | None, list[Problem]]:
     try:
         lib = bibtexparser.parse_string(text)
     except Exception as exc:
-        return None, probs + [_err(file, "bibtex-syntax", f"cannot parse BibTeX ({type(exc).__name__}: {exc})")]
+        return None, probs + [_err(file, "bibtex-syntax", f"cannot parse BibTeX ({exception_reason(exc)})")]
     for block in lib.failed_blocks:
         lines = [ln for ln in str(getattr(block, "error", "") or "").splitlines() if ln.strip()]
         reason = lines[-1].strip()[:200] if lines else "syntax error"
@@ -667,7 +673,7 @@ def read_workbook(path: Path) -> RawDataset:
         names = list(book.sheetnames)
         book.close()
     except Exception as exc:  # openpyxl raises many types for a broken workbook
-        raw.problems.append(_err(path.name, "xlsx-read", f"cannot open the workbook ({type(exc).__name__}: {exc})", "check that it is an .xlsx file (not .xls, or CSV renamed)"))
+        raw.problems.append(_err(path.name, "xlsx-read", f"cannot open the workbook ({exception_reason(exc)})", "check that it is an .xlsx file (not .xls, or CSV renamed)"))
         return raw
     for sheet in WORKBOOK_SHEETS:
         if sheet not in names:
@@ -680,8 +686,47 @@ def read_workbook(path: Path) -> RawDataset:
         raw.problems += p
         setattr(raw, sheet, table)
         raw.files[sheet] = path
+    _read_tree_and_settings(raw, path.parent)
     raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa) if t is not None])
     return raw
+
+
+def _read_tree_and_settings(raw: RawDataset, folder: Path) -> None:
+    """The tree (tree.nwk ...) and comparo.toml of a dataset: in its folder, or beside its workbook."""
+    tree = _first(folder, TREE_NAMES, raw.problems)
+    if tree is not None:
+        raw.files["tree"] = tree
+        raw.tree, raw.tree_text, p = read_newick(tree)
+        raw.problems += p
+    settings = _first(folder, (SETTINGS_NAME,), raw.problems)
+    if settings is not None:
+        raw.files["settings"] = settings
+        raw.settings, p = read_settings(settings)
+        raw.problems += p
+
+
+def is_workbook(path: str | Path) -> bool:
+    """Whether *path* names a dataset workbook (an existing .xlsx/.xlsm file), not a folder."""
+    path = Path(path)
+    return path.is_file() and path.suffix.lower() in (".xlsx", ".xlsm")
+
+
+def companion_file(dataset: str | Path, names: tuple[str, ...]) -> Path | None:
+    """The first of *names* that belongs to *dataset*: inside a dataset folder, or beside a
+    dataset workbook (``tree.nwk`` and ``comparo.toml`` next to ``entry.xlsx``); None if absent."""
+    dataset = Path(dataset)
+    folder = dataset.parent if is_workbook(dataset) else dataset
+    return next((folder / n for n in names if (folder / n).is_file()), None)
+
+
+def input_files(dataset: str | Path) -> list[Path]:
+    """The files a dataset is read from: every regular, non-hidden file at the top of a
+    dataset folder; for a workbook, the workbook and the tree and comparo.toml beside it."""
+    dataset = Path(dataset)
+    if is_workbook(dataset):
+        extra = [companion_file(dataset, TREE_NAMES), companion_file(dataset, (SETTINGS_NAME,))]
+        return [dataset] + [p for p in extra if p is not None]
+    return [p for p in sorted(dataset.iterdir()) if p.is_file() and not p.name.startswith(".")]
 
 
 def cell_coordinates(raw: RawDataset, problems: list[Problem]) -> list[Problem]:
@@ -745,15 +790,6 @@ def read_folder(folder: str | Path) -> RawDataset:
         raw.files["traces"] = traces
         raw.traces, p = read_table(traces, "traces")
         raw.problems += p
-    tree = _first(folder, TREE_NAMES, raw.problems)
-    if tree is not None:
-        raw.files["tree"] = tree
-        raw.tree, raw.tree_text, p = read_newick(tree)
-        raw.problems += p
-    settings = _first(folder, (SETTINGS_NAME,), raw.problems)
-    if settings is not None:
-        raw.files["settings"] = settings
-        raw.settings, p = read_settings(settings)
-        raw.problems += p
+    _read_tree_and_settings(raw, folder)
     raw.problems += unified_spellings([t for t in (raw.observations, raw.sources, raw.taxa, raw.traces) if t is not None])
     return raw

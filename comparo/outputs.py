@@ -24,6 +24,7 @@ from __future__ import annotations
 import errno
 import json
 import os
+import re
 import stat
 import sys
 import tempfile
@@ -205,18 +206,89 @@ def _clean(obj: Any) -> Any:
     return obj
 
 
+def row_list(rows: list[int], most: int = 12) -> str:
+    """Spreadsheet rows as a short text: runs as ranges, at most *most* items
+    (``[2, 3, 4, 5, 9]`` -> ``'2-5, 9'``)."""
+    runs: list[list[int]] = []
+    for r in sorted(dict.fromkeys(int(x) for x in rows)):
+        if runs and r == runs[-1][1] + 1:
+            runs[-1][1] = r
+        else:
+            runs.append([r, r])
+    items = [f"{a}-{b}" if b > a else str(a) for a, b in runs]
+    return ", ".join(items[:most]) + (" ..." if len(items) > most else "")
+
+
+#: warnings (and notes) of one rule in one column printed in full; the rest are counted
+PER_COLUMN = 5
+_CELL = re.compile(r"^cell ([A-Z]{1,3}\d+): ")
+
+
 def print_problems(problems, stream: IO[str] | None = None, limit: int = 200) -> None:
-    """Problems table as one readable line each (errors first), to *stream*."""
+    """Problems table as one readable line each (errors first), to *stream*.
+
+    A problem repeated word for word at several rows (a missing source id on eight rows) is
+    one line naming its rows. Of the warnings and notes of one rule in one column, the first
+    :data:`PER_COLUMN` are printed and the rest counted (``... and 9 more in this column``);
+    every error is printed (up to *limit* lines).
+    """
     from comparo.errors import Problem
 
     stream = stream or sys.stderr
-    n = len(problems)
-    for i, rec in enumerate(problems.to_dict("records")):
-        if i >= limit:
-            stream.write(f"... and {n - limit} more problem(s); use 'comparo check --format csv' for all\n")
-            break
+    merged: dict[tuple, list] = {}
+    cells: dict[tuple, list[tuple]] = {}
+    seen: set[tuple] = set()
+    for rec in problems.to_dict("records"):
         rec = {k: (None if _is_missing(v) else v) for k, v in rec.items()}
-        stream.write(Problem(**rec).line() + "\n")
+        m = _CELL.match(rec["message"] or "")
+        if m:  # the same message at another cell of the column is the same problem
+            rec["message"] = rec["message"][m.end():]
+        key = tuple((k, v) for k, v in rec.items() if k != "row")
+        place = (rec["row"], m.group(1) if m else "")
+        if (key, place) not in seen:  # two values of one wide row share its cells
+            seen.add((key, place))
+            cells.setdefault(key, []).append(place)
+            merged.setdefault(key, []).append(rec["row"])
+
+    def place_of(rec: dict) -> tuple:
+        return rec["severity"], rec["file"], rec["column"], rec["rule"]
+
+    total: dict[tuple, int] = {}
+    for key in merged:
+        total[place_of(dict(key))] = total.get(place_of(dict(key)), 0) + 1
+    lines: list[str] = []
+    shown: dict[tuple, int] = {}
+    for key, rows in merged.items():
+        rec = dict(key)
+        place = place_of(rec)
+        shown[place] = shown.get(place, 0) + 1
+        if rec["severity"] != "error" and rec["column"] and shown[place] > PER_COLUMN:
+            continue
+        known = [r for r in rows if r is not None]
+        at = [c for _, c in cells[key] if c]
+        if len(rows) > 1 and known:
+            listed = row_list(known)
+            head = f"{rec['severity']}: {rec['file']}"
+            if at:  # the cells name their rows
+                rec["message"] = f"cells {', '.join(at[:12])}{' ...' if len(at) > 12 else ''}: {rec['message']}"
+                line = Problem(**rec, row=None).line()
+            else:
+                line = Problem(**rec, row=None).line().replace(head, f"{head}, rows {listed}", 1)
+            line = line.replace(f"[{rec['rule']}]", f"({len(rows)} {'cells' if at else 'rows'}) [{rec['rule']}]", 1)
+        else:
+            if at:
+                rec["message"] = f"cell {at[0]}: {rec['message']}"
+            line = Problem(**rec, row=rows[0]).line()
+        lines.append(line)
+        if shown[place] == PER_COLUMN and rec["severity"] != "error" and rec["column"]:
+            rest = total[place] - PER_COLUMN
+            if rest > 0:
+                lines.append(f"  ... and {rest} more in this column ({rec['file']}, column '{rec['column']}') [{rec['rule']}]")
+    for i, line in enumerate(lines):
+        if i >= limit:
+            stream.write(f"... and {len(lines) - limit} more problem(s); use 'comparo check --format csv' for all\n")
+            break
+        stream.write(line + "\n")
 
 
 def _is_missing(v: Any) -> bool:

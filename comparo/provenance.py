@@ -44,6 +44,7 @@ class AuditReport:
     sources_uncited: list[str] = field(default_factory=list)
     sources_missing: list[str] = field(default_factory=list)
     trust: dict[str, str] = field(default_factory=dict)
+    rows_from_traces: int = 0  # of rows_read: rows computed from the traces of traces.csv
 
     @property
     def balanced(self) -> bool:
@@ -52,7 +53,7 @@ class AuditReport:
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "rows_read": self.rows_read, "rows_used": self.rows_used, "rows_merged": self.rows_merged,
+            "rows_read": self.rows_read, "rows_from_traces": self.rows_from_traces, "rows_used": self.rows_used, "rows_merged": self.rows_merged,
             "rows_excluded": self.rows_excluded, "merged": self.merged, "balanced": self.balanced,
             "conflicts": self.conflicts, "unit_slips": self.unit_slips, "out_of_range": self.out_of_range,
             "basis_shares": self.basis_shares, "sources": self.sources, "coverage": self.coverage,
@@ -89,9 +90,13 @@ class AuditReport:
         """Per source: values used and taxa covered."""
         return pd.DataFrame([{"source_id": k, **v} for k, v in self.sources.items()])
 
+    def _traces_part(self) -> str:
+        t = self.rows_from_traces
+        return f" ({self.rows_read - t} from the observations table, {t} computed from the traces of traces.csv)" if t else ""
+
     def summary(self) -> str:
         lines = [
-            f"rows read {self.rows_read}: used {self.rows_used}, merged {self.rows_merged} (duplicates), excluded {len(self.rows_excluded)}"
+            f"rows read {self.rows_read}{self._traces_part()}: used {self.rows_used}, merged {self.rows_merged} (duplicates), excluded {len(self.rows_excluded)}"
             + ("" if self.balanced else "  ** COUNTS DO NOT ADD UP **"),
             f"conflicts {len(self.conflicts)}, suspected unit slips {len(self.unit_slips)}, out of plausible range {len(self.out_of_range)}",
         ]
@@ -182,6 +187,7 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
     }
     return AuditReport(
         rows_read=len(rows),
+        rows_from_traces=int((rows["_origin"] != "").sum()) if "_origin" in rows else 0,
         rows_used=len(used),
         rows_merged=len(merged),
         rows_excluded=[{"obs_id": o, "row": int(r), "reason": why} for o, r, why in zip(excl["obs_id"], excl["row"], excl["reason"], strict=True)],

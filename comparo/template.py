@@ -160,20 +160,21 @@ def write_template(path: str | os.PathLike, dataset: str | os.PathLike | None = 
 
     if is_stdout(path) or Path(path).suffix.lower() != ".xlsx":
         raise UsageError(f"the template is a workbook: give a file name ending in .xlsx (got {path})")
-    extra = None
+    extra, toml = None, None
     if dataset is not None:
-        folder = Path(dataset)
-        if not folder.is_dir():
-            raise UsageError(f"--dataset {dataset} is not a folder")
-        toml = folder / "comparo.toml"
-        if toml.is_file():
+        from comparo.io import SETTINGS_NAME, companion_file, is_workbook
+
+        if not (Path(dataset).is_dir() or is_workbook(dataset)):
+            raise UsageError(f"--dataset {dataset} is not a dataset folder or workbook")
+        toml = companion_file(dataset, (SETTINGS_NAME,))
+        if toml is not None:
             from comparo.io import read_settings
 
             settings, probs = read_settings(toml)
             if any(p.severity == "error" for p in probs):
                 raise InputError(probs)
             extra = settings.get("quantities") if isinstance(settings.get("quantities"), dict) else None
-    catalog = load_catalog(extra, file=str(Path(dataset) / "comparo.toml") if dataset else "comparo.toml")
+    catalog = load_catalog(extra, file=str(toml) if extra else "comparo.toml")
     atomic_write_bytes(path, workbook_bytes(catalog))
     wb_lists = choice_lists(catalog)
     return TemplateResult(str(path), ["observations", "sources", "taxa", CATALOGUE_SHEET, LIST_SHEET],

@@ -38,6 +38,9 @@ SPELLINGS: tuple[str, ...] = (
     # force, energy, power
     "N", "mN", "µN", "uN", "J", "mJ", "µJ", "kJ", "J/m**3", "kJ/m**3", "J/kg",
     "W", "mW", "µW", "W/kg", "mW/g", "J/mol", "kJ/mol",
+    # as journals print them (exponents without '**')
+    "s-1", "min-1", "µm2", "um2", "nm2", "mm2", "µm2 s-1", "m s-1", "mm s-1", "mN mm-2", "kN m-2",
+    "W kg-1", "J kg-1",
     # dimensionless, temperature
     "1", "dimensionless", "fraction", "ratio", "count", "%", "percent", "degC", "°C", "K",
 )

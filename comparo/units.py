@@ -98,6 +98,11 @@ class UnitParseError(ValueError):
     """A unit string pint cannot read."""
 
 
+class UnitMismatchError(ValueError):
+    """Two units that do not measure the same kind of thing (the message names both and
+    their dimensions, in words a user reads, never a library's exception name)."""
+
+
 @dataclass(frozen=True)
 class UnitFacts:
     """What pint says about one unit string (as parsed by :func:`parse_unit`).
@@ -209,11 +214,17 @@ def _normalise(text: str) -> str:
     t = text.strip()
     t = t.replace("⁻¹", "**-1").replace("⁻²", "**-2").replace("⁻³", "**-3")
     t = t.translate(_SUPERSCRIPTS)
-    t = t.replace("·", "*").replace("⋅", "*").replace("×", "*")
+    t = t.replace("·", "*").replace("⋅", "*").replace("×", "*").replace("−", "-")  # U+2212, the printed minus
     t = t.replace("μ", "µ")  # Greek mu -> micro sign (pint knows both; keep one)
     t = re.sub(r"\s*\*\s*", "*", t)
     t = re.sub(r"(?<=[A-Za-zµ])\s+(?=[A-Za-zµ])", "*", t)  # "mPa s" -> "mPa*s"
-    return t
+    t = re.sub(r"(?<=[A-Za-zµ][-\d])\s+(?=[A-Za-zµ])", "*", t)  # "µm2 s-1" -> "µm2*s-1"
+    # exponents as journals print them: "s-1", "s^-1", "µm2", "mm-2" -> "s**-1", "µm**2"
+    # (a number's exponent, "1e-3", and names with digits inside, "cmH2O", are left alone)
+    return _JOURNAL_POWER.sub(r"\1**\2", t)
+
+
+_JOURNAL_POWER = re.compile(r"(?<![\d.A-Za-zµ])([A-Za-zµ]+)(?:\^|\*\*)?([-+]?\d+)(?![\d.A-Za-zµ])")
 
 
 def facts_key(text: str) -> str:
@@ -251,8 +262,8 @@ def parse_with(ureg: pint.UnitRegistry, text: str) -> pint.Quantity:
         return ureg.Quantity(1.0, "percent")
     try:
         q = ureg.parse_expression(t)
-    except Exception as exc:  # pint raises several unrelated exception types
-        raise UnitParseError(f"pint cannot read unit {raw!r} ({type(exc).__name__})") from None
+    except Exception:  # pint raises several unrelated exception types; their names mean nothing to a user
+        raise UnitParseError(f"unit {raw!r} is not a unit comparo reads (an unknown name or a typo?)") from None
     if not isinstance(q, ureg.Quantity):
         q = ureg.Quantity(float(q), "dimensionless")
     mag = float(q.magnitude)
@@ -376,7 +387,7 @@ def conversion_factor(unit: str, canonical: str) -> float:
     ------
     UnitParseError
         If either unit cannot be parsed.
-    pint.DimensionalityError
+    UnitMismatchError
         If the two units do not measure the same kind of thing.
     """
     t = _table()
@@ -386,7 +397,11 @@ def conversion_factor(unit: str, canonical: str) -> float:
             return a.factor / b.factor
     q = parse_unit(unit)
     target = parse_unit(canonical)
-    return float((q / target).to("dimensionless").magnitude)
+    try:
+        return float((q / target).to("dimensionless").magnitude)
+    except Exception:  # pint's DimensionalityError: said in words below
+        raise UnitMismatchError(f"{unit!r} ({q.dimensionality}) cannot be converted to {canonical!r} "
+                                f"({target.dimensionality}): they measure different things") from None
 
 
 def same_dimension(unit: str, canonical: str) -> bool:

@@ -348,14 +348,23 @@ def _observation_problems(raw: RawTable, obs: pd.DataFrame, catalog: Catalog, so
     return obs, c.problems
 
 
+def _name(text: str) -> str:
+    """A quantity name for comparison: case-folded, British 'fibre' as 'fiber', '_', '-' and spaces one space."""
+    return " ".join(re.sub(r"[_\-\s]+", " ", str(text).casefold().replace("fibre", "fiber")).split())
+
+
 def _check_quantity_names(c: _Problems, qty: pd.Series, known: pd.Series, catalog: Catalog) -> None:
     """Every quantity is a key of the catalogue (with the closest key as a hint)."""
     # quantity known?
     unknown = ~known & (qty != "")
     if unknown.any():
         keys = list(catalog)
+        names = {_name(t): k for k, q in catalog.items() for t in (k, q.label, *q.synonyms)}
 
         def qhint(i):
+            named = names.get(_name(qty.iat[i]))  # a label or synonym of a key ('wingbeat frequency')
+            if named:
+                return f"{qty.iat[i]!r} is a name of the quantity {named!r}: write its key {named!r} (see 'comparo units')"
             close = difflib.get_close_matches(qty.iat[i], keys, n=1)
             return (f"did you mean {close[0]!r}? " if close else "") + "see 'comparo units' for the catalogue, or declare it in comparo.toml [quantities.KEY]"
 
@@ -772,6 +781,7 @@ class CheckResult:
     rows_read: int
     problems: pd.DataFrame
     dataset: Dataset | None = None  # the validated dataset (None when unreadable)
+    rows_from_traces: int = 0  # rows computed from the traces of traces.csv (counted once the table has no errors)
 
     @property
     def n_errors(self) -> int:
@@ -791,7 +801,7 @@ class CheckResult:
 
     def to_dict(self) -> dict[str, Any]:
         recs = self.problems.astype(object).where(self.problems.notna(), None).to_dict("records")
-        return {"folder": self.folder, "rows_read": self.rows_read, "errors": self.n_errors, "warnings": self.n_warnings, "notes": self.n_notes, "problems": recs}
+        return {"folder": self.folder, "rows_read": self.rows_read, "rows_from_traces": self.rows_from_traces, "errors": self.n_errors, "warnings": self.n_warnings, "notes": self.n_notes, "problems": recs}
 
     def to_frame(self) -> pd.DataFrame:
         return self.problems
@@ -806,7 +816,11 @@ class CheckResult:
 
     def summary(self) -> str:
         verdict = "no errors" if self.ok else f"{self.n_errors} error(s)"
-        return f"{self.folder}: {self.rows_read} observation row(s) read; {verdict}, {self.n_warnings} warning(s), {self.n_notes} note(s)"
+        traces = ""
+        if self.rows_from_traces:
+            traces = (f", and {self.rows_from_traces} computed from the traces of traces.csv "
+                      f"({self.rows_read + self.rows_from_traces} rows in all, as audit and the report count them)")
+        return f"{self.folder}: {self.rows_read} observation row(s) read{traces}; {verdict}, {self.n_warnings} warning(s), {self.n_notes} note(s)"
 
 
 def check(folder) -> CheckResult:

@@ -26,7 +26,7 @@ from typing import Any
 
 from comparo.catalog import Catalog
 from comparo.errors import Problem
-from comparo.io import MAX_CELL, decode_bytes, nfc
+from comparo.io import MAX_CELL, decode_bytes, exception_reason, nfc
 
 UNCERTAINTY_ROLES = ("sd", "se", "ci95", "range_half")
 ROLES = ("value", *UNCERTAINTY_ROLES, "n", "source", "locator", "taxon", "temperature", "taxa", "column", "ignore")
@@ -68,9 +68,13 @@ def _problem(file: str, rule: str, message: str, hint: str = "", row: int | None
     return Problem(severity, file, row, column, value, rule, message, hint)
 
 
-def read_grid(path: Path, sheet: str | None = None, decimal_comma: bool = False) -> tuple[Grid | None, list[Problem]]:
+def read_grid(path: Path, sheet: str | None = None, decimal_comma: bool = False,
+              header_row: int | None = None) -> tuple[Grid | None, list[Problem]]:
     """Read a wide table: ``.xlsx``/``.xlsm`` (the sheet *sheet*, else the first), else text
-    (comma-, tab- or, with *decimal_comma*, semicolon-delimited)."""
+    (comma-, tab- or, with *decimal_comma*, semicolon-delimited). The header is on row
+    *header_row* (1-based, as a spreadsheet shows it; the rows above are ignored), else on the
+    first non-blank row; a title row above the headers is then reported once, naming the row
+    that looks like the header (see :func:`title_rows`)."""
     if not path.is_file():
         return None, [_problem(str(path), "missing-file", "the wide table does not exist or is not a file")]
     if path.suffix.lower() in (".xlsx", ".xlsm"):
@@ -78,17 +82,26 @@ def read_grid(path: Path, sheet: str | None = None, decimal_comma: bool = False)
     else:
         if sheet:
             return None, [_problem(path.name, "sheet-option", "--sheet applies to a workbook (.xlsx), not to a text table")]
-        cells, delim, probs = _text_cells(path, decimal_comma)
+        cells, delim, probs = _text_cells(path, decimal_comma, header_row)
         file = path.name
     if cells is None:
         return None, probs
-    grid, more = _grid(file, cells)
+    if header_row is None:
+        title = title_rows(cells)
+        if title is not None:
+            first, proposed = title
+            shown = " ".join(str(c) for c in cells[first] if str(c).strip())[:60]
+            return None, probs + [_problem(file, "title-row", f"row {first + 1} ({shown!r}) looks like a title, not the column headers; the headers seem to be on row {proposed}",
+                                           f"use --header-row {proposed} (the rows above it are then ignored)", row=first + 1)]
+    elif header_row > len(cells):
+        return None, probs + [_problem(file, "header-row", f"--header-row {header_row}, but the table has {len(cells)} row(s)", "give the row number of the column headers, as the spreadsheet shows it")]
+    grid, more = _grid(file, cells, header_row)
     if grid is not None and path.suffix.lower() not in (".xlsx", ".xlsm"):
         grid.delimiter = delim
     return grid, probs + more
 
 
-def _text_cells(path: Path, decimal_comma: bool) -> tuple[list[list[Any]] | None, str, list[Problem]]:
+def _text_cells(path: Path, decimal_comma: bool, header_row: int | None = None) -> tuple[list[list[Any]] | None, str, list[Problem]]:
     file = path.name
     try:
         data = path.read_bytes()
@@ -98,13 +111,17 @@ def _text_cells(path: Path, decimal_comma: bool) -> tuple[list[list[Any]] | None
     if text is None:
         return None, "", probs
     text = text.replace("\r\n", "\n").replace("\r", "\n")
-    first = next((ln for ln in text.split("\n") if ln.strip()), None)
+    lines = text.split("\n")
+    if header_row is not None and header_row <= len(lines):
+        lines = lines[header_row - 1:]  # the delimiter is the header's
+    first = next((ln for ln in lines if ln.strip()), None)
     if first is None:
         return None, "", probs + [_problem(file, "empty-file", "the wide table is empty", "put the column headers in the first row")]
     if path.suffix.lower() in (".tsv", ".tab"):
         delim = "\t"
     else:
-        counts = {d: first.count(d) for d in (",", "\t", ";")}
+        head = [ln for ln in lines if ln.strip()][:10]  # a title line above the headers may hold no delimiter
+        counts = {d: max(ln.count(d) for ln in head) for d in (",", "\t", ";")}
         delim = max(counts, key=counts.get) if max(counts.values()) else ","
     if delim == ";" and not decimal_comma:
         dc = bool(re.search(r"\d,\d", text))
@@ -126,7 +143,7 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
         book = openpyxl.load_workbook(path, read_only=True, data_only=True)
         formulas = openpyxl.load_workbook(path, read_only=True, data_only=False)
     except Exception as exc:  # openpyxl raises many types for a broken workbook
-        return None, file, [_problem(file, "xlsx-read", f"cannot open the workbook ({type(exc).__name__}: {exc})", "check that it is an .xlsx file (not .xls, or CSV renamed)")]
+        return None, file, [_problem(file, "xlsx-read", f"cannot open the workbook ({exception_reason(exc)})", "check that it is an .xlsx file (not .xls, or CSV renamed)")]
     names = book.sheetnames
     if sheet is not None and sheet not in names:
         return None, file, [_problem(file, "sheet-missing", f"the workbook has no sheet {sheet!r}", f"its sheets: {', '.join(names)}")]
@@ -153,11 +170,38 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
     return cells, file, probs
 
 
-def _grid(file: str, cells: list[list[Any]]) -> tuple[Grid | None, list[Problem]]:
-    def blank(row: list[Any]) -> bool:
-        return all(isinstance(c, str) and not c.strip() for c in row)
+def _blank(row: list[Any]) -> bool:
+    return all(isinstance(c, str) and not c.strip() for c in row)
 
-    first = next((i for i, r in enumerate(cells) if not blank(r)), None)
+
+def _filled_count(row: list[Any]) -> int:
+    return sum(not (isinstance(c, str) and not c.strip()) for c in row)
+
+
+def title_rows(cells: list[list[Any]]) -> tuple[int, int] | None:
+    """``(first row index, proposed header row number)`` when the first non-blank row looks
+    like a title rather than headers: it fills at most two cells while a row among the next
+    ten fills at least three and more than twice as many; the proposed header is the first
+    such row with the most cells filled (headers are the row a curator fills whole)."""
+    filled = [(i, _filled_count(r)) for i, r in enumerate(cells) if not _blank(r)][:11]
+    if len(filled) < 2:
+        return None
+    first, k = filled[0]
+    most = max(n for _, n in filled[1:])
+    if k > 2 or most < 3 or most <= 2 * k:
+        return None
+    proposed = next(i for i, n in filled[1:] if n == most)
+    return first, proposed + 1
+
+
+def _grid(file: str, cells: list[list[Any]], header_row: int | None = None) -> tuple[Grid | None, list[Problem]]:
+    blank = _blank
+    if header_row is not None:
+        first = header_row - 1
+        if blank(cells[first]):
+            return None, [_problem(file, "header-row", f"row {header_row} (--header-row) is blank", "give the row number of the column headers, as the spreadsheet shows it", row=header_row)]
+    else:
+        first = next((i for i, r in enumerate(cells) if not blank(r)), None)
     if first is None:
         return None, [_problem(file, "empty-file", "the table holds no header row", "put the column headers in the first row")]
     header = [(h if isinstance(h, str) else repr(h)).strip().lstrip("\ufeff") for h in cells[first]]
@@ -287,23 +331,31 @@ class NameIndex:
 
     names: dict[str, dict[str, str]] = field(default_factory=dict)  # name -> {key: how}
 
+    kinds: dict[str, str] = field(default_factory=dict)  # key -> kind (to rank candidates by a header's unit)
+
     @classmethod
-    def of(cls, catalog: Catalog) -> NameIndex:
+    def of(cls, catalog: Catalog, synonyms: dict[str, str] | None = None) -> NameIndex:
+        """Names of every quantity (key, label, catalogue synonyms), and the user's own
+        header *synonyms* (normalised name -> key), which take precedence over the others."""
         names: dict[str, dict[str, str]] = {}
+        for name, key in (synonyms or {}).items():
+            if key in catalog:
+                names[name] = {key: "your synonym"}
         for key, q in catalog.items():
             for how, texts in (("key", [key, key.replace("_", " ")]), ("label", [q.label]), ("synonym", list(q.synonyms))):
                 for t in texts:
                     n = normalise(t)
-                    if n:
+                    if n and (n not in names or "your synonym" not in names[n].values()):
                         names.setdefault(n, {}).setdefault(key, how)
-        return cls(names)
+        return cls(names, {key: q.kind for key, q in catalog.items()})
 
     def exact(self, name: str) -> dict[str, str]:
         return self.names.get(name, {})
 
     def containing(self, name: str) -> list[str]:
-        """Keys with a name holding every word of *name* (``length`` -> fiber_length, sarcomere_length)."""
-        words = set(name.split())
+        """Keys with a name holding every word of *name* (``length`` -> fiber_length, sarcomere_length).
+        One-letter words are symbols, not words: ``f`` never finds a label ending in ``f``."""
+        words = {w for w in name.split() if len(w) > 1}
         if not words:
             return []
         return sorted({k for n, ks in self.names.items() if words <= set(n.split()) for k in ks})
@@ -312,26 +364,56 @@ class NameIndex:
         scores: dict[str, float] = {}
         for n, ks in self.names.items():
             s = difflib.SequenceMatcher(None, name, n).ratio()
-            if set(name.split()) & set(n.split()):
+            if {w for w in name.split() if len(w) > 1} & set(n.split()):
                 s += 0.2
             for k in ks:
                 scores[k] = max(scores.get(k, 0.0), s)
         best = sorted(scores, key=lambda k: (-scores[k], k))
         return [k for k in best if scores[k] >= 0.45][:limit]
 
+    def ranked(self, keys: list[str], unit: str, limit: int = 5) -> list[str]:
+        """*keys* ranked by words and by dimension together: keys whose kind the header's
+        *unit* measures first (a frequency in Hz before a rate, a rate in 1/s before a
+        frequency), the words' order kept within each rank; keys the unit cannot measure are
+        dropped, and with none left, the quantities the unit measures are offered."""
+        if not unit:
+            return keys[:limit]
+        fits = {k: unit_fit(unit, kind) for k, kind in self.kinds.items()}
+        if not any(fits.values()):  # a unit of no catalogue kind (or unreadable): the words alone
+            return keys[:limit]
+        pool = [k for k in keys if fits.get(k, 0)] or [k for k in self.kinds if fits[k] == 2]
+        return sorted(pool, key=lambda k: -fits.get(k, 0))[:limit]
 
-def _quantity(name: str, index: NameIndex) -> tuple[str, str, str, tuple[str, ...]]:
-    """(key, how, problem, candidates) for a trait name (normalised)."""
+
+def unit_fit(unit: str, kind: str) -> int:
+    """How well a header's *unit* fits a quantity *kind*: 2 (it measures the kind, and a
+    frequency is written in Hz, a rate not), 1 (same dimension only), 0 (not, or unreadable)."""
+    from comparo import units
+
+    try:
+        if not units.measures(unit, kind):
+            return 0
+    except (units.UnitParseError, KeyError):
+        return 0
+    if kind in ("frequency", "rate"):
+        return 2 if (kind == "frequency") == ("hz" in unit.casefold()) else 1
+    return 2
+
+
+def _quantity(name: str, index: NameIndex, unit: str = "") -> tuple[str, str, str, tuple[str, ...]]:
+    """(key, how, problem, candidates) for a trait name (normalised); candidates are ranked
+    by the words and by the header's *unit* together (:meth:`NameIndex.ranked`)."""
     hit = index.exact(name)
     if len(hit) == 1:
         key, how = next(iter(hit.items()))
         return key, how, "", ()
     if len(hit) > 1:
-        return "", "", "ambiguous: the name belongs to more than one quantity", tuple(sorted(hit))
+        return "", "", "ambiguous: the name belongs to more than one quantity", tuple(index.ranked(sorted(hit), unit))
     holders = index.containing(name)
     if len(holders) > 1:
-        return "", "", "ambiguous: the name is part of more than one quantity's name", tuple(holders[:5])
-    return "", "", "unknown: no quantity has this key, label or synonym", tuple(holders or index.closest(name))
+        return "", "", "ambiguous: the name is part of more than one quantity's name", tuple(index.ranked(holders, unit))
+    cands = tuple(index.ranked(holders or index.closest(name), unit, limit=3))
+    return "", "", "unknown: no quantity has this key, label or synonym", cands
 
 
 def _split_suffix(name: str) -> tuple[str, str]:
@@ -344,14 +426,17 @@ def _split_suffix(name: str) -> tuple[str, str]:
     return name, ""
 
 
-def match_header(header: str, index: int, names: NameIndex) -> Column:
-    """What the header at column *index* holds (see :class:`Column`)."""
+def match_header(header: str, index: int, names: NameIndex, roles: dict[str, str] | None = None) -> Column:
+    """What the header at column *index* holds (see :class:`Column`); *roles* are the user's
+    own header synonyms of long-format columns (normalised name -> role: taxon, source ...)."""
     col = Column(header, index)
     text, unit = split_unit(header)
     low_unit = normalise(unit)
     name = normalise(text)
     if low_unit in {w for w, _ in _SUFFIXES} and not name.endswith(" " + low_unit):  # 'Body mass (SD)'
         name, unit = f"{name} {low_unit}", ""
+    if roles and name in roles:
+        return replace(col, role=roles[name], unit=unit, how="your synonym")
     if name in _ROLE_NAMES:
         role, key = _ROLE_NAMES[name]
         if role == "temperature":
@@ -361,12 +446,12 @@ def match_header(header: str, index: int, names: NameIndex) -> Column:
         return replace(col, role="taxa", key=name.replace(" ", "_"), how="grouping column")
     if text.strip().lower() in COPY_COLUMNS or text.strip().lower() == "uncertainty_kind":
         return replace(col, role="column", key=text.strip().lower(), how="column name")
-    key, how, problem, cands = _quantity(name, names)
+    key, how, problem, cands = _quantity(name, names, unit)
     if key:
         return replace(col, role="value", key=key, unit=unit, how=how)
     base, role = _split_suffix(name)
     if role and base:
-        bkey, bhow, bproblem, bcands = _quantity(base, names)
+        bkey, bhow, bproblem, bcands = _quantity(base, names, unit)
         if bkey and role == "?spread":
             return replace(col, key=bkey, unit=unit, how=bhow, candidates=tuple(f"{r}:{bkey}" for r in UNCERTAINTY_ROLES[:2]),
                            problem=f"the spread of {bkey}, but not which kind (write SD or SE in the header, or set the role in the map file)")
@@ -374,13 +459,52 @@ def match_header(header: str, index: int, names: NameIndex) -> Column:
             return replace(col, role=role, key=bkey, unit=unit, how=f"{bhow} + {role}")
         if bproblem.startswith("ambiguous"):
             return replace(col, unit=unit, problem=bproblem, candidates=bcands)
+    if not cands and unit and unit_fit(unit, "temperature"):
+        problem += "; its unit is a temperature: set role 'temperature' if it is the measurement temperature"
     return replace(col, unit=unit, problem=problem, candidates=cands)
 
 
-def match_headers(header: list[str], catalog: Catalog) -> list[Column]:
-    """:func:`match_header` for every non-empty header."""
-    names = NameIndex.of(catalog)
-    return [match_header(h, i, names) for i, h in enumerate(header) if h]
+SYNONYM_ROLES = ("taxon", "source", "locator", "temperature", "n")
+
+
+def match_headers(header: list[str], catalog: Catalog, synonyms: dict[str, str] | None = None) -> list[Column]:
+    """:func:`match_header` for every non-empty header. *synonyms*: the user's own header
+    names (name -> a catalogue key, or one of :data:`SYNONYM_ROLES`), as
+    :func:`read_synonyms` checks them; they take precedence over the catalogue's names."""
+    own = {normalise(k): v for k, v in (synonyms or {}).items()}
+    names = NameIndex.of(catalog, {k: v for k, v in own.items() if v in catalog})
+    roles = {k: v for k, v in own.items() if v in SYNONYM_ROLES and v not in catalog}
+    return [match_header(h, i, names, roles) for i, h in enumerate(header) if h]
+
+
+def read_synonyms(table: Any, catalog: Catalog, file: str, where: str = "header_synonyms") -> tuple[dict[str, str], list[Problem]]:
+    """The user's header synonyms (``[header_synonyms]`` of comparo.toml: ``f = "frequency_observed"``,
+    ``T = "temperature"``, ``k_on = "attach_rate"``), checked: each name maps to a catalogue key or to
+    one of :data:`SYNONYM_ROLES`; a name that normalises to nothing, or to the same text as another
+    name with another target, is an error."""
+    if table is None:
+        return {}, []
+    if not isinstance(table, dict):
+        return {}, [_problem(file, "synonym", f"{where} must be a table of name = \"key\" pairs", column=where)]
+    out: dict[str, str] = {}
+    probs: list[Problem] = []
+    seen: dict[str, str] = {}
+    for name, target in table.items():
+        n = normalise(name)
+        if not isinstance(target, str) or (target not in catalog and target not in SYNONYM_ROLES):
+            close = difflib.get_close_matches(str(target), [*catalog, *SYNONYM_ROLES], n=3)
+            probs.append(_problem(file, "synonym", f"header synonym {name!r} points to {target!r}, which is neither a catalogue quantity nor one of {', '.join(SYNONYM_ROLES)}",
+                                  f"closest: {', '.join(close)}" if close else "run 'comparo units' for the keys", column=where, value=str(target)))
+            continue
+        if not n:
+            probs.append(_problem(file, "synonym", f"header synonym {name!r} has no letters or digits to match", column=where, value=name))
+            continue
+        if n in seen and out[seen[n]] != target:
+            probs.append(_problem(file, "synonym", f"header synonyms {seen[n]!r} and {name!r} read as the same name but point to {out[seen[n]]!r} and {target!r}", "keep one", column=where, value=name))
+            continue
+        seen.setdefault(n, name)
+        out[name] = target
+    return out, probs
 
 
 # --------------------------------------------------------------------------- map files
@@ -444,7 +568,7 @@ def apply_map(columns: list[Column], mapping: dict[str, dict[str, str]], catalog
         role = rec.get("role", "").strip().lower()
         key = rec.get("key", "").strip()
         row = int(rec["_row"])
-        new = replace(c, role=role, key=key, unit=rec.get("unit", "").strip(), basis=rec.get("basis", "").strip().lower(), how="map file", problem="", candidates=())
+        new = replace(c, role=role, key=key, unit=rec.get("unit", "").strip() or c.unit, basis=rec.get("basis", "").strip().lower(), how="map file", problem="", candidates=())
         if role not in ROLES:
             probs.append(_problem(map_file, "map-role", f"role {role!r} of header {c.header!r} is not one of {', '.join(ROLES)}", row=row, column="role", value=role))
             new = replace(new, role="")

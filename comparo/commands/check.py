@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from comparo.outputs import dumps, emit
+from comparo.outputs import dumps, emit, row_list
 
 
 def _text(v) -> str:
@@ -13,14 +13,28 @@ def _text(v) -> str:
     return "" if v is None or (not isinstance(v, str) and pd.isna(v)) else str(v)
 
 
+def _merged(part) -> list[dict]:
+    """Problems that differ only in their row (a missing source id on eight rows) as one
+    record with the list of its rows, in the order of their first row."""
+    out: dict[tuple, dict] = {}
+    for rec in part.to_dict("records"):
+        key = tuple((k, _text(v)) for k, v in rec.items() if k != "row")
+        if key not in out:
+            out[key] = {**rec, "rows": []}
+        if _text(rec["row"]):
+            out[key]["rows"].append(int(rec["row"]))
+    return list(out.values())
+
+
 def render_problems(result, limit: int | None = 25) -> None:
     """Rich table of problems grouped by severity, then the one-line summary.
 
     Every text from the data goes in as :class:`rich.text.Text`, never as markup,
     so a cell holding ``[/red]`` prints as typed.
 
-    At most *limit* rows per (severity, rule) are printed, followed by a line
-    saying how many more there are; ``None`` prints every row. The full list is
+    A problem repeated word for word on several rows is one line naming its rows. At
+    most *limit* lines per (severity, rule) are printed, followed by a line saying how
+    many more problems there are; ``None`` prints every line. The full list is
     always in ``--format csv`` and ``--format json``.
     """
     from rich.console import Console
@@ -35,19 +49,24 @@ def render_problems(result, limit: int | None = 25) -> None:
             continue
         total = len(part)
         hidden: dict[str, int] = {}
-        if limit is not None:
-            rank = part.groupby("rule", sort=False, dropna=False).cumcount()
-            over = part[rank >= limit]
-            hidden = over["rule"].fillna("").value_counts(sort=False).to_dict()
-            part = part[rank < limit]
+        shown: list[dict] = []
+        per_rule: dict[str, int] = {}
+        for rec in _merged(part):  # the same problem on many rows is one line, and counts once
+            rule = _text(rec["rule"])
+            per_rule[rule] = per_rule.get(rule, 0) + 1
+            if limit is not None and per_rule[rule] > limit:
+                hidden[rule] = hidden.get(rule, 0) + max(1, len(rec["rows"]))
+            else:
+                shown.append(rec)
         table = Table(title=f"{total} {severity}(s)", title_style=style, title_justify="left", header_style="bold", expand=False)
         table.add_column("where", no_wrap=True)
         table.add_column("column", no_wrap=True)
         table.add_column("value", max_width=28, overflow="ellipsis", no_wrap=True)
         table.add_column("problem", overflow="fold")
-        for rec in part.to_dict("records"):
-            where = _text(rec["file"]) + (f":{_text(rec['row'])}" if _text(rec["row"]) else "")
-            problem = Text(_text(rec["message"]))
+        for rec in shown:
+            rows = rec["rows"]
+            where = _text(rec["file"]) + (f":{row_list(rows)}" if rows else "")
+            problem = Text(_text(rec["message"]) + (f" ({len(rows)} rows)" if len(rows) > 1 else ""))
             problem.append(f"  [{_text(rec['rule'])}]", style="dim")
             if _text(rec["hint"]):
                 problem.append("\n" + _text(rec["hint"]), style="italic cyan")

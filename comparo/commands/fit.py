@@ -62,6 +62,8 @@ def _phylo_only_options(args) -> None:
 
 
 def _pgls_options(args) -> dict:
+    from comparo.io import TAXA_NAMES, TREE_NAMES, companion_file, is_workbook
+
     lam = "ml" if args.lambda_ is None else args.lambda_
     if lam != "ml":
         try:
@@ -74,19 +76,20 @@ def _pgls_options(args) -> dict:
     if getattr(args, "tip_se", False):
         opts["tip_se"] = True
     tree = args.tree
-    if tree is None and Path(args.data).is_dir() and (Path(args.data) / "tree.nwk").is_file():
-        tree = str(Path(args.data) / "tree.nwk")
+    own_tree = companion_file(args.data, TREE_NAMES) if is_dataset(args.data) else None
+    if tree is None and own_tree is not None:
+        tree = str(own_tree)
     if tree is None:
-        raise UsageError("method pgls needs a tree: give --tree FILE or put tree.nwk in the dataset folder")
+        raise UsageError("method pgls needs a tree: give --tree FILE or put tree.nwk in the dataset folder (or beside the dataset workbook)")
     opts["tree"] = checked_tree(tree)
-    taxa = Path(args.data) / "taxa.csv" if Path(args.data).is_dir() else None
-    if taxa is not None and taxa.is_file():
+    taxa = companion_file(args.data, TAXA_NAMES) if Path(args.data).is_dir() else None
+    if taxa is not None or is_workbook(args.data):
         from comparo.dataset import load
         from comparo.phylo import dataset_tree_labels, read_tree, tip_labels
 
         ds = load(args.data)
         if ds.taxa is not None:  # the per-taxon table holds accepted names; one taxon on two tips is an error
-            own = ds.tree is not None and Path(tree).resolve() == (Path(args.data) / "tree.nwk").resolve()
+            own = ds.tree is not None and own_tree is not None and Path(tree).resolve() == own_tree.resolve()
             given = opts["tree"] if not isinstance(opts["tree"], str) else read_tree(tree)
             labels = dataset_tree_labels(ds.taxa, tip_labels(ds.tree if own else given))
             if labels:

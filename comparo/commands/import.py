@@ -10,9 +10,13 @@ def run(args) -> int:
     from comparo.outputs import dumps
 
     res = import_wide(args.wide, args.output, sources=args.sources, map_file=args.map, sheet=args.sheet,
-                      decimal_comma=args.decimal_comma, overwrite=args.overwrite)
-    for p in res.warnings:
-        print(p.line(), file=sys.stderr)
+                      decimal_comma=args.decimal_comma, overwrite=args.overwrite, header_row=args.header_row,
+                      plus_minus=args.plus_minus)
+    if res.warnings:
+        from comparo.errors import problems_frame
+        from comparo.outputs import print_problems
+
+        print_problems(problems_frame(res.warnings), stream=sys.stderr)
     if args.format == "json":
         print(dumps(res.to_dict()))
     else:

@@ -1,17 +1,15 @@
-"""``comparo table DATASET``: the per-taxon harmonised table as CSV."""
+"""``comparo table DATASET``: the per-taxon harmonised table as CSV (or an .xlsx workbook)."""
 
 from __future__ import annotations
 
-from comparo.outputs import emit
+from comparo.commands._common import write_table
 
 
 def run(args) -> int:
-    from comparo.curate import per_taxon
+    from comparo.curate import column_units, per_taxon
     from comparo.dataset import load
 
     ds = load(args.dataset)
     table = per_taxon(ds, temperature=not args.no_temperature, aggregate=args.aggregate)
-    from comparo.csvsafe import to_csv
-
-    emit(to_csv(table), args.output)
+    write_table(table, column_units(table, ds.catalog), args.output)
     return 0

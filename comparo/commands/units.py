@@ -12,13 +12,11 @@ def run(args) -> int:
     from comparo.catalog import load_catalog
 
     if args.dataset:
-        from pathlib import Path
+        from comparo.io import SETTINGS_NAME, companion_file, read_settings
 
-        from comparo.io import read_settings
-
-        path = Path(args.dataset) / "comparo.toml"
-        settings = read_settings(path)[0] if path.is_file() else {}
-        catalog = load_catalog(settings.get("quantities"), file=str(path))
+        path = companion_file(args.dataset, (SETTINGS_NAME,))
+        settings = read_settings(path)[0] if path is not None else {}
+        catalog = load_catalog(settings.get("quantities"), file=str(path or SETTINGS_NAME))
     else:
         catalog = load_catalog()
     frame = catalog.to_frame()
@@ -30,13 +28,13 @@ def run(args) -> int:
 
         sys.stdout.write(to_csv(frame))
         return 0
-    header = ("key", "unit", "kind", "plausible range", "T-sensitive (Q10)", "label")
+    header = ("key", "unit", "kind", "plausible range", "T-sensitive (Q10)", "label", "other names (comparo import)")
     rows = []
     for q in catalog.values():
         rng = f"{q.range[0]:g} - {q.range[1]:g}" if q.range else ""
         ts = f"yes ({q.q10:g})" if q.temperature_sensitive and q.q10 else ("yes" if q.temperature_sensitive else "")
         label = q.label + (f" -> stored as {q.converts_to}" if q.converts_to else "")
-        rows.append((q.key, units.pretty(q.unit), q.kind, rng, ts, label))
+        rows.append((q.key, units.pretty(q.unit), q.kind, rng, ts, label, "; ".join(q.synonyms)))
     if not sys.stdout.isatty():  # piped or redirected: plain columns, nothing cut or wrapped
         widths = [max(len(r[i]) for r in [header, *rows]) for i in range(len(header))]
         lines = ["  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip() for r in [header, *rows]]

@@ -19,9 +19,11 @@ def _sha256(path: Path) -> str:
 
 
 def input_hashes(folder: str | Path) -> dict[str, str]:
-    """SHA-256 of every regular, non-hidden file at the top of the dataset folder."""
-    folder = Path(folder)
-    return {p.name: _sha256(p) for p in sorted(folder.iterdir()) if p.is_file() and not p.name.startswith(".")}
+    """SHA-256 of every file the dataset is read from: each regular, non-hidden file at the
+    top of a dataset folder; a dataset workbook and the tree and comparo.toml beside it."""
+    from comparo.io import input_files
+
+    return {p.name: _sha256(p) for p in input_files(folder)}
 
 
 def package_versions() -> dict[str, str]:
@@ -182,6 +184,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
 
 def _derive(run: _Run) -> None:
     from comparo.csvsafe import to_csv
+    from comparo.curate import column_units
     from comparo.errors import ComparoError
 
     settings = run.ds.settings or {}
@@ -194,10 +197,12 @@ def _derive(run: _Run) -> None:
         run.notes.append(f"derived quantities unavailable: {type(exc).__name__}: {exc}")
     run.data = run.derived if run.derived is not None else run.table
     run.analyses, run.origin, run.defaults = analyses(settings, run.data, run.ds.catalog, _taxa_columns(run.ds))
-    run.tables |= {"per_taxon": to_csv(run.table), "audit": to_csv(run.aud.to_frame()),
+    run.tables |= {"per_taxon": to_csv(run.table), "per_taxon.units": to_csv(column_units(run.table, run.ds.catalog)),
+                   "audit": to_csv(run.aud.to_frame()),
                    "sources": to_csv(run.aud.sources_frame()), "problems": to_csv(run.checked.problems)}
     if run.derived is not None:
         run.tables["derived"] = to_csv(run.derived)
+        run.tables["derived.units"] = to_csv(column_units(run.derived, run.ds.catalog))
     if not settings:
         run.defaults.append(f"the reference temperature ({run.ds.reference_temperature_c:g} °C) and the Q10 of each "
                             "temperature-sensitive quantity from the catalogue")

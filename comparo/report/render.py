@@ -163,7 +163,7 @@ def problems_view(problems) -> dict:
     main = problems[problems["severity"] != "note"]
     groups = []
     for rule, part in problems[problems["severity"] == "note"].groupby("rule", sort=False):
-        rows = ", ".join(str(int(r)) for r in part["row"] if r == r)
+        rows = ", ".join(str(int(r)) for r in part["row"].dropna())  # a note about a whole file has no row
         groups.append({"rule": rule, "count": len(part), "example": part["message"].iat[0], "rows": rows,
                        "file": ", ".join(dict.fromkeys(part["file"].astype(str)))})
     return {"main": main, "groups": groups}
