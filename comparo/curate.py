@@ -572,7 +572,7 @@ def _temperature_notes(ds: Dataset, h: Harmonised, file: str) -> list[Problem]:
     for (name, q), r in spread[(spread["max"] - spread["min"]) > 0.5].iterrows():
         out.append(Problem("note", file, None, "temperature_c", f"{r['min']:g} to {r['max']:g}", "temperature-mixed",
                            f"{q} of {name}: the per-taxon value combines values that refer to {r['min']:g} to {r['max']:g} °C "
-                           f"(kept as measured); {q}_temp_c is their mean", "set regulated_in_vivo = \"normalise\" to bring them to one temperature"))
+                           f"(some kept as measured); {q}_temp_c is their mean", "set regulated_in_vivo = \"normalise\" to bring them to one temperature"))
     return out
 
 
