@@ -568,9 +568,11 @@ def _temperature_notes(ds: Dataset, h: Harmonised, file: str) -> list[Problem]:
                            f"{r.quantity_key} of heterotherm {r.accepted} is normalised like an ectotherm's: {why}",
                            f"the tolerance is {h.policy.heterotherm_tolerance_c:g} K ([temperature] heterotherm_tolerance_c)"))
     vt = pd.to_numeric(rows["value_temp_c"], errors="coerce")
-    spread = vt.groupby([rows["accepted"], rows["quantity_key"]], sort=True).agg(["min", "max", "size"])
+    spread = pd.DataFrame({"v": vt.to_numpy(float), "row": rows["row"].to_numpy()}).groupby(
+        [rows["accepted"].to_numpy(object), rows["quantity_key"].to_numpy(object)], sort=True).agg(
+        min=("v", "min"), max=("v", "max"), row=("row", "first"))
     for (name, q), r in spread[(spread["max"] - spread["min"]) > 0.5].iterrows():
-        out.append(Problem("note", file, None, "temperature_c", f"{r['min']:g} to {r['max']:g}", "temperature-mixed",
+        out.append(Problem("note", file, int(r["row"]), "temperature_c", f"{r['min']:g} to {r['max']:g}", "temperature-mixed",
                            f"{q} of {name}: the per-taxon value combines values that refer to {r['min']:g} to {r['max']:g} °C "
                            f"(some kept as measured); {q}_temp_c is their mean", "set regulated_in_vivo = \"normalise\" to bring them to one temperature"))
     return out

@@ -85,15 +85,27 @@ def render(fig: Figure) -> tuple[bytes, bytes]:
     return png.getvalue(), svg.getvalue()
 
 
-def axis_label(key: str, catalog: Mapping[str, Any] | None) -> str:
-    """``Label (unit)`` from the catalogue; a key outside it is shown as it is, marked."""
+def axis_label(key: str, catalog: Mapping[str, Any] | None, temperature: Mapping[str, Any] | None = None) -> str:
+    """``Label (unit)`` from the catalogue; a key outside it is shown as it is, marked.
+
+    With *temperature* (a fit's ``temperature``, :func:`comparo.thermal.fit_temperature`),
+    a temperature-sensitive quantity says the temperature its values refer to: ``at 25 °C``,
+    ``at operating temperature`` or ``at measured temperature`` (normalisation off), and
+    when endotherms (or heterotherms at their operating temperature) kept in-vivo values as
+    measured, that those are at body temperature."""
     from comparo.units import pretty
 
     q = catalog.get(key) if catalog is not None else None
     if q is None:
         return f"{key} (unit: see derived table)"
     unit = pretty(q.unit)
-    return f"{q.label} ({'dimensionless' if unit == '1' else unit})"
+    text = f"{q.label} ({'dimensionless' if unit == '1' else unit})"
+    if temperature and q.temperature_sensitive:
+        to = temperature.get("to")
+        text += " at measured temperature" if to == "off" else f" at {to}"
+        if to != "off" and temperature.get("kept_as_measured"):
+            text += "; in-vivo values of endotherms at body temperature"
+    return text
 
 
 def weakest_basis(*bases: str) -> str:
@@ -252,8 +264,8 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
     if fit.log != "none":
         ax.set_xscale("log")
         ax.set_yscale("log")
-    ax.set_xlabel(axis_label(fit.x, catalog))
-    ax.set_ylabel(axis_label(fit.y, catalog))
+    ax.set_xlabel(axis_label(fit.x, catalog, getattr(fit, "temperature", None)))
+    ax.set_ylabel(axis_label(fit.y, catalog, getattr(fit, "temperature", None)))
     ax.set_title(title or f"{fit.method.upper()}: {fit.y} against {fit.x} (n = {fit.n})", loc="left")
     plain_log_ticks(ax)
     flagged = {o["label"] for o in fit.outliers}
