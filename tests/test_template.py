@@ -136,7 +136,7 @@ SOURCES = [["s1", "Invented A. (2001) Test source one.", 2001]]
 
 
 def test_check_and_table_read_a_filled_template(template: Path, tmp_path: Path, capsys) -> None:
-    filled = fill(template, tmp_path / "filled.xlsx", ROWS, SOURCES, [["Apis mellifera", None, None, "Apidae"], ["Bombus terrestris", None, None, "Apidae"]])
+    filled = fill(template, tmp_path / "filled.xlsx", ROWS, SOURCES, [["Apis mellifera", None, None, None, None, "Apidae"], ["Bombus terrestris", None, None, None, None, "Apidae"]])
     assert run("check", filled) == 0
     out = tmp_path / "t.csv"
     assert run("table", filled, "-o", out) == 0
