@@ -211,3 +211,30 @@ def test_fit_says_what_was_rescaled(tmp_path):
                    "--no-temperature", "--format", "json")
     assert json.loads(off.stdout)["temperature"]["to"] == "off"
     assert math.isclose(json.loads(off.stdout)["temperature"]["rescaled"], 0)
+
+
+def test_axis_labels_and_report_say_the_temperature(tmp_path):
+    """Figure axes of a temperature-sensitive quantity say the temperature its values refer
+    to; the report's temperature table names the values kept as measured."""
+    from comparo import fit
+    from comparo.plots import axis_label
+
+    d = dataset(tmp_path)
+    ds = load(d)
+    res = fit(per_taxon(ds), "body_mass", "frequency_observed", "ols")
+    assert axis_label("frequency_observed", ds.catalog, res.temperature).endswith(
+        "at 25 °C; in-vivo values of endotherms at body temperature")
+    assert "°C" not in axis_label("body_mass", ds.catalog, res.temperature)
+    (d / "comparo.toml").write_text('reference_temperature_c = "operating"\n', encoding="utf-8")
+    ds = load(d)
+    res = fit(per_taxon(ds), "body_mass", "attach_rate", "ols")
+    assert axis_label("attach_rate", ds.catalog, res.temperature).endswith("at operating temperature")
+    off = fit(per_taxon(ds, temperature=False), "body_mass", "attach_rate", "ols")
+    assert axis_label("attach_rate", ds.catalog, off.temperature).endswith("at measured temperature")
+    from comparo.curate import harmonise as h
+    from comparo.provenance import temperature_rules
+
+    (tmp_path / "again").mkdir()
+    rules = temperature_rules(h(load(dataset(tmp_path / "again", taxa=TAXA))))
+    kept = rules[rules["rule"] == "as measured"]
+    assert dict(zip(kept["quantity_key"], kept["rows"], strict=True)) == {"frequency_observed": 4}
