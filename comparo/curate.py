@@ -164,7 +164,9 @@ def _numbers_only(table: Any) -> dict[str, float]:
     return {k: float(v) for k, v in table.items() if isinstance(v, int | float) and not isinstance(v, bool)}
 
 
-def _thermal_columns(ds: Dataset, accepted: pd.Series, with_groups: bool = False) -> tuple[np.ndarray, np.ndarray, list[dict[str, str]]]:
+def _thermal_columns(
+    ds: Dataset, accepted: pd.Series, with_groups: bool = False
+) -> tuple[np.ndarray, np.ndarray, list[dict[str, str]]]:
     """Per observation row: the taxon's thermoregulation (text, '' when not given), its
     operating temperature (°C, NaN when not given) and (*with_groups*) its taxa.csv
     grouping values."""
@@ -173,11 +175,21 @@ def _thermal_columns(ds: Dataset, accepted: pd.Series, with_groups: bool = False
         n = len(accepted)
         return np.full(n, "", dtype=object), np.full(n, np.nan), [{}] * n if with_groups else []
     g = groups.set_index("taxon")
-    thermo = accepted.map(g["thermoregulation"]).fillna("").to_numpy(object) if "thermoregulation" in g else np.full(len(accepted), "", dtype=object)
-    t_op = pd.to_numeric(accepted.map(g["operating_temperature_c"]), errors="coerce").to_numpy(float) if "operating_temperature_c" in g else np.full(len(accepted), np.nan)
+    thermo = (
+        accepted.map(g["thermoregulation"]).fillna("").to_numpy(object)
+        if "thermoregulation" in g
+        else np.full(len(accepted), "", dtype=object)
+    )
+    t_op = (
+        pd.to_numeric(accepted.map(g["operating_temperature_c"]), errors="coerce").to_numpy(float)
+        if "operating_temperature_c" in g
+        else np.full(len(accepted), np.nan)
+    )
     if not with_groups:
         return thermo, t_op, []
-    rec = {t: {c: ("" if pd.isna(v) else str(v)) for c, v in row.items()} for t, row in g.iterrows()}
+    rec = {
+        t: {c: ("" if pd.isna(v) else str(v)) for c, v in row.items()} for t, row in g.iterrows()
+    }
     return thermo, t_op, [rec.get(a, {}) for a in accepted]
 
 
@@ -195,6 +207,83 @@ def _rule_q10(policy, keys: pd.Series, groups: list[dict[str, str]]) -> np.ndarr
     return out
 
 
+def _temperature_columns(
+    ds: Dataset, obs: pd.DataFrame, temperature: bool
+) -> tuple[Any, dict[str, np.ndarray]]:
+    """The temperature policy of *ds* and the columns it adds to the observation rows
+    (``temperature_factor``, ``temperature_note``, ``temperature_rule``, ``value_temp_c``,
+    ``q10_used``, ``ea_kj_mol_used``); see :func:`harmonise`."""
+    from comparo.thermal import RULE_ARRHENIUS, RULE_KEPT, RULE_NONE, RULE_Q10, temperature_policy
+
+    cat, n = ds.catalog, len(obs)
+    keys = obs["quantity_key"]
+
+    def per_key(fn) -> np.ndarray:
+        known = map_distinct(keys, lambda k: bool(k) and k in cat and fn(cat[k]))
+        return known.to_numpy(dtype=bool)
+
+    ts = per_key(lambda q: q.temperature_sensitive)
+    is_time = per_key(lambda q: q.is_time)
+    is_freq = per_key(lambda q: q.kind == "frequency")
+    settings = ds.settings
+    policy = temperature_policy(settings)
+    q10_set = _numbers_only(settings.get("q10", {}))
+    ea_set = _numbers_only(settings.get("activation_energy_kj_mol", {}))
+    thermo, t_op, groups = _thermal_columns(ds, obs["accepted"], with_groups=bool(policy.rules))
+    q10 = map_distinct(
+        keys, lambda k: float(q10_set.get(k, cat[k].q10 or np.nan)) if k in cat else np.nan
+    ).to_numpy(dtype=float)
+    ea = map_distinct(keys, lambda k: float(ea_set.get(k, np.nan))).to_numpy(dtype=float)
+    row_q10 = obs["q10"].to_numpy(dtype=float)
+    specific = np.where(np.isfinite(row_q10), row_q10, _rule_q10(policy, keys, groups))
+    q10 = np.where(np.isfinite(specific), specific, q10)
+    ea = np.where(np.isfinite(specific), np.nan, ea)  # a row's own or a rule's Q10 wins over an Ea
+    t_meas = obs["temperature_c"].to_numpy(dtype=float)
+    t_ref = policy.reference_c
+    t_target = np.where(np.isfinite(t_op), t_op, t_ref) if policy.operating else np.full(n, t_ref)
+    prep = np.full(n, "", dtype=object)
+    if "preparation" in obs:
+        prep = obs["preparation"].fillna("").astype(str).to_numpy(object)
+    in_vivo = (prep == "in_vivo") | ((prep == "") & is_freq)
+    with np.errstate(invalid="ignore"):
+        at_op = np.isfinite(t_op) & (np.abs(t_meas - t_op) <= policy.heterotherm_tolerance_c)
+    regulated = in_vivo & ((thermo == "endotherm") | ((thermo == "heterotherm") & at_op))
+    keep = ts & np.isfinite(t_meas) & regulated & (policy.regulated_in_vivo == "as_measured")
+    factor = np.ones(n)
+    note = np.full(n, "", dtype=object)
+    rule = np.full(n, "", dtype=object)
+    value_temp = np.where(ts, t_meas, np.nan)
+    known = ts & np.isfinite(t_meas) & ~keep
+    if temperature:
+        factor = np.where(known, temperature_factor(t_meas, t_target, q10, ea, is_time), 1.0)
+        where = np.full(n, "", dtype=object)
+        if policy.operating:
+            where = np.where(np.isfinite(t_op), ", operating temperature",
+                             ", no operating_temperature_c: fallback")
+        note[known] = [
+            f"x{fa:.4g} ({'Arrhenius' if np.isfinite(e) else f'Q10 {q:g}'}, {t:g} -> {tt:g} °C{w})"
+            for fa, q, e, t, tt, w in zip(factor[known], q10[known], ea[known], t_meas[known],
+                                          t_target[known], where[known], strict=True)
+        ]
+        rule[known] = np.where(np.isfinite(ea[known]), RULE_ARRHENIUS, RULE_Q10)
+        note[keep] = [
+            f"kept as measured at {t:g} °C ({th}, in vivo"
+            + ("" if p else ", no preparation: a frequency counts as in vivo") + ")"
+            for t, th, p in zip(t_meas[keep], thermo[keep], prep[keep], strict=True)
+        ]
+        rule[keep] = RULE_KEPT
+        value_temp = np.where(known, t_target, value_temp)
+        none = ts & ~np.isfinite(t_meas)
+        note[none] = "no temperature: used un-normalised"
+        rule[none] = RULE_NONE
+    applied = known if temperature else np.zeros(n, dtype=bool)
+    return policy, {
+        "temperature_factor": factor, "temperature_note": note, "temperature_rule": rule,
+        "value_temp_c": value_temp, "q10_used": np.where(applied & ~np.isfinite(ea), q10, np.nan),
+        "ea_kj_mol_used": np.where(applied & np.isfinite(ea), ea, np.nan),
+    }
+
+
 def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool = True) -> Harmonised:
     """Names, temperature, uncertainty, duplicates, slips and conflicts (see module doc).
 
@@ -209,61 +298,14 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
     a frequency (what the animal does), as a preparation's otherwise. Rows gain
     ``temperature_rule`` and ``value_temp_c`` (°C the harmonised value refers to).
     """
-    from comparo.thermal import RULE_ARRHENIUS, RULE_KEPT, RULE_NONE, RULE_Q10, temperature_policy
-
-    cat = ds.catalog
     obs = ds.observations.copy()
     obs["accepted"] = accepted_names(ds)
     obs["u_h"] = standard_uncertainty(obs["uncertainty_canonical"], obs["uncertainty_kind"], obs["n"]).to_numpy()
     keys = obs["quantity_key"]
-    ts = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].temperature_sensitive).to_numpy(dtype=bool)
-    is_time = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].is_time).to_numpy(dtype=bool)
-    is_freq = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].kind == "frequency").to_numpy(dtype=bool)
-    settings = ds.settings
-    policy = temperature_policy(settings)
-    q10_set = _numbers_only(settings.get("q10", {}))
-    ea_set = _numbers_only(settings.get("activation_energy_kj_mol", {}))
-    thermo, t_op, groups = _thermal_columns(ds, obs["accepted"], with_groups=bool(policy.rules))
-    q10 = map_distinct(keys, lambda k: float(q10_set.get(k, cat[k].q10 or np.nan)) if k in cat else np.nan).to_numpy(dtype=float)
-    ea = map_distinct(keys, lambda k: float(ea_set.get(k, np.nan))).to_numpy(dtype=float)
-    specific = _rule_q10(policy, keys, groups)
-    row_q10 = obs["q10"].to_numpy(dtype=float)
-    specific = np.where(np.isfinite(row_q10), row_q10, specific)
-    q10 = np.where(np.isfinite(specific), specific, q10)
-    ea = np.where(np.isfinite(specific), np.nan, ea)  # a row's own or a rule's Q10 wins over a per-quantity Ea
-    t_meas = obs["temperature_c"].to_numpy(dtype=float)
-    t_ref = policy.reference_c
-    t_target = np.where(np.isfinite(t_op), t_op, t_ref) if policy.operating else np.full(len(obs), t_ref)
-    prep = obs["preparation"].fillna("").astype(str).to_numpy(object) if "preparation" in obs else np.full(len(obs), "", dtype=object)
-    in_vivo = (prep == "in_vivo") | ((prep == "") & is_freq)
-    with np.errstate(invalid="ignore"):
-        at_op = np.isfinite(t_op) & (np.abs(t_meas - t_op) <= policy.heterotherm_tolerance_c)
-    regulated = in_vivo & ((thermo == "endotherm") | ((thermo == "heterotherm") & at_op))
-    keep = ts & np.isfinite(t_meas) & regulated & (policy.regulated_in_vivo == "as_measured")
-    factor = np.ones(len(obs))
-    note = np.full(len(obs), "", dtype=object)
-    rule = np.full(len(obs), "", dtype=object)
-    value_temp = np.where(ts, t_meas, np.nan)
-    if temperature:
-        f = temperature_factor(t_meas, t_target, q10, ea, is_time)
-        known = ts & np.isfinite(t_meas) & ~keep
-        factor = np.where(known, f, 1.0)
-        where = np.full(len(obs), "", dtype=object) if not policy.operating else np.where(np.isfinite(t_op), ", operating temperature", ", no operating_temperature_c: fallback")
-        note[known] = [f"x{fa:.4g} ({'Arrhenius' if np.isfinite(e) else f'Q10 {q:g}'}, {t:g} -> {tt:g} °C{w})" for fa, q, e, t, tt, w in zip(factor[known], q10[known], ea[known], t_meas[known], t_target[known], where[known], strict=True)]
-        rule[known] = np.where(np.isfinite(ea[known]), RULE_ARRHENIUS, RULE_Q10)
-        note[keep] = [f"kept as measured at {t:g} °C ({th}, in vivo{'' if p else ', no preparation: a frequency counts as in vivo'})" for t, th, p in zip(t_meas[keep], thermo[keep], prep[keep], strict=True)]
-        rule[keep] = RULE_KEPT
-        value_temp = np.where(known, t_target, value_temp)
-        none = ts & ~np.isfinite(t_meas)
-        note[none] = "no temperature: used un-normalised"
-        rule[none] = RULE_NONE
-    obs["temperature_factor"] = factor
-    obs["temperature_note"] = note
-    obs["temperature_rule"] = rule
-    obs["value_temp_c"] = value_temp
-    applied = (ts & np.isfinite(t_meas) & ~keep) if temperature else np.zeros(len(obs), dtype=bool)
-    obs["q10_used"] = np.where(applied & ~np.isfinite(ea), q10, np.nan)
-    obs["ea_kj_mol_used"] = np.where(applied & np.isfinite(ea), ea, np.nan)
+    policy, columns = _temperature_columns(ds, obs, temperature)
+    for name, col in columns.items():
+        obs[name] = col
+    factor = columns["temperature_factor"]
     with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         obs["value_h"] = obs["value_canonical"].to_numpy(dtype=float) * factor
         obs["u_h"] = obs["u_h"].to_numpy(dtype=float) * factor
@@ -290,7 +332,8 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         reason[d] = [f"duplicate of {m} (same source, locator, taxon, quantity, value)" for m in first_id[dup]]
     obs["status"], obs["reason"], obs["merged_into"] = status, reason, merged_into
 
-    h = Harmonised(obs, reference_temperature_c=t_ref if temperature else None, policy=policy if temperature else None)
+    h = Harmonised(obs, reference_temperature_c=policy.reference_c if temperature else None,
+                   policy=policy if temperature else None)
     h.unit_slips = find_unit_slips(obs, ds)
     if exclude_unit_slips:
         slip_ids = {s["obs_id"]: s for s in h.unit_slips}
@@ -347,7 +390,9 @@ def find_unit_slips(obs: pd.DataFrame, ds: Dataset) -> list[dict[str, Any]]:
     if df.empty:
         return []
     df["_lv"] = np.log10(df["value_h"].to_numpy(float))
-    gcols = [c for c in gcols if c not in ("thermoregulation", "operating_temperature_c")]
+    from comparo.thermal import TAXA_TEMPERATURE_COLUMNS
+
+    gcols = [c for c in gcols if c not in TAXA_TEMPERATURE_COLUMNS]  # not groups of relatives
     if gcols:
         g = taxon_groups(ds).set_index("taxon")[gcols[0]]
         df["_g"] = df["accepted"].map(g).fillna("")
@@ -549,7 +594,11 @@ def _temperature_notes(ds: Dataset, h: Harmonised, file: str) -> list[Problem]:
     heterotherm's in-vivo value normalised, a per-taxon value combining values that
     refer to different temperatures."""
     out: list[Problem] = []
-    rows = h.rows[(h.rows["status"] == "used") & (h.rows.get("temperature_rule", "") != "")] if "temperature_rule" in h.rows else h.rows.iloc[:0]
+    rows = (
+        h.rows[(h.rows["status"] == "used") & (h.rows.get("temperature_rule", "") != "")]
+        if "temperature_rule" in h.rows
+        else h.rows.iloc[:0]
+    )
     if h.policy is None or rows.empty:
         return out
     thermo, t_op, _ = _thermal_columns(ds, rows["accepted"])
@@ -557,24 +606,82 @@ def _temperature_notes(ds: Dataset, h: Harmonised, file: str) -> list[Problem]:
     if h.policy.operating:
         fb = normalised & ~np.isfinite(t_op)
         for name, part in rows[fb].groupby("accepted", sort=True):
-            out.append(Problem("note", file, int(part["row"].iat[0]), "taxon", name, "temperature-fallback",
-                               f"{name} has no operating_temperature_c: its {len(part)} temperature-sensitive value(s) are "
-                               f"brought to the fallback {h.reference_temperature_c:g} °C", "give operating_temperature_c in taxa.csv"))
-    prep = rows["preparation"].fillna("").astype(str).to_numpy(object) if "preparation" in rows else np.full(len(rows), "", dtype=object)
-    het = normalised & (thermo == "heterotherm") & ((prep == "in_vivo") | ((prep == "") & rows["quantity_key"].map(lambda k: ds.catalog[k].kind == "frequency").to_numpy(bool)))
+            out.append(
+                Problem(
+                    "note",
+                    file,
+                    int(part["row"].iat[0]),
+                    "taxon",
+                    name,
+                    "temperature-fallback",
+                    f"{name} has no operating_temperature_c: its {len(part)} "
+                    "temperature-sensitive value(s) are "
+                    f"brought to the fallback {h.reference_temperature_c:g} °C",
+                    "give operating_temperature_c in taxa.csv",
+                )
+            )
+    prep = (
+        rows["preparation"].fillna("").astype(str).to_numpy(object)
+        if "preparation" in rows
+        else np.full(len(rows), "", dtype=object)
+    )
+    het = (
+        normalised
+        & (thermo == "heterotherm")
+        & (
+            (prep == "in_vivo")
+            | (
+                (prep == "")
+                & rows["quantity_key"]
+                .map(lambda k: ds.catalog[k].kind == "frequency")
+                .to_numpy(bool)
+            )
+        )
+    )
     for r, op in zip(rows[het].itertuples(), t_op[het], strict=True):
-        why = "it has no operating_temperature_c" if not np.isfinite(op) else f"it was measured at {r.temperature_c:g} °C, away from its operating temperature {op:g} °C"
-        out.append(Problem("note", file, int(r.row), "temperature_c", _cell(r.temperature_c), "temperature-heterotherm",
-                           f"{r.quantity_key} of heterotherm {r.accepted} is normalised like an ectotherm's: {why}",
-                           f"the tolerance is {h.policy.heterotherm_tolerance_c:g} K ([temperature] heterotherm_tolerance_c)"))
+        why = (
+            "it has no operating_temperature_c"
+            if not np.isfinite(op)
+            else f"it was measured at {r.temperature_c:g} °C, away from its operating "
+            f"temperature {op:g} °C"
+        )
+        out.append(
+            Problem(
+                "note",
+                file,
+                int(r.row),
+                "temperature_c",
+                _cell(r.temperature_c),
+                "temperature-heterotherm",
+                f"{r.quantity_key} of heterotherm {r.accepted} is normalised like an "
+                f"ectotherm's: {why}",
+                f"the tolerance is {h.policy.heterotherm_tolerance_c:g} K "
+                "([temperature] heterotherm_tolerance_c)",
+            )
+        )
     vt = pd.to_numeric(rows["value_temp_c"], errors="coerce")
-    spread = pd.DataFrame({"v": vt.to_numpy(float), "row": rows["row"].to_numpy()}).groupby(
-        [rows["accepted"].to_numpy(object), rows["quantity_key"].to_numpy(object)], sort=True).agg(
-        min=("v", "min"), max=("v", "max"), row=("row", "first"))
+    spread = (
+        pd.DataFrame({"v": vt.to_numpy(float), "row": rows["row"].to_numpy()})
+        .groupby(
+            [rows["accepted"].to_numpy(object), rows["quantity_key"].to_numpy(object)], sort=True
+        )
+        .agg(min=("v", "min"), max=("v", "max"), row=("row", "first"))
+    )
     for (name, q), r in spread[(spread["max"] - spread["min"]) > 0.5].iterrows():
-        out.append(Problem("note", file, int(r["row"]), "temperature_c", f"{r['min']:g} to {r['max']:g}", "temperature-mixed",
-                           f"{q} of {name}: the per-taxon value combines values that refer to {r['min']:g} to {r['max']:g} °C "
-                           f"(some kept as measured); {q}_temp_c is their mean", "set regulated_in_vivo = \"normalise\" to bring them to one temperature"))
+        out.append(
+            Problem(
+                "note",
+                file,
+                int(r["row"]),
+                "temperature_c",
+                f"{r['min']:g} to {r['max']:g}",
+                "temperature-mixed",
+                f"{q} of {name}: the per-taxon value combines values that refer to "
+                f"{r['min']:g} to {r['max']:g} °C "
+                f"(some kept as measured); {q}_temp_c is their mean",
+                'set regulated_in_vivo = "normalise" to bring them to one temperature',
+            )
+        )
     return out
 
 
@@ -786,32 +893,63 @@ def _temperature_of(part: pd.DataFrame) -> pd.Series:
     where kept as measured, not normalised or computed from a trace); NaN where no value
     has one. Values at different temperatures are combined as they are (the per-taxon
     value then refers to their mean temperature; docs/methods/temperature.md)."""
-    vt = pd.to_numeric(part["value_temp_c"], errors="coerce") if "value_temp_c" in part else pd.Series(np.nan, index=part.index)
+    vt = (
+        pd.to_numeric(part["value_temp_c"], errors="coerce")
+        if "value_temp_c" in part
+        else pd.Series(np.nan, index=part.index)
+    )
     vt = vt.fillna(pd.to_numeric(part["temperature_c"], errors="coerce"))
     return vt.groupby(part["accepted"].to_numpy(object)).mean()
 
 
 def _temperature_record(used: pd.DataFrame, cat, h: Harmonised) -> dict[str, Any]:
     """``attrs["temperature"]`` of the per-taxon table: where values were brought (``to``)
-    and one record ``(quantity, taxon, factor, treatment)`` per temperature-sensitive value
-    used, summed per quantity and taxon: ``(quantity, taxon, values, rescaled, lowest factor,
-    highest factor, kept as measured, without temperature)`` (factors over the rescaled
-    values; ±inf when none). Read by :func:`comparo.thermal.fit_temperature`."""
-    ts = used[map_distinct(used["quantity_key"], lambda k: k in cat and cat[k].temperature_sensitive).to_numpy(bool)]
-    rule = ts["temperature_rule"].fillna("").astype(str).to_numpy(object) if "temperature_rule" in ts else np.full(len(ts), "", dtype=object)
+    and, per quantity and taxon, what happened to its temperature-sensitive values used:
+    ``(quantity, taxon, values, rescaled, lowest factor, highest factor, kept as measured,
+    without temperature)`` (factors over the rescaled values; ±inf when none). Read by
+    :func:`comparo.thermal.fit_temperature`."""
+    ts = used[
+        map_distinct(
+            used["quantity_key"], lambda k: k in cat and cat[k].temperature_sensitive
+        ).to_numpy(bool)
+    ]
+    rule = (
+        ts["temperature_rule"].fillna("").astype(str).to_numpy(object)
+        if "temperature_rule" in ts
+        else np.full(len(ts), "", dtype=object)
+    )
     if h.policy is None:
         treat = np.full(len(ts), "off", dtype=object)
     else:
-        treat = np.select([(rule == "Q10") | (rule == "Arrhenius"), rule == "as measured", rule == "none"],
-                          ["normalised", "kept", "none"], "measured")
+        treat = np.select(
+            [(rule == "Q10") | (rule == "Arrhenius"), rule == "as measured", rule == "none"],
+            ["normalised", "kept", "none"],
+            "measured",
+        )
     f = ts["temperature_factor"].to_numpy(float)
     norm = (treat == "normalised") & (f != 1.0)
-    part = pd.DataFrame({"q": ts["quantity_key"].to_numpy(object), "t": ts["accepted"].to_numpy(object),
-                         "n": np.ones(len(ts), dtype=int), "rescaled": norm.astype(int),
-                         "fmin": np.where(norm, f, np.inf), "fmax": np.where(norm, f, -np.inf),
-                         "kept": (treat == "kept").astype(int), "none": (treat == "none").astype(int)})
-    agg = part.groupby(["q", "t"], sort=False).agg(n=("n", "sum"), rescaled=("rescaled", "sum"), fmin=("fmin", "min"),
-                                                   fmax=("fmax", "max"), kept=("kept", "sum"), none=("none", "sum"))
-    recs = tuple((q, t, int(r.n), int(r.rescaled), float(r.fmin), float(r.fmax), int(r.kept), int(r.none))
-                 for (q, t), r in zip(agg.index, agg.itertuples(index=False), strict=True))
+    part = pd.DataFrame(
+        {
+            "q": ts["quantity_key"].to_numpy(object),
+            "t": ts["accepted"].to_numpy(object),
+            "n": np.ones(len(ts), dtype=int),
+            "rescaled": norm.astype(int),
+            "fmin": np.where(norm, f, np.inf),
+            "fmax": np.where(norm, f, -np.inf),
+            "kept": (treat == "kept").astype(int),
+            "none": (treat == "none").astype(int),
+        }
+    )
+    agg = part.groupby(["q", "t"], sort=False).agg(
+        n=("n", "sum"),
+        rescaled=("rescaled", "sum"),
+        fmin=("fmin", "min"),
+        fmax=("fmax", "max"),
+        kept=("kept", "sum"),
+        none=("none", "sum"),
+    )
+    recs = tuple(
+        (q, t, int(r.n), int(r.rescaled), float(r.fmin), float(r.fmax), int(r.kept), int(r.none))
+        for (q, t), r in zip(agg.index, agg.itertuples(index=False), strict=True)
+    )
     return {"to": h.policy.target_text if h.policy is not None else "off", "values": recs}

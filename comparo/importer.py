@@ -37,7 +37,8 @@ from comparo.wide import (
 NOT_STATED = "not stated"  # locator written when the wide table gives none
 STUB_CITATION = "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"  # check warns (citation-stub)
 LONG_COLUMNS = ("obs_id", "taxon", "quantity", "value", "unit", "uncertainty", "uncertainty_kind", "n", "source_id",
-                "locator", "basis", "temperature_c", "preparation", "muscle", "notes", "entered_by", "entered_on", "q10")
+                "locator", "basis", "temperature_c", "preparation", "muscle", "notes", "entered_by", "entered_on",
+                "q10")
 _EMPTY_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
 _PLAIN = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
 _THOUSANDS_SPACE = re.compile(r"^[-+]?\d{1,3}([ \u00a0\u202f\u2009]\d{3})+([.,]\d+)?$")
@@ -230,7 +231,8 @@ def _number_problem(grid: Grid, c: Column, i: int, v: Any, msg: str, hint: str) 
     return Problem("error", grid.file, grid.row_numbers[i], c.header, str(v)[:60], "not-a-number", f"cell {coord} is {msg}", hint)
 
 
-def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False, catalog: Catalog | None = None) -> _Long:
+def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False,
+            catalog: Catalog | None = None) -> _Long:
     """One long-format record per filled trait cell (see the module docstring)."""
     from comparo import units
 
@@ -319,7 +321,7 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False, cata
                 rec["temperature_c"] = temp
                 origin["temperature_c"] = (single["temperature"].header, grid.coordinate(i, single["temperature"].index), rownum)
             for k, v in copies.items():
-                if k != "basis" and v and (k != "q10" or c.key in rates):  # a row's Q10 goes to its rates only
+                if k != "basis" and v and (k != "q10" or c.key in rates):  # Q10: rates only
                     rec[k] = v
             note = f"imported from {grid.file} cell {coord}"
             rec["notes"] = f"{note}; {copies['notes']}" if copies.get("notes") else note

@@ -584,8 +584,12 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
         if key not in SETTINGS_KEYS:
             probs.append(_err(file, "settings-key", f"unknown setting {key!r} (ignored)", f"known settings: {', '.join(sorted(SETTINGS_KEYS))}", column=key, severity="warning"))
     t = settings.get("reference_temperature_c")
-    if t is not None and t != "operating" and (not isinstance(t, int | float) or isinstance(t, bool) or not -5 <= t <= 60):
-        probs.append(_err(file, "settings-value", "reference_temperature_c must be a number of degrees Celsius between -5 and 60, or \"operating\" (each taxon's operating_temperature_c in taxa.csv)", column="reference_temperature_c", value=str(t)))
+    number = isinstance(t, int | float) and not isinstance(t, bool)
+    if t is not None and t != "operating" and (not number or not -5 <= t <= 60):
+        probs.append(_err(file, "settings-value",
+                          "reference_temperature_c must be a number of degrees Celsius "
+                          "between -5 and 60, or \"operating\" (each taxon's operating_temperature_c in taxa.csv)",
+                          column="reference_temperature_c", value=str(t)))
     return settings, probs
 
 

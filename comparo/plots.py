@@ -85,7 +85,8 @@ def render(fig: Figure) -> tuple[bytes, bytes]:
     return png.getvalue(), svg.getvalue()
 
 
-def axis_label(key: str, catalog: Mapping[str, Any] | None, temperature: Mapping[str, Any] | None = None) -> str:
+def axis_label(key: str, catalog: Mapping[str, Any] | None,
+               temperature: Mapping[str, Any] | None = None) -> str:
     """``Label (unit)`` from the catalogue; a key outside it is shown as it is, marked.
 
     With *temperature* (a fit's ``temperature``, :func:`comparo.thermal.fit_temperature`),

@@ -40,7 +40,10 @@ Bombus terrestris,Hymenoptera,heterotherm,36
 Locusta migratoria,Orthoptera,ectotherm,30
 """
 SOURCES = "source_id,citation,year\ns1,Invented (2020) a made-up source,2020\n"
-Q10_FREQ, Q10_ATTACH = 2.0, 2.5  # catalogue defaults of frequency_observed and attach_rate (schema/quantities.toml)
+Q10_FREQ, Q10_ATTACH = (
+    2.0,
+    2.5,
+)  # catalogue defaults of frequency_observed and attach_rate (schema/quantities.toml)
 
 
 def q10_rule(r1: float, t1: float, t2: float, q10: float) -> float:
@@ -93,10 +96,13 @@ def test_operating_reference_brings_each_taxon_to_its_own_temperature(tmp_path):
     with Q10 2 is multiplied by 2^2.5 (standard Q10 rule, common practice); the locust's
     in-vivo value measured at its operating temperature stays as measured (factor 1); the bat
     without an operating temperature falls back to fallback_c, with a note in check."""
-    d = dataset(tmp_path, 'reference_temperature_c = "operating"\n[temperature]\nfallback_c = 30\n'
-                          '[q10]\nattach_rate = 2.0\n')
+    d = dataset(
+        tmp_path,
+        'reference_temperature_c = "operating"\n[temperature]\nfallback_c = 30\n'
+        "[q10]\nattach_rate = 2.0\n",
+    )
     r = rows(d)
-    assert r.loc["b3", "value_h"] / 50 == pytest.approx(2 ** 2.5, rel=1e-12)
+    assert r.loc["b3", "value_h"] / 50 == pytest.approx(2**2.5, rel=1e-12)
     assert r.loc["l2", "value_h"] == 20.0 and r.loc["l2", "temperature_factor"] == 1.0
     assert r.loc["l3", "value_h"] == pytest.approx(q10_rule(40, 15, 30, 2.0), rel=1e-12)
     assert r.loc["h3", "value_h"] == pytest.approx(q10_rule(120, 28, 36, Q10_FREQ), rel=1e-12)
@@ -137,8 +143,11 @@ def test_normalise_setting_and_without_taxa_table_as_before(tmp_path):
 def test_rules_by_clade_and_quantity_last_match_wins(tmp_path):
     """[[temperature.rule]]: a general rule, then one for a clade and quantity; the per-row
     q10 still wins. Standard Q10 rule (common practice)."""
-    settings = ("[[temperature.rule]]\nq10 = 3.0\n"
-                "[[temperature.rule]]\nq10 = 1.5\nquantity = \"frequency_observed\"\nwhere = { clade = \"Orthoptera\" }\n")
+    settings = (
+        "[[temperature.rule]]\nq10 = 3.0\n"
+        '[[temperature.rule]]\nq10 = 1.5\nquantity = "frequency_observed"\n'
+        'where = { clade = "Orthoptera" }\n'
+    )
     r = rows(dataset(tmp_path, settings))
     assert r.loc["l2", "value_h"] == pytest.approx(q10_rule(20, 30, 25, 1.5), rel=1e-12)
     assert r.loc["l3", "value_h"] == pytest.approx(q10_rule(40, 15, 25, 3.0), rel=1e-12)
@@ -147,10 +156,13 @@ def test_rules_by_clade_and_quantity_last_match_wins(tmp_path):
 
 def test_check_names_every_bad_temperature_setting(tmp_path):
     """Every problem of the [temperature] table in one pass, each naming the entry."""
-    settings = ('reference_temperature_c = "operatng"\n[temperature]\nfalback_c = 20\nregulated_in_vivo = "yes"\n'
-                "[[temperature.rule]]\nq10 = -1\nquantity = \"atach_rate\"\nwhere = { klade = \"Aves\" }\n"
-                "[[temperature.rule]]\nq10 = 2.0\nwhere = { clade = \"Avs\" }\n"
-                "[[temperature.rule]]\nq10 = 2.0\n")
+    settings = (
+        'reference_temperature_c = "operatng"\n'
+        '[temperature]\nfalback_c = 20\nregulated_in_vivo = "yes"\n'
+        '[[temperature.rule]]\nq10 = -1\nquantity = "atach_rate"\nwhere = { klade = "Aves" }\n'
+        '[[temperature.rule]]\nq10 = 2.0\nwhere = { clade = "Avs" }\n'
+        "[[temperature.rule]]\nq10 = 2.0\n"
+    )
     res = check(dataset(tmp_path, settings))
     assert not res.ok
     p = res.problems
@@ -198,17 +210,51 @@ def test_fit_says_what_was_rescaled(tmp_path):
     """fit JSON and text: how many values were rescaled, to what, the factor range (the
     factors by the standard Q10 rule, common practice) and the option that turns it off."""
     d = dataset(tmp_path)
-    out = run_main("fit", str(d), "--x", "body_mass", "--y", "frequency_observed", "--method", "ols", "--format", "json")
+    out = run_main(
+        "fit",
+        str(d),
+        "--x",
+        "body_mass",
+        "--y",
+        "frequency_observed",
+        "--method",
+        "ols",
+        "--format",
+        "json",
+    )
     assert out.returncode == 0, out.stderr
     t = json.loads(out.stdout)["temperature"]
     factors = [2.0 ** ((25 - 30) / 10), 2.0 ** ((25 - 28) / 10)]  # locust l2, bumblebee h3
-    assert t["to"] == "25 °C" and t["values"] == 6 and t["rescaled"] == 2 and t["kept_as_measured"] == 4
-    assert t["factor_min"] == pytest.approx(min(factors)) and t["factor_max"] == pytest.approx(max(factors))
+    assert (
+        t["to"] == "25 °C"
+        and t["values"] == 6
+        and t["rescaled"] == 2
+        and t["kept_as_measured"] == 4
+    )
+    assert t["factor_min"] == pytest.approx(min(factors)) and t["factor_max"] == pytest.approx(
+        max(factors)
+    )
     assert t["option"] == "--no-temperature"
-    text = run_main("fit", str(d), "--x", "body_mass", "--y", "frequency_observed", "--method", "ols").stdout
-    assert "2 of 6 temperature-sensitive value(s) rescaled to 25 °C" in text and "--no-temperature" in text
-    off = run_main("fit", str(d), "--x", "body_mass", "--y", "frequency_observed", "--method", "ols",
-                   "--no-temperature", "--format", "json")
+    text = run_main(
+        "fit", str(d), "--x", "body_mass", "--y", "frequency_observed", "--method", "ols"
+    ).stdout
+    assert (
+        "2 of 6 temperature-sensitive value(s) rescaled to 25 °C" in text
+        and "--no-temperature" in text
+    )
+    off = run_main(
+        "fit",
+        str(d),
+        "--x",
+        "body_mass",
+        "--y",
+        "frequency_observed",
+        "--method",
+        "ols",
+        "--no-temperature",
+        "--format",
+        "json",
+    )
     assert json.loads(off.stdout)["temperature"]["to"] == "off"
     assert math.isclose(json.loads(off.stdout)["temperature"]["rescaled"], 0)
 
@@ -223,14 +269,19 @@ def test_axis_labels_and_report_say_the_temperature(tmp_path):
     ds = load(d)
     res = fit(per_taxon(ds), "body_mass", "frequency_observed", "ols")
     assert axis_label("frequency_observed", ds.catalog, res.temperature).endswith(
-        "at 25 °C; in-vivo values of endotherms at body temperature")
+        "at 25 °C; in-vivo values of endotherms at body temperature"
+    )
     assert "°C" not in axis_label("body_mass", ds.catalog, res.temperature)
     (d / "comparo.toml").write_text('reference_temperature_c = "operating"\n', encoding="utf-8")
     ds = load(d)
     res = fit(per_taxon(ds), "body_mass", "attach_rate", "ols")
-    assert axis_label("attach_rate", ds.catalog, res.temperature).endswith("at operating temperature")
+    assert axis_label("attach_rate", ds.catalog, res.temperature).endswith(
+        "at operating temperature"
+    )
     off = fit(per_taxon(ds, temperature=False), "body_mass", "attach_rate", "ols")
-    assert axis_label("attach_rate", ds.catalog, off.temperature).endswith("at measured temperature")
+    assert axis_label("attach_rate", ds.catalog, off.temperature).endswith(
+        "at measured temperature"
+    )
     from comparo.curate import harmonise as h
     from comparo.provenance import temperature_rules
 

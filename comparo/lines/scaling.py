@@ -115,7 +115,8 @@ def fit(
     log = _check_options(method, log, ci, bootstrap)
     if method == "pgls":
         return _with_temperature(
-            _pgls(table, x, y, log, ci, against, taxon_col, by, bootstrap, breakpoint, drop_flagged, pgls_options),
+            _pgls(table, x, y, log, ci, against, taxon_col, by, bootstrap, breakpoint, drop_flagged,
+                  pgls_options),
             table, taxon_col)
     if pgls_options:
         raise UsageError(f"options {', '.join(sorted(pgls_options))} apply only to method pgls")
