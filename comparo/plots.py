@@ -105,7 +105,7 @@ def axis_label(key: str, catalog: Mapping[str, Any] | None,
         to = temperature.get("to")
         text += " at measured temperature" if to == "off" else f" at {to}"
         if to != "off" and temperature.get("kept_as_measured"):
-            text += "; in-vivo values of endotherms at body temperature"
+            text += "\n(endotherms in vivo: at body temperature)"
     return text
 
 

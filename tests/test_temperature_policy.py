@@ -269,7 +269,7 @@ def test_axis_labels_and_report_say_the_temperature(tmp_path):
     ds = load(d)
     res = fit(per_taxon(ds), "body_mass", "frequency_observed", "ols")
     assert axis_label("frequency_observed", ds.catalog, res.temperature).endswith(
-        "at 25 °C; in-vivo values of endotherms at body temperature"
+        "at 25 °C\n(endotherms in vivo: at body temperature)"
     )
     assert "°C" not in axis_label("body_mass", ds.catalog, res.temperature)
     (d / "comparo.toml").write_text('reference_temperature_c = "operating"\n', encoding="utf-8")
