@@ -84,11 +84,20 @@ def test_heterotherm_kept_at_its_operating_temperature_normalised_away_from_it(t
     """A bumblebee (heterotherm, thorax 36 °C): flight at 36 °C is regulated and kept; a
     value at 28 °C (beyond the 2 K tolerance) is normalised like an ectotherm's; its per-row
     Q10 of 2.5 wins over the catalogue's. Standard Q10 rule (common practice)."""
-    r = rows(dataset(tmp_path))
+    d = dataset(tmp_path)
+    r = rows(d)
     assert r.loc["h2", "value_h"] == 150.0
     assert r.loc["h3", "value_h"] == pytest.approx(q10_rule(120, 28, 25, Q10_FREQ), rel=1e-12)
     assert r.loc["h4", "value_h"] == pytest.approx(q10_rule(80, 20, 25, 2.5), rel=1e-12)
     assert r.loc["h4", "q10_used"] == 2.5
+    from comparo.curate import review
+
+    p = review(d).problems
+    note = p[p["rule"] == "temperature-heterotherm"]
+    assert (
+        list(note["value"]) == ["28"]
+        and "away from its operating temperature 36" in note["message"].iat[0]
+    )
 
 
 def test_operating_reference_brings_each_taxon_to_its_own_temperature(tmp_path):
