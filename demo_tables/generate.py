@@ -44,7 +44,7 @@ The scenario is built tree first, as evolution would have it:
    the tree (crown age 30), body mass and frequency by the same laws (frequency
    30 Hz x M^-0.2 with the same residual structure, here at each animal's own
    operating temperature of 38-41.5 °C, given in taxa.csv), fiber radius; the
-   frequency is reported in vivo at the operating temperature (one 1 °C below
+   frequency is reported in vivo at the operating temperature (one species 1 °C below
    it). comparo keeps these values as measured (an endotherm's in-vivo values
    are not temperature-normalised) while the other clades' frequencies are
    normalised to 25 °C, so the report shows both treatments. No rates or moduli
