@@ -144,13 +144,17 @@ class Harmonised:
         (``used``/``merged``/``excluded``), ``merged_into`` and ``reason``.
     conflicts, unit_slips : list of dict
     reference_temperature_c : float or None
-        None when temperature normalisation is off.
+        The reference temperature in °C (with ``"operating"``, the fallback for taxa
+        without an operating temperature); None when temperature normalisation is off.
+    policy : comparo.thermal.TemperaturePolicy or None
+        The temperature settings applied; None when normalisation is off.
     """
 
     rows: pd.DataFrame
     conflicts: list[dict[str, Any]] = field(default_factory=list)
     unit_slips: list[dict[str, Any]] = field(default_factory=list)
     reference_temperature_c: float | None = None
+    policy: Any = None
 
 
 def _numbers_only(table: Any) -> dict[str, float]:
@@ -160,36 +164,148 @@ def _numbers_only(table: Any) -> dict[str, float]:
     return {k: float(v) for k, v in table.items() if isinstance(v, int | float) and not isinstance(v, bool)}
 
 
+def _thermal_columns(
+    ds: Dataset, accepted: pd.Series, with_groups: bool = False
+) -> tuple[np.ndarray, np.ndarray, list[dict[str, str]]]:
+    """Per observation row: the taxon's thermoregulation (text, '' when not given), its
+    operating temperature (°C, NaN when not given) and (*with_groups*) its taxa.csv
+    grouping values."""
+    groups = taxon_groups(ds)
+    if "taxon" not in groups or len(groups.columns) == 1:
+        n = len(accepted)
+        return np.full(n, "", dtype=object), np.full(n, np.nan), [{}] * n if with_groups else []
+    g = groups.set_index("taxon")
+    thermo = (
+        accepted.map(g["thermoregulation"]).fillna("").to_numpy(object)
+        if "thermoregulation" in g
+        else np.full(len(accepted), "", dtype=object)
+    )
+    t_op = (
+        pd.to_numeric(accepted.map(g["operating_temperature_c"]), errors="coerce").to_numpy(float)
+        if "operating_temperature_c" in g
+        else np.full(len(accepted), np.nan)
+    )
+    if not with_groups:
+        return thermo, t_op, []
+    rec = {
+        t: {c: ("" if pd.isna(v) else str(v)) for c, v in row.items()} for t, row in g.iterrows()
+    }
+    return thermo, t_op, [rec.get(a, {}) for a in accepted]
+
+
+def _rule_q10(policy, keys: pd.Series, groups: list[dict[str, str]]) -> np.ndarray:
+    """The Q10 of the last ``[[temperature.rule]]`` matching each row (NaN where none does)."""
+    out = np.full(len(keys), np.nan)
+    if not policy.rules:
+        return out
+    cache: dict[tuple, float] = {}
+    for i, (k, g) in enumerate(zip(keys, groups, strict=True)):
+        sig = (k, tuple(sorted(g.items())))
+        if sig not in cache:
+            cache[sig] = next((r.q10 for r in reversed(policy.rules) if r.matches(k, g)), np.nan)
+        out[i] = cache[sig]
+    return out
+
+
+def _temperature_columns(
+    ds: Dataset, obs: pd.DataFrame, temperature: bool
+) -> tuple[Any, dict[str, np.ndarray]]:
+    """The temperature policy of *ds* and the columns it adds to the observation rows
+    (``temperature_factor``, ``temperature_note``, ``temperature_rule``, ``value_temp_c``,
+    ``q10_used``, ``ea_kj_mol_used``); see :func:`harmonise`."""
+    from comparo.thermal import RULE_ARRHENIUS, RULE_KEPT, RULE_NONE, RULE_Q10, temperature_policy
+
+    cat, n = ds.catalog, len(obs)
+    keys = obs["quantity_key"]
+
+    def per_key(fn) -> np.ndarray:
+        known = map_distinct(keys, lambda k: bool(k) and k in cat and fn(cat[k]))
+        return known.to_numpy(dtype=bool)
+
+    ts = per_key(lambda q: q.temperature_sensitive)
+    is_time = per_key(lambda q: q.is_time)
+    is_freq = per_key(lambda q: q.kind == "frequency")
+    settings = ds.settings
+    policy = temperature_policy(settings)
+    q10_set = _numbers_only(settings.get("q10", {}))
+    ea_set = _numbers_only(settings.get("activation_energy_kj_mol", {}))
+    thermo, t_op, groups = _thermal_columns(ds, obs["accepted"], with_groups=bool(policy.rules))
+    q10 = map_distinct(
+        keys, lambda k: float(q10_set.get(k, cat[k].q10 or np.nan)) if k in cat else np.nan
+    ).to_numpy(dtype=float)
+    ea = map_distinct(keys, lambda k: float(ea_set.get(k, np.nan))).to_numpy(dtype=float)
+    row_q10 = obs["q10"].to_numpy(dtype=float)
+    specific = np.where(np.isfinite(row_q10), row_q10, _rule_q10(policy, keys, groups))
+    q10 = np.where(np.isfinite(specific), specific, q10)
+    ea = np.where(np.isfinite(specific), np.nan, ea)  # a row's own or a rule's Q10 wins over an Ea
+    t_meas = obs["temperature_c"].to_numpy(dtype=float)
+    t_ref = policy.reference_c
+    t_target = np.where(np.isfinite(t_op), t_op, t_ref) if policy.operating else np.full(n, t_ref)
+    prep = np.full(n, "", dtype=object)
+    if "preparation" in obs:
+        prep = obs["preparation"].fillna("").astype(str).to_numpy(object)
+    in_vivo = (prep == "in_vivo") | ((prep == "") & is_freq)
+    with np.errstate(invalid="ignore"):
+        at_op = np.isfinite(t_op) & (np.abs(t_meas - t_op) <= policy.heterotherm_tolerance_c)
+    regulated = in_vivo & ((thermo == "endotherm") | ((thermo == "heterotherm") & at_op))
+    keep = ts & np.isfinite(t_meas) & regulated & (policy.regulated_in_vivo == "as_measured")
+    factor = np.ones(n)
+    note = np.full(n, "", dtype=object)
+    rule = np.full(n, "", dtype=object)
+    value_temp = np.where(ts, t_meas, np.nan)
+    known = ts & np.isfinite(t_meas) & ~keep
+    if temperature:
+        factor = np.where(known, temperature_factor(t_meas, t_target, q10, ea, is_time), 1.0)
+        where = np.full(n, "", dtype=object)
+        if policy.operating:
+            where = np.where(np.isfinite(t_op), ", operating temperature",
+                             ", no operating_temperature_c: fallback")
+        note[known] = [
+            f"x{fa:.4g} ({'Arrhenius' if np.isfinite(e) else f'Q10 {q:g}'}, {t:g} -> {tt:g} °C{w})"
+            for fa, q, e, t, tt, w in zip(factor[known], q10[known], ea[known], t_meas[known],
+                                          t_target[known], where[known], strict=True)
+        ]
+        rule[known] = np.where(np.isfinite(ea[known]), RULE_ARRHENIUS, RULE_Q10)
+        note[keep] = [
+            f"kept as measured at {t:g} °C ({th}, in vivo"
+            + ("" if p else ", no preparation: a frequency counts as in vivo") + ")"
+            for t, th, p in zip(t_meas[keep], thermo[keep], prep[keep], strict=True)
+        ]
+        rule[keep] = RULE_KEPT
+        value_temp = np.where(known, t_target, value_temp)
+        none = ts & ~np.isfinite(t_meas)
+        note[none] = "no temperature: used un-normalised"
+        rule[none] = RULE_NONE
+    applied = known if temperature else np.zeros(n, dtype=bool)
+    return policy, {
+        "temperature_factor": factor, "temperature_note": note, "temperature_rule": rule,
+        "value_temp_c": value_temp, "q10_used": np.where(applied & ~np.isfinite(ea), q10, np.nan),
+        "ea_kj_mol_used": np.where(applied & np.isfinite(ea), ea, np.nan),
+    }
+
+
 def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool = True) -> Harmonised:
-    """Names, temperature, uncertainty, duplicates, slips and conflicts (see module doc)."""
-    cat = ds.catalog
+    """Names, temperature, uncertainty, duplicates, slips and conflicts (see module doc).
+
+    Temperature (docs/methods/temperature.md): a temperature-sensitive value with a
+    measurement temperature is brought to the target temperature (the reference, or with
+    ``reference_temperature_c = "operating"`` the taxon's ``operating_temperature_c``,
+    else the fallback) by its Q10 (per-row ``q10`` > the last matching
+    ``[[temperature.rule]]`` > ``[q10]`` > catalogue) or an activation energy; an in-vivo
+    value of an endotherm, or of a heterotherm measured within the tolerance of its
+    operating temperature, is kept as measured (unless ``regulated_in_vivo =
+    "normalise"``). A value without a preparation counts as in vivo when its quantity is
+    a frequency (what the animal does), as a preparation's otherwise. Rows gain
+    ``temperature_rule`` and ``value_temp_c`` (°C the harmonised value refers to).
+    """
     obs = ds.observations.copy()
     obs["accepted"] = accepted_names(ds)
     obs["u_h"] = standard_uncertainty(obs["uncertainty_canonical"], obs["uncertainty_kind"], obs["n"]).to_numpy()
     keys = obs["quantity_key"]
-    ts = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].temperature_sensitive).to_numpy(dtype=bool)
-    is_time = map_distinct(keys, lambda k: bool(k) and k in cat and cat[k].is_time).to_numpy(dtype=bool)
-    settings = ds.settings
-    q10_set = _numbers_only(settings.get("q10", {}))
-    ea_set = _numbers_only(settings.get("activation_energy_kj_mol", {}))
-    q10 = map_distinct(keys, lambda k: float(q10_set.get(k, cat[k].q10 or np.nan)) if k in cat else np.nan).to_numpy(dtype=float)
-    q10 = np.where(np.isfinite(obs["q10"].to_numpy(dtype=float)), obs["q10"].to_numpy(dtype=float), q10)
-    ea = map_distinct(keys, lambda k: float(ea_set.get(k, np.nan))).to_numpy(dtype=float)
-    t_meas = obs["temperature_c"].to_numpy(dtype=float)
-    t_ref = ds.reference_temperature_c
-    factor = np.ones(len(obs))
-    note = np.full(len(obs), "", dtype=object)
-    if temperature:
-        f = temperature_factor(t_meas, t_ref, q10, ea, is_time)
-        known = ts & np.isfinite(t_meas)
-        factor = np.where(known, f, 1.0)
-        note[known] = [f"x{fa:.4g} ({'Arrhenius' if np.isfinite(e) else f'Q10 {q:g}'}, {t:g} -> {t_ref:g} °C)" for fa, q, e, t in zip(factor[known], q10[known], ea[known], t_meas[known], strict=True)]
-        note[ts & ~np.isfinite(t_meas)] = "no temperature: used un-normalised"
-    obs["temperature_factor"] = factor
-    obs["temperature_note"] = note
-    applied = (ts & np.isfinite(t_meas)) if temperature else np.zeros(len(obs), dtype=bool)
-    obs["q10_used"] = np.where(applied & ~np.isfinite(ea), q10, np.nan)
-    obs["ea_kj_mol_used"] = np.where(applied & np.isfinite(ea), ea, np.nan)
+    policy, columns = _temperature_columns(ds, obs, temperature)
+    for name, col in columns.items():
+        obs[name] = col
+    factor = columns["temperature_factor"]
     with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         obs["value_h"] = obs["value_canonical"].to_numpy(dtype=float) * factor
         obs["u_h"] = obs["u_h"].to_numpy(dtype=float) * factor
@@ -216,7 +332,8 @@ def harmonise(ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool
         reason[d] = [f"duplicate of {m} (same source, locator, taxon, quantity, value)" for m in first_id[dup]]
     obs["status"], obs["reason"], obs["merged_into"] = status, reason, merged_into
 
-    h = Harmonised(obs, reference_temperature_c=t_ref if temperature else None)
+    h = Harmonised(obs, reference_temperature_c=policy.reference_c if temperature else None,
+                   policy=policy if temperature else None)
     h.unit_slips = find_unit_slips(obs, ds)
     if exclude_unit_slips:
         slip_ids = {s["obs_id"]: s for s in h.unit_slips}
@@ -273,6 +390,9 @@ def find_unit_slips(obs: pd.DataFrame, ds: Dataset) -> list[dict[str, Any]]:
     if df.empty:
         return []
     df["_lv"] = np.log10(df["value_h"].to_numpy(float))
+    from comparo.thermal import TAXA_TEMPERATURE_COLUMNS
+
+    gcols = [c for c in gcols if c not in TAXA_TEMPERATURE_COLUMNS]  # not groups of relatives
     if gcols:
         g = taxon_groups(ds).set_index("taxon")[gcols[0]]
         df["_g"] = df["accepted"].map(g).fillna("")
@@ -457,6 +577,7 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
         for i, (oid, row) in enumerate(zip(c["obs_ids"], c["rows"], strict=True)):
             others = "; ".join(describe_value(c, j) for j in range(len(c["obs_ids"])) if j != i)
             out.append(Problem("warning", file_of(oid), row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']}: {describe_value(c, i)} disagrees with {others}", "check both sources; the per-taxon value combines them"))
+    out += _temperature_notes(ds, h, file)
     for b in ("digitized", "proxy", "assumed"):
         for r in rows[rows["basis"] == b].itertuples():
             extra = f" (stands in from {r.proxy_taxon})" if b == "proxy" else ""
@@ -474,6 +595,101 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
 
 TRACE_ROWS_RULE = "trace-rows"  # the note of diagnostics() counting the rows computed from traces
 TRACE_ROWS_FILE = "traces.csv"
+def _temperature_notes(ds: Dataset, h: Harmonised, file: str) -> list[Problem]:
+    """Notes on the temperature policy for ``check`` (docs/methods/temperature.md): a taxon
+    brought to the fallback temperature for want of an operating temperature, a
+    heterotherm's in-vivo value normalised, a per-taxon value combining values that
+    refer to different temperatures."""
+    out: list[Problem] = []
+    rows = (
+        h.rows[(h.rows["status"] == "used") & (h.rows.get("temperature_rule", "") != "")]
+        if "temperature_rule" in h.rows
+        else h.rows.iloc[:0]
+    )
+    if h.policy is None or rows.empty:
+        return out
+    thermo, t_op, _ = _thermal_columns(ds, rows["accepted"])
+    normalised = rows["temperature_rule"].isin(["Q10", "Arrhenius"]).to_numpy(bool)
+    if h.policy.operating:
+        fb = normalised & ~np.isfinite(t_op)
+        for name, part in rows[fb].groupby("accepted", sort=True):
+            out.append(
+                Problem(
+                    "note",
+                    file,
+                    int(part["row"].iat[0]),
+                    "taxon",
+                    name,
+                    "temperature-fallback",
+                    f"{name} has no operating_temperature_c: its {len(part)} "
+                    "temperature-sensitive value(s) are "
+                    f"brought to the fallback {h.reference_temperature_c:g} °C",
+                    "give operating_temperature_c in taxa.csv",
+                )
+            )
+    prep = (
+        rows["preparation"].fillna("").astype(str).to_numpy(object)
+        if "preparation" in rows
+        else np.full(len(rows), "", dtype=object)
+    )
+    het = (
+        normalised
+        & (thermo == "heterotherm")
+        & (
+            (prep == "in_vivo")
+            | (
+                (prep == "")
+                & rows["quantity_key"]
+                .map(lambda k: ds.catalog[k].kind == "frequency")
+                .to_numpy(bool)
+            )
+        )
+    )
+    for r, op in zip(rows[het].itertuples(), t_op[het], strict=True):
+        why = (
+            "it has no operating_temperature_c"
+            if not np.isfinite(op)
+            else f"it was measured at {r.temperature_c:g} °C, away from its operating "
+            f"temperature {op:g} °C"
+        )
+        out.append(
+            Problem(
+                "note",
+                file,
+                int(r.row),
+                "temperature_c",
+                _cell(r.temperature_c),
+                "temperature-heterotherm",
+                f"{r.quantity_key} of heterotherm {r.accepted} is normalised like an "
+                f"ectotherm's: {why}",
+                f"the tolerance is {h.policy.heterotherm_tolerance_c:g} K "
+                "([temperature] heterotherm_tolerance_c)",
+            )
+        )
+    vt = pd.to_numeric(rows["value_temp_c"], errors="coerce")
+    spread = (
+        pd.DataFrame({"v": vt.to_numpy(float), "row": rows["row"].to_numpy()})
+        .groupby(
+            [rows["accepted"].to_numpy(object), rows["quantity_key"].to_numpy(object)], sort=True
+        )
+        .agg(min=("v", "min"), max=("v", "max"), row=("row", "first"))
+    )
+    for (name, q), r in spread[(spread["max"] - spread["min"]) > 0.5].iterrows():
+        out.append(
+            Problem(
+                "note",
+                file,
+                int(r["row"]),
+                "temperature_c",
+                f"{r['min']:g} to {r['max']:g}",
+                "temperature-mixed",
+                f"{q} of {name}: the per-taxon value combines values that refer to "
+                f"{r['min']:g} to {r['max']:g} °C "
+                f"(some kept as measured); {q}_temp_c is their mean",
+                'set regulated_in_vivo = "normalise" to bring them to one temperature',
+            )
+        )
+    return out
 
 
 def _cell(v) -> str:
@@ -647,7 +863,10 @@ def per_taxon(ds: Dataset, *, temperature: bool = True, aggregate: str | None = 
         out = out.merge(groups, on="taxon", how="left")
         for c in groups.columns[1:]:
             out[c] = out[c].fillna("")
-    if h.reference_temperature_c is not None:
+    if h.policy is not None and h.policy.operating:
+        _, t_op, _ = _thermal_columns(ds, out["taxon"])
+        out["temperature_c"] = np.where(np.isfinite(t_op), t_op, h.reference_temperature_c)
+    elif h.reference_temperature_c is not None:
         out["temperature_c"] = h.reference_temperature_c
     else:
         ts = used[map_distinct(used["quantity_key"], lambda k: k in cat and cat[k].temperature_sensitive)]
@@ -659,7 +878,10 @@ def per_taxon(ds: Dataset, *, temperature: bool = True, aggregate: str | None = 
         part = used[used["quantity_key"] == q]
         if part.empty:
             continue
-        blocks.append(_aggregate(part, q, how, rank))
+        block = _aggregate(part, q, how, rank)
+        if cat[q].temperature_sensitive:
+            block[f"{q}_temp_c"] = _temperature_of(part).reindex(block.index).to_numpy(float)
+        blocks.append(block)
     if blocks:
         wide = pd.concat(blocks, axis=1)
         out = out.merge(wide, left_on="taxon", right_index=True, how="left")
@@ -669,6 +891,7 @@ def per_taxon(ds: Dataset, *, temperature: bool = True, aggregate: str | None = 
             elif c.endswith(("_basis", "_obs")):
                 out[c] = out[c].fillna("")
     out.attrs["reference_temperature_c"] = h.reference_temperature_c
+    out.attrs["temperature"] = _temperature_record(used, cat, h)
     return out
 
 
@@ -719,3 +942,69 @@ def column_units(table: pd.DataFrame, catalog) -> pd.DataFrame:
                     meaning = "grouping column (taxa.csv)"
         rows.append({"column": col, "unit": "" if unit in ("1", "dimensionless") else unit, "meaning": meaning})
     return pd.DataFrame(rows, columns=["column", "unit", "meaning"])
+def _temperature_of(part: pd.DataFrame) -> pd.Series:
+    """°C each taxon's value of one quantity refers to: the mean over its values of the
+    temperature each refers to (the target where normalised, the measured temperature
+    where kept as measured, not normalised or computed from a trace); NaN where no value
+    has one. Values at different temperatures are combined as they are (the per-taxon
+    value then refers to their mean temperature; docs/methods/temperature.md)."""
+    vt = (
+        pd.to_numeric(part["value_temp_c"], errors="coerce")
+        if "value_temp_c" in part
+        else pd.Series(np.nan, index=part.index)
+    )
+    vt = vt.fillna(pd.to_numeric(part["temperature_c"], errors="coerce"))
+    return vt.groupby(part["accepted"].to_numpy(object)).mean()
+
+
+def _temperature_record(used: pd.DataFrame, cat, h: Harmonised) -> dict[str, Any]:
+    """``attrs["temperature"]`` of the per-taxon table: where values were brought (``to``)
+    and, per quantity and taxon, what happened to its temperature-sensitive values used:
+    ``(quantity, taxon, values, rescaled, lowest factor, highest factor, kept as measured,
+    without temperature)`` (factors over the rescaled values; ±inf when none). Read by
+    :func:`comparo.thermal.fit_temperature`."""
+    ts = used[
+        map_distinct(
+            used["quantity_key"], lambda k: k in cat and cat[k].temperature_sensitive
+        ).to_numpy(bool)
+    ]
+    rule = (
+        ts["temperature_rule"].fillna("").astype(str).to_numpy(object)
+        if "temperature_rule" in ts
+        else np.full(len(ts), "", dtype=object)
+    )
+    if h.policy is None:
+        treat = np.full(len(ts), "off", dtype=object)
+    else:
+        treat = np.select(
+            [(rule == "Q10") | (rule == "Arrhenius"), rule == "as measured", rule == "none"],
+            ["normalised", "kept", "none"],
+            "measured",
+        )
+    f = ts["temperature_factor"].to_numpy(float)
+    norm = (treat == "normalised") & (f != 1.0)
+    part = pd.DataFrame(
+        {
+            "q": ts["quantity_key"].to_numpy(object),
+            "t": ts["accepted"].to_numpy(object),
+            "n": np.ones(len(ts), dtype=int),
+            "rescaled": norm.astype(int),
+            "fmin": np.where(norm, f, np.inf),
+            "fmax": np.where(norm, f, -np.inf),
+            "kept": (treat == "kept").astype(int),
+            "none": (treat == "none").astype(int),
+        }
+    )
+    agg = part.groupby(["q", "t"], sort=False).agg(
+        n=("n", "sum"),
+        rescaled=("rescaled", "sum"),
+        fmin=("fmin", "min"),
+        fmax=("fmax", "max"),
+        kept=("kept", "sum"),
+        none=("none", "sum"),
+    )
+    recs = tuple(
+        (q, t, int(r.n), int(r.rescaled), float(r.fmin), float(r.fmax), int(r.kept), int(r.none))
+        for (q, t), r in zip(agg.index, agg.itertuples(index=False), strict=True)
+    )
+    return {"to": h.policy.target_text if h.policy is not None else "off", "values": recs}

@@ -146,6 +146,11 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
                 if meta[2]:
                     f["unit"] = meta[2]
                 fields.append(f)
+            elif col.endswith("_temp_c") and col[: -len("_temp_c")] in cat:
+                key = col[: -len("_temp_c")]
+                fields.append({"name": col, "type": "number", "unit": "degC",
+                               "description": f"Temperature the value of {key} refers to "
+                                              "(the target where normalised, else as measured)."})
             elif col == "temperature_c":
                 fields.append({"name": col, "type": "number", "unit": "degC", "description": "Temperature the temperature-sensitive values refer to."})
             else:

@@ -38,7 +38,8 @@ from comparo.wide import (
 NOT_STATED = "not stated"  # locator written when the wide table gives none
 STUB_CITATION = "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"  # check warns (citation-stub)
 LONG_COLUMNS = ("obs_id", "taxon", "quantity", "value", "unit", "uncertainty", "uncertainty_kind", "n", "source_id",
-                "locator", "basis", "temperature_c", "preparation", "muscle", "notes", "entered_by", "entered_on")
+                "locator", "basis", "temperature_c", "preparation", "muscle", "notes", "entered_by", "entered_on",
+                "q10")
 _EMPTY_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
 _PLAIN = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
 _THOUSANDS_SPACE = re.compile(r"^[-+]?\d{1,3}([ \u00a0\u202f\u2009]\d{3})+([.,]\d+)?$")
@@ -245,13 +246,21 @@ def _number_problem(grid: Grid, c: Column, i: int, v: Any, msg: str, hint: str) 
     return Problem("error", grid.file, grid.row_numbers[i], c.header, str(v)[:60], "not-a-number", f"cell {coord} is {msg}", hint)
 
 
-def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False, plus_minus: str | None = None) -> _Long:
+def to_long(
+    grid: Grid,
+    columns: list[Column],
+    decimal_comma: bool = False,
+    plus_minus: str | None = None,
+    catalog: Catalog | None = None,
+) -> _Long:
     """One long-format record per filled trait cell (see the module docstring). With
     *plus_minus* (one of :data:`PLUS_MINUS_KINDS`), a trait cell ``12.5 ± 0.3`` is the value
     12.5 with the uncertainty 0.3 of that kind."""
     from comparo import units
 
     out = _Long()
+    cat = catalog if catalog is not None else load_catalog()
+    rates = {k for k in cat if cat[k].temperature_sensitive}
     by_role: dict[str, list[Column]] = {}
     for c in columns:
         by_role.setdefault(c.role, []).append(c)
@@ -347,7 +356,7 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False, plus
                 rec["temperature_c"] = temp
                 origin["temperature_c"] = (single["temperature"].header, grid.coordinate(i, single["temperature"].index), rownum)
             for k, v in copies.items():
-                if k != "basis" and v:
+                if k != "basis" and v and (k != "q10" or c.key in rates):  # Q10: rates only
                     rec[k] = v
             note = f"imported from {grid.file} cell {coord}"
             rec["notes"] = f"{note}; {copies['notes']}" if copies.get("notes") else note
@@ -628,7 +637,7 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
         if written:
             more.append(Problem("note", grid.file, None, None, None, "map-file-written", written))
         raise InputError(more)
-    long = to_long(grid, columns, decimal_comma, plus_minus)
+    long = to_long(grid, columns, decimal_comma, plus_minus, catalog)
     src_table, src_name, src_bytes, stubs, sprobs = _sources(src, [r["source_id"] for r in long.records], grid)
     problems = long.problems + sprobs
     if not long.records and not problems:

@@ -35,7 +35,7 @@ SETTINGS_NAME = "comparo.toml"
 SETTINGS_KEYS = {
     "reference_temperature_c", "q10", "derive", "quantities", "ratios", "analysis",
     "aggregate", "conflict_factor", "temperature_model", "activation_energy_kj_mol",
-    "title", "seed", "header_synonyms",
+    "title", "seed", "header_synonyms", "temperature",
 }
 
 MAX_CELL = 10_000  # characters; longer cells are an error (pasted garbage)
@@ -590,8 +590,12 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
         if key not in SETTINGS_KEYS:
             probs.append(_err(file, "settings-key", f"unknown setting {key!r} (ignored)", f"known settings: {', '.join(sorted(SETTINGS_KEYS))}", column=key, severity="warning"))
     t = settings.get("reference_temperature_c")
-    if t is not None and (not isinstance(t, int | float) or isinstance(t, bool) or not -5 <= t <= 60):
-        probs.append(_err(file, "settings-value", "reference_temperature_c must be a number of degrees Celsius between -5 and 60", column="reference_temperature_c", value=str(t)))
+    number = isinstance(t, int | float) and not isinstance(t, bool)
+    if t is not None and t != "operating" and (not number or not -5 <= t <= 60):
+        probs.append(_err(file, "settings-value",
+                          "reference_temperature_c must be a number of degrees Celsius "
+                          "between -5 and 60, or \"operating\" (each taxon's operating_temperature_c in taxa.csv)",
+                          column="reference_temperature_c", value=str(t)))
     return settings, probs
 
 

@@ -85,9 +85,16 @@ def render(fig: Figure) -> tuple[bytes, bytes]:
     return png.getvalue(), svg.getvalue()
 
 
-def axis_label(key: str, catalog: Mapping[str, Any] | None) -> str:
+def axis_label(key: str, catalog: Mapping[str, Any] | None,
+               temperature: Mapping[str, Any] | None = None) -> str:
     """``Label (unit)`` from the catalogue, else from the derived keys (schema/derived.toml);
-    a column of a plain table (no catalogue) is named as it is, ``(unit as in the table)``."""
+    a column of a plain table (no catalogue) is named as it is, ``(unit as in the table)``.
+
+    With *temperature* (a fit's ``temperature``, :func:`comparo.thermal.fit_temperature`),
+    a temperature-sensitive quantity says the temperature its values refer to: ``at 25 °C``,
+    ``at operating temperature`` or ``at measured temperature`` (normalisation off), and
+    when endotherms (or heterotherms at their operating temperature) kept in-vivo values as
+    measured, that those are at body temperature."""
     from comparo.units import pretty
 
     q = catalog.get(key) if catalog is not None else None
@@ -100,7 +107,13 @@ def axis_label(key: str, catalog: Mapping[str, Any] | None) -> str:
         if spec is None or spec.get("unit") is None:
             return f"{key} (unit as in the table)"
         label, unit = spec.get("label", key), pretty(spec["unit"])
-    return f"{label} ({'dimensionless' if unit in ('1', 'dimensionless') else unit})"
+    text = f"{label} ({'dimensionless' if unit in ('1', 'dimensionless') else unit})"
+    if temperature and q is not None and q.temperature_sensitive:
+        to = temperature.get("to")
+        text += " at measured temperature" if to == "off" else f" at {to}"
+        if to != "off" and temperature.get("kept_as_measured"):
+            text += "\n(endotherms in vivo: at body temperature)"
+    return text
 
 
 def weakest_basis(*bases: str) -> str:
@@ -266,8 +279,8 @@ def draw_scaling(ax: Any, fit: Any, points: pd.DataFrame, *, catalog: Mapping[st
     if fit.log != "none":
         ax.set_xscale("log")
         ax.set_yscale("log")
-    ax.set_xlabel(axis_label(fit.x, catalog))
-    ax.set_ylabel(axis_label(fit.y, catalog))
+    ax.set_xlabel(axis_label(fit.x, catalog, getattr(fit, "temperature", None)))
+    ax.set_ylabel(axis_label(fit.y, catalog, getattr(fit, "temperature", None)))
     ax.set_title(title or f"{fit.method.upper()}: {fit.y} against {fit.x} (n = {fit.n})", loc="left")
     plain_log_ticks(ax)
     flagged = {o["label"] for o in fit.outliers}

@@ -184,6 +184,9 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
         "reference_temperature_c": h.reference_temperature_c,
         "normalised": int((ts["temperature_factor"] != 1.0).sum()) if h.reference_temperature_c is not None else 0,
         "without_temperature": ts.loc[ts["temperature_note"].str.startswith("no temperature"), "obs_id"].tolist(),
+        "kept_as_measured": ts.loc[ts["temperature_note"].str.startswith("kept as measured"),
+                                   "obs_id"].tolist(),
+        "to": h.policy.target_text if h.policy is not None else None,
     }
     return AuditReport(
         rows_read=len(rows),
@@ -225,7 +228,8 @@ def temperature_rules(harmonised: Harmonised) -> pd.DataFrame:
     """How each temperature-sensitive quantity was brought to the reference temperature.
 
     One row per quantity and rule applied: ``quantity_key``, ``reference_temperature_c``
-    (°C), ``rule`` (``Q10``, ``Arrhenius`` or ``none``: no temperature given, or
+    (°C), ``rule`` (``Q10``, ``Arrhenius``, ``as measured``: an endotherm's in-vivo value,
+    or a heterotherm's at its operating temperature, or ``none``: no temperature given, or
     normalisation off), ``q10`` (dimensionless), ``ea_kj_mol`` (kJ/mol), ``rows`` (observation
     rows used or merged), ``factor_min`` and ``factor_max`` (the temperature factors applied,
     dimensionless). Rows that were excluded are not counted.
@@ -239,6 +243,9 @@ def temperature_rules(harmonised: Harmonised) -> pd.DataFrame:
         return pd.DataFrame(columns=cols)
     q10, ea = rows["q10_used"].to_numpy(float), rows["ea_kj_mol_used"].to_numpy(float)
     rule = np.where(np.isfinite(ea), "Arrhenius", np.where(np.isfinite(q10), "Q10", "none"))
+    if "temperature_rule" in rows:  # "as measured": an endotherm's in-vivo value
+        given = rows["temperature_rule"].fillna("").astype(str).to_numpy(object)
+        rule = np.where(given != "", given, rule)
     part = pd.DataFrame({"quantity_key": rows["quantity_key"].to_numpy(), "rule": rule, "q10": q10, "ea_kj_mol": ea,
                          "factor": rows["temperature_factor"].to_numpy(float)})
     out = (part.groupby(["quantity_key", "rule", "q10", "ea_kj_mol"], dropna=False, sort=True)["factor"]

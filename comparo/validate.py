@@ -27,6 +27,7 @@ from comparo.catalog import Catalog, load_catalog, read_schema
 from comparo.errors import InputError, Problem, problems_frame, problems_from_frame
 from comparo.io import RawDataset, RawTable, cell_coordinates, read_folder
 from comparo.synonyms import resolve_synonyms
+from comparo.thermal import temperature_policy, temperature_settings_problems
 
 BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
 _MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
@@ -625,6 +626,7 @@ RESERVED_OBSERVATION_COLUMNS = frozenset({
     "row", "quantity_key", "value_canonical", "uncertainty_canonical", "unit_canonical", "basis_effective",
     "problem", "accepted", "u_h", "value_h", "temperature_factor", "temperature_note", "status", "reason",
     "merged_into", "value_harmonised", "u_standard", "q10_used", "ea_kj_mol_used",
+    "temperature_rule", "value_temp_c",
 })
 # Columns of the per-taxon table that are not quantities (a taxa.csv grouping column is copied into it).
 RESERVED_TAXA_COLUMNS = frozenset({"temperature_c", "accepted", "own"})
@@ -705,8 +707,16 @@ class Dataset:
 
     @property
     def reference_temperature_c(self) -> float:
-        """Reference temperature in °C for normalising rates (settings, default 25)."""
-        return float(self.settings.get("reference_temperature_c", 25.0))
+        """Reference temperature in °C for normalising rates (settings, default 25; with
+        ``reference_temperature_c = "operating"``, the fallback for taxa without an
+        operating temperature, ``[temperature] fallback_c``)."""
+        return temperature_policy(self.settings).reference_c
+
+    @property
+    def temperature_target(self) -> str:
+        """What temperature-sensitive values are brought to: ``"25 °C"`` or
+        ``"operating temperature"``."""
+        return temperature_policy(self.settings).target_text
 
 
 
@@ -725,6 +735,8 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
         problems += problems_from_frame(exc.problems)
         catalog = load_catalog()
     problems += _settings_problems(raw.settings, catalog)
+    taxa_frame = raw.taxa.frame if raw.taxa is not None else None
+    problems += temperature_settings_problems(raw.settings, catalog, taxa_frame)
     if raw.observations is None or raw.sources is None:
         return None, cell_coordinates(raw, problems)
     problems += reserved_column_problems(raw, catalog)

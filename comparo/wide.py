@@ -31,7 +31,7 @@ from comparo.io import MAX_CELL, decode_bytes, exception_reason, nfc
 UNCERTAINTY_ROLES = ("sd", "se", "ci95", "range_half")
 ROLES = ("value", *UNCERTAINTY_ROLES, "n", "source", "locator", "taxon", "temperature", "taxa", "column", "ignore")
 # long-format columns a wide column may be copied into, one value per wide row
-COPY_COLUMNS = ("preparation", "muscle", "notes", "basis", "entered_by", "entered_on")
+COPY_COLUMNS = ("preparation", "muscle", "notes", "basis", "entered_by", "entered_on", "q10")
 BASES = ("reported", "computed", "digitized", "proxy", "assumed")
 MAP_COLUMNS = ("header", "role", "key", "unit", "basis", "candidates")
 
@@ -266,6 +266,10 @@ for _role, _key, _names in (
     ("n", "", "n|sample size|n individuals|number of individuals"),
     ("taxa", "accepted_name", "accepted name|accepted"),
     ("taxa", "tree_label", "tree label|tip label"),
+    ("taxa", "thermoregulation", "thermoregulation|thermal strategy"),
+    ("taxa", "operating_temperature_c",
+     "operating temperature|operating temperature c|body temperature|thoracic temperature"),
+    ("column", "q10", "q10|q 10"),
     ("column", "preparation", "preparation|prep"),
     ("column", "muscle", "muscle|tissue"),
     ("column", "notes", "notes|note|comment|comments|remarks"),

@@ -38,13 +38,26 @@ The scenario is built tree first, as evolution would have it:
    and unevenly across clades (some groups are little studied). Each source works
    on one or two clades.
 
-5. **Traces.** Three work loops and two strain cycles (``traces.csv`` and
+5. **Warm-bodied taxa.** A seventh clade of five endotherms (*Calorfict-*, from
+   calor, heat), added by :func:`make_endotherms` from its own seeded stream so
+   every other number of the demo is unchanged: a third lineage at the root of
+   the tree (crown age 30), body mass and frequency by the same laws (frequency
+   30 Hz x M^-0.2 with the same residual structure, here at each animal's own
+   operating temperature of 38-41.5 °C, given in taxa.csv), fiber radius; the
+   frequency is reported in vivo at the operating temperature (one species 1 °C below
+   it). comparo keeps these values as measured (an endotherm's in-vivo values
+   are not temperature-normalised) while the other clades' frequencies are
+   normalised to 25 °C, so the report shows both treatments. No rates or moduli
+   are given for them: their bounds would be at 25 °C and their frequencies at
+   body temperature (docs/methods/temperature.md).
+
+6. **Traces.** Three work loops and two strain cycles (``traces.csv`` and
    ``trace_*.csv``), with the muscle masses and one odd modulus they rely on, are
    drawn from their own seeded stream (:func:`make_traces`), so adding them left
    every other number of the demo as it was.
 
-The true (generating) values per taxon are written to ``truth.csv``
-(:func:`truth_rows`); reported values scatter around them as their stated
+The true (generating) values per taxon of the six ectotherm clades are written to
+``truth.csv`` (:func:`truth_rows`); reported values scatter around them as their stated
 uncertainties say. Rates and frequencies are reported at measurement
 temperatures of 10-35 °C (true values at 25 °C scaled with Q10 = 2.5 for rates,
 2.0 for frequencies); units are mixed as in real compilations.
@@ -88,6 +101,11 @@ EPITHETS = [
 Q10 = {"attach_rate": 2.5, "detach_rate": 2.5, "kinetic_time": 2.5, "frequency_observed": 2.0}
 T_REF = 25.0
 TREE_DEPTH = 100.0
+# the warm-bodied clade (invented): its own stream, so the rest of the demo is unchanged
+ENDO_SEED = (SEED, 29)
+ENDO_CLADE, ENDO_STEM = "Calorfictia", "Calorfict"
+ENDO_SPECIES = (("ella", 3), ("opsis", 2))  # genus ending, species in it
+ENDO_CROWN = 30.0
 # the generating scaling laws (log10 units) and the residual structure of frequency
 FREQ_EXPONENT, FREQ_AT_1KG = -0.2, 30.0  # Hz
 FREQ_BM_SD, FREQ_WHITE_SD = 0.10, 0.05  # tip standard deviations of the residual (log10)
@@ -424,6 +442,13 @@ def make(rng: np.random.Generator) -> dict[str, str]:
                  "source_id": a_row["source_id"], "locator": a_row["locator"], "basis": "computed",
                  "inputs": f"{a_row['obs_id']};{d_row['obs_id']}", "temperature_c": a_row.get("temperature_c", ""),
                  "notes": "1/(f+g) from the two rate rows", "entered_by": "demo generator", "entered_on": "2026-12-01"})
+    endo = make_endotherms(root)
+    for r in endo.rows:
+        r["obs_id"] = f"OBS{counter + 1:04d}"
+        counter += 1
+        r.setdefault("entered_by", "demo generator")
+        r.setdefault("entered_on", "2026-12-01")
+    rows.extend(endo.rows)
     trace_files, trace_rows = make_traces(w)
     rows.extend(trace_rows)
     # a synonym: one taxon reported under an older name in one source
@@ -439,14 +464,19 @@ def make(rng: np.random.Generator) -> dict[str, str]:
     obs_lines = [",".join(columns)] + [",".join(cell(r.get(c, "")) for c in columns) for r in rows]
 
     # --- taxa table and tree --------------------------------------------------------------
-    taxa = ["taxon,accepted_name,tree_label,clade,genus"]
+    taxa = ["taxon,accepted_name,tree_label,clade,genus,thermoregulation,operating_temperature_c"]
     for name, genus, clade in zip(names, genera, clades, strict=True):
-        taxa.append(f"{name},,{name.replace(' ', '_')},{clade},{genus}")
-    taxa.append(f"{old_name},{syn_target},,{clades[5]},{genera[5]}")
+        taxa.append(f"{name},,{name.replace(' ', '_')},{clade},{genus},ectotherm,")
+    taxa.append(f"{old_name},{syn_target},,{clades[5]},{genera[5]},ectotherm,")
+    for name, genus, t_op in zip(endo.names, endo.genera, endo.t_op, strict=True):
+        taxa.append(f"{name},,{name.replace(' ', '_')},{ENDO_CLADE},{genus},endotherm,{t_op:g}")
     tree_text = newick(root) + ";"
 
     settings = f"""# Settings of the synthetic demo compilation (all invented data; see demo_tables/generate.py)
 title = "Synthetic cyclers: an invented compilation for the comparo demo"
+# rates and frequencies are normalised to this temperature, except the in-vivo values of the
+# endotherms (thermoregulation in taxa.csv), which stay at their body temperature;
+# reference_temperature_c = "operating" would bring every taxon to its own operating temperature
 reference_temperature_c = {T_REF}
 
 [q10]
@@ -482,12 +512,17 @@ Every taxon, clade, source and number in this folder is INVENTED by
 measurement, and no conclusion about real animals can be drawn from it.
 The planted curation faults are listed in the generator's docstring.
 
-`truth.csv` holds the invented generating values per taxon (true values at
-25 °C before measurement noise: frequency, fiber radius, d10, transverse
+`truth.csv` holds the invented generating values per taxon of the six
+ectotherm clades (true values at 25 °C before measurement noise: frequency, fiber radius, d10, transverse
 modulus, rates, and the poroelastic and kinetic times, their ratio, the
 frequency bounds and the limiting process they imply). It is not part of the
 compilation (comparo does not read it); it lets a user check how well
 `comparo derive` recovers a known answer.
+
+The clade Calorfictia holds five invented endotherms (taxa.csv gives their
+thermoregulation and operating temperature): their in-vivo frequencies are
+reported at body temperature and comparo keeps them as measured, while the
+other clades' frequencies are normalised to 25 °C.
 
 `traces.csv` and the `trace_*.csv` files are invented oscillation traces (three
 work loops, two strain cycles) for `comparo cycles`; their generating phase lags
@@ -505,6 +540,65 @@ and loop openings are in the notes column of `traces.csv`.
     }
 
 
+
+
+@dataclass
+class Endotherms:
+    """The warm-bodied clade: names, genera, operating temperatures (°C) and its rows."""
+
+    names: list[str]
+    genera: list[str]
+    t_op: list[float]
+    rows: list[dict[str, str]]
+
+
+def make_endotherms(root: Node) -> Endotherms:
+    """Five invented endotherms in a clade of their own, joined to the tree at its root.
+
+    Drawn from their own stream (:data:`ENDO_SEED`): log10 body mass is Brownian along the
+    new lineage from the root value -2 (tip sd 2.2 decades, as the other clades);
+    frequency 30 Hz x M^-0.2 x 10^(e) with the same residual (Brownian tip sd 0.10 plus
+    independent sd 0.05), read as the frequency at the animal's operating temperature
+    (38-41.5 °C); fiber radius 25 µm x M^0.08 (Brownian residual). Reported: body mass,
+    fiber radius and the in-vivo frequency at the operating temperature (the last species
+    1 °C below it). The root gains a third child (a basal trichotomy); the tree stays
+    ultrametric. All invented.
+    """
+    rng = np.random.default_rng(list(ENDO_SEED))
+    genus_nodes, names, genera = [], [], []
+    for ending, k in ENDO_SPECIES:
+        genus = ENDO_STEM + ending
+        epithets = [EPITHETS[i] for i in rng.choice(len(EPITHETS), k, replace=False)]
+        tips = [Node(0.0, label=f"{genus}_{e}") for e in epithets]
+        genus_nodes.append(random_subtree(rng, tips, float(rng.uniform(2.0, 6.0))))
+    clade = random_subtree(rng, genus_nodes, ENDO_CROWN)
+    bm = brownian(rng, Node(TREE_DEPTH, [clade]), [2.2, FREQ_BM_SD, 0.05])
+    root.children.append(clade)
+    for tip in tips_of(clade):
+        names.append(tip.label.replace("_", " "))
+        genera.append(tip.label.split("_")[0])
+    n = len(names)
+    logm = -2.0 + bm[:, 0]
+    freq = FREQ_AT_1KG * 10 ** (FREQ_EXPONENT * logm + bm[:, 1] + rng.normal(0.0, FREQ_WHITE_SD, n))
+    radius = 25.0 * 10 ** (0.08 * logm + bm[:, 2])
+    t_op = [round(float(t) * 2) / 2 for t in rng.uniform(38.0, 41.5, n)]
+    rows = []
+    for i, name in enumerate(names):
+        src_mass, src_morph, src_freq = "SYN21", "SYN02", ("SYN18", "SYN19")[i % 2]
+        rows.append({"taxon": name, "quantity": "body_mass", "value": g(10 ** logm[i], 4), "unit": "kg",
+                     "source_id": src_mass, "locator": "Table 4", "basis": "reported", "n": str(int(rng.integers(3, 30)))})
+        r = radius[i] * 10 ** rng.normal(0, 0.02)
+        rows.append({"taxon": name, "quantity": "fiber_radius", "value": g(r, 3), "unit": "um", "source_id": src_morph,
+                     "locator": "Table 5", "basis": "reported", "uncertainty": g(0.05 * r, 2), "uncertainty_kind": "se",
+                     "n": str(int(rng.integers(5, 40)))})
+        t = t_op[i] - (1.0 if i == n - 1 else 0.0)
+        n_f = int(rng.integers(3, 25))
+        fo = freq[i] * Q10["frequency_observed"] ** ((t - t_op[i]) / 10.0) * (1.0 + 0.08 / np.sqrt(n_f) * rng.normal())
+        rows.append({"taxon": name, "quantity": "frequency_observed", "value": g(fo, 3), "unit": "Hz", "source_id": src_freq,
+                     "locator": "Table 6", "basis": "reported", "temperature_c": g(t, 3), "preparation": "in_vivo",
+                     "uncertainty": g(0.08 * fo, 2), "uncertainty_kind": "sd", "n": str(n_f),
+                     "notes": "in vivo at body temperature"})
+    return Endotherms(names, genera, t_op, rows)
 
 
 TRACE_SEED = (SEED, 17)  # the traces draw from their own stream, so the rest of the demo is unchanged

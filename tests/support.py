@@ -27,6 +27,15 @@ VALID_ROWS = [
 SOURCES = "source_id,citation,year,doi\ns1,Invented A. (2001) Test source one,2001,10.1000/abc\ns2,Invented B. (2002) Test source two,2002,\n"
 
 
+def demo_taxa() -> int:
+    """Accepted taxa of the demo compilation, counted from its taxa.csv (a row whose
+    accepted_name is blank is an accepted taxon; a filled one is a synonym)."""
+    import csv
+
+    with open(DEMO / "taxa.csv", newline="", encoding="utf-8") as fh:
+        return sum(1 for r in csv.DictReader(fh) if not r["accepted_name"])
+
+
 def write_dataset(folder: Path, rows: list[str] | None = None, header: str = OBS_HEADER, sources: str = SOURCES, name: str = "observations.csv") -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     (folder / name).write_text(header + "\n" + "\n".join(VALID_ROWS if rows is None else rows) + "\n", encoding="utf-8")

@@ -39,6 +39,8 @@ FORBIDDEN = {
     "newick": ABOVE_READ,
     # synonym chains and cycles: a part of validation
     "synonyms": ABOVE_READ,
+    # the temperature policy (settings, their check, a fit's summary): a part of validation
+    "thermal": ABOVE_READ,
     # the curator's spreadsheets: read and validate, never analyse
     "wide": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
     "importer": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),

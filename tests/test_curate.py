@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from support import SOURCES, run_main, write_dataset
+from support import SOURCES, demo_taxa, run_main, write_dataset
 
 import comparo
 from comparo.curate import harmonise, per_taxon
@@ -204,7 +204,7 @@ def test_demo_audit_finds_every_planted_fault():
     assert rep.basis_shares["lattice_spacing_d10"].get("proxy", 0) > 0
     assert rep.basis_shares["frequency_observed"].get("digitized", 0) > 0
     assert "DEMO-NOTEMP" in rep.rows_missing_temperature
-    assert len(comparo.per_taxon(comparo.load(DEMO))) == len(rep.coverage) == 60
+    assert len(comparo.per_taxon(comparo.load(DEMO))) == len(rep.coverage) == demo_taxa()
     assert set(rep.trust.values()) <= {"firm", "read-off", "borrowed", "contested", "sparse"}
 
 

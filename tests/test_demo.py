@@ -9,7 +9,7 @@ import subprocess
 import sys
 
 import pytest
-from support import DEMO, ROOT, run_cli, tree_hash
+from support import DEMO, ROOT, demo_taxa, run_cli, tree_hash
 
 
 def _rows(folder):
@@ -22,6 +22,16 @@ def _row_of(folder, obs_id):
     return next(i + 2 for i, r in enumerate(_rows(folder)) if r["obs_id"] == obs_id)
 
 
+def _generator():
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location("demo_generate", ROOT / "demo_tables" / "generate.py")
+    mod = importlib.util.module_from_spec(spec)
+    sys.modules.setdefault("demo_generate", mod)  # its dataclasses look their module up
+    spec.loader.exec_module(sys.modules["demo_generate"])
+    return sys.modules["demo_generate"]
+
+
 def test_generator_recreates_files_byte_for_byte(tmp_path):
     proc = subprocess.run([sys.executable, str(ROOT / "demo_tables" / "generate.py"), "-o", str(tmp_path / "g")], capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr
@@ -32,7 +42,8 @@ def test_generator_recreates_files_byte_for_byte(tmp_path):
 def test_demo_scenario_shape():
     rows = _rows(DEMO)
     taxa = {r["taxon"] for r in rows}
-    assert 55 <= len(taxa) <= 65
+    gen = _generator()  # 60 ectotherm species, the warm-bodied clade and one older synonym
+    assert len(taxa) == gen.N_TAXA + sum(k for _, k in gen.ENDO_SPECIES) + 1 == demo_taxa() + 1
     sources = {r["source_id"] for r in rows}
     assert 20 <= len(sources) <= 25
     with open(DEMO / "sources.csv", encoding="utf-8") as fh:
@@ -159,7 +170,7 @@ def test_demo_has_gaps_like_a_real_compilation():
 
     tab = comparo.per_taxon(comparo.load(DEMO))
     have = tab.notna()
-    assert len(tab) == 60
+    assert len(tab) == demo_taxa()
     for q in ("attach_rate", "transverse_modulus", "lattice_spacing_d10"):
         assert have[q].sum() < have["frequency_observed"].sum() <= have["body_mass"].sum() + 1
     by_clade = have.groupby(tab["clade"])["attach_rate"].mean()

@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from support import DEMO, run_main, tree_hash, write_dataset
+from support import DEMO, demo_taxa, run_main, tree_hash, write_dataset
 
 from comparo.cli import main
 from comparo.errors import InputError
@@ -175,7 +175,7 @@ def test_cli_leaves_the_dataset_untouched_and_writes_csv(demo_copy, tmp_path):
     assert tree_hash(demo_copy) == before
     with open(target, newline="", encoding="utf-8") as fh:
         rows = list(csv.DictReader(fh))
-    assert len(rows) == 60
+    assert len(rows) == demo_taxa()
     cols = set(rows[0])
     for key in ("poroelastic_time", "kinetic_time", "poro_kinetic_ratio", "frequency_ratio"):
         for sfx in ("", "_u", "_basis", "_obs", "_method", "_missing", "_mc_median", "_mc_lo95", "_mc_hi95",

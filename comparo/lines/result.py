@@ -66,6 +66,11 @@ class FitResult:
         ``{"rule", "message", ...}`` per caution (:mod:`comparo.lines.cautions`):
         ``few_taxa`` (``n``, ``minimum``, ``group``) and ``weak_correlation``
         (``r``, ``threshold``). In the JSON as ``cautions`` when there is one.
+    temperature : dict or None
+        What the temperature harmonisation did to the values behind the fitted taxa
+        (:func:`comparo.thermal.fit_temperature`: ``to``, ``values``, ``rescaled``,
+        ``factor_min``, ``factor_max``, ``kept_as_measured``, ``without_temperature``,
+        ``option``); None for a table that is not a comparo per-taxon table.
     """
 
     method: str
@@ -95,13 +100,14 @@ class FitResult:
     notes: tuple[str, ...] = ()
     refit_without_flagged: FlaggedRefit | None = None
     cautions: tuple[dict, ...] = ()
+    temperature: dict | None = None
 
     def to_dict(self) -> dict:
         """JSON-safe dict with the keys of the ``fit --format json`` contract.
 
-        ``group_tests`` (with ``by``), ``bootstrap`` (with resampling) and
-        ``refit_without_flagged`` (with ``drop_flagged``) are added only when
-        they were computed.
+        ``group_tests`` (with ``by``), ``bootstrap`` (with resampling),
+        ``refit_without_flagged`` (with ``drop_flagged``) and ``temperature`` (a fit
+        of a comparo per-taxon table) are added only when they were computed.
         """
         out = {
             "method": self.method,
@@ -135,6 +141,8 @@ class FitResult:
             out["phylo"] = _json(self.phylo)
         if self.refit_without_flagged is not None:
             out["refit_without_flagged"] = self.refit_without_flagged.to_dict()
+        if self.temperature is not None:
+            out["temperature"] = _json(self.temperature)
         return out
 
     @classmethod
@@ -283,6 +291,11 @@ class FitResult:
             lines.append(f"  excluded ({len(self.excluded)}):")
             lines += [f"    {e['label']}: {e['reason']}" for e in self.excluded]
         lines += [f"  note: {s}" for s in self.notes]
+        if self.temperature:
+            from comparo.thermal import fit_temperature_text
+
+            text = fit_temperature_text(self.temperature)
+            lines += [f"  {text}"] if text else []
         if self.refit_without_flagged is not None:
             lines.append(self.refit_without_flagged.summary(self))
         return "\n".join(lines)

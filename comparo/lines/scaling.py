@@ -116,7 +116,10 @@ def fit(
     against = check_finite(renamed_against(pgls_options, against), "the slope to test against")
     log = _check_options(method, log, ci, bootstrap)
     if method == "pgls":
-        return _pgls(table, x, y, log, ci, against, taxon_col, by, bootstrap, breakpoint, drop_flagged, pgls_options)
+        return _with_temperature(
+            _pgls(table, x, y, log, ci, against, taxon_col, by, bootstrap, breakpoint, drop_flagged,
+                  pgls_options),
+            table, taxon_col)
     if pgls_options:
         raise UsageError(f"options {', '.join(sorted(pgls_options))} apply only to method pgls")
 
@@ -146,14 +149,29 @@ def fit(
             table, flags.flags, rules, rows_used, core.slope,
             dict(x=x, y=y, method=method, by=by, against=against, ci=ci, log=log, bootstrap=bootstrap, seed=seed,
                  taxon_col=taxon_col, breakpoint=breakpoint, progress=progress))
-    return FitResult(
+    return _with_temperature(FitResult(
         method=method, x=x, y=y, log=log, n=len(X), slope=core.slope, slope_ci=core.slope_ci, intercept=core.intercept,
         intercept_ci=core.intercept_ci, r2=core.r2, ci_level=float(ci), against=core.test,
         groups=group_rows, group_tests=group_tests, outliers=[f.to_dict() for f in flags.flags], excluded=excluded,
         breakpoint=bp, bootstrap=boot, points=_points(X, Y, labels, groups if by else None, core),
         notes=tuple(notes), refit_without_flagged=refit,
         cautions=fit_cautions(method, len(X), X, Y, group_rows),
-    )
+    ), table, taxon_col)
+
+
+def _with_temperature(res: FitResult, table: pd.DataFrame, taxon_col: str) -> FitResult:
+    """*res* with ``temperature``: what the harmonisation did to the temperature-sensitive
+    values behind the fitted taxa (:func:`comparo.thermal.fit_temperature`; None for a
+    table that is not a comparo per-taxon table)."""
+    from dataclasses import replace
+
+    from comparo.thermal import fit_temperature
+
+    if taxon_col not in table:
+        return res
+    left_out = {str(e.get("label")) for e in res.excluded}
+    labels = [t for t in table[taxon_col].astype(str) if t not in left_out]
+    return replace(res, temperature=fit_temperature(table, (res.x, res.y), labels, taxon_col))
 
 
 def _check_options(method: str, log: Any, ci: float, bootstrap: int) -> str:

@@ -50,6 +50,8 @@ def _row(label: str, o, taxon_value, oid: str) -> dict:
         rule = f"×{fmt.num(factor)} (Arrhenius, {ea:g} kJ/mol)"
     elif str(o["temperature_note"]).startswith("no temperature"):
         rule = "none: no temperature given"
+    elif str(o["temperature_note"]).startswith("kept as measured"):
+        rule = "none: in vivo at body temperature, kept as measured"
     else:
         rule = ""
     return {"taxon": label, "quantity": o["quantity_key"], "reported": f"{float(o['value']):.15g} {o['unit']}",

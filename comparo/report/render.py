@@ -145,7 +145,9 @@ def temperature_view(h, ds, temperature: bool) -> dict:
     frame = frame[["quantity", "rule", "rows", "factor_min", "factor_max"]].rename(
         columns={"factor_min": "factor (lowest)", "factor_max": "factor (highest)"})
     return {"off": False, "ref": ds.reference_temperature_c, "frame": frame,
-            "ref_default": "reference_temperature_c" not in (ds.settings or {})}
+            "ref_default": "reference_temperature_c" not in (ds.settings or {}),
+            "operating": h.policy is not None and h.policy.operating,
+            "kept": int((frame["rule"].str.startswith("as measured")).sum()) if len(frame) else 0}
 
 
 def _rule_words(r) -> str:
@@ -153,6 +155,8 @@ def _rule_words(r) -> str:
         return f"Q10 = {r.q10:g}"
     if r.rule == "Arrhenius":
         return f"Arrhenius, activation energy {r.ea_kj_mol:g} kJ/mol"
+    if r.rule == "as measured":
+        return "as measured (in vivo, endotherm or heterotherm at its operating temperature)"
     return "none (no measurement temperature)"
 
 
