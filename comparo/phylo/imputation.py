@@ -161,6 +161,8 @@ class Imputation:
         Pagel's lambda used (ML, or as given).
     lambda_estimated : bool
         True when lambda was estimated by ML.
+    lambda_ci : (float, float) or None
+        Profile-likelihood 95% interval of lambda (when estimated).
     sigma2 : float
         BM rate by REML, (log10 units)² per branch-length unit.
     root_log_value : float
@@ -186,6 +188,7 @@ class Imputation:
     unit: str
     lambda_: float
     lambda_estimated: bool
+    lambda_ci: tuple[float, float] | None
     sigma2: float
     root_log_value: float
     taxa: tuple[str, ...]
@@ -239,10 +242,11 @@ class Imputation:
         })
 
     def _notes(self) -> list[str]:
-        how = "ML" if self.lambda_estimated else "given"
+        ci = self.lambda_ci
+        how = f"ML, 95% profile interval [{ci[0]:.3g}, {ci[1]:.3g}]" if ci else "given"
         notes = [
-            f"Pagel's lambda = {self.lambda_:.4g} ({how}); BM rate sigma² = {self.sigma2:.4g} "
-            "(REML, log10 units² per branch-length unit)",
+            f"Pagel's lambda = {self.lambda_:.4g} ({how})",
+            f"BM rate sigma² = {self.sigma2:.4g} (REML, log10 units² per branch-length unit)",
             f"root (GLS) = {self.root_log_value:.4g} log10 {self.unit}",
             f"leave-one-out check over {self.n_observed} observed taxa: RMSE = {self.rmse_log:.3g} "
             f"log10 units (a factor {10 ** self.rmse_log:.3g}),",
@@ -302,7 +306,8 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
 
     Returns a dict of numpy arrays in the order of ``tips`` (every tip of the tree):
     ``tips``, ``observed``, ``log_value``, ``log_se``, ``loo_log_value``, ``loo_log_se``,
-    and the numbers ``lambda``, ``lambda_estimated``, ``sigma2``, ``root``, ``t`` (the
+    and ``lambda``, ``lambda_estimated``, ``lambda_ci``, ``sigma2``, ``root`` (GLS, from
+    the engine), ``root_passes`` (the same from the passes), ``t`` (the
     Student t quantile of the 95% intervals, n_observed - 1 degrees of freedom).
     """
     from comparo.phylo.likelihood import _fit_lambda
@@ -335,7 +340,7 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
         "tips": ft.tips, "observed": obs, "log_value": log_value,
         "log_se": np.where(obs, np.nan, se), "loo_log_value": np.where(obs, pred.mean, np.nan),
         "loo_log_se": np.where(obs, se, np.nan), "lambda": lam, "lambda_estimated": lam_arg == "ml",
-        "sigma2": s2, "root": mu, "root_passes": pred.root_mean,
+        "lambda_ci": lf.ci, "sigma2": s2, "root": mu, "root_passes": pred.root_mean,
         "t": t_quantile(n_o - 1, 0.5 + PI_LEVEL / 2),
     }
 
@@ -393,19 +398,19 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
                          "and needs positive values")
     topo = _as_topo(ds.tree)
     labels = dataset_tree_labels(ds.taxa, topo.tips)
-    match = _match(topo, sorted(set(table["taxon"].astype(str))), labels)
+    match = _match(topo, sorted(set(table["taxon"].astype(str).tolist())), labels)
     tip_of = match.tip_of
     name_of = {tip: acc for acc, tip in labels.items()}  # taxa.csv rows naming tips
     name_of.update({tip: lab for lab, tip in tip_of.items()})
-    value_of = dict(zip(vals["taxon"].astype(str), vals[y].astype(float), strict=True))
-    u_col = vals[f"{y}_u"] if f"{y}_u" in vals else np.full(len(vals), np.nan)
-    u_of = dict(zip(vals["taxon"].astype(str), np.asarray(u_col, dtype=float), strict=True))
+    taxa = vals["taxon"].astype(str).tolist()
+    value_of = dict(zip(taxa, vals[y].to_numpy(dtype=float).tolist(), strict=True))
+    u_col = vals[f"{y}_u"].to_numpy(dtype=float) if f"{y}_u" in vals else np.full(len(vals), np.nan)
+    u_of = dict(zip(taxa, u_col.tolist(), strict=True))
     logs = {tip_of[t]: math.log10(v) for t, v in value_of.items() if t in tip_of}
     without = tuple(sorted(t for t in value_of if t not in tip_of))
     r = impute_tree(topo, logs, lambda_)
     all_names = [name_of.get(tip, tip) for tip in r["tips"]]
-    order = sorted(range(len(all_names)), key=lambda i: (not r["observed"][i], all_names[i]))
-    idx = np.array(order, dtype=np.int64)
+    idx = np.lexsort((np.array(all_names, dtype=str), ~r["observed"]))  # observed first, by name
     names = [all_names[i] for i in idx]
     obs = r["observed"][idx]
     lv = r["log_value"][idx]
@@ -426,6 +431,7 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
     rmse = float(np.sqrt(np.mean(resid**2)))
     coverage = float(np.mean(np.abs(resid) <= tq * loo_se[obs]))
     return Imputation(
-        y, entry.unit, r["lambda"], r["lambda_estimated"], r["sigma2"], r["root"], tuple(names),
+        y, entry.unit, r["lambda"], r["lambda_estimated"], r["lambda_ci"], r["sigma2"], r["root"],
+        tuple(names),
         obs, lv, se, value, lo, hi, loo, loo_se, rmse, coverage, without,
     )
