@@ -48,7 +48,8 @@ def test_json_contract_and_the_api_answer_alike(insects):
     r = run_main("impute", str(insects), "--y", "body_mass", "--format", "json")
     assert r.returncode == 0, r.stderr
     d = json.loads(r.stdout)
-    assert list(d) == ["quantity", "lambda", "with", "n_observed", "n_imputed", "taxa", "cross_validation"]
+    assert list(d) == ["quantity", "lambda", "with", "n_observed", "n_imputed", "taxa",
+                       "cross_validation"]
     assert d["quantity"] == "body_mass" and d["with"] == []
     assert (d["n_observed"], d["n_imputed"]) == (8, 3)
     assert set(d["cross_validation"]) == {"rmse_log", "coverage"}
@@ -56,7 +57,8 @@ def test_json_contract_and_the_api_answer_alike(insects):
         assert list(row) == ["taxon", "observed", "value", "log_value", "log_se", "pi"]
     by = {row["taxon"]: row for row in d["taxa"]}
     # tips without observations are imputed too (Aedes_aegypti: no row at all, named by its tip)
-    assert {t for t, row in by.items() if not row["observed"]} == {"Aedes_aegypti", "Anax junius", "Manduca sexta"}
+    imputed = {t for t, row in by.items() if not row["observed"]}
+    assert imputed == {"Aedes_aegypti", "Anax junius", "Manduca sexta"}
     apis = by["Apis mellifera"]
     assert apis["value"] == pytest.approx(1e-4) and apis["pi"] is None
     # observed log_se: SD 5 mg over n = 4 is a standard uncertainty of 2.5 mg on 100 mg; on
@@ -101,7 +103,7 @@ def test_text_and_csv(insects, tmp_path):
     r = run_main("impute", str(insects), "--y", "body_mass")
     assert r.returncode == 0, r.stderr
     assert "8 observed, 3 imputed" in r.stdout and "leave-one-out" in r.stdout
-    assert "Bombyx mori" in r.stdout  # a taxon with a value and no tip is named, not dropped silently
+    assert "Bombyx mori" in r.stdout  # a taxon with a value and no tip is named, not dropped
     assert "Aedes_aegypti" in r.stdout and "95% prediction interval" in r.stdout
     out = tmp_path / "imp.csv"
     r = run_main("impute", str(insects), "--y", "body_mass", "--format", "csv", "-o", str(out))
@@ -109,7 +111,8 @@ def test_text_and_csv(insects, tmp_path):
     import pandas as pd
 
     frame = pd.read_csv(out)
-    assert list(frame.columns[:7]) == ["taxon", "observed", "value", "log_value", "log_se", "pi_low", "pi_high"]
+    assert list(frame.columns[:7]) == ["taxon", "observed", "value", "log_value", "log_se",
+                                       "pi_low", "pi_high"]
     assert len(frame) == 11 and frame["observed"].sum() == 8
     assert frame.loc[frame["observed"], "loo_log_value"].notna().all()
     html = comparo.impute(str(insects), "body_mass", lambda_=0.5)._repr_html_()
@@ -133,3 +136,20 @@ def test_no_tree_exits_2(insects):
     (insects / "tree.nwk").unlink()
     r = run_main("impute", str(insects), "--y", "body_mass")
     assert r.returncode == 2 and "needs a tree" in r.stderr
+
+
+def test_a_quantity_that_can_be_negative_is_refused(insects):
+    toml = '[quantities.shift]\nunit = "dimensionless"\nkind = "fraction"\nrange = [-1, 1]\n'
+    (insects / "comparo.toml").write_text(toml, encoding="utf-8")
+    r = run_main("impute", str(insects), "--y", "shift")
+    assert r.returncode == 2 and "can be negative" in r.stderr and "log10" in r.stderr, r.stderr
+
+
+def test_a_tip_without_observations_is_named_by_its_taxa_row(insects):
+    """taxa.csv maps a taxon with no observation to a tip (tree_label): the imputed tip carries
+    that taxon's name, not the tip label."""
+    taxa = "taxon,accepted_name,tree_label\nCulex pipiens,,Aedes_aegypti\n"
+    (insects / "taxa.csv").write_text(taxa, encoding="utf-8")
+    d = json.loads(run_main("impute", str(insects), "--y", "body_mass", "--format", "json").stdout)
+    imputed = {row["taxon"] for row in d["taxa"] if not row["observed"]}
+    assert imputed == {"Culex pipiens", "Anax junius", "Manduca sexta"}
