@@ -39,6 +39,8 @@ _API = {
     "tree_signal": "comparo.phylo",
     "read_tree": "comparo.phylo",
     "cycles": "comparo.traces",
+    "impute": "comparo.phylo.imputation",
+    "Imputation": "comparo.phylo.imputation",
 }
 
 __all__ = sorted(_API) + ["__version__"]

@@ -122,6 +122,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=["text", "json", "csv"], default="text", help="output format")
     _temperature_arg(p)
 
+    p = sub.add_parser("impute", help="predict a quantity for the tips of the tree without it, "
+                                      "from relatives (BM, Pagel's lambda), leave-one-out checked")
+    _dataset_arg(p)
+    p.add_argument("--y", required=True, metavar="QUANTITY",
+                   help="catalogue key of a positive quantity (imputed on log10)")
+    p.add_argument("--lambda", dest="lambda_", default="ml", metavar="ml|VALUE",
+                   help="Pagel's lambda: 'ml' (default) or a value in [0, 1]")
+    p.add_argument("--format", choices=["text", "csv", "json"], default="text",
+                   help="output format (default text)")
+    _output_arg(p)
+
     p = sub.add_parser("cycles", help="strain cycles and work loops reduced from the traces of a dataset (traces.csv)")
     _dataset_arg(p)
     p.add_argument("--format", choices=["text", "json", "csv"], default="text", help="output format (default text)")
