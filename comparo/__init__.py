@@ -39,6 +39,8 @@ _API = {
     "tree_signal": "comparo.phylo",
     "read_tree": "comparo.phylo",
     "cycles": "comparo.traces",
+    "diff": "comparo.versions",
+    "VersionDiff": "comparo.versions",
 }
 
 __all__ = sorted(_API) + ["__version__"]
