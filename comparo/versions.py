@@ -20,11 +20,19 @@ from comparo.jsonsafe import finite_or_none, json_safe
 #: change such as 12 um -> 0.012 mm leaves rounding of this order).
 SAME_RTOL = 1e-9
 #: Columns of the validated observation frame that are computed, not typed by the curator.
-_COMPUTED = ("row", "quantity_key", "value_canonical", "uncertainty_canonical", "unit_canonical",
-             "basis_effective", "problem")
+_COMPUTED = (
+    "row",
+    "quantity_key",
+    "value_canonical",
+    "uncertainty_canonical",
+    "unit_canonical",
+    "basis_effective",
+    "problem",
+)
 
 
 # --------------------------------------------------------------------------- small helpers
+
 
 def _plain(v: Any) -> Any:
     """A cell as a JSON value: missing -> None, numbers as float/int, text as text."""
@@ -60,13 +68,23 @@ def _load(x: Any):
 
 # --------------------------------------------------------------------------- rows
 
+
 def _content_key(obs) -> Any:
     """taxon, quantity, source, locator (case and spaces ignored) and the value in canonical
     units to 6 significant digits: how a row whose obs_id changed is found again."""
     v6 = obs["value_canonical"].map(lambda v: f"{v:.6g}" if v == v else "")
     loc = obs["locator"].astype(str).str.lower().str.replace(r"\s+", "", regex=True)
-    return (obs["taxon"].astype(str) + "\x1f" + obs["quantity_key"].astype(str) + "\x1f"
-            + obs["source_id"].astype(str) + "\x1f" + loc + "\x1f" + v6)
+    return (
+        obs["taxon"].astype(str)
+        + "\x1f"
+        + obs["quantity_key"].astype(str)
+        + "\x1f"
+        + obs["source_id"].astype(str)
+        + "\x1f"
+        + loc
+        + "\x1f"
+        + v6
+    )
 
 
 def _column_changes(o, n, columns: list[str]) -> list[tuple[int, int, dict]]:
@@ -77,11 +95,19 @@ def _column_changes(o, n, columns: list[str]) -> list[tuple[int, int, dict]]:
     out: list[tuple[int, int, dict]] = []
     if len(o) == 0:
         return out
-    same_value = np.array([_same_number(a, b) for a, b in zip(o["value_canonical"], n["value_canonical"],
-                                                                strict=True)])
-    same_value &= (o["quantity_key"].to_numpy(object) == n["quantity_key"].to_numpy(object))
-    same_u = np.array([_same_number(a, b) for a, b in zip(o["uncertainty_canonical"], n["uncertainty_canonical"],
-                                                            strict=True)])
+    same_value = np.array(
+        [
+            _same_number(a, b)
+            for a, b in zip(o["value_canonical"], n["value_canonical"], strict=True)
+        ]
+    )
+    same_value &= o["quantity_key"].to_numpy(object) == n["quantity_key"].to_numpy(object)
+    same_u = np.array(
+        [
+            _same_number(a, b)
+            for a, b in zip(o["uncertainty_canonical"], n["uncertainty_canonical"], strict=True)
+        ]
+    )
     pos = n["_pos"].to_numpy(int)
     ids = n["obs_id"].to_numpy(object)
     for j, c in enumerate(columns):
@@ -102,8 +128,19 @@ def _column_changes(o, n, columns: list[str]) -> list[tuple[int, int, dict]]:
                 kind = "unit_only"
             elif c == "obs_id":
                 kind = "id_changed"
-            out.append((int(pos[i]), j, {"obs_id": ids[i], "column": c, "old": _plain(a.iloc[i]),
-                                         "new": _plain(b.iloc[i]), "kind": kind}))
+            out.append(
+                (
+                    int(pos[i]),
+                    j,
+                    {
+                        "obs_id": ids[i],
+                        "column": c,
+                        "old": _plain(a.iloc[i]),
+                        "new": _plain(b.iloc[i]),
+                        "kind": kind,
+                    },
+                )
+            )
     return out
 
 
@@ -121,7 +158,9 @@ def row_changes(old, new) -> dict[str, list]:
     o = old.observations.assign(_pos=range(len(old.observations)))
     n = new.observations.assign(_pos=range(len(new.observations)))
     skip = {*_COMPUTED, "_pos"}
-    columns = ["obs_id"] + [c for c in dict.fromkeys([*o.columns, *n.columns]) if c not in skip and c != "obs_id"]
+    columns = ["obs_id"] + [
+        c for c in dict.fromkeys([*o.columns, *n.columns]) if c not in skip and c != "obs_id"
+    ]
     old_ids, new_ids = set(o["obs_id"]), set(n["obs_id"])
     gone = o[~o["obs_id"].isin(new_ids)]
     came = n[~n["obs_id"].isin(old_ids)]
@@ -150,40 +189,64 @@ def row_changes(old, new) -> dict[str, list]:
     na = pd.concat(n_rows, ignore_index=True)
     changes = _column_changes(oa, na, columns)
     changes.sort(key=lambda t: (t[0], t[1]))
-    return {"added": [str(x) for x in added], "removed": [str(x) for x in removed],
-            "changed": [c for _, _, c in changes]}
+    return {
+        "added": [str(x) for x in added],
+        "removed": [str(x) for x in removed],
+        "changed": [c for _, _, c in changes],
+    }
 
 
 # --------------------------------------------------------------------------- sources, names, tree
 
+
 def source_changes(old, new) -> dict[str, list]:
     """Sources added, removed and changed (each changed column of sources.csv, by source_id)."""
+
     def table(ds) -> dict[str, dict[str, Any]]:
         s = ds.sources
         return {str(r["source_id"]): r for r in s.to_dict("records")} if s is not None else {}
 
     a, b = table(old), table(new)
-    cols = [c for c in dict.fromkeys([*(old.sources.columns if old.sources is not None else []),
-                                      *(new.sources.columns if new.sources is not None else [])])
-            if c not in ("source_id", "row")]
+    cols = [
+        c
+        for c in dict.fromkeys(
+            [
+                *(old.sources.columns if old.sources is not None else []),
+                *(new.sources.columns if new.sources is not None else []),
+            ]
+        )
+        if c not in ("source_id", "row")
+    ]
     changed = []
     for sid in b:
         if sid not in a:
             continue
         for c in cols:
             va, vb = _plain(a[sid].get(c)), _plain(b[sid].get(c))
-            if isinstance(va, int | float) and isinstance(vb, int | float) and float(va) == float(vb):
+            if (
+                isinstance(va, int | float)
+                and isinstance(vb, int | float)
+                and float(va) == float(vb)
+            ):
                 continue
             if va != vb:
                 changed.append({"source_id": sid, "column": c, "old": va, "new": vb})
-    return {"added": [s for s in b if s not in a], "removed": [s for s in a if s not in b], "changed": changed}
+    return {
+        "added": [s for s in b if s not in a],
+        "removed": [s for s in a if s not in b],
+        "changed": changed,
+    }
 
 
 def _synonyms(ds) -> dict[str, str]:
     t = ds.taxa
     if t is None or "accepted_name" not in t or "taxon" not in t:
         return {}
-    return {str(x): str(y) for x, y in zip(t["taxon"], t["accepted_name"], strict=True) if y and str(y) != str(x)}
+    return {
+        str(x): str(y)
+        for x, y in zip(t["taxon"], t["accepted_name"], strict=True)
+        if y and str(y) != str(x)
+    }
 
 
 def name_changes(old, new, old_table, new_table) -> dict[str, list]:
@@ -195,7 +258,9 @@ def name_changes(old, new, old_table, new_table) -> dict[str, list]:
     renamed = [{"old": t, "new": syn[t]} for t in a if t not in sb and syn.get(t) in sb]
     gone_by_rename = {r["old"] for r in renamed}
     came_by_rename = {r["new"] for r in renamed if r["new"] not in sa}
-    cols = [c for c in old_table.columns if c in new_table.columns and c in _group_columns(old, new)]
+    cols = [
+        c for c in old_table.columns if c in new_table.columns and c in _group_columns(old, new)
+    ]
     regrouped = []
     if cols:
         ga, gb = old_table.set_index("taxon"), new_table.set_index("taxon")
@@ -206,9 +271,12 @@ def name_changes(old, new, old_table, new_table) -> dict[str, list]:
                 va, vb = _plain(ga.at[t, c]), _plain(gb.at[t, c])
                 if va != vb:
                     regrouped.append({"taxon": t, "column": c, "old": va, "new": vb})
-    return {"added": [t for t in b if t not in sa and t not in came_by_rename],
-            "removed": [t for t in a if t not in sb and t not in gone_by_rename],
-            "renamed": renamed, "regrouped": regrouped}
+    return {
+        "added": [t for t in b if t not in sa and t not in came_by_rename],
+        "removed": [t for t in a if t not in sb and t not in gone_by_rename],
+        "renamed": renamed,
+        "regrouped": regrouped,
+    }
 
 
 def _group_columns(old, new) -> set[str]:
@@ -224,11 +292,15 @@ def tree_changes(old, new) -> dict[str, Any]:
     ta = list(tip_labels(old.tree)) if old.tree is not None else []
     tb = list(tip_labels(new.tree)) if new.tree is not None else []
     text = ["".join((ds.tree_text or "").split()) for ds in (old, new)]
-    return {"tips_added": [t for t in tb if t not in set(ta)], "tips_dropped": [t for t in ta if t not in set(tb)],
-            "text_changed": text[0] != text[1]}
+    return {
+        "tips_added": [t for t in tb if t not in set(ta)],
+        "tips_dropped": [t for t in ta if t not in set(tb)],
+        "text_changed": text[0] != text[1],
+    }
 
 
 # --------------------------------------------------------------------------- per-taxon values
+
 
 def value_changes(old_table, new_table, renamed: dict[str, str], catalog=None) -> list[dict]:
     """Every per-taxon value (canonical unit) that moved: ``{"taxon", "quantity", "unit", "old",
@@ -253,11 +325,14 @@ def value_changes(old_table, new_table, renamed: dict[str, str], catalog=None) -
             if None not in (vo, vn, uo, un) and (uo > 0 or un > 0):
                 se = (vn - vo) / math.hypot(uo, un)
             unit = catalog[q].unit if catalog is not None and q in catalog else None
-            out.append({"taxon": t, "quantity": q, "unit": unit, "old": vo, "new": vn, "change_se": se})
+            out.append(
+                {"taxon": t, "quantity": q, "unit": unit, "old": vo, "new": vn, "change_se": se}
+            )
     return out
 
 
 # --------------------------------------------------------------------------- conclusions
+
 
 def _analysis_name(a: dict) -> str:
     by = f"_by_{a['by']}" if a.get("by") else ""
@@ -318,8 +393,16 @@ def _run_fit(ds, data, a: dict, seed: int) -> tuple[Any, str | None]:
     if a["x"] not in data or a["y"] not in data:
         return None, f"no column {a['x'] if a['x'] not in data else a['y']!r} in this version"
     try:
-        res = fit(data, a["x"], a["y"], method, by=a.get("by"), against=a.get("against", a.get("test_slope")),
-                  seed=seed, **opts)
+        res = fit(
+            data,
+            a["x"],
+            a["y"],
+            method,
+            by=a.get("by"),
+            against=a.get("against", a.get("test_slope")),
+            seed=seed,
+            **opts,
+        )
     except ComparoError as exc:
         return None, str(exc)
     return res, None
@@ -332,14 +415,23 @@ def analysis_changes(old, new, data_old, data_new, seed: int) -> list[dict]:
 
     todo = {_analysis_name(a): a for a in [*_declared(old), *_declared(new)]}
     if not todo:
-        todo = {_analysis_name(a): dict(a) for a in DEFAULT_ANALYSES
-                if (a["x"] in data_old and a["y"] in data_old) or (a["x"] in data_new and a["y"] in data_new)}
+        todo = {
+            _analysis_name(a): dict(a)
+            for a in DEFAULT_ANALYSES
+            if (a["x"] in data_old and a["y"] in data_old)
+            or (a["x"] in data_new and a["y"] in data_new)
+        }
     out = []
     for name, a in todo.items():
         tested = a.get("against", a.get("test_slope"))
         tested = 0.0 if tested is None else float(tested)
-        rec: dict[str, Any] = {"name": name, "x": a["x"], "y": a["y"], "method": a.get("method", "sma"),
-                               "tested_value": tested}
+        rec: dict[str, Any] = {
+            "name": name,
+            "x": a["x"],
+            "y": a["y"],
+            "method": a.get("method", "sma"),
+            "tested_value": tested,
+        }
         se = {}
         for side, ds, data in (("old", old, data_old), ("new", new, data_new)):
             res, err = _run_fit(ds, data, a, seed)
@@ -355,25 +447,37 @@ def analysis_changes(old, new, data_old, data_new, seed: int) -> list[dict]:
         if None not in (so, sn, se["old"], se["new"]) and math.hypot(se["old"], se["new"]) > 0:
             rec["shift_se"] = (sn - so) / math.hypot(se["old"], se["new"])
         rec["verdict_changed"] = rec["verdict_old"] != rec["verdict_new"]
-        rec["changed"] = (not _same_number(so, sn) or rec["ci_old"] != rec["ci_new"]
-                          or rec["n_old"] != rec["n_new"] or rec["verdict_changed"])
+        rec["changed"] = (
+            not _same_number(so, sn)
+            or rec["ci_old"] != rec["ci_new"]
+            or rec["n_old"] != rec["n_new"]
+            or rec["verdict_changed"]
+        )
         out.append(rec)
     return out
 
 
 def regime_changes(data_old, data_new, renamed: dict[str, str]) -> list[dict]:
     """Taxa whose regime (kinetic, hydraulic, undetermined) differs between the versions."""
+
     def regimes(data, rename) -> dict[str, Any]:
         if "regime" not in data:
             return {}
-        return {rename.get(t, t): (r if isinstance(r, str) and r else None)
-                for t, r in zip(data["taxon"], data["regime"], strict=True)}
+        return {
+            rename.get(t, t): (r if isinstance(r, str) and r else None)
+            for t, r in zip(data["taxon"], data["regime"], strict=True)
+        }
 
     a, b = regimes(data_old, renamed), regimes(data_new, {})
-    return [{"taxon": t, "old": a.get(t), "new": b.get(t)} for t in dict.fromkeys([*b, *a]) if a.get(t) != b.get(t)]
+    return [
+        {"taxon": t, "old": a.get(t), "new": b.get(t)}
+        for t in dict.fromkeys([*b, *a])
+        if a.get(t) != b.get(t)
+    ]
 
 
 # --------------------------------------------------------------------------- the result
+
 
 @dataclass(frozen=True)
 class VersionDiff:
@@ -398,36 +502,74 @@ class VersionDiff:
     @property
     def differs(self) -> bool:
         """True when anything at all differs (``comparo diff`` exits 1)."""
-        lists = [*self.rows.values(), *self.sources.values(), *self.names.values(),
-                 self.tree.get("tips_added", []), self.tree.get("tips_dropped", []), self.taxa, self.regimes]
-        return (any(len(x) for x in lists) or bool(self.tree.get("text_changed")) or self.settings_changed
-                or any(a["changed"] for a in self.analyses))
+        lists = [
+            *self.rows.values(),
+            *self.sources.values(),
+            *self.names.values(),
+            self.tree.get("tips_added", []),
+            self.tree.get("tips_dropped", []),
+            self.taxa,
+            self.regimes,
+        ]
+        return (
+            any(len(x) for x in lists)
+            or bool(self.tree.get("text_changed"))
+            or self.settings_changed
+            or any(a["changed"] for a in self.analyses)
+        )
 
     def to_dict(self) -> dict:
         """JSON-safe dict (the ``comparo diff --format json`` contract)."""
-        return json_safe({"old": self.old, "new": self.new, "differs": self.differs,
-                          "analyses": list(self.analyses), "regimes": list(self.regimes),
-                          "rows": self.rows, "sources": self.sources, "names": self.names, "tree": self.tree,
-                          "settings_changed": self.settings_changed, "taxa": list(self.taxa)})
+        return json_safe(
+            {
+                "old": self.old,
+                "new": self.new,
+                "differs": self.differs,
+                "analyses": list(self.analyses),
+                "regimes": list(self.regimes),
+                "rows": self.rows,
+                "sources": self.sources,
+                "names": self.names,
+                "tree": self.tree,
+                "settings_changed": self.settings_changed,
+                "taxa": list(self.taxa),
+            }
+        )
 
     def to_frame(self):
         """Every difference as one long table: section, item, column, old, new, note."""
         import pandas as pd
 
-        return pd.DataFrame(self._records(), columns=["section", "item", "column", "old", "new", "note"])
+        return pd.DataFrame(
+            self._records(), columns=["section", "item", "column", "old", "new", "note"]
+        )
 
     def _records(self) -> list[dict]:
         recs: list[dict] = []
 
         def add(section, item, column=None, old=None, new=None, note=None):
-            recs.append({"section": section, "item": item, "column": column, "old": old, "new": new, "note": note})
+            recs.append(
+                {
+                    "section": section,
+                    "item": item,
+                    "column": column,
+                    "old": old,
+                    "new": new,
+                    "note": note,
+                }
+            )
 
         for a in self.analyses:
             if a["changed"]:
                 note = f"shift {a['shift_se']:.2f} SE" if a["shift_se"] is not None else ""
                 if a["verdict_changed"]:
-                    note += f"; verdict against {a['tested_value']:g}: {a['verdict_old']} -> {a['verdict_new']}"
-                add("analysis", a["name"], "slope", a["slope_old"], a["slope_new"], note.strip("; "))
+                    note += (
+                        f"; verdict against {a['tested_value']:g}: "
+                        f"{a['verdict_old']} -> {a['verdict_new']}"
+                    )
+                add(
+                    "analysis", a["name"], "slope", a["slope_old"], a["slope_new"], note.strip("; ")
+                )
         for r in self.regimes:
             add("regime", r["taxon"], "regime", r["old"], r["new"])
         for x in self.rows.get("removed", []):
@@ -452,13 +594,22 @@ class VersionDiff:
             add("tree", t, note="tip dropped")
         for t in self.tree.get("tips_added", []):
             add("tree", t, note="tip added")
-        if self.tree.get("text_changed") and not (self.tree.get("tips_added") or self.tree.get("tips_dropped")):
+        if self.tree.get("text_changed") and not (
+            self.tree.get("tips_added") or self.tree.get("tips_dropped")
+        ):
             add("tree", "", note="same tips, shape or branch lengths changed")
         if self.settings_changed:
             add("settings", "comparo.toml", note="changed")
         for v in self.taxa:
             se = "" if v["change_se"] is None else f"{v['change_se']:+.2f} SE"
-            add("values", v["taxon"], v["quantity"], v["old"], v["new"], f"{v['unit'] or ''} {se}".strip())
+            add(
+                "values",
+                v["taxon"],
+                v["quantity"],
+                v["old"],
+                v["new"],
+                f"{v['unit'] or ''} {se}".strip(),
+            )
         return recs
 
     def summary(self) -> str:
@@ -477,32 +628,46 @@ class VersionDiff:
                 continue
             shift = "" if a["shift_se"] is None else f", shift {a['shift_se']:+.2f} SE"
             ci = lambda c: "–" if c is None else f"[{cell(c[0])}, {cell(c[1])}]"  # noqa: E731
-            lines.append(f"  {a['name']}: slope {cell(a['slope_old'])} {ci(a['ci_old'])} -> "
-                         f"{cell(a['slope_new'])} {ci(a['ci_new'])}{shift}")
+            lines.append(
+                f"  {a['name']}: slope {cell(a['slope_old'])} {ci(a['ci_old'])} -> "
+                f"{cell(a['slope_new'])} {ci(a['ci_new'])}{shift}"
+            )
             verdict_text = f"{a['verdict_old'] or 'no fit'} -> {a['verdict_new'] or 'no fit'}"
-            lines.append(f"    against {a['tested_value']:g}: {verdict_text}"
-                         + ("  (VERDICT CHANGED)" if a["verdict_changed"] else ""))
+            lines.append(
+                f"    against {a['tested_value']:g}: {verdict_text}"
+                + ("  (VERDICT CHANGED)" if a["verdict_changed"] else "")
+            )
             for side in ("old", "new"):
                 if a[f"error_{side}"]:
                     lines.append(f"    {side}: not fitted: {a[f'error_{side}']}")
         if self.regimes:
             lines.append(f"  regimes changed: {len(self.regimes)}")
-            lines += [f"    {r['taxon']}: {r['old'] or '–'} -> {r['new'] or '–'}" for r in self.regimes]
+            lines += [
+                f"    {r['taxon']}: {r['old'] or '–'} -> {r['new'] or '–'}"
+                for r in self.regimes
+            ]
         r = self.rows
         unit_only = {c["obs_id"] for c in r.get("changed", []) if c["kind"] == "unit_only"}
         changed = {c["obs_id"] for c in r.get("changed", []) if c["kind"] != "unit_only"}
-        lines += ["", "Counts",
-                  f"  rows: {len(r.get('added', []))} added, {len(r.get('removed', []))} removed, "
-                  f"{len(changed)} changed, {len(unit_only - changed)} with only a unit or form change",
-                  f"  sources: {len(self.sources.get('added', []))} added, {len(self.sources.get('removed', []))} "
-                  f"removed, {len({c['source_id'] for c in self.sources.get('changed', [])})} changed",
-                  f"  taxa: {len(self.names.get('added', []))} added, {len(self.names.get('removed', []))} removed, "
-                  f"{len(self.names.get('renamed', []))} renamed, "
-                  f"{len({g['taxon'] for g in self.names.get('regrouped', [])})} regrouped",
-                  f"  tree: {len(self.tree.get('tips_added', []))} tips added, "
-                  f"{len(self.tree.get('tips_dropped', []))} dropped",
-                  f"  per-taxon values moved: {len(self.taxa)}; analyses changed: {len(moved)} of "
-                  f"{len(self.analyses)}", "", "Details"]
+        lines += [
+            "",
+            "Counts",
+            f"  rows: {len(r.get('added', []))} added, {len(r.get('removed', []))} removed, "
+            f"{len(changed)} changed, {len(unit_only - changed)} with only a unit or form change",
+            f"  sources: {len(self.sources.get('added', []))} added, "
+            f"{len(self.sources.get('removed', []))} "
+            f"removed, {len({c['source_id'] for c in self.sources.get('changed', [])})} changed",
+            f"  taxa: {len(self.names.get('added', []))} added, "
+            f"{len(self.names.get('removed', []))} removed, "
+            f"{len(self.names.get('renamed', []))} renamed, "
+            f"{len({g['taxon'] for g in self.names.get('regrouped', [])})} regrouped",
+            f"  tree: {len(self.tree.get('tips_added', []))} tips added, "
+            f"{len(self.tree.get('tips_dropped', []))} dropped",
+            f"  per-taxon values moved: {len(self.taxa)}; analyses changed: {len(moved)} of "
+            f"{len(self.analyses)}",
+            "",
+            "Details",
+        ]
         for rec in self._records():
             if rec["section"] in ("analysis", "regime"):
                 continue
@@ -526,15 +691,19 @@ class VersionDiff:
 
         body = self._repr_html_()
         summary = html.escape(self.summary().split("\n\nDetails")[0])
-        return ("<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>comparo diff</title>"
-                "<style>body{font-family:system-ui,sans-serif;margin:2em;color:#222;max-width:70em}"
-                "table{border-collapse:collapse;font-size:0.9em}td,th{border:1px solid #ccd;padding:2px 8px;"
-                "text-align:left}th{background:#eef2f7}pre{background:#f7f7f4;padding:1em}</style></head>"
-                f"<body><h1>What changed</h1><pre>{summary}</pre>{body}</body></html>\n")
+        return (
+            "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>comparo diff</title>"
+            "<style>body{font-family:system-ui,sans-serif;margin:2em;color:#222;max-width:70em}"
+            "table{border-collapse:collapse;font-size:0.9em}"
+            "td,th{border:1px solid #ccd;padding:2px 8px;text-align:left}"
+            "th{background:#eef2f7}pre{background:#f7f7f4;padding:1em}</style></head>"
+            f"<body><h1>What changed</h1><pre>{summary}</pre>{body}</body></html>\n"
+        )
 
 
-def diff(old: str | Path | Any, new: str | Path | Any, *, temperature: bool = True,
-         seed: int = 20240601) -> VersionDiff:
+def diff(
+    old: str | Path | Any, new: str | Path | Any, *, temperature: bool = True, seed: int = 20240601
+) -> VersionDiff:
     """Compare two versions of a compilation (dataset folders, workbooks or loaded datasets).
 
     Per-taxon values are compared in each quantity's canonical unit (temperature-normalised
@@ -549,7 +718,14 @@ def diff(old: str | Path | Any, new: str | Path | Any, *, temperature: bool = Tr
     renamed = {r["old"]: r["new"] for r in names["renamed"]}
     da, db = _data(a, ta, seed), _data(b, tb, seed)
     return VersionDiff(
-        old=_label(old), new=_label(new), rows=row_changes(a, b), sources=source_changes(a, b), names=names,
-        tree=tree_changes(a, b), settings_changed=(a.settings or {}) != (b.settings or {}),
+        old=_label(old),
+        new=_label(new),
+        rows=row_changes(a, b),
+        sources=source_changes(a, b),
+        names=names,
+        tree=tree_changes(a, b),
+        settings_changed=(a.settings or {}) != (b.settings or {}),
         taxa=tuple(value_changes(ta, tb, renamed, b.catalog)),
-        analyses=tuple(analysis_changes(a, b, da, db, seed)), regimes=tuple(regime_changes(da, db, renamed)))
+        analyses=tuple(analysis_changes(a, b, da, db, seed)),
+        regimes=tuple(regime_changes(da, db, renamed)),
+    )

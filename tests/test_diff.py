@@ -17,7 +17,10 @@ from support import run_main
 
 import comparo
 
-HEADER = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,temperature_c"
+HEADER = (
+    "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,"
+    "source_id,locator,basis,temperature_c"
+)
 ROWS = [
     "o1,Apis mellifera,body_mass,100,mg,,,,s1,Table 1,reported,",
     "o2,Apis mellifera,frequency_observed,230,Hz,6,se,,s1,Table 2,reported,25",
@@ -34,22 +37,34 @@ ROWS = [
     "o13,Apis mellifera,fiber_radius,12,um,,,,s1,Table 3,reported,",
     "o14,Apis mellifera,frequency_observed,240,Hz,6,se,,s2,Fig. 1,digitized,25",
 ]
-SOURCES = ("source_id,citation,year,doi\n"
-           "s1,Test source one (2001),2001,10.1000/one\n"
-           "s2,Test source two (2002),2002,\n"
-           "s3,Test source three (2003),2003,\n")
-TAXA = ("taxon,accepted_name,clade\n"
-        "Apis mellifera,,Hymenoptera\nBombus terrestris,,Hymenoptera\nVespula vulgaris,,Hymenoptera\n"
-        "Musca domestica,,Diptera\nDrosophila melanogaster,,Diptera\nTipula paludosa,,Diptera\n")
-TREE = ("(((Apis_mellifera:1,Bombus_terrestris:1):1,Vespula_vulgaris:2):2,"
-        "((Musca_domestica:1,Drosophila_melanogaster:1):1,Tipula_paludosa:2):2);\n")
-SETTINGS = ('reference_temperature_c = 25.0\n\n[[analysis]]\nx = "body_mass"\ny = "frequency_observed"\n'
-            'method = "ols"\nagainst = -0.1\n')
+SOURCES = (
+    "source_id,citation,year,doi\n"
+    "s1,Test source one (2001),2001,10.1000/one\n"
+    "s2,Test source two (2002),2002,\n"
+    "s3,Test source three (2003),2003,\n"
+)
+TAXA = (
+    "taxon,accepted_name,clade\n"
+    "Apis mellifera,,Hymenoptera\nBombus terrestris,,Hymenoptera\nVespula vulgaris,,Hymenoptera\n"
+    "Musca domestica,,Diptera\nDrosophila melanogaster,,Diptera\nTipula paludosa,,Diptera\n"
+)
+TREE = (
+    "(((Apis_mellifera:1,Bombus_terrestris:1):1,Vespula_vulgaris:2):2,"
+    "((Musca_domestica:1,Drosophila_melanogaster:1):1,Tipula_paludosa:2):2);\n"
+)
+SETTINGS = (
+    'reference_temperature_c = 25.0\n\n[[analysis]]\nx = "body_mass"\ny = "frequency_observed"\n'
+    'method = "ols"\nagainst = -0.1\n'
+)
 
 
-def _write(folder: Path, rows=ROWS, sources=SOURCES, taxa=TAXA, tree=TREE, settings=SETTINGS) -> Path:
+def _write(
+    folder: Path, rows=ROWS, sources=SOURCES, taxa=TAXA, tree=TREE, settings=SETTINGS
+) -> Path:
     folder.mkdir(parents=True)
-    (folder / "observations.csv").write_text(HEADER + "\n" + "\n".join(rows) + "\n", encoding="utf-8")
+    (folder / "observations.csv").write_text(
+        HEADER + "\n" + "\n".join(rows) + "\n", encoding="utf-8"
+    )
     (folder / "sources.csv").write_text(sources, encoding="utf-8")
     (folder / "taxa.csv").write_text(taxa, encoding="utf-8")
     (folder / "tree.nwk").write_text(tree, encoding="utf-8")
@@ -60,15 +75,18 @@ def _write(folder: Path, rows=ROWS, sources=SOURCES, taxa=TAXA, tree=TREE, setti
 def _new_version(folder: Path) -> Path:
     """The old version with one edit of each kind."""
     rows = list(ROWS)
-    rows[2] = rows[2].replace(",190,", ",200,")                                 # o3: value changed
+    rows[2] = rows[2].replace(",190,", ",200,")  # o3: value changed
     rows[12] = "o13,Apis mellifera,fiber_radius,0.012,mm,,,,s1,Table 3,reported,"  # unit only
-    rows[4] = rows[4].replace("o5,", "o5b,")                                     # id changed, same content
-    del rows[13]                                                                 # o14 removed
+    rows[4] = rows[4].replace("o5,", "o5b,")  # id changed, same content
+    del rows[13]  # o14 removed
     rows.append("o20,Bombus terrestris,fiber_radius,10,um,,,,s2,Table 3,reported,")  # added
-    sources = SOURCES.replace("s2,Test source two (2002),2002,", "s2,Test source two (2002),2002,10.1000/two")
-    taxa = TAXA.replace("Vespula vulgaris,,Hymenoptera", "Vespula vulgaris,Paravespula vulgaris,Hymenoptera\n"
-                        "Paravespula vulgaris,,Hymenoptera").replace("Tipula paludosa,,Diptera",
-                                                                     "Tipula paludosa,,Nematocera")
+    sources = SOURCES.replace(
+        "s2,Test source two (2002),2002,", "s2,Test source two (2002),2002,10.1000/two"
+    )
+    taxa = TAXA.replace(
+        "Vespula vulgaris,,Hymenoptera",
+        "Vespula vulgaris,Paravespula vulgaris,Hymenoptera\nParavespula vulgaris,,Hymenoptera",
+    ).replace("Tipula paludosa,,Diptera", "Tipula paludosa,,Nematocera")
     tree = TREE.replace("Vespula_vulgaris", "Paravespula_vulgaris")
     return _write(folder, rows, sources, taxa, tree)
 
@@ -100,15 +118,24 @@ def test_rows_added_removed_and_changed_are_listed_exactly(result):
 
 
 def test_sources_names_groups_and_tree(result):
-    assert result.sources == {"added": [], "removed": [],
-                              "changed": [{"source_id": "s2", "column": "doi", "old": None, "new": "10.1000/two"}]}
-    assert result.names == {
-        "added": [], "removed": [],
-        "renamed": [{"old": "Vespula vulgaris", "new": "Paravespula vulgaris"}],
-        "regrouped": [{"taxon": "Tipula paludosa", "column": "clade", "old": "Diptera", "new": "Nematocera"}],
+    assert result.sources == {
+        "added": [],
+        "removed": [],
+        "changed": [{"source_id": "s2", "column": "doi", "old": None, "new": "10.1000/two"}],
     }
-    assert result.tree == {"tips_added": ["Paravespula_vulgaris"], "tips_dropped": ["Vespula_vulgaris"],
-                           "text_changed": True}
+    assert result.names == {
+        "added": [],
+        "removed": [],
+        "renamed": [{"old": "Vespula vulgaris", "new": "Paravespula vulgaris"}],
+        "regrouped": [
+            {"taxon": "Tipula paludosa", "column": "clade", "old": "Diptera", "new": "Nematocera"}
+        ],
+    }
+    assert result.tree == {
+        "tips_added": ["Paravespula_vulgaris"],
+        "tips_dropped": ["Vespula_vulgaris"],
+        "text_changed": True,
+    }
     assert result.settings_changed is False and result.regimes == ()
 
 
@@ -120,8 +147,11 @@ def test_per_taxon_values_that_moved_with_their_change_in_standard_uncertainties
     chi2 = 2 * (5 / 6) ** 2
     u_old = 6 / math.sqrt(2) * math.sqrt(chi2 / 1)
     got = {(t["taxon"], t["quantity"]): t for t in result.taxa}
-    assert set(got) == {("Apis mellifera", "frequency_observed"), ("Musca domestica", "frequency_observed"),
-                        ("Bombus terrestris", "fiber_radius")}
+    assert set(got) == {
+        ("Apis mellifera", "frequency_observed"),
+        ("Musca domestica", "frequency_observed"),
+        ("Bombus terrestris", "fiber_radius"),
+    }
     apis = got[("Apis mellifera", "frequency_observed")]
     assert apis["old"] == pytest.approx(235.0) and apis["new"] == pytest.approx(230.0)
     assert apis["change_se"] == pytest.approx(-5 / math.hypot(u_old, 6))
@@ -129,12 +159,18 @@ def test_per_taxon_values_that_moved_with_their_change_in_standard_uncertainties
     assert (musca["old"], musca["new"]) == (190.0, 200.0)
     assert musca["change_se"] == pytest.approx(10 / math.sqrt(50))
     bombus = got[("Bombus terrestris", "fiber_radius")]
-    assert (bombus["old"], bombus["new"], bombus["change_se"], bombus["unit"]) == (None, 10.0, None, "um")
+    assert (bombus["old"], bombus["new"], bombus["change_se"], bombus["unit"]) == (
+        None,
+        10.0,
+        None,
+        "um",
+    )
 
 
 def test_analysis_slopes_agree_with_the_fit_and_with_statsmodels(versions, result):
     """Independent routes: comparo.fit called directly on each version's per-taxon table, and
-    statsmodels OLS of log10 frequency on log10 mass (the per-taxon values) with its 95% interval."""
+    statsmodels OLS of log10 frequency on log10 mass (the per-taxon values) with its 95%
+    interval."""
     import statsmodels.api as sm
 
     (a,) = result.analyses
@@ -152,8 +188,9 @@ def test_analysis_slopes_agree_with_the_fit_and_with_statsmodels(versions, resul
         expected = "above" if lo > -0.1 else "below" if hi < -0.1 else "includes"
         assert a[f"verdict_{side}"] == expected
     half = lambda c: (c[1] - c[0]) / (2 * 1.959963984540054)  # noqa: E731  z_0.975, from memory
-    assert a["shift_se"] == pytest.approx((a["slope_new"] - a["slope_old"]) / math.hypot(half(a["ci_old"]),
-                                                                                         half(a["ci_new"])))
+    assert a["shift_se"] == pytest.approx(
+        (a["slope_new"] - a["slope_old"]) / math.hypot(half(a["ci_old"]), half(a["ci_new"]))
+    )
     assert a["verdict_changed"] is (a["verdict_old"] != a["verdict_new"])
 
 
@@ -167,15 +204,20 @@ def test_a_verdict_that_flips_is_reported(tmp_path):
     new = _write(tmp_path / "new", rows)
     (a,) = comparo.diff(old, new).analyses
     t = comparo.per_taxon(comparo.load(new)).dropna(subset=["body_mass", "frequency_observed"])
-    ols = sm.OLS(np.log10(t["frequency_observed"].to_numpy(float)),
-                 sm.add_constant(np.log10(t["body_mass"].to_numpy(float)))).fit()
+    ols = sm.OLS(
+        np.log10(t["frequency_observed"].to_numpy(float)),
+        sm.add_constant(np.log10(t["body_mass"].to_numpy(float))),
+    ).fit()
     assert ols.conf_int(0.05)[1][1] < -0.1  # the interval now lies below the tested value
     assert (a["verdict_old"], a["verdict_new"], a["verdict_changed"]) == ("includes", "below", True)
 
 
 def test_a_unit_only_edit_moves_no_value_and_no_conclusion(tmp_path):
     old = _write(tmp_path / "old")
-    rows = [r.replace("o1,Apis mellifera,body_mass,100,mg", "o1,Apis mellifera,body_mass,0.1,g") for r in ROWS]
+    rows = [
+        r.replace("o1,Apis mellifera,body_mass,100,mg", "o1,Apis mellifera,body_mass,0.1,g")
+        for r in ROWS
+    ]
     d = comparo.diff(old, _write(tmp_path / "new", rows))
     assert d.rows["changed"] == [
         {"obs_id": "o1", "column": "value", "old": 100.0, "new": 0.1, "kind": "unit_only"},
@@ -224,3 +266,27 @@ def test_cli_bad_input_exits_2_naming_the_version_and_its_problems(versions, tmp
     assert "Traceback" not in res.stderr
     missing = run_main("diff", str(tmp_path / "nowhere"), str(versions[0]))
     assert missing.returncode == 2 and "OLD version" in missing.stderr
+
+
+def test_a_regime_that_changes_is_listed(tmp_path):
+    """Hand computation (docs/methods/derived.md): tau_p = l^2 eta / (k M) with l = 12 um,
+    k = 10 nm^2, M = 100 kPa and a cytosol viscosity eta between 0.3 and 1 mPa s gives 0.04 to
+    0.15 s; against tau_xb = 1 ms, Pi = tau_p / tau_xb is 40 to 150 (hydraulic, far beyond a 10%
+    uncertainty); against 5 s it is 0.009 to 0.03 (kinetic)."""
+    extra = [
+        "p1,Apis mellifera,permeability,10,nm^2,1,se,,s1,Table 4,reported,",
+        "p2,Apis mellifera,transverse_modulus,100,kPa,10,se,,s1,Table 4,reported,",
+        "p3,Apis mellifera,kinetic_time,1,ms,0.1,se,,s1,Table 4,reported,25",
+    ]
+    rows = [r.replace(",12,um,,,", ",12,um,0.5,se,") for r in ROWS]
+    old = _write(tmp_path / "old", [*rows, *extra])
+    new = _write(
+        tmp_path / "new",
+        [*rows, *extra[:2], "p3,Apis mellifera,kinetic_time,5,s,0.5,se,,s1,Table 4,reported,25"],
+    )
+    for eta in (0.3e-3, 1e-3):
+        tau_p = (12e-6) ** 2 * eta / (10e-18 * 100e3)
+        assert 10 < tau_p / 1e-3 and tau_p / 5 < 0.1
+    d = comparo.diff(old, new)
+    assert list(d.regimes) == [{"taxon": "Apis mellifera", "old": "hydraulic", "new": "kinetic"}]
+    assert "regimes changed: 1" in d.summary()
