@@ -715,7 +715,14 @@ def diff(
     a, b = _load(old), _load(new)
     ta, tb = per_taxon(a, temperature=temperature), per_taxon(b, temperature=temperature)
     names = name_changes(a, b, ta, tb)
-    renamed = {r["old"]: r["new"] for r in names["renamed"]}
+    # values follow a rename one to one; a lump (into a taxon of OLD, or two names into one)
+    # is compared under the names as they are
+    targets = [r["new"] for r in names["renamed"]]
+    renamed = {
+        r["old"]: r["new"]
+        for r in names["renamed"]
+        if r["new"] not in set(ta["taxon"]) and targets.count(r["new"]) == 1
+    }
     da, db = _data(a, ta, seed), _data(b, tb, seed)
     return VersionDiff(
         old=_label(old),

@@ -290,3 +290,17 @@ def test_a_regime_that_changes_is_listed(tmp_path):
     d = comparo.diff(old, new)
     assert list(d.regimes) == [{"taxon": "Apis mellifera", "old": "hydraulic", "new": "kinetic"}]
     assert "regimes changed: 1" in d.summary()
+
+
+def test_a_lump_into_an_existing_taxon_is_a_rename_whose_values_stay_apart(tmp_path):
+    """Bombus made a synonym of Apis: one rename; Bombus's values are gone, Apis's gain them."""
+    old = _write(tmp_path / "old")
+    taxa = TAXA.replace(
+        "Bombus terrestris,,Hymenoptera", "Bombus terrestris,Apis mellifera,Hymenoptera"
+    )
+    d = comparo.diff(old, _write(tmp_path / "new", taxa=taxa))
+    assert d.names["renamed"] == [{"old": "Bombus terrestris", "new": "Apis mellifera"}]
+    assert d.names["added"] == [] and d.names["removed"] == []
+    moved = {(t["taxon"], t["quantity"]): (t["old"], t["new"]) for t in d.taxa}
+    assert moved[("Bombus terrestris", "body_mass")] == (pytest.approx(200e-6), None)
+    assert ("Apis mellifera", "body_mass") in moved
