@@ -41,6 +41,8 @@ _API = {
     "cycles": "comparo.traces",
     "impute": "comparo.phylo.imputation",
     "Imputation": "comparo.phylo.imputation",
+    "diff": "comparo.versions",
+    "VersionDiff": "comparo.versions",
 }
 
 __all__ = sorted(_API) + ["__version__"]

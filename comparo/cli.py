@@ -141,6 +141,15 @@ def build_parser() -> argparse.ArgumentParser:
     _output_arg(p)
     _temperature_arg(p)
 
+    p = sub.add_parser("diff", help="what changed between two versions of a dataset (exit 1 if any)")
+    p.add_argument("old", metavar="OLD", help="the earlier version: dataset folder or workbook")
+    p.add_argument("new", metavar="NEW", help="the later version: dataset folder or workbook")
+    p.add_argument("--format", choices=["text", "json", "html"], default="text", help="output format")
+    _output_arg(p)
+    _temperature_arg(p)
+    p.add_argument("--seed", type=int, default=20240601,
+                   help="random seed of the fits (the same for both versions)")
+
     p = sub.add_parser("report", help="full analysis: HTML report, figures and tables")
     _dataset_arg(p)
     _output_dir_arg(p)
@@ -195,7 +204,7 @@ def _guard_output(args: argparse.Namespace) -> None:
         return
     from comparo.outputs import guard_output
 
-    inputs = [getattr(args, name, None) for name in ("dataset", "data", "tree", "wide", "sources", "map")]
+    inputs = [getattr(args, name, None) for name in ("dataset", "data", "tree", "wide", "sources", "map", "old", "new")]
     guard_output(output, kind=getattr(args, "output_kind", "file"), inputs=inputs)
 
 

@@ -29,6 +29,8 @@ FORBIDDEN = {
     "flags": ("lines", "reliance", *PRESENTATION),
     "lines": ("reliance", *PRESENTATION),
     "reliance": PRESENTATION,
+    # two versions compared: fits through lines, never the presentation rooms
+    "versions": PRESENTATION,
     "config": ("reliance", *PRESENTATION),
     "loops": ("io", "traces", *ABOVE_READ),
     "traces": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
