@@ -1,0 +1,234 @@
+"""Multiple regression of log y on several log predictors (and a factor), by OLS or by PGLS,
+with maximum-likelihood log-likelihoods and AICc for model comparison.
+
+PGLS uses the project's linear-time engine and lambda search (:mod:`comparo.phylo.likelihood`),
+whose design matrix may have any number of columns; nothing here builds an n x n matrix.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from comparo.errors import UsageError
+from comparo.jsonsafe import finite_or_none as _f
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+#: Methods that fit several predictors; model II lines (sma, ma) are for one predictor.
+MULTIPLE_METHODS = ("ols", "pgls")
+_LOGS = ("10", "e", "none")
+
+
+def aicc(loglik: float, k: int, n: int) -> float:
+    """AICc = -2 lnL + 2k + 2k(k+1)/(n-k-1) (Hurvich & Tsai 1989; Burnham & Anderson 2002);
+    NaN when n - k - 1 <= 0."""
+    if n - k - 1 <= 0:
+        return math.nan
+    return -2.0 * loglik + 2.0 * k + 2.0 * k * (k + 1) / (n - k - 1)
+
+
+@dataclass(frozen=True)
+class MultipleFit:
+    """One fitted model y ~ predictors (+ factor) on the fitted (log) scale.
+
+    ``terms`` rows: term (``intercept``, a predictor name, ``COLUMN[level]``), estimate,
+    se, ci [lo, hi], t, p (two-sided, t with n - p df). ``loglik`` is the maximum
+    likelihood (not REML), ``k`` counts the coefficients, the residual variance and,
+    when estimated, lambda.
+    """
+
+    method: str
+    y: str
+    predictors: tuple[str, ...]
+    factor: str | None
+    reference: str | None
+    log: str
+    n: int
+    terms: tuple[dict, ...]
+    loglik: float
+    k: int
+    aicc: float
+    ci_level: float
+    lambda_: float | None = None
+    lambda_ci: tuple[float, float] | None = None
+    lambda_estimated: bool = False
+    rss: float = math.nan
+    excluded: tuple[dict, ...] = field(default_factory=tuple)
+
+    def to_dict(self) -> dict:
+        return {
+            "method": self.method, "y": self.y, "predictors": list(self.predictors), "factor": self.factor,
+            "reference_level": self.reference, "log": self.log, "n": self.n,
+            "terms": [dict(t) for t in self.terms], "loglik": _f(self.loglik), "aicc": _f(self.aicc),
+            "k": self.k, "ci_level": self.ci_level, "lambda": _f(self.lambda_),
+            "lambda_ci": None if self.lambda_ci is None else [_f(v) for v in self.lambda_ci],
+            "excluded": [dict(e) for e in self.excluded],
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class Design:
+    """The common rows of a table as fitted-scale arrays: y, every numeric column asked for,
+    the factor's dummy columns (treatment coding) and the rows left out with reasons."""
+
+    labels: tuple[str, ...]
+    y: np.ndarray
+    columns: Mapping[str, np.ndarray]
+    factor: str | None
+    reference: str | None
+    dummies: Mapping[str, np.ndarray]
+    excluded: tuple[dict, ...]
+    tree: Any = None  # FlatTree of the rows (pgls), rows in its tip order
+
+    def matrix(self, predictors: Sequence[str]) -> tuple[np.ndarray, list[str]]:
+        """[1 | predictors | dummies] and the term names."""
+        n = len(self.y)
+        cols = [np.ones(n)] + [self.columns[p] for p in predictors] + list(self.dummies.values())
+        return np.column_stack(cols), ["intercept", *predictors, *self.dummies]
+
+
+def _check(log: Any, ci: float, method: str, n_predictors: int) -> str:
+    log = "none" if log is None else str(log)
+    if log not in _LOGS:
+        raise UsageError(f"log must be one of 10, e, none; got {log!r}")
+    if not 0.0 < ci < 1.0:
+        raise UsageError(f"ci must be in (0, 1), got {ci}")
+    if method in ("sma", "ma") and n_predictors > 1:
+        raise UsageError(f"method {method} (model II) fits a line through one predictor; with {n_predictors} "
+                         "predictors use --method ols or pgls (errors in y; log x measured with little error "
+                         "relative to the scatter), or fit one predictor at a time with sma/ma")
+    if method not in MULTIPLE_METHODS:
+        raise UsageError(f"several predictors are fitted by {' or '.join(MULTIPLE_METHODS)}, not {method!r}")
+    return log
+
+
+def design(table: pd.DataFrame, y: str, columns: Sequence[str], *, factor: str | None = None, log: str = "10",
+           taxon_col: str = "taxon", tree: Any = None, tree_labels: Mapping[str, str] | None = None) -> Design:
+    """The rows having y, every column of *columns* (positive under a log), the factor and,
+    given a *tree*, a tip; each other row is listed with all its reasons."""
+    import pandas as pd
+
+    needed = [y, *columns] + ([factor] if factor else [])
+    missing = [c for c in dict.fromkeys(needed) if c not in table.columns]
+    if missing:
+        shown = ", ".join(map(str, list(table.columns)[:30]))
+        raise UsageError(f"{', '.join(repr(c) for c in missing)} not in the table; columns are: {shown}")
+    labels = (table[taxon_col].astype(str).tolist() if taxon_col in table.columns
+              else [f"row {i + 2}" for i in range(len(table))])
+    numeric = {}
+    for c in dict.fromkeys([y, *columns]):
+        raw = table[c]
+        num = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+        if np.isnan(num).all() and raw.notna().any():
+            raise UsageError(f"column {c!r} is not numeric (e.g. {raw.dropna().iloc[0]!r})")
+        numeric[c] = num
+    tip_of = None
+    if tree is not None:
+        from comparo.phylo.tips import _match
+        from comparo.phylo.trees import _as_topo
+
+        topo = _as_topo(tree)
+        tip_of = _match(topo, labels, tree_labels).tip_of
+    keep, excluded = [], []
+    for i, lab in enumerate(labels):
+        reasons = []
+        for c, v in numeric.items():
+            if not math.isfinite(v[i]):
+                reasons.append(f"missing {c}")
+            elif log != "none" and v[i] <= 0:
+                reasons.append(f"{c} = {v[i]:g} is not positive (log transform)")
+        if factor and (pd.isna(table[factor].iloc[i]) or str(table[factor].iloc[i]).strip() == ""):
+            reasons.append(f"missing {factor}")
+        if tip_of is not None and lab not in tip_of:
+            reasons.append("taxon not in the tree")
+        if reasons:
+            excluded.append({"label": lab, "reason": "; ".join(reasons)})
+        else:
+            keep.append(i)
+    ft = None
+    if tree is not None and keep:
+        from comparo.phylo.regression import _pruned_tree
+
+        ft, keep, _ = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
+    idx = np.asarray(keep, dtype=int)
+    tf = {"10": np.log10, "e": np.log, "none": np.asarray}[log]
+    cols = {c: tf(numeric[c][idx]) for c in numeric}
+    reference, dummies = None, {}
+    if factor:
+        values = table[factor].astype(str).to_numpy()[idx]
+        levels = sorted(set(values))
+        if levels:
+            reference = levels[0]
+            dummies = {f"{factor}[{lv}]": (values == lv).astype(float) for lv in levels[1:]}
+    return Design(tuple(labels[i] for i in keep), cols[y], cols, factor, reference, dummies, tuple(excluded), ft)
+
+
+def fit_design(d: Design, y: str, predictors: Sequence[str], *, method: str = "ols", lambda_: Any = "ml",
+               ci: float = 0.95, log: str = "10") -> MultipleFit:
+    """Fit y ~ predictors (+ the design's factor) on the rows of *d* by OLS or PGLS (ML)."""
+    from scipy.special import stdtr, stdtrit
+
+    X, names = d.matrix(predictors)
+    n, p = X.shape
+    extra = 1 if method == "pgls" and _estimated(lambda_) else 0
+    k = p + 1 + extra
+    if n < k + 2:
+        raise UsageError(f"the model {y} ~ {' + '.join(names[1:]) or '1'} has {k} parameters and needs at least "
+                         f"{k + 2} taxa (AICc needs n - k - 1 > 0); {n} taxa have every variable")
+    if np.linalg.matrix_rank(X) < p:
+        raise UsageError(f"the predictors {', '.join(names[1:])} are collinear on these {n} taxa "
+                         "(one is a combination of the others, or a factor level has no taxa)")
+    lam = lam_ci = None
+    if method == "pgls":
+        from comparo.phylo.likelihood import _fit_lambda
+
+        lf = _fit_lambda(d.tree, X, d.y, lambda_, None, False, ci)
+        beta, cov, rss, loglik = lf.fit.beta, lf.fit.cov, lf.fit.rss, lf.loglik
+        lam, lam_ci = lf.lam, lf.ci
+    else:
+        XtX = X.T @ X
+        beta = np.linalg.solve(XtX, X.T @ d.y)
+        resid = d.y - X @ beta
+        rss = float(resid @ resid)
+        cov = rss / (n - p) * np.linalg.inv(XtX)
+        loglik = -0.5 * n * (math.log(2.0 * math.pi * max(rss, 1e-300) / n) + 1.0)
+    df = n - p
+    tq = float(stdtrit(df, 0.5 + ci / 2.0))
+    se = np.sqrt(np.diag(cov))
+    terms = []
+    for name, b, s in zip(names, beta, se, strict=True):
+        t = b / s if s > 0 else math.nan
+        terms.append({"term": name, "estimate": _f(b), "se": _f(s), "ci": [_f(b - tq * s), _f(b + tq * s)],
+                      "t": _f(t), "p": _f(2.0 * stdtr(df, -abs(t))) if math.isfinite(t) else None})
+    return MultipleFit(method, y, tuple(predictors), d.factor, d.reference, log, n, tuple(terms), float(loglik), k,
+                       aicc(float(loglik), k, n), float(ci), lam, None if lam_ci is None else tuple(lam_ci),
+                       bool(extra), float(rss), d.excluded)
+
+
+def _estimated(lambda_: Any) -> bool:
+    return isinstance(lambda_, str) and lambda_.strip().lower() == "ml"
+
+
+def multiple_fit(table: pd.DataFrame, y: str, predictors: Sequence[str], *, factor: str | None = None,
+                 method: str = "ols", log: str = "10", ci: float = 0.95, tree: Any = None, lambda_: Any = "ml",
+                 tree_labels: Mapping[str, str] | None = None, taxon_col: str = "taxon") -> MultipleFit:
+    """Multiple regression of y on *predictors* (quantity keys or columns, each log-transformed
+    like y) and a *factor* (treatment coding, the first level in sorted order the reference).
+
+    ``method`` "ols" or "pgls" (Pagel's lambda by maximum likelihood with ``lambda_="ml"``,
+    or fixed); the log-likelihood is the maximum likelihood in both. Rows missing any
+    variable (or, for pgls, a tip) are left out and listed in ``excluded``.
+    """
+    predictors = list(predictors)
+    log = _check(log, ci, method, len(predictors))
+    if method == "pgls" and tree is None:
+        raise UsageError("method pgls needs a tree")
+    d = design(table, y, predictors, factor=factor, log=log, taxon_col=taxon_col,
+               tree=tree if method == "pgls" else None, tree_labels=tree_labels)
+    return fit_design(d, y, predictors, method=method, lambda_=lambda_, ci=ci, log=log)
