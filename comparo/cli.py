@@ -95,8 +95,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("fit", help="scaling fit of y on x with confidence intervals and tests")
     p.add_argument("data", metavar="DATA", help="dataset folder (quantities by key) or a plain CSV (columns by name)")
-    p.add_argument("--x", required=True, help="x quantity key or column")
+    p.add_argument("--x", required=True, action="append",
+                   help="x quantity key or column; repeat for several predictors (multiple regression: ols or pgls)")
     p.add_argument("--y", required=True, help="y quantity key or column")
+    p.add_argument("--factor", metavar="COLUMN", default=None,
+                   help="add a categorical predictor (treatment coding, first level in sorted order the reference)")
     p.add_argument("--method", choices=["ols", "sma", "ma", "robust", "lts", "pgls"], default="sma",
                    help="line: ols, sma or ma (model II), robust (Huber), lts, pgls (phylogenetic)")
     p.add_argument("--tree", metavar="FILE", default=None, help="Newick tree for pgls (default: the dataset's tree.nwk)")
@@ -104,8 +107,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--reml", action="store_true", help="pgls: REML for the lambda search and the reported likelihood")
     p.add_argument("--tip-se", action="store_true", help="pgls: add the per-taxon standard uncertainties of y (column Y_u) as measurement-error variance")
     p.add_argument("--by", metavar="COLUMN", default=None, help="fit per group and test for a common slope")
-    p.add_argument("--against", type=float, default=None, metavar="VALUE",
-                   help="test the slope against this exponent (e.g. 1 for isometry)")
+    p.add_argument("--against", action="append", default=None, metavar="VALUE|TERM=VALUE",
+                   help="test the slope against this exponent (e.g. 1 for isometry); with several --x, "
+                        "TERM=VALUE, repeated, for a joint Wald F test")
     # the old name of --against, kept one release; hidden from --help, warns on use
     p.add_argument("--test-slope", dest="test_slope_renamed", type=float, default=None, help=argparse.SUPPRESS)
     p.add_argument("--ci", type=float, default=0.95, metavar="LEVEL", help="confidence level (default 0.95)")

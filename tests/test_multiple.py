@@ -129,3 +129,47 @@ def test_collinear_predictors_exit_2(tmp_path, capsys):
     pd.DataFrame({"taxon": [f"t{i}" for i in range(10)], "x": x, "x2": x**2, "y": x * 1.5}).to_csv(p, index=False)
     assert main(["compare", str(p), "--y", "y", "--model", "x", "--model", "x,x2"]) == 2
     assert "collinear" in capsys.readouterr().err
+
+
+def test_fit_with_several_x_json_text_and_csv(csv, capsys):
+    base = ["fit", str(csv), "--y", "freq", "--x", "mass", "--x", "temp", "--method", "ols"]
+    assert main([*base, "--against", "mass=-0.25", "--against", "temp=0.5", "--format", "json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert {"terms", "loglik", "aicc", "k", "n"} <= set(out) and out["n"] == 29 and out["k"] == 4
+    assert [t["term"] for t in out["terms"]] == ["intercept", "mass", "temp"]
+    assert out["against"]["terms"] == {"mass": -0.25, "temp": 0.5} and out["against"]["df"] == [2, 26]
+    t = pd.read_csv(csv).dropna()
+    X = np.column_stack([np.ones(len(t)), np.log10(t.mass), np.log10(t.temp)])
+    b, *_ = np.linalg.lstsq(X, np.log10(t.freq), rcond=None)
+    assert [r["estimate"] for r in out["terms"]] == pytest.approx(b, rel=1e-10)
+    assert main([*base, "--format", "csv"]) == 0
+    assert capsys.readouterr().out.splitlines()[0] == "term,estimate,se,ci_low,ci_high,t,p"
+    assert main(base) == 0
+    assert "log-likelihood (ML)" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("extra, message", [
+    (["--x", "temp"], "use --method ols or pgls"),  # default method sma
+    (["--x", "temp", "--method", "ma"], "use --method ols or pgls"),
+    (["--x", "temp", "--method", "robust"], "are fitted by ols or pgls"),
+    (["--x", "temp", "--method", "ols", "--by", "clade"], "--by is not available"),
+    (["--x", "temp", "--method", "ols", "--against", "0.5"], "TERM=VALUE"),
+    (["--x", "temp", "--method", "ols", "--against", "zzz=0.5"], "not a term of the model"),
+    (["--x", "temp", "--method", "ols", "--against", "temp=nan"], "finite number"),
+    (["--method", "ols", "--against", "1", "--against", "2"], "takes one value"),
+    (["--method", "ols", "--against", "temp=1"], "is not the predictor"),
+])
+def test_fit_several_x_bad_requests_exit_2(csv, capsys, extra, message):
+    assert main(["fit", str(csv), "--y", "freq", "--x", "mass", *extra]) == 2
+    err = capsys.readouterr().err
+    assert message in err and "Traceback" not in err
+
+
+def test_one_x_against_keeps_its_meaning(csv, capsys):
+    """--against VALUE and --against X=VALUE with one --x give the same one-line test."""
+    base = ["fit", str(csv), "--y", "freq", "--x", "mass", "--method", "ols", "--format", "json"]
+    assert main([*base, "--against", "-0.3"]) == 0
+    plain = json.loads(capsys.readouterr().out)["against"]
+    assert main([*base, "--against", "mass=-0.3"]) == 0
+    named = json.loads(capsys.readouterr().out)["against"]
+    assert plain == named and plain["value"] == -0.3 and plain["test"] == "t"

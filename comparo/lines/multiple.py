@@ -60,16 +60,51 @@ class MultipleFit:
     lambda_estimated: bool = False
     rss: float = math.nan
     excluded: tuple[dict, ...] = field(default_factory=tuple)
+    against: dict | None = None
 
     def to_dict(self) -> dict:
         return {
-            "method": self.method, "y": self.y, "predictors": list(self.predictors), "factor": self.factor,
+            "method": self.method, "y": self.y, "x": list(self.predictors), "predictors": list(self.predictors),
+            "factor": self.factor,
             "reference_level": self.reference, "log": self.log, "n": self.n,
             "terms": [dict(t) for t in self.terms], "loglik": _f(self.loglik), "aicc": _f(self.aicc),
             "k": self.k, "ci_level": self.ci_level, "lambda": _f(self.lambda_),
             "lambda_ci": None if self.lambda_ci is None else [_f(v) for v in self.lambda_ci],
-            "excluded": [dict(e) for e in self.excluded],
+            "against": None if self.against is None else dict(self.against),
+            "likelihood": "ML", "excluded": [dict(e) for e in self.excluded],
         }
+
+    def summary(self) -> str:
+        """The fit as text: terms, log-likelihood, AICc, lambda and the joint test."""
+        model = " + ".join([*self.predictors] + ([self.factor] if self.factor else [])) or "1"
+        head = f"{self.method.upper()} multiple regression, log {self.log}: {self.y} ~ {model}"
+        lines = [head, f"n = {self.n} taxa" + (f" ({len(self.excluded)} left out, JSON key 'excluded')"
+                                               if self.excluded else "")]
+        if self.factor:
+            lines.append(f"factor {self.factor}: treatment coding, reference level {self.reference!r} "
+                         f"(each {self.factor}[level] is the difference from it)")
+        lvl = f"{100 * self.ci_level:g}% CI"
+        w = max(len("term"), *(len(t["term"]) for t in self.terms))
+        lines.append(f"{'term':<{w}}  {'estimate':>10}  {'SE':>9}  {lvl:>23}  {'t':>8}  {'p':>9}")
+        for t in self.terms:
+            ci = f"[{_num(t['ci'][0])}, {_num(t['ci'][1])}]"
+            lines.append(f"{t['term']:<{w}}  {_num(t['estimate']):>10}  {_num(t['se']):>9}  {ci:>23}  "
+                         f"{_num(t['t']):>8}  {_num(t['p']):>9}")
+        lines.append(f"log-likelihood (ML) {self.loglik:.4f}, k = {self.k}, AICc {_num(self.aicc)}")
+        if self.lambda_ is not None:
+            how = "by ML" if self.lambda_estimated else "fixed"
+            ci = "" if self.lambda_ci is None else f" [{self.lambda_ci[0]:.3f}, {self.lambda_ci[1]:.3f}]"
+            lines.append(f"Pagel's lambda {how}: {self.lambda_:.3f}{ci}")
+        if self.against:
+            a = self.against
+            vals = ", ".join(f"{k} = {v:g}" for k, v in a["terms"].items())
+            lines.append(f"joint test of {vals}: F({a['df'][0]}, {a['df'][1]}) = {_num(a['statistic'])}, "
+                         f"p = {_num(a['p'])}" + (f" ({a['note']})" if a.get("note") else ""))
+        return "\n".join(lines)
+
+
+def _num(v: Any) -> str:
+    return "n/a" if v is None or (isinstance(v, float) and not math.isfinite(v)) else f"{v:.4g}"
 
 
 @dataclass(frozen=True, eq=False)
@@ -104,7 +139,7 @@ def _check(log: Any, ci: float, method: str, n_predictors: int) -> str:
                          "predictors use --method ols or pgls (errors in y; log x measured with little error "
                          "relative to the scatter), or fit one predictor at a time with sma/ma")
     if method not in MULTIPLE_METHODS:
-        raise UsageError(f"several predictors are fitted by {' or '.join(MULTIPLE_METHODS)}, not {method!r}")
+        raise UsageError(f"several predictors (or a factor) are fitted by {' or '.join(MULTIPLE_METHODS)}, not {method!r}")
     return log
 
 
@@ -170,8 +205,9 @@ def design(table: pd.DataFrame, y: str, columns: Sequence[str], *, factor: str |
 
 
 def fit_design(d: Design, y: str, predictors: Sequence[str], *, method: str = "ols", lambda_: Any = "ml",
-               ci: float = 0.95, log: str = "10") -> MultipleFit:
-    """Fit y ~ predictors (+ the design's factor) on the rows of *d* by OLS or PGLS (ML)."""
+               ci: float = 0.95, log: str = "10", against: Mapping[str, float] | None = None) -> MultipleFit:
+    """Fit y ~ predictors (+ the design's factor) on the rows of *d* by OLS or PGLS (ML);
+    *against* (term -> value) adds the joint Wald F test of those values."""
     from scipy.special import stdtr, stdtrit
 
     X, names = d.matrix(predictors)
@@ -206,9 +242,35 @@ def fit_design(d: Design, y: str, predictors: Sequence[str], *, method: str = "o
         t = b / s if s > 0 else math.nan
         terms.append({"term": name, "estimate": _f(b), "se": _f(s), "ci": [_f(b - tq * s), _f(b + tq * s)],
                       "t": _f(t), "p": _f(2.0 * stdtr(df, -abs(t))) if math.isfinite(t) else None})
+    test = None if not against else wald_test(beta, cov, names, against, df, bool(extra))
     return MultipleFit(method, y, tuple(predictors), d.factor, d.reference, log, n, tuple(terms), float(loglik), k,
                        aicc(float(loglik), k, n), float(ci), lam, None if lam_ci is None else tuple(lam_ci),
-                       bool(extra), float(rss), d.excluded)
+                       bool(extra), float(rss), d.excluded, test)
+
+
+def wald_test(beta: np.ndarray, cov: np.ndarray, names: Sequence[str], values: Mapping[str, float], df: int,
+              lambda_estimated: bool = False) -> dict:
+    """Joint Wald test of H0: beta_j = v_j for the named terms, F = d'(R cov R')^-1 d / q
+    with d = R beta - v, on F(q, n - p): the extra-sum-of-squares F of OLS, and of GLS at a
+    fixed lambda; with lambda estimated, lambda is treated as known (its estimate)."""
+    from scipy.special import fdtrc
+
+    from comparo.bounds import check_finite
+
+    values = {t: check_finite(v, f"the value of {t} to test against") for t, v in values.items()}
+    unknown = [t for t in values if t not in names]
+    if unknown:
+        raise UsageError(f"--against names {', '.join(map(repr, unknown))}, not a term of the model "
+                         f"(terms: {', '.join(names)})")
+    idx = [names.index(t) for t in values]
+    R = np.zeros((len(idx), len(names)))
+    R[np.arange(len(idx)), idx] = 1.0
+    dvec = R @ beta - np.array([float(v) for v in values.values()])
+    q = len(idx)
+    stat = float(dvec @ np.linalg.solve(R @ cov @ R.T, dvec)) / q
+    return {"terms": {t: float(v) for t, v in values.items()}, "test": "F (Wald)", "statistic": _f(stat),
+            "df": [q, int(df)], "p": _f(fdtrc(q, df, stat)),
+            "note": "conditional on the ML estimate of lambda, treated as known" if lambda_estimated else None}
 
 
 def _estimated(lambda_: Any) -> bool:
@@ -217,13 +279,16 @@ def _estimated(lambda_: Any) -> bool:
 
 def multiple_fit(table: pd.DataFrame, y: str, predictors: Sequence[str], *, factor: str | None = None,
                  method: str = "ols", log: str = "10", ci: float = 0.95, tree: Any = None, lambda_: Any = "ml",
-                 tree_labels: Mapping[str, str] | None = None, taxon_col: str = "taxon") -> MultipleFit:
+                 tree_labels: Mapping[str, str] | None = None, taxon_col: str = "taxon",
+                 against: Mapping[str, float] | None = None) -> MultipleFit:
     """Multiple regression of y on *predictors* (quantity keys or columns, each log-transformed
     like y) and a *factor* (treatment coding, the first level in sorted order the reference).
 
     ``method`` "ols" or "pgls" (Pagel's lambda by maximum likelihood with ``lambda_="ml"``,
     or fixed); the log-likelihood is the maximum likelihood in both. Rows missing any
-    variable (or, for pgls, a tip) are left out and listed in ``excluded``.
+    variable (or, for pgls, a tip) are left out and listed in ``excluded``. *against*
+    (term -> value, e.g. ``{"body_mass": -0.25, "temperature_c": 0}``) adds the joint Wald
+    F test of those values (key ``against``).
     """
     predictors = list(predictors)
     log = _check(log, ci, method, len(predictors))
@@ -231,4 +296,4 @@ def multiple_fit(table: pd.DataFrame, y: str, predictors: Sequence[str], *, fact
         raise UsageError("method pgls needs a tree")
     d = design(table, y, predictors, factor=factor, log=log, taxon_col=taxon_col,
                tree=tree if method == "pgls" else None, tree_labels=tree_labels)
-    return fit_design(d, y, predictors, method=method, lambda_=lambda_, ci=ci, log=log)
+    return fit_design(d, y, predictors, method=method, lambda_=lambda_, ci=ci, log=log, against=against)

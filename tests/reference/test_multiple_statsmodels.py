@@ -166,3 +166,26 @@ def test_comparison_aicc_weights_and_lr_tests_from_the_formulas():
     assert tests[("1", "a + b")]["statistic"] == pytest.approx(lr, rel=1e-9)
     assert tests[("1", "a + b")]["df"] == 2
     assert tests[("1", "a + b")]["p"] == pytest.approx(chi2.sf(lr, 2), rel=1e-9, abs=1e-300)
+
+
+def test_joint_wald_f_matches_statsmodels_f_test():
+    """The joint test of two coefficients against given values: statsmodels' f_test with the
+    same restriction matrix, for OLS and for GLS at a fixed lambda (dense C(lambda))."""
+    t, _ = _table(50, 29)
+    values = {"a": 0.5, "b": -0.25}
+    fit = multiple_fit(t, "y", ["a", "b", "c"], method="ols", against=values)
+    X = pd.DataFrame({"const": 1.0, "a": np.log10(t.a), "b": np.log10(t.b), "c": np.log10(t.c)})
+    R = np.array([[0, 1, 0, 0], [0, 0, 1, 0]], dtype=float)
+    ref = sm.OLS(np.log10(t.y), X).fit().f_test((R, np.array([0.5, -0.25])))
+    assert fit.against["statistic"] == pytest.approx(float(np.squeeze(ref.fvalue)), rel=1e-9)
+    assert fit.against["df"] == [2, 46] and ref.df_num == 2 and ref.df_denom == 46
+    assert fit.against["p"] == pytest.approx(float(ref.pvalue), rel=1e-7)
+
+    nw = random_newick(50, 31, ultrametric=True)
+    tg, C = _table(50, 37, nw)
+    fit = multiple_fit(tg, "y", ["a", "b", "c"], method="pgls", tree=nw, lambda_=0.7, against=values)
+    Xg = pd.DataFrame({"const": 1.0, "a": np.log10(tg.a), "b": np.log10(tg.b), "c": np.log10(tg.c)})
+    ref = sm.GLS(np.log10(tg.y).to_numpy(), Xg, sigma=pagel(C, 0.7)).fit().f_test((R, np.array([0.5, -0.25])))
+    assert fit.against["statistic"] == pytest.approx(float(np.squeeze(ref.fvalue)), rel=1e-9)
+    assert fit.against["p"] == pytest.approx(float(ref.pvalue), rel=1e-7)
+    assert fit.against["note"] is None
