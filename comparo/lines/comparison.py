@@ -34,7 +34,7 @@ WEIGHT_CAUTION = (
 
 def akaike_weights(values: Sequence[float]) -> list[float]:
     """w_i = exp(-Delta_i/2) / sum_j exp(-Delta_j/2), Delta_i = AICc_i - min AICc
-    (Burnham & Anderson 2002, section 2.9)."""
+    (Burnham & Anderson 2002)."""
     best = min(values)
     rel = [math.exp(-0.5 * (v - best)) for v in values]
     total = sum(rel)

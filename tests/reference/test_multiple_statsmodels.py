@@ -8,7 +8,7 @@
 - PGLS with lambda by ML: a dense profile ML maximised with scipy.optimize.minimize_scalar.
 - AICc = -2 lnL + 2k + 2k(k+1)/(n-k-1) and Akaike weights exp(-Delta/2)/sum, computed here
   from the formulas of Burnham & Anderson (2002, Model Selection and Multimodel Inference,
-  2nd ed., eqs. 2.14 and 2.16 ... section 2.9).
+  2nd ed.) and Hurvich & Tsai (1989, Biometrika 76:297-307).
 """
 
 from __future__ import annotations
