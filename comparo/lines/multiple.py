@@ -170,22 +170,29 @@ def design(table: pd.DataFrame, y: str, columns: Sequence[str], *, factor: str |
 
         topo = _as_topo(tree)
         tip_of = _match(topo, labels, tree_labels).tip_of
-    keep, excluded = [], []
-    for i, lab in enumerate(labels):
+    bad = np.zeros(len(labels), dtype=bool)  # rows with any problem, found with numpy first
+    for v in numeric.values():
+        bad |= ~np.isfinite(v) | ((v <= 0) if log != "none" else False)
+    fac = None
+    if factor:
+        fac = table[factor]
+        bad |= (fac.isna() | (fac.astype(str).str.strip() == "")).to_numpy()
+    if tip_of is not None:
+        bad |= np.array([lab not in tip_of for lab in labels], dtype=bool)
+    excluded = []
+    for i in np.flatnonzero(bad):  # the reasons, for the rows left out only
         reasons = []
         for c, v in numeric.items():
             if not math.isfinite(v[i]):
                 reasons.append(f"missing {c}")
             elif log != "none" and v[i] <= 0:
                 reasons.append(f"{c} = {v[i]:g} is not positive (log transform)")
-        if factor and (pd.isna(table[factor].iloc[i]) or str(table[factor].iloc[i]).strip() == ""):
+        if fac is not None and (pd.isna(fac.iloc[i]) or str(fac.iloc[i]).strip() == ""):
             reasons.append(f"missing {factor}")
-        if tip_of is not None and lab not in tip_of:
+        if tip_of is not None and labels[i] not in tip_of:
             reasons.append("taxon not in the tree")
-        if reasons:
-            excluded.append({"label": lab, "reason": "; ".join(reasons)})
-        else:
-            keep.append(i)
+        excluded.append({"label": labels[i], "reason": "; ".join(reasons)})
+    keep = np.flatnonzero(~bad).tolist()
     ft = None
     if tree is not None and keep:
         from comparo.phylo.regression import _pruned_tree
