@@ -61,6 +61,8 @@ class MultipleFit:
     rss: float = math.nan
     excluded: tuple[dict, ...] = field(default_factory=tuple)
     against: dict | None = None
+    outliers: tuple[dict, ...] = field(default_factory=tuple)
+    flags_note: str | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -71,7 +73,8 @@ class MultipleFit:
             "k": self.k, "ci_level": self.ci_level, "lambda": _f(self.lambda_),
             "lambda_ci": None if self.lambda_ci is None else [_f(v) for v in self.lambda_ci],
             "against": None if self.against is None else dict(self.against),
-            "likelihood": "ML", "excluded": [dict(e) for e in self.excluded],
+            "likelihood": "ML", "outliers": [dict(o) for o in self.outliers], "flags_note": self.flags_note,
+            "excluded": [dict(e) for e in self.excluded],
         }
 
     def summary(self) -> str:
@@ -100,6 +103,11 @@ class MultipleFit:
             vals = ", ".join(f"{k} = {v:g}" for k, v in a["terms"].items())
             lines.append(f"joint test of {vals}: F({a['df'][0]}, {a['df'][1]}) = {_num(a['statistic'])}, "
                          f"p = {_num(a['p'])}" + (f" ({a['note']})" if a.get("note") else ""))
+        if self.outliers:
+            lines.append("flags:")
+            lines += [f"  {o['label']}: {o['reason']} ({o['statistic']:.5g})" for o in self.outliers]
+        if self.flags_note:
+            lines.append(self.flags_note)
         return "\n".join(lines)
 
 
@@ -212,9 +220,11 @@ def design(table: pd.DataFrame, y: str, columns: Sequence[str], *, factor: str |
 
 
 def fit_design(d: Design, y: str, predictors: Sequence[str], *, method: str = "ols", lambda_: Any = "ml",
-               ci: float = 0.95, log: str = "10", against: Mapping[str, float] | None = None) -> MultipleFit:
+               ci: float = 0.95, log: str = "10", against: Mapping[str, float] | None = None,
+               flags: bool = False) -> MultipleFit:
     """Fit y ~ predictors (+ the design's factor) on the rows of *d* by OLS or PGLS (ML);
-    *against* (term -> value) adds the joint Wald F test of those values."""
+    *against* (term -> value) adds the joint Wald F test of those values, *flags* the
+    outlier and influence flags (:func:`point_flags`)."""
     from scipy.special import stdtr, stdtrit
 
     X, names = d.matrix(predictors)
@@ -250,9 +260,38 @@ def fit_design(d: Design, y: str, predictors: Sequence[str], *, method: str = "o
         terms.append({"term": name, "estimate": _f(b), "se": _f(s), "ci": [_f(b - tq * s), _f(b + tq * s)],
                       "t": _f(t), "p": _f(2.0 * stdtr(df, -abs(t))) if math.isfinite(t) else None})
     test = None if not against else wald_test(beta, cov, names, against, df, bool(extra))
+    outliers, note = point_flags(X, d.y, d.labels, d.tree if method == "pgls" else None, lam) if flags else ((), None)
     return MultipleFit(method, y, tuple(predictors), d.factor, d.reference, log, n, tuple(terms), float(loglik), k,
                        aicc(float(loglik), k, n), float(ci), lam, None if lam_ci is None else tuple(lam_ci),
-                       bool(extra), float(rss), d.excluded, test)
+                       bool(extra), float(rss), d.excluded, test, tuple(outliers), note)
+
+
+def point_flags(X: np.ndarray, y: np.ndarray, labels: Sequence[str], tree: Any = None,
+                lam: float | None = None) -> tuple[list[dict], str | None]:
+    """Bonferroni-studentized residual, leverage (2p/n) and Cook's distance flags of the
+    least-squares fit y = X beta, the rules of :mod:`comparo.flags` with p = the columns of
+    X; for PGLS (*tree* and *lam*) on the phylogenetically whitened regression W y = W X beta,
+    W = C(lambda)^(-1/2). Returns the flags ``{"label", "reason", "statistic"}`` and a note
+    when they could not be computed (a PGLS on more taxa than the dense whitener takes)."""
+    from comparo.flags import _point_flags, bonferroni_cut, influence_design, phylo_whitener
+    from comparo.quantiles import f_quantile
+
+    n, p = X.shape
+    if n - p - 1 <= 0:
+        return [], "no flags: too few taxa for the studentized residuals"
+    if tree is not None:
+        try:
+            W = phylo_whitener(tree, float(lam))
+        except ValueError as exc:
+            return [], f"no flags: {exc}"
+        X, y = W @ X, W @ y
+    _, _, t, h, dcook = influence_design(X, y)
+    cuts = {"bonferroni": bonferroni_cut(n, p), "leverage": 2.0 * p / n, "cooks_4n": 4.0 / n,
+            "cooks_f": f_quantile(p, n - p, 0.5), "alpha": 0.05}
+    out = []
+    for i, lab in enumerate(labels):
+        out += [f.to_dict() for f in _point_flags(i, lab, t[i], h[i], dcook[i], cuts, p, n)]
+    return out, ("flags on the phylogenetically whitened regression" if tree is not None else None)
 
 
 def wald_test(beta: np.ndarray, cov: np.ndarray, names: Sequence[str], values: Mapping[str, float], df: int,
@@ -303,4 +342,5 @@ def multiple_fit(table: pd.DataFrame, y: str, predictors: Sequence[str], *, fact
         raise UsageError("method pgls needs a tree")
     d = design(table, y, predictors, factor=factor, log=log, taxon_col=taxon_col,
                tree=tree if method == "pgls" else None, tree_labels=tree_labels)
-    return fit_design(d, y, predictors, method=method, lambda_=lambda_, ci=ci, log=log, against=against)
+    return fit_design(d, y, predictors, method=method, lambda_=lambda_, ci=ci, log=log, against=against,
+                      flags=True)

@@ -189,3 +189,58 @@ def test_joint_wald_f_matches_statsmodels_f_test():
     assert fit.against["statistic"] == pytest.approx(float(np.squeeze(ref.fvalue)), rel=1e-9)
     assert fit.against["p"] == pytest.approx(float(ref.pvalue), rel=1e-7)
     assert fit.against["note"] is None
+
+
+def test_flags_of_the_multiple_fit_match_statsmodels_influence():
+    """Externally studentized residuals, leverages and Cook's distances from statsmodels'
+    OLSInfluence on the same design; the flagged set is recomputed here from those values
+    with the rules' cut-offs (Bonferroni t(1 - 0.05/2n; n - p - 1), 2p/n, Cook's F(0.5; p, n-p)
+    or 4/n: Cook & Weisberg 1982; Hoaglin & Welsch 1978)."""
+    from scipy.stats import f as f_dist
+    from scipy.stats import t as t_dist
+    from statsmodels.stats.outliers_influence import OLSInfluence
+
+    t, _ = _table(40, 41)
+    t.loc[2, "y"] *= 30.0  # an outlier in y
+    t.loc[5, "a"] *= 1e3  # a point of high leverage
+    fit = multiple_fit(t, "y", ["a", "b", "c"], method="ols")
+    X = sm.add_constant(np.column_stack([np.log10(t.a), np.log10(t.b), np.log10(t.c)]))
+    infl = OLSInfluence(sm.OLS(np.log10(t.y).to_numpy(), X).fit())
+    n, p = X.shape
+    stud, lev, cook = infl.resid_studentized_external, infl.hat_matrix_diag, infl.cooks_distance[0]
+    expect = set()
+    for i, lab in enumerate(t.taxon):
+        if abs(stud[i]) > t_dist.ppf(1 - 0.05 / (2 * n), n - p - 1):
+            expect.add((lab, "studentized", stud[i]))
+        if lev[i] > 2 * p / n:
+            expect.add((lab, "leverage", lev[i]))
+        if cook[i] > min(f_dist.ppf(0.5, p, n - p), 4 / n):
+            expect.add((lab, "Cook", cook[i]))
+    got = {(o["label"], next(w for w in ("studentized", "leverage", "Cook") if w in o["reason"]), o["statistic"])
+           for o in fit.outliers}
+    assert {g[:2] for g in got} == {e[:2] for e in expect}
+    assert ("t3", "studentized") in {g[:2] for g in got} and ("t6", "leverage") in {g[:2] for g in got}
+    by_key = {e[:2]: e[2] for e in expect}
+    for lab, rule, value in got:
+        assert value == pytest.approx(by_key[(lab, rule)], rel=1e-8)
+
+
+def test_pgls_flags_are_those_of_the_whitened_regression():
+    """PGLS flags: statsmodels' OLSInfluence on W y = W X b with W = C(lambda)^(-1/2), the
+    symmetric inverse square root of the dense covariance built here from dendropy."""
+    from statsmodels.stats.outliers_influence import OLSInfluence
+
+    nw = random_newick(40, 43, ultrametric=True)
+    t, C = _table(40, 47, nw)
+    t.loc[4, "y"] *= 50.0
+    fit = multiple_fit(t, "y", ["a", "b"], method="pgls", tree=nw, lambda_=0.8)
+    w, v = np.linalg.eigh(pagel(C, 0.8))
+    W = (v / np.sqrt(w)) @ v.T
+    X = sm.add_constant(np.column_stack([np.log10(t.a), np.log10(t.b)]))
+    infl = OLSInfluence(sm.OLS(W @ np.log10(t.y).to_numpy(), W @ X).fit())
+    stud = dict(zip(t.taxon, infl.resid_studentized_external, strict=True))
+    bonf = [o for o in fit.outliers if "studentized" in o["reason"]]
+    assert t.taxon.iloc[4] in {o["label"] for o in bonf}
+    for o in bonf:
+        assert o["statistic"] == pytest.approx(stud[o["label"]], rel=1e-8)
+    assert fit.flags_note == "flags on the phylogenetically whitened regression"
