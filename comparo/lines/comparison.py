@@ -127,6 +127,11 @@ def compare(table: pd.DataFrame, y: str, models: Sequence[Sequence[str] | str], 
     the *factor* (in every model, treatment coding) and, for pgls, a tip. Returns the models
     sorted by AICc with Delta AICc, Akaike weights and the likelihood-ratio tests of every
     nested pair (chi-squared with the difference in k as df).
+
+    *table* is one row per taxon: a per-taxon table (:func:`comparo.per_taxon`) or, for the
+    derived bounds and ratios as predictors, the derived table (:func:`comparo.derive`),
+    which ``comparo compare`` builds itself from a dataset folder. Values in the table's
+    canonical units; coefficients are on the log scale of *log*.
     """
     sets = [_parse(m) for m in models]
     if len(sets) < 2:
