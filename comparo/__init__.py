@@ -32,6 +32,8 @@ _API = {
     "derive": "comparo.derivation",
     "fit": "comparo.lines",
     "FitResult": "comparo.lines",
+    "compare": "comparo.lines",
+    "multiple_fit": "comparo.lines",
     "sensitivity": "comparo.reliance",
     "build_report": "comparo.report",
     "phylo_fit": "comparo.phylo",

@@ -95,8 +95,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("fit", help="scaling fit of y on x with confidence intervals and tests")
     p.add_argument("data", metavar="DATA", help="dataset folder (quantities by key) or a plain CSV (columns by name)")
-    p.add_argument("--x", required=True, help="x quantity key or column")
+    p.add_argument("--x", required=True, action="append",
+                   help="x quantity key or column; repeat for several predictors (multiple regression: ols or pgls)")
     p.add_argument("--y", required=True, help="y quantity key or column")
+    p.add_argument("--factor", metavar="COLUMN", default=None,
+                   help="add a categorical predictor (treatment coding, first level in sorted order the reference)")
     p.add_argument("--method", choices=["ols", "sma", "ma", "robust", "lts", "pgls"], default="sma",
                    help="line: ols, sma or ma (model II), robust (Huber), lts, pgls (phylogenetic)")
     p.add_argument("--tree", metavar="FILE", default=None, help="Newick tree for pgls (default: the dataset's tree.nwk)")
@@ -104,8 +107,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--reml", action="store_true", help="pgls: REML for the lambda search and the reported likelihood")
     p.add_argument("--tip-se", action="store_true", help="pgls: add the per-taxon standard uncertainties of y (column Y_u) as measurement-error variance")
     p.add_argument("--by", metavar="COLUMN", default=None, help="fit per group and test for a common slope")
-    p.add_argument("--against", type=float, default=None, metavar="VALUE",
-                   help="test the slope against this exponent (e.g. 1 for isometry)")
+    p.add_argument("--against", action="append", default=None, metavar="VALUE|TERM=VALUE",
+                   help="test the slope against this exponent (e.g. 1 for isometry); with several --x, "
+                        "TERM=VALUE, repeated, for a joint Wald F test")
     # the old name of --against, kept one release; hidden from --help, warns on use
     p.add_argument("--test-slope", dest="test_slope_renamed", type=float, default=None, help=argparse.SUPPRESS)
     p.add_argument("--ci", type=float, default=0.95, metavar="LEVEL", help="confidence level (default 0.95)")
@@ -132,6 +136,23 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=["text", "csv", "json"], default="text",
                    help="output format (default text)")
     _output_arg(p)
+
+    p = sub.add_parser("compare", help="compare candidate models of y (sets of predictors) by AICc and Akaike weights")
+    p.add_argument("data", metavar="DATA", help="dataset folder (quantities and derived quantities by key) or a plain CSV")
+    p.add_argument("--y", required=True, help="y quantity key or column")
+    p.add_argument("--model", action="append", required=True, metavar="X1[,X2...]",
+                   help="one candidate model: comma-separated predictors ('1': intercept only); repeat for each model")
+    p.add_argument("--factor", metavar="COLUMN", default=None,
+                   help="categorical column in every model (treatment coding, first level in sorted order the reference)")
+    p.add_argument("--method", choices=["ols", "pgls"], default="ols", help="ols (default) or pgls (phylogenetic)")
+    p.add_argument("--tree", metavar="FILE", default=None, help="Newick tree for pgls (default: the dataset's tree.nwk)")
+    p.add_argument("--lambda", dest="lambda_", default=None, metavar="ml|VALUE",
+                   help="Pagel's lambda for pgls: 'ml' (default, estimated in each model) or a value in [0, 1]")
+    p.add_argument("--ci", type=float, default=0.95, metavar="LEVEL", help="confidence level of the coefficients (default 0.95)")
+    p.add_argument("--log", choices=["10", "e", "none"], default="10", help="log transform of y and every predictor (default 10)")
+    p.add_argument("--taxon-col", default="taxon", help="label column of a plain CSV (default taxon)")
+    p.add_argument("--format", choices=["text", "json"], default="text", help="output format")
+    _temperature_arg(p)
 
     p = sub.add_parser("cycles", help="strain cycles and work loops reduced from the traces of a dataset (traces.csv)")
     _dataset_arg(p)

@@ -140,6 +140,10 @@ def _renamed_options(args) -> None:
 
 
 def run(args) -> int:
+    from comparo.commands._multiple import one_x, run_multiple
+
+    if not one_x(args):  # several --x, or --factor: the multiple regression
+        return run_multiple(args)
     _renamed_options(args)
     _phylo_only_options(args)
     if args.sensitivity:

@@ -51,17 +51,19 @@ Efron, B. (1987). Better bootstrap confidence intervals. Journal of the
 from __future__ import annotations
 
 from comparo.lines.broken import segmented_line
+from comparo.lines.comparison import Comparison, compare
 from comparo.lines.core import LOGS, METHODS, slope_from_moments
 from comparo.lines.groups import common_slope_model2, group_fits
 from comparo.lines.least_squares import ols_line
 from comparo.lines.model2 import model2_line, model2_test
+from comparo.lines.multiple import MultipleFit, multiple_fit
 from comparo.lines.resampling import bootstrap_line
 from comparo.lines.result import FitResult, FlaggedRefit
 from comparo.lines.robust import HUBER_C, LTS_CUT, LTSLine, huber_line, lts_fit, lts_line
 from comparo.lines.scaling import fit
 
 __all__ = [
-    "HUBER_C", "LOGS", "LTS_CUT", "METHODS", "FitResult", "FlaggedRefit", "LTSLine",
-    "bootstrap_line", "common_slope_model2", "fit", "group_fits", "huber_line", "lts_fit",
-    "lts_line", "model2_line", "model2_test", "ols_line", "segmented_line", "slope_from_moments",
+    "HUBER_C", "LOGS", "LTS_CUT", "METHODS", "Comparison", "FitResult", "FlaggedRefit", "LTSLine",
+    "MultipleFit", "bootstrap_line", "common_slope_model2", "compare", "fit", "group_fits", "huber_line", "lts_fit",
+    "lts_line", "model2_line", "model2_test", "multiple_fit", "ols_line", "segmented_line", "slope_from_moments",
 ]
