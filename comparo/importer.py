@@ -17,6 +17,7 @@ import os
 import re
 import shutil
 import tempfile
+import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -415,9 +416,11 @@ def _toml_value(v: Any) -> str:
     return json.dumps(str(v), ensure_ascii=False)
 
 
-def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, sources: Path | None, columns: list[Column], counts: dict[str, Any]) -> str:
-    """import.toml: the input (name, sheet, SHA-256), the options, the counts, and per column
-    the decision taken (role, key, unit, basis and how the header was matched)."""
+def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, sources: Path | None,
+                columns: list[Column], counts: dict[str, Any], written: list[str] | None = None) -> str:
+    """import.toml: the input (name, sheet, SHA-256), the options, the files written (the only
+    ones a later ``--overwrite`` import may remove), the counts, and per column the decision
+    taken (role, key, unit, basis and how the header was matched)."""
     from comparo import __version__
 
     lines = ["# Written by 'comparo import': every decision that turned the wide table into this folder.",
@@ -427,7 +430,8 @@ def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, 
              f"file = {_toml_value(wide.name)}", f"sheet = {_toml_value(sheet or '')}",
              f"sha256 = {_toml_value(hashlib.sha256(wide.read_bytes()).hexdigest())}",
              f"decimal_comma = {_toml_value(decimal_comma)}", f"delimiter = {_toml_value(grid.delimiter)}",
-             f"sources = {_toml_value(sources.name if sources else '')}", "", "[defaults]",
+             f"sources = {_toml_value(sources.name if sources else '')}", "", "[output]",
+             f"files = {_toml_value(list(written or []))}", "", "[defaults]",
              'basis = "reported"', f"locator = {_toml_value(NOT_STATED)}",
              "obs_id = \"imp_ + first 10 hex digits of SHA-256(taxon|source|locator|header|muscle|occurrence)\"", "", "[counts]"]
     lines += [f"{k} = {_toml_value(v)}" for k, v in counts.items()]
@@ -449,18 +453,38 @@ def _decide(grid: Grid, catalog: Catalog, map_file: Path | None) -> tuple[list[C
     return columns, probs + more
 
 
-def _suggest_map(columns: list[Column], output: str, avoid: list[Path | None]) -> str:
-    """Write the ready-to-edit map file beside the output; the hint naming it ('' if not written)."""
+def _suggest_map(columns: list[Column], output: str) -> str:
+    """Write the ready-to-edit map file beside the output; the hint naming it ('' if not written).
+
+    An existing map file (perhaps edited by hand) is never replaced: when it holds other
+    text, the suggestion goes to the first free name ``OUT-import-map-2.csv``, ``-3``, ..."""
     from comparo.outputs import atomic_write_text
 
-    path = map_path_for(output)
-    if any(a is not None and os.path.realpath(a) == os.path.realpath(path) for a in avoid):
+    text = map_text(columns)
+    first = path = map_path_for(output)
+    for n in range(2, 1000):
+        if not os.path.lexists(path):
+            break
+        if path.is_file() and not path.is_symlink() and _same_text(path, text):
+            return (f"the map file {path} already holds every column's decision: fill role (and key, unit) "
+                    f"of the rows with an empty role, then rerun with --map {path}")
+        path = first.with_name(f"{first.stem}-{n}.csv")
+    else:
         return ""
     try:
-        atomic_write_text(path, map_text(columns))
+        atomic_write_text(path, text)
     except UsageError:
         return ""
-    return f"a map file with every column's decision is written to {path}: fill role (and key, unit) of the rows with an empty role, then rerun with --map {path}"
+    kept = f" ({first} exists and is kept as it is)" if path != first else ""
+    return (f"a map file with every column's decision is written to {path}{kept}: fill role (and key, unit) "
+            f"of the rows with an empty role, then rerun with --map {path}")
+
+
+def _same_text(path: Path, text: str) -> bool:
+    try:
+        return path.stat().st_size < 10_000_000 and path.read_text(encoding="utf-8") == text
+    except (OSError, UnicodeDecodeError):
+        return False
 
 
 def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: str | os.PathLike | None = None,
@@ -478,13 +502,18 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
         When *output* exists and is not empty (unless *overwrite*).
     """
 
-    from comparo.outputs import is_stdout
+    from comparo.outputs import is_stdout, protecting
 
     if is_stdout(output):
         raise UsageError("comparo import writes a dataset folder: give its path with -o FOLDER (not standard output)")
-    wide, out = Path(wide), Path(output)
-    src = Path(sources) if sources else None
-    mp = Path(map_file) if map_file else None
+    with protecting([wide, sources, map_file]):
+        return _import(Path(wide), Path(output), Path(sources) if sources else None,
+                       Path(map_file) if map_file else None, sheet, decimal_comma, overwrite, catalog)
+
+
+def _import(wide: Path, out: Path, src: Path | None, mp: Path | None, sheet: str | None, decimal_comma: bool,
+            overwrite: bool, catalog: Catalog | None) -> ImportResult:
+    output = str(out)
     catalog = catalog or load_catalog()
     if out.is_dir() and any(out.iterdir()) and not overwrite:
         raise UsageError(f"output folder {output} exists and is not empty; comparo import writes a new dataset folder: "
@@ -494,7 +523,7 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
         raise InputError(problems)
     columns, more = _decide(grid, catalog, mp)
     if more:
-        written = _suggest_map(columns, str(output), [mp, wide, src])
+        written = _suggest_map(columns, str(output))
         if written:
             more.append(Problem("note", grid.file, None, None, None, "map-file-written", written))
         raise InputError(more)
@@ -522,8 +551,9 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
     files = {"observations.csv": _csv(obs), src_name: src_bytes if src_bytes is not None else _csv(src_table.frame)}
     if taxa is not None:
         files["taxa.csv"] = _csv(taxa)
-    files["import.toml"] = import_toml(grid, wide, sheet, decimal_comma, src, columns, counts).encode("utf-8")
-    _write_folder(out, files, overwrite)
+    files["import.toml"] = import_toml(grid, wide, sheet, decimal_comma, src, columns, counts,
+                                       [*files, "import.toml"]).encode("utf-8")
+    warnings += _write_folder(out, files, overwrite)
     return ImportResult(str(output), len(grid.rows), len(obs), long.empty, counts["taxa"], len(src_table), stubs,
                         columns, warnings, list(files))
 
@@ -534,15 +564,18 @@ def _csv(frame) -> bytes:
     return to_csv(frame).encode("utf-8")
 
 
-def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> None:
-    """A new folder appears whole (written beside it, then renamed); into an existing one each
-    file is replaced atomically, and the tables of an earlier import it does not write again
-    (observations.*, sources.*, taxa.*) are removed."""
-    from comparo.io import OBSERVATION_NAMES, SOURCE_NAMES, TAXA_NAMES
-    from comparo.outputs import _write_error, atomic_write_bytes
+def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> list[Problem]:
+    """A new folder appears whole (written beside it, then renamed). Into an existing one
+    (``--overwrite``) each file is replaced atomically, and the tables an earlier import
+    wrote there (listed in its import.toml) that this one does not write again are removed;
+    nothing else is removed. Every path is checked before the first write: none may be an
+    input (:func:`comparo.outputs.resolve_output`), and a table of another name that no
+    import wrote (``observations.xlsx`` beside the new ``observations.csv``) is refused.
+    Returns notes about tables kept."""
+    from comparo.outputs import _write_error, atomic_write_bytes, resolve_output
 
     try:
-        if not out.exists():
+        if not os.path.lexists(out):
             out.parent.mkdir(parents=True, exist_ok=True)
             tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
             try:
@@ -553,15 +586,65 @@ def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> None:
             except BaseException:
                 shutil.rmtree(tmp, ignore_errors=True)
                 raise
-            return
+            return []
+        remove, kept = _earlier_tables(out, files) if overwrite else ([], [])
+        for name in [*files, *remove]:
+            resolve_output(out / name)
         for name, data in files.items():
             atomic_write_bytes(out / name, data)
-        if overwrite:
-            for name in (*OBSERVATION_NAMES, *SOURCE_NAMES, *TAXA_NAMES):
-                if name not in files and (out / name).is_file():
-                    (out / name).unlink()
+        for name in remove:
+            (out / name).unlink()
     except OSError as exc:
         raise _write_error(out, exc) from None
+    return [Problem("warning", name, None, None, None, "table-kept",
+                    f"{out / name} was not written by an earlier comparo import (not in its import.toml): kept "
+                    "as it is, and it is part of the dataset", "remove it if it does not belong to the new import")
+            for name in kept]
+
+
+def _earlier_tables(out: Path, files: dict[str, bytes]) -> tuple[list[str], list[str]]:
+    """(tables of an earlier import in *out* to remove, other tables kept); UsageError when a
+    table that no import wrote would stand beside a new one of the same kind."""
+    from comparo.io import OBSERVATION_NAMES, SOURCE_NAMES, TAXA_NAMES
+
+    written = _written_by_earlier_import(out)
+    remove, kept, clash = [], [], []
+    for kind in (OBSERVATION_NAMES, SOURCE_NAMES, TAXA_NAMES):
+        new = any(n in files for n in kind)
+        for name in kind:
+            if name in files or not (out / name).is_file():
+                continue
+            if name in written:
+                remove.append(name)
+            elif new:
+                clash.append(name)
+            else:
+                kept.append(name)
+    if clash:
+        raise UsageError(f"output folder {out} holds {', '.join(clash)}, which no comparo import wrote there "
+                         "(it is not listed in an import.toml); --overwrite replaces only the tables of an earlier "
+                         "import: move it away, or import into a new folder")
+    return remove, kept
+
+
+def _written_by_earlier_import(out: Path) -> set[str]:
+    """The files an earlier import wrote into *out*, from its import.toml (none without one)."""
+    try:
+        doc = tomllib.loads((out / "import.toml").read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return set()
+    if not isinstance(doc.get("input"), dict):
+        return set()
+    files = doc.get("output", {}).get("files") if isinstance(doc.get("output"), dict) else None
+    if isinstance(files, list):
+        return {str(f) for f in files}
+    # import.toml of an earlier version: observations.csv, the sources table, taxa.csv if taxa columns
+    src = str(doc["input"].get("sources") or "")
+    names = {"observations.csv", f"sources{Path(src).suffix.lower()}" if src else "sources.csv"}
+    cols = doc.get("columns") if isinstance(doc.get("columns"), list) else []
+    if any(isinstance(c, dict) and c.get("role") == "taxa" for c in cols):
+        names.add("taxa.csv")
+    return names
 
 
 def _umask() -> int:
