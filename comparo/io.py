@@ -234,6 +234,7 @@ class _TextFacts:
     non_ascii: bool = True  # some cell may need NFC normalisation
     control: bool = True  # some cell may hold a control character
     long: bool = True  # some cell may exceed MAX_CELL characters
+    quoted: bool = True  # some cell may begin with the apostrophe of comparo.csvsafe
 
     @classmethod
     def of(cls, text: str) -> _TextFacts:
@@ -243,6 +244,7 @@ class _TextFacts:
             non_ascii=not text.isascii(),
             control=control,
             long=len(text) > MAX_CELL and ('"' in text or max(map(len, text.split("\n"))) > MAX_CELL),
+            quoted="'" in text,
         )
 
 
@@ -258,6 +260,10 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _Tex
         frame = frame.loc[keep].reset_index(drop=True)
         rows = [r for r, k in zip(rows, keep, strict=True) if k]
     respelled = _nfc_cells(frame, rows) if facts.non_ascii else {}
+    if facts.quoted:  # the apostrophe comparo puts before a formula-like text (comparo.csvsafe)
+        from comparo.csvsafe import restore_frame
+
+        restore_frame(frame)
     if facts.control:
         probs += _control_characters(file, frame, rows)
     long = frame.apply(lambda s: s.str.len() > MAX_CELL) if facts.long else None

@@ -113,7 +113,9 @@ def _text_cells(path: Path, decimal_comma: bool) -> tuple[list[list[Any]] | None
         cells = [list(r) for r in csv.reader(_io.StringIO(text), delimiter=delim)]
     except csv.Error as exc:
         return None, delim, probs + [_problem(file, "csv-syntax", f"cannot parse the table ({exc})")]
-    return [[nfc(c) for c in r] for r in cells], delim, probs
+    from comparo.csvsafe import restore  # the apostrophe of a CSV comparo wrote
+
+    return [[restore(nfc(c)) if c.startswith("'") else nfc(c) for c in r] for r in cells], delim, probs
 
 
 def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | None, str, list[Problem]]:
