@@ -92,7 +92,7 @@ def restore_frame(frame: pd.DataFrame) -> pd.DataFrame:
     restored (:func:`restore`), in place; returned for chaining."""
     for col in frame.columns:
         s = frame[col]
-        if s.dtype == object:
+        if not (pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)):
             marked = s.map(lambda v: isinstance(v, str) and v.startswith("'"))
             if marked.any():
                 frame.loc[marked, col] = s[marked].map(restore)
