@@ -28,6 +28,7 @@ from comparo.wide import (
     UNCERTAINTY_ROLES,
     Column,
     Grid,
+    Percent,
     apply_map,
     map_text,
     match_headers,
@@ -81,6 +82,20 @@ def map_path_for(output: str | os.PathLike) -> Path:
 
 
 # --------------------------------------------------------------------------- numbers
+
+def _percent_scale(unit: str | None) -> int | None:
+    """How a percent-formatted cell reads under *unit*: 100 (the number shown, 50 for a
+    stored 0.5) under a % unit, 1 (the number stored) under a dimensionless one, None under
+    any other unit."""
+    from comparo import units
+
+    try:
+        if units.unit_dimensions(unit or "1"):
+            return None
+        return 100 if math.isclose(units.base_factor(unit or "1"), 0.01) else 1
+    except Exception:  # a unit pint cannot read is reported by the header checks
+        return None
+
 
 def parse_cell(v: Any, decimal_comma: bool) -> tuple[str | None, str, str]:
     """A cell as number text (``'12.5'``), or ``None`` with a message and a hint.
@@ -248,13 +263,23 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
         v = grid.rows[i][c.index]
         return (str(int(v)) if isinstance(v, float) and v.is_integer() else repr(v)) if isinstance(v, float) else v
 
-    def number(i: int, c: Column) -> str | None:
+    def number(i: int, c: Column, unit: str | None = None) -> str | None:  # unit: of the trait
         v = grid.rows[i][c.index]
         if isinstance(v, str) and not v:
             return None
         if isinstance(v, str) and v.casefold() in _EMPTY_WORDS:
             out.empty_words.setdefault(c.header, []).append(grid.coordinate(i, c.index))
             return None
+        if isinstance(v, Percent) and math.isfinite(v):
+            unit = c.unit if unit is None else unit
+            scale = _percent_scale(unit)
+            if scale is None:
+                out.problems.append(_number_problem(
+                    grid, c, i, f"{v.shown()}%", f"formatted as a percentage (the sheet shows {v.shown()}%) "
+                    f"but the column's unit is {unit!r}", "format the cell as a plain number, or give the "
+                    "header a % unit"))
+                return None
+            return v.shown() if scale == 100 else parse_cell(float(v), decimal_comma)[0]
         t, msg, hint = parse_cell(v, decimal_comma)
         if t is None:
             out.problems.append(_number_problem(grid, c, i, v, msg, hint))
@@ -303,7 +328,7 @@ def to_long(grid: Grid, columns: list[Column], decimal_comma: bool = False) -> _
                     origin[col] = (src.header, grid.coordinate(i, src.index), rownum)
             spread = next((per_key[(r, c.key)] for r in UNCERTAINTY_ROLES if (r, c.key) in per_key), None)
             if spread is not None:
-                u = number(i, spread)
+                u = number(i, spread, spread.unit or c.unit)
                 if u is not None:
                     if spread.unit and spread.unit != c.unit:
                         u = f"{float(u) * units.conversion_factor(spread.unit, c.unit):.15g}"

@@ -136,9 +136,13 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
     file = f"{path.name}[{chosen}]"
     probs: list[Problem] = []
     cells: list[list[Any]] = []
-    for r, (vals, forms) in enumerate(zip(book[chosen].iter_rows(values_only=True), formulas[chosen].iter_rows(values_only=True), strict=False), start=1):
+    for r, (found, forms) in enumerate(zip(book[chosen].iter_rows(), formulas[chosen].iter_rows(values_only=True), strict=False), start=1):
         row: list[Any] = []
-        for c, (v, f) in enumerate(zip(vals, forms, strict=False)):
+        for c, (cell, f) in enumerate(zip(found, forms, strict=False)):
+            v = getattr(cell, "value", None)
+            if isinstance(v, int | float) and not isinstance(v, bool) and is_percent_format(getattr(cell, "number_format", "")):
+                row.append(Percent(v))
+                continue
             if v is None and isinstance(f, str) and f.startswith("="):
                 probs.append(_problem(file, "formula-no-value", f"cell {column_letter(c)}{r} holds a formula with no saved result", "open the workbook in a spreadsheet program and save it, so that the results are stored", row=r, value=f[:40]))
             if isinstance(v, bool):
@@ -153,6 +157,29 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
     book.close()
     formulas.close()
     return cells, file, probs
+
+
+class Percent(float):
+    """A number cell of a workbook shown as a percentage: the float is the number stored
+    (0.5), which the sheet shows as 50%. The importer reads it by the column's unit: 50 under
+    a % unit, 0.5 under a dimensionless one (:func:`comparo.importer.parse_cell`)."""
+
+    def shown(self) -> str:
+        """The number the sheet shows before its % sign, as text (``'50'`` for 0.5)."""
+        from decimal import Decimal
+
+        d = Decimal(repr(float(self))) * 100
+        t = format(d.normalize(), "f")
+        return t
+
+
+def is_percent_format(number_format: str | None) -> bool:
+    """True when a cell's number format shows the value times 100 with a % sign (``0%``,
+    ``0.0%``); a % inside quotes or after a backslash is a literal and does not scale."""
+    if not number_format:
+        return False
+    plain = re.sub(r'"[^"]*"|\\.', "", str(number_format))
+    return "%" in plain
 
 
 def _grid(file: str, cells: list[list[Any]]) -> tuple[Grid | None, list[Problem]]:
