@@ -372,16 +372,25 @@ def _frame(records: list[dict[str, str]], columns: list[str]):
 
 
 def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -> list[Problem]:
-    """Validate the long tables as ``comparo check`` does; problems at the wide cells."""
-    from comparo.io import RawDataset, RawTable
+    """Validate the long tables as ``comparo check`` does; problems at the wide cells.
+
+    Names, keys, units and ids are first read as they look (:func:`comparo.io.clean_names`:
+    no-break and zero-width spaces, direction marks), in *obs*, *taxa* and stub sources
+    themselves (stub sources are made from ids so read), so the folder written holds the
+    names as read."""
+    from comparo.io import RawDataset, RawTable, clean_names
     from comparo.validate import validate
 
+    pre = clean_names("observations.csv", obs, list(range(2, len(obs) + 2)))
+    if taxa is not None:
+        pre += clean_names("taxa.csv", taxa, list(range(2, len(taxa) + 2)))
     raw = RawDataset(folder=folder)
     raw.observations = RawTable("observations.csv", obs.copy(), list(range(2, len(obs) + 2)))
     raw.sources = sources_table
     if taxa is not None:
         raw.taxa = RawTable("taxa.csv", taxa.copy(), list(range(2, len(taxa) + 2)))
     _, problems = validate(raw)
+    problems = pre + list(problems)
     out = []
     first_row = list(long.taxa_origin.values())
     for p in problems:
@@ -405,7 +414,9 @@ def _sources(sources: Path | None, ids: list[str], grid: Grid):
     from comparo.io import RawTable, read_bibtex, read_table
 
     if sources is None:
-        stubs = sorted({i for i in ids if i})
+        from comparo.io import visible
+
+        stubs = sorted({visible(i) for i in ids if i})  # ids as read (see _validate)
         frame = pd.DataFrame({"source_id": stubs, "citation": [STUB_CITATION.format(sid=s, file=grid.file) for s in stubs],
                               "year": "", "doi": "", "url": "", "notes": "stub written by comparo import"}).astype(str)
         return RawTable("sources.csv", frame, list(range(2, len(frame) + 2))), "sources.csv", None, stubs, []

@@ -125,6 +125,61 @@ def nfc(text: str) -> str:
     return text if text.isascii() else unicodedata.normalize("NFC", text)
 
 
+# characters that show nothing (zero-width space, non-joiner, joiner, word joiner, soft hyphen,
+# left-to-right and right-to-left marks, bidirectional embeddings and isolates, a byte-order
+# mark inside text) and spaces other than the plain one (no-break, narrow no-break, thin,
+# figure, ideographic ...): in a name they make a second name that looks the same
+_INVISIBLE = re.compile("[\u00ad\u061c\u180e\u200b-\u200f\u202a-\u202e\u2060-\u2064\u2066-\u2069\ufeff]")
+_ODD_SPACE = re.compile("[\u00a0\u1680\u2000-\u200a\u202f\u205f\u3000]")
+# the columns holding names, keys, units and ids (matched exactly), where such characters are read away
+NAME_COLUMNS = frozenset({
+    "obs_id", "taxon", "quantity", "unit", "uncertainty_kind", "source_id", "basis", "inputs", "proxy_taxon",
+    "preparation", "accepted_name", "tree_label", "trace_id", "kind", "time_unit", "x_unit", "y_unit",
+    "thermoregulation",
+})
+
+
+def visible(text: str) -> str:
+    """*text* as it looks: characters that show nothing removed, any other space a plain
+    space, and (where one of those was) runs of spaces made one and the ends trimmed.
+
+    Names, keys, units and ids are read so (:data:`NAME_COLUMNS`), so that
+    ``'Apis\u00a0mellifera'`` (a no-break space) and ``'Apis mellifera\u200b'`` (a
+    zero-width space) are the taxon ``'Apis mellifera'``; each such cell is named in a
+    warning (rule ``invisible-character``)."""
+    if text.isascii():
+        return text
+    t = _ODD_SPACE.sub(" ", _INVISIBLE.sub("", text))
+    return re.sub(" {2,}", " ", t).strip() if t != text else t
+
+
+def _invisible_names(text: str) -> str:
+    found = dict.fromkeys(c for c in text if _INVISIBLE.match(c) or _ODD_SPACE.match(c))
+    return ", ".join(f"U+{ord(c):04X} {unicodedata.name(c, 'unnamed')}" for c in found)
+
+
+def clean_names(file: str, frame, rows: list[int]) -> list[Problem]:
+    """Read the name columns of *frame* (in place) with :func:`visible`; one warning per
+    distinct value changed, naming its first cell, what it held and how it is read."""
+    probs: list[Problem] = []
+    for col in frame.columns:
+        if str(col) not in NAME_COLUMNS:
+            continue
+        s = frame[col]
+        fix = {u: visible(u) for u in s.unique() if isinstance(u, str) and not u.isascii()}
+        fix = {k: v for k, v in fix.items() if k != v}
+        if not fix:
+            continue
+        for old, new in fix.items():
+            where = [rows[i] for i in map(int, (s == old).to_numpy().nonzero()[0])]
+            more = f" (rows {', '.join(map(str, where[:5]))}{' ...' if len(where) > 5 else ''})" if len(where) > 1 else ""
+            probs.append(_err(file, "invisible-character", f"{old!r} holds {_invisible_names(old)}, which shows as nothing "
+                              f"or as a plain space; read as {new!r}{more}", "retype the cell if the name was meant to "
+                              "differ; nothing to do otherwise", row=where[0], column=str(col), value=old, severity="warning"))
+        frame[col] = s.map(lambda v, fix=fix: fix.get(v, v))
+    return probs
+
+
 def _nfc_cells(frame, rows: list[int]) -> dict[str, dict[str, list[tuple[str, int]]]]:
     """Normalise every cell of *frame* (strings) to NFC in place; return what changed."""
     import pandas as pd
@@ -274,6 +329,8 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _Tex
                 frame.at[ri, col] = frame.at[ri, col][:MAX_CELL]
     known = _known_columns()
     frame.columns = [c.lower() if c.lower() in known else c for c in (str(c).strip() for c in frame.columns)]
+    if facts.non_ascii:
+        probs += clean_names(file, frame, rows)
     return RawTable(file, frame, rows, respelled), probs
 
 
