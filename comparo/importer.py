@@ -381,9 +381,9 @@ def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -
     from comparo.io import RawDataset, RawTable, clean_names
     from comparo.validate import validate
 
-    pre = clean_names("observations.csv", obs, list(range(2, len(obs) + 2)))
-    if taxa is not None:
-        pre += clean_names("taxa.csv", taxa, list(range(2, len(taxa) + 2)))
+    pre = clean_names("observations.csv", obs, list(range(2, len(obs) + 2)), other_rows=False)
+    if taxa is not None:  # its names come from the taxon cells named above
+        clean_names("taxa.csv", taxa, list(range(2, len(taxa) + 2)))
     raw = RawDataset(folder=folder)
     raw.observations = RawTable("observations.csv", obs.copy(), list(range(2, len(obs) + 2)))
     raw.sources = sources_table
@@ -611,6 +611,7 @@ def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> list[P
     from comparo.outputs import _write_error, atomic_write_bytes, resolve_output
 
     try:
+        resolve_output(out)  # the folder itself (and, below, each file) never lands in an input
         if not os.path.lexists(out):
             out.parent.mkdir(parents=True, exist_ok=True)
             tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))

@@ -158,9 +158,10 @@ def _invisible_names(text: str) -> str:
     return ", ".join(f"U+{ord(c):04X} {unicodedata.name(c, 'unnamed')}" for c in found)
 
 
-def clean_names(file: str, frame, rows: list[int]) -> list[Problem]:
+def clean_names(file: str, frame, rows: list[int], other_rows: bool = True) -> list[Problem]:
     """Read the name columns of *frame* (in place) with :func:`visible`; one warning per
-    distinct value changed, naming its first cell, what it held and how it is read."""
+    distinct value changed, naming its first cell (and the other rows holding it, when
+    *other_rows*), what it held and how it is read."""
     probs: list[Problem] = []
     for col in frame.columns:
         if str(col) not in NAME_COLUMNS:
@@ -172,7 +173,7 @@ def clean_names(file: str, frame, rows: list[int]) -> list[Problem]:
             continue
         for old, new in fix.items():
             where = [rows[i] for i in map(int, (s == old).to_numpy().nonzero()[0])]
-            more = f" (rows {', '.join(map(str, where[:5]))}{' ...' if len(where) > 5 else ''})" if len(where) > 1 else ""
+            more = f" (rows {', '.join(map(str, where[:5]))}{' ...' if len(where) > 5 else ''})" if len(where) > 1 and other_rows else ""
             probs.append(_err(file, "invisible-character", f"{old!r} holds {_invisible_names(old)}, which shows as nothing "
                               f"or as a plain space; read as {new!r}{more}", "retype the cell if the name was meant to "
                               "differ; nothing to do otherwise", row=where[0], column=str(col), value=old, severity="warning"))
