@@ -24,11 +24,11 @@ from typing import Any
 
 from comparo.catalog import Catalog, load_catalog
 from comparo.errors import InputError, Problem, UsageError
+from comparo.io import Percent, is_percent_unit
 from comparo.wide import (
     UNCERTAINTY_ROLES,
     Column,
     Grid,
-    Percent,
     apply_map,
     map_text,
     match_headers,
@@ -89,10 +89,10 @@ def _percent_scale(unit: str | None) -> int | None:
     any other unit."""
     from comparo import units
 
+    if is_percent_unit(unit or "1"):
+        return 100
     try:
-        if units.unit_dimensions(unit or "1"):
-            return None
-        return 100 if math.isclose(units.base_factor(unit or "1"), 0.01) else 1
+        return None if units.unit_dimensions(unit or "1") else 1
     except Exception:  # a unit pint cannot read is reported by the header checks
         return None
 

@@ -398,6 +398,7 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
         return None, probs
     body = frame.iloc[first + 1:].reset_index(drop=True)
     body.columns = header
+    _percent_as_shown(book, chosen, body, first)
     keep = [not (h.startswith("unnamed_") and (body[h] == "").all()) for h in header]
     body = body.loc[:, keep]
     rows = list(range(first + 2, first + 2 + len(body)))
@@ -407,6 +408,60 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     positions = [i for i, k in enumerate(keep) if k]
     table.letters = {str(c): get_column_letter(i + 1) for c, i in zip(table.frame.columns, positions, strict=True)}
     return table, probs
+
+
+class Percent(float):
+    """A number cell of a workbook shown as a percentage: the float is the number stored
+    (0.5), which the sheet shows as 50%."""
+
+    def shown(self) -> str:
+        """The number the sheet shows before its % sign, as text (``'50'`` for 0.5)."""
+        from decimal import Decimal
+
+        return format((Decimal(repr(float(self))) * 100).normalize(), "f")
+
+
+def is_percent_format(number_format: str | None) -> bool:
+    """True when a cell's number format shows the value times 100 with a % sign (``0%``,
+    ``0.0%``; ECMA-376 Part 1, 18.8.31); a % inside quotes or after a backslash is a literal
+    and does not scale."""
+    if not number_format:
+        return False
+    return "%" in re.sub(r'"[^"]*"|\\.', "", str(number_format))
+
+
+def is_percent_unit(unit: str) -> bool:
+    """True for a unit that is one hundredth of a plain number (``%``, ``percent``)."""
+    from comparo import units
+
+    try:
+        return not units.unit_dimensions(unit) and abs(units.base_factor(unit) - 0.01) < 1e-12
+    except Exception:  # a unit pint cannot read is reported by validation
+        return False
+
+
+def _percent_as_shown(book, sheet: str, body, first: int) -> None:
+    """In place: cells of ``value`` and ``uncertainty`` formatted as a percentage, on rows
+    whose ``unit`` is a percent, as the sheet shows them (stored 0.5, shown 50% -> '50')."""
+    cols = {str(c).strip().lower(): i for i, c in enumerate(body.columns)}
+    targets = [cols[c] for c in ("value", "uncertainty") if c in cols]
+    if "unit" not in cols or not targets:
+        return
+    units_typed = body.iloc[:, cols["unit"]].astype(str).str.strip()
+    percent = {u for u in units_typed.unique() if u and is_percent_unit(u)}
+    want = set(map(int, units_typed.isin(percent).to_numpy().nonzero()[0]))
+    if not want:
+        return
+    sheet_rows = book.book[sheet].iter_rows(min_row=first + 2, max_row=first + 1 + len(body))
+    for k, row in enumerate(sheet_rows):
+        if k not in want:
+            continue
+        for j in targets:
+            cell = row[j] if j < len(row) else None
+            v = getattr(cell, "value", None)
+            if isinstance(v, int | float) and not isinstance(v, bool) and is_percent_format(
+                    getattr(cell, "number_format", None)):
+                body.iat[k, j] = Percent(v).shown()
 
 
 def _excel_cell(v: Any) -> str:

@@ -26,7 +26,7 @@ from typing import Any
 
 from comparo.catalog import Catalog
 from comparo.errors import Problem
-from comparo.io import MAX_CELL, decode_bytes, nfc
+from comparo.io import MAX_CELL, Percent, decode_bytes, is_percent_format, nfc
 
 UNCERTAINTY_ROLES = ("sd", "se", "ci95", "range_half")
 ROLES = ("value", *UNCERTAINTY_ROLES, "n", "source", "locator", "taxon", "temperature", "taxa", "column", "ignore")
@@ -157,29 +157,6 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
     book.close()
     formulas.close()
     return cells, file, probs
-
-
-class Percent(float):
-    """A number cell of a workbook shown as a percentage: the float is the number stored
-    (0.5), which the sheet shows as 50%. The importer reads it by the column's unit: 50 under
-    a % unit, 0.5 under a dimensionless one (:func:`comparo.importer.parse_cell`)."""
-
-    def shown(self) -> str:
-        """The number the sheet shows before its % sign, as text (``'50'`` for 0.5)."""
-        from decimal import Decimal
-
-        d = Decimal(repr(float(self))) * 100
-        t = format(d.normalize(), "f")
-        return t
-
-
-def is_percent_format(number_format: str | None) -> bool:
-    """True when a cell's number format shows the value times 100 with a % sign (``0%``,
-    ``0.0%``); a % inside quotes or after a backslash is a literal and does not scale."""
-    if not number_format:
-        return False
-    plain = re.sub(r'"[^"]*"|\\.', "", str(number_format))
-    return "%" in plain
 
 
 def _grid(file: str, cells: list[list[Any]]) -> tuple[Grid | None, list[Problem]]:

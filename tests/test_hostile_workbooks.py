@@ -86,3 +86,32 @@ def test_a_percent_cell_under_another_unit_is_an_error_naming_it(tmp_path):
     assert proc.returncode == 2
     assert "cell B3 is formatted as a percentage (the sheet shows 50%) but the column's unit is 'g'" in proc.stderr
     assert changed_outside(before, snapshot(tmp_path)) == []
+
+
+def test_a_dataset_workbook_reads_percent_cells_by_the_rows_unit(tmp_path):
+    """The entry workbook filled in a spreadsheet: 50% (stored 0.5) with unit % is 50 %, a
+    5% spread with it is 5 %, and 45% with unit 1 is 0.45 (canonical: a fraction)."""
+    book = tmp_path / "e.xlsx"
+    assert run_main("template", "-o", str(book)).returncode == 0
+    wb = openpyxl.load_workbook(book)
+    ws = wb["observations"]
+    head = [c.value for c in ws[1]]
+    rows = [dict(obs_id="o1", taxon="Apis mellifera", value=0.5, unit="%", uncertainty=0.05, uncertainty_kind="sd"),
+            dict(obs_id="o2", taxon="Bombus terrestris", value=0.45, unit="1"),
+            dict(obs_id="o3", taxon="Vespa crabro", value=40, unit="%")]
+    for r, rec in enumerate(rows, start=2):
+        rec.update(quantity="myofibril_volume_fraction", source_id="s1", locator="Table 1", basis="reported")
+        for k, v in rec.items():
+            cell = ws.cell(row=r, column=head.index(k) + 1, value=v)
+            if k in ("value", "uncertainty") and r < 4:
+                cell.number_format = "0%"
+    wb["sources"]["A2"], wb["sources"]["B2"] = "s1", "Invented A. (2001) One"
+    wb.save(book)
+    before = snapshot(tmp_path)
+    proc = run_main("table", str(book))
+    assert proc.returncode == 0, proc.stderr
+    assert snapshot(tmp_path) == before
+    lines = [ln.split(",") for ln in proc.stdout.splitlines()]
+    col = lines[0].index("myofibril_volume_fraction")
+    assert [(ln[0], float(ln[col]), ln[col + 1]) for ln in lines[1:]] == [
+        ("Apis mellifera", 0.5, "0.05"), ("Bombus terrestris", 0.45, ""), ("Vespa crabro", 0.4, "")]
