@@ -5,7 +5,7 @@ cell that begins with ``=`` or ``@`` (or a tab or carriage return), and one begi
 ``+`` or ``-`` when what follows is a formula (a function call, a DDE link ``|``,
 arithmetic, a cell reference). Such cells are written with one apostrophe before them;
 everything else is written as it is. Checked here over every column of every CSV output
-(import, table, derive, audit -o, export datapackage and dwc, fit csv):
+(import, table, derive, audit -o, export datapackage and dwc, fit csv, the report's tables):
 
 * no cell of any output can run as a formula (a predicate written here, independent of
   comparo's own);
@@ -79,7 +79,8 @@ def rt(tmp_path_factory):
     runs = {"table.csv": ["table", ds, "-o", out / "table.csv"], "derive.csv": ["derive", ds, "-o", out / "derive.csv"],
             "audit": ["audit", ds, "-o", out / "audit", "--format", "json"],
             "dp": ["export", ds, "--to", "datapackage", "-o", out / "dp"],
-            "dwc": ["export", ds, "--to", "dwc", "-o", out / "dwc"]}
+            "dwc": ["export", ds, "--to", "dwc", "-o", out / "dwc"],
+            "report": ["report", ds, "-o", out / "report", "--quiet"]}
     before = snapshot(ds)
     for name, argv in runs.items():
         proc = run_main(*map(str, argv))
@@ -130,6 +131,18 @@ def test_reading_an_output_back_and_writing_it_again_gives_the_same_bytes(rt, na
     text = (out / name).read_text(encoding="utf-8")
     frame = restore_frame(pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False))
     assert to_csv(frame) == text
+
+
+def test_every_csv_output_reads_back_to_the_same_bytes(rt):
+    """The same over every CSV found in the outputs, the report's tables included."""
+    _, out = rt
+    found = csv_outputs(out)
+    assert any(f.parent.name == "tables" for f in found)
+    for f in found:
+        text = f.read_text(encoding="utf-8")
+        if text.strip():
+            frame = restore_frame(pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False))
+            assert to_csv(frame) == text, f
 
 
 def test_export_reads_back_as_the_dataset_says(rt):
