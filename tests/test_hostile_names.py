@@ -46,13 +46,16 @@ def test_an_invisible_character_does_not_make_a_second_taxon(tmp_path, kind, whe
 @pytest.mark.parametrize("space", ["\u00a0", "\u202f", "\u2009", "\u3000"])
 def test_a_no_break_or_other_space_is_a_plain_space(tmp_path, space):
     ds = write_dataset(tmp_path / "DS", _rows(f"Apis{space}mellifera"))
+    before = snapshot(tmp_path)
     proc = run_main("check", str(ds), "--format", "csv")
     assert proc.returncode == 0, proc.stderr
     assert "invisible-character" in proc.stdout and "read as 'Apis mellifera'" in proc.stdout
     proc = run_main("audit", str(ds), "--format", "json")
     import json
 
+    assert proc.returncode == 0
     assert sorted(json.loads(proc.stdout)["coverage"]) == ["Apis mellifera", "Bombus terrestris"]
+    assert snapshot(tmp_path) == before
 
 
 def test_units_keys_and_ids_are_read_as_they_look(tmp_path):

@@ -81,7 +81,7 @@ def rt(tmp_path_factory):
             "dp": ["export", ds, "--to", "datapackage", "-o", out / "dp"],
             "dwc": ["export", ds, "--to", "dwc", "-o", out / "dwc"],
             "report": ["report", ds, "-o", out / "report", "--quiet"]}
-    before = snapshot(ds)
+    before, everything = snapshot(ds), snapshot(root)
     for name, argv in runs.items():
         proc = run_main(*map(str, argv))
         assert proc.returncode == 0, (name, proc.stderr)
@@ -89,6 +89,7 @@ def rt(tmp_path_factory):
     assert proc.returncode == 0, proc.stderr
     (out / "fit.csv").write_text(proc.stdout, encoding="utf-8")
     assert snapshot(ds) == before
+    assert changed_outside(everything, snapshot(root), ("out",)) == []
     return ds, out
 
 
