@@ -93,7 +93,10 @@ def restore_frame(frame: pd.DataFrame) -> pd.DataFrame:
     for col in frame.columns:
         s = frame[col]
         if not (pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)):
-            marked = s.map(lambda v: isinstance(v, str) and v.startswith("'"))
+            try:
+                marked = s.str.startswith("'", na=False).astype(bool)
+            except (AttributeError, TypeError):  # no text in the column
+                marked = s.map(lambda v: isinstance(v, str) and v.startswith("'"))
             if marked.any():
                 frame.loc[marked, col] = s[marked].map(restore)
     frame.columns = [restore(c) for c in frame.columns]

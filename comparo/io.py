@@ -281,6 +281,9 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     return _finish(file, frame, rows, probs, _TextFacts.of(text))
 
 
+_CELL_APOSTROPHE = re.compile("(?:^|[,;\t\n])\"?'")  # a cell that begins with an apostrophe
+
+
 @dataclass(frozen=True)
 class _TextFacts:
     """What a whole file's text rules out for every cell, so the per-cell passes can be skipped
@@ -300,7 +303,7 @@ class _TextFacts:
             non_ascii=not text.isascii(),
             control=control,
             long=len(text) > MAX_CELL and ('"' in text or max(map(len, text.split("\n"))) > MAX_CELL),
-            quoted="'" in text,
+            quoted="'" in text and _CELL_APOSTROPHE.search(text) is not None,
         )
 
 
