@@ -139,6 +139,9 @@ NAME_COLUMNS = frozenset({
 })
 
 
+_LABEL_WITH_INVISIBLE = re.compile(r"[^(),:;\[\]]*" + _INVISIBLE.pattern + r"[^(),:;\[\]]*")
+
+
 def visible(text: str) -> str:
     """*text* as it looks: characters that show nothing removed, any other space a plain
     space, and (where one of those was) runs of spaces made one and the ends trimmed.
@@ -670,6 +673,12 @@ def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
     if nfc(text) != text:
         text = nfc(text)
         probs.append(_err(file, "unicode-unified", "some tip labels are typed with decomposed accents; read in Unicode NFC (composed) so that they match the same names typed composed", "nothing to do unless two labels differed only in this way", severity="warning"))
+    if not text.isascii() and _INVISIBLE.search(text):  # tips are matched to taxa as they look
+        labels = list(dict.fromkeys(m.group(0).strip() for m in _LABEL_WITH_INVISIBLE.finditer(text)))
+        probs.append(_err(file, "invisible-character", f"tip label(s) {', '.join(map(repr, labels[:5]))}"
+                          f"{' ...' if len(labels) > 5 else ''} hold {_invisible_names(''.join(labels))}, which shows "
+                          "as nothing; matched to taxa as they look", "nothing to do unless a label was meant to differ",
+                          value=labels[0], severity="warning"))
     if text.count("(") != text.count(")"):
         return None, text, probs + [_err(file, "newick-syntax", f"unbalanced parentheses ({text.count('(')} '(' vs {text.count(')')} ')')", "check the Newick string")]
     from comparo.newick import parse

@@ -97,3 +97,27 @@ def test_import_reads_names_as_they_look_and_names_the_wide_cells(tmp_path):
     assert "\u00a0" not in text and "\u200b" not in text and "\u200f" not in text
     proc = run_main("check", str(tmp_path / "I"), "--format", "csv")
     assert proc.returncode == 0 and "invisible-character" not in proc.stdout
+
+
+def test_a_tree_tip_with_an_invisible_character_still_matches_its_taxon(tmp_path):
+    """PGLS keeps all four taxa; check names the tip. (Three taxa would be left if the tip
+    with a zero-width space stayed unmatched.)"""
+    rows = [f"m{i},{t},body_mass,{m},mg,,,,s1,T1,reported,,," for i, (t, m) in
+            enumerate([("Apis mellifera", 100), ("Bombus terrestris", 200), ("Vespa crabro", 500), ("Musca domestica", 12)])]
+    rows += [f"f{i},{t},frequency_observed,{f},Hz,,,,s1,T1,reported,,,25" for i, (t, f) in
+             enumerate([("Apis mellifera", 230), ("Bombus terrestris", 180), ("Vespa crabro", 100), ("Musca domestica", 190)])]
+    ds = write_dataset(tmp_path / "DS", rows)
+    (ds / "tree.nwk").write_text("((Apis_mellifera\u200b:1,Bombus\u200e_terrestris:1):1,(Vespa_crabro:1,Musca_domestica:1):1);",
+                                 encoding="utf-8")
+    before = snapshot(tmp_path)
+    proc = run_main("check", str(ds), "--format", "csv")
+    assert proc.returncode == 0, proc.stderr
+    assert "taxon-without-tip" not in proc.stdout
+    assert "tip label(s) 'Apis_mellifera\\u200b', 'Bombus\\u200e_terrestris' hold U+200B ZERO WIDTH SPACE, " \
+           "U+200E LEFT-TO-RIGHT MARK" in proc.stdout
+    proc = run_main("fit", str(ds), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--format", "json")
+    assert proc.returncode == 0, proc.stderr
+    import json
+
+    assert json.loads(proc.stdout)["n"] == 4
+    assert snapshot(tmp_path) == before
