@@ -225,8 +225,13 @@ def _guard_output(args: argparse.Namespace) -> None:
         return
     from comparo.outputs import guard_output
 
-    inputs = [getattr(args, name, None) for name in ("dataset", "data", "tree", "wide", "sources", "map", "old", "new")]
-    guard_output(output, kind=getattr(args, "output_kind", "file"), inputs=inputs)
+    guard_output(output, kind=getattr(args, "output_kind", "file"), inputs=_inputs(args))
+
+
+def _inputs(args: argparse.Namespace) -> list:
+    """The command's input paths: every write of the command is refused on or inside them."""
+    names = ("dataset", "data", "tree", "wide", "sources", "map", "old", "new")
+    return [getattr(args, name, None) for name in names]
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -247,7 +252,10 @@ def main(argv: list[str] | None = None) -> int:
 
     try:
         _guard_output(args)
-        return int(module.run(args) or 0)
+        from comparo.outputs import protecting
+
+        with protecting(_inputs(args)):
+            return int(module.run(args) or 0)
     except InputError as exc:
         from comparo.outputs import print_problems
 

@@ -52,9 +52,13 @@ class ExportResult:
         return f"{self.standard}: wrote {', '.join(self.files)} to {self.folder}"
 
 
-def _commit(tmp: Path, out: Path) -> list[str]:
-    out.mkdir(parents=True, exist_ok=True)
+def _commit(tmp: Path, out: Path, inputs: list[Path]) -> list[str]:
+    from comparo.outputs import resolve_output
+
     names = sorted(p.name for p in tmp.iterdir())
+    for name in ["", *names]:  # every file checked before the first is moved in
+        resolve_output(out / name, inputs)
+    out.mkdir(parents=True, exist_ok=True)
     for name in names:
         os.replace(tmp / name, out / name)
     return names
@@ -168,7 +172,7 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
             "resources": resources,
         }
         (tmp / "datapackage.json").write_text(json.dumps(package, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
-        files = _commit(tmp, out)
+        files = _commit(tmp, out, [ds.folder])
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return ExportResult("datapackage", str(out), files)
@@ -268,7 +272,7 @@ def to_dwc(ds: Dataset, out_dir: str | Path) -> ExportResult:
     tmp = _staging(out)
     try:
         (tmp / "measurementorfact.csv").write_text(to_csv(dwc_frame(ds)), encoding="utf-8")
-        files = _commit(tmp, out)
+        files = _commit(tmp, out, [ds.folder])
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return ExportResult("dwc", str(out), files)

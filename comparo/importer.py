@@ -17,12 +17,14 @@ import os
 import re
 import shutil
 import tempfile
+import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
 from comparo.catalog import Catalog, load_catalog
 from comparo.errors import InputError, Problem, UsageError
+from comparo.io import Percent, is_percent_unit
 from comparo.wide import (
     UNCERTAINTY_ROLES,
     Column,
@@ -82,6 +84,20 @@ def map_path_for(output: str | os.PathLike) -> Path:
 
 
 # --------------------------------------------------------------------------- numbers
+
+def _percent_scale(unit: str | None) -> int | None:
+    """How a percent-formatted cell reads under *unit*: 100 (the number shown, 50 for a
+    stored 0.5) under a % unit, 1 (the number stored) under a dimensionless one, None under
+    any other unit."""
+    from comparo import units
+
+    if is_percent_unit(unit or "1"):
+        return 100
+    try:
+        return None if units.unit_dimensions(unit or "1") else 1
+    except Exception:  # a unit pint cannot read is reported by the header checks
+        return None
+
 
 def parse_cell(v: Any, decimal_comma: bool) -> tuple[str | None, str, str]:
     """A cell as number text (``'12.5'``), or ``None`` with a message and a hint.
@@ -273,13 +289,23 @@ def to_long(
         v = grid.rows[i][c.index]
         return (str(int(v)) if isinstance(v, float) and v.is_integer() else repr(v)) if isinstance(v, float) else v
 
-    def number(i: int, c: Column) -> str | None:
+    def number(i: int, c: Column, unit: str | None = None) -> str | None:  # unit: of the trait
         v = grid.rows[i][c.index]
         if isinstance(v, str) and not v:
             return None
         if isinstance(v, str) and v.casefold() in _EMPTY_WORDS:
             out.empty_words.setdefault(c.header, []).append(grid.coordinate(i, c.index))
             return None
+        if isinstance(v, Percent) and math.isfinite(v):
+            unit = c.unit if unit is None else unit
+            scale = _percent_scale(unit)
+            if scale is None:
+                out.problems.append(_number_problem(
+                    grid, c, i, f"{v.shown()}%", f"formatted as a percentage (the sheet shows {v.shown()}%) "
+                    f"but the column's unit is {unit!r}", "format the cell as a plain number, or give the "
+                    "header a % unit"))
+                return None
+            return v.shown() if scale == 100 else parse_cell(float(v), decimal_comma)[0]
         t, msg, hint = parse_cell(v, decimal_comma)
         if t is None:
             out.problems.append(_number_problem(grid, c, i, v, msg, hint))
@@ -341,7 +367,7 @@ def to_long(
                                                 f"cell {coord} gives a spread after ± and cell {grid.coordinate(i, spread.index)} gives one too",
                                                 "keep one of them"))
             elif spread is not None:
-                u = number(i, spread)
+                u = number(i, spread, spread.unit or c.unit)
                 if u is not None:
                     if spread.unit and spread.unit != c.unit:
                         u = f"{float(u) * units.conversion_factor(spread.unit, c.unit):.15g}"
@@ -397,16 +423,25 @@ def _frame(records: list[dict[str, str]], columns: list[str]):
 
 
 def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -> list[Problem]:
-    """Validate the long tables as ``comparo check`` does; problems at the wide cells."""
-    from comparo.io import RawDataset, RawTable
+    """Validate the long tables as ``comparo check`` does; problems at the wide cells.
+
+    Names, keys, units and ids are first read as they look (:func:`comparo.io.clean_names`:
+    no-break and zero-width spaces, direction marks), in *obs*, *taxa* and stub sources
+    themselves (stub sources are made from ids so read), so the folder written holds the
+    names as read."""
+    from comparo.io import RawDataset, RawTable, clean_names
     from comparo.validate import validate
 
+    pre = clean_names("observations.csv", obs, list(range(2, len(obs) + 2)), other_rows=False)
+    if taxa is not None:  # its names come from the taxon cells named above
+        clean_names("taxa.csv", taxa, list(range(2, len(taxa) + 2)))
     raw = RawDataset(folder=folder)
     raw.observations = RawTable("observations.csv", obs.copy(), list(range(2, len(obs) + 2)))
     raw.sources = sources_table
     if taxa is not None:
         raw.taxa = RawTable("taxa.csv", taxa.copy(), list(range(2, len(taxa) + 2)))
     _, problems = validate(raw)
+    problems = pre + list(problems)
     out = []
     first_row = list(long.taxa_origin.values())
     for p in problems:
@@ -478,7 +513,9 @@ def _sources(sources: Path | None, ids: list[str], grid: Grid):
     from comparo.io import RawTable, read_bibtex, read_table
 
     if sources is None:
-        stubs = sorted({i for i in ids if i})
+        from comparo.io import visible
+
+        stubs = sorted({visible(i) for i in ids if i})  # ids as read (see _validate)
         frame = pd.DataFrame({"source_id": stubs, "citation": [STUB_CITATION.format(sid=s, file=grid.file) for s in stubs],
                               "year": "", "doi": "", "url": "", "notes": "stub written by comparo import"}).astype(str)
         return RawTable("sources.csv", frame, list(range(2, len(frame) + 2))), "sources.csv", None, stubs, []
@@ -514,10 +551,12 @@ def _toml_value(v: Any) -> str:
     return json.dumps(str(v), ensure_ascii=False)
 
 
-def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, sources: Path | None, columns: list[Column], counts: dict[str, Any],
-                plus_minus: str | None = None) -> str:
-    """import.toml: the input (name, sheet, SHA-256), the options, the counts, and per column
-    the decision taken (role, key, unit, basis and how the header was matched)."""
+def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, sources: Path | None,
+                columns: list[Column], counts: dict[str, Any], plus_minus: str | None = None,
+                written: list[str] | None = None) -> str:
+    """import.toml: the input (name, sheet, SHA-256), the options, the files written (the only
+    ones a later ``--overwrite`` import may remove), the counts, and per column the decision
+    taken (role, key, unit, basis and how the header was matched)."""
     from comparo import __version__
 
     lines = ["# Written by 'comparo import': every decision that turned the wide table into this folder.",
@@ -528,7 +567,8 @@ def import_toml(grid: Grid, wide: Path, sheet: str | None, decimal_comma: bool, 
              f"sha256 = {_toml_value(hashlib.sha256(wide.read_bytes()).hexdigest())}",
              f"decimal_comma = {_toml_value(decimal_comma)}", f"delimiter = {_toml_value(grid.delimiter)}",
              f"header_row = {grid.header_row}", f"plus_minus = {_toml_value(plus_minus or '')}",
-             f"sources = {_toml_value(sources.name if sources else '')}", "", "[defaults]",
+             f"sources = {_toml_value(sources.name if sources else '')}", "", "[output]",
+             f"files = {_toml_value(list(written or []))}", "", "[defaults]",
              'basis = "reported"', f"locator = {_toml_value(NOT_STATED)}",
              "obs_id = \"imp_ + first 10 hex digits of SHA-256(taxon|source|locator|header|muscle|occurrence)\"", "", "[counts]"]
     lines += [f"{k} = {_toml_value(v)}" for k, v in counts.items()]
@@ -578,18 +618,38 @@ def _decide(grid: Grid, catalog: Catalog, map_file: Path | None, wide: Path) -> 
     return columns, probs + more
 
 
-def _suggest_map(columns: list[Column], output: str, avoid: list[Path | None]) -> str:
-    """Write the ready-to-edit map file beside the output; the hint naming it ('' if not written)."""
+def _suggest_map(columns: list[Column], output: str) -> str:
+    """Write the ready-to-edit map file beside the output; the hint naming it ('' if not written).
+
+    An existing map file (perhaps edited by hand) is never replaced: when it holds other
+    text, the suggestion goes to the first free name ``OUT-import-map-2.csv``, ``-3``, ..."""
     from comparo.outputs import atomic_write_text
 
-    path = map_path_for(output)
-    if any(a is not None and os.path.realpath(a) == os.path.realpath(path) for a in avoid):
+    text = map_text(columns)
+    first = path = map_path_for(output)
+    for n in range(2, 1000):
+        if not os.path.lexists(path):
+            break
+        if path.is_file() and not path.is_symlink() and _same_text(path, text):
+            return (f"the map file {path} already holds every column's decision: fill role (and key, unit) "
+                    f"of the rows with an empty role, then rerun with --map {path}")
+        path = first.with_name(f"{first.stem}-{n}.csv")
+    else:
         return ""
     try:
-        atomic_write_text(path, map_text(columns))
+        atomic_write_text(path, text)
     except UsageError:
         return ""
-    return f"a map file with every column's decision is written to {path}: fill role (and key, unit) of the rows with an empty role, then rerun with --map {path}"
+    kept = f" ({first} exists and is kept as it is)" if path != first else ""
+    return (f"a map file with every column's decision is written to {path}{kept}: fill role (and key, unit) "
+            f"of the rows with an empty role, then rerun with --map {path}")
+
+
+def _same_text(path: Path, text: str) -> bool:
+    try:
+        return path.stat().st_size < 10_000_000 and path.read_text(encoding="utf-8") == text
+    except (OSError, UnicodeDecodeError):
+        return False
 
 
 def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: str | os.PathLike | None = None,
@@ -613,13 +673,20 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
         When *output* exists and is not empty (unless *overwrite*).
     """
 
-    from comparo.outputs import is_stdout
+    from comparo.outputs import is_stdout, protecting
 
     if is_stdout(output):
         raise UsageError("comparo import writes a dataset folder: give its path with -o FOLDER (not standard output)")
-    wide, out = Path(wide), Path(output)
-    src = Path(sources) if sources else None
-    mp = Path(map_file) if map_file else None
+    with protecting([wide, sources, map_file]):
+        return _import(Path(wide), Path(output), Path(sources) if sources else None,
+                       Path(map_file) if map_file else None, sheet, decimal_comma, overwrite, catalog,
+                       header_row, plus_minus)
+
+
+def _import(wide: Path, out: Path, src: Path | None, mp: Path | None, sheet: str | None, decimal_comma: bool,
+            overwrite: bool, catalog: Catalog | None, header_row: int | None,
+            plus_minus: str | None) -> ImportResult:
+    output = str(out)
     catalog = catalog or load_catalog()
     if out.is_dir() and any(out.iterdir()) and not overwrite:
         raise UsageError(f"output folder {output} exists and is not empty; comparo import writes a new dataset folder: "
@@ -633,7 +700,7 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
         raise InputError(problems)
     columns, more = _decide(grid, catalog, mp, wide)
     if more:
-        written = _suggest_map(columns, str(output), [mp, wide, src])
+        written = _suggest_map(columns, str(output))
         if written:
             more.append(Problem("note", grid.file, None, None, None, "map-file-written", written))
         raise InputError(more)
@@ -662,8 +729,9 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
     files = {"observations.csv": _csv(obs), src_name: src_bytes if src_bytes is not None else _csv(src_table.frame)}
     if taxa is not None:
         files["taxa.csv"] = _csv(taxa)
-    files["import.toml"] = import_toml(grid, wide, sheet, decimal_comma, src, columns, counts, plus_minus).encode("utf-8")
-    _write_folder(out, files, overwrite)
+    files["import.toml"] = import_toml(grid, wide, sheet, decimal_comma, src, columns, counts,
+                                       plus_minus, [*files, "import.toml"]).encode("utf-8")
+    warnings += _write_folder(out, files, overwrite)
     return ImportResult(str(output), len(grid.rows), len(obs), long.empty, counts["taxa"], len(src_table), stubs,
                         columns, warnings, list(files))
 
@@ -674,15 +742,19 @@ def _csv(frame) -> bytes:
     return to_csv(frame).encode("utf-8")
 
 
-def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> None:
-    """A new folder appears whole (written beside it, then renamed); into an existing one each
-    file is replaced atomically, and the tables of an earlier import it does not write again
-    (observations.*, sources.*, taxa.*) are removed."""
-    from comparo.io import OBSERVATION_NAMES, SOURCE_NAMES, TAXA_NAMES
-    from comparo.outputs import _write_error, atomic_write_bytes
+def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> list[Problem]:
+    """A new folder appears whole (written beside it, then renamed). Into an existing one
+    (``--overwrite``) each file is replaced atomically, and the tables an earlier import
+    wrote there (listed in its import.toml) that this one does not write again are removed;
+    nothing else is removed. Every path is checked before the first write: none may be an
+    input (:func:`comparo.outputs.resolve_output`), and a table of another name that no
+    import wrote (``observations.xlsx`` beside the new ``observations.csv``) is refused.
+    Returns notes about tables kept."""
+    from comparo.outputs import _write_error, atomic_write_bytes, resolve_output
 
     try:
-        if not out.exists():
+        resolve_output(out)  # the folder itself (and, below, each file) never lands in an input
+        if not os.path.lexists(out):
             out.parent.mkdir(parents=True, exist_ok=True)
             tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
             try:
@@ -693,15 +765,65 @@ def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> None:
             except BaseException:
                 shutil.rmtree(tmp, ignore_errors=True)
                 raise
-            return
+            return []
+        remove, kept = _earlier_tables(out, files) if overwrite else ([], [])
+        for name in [*files, *remove]:
+            resolve_output(out / name)
         for name, data in files.items():
             atomic_write_bytes(out / name, data)
-        if overwrite:
-            for name in (*OBSERVATION_NAMES, *SOURCE_NAMES, *TAXA_NAMES):
-                if name not in files and (out / name).is_file():
-                    (out / name).unlink()
+        for name in remove:
+            (out / name).unlink()
     except OSError as exc:
         raise _write_error(out, exc) from None
+    return [Problem("warning", name, None, None, None, "table-kept",
+                    f"{out / name} was not written by an earlier comparo import (not in its import.toml): kept "
+                    "as it is, and it is part of the dataset", "remove it if it does not belong to the new import")
+            for name in kept]
+
+
+def _earlier_tables(out: Path, files: dict[str, bytes]) -> tuple[list[str], list[str]]:
+    """(tables of an earlier import in *out* to remove, other tables kept); UsageError when a
+    table that no import wrote would stand beside a new one of the same kind."""
+    from comparo.io import OBSERVATION_NAMES, SOURCE_NAMES, TAXA_NAMES
+
+    written = _written_by_earlier_import(out)
+    remove, kept, clash = [], [], []
+    for kind in (OBSERVATION_NAMES, SOURCE_NAMES, TAXA_NAMES):
+        new = any(n in files for n in kind)
+        for name in kind:
+            if name in files or not (out / name).is_file():
+                continue
+            if name in written:
+                remove.append(name)
+            elif new:
+                clash.append(name)
+            else:
+                kept.append(name)
+    if clash:
+        raise UsageError(f"output folder {out} holds {', '.join(clash)}, which no comparo import wrote there "
+                         "(it is not listed in an import.toml); --overwrite replaces only the tables of an earlier "
+                         "import: move it away, or import into a new folder")
+    return remove, kept
+
+
+def _written_by_earlier_import(out: Path) -> set[str]:
+    """The files an earlier import wrote into *out*, from its import.toml (none without one)."""
+    try:
+        doc = tomllib.loads((out / "import.toml").read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return set()
+    if not isinstance(doc.get("input"), dict):
+        return set()
+    files = doc.get("output", {}).get("files") if isinstance(doc.get("output"), dict) else None
+    if isinstance(files, list):
+        return {str(f) for f in files}
+    # import.toml of an earlier version: observations.csv, the sources table, taxa.csv if taxa columns
+    src = str(doc["input"].get("sources") or "")
+    names = {"observations.csv", f"sources{Path(src).suffix.lower()}" if src else "sources.csv"}
+    cols = doc.get("columns") if isinstance(doc.get("columns"), list) else []
+    if any(isinstance(c, dict) and c.get("role") == "taxa" for c in cols):
+        names.add("taxa.csv")
+    return names
 
 
 def _umask() -> int:

@@ -131,6 +131,65 @@ def nfc(text: str) -> str:
     return text if text.isascii() else unicodedata.normalize("NFC", text)
 
 
+# characters that show nothing (zero-width space, non-joiner, joiner, word joiner, soft hyphen,
+# left-to-right and right-to-left marks, bidirectional embeddings and isolates, a byte-order
+# mark inside text) and spaces other than the plain one (no-break, narrow no-break, thin,
+# figure, ideographic ...): in a name they make a second name that looks the same
+_INVISIBLE = re.compile("[\u00ad\u061c\u180e\u200b-\u200f\u202a-\u202e\u2060-\u2064\u2066-\u2069\ufeff]")
+_ODD_SPACE = re.compile("[\u00a0\u1680\u2000-\u200a\u202f\u205f\u3000]")
+# the columns holding names, keys, units and ids (matched exactly), where such characters are read away
+NAME_COLUMNS = frozenset({
+    "obs_id", "taxon", "quantity", "unit", "uncertainty_kind", "source_id", "basis", "inputs", "proxy_taxon",
+    "preparation", "accepted_name", "tree_label", "trace_id", "kind", "time_unit", "x_unit", "y_unit",
+    "thermoregulation",
+})
+
+
+_LABEL_WITH_INVISIBLE = re.compile(r"[^(),:;\[\]]*" + _INVISIBLE.pattern + r"[^(),:;\[\]]*")
+
+
+def visible(text: str) -> str:
+    """*text* as it looks: characters that show nothing removed, any other space a plain
+    space, and (where one of those was) runs of spaces made one and the ends trimmed.
+
+    Names, keys, units and ids are read so (:data:`NAME_COLUMNS`), so that
+    ``'Apis\u00a0mellifera'`` (a no-break space) and ``'Apis mellifera\u200b'`` (a
+    zero-width space) are the taxon ``'Apis mellifera'``; each such cell is named in a
+    warning (rule ``invisible-character``)."""
+    if text.isascii():
+        return text
+    t = _ODD_SPACE.sub(" ", _INVISIBLE.sub("", text))
+    return re.sub(" {2,}", " ", t).strip() if t != text else t
+
+
+def _invisible_names(text: str) -> str:
+    found = dict.fromkeys(c for c in text if _INVISIBLE.match(c) or _ODD_SPACE.match(c))
+    return ", ".join(f"U+{ord(c):04X} {unicodedata.name(c, 'unnamed')}" for c in found)
+
+
+def clean_names(file: str, frame, rows: list[int], other_rows: bool = True) -> list[Problem]:
+    """Read the name columns of *frame* (in place) with :func:`visible`; one warning per
+    distinct value changed, naming its first cell (and the other rows holding it, when
+    *other_rows*), what it held and how it is read."""
+    probs: list[Problem] = []
+    for col in frame.columns:
+        if str(col) not in NAME_COLUMNS:
+            continue
+        s = frame[col]
+        fix = {u: visible(u) for u in s.unique() if isinstance(u, str) and not u.isascii()}
+        fix = {k: v for k, v in fix.items() if k != v}
+        if not fix:
+            continue
+        for old, new in fix.items():
+            where = [rows[i] for i in map(int, (s == old).to_numpy().nonzero()[0])]
+            more = f" (rows {', '.join(map(str, where[:5]))}{' ...' if len(where) > 5 else ''})" if len(where) > 1 and other_rows else ""
+            probs.append(_err(file, "invisible-character", f"{old!r} holds {_invisible_names(old)}, which shows as nothing "
+                              f"or as a plain space; read as {new!r}{more}", "retype the cell if the name was meant to "
+                              "differ; nothing to do otherwise", row=where[0], column=str(col), value=old, severity="warning"))
+        frame[col] = s.map(lambda v, fix=fix: fix.get(v, v))
+    return probs
+
+
 def _nfc_cells(frame, rows: list[int]) -> dict[str, dict[str, list[tuple[str, int]]]]:
     """Normalise every cell of *frame* (strings) to NFC in place; return what changed."""
     import pandas as pd
@@ -231,6 +290,9 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     return _finish(file, frame, rows, probs, _TextFacts.of(text))
 
 
+_CELL_APOSTROPHE = re.compile("(?:^|[,;\t\n])\"?'")  # a cell that begins with an apostrophe
+
+
 @dataclass(frozen=True)
 class _TextFacts:
     """What a whole file's text rules out for every cell, so the per-cell passes can be skipped
@@ -240,6 +302,7 @@ class _TextFacts:
     non_ascii: bool = True  # some cell may need NFC normalisation
     control: bool = True  # some cell may hold a control character
     long: bool = True  # some cell may exceed MAX_CELL characters
+    quoted: bool = True  # some cell may begin with the apostrophe of comparo.csvsafe
 
     @classmethod
     def of(cls, text: str) -> _TextFacts:
@@ -249,6 +312,7 @@ class _TextFacts:
             non_ascii=not text.isascii(),
             control=control,
             long=len(text) > MAX_CELL and ('"' in text or max(map(len, text.split("\n"))) > MAX_CELL),
+            quoted="'" in text and _CELL_APOSTROPHE.search(text) is not None,
         )
 
 
@@ -264,6 +328,10 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _Tex
         frame = frame.loc[keep].reset_index(drop=True)
         rows = [r for r, k in zip(rows, keep, strict=True) if k]
     respelled = _nfc_cells(frame, rows) if facts.non_ascii else {}
+    if facts.quoted:  # the apostrophe comparo puts before a formula-like text (comparo.csvsafe)
+        from comparo.csvsafe import restore_frame
+
+        restore_frame(frame)
     if facts.control:
         probs += _control_characters(file, frame, rows)
     long = frame.apply(lambda s: s.str.len() > MAX_CELL) if facts.long else None
@@ -274,6 +342,8 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _Tex
                 frame.at[ri, col] = frame.at[ri, col][:MAX_CELL]
     known = _known_columns()
     frame.columns = [c.lower() if c.lower() in known else c for c in (str(c).strip() for c in frame.columns)]
+    if facts.non_ascii:
+        probs += clean_names(file, frame, rows)
     return RawTable(file, frame, rows, respelled), probs
 
 
@@ -340,6 +410,7 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
         return None, probs
     body = frame.iloc[first + 1:].reset_index(drop=True)
     body.columns = header
+    _percent_as_shown(book, chosen, body, first)
     keep = [not (h.startswith("unnamed_") and (body[h] == "").all()) for h in header]
     body = body.loc[:, keep]
     rows = list(range(first + 2, first + 2 + len(body)))
@@ -349,6 +420,60 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     positions = [i for i, k in enumerate(keep) if k]
     table.letters = {str(c): get_column_letter(i + 1) for c, i in zip(table.frame.columns, positions, strict=True)}
     return table, probs
+
+
+class Percent(float):
+    """A number cell of a workbook shown as a percentage: the float is the number stored
+    (0.5), which the sheet shows as 50%."""
+
+    def shown(self) -> str:
+        """The number the sheet shows before its % sign, as text (``'50'`` for 0.5)."""
+        from decimal import Decimal
+
+        return format((Decimal(repr(float(self))) * 100).normalize(), "f")
+
+
+def is_percent_format(number_format: str | None) -> bool:
+    """True when a cell's number format shows the value times 100 with a % sign (``0%``,
+    ``0.0%``; ECMA-376 Part 1, 18.8.31); a % inside quotes or after a backslash is a literal
+    and does not scale."""
+    if not number_format:
+        return False
+    return "%" in re.sub(r'"[^"]*"|\\.', "", str(number_format))
+
+
+def is_percent_unit(unit: str) -> bool:
+    """True for a unit that is one hundredth of a plain number (``%``, ``percent``)."""
+    from comparo import units
+
+    try:
+        return not units.unit_dimensions(unit) and abs(units.base_factor(unit) - 0.01) < 1e-12
+    except Exception:  # a unit pint cannot read is reported by validation
+        return False
+
+
+def _percent_as_shown(book, sheet: str, body, first: int) -> None:
+    """In place: cells of ``value`` and ``uncertainty`` formatted as a percentage, on rows
+    whose ``unit`` is a percent, as the sheet shows them (stored 0.5, shown 50% -> '50')."""
+    cols = {str(c).strip().lower(): i for i, c in enumerate(body.columns)}
+    targets = [cols[c] for c in ("value", "uncertainty") if c in cols]
+    if "unit" not in cols or not targets:
+        return
+    units_typed = body.iloc[:, cols["unit"]].astype(str).str.strip()
+    percent = {u for u in units_typed.unique() if u and is_percent_unit(u)}
+    want = set(map(int, units_typed.isin(percent).to_numpy().nonzero()[0]))
+    if not want:
+        return
+    sheet_rows = book.book[sheet].iter_rows(min_row=first + 2, max_row=first + 1 + len(body))
+    for k, row in enumerate(sheet_rows):
+        if k not in want:
+            continue
+        for j in targets:
+            cell = row[j] if j < len(row) else None
+            v = getattr(cell, "value", None)
+            if isinstance(v, int | float) and not isinstance(v, bool) and is_percent_format(
+                    getattr(cell, "number_format", None)):
+                body.iat[k, j] = Percent(v).shown()
 
 
 def _excel_cell(v: Any) -> str:
@@ -554,6 +679,12 @@ def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
     if nfc(text) != text:
         text = nfc(text)
         probs.append(_err(file, "unicode-unified", "some tip labels are typed with decomposed accents; read in Unicode NFC (composed) so that they match the same names typed composed", "nothing to do unless two labels differed only in this way", severity="warning"))
+    if not text.isascii() and _INVISIBLE.search(text):  # tips are matched to taxa as they look
+        labels = list(dict.fromkeys(m.group(0).strip() for m in _LABEL_WITH_INVISIBLE.finditer(text)))
+        probs.append(_err(file, "invisible-character", f"tip label(s) {', '.join(map(repr, labels[:5]))}"
+                          f"{' ...' if len(labels) > 5 else ''} hold {_invisible_names(''.join(labels))}, which shows "
+                          "as nothing; matched to taxa as they look", "nothing to do unless a label was meant to differ",
+                          value=labels[0], severity="warning"))
     if text.count("(") != text.count(")"):
         return None, text, probs + [_err(file, "newick-syntax", f"unbalanced parentheses ({text.count('(')} '(' vs {text.count(')')} ')')", "check the Newick string")]
     from comparo.newick import parse

@@ -5,8 +5,12 @@ holds everywhere:
 
 * **An output never lands in an input.** A path that is, or is inside, an input
   dataset folder (or equals an input file) is refused before any work, symlinks
-  resolved (:func:`guard_output`). A folder output that already holds a dataset
-  (an ``observations`` table) is refused too: results are not mixed into data.
+  resolved (:func:`guard_output`). Each file written later is checked again at the
+  moment it is written (:func:`resolve_output`, against the inputs of the enclosing
+  :func:`protecting` block), so a file or subfolder inside an output folder that is a
+  symbolic link to an input is refused too, not written through. A folder output that
+  already holds a dataset (an ``observations`` table) is refused: results are not mixed
+  into data.
 * **Wrong kinds of path are refused up front**: an existing folder where a file is
   expected and the reverse, a parent that is a file, a folder that cannot be
   written (checked before the work starts, not after it).
@@ -28,7 +32,9 @@ import re
 import stat
 import sys
 import tempfile
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
+from contextvars import ContextVar
 from pathlib import Path
 from typing import IO, Any
 
@@ -36,6 +42,8 @@ from comparo.errors import UsageError
 
 STDOUT_NAMES = frozenset({"-", "/dev/stdout"})
 _DATASET_TABLES = ("observations.csv", "observations.tsv", "observations.xlsx")
+# the inputs of the command or API call running now: (as given, resolved)
+_PROTECTED: ContextVar[tuple[tuple[str, Path], ...]] = ContextVar("comparo_inputs", default=())
 
 
 def is_stdout(path: str | os.PathLike | None) -> bool:
@@ -78,22 +86,54 @@ def guard_output(path: str | os.PathLike | None, *, kind: str = "file",
     if path is None or is_stdout(path):
         return
     raw = Path(os.path.expanduser(str(path)))
-    out = _resolved(raw)
-    for given in inputs:
-        if not given or is_stdout(given):
-            continue
-        src = _resolved(given)
-        if src.is_dir() and _inside(out, src):
-            raise UsageError(f"output {path} is inside the input dataset folder {given}; "
-                             "comparo never writes into its inputs: choose a path outside it")
-        if not src.is_dir() and out == src:
-            raise UsageError(f"output {path} is the input file {given}; comparo never overwrites its inputs")
+    out = resolve_output(raw, inputs, shown=str(path))
     if kind == "dataset":  # a command that writes a dataset folder checks what is in it itself
         kind = "dir"
     elif kind == "dir" and out.is_dir() and any((out / t).exists() for t in _DATASET_TABLES):
         raise UsageError(f"output folder {path} holds a dataset (an observations table); "
                          "results are not written into data folders: choose another folder")
     _check_kind(raw, out, kind, str(path))
+
+
+def _given_inputs(inputs: Iterable[str | os.PathLike | None]) -> tuple[tuple[str, Path], ...]:
+    return tuple((str(g), _resolved(g)) for g in inputs if g and not is_stdout(g))
+
+
+@contextmanager
+def protecting(inputs: Iterable[str | os.PathLike | None]) -> Iterator[None]:
+    """Within this block every write of this module (and :func:`resolve_output`) refuses a
+    path that lands on or inside one of *inputs* (dataset folders, input files), links
+    followed. Blocks nest; the inputs of the outer ones stay protected."""
+    token = _PROTECTED.set(_PROTECTED.get() + _given_inputs(inputs))
+    try:
+        yield
+    finally:
+        _PROTECTED.reset(token)
+
+
+def resolve_output(path: str | os.PathLike, inputs: Iterable[str | os.PathLike | None] = (),
+                   *, shown: str | None = None) -> Path:
+    """The real place *path* names (``~`` expanded, every symbolic link followed).
+
+    Raises
+    ------
+    UsageError
+        When that place is one of the *inputs* or of the inputs of the enclosing
+        :func:`protecting` blocks, or lies inside one of those that is a folder (exit 2).
+    """
+    shown = shown or str(path)
+    out = _resolved(path)
+    linked = out != Path(os.path.abspath(os.path.expanduser(str(path))))
+    via = f" (through a symbolic link, it is {out})" if linked else ""
+    for given, src in _given_inputs(inputs) + _PROTECTED.get():
+        if not _inside(out, src):
+            continue
+        if src.is_dir():
+            raise UsageError(f"output {shown}{via} is inside the input dataset folder {given}; "
+                             "comparo never writes into its inputs: choose a path outside it")
+        raise UsageError(f"output {shown}{via} is the input file {given}; "
+                         "comparo never overwrites its inputs")
+    return out
 
 
 def _check_kind(raw: Path, out: Path, kind: str, shown: str) -> None:
@@ -135,6 +175,7 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
         sys.stdout.buffer.flush()
         return
     given = Path(path)
+    resolve_output(given)
     target = _resolved(given) if given.is_symlink() else given
     try:
         mode = target.stat().st_mode if target.exists() else None

@@ -62,6 +62,22 @@ def choice_lists(catalog: Catalog) -> dict[str, list[str]]:
             **{c: list(spec[c]["values"]) for c in ("basis", "uncertainty_kind", "preparation")}}
 
 
+def put(ws, row: int, column: int, value: Any):
+    """Write *value* into a cell; a text is always a plain string, never a formula.
+
+    openpyxl reads a text beginning with ``=`` as a formula; comparo writes text (labels,
+    descriptions, units, keys from a dataset's comparo.toml) only as stored strings, marked
+    with the quote prefix that spreadsheets show for text typed after an apostrophe, so
+    that editing the cell does not turn it into a formula either. Returns the cell."""
+    cell = ws.cell(row=row, column=column)
+    cell.value = value
+    if isinstance(value, str):
+        cell.data_type = "s"
+        if value[:1] in ("=", "@", "+", "-"):
+            cell.quotePrefix = True
+    return cell
+
+
 def build_workbook(catalog: Catalog):
     """The entry workbook (an ``openpyxl.Workbook``) for *catalog*."""
     from openpyxl import Workbook
@@ -78,7 +94,7 @@ def build_workbook(catalog: Catalog):
     def header(ws, cols: list[tuple[str, dict[str, Any]]]) -> dict[str, str]:
         letters = {}
         for i, (name, spec) in enumerate(cols, start=1):
-            cell = ws.cell(row=1, column=i, value=name)
+            cell = put(ws, 1, i, name)
             cell.font, cell.fill = bold, fill
             need = "required" if spec.get("required") else "optional"
             cell.comment = Comment(f"{need}: {spec.get('description', '')}", "comparo")
@@ -91,9 +107,9 @@ def build_workbook(catalog: Catalog):
     lists = choice_lists(catalog)
     ls = wb.create_sheet(LIST_SHEET)
     for j, (name, values) in enumerate(lists.items(), start=1):
-        ls.cell(row=1, column=j, value=name).font = bold
+        put(ls, 1, j, name).font = bold
         for i, v in enumerate(values, start=2):
-            ls.cell(row=i, column=j, value=v)
+            put(ls, i, j, v)
         col = get_column_letter(j)
         strict = name != "unit"  # any unit pint reads is fine: the unit list only suggests
         dv = DataValidation(type="list", formula1=f"{LIST_SHEET}!${col}$2:${col}${len(values) + 1}", allow_blank=True,
@@ -122,7 +138,7 @@ def _catalogue_sheet(ws, catalog: Catalog, bold, fill) -> None:
     cols = ["key", "label", "canonical unit", "kind", "plausible low", "plausible high", "range source",
             "temperature-sensitive", "default Q10", "stored as", "synonyms", "description", "defined in"]
     for i, c in enumerate(cols, start=1):
-        cell = ws.cell(row=1, column=i, value=c)
+        cell = put(ws, 1, i, c)
         cell.font, cell.fill = bold, fill
         ws.column_dimensions[get_column_letter(i)].width = 28 if c in ("label", "range source", "description", "synonyms") else 16
     for r, q in enumerate(catalog.values(), start=2):
@@ -130,7 +146,7 @@ def _catalogue_sheet(ws, catalog: Catalog, bold, fill) -> None:
                q.range_source, "yes" if q.temperature_sensitive else "no", q.q10, q.converts_to or "",
                "; ".join(q.synonyms), q.description, q.origin]
         for i, v in enumerate(row, start=1):
-            ws.cell(row=r, column=i, value=v)
+            put(ws, r, i, v)
     ws.freeze_panes = "A2"
     ws.protection.sheet = True  # read-only: the catalogue is edited in schema/ or comparo.toml, not here
 
@@ -174,8 +190,11 @@ def write_template(path: str | os.PathLike, dataset: str | os.PathLike | None = 
             if any(p.severity == "error" for p in probs):
                 raise InputError(probs)
             extra = settings.get("quantities") if isinstance(settings.get("quantities"), dict) else None
+    from comparo.outputs import protecting
+
     catalog = load_catalog(extra, file=str(toml) if extra else "comparo.toml")
-    atomic_write_bytes(path, workbook_bytes(catalog))
+    with protecting([dataset]):
+        atomic_write_bytes(path, workbook_bytes(catalog))
     wb_lists = choice_lists(catalog)
     return TemplateResult(str(path), ["observations", "sources", "taxa", CATALOGUE_SHEET, LIST_SHEET],
                           {k: len(v) for k, v in wb_lists.items()})

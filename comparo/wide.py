@@ -26,7 +26,7 @@ from typing import Any
 
 from comparo.catalog import Catalog
 from comparo.errors import Problem
-from comparo.io import MAX_CELL, decode_bytes, exception_reason, nfc
+from comparo.io import MAX_CELL, Percent, decode_bytes, exception_reason, is_percent_format, nfc
 
 UNCERTAINTY_ROLES = ("sd", "se", "ci95", "range_half")
 ROLES = ("value", *UNCERTAINTY_ROLES, "n", "source", "locator", "taxon", "temperature", "taxa", "column", "ignore")
@@ -130,7 +130,9 @@ def _text_cells(path: Path, decimal_comma: bool, header_row: int | None = None) 
         cells = [list(r) for r in csv.reader(_io.StringIO(text), delimiter=delim)]
     except csv.Error as exc:
         return None, delim, probs + [_problem(file, "csv-syntax", f"cannot parse the table ({exc})")]
-    return [[nfc(c) for c in r] for r in cells], delim, probs
+    from comparo.csvsafe import restore  # the apostrophe of a CSV comparo wrote
+
+    return [[restore(nfc(c)) if c.startswith("'") else nfc(c) for c in r] for r in cells], delim, probs
 
 
 def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | None, str, list[Problem]]:
@@ -151,9 +153,13 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
     file = f"{path.name}[{chosen}]"
     probs: list[Problem] = []
     cells: list[list[Any]] = []
-    for r, (vals, forms) in enumerate(zip(book[chosen].iter_rows(values_only=True), formulas[chosen].iter_rows(values_only=True), strict=False), start=1):
+    for r, (found, forms) in enumerate(zip(book[chosen].iter_rows(), formulas[chosen].iter_rows(values_only=True), strict=False), start=1):
         row: list[Any] = []
-        for c, (v, f) in enumerate(zip(vals, forms, strict=False)):
+        for c, (cell, f) in enumerate(zip(found, forms, strict=False)):
+            v = getattr(cell, "value", None)
+            if isinstance(v, int | float) and not isinstance(v, bool) and is_percent_format(getattr(cell, "number_format", "")):
+                row.append(Percent(v))
+                continue
             if v is None and isinstance(f, str) and f.startswith("="):
                 probs.append(_problem(file, "formula-no-value", f"cell {column_letter(c)}{r} holds a formula with no saved result", "open the workbook in a spreadsheet program and save it, so that the results are stored", row=r, value=f[:40]))
             if isinstance(v, bool):

@@ -63,7 +63,7 @@ def test_dwc_terms_and_values(demo_ds, tmp_path):
     assert float(mof["measurementValue"].iloc[0]) == demo_ds.observations["value"].iloc[0]
 
 
-@pytest.mark.parametrize("cell", ["=1+1", "+cmd", "-2+3", "@SUM(A1)", "\tx", "\rx"])
+@pytest.mark.parametrize("cell", ["=1+1", "+cmd|' /C calc'!A0", "-2+3", "@SUM(A1)", "\tx", "\rx"])
 def test_formula_cells_neutralised(cell):
     assert neutralise(cell) == "'" + cell
 

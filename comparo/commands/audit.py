@@ -20,16 +20,18 @@ def run(args) -> int:
         import pandas as pd
 
         from comparo.csvsafe import to_csv
-        from comparo.outputs import atomic_write_text
+        from comparo.outputs import atomic_write_text, resolve_output
         from comparo.provenance import lineage
 
         out = Path(args.output)
-        atomic_write_text(out / "audit.json", dumps(report.to_dict()))
-        atomic_write_text(out / "coverage.csv", to_csv(report.to_frame()))
-        atomic_write_text(out / "sources.csv", to_csv(report.sources_frame()))
-        atomic_write_text(out / "excluded.csv", to_csv(
-            pd.DataFrame(report.rows_excluded, columns=["obs_id", "row", "reason"])))
-        atomic_write_text(out / "lineage.csv", to_csv(lineage(ds, temperature=not args.no_temperature)))
+        files = {"audit.json": dumps(report.to_dict()), "coverage.csv": to_csv(report.to_frame()),
+                 "sources.csv": to_csv(report.sources_frame()),
+                 "excluded.csv": to_csv(pd.DataFrame(report.rows_excluded, columns=["obs_id", "row", "reason"])),
+                 "lineage.csv": to_csv(lineage(ds, temperature=not args.no_temperature))}
+        for name in files:  # every file checked before the first is written
+            resolve_output(out / name, [args.dataset])
+        for name, text in files.items():
+            atomic_write_text(out / name, text)
     if args.format == "json":
         emit(dumps(report.to_dict()))
     elif args.format == "csv":

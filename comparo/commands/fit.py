@@ -36,6 +36,9 @@ def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True, sa
         frame = pd.read_csv(path)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
         raise UsageError(f"cannot read {data!r} as CSV: {exc}") from None
+    from comparo.csvsafe import restore_frame
+
+    restore_frame(frame)  # the apostrophe before a formula-like text of a CSV comparo wrote
     if taxon_col in frame.columns or frame.empty:
         return frame
     first = frame.columns[0]

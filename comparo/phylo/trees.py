@@ -24,8 +24,11 @@ def _tree_problem(file: str, rule: str, message: str, hint: str = "", value: str
 
 
 def _norm(label: str) -> str:
-    """Matching key: underscores as spaces, runs of white space collapsed, case folded."""
-    return " ".join(str(label).replace("_", " ").split()).casefold()
+    """Matching key: read as it looks (:func:`comparo.io.visible`: a zero-width space or a
+    direction mark removed), underscores as spaces, runs of white space collapsed, case folded."""
+    from comparo.io import visible
+
+    return " ".join(visible(str(label)).replace("_", " ").split()).casefold()
 
 
 _WHITE = re.compile(r"\s+")  # the same characters as str.split() splits on
@@ -39,6 +42,10 @@ def _norm_all(labels: Sequence[str]) -> list[str]:
     text = "\x00".join(labels)
     if not labels or text.count("\x00") != len(labels) - 1:  # a label holding the separator
         return [_norm(v) for v in labels]
+    if not text.isascii():
+        from comparo.io import visible
+
+        text = visible(text)
     text = text.replace("_", " ")
     if _WHITE.search(text):
         text = _EDGE_WHITE.sub("\x00", _WHITE.sub(" ", text)).strip(" ")

@@ -118,13 +118,18 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     ReportResult
         ``ok`` is False when validation found errors; then report.html lists them.
     """
+    from comparo.outputs import protecting, resolve_output
+
     folder, out = Path(folder), Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    steps = _Steps(progress, 7)
-    try:
-        return _build(folder, out, seed, temperature, steps, int(sensitivity_draws))
-    finally:
-        steps.close()
+    with protecting([folder]):
+        for name in ("", "report.html", "run.json", "tables", "figures"):  # links into the dataset
+            resolve_output(out / name)
+        out.mkdir(parents=True, exist_ok=True)
+        steps = _Steps(progress, 7)
+        try:
+            return _build(folder, out, seed, temperature, steps, int(sensitivity_draws))
+        finally:
+            steps.close()
 
 
 @dataclass
