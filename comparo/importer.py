@@ -15,6 +15,7 @@ import hashlib
 import math
 import os
 import re
+import shlex
 import shutil
 import tempfile
 from dataclasses import dataclass, field, replace
@@ -589,7 +590,8 @@ def _suggest_map(columns: list[Column], output: str, avoid: list[Path | None]) -
         atomic_write_text(path, map_text(columns))
     except UsageError:
         return ""
-    return f"a map file with every column's decision is written to {path}: fill role (and key, unit) of the rows with an empty role, then rerun with --map {path}"
+    return (f"a map file with every column's decision is written to {path}: fill role (and key, unit) of the rows "
+            f"with an empty role, then rerun with --map {shlex.quote(str(path))}")  # quoted: a path with spaces
 
 
 def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: str | os.PathLike | None = None,
@@ -648,9 +650,9 @@ def import_wide(wide: str | os.PathLike, output: str | os.PathLike, *, sources: 
     obs = _frame(long.records, list(LONG_COLUMNS[:12]) + extra)
     taxa = _taxa_frame(long, columns)
     found = _validate(long, obs, src_table, taxa, grid, out)
+    found = column_unit_slips(found, long, columns, catalog, grid)  # also when errors stop it
     if any(p.severity == "error" for p in found):
         raise InputError(found)
-    found = column_unit_slips(found, long, columns, catalog, grid)
     warnings = [p for p in found if p.severity != "error" and p.rule != "citation-stub"]  # the summary counts the stubs
     for header, cells in long.empty_words.items():
         warnings.append(Problem("warning", grid.file, None, header, None, "missing-word", f"{len(cells)} cell(s) say the value is missing ({', '.join(cells[:5])}{' ...' if len(cells) > 5 else ''}); no row made", "nothing to do if they are missing values"))
