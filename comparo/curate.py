@@ -926,6 +926,8 @@ def column_units(table: pd.DataFrame, catalog) -> pd.DataFrame:
             meaning = "accepted taxon name"
         elif col == "temperature_c":
             unit, meaning = "degC", "temperature the temperature-sensitive values refer to"
+        elif col == "operating_temperature_c":
+            unit, meaning = "degC", "operating (body or muscle) temperature during the behaviour (taxa.csv)"
         elif col in keys:
             unit, meaning = keys[col], "value in the canonical unit" if col not in derived else "derived value"
         elif col == "regime":

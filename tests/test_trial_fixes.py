@@ -68,3 +68,48 @@ def test_the_map_file_hint_can_be_pasted_into_a_shell_when_the_path_has_spaces(
     words = shlex.split(line.split("then rerun with ", 1)[1].split(" [map-file-written]")[0])
     assert words[0] == "--map" and len(words) == 2
     assert Path(words[1]).is_file() and Path(words[1]).parent == folder
+
+
+# ----------------------------------------------------------------------------- table -o .xlsx
+
+def _flyers(folder: Path) -> Path:
+    """A bird (endotherm, 40 °C) and two insects, one without an operating temperature."""
+    folder.mkdir()
+    write_csv(folder / "taxa.csv", [
+        ["taxon", "clade", "thermoregulation", "operating_temperature_c"],
+        ["Columba livia", "Aves", "endotherm", "40"],
+        ["Apis mellifera", "Hymenoptera", "heterotherm", "38.5"],
+        ["Locusta migratoria", "Orthoptera", "ectotherm", ""],
+    ])
+    write_csv(folder / "sources.csv", [["source_id", "citation"], ["s1", "Invented (2001)"]])
+    rows = [["obs_id", "taxon", "quantity", "value", "unit", "source_id", "locator", "basis",
+             "temperature_c", "preparation"]]
+    for i, (t, m, f, temp) in enumerate([("Columba livia", 400, 7, 40), ("Apis mellifera", 0.1, 235, 38),
+                                         ("Locusta migratoria", 2, 20, 30)]):
+        rows.append([f"m{i}", t, "body_mass", str(m), "g", "s1", "Table 1", "reported", "", ""])
+        rows.append([f"f{i}", t, "frequency_observed", str(f), "Hz", "s1", "Table 1", "reported",
+                     str(temp), "in_vivo"])
+    write_csv(folder / "observations.csv", rows)
+    return folder
+
+
+def test_operating_temperature_has_its_unit_and_is_a_number_in_the_table_exports(tmp_path) -> None:
+    """operating_temperature_c is in °C (docs/data-format.md): the units sidecar says so and
+    the workbook holds numbers under 'operating_temperature_c (°C)'. Independent route: the
+    values read back with openpyxl against taxa.csv read with the csv module."""
+    import openpyxl
+
+    ds = _flyers(tmp_path / "flyers")
+    assert run("table", ds, "-o", tmp_path / "t.csv") == 0
+    with open(tmp_path / "t.units.csv", newline="", encoding="utf-8") as fh:
+        unit = {r["column"]: r["unit"] for r in csv.DictReader(fh)}
+    assert unit["operating_temperature_c"] == "degC"
+    assert run("table", ds, "-o", tmp_path / "t.xlsx") == 0
+    ws = openpyxl.load_workbook(tmp_path / "t.xlsx")["table"]
+    head = [c.value for c in ws[1]]
+    j = head.index("operating_temperature_c (°C)")
+    got = {r[0]: r[j] for r in ws.iter_rows(min_row=2, values_only=True)}
+    with open(ds / "taxa.csv", newline="", encoding="utf-8") as fh:
+        want = {r["taxon"]: (float(r["operating_temperature_c"]) if r["operating_temperature_c"] else None)
+                for r in csv.DictReader(fh)}
+    assert got == want
