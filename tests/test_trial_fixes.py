@@ -113,3 +113,50 @@ def test_operating_temperature_has_its_unit_and_is_a_number_in_the_table_exports
         want = {r["taxon"]: (float(r["operating_temperature_c"]) if r["operating_temperature_c"] else None)
                 for r in csv.DictReader(fh)}
     assert got == want
+
+
+# ----------------------------------------------------------------------------- fit --breakpoint
+
+def test_the_breakpoint_line_says_it_is_least_squares_under_an_sma_header(tmp_path, capsys) -> None:
+    """`fit --method sma --breakpoint` prints the broken line under the SMA header; its
+    slopes are those of the least-squares broken line (docs/methods/fitting.md), so the line
+    says so. Independent route: a dense grid of breakpoints with numpy's lstsq on
+    [1, x, (x - psi)+] (log10 axes), restricted as the docs say (3 distinct x each side);
+    the printed slopes match the best grid line to the grid's resolution."""
+    import json
+
+    import numpy as np
+
+    rng = np.random.default_rng(7)
+    ds = _flyers(tmp_path / "flyers")
+    x = 10 ** np.linspace(-6, 0, 12)
+    y = np.where(np.log10(x) < -3, 2.4 - 0.05 * (np.log10(x) + 3), 2.4 - 0.4 * (np.log10(x) + 3))
+    y = 10 ** (y + rng.normal(0, 0.05, len(x)))
+    rows = [["obs_id", "taxon", "quantity", "value", "unit", "source_id", "locator", "basis",
+             "temperature_c", "preparation"]]
+    taxa = [["taxon"]]
+    for i, (m, f) in enumerate(zip(x, y, strict=True)):
+        taxa.append([f"Genus sp{i}"])
+        rows.append([f"m{i}", f"Genus sp{i}", "body_mass", f"{m:.6g}", "kg", "s1", "T1", "reported", "", ""])
+        rows.append([f"f{i}", f"Genus sp{i}", "frequency_observed", f"{f:.6g}", "Hz", "s1", "T1",
+                     "reported", "25", "in_vivo"])
+    write_csv(ds / "observations.csv", rows)
+    write_csv(ds / "taxa.csv", taxa)
+    args = ("fit", ds, "--x", "body_mass", "--y", "frequency_observed", "--breakpoint")
+    assert run(*args, "--method", "sma") == 0
+    line = next(ln for ln in capsys.readouterr().out.splitlines() if "breakpoint at" in ln)
+    assert "least-squares broken line (not SMA)" in line
+    assert run(*args, "--method", "sma", "--format", "json") == 0
+    bp = json.loads(capsys.readouterr().out)["breakpoint"]
+    lx = np.log10([float(f"{m:.6g}") for m in x])
+    ly = np.log10([float(f"{f:.6g}") for f in y])
+    best = None
+    for psi in np.linspace(lx[2], lx[-3], 20001):
+        A = np.column_stack([np.ones_like(lx), lx, np.clip(lx - psi, 0, None)])
+        coef = np.linalg.lstsq(A, ly, rcond=None)[0]
+        rss = float(np.sum((ly - A @ coef) ** 2))
+        if best is None or rss < best[0]:
+            best = (rss, coef)
+    assert bp["rss"] <= best[0] + 1e-12
+    assert abs(bp["slope_left"] - best[1][1]) < 1e-3
+    assert abs(bp["slope_right"] - (best[1][1] + best[1][2])) < 1e-3
