@@ -160,3 +160,28 @@ def test_the_breakpoint_line_says_it_is_least_squares_under_an_sma_header(tmp_pa
     assert bp["rss"] <= best[0] + 1e-12
     assert abs(bp["slope_left"] - best[1][1]) < 1e-3
     assert abs(bp["slope_right"] - (best[1][1] + best[1][2])) < 1e-3
+
+
+# ----------------------------------------------------------------------------- fit temperature line
+
+def test_fit_temperature_line_says_which_values_went_to_the_fallback(tmp_path, capsys) -> None:
+    """reference_temperature_c = "operating": the locust has no operating temperature, so
+    its 30 °C wingbeat goes to the fallback 25 °C, not to an operating temperature; the
+    bird's in-vivo value is kept; the bee's 38 °C wingbeat, 0.5 K from its 38.5 °C, is
+    kept too (heterotherm tolerance 2 K). Independent route: the standard rule
+    R2 = R1 Q10^((T2 - T1)/10) (common practice; Bennett 1984) with Q10 2 (catalogue)."""
+    import json
+
+    ds = _flyers(tmp_path / "flyers")
+    (ds / "comparo.toml").write_text('reference_temperature_c = "operating"\n', encoding="utf-8")
+    args = ("fit", ds, "--x", "body_mass", "--y", "frequency_observed", "--method", "ols")
+    assert run(*args, "--format", "json") == 0
+    t = json.loads(capsys.readouterr().out)["temperature"]
+    factor = 2.0 ** ((25 - 30) / 10)
+    assert (t["values"], t["rescaled"], t["kept_as_measured"], t["fallback"]) == (3, 1, 2, 1)
+    assert t["fallback_c"] == 25 and abs(t["factor_min"] - factor) < 1e-12
+    assert run(*args) == 0
+    line = next(ln for ln in capsys.readouterr().out.splitlines() if "temperature:" in ln)
+    assert f"rescaled to operating temperature (factor {factor:.3g}; 1 of them, of taxa without " \
+           "operating_temperature_c, to the fallback 25 °C)" in line
+    assert "needed no rescaling" not in line
