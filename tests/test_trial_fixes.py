@@ -185,3 +185,29 @@ def test_fit_temperature_line_says_which_values_went_to_the_fallback(tmp_path, c
     assert f"rescaled to operating temperature (factor {factor:.3g}; 1 of them, of taxa without " \
            "operating_temperature_c, to the fallback 25 °C)" in line
     assert "needed no rescaling" not in line
+
+
+# ----------------------------------------------------------------------------- report wording
+
+def test_report_appendix_does_not_say_kept_values_are_at_the_reference_temperature(demo_report) -> None:
+    """The demo's endotherms (clade Calorfictia) keep their in-vivo wingbeats at body
+    temperature, so 'the value used (at the reference temperature)' was untrue for them.
+    Independent route: the demo's observations.csv, read with the csv module, gives each
+    kept row's reported value and measurement temperature; the appendix row shows that value
+    unchanged, at a temperature other than the reference 25 °C."""
+    import re
+
+    data, out, _ = demo_report
+    page = (out / "report.html").read_text(encoding="utf-8")
+    intro = re.search(r"<p>Every plotted value[^<]*", page).group(0)
+    assert "at the reference temperature" not in intro and "kept as measured stays" in intro
+    with open(data / "observations.csv", newline="", encoding="utf-8") as fh:
+        obs = {r["obs_id"]: r for r in csv.DictReader(fh)}
+    cells = re.compile(r"<td[^>]*>(.*?)</td>")
+    kept = [cells.findall(tr) for tr in re.findall(r"<tr><td>.*?</tr>", page) if "kept as measured" in tr]
+    assert kept
+    for row in kept:
+        r = obs[row[8]]
+        assert float(row[5]) == float(r["value"]) and r["unit"] == row[6] == "Hz"
+        assert float(r["temperature_c"]) != 25.0
+    assert "factor: the multipliers applied (1 at the reference temperature)" not in page
