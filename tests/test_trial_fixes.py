@@ -211,3 +211,33 @@ def test_report_appendix_does_not_say_kept_values_are_at_the_reference_temperatu
         assert float(row[5]) == float(r["value"]) and r["unit"] == row[6] == "Hz"
         assert float(r["temperature_c"]) != 25.0
     assert "factor: the multipliers applied (1 at the reference temperature)" not in page
+
+
+# ----------------------------------------------------------------------------- regime figure
+
+def test_regime_legend_does_not_call_a_taxon_above_its_bound_limited(tmp_path) -> None:
+    """Taxa on the hydraulic side of Π that cycle above their smaller bound are counted apart
+    (limited by neither: docs/methods/derived.md); the legend must not also count them as
+    'hydraulic limited'. Independent route: the counts are taken from the invented frame's
+    own regime and frequency_vs_bound columns."""
+    import pandas as pd
+
+    from comparo import plots
+
+    d = pd.DataFrame({
+        "taxon": ["a", "b", "c", "d"],
+        "frequency_observed": [50.0, 60.0, 5.0, 100.0],
+        "frequency_kinetic_bound": [500.0, 400.0, 300.0, 90.0],
+        "frequency_hydraulic_bound": [2.0, 3.0, 10.0, 900.0],
+        "poro_kinetic_ratio": [250.0, 130.0, 30.0, 0.1],
+        "regime": ["hydraulic", "hydraulic", "hydraulic", "kinetic"],
+        "frequency_vs_bound": ["above", "above", "below", "above"],
+    })
+    fig = plots.regime_plot(d)
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    hyd = d["regime"] == "hydraulic"
+    above = d["frequency_vs_bound"] == "above"
+    assert f"hydraulic limited (n = {hyd.sum()})" not in labels
+    assert (f"hydraulic side of Π (n = {hyd.sum()}): {(hyd & ~above).sum()} hydraulic limited, "
+            f"{(hyd & above).sum()} above their smaller bound") in labels
+    assert f"above its smaller bound: limited by neither (n = {above.sum()})" in labels
