@@ -241,3 +241,33 @@ def test_regime_legend_does_not_call_a_taxon_above_its_bound_limited(tmp_path) -
     assert (f"hydraulic side of Π (n = {hyd.sum()}): {(hyd & ~above).sum()} hydraulic limited, "
             f"{(hyd & above).sum()} above their smaller bound") in labels
     assert f"above its smaller bound: limited by neither (n = {above.sum()})" in labels
+
+
+# ----------------------------------------------------------------------------- report sensitivity table
+
+def test_a_source_that_cannot_be_left_out_says_why_in_the_refit_table(tmp_path) -> None:
+    """Every body mass comes from one source: without it nothing is left to fit, and the
+    report's refit table (tables/sensitivity_<fit>.csv and the HTML) showed an empty row with
+    'flips: no' and no reason. Independent route: the taxa left without that source, counted
+    from observations.csv with the csv module (none have a body mass)."""
+    from comparo.reliance import sensitivity
+    from comparo.report import sensitivity_frame
+
+    ds = tmp_path / "flyers"
+    _flyers(ds)
+    with open(ds / "observations.csv", newline="", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))
+    for r in rows[1:]:
+        if r[2] == "body_mass":
+            r[5] = "s2"
+    write_csv(ds / "observations.csv", rows)
+    write_csv(ds / "sources.csv", [["source_id", "citation"], ["s1", "Invented (2001)"], ["s2", "Invented (2002)"]])
+    left = {r[1] for r in rows[1:] if r[2] == "body_mass" and r[5] != "s2"}
+    import comparo
+
+    s = sensitivity(comparo.load(ds), "body_mass", "frequency_observed", "ols", mc=20)
+    f = sensitivity_frame(s)
+    row = f[f["changed"] == "without s2"].iloc[0]
+    assert row["n"] == len(left) == 0
+    assert row["note"].startswith("not refitted") and str(len(left)) in row["note"]
+    assert (f.loc[f["changed"] == "without s1", "note"] != "").all()  # no frequency left either
