@@ -271,3 +271,23 @@ def test_a_source_that_cannot_be_left_out_says_why_in_the_refit_table(tmp_path) 
     assert row["n"] == len(left) == 0
     assert row["note"].startswith("not refitted") and str(len(left)) in row["note"]
     assert (f.loc[f["changed"] == "without s1", "note"] != "").all()  # no frequency left either
+
+
+# ----------------------------------------------------------------------------- audit text
+
+def test_audit_text_says_what_the_temperature_policy_did(tmp_path, capsys) -> None:
+    """The audit's text said nothing about temperature, its JSON did. Independent route:
+    the three wingbeats by the rules of docs/methods/temperature.md worked by hand: the
+    endotherm's (in vivo, 40 °C) and the heterotherm's (38 °C, within 2 K of 38.5 °C) are
+    kept; the ectotherm's (30 °C, no operating temperature) goes to the fallback 25 °C."""
+    import json
+
+    ds = _flyers(tmp_path / "flyers")
+    (ds / "comparo.toml").write_text('reference_temperature_c = "operating"\n', encoding="utf-8")
+    assert run("audit", ds) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    assert ("temperature: 1 value(s) rescaled to operating temperature (25 °C for taxa without one), "
+            "2 kept as measured (in vivo, regulating taxa), 0 without a temperature") in text
+    assert run("audit", ds, "--format", "json") == 0
+    t = json.loads(capsys.readouterr().out)["temperature"]
+    assert t["normalised"] == 1 and sorted(t["kept_as_measured"]) == ["f0", "f1"]
