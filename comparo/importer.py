@@ -34,6 +34,7 @@ from comparo.wide import (
     read_grid,
     read_map,
     read_synonyms,
+    split_unit,
 )
 
 NOT_STATED = "not stated"  # locator written when the wide table gives none
@@ -123,6 +124,9 @@ def split_plus_minus(v: Any) -> tuple[str, str] | None:
     return (m.group("value"), m.group("spread")) if m else None
 
 
+_SPREAD_EXAMPLE = "'Body mass SD (g)'"
+
+
 def _hint(t: str, decimal_comma: bool) -> str:
     if not decimal_comma and re.fullmatch(r"[-+]?\d+,\d+", t):
         return "a decimal comma? rerun with --decimal-comma if the whole table uses them, or write '.'"
@@ -132,7 +136,7 @@ def _hint(t: str, decimal_comma: bool) -> str:
         return "a bound or approximate value is not a number: put the number in the cell and the qualifier in a notes column"
     if split_plus_minus(t) is not None:
         return ("a value with its spread: rerun with --plus-minus KIND (sd, se, ci95 or range_half: what the ± "
-                "means in the source) to split such cells, or put the spread in its own column, e.g. 'Body mass SD (g)'")
+                "means in the source) to split such cells, or put the spread in its own column, e.g. " + _SPREAD_EXAMPLE)
     if re.match(r"^[-+]?\d[\d.,]*\s*[A-Za-zµμ%°]", t):
         return "a unit typed into the cell? the unit belongs in the header, e.g. 'Body mass (g)'"
     return "give a plain number (empty cells make no row)"
@@ -244,6 +248,9 @@ class _Long:
 
 def _number_problem(grid: Grid, c: Column, i: int, v: Any, msg: str, hint: str) -> Problem:
     coord = grid.coordinate(i, c.index)
+    if hint.endswith(_SPREAD_EXAMPLE):  # the example spread column named after this column
+        name, unit = split_unit(c.header)
+        hint = hint[: -len(_SPREAD_EXAMPLE)] + f"'{name} SD" + (f" ({unit})'" if unit else "'")
     return Problem("error", grid.file, grid.row_numbers[i], c.header, str(v)[:60], "not-a-number", f"cell {coord} is {msg}", hint)
 
 

@@ -291,3 +291,26 @@ def test_audit_text_says_what_the_temperature_policy_did(tmp_path, capsys) -> No
     assert run("audit", ds, "--format", "json") == 0
     t = json.loads(capsys.readouterr().out)["temperature"]
     assert t["normalised"] == 1 and sorted(t["kept_as_measured"]) == ["f0", "f1"]
+
+
+def test_the_plus_minus_hint_names_a_spread_column_for_the_cells_own_column(tmp_path, capsys) -> None:
+    """A '650 ± 60' cell under 'Attachment rate (s-1)' was told to use a column like 'Body mass
+    SD (g)'. The example now names the cell's own trait, and a sheet that follows it imports:
+    the spread column pairs with its trait and the uncertainty is 60 s⁻¹ (the value typed;
+    pint reads 's**-1' and '1/s' as the same unit)."""
+    import re
+
+    rows = [["Species", "Source", "Attachment rate (s-1)"], ["Apis mellifera", "s1", "650 ± 60"]]
+    wide = write_csv(tmp_path / "wide.csv", rows)
+    assert run("import", wide, "-o", tmp_path / "out") == 2
+    err = capsys.readouterr().err
+    header = re.search(r"own column, e\.g\. '([^']+)'", err).group(1)
+    assert header == "Attachment rate SD (s-1)"
+    rows = [["Species", "Source", "Attachment rate (s-1)", header], ["Apis mellifera", "s1", "650", "60"]]
+    wide = write_csv(tmp_path / "wide2.csv", rows)
+    assert run("import", wide, "-o", tmp_path / "out2") == 0
+    with open(tmp_path / "out2" / "observations.csv", newline="", encoding="utf-8") as fh:
+        (obs,) = list(csv.DictReader(fh))
+    assert obs["quantity"] == "attach_rate" and obs["uncertainty_kind"] == "sd"
+    u = UREG.Quantity(float(obs["uncertainty"]), obs["unit"].replace("s-1", "s**-1")).to("1/s")
+    assert abs(u.magnitude - 60) < 1e-12
