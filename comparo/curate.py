@@ -926,6 +926,8 @@ def column_units(table: pd.DataFrame, catalog) -> pd.DataFrame:
             meaning = "accepted taxon name"
         elif col == "temperature_c":
             unit, meaning = "degC", "temperature the temperature-sensitive values refer to"
+        elif col == "operating_temperature_c":
+            unit, meaning = "degC", "operating (body or muscle) temperature during the behaviour (taxa.csv)"
         elif col in keys:
             unit, meaning = keys[col], "value in the canonical unit" if col not in derived else "derived value"
         elif col == "regime":
@@ -961,7 +963,9 @@ def _temperature_record(used: pd.DataFrame, cat, h: Harmonised) -> dict[str, Any
     """``attrs["temperature"]`` of the per-taxon table: where values were brought (``to``)
     and, per quantity and taxon, what happened to its temperature-sensitive values used:
     ``(quantity, taxon, values, rescaled, lowest factor, highest factor, kept as measured,
-    without temperature)`` (factors over the rescaled values; ±inf when none). Read by
+    without temperature, rescaled to the fallback)`` (factors over the rescaled values; ±inf
+    when none; the last: with ``"operating"``, rescaled values of a taxon without an operating
+    temperature, brought to ``fallback_c``). Read by
     :func:`comparo.thermal.fit_temperature`."""
     ts = used[
         map_distinct(
@@ -983,6 +987,12 @@ def _temperature_record(used: pd.DataFrame, cat, h: Harmonised) -> dict[str, Any
         )
     f = ts["temperature_factor"].to_numpy(float)
     norm = (treat == "normalised") & (f != 1.0)
+    note = (
+        ts["temperature_note"].fillna("").astype(str)
+        if "temperature_note" in ts
+        else pd.Series("", index=ts.index)
+    )
+    fallback = norm & note.str.contains("no operating_temperature_c: fallback", regex=False).to_numpy()
     part = pd.DataFrame(
         {
             "q": ts["quantity_key"].to_numpy(object),
@@ -993,6 +1003,7 @@ def _temperature_record(used: pd.DataFrame, cat, h: Harmonised) -> dict[str, Any
             "fmax": np.where(norm, f, -np.inf),
             "kept": (treat == "kept").astype(int),
             "none": (treat == "none").astype(int),
+            "fallback": fallback.astype(int),
         }
     )
     agg = part.groupby(["q", "t"], sort=False).agg(
@@ -1002,9 +1013,12 @@ def _temperature_record(used: pd.DataFrame, cat, h: Harmonised) -> dict[str, Any
         fmax=("fmax", "max"),
         kept=("kept", "sum"),
         none=("none", "sum"),
+        fallback=("fallback", "sum"),
     )
     recs = tuple(
-        (q, t, int(r.n), int(r.rescaled), float(r.fmin), float(r.fmax), int(r.kept), int(r.none))
+        (q, t, int(r.n), int(r.rescaled), float(r.fmin), float(r.fmax), int(r.kept), int(r.none),
+         int(r.fallback))
         for (q, t), r in zip(agg.index, agg.itertuples(index=False), strict=True)
     )
-    return {"to": h.policy.target_text if h.policy is not None else "off", "values": recs}
+    return {"to": h.policy.target_text if h.policy is not None else "off", "values": recs,
+            "fallback_c": h.policy.reference_c if h.policy is not None else None}

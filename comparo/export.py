@@ -313,9 +313,14 @@ def table_workbook(table: pd.DataFrame, units: pd.DataFrame) -> bytes:
         u = unit_of.get(col, "")
         put(ws, 1, j, f"{col} ({pretty(u)})" if u else str(col))
         ws.cell(row=1, column=j).font = bold
+    numeric = [bool(unit_of.get(col, "")) for col in table.columns]  # a column with a unit holds numbers
     for i, rec in enumerate(table.itertuples(index=False), start=2):
         for j, v in enumerate(rec, start=1):
-            put(ws, i, j, v.item() if hasattr(v, "item") else v)
+            v = v.item() if hasattr(v, "item") else v
+            if numeric[j - 1] and isinstance(v, str):  # taxa.csv columns are read as text
+                num = pd.to_numeric(v, errors="coerce")
+                v = v if pd.isna(num) else float(num)
+            put(ws, i, j, v)
     ws.freeze_panes = "B2"
     for j, name in enumerate(units.columns, start=1):
         put(sheet_columns, 1, j, name)

@@ -15,6 +15,7 @@ import hashlib
 import math
 import os
 import re
+import shlex
 import shutil
 import tempfile
 import tomllib
@@ -35,6 +36,7 @@ from comparo.wide import (
     read_grid,
     read_map,
     read_synonyms,
+    split_unit,
 )
 
 NOT_STATED = "not stated"  # locator written when the wide table gives none
@@ -138,6 +140,9 @@ def split_plus_minus(v: Any) -> tuple[str, str] | None:
     return (m.group("value"), m.group("spread")) if m else None
 
 
+_SPREAD_EXAMPLE = "'Body mass SD (g)'"
+
+
 def _hint(t: str, decimal_comma: bool) -> str:
     if not decimal_comma and re.fullmatch(r"[-+]?\d+,\d+", t):
         return "a decimal comma? rerun with --decimal-comma if the whole table uses them, or write '.'"
@@ -147,7 +152,7 @@ def _hint(t: str, decimal_comma: bool) -> str:
         return "a bound or approximate value is not a number: put the number in the cell and the qualifier in a notes column"
     if split_plus_minus(t) is not None:
         return ("a value with its spread: rerun with --plus-minus KIND (sd, se, ci95 or range_half: what the ± "
-                "means in the source) to split such cells, or put the spread in its own column, e.g. 'Body mass SD (g)'")
+                "means in the source) to split such cells, or put the spread in its own column, e.g. " + _SPREAD_EXAMPLE)
     if re.match(r"^[-+]?\d[\d.,]*\s*[A-Za-zµμ%°]", t):
         return "a unit typed into the cell? the unit belongs in the header, e.g. 'Body mass (g)'"
     return "give a plain number (empty cells make no row)"
@@ -259,6 +264,9 @@ class _Long:
 
 def _number_problem(grid: Grid, c: Column, i: int, v: Any, msg: str, hint: str) -> Problem:
     coord = grid.coordinate(i, c.index)
+    if hint.endswith(_SPREAD_EXAMPLE):  # the example spread column named after this column
+        name, unit = split_unit(c.header)
+        hint = hint[: -len(_SPREAD_EXAMPLE)] + f"'{name} SD" + (f" ({unit})'" if unit else "'")
     return Problem("error", grid.file, grid.row_numbers[i], c.header, str(v)[:60], "not-a-number", f"cell {coord} is {msg}", hint)
 
 
@@ -632,7 +640,7 @@ def _suggest_map(columns: list[Column], output: str) -> str:
             break
         if path.is_file() and not path.is_symlink() and _same_text(path, text):
             return (f"the map file {path} already holds every column's decision: fill role (and key, unit) "
-                    f"of the rows with an empty role, then rerun with --map {path}")
+                    f"of the rows with an empty role, then rerun with --map {shlex.quote(str(path))}")
         path = first.with_name(f"{first.stem}-{n}.csv")
     else:
         return ""
@@ -642,7 +650,7 @@ def _suggest_map(columns: list[Column], output: str) -> str:
         return ""
     kept = f" ({first} exists and is kept as it is)" if path != first else ""
     return (f"a map file with every column's decision is written to {path}{kept}: fill role (and key, unit) "
-            f"of the rows with an empty role, then rerun with --map {path}")
+            f"of the rows with an empty role, then rerun with --map {shlex.quote(str(path))}")
 
 
 def _same_text(path: Path, text: str) -> bool:
@@ -715,9 +723,9 @@ def _import(wide: Path, out: Path, src: Path | None, mp: Path | None, sheet: str
     obs = _frame(long.records, list(LONG_COLUMNS[:12]) + extra)
     taxa = _taxa_frame(long, columns)
     found = _validate(long, obs, src_table, taxa, grid, out)
+    found = column_unit_slips(found, long, columns, catalog, grid)  # also when errors stop it
     if any(p.severity == "error" for p in found):
         raise InputError(found)
-    found = column_unit_slips(found, long, columns, catalog, grid)
     warnings = [p for p in found if p.severity != "error" and p.rule != "citation-stub"]  # the summary counts the stubs
     for header, cells in long.empty_words.items():
         warnings.append(Problem("warning", grid.file, None, header, None, "missing-word", f"{len(cells)} cell(s) say the value is missing ({', '.join(cells[:5])}{' ...' if len(cells) > 5 else ''}); no row made", "nothing to do if they are missing values"))

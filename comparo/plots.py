@@ -415,8 +415,12 @@ def regime_plot(derived: pd.DataFrame, *, taxon_col: str = "taxon") -> Figure | 
     present = set(regime[ok])
     for r in [k for k in colours if k in present] + sorted(present - set(colours)):  # fixed colours
         m = ok & (regime == r)
-        ax.plot(xr[m], yk[m], ls="", marker="o", color=colours.get(r, PALETTE[4]),
-                label=f"{words.get(r, r)} (n = {m.sum()})")
+        a = int((m & above).sum())  # ringed below: counted apart, as limited by neither
+        label = f"{words.get(r, r)} (n = {m.sum()})"
+        if a and r in ("kinetic", "hydraulic"):
+            label = (f"{r} side of Π (n = {m.sum()}): {m.sum() - a} {r} limited, "
+                     f"{a} above their smaller bound")
+        ax.plot(xr[m], yk[m], ls="", marker="o", color=colours.get(r, PALETTE[4]), label=label)
     if above.any():
         ax.plot(xr[above], yk[above], ls="", marker="o", markersize=11, markerfacecolor="none",
                 color="#000000",

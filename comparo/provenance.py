@@ -106,6 +106,13 @@ class AuditReport:
             lines.append("share not printed in a source (computed, digitized, proxy or assumed): " + ", ".join(shaky))
         if self.sources_uncited or self.sources_missing:
             lines.append(f"sources never cited: {len(self.sources_uncited)}; cited but missing from the sources table: {len(self.sources_missing)}")
+        t = self.temperature or {}
+        if t.get("to"):
+            lines.append(f"temperature: {t.get('normalised', 0)} value(s) rescaled to {t['to']}"
+                         + (f" ({t['reference_temperature_c']:g} °C for taxa without one)"
+                            if t["to"] == "operating temperature" else "")
+                         + f", {len(t.get('kept_as_measured', []))} kept as measured (in vivo, regulating taxa), "
+                         f"{len(t.get('without_temperature', []))} without a temperature (used as measured)")
         grades = pd.Series(self.trust).value_counts()
         lines.append("trust grades: " + ", ".join(f"{g} {grades.get(g, 0)}" for g in TRUST_GRADES))
         return "\n".join(lines)

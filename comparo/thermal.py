@@ -348,7 +348,9 @@ def fit_temperature(
     factor other than 1); ``factor_min`` and ``factor_max`` (over the rescaled values,
     dimensionless; null when none); ``kept_as_measured`` (regulated in-vivo values left
     at their measured temperature); ``without_temperature`` (values with no measurement
-    temperature); ``option`` (``--no-temperature``, which turns the normalisation off).
+    temperature); ``fallback`` (with ``"operating"``: rescaled values of taxa without an
+    operating temperature, brought to ``fallback_c`` °C instead); ``option``
+    (``--no-temperature``, which turns the normalisation off).
     """
     info = getattr(table, "attrs", {}).get("temperature")
     if not info:
@@ -365,6 +367,8 @@ def fit_temperature(
         "factor_max": max(r[5] for r in recs if r[3]) if rescaled else None,
         "kept_as_measured": sum(r[6] for r in recs),
         "without_temperature": sum(r[7] for r in recs),
+        "fallback": sum(r[8] for r in recs),
+        "fallback_c": info.get("fallback_c"),
         "option": "--no-temperature",
     }
 
@@ -383,7 +387,15 @@ def fit_temperature_text(t: dict | None) -> str:
         f"rescaled to {t['to']}"
     )
     if t["rescaled"]:
-        text += f" (factor {t['factor_min']:.3g} to {t['factor_max']:.3g})"
+        lo, hi = f"{t['factor_min']:.3g}", f"{t['factor_max']:.3g}"
+        text += f" (factor {lo}" + ("" if lo == hi else f" to {hi}")
+        if t.get("fallback"):
+            text += (f"; {t['fallback']} of them, of taxa without operating_temperature_c, to the "
+                     f"fallback {t['fallback_c']:g} °C")
+        text += ")"
+    same = t["values"] - t["rescaled"] - t["kept_as_measured"] - t["without_temperature"]
+    if same > 0:
+        text += f"; {same} needed no rescaling (factor 1)"
     if t["kept_as_measured"]:
         text += f"; {t['kept_as_measured']} in-vivo value(s) of regulating taxa kept as measured"
     if t["without_temperature"]:

@@ -276,7 +276,8 @@ class FitResult:
         if self.breakpoint:
             bp = self.breakpoint
             lines.append(
-                f"  breakpoint at x = {_f(bp['x'])} (CI {_f(bp['x_ci'][0])} .. {_f(bp['x_ci'][1])}); "
+                f"  breakpoint at x = {_f(bp['x'])} (CI {_f(bp['x_ci'][0])} .. {_f(bp['x_ci'][1])}) of the least-squares "
+                f"broken line{'' if self.method == 'ols' else f' (not {self.method.upper()})'}; "
                 f"slopes {_f(bp['slope_left'])} | {_f(bp['slope_right'])}; single line? p = {_p(bp['p_single_line'])}"
             )
         if self.outliers:

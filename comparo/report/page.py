@@ -52,8 +52,8 @@ def _sensitivity_view(run, sec: dict) -> dict:
     return view | {
         "verdict": s.verdict, "notes": v["notes"] + list(s.unavailable),
         "forest": render.fig(run.figures, f"{aid}_sensitivity", f"leave one source out: {sec['title']}"),
-        "loso": refits.loc[refits["part"] == "leave_one_source_out", cols],
-        "basis": refits.loc[refits["part"] == "by_basis", cols[:-1] + ["ci_change", "flips"]],
+        "loso": refits.loc[refits["part"] == "leave_one_source_out", cols + ["note"]],
+        "basis": refits.loc[refits["part"] == "by_basis", cols[:-1] + ["ci_change", "flips", "note"]],
         "jack": summ[["n", "slope", "jackknife_se", "analytic_se", "se_ratio"]], "me": me,
         "me_note": summ["mc_note"].iat[0]}
 

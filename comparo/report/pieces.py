@@ -206,11 +206,13 @@ def run_sensitivity(ds, table, data, a: dict, res, opts: dict, seed: int, draws:
 
 
 def sensitivity_frame(s):
-    """One row per refit (:meth:`SensitivityResult.to_frame`) with ``ci_change`` and ``flips`` added."""
+    """One row per refit (:meth:`SensitivityResult.to_frame`) with ``ci_change``, ``flips`` and
+    ``note`` (why a refit could not be made, e.g. too few points left; empty otherwise) added."""
     f = s.to_frame()
     loso, basis = s.leave_one_source_out or [], s.by_basis or []
     f["ci_change"] = [None] * len(loso) + [r.get("ci_change") for r in basis]
     f["flips"] = [bool(r.get("flips")) for r in loso] + [bool(r.get("flips")) for r in basis]
+    f["note"] = [r.get("note") or "" for r in loso] + [r.get("note") or "" for r in basis]
     return f
 
 
