@@ -278,3 +278,63 @@ def test_refusals_and_no_overwrite(tmp_path, base):
     assert res.returncode == 2
     assert (tmp_path / "OUT.conflicts.csv").read_text() == "user data\n"
     assert (tmp_path / "OUT.conflicts-2.csv").exists()
+
+
+def test_second_round_keeps_given_takes_and_refuses_a_bad_take(tmp_path, base):
+    """With some takes given and some blank, the new conflicts file (never the one passed back)
+    lists all conflicts with the given takes filled in; a hand value for a whole row is
+    refused with exit 2."""
+    rows_a = _edit(_edit(ROWS, "m2", ",20,Hz", ",21,Hz"), "m4", "Fig. 2", "Fig. 2a")
+    rows_b = _edit(_edit(ROWS, "m2", ",20,Hz", ",22,Hz"), "m4", "Fig. 2", "Fig. 2c")
+    del rows_b["m6"]
+    rows_a = _edit(rows_a, "m6", "Table 4", "Table 4a")
+    a, b = _write(tmp_path / "a", rows=rows_a), _write(tmp_path / "b", rows=rows_b)
+    assert _merge_cli(tmp_path, a, b, base).returncode == 2
+    first = tmp_path / "OUT.conflicts.csv"
+    rows = list(csv.DictReader(open(first)))
+    assert [(r["key"], r["column"]) for r in rows] == [("m2", "value"), ("m4", "locator"),
+                                                       ("m6", "")]
+    rows[0]["take"] = "a"
+    rows[2]["take"] = "Table 9"  # a hand value for a whole row: refused
+    with open(first, "w", newline="") as fh:
+        w = csv.DictWriter(fh, fieldnames=list(rows[0]))
+        w.writeheader()
+        w.writerows(rows)
+    res = _merge_cli(tmp_path, a, b, base, resolve=first)
+    assert res.returncode == 2 and "m6" in res.stderr and "cell only" in res.stderr
+    rows[2]["take"] = "b"
+    with open(first, "w", newline="") as fh:
+        w = csv.DictWriter(fh, fieldnames=list(rows[0]))
+        w.writeheader()
+        w.writerows(rows)
+    kept = first.read_bytes()
+    res = _merge_cli(tmp_path, a, b, base, resolve=first)
+    assert res.returncode == 2 and not (tmp_path / "OUT").exists()
+    assert first.read_bytes() == kept
+    second = list(csv.DictReader(open(tmp_path / "OUT.conflicts-2.csv")))
+    assert [r["take"] for r in second] == ["a", "", "b"]
+    second[1]["take"] = "Fig. 2b"
+    with open(tmp_path / "OUT.conflicts-2.csv", "w", newline="") as fh:
+        w = csv.DictWriter(fh, fieldnames=list(second[0]))
+        w.writeheader()
+        w.writerows(second)
+    res = _merge_cli(tmp_path, a, b, base, resolve=tmp_path / "OUT.conflicts-2.csv")
+    assert res.returncode == 0, res.stderr
+    got = _table(tmp_path / "OUT" / "observations.csv", "obs_id")
+    assert (got["m2"]["value"], got["m4"]["locator"], "m6" in got) == ("21", "Fig. 2b", False)
+
+
+def test_merged_dataset_that_fails_check_is_not_written(tmp_path, base):
+    """A row added by A citing a source B removed (unchanged on A): each edit is clean, the
+    merge is not; the check's problem is printed, exit 2, OUT not written."""
+    rows_a = {**ROWS, "m9": "m9,Manduca sexta,body_mass,1510,mg,,,k3,Table 9,reported"}
+    rows_b = dict(ROWS)
+    del rows_b["m7"]
+    src_b = {k: v for k, v in SOURCES.items() if k != "k3"}
+    a = _write(tmp_path / "a", rows=rows_a)
+    b = _write(tmp_path / "b", rows=rows_b, sources=src_b)
+    res = _merge_cli(tmp_path, a, b, base)
+    assert res.returncode == 2
+    assert "k3" in res.stderr
+    assert not (tmp_path / "OUT").exists()
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".OUT")] == []
