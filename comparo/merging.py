@@ -32,6 +32,8 @@ TABLES = (
 #: Whole files taken from one side: section -> (key in RawDataset.files, file written in OUT).
 WHOLE = {"tree": ("tree", "tree.nwk"), "settings": ("settings", "comparo.toml")}
 NOTE_NAME = "merge-note.csv"
+#: Conflicts printed by :meth:`MergeResult.summary` (the conflicts file holds every one).
+SHOWN = 25
 CONFLICT_COLUMNS = ["section", "key", "column", "base", "a", "b", "take"]
 ABSENT = "(absent)"
 NO_BASE = "(no base)"
@@ -99,10 +101,12 @@ class MergeResult:
             return "\n".join(lines)
         left = self.unresolved
         lines.append(f"  {len(left)} conflict(s) unresolved; nothing written")
-        for c in left:
+        for c in left[:SHOWN]:
             col = f" {c['column']}" if c["column"] else ""
             lines.append(f"    {c['section']} {c['key']}{col}: base {_short(c['base'])} | "
                          f"a {_short(c['a'])} | b {_short(c['b'])}")
+        if len(left) > SHOWN:
+            lines.append(f"    ... and {len(left) - SHOWN} more (every one in the conflicts file)")
         lines.append(f"  conflicts file: {self.conflicts_file}")
         lines.append("  fill its 'take' column (a, b, base, or a value for a cell) and run again "
                      "with --resolve FILE")
@@ -340,6 +344,15 @@ def _guard(out: Path, inputs: list) -> None:
             raise UsageError(f"input {given} is inside the output folder {out}; choose another")
 
 
+def _placed(problems, folder: Path):
+    """Problems with each file named inside *folder* (``A/observations.csv``): which of the
+    datasets of a merge a problem belongs to."""
+    frame = problems.copy()
+    where = folder.parent if folder.is_file() else folder
+    frame["file"] = [str(where / Path(str(f)).name) if f else str(folder) for f in frame["file"]]
+    return frame
+
+
 def _write_folder(out: Path, files: dict[str, bytes]) -> None:
     """Every file into a new temporary folder beside OUT, checked, then renamed to OUT."""
     from comparo.dataset import load
@@ -355,9 +368,9 @@ def _write_folder(out: Path, files: dict[str, bytes]) -> None:
         os.replace(tmp, out)
     except InputError as exc:
         shutil.rmtree(tmp, ignore_errors=True)
-        frame = exc.problems.copy()
-        frame["file"] = frame["file"].astype(str).str.replace(str(tmp), str(out), regex=False)
-        raise InputError(frame) from None
+        err = InputError(_placed(exc.problems, out))
+        err.merged = True  # the merged dataset, not an input, failed the check
+        raise err from None
     except OSError as exc:
         shutil.rmtree(tmp, ignore_errors=True)
         raise UsageError(f"cannot write {out}: {exc.strerror or exc}") from None
@@ -387,8 +400,9 @@ def merge(
     dataset, does not pass ``comparo check``; :class:`comparo.errors.UsageError` for a bad
     output path or resolutions file. Inputs are never modified.
     """
-    from comparo.dataset import load
+    from comparo.errors import problems_frame
     from comparo.io import read_folder
+    from comparo.validate import validate
 
     out = Path(out)
     inputs = [p for p in (a, b, base, resolve) if p is not None]
@@ -396,17 +410,21 @@ def merge(
     resolutions = read_resolutions(resolve) if resolve is not None else {}
     roles = [("a", a), ("b", b)] + ([("base", base)] if base is not None else [])
     ds, raw, problems = {}, {}, []
-    for role, path in roles:
+    for role, path in roles:  # as comparo.load reads and checks, keeping the text as typed
         try:
-            ds[role] = load(path)
+            raw[role] = read_folder(path)
         except InputError as exc:
-            problems.append(exc.problems)
+            problems.append(_placed(exc.problems, Path(path)))
+            continue
+        ds[role], found = validate(raw[role])
+        frame = problems_frame(found)
+        if ds[role] is None or (frame["severity"] == "error").any():
+            problems.append(_placed(frame, Path(path)))
     if problems:
         import pandas as pd
 
         raise InputError(pd.concat(problems, ignore_index=True))
     for role, path in roles:
-        raw[role] = read_folder(path)
         if raw[role].traces is not None:
             raise UsageError(f"{role} {path} has traces.csv; merge does not merge trace files "
                              "yet: merge without them and copy the traces by hand")

@@ -18,8 +18,9 @@ def run(args) -> int:
     try:
         result = merge(args.a, args.b, args.base, out=args.output, resolve=args.resolve)
     except InputError as exc:
-        print(f"comparo merge: {args.output} not written; problems of the inputs or of the "
-              "merged dataset:", file=sys.stderr)
+        what = ("the merged dataset would not pass check" if getattr(exc, "merged", False)
+                else "an input does not pass check")
+        print(f"comparo merge: {args.output} not written: {what}:", file=sys.stderr)
         print_problems(exc.problems, stream=sys.stderr)
         return 2
     stream = sys.stdout if result.exit_code == 0 else sys.stderr
