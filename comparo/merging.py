@@ -130,8 +130,8 @@ def _table(raw, name: str, key: str, label: str) -> tuple[list[str], dict[str, d
         raise UsageError(f"{label}: the {name} table has no '{key}' column; merge matches rows by it")
     cols = [str(c) for c in frame.columns]
     rows = {}
-    for rec in frame.astype(str).to_dict("records"):
-        rows[str(rec[key]).strip()] = {str(k): ("" if v == "nan" else v) for k, v in rec.items()}
+    for rec in frame.to_dict("records"):  # every cell is text as typed ("" when blank)
+        rows[str(rec[key]).strip()] = {str(k): ("" if v is None else str(v)) for k, v in rec.items()}
     return cols, rows
 
 
@@ -332,8 +332,10 @@ def _conflicts_path(out: Path) -> Path:
 
 
 def _guard(out: Path, inputs: list) -> None:
-    from comparo.outputs import guard_output
+    from comparo.outputs import guard_output, is_stdout
 
+    if is_stdout(out):
+        raise UsageError("merge writes a dataset folder, not standard output: give -o FOLDER")
     guard_output(out, kind="dir", inputs=inputs)
     if out.exists() and any(out.iterdir()):
         raise UsageError(f"output folder {out} exists and is not empty; merge writes a new "
