@@ -45,6 +45,8 @@ _API = {
     "Imputation": "comparo.phylo.imputation",
     "diff": "comparo.versions",
     "VersionDiff": "comparo.versions",
+    "merge": "comparo.merging",
+    "MergeResult": "comparo.merging",
 }
 
 __all__ = sorted(_API) + ["__version__"]

@@ -171,6 +171,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, default=20240601,
                    help="random seed of the fits (the same for both versions)")
 
+    p = sub.add_parser("merge", help="three-way merge of two copies of a dataset (exit 2 on conflicts)")
+    p.add_argument("a", metavar="A", help="one curator's copy: dataset folder or workbook")
+    p.add_argument("b", metavar="B", help="the other curator's copy")
+    p.add_argument("--base", metavar="BASE", help="the version both copies started from")
+    p.add_argument("-o", "--output", required=True, metavar="OUT", help="new folder for the merged dataset")
+    p.add_argument("--resolve", metavar="FILE", help="a conflicts file with its 'take' column filled")
+    p.set_defaults(output_kind="dir")
+
     p = sub.add_parser("report", help="full analysis: HTML report, figures and tables")
     _dataset_arg(p)
     _output_dir_arg(p)

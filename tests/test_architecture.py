@@ -31,6 +31,7 @@ FORBIDDEN = {
     "reliance": PRESENTATION,
     # two versions compared: fits through lines, never the presentation rooms
     "versions": PRESENTATION,
+    "merging": PRESENTATION,
     "config": ("reliance", *PRESENTATION),
     "loops": ("io", "traces", *ABOVE_READ),
     "traces": ("derivation", "phylo", "lines", "flags", "reliance", *PRESENTATION),
