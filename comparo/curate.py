@@ -601,7 +601,7 @@ def _phylo_warnings(ds: Dataset, h: Harmonised, file_of, temperature: bool) -> l
         return []
     from comparo.phylo.outliers import hint, phylo_outliers
 
-    found = phylo_outliers(ds, per_taxon(ds, temperature=temperature, harmonised=h))
+    found = phylo_outliers(ds, harmonised=h, temperature=temperature)
     row_of = dict(zip(h.rows["obs_id"], h.rows["row"], strict=True))
     out: list[Problem] = []
     for f in found.flagged:
