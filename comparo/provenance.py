@@ -123,14 +123,14 @@ class AuditReport:
 
     def _phylo_lines(self) -> list[str]:
         """The check against relatives: what was checked, then one line per flagged value."""
-        lines = [f"check against relatives: {self.phylo_note}"]
+        lines = [self.phylo_note] if self.phylo_note else []
         if self.phylo_checked:
             lines.append("  checked: " + ", ".join(self.phylo_checked))
         for f in self.phylo_flagged:
             lo, hi = f["range"]
             lines.append(f"  {f['quantity']} of {f['taxon']} ({', '.join(f['obs_ids'])}): {f['value']:.4g} "
-                         f"{f['unit']}, {f['ratio']:.3g} times the {f['predicted']:.3g} its relatives "
-                         f"predict (95% range {lo:.3g} to {hi:.3g}), z = {f['z']:.2f}")
+                         f"{f['unit']}, {f['ratio']:.3g} times the {f['predicted']:.3g} {f['unit']} its "
+                         f"relatives predict (95% range {lo:.3g} to {hi:.3g}), z = {f['z']:.2f}")
         return lines
 
 

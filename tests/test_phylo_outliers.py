@@ -121,10 +121,13 @@ def _dataset(folder, slip: bool = True, tree: bool = True):
     nwk = random_newick(60, seed=7, ultrametric=True)
     _, tips, y = _bm(nwk, 8, sd=0.45)
     slip_at = int(np.argsort(y)[24])
-    nwk = re.sub(r"\bt(\d+)\b", r"Simulata_sp\1", nwk)
+    def epithet(tip: str) -> str:  # t48 -> "simeh": a binomial, as check asks
+        return "sim" + "".join(chr(ord("a") + int(d)) for d in tip[1:])
+
+    nwk = re.sub(r"\bt\d+\b", lambda m: "Simulata_" + epithet(m.group(0)), nwk)
     rows = []
     for i, (t, v) in enumerate(zip(tips, y, strict=True)):
-        name = "Simulata sp" + t[1:]
+        name = "Simulata " + epithet(t)
         value = 10.0**v * (1000.0 if slip and i == slip_at else 1.0)
         rows.append(f"b{i},{name},body_mass,{value:.6g},g,,,,s1,Table 1,reported")
         if i == slip_at:
@@ -134,7 +137,7 @@ def _dataset(folder, slip: bool = True, tree: bool = True):
     (folder / "sources.csv").write_text(SOURCES)
     if tree:
         (folder / "tree.nwk").write_text(nwk + "\n")
-    return folder, "Simulata sp" + tips[slip_at][1:], f"b{slip_at}"
+    return folder, "Simulata " + epithet(tips[slip_at]), f"b{slip_at}"
 
 
 def test_a_planted_unit_slip_is_flagged_with_its_obs_ids(tmp_path):
@@ -166,6 +169,7 @@ def test_check_warns_and_exits_0(tmp_path):
     assert "95% range" in probs[0]["message"] and name in probs[0]["message"]
     text = run_main("check", str(folder))
     assert text.returncode == 0 and "phylo-outlier" in text.stdout
+    assert "2 warning(s)" in text.stdout  # nothing else to warn about in this dataset
 
 
 def test_without_a_tree_the_list_is_empty_and_the_note_says_why(tmp_path):

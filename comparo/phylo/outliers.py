@@ -239,8 +239,7 @@ def phylo_outliers(ds: Any, table: pd.DataFrame | None = None, *, alpha: float =
     flagged.sort(key=lambda f: (f["quantity"], -abs(f["z"])))
     outliers = [{"obs_id": o, "taxon": f["taxon"], "quantity": f["quantity"], "z": _f(f["z"])}
                 for f in flagged for o in f["obs_ids"]]
-    note = (f"{len(checked)} quantities checked against relatives on the tree (leave-one-out, "
-            f"Bonferroni at {alpha:g} per quantity); "
-            f"{len(skipped)} not checked" if checked else
+    note = (f"checked against relatives on the tree: {len(checked)} quantities (leave-one-out, "
+            f"Bonferroni at {alpha:g} per quantity); not checked: {len(skipped)}" if checked else
             f"no quantity has {MIN_CHECKED} or more observed taxa on the tree: nothing checked")
     return PhyloCheck(outliers, flagged, checked, skipped, note)
