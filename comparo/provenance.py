@@ -120,7 +120,6 @@ class AuditReport:
         lines.append("trust grades: " + ", ".join(f"{g} {grades.get(g, 0)}" for g in TRUST_GRADES))
         return "\n".join(lines)
 
-
     def _phylo_lines(self) -> list[str]:
         """The check against relatives: what was checked, then one line per flagged value."""
         lines = [self.phylo_note] if self.phylo_note else []
