@@ -578,6 +578,7 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
             others = "; ".join(describe_value(c, j) for j in range(len(c["obs_ids"])) if j != i)
             out.append(Problem("warning", file_of(oid), row, "value", oid, "conflict", f"{c['quantity']} of {c['taxon']}: {describe_value(c, i)} disagrees with {others}", "check both sources; the per-taxon value combines them"))
     out += _temperature_notes(ds, h, file)
+    out += _phylo_warnings(ds, h, file_of, temperature)
     for b in ("digitized", "proxy", "assumed"):
         for r in rows[rows["basis"] == b].itertuples():
             extra = f" (stands in from {r.proxy_taxon})" if b == "proxy" else ""
@@ -590,6 +591,29 @@ def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
         out.append(Problem("note", TRACE_ROWS_FILE, None, None, str(n_traces), TRACE_ROWS_RULE,
                            f"{n_traces} row(s) computed from the traces (frequency, loop area, work ...) join the "
                            f"{int((rows['_origin'] == '').sum())} rows of the observations table", "audit and the report count both"))
+    return out
+
+
+def _phylo_warnings(ds: Dataset, h: Harmonised, file_of, temperature: bool) -> list[Problem]:
+    """Warnings for values far from what their relatives on the tree predict (the check of
+    ``comparo.phylo.outliers``, imported lazily: a later room's check, like the gate hooks)."""
+    if ds.tree is None:
+        return []
+    from comparo.phylo.outliers import hint, phylo_outliers
+
+    found = phylo_outliers(ds, harmonised=h, temperature=temperature)
+    row_of = dict(zip(h.rows["obs_id"], h.rows["row"], strict=True))
+    out: list[Problem] = []
+    for f in found.flagged:
+        unit = _pretty(f["unit"])
+        lo, hi = f["range"]
+        msg = (f"{f['quantity']} of {f['taxon']} = {f['value']:.4g} {unit} is {f['ratio']:.3g} times "
+               f"what its relatives on the tree predict ({f['predicted']:.3g} {unit}, 95% range "
+               f"{lo:.3g} to {hi:.3g}); leave-one-out z = {f['z']:.2f}, beyond {f['threshold']:.2f}")
+        for oid in f["obs_ids"]:
+            row = row_of.get(oid)
+            out.append(Problem("warning", file_of(oid), int(row) if row is not None else None, "value",
+                               oid, "phylo-outlier", msg, hint(f["value"], lo, hi)))
     return out
 
 

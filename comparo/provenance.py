@@ -45,6 +45,12 @@ class AuditReport:
     sources_missing: list[str] = field(default_factory=list)
     trust: dict[str, str] = field(default_factory=dict)
     rows_from_traces: int = 0  # of rows_read: rows computed from the traces of traces.csv
+    # values far from what relatives on the tree predict (comparo.phylo.outliers)
+    phylo_outliers: list[dict[str, Any]] = field(default_factory=list)
+    phylo_checked: list[str] = field(default_factory=list)
+    phylo_skipped: dict[str, str] = field(default_factory=dict)
+    phylo_note: str = ""
+    phylo_flagged: list[dict[str, Any]] = field(default_factory=list)  # per taxon, with the range
 
     @property
     def balanced(self) -> bool:
@@ -60,6 +66,8 @@ class AuditReport:
             "synonyms": self.synonyms, "temperature": self.temperature,
             "rows_missing_locator": self.rows_missing_locator, "rows_missing_temperature": self.rows_missing_temperature,
             "sources_uncited": self.sources_uncited, "sources_missing": self.sources_missing, "trust": self.trust,
+            "phylo_outliers": self.phylo_outliers, "phylo_checked": self.phylo_checked,
+            "phylo_skipped": self.phylo_skipped, "phylo_note": self.phylo_note,
         }
 
     def to_frame(self) -> pd.DataFrame:
@@ -76,6 +84,7 @@ class AuditReport:
             ("rows read", self.rows_read), ("rows used", self.rows_used), ("rows merged (duplicates)", self.rows_merged),
             ("rows excluded", len(self.rows_excluded)), ("conflicts", len(self.conflicts)),
             ("suspected unit slips", len(self.unit_slips)), ("out of plausible range", len(self.out_of_range)),
+            ("far from what relatives predict", len(self.phylo_flagged)),
             ("taxa", len(self.coverage)), ("sources", len(self.sources)),
             *[(f"taxa graded {g}", int(grades.get(g, 0))) for g in TRUST_GRADES],
         ]
@@ -113,9 +122,22 @@ class AuditReport:
                             if t["to"] == "operating temperature" else "")
                          + f", {len(t.get('kept_as_measured', []))} kept as measured (in vivo, regulating taxa), "
                          f"{len(t.get('without_temperature', []))} without a temperature (used as measured)")
+        lines += self._phylo_lines()
         grades = pd.Series(self.trust).value_counts()
         lines.append("trust grades: " + ", ".join(f"{g} {grades.get(g, 0)}" for g in TRUST_GRADES))
         return "\n".join(lines)
+
+    def _phylo_lines(self) -> list[str]:
+        """The check against relatives: what was checked, then one line per flagged value."""
+        lines = [self.phylo_note] if self.phylo_note else []
+        if self.phylo_checked:
+            lines.append("  checked: " + ", ".join(self.phylo_checked))
+        for f in self.phylo_flagged:
+            lo, hi = f["range"]
+            lines.append(f"  {f['quantity']} of {f['taxon']} ({', '.join(f['obs_ids'])}): {f['value']:.4g} "
+                         f"{f['unit']}, {f['ratio']:.3g} times the {f['predicted']:.3g} {f['unit']} its "
+                         f"relatives predict (95% range {lo:.3g} to {hi:.3g}), z = {f['z']:.2f}")
+        return lines
 
 
 TRUST_GRADES = ("firm", "read-off", "borrowed", "contested", "sparse")
@@ -195,6 +217,9 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
                                    "obs_id"].tolist(),
         "to": h.policy.target_text if h.policy is not None else None,
     }
+    from comparo.phylo.outliers import phylo_outliers  # a later room's check, lazily
+
+    phylo = phylo_outliers(ds, tab)
     return AuditReport(
         rows_read=len(rows),
         rows_from_traces=int((rows["_origin"] != "").sum()) if "_origin" in rows else 0,
@@ -215,6 +240,11 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
         sources_uncited=sorted(listed - cited),
         sources_missing=sorted(cited - listed),
         trust=trust,
+        phylo_outliers=phylo.outliers,
+        phylo_checked=phylo.checked,
+        phylo_skipped=phylo.skipped,
+        phylo_note=phylo.note,
+        phylo_flagged=phylo.flagged,
     )
 
 

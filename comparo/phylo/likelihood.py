@@ -114,7 +114,7 @@ def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: n
     (a grid of 11 points, then a bounded Brent refinement around the best, to
     :data:`LAMBDA_XTOL`), with the profile CI {lambda: 2(l_max - l(lambda)) <= chi²_1(ci)}
     (ends to the same tolerance). Every lambda is evaluated once (one linear-time pass)."""
-    from scipy.special import chdtri  # the chi² quantile, without importing scipy.stats
+    from statistics import NormalDist  # chi²_1 quantile = the squared normal one, no scipy
 
     if not (isinstance(lambda_, str) and lambda_.strip().lower() == "ml"):
         try:
@@ -146,7 +146,7 @@ def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: n
     grid = np.linspace(0.0, top, 11)
     vals = np.array([ll(v) for v in grid])
     lam_hat, ll_max = _maximise(ll, grid, vals)
-    crit = float(chdtri(1, 1.0 - ci))
+    crit = NormalDist().inv_cdf(0.5 + ci / 2.0) ** 2  # chi²_1(ci)
     lower, upper = _profile_limits(ll, grid, sorted(cache), lam_hat, ll_max, crit, top)
     return _LambdaFit(lam_hat, (float(lower), float(upper)), ll_max, ll(0.0), ll(top), fit_at(lam_hat), top)
 
