@@ -9,7 +9,10 @@ steps so that ``comparo check`` can report them before ``derive``, ``fit`` or
 * ``[ratios]``: each expression parsed, its quantities known, and its values kept
   inside the range of a double over the plausible ranges of its quantities;
 * ``[[analysis]]``: each fit a table with ``x`` and ``y`` naming quantities, a known
-  ``method``, a ``by`` column that exists and a finite ``against`` (old name ``test_slope``).
+  ``method``, a ``by`` column that exists and a finite ``against`` (old name ``test_slope``);
+* ``[[comparison]]``: each model comparison a table with ``y`` a quantity, ``models`` a list
+  of at least two distinct lists of quantities, ``method`` ols or pgls, an optional
+  ``factor`` column of taxa.csv and an optional ``name``.
 
 :func:`settings_problems` is the gate hook (``comparo check``); :func:`derive_settings`
 and :func:`analyses` are what ``derive`` and ``report`` call, raising the same problems.
@@ -26,6 +29,9 @@ from comparo.errors import InputError, Problem, problems_from_frame
 
 #: Keys one ``[[analysis]]`` entry may hold.
 ANALYSIS_KEYS = ("x", "y", "method", "by", "against", "test_slope")  # test_slope: the old name of against
+
+#: Keys one ``[[comparison]]`` entry may hold.
+COMPARISON_KEYS = ("y", "models", "method", "factor", "name")
 
 #: Fits run when ``comparo.toml`` declares no ``[[analysis]]`` (kept when the columns exist).
 DEFAULT_ANALYSES = (
@@ -56,6 +62,12 @@ def _table_problems(settings: Mapping[str, Any]) -> list[Problem]:
         probs.append(_problem("analysis", declared, "settings-type",
                               "analysis must be a list of tables, one [[analysis]] section per fit",
                               '[[analysis]] then x = "body_mass", y = "frequency_observed", method = "sma"'))
+    declared = settings.get("comparison")
+    if declared is not None and not (isinstance(declared, list) and all(isinstance(c, Mapping) for c in declared)):
+        probs.append(_problem("comparison", declared, "settings-type",
+                              "comparison must be a list of tables, one [[comparison]] section per comparison",
+                              '[[comparison]] then y = "frequency_observed", models = [["body_mass"], '
+                              '["frequency_kinetic_bound"]]'))
     return probs
 
 
@@ -68,7 +80,7 @@ def derive_settings(settings: Mapping[str, Any] | None) -> dict[str, Any]:
         When ``[derive]``, ``[ratios]`` or ``[quantities]`` is not a table.
     """
     settings = settings or {}
-    probs = [p for p in _table_problems(settings) if p.column != "analysis"]
+    probs = [p for p in _table_problems(settings) if p.column not in ("analysis", "comparison")]
     if probs:
         raise InputError(probs)
     return {**settings.get("derive", {}), "ratios": settings.get("ratios", {}),
@@ -168,6 +180,88 @@ def analysis_problems(settings: Mapping[str, Any], catalog, taxa_columns: set[st
     return probs
 
 
+def _comparison_problems(i: int, c: Mapping[str, Any], quantities: set[str], columns: set[str] | None) -> list[Problem]:
+    from comparo.lines.multiple import MULTIPLE_METHODS
+
+    probs = []
+    where = f"comparison[{i + 1}]"
+    for key in c:
+        if key not in COMPARISON_KEYS:
+            close = difflib.get_close_matches(str(key), COMPARISON_KEYS, n=1)
+            probs.append(_problem(f"{where}.{key}", c[key], "comparison-setting",
+                                  f"unknown key {key!r} in a [[comparison]] entry",
+                                  f"did you mean {close[0]!r}?" if close else f"known keys: {', '.join(COMPARISON_KEYS)}"))
+
+    def quantity(col: str, v: Any, what: str) -> None:
+        if not isinstance(v, str) or v not in quantities:
+            close = difflib.get_close_matches(str(v), sorted(quantities), n=1)
+            probs.append(_problem(col, v, "comparison-setting", f"{what} must name a quantity (catalogue, derived or "
+                                  "ratio key)", f"did you mean {close[0]!r}?" if close else "comparo units lists the keys"))
+
+    if c.get("y") is None:
+        probs.append(_problem(f"{where}.y", None, "comparison-setting", "a [[comparison]] entry needs y",
+                              'y = "frequency_observed" (a quantity key)'))
+    else:
+        quantity(f"{where}.y", c["y"], "y")
+    models = c.get("models")
+    example = 'models = [["body_mass"], ["frequency_kinetic_bound"], ["frequency_kinetic_bound", "body_mass"]]'
+    if not isinstance(models, list) or len(models) < 2 or not all(isinstance(m, list) for m in models):
+        probs.append(_problem(f"{where}.models", models, "comparison-setting",
+                              "models must be a list of at least two models, each a list of predictor keys "
+                              "([] for the intercept-only model)", example))
+    else:
+        seen: dict[frozenset, int] = {}
+        for j, m in enumerate(models):
+            for v in m:
+                quantity(f"{where}.models[{j + 1}]", v, "each predictor")
+            key = frozenset(map(str, m))
+            if len(key) < len(m):
+                probs.append(_problem(f"{where}.models[{j + 1}]", m, "comparison-setting",
+                                      "a model names a predictor twice"))
+            elif key in seen:
+                probs.append(_problem(f"{where}.models[{j + 1}]", m, "comparison-setting",
+                                      f"model {j + 1} repeats model {seen[key] + 1}"))
+            seen.setdefault(key, j)
+    method = c.get("method", "ols")
+    if method not in MULTIPLE_METHODS:
+        probs.append(_problem(f"{where}.method", method, "comparison-setting",
+                              f"method must be one of {', '.join(MULTIPLE_METHODS)} (model comparison by "
+                              "maximum likelihood)"))
+    factor = c.get("factor")
+    if factor is not None and (not isinstance(factor, str) or (columns is not None and factor not in columns)):
+        probs.append(_problem(f"{where}.factor", factor, "comparison-setting", "factor must name a column of taxa.csv",
+                              f"columns: {', '.join(sorted(columns))}" if columns else "add the column to taxa.csv"))
+    name = c.get("name")
+    if name is not None and (not isinstance(name, str) or not name.strip()):
+        probs.append(_problem(f"{where}.name", name, "comparison-setting", "name must be a non-empty text"))
+    return probs
+
+
+def comparison_problems(settings: Mapping[str, Any], catalog, taxa_columns: set[str] | None = None) -> list[Problem]:
+    """Problems of the ``[[comparison]]`` entries (empty when there are none)."""
+    declared = settings.get("comparison")
+    if not isinstance(declared, list) or not all(isinstance(c, Mapping) for c in declared):
+        return []
+    ratios = settings.get("ratios")
+    quantities = set(_known_quantities(catalog)) | (set(ratios) if isinstance(ratios, Mapping) else set())
+    probs: list[Problem] = []
+    for i, c in enumerate(declared):
+        probs += _comparison_problems(i, c, quantities, taxa_columns)
+    return probs
+
+
+def comparisons(settings: Mapping[str, Any] | None, catalog=None, taxa_columns: set[str] | None = None) -> list[dict]:
+    """The ``[[comparison]]`` entries to run (dicts with y, models, method, factor, name), in
+    order. Raises :class:`InputError` for a bad entry (as ``check`` reports)."""
+    settings = settings or {}
+    probs = [p for p in _table_problems(settings) if p.column == "comparison"]
+    if catalog is not None and not probs:
+        probs += comparison_problems(settings, catalog, taxa_columns)
+    if probs:
+        raise InputError(probs)
+    return [dict(c) for c in settings.get("comparison") or []]
+
+
 def analyses(settings: Mapping[str, Any] | None, table, catalog=None,
              taxa_columns: set[str] | None = None) -> tuple[list[dict], str]:
     """The fits to run: the ``[[analysis]]`` entries, else the default set whose columns exist.
@@ -204,4 +298,5 @@ def settings_problems(ds) -> list[Problem]:
     probs += ratio_problems(settings.get("ratios", {}), ds.catalog)
     taxa_columns = set(ds.taxa.columns) if ds.taxa is not None else set()
     probs += analysis_problems(settings, ds.catalog, taxa_columns)
+    probs += comparison_problems(settings, ds.catalog, taxa_columns)
     return probs

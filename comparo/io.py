@@ -33,7 +33,7 @@ TRACES_NAMES = ("traces.csv", "traces.tsv")
 SETTINGS_NAME = "comparo.toml"
 
 SETTINGS_KEYS = {
-    "reference_temperature_c", "q10", "derive", "quantities", "ratios", "analysis",
+    "reference_temperature_c", "q10", "derive", "quantities", "ratios", "analysis", "comparison",
     "aggregate", "conflict_factor", "temperature_model", "activation_energy_kj_mol",
     "title", "seed", "header_synonyms", "temperature",
 }

@@ -504,6 +504,13 @@ method = "sma"
 x = "body_mass"
 y = "frequency_observed"
 method = "pgls"
+
+[[comparison]]
+name = "Which limit does observed frequency track?"
+y = "frequency_observed"
+models = [["body_mass"], ["frequency_kinetic_bound"], ["frequency_hydraulic_bound"],
+          ["frequency_kinetic_bound", "frequency_hydraulic_bound"], ["frequency_kinetic_bound", "body_mass"]]
+method = "pgls"
 """
     readme = """# synthetic_cyclers: an invented compilation
 

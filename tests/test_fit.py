@@ -15,6 +15,7 @@ from comparo.lines import FitResult, common_slope_model2, fit, model2_line, ols_
 CONTRACT_KEYS = {
     "method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2", "ci_level",
     "against", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded", "breakpoint", "sensitivity",
+    "terms",
 }
 
 

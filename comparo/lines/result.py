@@ -130,6 +130,7 @@ class FitResult:
             "excluded": _json(list(self.excluded)),
             "breakpoint": _json(self.breakpoint),
             "sensitivity": _json(self.sensitivity),
+            "terms": self.terms(),
         }
         if self.group_tests is not None:
             out["group_tests"] = _json(self.group_tests)
@@ -145,10 +146,47 @@ class FitResult:
             out["temperature"] = _json(self.temperature)
         return out
 
+    def terms(self) -> list[dict]:
+        """The line as the ``terms`` rows of a multiple fit: ``intercept`` and the x name, each
+        ``{"term", "estimate", "se", "ci": [lo, hi], "t", "p"}`` (test of the term = 0).
+
+        ols, pgls and lts (the reweighted least-squares fit, on the points it kept): se of the
+        least-squares (GLS) estimate, ``t`` on n - 2 df (lts: kept - 2), the t-based CI.
+        robust: the Huber fit's se, ``t`` holds the Wald z and ``p`` is from the normal, as
+        the slope test of that method. sma and ma: the method's own exact intervals, and
+        ``se``, ``t``, ``p`` null (their intervals are not estimate +/- quantile x se).
+        """
+        from scipy.special import ndtr, ndtri, stdtr, stdtrit
+
+        pairs = (("intercept", self.intercept, self.intercept_ci), (self.x, self.slope, self.slope_ci))
+        rows = []
+        for term, est, ci in pairs:
+            row = {"term": term, "estimate": _num(est), "se": None, "ci": _pair(ci), "t": None, "p": None}
+            se = df = None
+            if self.method in ("ols", "lts", "robust") and ci is not None:
+                if self.method == "lts":
+                    df = int(sum(1 for p in self.points if p.get("weight", 1.0) > 0)) - 2
+                elif self.method == "ols":
+                    df = int(self.n) - 2
+                q = float(ndtri(0.5 + self.ci_level / 2.0)) if df is None else float(stdtrit(df, 0.5 + self.ci_level / 2.0))
+                se = (float(ci[1]) - float(ci[0])) / (2.0 * q)
+            elif self.method == "pgls" and self.phylo:
+                se = self.phylo.get("intercept_se" if term == "intercept" else "slope_se")
+                df = self.phylo.get("df")
+            if se is not None and df is not None and df < 1:
+                se = None
+            if se is not None and se > 0 and est is not None:
+                t = float(est) / float(se)
+                p = 2.0 * (float(ndtr(-abs(t))) if df is None else float(stdtr(df, -abs(t))))
+                row.update(se=_num(se), t=_num(t), p=_num(p))
+            rows.append(row)
+        return rows
+
     @classmethod
     def from_dict(cls, d: dict, *, points: tuple[dict, ...] = ()) -> FitResult:
         """Build a result from a contract dict (e.g. the PGLS fit of :mod:`comparo.phylo`)."""
         names = {f for f in cls.__dataclass_fields__}
+        d = {k: v for k, v in d.items() if k != "terms"}
         kw = {("lambda_" if k == "lambda" else k): v for k, v in d.items() if ("lambda_" if k == "lambda" else k) in names}
         for k in ("slope_ci", "intercept_ci", "lambda_ci"):
             if kw.get(k) is not None:

@@ -159,6 +159,7 @@ class _Run:
     sens_json: list[dict] = field(default_factory=list)
     frames: dict[str, Any] = field(default_factory=dict)
     cycles: Any = None  # comparo.traces.TraceSet when the dataset has traces.csv
+    comparisons: list[dict] = field(default_factory=list)
 
 
 def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps, draws: int) -> ReportResult:
@@ -178,6 +179,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     _derive(run)
     steps.step("fitting and drawing")
     _fit_all(run)
+    _compare_all(run)
     steps.step("sensitivity: sources, bases, taxa, measurement error")
     _sensitivity_all(run)
     steps.step("drawing the regime, coverage and cycles")
@@ -300,6 +302,48 @@ def _fit_one(run: _Run, i: int, a: dict, labels, any_pgls: bool, state: dict) ->
     return sec
 
 
+def comparison_id(i: int, c: dict) -> str:
+    """The id of the i-th comparison (anchors, file names): ``compare1_ols_y``."""
+    return f"compare{i + 1}_{c.get('method', 'ols')}_{c['y']}"
+
+
+def _compare_all(run: _Run) -> None:
+    """Every ``[[comparison]]`` of comparo.toml (:func:`comparo.lines.compare`) on the data the
+    fits use; a comparison that cannot run is kept with the reason."""
+    import pandas as pd
+
+    from comparo.config import comparisons
+    from comparo.csvsafe import to_csv
+    from comparo.errors import ComparoError
+    from comparo.lines.comparison import compare
+
+    declared = comparisons(run.ds.settings or {}, run.ds.catalog, _taxa_columns(run.ds))
+    labels = pieces.tree_labels(run.ds)
+    for i, c in enumerate(declared):
+        cid, method = comparison_id(i, c), c.get("method", "ols")
+        rec: dict[str, Any] = {"id": cid, "name": c.get("name") or f"models of {c['y']}", "y": c["y"],
+                               "method": method, "factor": c.get("factor"), "models": [list(m) for m in c["models"]]}
+        run.comparisons.append(rec)
+        opts: dict[str, Any] = {}
+        if method == "pgls":
+            if run.ds.tree is None:
+                rec["error"] = "method pgls needs a tree (tree.nwk)"
+                continue
+            opts = {"tree": run.ds.tree, **({"tree_labels": labels} if labels else {})}
+        try:
+            res = compare(run.data, c["y"], c["models"], factor=c.get("factor"), method=method, **opts)
+        except ComparoError as exc:
+            rec["error"] = str(exc)
+            continue
+        rec["result"] = res.to_dict()
+        rows = [{"model": " + ".join(m["predictors"]) or "1 (intercept only)", "k": m["k"], "loglik": m["loglik"],
+                 "aicc": m["aicc"], "delta_aicc": m["delta_aicc"], "weight": m["weight"]}
+                for m in rec["result"]["models"]]
+        rec["frame"] = pd.DataFrame(rows)
+        rec["summary"] = res.summary()
+        run.tables[cid] = to_csv(rec["frame"])
+
+
 def _sensitivity_all(run: _Run) -> None:
     import pandas as pd
 
@@ -374,6 +418,9 @@ def _write(run: _Run, out: Path) -> ReportResult:
         atomic_write_text(out / "tables" / f"{name}.csv", text)
     atomic_write_text(out / "tables" / "fits.json", dumps(list(run.fits)) + "\n")
     atomic_write_text(out / "tables" / "sensitivity.json", dumps(run.sens_json) + "\n")
+    if run.comparisons:
+        shown = [{k: v for k, v in c.items() if k not in ("frame", "summary")} for c in run.comparisons]
+        atomic_write_text(out / "tables" / "comparisons.json", dumps(shown) + "\n")
     for stem, (png, svg) in run.figures.items():
         atomic_write_bytes(out / "figures" / f"{stem}.png", png)
         atomic_write_bytes(out / "figures" / f"{stem}.svg", svg)
@@ -382,6 +429,7 @@ def _write(run: _Run, out: Path) -> ReportResult:
     c = run.checked
     return ReportResult(str(out), True, c.n_errors, c.n_warnings,
                         figures=tuple(f"figures/{s}.{ext}" for s in run.figures for ext in ("png", "svg")),
-                        tables=tuple(f"tables/{n}.csv" for n in run.tables) + ("tables/fits.json", "tables/sensitivity.json"),
+                        tables=tuple(f"tables/{n}.csv" for n in run.tables) + ("tables/fits.json", "tables/sensitivity.json")
+                        + (("tables/comparisons.json",) if run.comparisons else ()),
                         fits=tuple(run.fits), notes=tuple(run.notes),
                         sensitivity=tuple({"id": k, "verdict": v["result"].verdict} for k, v in run.sens.items()))

@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from comparo.lines.cautions import caution_lines
+from comparo.lines.comparison import WEIGHT_CAUTION
 from comparo.report import render
 from comparo.report.appendix import appendix
 from comparo.report.pieces import diagnostics_caption
@@ -58,6 +59,25 @@ def _sensitivity_view(run, sec: dict) -> dict:
         "me_note": summ["mc_note"].iat[0]}
 
 
+def _comparison_views(run) -> list[dict]:
+    """Each ``[[comparison]]``: its table of models, the taxa used and left out, or why it did not run."""
+    views = []
+    for c in getattr(run, "comparisons", []):
+        v = {"id": c["id"], "name": c["name"], "y": c["y"], "method": c["method"], "error": c.get("error", "")}
+        r = c.get("result")
+        if r is not None:
+            lam = ""
+            if r["method"] == "pgls":
+                lam = ("; Pagel's lambda by maximum likelihood in each model" if r["lambda"] == "ml"
+                       else f"; Pagel's lambda fixed at {r['lambda']}")
+            factor = (f"; every model includes the factor {r['factor']} (reference level {r['reference_level']!r})"
+                      if r["factor"] else "")
+            v |= {"frame": c["frame"], "summary": c["summary"], "n": r["n"], "excluded": r["excluded"],
+                  "how": f"{r['method'].upper()} by maximum likelihood on log{r['log']} values{lam}{factor}"}
+        views.append(v)
+    return views
+
+
 def _regime_view(run) -> dict:
     d = run.derived
     if "regime" not in run.figures:
@@ -104,6 +124,7 @@ def report_html(run) -> str:
         n_warnings=run.checked.n_warnings, n_notes=run.checked.n_notes, audit_summary=run.aud.summary(),
         notes=render.grouped_notes(run.notes), analyses=[_analysis_view(run, s) for s in run.sections],
         flags_frame=run.frames["flags"], sensitivity=[_sensitivity_view(run, s) for s in run.sections],
+        comparisons=_comparison_views(run), weight_caution=WEIGHT_CAUTION,
         draws=int(run.draws), regime=_regime_view(run), cycles=_cycles_view(run),
         coverage=render.fig(run.figures, "coverage", "coverage map"),
         sources_fig=render.fig(run.figures, "sources", "source contributions"),
