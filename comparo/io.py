@@ -568,6 +568,27 @@ def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
     return tree, text, probs
 
 
+MAX_SETTINGS_DEPTH = 16  # tables and arrays inside one another; comparo's own settings use 3
+
+
+def nesting(value: Any) -> int:
+    """How deeply tables (dicts) and arrays (lists) of parsed TOML sit inside one another
+    (0 for a plain value); measured without recursion."""
+    depth, stack = 0, [(value, 0)]
+    while stack:
+        v, d = stack.pop()
+        if isinstance(v, dict | list):
+            depth = max(depth, d + 1)
+            stack.extend((x, d + 1) for x in (v.values() if isinstance(v, dict) else v))
+    return depth
+
+
+def too_deep(file: str) -> Problem:
+    """The problem of a TOML file nested beyond :data:`MAX_SETTINGS_DEPTH`."""
+    return _err(file, "toml-depth", f"tables or arrays are nested more than {MAX_SETTINGS_DEPTH} levels deep",
+                "settings are a few levels deep at most; see docs/data-format.md")
+
+
 def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
     """Parse comparo.toml; unknown top-level keys are warnings."""
     file = path.name
@@ -579,6 +600,10 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
         return {}, probs + [_err(file, "toml-syntax", f"cannot parse settings: {exc}", "see docs/data-format.md for the settings format", row=int(m.group(1)) if m else None)]
+    except RecursionError:
+        return {}, probs + [too_deep(file)]
+    if nesting(settings) > MAX_SETTINGS_DEPTH:
+        return {}, probs + [too_deep(file)]
     settings = _nfc_value(settings)
     for key in settings:
         if key not in SETTINGS_KEYS:
@@ -629,6 +654,22 @@ def unified_spellings(tables: list[RawTable]) -> list[Problem]:
     return probs
 
 
+def not_a_file(path: str | Path) -> str | None:
+    """What *path* is when it exists but is not a regular file ("a folder", "a named pipe
+    (FIFO)", "a device or socket"), else None. Checked with ``stat`` before any ``open``:
+    opening a FIFO without a writer blocks for ever, and a device such as /dev/zero never
+    ends."""
+    import stat as _stat
+
+    try:
+        mode = Path(path).stat().st_mode
+    except (OSError, ValueError):
+        return None
+    if _stat.S_ISREG(mode):
+        return None
+    return "a folder" if _stat.S_ISDIR(mode) else "a named pipe (FIFO)" if _stat.S_ISFIFO(mode) else "a device or socket"
+
+
 def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Path | None:
     """The first of *names* in *folder* that is a regular file. A name that exists but
     is a folder, a FIFO or device, or a symbolic link that loops or leads nowhere is a
@@ -636,7 +677,7 @@ def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Pat
     for n in names:
         p = folder / n
         try:
-            st = p.stat()
+            p.stat()
         except OSError as exc:
             if p.is_symlink():
                 why = "a symbolic link that loops" if exc.errno == 40 else "a symbolic link to nothing"
@@ -644,11 +685,9 @@ def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Pat
             elif exc.errno not in (2, 20):  # ENOENT, ENOTDIR: simply absent
                 problems.append(_err(n, "file-read", f"cannot read {n} ({exc.strerror})"))
             continue
-        import stat as _stat
-
-        if _stat.S_ISREG(st.st_mode):
+        what = not_a_file(p)
+        if what is None:
             return p
-        what = "a folder" if _stat.S_ISDIR(st.st_mode) else "a named pipe (FIFO)" if _stat.S_ISFIFO(st.st_mode) else "a device or socket"
         problems.append(_err(n, "not-a-file", f"{n} is {what}, not a file", f"put the table in a regular file named {n}"))
     return None
 

@@ -35,6 +35,7 @@ from comparo.errors import UsageError
 
 STDOUT_NAMES = frozenset({"-", "/dev/stdout"})
 _DATASET_TABLES = ("observations.csv", "observations.tsv", "observations.xlsx")
+_TMP_EXTRA = 16  # bytes a temporary file's name adds to its target's: "." + name + ".XXXXXXXX.tmp"
 
 
 def is_stdout(path: str | os.PathLike | None) -> bool:
@@ -78,6 +79,7 @@ def guard_output(path: str | os.PathLike | None, *, kind: str = "file",
         return
     raw = Path(os.path.expanduser(str(path)))
     out = _resolved(raw)
+    _check_name_length(out, str(path))
     for given in inputs:
         if not given or is_stdout(given):
             continue
@@ -93,6 +95,31 @@ def guard_output(path: str | os.PathLike | None, *, kind: str = "file",
         raise UsageError(f"output folder {path} holds a dataset (an observations table); "
                          "results are not written into data folders: choose another folder")
     _check_kind(raw, out, kind, str(path))
+
+
+def _check_name_length(out: Path, shown: str) -> None:
+    """Refuse a path with a name longer than the file system takes (ENAMETOOLONG), before
+    any work. The last name needs room for the temporary file written beside it."""
+    folder = out.parent
+    while not os.path.isdir(folder) and folder != folder.parent:
+        folder = folder.parent
+    try:
+        name_max = os.pathconf(folder, "PC_NAME_MAX")
+        path_max = os.pathconf(folder, "PC_PATH_MAX")
+    except (OSError, ValueError):  # pragma: no cover - no limits known
+        return
+    if len(shown) > 120:
+        shown = f"{shown[:60]}...{shown[-40:]}"
+    for i, part in enumerate(out.parts):
+        last = i == len(out.parts) - 1
+        size = len(os.fsencode(part))
+        if size > name_max - (_TMP_EXTRA if last else 0):
+            room = f" ({name_max - _TMP_EXTRA} for an output file, which needs room for a temporary file)"
+            raise UsageError(f"cannot write {shown}: the name {part[:30]}... is {size} bytes; this file system "
+                             f"takes names of at most {name_max} bytes{room if last else ''}: choose a shorter name")
+    if len(os.fsencode(str(out))) + _TMP_EXTRA >= path_max:
+        raise UsageError(f"cannot write {shown}: the path is {len(os.fsencode(str(out)))} bytes; this file "
+                         f"system takes paths of at most {path_max - 1 - _TMP_EXTRA} bytes for an output")
 
 
 def _check_kind(raw: Path, out: Path, kind: str, shown: str) -> None:
@@ -115,7 +142,8 @@ def _write_error(path: str | os.PathLike, exc: OSError) -> UsageError:
     reason = {errno.ENOSPC: "the device is full", errno.EROFS: "the file system is read-only",
               errno.EACCES: "permission denied", errno.EPERM: "permission denied",
               errno.EISDIR: "it is a folder", errno.ENOTDIR: "a parent is not a folder",
-              errno.EDQUOT: "the disk quota is exceeded"}.get(exc.errno, exc.strerror or str(exc))
+              errno.EDQUOT: "the disk quota is exceeded", errno.ENAMETOOLONG: "the name is too long",
+              errno.ENXIO: "it is a named pipe (FIFO) that no process is reading"}.get(exc.errno, exc.strerror or str(exc))
     return UsageError(f"cannot write {path}: {reason}")
 
 
@@ -140,13 +168,25 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
         if mode is not None and not stat.S_ISREG(mode):
             if stat.S_ISDIR(mode):
                 raise UsageError(f"cannot write {path}: it is a folder")
-            with open(target, "wb") as fh:  # FIFO, device, socket: in place
-                fh.write(data)
+            _write_in_place(target, mode, data)
             return
         target.parent.mkdir(parents=True, exist_ok=True)
         _replace_atomically(target, data)
     except OSError as exc:
         raise _write_error(path, exc) from None
+
+
+def _write_in_place(target: Path, mode: int, data: bytes) -> None:
+    """A FIFO, device or socket is written in place. A FIFO is opened without blocking, so
+    one that no process reads fails at once (ENXIO) instead of waiting for ever."""
+    if not stat.S_ISFIFO(mode):
+        with open(target, "wb") as fh:
+            fh.write(data)
+        return
+    fd = os.open(target, os.O_WRONLY | os.O_NONBLOCK)
+    os.set_blocking(fd, True)  # a reader is there: let a full pipe wait for it
+    with os.fdopen(fd, "wb") as fh:
+        fh.write(data)
 
 
 def _replace_atomically(path: Path, data: bytes) -> None:

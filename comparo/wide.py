@@ -26,7 +26,7 @@ from typing import Any
 
 from comparo.catalog import Catalog
 from comparo.errors import Problem
-from comparo.io import MAX_CELL, decode_bytes, nfc
+from comparo.io import MAX_CELL, MAX_SETTINGS_DEPTH, decode_bytes, nesting, nfc, too_deep
 
 UNCERTAINTY_ROLES = ("sd", "se", "ci95", "range_half")
 ROLES = ("value", *UNCERTAINTY_ROLES, "n", "source", "locator", "taxon", "temperature", "taxa", "column", "ignore")
@@ -403,6 +403,10 @@ def read_map(path: Path) -> tuple[dict[str, dict[str, str]], list[Problem]]:
             doc = tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
             return {}, probs + [_problem(file, "toml-syntax", f"cannot parse the map: {exc}")]
+        except RecursionError:
+            return {}, probs + [too_deep(file)]
+        if nesting(doc) > MAX_SETTINGS_DEPTH:
+            return {}, probs + [too_deep(file)]
         cols = doc.get("columns", [])
         if not isinstance(cols, list) or not all(isinstance(c, dict) for c in cols):
             return {}, probs + [_problem(file, "map-format", "import.toml needs [[columns]] tables (header, role, key, unit, basis)")]

@@ -102,8 +102,11 @@ def checked_tree(path: str):
     Read as :func:`comparo.phylo.read_tree` reads it (UTF-8, an optional BOM, the final
     ';' optional) and checked by the same rules (labels, duplicates, branch lengths)."""
     from comparo import newick
+    from comparo.io import not_a_file
     from comparo.phylo.trees import _check
 
+    if not_a_file(path):
+        return path  # refused by comparo.phylo.read_tree with its message
     try:
         text = Path(path).read_text(encoding="utf-8-sig").strip()
     except (OSError, UnicodeDecodeError):

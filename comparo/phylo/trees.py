@@ -89,6 +89,12 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
         name, text = _NEWICK_SOURCE, src
     else:
         name = src
+        from comparo.io import not_a_file
+
+        what = not_a_file(src)
+        if what is not None:
+            raise _tree_problem(name, "tree-file", f"the tree path is {what}, not a file",
+                                "give a Newick file (comparo does not read pipes or devices)")
         try:
             text = Path(src).read_text(encoding="utf-8-sig")
         except FileNotFoundError:
