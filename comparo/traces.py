@@ -277,6 +277,8 @@ def _read_one(ds, rec: dict[str, str], row: int) -> tuple[TraceResult | None, li
         red = loops.strain_loop(t, x, y) if strain else loops.work_loop(t, x, y)
     except loops.CycleError as exc:
         return None, probs + [_p(TRACES_FILE, row, "file", rel, "trace-cycles", f"trace {rec['trace_id']!r} cannot be split into cycles: {exc}",
+                                 "check that the columns hold the recorded signals (a constant or copied column?)"
+                                 if str(exc).startswith("no cycle:") else
                                  "record more whole cycles (at least 2, with at least 8 samples each), or check the columns and units")]
     res = _result(rec, row, red, t, x, y)
     bad = [k for k, (m, _) in res.values.items() if not (math.isfinite(m) and (m == 0 or WORKING[0] <= abs(m) <= WORKING[1]))]
