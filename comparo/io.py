@@ -295,11 +295,99 @@ def _control_characters(file: str, frame, rows: list[int]) -> list[Problem]:
     return probs
 
 
+# Workbook bounds, checked before openpyxl reads a sheet: a few-KB .xlsx can declare (or place
+# one stray cell at) row 1,048,576 and column XFD, and its sheet XML can inflate to gigabytes.
+MAX_SHEET_XML_BYTES = 512 * 2**20  # uncompressed XML of one sheet (or of the shared strings)
+MAX_SHEET_CELLS = 10_000_000  # rows times columns a sheet's cells span
+MAX_COLUMNS = 16_384  # columns of any table (a spreadsheet's own limit, A to XFD)
+
+
+def _letters_index(letters: str) -> int:
+    n = 0
+    for ch in letters:
+        n = 26 * n + ord(ch) - 64
+    return n
+
+
+def _sheet_span(book: Any, info: Any) -> tuple[int, int]:
+    """Last row and last column (1-based) of the cells present in one sheet's XML, read
+    streaming (expat, no tree kept); stops early once the span passes MAX_SHEET_CELLS."""
+    from xml.parsers import expat
+
+    span = {"row": 0, "col": 0, "last_row": 0, "last_col": 0}
+    cell = re.compile(r"([A-Z]{1,3})(\d*)$")
+
+    def start(name: str, attrs: dict[str, str]) -> None:
+        tag = name.rsplit(":", 1)[-1]
+        if tag == "row":
+            r = attrs.get("r", "")
+            span["row"] = int(r) if r.isdigit() else span["row"] + 1
+            span["col"] = 0
+            span["last_row"] = max(span["last_row"], span["row"])
+        elif tag == "c":
+            m = cell.match(attrs.get("r", ""))
+            span["col"] = _letters_index(m.group(1)) if m else span["col"] + 1
+            span["last_col"] = max(span["last_col"], span["col"])
+
+    parser = expat.ParserCreate()
+    parser.StartElementHandler = start
+    with book.open(info) as fh:
+        while chunk := fh.read(1 << 20):
+            parser.Parse(chunk, False)
+            if span["last_row"] * span["last_col"] > MAX_SHEET_CELLS:
+                break
+        else:
+            parser.Parse(b"", True)
+    return span["last_row"], span["last_col"]
+
+
+def workbook_problems(path: Path) -> list[Problem]:
+    """Size checks of an .xlsx before it is loaded: each sheet's (and the shared strings')
+    uncompressed XML at most :data:`MAX_SHEET_XML_BYTES`, and the rows times columns its
+    cells span at most :data:`MAX_SHEET_CELLS` (counted from the cells actually present,
+    streaming, not from the declared dimension). A file that is not a zip is left to the
+    reader's own message."""
+    import zipfile
+
+    file = path.name
+    try:
+        book = zipfile.ZipFile(path)
+    except (zipfile.BadZipFile, OSError, ValueError):
+        return []
+    probs: list[Problem] = []
+    with book:
+        members = [i for i in book.infolist()
+                   if re.fullmatch(r"xl/(worksheets/[^/]+\.xml|sharedStrings\.xml)", i.filename)]
+        for info in members:
+            if info.file_size > MAX_SHEET_XML_BYTES:
+                probs.append(_err(file, "xlsx-size", f"{info.filename} inflates to {info.file_size / 2**20:,.1f} MB "
+                                  f"of XML; comparo reads at most {MAX_SHEET_XML_BYTES / 2**20:,.1f} MB per sheet",
+                                  "split the table over several files, or save it as CSV"))
+        if probs:
+            return probs
+        for info in members:
+            if not info.filename.startswith("xl/worksheets/"):
+                continue
+            try:
+                last_row, last_col = _sheet_span(book, info)
+            except Exception:  # a damaged sheet: the reader says what is wrong with it
+                continue
+            if last_row * last_col > MAX_SHEET_CELLS:
+                probs.append(_err(file, "xlsx-size", f"a sheet ({info.filename}) has cells as far as row {last_row:,} "
+                                  f"and column {last_col:,}: {last_row * last_col:,} cells to read, more than "
+                                  f"comparo's limit of {MAX_SHEET_CELLS:,}",
+                                  "delete the stray cells (or formatting) beyond the table, or save it as CSV"))
+    return probs
+
+
 def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Problem]]:
     """Read the sheet named *sheet* (else the first sheet) of an XLSX workbook."""
     import pandas as pd
 
     file = path.name
+    too_big = workbook_problems(path)
+    if too_big:
+        return None, too_big
     try:
         book = pd.ExcelFile(path, engine="openpyxl")
     except Exception as exc:  # openpyxl raises many types for a broken workbook
@@ -312,7 +400,9 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     try:
         frame = pd.read_excel(book, sheet_name=chosen, header=None, dtype=object)
     except Exception as exc:
-        return None, [_err(file, "xlsx-read", f"cannot read sheet ({type(exc).__name__}: {exc})")]
+        return None, [_err(file, "xlsx-read", f"cannot read the sheet: a cell record is damaged or holds no finite number "
+                                              f"({type(exc).__name__}: {str(exc)[:120]})",
+                            "open the workbook in a spreadsheet program and save it again, or save the sheet as CSV")]
     if frame.empty:
         return None, [_err(file, "empty-file", "sheet is empty", "put the table on the first sheet, header in row 1")]
     frame = frame.map(_excel_cell)
@@ -701,6 +791,9 @@ def read_workbook(path: Path) -> RawDataset:
     import openpyxl
 
     raw = RawDataset(folder=path)
+    raw.problems += workbook_problems(path)
+    if raw.problems:
+        return raw
     try:
         book = openpyxl.load_workbook(path, read_only=True)
         names = list(book.sheetnames)

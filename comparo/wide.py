@@ -26,7 +26,15 @@ from typing import Any
 
 from comparo.catalog import Catalog
 from comparo.errors import Problem
-from comparo.io import MAX_CELL, MAX_SETTINGS_DEPTH, decode_bytes, nesting, nfc, too_deep
+from comparo.io import (
+    MAX_CELL,
+    MAX_SETTINGS_DEPTH,
+    decode_bytes,
+    nesting,
+    nfc,
+    too_deep,
+    workbook_problems,
+)
 
 UNCERTAINTY_ROLES = ("sd", "se", "ci95", "range_half")
 ROLES = ("value", *UNCERTAINTY_ROLES, "n", "source", "locator", "taxon", "temperature", "taxa", "column", "ignore")
@@ -117,11 +125,12 @@ def _text_cells(path: Path, decimal_comma: bool) -> tuple[list[list[Any]] | None
 
 
 def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | None, str, list[Problem]]:
-    import datetime as _dt
-
     import openpyxl
 
     file = path.name
+    too_big = workbook_problems(path)
+    if too_big:
+        return None, file, too_big
     try:
         book = openpyxl.load_workbook(path, read_only=True, data_only=True)
         formulas = openpyxl.load_workbook(path, read_only=True, data_only=False)
@@ -132,15 +141,37 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
         return None, file, [_problem(file, "sheet-missing", f"the workbook has no sheet {sheet!r}", f"its sheets: {', '.join(names)}")]
     chosen = sheet or names[0]
     file = f"{path.name}[{chosen}]"
+    try:
+        return _sheet_cells(book, formulas, chosen, file)
+    except Exception as exc:  # openpyxl raises many types for a damaged cell record
+        return None, file, [_problem(file, "xlsx-read", f"cannot read the sheet: a cell record is damaged ({type(exc).__name__}: {str(exc)[:120]})",
+                                     "open the workbook in a spreadsheet program and save it again, or save the sheet as CSV")]
+    finally:
+        book.close()
+        formulas.close()
+
+
+def _sheet_cells(book: Any, formulas: Any, chosen: str, file: str) -> tuple[list[list[Any]], str, list[Problem]]:
+    import datetime as _dt
+
+    import numpy as np
+
     probs: list[Problem] = []
     cells: list[list[Any]] = []
-    for r, (vals, forms) in enumerate(zip(book[chosen].iter_rows(values_only=True), formulas[chosen].iter_rows(values_only=True), strict=False), start=1):
+    sheets = [book[chosen], formulas[chosen]]
+    for ws in sheets:
+        ws.reset_dimensions()  # the declared dimension may be wrong: read the cells present
+    for r, (vals, forms) in enumerate(zip(sheets[0].iter_rows(values_only=True), sheets[1].iter_rows(values_only=True), strict=False), start=1):
         row: list[Any] = []
         for c, (v, f) in enumerate(zip(vals, forms, strict=False)):
             if v is None and isinstance(f, str) and f.startswith("="):
                 probs.append(_problem(file, "formula-no-value", f"cell {column_letter(c)}{r} holds a formula with no saved result", "open the workbook in a spreadsheet program and save it, so that the results are stored", row=r, value=f[:40]))
             if isinstance(v, bool):
                 row.append(str(v).upper())
+            elif isinstance(v, int | float) and not np.isfinite(v):
+                probs.append(_problem(file, "non-finite", f"cell {column_letter(c)}{r} holds {v!r}, not a finite number",
+                                      "type the value, or leave the cell empty", row=r, value=repr(v)))
+                row.append("")
             elif isinstance(v, int | float):
                 row.append(float(v))
             elif isinstance(v, _dt.datetime | _dt.date):
@@ -148,8 +179,6 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
             else:
                 row.append("" if v is None else nfc(str(v)))
         cells.append(row)
-    book.close()
-    formulas.close()
     return cells, file, probs
 
 
