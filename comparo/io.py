@@ -39,6 +39,15 @@ SETTINGS_KEYS = {
 }
 
 MAX_CELL = 10_000  # characters; longer cells are an error (pasted garbage)
+MAX_COLUMNS = 16_384  # columns of any table (a spreadsheet's own limit, A to XFD)
+
+
+def too_many_columns(file: str, n: int, row: int | None = 1) -> Problem | None:
+    """The problem of a header with more than :data:`MAX_COLUMNS` columns (else None)."""
+    if n <= MAX_COLUMNS:
+        return None
+    return _err(file, "too-many-columns", f"the header has {n:,} columns; comparo reads at most {MAX_COLUMNS:,} "
+                "(a spreadsheet's own limit)", "a table with one column per value? put values in rows", row=row)
 
 
 @dataclass
@@ -195,6 +204,9 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     if delim == "\t" and path.suffix.lower() == ".csv" and "," not in header:
         delim = "\t"
     hdr = next(csv.reader([header], delimiter=delim))
+    wide = too_many_columns(file, len(hdr), row=first + 1)
+    if wide is not None:
+        return None, probs + [wide]
     names = [nfc(h.strip().lstrip("\ufeff")) for h in hdr]
     seen: dict[str, int] = {}
     for i, h in enumerate(names):
@@ -249,9 +261,8 @@ class _TextFacts:
 def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _TextFacts | None = None) -> tuple[RawTable, list[Problem]]:
     facts = facts or _TextFacts()
     frame = frame.fillna("").astype(str)
-    if facts.padded or facts.non_ascii:  # non-ASCII text may hold Unicode blanks
-        for col in frame.columns:
-            frame[col] = frame[col].str.strip()
+    if (facts.padded or facts.non_ascii) and len(frame):  # non-ASCII text may hold Unicode blanks
+        frame = frame.apply(lambda s: s.str.strip())  # one new frame, not one assignment per column
     # blank rows (every cell empty) are layout, not data: drop them, keep row numbers
     keep = (frame != "").any(axis=1).to_numpy()
     if not keep.all():
@@ -299,7 +310,6 @@ def _control_characters(file: str, frame, rows: list[int]) -> list[Problem]:
 # one stray cell at) row 1,048,576 and column XFD, and its sheet XML can inflate to gigabytes.
 MAX_SHEET_XML_BYTES = 512 * 2**20  # uncompressed XML of one sheet (or of the shared strings)
 MAX_SHEET_CELLS = 10_000_000  # rows times columns a sheet's cells span
-MAX_COLUMNS = 16_384  # columns of any table (a spreadsheet's own limit, A to XFD)
 
 
 def _letters_index(letters: str) -> int:

@@ -245,18 +245,47 @@ def _clean(obj: Any) -> Any:
     return obj
 
 
-def print_problems(problems, stream: IO[str] | None = None, limit: int = 200) -> None:
-    """Problems table as one readable line each (errors first), to *stream*."""
+def print_problems(problems, stream: IO[str] | None = None, limit: int = 200, per_rule: int = 5) -> None:
+    """Problems (a Problems table or a list of :class:`~comparo.errors.Problem`) as one
+    readable line each, to *stream*, repeated ones summarised: at most *per_rule* lines for
+    each rule and column and 4 x *per_rule* for each rule, then one line counting the rest of
+    that rule (a rule broken in 100,000 rows prints a handful of lines, not 100,000); at most
+    *limit* lines in all."""
     from comparo.errors import Problem
 
     stream = stream or sys.stderr
-    n = len(problems)
-    for i, rec in enumerate(problems.to_dict("records")):
-        if i >= limit:
-            stream.write(f"... and {n - limit} more problem(s); use 'comparo check --format csv' for all\n")
-            break
-        rec = {k: (None if _is_missing(v) else v) for k, v in rec.items()}
-        stream.write(Problem(**rec).line() + "\n")
+    records = problems.to_dict("records") if hasattr(problems, "to_dict") else [p.to_dict() for p in problems]
+    records = [{k: (None if _is_missing(v) else v) for k, v in rec.items()} for rec in records]
+    last = {(rec["severity"], rec["rule"]): i for i, rec in enumerate(records)}
+    in_group: dict[tuple, int] = {}
+    in_rule: dict[tuple, int] = {}
+    left: dict[tuple, dict[str | None, int]] = {}
+    written = 0
+    for i, rec in enumerate(records):
+        rule, group = (rec["severity"], rec["rule"]), (rec["severity"], rec["rule"], rec["column"])
+        in_group[group] = in_group.get(group, 0) + 1
+        if in_group[group] <= per_rule and in_rule.get(rule, 0) < 4 * per_rule and written < limit:
+            stream.write(Problem(**rec).line() + "\n")
+            in_rule[rule] = in_rule.get(rule, 0) + 1
+            written += 1
+        else:
+            left.setdefault(rule, {}).setdefault(rec["column"], 0)
+            left[rule][rec["column"]] += 1
+        if last[rule] == i and rule in left and written < limit:
+            stream.write(_more_line(rule, left.pop(rule)) + "\n")
+            written += 1
+    rest = sum(sum(cols.values()) for cols in left.values())
+    if rest:
+        stream.write(f"... and {rest} more problem(s) not listed\n")
+
+
+def _more_line(rule: tuple[str, str], columns: dict[str | None, int]) -> str:
+    n = sum(columns.values())
+    named = [f"'{c}'" for c in sorted(columns, key=lambda c: -columns[c]) if c][:3]
+    where = ""
+    if named:
+        where = f" in column{'s' if len(columns) > 1 else ''} {', '.join(named)}" + (", ..." if len(columns) > 3 else "")
+    return f"{rule[0]}: ... and {n} more [{rule[1]}]{where} not listed one by one"
 
 
 def _is_missing(v: Any) -> bool:

@@ -33,6 +33,7 @@ from comparo.io import (
     nesting,
     nfc,
     too_deep,
+    too_many_columns,
     workbook_problems,
 )
 
@@ -192,6 +193,9 @@ def _grid(file: str, cells: list[list[Any]]) -> tuple[Grid | None, list[Problem]
     header = [(h if isinstance(h, str) else repr(h)).strip().lstrip("\ufeff") for h in cells[first]]
     while header and not header[-1]:
         header.pop()
+    wide = too_many_columns(file, len(header), row=first + 1)
+    if wide is not None:
+        return None, [wide]
     probs: list[Problem] = []
     hrow = first + 1
     seen: dict[str, int] = {}
@@ -338,15 +342,28 @@ class NameIndex:
         return sorted({k for n, ks in self.names.items() if words <= set(n.split()) for k in ks})
 
     def closest(self, name: str, limit: int = 3) -> list[str]:
+        """Up to *limit* keys whose names are most like *name* (difflib ratio, plus 0.2 for a
+        shared word; at least 0.45). The ratio's cheap upper bounds skip names that cannot
+        reach 0.45, so a header with no near name costs little."""
         scores: dict[str, float] = {}
+        words = set(name.split())
         for n, ks in self.names.items():
-            s = difflib.SequenceMatcher(None, name, n).ratio()
-            if set(name.split()) & set(n.split()):
-                s += 0.2
+            bonus = 0.2 if words & set(n.split()) else 0.0
+            sm = _matcher(n)
+            sm.set_seq1(name)
+            if sm.real_quick_ratio() + bonus < 0.45 or sm.quick_ratio() + bonus < 0.45:
+                continue
+            s = sm.ratio() + bonus
             for k in ks:
                 scores[k] = max(scores.get(k, 0.0), s)
         best = sorted(scores, key=lambda k: (-scores[k], k))
         return [k for k in best if scores[k] >= 0.45][:limit]
+
+
+@lru_cache(maxsize=4096)
+def _matcher(n: str) -> difflib.SequenceMatcher:
+    """A matcher with *n* as its second sequence (difflib caches its analysis of that one)."""
+    return difflib.SequenceMatcher(None, "", n)
 
 
 def _quantity(name: str, index: NameIndex) -> tuple[str, str, str, tuple[str, ...]]:

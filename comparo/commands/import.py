@@ -7,12 +7,11 @@ import sys
 
 def run(args) -> int:
     from comparo.importer import import_wide
-    from comparo.outputs import dumps
+    from comparo.outputs import dumps, print_problems
 
     res = import_wide(args.wide, args.output, sources=args.sources, map_file=args.map, sheet=args.sheet,
                       decimal_comma=args.decimal_comma, overwrite=args.overwrite)
-    for p in res.warnings:
-        print(p.line(), file=sys.stderr)
+    print_problems(res.warnings, stream=sys.stderr)  # repeated warnings summarised per rule and column
     if args.format == "json":
         print(dumps(res.to_dict()))
     else:

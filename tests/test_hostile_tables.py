@@ -1,0 +1,96 @@
+"""Hostile text tables: more columns than any spreadsheet holds, and a rule broken in every
+row. The first is refused before any work (it once hung), the second prints a handful of
+lines, not one per row (it once printed 100,000); inputs stay byte-identical."""
+
+from __future__ import annotations
+
+import difflib
+import time
+
+import pytest
+from hostile_checks import refused, snapshot
+from support import run_main, write_dataset
+
+
+def test_a_wide_table_with_100000_columns_is_refused_at_once(tmp_path):
+    n = 100_000
+    header = ["Species", "Body mass (g)", "Source"] + [f"extra{i}" for i in range(n)]
+    row = ["Apis mellifera", "0.1", "S1"] + ["1"] * n
+    (tmp_path / "wide.csv").write_text(",".join(header) + "\n" + ",".join(row) + "\n", encoding="utf-8")
+    t0 = time.perf_counter()
+    refused(tmp_path, ["import", "{tmp}/wide.csv", "-o", "{tmp}/out"],
+            "100,003 columns", "at most 16,384", "too-many-columns")
+    assert time.perf_counter() - t0 < 20
+
+
+def test_a_dataset_table_with_100000_columns_is_refused_at_once(tmp_path):
+    ds = write_dataset(tmp_path / "DS")
+    text = (ds / "observations.csv").read_text(encoding="utf-8").splitlines()
+    extra = 100_000
+    text = [text[0] + "".join(f",x{i}" for i in range(extra))] + [ln + ",a" * extra for ln in text[1:]]
+    (ds / "observations.csv").write_text("\n".join(text) + "\n", encoding="utf-8")
+    t0 = time.perf_counter()
+    for command in (["check", "{tmp}/DS"], ["table", "{tmp}/DS"]):
+        refused(tmp_path, command, "observations.csv", "100,014 columns", "too-many-columns")
+    assert time.perf_counter() - t0 < 30
+
+
+def test_columns_at_the_limit_are_read(tmp_path):
+    """16,384 columns (the limit itself) are read; the unknown ones are reported, summarised."""
+    import comparo.io as cio
+
+    header = ["obs_id"] + [f"c{i}" for i in range(cio.MAX_COLUMNS - 1)]
+    (tmp_path / "t.csv").write_text(",".join(header) + "\n" + ",".join(["1"] * len(header)) + "\n")
+    table, probs = cio.read_text_table(tmp_path / "t.csv")
+    assert table is not None and table.frame.shape == (1, cio.MAX_COLUMNS)
+    assert not [p for p in probs if p.rule == "too-many-columns"]
+
+
+@pytest.mark.parametrize("name", ["body mas", "fibre radius", "wing beat frequencyy", "extra12",
+                                  "sarcomere lenght", "attachment rate", "muscle", "x", ""])
+def test_closest_names_match_plain_difflib(name):
+    """The header suggestions skip names by difflib's cheap upper bounds (real_quick_ratio,
+    quick_ratio); the answer equals the plain computation with difflib.SequenceMatcher.ratio
+    on every catalogue name (the reference, written here)."""
+    from comparo.catalog import load_catalog
+    from comparo.wide import NameIndex
+
+    index = NameIndex.of(load_catalog())
+    scores: dict[str, float] = {}
+    for n, keys in index.names.items():
+        s = difflib.SequenceMatcher(None, name, n).ratio() + (0.2 if set(name.split()) & set(n.split()) else 0.0)
+        for k in keys:
+            scores[k] = max(scores.get(k, 0.0), s)
+    expected = [k for k in sorted(scores, key=lambda k: (-scores[k], k)) if scores[k] >= 0.45][:3]
+    assert index.closest(name) == expected
+
+
+def test_a_warning_in_every_row_prints_a_few_lines(tmp_path):
+    """3,000 rows without a temperature and with a non-binomial name: two warnings per row, once
+    6,000 lines; now five per rule and column plus one line counting the rest."""
+    n = 3000
+    lines = ["Species,Wingbeat frequency (Hz),Source"] + [f"Apis sp{i},{200 + i % 50},S1" for i in range(n)]
+    (tmp_path / "wide.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    before = snapshot(tmp_path)
+    proc = run_main("import", str(tmp_path / "wide.csv"), "-o", str(tmp_path / "out"))
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    err = proc.stderr.splitlines()
+    assert len(err) < 20, err
+    assert f"warning: ... and {n - 5} more [temperature-missing] in column 'Wingbeat frequency (Hz)' not listed one by one" in err
+    assert f"warning: ... and {n - 5} more [taxon-binomial] in column 'Species' not listed one by one" in err
+    assert sum("[temperature-missing]" in ln and "row" in ln for ln in err) == 5
+    after = snapshot(tmp_path)
+    assert {k: v for k, v in after.items() if not k.startswith("out")} == before
+
+
+def test_many_errors_are_summarised_per_rule(tmp_path):
+    """A dataset with the same error in 2,000 rows: exit 2, a few lines per rule, the count."""
+    from support import VALID_ROWS
+
+    rows = [f"x{i},Apis mellifera,body_mass,abc,mg,,,,s1,Table 1,reported,,," for i in range(2000)] + VALID_ROWS
+    write_dataset(tmp_path / "DS", rows)
+    proc = run_main("table", str(tmp_path / "DS"))
+    assert proc.returncode == 2
+    lines = proc.stderr.splitlines()
+    assert len(lines) < 30, lines
+    assert any("... and 1995 more" in ln for ln in lines), lines
