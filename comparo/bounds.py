@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 import os
+from typing import Any
 
 from comparo.errors import UsageError
 
@@ -35,6 +36,93 @@ def memory_bytes() -> int:
         return int(os.sysconf("SC_PAGE_SIZE")) * int(os.sysconf("SC_PHYS_PAGES"))
     except (ValueError, OSError, AttributeError):  # pragma: no cover - non-POSIX
         return 8 * 2**30
+
+
+# --------------------------------------------------------------------------- arguments
+# One set of checks for the arguments of the public functions (comparo.fit, comparo.derive...):
+# a wrong type or value raises UsageError naming the argument and what it accepts, before any
+# work, instead of a TypeError or AttributeError from deep inside.
+
+
+def _shown(value: object) -> str:
+    text = repr(value)
+    return f"{type(value).__name__} {text[:60] + '...' if len(text) > 60 else text}"
+
+
+def check_kind(value: object, kinds: type | tuple[type, ...], name: str, accepts: str) -> Any:
+    """*value* when it is an instance of *kinds*; else UsageError '<name> must be <accepts>'."""
+    if not isinstance(value, kinds):
+        raise UsageError(f"{name} must be {accepts} (got {_shown(value)})")
+    return value
+
+
+def check_table(value: object, name: str = "table") -> Any:
+    """A pandas DataFrame (one row per taxon)."""
+    import pandas as pd
+
+    return check_kind(value, pd.DataFrame, name, "a pandas DataFrame with one row per taxon, such as "
+                      "comparo.per_taxon(comparo.load(FOLDER))")
+
+
+def check_name(value: object, name: str, *, optional: bool = False) -> str | None:
+    """A column or key name (text); None allowed when *optional*."""
+    if value is None and optional:
+        return None
+    return check_kind(value, str, name, "a column name (text)" + (" or None" if optional else ""))
+
+
+def check_column(table: Any, column: str, name: str) -> str:
+    """*column* is a column of *table*."""
+    if column not in table.columns:
+        shown = ", ".join(map(str, list(table.columns)[:20]))
+        raise UsageError(f"{name} {column!r} is not a column of the table; its columns: {shown}")
+    return column
+
+
+def check_choice(value: object, name: str, choices: tuple[str, ...]) -> str:
+    """One of *choices* (text)."""
+    if not isinstance(value, str) or value not in choices:
+        raise UsageError(f"{name} must be one of {', '.join(choices)} (got {_shown(value)})")
+    return value
+
+
+def check_level(value: object, name: str = "ci") -> float:
+    """A confidence level: a number strictly between 0 and 1."""
+    import numbers
+
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not 0 < float(value) < 1:
+        raise UsageError(f"{name} must be a number strictly between 0 and 1, such as 0.95 (got {_shown(value)})")
+    return float(value)
+
+
+def check_count(value: object, name: str) -> int:
+    """A whole number >= 0 (a Python or numpy integer; not a float such as 1e12, not text)."""
+    import numbers
+
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise UsageError(f"{name} must be a whole number >= 0 (got {_shown(value)})")
+    if value < 0:
+        raise UsageError(f"{name} must be 0 or a positive number (got {value})")
+    return int(value)
+
+
+def check_path(value: object, name: str) -> Any:
+    """A file or folder path (text or os.PathLike)."""
+    from pathlib import Path
+
+    check_kind(value, (str, os.PathLike), name, "a path (text or pathlib.Path)")
+    if str(value) == "":
+        raise UsageError(f"{name} must be a path, not empty text")
+    return Path(value)
+
+
+def check_mapping(value: object, name: str, accepts: str, *, optional: bool = True) -> Any:
+    """A mapping (dict); None allowed when *optional*."""
+    from collections.abc import Mapping
+
+    if value is None and optional:
+        return None
+    return check_kind(value, Mapping, name, accepts + (" or None" if optional else ""))
 
 
 def check_seed(seed: object, option: str = "--seed") -> int:

@@ -851,7 +851,9 @@ def read_folder(folder: str | Path) -> RawDataset:
     InputError
         If the folder does not exist or is not a folder.
     """
-    folder = Path(folder)
+    from comparo.bounds import check_path
+
+    folder = check_path(folder, "folder")
     if not folder.exists():
         raise InputError([_err(str(folder), "missing-folder", "dataset folder does not exist", "give the path of a folder holding observations.csv and sources.csv")])
     if folder.is_file() and folder.suffix.lower() in (".xlsx", ".xlsm"):

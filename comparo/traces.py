@@ -515,7 +515,9 @@ def cycles(ds, *, temperature: bool = True) -> TraceSet:
         When traces.csv or a trace file has an error.
     """
     from comparo.curate import harmonise
+    from comparo.validate import require_dataset
 
+    require_dataset(ds)
     ts = read_traces(ds)
     if not ts.ok:
         raise InputError([p for p in ts.problems if p.severity == "error"])

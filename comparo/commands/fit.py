@@ -46,6 +46,7 @@ def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True, sa
         frame[taxon_col] = text.astype(str)
         note = f"points are named by its first column {first!r}"
     else:
+        frame[taxon_col] = [f"row {i + 2}" for i in range(len(frame))]
         note = "its first column is not a column of distinct names, so points are named by CSV line (row N)"
     if say:
         sys.stderr.write(f"note: {path.name} has no {taxon_col!r} column: {note} (--taxon-col chooses the label column)\n")

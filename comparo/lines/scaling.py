@@ -110,7 +110,8 @@ def fit(
     """
     from comparo.bounds import check_finite, check_seed
 
-    seed = check_seed(seed)
+    ci, bootstrap = _check_arguments(table, x, y, by, taxon_col, ci, bootstrap)
+    seed = check_seed(seed, "seed")
     against = check_finite(renamed_against(pgls_options, against), "the slope to test against")
     log = _check_options(method, log, ci, bootstrap)
     if method == "pgls":
@@ -150,6 +151,22 @@ def fit(
         breakpoint=bp, bootstrap=boot, points=_points(X, Y, labels, groups if by else None, core),
         notes=tuple(notes), refit_without_flagged=refit,
     )
+
+
+def _check_arguments(table: Any, x: Any, y: Any, by: Any, taxon_col: Any, ci: Any, bootstrap: Any) -> tuple[float, int]:
+    """The types of :func:`fit`'s arguments, and a label column given by name that is missing
+    (the default ``taxon`` may be absent: points are then named by row). Returns the level
+    and the resample count as float and int."""
+    from comparo.bounds import check_column, check_count, check_level, check_name, check_table
+
+    check_table(table)
+    check_name(x, "x")
+    check_name(y, "y")
+    check_name(by, "by", optional=True)
+    check_name(taxon_col, "taxon_col")
+    if taxon_col != "taxon":
+        check_column(table, taxon_col, "taxon_col")
+    return check_level(ci, "ci (--ci)"), check_count(bootstrap, "bootstrap")
 
 
 def _check_options(method: str, log: Any, ci: float, bootstrap: int) -> str:

@@ -116,7 +116,11 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     ReportResult
         ``ok`` is False when validation found errors; then report.html lists them.
     """
-    folder, out = Path(folder), Path(out_dir)
+    from comparo.bounds import check_count, check_path, check_seed
+
+    folder, out = check_path(folder, "folder"), check_path(out_dir, "out_dir")
+    seed = check_seed(seed, "seed")
+    sensitivity_draws = check_count(sensitivity_draws, "sensitivity_draws")
     out.mkdir(parents=True, exist_ok=True)
     steps = _Steps(progress, 7)
     try:
