@@ -5,6 +5,7 @@ the inputs stay byte-identical and nothing appears outside the output asked for.
 from __future__ import annotations
 
 import os
+import subprocess
 
 import pytest
 from hostile_checks import refused
@@ -128,3 +129,90 @@ def test_a_name_just_under_the_limit_is_written(tmp_path):
     proc = run_main("table", str(DEMO), "-o", str(tmp_path / name))
     assert proc.returncode == 0, proc.stderr
     assert sorted(os.listdir(tmp_path)) == [name]
+
+
+# ------------------------------------------------------------------ memory and time
+
+
+def _limited(argv: list[str], limit_bytes: int, cwd) -> subprocess.CompletedProcess:
+    """comparo ARGV in a fresh interpreter whose address space is limited (RLIMIT_AS)."""
+    import resource
+    import sys
+
+    def limit() -> None:
+        resource.setrlimit(resource.RLIMIT_AS, (limit_bytes, limit_bytes))
+
+    return subprocess.run([sys.executable, "-m", "comparo", *argv], capture_output=True, text=True,
+                          timeout=120, preexec_fn=limit, cwd=cwd)
+
+
+@pytest.mark.parametrize("argv,words", [
+    (["derive", str(DEMO), "--mc", "3000000", "-o", "out.csv"], ["--mc 3000000 exceeds this machine's cap", "GiB this process may use"]),
+    (["fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--bootstrap", "60000000"],
+     ["--bootstrap 60000000 exceeds this machine's cap", "GiB this process may use"]),
+])
+def test_caps_follow_the_memory_the_process_may_use(tmp_path, argv, words):
+    """Under a 1.5 GiB address-space limit the caps shrink to what the process may still use
+    (these counts pass the caps of the unlimited machine when it has 8 GiB or more) and the
+    run is refused before any work, exit 2, instead of a MemoryError (exit 3)."""
+    from comparo.bounds import memory_bytes
+
+    if memory_bytes() < 8 * 2**30:
+        pytest.skip("the machine itself has less than 8 GiB")
+    proc = _limited(argv, 1536 * 2**20, tmp_path)
+    assert proc.returncode == 2, proc.stderr[-2000:]
+    for w in words:
+        assert w in proc.stderr, proc.stderr
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_memory_bytes_reads_the_address_space_limit():
+    import sys
+
+    code = ("import resource; resource.setrlimit(resource.RLIMIT_AS, (1 << 31, 1 << 31)); "
+            "from comparo.bounds import memory_bytes; print(memory_bytes())")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60, check=True)
+    assert 64 * 2**20 <= int(out.stdout) < 2**31
+
+
+def test_a_run_that_cannot_allocate_says_so(monkeypatch):
+    """Whatever the estimate missed: a MemoryError is exit 2 with a sentence, not exit 3."""
+    import comparo.commands.table as table
+
+    def boom(args):
+        raise MemoryError
+
+    monkeypatch.setattr(table, "run", boom)
+    proc = run_main("table", str(DEMO))
+    assert proc.returncode == 2
+    assert "not enough memory for this run" in proc.stderr and "internal error" not in proc.stderr
+
+
+@pytest.mark.parametrize("method,budget,count", [("lts", None, "100000"), ("robust", 0.05, "2000")])
+def test_a_refitting_bootstrap_is_bounded_by_its_measured_time(tmp_path, monkeypatch, method, budget, count):
+    """LTS and robust refit every resample; the cap comes from the time of one fit measured on
+    the data (not from a fixed rate), so a count that would run for hours is refused at once
+    (for robust the time budget is lowered to 0.05 s here, and the fixed-rate cap lifted, so
+    that only the measured bound can refuse it)."""
+    import comparo.bounds
+
+    if budget is not None:
+        monkeypatch.setattr(comparo.bounds, "TIME_BUDGET_S", budget)
+        monkeypatch.setattr(comparo.bounds, "REFITS_PER_S", 1e9)
+    said = refused(tmp_path, ["fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed",
+                              "--method", method, "--bootstrap", count],
+                   f"--bootstrap {count} would take about", f"one {method} fit of these", "resamples fit in")
+    assert "min here" in said
+
+
+def test_a_trace_file_beyond_the_cap_is_refused_before_reading(tmp_path):
+    """A 10-million-sample trace (230 MB) once needed 3.3 GB; a trace file over 32 MB is refused
+    from its size (a sparse file here: never read)."""
+    from hostile_checks import demo_copy
+
+    import comparo.traces
+
+    ds = demo_copy(tmp_path)
+    with open(ds / "trace_WL1.csv", "r+b") as fh:
+        fh.truncate(comparo.traces.MAX_TRACE_BYTES + 1)
+    refused(tmp_path, ["cycles", "{tmp}/DS"], "trace_WL1.csv", "is 32 MB", "at most 32 MB", "trace-size")

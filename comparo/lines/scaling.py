@@ -4,6 +4,7 @@ flags, group comparisons, a breakpoint, a bootstrap and the refit without flagge
 
 from __future__ import annotations
 
+import time
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -127,6 +128,12 @@ def fit(
     bootstrap = check_bootstrap(bootstrap, len(X), method)
     _check_points(method, X, Y, x, y, excluded)
     core = _core(method, X, Y, ci, against, seed)
+    if bootstrap and method in ("robust", "lts"):  # refitted per resample: bound by the time of one
+        from comparo.bounds import check_refits  # more fit (the first one pays for imports)
+
+        started = time.perf_counter()
+        _core(method, X, Y, ci, None, seed)
+        check_refits(bootstrap, len(X), time.perf_counter() - started, method)
     notes = [core.note] if core.note else []
     flags = flag_points(X, Y, labels, weights=core.weights if method == "robust" else None,
                         lts_std=core.lts_std if method == "lts" else None)
