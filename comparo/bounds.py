@@ -118,13 +118,6 @@ def check_column(table: Any, column: str, name: str) -> str:
     return column
 
 
-def check_choice(value: object, name: str, choices: tuple[str, ...]) -> str:
-    """One of *choices* (text)."""
-    if not isinstance(value, str) or value not in choices:
-        raise UsageError(f"{name} must be one of {', '.join(choices)} (got {_shown(value)})")
-    return value
-
-
 def check_level(value: object, name: str = "ci") -> float:
     """A confidence level: a number strictly between 0 and 1."""
     import numbers
