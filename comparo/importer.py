@@ -377,7 +377,8 @@ def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -
             out.append(replace(p, file=grid.file, row=first_row[p.row - 2], message=f"taxa: {p.message}"))
         else:
             out.append(p)
-    return out
+    # a cell shared by several long rows (a temperature, a source) breaks a rule once, not once per row
+    return list(dict.fromkeys(out))
 
 
 def _same_number(a: str, b: str) -> bool:

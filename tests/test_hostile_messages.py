@@ -18,6 +18,7 @@ def test_a_kelvin_temperature_is_shown_as_typed(tmp_path):
     said = refused(tmp_path, ["import", "{tmp}/wide.csv", "-o", "{tmp}/out"], "temperature-impossible",
                    allow=("out-import-map.csv",))
     assert "value '-5'" in said and "(typed -5 K, read as -278.15 °C)" in said
+    assert said.count("typed -5 K") == 1  # one cell, one line (it held two long rows' temperature)
     assert "value '-278.15'" not in said
 
 
