@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 import os
+from typing import Any
 
 from comparo.errors import UsageError
 
@@ -30,11 +31,130 @@ REFITS_PER_S = 200.0
 
 
 def memory_bytes() -> int:
-    """Physical memory of this machine in bytes (POSIX sysconf; 8 GiB if unknown)."""
+    """Memory this process may still use, in bytes: physical memory (POSIX sysconf; 8 GiB if
+    unknown), or less when the process's address-space limit (``ulimit -v``, RLIMIT_AS) or its
+    control group's memory limit is lower, less what the process already holds under that
+    limit. At least 64 MiB."""
     try:
-        return int(os.sysconf("SC_PAGE_SIZE")) * int(os.sysconf("SC_PHYS_PAGES"))
+        page = int(os.sysconf("SC_PAGE_SIZE"))
+        physical = page * int(os.sysconf("SC_PHYS_PAGES"))
     except (ValueError, OSError, AttributeError):  # pragma: no cover - non-POSIX
         return 8 * 2**30
+    limits = [physical]
+    try:
+        import resource
+
+        soft = resource.getrlimit(resource.RLIMIT_AS)[0]
+        if soft != resource.RLIM_INFINITY:
+            limits.append(soft - _statm(0) * page)  # address space already mapped counts
+    except (ImportError, OSError, ValueError):  # pragma: no cover - no such limit here
+        pass
+    group = _cgroup_limit()
+    if group is not None:
+        limits.append(group - _statm(1) * page)
+    return max(min(limits), 64 * 2**20)
+
+
+def _statm(field: int) -> int:
+    """Pages of this process from /proc/self/statm (0: address space, 1: resident); 0 if unknown."""
+    try:
+        with open("/proc/self/statm", encoding="ascii") as fh:
+            return int(fh.read().split()[field])
+    except (OSError, ValueError, IndexError):
+        return 0
+
+
+def _cgroup_limit() -> int | None:
+    """The memory limit of this process's control group (cgroup v2 or v1), None if none."""
+    for path in ("/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory/memory.limit_in_bytes"):
+        try:
+            with open(path, encoding="ascii") as fh:
+                text = fh.read().strip()
+        except OSError:
+            continue
+        if text.isdigit() and int(text) < 2**60:
+            return int(text)
+    return None
+
+
+# --------------------------------------------------------------------------- arguments
+# One set of checks for the arguments of the public functions (comparo.fit, comparo.derive...):
+# a wrong type or value raises UsageError naming the argument and what it accepts, before any
+# work, instead of a TypeError or AttributeError from deep inside.
+
+
+def _shown(value: object) -> str:
+    text = repr(value)
+    return f"{type(value).__name__} {text[:60] + '...' if len(text) > 60 else text}"
+
+
+def check_kind(value: object, kinds: type | tuple[type, ...], name: str, accepts: str) -> Any:
+    """*value* when it is an instance of *kinds*; else UsageError '<name> must be <accepts>'."""
+    if not isinstance(value, kinds):
+        raise UsageError(f"{name} must be {accepts} (got {_shown(value)})")
+    return value
+
+
+def check_table(value: object, name: str = "table") -> Any:
+    """A pandas DataFrame (one row per taxon)."""
+    import pandas as pd
+
+    return check_kind(value, pd.DataFrame, name, "a pandas DataFrame with one row per taxon, such as "
+                      "comparo.per_taxon(comparo.load(FOLDER))")
+
+
+def check_name(value: object, name: str, *, optional: bool = False) -> str | None:
+    """A column or key name (text); None allowed when *optional*."""
+    if value is None and optional:
+        return None
+    return check_kind(value, str, name, "a column name (text)" + (" or None" if optional else ""))
+
+
+def check_column(table: Any, column: str, name: str) -> str:
+    """*column* is a column of *table*."""
+    if column not in table.columns:
+        shown = ", ".join(map(str, list(table.columns)[:20]))
+        raise UsageError(f"{name} {column!r} is not a column of the table; its columns: {shown}")
+    return column
+
+
+def check_level(value: object, name: str = "ci") -> float:
+    """A confidence level: a number strictly between 0 and 1."""
+    import numbers
+
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not 0 < float(value) < 1:
+        raise UsageError(f"{name} must be a number strictly between 0 and 1, such as 0.95 (got {_shown(value)})")
+    return float(value)
+
+
+def check_count(value: object, name: str) -> int:
+    """A whole number >= 0 (a Python or numpy integer; not a float such as 1e12, not text)."""
+    import numbers
+
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise UsageError(f"{name} must be a whole number >= 0 (got {_shown(value)})")
+    if value < 0:
+        raise UsageError(f"{name} must be 0 or a positive number (got {value})")
+    return int(value)
+
+
+def check_path(value: object, name: str) -> Any:
+    """A file or folder path (text or os.PathLike)."""
+    from pathlib import Path
+
+    check_kind(value, (str, os.PathLike), name, "a path (text or pathlib.Path)")
+    if str(value) == "":
+        raise UsageError(f"{name} must be a path, not empty text")
+    return Path(value)
+
+
+def check_mapping(value: object, name: str, accepts: str, *, optional: bool = True) -> Any:
+    """A mapping (dict); None allowed when *optional*."""
+    from collections.abc import Mapping
+
+    if value is None and optional:
+        return None
+    return check_kind(value, Mapping, name, accepts + (" or None" if optional else ""))
 
 
 def check_seed(seed: object, option: str = "--seed") -> int:
@@ -86,8 +206,25 @@ def check_bootstrap(n_boot: int, n_points: int, method: str) -> int:
     if n_boot > cap:
         raise UsageError(
             f"--bootstrap {n_boot} exceeds this machine's cap of {cap} resamples for {n_points} points "
-            f"(time: {TIME_BUDGET_S:.0f} s at about {how}; memory: half of {memory_bytes() / 2**30:.1f} GiB "
-            "at 16 bytes a resample)")
+            f"(time: {TIME_BUDGET_S:.0f} s at about {how}; memory: half of the {memory_bytes() / 2**30:.1f} GiB "
+            "this process may use, at 16 bytes a resample)")
+    return n_boot
+
+
+def check_refits(n_boot: int, n_points: int, seconds: float, method: str, option: str = "--bootstrap") -> int:
+    """A bootstrap that refits *method* once per resample (and once per point for the BCa
+    jackknife): refused when that many refits at *seconds* each (the time of the full fit just
+    measured on this data, on this machine) exceed TIME_BUDGET_S. LTS and robust fits cost
+    tens of milliseconds to seconds each, growing with the points and the machine's load, so
+    their cap is measured, not assumed."""
+    refits = n_boot + n_points
+    if refits * seconds > TIME_BUDGET_S:
+        cap = max(int(TIME_BUDGET_S / max(seconds, 1e-9)) - n_points, 0)
+        raise UsageError(
+            f"{option} {n_boot} would take about {refits * seconds / 60:,.0f} min here: one {method} fit of these "
+            f"{n_points} points took {seconds:.3g} s on this machine, and the bootstrap refits each resample "
+            f"(and each point once more for BCa); at most {cap} resamples fit in {TIME_BUDGET_S:.0f} s "
+            "(use method ols, sma or ma for large resample counts)")
     return n_boot
 
 
@@ -121,8 +258,8 @@ def check_draws(n_draws: int, n_points: int, method: str, option: str = "--mc") 
     if n_draws > cap:
         raise UsageError(
             f"{option} {n_draws} exceeds this machine's cap of {cap} draws for {n_points} taxa (time: "
-            f"{TIME_BUDGET_S:.0f} s at about {how}; memory: half of {memory_bytes() / 2**30:.1f} GiB at "
-            f"{SENSITIVITY_BYTES_PER_POINT_DRAW:.0f} bytes per point and draw)")
+            f"{TIME_BUDGET_S:.0f} s at about {how}; memory: half of the {memory_bytes() / 2**30:.1f} GiB this "
+            f"process may use, at {SENSITIVITY_BYTES_PER_POINT_DRAW:.0f} bytes per point and draw)")
     return n_draws
 
 
@@ -154,8 +291,9 @@ def check_mc(mc: int, n_taxa: int, option: str = "--mc") -> int:
     if mc > cap:
         raise UsageError(
             f"{option} {mc} exceeds this machine's cap of {cap} draws for {n_taxa} taxa (time: "
-            f"{TIME_BUDGET_S:.0f} s at about {MC_TAXON_DRAWS_PER_S:.0e} taxon-draws per second; memory: half of "
-            f"{memory_bytes() / 2**30:.1f} GiB at about {MC_BYTES_PER_DRAW:.0f} bytes a draw, two blocks in flight)")
+            f"{TIME_BUDGET_S:.0f} s at about {MC_TAXON_DRAWS_PER_S:.0e} taxon-draws per second; memory: half of the "
+            f"{memory_bytes() / 2**30:.1f} GiB this process may use, at about {MC_BYTES_PER_DRAW:.0f} bytes a draw, "
+            "two blocks in flight)")
     return mc
 
 

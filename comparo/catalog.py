@@ -175,6 +175,9 @@ def load_catalog(extra: Mapping[str, Any] | None = None, file: str = "comparo.to
     InputError
         If a user entry is malformed (every problem listed).
     """
+    from comparo.bounds import check_mapping
+
+    check_mapping(extra, "extra", "a mapping of quantity keys to entries, like [quantities] of comparo.toml")
     entries: dict[str, Quantity] = {}
     builtin = read_schema("quantities.toml")
     for key, raw in builtin.items():

@@ -280,6 +280,11 @@ def main(argv: list[str] | None = None) -> int:
         return 130
     except BrokenPipeError:
         return EXIT_OK
+    except MemoryError:
+        print(f"comparo {args.command}: not enough memory for this run (the process could not allocate "
+              "what it needs; see docs/cli.md, 'Limits'): use fewer draws or resamples, or a smaller input",
+              file=sys.stderr)
+        return EXIT_INPUT
     except Exception as exc:  # a bug in comparo, not the user's fault
         if os.environ.get("COMPARO_DEBUG"):
             raise

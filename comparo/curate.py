@@ -872,6 +872,9 @@ def per_taxon(ds: Dataset, *, temperature: bool = True, aggregate: str | None = 
     values scatter more than their uncertainties allow), else the n-weighted
     mean (uncertainty: sd of the values / sqrt(k)); ``median`` the median.
     """
+    from comparo.validate import require_dataset
+
+    require_dataset(ds)
     how = aggregate or ds.settings.get("aggregate", "mean")
     if how not in ("mean", "median"):
         from comparo.errors import UsageError

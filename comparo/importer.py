@@ -116,7 +116,7 @@ def parse_cell(v: Any, decimal_comma: bool) -> tuple[str | None, str, str]:
         if re.fullmatch(r"[-+]?\d{1,3}(\.\d{3})+(,\d+)?([eE][-+]?\d+)?", t):
             t = t.replace(".", "")
         elif "." in t:
-            return None, "holds '.' in a table read with decimal commas", "write the number with ',' as the decimal mark, as the rest of the table"
+            return None, "a number with '.' in a table read with decimal commas", "write the number with ',' as the decimal mark, as the rest of the table"
         t = t.replace(",", ".", 1) if t.count(",") == 1 else t
     if not _PLAIN.match(t):
         return None, "not a number", _hint(t, decimal_comma)
@@ -254,6 +254,7 @@ def _structure(grid: Grid, columns: list[Column]) -> list[Problem]:
 class _Long:
     records: list[dict[str, str]] = field(default_factory=list)
     origin: list[dict[str, tuple[str, str, int]]] = field(default_factory=list)  # per record: long column -> (header, coordinate, row)
+    typed: list[dict[str, tuple[str, str]]] = field(default_factory=list)  # per record: long column -> (cell as typed, unit) where converted
     taxa: dict[str, dict[str, str]] = field(default_factory=dict)
     taxa_origin: dict[str, int] = field(default_factory=dict)
     problems: list[Problem] = field(default_factory=list)
@@ -386,9 +387,11 @@ def to_long(
             if n is not None:
                 rec["n"] = n
                 origin["n"] = (n_col.header, grid.coordinate(i, n_col.index), rownum)
+            typed: dict[str, tuple[str, str]] = {}
             if temp is not None:
                 rec["temperature_c"] = temp
                 origin["temperature_c"] = (single["temperature"].header, grid.coordinate(i, single["temperature"].index), rownum)
+                typed["temperature_c"] = (text(i, single["temperature"]), single["temperature"].unit)
             for k, v in copies.items():
                 if k != "basis" and v and (k != "q10" or c.key in rates):  # Q10: rates only
                     rec[k] = v
@@ -400,6 +403,7 @@ def to_long(
             rec["obs_id"] = f"imp_{digest}"
             out.records.append(rec)
             out.origin.append(origin)
+            out.typed.append(typed)
     return out
 
 
@@ -456,12 +460,26 @@ def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -
         if p.file == "observations.csv" and p.row is not None:
             origin = long.origin[p.row - 2]
             header, coord, row = origin.get(p.column or "", origin["value"])
-            out.append(replace(p, file=grid.file, row=row, column=header, message=f"cell {coord}: {p.message}"))
+            message = f"cell {coord}: {p.message}"
+            typed, unit = long.typed[p.row - 2].get(p.column or "", (None, ""))
+            if typed is not None and p.value is not None:  # show the cell as typed, not as converted
+                if not _same_number(typed, p.value):
+                    message += f" (typed {typed} {unit}, read as {p.value} °C)"
+                p = replace(p, value=typed)
+            out.append(replace(p, file=grid.file, row=row, column=header, message=message))
         elif p.file == "taxa.csv" and p.row is not None and p.row - 2 < len(first_row):
             out.append(replace(p, file=grid.file, row=first_row[p.row - 2], message=f"taxa: {p.message}"))
         else:
             out.append(p)
-    return out
+    # a cell shared by several long rows (a temperature, a source) breaks a rule once, not once per row
+    return list(dict.fromkeys(out))
+
+
+def _same_number(a: str, b: str) -> bool:
+    try:
+        return float(a) == float(b)
+    except ValueError:
+        return a == b
 
 
 def column_unit_slips(found: list[Problem], long: _Long, columns: list[Column], catalog: Catalog, grid: Grid) -> list[Problem]:

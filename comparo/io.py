@@ -39,6 +39,15 @@ SETTINGS_KEYS = {
 }
 
 MAX_CELL = 10_000  # characters; longer cells are an error (pasted garbage)
+MAX_COLUMNS = 16_384  # columns of any table (a spreadsheet's own limit, A to XFD)
+
+
+def too_many_columns(file: str, n: int, row: int | None = 1) -> Problem | None:
+    """The problem of a header with more than :data:`MAX_COLUMNS` columns (else None)."""
+    if n <= MAX_COLUMNS:
+        return None
+    return _err(file, "too-many-columns", f"the header has {n:,} columns; comparo reads at most {MAX_COLUMNS:,} "
+                "(a spreadsheet's own limit)", "a table with one column per value? put values in rows", row=row)
 
 
 @dataclass
@@ -260,6 +269,9 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
     if delim == "\t" and path.suffix.lower() == ".csv" and "," not in header:
         delim = "\t"
     hdr = next(csv.reader([header], delimiter=delim))
+    wide = too_many_columns(file, len(hdr), row=first + 1)
+    if wide is not None:
+        return None, probs + [wide]
     names = [nfc(h.strip().lstrip("\ufeff")) for h in hdr]
     seen: dict[str, int] = {}
     for i, h in enumerate(names):
@@ -317,11 +329,12 @@ class _TextFacts:
 
 
 def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _TextFacts | None = None) -> tuple[RawTable, list[Problem]]:
+    import numpy as np
+
     facts = facts or _TextFacts()
     frame = frame.fillna("").astype(str)
-    if facts.padded or facts.non_ascii:  # non-ASCII text may hold Unicode blanks
-        for col in frame.columns:
-            frame[col] = frame[col].str.strip()
+    if (facts.padded or facts.non_ascii) and frame.size:  # non-ASCII text may hold Unicode blanks
+        frame = _cellwise(frame, str.strip).astype(frame.dtypes.iloc[0])
     # blank rows (every cell empty) are layout, not data: drop them, keep row numbers
     keep = (frame != "").any(axis=1).to_numpy()
     if not keep.all():
@@ -334,10 +347,10 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _Tex
         restore_frame(frame)
     if facts.control:
         probs += _control_characters(file, frame, rows)
-    long = frame.apply(lambda s: s.str.len() > MAX_CELL) if facts.long else None
-    if long is not None and long.to_numpy().any():
+    long = _cellwise(frame, len).to_numpy(dtype=np.int64) > MAX_CELL if facts.long and frame.size else None
+    if long is not None and long.any():
         for ci, col in enumerate(frame.columns):
-            for ri in frame.index[long.iloc[:, ci].to_numpy()]:
+            for ri in frame.index[long[:, ci]]:
                 probs.append(_err(file, "cell-length", f"cell has {len(frame.at[ri, col])} characters (limit {MAX_CELL})", "shorten it; long notes belong in a separate file", row=rows[ri], column=col, value=frame.at[ri, col][:40] + "..."))
                 frame.at[ri, col] = frame.at[ri, col][:MAX_CELL]
     known = _known_columns()
@@ -345,6 +358,16 @@ def _finish(file: str, frame, rows: list[int], probs: list[Problem], facts: _Tex
     if facts.non_ascii:
         probs += clean_names(file, frame, rows)
     return RawTable(file, frame, rows, respelled), probs
+
+
+def _cellwise(frame, fun):
+    """*fun* applied to every cell of a frame of strings, over the whole array at once (a
+    column at a time costs about a millisecond a column in pandas: 16 s for 16,384 columns)."""
+    import numpy as np
+    import pandas as pd
+
+    out = np.frompyfunc(fun, 1, 1)(frame.to_numpy(dtype=object))
+    return pd.DataFrame(out, index=frame.index, columns=frame.columns)
 
 
 @lru_cache(maxsize=1)
@@ -371,11 +394,98 @@ def _control_characters(file: str, frame, rows: list[int]) -> list[Problem]:
     return probs
 
 
+# Workbook bounds, checked before openpyxl reads a sheet: a few-KB .xlsx can declare (or place
+# one stray cell at) row 1,048,576 and column XFD, and its sheet XML can inflate to gigabytes.
+MAX_SHEET_XML_BYTES = 512 * 2**20  # uncompressed XML of one sheet (or of the shared strings)
+MAX_SHEET_CELLS = 10_000_000  # rows times columns a sheet's cells span
+
+
+def _letters_index(letters: str) -> int:
+    n = 0
+    for ch in letters:
+        n = 26 * n + ord(ch) - 64
+    return n
+
+
+def _sheet_span(book: Any, info: Any) -> tuple[int, int]:
+    """Last row and last column (1-based) of the cells present in one sheet's XML, read
+    streaming (expat, no tree kept); stops early once the span passes MAX_SHEET_CELLS."""
+    from xml.parsers import expat
+
+    span = {"row": 0, "col": 0, "last_row": 0, "last_col": 0}
+    cell = re.compile(r"([A-Z]{1,3})(\d*)$")
+
+    def start(name: str, attrs: dict[str, str]) -> None:
+        tag = name.rsplit(":", 1)[-1]
+        if tag == "row":
+            r = attrs.get("r", "")
+            span["row"] = int(r) if r.isdigit() else span["row"] + 1
+            span["col"] = 0
+            span["last_row"] = max(span["last_row"], span["row"])
+        elif tag == "c":
+            m = cell.match(attrs.get("r", ""))
+            span["col"] = _letters_index(m.group(1)) if m else span["col"] + 1
+            span["last_col"] = max(span["last_col"], span["col"])
+
+    parser = expat.ParserCreate()
+    parser.StartElementHandler = start
+    with book.open(info) as fh:
+        while chunk := fh.read(1 << 20):
+            parser.Parse(chunk, False)
+            if span["last_row"] * span["last_col"] > MAX_SHEET_CELLS:
+                break
+        else:
+            parser.Parse(b"", True)
+    return span["last_row"], span["last_col"]
+
+
+def workbook_problems(path: Path) -> list[Problem]:
+    """Size checks of an .xlsx before it is loaded: each sheet's (and the shared strings')
+    uncompressed XML at most :data:`MAX_SHEET_XML_BYTES`, and the rows times columns its
+    cells span at most :data:`MAX_SHEET_CELLS` (counted from the cells actually present,
+    streaming, not from the declared dimension). A file that is not a zip is left to the
+    reader's own message."""
+    import zipfile
+
+    file = path.name
+    try:
+        book = zipfile.ZipFile(path)
+    except (zipfile.BadZipFile, OSError, ValueError):
+        return []
+    probs: list[Problem] = []
+    with book:
+        members = [i for i in book.infolist()
+                   if re.fullmatch(r"xl/(worksheets/[^/]+\.xml|sharedStrings\.xml)", i.filename)]
+        for info in members:
+            if info.file_size > MAX_SHEET_XML_BYTES:
+                probs.append(_err(file, "xlsx-size", f"{info.filename} inflates to {info.file_size / 2**20:,.1f} MB "
+                                  f"of XML; comparo reads at most {MAX_SHEET_XML_BYTES / 2**20:,.1f} MB per sheet",
+                                  "split the table over several files, or save it as CSV"))
+        if probs:
+            return probs
+        for info in members:
+            if not info.filename.startswith("xl/worksheets/"):
+                continue
+            try:
+                last_row, last_col = _sheet_span(book, info)
+            except Exception:  # a damaged sheet: the reader says what is wrong with it
+                continue
+            if last_row * last_col > MAX_SHEET_CELLS:
+                probs.append(_err(file, "xlsx-size", f"a sheet ({info.filename}) has cells as far as row {last_row:,} "
+                                  f"and column {last_col:,}: {last_row * last_col:,} cells to read, more than "
+                                  f"comparo's limit of {MAX_SHEET_CELLS:,}",
+                                  "delete the stray cells (or formatting) beyond the table, or save it as CSV"))
+    return probs
+
+
 def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Problem]]:
     """Read the sheet named *sheet* (else the first sheet) of an XLSX workbook."""
     import pandas as pd
 
     file = path.name
+    too_big = workbook_problems(path)
+    if too_big:
+        return None, too_big
     try:
         book = pd.ExcelFile(path, engine="openpyxl")
     except Exception as exc:  # openpyxl raises many types for a broken workbook
@@ -388,7 +498,9 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     try:
         frame = pd.read_excel(book, sheet_name=chosen, header=None, dtype=object)
     except Exception as exc:
-        return None, [_err(file, "xlsx-read", f"cannot read sheet ({exception_reason(exc)})")]
+        return None, [_err(file, "xlsx-read", "cannot read the sheet: a cell record is damaged or holds no finite "
+                                              f"number ({exception_reason(exc)})",
+                            "open the workbook in a spreadsheet program and save it again, or save the sheet as CSV")]
     if frame.empty:
         return None, [_err(file, "empty-file", "sheet is empty", "put the table on the first sheet, header in row 1")]
     frame = frame.map(_excel_cell)
@@ -705,6 +817,27 @@ def read_newick(path: Path) -> tuple[Any, str | None, list[Problem]]:
     return tree, text, probs
 
 
+MAX_SETTINGS_DEPTH = 16  # tables and arrays inside one another; comparo's own settings use 3
+
+
+def nesting(value: Any) -> int:
+    """How deeply tables (dicts) and arrays (lists) of parsed TOML sit inside one another
+    (0 for a plain value); measured without recursion."""
+    depth, stack = 0, [(value, 0)]
+    while stack:
+        v, d = stack.pop()
+        if isinstance(v, dict | list):
+            depth = max(depth, d + 1)
+            stack.extend((x, d + 1) for x in (v.values() if isinstance(v, dict) else v))
+    return depth
+
+
+def too_deep(file: str) -> Problem:
+    """The problem of a TOML file nested beyond :data:`MAX_SETTINGS_DEPTH`."""
+    return _err(file, "toml-depth", f"tables or arrays are nested more than {MAX_SETTINGS_DEPTH} levels deep",
+                "settings are a few levels deep at most; see docs/data-format.md")
+
+
 def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
     """Parse comparo.toml; unknown top-level keys are warnings."""
     file = path.name
@@ -716,6 +849,10 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
         return {}, probs + [_err(file, "toml-syntax", f"cannot parse settings: {exc}", "see docs/data-format.md for the settings format", row=int(m.group(1)) if m else None)]
+    except RecursionError:
+        return {}, probs + [too_deep(file)]
+    if nesting(settings) > MAX_SETTINGS_DEPTH:
+        return {}, probs + [too_deep(file)]
     settings = _nfc_value(settings)
     for key in settings:
         if key not in SETTINGS_KEYS:
@@ -770,6 +907,22 @@ def unified_spellings(tables: list[RawTable]) -> list[Problem]:
     return probs
 
 
+def not_a_file(path: str | Path) -> str | None:
+    """What *path* is when it exists but is not a regular file ("a folder", "a named pipe
+    (FIFO)", "a device or socket"), else None. Checked with ``stat`` before any ``open``:
+    opening a FIFO without a writer blocks for ever, and a device such as /dev/zero never
+    ends."""
+    import stat as _stat
+
+    try:
+        mode = Path(path).stat().st_mode
+    except (OSError, ValueError):
+        return None
+    if _stat.S_ISREG(mode):
+        return None
+    return "a folder" if _stat.S_ISDIR(mode) else "a named pipe (FIFO)" if _stat.S_ISFIFO(mode) else "a device or socket"
+
+
 def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Path | None:
     """The first of *names* in *folder* that is a regular file. A name that exists but
     is a folder, a FIFO or device, or a symbolic link that loops or leads nowhere is a
@@ -777,7 +930,7 @@ def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Pat
     for n in names:
         p = folder / n
         try:
-            st = p.stat()
+            p.stat()
         except OSError as exc:
             if p.is_symlink():
                 why = "a symbolic link that loops" if exc.errno == 40 else "a symbolic link to nothing"
@@ -785,11 +938,9 @@ def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Pat
             elif exc.errno not in (2, 20):  # ENOENT, ENOTDIR: simply absent
                 problems.append(_err(n, "file-read", f"cannot read {n} ({exc.strerror})"))
             continue
-        import stat as _stat
-
-        if _stat.S_ISREG(st.st_mode):
+        what = not_a_file(p)
+        if what is None:
             return p
-        what = "a folder" if _stat.S_ISDIR(st.st_mode) else "a named pipe (FIFO)" if _stat.S_ISFIFO(st.st_mode) else "a device or socket"
         problems.append(_err(n, "not-a-file", f"{n} is {what}, not a file", f"put the table in a regular file named {n}"))
     return None
 
@@ -803,6 +954,9 @@ def read_workbook(path: Path) -> RawDataset:
     import openpyxl
 
     raw = RawDataset(folder=path)
+    raw.problems += workbook_problems(path)
+    if raw.problems:
+        return raw
     try:
         book = openpyxl.load_workbook(path, read_only=True)
         names = list(book.sheetnames)
@@ -889,7 +1043,9 @@ def read_folder(folder: str | Path) -> RawDataset:
     InputError
         If the folder does not exist or is not a folder.
     """
-    folder = Path(folder)
+    from comparo.bounds import check_path
+
+    folder = check_path(folder, "folder")
     if not folder.exists():
         raise InputError([_err(str(folder), "missing-folder", "dataset folder does not exist", "give the path of a folder holding observations.csv and sources.csv")])
     if folder.is_file() and folder.suffix.lower() in (".xlsx", ".xlsm"):

@@ -326,7 +326,24 @@ def _phase(t: np.ndarray, y: np.ndarray, f: float) -> float:
     return math.atan2(coef[2], coef[1])
 
 
-def cycle_bounds(t: np.ndarray, x: np.ndarray, y: np.ndarray, *, detrend: bool = True) -> Cycles:
+def _each_oscillates(t: np.ndarray, signals: list[np.ndarray], names: tuple[str, ...], f: float) -> None:
+    """Refuse a loop one of whose signals does not oscillate at *f*: a constant signal (or one
+    whose fundamental explains under MIN_EXPLAINED of its drift-free variance) traces no loop,
+    only a line of zero area."""
+    for name, y in zip(names, signals, strict=True):
+        d = _detrended(t, y)
+        sd = float(np.std(d))
+        if not sd > 1e-9 * float(np.max(np.abs(y))) or not math.isfinite(sd):
+            raise CycleError(f"no cycle: the {name} signal does not oscillate (constant after removing "
+                             "offset and drift); a loop needs both signals to vary")
+        share = _explained(t, [d / sd], f)
+        if share < MIN_EXPLAINED:
+            raise CycleError(f"no cycle: a sinusoid at the cycle frequency ({f:.6g} Hz) explains {100 * share:.0f}% "
+                             f"of the {name} signal's variance (at least {100 * MIN_EXPLAINED:.0f}% is needed)")
+
+
+def cycle_bounds(t: np.ndarray, x: np.ndarray, y: np.ndarray, *, detrend: bool = True,
+                 names: tuple[str, str] = ("x", "y")) -> Cycles:
     """Frequency, drift removal and whole cycles of one trace (see the module doc).
 
     Parameters
@@ -335,12 +352,14 @@ def cycle_bounds(t: np.ndarray, x: np.ndarray, y: np.ndarray, *, detrend: bool =
     x, y : the two signals (any units; x sets the phase at which cycles start).
     detrend : subtract the linear and quadratic drift of each signal, fitted together with
         its harmonics (:func:`drift_of`); False keeps the signals as recorded.
+    names : what x and y are, for messages.
 
     Raises
     ------
     CycleError
         Fewer than :data:`MIN_CYCLES` whole cycles, fewer than
-        :data:`MIN_SAMPLES_PER_CYCLE` samples per cycle, or no oscillation.
+        :data:`MIN_SAMPLES_PER_CYCLE` samples per cycle, or either signal without an
+        oscillation.
     """
     t = np.asarray(t, float)
     x = np.asarray(x, float)
@@ -350,7 +369,9 @@ def cycle_bounds(t: np.ndarray, x: np.ndarray, y: np.ndarray, *, detrend: bool =
                          f"({MIN_CYCLES} cycles of {MIN_SAMPLES_PER_CYCLE} samples)")
     t0 = 0.5 * (t[0] + t[-1])
     tc = t - t0
-    f, _ = harmonic_frequency(tc, [x, y], cycle_frequency(t, [x, y]))
+    f0 = cycle_frequency(t, [x, y])
+    _each_oscillates(tc, [x, y], names, f0)
+    f, _ = harmonic_frequency(tc, [x, y], f0)
     if detrend:
         x, y = (s - drift_of(tc, s, f)[0] for s in (x, y))
     theta = _phase(tc, x, f)  # x fundamental peaks where 2πf tc = θ + 2πk
@@ -423,7 +444,7 @@ def _fundamental_amplitude(t: np.ndarray, v: np.ndarray, f: float) -> float:
 
 def strain_loop(t: np.ndarray, axial: np.ndarray, radial: np.ndarray, *, detrend: bool = True) -> StrainLoop:
     """Reduce a strain cycle: *t* in s, *axial* and *radial* strains dimensionless (not %)."""
-    c = cycle_bounds(t, axial, radial, detrend=detrend)
+    c = cycle_bounds(t, axial, radial, detrend=detrend, names=("axial strain", "radial strain"))
     areas, amps, deps = [], [], []
     for k in range(len(c.bounds)):
         lx, ly = c.loop(k)
@@ -436,7 +457,7 @@ def strain_loop(t: np.ndarray, axial: np.ndarray, radial: np.ndarray, *, detrend
 
 def work_loop(t: np.ndarray, length: np.ndarray, force: np.ndarray, *, detrend: bool = True) -> WorkLoop:
     """Reduce a work loop: *t* in s, *length* in m, *force* in N (net work in J, power in W)."""
-    c = cycle_bounds(t, length, force, detrend=detrend)
+    c = cycle_bounds(t, length, force, detrend=detrend, names=("length", "force"))
     work = [shoelace_area(*c.loop(k)) for k in range(len(c.bounds))]
     w = Stat.of(work)
     return WorkLoop(c, w, w.scaled(c.frequency))

@@ -44,6 +44,7 @@ STDOUT_NAMES = frozenset({"-", "/dev/stdout"})
 _DATASET_TABLES = ("observations.csv", "observations.tsv", "observations.xlsx")
 # the inputs of the command or API call running now: (as given, resolved)
 _PROTECTED: ContextVar[tuple[tuple[str, Path], ...]] = ContextVar("comparo_inputs", default=())
+_TMP_EXTRA = 16  # bytes a temporary file's name adds to its target's: "." + name + ".XXXXXXXX.tmp"
 
 
 def is_stdout(path: str | os.PathLike | None) -> bool:
@@ -87,6 +88,7 @@ def guard_output(path: str | os.PathLike | None, *, kind: str = "file",
         return
     raw = Path(os.path.expanduser(str(path)))
     out = resolve_output(raw, inputs, shown=str(path))
+    _check_name_length(out, str(path))
     if kind == "dataset":  # a command that writes a dataset folder checks what is in it itself
         kind = "dir"
     elif kind == "dir" and out.is_dir() and any((out / t).exists() for t in _DATASET_TABLES):
@@ -136,6 +138,31 @@ def resolve_output(path: str | os.PathLike, inputs: Iterable[str | os.PathLike |
     return out
 
 
+def _check_name_length(out: Path, shown: str) -> None:
+    """Refuse a path with a name longer than the file system takes (ENAMETOOLONG), before
+    any work. The last name needs room for the temporary file written beside it."""
+    folder = out.parent
+    while not os.path.isdir(folder) and folder != folder.parent:
+        folder = folder.parent
+    try:
+        name_max = os.pathconf(folder, "PC_NAME_MAX")
+        path_max = os.pathconf(folder, "PC_PATH_MAX")
+    except (OSError, ValueError):  # pragma: no cover - no limits known
+        return
+    if len(shown) > 120:
+        shown = f"{shown[:60]}...{shown[-40:]}"
+    for i, part in enumerate(out.parts):
+        last = i == len(out.parts) - 1
+        size = len(os.fsencode(part))
+        if size > name_max - (_TMP_EXTRA if last else 0):
+            room = f" ({name_max - _TMP_EXTRA} for an output file, which needs room for a temporary file)"
+            raise UsageError(f"cannot write {shown}: the name {part[:30]}... is {size} bytes; this file system "
+                             f"takes names of at most {name_max} bytes{room if last else ''}: choose a shorter name")
+    if len(os.fsencode(str(out))) + _TMP_EXTRA >= path_max:
+        raise UsageError(f"cannot write {shown}: the path is {len(os.fsencode(str(out)))} bytes; this file "
+                         f"system takes paths of at most {path_max - 1 - _TMP_EXTRA} bytes for an output")
+
+
 def _check_kind(raw: Path, out: Path, kind: str, shown: str) -> None:
     if kind == "file":
         if out.is_dir():
@@ -156,7 +183,8 @@ def _write_error(path: str | os.PathLike, exc: OSError) -> UsageError:
     reason = {errno.ENOSPC: "the device is full", errno.EROFS: "the file system is read-only",
               errno.EACCES: "permission denied", errno.EPERM: "permission denied",
               errno.EISDIR: "it is a folder", errno.ENOTDIR: "a parent is not a folder",
-              errno.EDQUOT: "the disk quota is exceeded"}.get(exc.errno, exc.strerror or str(exc))
+              errno.EDQUOT: "the disk quota is exceeded", errno.ENAMETOOLONG: "the name is too long",
+              errno.ENXIO: "it is a named pipe (FIFO) that no process is reading"}.get(exc.errno, exc.strerror or str(exc))
     return UsageError(f"cannot write {path}: {reason}")
 
 
@@ -182,13 +210,25 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
         if mode is not None and not stat.S_ISREG(mode):
             if stat.S_ISDIR(mode):
                 raise UsageError(f"cannot write {path}: it is a folder")
-            with open(target, "wb") as fh:  # FIFO, device, socket: in place
-                fh.write(data)
+            _write_in_place(target, mode, data)
             return
         target.parent.mkdir(parents=True, exist_ok=True)
         _replace_atomically(target, data)
     except OSError as exc:
         raise _write_error(path, exc) from None
+
+
+def _write_in_place(target: Path, mode: int, data: bytes) -> None:
+    """A FIFO, device or socket is written in place. A FIFO is opened without blocking, so
+    one that no process reads fails at once (ENXIO) instead of waiting for ever."""
+    if not stat.S_ISFIFO(mode):
+        with open(target, "wb") as fh:
+            fh.write(data)
+        return
+    fd = os.open(target, os.O_WRONLY | os.O_NONBLOCK)
+    os.set_blocking(fd, True)  # a reader is there: let a full pipe wait for it
+    with os.fdopen(fd, "wb") as fh:
+        fh.write(data)
 
 
 def _replace_atomically(path: Path, data: bytes) -> None:
@@ -260,26 +300,31 @@ def row_list(rows: list[int], most: int = 12) -> str:
     return ", ".join(items[:most]) + (" ..." if len(items) > most else "")
 
 
-#: warnings (and notes) of one rule in one column printed in full; the rest are counted
+#: problems of one rule in one column printed one by one; the rest are counted in one line
 PER_COLUMN = 5
 _CELL = re.compile(r"^cell ([A-Z]{1,3}\d+): ")
 
 
-def print_problems(problems, stream: IO[str] | None = None, limit: int = 200) -> None:
-    """Problems table as one readable line each (errors first), to *stream*.
+def print_problems(problems, stream: IO[str] | None = None, limit: int = 200,
+                   per_column: int = PER_COLUMN) -> None:
+    """Problems (a Problems table or a list of :class:`~comparo.errors.Problem`) as one
+    readable line each (in their order), to *stream*, repeated ones summarised.
 
-    A problem repeated word for word at several rows (a missing source id on eight rows) is
-    one line naming its rows. Of the warnings and notes of one rule in one column, the first
-    :data:`PER_COLUMN` are printed and the rest counted (``... and 9 more in this column``);
-    every error is printed (up to *limit* lines).
+    A problem repeated word for word at several rows or cells (a missing source id on eight
+    rows) is one line naming its rows or cells. Of one rule in one column, the first
+    *per_column* lines are printed, and of one rule in all columns at most 4 x *per_column*;
+    the rest of that rule is counted in one line after its last one (a rule broken in
+    100,000 rows prints a handful of lines, not 100,000). At most *limit* lines in all;
+    ``comparo check --format csv`` lists every problem.
     """
     from comparo.errors import Problem
 
     stream = stream or sys.stderr
+    records = problems.to_dict("records") if hasattr(problems, "to_dict") else [p.to_dict() for p in problems]
     merged: dict[tuple, list] = {}
     cells: dict[tuple, list[tuple]] = {}
     seen: set[tuple] = set()
-    for rec in problems.to_dict("records"):
+    for rec in records:
         rec = {k: (None if _is_missing(v) else v) for k, v in rec.items()}
         m = _CELL.match(rec["message"] or "")
         if m:  # the same message at another cell of the column is the same problem
@@ -291,45 +336,56 @@ def print_problems(problems, stream: IO[str] | None = None, limit: int = 200) ->
             cells.setdefault(key, []).append(place)
             merged.setdefault(key, []).append(rec["row"])
 
-    def place_of(rec: dict) -> tuple:
-        return rec["severity"], rec["file"], rec["column"], rec["rule"]
-
-    total: dict[tuple, int] = {}
-    for key in merged:
-        total[place_of(dict(key))] = total.get(place_of(dict(key)), 0) + 1
+    keys = list(merged)
+    last = {(dict(k)["severity"], dict(k)["rule"]): i for i, k in enumerate(keys)}
+    in_column: dict[tuple, int] = {}
+    in_rule: dict[tuple, int] = {}
+    left: dict[tuple, dict[str | None, int]] = {}
     lines: list[str] = []
-    shown: dict[tuple, int] = {}
-    for key, rows in merged.items():
-        rec = dict(key)
-        place = place_of(rec)
-        shown[place] = shown.get(place, 0) + 1
-        if rec["severity"] != "error" and rec["column"] and shown[place] > PER_COLUMN:
-            continue
-        known = [r for r in rows if r is not None]
-        at = [c for _, c in cells[key] if c]
-        if len(rows) > 1 and known:
-            listed = row_list(known)
-            head = f"{rec['severity']}: {rec['file']}"
-            if at:  # the cells name their rows
-                rec["message"] = f"cells {', '.join(at[:12])}{' ...' if len(at) > 12 else ''}: {rec['message']}"
-                line = Problem(**rec, row=None).line()
-            else:
-                line = Problem(**rec, row=None).line().replace(head, f"{head}, rows {listed}", 1)
-            line = line.replace(f"[{rec['rule']}]", f"({len(rows)} {'cells' if at else 'rows'}) [{rec['rule']}]", 1)
+    for i, key in enumerate(keys):
+        rec, rows = dict(key), merged[key]
+        rule = (rec["severity"], rec["rule"])
+        group = (*rule, rec["file"], rec["column"])
+        in_column[group] = in_column.get(group, 0) + 1
+        if in_column[group] <= per_column and in_rule.get(rule, 0) < 4 * per_column:
+            in_rule[rule] = in_rule.get(rule, 0) + 1
+            lines.append(_problem_line(Problem, rec, rows, [c for _, c in cells[key] if c]))
         else:
-            if at:
-                rec["message"] = f"cell {at[0]}: {rec['message']}"
-            line = Problem(**rec, row=rows[0]).line()
-        lines.append(line)
-        if shown[place] == PER_COLUMN and rec["severity"] != "error" and rec["column"]:
-            rest = total[place] - PER_COLUMN
-            if rest > 0:
-                lines.append(f"  ... and {rest} more in this column ({rec['file']}, column '{rec['column']}') [{rec['rule']}]")
+            left.setdefault(rule, {}).setdefault(rec["column"], 0)
+            left[rule][rec["column"]] += len(rows)
+        if last[rule] == i and rule in left:
+            lines.append(_more_line(rule, left.pop(rule)))
     for i, line in enumerate(lines):
         if i >= limit:
-            stream.write(f"... and {len(lines) - limit} more problem(s); use 'comparo check --format csv' for all\n")
+            stream.write(f"... and {len(lines) - limit} more line(s); "
+                         "use 'comparo check --format csv' for every problem\n")
             break
         stream.write(line + "\n")
+
+
+def _problem_line(problem_type, rec: dict, rows: list, at: list[str]) -> str:
+    """One problem, or one repeated at several *rows* (cells *at*), as one line."""
+    known = [r for r in rows if r is not None]
+    if len(rows) > 1 and known:
+        head = f"{rec['severity']}: {rec['file']}"
+        if at:  # the cells name their rows
+            rec["message"] = f"cells {', '.join(at[:12])}{' ...' if len(at) > 12 else ''}: {rec['message']}"
+            line = problem_type(**rec, row=None).line()
+        else:
+            line = problem_type(**rec, row=None).line().replace(head, f"{head}, rows {row_list(known)}", 1)
+        return line.replace(f"[{rec['rule']}]", f"({len(rows)} {'cells' if at else 'rows'}) [{rec['rule']}]", 1)
+    if at:
+        rec["message"] = f"cell {at[0]}: {rec['message']}"
+    return problem_type(**rec, row=rows[0]).line()
+
+
+def _more_line(rule: tuple[str, str], columns: dict[str | None, int]) -> str:
+    n = sum(columns.values())
+    named = [f"'{c}'" for c in sorted(columns, key=lambda c: -columns[c]) if c][:3]
+    where = ""
+    if named:
+        where = f" in column{'s' if len(columns) > 1 else ''} {', '.join(named)}" + (", ..." if len(columns) > 3 else "")
+    return f"{rule[0]}: ... and {n} more [{rule[1]}]{where} not listed one by one"
 
 
 def _is_missing(v: Any) -> bool:

@@ -50,7 +50,34 @@ STYLE = {  # the house style of every figure
 }
 
 
+def matplotlib_cache() -> None:
+    """Point matplotlib's configuration and font cache at comparo's cache folder
+    (``$COMPARO_CACHE_DIR/matplotlib``, else ``~/.cache/comparo/matplotlib`` on Linux), or at a
+    temporary folder removed at exit when ``COMPARO_CACHE_DIR`` is empty, so that comparo
+    writes nothing under ``~/.matplotlib`` or ``~/.config``. Only when ``MPLCONFIGDIR`` is unset
+    and matplotlib is not yet imported (a session's own matplotlib set-up is left alone)."""
+    import os
+    import sys
+
+    if "MPLCONFIGDIR" in os.environ or "matplotlib" in sys.modules:
+        return
+    from comparo.units import cache_base
+
+    base = cache_base()
+    if base is None:
+        import atexit
+        import shutil
+        import tempfile
+
+        folder = tempfile.mkdtemp(prefix="comparo-matplotlib-")
+        atexit.register(shutil.rmtree, folder, ignore_errors=True)
+    else:
+        folder = str(base / "matplotlib")
+    os.environ["MPLCONFIGDIR"] = folder
+
+
 def _plt():
+    matplotlib_cache()
     import matplotlib
 
     matplotlib.use("Agg", force=True)

@@ -173,6 +173,9 @@ def audit(ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | Non
     Load with ``comparo.load(folder, strict=False)`` to audit a table that still
     has errors: rows with errors are then listed as excluded with their rule.
     """
+    from comparo.validate import require_dataset
+
+    require_dataset(ds)
     h = harmonised or harmonise(ds, temperature=temperature)
     rows = h.rows
     used = rows[rows["status"] == "used"]

@@ -543,8 +543,16 @@ def sensitivity(
     leaves out one taxon at a time (Quenouille 1956; Efron 1982). The Monte Carlo
     follows JCGM 101:2008.
     """
+    import pandas as pd
+
+    from comparo.bounds import check_count, check_draws, check_kind, check_level, check_seed
     from comparo.dataset import Dataset
 
+    check_kind(dataset_or_table, (Dataset, pd.DataFrame), "dataset_or_table",
+               "a Dataset (comparo.load(FOLDER)) or a per-taxon DataFrame (comparo.per_taxon)")
+    mc = check_count(mc, "mc")
+    seed = check_seed(seed, "seed")
+    ci = check_level(ci)
     against = renamed_against(fit_options, against)
     alpha = 1 - ci
     kw = dict(against=against, ci=ci, log=str(log), taxon_col=taxon_col, **fit_options)
@@ -563,6 +571,7 @@ def sensitivity(
         unavailable.append("leave-one-source-out and basis filters need values with one source "
                            f"each ({why})")
     base = fit(table, x, y, method, **kw)
+    check_draws(mc, base.n, method, "mc")  # the bound of the command line, before the draws
     se = analytic_se(base)
     p_full = _p(base)
     loso = by_basis = None

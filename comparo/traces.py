@@ -30,6 +30,11 @@ from comparo.validate import WORKING_RANGE
 TRACES_FILE = "traces.csv"
 WORKING = WORKING_RANGE  # magnitudes comparo computes with
 MAX_LISTED = 20  # problems listed per column of one trace file before a count
+# Size of one trace file, checked before it is read: every cell is read as text first (about
+# 19 times the file's size in memory: 60 MB, 1.75 million samples of three columns, took
+# 1.1 GB and 4 min on 2 loaded cores), so 32 MB (about a million samples) needs about 0.6 GB;
+# a 10-million-sample trace (230 MB) once needed 3.3 GB and failed under a smaller limit.
+MAX_TRACE_BYTES = 32 * 2**20
 KINDS = ("strain_cycle", "work_loop")
 # quantity keys a trace contributes to the table, per kind. The cycle frequency is not one: it is
 # a condition the experimenter imposed (or the preparation ran at), not a trait of the taxon, and
@@ -247,6 +252,12 @@ def _read_one(ds, rec: dict[str, str], row: int, drift_removal: bool = True) -> 
         what = "does not exist" if not path.exists() else "is not a regular file"
         return None, [_p(TRACES_FILE, row, "file", rel, "trace-file-missing", f"trace file {rel!r} {what}",
                          "put the trace CSV in the dataset folder or correct the path")]
+    size = path.stat().st_size
+    if size > MAX_TRACE_BYTES:
+        return None, [_p(TRACES_FILE, row, "file", rel, "trace-size",
+                         f"trace file {rel!r} is {size / 2**20:,.0f} MB; comparo reads trace files of at most "
+                         f"{MAX_TRACE_BYTES / 2**20:,.0f} MB (about a million samples of three columns)",
+                         "keep the whole cycles needed (a few dozen are plenty) or downsample the recording")]
     table, probs = read_text_table(path, name=rel)
     probs = list(probs)
     if table is None:
@@ -278,6 +289,8 @@ def _read_one(ds, rec: dict[str, str], row: int, drift_removal: bool = True) -> 
         red = reduce(t, x, y, detrend=drift_removal)
     except loops.CycleError as exc:
         return None, probs + [_p(TRACES_FILE, row, "file", rel, "trace-cycles", f"trace {rec['trace_id']!r} cannot be split into cycles: {exc}",
+                                 "check that the columns hold the recorded signals (a constant or copied column?)"
+                                 if str(exc).startswith("no cycle:") else
                                  "record more whole cycles (at least 2, with at least 8 samples each), or check the columns and units")]
     res = _result(rec, row, red, t, x, y)
     bad = [k for k, (m, _) in res.values.items() if not (math.isfinite(m) and (m == 0 or WORKING[0] <= abs(m) <= WORKING[1]))]
@@ -522,7 +535,9 @@ def cycles(ds, *, temperature: bool = True, drift_removal: bool = True) -> Trace
         When traces.csv or a trace file has an error.
     """
     from comparo.curate import harmonise
+    from comparo.validate import require_dataset
 
+    require_dataset(ds)
     ts = read_traces(ds)
     if not ts.ok:
         raise InputError([p for p in ts.problems if p.severity == "error"])

@@ -156,20 +156,27 @@ def registry() -> pint.UnitRegistry:
 _READY = "complete"
 
 
-def cache_folder() -> Path | None:
-    """Folder of the registry cache: ``$COMPARO_CACHE_DIR/pint-VERSION`` or the user
-    cache folder's ``comparo/pint-VERSION``; ``None`` when ``COMPARO_CACHE_DIR`` is empty."""
+def cache_base() -> Path | None:
+    """comparo's cache folder: ``$COMPARO_CACHE_DIR``, else the user cache folder's ``comparo``
+    (``~/.cache/comparo`` on Linux); ``None`` when ``COMPARO_CACHE_DIR`` is empty (no cache)."""
     env = os.environ.get("COMPARO_CACHE_DIR")
     if env == "":
         return None
-    import pint
-
     if env is None:
         import platformdirs  # a dependency of pint
 
-        base = platformdirs.user_cache_path(appname="comparo", appauthor=False)
-    else:
-        base = Path(env)
+        return platformdirs.user_cache_path(appname="comparo", appauthor=False)
+    return Path(env)
+
+
+def cache_folder() -> Path | None:
+    """Folder of the registry cache: ``$COMPARO_CACHE_DIR/pint-VERSION`` or the user
+    cache folder's ``comparo/pint-VERSION``; ``None`` when ``COMPARO_CACHE_DIR`` is empty."""
+    base = cache_base()
+    if base is None:
+        return None
+    import pint
+
     return base / f"pint-{pint.__version__}"
 
 

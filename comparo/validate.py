@@ -835,6 +835,13 @@ class CheckResult:
         return f"{self.folder}: {self.rows_read} observation row(s) read{traces}; {verdict}, {self.n_warnings} warning(s), {self.n_notes} note(s)"
 
 
+def require_dataset(ds: Any, name: str = "ds") -> Dataset:
+    """*ds* when it is a :class:`Dataset`; else a UsageError saying how to make one."""
+    from comparo.bounds import check_kind
+
+    return check_kind(ds, Dataset, name, "a Dataset, such as comparo.load(FOLDER) returns")
+
+
 def check(folder) -> CheckResult:
     """Validate a dataset folder and return every problem found (never raises for
     bad cells; raises :class:`~comparo.InputError` only when the folder itself is missing)."""

@@ -26,7 +26,19 @@ from typing import Any
 
 from comparo.catalog import Catalog
 from comparo.errors import Problem
-from comparo.io import MAX_CELL, Percent, decode_bytes, exception_reason, is_percent_format, nfc
+from comparo.io import (
+    MAX_CELL,
+    MAX_SETTINGS_DEPTH,
+    Percent,
+    decode_bytes,
+    exception_reason,
+    is_percent_format,
+    nesting,
+    nfc,
+    too_deep,
+    too_many_columns,
+    workbook_problems,
+)
 
 UNCERTAINTY_ROLES = ("sd", "se", "ci95", "range_half")
 ROLES = ("value", *UNCERTAINTY_ROLES, "n", "source", "locator", "taxon", "temperature", "taxa", "column", "ignore")
@@ -136,11 +148,12 @@ def _text_cells(path: Path, decimal_comma: bool, header_row: int | None = None) 
 
 
 def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | None, str, list[Problem]]:
-    import datetime as _dt
-
     import openpyxl
 
     file = path.name
+    too_big = workbook_problems(path)
+    if too_big:
+        return None, file, too_big
     try:
         book = openpyxl.load_workbook(path, read_only=True, data_only=True)
         formulas = openpyxl.load_workbook(path, read_only=True, data_only=False)
@@ -151,9 +164,27 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
         return None, file, [_problem(file, "sheet-missing", f"the workbook has no sheet {sheet!r}", f"its sheets: {', '.join(names)}")]
     chosen = sheet or names[0]
     file = f"{path.name}[{chosen}]"
+    try:
+        return _sheet_cells(book, formulas, chosen, file)
+    except Exception as exc:  # openpyxl raises many types for a damaged cell record
+        return None, file, [_problem(file, "xlsx-read", f"cannot read the sheet: a cell record is damaged ({type(exc).__name__}: {str(exc)[:120]})",
+                                     "open the workbook in a spreadsheet program and save it again, or save the sheet as CSV")]
+    finally:
+        book.close()
+        formulas.close()
+
+
+def _sheet_cells(book: Any, formulas: Any, chosen: str, file: str) -> tuple[list[list[Any]], str, list[Problem]]:
+    import datetime as _dt
+
+    import numpy as np
+
     probs: list[Problem] = []
     cells: list[list[Any]] = []
-    for r, (found, forms) in enumerate(zip(book[chosen].iter_rows(), formulas[chosen].iter_rows(values_only=True), strict=False), start=1):
+    sheets = [book[chosen], formulas[chosen]]
+    for ws in sheets:
+        ws.reset_dimensions()  # the declared dimension may be wrong: read the cells present
+    for r, (found, forms) in enumerate(zip(sheets[0].iter_rows(), sheets[1].iter_rows(values_only=True), strict=False), start=1):
         row: list[Any] = []
         for c, (cell, f) in enumerate(zip(found, forms, strict=False)):
             v = getattr(cell, "value", None)
@@ -164,6 +195,10 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
                 probs.append(_problem(file, "formula-no-value", f"cell {column_letter(c)}{r} holds a formula with no saved result", "open the workbook in a spreadsheet program and save it, so that the results are stored", row=r, value=f[:40]))
             if isinstance(v, bool):
                 row.append(str(v).upper())
+            elif isinstance(v, int | float) and not np.isfinite(v):
+                probs.append(_problem(file, "non-finite", f"cell {column_letter(c)}{r} holds {v!r}, not a finite number",
+                                      "type the value, or leave the cell empty", row=r, value=repr(v)))
+                row.append("")
             elif isinstance(v, int | float):
                 row.append(float(v))
             elif isinstance(v, _dt.datetime | _dt.date):
@@ -171,8 +206,6 @@ def _workbook_cells(path: Path, sheet: str | None) -> tuple[list[list[Any]] | No
             else:
                 row.append("" if v is None else nfc(str(v)))
         cells.append(row)
-    book.close()
-    formulas.close()
     return cells, file, probs
 
 
@@ -213,6 +246,9 @@ def _grid(file: str, cells: list[list[Any]], header_row: int | None = None) -> t
     header = [(h if isinstance(h, str) else repr(h)).strip().lstrip("\ufeff") for h in cells[first]]
     while header and not header[-1]:
         header.pop()
+    wide = too_many_columns(file, len(header), row=first + 1)
+    if wide is not None:
+        return None, [wide]
     probs: list[Problem] = []
     hrow = first + 1
     seen: dict[str, int] = {}
@@ -371,11 +407,18 @@ class NameIndex:
         return sorted({k for n, ks in self.names.items() if words <= set(n.split()) for k in ks})
 
     def closest(self, name: str, limit: int = 3) -> list[str]:
+        """Up to *limit* keys whose names are most like *name* (difflib ratio, plus 0.2 for a
+        shared word; at least 0.45). The ratio's cheap upper bounds skip names that cannot
+        reach 0.45, so a header with no near name costs little."""
         scores: dict[str, float] = {}
+        words = {w for w in name.split() if len(w) > 1}  # a one-letter symbol is not a word
         for n, ks in self.names.items():
-            s = difflib.SequenceMatcher(None, name, n).ratio()
-            if {w for w in name.split() if len(w) > 1} & set(n.split()):
-                s += 0.2
+            bonus = 0.2 if words & set(n.split()) else 0.0
+            sm = _matcher(n)
+            sm.set_seq1(name)
+            if sm.real_quick_ratio() + bonus < 0.45 or sm.quick_ratio() + bonus < 0.45:
+                continue
+            s = sm.ratio() + bonus
             for k in ks:
                 scores[k] = max(scores.get(k, 0.0), s)
         best = sorted(scores, key=lambda k: (-scores[k], k))
@@ -408,6 +451,12 @@ def unit_fit(unit: str, kind: str) -> int:
     if kind in ("frequency", "rate"):
         return 2 if (kind == "frequency") == ("hz" in unit.casefold()) else 1
     return 2
+
+
+@lru_cache(maxsize=4096)
+def _matcher(n: str) -> difflib.SequenceMatcher:
+    """A matcher with *n* as its second sequence (difflib caches its analysis of that one)."""
+    return difflib.SequenceMatcher(None, "", n)
 
 
 def _quantity(name: str, index: NameIndex, unit: str = "") -> tuple[str, str, str, tuple[str, ...]]:
@@ -537,6 +586,10 @@ def read_map(path: Path) -> tuple[dict[str, dict[str, str]], list[Problem]]:
             doc = tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
             return {}, probs + [_problem(file, "toml-syntax", f"cannot parse the map: {exc}")]
+        except RecursionError:
+            return {}, probs + [too_deep(file)]
+        if nesting(doc) > MAX_SETTINGS_DEPTH:
+            return {}, probs + [too_deep(file)]
         cols = doc.get("columns", [])
         if not isinstance(cols, list) or not all(isinstance(c, dict) for c in cols):
             return {}, probs + [_problem(file, "map-format", "import.toml needs [[columns]] tables (header, role, key, unit, basis)")]

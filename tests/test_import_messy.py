@@ -247,4 +247,4 @@ def test_cell_warnings_beyond_five_in_a_column_are_counted(tmp_path, capsys) -> 
     assert run("import", wide, "-o", tmp_path / "out") == 0
     err = capsys.readouterr().err
     assert err.count("[out-of-range]") == 6  # five printed, one summary line
-    assert "... and 3 more in this column" in err
+    assert "warning: ... and 3 more [out-of-range] in column 'Fibre radius (µm)' not listed one by one" in err

@@ -12,13 +12,15 @@ def write_table(table, units, output: str | None) -> None:
     from pathlib import Path
 
     from comparo.csvsafe import to_csv
-    from comparo.outputs import is_stdout
+    from comparo.outputs import guard_output, is_stdout
 
     if output and not is_stdout(output) and Path(output).suffix.lower() == ".xlsx":
         from comparo.export import table_workbook
 
         atomic_write_bytes(output, table_workbook(table, units))
         return
+    if output and not is_stdout(output):
+        guard_output(units_path(output))  # the units file too, before the table is written
     emit(to_csv(table), output)
     if output and not is_stdout(output):
         emit(to_csv(units), str(units_path(output)))

@@ -49,6 +49,7 @@ def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True, sa
         frame[taxon_col] = text.astype(str)
         note = f"points are named by its first column {first!r}"
     else:
+        frame[taxon_col] = [f"row {i + 2}" for i in range(len(frame))]
         note = "its first column is not a column of distinct names, so points are named by CSV line (row N)"
     if say:
         sys.stderr.write(f"note: {path.name} has no {taxon_col!r} column: {note} (--taxon-col chooses the label column)\n")
@@ -108,8 +109,11 @@ def checked_tree(path: str):
     Read as :func:`comparo.phylo.read_tree` reads it (UTF-8, an optional BOM, the final
     ';' optional) and checked by the same rules (labels, duplicates, branch lengths)."""
     from comparo import newick
+    from comparo.io import not_a_file
     from comparo.phylo.trees import _check
 
+    if not_a_file(path):
+        return path  # refused by comparo.phylo.read_tree with its message
     try:
         text = Path(path).read_text(encoding="utf-8-sig").strip()
     except (OSError, UnicodeDecodeError):

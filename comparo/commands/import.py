@@ -7,16 +7,12 @@ import sys
 
 def run(args) -> int:
     from comparo.importer import import_wide
-    from comparo.outputs import dumps
+    from comparo.outputs import dumps, print_problems
 
     res = import_wide(args.wide, args.output, sources=args.sources, map_file=args.map, sheet=args.sheet,
                       decimal_comma=args.decimal_comma, overwrite=args.overwrite, header_row=args.header_row,
                       plus_minus=args.plus_minus)
-    if res.warnings:
-        from comparo.errors import problems_frame
-        from comparo.outputs import print_problems
-
-        print_problems(problems_frame(res.warnings), stream=sys.stderr)
+    print_problems(res.warnings, stream=sys.stderr)  # repeated warnings summarised per rule and column
     if args.format == "json":
         print(dumps(res.to_dict()))
     else:

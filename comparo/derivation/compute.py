@@ -115,9 +115,12 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     uncertainty in measurement. JCGM 101:2008 Supplement 1 to the GUM — Propagation
     of distributions using a Monte Carlo method.
     """
-    from comparo.bounds import check_mc
+    from comparo.bounds import check_mapping, check_mc, check_seed, check_table
     from comparo.catalog import load_catalog, read_schema
 
+    check_table(table)
+    check_mapping(settings, "settings", "a mapping like the [derive] table of comparo.toml (a dict)")
+    seed = check_seed(seed, "seed")
     if isinstance(mc, np.integer):
         mc = int(mc)
     mc = check_mc(mc, len(table), option="mc")

@@ -266,6 +266,7 @@ class FitResult:
                         for _, r in table.iterrows()}
             points["basis"] = [by_label.get(str(lab), "") for lab in points["label"]]
         if ax is None:
+            plots.matplotlib_cache()
             import matplotlib.pyplot as plt
 
             with plt.rc_context(plots.STYLE):

@@ -4,6 +4,7 @@ flags, group comparisons, a breakpoint, a bootstrap and the refit without flagge
 
 from __future__ import annotations
 
+import time
 from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
@@ -112,7 +113,8 @@ def fit(
     """
     from comparo.bounds import check_finite, check_seed
 
-    seed = check_seed(seed)
+    ci, bootstrap = _check_arguments(table, x, y, by, taxon_col, ci, bootstrap)
+    seed = check_seed(seed, "seed")
     against = check_finite(renamed_against(pgls_options, against), "the slope to test against")
     log = _check_options(method, log, ci, bootstrap)
     if method == "pgls":
@@ -131,6 +133,12 @@ def fit(
     bootstrap = check_bootstrap(bootstrap, len(X), method)
     _check_points(method, X, Y, x, y, excluded)
     core = _core(method, X, Y, ci, against, seed)
+    if bootstrap and method in ("robust", "lts"):  # refitted per resample: bound by the time of one
+        from comparo.bounds import check_refits  # more fit (the first one pays for imports)
+
+        started = time.perf_counter()
+        _core(method, X, Y, ci, None, seed)
+        check_refits(bootstrap, len(X), time.perf_counter() - started, method)
     notes = [core.note] if core.note else []
     flags = flag_points(X, Y, labels, weights=core.weights if method == "robust" else None,
                         lts_std=core.lts_std if method == "lts" else None)
@@ -172,6 +180,22 @@ def _with_temperature(res: FitResult, table: pd.DataFrame, taxon_col: str) -> Fi
     left_out = {str(e.get("label")) for e in res.excluded}
     labels = [t for t in table[taxon_col].astype(str) if t not in left_out]
     return replace(res, temperature=fit_temperature(table, (res.x, res.y), labels, taxon_col))
+
+
+def _check_arguments(table: Any, x: Any, y: Any, by: Any, taxon_col: Any, ci: Any, bootstrap: Any) -> tuple[float, int]:
+    """The types of :func:`fit`'s arguments, and a label column given by name that is missing
+    (the default ``taxon`` may be absent: points are then named by row). Returns the level
+    and the resample count as float and int."""
+    from comparo.bounds import check_column, check_count, check_level, check_name, check_table
+
+    check_table(table)
+    check_name(x, "x")
+    check_name(y, "y")
+    check_name(by, "by", optional=True)
+    check_name(taxon_col, "taxon_col")
+    if taxon_col != "taxon":
+        check_column(table, taxon_col, "taxon_col")
+    return check_level(ci, "ci (--ci)"), check_count(bootstrap, "bootstrap")
 
 
 def _check_options(method: str, log: Any, ci: float, bootstrap: int) -> str:

@@ -26,6 +26,11 @@ if TYPE_CHECKING:  # pragma: no cover
 def _values_on_tree(tree: Any, values: Mapping[str, float]) -> tuple[FlatTree, np.ndarray, TipMatch, list[str], list[str]]:
     """Flat tree pruned to the tips with finite values; the values in tip order; the
     match; labels with non-finite values; pruned tips."""
+    import pandas as pd
+
+    from comparo.bounds import check_kind
+
+    check_kind(values, (Mapping, pd.Series), "values", "a mapping of tip label to value (a dict or a pandas Series)")
     topo = _as_topo(tree)
     labels = [str(k) for k in values]
     vals = {str(k): float(v) for k, v in values.items()}

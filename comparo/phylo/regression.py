@@ -207,6 +207,13 @@ def _line_keys(lf, n: int, ci: float, against: float | None) -> tuple[dict, dict
 
 def _check_options(table: pd.DataFrame, x: str, y: str, log: Any, ci: float, taxon_col: str, by: str | None) -> str:
     """Log base, confidence level and the columns named; returns the log base as text."""
+    from comparo.bounds import check_level, check_name, check_table
+
+    check_table(table)
+    for value, name in ((x, "x"), (y, "y"), (taxon_col, "taxon_col")):
+        check_name(value, name)
+    check_name(by, "by", optional=True)
+    check_level(ci)
     log = "none" if log is None else str(log)
     if log not in _LOGS:
         raise UsageError(f"log must be one of 10, e, none; got {log!r}")

@@ -120,10 +120,10 @@ def tree_signal(tree: Any, values: Mapping[str, float], permutations: int = 999,
     Pagel M (1999) Nature 401:877-884. Blomberg SP, Garland T, Ives AR (2003)
     Evolution 57:717-745.
     """
-    from comparo.bounds import check_permutations
+    from comparo.bounds import check_count, check_level, check_permutations
 
-    if isinstance(permutations, np.integer):
-        permutations = int(permutations)
+    permutations = check_count(permutations, "permutations")
+    ci = check_level(ci)
     ft, yv, match, missing, pruned = _values_on_tree(tree, values)
     n = ft.n_tips
     permutations = check_permutations(permutations, n)

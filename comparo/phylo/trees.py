@@ -9,7 +9,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from comparo.errors import InputError, Problem
+from comparo.errors import InputError, Problem, UsageError
 from comparo.newick import Topology
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -91,11 +91,20 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
     """
     from dendropy.utility.error import DataParseError
 
+    from comparo.bounds import check_kind
+
+    check_kind(path_or_newick, (str, Path), "path_or_newick", "a Newick file name or Newick text")
     src = str(path_or_newick)
     if src.lstrip().startswith(("(", "[")):
         name, text = _NEWICK_SOURCE, src
     else:
         name = src
+        from comparo.io import not_a_file
+
+        what = not_a_file(src)
+        if what is not None:
+            raise _tree_problem(name, "tree-file", f"the tree path is {what}, not a file",
+                                "give a Newick file (comparo does not read pipes or devices)")
         try:
             text = Path(src).read_text(encoding="utf-8-sig")
         except FileNotFoundError:
@@ -214,6 +223,9 @@ def _as_topo(tree: Any) -> _Topo:
         return tree
     if isinstance(tree, str | Path):
         tree = read_tree(tree)
+    elif not (isinstance(getattr(tree, "topology", None), _Topo) or hasattr(tree, "seed_node")):
+        raise UsageError(f"tree must be a Newick file name, Newick text or a tree from comparo.read_tree "
+                         f"(got {type(tree).__name__} {repr(tree)[:40]})")
     topo = _topology(tree)
     _check(topo, "tree")
     return topo

@@ -118,9 +118,12 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
     ReportResult
         ``ok`` is False when validation found errors; then report.html lists them.
     """
+    from comparo.bounds import check_count, check_path, check_seed
     from comparo.outputs import protecting, resolve_output
 
-    folder, out = Path(folder), Path(out_dir)
+    folder, out = check_path(folder, "folder"), check_path(out_dir, "out_dir")
+    seed = check_seed(seed, "seed")
+    sensitivity_draws = check_count(sensitivity_draws, "sensitivity_draws")
     with protecting([folder]):
         for name in ("", "report.html", "run.json", "tables", "figures"):  # links into the dataset
             resolve_output(out / name)
