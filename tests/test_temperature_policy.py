@@ -215,22 +215,17 @@ def test_per_taxon_temp_columns_and_mixed_temperatures(tmp_path):
     assert off.loc["Locusta migratoria", "frequency_observed_temp_c"] == 30.0
 
 
+def _fit_ols(d, *extra):
+    """comparo fit D --x body_mass --y frequency_observed --method ols, plus *extra*."""
+    return run_main("fit", str(d), "--x", "body_mass", "--y", "frequency_observed",
+                    "--method", "ols", *extra)
+
+
 def test_fit_says_what_was_rescaled(tmp_path):
     """fit JSON and text: how many values were rescaled, to what, the factor range (the
     factors by the standard Q10 rule, common practice) and the option that turns it off."""
     d = dataset(tmp_path)
-    out = run_main(
-        "fit",
-        str(d),
-        "--x",
-        "body_mass",
-        "--y",
-        "frequency_observed",
-        "--method",
-        "ols",
-        "--format",
-        "json",
-    )
+    out = _fit_ols(d, "--format", "json")
     assert out.returncode == 0, out.stderr
     t = json.loads(out.stdout)["temperature"]
     factors = [2.0 ** ((25 - 30) / 10), 2.0 ** ((25 - 28) / 10)]  # locust l2, bumblebee h3
@@ -244,26 +239,12 @@ def test_fit_says_what_was_rescaled(tmp_path):
         max(factors)
     )
     assert t["option"] == "--no-temperature"
-    text = run_main(
-        "fit", str(d), "--x", "body_mass", "--y", "frequency_observed", "--method", "ols"
-    ).stdout
+    text = _fit_ols(d).stdout
     assert (
         "2 of 6 temperature-sensitive value(s) rescaled to 25 °C" in text
         and "--no-temperature" in text
     )
-    off = run_main(
-        "fit",
-        str(d),
-        "--x",
-        "body_mass",
-        "--y",
-        "frequency_observed",
-        "--method",
-        "ols",
-        "--no-temperature",
-        "--format",
-        "json",
-    )
+    off = _fit_ols(d, "--no-temperature", "--format", "json")
     assert json.loads(off.stdout)["temperature"]["to"] == "off"
     assert math.isclose(json.loads(off.stdout)["temperature"]["rescaled"], 0)
 
