@@ -279,3 +279,26 @@ def test_axis_labels_and_report_say_the_temperature(tmp_path):
     rules = temperature_rules(h(load(dataset(tmp_path / "again", taxa=TAXA))))
     kept = rules[rules["rule"] == "as measured"]
     assert dict(zip(kept["quantity_key"], kept["rows"], strict=True)) == {"frequency_observed": 4}
+
+
+def test_the_tree_figure_says_the_temperature_as_the_scaling_axis_does():
+    """The report's tree figure (tips coloured by y) labels a temperature-sensitive y with
+    the temperature its values refer to, the same words as the scaling plot's axis; a
+    quantity that is not temperature-sensitive keeps its plain label."""
+    from support import DEMO
+
+    from comparo import fit
+    from comparo.plots import axis_label
+    from comparo.report import pieces
+
+    ds = load(DEMO)
+    table = per_taxon(ds)
+    res = fit(table, "body_mass", "frequency_observed", "pgls", tree=ds.tree)
+    pts = pieces.fit_points(res, table, "body_mass", "frequency_observed", None)
+    fig, text = pieces.tree_figure(ds, pts, {"y": "frequency_observed", "method": "pgls"}, None,
+                                   "fit", [], res.log, res.temperature)
+    bars = [ax.get_ylabel() or ax.get_xlabel() for ax in fig.axes]
+    expected = axis_label("frequency_observed", ds.catalog, res.temperature)
+    assert "at 25 °C" in expected
+    assert any(b.startswith(expected) for b in bars), bars
+    assert "at 25 °C" in text and "\n" not in text

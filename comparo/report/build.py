@@ -297,7 +297,7 @@ def _fit_one(run: _Run, i: int, a: dict, labels, any_pgls: bool, state: dict) ->
         if lf is not None:
             figs[f"{aid}_lambda"] = plots.render(lf)
     if ds.tree is not None and (method == "pgls" or (not state["tree_drawn"] and not any_pgls)):
-        drawn = pieces.tree_figure(ds, pts, a, labels, aid, run.notes, res.log)
+        drawn = pieces.tree_figure(ds, pts, a, labels, aid, run.notes, res.log, res.temperature)
         if drawn is not None:
             figs[f"{aid}_tree"] = plots.render(drawn[0])
             sec["tree_caption"] = drawn[1]

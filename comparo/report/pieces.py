@@ -134,8 +134,13 @@ def slope_label(res) -> str:
     return f"slope of {res.y} on {res.x} ({unit})"
 
 
-def tree_figure(ds, pts, a: dict, labels: dict | None, aid: str, notes: list[str], log: str):
+def tree_figure(ds, pts, a: dict, labels: dict | None, aid: str, notes: list[str], log: str,
+                temperature: dict | None = None):
     """The tree with the fit's y value of each fitted taxon at its tip, or None (with a note) if it cannot be drawn.
+
+    *temperature*: the fit's temperature summary (``FitResult.temperature``), so that the
+    colour bar of a temperature-sensitive y says the temperature its values refer to, as
+    the scaling plot's axis does.
 
     Returns (figure, text under the figure).
     """
@@ -153,11 +158,11 @@ def tree_figure(ds, pts, a: dict, labels: dict | None, aid: str, notes: list[str
     tip_of = m.tip_of
     values = {tip: yv[lab] for lab, tip in tip_of.items()}
     names = {tip: lab for lab, tip in tip_of.items()}
-    label = plots.axis_label(y, ds.catalog)
+    label = plots.axis_label(y, ds.catalog, temperature)
     positive = all(v > 0 for v in values.values() if v == v)
     fig = plots.tree_trait(ds.tree, values, label=label, names=names, log=log != "none" and positive,
                            title=f"{str(a.get('method', 'sma')).upper()} fit: {y} of each fitted taxon at its tip")
-    text = (f"Tips coloured by {y} of the {len(values)} fitted taxa ({label}); open tiles: "
+    text = (f"Tips coloured by {y} of the {len(values)} fitted taxa ({label.replace(chr(10), ' ')}); open tiles: "
             f"{len(m.tips_without_data)} tips without a fitted value.")
     if m.taxa_without_tips:
         text += f" Fitted taxa not in the tree ({len(m.taxa_without_tips)}): {', '.join(m.taxa_without_tips)}."
