@@ -61,12 +61,12 @@ def _against(given: list[str] | None) -> dict[str, float] | None:
 def run_multiple(args) -> int:
     """The multiple regression as text, JSON or CSV (the terms table)."""
     from comparo.commands.compare import _table, _tree_options
-    from comparo.lines.multiple import _check, multiple_fit
+    from comparo.lines.multiple import FIT_METHODS, _check, multiple_fit
 
     xs = list(dict.fromkeys(args.x))
     if len(xs) < len(args.x):
         raise UsageError("an --x is given twice")
-    _check(args.log, args.ci, args.method, len(xs))  # sma/ma (and robust, lts) with several predictors: exit 2
+    _check(args.log, args.ci, args.method, len(xs), FIT_METHODS)  # sma/ma, lts with several predictors: exit 2
     off = [flag for flag, name, default in _LINE_ONLY if getattr(args, name, default) not in (default, None)]
     if off:
         raise UsageError(f"{', '.join(off)} {'is' if len(off) == 1 else 'are'} not available with several "

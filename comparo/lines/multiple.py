@@ -20,9 +20,13 @@ from comparo.jsonsafe import finite_or_none as _f
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
-#: Methods that fit several predictors; model II lines (sma, ma) are for one predictor.
+#: Methods that compare models with several predictors (a maximum likelihood each).
 MULTIPLE_METHODS = ("ols", "pgls")
+#: Methods that fit several predictors; model II lines (sma, ma) are for one predictor, and
+#: robust (Huber) has no likelihood, so it fits but does not enter a model comparison.
+FIT_METHODS = ("ols", "robust", "pgls")
 _LOGS = ("10", "e", "none")
+_WEIGHT_CUT = 0.5  # low Huber weight, as the flags of a one-predictor robust line (common practice)
 
 
 def aicc(loglik: float, k: int, n: int) -> float:
@@ -73,7 +77,7 @@ class MultipleFit:
             "k": self.k, "ci_level": self.ci_level, "lambda": _f(self.lambda_),
             "lambda_ci": None if self.lambda_ci is None else [_f(v) for v in self.lambda_ci],
             "against": None if self.against is None else dict(self.against),
-            "likelihood": "ML", "outliers": [dict(o) for o in self.outliers], "flags_note": self.flags_note,
+            "likelihood": None if self.method == "robust" else "ML", "outliers": [dict(o) for o in self.outliers], "flags_note": self.flags_note,
             "excluded": [dict(e) for e in self.excluded],
         }
 
@@ -93,7 +97,11 @@ class MultipleFit:
             ci = f"[{_num(t['ci'][0])}, {_num(t['ci'][1])}]"
             lines.append(f"{t['term']:<{w}}  {_num(t['estimate']):>10}  {_num(t['se']):>9}  {ci:>23}  "
                          f"{_num(t['t']):>8}  {_num(t['p']):>9}")
-        lines.append(f"log-likelihood (ML) {self.loglik:.4f}, k = {self.k}, AICc {_num(self.aicc)}")
+        if self.method == "robust":
+            lines.append("Huber M-estimate (c = 1.345, MAD scale): t is the Wald z, p and CIs from the normal; "
+                         "no likelihood, so no AICc")
+        else:
+            lines.append(f"log-likelihood (ML) {self.loglik:.4f}, k = {self.k}, AICc {_num(self.aicc)}")
         if self.lambda_ is not None:
             how = "by ML" if self.lambda_estimated else "fixed"
             ci = "" if self.lambda_ci is None else f" [{self.lambda_ci[0]:.3f}, {self.lambda_ci[1]:.3f}]"
@@ -101,7 +109,8 @@ class MultipleFit:
         if self.against:
             a = self.against
             vals = ", ".join(f"{k} = {v:g}" for k, v in a["terms"].items())
-            lines.append(f"joint test of {vals}: F({a['df'][0]}, {a['df'][1]}) = {_num(a['statistic'])}, "
+            dist = f"F({a['df'][0]}, {a['df'][1]})" if a["df"][1] is not None else f"chi-square({a['df'][0]})"
+            lines.append(f"joint test of {vals}: {dist} = {_num(a['statistic'])}, "
                          f"p = {_num(a['p'])}" + (f" ({a['note']})" if a.get("note") else ""))
         if self.outliers:
             lines.append("flags:")
@@ -136,7 +145,8 @@ class Design:
         return np.column_stack(cols), ["intercept", *predictors, *self.dummies]
 
 
-def _check(log: Any, ci: float, method: str, n_predictors: int) -> str:
+def _check(log: Any, ci: float, method: str, n_predictors: int,
+           methods: Sequence[str] = MULTIPLE_METHODS) -> str:
     log = "none" if log is None else str(log)
     if log not in _LOGS:
         raise UsageError(f"log must be one of 10, e, none; got {log!r}")
@@ -146,8 +156,8 @@ def _check(log: Any, ci: float, method: str, n_predictors: int) -> str:
         raise UsageError(f"method {method} (model II) fits a line through one predictor; with {n_predictors} "
                          "predictors use --method ols or pgls (errors in y; log x measured with little error "
                          "relative to the scatter), or fit one predictor at a time with sma/ma")
-    if method not in MULTIPLE_METHODS:
-        raise UsageError(f"several predictors (or a factor) are fitted by {' or '.join(MULTIPLE_METHODS)}, not {method!r}")
+    if method not in methods:
+        raise UsageError(f"several predictors (or a factor) are fitted by {', '.join(methods)}, not {method!r}")
     return log
 
 
@@ -244,6 +254,8 @@ def fit_design(d: Design, y: str, predictors: Sequence[str], *, method: str = "o
         lf = _fit_lambda(d.tree, X, d.y, lambda_, None, False, ci)
         beta, cov, rss, loglik = lf.fit.beta, lf.fit.cov, lf.fit.rss, lf.loglik
         lam, lam_ci = lf.lam, lf.ci
+    elif method == "robust":
+        return _robust(d, y, predictors, X, names, ci, log, against)
     else:
         XtX = X.T @ X
         beta = np.linalg.solve(XtX, X.T @ d.y)
@@ -294,12 +306,14 @@ def point_flags(X: np.ndarray, y: np.ndarray, labels: Sequence[str], tree: Any =
     return out, ("flags on the phylogenetically whitened regression" if tree is not None else None)
 
 
-def wald_test(beta: np.ndarray, cov: np.ndarray, names: Sequence[str], values: Mapping[str, float], df: int,
-              lambda_estimated: bool = False) -> dict:
+def wald_test(beta: np.ndarray, cov: np.ndarray, names: Sequence[str], values: Mapping[str, float],
+              df: int | None, lambda_estimated: bool = False) -> dict:
     """Joint Wald test of H0: beta_j = v_j for the named terms, F = d'(R cov R')^-1 d / q
     with d = R beta - v, on F(q, n - p): the extra-sum-of-squares F of OLS, and of GLS at a
-    fixed lambda; with lambda estimated, lambda is treated as known (its estimate)."""
-    from scipy.special import fdtrc
+    fixed lambda; with lambda estimated, lambda is treated as known (its estimate). With
+    *df* None (the robust fit, whose covariance is asymptotic) W = d'(R cov R')^-1 d on a
+    chi-square with q df; ``df`` is then ``[q, None]``."""
+    from scipy.special import chdtrc, fdtrc
 
     from comparo.bounds import check_finite
 
@@ -313,10 +327,46 @@ def wald_test(beta: np.ndarray, cov: np.ndarray, names: Sequence[str], values: M
     R[np.arange(len(idx)), idx] = 1.0
     dvec = R @ beta - np.array([float(v) for v in values.values()])
     q = len(idx)
-    stat = float(dvec @ np.linalg.solve(R @ cov @ R.T, dvec)) / q
+    wald = float(dvec @ np.linalg.solve(R @ cov @ R.T, dvec))
+    if df is None:
+        return {"terms": {t: float(v) for t, v in values.items()}, "test": "chi-square (Wald)",
+                "statistic": _f(wald), "df": [q, None], "p": _f(chdtrc(q, wald)),
+                "note": "asymptotic: chi-square with q df on the robust covariance"}
+    stat = wald / q
     return {"terms": {t: float(v) for t, v in values.items()}, "test": "F (Wald)", "statistic": _f(stat),
             "df": [q, int(df)], "p": _f(fdtrc(q, df, stat)),
             "note": "conditional on the ML estimate of lambda, treated as known" if lambda_estimated else None}
+
+
+def _robust(d: Design, y: str, predictors: Sequence[str], X: np.ndarray, names: list[str], ci: float, log: str,
+            against: Mapping[str, float] | None) -> MultipleFit:
+    """Huber M-estimate of y on the columns of X (statsmodels RLM, c = 1.345 and MAD scale as the
+    one-predictor robust line): Wald z terms with normal p and CIs; no likelihood, so
+    loglik and AICc are NaN; flags: those of the least-squares fit and Huber weights below 0.5
+    (as the one-predictor robust line); *against* a chi-square Wald test on q df."""
+    import statsmodels.api as sm
+    from scipy.special import ndtr, ndtri
+
+    from comparo.lines.robust import HUBER_C
+
+    n, p = X.shape
+    res = sm.RLM(d.y, X, M=sm.robust.norms.HuberT(t=HUBER_C)).fit()
+    beta, cov = np.asarray(res.params, dtype=float), np.asarray(res.cov_params(), dtype=float)
+    zq = float(ndtri(0.5 + ci / 2.0))
+    terms = []
+    for name, b, s in zip(names, beta, np.sqrt(np.diag(cov)), strict=True):
+        z = b / s if s > 0 else math.nan
+        terms.append({"term": name, "estimate": _f(b), "se": _f(s), "ci": [_f(b - zq * s), _f(b + zq * s)],
+                      "t": _f(z), "p": _f(2.0 * ndtr(-abs(z))) if math.isfinite(z) else None})
+    test = None if not against else wald_test(beta, cov, names, against, None)
+    w = np.broadcast_to(np.asarray(res.weights, dtype=float), (n,))
+    outliers, note = point_flags(X, d.y, d.labels)
+    outliers += [{"label": lab, "reason": f"robust (Huber) weight below {_WEIGHT_CUT:g}", "statistic": float(wi)}
+                 for lab, wi in zip(d.labels, w, strict=True) if wi < _WEIGHT_CUT]
+    resid = d.y - X @ beta
+    return MultipleFit("robust", y, tuple(predictors), d.factor, d.reference, log, n, tuple(terms), math.nan, p + 1,
+                       math.nan, float(ci), rss=float(resid @ resid), excluded=d.excluded, against=test,
+                       outliers=tuple(outliers), flags_note=note)
 
 
 def _estimated(lambda_: Any) -> bool:
@@ -337,7 +387,7 @@ def multiple_fit(table: pd.DataFrame, y: str, predictors: Sequence[str], *, fact
     F test of those values (key ``against``).
     """
     predictors = list(predictors)
-    log = _check(log, ci, method, len(predictors))
+    log = _check(log, ci, method, len(predictors), FIT_METHODS)
     if method == "pgls" and tree is None:
         raise UsageError("method pgls needs a tree")
     d = design(table, y, predictors, factor=factor, log=log, taxon_col=taxon_col,
