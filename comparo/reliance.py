@@ -439,6 +439,20 @@ def _refit(ds, h, rows, changed, base_table, x, y, method, kwargs) -> tuple[FitR
     (:func:`comparo.curate.per_taxon` on their rows); the others keep their
     per-taxon values from ``base_table``.
     """
+    table = _rebuilt(ds, h, rows, changed, base_table)
+    if x not in table.columns or y not in table.columns:
+        return None, 0, f"no {x if x not in table.columns else y} values remain"
+    n_left = _points(table, x, y)
+    try:
+        return fit(table, x, y, method, **kwargs), n_left, None
+    except UsageError as exc:
+        return None, n_left, str(exc)
+
+
+def _rebuilt(ds, h, rows, changed, base_table, keep_cols: tuple[str, ...] = ()):
+    """The per-taxon table after a change of the rows flagged ``changed``: the taxa with a
+    changed row rebuilt from their rows, the others as in ``base_table``; *keep_cols* (e.g. a
+    factor) are carried over from ``base_table`` for the rebuilt taxa."""
     import pandas as pd
 
     from comparo.curate import per_taxon
@@ -447,15 +461,10 @@ def _refit(ds, h, rows, changed, base_table, x, y, method, kwargs) -> tuple[FitR
     sub_rows = rows[rows["accepted"].isin(touched)]
     sub = per_taxon(ds, harmonised=dataclasses.replace(h, rows=sub_rows))
     keep = base_table[~base_table["taxon"].isin(touched)]
-    sub = sub[[c for c in keep.columns if c in sub.columns]]
-    table = pd.concat([keep, sub], ignore_index=True).sort_values("taxon", kind="stable")
-    if x not in table.columns or y not in table.columns:
-        return None, 0, f"no {x if x not in table.columns else y} values remain"
-    n_left = _points(table, x, y)
-    try:
-        return fit(table, x, y, method, **kwargs), n_left, None
-    except UsageError as exc:
-        return None, n_left, str(exc)
+    sub = sub[[c for c in keep.columns if c in sub.columns]].copy()
+    for c in keep_cols:
+        sub[c] = sub["taxon"].map(base_table.drop_duplicates("taxon").set_index("taxon")[c])
+    return pd.concat([keep, sub], ignore_index=True).sort_values("taxon", kind="stable")
 
 
 def _points(table, x: str, y: str) -> int:
@@ -764,3 +773,175 @@ def sensitivity_by_group(dataset_or_table: Any, x: str, y: str, method: str = "s
         except UsageError as exc:
             out[g] = f"not computed for group {g}: {exc}"
     return out
+
+
+# --------------------------------------------------------------------------- several predictors
+
+
+@dataclass(frozen=True)
+class MultipleSensitivity:
+    """How much the coefficients of a multiple regression depend on single sources.
+
+    Attributes
+    ----------
+    method, y : str
+    predictors : tuple of str
+    terms : dict
+        term -> ``{"estimate", "se"}`` of the fit on all data (fitted log scale).
+    leave_one_source_out : list of dict or None
+        ``{"source_id", "n", "terms": {term: {"estimate", "shift_se"}}, "shift_se", "term",
+        "p", "flips", "note"}``, most influential first; ``shift_se`` of a term is
+        (b_without - b) / SE(b); the record's ``shift_se`` and ``term`` are those of the
+        predictor or factor term moved most (the intercept is reported, not ranked). ``p`` is
+        the joint ``against`` test's p without the source (None without ``against``).
+        None for a plain table.
+    verdict : str
+    unavailable : tuple of str
+    """
+
+    method: str
+    y: str
+    predictors: tuple[str, ...]
+    terms: dict
+    leave_one_source_out: list[dict] | None
+    verdict: str
+    unavailable: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        """JSON-safe dict: ``leave_one_source_out``, ``terms``, ``verdict``, ``unavailable``."""
+        return _json({"leave_one_source_out": self.leave_one_source_out, "terms": self.terms,
+                      "verdict": self.verdict, "unavailable": list(self.unavailable)})
+
+    def summary(self, top: int = 5) -> str:
+        """Plain-text account for people."""
+        f = _fmt
+        named = ", ".join(f"{t} {f(v['estimate'])} (SE {f(v['se'])})" for t, v in self.terms.items()
+                          if t != "intercept")
+        lines = [f"sensitivity of the {self.method.upper()} coefficients: {named}"]
+        if self.leave_one_source_out is not None:
+            lines.append(f"  leave one source out ({len(self.leave_one_source_out)} sources), most influential first:")
+            for r in self.leave_one_source_out[:top]:
+                if r["terms"] is None:
+                    lines.append(f"    without {r['source_id']:<12} {r['n']} taxa left  {r.get('note') or 'not refitted'}")
+                    continue
+                shifts = "  ".join(f"{t} {f(v['estimate'])} ({f(v['shift_se'])} SE)" for t, v in r["terms"].items()
+                                   if t != "intercept")
+                flip = "  flips the joint test" if r["flips"] else ""
+                lines.append(f"    without {r['source_id']:<12} n {r['n']:>4}  {shifts}{flip}")
+        lines += [f"  not available: {u}" for u in self.unavailable]
+        lines.append(f"  verdict: {self.verdict}")
+        return "\n".join(lines)
+
+
+def multiple_sensitivity(dataset_or_table: Any, y: str, predictors: list[str], method: str = "ols", *,
+                         factor: str | None = None, against: dict[str, float] | None = None, ci: float = 0.95,
+                         log: str = "10", temperature: bool = True, taxon_col: str = "taxon",
+                         progress: bool = False, **fit_options: Any) -> MultipleSensitivity:
+    """Leave-one-source-out for a multiple regression (:func:`comparo.lines.multiple_fit`).
+
+    Each source's rows are set aside in turn and the per-taxon table rebuilt as for the
+    one-predictor :func:`sensitivity` (a taxon measured by two sources keeps the other's
+    value); the model is refitted on it. ``shift_se`` = (b_without - b) / SE(b) for every
+    term. A plain table records no source per value, so the part is then unavailable.
+    *fit_options*: ``tree``, ``lambda_``, ``tree_labels`` for pgls. The jackknife and the
+    measurement-error Monte Carlo of the one-predictor sensitivity are not computed here.
+    """
+    import pandas as pd
+
+    from comparo.bounds import check_kind, check_level
+    from comparo.dataset import Dataset
+    from comparo.lines.multiple import multiple_fit
+
+    check_kind(dataset_or_table, (Dataset, pd.DataFrame), "dataset_or_table",
+               "a Dataset (comparo.load(FOLDER)) or a per-taxon DataFrame (comparo.per_taxon)")
+    ci = check_level(ci)
+    predictors = list(predictors)
+    kw = dict(factor=factor, method=method, log=str(log), ci=ci, taxon_col=taxon_col, against=against,
+              **fit_options)
+    ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
+    unavailable = []
+    if ds is not None:
+        from comparo.curate import harmonise, per_taxon
+
+        h = harmonise(ds, temperature=temperature)
+        table = per_taxon(ds, harmonised=h)
+    else:
+        table = dataset_or_table
+        unavailable.append("leave-one-source-out needs values with one source each (a plain table does "
+                           "not record the source of each value)")
+    base = multiple_fit(table, y, predictors, **kw)
+    terms = {t["term"]: {"estimate": t["estimate"], "se": t["se"]} for t in base.terms}
+    p_full = None if base.against is None else base.against["p"]
+    loso = None
+    if ds is not None:
+        missing = [c for c in [y, *predictors] if c not in table.columns]
+        if missing:
+            raise UsageError(f"{', '.join(map(repr, missing))} must be quantities of the dataset for "
+                             "leave-one-source-out (a derived column rests on several sources per taxon)")
+        rows = h.rows[h.rows["quantity_key"].isin([y, *predictors])].copy()
+        stems = (y, *predictors)
+        cols = [c for c in table.columns if c == "taxon" or c.startswith(stems) or c == factor]
+        base_table = table[list(dict.fromkeys(["taxon", *cols]))]
+        used = rows[rows["status"] == "used"]
+        loso = []
+        sources = sorted(used["source_id"].astype(str).unique())
+        with _progress_bar(progress, len(sources)) as bar:
+            task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
+            for sid in sources:
+                r = rows.copy()
+                changed = (r["source_id"].astype(str) == sid).to_numpy()
+                r.loc[changed, "status"] = "excluded"
+                sub = _rebuilt(ds, h, r, changed, base_table, keep_cols=(factor,) if factor else ())
+                loso.append(_multiple_record(sid, sub, y, predictors, kw, terms, p_full, 1 - ci))
+                if bar is not None:
+                    bar.update(task, advance=1)
+        loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None else 0.0)
+    verdict = _multiple_verdict(loso, against is not None)
+    return MultipleSensitivity(method, y, tuple(predictors), terms, loso, verdict, tuple(unavailable))
+
+
+def _multiple_record(sid: str, table, y: str, predictors: list[str], kw: dict, terms: dict, p_full, alpha: float) -> dict:
+    """One source left out: the refit's terms and shifts, or why there is none."""
+    import pandas as pd
+
+    from comparo.lines.multiple import multiple_fit
+
+    cols = [y, *predictors]
+    n_left = 0
+    if all(c in table.columns for c in cols):
+        n_left = int(table[cols].apply(pd.to_numeric, errors="coerce").notna().all(axis=1).sum())
+    try:
+        res = multiple_fit(table, y, predictors, **kw)
+    except UsageError as exc:
+        return {"source_id": sid, "n": n_left, "terms": None, "shift_se": None, "term": None, "p": None,
+                "flips": False, "note": str(exc)}
+    out, best = {}, (None, None)
+    for t in res.terms:
+        ref = terms[t["term"]]
+        shift = (t["estimate"] - ref["estimate"]) / ref["se"] if ref["se"] else None
+        shift = shift if shift is not None and math.isfinite(shift) else None
+        out[t["term"]] = {"estimate": t["estimate"], "shift_se": shift}
+        if t["term"] != "intercept" and shift is not None and (best[1] is None or abs(shift) > abs(best[1])):
+            best = (t["term"], shift)
+    p = None if res.against is None else res.against["p"]
+    return {"source_id": sid, "n": int(res.n), "terms": out, "shift_se": best[1], "term": best[0], "p": p,
+            "flips": _flips(p_full, p, alpha), "note": None}
+
+
+def _multiple_verdict(loso: list[dict] | None, tested: bool) -> str:
+    """One line from the leave-one-source-out numbers of a multiple regression."""
+    if loso is None:
+        return "source-level checks not available for a plain table"
+    if not loso:
+        return "no sources to leave out"
+    mark = f"{SHIFT_THRESHOLD:g} SE or more" + (" or flips the joint test" if tested else "")
+    hit = [r for r in loso if r["flips"] or (r["shift_se"] is not None and abs(r["shift_se"]) >= SHIFT_THRESHOLD)]
+    if not hit:
+        return f"no single source moves a coefficient by {mark}"
+    words = []
+    for r in hit[:3]:
+        bits = [f"{r['term']} {r['shift_se']:+.1f} SE"] if r["shift_se"] is not None else []
+        bits += ["flips the joint test"] if r["flips"] else []
+        words.append(f"{r['source_id']} ({', '.join(bits)})")
+    more = f" and {len(hit) - 3} more" if len(hit) > 3 else ""
+    return f"leaving out one source moves a coefficient by {mark}: {', '.join(words)}{more}"

@@ -10,7 +10,7 @@ from comparo.outputs import dumps, emit
 
 # options of the one-predictor fit that the multiple regression does not offer (yet)
 _LINE_ONLY = (("--by", "by", None), ("--bootstrap", "bootstrap", 0), ("--breakpoint", "breakpoint", False),
-              ("--drop-flagged", "drop_flagged", None), ("--sensitivity", "sensitivity", False),
+              ("--drop-flagged", "drop_flagged", None),
               ("--reml", "reml", False), ("--tip-se", "tip_se", False))
 
 
@@ -79,6 +79,11 @@ def run_multiple(args) -> int:
     opts = _tree_options(args) if args.method == "pgls" else {}
     result = multiple_fit(table, args.y, xs, factor=args.factor, method=args.method, log=args.log, ci=args.ci,
                           taxon_col=args.taxon_col, against=against, **opts)
+    sens = _sensitivity(args, xs, against, opts) if args.sensitivity else None
+    if sens is not None:
+        import dataclasses
+
+        result = dataclasses.replace(result, sensitivity=sens.to_dict())
     if args.format == "json":
         emit(dumps(result.to_dict()))
     elif args.format == "csv":
@@ -90,5 +95,22 @@ def run_multiple(args) -> int:
                  "ci_high": t["ci"][1], "t": t["t"], "p": t["p"]} for t in result.terms]
         sys.stdout.write(to_csv(pd.DataFrame(rows)))
     else:
-        emit(result.summary())
+        emit(result.summary() + ("" if sens is None else "\n" + sens.summary()))
     return 0
+
+
+def _sensitivity(args, xs: list[str], against, opts: dict):
+    """Leave one source out of the multiple regression (a dataset folder; a plain table says
+    it records no sources). --mc does not apply: no Monte Carlo with several predictors."""
+    from comparo.commands.fit import is_dataset, read_table
+    from comparo.reliance import multiple_sensitivity
+
+    if is_dataset(args.data):
+        from comparo.dataset import load
+
+        data = load(args.data)
+    else:
+        data = read_table(args.data, args.taxon_col, say=False)
+    return multiple_sensitivity(data, args.y, xs, args.method, factor=args.factor, against=against, ci=args.ci,
+                                log=args.log, temperature=not args.no_temperature, taxon_col=args.taxon_col,
+                                progress=sys.stderr.isatty(), **opts)

@@ -67,6 +67,7 @@ class MultipleFit:
     against: dict | None = None
     outliers: tuple[dict, ...] = field(default_factory=tuple)
     flags_note: str | None = None
+    sensitivity: dict | None = None  # leave one source out (comparo.reliance.multiple_sensitivity)
 
     def to_dict(self) -> dict:
         return {
@@ -78,7 +79,7 @@ class MultipleFit:
             "lambda_ci": None if self.lambda_ci is None else [_f(v) for v in self.lambda_ci],
             "against": None if self.against is None else dict(self.against),
             "likelihood": None if self.method == "robust" else "ML", "outliers": [dict(o) for o in self.outliers], "flags_note": self.flags_note,
-            "excluded": [dict(e) for e in self.excluded],
+            "excluded": [dict(e) for e in self.excluded], "sensitivity": self.sensitivity,
         }
 
     def summary(self) -> str:
