@@ -869,15 +869,16 @@ def multiple_sensitivity(dataset_or_table: Any, y: str, predictors: list[str], m
         table = dataset_or_table
         unavailable.append("leave-one-source-out needs values with one source each (a plain table does "
                            "not record the source of each value)")
+    missing = [c for c in [y, *predictors] if c not in table.columns]
+    if ds is not None and missing:
+        raise UsageError(f"{', '.join(map(repr, missing))} {'is not a quantity' if len(missing) == 1 else 'are not quantities'}"
+                         " of the dataset; leave-one-source-out needs measured quantities (a derived column "
+                         "rests on several sources per taxon)")
     base = multiple_fit(table, y, predictors, **kw)
     terms = {t["term"]: {"estimate": t["estimate"], "se": t["se"]} for t in base.terms}
     p_full = None if base.against is None else base.against["p"]
     loso = None
     if ds is not None:
-        missing = [c for c in [y, *predictors] if c not in table.columns]
-        if missing:
-            raise UsageError(f"{', '.join(map(repr, missing))} must be quantities of the dataset for "
-                             "leave-one-source-out (a derived column rests on several sources per taxon)")
         rows = h.rows[h.rows["quantity_key"].isin([y, *predictors])].copy()
         stems = (y, *predictors)
         cols = [c for c in table.columns if c == "taxon" or c.startswith(stems) or c == factor]
@@ -904,14 +905,18 @@ def _multiple_record(sid: str, table, y: str, predictors: list[str], kw: dict, t
     """One source left out: the refit's terms and shifts, or why there is none."""
     import pandas as pd
 
-    from comparo.lines.multiple import multiple_fit
+    from comparo.lines.multiple import design, fit_design
 
     cols = [y, *predictors]
     n_left = 0
     if all(c in table.columns for c in cols):
         n_left = int(table[cols].apply(pd.to_numeric, errors="coerce").notna().all(axis=1).sum())
-    try:
-        res = multiple_fit(table, y, predictors, **kw)
+    pgls = kw["method"] == "pgls"
+    try:  # multiple_fit without the flags (the refits need only the terms)
+        d = design(table, y, predictors, factor=kw["factor"], log=kw["log"], taxon_col=kw["taxon_col"],
+                   tree=kw.get("tree") if pgls else None, tree_labels=kw.get("tree_labels"))
+        res = fit_design(d, y, predictors, method=kw["method"], lambda_=kw.get("lambda_", "ml"), ci=kw["ci"],
+                         log=kw["log"], against=kw["against"])
     except UsageError as exc:
         return {"source_id": sid, "n": n_left, "terms": None, "shift_se": None, "term": None, "p": None,
                 "flips": False, "note": str(exc)}

@@ -116,3 +116,11 @@ def test_robust_sensitivity_runs(folder, capsys):
     s = multiple_sensitivity(load(folder), "frequency_observed", ["body_mass", "fiber_radius"], "robust")
     assert len(s.leave_one_source_out) == N_SRC
     assert all(math.isfinite(r["shift_se"]) for r in s.leave_one_source_out)
+
+
+def test_a_column_not_measured_in_the_dataset_exits_2(folder, capsys):
+    """A derived or unknown column cannot be left out source by source: exit 2 with the reason."""
+    assert main(["fit", str(folder), "--y", "frequency_observed", "--x", "body_mass", "--x", "no_such_column",
+                 "--method", "ols", "--sensitivity"]) == 2
+    err = capsys.readouterr().err
+    assert "'no_such_column'" in err and "Traceback" not in err
