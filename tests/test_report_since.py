@@ -91,6 +91,8 @@ def test_slopes_equal_the_diff_and_the_fit_on_each_version(run):
 def test_inputs_untouched_and_nothing_written_outside_the_output(run):
     assert _digest(run["old"]) == run["before"]["old"]
     assert _digest(run["new"]) == run["before"]["new"]
+    record = json.loads((run["out"] / "run.json").read_text(encoding="utf-8"))
+    assert record["since"]["inputs_sha256"] == run["before"]["old"]  # hashlib, file by file
     outside = {p for p in _tree(run["base"]) - run["listing"] if not p.startswith("out")}
     assert outside == set()
 

@@ -67,13 +67,16 @@ def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: b
     return ReportResult(str(out), False, result.n_errors, result.n_warnings, tables=("tables/problems.csv",))
 
 
-def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, draws: int, ok: bool) -> None:
+def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, draws: int, ok: bool,
+               since: Path | None = None) -> None:
     from comparo.outputs import atomic_write_text, dumps
 
     record = {"created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"), "dataset": folder.name,
               "inputs_sha256": input_hashes(folder), "settings": settings, "seed": int(seed),
               "temperature_normalised": bool(temperature), "sensitivity_draws": int(draws), "validation_ok": ok,
               "versions": package_versions()}
+    if since is not None:  # the older version of --since: what the "What changed" section compares with
+        record["since"] = {"dataset": since.name, "inputs_sha256": input_hashes(since)}
     atomic_write_text(out / "run.json", dumps(record) + "\n")
 
 
@@ -140,7 +143,7 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
         out.mkdir(parents=True, exist_ok=True)
         steps = _Steps(progress, 7 if since is None else 8)
         try:
-            return _build(folder, out, seed, temperature, steps, int(sensitivity_draws), old)
+            return _build(folder, out, seed, temperature, steps, int(sensitivity_draws), old, since)
         finally:
             steps.close()
 
@@ -185,10 +188,11 @@ class _Run:
     cycles: Any = None  # comparo.traces.TraceSet when the dataset has traces.csv
     comparisons: list[dict] = field(default_factory=list)
     since: Any = None  # comparo.versions.VersionDiff of the older version against this one
+    since_path: Path | None = None
 
 
 def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps, draws: int,
-           old: Any = None) -> ReportResult:
+           old: Any = None, since: Path | None = None) -> ReportResult:
     from comparo.curate import harmonise, per_taxon, review
     from comparo.provenance import audit
 
@@ -212,7 +216,7 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
         from comparo.versions import diff
 
         steps.step("comparing with the older version")
-        run.since = diff(old, run.ds, temperature=temperature, seed=seed)
+        run.since, run.since_path = diff(old, run.ds, temperature=temperature, seed=seed), since
     steps.step("drawing the regime, coverage and cycles")
     _overview_figures(run)
     _cycles(run)
@@ -458,7 +462,8 @@ def _write(run: _Run, out: Path) -> ReportResult:
         atomic_write_bytes(out / "figures" / f"{stem}.png", png)
         atomic_write_bytes(out / "figures" / f"{stem}.svg", svg)
     atomic_write_text(out / "report.html", report_html(run))
-    _write_run(out, run.folder, run.ds.settings or {}, run.seed, run.temperature, run.draws, ok=True)
+    _write_run(out, run.folder, run.ds.settings or {}, run.seed, run.temperature, run.draws, ok=True,
+               since=run.since_path)
     c = run.checked
     return ReportResult(str(out), True, c.n_errors, c.n_warnings,
                         figures=tuple(f"figures/{s}.{ext}" for s in run.figures for ext in ("png", "svg")),
