@@ -184,6 +184,8 @@ def build_parser() -> argparse.ArgumentParser:
     _output_dir_arg(p)
     p.add_argument("--seed", type=int, default=20240601)
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--since", metavar="OLD", default=None,
+                   help="an older version (folder or workbook): add a 'What changed' section")
     _temperature_arg(p)
 
     p = sub.add_parser("export", help="export to open data standards")
@@ -238,7 +240,7 @@ def _guard_output(args: argparse.Namespace) -> None:
 
 def _inputs(args: argparse.Namespace) -> list:
     """The command's input paths: every write of the command is refused on or inside them."""
-    names = ("dataset", "data", "tree", "wide", "sources", "map", "old", "new")
+    names = ("dataset", "data", "tree", "wide", "sources", "map", "old", "new", "since")
     return [getattr(args, name, None) for name in names]
 
 

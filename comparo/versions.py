@@ -311,6 +311,9 @@ def value_changes(old_table, new_table, renamed: dict[str, str], catalog=None) -
     quantities = list(dict.fromkeys([*qa, *qb]))
     ta = old_table.set_index(old_table["taxon"].map(lambda t: renamed.get(t, t)))
     tb = new_table.set_index("taxon")
+    # each .at below would deep-copy the tables' attrs (pandas __finalize__): per-taxon tables
+    # carry large ones, which made this loop quadratic in practice; these copies need none
+    ta.attrs, tb.attrs = {}, {}
     taxa = list(dict.fromkeys([*tb.index, *ta.index]))
     out = []
     for t in taxa:

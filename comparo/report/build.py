@@ -67,13 +67,16 @@ def _write_error_page(out: Path, folder: Path, result, seed: int, temperature: b
     return ReportResult(str(out), False, result.n_errors, result.n_warnings, tables=("tables/problems.csv",))
 
 
-def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, draws: int, ok: bool) -> None:
+def _write_run(out: Path, folder: Path, settings: dict, seed: int, temperature: bool, draws: int, ok: bool,
+               since: Path | None = None) -> None:
     from comparo.outputs import atomic_write_text, dumps
 
     record = {"created_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"), "dataset": folder.name,
               "inputs_sha256": input_hashes(folder), "settings": settings, "seed": int(seed),
               "temperature_normalised": bool(temperature), "sensitivity_draws": int(draws), "validation_ok": ok,
               "versions": package_versions()}
+    if since is not None:  # the older version of --since: what the "What changed" section compares with
+        record["since"] = {"dataset": since.name, "inputs_sha256": input_hashes(since)}
     atomic_write_text(out / "run.json", dumps(record) + "\n")
 
 
@@ -100,7 +103,8 @@ class _Steps:
 
 
 def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 20240601, temperature: bool = True,
-                 progress: bool = False, sensitivity_draws: int = SENSITIVITY_DRAWS) -> ReportResult:
+                 progress: bool = False, sensitivity_draws: int = SENSITIVITY_DRAWS,
+                 since: str | Path | None = None) -> ReportResult:
     """Run the pipeline on a dataset folder and write the report into *out_dir*.
 
     Parameters
@@ -119,20 +123,40 @@ def build_report(folder: str | Path, out_dir: str | Path, *, seed: int = 2024060
         ``ok`` is False when validation found errors; then report.html lists them.
     """
     from comparo.bounds import check_count, check_path, check_seed
+    from comparo.errors import UsageError
     from comparo.outputs import protecting, resolve_output
 
     folder, out = check_path(folder, "folder"), check_path(out_dir, "out_dir")
     seed = check_seed(seed, "seed")
     sensitivity_draws = check_count(sensitivity_draws, "sensitivity_draws")
-    with protecting([folder]):
-        for name in ("", "report.html", "run.json", "tables", "figures"):  # links into the dataset
+    old = None
+    if since is not None:
+        since = check_path(since, "since")
+        if not since.exists():
+            raise UsageError(f"since: the older version {since} does not exist "
+                             "(give its dataset folder or workbook)")
+    with protecting([folder] if since is None else [folder, since]):
+        for name in ("", "report.html", "run.json", "tables", "figures"):  # links into the inputs
             resolve_output(out / name)
+        if since is not None:
+            old = _load_old(since)
         out.mkdir(parents=True, exist_ok=True)
-        steps = _Steps(progress, 7)
+        steps = _Steps(progress, 7 if since is None else 8)
         try:
-            return _build(folder, out, seed, temperature, steps, int(sensitivity_draws))
+            return _build(folder, out, seed, temperature, steps, int(sensitivity_draws), old, since)
         finally:
             steps.close()
+
+
+def _load_old(since: Path):
+    """The older version given with ``since``; its problems name it (exit 2)."""
+    from comparo.dataset import load
+    from comparo.errors import InputError
+
+    try:
+        return load(since)
+    except InputError as exc:
+        raise InputError(exc.problems, f"since: the older version {since} has problems:\n{exc}") from None
 
 
 @dataclass
@@ -163,9 +187,12 @@ class _Run:
     frames: dict[str, Any] = field(default_factory=dict)
     cycles: Any = None  # comparo.traces.TraceSet when the dataset has traces.csv
     comparisons: list[dict] = field(default_factory=list)
+    since: Any = None  # comparo.versions.VersionDiff of the older version against this one
+    since_path: Path | None = None
 
 
-def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps, draws: int) -> ReportResult:
+def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps, draws: int,
+           old: Any = None, since: Path | None = None) -> ReportResult:
     from comparo.curate import harmonise, per_taxon, review
     from comparo.provenance import audit
 
@@ -185,6 +212,11 @@ def _build(folder: Path, out: Path, seed: int, temperature: bool, steps: _Steps,
     _compare_all(run)
     steps.step("sensitivity: sources, bases, taxa, measurement error")
     _sensitivity_all(run)
+    if old is not None:
+        from comparo.versions import diff
+
+        steps.step("comparing with the older version")
+        run.since, run.since_path = diff(old, run.ds, temperature=temperature, seed=seed), since
     steps.step("drawing the regime, coverage and cycles")
     _overview_figures(run)
     _cycles(run)
@@ -424,15 +456,19 @@ def _write(run: _Run, out: Path) -> ReportResult:
     if run.comparisons:
         shown = [{k: v for k, v in c.items() if k not in ("frame", "summary")} for c in run.comparisons]
         atomic_write_text(out / "tables" / "comparisons.json", dumps(shown) + "\n")
+    if run.since is not None:
+        atomic_write_text(out / "tables" / "since.json", dumps(run.since.to_dict()) + "\n")
     for stem, (png, svg) in run.figures.items():
         atomic_write_bytes(out / "figures" / f"{stem}.png", png)
         atomic_write_bytes(out / "figures" / f"{stem}.svg", svg)
     atomic_write_text(out / "report.html", report_html(run))
-    _write_run(out, run.folder, run.ds.settings or {}, run.seed, run.temperature, run.draws, ok=True)
+    _write_run(out, run.folder, run.ds.settings or {}, run.seed, run.temperature, run.draws, ok=True,
+               since=run.since_path)
     c = run.checked
     return ReportResult(str(out), True, c.n_errors, c.n_warnings,
                         figures=tuple(f"figures/{s}.{ext}" for s in run.figures for ext in ("png", "svg")),
                         tables=tuple(f"tables/{n}.csv" for n in run.tables) + ("tables/fits.json", "tables/sensitivity.json")
-                        + (("tables/comparisons.json",) if run.comparisons else ()),
+                        + (("tables/comparisons.json",) if run.comparisons else ())
+                        + (("tables/since.json",) if run.since is not None else ()),
                         fits=tuple(run.fits), notes=tuple(run.notes),
                         sensitivity=tuple({"id": k, "verdict": v["result"].verdict} for k, v in run.sens.items()))

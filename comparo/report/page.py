@@ -78,6 +78,31 @@ def _comparison_views(run) -> list[dict]:
     return views
 
 
+def _since_view(run) -> dict | None:
+    """The "What changed" section: the conclusions of the older version against this one first
+    (slopes, intervals, shift in standard errors, verdicts; regimes), then counts and every list."""
+    import pandas as pd
+
+    d = getattr(run, "since", None)
+    if d is None:
+        return None
+    ci = lambda c, i: None if c is None else c[i]  # noqa: E731
+    analyses = pd.DataFrame(
+        [{"analysis": a["name"], "slope_old": a["slope_old"], "ci_low_old": ci(a["ci_old"], 0),
+          "ci_high_old": ci(a["ci_old"], 1), "slope_new": a["slope_new"], "ci_low_new": ci(a["ci_new"], 0),
+          "ci_high_new": ci(a["ci_new"], 1), "shift_se": a["shift_se"], "tested_value": a["tested_value"],
+          "verdict_old": a["verdict_old"], "verdict_new": a["verdict_new"],
+          "verdict_changed": a["verdict_changed"]} for a in d.analyses],
+        columns=["analysis", "slope_old", "ci_low_old", "ci_high_old", "slope_new", "ci_low_new",
+                 "ci_high_new", "shift_se", "tested_value", "verdict_old", "verdict_new", "verdict_changed"])
+    regimes = pd.DataFrame(list(d.regimes), columns=["taxon", "old", "new"])
+    counts = d.summary().split("\nCounts\n", 1)[1].split("\n\nDetails", 1)[0] if d.differs else ""
+    frame = d.to_frame()
+    return {"old": d.old, "differs": d.differs, "analyses": analyses, "regimes": regimes,
+            "counts": [line.strip() for line in counts.splitlines() if line.strip()],
+            "frame": frame.loc[~frame["section"].isin(["analysis", "regime"])]}
+
+
 def _regime_view(run) -> dict:
     d = run.derived
     if "regime" not in run.figures:
@@ -124,7 +149,7 @@ def report_html(run) -> str:
         n_warnings=run.checked.n_warnings, n_notes=run.checked.n_notes, audit_summary=run.aud.summary(),
         notes=render.grouped_notes(run.notes), analyses=[_analysis_view(run, s) for s in run.sections],
         flags_frame=run.frames["flags"], sensitivity=[_sensitivity_view(run, s) for s in run.sections],
-        comparisons=_comparison_views(run), weight_caution=WEIGHT_CAUTION,
+        comparisons=_comparison_views(run), weight_caution=WEIGHT_CAUTION, since=_since_view(run),
         draws=int(run.draws), regime=_regime_view(run), cycles=_cycles_view(run),
         coverage=render.fig(run.figures, "coverage", "coverage map"),
         sources_fig=render.fig(run.figures, "sources", "source contributions"),
