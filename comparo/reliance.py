@@ -87,7 +87,7 @@ class SensitivityResult:
     unavailable: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
-        """JSON-safe dict with the keys of the ``"sensitivity"`` contract (DESIGN.md)."""
+        """JSON-safe dict with the keys of the ``"sensitivity"`` contract (docs/sensitivity.md)."""
         return _json({
             "leave_one_source_out": self.leave_one_source_out,
             "by_basis": self.by_basis,

@@ -16,7 +16,7 @@ def test_every_public_name_resolves():
 
 
 def test_no_module_shares_a_public_function_name():
-    """``comparo.fit(...)`` as DESIGN.md writes it: no module of the API layer is named like
+    """``comparo.fit(...)`` as README.md and docs/notebook.md write it: no module of the API layer is named like
     a public function, so importing every module cannot turn a function into a module.
     (comparo.commands holds one module per CLI verb, reached only by its full name.)"""
     import pkgutil

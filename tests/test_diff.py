@@ -30,8 +30,8 @@ ROWS = [
     "o6,Bombus terrestris,frequency_observed,150,Hz,4,se,,s2,Table 2,reported,25",
     "o7,Vespula vulgaris,body_mass,90,mg,,,,s1,Table 1,reported,",
     "o8,Vespula vulgaris,frequency_observed,160,Hz,5,se,,s1,Table 2,reported,25",
-    "o9,Drosophila melanogaster,body_mass,1,mg,,,,s3,p. 4,reported,",
-    "o10,Drosophila melanogaster,frequency_observed,220,Hz,8,se,,s3,p. 4,reported,25",
+    "o9,Delia radicum,body_mass,1,mg,,,,s3,p. 4,reported,",
+    "o10,Delia radicum,frequency_observed,220,Hz,8,se,,s3,p. 4,reported,25",
     "o11,Tipula paludosa,body_mass,60,mg,,,,s3,p. 5,reported,",
     "o12,Tipula paludosa,frequency_observed,55,Hz,3,se,,s3,p. 5,reported,25",
     "o13,Apis mellifera,fiber_radius,12,um,,,,s1,Table 3,reported,",
@@ -46,11 +46,11 @@ SOURCES = (
 TAXA = (
     "taxon,accepted_name,clade\n"
     "Apis mellifera,,Hymenoptera\nBombus terrestris,,Hymenoptera\nVespula vulgaris,,Hymenoptera\n"
-    "Musca domestica,,Diptera\nDrosophila melanogaster,,Diptera\nTipula paludosa,,Diptera\n"
+    "Musca domestica,,Diptera\nDelia radicum,,Diptera\nTipula paludosa,,Diptera\n"
 )
 TREE = (
     "(((Apis_mellifera:1,Bombus_terrestris:1):1,Vespula_vulgaris:2):2,"
-    "((Musca_domestica:1,Drosophila_melanogaster:1):1,Tipula_paludosa:2):2);\n"
+    "((Musca_domestica:1,Delia_radicum:1):1,Tipula_paludosa:2):2);\n"
 )
 SETTINGS = (
     'reference_temperature_c = 25.0\n\n[[analysis]]\nx = "body_mass"\ny = "frequency_observed"\n'
@@ -195,7 +195,7 @@ def test_analysis_slopes_agree_with_the_fit_and_with_statsmodels(versions, resul
 
 
 def test_a_verdict_that_flips_is_reported(tmp_path):
-    """Drosophila at 1000 Hz and Tipula at 160 Hz make the OLS slope steep enough that its 95%
+    """Delia at 1000 Hz and Tipula at 160 Hz make the OLS slope steep enough that its 95%
     interval lies below -0.1 (checked with statsmodels on the new version)."""
     import statsmodels.api as sm
 

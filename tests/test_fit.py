@@ -32,7 +32,7 @@ def _table(n: int = 30, slope: float = 0.75, seed: int = 1, sd: float = 0.1) -> 
 
 @pytest.mark.parametrize("method", ["ols", "sma", "ma", "robust", "lts"])
 def test_to_dict_has_exactly_the_contract_keys_and_is_strict_json(method):
-    """Common practice: the JSON contract of DESIGN.md; strict JSON (no NaN)."""
+    """Common practice: the JSON contract of docs/cli.md; strict JSON (no NaN)."""
     r = fit(_table(), "body_mass", "freq", method, against=0.75)
     d = r.to_dict()
     assert set(d) == CONTRACT_KEYS

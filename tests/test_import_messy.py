@@ -32,7 +32,7 @@ ROWS = [
     ["Apis mellifera", "s1", "0.1", "230", "12"],
     ["Bombus terrestris", "s1", "0.2", "150", "14"],
     ["Manduca sexta", "s2", "1.6", "25", "20"],
-    ["Drosophila melanogaster", "s2", "0.001", "200", "5"],
+    ["Delia radicum", "s2", "0.001", "200", "5"],
 ]
 
 

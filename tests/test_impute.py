@@ -23,14 +23,14 @@ ROWS = [  # invented values for the test (not the demo)
     "o5,Vespula vulgaris,body_mass,90,mg,,,,s1,Table 1,reported,,,",
     "o6,Musca domestica,body_mass,20,mg,,,,s1,Table 1,reported,,,",
     "o7,Calliphora vicina,body_mass,60,mg,,,,s1,Table 1,reported,,,",
-    "o8,Drosophila melanogaster,body_mass,1,mg,,,,s1,Table 1,reported,,,",
+    "o8,Delia radicum,body_mass,1,mg,,,,s1,Table 1,reported,,,",
     "o9,Manduca sexta,fiber_radius,30,um,,,,s1,Table 2,reported,,,",
     "o10,Anax junius,fiber_radius,25,um,,,,s1,Table 2,reported,,,",
     "o11,Bombyx mori,body_mass,1.5,g,,,,s1,Table 3,reported,,,",
 ]
 TREE = ("(((((Apis_mellifera:2,(Bombus_terrestris:0.5,Bombus_pascuorum:0.5):1.5):1,(Vespa_crabro:1,"
         "Vespula_vulgaris:1):2):2,Manduca_sexta:5):1,(((Musca_domestica:1,Calliphora_vicina:1):2,"
-        "Drosophila_melanogaster:3):2,Aedes_aegypti:5):1):2,Anax_junius:8);")
+        "Delia_radicum:3):2,Aedes_aegypti:5):1):2,Anax_junius:8);")
 SOURCES = "source_id,citation,year,doi\ns1,Invented A. (2001) Test source one,2001,10.1000/abc\n"
 
 

@@ -24,12 +24,12 @@ o3,Bombus terrestris,body_mass,200,mg,s1,Table 1,reported,,
 o4,Bombus terrestris,frequency_observed,150,Hz,s1,Table 2,reported,30,in_vivo
 o5,Manduca sexta,body_mass,1.6,g,s1,Table 1,reported,,
 o6,Manduca sexta,frequency_observed,25,Hz,s1,Table 2,reported,30,in_vivo
-o7,Drosophila melanogaster,body_mass,1,mg,s1,Table 1,reported,,
-o8,Drosophila melanogaster,frequency_observed,200,Hz,s1,Table 2,reported,30,in_vivo
-o9,Drosophila melanogaster,twitch_span,3,ms,s1,p. 3,reported,,
+o7,Delia radicum,body_mass,1,mg,s1,Table 1,reported,,
+o8,Delia radicum,frequency_observed,200,Hz,s1,Table 2,reported,30,in_vivo
+o9,Delia radicum,twitch_span,3,ms,s1,p. 3,reported,,
 """
 SOURCES = "source_id,citation,year\ns1,Invented A. (2001) A test source,2001\n"
-TREE = "((Apis_mellifera:1,Bombus_terrestris:1):2,(Manduca_sexta:2,Drosophila_melanogaster:2):1);\n"
+TREE = "((Apis_mellifera:1,Bombus_terrestris:1):2,(Manduca_sexta:2,Delia_radicum:2):1);\n"
 # a quantity of the dataset's own: the workbook is only valid when comparo.toml beside it is read
 SETTINGS = '[quantities.twitch_span]\nunit = "ms"\nkind = "time"\nrange = [0.1, 1000]\n'
 

@@ -102,7 +102,7 @@ def phylo_fit(
     Returns
     -------
     dict
-        The ``fit --format json`` keys (see DESIGN.md), plus: ``slope_se``,
+        The ``fit --format json`` keys (docs/cli.md), plus: ``slope_se``,
         ``intercept_se``, ``sigma2`` (BM rate, fitted-scale units² per branch-length
         unit), ``df``, ``likelihood`` ("ML" or "REML"), ``loglik_convention``,
         ``r2_kind``, ``lambda_tests`` (``lambda_0``, ``lambda_1``: loglik, statistic,

@@ -59,7 +59,7 @@ def pagel(C: np.ndarray, lam: float) -> np.ndarray:
 
 
 def dense_loglik(C, X, y, reml=False):
-    """Profile (RE)ML log-likelihood of GLS with V = sigma² C (METHODS.md §4 formulas)."""
+    """Profile (RE)ML log-likelihood of GLS with V = sigma² C (formulas: docs/methods/phylogenetics.md)."""
     n, p = X.shape
     Ci = np.linalg.inv(C)
     XtX = X.T @ Ci @ X
@@ -86,7 +86,9 @@ def simulate(newick: str, seed: int, lam: float = 1.0):
 
 
 def test_four_tip_worked_example_covariance_and_gls():
-    """METHODS.md §4 worked example [C] (dendropy + numpy), with C written out by hand:
+    """Four-tip worked example, from memory (computed by hand with dense linear algebra; the
+    formulas are in docs/methods/phylogenetics.md), checked here with dendropy + numpy and C
+    written out by hand:
     C = [[2,1,0,0],[1,3,0,0],[0,0,2,0.5],[0,0,0.5,1]] (root-to-MRCA lengths), |C| = 8.75."""
     C = np.array([[2, 1, 0, 0], [1, 3, 0, 0], [0, 0, 2, 0.5], [0, 0, 0.5, 1.0]])
     assert np.linalg.det(C) == pytest.approx(8.75, rel=1e-12)
@@ -109,7 +111,7 @@ def test_four_tip_worked_example_covariance_and_gls():
 
 
 def test_four_tip_worked_example_pgls():
-    """METHODS.md §4 [C]: beta = (0.369110, 1.143455), l_ML -0.432041, l_REML -2.299894,
+    """Four-tip worked example, from memory: beta = (0.369110, 1.143455), l_ML -0.432041, l_REML -2.299894,
     se(slope) 0.164279, 95% CI (0.436618, 1.850293) with t(2)."""
     df = pd.DataFrame({"taxon": list("ABCD"), "x": X4, "y": Y4})
     r = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
@@ -125,7 +127,7 @@ def test_four_tip_worked_example_pgls():
 
 
 def test_four_tip_worked_example_lambda_tree():
-    """METHODS.md §4 [C]: the lambda = 0.5 tree is ((A:1.5,B:2.5):0.5,(C:1.75,D:0.75):0.25);
+    """Four-tip worked example, from memory: the lambda = 0.5 tree is ((A:1.5,B:2.5):0.5,(C:1.75,D:0.75):0.25);
     l_ML = -0.225777, -0.362228, -0.432041 at lambda 0, 0.5, 1; the ML lambda is 0."""
     ft = phylo.flat_tree(phylo.read_tree(FOUR))
     half = phylo.flat_tree(phylo.read_tree("((A:1.5,B:2.5):0.5,(C:1.75,D:0.75):0.25);"))
@@ -140,7 +142,7 @@ def test_four_tip_worked_example_lambda_tree():
 
 
 def test_four_tip_worked_example_contrasts_and_k():
-    """METHODS.md §4 [C]: contrasts (first child - second) x -0.577350, -0.707107, -1.515854;
+    """Four-tip worked example, from memory: contrasts (first child - second) x -0.577350, -0.707107, -1.515854;
     y -0.808290, -1.131371, -1.526308; slope through the origin 1.143455 = GLS slope;
     root y 2.562295 = GLS mean; K(y) 0.783913, K(x) 0.957122."""
     tree = phylo.read_tree(FOUR)
@@ -164,7 +166,7 @@ def test_four_tip_worked_example_contrasts_and_k():
 
 
 def test_four_tip_worked_example_measurement_error():
-    """METHODS.md §4 [C] (Ives, Midford & Garland 2007, Syst Biol 56:252-270 model):
+    """Four-tip worked example, from memory (Ives, Midford & Garland 2007, Syst Biol 56:252-270 model):
     se² = (0.1, 0.2, 0, 0.3), sigma² = 1: ln|V| 2.598384, beta = (0.375853, 1.128912)."""
     ft = phylo.flat_tree(phylo.read_tree(FOUR))
     idx = ft.index(list("ABCD"))
