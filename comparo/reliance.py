@@ -18,6 +18,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -35,6 +36,19 @@ BASIS_STEPS = ("reported", "computed", "digitized", "proxy", "assumed")
 SHIFT_THRESHOLD = 1.0
 _MOMENT_METHODS = ("ols", "sma", "ma")
 
+
+
+def _loso_lines(rows: list[dict], total: int, fitted: str, refit: Callable[[dict], str]) -> list[str]:
+    """The leave-one-source-out lines of a summary: a heading for *total* sources, then one
+    line per row of *rows*: ``refit(row)`` when its *fitted* key holds a refit, else why not."""
+    out = [f"  leave one source out ({total} sources), most influential first:"]
+    for r in rows:
+        head = f"    without {r['source_id']:<12} "
+        if r[fitted] is None:
+            out.append(f"{head}{r['n']} taxa left  {r.get('note') or 'not refitted'}")
+        else:
+            out.append(f"{head}n {r['n']:>4}  {refit(r)}")
+    return out
 
 @dataclass(frozen=True)
 class SensitivityResult:
@@ -128,15 +142,14 @@ class SensitivityResult:
         f = _fmt
         lines = [f"sensitivity of the {self.method.upper()} slope {f(self.slope)} (SE {f(self.slope_se)})"]
         if self.leave_one_source_out is not None:
-            lines.append(f"  leave one source out ({len(self.leave_one_source_out)} sources), most influential first:")
-            for r in self.leave_one_source_out[:top]:
-                if r["slope"] is None:
-                    lines.append(f"    without {r['source_id']:<12} {r['n']} taxa left  {r.get('note') or 'not refitted'}")
-                    continue
+
+            def refit(r: dict) -> str:
                 lo, hi = r["slope_ci"]
                 flip = "  flips the test" if r["flips"] else ""
-                lines.append(f"    without {r['source_id']:<12} n {r['n']:>4}  slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}  "
-                             f"p {f(r['p'])}  shift {f(r['shift_se'])} SE{flip}")
+                return (f"slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}  p {f(r['p'])}  "
+                        f"shift {f(r['shift_se'])} SE{flip}")
+
+            lines += _loso_lines(self.leave_one_source_out[:top], len(self.leave_one_source_out), "slope", refit)
         if self.by_basis is not None:
             lines.append("  by basis (cumulative):")
             for r in self.by_basis:
@@ -607,23 +620,29 @@ def sensitivity(
 
 def _leave_one_source_out(rows, used, refit, base: FitResult, se: float, p_full, alpha: float, progress: bool) -> list[dict]:
     """Refit without each source in turn; most influential (largest |shift_se|) first."""
-    sources = sorted(used["source_id"].astype(str).unique())
     loso = []
+    for sid, r, changed in _without_each_source(rows, used, progress):
+        res, n_left, why = refit(rows=r, changed=changed)
+        rec = {"source_id": sid, **_record(res, base.slope, se, n_left, why)}
+        rec["flips"] = _flips(p_full, rec["p"], alpha)
+        loso.append(rec)
+    loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None and math.isfinite(d["shift_se"]) else 0.0)
+    return loso
+
+
+def _without_each_source(rows, used, progress: bool):
+    """For each source of the *used* rows, in order of its id: ``(source_id, rows with that
+    source's rows excluded, mask of those rows)``, with a progress bar when asked."""
+    sources = sorted(used["source_id"].astype(str).unique())
     with _progress_bar(progress, len(sources)) as bar:
         task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
         for sid in sources:
             r = rows.copy()
             changed = (r["source_id"].astype(str) == sid).to_numpy()
             r.loc[changed, "status"] = "excluded"
-            res, n_left, why = refit(rows=r, changed=changed)
-            rec = {"source_id": sid, **_record(res, base.slope, se, n_left, why)}
-            rec["flips"] = _flips(p_full, rec["p"], alpha)
-            loso.append(rec)
+            yield sid, r, changed
             if bar is not None:
                 bar.update(task, advance=1)
-    loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None and math.isfinite(d["shift_se"]) else 0.0)
-    return loso
-
 
 def _basis_steps(rows, used, refit, base: FitResult, alpha: float) -> list[dict]:
     """Refit on the reported values only, then adding one weaker basis at a time."""
@@ -819,15 +838,13 @@ class MultipleSensitivity:
                           if t != "intercept")
         lines = [f"sensitivity of the {self.method.upper()} coefficients: {named}"]
         if self.leave_one_source_out is not None:
-            lines.append(f"  leave one source out ({len(self.leave_one_source_out)} sources), most influential first:")
-            for r in self.leave_one_source_out[:top]:
-                if r["terms"] is None:
-                    lines.append(f"    without {r['source_id']:<12} {r['n']} taxa left  {r.get('note') or 'not refitted'}")
-                    continue
-                shifts = "  ".join(f"{t} {f(v['estimate'])} ({f(v['shift_se'])} SE)" for t, v in r["terms"].items()
-                                   if t != "intercept")
-                flip = "  flips the joint test" if r["flips"] else ""
-                lines.append(f"    without {r['source_id']:<12} n {r['n']:>4}  {shifts}{flip}")
+
+            def refit(r: dict) -> str:
+                shifts = "  ".join(f"{t} {f(v['estimate'])} ({f(v['shift_se'])} SE)"
+                                   for t, v in r["terms"].items() if t != "intercept")
+                return shifts + ("  flips the joint test" if r["flips"] else "")
+
+            lines += _loso_lines(self.leave_one_source_out[:top], len(self.leave_one_source_out), "terms", refit)
         lines += [f"  not available: {u}" for u in self.unavailable]
         lines.append(f"  verdict: {self.verdict}")
         return "\n".join(lines)
@@ -885,17 +902,9 @@ def multiple_sensitivity(dataset_or_table: Any, y: str, predictors: list[str], m
         base_table = table[list(dict.fromkeys(["taxon", *cols]))]
         used = rows[rows["status"] == "used"]
         loso = []
-        sources = sorted(used["source_id"].astype(str).unique())
-        with _progress_bar(progress, len(sources)) as bar:
-            task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
-            for sid in sources:
-                r = rows.copy()
-                changed = (r["source_id"].astype(str) == sid).to_numpy()
-                r.loc[changed, "status"] = "excluded"
-                sub = _rebuilt(ds, h, r, changed, base_table, keep_cols=(factor,) if factor else ())
-                loso.append(_multiple_record(sid, sub, y, predictors, kw, terms, p_full, 1 - ci))
-                if bar is not None:
-                    bar.update(task, advance=1)
+        for sid, r, changed in _without_each_source(rows, used, progress):
+            sub = _rebuilt(ds, h, r, changed, base_table, keep_cols=(factor,) if factor else ())
+            loso.append(_multiple_record(sid, sub, y, predictors, kw, terms, p_full, 1 - ci))
         loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None else 0.0)
     verdict = _multiple_verdict(loso, against is not None)
     return MultipleSensitivity(method, y, tuple(predictors), terms, loso, verdict, tuple(unavailable))
