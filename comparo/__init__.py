@@ -7,8 +7,8 @@ which sources each conclusion rests on.
 Heavy modules are imported lazily, so ``import comparo`` and ``comparo --help``
 stay fast; the public names below resolve on first use. No module shares its
 name with a public function: ``comparo.fit`` is the function of
-:mod:`comparo.lines`, ``comparo.derive`` that of :mod:`comparo.derivation`,
-``comparo.sensitivity`` that of :mod:`comparo.reliance` (the module map is
+:mod:`comparo.fitting`, ``comparo.derive`` that of :mod:`comparo.derivation`,
+``comparo.sensitivity`` that of :mod:`comparo.fitting.source_sensitivity` (the module map is
 docs/architecture.md).
 """
 
@@ -17,38 +17,38 @@ from __future__ import annotations
 from importlib import import_module
 from typing import Any
 
-__version__ = "0.1.0"
+from comparo.base.version import __version__
 
 # public name -> module that defines it
 _API = {
-    "load": "comparo.dataset",
-    "Dataset": "comparo.dataset",
-    "check": "comparo.dataset",
-    "ComparoError": "comparo.errors",
-    "InputError": "comparo.errors",
-    "UsageError": "comparo.errors",
-    "Catalog": "comparo.catalog",
-    "load_catalog": "comparo.catalog",
-    "per_taxon": "comparo.curate",
-    "audit": "comparo.provenance",
+    "load": "comparo.validation.dataset",
+    "Dataset": "comparo.validation.dataset",
+    "check": "comparo.validation.dataset",
+    "ComparoError": "comparo.base.errors",
+    "InputError": "comparo.base.errors",
+    "UsageError": "comparo.base.errors",
+    "Catalog": "comparo.base.catalog",
+    "load_catalog": "comparo.base.catalog",
+    "per_taxon": "comparo.curation.harmonise",
+    "audit": "comparo.curation.provenance",
     "derive": "comparo.derivation",
-    "fit": "comparo.lines",
-    "FitResult": "comparo.lines",
-    "compare": "comparo.lines",
-    "multiple_fit": "comparo.lines",
-    "sensitivity": "comparo.reliance",
+    "fit": "comparo.fitting",
+    "FitResult": "comparo.fitting",
+    "compare": "comparo.fitting",
+    "multiple_fit": "comparo.fitting",
+    "sensitivity": "comparo.fitting.source_sensitivity",
     "build_report": "comparo.report",
     "phylo_fit": "comparo.phylo",
     "contrasts": "comparo.phylo",
     "tree_signal": "comparo.phylo",
     "read_tree": "comparo.phylo",
-    "cycles": "comparo.traces",
+    "cycles": "comparo.traces.files",
     "impute": "comparo.phylo.imputation",
     "Imputation": "comparo.phylo.imputation",
-    "diff": "comparo.versions",
-    "VersionDiff": "comparo.versions",
-    "merge": "comparo.merging",
-    "MergeResult": "comparo.merging",
+    "diff": "comparo.history.versions",
+    "VersionDiff": "comparo.history.versions",
+    "merge": "comparo.history.merging",
+    "MergeResult": "comparo.history.merging",
 }
 
 __all__ = sorted(_API) + ["__version__"]
@@ -64,4 +64,3 @@ def __getattr__(name: str) -> Any:
 
 def __dir__() -> list[str]:
     return __all__
-

@@ -2,6 +2,6 @@
 
 import sys
 
-from comparo.cli import main
+from comparo.cli.main import main
 
 sys.exit(main())

@@ -21,7 +21,6 @@ def demo_copy(tmp_path: Path) -> Path:
     return dst
 
 
-
 @pytest.fixture(scope="session")
 def demo_report(tmp_path_factory) -> tuple[Path, Path, object]:
     """The demo report built once per test process (seed 7), read-only for the tests that
@@ -49,4 +48,3 @@ def pytest_collection_modifyitems(config, items):
         for fixture, group in _SHARED_FIXTURE_GROUPS.items():
             if fixture in getattr(item, "fixturenames", ()):
                 item.add_marker(pytest.mark.xdist_group(group))
-

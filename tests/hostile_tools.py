@@ -25,7 +25,9 @@ def snapshot(root: Path) -> dict[str, str]:
     return seen
 
 
-def changed_outside(before: dict[str, str], after: dict[str, str], allowed: tuple[str, ...] = ()) -> list[str]:
+def changed_outside(
+    before: dict[str, str], after: dict[str, str], allowed: tuple[str, ...] = ()
+) -> list[str]:
     """Paths added, removed or changed between two snapshots that are not *allowed*
     (relative paths of outputs; everything under an allowed folder is allowed)."""
     diff = {k for k in set(before) | set(after) if before.get(k) != after.get(k)}

@@ -36,9 +36,17 @@ def demo_taxa() -> int:
         return sum(1 for r in csv.DictReader(fh) if not r["accepted_name"])
 
 
-def write_dataset(folder: Path, rows: list[str] | None = None, header: str = OBS_HEADER, sources: str = SOURCES, name: str = "observations.csv") -> Path:
+def write_dataset(
+    folder: Path,
+    rows: list[str] | None = None,
+    header: str = OBS_HEADER,
+    sources: str = SOURCES,
+    name: str = "observations.csv",
+) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
-    (folder / name).write_text(header + "\n" + "\n".join(VALID_ROWS if rows is None else rows) + "\n", encoding="utf-8")
+    (folder / name).write_text(
+        header + "\n" + "\n".join(VALID_ROWS if rows is None else rows) + "\n", encoding="utf-8"
+    )
     (folder / "sources.csv").write_text(sources, encoding="utf-8")
     return folder
 
@@ -55,11 +63,13 @@ def tree_hash(folder: Path) -> str:
 
 def run_cli(*args: str, timeout: float = 60) -> subprocess.CompletedProcess:
     """Run ``python -m comparo ARGS`` in a subprocess (as a user would)."""
-    return subprocess.run([sys.executable, "-m", "comparo", *args], capture_output=True, text=True, timeout=timeout)
+    return subprocess.run(
+        [sys.executable, "-m", "comparo", *args], capture_output=True, text=True, timeout=timeout
+    )
 
 
 def run_main(*args: str) -> subprocess.CompletedProcess:
-    """Run ``comparo ARGS`` in this process through :func:`comparo.cli.main` and return what
+    """Run ``comparo ARGS`` in this process through :func:`comparo.cli.main.main` and return what
     :func:`run_cli` returns (exit code, standard output and error as text).
 
     For tests about a command's result, messages and exit code rather than about the process:
@@ -70,7 +80,7 @@ def run_main(*args: str) -> subprocess.CompletedProcess:
     DeprecationWarning from library code hidden), so tests that read standard error still see
     them. The tests that need the real entry point (a fresh interpreter's recursion limit,
     writes to /dev/stdout, a FIFO, file descriptors) keep :func:`run_cli`."""
-    from comparo.cli import main
+    from comparo.cli.main import main
 
     out_b, err_b = io.BytesIO(), io.BytesIO()
     out = io.TextIOWrapper(out_b, encoding="utf-8", newline="")
@@ -89,7 +99,10 @@ def run_main(*args: str) -> subprocess.CompletedProcess:
                 if isinstance(exc.code, str):
                     print(exc.code, file=sys.stderr)
             for w in caught:
-                print(warnings.formatwarning(w.message, w.category, w.filename, w.lineno).rstrip(), file=sys.stderr)
+                print(
+                    warnings.formatwarning(w.message, w.category, w.filename, w.lineno).rstrip(),
+                    file=sys.stderr,
+                )
     out.flush()
     err.flush()
 

@@ -23,7 +23,14 @@ def ds(tmp_path_factory):
 def table():
     """Five points on y = 2 x^0.5 (log10: slope 0.5), a label and a group column."""
     x = np.array([1.0, 4.0, 9.0, 16.0, 25.0])
-    return pd.DataFrame({"taxon": list("abcde"), "genus": list("ggghh"), "m": x, "f": 2 * np.sqrt(x) * [1, 1.01, 0.99, 1, 1.02]})
+    return pd.DataFrame(
+        {
+            "taxon": list("abcde"),
+            "genus": list("ggghh"),
+            "m": x,
+            "f": 2 * np.sqrt(x) * [1, 1.01, 0.99, 1, 1.02],
+        }
+    )
 
 
 def test_the_package_errors_are_public_and_related():
@@ -34,55 +41,169 @@ def test_the_package_errors_are_public_and_related():
 
 
 CASES = {
-    "fit-table-none": (lambda t, d: comparo.fit(None, "m", "f"), ["table must be a pandas DataFrame", "NoneType"]),
-    "fit-table-folder": (lambda t, d: comparo.fit(str(DEMO), "m", "f"), ["table must be a pandas DataFrame", "comparo.per_taxon"]),
-    "fit-ci-text": (lambda t, d: comparo.fit(t, "m", "f", ci="0.95"), ["ci (--ci) must be a number strictly between 0 and 1", "str '0.95'"]),
-    "fit-ci-one": (lambda t, d: comparo.fit(t, "m", "f", ci=1.0), ["ci (--ci) must be a number strictly between 0 and 1"]),
+    "fit-table-none": (
+        lambda t, d: comparo.fit(None, "m", "f"),
+        ["table must be a pandas DataFrame", "NoneType"],
+    ),
+    "fit-table-folder": (
+        lambda t, d: comparo.fit(str(DEMO), "m", "f"),
+        ["table must be a pandas DataFrame", "comparo.per_taxon"],
+    ),
+    "fit-ci-text": (
+        lambda t, d: comparo.fit(t, "m", "f", ci="0.95"),
+        ["ci (--ci) must be a number strictly between 0 and 1", "str '0.95'"],
+    ),
+    "fit-ci-one": (
+        lambda t, d: comparo.fit(t, "m", "f", ci=1.0),
+        ["ci (--ci) must be a number strictly between 0 and 1"],
+    ),
     "fit-ci-bool": (lambda t, d: comparo.fit(t, "m", "f", ci=True), ["ci (--ci) must be a number"]),
     "fit-x-number": (lambda t, d: comparo.fit(t, 3, "f"), ["x must be a column name"]),
     "fit-y-list": (lambda t, d: comparo.fit(t, "m", ["f"]), ["y must be a column name"]),
-    "fit-by-number": (lambda t, d: comparo.fit(t, "m", "f", by=1), ["by must be a column name (text) or None"]),
-    "fit-taxon-col-typo": (lambda t, d: comparo.fit(t, "m", "f", taxon_col="taxn"), ["taxon_col 'taxn' is not a column", "taxon, genus"]),
-    "fit-taxon-col-number": (lambda t, d: comparo.fit(t, "m", "f", taxon_col=0), ["taxon_col must be a column name"]),
-    "fit-bootstrap-text": (lambda t, d: comparo.fit(t, "m", "f", bootstrap="1000"), ["bootstrap must be a whole number"]),
-    "fit-bootstrap-float": (lambda t, d: comparo.fit(t, "m", "f", bootstrap=1e3), ["bootstrap must be a whole number"]),
-    "fit-bootstrap-negative": (lambda t, d: comparo.fit(t, "m", "f", bootstrap=-5), ["bootstrap must be 0 or a positive number"]),
-    "fit-bootstrap-cap": (lambda t, d: comparo.fit(t, "m", "f", bootstrap=10**12), ["exceeds this machine's cap"]),
-    "fit-seed-text": (lambda t, d: comparo.fit(t, "m", "f", seed="1"), ["seed must be a whole number"]),
-    "fit-method": (lambda t, d: comparo.fit(t, "m", "f", "median"), ["unknown method 'median'", "ols, sma"]),
+    "fit-by-number": (
+        lambda t, d: comparo.fit(t, "m", "f", by=1),
+        ["by must be a column name (text) or None"],
+    ),
+    "fit-taxon-col-typo": (
+        lambda t, d: comparo.fit(t, "m", "f", taxon_col="taxn"),
+        ["taxon_col 'taxn' is not a column", "taxon, genus"],
+    ),
+    "fit-taxon-col-number": (
+        lambda t, d: comparo.fit(t, "m", "f", taxon_col=0),
+        ["taxon_col must be a column name"],
+    ),
+    "fit-bootstrap-text": (
+        lambda t, d: comparo.fit(t, "m", "f", bootstrap="1000"),
+        ["bootstrap must be a whole number"],
+    ),
+    "fit-bootstrap-float": (
+        lambda t, d: comparo.fit(t, "m", "f", bootstrap=1e3),
+        ["bootstrap must be a whole number"],
+    ),
+    "fit-bootstrap-negative": (
+        lambda t, d: comparo.fit(t, "m", "f", bootstrap=-5),
+        ["bootstrap must be 0 or a positive number"],
+    ),
+    "fit-bootstrap-cap": (
+        lambda t, d: comparo.fit(t, "m", "f", bootstrap=10**12),
+        ["exceeds this machine's cap"],
+    ),
+    "fit-seed-text": (
+        lambda t, d: comparo.fit(t, "m", "f", seed="1"),
+        ["seed must be a whole number"],
+    ),
+    "fit-method": (
+        lambda t, d: comparo.fit(t, "m", "f", "median"),
+        ["unknown method 'median'", "ols, sma"],
+    ),
     "load-none": (lambda t, d: comparo.load(None), ["folder must be a path", "NoneType"]),
     "load-number": (lambda t, d: comparo.load(3), ["folder must be a path"]),
     "load-empty": (lambda t, d: comparo.load(""), ["folder must be a path, not empty text"]),
     "check-none": (lambda t, d: comparo.check(None), ["folder must be a path"]),
-    "per-taxon-folder": (lambda t, d: comparo.per_taxon(str(DEMO)), ["ds must be a Dataset", "comparo.load(FOLDER)"]),
+    "per-taxon-folder": (
+        lambda t, d: comparo.per_taxon(str(DEMO)),
+        ["ds must be a Dataset", "comparo.load(FOLDER)"],
+    ),
     "per-taxon-table": (lambda t, d: comparo.per_taxon(t), ["ds must be a Dataset", "DataFrame"]),
     "audit-none": (lambda t, d: comparo.audit(None), ["ds must be a Dataset"]),
     "cycles-folder": (lambda t, d: comparo.cycles(str(DEMO)), ["ds must be a Dataset"]),
-    "derive-settings-text": (lambda t, d: comparo.derive(comparo.per_taxon(d), settings="x"), ["settings must be a mapping", "str 'x'"]),
+    "derive-settings-text": (
+        lambda t, d: comparo.derive(comparo.per_taxon(d), settings="x"),
+        ["settings must be a mapping", "str 'x'"],
+    ),
     "derive-table-none": (lambda t, d: comparo.derive(None), ["table must be a pandas DataFrame"]),
-    "derive-dataset": (lambda t, d: comparo.derive(d), ["table must be a pandas DataFrame", "Dataset"]),
-    "derive-mc-float": (lambda t, d: comparo.derive(comparo.per_taxon(d), mc=1e12), ["mc must be a whole number"]),
-    "derive-mc-cap": (lambda t, d: comparo.derive(comparo.per_taxon(d), mc=10**12), ["mc 1000000000000 exceeds this machine's cap"]),
-    "derive-seed-negative": (lambda t, d: comparo.derive(comparo.per_taxon(d), seed=-1), ["seed must be >= 0"]),
-    "phylo-tree-none": (lambda t, d: comparo.phylo_fit(t, "m", "f", tree=None), ["tree must be a Newick file name", "NoneType"]),
-    "phylo-tree-number": (lambda t, d: comparo.phylo_fit(t, "m", "f", tree=3), ["tree must be a Newick file name"]),
-    "phylo-table-none": (lambda t, d: comparo.phylo_fit(None, "m", "f", tree=TREE), ["table must be a pandas DataFrame"]),
-    "fit-pgls-tree-none": (lambda t, d: comparo.fit(t, "m", "f", "pgls", tree=None), ["tree must be a Newick file name"]),
-    "sensitivity-mc-float": (lambda t, d: comparo.sensitivity(t, "m", "f", mc=1e12), ["mc must be a whole number", "float"]),
-    "sensitivity-mc-cap": (lambda t, d: comparo.sensitivity(t, "m", "f", mc=10**12), ["mc 1000000000000 exceeds this machine's cap", "point-draws per second"]),
-    "sensitivity-none": (lambda t, d: comparo.sensitivity(None, "m", "f"), ["dataset_or_table must be a Dataset", "DataFrame"]),
-    "sensitivity-ci": (lambda t, d: comparo.sensitivity(t, "m", "f", ci=95), ["ci must be a number strictly between 0 and 1"]),
-    "signal-tree-none": (lambda t, d: comparo.tree_signal(None, {"a": 1.0}), ["tree must be a Newick file name"]),
-    "signal-values-none": (lambda t, d: comparo.tree_signal(TREE, None), ["values must be a mapping of tip label to value"]),
-    "signal-permutations-float": (lambda t, d: comparo.tree_signal(TREE, {"a": 1.0}, permutations=99.0), ["permutations must be a whole number"]),
-    "signal-permutations-negative": (lambda t, d: comparo.tree_signal(TREE, {"a": 1.0}, permutations=-1), ["permutations must be 0 or a positive number"]),
-    "contrasts-tree-none": (lambda t, d: comparo.contrasts(None, {}), ["tree must be a Newick file name"]),
-    "contrasts-values-list": (lambda t, d: comparo.contrasts(TREE, [1.0, 2.0]), ["values must be a mapping"]),
-    "read-tree-none": (lambda t, d: comparo.read_tree(None), ["path_or_newick must be a Newick file name or Newick text"]),
-    "report-folder-none": (lambda t, d: comparo.build_report(None, "unused"), ["folder must be a path"]),
-    "report-out-none": (lambda t, d: comparo.build_report(str(DEMO), None), ["out_dir must be a path"]),
-    "report-draws-text": (lambda t, d: comparo.build_report(str(DEMO), "unused", sensitivity_draws="200"), ["sensitivity_draws must be a whole number"]),
-    "catalog-extra-text": (lambda t, d: comparo.load_catalog(extra="x"), ["extra must be a mapping"]),
+    "derive-dataset": (
+        lambda t, d: comparo.derive(d),
+        ["table must be a pandas DataFrame", "Dataset"],
+    ),
+    "derive-mc-float": (
+        lambda t, d: comparo.derive(comparo.per_taxon(d), mc=1e12),
+        ["mc must be a whole number"],
+    ),
+    "derive-mc-cap": (
+        lambda t, d: comparo.derive(comparo.per_taxon(d), mc=10**12),
+        ["mc 1000000000000 exceeds this machine's cap"],
+    ),
+    "derive-seed-negative": (
+        lambda t, d: comparo.derive(comparo.per_taxon(d), seed=-1),
+        ["seed must be >= 0"],
+    ),
+    "phylo-tree-none": (
+        lambda t, d: comparo.phylo_fit(t, "m", "f", tree=None),
+        ["tree must be a Newick file name", "NoneType"],
+    ),
+    "phylo-tree-number": (
+        lambda t, d: comparo.phylo_fit(t, "m", "f", tree=3),
+        ["tree must be a Newick file name"],
+    ),
+    "phylo-table-none": (
+        lambda t, d: comparo.phylo_fit(None, "m", "f", tree=TREE),
+        ["table must be a pandas DataFrame"],
+    ),
+    "fit-pgls-tree-none": (
+        lambda t, d: comparo.fit(t, "m", "f", "pgls", tree=None),
+        ["tree must be a Newick file name"],
+    ),
+    "sensitivity-mc-float": (
+        lambda t, d: comparo.sensitivity(t, "m", "f", mc=1e12),
+        ["mc must be a whole number", "float"],
+    ),
+    "sensitivity-mc-cap": (
+        lambda t, d: comparo.sensitivity(t, "m", "f", mc=10**12),
+        ["mc 1000000000000 exceeds this machine's cap", "point-draws per second"],
+    ),
+    "sensitivity-none": (
+        lambda t, d: comparo.sensitivity(None, "m", "f"),
+        ["dataset_or_table must be a Dataset", "DataFrame"],
+    ),
+    "sensitivity-ci": (
+        lambda t, d: comparo.sensitivity(t, "m", "f", ci=95),
+        ["ci must be a number strictly between 0 and 1"],
+    ),
+    "signal-tree-none": (
+        lambda t, d: comparo.tree_signal(None, {"a": 1.0}),
+        ["tree must be a Newick file name"],
+    ),
+    "signal-values-none": (
+        lambda t, d: comparo.tree_signal(TREE, None),
+        ["values must be a mapping of tip label to value"],
+    ),
+    "signal-permutations-float": (
+        lambda t, d: comparo.tree_signal(TREE, {"a": 1.0}, permutations=99.0),
+        ["permutations must be a whole number"],
+    ),
+    "signal-permutations-negative": (
+        lambda t, d: comparo.tree_signal(TREE, {"a": 1.0}, permutations=-1),
+        ["permutations must be 0 or a positive number"],
+    ),
+    "contrasts-tree-none": (
+        lambda t, d: comparo.contrasts(None, {}),
+        ["tree must be a Newick file name"],
+    ),
+    "contrasts-values-list": (
+        lambda t, d: comparo.contrasts(TREE, [1.0, 2.0]),
+        ["values must be a mapping"],
+    ),
+    "read-tree-none": (
+        lambda t, d: comparo.read_tree(None),
+        ["path_or_newick must be a Newick file name or Newick text"],
+    ),
+    "report-folder-none": (
+        lambda t, d: comparo.build_report(None, "unused"),
+        ["folder must be a path"],
+    ),
+    "report-out-none": (
+        lambda t, d: comparo.build_report(str(DEMO), None),
+        ["out_dir must be a path"],
+    ),
+    "report-draws-text": (
+        lambda t, d: comparo.build_report(str(DEMO), "unused", sensitivity_draws="200"),
+        ["sensitivity_draws must be a whole number"],
+    ),
+    "catalog-extra-text": (
+        lambda t, d: comparo.load_catalog(extra="x"),
+        ["extra must be a mapping"],
+    ),
 }
 
 
@@ -102,7 +223,9 @@ def test_the_default_label_column_may_be_absent(table):
     column given by name must exist."""
     r = comparo.fit(table.drop(columns="taxon"), "m", "f", method="ols")
     assert r.points[0]["label"] == "row 2"
-    assert [p["label"] for p in comparo.fit(table, "m", "f", method="ols", taxon_col="genus").points][:2] == ["g", "g"]
+    assert [
+        p["label"] for p in comparo.fit(table, "m", "f", method="ols", taxon_col="genus").points
+    ][:2] == ["g", "g"]
 
 
 def test_numpy_integers_are_whole_numbers(table):

@@ -14,20 +14,42 @@ from pathlib import Path
 
 import pytest
 
-CHROMIUM = next((p for p in ("/usr/bin/chromium", shutil.which("chromium") or "") if p and os.access(p, os.X_OK)), None)
-DRIVER = next((p for p in ("/usr/bin/chromedriver", shutil.which("chromedriver") or "") if p and os.access(p, os.X_OK)), None)
+CHROMIUM = next(
+    (
+        p
+        for p in ("/usr/bin/chromium", shutil.which("chromium") or "")
+        if p and os.access(p, os.X_OK)
+    ),
+    None,
+)
+DRIVER = next(
+    (
+        p
+        for p in ("/usr/bin/chromedriver", shutil.which("chromedriver") or "")
+        if p and os.access(p, os.X_OK)
+    ),
+    None,
+)
 
 pytestmark = [
     pytest.mark.skipif(
         CHROMIUM is None or DRIVER is None,
         reason=f"headless browser check needs /usr/bin/chromium and /usr/bin/chromedriver (Debian packages chromium, "
-               f"chromium-driver); found chromium={CHROMIUM}, chromedriver={DRIVER}",
+        f"chromium-driver); found chromium={CHROMIUM}, chromedriver={DRIVER}",
     ),
 ]
 
-FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-         "--disable-background-networking", "--disable-component-update", "--disable-sync",
-         "--disable-dev-shm-usage")
+FLAGS = (
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--disable-dev-shm-usage",
+)
 
 #: Size and load state of every figure image, as the browser decoded it.
 _IMAGES_JS = """
@@ -88,7 +110,12 @@ def test_demo_report_renders_without_console_error_and_every_figure_has_a_size(b
 def test_the_check_sees_a_broken_figure_and_a_script_error(browser, report, tmp_path):
     """The same checks fail on a copy with one image corrupted and a failing script (so they can fail)."""
     text = report.read_text(encoding="utf-8")
-    bad = re.sub(r'src="data:image/png;base64,[^"]{0,12}', 'src="data:image/png;base64,AAAAnotapng', text, count=1)
+    bad = re.sub(
+        r'src="data:image/png;base64,[^"]{0,12}',
+        'src="data:image/png;base64,AAAAnotapng',
+        text,
+        count=1,
+    )
     assert bad != text
     bad = bad.replace("</body>", "<script>thisFunctionDoesNotExist();</script></body>")
     page = tmp_path / "report.html"

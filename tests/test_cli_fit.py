@@ -9,20 +9,22 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from comparo.cli import main
+from comparo.cli.main import main
 
 
 @pytest.fixture
 def csv(tmp_path):
     rng = np.random.default_rng(12)
     lx = rng.uniform(-1, 3, 24)
-    t = pd.DataFrame({
-        "taxon": [f"sp{i}" for i in range(24)],
-        "mass": 10**lx,
-        "freq": 10 ** (1.0 - 0.3 * lx + rng.normal(0, 0.05, 24)),
-        "clade": np.where(np.arange(24) < 12, "a", "b"),
-        "label": ["x"] * 24,
-    })
+    t = pd.DataFrame(
+        {
+            "taxon": [f"sp{i}" for i in range(24)],
+            "mass": 10**lx,
+            "freq": 10 ** (1.0 - 0.3 * lx + rng.normal(0, 0.05, 24)),
+            "clade": np.where(np.arange(24) < 12, "a", "b"),
+            "label": ["x"] * 24,
+        }
+    )
     t.loc[0, "mass"] = 0.0
     t.loc[1, "freq"] = np.nan
     path = tmp_path / "t.csv"
@@ -31,13 +33,47 @@ def csv(tmp_path):
 
 
 def test_json_output_keys_and_excluded_rows(csv, capsys):
-    code = main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--against", "-0.3",
-                 "--format", "json"])
+    code = main(
+        [
+            "fit",
+            str(csv),
+            "--x",
+            "mass",
+            "--y",
+            "freq",
+            "--method",
+            "sma",
+            "--against",
+            "-0.3",
+            "--format",
+            "json",
+        ]
+    )
     assert code == 0
     d = json.loads(capsys.readouterr().out)
-    assert {"method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2", "ci_level",
-            "against", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded", "breakpoint",
-            "sensitivity", "terms"} == set(d)
+    assert {
+        "method",
+        "x",
+        "y",
+        "log",
+        "n",
+        "slope",
+        "slope_ci",
+        "intercept",
+        "intercept_ci",
+        "r2",
+        "ci_level",
+        "against",
+        "lambda",
+        "lambda_ci",
+        "loglik",
+        "groups",
+        "outliers",
+        "excluded",
+        "breakpoint",
+        "sensitivity",
+        "terms",
+    } == set(d)
     assert d["n"] == 22
     assert {e["label"] for e in d["excluded"]} == {"sp0", "sp1"}
     assert d["slope_ci"][0] < -0.3 < d["slope_ci"][1]
@@ -45,13 +81,42 @@ def test_json_output_keys_and_excluded_rows(csv, capsys):
 
 
 def test_text_csv_and_options(csv, capsys):
-    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "ols", "--by", "clade",
-                 "--breakpoint", "--bootstrap", "200", "--log", "e"]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(csv),
+                "--x",
+                "mass",
+                "--y",
+                "freq",
+                "--method",
+                "ols",
+                "--by",
+                "clade",
+                "--breakpoint",
+                "--bootstrap",
+                "200",
+                "--log",
+                "e",
+            ]
+        )
+        == 0
+    )
     out = capsys.readouterr().out
-    assert "OLS fit of freq on mass (ln axes)" in out and "bootstrap (200 resamples" in out and "excluded (2)" in out
-    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--format", "csv", "--by", "clade"]) == 0
+    assert (
+        "OLS fit of freq on mass (ln axes)" in out
+        and "bootstrap (200 resamples" in out
+        and "excluded (2)" in out
+    )
+    assert (
+        main(["fit", str(csv), "--x", "mass", "--y", "freq", "--format", "csv", "--by", "clade"])
+        == 0
+    )
     frame = pd.read_csv(io.StringIO(capsys.readouterr().out))
-    assert {"slope", "intercept"} <= set(frame["term"]) and {"a", "b", "(common)"} <= set(frame["group"].dropna())
+    assert {"slope", "intercept"} <= set(frame["term"]) and {"a", "b", "(common)"} <= set(
+        frame["group"].dropna()
+    )
 
 
 @pytest.mark.parametrize(
@@ -73,11 +138,15 @@ def test_missing_file_and_too_few_points(tmp_path, capsys):
     assert main(["fit", str(tmp_path / "none.csv"), "--x", "a", "--y", "b"]) == 2
     assert "neither a dataset folder nor a CSV" in capsys.readouterr().err
     p = tmp_path / "small.csv"
-    pd.DataFrame({"taxon": ["a", "b", "c"], "m": [1.0, 2.0, -1.0], "f": [1.0, 2.0, 3.0]}).to_csv(p, index=False)
+    pd.DataFrame({"taxon": ["a", "b", "c"], "m": [1.0, 2.0, -1.0], "f": [1.0, 2.0, 3.0]}).to_csv(
+        p, index=False
+    )
     assert main(["fit", str(p), "--x", "m", "--y", "f"]) == 2
     assert "at least 3 usable points" in capsys.readouterr().err
     q = tmp_path / "same.csv"
-    pd.DataFrame({"taxon": list("abcd"), "m": [2.0] * 4, "f": [1.0, 2.0, 3.0, 4.0]}).to_csv(q, index=False)
+    pd.DataFrame({"taxon": list("abcd"), "m": [2.0] * 4, "f": [1.0, 2.0, 3.0, 4.0]}).to_csv(
+        q, index=False
+    )
     assert main(["fit", str(q), "--x", "m", "--y", "f"]) == 2
     assert "identical" in capsys.readouterr().err
 
@@ -93,9 +162,29 @@ def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
     from comparo.phylo import phylo_fit
 
     tab = comparo.per_taxon(comparo.load(DEMO))
-    direct = phylo_fit(table=tab, x="body_mass", y="frequency_observed", tree=str(DEMO / "tree.nwk"), log="10", ci=0.95,
-                      against=None, taxon_col="taxon", lambda_="ml")
-    proc = run_main("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--format", "json")
+    direct = phylo_fit(
+        table=tab,
+        x="body_mass",
+        y="frequency_observed",
+        tree=str(DEMO / "tree.nwk"),
+        log="10",
+        ci=0.95,
+        against=None,
+        taxon_col="taxon",
+        lambda_="ml",
+    )
+    proc = run_main(
+        "fit",
+        str(DEMO),
+        "--x",
+        "body_mass",
+        "--y",
+        "frequency_observed",
+        "--method",
+        "pgls",
+        "--format",
+        "json",
+    )
     assert proc.returncode == 0, proc.stderr
     got = json.loads(proc.stdout)
     assert got["slope"] == pytest.approx(direct["slope"], rel=1e-9)
@@ -105,7 +194,19 @@ def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
     assert got["n"] == int(both.sum()) and len(got["excluded"]) == int((~both).sum()) > 0
     assert {e["label"] for e in got["excluded"]} == set(tab.loc[~both, "taxon"])
     assert "lambda_tests" in got["phylo"]
-    with_me = run_main("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--tip-se", "--format", "json")
+    with_me = run_main(
+        "fit",
+        str(DEMO),
+        "--x",
+        "body_mass",
+        "--y",
+        "frequency_observed",
+        "--method",
+        "pgls",
+        "--tip-se",
+        "--format",
+        "json",
+    )
     assert with_me.returncode == 0, with_me.stderr
     assert json.loads(with_me.stdout)["phylo"]["measurement_error"]
 
@@ -141,12 +242,18 @@ def test_drop_flagged_cli_text_json_csv(outlier_csv, capsys):
     assert main([*base, "--drop-flagged", "--format", "csv"]) == 0
     frame = pd.read_csv(io.StringIO(capsys.readouterr().out))
     dropped = frame[frame["group"] == "(dropped)"]
-    assert set(dropped["term"]) == {"sp4", "sp17"} and dropped["flags"].str.contains("bonferroni").all()
+    assert (
+        set(dropped["term"]) == {"sp4", "sp17"}
+        and dropped["flags"].str.contains("bonferroni").all()
+    )
     assert (frame["group"] == "(without flagged)").sum() == 3
 
 
 def test_drop_flagged_bad_rule_exit_2(outlier_csv, capsys):
-    assert main(["fit", str(outlier_csv), "--x", "mass", "--y", "freq", "--drop-flagged=nonsense"]) == 2
+    assert (
+        main(["fit", str(outlier_csv), "--x", "mass", "--y", "freq", "--drop-flagged=nonsense"])
+        == 2
+    )
     err = capsys.readouterr().err
     assert "unknown rule 'nonsense'" in err and "Traceback" not in err
 
@@ -169,7 +276,7 @@ def test_plain_csv_without_taxon_column_names_points_by_first_column(tmp_path):
 def test_units_piped_is_a_plain_table_with_every_key_whole():
     from support import run_main
 
-    from comparo.catalog import load_catalog
+    from comparo.base.catalog import load_catalog
 
     r = run_main("units")
     assert r.returncode == 0
@@ -182,23 +289,63 @@ def test_fit_help_shows_defaults():
     from support import run_main
 
     text = " ".join(run_main("fit", "--help").stdout.split())
-    for part in ("(default: sma)", "(default: 0)", "(default: 20240601)", "(default: text)", "(default 0.95)"):
+    for part in (
+        "(default: sma)",
+        "(default: 0)",
+        "(default: 20240601)",
+        "(default: text)",
+        "(default 0.95)",
+    ):
         assert part in text, part
 
 
-@pytest.mark.parametrize("method, test, df", [("ols", "t", 20), ("lts", "t", None), ("sma", "F(1, n-2)", [1, 20]),
-                                              ("ma", "F(1, n-2)", [1, 20]), ("robust", "z", None)])
+@pytest.mark.parametrize(
+    "method, test, df",
+    [
+        ("ols", "t", 20),
+        ("lts", "t", None),
+        ("sma", "F(1, n-2)", [1, 20]),
+        ("ma", "F(1, n-2)", [1, 20]),
+        ("robust", "z", None),
+    ],
+)
 def test_against_names_its_statistic(csv, capsys, method, test, df):
     """``--against`` reports {value, statistic, test, df, p}; the test is named as the method
     computes it (t on n - 2 df for OLS, F(1, n - 2) for SMA/MA: Warton et al. 2006, Table 5;
     a Wald z for the M-estimate) and the printed text names it too."""
-    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", method, "--against", "-0.3",
-                 "--format", "json"]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(csv),
+                "--x",
+                "mass",
+                "--y",
+                "freq",
+                "--method",
+                method,
+                "--against",
+                "-0.3",
+                "--format",
+                "json",
+            ]
+        )
+        == 0
+    )
     a = json.loads(capsys.readouterr().out)["against"]
-    assert set(a) == {"value", "statistic", "test", "df", "p"} and a["test"] == test and 0 <= a["p"] <= 1
+    assert (
+        set(a) == {"value", "statistic", "test", "df", "p"}
+        and a["test"] == test
+        and 0 <= a["p"] <= 1
+    )
     if df is not None:
         assert a["df"] == df
-    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", method, "--against", "-0.3"]) == 0
+    assert (
+        main(
+            ["fit", str(csv), "--x", "mass", "--y", "freq", "--method", method, "--against", "-0.3"]
+        )
+        == 0
+    )
     shown = f"F(1, {df[1]})" if test.startswith("F") else test
     assert f"slope = -0.3?  {shown} = " in capsys.readouterr().out
 
@@ -219,7 +366,7 @@ def test_old_test_slope_flag_still_works_with_a_note(csv, capsys):
 
 
 def test_old_keyword_warns_and_gives_the_same_fit(csv):
-    from comparo.lines import fit
+    from comparo.fitting import fit
 
     t = pd.read_csv(csv)
     new = fit(t, "mass", "freq", "sma", against=-0.3).to_dict()
@@ -229,8 +376,14 @@ def test_old_keyword_warns_and_gives_the_same_fit(csv):
 
 
 def test_group_comparisons_read_as_questions(csv, capsys):
-    assert main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--by", "clade"]) == 0
+    assert (
+        main(["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--by", "clade"])
+        == 0
+    )
     out = capsys.readouterr().out
-    for question in ("one exponent for all groups?", "same height at the common exponent?",
-                     "groups offset along the common line?"):
+    for question in (
+        "one exponent for all groups?",
+        "same height at the common exponent?",
+        "groups offset along the common line?",
+    ):
         assert question in out

@@ -15,10 +15,10 @@ import math
 import pytest
 from support import run_main
 
-from comparo.config import comparisons
-from comparo.errors import InputError
+from comparo.base.errors import InputError
+from comparo.validation.settings import comparisons
 
-BAD = '''
+BAD = """
 [[comparison]]
 y = "frequency_observd"
 models = [["body_mass"]]
@@ -29,18 +29,27 @@ colour = "red"
 [[comparison]]
 y = "frequency_observed"
 models = [["body_mass", "fiber_radius"], ["fiber_radius", "body_mass"], ["not_a_quantity"]]
-'''
+"""
 
 
 def test_check_names_every_bad_key(demo_copy):
     """Each broken setting is reported with its key, exit 2, in one pass."""
     toml = demo_copy / "comparo.toml"
-    toml.write_text(toml.read_text(encoding="utf-8").split("[[comparison]]")[0] + BAD, encoding="utf-8")
+    toml.write_text(
+        toml.read_text(encoding="utf-8").split("[[comparison]]")[0] + BAD, encoding="utf-8"
+    )
     p = run_main("check", str(demo_copy), "--format", "csv")
     assert p.returncode == 2
     out = p.stdout
-    for key in ("comparison[1].y", "comparison[1].models", "comparison[1].method", "comparison[1].factor",
-                "comparison[1].colour", "comparison[2].models[2]", "comparison[2].models[3]"):
+    for key in (
+        "comparison[1].y",
+        "comparison[1].models",
+        "comparison[1].method",
+        "comparison[1].factor",
+        "comparison[1].colour",
+        "comparison[2].models[2]",
+        "comparison[2].models[3]",
+    ):
         assert key in out, key
     assert "repeats model 1" in out and "did you mean 'frequency_observed'" in out
     assert "unknown setting 'comparison'" not in out and "Traceback" not in p.stderr
@@ -48,13 +57,20 @@ def test_check_names_every_bad_key(demo_copy):
 
 def test_comparisons_raise_the_same_problems():
     """The report's reader raises what check reports; a good entry comes back as written."""
-    from comparo.catalog import load_catalog
+    from comparo.base.catalog import load_catalog
 
     cat = load_catalog()
-    ok = {"comparison": [{"y": "frequency_observed", "models": [["body_mass"], []], "method": "ols"}]}
+    ok = {
+        "comparison": [{"y": "frequency_observed", "models": [["body_mass"], []], "method": "ols"}]
+    }
     assert comparisons(ok, cat, {"clade"}) == ok["comparison"]
-    for bad, key in (({"comparison": [{"y": "frequency_observed", "models": "body_mass"}]}, "comparison[1].models"),
-                     ({"comparison": 3}, "comparison")):
+    for bad, key in (
+        (
+            {"comparison": [{"y": "frequency_observed", "models": "body_mass"}]},
+            "comparison[1].models",
+        ),
+        ({"comparison": 3}, "comparison"),
+    ):
         with pytest.raises(InputError) as exc:
             comparisons(bad, cat, {"clade"})
         assert key in set(exc.value.problems["column"])
@@ -68,10 +84,15 @@ def test_report_runs_the_declared_comparison(demo_report):
     assert len(comps) == 1 and "error" not in comps[0]
     r = comps[0]["result"]
     n = r["n"]
-    aicc = [-2 * m["loglik"] + 2 * m["k"] + 2 * m["k"] * (m["k"] + 1) / (n - m["k"] - 1) for m in r["models"]]
+    aicc = [
+        -2 * m["loglik"] + 2 * m["k"] + 2 * m["k"] * (m["k"] + 1) / (n - m["k"] - 1)
+        for m in r["models"]
+    ]
     assert [m["aicc"] for m in r["models"]] == pytest.approx(aicc, rel=1e-12)
     rel = [math.exp(-0.5 * (a - min(aicc))) for a in aicc]
-    assert [m["weight"] for m in r["models"]] == pytest.approx([v / sum(rel) for v in rel], rel=1e-9, abs=1e-15)
+    assert [m["weight"] for m in r["models"]] == pytest.approx(
+        [v / sum(rel) for v in rel], rel=1e-9, abs=1e-15
+    )
     assert aicc == sorted(aicc)
     assert len(r["models"]) == 5 and r["method"] == "pgls"
     # every taxon of the per-taxon table is either used or listed with its reason
@@ -80,6 +101,6 @@ def test_report_runs_the_declared_comparison(demo_report):
     taxa = pd.read_csv(out / "tables" / "per_taxon.csv")
     assert n + len(r["excluded"]) == len(taxa)
     html = (out / "report.html").read_text(encoding="utf-8")
-    sec = html[html.index('id="comparisons"'):]
+    sec = html[html.index('id="comparisons"') :]
     assert "not the probability that the model is true" in sec and f"n = {n}" in sec
     assert comps[0]["id"] in sec and "tables/comparisons.json" in result.tables

@@ -25,7 +25,9 @@ def _row_of(folder, obs_id):
 def _generator():
     import importlib.util
 
-    spec = importlib.util.spec_from_file_location("demo_generate", ROOT / "demo_tables" / "generate.py")
+    spec = importlib.util.spec_from_file_location(
+        "demo_generate", ROOT / "demo_tables" / "generate.py"
+    )
     mod = importlib.util.module_from_spec(spec)
     sys.modules.setdefault("demo_generate", mod)  # its dataclasses look their module up
     spec.loader.exec_module(sys.modules["demo_generate"])
@@ -33,7 +35,11 @@ def _generator():
 
 
 def test_generator_recreates_files_byte_for_byte(tmp_path):
-    proc = subprocess.run([sys.executable, str(ROOT / "demo_tables" / "generate.py"), "-o", str(tmp_path / "g")], capture_output=True, text=True)
+    proc = subprocess.run(
+        [sys.executable, str(ROOT / "demo_tables" / "generate.py"), "-o", str(tmp_path / "g")],
+        capture_output=True,
+        text=True,
+    )
     assert proc.returncode == 0, proc.stderr
     for f in DEMO.iterdir():
         assert (tmp_path / "g" / f.name).read_bytes() == f.read_bytes(), f.name
@@ -58,7 +64,10 @@ def test_every_planted_fault_reported_at_its_row(demo_copy):
     row = lambda oid: _row_of(demo_copy, oid)  # noqa: E731
     assert ("unit-slip", row("DEMO-SLIP")) in found
     assert ("out-of-range", row("DEMO-SLIP")) in found
-    assert ("conflict", row("DEMO-CONFLICT-A")) in found and ("conflict", row("DEMO-CONFLICT-B")) in found
+    assert ("conflict", row("DEMO-CONFLICT-A")) in found and (
+        "conflict",
+        row("DEMO-CONFLICT-B"),
+    ) in found
     assert ("duplicate-row", row("DEMO-DUP")) in found
     assert ("basis-proxy", row("DEMO-PROXY")) in found
     assert ("temperature-missing", row("DEMO-NOTEMP")) in found
@@ -103,9 +112,11 @@ def test_sma_exponent_ci_covers_the_generating_exponent():
     """The generator draws frequency = 30 M^-0.2 (clade offsets, noise; demo_tables/generate.py):
     the 95% CI of the fitted frequency-mass SMA slope (log10) covers -0.2."""
     import comparo
-    from comparo.lines import fit
+    from comparo.fitting import fit
 
-    res = fit(comparo.per_taxon(comparo.load(DEMO)), x="body_mass", y="frequency_observed", method="sma")
+    res = fit(
+        comparo.per_taxon(comparo.load(DEMO)), x="body_mass", y="frequency_observed", method="sma"
+    )
     lo, hi = res.slope_ci
     assert lo < -0.2 < hi
 
@@ -121,7 +132,12 @@ def _taxa():
 def _clusters_are_monophyletic(column: str) -> None:
     import dendropy
 
-    tree = dendropy.Tree.get(path=str(DEMO / "tree.nwk"), schema="newick", preserve_underscores=True, rooting="force-rooted")
+    tree = dendropy.Tree.get(
+        path=str(DEMO / "tree.nwk"),
+        schema="newick",
+        preserve_underscores=True,
+        rooting="force-rooted",
+    )
     groups: dict[str, set[str]] = {}
     for r in _taxa():
         groups.setdefault(r[column], set()).add(r["tree_label"])
@@ -144,14 +160,70 @@ def test_demo_clades_and_genera_are_clades_of_the_tree():
 # groups and a few genera often met in muscle physiology, plus older names of real groups
 # (from memory: common knowledge of the major animal groups; not an exhaustive list).
 REAL_GROUP_NAMES = {
-    "animalia", "arthropoda", "insecta", "hexapoda", "diptera", "hymenoptera", "coleoptera", "lepidoptera",
-    "orthoptera", "saltatoria", "ensifera", "caelifera", "odonata", "hemiptera", "homoptera", "heteroptera",
-    "cicadidae", "blattodea", "mantodea", "crustacea", "decapoda", "arachnida", "mollusca", "cephalopoda",
-    "chordata", "vertebrata", "actinopterygii", "teleostei", "amphibia", "anura", "reptilia", "squamata",
-    "serpentes", "aves", "passeriformes", "trochilidae", "mammalia", "chiroptera", "rodentia", "primates",
-    "cetacea", "carnivora", "natantia", "reptantia", "apis", "bombus", "manduca", "musca",
-    "anopheles", "aedes", "forcipomyia", "lethocerus", "crotalus", "opsanus", "homo", "mus", "rattus",
-    "oscillaria", "oscillatoria", "simulium", "tettigonia", "gryllus", "locusta", "schistocerca",
+    "animalia",
+    "arthropoda",
+    "insecta",
+    "hexapoda",
+    "diptera",
+    "hymenoptera",
+    "coleoptera",
+    "lepidoptera",
+    "orthoptera",
+    "saltatoria",
+    "ensifera",
+    "caelifera",
+    "odonata",
+    "hemiptera",
+    "homoptera",
+    "heteroptera",
+    "cicadidae",
+    "blattodea",
+    "mantodea",
+    "crustacea",
+    "decapoda",
+    "arachnida",
+    "mollusca",
+    "cephalopoda",
+    "chordata",
+    "vertebrata",
+    "actinopterygii",
+    "teleostei",
+    "amphibia",
+    "anura",
+    "reptilia",
+    "squamata",
+    "serpentes",
+    "aves",
+    "passeriformes",
+    "trochilidae",
+    "mammalia",
+    "chiroptera",
+    "rodentia",
+    "primates",
+    "cetacea",
+    "carnivora",
+    "natantia",
+    "reptantia",
+    "apis",
+    "bombus",
+    "manduca",
+    "musca",
+    "anopheles",
+    "aedes",
+    "forcipomyia",
+    "lethocerus",
+    "crotalus",
+    "opsanus",
+    "homo",
+    "mus",
+    "rattus",
+    "oscillaria",
+    "oscillatoria",
+    "simulium",
+    "tettigonia",
+    "gryllus",
+    "locusta",
+    "schistocerca",
 }
 
 
@@ -184,8 +256,18 @@ def test_pgls_on_the_demo_recovers_the_generating_exponent_and_lambda():
     (sd 0.05): on its ultrametric tree, Pagel's lambda of the residual is 0.10²/(0.10² + 0.05²)
     = 0.8 (before measurement noise, which lowers it a little). The lambda-ML PGLS 95% CIs
     cover both the exponent -0.2 and lambda 0.8, and lambda = 0 is rejected (the signal is real)."""
-    proc = run_cli("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls",
-                   "--format", "json")
+    proc = run_cli(
+        "fit",
+        str(DEMO),
+        "--x",
+        "body_mass",
+        "--y",
+        "frequency_observed",
+        "--method",
+        "pgls",
+        "--format",
+        "json",
+    )
     assert proc.returncode == 0, proc.stderr
     got = json.loads(proc.stdout)
     lo, hi = got["slope_ci"]
@@ -210,7 +292,8 @@ def test_demo_traces_recover_their_generating_loops():
 
     import numpy as np
 
-    from comparo import cycles, load, units
+    from comparo import cycles, load
+    from comparo.base import units
 
     res = {r.trace_id: r for r in cycles(load(DEMO)).results}
     assert res["SC1"].values["loop_area"][0] == pytest.approx(math.pi * 0.03 * 0.002, rel=0.01)

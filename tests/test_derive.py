@@ -19,14 +19,21 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from support import DEMO, demo_taxa, run_main, tree_hash, write_dataset
 
-from comparo.cli import main
-from comparo.errors import InputError
+from comparo.base.errors import InputError
+from comparo.cli.main import main
 
 # the package of the derivation (comparo.derive is its function derive)
 dv = importlib.import_module("comparo.derivation")
 
 
-def _q(row: dict, key: str, value: float, u: float | None = None, basis: str = "reported", obs: str | None = None) -> None:
+def _q(
+    row: dict,
+    key: str,
+    value: float,
+    u: float | None = None,
+    basis: str = "reported",
+    obs: str | None = None,
+) -> None:
     """Put quantity *key* into a per-taxon row the way comparo.per_taxon writes it."""
     row[key] = value
     row[f"{key}_u"] = np.nan if u is None else u
@@ -79,7 +86,10 @@ def test_missing_value_names_the_absent_input():
         assert np.isnan(no_d10[key]) and no_d10[f"{key}_missing"] == "no lattice_spacing_d10", key
     for key in ("poroelastic_diffusivity", "poroelastic_time", "frequency_hydraulic_bound"):
         assert np.isnan(no_d10[key])
-        assert "no permeability" in no_d10[f"{key}_missing"] and "no lattice_spacing_d10" in no_d10[f"{key}_missing"]
+        assert (
+            "no permeability" in no_d10[f"{key}_missing"]
+            and "no lattice_spacing_d10" in no_d10[f"{key}_missing"]
+        )
     assert np.isnan(no_d10["kinetic_time"])
     assert no_d10["kinetic_time_missing"] == "no kinetic_time, and 1/(f+g): no detach_rate"
     assert "no detach_rate" in no_d10["poro_kinetic_ratio_missing"]
@@ -91,7 +101,10 @@ def test_missing_value_names_the_absent_input():
     assert np.isnan(no_mod["drained_modulus"])
     assert no_mod["drained_modulus_missing"] == "no transverse_modulus or elastic_modulus"
     assert "no transverse_modulus or elastic_modulus" in no_mod["poroelastic_time_missing"]
-    assert no_mod["kinetic_time"] == pytest.approx(0.004) and no_mod["kinetic_time_method"] == "reported"
+    assert (
+        no_mod["kinetic_time"] == pytest.approx(0.004)
+        and no_mod["kinetic_time_method"] == "reported"
+    )
     assert no_mod["frequency_ratio_missing"].startswith("no frequency_observed")
 
     hot = out["hot"]
@@ -100,7 +113,10 @@ def test_missing_value_names_the_absent_input():
     assert "no fluid_viscosity" in hot["poroelastic_time_missing"]
     assert hot["kinetic_time_missing"] == "no kinetic_time, and 1/(f+g): no attach_rate"
     # the modulus fallback: the longitudinal modulus stands in, and says so
-    assert hot["drained_modulus"] == pytest.approx(5000.0) and hot["drained_modulus_method"] == "M = elastic_modulus"
+    assert (
+        hot["drained_modulus"] == pytest.approx(5000.0)
+        and hot["drained_modulus_method"] == "M = elastic_modulus"
+    )
 
 
 def test_every_missing_value_has_a_reason_and_every_value_its_obs():
@@ -118,7 +134,9 @@ def test_missing_uncertainty_is_said_or_ignored_on_request():
     tab = _table()
     tab.loc[0, "transverse_modulus_u"] = np.nan
     out = dv.derive(tab)
-    assert np.isfinite(out["poroelastic_time"].iloc[0]) and np.isnan(out["poroelastic_time_u"].iloc[0])
+    assert np.isfinite(out["poroelastic_time"].iloc[0]) and np.isnan(
+        out["poroelastic_time_u"].iloc[0]
+    )
     assert out["poroelastic_time_missing"].iloc[0] == "uncertainty: no transverse_modulus_u"
     out = dv.derive(tab, {"unknown_uncertainty": "ignore"})
     assert np.isfinite(out["poroelastic_time_u"].iloc[0])
@@ -138,14 +156,27 @@ def test_lineage_names_every_input_and_the_weakest_basis():
     out = dv.derive(pd.DataFrame([row])).iloc[0]
     assert set(out["poroelastic_time_obs"].split(";")) == {"R1", "K1", "K2", "M1", "V1"}
     assert out["poroelastic_time_basis"] == "digitized"  # measured k and eta: nothing assumed
-    assert out["poroelastic_time_method"].startswith("l = fiber_radius; k = permeability; M = transverse_modulus")
+    assert out["poroelastic_time_method"].startswith(
+        "l = fiber_radius; k = permeability; M = transverse_modulus"
+    )
     assert set(out["kinetic_time_obs"].split(";")) == {"A1", "D1"}
     assert out["kinetic_time_basis"] == "proxy"
-    assert set(out["poro_kinetic_ratio_obs"].split(";")) == {"R1", "K1", "K2", "M1", "V1", "A1", "D1"}
+    assert set(out["poro_kinetic_ratio_obs"].split(";")) == {
+        "R1",
+        "K1",
+        "K2",
+        "M1",
+        "V1",
+        "A1",
+        "D1",
+    }
     assert out["poro_kinetic_ratio_basis"] == "proxy"
     # the estimated permeability rests on catalogue filament radii: 'assumed'
     est = dv.derive(_table()).iloc[0]
-    assert est["permeability_est_basis"] == "assumed" and est["permeability_est_obs"] == "lattice_spacing_d10-full"
+    assert (
+        est["permeability_est_basis"] == "assumed"
+        and est["permeability_est_obs"] == "lattice_spacing_d10-full"
+    )
 
 
 # -------------------------------------------------------- inputs never touched
@@ -178,8 +209,21 @@ def test_cli_leaves_the_dataset_untouched_and_writes_csv(demo_copy, tmp_path):
     assert len(rows) == demo_taxa()
     cols = set(rows[0])
     for key in ("poroelastic_time", "kinetic_time", "poro_kinetic_ratio", "frequency_ratio"):
-        for sfx in ("", "_u", "_basis", "_obs", "_method", "_missing", "_mc_median", "_mc_lo95", "_mc_hi95",
-                    "_mc_lo68", "_mc_hi68", "_mc_u", "_nonlinear"):
+        for sfx in (
+            "",
+            "_u",
+            "_basis",
+            "_obs",
+            "_method",
+            "_missing",
+            "_mc_median",
+            "_mc_lo95",
+            "_mc_hi95",
+            "_mc_lo68",
+            "_mc_hi68",
+            "_mc_u",
+            "_nonlinear",
+        ):
             assert key + sfx in cols, key + sfx
     assert {"regime", "regime_obs", "regime_basis"} <= cols
     done = [r for r in rows if r["poro_kinetic_ratio"]]
@@ -189,13 +233,20 @@ def test_cli_leaves_the_dataset_untouched_and_writes_csv(demo_copy, tmp_path):
             assert r["poro_kinetic_ratio_missing"].startswith("uncertainty: no ")
             continue
         assert float(r["poro_kinetic_ratio_u"]) > 0
-        assert float(r["poro_kinetic_ratio_mc_lo95"]) < float(r["poro_kinetic_ratio_mc_median"]) < float(r["poro_kinetic_ratio_mc_hi95"])
+        assert (
+            float(r["poro_kinetic_ratio_mc_lo95"])
+            < float(r["poro_kinetic_ratio_mc_median"])
+            < float(r["poro_kinetic_ratio_mc_hi95"])
+        )
         assert r["poro_kinetic_ratio_obs"]
         assert r["regime"] in ("kinetic", "hydraulic", "undetermined")
     for r in rows:
         if not r["poro_kinetic_ratio"]:
-            assert r["poro_kinetic_ratio_missing"].startswith("no ") or "; no " in r["poro_kinetic_ratio_missing"] \
+            assert (
+                r["poro_kinetic_ratio_missing"].startswith("no ")
+                or "; no " in r["poro_kinetic_ratio_missing"]
                 or ", and " in r["poro_kinetic_ratio_missing"]
+            )
     # the same table on standard output
     proc = run_main("derive", str(demo_copy))
     assert proc.returncode == 0 and proc.stdout.startswith("taxon,")
@@ -204,15 +255,18 @@ def test_cli_leaves_the_dataset_untouched_and_writes_csv(demo_copy, tmp_path):
 # ------------------------------------------------------------------ bad input
 
 
-@pytest.mark.parametrize("settings_, column", [
-    ({"permeability_model": "darcy"}, "derive.permeability_model"),
-    ({"no_such_setting": 1}, "derive.no_such_setting"),
-    ({"poisson_ratio": 0.7}, "derive.poisson_ratio"),
-    ({"thick_filament_radius_nm": -8.0}, "derive.thick_filament_radius_nm"),
-    ({"cytosol_viscosity_factor": "thick"}, "derive.cytosol_viscosity_factor"),
-    ({"length": "body_mass"}, "derive.length"),
-    ({"thin_per_thick": "no_such_column"}, "derive.thin_per_thick"),
-])
+@pytest.mark.parametrize(
+    "settings_, column",
+    [
+        ({"permeability_model": "darcy"}, "derive.permeability_model"),
+        ({"no_such_setting": 1}, "derive.no_such_setting"),
+        ({"poisson_ratio": 0.7}, "derive.poisson_ratio"),
+        ({"thick_filament_radius_nm": -8.0}, "derive.thick_filament_radius_nm"),
+        ({"cytosol_viscosity_factor": "thick"}, "derive.cytosol_viscosity_factor"),
+        ({"length": "body_mass"}, "derive.length"),
+        ({"thin_per_thick": "no_such_column"}, "derive.thin_per_thick"),
+    ],
+)
 def test_bad_setting_is_an_input_error_naming_it(settings_, column):
     with pytest.raises(InputError) as err:
         dv.derive(_table(), settings_)
@@ -223,8 +277,15 @@ def test_bad_setting_is_an_input_error_naming_it(settings_, column):
 
 def test_all_bad_settings_reported_at_once():
     with pytest.raises(InputError) as err:
-        dv.derive(_table(), {"permeability_model": "darcy", "poisson_ratio": 2.0, "frequency_bound": "fast"})
-    assert set(err.value.problems["column"]) == {"derive.permeability_model", "derive.poisson_ratio", "derive.frequency_bound"}
+        dv.derive(
+            _table(),
+            {"permeability_model": "darcy", "poisson_ratio": 2.0, "frequency_bound": "fast"},
+        )
+    assert set(err.value.problems["column"]) == {
+        "derive.permeability_model",
+        "derive.poisson_ratio",
+        "derive.frequency_bound",
+    }
 
 
 INJECTIONS = [
@@ -262,11 +323,14 @@ def _forbidden(*args, **kwargs):
     raise AssertionError("user text reached eval/exec/compile")
 
 
-@pytest.mark.parametrize("expr, problem", [
-    ("os", "neither a catalogue nor a derived quantity"),
-    ("2.5", "has no quantity in it"),
-    ("-fiber_length", "unexpected"),
-])
+@pytest.mark.parametrize(
+    "expr, problem",
+    [
+        ("os", "neither a catalogue nor a derived quantity"),
+        ("2.5", "has no quantity in it"),
+        ("-fiber_length", "unexpected"),
+    ],
+)
 def test_ratio_errors_say_what_is_wrong(expr, problem):
     with pytest.raises(InputError) as err:
         dv.derive(_table(), {"ratios": {"r": expr}})
@@ -275,7 +339,9 @@ def test_ratio_errors_say_what_is_wrong(expr, problem):
 
 def test_ratio_with_wrong_declared_unit_is_rejected():
     with pytest.raises(InputError) as err:
-        dv.derive(_table(), {"ratios": {"r": {"expression": "fiber_radius / kinetic_time", "unit": "Hz"}}})
+        dv.derive(
+            _table(), {"ratios": {"r": {"expression": "fiber_radius / kinetic_time", "unit": "Hz"}}}
+        )
     assert "dimension" in err.value.problems["message"].iloc[0]
 
 
@@ -294,7 +360,10 @@ def test_parse_ratio_never_evaluates_and_fails_only_with_valueerror(text):
 
 
 def test_ratio_grammar_examples():
-    assert dv.parse_ratio("a", "fiber_length / fiber_radius").exponents == (("fiber_length", 1.0), ("fiber_radius", -1.0))
+    assert dv.parse_ratio("a", "fiber_length / fiber_radius").exponents == (
+        ("fiber_length", 1.0),
+        ("fiber_radius", -1.0),
+    )
     r = dv.parse_ratio("b", "2 * (x * y^2)^(1/2) / z^-1")
     assert r.constant == 2.0
     assert dict(r.exponents) == {"x": 0.5, "y": 1.0, "z": 1.0}
@@ -302,7 +371,9 @@ def test_ratio_grammar_examples():
 
 def test_cli_bad_setting_exits_2_naming_it(tmp_path, capsys):
     folder = write_dataset(tmp_path / "d")
-    (folder / "comparo.toml").write_text('[derive]\npermeability_model = "darcy"\n', encoding="utf-8")
+    (folder / "comparo.toml").write_text(
+        '[derive]\npermeability_model = "darcy"\n', encoding="utf-8"
+    )
     before = tree_hash(folder)
     assert main(["derive", str(folder)]) == 2
     err = capsys.readouterr().err
@@ -314,7 +385,8 @@ def test_cli_injection_in_comparo_toml_exits_2(tmp_path, capsys, monkeypatch):
     monkeypatch.chdir(tmp_path)
     folder = write_dataset(tmp_path / "d")
     (folder / "comparo.toml").write_text(
-        "[ratios]\nevil = \"__import__('os').system('touch PWNED')\"\n", encoding="utf-8")
+        "[ratios]\nevil = \"__import__('os').system('touch PWNED')\"\n", encoding="utf-8"
+    )
     out = tmp_path / "derived.csv"
     assert main(["derive", str(folder), "-o", str(out)]) == 2
     err = capsys.readouterr().err
@@ -323,7 +395,7 @@ def test_cli_injection_in_comparo_toml_exits_2(tmp_path, capsys, monkeypatch):
 
 
 def test_bad_mc_count_is_usage_error():
-    from comparo.errors import UsageError
+    from comparo.base.errors import UsageError
 
     with pytest.raises(UsageError):
         dv.derive(_table(), mc=-5)
@@ -340,14 +412,23 @@ def test_user_ratio_units_through_pint():
     tab["fiber_length_u"] = 0.5
     tab["fiber_length_basis"] = "digitized"
     tab["fiber_length_obs"] = "L1"
-    out = dv.derive(tab, {"ratios": {"aspect": "fiber_length / fiber_radius",
-                                     "speed": "fiber_radius / kinetic_time",
-                                     "speed_mm": {"expression": "fiber_radius / kinetic_time", "unit": "mm/s"}}})
+    out = dv.derive(
+        tab,
+        {
+            "ratios": {
+                "aspect": "fiber_length / fiber_radius",
+                "speed": "fiber_radius / kinetic_time",
+                "speed_mm": {"expression": "fiber_radius / kinetic_time", "unit": "mm/s"},
+            }
+        },
+    )
     assert out["aspect"].iloc[0] == pytest.approx(5.0e-3 / 20.0e-6, rel=1e-12)
     assert out.attrs["units"]["aspect"] == "dimensionless"
-    from comparo.units import parse_unit
+    from comparo.base.units import parse_unit
 
-    assert parse_unit(out.attrs["units"]["speed"]).dimensionality == parse_unit("m/s").dimensionality
+    assert (
+        parse_unit(out.attrs["units"]["speed"]).dimensionality == parse_unit("m/s").dimensionality
+    )
     kt = out["kinetic_time"].iloc[0]
     assert out["speed"].iloc[0] == pytest.approx(20.0e-6 / kt, rel=1e-9)
     assert out["speed_mm"].iloc[0] == pytest.approx(20.0e-3 / kt, rel=1e-9)
@@ -377,9 +458,20 @@ def test_monte_carlo_is_seeded():
 
 def test_monte_carlo_intervals_are_ordered_and_flag_nonlinearity():
     out = dv.derive(_table(), mc=2000, seed=3)
-    for key in ("poroelastic_time", "poro_kinetic_ratio", "frequency_hydraulic_bound", "frequency_kinetic_bound"):
+    for key in (
+        "poroelastic_time",
+        "poro_kinetic_ratio",
+        "frequency_hydraulic_bound",
+        "frequency_kinetic_bound",
+    ):
         r = out.iloc[0]
-        assert r[f"{key}_mc_lo95"] < r[f"{key}_mc_lo68"] < r[f"{key}_mc_median"] < r[f"{key}_mc_hi68"] < r[f"{key}_mc_hi95"], key
+        assert (
+            r[f"{key}_mc_lo95"]
+            < r[f"{key}_mc_lo68"]
+            < r[f"{key}_mc_median"]
+            < r[f"{key}_mc_hi68"]
+            < r[f"{key}_mc_hi95"]
+        ), key
     # 30% relative input uncertainties on a quotient: MC sd and GUM differ by > 20%
     row = {"taxon": "wide", "temperature_c": 25.0}
     _q(row, "fiber_radius", 20.0, 12.0)
@@ -409,9 +501,13 @@ def test_demo_derived_values_recover_the_generating_parameters():
     ds = comparo.load(DEMO)
     out = dv.derive(comparo.per_taxon(ds), ds.settings.get("derive", {})).set_index("taxon")
     truth = pd.read_csv(DEMO / "truth.csv").set_index("taxon").add_prefix("true_")
-    pairs = {"poro_kinetic_ratio": "poro_kinetic_ratio", "frequency_ratio": "frequency_ratio",
-             "poroelastic_time": "poroelastic_time_s", "kinetic_time": "kinetic_time_s",
-             "frequency_hydraulic_bound": "frequency_hydraulic_bound_hz"}
+    pairs = {
+        "poro_kinetic_ratio": "poro_kinetic_ratio",
+        "frequency_ratio": "frequency_ratio",
+        "poroelastic_time": "poroelastic_time_s",
+        "kinetic_time": "kinetic_time_s",
+        "frequency_hydraulic_bound": "frequency_hydraulic_bound_hz",
+    }
     for key, col in pairs.items():
         both = out[[key, f"{key}_u"]].join(truth[f"true_{col}"]).dropna()
         assert len(both) >= 20, key

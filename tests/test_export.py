@@ -1,5 +1,5 @@
-"""comparo.export: Frictionless Data Package and Darwin Core MeasurementOrFact;
-comparo.csvsafe: formula-injection neutralisation."""
+"""comparo.report.exports: Frictionless Data Package and Darwin Core MeasurementOrFact;
+comparo.base.csvsafe: formula-injection neutralisation."""
 
 from __future__ import annotations
 
@@ -12,8 +12,8 @@ import pytest
 from support import DEMO, run_main, tree_hash, write_dataset
 
 import comparo
-from comparo.csvsafe import neutralise, to_csv
-from comparo.export import DWC_TERMS, to_datapackage, to_dwc
+from comparo.base.csvsafe import neutralise, to_csv
+from comparo.report.exports import DWC_TERMS, to_datapackage, to_dwc
 
 
 @pytest.fixture(scope="module")
@@ -57,7 +57,10 @@ def test_dwc_terms_and_values(demo_ds, tmp_path):
     traced = mof["measurementID"].str.contains(":")
     assert (~traced).sum() == len(demo_ds.observations)
     assert list(mof["measurementID"][~traced]) == list(demo_ds.observations["obs_id"])
-    assert traced.sum() > 0 and mof.loc[traced, "measurementMethod"].str.contains("computed from: trace:").all()
+    assert (
+        traced.sum() > 0
+        and mof.loc[traced, "measurementMethod"].str.contains("computed from: trace:").all()
+    )
     row = mof[mof["measurementID"] == "DEMO-PROXY"].iloc[0]
     assert "proxy taxon" in row["measurementMethod"] and "synthetic" in row["bibliographicCitation"]
     assert float(mof["measurementValue"].iloc[0]) == demo_ds.observations["value"].iloc[0]

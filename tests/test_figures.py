@@ -16,8 +16,8 @@ import pandas as pd
 import pytest
 from matplotlib.colors import to_hex
 
-from comparo import plots
-from comparo.lines import fit
+from comparo.fitting import fit
+from comparo.report import figures as plots
 
 UNIT = re.compile(r"\(.+\)")
 
@@ -75,14 +75,20 @@ def _check(fig) -> None:
 def table():
     rng = np.random.default_rng(3)
     m = 10 ** rng.uniform(-4, 2, 32)
-    f = 30 * m ** -0.2 * 10 ** rng.normal(0, 0.05, 32)
+    f = 30 * m**-0.2 * 10 ** rng.normal(0, 0.05, 32)
     clade = ["A", "B", "C"] * 10 + ["D", "D"]  # D: two taxa, no line of its own
-    return pd.DataFrame({"taxon": [f"t{i:02d}" for i in range(32)], "body_mass": m,
-                         "frequency_observed": f, "clade": clade})
+    return pd.DataFrame(
+        {
+            "taxon": [f"t{i:02d}" for i in range(32)],
+            "body_mass": m,
+            "frequency_observed": f,
+            "clade": clade,
+        }
+    )
 
 
 def test_scaling_plot_names_every_group_colour_and_units(table):
-    from comparo.catalog import load_catalog
+    from comparo.base.catalog import load_catalog
 
     res = fit(table, "body_mass", "frequency_observed", "sma", by="clade")
     pts = pd.DataFrame(list(res.points))
@@ -90,7 +96,7 @@ def test_scaling_plot_names_every_group_colour_and_units(table):
 
 
 def test_scaling_plot_of_a_derived_key_and_of_a_plain_table_have_units(table):
-    from comparo.catalog import load_catalog
+    from comparo.base.catalog import load_catalog
 
     d = table.assign(frequency_kinetic_bound=table["frequency_observed"] * 2)
     res = fit(d, "frequency_kinetic_bound", "frequency_observed", "ols")
@@ -103,39 +109,60 @@ def test_scaling_plot_of_a_derived_key_and_of_a_plain_table_have_units(table):
 
 
 def test_diagnostics_legend_names_flagged_and_other_points(table):
-    from comparo.flags import fit_flags
+    from comparo.fitting.flags import fit_flags
 
     res = fit(table, "body_mass", "frequency_observed", "ols")
     _check(plots.diagnostics(fit_flags(res, pd.DataFrame(list(res.points)))))
 
 
 def test_regime_coverage_sources_lambda_forest_and_tree_figures():
-    d = pd.DataFrame({"taxon": list("abcd"), "frequency_observed": [5.0, 50.0, 20.0, 8.0],
-                      "frequency_kinetic_bound": [50.0, 40.0, 10.0, 30.0],
-                      "frequency_hydraulic_bound": [5.0, 400.0, 12.0, 31.0],
-                      "poro_kinetic_ratio": [10.0, 0.1, 0.83, 0.97],
-                      "regime": ["hydraulic", "kinetic", "undetermined", None],
-                      "frequency_vs_bound": ["below", "above", "undetermined", None]})
+    d = pd.DataFrame(
+        {
+            "taxon": list("abcd"),
+            "frequency_observed": [5.0, 50.0, 20.0, 8.0],
+            "frequency_kinetic_bound": [50.0, 40.0, 10.0, 30.0],
+            "frequency_hydraulic_bound": [5.0, 400.0, 12.0, 31.0],
+            "poro_kinetic_ratio": [10.0, 0.1, 0.83, 0.97],
+            "regime": ["hydraulic", "kinetic", "undetermined", None],
+            "frequency_vs_bound": ["below", "above", "undetermined", None],
+        }
+    )
     _check(plots.regime_plot(d))
     _check(plots.coverage_map({"t1": {"body_mass": "reported", "fiber_radius": "proxy"}}))
     sources = pd.DataFrame({"source_id": ["s1", "s2"], "values": [5, 3], "taxa": [2, 1]})
     _check(plots.source_chart(sources))
-    _check(plots.lambda_profile([0, 0.5, 1], [1.0, 3.0, 2.0], lam_hat=0.6, loglik_hat=3.1,
-                                lam_ci=[0.3, 0.9]))
-    rows = [{"source_id": "S1", "n": 9, "slope": -0.2, "slope_ci": [-0.25, -0.15], "flips": False},
-            {"source_id": "S2", "n": 9, "slope": -0.1, "slope_ci": [-0.2, 0.0], "flips": True}]
+    _check(
+        plots.lambda_profile(
+            [0, 0.5, 1], [1.0, 3.0, 2.0], lam_hat=0.6, loglik_hat=3.1, lam_ci=[0.3, 0.9]
+        )
+    )
+    rows = [
+        {"source_id": "S1", "n": 9, "slope": -0.2, "slope_ci": [-0.25, -0.15], "flips": False},
+        {"source_id": "S2", "n": 9, "slope": -0.1, "slope_ci": [-0.2, 0.0], "flips": True},
+    ]
     _check(plots.forest_plot(rows, slope=-0.21, slope_ci=[-0.23, -0.19]))
-    _check(plots.tree_trait("((A:1,B:1):1,(C:1,D:1):1);", {"A": 1.0, "B": 10.0, "C": 100.0},
-                            label="Observed frequency (Hz)"))
+    _check(
+        plots.tree_trait(
+            "((A:1,B:1):1,(C:1,D:1):1);",
+            {"A": 1.0, "B": 10.0, "C": 100.0},
+            label="Observed frequency (Hz)",
+        )
+    )
 
 
 def _ellipse_trace(kind: str, a: float, b: float, value: float) -> SimpleNamespace:
     t = np.linspace(0, 3, 3 * 400 + 1)
     x, y = a * np.cos(2 * np.pi * t), b * np.sin(2 * np.pi * t)
     key = "loop_area" if kind == "strain_cycle" else "net_work"
-    return SimpleNamespace(signals=(t, x, y), kind=kind,
-                           cycle_bounds=[(0.0, 1.0), (1.0, 2.0), (2.0, 3.0)],
-                           values={key: (value, 0.0)}, trace_id="e1", taxon="Ellipsia", cycles=3)
+    return SimpleNamespace(
+        signals=(t, x, y),
+        kind=kind,
+        cycle_bounds=[(0.0, 1.0), (1.0, 2.0), (2.0, 3.0)],
+        values={key: (value, 0.0)},
+        trace_id="e1",
+        taxon="Ellipsia",
+        cycles=3,
+    )
 
 
 def _drawn_area(ax) -> float:

@@ -1,4 +1,4 @@
-"""Behaviour of comparo.lines (comparo.fit): the result object, input handling, simulations of CI coverage and test size."""
+"""Behaviour of comparo.fitting (comparo.fit): the result object, input handling, simulations of CI coverage and test size."""
 
 from __future__ import annotations
 
@@ -9,12 +9,30 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from comparo.errors import UsageError
-from comparo.lines import FitResult, common_slope_model2, fit, model2_line, ols_line
+from comparo.base.errors import UsageError
+from comparo.fitting import FitResult, common_slope_model2, fit, model2_line, ols_line
 
 CONTRACT_KEYS = {
-    "method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2", "ci_level",
-    "against", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded", "breakpoint", "sensitivity",
+    "method",
+    "x",
+    "y",
+    "log",
+    "n",
+    "slope",
+    "slope_ci",
+    "intercept",
+    "intercept_ci",
+    "r2",
+    "ci_level",
+    "against",
+    "lambda",
+    "lambda_ci",
+    "loglik",
+    "groups",
+    "outliers",
+    "excluded",
+    "breakpoint",
+    "sensitivity",
     "terms",
 }
 
@@ -23,8 +41,14 @@ def _table(n: int = 30, slope: float = 0.75, seed: int = 1, sd: float = 0.1) -> 
     rng = np.random.default_rng(seed)
     lx = rng.uniform(-2, 3, n)
     ly = 0.5 + slope * lx + rng.normal(0, sd, n)
-    return pd.DataFrame({"taxon": [f"t{i}" for i in range(n)], "body_mass": 10**lx, "freq": 10**ly,
-                         "clade": np.where(np.arange(n) % 2 == 0, "A", "B")})
+    return pd.DataFrame(
+        {
+            "taxon": [f"t{i}" for i in range(n)],
+            "body_mass": 10**lx,
+            "freq": 10**ly,
+            "clade": np.where(np.arange(n) % 2 == 0, "A", "B"),
+        }
+    )
 
 
 # ---------------------------------------------------------------- result object
@@ -56,7 +80,9 @@ def test_from_dict_round_trip_adapter():
     r = fit(_table(), "body_mass", "freq", "ols", against=1.0)
     back = FitResult.from_dict(r.to_dict())
     assert back.to_dict() == r.to_dict()
-    pg = dict(r.to_dict(), method="pgls", **{"lambda": 0.4, "lambda_ci": [0.1, 0.9], "loglik": -3.2})
+    pg = dict(
+        r.to_dict(), method="pgls", **{"lambda": 0.4, "lambda_ci": [0.1, 0.9], "loglik": -3.2}
+    )
     res = FitResult.from_dict(pg)
     assert res.lambda_ == 0.4 and res.lambda_ci == (0.1, 0.9) and res.to_dict()["lambda"] == 0.4
 
@@ -65,12 +91,19 @@ def test_frame_points_and_summary():
     r = fit(_table(), "body_mass", "freq", "sma", by="clade", breakpoint=True)
     f = r.to_frame()
     assert {"method", "group", "term", "estimate", "ci_low", "ci_high", "n"} <= set(f.columns)
-    assert f.loc[(f["term"] == "slope") & f["group"].isna(), "estimate"].item() == pytest.approx(r.slope)
+    assert f.loc[(f["term"] == "slope") & f["group"].isna(), "estimate"].item() == pytest.approx(
+        r.slope
+    )
     assert set(f["group"].dropna()) >= {"A", "B", "(common)", "(segmented)"}
     pts = r.points_frame()
     assert len(pts) == 30 and np.allclose(pts["residual"], pts["y_fit"] - pts["fitted"])
     text = r.summary()
-    assert "SMA" in text and "common exponent" in text and "one exponent for all groups?" in text and "breakpoint" in text
+    assert (
+        "SMA" in text
+        and "common exponent" in text
+        and "one exponent for all groups?" in text
+        and "breakpoint" in text
+    )
 
 
 def test_log_base_changes_intercept_not_slope():
@@ -96,7 +129,16 @@ def test_breakpoint_back_transformed():
     bp = r.breakpoint
     assert bp["x"] == pytest.approx(10 ** bp["x_log"])
     assert bp["x_ci"][0] < bp["x"] < bp["x_ci"][1]
-    assert {"x_log", "x", "x_ci", "slope_left", "slope_left_ci", "slope_right", "slope_right_ci", "p_single_line"} <= set(bp)
+    assert {
+        "x_log",
+        "x",
+        "x_ci",
+        "slope_left",
+        "slope_left_ci",
+        "slope_right",
+        "slope_right_ci",
+        "p_single_line",
+    } <= set(bp)
     assert bp["p_single_line"] > 0.01  # the data are one straight line
 
 
@@ -271,8 +313,13 @@ def test_lts_resists_a_cluster_of_bad_leverage_points():
     y = 1.0 * x + rng.normal(0, 0.05, 30)
     xb = np.full(6, 4.0) + rng.normal(0, 0.02, 6)
     yb = np.full(6, 0.0) + rng.normal(0, 0.02, 6)
-    t = pd.DataFrame({"taxon": [f"c{i}" for i in range(30)] + [f"bad{i}" for i in range(6)],
-                      "m": np.r_[x, xb], "f": np.r_[y, yb]})
+    t = pd.DataFrame(
+        {
+            "taxon": [f"c{i}" for i in range(30)] + [f"bad{i}" for i in range(6)],
+            "m": np.r_[x, xb],
+            "f": np.r_[y, yb],
+        }
+    )
     ols = fit(t, "m", "f", "ols", log="none")
     lts = fit(t, "m", "f", "lts", log="none")
     assert ols.slope < 0.5
@@ -286,7 +333,7 @@ def test_elevation_test_size_when_groups_lie_apart_on_one_line():
     groups of 25 bivariate-normal points on one SMA line (error on both axes, sd ratio = slope), 2 units apart
     along it. The test
     allows for the error of the common slope, so it rejects in 2-8% at 5% (binomial sd 1.1 points)."""
-    from comparo.lines import group_fits
+    from comparo.fitting import group_fits
 
     rng = np.random.default_rng(31)
     g = np.repeat(["A", "B"], 25)
@@ -308,4 +355,6 @@ def test_perfect_line_gives_a_zero_width_ci(method):
     t = pd.DataFrame({"taxon": [str(i) for i in range(40)], "x": x, "y": 3 * x**0.5})
     r = fit(t, "x", "y", method)
     assert r.slope == pytest.approx(0.5, abs=1e-12)
-    assert r.slope_ci[0] == pytest.approx(0.5, abs=1e-9) and r.slope_ci[1] == pytest.approx(0.5, abs=1e-9)
+    assert r.slope_ci[0] == pytest.approx(0.5, abs=1e-9) and r.slope_ci[1] == pytest.approx(
+        0.5, abs=1e-9
+    )

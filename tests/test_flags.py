@@ -1,4 +1,4 @@
-"""Behaviour of comparo.flags: planted outliers, rule bookkeeping, robust and LTS evidence."""
+"""Behaviour of comparo.fitting.flags: planted outliers, rule bookkeeping, robust and LTS evidence."""
 
 from __future__ import annotations
 
@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from comparo.flags import OUTLIER_RULES, bonferroni_cut, flag_points
-from comparo.lines import fit
+from comparo.fitting import fit
+from comparo.fitting.flags import OUTLIER_RULES, bonferroni_cut, flag_points
 
 
 def _planted(seed: int, n: int = 100):
@@ -102,10 +102,17 @@ def test_drop_flagged_drops_planted_and_refit_is_closer_to_true_slope():
     assert d["refit_without_flagged"]["fit"]["n"] == n - 3
     assert {k: v for k, v in d.items() if k != "refit_without_flagged"} == plain.to_dict()
     text = r.summary()
-    assert "refit without flagged points" in text and all(f"dropped {labels[i]}" in text for i in planted)
+    assert "refit without flagged points" in text and all(
+        f"dropped {labels[i]}" in text for i in planted
+    )
     frame = r.to_frame()
     assert set(frame.loc[frame["group"] == "(dropped)", "term"]) == {labels[i] for i in planted}
-    assert frame.loc[(frame["group"] == "(without flagged)") & (frame["term"] == "slope"), "estimate"].item() == rf.fit.slope
+    assert (
+        frame.loc[
+            (frame["group"] == "(without flagged)") & (frame["term"] == "slope"), "estimate"
+        ].item()
+        == rf.fit.slope
+    )
 
 
 def test_nothing_dropped_without_the_option():
@@ -117,8 +124,8 @@ def test_nothing_dropped_without_the_option():
 
 
 def test_drop_rule_selection_and_clean_case():
-    from comparo.errors import UsageError
-    from comparo.flags import ALL_RULES, DEFAULT_DROP_RULES, drop_rules
+    from comparo.base.errors import UsageError
+    from comparo.fitting.flags import ALL_RULES, DEFAULT_DROP_RULES, drop_rules
 
     assert drop_rules(True) == drop_rules("default") == DEFAULT_DROP_RULES == OUTLIER_RULES
     assert drop_rules("outlier,cook") == ("bonferroni", "cooks_d", "robust_weight", "lts_residual")
@@ -129,10 +136,18 @@ def test_drop_rule_selection_and_clean_case():
     t = pd.DataFrame({"taxon": labels, "m": 10**x, "f": 10**y})
     lev = fit(t, "m", "f", "ols", drop_flagged="leverage").refit_without_flagged
     flagged = {o["label"] for o in fit(t, "m", "f", "ols").outliers if "leverage" in o["reason"]}
-    assert {d["label"] for d in lev.dropped} == flagged and all(d["rules"] == ["leverage"] for d in lev.dropped)
+    assert {d["label"] for d in lev.dropped} == flagged and all(
+        d["rules"] == ["leverage"] for d in lev.dropped
+    )
     rng = np.random.default_rng(4)
     xc = rng.uniform(0, 2, 40)
-    clean = pd.DataFrame({"taxon": [f"c{i}" for i in range(40)], "m": 10**xc, "f": 10 ** (0.3 * xc + rng.normal(0, 0.05, 40))})
+    clean = pd.DataFrame(
+        {
+            "taxon": [f"c{i}" for i in range(40)],
+            "m": 10**xc,
+            "f": 10 ** (0.3 * xc + rng.normal(0, 0.05, 40)),
+        }
+    )
     rc = fit(clean, "m", "f", "sma", drop_flagged="bonferroni").refit_without_flagged
     assert rc.dropped == () and rc.fit is None and "nothing was dropped" in rc.note
 
@@ -148,10 +163,14 @@ def test_drop_flagged_lts_exposes_and_drops_a_masked_cluster():
     r = fit(t, "m", "f", "lts", drop_flagged="lts_residual")
     dropped = {d["label"] for d in r.refit_without_flagged.dropped}
     cluster = {f"q{i}" for i in range(35, 40)}
-    assert cluster <= dropped and len(dropped - cluster) <= 2  # |z| > 2.5 hits ~1% of clean normal points
+    assert (
+        cluster <= dropped and len(dropped - cluster) <= 2
+    )  # |z| > 2.5 hits ~1% of clean normal points
     assert r.refit_without_flagged.fit.slope == pytest.approx(0.5, abs=0.05)
     ols = fit(t, "m", "f", "ols", drop_flagged="bonferroni").refit_without_flagged
-    assert not {d["label"] for d in ols.dropped} & {f"q{i}" for i in range(35, 40)}  # masked under OLS
+    assert not {d["label"] for d in ols.dropped} & {
+        f"q{i}" for i in range(35, 40)
+    }  # masked under OLS
 
 
 def test_closed_form_influence_matches_statsmodels():
@@ -160,7 +179,7 @@ def test_closed_form_influence_matches_statsmodels():
     from statsmodels.api import OLS, add_constant
     from statsmodels.stats.outliers_influence import OLSInfluence
 
-    from comparo.flags import influence
+    from comparo.fitting.flags import influence
 
     x, y, _, _ = _planted(9)
     ref = OLSInfluence(OLS(y, add_constant(x)).fit())
@@ -183,27 +202,31 @@ def test_whitened_flags_equal_an_independent_gls_route():
     from statsmodels.regression.linear_model import OLS
     from statsmodels.stats.outliers_influence import OLSInfluence
 
-    from comparo.flags import fit_flags
+    from comparo.fitting.flags import fit_flags
 
     newick = "(((a:1,b:1):1,c:2):1.5,((d:0.5,e:0.5):2,(f:1.2,g:1.2):1.3):1);"
     tips = list("abcdefg")
     # root-to-MRCA distances read off the tree by hand
-    C = np.array([
-        [3.5, 2.5, 1.5, 0, 0, 0, 0],
-        [2.5, 3.5, 1.5, 0, 0, 0, 0],
-        [1.5, 1.5, 3.5, 0, 0, 0, 0],
-        [0, 0, 0, 3.5, 3.0, 1.0, 1.0],
-        [0, 0, 0, 3.0, 3.5, 1.0, 1.0],
-        [0, 0, 0, 1.0, 1.0, 3.5, 2.3],
-        [0, 0, 0, 1.0, 1.0, 2.3, 3.5],
-    ])
+    C = np.array(
+        [
+            [3.5, 2.5, 1.5, 0, 0, 0, 0],
+            [2.5, 3.5, 1.5, 0, 0, 0, 0],
+            [1.5, 1.5, 3.5, 0, 0, 0, 0],
+            [0, 0, 0, 3.5, 3.0, 1.0, 1.0],
+            [0, 0, 0, 3.0, 3.5, 1.0, 1.0],
+            [0, 0, 0, 1.0, 1.0, 3.5, 2.3],
+            [0, 0, 0, 1.0, 1.0, 2.3, 3.5],
+        ]
+    )
     lam = 0.7
     Cl = lam * C + (1 - lam) * np.diag(np.diag(C))
     rng = np.random.default_rng(11)
     x = rng.uniform(0, 3, 7)
     y = 0.4 + 0.8 * x + rng.normal(0, 0.3, 7)
     y[2] += 1.5
-    t = pd.DataFrame({"taxon": tips[::-1], "m": 10 ** x[::-1], "f": 10 ** y[::-1]})  # rows not in tip order
+    t = pd.DataFrame(
+        {"taxon": tips[::-1], "m": 10 ** x[::-1], "f": 10 ** y[::-1]}
+    )  # rows not in tip order
     res = fit(t, "m", "f", "pgls", tree=newick, lambda_=lam)
     pts = pd.DataFrame({"label": t["taxon"], "x_fit": np.log10(t["m"]), "y_fit": np.log10(t["f"])})
     rep = fit_flags(res, pts, tree=newick)
@@ -224,7 +247,7 @@ def test_whitened_flags_equal_an_independent_gls_route():
 def test_whitening_refuses_a_singular_covariance():
     """Two tips with zero-length edges to the same parent have identical rows of C: at lambda = 1 the covariance
     is singular and no whitened residual exists (a clear ValueError, not a wrong number)."""
-    from comparo.flags import phylo_whitener
+    from comparo.fitting.flags import phylo_whitener
     from comparo.phylo import flat_tree
 
     ft = flat_tree("((a:0,b:0):1,(c:0.5,d:0.5):0.5);")

@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 from support import OBS_HEADER, SOURCES, VALID_ROWS, run_cli, run_main, tree_hash, write_dataset
 
-from comparo.cli import main
+from comparo.cli.main import main
 
 
 def _rows_with(i: int, old: str, new: str) -> list[str]:
@@ -35,7 +35,7 @@ def _bytes(folder, name: str, data: bytes):
 
 
 def _text(rows, header=OBS_HEADER, sep="\n"):
-    return (header + sep + sep.join(rows) + sep)
+    return header + sep + sep.join(rows) + sep
 
 
 def _xlsx(folder, fill):
@@ -75,11 +75,13 @@ def _taxa(folder, text: str, rows=None):
     (folder / "taxa.csv").write_text(text, encoding="utf-8")
 
 
-_DOI_SOURCES = ("source_id,citation,year,doi\n"
-                "s1,Invented A. (2001) One,2001,https://doi.org/10.1000/abc\n"
-                "s2,Invented B. (2002) Two,2002,doi: 10.1000/XYZ.2\n"
-                "s3,Invented C. (2003) Three,2003,http://dx.doi.org/10.12345/q-1\n"
-                "s4,Invented D. (2004) Four,2004,see the journal\n")
+_DOI_SOURCES = (
+    "source_id,citation,year,doi\n"
+    "s1,Invented A. (2001) One,2001,https://doi.org/10.1000/abc\n"
+    "s2,Invented B. (2002) Two,2002,doi: 10.1000/XYZ.2\n"
+    "s3,Invented C. (2003) Three,2003,http://dx.doi.org/10.12345/q-1\n"
+    "s4,Invented D. (2004) Four,2004,see the journal\n"
+)
 _BIB = """@article{s1,
   author = {Invented, A. and Madeup, B. and Notreal, C.},
   title = {A {made-up} study of fibres.},
@@ -104,12 +106,27 @@ def _toml(folder, text: str):
 
 def _markup(folder):
     """Console markup in names, ids, cells, column names, sources, taxa and settings."""
-    rows = [r.replace("Table 1", "[/b]").replace("Bombus terrestris", "Bombus [/red]terrestris").replace(",s1,", ",[/i]s1,") + ",[bold]x[/]" for r in VALID_ROWS]
+    rows = [
+        r.replace("Table 1", "[/b]")
+        .replace("Bombus terrestris", "Bombus [/red]terrestris")
+        .replace(",s1,", ",[/i]s1,")
+        + ",[bold]x[/]"
+        for r in VALID_ROWS
+    ]
     rows[0] = rows[0].replace("o1,", "[/i]o1,", 1)
-    write_dataset(folder, rows, header=OBS_HEADER + ",[/red]notes",
-                  sources="source_id,citation,year\n[/i]s1,[/b] One [link=x],2001\ns2,Two [/red],2002\n")
-    (folder / "taxa.csv").write_text("taxon,clade\nApis mellifera,[/red]\nBombus [/red]terrestris,[b]\n", encoding="utf-8")
-    (folder / "comparo.toml").write_text('title = "[/b]"\n[quantities.twitch_x]\nunit = "ms"\nlabel = "[/red] twitch"\n', encoding="utf-8")
+    write_dataset(
+        folder,
+        rows,
+        header=OBS_HEADER + ",[/red]notes",
+        sources="source_id,citation,year\n[/i]s1,[/b] One [link=x],2001\ns2,Two [/red],2002\n",
+    )
+    (folder / "taxa.csv").write_text(
+        "taxon,clade\nApis mellifera,[/red]\nBombus [/red]terrestris,[b]\n", encoding="utf-8"
+    )
+    (folder / "comparo.toml").write_text(
+        'title = "[/b]"\n[quantities.twitch_x]\nunit = "ms"\nlabel = "[/red] twitch"\n',
+        encoding="utf-8",
+    )
 
 
 def _ladder(n: int) -> str:
@@ -125,58 +142,142 @@ _TRACE_HEADER = "trace_id,file,taxon,source_id,locator,kind,time_column,time_uni
 def _traces(folder, index_rows: list[str], files: dict[str, bytes | str]):
     """The valid dataset plus traces.csv and trace files (hostile ones by case)."""
     write_dataset(folder)
-    (folder / "traces.csv").write_text("\n".join([_TRACE_HEADER, *index_rows]) + "\n", encoding="utf-8")
+    (folder / "traces.csv").write_text(
+        "\n".join([_TRACE_HEADER, *index_rows]) + "\n", encoding="utf-8"
+    )
     for name, data in files.items():
         path = folder / name
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_bytes(data if isinstance(data, bytes) else data.encode("utf-8"))
 
 
-def _loop_text(n: int = 400, *, scale: float = 1.0, cycles: float = 6.3, time_scale: float = 1.0) -> str:
+def _loop_text(
+    n: int = 400, *, scale: float = 1.0, cycles: float = 6.3, time_scale: float = 1.0
+) -> str:
     import math
 
-    return "t,x,y\n" + "\n".join(f"{i * time_scale / n!r},{scale * math.sin(2 * math.pi * cycles * i / n)!r},{scale * math.cos(2 * math.pi * cycles * i / n)!r}" for i in range(n)) + "\n"
+    return (
+        "t,x,y\n"
+        + "\n".join(
+            f"{i * time_scale / n!r},{scale * math.sin(2 * math.pi * cycles * i / n)!r},{scale * math.cos(2 * math.pi * cycles * i / n)!r}"
+            for i in range(n)
+        )
+        + "\n"
+    )
 
 
 _WL = "W1,{file},Apis mellifera,s1,Fig. 1,work_loop,t,s,x,mm,y,mN"
 _SC = "S1,{file},Bombus terrestris,s2,Fig. 2,strain_cycle,t,s,x,{u},y,{u}"
 TRACE_CASES = {
-    "trace-valid": lambda f: _traces(f, [_WL.format(file="w.csv"), _SC.format(file="s.csv", u="%")], {"w.csv": _loop_text(), "s.csv": _loop_text()}),
+    "trace-valid": lambda f: _traces(
+        f,
+        [_WL.format(file="w.csv"), _SC.format(file="s.csv", u="%")],
+        {"w.csv": _loop_text(), "s.csv": _loop_text()},
+    ),
     "trace-missing-file": lambda f: _traces(f, [_WL.format(file="gone.csv")], {}),
     "trace-path-escape": lambda f: _traces(f, [_WL.format(file="../../etc/passwd")], {}),
     "trace-absolute-path": lambda f: _traces(f, [_WL.format(file="/etc/hostname")], {}),
     "trace-is-a-folder": lambda f: (_traces(f, [_WL.format(file="d")], {}), (f / "d").mkdir()),
     "trace-empty-file": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": ""}),
-    "trace-binary-file": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": b"\x00\x01\x02PK"}),
-    "trace-time-backwards": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(time_scale=-1.0)}),
-    "trace-text-cell": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text().replace("\n0.5,", "\n0.5x,")}),
-    "trace-one-cycle": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(cycles=1.2)}),
-    "trace-flat": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=0.0)}),
-    "trace-huge-values": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=1e200)}),
-    "trace-tiny-values": lambda f: _traces(f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=1e-100)}),
-    "trace-strain-below-minus-one": lambda f: _traces(f, [_SC.format(file="s.csv", u="1")], {"s.csv": _loop_text(scale=1.5)}),
-    "trace-strain-percent-as-one": lambda f: _traces(f, [_SC.format(file="s.csv", u="1")], {"s.csv": _loop_text(scale=0.9)}),
-    "trace-unit-unknown": lambda f: _traces(f, [_WL.format(file="w.csv").replace(",mm,", ",blorp,")], {"w.csv": _loop_text()}),
-    "trace-unit-wrong-kind": lambda f: _traces(f, [_SC.format(file="s.csv", u="mm")], {"s.csv": _loop_text()}),
-    "trace-kind-unknown": lambda f: _traces(f, [_WL.format(file="w.csv").replace("work_loop", "loop")], {"w.csv": _loop_text()}),
-    "trace-column-missing": lambda f: _traces(f, [_WL.format(file="w.csv").replace(",y,", ",force,")], {"w.csv": _loop_text()}),
+    "trace-binary-file": lambda f: _traces(
+        f, [_WL.format(file="w.csv")], {"w.csv": b"\x00\x01\x02PK"}
+    ),
+    "trace-time-backwards": lambda f: _traces(
+        f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(time_scale=-1.0)}
+    ),
+    "trace-text-cell": lambda f: _traces(
+        f, [_WL.format(file="w.csv")], {"w.csv": _loop_text().replace("\n0.5,", "\n0.5x,")}
+    ),
+    "trace-one-cycle": lambda f: _traces(
+        f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(cycles=1.2)}
+    ),
+    "trace-flat": lambda f: _traces(
+        f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=0.0)}
+    ),
+    "trace-huge-values": lambda f: _traces(
+        f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=1e200)}
+    ),
+    "trace-tiny-values": lambda f: _traces(
+        f, [_WL.format(file="w.csv")], {"w.csv": _loop_text(scale=1e-100)}
+    ),
+    "trace-strain-below-minus-one": lambda f: _traces(
+        f, [_SC.format(file="s.csv", u="1")], {"s.csv": _loop_text(scale=1.5)}
+    ),
+    "trace-strain-percent-as-one": lambda f: _traces(
+        f, [_SC.format(file="s.csv", u="1")], {"s.csv": _loop_text(scale=0.9)}
+    ),
+    "trace-unit-unknown": lambda f: _traces(
+        f, [_WL.format(file="w.csv").replace(",mm,", ",blorp,")], {"w.csv": _loop_text()}
+    ),
+    "trace-unit-wrong-kind": lambda f: _traces(
+        f, [_SC.format(file="s.csv", u="mm")], {"s.csv": _loop_text()}
+    ),
+    "trace-kind-unknown": lambda f: _traces(
+        f, [_WL.format(file="w.csv").replace("work_loop", "loop")], {"w.csv": _loop_text()}
+    ),
+    "trace-column-missing": lambda f: _traces(
+        f, [_WL.format(file="w.csv").replace(",y,", ",force,")], {"w.csv": _loop_text()}
+    ),
     "trace-index-without-file-column": lambda f: _traces(f, ["W1"], {}),
-    "trace-source-unknown": lambda f: _traces(f, [_WL.format(file="w.csv").replace(",s1,", ",s9,")], {"w.csv": _loop_text()}),
-    "trace-duplicate-id": lambda f: _traces(f, [_WL.format(file="w.csv")] * 2, {"w.csv": _loop_text()}),
-    "trace-taxon-only-in-traces": lambda f: _traces(f, [_WL.format(file="w.csv").replace("Apis mellifera", "Vespa crabro")], {"w.csv": _loop_text()}),
-    "trace-nested-folder-and-ms": lambda f: _traces(f, [_WL.format(file="sub/w.csv").replace(",t,s,", ",t,ms,")], {"sub/w.csv": _loop_text(time_scale=1000.0)}),
+    "trace-source-unknown": lambda f: _traces(
+        f, [_WL.format(file="w.csv").replace(",s1,", ",s9,")], {"w.csv": _loop_text()}
+    ),
+    "trace-duplicate-id": lambda f: _traces(
+        f, [_WL.format(file="w.csv")] * 2, {"w.csv": _loop_text()}
+    ),
+    "trace-taxon-only-in-traces": lambda f: _traces(
+        f,
+        [_WL.format(file="w.csv").replace("Apis mellifera", "Vespa crabro")],
+        {"w.csv": _loop_text()},
+    ),
+    "trace-nested-folder-and-ms": lambda f: _traces(
+        f,
+        [_WL.format(file="sub/w.csv").replace(",t,s,", ",t,ms,")],
+        {"sub/w.csv": _loop_text(time_scale=1000.0)},
+    ),
 }
 
 CASES = {
     **TRACE_CASES,
-    "semicolon-delimiter": lambda f: _bytes(f, "observations.csv", _text([r.replace(",", ";") for r in VALID_ROWS], OBS_HEADER.replace(",", ";")).encode()),
-    "tab-in-csv": lambda f: _bytes(f, "observations.csv", _text([r.replace(",", "\t") for r in VALID_ROWS], OBS_HEADER.replace(",", "\t")).encode()),
-    "pipe-delimiter": lambda f: _bytes(f, "observations.csv", _text([r.replace(",", "|") for r in VALID_ROWS], OBS_HEADER.replace(",", "|")).encode()),
+    "semicolon-delimiter": lambda f: _bytes(
+        f,
+        "observations.csv",
+        _text([r.replace(",", ";") for r in VALID_ROWS], OBS_HEADER.replace(",", ";")).encode(),
+    ),
+    "tab-in-csv": lambda f: _bytes(
+        f,
+        "observations.csv",
+        _text([r.replace(",", "\t") for r in VALID_ROWS], OBS_HEADER.replace(",", "\t")).encode(),
+    ),
+    "pipe-delimiter": lambda f: _bytes(
+        f,
+        "observations.csv",
+        _text([r.replace(",", "|") for r in VALID_ROWS], OBS_HEADER.replace(",", "|")).encode(),
+    ),
     "decimal-comma-quoted": lambda f: write_dataset(f, _rows_with(0, ",100,", ',"100,5",')),
-    "utf8-bom": lambda f: _bytes(f, "observations.csv", b"\xef\xbb\xbf" + _text(VALID_ROWS).encode()),
+    "utf8-bom": lambda f: _bytes(
+        f, "observations.csv", b"\xef\xbb\xbf" + _text(VALID_ROWS).encode()
+    ),
     "utf16": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode("utf-16")),
-    "latin1-accents": lambda f: _bytes(f, "observations.csv", _text(_rows_with(0, "Apis mellifera", "Apís mellifèra")).encode("latin-1")),
-    "mixed-line-endings": lambda f: _bytes(f, "observations.csv", (OBS_HEADER + "\r\n" + VALID_ROWS[0] + "\n" + VALID_ROWS[1] + "\r" + "\r\n".join(VALID_ROWS[2:]) + "\n").encode()),
+    "latin1-accents": lambda f: _bytes(
+        f,
+        "observations.csv",
+        _text(_rows_with(0, "Apis mellifera", "Apís mellifèra")).encode("latin-1"),
+    ),
+    "mixed-line-endings": lambda f: _bytes(
+        f,
+        "observations.csv",
+        (
+            OBS_HEADER
+            + "\r\n"
+            + VALID_ROWS[0]
+            + "\n"
+            + VALID_ROWS[1]
+            + "\r"
+            + "\r\n".join(VALID_ROWS[2:])
+            + "\n"
+        ).encode(),
+    ),
     "crlf": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS, sep="\r\n").encode()),
     "xlsx-merged-header": lambda f: _xlsx(f, _merged),
     "xlsx-formula": lambda f: _xlsx(f, _formulas),
@@ -198,54 +299,144 @@ CASES = {
     "n-huge": lambda f: write_dataset(f, _rows_with(1, ",10,", ",99999999999999999999999,")),
     "cell-10000-chars": lambda f: write_dataset(f, _rows_with(0, "Table 1", "x" * 10000)),
     "taxon-10000-chars": lambda f: write_dataset(f, _rows_with(0, "Apis mellifera", "A" * 10000)),
-    "duplicate-columns": lambda f: write_dataset(f, [r + "," + r.split(",")[1] for r in VALID_ROWS], header=OBS_HEADER + ",taxon"),
+    "duplicate-columns": lambda f: write_dataset(
+        f, [r + "," + r.split(",")[1] for r in VALID_ROWS], header=OBS_HEADER + ",taxon"
+    ),
     "unit-microns": lambda f: write_dataset(f, _rows_with(1, ",um,", ",microns,")),
     "unit-um2": lambda f: write_dataset(f, _rows_with(1, ",um,", ",µm²,")),
     "unit-garbage-expression": lambda f: write_dataset(f, _rows_with(1, ",um,", ",um**(((,")),
     "unit-huge-exponent": lambda f: write_dataset(f, _rows_with(1, ",um,", ",um**100000000,")),
-    "newick-unbalanced": lambda f: (write_dataset(f), (f / "tree.nwk").write_text("((Apis_mellifera:1,Bombus_terrestris:1):1;\n")),
-    "newick-extra-close": lambda f: (write_dataset(f), (f / "tree.nwk").write_text("(Apis_mellifera:1,Bombus_terrestris:1));\n")),
-    "newick-ladder-50000": lambda f: (write_dataset(f), (f / "tree.nwk").write_text(_ladder(50000))),
-    "bibtex-broken-braces": lambda f: (write_dataset(f), (f / "sources.csv").unlink(), (f / "sources.bib").write_text("@article{s1, title={A {nested title}, year={2001}\n@book{s2, title=}}}\n")),
-    "bibtex-empty": lambda f: (write_dataset(f), (f / "sources.csv").unlink(), (f / "sources.bib").write_text("")),
-    "sources-utf16": lambda f: (write_dataset(f), (f / "sources.csv").write_bytes(SOURCES.encode("utf-16"))),
-    "nul-bytes-in-cell": lambda f: _bytes(f, "observations.csv", _text(_rows_with(0, "Table 1", "Tab\x00le")).encode()),
+    "newick-unbalanced": lambda f: (
+        write_dataset(f),
+        (f / "tree.nwk").write_text("((Apis_mellifera:1,Bombus_terrestris:1):1;\n"),
+    ),
+    "newick-extra-close": lambda f: (
+        write_dataset(f),
+        (f / "tree.nwk").write_text("(Apis_mellifera:1,Bombus_terrestris:1));\n"),
+    ),
+    "newick-ladder-50000": lambda f: (
+        write_dataset(f),
+        (f / "tree.nwk").write_text(_ladder(50000)),
+    ),
+    "bibtex-broken-braces": lambda f: (
+        write_dataset(f),
+        (f / "sources.csv").unlink(),
+        (f / "sources.bib").write_text(
+            "@article{s1, title={A {nested title}, year={2001}\n@book{s2, title=}}}\n"
+        ),
+    ),
+    "bibtex-empty": lambda f: (
+        write_dataset(f),
+        (f / "sources.csv").unlink(),
+        (f / "sources.bib").write_text(""),
+    ),
+    "sources-utf16": lambda f: (
+        write_dataset(f),
+        (f / "sources.csv").write_bytes(SOURCES.encode("utf-16")),
+    ),
+    "nul-bytes-in-cell": lambda f: _bytes(
+        f, "observations.csv", _text(_rows_with(0, "Table 1", "Tab\x00le")).encode()
+    ),
     "formula-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "=HYPERLINK(1)")),
     "quote-unbalanced": lambda f: write_dataset(f, _rows_with(0, "Table 1", '"Table 1')),
-    "toml-binary": lambda f: (write_dataset(f), (f / "comparo.toml").write_bytes(b"\xff\xfe\x00garbage")),
-    "unicode-nfd-and-nfc": lambda f: _taxa(f, f"taxon,clade\n{_NFC},bees\nBombus terrestris,bees\n", [r.replace("Apis mellifera", _NFD if i == 0 else _NFC) for i, r in enumerate(VALID_ROWS)]),
-    "unicode-nfd-header": lambda f: _taxa(f, f"taxon,{unicodedata.normalize('NFC', 'región')},{unicodedata.normalize('NFD', 'región')}\nApis mellifera,a,b\n"),
+    "toml-binary": lambda f: (
+        write_dataset(f),
+        (f / "comparo.toml").write_bytes(b"\xff\xfe\x00garbage"),
+    ),
+    "unicode-nfd-and-nfc": lambda f: _taxa(
+        f,
+        f"taxon,clade\n{_NFC},bees\nBombus terrestris,bees\n",
+        [r.replace("Apis mellifera", _NFD if i == 0 else _NFC) for i, r in enumerate(VALID_ROWS)],
+    ),
+    "unicode-nfd-header": lambda f: _taxa(
+        f,
+        f"taxon,{unicodedata.normalize('NFC', 'región')},{unicodedata.normalize('NFD', 'región')}\nApis mellifera,a,b\n",
+    ),
     "unit-underflow": lambda f: write_dataset(f, _rows_with(0, ",100,mg", ",1e-320,mg")),
     "unit-overflow": lambda f: write_dataset(f, _rows_with(0, ",100,mg", ",1e308,Mg")),
-    "uncertainty-overflow": lambda f: write_dataset(f, _rows_with(1, ",12,um,1,sd", ",12,um,1e307,sd")),
+    "uncertainty-overflow": lambda f: write_dataset(
+        f, _rows_with(1, ",12,um,1,sd", ",12,um,1e307,sd")
+    ),
     "value-1e-400": lambda f: write_dataset(f, _rows_with(0, ",100,", ",1e-400,")),
     "value-hex": lambda f: write_dataset(f, _rows_with(0, ",100,", ",0x1A,")),
-    "value-thousands-dot-decimal-comma": lambda f: write_dataset(f, _rows_with(0, ",100,", ',"1.234,5",')),
-    "temperature-factor-extreme": lambda f: write_dataset(f, [r + ("," if i != 4 else ",1e10") for i, r in enumerate(_rows_with(4, ",25", ",1000"))], header=OBS_HEADER + ",q10"),
-    "weights-extreme": lambda f: write_dataset(f, [*VALID_ROWS, "o7,Apis mellifera,muscle_mass,1e140,mg,1e-133,sd,,s1,Table 3,reported,,,", "o8,Apis mellifera,muscle_mass,2e140,mg,1e-133,sd,,s2,Table 3,reported,,,"]),
+    "value-thousands-dot-decimal-comma": lambda f: write_dataset(
+        f, _rows_with(0, ",100,", ',"1.234,5",')
+    ),
+    "temperature-factor-extreme": lambda f: write_dataset(
+        f,
+        [r + ("," if i != 4 else ",1e10") for i, r in enumerate(_rows_with(4, ",25", ",1000"))],
+        header=OBS_HEADER + ",q10",
+    ),
+    "weights-extreme": lambda f: write_dataset(
+        f,
+        [
+            *VALID_ROWS,
+            "o7,Apis mellifera,muscle_mass,1e140,mg,1e-133,sd,,s1,Table 3,reported,,,",
+            "o8,Apis mellifera,muscle_mass,2e140,mg,1e-133,sd,,s2,Table 3,reported,,,",
+        ],
+    ),
     "markup-in-cells": lambda f: _markup(f),
-    "column-named-row": lambda f: write_dataset(f, [r + f",{i}" for i, r in enumerate(VALID_ROWS)], header=OBS_HEADER + ",row"),
-    "column-named-status": lambda f: write_dataset(f, [r + ",x,y" for r in VALID_ROWS], header=OBS_HEADER + ",status,_lv"),
-    "taxa-column-named-quantity": lambda f: _taxa(f, "taxon,body_mass,temperature_c,fiber_radius_u\nApis mellifera,1,2,3\n"),
+    "column-named-row": lambda f: write_dataset(
+        f, [r + f",{i}" for i, r in enumerate(VALID_ROWS)], header=OBS_HEADER + ",row"
+    ),
+    "column-named-status": lambda f: write_dataset(
+        f, [r + ",x,y" for r in VALID_ROWS], header=OBS_HEADER + ",status,_lv"
+    ),
+    "taxa-column-named-quantity": lambda f: _taxa(
+        f, "taxon,body_mass,temperature_c,fiber_radius_u\nApis mellifera,1,2,3\n"
+    ),
     "taxa-without-taxon-column": lambda f: _taxa(f, "name,clade\nApis mellifera,bees\n"),
     "taxa-column-accepted": lambda f: _taxa(f, "taxon,accepted\nApis mellifera,x\n"),
-    "utf16-le-no-bom": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode("utf-16-le")),
-    "utf16-be-no-bom": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode("utf-16-be")),
-    "nul-after-4kib": lambda f: _bytes(f, "observations.csv", _text(_rows_with(0, "Table 1", "T" * 5000) + ["o9,Apis mellifera,body_mass,1\x00,mg,,,,s1,T,reported,,,"]).encode()),
-    "observations-is-a-folder": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), (f / "observations.csv").mkdir()),
-    "observations-symlink-loop": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), (f / "observations.csv").symlink_to("observations.csv")),
-    "observations-fifo": lambda f: (write_dataset(f), (f / "observations.csv").unlink(), os.mkfifo(f / "observations.csv")),
-    "header-quoted-newline": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS, OBS_HEADER.replace(",taxon,", ',"tax\non",')).encode()),
+    "utf16-le-no-bom": lambda f: _bytes(
+        f, "observations.csv", _text(VALID_ROWS).encode("utf-16-le")
+    ),
+    "utf16-be-no-bom": lambda f: _bytes(
+        f, "observations.csv", _text(VALID_ROWS).encode("utf-16-be")
+    ),
+    "nul-after-4kib": lambda f: _bytes(
+        f,
+        "observations.csv",
+        _text(
+            _rows_with(0, "Table 1", "T" * 5000)
+            + ["o9,Apis mellifera,body_mass,1\x00,mg,,,,s1,T,reported,,,"]
+        ).encode(),
+    ),
+    "observations-is-a-folder": lambda f: (
+        write_dataset(f),
+        (f / "observations.csv").unlink(),
+        (f / "observations.csv").mkdir(),
+    ),
+    "observations-symlink-loop": lambda f: (
+        write_dataset(f),
+        (f / "observations.csv").unlink(),
+        (f / "observations.csv").symlink_to("observations.csv"),
+    ),
+    "observations-fifo": lambda f: (
+        write_dataset(f),
+        (f / "observations.csv").unlink(),
+        os.mkfifo(f / "observations.csv"),
+    ),
+    "header-quoted-newline": lambda f: _bytes(
+        f,
+        "observations.csv",
+        _text(VALID_ROWS, OBS_HEADER.replace(",taxon,", ',"tax\non",')).encode(),
+    ),
     "ctrl-z-at-end": lambda f: _bytes(f, "observations.csv", _text(VALID_ROWS).encode() + b"\x1a"),
     "control-character-in-cell": lambda f: write_dataset(f, _rows_with(0, "Table 1", "Table\x071")),
     "doi-forms": lambda f: write_dataset(f, sources=_DOI_SOURCES),
-    "bibtex-doi-url": lambda f: (write_dataset(f), (f / "sources.csv").unlink(), (f / "sources.bib").write_text(_BIB, encoding="utf-8")),
+    "bibtex-doi-url": lambda f: (
+        write_dataset(f),
+        (f / "sources.csv").unlink(),
+        (f / "sources.bib").write_text(_BIB, encoding="utf-8"),
+    ),
     "settings-conflict-factor-text": lambda f: _toml(f, 'conflict_factor = "abc"\n'),
     "settings-conflict-factor-below-1": lambda f: _toml(f, "conflict_factor = 0.5\n"),
     "settings-aggregate-number": lambda f: _toml(f, "aggregate = 5\n"),
     "settings-q10-list": lambda f: _toml(f, "q10 = [1, 2]\n"),
     "settings-q10-inf": lambda f: _toml(f, "[q10]\nattach_rate = inf\n"),
-    "settings-activation-text": lambda f: _toml(f, '[activation_energy_kj_mol]\nattach_rate = "high"\n'),
+    "settings-activation-text": lambda f: _toml(
+        f, '[activation_energy_kj_mol]\nattach_rate = "high"\n'
+    ),
     "settings-quantities-string": lambda f: _toml(f, 'quantities = "twitch"\n'),
     "settings-seed-text": lambda f: _toml(f, 'seed = "abc"\n'),
     "settings-title-table": lambda f: _toml(f, "[title]\nx = 1\n"),
@@ -259,21 +450,39 @@ CASES = {
     "settings-analysis-string": lambda f: _toml(f, 'analysis = "all"\n'),
     "settings-analysis-list-of-numbers": lambda f: _toml(f, "analysis = [1, 2]\n"),
     "settings-analysis-without-y": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\n'),
-    "settings-analysis-method": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nmethod = "magic"\n'),
-    "settings-analysis-by": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nby = "clade"\n'),
-    "settings-analysis-typo": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nmethd = "sma"\n'),
-    "settings-analysis-test-slope": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\ntest_slope = "one"\n'),
-    "settings-analysis-against": lambda f: _toml(f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nagainst = inf\n'),
-    "taxa-synonym-chain": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"),
-    "taxa-synonym-cycle": lambda f: _taxa(f, "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n"),
-    "taxa-synonym-cycle-3": lambda f: _taxa(f, "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n"),
+    "settings-analysis-method": lambda f: _toml(
+        f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nmethod = "magic"\n'
+    ),
+    "settings-analysis-by": lambda f: _toml(
+        f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nby = "clade"\n'
+    ),
+    "settings-analysis-typo": lambda f: _toml(
+        f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nmethd = "sma"\n'
+    ),
+    "settings-analysis-test-slope": lambda f: _toml(
+        f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\ntest_slope = "one"\n'
+    ),
+    "settings-analysis-against": lambda f: _toml(
+        f, '[[analysis]]\nx = "body_mass"\ny = "fiber_radius"\nagainst = inf\n'
+    ),
+    "taxa-synonym-chain": lambda f: _taxa(
+        f, "taxon,accepted_name\nApis mellifera,Apis mellifica\nApis mellifica,Apis ligustica\n"
+    ),
+    "taxa-synonym-cycle": lambda f: _taxa(
+        f,
+        "taxon,accepted_name\nApis mellifera,Bombus terrestris\nBombus terrestris,Apis mellifera\n",
+    ),
+    "taxa-synonym-cycle-3": lambda f: _taxa(
+        f,
+        "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n",
+    ),
 }
 
 COMMANDS = ["check", "table", "audit", "derive", "fit", "export", "cycles"]
 
 
 def _available(cmd: str) -> bool:
-    return importlib.util.find_spec(f"comparo.commands.{cmd}") is not None
+    return importlib.util.find_spec(f"comparo.cli.commands.{cmd}") is not None
 
 
 def _argv(cmd: str, folder, out) -> list[str]:
@@ -306,7 +515,18 @@ def test_hostile_input_every_command(tmp_path, capsys, case):
         captured = capsys.readouterr()
         _assert_clean(code, captured.out + captured.err, case)
         if code == 2 and cmd == "check":
-            assert any(name in captured.out + captured.err for name in ("observations", "sources", ".nwk", ".toml", ".bib", "taxa.csv", "traces.csv"))
+            assert any(
+                name in captured.out + captured.err
+                for name in (
+                    "observations",
+                    "sources",
+                    ".nwk",
+                    ".toml",
+                    ".bib",
+                    "taxa.csv",
+                    "traces.csv",
+                )
+            )
         assert tree_hash(folder) == before, f"{cmd} changed the input"
 
 
@@ -319,18 +539,21 @@ def test_huge_sample_size_is_rejected_at_its_cell(tmp_path):
     assert proc.returncode == 2, proc.stdout + proc.stderr
     hits = [p for p in json.loads(proc.stdout)["problems"] if p["severity"] == "error"]
     assert [(p["file"], p["row"], p["column"], p["value"], p["rule"]) for p in hits] == [
-        ("observations.csv", 3, "n", "99999999999999999999999", "n-maximum")]
+        ("observations.csv", 3, "n", "99999999999999999999999", "n-maximum")
+    ]
     assert main(["export", str(folder), "--to", "dwc", "-o", str(tmp_path / "out")]) == 2
 
 
 def _read_as(folder):
-    from comparo.validate import check
+    from comparo.validation.tables import check
 
     res = check(folder)
     if res.dataset is None:
         return None
     obs = res.dataset.observations
-    return obs.drop(columns=["row"]).reset_index(drop=True), res.dataset.sources.reset_index(drop=True)
+    return obs.drop(columns=["row"]).reset_index(drop=True), res.dataset.sources.reset_index(
+        drop=True
+    )
 
 
 # The report is slow (figures), so cases that only vary the bytes of a valid file (encoding,
@@ -397,7 +620,9 @@ def test_fit_plain_csv_hostile(tmp_path, capsys, case):
     path.write_bytes(PLAIN_CSV[case].encode())
     before = path.read_bytes()
     for method in ("sma", "ols"):
-        code = main(["fit", str(path), "--x", "m", "--y", "r", "--method", method, "--format", "json"])
+        code = main(
+            ["fit", str(path), "--x", "m", "--y", "r", "--method", method, "--format", "json"]
+        )
         captured = capsys.readouterr()
         _assert_clean(code, captured.out + captured.err, case)
     assert path.read_bytes() == before
@@ -421,8 +646,9 @@ def test_check_subprocess_bounded_time_on_ladder_tree(tmp_path):
 
 # --------------------------------------------------------------------------- input reading and validation
 
+
 def _problems(folder) -> pd.DataFrame:
-    from comparo.curate import review
+    from comparo.curation.harmonise import review
 
     return review(folder).problems
 
@@ -430,8 +656,8 @@ def _problems(folder) -> pd.DataFrame:
 def test_synonym_chain_resolves_to_its_end(tmp_path):
     """A -> B and B -> C in taxa.csv: A's values belong to C (not to B), with a warning
     naming both rows; the per-taxon table has one row, C."""
-    from comparo.curate import per_taxon
-    from comparo.dataset import load
+    from comparo.curation.harmonise import per_taxon
+    from comparo.validation.dataset import load
 
     folder = tmp_path / "chain"
     CASES["taxa-synonym-chain"](folder)
@@ -446,7 +672,9 @@ def test_synonym_chain_resolves_to_its_end(tmp_path):
     assert tree_hash(folder) == before
 
 
-@pytest.mark.parametrize("case,rows", [("taxa-synonym-cycle", "rows 2, 3"), ("taxa-synonym-cycle-3", "rows 2, 3, 4")])
+@pytest.mark.parametrize(
+    "case,rows", [("taxa-synonym-cycle", "rows 2, 3"), ("taxa-synonym-cycle-3", "rows 2, 3, 4")]
+)
 def test_synonym_cycle_is_an_error_naming_its_rows(tmp_path, capsys, case, rows):
     """A -> B, B -> A used to swap the two species' data silently; now check fails naming
     every row of the cycle, and table refuses to run."""
@@ -465,8 +693,8 @@ def test_unicode_forms_are_one_name_with_a_warning(tmp_path):
     """'ê' typed composed (U+00EA) on some rows and decomposed (e + U+0302) on one used to
     make two taxa; reading puts every cell in Unicode NFC (Unicode Standard Annex #15) and
     warns where two spellings became one, naming the rows of each."""
-    from comparo.curate import per_taxon
-    from comparo.dataset import load
+    from comparo.curation.harmonise import per_taxon
+    from comparo.validation.dataset import load
 
     assert _NFC != _NFD and unicodedata.normalize("NFC", _NFD) == _NFC
     folder = tmp_path / "nfd"
@@ -474,12 +702,21 @@ def test_unicode_forms_are_one_name_with_a_warning(tmp_path):
     probs = _problems(folder)
     hit = probs[probs["rule"] == "unicode-unified"]
     assert len(hit) == 1 and hit["severity"].iat[0] == "warning"
-    assert (hit["file"].iat[0], hit["row"].iat[0], hit["column"].iat[0]) == ("observations.csv", 2, "taxon")
-    assert "observations.csv row 2" in hit["message"].iat[0] and "taxa.csv row 2" in hit["message"].iat[0]
+    assert (hit["file"].iat[0], hit["row"].iat[0], hit["column"].iat[0]) == (
+        "observations.csv",
+        2,
+        "taxon",
+    )
+    assert (
+        "observations.csv row 2" in hit["message"].iat[0]
+        and "taxa.csv row 2" in hit["message"].iat[0]
+    )
     tab = per_taxon(load(folder))
     assert sorted(tab["taxon"]) == sorted([_NFC, "Bombus terrestris"])
     assert tab.set_index("taxon").at[_NFC, "clade"] == "bees"
-    assert tab.set_index("taxon").at[_NFC, "body_mass"] == pytest.approx(1e-4)  # 100 mg, the decomposed row
+    assert tab.set_index("taxon").at[_NFC, "body_mass"] == pytest.approx(
+        1e-4
+    )  # 100 mg, the decomposed row
 
 
 def test_column_names_in_two_unicode_forms_are_duplicates(tmp_path):
@@ -493,25 +730,50 @@ def test_column_names_in_two_unicode_forms_are_duplicates(tmp_path):
 
 def test_tree_labels_and_settings_read_in_nfc(tmp_path):
     """A decomposed tip label and a decomposed settings key are read composed."""
-    from comparo.io import read_newick, read_settings
+    from comparo.reading.tables import read_newick, read_settings
 
     (tmp_path / "tree.nwk").write_text(f"({_NFD.replace(' ', '_')}:1,B_b:1);\n", encoding="utf-8")
     tree, _, probs = read_newick(tmp_path / "tree.nwk")
-    assert _NFC.replace(" ", "_") in [t.label if t.label is not None else t.taxon.label for t in tree.leaf_node_iter()]
+    assert _NFC.replace(" ", "_") in [
+        t.label if t.label is not None else t.taxon.label for t in tree.leaf_node_iter()
+    ]
     assert [p.rule for p in probs] == ["unicode-unified"]
     (tmp_path / "comparo.toml").write_text(f'title = "{_NFD}"\n', encoding="utf-8")
     settings, _ = read_settings(tmp_path / "comparo.toml")
     assert settings["title"] == _NFC
 
 
-@pytest.mark.parametrize("case,row,column,rule,words", [
-    ("unit-underflow", 2, "value", "value-conversion-range", "underflows a double (becomes 0 kg)"),
-    ("unit-overflow", 2, "value", "value-conversion-range", "overflows a double (becomes inf kg)"),
-    ("uncertainty-overflow", 3, "uncertainty", "uncertainty-conversion-range", "outside the range comparo computes with"),
-    ("value-1e400", 2, "value", "value-number", "beyond the range of a double"),
-    ("value-1e-400", 2, "value", "value-number", "below the smallest number a double holds"),
-])
-def test_conversion_beyond_a_double_is_an_error_at_its_cell(tmp_path, case, row, column, rule, words):
+@pytest.mark.parametrize(
+    "case,row,column,rule,words",
+    [
+        (
+            "unit-underflow",
+            2,
+            "value",
+            "value-conversion-range",
+            "underflows a double (becomes 0 kg)",
+        ),
+        (
+            "unit-overflow",
+            2,
+            "value",
+            "value-conversion-range",
+            "overflows a double (becomes inf kg)",
+        ),
+        (
+            "uncertainty-overflow",
+            3,
+            "uncertainty",
+            "uncertainty-conversion-range",
+            "outside the range comparo computes with",
+        ),
+        ("value-1e400", 2, "value", "value-number", "beyond the range of a double"),
+        ("value-1e-400", 2, "value", "value-number", "below the smallest number a double holds"),
+    ],
+)
+def test_conversion_beyond_a_double_is_an_error_at_its_cell(
+    tmp_path, case, row, column, rule, words
+):
     """1e-320 mg is 1e-326 kg, below the smallest double (IEEE 754 binary64, about
     4.9e-324), and 1e308 Mg is 1e311 kg, above the largest (about 1.8e308): once converted
     they became 0 and inf and bypassed "value must be > 0". Each is now one error at its cell."""
@@ -519,12 +781,18 @@ def test_conversion_beyond_a_double_is_an_error_at_its_cell(tmp_path, case, row,
     CASES[case](folder)
     probs = _problems(folder)
     errors = probs[probs["severity"] == "error"]
-    assert [(int(r), c, ru) for r, c, ru in zip(errors["row"], errors["column"], errors["rule"], strict=True)] == [(row, column, rule)]
+    assert [
+        (int(r), c, ru)
+        for r, c, ru in zip(errors["row"], errors["column"], errors["rule"], strict=True)
+    ] == [(row, column, rule)]
     assert words in errors["message"].iat[0]
     assert main(["table", str(folder)]) == 2
 
 
-@pytest.mark.parametrize("case,hint", [("value-hex", "hexadecimal"), ("value-thousands-dot-decimal-comma", "write 1234.5")])
+@pytest.mark.parametrize(
+    "case,hint",
+    [("value-hex", "hexadecimal"), ("value-thousands-dot-decimal-comma", "write 1234.5")],
+)
 def test_number_hints(tmp_path, case, hint):
     folder = tmp_path / case
     CASES[case](folder)
@@ -552,7 +820,9 @@ def _numbers_in(path) -> list[str]:
     return out
 
 
-@pytest.mark.parametrize("case", ["temperature-factor-extreme", "weights-extreme", "unit-overflow", "unit-underflow"])
+@pytest.mark.parametrize(
+    "case", ["temperature-factor-extreme", "weights-extreme", "unit-overflow", "unit-underflow"]
+)
 def test_no_inf_or_nan_reaches_an_output(tmp_path, capsys, case):
     """A temperature factor of (1e10)^-97.5 (Q10 1e10 over 975 degrees) and inverse-variance
     weights of 1e266 per kg^-2 used to give 0, inf or NaN in the per-taxon table; now the first
@@ -589,8 +859,11 @@ def test_console_markup_in_cells_is_printed_as_typed(tmp_path, capsys):
     folder = tmp_path / "markup"
     _markup(folder)
     before = tree_hash(folder)
-    for argv, shown in ((["check", str(folder)], "Bombus [/red]terrestris"), (["audit", str(folder)], "[/i]s1"),
-                        (["units", str(folder)], "[/red]")):
+    for argv, shown in (
+        (["check", str(folder)], "Bombus [/red]terrestris"),
+        (["audit", str(folder)], "[/i]s1"),
+        (["units", str(folder)], "[/red]"),
+    ):
         code = main(argv)
         out = capsys.readouterr()
         _assert_clean(code, out.out + out.err, "markup")
@@ -598,12 +871,22 @@ def test_console_markup_in_cells_is_printed_as_typed(tmp_path, capsys):
     assert tree_hash(folder) == before
 
 
-@pytest.mark.parametrize("case,names", [
-    ("column-named-row", {("observations.csv", "row")}),
-    ("column-named-status", {("observations.csv", "status"), ("observations.csv", "_lv")}),
-    ("taxa-column-named-quantity", {("taxa.csv", "body_mass"), ("taxa.csv", "temperature_c"), ("taxa.csv", "fiber_radius_u")}),
-    ("taxa-column-accepted", {("taxa.csv", "accepted")}),
-])
+@pytest.mark.parametrize(
+    "case,names",
+    [
+        ("column-named-row", {("observations.csv", "row")}),
+        ("column-named-status", {("observations.csv", "status"), ("observations.csv", "_lv")}),
+        (
+            "taxa-column-named-quantity",
+            {
+                ("taxa.csv", "body_mass"),
+                ("taxa.csv", "temperature_c"),
+                ("taxa.csv", "fiber_radius_u"),
+            },
+        ),
+        ("taxa-column-accepted", {("taxa.csv", "accepted")}),
+    ],
+)
 def test_column_names_comparo_uses_are_refused_by_name(tmp_path, capsys, case, names):
     """A user column named like one comparo adds ('row', 'status', a quantity key in
     taxa.csv, which would overwrite the per-taxon value) used to crash or be overwritten;
@@ -630,16 +913,29 @@ def test_audit_without_a_taxon_column_in_taxa_is_a_clear_exit_2(tmp_path, capsys
     assert "Traceback" not in err and "internal error" not in err
 
 
-@pytest.mark.parametrize("case,rule,words,row", [
-    ("utf16-le-no-bom", "encoding", "UTF-16 (little-endian) text without a byte-order mark", None),
-    ("utf16-be-no-bom", "encoding", "UTF-16 (big-endian) text without a byte-order mark", None),
-    ("nul-after-4kib", "file-format", "NUL bytes (first on line 8", 8),
-    ("observations-is-a-folder", "not-a-file", "observations.csv is a folder", None),
-    ("observations-symlink-loop", "not-a-file", "observations.csv is a symbolic link that loops", None),
-    ("observations-fifo", "not-a-file", "observations.csv is a named pipe", None),
-    ("header-quoted-newline", "header-line-break", "the header row has an unclosed quote", 1),
-    ("control-character-in-cell", "control-character", "control character 0x07", 2),
-])
+@pytest.mark.parametrize(
+    "case,rule,words,row",
+    [
+        (
+            "utf16-le-no-bom",
+            "encoding",
+            "UTF-16 (little-endian) text without a byte-order mark",
+            None,
+        ),
+        ("utf16-be-no-bom", "encoding", "UTF-16 (big-endian) text without a byte-order mark", None),
+        ("nul-after-4kib", "file-format", "NUL bytes (first on line 8", 8),
+        ("observations-is-a-folder", "not-a-file", "observations.csv is a folder", None),
+        (
+            "observations-symlink-loop",
+            "not-a-file",
+            "observations.csv is a symbolic link that loops",
+            None,
+        ),
+        ("observations-fifo", "not-a-file", "observations.csv is a named pipe", None),
+        ("header-quoted-newline", "header-line-break", "the header row has an unclosed quote", 1),
+        ("control-character-in-cell", "control-character", "control character 0x07", 2),
+    ],
+)
 def test_unreadable_files_say_why(tmp_path, case, rule, words, row):
     """Each unreadable observations file gets one error that says what it is, at the
     place it is (UTF-16 without a byte-order mark used to be called 'NUL bytes'; a NUL
@@ -671,15 +967,22 @@ def test_dois_are_bare_names_and_odd_ones_warned(tmp_path):
     """DOIs typed as doi.org URLs or with a 'doi:' prefix are stored once as the bare name
     10.xxxx/... (the DOI Handbook's syntax, prefix '10.' + registrant code), so links are
     https://doi.org/10.xxxx/..., never doubled; a DOI that is not 10.xxxx/... is a warning."""
-    from comparo.dataset import load
+    from comparo.validation.dataset import load
 
     folder = tmp_path / "doi"
     CASES["doi-forms"](folder)
     ds = load(folder)
-    assert list(ds.sources["doi"]) == ["10.1000/abc", "10.1000/XYZ.2", "10.12345/q-1", "see the journal"]
+    assert list(ds.sources["doi"]) == [
+        "10.1000/abc",
+        "10.1000/XYZ.2",
+        "10.12345/q-1",
+        "see the journal",
+    ]
     probs = _problems(folder)
     bad = probs[probs["rule"] == "doi-format"]
-    assert list(zip(bad["file"], bad["row"], bad["severity"], strict=True)) == [("sources.csv", 5, "warning")]
+    assert list(zip(bad["file"], bad["row"], bad["severity"], strict=True)) == [
+        ("sources.csv", 5, "warning")
+    ]
     bib = tmp_path / "bib"
     CASES["bibtex-doi-url"](bib)
     assert list(load(bib).sources["doi"]) == ["10.1000/abc", "10.1000/def"]
@@ -688,7 +991,7 @@ def test_dois_are_bare_names_and_odd_ones_warned(tmp_path):
 def test_citations_from_bibtex_read_like_citations(tmp_path):
     """Author list, year, title, journal, volume(issue): pages, each part ending in one
     full stop (no '..'), a page range with an en dash; a book keeps its publisher."""
-    from comparo.dataset import load
+    from comparo.validation.dataset import load
 
     folder = tmp_path / "bib"
     CASES["bibtex-doi-url"](folder)
@@ -702,7 +1005,9 @@ def test_citations_from_bibtex_read_like_citations(tmp_path):
 def test_conflict_messages_show_both_values_units_rows_and_sources(tmp_path):
     """100 mg and 0.5 g of one bee's body mass disagree (ratio 5 > 1.5): each side of the
     conflict is shown with its value in kg, the value as reported, its row and source."""
-    folder = write_dataset(tmp_path / "c", [*VALID_ROWS, "o7,Apis mellifera,body_mass,0.5,g,,,,s2,Table 9,reported,,,"])
+    folder = write_dataset(
+        tmp_path / "c", [*VALID_ROWS, "o7,Apis mellifera,body_mass,0.5,g,,,,s2,Table 9,reported,,,"]
+    )
     probs = _problems(folder)
     msgs = list(probs.loc[probs["rule"] == "conflict", "message"])
     assert len(msgs) == 2
@@ -716,12 +1021,14 @@ def test_no_user_facing_text_says_from_memory(tmp_path, capsys):
     thumb); the phrase 'from memory' belongs in test comments only."""
     import re as _re
 
-    from comparo.catalog import load_catalog, read_schema
+    from comparo.base.catalog import load_catalog, read_schema
 
     for q in load_catalog().values():
         if q.range:
             assert "from memory" not in q.range_source
-            assert "rule of thumb" in q.range_source or _re.search(r"[A-Z][a-z]+.* (19|20)\d\d", q.range_source), q.key
+            assert "rule of thumb" in q.range_source or _re.search(
+                r"[A-Z][a-z]+.* (19|20)\d\d", q.range_source
+            ), q.key
     derived = read_schema("derived.toml")
     texts = [v for v in derived.get("settings_sources", {}).values() if isinstance(v, str)]
     assert texts and not [t for t in texts if "from memory" in t]
@@ -762,20 +1069,35 @@ def test_check_is_the_gate(tmp_path, capsys, case):
         assert code == 0, f"check passed (exit {gate}) but {cmd} exits {code}: {text[-2000:]}"
 
 
-@pytest.mark.parametrize("case,column", [
-    ("settings-conflict-factor-text", "conflict_factor"), ("settings-conflict-factor-below-1", "conflict_factor"),
-    ("settings-aggregate-number", "aggregate"), ("settings-q10-list", "q10"), ("settings-q10-inf", "q10.attach_rate"),
-    ("settings-activation-text", "activation_energy_kj_mol.attach_rate"), ("settings-quantities-string", "quantities"),
-    ("settings-seed-text", "seed"), ("settings-title-table", "title"),
-    ("settings-derive-string", "derive"), ("settings-derive-length-number", "derive.length"),
-    ("settings-derive-unknown", "derive.permeability_modle"), ("settings-ratios-string", "ratios"),
-    ("settings-ratio-overflow", "ratios.huge"), ("settings-ratio-unknown", "ratios.odd"),
-    ("settings-ratio-syntax", "ratios.odd"),
-    ("settings-analysis-string", "analysis"), ("settings-analysis-list-of-numbers", "analysis"),
-    ("settings-analysis-without-y", "analysis[1].y"), ("settings-analysis-method", "analysis[1].method"),
-    ("settings-analysis-by", "analysis[1].by"), ("settings-analysis-typo", "analysis[1].methd"),
-    ("settings-analysis-test-slope", "analysis[1].test_slope"), ("settings-analysis-against", "analysis[1].against"),
-])
+@pytest.mark.parametrize(
+    "case,column",
+    [
+        ("settings-conflict-factor-text", "conflict_factor"),
+        ("settings-conflict-factor-below-1", "conflict_factor"),
+        ("settings-aggregate-number", "aggregate"),
+        ("settings-q10-list", "q10"),
+        ("settings-q10-inf", "q10.attach_rate"),
+        ("settings-activation-text", "activation_energy_kj_mol.attach_rate"),
+        ("settings-quantities-string", "quantities"),
+        ("settings-seed-text", "seed"),
+        ("settings-title-table", "title"),
+        ("settings-derive-string", "derive"),
+        ("settings-derive-length-number", "derive.length"),
+        ("settings-derive-unknown", "derive.permeability_modle"),
+        ("settings-ratios-string", "ratios"),
+        ("settings-ratio-overflow", "ratios.huge"),
+        ("settings-ratio-unknown", "ratios.odd"),
+        ("settings-ratio-syntax", "ratios.odd"),
+        ("settings-analysis-string", "analysis"),
+        ("settings-analysis-list-of-numbers", "analysis"),
+        ("settings-analysis-without-y", "analysis[1].y"),
+        ("settings-analysis-method", "analysis[1].method"),
+        ("settings-analysis-by", "analysis[1].by"),
+        ("settings-analysis-typo", "analysis[1].methd"),
+        ("settings-analysis-test-slope", "analysis[1].test_slope"),
+        ("settings-analysis-against", "analysis[1].against"),
+    ],
+)
 def test_settings_of_the_wrong_type_are_one_error_each(tmp_path, case, column):
     """A string where a number belongs, a list where a table belongs, an infinite Q10, a
     conflict factor of 1 or less: one error naming the setting (conflict_factor = "abc"

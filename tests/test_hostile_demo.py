@@ -11,15 +11,17 @@ import pytest
 from hostile_tools import changed_outside, snapshot
 from support import DEMO, run_main, write_dataset
 
-from comparo.commands.demo import MANIFEST, copy_demo
-from comparo.errors import UsageError
+from comparo.base.errors import UsageError
+from comparo.cli.commands.demo import MANIFEST, copy_demo
 
 
 def test_a_rerun_keeps_the_users_files_and_replaces_only_unchanged_demo_files(tmp_path):
     out = tmp_path / "out"
     copy_demo(out)
     data = out / "synthetic_cyclers"
-    assert sorted(p.name for p in data.iterdir()) == sorted(p.name for p in DEMO.iterdir() if p.is_file())
+    assert sorted(p.name for p in data.iterdir()) == sorted(
+        p.name for p in DEMO.iterdir() if p.is_file()
+    )
     recorded = json.loads((out / MANIFEST).read_text(encoding="utf-8"))["files"]
     assert set(recorded) == {f"synthetic_cyclers/{p.name}" for p in DEMO.iterdir() if p.is_file()}
     (data / "my_notes.txt").write_text("mine", encoding="utf-8")
@@ -36,11 +38,16 @@ def test_a_demo_file_changed_by_the_user_stops_the_rerun(tmp_path):
     copy_demo(out)
     obs = out / "synthetic_cyclers" / "observations.csv"
     obs.write_text(obs.read_text(encoding="utf-8") + "# my edit\n", encoding="utf-8")
-    (out / "synthetic_cyclers" / "taxa.csv").unlink()  # a removed demo file is written again: not the user's
+    (
+        out / "synthetic_cyclers" / "taxa.csv"
+    ).unlink()  # a removed demo file is written again: not the user's
     before = snapshot(tmp_path)
     proc = run_main("demo", "-o", str(out), "--quiet")
     assert proc.returncode == 2
-    assert "holds demo files changed since comparo wrote them (synthetic_cyclers/observations.csv)" in proc.stderr
+    assert (
+        "holds demo files changed since comparo wrote them (synthetic_cyclers/observations.csv)"
+        in proc.stderr
+    )
     assert changed_outside(before, snapshot(tmp_path)) == []
 
 
@@ -70,7 +77,10 @@ def test_a_compilation_folder_that_is_not_a_folder_is_refused(tmp_path, kind):
     before = snapshot(tmp_path)
     proc = run_main("demo", "-o", str(out), "--quiet")
     assert proc.returncode == 2, proc.stderr
-    assert f"{target} is a" in proc.stderr and "the demo writes its compilation folder there" in proc.stderr
+    assert (
+        f"{target} is a" in proc.stderr
+        and "the demo writes its compilation folder there" in proc.stderr
+    )
     assert changed_outside(before, snapshot(tmp_path)) == []
 
 
@@ -88,5 +98,8 @@ def test_an_output_that_is_not_a_folder_is_refused(tmp_path, kind):
     proc = run_main("demo", "-o", str(out), "--quiet")
     assert proc.returncode == 2, proc.stderr
     assert "internal error" not in proc.stderr
-    assert "is a file; this command writes a folder" in proc.stderr or "which is not a folder" in proc.stderr
+    assert (
+        "is a file; this command writes a folder" in proc.stderr
+        or "which is not a folder" in proc.stderr
+    )
     assert changed_outside(before, snapshot(tmp_path)) == []

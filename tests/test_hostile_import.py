@@ -27,12 +27,17 @@ def test_overwrite_onto_the_folder_holding_the_wide_sheet_refuses(tmp_path, name
     out.mkdir()
     wide = out / name
     wide.write_text(WIDE, encoding="utf-8")
-    (out / "import.toml").write_text('[input]\nfile = "x.csv"\n[output]\nfiles = ["observations.csv", '
-                                     '"sources.csv", "taxa.csv", "import.toml"]\n', encoding="utf-8")
+    (out / "import.toml").write_text(
+        '[input]\nfile = "x.csv"\n[output]\nfiles = ["observations.csv", '
+        '"sources.csv", "taxa.csv", "import.toml"]\n',
+        encoding="utf-8",
+    )
     before = snapshot(tmp_path)
     proc = imp(wide, "-o", out, "--overwrite")
     assert proc.returncode == 2, proc.stderr
-    assert f"is the input file {wide}" in proc.stderr and "never overwrites its inputs" in proc.stderr
+    assert (
+        f"is the input file {wide}" in proc.stderr and "never overwrites its inputs" in proc.stderr
+    )
     assert changed_outside(before, snapshot(tmp_path)) == []
 
 
@@ -45,7 +50,10 @@ def test_overwrite_onto_a_dataset_that_was_never_an_import_keeps_its_taxa(tmp_pa
     proc = imp(tmp_path / "wide.csv", "-o", ds, "--overwrite")
     assert proc.returncode == 0, proc.stderr
     assert (ds / "taxa.csv").read_text(encoding="utf-8") == "taxon,clade\nApis mellifera,bees\n"
-    assert "table-kept" in proc.stderr and "taxa.csv was not written by an earlier comparo import" in proc.stderr
+    assert (
+        "table-kept" in proc.stderr
+        and "taxa.csv was not written by an earlier comparo import" in proc.stderr
+    )
     written = {"DS/observations.csv", "DS/sources.csv", "DS/import.toml"}
     assert changed_outside(before, snapshot(tmp_path), tuple(written)) == []
 
@@ -78,7 +86,9 @@ def test_overwrite_removes_only_what_the_earlier_import_recorded(tmp_path):
     proc = imp(tmp_path / "w2.csv", "-o", out, "--overwrite")
     assert proc.returncode == 0, proc.stderr
     assert not (out / "taxa.csv").exists()
-    assert (out / "notes.txt").read_text(encoding="utf-8") == "mine" and (out / "tree.nwk").is_file()
+    assert (out / "notes.txt").read_text(encoding="utf-8") == "mine" and (
+        out / "tree.nwk"
+    ).is_file()
     allowed = ("out/observations.csv", "out/sources.csv", "out/import.toml", "out/taxa.csv")
     assert changed_outside(before, snapshot(tmp_path), allowed) == []
 
@@ -89,8 +99,10 @@ def test_an_import_toml_of_an_earlier_version_is_read_for_its_tables(tmp_path):
     out = tmp_path / "out"
     out.mkdir()
     (out / "taxa.csv").write_text("taxon,clade\nApis mellifera,bees\n", encoding="utf-8")
-    (out / "import.toml").write_text('[input]\nfile = "w.csv"\nsources = ""\n[[columns]]\nheader = "Species"\n'
-                                     'role = "taxon"\n', encoding="utf-8")
+    (out / "import.toml").write_text(
+        '[input]\nfile = "w.csv"\nsources = ""\n[[columns]]\nheader = "Species"\nrole = "taxon"\n',
+        encoding="utf-8",
+    )
     (tmp_path / "w.csv").write_text(WIDE, encoding="utf-8")
     proc = imp(tmp_path / "w.csv", "-o", out, "--overwrite")
     assert proc.returncode == 0, proc.stderr
@@ -101,7 +113,9 @@ def test_the_suggested_map_never_replaces_an_edited_one(tmp_path):
     (tmp_path / "w.csv").write_text(UNCLEAR, encoding="utf-8")
     out = tmp_path / "out"
     edited = tmp_path / "out-import-map.csv"
-    edited.write_text("header,role,key,unit,basis\nSpecies,taxon,,,\n# my notes\n", encoding="utf-8")
+    edited.write_text(
+        "header,role,key,unit,basis\nSpecies,taxon,,,\n# my notes\n", encoding="utf-8"
+    )
     before = snapshot(tmp_path)
     proc = imp(tmp_path / "w.csv", "-o", out)
     assert proc.returncode == 2

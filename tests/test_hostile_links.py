@@ -22,7 +22,9 @@ def room(tmp_path):
     """tmp/DS (a dataset), tmp/wide.csv, tmp/refs.csv and an empty tmp/out."""
     write_dataset(tmp_path / "DS")
     (tmp_path / "wide.csv").write_text(WIDE, encoding="utf-8")
-    (tmp_path / "refs.csv").write_text("source_id,citation\ns1,Invented A. (2001) One\n", encoding="utf-8")
+    (tmp_path / "refs.csv").write_text(
+        "source_id,citation\ns1,Invented A. (2001) One\n", encoding="utf-8"
+    )
     (tmp_path / "out").mkdir()
     return tmp_path
 
@@ -34,32 +36,67 @@ def link(at: Path, to: Path) -> None:
 
 # (links to make inside tmp: path -> target, command line; {t} is tmp)
 CASES = {
-    "audit-file-link-to-sources": ({"out/sources.csv": "DS/sources.csv"}, ["audit", "{t}/DS", "-o", "{t}/out"]),
-    "audit-file-link-to-observations": ({"out/coverage.csv": "DS/observations.csv"},
-                                        ["audit", "{t}/DS", "-o", "{t}/out"]),
-    "audit-last-file-link": ({"out/lineage.csv": "DS/lineage.csv"}, ["audit", "{t}/DS", "-o", "{t}/out"]),
+    "audit-file-link-to-sources": (
+        {"out/sources.csv": "DS/sources.csv"},
+        ["audit", "{t}/DS", "-o", "{t}/out"],
+    ),
+    "audit-file-link-to-observations": (
+        {"out/coverage.csv": "DS/observations.csv"},
+        ["audit", "{t}/DS", "-o", "{t}/out"],
+    ),
+    "audit-last-file-link": (
+        {"out/lineage.csv": "DS/lineage.csv"},
+        ["audit", "{t}/DS", "-o", "{t}/out"],
+    ),
     "report-tables-link-to-dataset": ({"out/tables": "DS"}, ["report", "{t}/DS", "-o", "{t}/out"]),
-    "report-figures-link-to-dataset": ({"out/figures": "DS"}, ["report", "{t}/DS", "-o", "{t}/out"]),
-    "report-html-link-to-observations": ({"out/report.html": "DS/observations.csv"},
-                                         ["report", "{t}/DS", "-o", "{t}/out"]),
-    "export-dwc-file-link": ({"out/measurementorfact.csv": "DS/observations.csv"},
-                             ["export", "{t}/DS", "--to", "dwc", "-o", "{t}/out"]),
-    "export-datapackage-file-link": ({"out/sources.csv": "DS/sources.csv"},
-                                     ["export", "{t}/DS", "--to", "datapackage", "-o", "{t}/out"]),
-    "import-overwrite-observations-link-to-wide": ({"out/observations.csv": "wide.csv"},
-                                                   ["import", "{t}/wide.csv", "-o", "{t}/out", "--overwrite"]),
-    "import-overwrite-sources-link-to-sources": ({"out/sources.csv": "refs.csv"},
-                                                 ["import", "{t}/wide.csv", "-o", "{t}/out", "--overwrite",
-                                                  "--sources", "{t}/refs.csv"]),
-    "import-overwrite-toml-link-to-wide": ({"out/import.toml": "wide.csv"},
-                                           ["import", "{t}/wide.csv", "-o", "{t}/out", "--overwrite"]),
-    "table-parent-link-to-dataset": ({"out/sub": "DS"}, ["table", "{t}/DS", "-o", "{t}/out/sub/t.csv"]),
-    "derive-file-link-to-sources": ({"out/d.csv": "DS/sources.csv"}, ["derive", "{t}/DS", "-o", "{t}/out/d.csv"]),
-    "cycles-file-link-to-observations": ({"out/c.json": "DS/observations.csv"},
-                                         ["cycles", "{t}/DS", "--format", "json", "-o", "{t}/out/c.json"]),
-    "template-link-into-dataset": ({"out/t.xlsx": "DS/t.xlsx"},
-                                   ["template", "-o", "{t}/out/t.xlsx", "--dataset", "{t}/DS"]),
-    "demo-folder-link-to-dataset": ({"out/synthetic_cyclers": "DS"}, ["demo", "-o", "{t}/out", "--quiet"]),
+    "report-figures-link-to-dataset": (
+        {"out/figures": "DS"},
+        ["report", "{t}/DS", "-o", "{t}/out"],
+    ),
+    "report-html-link-to-observations": (
+        {"out/report.html": "DS/observations.csv"},
+        ["report", "{t}/DS", "-o", "{t}/out"],
+    ),
+    "export-dwc-file-link": (
+        {"out/measurementorfact.csv": "DS/observations.csv"},
+        ["export", "{t}/DS", "--to", "dwc", "-o", "{t}/out"],
+    ),
+    "export-datapackage-file-link": (
+        {"out/sources.csv": "DS/sources.csv"},
+        ["export", "{t}/DS", "--to", "datapackage", "-o", "{t}/out"],
+    ),
+    "import-overwrite-observations-link-to-wide": (
+        {"out/observations.csv": "wide.csv"},
+        ["import", "{t}/wide.csv", "-o", "{t}/out", "--overwrite"],
+    ),
+    "import-overwrite-sources-link-to-sources": (
+        {"out/sources.csv": "refs.csv"},
+        ["import", "{t}/wide.csv", "-o", "{t}/out", "--overwrite", "--sources", "{t}/refs.csv"],
+    ),
+    "import-overwrite-toml-link-to-wide": (
+        {"out/import.toml": "wide.csv"},
+        ["import", "{t}/wide.csv", "-o", "{t}/out", "--overwrite"],
+    ),
+    "table-parent-link-to-dataset": (
+        {"out/sub": "DS"},
+        ["table", "{t}/DS", "-o", "{t}/out/sub/t.csv"],
+    ),
+    "derive-file-link-to-sources": (
+        {"out/d.csv": "DS/sources.csv"},
+        ["derive", "{t}/DS", "-o", "{t}/out/d.csv"],
+    ),
+    "cycles-file-link-to-observations": (
+        {"out/c.json": "DS/observations.csv"},
+        ["cycles", "{t}/DS", "--format", "json", "-o", "{t}/out/c.json"],
+    ),
+    "template-link-into-dataset": (
+        {"out/t.xlsx": "DS/t.xlsx"},
+        ["template", "-o", "{t}/out/t.xlsx", "--dataset", "{t}/DS"],
+    ),
+    "demo-folder-link-to-dataset": (
+        {"out/synthetic_cyclers": "DS"},
+        ["demo", "-o", "{t}/out", "--quiet"],
+    ),
 }
 
 
@@ -72,9 +109,14 @@ def test_a_link_to_an_input_is_refused_and_nothing_changes(room, case):
     proc = run_main(*[a.format(t=room) for a in argv])
     assert proc.returncode == 2, (proc.stdout, proc.stderr)
     assert "Traceback" not in proc.stderr and "internal error" not in proc.stderr
-    assert ("inside the input dataset folder" in proc.stderr or "is the input file" in proc.stderr
-            or "is a symbolic link" in proc.stderr), proc.stderr
-    assert changed_outside(before, snapshot(room)) == []  # not even inside out: refused before any write
+    assert (
+        "inside the input dataset folder" in proc.stderr
+        or "is the input file" in proc.stderr
+        or "is a symbolic link" in proc.stderr
+    ), proc.stderr
+    assert (
+        changed_outside(before, snapshot(room)) == []
+    )  # not even inside out: refused before any write
 
 
 def test_the_message_names_the_link_and_where_it_leads(room):
@@ -82,7 +124,10 @@ def test_the_message_names_the_link_and_where_it_leads(room):
     proc = run_main("audit", str(room / "DS"), "-o", str(room / "out"))
     assert proc.returncode == 2
     assert f"{room / 'out' / 'sources.csv'} (through a symbolic link, it is" in proc.stderr
-    assert "inside the input dataset folder" in proc.stderr and "comparo never writes into its inputs" in proc.stderr
+    assert (
+        "inside the input dataset folder" in proc.stderr
+        and "comparo never writes into its inputs" in proc.stderr
+    )
 
 
 def test_a_link_to_somewhere_else_is_written_through(room):
@@ -100,8 +145,8 @@ def test_a_link_to_somewhere_else_is_written_through(room):
 
 def test_python_api_refuses_the_same_links(room):
     """The API answers as the CLI: build_report and import_wide protect their inputs."""
-    from comparo.errors import UsageError
-    from comparo.importer import import_wide
+    from comparo.base.errors import UsageError
+    from comparo.curation.importing import import_wide
     from comparo.report import build_report
 
     link(room / "out" / "tables", room / "DS")

@@ -10,7 +10,10 @@ FIT = ["fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed"]
 CASES = {
     "seed-negative": (FIT + ["--seed", "-1"], "--seed must be >= 0"),
     "derive-seed-negative": (["derive", str(DEMO), "--seed", "-1"], "--seed must be >= 0"),
-    "report-seed-negative": (["report", str(DEMO), "-o", "{tmp}/rep", "--seed", "-1"], "--seed must be >= 0"),
+    "report-seed-negative": (
+        ["report", str(DEMO), "-o", "{tmp}/rep", "--seed", "-1"],
+        "--seed must be >= 0",
+    ),
     "against-nan": (FIT + ["--against", "nan"], "finite number"),
     "against-inf": (FIT + ["--against", "inf"], "finite number"),
     "lambda-with-sma": (FIT + ["--lambda", "0.5"], "--lambda applies only to --method pgls"),
@@ -18,7 +21,10 @@ CASES = {
     "bootstrap-one": (FIT + ["--bootstrap", "1"], "too few resamples"),
     "bootstrap-199": (FIT + ["--bootstrap", "199"], "at least 200"),
     "bootstrap-huge": (FIT + ["--bootstrap", "1000000000"], "exceeds this machine's cap"),
-    "bootstrap-huge-robust": (FIT + ["--method", "robust", "--bootstrap", "500000"], "refits per second"),
+    "bootstrap-huge-robust": (
+        FIT + ["--method", "robust", "--bootstrap", "500000"],
+        "refits per second",
+    ),
 }
 
 
@@ -33,8 +39,8 @@ def test_bad_option_is_exit_2_with_the_rule(tmp_path, case):
 
 def test_api_refuses_the_same_values():
     import comparo
-    from comparo.errors import UsageError
-    from comparo.lines import fit
+    from comparo.base.errors import UsageError
+    from comparo.fitting import fit
 
     tab = comparo.per_taxon(comparo.load(DEMO))
     for kw in ({"seed": -1}, {"against": float("nan")}, {"bootstrap": 10}, {"bootstrap": 10**12}):
@@ -54,20 +60,38 @@ def test_minimum_bootstrap_runs():
     assert lo < hi
 
 
-@pytest.mark.parametrize("argv,words", [
-    (["derive", "{ds}", "--mc", "100000000"], ["--mc 100000000", "cap of", "taxon-draws per second", "GiB"]),
-    (["derive", "{ds}", "--mc", "-3"], ["--mc", "0 or a positive"]),
-    (["fit", "{ds}", "--x", "body_mass", "--y", "frequency_observed", "--sensitivity", "--mc", "1000000000"],
-     ["--mc 1000000000", "cap of", "point-draws per second"]),
-])
+@pytest.mark.parametrize(
+    "argv,words",
+    [
+        (
+            ["derive", "{ds}", "--mc", "100000000"],
+            ["--mc 100000000", "cap of", "taxon-draws per second", "GiB"],
+        ),
+        (["derive", "{ds}", "--mc", "-3"], ["--mc", "0 or a positive"]),
+        (
+            [
+                "fit",
+                "{ds}",
+                "--x",
+                "body_mass",
+                "--y",
+                "frequency_observed",
+                "--sensitivity",
+                "--mc",
+                "1000000000",
+            ],
+            ["--mc 1000000000", "cap of", "point-draws per second"],
+        ),
+    ],
+)
 def test_monte_carlo_sizes_beyond_the_machine_are_refused_at_once(tmp_path, capsys, argv, words):
     """A typo such as --mc 100000000 (21 GB and hours of derive) fails before any work, with
-    the cap and how it was computed (the estimate of comparo.bounds)."""
+    the cap and how it was computed (the estimate of comparo.base.arguments)."""
     import time
 
     from support import DEMO
 
-    from comparo.cli import main
+    from comparo.cli.main import main
 
     t0 = time.perf_counter()
     code = main([a.replace("{ds}", str(DEMO)) for a in argv])
@@ -83,9 +107,9 @@ def test_derive_api_caps_draws_too():
 
     import pandas as pd
 
-    from comparo.bounds import check_mc
+    from comparo.base.arguments import check_mc
+    from comparo.base.errors import UsageError
     from comparo.derivation import derive
-    from comparo.errors import UsageError
 
     with pytest.raises(UsageError, match="cap of") as info:
         check_mc(10**12, 10)
@@ -102,10 +126,12 @@ def test_signal_permutations_are_bounded():
     """A permutation count whose estimated time exceeds the budget is refused before any work."""
     import dendropy
 
-    from comparo.errors import UsageError
+    from comparo.base.errors import UsageError
     from comparo.phylo import random_newick, tree_signal
 
-    tree = dendropy.Tree.get(data=random_newick(30, seed=2), schema="newick", preserve_underscores=True)
+    tree = dendropy.Tree.get(
+        data=random_newick(30, seed=2), schema="newick", preserve_underscores=True
+    )
     values = {leaf.taxon.label: float(i) for i, leaf in enumerate(tree.leaf_node_iter())}
     with pytest.raises(UsageError, match="cap of"):
         tree_signal(tree, values, permutations=10**12)

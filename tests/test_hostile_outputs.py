@@ -50,9 +50,14 @@ def test_symlinked_dataset_and_output_are_resolved(ds, tmp_path):
     link = tmp_path / "link"
     link.symlink_to(ds, target_is_directory=True)
     before = tree_hash(ds)
-    for argv in (["table", str(link), "-o", str(ds / "t.csv")], ["table", str(ds), "-o", str(link / "t.csv")]):
+    for argv in (
+        ["table", str(link), "-o", str(ds / "t.csv")],
+        ["table", str(ds), "-o", str(link / "t.csv")],
+    ):
         proc = run_main(*argv)
-        assert proc.returncode == 2 and "inside the input dataset folder" in proc.stderr, proc.stderr
+        assert proc.returncode == 2 and "inside the input dataset folder" in proc.stderr, (
+            proc.stderr
+        )
     assert tree_hash(ds) == before
 
 
@@ -149,5 +154,7 @@ def test_guard_runs_before_any_work(monkeypatch, tmp_path, ds):
     import comparo.report
     from comparo import cli
 
-    monkeypatch.setattr(comparo.report, "build_report", lambda *a, **k: (_ for _ in ()).throw(AssertionError("ran")))
+    monkeypatch.setattr(
+        comparo.report, "build_report", lambda *a, **k: (_ for _ in ()).throw(AssertionError("ran"))
+    )
     assert cli.main(["report", str(ds), "-o", str(ds / "rep")]) == 2

@@ -14,12 +14,15 @@ from support import DEMO, run_main, write_dataset
 # ------------------------------------------------------------------ nesting
 
 
-@pytest.mark.parametrize("text", [
-    "a = " + "[" * 5000 + "]" * 5000 + "\n",  # arrays beyond the parser's recursion
-    "a = " + "{b = " * 3000 + "1" + "}" * 3000 + "\n",  # inline tables beyond it
-    "a = " + "[" * 40 + "]" * 40 + "\n",  # parses, but deeper than any setting
-    "[" + ".".join(["t"] * 30) + "]\nx = 1\n",  # dotted table headers
-])
+@pytest.mark.parametrize(
+    "text",
+    [
+        "a = " + "[" * 5000 + "]" * 5000 + "\n",  # arrays beyond the parser's recursion
+        "a = " + "{b = " * 3000 + "1" + "}" * 3000 + "\n",  # inline tables beyond it
+        "a = " + "[" * 40 + "]" * 40 + "\n",  # parses, but deeper than any setting
+        "[" + ".".join(["t"] * 30) + "]\nx = 1\n",  # dotted table headers
+    ],
+)
 def test_deeply_nested_settings_are_refused(tmp_path, text):
     ds = write_dataset(tmp_path / "DS")
     (ds / "comparo.toml").write_text(text, encoding="utf-8")
@@ -40,11 +43,19 @@ def test_deeply_nested_settings_in_the_python_api(tmp_path):
 
 
 def test_deeply_nested_import_map_is_refused(tmp_path):
-    (tmp_path / "wide.csv").write_text("Species,Body mass (g)\nApis mellifera,0.1\n", encoding="utf-8")
-    (tmp_path / "map.toml").write_text("columns = " + "[" * 3000 + "]" * 3000 + "\n", encoding="utf-8")
-    refused(tmp_path, ["import", "{tmp}/wide.csv", "-o", "{tmp}/out", "--map", "{tmp}/map.toml"],
-            "map.toml", "nested more than 16 levels",
-            allow=("out-import-map.csv",))  # the documented suggested map, beside the output
+    (tmp_path / "wide.csv").write_text(
+        "Species,Body mass (g)\nApis mellifera,0.1\n", encoding="utf-8"
+    )
+    (tmp_path / "map.toml").write_text(
+        "columns = " + "[" * 3000 + "]" * 3000 + "\n", encoding="utf-8"
+    )
+    refused(
+        tmp_path,
+        ["import", "{tmp}/wide.csv", "-o", "{tmp}/out", "--map", "{tmp}/map.toml"],
+        "map.toml",
+        "nested more than 16 levels",
+        allow=("out-import-map.csv",),
+    )  # the documented suggested map, beside the output
 
 
 # ------------------------------------------------------------------ special files
@@ -80,11 +91,14 @@ def test_read_tree_refuses_a_fifo(tmp_path):
         comparo.read_tree(tmp_path / "t.nwk")
 
 
-@pytest.mark.parametrize("argv", [
-    ["table", str(DEMO), "-o", "{tmp}/pipe"],
-    ["derive", str(DEMO), "-o", "{tmp}/pipe"],
-    ["cycles", str(DEMO), "-o", "{tmp}/pipe"],
-])
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ["table", str(DEMO), "-o", "{tmp}/pipe"],
+        ["derive", str(DEMO), "-o", "{tmp}/pipe"],
+        ["cycles", str(DEMO), "-o", "{tmp}/pipe"],
+    ],
+)
 def test_output_fifo_without_a_reader_fails_at_once(tmp_path, argv):
     """Writing to a FIFO that no process reads used to block for ever; it is opened without
     blocking and refused (ENXIO), and the FIFO stays a FIFO."""
@@ -101,10 +115,12 @@ def test_output_fifo_without_a_reader_fails_at_once(tmp_path, argv):
 def test_output_name_longer_than_the_file_system_takes(tmp_path):
     name_max = os.pathconf(tmp_path, "PC_NAME_MAX")
     long = "a" * (name_max + 5)
-    for argv in (["table", str(DEMO), "-o", f"{{tmp}}/{long}.csv"],
-                 ["audit", str(DEMO), "-o", f"{{tmp}}/{long}"],
-                 ["report", str(DEMO), "-o", f"{{tmp}}/{long}/inner"],
-                 ["export", str(DEMO), "--to", "dwc", "-o", f"{{tmp}}/{long}"]):
+    for argv in (
+        ["table", str(DEMO), "-o", f"{{tmp}}/{long}.csv"],
+        ["audit", str(DEMO), "-o", f"{{tmp}}/{long}"],
+        ["report", str(DEMO), "-o", f"{{tmp}}/{long}/inner"],
+        ["export", str(DEMO), "--to", "dwc", "-o", f"{{tmp}}/{long}"],
+    ):
         err = refused(tmp_path, argv, "choose a shorter name", f"at most {name_max} bytes")
         assert len(err) < 1000  # the message shows the start of the name, not all of it
 
@@ -113,13 +129,17 @@ def test_output_name_without_room_for_the_temporary_file(tmp_path):
     """The atomic write needs a temporary name 16 bytes longer than the output's, so a name
     that fits the file system but not that is refused before any work too."""
     name_max = os.pathconf(tmp_path, "PC_NAME_MAX")
-    refused(tmp_path, ["table", str(DEMO), "-o", "{tmp}/" + "b" * (name_max - 4)], "for an output file")
+    refused(
+        tmp_path, ["table", str(DEMO), "-o", "{tmp}/" + "b" * (name_max - 4)], "for an output file"
+    )
 
 
 def test_output_path_longer_than_the_file_system_takes(tmp_path):
     path_max = os.pathconf(tmp_path, "PC_PATH_MAX")
     deep = "/".join(["d" * 50] * (path_max // 51 + 2))
-    err = refused(tmp_path, ["table", str(DEMO), "-o", "{tmp}/" + deep + "/t.csv"], "paths of at most")
+    err = refused(
+        tmp_path, ["table", str(DEMO), "-o", "{tmp}/" + deep + "/t.csv"], "paths of at most"
+    )
     assert len(err) < 1000
 
 
@@ -136,7 +156,9 @@ def test_a_units_file_over_the_limit_stops_the_table_before_it_is_written(tmp_pa
     """The table's own name fits but its units file's would not: refused, nothing written."""
     name_max = os.pathconf(tmp_path, "PC_NAME_MAX")
     name = "c" * (name_max - 16)
-    refused(tmp_path, ["table", str(DEMO), "-o", "{tmp}/" + name], "units.csv", "choose a shorter name")
+    refused(
+        tmp_path, ["table", str(DEMO), "-o", "{tmp}/" + name], "units.csv", "choose a shorter name"
+    )
 
 
 # ------------------------------------------------------------------ memory and time
@@ -150,20 +172,43 @@ def _limited(argv: list[str], limit_bytes: int, cwd) -> subprocess.CompletedProc
     def limit() -> None:
         resource.setrlimit(resource.RLIMIT_AS, (limit_bytes, limit_bytes))
 
-    return subprocess.run([sys.executable, "-m", "comparo", *argv], capture_output=True, text=True,
-                          timeout=120, preexec_fn=limit, cwd=cwd)
+    return subprocess.run(
+        [sys.executable, "-m", "comparo", *argv],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        preexec_fn=limit,
+        cwd=cwd,
+    )
 
 
-@pytest.mark.parametrize("argv,words", [
-    (["derive", str(DEMO), "--mc", "3000000", "-o", "out.csv"], ["--mc 3000000 exceeds this machine's cap", "GiB this process may use"]),
-    (["fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--bootstrap", "60000000"],
-     ["--bootstrap 60000000 exceeds this machine's cap", "GiB this process may use"]),
-])
+@pytest.mark.parametrize(
+    "argv,words",
+    [
+        (
+            ["derive", str(DEMO), "--mc", "3000000", "-o", "out.csv"],
+            ["--mc 3000000 exceeds this machine's cap", "GiB this process may use"],
+        ),
+        (
+            [
+                "fit",
+                str(DEMO),
+                "--x",
+                "body_mass",
+                "--y",
+                "frequency_observed",
+                "--bootstrap",
+                "60000000",
+            ],
+            ["--bootstrap 60000000 exceeds this machine's cap", "GiB this process may use"],
+        ),
+    ],
+)
 def test_caps_follow_the_memory_the_process_may_use(tmp_path, argv, words):
     """Under a 1.5 GiB address-space limit the caps shrink to what the process may still use
     (these counts pass the caps of the unlimited machine when it has 8 GiB or more) and the
     run is refused before any work, exit 2, instead of a MemoryError (exit 3)."""
-    from comparo.bounds import memory_bytes
+    from comparo.base.arguments import memory_bytes
 
     if memory_bytes() < 8 * 2**30:
         pytest.skip("the machine itself has less than 8 GiB")
@@ -177,15 +222,19 @@ def test_caps_follow_the_memory_the_process_may_use(tmp_path, argv, words):
 def test_memory_bytes_reads_the_address_space_limit():
     import sys
 
-    code = ("import resource; resource.setrlimit(resource.RLIMIT_AS, (1 << 31, 1 << 31)); "
-            "from comparo.bounds import memory_bytes; print(memory_bytes())")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60, check=True)
+    code = (
+        "import resource; resource.setrlimit(resource.RLIMIT_AS, (1 << 31, 1 << 31)); "
+        "from comparo.base.arguments import memory_bytes; print(memory_bytes())"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, timeout=60, check=True
+    )
     assert 64 * 2**20 <= int(out.stdout) < 2**31
 
 
 def test_a_run_that_cannot_allocate_says_so(monkeypatch):
     """Whatever the estimate missed: a MemoryError is exit 2 with a sentence, not exit 3."""
-    import comparo.commands.table as table
+    import comparo.cli.commands.table as table
 
     def boom(args):
         raise MemoryError
@@ -197,19 +246,36 @@ def test_a_run_that_cannot_allocate_says_so(monkeypatch):
 
 
 @pytest.mark.parametrize("method,budget,count", [("lts", None, "100000"), ("robust", 0.05, "2000")])
-def test_a_refitting_bootstrap_is_bounded_by_its_measured_time(tmp_path, monkeypatch, method, budget, count):
+def test_a_refitting_bootstrap_is_bounded_by_its_measured_time(
+    tmp_path, monkeypatch, method, budget, count
+):
     """LTS and robust refit every resample; the cap comes from the time of one fit measured on
     the data (not from a fixed rate), so a count that would run for hours is refused at once
     (for robust the time budget is lowered to 0.05 s here, and the fixed-rate cap lifted, so
     that only the measured bound can refuse it)."""
-    import comparo.bounds
+    import comparo.base.arguments
 
     if budget is not None:
-        monkeypatch.setattr(comparo.bounds, "TIME_BUDGET_S", budget)
-        monkeypatch.setattr(comparo.bounds, "REFITS_PER_S", 1e9)
-    said = refused(tmp_path, ["fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed",
-                              "--method", method, "--bootstrap", count],
-                   f"--bootstrap {count} would take about", f"one {method} fit of these", "resamples fit in")
+        monkeypatch.setattr(comparo.base.arguments, "TIME_BUDGET_S", budget)
+        monkeypatch.setattr(comparo.base.arguments, "REFITS_PER_S", 1e9)
+    said = refused(
+        tmp_path,
+        [
+            "fit",
+            str(DEMO),
+            "--x",
+            "body_mass",
+            "--y",
+            "frequency_observed",
+            "--method",
+            method,
+            "--bootstrap",
+            count,
+        ],
+        f"--bootstrap {count} would take about",
+        f"one {method} fit of these",
+        "resamples fit in",
+    )
     assert "min here" in said
 
 
@@ -218,9 +284,11 @@ def test_a_trace_file_beyond_the_cap_is_refused_before_reading(tmp_path):
     from its size (a sparse file here: never read)."""
     from hostile_checks import demo_copy
 
-    import comparo.traces
+    import comparo.traces.files
 
     ds = demo_copy(tmp_path)
     with open(ds / "trace_WL1.csv", "r+b") as fh:
-        fh.truncate(comparo.traces.MAX_TRACE_BYTES + 1)
-    refused(tmp_path, ["cycles", "{tmp}/DS"], "trace_WL1.csv", "is 32 MB", "at most 32 MB", "trace-size")
+        fh.truncate(comparo.traces.files.MAX_TRACE_BYTES + 1)
+    refused(
+        tmp_path, ["cycles", "{tmp}/DS"], "trace_WL1.csv", "is 32 MB", "at most 32 MB", "trace-size"
+    )

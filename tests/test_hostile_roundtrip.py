@@ -1,6 +1,6 @@
 """Text that looks like a formula, through every CSV comparo writes and back.
 
-The rule (comparo/csvsafe.py, after OWASP's "CSV Injection" page): a spreadsheet runs a
+The rule (comparo/base/csvsafe.py, after OWASP's "CSV Injection" page): a spreadsheet runs a
 cell that begins with ``=`` or ``@`` (or a tab or carriage return), and one beginning with
 ``+`` or ``-`` when what follows is a formula (a function call, a DDE link ``|``,
 arithmetic, a cell reference). Such cells are written with one apostrophe before them;
@@ -27,11 +27,19 @@ import pytest
 from hostile_tools import changed_outside, snapshot
 from support import OBS_HEADER, run_main
 
-from comparo.csvsafe import restore_frame, to_csv
+from comparo.base.csvsafe import restore_frame, to_csv
 
 PLAIN = ["-", "+flight", "- resting", "-ve control", "'quoted", "+ 5 min", "-3.5"]
-FORMULA = ["=1+1", "@SUM(A1)", "-2+3", "+cmd|' /C calc'!A0", '=HYPERLINK("http://example.org","x")', "'=x",
-           "-A1", "\u0020=1+1"]
+FORMULA = [
+    "=1+1",
+    "@SUM(A1)",
+    "-2+3",
+    "+cmd|' /C calc'!A0",
+    '=HYPERLINK("http://example.org","x")',
+    "'=x",
+    "-A1",
+    "\u0020=1+1",
+]
 TAXA = ["Apis mellifera", "Bombus terrestris", "Xylocopa violacea", "Vespa crabro"]
 
 
@@ -43,7 +51,9 @@ def live(cell: str) -> bool:
         return True
     if t[:1] in ("+", "-"):
         rest = t[1:]
-        return any(ch in rest for ch in "()|!=@[{+-*/^&<>") or bool(__import__("re").match(r"\s*\$?[A-Za-z]{1,3}\$?\d", rest))
+        return any(ch in rest for ch in "()|!=@[{+-*/^&<>") or bool(
+            __import__("re").match(r"\s*\$?[A-Za-z]{1,3}\$?\d", rest)
+        )
     return False
 
 
@@ -65,27 +75,56 @@ def rt(tmp_path_factory):
     w.writerow(header)
     k = 0
     for i, taxon in enumerate(TAXA):
-        for q, v, unit in (("body_mass", 10 ** (i + 1), "mg"), ("frequency_observed", 200 / (i + 1), "Hz"),
-                           ("myofibril_volume_fraction", 0.4 + i / 20, "-")):
+        for q, v, unit in (
+            ("body_mass", 10 ** (i + 1), "mg"),
+            ("frequency_observed", 200 / (i + 1), "Hz"),
+            ("myofibril_volume_fraction", 0.4 + i / 20, "-"),
+        ):
             k += 1
-            w.writerow([f"o{k}", taxon, q, v, unit, "", "", "", "s1", texts(k), "reported", "", "",
-                        25 if q == "frequency_observed" else "", texts(k + 1), texts(k + 2), texts(k + 3)])
+            w.writerow(
+                [
+                    f"o{k}",
+                    taxon,
+                    q,
+                    v,
+                    unit,
+                    "",
+                    "",
+                    "",
+                    "s1",
+                    texts(k),
+                    "reported",
+                    "",
+                    "",
+                    25 if q == "frequency_observed" else "",
+                    texts(k + 1),
+                    texts(k + 2),
+                    texts(k + 3),
+                ]
+            )
     (ds / "observations.csv").write_text(buf.getvalue(), encoding="utf-8")
-    src = pd.DataFrame({"source_id": ["s1"], "citation": [FORMULA[4]], "year": ["2001"], "notes": ["- resting"]})
+    src = pd.DataFrame(
+        {"source_id": ["s1"], "citation": [FORMULA[4]], "year": ["2001"], "notes": ["- resting"]}
+    )
     (ds / "sources.csv").write_text(to_csv(src), encoding="utf-8")
     taxa = pd.DataFrame({"taxon": TAXA, "clade": [texts(i) for i in range(4)]})
     (ds / "taxa.csv").write_text(to_csv(taxa), encoding="utf-8")
     out = root / "out"
-    runs = {"table.csv": ["table", ds, "-o", out / "table.csv"], "derive.csv": ["derive", ds, "-o", out / "derive.csv"],
-            "audit": ["audit", ds, "-o", out / "audit", "--format", "json"],
-            "dp": ["export", ds, "--to", "datapackage", "-o", out / "dp"],
-            "dwc": ["export", ds, "--to", "dwc", "-o", out / "dwc"],
-            "report": ["report", ds, "-o", out / "report", "--quiet"]}
+    runs = {
+        "table.csv": ["table", ds, "-o", out / "table.csv"],
+        "derive.csv": ["derive", ds, "-o", out / "derive.csv"],
+        "audit": ["audit", ds, "-o", out / "audit", "--format", "json"],
+        "dp": ["export", ds, "--to", "datapackage", "-o", out / "dp"],
+        "dwc": ["export", ds, "--to", "dwc", "-o", out / "dwc"],
+        "report": ["report", ds, "-o", out / "report", "--quiet"],
+    }
     before, everything = snapshot(ds), snapshot(root)
     for name, argv in runs.items():
         proc = run_main(*map(str, argv))
         assert proc.returncode == 0, (name, proc.stderr)
-    proc = run_main("fit", str(ds), "--x", "body_mass", "--y", "frequency_observed", "--format", "csv")
+    proc = run_main(
+        "fit", str(ds), "--x", "body_mass", "--y", "frequency_observed", "--format", "csv"
+    )
     assert proc.returncode == 0, proc.stderr
     (out / "fit.csv").write_text(proc.stdout, encoding="utf-8")
     assert snapshot(ds) == before
@@ -100,8 +139,18 @@ def csv_outputs(out: Path) -> list[Path]:
 def test_every_output_was_written(rt):
     _, out = rt
     names = {p.relative_to(out).as_posix() for p in csv_outputs(out)}
-    assert {"table.csv", "derive.csv", "fit.csv", "audit/lineage.csv", "audit/coverage.csv", "dp/observations.csv",
-            "dp/sources.csv", "dp/taxa.csv", "dp/per_taxon.csv", "dwc/measurementorfact.csv"} <= names
+    assert {
+        "table.csv",
+        "derive.csv",
+        "fit.csv",
+        "audit/lineage.csv",
+        "audit/coverage.csv",
+        "dp/observations.csv",
+        "dp/sources.csv",
+        "dp/taxa.csv",
+        "dp/per_taxon.csv",
+        "dwc/measurementorfact.csv",
+    } <= names
 
 
 def test_no_cell_of_any_output_runs_as_a_formula(rt):
@@ -115,8 +164,12 @@ def test_no_cell_of_any_output_runs_as_a_formula(rt):
 def test_plain_text_is_written_as_it_is(rt):
     """'-', '+flight', '- resting' ... never get an apostrophe; each still appears verbatim."""
     _, out = rt
-    cells = {f.relative_to(out).as_posix(): {c for row in csv.reader(io.StringIO(f.read_text(encoding="utf-8")))
-                                             for c in row} for f in csv_outputs(out)}
+    cells = {
+        f.relative_to(out).as_posix(): {
+            c for row in csv.reader(io.StringIO(f.read_text(encoding="utf-8"))) for c in row
+        }
+        for f in csv_outputs(out)
+    }
     for f, seen in cells.items():
         assert not {"'" + p for p in PLAIN if not p.startswith("'")} & seen, f
     obs = cells["dp/observations.csv"]
@@ -124,9 +177,23 @@ def test_plain_text_is_written_as_it_is(rt):
     assert {"+flight", "- resting", "-"} <= cells["table.csv"]  # the clade column
 
 
-@pytest.mark.parametrize("name", ["table.csv", "derive.csv", "fit.csv", "audit/lineage.csv", "audit/coverage.csv",
-                                  "audit/sources.csv", "audit/excluded.csv", "dp/observations.csv", "dp/sources.csv",
-                                  "dp/taxa.csv", "dp/per_taxon.csv", "dwc/measurementorfact.csv"])
+@pytest.mark.parametrize(
+    "name",
+    [
+        "table.csv",
+        "derive.csv",
+        "fit.csv",
+        "audit/lineage.csv",
+        "audit/coverage.csv",
+        "audit/sources.csv",
+        "audit/excluded.csv",
+        "dp/observations.csv",
+        "dp/sources.csv",
+        "dp/taxa.csv",
+        "dp/per_taxon.csv",
+        "dwc/measurementorfact.csv",
+    ],
+)
 def test_reading_an_output_back_and_writing_it_again_gives_the_same_bytes(rt, name):
     _, out = rt
     text = (out / name).read_text(encoding="utf-8")
@@ -149,7 +216,7 @@ def test_every_csv_output_reads_back_to_the_same_bytes(rt):
 def test_export_reads_back_as_the_dataset_says(rt):
     """comparo -> datapackage -> comparo: every column of the observations, sources and taxa
     tables read back by comparo's reader equals the dataset's own reading."""
-    from comparo.io import read_text_table
+    from comparo.reading.tables import read_text_table
 
     ds, out = rt
     for table in ("observations.csv", "sources.csv", "taxa.csv"):
@@ -170,9 +237,9 @@ def test_export_reads_back_as_the_dataset_says(rt):
 
 def test_the_table_reads_back_through_fit(rt):
     """comparo table -> CSV -> comparo fit: the grouping column and the names come back exact."""
-    from comparo.commands.fit import read_table
-    from comparo.curate import per_taxon
-    from comparo.dataset import load
+    from comparo.cli.commands.fit import read_table
+    from comparo.curation.harmonise import per_taxon
+    from comparo.validation.dataset import load
 
     ds, out = rt
     mine = per_taxon(load(ds))
@@ -186,8 +253,14 @@ def test_import_keeps_a_dash_unit_and_formula_like_text(tmp_path):
     """A dimensionless unit written '-' and text cells that look like formulas come out of
     import as typed, and the imported folder passes check."""
     wide = tmp_path / "w.csv"
-    frame = pd.DataFrame({"Species": TAXA[:3], "Myofibril volume fraction (-)": ["0.5", "0.4", "0.45"],
-                          "Muscle": ["+flight", "=1+1", "- resting"], "Source": ["s1", "s1", "s1"]})
+    frame = pd.DataFrame(
+        {
+            "Species": TAXA[:3],
+            "Myofibril volume fraction (-)": ["0.5", "0.4", "0.45"],
+            "Muscle": ["+flight", "=1+1", "- resting"],
+            "Source": ["s1", "s1", "s1"],
+        }
+    )
     wide.write_text(frame.to_csv(index=False), encoding="utf-8")
     before = snapshot(tmp_path)
     proc = run_main("import", str(wide), "-o", str(tmp_path / "I"))
@@ -197,7 +270,7 @@ def test_import_keeps_a_dash_unit_and_formula_like_text(tmp_path):
     assert ",-," in text and ",+flight," in text and "'=1+1" in text and "'- resting" not in text
     proc = run_main("check", str(tmp_path / "I"))
     assert proc.returncode == 0, proc.stderr
-    from comparo.dataset import load
+    from comparo.validation.dataset import load
 
     obs = load(tmp_path / "I").observations
     assert list(obs["muscle"]) == ["+flight", "=1+1", "- resting"]

@@ -12,8 +12,8 @@ import pytest
 from hostile_checks import refused, snapshot
 from support import run_main, write_dataset
 
-from comparo.io import RawTable
-from comparo.synonyms import resolve_synonyms
+from comparo.reading.tables import RawTable
+from comparo.validation.synonyms import resolve_synonyms
 
 
 def _table(pairs: list[tuple[str, str]]) -> RawTable:
@@ -55,14 +55,20 @@ def test_random_links_resolve_as_a_plain_walk(seed):
 @pytest.mark.parametrize("kind", ["chain", "cycle"])
 def test_20000_links_take_well_under_a_second(kind):
     n = 20_000
-    pairs = [(f"Genus n{i}", f"Genus n{(i + 1) % n if kind == 'cycle' else i + 1}") for i in range(n)]
+    pairs = [
+        (f"Genus n{i}", f"Genus n{(i + 1) % n if kind == 'cycle' else i + 1}") for i in range(n)
+    ]
     t0 = time.perf_counter()
     resolved, probs = resolve_synonyms(_table(pairs))
     assert time.perf_counter() - t0 < 2.0
     if kind == "chain":
         assert len(resolved) == n and set(resolved.values()) == {f"Genus n{n}"}
         (p,) = probs
-        assert p.rule == "synonym-chain" and f"({n + 1 - 9} more)" in p.message and len(p.message) < 600
+        assert (
+            p.rule == "synonym-chain"
+            and f"({n + 1 - 9} more)" in p.message
+            and len(p.message) < 600
+        )
     else:
         assert resolved == {}
         (p,) = probs
@@ -72,7 +78,9 @@ def test_20000_links_take_well_under_a_second(kind):
 def test_a_long_cycle_through_the_cli(tmp_path):
     ds = write_dataset(tmp_path / "DS")
     n = 20_000
-    lines = ["taxon,accepted_name", "Apis mellifera,Genus n0"] + [f"Genus n{i},Genus n{(i + 1) % n}" for i in range(n)]
+    lines = ["taxon,accepted_name", "Apis mellifera,Genus n0"] + [
+        f"Genus n{i},Genus n{(i + 1) % n}" for i in range(n)
+    ]
     (ds / "taxa.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
     t0 = time.perf_counter()
     said = refused(tmp_path, ["table", "{tmp}/DS"], "synonym-cycle", "(19994 more)")
@@ -82,7 +90,9 @@ def test_a_long_cycle_through_the_cli(tmp_path):
 def test_a_long_chain_through_the_cli_is_read(tmp_path):
     ds = write_dataset(tmp_path / "DS")
     n = 20_000
-    lines = ["taxon,accepted_name", "Apis mellifera,Genus n0"] + [f"Genus n{i},Genus n{i + 1}" for i in range(n)]
+    lines = ["taxon,accepted_name", "Apis mellifera,Genus n0"] + [
+        f"Genus n{i},Genus n{i + 1}" for i in range(n)
+    ]
     (ds / "taxa.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
     before = snapshot(tmp_path)
     proc = run_main("table", str(ds))

@@ -15,15 +15,22 @@ def _rewrite(ds, name, column, values):
     frame.to_csv(ds / name, index=False)
 
 
-@pytest.mark.parametrize("name,column,values,words", [
-    ("trace_WL1.csv", "force_mN", lambda f: 5.0, "the force signal does not oscillate"),
-    ("trace_WL1.csv", "length_mm", lambda f: 2.0, "the length signal does not oscillate"),
-    # a straight ramp is all drift: what is left after removing it is rounding
-    ("trace_WL1.csv", "force_mN", lambda f: 1.0 + 0.01 * np.arange(len(f)), "force signal"),
-    # noise without a cycle at the length's frequency
-    ("trace_WL1.csv", "force_mN", lambda f: np.random.default_rng(1).normal(5.0, 1.0, len(f)),
-     "of the force signal's variance"),
-])
+@pytest.mark.parametrize(
+    "name,column,values,words",
+    [
+        ("trace_WL1.csv", "force_mN", lambda f: 5.0, "the force signal does not oscillate"),
+        ("trace_WL1.csv", "length_mm", lambda f: 2.0, "the length signal does not oscillate"),
+        # a straight ramp is all drift: what is left after removing it is rounding
+        ("trace_WL1.csv", "force_mN", lambda f: 1.0 + 0.01 * np.arange(len(f)), "force signal"),
+        # noise without a cycle at the length's frequency
+        (
+            "trace_WL1.csv",
+            "force_mN",
+            lambda f: np.random.default_rng(1).normal(5.0, 1.0, len(f)),
+            "of the force signal's variance",
+        ),
+    ],
+)
 def test_a_signal_without_a_cycle_is_refused(tmp_path, name, column, values, words):
     """A loop needs both signals to oscillate: a constant force gives a loop of zero area,
     which once came out as a net work of 1e-15 uJ with exit 0."""
@@ -38,13 +45,18 @@ def test_constant_strain_is_refused(tmp_path):
     index = pd.read_csv(ds / "traces.csv")
     strain = index[index["kind"] != "work_loop"].iloc[0]
     _rewrite(ds, strain["file"], strain["y_column"], lambda f: 0.0)
-    refused(tmp_path, ["cycles", "{tmp}/DS"], str(strain["trace_id"]), "radial strain signal does not oscillate")
+    refused(
+        tmp_path,
+        ["cycles", "{tmp}/DS"],
+        str(strain["trace_id"]),
+        "radial strain signal does not oscillate",
+    )
 
 
 def test_loops_refuse_a_constant_signal_in_the_python_api():
     """Independent check: a sinusoid of 7 cycles against a constant has zero variance in one
     signal (numpy), and the reduction says so instead of returning a zero area."""
-    from comparo import loops
+    from comparo.traces import oscillation as loops
 
     t = np.linspace(0, 0.07, 701)
     length = 0.01 + 0.001 * np.sin(2 * np.pi * 100 * t)

@@ -63,7 +63,9 @@ def _patch(path: Path, edit) -> None:
 
 def _value(cell: str, text: str):
     """Replace the stored value of *cell* by *text* as written in the XML."""
-    return lambda s: re.sub(rf'<c r="{cell}"([^>]*)><v>[^<]*</v>', rf'<c r="{cell}"\1><v>{text}</v>', s)
+    return lambda s: re.sub(
+        rf'<c r="{cell}"([^>]*)><v>[^<]*</v>', rf'<c r="{cell}"\1><v>{text}</v>', s
+    )
 
 
 DAMAGED = {
@@ -79,8 +81,13 @@ DAMAGED = {
 @pytest.mark.parametrize("case", sorted(DAMAGED))
 def test_damaged_cell_record_in_an_imported_workbook(tmp_path, case):
     _patch(_wide(tmp_path / "wide.xlsx"), DAMAGED[case])
-    refused(tmp_path, ["import", "{tmp}/wide.xlsx", "-o", "{tmp}/out"],
-            "wide.xlsx", "cannot read the sheet", "xlsx-read")
+    refused(
+        tmp_path,
+        ["import", "{tmp}/wide.xlsx", "-o", "{tmp}/out"],
+        "wide.xlsx",
+        "cannot read the sheet",
+        "xlsx-read",
+    )
 
 
 DAMAGED_D3 = {
@@ -93,25 +100,35 @@ DAMAGED_D3 = {
 @pytest.mark.parametrize("case", sorted(DAMAGED_D3))
 def test_damaged_cell_record_in_a_dataset_table(tmp_path, case):
     _patch(_observations(tmp_path / "DS"), DAMAGED_D3[case])
-    for command in (["check", "{tmp}/DS"], ["table", "{tmp}/DS"],
-                    ["fit", "{tmp}/DS", "--x", "body_mass", "--y", "frequency_observed"]):
+    for command in (
+        ["check", "{tmp}/DS"],
+        ["table", "{tmp}/DS"],
+        ["fit", "{tmp}/DS", "--x", "body_mass", "--y", "frequency_observed"],
+    ):
         refused(tmp_path, command, "observations.xlsx", "cannot read the sheet", "xlsx-read")
 
 
 def test_numbers_beyond_a_double_in_an_imported_workbook(tmp_path):
     """1e400 is stored as a number but reads as infinity: refused at its cell, never imported."""
-    _patch(_wide(tmp_path / "wide.xlsx"), lambda s: _value("B3", "-1E999")(_value("B2", "1e400")(s)))
+    _patch(
+        _wide(tmp_path / "wide.xlsx"), lambda s: _value("B3", "-1E999")(_value("B2", "1e400")(s))
+    )
     said = refused(tmp_path, ["import", "{tmp}/wide.xlsx", "-o", "{tmp}/out"], "non-finite")
     assert "cell B2 holds inf" in said and "cell B3 holds -inf" in said
 
 
 def test_numbers_beyond_a_double_in_a_dataset_table(tmp_path):
-    _patch(_observations(tmp_path / "DS"), lambda s: re.sub(r'(<c r="D3"[^>]*>)<v>[^<]*</v>', r"\1<v>1e400</v>", s))
+    _patch(
+        _observations(tmp_path / "DS"),
+        lambda s: re.sub(r'(<c r="D3"[^>]*>)<v>[^<]*</v>', r"\1<v>1e400</v>", s),
+    )
     refused(tmp_path, ["check", "{tmp}/DS"], "observations.xlsx", "no finite number")
 
 
 def _far_cell(s: str) -> str:
-    return s.replace("</sheetData>", '<row r="1048576"><c r="XFD1048576" t="n"><v>1</v></c></row></sheetData>')
+    return s.replace(
+        "</sheetData>", '<row r="1048576"><c r="XFD1048576" t="n"><v>1</v></c></row></sheetData>'
+    )
 
 
 def test_one_cell_at_the_far_corner_is_refused_before_loading(tmp_path):
@@ -119,8 +136,13 @@ def test_one_cell_at_the_far_corner_is_refused_before_loading(tmp_path):
     row and hung. The span is measured by streaming the XML, before openpyxl loads it."""
     _patch(_wide(tmp_path / "wide.xlsx"), _far_cell)
     t0 = time.perf_counter()
-    said = refused(tmp_path, ["import", "{tmp}/wide.xlsx", "-o", "{tmp}/out"],
-                   "row 1,048,576 and column 16,384", "limit of 10,000,000", "xlsx-size")
+    said = refused(
+        tmp_path,
+        ["import", "{tmp}/wide.xlsx", "-o", "{tmp}/out"],
+        "row 1,048,576 and column 16,384",
+        "limit of 10,000,000",
+        "xlsx-size",
+    )
     assert time.perf_counter() - t0 < 20, said
 
 
@@ -135,7 +157,10 @@ def test_a_huge_declared_dimension_reads_only_the_cells_present(tmp_path):
     """The declared dimension says A1:XFD1048576 for three rows: the import reads the three
     rows (quickly) and writes only its output folder."""
     wide = tmp_path / "wide.xlsx"
-    _patch(_wide(wide), lambda s: re.sub(r'<dimension ref="[^"]*" ?/>', '<dimension ref="A1:XFD1048576"/>', s))
+    _patch(
+        _wide(wide),
+        lambda s: re.sub(r'<dimension ref="[^"]*" ?/>', '<dimension ref="A1:XFD1048576"/>', s),
+    )
     before = wide.read_bytes()
     t0 = time.perf_counter()
     proc = run_main("import", str(wide), "-o", str(tmp_path / "out"))
@@ -150,8 +175,14 @@ def test_a_row_beyond_the_declared_dimension_is_not_dropped(tmp_path):
     """The declared dimension (A1:C3) ends before the last row (row 100,000): that row is
     imported, not silently dropped."""
     wide = tmp_path / "wide.xlsx"
-    _patch(_wide(wide), lambda s: s.replace("</sheetData>", '<row r="100000"><c r="A100000" t="inlineStr"><is><t>Apis cerana</t></is></c>'
-                                            '<c r="B100000" t="n"><v>0.07</v></c><c r="C100000" t="inlineStr"><is><t>S1</t></is></c></row></sheetData>'))
+    _patch(
+        _wide(wide),
+        lambda s: s.replace(
+            "</sheetData>",
+            '<row r="100000"><c r="A100000" t="inlineStr"><is><t>Apis cerana</t></is></c>'
+            '<c r="B100000" t="n"><v>0.07</v></c><c r="C100000" t="inlineStr"><is><t>S1</t></is></c></row></sheetData>',
+        ),
+    )
     proc = run_main("import", str(wide), "-o", str(tmp_path / "out"))
     assert proc.returncode == 0, proc.stderr
     assert "Apis cerana,body_mass,0.07" in (tmp_path / "out" / "observations.csv").read_text()
@@ -160,12 +191,20 @@ def test_a_row_beyond_the_declared_dimension_is_not_dropped(tmp_path):
 def test_sheet_xml_beyond_the_cap_is_refused_before_inflating(tmp_path, monkeypatch):
     """The uncompressed size is read from the zip directory, so a sheet that would inflate to
     gigabytes is refused without inflating it (the cap is lowered here to keep the test small)."""
-    import comparo.io
+    import comparo.reading.tables
 
-    monkeypatch.setattr(comparo.io, "MAX_SHEET_XML_BYTES", 64 * 1024)
-    _patch(_wide(tmp_path / "wide.xlsx"), lambda s: s.replace("</sheetData>", "</sheetData><!--" + " " * 100_000 + "-->"))
-    refused(tmp_path, ["import", "{tmp}/wide.xlsx", "-o", "{tmp}/out"],
-            "xlsx-size", "inflates to 0.1 MB of XML", "at most 0.1 MB per sheet")
+    monkeypatch.setattr(comparo.reading.tables, "MAX_SHEET_XML_BYTES", 64 * 1024)
+    _patch(
+        _wide(tmp_path / "wide.xlsx"),
+        lambda s: s.replace("</sheetData>", "</sheetData><!--" + " " * 100_000 + "-->"),
+    )
+    refused(
+        tmp_path,
+        ["import", "{tmp}/wide.xlsx", "-o", "{tmp}/out"],
+        "xlsx-size",
+        "inflates to 0.1 MB of XML",
+        "at most 0.1 MB per sheet",
+    )
 
 
 def test_snapshot_sees_a_changed_byte(tmp_path):

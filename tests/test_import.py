@@ -1,7 +1,7 @@
 """comparo import: wide tables (CSV, TSV, XLSX) to a dataset folder.
 
 Unit conversions are checked against a fresh pint registry built in the test (an
-independent route: pint's own definitions, not comparo.units); the headers and
+independent route: pint's own definitions, not comparo.base.units); the headers and
 cells are made by the tests (CSV text, or workbooks written with openpyxl).
 """
 
@@ -17,18 +17,62 @@ import pint
 import pytest
 from support import tree_hash
 
-from comparo.cli import main
+from comparo.cli.main import main
 
 UREG = pint.UnitRegistry()
 
-HEADER = ["Species", "Clade", "Source", "Table", "Temperature (°C)", "Body mass (g)", "Body mass SD (mg)",
-          "Fibre diameter [µm]", "Fiber length (mm)", "Wingbeat frequency (Hz)", "Young's modulus (MPa)", "n"]
+HEADER = [
+    "Species",
+    "Clade",
+    "Source",
+    "Table",
+    "Temperature (°C)",
+    "Body mass (g)",
+    "Body mass SD (mg)",
+    "Fibre diameter [µm]",
+    "Fiber length (mm)",
+    "Wingbeat frequency (Hz)",
+    "Young's modulus (MPa)",
+    "n",
+]
 ROWS = [
-    ["Apis mellifera", "Hymenoptera", "s1", "Table 1", "30", "0.1", "12", "25", "1.5", "230", "0.5", "10"],
-    ["Bombus terrestris", "Hymenoptera", "s2", "Table 2", "25", "0.2", "", "", "2.5", "150", "", ""],
+    [
+        "Apis mellifera",
+        "Hymenoptera",
+        "s1",
+        "Table 1",
+        "30",
+        "0.1",
+        "12",
+        "25",
+        "1.5",
+        "230",
+        "0.5",
+        "10",
+    ],
+    [
+        "Bombus terrestris",
+        "Hymenoptera",
+        "s2",
+        "Table 2",
+        "25",
+        "0.2",
+        "",
+        "",
+        "2.5",
+        "150",
+        "",
+        "",
+    ],
     ["Musca domestica", "Diptera", "s1", "Fig. 3", "20", "0.012", "1", "18", "", "190", "", "4"],
 ]
-CANONICAL = {"body_mass": "kg", "fiber_radius": "um", "fiber_length": "mm", "frequency_observed": "Hz", "elastic_modulus": "kPa"}
+CANONICAL = {
+    "body_mass": "kg",
+    "fiber_radius": "um",
+    "fiber_length": "mm",
+    "frequency_observed": "Hz",
+    "elastic_modulus": "kPa",
+}
 
 
 def write_text(path: Path, rows: list[list[str]], delimiter: str = ",") -> Path:
@@ -38,7 +82,9 @@ def write_text(path: Path, rows: list[list[str]], delimiter: str = ",") -> Path:
     return path
 
 
-def write_xlsx(path: Path, rows: list[list], sheet: str = "Sheet1", first: str | None = None) -> Path:
+def write_xlsx(
+    path: Path, rows: list[list], sheet: str = "Sheet1", first: str | None = None
+) -> Path:
     wb = openpyxl.Workbook()
     ws = wb.active
     if first:
@@ -80,15 +126,21 @@ def table(tmp_path: Path, folder: Path) -> pd.DataFrame:
 def expected_canonical() -> dict[tuple[str, str], float]:
     """The wide cells converted by pint directly: (taxon, quantity) -> value in canonical unit."""
     out = {}
-    cols = {"Body mass (g)": ("body_mass", "g", 1.0), "Fibre diameter [µm]": ("fiber_radius", "um", 0.5),
-            "Fiber length (mm)": ("fiber_length", "mm", 1.0), "Wingbeat frequency (Hz)": ("frequency_observed", "Hz", 1.0),
-            "Young's modulus (MPa)": ("elastic_modulus", "MPa", 1.0)}
+    cols = {
+        "Body mass (g)": ("body_mass", "g", 1.0),
+        "Fibre diameter [µm]": ("fiber_radius", "um", 0.5),
+        "Fiber length (mm)": ("fiber_length", "mm", 1.0),
+        "Wingbeat frequency (Hz)": ("frequency_observed", "Hz", 1.0),
+        "Young's modulus (MPa)": ("elastic_modulus", "MPa", 1.0),
+    }
     for r in ROWS:
         for h, (key, unit, factor) in cols.items():
             cell = r[HEADER.index(h)]
             if cell:
                 # radius = diameter / 2 (the catalogue's fiber_diameter rule); the rest: unit change only
-                out[(r[0], key)] = factor * UREG.Quantity(float(cell), unit).to(CANONICAL[key]).magnitude
+                out[(r[0], key)] = (
+                    factor * UREG.Quantity(float(cell), unit).to(CANONICAL[key]).magnitude
+                )
     return out
 
 
@@ -112,22 +164,46 @@ def test_csv_round_trip_gives_pint_values_in_canonical_units(tmp_path: Path) -> 
     apis = obs[(obs.taxon == "Apis mellifera") & (obs.quantity == "body_mass")].iloc[0]
     # the SD column is in mg, the value in g: the spread is written in the value's unit
     assert apis.unit == "g" and apis.uncertainty_kind == "sd"
-    assert float(apis.uncertainty) == pytest.approx(UREG.Quantity(12, "mg").to("g").magnitude, rel=1e-12)
-    assert apis.n == "10" and apis.temperature_c == "30" and apis.locator == "Table 1" and apis.basis == "reported"
+    assert float(apis.uncertainty) == pytest.approx(
+        UREG.Quantity(12, "mg").to("g").magnitude, rel=1e-12
+    )
+    assert (
+        apis.n == "10"
+        and apis.temperature_c == "30"
+        and apis.locator == "Table 1"
+        and apis.basis == "reported"
+    )
     taxa = pd.read_csv(out / "taxa.csv")
     assert dict(zip(taxa.taxon, taxa.clade, strict=True))["Musca domestica"] == "Diptera"
     assert wide.read_bytes() == before  # the input is never modified
     src = pd.read_csv(out / "sources.csv")
-    assert sorted(src.source_id) == ["s1", "s2"] and src.citation.str.startswith("NEEDS CITATION").all()
+    assert (
+        sorted(src.source_id) == ["s1", "s2"]
+        and src.citation.str.startswith("NEEDS CITATION").all()
+    )
     import comparo
 
     found = comparo.check(out).problems
-    assert sorted(found[found.rule == "citation-stub"].value) == ["s1", "s2"]  # a warning until replaced
+    assert sorted(found[found.rule == "citation-stub"].value) == [
+        "s1",
+        "s2",
+    ]  # a warning until replaced
 
 
 def test_tsv_with_bracket_units_and_other_spellings(tmp_path: Path) -> None:
-    header = ["TAXON", "reference", "Where", "temperature_c", "body_mass (g)", "SD Body mass (mg)",
-              "fibre diameter (um)", "Fiber Length [mm]", "wing-beat frequency [Hz]", "Youngs modulus (MPa)", "N"]
+    header = [
+        "TAXON",
+        "reference",
+        "Where",
+        "temperature_c",
+        "body_mass (g)",
+        "SD Body mass (mg)",
+        "fibre diameter (um)",
+        "Fiber Length [mm]",
+        "wing-beat frequency [Hz]",
+        "Youngs modulus (MPa)",
+        "N",
+    ]
     rows = [header] + [[r[0], r[2], r[3], r[4], *r[5:]] for r in ROWS]
     out = imported(tmp_path, write_text(tmp_path / "wide.tsv", rows, "\t"))
     check_round_trip(tmp_path, out)
@@ -156,7 +232,9 @@ def test_non_number_cell_is_an_error_at_its_coordinates(tmp_path: Path, capsys) 
 
 def test_value_rules_of_check_are_reported_at_the_wide_cell(tmp_path: Path, capsys) -> None:
     rows = [HEADER, *[list(r) for r in ROWS]]
-    rows[1][HEADER.index("Body mass (g)")] = "-0.1"  # column F, sheet row 2: check's positive-value rule
+    rows[1][HEADER.index("Body mass (g)")] = (
+        "-0.1"  # column F, sheet row 2: check's positive-value rule
+    )
     wide = write_text(tmp_path / "wide.csv", rows)
     assert run("import", wide, "-o", tmp_path / "out") == 2
     err = capsys.readouterr().err
@@ -173,7 +251,10 @@ def test_empty_cells_make_no_row_and_missing_words_are_counted(tmp_path: Path, c
 
 
 def test_ambiguous_header_exits_2_with_candidates_and_a_map_file(tmp_path: Path, capsys) -> None:
-    rows = [["Species", "Source", "Length (mm)", "Wing colour"], ["Apis mellifera", "s1", "2.5", "brown"]]
+    rows = [
+        ["Species", "Source", "Length (mm)", "Wing colour"],
+        ["Apis mellifera", "s1", "2.5", "brown"],
+    ]
     wide = write_text(tmp_path / "wide.csv", rows)
     out = tmp_path / "out"
     assert run("import", wide, "-o", out) == 2
@@ -198,26 +279,38 @@ def test_ambiguous_header_exits_2_with_candidates_and_a_map_file(tmp_path: Path,
     assert obs.quantity.tolist() == ["sarcomere_length"] and obs.unit.tolist() == ["um"]
     # the decision is recorded, and import.toml re-runs the same import
     assert run("import", wide, "-o", tmp_path / "again", "--map", out / "import.toml") == 0
-    assert (tmp_path / "again" / "observations.csv").read_bytes() == (out / "observations.csv").read_bytes()
+    assert (tmp_path / "again" / "observations.csv").read_bytes() == (
+        out / "observations.csv"
+    ).read_bytes()
 
 
 def test_decimal_comma_semicolon_export(tmp_path: Path, capsys) -> None:
-    rows = [["Species", "Source", "Body mass (g)", "Fibre radius (µm)"], ["Apis mellifera", "s1", "0,1", "12,5"],
-            ["Bombus terrestris", "s1", "1.234,5", "15"]]
+    rows = [
+        ["Species", "Source", "Body mass (g)", "Fibre radius (µm)"],
+        ["Apis mellifera", "s1", "0,1", "12,5"],
+        ["Bombus terrestris", "s1", "1.234,5", "15"],
+    ]
     wide = write_text(tmp_path / "wide.csv", rows, ";")
     assert run("import", wide, "-o", tmp_path / "refused") == 2
     assert "--decimal-comma" in capsys.readouterr().err
     out = imported(tmp_path, wide, "--decimal-comma")
     tab = table(tmp_path, out)
-    assert tab.loc["Apis mellifera", "body_mass"] == pytest.approx(UREG.Quantity(0.1, "g").to("kg").magnitude)
-    assert tab.loc["Bombus terrestris", "body_mass"] == pytest.approx(UREG.Quantity(1234.5, "g").to("kg").magnitude)
+    assert tab.loc["Apis mellifera", "body_mass"] == pytest.approx(
+        UREG.Quantity(0.1, "g").to("kg").magnitude
+    )
+    assert tab.loc["Bombus terrestris", "body_mass"] == pytest.approx(
+        UREG.Quantity(1234.5, "g").to("kg").magnitude
+    )
     assert tab.loc["Apis mellifera", "fiber_radius"] == pytest.approx(12.5)
 
 
 def test_obs_ids_are_stable_across_reruns_and_row_order(tmp_path: Path) -> None:
     a = imported(tmp_path, write_text(tmp_path / "a.csv", [HEADER, *ROWS]), name="a")
     b = imported(tmp_path, write_text(tmp_path / "b.csv", [HEADER, *ROWS[::-1]]), name="b")
-    ids = [pd.read_csv(f / "observations.csv").set_index(["taxon", "quantity"]).obs_id.sort_index() for f in (a, b)]
+    ids = [
+        pd.read_csv(f / "observations.csv").set_index(["taxon", "quantity"]).obs_id.sort_index()
+        for f in (a, b)
+    ]
     assert ids[0].is_unique and ids[0].equals(ids[1])
 
 
@@ -230,7 +323,9 @@ def test_output_folder_refused_when_not_empty_unless_overwrite(tmp_path: Path, c
     assert "not empty" in capsys.readouterr().err and not (out / "observations.csv").exists()
     assert run("import", wide, "-o", out, "--overwrite") == 0
     assert (out / "keep.txt").read_text() == "mine" and (out / "observations.csv").is_file()
-    assert run("import", wide, "-o", out, "--overwrite") == 0  # an imported folder can be re-imported into
+    assert (
+        run("import", wide, "-o", out, "--overwrite") == 0
+    )  # an imported folder can be re-imported into
 
 
 def test_sources_file_is_copied_and_ids_checked(tmp_path: Path, capsys) -> None:
@@ -240,25 +335,46 @@ def test_sources_file_is_copied_and_ids_checked(tmp_path: Path, capsys) -> None:
     assert run("import", wide, "-o", tmp_path / "out", "--sources", src) == 2
     err = capsys.readouterr().err
     assert "s2" in err and "cell C3" in err  # Bombus's source id, column C row 3
-    src.write_text("source_id,citation,year\ns1,Invented A. (2001) One,2001\ns2,Invented B. (2002) Two,2002\n", encoding="utf-8")
+    src.write_text(
+        "source_id,citation,year\ns1,Invented A. (2001) One,2001\ns2,Invented B. (2002) Two,2002\n",
+        encoding="utf-8",
+    )
     out = imported(tmp_path, wide, "--sources", src)
     assert (out / "sources.csv").read_bytes() == src.read_bytes()
 
 
 def test_per_trait_source_and_se_columns(tmp_path: Path) -> None:
-    rows = [["Species", "Body mass (g)", "Body mass SE (g)", "Body mass source", "Frequency (Hz)", "Frequency source", "Frequency n"],
-            ["Apis mellifera", "0.1", "0.01", "s1", "230", "s2", "7"]]
+    rows = [
+        [
+            "Species",
+            "Body mass (g)",
+            "Body mass SE (g)",
+            "Body mass source",
+            "Frequency (Hz)",
+            "Frequency source",
+            "Frequency n",
+        ],
+        ["Apis mellifera", "0.1", "0.01", "s1", "230", "s2", "7"],
+    ]
     out = imported(tmp_path, write_text(tmp_path / "wide.csv", rows))
-    obs = pd.read_csv(out / "observations.csv", dtype=str, keep_default_na=False).set_index("quantity")
-    assert obs.loc["body_mass", "source_id"] == "s1" and obs.loc["body_mass", "uncertainty_kind"] == "se"
-    assert obs.loc["frequency_observed", "source_id"] == "s2" and obs.loc["frequency_observed", "n"] == "7"
+    obs = pd.read_csv(out / "observations.csv", dtype=str, keep_default_na=False).set_index(
+        "quantity"
+    )
+    assert (
+        obs.loc["body_mass", "source_id"] == "s1"
+        and obs.loc["body_mass", "uncertainty_kind"] == "se"
+    )
+    assert (
+        obs.loc["frequency_observed", "source_id"] == "s2"
+        and obs.loc["frequency_observed", "n"] == "7"
+    )
     assert obs.loc["body_mass", "n"] == ""
 
 
 def test_catalogue_synonyms_are_valid_and_unique() -> None:
     """Every synonym names one quantity only (a shared one would make headers ambiguous)."""
-    from comparo.catalog import load_catalog
-    from comparo.wide import NameIndex
+    from comparo.base.catalog import load_catalog
+    from comparo.reading.sheets import NameIndex
 
     index = NameIndex.of(load_catalog())
     shared = {n: ks for n, ks in index.names.items() if len(ks) > 1}
@@ -300,7 +416,21 @@ def test_hostile_wide_tables_exit_2_not_3(tmp_path: Path, case: str, capsys) -> 
     assert tree_hash(wide.parent) == before  # the input is never modified
 
 
-@pytest.mark.parametrize("case", ["stdout", "output-is-a-file", "output-is-the-input", "broken-xlsx", "missing-sheet", "map-garbage", "map-bad-role", "missing-wide", "folder-as-wide", "formula-no-value"])
+@pytest.mark.parametrize(
+    "case",
+    [
+        "stdout",
+        "output-is-a-file",
+        "output-is-the-input",
+        "broken-xlsx",
+        "missing-sheet",
+        "map-garbage",
+        "map-bad-role",
+        "missing-wide",
+        "folder-as-wide",
+        "formula-no-value",
+    ],
+)
 def test_hostile_options_exit_2_not_3(tmp_path: Path, case: str, capsys) -> None:
     wide = write_xlsx(tmp_path / "wide.xlsx", [HEADER, *ROWS])
     args = ["import", wide, "-o", tmp_path / "out"]
@@ -320,7 +450,9 @@ def test_hostile_options_exit_2_not_3(tmp_path: Path, case: str, capsys) -> None
         (tmp_path / "m.csv").write_bytes(b"\x00\x00\xff")
         args += ["--map", tmp_path / "m.csv"]
     elif case == "map-bad-role":
-        (tmp_path / "m.csv").write_text("header,role,key,unit\nSpecies,speciez,,\nNot a header,taxon,,\n", encoding="utf-8")
+        (tmp_path / "m.csv").write_text(
+            "header,role,key,unit\nSpecies,speciez,,\nNot a header,taxon,,\n", encoding="utf-8"
+        )
         args += ["--map", tmp_path / "m.csv"]
     elif case == "missing-wide":
         args[1] = tmp_path / "nothing.csv"
@@ -341,11 +473,16 @@ def test_hostile_options_exit_2_not_3(tmp_path: Path, case: str, capsys) -> None
 
 
 def test_trait_source_falls_back_to_the_row_source(tmp_path: Path) -> None:
-    rows = [["Species", "Source", "Body mass (g)", "Frequency (Hz)", "Frequency source", "Clade"],
-            ["Apis mellifera", "s1", "0.1", "230", "s2", "Apidae"], ["Bombus terrestris", "s1", "0.2", "150", "", "Apidae"]]
+    rows = [
+        ["Species", "Source", "Body mass (g)", "Frequency (Hz)", "Frequency source", "Clade"],
+        ["Apis mellifera", "s1", "0.1", "230", "s2", "Apidae"],
+        ["Bombus terrestris", "s1", "0.2", "150", "", "Apidae"],
+    ]
     wide = write_text(tmp_path / "wide.csv", rows)
     map_file = tmp_path / "m.csv"
-    map_file.write_text("header,role,key\nClade,taxa,\n", encoding="utf-8")  # key defaults to the header's name
+    map_file.write_text(
+        "header,role,key\nClade,taxa,\n", encoding="utf-8"
+    )  # key defaults to the header's name
     out = imported(tmp_path, wide, "--map", map_file)
     obs = pd.read_csv(out / "observations.csv").set_index(["taxon", "quantity"])
     assert obs.loc[("Apis mellifera", "frequency_observed"), "source_id"] == "s2"
@@ -363,11 +500,18 @@ def test_demo_wide_companion_imports_to_the_demo_values(tmp_path: Path) -> None:
 
     import comparo
 
-    spec = importlib.util.spec_from_file_location("make_wide", ROOT / "demo_tables" / "make_wide.py")
+    spec = importlib.util.spec_from_file_location(
+        "make_wide", ROOT / "demo_tables" / "make_wide.py"
+    )
     make_wide = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(make_wide)
     assert make_wide.main(["--check"]) == 0
-    out = imported(tmp_path, ROOT / "demo_tables" / "synthetic_cyclers_wide.csv", "--sources", DEMO / "sources.csv")
+    out = imported(
+        tmp_path,
+        ROOT / "demo_tables" / "synthetic_cyclers_wide.csv",
+        "--sources",
+        DEMO / "sources.csv",
+    )
     assert run("check", out) == 0
     got = comparo.load(out).observations
     demo = comparo.load(DEMO).observations
@@ -388,14 +532,23 @@ def test_json_result_lists_every_decision(tmp_path: Path, capsys) -> None:
     assert res["observations"] == len(expected_canonical()) and res["rows_read"] == 3
     by = {c["header"]: c for c in res["columns"]}
     assert [c["header"] for c in res["columns"]] == HEADER
-    assert by["Fibre diameter [µm]"] == {"header": "Fibre diameter [µm]", "column": "H", "role": "value", "key": "fiber_diameter",
-                                         "unit": "µm", "basis": "", "how": "key"}
+    assert by["Fibre diameter [µm]"] == {
+        "header": "Fibre diameter [µm]",
+        "column": "H",
+        "role": "value",
+        "key": "fiber_diameter",
+        "unit": "µm",
+        "basis": "",
+        "how": "key",
+    }
     assert by["Body mass SD (mg)"]["role"] == "sd" and by["Body mass SD (mg)"]["key"] == "body_mass"
     assert by["Young's modulus (MPa)"]["how"] == "synonym"
 
 
 @pytest.mark.parametrize("spread", ["Body mass ± (g)", "Body mass +/- (g)", "Body mass error (g)"])
-def test_a_spread_of_unstated_kind_is_not_taken_for_values(tmp_path: Path, spread: str, capsys) -> None:
+def test_a_spread_of_unstated_kind_is_not_taken_for_values(
+    tmp_path: Path, spread: str, capsys
+) -> None:
     rows = [["Species", "Source", "Body mass (g)", spread], ["Apis mellifera", "s1", "0.1", "0.01"]]
     assert run("import", write_text(tmp_path / "wide.csv", rows), "-o", tmp_path / "out") == 2
     err = capsys.readouterr().err
@@ -403,11 +556,17 @@ def test_a_spread_of_unstated_kind_is_not_taken_for_values(tmp_path: Path, sprea
 
 
 def test_two_columns_of_one_quantity_need_a_decision(tmp_path: Path, capsys) -> None:
-    rows = [["Species", "Source", "Body mass (g)", "Mass (mg)"], ["Apis mellifera", "s1", "0.1", "100"]]
+    rows = [
+        ["Species", "Source", "Body mass (g)", "Mass (mg)"],
+        ["Apis mellifera", "s1", "0.1", "100"],
+    ]
     wide = write_text(tmp_path / "wide.csv", rows)
     assert run("import", wide, "-o", tmp_path / "out") == 2
     assert "2 columns hold body_mass" in capsys.readouterr().err
     map_file = tmp_path / "m.csv"
-    map_file.write_text("header,role,key,unit\nBody mass (g),value,body_mass,g\nMass (mg),value,body_mass,mg\n", encoding="utf-8")
+    map_file.write_text(
+        "header,role,key,unit\nBody mass (g),value,body_mass,g\nMass (mg),value,body_mass,mg\n",
+        encoding="utf-8",
+    )
     out = imported(tmp_path, wide, "--map", map_file)
     assert len(pd.read_csv(out / "observations.csv")) == 2

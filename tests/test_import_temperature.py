@@ -7,8 +7,8 @@ import pandas as pd
 import pytest
 from support import run_main
 
-from comparo.curate import harmonise
-from comparo.dataset import load
+from comparo.curation.harmonise import harmonise
+from comparo.validation.dataset import load
 
 WIDE = (
     "Species,Clade,Thermoregulation,Operating temperature (°C),Body mass (g),"

@@ -13,8 +13,10 @@ from support import run_main
 
 import comparo
 
-HEADER = ("obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,"
-          "inputs,proxy_taxon,temperature_c")
+HEADER = (
+    "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,"
+    "inputs,proxy_taxon,temperature_c"
+)
 ROWS = [  # invented values for the test (not the demo)
     "o1,Apis mellifera,body_mass,100,mg,5,sd,4,s1,Table 1,reported,,,",
     "o2,Bombus terrestris,body_mass,0.2,g,,,,s1,Table 1,reported,,,",
@@ -28,9 +30,11 @@ ROWS = [  # invented values for the test (not the demo)
     "o10,Anax junius,fiber_radius,25,um,,,,s1,Table 2,reported,,,",
     "o11,Bombyx mori,body_mass,1.5,g,,,,s1,Table 3,reported,,,",
 ]
-TREE = ("(((((Apis_mellifera:2,(Bombus_terrestris:0.5,Bombus_pascuorum:0.5):1.5):1,(Vespa_crabro:1,"
-        "Vespula_vulgaris:1):2):2,Manduca_sexta:5):1,(((Musca_domestica:1,Calliphora_vicina:1):2,"
-        "Delia_radicum:3):2,Aedes_aegypti:5):1):2,Anax_junius:8);")
+TREE = (
+    "(((((Apis_mellifera:2,(Bombus_terrestris:0.5,Bombus_pascuorum:0.5):1.5):1,(Vespa_crabro:1,"
+    "Vespula_vulgaris:1):2):2,Manduca_sexta:5):1,(((Musca_domestica:1,Calliphora_vicina:1):2,"
+    "Delia_radicum:3):2,Aedes_aegypti:5):1):2,Anax_junius:8);"
+)
 SOURCES = "source_id,citation,year,doi\ns1,Invented A. (2001) Test source one,2001,10.1000/abc\n"
 
 
@@ -48,8 +52,15 @@ def test_json_contract_and_the_api_answer_alike(insects):
     r = run_main("impute", str(insects), "--y", "body_mass", "--format", "json")
     assert r.returncode == 0, r.stderr
     d = json.loads(r.stdout)
-    assert list(d) == ["quantity", "lambda", "with", "n_observed", "n_imputed", "taxa",
-                       "cross_validation"]
+    assert list(d) == [
+        "quantity",
+        "lambda",
+        "with",
+        "n_observed",
+        "n_imputed",
+        "taxa",
+        "cross_validation",
+    ]
     assert d["quantity"] == "body_mass" and d["with"] == []
     assert (d["n_observed"], d["n_imputed"]) == (8, 3)
     assert set(d["cross_validation"]) == {"rmse_log", "coverage"}
@@ -79,8 +90,11 @@ def test_an_imputed_value_equals_the_dense_blup_at_lambda_1(insects):
     from comparo.phylo.flat import _flat
     from comparo.phylo.trees import _as_topo
 
-    d = json.loads(run_main("impute", str(insects), "--y", "body_mass", "--lambda", "1",
-                            "--format", "json").stdout)
+    d = json.loads(
+        run_main(
+            "impute", str(insects), "--y", "body_mass", "--lambda", "1", "--format", "json"
+        ).stdout
+    )
     ft = _flat(_as_topo(TREE), None)
     C = ft.covariance()
     by = {row["taxon"].replace(" ", "_"): row for row in d["taxa"]}
@@ -111,21 +125,31 @@ def test_text_and_csv(insects, tmp_path):
     import pandas as pd
 
     frame = pd.read_csv(out)
-    assert list(frame.columns[:7]) == ["taxon", "observed", "value", "log_value", "log_se",
-                                       "pi_low", "pi_high"]
+    assert list(frame.columns[:7]) == [
+        "taxon",
+        "observed",
+        "value",
+        "log_value",
+        "log_se",
+        "pi_low",
+        "pi_high",
+    ]
     assert len(frame) == 11 and frame["observed"].sum() == 8
     assert frame.loc[frame["observed"], "loo_log_value"].notna().all()
     html = comparo.impute(str(insects), "body_mass", lambda_=0.5)._repr_html_()
     assert "Aedes_aegypti" in html and "leave-one-out" in html
 
 
-@pytest.mark.parametrize("args, message", [
-    (["--y", "no_such_quantity"], "unknown quantity"),
-    (["--y", "fiber_radius"], "at least 5"),  # 2 observed taxa on the tree
-    (["--y", "body_mass", "--lambda", "1.5"], "[0, 1]"),
-    (["--y", "body_mass", "--lambda", "high"], "'ml' or a number"),
-    (["--y", "sarcomere_length"], "no taxon has a value"),
-])
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["--y", "no_such_quantity"], "unknown quantity"),
+        (["--y", "fiber_radius"], "at least 5"),  # 2 observed taxa on the tree
+        (["--y", "body_mass", "--lambda", "1.5"], "[0, 1]"),
+        (["--y", "body_mass", "--lambda", "high"], "'ml' or a number"),
+        (["--y", "sarcomere_length"], "no taxon has a value"),
+    ],
+)
 def test_refusals_exit_2_with_a_message(insects, args, message):
     r = run_main("impute", str(insects), *args)
     assert r.returncode == 2 and message in r.stderr, r.stderr

@@ -1,4 +1,4 @@
-"""comparo.loops against analytic loops: ellipses of known area, sinusoidal work loops
+"""comparo.traces.oscillation against analytic loops: ellipses of known area, sinusoidal work loops
 (W = pi dL dF sin(phi)), with offset, drift and noise, reversed direction, and an
 independent area computation written here."""
 
@@ -9,7 +9,7 @@ import math
 import numpy as np
 import pytest
 
-from comparo import loops
+from comparo.traces import oscillation as loops
 
 
 def trapezoid_loop_integral(x: np.ndarray, y: np.ndarray) -> float:
@@ -26,7 +26,9 @@ def test_shoelace_exact_on_polygons_of_known_area():
     assert loops.shoelace_area(sq_x, sq_y) == 1.0
     assert loops.shoelace_area(sq_x[::-1], sq_y[::-1]) == -1.0
     # triangle with base 4 and height 3: area 6 (exact)
-    assert loops.shoelace_area(np.array([0, 4, 1.0]), np.array([0, 0, 3.0])) == pytest.approx(6.0, abs=1e-15)
+    assert loops.shoelace_area(np.array([0, 4, 1.0]), np.array([0, 0, 3.0])) == pytest.approx(
+        6.0, abs=1e-15
+    )
 
 
 def test_shoelace_equals_independent_trapezoid_on_random_polygons():
@@ -36,7 +38,9 @@ def test_shoelace_equals_independent_trapezoid_on_random_polygons():
         ang = np.sort(rng.uniform(0, 2 * math.pi, n))
         r = rng.uniform(0.5, 2.0, n)
         x, y = r * np.cos(ang) + rng.normal(), r * np.sin(ang) + rng.normal()
-        assert loops.shoelace_area(x, y) == pytest.approx(trapezoid_loop_integral(x, y), rel=1e-12, abs=1e-14)
+        assert loops.shoelace_area(x, y) == pytest.approx(
+            trapezoid_loop_integral(x, y), rel=1e-12, abs=1e-14
+        )
 
 
 @pytest.mark.parametrize("tilt", [0.0, 0.4, 1.3])
@@ -50,7 +54,9 @@ def test_ellipse_area_and_sign(tilt):
     assert loops.shoelace_area(x[::-1], y[::-1]) == pytest.approx(-math.pi * a * b, rel=1e-5)
 
 
-def _strain_ellipse(f, a, b, *, t_end=1.0, rate=3000.0, noise=0.0, drift=0.0, offset=0.0, rng=None, phase0=0.37):
+def _strain_ellipse(
+    f, a, b, *, t_end=1.0, rate=3000.0, noise=0.0, drift=0.0, offset=0.0, rng=None, phase0=0.37
+):
     t = np.arange(0.0, t_end, 1.0 / rate) + 0.0123
     w = 2 * math.pi * f * t + phase0
     ea = offset + a * np.cos(w) + drift * t
@@ -123,7 +129,9 @@ def test_work_loop_against_independent_integral_per_cycle():
     res = loops.work_loop(t, L, F, detrend=False)
     for k, w in enumerate(res.net_work.values):
         x, y = res.cycles.loop(k)
-        minus_f_dl = -float(np.sum(0.5 * (np.append(y[1:], y[0]) + y) * (np.append(x[1:], x[0]) - x)))
+        minus_f_dl = -float(
+            np.sum(0.5 * (np.append(y[1:], y[0]) + y) * (np.append(x[1:], x[0]) - x))
+        )
         assert w == pytest.approx(minus_f_dl, rel=1e-10)
 
 
@@ -160,7 +168,9 @@ def test_isochoric_trace_has_no_volume_change_and_no_departure():
     assert res.volume_strain_amplitude.mean < 1e-12
     assert res.isochoric_departure.mean < 1e-12
     # radial strain held at zero: e_v = e_a, amplitude 0.08; departure RMS = RMS of the isochoric curve
-    flat = loops.strain_loop(t, ea, np.zeros_like(ea) + 1e-9 * np.cos(2 * math.pi * 20 * t), detrend=False)
+    flat = loops.strain_loop(
+        t, ea, np.zeros_like(ea) + 1e-9 * np.cos(2 * math.pi * 20 * t), detrend=False
+    )
     assert flat.volume_strain_amplitude.mean == pytest.approx(0.08, rel=1e-4)
     k = 0
     ts, xs, _ = flat.cycles.samples(k)
@@ -192,7 +202,7 @@ def test_frequency_refinement_matches_scipy_bounded_search():
     scipy.optimize.minimize_scalar (bounded) finds on the same objective (independent route)."""
     from scipy.optimize import minimize_scalar
 
-    from comparo import loops
+    from comparo.traces import oscillation as loops
 
     rng = np.random.default_rng(3)
     for f0 in (7.3, 24.0, 151.7):
@@ -201,7 +211,11 @@ def test_frequency_refinement_matches_scipy_bounded_search():
         f = loops.cycle_frequency(t, [y])
         tc = t - 0.5 * (t[0] + t[-1])
         d = loops._detrended(tc, y)
-        ref = minimize_scalar(lambda q, d=d, tc=tc: -loops._explained(tc, [d / np.std(d)], q),
-                              bounds=(0.99 * f, 1.01 * f), method="bounded", options={"xatol": 1e-12 * f})
+        ref = minimize_scalar(
+            lambda q, d=d, tc=tc: -loops._explained(tc, [d / np.std(d)], q),
+            bounds=(0.99 * f, 1.01 * f),
+            method="bounded",
+            options={"xatol": 1e-12 * f},
+        )
         assert f == pytest.approx(ref.x, rel=1e-8)
         assert f == pytest.approx(f0, rel=1e-3)

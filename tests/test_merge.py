@@ -145,8 +145,17 @@ def test_both_sided_conflict_is_listed_and_resolved_round_trip(tmp_path, base):
     assert "m2 value" in res.stderr
     conflicts_file = tmp_path / "OUT.conflicts.csv"
     rows = list(csv.DictReader(open(conflicts_file)))
-    assert rows == [{"section": "observations", "key": "m2", "column": "value", "base": "20",
-                     "a": "21", "b": "22", "take": ""}]
+    assert rows == [
+        {
+            "section": "observations",
+            "key": "m2",
+            "column": "value",
+            "base": "20",
+            "a": "21",
+            "b": "22",
+            "take": "",
+        }
+    ]
     for take, value in (("b", "22"), ("21.5", "21.5")):
         rows[0]["take"] = take
         resolved = tmp_path / f"resolved-{take}.csv"
@@ -156,7 +165,9 @@ def test_both_sided_conflict_is_listed_and_resolved_round_trip(tmp_path, base):
             w.writerows(rows)
         res = _merge_cli(tmp_path, a, b, base, out=f"OUT-{take}", resolve=resolved)
         assert res.returncode == 0, res.stderr
-        assert _table(tmp_path / f"OUT-{take}" / "observations.csv", "obs_id")["m2"]["value"] == value
+        assert (
+            _table(tmp_path / f"OUT-{take}" / "observations.csv", "obs_id")["m2"]["value"] == value
+        )
         note = _table(tmp_path / f"OUT-{take}" / "merge-note.csv", "key")
         assert note["m2"]["origin"] == "resolved"
 
@@ -220,8 +231,13 @@ def test_unit_rewrite_against_value_edit_conflicts_on_value_and_unit(tmp_path, b
 def test_id_changed_on_one_side_follows_the_row(tmp_path, base):
     """A row whose obs_id one side changed (same content, as comparo diff matches it) keeps the
     new id and takes the other side's edit of another cell."""
-    a = _write(tmp_path / "a", rows={("m3b" if k == "m3" else k): (
-        v.replace("m3,", "m3b,") if k == "m3" else v) for k, v in ROWS.items()})
+    a = _write(
+        tmp_path / "a",
+        rows={
+            ("m3b" if k == "m3" else k): (v.replace("m3,", "m3b,") if k == "m3" else v)
+            for k, v in ROWS.items()
+        },
+    )
     b = _write(tmp_path / "b", rows=_edit(ROWS, "m3", "Table 1", "Table 1 (row 3)"))
     res = _merge_cli(tmp_path, a, b, base)
     assert res.returncode == 0, res.stderr
@@ -292,8 +308,11 @@ def test_second_round_keeps_given_takes_and_refuses_a_bad_take(tmp_path, base):
     assert _merge_cli(tmp_path, a, b, base).returncode == 2
     first = tmp_path / "OUT.conflicts.csv"
     rows = list(csv.DictReader(open(first)))
-    assert [(r["key"], r["column"]) for r in rows] == [("m2", "value"), ("m4", "locator"),
-                                                       ("m6", "")]
+    assert [(r["key"], r["column"]) for r in rows] == [
+        ("m2", "value"),
+        ("m4", "locator"),
+        ("m6", ""),
+    ]
     rows[0]["take"] = "a"
     rows[2]["take"] = "Table 9"  # a hand value for a whole row: refused
     with open(first, "w", newline="") as fh:

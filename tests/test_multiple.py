@@ -18,7 +18,7 @@ import pytest
 from support import DEMO
 
 import comparo
-from comparo.cli import main
+from comparo.cli.main import main
 
 
 @pytest.fixture
@@ -26,8 +26,14 @@ def csv(tmp_path):
     rng = np.random.default_rng(4)
     n = 30
     la, lb = rng.normal(size=(2, n))
-    t = pd.DataFrame({"taxon": [f"t{i + 1}" for i in range(n)], "mass": 10**la, "temp": 10**lb,
-                      "clade": rng.choice(["B", "A"], size=n)})
+    t = pd.DataFrame(
+        {
+            "taxon": [f"t{i + 1}" for i in range(n)],
+            "mass": 10**la,
+            "temp": 10**lb,
+            "clade": rng.choice(["B", "A"], size=n),
+        }
+    )
     t["freq"] = 10 ** (1 - 0.25 * la + 0.5 * lb + 0.05 * rng.normal(size=n))
     t.loc[0, "temp"] = np.nan  # left out of every model
     p = tmp_path / "t.csv"
@@ -36,11 +42,30 @@ def csv(tmp_path):
 
 
 def test_json_contract_sorted_by_aicc_and_same_taxa(csv, capsys):
-    assert main(["compare", str(csv), "--y", "freq", "--model", "mass", "--model", "temp", "--model", "mass,temp",
-                 "--format", "json"]) == 0
+    assert (
+        main(
+            [
+                "compare",
+                str(csv),
+                "--y",
+                "freq",
+                "--model",
+                "mass",
+                "--model",
+                "temp",
+                "--model",
+                "mass,temp",
+                "--format",
+                "json",
+            ]
+        )
+        == 0
+    )
     out = json.loads(capsys.readouterr().out)
     assert out["n"] == 29 and out["method"] == "ols" and out["likelihood"] == "ML"
-    assert [e["label"] for e in out["excluded"]] == ["t1"] and "missing temp" in out["excluded"][0]["reason"]
+    assert [e["label"] for e in out["excluded"]] == ["t1"] and "missing temp" in out["excluded"][0][
+        "reason"
+    ]
     models = out["models"]
     assert {"predictors", "k", "loglik", "aicc", "delta_aicc", "weight"} <= set(models[0])
     assert [m["aicc"] for m in models] == sorted(m["aicc"] for m in models)
@@ -52,11 +77,29 @@ def test_json_contract_sorted_by_aicc_and_same_taxa(csv, capsys):
     b, rss, *_ = np.linalg.lstsq(X, np.log10(t.freq), rcond=None)
     m = next(m for m in models if m["predictors"] == ["mass"])
     assert m["terms"][1]["estimate"] == pytest.approx(b[1], rel=1e-10)
-    assert m["loglik"] == pytest.approx(-len(t) / 2 * (math.log(2 * math.pi * rss[0] / len(t)) + 1), rel=1e-10)
+    assert m["loglik"] == pytest.approx(
+        -len(t) / 2 * (math.log(2 * math.pi * rss[0] / len(t)) + 1), rel=1e-10
+    )
 
 
 def test_text_states_what_a_weight_is_not_and_the_reference_level(csv, capsys):
-    assert main(["compare", str(csv), "--y", "freq", "--model", "mass", "--model", "1", "--factor", "clade"]) == 0
+    assert (
+        main(
+            [
+                "compare",
+                str(csv),
+                "--y",
+                "freq",
+                "--model",
+                "mass",
+                "--model",
+                "1",
+                "--factor",
+                "clade",
+            ]
+        )
+        == 0
+    )
     text = " ".join(capsys.readouterr().out.split())
     assert "not the probability that the model is true" in text
     assert "a difference below 2 is not a preference" in text
@@ -65,7 +108,23 @@ def test_text_states_what_a_weight_is_not_and_the_reference_level(csv, capsys):
 
 
 def test_python_api_answers_as_the_cli(csv, capsys):
-    assert main(["compare", str(csv), "--y", "freq", "--model", "mass", "--model", "mass,temp", "--format", "json"]) == 0
+    assert (
+        main(
+            [
+                "compare",
+                str(csv),
+                "--y",
+                "freq",
+                "--model",
+                "mass",
+                "--model",
+                "mass,temp",
+                "--format",
+                "json",
+            ]
+        )
+        == 0
+    )
     cli = json.loads(capsys.readouterr().out)
     api = comparo.compare(pd.read_csv(csv), "freq", ["mass", ["mass", "temp"]]).to_dict()
     assert api == cli
@@ -73,32 +132,76 @@ def test_python_api_answers_as_the_cli(csv, capsys):
 
 def test_derived_bounds_are_predictors_of_a_dataset_folder(capsys):
     """frequency_kinetic_bound is not a per-taxon column: compare derives it as `comparo derive` does."""
-    assert main(["compare", str(DEMO), "--y", "frequency_observed", "--model", "body_mass",
-                 "--model", "frequency_kinetic_bound", "--model", "body_mass,frequency_kinetic_bound",
-                 "--format", "json"]) == 0
+    assert (
+        main(
+            [
+                "compare",
+                str(DEMO),
+                "--y",
+                "frequency_observed",
+                "--model",
+                "body_mass",
+                "--model",
+                "frequency_kinetic_bound",
+                "--model",
+                "body_mass,frequency_kinetic_bound",
+                "--format",
+                "json",
+            ]
+        )
+        == 0
+    )
     out = json.loads(capsys.readouterr().out)
     preds = {tuple(m["predictors"]) for m in out["models"]}
     assert ("frequency_kinetic_bound",) in preds and out["n"] >= 10
-    assert all("frequency_kinetic_bound" in e["reason"] or "frequency_observed" in e["reason"]
-               or "body_mass" in e["reason"] for e in out["excluded"])
+    assert all(
+        "frequency_kinetic_bound" in e["reason"]
+        or "frequency_observed" in e["reason"]
+        or "body_mass" in e["reason"]
+        for e in out["excluded"]
+    )
 
 
 def test_pgls_on_the_dataset_tree(capsys):
-    assert main(["compare", str(DEMO), "--y", "frequency_observed", "--model", "body_mass", "--model", "1",
-                 "--method", "pgls", "--lambda", "0.5", "--format", "json"]) == 0
+    assert (
+        main(
+            [
+                "compare",
+                str(DEMO),
+                "--y",
+                "frequency_observed",
+                "--model",
+                "body_mass",
+                "--model",
+                "1",
+                "--method",
+                "pgls",
+                "--lambda",
+                "0.5",
+                "--format",
+                "json",
+            ]
+        )
+        == 0
+    )
     out = json.loads(capsys.readouterr().out)
     assert out["method"] == "pgls" and all(m["lambda"] == 0.5 for m in out["models"])
-    assert all(m["k"] == len(m["predictors"]) + 2 for m in out["models"])  # lambda fixed: not counted
+    assert all(
+        m["k"] == len(m["predictors"]) + 2 for m in out["models"]
+    )  # lambda fixed: not counted
 
 
-@pytest.mark.parametrize("extra, message", [
-    (["--model", "mass", "--model", "nonsense"], "'nonsense' not in the table"),
-    (["--model", "mass"], "at least two models"),
-    (["--model", "mass", "--model", "mass"], "repeats model 1"),
-    (["--model", "mass", "--model", "temp", "--tree", "x.nwk"], "only to --method pgls"),
-    (["--model", "mass", "--model", "temp", "--method", "pgls"], "needs a tree"),
-    (["--model", "mass,mass", "--model", "temp"], "names a predictor twice"),
-])
+@pytest.mark.parametrize(
+    "extra, message",
+    [
+        (["--model", "mass", "--model", "nonsense"], "'nonsense' not in the table"),
+        (["--model", "mass"], "at least two models"),
+        (["--model", "mass", "--model", "mass"], "repeats model 1"),
+        (["--model", "mass", "--model", "temp", "--tree", "x.nwk"], "only to --method pgls"),
+        (["--model", "mass", "--model", "temp", "--method", "pgls"], "needs a tree"),
+        (["--model", "mass,mass", "--model", "temp"], "names a predictor twice"),
+    ],
+)
 def test_bad_requests_exit_2(csv, capsys, extra, message):
     assert main(["compare", str(csv), "--y", "freq", *extra]) == 2
     err = capsys.readouterr().err
@@ -107,17 +210,30 @@ def test_bad_requests_exit_2(csv, capsys, extra, message):
 
 def test_too_few_taxa_exit_2(tmp_path, capsys):
     p = tmp_path / "few.csv"
-    pd.DataFrame({"taxon": list("abcde"), "x": [1, 2, 3, 4, 5], "z": [2, 1, 4, 3, 6],
-                  "y": [1.0, 2.2, 2.9, 4.1, 5.2]}).to_csv(p, index=False)
+    pd.DataFrame(
+        {
+            "taxon": list("abcde"),
+            "x": [1, 2, 3, 4, 5],
+            "z": [2, 1, 4, 3, 6],
+            "y": [1.0, 2.2, 2.9, 4.1, 5.2],
+        }
+    ).to_csv(p, index=False)
     assert main(["compare", str(p), "--y", "y", "--model", "x", "--model", "x,z"]) == 2
     err = capsys.readouterr().err
     assert "needs at least 6 taxa" in err and "5 taxa" in err
 
 
 def test_model_ii_with_several_predictors_is_refused():
-    from comparo.errors import UsageError
+    from comparo.base.errors import UsageError
 
-    t = pd.DataFrame({"taxon": list("abcdefgh"), "x": range(1, 9), "z": [3, 1, 4, 1, 5, 9, 2, 6], "y": range(2, 10)})
+    t = pd.DataFrame(
+        {
+            "taxon": list("abcdefgh"),
+            "x": range(1, 9),
+            "z": [3, 1, 4, 1, 5, 9, 2, 6],
+            "y": range(2, 10),
+        }
+    )
     for method in ("sma", "ma"):
         with pytest.raises(UsageError, match="one predictor.*use --method ols or pgls"):
             comparo.multiple_fit(t, "y", ["x", "z"], method=method)
@@ -126,18 +242,25 @@ def test_model_ii_with_several_predictors_is_refused():
 def test_collinear_predictors_exit_2(tmp_path, capsys):
     p = tmp_path / "col.csv"
     x = np.arange(1.0, 11.0)
-    pd.DataFrame({"taxon": [f"t{i}" for i in range(10)], "x": x, "x2": x**2, "y": x * 1.5}).to_csv(p, index=False)
+    pd.DataFrame({"taxon": [f"t{i}" for i in range(10)], "x": x, "x2": x**2, "y": x * 1.5}).to_csv(
+        p, index=False
+    )
     assert main(["compare", str(p), "--y", "y", "--model", "x", "--model", "x,x2"]) == 2
     assert "collinear" in capsys.readouterr().err
 
 
 def test_fit_with_several_x_json_text_and_csv(csv, capsys):
     base = ["fit", str(csv), "--y", "freq", "--x", "mass", "--x", "temp", "--method", "ols"]
-    assert main([*base, "--against", "mass=-0.25", "--against", "temp=0.5", "--format", "json"]) == 0
+    assert (
+        main([*base, "--against", "mass=-0.25", "--against", "temp=0.5", "--format", "json"]) == 0
+    )
     out = json.loads(capsys.readouterr().out)
     assert {"terms", "loglik", "aicc", "k", "n"} <= set(out) and out["n"] == 29 and out["k"] == 4
     assert [t["term"] for t in out["terms"]] == ["intercept", "mass", "temp"]
-    assert out["against"]["terms"] == {"mass": -0.25, "temp": 0.5} and out["against"]["df"] == [2, 26]
+    assert out["against"]["terms"] == {"mass": -0.25, "temp": 0.5} and out["against"]["df"] == [
+        2,
+        26,
+    ]
     t = pd.read_csv(csv).dropna()
     X = np.column_stack([np.ones(len(t)), np.log10(t.mass), np.log10(t.temp)])
     b, *_ = np.linalg.lstsq(X, np.log10(t.freq), rcond=None)
@@ -148,17 +271,20 @@ def test_fit_with_several_x_json_text_and_csv(csv, capsys):
     assert "log-likelihood (ML)" in capsys.readouterr().out
 
 
-@pytest.mark.parametrize("extra, message", [
-    (["--x", "temp"], "use --method ols or pgls"),  # default method sma
-    (["--x", "temp", "--method", "ma"], "use --method ols or pgls"),
-    (["--x", "temp", "--method", "lts"], "are fitted by ols, robust, pgls"),
-    (["--x", "temp", "--method", "ols", "--by", "clade"], "--by is not available"),
-    (["--x", "temp", "--method", "ols", "--against", "0.5"], "TERM=VALUE"),
-    (["--x", "temp", "--method", "ols", "--against", "zzz=0.5"], "not a term of the model"),
-    (["--x", "temp", "--method", "ols", "--against", "temp=nan"], "finite number"),
-    (["--method", "ols", "--against", "1", "--against", "2"], "takes one value"),
-    (["--method", "ols", "--against", "temp=1"], "is not the predictor"),
-])
+@pytest.mark.parametrize(
+    "extra, message",
+    [
+        (["--x", "temp"], "use --method ols or pgls"),  # default method sma
+        (["--x", "temp", "--method", "ma"], "use --method ols or pgls"),
+        (["--x", "temp", "--method", "lts"], "are fitted by ols, robust, pgls"),
+        (["--x", "temp", "--method", "ols", "--by", "clade"], "--by is not available"),
+        (["--x", "temp", "--method", "ols", "--against", "0.5"], "TERM=VALUE"),
+        (["--x", "temp", "--method", "ols", "--against", "zzz=0.5"], "not a term of the model"),
+        (["--x", "temp", "--method", "ols", "--against", "temp=nan"], "finite number"),
+        (["--method", "ols", "--against", "1", "--against", "2"], "takes one value"),
+        (["--method", "ols", "--against", "temp=1"], "is not the predictor"),
+    ],
+)
 def test_fit_several_x_bad_requests_exit_2(csv, capsys, extra, message):
     assert main(["fit", str(csv), "--y", "freq", "--x", "mass", *extra]) == 2
     err = capsys.readouterr().err

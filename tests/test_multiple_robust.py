@@ -15,8 +15,8 @@ import pandas as pd
 import pytest
 
 import comparo
-from comparo.cli import main
-from comparo.lines.multiple import multiple_fit
+from comparo.cli.main import main
+from comparo.fitting.multiple import multiple_fit
 
 
 @pytest.fixture
@@ -24,8 +24,14 @@ def table():
     rng = np.random.default_rng(11)
     n = 40
     la, lb = rng.normal(size=(2, n))
-    t = pd.DataFrame({"taxon": [f"t{i + 1}" for i in range(n)], "mass": 10**la, "temp": 10**lb,
-                      "clade": rng.choice(["B", "A", "C"], size=n)})
+    t = pd.DataFrame(
+        {
+            "taxon": [f"t{i + 1}" for i in range(n)],
+            "mass": 10**la,
+            "temp": 10**lb,
+            "clade": rng.choice(["B", "A", "C"], size=n),
+        }
+    )
     t["freq"] = 10 ** (1 - 0.25 * la + 0.5 * lb + 0.05 * rng.normal(size=n))
     t.loc[5, "freq"] *= 20  # one gross error in y, which the Huber fit down-weights
     t.loc[0, "temp"] = np.nan  # left out
@@ -39,7 +45,9 @@ def _rlm(t, factor=False):
     cols = [np.ones(len(u)), np.log10(u.mass), np.log10(u.temp)]
     if factor:
         cols += [(u.clade == "B").to_numpy(float), (u.clade == "C").to_numpy(float)]
-    return sm.RLM(np.log10(u.freq).to_numpy(), np.column_stack(cols), M=sm.robust.norms.HuberT(t=1.345)).fit()
+    return sm.RLM(
+        np.log10(u.freq).to_numpy(), np.column_stack(cols), M=sm.robust.norms.HuberT(t=1.345)
+    ).fit()
 
 
 @pytest.mark.parametrize("factor", [False, True])
@@ -47,16 +55,22 @@ def test_terms_match_statsmodels_rlm(table, factor):
     """Estimates, SEs, normal CIs, z and normal p against statsmodels RLM (HuberT 1.345, MAD)."""
     from scipy import stats
 
-    r = multiple_fit(table, "freq", ["mass", "temp"], factor="clade" if factor else None, method="robust")
+    r = multiple_fit(
+        table, "freq", ["mass", "temp"], factor="clade" if factor else None, method="robust"
+    )
     ref = _rlm(table, factor)
     est = [t["estimate"] for t in r.terms]
     se = [t["se"] for t in r.terms]
     assert est == pytest.approx(ref.params, rel=1e-9)
     assert se == pytest.approx(ref.bse, rel=1e-9)
-    np.testing.assert_allclose([t["ci"] for t in r.terms], np.asarray(ref.conf_int(0.05)), rtol=1e-9)
+    np.testing.assert_allclose(
+        [t["ci"] for t in r.terms], np.asarray(ref.conf_int(0.05)), rtol=1e-9
+    )
     z = np.asarray(ref.params) / np.asarray(ref.bse)
     assert [t["t"] for t in r.terms] == pytest.approx(z, rel=1e-9)
-    assert [t["p"] for t in r.terms] == pytest.approx(2 * stats.norm.sf(np.abs(z)), rel=1e-6, abs=1e-300)
+    assert [t["p"] for t in r.terms] == pytest.approx(
+        2 * stats.norm.sf(np.abs(z)), rel=1e-6, abs=1e-300
+    )
     assert r.n == len(table.dropna()) and math.isnan(r.loglik) and math.isnan(r.aicc)
     d = r.to_dict()
     assert d["loglik"] is None and d["aicc"] is None and d["likelihood"] is None
@@ -67,7 +81,9 @@ def test_joint_against_is_wald_chi_square(table):
     """W = d'(R V R')^-1 d on chi-square(q), d and V from statsmodels RLM, written out here."""
     from scipy import stats
 
-    r = multiple_fit(table, "freq", ["mass", "temp"], method="robust", against={"mass": -0.3, "temp": 0.4})
+    r = multiple_fit(
+        table, "freq", ["mass", "temp"], method="robust", against={"mass": -0.3, "temp": 0.4}
+    )
     ref = _rlm(table)
     dvec = np.asarray(ref.params)[1:] - [-0.3, 0.4]
     V = np.asarray(ref.cov_params())[1:, 1:]
@@ -95,11 +111,27 @@ def test_cli_robust_several_x(table, tmp_path, capsys):
     """The command line answers as the API; text says why there is no AICc."""
     p = tmp_path / "t.csv"
     table.to_csv(p, index=False)
-    base = ["fit", str(p), "--y", "freq", "--x", "mass", "--x", "temp", "--method", "robust",
-            "--against", "mass=-0.25", "--against", "temp=0.5"]
+    base = [
+        "fit",
+        str(p),
+        "--y",
+        "freq",
+        "--x",
+        "mass",
+        "--x",
+        "temp",
+        "--method",
+        "robust",
+        "--against",
+        "mass=-0.25",
+        "--against",
+        "temp=0.5",
+    ]
     assert main([*base, "--format", "json"]) == 0
     out = json.loads(capsys.readouterr().out)
-    api = multiple_fit(table, "freq", ["mass", "temp"], method="robust", against={"mass": -0.25, "temp": 0.5})
+    api = multiple_fit(
+        table, "freq", ["mass", "temp"], method="robust", against={"mass": -0.25, "temp": 0.5}
+    )
     assert out["terms"] == api.to_dict()["terms"]
     assert out["against"]["df"] == [2, None] and out["aicc"] is None
     assert main(base) == 0

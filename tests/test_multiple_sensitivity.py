@@ -17,10 +17,10 @@ import pandas as pd
 import pytest
 from support import write_dataset
 
-from comparo.cli import main
-from comparo.dataset import load
-from comparo.lines.multiple import multiple_fit
-from comparo.reliance import multiple_sensitivity
+from comparo.cli.main import main
+from comparo.fitting.multiple import multiple_fit
+from comparo.fitting.source_sensitivity import multiple_sensitivity
+from comparo.validation.dataset import load
 
 N_SRC = 5
 
@@ -32,8 +32,11 @@ def _compilation(folder, n_taxa: int = 30, seed: int = 3):
     rng = np.random.default_rng(seed)
     logm = np.linspace(-3, 3, n_taxa)
     logr = rng.uniform(0, 1.5, n_taxa)
-    rows, srcs = [], ["source_id,citation,year,doi"] + [f"SRC{s},Invented source {s} (2000) for tests,2000,"
-                                                         for s in range(N_SRC)]
+    rows, srcs = (
+        [],
+        ["source_id,citation,year,doi"]
+        + [f"SRC{s},Invented source {s} (2000) for tests,2000," for s in range(N_SRC)],
+    )
     for i, (lm, lr) in enumerate(zip(logm, logr, strict=True)):
         taxon = f"Fictus sp{chr(97 + i // 26)}{chr(97 + i % 26)}"
         f = 30 * 10 ** (-0.25 * lm + 0.5 * lr + 0.02 * rng.normal())
@@ -41,7 +44,9 @@ def _compilation(folder, n_taxa: int = 30, seed: int = 3):
         if sf == "SRC2":
             f *= 10 ** (0.15 * lm)
         rows.append(f"m{i},{taxon},body_mass,{10**lm:.6g},g,,,,{sf},Table 1,reported,,,")
-        rows.append(f"r{i},{taxon},fiber_radius,{10**lr:.6g},um,,,,{'SRC4' if i == 0 else sf},Table 2,reported,,,")
+        rows.append(
+            f"r{i},{taxon},fiber_radius,{10**lr:.6g},um,,,,{'SRC4' if i == 0 else sf},Table 2,reported,,,"
+        )
         rows.append(f"f{i},{taxon},frequency_observed,{f:.6g},Hz,,,,{sf},Table 3,reported,,,25")
     write_dataset(folder, rows, sources="\n".join(srcs) + "\n")
     return folder
@@ -64,10 +69,13 @@ def _ols_without(folder, source):
 
 
 def test_refit_without_each_source_matches_statsmodels_on_the_table_without_it(folder):
-    s = multiple_sensitivity(load(folder), "frequency_observed", ["body_mass", "fiber_radius"], "ols")
+    s = multiple_sensitivity(
+        load(folder), "frequency_observed", ["body_mass", "fiber_radius"], "ols"
+    )
     full = _ols_without(folder, None)
-    assert [s.terms[t]["estimate"] for t in ("body_mass", "fiber_radius")] == pytest.approx(full.params[1:],
-                                                                                              rel=1e-6)
+    assert [s.terms[t]["estimate"] for t in ("body_mass", "fiber_radius")] == pytest.approx(
+        full.params[1:], rel=1e-6
+    )
     assert len(s.leave_one_source_out) == N_SRC
     for rec in s.leave_one_source_out:
         ref = _ols_without(folder, rec["source_id"])
@@ -84,7 +92,7 @@ def test_refit_without_each_source_matches_statsmodels_on_the_table_without_it(f
 
 
 def test_plain_table_says_the_part_is_unavailable(folder):
-    from comparo.curate import per_taxon
+    from comparo.curation.harmonise import per_taxon
 
     table = per_taxon(load(folder))
     s = multiple_sensitivity(table, "frequency_observed", ["body_mass", "fiber_radius"], "ols")
@@ -95,8 +103,23 @@ def test_plain_table_says_the_part_is_unavailable(folder):
 
 
 def test_cli_json_and_text(folder, capsys):
-    base = ["fit", str(folder), "--y", "frequency_observed", "--x", "body_mass", "--x", "fiber_radius",
-            "--method", "ols", "--sensitivity", "--against", "body_mass=-0.25", "--against", "fiber_radius=0.5"]
+    base = [
+        "fit",
+        str(folder),
+        "--y",
+        "frequency_observed",
+        "--x",
+        "body_mass",
+        "--x",
+        "fiber_radius",
+        "--method",
+        "ols",
+        "--sensitivity",
+        "--against",
+        "body_mass=-0.25",
+        "--against",
+        "fiber_radius=0.5",
+    ]
     assert main([*base, "--format", "json"]) == 0
     out = json.loads(capsys.readouterr().out)
     sens = out["sensitivity"]
@@ -104,8 +127,12 @@ def test_cli_json_and_text(folder, capsys):
     rec = sens["leave_one_source_out"][0]
     assert {"source_id", "n", "terms", "shift_se", "term", "p", "flips", "note"} == set(rec)
     assert set(rec["terms"]) == {"intercept", "body_mass", "fiber_radius"}
-    assert all(0 <= r["p"] <= 1 and isinstance(r["flips"], bool) for r in sens["leave_one_source_out"])
-    assert out["terms"][1]["estimate"] == pytest.approx(sens["terms"]["body_mass"]["estimate"], rel=1e-12)
+    assert all(
+        0 <= r["p"] <= 1 and isinstance(r["flips"], bool) for r in sens["leave_one_source_out"]
+    )
+    assert out["terms"][1]["estimate"] == pytest.approx(
+        sens["terms"]["body_mass"]["estimate"], rel=1e-12
+    )
     assert main(base) == 0
     text = capsys.readouterr().out
     assert "leave one source out (5 sources)" in text and "verdict:" in text
@@ -113,14 +140,32 @@ def test_cli_json_and_text(folder, capsys):
 
 def test_robust_sensitivity_runs(folder, capsys):
     """--method robust with --sensitivity: each refit is the Huber fit on the rebuilt table."""
-    s = multiple_sensitivity(load(folder), "frequency_observed", ["body_mass", "fiber_radius"], "robust")
+    s = multiple_sensitivity(
+        load(folder), "frequency_observed", ["body_mass", "fiber_radius"], "robust"
+    )
     assert len(s.leave_one_source_out) == N_SRC
     assert all(math.isfinite(r["shift_se"]) for r in s.leave_one_source_out)
 
 
 def test_a_column_not_measured_in_the_dataset_exits_2(folder, capsys):
     """A derived or unknown column cannot be left out source by source: exit 2 with the reason."""
-    assert main(["fit", str(folder), "--y", "frequency_observed", "--x", "body_mass", "--x", "no_such_column",
-                 "--method", "ols", "--sensitivity"]) == 2
+    assert (
+        main(
+            [
+                "fit",
+                str(folder),
+                "--y",
+                "frequency_observed",
+                "--x",
+                "body_mass",
+                "--x",
+                "no_such_column",
+                "--method",
+                "ols",
+                "--sensitivity",
+            ]
+        )
+        == 2
+    )
     err = capsys.readouterr().err
     assert "'no_such_column'" in err and "Traceback" not in err

@@ -1,4 +1,4 @@
-"""comparo.newick, the fast reader of plain Newick, against dendropy (the reference
+"""comparo.reading.newick, the fast reader of plain Newick, against dendropy (the reference
 reader: an independent, general-purpose library) on random and hand-written trees."""
 
 from __future__ import annotations
@@ -10,9 +10,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from comparo import newick, phylo
-from comparo.io import DeferredTree, parse_newick, read_newick
+from comparo import phylo
 from comparo.phylo.trees import _topology
+from comparo.reading import newick
+from comparo.reading.tables import DeferredTree, parse_newick, read_newick
 
 
 def _dendropy_topology(text: str):
@@ -57,30 +58,36 @@ def test_hand_written_trees_read_as_dendropy_reads_them(text):
     _same(text)
 
 
-@pytest.mark.parametrize("n,polytomy,ultrametric", [(2, 0.0, True), (50, 0.0, False), (300, 0.3, False), (2000, 0.1, True)])
+@pytest.mark.parametrize(
+    "n,polytomy,ultrametric",
+    [(2, 0.0, True), (50, 0.0, False), (300, 0.3, False), (2000, 0.1, True)],
+)
 def test_random_trees_read_as_dendropy_reads_them(n, polytomy, ultrametric):
     _same(phylo.random_newick(n, seed=n, ultrametric=ultrametric, polytomy=polytomy))
 
 
-@pytest.mark.parametrize("text", [
-    "(A:1,B:1);(C:1,D:1);",   # two trees: dendropy counts them and comparo says so
-    "(A B:1);",               # a space inside an unquoted label
-    "A(B,C);",                # a label before the children
-    "(A:1,B:1));",            # unbalanced
-    "((A:1,B:1);",
-    "(A:x,B:1);",             # a length that is not a number
-    "(A:1:2,B:1);",
-    "(A=1,B);",               # characters dendropy's tokenizer splits on
-    '("A",B);',
-    "(A:1,B:1)C D;",
-    "(A,'B);",                # an unclosed quote
-    "(A[unclosed,B);",
-    "(A:1,B:1):;",
-    "(A\xa0x:1,B:1);",        # whitespace dendropy keeps inside a label
-    "(,B:1);",                # an empty leaf
-    "(A:1,);",
-    "(':':1,B:1);",           # dendropy reads a quoted ':' as punctuation
-])
+@pytest.mark.parametrize(
+    "text",
+    [
+        "(A:1,B:1);(C:1,D:1);",  # two trees: dendropy counts them and comparo says so
+        "(A B:1);",  # a space inside an unquoted label
+        "A(B,C);",  # a label before the children
+        "(A:1,B:1));",  # unbalanced
+        "((A:1,B:1);",
+        "(A:x,B:1);",  # a length that is not a number
+        "(A:1:2,B:1);",
+        "(A=1,B);",  # characters dendropy's tokenizer splits on
+        '("A",B);',
+        "(A:1,B:1)C D;",
+        "(A,'B);",  # an unclosed quote
+        "(A[unclosed,B);",
+        "(A:1,B:1):;",
+        "(A\xa0x:1,B:1);",  # whitespace dendropy keeps inside a label
+        "(,B:1);",  # an empty leaf
+        "(A:1,);",
+        "(':':1,B:1);",  # dendropy reads a quoted ':' as punctuation
+    ],
+)
 def test_anything_else_is_left_to_dendropy(text):
     assert newick.parse(text) is None
 
@@ -96,7 +103,9 @@ def _quote(label: str) -> str:
 @st.composite
 def _trees(draw, depth=0):
     label = draw(_LABEL)
-    length = draw(st.one_of(st.none(), st.floats(0, 1e3, allow_nan=False).map(lambda v: f"{v:.6g}")))
+    length = draw(
+        st.one_of(st.none(), st.floats(0, 1e3, allow_nan=False).map(lambda v: f"{v:.6g}"))
+    )
     tail = (_quote(label) if label else "") + ("" if length is None else f":{length}")
     if depth >= 3 or draw(st.booleans()):
         return tail
@@ -117,7 +126,12 @@ def test_property_generated_trees_read_as_dendropy_reads_them(body, pad):
         return
     if ours is None:  # a case left to dendropy
         return
-    assert (ours.parent, ours.length, ours.leaf, ours.inner_label) == (ref.parent, ref.length, ref.leaf, ref.inner_label)
+    assert (ours.parent, ours.length, ours.leaf, ours.inner_label) == (
+        ref.parent,
+        ref.length,
+        ref.leaf,
+        ref.inner_label,
+    )
 
 
 def test_read_newick_defers_dendropy_until_the_tree_is_walked(tmp_path):
@@ -140,6 +154,7 @@ def test_read_newick_still_reports_dendropy_syntax_errors(tmp_path):
 
 # ------------------------------------------------------------------ the gate's tree rules
 
+
 def _mutated_tree(seed: int) -> str:
     """A random tree whose tips partly carry the dataset's taxon names (as written,
     with underscores, or folded), sometimes with a duplicate tip, an edge without a
@@ -149,12 +164,23 @@ def _mutated_tree(seed: int) -> str:
     import numpy as np
 
     rng = np.random.default_rng(seed)
-    text = phylo.random_newick(int(rng.integers(3, 40)), seed, ultrametric=bool(rng.integers(2)), polytomy=0.2)
-    names = ["Apis_mellifera", "Bombus terrestris", "'apis mellifera'", "Bombus_terrestris", "Musca_domestica", "Apis_melifera"]
+    text = phylo.random_newick(
+        int(rng.integers(3, 40)), seed, ultrametric=bool(rng.integers(2)), polytomy=0.2
+    )
+    names = [
+        "Apis_mellifera",
+        "Bombus terrestris",
+        "'apis mellifera'",
+        "Bombus_terrestris",
+        "Musca_domestica",
+        "Apis_melifera",
+    ]
     tips = re.findall(r"t\d+(?=:)", text)
     for tip in rng.choice(tips, size=min(len(tips), int(rng.integers(0, 4))), replace=False):
         name = str(rng.choice(names))
-        text = re.sub(rf"\b{tip}(?=:)", name if " " not in name or name.startswith("'") else f"'{name}'", text)
+        text = re.sub(
+            rf"\b{tip}(?=:)", name if " " not in name or name.startswith("'") else f"'{name}'", text
+        )
     kind = int(rng.integers(0, 5))
     if kind == 1:  # a duplicate tip
         text = re.sub(rf"\b{tips[0]}(?=:)", tips[-1], text) if len(tips) > 1 else text
@@ -173,13 +199,15 @@ def test_tree_rules_of_check_on_the_fast_topology_equal_those_on_dendropys_tree(
     the same text."""
     from support import write_dataset
 
-    from comparo.dataset import load
+    from comparo.validation.dataset import load
 
     folder = write_dataset(tmp_path / "ds")
     (folder / "tree.nwk").write_text(_mutated_tree(seed), encoding="utf-8")
     if seed % 3 == 0:
-        (folder / "taxa.csv").write_text("taxon,accepted_name,tree_label\nApis mellifera,,Apis_mellifera\n"
-                                         "Bombus terrestris,,\n", encoding="utf-8")
+        (folder / "taxa.csv").write_text(
+            "taxon,accepted_name,tree_label\nApis mellifera,,Apis_mellifera\nBombus terrestris,,\n",
+            encoding="utf-8",
+        )
     ds = load(folder, strict=False)
     if not isinstance(ds.tree, DeferredTree):  # a case the fast reader leaves to dendropy
         return
@@ -192,16 +220,27 @@ def test_tree_rules_of_check_on_the_fast_topology_equal_those_on_dendropys_tree(
 def test_check_on_the_demo_does_not_import_dendropy(demo_copy):
     """The demo's tree is plain Newick: ``comparo check`` runs its tree rules on the
     one-pass reader's topology, and dendropy is never imported."""
-    code = ("import sys\nfrom comparo.cli import main\n"
-            f"rc = main(['check', {str(demo_copy)!r}, '--format', 'json'])\n"
-            "print('RESULT', rc, 'dendropy' in sys.modules, 'comparo.phylo.tips' in sys.modules)\n")
+    code = (
+        "import sys\nfrom comparo.cli.main import main\n"
+        f"rc = main(['check', {str(demo_copy)!r}, '--format', 'json'])\n"
+        "print('RESULT', rc, 'dendropy' in sys.modules, 'comparo.phylo.tips' in sys.modules)\n"
+    )
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr[-2000:]
-    assert proc.stdout.strip().splitlines()[-1] == "RESULT 0 False True"  # tree rules ran, without dendropy
+    assert (
+        proc.stdout.strip().splitlines()[-1] == "RESULT 0 False True"
+    )  # tree rules ran, without dendropy
 
 
 @settings(max_examples=300, deadline=None)
-@given(st.lists(st.text(alphabet=st.sampled_from(list("aAbB_ -ÉéßΣσς\t\n\xa0\u2003\x1c\x85İ\x00")), max_size=6), max_size=8))
+@given(
+    st.lists(
+        st.text(
+            alphabet=st.sampled_from(list("aAbB_ -ÉéßΣσς\t\n\xa0\u2003\x1c\x85İ\x00")), max_size=6
+        ),
+        max_size=8,
+    )
+)
 def test_folding_many_labels_at_once_equals_folding_each(labels):
     """Tip matching folds all labels in one pass over a joined string; the keys equal
     those of folding each label alone (str.split, str.casefold: Python's own rules)."""

@@ -30,14 +30,22 @@ def test_notebook_page_runs(tmp_path, monkeypatch):
     for name in ("audit", "res", "sens"):
         html = ns[name]._repr_html_()
         assert html.startswith("<div") or html.startswith("<p"), name
-        assert isinstance(ns[name].to_frame(), pd.DataFrame) and isinstance(ns[name].to_dict(), dict), name
+        assert isinstance(ns[name].to_frame(), pd.DataFrame) and isinstance(
+            ns[name].to_dict(), dict
+        ), name
 
 
 def test_fit_html_shows_the_estimates_and_escapes_labels():
-    from comparo.lines import fit
+    from comparo.fitting import fit
 
-    t = pd.DataFrame({"taxon": ["<b>a</b>", "b", "c", "d", "e"], "m": [1, 10, 100, 1000, 1e4],
-                      "f": [2, 4.1, 7.9, 16.2, 33.0], "g": ["<x>", "<x>", "y", "y", "y"]})
+    t = pd.DataFrame(
+        {
+            "taxon": ["<b>a</b>", "b", "c", "d", "e"],
+            "m": [1, 10, 100, 1000, 1e4],
+            "f": [2, 4.1, 7.9, 16.2, 33.0],
+            "g": ["<x>", "<x>", "y", "y", "y"],
+        }
+    )
     r = fit(t, "m", "f", "ols", against=0.3)
     html = r._repr_html_()
     assert "OLS fit of f on m" in html and "slope" in html and "slope = 0.3?" in html
@@ -51,10 +59,15 @@ def test_plot_returns_the_axes_it_drew_on():
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    from comparo.lines import fit
+    from comparo.fitting import fit
 
-    t = pd.DataFrame({"taxon": list("abcdefgh"), "m": [1, 3, 10, 30, 100, 300, 1000, 3000],
-                      "f": [2, 2.9, 4.1, 5.8, 7.9, 11.5, 16.2, 23.0]})
+    t = pd.DataFrame(
+        {
+            "taxon": list("abcdefgh"),
+            "m": [1, 3, 10, 30, 100, 300, 1000, 3000],
+            "f": [2, 2.9, 4.1, 5.8, 7.9, 11.5, 16.2, 23.0],
+        }
+    )
     r = fit(t, "m", "f", "sma")
     fig, ax = plt.subplots()
     assert r.plot(ax=ax) is ax
@@ -62,7 +75,9 @@ def test_plot_returns_the_axes_it_drew_on():
     x, y = line.get_data()
     assert ax.get_xscale() == "log"
     assert y[0] == pytest.approx(10 ** (r.intercept + r.slope * math.log10(x[0])))
-    assert len(ax.get_lines()[0].get_xdata()) == 8  # every point drawn, none dropped for lack of a basis
+    assert (
+        len(ax.get_lines()[0].get_xdata()) == 8
+    )  # every point drawn, none dropped for lack of a basis
     own = r.plot()
     assert own is not ax and own.figure is not fig
     plt.close("all")

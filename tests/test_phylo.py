@@ -9,14 +9,31 @@ import pandas as pd
 import pytest
 
 from comparo import phylo
-from comparo.errors import InputError, UsageError
+from comparo.base.errors import InputError, UsageError
 
 FOUR = "((A:1,B:2):1,(C:1.5,D:0.5):0.5);"
 
 CONTRACT_KEYS = {
-    "method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2",
-    "ci_level", "against", "lambda", "lambda_ci", "loglik", "groups", "outliers",
-    "excluded", "breakpoint", "sensitivity",
+    "method",
+    "x",
+    "y",
+    "log",
+    "n",
+    "slope",
+    "slope_ci",
+    "intercept",
+    "intercept_ci",
+    "r2",
+    "ci_level",
+    "against",
+    "lambda",
+    "lambda_ci",
+    "loglik",
+    "groups",
+    "outliers",
+    "excluded",
+    "breakpoint",
+    "sensitivity",
 }
 
 
@@ -24,7 +41,7 @@ def small_table(seed=1, n=30):
     nw = phylo.random_newick(n, seed, ultrametric=True)
     rng = np.random.default_rng(seed)
     x = 10 ** rng.uniform(-2, 3, size=n)
-    y = 50 * x ** -0.2 * 10 ** rng.normal(scale=0.1, size=n)
+    y = 50 * x**-0.2 * 10 ** rng.normal(scale=0.1, size=n)
     return nw, pd.DataFrame({"taxon": [f"t{i + 1}" for i in range(n)], "mass": x, "freq": y})
 
 
@@ -51,14 +68,17 @@ def test_missing_branch_lengths_name_the_file(tmp_path):
     assert "branch length" in prob["message"]
 
 
-@pytest.mark.parametrize("text,rule", [
-    ("((A:1,B:1):1,C:1;", "tree-newick"),
-    ("(A:1,B:1));", "tree-newick"),
-    ("(A:x,B:1);", "tree-newick"),
-    ("(A:1,A:2);", "tree-duplicate-tip"),
-    ("(A:1,B:1);(C:1,D:1);", "tree-count"),
-    ("(A:1,B:-1);", "tree-branch-lengths"),
-])
+@pytest.mark.parametrize(
+    "text,rule",
+    [
+        ("((A:1,B:1):1,C:1;", "tree-newick"),
+        ("(A:1,B:1));", "tree-newick"),
+        ("(A:x,B:1);", "tree-newick"),
+        ("(A:1,A:2);", "tree-duplicate-tip"),
+        ("(A:1,B:1);(C:1,D:1);", "tree-count"),
+        ("(A:1,B:-1);", "tree-branch-lengths"),
+    ],
+)
 def test_bad_newick_is_input_error(text, rule):
     with pytest.raises(InputError) as exc:
         phylo.read_tree(text)
@@ -93,7 +113,10 @@ def test_match_reports_both_lists():
     labels = ["apis mellifera", "Bombus terrestris", "MUSCA", "Homo sapiens", "Manduca sexta"]
     m = phylo.match_tips(tree, labels)
     assert [(a, b) for a, b, _ in m.pairs] == [
-        ("apis mellifera", "Apis_mellifera"), ("Bombus terrestris", "Bombus_terrestris"), ("MUSCA", "Musca")]
+        ("apis mellifera", "Apis_mellifera"),
+        ("Bombus terrestris", "Bombus_terrestris"),
+        ("MUSCA", "Musca"),
+    ]
     assert m.taxa_without_tips == ("Homo sapiens", "Manduca sexta")
     assert set(m.tips_without_data) == {"Tipula", "Aedes"}
     d = m.to_dict()
@@ -103,7 +126,11 @@ def test_match_reports_both_lists():
 
 def test_match_uses_tree_label_first():
     tree = "((Apis_mellifera:1,Bombus:1):1,Musca:2);"
-    m = phylo.match_tips(tree, ["honey bee", "bumblebee", "Musca"], tree_labels={"honey bee": "Apis_mellifera", "bumblebee": "bombus"})
+    m = phylo.match_tips(
+        tree,
+        ["honey bee", "bumblebee", "Musca"],
+        tree_labels={"honey bee": "Apis_mellifera", "bumblebee": "bombus"},
+    )
     assert ("honey bee", "Apis_mellifera", "tree_label") in m.pairs
     assert ("bumblebee", "Bombus", "tree_label") in m.pairs
     assert ("Musca", "Musca", "name") in m.pairs
@@ -288,7 +315,9 @@ def test_accepts_dendropy_tree_with_taxa_and_checks_it():
     accepted and checked the same way."""
     import dendropy
 
-    t = dendropy.Tree.get(data=FOUR, schema="newick", preserve_underscores=True, rooting="force-rooted")
+    t = dendropy.Tree.get(
+        data=FOUR, schema="newick", preserve_underscores=True, rooting="force-rooted"
+    )
     df = pd.DataFrame({"taxon": list("ABCD"), "x": [0.0, 1, 2, 3], "y": [0.5, 1.9, 2.2, 3.8]})
     a = phylo.phylo_fit(df, "x", "y", tree=t, log="none", lambda_=1.0)
     b = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
@@ -302,20 +331,37 @@ def test_accepts_dendropy_tree_with_taxa_and_checks_it():
 
 def test_cli_fit_pgls_bad_tree_exits_2(tmp_path, capsys):
     """Through the command line: a malformed tree is exit 2 with a message, no traceback."""
-    pytest.importorskip("comparo.commands.fit")
-    from comparo.cli import main
+    pytest.importorskip("comparo.cli.commands.fit")
+    from comparo.cli.main import main
 
     nw, df = small_table()
     data = tmp_path / "t.csv"
     df.to_csv(data, index=False)
     tree = tmp_path / "bad.nwk"
     tree.write_text("((t1:1,t2:1):1,t3:1;")
-    code = main(["fit", str(data), "--x", "mass", "--y", "freq", "--method", "pgls", "--tree", str(tree)])
+    code = main(
+        ["fit", str(data), "--x", "mass", "--y", "freq", "--method", "pgls", "--tree", str(tree)]
+    )
     err = capsys.readouterr().err
     assert code == 2
     assert "bad.nwk" in err and "Traceback" not in err
     good = tmp_path / "good.nwk"
     good.write_text(nw)
-    code = main(["fit", str(data), "--x", "mass", "--y", "freq", "--method", "pgls", "--tree", str(good), "--format", "json"])
+    code = main(
+        [
+            "fit",
+            str(data),
+            "--x",
+            "mass",
+            "--y",
+            "freq",
+            "--method",
+            "pgls",
+            "--tree",
+            str(good),
+            "--format",
+            "json",
+        ]
+    )
     out = json.loads(capsys.readouterr().out)
     assert code == 0 and out["method"] == "pgls" and out["lambda_ci"] is not None

@@ -21,11 +21,11 @@ import pytest
 from support import run_main
 
 import comparo
+from comparo.base.quantiles import t_quantile
 from comparo.phylo import random_newick
 from comparo.phylo.flat import _flat
 from comparo.phylo.outliers import ALPHA, loo_z, threshold
 from comparo.phylo.trees import _as_topo
-from comparo.quantiles import t_quantile
 
 
 def _bm(newick: str, seed: int, sd: float = 0.3, missing: float = 0.0):
@@ -61,8 +61,9 @@ def _dense_loo_z(C: np.ndarray, y: np.ndarray, lam: float) -> np.ndarray:
     return np.array(z)
 
 
-@pytest.mark.parametrize("n, seed, ultrametric, lam", [(40, 3, True, 1.0), (36, 4, False, 0.6),
-                                                       (44, 5, True, "ml")])
+@pytest.mark.parametrize(
+    "n, seed, ultrametric, lam", [(40, 3, True, 1.0), (36, 4, False, 0.6), (44, 5, True, "ml")]
+)
 def test_z_equals_a_dense_refit_without_each_tip(n, seed, ultrametric, lam):
     """Dense refit per tip (Goldberger 1962 BLUP, REML rate of the others), lambda fixed at
     the value the check used."""
@@ -121,6 +122,7 @@ def _dataset(folder, slip: bool = True, tree: bool = True):
     nwk = random_newick(60, seed=7, ultrametric=True)
     _, tips, y = _bm(nwk, 8, sd=0.45)
     slip_at = int(np.argsort(y)[24])
+
     def epithet(tip: str) -> str:  # t48 -> "simeh": a binomial, as check asks
         return "sim" + "".join(chr(ord("a") + int(d)) for d in tip[1:])
 
@@ -148,8 +150,10 @@ def test_a_planted_unit_slip_is_flagged_with_its_obs_ids(tmp_path):
     d = aud.to_dict()
     assert d["phylo_checked"] == ["body_mass"]
     assert {o["obs_id"] for o in d["phylo_outliers"]} == {oid, oid + "x"}
-    assert all(o["taxon"] == name and o["quantity"] == "body_mass" and o["z"] > threshold(60)
-               for o in d["phylo_outliers"])
+    assert all(
+        o["taxon"] == name and o["quantity"] == "body_mass" and o["z"] > threshold(60)
+        for o in d["phylo_outliers"]
+    )
     assert not aud.unit_slips
     (f,) = aud.phylo_flagged
     lo, hi = f["range"]

@@ -6,17 +6,23 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from comparo import plots
-from comparo.lines import fit
+from comparo.fitting import fit
+from comparo.report import figures as plots
 
 
 @pytest.fixture(scope="module")
 def table():
     rng = np.random.default_rng(3)
     m = 10 ** rng.uniform(-4, 2, 30)
-    f = 30 * m ** -0.2 * 10 ** rng.normal(0, 0.05, 30)
-    return pd.DataFrame({"taxon": [f"t{i:02d}" for i in range(30)], "body_mass": m, "frequency_observed": f,
-                         "clade": ["A", "B", "C"] * 10})
+    f = 30 * m**-0.2 * 10 ** rng.normal(0, 0.05, 30)
+    return pd.DataFrame(
+        {
+            "taxon": [f"t{i:02d}" for i in range(30)],
+            "body_mass": m,
+            "frequency_observed": f,
+            "clade": ["A", "B", "C"] * 10,
+        }
+    )
 
 
 def _points(res, table):
@@ -35,7 +41,7 @@ def test_render_is_byte_identical_across_calls(table):
 
 
 def test_axis_labels_carry_catalogue_units(table):
-    from comparo.catalog import load_catalog
+    from comparo.base.catalog import load_catalog
 
     cat = load_catalog()
     assert plots.axis_label("body_mass", cat) == "Body mass (kg)"
@@ -65,27 +71,37 @@ def test_weakest_basis_order():
 
 def test_regime_plot_needs_derived_columns(table):
     assert plots.regime_plot(table) is None
-    d = table.assign(frequency_kinetic_bound=50.0, frequency_hydraulic_bound=5.0, poro_kinetic_ratio=10.0,
-                     regime="hydraulic")
+    d = table.assign(
+        frequency_kinetic_bound=50.0,
+        frequency_hydraulic_bound=5.0,
+        poro_kinetic_ratio=10.0,
+        regime="hydraulic",
+    )
     png, _ = plots.render(plots.regime_plot(d))
     assert len(png) > 5000
 
 
 def test_diagnostics_and_coverage_and_sources(table):
     res = fit(table, "body_mass", "frequency_observed", "ols")
-    from comparo.flags import fit_flags
+    from comparo.fitting.flags import fit_flags
 
     png, _ = plots.render(plots.diagnostics(fit_flags(res, _points(res, table))))
     assert len(png) > 5000
-    cov = {"t1": {"body_mass": "reported", "fiber_radius": "proxy"}, "t2": {"body_mass": "digitized"}}
+    cov = {
+        "t1": {"body_mass": "reported", "fiber_radius": "proxy"},
+        "t2": {"body_mass": "digitized"},
+    }
     assert plots.render(plots.coverage_map(cov))[0][:4] == b"\x89PNG"
     src = pd.DataFrame({"source_id": ["s1", "s2"], "values": [5, 3], "taxa": [2, 1]})
     assert plots.render(plots.source_chart(src))[0][:4] == b"\x89PNG"
 
 
 def test_lambda_profile_renders_with_interval():
-    png, svg = plots.render(plots.lambda_profile([0, 0.5, 1], [1.0, 3.0, 2.0], lam_hat=0.6, loglik_hat=3.1,
-                                                 lam_ci=[0.3, 0.9]))
+    png, svg = plots.render(
+        plots.lambda_profile(
+            [0, 0.5, 1], [1.0, 3.0, 2.0], lam_hat=0.6, loglik_hat=3.1, lam_ci=[0.3, 0.9]
+        )
+    )
     assert png[:4] == b"\x89PNG" and b"<svg" in svg
 
 
@@ -102,8 +118,14 @@ def test_tree_layout_rows_follow_the_newick_order_and_nodes_sit_between_children
     assert lay["tip_x"].tolist() == pytest.approx([2.0, 3.0, 2.0, 1.0])
     segs = {tuple(map(tuple, np.round(s, 9))) for s in lay["segments"]}
     # connectors: (A,B) at x 1 spanning rows 0-1; (C,D) at x 0.5 spanning 2-3; root at x 0 spanning their midpoints
-    assert ((1.0, 0.0), (1.0, 1.0)) in segs and ((0.5, 2.0), (0.5, 3.0)) in segs and ((0.0, 0.5), (0.0, 2.5)) in segs
-    assert ((1.0, 1.0), (3.0, 1.0)) in segs, "edge above B runs from its parent (x 1) to its tip (x 3)"
+    assert (
+        ((1.0, 0.0), (1.0, 1.0)) in segs
+        and ((0.5, 2.0), (0.5, 3.0)) in segs
+        and ((0.0, 0.5), (0.0, 2.5)) in segs
+    )
+    assert ((1.0, 1.0), (3.0, 1.0)) in segs, (
+        "edge above B runs from its parent (x 1) to its tip (x 3)"
+    )
     assert len(segs) == 6 + 3, "one segment per edge, one connector per internal node"
 
 
@@ -114,8 +136,12 @@ def _gid(fig, gid):
 def test_tree_trait_maps_values_on_a_log_colour_scale_and_marks_missing_tips():
     import matplotlib
 
-    fig = plots.tree_trait(FOUR, {"A": 1.0, "B": 10.0, "C": 100.0}, label="Observed frequency (Hz)",
-                           names={"A": "Alpha one"})
+    fig = plots.tree_trait(
+        FOUR,
+        {"A": 1.0, "B": 10.0, "C": 100.0},
+        label="Observed frequency (Hz)",
+        names={"A": "Alpha one"},
+    )
     fig.canvas.draw()
     tiles = _gid(fig, "trait-tiles")
     cmap = matplotlib.colormaps[plots.TRAIT_CMAP]
@@ -137,7 +163,9 @@ def test_tree_trait_drops_tip_labels_above_the_limit():
 
     big = random_newick(plots.TREE_LABEL_LIMIT + 1, seed=5)
     fig = plots.tree_trait(big, {}, label="x (Hz)")
-    assert fig.axes[0].get_yticklabels() == [] or all(t.get_text() == "" for t in fig.axes[0].get_yticklabels())
+    assert fig.axes[0].get_yticklabels() == [] or all(
+        t.get_text() == "" for t in fig.axes[0].get_yticklabels()
+    )
     assert "no tip labels" in fig.axes[0].get_title()
     w, h = fig.get_size_inches()
     assert h <= 19.0
@@ -146,9 +174,11 @@ def test_tree_trait_drops_tip_labels_above_the_limit():
 
 
 def test_forest_plot_draws_each_refit_against_the_full_data_line_and_band():
-    rows = [{"source_id": "S1", "n": 40, "slope": -0.20, "slope_ci": [-0.25, -0.15], "flips": False},
-            {"source_id": "S2", "n": 30, "slope": -0.30, "slope_ci": [-0.35, -0.22], "flips": True},
-            {"source_id": "S3", "n": 2, "slope": None, "slope_ci": [None, None], "flips": False}]
+    rows = [
+        {"source_id": "S1", "n": 40, "slope": -0.20, "slope_ci": [-0.25, -0.15], "flips": False},
+        {"source_id": "S2", "n": 30, "slope": -0.30, "slope_ci": [-0.35, -0.22], "flips": True},
+        {"source_id": "S3", "n": 2, "slope": None, "slope_ci": [None, None], "flips": False},
+    ]
     fig = plots.forest_plot(rows, slope=-0.21, slope_ci=[-0.23, -0.19])
     ax = fig.axes[0]
     points = [ln for ln in ax.get_lines() if ln.get_marker() in ("o", "D")]

@@ -19,23 +19,38 @@ from hypothesis import strategies as st
 from support import OBS_HEADER, SOURCES, VALID_ROWS, write_dataset
 
 import comparo
-from comparo import units
-from comparo.catalog import load_catalog
-from comparo.lines import fit
-from comparo.validate import check
+from comparo.base import units
+from comparo.base.catalog import load_catalog
+from comparo.fitting import fit
+from comparo.validation.tables import check
 
 FIXTURE_OK = [HealthCheck.function_scoped_fixture]
 
 # ------------------------------------------------------------------ row accounting
 # Cells drawn per row: some valid, some errors (not a number, non-positive, unit of
 # the wrong dimension, unknown unit, unknown source, unknown quantity, bad basis).
-QUANTITY_UNITS = st.sampled_from([("fiber_radius", "um"), ("fiber_radius", "mm"), ("body_mass", "mg"), ("body_mass", "g"),
-                                  ("lattice_spacing_d10", "nm"), ("fiber_radius", "kPa"), ("body_mass", "blorp"),
-                                  ("wing_colour", "um")])
+QUANTITY_UNITS = st.sampled_from(
+    [
+        ("fiber_radius", "um"),
+        ("fiber_radius", "mm"),
+        ("body_mass", "mg"),
+        ("body_mass", "g"),
+        ("lattice_spacing_d10", "nm"),
+        ("fiber_radius", "kPa"),
+        ("body_mass", "blorp"),
+        ("wing_colour", "um"),
+    ]
+)
 VALUES = st.sampled_from(["10", "12", "12.5", "0.02", "1e3", "0", "-1", "abc", ""])
-ROW = st.tuples(st.sampled_from(["Apis mellifera", "Bombus terrestris", "Apis mellifica"]), QUANTITY_UNITS, VALUES,
-                st.sampled_from(["", "1", "-2"]), st.sampled_from(["s1", "s2", "s9"]), st.sampled_from(["T1", "t1", "T2"]),
-                st.sampled_from(["reported", "digitized", "guessed"]))
+ROW = st.tuples(
+    st.sampled_from(["Apis mellifera", "Bombus terrestris", "Apis mellifica"]),
+    QUANTITY_UNITS,
+    VALUES,
+    st.sampled_from(["", "1", "-2"]),
+    st.sampled_from(["s1", "s2", "s9"]),
+    st.sampled_from(["T1", "t1", "T2"]),
+    st.sampled_from(["reported", "digitized", "guessed"]),
+)
 ERROR_VALUES = {"0", "-1", "abc", ""}
 
 
@@ -73,9 +88,23 @@ def test_property_rows_read_equal_used_plus_merged_plus_excluded(tmp_path_factor
     # unknown unit, unknown source, unknown quantity, basis outside the enum) are excluded
     for ln in lines:
         cells = ln.split(",")
-        oid, q, v, u, unc, s, b = cells[0], cells[2], cells[3], cells[4], cells[5], cells[8], cells[10]
-        bad = (v in ERROR_VALUES or u in ("kPa", "blorp") or s == "s9" or q == "wing_colour"
-               or b == "guessed" or unc == "-2")
+        oid, q, v, u, unc, s, b = (
+            cells[0],
+            cells[2],
+            cells[3],
+            cells[4],
+            cells[5],
+            cells[8],
+            cells[10],
+        )
+        bad = (
+            v in ERROR_VALUES
+            or u in ("kPa", "blorp")
+            or s == "s9"
+            or q == "wing_colour"
+            or b == "guessed"
+            or unc == "-2"
+        )
         if bad:
             assert oid in excluded, (oid, rep.rows_excluded)
 
@@ -83,36 +112,101 @@ def test_property_rows_read_equal_used_plus_merged_plus_excluded(tmp_path_factor
 # ------------------------------------------------------------------ unit round trips
 # (unit as a user types it, the same unit spelled out for an independent pint registry)
 TYPED_UNITS = {
-    "mass": [("mg", "milligram"), ("g", "gram"), ("kg", "kilogram"), ("µg", "microgram"), ("ug", "microgram")],
-    "length": [("um", "micrometer"), ("µm", "micrometer"), ("\u03bcm", "micrometer"), ("micron", "micrometer"),
-               ("nm", "nanometer"), ("mm", "millimeter"), ("cm", "centimeter"), ("m", "meter")],
-    "stress": [("Pa", "pascal"), ("kPa", "kilopascal"), ("MPa", "megapascal"), ("N/m²", "newton / meter ** 2"),
-               ("N/m^2", "newton / meter ** 2")],
-    "area": [("nm²", "nanometer ** 2"), ("um^2", "micrometer ** 2"), ("µm**2", "micrometer ** 2"), ("m**2", "meter ** 2")],
-    "viscosity": [("mPa s", "millipascal * second"), ("Pa·s", "pascal * second"), ("mPa*s", "millipascal * second"),
-                  ("cP", "centipoise")],
-    "rate": [("1/s", "1 / second"), ("s^-1", "1 / second"), ("s⁻¹", "1 / second"), ("1/ms", "1 / millisecond"),
-             ("Hz", "hertz"), ("kHz", "kilohertz")],
+    "mass": [
+        ("mg", "milligram"),
+        ("g", "gram"),
+        ("kg", "kilogram"),
+        ("µg", "microgram"),
+        ("ug", "microgram"),
+    ],
+    "length": [
+        ("um", "micrometer"),
+        ("µm", "micrometer"),
+        ("\u03bcm", "micrometer"),
+        ("micron", "micrometer"),
+        ("nm", "nanometer"),
+        ("mm", "millimeter"),
+        ("cm", "centimeter"),
+        ("m", "meter"),
+    ],
+    "stress": [
+        ("Pa", "pascal"),
+        ("kPa", "kilopascal"),
+        ("MPa", "megapascal"),
+        ("N/m²", "newton / meter ** 2"),
+        ("N/m^2", "newton / meter ** 2"),
+    ],
+    "area": [
+        ("nm²", "nanometer ** 2"),
+        ("um^2", "micrometer ** 2"),
+        ("µm**2", "micrometer ** 2"),
+        ("m**2", "meter ** 2"),
+    ],
+    "viscosity": [
+        ("mPa s", "millipascal * second"),
+        ("Pa·s", "pascal * second"),
+        ("mPa*s", "millipascal * second"),
+        ("cP", "centipoise"),
+    ],
+    "rate": [
+        ("1/s", "1 / second"),
+        ("s^-1", "1 / second"),
+        ("s⁻¹", "1 / second"),
+        ("1/ms", "1 / millisecond"),
+        ("Hz", "hertz"),
+        ("kHz", "kilohertz"),
+    ],
     "time": [("ms", "millisecond"), ("s", "second"), ("µs", "microsecond"), ("min", "minute")],
     "fraction": [("%", "percent"), ("1", "dimensionless"), ("fraction", "dimensionless")],
 }
 TYPED_UNITS["frequency"] = TYPED_UNITS["rate"]
 TYPED_UNITS["ratio"] = TYPED_UNITS["fraction"]
-TYPED_UNITS["energy"] = [("J", "joule"), ("mJ", "millijoule"), ("uJ", "microjoule"), ("µJ", "microjoule"), ("N*m", "newton * meter")]
-TYPED_UNITS["power"] = [("W", "watt"), ("mW", "milliwatt"), ("µW", "microwatt"), ("J/s", "joule / second")]
-TYPED_UNITS["power_per_mass"] = [("W/kg", "watt / kilogram"), ("mW/g", "milliwatt / gram"), ("W/g", "watt / gram")]
+TYPED_UNITS["energy"] = [
+    ("J", "joule"),
+    ("mJ", "millijoule"),
+    ("uJ", "microjoule"),
+    ("µJ", "microjoule"),
+    ("N*m", "newton * meter"),
+]
+TYPED_UNITS["power"] = [
+    ("W", "watt"),
+    ("mW", "milliwatt"),
+    ("µW", "microwatt"),
+    ("J/s", "joule / second"),
+]
+TYPED_UNITS["power_per_mass"] = [
+    ("W/kg", "watt / kilogram"),
+    ("mW/g", "milliwatt / gram"),
+    ("W/g", "watt / gram"),
+]
 # canonical units of the catalogue, spelled out for the independent registry
-CANONICAL_SPELLED = {"kg": "kilogram", "um": "micrometer", "mm": "millimeter", "nm": "nanometer", "kPa": "kilopascal",
-                     "nm**2": "nanometer ** 2", "mPa*s": "millipascal * second", "1/s": "1 / second", "s": "second",
-                     "Hz": "hertz", "dimensionless": "dimensionless", "1": "dimensionless", "J/m**3": "joule / meter ** 3",
-                     "J": "joule", "W": "watt", "W/kg": "watt / kilogram"}
+CANONICAL_SPELLED = {
+    "kg": "kilogram",
+    "um": "micrometer",
+    "mm": "millimeter",
+    "nm": "nanometer",
+    "kPa": "kilopascal",
+    "nm**2": "nanometer ** 2",
+    "mPa*s": "millipascal * second",
+    "1/s": "1 / second",
+    "s": "second",
+    "Hz": "hertz",
+    "dimensionless": "dimensionless",
+    "1": "dimensionless",
+    "J/m**3": "joule / meter ** 3",
+    "J": "joule",
+    "W": "watt",
+    "W/kg": "watt / kilogram",
+}
 CATALOG = load_catalog()
 QUANTITY_KEYS = sorted(CATALOG)
 REF = pint.UnitRegistry()  # a registry of its own: nothing comparo defines
 
 
 @settings(max_examples=40, deadline=None)
-@given(key=st.sampled_from(QUANTITY_KEYS), data=st.data(), value=st.floats(1e-6, 1e6, allow_nan=False))
+@given(
+    key=st.sampled_from(QUANTITY_KEYS), data=st.data(), value=st.floats(1e-6, 1e6, allow_nan=False)
+)
 def test_property_unit_round_trip_matches_pint(key, data, value):
     """value in unit -> canonical -> back is the value (1e-12 relative); the factor equals the one
     pint's stock registry gives for the spelled-out units."""
@@ -159,7 +253,11 @@ def test_property_sma_swap_inverts_slope(xy):
 
 
 @settings(max_examples=30, deadline=None)
-@given(xy=scaling_data(), method=st.sampled_from(["ols", "sma"]), logc=st.floats(-6, 6, allow_nan=False))
+@given(
+    xy=scaling_data(),
+    method=st.sampled_from(["ols", "sma"]),
+    logc=st.floats(-6, 6, allow_nan=False),
+)
 def test_property_unit_change_shifts_intercept_only(xy, method, logc):
     """log10(c x) = log10 x + log10 c: slope unchanged, intercept - slope log10 c;
     log10(c y) = log10 y + log10 c: slope unchanged, intercept + log10 c."""
@@ -180,7 +278,7 @@ def test_property_unit_change_shifts_intercept_only(xy, method, logc):
 # (value, unit, source_id, basis, quantity) with other cells and other faults.
 # (column changed, bad text, rule expected, column the problem is reported at); the rules are
 # those of schema/tables.toml (required, number, integer, positive, nonnegative, enum) and
-# the cross-column rules of comparo.validate.
+# the cross-column rules of comparo.validation.tables.
 MORE_BAD_CELLS = [
     ("source_id", "", "required-cell", "source_id"),
     ("locator", "", "required-cell", "locator"),
@@ -204,13 +302,20 @@ MORE_BAD_CELLS = [
     ("temperature_c", "warm", "temperature_c-number", "temperature_c"),
 ]
 NAMES = st.from_regex(r"[A-Z][a-z]{2,8} [a-z]{3,9}", fullmatch=True)
-GOOD_ROW = st.tuples(NAMES, st.sampled_from([("body_mass", "mg"), ("fiber_radius", "um"), ("lattice_spacing_d10", "nm")]),
-                     st.floats(min_value=1e-3, max_value=1e3, allow_nan=False), st.sampled_from(["s1", "s2"]),
-                     st.sampled_from(["reported", "digitized"]))
+GOOD_ROW = st.tuples(
+    NAMES,
+    st.sampled_from([("body_mass", "mg"), ("fiber_radius", "um"), ("lattice_spacing_d10", "nm")]),
+    st.floats(min_value=1e-3, max_value=1e3, allow_nan=False),
+    st.sampled_from(["s1", "s2"]),
+    st.sampled_from(["reported", "digitized"]),
+)
 
 
 def _good_lines(rows):
-    return [f"o{i},{taxon},{q},{v!r},{u},,,,{s},Table 1,{b},,," for i, (taxon, (q, u), v, s, b) in enumerate(rows)]
+    return [
+        f"o{i},{taxon},{q},{v!r},{u},,,,{s},Table 1,{b},,,"
+        for i, (taxon, (q, u), v, s, b) in enumerate(rows)
+    ]
 
 
 @settings(max_examples=30, deadline=None, suppress_health_check=FIXTURE_OK)
@@ -220,7 +325,9 @@ def test_property_more_bad_cells_found_at_row_and_column(tmp_path_factory, rows,
     (data row i is row i + 2) and column with its rule, and no error appears anywhere else."""
     k = data.draw(st.integers(1, min(len(rows), len(MORE_BAD_CELLS))))
     where = data.draw(st.lists(st.integers(0, len(rows) - 1), min_size=k, max_size=k, unique=True))
-    cases = data.draw(st.lists(st.sampled_from(MORE_BAD_CELLS), min_size=k, max_size=k, unique=True))
+    cases = data.draw(
+        st.lists(st.sampled_from(MORE_BAD_CELLS), min_size=k, max_size=k, unique=True)
+    )
     lines = _good_lines(rows)
     cols = OBS_HEADER.split(",")
     assert len(cols) == len(VALID_ROWS[0].split(","))
@@ -231,7 +338,9 @@ def test_property_more_bad_cells_found_at_row_and_column(tmp_path_factory, rows,
     res = check(write_dataset(tmp_path_factory.mktemp("more"), lines))
     errors = res.problems[res.problems["severity"] == "error"]
     assert not res.ok
-    assert set(zip(errors["row"], errors["column"], strict=True)) == {(i + 2, at) for i, (*_, at) in zip(where, cases, strict=True)}, errors.to_string()
+    assert set(zip(errors["row"], errors["column"], strict=True)) == {
+        (i + 2, at) for i, (*_, at) in zip(where, cases, strict=True)
+    }, errors.to_string()
     for i, (_c, _b, rule, at) in zip(where, cases, strict=True):
         at_cell = errors[(errors["row"] == i + 2) & (errors["column"] == at)]
         assert rule in set(at_cell["rule"]), (rule, errors.to_string())

@@ -1,4 +1,4 @@
-"""Student t and F quantiles of comparo.quantiles against scipy.special (an independent
+"""Student t and F quantiles of comparo.base.quantiles against scipy.special (an independent
 implementation, the reference library), closed forms and a published table."""
 
 from __future__ import annotations
@@ -8,7 +8,7 @@ import math
 import pytest
 from scipy.special import fdtri, stdtr, stdtrit
 
-from comparo.quantiles import EXACT_DF_MAX, f_quantile, t_quantile
+from comparo.base.quantiles import EXACT_DF_MAX, f_quantile, t_quantile
 
 LEVELS = [0.55, 0.6, 0.75, 0.8, 0.9, 0.95, 0.975, 0.99, 0.995, 0.999, 1 - 1e-5, 1 - 1e-8, 1 - 1e-12]
 DFS = list(range(1, 121)) + [150, 199, 200, 333, 500, 777, 999, 1000]
@@ -37,16 +37,25 @@ def test_t_quantile_closed_forms_near_the_median():
     where stdtrit itself loses digits, these are the reference."""
     for q in [0.5 + 1e-12, 0.5 + 1e-9, 0.5 + 1e-4, 0.7, 0.99]:
         assert t_quantile(1, q) == pytest.approx(math.tan(math.pi * (q - 0.5)), rel=1e-13)
-        assert t_quantile(2, q) == pytest.approx((2 * q - 1) / math.sqrt(2 * q * (1 - q)), rel=1e-13)
+        assert t_quantile(2, q) == pytest.approx(
+            (2 * q - 1) / math.sqrt(2 * q * (1 - q)), rel=1e-13
+        )
     assert t_quantile(9, 0.5) == 0.0
 
 
-@pytest.mark.parametrize("df, q, table", [
-    # NIST/SEMATECH e-Handbook of Statistical Methods, section 1.3.6.7.2 (critical values of
-    # Student's t), three decimals.
-    (1, 0.975, 12.706), (10, 0.975, 2.228), (30, 0.975, 2.042), (5, 0.995, 4.032),
-    (20, 0.95, 1.725), (100, 0.99, 2.364),
-])
+@pytest.mark.parametrize(
+    "df, q, table",
+    [
+        # NIST/SEMATECH e-Handbook of Statistical Methods, section 1.3.6.7.2 (critical values of
+        # Student's t), three decimals.
+        (1, 0.975, 12.706),
+        (10, 0.975, 2.228),
+        (30, 0.975, 2.042),
+        (5, 0.995, 4.032),
+        (20, 0.95, 1.725),
+        (100, 0.99, 2.364),
+    ],
+)
 def test_t_quantile_published_table(df, q, table):
     assert round(t_quantile(df, q), 3) == table
 
@@ -55,7 +64,11 @@ def test_other_degrees_of_freedom_go_to_scipy():
     for df in (2.5, EXACT_DF_MAX + 1, 1e6):
         assert t_quantile(df, 0.975) == float(stdtrit(df, 0.975))
     assert f_quantile(3, 20, 0.95) == float(fdtri(3, 20, 0.95))
-    assert math.isnan(t_quantile(0, 0.9)) and math.isnan(t_quantile(5, 1.0)) and math.isnan(f_quantile(1, 5, 0.0))
+    assert (
+        math.isnan(t_quantile(0, 0.9))
+        and math.isnan(t_quantile(5, 1.0))
+        and math.isnan(f_quantile(1, 5, 0.0))
+    )
 
 
 @pytest.mark.parametrize("d2", list(range(1, 80)) + [200, 999])

@@ -8,7 +8,7 @@ import shlex
 
 from support import ROOT
 
-from comparo.cli import build_parser
+from comparo.cli.main import build_parser
 
 
 def _tour() -> list[list[str]]:

@@ -31,12 +31,23 @@ def _tau_p() -> float:
     return (L_UM * 1e-6) ** 2 * (ETA * 1e-3) / (K_NM2 * 1e-18 * M_KPA * 1e3)
 
 
-def _row(taxon: str, pi: float, rel: float, f_rel_to_bound: float | None = None,
-         f_rel_u: float = 0.02, tau_u: bool = True) -> dict:
+def _row(
+    taxon: str,
+    pi: float,
+    rel: float,
+    f_rel_to_bound: float | None = None,
+    f_rel_u: float = 0.02,
+    tau_u: bool = True,
+) -> dict:
     """A per-taxon row whose Π is *pi*, each input with relative uncertainty *rel*."""
     tau_x = _tau_p() / pi
-    vals = {"fiber_radius": L_UM, "fluid_viscosity": ETA, "permeability": K_NM2,
-            "transverse_modulus": M_KPA, "kinetic_time": tau_x}
+    vals = {
+        "fiber_radius": L_UM,
+        "fluid_viscosity": ETA,
+        "permeability": K_NM2,
+        "transverse_modulus": M_KPA,
+        "kinetic_time": tau_x,
+    }
     row = {"taxon": taxon, "temperature_c": 25.0}
     for k, v in vals.items():
         row[k] = v
@@ -46,8 +57,12 @@ def _row(taxon: str, pi: float, rel: float, f_rel_to_bound: float | None = None,
     if f_rel_to_bound is not None:
         f_small = min(1 / (2 * math.pi * tau_x), 1 / (2 * math.pi * _tau_p()))
         f = f_rel_to_bound * f_small
-        row |= {"frequency_observed": f, "frequency_observed_u": f_rel_u * f,
-                "frequency_observed_basis": "reported", "frequency_observed_obs": f"f-{taxon}"}
+        row |= {
+            "frequency_observed": f,
+            "frequency_observed_u": f_rel_u * f,
+            "frequency_observed_basis": "reported",
+            "frequency_observed_obs": f"f-{taxon}",
+        }
     return row
 
 
@@ -118,9 +133,12 @@ def test_regime_with_monte_carlo_uses_the_mc_interval():
 def test_frequency_above_the_smaller_bound_beyond_its_uncertainty():
     """A taxon cycling 26% above its smaller bound with a 2% frequency uncertainty is
     above it (own log-scale 95% interval of f_obs / min bound, first order)."""
-    rows = [_row("above", 0.3, 0.01, f_rel_to_bound=1.26),
-            _row("below", 0.3, 0.01, f_rel_to_bound=0.5),
-            _row("at", 3.0, 0.01, f_rel_to_bound=1.02), _row("none", 3.0, 0.01)]
+    rows = [
+        _row("above", 0.3, 0.01, f_rel_to_bound=1.26),
+        _row("below", 0.3, 0.01, f_rel_to_bound=0.5),
+        _row("at", 3.0, 0.01, f_rel_to_bound=1.02),
+        _row("none", 3.0, 0.01),
+    ]
     out = derive(pd.DataFrame(rows)).set_index("taxon")
     for t, want in (("above", "above"), ("below", "below"), ("at", "undetermined")):
         ratio, u = out.loc[t, "frequency_ratio"], out.loc[t, "frequency_ratio_u"]
@@ -136,11 +154,21 @@ def test_frequency_above_the_smaller_bound_beyond_its_uncertainty():
 
 def test_report_counts_three_regimes_and_leaves_above_bound_taxa_out():
     """The summary lines count by hand-checked categories of a small invented table."""
-    d = pd.DataFrame({
-        "taxon": list("abcdefg"),
-        "regime": ["kinetic", "kinetic", "hydraulic", "undetermined", "kinetic", None, "hydraulic"],
-        "frequency_vs_bound": ["below", "below", "below", "below", "above", None, None],
-    })
+    d = pd.DataFrame(
+        {
+            "taxon": list("abcdefg"),
+            "regime": [
+                "kinetic",
+                "kinetic",
+                "hydraulic",
+                "undetermined",
+                "kinetic",
+                None,
+                "hydraulic",
+            ],
+            "frequency_vs_bound": ["below", "below", "below", "below", "above", None, None],
+        }
+    )
     (line,) = regime_lines(d, None)
     text = line["text"]
     assert "2 kinetic" in text and "2 hydraulic" in text and "1 undetermined" in text

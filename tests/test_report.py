@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 from support import DEMO
 
-from comparo.cli import main
+from comparo.cli.main import main
 from comparo.report import build_report
 
 
@@ -63,7 +63,9 @@ class _Collect(HTMLParser):
         if not self.stack or self.stack.pop() != tag:
             self.mismatched += 1
         if tag == "td" and self.cell_text is not None:
-            self.row.append(self.cell_text if self.cell_value is None else (self.cell_text, self.cell_value))
+            self.row.append(
+                self.cell_text if self.cell_value is None else (self.cell_text, self.cell_value)
+            )
             self.cell_text = None
         if tag == "tr" and self.in_appendix:
             if self.row:
@@ -112,25 +114,42 @@ def test_report_renders_every_figure_as_png_and_embeds_it(runs, parsed):
     import base64
 
     for png in pngs:
-        assert "data:image/png;base64," + base64.b64encode(png.read_bytes()).decode() in embedded, png.name
-    assert any(p.stem.endswith("_lambda") for p in pngs), "the PGLS fit of the demo has a lambda profile"
-    assert any(p.stem.startswith("fit3_pgls") and p.stem.endswith("_tree") for p in pngs), "the PGLS fit has its tree"
+        assert "data:image/png;base64," + base64.b64encode(png.read_bytes()).decode() in embedded, (
+            png.name
+        )
+    assert any(p.stem.endswith("_lambda") for p in pngs), (
+        "the PGLS fit of the demo has a lambda profile"
+    )
+    assert any(p.stem.startswith("fit3_pgls") and p.stem.endswith("_tree") for p in pngs), (
+        "the PGLS fit has its tree"
+    )
     assert sum(p.stem.endswith("_sensitivity") for p in pngs) >= 2, "forest plots of the SMA fits"
-    assert all(not s.startswith("http") for s in parsed.imgs), "no figure is fetched from the network"
+    assert all(not s.startswith("http") for s in parsed.imgs), (
+        "no figure is fetched from the network"
+    )
 
 
 def test_html_parses_and_states_it_is_a_research_aid_on_invented_data(runs, parsed):
     html = (runs[1] / "report.html").read_text(encoding="utf-8")
     assert parsed.mismatched == 0 and parsed.stack == []
     assert "research aid" in html and "invented" in html
-    assert html.index('id="summary"') < html.index('id="analyses"') < html.index('id="appendix"') < html.index('id="methods"')
+    assert (
+        html.index('id="summary"')
+        < html.index('id="analyses"')
+        < html.index('id="appendix"')
+        < html.index('id="methods"')
+    )
     assert "<script src" not in html and "<link" not in html
 
 
 def test_every_plotted_taxon_is_in_the_appendix(runs, parsed):
     points = pd.read_csv(runs[1] / "tables" / "points.csv")
     assert set(points["label"]) <= parsed.appendix_taxa
-    per = {f["id"]: f["result"]["n"] for f in json.loads((runs[1] / "tables" / "fits.json").read_text()) if "result" in f}
+    per = {
+        f["id"]: f["result"]["n"]
+        for f in json.loads((runs[1] / "tables" / "fits.json").read_text())
+        if "result" in f
+    }
     assert points.groupby("analysis").size().to_dict() == per, "one plotted point per fitted taxon"
     assert "doi.org/10.99999/comparo.demo." in (runs[1] / "report.html").read_text(encoding="utf-8")
 
@@ -163,7 +182,9 @@ def test_sensitivity_numbers_in_html_equal_the_tables(runs, parsed):
     out = runs[1]
     entries = json.loads((out / "tables" / "sensitivity.json").read_text())
     done = [e for e in entries if "result" in e]
-    assert {e["id"][:4] for e in done} >= {"fit1", "fit2"}, "the SMA fits of the demo have a sensitivity"
+    assert {e["id"][:4] for e in done} >= {"fit1", "fit2"}, (
+        "the SMA fits of the demo have a sensitivity"
+    )
     summary = pd.read_csv(out / "tables" / "sensitivity_summary.csv").set_index("analysis")
     for e in done:
         aid, res = e["id"], e["result"]
@@ -172,31 +193,64 @@ def test_sensitivity_numbers_in_html_equal_the_tables(runs, parsed):
         cols = ["n", "slope", "ci_low", "ci_high", "p", "shift_se"]
         want = sorted(float(v) for v in loso[cols].to_numpy().ravel() if v == v)
         assert sorted(parsed.table_values[f"sens-loso-{aid}"]) == want
-        assert [r["source_id"] for r in res["leave_one_source_out"]] == [c.removeprefix("without ") for c in loso["changed"]]
+        assert [r["source_id"] for r in res["leave_one_source_out"]] == [
+            c.removeprefix("without ") for c in loso["changed"]
+        ]
         assert loso["slope"].tolist() == [r["slope"] for r in res["leave_one_source_out"]]
         basis = refits[refits["part"] == "by_basis"]
         want = sorted(float(v) for v in basis[cols + ["ci_change"]].to_numpy().ravel() if v == v)
         assert sorted(parsed.table_values[f"sens-basis-{aid}"]) == want
         row = summary.loc[aid]
-        jack = [row[c] for c in ("n", "slope", "jackknife_se", "analytic_se", "se_ratio") if row[c] == row[c]]
+        jack = [
+            row[c]
+            for c in ("n", "slope", "jackknife_se", "analytic_se", "se_ratio")
+            if row[c] == row[c]
+        ]
         assert sorted(parsed.table_values[f"sens-jack-{aid}"]) == sorted(float(v) for v in jack)
         assert _same(row["jackknife_se"], res["jackknife_se"]["slope_jackknife"])
         me = res["measurement_error"]
-        for col, key in (("me_spread", "spread"), ("total_se", "total_se"), ("mc_draws", "draws"), ("me_share", "share")):
+        for col, key in (
+            ("me_spread", "spread"),
+            ("total_se", "total_se"),
+            ("mc_draws", "draws"),
+            ("me_share", "share"),
+        ):
             assert _same(row[col], me[key]), col
         if me["spread"] is not None:
             assert me["spread"] in parsed.table_values[f"sens-me-{aid}"]
         assert row["verdict"] == res["verdict"]
-        assert parsed.verdicts.count(res["verdict"]) == 2, "verdict in the summary and in the section"
+        assert parsed.verdicts.count(res["verdict"]) == 2, (
+            "verdict in the summary and in the section"
+        )
     assert json.loads((out / "run.json").read_text())["sensitivity_draws"] == done[0]["draws"]
 
 
 def test_report_sensitivity_equals_the_fit_command(runs, capsys):
     """``comparo fit --sensitivity --format json`` gives the report's leave-one-source-out, basis and jackknife parts."""
     data, out = runs[0], runs[1]
-    entry = next(e for e in json.loads((out / "tables" / "sensitivity.json").read_text()) if e["id"].startswith("fit2_"))
-    assert main(["fit", str(data), "--x", "fiber_radius", "--y", "frequency_observed", "--method", "sma",
-                 "--sensitivity", "--format", "json"]) == 0
+    entry = next(
+        e
+        for e in json.loads((out / "tables" / "sensitivity.json").read_text())
+        if e["id"].startswith("fit2_")
+    )
+    assert (
+        main(
+            [
+                "fit",
+                str(data),
+                "--x",
+                "fiber_radius",
+                "--y",
+                "frequency_observed",
+                "--method",
+                "sma",
+                "--sensitivity",
+                "--format",
+                "json",
+            ]
+        )
+        == 0
+    )
     cli = json.loads(capsys.readouterr().out)["sensitivity"]
     for key in ("leave_one_source_out", "by_basis", "jackknife_se"):
         assert cli[key] == entry["result"][key], key
@@ -205,9 +259,29 @@ def test_report_sensitivity_equals_the_fit_command(runs, capsys):
 def test_report_fit_equals_the_fit_command_json(runs, capsys):
     """The same fit through ``comparo fit --format json`` gives the object in tables/fits.json."""
     data, out = runs[0], runs[1]
-    per = {f["id"]: f["result"] for f in json.loads((out / "tables" / "fits.json").read_text()) if "result" in f}
+    per = {
+        f["id"]: f["result"]
+        for f in json.loads((out / "tables" / "fits.json").read_text())
+        if "result" in f
+    }
     rid = next(k for k in per if k.startswith("fit2_"))
-    assert main(["fit", str(data), "--x", "fiber_radius", "--y", "frequency_observed", "--method", "sma", "--format", "json"]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(data),
+                "--x",
+                "fiber_radius",
+                "--y",
+                "frequency_observed",
+                "--method",
+                "sma",
+                "--format",
+                "json",
+            ]
+        )
+        == 0
+    )
     cli = json.loads(capsys.readouterr().out)
     assert cli == per[rid]
 
@@ -254,7 +328,9 @@ def test_diagnostics_figure_marks_exactly_the_flagged_taxa_at_the_cuts_used(runs
     out = runs[1]
     flags = pd.read_csv(out / "tables" / "flags.csv")
     html_text = (out / "report.html").read_text(encoding="utf-8")
-    fits = {f["id"]: f for f in json.loads((out / "tables" / "fits.json").read_text()) if "result" in f}
+    fits = {
+        f["id"]: f for f in json.loads((out / "tables" / "fits.json").read_text()) if "result" in f
+    }
     methods = set()
     for aid, f in fits.items():
         svg = (out / "figures" / f"{aid}_diagnostics.svg").read_text(encoding="utf-8")
@@ -266,7 +342,9 @@ def test_diagnostics_figure_marks_exactly_the_flagged_taxa_at_the_cuts_used(runs
         cuts = {k: float(v) for k, v in re.findall(r'id="cut:([a-z_0-9]+):([^"]+)"', svg)}
         assert cuts["cooks_4n"] == pytest.approx(4 / n, rel=1e-12)
         assert cuts["leverage"] == pytest.approx(4 / n, rel=1e-12)
-        assert cuts["bonferroni"] == pytest.approx(stats.t.ppf(1 - 0.05 / (2 * n), n - 3), rel=1e-12)
+        assert cuts["bonferroni"] == pytest.approx(
+            stats.t.ppf(1 - 0.05 / (2 * n), n - 3), rel=1e-12
+        )
         assert cuts["cooks_f"] == pytest.approx(stats.f.ppf(0.5, 2, n - 2), rel=1e-12)
         for reason in flags.loc[(flags["analysis"] == aid) & (flags["kind"] == "flag"), "reason"]:
             value = float(re.search(r"= ([0-9.]+)$|cut ([0-9.]+)", reason).group(0).split()[-1])
@@ -278,8 +356,11 @@ def test_diagnostics_figure_marks_exactly_the_flagged_taxa_at_the_cuts_used(runs
             assert "flags: none" not in section
         methods.add(f["method"])
         kinds = set(flags.loc[(flags["analysis"] == aid) & (flags["kind"] == "flag"), "residuals"])
-        assert kinds <= {"phylogenetically whitened residuals (PGLS)" if f["method"] == "pgls"
-                         else "least-squares residuals of y on x (fitted scale)"}
+        assert kinds <= {
+            "phylogenetically whitened residuals (PGLS)"
+            if f["method"] == "pgls"
+            else "least-squares residuals of y on x (fitted scale)"
+        }
     assert {"sma", "pgls"} <= methods
 
 
@@ -292,8 +373,11 @@ def test_tree_with_zero_length_tip_edges_reports_without_the_lambda_1_point(tmp_
     data = tmp_path / "demo"
     shutil.copytree(DEMO, data)
     tree = (data / "tree.nwk").read_text(encoding="utf-8")
-    tree, k = re.subn(r"\(Exemplella_inventa:[0-9.]+,Exemplella_demonstrans:[0-9.]+\)",
-                      "(Exemplella_inventa:0,Exemplella_demonstrans:0)", tree)
+    tree, k = re.subn(
+        r"\(Exemplella_inventa:[0-9.]+,Exemplella_demonstrans:[0-9.]+\)",
+        "(Exemplella_inventa:0,Exemplella_demonstrans:0)",
+        tree,
+    )
     assert k == 1
     (data / "tree.nwk").write_text(tree, encoding="utf-8")
     res = build_report(data, tmp_path / "out", seed=5, sensitivity_draws=0)
@@ -308,7 +392,7 @@ def test_tree_with_zero_length_tip_edges_reports_without_the_lambda_1_point(tmp_
 
 
 def test_report_package_imports_nothing_from_the_command_layer():
-    """The report is a core module: no file of comparo/report imports comparo.commands (read with ast)."""
+    """The report is a core module: no file of comparo/report imports comparo.cli.commands (read with ast)."""
     import ast
 
     import comparo.report
@@ -317,13 +401,21 @@ def test_report_package_imports_nothing_from_the_command_layer():
     for path in folder.glob("*.py"):
         for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
             if isinstance(node, ast.ImportFrom):
-                assert not (node.module or "").startswith("comparo.commands"), path.name
+                assert not (node.module or "").startswith("comparo.cli.commands"), path.name
             if isinstance(node, ast.Import):
-                assert not any(a.name.startswith("comparo.commands") for a in node.names), path.name
-    assert {p.name for p in (folder / "templates").iterdir()} >= {"report.html.j2", "base.html.j2", "report.css"}
+                assert not any(a.name.startswith("comparo.cli.commands") for a in node.names), (
+                    path.name
+                )
+    assert {p.name for p in (folder / "templates").iterdir()} >= {
+        "report.html.j2",
+        "base.html.j2",
+        "report.css",
+    }
 
 
-def test_appendix_shows_each_value_from_as_reported_to_used_with_the_temperature_factor(runs, parsed):
+def test_appendix_shows_each_value_from_as_reported_to_used_with_the_temperature_factor(
+    runs, parsed
+):
     """Every plotted frequency in Hz: value used = value reported x Q10^((T_ref - T)/10), the textbook Q10 rule
     written here, with T_ref and Q10 read from the demo's comparo.toml (25 °C, 2.0); the summary states both.
     The in-vivo frequencies of the taxa that taxa.csv calls endotherms are used as reported (the temperature
@@ -364,10 +456,17 @@ def test_without_settings_the_report_runs_the_default_fits_and_names_the_default
     assert res.ok and res.fits and all(f["method"] == "sma" for f in res.fits)
     from comparo.report import DEFAULT_ANALYSES
 
-    assert [(f["x"], f["y"]) for f in res.fits] == [(a["x"], a["y"]) for a in DEFAULT_ANALYSES][: len(res.fits)]
+    assert [(f["x"], f["y"]) for f in res.fits] == [(a["x"], a["y"]) for a in DEFAULT_ANALYSES][
+        : len(res.fits)
+    ]
     html_text = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
     para = html_text.split('<p id="defaults">', 1)[1].split("</p>", 1)[0]
-    assert "the default set" in para and "against body mass (SMA)" in para and "25 °C" in para and "Q10" in para
+    assert (
+        "the default set" in para
+        and "against body mass (SMA)" in para
+        and "25 °C" in para
+        and "Q10" in para
+    )
     assert "Fits from the default set" in html_text
     assert "(default: <code>reference_temperature_c</code> not set)" in html_text
 
@@ -379,7 +478,9 @@ def test_numbers_read_as_people_write_them():
 
     from comparo.report.fmt import cell, num
 
-    assert num(20240601) == "20240601" and num(20240601.0) == "20240601" and num(np.int64(57)) == "57"
+    assert (
+        num(20240601) == "20240601" and num(20240601.0) == "20240601" and num(np.int64(57)) == "57"
+    )
     assert num(-0.18796) == "-0.188" and num(0.000112) == "0.000112" and num(1410.3) == "1410"
     assert num(3.92e-17) == "3.92e-17" and num(2.0) == "2" and num(float("nan")) == "n/a"
     assert num(True) == "yes" and num(np.bool_(False)) == "no"

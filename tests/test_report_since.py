@@ -45,14 +45,21 @@ def run(tmp_path_factory):
     listing = _tree(base)
     out = base / "out"
     res = run_main("report", str(new), "-o", str(out), "--since", str(old), "--quiet")
-    return {"old": old, "new": new, "out": out, "res": res, "before": before, "base": base,
-            "listing": listing}
+    return {
+        "old": old,
+        "new": new,
+        "out": out,
+        "res": res,
+        "before": before,
+        "base": base,
+        "listing": listing,
+    }
 
 
 def _section(out: Path) -> str:
     page = (out / "report.html").read_text(encoding="utf-8")
     start = page.index('<h2 id="since">')
-    return page[start:page.index("<h2", start + 5)]
+    return page[start : page.index("<h2", start + 5)]
 
 
 def test_the_section_lists_the_edits_and_sits_in_the_nav(run):
@@ -98,13 +105,15 @@ def test_inputs_untouched_and_nothing_written_outside_the_output(run):
 
 
 def test_missing_old_and_output_inside_old_exit_2(run, tmp_path):
-    missing = run_main("report", str(run["new"]), "-o", str(tmp_path / "a"), "--since",
-                       str(tmp_path / "nowhere"))
+    missing = run_main(
+        "report", str(run["new"]), "-o", str(tmp_path / "a"), "--since", str(tmp_path / "nowhere")
+    )
     assert missing.returncode == 2 and "Traceback" not in missing.stderr
     assert f"the older version {tmp_path / 'nowhere'} does not exist" in missing.stderr
     assert not (tmp_path / "a").exists()
-    inside = run_main("report", str(run["new"]), "-o", str(run["old"] / "report"), "--since",
-                      str(run["old"]))
+    inside = run_main(
+        "report", str(run["new"]), "-o", str(run["old"] / "report"), "--since", str(run["old"])
+    )
     assert inside.returncode == 2
     assert f"is inside the input dataset folder {run['old']}" in inside.stderr
     assert _digest(run["old"]) == run["before"]["old"]

@@ -1,4 +1,4 @@
-"""Behaviour of comparo.reliance (comparo.sensitivity): source influence, basis steps, jackknife, Monte Carlo."""
+"""Behaviour of comparo.fitting.source_sensitivity (comparo.sensitivity): source influence, basis steps, jackknife, Monte Carlo."""
 
 from __future__ import annotations
 
@@ -10,15 +10,15 @@ import pandas as pd
 import pytest
 from support import DEMO, run_main, write_dataset
 
-from comparo.dataset import load
-from comparo.lines import fit
-from comparo.reliance import (
+from comparo.fitting import fit
+from comparo.fitting.source_sensitivity import (
     jackknife_se,
     lognormal_draws,
     measurement_error_mc,
     sensitivity,
     with_sensitivity,
 )
+from comparo.validation.dataset import load
 
 TRUE_SLOPE = -0.25
 
@@ -39,9 +39,13 @@ def _compilation(folder, *, biased: bool, seed: int = 7, n_taxa: int = 48, n_src
         f = 30 * mass**TRUE_SLOPE * math.exp(rng.normal(0, 0.05))
         if biased and src == "SRC1":
             f *= 10 ** (-0.2 * lm)
-        rows.append(f"m{i},{taxon},body_mass,{mass:.6g},g,{0.02 * mass:.3g},sd,5,{src},Table 1,reported,,,")
-        rows.append(f"f{i},{taxon},frequency_observed,{f:.6g},Hz,{0.03 * f:.3g},sd,5,{src},Table 2,"
-                    f"{'digitized' if i % 5 == 0 else 'reported'},,,25")
+        rows.append(
+            f"m{i},{taxon},body_mass,{mass:.6g},g,{0.02 * mass:.3g},sd,5,{src},Table 1,reported,,,"
+        )
+        rows.append(
+            f"f{i},{taxon},frequency_observed,{f:.6g},Hz,{0.03 * f:.3g},sd,5,{src},Table 2,"
+            f"{'digitized' if i % 5 == 0 else 'reported'},,,25"
+        )
     write_dataset(folder, rows, sources="\n".join(src_rows) + "\n")
     return load(folder)
 
@@ -121,13 +125,17 @@ def test_taxon_jackknife_loo_slopes_by_hand():
     t = pd.DataFrame({"taxon": [f"t{i}" for i in range(9)], "x": x, "y": y})
     s = sensitivity(t, "x", "y", "ols", log="none", mc=0)
     loo = [np.polyfit(np.delete(x, i), np.delete(y, i), 1)[0] for i in range(9)]
-    assert s.jackknife_se["slope_jackknife"] == pytest.approx(jackknife_se(np.array(loo)), rel=1e-10)
+    assert s.jackknife_se["slope_jackknife"] == pytest.approx(
+        jackknife_se(np.array(loo)), rel=1e-10
+    )
 
 
 def _line_table(n=200, u_x=0.0, u_y=0.0):
     x = 10 ** np.linspace(0, 2, n)
     y = 3 * x**0.5
-    return pd.DataFrame({"taxon": [f"t{i}" for i in range(n)], "x": x, "x_u": u_x * x, "y": y, "y_u": u_y * y})
+    return pd.DataFrame(
+        {"taxon": [f"t{i}" for i in range(n)], "x": x, "x_u": u_x * x, "y": y, "y_u": u_y * y}
+    )
 
 
 @pytest.mark.parametrize("method", ["ols", "sma", "ma"])
@@ -161,7 +169,9 @@ def test_mc_attenuation_matches_reliability_ratio():
 
 def test_lognormal_draws_moments():
     """Draws keep the stated mean and standard deviation (log-normal moment matching, as stated in JCGM 101:2008; clause not checked, from memory)."""
-    d = lognormal_draws(np.array([10.0, 0.0]), np.array([3.0, 2.0]), 200_000, np.random.default_rng(2))
+    d = lognormal_draws(
+        np.array([10.0, 0.0]), np.array([3.0, 2.0]), 200_000, np.random.default_rng(2)
+    )
     assert d[:, 0].mean() == pytest.approx(10, rel=0.01)
     assert d[:, 0].std() == pytest.approx(3, rel=0.02)
     assert (d[:, 0] > 0).all()
@@ -179,7 +189,13 @@ def test_seed_reproduces(tmp_path):
 
 def test_json_keys_match_contract(biased):
     d = json.loads(json.dumps(biased.to_dict()))
-    assert set(d) == {"leave_one_source_out", "by_basis", "jackknife_se", "measurement_error", "verdict"}
+    assert set(d) == {
+        "leave_one_source_out",
+        "by_basis",
+        "jackknife_se",
+        "measurement_error",
+        "verdict",
+    }
     for r in d["leave_one_source_out"]:
         assert {"source_id", "slope", "slope_ci", "p", "shift_se"} <= set(r)
     shifts = [abs(r["shift_se"]) for r in d["leave_one_source_out"]]
@@ -209,8 +225,19 @@ def test_cli_sensitivity_on_demo():
     among the three most influential sources; 1000 Monte Carlo draws by default."""
     planted = _planted_demo_sources("body_mass", "frequency_observed")
     assert planted
-    out = run_main("fit", str(DEMO), "--x", "body_mass", "--y", "frequency_observed", "--method", "sma",
-                  "--sensitivity", "--format", "json")
+    out = run_main(
+        "fit",
+        str(DEMO),
+        "--x",
+        "body_mass",
+        "--y",
+        "frequency_observed",
+        "--method",
+        "sma",
+        "--sensitivity",
+        "--format",
+        "json",
+    )
     assert out.returncode == 0, out.stderr
     d = json.loads(out.stdout)["sensitivity"]
     assert len(d["leave_one_source_out"]) >= 2
@@ -223,14 +250,19 @@ def test_loso_matches_full_rebuild(tmp_path):
     """The per-taxon splice used for speed gives the same slope as rebuilding the whole table."""
     import dataclasses
 
-    from comparo.curate import harmonise, per_taxon
+    from comparo.curation.harmonise import harmonise, per_taxon
 
     ds = _compilation(tmp_path / "d", biased=True)
     s = sensitivity(ds, "body_mass", "frequency_observed", "sma", mc=0)
     h = harmonise(ds)
     rows = h.rows.copy()
     rows.loc[rows["source_id"] == "SRC3", "status"] = "excluded"
-    full = fit(per_taxon(ds, harmonised=dataclasses.replace(h, rows=rows)), "body_mass", "frequency_observed", "sma")
+    full = fit(
+        per_taxon(ds, harmonised=dataclasses.replace(h, rows=rows)),
+        "body_mass",
+        "frequency_observed",
+        "sma",
+    )
     rec = next(r for r in s.leave_one_source_out if r["source_id"] == "SRC3")
     assert rec["slope"] == pytest.approx(full.slope, rel=1e-12)
     assert rec["n"] == full.n
@@ -252,8 +284,8 @@ def test_mc_zero_uncertainty_reproduces_fit_robust_and_lts(method):
 
 def test_huber_slopes_match_statsmodels_rlm():
     """The vectorised IRLS gives the slope of statsmodels RLM (HuberT, MAD scale) on each data set."""
-    from comparo.lines import huber_line
-    from comparo.reliance import huber_slopes
+    from comparo.fitting import huber_line
+    from comparo.fitting.source_sensitivity import huber_slopes
 
     rng = np.random.default_rng(6)
     X = rng.uniform(0, 2, (6, 40))
@@ -282,18 +314,23 @@ def test_mc_robust_and_lts_attenuate_like_ols_on_clean_data(method):
 
 
 def test_mc_and_jackknife_pgls_on_demo_say_lambda_is_held():
-    s = sensitivity(load(DEMO), "body_mass", "frequency_observed", "pgls", tree=str(DEMO / "tree.nwk"), mc=20)
+    s = sensitivity(
+        load(DEMO), "body_mass", "frequency_observed", "pgls", tree=str(DEMO / "tree.nwk"), mc=20
+    )
     me = s.measurement_error
     assert me["spread"] is not None and me["spread"] > 0 and me["draws"] == 20
     assert "lambda at the full-data estimate" in me["note"]
     j = s.jackknife_se
     assert j["n"] > 3 and 0.5 < j["ratio"] < 2  # same order as the analytic SE
-    assert "lambda at the full-data estimate" in j["note"] and "lambda at the full-data estimate" in s.summary()
+    assert (
+        "lambda at the full-data estimate" in j["note"]
+        and "lambda at the full-data estimate" in s.summary()
+    )
 
 
 def test_sensitivity_by_group_restricts_to_the_group(biased, tmp_path):
     """Per-group sensitivity equals the sensitivity of the group's taxa on their own."""
-    from comparo.reliance import sensitivity_by_group
+    from comparo.fitting.source_sensitivity import sensitivity_by_group
 
     t = _line_table(n=40, u_x=0.1, u_y=0.1)
     t["grp"] = np.where(np.arange(40) < 20, "a", "b")
@@ -305,12 +342,16 @@ def test_sensitivity_by_group_restricts_to_the_group(biased, tmp_path):
     g2 = sensitivity_by_group(tiny, "x", "y", "ols", by="grp", mc=0)
     assert isinstance(g2["c"], str) and "at least 3 usable points" in g2["c"]
     d = with_sensitivity(fit(t, "x", "y", "ols"), alone, by_group=g2).to_dict()["sensitivity"]
-    assert set(d["by_group"]) == {"c", "d"} and "note" in d["by_group"]["c"] and "verdict" in d["by_group"]["d"]
+    assert (
+        set(d["by_group"]) == {"c", "d"}
+        and "note" in d["by_group"]["c"]
+        and "verdict" in d["by_group"]["d"]
+    )
 
 
 def test_sensitivity_by_group_dataset_uses_only_group_rows(tmp_path):
     """On a dataset, a group's leave-one-source-out refits use only that group's taxa."""
-    from comparo.reliance import sensitivity_by_group
+    from comparo.fitting.source_sensitivity import sensitivity_by_group
 
     ds = _compilation(tmp_path / "d", biased=True)
     table = __import__("comparo").per_taxon(ds)
@@ -322,37 +363,83 @@ def test_sensitivity_by_group_dataset_uses_only_group_rows(tmp_path):
 
 
 def test_cli_sensitivity_by_group(tmp_path, capsys):
-    from comparo.cli import main
+    from comparo.cli.main import main
 
     t = _line_table(n=40, u_x=0.1, u_y=0.1)
     t["grp"] = np.where(np.arange(40) < 20, "a", "b")
     p = tmp_path / "g.csv"
     t.to_csv(p, index=False)
-    assert main(["fit", str(p), "--x", "x", "--y", "y", "--method", "ols", "--by", "grp", "--sensitivity",
-                 "--mc", "50", "--format", "json"]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(p),
+                "--x",
+                "x",
+                "--y",
+                "y",
+                "--method",
+                "ols",
+                "--by",
+                "grp",
+                "--sensitivity",
+                "--mc",
+                "50",
+                "--format",
+                "json",
+            ]
+        )
+        == 0
+    )
     d = json.loads(capsys.readouterr().out)
-    assert set(d["sensitivity"]["by_group"]) == {"a", "b"} and d["sensitivity"]["measurement_error"]["draws"] == 50
-    assert main(["fit", str(p), "--x", "x", "--y", "y", "--by", "grp", "--sensitivity", "--mc", "20"]) == 0
+    assert (
+        set(d["sensitivity"]["by_group"]) == {"a", "b"}
+        and d["sensitivity"]["measurement_error"]["draws"] == 50
+    )
+    assert (
+        main(["fit", str(p), "--x", "x", "--y", "y", "--by", "grp", "--sensitivity", "--mc", "20"])
+        == 0
+    )
     text = capsys.readouterr().out
     assert "group grp = a:" in text and "group grp = b:" in text
-    assert main(["fit", str(p), "--x", "x", "--y", "y", "--by", "grp", "--sensitivity", "--mc", "0", "--format", "csv"]) == 0
+    assert (
+        main(
+            [
+                "fit",
+                str(p),
+                "--x",
+                "x",
+                "--y",
+                "y",
+                "--by",
+                "grp",
+                "--sensitivity",
+                "--mc",
+                "0",
+                "--format",
+                "csv",
+            ]
+        )
+        == 0
+    )
     frame = pd.read_csv(__import__("io").StringIO(capsys.readouterr().out))
     assert "group" in frame.columns
 
 
 def test_api_layer_does_not_import_the_cli():
-    """comparo.reliance sits below the command layer (DEVELOPERS.md module order)."""
+    """comparo.fitting.source_sensitivity sits below the command layer (DEVELOPERS.md module order)."""
     import ast
     import importlib
     import inspect
 
-    mod = importlib.import_module("comparo.reliance")
+    mod = importlib.import_module("comparo.fitting.source_sensitivity")
 
     tree = ast.parse(inspect.getsource(mod))
     names = [n.module for n in ast.walk(tree) if isinstance(n, ast.ImportFrom)]
     names += [a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names]
-    assert not [m for m in names if m and (m.startswith("comparo.commands") or m == "comparo.cli")]
-
+    assert not [
+        m for m in names if m and (m.startswith("comparo.cli.commands") or m == "comparo.cli.main")
+    ]
 
 
 def test_a_source_that_cannot_be_left_out_counts_the_taxa_left(tmp_path):
@@ -360,8 +447,8 @@ def test_a_source_that_cannot_be_left_out_counts_the_taxa_left(tmp_path):
     refitted, with n = the taxa left with both values (not 0) and the reason."""
     from support import write_dataset
 
-    from comparo.dataset import load
-    from comparo.reliance import sensitivity
+    from comparo.fitting.source_sensitivity import sensitivity
+    from comparo.validation.dataset import load
 
     rows = []
     for i, (m, f) in enumerate([(1, 200), (2, 180), (4, 150), (8, 140), (16, 120), (32, 100)]):
@@ -374,11 +461,13 @@ def test_a_source_that_cannot_be_left_out_counts_the_taxa_left(tmp_path):
     assert by_source["s2"]["slope"] is None
     assert by_source["s2"]["n"] == 2
     assert "not refitted" in by_source["s2"]["note"]
-    assert by_source["s1"]["slope"] is None and by_source["s1"]["n"] == 0  # s1 holds every body mass
+    assert (
+        by_source["s1"]["slope"] is None and by_source["s1"]["n"] == 0
+    )  # s1 holds every body mass
 
 
 def test_verdict_says_which_uncertainties_were_not_propagated():
-    from comparo.reliance import make_verdict
+    from comparo.fitting.source_sensitivity import make_verdict
 
     me = {"share": 0.01, "fixed_x": 12, "fixed_y": 0, "points": 57}
     v = make_verdict([], None, {}, me)

@@ -14,9 +14,9 @@ from pathlib import Path
 import pytest
 from support import run_main
 
-from comparo.curate import harmonise, per_taxon
-from comparo.dataset import load
-from comparo.validate import check
+from comparo.curation.harmonise import harmonise, per_taxon
+from comparo.validation.dataset import load
+from comparo.validation.tables import check
 
 OBS = """obs_id,taxon,quantity,value,unit,source_id,locator,basis,temperature_c,preparation,q10
 b1,Columba livia,body_mass,0.4,kg,s1,T1,reported,,,
@@ -90,7 +90,7 @@ def test_heterotherm_kept_at_its_operating_temperature_normalised_away_from_it(t
     assert r.loc["h3", "value_h"] == pytest.approx(q10_rule(120, 28, 25, Q10_FREQ), rel=1e-12)
     assert r.loc["h4", "value_h"] == pytest.approx(q10_rule(80, 20, 25, 2.5), rel=1e-12)
     assert r.loc["h4", "q10_used"] == 2.5
-    from comparo.curate import review
+    from comparo.curation.harmonise import review
 
     p = review(d).problems
     note = p[p["rule"] == "temperature-heterotherm"]
@@ -127,7 +127,7 @@ def test_operating_fallback_is_noted(tmp_path):
     the fallback temperature."""
     obs = OBS + "m4,Myotis lucifugus,attach_rate,30,1/s,s1,T5,reported,20,skinned_fiber,\n"
     d = dataset(tmp_path, 'reference_temperature_c = "operating"\n', obs=obs)
-    from comparo.curate import review
+    from comparo.curation.harmonise import review
 
     probs = review(d).problems
     note = probs[probs["rule"] == "temperature-fallback"]
@@ -206,7 +206,7 @@ def test_per_taxon_temp_columns_and_mixed_temperatures(tmp_path):
     assert tab.loc["Myotis lucifugus", "frequency_observed_temp_c"] == 37.0
     assert tab.loc["Myotis lucifugus", "frequency_observed"] == pytest.approx((12 + 11) / 2)
     assert "body_mass_temp_c" not in tab
-    from comparo.curate import review
+    from comparo.curation.harmonise import review
 
     p = review(d).problems
     mixed = " ".join(p.loc[p["rule"] == "temperature-mixed", "message"])
@@ -217,8 +217,9 @@ def test_per_taxon_temp_columns_and_mixed_temperatures(tmp_path):
 
 def _fit_ols(d, *extra):
     """comparo fit D --x body_mass --y frequency_observed --method ols, plus *extra*."""
-    return run_main("fit", str(d), "--x", "body_mass", "--y", "frequency_observed",
-                    "--method", "ols", *extra)
+    return run_main(
+        "fit", str(d), "--x", "body_mass", "--y", "frequency_observed", "--method", "ols", *extra
+    )
 
 
 def test_fit_says_what_was_rescaled(tmp_path):
@@ -253,7 +254,7 @@ def test_axis_labels_and_report_say_the_temperature(tmp_path):
     """Figure axes of a temperature-sensitive quantity say the temperature its values refer
     to; the report's temperature table names the values kept as measured."""
     from comparo import fit
-    from comparo.plots import axis_label
+    from comparo.report.figures import axis_label
 
     d = dataset(tmp_path)
     ds = load(d)
@@ -272,8 +273,8 @@ def test_axis_labels_and_report_say_the_temperature(tmp_path):
     assert axis_label("attach_rate", ds.catalog, off.temperature).endswith(
         "at measured temperature"
     )
-    from comparo.curate import harmonise as h
-    from comparo.provenance import temperature_rules
+    from comparo.curation.harmonise import harmonise as h
+    from comparo.curation.provenance import temperature_rules
 
     (tmp_path / "again").mkdir()
     rules = temperature_rules(h(load(dataset(tmp_path / "again", taxa=TAXA))))
@@ -288,15 +289,23 @@ def test_the_tree_figure_says_the_temperature_as_the_scaling_axis_does():
     from support import DEMO
 
     from comparo import fit
-    from comparo.plots import axis_label
-    from comparo.report import pieces
+    from comparo.report import per_fit as pieces
+    from comparo.report.figures import axis_label
 
     ds = load(DEMO)
     table = per_taxon(ds)
     res = fit(table, "body_mass", "frequency_observed", "pgls", tree=ds.tree)
     pts = pieces.fit_points(res, table, "body_mass", "frequency_observed", None)
-    fig, text = pieces.tree_figure(ds, pts, {"y": "frequency_observed", "method": "pgls"}, None,
-                                   "fit", [], res.log, res.temperature)
+    fig, text = pieces.tree_figure(
+        ds,
+        pts,
+        {"y": "frequency_observed", "method": "pgls"},
+        None,
+        "fit",
+        [],
+        res.log,
+        res.temperature,
+    )
     bars = [ax.get_ylabel() or ax.get_xlabel() for ax in fig.axes]
     expected = axis_label("frequency_observed", ds.catalog, res.temperature)
     assert "at 25 °C" in expected

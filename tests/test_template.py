@@ -15,7 +15,7 @@ import pint
 import pytest
 from support import ROOT
 
-from comparo.cli import main
+from comparo.cli.main import main
 
 
 def run(*args) -> int:
@@ -67,11 +67,19 @@ def test_sheets_and_documented_columns_in_order(template: Path) -> None:
 
 
 def test_drop_down_lists(template: Path) -> None:
-    from comparo.catalog import load_catalog
+    from comparo.base.catalog import load_catalog
 
     wb = openpyxl.load_workbook(template)
     dv = validations(wb["observations"])
-    assert set(dv) >= {"quantity", "unit", "basis", "uncertainty_kind", "preparation", "n", "uncertainty"}
+    assert set(dv) >= {
+        "quantity",
+        "unit",
+        "basis",
+        "uncertainty_kind",
+        "preparation",
+        "n",
+        "uncertainty",
+    }
     for col in ("quantity", "unit", "basis", "uncertainty_kind", "preparation"):
         assert dv[col].type == "list" and str(dv[col].sqref).endswith("5001")
     assert list_values(wb, dv["quantity"].formula1) == list(load_catalog())
@@ -86,12 +94,18 @@ def test_drop_down_lists(template: Path) -> None:
     for u in ("nm", "µm", "mm", "mg", "g", "kg", "Pa", "kPa", "MPa", "Hz", "1/s", "ms", "s"):
         assert u in offered
     for u in offered:
-        ascii_u = u.replace("µ", "u").replace("²", "**2").replace("³", "**3").replace("·", "*").replace("%", "percent")
+        ascii_u = (
+            u.replace("µ", "u")
+            .replace("²", "**2")
+            .replace("³", "**3")
+            .replace("·", "*")
+            .replace("%", "percent")
+        )
         ureg.parse_expression(ascii_u)
 
 
 def test_catalogue_sheet_is_read_only_and_complete(template: Path) -> None:
-    from comparo.catalog import load_catalog
+    from comparo.base.catalog import load_catalog
 
     wb = openpyxl.load_workbook(template)
     ws = wb["catalogue"]
@@ -102,20 +116,33 @@ def test_catalogue_sheet_is_read_only_and_complete(template: Path) -> None:
     assert frame["key"].tolist() == list(cat)
     for rec in frame.to_dict("records"):
         q = cat[rec["key"]]
-        assert rec["canonical unit"] == q.unit and rec["plausible low"] == q.range[0] and rec["plausible high"] == q.range[1]
+        assert (
+            rec["canonical unit"] == q.unit
+            and rec["plausible low"] == q.range[0]
+            and rec["plausible high"] == q.range[1]
+        )
 
 
 def test_dataset_quantities_are_offered(tmp_path: Path) -> None:
     ds = tmp_path / "ds"
     ds.mkdir()
-    (ds / "comparo.toml").write_text('[quantities.twitch_time]\nunit = "ms"\nkind = "time"\nrange = [0.1, 1000]\n', encoding="utf-8")
+    (ds / "comparo.toml").write_text(
+        '[quantities.twitch_time]\nunit = "ms"\nkind = "time"\nrange = [0.1, 1000]\n',
+        encoding="utf-8",
+    )
     out = tmp_path / "entry.xlsx"
     assert run("template", "-o", out, "--dataset", ds) == 0
     wb = openpyxl.load_workbook(out)
     assert "twitch_time" in list_values(wb, validations(wb["observations"])["quantity"].formula1)
 
 
-def fill(template: Path, dest: Path, rows: list[list], sources: list[list], taxa: list[list] | None = None) -> Path:
+def fill(
+    template: Path,
+    dest: Path,
+    rows: list[list],
+    sources: list[list],
+    taxa: list[list] | None = None,
+) -> Path:
     wb = openpyxl.load_workbook(template)
     cols = [c.value for c in wb["observations"][1]]
     for r in rows:
@@ -129,26 +156,71 @@ def fill(template: Path, dest: Path, rows: list[list], sources: list[list], taxa
 
 
 ROWS = [
-    {"obs_id": "o1", "taxon": "Apis mellifera", "quantity": "body_mass", "value": 100, "unit": "mg", "source_id": "s1", "locator": "Table 1", "basis": "reported"},
-    {"obs_id": "o2", "taxon": "Apis mellifera", "quantity": "fiber_radius", "value": 12, "unit": "µm", "uncertainty": 1, "uncertainty_kind": "sd", "n": 10, "source_id": "s1", "locator": "Table 2", "basis": "reported"},
-    {"obs_id": "o3", "taxon": "Bombus terrestris", "quantity": "body_mass", "value": 0.2, "unit": "g", "source_id": "s1", "locator": "Table 1", "basis": "reported"},
+    {
+        "obs_id": "o1",
+        "taxon": "Apis mellifera",
+        "quantity": "body_mass",
+        "value": 100,
+        "unit": "mg",
+        "source_id": "s1",
+        "locator": "Table 1",
+        "basis": "reported",
+    },
+    {
+        "obs_id": "o2",
+        "taxon": "Apis mellifera",
+        "quantity": "fiber_radius",
+        "value": 12,
+        "unit": "µm",
+        "uncertainty": 1,
+        "uncertainty_kind": "sd",
+        "n": 10,
+        "source_id": "s1",
+        "locator": "Table 2",
+        "basis": "reported",
+    },
+    {
+        "obs_id": "o3",
+        "taxon": "Bombus terrestris",
+        "quantity": "body_mass",
+        "value": 0.2,
+        "unit": "g",
+        "source_id": "s1",
+        "locator": "Table 1",
+        "basis": "reported",
+    },
 ]
 SOURCES = [["s1", "Invented A. (2001) Test source one.", 2001]]
 
 
 def test_check_and_table_read_a_filled_template(template: Path, tmp_path: Path, capsys) -> None:
-    filled = fill(template, tmp_path / "filled.xlsx", ROWS, SOURCES, [["Apis mellifera", None, None, None, None, "Apidae"], ["Bombus terrestris", None, None, None, None, "Apidae"]])
+    filled = fill(
+        template,
+        tmp_path / "filled.xlsx",
+        ROWS,
+        SOURCES,
+        [
+            ["Apis mellifera", None, None, None, None, "Apidae"],
+            ["Bombus terrestris", None, None, None, None, "Apidae"],
+        ],
+    )
     assert run("check", filled) == 0
     out = tmp_path / "t.csv"
     assert run("table", filled, "-o", out) == 0
     tab = pd.read_csv(out).set_index("taxon")
     ureg = pint.UnitRegistry()
-    assert tab.loc["Apis mellifera", "body_mass"] == pytest.approx(ureg.Quantity(100, "mg").to("kg").magnitude)
-    assert tab.loc["Bombus terrestris", "body_mass"] == pytest.approx(ureg.Quantity(0.2, "g").to("kg").magnitude)
+    assert tab.loc["Apis mellifera", "body_mass"] == pytest.approx(
+        ureg.Quantity(100, "mg").to("kg").magnitude
+    )
+    assert tab.loc["Bombus terrestris", "body_mass"] == pytest.approx(
+        ureg.Quantity(0.2, "g").to("kg").magnitude
+    )
     assert tab.loc["Apis mellifera", "clade"] == "Apidae"
 
 
-def test_problems_in_a_filled_template_name_sheet_and_cell(template: Path, tmp_path: Path, capsys) -> None:
+def test_problems_in_a_filled_template_name_sheet_and_cell(
+    template: Path, tmp_path: Path, capsys
+) -> None:
     rows = [dict(r) for r in ROWS]
     rows[1]["value"] = "abc"  # sheet row 3, column D (value)
     rows[2]["basis"] = "guessed"  # sheet row 4, column K (basis)
@@ -170,15 +242,20 @@ def test_workbook_without_sources_sheet(tmp_path: Path, capsys) -> None:
     assert "no sheet 'sources'" in capsys.readouterr().out
 
 
-@pytest.mark.parametrize("case", ["not-xlsx", "stdout", "dataset-missing", "dataset-bad-toml", "inside-dataset"])
+@pytest.mark.parametrize(
+    "case", ["not-xlsx", "stdout", "dataset-missing", "dataset-bad-toml", "inside-dataset"]
+)
 def test_template_bad_requests_exit_2(tmp_path: Path, case: str, capsys) -> None:
     ds = tmp_path / "ds"
     ds.mkdir()
     (ds / "observations.csv").write_text("obs_id\n", encoding="utf-8")
-    args = {"not-xlsx": ["-o", tmp_path / "t.csv"], "stdout": ["-o", "-"],
-            "dataset-missing": ["-o", tmp_path / "t.xlsx", "--dataset", tmp_path / "nope"],
-            "dataset-bad-toml": ["-o", tmp_path / "t.xlsx", "--dataset", ds],
-            "inside-dataset": ["-o", ds / "t.xlsx", "--dataset", ds]}[case]
+    args = {
+        "not-xlsx": ["-o", tmp_path / "t.csv"],
+        "stdout": ["-o", "-"],
+        "dataset-missing": ["-o", tmp_path / "t.xlsx", "--dataset", tmp_path / "nope"],
+        "dataset-bad-toml": ["-o", tmp_path / "t.xlsx", "--dataset", ds],
+        "inside-dataset": ["-o", ds / "t.xlsx", "--dataset", ds],
+    }[case]
     if case == "dataset-bad-toml":
         (ds / "comparo.toml").write_text("[quantities.x]\nunit = 'blorp'\n", encoding="utf-8")
     assert run("template", *args) == 2
@@ -193,13 +270,55 @@ def test_fit_reads_a_filled_template(template: Path, tmp_path: Path, capsys) -> 
 
     import numpy as np
 
-    data = {"Apis mellifera": (100e-6, 230), "Bombus terrestris": (200e-6, 150), "Musca domestica": (12e-6, 190), "Vespa crabro": (500e-6, 120)}
+    data = {
+        "Apis mellifera": (100e-6, 230),
+        "Bombus terrestris": (200e-6, 150),
+        "Musca domestica": (12e-6, 190),
+        "Vespa crabro": (500e-6, 120),
+    }
     rows = []
     for i, (t, (m, f)) in enumerate(data.items()):
-        rows.append({"obs_id": f"m{i}", "taxon": t, "quantity": "body_mass", "value": m, "unit": "kg", "source_id": "s1", "locator": "T1", "basis": "reported"})
-        rows.append({"obs_id": f"f{i}", "taxon": t, "quantity": "frequency_observed", "value": f, "unit": "Hz", "source_id": "s1", "locator": "T1", "basis": "reported", "temperature_c": 25})
+        rows.append(
+            {
+                "obs_id": f"m{i}",
+                "taxon": t,
+                "quantity": "body_mass",
+                "value": m,
+                "unit": "kg",
+                "source_id": "s1",
+                "locator": "T1",
+                "basis": "reported",
+            }
+        )
+        rows.append(
+            {
+                "obs_id": f"f{i}",
+                "taxon": t,
+                "quantity": "frequency_observed",
+                "value": f,
+                "unit": "Hz",
+                "source_id": "s1",
+                "locator": "T1",
+                "basis": "reported",
+                "temperature_c": 25,
+            }
+        )
     filled = fill(template, tmp_path / "filled.xlsx", rows, SOURCES)
-    assert run("fit", filled, "--x", "body_mass", "--y", "frequency_observed", "--method", "ols", "--format", "json") == 0
+    assert (
+        run(
+            "fit",
+            filled,
+            "--x",
+            "body_mass",
+            "--y",
+            "frequency_observed",
+            "--method",
+            "ols",
+            "--format",
+            "json",
+        )
+        == 0
+    )
     res = json.loads(capsys.readouterr().out)
     x, y = np.log10([m for m, _ in data.values()]), np.log10([f for _, f in data.values()])
     assert res["n"] == 4 and res["slope"] == pytest.approx(np.polyfit(x, y, 1)[0], rel=1e-9)

@@ -34,9 +34,15 @@ def test_one_accepted_taxon_on_two_tips_is_an_error_naming_both(tmp_path):
     proc, probs = _problems(ds)
     assert proc.returncode == 2
     two = [p for p in probs if p["rule"] == "tree-two-tips"]
-    assert len(two) == 1 and "Bombus_terrestris" in two[0]["message"] and "Musca_domestica" in two[0]["message"]
+    assert (
+        len(two) == 1
+        and "Bombus_terrestris" in two[0]["message"]
+        and "Musca_domestica" in two[0]["message"]
+    )
     assert two[0]["file"] == "taxa.csv" and two[0]["row"] == 2
-    fit = run_main("fit", str(ds), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls")
+    fit = run_main(
+        "fit", str(ds), "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls"
+    )
     assert fit.returncode == 2 and "tree-two-tips" in fit.stderr, fit.stderr
     assert tree_hash(ds) == before
 
@@ -56,12 +62,14 @@ def test_duplicate_tip_label_is_named(tmp_path):
     ds = _ds(tmp_path, None, tree="((Apis_mellifera:1,Apis_mellifera:1):1,Musca_domestica:2);\n")
     proc, probs = _problems(ds)
     assert proc.returncode == 2
-    assert any("Apis_mellifera" in p["message"] and "duplicate" in p["message"] for p in probs), probs
+    assert any("Apis_mellifera" in p["message"] and "duplicate" in p["message"] for p in probs), (
+        probs
+    )
 
 
 def test_deep_tree_in_a_dataset_folder_is_read_by_the_same_reader(tmp_path):
     """A ladder tree 20,000 levels deep in tree.nwk: the folder reader handles it like
-    ``fit --tree`` (both go through comparo.io.parse_newick)."""
+    ``fit --tree`` (both go through comparo.reading.tables.parse_newick)."""
     n = 20_000
     text = "Apis_mellifera:1"
     for i in range(n):

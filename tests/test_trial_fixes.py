@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pint
 
-from comparo.cli import main
+from comparo.cli.main import main
 
 UREG = pint.UnitRegistry()
 
@@ -26,6 +26,7 @@ def write_csv(path: Path, rows: list[list[str]]) -> Path:
 
 # ----------------------------------------------------------------------------- import
 
+
 def test_a_column_in_the_wrong_unit_is_one_message_also_when_an_error_stops_the_import(
     tmp_path, capsys
 ) -> None:
@@ -39,7 +40,9 @@ def test_a_column_in_the_wrong_unit_is_one_message_also_when_an_error_stops_the_
         [f"Genus species{i}", "s1" if i < 4 else "s9", str(v)] for i, v in enumerate(diam)
     ]
     wide = write_csv(tmp_path / "wide.csv", rows)
-    src = write_csv(tmp_path / "sources.csv", [["source_id", "citation"], ["s1", "Invented (2001)"]])
+    src = write_csv(
+        tmp_path / "sources.csv", [["source_id", "citation"], ["s1", "Invented (2001)"]]
+    )
     inside_mm = sum(4 <= UREG.Quantity(v, "mm").to("um").magnitude <= 3000 for v in diam)
     inside_um = sum(4 <= UREG.Quantity(v, "um").to("um").magnitude <= 3000 for v in diam)
     assert (inside_mm, inside_um) == (0, 6)
@@ -72,23 +75,56 @@ def test_the_map_file_hint_can_be_pasted_into_a_shell_when_the_path_has_spaces(
 
 # ----------------------------------------------------------------------------- table -o .xlsx
 
+
 def _flyers(folder: Path) -> Path:
     """A bird (endotherm, 40 °C) and two insects, one without an operating temperature."""
     folder.mkdir()
-    write_csv(folder / "taxa.csv", [
-        ["taxon", "clade", "thermoregulation", "operating_temperature_c"],
-        ["Columba livia", "Aves", "endotherm", "40"],
-        ["Apis mellifera", "Hymenoptera", "heterotherm", "38.5"],
-        ["Locusta migratoria", "Orthoptera", "ectotherm", ""],
-    ])
+    write_csv(
+        folder / "taxa.csv",
+        [
+            ["taxon", "clade", "thermoregulation", "operating_temperature_c"],
+            ["Columba livia", "Aves", "endotherm", "40"],
+            ["Apis mellifera", "Hymenoptera", "heterotherm", "38.5"],
+            ["Locusta migratoria", "Orthoptera", "ectotherm", ""],
+        ],
+    )
     write_csv(folder / "sources.csv", [["source_id", "citation"], ["s1", "Invented (2001)"]])
-    rows = [["obs_id", "taxon", "quantity", "value", "unit", "source_id", "locator", "basis",
-             "temperature_c", "preparation"]]
-    for i, (t, m, f, temp) in enumerate([("Columba livia", 400, 7, 40), ("Apis mellifera", 0.1, 235, 38),
-                                         ("Locusta migratoria", 2, 20, 30)]):
+    rows = [
+        [
+            "obs_id",
+            "taxon",
+            "quantity",
+            "value",
+            "unit",
+            "source_id",
+            "locator",
+            "basis",
+            "temperature_c",
+            "preparation",
+        ]
+    ]
+    for i, (t, m, f, temp) in enumerate(
+        [
+            ("Columba livia", 400, 7, 40),
+            ("Apis mellifera", 0.1, 235, 38),
+            ("Locusta migratoria", 2, 20, 30),
+        ]
+    ):
         rows.append([f"m{i}", t, "body_mass", str(m), "g", "s1", "Table 1", "reported", "", ""])
-        rows.append([f"f{i}", t, "frequency_observed", str(f), "Hz", "s1", "Table 1", "reported",
-                     str(temp), "in_vivo"])
+        rows.append(
+            [
+                f"f{i}",
+                t,
+                "frequency_observed",
+                str(f),
+                "Hz",
+                "s1",
+                "Table 1",
+                "reported",
+                str(temp),
+                "in_vivo",
+            ]
+        )
     write_csv(folder / "observations.csv", rows)
     return folder
 
@@ -110,12 +146,17 @@ def test_operating_temperature_has_its_unit_and_is_a_number_in_the_table_exports
     j = head.index("operating_temperature_c (°C)")
     got = {r[0]: r[j] for r in ws.iter_rows(min_row=2, values_only=True)}
     with open(ds / "taxa.csv", newline="", encoding="utf-8") as fh:
-        want = {r["taxon"]: (float(r["operating_temperature_c"]) if r["operating_temperature_c"] else None)
-                for r in csv.DictReader(fh)}
+        want = {
+            r["taxon"]: (
+                float(r["operating_temperature_c"]) if r["operating_temperature_c"] else None
+            )
+            for r in csv.DictReader(fh)
+        }
     assert got == want
 
 
 # ----------------------------------------------------------------------------- fit --breakpoint
+
 
 def test_the_breakpoint_line_says_it_is_least_squares_under_an_sma_header(tmp_path, capsys) -> None:
     """`fit --method sma --breakpoint` prints the broken line under the SMA header; its
@@ -132,14 +173,40 @@ def test_the_breakpoint_line_says_it_is_least_squares_under_an_sma_header(tmp_pa
     x = 10 ** np.linspace(-6, 0, 12)
     y = np.where(np.log10(x) < -3, 2.4 - 0.05 * (np.log10(x) + 3), 2.4 - 0.4 * (np.log10(x) + 3))
     y = 10 ** (y + rng.normal(0, 0.05, len(x)))
-    rows = [["obs_id", "taxon", "quantity", "value", "unit", "source_id", "locator", "basis",
-             "temperature_c", "preparation"]]
+    rows = [
+        [
+            "obs_id",
+            "taxon",
+            "quantity",
+            "value",
+            "unit",
+            "source_id",
+            "locator",
+            "basis",
+            "temperature_c",
+            "preparation",
+        ]
+    ]
     taxa = [["taxon"]]
     for i, (m, f) in enumerate(zip(x, y, strict=True)):
         taxa.append([f"Genus sp{i}"])
-        rows.append([f"m{i}", f"Genus sp{i}", "body_mass", f"{m:.6g}", "kg", "s1", "T1", "reported", "", ""])
-        rows.append([f"f{i}", f"Genus sp{i}", "frequency_observed", f"{f:.6g}", "Hz", "s1", "T1",
-                     "reported", "25", "in_vivo"])
+        rows.append(
+            [f"m{i}", f"Genus sp{i}", "body_mass", f"{m:.6g}", "kg", "s1", "T1", "reported", "", ""]
+        )
+        rows.append(
+            [
+                f"f{i}",
+                f"Genus sp{i}",
+                "frequency_observed",
+                f"{f:.6g}",
+                "Hz",
+                "s1",
+                "T1",
+                "reported",
+                "25",
+                "in_vivo",
+            ]
+        )
     write_csv(ds / "observations.csv", rows)
     write_csv(ds / "taxa.csv", taxa)
     args = ("fit", ds, "--x", "body_mass", "--y", "frequency_observed", "--breakpoint")
@@ -164,6 +231,7 @@ def test_the_breakpoint_line_says_it_is_least_squares_under_an_sma_header(tmp_pa
 
 # ----------------------------------------------------------------------------- fit temperature line
 
+
 def test_fit_temperature_line_says_which_values_went_to_the_fallback(tmp_path, capsys) -> None:
     """reference_temperature_c = "operating": the locust has no operating temperature, so
     its 30 °C wingbeat goes to the fallback 25 °C, not to an operating temperature; the
@@ -182,14 +250,19 @@ def test_fit_temperature_line_says_which_values_went_to_the_fallback(tmp_path, c
     assert t["fallback_c"] == 25 and abs(t["factor_min"] - factor) < 1e-12
     assert run(*args) == 0
     line = next(ln for ln in capsys.readouterr().out.splitlines() if "temperature:" in ln)
-    assert f"rescaled to operating temperature (factor {factor:.3g}; 1 of them, of taxa without " \
-           "operating_temperature_c, to the fallback 25 °C)" in line
+    assert (
+        f"rescaled to operating temperature (factor {factor:.3g}; 1 of them, of taxa without "
+        "operating_temperature_c, to the fallback 25 °C)" in line
+    )
     assert "needed no rescaling" not in line
 
 
 # ----------------------------------------------------------------------------- report wording
 
-def test_report_appendix_does_not_say_kept_values_are_at_the_reference_temperature(demo_report) -> None:
+
+def test_report_appendix_does_not_say_kept_values_are_at_the_reference_temperature(
+    demo_report,
+) -> None:
     """The demo's endotherms (clade Calorfictia) keep their in-vivo wingbeats at body
     temperature, so 'the value used (at the reference temperature)' was untrue for them.
     Independent route: the demo's observations.csv, read with the csv module, gives each
@@ -204,7 +277,11 @@ def test_report_appendix_does_not_say_kept_values_are_at_the_reference_temperatu
     with open(data / "observations.csv", newline="", encoding="utf-8") as fh:
         obs = {r["obs_id"]: r for r in csv.DictReader(fh)}
     cells = re.compile(r"<td[^>]*>(.*?)</td>")
-    kept = [cells.findall(tr) for tr in re.findall(r"<tr><td>.*?</tr>", page) if "kept as measured" in tr]
+    kept = [
+        cells.findall(tr)
+        for tr in re.findall(r"<tr><td>.*?</tr>", page)
+        if "kept as measured" in tr
+    ]
     assert kept
     for row in kept:
         r = obs[row[8]]
@@ -215,6 +292,7 @@ def test_report_appendix_does_not_say_kept_values_are_at_the_reference_temperatu
 
 # ----------------------------------------------------------------------------- regime figure
 
+
 def test_regime_legend_does_not_call_a_taxon_above_its_bound_limited(tmp_path) -> None:
     """Taxa on the hydraulic side of Π that cycle above their smaller bound are counted apart
     (limited by neither: docs/methods/derived.md); the legend must not also count them as
@@ -222,35 +300,40 @@ def test_regime_legend_does_not_call_a_taxon_above_its_bound_limited(tmp_path) -
     own regime and frequency_vs_bound columns."""
     import pandas as pd
 
-    from comparo import plots
+    from comparo.report import figures as plots
 
-    d = pd.DataFrame({
-        "taxon": ["a", "b", "c", "d"],
-        "frequency_observed": [50.0, 60.0, 5.0, 100.0],
-        "frequency_kinetic_bound": [500.0, 400.0, 300.0, 90.0],
-        "frequency_hydraulic_bound": [2.0, 3.0, 10.0, 900.0],
-        "poro_kinetic_ratio": [250.0, 130.0, 30.0, 0.1],
-        "regime": ["hydraulic", "hydraulic", "hydraulic", "kinetic"],
-        "frequency_vs_bound": ["above", "above", "below", "above"],
-    })
+    d = pd.DataFrame(
+        {
+            "taxon": ["a", "b", "c", "d"],
+            "frequency_observed": [50.0, 60.0, 5.0, 100.0],
+            "frequency_kinetic_bound": [500.0, 400.0, 300.0, 90.0],
+            "frequency_hydraulic_bound": [2.0, 3.0, 10.0, 900.0],
+            "poro_kinetic_ratio": [250.0, 130.0, 30.0, 0.1],
+            "regime": ["hydraulic", "hydraulic", "hydraulic", "kinetic"],
+            "frequency_vs_bound": ["above", "above", "below", "above"],
+        }
+    )
     fig = plots.regime_plot(d)
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     hyd = d["regime"] == "hydraulic"
     above = d["frequency_vs_bound"] == "above"
     assert f"hydraulic limited (n = {hyd.sum()})" not in labels
-    assert (f"hydraulic side of Π (n = {hyd.sum()}): {(hyd & ~above).sum()} hydraulic limited, "
-            f"{(hyd & above).sum()} above their smaller bound") in labels
+    assert (
+        f"hydraulic side of Π (n = {hyd.sum()}): {(hyd & ~above).sum()} hydraulic limited, "
+        f"{(hyd & above).sum()} above their smaller bound"
+    ) in labels
     assert f"above its smaller bound: limited by neither (n = {above.sum()})" in labels
 
 
 # ----------------------------------------------------------------------------- report sensitivity table
+
 
 def test_a_source_that_cannot_be_left_out_says_why_in_the_refit_table(tmp_path) -> None:
     """Every body mass comes from one source: without it nothing is left to fit, and the
     report's refit table (tables/sensitivity_<fit>.csv and the HTML) showed an empty row with
     'flips: no' and no reason. Independent route: the taxa left without that source, counted
     from observations.csv with the csv module (none have a body mass)."""
-    from comparo.reliance import sensitivity
+    from comparo.fitting.source_sensitivity import sensitivity
     from comparo.report import sensitivity_frame
 
     ds = tmp_path / "flyers"
@@ -261,7 +344,10 @@ def test_a_source_that_cannot_be_left_out_says_why_in_the_refit_table(tmp_path) 
         if r[2] == "body_mass":
             r[5] = "s2"
     write_csv(ds / "observations.csv", rows)
-    write_csv(ds / "sources.csv", [["source_id", "citation"], ["s1", "Invented (2001)"], ["s2", "Invented (2002)"]])
+    write_csv(
+        ds / "sources.csv",
+        [["source_id", "citation"], ["s1", "Invented (2001)"], ["s2", "Invented (2002)"]],
+    )
     left = {r[1] for r in rows[1:] if r[2] == "body_mass" and r[5] != "s2"}
     import comparo
 
@@ -275,6 +361,7 @@ def test_a_source_that_cannot_be_left_out_says_why_in_the_refit_table(tmp_path) 
 
 # ----------------------------------------------------------------------------- audit text
 
+
 def test_audit_text_says_what_the_temperature_policy_did(tmp_path, capsys) -> None:
     """The audit's text said nothing about temperature, its JSON did. Independent route:
     the three wingbeats by the rules of docs/methods/temperature.md worked by hand: the
@@ -286,14 +373,18 @@ def test_audit_text_says_what_the_temperature_policy_did(tmp_path, capsys) -> No
     (ds / "comparo.toml").write_text('reference_temperature_c = "operating"\n', encoding="utf-8")
     assert run("audit", ds) == 0
     text = " ".join(capsys.readouterr().out.split())
-    assert ("temperature: 1 value(s) rescaled to operating temperature (25 °C for taxa without one), "
-            "2 kept as measured (in vivo, regulating taxa), 0 without a temperature") in text
+    assert (
+        "temperature: 1 value(s) rescaled to operating temperature (25 °C for taxa without one), "
+        "2 kept as measured (in vivo, regulating taxa), 0 without a temperature"
+    ) in text
     assert run("audit", ds, "--format", "json") == 0
     t = json.loads(capsys.readouterr().out)["temperature"]
     assert t["normalised"] == 1 and sorted(t["kept_as_measured"]) == ["f0", "f1"]
 
 
-def test_the_plus_minus_hint_names_a_spread_column_for_the_cells_own_column(tmp_path, capsys) -> None:
+def test_the_plus_minus_hint_names_a_spread_column_for_the_cells_own_column(
+    tmp_path, capsys
+) -> None:
     """A '650 ± 60' cell under 'Attachment rate (s-1)' was told to use a column like 'Body mass
     SD (g)'. The example now names the cell's own trait, and a sheet that follows it imports:
     the spread column pairs with its trait and the uncertainty is 60 s⁻¹ (the value typed;
@@ -306,7 +397,10 @@ def test_the_plus_minus_hint_names_a_spread_column_for_the_cells_own_column(tmp_
     err = capsys.readouterr().err
     header = re.search(r"own column, e\.g\. '([^']+)'", err).group(1)
     assert header == "Attachment rate SD (s-1)"
-    rows = [["Species", "Source", "Attachment rate (s-1)", header], ["Apis mellifera", "s1", "650", "60"]]
+    rows = [
+        ["Species", "Source", "Attachment rate (s-1)", header],
+        ["Apis mellifera", "s1", "650", "60"],
+    ]
     wide = write_csv(tmp_path / "wide2.csv", rows)
     assert run("import", wide, "-o", tmp_path / "out2") == 0
     with open(tmp_path / "out2" / "observations.csv", newline="", encoding="utf-8") as fh:

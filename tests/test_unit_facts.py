@@ -1,23 +1,30 @@
-"""The unit facts shipped with comparo (comparo/unit_facts.json) against pint itself.
+"""The unit facts shipped with comparo (comparo/base/unit_facts.json) against pint itself.
 
 Reference library: pint's full default registry, parsed afresh from pint's own default
 definitions file (``default_en.txt``, no disk cache) in this process. The shipped table
 must give the answers that registry gives; when pint or the covered units change, these
-tests fail until ``python -m comparo.unitfacts`` is run again.
+tests fail until ``python tools/build_unit_facts.py`` is run again.
 """
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import math
 import subprocess
 import sys
+from pathlib import Path
 
 import pint
 import pytest
 from support import DEMO
 
-from comparo import unitfacts, units
+from comparo.base import units
+
+_BUILD = Path(__file__).resolve().parents[1] / "tools" / "build_unit_facts.py"
+_spec = importlib.util.spec_from_file_location("build_unit_facts", _BUILD)
+unitfacts = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(unitfacts)
 
 
 @pytest.fixture(scope="module")
@@ -36,7 +43,7 @@ def shipped() -> dict:
 
 def _pint_quantity(ureg, key: str):
     """What pint reads for a key of the table ("1" and "%" are comparo's two spellings
-    that are not handed to pint's parser, see comparo.units.parse_with)."""
+    that are not handed to pint's parser, see comparo.base.units.parse_with)."""
     if key == "1":
         return ureg.Quantity(1.0, "dimensionless")
     if key == "%":
@@ -55,7 +62,9 @@ def test_the_table_is_used_only_with_the_pint_that_wrote_it(shipped):
     if SAME_PINT:
         assert units._table() is not None
     else:
-        assert units._table() is None, f"table of pint {shipped['pint']} used with pint {pint.__version__}"
+        assert units._table() is None, (
+            f"table of pint {shipped['pint']} used with pint {pint.__version__}"
+        )
 
 
 def test_shipped_table_equals_a_fresh_regeneration(shipped, fresh):
@@ -63,9 +72,13 @@ def test_shipped_table_equals_a_fresh_regeneration(shipped, fresh):
     (same units covered, same numbers to the last bit, same texts). With another pint
     version, the units covered must still be the same."""
     again = json.loads(unitfacts.dumps(unitfacts.build(fresh)))
-    assert sorted(again["units"]) == sorted(shipped["units"]), "run python -m comparo.unitfacts"
+    assert sorted(again["units"]) == sorted(shipped["units"]), (
+        "run python tools/build_unit_facts.py"
+    )
     if SAME_PINT:
-        assert again == shipped, "the shipped unit facts are stale: run python -m comparo.unitfacts"
+        assert again == shipped, (
+            "the shipped unit facts are stale: run python tools/build_unit_facts.py"
+        )
 
 
 def test_every_entry_against_pint(shipped, fresh):
@@ -81,7 +94,11 @@ def test_every_entry_against_pint(shipped, fresh):
         shown = "1" if q.dimensionless and q.magnitude == 1 else f"{q.units:~P}"
         assert f["pretty"] == shown, key
     for kind, expr in units.KIND_DIMENSIONS.items():
-        dims = fresh.Quantity(1.0, "dimensionless").dimensionality if not expr else fresh.get_dimensionality(expr)
+        dims = (
+            fresh.Quantity(1.0, "dimensionless").dimensionality
+            if not expr
+            else fresh.get_dimensionality(expr)
+        )
         assert shipped["kinds"][kind] == dict(dims), kind
 
 
@@ -116,26 +133,51 @@ def test_table_conversions_equal_pints_for_every_pair(shipped, fresh):
     assert not units.same_dimension("kPa", "um")
 
 
-@pytest.mark.parametrize("text", [*units.USUAL_UNITS["length"], "μm", "micron", "mPa s", "Pa·s", "s⁻¹", "µm²", "None", "Count"])
+@pytest.mark.parametrize(
+    "text",
+    [*units.USUAL_UNITS["length"], "μm", "micron", "mPa s", "Pa·s", "s⁻¹", "µm²", "None", "Count"],
+)
 def test_typed_spellings_are_read_from_the_table(text, shipped):
     """Spellings as typed (Greek mu, middle dot, superscripts, words for 1) find their entry."""
     assert units.facts_key(text) in shipped["units"]
 
 
-@pytest.mark.parametrize("unit,canonical,expected", [
-    ("dyn/cm**2", "Pa", 0.1),  # NIST SP 811 (2008) B.8: dyne per square centimeter = 1.0 E-01 Pa
-    ("lbf/in^2", "kPa", 6.894757),  # NIST SP 811 B.8: pound-force per square inch = 6.894 757 E+03 Pa
-    # NIST SP 811 B.8: furlong = 2.011 684 E+02 m (survey foot basis); pint defines the
-    # international furlong (660 ft = 201.168 m), so compare within 1e-5; fortnight = 14 d
-    ("furlong/fortnight", "m/s", 201.168 / (14 * 86400)),
-])
+@pytest.mark.parametrize(
+    "unit,canonical,expected",
+    [
+        (
+            "dyn/cm**2",
+            "Pa",
+            0.1,
+        ),  # NIST SP 811 (2008) B.8: dyne per square centimeter = 1.0 E-01 Pa
+        (
+            "lbf/in^2",
+            "kPa",
+            6.894757,
+        ),  # NIST SP 811 B.8: pound-force per square inch = 6.894 757 E+03 Pa
+        # NIST SP 811 B.8: furlong = 2.011 684 E+02 m (survey foot basis); pint defines the
+        # international furlong (660 ft = 201.168 m), so compare within 1e-5; fortnight = 14 d
+        ("furlong/fortnight", "m/s", 201.168 / (14 * 86400)),
+    ],
+)
 def test_units_outside_the_table_still_convert_through_pint(unit, canonical, expected, fresh):
     """A unit the table does not cover is read by pint, with pint's answer."""
-    assert units.facts_key(unit) not in json.loads(units.FACTS_FILE.read_text(encoding="utf-8"))["units"]
+    assert (
+        units.facts_key(unit)
+        not in json.loads(units.FACTS_FILE.read_text(encoding="utf-8"))["units"]
+    )
     got = units.conversion_factor(unit, canonical)
-    assert math.isclose(got, (fresh.parse_expression(unit) / fresh.parse_expression(canonical)).to("dimensionless").magnitude, rel_tol=1e-12)
+    assert math.isclose(
+        got,
+        (fresh.parse_expression(unit) / fresh.parse_expression(canonical))
+        .to("dimensionless")
+        .magnitude,
+        rel_tol=1e-12,
+    )
     assert got == pytest.approx(expected, rel=1e-5)
-    assert units.base_factor(unit) == pytest.approx(fresh.parse_expression(unit).to_base_units().magnitude, rel=1e-12)
+    assert units.base_factor(unit) == pytest.approx(
+        fresh.parse_expression(unit).to_base_units().magnitude, rel=1e-12
+    )
 
 
 def test_facts_outside_the_table_come_from_pint(fresh):
@@ -156,7 +198,7 @@ def test_unreadable_units_keep_pints_message(bad):
 
 _EVERYDAY = """
 import sys
-from comparo.cli import main
+from comparo.cli.main import main
 ds, out = sys.argv[1], sys.argv[2]
 codes = [main(["check", ds]), main(["table", ds, "-o", out]),
          main(["fit", ds, "--x", "body_mass", "--y", "frequency_observed", "--method", "sma", "--format", "json"])]
@@ -171,8 +213,12 @@ def test_everyday_commands_on_the_demo_do_not_import_pint(tmp_path):
 
     ds = tmp_path / "demo"
     shutil.copytree(DEMO, ds)
-    proc = subprocess.run([sys.executable, "-c", _EVERYDAY, str(ds), str(tmp_path / "t.csv")],
-                          capture_output=True, text=True, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-c", _EVERYDAY, str(ds), str(tmp_path / "t.csv")],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     last = proc.stdout.strip().splitlines()[-1]
     # with another pint version the table is ignored and pint answers (same exit codes)
     assert last == f"RESULT [0, 0, 0] {not SAME_PINT}", proc.stderr[-2000:]

@@ -1,4 +1,4 @@
-"""comparo.units: parsing units as typed, and conversion."""
+"""comparo.base.units: parsing units as typed, and conversion."""
 
 import json
 
@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from comparo import units
+from comparo.base import units
 
 
 @pytest.mark.parametrize("text", ["µm", "μm", "um", "micron", "microns", "micrometer"])
@@ -29,7 +29,9 @@ def test_area_superscript():
     assert units.conversion_factor("µm²", "nm**2") == pytest.approx(1e6)
 
 
-@pytest.mark.parametrize("bad", ["", "   ", "furlongs per fortnight squared", "kPa)", "x" * 100, "-1 m"])
+@pytest.mark.parametrize(
+    "bad", ["", "   ", "furlongs per fortnight squared", "kPa)", "x" * 100, "-1 m"]
+)
 def test_unparseable_units_raise_clear_error(bad):
     with pytest.raises(units.UnitParseError):
         units.parse_unit(bad)
@@ -46,8 +48,11 @@ def test_dimension_mismatch_raises():
 
 
 @settings(max_examples=60, deadline=None)
-@given(st.sampled_from(["nm", "um", "mm", "cm", "m"]), st.sampled_from(["nm", "um", "mm", "cm", "m"]),
-       st.floats(min_value=1e-6, max_value=1e6))
+@given(
+    st.sampled_from(["nm", "um", "mm", "cm", "m"]),
+    st.sampled_from(["nm", "um", "mm", "cm", "m"]),
+    st.floats(min_value=1e-6, max_value=1e6),
+)
 def test_round_trip(a, b, x):
     """Converting a -> b -> a returns the value (to float precision)."""
     there = x * units.conversion_factor(a, b)
@@ -58,15 +63,41 @@ def test_round_trip(a, b, x):
 # --- the cached registry against pint's full default registry built fresh (independent route:
 # pint's own definitions file parsed anew, no cache) ---------------------------------------------
 
+
 def _catalogue_units() -> list[str]:
-    from comparo.catalog import load_catalog
+    from comparo.base.catalog import load_catalog
 
     return sorted({q.unit for q in load_catalog().values()})
 
 
 # what the synthetic demo and biologists type (tests above and the demo's unit column)
-TYPED = ["um", "µm", "micron", "nm", "mm", "m", "mg", "g", "kg", "Hz", "1/s", "s^-1", "ms", "s",
-         "Pa", "kPa", "MPa", "mPa*s", "cP", "nm**2", "µm²", "degC", "K", "kJ/mol", "percent"]
+TYPED = [
+    "um",
+    "µm",
+    "micron",
+    "nm",
+    "mm",
+    "m",
+    "mg",
+    "g",
+    "kg",
+    "Hz",
+    "1/s",
+    "s^-1",
+    "ms",
+    "s",
+    "Pa",
+    "kPa",
+    "MPa",
+    "mPa*s",
+    "cP",
+    "nm**2",
+    "µm²",
+    "degC",
+    "K",
+    "kJ/mol",
+    "percent",
+]
 
 
 @pytest.fixture(scope="module")
@@ -80,10 +111,16 @@ def test_conversions_match_a_fresh_full_pint_registry(unit, fresh_pint):
     factor to SI base units as pint's full default registry built without a cache."""
     ours = units.parse_unit(unit)
     text = units._normalise(unit)
-    theirs = fresh_pint.Quantity(1.0, "dimensionless") if text in ("dimensionless",) else fresh_pint.parse_expression(text)
+    theirs = (
+        fresh_pint.Quantity(1.0, "dimensionless")
+        if text in ("dimensionless",)
+        else fresh_pint.parse_expression(text)
+    )
     assert dict(ours.dimensionality) == dict(theirs.dimensionality)
     if "degC" not in unit:
-        assert ours.to_base_units().magnitude == pytest.approx(theirs.to_base_units().magnitude, rel=1e-14)
+        assert ours.to_base_units().magnitude == pytest.approx(
+            theirs.to_base_units().magnitude, rel=1e-14
+        )
 
 
 def test_catalogue_conversions_between_every_same_kind_pair(fresh_pint):
@@ -91,10 +128,15 @@ def test_catalogue_conversions_between_every_same_kind_pair(fresh_pint):
     cat = _catalogue_units() + ["um", "mm", "nm", "mg", "Hz", "MPa", "Pa"]
     for a in cat:
         for b in cat:
-            qa, qb = fresh_pint.parse_expression(units._normalise(a)), fresh_pint.parse_expression(units._normalise(b))
+            qa, qb = (
+                fresh_pint.parse_expression(units._normalise(a)),
+                fresh_pint.parse_expression(units._normalise(b)),
+            )
             if qa.dimensionality != qb.dimensionality:
                 continue
-            assert units.conversion_factor(a, b) == pytest.approx((qa / qb).to("dimensionless").magnitude, rel=1e-14)
+            assert units.conversion_factor(a, b) == pytest.approx(
+                (qa / qb).to("dimensionless").magnitude, rel=1e-14
+            )
 
 
 def test_registry_cache_is_written_once_and_read_back(tmp_path, fresh_pint):
@@ -109,7 +151,9 @@ def test_registry_cache_is_written_once_and_read_back(tmp_path, fresh_pint):
     for reg in (first, second):
         for u in ["um", "mPa*s", "MPa", "1/s", "mg"]:
             q = reg.parse_expression(u)
-            assert q.to_base_units().magnitude == pytest.approx(fresh_pint.parse_expression(u).to_base_units().magnitude, rel=1e-15)
+            assert q.to_base_units().magnitude == pytest.approx(
+                fresh_pint.parse_expression(u).to_base_units().magnitude, rel=1e-15
+            )
 
 
 def test_damaged_cache_falls_back_to_a_full_registry(tmp_path, monkeypatch):
@@ -127,7 +171,10 @@ def test_damaged_cache_falls_back_to_a_full_registry(tmp_path, monkeypatch):
 
     clear()
     try:  # a unit outside the unit facts, so pint's registry is built
-        assert units.facts_key("dyn/cm**2") not in json.loads(units.FACTS_FILE.read_text(encoding="utf-8"))["units"]
+        assert (
+            units.facts_key("dyn/cm**2")
+            not in json.loads(units.FACTS_FILE.read_text(encoding="utf-8"))["units"]
+        )
         # NIST SP 811 (2008) B.8: dyne per square centimeter = 1.0 E-01 Pa
         assert units.conversion_factor("dyn/cm**2", "Pa") == pytest.approx(0.1)
         assert not (folder / "complete").exists()

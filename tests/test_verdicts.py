@@ -13,8 +13,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from comparo.lines import fit
-from comparo.reliance import make_verdict
+from comparo.fitting import fit
+from comparo.fitting.source_sensitivity import make_verdict
 from comparo.report.render import summary_rows
 
 
@@ -22,8 +22,12 @@ def _groups(slopes: tuple[float, float], seed: int = 3, n: int = 20) -> pd.DataF
     rng = np.random.default_rng(seed)
     x = rng.uniform(0, 2, 2 * n)
     g = np.repeat(["A", "B"], n)
-    y = (0.2 + np.where(g == "A", slopes[0], slopes[1]) * x + np.where(g == "B", 0.3, 0.0)
-         + rng.normal(0, 0.08, 2 * n))
+    y = (
+        0.2
+        + np.where(g == "A", slopes[0], slopes[1]) * x
+        + np.where(g == "B", 0.3, 0.0)
+        + rng.normal(0, 0.08, 2 * n)
+    )
     return pd.DataFrame({"taxon": [f"s{i}" for i in range(2 * n)], "m": 10**x, "f": 10**y, "g": g})
 
 
@@ -64,7 +68,7 @@ def test_slopes_differ_no_common_slope_headline_and_no_elevation_test():
     for name, b in slopes_sm.items():
         assert f"{name} {b:.3g}"[:6] in row["test"]
     # the scaling figure's legend names the pooled line as such
-    from comparo import plots
+    from comparo.report import figures as plots
 
     fig = plots.scaling_plot(r, pd.DataFrame(list(r.points)), by="g", seed=1)
     texts = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
@@ -114,7 +118,7 @@ def test_few_taxa_caution_in_text_json_and_report(n, warned):
 
 def test_few_taxa_caution_for_a_small_group():
     t = _groups((0.8, 0.8), seed=5, n=12)
-    t = t.iloc[:12 + 8]  # group B keeps 8 taxa
+    t = t.iloc[: 12 + 8]  # group B keeps 8 taxa
     r = fit(t, "m", "f", "sma", by="g")
     groups = {c["group"] for c in r.to_dict()["cautions"] if c["rule"] == "few_taxa"}
     assert groups == {"B"}
@@ -126,8 +130,9 @@ def test_weak_correlation_caution_is_a_json_key(method):
     JSON with r; above it there is none; OLS never carries it."""
     rng = np.random.default_rng(8)
     x = rng.uniform(0, 2, 40)
-    weak = pd.DataFrame({"taxon": [f"s{i}" for i in range(40)], "m": 10**x,
-                         "f": 10 ** rng.normal(0, 0.5, 40)})
+    weak = pd.DataFrame(
+        {"taxon": [f"s{i}" for i in range(40)], "m": 10**x, "f": 10 ** rng.normal(0, 0.5, 40)}
+    )
     r_np = float(np.corrcoef(x, np.log10(weak["f"]))[0, 1])
     assert abs(r_np) < 0.3
     d = fit(weak, "m", "f", method).to_dict()
@@ -157,7 +162,7 @@ def test_a_folder_is_never_called_a_plain_table():
     from support import DEMO
 
     import comparo
-    from comparo.report.pieces import run_sensitivity
+    from comparo.report.per_fit import run_sensitivity
 
     ds = comparo.load(DEMO)
     table = comparo.per_taxon(ds)

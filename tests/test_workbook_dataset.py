@@ -15,7 +15,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from comparo.cli import main
+from comparo.cli.main import main
 
 OBS = """obs_id,taxon,quantity,value,unit,source_id,locator,basis,temperature_c,preparation
 o1,Apis mellifera,body_mass,100,mg,s1,Table 1,reported,,
@@ -54,7 +54,9 @@ def pair(tmp_path: Path) -> tuple[Path, Path]:
     book = book_dir / "entry.xlsx"
     with pd.ExcelWriter(book) as w:
         for name in ("observations", "sources"):
-            pd.read_csv(folder / f"{name}.csv", dtype=str, keep_default_na=False).to_excel(w, sheet_name=name, index=False)
+            pd.read_csv(folder / f"{name}.csv", dtype=str, keep_default_na=False).to_excel(
+                w, sheet_name=name, index=False
+            )
     return folder, book
 
 
@@ -63,12 +65,29 @@ def output(capsys, *args) -> tuple[int, str]:
     return code, capsys.readouterr().out
 
 
-@pytest.mark.parametrize("command", [
-    ["check", "--format", "json"], ["audit", "--format", "json"], ["table"], ["derive"],
-    ["cycles", "--format", "json"], ["units", "--format", "json"],
-    ["fit", "--x", "body_mass", "--y", "frequency_observed", "--format", "json"],
-    ["fit", "--x", "body_mass", "--y", "frequency_observed", "--method", "pgls", "--format", "json"],
-])
+@pytest.mark.parametrize(
+    "command",
+    [
+        ["check", "--format", "json"],
+        ["audit", "--format", "json"],
+        ["table"],
+        ["derive"],
+        ["cycles", "--format", "json"],
+        ["units", "--format", "json"],
+        ["fit", "--x", "body_mass", "--y", "frequency_observed", "--format", "json"],
+        [
+            "fit",
+            "--x",
+            "body_mass",
+            "--y",
+            "frequency_observed",
+            "--method",
+            "pgls",
+            "--format",
+            "json",
+        ],
+    ],
+)
 def test_every_reading_command_answers_the_same_on_a_workbook(pair, capsys, command) -> None:
     folder, book = pair
     code_f, out_f = output(capsys, command[0], folder, *command[1:])

@@ -10,7 +10,7 @@ rests on. User ratios (``[ratios]`` in comparo.toml) are parsed by a small gramm
 of our own (``*``, ``/``, ``^`` and parentheses over quantity keys), never by eval.
 
 Internally every quantity is in SI base units; conversions to and from the
-catalogue units go through :func:`comparo.units.conversion_factor`.
+catalogue units go through :func:`comparo.base.units.conversion_factor`.
 
 These are order-of-magnitude physical estimates, not measurements: see
 docs/methods/derived.md.

@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from comparo.base.errors import InputError, Problem
 from comparo.derivation.lattice import effective_radius, filament_spacing, filament_volume_fraction
 from comparo.derivation.lineage import (
     _column,
@@ -34,7 +35,6 @@ from comparo.derivation.timescales import (
 )
 from comparo.derivation.uncertainty import _propagate
 from comparo.derivation.water import WATER_RANGE_C, water_viscosity_at
-from comparo.errors import InputError, Problem
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -53,15 +53,29 @@ _TABLE_LEAVES = {  # leaf -> (quantity key, SI unit); "length" is set from the s
 
 
 _SI = {  # derived key -> SI unit of the internal computation
-    "filament_spacing": "m", "filament_volume_fraction": "dimensionless", "permeability_est": "m**2",
-    "fluid_viscosity_est": "Pa*s", "drained_modulus": "Pa", "poroelastic_diffusivity": "m**2/s",
-    "poroelastic_time": "s", "kinetic_time": "s", "poro_kinetic_ratio": "dimensionless",
-    "frequency_kinetic_bound": "Hz", "frequency_hydraulic_bound": "Hz", "frequency_ratio": "dimensionless",
+    "filament_spacing": "m",
+    "filament_volume_fraction": "dimensionless",
+    "permeability_est": "m**2",
+    "fluid_viscosity_est": "Pa*s",
+    "drained_modulus": "Pa",
+    "poroelastic_diffusivity": "m**2/s",
+    "poroelastic_time": "s",
+    "kinetic_time": "s",
+    "poro_kinetic_ratio": "dimensionless",
+    "frequency_kinetic_bound": "Hz",
+    "frequency_hydraulic_bound": "Hz",
+    "frequency_ratio": "dimensionless",
 }
 
 
-def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc: int = 0,
-           seed: int = 20240601, progress: bool = False) -> pd.DataFrame:
+def derive(
+    table: pd.DataFrame,
+    settings: Mapping[str, Any] | None = None,
+    *,
+    mc: int = 0,
+    seed: int = 20240601,
+    progress: bool = False,
+) -> pd.DataFrame:
     """Add derived time scales, ratios, their uncertainty and lineage to a per-taxon table.
 
     Parameters
@@ -78,7 +92,7 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     mc : int
         Monte Carlo draws per taxon (0: first-order uncertainty only). Refused above a
         cap computed from this machine's memory and a 600 s time budget
-        (:func:`comparo.bounds.check_mc`; the message states the cap and how).
+        (:func:`comparo.base.arguments.check_mc`; the message states the cap and how).
     progress : bool
         Show a progress bar on standard error for a long Monte Carlo run.
     seed : int
@@ -115,11 +129,13 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     uncertainty in measurement. JCGM 101:2008 Supplement 1 to the GUM — Propagation
     of distributions using a Monte Carlo method.
     """
-    from comparo.bounds import check_mapping, check_mc, check_seed, check_table
-    from comparo.catalog import load_catalog, read_schema
+    from comparo.base.arguments import check_mapping, check_mc, check_seed, check_table
+    from comparo.base.catalog import load_catalog, read_schema
 
     check_table(table)
-    check_mapping(settings, "settings", "a mapping like the [derive] table of comparo.toml (a dict)")
+    check_mapping(
+        settings, "settings", "a mapping like the [derive] table of comparo.toml (a dict)"
+    )
     seed = check_seed(seed, "seed")
     if isinstance(mc, np.integer):
         mc = int(mc)
@@ -131,14 +147,27 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     ignore_unknown = s["unknown_uncertainty"] == "ignore"
     length_key = s["length"]
     if length_key not in catalog or catalog.target(length_key).kind != "length":
-        raise InputError([Problem("error", "comparo.toml", None, "derive.length", str(length_key), "derive-setting",
-                                  f"length {length_key!r} is not a length quantity of the catalogue",
-                                  "use a key such as 'fiber_radius'")])
+        raise InputError(
+            [
+                Problem(
+                    "error",
+                    "comparo.toml",
+                    None,
+                    "derive.length",
+                    str(length_key),
+                    "derive-setting",
+                    f"length {length_key!r} is not a length quantity of the catalogue",
+                    "use a key such as 'fiber_radius'",
+                )
+            ]
+        )
     names = {leaf: leaf for leaf in _TABLE_LEAVES} | {"length": length_key}
     lv = _table_leaves(table, catalog, names)
     thin_per_thick, temperature, t_reason = _assumed_leaves(table, s, lv)
     compute, mirrors = _physics(s)
-    prop = _propagate(compute, lv.values, lv.rel_u, ignore_unknown, mc, rng, list(_SI), mirrors, progress=progress)
+    prop = _propagate(
+        compute, lv.values, lv.rel_u, ignore_unknown, mc, rng, list(_SI), mirrors, progress=progress
+    )
     reasons = _missing_reasons(s, prop.values, lv.absent, t_reason)
     methods = _routes(s, lv.values, prop.values, thin_per_thick, temperature, length_key)
     mode = float(s["hydraulic_mode_factor"])
@@ -146,7 +175,9 @@ def derive(table: pd.DataFrame, settings: Mapping[str, Any] | None = None, *, mc
     out = table.drop(columns=[c for c in new if c in table.columns])
     out = pd_concat(out, new)
     if ratio_settings:
-        ratio_cols, ratio_units = _ratios(out, ratio_settings, catalog, keys, mc, rng, ignore_unknown)
+        ratio_cols, ratio_units = _ratios(
+            out, ratio_settings, catalog, keys, mc, rng, ignore_unknown
+        )
         out = pd_concat(out, ratio_cols)
         units.update(ratio_units)
     out.attrs = {**table.attrs, "units": {**table.attrs.get("units", {}), **units}}
@@ -167,7 +198,7 @@ class _Leaves:
 
 def _table_leaves(table: pd.DataFrame, catalog, names: dict[str, str]) -> _Leaves:
     """The leaves read from the table, in SI units (non-positive values set to NaN with a reason)."""
-    from comparo.units import conversion_factor
+    from comparo.base.units import conversion_factor
 
     lv = _Leaves()
     leaves, rel_u, basis, obs, absent = lv.values, lv.rel_u, lv.basis, lv.obs, lv.absent
@@ -177,7 +208,9 @@ def _table_leaves(table: pd.DataFrame, catalog, names: dict[str, str]) -> _Leave
         x = _column(table, key, f)
         u = _column(table, f"{key}_u", f)
         ok = np.isfinite(x) & (x > 0)
-        absent[leaf] = np.where(np.isnan(x), f"no {key}", np.where(ok, "", f"{key} not positive")).astype(object)
+        absent[leaf] = np.where(
+            np.isnan(x), f"no {key}", np.where(ok, "", f"{key} not positive")
+        ).astype(object)
         x = np.where(ok, x, np.nan)
         with np.errstate(divide="ignore", invalid="ignore"):
             rel_u[leaf] = np.where(np.isfinite(u) & (u >= 0), u / x, np.nan)
@@ -188,44 +221,81 @@ def _table_leaves(table: pd.DataFrame, catalog, names: dict[str, str]) -> _Leave
     return lv
 
 
-def _assumed_leaves(table: pd.DataFrame, s: dict[str, Any], lv: _Leaves) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _assumed_leaves(
+    table: pd.DataFrame, s: dict[str, Any], lv: _Leaves
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The assumed leaves (filament radii, thin per thick, viscosity of the cytosol and of water);
     returns thin per thick, the temperature (°C) and why the water viscosity is missing."""
-    from comparo.units import conversion_factor
+    from comparo.base.units import conversion_factor
 
     n = len(table)
     leaves, rel_u, basis, obs = lv.values, lv.rel_u, lv.basis, lv.obs
     tpt = s["thin_per_thick"]
     if isinstance(tpt, str):
         if tpt not in table.columns:
-            raise InputError([Problem("error", "comparo.toml", None, "derive.thin_per_thick", tpt, "derive-setting",
-                                      f"thin_per_thick names column {tpt!r}, which the table does not have")])
+            raise InputError(
+                [
+                    Problem(
+                        "error",
+                        "comparo.toml",
+                        None,
+                        "derive.thin_per_thick",
+                        tpt,
+                        "derive-setting",
+                        f"thin_per_thick names column {tpt!r}, which the table does not have",
+                    )
+                ]
+            )
         thin_per_thick = _column(table, tpt)
     else:
         thin_per_thick = np.full(n, float(tpt))
     temperature = _column(table, "temperature_c")
     if "fallback_temperature_c" in s:
-        temperature = np.where(np.isnan(temperature), float(s["fallback_temperature_c"]), temperature)
+        temperature = np.where(
+            np.isnan(temperature), float(s["fallback_temperature_c"]), temperature
+        )
     nm = conversion_factor("nm", "m")
     fixed = {  # leaf -> (value, standard uncertainty), all "assumed"
-        "thick_filament_radius": (s["thick_filament_radius_nm"] * nm, s["thick_filament_radius_u_nm"] * nm),
-        "thin_filament_radius": (s["thin_filament_radius_nm"] * nm, s["thin_filament_radius_u_nm"] * nm),
+        "thick_filament_radius": (
+            s["thick_filament_radius_nm"] * nm,
+            s["thick_filament_radius_u_nm"] * nm,
+        ),
+        "thin_filament_radius": (
+            s["thin_filament_radius_nm"] * nm,
+            s["thin_filament_radius_u_nm"] * nm,
+        ),
         "thin_per_thick": (thin_per_thick, 0.0),
-        "cytosol_viscosity_factor": (s["cytosol_viscosity_factor"], s["cytosol_viscosity_factor_u"]),
+        "cytosol_viscosity_factor": (
+            s["cytosol_viscosity_factor"],
+            s["cytosol_viscosity_factor_u"],
+        ),
         "water_viscosity": (water_viscosity_at(temperature), None),
-        "modulus_fallback": (1.0, 0.0),  # a factor 1 on the fallback modulus: puts "assumed" in its lineage
+        "modulus_fallback": (
+            1.0,
+            0.0,
+        ),  # a factor 1 on the fallback modulus: puts "assumed" in its lineage
     }
     for leaf, (x, u) in fixed.items():
         leaves[leaf] = np.broadcast_to(np.asarray(x, dtype=float), (n,)).copy()
         with np.errstate(divide="ignore", invalid="ignore"):
-            rel_u[leaf] = np.full(n, float(s["water_viscosity_rel_u"])) if u is None else np.asarray(u) / leaves[leaf]
+            rel_u[leaf] = (
+                np.full(n, float(s["water_viscosity_rel_u"]))
+                if u is None
+                else np.asarray(u) / leaves[leaf]
+            )
         rel_u[leaf] = np.where(np.isfinite(rel_u[leaf]), rel_u[leaf], 0.0)
         basis[leaf] = ["assumed"] * n
         obs[leaf] = [""] * n
     lo, hi = WATER_RANGE_C
-    t_reason = np.where(np.isnan(temperature), "no temperature_c for water viscosity",
-                        np.where(np.isnan(leaves["water_viscosity"]),
-                                 f"temperature_c outside {lo:g}-{hi:g} C (liquid water at 0.1 MPa)", "")).astype(object)
+    t_reason = np.where(
+        np.isnan(temperature),
+        "no temperature_c for water viscosity",
+        np.where(
+            np.isnan(leaves["water_viscosity"]),
+            f"temperature_c outside {lo:g}-{hi:g} C (liquid water at 0.1 MPa)",
+            "",
+        ),
+    ).astype(object)
 
     return thin_per_thick, temperature, t_reason
 
@@ -240,9 +310,16 @@ def _physics(s: dict[str, Any]):
     mode = float(s["hydraulic_mode_factor"])
 
     def compute(L: dict[str, Any]) -> dict[str, Any]:
-        d10, rm, ra, na = L["lattice_spacing_d10"], L["thick_filament_radius"], L["thin_filament_radius"], L["thin_per_thick"]
+        d10, rm, ra, na = (
+            L["lattice_spacing_d10"],
+            L["thick_filament_radius"],
+            L["thin_filament_radius"],
+            L["thin_per_thick"],
+        )
         phi = filament_volume_fraction(d10, rm, ra, na)
-        k_est = permeability(effective_radius(rm, ra, na, s["effective_radius"]), phi, model, s["kozeny_constant"])
+        k_est = permeability(
+            effective_radius(rm, ra, na, s["effective_radius"]), phi, model, s["kozeny_constant"]
+        )
         eta_est = L["water_viscosity"] * L["cytosol_viscosity_factor"]
         eta = np.where(np.isnan(L["fluid_viscosity"]), eta_est, L["fluid_viscosity"])
         k = np.where(np.isnan(L["permeability"]), k_est, L["permeability"])
@@ -255,8 +332,11 @@ def _physics(s: dict[str, Any]):
             m_fb = np.full(np.shape(e), np.nan)
         m = np.where(np.isnan(L["transverse_modulus"]), m_fb, L["transverse_modulus"])
         tau_p = poroelastic_time(L["length"], k, m, eta)
-        tau_x = np.where(np.isnan(L["kinetic_time"]), kinetic_time_two_state(L["attach_rate"], L["detach_rate"]),
-                         L["kinetic_time"])
+        tau_x = np.where(
+            np.isnan(L["kinetic_time"]),
+            kinetic_time_two_state(L["attach_rate"], L["detach_rate"]),
+            L["kinetic_time"],
+        )
         f_kin = frequency_bound(tau_x, rule)
         f_hyd = frequency_bound(tau_p, rule, mode)
         return {
@@ -275,39 +355,76 @@ def _physics(s: dict[str, Any]):
             "_regime_score": f_hyd / f_kin,
         }
 
-    mirrors = {"frequency_kinetic_bound": ("kinetic_time", lambda t: frequency_bound(t, rule)),
-               "frequency_hydraulic_bound": ("poroelastic_time", lambda t: frequency_bound(t, rule, mode))}
+    mirrors = {
+        "frequency_kinetic_bound": ("kinetic_time", lambda t: frequency_bound(t, rule)),
+        "frequency_hydraulic_bound": ("poroelastic_time", lambda t: frequency_bound(t, rule, mode)),
+    }
     return compute, mirrors
 
 
-def _missing_reasons(s: dict[str, Any], vals: dict[str, np.ndarray], absent: dict[str, np.ndarray],
-                     t_reason: np.ndarray) -> dict[str, np.ndarray]:
+def _missing_reasons(
+    s: dict[str, Any],
+    vals: dict[str, np.ndarray],
+    absent: dict[str, np.ndarray],
+    t_reason: np.ndarray,
+) -> dict[str, np.ndarray]:
     """Per output key, why a value is missing (empty where it is not)."""
     model = s["permeability_model"]
     spec = PERMEABILITY_MODELS[model]
     fallback = s["modulus_fallback"]
-    phi_out = np.array([
-        f"filament_volume_fraction {_fmt(p)} outside ({spec.phi_min:g}, {spec.phi_max:.4g}] of {model}"
-        if np.isfinite(p) and not (spec.phi_min < p <= spec.phi_max) else "" for p in vals["filament_volume_fraction"]],
-        dtype=object)
+    phi_out = np.array(
+        [
+            f"filament_volume_fraction {_fmt(p)} outside ({spec.phi_min:g}, {spec.phi_max:.4g}] of {model}"
+            if np.isfinite(p) and not (spec.phi_min < p <= spec.phi_max)
+            else ""
+            for p in vals["filament_volume_fraction"]
+        ],
+        dtype=object,
+    )
     r_d10 = absent["lattice_spacing_d10"]
     r_kest = _join(r_d10, phi_out)
-    r_k = np.where((absent["permeability"] == "") | (r_kest == ""), "", "no permeability, and permeability_est: " + r_kest)
-    r_eta = np.where((absent["fluid_viscosity"] == "") | (t_reason == ""), "", "no fluid_viscosity, and " + t_reason)
+    r_k = np.where(
+        (absent["permeability"] == "") | (r_kest == ""),
+        "",
+        "no permeability, and permeability_est: " + r_kest,
+    )
+    r_eta = np.where(
+        (absent["fluid_viscosity"] == "") | (t_reason == ""),
+        "",
+        "no fluid_viscosity, and " + t_reason,
+    )
     if fallback == "none":
-        r_m = np.where(absent["transverse_modulus"] == "", "", "no transverse_modulus (modulus_fallback = none)")
+        r_m = np.where(
+            absent["transverse_modulus"] == "",
+            "",
+            "no transverse_modulus (modulus_fallback = none)",
+        )
     else:
-        r_m = np.where((absent["transverse_modulus"] == "") | (absent["elastic_modulus"] == ""), "",
-                       "no transverse_modulus or elastic_modulus")
+        r_m = np.where(
+            (absent["transverse_modulus"] == "") | (absent["elastic_modulus"] == ""),
+            "",
+            "no transverse_modulus or elastic_modulus",
+        )
     r_d = _join(r_k, r_m, r_eta)
     r_tp = _join(absent["length"], r_d)
     rates = _join(absent["attach_rate"], absent["detach_rate"])
-    r_tx = np.where((absent["kinetic_time"] == "") | (rates == ""), "", absent["kinetic_time"] + ", and 1/(f+g): " + rates)
+    r_tx = np.where(
+        (absent["kinetic_time"] == "") | (rates == ""),
+        "",
+        absent["kinetic_time"] + ", and 1/(f+g): " + rates,
+    )
     reasons = {
-        "filament_spacing": r_d10, "filament_volume_fraction": r_d10, "permeability_est": r_kest,
-        "fluid_viscosity_est": t_reason, "drained_modulus": r_m, "poroelastic_diffusivity": r_d,
-        "poroelastic_time": r_tp, "kinetic_time": r_tx, "poro_kinetic_ratio": _join(r_tp, r_tx),
-        "frequency_kinetic_bound": r_tx, "frequency_hydraulic_bound": r_tp,
+        "filament_spacing": r_d10,
+        "filament_volume_fraction": r_d10,
+        "permeability_est": r_kest,
+        "fluid_viscosity_est": t_reason,
+        "drained_modulus": r_m,
+        "poroelastic_diffusivity": r_d,
+        "poroelastic_time": r_tp,
+        "kinetic_time": r_tx,
+        "poro_kinetic_ratio": _join(r_tp, r_tx),
+        "frequency_kinetic_bound": r_tx,
+        "frequency_hydraulic_bound": r_tp,
         "frequency_ratio": _join(absent["frequency_observed"], r_tx, r_tp),
         "regime": _join(r_tx, r_tp),
     }
@@ -315,49 +432,84 @@ def _missing_reasons(s: dict[str, Any], vals: dict[str, np.ndarray], absent: dic
     return reasons
 
 
-def _routes(s: dict[str, Any], leaves: dict[str, np.ndarray], vals: dict[str, np.ndarray], thin_per_thick: np.ndarray,
-            temperature: np.ndarray, length_key: str) -> dict[str, Any]:
+def _routes(
+    s: dict[str, Any],
+    leaves: dict[str, np.ndarray],
+    vals: dict[str, np.ndarray],
+    thin_per_thick: np.ndarray,
+    temperature: np.ndarray,
+    length_key: str,
+) -> dict[str, Any]:
     """Per output key, the route by which it was computed (the ``_method`` column)."""
     model = s["permeability_model"]
     fallback = s["modulus_fallback"]
     nu = float(s["poisson_ratio"])
     rule = s["frequency_bound"]
     mode = float(s["hydraulic_mode_factor"])
-    k_route = np.where(~np.isnan(leaves["permeability"]), "k = permeability", f"k = permeability_est ({model})")
-    m_fb_text = {"elastic_modulus": "M = elastic_modulus", "constrained": f"M = constrained from elastic_modulus (nu {nu:g})",
-                 "none": ""}[fallback]
+    k_route = np.where(
+        ~np.isnan(leaves["permeability"]), "k = permeability", f"k = permeability_est ({model})"
+    )
+    m_fb_text = {
+        "elastic_modulus": "M = elastic_modulus",
+        "constrained": f"M = constrained from elastic_modulus (nu {nu:g})",
+        "none": "",
+    }[fallback]
     m_route = np.where(~np.isnan(leaves["transverse_modulus"]), "M = transverse_modulus", m_fb_text)
     f_cyto = s["cytosol_viscosity_factor"]
-    eta_route = np.where(~np.isnan(leaves["fluid_viscosity"]), "eta = fluid_viscosity",
-                         f"eta = fluid_viscosity_est (water x {f_cyto:g})")
-    d_route = np.char.add(np.char.add(np.char.add(np.char.add(k_route, "; "), m_route), "; "), eta_route)
+    eta_route = np.where(
+        ~np.isnan(leaves["fluid_viscosity"]),
+        "eta = fluid_viscosity",
+        f"eta = fluid_viscosity_est (water x {f_cyto:g})",
+    )
+    d_route = np.char.add(
+        np.char.add(np.char.add(np.char.add(k_route, "; "), m_route), "; "), eta_route
+    )
     bound_txt = "1/(2 pi tau)" if rule == "corner" else "1/tau"
     methods = {
         "filament_spacing": "hexagonal lattice d = 2 d10/sqrt(3)",
-        "filament_volume_fraction": [f"hexagonal lattice, r_thick {s['thick_filament_radius_nm']:g} nm, "
-                                     f"r_thin {s['thin_filament_radius_nm']:g} nm, {_fmt(t)} thin per thick" for t in thin_per_thick],
+        "filament_volume_fraction": [
+            f"hexagonal lattice, r_thick {s['thick_filament_radius_nm']:g} nm, "
+            f"r_thin {s['thin_filament_radius_nm']:g} nm, {_fmt(t)} thin per thick"
+            for t in thin_per_thick
+        ],
         "permeability_est": f"{model}, a = {s['effective_radius']} radius",
-        "fluid_viscosity_est": [f"IAPWS R12-08 water at {_fmt(t)} C and 0.1 MPa, x {f_cyto:g}" for t in temperature],
+        "fluid_viscosity_est": [
+            f"IAPWS R12-08 water at {_fmt(t)} C and 0.1 MPa, x {f_cyto:g}" for t in temperature
+        ],
         "drained_modulus": m_route,
         "poroelastic_diffusivity": d_route,
         "poroelastic_time": np.char.add(f"l = {length_key}; ", d_route),
-        "kinetic_time": np.where(~np.isnan(leaves["kinetic_time"]), "reported", "two-state 1/(f+g)"),
+        "kinetic_time": np.where(
+            ~np.isnan(leaves["kinetic_time"]), "reported", "two-state 1/(f+g)"
+        ),
         "poro_kinetic_ratio": "poroelastic_time / kinetic_time",
         "frequency_kinetic_bound": f"{bound_txt}, tau = kinetic_time",
-        "frequency_hydraulic_bound": (f"{mode:g} x " if mode != 1 else "") + f"{bound_txt}, tau = poroelastic_time",
-        "frequency_ratio": np.where(vals["_regime_score"] < 1, "frequency_observed / frequency_hydraulic_bound",
-                                    "frequency_observed / frequency_kinetic_bound"),
+        "frequency_hydraulic_bound": (f"{mode:g} x " if mode != 1 else "")
+        + f"{bound_txt}, tau = poroelastic_time",
+        "frequency_ratio": np.where(
+            vals["_regime_score"] < 1,
+            "frequency_observed / frequency_hydraulic_bound",
+            "frequency_observed / frequency_kinetic_bound",
+        ),
         "regime": "the smaller frequency bound limits",
     }
 
     return methods
 
 
-def _assemble(keys: dict, prop, lv: _Leaves, names: dict[str, str], reasons: dict, methods: dict,
-              mc: int, mode: float = 1.0) -> tuple[dict[str, Any], dict[str, str]]:
+def _assemble(
+    keys: dict,
+    prop,
+    lv: _Leaves,
+    names: dict[str, str],
+    reasons: dict,
+    methods: dict,
+    mc: int,
+    mode: float = 1.0,
+) -> tuple[dict[str, Any], dict[str, str]]:
     """The new columns (values and uncertainty in the units of derived.toml, lineage, Monte
     Carlo summaries, the regime) and the unit of each added key."""
-    from comparo.units import conversion_factor
+    from comparo.base.units import conversion_factor
 
     leaves, rel_u, basis, obs = lv.values, lv.rel_u, lv.basis, lv.obs
     vals = prop.values
@@ -375,8 +527,18 @@ def _assemble(keys: dict, prop, lv: _Leaves, names: dict[str, str], reasons: dic
             rep = ~np.isnan(leaves["kinetic_time"])
             u = np.where(rep, leaves["kinetic_time"] * rel_u["kinetic_time"], u)
         through = {"kinetic_time": "kinetic_time", "drained_modulus": "transverse_modulus"}.get(key)
-        cols = _lineage_columns(key, y, prop, basis, obs, display, reasons[key], methods[key], cache=lineage_cache,
-                                passthrough=(through, leaves[through], basis[through]) if through else None)
+        cols = _lineage_columns(
+            key,
+            y,
+            prop,
+            basis,
+            obs,
+            display,
+            reasons[key],
+            methods[key],
+            cache=lineage_cache,
+            passthrough=(through, leaves[through], basis[through]) if through else None,
+        )
         cols = {key: y * f, f"{key}_u": u * f, **cols}
         if mc > 0:
             cols.update(_mc_columns(key, prop.mc[key], cols[f"{key}_u"], f))
@@ -384,20 +546,40 @@ def _assemble(keys: dict, prop, lv: _Leaves, names: dict[str, str], reasons: dic
     score = vals["_regime_score"]
     mcs = prop.mc if mc > 0 else {}
     pi_mc, fr_mc = mcs.get("poro_kinetic_ratio", {}), mcs.get("frequency_ratio", {})
-    regime = classify_regime(vals["poro_kinetic_ratio"], prop.u["poro_kinetic_ratio"], mode,
-                             pi_mc.get("_mc_lo95"), pi_mc.get("_mc_hi95"))
+    regime = classify_regime(
+        vals["poro_kinetic_ratio"],
+        prop.u["poro_kinetic_ratio"],
+        mode,
+        pi_mc.get("_mc_lo95"),
+        pi_mc.get("_mc_hi95"),
+    )
     regime[~np.isfinite(score)] = None
     route = "Monte Carlo 95% interval" if mc > 0 else "first-order 95% interval"
-    how = (f"the smaller frequency bound limits; undetermined when the {route} of "
-           f"poro_kinetic_ratio holds {mode:g}")
+    how = (
+        f"the smaller frequency bound limits; undetermined when the {route} of "
+        f"poro_kinetic_ratio holds {mode:g}"
+    )
     no_u = np.isfinite(score) & ~np.isfinite(prop.u["poro_kinetic_ratio"])
     reg_method = np.where(no_u, how + " (no uncertainty of poro_kinetic_ratio: undetermined)", how)
-    reg = _lineage_columns("_regime_score", score, prop, basis, obs, display, reasons["regime"],
-                           reg_method, cache=lineage_cache)
+    reg = _lineage_columns(
+        "_regime_score",
+        score,
+        prop,
+        basis,
+        obs,
+        display,
+        reasons["regime"],
+        reg_method,
+        cache=lineage_cache,
+    )
     new["regime"] = regime
     new.update({c.replace("_regime_score", "regime"): v for c, v in reg.items()})
     units["regime"] = "dimensionless"
     new["frequency_vs_bound"] = frequency_vs_bound(
-        vals["frequency_ratio"], prop.u["frequency_ratio"], fr_mc.get("_mc_lo95"), fr_mc.get("_mc_hi95"))
+        vals["frequency_ratio"],
+        prop.u["frequency_ratio"],
+        fr_mc.get("_mc_lo95"),
+        fr_mc.get("_mc_hi95"),
+    )
 
     return new, units

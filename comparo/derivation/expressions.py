@@ -9,7 +9,9 @@ import re
 from dataclasses import dataclass
 from typing import Any
 
-_TOKEN = re.compile(r"\s*(?:(?P<num>\d+(?:\.\d*)?(?:[eE][+-]?\d+)?|\.\d+(?:[eE][+-]?\d+)?)|(?P<name>[A-Za-z_][A-Za-z0-9_]*)|(?P<op>[*/^()+-]))")
+_TOKEN = re.compile(
+    r"\s*(?:(?P<num>\d+(?:\.\d*)?(?:[eE][+-]?\d+)?|\.\d+(?:[eE][+-]?\d+)?)|(?P<name>[A-Za-z_][A-Za-z0-9_]*)|(?P<op>[*/^()+-]))"
+)
 
 
 @dataclass(frozen=True)
@@ -22,8 +24,12 @@ class Ratio:
     exponents: tuple[tuple[str, float], ...]
 
     def to_dict(self) -> dict[str, Any]:
-        return {"name": self.name, "expression": self.expression, "constant": self.constant,
-                "exponents": {k: p for k, p in self.exponents}}
+        return {
+            "name": self.name,
+            "expression": self.expression,
+            "constant": self.constant,
+            "exponents": {k: p for k, p in self.exponents},
+        }
 
 
 class _Parser:
@@ -37,7 +43,9 @@ class _Parser:
         while pos < len(text):
             m = _TOKEN.match(text, pos)
             if not m or m.end() == pos:
-                raise ValueError(f"unexpected character {text[pos:].lstrip()[:1]!r} at position {pos + 1}")
+                raise ValueError(
+                    f"unexpected character {text[pos:].lstrip()[:1]!r} at position {pos + 1}"
+                )
             kind = m.lastgroup
             self.tokens.append((kind, m.group(kind)))
             pos = m.end()
@@ -48,7 +56,11 @@ class _Parser:
 
     def take(self, value: str | None = None, kind: str | None = None) -> str:
         tok = self.peek()
-        if tok is None or (value is not None and tok[1] != value) or (kind is not None and tok[0] != kind):
+        if (
+            tok is None
+            or (value is not None and tok[1] != value)
+            or (kind is not None and tok[0] != kind)
+        ):
             want = repr(value) if value else (kind or "more")
             got = "the end" if tok is None else repr(tok[1])
             raise ValueError(f"expected {want} but found {got}")
@@ -132,7 +144,7 @@ _NO_RANGE_DECADES = (-30.0, 30.0)
 
 def _decades(catalog, key: str) -> tuple[float, float]:
     """log10 of the plausible range of *key* in SI base units (wide when unknown)."""
-    from comparo.units import base_factor
+    from comparo.base.units import base_factor
 
     if key not in catalog or catalog[key].range is None:
         return _NO_RANGE_DECADES
@@ -155,8 +167,10 @@ def ratio_overflow(ratio: Ratio, catalog) -> str:
         lo, hi = lo + min(a, b), hi + max(a, b)
     if hi <= DOUBLE_DECADES and lo >= -DOUBLE_DECADES:
         return ""
-    return (f"ratio {ratio.name!r} would span 1e{lo:.0f} to 1e{hi:.0f} (SI) over the plausible ranges of its "
-            "quantities, beyond what a double holds (1e-307 to 1e307)")
+    return (
+        f"ratio {ratio.name!r} would span 1e{lo:.0f} to 1e{hi:.0f} (SI) over the plausible ranges of its "
+        "quantities, beyond what a double holds (1e-307 to 1e307)"
+    )
 
 
 def parse_ratio(name: str, expression: str) -> Ratio:

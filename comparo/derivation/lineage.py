@@ -30,7 +30,10 @@ def _column(table: pd.DataFrame, name: str, factor: float = 1.0) -> np.ndarray:
 def _text_column(table: pd.DataFrame, name: str) -> list[str]:
     if name not in table.columns:
         return [""] * len(table)
-    return ["" if (v is None or (isinstance(v, float) and math.isnan(v))) else str(v) for v in table[name].tolist()]
+    return [
+        "" if (v is None or (isinstance(v, float) and math.isnan(v))) else str(v)
+        for v in table[name].tolist()
+    ]
 
 
 def _join(*reasons: np.ndarray) -> np.ndarray:
@@ -57,8 +60,18 @@ def pd_concat(frame: pd.DataFrame, columns: Mapping[str, Any]) -> pd.DataFrame:
     return pd.concat([frame, extra], axis=1)
 
 
-def _lineage_columns(key: str, y: np.ndarray, prop: _Propagation, basis, obs, display, reason, method,
-                     passthrough=None, cache: dict | None = None) -> dict[str, Any]:
+def _lineage_columns(
+    key: str,
+    y: np.ndarray,
+    prop: _Propagation,
+    basis,
+    obs,
+    display,
+    reason,
+    method,
+    passthrough=None,
+    cache: dict | None = None,
+) -> dict[str, Any]:
     """KEY_basis, KEY_obs, KEY_method and KEY_missing of one output.
 
     *cache* (one dict per derive() call) keeps each leaf's basis ranks and obs_id
@@ -78,12 +91,17 @@ def _lineage_columns(key: str, y: np.ndarray, prop: _Propagation, basis, obs, di
     rank = {b: i for i, b in enumerate(BASIS_ORDER)}
     for lf in names:
         if lf not in cache:
-            cache[lf] = ([rank.get(b or "assumed", -1) for b in basis[lf]],
-                         [tuple(t.strip() for t in o.split(";") if t.strip()) for o in obs[lf]])
+            cache[lf] = (
+                [rank.get(b or "assumed", -1) for b in basis[lf]],
+                [tuple(t.strip() for t in o.split(";") if t.strip()) for o in obs[lf]],
+            )
     ranks = np.array([cache[lf][0] for lf in names], dtype=np.int64).reshape(len(names), n)
     dep = np.array([deps[lf] for lf in names], dtype=bool).reshape(len(names), n)
     if (ranks[dep] < 0).any():  # a basis outside BASIS_ORDER: fall back to the row-wise rule
-        weakest = [_weakest([basis[lf][i] or "assumed" for lf in names if deps[lf][i]] + ["computed"]) for i in range(n)]
+        weakest = [
+            _weakest([basis[lf][i] or "assumed" for lf in names if deps[lf][i]] + ["computed"])
+            for i in range(n)
+        ]
     else:
         top = np.max(np.where(dep, ranks, rank["computed"]), axis=0, initial=rank["computed"])
         weakest = [BASIS_ORDER[t] for t in top]
@@ -97,14 +115,23 @@ def _lineage_columns(key: str, y: np.ndarray, prop: _Propagation, basis, obs, di
             used = [names[j] for j in np.flatnonzero(dep[:, i])]
         o_col[i] = ";".join(dict.fromkeys(t for lf in used for t in cache[lf][1][i]))
     method = np.broadcast_to(np.asarray(method, dtype=object), (n,))
-    return {f"{key}_basis": b_col, f"{key}_obs": o_col, f"{key}_method": np.where(has, method, ""),
-            f"{key}_missing": reason}
+    return {
+        f"{key}_basis": b_col,
+        f"{key}_obs": o_col,
+        f"{key}_method": np.where(has, method, ""),
+        f"{key}_missing": reason,
+    }
 
 
-def _mc_columns(key: str, summ: dict[str, np.ndarray], gum_u: np.ndarray, factor: float) -> dict[str, Any]:
+def _mc_columns(
+    key: str, summ: dict[str, np.ndarray], gum_u: np.ndarray, factor: float
+) -> dict[str, Any]:
     cols = {f"{key}{sfx}": summ[sfx] * factor for sfx in (*_MC_SUFFIXES, "_mc_u")}
     mcu = cols[f"{key}_mc_u"]
     with np.errstate(divide="ignore", invalid="ignore"):
-        cols[f"{key}_nonlinear"] = np.where(np.isfinite(gum_u) & np.isfinite(mcu) & (gum_u > 0),
-                                            np.abs(mcu / gum_u - 1.0) > 0.2, False)
+        cols[f"{key}_nonlinear"] = np.where(
+            np.isfinite(gum_u) & np.isfinite(mcu) & (gum_u > 0),
+            np.abs(mcu / gum_u - 1.0) > 0.2,
+            False,
+        )
     return cols

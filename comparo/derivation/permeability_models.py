@@ -55,27 +55,67 @@ class PermeabilityModel:
     reference: str
 
     def to_dict(self) -> dict[str, Any]:
-        return {"name": self.name, "phi_min": self.phi_min, "phi_max": self.phi_max, "reference": self.reference}
+        return {
+            "name": self.name,
+            "phi_min": self.phi_min,
+            "phi_max": self.phi_max,
+            "reference": self.reference,
+        }
 
 
 #: Permeability models by setting name; a fraction outside (phi_min, phi_max] gives no value.
 PERMEABILITY_MODELS: dict[str, PermeabilityModel] = {
     m.name: m
     for m in (
-        PermeabilityModel("happel_parallel", _happel_parallel, 0.0, HEXAGONAL_PACKING_LIMIT,
-                          "Happel J (1959) AIChE J 5:174-177, flow along the cylinders"),
-        PermeabilityModel("happel_transverse", _happel_transverse, 0.0, HEXAGONAL_PACKING_LIMIT,
-                          "Happel J (1959) AIChE J 5:174-177, flow across the cylinders"),
-        PermeabilityModel("kuwabara_transverse", _kuwabara_transverse, 0.0, HEXAGONAL_PACKING_LIMIT,
-                          "Kuwabara S (1959) J Phys Soc Jpn 14:527-532, flow across the cylinders"),
-        PermeabilityModel("jackson_james", _jackson_james, 0.0, 0.3,
-                          "Jackson GW, James DF (1986) Can J Chem Eng 64:364-374, random 3-D fibres"),
-        PermeabilityModel("kozeny_carman", None, 0.0, HEXAGONAL_PACKING_LIMIT,  # type: ignore[arg-type]
-                          "Carman PC (1937) Trans IChemE 15:150-166"),
-        PermeabilityModel("gebart_transverse", _gebart_transverse, 0.0, HEXAGONAL_PACKING_LIMIT,
-                          "Gebart BR (1992) J Compos Mater 26:1100-1133, hexagonal packing, across"),
-        PermeabilityModel("gebart_parallel", _gebart_parallel, 0.0, HEXAGONAL_PACKING_LIMIT,
-                          "Gebart BR (1992) J Compos Mater 26:1100-1133, hexagonal packing, along"),
+        PermeabilityModel(
+            "happel_parallel",
+            _happel_parallel,
+            0.0,
+            HEXAGONAL_PACKING_LIMIT,
+            "Happel J (1959) AIChE J 5:174-177, flow along the cylinders",
+        ),
+        PermeabilityModel(
+            "happel_transverse",
+            _happel_transverse,
+            0.0,
+            HEXAGONAL_PACKING_LIMIT,
+            "Happel J (1959) AIChE J 5:174-177, flow across the cylinders",
+        ),
+        PermeabilityModel(
+            "kuwabara_transverse",
+            _kuwabara_transverse,
+            0.0,
+            HEXAGONAL_PACKING_LIMIT,
+            "Kuwabara S (1959) J Phys Soc Jpn 14:527-532, flow across the cylinders",
+        ),
+        PermeabilityModel(
+            "jackson_james",
+            _jackson_james,
+            0.0,
+            0.3,
+            "Jackson GW, James DF (1986) Can J Chem Eng 64:364-374, random 3-D fibres",
+        ),
+        PermeabilityModel(
+            "kozeny_carman",
+            None,
+            0.0,
+            HEXAGONAL_PACKING_LIMIT,  # type: ignore[arg-type]
+            "Carman PC (1937) Trans IChemE 15:150-166",
+        ),
+        PermeabilityModel(
+            "gebart_transverse",
+            _gebart_transverse,
+            0.0,
+            HEXAGONAL_PACKING_LIMIT,
+            "Gebart BR (1992) J Compos Mater 26:1100-1133, hexagonal packing, across",
+        ),
+        PermeabilityModel(
+            "gebart_parallel",
+            _gebart_parallel,
+            0.0,
+            HEXAGONAL_PACKING_LIMIT,
+            "Gebart BR (1992) J Compos Mater 26:1100-1133, hexagonal packing, along",
+        ),
     )
 }
 
@@ -124,7 +164,9 @@ def permeability(a, phi, model: str = "happel_parallel", kozeny_constant: float 
     try:
         spec = PERMEABILITY_MODELS[model]
     except KeyError:
-        raise ValueError(f"unknown permeability model {model!r}; use one of {', '.join(PERMEABILITY_MODELS)}") from None
+        raise ValueError(
+            f"unknown permeability model {model!r}; use one of {', '.join(PERMEABILITY_MODELS)}"
+        ) from None
     phi = np.asarray(phi)
     if not np.issubdtype(phi.dtype, np.floating):
         phi = phi.astype(float)

@@ -10,10 +10,10 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from comparo.base.errors import InputError, Problem
 from comparo.derivation.expressions import Ratio, parse_ratio, ratio_overflow
 from comparo.derivation.lineage import _column, _join, _lineage_columns, _mc_columns, _text_column
 from comparo.derivation.uncertainty import _propagate
-from comparo.errors import InputError, Problem
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -21,19 +21,40 @@ if TYPE_CHECKING:  # pragma: no cover
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 
 
-def _ratios(out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys, mc: int,
-            rng: np.random.Generator, ignore_unknown: bool) -> tuple[dict[str, Any], dict[str, str]]:
+def _ratios(
+    out: pd.DataFrame,
+    ratio_settings: Mapping[str, Any],
+    catalog,
+    keys,
+    mc: int,
+    rng: np.random.Generator,
+    ignore_unknown: bool,
+) -> tuple[dict[str, Any], dict[str, str]]:
     """Columns of the user ratios of ``[ratios]`` (GUM and Monte Carlo as for derived keys)."""
-    from comparo.units import conversion_factor, parse_unit
+    from comparo.base.units import conversion_factor, parse_unit
 
     probs: list[Problem] = []
     parsed: list[tuple[Ratio, dict[str, str], float, str]] = []
     for name, spec in ratio_settings.items():
-        expr, unit = (spec.get("expression"), spec.get("unit")) if isinstance(spec, Mapping) else (spec, None)
+        expr, unit = (
+            (spec.get("expression"), spec.get("unit"))
+            if isinstance(spec, Mapping)
+            else (spec, None)
+        )
 
         def bad(msg: str, hint: str = "", _name=name, _expr=expr) -> None:
-            probs.append(Problem("error", "comparo.toml", None, f"ratios.{_name}", None if _expr is None else str(_expr),
-                                 "ratio-expression", msg, hint))
+            probs.append(
+                Problem(
+                    "error",
+                    "comparo.toml",
+                    None,
+                    f"ratios.{_name}",
+                    None if _expr is None else str(_expr),
+                    "ratio-expression",
+                    msg,
+                    hint,
+                )
+            )
 
         if not _NAME.fullmatch(str(name)):
             bad(f"ratio name {name!r} must be letters, digits and underscores")
@@ -44,8 +65,10 @@ def _ratios(out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys,
         try:
             ratio = parse_ratio(name, expr)
         except ValueError as exc:
-            bad(f"cannot read the expression of ratio {name!r}: {exc}",
-                "use quantity keys with *, /, ^number and parentheses, e.g. fiber_length / fiber_radius")
+            bad(
+                f"cannot read the expression of ratio {name!r}: {exc}",
+                "use quantity keys with *, /, ^number and parentheses, e.g. fiber_length / fiber_radius",
+            )
             continue
         op_units: dict[str, str] = {}
         for k, _p in ratio.exponents:
@@ -54,7 +77,9 @@ def _ratios(out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys,
             elif k in catalog:
                 op_units[k] = catalog.target(k).unit
             else:
-                bad(f"ratio {name!r} uses {k!r}, which is neither a catalogue nor a derived quantity")
+                bad(
+                    f"ratio {name!r} uses {k!r}, which is neither a catalogue nor a derived quantity"
+                )
         if not ratio.exponents:
             bad(f"ratio {name!r} has no quantity in it")
         if len(op_units) != len(ratio.exponents):
@@ -72,14 +97,18 @@ def _ratios(out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys,
         else:
             try:
                 if parse_unit(str(unit)).dimensionality != base.dimensionality:
-                    bad(f"ratio {name!r} has dimension {base.dimensionality} but unit {unit!r} has "
-                        f"{parse_unit(str(unit)).dimensionality}")
+                    bad(
+                        f"ratio {name!r} has dimension {base.dimensionality} but unit {unit!r} has "
+                        f"{parse_unit(str(unit)).dimensionality}"
+                    )
                     continue
             except ValueError as exc:
                 bad(f"ratio {name!r}: {exc}")
                 continue
             unit_out = str(unit)
-        factor = float(base.magnitude) * conversion_factor("dimensionless" if base.dimensionless else str(base.units), unit_out)
+        factor = float(base.magnitude) * conversion_factor(
+            "dimensionless" if base.dimensionless else str(base.units), unit_out
+        )
         parsed.append((ratio, op_units, factor, unit_out))
     if probs:
         raise InputError(probs)
@@ -91,7 +120,11 @@ def _ratios(out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys,
         for k, _p in ratio.exponents:
             x = _column(out, k)
             ok = np.isfinite(x) & (x > 0)
-            reasons.append(np.where(np.isnan(x), f"no {k}", np.where(ok, "", f"{k} not positive")).astype(object))
+            reasons.append(
+                np.where(np.isnan(x), f"no {k}", np.where(ok, "", f"{k} not positive")).astype(
+                    object
+                )
+            )
             x = np.where(ok, x, np.nan)
             u = _column(out, f"{k}_u")
             with np.errstate(divide="ignore", invalid="ignore"):
@@ -112,8 +145,18 @@ def _ratios(out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys,
         y = prop.values[name]
         cols[name] = y
         cols[f"{name}_u"] = prop.u[name]
-        cols.update(_lineage_columns(name, y, prop, basis, obs, {k: k for k in leaves}, _join(*reasons),
-                                     f"{ratio.expression} [{unit_out}]"))
+        cols.update(
+            _lineage_columns(
+                name,
+                y,
+                prop,
+                basis,
+                obs,
+                {k: k for k in leaves},
+                _join(*reasons),
+                f"{ratio.expression} [{unit_out}]",
+            )
+        )
         if mc > 0:
             cols.update(_mc_columns(name, prop.mc[name], prop.u[name], 1.0))
         units[name] = unit_out

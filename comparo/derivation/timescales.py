@@ -1,5 +1,4 @@
-"""Poroelastic and kinetic time scales and the frequency bounds they imply (SI units).
-"""
+"""Poroelastic and kinetic time scales and the frequency bounds they imply (SI units)."""
 
 from __future__ import annotations
 
@@ -85,4 +84,6 @@ def frequency_bound(tau, rule: str = "corner", mode_factor=1.0):
         return mode_factor / (2.0 * math.pi * tau)
     if rule == "inverse":
         return mode_factor / tau
-    raise ValueError(f"unknown frequency bound rule {rule!r}; use one of {', '.join(FREQUENCY_BOUNDS)}")
+    raise ValueError(
+        f"unknown frequency bound rule {rule!r}; use one of {', '.join(FREQUENCY_BOUNDS)}"
+    )

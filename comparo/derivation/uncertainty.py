@@ -30,9 +30,14 @@ def gum_relative(exponents: Mapping[str, float], relative_u: Mapping[str, Any]):
     return np.sqrt(total)
 
 
-def sample_inputs(values: Mapping[str, Any], uncertainties: Mapping[str, Any], draws: int,
-                  rng: np.random.Generator, distribution: str = "lognormal",
-                  dtype: type = np.float64) -> dict[str, np.ndarray]:
+def sample_inputs(
+    values: Mapping[str, Any],
+    uncertainties: Mapping[str, Any],
+    draws: int,
+    rng: np.random.Generator,
+    distribution: str = "lognormal",
+    dtype: type = np.float64,
+) -> dict[str, np.ndarray]:
     """Monte Carlo draws of independent inputs (JCGM 101:2008), in the order of *values*.
 
     Parameters
@@ -98,11 +103,17 @@ class _Propagation:
     mc: dict[str, dict[str, np.ndarray]]  # output -> suffix -> array
 
 
-def _propagate(compute: Callable[[dict[str, Any]], dict[str, Any]], leaves: dict[str, np.ndarray],
-               rel_u: dict[str, np.ndarray], ignore_unknown: bool, mc: int,
-               rng: np.random.Generator | None, mc_outputs: list[str] | None = None,
-               mirrors: dict[str, tuple[str, Callable[[Any], Any]]] | None = None,
-               progress: bool = False) -> _Propagation:
+def _propagate(
+    compute: Callable[[dict[str, Any]], dict[str, Any]],
+    leaves: dict[str, np.ndarray],
+    rel_u: dict[str, np.ndarray],
+    ignore_unknown: bool,
+    mc: int,
+    rng: np.random.Generator | None,
+    mc_outputs: list[str] | None = None,
+    mirrors: dict[str, tuple[str, Callable[[Any], Any]]] | None = None,
+    progress: bool = False,
+) -> _Propagation:
     """Values, GUM uncertainties, lineage and Monte Carlo summaries of compute(leaves).
 
     First order on the log scale: cᵢ = ∂ln y/∂ln xᵢ by central differences of step
@@ -142,7 +153,9 @@ def _propagate(compute: Callable[[dict[str, Any]], dict[str, Any]], leaves: dict
         u[key] = np.where(np.isnan(y), np.nan, uu)
     summaries: dict[str, dict[str, np.ndarray]] = {}
     if mc > 0:
-        summaries = _monte_carlo(compute, leaves, rel_u, mc, rng, mc_outputs or list(base), mirrors, progress)
+        summaries = _monte_carlo(
+            compute, leaves, rel_u, mc, rng, mc_outputs or list(base), mirrors, progress
+        )
         for key, s in summaries.items():
             bad = np.isnan(u[key])
             for arr in s.values():
@@ -176,11 +189,21 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None, progres
         for start in range(0, n, block):
             stop = min(n, start + block)
             vals = {k: v[start:stop] for k, v in leaves.items()}
-            samples = sample_inputs({k: vals[k] for k in drawn},
-                                    {k: vals[k] * rel_u[k][start:stop] for k in drawn}, mc, rng, dtype=np.float32)
-            args = {k: (samples[k] if k in samples else v.astype(np.float32)[:, None]) for k, v in vals.items()}
+            samples = sample_inputs(
+                {k: vals[k] for k in drawn},
+                {k: vals[k] * rel_u[k][start:stop] for k in drawn},
+                mc,
+                rng,
+                dtype=np.float32,
+            )
+            args = {
+                k: (samples[k] if k in samples else v.astype(np.float32)[:, None])
+                for k, v in vals.items()
+            }
             del samples
-            in_flight.append(pool.submit(_mc_block, compute, args, slice(start, stop), mc, outputs, mirrors, res))
+            in_flight.append(
+                pool.submit(_mc_block, compute, args, slice(start, stop), mc, outputs, mirrors, res)
+            )
             del args
             if len(in_flight) > 1:  # at most two blocks drawn and not yet summarised
                 in_flight.pop(0).result()
@@ -212,8 +235,13 @@ def _mc_bar(enabled: bool, total: int):
     from rich.console import Console
     from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
 
-    return Progress(TextColumn("{task.description}"), BarColumn(), TimeRemainingColumn(),
-                    console=Console(stderr=True), transient=True)
+    return Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        TimeRemainingColumn(),
+        console=Console(stderr=True),
+        transient=True,
+    )
 
 
 def _mc_block(compute, args, sl, mc, outputs, mirrors, res) -> None:

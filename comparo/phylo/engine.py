@@ -11,7 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from comparo.errors import InputError, Problem
+from comparo.base.errors import InputError, Problem
 from comparo.phylo.flat import FlatTree
 
 
@@ -37,7 +37,9 @@ class GLSQuantities:
     W: np.ndarray
 
 
-def gls_quantities(ft: FlatTree, Z: np.ndarray, edges: np.ndarray | None = None, *, diag_only: bool = False) -> GLSQuantities:
+def gls_quantities(
+    ft: FlatTree, Z: np.ndarray, edges: np.ndarray | None = None, *, diag_only: bool = False
+) -> GLSQuantities:
     """ln|V|, 1'V⁻¹1, 1'V⁻¹Z and Z'V⁻¹Z in one post-order pass, O(n·m²).
 
     V is the BM covariance of the tree whose edge lengths are *edges* (default:
@@ -76,9 +78,18 @@ def gls_quantities(ft: FlatTree, Z: np.ndarray, edges: np.ndarray | None = None,
     if np.any(~(tt > 0)):
         bad = [ft.tips[i] for i in np.flatnonzero(~(tt > 0))[:5]]
         raise InputError(
-            [Problem("error", "tree", None, None, bad[0], "tree-zero-tip",
-                     f"tip edge(s) of length 0 ({', '.join(bad)}): the tip variance is 0 and the covariance cannot be inverted this way",
-                     "give tip edges a positive length, use lambda < 1, or add measurement error")]
+            [
+                Problem(
+                    "error",
+                    "tree",
+                    None,
+                    None,
+                    bad[0],
+                    "tree-zero-tip",
+                    f"tip edge(s) of length 0 ({', '.join(bad)}): the tip variance is 0 and the covariance cannot be inverted this way",
+                    "give tip edges a positive length, use lambda < 1, or add measurement error",
+                )
+            ]
         )
     # W is symmetric: only its upper triangle (row-major) is carried, or only its diagonal
     iu, ju = (np.arange(m), np.arange(m)) if diag_only else np.triu_indices(m)
@@ -99,7 +110,7 @@ def gls_quantities(ft: FlatTree, Z: np.ndarray, edges: np.ndarray | None = None,
             qa = blk[:, 2 : 2 + m]
             c = (te / d)[:, None]
             blk[:, 2 + m :] -= c * (qa * qa if diag_only else qa[:, iu] * qa[:, ju])
-            blk[:, 1:2 + m] /= d[:, None]
+            blk[:, 1 : 2 + m] /= d[:, None]
         if k < len(bounds) - 2:
             starts, parents = ft.segments[k]
             S[parents] += np.add.reduceat(blk, starts, axis=0)

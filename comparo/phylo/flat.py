@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from comparo.errors import UsageError
+from comparo.base.errors import UsageError
 from comparo.phylo.trees import _as_topo, _Topo
 
 
@@ -114,7 +114,9 @@ def flat_tree(tree: Any, tips: Sequence[str] | None = None) -> FlatTree:
     return _flat(_as_topo(tree), tips)
 
 
-def _up(par: np.ndarray, w: np.ndarray, stop: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+def _up(
+    par: np.ndarray, w: np.ndarray, stop: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """For every node, its nearest proper ancestor in *stop* (-1 when none; every
     ancestor when *stop* is None means the search runs to the root, so -1) and the sum
     of *w* over the edges up to it, by pointer jumping: about log2(depth) numpy passes."""
@@ -210,7 +212,7 @@ def _flat(topo: _Topo, tips: Sequence[str] | None) -> FlatTree:
     by_level = np.argsort(level_a, kind="stable")
     pos = np.empty(r, dtype=np.int64)
     for k in range(top, -1, -1):
-        idx = by_level[bounds[k]:bounds[k + 1]]
+        idx = by_level[bounds[k] : bounds[k + 1]]
         if k < top:
             idx = idx[np.argsort(pos[rpar_a[idx]], kind="stable")]
         pos[idx] = np.arange(bounds[k], bounds[k + 1])
@@ -221,7 +223,7 @@ def _flat(topo: _Topo, tips: Sequence[str] | None) -> FlatTree:
     length[parent < 0] = 0.0
     segments = []
     for k in range(top + 1):
-        pa = parent[bounds[k]:bounds[k + 1]]
+        pa = parent[bounds[k] : bounds[k + 1]]
         starts = np.concatenate([[0], np.flatnonzero(np.diff(pa)) + 1]).astype(np.int64)
         segments.append((starts, pa[starts]))
     label_of = np.empty(m, dtype=object)

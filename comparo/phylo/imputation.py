@@ -21,8 +21,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.errors import UsageError
-from comparo.jsonsafe import finite_or_none as _f
+from comparo.base.errors import UsageError
+from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.phylo.flat import FlatTree, _flat, pagel_edges
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -97,8 +97,9 @@ def predict_tips(ft: FlatTree, y: np.ndarray, edges: np.ndarray | None = None) -
     if int(obs.sum()) < 2:
         raise UsageError("fewer than 2 tips have a value: nothing to predict from")
     if np.any(~(t[:n][obs] > 0)):
-        raise UsageError("a tip with a value has an edge of length 0: its variance is 0 "
-                         "(use lambda < 1)")
+        raise UsageError(
+            "a tip with a value has an edge of length 0: its variance is 0 (use lambda < 1)"
+        )
     S = np.zeros(N)  # precision from below, at each node
     I = np.zeros(N)  # noqa: E741 - information (precision x mean) from below
     u = np.zeros(N)  # precision sent up through the edge
@@ -219,14 +220,24 @@ class Imputation:
         for i, name in enumerate(self.taxa):
             obs = bool(self.observed[i])
             pi = None if obs else [_f(self.pi_low[i]), _f(self.pi_high[i])]
-            rows.append({"taxon": name, "observed": obs, "value": _f(self.value[i]),
-                         "log_value": _f(self.log_value[i]), "log_se": _f(self.log_se[i]),
-                         "pi": pi})
+            rows.append(
+                {
+                    "taxon": name,
+                    "observed": obs,
+                    "value": _f(self.value[i]),
+                    "log_value": _f(self.log_value[i]),
+                    "log_se": _f(self.log_se[i]),
+                    "pi": pi,
+                }
+            )
         return {
-            "quantity": self.quantity, "lambda": _f(self.lambda_), "with": [],
-            "n_observed": self.n_observed, "n_imputed": self.n_imputed, "taxa": rows,
-            "cross_validation": {"rmse_log": _f(self.rmse_log),
-                                 "coverage": _f(self.coverage)},
+            "quantity": self.quantity,
+            "lambda": _f(self.lambda_),
+            "with": [],
+            "n_observed": self.n_observed,
+            "n_imputed": self.n_imputed,
+            "taxa": rows,
+            "cross_validation": {"rmse_log": _f(self.rmse_log), "coverage": _f(self.coverage)},
         }
 
     def to_frame(self) -> pd.DataFrame:
@@ -234,12 +245,19 @@ class Imputation:
         leave-one-out prediction of the observed taxa (``loo_log_value``, ``loo_log_se``)."""
         import pandas as pd
 
-        return pd.DataFrame({
-            "taxon": list(self.taxa), "observed": self.observed, "value": self.value,
-            "log_value": self.log_value, "log_se": self.log_se, "pi_low": self.pi_low,
-            "pi_high": self.pi_high, "loo_log_value": self.loo_log_value,
-            "loo_log_se": self.loo_log_se,
-        })
+        return pd.DataFrame(
+            {
+                "taxon": list(self.taxa),
+                "observed": self.observed,
+                "value": self.value,
+                "log_value": self.log_value,
+                "log_se": self.log_se,
+                "pi_low": self.pi_low,
+                "pi_high": self.pi_high,
+                "loo_log_value": self.loo_log_value,
+                "loo_log_se": self.loo_log_se,
+            }
+        )
 
     def _notes(self) -> list[str]:
         ci = self.lambda_ci
@@ -249,7 +267,7 @@ class Imputation:
             f"BM rate sigma² = {self.sigma2:.4g} (REML, log10 units² per branch-length unit)",
             f"root (GLS) = {self.root_log_value:.4g} log10 {self.unit}",
             f"leave-one-out check over {self.n_observed} observed taxa: RMSE = {self.rmse_log:.3g} "
-            f"log10 units (a factor {10 ** self.rmse_log:.3g}),",
+            f"log10 units (a factor {10**self.rmse_log:.3g}),",
             f"  {100 * self.coverage:.1f}% inside their 95% interval (lambda and sigma² held "
             "at the full-data values)",
         ]
@@ -257,34 +275,43 @@ class Imputation:
         if without:
             shown = ", ".join(without[:10]) + (" ..." if len(without) > 10 else "")
             notes.append(f"{len(without)} taxa with a value have no tip (not used): {shown}")
-        notes.append("imputed values are predictions from relatives under Brownian motion, "
-                     "not measurements")
+        notes.append(
+            "imputed values are predictions from relatives under Brownian motion, not measurements"
+        )
         return notes
 
     def summary(self) -> str:
         """Text for people: the model, the cross-validation, then the imputed taxa."""
-        lines = [f"phylogenetic imputation of {self.quantity} ({self.unit}), log10 scale: "
-                 f"{self.n_observed} observed, {self.n_imputed} imputed"]
+        lines = [
+            f"phylogenetic imputation of {self.quantity} ({self.unit}), log10 scale: "
+            f"{self.n_observed} observed, {self.n_imputed} imputed"
+        ]
         lines += ["  " + s for s in self._notes()]
         imp = np.flatnonzero(~self.observed)
         if imp.size:
             w = max(len("taxon"), *(len(self.taxa[i]) for i in imp))
             lines.append("")
-            lines.append(f"  {'taxon':<{w}}  {'imputed':>11}  {'log10':>8}  {'SE':>7}  "
-                         "95% prediction interval")
+            lines.append(
+                f"  {'taxon':<{w}}  {'imputed':>11}  {'log10':>8}  {'SE':>7}  "
+                "95% prediction interval"
+            )
             for i in imp:
-                lines.append(f"  {self.taxa[i]:<{w}}  {self.value[i]:>11.4g}  "
-                             f"{self.log_value[i]:>8.4f}  {self.log_se[i]:>7.4f}  "
-                             f"[{self.pi_low[i]:.4g}, {self.pi_high[i]:.4g}]")
+                lines.append(
+                    f"  {self.taxa[i]:<{w}}  {self.value[i]:>11.4g}  "
+                    f"{self.log_value[i]:>8.4f}  {self.log_se[i]:>7.4f}  "
+                    f"[{self.pi_low[i]:.4g}, {self.pi_high[i]:.4g}]"
+                )
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from comparo.display import frame_html
+        from comparo.base.display import frame_html
 
         frame = self.to_frame()
         frame = frame[~frame["observed"]].drop(columns=["observed", "loo_log_value", "loo_log_se"])
-        title = (f"Phylogenetic imputation of {self.quantity} ({self.unit}): "
-                 f"{self.n_observed} observed, {self.n_imputed} imputed")
+        title = (
+            f"Phylogenetic imputation of {self.quantity} ({self.unit}): "
+            f"{self.n_observed} observed, {self.n_imputed} imputed"
+        )
         return frame_html(title, frame, self._notes())
 
 
@@ -310,9 +337,9 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
     the engine), ``root_passes`` (the same from the passes), ``t`` (the
     Student t quantile of the 95% intervals, n_observed - 1 degrees of freedom).
     """
+    from comparo.base.quantiles import t_quantile
     from comparo.phylo.likelihood import _fit_lambda
     from comparo.phylo.trees import _as_topo
-    from comparo.quantiles import t_quantile
 
     lam_arg = _lambda_arg(lambda_)
     topo = _as_topo(tree)
@@ -325,8 +352,9 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
     obs = np.isfinite(y)
     n_o = int(obs.sum())
     if n_o < MIN_OBSERVED:
-        raise UsageError(f"{n_o} taxa with a value are on the tree; imputation needs at least "
-                         f"{MIN_OBSERVED}")
+        raise UsageError(
+            f"{n_o} taxa with a value are on the tree; imputation needs at least {MIN_OBSERVED}"
+        )
     observed = [ft.tips[i] for i in np.flatnonzero(obs)]
     fo = _observed_tree(topo, ft, observed)
     yo = y[ft.index(fo.tips)]
@@ -337,10 +365,18 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
     se = np.sqrt(s2 * pred.var)
     log_value = np.where(obs, y, pred.mean)
     return {
-        "tips": ft.tips, "observed": obs, "log_value": log_value,
-        "log_se": np.where(obs, np.nan, se), "loo_log_value": np.where(obs, pred.mean, np.nan),
-        "loo_log_se": np.where(obs, se, np.nan), "lambda": lam, "lambda_estimated": lam_arg == "ml",
-        "lambda_ci": lf.ci, "sigma2": s2, "root": mu, "root_passes": pred.root_mean,
+        "tips": ft.tips,
+        "observed": obs,
+        "log_value": log_value,
+        "log_se": np.where(obs, np.nan, se),
+        "loo_log_value": np.where(obs, pred.mean, np.nan),
+        "loo_log_se": np.where(obs, se, np.nan),
+        "lambda": lam,
+        "lambda_estimated": lam_arg == "ml",
+        "lambda_ci": lf.ci,
+        "sigma2": s2,
+        "root": mu,
+        "root_passes": pred.root_mean,
         "t": t_quantile(n_o - 1, 0.5 + PI_LEVEL / 2),
     }
 
@@ -370,20 +406,24 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
         Unknown or non-positive quantity, no tree, fewer than :data:`MIN_OBSERVED`
         observed taxa on the tree.
     """
-    from comparo.curate import per_taxon
-    from comparo.dataset import load
+    from comparo.curation.harmonise import per_taxon
     from comparo.phylo.tips import _match, dataset_tree_labels
     from comparo.phylo.trees import _as_topo
+    from comparo.validation.dataset import load
 
     ds = load(dataset) if isinstance(dataset, str | Path) else dataset
     cat = ds.catalog
     if y not in cat:
-        raise UsageError(f"unknown quantity {y!r}: not in the catalogue (schema/quantities.toml "
-                         "or the dataset's comparo.toml)")
+        raise UsageError(
+            f"unknown quantity {y!r}: not in the catalogue (schema/quantities.toml "
+            "or the dataset's comparo.toml)"
+        )
     entry = cat[y]
     if entry.range is not None and entry.range[0] < 0:
-        raise UsageError(f"{y} can be negative (catalogue range {list(entry.range)}): "
-                         "imputation works on log10 values and needs a positive quantity")
+        raise UsageError(
+            f"{y} can be negative (catalogue range {list(entry.range)}): "
+            "imputation works on log10 values and needs a positive quantity"
+        )
     if ds.tree is None:
         raise UsageError("imputation needs a tree: put tree.nwk in the dataset folder")
     table = per_taxon(ds)
@@ -394,8 +434,10 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
     bad = vals[vals[y] <= 0]
     if len(bad):
         shown = ", ".join(f"{t} ({v:g})" for t, v in zip(bad["taxon"][:5], bad[y][:5], strict=True))
-        raise UsageError(f"{y} has values <= 0 ({shown}): imputation works on log10 values "
-                         "and needs positive values")
+        raise UsageError(
+            f"{y} has values <= 0 ({shown}): imputation works on log10 values "
+            "and needs positive values"
+        )
     topo = _as_topo(ds.tree)
     labels = dataset_tree_labels(ds.taxa, topo.tips)
     match = _match(topo, sorted(set(table["taxon"].astype(str).tolist())), labels)
@@ -423,7 +465,7 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
         meas_se = np.where(u > 0, u / (given * math.log(10)), np.nan)
     se = np.where(obs, meas_se, r["log_se"][idx])
     tq = r["t"]
-    value = np.where(obs, given, 10.0 ** lv)
+    value = np.where(obs, given, 10.0**lv)
     lo = np.where(obs, np.nan, 10.0 ** (lv - tq * se))
     hi = np.where(obs, np.nan, 10.0 ** (lv + tq * se))
     loo, loo_se = r["loo_log_value"][idx], r["loo_log_se"][idx]
@@ -431,7 +473,23 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
     rmse = float(np.sqrt(np.mean(resid**2)))
     coverage = float(np.mean(np.abs(resid) <= tq * loo_se[obs]))
     return Imputation(
-        y, entry.unit, r["lambda"], r["lambda_estimated"], r["lambda_ci"], r["sigma2"], r["root"],
+        y,
+        entry.unit,
+        r["lambda"],
+        r["lambda_estimated"],
+        r["lambda_ci"],
+        r["sigma2"],
+        r["root"],
         tuple(names),
-        obs, lv, se, value, lo, hi, loo, loo_se, rmse, coverage, without,
+        obs,
+        lv,
+        se,
+        value,
+        lo,
+        hi,
+        loo,
+        loo_se,
+        rmse,
+        coverage,
+        without,
     )

@@ -12,9 +12,9 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.errors import InputError, Problem, UsageError
-from comparo.jsonsafe import finite_list as _fl
-from comparo.jsonsafe import finite_or_none as _f
+from comparo.base.errors import InputError, Problem, UsageError
+from comparo.base.jsonsafe import finite_list as _fl
+from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.phylo.flat import FlatTree, _flat
 from comparo.phylo.tips import TipMatch, _match
 from comparo.phylo.trees import _as_topo
@@ -23,14 +23,21 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
 
-def _values_on_tree(tree: Any, values: Mapping[str, float]) -> tuple[FlatTree, np.ndarray, TipMatch, list[str], list[str]]:
+def _values_on_tree(
+    tree: Any, values: Mapping[str, float]
+) -> tuple[FlatTree, np.ndarray, TipMatch, list[str], list[str]]:
     """Flat tree pruned to the tips with finite values; the values in tip order; the
     match; labels with non-finite values; pruned tips."""
     import pandas as pd
 
-    from comparo.bounds import check_kind
+    from comparo.base.arguments import check_kind
 
-    check_kind(values, (Mapping, pd.Series), "values", "a mapping of tip label to value (a dict or a pandas Series)")
+    check_kind(
+        values,
+        (Mapping, pd.Series),
+        "values",
+        "a mapping of tip label to value (a dict or a pandas Series)",
+    )
     topo = _as_topo(tree)
     labels = [str(k) for k in values]
     vals = {str(k): float(v) for k, v in values.items()}
@@ -88,15 +95,23 @@ class Contrasts:
     def to_frame(self) -> pd.DataFrame:
         import pandas as pd
 
-        return pd.DataFrame({"contrast": self.contrasts, "sd": self.sd, "node_height": self.node_height})
+        return pd.DataFrame(
+            {"contrast": self.contrasts, "sd": self.sd, "node_height": self.node_height}
+        )
 
     def to_dict(self) -> dict:
         return {
-            "contrasts": _fl(self.contrasts), "sd": _fl(self.sd), "node_height": _fl(self.node_height),
-            "root_value": _f(self.root_value), "root_variance": _f(self.root_variance),
-            "r_abs_sd": _f(self.r_abs_sd), "p_abs_sd": _f(self.p_abs_sd),
-            "r_abs_height": _f(self.r_abs_height), "p_abs_height": _f(self.p_abs_height),
-            "tips_used": list(self.tips_used), "taxa_without_tips": list(self.taxa_without_tips),
+            "contrasts": _fl(self.contrasts),
+            "sd": _fl(self.sd),
+            "node_height": _fl(self.node_height),
+            "root_value": _f(self.root_value),
+            "root_variance": _f(self.root_variance),
+            "r_abs_sd": _f(self.r_abs_sd),
+            "p_abs_sd": _f(self.p_abs_sd),
+            "r_abs_height": _f(self.r_abs_height),
+            "p_abs_height": _f(self.p_abs_height),
+            "tips_used": list(self.tips_used),
+            "taxa_without_tips": list(self.taxa_without_tips),
             "tips_pruned": list(self.tips_pruned),
         }
 
@@ -104,7 +119,11 @@ class Contrasts:
         lines = [
             f"{self.contrasts.size} standardised contrasts; root value {self.root_value:.6g}",
             f"|contrast| vs sd: r = {self.r_abs_sd:.3f} (p = {self.p_abs_sd:.3g})"
-            + ("  <- contrasts not well standardised; consider transforming branch lengths" if self.p_abs_sd < 0.05 else ""),
+            + (
+                "  <- contrasts not well standardised; consider transforming branch lengths"
+                if self.p_abs_sd < 0.05
+                else ""
+            ),
             f"|contrast| vs node height: r = {self.r_abs_height:.3f} (p = {self.p_abs_height:.3g})",
         ]
         if self.taxa_without_tips:
@@ -167,8 +186,19 @@ def contrasts(tree: Any, values: Mapping[str, float]) -> Contrasts:
             x2, v2 = val[c], ft.length[c] + ext[c]
             s = v1 + v2
             if s <= 0:
-                raise InputError([Problem("error", "tree", None, None, None, "tree-zero-contrast",
-                                          "two sister lineages with total length 0: a contrast is undefined")])
+                raise InputError(
+                    [
+                        Problem(
+                            "error",
+                            "tree",
+                            None,
+                            None,
+                            None,
+                            "tree-zero-contrast",
+                            "two sister lineages with total length 0: a contrast is undefined",
+                        )
+                    ]
+                )
             u_list.append((x1 - x2) / math.sqrt(s))
             sd_list.append(math.sqrt(s))
             h_list.append(tmax - float(ft.root_dist[k]))
@@ -182,6 +212,16 @@ def contrasts(tree: Any, values: Mapping[str, float]) -> Contrasts:
     r1, p1 = _pearson(np.abs(u), sd)
     r2, p2 = _pearson(np.abs(u), h)
     return Contrasts(
-        u, sd, h, float(val[N - 1]), float(ext[N - 1]), r1, p1, r2, p2,
-        tuple(ft.tips), tuple(match.taxa_without_tips) + tuple(missing), tuple(pruned),
+        u,
+        sd,
+        h,
+        float(val[N - 1]),
+        float(ext[N - 1]),
+        r1,
+        p1,
+        r2,
+        p2,
+        tuple(ft.tips),
+        tuple(match.taxa_without_tips) + tuple(missing),
+        tuple(pruned),
     )

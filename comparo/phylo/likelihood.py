@@ -15,8 +15,8 @@ from typing import Any
 
 import numpy as np
 
-from comparo.errors import UsageError
-from comparo.jsonsafe import finite_or_none as _f
+from comparo.base.errors import UsageError
+from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.phylo.engine import GLSQuantities, gls_quantities
 from comparo.phylo.flat import FlatTree, pagel_edges
 
@@ -55,12 +55,18 @@ def _gls_fixed(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float) -> _Gls:
     s2_r = rss / (n - p) if n > p else math.nan
     tiny = 1e-300
     ll_ml = -0.5 * (n * math.log(2 * math.pi * max(s2_ml, tiny)) + gq.logdet + n)
-    ll_r = -0.5 * ((n - p) * math.log(2 * math.pi * max(s2_r, tiny)) + gq.logdet + ldx + (n - p)) if n > p else math.nan
+    ll_r = (
+        -0.5 * ((n - p) * math.log(2 * math.pi * max(s2_r, tiny)) + gq.logdet + ldx + (n - p))
+        if n > p
+        else math.nan
+    )
     cov = s2_r * np.linalg.inv(XtX)
     return _Gls(beta, cov, rss, rss_null, s2_r, ll_ml, ll_r, gq.logdet)
 
 
-def _gls_me(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, s2: float, se2: np.ndarray) -> _Gls:
+def _gls_me(
+    ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, s2: float, se2: np.ndarray
+) -> _Gls:
     """GLS with V = sigma²·C(lambda) + diag(se²) at a given sigma² (Ives et al. 2007)."""
     n, p = X.shape
     e = s2 * pagel_edges(ft, lam)
@@ -72,7 +78,9 @@ def _gls_me(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, s2: float, s
     return _Gls(beta, np.linalg.inv(XtX), rss, rss_null, s2, ll_ml, ll_r, gq.logdet)
 
 
-def _gls(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, se2: np.ndarray | None, reml: bool) -> _Gls:
+def _gls(
+    ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, se2: np.ndarray | None, reml: bool
+) -> _Gls:
     """GLS at lambda; with measurement error, sigma² maximises the (RE)ML likelihood."""
     if se2 is None or not np.any(se2 > 0):
         return _gls_fixed(ft, X, y, lam)
@@ -109,7 +117,15 @@ class _LambdaFit:
 LAMBDA_XTOL = 1e-6
 
 
-def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: np.ndarray | None, reml: bool, ci: float) -> _LambdaFit:
+def _fit_lambda(
+    ft: FlatTree,
+    X: np.ndarray,
+    y: np.ndarray,
+    lambda_: Any,
+    se2: np.ndarray | None,
+    reml: bool,
+    ci: float,
+) -> _LambdaFit:
     """Pagel's lambda: fixed, or maximising the (RE)ML profile likelihood on [0, 1]
     (a grid of 11 points, then a bounded Brent refinement around the best, to
     :data:`LAMBDA_XTOL`), with the profile CI {lambda: 2(l_max - l(lambda)) <= chi²_1(ci)}
@@ -120,7 +136,9 @@ def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: n
         try:
             lam = float(lambda_)
         except (TypeError, ValueError):
-            raise UsageError(f"--lambda must be 'ml' or a number in [0, 1], got {lambda_!r}") from None
+            raise UsageError(
+                f"--lambda must be 'ml' or a number in [0, 1], got {lambda_!r}"
+            ) from None
         if not 0.0 <= lam <= 1.0:
             raise UsageError(f"--lambda must be in [0, 1], got {lam}")
         g = _gls(ft, X, y, lam, se2, reml)
@@ -148,7 +166,9 @@ def _fit_lambda(ft: FlatTree, X: np.ndarray, y: np.ndarray, lambda_: Any, se2: n
     lam_hat, ll_max = _maximise(ll, grid, vals)
     crit = NormalDist().inv_cdf(0.5 + ci / 2.0) ** 2  # chi²_1(ci)
     lower, upper = _profile_limits(ll, grid, sorted(cache), lam_hat, ll_max, crit, top)
-    return _LambdaFit(lam_hat, (float(lower), float(upper)), ll_max, ll(0.0), ll(top), fit_at(lam_hat), top)
+    return _LambdaFit(
+        lam_hat, (float(lower), float(upper)), ll_max, ll(0.0), ll(top), fit_at(lam_hat), top
+    )
 
 
 def _maximise(ll, grid: np.ndarray, vals: np.ndarray) -> tuple[float, float]:
@@ -175,8 +195,9 @@ def _maximise(ll, grid: np.ndarray, vals: np.ndarray) -> tuple[float, float]:
     return max([(float(x), ll(float(x))), best], key=lambda t: t[1])
 
 
-def _profile_limits(ll, grid: np.ndarray, seen: list[float], lam_hat: float, ll_max: float, crit: float,
-                    top: float) -> tuple[float, float]:
+def _profile_limits(
+    ll, grid: np.ndarray, seen: list[float], lam_hat: float, ll_max: float, crit: float, top: float
+) -> tuple[float, float]:
     """Ends of the profile interval: on each side of *lam_hat*, the root of
     g = 2(l_max - l) - crit between the nearest grid point outside the region (g > 0)
     and the next grid point inwards, bracketed as tightly as the lambdas already
@@ -191,11 +212,15 @@ def _profile_limits(ll, grid: np.ndarray, seen: list[float], lam_hat: float, ll_
         if g(inner) >= 0:
             return inner
         d = 1.0 if inner > out else -1.0  # the direction from out to inner
-        between = sorted((v for v in seen if min(out, inner) < v < max(out, inner)), key=lambda v: d * v)
+        between = sorted(
+            (v for v in seen if min(out, inner) < v < max(out, inner)), key=lambda v: d * v
+        )
         for v in between:  # the known point outside the region nearest to inner
             if g(v) > 0:
                 out = v
-        inner = next((v for v in between if d * v > d * out and g(v) <= 0), inner)  # then the nearest inside
+        inner = next(
+            (v for v in between if d * v > d * out and g(v) <= 0), inner
+        )  # then the nearest inside
         a, b = sorted((out, inner))
         return root_bracketed(g, a, b, LAMBDA_XTOL, g(a), g(b))
 

@@ -21,8 +21,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.errors import UsageError
-from comparo.jsonsafe import finite_or_none as _f
+from comparo.base.errors import UsageError
+from comparo.base.jsonsafe import finite_or_none as _f
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -42,13 +42,14 @@ RANGE_LEVEL = 0.95
 def threshold(n: int, alpha: float = ALPHA) -> float:
     """|z| above which one of *n* observed values is flagged: the Student t quantile with
     n - 2 degrees of freedom at 1 - alpha/(2n) (two-sided Bonferroni over n tests)."""
-    from comparo.quantiles import t_quantile
+    from comparo.base.quantiles import t_quantile
 
     return t_quantile(n - 2, 1.0 - alpha / (2.0 * n))
 
 
-def loo_z(tree: Any, log_values: dict[str, float], lambda_: Any = "ml", *,
-          alpha: float = ALPHA) -> dict:
+def loo_z(
+    tree: Any, log_values: dict[str, float], lambda_: Any = "ml", *, alpha: float = ALPHA
+) -> dict:
     """Leave-one-out z of every observed tip: (y - ŷ₋ᵢ) / (σ̂₋ᵢ·√vᵢ).
 
     ŷ₋ᵢ and vᵢ (the prediction and its variance for a unit rate, root estimated by GLS)
@@ -62,11 +63,14 @@ def loo_z(tree: Any, log_values: dict[str, float], lambda_: Any = "ml", *,
     ``pred`` (ŷ₋ᵢ), ``se`` (σ̂₋ᵢ·√vᵢ), ``z``; and ``n``, ``lambda``, ``sigma2`` (full data),
     ``threshold`` (:func:`threshold`), ``t_range`` (the t quantile of the predicted range).
     """
-    from comparo.quantiles import t_quantile
+    from comparo.base.quantiles import t_quantile
 
     r = _loo(tree, log_values, lambda_)
-    return {**r, "threshold": threshold(r["n"], alpha),
-            "t_range": t_quantile(r["n"] - 2, 0.5 + RANGE_LEVEL / 2)}
+    return {
+        **r,
+        "threshold": threshold(r["n"], alpha),
+        "t_range": t_quantile(r["n"] - 2, 0.5 + RANGE_LEVEL / 2),
+    }
 
 
 def _loo(tree: Any, log_values: dict[str, float], lambda_: Any) -> dict:
@@ -85,8 +89,16 @@ def _loo(tree: Any, log_values: dict[str, float], lambda_: Any) -> dict:
         se = se_full * np.sqrt(shrink)
         z = (y - pred) / se
     tips = [r["tips"][i] for i in np.flatnonzero(obs)]
-    return {"tips": tips, "y": y, "pred": pred, "se": se, "z": z, "n": n,
-            "lambda": r["lambda"], "sigma2": r["sigma2"]}
+    return {
+        "tips": tips,
+        "y": y,
+        "pred": pred,
+        "se": se,
+        "z": z,
+        "n": n,
+        "lambda": r["lambda"],
+        "sigma2": r["sigma2"],
+    }
 
 
 def _flagged(z: np.ndarray, n: int, alpha: float) -> tuple[np.ndarray, float]:
@@ -131,8 +143,12 @@ class PhyloCheck:
     note: str = ""
 
     def to_dict(self) -> dict[str, Any]:
-        return {"phylo_outliers": self.outliers, "phylo_checked": self.checked,
-                "phylo_skipped": self.skipped, "phylo_note": self.note}
+        return {
+            "phylo_outliers": self.outliers,
+            "phylo_checked": self.checked,
+            "phylo_skipped": self.skipped,
+            "phylo_note": self.note,
+        }
 
 
 #: Powers of ten tried by :func:`hint`, most typical unit slips first (10^3: g for kg,
@@ -147,13 +163,21 @@ def hint(value: float, low: float, high: float) -> str:
         for sign in (1, -1):
             if low <= value / 10.0 ** (sign * p) <= high:
                 how = "divided" if sign > 0 else "multiplied"
-                return (f"{how} by 10^{p} it would lie in the predicted range: a unit slip "
-                        "(g under a kg header, mm under m)? else check the source")
+                return (
+                    f"{how} by 10^{p} it would lie in the predicted range: a unit slip "
+                    "(g under a kg header, mm under m)? else check the source"
+                )
     return "a typing slip, another muscle or preparation, or a real oddity: check the source"
 
 
-def phylo_outliers(ds: Any, table: pd.DataFrame | None = None, *, alpha: float = ALPHA,
-                   harmonised: Any = None, temperature: bool = True) -> PhyloCheck:
+def phylo_outliers(
+    ds: Any,
+    table: pd.DataFrame | None = None,
+    *,
+    alpha: float = ALPHA,
+    harmonised: Any = None,
+    temperature: bool = True,
+) -> PhyloCheck:
     """Check every positive quantity with at least :data:`MIN_CHECKED` observed taxa on the
     dataset's tree against what relatives predict (:func:`loo_z`, lambda by ML).
 
@@ -170,16 +194,16 @@ def phylo_outliers(ds: Any, table: pd.DataFrame | None = None, *, alpha: float =
     """
     if ds.tree is None:
         return PhyloCheck(note="no tree (tree.nwk): values are not checked against relatives")
-    from comparo.curate import per_taxon
+    from comparo.base.quantiles import t_quantile
+    from comparo.curation.harmonise import per_taxon
     from comparo.phylo.tips import _match, dataset_tree_labels
     from comparo.phylo.trees import _as_topo
-    from comparo.quantiles import t_quantile
 
     skipped: dict[str, str] = {}
     if table is None:
         from dataclasses import replace
 
-        from comparo.curate import harmonise
+        from comparo.curation.harmonise import harmonise
 
         h = harmonised or harmonise(ds, temperature=temperature)
         used = h.rows[h.rows["status"] == "used"]
@@ -229,17 +253,30 @@ def phylo_outliers(ds: Any, table: pd.DataFrame | None = None, *, alpha: float =
             i = row_of[r["tips"][j]]
             pred, half = r["pred"][j], t_range * r["se"][j]
             obs_ids = [s for s in str(ids[i]).split(";") if s] if ids is not None else []
-            flagged.append({
-                "taxon": str(taxa[i]), "quantity": q, "unit": entry.unit, "value": float(v[i]),
-                "predicted": float(10.0**pred),
-                "range": [float(10.0 ** (pred - half)), float(10.0 ** (pred + half))],
-                "ratio": float(v[i] / 10.0**pred), "z": float(r["z"][j]), "threshold": cut,
-                "obs_ids": obs_ids,
-            })
+            flagged.append(
+                {
+                    "taxon": str(taxa[i]),
+                    "quantity": q,
+                    "unit": entry.unit,
+                    "value": float(v[i]),
+                    "predicted": float(10.0**pred),
+                    "range": [float(10.0 ** (pred - half)), float(10.0 ** (pred + half))],
+                    "ratio": float(v[i] / 10.0**pred),
+                    "z": float(r["z"][j]),
+                    "threshold": cut,
+                    "obs_ids": obs_ids,
+                }
+            )
     flagged.sort(key=lambda f: (f["quantity"], -abs(f["z"])))
-    outliers = [{"obs_id": o, "taxon": f["taxon"], "quantity": f["quantity"], "z": _f(f["z"])}
-                for f in flagged for o in f["obs_ids"]]
-    note = (f"checked against relatives on the tree: {len(checked)} quantities (leave-one-out, "
-            f"Bonferroni at {alpha:g} per quantity); not checked: {len(skipped)}" if checked else
-            f"no quantity has {MIN_CHECKED} or more observed taxa on the tree: nothing checked")
+    outliers = [
+        {"obs_id": o, "taxon": f["taxon"], "quantity": f["quantity"], "z": _f(f["z"])}
+        for f in flagged
+        for o in f["obs_ids"]
+    ]
+    note = (
+        f"checked against relatives on the tree: {len(checked)} quantities (leave-one-out, "
+        f"Bonferroni at {alpha:g} per quantity); not checked: {len(skipped)}"
+        if checked
+        else f"no quantity has {MIN_CHECKED} or more observed taxa on the tree: nothing checked"
+    )
     return PhyloCheck(outliers, flagged, checked, skipped, note)

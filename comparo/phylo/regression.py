@@ -12,8 +12,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.errors import InputError, Problem, UsageError
-from comparo.jsonsafe import finite_or_none as _f
+from comparo.base.errors import InputError, Problem, UsageError
+from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.phylo.flat import FlatTree, _flat
 from comparo.phylo.likelihood import _fit_lambda, _Gls, _gls, _lr
 from comparo.phylo.tips import _match
@@ -137,8 +137,10 @@ def phylo_fit(
     n = len(keep)
     need = 3 if by is None else 2 * len({groups_of[i] for i in keep}) + 1
     if n < need:
-        raise UsageError(f"PGLS needs at least {need} taxa with x, y and a tip in the tree; {n} remain "
-                         f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in all)")
+        raise UsageError(
+            f"PGLS needs at least {need} taxa with x, y and a tip in the tree; {n} remain "
+            f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in all)"
+        )
     ft, keep, pruned = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     keep_labels = [labels[i] for i in keep]
     X1 = _transform(xv[keep], log)
@@ -149,10 +151,21 @@ def phylo_fit(
     line, extras = _line_keys(lf, n, ci, against)
     groups = group_tests = None
     if by is not None:
-        groups, group_tests = _group_fit(ft, X1, Y, [groups_of[i] for i in keep], lambda_, se2, reml, ci)
+        groups, group_tests = _group_fit(
+            ft, X1, Y, [groups_of[i] for i in keep], lambda_, se2, reml, ci
+        )
     return {
-        "method": "pgls", "x": x, "y": y, "log": log, "n": n, **line, "groups": groups, "outliers": [],
-        "excluded": excluded, "breakpoint": None, "sensitivity": None,
+        "method": "pgls",
+        "x": x,
+        "y": y,
+        "log": log,
+        "n": n,
+        **line,
+        "groups": groups,
+        "outliers": [],
+        "excluded": excluded,
+        "breakpoint": None,
+        "sensitivity": None,
         **extras,
         "likelihood": "REML" if reml else "ML",
         "loglik_convention": _CONVENTION[bool(reml)],
@@ -186,7 +199,13 @@ def _line_keys(lf, n: int, ci: float, against: float | None) -> tuple[dict, dict
     ts = None
     if against is not None:
         stat = (b1 - float(against)) / se_b[1]
-        ts = {"value": float(against), "statistic": _f(stat), "test": "t", "df": int(df), "p": _f(2.0 * stdtr(df, -abs(stat)))}
+        ts = {
+            "value": float(against),
+            "statistic": _f(stat),
+            "test": "t",
+            "df": int(df),
+            "p": _f(2.0 * stdtr(df, -abs(stat))),
+        }
     r2 = 1.0 - g.rss / g.rss_null if g.rss_null > 0 else math.nan
     line = {
         "slope": _f(b1),
@@ -200,14 +219,20 @@ def _line_keys(lf, n: int, ci: float, against: float | None) -> tuple[dict, dict
         "lambda_ci": None if lf.ci is None else [_f(lf.ci[0]), _f(lf.ci[1])],
         "loglik": _f(lf.loglik),
     }
-    extras = {"slope_se": _f(se_b[1]), "intercept_se": _f(se_b[0]), "sigma2": _f(g.sigma2), "df": df}
+    extras = {
+        "slope_se": _f(se_b[1]),
+        "intercept_se": _f(se_b[0]),
+        "sigma2": _f(g.sigma2),
+        "df": df,
+    }
     return line, extras
 
 
-
-def _check_options(table: pd.DataFrame, x: str, y: str, log: Any, ci: float, taxon_col: str, by: str | None) -> str:
+def _check_options(
+    table: pd.DataFrame, x: str, y: str, log: Any, ci: float, taxon_col: str, by: str | None
+) -> str:
     """Log base, confidence level and the columns named; returns the log base as text."""
-    from comparo.bounds import check_level, check_name, check_table
+    from comparo.base.arguments import check_level, check_name, check_table
 
     check_table(table)
     for value, name in ((x, "x"), (y, "y"), (taxon_col, "taxon_col")):
@@ -221,11 +246,15 @@ def _check_options(table: pd.DataFrame, x: str, y: str, log: Any, ci: float, tax
         raise UsageError(f"ci must be in (0, 1), got {ci}")
     for col in [taxon_col, x, y] + ([by] if by else []):
         if col not in table.columns:
-            raise UsageError(f"column {col!r} not in the table (columns: {', '.join(map(str, table.columns))})")
+            raise UsageError(
+                f"column {col!r} not in the table (columns: {', '.join(map(str, table.columns))})"
+            )
     return log
 
 
-def _tip_se_source(table: pd.DataFrame, y: str, tip_se: Any) -> tuple[str | None, Mapping[str, float] | None]:
+def _tip_se_source(
+    table: pd.DataFrame, y: str, tip_se: Any
+) -> tuple[str | None, Mapping[str, float] | None]:
     """Where the tip standard uncertainties come from: a column, or a mapping label -> value."""
     se_col = None
     se_map: Mapping[str, float] | None = None
@@ -240,8 +269,17 @@ def _tip_se_source(table: pd.DataFrame, y: str, tip_se: Any) -> tuple[str | None
     return se_col, se_map
 
 
-def _usable_rows(table, labels: list[str], xv: np.ndarray, yv: np.ndarray, x: str, y: str, log: str,
-                 by: str | None, tip_of: Mapping[str, str]) -> tuple[list[int], list[dict], np.ndarray | None]:
+def _usable_rows(
+    table,
+    labels: list[str],
+    xv: np.ndarray,
+    yv: np.ndarray,
+    x: str,
+    y: str,
+    log: str,
+    by: str | None,
+    tip_of: Mapping[str, str],
+) -> tuple[list[int], list[dict], np.ndarray | None]:
     """Rows with x, y (positive under a log), a group and a tip; the others with reasons.
 
     A group with a single usable taxon is excluded too (named in the reason)."""
@@ -273,13 +311,22 @@ def _usable_rows(table, labels: list[str], xv: np.ndarray, yv: np.ndarray, x: st
     small = {g for g, c in counts.items() if c < 2}
     if small:
         for i in [i for i in keep if gcol[i] in small]:
-            excluded.append({"label": labels[i], "reason": f"only taxon of group {gcol[i]!r} in {by}"})
+            excluded.append(
+                {"label": labels[i], "reason": f"only taxon of group {gcol[i]!r} in {by}"}
+            )
         keep = [i for i in keep if gcol[i] not in small]
     return keep, excluded, gcol
 
 
-def _measurement_error(table, keep: list[int], keep_labels: list[str], yv: np.ndarray, log: str,
-                       se_col: str | None, se_map: Mapping[str, float] | None) -> tuple[np.ndarray | None, dict | None]:
+def _measurement_error(
+    table,
+    keep: list[int],
+    keep_labels: list[str],
+    yv: np.ndarray,
+    log: str,
+    se_col: str | None,
+    se_map: Mapping[str, float] | None,
+) -> tuple[np.ndarray | None, dict | None]:
     """Tip variances on the fitted scale (se²) and their account, or (None, None) without tip errors."""
     if se_col is None and se_map is None:
         return None, None
@@ -289,25 +336,54 @@ def _measurement_error(table, keep: list[int], keep_labels: list[str], yv: np.nd
         u = np.array([float(se_map.get(lab, math.nan)) for lab in keep_labels])
     if np.any(u < 0):
         bad = [keep_labels[i] for i in np.flatnonzero(u < 0)]
-        raise InputError([Problem("error", "table", None, se_col, bad[0], "se-negative", f"negative standard uncertainty for {', '.join(bad[:5])}")])
+        raise InputError(
+            [
+                Problem(
+                    "error",
+                    "table",
+                    None,
+                    se_col,
+                    bad[0],
+                    "se-negative",
+                    f"negative standard uncertainty for {', '.join(bad[:5])}",
+                )
+            ]
+        )
     missing_se = [keep_labels[i] for i in np.flatnonzero(~np.isfinite(u))]
     u = np.where(np.isfinite(u), u, 0.0)
     se2 = _se_on_scale(u, yv[keep], log) ** 2
-    return se2, {"source": se_col if se_col else "mapping", "tips_with_error": int(np.sum(se2 > 0)), "missing_set_to_zero": missing_se}
+    return se2, {
+        "source": se_col if se_col else "mapping",
+        "tips_with_error": int(np.sum(se2 > 0)),
+        "missing_set_to_zero": missing_se,
+    }
 
 
 def _lambda_tests(lf) -> dict | None:
     """Likelihood-ratio tests of lambda = 0 and 1 (None when lambda was fixed)."""
     if lf.ll0 is None:
         return None
-    return {"lambda_0": _lr(lf.loglik, lf.ll0), "lambda_1": _lr(lf.loglik, lf.ll1),
-            "null_distribution": "chi2(1); conservative on the boundary of [0, 1]",
-            "search_interval": [0.0, lf.top],
-            "note": None if lf.top == 1.0 else
-            "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is evaluated there"}
+    return {
+        "lambda_0": _lr(lf.loglik, lf.ll0),
+        "lambda_1": _lr(lf.loglik, lf.ll1),
+        "null_distribution": "chi2(1); conservative on the boundary of [0, 1]",
+        "search_interval": [0.0, lf.top],
+        "note": None
+        if lf.top == 1.0
+        else "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is evaluated there",
+    }
 
 
-def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lambda_: Any, se2: np.ndarray | None, reml: bool, ci: float) -> tuple[list, dict]:
+def _group_fit(
+    ft: FlatTree,
+    X1: np.ndarray,
+    Y: np.ndarray,
+    grp: list[str],
+    lambda_: Any,
+    se2: np.ndarray | None,
+    reml: bool,
+    ci: float,
+) -> tuple[list, dict]:
     """Interaction model Y ~ group + group:X (lambda estimated in it); F tests of
     equal slopes (interaction) and, in the common-slope model, of equal elevations.
     With V fixed at the fitted lambda each F is the extra-sum-of-squares (Wald) F."""
@@ -344,11 +420,16 @@ def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lamb
     for j, lv in enumerate(levels):
         bi, bs = full.beta[j], full.beta[G + j]
         si, ss = math.sqrt(full.cov[j, j]), math.sqrt(full.cov[G + j, G + j])
-        rows.append({
-            "group": lv, "n": int(D[:, j].sum()),
-            "slope": _f(bs), "slope_ci": [_f(bs - tq * ss), _f(bs + tq * ss)],
-            "intercept": _f(bi), "intercept_ci": [_f(bi - tq * si), _f(bi + tq * si)],
-        })
+        rows.append(
+            {
+                "group": lv,
+                "n": int(D[:, j].sum()),
+                "slope": _f(bs),
+                "slope_ci": [_f(bs - tq * ss), _f(bs + tq * ss)],
+                "intercept": _f(bi),
+                "intercept_ci": [_f(bi - tq * si), _f(bi + tq * si)],
+            }
+        )
     slope_pairs = [(G + j, G + j + 1) for j in range(G - 1)]
     elev_pairs = [(j, j + 1) for j in range(G - 1)]
     tq_add = float(stdtrit(n - G - 1, 0.5 + ci / 2.0))
@@ -358,11 +439,18 @@ def _group_fit(ft: FlatTree, X1: np.ndarray, Y: np.ndarray, grp: list[str], lamb
     elev = ftest(pooled, add, G - 1, n - G - 1, elev_pairs)
     tests = {
         "common_slope": {
-            "slope": _f(sc), "slope_ci": [_f(sc - tq_add * sc_se), _f(sc + tq_add * sc_se)],
-            "test": "F (interaction)", "statistic": slopes["statistic"], "df": [slopes["df1"], slopes["df2"]], "p": slopes["p"],
+            "slope": _f(sc),
+            "slope_ci": [_f(sc - tq_add * sc_se), _f(sc + tq_add * sc_se)],
+            "test": "F (interaction)",
+            "statistic": slopes["statistic"],
+            "df": [slopes["df1"], slopes["df2"]],
+            "p": slopes["p"],
         },
         "elevation": {
-            "test": "F", "statistic": elev["statistic"], "df": [elev["df1"], elev["df2"]], "p": elev["p"],
+            "test": "F",
+            "statistic": elev["statistic"],
+            "df": [elev["df1"], elev["df2"]],
+            "p": elev["p"],
             "means": [_f(v) for v in add.beta[:G]],
         },
         "shift": None,

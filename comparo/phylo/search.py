@@ -17,7 +17,9 @@ _GOLD = 0.5 * (3.0 - math.sqrt(5.0))  # 0.381966...
 _SQRT_EPS = math.sqrt(2.2e-16)
 
 
-def minimize_bounded(fun: Callable[[float], float], a: float, b: float, xatol: float, maxiter: int = 500) -> float:
+def minimize_bounded(
+    fun: Callable[[float], float], a: float, b: float, xatol: float, maxiter: int = 500
+) -> float:
     """The minimiser of *fun* on [a, b] to within *xatol* (absolute), by Brent's method.
 
     For a function unimodal on [a, b] the result is within *xatol* of its minimiser
@@ -72,8 +74,15 @@ def minimize_bounded(fun: Callable[[float], float], a: float, b: float, xatol: f
     return x
 
 
-def root_bracketed(fun: Callable[[float], float], a: float, b: float, xtol: float,
-                   fa: float | None = None, fb: float | None = None, maxiter: int = 200) -> float:
+def root_bracketed(
+    fun: Callable[[float], float],
+    a: float,
+    b: float,
+    xtol: float,
+    fa: float | None = None,
+    fb: float | None = None,
+    maxiter: int = 200,
+) -> float:
     """A root of *fun* in [a, b] (``fun(a)`` and ``fun(b)`` of opposite signs) to within
     *xtol* (absolute), by Brent's method; known end values may be passed as *fa*, *fb*."""
     fa = fun(a) if fa is None else fa

@@ -13,8 +13,8 @@ from typing import Any
 
 import numpy as np
 
-from comparo.jsonsafe import finite_list as _fl
-from comparo.jsonsafe import finite_or_none as _f
+from comparo.base.jsonsafe import finite_list as _fl
+from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.phylo.engine import gls_quantities
 from comparo.phylo.flat import FlatTree
 from comparo.phylo.independent import _values_on_tree
@@ -64,20 +64,31 @@ class SignalResult:
 
     def to_dict(self) -> dict:
         return {
-            "n": self.n, "K": _f(self.K), "K_p": _f(self.K_p), "permutations": self.permutations, "seed": self.seed,
-            "lambda": _f(self.lambda_), "lambda_ci": _fl(self.lambda_ci), "loglik": _f(self.loglik),
-            "lr_lambda0": _f(self.lr_lambda0), "p_lambda0": _f(self.p_lambda0),
-            "lr_lambda1": _f(self.lr_lambda1), "p_lambda1": _f(self.p_lambda1),
-            "taxa_without_tips": list(self.taxa_without_tips), "tips_pruned": list(self.tips_pruned),
+            "n": self.n,
+            "K": _f(self.K),
+            "K_p": _f(self.K_p),
+            "permutations": self.permutations,
+            "seed": self.seed,
+            "lambda": _f(self.lambda_),
+            "lambda_ci": _fl(self.lambda_ci),
+            "loglik": _f(self.loglik),
+            "lr_lambda0": _f(self.lr_lambda0),
+            "p_lambda0": _f(self.p_lambda0),
+            "lr_lambda1": _f(self.lr_lambda1),
+            "p_lambda1": _f(self.p_lambda1),
+            "taxa_without_tips": list(self.taxa_without_tips),
+            "tips_pruned": list(self.tips_pruned),
         }
 
     def summary(self) -> str:
-        return "\n".join([
-            f"phylogenetic signal, n = {self.n}",
-            f"Blomberg's K = {self.K:.4g} (permutation p = {self.K_p:.3g}, {self.permutations} permutations, seed {self.seed})",
-            f"Pagel's lambda = {self.lambda_:.4g} [{self.lambda_ci[0]:.3g}, {self.lambda_ci[1]:.3g}];"
-            f" LR vs 0: {self.lr_lambda0:.3g} (p = {self.p_lambda0:.3g}); vs 1: {self.lr_lambda1:.3g} (p = {self.p_lambda1:.3g})",
-        ])
+        return "\n".join(
+            [
+                f"phylogenetic signal, n = {self.n}",
+                f"Blomberg's K = {self.K:.4g} (permutation p = {self.K_p:.3g}, {self.permutations} permutations, seed {self.seed})",
+                f"Pagel's lambda = {self.lambda_:.4g} [{self.lambda_ci[0]:.3g}, {self.lambda_ci[1]:.3g}];"
+                f" LR vs 0: {self.lr_lambda0:.3g} (p = {self.p_lambda0:.3g}); vs 1: {self.lr_lambda1:.3g} (p = {self.p_lambda1:.3g})",
+            ]
+        )
 
 
 def blomberg_k(ft: FlatTree, Y: np.ndarray) -> np.ndarray:
@@ -99,7 +110,13 @@ def blomberg_k(ft: FlatTree, Y: np.ndarray) -> np.ndarray:
     return (num / den) / expected
 
 
-def tree_signal(tree: Any, values: Mapping[str, float], permutations: int = 999, seed: int | None = 20240601, ci: float = 0.95) -> SignalResult:
+def tree_signal(
+    tree: Any,
+    values: Mapping[str, float],
+    permutations: int = 999,
+    seed: int | None = 20240601,
+    ci: float = 0.95,
+) -> SignalResult:
     """Pagel's lambda (ML, with LR tests of 0 and 1) and Blomberg's K with a
     seeded permutation test (tip values shuffled; permutations share passes of
     the linear-time engine, in blocks of up to 512 columns).
@@ -120,7 +137,7 @@ def tree_signal(tree: Any, values: Mapping[str, float], permutations: int = 999,
     Pagel M (1999) Nature 401:877-884. Blomberg SP, Garland T, Ives AR (2003)
     Evolution 57:717-745.
     """
-    from comparo.bounds import check_count, check_level, check_permutations
+    from comparo.base.arguments import check_count, check_level, check_permutations
 
     permutations = check_count(permutations, "permutations")
     ci = check_level(ci)
@@ -143,7 +160,18 @@ def tree_signal(tree: Any, values: Mapping[str, float], permutations: int = 999,
     lf = _fit_lambda(ft, np.ones((n, 1)), yv, "ml", None, False, ci)
     t0, t1 = _lr(lf.loglik, lf.ll0), _lr(lf.loglik, lf.ll1)
     return SignalResult(
-        n, K, pval, int(permutations), seed, lf.lam, lf.ci, lf.loglik,
-        t0["statistic"], t0["p"], t1["statistic"], t1["p"],
-        tuple(match.taxa_without_tips) + tuple(missing), tuple(pruned),
+        n,
+        K,
+        pval,
+        int(permutations),
+        seed,
+        lf.lam,
+        lf.ci,
+        lf.loglik,
+        t0["statistic"],
+        t0["p"],
+        t1["statistic"],
+        t1["p"],
+        tuple(match.taxa_without_tips) + tuple(missing),
+        tuple(pruned),
     )

@@ -1,14 +1,15 @@
-"""Random trees for tests, benchmarks and the demo (seeded).
-"""
+"""Random trees for tests, benchmarks and the demo (seeded)."""
 
 from __future__ import annotations
 
 import numpy as np
 
-from comparo.errors import UsageError
+from comparo.base.errors import UsageError
 
 
-def random_newick(n_tips: int, seed: int | None = None, *, ultrametric: bool = False, polytomy: float = 0.0) -> str:
+def random_newick(
+    n_tips: int, seed: int | None = None, *, ultrametric: bool = False, polytomy: float = 0.0
+) -> str:
     """A random rooted tree with branch lengths, as Newick text (for simulation
     checks and benchmarks).
 
@@ -34,7 +35,9 @@ def random_newick(n_tips: int, seed: int | None = None, *, ultrametric: bool = F
         parts = []
         new_height = now if ultrametric else max(heights[i] for i in pick) + 1.0
         for i in pick:
-            length = (new_height - heights[i]) if ultrametric else float(rng.exponential(1.0)) + 1e-3
+            length = (
+                (new_height - heights[i]) if ultrametric else float(rng.exponential(1.0)) + 1e-3
+            )
             parts.append(f"{clusters[i]}:{length:.10g}")
         new = "(" + ",".join(parts) + ")"
         for i in sorted(pick.tolist(), reverse=True):

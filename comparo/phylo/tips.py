@@ -1,5 +1,4 @@
-"""Matching table labels to tree tips, dataset tree labels, and the tree checks of the gate.
-"""
+"""Matching table labels to tree tips, dataset tree labels, and the tree checks of the gate."""
 
 from __future__ import annotations
 
@@ -7,7 +6,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from comparo.errors import InputError, Problem, problems_from_frame
+from comparo.base.errors import InputError, Problem, problems_from_frame
 from comparo.phylo.trees import _as_topo, _check, _norm, _norm_all, _Topo, _topology
 
 
@@ -45,18 +44,21 @@ class TipMatch:
     def summary(self) -> str:
         lines = [f"{len(self.pairs)} taxa matched to tips"]
         if self.taxa_without_tips:
-            lines.append(f"{len(self.taxa_without_tips)} taxa not in the tree: " + ", ".join(self.taxa_without_tips))
+            lines.append(
+                f"{len(self.taxa_without_tips)} taxa not in the tree: "
+                + ", ".join(self.taxa_without_tips)
+            )
         if self.tips_without_data:
-            lines.append(f"{len(self.tips_without_data)} tips without data (pruned): " + ", ".join(self.tips_without_data))
+            lines.append(
+                f"{len(self.tips_without_data)} tips without data (pruned): "
+                + ", ".join(self.tips_without_data)
+            )
         return "\n".join(lines)
 
 
-
-
-
-
-
-def match_tips(tree: Any, labels: Sequence[str], tree_labels: Mapping[str, str] | None = None) -> TipMatch:
+def match_tips(
+    tree: Any, labels: Sequence[str], tree_labels: Mapping[str, str] | None = None
+) -> TipMatch:
     """Match table labels to tree tips.
 
     Parameters
@@ -93,7 +95,9 @@ def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | 
     tips = topo.tips
     tip_set = topo.node_of
     tip_keys = _norm_all(tips)
-    by_key = dict(zip(tip_keys, tips, strict=True))  # folded name -> tip, when no two tips share one
+    by_key = dict(
+        zip(tip_keys, tips, strict=True)
+    )  # folded name -> tip, when no two tips share one
     problems: list[Problem] = []
     if len(by_key) < len(tips):
         groups: dict[str, list[str]] = {}
@@ -102,8 +106,16 @@ def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | 
         for group in groups.values():
             if len(group) > 1:
                 problems.append(
-                    Problem("error", "tree", None, None, group[0], "tree-ambiguous-tip",
-                            f"tips {group} are the same name once underscores, spaces and case are folded", "rename one of them")
+                    Problem(
+                        "error",
+                        "tree",
+                        None,
+                        None,
+                        group[0],
+                        "tree-ambiguous-tip",
+                        f"tips {group} are the same name once underscores, spaces and case are folded",
+                        "rename one of them",
+                    )
                 )
     labels = [str(lab) for lab in labels]
     if len(set(labels)) < len(labels):
@@ -112,10 +124,25 @@ def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | 
             counts[lab] = counts.get(lab, 0) + 1
         for lab, c in counts.items():
             if c > 1:
-                problems.append(Problem("error", "table", None, "taxon", lab, "taxon-duplicate", f"taxon {lab!r} occurs {c} times", "give one row per taxon"))
+                problems.append(
+                    Problem(
+                        "error",
+                        "table",
+                        None,
+                        "taxon",
+                        lab,
+                        "taxon-duplicate",
+                        f"taxon {lab!r} occurs {c} times",
+                        "give one row per taxon",
+                    )
+                )
     if problems:
         raise InputError(problems)
-    explicit = {str(k): str(v) for k, v in (tree_labels or {}).items() if v is not None and str(v).strip() != "" and str(v) != "nan"}
+    explicit = {
+        str(k): str(v)
+        for k, v in (tree_labels or {}).items()
+        if v is not None and str(v).strip() != "" and str(v) != "nan"
+    }
     pairs: list[tuple[str, str, str]] = []
     used: dict[str, str] = {}
     unmatched: list[str] = []
@@ -131,8 +158,16 @@ def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | 
             continue
         if tip in used:
             problems.append(
-                Problem("error", "table", None, "taxon", lab, "tree-tip-claimed",
-                        f"taxa {used[tip]!r} and {lab!r} both match tip {tip!r}", "give one of them a distinct tree_label")
+                Problem(
+                    "error",
+                    "table",
+                    None,
+                    "taxon",
+                    lab,
+                    "tree-tip-claimed",
+                    f"taxa {used[tip]!r} and {lab!r} both match tip {tip!r}",
+                    "give one of them a distinct tree_label",
+                )
             )
             continue
         used[tip] = lab
@@ -177,7 +212,11 @@ def dataset_tree_labels(taxa: Any, tips: Sequence[str], file: str = "taxa.csv") 
         row = k + 2
         tip = None
         if isinstance(lab, str) and lab.strip():
-            tip = lab if lab in tip_set else (by_key[_norm(lab)][0] if len(by_key.get(_norm(lab), [])) == 1 else None)
+            tip = (
+                lab
+                if lab in tip_set
+                else (by_key[_norm(lab)][0] if len(by_key.get(_norm(lab), [])) == 1 else None)
+            )
             if tip is not None:
                 explicit[acc] = tip
         elif len(by_key.get(_norm(name), [])) == 1:
@@ -189,14 +228,24 @@ def dataset_tree_labels(taxa: Any, tips: Sequence[str], file: str = "taxa.csv") 
         if len(tips_of) > 1:
             shown = "; ".join(f"{t!r} (row {', '.join(map(str, r))})" for t, r in tips_of.items())
             first = min(min(r) for r in tips_of.values())
-            problems.append(Problem(
-                "error", file, first, "tree_label", acc, "tree-two-tips",
-                f"accepted taxon {acc!r} matches {len(tips_of)} tips of the tree: {shown}; a fit would keep one "
-                "and silently prune the other",
-                "remove the duplicate tip from the tree, or correct the tree_label / synonym row"))
+            problems.append(
+                Problem(
+                    "error",
+                    file,
+                    first,
+                    "tree_label",
+                    acc,
+                    "tree-two-tips",
+                    f"accepted taxon {acc!r} matches {len(tips_of)} tips of the tree: {shown}; a fit would keep one "
+                    "and silently prune the other",
+                    "remove the duplicate tip from the tree, or correct the tree_label / synonym row",
+                )
+            )
     if problems:
         raise InputError(problems)
-    return {acc: next(iter(t)) for acc, t in found.items() if acc in explicit or next(iter(t)) != acc}
+    return {
+        acc: next(iter(t)) for acc, t in found.items() if acc in explicit or next(iter(t)) != acc
+    }
 
 
 def tip_labels(tree: Any) -> tuple[str, ...]:
@@ -233,7 +282,7 @@ def tree_problems(ds: Any) -> list[Problem]:
         labels_map = dataset_tree_labels(ds.taxa, topo.tips)
     except InputError as exc:
         return problems_from_frame(exc.problems)
-    from comparo.curate import accepted_names
+    from comparo.curation.harmonise import accepted_names
 
     names = sorted(set(accepted_names(ds).dropna().astype(str)))
     try:
@@ -243,8 +292,21 @@ def tree_problems(ds: Any) -> list[Problem]:
     out = []
     for lab in m.taxa_without_tips:
         near = nearest_tip(lab, m.tips_without_data or topo.tips)
-        hint = (f"did you mean tip {near!r}? fix the spelling or give a tree_label in taxa.csv" if near
-                else "add the taxon to the tree or accept that tree-based fits leave it out")
-        out.append(Problem("warning", file, None, None, lab, "taxon-without-tip",
-                           f"taxon {lab!r} has no tip in the tree; PGLS and other tree-based fits leave it out", hint))
+        hint = (
+            f"did you mean tip {near!r}? fix the spelling or give a tree_label in taxa.csv"
+            if near
+            else "add the taxon to the tree or accept that tree-based fits leave it out"
+        )
+        out.append(
+            Problem(
+                "warning",
+                file,
+                None,
+                None,
+                lab,
+                "taxon-without-tip",
+                f"taxon {lab!r} has no tip in the tree; PGLS and other tree-based fits leave it out",
+                hint,
+            )
+        )
     return out

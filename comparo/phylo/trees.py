@@ -1,5 +1,4 @@
-"""Reading a Newick tree (branch lengths required, deep trees supported) and checking it.
-"""
+"""Reading a Newick tree (branch lengths required, deep trees supported) and checking it."""
 
 from __future__ import annotations
 
@@ -9,8 +8,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from comparo.errors import InputError, Problem, UsageError
-from comparo.newick import Topology
+from comparo.base.errors import InputError, Problem, UsageError
+from comparo.reading.newick import Topology
 
 if TYPE_CHECKING:  # pragma: no cover
     import dendropy
@@ -19,14 +18,16 @@ if TYPE_CHECKING:  # pragma: no cover
 _NEWICK_SOURCE = "<newick text>"
 
 
-def _tree_problem(file: str, rule: str, message: str, hint: str = "", value: str | None = None) -> InputError:
+def _tree_problem(
+    file: str, rule: str, message: str, hint: str = "", value: str | None = None
+) -> InputError:
     return InputError([Problem("error", file, None, None, value, rule, message, hint)])
 
 
 def _norm(label: str) -> str:
-    """Matching key: read as it looks (:func:`comparo.io.visible`: a zero-width space or a
+    """Matching key: read as it looks (:func:`comparo.reading.tables.visible`: a zero-width space or a
     direction mark removed), underscores as spaces, runs of white space collapsed, case folded."""
-    from comparo.io import visible
+    from comparo.reading.tables import visible
 
     return " ".join(visible(str(label)).replace("_", " ").split()).casefold()
 
@@ -43,7 +44,7 @@ def _norm_all(labels: Sequence[str]) -> list[str]:
     if not labels or text.count("\x00") != len(labels) - 1:  # a label holding the separator
         return [_norm(v) for v in labels]
     if not text.isascii():
-        from comparo.io import visible
+        from comparo.reading.tables import visible
 
         text = visible(text)
     text = text.replace("_", " ")
@@ -52,11 +53,10 @@ def _norm_all(labels: Sequence[str]) -> list[str]:
     return text.casefold().split("\x00")
 
 
-
 def _parse(text: str) -> Any:
     """Parse Newick *text* with dendropy (deep trees on a big stack): the one reader,
-    shared with the dataset folder reader (:func:`comparo.io.parse_newick`)."""
-    from comparo.io import parse_newick
+    shared with the dataset folder reader (:func:`comparo.reading.tables.parse_newick`)."""
+    from comparo.reading.tables import parse_newick
 
     return parse_newick(text)
 
@@ -91,7 +91,7 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
     """
     from dendropy.utility.error import DataParseError
 
-    from comparo.bounds import check_kind
+    from comparo.base.arguments import check_kind
 
     check_kind(path_or_newick, (str, Path), "path_or_newick", "a Newick file name or Newick text")
     src = str(path_or_newick)
@@ -99,16 +99,22 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
         name, text = _NEWICK_SOURCE, src
     else:
         name = src
-        from comparo.io import not_a_file
+        from comparo.reading.tables import not_a_file
 
         what = not_a_file(src)
         if what is not None:
-            raise _tree_problem(name, "tree-file", f"the tree path is {what}, not a file",
-                                "give a Newick file (comparo does not read pipes or devices)")
+            raise _tree_problem(
+                name,
+                "tree-file",
+                f"the tree path is {what}, not a file",
+                "give a Newick file (comparo does not read pipes or devices)",
+            )
         try:
             text = Path(src).read_text(encoding="utf-8-sig")
         except FileNotFoundError:
-            raise _tree_problem(name, "tree-file", "tree file not found", "check the path given with --tree") from None
+            raise _tree_problem(
+                name, "tree-file", "tree file not found", "check the path given with --tree"
+            ) from None
         except (OSError, UnicodeDecodeError) as exc:
             raise _tree_problem(name, "tree-file", f"cannot read the tree file ({exc})") from None
     text = text.strip()
@@ -118,12 +124,17 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
         trees = _parse(text)
     except DataParseError as exc:
         raise _tree_problem(
-            name, "tree-newick", f"malformed Newick: {exc}", "check parentheses, commas, ':' before each length and the final ';'"
+            name,
+            "tree-newick",
+            f"malformed Newick: {exc}",
+            "check parentheses, commas, ':' before each length and the final ';'",
         ) from None
     except RecursionError:  # pragma: no cover - guarded by _parse
         raise _tree_problem(name, "tree-newick", "tree nested too deeply to parse") from None
     if len(trees) != 1:
-        raise _tree_problem(name, "tree-count", f"the file holds {len(trees)} trees; exactly one is needed")
+        raise _tree_problem(
+            name, "tree-count", f"the file holds {len(trees)} trees; exactly one is needed"
+        )
     tree = trees[0]
     _check(_topology(tree), name)
     return tree
@@ -149,7 +160,7 @@ def _preorder(tree: Any) -> list:
 
 def _topology(tree: Any) -> _Topo:
     """The pre-order record of a tree: a :class:`Topology` as it is, the one a
-    :class:`comparo.io.DeferredTree` already holds (read by :mod:`comparo.newick`, so
+    :class:`comparo.reading.tables.DeferredTree` already holds (read by :mod:`comparo.reading.newick`, so
     dendropy is neither imported nor walked), else one pass over the dendropy tree."""
     if isinstance(tree, _Topo):
         return tree
@@ -170,7 +181,11 @@ def _topology(tree: Any) -> _Topo:
         if nd.child_nodes():
             inner[i] = nd.label
         else:
-            lab = nd.label if nd.label is not None else (nd.taxon.label if nd.taxon is not None else None)
+            lab = (
+                nd.label
+                if nd.label is not None
+                else (nd.taxon.label if nd.taxon is not None else None)
+            )
             leaf[i] = None if lab is None else str(lab)
     return _Topo(parent, length, leaf, inner)
 
@@ -185,7 +200,11 @@ def check_tree(tree: Any, name: str = "tree") -> None:
 def _check(topo: _Topo, name: str) -> None:
     labels = list(topo.leaf.values())
     if any(lab is None or str(lab).strip() == "" for lab in labels):
-        raise _tree_problem(name, "tree-tip-label", f"{sum(lab is None or not str(lab).strip() for lab in labels)} tip(s) without a label")
+        raise _tree_problem(
+            name,
+            "tree-tip-label",
+            f"{sum(lab is None or not str(lab).strip() for lab in labels)} tip(s) without a label",
+        )
     dups: list[str] = []
     if len(set(labels)) < len(labels):
         seen: dict[str, int] = {}
@@ -194,12 +213,18 @@ def _check(topo: _Topo, name: str) -> None:
         dups = sorted(k for k, c in seen.items() if c > 1)
     if dups:
         raise _tree_problem(
-            name, "tree-duplicate-tip", f"duplicate tip label(s): {', '.join(dups[:10])}", "each tip label must occur once", value=dups[0]
+            name,
+            "tree-duplicate-tip",
+            f"duplicate tip label(s): {', '.join(dups[:10])}",
+            "each tip label must occur once",
+            value=dups[0],
         )
     lengths = topo.length
     inf = math.inf
     missing = [i for i, v in enumerate(lengths) if v is None and i > 0]
-    negative = [i for i, v in enumerate(lengths) if v is not None and not 0 <= v < inf and i > 0]  # also NaN, inf
+    negative = [
+        i for i, v in enumerate(lengths) if v is not None and not 0 <= v < inf and i > 0
+    ]  # also NaN, inf
 
     def where(i: int) -> str:
         return topo.leaf.get(i) or topo.inner_label[i] or "an internal node"
@@ -213,7 +238,9 @@ def _check(topo: _Topo, name: str) -> None:
         )
     if negative:
         raise _tree_problem(
-            name, "tree-branch-lengths", f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {where(negative[0])!r})"
+            name,
+            "tree-branch-lengths",
+            f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {where(negative[0])!r})",
         )
 
 
@@ -224,8 +251,10 @@ def _as_topo(tree: Any) -> _Topo:
     if isinstance(tree, str | Path):
         tree = read_tree(tree)
     elif not (isinstance(getattr(tree, "topology", None), _Topo) or hasattr(tree, "seed_node")):
-        raise UsageError(f"tree must be a Newick file name, Newick text or a tree from comparo.read_tree "
-                         f"(got {type(tree).__name__} {repr(tree)[:40]})")
+        raise UsageError(
+            f"tree must be a Newick file name, Newick text or a tree from comparo.read_tree "
+            f"(got {type(tree).__name__} {repr(tree)[:40]})"
+        )
     topo = _topology(tree)
     _check(topo, "tree")
     return topo

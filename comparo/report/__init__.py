@@ -12,13 +12,13 @@ writes, under the output folder::
                        fit here also carries the flags of its whitened residuals)
     tables/sensitivity_*.csv, sensitivity.json
                        leave-one-source-out, basis filters, jackknife and measurement-error
-                       parts of each fit (:func:`comparo.reliance.sensitivity`)
+                       parts of each fit (:func:`comparo.fitting.source_sensitivity.sensitivity`)
     run.json           input SHA-256 hashes, settings, package versions, seed
 
 Every number in the HTML is read from the same result objects that are written
 to ``tables/``. The report is a research aid; it does not replace reading the sources.
 
-Layout: :mod:`~comparo.report.build` (the pipeline and files), :mod:`~comparo.report.pieces`
+Layout: :mod:`~comparo.report.build` (the pipeline and files), :mod:`~comparo.report.per_fit`
 (per-fit points, flags, titles, tree and lambda figures, sensitivity),
 :mod:`~comparo.report.page`, :mod:`~comparo.report.render`, :mod:`~comparo.report.appendix`
 (the HTML, from the Jinja2 templates in ``templates/``), :mod:`~comparo.report.fmt`
@@ -28,14 +28,26 @@ Layout: :mod:`~comparo.report.build` (the pipeline and files), :mod:`~comparo.re
 from __future__ import annotations
 
 from comparo.report.build import analyses, build_report, input_hashes, package_versions
-from comparo.report.pieces import fit_points, sensitivity_frame, sensitivity_summary_row
+from comparo.report.per_fit import fit_points, sensitivity_frame, sensitivity_summary_row
 from comparo.report.result import (
-           DEFAULT_ANALYSES,
-           DISCLAIMER,
-           LAMBDA_GRID,
-           SENSITIVITY_DRAWS,
-           ReportResult,
+    DEFAULT_ANALYSES,
+    DISCLAIMER,
+    LAMBDA_GRID,
+    SENSITIVITY_DRAWS,
+    ReportResult,
 )
 
-__all__ = ["build_report", "ReportResult", "DEFAULT_ANALYSES", "SENSITIVITY_DRAWS", "LAMBDA_GRID", "DISCLAIMER",
-           "fit_points", "sensitivity_frame", "sensitivity_summary_row", "input_hashes", "package_versions", "analyses"]
+__all__ = [
+    "build_report",
+    "ReportResult",
+    "DEFAULT_ANALYSES",
+    "SENSITIVITY_DRAWS",
+    "LAMBDA_GRID",
+    "DISCLAIMER",
+    "fit_points",
+    "sensitivity_frame",
+    "sensitivity_summary_row",
+    "input_hashes",
+    "package_versions",
+    "analyses",
+]

@@ -30,8 +30,12 @@ def appendix(points, ds, h) -> list[dict]:
                 if g is None:
                     s = src.loc[sid] if sid in src.index else None
                     doi = s.get("doi") if s is not None else None
-                    g = groups[sid] = {"source_id": sid, "citation": s["citation"] if s is not None else "(source missing)",
-                                       "doi": doi if isinstance(doi, str) and doi else "", "rows": []}
+                    g = groups[sid] = {
+                        "source_id": sid,
+                        "citation": s["citation"] if s is not None else "(source missing)",
+                        "doi": doi if isinstance(doi, str) and doi else "",
+                        "rows": [],
+                    }
                 g["rows"].append(_row(p.label, o, val, oid))
     out = list(groups.values())
     for g in out:
@@ -54,7 +58,16 @@ def _row(label: str, o, taxon_value, oid: str) -> dict:
         rule = "none: in vivo at body temperature, kept as measured"
     else:
         rule = ""
-    return {"taxon": label, "quantity": o["quantity_key"], "reported": f"{float(o['value']):.15g} {o['unit']}",
-            "temperature": None if t != t else float(t), "factor": rule, "used": float(o["value_h"]),
-            "unit": fmt.pretty_unit(o["unit_canonical"]), "taxon_value": taxon_value, "obs_id": oid,
-            "basis": o["basis_effective"], "locator": o["locator"]}
+    return {
+        "taxon": label,
+        "quantity": o["quantity_key"],
+        "reported": f"{float(o['value']):.15g} {o['unit']}",
+        "temperature": None if t != t else float(t),
+        "factor": rule,
+        "used": float(o["value_h"]),
+        "unit": fmt.pretty_unit(o["unit_canonical"]),
+        "taxon_value": taxon_value,
+        "obs_id": oid,
+        "basis": o["basis_effective"],
+        "locator": o["locator"],
+    }

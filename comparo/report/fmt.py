@@ -71,7 +71,7 @@ def head(name: Any) -> Markup:
 
 def pretty_unit(unit: str) -> str:
     """A canonical unit as people write it (``µm``, ``1/s``); ``1`` reads ``dimensionless``."""
-    from comparo.units import pretty
+    from comparo.base.units import pretty
 
     text = pretty(str(unit))
     return "dimensionless" if text == "1" else text

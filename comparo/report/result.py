@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from comparo.config import DEFAULT_ANALYSES  # noqa: F401  (the default fits, kept importable here)
 from comparo.report.fmt import num
+from comparo.validation.settings import DEFAULT_ANALYSES  # noqa: F401  (the default fits, kept importable here)
 
 #: Monte Carlo draws of the measurement-error part of the report's sensitivity section. A modest
 #: number keeps the report fast; ``comparo fit --sensitivity`` uses 1000. The spread of the
@@ -15,8 +15,10 @@ SENSITIVITY_DRAWS = 200
 #: Fixed lambda values at which the PGLS profile likelihood is drawn.
 LAMBDA_GRID = tuple(i / 10 for i in range(11))
 
-DISCLAIMER = ("This report is a research aid: it summarises a compilation and the fits run on it. "
-              "Check every value against its source before relying on it.")
+DISCLAIMER = (
+    "This report is a research aid: it summarises a compilation and the fits run on it. "
+    "Check every value against its source before relying on it."
+)
 
 
 @dataclass(frozen=True)
@@ -56,17 +58,27 @@ class ReportResult:
         return len({p.rsplit(".", 1)[0] for p in self.figures})
 
     def to_dict(self) -> dict:
-        return {"out_dir": self.out_dir, "ok": self.ok, "n_errors": self.n_errors, "n_warnings": self.n_warnings,
-                "figures": list(self.figures), "tables": list(self.tables), "fits": list(self.fits),
-                "notes": list(self.notes), "sensitivity": list(self.sensitivity)}
+        return {
+            "out_dir": self.out_dir,
+            "ok": self.ok,
+            "n_errors": self.n_errors,
+            "n_warnings": self.n_warnings,
+            "figures": list(self.figures),
+            "tables": list(self.tables),
+            "fits": list(self.fits),
+            "notes": list(self.notes),
+            "sensitivity": list(self.sensitivity),
+        }
 
     def summary(self) -> str:
         if not self.ok:
             return f"validation found {self.n_errors} error(s); the report lists them: {self.out_dir}/report.html"
-        from comparo.lines.cautions import caution_lines
+        from comparo.fitting.cautions import caution_lines
 
-        lines = [f"report written to {self.out_dir}/report.html ({self.n_figures} figures, each as PNG and SVG; "
-                 f"{len(self.tables)} tables)"]
+        lines = [
+            f"report written to {self.out_dir}/report.html ({self.n_figures} figures, each as PNG and SVG; "
+            f"{len(self.tables)} tables)"
+        ]
         for f in self.fits:
             if "error" in f:
                 lines.append(f"  {f['id']}: not fitted ({f['error']})")
@@ -75,14 +87,21 @@ class ReportResult:
                 lo, hi = r["slope_ci"]
                 gt = r.get("group_tests") or {}
                 if gt.get("slopes_differ"):  # no single exponent to headline
-                    slopes = ", ".join(f"{g['group']} {num(g['slope'])}"
-                                       for g in r.get("groups") or [] if g.get("slope") is not None)
+                    slopes = ", ".join(
+                        f"{g['group']} {num(g['slope'])}"
+                        for g in r.get("groups") or []
+                        if g.get("slope") is not None
+                    )
                     p = num(gt["common_slope"]["p"], 3)
-                    lines.append(f"  {f['id']}: the groups differ in slope (equal slopes rejected: "
-                                 f"p = {p}); group slopes {slopes}; n = {r['n']}")
+                    lines.append(
+                        f"  {f['id']}: the groups differ in slope (equal slopes rejected: "
+                        f"p = {p}); group slopes {slopes}; n = {r['n']}"
+                    )
                 else:
-                    lines.append(f"  {f['id']}: slope {num(r['slope'])} (CI {num(lo)} to {num(hi)}), "
-                                 f"n = {r['n']}")
+                    lines.append(
+                        f"  {f['id']}: slope {num(r['slope'])} (CI {num(lo)} to {num(hi)}), "
+                        f"n = {r['n']}"
+                    )
                 lines += [f"    caution: {line}" for line in caution_lines(r.get("cautions") or [])]
         lines += [f"  {s['id']} sensitivity: {s['verdict']}" for s in self.sensitivity]
         lines += [f"  note: {n}" for n in self.notes]

@@ -22,8 +22,8 @@ from _bigtable import write_table  # noqa: E402
 
 
 def main(rows: int = 100_000) -> None:
-    from comparo.dataset import load
-    from comparo.provenance import audit
+    from comparo.curation.provenance import audit
+    from comparo.validation.dataset import load
 
     with tempfile.TemporaryDirectory() as tmp:
         folder = write_table(Path(tmp) / "big", rows)
@@ -38,15 +38,25 @@ def main(rows: int = 100_000) -> None:
         rep = audit(ds)
         t_audit = time.perf_counter() - t0
         t0 = time.perf_counter()
-        subprocess.run([sys.executable, "-m", "comparo", "audit", str(folder), "--format", "json"], capture_output=True, check=False)
+        subprocess.run(
+            [sys.executable, "-m", "comparo", "audit", str(folder), "--format", "json"],
+            capture_output=True,
+            check=False,
+        )
         t_cli = time.perf_counter() - t0
     assert rep.balanced
-    print(f"audit, {rows} rows: read {rep.rows_read}, used {rep.rows_used}, merged {rep.rows_merged}, excluded {len(rep.rows_excluded)}; {len(rep.coverage)} taxa, {len(rep.conflicts)} conflicts")
+    print(
+        f"audit, {rows} rows: read {rep.rows_read}, used {rep.rows_used}, merged {rep.rows_merged}, excluded {len(rep.rows_excluded)}; {len(rep.coverage)} taxa, {len(rep.conflicts)} conflicts"
+    )
     print(f"  baseline pandas.read_csv (text): {base:.2f} s")
     print(f"  comparo.load (read + validate):  {t_load:.2f} s   ratio {t_load / base:.1f}x")
     print(f"  comparo.audit (after load):      {t_audit:.2f} s   ratio {t_audit / base:.1f}x")
-    print(f"  load + audit:                    {t_load + t_audit:.2f} s   ratio {(t_load + t_audit) / base:.1f}x")
-    print(f"  comparo audit --format json:     {t_cli:.2f} s   ratio {t_cli / base:.1f}x (fresh interpreter)")
+    print(
+        f"  load + audit:                    {t_load + t_audit:.2f} s   ratio {(t_load + t_audit) / base:.1f}x"
+    )
+    print(
+        f"  comparo audit --format json:     {t_cli:.2f} s   ratio {t_cli / base:.1f}x (fresh interpreter)"
+    )
 
 
 if __name__ == "__main__":

@@ -11,10 +11,12 @@ import time
 
 import numpy as np
 
-from comparo.lines import bootstrap_line
+from comparo.fitting import bootstrap_line
 
 
-def naive_sma_bootstrap(x: np.ndarray, y: np.ndarray, n_boot: int, seed: int, chunk_elems: int = 2_000_000) -> np.ndarray:
+def naive_sma_bootstrap(
+    x: np.ndarray, y: np.ndarray, n_boot: int, seed: int, chunk_elems: int = 2_000_000
+) -> np.ndarray:
     """One resample at a time (the same index draws as the vectorised route): SMA slope via np.cov."""
     rng = np.random.default_rng(seed)
     n = len(x)
@@ -33,7 +35,9 @@ def main(n: int = 500, n_boot: int = 10_000, seed: int = 20240601) -> None:
     x = rng.normal(0.0, 1.0, n)
     y = 0.75 * x + rng.normal(0.0, 0.3, n)
 
-    bootstrap_line("sma", x[:20], y[:20], 10, seed=seed)  # warm-up: imports (scipy.stats) outside the timing
+    bootstrap_line(
+        "sma", x[:20], y[:20], 10, seed=seed
+    )  # warm-up: imports (scipy.stats) outside the timing
     t0 = time.perf_counter()
     fast = bootstrap_line("sma", x, y, n_boot, seed=seed)
     t_fast = time.perf_counter() - t0

@@ -3,7 +3,7 @@
 Run: ``python tests/benchmarks/bench_check.py [rows]``. Generates the table (seeded,
 invented taxa and sources) in a temporary folder, then times, in this run:
 baseline ``pandas.read_csv`` of observations.csv (all columns as text);
-``comparo.curate.review`` (what `comparo check` computes: read, validate, curation
+``comparo.curation.harmonise.review`` (what `comparo check` computes: read, validate, curation
 diagnostics) in this process; and the CLI ``comparo check --format json`` and the
 default text output in a fresh interpreter (imports and printing included).
 """
@@ -29,12 +29,14 @@ def timed(fn) -> float:
 
 
 def main(rows: int = 100_000) -> None:
-    from comparo.curate import review
+    from comparo.curation.harmonise import review
 
     with tempfile.TemporaryDirectory() as tmp:
         folder = write_table(Path(tmp) / "big", rows)
         review(write_table(Path(tmp) / "warm", 50))  # imports outside the timing
-        base = timed(lambda: pd.read_csv(folder / "observations.csv", dtype=str, keep_default_na=False))
+        base = timed(
+            lambda: pd.read_csv(folder / "observations.csv", dtype=str, keep_default_na=False)
+        )
         res = None
 
         def run():
@@ -42,13 +44,29 @@ def main(rows: int = 100_000) -> None:
             res = review(folder)
 
         api = timed(run)
-        cli_json = timed(lambda: subprocess.run([sys.executable, "-m", "comparo", "check", str(folder), "--format", "json"], capture_output=True, check=False))
-        cli_text = timed(lambda: subprocess.run([sys.executable, "-m", "comparo", "check", str(folder)], capture_output=True, check=False))
+        cli_json = timed(
+            lambda: subprocess.run(
+                [sys.executable, "-m", "comparo", "check", str(folder), "--format", "json"],
+                capture_output=True,
+                check=False,
+            )
+        )
+        cli_text = timed(
+            lambda: subprocess.run(
+                [sys.executable, "-m", "comparo", "check", str(folder)],
+                capture_output=True,
+                check=False,
+            )
+        )
     print(f"check, {rows} valid rows: {res.summary()}")
     print(f"  baseline pandas.read_csv (text): {base:.2f} s")
-    print(f"  comparo.curate.review (API):     {api:.2f} s   ratio {api / base:.1f}x")
-    print(f"  comparo check --format json:     {cli_json:.2f} s   ratio {cli_json / base:.1f}x (fresh interpreter)")
-    print(f"  comparo check (text table):      {cli_text:.2f} s   ratio {cli_text / base:.1f}x (fresh interpreter)")
+    print(f"  comparo.curation.harmonise.review (API):     {api:.2f} s   ratio {api / base:.1f}x")
+    print(
+        f"  comparo check --format json:     {cli_json:.2f} s   ratio {cli_json / base:.1f}x (fresh interpreter)"
+    )
+    print(
+        f"  comparo check (text table):      {cli_text:.2f} s   ratio {cli_text / base:.1f}x (fresh interpreter)"
+    )
 
 
 if __name__ == "__main__":

@@ -20,9 +20,18 @@ N_TAXA, DRAWS = 1_000, 10_000
 
 def table(n: int, seed: int = 1) -> pd.DataFrame:
     rng = np.random.default_rng(seed)
-    cols: dict[str, object] = {"taxon": [f"T{i}" for i in range(n)], "temperature_c": rng.uniform(10, 40, n)}
-    spec = {"fiber_radius": 20.0, "lattice_spacing_d10": 40.0, "elastic_modulus": 100.0,
-            "attach_rate": 50.0, "detach_rate": 20.0, "frequency_observed": 10.0}
+    cols: dict[str, object] = {
+        "taxon": [f"T{i}" for i in range(n)],
+        "temperature_c": rng.uniform(10, 40, n),
+    }
+    spec = {
+        "fiber_radius": 20.0,
+        "lattice_spacing_d10": 40.0,
+        "elastic_modulus": 100.0,
+        "attach_rate": 50.0,
+        "detach_rate": 20.0,
+        "frequency_observed": 10.0,
+    }
     for q, centre in spec.items():
         v = centre * np.exp(rng.normal(0, 0.15, n))
         cols[q], cols[f"{q}_u"] = v, 0.1 * v

@@ -43,13 +43,20 @@ def _new_version(old: Path, new: Path, seed: int = 5) -> dict[str, int]:
     added["locator"] = "Table 99"
     obs = pd.concat([obs.drop(index=removed), added], ignore_index=True)
     obs.to_csv(new / "observations.csv", index=False)
-    return {"changed": len(changed), "unit_only": len(unit_only), "renamed": len(renamed),
-            "removed": len(removed), "added": len(added)}
+    return {
+        "changed": len(changed),
+        "unit_only": len(unit_only),
+        "renamed": len(renamed),
+        "removed": len(removed),
+        "added": len(added),
+    }
 
 
 def _timed(*args: str) -> tuple[float, int]:
     t0 = time.perf_counter()
-    done = subprocess.run([sys.executable, "-m", "comparo", *args], capture_output=True, check=False)
+    done = subprocess.run(
+        [sys.executable, "-m", "comparo", *args], capture_output=True, check=False
+    )
     return time.perf_counter() - t0, done.returncode
 
 
@@ -60,18 +67,29 @@ def main(rows: int = 100_000) -> None:
         out = Path(tmp) / "out"
         out.mkdir()
         t_table, rc_table = _timed("table", str(old), "-o", str(out / "table.csv"))
-        t_diff, rc_diff = _timed("diff", str(old), str(Path(tmp) / "new"), "--format", "json",
-                                 "-o", str(out / "diff.json"))
+        t_diff, rc_diff = _timed(
+            "diff",
+            str(old),
+            str(Path(tmp) / "new"),
+            "--format",
+            "json",
+            "-o",
+            str(out / "diff.json"),
+        )
         import json
 
         result = json.loads((out / "diff.json").read_text(encoding="utf-8"))
     kinds = pd.Series([c["kind"] for c in result["rows"]["changed"]]).value_counts().to_dict()
     print(f"diff of two versions, {rows} rows; edits made: {edits}")
-    print(f"  found: {len(result['rows']['added'])} added, {len(result['rows']['removed'])} removed, "
-          f"changed cells by kind {kinds}; {len(result['taxa'])} per-taxon values moved")
+    print(
+        f"  found: {len(result['rows']['added'])} added, {len(result['rows']['removed'])} removed, "
+        f"changed cells by kind {kinds}; {len(result['taxa'])} per-taxon values moved"
+    )
     print(f"  comparo table (one version):   {t_table:.2f} s (exit {rc_table})")
-    print(f"  comparo diff --format json:    {t_diff:.2f} s (exit {rc_diff})   ratio {t_diff / t_table:.2f}x"
-          " (target <= 3x)")
+    print(
+        f"  comparo diff --format json:    {t_diff:.2f} s (exit {rc_diff})   ratio {t_diff / t_table:.2f}x"
+        " (target <= 3x)"
+    )
 
 
 if __name__ == "__main__":

@@ -46,8 +46,9 @@ def write_dataset(folder: Path, n: int, seed: int = 28) -> None:
     (folder / "sources.csv").write_text(sources, encoding="utf-8")
     with open(folder / "observations.csv", "w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh, lineterminator="\n")
-        w.writerow(["obs_id", "taxon", "quantity", "value", "unit", "source_id", "locator",
-                    "basis"])
+        w.writerow(
+            ["obs_id", "taxon", "quantity", "value", "unit", "source_id", "locator", "basis"]
+        )
         for i in np.flatnonzero(observed):
             mg = f"{10 ** (log_mass[i] + 6):.6g}"
             w.writerow([f"B{i}", ft.tips[i], "body_mass", mg, "mg", "S1", "Table 1", "reported"])
@@ -69,8 +70,16 @@ def one(n: int) -> None:
         write_dataset(ds, n)
         py = [sys.executable, "-m", "comparo"]
         table = py + ["table", str(ds), "-o", str(Path(tmp) / "table.csv")]
-        impute = py + ["impute", str(ds), "--y", "body_mass", "--format", "json",
-                       "-o", str(Path(tmp) / "imp.json")]
+        impute = py + [
+            "impute",
+            str(ds),
+            "--y",
+            "body_mass",
+            "--format",
+            "json",
+            "-o",
+            str(Path(tmp) / "imp.json"),
+        ]
         subprocess.run(py + ["--help"], capture_output=True)
         t, i = [], []
         load0 = os.getloadavg()[0]
@@ -84,11 +93,13 @@ def one(n: int) -> None:
 
         d = json.loads((Path(tmp) / "imp.json").read_text(encoding="utf-8"))
         cv = d["cross_validation"]
-        print(f"n {n:>6}: table {tw:6.2f} s wall {tc:6.2f} s CPU | impute {iw:6.2f} s wall"
-              f" {ic:6.2f} s CPU | ratio wall {iw / tw:4.2f}, CPU {ic / tc:4.2f} |"
-              f" lambda {d['lambda']:.4f}, {d['n_observed']} observed, {d['n_imputed']} imputed,"
-              f" LOO RMSE {cv['rmse_log']:.3f}, coverage {cv['coverage']:.3f}"
-              f" | load {load0:.1f}-{load1:.1f}")
+        print(
+            f"n {n:>6}: table {tw:6.2f} s wall {tc:6.2f} s CPU | impute {iw:6.2f} s wall"
+            f" {ic:6.2f} s CPU | ratio wall {iw / tw:4.2f}, CPU {ic / tc:4.2f} |"
+            f" lambda {d['lambda']:.4f}, {d['n_observed']} observed, {d['n_imputed']} imputed,"
+            f" LOO RMSE {cv['rmse_log']:.3f}, coverage {cv['coverage']:.3f}"
+            f" | load {load0:.1f}-{load1:.1f}"
+        )
 
 
 if __name__ == "__main__":

@@ -54,23 +54,45 @@ def wall(argv: list[str], ok_codes=(0,), cwd: str | None = None, name: str | Non
     if name:
         CPU.setdefault(name, []).append(r1.ru_utime - r0.ru_utime + r1.ru_stime - r0.ru_stime)
     if proc.returncode not in ok_codes:
-        raise SystemExit(f"{' '.join(argv)} exited {proc.returncode}:\n{proc.stderr.decode()[-2000:]}")
+        raise SystemExit(
+            f"{' '.join(argv)} exited {proc.returncode}:\n{proc.stderr.decode()[-2000:]}"
+        )
     return dt
 
 
 def comparo_origin() -> str:
-    out = subprocess.run([PY, "-c", "import comparo; print(comparo.__file__)"], capture_output=True, text=True, env=ENV)
+    out = subprocess.run(
+        [PY, "-c", "import comparo; print(comparo.__file__)"],
+        capture_output=True,
+        text=True,
+        env=ENV,
+    )
     return str(Path(out.stdout.strip()).parent)
 
 
 def main(rounds: int = 11) -> None:
     work = Path(tempfile.mkdtemp(prefix="comparo-latency-"))
     try:
-        subprocess.run(comparo("demo", "-o", str(work / "demo"), "--quiet"), check=True, capture_output=True, env=ENV)
+        subprocess.run(
+            comparo("demo", "-o", str(work / "demo"), "--quiet"),
+            check=True,
+            capture_output=True,
+            env=ENV,
+        )
         ds = str(work / "demo" / "synthetic_cyclers")
         commands = {
-            "fit sma json": comparo("fit", ds, "--x", "body_mass", "--y", "frequency_observed",
-                                    "--method", "sma", "--format", "json"),
+            "fit sma json": comparo(
+                "fit",
+                ds,
+                "--x",
+                "body_mass",
+                "--y",
+                "frequency_observed",
+                "--method",
+                "sma",
+                "--format",
+                "json",
+            ),
             "check": comparo("check", ds),
             "table -o t.csv": comparo("table", ds, "-o", str(work / "t.csv")),
             "--help": comparo("--help"),
@@ -91,19 +113,27 @@ def main(rounds: int = 11) -> None:
         load1 = os.getloadavg()
     finally:
         shutil.rmtree(work, ignore_errors=True)
-    print(f"whole-process wall time, {rounds} rounds, each command paired with a baseline run just before it "
-          f"(byte-code cached, as installed; python {sys.version.split()[0]}; comparo from {comparo_origin()})")
-    print(f"load average (1, 5, 15 min) before {load0[0]:.2f} {load0[1]:.2f} {load0[2]:.2f}, "
-          f"after {load1[0]:.2f} {load1[1]:.2f} {load1[2]:.2f}; {os.cpu_count()} cpus")
-    print(f"  baseline python -c 'import pandas': median {statistics.median(base_all):.3f} s "
-          f"(CPU {statistics.median(CPU['baseline']):.3f} s)")
+    print(
+        f"whole-process wall time, {rounds} rounds, each command paired with a baseline run just before it "
+        f"(byte-code cached, as installed; python {sys.version.split()[0]}; comparo from {comparo_origin()})"
+    )
+    print(
+        f"load average (1, 5, 15 min) before {load0[0]:.2f} {load0[1]:.2f} {load0[2]:.2f}, "
+        f"after {load1[0]:.2f} {load1[1]:.2f} {load1[2]:.2f}; {os.cpu_count()} cpus"
+    )
+    print(
+        f"  baseline python -c 'import pandas': median {statistics.median(base_all):.3f} s "
+        f"(CPU {statistics.median(CPU['baseline']):.3f} s)"
+    )
     for name in commands:
         med = statistics.median(times[name])
         r = statistics.median(ratios[name])
         target = "target < 0.5 s" if name == "--help" else "target <= 2.0x"
         cpu = statistics.median(CPU[name]) / statistics.median(CPU["baseline"])
-        print(f"  comparo {name:<15} median {med:.3f} s   ratio {r:.2f}x  "
-              f"(paired ratios {min(ratios[name]):.2f}-{max(ratios[name]):.2f}; {target}; CPU-time ratio {cpu:.2f}x)")
+        print(
+            f"  comparo {name:<15} median {med:.3f} s   ratio {r:.2f}x  "
+            f"(paired ratios {min(ratios[name]):.2f}-{max(ratios[name]):.2f}; {target}; CPU-time ratio {cpu:.2f}x)"
+        )
 
 
 if __name__ == "__main__":

@@ -19,8 +19,8 @@ import numpy as np
 import pandas as pd
 
 from comparo import phylo
-from comparo.commands.fit import checked_tree
-from comparo.lines import compare, multiple_fit
+from comparo.cli.commands.fit import checked_tree
+from comparo.fitting import compare, multiple_fit
 
 
 def _brownian(ft, edges: np.ndarray, rng) -> np.ndarray:
@@ -55,19 +55,27 @@ def main(n: int = 100_000) -> None:
     noise = _brownian(ft, pagel_edges(ft, 0.6), rng)  # covariance C(0.6), simulated down the edges
     la, lb, lc = rng.normal(size=(3, n))
     ly = 1.0 + 0.5 * la - 0.3 * lb + 0.2 * lc + 0.1 * noise
-    table = pd.DataFrame({"taxon": list(ft.tips), "a": 10**la, "b": 10**lb, "c": 10**lc, "y": 10**ly})
+    table = pd.DataFrame(
+        {"taxon": list(ft.tips), "a": 10**la, "b": 10**lb, "c": 10**lc, "y": 10**ly}
+    )
     t0, c0 = time.perf_counter(), time.process_time()
     fit = multiple_fit(table, "y", ["a", "b", "c"], method="pgls", tree=topo, lambda_="ml")
     dt, dc = time.perf_counter() - t0, time.process_time() - c0
-    print(f"multiple_fit, 3 predictors, lambda by ML, {n} tips: {dt:.2f} s wall, {dc:.2f} s CPU "
-          "(target under 6 s; wall exceeds CPU when the machine is shared)")
-    print(f"  lambda {fit.lambda_:.4f}, loglik {fit.loglik:.2f}, "
-          + ", ".join(f"{t['term']} {t['estimate']:.4f}" for t in fit.terms))
+    print(
+        f"multiple_fit, 3 predictors, lambda by ML, {n} tips: {dt:.2f} s wall, {dc:.2f} s CPU "
+        "(target under 6 s; wall exceeds CPU when the machine is shared)"
+    )
+    print(
+        f"  lambda {fit.lambda_:.4f}, loglik {fit.loglik:.2f}, "
+        + ", ".join(f"{t['term']} {t['estimate']:.4f}" for t in fit.terms)
+    )
     t0, c0 = time.perf_counter(), time.process_time()
     cmp = compare(table, "y", ["a", "a,b", "a,b,c", "1"], method="pgls", tree=topo, lambda_="ml")
-    print(f"compare, 4 models, lambda by ML in each: {time.perf_counter() - t0:.2f} s wall, "
-          f"{time.process_time() - c0:.2f} s CPU; "
-          f"best {' + '.join(cmp.fits[0].predictors)}")
+    print(
+        f"compare, 4 models, lambda by ML in each: {time.perf_counter() - t0:.2f} s wall, "
+        f"{time.process_time() - c0:.2f} s CPU; "
+        f"best {' + '.join(cmp.fits[0].predictors)}"
+    )
 
 
 if __name__ == "__main__":

@@ -70,18 +70,24 @@ def one(n: int, seed: int = 1) -> None:
     df = pd.DataFrame({"taxon": list(ft.tips), "x": x, "y": y})
     X = sm.add_constant(x)
     t_dense, ref = timed(lambda: sm.GLS(y, X, sigma=C).fit(), repeat=1)
-    t_lin, r = timed(lambda: phylo.phylo_fit(df, "x", "y", tree=tree, log="none", lambda_=1.0), repeat=3)
+    t_lin, r = timed(
+        lambda: phylo.phylo_fit(df, "x", "y", tree=tree, log="none", lambda_=1.0), repeat=3
+    )
     Z = np.column_stack([X, y])
     t_eng, gq = timed(lambda: phylo.gls_quantities(ft, Z), repeat=3)
-    t_ml, rml = timed(lambda: phylo.phylo_fit(df, "x", "y", tree=tree, log="none", lambda_="ml"), repeat=1)
+    t_ml, rml = timed(
+        lambda: phylo.phylo_fit(df, "x", "y", tree=tree, log="none", lambda_="ml"), repeat=1
+    )
     ours = np.array([r["intercept"], r["slope"], r["intercept_se"], r["slope_se"], r["loglik"]])
     theirs = np.array([*ref.params, *ref.bse, ref.llf])
     diff = np.max(np.abs(ours - theirs) / np.abs(theirs))
     beta = np.linalg.solve(gq.W[:2, :2], gq.W[:2, 2])
     diff = max(diff, np.max(np.abs(beta - ref.params) / np.abs(ref.params)))
-    print(f"n {n:>6}: dense GLS {t_dense:7.3f} s | phylo_fit {t_lin:7.4f} s (ratio {t_dense / t_lin:6.1f} x)"
-          f" | engine pass on the prepared tree {t_eng:7.4f} s (ratio {t_dense / t_eng:7.1f} x)"
-          f" | max rel diff {diff:.1e} | lambda-ML phylo_fit {t_ml:6.3f} s (lambda {rml['lambda']:.3f})")
+    print(
+        f"n {n:>6}: dense GLS {t_dense:7.3f} s | phylo_fit {t_lin:7.4f} s (ratio {t_dense / t_lin:6.1f} x)"
+        f" | engine pass on the prepared tree {t_eng:7.4f} s (ratio {t_dense / t_eng:7.1f} x)"
+        f" | max rel diff {diff:.1e} | lambda-ML phylo_fit {t_ml:6.3f} s (lambda {rml['lambda']:.3f})"
+    )
 
 
 def big(n: int = 100_000, seed: int = 7) -> None:
@@ -92,8 +98,10 @@ def big(n: int = 100_000, seed: int = 7) -> None:
     y = 0.5 * x + rng.normal(size=n)
     df = pd.DataFrame({"taxon": [f"t{i + 1}" for i in range(n)], "x": x, "y": y})
     t_fit, r = timed(lambda: phylo.phylo_fit(df, "x", "y", tree=tree, log="none", lambda_="ml"))
-    print(f"n {n}: read Newick {t_read:.2f} s; lambda-ML PGLS (match, prune, search, CI, LR tests) {t_fit:.2f} s;"
-          f" lambda {r['lambda']:.4f} CI {r['lambda_ci']}")
+    print(
+        f"n {n}: read Newick {t_read:.2f} s; lambda-ML PGLS (match, prune, search, CI, LR tests) {t_fit:.2f} s;"
+        f" lambda {r['lambda']:.4f} CI {r['lambda_ci']}"
+    )
 
 
 def whole(n: int = 100_000, seed: int = 7) -> None:
@@ -105,10 +113,31 @@ def whole(n: int = 100_000, seed: int = 7) -> None:
     with tempfile.TemporaryDirectory() as tmp:
         tree, table = Path(tmp) / "tree.nwk", Path(tmp) / "table.csv"
         tree.write_text(nw, encoding="utf-8")
-        pd.DataFrame({"taxon": [f"t{i + 1}" for i in range(n)], "x": x, "y": y}).to_csv(table, index=False)
-        argv = [sys.executable, "-m", "comparo", "fit", str(table), "--x", "x", "--y", "y", "--method", "pgls",
-                "--tree", str(tree), "--log", "none", "--format", "json"]
-        env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}  # byte-code cached, as installed
+        pd.DataFrame({"taxon": [f"t{i + 1}" for i in range(n)], "x": x, "y": y}).to_csv(
+            table, index=False
+        )
+        argv = [
+            sys.executable,
+            "-m",
+            "comparo",
+            "fit",
+            str(table),
+            "--x",
+            "x",
+            "--y",
+            "y",
+            "--method",
+            "pgls",
+            "--tree",
+            str(tree),
+            "--log",
+            "none",
+            "--format",
+            "json",
+        ]
+        env = {
+            k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"
+        }  # byte-code cached, as installed
         subprocess.run([sys.executable, "-m", "comparo", "--help"], capture_output=True, env=env)
         base, cli, cpu = [], [], []
         load0 = os.getloadavg()
@@ -125,9 +154,11 @@ def whole(n: int = 100_000, seed: int = 7) -> None:
             if out.returncode:
                 raise SystemExit(out.stderr[-2000:])
     load = os.getloadavg()
-    print(f"n {n}: whole process 'comparo fit ... --method pgls --tree' median of 3 {np.median(cli):.2f} s wall, "
-          f"{np.median(cpu):.2f} s CPU (user + system) (wall runs {', '.join(f'{t:.2f}' for t in cli)}; target < 6 s); "
-          f"python -c 'import pandas' {np.median(base):.2f} s; load average before {load0[0]:.2f}, after {load[0]:.2f}")
+    print(
+        f"n {n}: whole process 'comparo fit ... --method pgls --tree' median of 3 {np.median(cli):.2f} s wall, "
+        f"{np.median(cpu):.2f} s CPU (user + system) (wall runs {', '.join(f'{t:.2f}' for t in cli)}; target < 6 s); "
+        f"python -c 'import pandas' {np.median(base):.2f} s; load average before {load0[0]:.2f}, after {load[0]:.2f}"
+    )
 
 
 if __name__ == "__main__":

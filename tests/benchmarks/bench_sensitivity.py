@@ -9,11 +9,11 @@ frequencies digitized, standard uncertainties on every value.
 
 Timed:
 
-* ``comparo.reliance`` with SMA: every source left out, the basis steps, the
+* ``comparo.fitting.source_sensitivity`` with SMA: every source left out, the basis steps, the
   taxon jackknife and ``--mc`` Monte Carlo draws (the target: under 10 s for 500
   taxa, 50 sources, 1000 draws);
 * baseline: the naive route to the leave-one-source-out part alone, rebuilding the
-  whole per-taxon table (:func:`comparo.curate.per_taxon`) for each dropped source
+  whole per-taxon table (:func:`comparo.curation.harmonise.per_taxon`) for each dropped source
   and refitting; its slopes must equal the fast route's.
 
 Prints both timings, the ratio, and a plain fit's time for scale.
@@ -48,18 +48,24 @@ def write_compilation(folder: Path, n_taxa: int, n_src: int, seed: int = 2024060
             m = mass * math.exp(rng.normal(0, 0.02))
             f = f_true * math.exp(rng.normal(0, 0.05))
             basis = "digitized" if rng.random() < 0.2 else "reported"
-            rows.append(f"m{k},{taxon},body_mass,{m:.6g},g,{0.03 * m:.3g},sd,5,S{src:02d},Table 1,reported,,,")
-            rows.append(f"f{k},{taxon},frequency_observed,{f:.6g},Hz,{0.05 * f:.3g},sd,5,S{src:02d},Table 2,{basis},,,25")
+            rows.append(
+                f"m{k},{taxon},body_mass,{m:.6g},g,{0.03 * m:.3g},sd,5,S{src:02d},Table 1,reported,,,"
+            )
+            rows.append(
+                f"f{k},{taxon},frequency_observed,{f:.6g},Hz,{0.05 * f:.3g},sd,5,S{src:02d},Table 2,{basis},,,25"
+            )
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "observations.csv").write_text("\n".join(rows) + "\n")
-    src_rows = ["source_id,citation,year,doi"] + [f"S{s:02d},Invented source {s} (2000) for a benchmark,2000," for s in range(n_src)]
+    src_rows = ["source_id,citation,year,doi"] + [
+        f"S{s:02d},Invented source {s} (2000) for a benchmark,2000," for s in range(n_src)
+    ]
     (folder / "sources.csv").write_text("\n".join(src_rows) + "\n")
 
 
 def naive_loso(ds, x: str, y: str, method: str) -> dict[str, float]:
     """Leave one source out by rebuilding the whole per-taxon table each time."""
-    from comparo.curate import harmonise, per_taxon
-    from comparo.lines import fit
+    from comparo.curation.harmonise import harmonise, per_taxon
+    from comparo.fitting import fit
 
     h = harmonise(ds)
     rows = h.rows[h.rows["quantity_key"].isin([x, y])]
@@ -80,10 +86,10 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--method", default="sma")
     args = ap.parse_args(argv)
 
-    from comparo.curate import per_taxon
-    from comparo.dataset import load
-    from comparo.lines import fit
-    from comparo.reliance import sensitivity
+    from comparo.curation.harmonise import per_taxon
+    from comparo.fitting import fit
+    from comparo.fitting.source_sensitivity import sensitivity
+    from comparo.validation.dataset import load
 
     x, y = "body_mass", "frequency_observed"
     with tempfile.TemporaryDirectory() as tmp:
@@ -106,14 +112,26 @@ def main(argv: list[str] | None = None) -> int:
         t_naive = time.perf_counter() - t0
 
     fast = {r["source_id"]: r["slope"] for r in s.leave_one_source_out}
-    assert math.isclose(plain.slope, s.slope, rel_tol=1e-12)  # the sensitivity run starts from the plain fit
-    same = fast.keys() == naive.keys() and all(math.isclose(fast[k], naive[k], rel_tol=1e-12) for k in fast)
+    assert math.isclose(
+        plain.slope, s.slope, rel_tol=1e-12
+    )  # the sensitivity run starts from the plain fit
+    same = fast.keys() == naive.keys() and all(
+        math.isclose(fast[k], naive[k], rel_tol=1e-12) for k in fast
+    )
     n_refits = len(s.leave_one_source_out) + len(s.by_basis)
-    print(f"sensitivity ({args.method.upper()}), {s.jackknife_se['n']} taxa, {len(fast)} sources, "
-          f"{s.measurement_error['draws']} Monte Carlo draws, {len(s.by_basis)} basis steps")
-    print(f"  full sensitivity run:                 {t_full:.2f} s  (target < 10 s for 500 taxa, 50 sources, 1000 draws)")
-    print(f"  naive leave-one-source-out only:      {t_naive:.2f} s  (whole per-taxon table rebuilt per source)")
-    print(f"  plain fit: {t_plain * 1e3:.1f} ms; x {n_refits} source/basis refits = {t_plain * n_refits:.2f} s")
+    print(
+        f"sensitivity ({args.method.upper()}), {s.jackknife_se['n']} taxa, {len(fast)} sources, "
+        f"{s.measurement_error['draws']} Monte Carlo draws, {len(s.by_basis)} basis steps"
+    )
+    print(
+        f"  full sensitivity run:                 {t_full:.2f} s  (target < 10 s for 500 taxa, 50 sources, 1000 draws)"
+    )
+    print(
+        f"  naive leave-one-source-out only:      {t_naive:.2f} s  (whole per-taxon table rebuilt per source)"
+    )
+    print(
+        f"  plain fit: {t_plain * 1e3:.1f} ms; x {n_refits} source/basis refits = {t_plain * n_refits:.2f} s"
+    )
     print(f"  same leave-one-source-out slopes from both routes: {same}")
     print(f"  ratio naive leave-one-source-out / full run: {t_naive / t_full:.2f}x")
     print(f"  verdict: {s.verdict}")

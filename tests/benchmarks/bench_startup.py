@@ -27,7 +27,9 @@ def main(repeats: int = 15) -> None:
     cli = median_run([sys.executable, "-m", "comparo", "--help"], repeats)
     print(f"start-up, median of {repeats} runs")
     print(f"  python -c pass:       {base:.3f} s")
-    print(f"  python -m comparo --help: {cli:.3f} s   (+{cli - base:.3f} s, ratio {cli / base:.1f}x; target < 0.5 s)")
+    print(
+        f"  python -m comparo --help: {cli:.3f} s   (+{cli - base:.3f} s, ratio {cli / base:.1f}x; target < 0.5 s)"
+    )
 
 
 if __name__ == "__main__":

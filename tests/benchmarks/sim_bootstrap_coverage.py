@@ -15,7 +15,7 @@ import sys
 
 import numpy as np
 
-from comparo.lines import bootstrap_line, model2_line
+from comparo.fitting import bootstrap_line, model2_line
 
 
 def main(reps: int = 1000, n: int = 30, n_boot: int = 1000) -> None:
@@ -34,7 +34,9 @@ def main(reps: int = 1000, n: int = 30, n_boot: int = 1000) -> None:
             hits[kind] += lo <= slope <= hi
     for kind, h in hits.items():
         p = h / reps
-        print(f"{kind:10s} coverage {p:.3f} (binomial se {math.sqrt(p * (1 - p) / reps):.3f}), n = {n}, {reps} sets")
+        print(
+            f"{kind:10s} coverage {p:.3f} (binomial se {math.sqrt(p * (1 - p) / reps):.3f}), n = {n}, {reps} sets"
+        )
 
 
 if __name__ == "__main__":

@@ -14,7 +14,7 @@ import pytest
 from scipy import optimize
 from support import run_main
 
-from comparo.lines import fit, segmented_line
+from comparo.fitting import fit, segmented_line
 
 K = 3  # distinct x at or below / at or above the breakpoint (docs/methods/fitting.md)
 
@@ -40,8 +40,12 @@ def _reference(x: np.ndarray, y: np.ndarray) -> tuple[float, float, np.ndarray]:
     knots = u[(u >= lo) & (u <= hi)]
     cands = [*np.linspace(lo, hi, 2001), *knots]
     for a, b in zip(knots[:-1], knots[1:], strict=True):
-        opt = optimize.minimize_scalar(lambda p: _line_at(x, y, p)[1], bounds=(a, b), method="bounded",
-                                       options={"xatol": 1e-12})
+        opt = optimize.minimize_scalar(
+            lambda p: _line_at(x, y, p)[1],
+            bounds=(a, b),
+            method="bounded",
+            options={"xatol": 1e-12},
+        )
         cands.append(float(opt.x))
     vals = np.array([_line_at(x, y, c)[1] for c in cands])
     best = float(cands[int(np.argmin(vals))])
@@ -87,7 +91,7 @@ def test_ties_at_both_ends_never_read_as_a_perfect_fit():
 def test_too_few_distinct_x_is_refused():
     """Twelve points on five distinct x (ties at both ends) cannot hold 3 distinct x on each
     side of a break with an interval to search: a clear usage error, not a fit."""
-    from comparo.errors import UsageError
+    from comparo.base.errors import UsageError
 
     x = np.repeat([1.0, 2.0, 3.0, 4.0, 5.0], [4, 1, 2, 1, 4])
     y = x + np.tile([0.1, -0.1], 6)
@@ -104,7 +108,9 @@ def test_breakpoint_on_a_data_value_reports_the_fitted_lines_slopes():
     x = np.arange(20.0)
     y = 1 + 0.5 * x + 2 * np.clip(x - 10, 0, None) + rng.normal(0, 1.0, 20)
     psi, _, _ = _agrees(segmented_line(x, y), x, y)
-    assert np.min(np.abs(x - psi)) < 1e-9  # the case this test is for: the optimum is an observation
+    assert (
+        np.min(np.abs(x - psi)) < 1e-9
+    )  # the case this test is for: the optimum is an observation
 
 
 @pytest.fixture(scope="module")
@@ -133,26 +139,65 @@ def test_stack_loss_through_fit_json_and_text(stackloss, tmp_path):
     """The same data through the API and ``comparo fit --breakpoint``: the contract keys of the
     JSON ``breakpoint`` hold the broken line's numbers at the independent optimum (natural logs),
     the text prints the same slopes, and the API answers as the CLI."""
-    t = pd.DataFrame({"taxon": [f"run{i + 1}" for i in range(len(stackloss))],
-                      "air_flow": stackloss["AIRFLOW"], "stack_loss": stackloss["STACKLOSS"]})
+    t = pd.DataFrame(
+        {
+            "taxon": [f"run{i + 1}" for i in range(len(stackloss))],
+            "air_flow": stackloss["AIRFLOW"],
+            "stack_loss": stackloss["STACKLOSS"],
+        }
+    )
     path = tmp_path / "stackloss.csv"
     t.to_csv(path, index=False)
     X, Y = np.log(t["air_flow"].to_numpy(float)), np.log(t["stack_loss"].to_numpy(float))
     psi, _, coef = _reference(X, Y)
-    r = run_main("fit", str(path), "--x", "air_flow", "--y", "stack_loss", "--method", "ols", "--log", "e",
-                 "--breakpoint", "--format", "json")
+    r = run_main(
+        "fit",
+        str(path),
+        "--x",
+        "air_flow",
+        "--y",
+        "stack_loss",
+        "--method",
+        "ols",
+        "--log",
+        "e",
+        "--breakpoint",
+        "--format",
+        "json",
+    )
     assert r.returncode == 0, r.stderr
     bp = json.loads(r.stdout)["breakpoint"]
-    assert {"x_log", "x", "x_ci", "slope_left", "slope_left_ci", "slope_right", "slope_right_ci",
-            "p_single_line"} <= set(bp)
-    assert bp["x_log"] == pytest.approx(psi, abs=1e-9) and bp["x"] == pytest.approx(math.exp(psi), rel=1e-9)
+    assert {
+        "x_log",
+        "x",
+        "x_ci",
+        "slope_left",
+        "slope_left_ci",
+        "slope_right",
+        "slope_right_ci",
+        "p_single_line",
+    } <= set(bp)
+    assert bp["x_log"] == pytest.approx(psi, abs=1e-9) and bp["x"] == pytest.approx(
+        math.exp(psi), rel=1e-9
+    )
     assert bp["slope_left"] == pytest.approx(coef[1], rel=1e-7)
     assert bp["slope_right"] == pytest.approx(coef[1] + coef[2], rel=1e-7)
     assert bp["x_ci"][0] < bp["x"] < bp["x_ci"][1]
     api = fit(t, "air_flow", "stack_loss", "ols", log="e", breakpoint=True).breakpoint
     assert api["slope_right"] == bp["slope_right"] and api["x"] == bp["x"]
-    text = run_main("fit", str(path), "--x", "air_flow", "--y", "stack_loss", "--method", "ols", "--log", "e",
-                    "--breakpoint")
+    text = run_main(
+        "fit",
+        str(path),
+        "--x",
+        "air_flow",
+        "--y",
+        "stack_loss",
+        "--method",
+        "ols",
+        "--log",
+        "e",
+        "--breakpoint",
+    )
     assert text.returncode == 0
     line = next(ln for ln in text.stdout.splitlines() if "breakpoint at" in ln)
     assert f"slopes {bp['slope_left']:.5g} | {bp['slope_right']:.5g}" in line

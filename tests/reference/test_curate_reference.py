@@ -8,25 +8,35 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from comparo.curate import q10_from_activation_energy, standard_uncertainty, temperature_factor
+from comparo.curation.harmonise import (
+    q10_from_activation_energy,
+    standard_uncertainty,
+    temperature_factor,
+)
 
 
 def test_q10_definition_worked_example():
     """Q10 = (R2/R1)^(10/(T2-T1)): 12 s^-1 at 10 °C and 30 s^-1 at 20 °C give Q10 2.5
     (definition of the temperature coefficient; e.g. Bennett 1984, Am J Physiol 247:R217)."""
-    f = temperature_factor(np.array([10.0]), 20.0, np.array([2.5]), np.array([np.nan]), np.array([False]))
+    f = temperature_factor(
+        np.array([10.0]), 20.0, np.array([2.5]), np.array([np.nan]), np.array([False])
+    )
     assert 12 * f[0] == pytest.approx(30.0, rel=1e-12)
 
 
 def test_q10_20_to_37_c():
     """20 -> 37 °C at Q10 2.5 multiplies a rate by 2.5^1.7 = 4.74786 (arithmetic)."""
-    f = temperature_factor(np.array([20.0]), 37.0, np.array([2.5]), np.array([np.nan]), np.array([False]))
+    f = temperature_factor(
+        np.array([20.0]), 37.0, np.array([2.5]), np.array([np.nan]), np.array([False])
+    )
     assert f[0] == pytest.approx(4.74786, rel=1e-5)
 
 
 def test_times_get_the_reciprocal_factor():
     """A relaxation time is 1/rate, so it shortens by the rate's factor on warming."""
-    f = temperature_factor(np.array([15.0]), 25.0, np.array([2.0]), np.array([np.nan]), np.array([True]))
+    f = temperature_factor(
+        np.array([15.0]), 25.0, np.array([2.0]), np.array([np.nan]), np.array([True])
+    )
     assert f[0] == pytest.approx(0.5)
 
 
@@ -34,7 +44,9 @@ def test_arrhenius_q10_from_activation_energy():
     """Arrhenius k = A exp(-Ea/RT), R = 8.314462618 J/(mol K) (CODATA 2018):
     Ea 50 kJ/mol gives Q10(20->30 °C) = 1.96735."""
     assert q10_from_activation_energy(50.0, 20.0, 30.0) == pytest.approx(1.96735, rel=1e-5)
-    f = temperature_factor(np.array([20.0]), 30.0, np.array([np.nan]), np.array([50.0]), np.array([False]))
+    f = temperature_factor(
+        np.array([20.0]), 30.0, np.array([np.nan]), np.array([50.0]), np.array([False])
+    )
     assert f[0] == pytest.approx(1.96735, rel=1e-5)
 
 
@@ -72,9 +84,14 @@ def test_inverse_variance_mean_equals_intercept_only_wls(tmp_path):
     v = np.array([10.0, 11.0, 10.4])
     u = np.array([0.5, 0.8, 0.6])
     hdr = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,inputs,proxy_taxon,temperature_c"
-    rows = [f"o{i},Apis mellifera,fiber_radius,{a},um,{b},se,,s1,T{i},reported,,," for i, (a, b) in enumerate(zip(v, u, strict=True))]
+    rows = [
+        f"o{i},Apis mellifera,fiber_radius,{a},um,{b},se,,s1,T{i},reported,,,"
+        for i, (a, b) in enumerate(zip(v, u, strict=True))
+    ]
     tab = comparo.per_taxon(comparo.load(write_dataset(tmp_path / "w", rows, header=hdr)))
-    wls = sm.WLS(v, np.ones((3, 1)), weights=1 / u**2).fit(cov_type="fixed scale", cov_kwds={"scale": 1.0})
+    wls = sm.WLS(v, np.ones((3, 1)), weights=1 / u**2).fit(
+        cov_type="fixed scale", cov_kwds={"scale": 1.0}
+    )
     assert tab["fiber_radius"].iat[0] == pytest.approx(wls.params[0], rel=1e-12)
     # the values agree within their uncertainties (Birge ratio < 1), so no inflation
     assert tab["fiber_radius_u"].iat[0] == pytest.approx(wls.bse[0], rel=1e-12)

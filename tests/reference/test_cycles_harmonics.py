@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from support import VALID_ROWS, run_main, write_dataset
 
-from comparo import loops
+from comparo.traces import oscillation as loops
 
 F = 2.0  # Hz
 
@@ -118,11 +118,15 @@ def test_noise_leaves_the_harmonic_estimate_unbiased():
 def drifting(tmp_path):
     ds = write_dataset(tmp_path / "ds", list(VALID_ROWS))
     t, x, y = _signals(4.5, _loop_case(2))
-    (ds / "w.csv").write_text("time_s,len_mm,force_mN\n" + "\n".join(
-        f"{a:.9f},{b:.12f},{c:.12f}" for a, b, c in zip(t, x, y, strict=True)) + "\n")
+    (ds / "w.csv").write_text(
+        "time_s,len_mm,force_mN\n"
+        + "\n".join(f"{a:.9f},{b:.12f},{c:.12f}" for a, b, c in zip(t, x, y, strict=True))
+        + "\n"
+    )
     (ds / "traces.csv").write_text(
         "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,y_column,y_unit,"
-        "temperature_c,muscle\nW1,w.csv,Apis mellifera,s1,Fig. 1,work_loop,time_s,s,len_mm,mm,force_mN,mN,30,flight\n")
+        "temperature_c,muscle\nW1,w.csv,Apis mellifera,s1,Fig. 1,work_loop,time_s,s,len_mm,mm,force_mN,mN,30,flight\n"
+    )
     return ds, t, x, y
 
 
@@ -133,7 +137,7 @@ def test_drift_removal_can_be_turned_off(drifting):
     interpolated at the bounds), which the drift opens; the default removes the drift and
     gives the exact value (pi sum k a_k b_k sin(dphi), mm x mN = 1e-6 J) within 0.1%."""
     import comparo
-    from comparo.traces import cycles
+    from comparo.traces.files import cycles
 
     ds, t, x, y = drifting
     exact = 1e-6 * exact_loop_integral(*_loop_case(2))

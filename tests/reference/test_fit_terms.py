@@ -19,7 +19,7 @@ import statsmodels.api as sm
 from scipy import stats
 from support import run_main
 
-from comparo.lines.scaling import fit
+from comparo.fitting.scaling import fit
 from comparo.phylo import random_newick
 
 
@@ -62,8 +62,20 @@ def test_pgls_terms_match_dense_gls():
     names = [nd.taxon.label for nd in leaves]
     depth = [nd.distance_from_root() for nd in leaves]
     n = len(names)
-    C = np.array([[0.5 * (depth[i] + depth[j] - (0.0 if i == j else pdm.patristic_distance(a.taxon, b.taxon)))
-                   for j, b in enumerate(leaves)] for i, a in enumerate(leaves)])
+    C = np.array(
+        [
+            [
+                0.5
+                * (
+                    depth[i]
+                    + depth[j]
+                    - (0.0 if i == j else pdm.patristic_distance(a.taxon, b.taxon))
+                )
+                for j, b in enumerate(leaves)
+            ]
+            for i, a in enumerate(leaves)
+        ]
+    )
     lam = 0.6
     V = lam * C + (1 - lam) * np.diag(np.diag(C))
     t = _table(n, 5, names)
@@ -84,7 +96,9 @@ def test_robust_terms_are_huber_wald_z():
     for i, term in enumerate(terms):
         assert term["se"] == pytest.approx(res.bse[i], rel=1e-8)
         assert term["t"] == pytest.approx(res.params[i] / res.bse[i], rel=1e-8)
-        assert term["p"] == pytest.approx(2 * stats.norm.sf(abs(res.params[i] / res.bse[i])), rel=1e-6, abs=1e-300)
+        assert term["p"] == pytest.approx(
+            2 * stats.norm.sf(abs(res.params[i] / res.bse[i])), rel=1e-6, abs=1e-300
+        )
 
 
 def test_sma_terms_carry_the_methods_intervals_and_no_se():
@@ -103,7 +117,27 @@ def test_cli_json_keeps_every_key_and_adds_terms(tmp_path):
     p = run_main("fit", str(path), "--x", "m", "--y", "f", "--method", "ols", "--format", "json")
     assert p.returncode == 0, p.stderr
     d = json.loads(p.stdout)
-    for key in ("method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2",
-                "ci_level", "against", "lambda", "lambda_ci", "loglik", "groups", "outliers", "excluded"):
+    for key in (
+        "method",
+        "x",
+        "y",
+        "log",
+        "n",
+        "slope",
+        "slope_ci",
+        "intercept",
+        "intercept_ci",
+        "r2",
+        "ci_level",
+        "against",
+        "lambda",
+        "lambda_ci",
+        "loglik",
+        "groups",
+        "outliers",
+        "excluded",
+    ):
         assert key in d
-    assert d["x"] == "m" and d["terms"][1]["term"] == "m" and d["terms"][1]["estimate"] == d["slope"]
+    assert (
+        d["x"] == "m" and d["terms"][1]["term"] == "m" and d["terms"][1]["estimate"] == d["slope"]
+    )

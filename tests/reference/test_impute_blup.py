@@ -90,8 +90,9 @@ def test_passes_equal_the_dense_blup_at_a_fixed_lambda(n, seed, ultrametric, dro
 
 
 @pytest.mark.parametrize("n, seed, ultrametric, drop_clade", CASES)
-def test_imputation_with_fixed_and_ml_lambda_equals_the_dense_computation(n, seed, ultrametric,
-                                                                          drop_clade):
+def test_imputation_with_fixed_and_ml_lambda_equals_the_dense_computation(
+    n, seed, ultrametric, drop_clade
+):
     """impute_tree's log values and SEs (sigma² by REML) vs the dense computation to 1e-8;
     the ML lambda maximises the dense likelihood at least as well as scipy's bounded search
     (scipy.optimize.minimize_scalar, an independent optimiser)."""
@@ -104,8 +105,12 @@ def test_imputation_with_fixed_and_ml_lambda_equals_the_dense_computation(n, see
         r = impute_tree(topo, values, lam_arg)
         lam = r["lambda"]
         if lam_arg == "ml":
-            best = minimize_scalar(lambda v: -_dense_loglik(C, y, obs, v), bounds=(0, 1),
-                                   method="bounded", options={"xatol": 1e-10})
+            best = minimize_scalar(
+                lambda v: -_dense_loglik(C, y, obs, v),
+                bounds=(0, 1),
+                method="bounded",
+                options={"xatol": 1e-10},
+            )
             ref = max(-best.fun, _dense_loglik(C, y, obs, 0.0), _dense_loglik(C, y, obs, 1.0))
             assert _dense_loglik(C, y, obs, lam) >= ref - 1e-7
         else:

@@ -45,12 +45,20 @@ def test_brent_minimiser_equals_scipys_bounded_search(k, xatol):
     assert abs(ours - true) <= xatol + (b - a) / 200000
 
 
-@pytest.mark.parametrize("f,a,b,root", [
-    (lambda v: v ** 3 - 2.0, 0.0, 3.0, 2.0 ** (1 / 3)),
-    (lambda v: math.exp(v) - 5.0, -10.0, 10.0, math.log(5.0)),
-    (lambda v: 2.0 * (10.0 - (10.0 - 40.0 * (v - 0.2) ** 2)) - 3.841459, 0.2, 1.0, 0.2 + math.sqrt(3.841459 / 80.0)),
-    (lambda v: math.tanh(50.0 * (v - 0.01)), 0.0, 1.0, 0.01),
-])
+@pytest.mark.parametrize(
+    "f,a,b,root",
+    [
+        (lambda v: v**3 - 2.0, 0.0, 3.0, 2.0 ** (1 / 3)),
+        (lambda v: math.exp(v) - 5.0, -10.0, 10.0, math.log(5.0)),
+        (
+            lambda v: 2.0 * (10.0 - (10.0 - 40.0 * (v - 0.2) ** 2)) - 3.841459,
+            0.2,
+            1.0,
+            0.2 + math.sqrt(3.841459 / 80.0),
+        ),
+        (lambda v: math.tanh(50.0 * (v - 0.01)), 0.0, 1.0, 0.01),
+    ],
+)
 @pytest.mark.parametrize("xtol", [1e-6, 1e-10])
 def test_brent_root_finder_agrees_with_brentq(f, a, b, root, xtol):
     """Both stop once the bracket is within xtol: each result is within xtol of the root."""
@@ -73,8 +81,12 @@ def _scipy_search(ft, X, y, reml, ci=0.95):
     vals = np.array([ll(v) for v in grid])
     i = int(np.argmax(vals))
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, 10)]
-    res = minimize_scalar(lambda v: -ll(v), bounds=(lo, hi), method="bounded", options={"xatol": 1e-6})
-    lam, lmax = max([(float(res.x), ll(float(res.x))), (float(grid[i]), float(vals[i]))], key=lambda t: t[1])
+    res = minimize_scalar(
+        lambda v: -ll(v), bounds=(lo, hi), method="bounded", options={"xatol": 1e-6}
+    )
+    lam, lmax = max(
+        [(float(res.x), ll(float(res.x))), (float(grid[i]), float(vals[i]))], key=lambda t: t[1]
+    )
     crit = chi2.ppf(ci, 1)
 
     def g(v):
@@ -115,8 +127,15 @@ def _data(k, n, lam_true):
     return nw, ft, pd.DataFrame({"taxon": list(ft.tips), "x": x, "y": y})
 
 
-CASES = [(k, n, lam, reml) for k, (n, lam, reml) in enumerate(
-    (n, lam, reml) for n in (8, 30, 200, 800) for lam in (0.0, 0.3, 0.8, 1.0) for reml in (False, True))]
+CASES = [
+    (k, n, lam, reml)
+    for k, (n, lam, reml) in enumerate(
+        (n, lam, reml)
+        for n in (8, 30, 200, 800)
+        for lam in (0.0, 0.3, 0.8, 1.0)
+        for reml in (False, True)
+    )
+]
 
 
 @pytest.mark.parametrize("k,n,lam_true,reml", CASES)
@@ -139,7 +158,14 @@ def test_lambda_ml_fit_equals_the_same_search_done_with_scipy(k, n, lam_true, re
     assert abs(r["lambda"] - lam) <= 1e-6
     assert abs(r["loglik"] - lmax) <= 1e-6 * abs(lmax)
     se = np.sqrt(np.diag(fit.cov))
-    for key, want in (("intercept", fit.beta[0]), ("slope", fit.beta[1]), ("intercept_se", se[0]), ("slope_se", se[1])):
+    for key, want in (
+        ("intercept", fit.beta[0]),
+        ("slope", fit.beta[1]),
+        ("intercept_se", se[0]),
+        ("slope_se", se[1]),
+    ):
         assert r[key] == pytest.approx(want, rel=1e-6, abs=1e-12), key
     assert abs(r["lambda_ci"][0] - ci[0]) <= 2e-6 and abs(r["lambda_ci"][1] - ci[1]) <= 2e-6
-    assert r["lambda_tests"]["lambda_0"]["p"] == pytest.approx(chi2.sf(2 * (lmax - _ll(_gls(ft, X, y, 0.0, None, reml), reml)), 1), rel=1e-6, abs=1e-12)
+    assert r["lambda_tests"]["lambda_0"]["p"] == pytest.approx(
+        chi2.sf(2 * (lmax - _ll(_gls(ft, X, y, 0.0, None, reml), reml)), 1), rel=1e-6, abs=1e-12
+    )

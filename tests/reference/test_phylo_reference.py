@@ -30,7 +30,9 @@ Y4 = np.array([0.5, 1.9, 2.2, 3.8])
 
 def dense_cov(newick: str, labels: list[str] | None = None) -> tuple[list[str], np.ndarray]:
     """BM covariance from dendropy's patristic distances (the independent route)."""
-    tree = dendropy.Tree.get(data=newick, schema="newick", preserve_underscores=True, rooting="force-rooted")
+    tree = dendropy.Tree.get(
+        data=newick, schema="newick", preserve_underscores=True, rooting="force-rooted"
+    )
     if labels is not None:
         tree.retain_taxa_with_labels(labels)
     pdm = tree.phylogenetic_distance_matrix()
@@ -68,7 +70,12 @@ def dense_loglik(C, X, y, reml=False):
     rss = r @ Ci @ r
     ld = np.linalg.slogdet(C)[1]
     if reml:
-        return -0.5 * ((n - p) * math.log(2 * math.pi * rss / (n - p)) + ld + np.linalg.slogdet(XtX)[1] + (n - p))
+        return -0.5 * (
+            (n - p) * math.log(2 * math.pi * rss / (n - p))
+            + ld
+            + np.linalg.slogdet(XtX)[1]
+            + (n - p)
+        )
     return -0.5 * (n * math.log(2 * math.pi * rss / n) + ld + n)
 
 
@@ -103,7 +110,9 @@ def test_four_tip_worked_example_covariance_and_gls():
     gq = phylo.gls_quantities(ft, Zt)
     assert gq.logdet == pytest.approx(2.169054, abs=1e-6)
     assert gq.logdet == pytest.approx(math.log(8.75), rel=1e-12)
-    np.testing.assert_allclose(gq.W[:2, :2], [[1.742857, 3.342857], [3.342857, 9.542857]], atol=1e-6)
+    np.testing.assert_allclose(
+        gq.W[:2, :2], [[1.742857, 3.342857], [3.342857, 9.542857]], atol=1e-6
+    )
     np.testing.assert_allclose(gq.W[:2, 2], [4.465714, 12.145714], atol=1e-6)
     assert gq.W[2, 2] == pytest.approx(15.705429, abs=1e-6)
     Ci = np.linalg.inv(C)
@@ -131,14 +140,20 @@ def test_four_tip_worked_example_lambda_tree():
     l_ML = -0.225777, -0.362228, -0.432041 at lambda 0, 0.5, 1; the ML lambda is 0."""
     ft = phylo.flat_tree(phylo.read_tree(FOUR))
     half = phylo.flat_tree(phylo.read_tree("((A:1.5,B:2.5):0.5,(C:1.75,D:0.75):0.25);"))
-    np.testing.assert_allclose(half.covariance(), ft.covariance() * 0.5 + 0.5 * np.diag(np.diag(ft.covariance())))
+    np.testing.assert_allclose(
+        half.covariance(), ft.covariance() * 0.5 + 0.5 * np.diag(np.diag(ft.covariance()))
+    )
     np.testing.assert_allclose(np.sort(phylo.pagel_edges(ft, 0.5)), np.sort(half.length))
     df = pd.DataFrame({"taxon": list("ABCD"), "x": X4, "y": Y4})
     for lam, want in [(0.0, -0.225777), (0.5, -0.362228), (1.0, -0.432041)]:
-        assert phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=lam)["loglik"] == pytest.approx(want, abs=1e-6)
+        assert phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=lam)[
+            "loglik"
+        ] == pytest.approx(want, abs=1e-6)
     r = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_="ml")
     assert r["lambda"] == pytest.approx(0.0, abs=1e-4)
-    assert r["lambda_tests"]["lambda_1"]["statistic"] == pytest.approx(2 * (-0.225777 + 0.432041), abs=1e-5)
+    assert r["lambda_tests"]["lambda_1"]["statistic"] == pytest.approx(
+        2 * (-0.225777 + 0.432041), abs=1e-5
+    )
 
 
 def test_four_tip_worked_example_contrasts_and_k():
@@ -150,7 +165,9 @@ def test_four_tip_worked_example_contrasts_and_k():
     cy = phylo.contrasts(tree, dict(zip("ABCD", Y4, strict=True)))
     np.testing.assert_allclose(cx.contrasts, [-0.577350, -0.707107, -1.515854], atol=1e-6)
     np.testing.assert_allclose(cy.contrasts, [-0.808290, -1.131371, -1.526308], atol=1e-6)
-    assert (cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts) == pytest.approx(1.143455, abs=1e-6)
+    assert (cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts) == pytest.approx(
+        1.143455, abs=1e-6
+    )
     assert cy.root_value == pytest.approx(2.562295, abs=1e-6)
     C = np.array([[2, 1, 0, 0], [1, 3, 0, 0], [0, 0, 2, 0.5], [0, 0, 0.5, 1.0]])
     one = np.ones(4)
@@ -178,7 +195,9 @@ def test_four_tip_worked_example_measurement_error():
     e[:4] += se2
     gq = phylo.gls_quantities(ft, Z, e)
     assert gq.logdet == pytest.approx(2.598384, abs=1e-6)
-    np.testing.assert_allclose(np.linalg.solve(gq.W[:2, :2], gq.W[:2, 2]), [0.375853, 1.128912], atol=1e-6)
+    np.testing.assert_allclose(
+        np.linalg.solve(gq.W[:2, :2], gq.W[:2, 2]), [0.375853, 1.128912], atol=1e-6
+    )
 
 
 # --------------------------------------------------------------------------- random trees vs statsmodels
@@ -220,7 +239,9 @@ def test_polytomy_tree_counted_correctly():
     C = np.array([[2, 1, 1, 0], [1, 2, 1, 0], [1, 1, 2, 0], [0, 0, 0, 2.0]])
     ft = phylo.flat_tree(phylo.read_tree("((A:1,B:1,C:1):1,D:2);"))
     idx = ft.index(list("ABCD"))
-    assert phylo.gls_quantities(ft, np.ones((4, 1))).logdet == pytest.approx(np.linalg.slogdet(C)[1], rel=1e-12)
+    assert phylo.gls_quantities(ft, np.ones((4, 1))).logdet == pytest.approx(
+        np.linalg.slogdet(C)[1], rel=1e-12
+    )
     np.testing.assert_allclose(ft.covariance()[np.ix_(idx, idx)], C)
 
 
@@ -252,7 +273,7 @@ def test_lambda_ml_matches_dense_grid():
     for reml in (False, True):
         ll = [dense_loglik(pagel(C, g), X, y, reml=reml) for g in grid[::10]]
         i = int(np.argmax(ll)) * 10
-        fine = grid[max(0, i - 10): i + 11]
+        fine = grid[max(0, i - 10) : i + 11]
         llf = [dense_loglik(pagel(C, g), X, y, reml=reml) for g in fine]
         lam_grid = fine[int(np.argmax(llf))]
         r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_="ml", reml=reml)
@@ -261,7 +282,9 @@ def test_lambda_ml_matches_dense_grid():
         # profile CI ends satisfy 2(lmax - l) = chi2_1(0.95) = 3.8415 or sit on a bound
         for end in r["lambda_ci"]:
             if 0.0 < end < 1.0:
-                assert 2 * (r["loglik"] - dense_loglik(pagel(C, end), X, y, reml=reml)) == pytest.approx(3.841459, abs=1e-4)
+                assert 2 * (
+                    r["loglik"] - dense_loglik(pagel(C, end), X, y, reml=reml)
+                ) == pytest.approx(3.841459, abs=1e-4)
 
 
 def test_star_tree_and_lambda_zero_give_ols():
@@ -291,7 +314,9 @@ def test_star_tree_and_lambda_zero_give_ols():
     nw3 = phylo.random_newick(30, 44, ultrametric=False)
     tn3, C3, x3, y3 = simulate(nw3, 45)
     wls = sm.WLS(y3, sm.add_constant(x3), weights=1 / np.diag(C3)).fit()
-    r3 = phylo.phylo_fit(pd.DataFrame({"taxon": tn3, "x": x3, "y": y3}), "x", "y", tree=nw3, log="none", lambda_=0.0)
+    r3 = phylo.phylo_fit(
+        pd.DataFrame({"taxon": tn3, "x": x3, "y": y3}), "x", "y", tree=nw3, log="none", lambda_=0.0
+    )
     np.testing.assert_allclose([r3["intercept"], r3["slope"]], wls.params, rtol=1e-8)
 
 
@@ -336,7 +361,9 @@ def test_pgls_measurement_error_fit_matches_dense_ml():
         r = y - X @ b
         return -0.5 * (len(y) * math.log(2 * math.pi) + np.linalg.slogdet(V)[1] + r @ Vi @ r), b
 
-    opt = minimize_scalar(lambda v: -dense(v)[0], bounds=(-12, 4), method="bounded", options={"xatol": 1e-10})
+    opt = minimize_scalar(
+        lambda v: -dense(v)[0], bounds=(-12, 4), method="bounded", options={"xatol": 1e-10}
+    )
     ll_ref, b_ref = dense(opt.x)
     r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam, tip_se="y_u")
     assert r["loglik"] == pytest.approx(ll_ref, abs=1e-6)
@@ -383,7 +410,9 @@ def test_contrast_slope_equals_gls_slope(seed, poly, ultra):
     cy = phylo.contrasts(nw, dict(zip(names, y, strict=True)))
     assert cx.contrasts.size == len(names) - 1
     ref = sm.GLS(y, sm.add_constant(x), sigma=C).fit()
-    assert (cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts) == pytest.approx(ref.params[1], rel=1e-9)
+    assert (cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts) == pytest.approx(
+        ref.params[1], rel=1e-9
+    )
     mean = sm.GLS(y, np.ones(len(y)), sigma=C).fit().params[0]
     assert cy.root_value == pytest.approx(mean, rel=1e-9)
     # sum of squared contrasts = generalised RSS about the GLS mean (same identity)
@@ -433,12 +462,16 @@ def test_ladder_tree_depth_50000_bounded_time():
     names = [f"t{i}" for i in range(n)]
     x = rng.normal(size=n)
     y = 0.5 * x + rng.normal(size=n)
-    r = phylo.phylo_fit(pd.DataFrame({"taxon": names, "x": x, "y": y}), "x", "y", tree=tree, log="none", lambda_=1.0)
+    r = phylo.phylo_fit(
+        pd.DataFrame({"taxon": names, "x": x, "y": y}), "x", "y", tree=tree, log="none", lambda_=1.0
+    )
     cx = phylo.contrasts(tree, dict(zip(names, x, strict=True)))
     cy = phylo.contrasts(tree, dict(zip(names, y, strict=True)))
     elapsed = time.perf_counter() - start
     assert r["n"] == n
-    assert r["slope"] == pytest.approx((cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts), rel=1e-8)
+    assert r["slope"] == pytest.approx(
+        (cx.contrasts @ cy.contrasts) / (cx.contrasts @ cx.contrasts), rel=1e-8
+    )
     assert elapsed < 60
 
 

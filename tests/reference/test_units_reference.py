@@ -5,7 +5,7 @@ import math
 
 import pytest
 
-from comparo import units
+from comparo.base import units
 
 # (from, to, factor): value in `from` times factor = value in `to`
 NIST_SP811 = [

@@ -1,0 +1,281 @@
+"""``comparo fit DATA --x Q --y Q``: scaling fit with CIs, tests and flags."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from comparo.base.errors import UsageError
+from comparo.base.outputs import dumps, emit
+
+
+def is_dataset(data: str) -> bool:
+    """A dataset folder, or a dataset workbook (.xlsx with observations and sources sheets)."""
+    path = Path(data)
+    return path.is_dir() or (path.is_file() and path.suffix.lower() in (".xlsx", ".xlsm"))
+
+
+def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True, say: bool = True):
+    """A per-taxon table from a dataset folder or workbook, or a plain CSV read as it is.
+
+    A plain CSV without the label column names its points by its first column when
+    that holds distinct text (copied as the label column), else by CSV line; a note
+    on standard error says which (when *say*).
+    """
+    import pandas as pd
+
+    path = Path(data)
+    if is_dataset(data):
+        from comparo.curation.harmonise import per_taxon
+        from comparo.validation.dataset import load
+
+        return per_taxon(load(path), temperature=temperature)
+    if not path.is_file():
+        raise UsageError(f"DATA {data!r} is neither a dataset folder nor a CSV file")
+    try:
+        frame = pd.read_csv(path)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise UsageError(f"cannot read {data!r} as CSV: {exc}") from None
+    from comparo.base.csvsafe import restore_frame
+
+    restore_frame(frame)  # the apostrophe before a formula-like text of a CSV comparo wrote
+    if taxon_col in frame.columns or frame.empty:
+        return frame
+    first = frame.columns[0]
+    text = frame[first]
+    named = (
+        not pd.api.types.is_numeric_dtype(text)
+        and text.notna().all()
+        and text.is_unique
+        and pd.to_numeric(text, errors="coerce").isna().all()
+    )
+    if named:
+        frame[taxon_col] = text.astype(str)
+        note = f"points are named by its first column {first!r}"
+    else:
+        frame[taxon_col] = [f"row {i + 2}" for i in range(len(frame))]
+        note = "its first column is not a column of distinct names, so points are named by CSV line (row N)"
+    if say:
+        sys.stderr.write(
+            f"note: {path.name} has no {taxon_col!r} column: {note} (--taxon-col chooses the label column)\n"
+        )
+    return frame
+
+
+def _phylo_only_options(args) -> None:
+    """--lambda, --reml, --tip-se and --tree mean something only for pgls: refuse them otherwise."""
+    given = [
+        flag
+        for flag, on in (
+            ("--lambda", args.lambda_ is not None),
+            ("--reml", args.reml),
+            ("--tip-se", getattr(args, "tip_se", False)),
+            ("--tree", args.tree is not None),
+        )
+        if on
+    ]
+    if given and args.method != "pgls":
+        raise UsageError(
+            f"{', '.join(given)} {'applies' if len(given) == 1 else 'apply'} only to --method pgls "
+            f"(the method here is {args.method})"
+        )
+
+
+def _pgls_options(args) -> dict:
+    from comparo.reading.tables import TAXA_NAMES, TREE_NAMES, companion_file, is_workbook
+
+    lam = "ml" if args.lambda_ is None else args.lambda_
+    if lam != "ml":
+        try:
+            lam = float(lam)
+        except ValueError:
+            raise UsageError(
+                f"--lambda must be 'ml' or a number in [0, 1] (got {args.lambda_!r})"
+            ) from None
+        if not 0 <= lam <= 1:
+            raise UsageError(f"--lambda must lie in [0, 1] (got {lam})")
+    opts = {"lambda_": lam, "reml": bool(args.reml)}
+    if getattr(args, "tip_se", False):
+        opts["tip_se"] = True
+    tree = args.tree
+    own_tree = companion_file(args.data, TREE_NAMES) if is_dataset(args.data) else None
+    if tree is None and own_tree is not None:
+        tree = str(own_tree)
+    if tree is None:
+        raise UsageError(
+            "method pgls needs a tree: give --tree FILE or put tree.nwk in the dataset folder (or beside the dataset workbook)"
+        )
+    opts["tree"] = checked_tree(tree)
+    taxa = companion_file(args.data, TAXA_NAMES) if Path(args.data).is_dir() else None
+    if taxa is not None or is_workbook(args.data):
+        from comparo.phylo import dataset_tree_labels, read_tree, tip_labels
+        from comparo.validation.dataset import load
+
+        ds = load(args.data)
+        if (
+            ds.taxa is not None
+        ):  # the per-taxon table holds accepted names; one taxon on two tips is an error
+            own = (
+                ds.tree is not None
+                and own_tree is not None
+                and Path(tree).resolve() == own_tree.resolve()
+            )
+            given = opts["tree"] if not isinstance(opts["tree"], str) else read_tree(tree)
+            labels = dataset_tree_labels(ds.taxa, tip_labels(ds.tree if own else given))
+            if labels:
+                opts["tree_labels"] = labels
+    return opts
+
+
+def checked_tree(path: str):
+    """The tree file as the checked topology :mod:`comparo.phylo` fits on, read by
+    :func:`comparo.reading.newick.parse` when it is plain Newick (a 100,000-tip tree in well
+    under a second, where building dendropy's tree objects takes seconds); otherwise
+    the path itself, which :mod:`comparo.phylo` reads with dendropy and its messages.
+    Read as :func:`comparo.phylo.read_tree` reads it (UTF-8, an optional BOM, the final
+    ';' optional) and checked by the same rules (labels, duplicates, branch lengths)."""
+    from comparo.phylo.trees import _check
+    from comparo.reading import newick
+    from comparo.reading.tables import not_a_file
+
+    if not_a_file(path):
+        return path  # refused by comparo.phylo.read_tree with its message
+    try:
+        text = Path(path).read_text(encoding="utf-8-sig").strip()
+    except (OSError, UnicodeDecodeError):
+        return path
+    topo = newick.parse(text)
+    if topo is None:
+        return path
+    _check(topo, path)
+    return topo
+
+
+def _fit(args, table, pgls: dict, progress: bool):
+    from comparo.fitting import fit
+
+    return fit(
+        table,
+        args.x,
+        args.y,
+        args.method,
+        by=args.by,
+        against=args.against,
+        ci=args.ci,
+        log=args.log,
+        bootstrap=args.bootstrap,
+        seed=args.seed,
+        taxon_col=args.taxon_col,
+        breakpoint=args.breakpoint,
+        progress=progress,
+        drop_flagged=getattr(args, "drop_flagged", None),
+        **pgls,
+    )
+
+
+def _renamed_options(args) -> None:
+    """``--test-slope`` is the old name of ``--against``: a note on standard error, then the value is used."""
+    old = getattr(args, "test_slope_renamed", None)
+    if old is None:
+        return
+    print(
+        "comparo: note: --test-slope is renamed --against and will be removed; "
+        'the JSON key is now "against"',
+        file=sys.stderr,
+    )
+    if args.against is None:
+        args.against = old
+
+
+def run(args) -> int:
+    from comparo.cli.commands.fit_multiple import one_x, run_multiple
+
+    if not one_x(args):  # several --x, or --factor: the multiple regression
+        return run_multiple(args)
+    _renamed_options(args)
+    _phylo_only_options(args)
+    if args.sensitivity:
+        return run_sensitivity(args)
+    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
+    pgls = _pgls_options(args) if args.method == "pgls" else {}
+    result = _fit(args, table, pgls, sys.stderr.isatty())
+    if args.format == "json":
+        emit(dumps(result.to_dict()))
+    elif args.format == "csv":
+        from comparo.base.csvsafe import to_csv
+
+        sys.stdout.write(to_csv(result.to_frame()))
+    else:
+        emit(result.summary())
+    return 0
+
+
+def run_sensitivity(args) -> int:
+    """``comparo fit ... --sensitivity``: the fit with its ``sensitivity`` field filled.
+
+    Text output is the fit's summary followed by the sensitivity summary, JSON
+    the fit object with ``"sensitivity"`` filled, CSV the table of
+    :meth:`comparo.fitting.source_sensitivity.SensitivityResult.to_frame`. With ``--by`` the
+    sensitivity of the pooled fit is followed by that of each group (JSON:
+    ``"sensitivity"`` also holds ``"by_group"``; CSV: a ``group`` column; see
+    docs/sensitivity.md).
+    """
+    from comparo.base.arguments import check_draws
+    from comparo.fitting.source_sensitivity import (
+        sensitivity,
+        sensitivity_by_group,
+        with_sensitivity,
+    )
+
+    pgls = _pgls_options(args) if args.method == "pgls" else {}
+    if is_dataset(args.data):
+        from comparo.validation.dataset import load
+
+        data = load(args.data)
+    else:
+        data = read_table(args.data, args.taxon_col)
+    obs = getattr(data, "observations", data)
+    n_taxa = obs[args.taxon_col].nunique() if args.taxon_col in obs else len(obs)
+    check_draws(args.mc, int(n_taxa), args.method, "--mc")
+    progress = sys.stderr.isatty()
+    opts = dict(
+        against=args.against,
+        ci=args.ci,
+        log=args.log,
+        mc=args.mc,
+        seed=args.seed,
+        progress=progress,
+        temperature=not args.no_temperature,
+        taxon_col=args.taxon_col,
+        **pgls,
+    )
+    sens = sensitivity(data, args.x, args.y, args.method, **opts)
+    groups = (
+        sensitivity_by_group(data, args.x, args.y, args.method, by=args.by, **opts)
+        if args.by
+        else None
+    )
+    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature, say=False)
+    result = with_sensitivity(_fit(args, table, pgls, progress), sens, by_group=groups)
+    if args.format == "json":
+        emit(dumps(result.to_dict()))
+    elif args.format == "csv":
+        import pandas as pd
+
+        from comparo.base.csvsafe import to_csv
+
+        frame = sens.to_frame()
+        if (
+            groups is not None
+        ):  # a group column, blank for the pooled fit; groups not computed are not rows
+            frames = [frame.assign(group=None)] + [
+                s.to_frame().assign(group=g) for g, s in groups.items() if not isinstance(s, str)
+            ]
+            frame = pd.concat([f for f in frames if len(f)] or frames[:1], ignore_index=True)
+        sys.stdout.write(to_csv(frame))
+    else:
+        text = [result.summary(), sens.summary()]
+        for g, s in (groups or {}).items():
+            text.append(f"group {args.by} = {g}:\n" + s.summary())
+        emit("\n".join(text))
+    return 0

@@ -1,0 +1,1 @@
+"""Curation: harmonisation, the per-taxon table and the audit of provenance."""

@@ -1,0 +1,1 @@
+"""Versions of a compilation: two versions compared (versions) and two curators' copies merged (merging)."""

@@ -1,0 +1,43 @@
+"""A dataset folder, read and validated: :func:`load`, :class:`Dataset` and :func:`check`.
+
+The room above reading (:mod:`comparo.reading.tables`, which returns raw tables of text)
+and validation (:mod:`comparo.validation.tables`, which imports reading and builds the
+:class:`Dataset`); neither of them imports this module.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from comparo.base.errors import InputError, problems_frame
+from comparo.reading.tables import read_folder
+from comparo.validation.tables import CheckResult, Dataset, check, validate
+
+__all__ = ["CheckResult", "Dataset", "check", "load"]
+
+
+def load(folder: str | Path, *, strict: bool = True) -> Dataset:
+    """Read and validate a dataset folder.
+
+    Parameters
+    ----------
+    folder : path
+        Folder holding observations (.csv/.tsv/.xlsx), sources (.csv/.bib) and
+        optionally taxa.csv, tree.nwk and comparo.toml.
+    strict : bool
+        Raise on any error (default). With ``strict=False`` the rows with errors
+        are kept with the problems attached (``ds.problems``) so that the audit
+        can account for them.
+
+    Raises
+    ------
+    comparo.InputError
+        With every problem found (``.problems`` DataFrame), when errors exist.
+    """
+    raw = read_folder(folder)
+    ds, problems = validate(raw)
+    frame = problems_frame(problems)
+    if ds is None or (strict and (frame["severity"] == "error").any()):
+        raise InputError(frame)
+    ds.problems = frame
+    return ds
