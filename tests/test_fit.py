@@ -302,7 +302,7 @@ def test_small_group_is_reported_not_dropped():
     c = next(g for g in r.groups if g["group"] == "C")
     assert c["n"] == 2 and c["slope"] is None
     assert any("'C'" in note for note in r.notes)
-    assert r.group_tests["groups"] == ["B", "A"] or set(r.group_tests["groups"]) == {"A", "B"}
+    assert set(r.group_tests["groups"]) == {"A", "B"}  # C, with 2 rows, is left out
 
 
 def test_lts_resists_a_cluster_of_bad_leverage_points():
