@@ -427,7 +427,8 @@ def test_cli_sensitivity_by_group(tmp_path, capsys):
 
 
 def test_api_layer_does_not_import_the_cli():
-    """comparo.fitting.source_sensitivity sits below the command layer (DEVELOPERS.md module order)."""
+    """comparo.fitting.source_sensitivity sits below the command layer (docs/architecture.md,
+    'Who may import whom')."""
     import ast
     import importlib
     import inspect
