@@ -135,7 +135,10 @@ def _ladder(n: int) -> str:
     return s + ";\n"
 
 
-_TRACE_HEADER = "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,y_column,y_unit"
+_TRACE_HEADER = (
+    "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,"
+    "y_column,y_unit"
+)
 
 
 def _traces(folder, index_rows: list[str], files: dict[str, bytes | str]):
@@ -158,7 +161,10 @@ def _loop_text(
     return (
         "t,x,y\n"
         + "\n".join(
-            f"{i * time_scale / n!r},{scale * math.sin(2 * math.pi * cycles * i / n)!r},{scale * math.cos(2 * math.pi * cycles * i / n)!r}"
+            (
+                f"{i * time_scale / n!r},{scale * math.sin(2 * math.pi * cycles * i / n)!r},"
+                f"{scale * math.cos(2 * math.pi * cycles * i / n)!r}"
+            )
             for i in range(n)
         )
         + "\n"
@@ -349,7 +355,10 @@ CASES = {
     ),
     "unicode-nfd-header": lambda f: _taxa(
         f,
-        f"taxon,{unicodedata.normalize('NFC', 'región')},{unicodedata.normalize('NFD', 'región')}\nApis mellifera,a,b\n",
+        (
+            f"taxon,{unicodedata.normalize('NFC', 'región')},"
+            f"{unicodedata.normalize('NFD', 'región')}\nApis mellifera,a,b\n"
+        ),
     ),
     "unit-underflow": lambda f: write_dataset(f, _rows_with(0, ",100,mg", ",1e-320,mg")),
     "unit-overflow": lambda f: write_dataset(f, _rows_with(0, ",100,mg", ",1e308,Mg")),
@@ -473,7 +482,10 @@ CASES = {
     ),
     "taxa-synonym-cycle-3": lambda f: _taxa(
         f,
-        "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis mellifera,x\n",
+        (
+            "taxon,accepted_name,clade\nApis mellifera,Apis a,x\nApis a,Apis b,x\nApis b,Apis "
+            "mellifera,x\n"
+        ),
     ),
 }
 
@@ -635,7 +647,7 @@ def test_check_subprocess_bounded_time_on_ladder_tree(tmp_path):
     assert tree_hash(folder) == before
 
 
-# --------------------------------------------------------------------------- input reading and validation
+# --------------------------------------------------------------------- input reading and validation
 
 
 def _problems(folder) -> pd.DataFrame:
@@ -988,7 +1000,10 @@ def test_citations_from_bibtex_read_like_citations(tmp_path):
     CASES["bibtex-doi-url"](folder)
     cites = list(load(folder).sources["citation"])
     assert cites == [
-        "Invented, A., Madeup, B. and Notreal, C. (2001). A made-up study of fibres. J. Invented Biol. 204(3): 117\u2013125.",
+        (
+            "Invented, A., Madeup, B. and Notreal, C. (2001). A made-up study of fibres. J. "
+            "Invented Biol. 204(3): 117\u2013125."
+        ),
         "Invented, B. (2002). Is this a book? Nowhere Press.",
     ]
 
