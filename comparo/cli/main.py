@@ -15,12 +15,8 @@ import os
 import sys
 from importlib import import_module
 
-EXIT_OK, EXIT_STRICT, EXIT_INPUT = 0, 1, 2
+EXIT_OK, EXIT_INPUT = 0, 2
 EXIT_INTERNAL = 3
-
-
-class _Parser(argparse.ArgumentParser):
-    """argparse with usage errors on exit code 2 and one clear line (argparse's default)."""
 
 
 class _DefaultsFormatter(argparse.HelpFormatter):
@@ -75,13 +71,13 @@ def _temperature_arg(p: argparse.ArgumentParser) -> None:
 def build_parser() -> argparse.ArgumentParser:
     from comparo.base.version import __version__
 
-    parser = _Parser(
+    parser = argparse.ArgumentParser(
         prog="comparo",
         description="Cross-taxa compilations of muscle mechanics: check, harmonise, derive, fit, report.",
         epilog="Run 'comparo COMMAND --help' for the options of one command.",
     )
     parser.add_argument("--version", action="version", version=f"comparo {__version__}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=argparse.ArgumentParser)
 
     p = sub.add_parser("check", help="validate a dataset; list every problem (exit 2 on errors)")
     _dataset_arg(p)
