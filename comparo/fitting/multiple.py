@@ -16,6 +16,7 @@ import numpy as np
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
+from comparo.base.numbers import number
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -114,10 +115,10 @@ class MultipleFit:
         w = max(len("term"), *(len(t["term"]) for t in self.terms))
         lines.append(f"{'term':<{w}}  {'estimate':>10}  {'SE':>9}  {lvl:>23}  {'t':>8}  {'p':>9}")
         for t in self.terms:
-            ci = f"[{_num(t['ci'][0])}, {_num(t['ci'][1])}]"
+            ci = f"[{number(t['ci'][0])}, {number(t['ci'][1])}]"
             lines.append(
-                f"{t['term']:<{w}}  {_num(t['estimate']):>10}  {_num(t['se']):>9}  {ci:>23}  "
-                f"{_num(t['t']):>8}  {_num(t['p']):>9}"
+                f"{t['term']:<{w}}  {number(t['estimate']):>10}  {number(t['se']):>9}  {ci:>23}  "
+                f"{number(t['t']):>8}  {number(t['p']):>9}"
             )
         if self.method == "robust":
             lines.append(
@@ -126,7 +127,7 @@ class MultipleFit:
             )
         else:
             lines.append(
-                f"log-likelihood (ML) {self.loglik:.4f}, k = {self.k}, AICc {_num(self.aicc)}"
+                f"log-likelihood (ML) {self.loglik:.4f}, k = {self.k}, AICc {number(self.aicc)}"
             )
         if self.lambda_ is not None:
             how = "by ML" if self.lambda_estimated else "fixed"
@@ -145,8 +146,8 @@ class MultipleFit:
                 else f"chi-square({a['df'][0]})"
             )
             lines.append(
-                f"joint test of {vals}: {dist} = {_num(a['statistic'])}, "
-                f"p = {_num(a['p'])}" + (f" ({a['note']})" if a.get("note") else "")
+                f"joint test of {vals}: {dist} = {number(a['statistic'])}, "
+                f"p = {number(a['p'])}" + (f" ({a['note']})" if a.get("note") else "")
             )
         if self.outliers:
             lines.append("flags:")
@@ -156,10 +157,6 @@ class MultipleFit:
         if self.flags_note:
             lines.append(self.flags_note)
         return "\n".join(lines)
-
-
-def _num(v: Any) -> str:
-    return "n/a" if v is None or (isinstance(v, float) and not math.isfinite(v)) else f"{v:.4g}"
 
 
 @dataclass(frozen=True, eq=False)

@@ -26,6 +26,7 @@ import numpy as np
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import json_safe as _json
+from comparo.base.numbers import number
 from comparo.fitting.core import slope_from_moments
 from comparo.fitting.resampling import _jackknife_moments, _progress_bar
 from comparo.fitting.result import FitResult
@@ -156,20 +157,20 @@ class SensitivityResult:
 
         j, m = self.jackknife_se, self.measurement_error
         notes = [
-            f"jackknife SE {_fmt(j.get('slope_jackknife'))}; analytic SE {_fmt(j.get('slope_analytic'))}"
+            f"jackknife SE {number(j.get('slope_jackknife'), 4, '-')}; analytic SE {number(j.get('slope_analytic'), 4, '-')}"
         ]
         if m.get("spread") is not None:
             notes.append(
-                f"measurement error ({m['draws']} draws): spread {_fmt(m['spread'])}, total SE {_fmt(m['total_se'])}"
+                f"measurement error ({m['draws']} draws): spread {number(m['spread'], 4, '-')}, total SE {number(m['total_se'], 4, '-')}"
             )
         notes += [f"not available: {u}" for u in self.unavailable]
         notes.append(f"verdict: {self.verdict}")
-        title = f"sensitivity of the {self.method.upper()} slope {_fmt(self.slope)} (SE {_fmt(self.slope_se)})"
+        title = f"sensitivity of the {self.method.upper()} slope {number(self.slope, 4, '-')} (SE {number(self.slope_se, 4, '-')})"
         return frame_html(title, self.to_frame(), notes)
 
     def summary(self, top: int = 5) -> str:
         """Plain-text account for people."""
-        f = _fmt
+        f = functools.partial(number, digits=4, missing="-")
         lines = [
             f"sensitivity of the {self.method.upper()} slope {f(self.slope)} (SE {f(self.slope_se)})"
         ]
@@ -210,12 +211,6 @@ class SensitivityResult:
         lines += [f"  not available: {u}" for u in self.unavailable]
         lines.append(f"  verdict: {self.verdict}")
         return "\n".join(lines)
-
-
-def _fmt(v: Any) -> str:
-    if v is None or (isinstance(v, float) and not math.isfinite(v)):
-        return "-"
-    return f"{v:.4g}"
 
 
 # --------------------------------------------------------------------------- pieces
@@ -1097,7 +1092,7 @@ class MultipleSensitivity:
 
     def summary(self, top: int = 5) -> str:
         """Plain-text account for people."""
-        f = _fmt
+        f = functools.partial(number, digits=4, missing="-")
         named = ", ".join(
             f"{t} {f(v['estimate'])} (SE {f(v['se'])})"
             for t, v in self.terms.items()
