@@ -27,8 +27,9 @@ import numpy as np
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import json_safe as _json
 from comparo.base.numbers import number
+from comparo.base.progress import ProgressBar
 from comparo.fitting.core import slope_from_moments
-from comparo.fitting.resampling import _jackknife_moments, _progress_bar
+from comparo.fitting.resampling import _jackknife_moments
 from comparo.fitting.result import FitResult
 from comparo.fitting.scaling import fit, renamed_against
 
@@ -455,8 +456,7 @@ def measurement_error_mc(
     rng = np.random.default_rng(seed)
     slopes = np.empty(mc)
     chunk = max(1, min(mc, 2_000_000 // max(1, len(labels))))
-    with _progress_bar(progress, mc) as bar:
-        task = bar.add_task("measurement error", total=mc) if bar is not None else None
+    with ProgressBar(progress, "measurement error", mc) as bar:
         for start in range(0, mc, chunk):
             k = min(chunk, mc - start)
             X = _transform(log, lognormal_draws(vals[x], us[x], k, rng))
@@ -464,8 +464,7 @@ def measurement_error_mc(
             slopes[start : start + k] = _draw_slopes(
                 method, X, Y, labels, result, fit_options, seed
             )
-            if bar is not None:
-                bar.update(task, advance=k)
+            bar.advance(k)
     ok = np.isfinite(slopes)
     if ok.sum() < 2:
         out["note"] = "; ".join(notes + ["no finite slopes among the draws"])
@@ -816,15 +815,13 @@ def _without_each_source(rows, used, progress: bool):
     """For each source of the *used* rows, in order of its id: ``(source_id, rows with that
     source's rows excluded, mask of those rows)``, with a progress bar when asked."""
     sources = sorted(used["source_id"].astype(str).unique())
-    with _progress_bar(progress, len(sources)) as bar:
-        task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
+    with ProgressBar(progress, "leave one source out", len(sources)) as bar:
         for sid in sources:
             r = rows.copy()
             changed = (r["source_id"].astype(str) == sid).to_numpy()
             r.loc[changed, "status"] = "excluded"
             yield sid, r, changed
-            if bar is not None:
-                bar.update(task, advance=1)
+            bar.advance()
 
 
 def _basis_steps(rows, used, refit, base: FitResult, alpha: float) -> list[dict]:
