@@ -44,3 +44,18 @@ def test_missing_values_read_as_the_missing_text(v):
 )
 def test_plain_style_of_the_report(v, digits, text):
     assert number(v, digits, plain=True) == text
+
+
+def test_one_log_transform_against_numpy_and_back():
+    """comparo.base.scales against numpy's log10/log/power/exp, and the first-order rule
+    u(log10 v) = u / (v ln 10) (JCGM 100:2008, GUM, eq. 10 with one input)."""
+    from comparo.base.scales import from_scale, se_on_scale, to_scale
+
+    v = np.array([0.5, 1.0, 20.0, 3.0e4])
+    np.testing.assert_array_equal(to_scale(v, "10"), np.log10(v))
+    np.testing.assert_array_equal(to_scale(v, "e"), np.log(v))
+    np.testing.assert_array_equal(to_scale(v, "none"), v)
+    for log in ("10", "e", "none"):
+        np.testing.assert_allclose(from_scale(to_scale(v, log), log), v, rtol=1e-14)
+    assert np.isnan(to_scale([-1.0], "10")[0]) and to_scale([0.0], "e")[0] == -np.inf
+    np.testing.assert_allclose(se_on_scale(0.1, 2.0, "10"), 0.1 / (2.0 * np.log(10.0)))

@@ -17,6 +17,7 @@ import numpy as np
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.numbers import number
+from comparo.base.scales import to_scale
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -271,8 +272,7 @@ def design(
 
         ft, keep, _ = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     idx = np.asarray(keep, dtype=int)
-    tf = {"10": np.log10, "e": np.log, "none": np.asarray}[log]
-    cols = {c: tf(numeric[c][idx]) for c in numeric}
+    cols = {c: to_scale(numeric[c][idx], log) for c in numeric}
     reference, dummies = None, {}
     if factor:
         values = table[factor].astype(str).to_numpy()[idx]

@@ -11,7 +11,8 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from comparo.base.errors import UsageError
-from comparo.fitting.arrays import _inverse, _prepare
+from comparo.base.scales import from_scale
+from comparo.fitting.arrays import _prepare
 from comparo.fitting.breakpoint import segmented_line
 from comparo.fitting.cautions import fit_cautions
 from comparo.fitting.core import LOGS, METHODS
@@ -347,11 +348,10 @@ def _breakpoint(X: np.ndarray, Y: np.ndarray, ci: float, log: str) -> dict:
     if len(X) < 8:
         raise UsageError(f"a breakpoint fit needs at least 8 usable points; {len(X)} remain")
     bp = segmented_line(X, Y, ci)
-    inv = _inverse(log)
     return {
         "x_log": bp["x_log"],
-        "x": float(inv(bp["x_log"])),
-        "x_ci": [float(inv(v)) for v in bp["x_log_ci"]],
+        "x": float(from_scale(bp["x_log"], log)),
+        "x_ci": [float(from_scale(v, log)) for v in bp["x_log_ci"]],
         **{k: v for k, v in bp.items() if k not in ("x_log",)},
     }
 

@@ -28,6 +28,7 @@ from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import json_safe as _json
 from comparo.base.numbers import number
 from comparo.base.progress import ProgressBar
+from comparo.base.scales import to_scale
 from comparo.fitting.core import slope_from_moments
 from comparo.fitting.resampling import _jackknife_moments
 from comparo.fitting.result import FitResult
@@ -266,16 +267,6 @@ def lognormal_draws(
     return np.where(pos, np.where(s > 0, logn, v), v + s * z)
 
 
-def _transform(log: str, a: np.ndarray) -> np.ndarray:
-    if log == "10":
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.log10(a)
-    if log == "e":
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.log(a)
-    return a
-
-
 #: Monte Carlo draws are capped for methods refitted one draw at a time (seconds per 100 draws at n = 60 here).
 MC_CAP = {"lts": 200, "pgls": 200}
 #: LTS starts per Monte Carlo draw (random two-point starts; the full fit uses all pairs up to 3000).
@@ -459,8 +450,8 @@ def measurement_error_mc(
     with ProgressBar(progress, "measurement error", mc) as bar:
         for start in range(0, mc, chunk):
             k = min(chunk, mc - start)
-            X = _transform(log, lognormal_draws(vals[x], us[x], k, rng))
-            Y = _transform(log, lognormal_draws(vals[y], us[y], k, rng))
+            X = to_scale(lognormal_draws(vals[x], us[x], k, rng), log)
+            Y = to_scale(lognormal_draws(vals[y], us[y], k, rng), log)
             slopes[start : start + k] = _draw_slopes(
                 method, X, Y, labels, result, fit_options, seed
             )

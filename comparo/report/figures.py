@@ -30,6 +30,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from comparo.base.numbers import number
+from comparo.base.scales import from_scale
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -246,10 +247,6 @@ def plain_log_ticks(ax: Any, axis: str = "both") -> None:
         )
 
 
-def _inverse(log: str):
-    return {"10": lambda v: np.power(10.0, v), "e": np.exp, "none": lambda v: v}[log]
-
-
 def line_band(
     X: np.ndarray,
     Y: np.ndarray,
@@ -329,7 +326,9 @@ def draw_scaling(
     """
     if "basis" not in points:
         points = points.assign(basis="")
-    inv = _inverse(fit.log)
+    def inv(v):
+        return from_scale(v, fit.log)
+
     groups = list(dict.fromkeys(points["group"])) if by and "group" in points else [None]
     colour = {g: PALETTE[i % len(PALETTE)] for i, g in enumerate(groups)}
     for g in groups:
