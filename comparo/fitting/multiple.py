@@ -17,7 +17,7 @@ import numpy as np
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.numbers import number
-from comparo.base.scales import to_scale
+from comparo.base.scales import LOG_SCALES, to_scale
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -27,7 +27,6 @@ MULTIPLE_METHODS = ("ols", "pgls")
 #: Methods that fit several predictors; model II lines (sma, ma) are for one predictor, and
 #: robust (Huber) has no likelihood, so it fits but does not enter a model comparison.
 FIT_METHODS = ("ols", "robust", "pgls")
-_LOGS = ("10", "e", "none")
 _WEIGHT_CUT = 0.5  # low Huber weight, as the flags of a one-predictor robust line (common practice)
 
 
@@ -70,7 +69,7 @@ class MultipleFit:
     outliers: tuple[dict, ...] = field(default_factory=tuple)
     flags_note: str | None = None
     sensitivity: dict | None = (
-        None  # leave one source out (comparo.fitting.source_sensitivity.multiple_sensitivity)
+        None  # leave one source out (comparo.fitting.multiple_sensitivity)
     )
 
     def to_dict(self) -> dict:
@@ -185,7 +184,7 @@ def _check(
     log: Any, ci: float, method: str, n_predictors: int, methods: Sequence[str] = MULTIPLE_METHODS
 ) -> str:
     log = "none" if log is None else str(log)
-    if log not in _LOGS:
+    if log not in LOG_SCALES:
         raise UsageError(f"log must be one of 10, e, none; got {log!r}")
     if not 0.0 < ci < 1.0:
         raise UsageError(f"ci must be in (0, 1), got {ci}")

@@ -33,7 +33,7 @@ def _bca(theta_hat: float, boots: np.ndarray, jack: np.ndarray, ci: float) -> tu
     return (float(lo), float(hi))
 
 
-def _jackknife_moments(method: str, X: np.ndarray, Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def jackknife_moments(method: str, X: np.ndarray, Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Leave-one-out slopes and intercepts from running sums (no loop)."""
     n = len(X)
     sx, sy = X.sum() - X, Y.sum() - Y
@@ -119,7 +119,7 @@ def bootstrap_line(
                     slopes[start + k], ints[start + k] = c.slope, c.intercept
             bar.advance(stop - start)
     if vector:
-        jb, ja = _jackknife_moments(method, X, Y)
+        jb, ja = jackknife_moments(method, X, Y)
     else:
         jb, ja = np.empty(n), np.empty(n)
         for i in range(n):
