@@ -123,27 +123,34 @@ def fit(
     against = check_finite(renamed_against(pgls_options, against), "the slope to test against")
     log = _check_options(method, log, ci, bootstrap)
     if method == "pgls":
-        return _with_temperature(
-            _pgls(
-                table,
-                x,
-                y,
-                log,
-                ci,
-                against,
-                taxon_col,
-                by,
-                bootstrap,
-                breakpoint,
-                drop_flagged,
-                pgls_options,
-            ),
-            table,
-            taxon_col,
-        )
-    if pgls_options:
+        opts = (by, bootstrap, breakpoint, drop_flagged, pgls_options)
+        res = _pgls(table, x, y, log, ci, against, taxon_col, *opts)
+    elif pgls_options:
         raise UsageError(f"options {', '.join(sorted(pgls_options))} apply only to method pgls")
+    else:
+        opts = (bootstrap, seed, taxon_col, breakpoint, progress, drop_flagged)
+        res = _line(table, x, y, method, by, against, ci, log, *opts)
+    return _with_temperature(res, table, taxon_col)
 
+
+def _line(
+    table: pd.DataFrame,
+    x: str,
+    y: str,
+    method: str,
+    by: str | None,
+    against: float | None,
+    ci: float,
+    log: str,
+    bootstrap: int,
+    seed: int,
+    taxon_col: str,
+    breakpoint: bool,
+    progress: bool,
+    drop_flagged: Any,
+) -> FitResult:
+    """:func:`fit` of every method but pgls, on checked arguments (without the temperature
+    account, which :func:`fit` adds)."""
     from comparo.base.arguments import check_bootstrap
     from comparo.fitting.flags import drop_rules, flag_points
 
@@ -206,33 +213,29 @@ def fit(
                 progress=progress,
             ),
         )
-    return _with_temperature(
-        FitResult(
-            method=method,
-            x=x,
-            y=y,
-            log=log,
-            n=len(X),
-            slope=core.slope,
-            slope_ci=core.slope_ci,
-            intercept=core.intercept,
-            intercept_ci=core.intercept_ci,
-            r2=core.r2,
-            ci_level=float(ci),
-            against=core.test,
-            groups=group_rows,
-            group_tests=group_tests,
-            outliers=[f.to_dict() for f in flags.flags],
-            excluded=excluded,
-            breakpoint=bp,
-            bootstrap=boot,
-            points=_points(X, Y, labels, groups if by else None, core),
-            notes=tuple(notes),
-            refit_without_flagged=refit,
-            cautions=fit_cautions(method, len(X), X, Y, group_rows),
-        ),
-        table,
-        taxon_col,
+    return FitResult(
+        method=method,
+        x=x,
+        y=y,
+        log=log,
+        n=len(X),
+        slope=core.slope,
+        slope_ci=core.slope_ci,
+        intercept=core.intercept,
+        intercept_ci=core.intercept_ci,
+        r2=core.r2,
+        ci_level=float(ci),
+        against=core.test,
+        groups=group_rows,
+        group_tests=group_tests,
+        outliers=[f.to_dict() for f in flags.flags],
+        excluded=excluded,
+        breakpoint=bp,
+        bootstrap=boot,
+        points=_points(X, Y, labels, groups if by else None, core),
+        notes=tuple(notes),
+        refit_without_flagged=refit,
+        cautions=fit_cautions(method, len(X), X, Y, group_rows),
     )
 
 

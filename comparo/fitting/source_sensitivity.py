@@ -369,14 +369,7 @@ def sensitivity(
     unavailable = []
     ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
     if ds is not None:
-        from comparo.curation.harmonise import harmonise, per_taxon
-
-        h = harmonise(ds, temperature=temperature)
-        if taxa is not None:
-            h = dataclasses.replace(
-                h, rows=h.rows[h.rows["accepted"].astype(str).isin(set(map(str, taxa)))]
-            )
-        table = per_taxon(ds, harmonised=h)
+        h, table = _harmonised(ds, temperature, taxa)
     else:
         table = dataset_or_table
         why = no_sources or "a plain table does not record the source and basis of each value"
@@ -389,40 +382,12 @@ def sensitivity(
     p_full = _p(base)
     loso = by_basis = None
     if ds is not None:
-        if x not in table.columns or y not in table.columns:
-            raise UsageError(
-                f"{x!r} and {y!r} must both be quantities of the dataset for the source-level parts"
-            )
-        rows = h.rows[h.rows["quantity_key"].isin([x, y])].copy()
-        cols = [taxon_col] + [
-            c for c in table.columns if c.startswith((f"{x}", f"{y}")) and c != taxon_col
-        ]
-        xy_table = table[[c for c in dict.fromkeys(["taxon", *cols]) if c in table.columns]]
-        used = rows[rows["status"] == "used"]
-        refit = functools.partial(
-            _refit, ds, h, base_table=xy_table, x=x, y=y, method=method, kwargs=kw
-        )
-        loso = _leave_one_source_out(rows, used, refit, base, se, p_full, alpha, progress)
-        by_basis = _basis_steps(rows, used, refit, base, alpha)
+        loso, by_basis = _source_parts(ds, h, table, base, kw, alpha, progress)
     jack = taxon_jackknife(base, kw, table=table)
-    me = measurement_error_mc(
-        table,
-        base,
-        log=str(log),
-        mc=mc,
-        seed=seed,
-        taxon_col=taxon_col,
-        progress=progress,
-        fit_options=fit_options,
-    )
-    verdict = make_verdict(
-        loso,
-        by_basis,
-        jack,
-        me,
-        against=against,
-        unavailable=(no_sources or "a plain table") if unavailable else False,
-    )
+    me_options = dict(taxon_col=taxon_col, progress=progress, fit_options=fit_options)
+    me = measurement_error_mc(table, base, log=str(log), mc=mc, seed=seed, **me_options)
+    plain = (no_sources or "a plain table") if unavailable else False
+    verdict = make_verdict(loso, by_basis, jack, me, against=against, unavailable=plain)
     test = {"value": against, "p": p_full} if against is not None else None
     return SensitivityResult(
         method=method,
@@ -439,6 +404,39 @@ def sensitivity(
         verdict=verdict,
         unavailable=tuple(unavailable),
     )
+
+
+def _harmonised(ds, temperature: bool, taxa: list[str] | None):
+    """The harmonised rows of *ds* (only those of *taxa* when given) and its per-taxon table."""
+    from comparo.curation.harmonise import harmonise, per_taxon
+
+    h = harmonise(ds, temperature=temperature)
+    if taxa is not None:
+        h = dataclasses.replace(
+            h, rows=h.rows[h.rows["accepted"].astype(str).isin(set(map(str, taxa)))]
+        )
+    return h, per_taxon(ds, harmonised=h)
+
+
+def _source_parts(ds, h, table, base: FitResult, kw: dict, alpha: float, progress: bool):
+    """Leave-one-source-out and the basis steps of the fit *base* (its options *kw*)."""
+    x, y, taxon_col = base.x, base.y, kw["taxon_col"]
+    if x not in table.columns or y not in table.columns:
+        raise UsageError(
+            f"{x!r} and {y!r} must both be quantities of the dataset for the source-level parts"
+        )
+    rows = h.rows[h.rows["quantity_key"].isin([x, y])].copy()
+    cols = [taxon_col] + [
+        c for c in table.columns if c.startswith((f"{x}", f"{y}")) and c != taxon_col
+    ]
+    xy_table = table[[c for c in dict.fromkeys(["taxon", *cols]) if c in table.columns]]
+    used = rows[rows["status"] == "used"]
+    refit = functools.partial(
+        _refit, ds, h, base_table=xy_table, x=x, y=y, method=base.method, kwargs=kw
+    )
+    se, p_full = analytic_se(base), _p(base)
+    loso = _leave_one_source_out(rows, used, refit, base, se, p_full, alpha, progress)
+    return loso, _basis_steps(rows, used, refit, base, alpha)
 
 
 def _leave_one_source_out(
