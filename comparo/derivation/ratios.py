@@ -31,6 +31,62 @@ def _ratios(
     ignore_unknown: bool,
 ) -> tuple[dict[str, Any], dict[str, str]]:
     """Columns of the user ratios of ``[ratios]`` (GUM and Monte Carlo as for derived keys)."""
+    parsed = _parsed_ratios(out, ratio_settings, catalog, keys)
+    cols: dict[str, Any] = {}
+    units: dict[str, str] = {}
+    for ratio, _op_units, factor, unit_out in parsed:
+        leaves, rel_u, basis, obs, reasons = {}, {}, {}, {}, []
+        for k, _p in ratio.exponents:
+            x = _column(out, k)
+            ok = np.isfinite(x) & (x > 0)
+            reasons.append(
+                np.where(np.isnan(x), f"no {k}", np.where(ok, "", f"{k} not positive")).astype(
+                    object
+                )
+            )
+            x = np.where(ok, x, np.nan)
+            u = _column(out, f"{k}_u")
+            with np.errstate(divide="ignore", invalid="ignore"):
+                rel_u[k] = np.where(np.isfinite(u) & (u >= 0), u / x, np.nan)
+            leaves[k] = x
+            basis[k] = _text_column(out, f"{k}_basis")
+            obs[k] = _text_column(out, f"{k}_obs")
+        const = ratio.constant * factor
+
+        def compute(L, _ratio=ratio, _const=const):
+            y = _const
+            for k, p in _ratio.exponents:
+                y = y * L[k] ** p
+            return {_ratio.name: y}
+
+        prop = _propagate(compute, leaves, rel_u, ignore_unknown, mc, rng)
+        name = ratio.name
+        y = prop.values[name]
+        cols[name] = y
+        cols[f"{name}_u"] = prop.u[name]
+        cols.update(
+            _lineage_columns(
+                name,
+                y,
+                prop,
+                basis,
+                obs,
+                {k: k for k in leaves},
+                _join(*reasons),
+                f"{ratio.expression} [{unit_out}]",
+            )
+        )
+        if mc > 0:
+            cols.update(_mc_columns(name, prop.mc[name], prop.u[name], 1.0))
+        units[name] = unit_out
+    return cols, units
+
+
+def _parsed_ratios(
+    out: pd.DataFrame, ratio_settings: Mapping[str, Any], catalog, keys
+) -> list[tuple[Ratio, dict[str, str], float, str]]:
+    """Each ratio of ``[ratios]`` read and checked: (ratio, unit of each operand, factor to the
+    ratio's unit, that unit). Every problem of every ratio at once (exit 2)."""
     from comparo.base.units import conversion_factor, parse_unit
 
     probs: list[Problem] = []
@@ -112,52 +168,4 @@ def _ratios(
         parsed.append((ratio, op_units, factor, unit_out))
     if probs:
         raise InputError(probs)
-
-    cols: dict[str, Any] = {}
-    units: dict[str, str] = {}
-    for ratio, _op_units, factor, unit_out in parsed:
-        leaves, rel_u, basis, obs, reasons = {}, {}, {}, {}, []
-        for k, _p in ratio.exponents:
-            x = _column(out, k)
-            ok = np.isfinite(x) & (x > 0)
-            reasons.append(
-                np.where(np.isnan(x), f"no {k}", np.where(ok, "", f"{k} not positive")).astype(
-                    object
-                )
-            )
-            x = np.where(ok, x, np.nan)
-            u = _column(out, f"{k}_u")
-            with np.errstate(divide="ignore", invalid="ignore"):
-                rel_u[k] = np.where(np.isfinite(u) & (u >= 0), u / x, np.nan)
-            leaves[k] = x
-            basis[k] = _text_column(out, f"{k}_basis")
-            obs[k] = _text_column(out, f"{k}_obs")
-        const = ratio.constant * factor
-
-        def compute(L, _ratio=ratio, _const=const):
-            y = _const
-            for k, p in _ratio.exponents:
-                y = y * L[k] ** p
-            return {_ratio.name: y}
-
-        prop = _propagate(compute, leaves, rel_u, ignore_unknown, mc, rng)
-        name = ratio.name
-        y = prop.values[name]
-        cols[name] = y
-        cols[f"{name}_u"] = prop.u[name]
-        cols.update(
-            _lineage_columns(
-                name,
-                y,
-                prop,
-                basis,
-                obs,
-                {k: k for k in leaves},
-                _join(*reasons),
-                f"{ratio.expression} [{unit_out}]",
-            )
-        )
-        if mc > 0:
-            cols.update(_mc_columns(name, prop.mc[name], prop.u[name], 1.0))
-        units[name] = unit_out
-    return cols, units
+    return parsed
