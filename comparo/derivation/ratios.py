@@ -123,7 +123,8 @@ def _parsed_ratios(
         except ValueError as exc:
             bad(
                 f"cannot read the expression of ratio {name!r}: {exc}",
-                "use quantity keys with *, /, ^number and parentheses, e.g. fiber_length / fiber_radius",
+                "use quantity keys with *, /, ^number and parentheses, e.g. fiber_length / "
+                "fiber_radius",
             )
             continue
         op_units: dict[str, str] = {}
@@ -134,7 +135,8 @@ def _parsed_ratios(
                 op_units[k] = catalog.target(k).unit
             else:
                 bad(
-                    f"ratio {name!r} uses {k!r}, which is neither a catalogue nor a derived quantity"
+                    f"ratio {name!r} uses {k!r}, which is neither a catalogue nor a derived "
+                    f"quantity"
                 )
         if not ratio.exponents:
             bad(f"ratio {name!r} has no quantity in it")

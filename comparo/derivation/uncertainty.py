@@ -261,7 +261,8 @@ def _summarise(key, y, mc, mirrors, res, sl) -> None:
 
 
 def _order_stats(ys: np.ndarray, m: np.ndarray, target: dict[str, np.ndarray], sl: slice) -> None:
-    """Median and 68%/95% intervals from rows sorted ascending whose first m entries are the draws."""
+    """Median and 68%/95% intervals from rows sorted ascending whose first m entries are the
+    draws."""
     ok = m > 1
     mm = np.maximum(m, 2)
     picks = {}

@@ -1,4 +1,5 @@
-"""From a table to fitted-scale arrays: the log transform, labels, groups and excluded rows with reasons."""
+"""From a table to fitted-scale arrays: the log transform, labels, groups and excluded rows with
+reasons."""
 
 from __future__ import annotations
 

@@ -114,8 +114,9 @@ def model2_line(
             lims = [math.tan(lo_t), math.tan(hi_t)]
             if lo_t <= -math.pi / 2 or hi_t >= math.pi / 2:
                 ci_note = (
-                    f"MA slope interval passes through vertical: slopes from {number(lims[0], 5, '-')} up to +infinity "
-                    f"and from -infinity up to {number(lims[1], 5, '-')} (reported low > high)"
+                    f"MA slope interval passes through vertical: slopes from "
+                    f"{number(lims[0], 5, '-')} up to +infinity and from -infinity up to "
+                    f"{number(lims[1], 5, '-')} (reported low > high)"
                 )
         l1, l2 = 0.5 * (sxx + syy + D), max(0.0, 0.5 * (sxx + syy - D))
         var_b = (1 + b * b) ** 2 * l1 * l2 / ((n - 2) * (l1 - l2) ** 2) if l1 > l2 else math.inf

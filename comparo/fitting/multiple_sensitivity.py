@@ -145,13 +145,14 @@ def multiple_sensitivity(
     else:
         table = dataset_or_table
         unavailable.append(
-            "leave-one-source-out needs values with one source each (a plain table does "
-            "not record the source of each value)"
+            "leave-one-source-out needs values with one source each (a plain table does not record "
+            "the source of each value)"
         )
     missing = [c for c in [y, *predictors] if c not in table.columns]
     if ds is not None and missing:
         raise UsageError(
-            f"{', '.join(map(repr, missing))} {'is not a quantity' if len(missing) == 1 else 'are not quantities'}"
+            f"{', '.join(map(repr, missing))} "
+            f"{'is not a quantity' if len(missing) == 1 else 'are not quantities'}"
             " of the dataset; leave-one-source-out needs measured quantities (a derived column "
             "rests on several sources per taxon)"
         )

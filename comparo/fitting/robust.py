@@ -202,8 +202,8 @@ def lts_line(
     core = ols_line(X[kept], Y[kept], ci, against)
     a, b = core.intercept, core.slope
     note = (
-        f"LTS raw line (h = {raw.h}): intercept {raw.intercept:.5g}, slope {raw.slope:.5g}, scale {raw.scale:.4g}; "
-        f"reweighted fit on {int(kept.sum())} of {len(X)} points"
+        f"LTS raw line (h = {raw.h}): intercept {raw.intercept:.5g}, slope {raw.slope:.5g}, scale "
+        f"{raw.scale:.4g}; reweighted fit on {int(kept.sum())} of {len(X)} points"
     )
     return _Core(
         b,

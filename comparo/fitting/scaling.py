@@ -241,7 +241,8 @@ def _line(
 
 def _with_temperature(res: FitResult, table: pd.DataFrame, taxon_col: str) -> FitResult:
     """*res* with ``temperature``: what the harmonisation did to the temperature-sensitive
-    values behind the fitted taxa (:func:`comparo.validation.temperature.fit_temperature`; None for a
+    values behind the fitted taxa (:func:`comparo.validation.temperature.fit_temperature`; None for
+    a
     table that is not a comparo per-taxon table)."""
     from dataclasses import replace
 
@@ -320,7 +321,10 @@ def _pgls(
                 drop_rules(drop_flagged),
                 (),
                 None,
-                note="pgls fits carry no outlier or influence flags here; nothing was dropped and no refit was made",
+                note=(
+                    "pgls fits carry no outlier or influence flags here; nothing was dropped and "
+                    "no refit was made"
+                ),
             ),
         )
     return res
@@ -333,7 +337,8 @@ def _check_points(
     n = len(X)
     if n < 3:
         raise UsageError(
-            f"{method} needs at least 3 usable points; {n} remain after excluding {len(excluded)} row(s)"
+            f"{method} needs at least 3 usable points; {n} remain after excluding {len(excluded)} "
+            f"row(s)"
             + (f" ({excluded[0]['label']}: {excluded[0]['reason']}, ...)" if excluded else "")
         )
     if np.ptp(X) == 0:

@@ -79,9 +79,11 @@ def lognormal_draws(
     return np.where(pos, np.where(s > 0, logn, v), v + s * z)
 
 
-#: Monte Carlo draws are capped for methods refitted one draw at a time (seconds per 100 draws at n = 60 here).
+#: Monte Carlo draws are capped for methods refitted one draw at a time (seconds per 100
+#: draws at n = 60 here).
 MC_CAP = {"lts": 200, "pgls": 200}
-#: LTS starts per Monte Carlo draw (random two-point starts; the full fit uses all pairs up to 3000).
+#: LTS starts per Monte Carlo draw (random two-point starts; the full fit uses all pairs up
+#: to 3000).
 MC_LTS_STARTS = 300
 
 
@@ -184,7 +186,8 @@ def measurement_error_mc(
     notes = []
     if method in MC_CAP and mc > MC_CAP[method]:
         notes.append(
-            f"{method} is refitted one draw at a time: {MC_CAP[method]} of the {mc} draws asked were made"
+            f"{method} is refitted one draw at a time: {MC_CAP[method]} of the {mc} draws asked "
+            f"were made"
         )
         out["draws_asked"] = int(mc)
         mc = MC_CAP[method]
@@ -253,7 +256,8 @@ def measurement_error_mc(
     )
     if ok.sum() < mc:
         notes.append(
-            f"{mc - int(ok.sum())} draw(s) gave no finite slope (non-positive draws on log axes) and were left out"
+            f"{mc - int(ok.sum())} draw(s) gave no finite slope (non-positive draws on log axes) "
+            f"and were left out"
         )
     out["note"] = "; ".join(notes) or None
     return out

@@ -156,22 +156,28 @@ class SensitivityResult:
 
         j, m = self.jackknife_se, self.measurement_error
         notes = [
-            f"jackknife SE {number(j.get('slope_jackknife'), 4, '-')}; analytic SE {number(j.get('slope_analytic'), 4, '-')}"
+            f"jackknife SE {number(j.get('slope_jackknife'), 4, '-')}; analytic SE "
+            f"{number(j.get('slope_analytic'), 4, '-')}"
         ]
         if m.get("spread") is not None:
             notes.append(
-                f"measurement error ({m['draws']} draws): spread {number(m['spread'], 4, '-')}, total SE {number(m['total_se'], 4, '-')}"
+                f"measurement error ({m['draws']} draws): spread {number(m['spread'], 4, '-')}, "
+                f"total SE {number(m['total_se'], 4, '-')}"
             )
         notes += [f"not available: {u}" for u in self.unavailable]
         notes.append(f"verdict: {self.verdict}")
-        title = f"sensitivity of the {self.method.upper()} slope {number(self.slope, 4, '-')} (SE {number(self.slope_se, 4, '-')})"
+        title = (
+            f"sensitivity of the {self.method.upper()} slope {number(self.slope, 4, '-')} (SE "
+            f"{number(self.slope_se, 4, '-')})"
+        )
         return frame_html(title, self.to_frame(), notes)
 
     def summary(self, top: int = 5) -> str:
         """Plain-text account for people."""
         f = functools.partial(number, digits=4, missing="-")
         lines = [
-            f"sensitivity of the {self.method.upper()} slope {f(self.slope)} (SE {f(self.slope_se)})"
+            f"sensitivity of the {self.method.upper()} slope {f(self.slope)} (SE "
+            f"{f(self.slope_se)})"
         ]
         if self.leave_one_source_out is not None:
 
@@ -179,8 +185,8 @@ class SensitivityResult:
                 lo, hi = r["slope_ci"]
                 flip = "  flips the test" if r["flips"] else ""
                 return (
-                    f"slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}  p {f(r['p'])}  "
-                    f"shift {f(r['shift_se'])} SE{flip}"
+                    f"slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}  p {f(r['p'])}  shift "
+                    f"{f(r['shift_se'])} SE{flip}"
                 )
 
             lines += loso_lines(
@@ -191,19 +197,21 @@ class SensitivityResult:
             for r in self.by_basis:
                 lo, hi = r["slope_ci"]
                 lines.append(
-                    f"    {'+'.join(r['bases']):<40} n {r['n']:>4}  slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}"
+                    f"    {'+'.join(r['bases']):<40} n {r['n']:>4}  slope {f(r['slope'])}  CI "
+                    f"{f(lo)} .. {f(hi)}"
                 )
         j = self.jackknife_se
         lines.append(
-            f"  jackknife SE (leave one taxon out) {f(j['slope_jackknife'])}; analytic SE {f(j['slope_analytic'])}"
+            f"  jackknife SE (leave one taxon out) {f(j['slope_jackknife'])}; analytic SE "
+            f"{f(j['slope_analytic'])}"
         )
         if j.get("note"):
             lines.append(f"    note: {j['note']}")
         m = self.measurement_error
         if m.get("spread") is not None:
             lines.append(
-                f"  measurement error ({m['draws']} draws, seed {m['seed']}): spread {f(m['spread'])}, "
-                f"sampling SE {f(m['sampling_se'])}, total {f(m['total_se'])}"
+                f"  measurement error ({m['draws']} draws, seed {m['seed']}): spread "
+                f"{f(m['spread'])}, sampling SE {f(m['sampling_se'])}, total {f(m['total_se'])}"
             )
         if m.get("note"):
             lines.append(f"    note: {m['note']}")
@@ -569,7 +577,8 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool | 
                 bits.append("flips the test")
             if r["ci_change"] is not None:
                 bits.append(
-                    f"CI {'widens' if r['ci_change'] >= 0 else 'narrows'} {abs(100 * r['ci_change']):.0f}%"
+                    f"CI {'widens' if r['ci_change'] >= 0 else 'narrows'} "
+                    f"{abs(100 * r['ci_change']):.0f}%"
                 )
             parts.append(f"sensitive to {added} values ({', '.join(bits)})")
     if jack.get("ratio") is not None and math.isfinite(jack["ratio"]) and jack["ratio"] > 1.5:
@@ -582,8 +591,8 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool | 
         where = " where known" if fixed else ""
         if share >= 0.5:  # one measure throughout: the share of the slope variance
             parts.append(
-                f"measurement error{where} dominates the slope uncertainty "
-                f"({100 * share:.0f}% of the slope variance)"
+                f"measurement error{where} dominates the slope uncertainty ({100 * share:.0f}% of "
+                f"the slope variance)"
             )
         elif share >= 0.1:
             parts.append(

@@ -54,7 +54,8 @@ def package_versions() -> dict[str, str]:
 def analyses(
     settings: dict, table, catalog=None, taxa_columns: set[str] | None = None
 ) -> tuple[list[dict], str, list[str]]:
-    """The fits to run (:func:`comparo.validation.settings.analyses`), where they come from, and the defaults used in words.
+    """The fits to run (:func:`comparo.validation.settings.analyses`), where they come from, and the
+    defaults used in words.
 
     Without ``[[analysis]]`` in comparo.toml: :data:`DEFAULT_ANALYSES` whose columns exist.
     """
@@ -295,7 +296,8 @@ def _derive(run: _Run) -> None:
         run.tables["derived.units"] = to_csv(column_units(run.derived, run.ds.catalog))
     if not settings:
         run.defaults.append(
-            f"the reference temperature ({run.ds.reference_temperature_c:g} °C) and the Q10 of each "
+            f"the reference temperature ({run.ds.reference_temperature_c:g} °C) and the Q10 of "
+            f"each "
             "temperature-sensitive quantity from the catalogue"
         )
 

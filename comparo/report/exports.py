@@ -262,7 +262,8 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
 
 
 def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool) -> dict:
-    """``cycles.csv``: one row per trace reduced by comparo cycles (SI units, KEY_sd = SD over cycles)."""
+    """``cycles.csv``: one row per trace reduced by comparo cycles (SI units, KEY_sd = SD over
+    cycles)."""
     from comparo.traces.files import SI_UNITS, cycles
 
     frame = cycles(ds, temperature=temperature).to_frame()
@@ -284,8 +285,8 @@ def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool) -> dict:
         "format": "csv",
         "mediatype": "text/csv",
         "encoding": "utf-8",
-        "description": "One row per oscillation trace of traces.csv reduced to whole cycles (comparo cycles): "
-        "means over cycles in SI units, KEY_sd the SD over cycles.",
+        "description": "One row per oscillation trace of traces.csv reduced to whole cycles "
+        "(comparo cycles): means over cycles in SI units, KEY_sd the SD over cycles.",
         "schema": {"fields": fields, "primaryKey": ["trace_id"]},
     }
 
@@ -299,7 +300,8 @@ def _slug(text: str) -> str:
 
 def dwc_frame(ds: Dataset) -> pd.DataFrame:
     """Darwin Core MeasurementOrFact rows: one per observation (values as reported), then one
-    per computed result of the dataset's traces (``TRACE_ID:quantity``, see comparo.traces.files)."""
+    per computed result of the dataset's traces (``TRACE_ID:quantity``, see
+    comparo.traces.files)."""
     from comparo.curation.harmonise import accepted_names
 
     obs = ds.observations
@@ -386,7 +388,8 @@ def to_dwc(ds: Dataset, out_dir: str | Path) -> ExportResult:
 def table_workbook(table: pd.DataFrame, units: pd.DataFrame) -> bytes:
     """A per-taxon (or derived) table as an ``.xlsx`` workbook: sheet ``table`` with one row
     per taxon and the unit in each header (``body_mass (kg)``; columns without a unit keep
-    their name), and sheet ``columns`` with what each column holds (:func:`comparo.curation.harmonise.column_units`).
+    their name), and sheet ``columns`` with what each column holds
+    (:func:`comparo.curation.harmonise.column_units`).
     Every text cell is stored as a plain string, never as a formula (a cell ``=1+1`` stays
     the text ``=1+1``); numbers are numbers, missing values empty cells."""
     import io

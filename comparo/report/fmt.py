@@ -26,7 +26,8 @@ def esc(v: Any) -> str:
 
 
 def cell(v: Any) -> Markup:
-    """A ``<td>``: numbers right-aligned with their full value in ``data-value``; yes/no for booleans."""
+    """A ``<td>``: numbers right-aligned with their full value in ``data-value``; yes/no for
+    booleans."""
     if v is None:
         return Markup("<td></td>")
     if isinstance(v, bool) or (hasattr(v, "dtype") and getattr(v.dtype, "kind", "") == "b"):
