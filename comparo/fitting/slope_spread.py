@@ -295,15 +295,8 @@ def taxon_jackknife(result: FitResult, fit_kwargs: dict, table=None) -> dict:
             b = np.array(
                 [fit(table[names != lab], result.x, result.y, "pgls", **kw).slope for lab in labels]
             )
-            se_a = analytic_se(result)
-            se_j = jackknife_se(b)
-            return {
-                "slope_jackknife": se_j,
-                "slope_analytic": se_a,
-                "ratio": se_j / se_a if se_a > 0 else None,
-                "n": int(result.n),
-                "note": "PGLS leave-one-out refits hold Pagel's lambda at the full-data estimate",
-            }
+            held = "PGLS leave-one-out refits hold Pagel's lambda at the full-data estimate"
+            return _jackknife_record(result, b, held)
     pts = result.points_frame()
     if pts.empty:
         return {
@@ -326,11 +319,19 @@ def taxon_jackknife(result: FitResult, fit_kwargs: dict, table=None) -> dict:
             keep = np.arange(n) != i
             t = pd.DataFrame({"taxon": pts["label"][keep], "x": X[keep], "y": Y[keep]})
             b[i] = fit(t, "x", "y", log="none", **kw).slope
+    return _jackknife_record(result, b)
+
+
+def _jackknife_record(result: FitResult, loo: np.ndarray, note: str | None = None) -> dict:
+    """The jackknife SE of the leave-one-out slopes *loo* beside the analytic SE of *result*."""
     se_a = analytic_se(result)
-    se_j = jackknife_se(b)
-    return {
+    se_j = jackknife_se(loo)
+    out = {
         "slope_jackknife": se_j,
         "slope_analytic": se_a,
         "ratio": se_j / se_a if se_a > 0 else None,
-        "n": int(n),
+        "n": int(len(loo)),
     }
+    if note:
+        out["note"] = note
+    return out
