@@ -77,7 +77,7 @@ def build_parser() -> argparse.ArgumentParser:
         epilog="Run 'comparo COMMAND --help' for the options of one command.",
     )
     parser.add_argument("--version", action="version", version=f"comparo {__version__}")
-    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=argparse.ArgumentParser)
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser("check", help="validate a dataset; list every problem (exit 2 on errors)")
     _dataset_arg(p)

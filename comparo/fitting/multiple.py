@@ -68,9 +68,7 @@ class MultipleFit:
     against: dict | None = None
     outliers: tuple[dict, ...] = field(default_factory=tuple)
     flags_note: str | None = None
-    sensitivity: dict | None = (
-        None  # leave one source out (comparo.fitting.multiple_sensitivity)
-    )
+    sensitivity: dict | None = None  # leave one source out (comparo.fitting.multiple_sensitivity)
 
     def to_dict(self) -> dict:
         return {

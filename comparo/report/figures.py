@@ -326,6 +326,7 @@ def draw_scaling(
     """
     if "basis" not in points:
         points = points.assign(basis="")
+
     def inv(v):
         return from_scale(v, fit.log)
 
