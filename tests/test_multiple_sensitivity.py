@@ -19,7 +19,7 @@ from support import write_dataset
 
 from comparo.cli.main import main
 from comparo.fitting.multiple import multiple_fit
-from comparo.fitting.source_sensitivity import multiple_sensitivity
+from comparo.fitting.multiple_sensitivity import multiple_sensitivity
 from comparo.validation.dataset import load
 
 N_SRC = 5

@@ -12,13 +12,8 @@ import pytest
 from support import DEMO, run_main, write_dataset
 
 from comparo.fitting import fit
-from comparo.fitting.source_sensitivity import (
-    jackknife_se,
-    lognormal_draws,
-    measurement_error_mc,
-    sensitivity,
-    with_sensitivity,
-)
+from comparo.fitting.slope_spread import jackknife_se, lognormal_draws, measurement_error_mc
+from comparo.fitting.source_sensitivity import sensitivity, with_sensitivity
 from comparo.validation.dataset import load
 
 TRUE_SLOPE = -0.25
@@ -292,7 +287,7 @@ def test_huber_slopes_match_statsmodels_rlm():
     """The vectorised IRLS gives the slope of statsmodels RLM (HuberT, MAD scale) on each data
     set."""
     from comparo.fitting import huber_line
-    from comparo.fitting.source_sensitivity import huber_slopes
+    from comparo.fitting.robust import huber_slopes
 
     rng = np.random.default_rng(6)
     X = rng.uniform(0, 2, (6, 40))

@@ -147,7 +147,7 @@ def _sensitivity(args, xs: list[str], against, opts: dict):
     """Leave one source out of the multiple regression (a dataset folder; a plain table says
     it records no sources). --mc does not apply: no Monte Carlo with several predictors."""
     from comparo.cli.commands.fit import is_dataset, read_table
-    from comparo.fitting.source_sensitivity import multiple_sensitivity
+    from comparo.fitting.multiple_sensitivity import multiple_sensitivity
 
     if is_dataset(args.data):
         from comparo.validation.dataset import load
