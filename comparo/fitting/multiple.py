@@ -121,8 +121,8 @@ class MultipleFit:
             )
         if self.method == "robust":
             lines.append(
-                "Huber M-estimate (c = 1.345, MAD scale): t is the Wald z, p and CIs from the normal; "
-                "no likelihood, so no AICc"
+                "Huber M-estimate (c = 1.345, MAD scale): t is the Wald z, p and CIs from the "
+                "normal; no likelihood, so no AICc"
             )
         else:
             lines.append(

@@ -64,7 +64,8 @@ def _against(given: list[str] | None) -> dict[str, float] | None:
         name, eq, value = str(item).partition("=")
         if not eq or not name.strip():
             raise UsageError(
-                f"--against {item!r}: with several --x each test is TERM=VALUE (e.g. --against body_mass=-0.25)"
+                f"--against {item!r}: with several --x each test is TERM=VALUE "
+                "(e.g. --against body_mass=-0.25)"
             )
         try:
             out[name.strip()] = float(value)
