@@ -72,6 +72,17 @@ def _temperature_arg(p: argparse.ArgumentParser) -> None:
     )
 
 
+def _x_linear_arg(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--x-linear",
+        action="append",
+        default=None,
+        metavar="NAME",
+        help="enter this predictor untransformed (not logged); repeat for several. "
+        "temperature_c (degrees C, an interval scale) always enters untransformed",
+    )
+
+
 def build_parser() -> argparse.ArgumentParser:
     from comparo.base.version import __version__
 
@@ -162,6 +173,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="add a categorical predictor (treatment coding, first level in sorted order the reference)",
     )
+    _x_linear_arg(p)
     p.add_argument(
         "--method",
         choices=["ols", "sma", "ma", "robust", "lts", "pgls"],
@@ -301,6 +313,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="categorical column in every model (treatment coding, first level in sorted order the reference)",
     )
+    _x_linear_arg(p)
     p.add_argument(
         "--method",
         choices=["ols", "pgls"],

@@ -18,7 +18,7 @@ from typing import TYPE_CHECKING, Any
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
-from comparo.fitting.multiple import MultipleFit, _check, design, fit_design
+from comparo.fitting.multiple import MultipleFit, _check, design, fit_design, linear_predictors
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -113,7 +113,7 @@ class Comparison:
                     "delta_aicc": _f(d),
                     "weight": _f(w),
                     "lambda": _f(f.lambda_),
-                    "terms": [dict(t) for t in f.terms],
+                    "terms": [{**t, "scale": f.scale(t["term"])} for t in f.terms],
                 }
             )
         return {
@@ -130,6 +130,7 @@ class Comparison:
             "excluded": [dict(e) for e in self.excluded],
             "caution": WEIGHT_CAUTION,
             "averaged": model_average(self.fits, self.weights),
+            "linear": sorted({c for f in self.fits for c in f.linear}),
             "averaging_caution": AVERAGING_CAUTION,
         }
 
@@ -151,6 +152,12 @@ class Comparison:
             lines += [f"  {e['label']}: {e['reason']}" for e in self.excluded[:20]]
             if len(self.excluded) > 20:
                 lines.append(f"  ... and {len(self.excluded) - 20} more (JSON key 'excluded')")
+        linear = sorted({c for f in self.fits for c in f.linear})
+        if linear:
+            lines.append(
+                f"entered untransformed (linear, not log): {', '.join(linear)}; "
+                "their coefficients are change in log y per unit"
+            )
         if self.factor:
             lines.append(
                 f"every model includes the factor {self.factor} "
@@ -229,6 +236,7 @@ def compare(
     lambda_: Any = "ml",
     tree_labels: Mapping[str, str] | None = None,
     taxon_col: str = "taxon",
+    linear: Sequence[str] | None = None,
 ) -> Comparison:
     """Compare candidate models of *y*: each a list of predictors (or a comma-separated
     string; ``"1"`` or ``""`` for the intercept-only model), all log-transformed like y.
@@ -242,7 +250,9 @@ def compare(
     *table* is one row per taxon: a per-taxon table (:func:`comparo.per_taxon`) or, for the
     derived bounds and ratios as predictors, the derived table (:func:`comparo.derive`),
     which ``comparo compare`` builds itself from a dataset folder. Values in the table's
-    canonical units; coefficients are on the log scale of *log*.
+    canonical units; coefficients are on the log scale of *log*, except for predictors named
+    in *linear* and ``temperature_c`` (degrees Celsius), which enter untransformed
+    (:func:`comparo.fitting.multiple.linear_predictors`).
     """
     sets = [_parse(m) for m in models]
     if len(sets) < 2:
@@ -266,6 +276,7 @@ def compare(
         taxon_col=taxon_col,
         tree=tree if method == "pgls" else None,
         tree_labels=tree_labels,
+        linear=linear_predictors(columns, linear, y),
     )
     fits = [fit_design(d, y, s, method=method, lambda_=lambda_, ci=ci, log=log) for s in sets]
     fits.sort(key=lambda f: f.aicc)

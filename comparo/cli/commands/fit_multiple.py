@@ -23,7 +23,7 @@ def one_x(args) -> bool:
     """True for a one-line fit (one --x, no --factor): ``args.x`` becomes that name and
     ``args.against`` one number (or None). False for the multiple regression."""
     xs = args.x if isinstance(args.x, list) else [args.x]
-    if len(xs) > 1 or getattr(args, "factor", None):
+    if len(xs) > 1 or getattr(args, "factor", None) or getattr(args, "x_linear", None):
         return False
     args.x = xs[0]
     given = (
@@ -111,9 +111,14 @@ def run_multiple(args) -> int:
         ci=args.ci,
         taxon_col=args.taxon_col,
         against=against,
+        linear=args.x_linear,
         **opts,
     )
-    sens = _sensitivity(args, xs, against, opts) if args.sensitivity else None
+    sens = (
+        _sensitivity(args, xs, against, {**opts, "linear": args.x_linear})
+        if args.sensitivity
+        else None
+    )
     if sens is not None:
         import dataclasses
 
