@@ -95,7 +95,8 @@ class MultipleFit:
         None  # leave one source out (comparo.fitting.source_sensitivity.multiple_sensitivity)
     )
     linear: tuple[str, ...] = ()  # predictors entered untransformed (temperature in degC)
-    resampling: dict | None = None  # bootstrap or jackknife (comparo.fitting.multiple_resampling)
+    resampling: dict | None = None  # bootstrap (comparo.fitting.multiple_resampling)
+    by: dict | None = None  # fits within each group (comparo.fitting.multiple_groups)
 
     def scale(self, term: str) -> str | None:
         """The scale a predictor entered on (``log10``, ``ln`` or ``linear``); None for the
@@ -129,6 +130,7 @@ class MultipleFit:
             "sensitivity": self.sensitivity,
             "linear": list(self.linear),
             **({} if self.resampling is None else {"resampling": self.resampling}),
+            **({} if self.by is None else {"by": self.by}),
         }
 
     def summary(self) -> str:
@@ -233,6 +235,12 @@ def _check(
             f"method {method} (model II) fits a line through one predictor; with {n_predictors} "
             "predictors use --method ols or pgls (errors in y; log x measured with little error "
             "relative to the scatter), or fit one predictor at a time with sma/ma"
+        )
+    if method == "lts" and n_predictors > 1:
+        raise UsageError(
+            f"method lts (least trimmed squares) is the one-predictor line; with {n_predictors} "
+            "predictors use --method robust (Huber M-estimate, resistant to outliers in y) or "
+            "--method ols and read its flags (studentized residuals, leverage, Cook's distance)"
         )
     if method not in methods:
         raise UsageError(
