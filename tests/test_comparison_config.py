@@ -108,3 +108,6 @@ def test_report_runs_the_declared_comparison(demo_report):
     names = {p for m in r["models"] for p in m["predictors"]}
     assert {a["term"] for a in r["averaged"]} == names
     assert "Model-averaged coefficients" in sec and "partial effect" in sec
+    # the added-variable plots of the best-supported model with two or more predictors
+    assert 'alt="added-variable plots' in sec and "Added-variable plots of" in sec
+    assert "phylogenetically whitened" in comps[0]["added_variable_caption"]

@@ -135,6 +135,10 @@ def _comparison_views(run) -> list[dict]:
             v |= {
                 "frame": c["frame"],
                 "averaged": _averaged_frame(r.get("averaged")),
+                "added_variable": render.fig(
+                    run.figures, f"{c['id']}_added_variable", f"added-variable plots: {c['name']}"
+                ),
+                "added_variable_caption": c.get("added_variable_caption", ""),
                 "summary": c["summary"],
                 "n": r["n"],
                 "excluded": r["excluded"],
