@@ -104,3 +104,10 @@ def test_report_runs_the_declared_comparison(demo_report):
     sec = html[html.index('id="comparisons"') :]
     assert "not the probability that the model is true" in sec and f"n = {n}" in sec
     assert comps[0]["id"] in sec and "tables/comparisons.json" in result.tables
+    # the model-averaged coefficients: one row per predictor of any model, with the caveat
+    names = {p for m in r["models"] for p in m["predictors"]}
+    assert {a["term"] for a in r["averaged"]} == names
+    assert "Model-averaged coefficients" in sec and "partial effect" in sec
+    # the added-variable plots of the best-supported model with two or more predictors
+    assert 'alt="added-variable plots' in sec and "Added-variable plots of" in sec
+    assert "phylogenetically whitened" in comps[0]["added_variable_caption"]

@@ -277,8 +277,8 @@ def test_fit_with_several_x_json_text_and_csv(csv, capsys):
     [
         (["--x", "temp"], "use --method ols or pgls"),  # default method sma
         (["--x", "temp", "--method", "ma"], "use --method ols or pgls"),
-        (["--x", "temp", "--method", "lts"], "are fitted by ols, robust, pgls"),
-        (["--x", "temp", "--method", "ols", "--by", "clade"], "--by is not available"),
+        (["--x", "temp", "--method", "lts"], "use --method robust"),
+        (["--x", "temp", "--method", "ols", "--by", "clade", "--factor", "clade"], "give one"),
         (["--x", "temp", "--method", "ols", "--against", "0.5"], "TERM=VALUE"),
         (["--x", "temp", "--method", "ols", "--against", "zzz=0.5"], "not a term of the model"),
         (["--x", "temp", "--method", "ols", "--against", "temp=nan"], "finite number"),

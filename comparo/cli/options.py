@@ -184,6 +184,14 @@ def _fit_model_args(p: argparse.ArgumentParser) -> None:
         "(treatment coding, first level in sorted order the reference)",
     )
     p.add_argument(
+        "--x-linear",
+        action="append",
+        default=None,
+        metavar="NAME",
+        help="enter this predictor untransformed (not logged); repeat for several. "
+        "temperature_c (degrees C, an interval scale) always enters untransformed",
+    )
+    p.add_argument(
         "--method",
         choices=["ols", "sma", "ma", "robust", "lts", "pgls"],
         default="sma",
@@ -304,6 +312,14 @@ def add_compare(sub: Sub) -> None:
         default=None,
         help="categorical column in every model "
         "(treatment coding, first level in sorted order the reference)",
+    )
+    p.add_argument(
+        "--x-linear",
+        action="append",
+        default=None,
+        metavar="NAME",
+        help="enter this predictor untransformed (not logged); repeat for several. "
+        "temperature_c (degrees C, an interval scale) always enters untransformed",
     )
     p.add_argument(
         "--method",

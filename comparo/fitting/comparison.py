@@ -19,18 +19,61 @@ from typing import TYPE_CHECKING, Any
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.numbers import number
-from comparo.fitting.multiple import MultipleFit, _check, design, fit_design
+from comparo.fitting.multiple import MultipleFit, _check, design, fit_design, linear_predictors
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
 #: What an Akaike weight is not, said wherever weights are shown.
 WEIGHT_CAUTION = (
-    "An Akaike weight is the relative support for a model among the candidates given, on these taxa; "
-    "it is not the probability that the model is true, and it changes when candidates are added or removed. "
-    "Models within 2 AICc units of the best are not distinguished by the data (a difference below 2 is "
-    "not a preference). A well-supported model may still be a poor description: check its residuals."
+    "An Akaike weight is the relative support for a model among the candidates given, on these "
+    "taxa; it is not the probability that the model is true, and it changes when candidates are "
+    "added or removed. Models within 2 AICc units of the best are not distinguished by the data "
+    "(a difference below 2 is not a preference). A well-supported model may still be a poor "
+    "description: check its residuals."
 )
+#: When a model-averaged coefficient means something, said wherever averages are shown.
+AVERAGING_CAUTION = (
+    "Model-averaged coefficients are averaged per term over the models that contain it, with "
+    "their Akaike weights renormalised over those models; the standard error is the "
+    "unconditional one (within-model variance plus the spread of the estimates between models; "
+    "Burnham & Anderson 2002). Every model here has the same y, the same log scale and the same "
+    "taxa, so a term is on one scale in all of them; but a coefficient is a partial effect whose "
+    "meaning depends on the other predictors in its model, so with correlated predictors the "
+    "average mixes different quantities: read it beside each model's own estimate, not instead."
+)
+
+
+def model_average(fits: Sequence[MultipleFit], weights: Sequence[float]) -> list[dict]:
+    """Model-averaged coefficients (Burnham & Anderson 2002, ch. 4): for each term other than
+    the intercept, over the models containing it, with weights w~_i = w_i / sum of w_j over
+    those models, estimate = sum w~_i b_i and the unconditional standard error
+    se = sum w~_i sqrt(se_i^2 + (b_i - estimate)^2). Rows ``{"term", "estimate", "se",
+    "models", "weight"}``: ``models`` counts the models containing the term, ``weight`` is
+    their summed Akaike weight. Terms in the order they first appear (best model first)."""
+    rows: dict[str, list[tuple[float, float, float]]] = {}
+    for f, w in zip(fits, weights, strict=True):
+        for t in f.terms:
+            if t["term"] == "intercept":
+                continue
+            rows.setdefault(t["term"], []).append((w, t["estimate"], t["se"]))
+    out = []
+    for term, got in rows.items():
+        total = sum(w for w, _, _ in got)
+        est = se = None
+        if total > 0 and all(b is not None and s is not None for _, b, s in got):
+            est = sum(w * b for w, b, _ in got) / total
+            se = sum(w * math.sqrt(s * s + (b - est) ** 2) for w, b, s in got) / total
+        out.append(
+            {
+                "term": term,
+                "estimate": _f(est),
+                "se": _f(se),
+                "models": len(got),
+                "weight": _f(total),
+            }
+        )
+    return out
 
 
 def akaike_weights(values: Sequence[float]) -> list[float]:
@@ -71,7 +114,7 @@ class Comparison:
                     "delta_aicc": _f(d),
                     "weight": _f(w),
                     "lambda": _f(f.lambda_),
-                    "terms": [dict(t) for t in f.terms],
+                    "terms": [{**t, "scale": f.scale(t["term"])} for t in f.terms],
                 }
             )
         return {
@@ -87,6 +130,9 @@ class Comparison:
             "likelihood_ratio_tests": [dict(t) for t in self.tests],
             "excluded": [dict(e) for e in self.excluded],
             "caution": WEIGHT_CAUTION,
+            "averaged": model_average(self.fits, self.weights),
+            "linear": sorted({c for f in self.fits for c in f.linear}),
+            "averaging_caution": AVERAGING_CAUTION,
         }
 
     def summary(self) -> str:
@@ -98,7 +144,8 @@ class Comparison:
                 else f", Pagel's lambda fixed at {float(self.lambda_):g}"
             )
         lines = [
-            f"Model comparison for {self.y} (log {self.log}), method {self.method}{lam}, maximum likelihood",
+            f"Model comparison for {self.y} (log {self.log}), method {self.method}{lam}, "
+            "maximum likelihood",
             f"n = {self.n} taxa with every variable of every model",
         ]
         if self.excluded:
@@ -106,9 +153,16 @@ class Comparison:
             lines += [f"  {e['label']}: {e['reason']}" for e in self.excluded[:20]]
             if len(self.excluded) > 20:
                 lines.append(f"  ... and {len(self.excluded) - 20} more (JSON key 'excluded')")
+        linear = sorted({c for f in self.fits for c in f.linear})
+        if linear:
+            lines.append(
+                f"entered untransformed (linear, not log): {', '.join(linear)}; "
+                "their coefficients are change in log y per unit"
+            )
         if self.factor:
             lines.append(
-                f"every model includes the factor {self.factor} (reference level {self.reference!r})"
+                f"every model includes the factor {self.factor} "
+                f"(reference level {self.reference!r})"
             )
         lines.append("")
         names = [" + ".join(f.predictors) or "1 (intercept only)" for f in self.fits]
@@ -137,9 +191,29 @@ class Comparison:
                     f"  {t['smaller']} within {t['larger']}: LR = {number(t['statistic'])}, "
                     f"df = {t['df']}, p = {number(t['p'])}"
                 )
+        lines += self._averaged_lines()
         lines.append("")
         lines += textwrap.wrap(WEIGHT_CAUTION, 100)
         return "\n".join(lines)
+
+    def _averaged_lines(self) -> list[str]:
+        """The model-averaged coefficients and when they make sense."""
+        rows = model_average(self.fits, self.weights)
+        if not rows:
+            return []
+        w = max(len("term"), *(len(r["term"]) for r in rows))
+        lines = [
+            "",
+            "Model-averaged coefficients (over the models containing each term):",
+            f"  {'term':<{w}}  {'estimate':>10}  {'SE (uncond.)':>12}  {'models':>6}  "
+            f"{'sum of weights':>14}",
+        ]
+        lines += [
+            f"  {r['term']:<{w}}  {number(r['estimate']):>10}  {number(r['se']):>12}  "
+            f"{r['models']:>6}  {number(r['weight']):>14}"
+            for r in rows
+        ]
+        return lines + ["", *textwrap.wrap(AVERAGING_CAUTION, 100)]
 
 
 def _label(predictors: Sequence[str]) -> str:
@@ -159,6 +233,7 @@ def compare(
     lambda_: Any = "ml",
     tree_labels: Mapping[str, str] | None = None,
     taxon_col: str = "taxon",
+    linear: Sequence[str] | None = None,
 ) -> Comparison:
     """Compare candidate models of *y*: each a list of predictors (or a comma-separated
     string; ``"1"`` or ``""`` for the intercept-only model), all log-transformed like y.
@@ -172,7 +247,9 @@ def compare(
     *table* is one row per taxon: a per-taxon table (:func:`comparo.per_taxon`) or, for the
     derived bounds and ratios as predictors, the derived table (:func:`comparo.derive`),
     which ``comparo compare`` builds itself from a dataset folder. Values in the table's
-    canonical units; coefficients are on the log scale of *log*.
+    canonical units; coefficients are on the log scale of *log*, except for predictors named
+    in *linear* and ``temperature_c`` (degrees Celsius), which enter untransformed
+    (:func:`comparo.fitting.multiple.linear_predictors`).
     """
     sets = [_parse(m) for m in models]
     if len(sets) < 2:
@@ -196,6 +273,7 @@ def compare(
         taxon_col=taxon_col,
         tree=tree if method == "pgls" else None,
         tree_labels=tree_labels,
+        linear=linear_predictors(columns, linear, y),
     )
     fits = [fit_design(d, y, s, method=method, lambda_=lambda_, ci=ci, log=log) for s in sets]
     fits.sort(key=lambda f: f.aicc)

@@ -28,6 +28,30 @@ MULTIPLE_METHODS = ("ols", "pgls")
 #: robust (Huber) has no likelihood, so it fits but does not enter a model comparison.
 FIT_METHODS = ("ols", "robust", "pgls")
 _WEIGHT_CUT = 0.5  # low Huber weight, as the flags of a one-predictor robust line (common practice)
+#: Columns that enter a multiple regression untransformed unless asked otherwise: temperature in
+#: degrees Celsius is an interval scale (its zero is arbitrary and values may be <= 0), so a ratio
+#: of two temperatures, and hence its logarithm, means nothing.
+LINEAR_BY_DEFAULT = ("temperature_c",)
+_SCALE = {"10": "log10", "e": "ln", "none": "linear"}
+
+
+def linear_predictors(
+    predictors: Sequence[str], linear: Sequence[str] | None = None, y: str | None = None
+) -> tuple[str, ...]:
+    """The predictors that enter untransformed: those of :data:`LINEAR_BY_DEFAULT` and those
+    named in *linear* (which must be predictors, and not y)."""
+    linear = list(linear or ())
+    if y is not None and y in linear:
+        raise UsageError(
+            f"--x-linear {y!r}: y is always on the --log scale; only predictors enter linearly"
+        )
+    bad = [c for c in linear if c not in predictors]
+    if bad:
+        raise UsageError(
+            f"--x-linear {', '.join(map(repr, bad))}: not a predictor of the model "
+            f"(predictors: {', '.join(predictors) or 'none'})"
+        )
+    return tuple(c for c in predictors if c in linear or c in LINEAR_BY_DEFAULT)
 
 
 def aicc(loglik: float, k: int, n: int) -> float:
@@ -69,6 +93,16 @@ class MultipleFit:
     outliers: tuple[dict, ...] = field(default_factory=tuple)
     flags_note: str | None = None
     sensitivity: dict | None = None  # leave one source out (comparo.fitting.multiple_sensitivity)
+    linear: tuple[str, ...] = ()  # predictors entered untransformed (temperature in degC)
+    resampling: dict | None = None  # bootstrap (comparo.fitting.multiple_resampling)
+    by: dict | None = None  # fits within each group (comparo.fitting.multiple_groups)
+
+    def scale(self, term: str) -> str | None:
+        """The scale a predictor entered on (``log10``, ``ln`` or ``linear``); None for the
+        intercept and factor levels."""
+        if term not in self.predictors:
+            return None
+        return "linear" if term in self.linear else _SCALE[self.log]
 
     def to_dict(self) -> dict:
         return {
@@ -80,7 +114,7 @@ class MultipleFit:
             "reference_level": self.reference,
             "log": self.log,
             "n": self.n,
-            "terms": [dict(t) for t in self.terms],
+            "terms": [{**t, "scale": self.scale(t["term"])} for t in self.terms],
             "loglik": _f(self.loglik),
             "aicc": _f(self.aicc),
             "k": self.k,
@@ -93,11 +127,15 @@ class MultipleFit:
             "flags_note": self.flags_note,
             "excluded": [dict(e) for e in self.excluded],
             "sensitivity": self.sensitivity,
+            "linear": list(self.linear),
+            **({} if self.resampling is None else {"resampling": self.resampling}),
+            **({} if self.by is None else {"by": self.by}),
         }
 
     def summary(self) -> str:
         """The fit as text: terms, log-likelihood, AICc, lambda and the joint test."""
-        model = " + ".join([*self.predictors] + ([self.factor] if self.factor else [])) or "1"
+        shown = [f"{p} (linear)" if p in self.linear else p for p in self.predictors]
+        model = " + ".join(shown + ([self.factor] if self.factor else [])) or "1"
         head = f"{self.method.upper()} multiple regression, log {self.log}: {self.y} ~ {model}"
         lines = [
             head,
@@ -120,8 +158,8 @@ class MultipleFit:
             )
         if self.method == "robust":
             lines.append(
-                "Huber M-estimate (c = 1.345, MAD scale): t is the Wald z, p and CIs from the normal; "
-                "no likelihood, so no AICc"
+                "Huber M-estimate (c = 1.345, MAD scale): t is the Wald z, p and CIs from the "
+                "normal; no likelihood, so no AICc"
             )
         else:
             lines.append(
@@ -170,6 +208,7 @@ class Design:
     dummies: Mapping[str, np.ndarray]
     excluded: tuple[dict, ...]
     tree: Any = None  # FlatTree of the rows (pgls), rows in its tip order
+    linear: tuple[str, ...] = ()  # columns kept untransformed
 
     def matrix(self, predictors: Sequence[str]) -> tuple[np.ndarray, list[str]]:
         """[1 | predictors | dummies] and the term names."""
@@ -192,6 +231,12 @@ def _check(
             "predictors use --method ols or pgls (errors in y; log x measured with little error "
             "relative to the scatter), or fit one predictor at a time with sma/ma"
         )
+    if method == "lts" and n_predictors > 1:
+        raise UsageError(
+            f"method lts (least trimmed squares) is the one-predictor line; with {n_predictors} "
+            "predictors use --method robust (Huber M-estimate, resistant to outliers in y) or "
+            "--method ols and read its flags (studentized residuals, leverage, Cook's distance)"
+        )
     if method not in methods:
         raise UsageError(
             f"several predictors (or a factor) are fitted by {', '.join(methods)}, not {method!r}"
@@ -209,9 +254,11 @@ def design(
     taxon_col: str = "taxon",
     tree: Any = None,
     tree_labels: Mapping[str, str] | None = None,
+    linear: Sequence[str] = (),
 ) -> Design:
-    """The rows having y, every column of *columns* (positive under a log), the factor and,
-    given a *tree*, a tip; each other row is listed with all its reasons."""
+    """The rows having y, every column of *columns* (positive under a log, unless it is one of
+    *linear*, kept untransformed), the factor and, given a *tree*, a tip; each other row is
+    listed with all its reasons."""
     import pandas as pd
 
     needed = [y, *columns] + ([factor] if factor else [])
@@ -241,8 +288,9 @@ def design(
         topo = _as_topo(tree)
         tip_of = _match(topo, labels, tree_labels).tip_of
     bad = np.zeros(len(labels), dtype=bool)  # rows with any problem, found with numpy first
-    for v in numeric.values():
-        bad |= ~np.isfinite(v) | ((v <= 0) if log != "none" else False)
+    logged = {c: log != "none" and c not in linear for c in numeric}
+    for c, v in numeric.items():
+        bad |= ~np.isfinite(v) | ((v <= 0) if logged[c] else False)
     fac = None
     if factor:
         fac = table[factor]
@@ -255,7 +303,7 @@ def design(
         for c, v in numeric.items():
             if not math.isfinite(v[i]):
                 reasons.append(f"missing {c}")
-            elif log != "none" and v[i] <= 0:
+            elif logged[c] and v[i] <= 0:
                 reasons.append(f"{c} = {v[i]:g} is not positive (log transform)")
         if fac is not None and (pd.isna(fac.iloc[i]) or str(fac.iloc[i]).strip() == ""):
             reasons.append(f"missing {factor}")
@@ -269,7 +317,7 @@ def design(
 
         ft, keep, _ = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     idx = np.asarray(keep, dtype=int)
-    cols = {c: to_scale(numeric[c][idx], log) for c in numeric}
+    cols = {c: to_scale(numeric[c][idx], log) if logged[c] else numeric[c][idx] for c in numeric}
     reference, dummies = None, {}
     if factor:
         values = table[factor].astype(str).to_numpy()[idx]
@@ -286,6 +334,7 @@ def design(
         dummies,
         tuple(excluded),
         ft,
+        tuple(c for c in numeric if not logged[c] and log != "none"),
     )
 
 
@@ -379,6 +428,7 @@ def fit_design(
         test,
         tuple(outliers),
         note,
+        linear=tuple(c for c in predictors if c in d.linear),
     )
 
 
@@ -535,6 +585,7 @@ def _robust(
         against=test,
         outliers=tuple(outliers),
         flags_note=note,
+        linear=tuple(c for c in predictors if c in d.linear),
     )
 
 
@@ -556,9 +607,12 @@ def multiple_fit(
     tree_labels: Mapping[str, str] | None = None,
     taxon_col: str = "taxon",
     against: Mapping[str, float] | None = None,
+    linear: Sequence[str] | None = None,
 ) -> MultipleFit:
     """Multiple regression of y on *predictors* (quantity keys or columns, each log-transformed
     like y) and a *factor* (treatment coding, the first level in sorted order the reference).
+    Predictors named in *linear*, and ``temperature_c`` (degrees Celsius, an interval scale),
+    enter untransformed (:func:`linear_predictors`); JSON ``terms[].scale`` says which.
 
     ``method`` "ols" or "pgls" (Pagel's lambda by maximum likelihood with ``lambda_="ml"``,
     or fixed); the log-likelihood is the maximum likelihood in both. Rows missing any
@@ -579,6 +633,7 @@ def multiple_fit(
         taxon_col=taxon_col,
         tree=tree if method == "pgls" else None,
         tree_labels=tree_labels,
+        linear=linear_predictors(predictors, linear, y),
     )
     return fit_design(
         d,

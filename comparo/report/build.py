@@ -445,6 +445,24 @@ def comparison_id(i: int, c: dict) -> str:
     return f"compare{i + 1}_{c.get('method', 'ols')}_{c['y']}"
 
 
+def _added_variable(run: _Run, rec: dict, res: Any, opts: dict) -> None:
+    """The added-variable plots of a comparison (:mod:`comparo.report.added_variable`)."""
+    from comparo.base.errors import ComparoError
+    from comparo.report import figures as plots
+    from comparo.report.added_variable import comparison_figure
+
+    cols = {c for f in res.fits for c in f.predictors} | {res.y}
+    labels = {c: plots.axis_label(c, run.ds.catalog) for c in cols}
+    try:
+        drawn = comparison_figure(run.data, res, labels=labels, **opts)
+    except ComparoError as exc:  # the section says why there is no figure
+        run.notes.append(f"added-variable plots of {rec['id']} not drawn: {exc}")
+        return
+    if drawn is not None:
+        run.figures[f"{rec['id']}_added_variable"] = plots.render(drawn[0])
+        rec["added_variable_caption"] = drawn[1]
+
+
 def _compare_all(run: _Run) -> None:
     """Every ``[[comparison]]`` of comparo.toml (:func:`comparo.fitting.compare`) on the data the
     fits use; a comparison that cannot run is kept with the reason."""
@@ -482,6 +500,7 @@ def _compare_all(run: _Run) -> None:
             rec["error"] = str(exc)
             continue
         rec["result"] = res.to_dict()
+        _added_variable(run, rec, res, opts)
         rows = [
             {
                 "model": " + ".join(m["predictors"]) or "1 (intercept only)",

@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from comparo.fitting.cautions import caution_lines
-from comparo.fitting.comparison import WEIGHT_CAUTION
+from comparo.fitting.comparison import AVERAGING_CAUTION, WEIGHT_CAUTION
 from comparo.report import render
 from comparo.report.appendix import appendix
 from comparo.report.per_fit import diagnostics_caption
@@ -101,6 +101,13 @@ def _sensitivity_view(run, sec: dict) -> dict:
     }
 
 
+def _averaged_frame(rows):
+    """The model-averaged coefficients of a comparison as a table (None when there are none)."""
+    import pandas as pd
+
+    return pd.DataFrame(rows).rename(columns={"se": "se_unconditional"}) if rows else None
+
+
 def _comparison_views(run) -> list[dict]:
     """Each ``[[comparison]]``: its table of models, the taxa used and left out, or why it did not
     run."""
@@ -130,6 +137,11 @@ def _comparison_views(run) -> list[dict]:
             )
             v |= {
                 "frame": c["frame"],
+                "averaged": _averaged_frame(r.get("averaged")),
+                "added_variable": render.fig(
+                    run.figures, f"{c['id']}_added_variable", f"added-variable plots: {c['name']}"
+                ),
+                "added_variable_caption": c.get("added_variable_caption", ""),
                 "summary": c["summary"],
                 "n": r["n"],
                 "excluded": r["excluded"],
@@ -268,6 +280,7 @@ def report_html(run) -> str:
         sensitivity=[_sensitivity_view(run, s) for s in run.sections],
         comparisons=_comparison_views(run),
         weight_caution=WEIGHT_CAUTION,
+        averaging_caution=AVERAGING_CAUTION,
         since=_since_view(run),
         draws=int(run.draws),
         regime=_regime_view(run),

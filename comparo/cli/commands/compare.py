@@ -57,6 +57,7 @@ def run(args) -> int:
         log=args.log,
         ci=args.ci,
         taxon_col=args.taxon_col,
+        linear=args.x_linear,
         **opts,
     )
     emit(dumps(result.to_dict()) if args.format == "json" else result.summary())

@@ -8,14 +8,35 @@ import sys
 from comparo.base.errors import UsageError
 from comparo.base.outputs import dumps, emit
 
-# options of the one-predictor fit that the multiple regression does not offer (yet)
+# options of the one-predictor fit that the multiple regression does not offer, and why
 _LINE_ONLY = (
-    ("--by", "by", None),
-    ("--bootstrap", "bootstrap", 0),
-    ("--breakpoint", "breakpoint", False),
-    ("--drop-flagged", "drop_flagged", None),
-    ("--reml", "reml", False),
-    ("--tip-se", "tip_se", False),
+    (
+        "--breakpoint",
+        "breakpoint",
+        False,
+        "a broken line bends along one x; fit one predictor at a time with --breakpoint",
+    ),
+    (
+        "--drop-flagged",
+        "drop_flagged",
+        None,
+        "the multiple fit lists its flags (JSON 'outliers') without refitting; if a flagged "
+        "taxon is an error, correct the data, or compare the fit with --sensitivity",
+    ),
+    (
+        "--reml",
+        "reml",
+        False,
+        "the multiple fit reports the maximum likelihood, which AICc and model comparison "
+        "need (REML likelihoods of models with different predictors are not comparable)",
+    ),
+    (
+        "--tip-se",
+        "tip_se",
+        False,
+        "measurement-error variance in the PGLS likelihood is offered for one predictor; with "
+        "several, --sensitivity propagates the uncertainties of y and every predictor by draws",
+    ),
 )
 
 
@@ -23,7 +44,7 @@ def one_x(args) -> bool:
     """True for a one-line fit (one --x, no --factor): ``args.x`` becomes that name and
     ``args.against`` one number (or None). False for the multiple regression."""
     xs = args.x if isinstance(args.x, list) else [args.x]
-    if len(xs) > 1 or getattr(args, "factor", None):
+    if len(xs) > 1 or getattr(args, "factor", None) or getattr(args, "x_linear", None):
         return False
     args.x = xs[0]
     given = (
@@ -86,15 +107,23 @@ def run_multiple(args) -> int:
         args.log, args.ci, args.method, len(xs), FIT_METHODS
     )  # sma/ma, lts with several predictors: exit 2
     off = [
-        flag
-        for flag, name, default in _LINE_ONLY
+        f"{flag}: {why}"
+        for flag, name, default, why in _LINE_ONLY
         if getattr(args, name, default) not in (default, None)
     ]
     if off:
+        raise UsageError("not available with several predictors or --factor: " + "; ".join(off))
+    if args.by and args.factor:
         raise UsageError(
-            f"{', '.join(off)} {'is' if len(off) == 1 else 'are'} not available with several "
-            "predictors or --factor yet"
+            f"--by {args.by} and --factor {args.factor}: give one. --factor fits one set of "
+            "exponents with a separate elevation per level; --by fits the model in each group"
         )
+    if args.bootstrap and args.method == "pgls":
+        from comparo.fitting.multiple_resampling import PGLS_BOOTSTRAP
+
+        raise UsageError(PGLS_BOOTSTRAP)
+    if args.bootstrap < 0:
+        raise UsageError(f"--bootstrap must be 0 or a positive number (got {args.bootstrap})")
     if args.method != "pgls" and (args.tree is not None or args.lambda_ is not None):
         raise UsageError("--tree and --lambda apply only to --method pgls")
     against = _against(args.against)
@@ -111,13 +140,14 @@ def run_multiple(args) -> int:
         ci=args.ci,
         taxon_col=args.taxon_col,
         against=against,
+        linear=args.x_linear,
         **opts,
     )
-    sens = _sensitivity(args, xs, against, opts) if args.sensitivity else None
-    if sens is not None:
+    extra, text = _extras(args, table, xs, result, against, opts)
+    if extra:
         import dataclasses
 
-        result = dataclasses.replace(result, sensitivity=sens.to_dict())
+        result = dataclasses.replace(result, **extra)
     if args.format == "json":
         emit(dumps(result.to_dict()))
     elif args.format == "csv":
@@ -139,8 +169,51 @@ def run_multiple(args) -> int:
         ]
         sys.stdout.write(to_csv(pd.DataFrame(rows)))
     else:
-        emit(result.summary() + ("" if sens is None else "\n" + sens.summary()))
+        emit("\n".join([result.summary(), *text]))
     return 0
+
+
+def _extras(args, table, xs: list[str], result, against, opts: dict) -> tuple[dict, list[str]]:
+    """The parts asked beside the fit, as fields of the result and lines of text: the
+    bootstrap (key ``resampling``), leave one source out with the taxon jackknife and the
+    measurement-error draws (key ``sensitivity``), the group-wise fits (key ``by``)."""
+    from comparo.fitting import multiple_resampling as mr
+    from comparo.fitting.multiple import design, linear_predictors
+
+    out: dict = {}
+    text: list[str] = []
+    d = None
+    if args.bootstrap or (args.sensitivity and args.mc):
+        d = design(
+            table, args.y, xs, factor=args.factor, log=result.log, taxon_col=args.taxon_col,
+            tree=opts.get("tree"), tree_labels=opts.get("tree_labels"),
+            linear=linear_predictors(xs, args.x_linear, args.y),
+        )  # fmt: skip
+    if args.by:
+        from comparo.fitting.multiple_groups import by_lines, multiple_by
+
+        out["by"] = multiple_by(
+            table, args.y, xs, args.by, method=args.method, log=result.log, ci=args.ci,
+            taxon_col=args.taxon_col, linear=args.x_linear, **opts,
+        )  # fmt: skip
+        text += by_lines(out["by"])
+    if args.bootstrap:
+        out["resampling"] = {"bootstrap": mr.bootstrap_terms(d, result, args.bootstrap, args.seed)}
+        text += mr.resampling_lines(out["resampling"])
+    if args.sensitivity:
+        sens = _sensitivity(args, xs, against, {**opts, "linear": args.x_linear})
+        kw = {k: v for k, v in opts.items() if k != "lambda_"}
+        part = sens.to_dict()
+        part["jackknife"] = mr.jackknife_terms(
+            table, result, taxon_col=args.taxon_col, fit_options=kw
+        )
+        if args.mc:
+            part["measurement_error"] = mr.measurement_error_terms(
+                table, d, result, args.mc, args.seed, taxon_col=args.taxon_col
+            )
+        out["sensitivity"] = part
+        text += [sens.summary(), *mr.resampling_lines(part)]
+    return out, text
 
 
 def _sensitivity(args, xs: list[str], against, opts: dict):
