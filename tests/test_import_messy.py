@@ -22,7 +22,7 @@ import pytest
 from comparo.base import units
 from comparo.cli.main import main
 from comparo.curation.importing import import_wide
-from comparo.reading.sheets import NameIndex, match_header
+from comparo.reading.headers import NameIndex, match_header
 
 UREG = pint.UnitRegistry()
 

@@ -377,14 +377,15 @@ def _imports(module: str) -> set[str]:
 def test_reading_never_imports_validation():
     """One-way flow: reading returns raw tables; validation imports reading; the
     dataset module sits on both (no import cycle, not even a lazy one)."""
-    assert not _imports("comparo.reading.tables") & {
-        "comparo.validation.tables",
-        "comparo.validation.dataset",
-        "comparo.curation.harmonise",
-    }
-    assert "comparo.reading.tables" in _imports("comparo.validation.tables")
+    for module in ("tables", "text", "workbook", "folder", "newick", "sheets", "headers"):
+        assert not _imports(f"comparo.reading.{module}") & {
+            "comparo.validation.tables",
+            "comparo.validation.dataset",
+            "comparo.curation.harmonise",
+        }
+    assert "comparo.reading.folder" in _imports("comparo.validation.tables")
     assert "comparo.validation.dataset" not in _imports("comparo.validation.tables")
-    assert {"comparo.reading.tables", "comparo.validation.tables"} <= _imports(
+    assert {"comparo.reading.folder", "comparo.validation.tables"} <= _imports(
         "comparo.validation.dataset"
     )
     import comparo
@@ -431,7 +432,7 @@ def _demo_raw():
     """The demo folder as read (once per test process; callers copy the frames they change)."""
     from support import DEMO
 
-    from comparo.reading.tables import read_folder
+    from comparo.reading.folder import read_folder
 
     return read_folder(DEMO)
 
@@ -503,7 +504,7 @@ def test_schema_failures_of_a_known_bad_table_match_pandera():
     """Fixed case with one of each kind of failure, so the comparison above is never empty."""
     from support import DEMO
 
-    from comparo.reading.tables import read_folder
+    from comparo.reading.folder import read_folder
     from comparo.validation.tables import pandera_schema
 
     frame = read_folder(DEMO).observations.frame.copy()

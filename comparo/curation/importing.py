@@ -25,19 +25,9 @@ from typing import Any
 
 from comparo.base.catalog import Catalog, load_catalog
 from comparo.base.errors import InputError, Problem, UsageError
-from comparo.reading.sheets import (
-    UNCERTAINTY_ROLES,
-    Column,
-    Grid,
-    apply_map,
-    map_text,
-    match_headers,
-    read_grid,
-    read_map,
-    read_synonyms,
-    split_unit,
-)
-from comparo.reading.tables import Percent, is_percent_unit
+from comparo.reading.headers import Column, UNCERTAINTY_ROLES, apply_map, map_text, match_headers, read_map, read_synonyms, split_unit
+from comparo.reading.sheets import Grid, read_grid
+from comparo.reading.workbook import Percent, is_percent_unit
 
 NOT_STATED = "not stated"  # locator written when the wide table gives none
 STUB_CITATION = "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"  # check warns (citation-stub)
@@ -715,11 +705,13 @@ def _frame(records: list[dict[str, str]], columns: list[str]):
 def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -> list[Problem]:
     """Validate the long tables as ``comparo check`` does; problems at the wide cells.
 
-    Names, keys, units and ids are first read as they look (:func:`comparo.reading.tables.clean_names`:
+    Names, keys, units and ids are first read as they look (:func:`comparo.reading.text.clean_names`:
     no-break and zero-width spaces, direction marks), in *obs*, *taxa* and stub sources
     themselves (stub sources are made from ids so read), so the folder written holds the
     names as read."""
-    from comparo.reading.tables import RawDataset, RawTable, clean_names
+    from comparo.reading.folder import RawDataset
+    from comparo.reading.tables import RawTable
+    from comparo.reading.text import clean_names
     from comparo.validation.tables import validate
 
     pre = clean_names("observations.csv", obs, list(range(2, len(obs) + 2)), other_rows=False)
@@ -834,10 +826,12 @@ def _sources(sources: Path | None, ids: list[str], grid: Grid):
     """(RawTable, file name to write, bytes or None for stubs, stub ids, problems)."""
     import pandas as pd
 
-    from comparo.reading.tables import RawTable, read_bibtex, read_table
+    from comparo.reading.bibtex import read_bibtex
+    from comparo.reading.folder import read_table
+    from comparo.reading.tables import RawTable
 
     if sources is None:
-        from comparo.reading.tables import visible
+        from comparo.reading.text import visible
 
         stubs = sorted({visible(i) for i in ids if i})  # ids as read (see _validate)
         frame = pd.DataFrame(
@@ -981,7 +975,7 @@ def header_synonyms(
     """The user's own header synonyms: ``[header_synonyms]`` of a comparo.toml beside the wide
     table, and the rows of role ``synonym`` in the map file (header = the name, key = a catalogue
     key or taxon/source/locator/temperature/n), which win over the file's."""
-    from comparo.reading.tables import SETTINGS_NAME, read_settings
+    from comparo.reading.settings import SETTINGS_NAME, read_settings
 
     synonyms: dict[str, str] = {}
     probs: list[Problem] = []
@@ -1298,7 +1292,7 @@ def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> list[P
 def _earlier_tables(out: Path, files: dict[str, bytes]) -> tuple[list[str], list[str]]:
     """(tables of an earlier import in *out* to remove, other tables kept); UsageError when a
     table that no import wrote would stand beside a new one of the same kind."""
-    from comparo.reading.tables import OBSERVATION_NAMES, SOURCE_NAMES, TAXA_NAMES
+    from comparo.reading.folder import OBSERVATION_NAMES, SOURCE_NAMES, TAXA_NAMES
 
     written = _written_by_earlier_import(out)
     remove, kept, clash = [], [], []

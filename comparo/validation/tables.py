@@ -25,7 +25,8 @@ import pandas as pd
 
 from comparo.base.catalog import Catalog, load_catalog, read_schema
 from comparo.base.errors import InputError, Problem, problems_frame, problems_from_frame
-from comparo.reading.tables import RawDataset, RawTable, cell_coordinates, read_folder
+from comparo.reading.folder import RawDataset, cell_coordinates, read_folder
+from comparo.reading.tables import RawTable
 from comparo.validation.synonyms import resolve_synonyms
 from comparo.validation.temperature import temperature_policy, temperature_settings_problems
 
@@ -1124,7 +1125,7 @@ class Dataset:
 
 
 def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
-    """Validate what :func:`comparo.reading.tables.read_folder` read.
+    """Validate what :func:`comparo.reading.folder.read_folder` read.
 
     Returns the :class:`Dataset` (``None`` when a table could not be
     read at all) and every problem found; each observation row also carries
