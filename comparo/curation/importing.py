@@ -340,7 +340,7 @@ def _structure(grid: Grid, columns: list[Column]) -> list[Problem]:
             )
         if len(glob) > 1:
             file_problem(
-                "column-twice",
+                "role-twice",
                 f"{len(glob)} columns hold {what}: {', '.join(repr(c.header) for c in glob)}",
                 "keep one, or set role 'ignore' for the others in the map file",
             )
@@ -374,7 +374,7 @@ def _structure(grid: Grid, columns: list[Column]) -> list[Problem]:
                 _header_problem(
                     grid,
                     cols[1],
-                    "column-twice",
+                    "role-twice",
                     f"{len(cols)} {group} columns for {key}: {', '.join(repr(c.header) for c in cols)}",
                     "a long-format row holds one; set role 'ignore' for the others in the map file",
                 )
