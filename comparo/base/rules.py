@@ -129,6 +129,8 @@ _TABLE = (
     ("not-a-folder", ERROR, "a dataset path names a file that is not a dataset workbook"),
     ("not-a-number", ERROR, "a wide table's value cell is not a number"),
     ("out-of-range", WARNING, "a value lies outside the quantity's plausible range"),
+    ("positive", ERROR, "a cell of a column declared positive is zero or negative"),
+    ("nonnegative", ERROR, "a cell of a column declared non-negative is negative"),
     ("phylo-outlier", WARNING, "a value is far from what its relatives on the tree predict"),
     ("proxy-taxon", ERROR, "a proxy value does not name the taxon standing in"),
     ("q10-unused", WARNING, "a Q10 is given for a quantity that is not temperature-sensitive"),
