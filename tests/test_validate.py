@@ -460,7 +460,7 @@ def _pandera_failures(schema, frame) -> list[tuple]:
 
 
 def _ours(name, frame) -> list[tuple]:
-    from comparo.validation.tables import column_rules, schema_failures
+    from comparo.validation.schema import column_rules, schema_failures
 
     return [
         (
@@ -478,7 +478,7 @@ def _ours(name, frame) -> list[tuple]:
 def test_schema_failures_match_pandera_validation(data):
     """Random hostile cells and dropped columns in the demo's three tables: the same failure
     cases as pandera's ``validate(lazy=True)``, as a multiset, and the same order per column."""
-    from comparo.validation.tables import pandera_schema
+    from comparo.validation.schema import pandera_schema
 
     raw = _demo_raw()
     for name, table in (
@@ -505,7 +505,7 @@ def test_schema_failures_of_a_known_bad_table_match_pandera():
     from support import DEMO
 
     from comparo.reading.folder import read_folder
-    from comparo.validation.tables import pandera_schema
+    from comparo.validation.schema import pandera_schema
 
     frame = read_folder(DEMO).observations.frame.copy()
     frame.loc[3, "value"], frame.loc[5, "value"], frame.loc[2, "n"] = "abc", "", "2.5"

@@ -241,6 +241,11 @@ _TABLE = (
     ("uncertainty-missing", WARNING, "an uncertainty kind is given without an uncertainty"),
     ("unicode-unified", WARNING, "a name typed in two Unicode forms is read as one"),
     ("unique", ERROR, "a value that must be unique in its column repeats"),
+    (
+        "uncertainty-conversion-range",
+        ERROR,
+        "an uncertainty converted to the canonical unit leaves the working range",
+    ),
     ("unit-dimension", ERROR, "a unit does not measure the quantity's kind"),
     ("unit-slip", WARNING, "a value is a power of ten off its group (a unit slip?)"),
     ("unit-unknown", ERROR, "a unit pint cannot read"),
@@ -250,6 +255,11 @@ _TABLE = (
         "a spread, n, source or locator column belongs to no single value column",
     ),
     ("value-positive", ERROR, "a value that must be positive is zero or negative"),
+    (
+        "value-conversion-range",
+        ERROR,
+        "a value converted to the canonical unit leaves the working range",
+    ),
     ("xlsx-read", ERROR, "a workbook or sheet cannot be read"),
     ("xlsx-size", ERROR, "a workbook sheet is bigger than comparo reads"),
 )

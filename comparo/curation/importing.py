@@ -25,7 +25,16 @@ from typing import Any
 
 from comparo.base.catalog import Catalog, load_catalog
 from comparo.base.errors import InputError, Problem, UsageError
-from comparo.reading.headers import Column, UNCERTAINTY_ROLES, apply_map, map_text, match_headers, read_map, read_synonyms, split_unit
+from comparo.reading.headers import (
+    UNCERTAINTY_ROLES,
+    Column,
+    apply_map,
+    map_text,
+    match_headers,
+    read_map,
+    read_synonyms,
+    split_unit,
+)
 from comparo.reading.sheets import Grid, read_grid
 from comparo.reading.workbook import Percent, is_percent_unit
 
