@@ -32,7 +32,7 @@ from comparo.curation.imported import (
     taxa_frame,
     validate_long,
 )
-from comparo.curation.long import LONG_COLUMNS, NOT_STATED, to_long
+from comparo.curation.long import LONG_COLUMNS, NOT_STATED, LongTable, to_long
 from comparo.reading.headers import (
     Column,
     apply_map,
@@ -244,21 +244,7 @@ def _import(
 ) -> ImportResult:
     output = str(out)
     catalog = catalog or load_catalog()
-    if out.is_dir() and any(out.iterdir()) and not overwrite:
-        raise UsageError(
-            f"output folder {output} exists and is not empty; comparo import writes a new dataset folder: "
-            "give a new folder, or --overwrite to replace the tables it writes there"
-        )
-    if header_row is not None and (
-        isinstance(header_row, bool) or not isinstance(header_row, int) or header_row < 1
-    ):
-        raise UsageError(
-            f"--header-row is the row number of the column headers, 1 or more (got {header_row!r})"
-        )
-    if plus_minus is not None and plus_minus not in PLUS_MINUS_KINDS:
-        raise UsageError(
-            f"--plus-minus is one of {', '.join(PLUS_MINUS_KINDS)} (got {plus_minus!r})"
-        )
+    _check_options(out, overwrite, header_row, plus_minus)
     grid, problems = read_grid(wide, sheet, decimal_comma, header_row)
     if grid is None or any(p.severity == "error" for p in problems):
         raise InputError(problems)
@@ -295,35 +281,7 @@ def _import(
     found = column_unit_slips(found, long, columns, catalog, grid)  # also when errors stop it
     if any(p.severity == "error" for p in found):
         raise InputError(found)
-    warnings = [
-        p for p in found if p.severity != "error" and p.rule != "citation-stub"
-    ]  # the summary counts the stubs
-    for header, cells in long.empty_words.items():
-        warnings.append(
-            Problem(
-                "warning",
-                grid.file,
-                None,
-                header,
-                None,
-                "missing-word",
-                f"{len(cells)} cell(s) say the value is missing ({', '.join(cells[:5])}{' ...' if len(cells) > 5 else ''}); no row made",
-                "nothing to do if they are missing values",
-            )
-        )
-    if long.locator_filled:
-        warnings.append(
-            Problem(
-                "warning",
-                grid.file,
-                None,
-                None,
-                None,
-                "locator-not-stated",
-                f"{long.locator_filled} value(s) without a locator: written as {NOT_STATED!r}",
-                "add a Table/Figure/Page column to say where in each source the number is",
-            )
-        )
+    warnings = _warnings(found, long, grid)
     counts = {
         "rows_read": len(grid.rows),
         "observations": len(obs),
@@ -356,6 +314,65 @@ def _import(
         warnings,
         list(files),
     )
+
+
+def _check_options(
+    out: Path, overwrite: bool, header_row: int | None, plus_minus: str | None
+) -> None:
+    """UsageError for an output folder that is not empty (without *overwrite*), a header row
+    that is not a row number, or a ± kind comparo does not know."""
+    output = str(out)
+    if out.is_dir() and any(out.iterdir()) and not overwrite:
+        raise UsageError(
+            f"output folder {output} exists and is not empty; comparo import writes a new dataset folder: "
+            "give a new folder, or --overwrite to replace the tables it writes there"
+        )
+    if header_row is not None and (
+        isinstance(header_row, bool) or not isinstance(header_row, int) or header_row < 1
+    ):
+        raise UsageError(
+            f"--header-row is the row number of the column headers, 1 or more (got {header_row!r})"
+        )
+    if plus_minus is not None and plus_minus not in PLUS_MINUS_KINDS:
+        raise UsageError(
+            f"--plus-minus is one of {', '.join(PLUS_MINUS_KINDS)} (got {plus_minus!r})"
+        )
+
+
+def _warnings(found: list[Problem], long: LongTable, grid: Grid) -> list[Problem]:
+    """The warnings an import reports: validation's (the stub citations are counted in the
+    summary instead), cells saying a value is missing, values without a locator."""
+    warnings = [
+        p for p in found if p.severity != "error" and p.rule != "citation-stub"
+    ]  # the summary counts the stubs
+    for header, cells in long.empty_words.items():
+        warnings.append(
+            Problem(
+                "warning",
+                grid.file,
+                None,
+                header,
+                None,
+                "missing-word",
+                f"{len(cells)} cell(s) say the value is missing "
+                f"({', '.join(cells[:5])}{' ...' if len(cells) > 5 else ''}); no row made",
+                "nothing to do if they are missing values",
+            )
+        )
+    if long.locator_filled:
+        warnings.append(
+            Problem(
+                "warning",
+                grid.file,
+                None,
+                None,
+                None,
+                "locator-not-stated",
+                f"{long.locator_filled} value(s) without a locator: written as {NOT_STATED!r}",
+                "add a Table/Figure/Page column to say where in each source the number is",
+            )
+        )
+    return warnings
 
 
 def _csv(frame) -> bytes:

@@ -117,5 +117,3 @@ def bibtex_citation(f: dict[str, str]) -> str:
 
 def _strip_braces(v: Any) -> str:
     return re.sub(r"\s+", " ", str(v).replace("{", "").replace("}", "")).strip()
-
-

@@ -32,6 +32,7 @@ TAXA_NAMES = ("taxa.csv", "taxa.tsv", "taxa.xlsx")
 TREE_NAMES = ("tree.nwk", "tree.newick", "tree.tre")
 TRACES_NAMES = ("traces.csv", "traces.tsv")
 
+
 @dataclass
 class RawDataset:
     """Everything read from a folder before validation."""
@@ -133,7 +134,9 @@ def _first(folder: Path, names: tuple[str, ...], problems: list[Problem]) -> Pat
                     else "a symbolic link to nothing"
                 )
                 problems.append(
-                    problem(n, "not-a-file", f"{n} is {why}", "replace the link with the file itself")
+                    problem(
+                        n, "not-a-file", f"{n} is {why}", "replace the link with the file itself"
+                    )
                 )
             elif exc.errno not in (2, 20):  # ENOENT, ENOTDIR: simply absent
                 problems.append(problem(n, "file-read", f"cannot read {n} ({exc.strerror})"))

@@ -44,7 +44,6 @@ BASES = ("reported", "computed", "digitized", "proxy", "assumed")
 MAP_COLUMNS = ("header", "role", "key", "unit", "basis", "candidates")
 
 
-
 # --------------------------------------------------------------------------- headers
 
 
@@ -370,7 +369,10 @@ def read_synonyms(
     if not isinstance(table, dict):
         return {}, [
             problem(
-                file, "synonym", f'{where} must be a table of name = "key" pairs', column=where
+                file,
+                "header-synonym",
+                f'{where} must be a table of name = "key" pairs',
+                column=where,
             )
         ]
     out: dict[str, str] = {}
@@ -383,7 +385,7 @@ def read_synonyms(
             probs.append(
                 problem(
                     file,
-                    "synonym",
+                    "header-synonym",
                     f"header synonym {name!r} points to {target!r}, which is neither a catalogue quantity nor one of {', '.join(SYNONYM_ROLES)}",
                     f"closest: {', '.join(close)}" if close else "run 'comparo units' for the keys",
                     column=where,
@@ -395,7 +397,7 @@ def read_synonyms(
             probs.append(
                 problem(
                     file,
-                    "synonym",
+                    "header-synonym",
                     f"header synonym {name!r} has no letters or digits to match",
                     column=where,
                     value=name,
@@ -406,7 +408,7 @@ def read_synonyms(
             probs.append(
                 problem(
                     file,
-                    "synonym",
+                    "header-synonym",
                     f"header synonyms {seen[n]!r} and {name!r} read as the same name but point to {out[seen[n]]!r} and {target!r}",
                     "keep one",
                     column=where,

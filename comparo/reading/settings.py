@@ -115,5 +115,3 @@ def _nfc_value(v: Any) -> Any:
     if isinstance(v, list):
         return [_nfc_value(x) for x in v]
     return nfc(v) if isinstance(v, str) else v
-
-

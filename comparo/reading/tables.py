@@ -46,7 +46,6 @@ class RawTable:
         return len(self.frame)
 
 
-
 def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | None, list[Problem]]:
     """Read a CSV/TSV file into a :class:`RawTable` of strings."""
     import pandas as pd
@@ -220,4 +219,3 @@ def _known_columns() -> frozenset[str]:
 
     spec = read_schema("tables.toml")
     return frozenset(c for t in spec.values() if isinstance(t, dict) for c in t.get("columns", {}))
-

@@ -29,7 +29,6 @@ def too_many_columns(file: str, n: int, row: int | None = 1) -> Problem | None:
     )
 
 
-
 def exception_reason(exc: Exception) -> str:
     """What a library said went wrong, in its words but without its exception class name."""
     text = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else ""
@@ -301,7 +300,11 @@ def semicolon_problem(file: str, text: str, hint: str, row: int | None = 1) -> P
         file,
         "delimiter",
         "the table is semicolon-delimited"
-        + (" with decimal commas (a spreadsheet export in a decimal-comma locale)" if decimal_comma else ""),
+        + (
+            " with decimal commas (a spreadsheet export in a decimal-comma locale)"
+            if decimal_comma
+            else ""
+        ),
         hint,
         row=row,
     )
@@ -333,7 +336,6 @@ def duplicate_headers(
             )
         seen.setdefault(key, i)
     return probs
-
 
 
 def cellwise(frame, fun):

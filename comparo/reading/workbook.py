@@ -282,7 +282,12 @@ def read_excel_table(path: Path, sheet: str) -> tuple[RawTable | None, list[Prob
     first = next((i for i, r in enumerate(grid) if any(v != "" for v in r)), None)
     if first is None:
         return None, probs + [
-            problem(file, "empty-file", "sheet is empty", "put the table on the first sheet, header in row 1")
+            problem(
+                file,
+                "empty-file",
+                "sheet is empty",
+                "put the table on the first sheet, header in row 1",
+            )
         ]
     header = [nfc((h if isinstance(h, str) else number_text(h)).strip()) for h in grid[first]]
     body_cells = grid[first + 1 :]
