@@ -268,7 +268,9 @@ def test_a_file_in_utf16_without_a_mark_is_encoding_on_every_path(tmp_path):
     found = {
         "folder": rules_of_dataset(folder),
         "import": rules_of_import(wide, tmp_path),
-        "tree": dict(zip(caught.value.problems["rule"], caught.value.problems["message"])),
+        "tree": dict(
+            zip(caught.value.problems["rule"], caught.value.problems["message"], strict=True)
+        ),
     }
     messages = {name: f["encoding"] for name, f in found.items()}
     assert len(set(messages.values())) == 1, messages

@@ -48,7 +48,8 @@ _TABLE = (
     (
         "column-unit",
         WARNING,
-        "many values of a wide column leave the quantity's plausible range (a unit slip in the header?)",
+        "many values of a wide column leave the quantity's plausible range (a unit slip in the "
+        "header?)",
     ),
     (
         "comparison-setting",

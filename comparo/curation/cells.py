@@ -90,10 +90,14 @@ def _hint(t: str, decimal_comma: bool) -> str:
     if not decimal_comma and re.fullmatch(r"[-+]?\d{1,3}(,\d{3})+(\.\d+)?", t):
         return "a ',' between thousands? remove it"
     if t[:1] in "<>≤≥~":
-        return "a bound or approximate value is not a number: put the number in the cell and the qualifier in a notes column"
+        return (
+            "a bound or approximate value is not a number: put the number in the cell and the "
+            "qualifier in a notes column"
+        )
     if split_plus_minus(t) is not None:
         return (
-            "a value with its spread: rerun with --plus-minus KIND (sd, se, ci95 or range_half: what the ± "
+            "a value with its spread: rerun with --plus-minus KIND (sd, se, ci95 or range_half: "
+            "what the ± "
             "means in the source) to split such cells, or put the spread in its own column, e.g. "
             + SPREAD_EXAMPLE
         )

@@ -65,7 +65,8 @@ def resolve(
                         grid,
                         c,
                         "header-unit",
-                        f"{c.key} needs a unit in the header, e.g. '{c.header} ({catalog[c.key].unit})'",
+                        f"{c.key} needs a unit in the header, e.g. '{c.header} "
+                        f"({catalog[c.key].unit})'",
                         "write the unit in parentheses or brackets, or in the map file",
                     )
                 )
@@ -89,7 +90,8 @@ def resolve(
                             grid,
                             c,
                             "header-unit-kind",
-                            f"unit {c.unit!r} does not measure a {kind} ({c.key} is in {catalog[c.key].unit})",
+                            f"unit {c.unit!r} does not measure a {kind} ({c.key} is in "
+                            f"{catalog[c.key].unit})",
                         )
                     )
         elif c.role == "temperature":
@@ -137,8 +139,10 @@ def _structure(grid: Grid, columns: list[Column]) -> list[Problem]:
                         grid,
                         c,
                         "quantity-twice",
-                        f"{len(cols)} columns hold {key}: {', '.join(repr(x.header) for x in cols)}",
-                        "if both are values of it, map each with role 'value' in the map file; else set role 'ignore' for one",
+                        f"{len(cols)} columns hold {key}: "
+                        + ", ".join(repr(x.header) for x in cols),
+                        "if both are values of it, map each with role 'value' in the map file; "
+                        "else set role 'ignore' for one",
                     )
                 )
     for role, what in (
@@ -196,7 +200,8 @@ def _structure(grid: Grid, columns: list[Column]) -> list[Problem]:
                     grid,
                     cols[1],
                     "role-twice",
-                    f"{len(cols)} {group} columns for {key}: {', '.join(repr(c.header) for c in cols)}",
+                    f"{len(cols)} {group} columns for {key}: "
+                    + ", ".join(repr(c.header) for c in cols),
                     "a long-format row holds one; set role 'ignore' for the others in the map file",
                 )
             )

@@ -33,7 +33,8 @@ def validate_long(
 ) -> list[Problem]:
     """Validate the long tables as ``comparo check`` does; problems at the wide cells.
 
-    Names, keys, units and ids are first read as they look (:func:`comparo.reading.text.clean_names`:
+    Names, keys, units and ids are first read as they look
+    (:func:`comparo.reading.text.clean_names`:
     no-break and zero-width spaces, direction marks), in *obs*, *taxa* and stub sources
     themselves (stub sources are made from ids so read), so the folder written holds the
     names as read."""
@@ -73,7 +74,8 @@ def validate_long(
             )
         else:
             out.append(p)
-    # a cell shared by several long rows (a temperature, a source) breaks a rule once, not once per row
+    # a cell shared by several long rows (a temperature, a source) breaks a rule once, not
+    # once per row
     return list(dict.fromkeys(out))
 
 
@@ -139,15 +141,19 @@ def column_unit_slips(
                 c.header,
                 c.unit,
                 "column-unit",
-                f"header in column {c.letter}: {len(bad)} of {len(values)} values of {q.key} are outside its plausible range "
-                f"({lo:g}-{hi:g} {canon}) read in {c.unit}; read in {best}, {best_in} of them are inside: is the column's unit {best}?",
-                f"if so, write ({best}) in the header (or the unit in the map file) and import again; they were imported in {c.unit}",
+                f"header in column {c.letter}: {len(bad)} of {len(values)} values of {q.key} are "
+                "outside its plausible range "
+                f"({lo:g}-{hi:g} {canon}) read in {c.unit}; read in {best}, {best_in} of them are "
+                f"inside: is the column's unit {best}?",
+                f"if so, write ({best}) in the header (or the unit in the map file) and import "
+                f"again; they were imported in {c.unit}",
             )
         )
     return [p for p in found if not (p.rule == "out-of-range" and p.column in replaced)] + extra
 
 
-# --------------------------------------------------------------------------- sources, taxa, import.toml
+# --------------------------------------------------------------------------- sources, taxa,
+# import.toml
 
 
 def sources_table(sources: Path | None, ids: list[str], grid: Grid):
@@ -263,7 +269,8 @@ def import_toml(
     from comparo.base.version import __version__
 
     lines = [
-        "# Written by 'comparo import': every decision that turned the wide table into this folder.",
+        "# Written by 'comparo import': every decision that turned the wide table into this "
+        "folder.",
         "# Rerun the same import with:  comparo import WIDE -o NEW_FOLDER --map import.toml",
         "# (edit role/key/unit/basis of a [[columns]] entry to change a decision).",
         f"comparo_version = {_toml_value(__version__)}",
@@ -284,7 +291,8 @@ def import_toml(
         "[defaults]",
         'basis = "reported"',
         f"locator = {_toml_value(NOT_STATED)}",
-        'obs_id = "imp_ + first 10 hex digits of SHA-256(taxon|source|locator|header|muscle|occurrence)"',
+        'obs_id = "imp_ + first 10 hex digits of '
+        'SHA-256(taxon|source|locator|header|muscle|occurrence)"',
         "",
         "[counts]",
     ]

@@ -76,7 +76,8 @@ class ImportResult:
     def summary(self) -> str:
         s = (
             f"{self.folder}: {self.observations} observation(s) from {self.rows_read} row(s) "
-            f"({self.empty_cells} empty cell(s), no row), {self.taxa} taxa, {self.sources} source(s); "
+            f"({self.empty_cells} empty cell(s), no row), {self.taxa} taxa, {self.sources} "
+            "source(s); "
             f"wrote {', '.join(self.files)}"
         )
         if self.stub_sources:
@@ -85,7 +86,8 @@ class ImportResult:
 
 
 def map_path_for(output: str | os.PathLike) -> Path:
-    """Where a suggested map file is written when headers need a decision: beside the output folder."""
+    """Where a suggested map file is written when headers need a decision: beside the output
+    folder."""
     out = Path(os.path.abspath(os.path.expanduser(str(output))))
     return out.with_name(out.name + "-import-map.csv")
 
@@ -155,7 +157,8 @@ def _suggest_map(columns: list[Column], output: str) -> str:
             break
         if path.is_file() and not path.is_symlink() and _same_text(path, text):
             return (
-                f"the map file {path} already holds every column's decision: fill role (and key, unit) "
+                f"the map file {path} already holds every column's decision: fill role (and key, "
+                "unit) "
                 f"of the rows with an empty role, then rerun with --map {shlex.quote(str(path))}"
             )
         path = first.with_name(f"{first.stem}-{n}.csv")
@@ -167,7 +170,8 @@ def _suggest_map(columns: list[Column], output: str) -> str:
         return ""
     kept = f" ({first} exists and is kept as it is)" if path != first else ""
     return (
-        f"a map file with every column's decision is written to {path}{kept}: fill role (and key, unit) "
+        f"a map file with every column's decision is written to {path}{kept}: fill role (and key, "
+        "unit) "
         f"of the rows with an empty role, then rerun with --map {shlex.quote(str(path))}"
     )
 
@@ -213,7 +217,8 @@ def import_wide(
 
     if is_stdout(output):
         raise UsageError(
-            "comparo import writes a dataset folder: give its path with -o FOLDER (not standard output)"
+            "comparo import writes a dataset folder: give its path with -o FOLDER (not standard "
+            "output)"
         )
     with protecting([wide, sources, map_file]):
         return _import(
@@ -324,7 +329,8 @@ def _check_options(
     output = str(out)
     if out.is_dir() and any(out.iterdir()) and not overwrite:
         raise UsageError(
-            f"output folder {output} exists and is not empty; comparo import writes a new dataset folder: "
+            f"output folder {output} exists and is not empty; comparo import writes a new dataset "
+            "folder: "
             "give a new folder, or --overwrite to replace the tables it writes there"
         )
     if header_row is not None and (
@@ -422,7 +428,8 @@ def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> list[P
             None,
             None,
             "table-kept",
-            f"{out / name} was not written by an earlier comparo import (not in its import.toml): kept "
+            f"{out / name} was not written by an earlier comparo import (not in its import.toml): "
+            "kept "
             "as it is, and it is part of the dataset",
             "remove it if it does not belong to the new import",
         )
@@ -451,7 +458,8 @@ def _earlier_tables(out: Path, files: dict[str, bytes]) -> tuple[list[str], list
     if clash:
         raise UsageError(
             f"output folder {out} holds {', '.join(clash)}, which no comparo import wrote there "
-            "(it is not listed in an import.toml); --overwrite replaces only the tables of an earlier "
+            "(it is not listed in an import.toml); --overwrite replaces only the tables of an "
+            "earlier "
             "import: move it away, or import into a new folder"
         )
     return remove, kept
@@ -468,7 +476,8 @@ def _written_by_earlier_import(out: Path) -> set[str]:
     files = doc.get("output", {}).get("files") if isinstance(doc.get("output"), dict) else None
     if isinstance(files, list):
         return {str(f) for f in files}
-    # import.toml of an earlier version: observations.csv, the sources table, taxa.csv if taxa columns
+    # import.toml of an earlier version: observations.csv, the sources table, taxa.csv if taxa
+    # columns
     src = str(doc["input"].get("sources") or "")
     names = {"observations.csv", f"sources{Path(src).suffix.lower()}" if src else "sources.csv"}
     cols = doc.get("columns") if isinstance(doc.get("columns"), list) else []

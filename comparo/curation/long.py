@@ -21,7 +21,10 @@ from comparo.reading.workbook import Percent
 from comparo.validation.numbers import MISSING_WORDS
 
 NOT_STATED = "not stated"  # locator written when the wide table gives none
-STUB_CITATION = "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"  # check warns (citation-stub)
+# the citation of a source comparo import had to invent; check warns (citation-stub)
+STUB_CITATION = (
+    "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"
+)
 LONG_COLUMNS = (
     "obs_id",
     "taxon",
@@ -385,7 +388,8 @@ def _split_cell(
 
 
 def _filled(own: Column | None, row: Column | None, text) -> Column | None:
-    """The trait's own column when its cell is filled (or there is no row column), else the row's."""
+    """The trait's own column when its cell is filled (or there is no row column), else the
+    row's."""
     if own is None or (row is not None and not text(own)):
         return row
     return own

@@ -161,7 +161,8 @@ def _preorder(tree: Any) -> list:
 
 def _topology(tree: Any) -> _Topo:
     """The pre-order record of a tree: a :class:`Topology` as it is, the one a
-    :class:`comparo.reading.newick.DeferredTree` already holds (read by :mod:`comparo.reading.newick`, so
+    :class:`comparo.reading.newick.DeferredTree` already holds (read by
+    :mod:`comparo.reading.newick`, so
     dendropy is neither imported nor walked), else one pass over the dendropy tree."""
     if isinstance(tree, _Topo):
         return tree
@@ -234,14 +235,16 @@ def _check(topo: _Topo, name: str) -> None:
         raise _tree_problem(
             name,
             "tree-branch-lengths",
-            f"{len(missing)} edge(s) without a branch length (e.g. above {where(missing[0])!r}); phylogenetic fits need branch lengths",
+            f"{len(missing)} edge(s) without a branch length (e.g. above {where(missing[0])!r}); "
+            "phylogenetic fits need branch lengths",
             "write every edge as label:length, e.g. (A:1.2,B:0.8):0.5",
         )
     if negative:
         raise _tree_problem(
             name,
             "tree-branch-lengths",
-            f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {where(negative[0])!r})",
+            f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above "
+            f"{where(negative[0])!r})",
         )
 
 

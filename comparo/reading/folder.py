@@ -201,7 +201,8 @@ def read_workbook(path: Path) -> RawDataset:
 
 
 def _read_tree_and_settings(raw: RawDataset, folder: Path) -> None:
-    """The tree (tree.nwk ...) and comparo.toml of a dataset: in its folder, or beside its workbook."""
+    """The tree (tree.nwk ...) and comparo.toml of a dataset: in its folder, or beside its
+    workbook."""
     tree = _first(folder, TREE_NAMES, raw.problems)
     if tree is not None:
         raw.files["tree"] = tree

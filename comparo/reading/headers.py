@@ -64,12 +64,14 @@ for _role, _key, _names in (
     (
         "source",
         "",
-        "source|source id|sources|reference|references|ref|refs|citation|citation key|study|paper|source key",
+        "source|source id|sources|reference|references|ref|refs|citation|citation "
+        "key|study|paper|source key",
     ),
     (
         "locator",
         "",
-        "locator|where|where in source|table|figure|fig|page|pages|table figure|table or figure|location in source",
+        "locator|where|where in source|table|figure|fig|page|pages|table figure|table or "
+        "figure|location in source",
     ),
     ("temperature", "degC", "temperature c|temp c|t c"),
     ("temperature", "", "temperature|temp|measurement temperature|test temperature"),
@@ -141,7 +143,9 @@ class Column:
     header: str
     index: int
     role: str = ""
-    key: str = ""  # quantity (value, spread, per-trait n/source/locator); taxa column (taxa); long column (column)
+    # quantity (value, spread, per-trait n/source/locator); taxa column (taxa); long column
+    # (column)
+    key: str = ""
     unit: str = ""
     basis: str = ""
     how: str = ""  # how the header was matched: key, label, synonym, column name, map file ...
@@ -198,8 +202,9 @@ class NameIndex:
         return self.names.get(name, {})
 
     def containing(self, name: str) -> list[str]:
-        """Keys with a name holding every word of *name* (``length`` -> fiber_length, sarcomere_length).
-        One-letter words are symbols, not words: ``f`` never finds a label ending in ``f``."""
+        """Keys with a name holding every word of *name* (``length`` -> fiber_length,
+        sarcomere_length). One-letter words are symbols, not words: ``f`` never finds a label
+        ending in ``f``."""
         words = {w for w in name.split() if len(w) > 1}
         if not words:
             return []
@@ -331,14 +336,20 @@ def match_header(
                 unit=unit,
                 how=bhow,
                 candidates=tuple(f"{r}:{bkey}" for r in UNCERTAINTY_ROLES[:2]),
-                problem=f"the spread of {bkey}, but not which kind (write SD or SE in the header, or set the role in the map file)",
+                problem=(
+                    f"the spread of {bkey}, but not which kind (write SD or SE in the header, or "
+                    "set the role in the map file)"
+                ),
             )
         if bkey:
             return replace(col, role=role, key=bkey, unit=unit, how=f"{bhow} + {role}")
         if bproblem.startswith("ambiguous"):
             return replace(col, unit=unit, problem=bproblem, candidates=bcands)
     if not cands and unit and unit_fit(unit, "temperature"):
-        problem += "; its unit is a temperature: set role 'temperature' if it is the measurement temperature"
+        problem += (
+            "; its unit is a temperature: set role 'temperature' if it is the measurement "
+            "temperature"
+        )
     return replace(col, unit=unit, problem=problem, candidates=cands)
 
 
@@ -360,10 +371,11 @@ def match_headers(
 def read_synonyms(
     table: Any, catalog: Catalog, file: str, where: str = "header_synonyms"
 ) -> tuple[dict[str, str], list[Problem]]:
-    """The user's header synonyms (``[header_synonyms]`` of comparo.toml: ``f = "frequency_observed"``,
-    ``T = "temperature"``, ``k_on = "attach_rate"``), checked: each name maps to a catalogue key or to
-    one of :data:`SYNONYM_ROLES`; a name that normalises to nothing, or to the same text as another
-    name with another target, is an error."""
+    """The user's header synonyms (``[header_synonyms]`` of comparo.toml:
+    ``f = "frequency_observed"``, ``T = "temperature"``, ``k_on = "attach_rate"``), checked:
+    each name maps to a catalogue key or to one of :data:`SYNONYM_ROLES`; a name that
+    normalises to nothing, or to the same text as another name with another target, is an
+    error."""
     if table is None:
         return {}, []
     if not isinstance(table, dict):
@@ -386,7 +398,8 @@ def read_synonyms(
                 problem(
                     file,
                     "header-synonym",
-                    f"header synonym {name!r} points to {target!r}, which is neither a catalogue quantity nor one of {', '.join(SYNONYM_ROLES)}",
+                    f"header synonym {name!r} points to {target!r}, which is neither a catalogue "
+                    f"quantity nor one of {', '.join(SYNONYM_ROLES)}",
                     f"closest: {', '.join(close)}" if close else "run 'comparo units' for the keys",
                     column=where,
                     value=str(target),
@@ -409,7 +422,8 @@ def read_synonyms(
                 problem(
                     file,
                     "header-synonym",
-                    f"header synonyms {seen[n]!r} and {name!r} read as the same name but point to {out[seen[n]]!r} and {target!r}",
+                    f"header synonyms {seen[n]!r} and {name!r} read as the same name but point to "
+                    f"{out[seen[n]]!r} and {target!r}",
                     "keep one",
                     column=where,
                     value=name,
@@ -568,7 +582,8 @@ def apply_map(
                 problem(
                     map_file,
                     "map-key",
-                    f"role 'column' copies into one of {', '.join(COPY_COLUMNS)}, uncertainty_kind; got {key!r}",
+                    f"role 'column' copies into one of {', '.join(COPY_COLUMNS)}, "
+                    f"uncertainty_kind; got {key!r}",
                     row=row,
                     column="key",
                     value=key,

@@ -100,7 +100,8 @@ def read_settings(path: Path) -> tuple[dict[str, Any], list[Problem]]:
                 file,
                 "settings-value",
                 "reference_temperature_c must be a number of degrees Celsius "
-                'between -5 and 60, or "operating" (each taxon\'s operating_temperature_c in taxa.csv)',
+                'between -5 and 60, or "operating" '
+                "(each taxon's operating_temperature_c in taxa.csv)",
                 column="reference_temperature_c",
                 value=str(t),
             )

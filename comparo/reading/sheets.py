@@ -93,7 +93,8 @@ def read_grid(
                 problem(
                     file,
                     "title-row",
-                    f"row {first + 1} ({shown!r}) looks like a title, not the column headers; the headers seem to be on row {proposed}",
+                    f"row {first + 1} ({shown!r}) looks like a title, not the column headers; the "
+                    f"headers seem to be on row {proposed}",
                     f"use --header-row {proposed} (the rows above it are then ignored)",
                     row=first + 1,
                 )
@@ -244,7 +245,8 @@ def _grid(
                     problem(
                         file,
                         "column-name",
-                        f"column {column_letter(c)} holds data but has no header (cell {column_letter(c)}{r + 1})",
+                        f"column {column_letter(c)} holds data but has no header (cell "
+                        f"{column_letter(c)}{r + 1})",
                         "give every column its own header",
                         row=r + 1,
                         value=str(v)[:40],

@@ -71,7 +71,8 @@ def read_text_table(path: Path, name: str | None = None) -> tuple[RawTable | Non
             problem(
                 file,
                 "header-line-break",
-                "the header row has an unclosed quote: a column name holds a line break inside quotes (or a stray '\"')",
+                "the header row has an unclosed quote: a column name holds a line break inside "
+                "quotes (or a stray '\"')",
                 "give every column a one-line name without quotes",
                 row=first + 1,
                 value=header[:60],

@@ -125,7 +125,8 @@ def build_workbook(catalog: Catalog):
             error=(
                 f"choose a {name} from the list (sheet '{LIST_SHEET}')"
                 if strict
-                else "not one of the usual units; any unit pint reads is accepted (comparo check says if not)"
+                else "not one of the usual units; any unit pint reads is accepted "
+                "(comparo check says if not)"
             ),
             promptTitle=name,
             prompt=f"choose from the list ({len(values)} choices)",
@@ -155,7 +156,8 @@ def build_workbook(catalog: Catalog):
             (
                 "clade",
                 {
-                    "description": "a grouping column (any extra column of taxa is one); rename or delete it"
+                    "description": "a grouping column (any extra column of taxa is one); "
+                    "rename or delete it"
                 },
             )
         ],

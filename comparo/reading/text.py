@@ -47,7 +47,8 @@ def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
                 problem(
                     file,
                     "encoding",
-                    f"file starts with a UTF-16 byte-order mark but is not valid UTF-16 ({exc.reason})",
+                    "file starts with a UTF-16 byte-order mark but is not valid UTF-16 "
+                    f"({exc.reason})",
                     "re-save the file as UTF-8 CSV",
                 )
             ]
@@ -78,7 +79,8 @@ def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
                 file,
                 "file-format",
                 f"file contains NUL bytes (first on line {line}, byte {nul + 1}): not a text table",
-                "export the table as CSV (UTF-8); a NUL byte is often a binary file or a broken copy",
+                "export the table as CSV (UTF-8); a NUL byte is often a binary file or a broken "
+                "copy",
                 row=line,
             )
         ]
@@ -115,7 +117,8 @@ def decode_bytes(data: bytes, file: str) -> tuple[str | None, list[Problem]]:
             problem(
                 file,
                 "encoding",
-                f"file is not UTF-8 (first non-UTF-8 byte 0x{data[exc.start]:02X} on line {line}); read as Windows-1252/Latin-1",
+                f"file is not UTF-8 (first non-UTF-8 byte 0x{data[exc.start]:02X} on line "
+                f"{line}); read as Windows-1252/Latin-1",
                 "check accented names, and re-save as UTF-8 to silence this",
                 row=line,
                 severity="warning",
@@ -142,7 +145,8 @@ _INVISIBLE = re.compile(
     "[\u00ad\u061c\u180e\u200b-\u200f\u202a-\u202e\u2060-\u2064\u2066-\u2069\ufeff]"
 )
 _ODD_SPACE = re.compile("[\u00a0\u1680\u2000-\u200a\u202f\u205f\u3000]")
-# the columns holding names, keys, units and ids (matched exactly), where such characters are read away
+# the columns holding names, keys, units and ids (matched exactly), where such characters are read
+# away
 NAME_COLUMNS = frozenset(
     {
         "obs_id",

@@ -85,7 +85,8 @@ def workbook_problems(path: Path) -> list[Problem]:
                         file,
                         "xlsx-size",
                         f"{info.filename} inflates to {info.file_size / 2**20:,.1f} MB "
-                        f"of XML; comparo reads at most {MAX_SHEET_XML_BYTES / 2**20:,.1f} MB per sheet",
+                        f"of XML; comparo reads at most {MAX_SHEET_XML_BYTES / 2**20:,.1f} MB per "
+                        "sheet",
                         "split the table over several files, or save it as CSV",
                     )
                 )
@@ -104,9 +105,11 @@ def workbook_problems(path: Path) -> list[Problem]:
                         file,
                         "xlsx-size",
                         f"a sheet ({info.filename}) has cells as far as row {last_row:,} "
-                        f"and column {last_col:,}: {last_row * last_col:,} cells to read, more than "
+                        f"and column {last_col:,}: {last_row * last_col:,} cells to read, more "
+                        "than "
                         f"comparo's limit of {MAX_SHEET_CELLS:,}",
-                        "delete the stray cells (or formatting) beyond the table, or save it as CSV",
+                        "delete the stray cells (or formatting) beyond the table, or save it as "
+                        "CSV",
                     )
                 )
     return probs

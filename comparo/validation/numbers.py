@@ -82,15 +82,22 @@ def number_hint(value: str) -> str:
     if re.fullmatch(r"[-+]?\d+,\d+", v):
         return f"a decimal comma? write {v.replace(',', '.')}"
     if re.fullmatch(r"[-+]?\d{1,3}(\.\d{3})+,\d+", v):
-        return f"a decimal comma with '.' between thousands? write {v.replace('.', '').replace(',', '.')}"
+        plain = v.replace(".", "").replace(",", ".")
+        return f"a decimal comma with '.' between thousands? write {plain}"
     if re.fullmatch(r"[-+]?\d{1,3}(,\d{3})+(\.\d+)?", v):
         return f"a ',' between thousands? write {v.replace(',', '')}"
     if re.fullmatch(r"[-+]?0[xX][0-9a-fA-F]+", v):
         return f"a hexadecimal number is not read: write it in decimal ({int(v, 16)})"
     if v[:1] in "<>≤≥~":
-        return "a censored or approximate value cannot be used as a number: give the number and put the qualifier in notes"
+        return (
+            "a censored or approximate value cannot be used as a number: give the number and put "
+            "the qualifier in notes"
+        )
     if v.lower() in MISSING_WORDS:
-        return "no value: delete the row (an empty measurement is not an observation) or give the number"
+        return (
+            "no value: delete the row (an empty measurement is not an observation) or give the "
+            "number"
+        )
     if v.lower().lstrip("+-") in {"inf", "infinity"}:
         return "give a finite number"
     if re.search(r"\d\s*[a-zA-Zµ%]+$", v):

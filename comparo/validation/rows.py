@@ -44,7 +44,8 @@ class RowProblems:
         self.problems: list[Problem] = []
 
     def add(self, mask, severity, column, rule, message, hint="", values=None) -> None:
-        """One problem per row where *mask* holds; *message* and *hint* may be functions of the row index."""
+        """One problem per row where *mask* holds; *message* and *hint* may be functions of the row
+        index."""
         obs, rows = self.obs, self.rows
         idx = np.flatnonzero(np.asarray(mask, dtype=bool))
         vals = obs[column].astype(str).to_numpy() if values is None and column in obs else values
@@ -66,7 +67,8 @@ class RowProblems:
 
 
 def _name(text: str) -> str:
-    """A quantity name for comparison: case-folded, British 'fibre' as 'fiber', '_', '-' and spaces one space."""
+    """A quantity name for comparison: case-folded, British 'fibre' as 'fiber', '_', '-' and spaces
+    one space."""
     return " ".join(
         re.sub(r"[_\-\s]+", " ", str(text).casefold().replace("fibre", "fiber")).split()
     )
@@ -87,11 +89,14 @@ def check_quantity_names(
                 _name(qty.iat[i])
             )  # a label or synonym of a key ('wingbeat frequency')
             if named:
-                return f"{qty.iat[i]!r} is a name of the quantity {named!r}: write its key {named!r} (see 'comparo units')"
+                return (
+                    f"{qty.iat[i]!r} is a name of the quantity {named!r}: write its key {named!r} "
+                    "(see 'comparo units')"
+                )
             close = difflib.get_close_matches(qty.iat[i], keys, n=1)
-            return (
-                (f"did you mean {close[0]!r}? " if close else "")
-                + "see 'comparo units' for the catalogue, or declare it in comparo.toml [quantities.KEY]"
+            return (f"did you mean {close[0]!r}? " if close else "") + (
+                "see 'comparo units' for the catalogue, or declare it in comparo.toml "
+                "[quantities.KEY]"
             )
 
         c.add(
@@ -141,7 +146,8 @@ def check_sources(c: RowProblems, obs: pd.DataFrame, source_ids: set[str]) -> No
 
 
 def check_lineage_columns(c: RowProblems, obs: pd.DataFrame) -> None:
-    """Computed rows name their inputs (existing obs_ids, not themselves); proxies name the proxy taxon."""
+    """Computed rows name their inputs (existing obs_ids, not themselves); proxies name the proxy
+    taxon."""
     # computed rows need their inputs; proxies need the proxy taxon
     b = obs["basis"]
     comp = (b == "computed").to_numpy()
@@ -204,7 +210,8 @@ def check_temperature(
     qty: pd.Series,
     target_key: pd.Series,
 ) -> None:
-    """Temperature-sensitive values need a temperature; impossible and unusual temperatures; unused Q10."""
+    """Temperature-sensitive values need a temperature; impossible and unusual temperatures; unused
+    Q10."""
     # temperature-sensitive values need a temperature
     ts = map_distinct(target_key, lambda k: bool(k) and catalog[k].temperature_sensitive).to_numpy(
         dtype=bool
@@ -296,7 +303,10 @@ def check_plausible_range(
 
     def range_msg(i):
         q = catalog[target_key.iat[i]]
-        return f"{vc[i]:.4g} {units.pretty(q.unit)} is outside the plausible range {q.range[0]:g}-{q.range[1]:g} {units.pretty(q.unit)} for {q.key} ({q.range_source})"
+        return (
+            f"{vc[i]:.4g} {units.pretty(q.unit)} is outside the plausible range "
+            f"{q.range[0]:g}-{q.range[1]:g} {units.pretty(q.unit)} for {q.key} ({q.range_source})"
+        )
 
     c.add(
         out,

@@ -23,7 +23,8 @@ from comparo.validation.numbers import INT_EXACT, number_message, parse_numbers
 
 @dataclass(frozen=True)
 class ColumnCheck:
-    """One declared rule on a column: *fn* maps the present cells (strings) to True where they pass."""
+    """One declared rule on a column: *fn* maps the present cells (strings) to True where they
+    pass."""
 
     name: str
     fn: Any
@@ -208,7 +209,8 @@ def column_problems(table: RawTable, name: str) -> list[Problem]:
                     None,
                     "missing-column",
                     f"required column {case!r} is missing",
-                    f"add a column named {case!r} ({spec.get(str(case), {}).get('description', '')})",
+                    f"add a column named {case!r} "
+                    f"({spec.get(str(case), {}).get('description', '')})",
                 )
             )
             continue

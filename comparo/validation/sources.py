@@ -62,7 +62,8 @@ def source_problems(raw: RawTable) -> list[Problem]:
                 raw.frame["doi"].iat[i],
                 "doi-format",
                 f"{doi.iat[i]!r} does not look like a DOI (10.xxxx/...)",
-                "a DOI starts with 10., a registrant code of 4-9 digits and '/' (a https://doi.org/ or doi: prefix is fine)",
+                "a DOI starts with 10., a registrant code of 4-9 digits and '/' (a "
+                "https://doi.org/ or doi: prefix is fine)",
             )
         )
     return probs

@@ -134,7 +134,8 @@ def _settings_problems(settings: dict[str, Any], catalog: Catalog) -> list[Probl
         bad(
             "conflict_factor",
             cf,
-            "conflict_factor must be a number greater than 1 (the ratio max/min above which two values of a taxon conflict)",
+            "conflict_factor must be a number greater than 1 (the ratio max/min above which two "
+            "values of a taxon conflict)",
             "the default is 1.5 (common practice)",
         )
     agg = settings.get("aggregate")
@@ -187,7 +188,8 @@ RESERVED_OBSERVATION_COLUMNS = frozenset(
         "value_temp_c",
     }
 )
-# Columns of the per-taxon table that are not quantities (a taxa.csv grouping column is copied into it).
+# Columns of the per-taxon table that are not quantities (a taxa.csv grouping column is copied
+# into it).
 RESERVED_TAXA_COLUMNS = frozenset({"temperature_c", "accepted", "own"})
 
 
@@ -274,7 +276,8 @@ class Dataset:
     problems: Any
     files: dict[str, Path]
     tree_text: str | None = None
-    traces: Any = None  # comparo.reading.tables.RawTable of traces.csv, or None (reduced by comparo.traces.files)
+    # comparo.reading.tables.RawTable of traces.csv, or None (reduced by comparo.traces.files)
+    traces: Any = None
     cache: dict[str, Any] = field(
         default_factory=dict, repr=False, compare=False
     )  # results computed once per load
@@ -447,9 +450,13 @@ class CheckResult:
         if self.rows_from_traces:
             traces = (
                 f", and {self.rows_from_traces} computed from the traces of traces.csv "
-                f"({self.rows_read + self.rows_from_traces} rows in all, as audit and the report count them)"
+                f"({self.rows_read + self.rows_from_traces} rows in all, as audit and the report "
+                "count them)"
             )
-        return f"{self.folder}: {self.rows_read} observation row(s) read{traces}; {verdict}, {self.n_warnings} warning(s), {self.n_notes} note(s)"
+        return (
+            f"{self.folder}: {self.rows_read} observation row(s) read{traces}; {verdict}, "
+            f"{self.n_warnings} warning(s), {self.n_notes} note(s)"
+        )
 
 
 def require_dataset(ds: Any, name: str = "ds") -> Dataset:

@@ -98,7 +98,8 @@ def _unit_factors(
             "unit",
             "unit-unknown",
             lambda i: bad_unit[unit_col.iat[i]],
-            "write units as pint reads them: um, µm, nm, mm, kPa, Pa, 1/s, Hz, mPa*s, nm**2, kg, mg",
+            "write units as pint reads them: um, µm, nm, mm, kPa, Pa, 1/s, Hz, mPa*s, nm**2, kg, "
+            "mg",
         )
     if fac:
         keys = pd.MultiIndex.from_arrays([qty, unit_col])
@@ -112,7 +113,10 @@ def _unit_factors(
 
         def dim_msg(i):
             q = catalog[qty.iat[i]]
-            return f"unit {unit_col.iat[i]!r} does not measure a {q.kind} (the quantity {q.key!r} is in {q.unit})"
+            return (
+                f"unit {unit_col.iat[i]!r} does not measure a {q.kind} (the quantity {q.key!r} is "
+                f"in {q.unit})"
+            )
 
         c.add(
             mism,
@@ -121,7 +125,8 @@ def _unit_factors(
             "unit-dimension",
             dim_msg,
             lambda i: (
-                f"give {qty.iat[i]} in a {catalog[qty.iat[i]].kind} unit such as {units.pretty(catalog[qty.iat[i]].unit)}"
+                f"give {qty.iat[i]} in a {catalog[qty.iat[i]].kind} unit such as "
+                f"{units.pretty(catalog[qty.iat[i]].unit)}"
             ),
         )
     return factor
@@ -162,7 +167,10 @@ def _beyond_range(
                 elif vc == 0:
                     what = f"underflows a double (becomes 0 {unit})"
                 else:
-                    what = f"gives {vc:.3g} {unit}, outside the range comparo computes with ({WORKING_RANGE[0]:g} to {WORKING_RANGE[1]:g} {unit})"
+                    what = (
+                        f"gives {vc:.3g} {unit}, outside the range comparo computes with "
+                        f"({WORKING_RANGE[0]:g} to {WORKING_RANGE[1]:g} {unit})"
+                    )
                 return f"{col} {raw.frame[col].iat[i]} {unit_col.iat[i]} converted to {unit} {what}"
 
             c.add(
