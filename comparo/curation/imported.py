@@ -10,7 +10,7 @@ from pathlib import Path
 from typing import Any
 
 from comparo.base.catalog import Catalog
-from comparo.base.errors import Problem
+from comparo.base.errors import Problem, problem
 from comparo.curation.long import NOT_STATED, STUB_CITATION, LongTable
 from comparo.reading.headers import (
     Column,
@@ -186,42 +186,12 @@ def sources_table(sources: Path | None, ids: list[str], grid: Grid):
             [],
         )
     if not sources.is_file():
-        return (
-            None,
-            "",
-            None,
-            [],
-            [
-                Problem(
-                    "error",
-                    str(sources),
-                    None,
-                    None,
-                    None,
-                    "missing-file",
-                    "the sources file does not exist or is not a file",
-                )
-            ],
-        )
+        missing = "the sources file does not exist or is not a file"
+        return None, "", None, [], [problem(str(sources), "missing-file", missing)]
     ext = sources.suffix.lower()
     if ext not in (".csv", ".tsv", ".bib", ".xlsx"):
-        return (
-            None,
-            "",
-            None,
-            [],
-            [
-                Problem(
-                    "error",
-                    sources.name,
-                    None,
-                    None,
-                    None,
-                    "file-format",
-                    "a sources file is .csv, .tsv, .bib or .xlsx",
-                )
-            ],
-        )
+        wrong = "a sources file is .csv, .tsv, .bib or .xlsx"
+        return None, "", None, [], [problem(sources.name, "file-format", wrong)]
     table, probs = read_bibtex(sources) if ext == ".bib" else read_table(sources, "sources")
     return table, f"sources{ext}", sources.read_bytes(), [], probs
 

@@ -296,47 +296,24 @@ def read_folder(folder: str | Path) -> RawDataset:
             ]
         )
     raw = RawDataset(folder=folder)
-    found = len(raw.problems)
-    obs = _first(folder, OBSERVATION_NAMES, raw.problems)
-    if obs is None:
-        if len(raw.problems) == found:
-            raw.problems.append(
-                problem(
-                    str(folder),
-                    "missing-file",
-                    "no observations table",
-                    f"add one of {', '.join(OBSERVATION_NAMES)}",
+    for table, names, required in (
+        ("observations", OBSERVATION_NAMES, f"add one of {', '.join(OBSERVATION_NAMES)}"),
+        ("sources", SOURCE_NAMES, "add sources.csv (source_id, citation, ...) or sources.bib"),
+        ("taxa", TAXA_NAMES, ""),
+        ("traces", TRACES_NAMES, ""),
+    ):
+        found = len(raw.problems)
+        path = _first(folder, names, raw.problems)
+        if path is None:
+            if required and len(raw.problems) == found:  # absent, not refused
+                raw.problems.append(
+                    problem(str(folder), "missing-file", f"no {table} table", required)
                 )
-            )
-    else:
-        raw.files["observations"] = obs
-        raw.observations, p = read_table(obs, "observations")
-        raw.problems += p
-    found = len(raw.problems)
-    src = _first(folder, SOURCE_NAMES, raw.problems)
-    if src is None:
-        if len(raw.problems) == found:
-            raw.problems.append(
-                problem(
-                    str(folder),
-                    "missing-file",
-                    "no sources table",
-                    "add sources.csv (source_id, citation, ...) or sources.bib",
-                )
-            )
-    else:
-        raw.files["sources"] = src
-        raw.sources, p = read_bibtex(src) if src.suffix == ".bib" else read_table(src, "sources")
-        raw.problems += p
-    tax = _first(folder, TAXA_NAMES, raw.problems)
-    if tax is not None:
-        raw.files["taxa"] = tax
-        raw.taxa, p = read_table(tax, "taxa")
-        raw.problems += p
-    traces = _first(folder, TRACES_NAMES, raw.problems)
-    if traces is not None:
-        raw.files["traces"] = traces
-        raw.traces, p = read_table(traces, "traces")
+            continue
+        raw.files[table] = path
+        bib = table == "sources" and path.suffix == ".bib"
+        read, p = read_bibtex(path) if bib else read_table(path, table)
+        setattr(raw, table, read)
         raw.problems += p
     _read_tree_and_settings(raw, folder)
     raw.problems += unified_spellings(

@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 
 from comparo.base.catalog import Catalog, read_schema
-from comparo.base.errors import Problem
+from comparo.base.errors import Problem, problem
 from comparo.reading.tables import RawTable
 from comparo.validation.numbers import map_distinct, parse_numbers
 
@@ -165,30 +165,28 @@ def check_lineage_columns(c: RowProblems, obs: pd.DataFrame) -> None:
     for i in np.flatnonzero(has_inputs):
         refs = [r.strip() for r in obs["inputs"].iat[i].split(";") if r.strip()]
         missing = [r for r in refs if r not in ids]
+        row, value = int(c.rows[i]), obs["inputs"].iat[i]
         if missing:
             c.problems.append(
-                Problem(
-                    "error",
+                problem(
                     c.file,
-                    int(c.rows[i]),
-                    "inputs",
-                    obs["inputs"].iat[i],
                     "inputs-unknown",
                     f"inputs name obs_id(s) not in the table: {', '.join(missing)}",
                     "each input must be an obs_id of another row",
+                    row=row,
+                    column="inputs",
+                    value=value,
                 )
             )
         if obs["obs_id"].iat[i] in refs:
             c.problems.append(
-                Problem(
-                    "error",
+                problem(
                     c.file,
-                    int(c.rows[i]),
-                    "inputs",
-                    obs["inputs"].iat[i],
                     "inputs-self",
                     "a row cannot be computed from itself",
-                    "",
+                    row=row,
+                    column="inputs",
+                    value=value,
                 )
             )
     no_proxy = (b == "proxy").to_numpy() & (obs["proxy_taxon"] == "").to_numpy()
