@@ -2,11 +2,19 @@
 
 from __future__ import annotations
 
+import os
 import shutil
 from pathlib import Path
 
 import pytest
 from support import DEMO, write_dataset
+
+from comparo.base import errors
+
+# every Problem built by the tests (and by the comparo processes they start) must carry a rule
+# id of comparo.base.rules; set before comparo is imported, so errors.CHECK_RULES reads it
+os.environ["COMPARO_CHECK_RULES"] = "1"
+errors.CHECK_RULES = True  # in case comparo was imported before this file
 
 
 @pytest.fixture

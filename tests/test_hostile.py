@@ -733,7 +733,8 @@ def test_column_names_in_two_unicode_forms_are_duplicates(tmp_path):
 
 def test_tree_labels_and_settings_read_in_nfc(tmp_path):
     """A decomposed tip label and a decomposed settings key are read composed."""
-    from comparo.reading.tables import read_newick, read_settings
+    from comparo.reading.newick import read_newick
+    from comparo.reading.settings import read_settings
 
     (tmp_path / "tree.nwk").write_text(f"({_NFD.replace(' ', '_')}:1,B_b:1);\n", encoding="utf-8")
     tree, _, probs = read_newick(tmp_path / "tree.nwk")

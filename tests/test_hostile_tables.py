@@ -48,8 +48,9 @@ def test_columns_at_the_limit_are_read_and_one_more_is_not(tmp_path, monkeypatch
     """The limit itself is read, one column more is refused (the limit is lowered to 300 here to
     keep the test short; 16,384 columns read in a few seconds)."""
     import comparo.reading.tables as cio
+    import comparo.reading.text as ctext
 
-    monkeypatch.setattr(cio, "MAX_COLUMNS", 300)
+    monkeypatch.setattr(ctext, "MAX_COLUMNS", 300)
     for n, ok in ((300, True), (301, False)):
         header = ["obs_id"] + [f"c{i}" for i in range(n - 1)]
         (tmp_path / "t.csv").write_text(",".join(header) + "\n" + ",".join([" 1 "] * n) + "\n")
@@ -81,7 +82,7 @@ def test_closest_names_match_plain_difflib(name):
     quick_ratio); the answer equals the plain computation with difflib.SequenceMatcher.ratio
     on every catalogue name (the reference, written here)."""
     from comparo.base.catalog import load_catalog
-    from comparo.reading.sheets import NameIndex
+    from comparo.reading.headers import NameIndex
 
     index = NameIndex.of(load_catalog())
     scores: dict[str, float] = {}

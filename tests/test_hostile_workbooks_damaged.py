@@ -122,7 +122,7 @@ def test_numbers_beyond_a_double_in_a_dataset_table(tmp_path):
         _observations(tmp_path / "DS"),
         lambda s: re.sub(r'(<c r="D3"[^>]*>)<v>[^<]*</v>', r"\1<v>1e400</v>", s),
     )
-    refused(tmp_path, ["check", "{tmp}/DS"], "observations.xlsx", "no finite number")
+    refused(tmp_path, ["check", "{tmp}/DS"], "observations.xlsx", "not a finite number", "non-finite")
 
 
 def _far_cell(s: str) -> str:
@@ -192,9 +192,9 @@ def test_a_row_beyond_the_declared_dimension_is_not_dropped(tmp_path):
 def test_sheet_xml_beyond_the_cap_is_refused_before_inflating(tmp_path, monkeypatch):
     """The uncompressed size is read from the zip directory, so a sheet that would inflate to
     gigabytes is refused without inflating it (the cap is lowered here to keep the test small)."""
-    import comparo.reading.tables
+    import comparo.reading.workbook
 
-    monkeypatch.setattr(comparo.reading.tables, "MAX_SHEET_XML_BYTES", 64 * 1024)
+    monkeypatch.setattr(comparo.reading.workbook, "MAX_SHEET_XML_BYTES", 64 * 1024)
     _patch(
         _wide(tmp_path / "wide.xlsx"),
         lambda s: s.replace("</sheetData>", "</sheetData><!--" + " " * 100_000 + "-->"),

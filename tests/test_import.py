@@ -375,7 +375,7 @@ def test_per_trait_source_and_se_columns(tmp_path: Path) -> None:
 def test_catalogue_synonyms_are_valid_and_unique() -> None:
     """Every synonym names one quantity only (a shared one would make headers ambiguous)."""
     from comparo.base.catalog import load_catalog
-    from comparo.reading.sheets import NameIndex
+    from comparo.reading.headers import NameIndex
 
     index = NameIndex.of(load_catalog())
     shared = {n: ks for n, ks in index.names.items() if len(ks) > 1}

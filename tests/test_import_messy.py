@@ -22,7 +22,7 @@ import pytest
 from comparo.base import units
 from comparo.cli.main import main
 from comparo.curation.importing import import_wide
-from comparo.reading.sheets import NameIndex, match_header
+from comparo.reading.headers import NameIndex, match_header
 
 UREG = pint.UnitRegistry()
 
@@ -240,7 +240,7 @@ def test_own_header_synonyms_in_comparo_toml_and_in_the_map(tmp_path, capsys) ->
     )
     assert run("import", wide, "-o", tmp_path / "out2", "--map", map_file) == 2
     err = capsys.readouterr().err
-    assert "[synonym]" in err and "closest: frequency_observed" in err
+    assert "[header-synonym]" in err and "closest: frequency_observed" in err
 
 
 def test_a_header_without_a_decision_never_prints_an_empty_message(tmp_path, capsys) -> None:

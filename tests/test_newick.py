@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 from comparo import phylo
 from comparo.phylo.trees import _topology
 from comparo.reading import newick
-from comparo.reading.tables import DeferredTree, parse_newick, read_newick
+from comparo.reading.newick import DeferredTree, parse_newick, read_newick
 
 
 def _dendropy_topology(text: str):
@@ -149,7 +149,7 @@ def test_read_newick_still_reports_dendropy_syntax_errors(tmp_path):
     path = tmp_path / "tree.nwk"
     path.write_text("(A:1,B:1);(C:1,D:1);", encoding="utf-8")
     tree, _, probs = read_newick(path)
-    assert tree is None and [p.rule for p in probs] == ["newick-syntax"]
+    assert tree is None and [p.rule for p in probs] == ["tree-count"]
 
 
 # ------------------------------------------------------------------ the gate's tree rules

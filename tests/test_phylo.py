@@ -71,9 +71,9 @@ def test_missing_branch_lengths_name_the_file(tmp_path):
 @pytest.mark.parametrize(
     "text,rule",
     [
-        ("((A:1,B:1):1,C:1;", "tree-newick"),
-        ("(A:1,B:1));", "tree-newick"),
-        ("(A:x,B:1);", "tree-newick"),
+        ("((A:1,B:1):1,C:1;", "newick-syntax"),
+        ("(A:1,B:1));", "newick-syntax"),
+        ("(A:x,B:1);", "newick-syntax"),
         ("(A:1,A:2);", "tree-duplicate-tip"),
         ("(A:1,B:1);(C:1,D:1);", "tree-count"),
         ("(A:1,B:-1);", "tree-branch-lengths"),
@@ -88,7 +88,7 @@ def test_bad_newick_is_input_error(text, rule):
 def test_tree_file_not_found(tmp_path):
     with pytest.raises(InputError) as exc:
         phylo.read_tree(str(tmp_path / "nope.nwk"))
-    assert exc.value.problems.iloc[0]["rule"] == "tree-file"
+    assert exc.value.problems.iloc[0]["rule"] == "missing-file"
 
 
 def test_deep_ladder_parses_and_limits_restored():

@@ -72,7 +72,7 @@ def test_duplicate_tip_label_is_named(tmp_path):
 
 def test_deep_tree_in_a_dataset_folder_is_read_by_the_same_reader(tmp_path):
     """A ladder tree 20,000 levels deep in tree.nwk: the folder reader handles it like
-    ``fit --tree`` (both go through comparo.reading.tables.parse_newick)."""
+    ``fit --tree`` (both go through comparo.reading.newick.parse_newick)."""
     n = 20_000
     text = "Apis_mellifera:1"
     for i in range(n):

@@ -379,14 +379,15 @@ def _imports(module: str) -> set[str]:
 def test_reading_never_imports_validation():
     """One-way flow: reading returns raw tables; validation imports reading; the
     dataset module sits on both (no import cycle, not even a lazy one)."""
-    assert not _imports("comparo.reading.tables") & {
-        "comparo.validation.tables",
-        "comparo.validation.dataset",
-        "comparo.curation.harmonise",
-    }
-    assert "comparo.reading.tables" in _imports("comparo.validation.tables")
+    for module in ("tables", "text", "workbook", "folder", "newick", "sheets", "headers"):
+        assert not _imports(f"comparo.reading.{module}") & {
+            "comparo.validation.tables",
+            "comparo.validation.dataset",
+            "comparo.curation.harmonise",
+        }
+    assert "comparo.reading.folder" in _imports("comparo.validation.tables")
     assert "comparo.validation.dataset" not in _imports("comparo.validation.tables")
-    assert {"comparo.reading.tables", "comparo.validation.tables"} <= _imports(
+    assert {"comparo.reading.folder", "comparo.validation.tables"} <= _imports(
         "comparo.validation.dataset"
     )
     import comparo
@@ -433,7 +434,7 @@ def _demo_raw():
     """The demo folder as read (once per test process; callers copy the frames they change)."""
     from support import DEMO
 
-    from comparo.reading.tables import read_folder
+    from comparo.reading.folder import read_folder
 
     return read_folder(DEMO)
 
@@ -461,7 +462,7 @@ def _pandera_failures(schema, frame) -> list[tuple]:
 
 
 def _ours(name, frame) -> list[tuple]:
-    from comparo.validation.tables import column_rules, schema_failures
+    from comparo.validation.schema import column_rules, schema_failures
 
     return [
         (
@@ -479,7 +480,7 @@ def _ours(name, frame) -> list[tuple]:
 def test_schema_failures_match_pandera_validation(data):
     """Random hostile cells and dropped columns in the demo's three tables: the same failure
     cases as pandera's ``validate(lazy=True)``, as a multiset, and the same order per column."""
-    from comparo.validation.tables import pandera_schema
+    from comparo.validation.schema import pandera_schema
 
     raw = _demo_raw()
     for name, table in (
@@ -505,8 +506,8 @@ def test_schema_failures_of_a_known_bad_table_match_pandera():
     """Fixed case with one of each kind of failure, so the comparison above is never empty."""
     from support import DEMO
 
-    from comparo.reading.tables import read_folder
-    from comparo.validation.tables import pandera_schema
+    from comparo.reading.folder import read_folder
+    from comparo.validation.schema import pandera_schema
 
     frame = read_folder(DEMO).observations.frame.copy()
     frame.loc[3, "value"], frame.loc[5, "value"], frame.loc[2, "n"] = "abc", "", "2.5"

@@ -7,11 +7,17 @@ value, the rule's id, a message and a hint on how to fix it, and a severity
 
 from __future__ import annotations
 
+import os
 from dataclasses import asdict, dataclass
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
+
+#: Whether each new :class:`Problem` checks that its rule id is in :mod:`comparo.base.rules`
+#: (on while Python runs with assertions and the environment variable ``COMPARO_CHECK_RULES``
+#: is set, as the tests do; off in normal use, where it would cost a lookup per problem).
+CHECK_RULES = __debug__ and bool(os.environ.get("COMPARO_CHECK_RULES"))
 
 PROBLEM_COLUMNS = ["severity", "file", "row", "column", "value", "rule", "message", "hint"]
 
@@ -34,6 +40,12 @@ class Problem:
     message: str
     hint: str = ""
 
+    def __post_init__(self) -> None:
+        if CHECK_RULES:
+            from comparo.base.rules import is_registered
+
+            assert is_registered(self.rule), f"rule id {self.rule!r} is not in comparo.base.rules"
+
     def to_dict(self) -> dict:
         return asdict(self)
 
@@ -50,6 +62,21 @@ class Problem:
         if self.hint:
             text += f" Hint: {self.hint}"
         return text
+
+
+def problem(
+    file: str,
+    rule: str,
+    message: str,
+    hint: str = "",
+    row: int | None = None,
+    column: str | None = None,
+    value: str | None = None,
+    severity: str = "error",
+) -> Problem:
+    """A :class:`Problem` by keyword: *file*, *rule*, *message* and *hint* first, the place
+    (*row*, *column*, *value*) and *severity* (default ``error``) as needed."""
+    return Problem(severity, file, row, column, value, rule, message, hint)
 
 
 def problems_frame(problems: list[Problem]) -> pd.DataFrame:

@@ -26,7 +26,9 @@ import numpy as np
 import pandas as pd
 
 from comparo.base.errors import Problem, problems_frame, problems_from_frame
-from comparo.validation.tables import BASIS_ORDER, WORKING_RANGE, CheckResult, Dataset, map_distinct
+from comparo.validation.numbers import WORKING_RANGE, map_distinct
+from comparo.validation.rows import BASIS_ORDER
+from comparo.validation.tables import CheckResult, Dataset
 
 R_GAS = 8.314462618  # J mol^-1 K^-1 (CODATA 2018, exact)
 SLIP_POWERS = (3, 6, 1)  # orders of magnitude a unit slip typically shifts a value by

@@ -15,7 +15,9 @@ from typing import Any
 import pandas as pd
 
 from comparo.curation.harmonise import Harmonised, harmonise, per_taxon
-from comparo.validation.tables import BASIS_ORDER, Dataset, map_distinct
+from comparo.validation.numbers import map_distinct
+from comparo.validation.rows import BASIS_ORDER
+from comparo.validation.tables import Dataset
 
 
 @dataclass(frozen=True)

@@ -444,7 +444,7 @@ def merge(
     output path or resolutions file. Inputs are never modified.
     """
     from comparo.base.errors import problems_frame
-    from comparo.reading.tables import read_folder
+    from comparo.reading.folder import read_folder
     from comparo.validation.tables import validate
 
     out = Path(out)

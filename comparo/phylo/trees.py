@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from comparo.base.errors import InputError, Problem, UsageError
-from comparo.reading.newick import Topology
+from comparo.reading.newick import DeferredTree, Topology
 
 if TYPE_CHECKING:  # pragma: no cover
     import dendropy
@@ -25,9 +25,9 @@ def _tree_problem(
 
 
 def _norm(label: str) -> str:
-    """Matching key: read as it looks (:func:`comparo.reading.tables.visible`: a zero-width space or a
+    """Matching key: read as it looks (:func:`comparo.reading.text.visible`: a zero-width space or a
     direction mark removed), underscores as spaces, runs of white space collapsed, case folded."""
-    from comparo.reading.tables import visible
+    from comparo.reading.text import visible
 
     return " ".join(visible(str(label)).replace("_", " ").split()).casefold()
 
@@ -44,21 +44,13 @@ def _norm_all(labels: Sequence[str]) -> list[str]:
     if not labels or text.count("\x00") != len(labels) - 1:  # a label holding the separator
         return [_norm(v) for v in labels]
     if not text.isascii():
-        from comparo.reading.tables import visible
+        from comparo.reading.text import visible
 
         text = visible(text)
     text = text.replace("_", " ")
     if _WHITE.search(text):
         text = _EDGE_WHITE.sub("\x00", _WHITE.sub(" ", text)).strip(" ")
     return text.casefold().split("\x00")
-
-
-def _parse(text: str) -> Any:
-    """Parse Newick *text* with dendropy (deep trees on a big stack): the one reader,
-    shared with the dataset folder reader (:func:`comparo.reading.tables.parse_newick`)."""
-    from comparo.reading.tables import parse_newick
-
-    return parse_newick(text)
 
 
 def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
@@ -89,54 +81,63 @@ def read_tree(path_or_newick: str | Path) -> dendropy.Tree:
     Polytomies, unary nodes and non-ultrametric trees are accepted. Very deep
     trees (ladders of 50,000 levels) parse on a thread with a larger stack.
     """
-    from dendropy.utility.error import DataParseError
-
     from comparo.base.arguments import check_kind
 
     check_kind(path_or_newick, (str, Path), "path_or_newick", "a Newick file name or Newick text")
-    src = str(path_or_newick)
-    if src.lstrip().startswith(("(", "[")):
-        name, text = _NEWICK_SOURCE, src
-    else:
-        name = src
-        from comparo.reading.tables import not_a_file
+    tree = _checked(path_or_newick)
+    return tree.tree if isinstance(tree, DeferredTree) else tree
 
-        what = not_a_file(src)
+
+def tree_name(path_or_newick: str | Path) -> str:
+    """How messages name a tree given as a file name or as Newick text."""
+    src = str(path_or_newick)
+    return _NEWICK_SOURCE if src.lstrip().startswith(("(", "[")) else src
+
+
+def _read(path_or_newick: str | Path) -> Any:
+    """The tree of a Newick file or text by the one Newick reader
+    (:func:`comparo.reading.newick.read_newick_text`): a :class:`DeferredTree` for plain
+    Newick, else a dendropy tree. Raises InputError with the reader's problems."""
+    from comparo.reading.folder import not_a_file
+    from comparo.reading.newick import read_newick, read_newick_text
+
+    name = tree_name(path_or_newick)
+    if name == _NEWICK_SOURCE:
+        tree, probs = read_newick_text(str(path_or_newick).strip(), name)
+    else:
+        what = not_a_file(name)
         if what is not None:
             raise _tree_problem(
                 name,
-                "tree-file",
+                "not-a-file",
                 f"the tree path is {what}, not a file",
                 "give a Newick file (comparo does not read pipes or devices)",
             )
-        try:
-            text = Path(src).read_text(encoding="utf-8-sig")
-        except FileNotFoundError:
+        if not Path(name).exists():
             raise _tree_problem(
-                name, "tree-file", "tree file not found", "check the path given with --tree"
-            ) from None
-        except (OSError, UnicodeDecodeError) as exc:
-            raise _tree_problem(name, "tree-file", f"cannot read the tree file ({exc})") from None
-    text = text.strip()
-    if text and not text.endswith(";"):
-        text += ";"
-    try:
-        trees = _parse(text)
-    except DataParseError as exc:
-        raise _tree_problem(
-            name,
-            "tree-newick",
-            f"malformed Newick: {exc}",
-            "check parentheses, commas, ':' before each length and the final ';'",
-        ) from None
-    except RecursionError:  # pragma: no cover - guarded by _parse
-        raise _tree_problem(name, "tree-newick", "tree nested too deeply to parse") from None
-    if len(trees) != 1:
-        raise _tree_problem(
-            name, "tree-count", f"the file holds {len(trees)} trees; exactly one is needed"
-        )
-    tree = trees[0]
-    _check(_topology(tree), name)
+                name, "missing-file", "tree file not found", "check the path given with --tree"
+            )
+        tree, _text, probs = read_newick(Path(name), name)
+    errors = [p for p in probs if p.severity == "error"]
+    if errors or tree is None:
+        raise InputError(errors or probs)
+    return tree
+
+
+def checked_topology(path: str | Path) -> Topology | Any:
+    """The tree file as the checked topology :mod:`comparo.phylo` fits on when it is plain
+    Newick (a 100,000-tip tree in well under a second, where building dendropy's tree
+    objects takes seconds), else the dendropy tree; read and checked as :func:`read_tree`
+    (labels, duplicates, branch lengths)."""
+    tree = _checked(path)
+    return tree.topology if isinstance(tree, DeferredTree) else tree
+
+
+def _checked(path_or_newick: str | Path) -> Any:
+    """:func:`_read`, then the checks of :func:`check_tree` (InputError on a fault)."""
+    tree = _read(path_or_newick)
+    deferred = isinstance(tree, DeferredTree)
+    _check(tree.topology if deferred else _topology(tree), tree_name(path_or_newick))
     return tree
 
 
@@ -160,7 +161,8 @@ def _preorder(tree: Any) -> list:
 
 def _topology(tree: Any) -> _Topo:
     """The pre-order record of a tree: a :class:`Topology` as it is, the one a
-    :class:`comparo.reading.tables.DeferredTree` already holds (read by :mod:`comparo.reading.newick`, so
+    :class:`comparo.reading.newick.DeferredTree` already holds (read by
+    :mod:`comparo.reading.newick`, so
     dendropy is neither imported nor walked), else one pass over the dendropy tree."""
     if isinstance(tree, _Topo):
         return tree
@@ -233,14 +235,16 @@ def _check(topo: _Topo, name: str) -> None:
         raise _tree_problem(
             name,
             "tree-branch-lengths",
-            f"{len(missing)} edge(s) without a branch length (e.g. above {where(missing[0])!r}); phylogenetic fits need branch lengths",
+            f"{len(missing)} edge(s) without a branch length (e.g. above {where(missing[0])!r}); "
+            "phylogenetic fits need branch lengths",
             "write every edge as label:length, e.g. (A:1.2,B:0.8):0.5",
         )
     if negative:
         raise _tree_problem(
             name,
             "tree-branch-lengths",
-            f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above {where(negative[0])!r})",
+            f"{len(negative)} edge(s) with a negative or non-finite length (e.g. above "
+            f"{where(negative[0])!r})",
         )
 
 

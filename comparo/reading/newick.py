@@ -17,8 +17,15 @@ hand-written trees.
 from __future__ import annotations
 
 import re
+import sys
+import threading
 from dataclasses import dataclass
 from functools import cached_property
+from pathlib import Path
+from typing import Any
+
+from comparo.base.errors import Problem, problem
+from comparo.reading.text import decode_bytes, invisible_in, invisible_labels, invisible_names, nfc
 
 _TOKEN = re.compile(
     r"""[ \t\n\r]*(?:
@@ -249,3 +256,187 @@ def _parse_plain(pieces: list[str]) -> Topology | None:
     for node, v in zip(len_node, values, strict=True):
         length[node] = v
     return _finish(parent, length, label, n_child)
+
+
+# --------------------------------------------------------------------------- dendropy, files
+
+_DEEP = 400  # nesting depth above which the Newick parser runs on a big stack
+_parse_lock = threading.Lock()
+
+
+def _nesting_depth(text: str) -> int:
+    """Largest parenthesis nesting depth of *text* (quotes and comments ignored: an
+    upper bound is all that is needed to size the parser's stack)."""
+    import numpy as np
+
+    b = np.frombuffer(text.encode("utf-8", "replace"), dtype=np.uint8)
+    if b.size == 0:
+        return 0
+    step = (b == ord("(")).astype(np.int64) - (b == ord(")")).astype(np.int64)
+    return int(np.cumsum(step).max(initial=0))
+
+
+def parse_newick(text: str) -> Any:
+    """Parse Newick *text* with dendropy into a TreeList; deep trees on a thread with a big stack.
+
+    dendropy's Newick reader recurses once per nesting level, so a ladder
+    (caterpillar) tree of depth 50,000 exceeds Python's default recursion limit.
+    The parse then runs on its own thread with a stack and recursion limit sized
+    to the nesting depth; the limits are restored afterwards.
+    """
+    import dendropy
+
+    def parse() -> Any:
+        return dendropy.TreeList.get(
+            data=text,
+            schema="newick",
+            preserve_underscores=True,
+            suppress_leaf_node_taxa=True,
+            suppress_internal_node_taxa=True,
+            rooting="force-rooted",
+        )
+
+    depth = _nesting_depth(text)
+    if depth < _DEEP:
+        return parse()
+    out: dict[str, Any] = {}
+
+    def work() -> None:
+        try:
+            out["trees"] = parse()
+        except BaseException as exc:  # re-raised on the calling thread
+            out["error"] = exc
+
+    with _parse_lock:
+        old_limit = sys.getrecursionlimit()
+        old_stack = threading.stack_size()
+        try:
+            sys.setrecursionlimit(max(old_limit, 30 * depth + 10_000))
+            threading.stack_size(int(min(2**31 - 1, max(64 * 2**20, 6_000 * depth))))
+            worker = threading.Thread(target=work, name="comparo-newick")
+            worker.start()
+            worker.join()
+        finally:
+            threading.stack_size(old_stack)
+            sys.setrecursionlimit(old_limit)
+    if "error" in out:
+        raise out["error"]
+    return out["trees"]
+
+
+class DeferredTree:
+    """A tree read by :func:`comparo.reading.newick.parse`, built as a dendropy tree on first use.
+
+    ``topology`` (pre-order lists) is there at once; any dendropy attribute
+    (``seed_node``, ``leaf_nodes()``...) builds the dendropy tree from the same
+    text with :func:`parse_newick` and answers from it, so code written for a
+    dendropy tree keeps working while commands that never walk the tree skip
+    dendropy altogether.
+    """
+
+    def __init__(self, text: str, topology: Any) -> None:
+        self.text = text
+        self.topology = topology
+        self._tree = None
+
+    @property
+    def tree(self) -> Any:
+        """The dendropy tree (built once)."""
+        if self._tree is None:
+            self._tree = parse_newick(self.text)[0]
+        return self._tree
+
+    def __getattr__(self, name: str) -> Any:
+        if name.startswith("__") or name in ("text", "topology", "_tree"):
+            raise AttributeError(name)
+        return getattr(self.tree, name)
+
+
+def read_newick_text(text: str, file: str) -> tuple[Any, list[Problem]]:
+    """One tree from Newick *text*, the reader every path shares (dataset tree files,
+    :func:`comparo.phylo.trees.read_tree`). Plain Newick is read by :func:`parse` (a
+    :class:`DeferredTree`), anything else by dendropy; a missing final ``;`` is accepted.
+
+    Problems (named after *file*): ``unicode-unified`` and ``invisible-character``
+    (warnings: labels read in NFC and as they look), ``newick-syntax`` (unbalanced
+    parentheses, anything dendropy cannot read), ``newick-depth`` and ``tree-count``
+    (not exactly one tree). The tree is ``None`` when there is an error."""
+    probs: list[Problem] = []
+    if nfc(text) != text:
+        text = nfc(text)
+        probs.append(
+            problem(
+                file,
+                "unicode-unified",
+                "some tip labels are typed with decomposed accents; read in Unicode NFC "
+                "(composed) so that they match the same names typed composed",
+                "nothing to do unless two labels differed only in this way",
+                severity="warning",
+            )
+        )
+    if not text.isascii() and invisible_in(text):  # tips are matched to taxa as they look
+        labels = invisible_labels(text)
+        probs.append(
+            problem(
+                file,
+                "invisible-character",
+                f"tip label(s) {', '.join(map(repr, labels[:5]))}"
+                f"{' ...' if len(labels) > 5 else ''} hold {invisible_names(''.join(labels))}, "
+                "which shows as nothing; matched to taxa as they look",
+                "nothing to do unless a label was meant to differ",
+                value=labels[0],
+                severity="warning",
+            )
+        )
+    if text.count("(") != text.count(")"):
+        return None, probs + [
+            problem(
+                file,
+                "newick-syntax",
+                f"unbalanced parentheses ({text.count('(')} '(' vs {text.count(')')} ')')",
+                SYNTAX_HINT,
+            )
+        ]
+    text = text if text.rstrip().endswith(";") else text.rstrip() + ";"
+    topology = parse(text)
+    if topology is not None:
+        return DeferredTree(text, topology), probs
+    try:
+        trees = parse_newick(text)
+    except RecursionError:
+        return None, probs + [problem(file, "newick-depth", "tree is too deeply nested to parse")]
+    except Exception as exc:
+        msg = str(exc).splitlines()[0][:200] if str(exc) else type(exc).__name__
+        return None, probs + [
+            problem(file, "newick-syntax", f"cannot parse the Newick tree: {msg}", SYNTAX_HINT)
+        ]
+    if len(trees) != 1:
+        return None, probs + [
+            problem(
+                file,
+                "tree-count",
+                f"the file holds {len(trees)} trees; exactly one is needed",
+                "keep one tree in the file",
+            )
+        ]
+    return trees[0], probs
+
+
+SYNTAX_HINT = "check parentheses, commas, ':' before each length and the final ';'"
+
+
+def read_newick(path: Path, name: str | None = None) -> tuple[Any, str | None, list[Problem]]:
+    """Read a Newick tree file (encodings as :func:`comparo.reading.text.decode_bytes`) with
+    :func:`read_newick_text`. Returns (tree or None, text or None, problems)."""
+    file = name or path.name
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        return None, None, [problem(file, "file-read", f"cannot read file ({exc.strerror})")]
+    text, probs = decode_bytes(data, file)
+    if text is None:
+        return None, None, probs
+    if not text.strip():
+        return None, None, probs + [problem(file, "empty-file", "tree file is empty")]
+    tree, more = read_newick_text(text, file)
+    return tree, nfc(text), probs + more

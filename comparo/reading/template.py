@@ -5,7 +5,7 @@ quantity, unit, basis, uncertainty_kind and preparation, and number checks on
 uncertainty and n), ``sources``, an optional ``taxa``, a read-only ``catalogue``
 (keys, labels, canonical units, kinds, plausible ranges and where they come from)
 and a read-only ``lists`` sheet the drop-downs read from. ``comparo check`` reads
-the filled workbook directly (:func:`comparo.reading.tables.read_workbook`).
+the filled workbook directly (:func:`comparo.reading.folder.read_workbook`).
 
 The drop-downs help typing; they are not the validation. Spreadsheet programs let
 a pasted cell past them, so ``comparo check`` stays the gate.
@@ -125,7 +125,8 @@ def build_workbook(catalog: Catalog):
             error=(
                 f"choose a {name} from the list (sheet '{LIST_SHEET}')"
                 if strict
-                else "not one of the usual units; any unit pint reads is accepted (comparo check says if not)"
+                else "not one of the usual units; any unit pint reads is accepted "
+                "(comparo check says if not)"
             ),
             promptTitle=name,
             prompt=f"choose from the list ({len(values)} choices)",
@@ -155,7 +156,8 @@ def build_workbook(catalog: Catalog):
             (
                 "clade",
                 {
-                    "description": "a grouping column (any extra column of taxa is one); rename or delete it"
+                    "description": "a grouping column (any extra column of taxa is one); "
+                    "rename or delete it"
                 },
             )
         ],
@@ -245,13 +247,14 @@ def write_template(
         )
     extra, toml = None, None
     if dataset is not None:
-        from comparo.reading.tables import SETTINGS_NAME, companion_file, is_workbook
+        from comparo.reading.folder import companion_file, is_workbook
+        from comparo.reading.settings import SETTINGS_NAME
 
         if not (Path(dataset).is_dir() or is_workbook(dataset)):
             raise UsageError(f"--dataset {dataset} is not a dataset folder or workbook")
         toml = companion_file(dataset, (SETTINGS_NAME,))
         if toml is not None:
-            from comparo.reading.tables import read_settings
+            from comparo.reading.settings import read_settings
 
             settings, probs = read_settings(toml)
             if any(p.severity == "error" for p in probs):

@@ -23,7 +23,7 @@ def _sha256(path: Path) -> str:
 def input_hashes(folder: str | Path) -> dict[str, str]:
     """SHA-256 of every file the dataset is read from: each regular, non-hidden file at the
     top of a dataset folder; a dataset workbook and the tree and comparo.toml beside it."""
-    from comparo.reading.tables import input_files
+    from comparo.reading.folder import input_files
 
     return {p.name: _sha256(p) for p in input_files(folder)}
 

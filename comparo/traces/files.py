@@ -25,7 +25,7 @@ from typing import Any
 import numpy as np
 
 from comparo.base.errors import InputError, Problem
-from comparo.validation.tables import WORKING_RANGE
+from comparo.validation.numbers import WORKING_RANGE
 
 TRACES_FILE = "traces.csv"
 WORKING = WORKING_RANGE  # magnitudes comparo computes with
@@ -269,7 +269,8 @@ def _numbers(
 ) -> tuple[dict[str, np.ndarray], list[Problem]]:
     """The named columns as floats; every empty or non-numeric cell a problem (the first
     :data:`MAX_LISTED` per column listed, then one problem with the count)."""
-    from comparo.validation.tables import _number_message, parse_numbers
+    from comparo.validation.numbers import number_message as _number_message
+    from comparo.validation.numbers import parse_numbers
 
     out, probs = {}, []
     for col in columns:
@@ -557,7 +558,7 @@ def read_traces(ds, *, drift_removal: bool = True) -> TraceSet:
     raw = ds.traces
     if raw is None:
         return TraceSet()
-    from comparo.validation.tables import _column_problems
+    from comparo.validation.schema import column_problems as _column_problems
 
     file = raw.file
     probs = list(_column_problems(raw, "traces"))

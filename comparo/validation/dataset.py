@@ -10,7 +10,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from comparo.base.errors import InputError, problems_frame
-from comparo.reading.tables import read_folder
+from comparo.reading.folder import read_folder
 from comparo.validation.tables import CheckResult, Dataset, check, validate
 
 __all__ = ["CheckResult", "Dataset", "check", "load"]

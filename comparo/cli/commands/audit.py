@@ -104,7 +104,7 @@ def _render(report) -> None:
         console.print(t)
     t = Table(title="basis mix per quantity (share of used values)", title_justify="left")
     t.add_column("quantity")
-    from comparo.validation.tables import BASIS_ORDER
+    from comparo.validation.rows import BASIS_ORDER
 
     for b in BASIS_ORDER:
         t.add_column(b, justify="right")

@@ -86,7 +86,7 @@ def _phylo_only_options(args) -> None:
 
 
 def _pgls_options(args) -> dict:
-    from comparo.reading.tables import TAXA_NAMES, TREE_NAMES, companion_file, is_workbook
+    from comparo.reading.folder import TAXA_NAMES, TREE_NAMES, companion_file, is_workbook
 
     lam = "ml" if args.lambda_ is None else args.lambda_
     if lam != "ml":
@@ -133,27 +133,11 @@ def _pgls_options(args) -> dict:
 
 
 def checked_tree(path: str):
-    """The tree file as the checked topology :mod:`comparo.phylo` fits on, read by
-    :func:`comparo.reading.newick.parse` when it is plain Newick (a 100,000-tip tree in well
-    under a second, where building dendropy's tree objects takes seconds); otherwise
-    the path itself, which :mod:`comparo.phylo` reads with dendropy and its messages.
-    Read as :func:`comparo.phylo.read_tree` reads it (UTF-8, an optional BOM, the final
-    ';' optional) and checked by the same rules (labels, duplicates, branch lengths)."""
-    from comparo.phylo.trees import _check
-    from comparo.reading import newick
-    from comparo.reading.tables import not_a_file
+    """The tree file as :func:`comparo.phylo.trees.checked_topology` reads and checks it:
+    the topology of plain Newick (fast), else the dendropy tree."""
+    from comparo.phylo.trees import checked_topology
 
-    if not_a_file(path):
-        return path  # refused by comparo.phylo.read_tree with its message
-    try:
-        text = Path(path).read_text(encoding="utf-8-sig").strip()
-    except (OSError, UnicodeDecodeError):
-        return path
-    topo = newick.parse(text)
-    if topo is None:
-        return path
-    _check(topo, path)
-    return topo
+    return checked_topology(path)
 
 
 def _fit(args, table, pgls: dict, progress: bool):

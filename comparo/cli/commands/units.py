@@ -12,7 +12,8 @@ def run(args) -> int:
     from comparo.base.catalog import load_catalog
 
     if args.dataset:
-        from comparo.reading.tables import SETTINGS_NAME, companion_file, read_settings
+        from comparo.reading.folder import companion_file
+        from comparo.reading.settings import SETTINGS_NAME, read_settings
 
         path = companion_file(args.dataset, (SETTINGS_NAME,))
         settings = read_settings(path)[0] if path is not None else {}
