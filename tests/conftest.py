@@ -25,7 +25,7 @@ def demo_copy(tmp_path: Path) -> Path:
 def demo_report(tmp_path_factory) -> tuple[Path, Path, object]:
     """The demo report built once per test process (seed 7), read-only for the tests that
     share it: (data folder, output folder, :class:`comparo.report.ReportResult`)."""
-    from comparo.report import build_report
+    from comparo.pipeline import build_report
 
     base = tmp_path_factory.mktemp("demo-report")
     data = base / "demo"

@@ -14,7 +14,8 @@ from typing import Any
 
 import pandas as pd
 
-from comparo.curation.harmonise import Harmonised, harmonise, per_taxon
+from comparo.curation.aggregation import per_taxon
+from comparo.curation.harmonise import Harmonised, harmonise
 from comparo.validation.tables import BASIS_ORDER, Dataset, map_distinct
 
 
@@ -210,9 +211,21 @@ def trust_grade(coverage: dict[str, str], contested: bool) -> str:
 
 
 def audit(
-    ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | None = None
+    ds: Dataset,
+    *,
+    temperature: bool = True,
+    harmonised: Harmonised | None = None,
+    table: pd.DataFrame | None = None,
+    phylo: Any = None,
 ) -> AuditReport:
     """Provenance audit of a loaded dataset (see :class:`AuditReport`).
+
+    *phylo* is the check of the values against their relatives on the tree
+    (:func:`comparo.phylo.outliers.phylo_outliers` of the dataset and its per-taxon table,
+    a :class:`~comparo.phylo.outliers.PhyloCheck`), which fills the ``phylo_*`` keys; the
+    public ``comparo.audit`` (:func:`comparo.pipeline.audit`) passes it. Without it, those
+    keys say the check was not run. *harmonised* and *table* (its per-taxon table) are
+    used when given, computed otherwise.
 
     Load with ``comparo.load(folder, strict=False)`` to audit a table that still
     has errors: rows with errors are then listed as excluded with their rule.
@@ -239,7 +252,7 @@ def audit(
             "taxa": int(n_taxa.get(sid, 0)),
             "quantities": list(quantities.get(sid, [])),
         }
-    tab = per_taxon(ds, temperature=temperature, harmonised=h)
+    tab = table if table is not None else per_taxon(ds, temperature=temperature, harmonised=h)
     coverage: dict[str, dict[str, str]] = {}
     basis_cols = [c for c in tab.columns if c.endswith("_basis")]
     for rec in tab[["taxon", *basis_cols]].to_dict("records"):
@@ -280,9 +293,6 @@ def audit(
         ].tolist(),
         "to": h.policy.target_text if h.policy is not None else None,
     }
-    from comparo.phylo.outliers import phylo_outliers  # a later room's check, lazily
-
-    phylo = phylo_outliers(ds, tab)
     return AuditReport(
         rows_read=len(rows),
         rows_from_traces=int((rows["_origin"] != "").sum()) if "_origin" in rows else 0,
@@ -309,12 +319,26 @@ def audit(
         sources_uncited=sorted(listed - cited),
         sources_missing=sorted(cited - listed),
         trust=trust,
-        phylo_outliers=phylo.outliers,
-        phylo_checked=phylo.checked,
-        phylo_skipped=phylo.skipped,
-        phylo_note=phylo.note,
-        phylo_flagged=phylo.flagged,
+        **_phylo_keys(phylo),
     )
+
+
+def _phylo_keys(phylo: Any) -> dict[str, Any]:
+    """The ``phylo_*`` fields of :class:`AuditReport` from a PhyloCheck (or, without one,
+    a note that the check against relatives was not run)."""
+    if phylo is None:
+        return {"phylo_note": NOT_CHECKED}
+    return {
+        "phylo_outliers": phylo.outliers,
+        "phylo_checked": phylo.checked,
+        "phylo_skipped": phylo.skipped,
+        "phylo_note": phylo.note,
+        "phylo_flagged": phylo.flagged,
+    }
+
+
+#: The audit's ``phylo_note`` when the check against relatives was not run.
+NOT_CHECKED = "values not checked against relatives on the tree (use comparo.audit)"
 
 
 def lineage(

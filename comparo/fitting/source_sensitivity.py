@@ -593,7 +593,7 @@ def _rebuilt(ds, h, rows, changed, base_table, keep_cols: tuple[str, ...] = ()):
     factor) are carried over from ``base_table`` for the rebuilt taxa."""
     import pandas as pd
 
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
 
     touched = set(rows.loc[changed, "accepted"])
     sub_rows = rows[rows["accepted"].isin(touched)]
@@ -725,7 +725,8 @@ def sensitivity(
     unavailable = []
     ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
     if ds is not None:
-        from comparo.curation.harmonise import harmonise, per_taxon
+        from comparo.curation.aggregation import per_taxon
+        from comparo.curation.harmonise import harmonise
 
         h = harmonise(ds, temperature=temperature)
         if taxa is not None:
@@ -1012,7 +1013,7 @@ def sensitivity_by_group(
     from comparo.validation.dataset import Dataset
 
     if isinstance(dataset_or_table, Dataset):
-        from comparo.curation.harmonise import per_taxon
+        from comparo.curation.aggregation import per_taxon
 
         table = per_taxon(dataset_or_table, temperature=temperature)
     else:
@@ -1172,7 +1173,8 @@ def multiple_sensitivity(
     ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
     unavailable = []
     if ds is not None:
-        from comparo.curation.harmonise import harmonise, per_taxon
+        from comparo.curation.aggregation import per_taxon
+        from comparo.curation.harmonise import harmonise
 
         h = harmonise(ds, temperature=temperature)
         table = per_taxon(ds, harmonised=h)

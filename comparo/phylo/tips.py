@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -262,8 +262,12 @@ def nearest_tip(label: str, tips: Sequence[str]) -> str | None:
     return keys[hit[0]] if hit else None
 
 
-def tree_problems(ds: Any) -> list[Problem]:
+def tree_problems(ds: Any, accepted: Iterable[str] | None = None) -> list[Problem]:
     """What a tree-based fit would reject or silently drop, for ``comparo check``.
+
+    *accepted* are the accepted names of the compilation's taxa (the pipeline passes
+    :func:`comparo.curation.harmonise.accepted_names`); without them, the names of
+    ``ds.observations`` as reported.
 
     Errors: tip labels or branch lengths a PGLS fit refuses; one accepted taxon on two
     tips. Warnings: each taxon of the compilation without a tip (it would be left out
@@ -282,9 +286,9 @@ def tree_problems(ds: Any) -> list[Problem]:
         labels_map = dataset_tree_labels(ds.taxa, topo.tips)
     except InputError as exc:
         return problems_from_frame(exc.problems)
-    from comparo.curation.harmonise import accepted_names
-
-    names = sorted(set(accepted_names(ds).dropna().astype(str)))
+    if accepted is None:
+        accepted = ds.observations["taxon"]
+    names = sorted({str(a) for a in accepted if a is not None and a == a})
     try:
         m = _match(topo, names, labels_map)
     except InputError as exc:

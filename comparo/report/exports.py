@@ -26,7 +26,7 @@ import pandas as pd
 
 from comparo.base.catalog import read_schema
 from comparo.base.csvsafe import to_csv
-from comparo.curation.harmonise import per_taxon
+from comparo.curation.aggregation import per_taxon
 from comparo.validation.dataset import Dataset
 
 DWC_TERMS = [
@@ -290,7 +290,8 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
 
 def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool) -> dict:
     """``cycles.csv``: one row per trace reduced by comparo cycles (SI units, KEY_sd = SD over cycles)."""
-    from comparo.traces.files import SI_UNITS, cycles
+    from comparo.curation.harmonise import cycles
+    from comparo.traces.files import SI_UNITS
 
     frame = cycles(ds, temperature=temperature).to_frame()
     (tmp / "cycles.csv").write_text(to_csv(frame), encoding="utf-8")

@@ -64,7 +64,8 @@ def write_compilation(folder: Path, n_taxa: int, n_src: int, seed: int = 2024060
 
 def naive_loso(ds, x: str, y: str, method: str) -> dict[str, float]:
     """Leave one source out by rebuilding the whole per-taxon table each time."""
-    from comparo.curation.harmonise import harmonise, per_taxon
+    from comparo.curation.aggregation import per_taxon
+    from comparo.curation.harmonise import harmonise
     from comparo.fitting import fit
 
     h = harmonise(ds)
@@ -86,7 +87,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--method", default="sma")
     args = ap.parse_args(argv)
 
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
     from comparo.fitting import fit
     from comparo.fitting.source_sensitivity import sensitivity
     from comparo.validation.dataset import load

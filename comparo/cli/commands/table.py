@@ -6,7 +6,7 @@ from comparo.cli.commands._common import write_table
 
 
 def run(args) -> int:
-    from comparo.curation.harmonise import column_units, per_taxon
+    from comparo.curation.aggregation import column_units, per_taxon
     from comparo.validation.dataset import load
 
     ds = load(args.dataset)
