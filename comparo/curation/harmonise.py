@@ -188,7 +188,8 @@ def _numbers_only(table: Any) -> dict[str, float]:
 def thermal_columns(
     ds: Dataset, accepted: pd.Series, with_groups: bool = False
 ) -> tuple[np.ndarray, np.ndarray, list[dict[str, str]]]:
-    """Per row of *accepted* (accepted names): the taxon's thermoregulation (text, '' when not given), its
+    """Per row of *accepted* (accepted names): the taxon's thermoregulation (text, '' when
+    not given), its
     operating temperature (°C, NaN when not given) and (*with_groups*) its taxa.csv
     grouping values."""
     groups = taxon_groups(ds)
@@ -422,7 +423,8 @@ def harmonise(
         m = obs["obs_id"].isin(list(slip_ids)) & (obs["status"] == "used")
         obs.loc[m, "status"] = "excluded"
         obs.loc[m, "reason"] = [
-            f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit {slip_ids[o]['likely_unit']}"
+            f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit "
+            f"{slip_ids[o]['likely_unit']}"
             for o in obs.loc[m, "obs_id"]
         ]
     if ds.traces is not None:  # per-trace results join as computed rows
@@ -434,7 +436,8 @@ def harmonise(
 
 def _beyond_range(obs: pd.DataFrame) -> list[tuple[np.ndarray, str]]:
     """Rows whose harmonised value or uncertainty left the range of a double or
-    :data:`~comparo.validation.tables.WORKING_RANGE` (an extreme temperature factor), with the reason."""
+    :data:`~comparo.validation.tables.WORKING_RANGE` (an extreme temperature factor), with
+    the reason."""
     lo, hi = WORKING_RANGE
     vc = obs["value_canonical"].to_numpy(dtype=float)
     out = []
@@ -450,7 +453,8 @@ def _beyond_range(obs: pd.DataFrame) -> list[tuple[np.ndarray, str]]:
         out.append(
             (
                 bad,
-                f"temperature normalisation takes the {name} outside the range comparo computes with ({lo:g} to {hi:g} in the canonical unit): check temperature_c and the Q10",
+                f"temperature normalisation takes the {name} outside the range comparo computes "
+                f"with ({lo:g} to {hi:g} in the canonical unit): check temperature_c and the Q10",
             )
         )
     return out

@@ -40,7 +40,10 @@ from comparo.reading.sheets import (
 from comparo.reading.tables import Percent, is_percent_unit
 
 NOT_STATED = "not stated"  # locator written when the wide table gives none
-STUB_CITATION = "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"  # check warns (citation-stub)
+# check warns (citation-stub)
+STUB_CITATION = (
+    "NEEDS CITATION: source id {sid}, imported from {file}; replace with the full citation"
+)
 LONG_COLUMNS = (
     "obs_id",
     "taxon",
@@ -98,7 +101,8 @@ class ImportResult:
     def summary(self) -> str:
         s = (
             f"{self.folder}: {self.observations} observation(s) from {self.rows_read} row(s) "
-            f"({self.empty_cells} empty cell(s), no row), {self.taxa} taxa, {self.sources} source(s); "
+            f"({self.empty_cells} empty cell(s), no row), {self.taxa} taxa, {self.sources} "
+            "source(s); "
             f"wrote {', '.join(self.files)}"
         )
         if self.stub_sources:
@@ -107,7 +111,8 @@ class ImportResult:
 
 
 def map_path_for(output: str | os.PathLike) -> Path:
-    """Where a suggested map file is written when headers need a decision: beside the output folder."""
+    """Where a suggested map file is written when headers need a decision: beside the output
+    folder."""
     out = Path(os.path.abspath(os.path.expanduser(str(output))))
     return out.with_name(out.name + "-import-map.csv")
 
@@ -189,10 +194,14 @@ def _hint(t: str, decimal_comma: bool) -> str:
     if not decimal_comma and re.fullmatch(r"[-+]?\d{1,3}(,\d{3})+(\.\d+)?", t):
         return "a ',' between thousands? remove it"
     if t[:1] in "<>≤≥~":
-        return "a bound or approximate value is not a number: put the number in the cell and the qualifier in a notes column"
+        return (
+            "a bound or approximate value is not a number: put the number in the cell and the "
+            "qualifier in a notes column"
+        )
     if split_plus_minus(t) is not None:
         return (
-            "a value with its spread: rerun with --plus-minus KIND (sd, se, ci95 or range_half: what the ± "
+            "a value with its spread: rerun with --plus-minus KIND (sd, se, ci95 or range_half: "
+            "what the ± "
             "means in the source) to split such cells, or put the spread in its own column, e.g. "
             + _SPREAD_EXAMPLE
         )
@@ -254,7 +263,8 @@ def resolve(
                         grid,
                         c,
                         "header-unit",
-                        f"{c.key} needs a unit in the header, e.g. '{c.header} ({catalog[c.key].unit})'",
+                        f"{c.key} needs a unit in the header, e.g. '{c.header} "
+                        f"({catalog[c.key].unit})'",
                         "write the unit in parentheses or brackets, or in the map file",
                     )
                 )
@@ -278,7 +288,8 @@ def resolve(
                             grid,
                             c,
                             "header-unit-kind",
-                            f"unit {c.unit!r} does not measure a {kind} ({c.key} is in {catalog[c.key].unit})",
+                            f"unit {c.unit!r} does not measure a {kind} ({c.key} is in "
+                            f"{catalog[c.key].unit})",
                         )
                     )
         elif c.role == "temperature":
@@ -326,8 +337,10 @@ def _structure(grid: Grid, columns: list[Column]) -> list[Problem]:
                         grid,
                         c,
                         "quantity-twice",
-                        f"{len(cols)} columns hold {key}: {', '.join(repr(x.header) for x in cols)}",
-                        "if both are values of it, map each with role 'value' in the map file; else set role 'ignore' for one",
+                        f"{len(cols)} columns hold {key}: "
+                        f"{', '.join(repr(x.header) for x in cols)}",
+                        "if both are values of it, map each with role 'value' in the map file; "
+                        "else set role 'ignore' for one",
                     )
                 )
     for role, what in (
@@ -385,7 +398,8 @@ def _structure(grid: Grid, columns: list[Column]) -> list[Problem]:
                     grid,
                     cols[1],
                     "column-twice",
-                    f"{len(cols)} {group} columns for {key}: {', '.join(repr(c.header) for c in cols)}",
+                    f"{len(cols)} {group} columns for {key}: "
+                    f"{', '.join(repr(c.header) for c in cols)}",
                     "a long-format row holds one; set role 'ignore' for the others in the map file",
                 )
             )
@@ -515,7 +529,8 @@ def to_long(
         temp = number(i, single["temperature"]) if single["temperature"] else None
         if temp is not None:
             t_unit = units.parse_unit(single["temperature"].unit).units
-            temp = f"{units.registry().Quantity(float(temp), t_unit).to('degC').magnitude:.12g}"  # pint converts offsets
+            # pint converts offsets
+            temp = f"{units.registry().Quantity(float(temp), t_unit).to('degC').magnitude:.12g}"
         n_all = number(i, single["n"]) if single["n"] else None
         copies = {c.key: text(i, c) for c in by_role.get("column", [])}
         for c in by_role.get("taxa", []):
@@ -531,7 +546,8 @@ def to_long(
                             c.header,
                             val,
                             "taxa-conflict",
-                            f"cell {grid.coordinate(i, c.index)}: {taxon!r} has {c.key} {have[c.key]!r} in an earlier row",
+                            f"cell {grid.coordinate(i, c.index)}: {taxon!r} has {c.key} "
+                            f"{have[c.key]!r} in an earlier row",
                             "one value per taxon",
                         )
                     )
@@ -567,7 +583,8 @@ def to_long(
                             tc.header,
                             "",
                             "taxon-missing",
-                            f"cell {grid.coordinate(i, tc.index)} is empty, but {coord} holds a value",
+                            f"cell {grid.coordinate(i, tc.index)} is empty, but {coord} holds a "
+                            "value",
                             "give the taxon name",
                         )
                     )
@@ -596,7 +613,8 @@ def to_long(
                         src_col.header,
                         "",
                         "source-missing",
-                        f"cell {grid.coordinate(i, src_col.index)} is empty, but {coord} holds a value",
+                        f"cell {grid.coordinate(i, src_col.index)} is empty, but {coord} holds a "
+                        "value",
                         "give the source id of the value",
                     )
                 )
@@ -624,7 +642,8 @@ def to_long(
                             spread.header,
                             text(i, spread),
                             "spread-twice",
-                            f"cell {coord} gives a spread after ± and cell {grid.coordinate(i, spread.index)} gives one too",
+                            f"cell {coord} gives a spread after ± and cell "
+                            f"{grid.coordinate(i, spread.index)} gives one too",
                             "keep one of them",
                         )
                     )
@@ -695,7 +714,8 @@ def _split_cell(
 
 
 def _filled(own: Column | None, row: Column | None, text) -> Column | None:
-    """The trait's own column when its cell is filled (or there is no row column), else the row's."""
+    """The trait's own column when its cell is filled (or there is no row column), else the
+    row's."""
     if own is None or (row is not None and not text(own)):
         return row
     return own
@@ -715,7 +735,8 @@ def _frame(records: list[dict[str, str]], columns: list[str]):
 def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -> list[Problem]:
     """Validate the long tables as ``comparo check`` does; problems at the wide cells.
 
-    Names, keys, units and ids are first read as they look (:func:`comparo.reading.tables.clean_names`:
+    Names, keys, units and ids are first read as they look
+    (:func:`comparo.reading.tables.clean_names`:
     no-break and zero-width spaces, direction marks), in *obs*, *taxa* and stub sources
     themselves (stub sources are made from ids so read), so the folder written holds the
     names as read."""
@@ -753,7 +774,8 @@ def _validate(long: _Long, obs, sources_table, taxa, grid: Grid, folder: Path) -
             )
         else:
             out.append(p)
-    # a cell shared by several long rows (a temperature, a source) breaks a rule once, not once per row
+    # a cell shared by several long rows (a temperature, a source) breaks a rule once, not
+    # once per row
     return list(dict.fromkeys(out))
 
 
@@ -819,15 +841,18 @@ def column_unit_slips(
                 c.header,
                 c.unit,
                 "column-unit",
-                f"header in column {c.letter}: {len(bad)} of {len(values)} values of {q.key} are outside its plausible range "
-                f"({lo:g}-{hi:g} {canon}) read in {c.unit}; read in {best}, {best_in} of them are inside: is the column's unit {best}?",
-                f"if so, write ({best}) in the header (or the unit in the map file) and import again; they were imported in {c.unit}",
+                f"header in column {c.letter}: {len(bad)} of {len(values)} values of {q.key} are "
+                "outside its plausible range "
+                f"({lo:g}-{hi:g} {canon}) read in {c.unit}; read in {best}, {best_in} of them are "
+                f"inside: is the column's unit {best}?",
+                f"if so, write ({best}) in the header (or the unit in the map file) and import "
+                f"again; they were imported in {c.unit}",
             )
         )
     return [p for p in found if not (p.rule == "out-of-range" and p.column in replaced)] + extra
 
 
-# --------------------------------------------------------------------------- sources, taxa, import.toml
+# ------------------------------------------------------------- sources, taxa, import.toml
 
 
 def _sources(sources: Path | None, ids: list[str], grid: Grid):
@@ -941,7 +966,8 @@ def import_toml(
     from comparo.base.version import __version__
 
     lines = [
-        "# Written by 'comparo import': every decision that turned the wide table into this folder.",
+        "# Written by 'comparo import': every decision that turned the wide table into this "
+        "folder.",
         "# Rerun the same import with:  comparo import WIDE -o NEW_FOLDER --map import.toml",
         "# (edit role/key/unit/basis of a [[columns]] entry to change a decision).",
         f"comparo_version = {_toml_value(__version__)}",
@@ -962,7 +988,8 @@ def import_toml(
         "[defaults]",
         'basis = "reported"',
         f"locator = {_toml_value(NOT_STATED)}",
-        'obs_id = "imp_ + first 10 hex digits of SHA-256(taxon|source|locator|header|muscle|occurrence)"',
+        'obs_id = "imp_ + first 10 hex digits of '
+        'SHA-256(taxon|source|locator|header|muscle|occurrence)"',
         "",
         "[counts]",
     ]
@@ -1037,7 +1064,8 @@ def _suggest_map(columns: list[Column], output: str) -> str:
             break
         if path.is_file() and not path.is_symlink() and _same_text(path, text):
             return (
-                f"the map file {path} already holds every column's decision: fill role (and key, unit) "
+                f"the map file {path} already holds every column's decision: fill role (and key, "
+                "unit) "
                 f"of the rows with an empty role, then rerun with --map {shlex.quote(str(path))}"
             )
         path = first.with_name(f"{first.stem}-{n}.csv")
@@ -1049,7 +1077,8 @@ def _suggest_map(columns: list[Column], output: str) -> str:
         return ""
     kept = f" ({first} exists and is kept as it is)" if path != first else ""
     return (
-        f"a map file with every column's decision is written to {path}{kept}: fill role (and key, unit) "
+        f"a map file with every column's decision is written to {path}{kept}: fill role (and key, "
+        "unit) "
         f"of the rows with an empty role, then rerun with --map {shlex.quote(str(path))}"
     )
 
@@ -1095,7 +1124,8 @@ def import_wide(
 
     if is_stdout(output):
         raise UsageError(
-            "comparo import writes a dataset folder: give its path with -o FOLDER (not standard output)"
+            "comparo import writes a dataset folder: give its path with -o FOLDER (not standard "
+            "output)"
         )
     with protecting([wide, sources, map_file]):
         return _import(
@@ -1128,7 +1158,8 @@ def _import(
     catalog = catalog or load_catalog()
     if out.is_dir() and any(out.iterdir()) and not overwrite:
         raise UsageError(
-            f"output folder {output} exists and is not empty; comparo import writes a new dataset folder: "
+            f"output folder {output} exists and is not empty; comparo import writes a new dataset "
+            "folder: "
             "give a new folder, or --overwrite to replace the tables it writes there"
         )
     if header_row is not None and (
@@ -1189,7 +1220,8 @@ def _import(
                 header,
                 None,
                 "missing-word",
-                f"{len(cells)} cell(s) say the value is missing ({', '.join(cells[:5])}{' ...' if len(cells) > 5 else ''}); no row made",
+                f"{len(cells)} cell(s) say the value is missing "
+                f"({', '.join(cells[:5])}{' ...' if len(cells) > 5 else ''}); no row made",
                 "nothing to do if they are missing values",
             )
         )
@@ -1287,7 +1319,8 @@ def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> list[P
             None,
             None,
             "table-kept",
-            f"{out / name} was not written by an earlier comparo import (not in its import.toml): kept "
+            f"{out / name} was not written by an earlier comparo import (not in its import.toml): "
+            "kept "
             "as it is, and it is part of the dataset",
             "remove it if it does not belong to the new import",
         )
@@ -1316,7 +1349,8 @@ def _earlier_tables(out: Path, files: dict[str, bytes]) -> tuple[list[str], list
     if clash:
         raise UsageError(
             f"output folder {out} holds {', '.join(clash)}, which no comparo import wrote there "
-            "(it is not listed in an import.toml); --overwrite replaces only the tables of an earlier "
+            "(it is not listed in an import.toml); --overwrite replaces only the tables of an "
+            "earlier "
             "import: move it away, or import into a new folder"
         )
     return remove, kept
@@ -1333,7 +1367,8 @@ def _written_by_earlier_import(out: Path) -> set[str]:
     files = doc.get("output", {}).get("files") if isinstance(doc.get("output"), dict) else None
     if isinstance(files, list):
         return {str(f) for f in files}
-    # import.toml of an earlier version: observations.csv, the sources table, taxa.csv if taxa columns
+    # import.toml of an earlier version: observations.csv, the sources table, taxa.csv if taxa
+    # columns
     src = str(doc["input"].get("sources") or "")
     names = {"observations.csv", f"sources{Path(src).suffix.lower()}" if src else "sources.csv"}
     cols = doc.get("columns") if isinstance(doc.get("columns"), list) else []

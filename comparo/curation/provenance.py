@@ -127,16 +127,19 @@ class AuditReport:
     def _traces_part(self) -> str:
         t = self.rows_from_traces
         return (
-            f" ({self.rows_read - t} from the observations table, {t} computed from the traces of traces.csv)"
+            f" ({self.rows_read - t} from the observations table, {t} computed from the traces of "
+            "traces.csv)"
             if t
             else ""
         )
 
     def summary(self) -> str:
         lines = [
-            f"rows read {self.rows_read}{self._traces_part()}: used {self.rows_used}, merged {self.rows_merged} (duplicates), excluded {len(self.rows_excluded)}"
+            f"rows read {self.rows_read}{self._traces_part()}: used {self.rows_used}, merged "
+            f"{self.rows_merged} (duplicates), excluded {len(self.rows_excluded)}"
             + ("" if self.balanced else "  ** COUNTS DO NOT ADD UP **"),
-            f"conflicts {len(self.conflicts)}, suspected unit slips {len(self.unit_slips)}, out of plausible range {len(self.out_of_range)}",
+            f"conflicts {len(self.conflicts)}, suspected unit slips {len(self.unit_slips)}, out of "
+            f"plausible range {len(self.out_of_range)}",
         ]
         weak = {q: 1.0 - s.get("reported", 0.0) for q, s in self.basis_shares.items()}
         shaky = [
@@ -149,7 +152,8 @@ class AuditReport:
             )
         if self.sources_uncited or self.sources_missing:
             lines.append(
-                f"sources never cited: {len(self.sources_uncited)}; cited but missing from the sources table: {len(self.sources_missing)}"
+                f"sources never cited: {len(self.sources_uncited)}; cited but missing from the "
+                f"sources table: {len(self.sources_missing)}"
             )
         t = self.temperature or {}
         if t.get("to"):
@@ -160,7 +164,8 @@ class AuditReport:
                     if t["to"] == "operating temperature"
                     else ""
                 )
-                + f", {len(t.get('kept_as_measured', []))} kept as measured (in vivo, regulating taxa), "
+                + f", {len(t.get('kept_as_measured', []))} kept as measured "
+                "(in vivo, regulating taxa), "
                 f"{len(t.get('without_temperature', []))} without a temperature (used as measured)"
             )
         lines += self._phylo_lines()
@@ -185,7 +190,9 @@ class AuditReport:
 
 TRUST_GRADES = ("firm", "read-off", "borrowed", "contested", "sparse")
 TRUST_MEANING = {
-    "firm": "every value printed in a source or computed from printed values; at least 3 quantities",
+    "firm": (
+        "every value printed in a source or computed from printed values; at least 3 quantities"
+    ),
     "read-off": "at least one value read off a figure (digitized); none borrowed or contested",
     "borrowed": "at least one value is a proxy (from a related taxon) or assumed",
     "contested": "a conflict between sources, or a suspected unit slip, touches this taxon",

@@ -574,7 +574,7 @@ def _refit(
     """Refit after a change of the rows flagged ``changed``.
 
     Aggregation is per taxon, so only the taxa with a changed row are rebuilt
-    (:func:`comparo.curation.harmonise.per_taxon` on their rows); the others keep their
+    (:func:`comparo.curation.aggregation.per_taxon` on their rows); the others keep their
     per-taxon values from ``base_table``.
     """
     table = _rebuilt(ds, h, rows, changed, base_table)

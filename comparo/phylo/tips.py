@@ -84,7 +84,8 @@ def match_tips(
 
     Examples
     --------
-    >>> m = match_tips("((Apis_mellifera:1,Bombus:1):1,Musca:2);", ["apis mellifera", "Musca", "Homo"])
+    >>> tree = "((Apis_mellifera:1,Bombus:1):1,Musca:2);"
+    >>> m = match_tips(tree, ["apis mellifera", "Musca", "Homo"])
     >>> m.pairs[0], m.taxa_without_tips, m.tips_without_data
     (('apis mellifera', 'Apis_mellifera', 'name'), ('Homo',), ('Bombus',))
     """
@@ -113,7 +114,8 @@ def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | 
                         None,
                         group[0],
                         "tree-ambiguous-tip",
-                        f"tips {group} are the same name once underscores, spaces and case are folded",
+                        f"tips {group} are the same name once underscores, spaces and case are "
+                        "folded",
                         "rename one of them",
                     )
                 )
@@ -236,9 +238,11 @@ def dataset_tree_labels(taxa: Any, tips: Sequence[str], file: str = "taxa.csv") 
                     "tree_label",
                     acc,
                     "tree-two-tips",
-                    f"accepted taxon {acc!r} matches {len(tips_of)} tips of the tree: {shown}; a fit would keep one "
+                    f"accepted taxon {acc!r} matches {len(tips_of)} tips of the tree: {shown}; a "
+                    "fit would keep one "
                     "and silently prune the other",
-                    "remove the duplicate tip from the tree, or correct the tree_label / synonym row",
+                    "remove the duplicate tip from the tree, or correct the tree_label / synonym "
+                    "row",
                 )
             )
     if problems:
@@ -309,7 +313,8 @@ def tree_problems(ds: Any, accepted: Iterable[str] | None = None) -> list[Proble
                 None,
                 lab,
                 "taxon-without-tip",
-                f"taxon {lab!r} has no tip in the tree; PGLS and other tree-based fits leave it out",
+                f"taxon {lab!r} has no tip in the tree; PGLS and other tree-based fits leave it "
+                "out",
                 hint,
             )
         )

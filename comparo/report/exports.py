@@ -414,7 +414,7 @@ def to_dwc(ds: Dataset, out_dir: str | Path) -> ExportResult:
 def table_workbook(table: pd.DataFrame, units: pd.DataFrame) -> bytes:
     """A per-taxon (or derived) table as an ``.xlsx`` workbook: sheet ``table`` with one row
     per taxon and the unit in each header (``body_mass (kg)``; columns without a unit keep
-    their name), and sheet ``columns`` with what each column holds (:func:`comparo.curation.harmonise.column_units`).
+    their name), and sheet ``columns`` with what each column holds (:func:`comparo.curation.aggregation.column_units`).
     Every text cell is stored as a plain string, never as a formula (a cell ``=1+1`` stays
     the text ``=1+1``); numbers are numbers, missing values empty cells."""
     import io

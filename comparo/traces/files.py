@@ -132,7 +132,8 @@ class TraceResult:
         """Where the numbers came from, in words: trace, file and cycles used."""
         a, b = self.cycle_bounds[0][0], self.cycle_bounds[-1][1]
         return (
-            f"reduced by comparo cycles from trace {self.trace_id} ({self.file}): {self.cycles} whole cycle(s), "
+            f"reduced by comparo cycles from trace {self.trace_id} ({self.file}): {self.cycles} "
+            "whole cycle(s), "
             f"{a:.6g}-{b:.6g} s, at {self.values['frequency'][0]:.6g} Hz"
         )
 
@@ -291,7 +292,8 @@ def _numbers(
                     col,
                     None,
                     "trace-number",
-                    f"{len(bad) - MAX_LISTED} more empty or non-numeric cell(s) in this column (not listed one by one)",
+                    f"{len(bad) - MAX_LISTED} more empty or non-numeric cell(s) in this column "
+                    "(not listed one by one)",
                     "fix the column; the first ones are listed above",
                 )
             )
@@ -312,7 +314,8 @@ def _time_problems(t: np.ndarray, rows: list[int], file: str, column: str) -> li
                 f"{t[i]:g}",
                 "trace-time-order",
                 f"time does not increase (previous row has {t[i - 1]:g})",
-                "samples must be in strictly increasing time; sort the file or remove the repeated row",
+                "samples must be in strictly increasing time; sort the file or remove the repeated "
+                "row",
             )
         )
     if len(bad) > MAX_LISTED:
@@ -323,7 +326,8 @@ def _time_problems(t: np.ndarray, rows: list[int], file: str, column: str) -> li
                 column,
                 None,
                 "trace-time-order",
-                f"{len(bad) - MAX_LISTED} more row(s) where time does not increase (not listed one by one)",
+                f"{len(bad) - MAX_LISTED} more row(s) where time does not increase (not listed one "
+                "by one)",
             )
         )
     return probs
@@ -363,7 +367,8 @@ def _read_one(
                 "file",
                 rel,
                 "trace-size",
-                f"trace file {rel!r} is {size / 2**20:,.0f} MB; comparo reads trace files of at most "
+                f"trace file {rel!r} is {size / 2**20:,.0f} MB; comparo reads trace files of at "
+                "most "
                 f"{MAX_TRACE_BYTES / 2**20:,.0f} MB (about a million samples of three columns)",
                 "keep the whole cycles needed (a few dozen are plenty) or downsample the recording",
             )
@@ -421,7 +426,8 @@ def _read_one(
                 f"trace {rec['trace_id']!r} cannot be split into cycles: {exc}",
                 "check that the columns hold the recorded signals (a constant or copied column?)"
                 if str(exc).startswith("no cycle:")
-                else "record more whole cycles (at least 2, with at least 8 samples each), or check the columns and units",
+                else "record more whole cycles (at least 2, with at least 8 samples each), or "
+                "check the columns and units",
             )
         ]
     res = _result(rec, row, red, t, x, y)
@@ -438,7 +444,8 @@ def _read_one(
                 "file",
                 rel,
                 "trace-result-range",
-                f"the reduced {', '.join(bad)} of trace {rec['trace_id']!r} leave the range comparo computes in "
+                f"the reduced {', '.join(bad)} of trace {rec['trace_id']!r} leave the range "
+                "comparo computes in "
                 f"({WORKING[0]:g} to {WORKING[1]:g} in SI units)",
                 "check the units of the columns",
             )
@@ -478,7 +485,8 @@ def _range_problems(
                         col,
                         f"{v[low[0]]:g}",
                         "trace-strain-range",
-                        f"{len(low)} strain(s) at or below -1 (-100%): not a deformation (first shown)",
+                        f"{len(low)} strain(s) at or below -1 (-100%): not a deformation (first "
+                        "shown)",
                         f"strain typed in % with {name} 1? give the unit as %",
                     )
                 )
@@ -490,7 +498,8 @@ def _range_problems(
                         name,
                         rec[name],
                         "trace-strain-large",
-                        f"strains in {col} reach {100 * np.max(np.abs(v)):.3g}%: typed in % with unit 1?",
+                        f"strains in {col} reach {100 * np.max(np.abs(v)):.3g}%: typed in % with "
+                        "unit 1?",
                         "give the unit as % if the numbers are percentages",
                         severity="warning",
                     )
@@ -592,7 +601,8 @@ def read_traces(ds, *, drift_removal: bool = True) -> TraceSet:
                     "trace_id",
                     rec.get("trace_id"),
                     "trace-id-clash",
-                    f"observation id(s) {', '.join(clash[:3])} look like the ids this trace's results get (TRACE_ID:quantity)",
+                    f"observation id(s) {', '.join(clash[:3])} look like the ids this trace's "
+                    "results get (TRACE_ID:quantity)",
                     "rename the trace or those observations",
                 )
             )

@@ -13,7 +13,7 @@ Timed:
   taxon jackknife and ``--mc`` Monte Carlo draws (the target: under 10 s for 500
   taxa, 50 sources, 1000 draws);
 * baseline: the naive route to the leave-one-source-out part alone, rebuilding the
-  whole per-taxon table (:func:`comparo.curation.harmonise.per_taxon`) for each dropped source
+  whole per-taxon table (:func:`comparo.curation.aggregation.per_taxon`) for each dropped source
   and refitting; its slopes must equal the fast route's.
 
 Prints both timings, the ratio, and a plain fit's time for scale.
