@@ -123,11 +123,17 @@ def _analysis_problems(
     return probs
 
 
-def analysis_problems(
-    settings: Mapping[str, Any], catalog, taxa_columns: set[str] | None = None
+def _entries_problems(
+    settings: Mapping[str, Any],
+    key: str,
+    catalog,
+    taxa_columns: set[str] | None,
+    check: Callable[..., list[Problem]],
 ) -> list[Problem]:
-    """Problems of the ``[[analysis]]`` entries (empty when there are none)."""
-    declared = settings.get("analysis")
+    """*check* ``(i, entry, quantities, taxa_columns)`` run on each entry of the list of
+    tables *key* (empty when it is not one), the quantities being the catalogue's, the
+    derived and the ``[ratios]`` keys."""
+    declared = settings.get(key)
     if not isinstance(declared, list) or not all(isinstance(a, Mapping) for a in declared):
         return []
     ratios = settings.get("ratios")
@@ -135,9 +141,16 @@ def analysis_problems(
         set(ratios) if isinstance(ratios, Mapping) else set()
     )
     probs: list[Problem] = []
-    for i, a in enumerate(declared):
-        probs += _analysis_problems(i, a, quantities, taxa_columns)
+    for i, entry in enumerate(declared):
+        probs += check(i, entry, quantities, taxa_columns)
     return probs
+
+
+def analysis_problems(
+    settings: Mapping[str, Any], catalog, taxa_columns: set[str] | None = None
+) -> list[Problem]:
+    """Problems of the ``[[analysis]]`` entries (empty when there are none)."""
+    return _entries_problems(settings, "analysis", catalog, taxa_columns, _analysis_problems)
 
 
 def _models_problems(
@@ -281,17 +294,7 @@ def comparison_problems(
     settings: Mapping[str, Any], catalog, taxa_columns: set[str] | None = None
 ) -> list[Problem]:
     """Problems of the ``[[comparison]]`` entries (empty when there are none)."""
-    declared = settings.get("comparison")
-    if not isinstance(declared, list) or not all(isinstance(c, Mapping) for c in declared):
-        return []
-    ratios = settings.get("ratios")
-    quantities = set(known_quantities(catalog)) | (
-        set(ratios) if isinstance(ratios, Mapping) else set()
-    )
-    probs: list[Problem] = []
-    for i, c in enumerate(declared):
-        probs += _comparison_problems(i, c, quantities, taxa_columns)
-    return probs
+    return _entries_problems(settings, "comparison", catalog, taxa_columns, _comparison_problems)
 
 
 def comparisons(

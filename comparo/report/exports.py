@@ -207,7 +207,10 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
                     "schema": {"fields": [{"name": c, "type": "string"} for c in ds.taxa.columns]},
                 }
             )
-        tab = per_taxon(ds, temperature=temperature)
+        from comparo.curation.harmonise import harmonise
+
+        h = harmonise(ds, temperature=temperature)
+        tab = per_taxon(ds, temperature=temperature, harmonised=h)
         (tmp / "per_taxon.csv").write_text(to_csv(tab), encoding="utf-8")
         fields = []
         for col in tab.columns:
@@ -271,7 +274,7 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
             }
         )
         if ds.traces is not None:
-            resources.append(_cycles_resource(ds, tmp, temperature))
+            resources.append(_cycles_resource(ds, tmp, temperature, h))
         package = {
             "profile": "tabular-data-package",
             "name": _slug(ds.settings.get("title") or ds.folder.name),
@@ -288,12 +291,12 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
     return ExportResult("datapackage", str(out), files)
 
 
-def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool) -> dict:
+def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool, harmonised: Any) -> dict:
     """``cycles.csv``: one row per trace reduced by comparo cycles (SI units, KEY_sd = SD over cycles)."""
     from comparo.curation.harmonise import cycles
     from comparo.traces.files import SI_UNITS
 
-    frame = cycles(ds, temperature=temperature).to_frame()
+    frame = cycles(ds, temperature=temperature, harmonised=harmonised).to_frame()
     (tmp / "cycles.csv").write_text(to_csv(frame), encoding="utf-8")
     fields = []
     for col in frame.columns:
@@ -414,7 +417,8 @@ def to_dwc(ds: Dataset, out_dir: str | Path) -> ExportResult:
 def table_workbook(table: pd.DataFrame, units: pd.DataFrame) -> bytes:
     """A per-taxon (or derived) table as an ``.xlsx`` workbook: sheet ``table`` with one row
     per taxon and the unit in each header (``body_mass (kg)``; columns without a unit keep
-    their name), and sheet ``columns`` with what each column holds (:func:`comparo.curation.aggregation.column_units`).
+    their name), and sheet ``columns`` with what each column holds
+    (:func:`comparo.curation.aggregation.column_units`).
     Every text cell is stored as a plain string, never as a formula (a cell ``=1+1`` stays
     the text ``=1+1``); numbers are numbers, missing values empty cells."""
     import io
