@@ -5,15 +5,16 @@
 Each stage is a function of its room that takes what it needs as arguments and returns
 its result (docs/architecture.md):
 
-=================  ===========================================  ==========================
-stage              function                                     returns
-=================  ===========================================  ==========================
-read + validate    :func:`comparo.validation.tables.check`      CheckResult with Dataset
-reduce traces      :func:`comparo.traces.files.read_traces`     TraceSet (with problems)
-harmonise          :func:`comparo.curation.harmonise.harmonise` Harmonised rows
-per-taxon          :func:`comparo.curation.aggregation.per_taxon`  per-taxon DataFrame
-relatives check    :func:`comparo.phylo.outliers.phylo_outliers`   PhyloCheck
-=================  ===========================================  ==========================
+* read + validate: :func:`comparo.validation.tables.check` (a folder -> CheckResult with
+  its Dataset);
+* reduce traces: :func:`comparo.traces.files.read_traces` (Dataset -> TraceSet, with the
+  problems of traces.csv and its files);
+* harmonise: :func:`comparo.curation.harmonise.harmonise` (Dataset, TraceSet -> Harmonised
+  rows, the rows computed from the traces joined);
+* per-taxon: :func:`comparo.curation.aggregation.per_taxon` (Dataset, Harmonised -> table);
+* the check against relatives: :func:`comparo.phylo.outliers.phylo_outliers` (Dataset,
+  table or Harmonised -> PhyloCheck);
+* derive: :func:`comparo.derivation.derive` (table, settings -> derived table).
 
 :class:`Run` holds one dataset and memoises each stage explicitly (a stage runs at most
 once per run, only when asked for). :func:`check` is the one gate, behind both
