@@ -43,27 +43,33 @@ ANALYSIS_KEYS = (
 COMPARISON_KEYS = ("y", "models", "method", "factor", "name")
 
 
+def _unknown_keys(
+    where: str, entry: Mapping[str, Any], known: tuple[str, ...], rule: str, what: str
+) -> list[Problem]:
+    """A problem for each key of *entry* (at *where*) not in *known*, with the closest."""
+    probs = []
+    for key in entry:
+        if key not in known:
+            close = difflib.get_close_matches(str(key), known, n=1)
+            probs.append(
+                settings_problem(
+                    f"{where}.{key}",
+                    entry[key],
+                    rule,
+                    f"unknown key {key!r} in {what} entry",
+                    f"did you mean {close[0]!r}?" if close else f"known keys: {', '.join(known)}",
+                )
+            )
+    return probs
+
+
 def _analysis_problems(
     i: int, a: Mapping[str, Any], quantities: set[str], columns: set[str] | None
 ) -> list[Problem]:
     from comparo.fitting.core import METHODS
 
-    probs = []
     where = f"analysis[{i + 1}]"
-    for key in a:
-        if key not in ANALYSIS_KEYS:
-            close = difflib.get_close_matches(str(key), ANALYSIS_KEYS, n=1)
-            probs.append(
-                settings_problem(
-                    f"{where}.{key}",
-                    a[key],
-                    "analysis-setting",
-                    f"unknown key {key!r} in an [[analysis]] entry",
-                    f"did you mean {close[0]!r}?"
-                    if close
-                    else f"known keys: {', '.join(ANALYSIS_KEYS)}",
-                )
-            )
+    probs = _unknown_keys(where, a, ANALYSIS_KEYS, "analysis-setting", "an [[analysis]]")
     for axis in ("x", "y"):
         v = a.get(axis)
         if v is None:
@@ -211,22 +217,8 @@ def _comparison_problems(
 ) -> list[Problem]:
     from comparo.fitting.multiple import MULTIPLE_METHODS
 
-    probs = []
     where = f"comparison[{i + 1}]"
-    for key in c:
-        if key not in COMPARISON_KEYS:
-            close = difflib.get_close_matches(str(key), COMPARISON_KEYS, n=1)
-            probs.append(
-                settings_problem(
-                    f"{where}.{key}",
-                    c[key],
-                    "comparison-setting",
-                    f"unknown key {key!r} in a [[comparison]] entry",
-                    f"did you mean {close[0]!r}?"
-                    if close
-                    else f"known keys: {', '.join(COMPARISON_KEYS)}",
-                )
-            )
+    probs = _unknown_keys(where, c, COMPARISON_KEYS, "comparison-setting", "a [[comparison]]")
 
     def quantity(col: str, v: Any, what: str) -> None:
         if not isinstance(v, str) or v not in quantities:
