@@ -33,7 +33,7 @@ def demo_copy(tmp_path: Path) -> Path:
 def demo_report(tmp_path_factory) -> tuple[Path, Path, object]:
     """The demo report built once per test process (seed 7), read-only for the tests that
     share it: (data folder, output folder, :class:`comparo.report.ReportResult`)."""
-    from comparo.report import build_report
+    from comparo.pipeline import build_report
 
     base = tmp_path_factory.mktemp("demo-report")
     data = base / "demo"
@@ -56,3 +56,7 @@ def pytest_collection_modifyitems(config, items):
         for fixture, group in _SHARED_FIXTURE_GROUPS.items():
             if fixture in getattr(item, "fixturenames", ()):
                 item.add_marker(pytest.mark.xdist_group(group))
+
+
+# the dead-code whitelist is read by vulture, never imported by pytest (--doctest-modules)
+collect_ignore = ["vulture_whitelist.py"]

@@ -16,7 +16,7 @@ import pytest
 from support import run_main
 
 from comparo.base.errors import InputError
-from comparo.validation.settings import comparisons
+from comparo.fitting.declared import comparisons
 
 BAD = """
 [[comparison]]

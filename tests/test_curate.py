@@ -12,8 +12,9 @@ from hypothesis import strategies as st
 from support import SOURCES, demo_taxa, run_main, write_dataset
 
 import comparo
-from comparo.curation.harmonise import harmonise, per_taxon
-from comparo.curation.provenance import audit
+from comparo.curation.aggregation import per_taxon
+from comparo.curation.harmonise import harmonise
+from comparo.pipeline import audit
 
 HDR = (
     "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,"

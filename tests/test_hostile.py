@@ -651,15 +651,15 @@ def test_check_subprocess_bounded_time_on_ladder_tree(tmp_path):
 
 
 def _problems(folder) -> pd.DataFrame:
-    from comparo.curation.harmonise import review
+    from comparo.pipeline import check
 
-    return review(folder).problems
+    return check(folder).problems
 
 
 def test_synonym_chain_resolves_to_its_end(tmp_path):
     """A -> B and B -> C in taxa.csv: A's values belong to C (not to B), with a warning
     naming both rows; the per-taxon table has one row, C."""
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
     from comparo.validation.dataset import load
 
     folder = tmp_path / "chain"
@@ -696,7 +696,7 @@ def test_unicode_forms_are_one_name_with_a_warning(tmp_path):
     """'ê' typed composed (U+00EA) on some rows and decomposed (e + U+0302) on one used to
     make two taxa; reading puts every cell in Unicode NFC (Unicode Standard Annex #15) and
     warns where two spellings became one, naming the rows of each."""
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
     from comparo.validation.dataset import load
 
     assert _NFC != _NFD and unicodedata.normalize("NFC", _NFD) == _NFC

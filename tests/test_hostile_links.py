@@ -147,7 +147,7 @@ def test_python_api_refuses_the_same_links(room):
     """The API answers as the CLI: build_report and import_wide protect their inputs."""
     from comparo.base.errors import UsageError
     from comparo.curation.importing import import_wide
-    from comparo.report import build_report
+    from comparo.pipeline import build_report
 
     link(room / "out" / "tables", room / "DS")
     before = snapshot(room)

@@ -238,7 +238,7 @@ def test_export_reads_back_as_the_dataset_says(rt):
 def test_the_table_reads_back_through_fit(rt):
     """comparo table -> CSV -> comparo fit: the grouping column and the names come back exact."""
     from comparo.cli.commands.fit import read_table
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
     from comparo.validation.dataset import load
 
     ds, out = rt

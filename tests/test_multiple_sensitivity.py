@@ -93,7 +93,7 @@ def test_refit_without_each_source_matches_statsmodels_on_the_table_without_it(f
 
 
 def test_plain_table_says_the_part_is_unavailable(folder):
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
 
     table = per_taxon(load(folder))
     s = multiple_sensitivity(table, "frequency_observed", ["body_mass", "fiber_radius"], "ols")

@@ -13,7 +13,7 @@ import pytest
 from support import DEMO
 
 from comparo.cli.main import main
-from comparo.report import build_report
+from comparo.pipeline import build_report
 
 
 class _Collect(HTMLParser):

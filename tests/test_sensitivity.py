@@ -250,7 +250,8 @@ def test_loso_matches_full_rebuild(tmp_path):
     """The per-taxon splice used for speed gives the same slope as rebuilding the whole table."""
     import dataclasses
 
-    from comparo.curation.harmonise import harmonise, per_taxon
+    from comparo.curation.aggregation import per_taxon
+    from comparo.curation.harmonise import harmonise
 
     ds = _compilation(tmp_path / "d", biased=True)
     s = sensitivity(ds, "body_mass", "frequency_observed", "sma", mc=0)

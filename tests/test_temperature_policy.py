@@ -14,7 +14,8 @@ from pathlib import Path
 import pytest
 from support import run_main
 
-from comparo.curation.harmonise import harmonise, per_taxon
+from comparo.curation.aggregation import per_taxon
+from comparo.curation.harmonise import harmonise
 from comparo.validation.dataset import load
 from comparo.validation.tables import check
 
@@ -90,9 +91,9 @@ def test_heterotherm_kept_at_its_operating_temperature_normalised_away_from_it(t
     assert r.loc["h3", "value_h"] == pytest.approx(q10_rule(120, 28, 25, Q10_FREQ), rel=1e-12)
     assert r.loc["h4", "value_h"] == pytest.approx(q10_rule(80, 20, 25, 2.5), rel=1e-12)
     assert r.loc["h4", "q10_used"] == 2.5
-    from comparo.curation.harmonise import review
+    from comparo.pipeline import check
 
-    p = review(d).problems
+    p = check(d).problems
     note = p[p["rule"] == "temperature-heterotherm"]
     assert (
         list(note["value"]) == ["28"]
@@ -127,9 +128,9 @@ def test_operating_fallback_is_noted(tmp_path):
     the fallback temperature."""
     obs = OBS + "m4,Myotis lucifugus,attach_rate,30,1/s,s1,T5,reported,20,skinned_fiber,\n"
     d = dataset(tmp_path, 'reference_temperature_c = "operating"\n', obs=obs)
-    from comparo.curation.harmonise import review
+    from comparo.pipeline import check
 
-    probs = review(d).problems
+    probs = check(d).problems
     note = probs[probs["rule"] == "temperature-fallback"]
     assert list(note["value"]) == ["Myotis lucifugus"]
     assert "25 °C" in note["message"].iat[0]
@@ -206,9 +207,9 @@ def test_per_taxon_temp_columns_and_mixed_temperatures(tmp_path):
     assert tab.loc["Myotis lucifugus", "frequency_observed_temp_c"] == 37.0
     assert tab.loc["Myotis lucifugus", "frequency_observed"] == pytest.approx((12 + 11) / 2)
     assert "body_mass_temp_c" not in tab
-    from comparo.curation.harmonise import review
+    from comparo.pipeline import check
 
-    p = review(d).problems
+    p = check(d).problems
     mixed = " ".join(p.loc[p["rule"] == "temperature-mixed", "message"])
     assert "Myotis lucifugus" in mixed and "36 to 38 °C" in mixed
     off = per_taxon(load(d), temperature=False).set_index("taxon")

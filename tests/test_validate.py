@@ -397,7 +397,7 @@ def test_reading_never_imports_validation():
 
 
 def test_check_result_shows_itself_in_a_notebook(tiny):
-    from comparo.validation.dataset import check
+    from comparo.pipeline import check
 
     res = check(tiny)
     html = res._repr_html_()

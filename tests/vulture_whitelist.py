@@ -18,7 +18,7 @@ from comparo.base.units import same_dimension
 from comparo.curation.harmonise import q10_from_activation_energy
 from comparo.fitting.flags import influence
 from comparo.phylo.outliers import loo_z
-from comparo.validation.tables import pandera_schema
+from comparo.validation.schema import pandera_schema
 
 _ = SimpleNamespace()
 

@@ -1,19 +1,21 @@
-"""Harmonise a validated dataset and aggregate it to one row per taxon.
+"""Harmonise a validated dataset: :func:`harmonise` takes a
+:class:`~comparo.validation.tables.Dataset` (and optionally its reduced traces) and returns
+the :class:`Harmonised` rows.
 
-Steps, each a pure function over the observation frame of a
-:class:`~comparo.validation.tables.Dataset`:
+Steps, each a pure function over the observation frame:
 
 1. names: reported names -> accepted names (taxa.csv), the mapping recorded;
 2. temperature: temperature-sensitive values -> the reference temperature
    (Q10, or Arrhenius where an activation energy is given), factor recorded;
 3. standard uncertainty: sd/se/ci95/range_half -> a standard uncertainty of
    the reported value (GUM, JCGM 100:2008);
-4. diagnostics: duplicates (merged), suspected unit slips, conflicts;
-5. :func:`per_taxon`: one row per accepted taxon with value, uncertainty,
-   count, sources, weakest basis and obs ids per quantity.
+4. duplicates (merged), suspected unit slips (excluded), the rows computed from the
+   traces (:mod:`comparo.traces.rows`) joined, conflicts found.
 
 Every row ends as ``used``, ``merged`` (a duplicate of another row) or
-``excluded`` (with a reason): see :func:`harmonise`.
+``excluded`` (with a reason). The per-taxon table is :mod:`comparo.curation.aggregation`,
+the findings ``check`` prints :mod:`comparo.curation.findings`; :func:`cycles` gives the
+traces with their taxon values.
 """
 
 from __future__ import annotations
@@ -25,10 +27,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from comparo.base.errors import Problem, problems_frame, problems_from_frame
 from comparo.validation.numbers import WORKING_RANGE, map_distinct
-from comparo.validation.rows import BASIS_ORDER
-from comparo.validation.tables import CheckResult, Dataset
+from comparo.validation.tables import Dataset
 
 R_GAS = 8.314462618  # J mol^-1 K^-1 (CODATA 2018, exact)
 SLIP_POWERS = (3, 6, 1)  # orders of magnitude a unit slip typically shifts a value by
@@ -154,6 +154,9 @@ class Harmonised:
         without an operating temperature); None when temperature normalisation is off.
     policy : comparo.validation.temperature.TemperaturePolicy or None
         The temperature settings applied; None when normalisation is off.
+    traces : comparo.traces.files.TraceSet or None
+        The dataset's traces with their taxon values (the rows computed from them are in
+        *rows*); None without traces.csv.
     """
 
     rows: pd.DataFrame
@@ -161,6 +164,7 @@ class Harmonised:
     unit_slips: list[dict[str, Any]] = field(default_factory=list)
     reference_temperature_c: float | None = None
     policy: Any = None
+    traces: Any = None
 
 
 def _numbers_only(table: Any) -> dict[str, float]:
@@ -174,10 +178,11 @@ def _numbers_only(table: Any) -> dict[str, float]:
     }
 
 
-def _thermal_columns(
+def thermal_columns(
     ds: Dataset, accepted: pd.Series, with_groups: bool = False
 ) -> tuple[np.ndarray, np.ndarray, list[dict[str, str]]]:
-    """Per observation row: the taxon's thermoregulation (text, '' when not given), its
+    """Per row of *accepted* (accepted names): the taxon's thermoregulation (text, '' when
+    not given), its
     operating temperature (°C, NaN when not given) and (*with_groups*) its taxa.csv
     grouping values."""
     groups = taxon_groups(ds)
@@ -245,7 +250,7 @@ def _temperature_columns(
     policy = temperature_policy(settings)
     q10_set = _numbers_only(settings.get("q10", {}))
     ea_set = _numbers_only(settings.get("activation_energy_kj_mol", {}))
-    thermo, t_op, groups = _thermal_columns(ds, obs["accepted"], with_groups=bool(policy.rules))
+    thermo, t_op, groups = thermal_columns(ds, obs["accepted"], with_groups=bool(policy.rules))
     q10 = map_distinct(
         keys, lambda k: float(q10_set.get(k, cat[k].q10 or np.nan)) if k in cat else np.nan
     ).to_numpy(dtype=float)
@@ -315,7 +320,11 @@ def _temperature_columns(
 
 
 def harmonise(
-    ds: Dataset, *, temperature: bool = True, exclude_unit_slips: bool = True
+    ds: Dataset,
+    *,
+    temperature: bool = True,
+    exclude_unit_slips: bool = True,
+    traces: Any = None,
 ) -> Harmonised:
     """Names, temperature, uncertainty, duplicates, slips and conflicts (see module doc).
 
@@ -329,6 +338,17 @@ def harmonise(
     "normalise"``). A value without a preparation counts as in vivo when its quantity is
     a frequency (what the animal does), as a preparation's otherwise. Rows gain
     ``temperature_rule`` and ``value_temp_c`` (°C the harmonised value refers to).
+
+    Traces (a dataset with traces.csv): *traces* is the dataset's reduced
+    :class:`~comparo.traces.files.TraceSet` (:func:`comparo.traces.files.read_traces`),
+    reduced here when not given. Each trace gets its taxon's values (combined from the
+    rows still in use) and joins the rows as ``computed`` values (``_origin`` names
+    traces.csv); ``Harmonised.traces`` keeps the traces with those values.
+
+    Raises
+    ------
+    InputError
+        When traces.csv or a trace file has an error (nothing is dropped silently).
     """
     obs = ds.observations.copy()
     obs["accepted"] = accepted_names(ds)
@@ -396,15 +416,12 @@ def harmonise(
         m = obs["obs_id"].isin(list(slip_ids)) & (obs["status"] == "used")
         obs.loc[m, "status"] = "excluded"
         obs.loc[m, "reason"] = [
-            f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit {slip_ids[o]['likely_unit']}"
+            f"suspected unit slip: off the group median by ~10^{slip_ids[o]['power']}; likely unit "
+            f"{slip_ids[o]['likely_unit']}"
             for o in obs.loc[m, "obs_id"]
         ]
-    if (
-        ds.traces is not None
-    ):  # per-trace cycle results join as computed rows (comparo.traces.files), using
-        from comparo.traces.files import trace_observations  # only the taxon values still in use
-
-        obs = trace_observations(ds, obs)
+    if ds.traces is not None:  # per-trace results join as computed rows
+        h.traces, obs = _join_traces(ds, obs, traces)
         h.rows = obs
     h.conflicts = find_conflicts(obs, ds)
     return h
@@ -412,7 +429,8 @@ def harmonise(
 
 def _beyond_range(obs: pd.DataFrame) -> list[tuple[np.ndarray, str]]:
     """Rows whose harmonised value or uncertainty left the range of a double or
-    :data:`~comparo.validation.tables.WORKING_RANGE` (an extreme temperature factor), with the reason."""
+    :data:`~comparo.validation.tables.WORKING_RANGE` (an extreme temperature factor), with
+    the reason."""
     lo, hi = WORKING_RANGE
     vc = obs["value_canonical"].to_numpy(dtype=float)
     out = []
@@ -428,7 +446,8 @@ def _beyond_range(obs: pd.DataFrame) -> list[tuple[np.ndarray, str]]:
         out.append(
             (
                 bad,
-                f"temperature normalisation takes the {name} outside the range comparo computes with ({lo:g} to {hi:g} in the canonical unit): check temperature_c and the Q10",
+                f"temperature normalisation takes the {name} outside the range comparo computes "
+                f"with ({lo:g} to {hi:g} in the canonical unit): check temperature_c and the Q10",
             )
         )
     return out
@@ -637,7 +656,7 @@ def find_conflicts(
                 "obs_ids": [oid[i] for i in part],
                 "sources": sorted({src[i] for i in part}),
                 "values": [float(val[i]) for i in part],
-                "unit": _pretty(unit[part[0]]),
+                "unit": pretty_unit(unit[part[0]]),
                 "rows": [int(rw[i]) for i in part],
                 "source_ids": [src[i] for i in part],
                 "reported": [typed[i] for i in part],
@@ -646,7 +665,8 @@ def find_conflicts(
     return out
 
 
-def _pretty(unit: str) -> str:
+def pretty_unit(unit: str) -> str:
+    """*unit* as a reader writes it (``kg/m³``); the text itself if it does not parse."""
     from comparo.base import units
 
     try:
@@ -670,669 +690,67 @@ def describe_value(conflict: dict[str, Any], i: int) -> str:
     return f"{conflict['obs_ids'][i]}: {v} ({', '.join(where)})"
 
 
-def diagnostics(ds: Dataset, *, temperature: bool = True) -> list[Problem]:
-    """Curation findings as Problems for ``comparo check``: duplicates, suspected unit
-    slips and conflicts (warnings), digitized/proxy/assumed values and synonyms (notes)."""
-    h = harmonise(ds, temperature=temperature)
-    obs_file = ds.files["observations"].name if "observations" in ds.files else "observations"
-    rows = h.rows
-    origin = dict(zip(rows["obs_id"], rows["_origin"], strict=True)) if "_origin" in rows else {}
+def _join_traces(ds: Dataset, obs: pd.DataFrame, traces: Any) -> tuple[Any, pd.DataFrame]:
+    """The traces with their taxon values (from the rows of *obs* still in use) and *obs*
+    with the rows computed from them (unchanged when no trace gives a value)."""
+    from comparo.curation.combine import taxon_values
+    from comparo.traces.files import read_traces
+    from comparo.traces.rows import TAXON_INPUTS, trace_rows, with_taxon_values
 
-    def file_of(obs_id: str) -> str:  # trace results point at their row of traces.csv
-        return origin.get(obs_id) or obs_file
+    ts = traces if traces is not None else read_traces(ds)
+    if not ts.ok:
+        from comparo.base.errors import InputError
 
-    file = obs_file
-    out: list[Problem] = []
-    beyond = (
-        (rows["status"] == "excluded")
-        & (rows["problem"] == "")
-        & rows["reason"].str.startswith("temperature normalisation")
-    )
-    for r in rows[beyond].itertuples():
-        out.append(
-            Problem(
-                "error",
-                file,
-                int(r.row),
-                "temperature_c",
-                _cell(r.temperature_c),
-                "temperature-factor-range",
-                r.reason,
-                "the row is excluded from every table and fit until fixed",
-            )
-        )
-    for r in rows[rows["status"] == "merged"].itertuples():
-        out.append(
-            Problem(
-                "warning",
-                file_of(r.obs_id),
-                int(r.row),
-                "obs_id",
-                r.obs_id,
-                "duplicate-row",
-                r.reason,
-                "it is merged, not double counted; delete one of the two rows",
-            )
-        )
-    for s in h.unit_slips:
-        out.append(
-            Problem(
-                "warning",
-                file_of(s["obs_id"]),
-                s["row"],
-                "unit",
-                s["unit"],
-                "unit-slip",
-                f"{s['quantity']} of {s['taxon']} is ~10^{s['power']} off the group median ({s['group_median']:.3g}); likely unit {s['likely_unit']}",
-                "check the unit; the value is excluded from aggregation until fixed",
-            )
-        )
-    for c in h.conflicts:
-        for i, (oid, row) in enumerate(zip(c["obs_ids"], c["rows"], strict=True)):
-            others = "; ".join(describe_value(c, j) for j in range(len(c["obs_ids"])) if j != i)
-            out.append(
-                Problem(
-                    "warning",
-                    file_of(oid),
-                    row,
-                    "value",
-                    oid,
-                    "conflict",
-                    f"{c['quantity']} of {c['taxon']}: {describe_value(c, i)} disagrees with {others}",
-                    "check both sources; the per-taxon value combines them",
-                )
-            )
-    out += _temperature_notes(ds, h, file)
-    out += _phylo_warnings(ds, h, file_of, temperature)
-    for b in ("digitized", "proxy", "assumed"):
-        for r in rows[rows["basis"] == b].itertuples():
-            extra = f" (stands in from {r.proxy_taxon})" if b == "proxy" else ""
-            out.append(
-                Problem(
-                    "note",
-                    file,
-                    int(r.row),
-                    "basis",
-                    b,
-                    f"basis-{b}",
-                    f"{r.quantity_key} of {r.accepted} is {b}{extra}",
-                    "",
-                )
-            )
-    syn = rows[
-        (rows["accepted"] != rows["taxon"]) & (rows["_origin"] == "" if "_origin" in rows else True)
-    ]
-    for name, part in syn.groupby("taxon"):
-        out.append(
-            Problem(
-                "note",
-                file,
-                int(part["row"].iat[0]),
-                "taxon",
-                name,
-                "synonym",
-                f"reported name mapped to accepted name {part['accepted'].iat[0]!r} ({len(part)} row(s))",
-                "",
-            )
-        )
-    n_traces = int((rows["_origin"] != "").sum()) if "_origin" in rows else 0
-    if n_traces:
-        out.append(
-            Problem(
-                "note",
-                TRACE_ROWS_FILE,
-                None,
-                None,
-                str(n_traces),
-                TRACE_ROWS_RULE,
-                f"{n_traces} row(s) computed from the traces (frequency, loop area, work ...) join the "
-                f"{int((rows['_origin'] == '').sum())} rows of the observations table",
-                "audit and the report count both",
-            )
-        )
-    return out
+        raise InputError([p for p in ts.problems if p.severity == "error"])
+    full = with_taxon_values(ds, ts, taxon_values(obs, TAXON_INPUTS))
+    base = obs.assign(_origin="") if "_origin" not in obs else obs
+    add = trace_rows(ds, full, dict(base.dtypes))
+    if add.empty:
+        return full, obs
+    return full, pd.concat([base, add], ignore_index=True)
 
 
-def _phylo_warnings(ds: Dataset, h: Harmonised, file_of, temperature: bool) -> list[Problem]:
-    """Warnings for values far from what their relatives on the tree predict (the check of
-    ``comparo.phylo.outliers``, imported lazily: a later room's check, like the gate hooks)."""
-    if ds.tree is None:
-        return []
-    from comparo.phylo.outliers import hint, phylo_outliers
-
-    found = phylo_outliers(ds, harmonised=h, temperature=temperature)
-    row_of = dict(zip(h.rows["obs_id"], h.rows["row"], strict=True))
-    out: list[Problem] = []
-    for f in found.flagged:
-        unit = _pretty(f["unit"])
-        lo, hi = f["range"]
-        msg = (
-            f"{f['quantity']} of {f['taxon']} = {f['value']:.4g} {unit} is {f['ratio']:.3g} times "
-            f"what its relatives on the tree predict ({f['predicted']:.3g} {unit}, 95% range "
-            f"{lo:.3g} to {hi:.3g}); leave-one-out z = {f['z']:.2f}, beyond {f['threshold']:.2f}"
-        )
-        for oid in f["obs_ids"]:
-            row = row_of.get(oid)
-            out.append(
-                Problem(
-                    "warning",
-                    file_of(oid),
-                    int(row) if row is not None else None,
-                    "value",
-                    oid,
-                    "phylo-outlier",
-                    msg,
-                    hint(f["value"], lo, hi),
-                )
-            )
-    return out
-
-
-TRACE_ROWS_RULE = "trace-rows"  # the note of diagnostics() counting the rows computed from traces
-TRACE_ROWS_FILE = "traces.csv"
-
-
-def _temperature_notes(ds: Dataset, h: Harmonised, file: str) -> list[Problem]:
-    """Notes on the temperature policy for ``check`` (docs/methods/temperature.md): a taxon
-    brought to the fallback temperature for want of an operating temperature, a
-    heterotherm's in-vivo value normalised, a per-taxon value combining values that
-    refer to different temperatures."""
-    out: list[Problem] = []
-    rows = (
-        h.rows[(h.rows["status"] == "used") & (h.rows.get("temperature_rule", "") != "")]
-        if "temperature_rule" in h.rows
-        else h.rows.iloc[:0]
-    )
-    if h.policy is None or rows.empty:
-        return out
-    thermo, t_op, _ = _thermal_columns(ds, rows["accepted"])
-    normalised = rows["temperature_rule"].isin(["Q10", "Arrhenius"]).to_numpy(bool)
-    if h.policy.operating:
-        fb = normalised & ~np.isfinite(t_op)
-        for name, part in rows[fb].groupby("accepted", sort=True):
-            out.append(
-                Problem(
-                    "note",
-                    file,
-                    int(part["row"].iat[0]),
-                    "taxon",
-                    name,
-                    "temperature-fallback",
-                    f"{name} has no operating_temperature_c: its {len(part)} "
-                    "temperature-sensitive value(s) are "
-                    f"brought to the fallback {h.reference_temperature_c:g} °C",
-                    "give operating_temperature_c in taxa.csv",
-                )
-            )
-    prep = (
-        rows["preparation"].fillna("").astype(str).to_numpy(object)
-        if "preparation" in rows
-        else np.full(len(rows), "", dtype=object)
-    )
-    het = (
-        normalised
-        & (thermo == "heterotherm")
-        & (
-            (prep == "in_vivo")
-            | (
-                (prep == "")
-                & rows["quantity_key"]
-                .map(lambda k: ds.catalog[k].kind == "frequency")
-                .to_numpy(bool)
-            )
-        )
-    )
-    for r, op in zip(rows[het].itertuples(), t_op[het], strict=True):
-        why = (
-            "it has no operating_temperature_c"
-            if not np.isfinite(op)
-            else f"it was measured at {r.temperature_c:g} °C, away from its operating "
-            f"temperature {op:g} °C"
-        )
-        out.append(
-            Problem(
-                "note",
-                file,
-                int(r.row),
-                "temperature_c",
-                _cell(r.temperature_c),
-                "temperature-heterotherm",
-                f"{r.quantity_key} of heterotherm {r.accepted} is normalised like an "
-                f"ectotherm's: {why}",
-                f"the tolerance is {h.policy.heterotherm_tolerance_c:g} K "
-                "([temperature] heterotherm_tolerance_c)",
-            )
-        )
-    vt = pd.to_numeric(rows["value_temp_c"], errors="coerce")
-    spread = (
-        pd.DataFrame({"v": vt.to_numpy(float), "row": rows["row"].to_numpy()})
-        .groupby(
-            [rows["accepted"].to_numpy(object), rows["quantity_key"].to_numpy(object)], sort=True
-        )
-        .agg(min=("v", "min"), max=("v", "max"), row=("row", "first"))
-    )
-    for (name, q), r in spread[(spread["max"] - spread["min"]) > 0.5].iterrows():
-        out.append(
-            Problem(
-                "note",
-                file,
-                int(r["row"]),
-                "temperature_c",
-                f"{r['min']:g} to {r['max']:g}",
-                "temperature-mixed",
-                f"{q} of {name}: the per-taxon value combines values that refer to "
-                f"{r['min']:g} to {r['max']:g} °C "
-                f"(some kept as measured); {q}_temp_c is their mean",
-                'set regulated_in_vivo = "normalise" to bring them to one temperature',
-            )
-        )
-    return out
-
-
-def _cell(v) -> str:
-    return (
-        ""
-        if v is None or (isinstance(v, float) and not np.isfinite(v))
-        else f"{v:g}"
-        if isinstance(v, float)
-        else str(v)
-    )
-
-
-def gate_problems(ds: Dataset) -> list[Problem]:
-    """What a later step (derive, fit, report) would reject in this dataset, found by
-    ``comparo check`` first: settings types and ratio expressions, tree branch lengths
-    and tips. Each step contributes one function ``(Dataset) -> list[Problem]``; they
-    run whenever the dataset could be read, so every problem comes in one pass."""
-    found: list[Problem] = []
-    for hook in _gate_hooks():
-        found += hook(ds)
-    return found
-
-
-def _gate_hooks() -> list:
-    """The gate's checks, imported when ``check`` runs (one line per step)."""
-    from comparo.phylo import tree_problems
-    from comparo.traces.files import trace_problems
-    from comparo.validation.settings import settings_problems
-
-    hooks: list = [settings_problems, tree_problems, trace_problems]
-    return hooks
-
-
-def review(folder) -> CheckResult:
-    """:func:`comparo.validation.tables.check`, plus :func:`gate_problems`, plus (when the table
-    has no errors) the curation :func:`diagnostics`: what ``comparo check`` prints."""
-    from dataclasses import replace
-
-    from comparo.validation.tables import check
-
-    result = check(folder)
-    if result.dataset is None:
-        return result
-    gate = gate_problems(result.dataset)
-    extra = (
-        gate
-        if (not result.ok or any(p.severity == "error" for p in gate))
-        else gate + diagnostics(result.dataset)
-    )
-    if not extra:
-        return result
-    traces = sum(int(p.value or 0) for p in extra if p.rule == TRACE_ROWS_RULE)
-    result = replace(
-        result,
-        problems=problems_frame(problems_from_frame(result.problems) + extra),
-        rows_from_traces=traces,
-    )
-    result.dataset.problems = result.problems
-    return result
-
-
-# --------------------------------------------------------------------------- per taxon
-
-
-def _combine(part: pd.DataFrame, how: str) -> tuple[float, float]:
-    v = part["value_h"].to_numpy(float)
-    u = part["u_h"].to_numpy(float)
-    n = part["n"].to_numpy(float)
-    if len(v) == 1:
-        return float(v[0]), float(u[0])
-    if how == "median":
-        med = float(np.median(v))
-        # standard uncertainty of a median ~ 1.2533 x that of the mean (normal errors; from memory)
-        return med, float(1.2533 * np.std(v, ddof=1) / math.sqrt(len(v)))
-    if np.all(np.isfinite(u) & (u > 0)):
-        w = 1.0 / u**2
-        mean = float(np.sum(w * v) / np.sum(w))
-        u_c = 1.0 / math.sqrt(np.sum(w))
-        chi2 = float(np.sum(w * (v - mean) ** 2))
-        birge = math.sqrt(
-            chi2 / (len(v) - 1)
-        )  # Birge ratio: inflate when values scatter more than their uncertainties
-        return mean, u_c * max(1.0, birge)
-    w = np.where(np.isfinite(n) & (n > 0), n, 1.0)
-    mean = float(np.sum(w * v) / np.sum(w))
-    return mean, float(np.std(v, ddof=1) / math.sqrt(len(v)))
-
-
-def _ivw_scaled(V: np.ndarray, U: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Inverse-variance weighted mean and its Birge-inflated standard uncertainty per row,
-    with weights (min u / u)^2 <= 1 so that no weight over- or underflows."""
-    k = V.shape[1]
-    umin = U.min(axis=1, keepdims=True)
-    W = (umin / U) ** 2
-    sw = W.sum(axis=1)
-    mean = np.sum(W * V, axis=1) / sw
-    spread = np.sqrt(
-        np.sum(W * (V - mean[:, None]) ** 2, axis=1) / (k - 1)
-    )  # = Birge ratio x min u
-    return mean, np.maximum(umin[:, 0], spread) / np.sqrt(sw)
-
-
-def _aggregate(part: pd.DataFrame, q: str, how: str, rank: dict[str, int]) -> pd.DataFrame:
-    """:func:`_combine` for every taxon of one quantity at once.
-
-    Taxa with the same number of values are stacked into one 2-D array and
-    reduced along rows, which numpy sums exactly as it sums each row alone, so
-    the numbers equal those of a per-taxon loop bit for bit.
-    """
-    codes, taxa = pd.factorize(part["accepted"].to_numpy(object))  # order of first appearance
-    order = np.argsort(codes, kind="stable")  # grouped, table order within a taxon
-    c = codes[order]
-    v = part["value_h"].to_numpy(float)[order]
-    u = part["u_h"].to_numpy(float)[order]
-    n = part["n"].to_numpy(float)[order]
-    sizes = np.bincount(c, minlength=len(taxa))
-    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-    val = np.empty(len(taxa))
-    unc = np.empty(len(taxa))
-    for k in np.unique(sizes):
-        gs = np.flatnonzero(sizes == k)
-        idx = starts[gs][:, None] + np.arange(k)[None, :]
-        V, U, N = v[idx], u[idx], n[idx]
-        if k == 1:
-            val[gs], unc[gs] = V[:, 0], U[:, 0]
-            continue
-        if how == "median":
-            val[gs] = np.median(V, axis=1)
-            # standard uncertainty of a median ~ 1.2533 x that of the mean (normal errors; from memory)
-            unc[gs] = 1.2533 * np.std(V, axis=1, ddof=1) / math.sqrt(k)
-            continue
-        ivw = np.all(np.isfinite(U) & (U > 0), axis=1)
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            if ivw.any():
-                Vi, W = V[ivw], 1.0 / U[ivw] ** 2
-                sw = np.sum(W, axis=1)
-                mean = np.sum(W * Vi, axis=1) / sw
-                chi2 = np.sum(W * (Vi - mean[:, None]) ** 2, axis=1)
-                birge = np.sqrt(
-                    chi2 / (k - 1)
-                )  # Birge ratio: inflate when values scatter more than their uncertainties
-                u_c = (1.0 / np.sqrt(sw)) * np.where(birge > 1.0, birge, 1.0)
-                off = ~(np.isfinite(mean) & np.isfinite(u_c))
-                if off.any():  # weights 1/u^2 over- or underflowed: the same mean with weights scaled by min(u)^2
-                    mean[off], u_c[off] = _ivw_scaled(Vi[off], U[ivw][off])
-                val[gs[ivw]] = mean
-                unc[gs[ivw]] = u_c
-            if (~ivw).any():
-                Vn, Nn = V[~ivw], N[~ivw]
-                W = np.where(np.isfinite(Nn) & (Nn > 0), Nn, 1.0)
-                val[gs[~ivw]] = np.sum(W * Vn, axis=1) / np.sum(W, axis=1)
-                unc[gs[~ivw]] = np.std(Vn, axis=1, ddof=1) / math.sqrt(k)
-    bounds = np.concatenate([starts, [len(c)]])
-    ids = part["obs_id"].to_numpy(object)[order]
-    src = pd.Series(part["source_id"].to_numpy(object)[order])
-    nsrc = src.groupby(c, sort=True).nunique().to_numpy(int)
-    brank = part["basis_effective"].map(rank).to_numpy(int)[order]
-    weakest = np.maximum.reduceat(brank, starts) if len(c) else brank
-    return pd.DataFrame(
-        {
-            q: val,
-            f"{q}_u": unc,
-            f"{q}_n": sizes.astype(int),
-            f"{q}_nsrc": nsrc,
-            f"{q}_basis": [BASIS_ORDER[r] for r in weakest],
-            f"{q}_obs": [";".join(ids[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True)],
-        },
-        index=pd.Index(list(taxa)),
-    )
-
-
-def per_taxon(
+def cycles(
     ds: Dataset,
     *,
     temperature: bool = True,
-    aggregate: str | None = None,
+    drift_removal: bool = True,
     harmonised: Harmonised | None = None,
-) -> pd.DataFrame:
-    """One row per accepted taxon: per quantity Q the columns ``Q`` (value in the
-    catalogue's canonical unit), ``Q_u`` (standard uncertainty), ``Q_n`` (values
-    behind it), ``Q_nsrc`` (sources behind it), ``Q_basis`` (weakest basis:
-    reported > computed > digitized > proxy > assumed) and ``Q_obs`` (';'-joined
-    obs_ids). Also ``taxon``, the grouping columns of taxa.csv and
-    ``temperature_c`` (°C the temperature-sensitive values refer to).
+    traces: Any = None,
+) -> Any:
+    """Every trace of a loaded dataset reduced, with the taxon values added (SI units): a
+    :class:`~comparo.traces.files.TraceSet`.
 
-    Aggregation (``aggregate`` or settings ``aggregate``): ``mean`` (default) is
-    the inverse-variance weighted mean when every value has an uncertainty
-    (standard uncertainty 1/sqrt(sum w), inflated by the Birge ratio when the
-    values scatter more than their uncertainties allow), else the n-weighted
-    mean (uncertainty: sd of the values / sqrt(k)); ``median`` the median.
+    ``drift_removal=False`` (``comparo cycles --no-drift-removal``) reduces the signals as
+    recorded. It changes what this returns only: the values that join the harmonised
+    table (``table``, ``derive``, ``fit``, ``report``) always come with drift removal.
+    *harmonised* (:func:`harmonise` of *ds*) and *traces* (its reduced traces) are used when
+    given, computed otherwise.
+
+    Raises
+    ------
+    InputError
+        When traces.csv or a trace file has an error.
     """
+    from comparo.base.errors import InputError
+    from comparo.curation.combine import taxon_values
+    from comparo.traces.files import TraceSet, read_traces
+    from comparo.traces.rows import TAXON_INPUTS, with_taxon_values
     from comparo.validation.tables import require_dataset
 
     require_dataset(ds)
-    how = aggregate or ds.settings.get("aggregate", "mean")
-    if how not in ("mean", "median"):
-        from comparo.base.errors import UsageError
-
-        raise UsageError(f"aggregate must be 'mean' or 'median', not {how!r}")
-    h = harmonised or harmonise(ds, temperature=temperature)
-    used = h.rows[h.rows["status"] == "used"]
-    cat = ds.catalog
-    taxa = sorted(
-        set(h.rows.loc[h.rows["status"] != "excluded", "accepted"]) | set(used["accepted"])
-    )
-    out = pd.DataFrame({"taxon": taxa})
-    groups = taxon_groups(ds)
-    if len(groups.columns) > 1:
-        out = out.merge(groups, on="taxon", how="left")
-        for c in groups.columns[1:]:
-            out[c] = out[c].fillna("")
-    if h.policy is not None and h.policy.operating:
-        _, t_op, _ = _thermal_columns(ds, out["taxon"])
-        out["temperature_c"] = np.where(np.isfinite(t_op), t_op, h.reference_temperature_c)
-    elif h.reference_temperature_c is not None:
-        out["temperature_c"] = h.reference_temperature_c
-    else:
-        ts = used[
-            map_distinct(used["quantity_key"], lambda k: k in cat and cat[k].temperature_sensitive)
-        ]
-        out["temperature_c"] = out["taxon"].map(ts.groupby("accepted")["temperature_c"].mean())
-    rank = {b: i for i, b in enumerate(BASIS_ORDER)}
-    order = [k for k in cat if not cat[k].converts_to]
-    blocks = []
-    for q in order:
-        part = used[used["quantity_key"] == q]
-        if part.empty:
-            continue
-        block = _aggregate(part, q, how, rank)
-        if cat[q].temperature_sensitive:
-            block[f"{q}_temp_c"] = _temperature_of(part).reindex(block.index).to_numpy(float)
-        blocks.append(block)
-    if blocks:
-        wide = pd.concat(blocks, axis=1)
-        out = out.merge(wide, left_on="taxon", right_index=True, how="left")
-        for c in out.columns:
-            if c.endswith(("_n", "_nsrc")):
-                out[c] = out[c].fillna(0).astype(int)
-            elif c.endswith(("_basis", "_obs")):
-                out[c] = out[c].fillna("")
-    out.attrs["reference_temperature_c"] = h.reference_temperature_c
-    out.attrs["temperature"] = _temperature_record(used, cat, h)
-    return out
-
-
-# what the columns of the per-taxon and derived tables hold, by suffix (longest first)
-_SUFFIX_MEANING: tuple[tuple[str, bool, str], ...] = (  # suffix, in the quantity's unit?, meaning
-    ("_mc_median", True, "Monte Carlo median"),
-    ("_mc_lo68", True, "Monte Carlo 68% interval, low end"),
-    ("_mc_hi68", True, "Monte Carlo 68% interval, high end"),
-    ("_mc_lo95", True, "Monte Carlo 95% interval, low end"),
-    ("_mc_hi95", True, "Monte Carlo 95% interval, high end"),
-    ("_mc_u", True, "Monte Carlo standard deviation"),
-    ("_nonlinear", False, "first-order and Monte Carlo uncertainties differ by more than 20%"),
-    ("_temp_c", False, "temperature (°C) the per-taxon value refers to"),
-    ("_nsrc", False, "number of distinct sources behind the value"),
-    (
-        "_basis",
-        False,
-        "weakest basis of the values behind it (reported > computed > digitized > proxy > assumed)",
-    ),
-    ("_method", False, "how the derived value was computed"),
-    ("_missing", False, "inputs missing for the derived value"),
-    ("_obs", False, "obs_ids of the values behind it (;-joined)"),
-    ("_n", False, "number of values combined"),
-    ("_u", True, "standard uncertainty"),
-)
-
-
-def column_units(table: pd.DataFrame, catalog) -> pd.DataFrame:
-    """What each column of a per-taxon (or derived) table holds: columns ``column``, ``unit``
-    (the canonical unit as pint reads it; empty for text, counts and dimensionless columns)
-    and ``meaning``. Units of derived keys come from ``table.attrs['units']``; the
-    catalogue gives the others. This is the table written beside a per-taxon CSV
-    (``table.units.csv``)."""
-    derived = dict(table.attrs.get("units", {}))
-    keys = {k: catalog[k].unit for k in catalog} | derived
-    groups = set(table.columns) - {"taxon", "temperature_c"}
-    rows = []
-    for col in table.columns:
-        unit, meaning = "", ""
-        if col == "taxon":
-            meaning = "accepted taxon name"
-        elif col == "temperature_c":
-            unit, meaning = "degC", "temperature the temperature-sensitive values refer to"
-        elif col == "operating_temperature_c":
-            unit, meaning = (
-                "degC",
-                "operating (body or muscle) temperature during the behaviour (taxa.csv)",
-            )
-        elif col in keys:
-            unit, meaning = (
-                keys[col],
-                "value in the canonical unit" if col not in derived else "derived value",
-            )
-        elif col == "regime":
-            meaning = "kinetic, hydraulic or undetermined"
-        else:
-            for suffix, same, what in _SUFFIX_MEANING:
-                base = col[: -len(suffix)]
-                if col.endswith(suffix) and base in keys | {"regime": ""}:
-                    unit = keys.get(base, "") if same else ("degC" if suffix == "_temp_c" else "")
-                    meaning = f"{base}: {what}"
-                    break
-            else:
-                if col in groups:
-                    meaning = "grouping column (taxa.csv)"
-        rows.append(
-            {
-                "column": col,
-                "unit": "" if unit in ("1", "dimensionless") else unit,
-                "meaning": meaning,
-            }
-        )
-    return pd.DataFrame(rows, columns=["column", "unit", "meaning"])
-
-
-def _temperature_of(part: pd.DataFrame) -> pd.Series:
-    """°C each taxon's value of one quantity refers to: the mean over its values of the
-    temperature each refers to (the target where normalised, the measured temperature
-    where kept as measured, not normalised or computed from a trace); NaN where no value
-    has one. Values at different temperatures are combined as they are (the per-taxon
-    value then refers to their mean temperature; docs/methods/temperature.md)."""
-    vt = (
-        pd.to_numeric(part["value_temp_c"], errors="coerce")
-        if "value_temp_c" in part
-        else pd.Series(np.nan, index=part.index)
-    )
-    vt = vt.fillna(pd.to_numeric(part["temperature_c"], errors="coerce"))
-    return vt.groupby(part["accepted"].to_numpy(object)).mean()
-
-
-def _temperature_record(used: pd.DataFrame, cat, h: Harmonised) -> dict[str, Any]:
-    """``attrs["temperature"]`` of the per-taxon table: where values were brought (``to``)
-    and, per quantity and taxon, what happened to its temperature-sensitive values used:
-    ``(quantity, taxon, values, rescaled, lowest factor, highest factor, kept as measured,
-    without temperature, rescaled to the fallback)`` (factors over the rescaled values; ±inf
-    when none; the last: with ``"operating"``, rescaled values of a taxon without an operating
-    temperature, brought to ``fallback_c``). Read by
-    :func:`comparo.validation.temperature.fit_temperature`."""
-    ts = used[
-        map_distinct(
-            used["quantity_key"], lambda k: k in cat and cat[k].temperature_sensitive
-        ).to_numpy(bool)
-    ]
-    rule = (
-        ts["temperature_rule"].fillna("").astype(str).to_numpy(object)
-        if "temperature_rule" in ts
-        else np.full(len(ts), "", dtype=object)
-    )
-    if h.policy is None:
-        treat = np.full(len(ts), "off", dtype=object)
-    else:
-        treat = np.select(
-            [(rule == "Q10") | (rule == "Arrhenius"), rule == "as measured", rule == "none"],
-            ["normalised", "kept", "none"],
-            "measured",
-        )
-    f = ts["temperature_factor"].to_numpy(float)
-    norm = (treat == "normalised") & (f != 1.0)
-    note = (
-        ts["temperature_note"].fillna("").astype(str)
-        if "temperature_note" in ts
-        else pd.Series("", index=ts.index)
-    )
-    fallback = (
-        norm & note.str.contains("no operating_temperature_c: fallback", regex=False).to_numpy()
-    )
-    part = pd.DataFrame(
-        {
-            "q": ts["quantity_key"].to_numpy(object),
-            "t": ts["accepted"].to_numpy(object),
-            "n": np.ones(len(ts), dtype=int),
-            "rescaled": norm.astype(int),
-            "fmin": np.where(norm, f, np.inf),
-            "fmax": np.where(norm, f, -np.inf),
-            "kept": (treat == "kept").astype(int),
-            "none": (treat == "none").astype(int),
-            "fallback": fallback.astype(int),
-        }
-    )
-    agg = part.groupby(["q", "t"], sort=False).agg(
-        n=("n", "sum"),
-        rescaled=("rescaled", "sum"),
-        fmin=("fmin", "min"),
-        fmax=("fmax", "max"),
-        kept=("kept", "sum"),
-        none=("none", "sum"),
-        fallback=("fallback", "sum"),
-    )
-    recs = tuple(
-        (
-            q,
-            t,
-            int(r.n),
-            int(r.rescaled),
-            float(r.fmin),
-            float(r.fmax),
-            int(r.kept),
-            int(r.none),
-            int(r.fallback),
-        )
-        for (q, t), r in zip(agg.index, agg.itertuples(index=False), strict=True)
-    )
-    return {
-        "to": h.policy.target_text if h.policy is not None else "off",
-        "values": recs,
-        "fallback_c": h.policy.reference_c if h.policy is not None else None,
-    }
+    if ds.traces is None:
+        return TraceSet()
+    h = harmonised
+    if h is None or h.traces is None:
+        ts = traces if traces is not None else read_traces(ds)
+        if not ts.ok:
+            raise InputError([p for p in ts.problems if p.severity == "error"])
+        h = harmonise(ds, temperature=temperature, traces=ts)
+    if drift_removal:
+        return h.traces
+    raw = read_traces(ds, drift_removal=False)
+    if not raw.ok:  # a trace that splits into cycles only with its drift removed
+        raise InputError([p for p in raw.problems if p.severity == "error"])
+    rows = h.rows[h.rows["_origin"] == ""] if "_origin" in h.rows else h.rows
+    return with_taxon_values(ds, raw, taxon_values(rows, TAXON_INPUTS))

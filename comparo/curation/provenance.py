@@ -14,7 +14,8 @@ from typing import Any
 
 import pandas as pd
 
-from comparo.curation.harmonise import Harmonised, harmonise, per_taxon
+from comparo.curation.aggregation import per_taxon
+from comparo.curation.harmonise import Harmonised, harmonise
 from comparo.validation.numbers import map_distinct
 from comparo.validation.rows import BASIS_ORDER
 from comparo.validation.tables import Dataset
@@ -128,16 +129,19 @@ class AuditReport:
     def _traces_part(self) -> str:
         t = self.rows_from_traces
         return (
-            f" ({self.rows_read - t} from the observations table, {t} computed from the traces of traces.csv)"
+            f" ({self.rows_read - t} from the observations table, {t} computed from the traces of "
+            "traces.csv)"
             if t
             else ""
         )
 
     def summary(self) -> str:
         lines = [
-            f"rows read {self.rows_read}{self._traces_part()}: used {self.rows_used}, merged {self.rows_merged} (duplicates), excluded {len(self.rows_excluded)}"
+            f"rows read {self.rows_read}{self._traces_part()}: used {self.rows_used}, merged "
+            f"{self.rows_merged} (duplicates), excluded {len(self.rows_excluded)}"
             + ("" if self.balanced else "  ** COUNTS DO NOT ADD UP **"),
-            f"conflicts {len(self.conflicts)}, suspected unit slips {len(self.unit_slips)}, out of plausible range {len(self.out_of_range)}",
+            f"conflicts {len(self.conflicts)}, suspected unit slips {len(self.unit_slips)}, out of "
+            f"plausible range {len(self.out_of_range)}",
         ]
         weak = {q: 1.0 - s.get("reported", 0.0) for q, s in self.basis_shares.items()}
         shaky = [
@@ -150,7 +154,8 @@ class AuditReport:
             )
         if self.sources_uncited or self.sources_missing:
             lines.append(
-                f"sources never cited: {len(self.sources_uncited)}; cited but missing from the sources table: {len(self.sources_missing)}"
+                f"sources never cited: {len(self.sources_uncited)}; cited but missing from the "
+                f"sources table: {len(self.sources_missing)}"
             )
         t = self.temperature or {}
         if t.get("to"):
@@ -161,7 +166,8 @@ class AuditReport:
                     if t["to"] == "operating temperature"
                     else ""
                 )
-                + f", {len(t.get('kept_as_measured', []))} kept as measured (in vivo, regulating taxa), "
+                + f", {len(t.get('kept_as_measured', []))} kept as measured "
+                "(in vivo, regulating taxa), "
                 f"{len(t.get('without_temperature', []))} without a temperature (used as measured)"
             )
         lines += self._phylo_lines()
@@ -186,7 +192,9 @@ class AuditReport:
 
 TRUST_GRADES = ("firm", "read-off", "borrowed", "contested", "sparse")
 TRUST_MEANING = {
-    "firm": "every value printed in a source or computed from printed values; at least 3 quantities",
+    "firm": (
+        "every value printed in a source or computed from printed values; at least 3 quantities"
+    ),
     "read-off": "at least one value read off a figure (digitized); none borrowed or contested",
     "borrowed": "at least one value is a proxy (from a related taxon) or assumed",
     "contested": "a conflict between sources, or a suspected unit slip, touches this taxon",
@@ -212,9 +220,21 @@ def trust_grade(coverage: dict[str, str], contested: bool) -> str:
 
 
 def audit(
-    ds: Dataset, *, temperature: bool = True, harmonised: Harmonised | None = None
+    ds: Dataset,
+    *,
+    temperature: bool = True,
+    harmonised: Harmonised | None = None,
+    table: pd.DataFrame | None = None,
+    phylo: Any = None,
 ) -> AuditReport:
     """Provenance audit of a loaded dataset (see :class:`AuditReport`).
+
+    *phylo* is the check of the values against their relatives on the tree
+    (:func:`comparo.phylo.outliers.phylo_outliers` of the dataset and its per-taxon table,
+    a :class:`~comparo.phylo.outliers.PhyloCheck`), which fills the ``phylo_*`` keys; the
+    public ``comparo.audit`` (:func:`comparo.pipeline.audit`) passes it. Without it, those
+    keys say the check was not run. *harmonised* and *table* (its per-taxon table) are
+    used when given, computed otherwise.
 
     Load with ``comparo.load(folder, strict=False)`` to audit a table that still
     has errors: rows with errors are then listed as excluded with their rule.
@@ -241,7 +261,7 @@ def audit(
             "taxa": int(n_taxa.get(sid, 0)),
             "quantities": list(quantities.get(sid, [])),
         }
-    tab = per_taxon(ds, temperature=temperature, harmonised=h)
+    tab = table if table is not None else per_taxon(ds, temperature=temperature, harmonised=h)
     coverage: dict[str, dict[str, str]] = {}
     basis_cols = [c for c in tab.columns if c.endswith("_basis")]
     for rec in tab[["taxon", *basis_cols]].to_dict("records"):
@@ -282,9 +302,6 @@ def audit(
         ].tolist(),
         "to": h.policy.target_text if h.policy is not None else None,
     }
-    from comparo.phylo.outliers import phylo_outliers  # a later room's check, lazily
-
-    phylo = phylo_outliers(ds, tab)
     return AuditReport(
         rows_read=len(rows),
         rows_from_traces=int((rows["_origin"] != "").sum()) if "_origin" in rows else 0,
@@ -311,12 +328,26 @@ def audit(
         sources_uncited=sorted(listed - cited),
         sources_missing=sorted(cited - listed),
         trust=trust,
-        phylo_outliers=phylo.outliers,
-        phylo_checked=phylo.checked,
-        phylo_skipped=phylo.skipped,
-        phylo_note=phylo.note,
-        phylo_flagged=phylo.flagged,
+        **_phylo_keys(phylo),
     )
+
+
+def _phylo_keys(phylo: Any) -> dict[str, Any]:
+    """The ``phylo_*`` fields of :class:`AuditReport` from a PhyloCheck (or, without one,
+    a note that the check against relatives was not run)."""
+    if phylo is None:
+        return {"phylo_note": NOT_CHECKED}
+    return {
+        "phylo_outliers": phylo.outliers,
+        "phylo_checked": phylo.checked,
+        "phylo_skipped": phylo.skipped,
+        "phylo_note": phylo.note,
+        "phylo_flagged": phylo.flagged,
+    }
+
+
+#: The audit's ``phylo_note`` when the check against relatives was not run.
+NOT_CHECKED = "values not checked against relatives on the tree (use comparo.audit)"
 
 
 def lineage(

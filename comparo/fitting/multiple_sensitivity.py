@@ -138,7 +138,8 @@ def multiple_sensitivity(
     ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
     unavailable = []
     if ds is not None:
-        from comparo.curation.harmonise import harmonise, per_taxon
+        from comparo.curation.aggregation import per_taxon
+        from comparo.curation.harmonise import harmonise
 
         h = harmonise(ds, temperature=temperature)
         table = per_taxon(ds, harmonised=h)

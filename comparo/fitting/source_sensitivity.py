@@ -226,7 +226,7 @@ def _refit(
     """Refit after a change of the rows flagged ``changed``.
 
     Aggregation is per taxon, so only the taxa with a changed row are rebuilt
-    (:func:`comparo.curation.harmonise.per_taxon` on their rows); the others keep their
+    (:func:`comparo.curation.aggregation.per_taxon` on their rows); the others keep their
     per-taxon values from ``base_table``.
     """
     table = rebuilt_table(ds, h, rows, changed, base_table)
@@ -245,7 +245,7 @@ def rebuilt_table(ds, h, rows, changed, base_table, keep_cols: tuple[str, ...] =
     factor) are carried over from ``base_table`` for the rebuilt taxa."""
     import pandas as pd
 
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
 
     touched = set(rows.loc[changed, "accepted"])
     sub_rows = rows[rows["accepted"].isin(touched)]
@@ -416,7 +416,8 @@ def sensitivity(
 
 def _harmonised(ds, temperature: bool, taxa: list[str] | None):
     """The harmonised rows of *ds* (only those of *taxa* when given) and its per-taxon table."""
-    from comparo.curation.harmonise import harmonise, per_taxon
+    from comparo.curation.aggregation import per_taxon
+    from comparo.curation.harmonise import harmonise
 
     h = harmonise(ds, temperature=temperature)
     if taxa is not None:
@@ -661,7 +662,7 @@ def sensitivity_by_group(
     from comparo.validation.dataset import Dataset
 
     if isinstance(dataset_or_table, Dataset):
-        from comparo.curation.harmonise import per_taxon
+        from comparo.curation.aggregation import per_taxon
 
         table = per_taxon(dataset_or_table, temperature=temperature)
     else:

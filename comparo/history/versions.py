@@ -712,7 +712,7 @@ def diff(
     unless ``temperature=False``); the analyses are fitted on both versions with the same
     *seed*. Raises :class:`comparo.InputError` when a version does not load.
     """
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
 
     a, b = _load(old), _load(new)
     ta, tb = per_taxon(a, temperature=temperature), per_taxon(b, temperature=temperature)

@@ -406,7 +406,7 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
         Unknown or non-positive quantity, no tree, fewer than :data:`MIN_OBSERVED`
         observed taxa on the tree.
     """
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
     from comparo.phylo.tips import _match, dataset_tree_labels
     from comparo.phylo.trees import _as_topo
     from comparo.validation.dataset import load

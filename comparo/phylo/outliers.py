@@ -8,6 +8,11 @@ but about 10^3 times what its relatives predict; this check finds it, a per-cell
 cannot. docs/methods/imputation.md ("A check against what relatives predict") gives the
 formulas and the expected number of false alarms.
 
+:func:`phylo_outliers` takes a dataset (and its per-taxon table or harmonised rows) and
+returns a :class:`PhyloCheck`; :func:`outlier_problems` turns one into the warnings of
+``comparo check``. The pipeline (:mod:`comparo.pipeline`) composes both into ``check`` and
+the audit; no earlier room calls this module.
+
 Belsley DA, Kuh E, Welsch RE (1980) Regression diagnostics. Wiley (the externally
 studentised residual and its t distribution).
 Cook RD, Weisberg S (1982) Residuals and influence in regression. Chapman & Hall.
@@ -16,12 +21,13 @@ Cook RD, Weisberg S (1982) Residuals and influence in regression. Chapman & Hall
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.base.errors import UsageError
+from comparo.base.errors import Problem, UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -195,7 +201,7 @@ def phylo_outliers(
     if ds.tree is None:
         return PhyloCheck(note="no tree (tree.nwk): values are not checked against relatives")
     from comparo.base.quantiles import t_quantile
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
     from comparo.phylo.tips import _match, dataset_tree_labels
     from comparo.phylo.trees import _as_topo
 
@@ -280,3 +286,39 @@ def phylo_outliers(
         else f"no quantity has {MIN_CHECKED} or more observed taxa on the tree: nothing checked"
     )
     return PhyloCheck(outliers, flagged, checked, skipped, note)
+
+
+def outlier_problems(
+    found: PhyloCheck, rows: pd.DataFrame, file_of: Callable[[str], str]
+) -> list[Problem]:
+    """The warnings ``comparo check`` prints for the values *found* far from what their
+    relatives on the tree predict (rule ``phylo-outlier``, one per observation row): *rows*
+    are the harmonised rows (``obs_id``, ``row``), *file_of* gives the file of an obs_id
+    (:func:`comparo.curation.findings.problem_file`)."""
+    from comparo.curation.harmonise import pretty_unit
+
+    row_of = dict(zip(rows["obs_id"], rows["row"], strict=True))
+    out: list[Problem] = []
+    for f in found.flagged:
+        unit = pretty_unit(f["unit"])
+        lo, hi = f["range"]
+        msg = (
+            f"{f['quantity']} of {f['taxon']} = {f['value']:.4g} {unit} is {f['ratio']:.3g} times "
+            f"what its relatives on the tree predict ({f['predicted']:.3g} {unit}, 95% range "
+            f"{lo:.3g} to {hi:.3g}); leave-one-out z = {f['z']:.2f}, beyond {f['threshold']:.2f}"
+        )
+        for oid in f["obs_ids"]:
+            row = row_of.get(oid)
+            out.append(
+                Problem(
+                    "warning",
+                    file_of(oid),
+                    int(row) if row is not None else None,
+                    "value",
+                    oid,
+                    "phylo-outlier",
+                    msg,
+                    hint(f["value"], lo, hi),
+                )
+            )
+    return out

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -84,7 +84,8 @@ def match_tips(
 
     Examples
     --------
-    >>> m = match_tips("((Apis_mellifera:1,Bombus:1):1,Musca:2);", ["apis mellifera", "Musca", "Homo"])
+    >>> tree = "((Apis_mellifera:1,Bombus:1):1,Musca:2);"
+    >>> m = match_tips(tree, ["apis mellifera", "Musca", "Homo"])
     >>> m.pairs[0], m.taxa_without_tips, m.tips_without_data
     (('apis mellifera', 'Apis_mellifera', 'name'), ('Homo',), ('Bombus',))
     """
@@ -113,7 +114,8 @@ def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | 
                         None,
                         group[0],
                         "tree-ambiguous-tip",
-                        f"tips {group} are the same name once underscores, spaces and case are folded",
+                        f"tips {group} are the same name once underscores, spaces and case are "
+                        "folded",
                         "rename one of them",
                     )
                 )
@@ -236,9 +238,11 @@ def dataset_tree_labels(taxa: Any, tips: Sequence[str], file: str = "taxa.csv") 
                     "tree_label",
                     acc,
                     "tree-two-tips",
-                    f"accepted taxon {acc!r} matches {len(tips_of)} tips of the tree: {shown}; a fit would keep one "
+                    f"accepted taxon {acc!r} matches {len(tips_of)} tips of the tree: {shown}; a "
+                    "fit would keep one "
                     "and silently prune the other",
-                    "remove the duplicate tip from the tree, or correct the tree_label / synonym row",
+                    "remove the duplicate tip from the tree, or correct the tree_label / synonym "
+                    "row",
                 )
             )
     if problems:
@@ -262,8 +266,12 @@ def nearest_tip(label: str, tips: Sequence[str]) -> str | None:
     return keys[hit[0]] if hit else None
 
 
-def tree_problems(ds: Any) -> list[Problem]:
+def tree_problems(ds: Any, accepted: Iterable[str] | None = None) -> list[Problem]:
     """What a tree-based fit would reject or silently drop, for ``comparo check``.
+
+    *accepted* are the accepted names of the compilation's taxa (the pipeline passes
+    :func:`comparo.curation.harmonise.accepted_names`); without them, the names of
+    ``ds.observations`` as reported.
 
     Errors: tip labels or branch lengths a PGLS fit refuses; one accepted taxon on two
     tips. Warnings: each taxon of the compilation without a tip (it would be left out
@@ -282,9 +290,9 @@ def tree_problems(ds: Any) -> list[Problem]:
         labels_map = dataset_tree_labels(ds.taxa, topo.tips)
     except InputError as exc:
         return problems_from_frame(exc.problems)
-    from comparo.curation.harmonise import accepted_names
-
-    names = sorted(set(accepted_names(ds).dropna().astype(str)))
+    if accepted is None:
+        accepted = ds.observations["taxon"]
+    names = sorted({str(a) for a in accepted if a is not None and a == a})
     try:
         m = _match(topo, names, labels_map)
     except InputError as exc:
@@ -305,7 +313,8 @@ def tree_problems(ds: Any) -> list[Problem]:
                 None,
                 lab,
                 "taxon-without-tip",
-                f"taxon {lab!r} has no tip in the tree; PGLS and other tree-based fits leave it out",
+                f"taxon {lab!r} has no tip in the tree; PGLS and other tree-based fits leave it "
+                "out",
                 hint,
             )
         )

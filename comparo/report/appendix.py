@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from comparo.report import fmt
+import comparo.report.fmt as fmt
 
 
 def appendix(points, ds, h) -> list[dict]:

@@ -5,14 +5,15 @@ from __future__ import annotations
 
 import hashlib
 import platform
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+import comparo.report.per_fit as pieces
+import comparo.report.render as render
 from comparo.base.progress import ProgressBar
-from comparo.report import per_fit as pieces
-from comparo.report import render
 from comparo.report.result import SENSITIVITY_DRAWS, ReportResult
 
 
@@ -59,7 +60,7 @@ def analyses(
 
     Without ``[[analysis]]`` in comparo.toml: :data:`DEFAULT_ANALYSES` whose columns exist.
     """
-    from comparo.validation.settings import analyses as choose
+    from comparo.fitting.declared import analyses as choose
 
     chosen, origin = choose(settings, table, catalog, taxa_columns)
     if (settings or {}).get("analysis"):
@@ -138,6 +139,7 @@ def build_report(
     progress: bool = False,
     sensitivity_draws: int = SENSITIVITY_DRAWS,
     since: str | Path | None = None,
+    gate: Callable[[Path], Any] | None = None,
 ) -> ReportResult:
     """Run the pipeline on a dataset folder and write the report into *out_dir*.
 
@@ -150,6 +152,8 @@ def build_report(
     progress : show a progress bar on standard error (for a terminal).
     sensitivity_draws : Monte Carlo draws of the measurement-error part of each fit's
         sensitivity (0 skips that part); recorded in run.json.
+    gate : the check of the dataset folder (folder -> CheckResult): ``comparo check``'s,
+        :func:`comparo.pipeline.check`, which ``comparo.build_report`` passes. Required.
 
     Returns
     -------
@@ -161,6 +165,8 @@ def build_report(
     from comparo.base.outputs import protecting, resolve_output
 
     folder, out = check_path(folder, "folder"), check_path(out_dir, "out_dir")
+    if gate is None:
+        raise UsageError("gate: give the dataset check (comparo.build_report passes it)")
     seed = check_seed(seed, "seed")
     sensitivity_draws = check_count(sensitivity_draws, "sensitivity_draws")
     old = None
@@ -178,7 +184,8 @@ def build_report(
             old = _load_old(since)
         out.mkdir(parents=True, exist_ok=True)
         with ProgressBar(progress, "report", 7 if since is None else 8) as steps:
-            return _build(folder, out, seed, temperature, steps, int(sensitivity_draws), old, since)
+            draws = int(sensitivity_draws)
+            return _build(folder, out, seed, temperature, steps, draws, old, since, gate)
 
 
 def _load_old(since: Path):
@@ -235,19 +242,23 @@ def _build(
     draws: int,
     old: Any = None,
     since: Path | None = None,
+    gate: Callable[[Path], Any] | None = None,
 ) -> ReportResult:
-    from comparo.curation.harmonise import harmonise, per_taxon, review
+    from comparo.curation.aggregation import per_taxon
+    from comparo.curation.harmonise import harmonise
     from comparo.curation.provenance import audit
+    from comparo.phylo.outliers import phylo_outliers
 
     steps.advance(description="checking")
-    checked = review(folder)
+    checked = gate(folder)
     if not checked.ok or checked.dataset is None:
         return _write_error_page(out, folder, checked, seed, temperature, draws)
     run = _Run(folder, checked.dataset, seed, temperature, draws, checked=checked)
     steps.advance(description="harmonising and auditing")
     run.h = harmonise(run.ds, temperature=temperature)
     run.table = per_taxon(run.ds, temperature=temperature, harmonised=run.h)
-    run.aud = audit(run.ds, temperature=temperature, harmonised=run.h)
+    phylo = phylo_outliers(run.ds, run.table)
+    run.aud = audit(run.ds, temperature=temperature, harmonised=run.h, table=run.table, phylo=phylo)
     steps.advance(description="deriving time scales")
     _derive(run)
     steps.advance(description="fitting and drawing")
@@ -270,7 +281,7 @@ def _build(
 def _derive(run: _Run) -> None:
     from comparo.base.csvsafe import to_csv
     from comparo.base.errors import ComparoError
-    from comparo.curation.harmonise import column_units
+    from comparo.curation.aggregation import column_units
 
     settings = run.ds.settings or {}
     try:
@@ -343,9 +354,9 @@ def _fit_all(run: _Run) -> None:
 
 
 def _fit_one(run: _Run, i: int, a: dict, labels, any_pgls: bool, state: dict) -> dict | None:
+    import comparo.report.figures as plots
     from comparo.base.errors import ComparoError
     from comparo.fitting import fit
-    from comparo.report import figures as plots
 
     ds, aid = run.ds, pieces.analysis_id(i, a)
     method, by = a.get("method", "sma"), a.get("by")
@@ -448,7 +459,7 @@ def comparison_id(i: int, c: dict) -> str:
 def _added_variable(run: _Run, rec: dict, res: Any, opts: dict) -> None:
     """The added-variable plots of a comparison (:mod:`comparo.report.added_variable`)."""
     from comparo.base.errors import ComparoError
-    from comparo.report import figures as plots
+    import comparo.report.figures as plots
     from comparo.report.added_variable import comparison_figure
 
     cols = {c for f in res.fits for c in f.predictors} | {res.y}
@@ -471,7 +482,7 @@ def _compare_all(run: _Run) -> None:
     from comparo.base.csvsafe import to_csv
     from comparo.base.errors import ComparoError
     from comparo.fitting.comparison import compare
-    from comparo.validation.settings import comparisons
+    from comparo.fitting.declared import comparisons
 
     declared = comparisons(run.ds.settings or {}, run.ds.catalog, _taxa_columns(run.ds))
     labels = pieces.tree_labels(run.ds)
@@ -520,8 +531,8 @@ def _compare_all(run: _Run) -> None:
 def _sensitivity_all(run: _Run) -> None:
     import pandas as pd
 
+    import comparo.report.figures as plots
     from comparo.base.csvsafe import to_csv
-    from comparo.report import figures as plots
 
     rows = []
     for sec in run.sections:
@@ -570,7 +581,7 @@ def _sensitivity_all(run: _Run) -> None:
 
 
 def _overview_figures(run: _Run) -> None:
-    from comparo.report import figures as plots
+    import comparo.report.figures as plots
 
     if run.derived is not None:
         fig = plots.regime_plot(run.derived)
@@ -586,16 +597,17 @@ def _overview_figures(run: _Run) -> None:
 
 
 def _cycles(run: _Run) -> None:
-    """The dataset's traces reduced (comparo.traces.files.cycles) and each one's loop drawn."""
+    """The dataset's traces reduced (comparo.curation.harmonise.cycles) and each one's loop
+    drawn."""
     if getattr(run.ds, "traces", None) is None:
         return
+    import comparo.report.figures as plots
     from comparo.base.csvsafe import to_csv
     from comparo.base.errors import ComparoError
-    from comparo.report import figures as plots
-    from comparo.traces.files import cycles
+    from comparo.curation.harmonise import cycles
 
     try:
-        run.cycles = cycles(run.ds, temperature=run.temperature)
+        run.cycles = cycles(run.ds, temperature=run.temperature, harmonised=run.h)
     except ComparoError as exc:  # check is the gate; a trace problem here is reported, not raised
         run.notes.append(f"cycles unavailable: {exc}")
         return

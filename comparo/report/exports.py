@@ -26,7 +26,7 @@ import pandas as pd
 
 from comparo.base.catalog import read_schema
 from comparo.base.csvsafe import to_csv
-from comparo.curation.harmonise import per_taxon
+from comparo.curation.aggregation import per_taxon
 from comparo.validation.dataset import Dataset
 
 DWC_TERMS = [
@@ -235,14 +235,17 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
             (tmp / "taxa.csv").write_text(to_csv(ds.taxa), encoding="utf-8")
             taxa_fields = [{"name": c, "type": "string"} for c in ds.taxa.columns]
             resources.append(_csv_resource("taxa", {"fields": taxa_fields}))
-        tab = per_taxon(ds, temperature=temperature)
+        from comparo.curation.harmonise import harmonise
+
+        h = harmonise(ds, temperature=temperature)
+        tab = per_taxon(ds, temperature=temperature, harmonised=h)
         (tmp / "per_taxon.csv").write_text(to_csv(tab), encoding="utf-8")
         fields = [_per_taxon_field(col, ds.catalog) for col in tab.columns]
         tab_text = "One row per accepted taxon, harmonised (comparo per-taxon table)."
         tab_schema = {"fields": fields, "primaryKey": ["taxon"]}
         resources.append(_csv_resource("per_taxon", tab_schema, tab_text))
         if ds.traces is not None:
-            resources.append(_cycles_resource(ds, tmp, temperature))
+            resources.append(_cycles_resource(ds, tmp, temperature, h))
         title = str(ds.settings.get("title") or ds.folder.name)
         package = {
             "profile": "tabular-data-package",
@@ -261,12 +264,13 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
     return ExportResult("datapackage", str(out), files)
 
 
-def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool) -> dict:
+def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool, harmonised: Any) -> dict:
     """``cycles.csv``: one row per trace reduced by comparo cycles (SI units, KEY_sd = SD over
     cycles)."""
-    from comparo.traces.files import SI_UNITS, cycles
+    from comparo.curation.harmonise import cycles
+    from comparo.traces.files import SI_UNITS
 
-    frame = cycles(ds, temperature=temperature).to_frame()
+    frame = cycles(ds, temperature=temperature, harmonised=harmonised).to_frame()
     (tmp / "cycles.csv").write_text(to_csv(frame), encoding="utf-8")
     fields = []
     for col in frame.columns:
@@ -389,7 +393,7 @@ def table_workbook(table: pd.DataFrame, units: pd.DataFrame) -> bytes:
     """A per-taxon (or derived) table as an ``.xlsx`` workbook: sheet ``table`` with one row
     per taxon and the unit in each header (``body_mass (kg)``; columns without a unit keep
     their name), and sheet ``columns`` with what each column holds
-    (:func:`comparo.curation.harmonise.column_units`).
+    (:func:`comparo.curation.aggregation.column_units`).
     Every text cell is stored as a plain string, never as a formula (a cell ``=1+1`` stays
     the text ``=1+1``); numbers are numbers, missing values empty cells."""
     import io

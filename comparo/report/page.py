@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from typing import Any
 
+import comparo.report.render as render
 from comparo.fitting.cautions import caution_lines
 from comparo.fitting.comparison import AVERAGING_CAUTION, WEIGHT_CAUTION
-from comparo.report import render
 from comparo.report.appendix import appendix
 from comparo.report.per_fit import diagnostics_caption
 

@@ -180,9 +180,9 @@ def tree_figure(
 
     Returns (figure, text under the figure).
     """
+    import comparo.report.figures as plots
     from comparo.base.errors import ComparoError
     from comparo.phylo import match_tips
-    from comparo.report import figures as plots
 
     y = a["y"]
     try:
@@ -321,9 +321,9 @@ def lambda_figure(res, data, a: dict, by: str | None, opts: dict):
     Returns (figure, note). A lambda at which the fit cannot be made (at lambda = 1 a tree with
     zero-length tip edges has a singular covariance) is left out of the figure and named in the note.
     """
+    import comparo.report.figures as plots
     from comparo.base.errors import ComparoError
     from comparo.fitting import fit
-    from comparo.report import figures as plots
 
     lams, lls, skipped = [], [], []
     for lam in LAMBDA_GRID:

@@ -12,8 +12,8 @@ from typing import Any
 
 from markupsafe import Markup
 
+import comparo.report.fmt as fmt
 from comparo.fitting.cautions import caution_lines
-from comparo.report import fmt
 from comparo.report.per_fit import quantity_name
 from comparo.report.result import DISCLAIMER, LAMBDA_GRID
 

@@ -1,1 +1,2 @@
-"""Oscillation traces: one trace reduced to numbers (oscillation) and the traces table with its files (files)."""
+"""Oscillation traces: one trace reduced to numbers (oscillation), the traces table with its
+files (files), and the reduced traces as rows of the harmonised table (rows)."""

@@ -1,14 +1,12 @@
-"""Traces: ``traces.csv`` and the trace files it names, validated, reduced to cycles,
-and turned into computed rows of the harmonised table.
+"""Traces: ``traces.csv`` and the trace files it names, validated and reduced to cycles.
 
 A dataset folder may hold ``traces.csv`` (one row per trace: file, columns and
 units of time, x and y, taxon, source, locator, kind) and the CSV files it names
 inside the folder. :func:`read_traces` validates both (every problem in one pass,
-at file, row and column) and reduces each good trace with :mod:`comparo.traces.oscillation`;
-:func:`with_taxon_values` adds what needs a taxon's other values (the odd modulus,
-a measured work density, the muscle mass); :func:`trace_observations` appends
-the per-trace means to the harmonised observation rows as ``computed`` values
-whose lineage names the trace, its file and the cycles used.
+at file, row and column) and reduces each good trace with
+:mod:`comparo.traces.oscillation`; it takes a dataset and returns a :class:`TraceSet`,
+cached nowhere. What needs a taxon's other values and the rows that join the harmonised
+table are in :mod:`comparo.traces.rows`.
 
 Units: every number of a :class:`TraceResult` is SI (s, Hz, dimensionless strain,
 J, W, Pa = J/m³, kg, W/kg).
@@ -24,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from comparo.base.errors import InputError, Problem
+from comparo.base.errors import Problem
 from comparo.validation.numbers import WORKING_RANGE
 
 TRACES_FILE = "traces.csv"
@@ -133,7 +131,8 @@ class TraceResult:
         """Where the numbers came from, in words: trace, file and cycles used."""
         a, b = self.cycle_bounds[0][0], self.cycle_bounds[-1][1]
         return (
-            f"reduced by comparo cycles from trace {self.trace_id} ({self.file}): {self.cycles} whole cycle(s), "
+            f"reduced by comparo cycles from trace {self.trace_id} ({self.file}): {self.cycles} "
+            "whole cycle(s), "
             f"{a:.6g}-{b:.6g} s, at {self.values['frequency'][0]:.6g} Hz"
         )
 
@@ -293,7 +292,8 @@ def _numbers(
                     col,
                     None,
                     "trace-number",
-                    f"{len(bad) - MAX_LISTED} more empty or non-numeric cell(s) in this column (not listed one by one)",
+                    f"{len(bad) - MAX_LISTED} more empty or non-numeric cell(s) in this column "
+                    "(not listed one by one)",
                     "fix the column; the first ones are listed above",
                 )
             )
@@ -314,7 +314,8 @@ def _time_problems(t: np.ndarray, rows: list[int], file: str, column: str) -> li
                 f"{t[i]:g}",
                 "trace-time-order",
                 f"time does not increase (previous row has {t[i - 1]:g})",
-                "samples must be in strictly increasing time; sort the file or remove the repeated row",
+                "samples must be in strictly increasing time; sort the file or remove the repeated "
+                "row",
             )
         )
     if len(bad) > MAX_LISTED:
@@ -325,7 +326,8 @@ def _time_problems(t: np.ndarray, rows: list[int], file: str, column: str) -> li
                 column,
                 None,
                 "trace-time-order",
-                f"{len(bad) - MAX_LISTED} more row(s) where time does not increase (not listed one by one)",
+                f"{len(bad) - MAX_LISTED} more row(s) where time does not increase (not listed one "
+                "by one)",
             )
         )
     return probs
@@ -365,7 +367,8 @@ def _read_one(
                 "file",
                 rel,
                 "trace-size",
-                f"trace file {rel!r} is {size / 2**20:,.0f} MB; comparo reads trace files of at most "
+                f"trace file {rel!r} is {size / 2**20:,.0f} MB; comparo reads trace files of at "
+                "most "
                 f"{MAX_TRACE_BYTES / 2**20:,.0f} MB (about a million samples of three columns)",
                 "keep the whole cycles needed (a few dozen are plenty) or downsample the recording",
             )
@@ -423,7 +426,8 @@ def _read_one(
                 f"trace {rec['trace_id']!r} cannot be split into cycles: {exc}",
                 "check that the columns hold the recorded signals (a constant or copied column?)"
                 if str(exc).startswith("no cycle:")
-                else "record more whole cycles (at least 2, with at least 8 samples each), or check the columns and units",
+                else "record more whole cycles (at least 2, with at least 8 samples each), or "
+                "check the columns and units",
             )
         ]
     res = _result(rec, row, red, t, x, y)
@@ -440,7 +444,8 @@ def _read_one(
                 "file",
                 rel,
                 "trace-result-range",
-                f"the reduced {', '.join(bad)} of trace {rec['trace_id']!r} leave the range comparo computes in "
+                f"the reduced {', '.join(bad)} of trace {rec['trace_id']!r} leave the range "
+                "comparo computes in "
                 f"({WORKING[0]:g} to {WORKING[1]:g} in SI units)",
                 "check the units of the columns",
             )
@@ -480,7 +485,8 @@ def _range_problems(
                         col,
                         f"{v[low[0]]:g}",
                         "trace-strain-range",
-                        f"{len(low)} strain(s) at or below -1 (-100%): not a deformation (first shown)",
+                        f"{len(low)} strain(s) at or below -1 (-100%): not a deformation (first "
+                        "shown)",
                         f"strain typed in % with {name} 1? give the unit as %",
                     )
                 )
@@ -492,7 +498,8 @@ def _range_problems(
                         name,
                         rec[name],
                         "trace-strain-large",
-                        f"strains in {col} reach {100 * np.max(np.abs(v)):.3g}%: typed in % with unit 1?",
+                        f"strains in {col} reach {100 * np.max(np.abs(v)):.3g}%: typed in % with "
+                        "unit 1?",
                         "give the unit as % if the numbers are percentages",
                         severity="warning",
                     )
@@ -550,11 +557,9 @@ def read_traces(ds, *, drift_removal: bool = True) -> TraceSet:
     source_id not in sources, a file missing or outside the folder) and trace files
     with errors (non-numeric or empty cells, time not strictly increasing, fewer
     than 2 whole cycles) are problems naming file, row, column and value; all of
-    them are collected in one pass. The result is cached on the dataset.
+    them are collected in one pass. Nothing is cached: the caller keeps the result (the
+    pipeline's :class:`comparo.pipeline.Run` reduces the traces once per run).
     """
-    key = "traces" if drift_removal else "traces_with_drift"
-    if key in ds.cache:
-        return ds.cache[key]
     raw = ds.traces
     if raw is None:
         return TraceSet()
@@ -596,7 +601,8 @@ def read_traces(ds, *, drift_removal: bool = True) -> TraceSet:
                     "trace_id",
                     rec.get("trace_id"),
                     "trace-id-clash",
-                    f"observation id(s) {', '.join(clash[:3])} look like the ids this trace's results get (TRACE_ID:quantity)",
+                    f"observation id(s) {', '.join(clash[:3])} look like the ids this trace's "
+                    "results get (TRACE_ID:quantity)",
                     "rename the trace or those observations",
                 )
             )
@@ -614,191 +620,4 @@ def read_traces(ds, *, drift_removal: bool = True) -> TraceSet:
         ]
         if res is not None:
             results.append(res)
-    out = TraceSet(tuple(results), tuple(probs))
-    ds.cache[key] = out
-    return out
-
-
-def trace_problems(ds) -> list[Problem]:
-    """The gate's hook: every problem of traces.csv and the trace files."""
-    return list(read_traces(ds).problems)
-
-
-# --------------------------------------------------------------------------- taxon values
-
-
-def _accepted(ds, name: str) -> str:
-    t = ds.taxa
-    if t is None or "taxon" not in t or "accepted_name" not in t:
-        return name
-    m = {a: b for a, b in zip(t["taxon"], t["accepted_name"], strict=True) if b}
-    return m.get(name, name)
-
-
-def _taxon_value(rows, accepted: str, key: str) -> tuple[float, float, tuple[str, ...]] | None:
-    """(value, standard uncertainty, obs_ids) of a taxon's used observation rows of *key*,
-    combined as the per-taxon table combines them (canonical unit of *key*)."""
-    from comparo.curation.harmonise import _combine
-
-    part = rows[
-        (rows["status"] == "used") & (rows["accepted"] == accepted) & (rows["quantity_key"] == key)
-    ]
-    if part.empty:
-        return None
-    v, u = _combine(part, "mean")
-    return v, u, tuple(part["obs_id"])
-
-
-def with_taxon_values(ds, traces: TraceSet, rows) -> TraceSet:
-    """Add what needs the taxon's harmonised observation rows (*rows*, with ``accepted``,
-    ``status``, ``value_h``, ``u_h``): work density = odd modulus x signed loop area and
-    the odd modulus implied by a measured work density (strain cycles), mass-specific
-    power = power / muscle mass (work loops). SI units."""
-    from comparo.base import units
-
-    kpa = units.conversion_factor(ds.catalog["odd_modulus"].unit, "Pa")
-    jm3 = units.conversion_factor(ds.catalog["work_density"].unit, "J/m**3")
-    kg = units.conversion_factor(ds.catalog["muscle_mass"].unit, "kg")
-    out = []
-    for r in traces.results:
-        acc = _accepted(ds, r.taxon)
-        values, per, inputs, extra = dict(r.values), dict(r.per_cycle), dict(r.inputs), {}
-        if r.kind == "strain_cycle":
-            k = _taxon_value(rows, acc, "odd_modulus")
-            if k is not None:
-                ko = k[0] * kpa
-                per["work_density"] = tuple(ko * a for a in r.per_cycle["loop_area"])
-                sd = values["loop_area"][1] * abs(ko)
-                values["work_density"] = (ko * values["loop_area"][0], sd)
-                inputs["odd_modulus"] = k[2]
-                extra["odd_modulus"] = ko
-            w = _taxon_value(rows, acc, "work_density")
-            area = values["loop_area"][0]
-            if w is not None and area != 0:
-                extra["odd_modulus_implied"] = w[0] * jm3 / area
-                inputs["work_density"] = w[2]
-        else:
-            m = _taxon_value(rows, acc, "muscle_mass")
-            if m is not None and m[0] > 0:
-                mass = m[0] * kg
-                per["mass_specific_power"] = tuple(p / mass for p in r.per_cycle["power"])
-                values["mass_specific_power"] = (
-                    values["power"][0] / mass,
-                    values["power"][1] / mass,
-                )
-                inputs["muscle_mass"] = m[2]
-                extra["muscle_mass"] = mass
-        out.append(replace(r, values=values, per_cycle=per, inputs=inputs, **extra))
-    return replace(traces, results=tuple(out))
-
-
-# --------------------------------------------------------------------------- into the table
-
-
-def trace_observations(ds, obs):
-    """*obs* (harmonised observation rows with their status) plus one ``computed`` row per
-    trace and quantity of :data:`TABLE_KEYS` (the mean over cycles in the catalogue's unit;
-    uncertainty the standard error over cycles, kind ``se``, n = cycles). ``inputs`` is
-    ``trace:ID`` plus the obs_ids of taxon values used; ``notes`` says file and cycles;
-    ``_origin`` is ``traces.csv`` (empty for observation rows).
-
-    Raises
-    ------
-    InputError
-        When a trace or traces.csv has an error (nothing is dropped silently).
-    """
-    import pandas as pd
-
-    from comparo.base import units
-
-    ts = read_traces(ds)
-    if not ts.ok:
-        raise InputError([p for p in ts.problems if p.severity == "error"])
-    ts = with_taxon_values(ds, ts, obs)
-    ds.cache["traces_full"] = ts
-    recs = []
-    for r in ts.results:
-        for key in TABLE_KEYS[r.kind]:
-            if key not in r.values:
-                continue
-            mean, sd = r.values[key]
-            q = ds.catalog[key]
-            f = 1.0 / units.conversion_factor(q.unit, SI_UNITS[key])
-            n = r.cycles
-            se = sd / math.sqrt(n) * abs(f) if math.isfinite(sd) else math.nan
-            ids = ";".join([f"trace:{r.trace_id}", *r.inputs.get(KEY_INPUTS.get(key, ""), ())])
-            recs.append(
-                {
-                    "obs_id": f"{r.trace_id}:{key}",
-                    "row": r.row,
-                    "taxon": r.taxon,
-                    "accepted": _accepted(ds, r.taxon),
-                    "quantity": key,
-                    "quantity_key": key,
-                    "value": mean * f,
-                    "unit": q.unit,
-                    "value_canonical": mean * f,
-                    "unit_canonical": q.unit,
-                    "uncertainty": se,
-                    "uncertainty_canonical": se,
-                    "uncertainty_kind": "se",
-                    "n": float(n),
-                    "u_h": se,
-                    "value_h": mean * f,
-                    "source_id": r.source_id,
-                    "locator": r.locator,
-                    "basis": "computed",
-                    "basis_effective": "computed",
-                    "inputs": ids,
-                    "proxy_taxon": "",
-                    "temperature_c": r.temperature_c if r.temperature_c is not None else math.nan,
-                    "preparation": r.preparation,
-                    "muscle": r.muscle,
-                    "q10": math.nan,
-                    "notes": r.lineage(),
-                    "problem": "",
-                    "temperature_factor": 1.0,
-                    "temperature_note": "",
-                    "status": "used",
-                    "reason": "",
-                    "merged_into": "",
-                    "_origin": TRACES_FILE,
-                }
-            )
-    if not recs:
-        return obs
-    add = pd.DataFrame(recs)
-    for c in obs.columns:
-        if c not in add:
-            add[c] = "" if obs[c].dtype == object else np.nan
-    base = obs.assign(_origin="") if "_origin" not in obs else obs
-    return pd.concat([base, add[[*base.columns]]], ignore_index=True)
-
-
-def cycles(ds, *, temperature: bool = True, drift_removal: bool = True) -> TraceSet:
-    """Every trace of a loaded dataset reduced, with the taxon values added (SI units).
-
-    ``drift_removal=False`` (``comparo cycles --no-drift-removal``) reduces the signals as
-    recorded. It changes what this returns only: the values that join the harmonised
-    table (``table``, ``derive``, ``fit``, ``report``) always come with drift removal.
-
-    Raises
-    ------
-    InputError
-        When traces.csv or a trace file has an error.
-    """
-    from comparo.curation.harmonise import harmonise
-    from comparo.validation.tables import require_dataset
-
-    require_dataset(ds)
-    ts = read_traces(ds)
-    if not ts.ok:
-        raise InputError([p for p in ts.problems if p.severity == "error"])
-    h = harmonise(ds, temperature=temperature)
-    if drift_removal:
-        return ds.cache.get("traces_full", ts)
-    raw = read_traces(ds, drift_removal=False)
-    if not raw.ok:  # a trace that splits into cycles only with its drift removed
-        raise InputError([p for p in raw.problems if p.severity == "error"])
-    rows = h.rows[h.rows["_origin"] != TRACES_FILE] if "_origin" in h.rows else h.rows
-    return with_taxon_values(ds, raw, rows)
+    return TraceSet(tuple(results), tuple(probs))

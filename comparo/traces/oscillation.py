@@ -147,7 +147,8 @@ def cycle_frequency(t: np.ndarray, signals: list[np.ndarray]) -> float:
     if share < MIN_EXPLAINED:
         raise CycleError(
             f"no clear oscillation: a sinusoid at the best frequency ({f_best:.6g} Hz) explains "
-            f"{100 * share:.0f}% of the signals' variance (at least {100 * MIN_EXPLAINED:.0f}% is needed)"
+            f"{100 * share:.0f}% of the signals' variance (at least {100 * MIN_EXPLAINED:.0f}% is "
+            "needed)"
         )
     return float(f_best)
 
@@ -272,7 +273,8 @@ class Cycles:
     frequency_cycles: tuple[float, ...] = ()
 
     def loop(self, k: int) -> tuple[np.ndarray, np.ndarray]:
-        """The closed loop of cycle *k*: samples inside it plus values interpolated at both bounds."""
+        """The closed loop of cycle *k*: samples inside it plus values interpolated at both
+        bounds."""
         a, b = self.bounds[k]
         inside = (self.t > a) & (self.t < b)
         ts = np.concatenate([[a], self.t[inside], [b]])
@@ -361,7 +363,8 @@ def _each_oscillates(
         share = _explained(t, [d / sd], f)
         if share < MIN_EXPLAINED:
             raise CycleError(
-                f"no cycle: a sinusoid at the cycle frequency ({f:.6g} Hz) explains {100 * share:.0f}% "
+                f"no cycle: a sinusoid at the cycle frequency ({f:.6g} Hz) explains "
+                f"{100 * share:.0f}% "
                 f"of the {name} signal's variance (at least {100 * MIN_EXPLAINED:.0f}% is needed)"
             )
 
@@ -426,7 +429,8 @@ def cycle_bounds(
     per = len(t) / ((t[-1] - t[0]) * f)
     if per < MIN_SAMPLES_PER_CYCLE:
         raise CycleError(
-            f"{per:.1f} samples per cycle at {f:.6g} Hz; at least {MIN_SAMPLES_PER_CYCLE} are needed"
+            f"{per:.1f} samples per cycle at {f:.6g} Hz; at least {MIN_SAMPLES_PER_CYCLE} are "
+            "needed"
         )
     bounds = tuple((s + t0, s + period + t0) for s in starts)
     phases = []

@@ -1,8 +1,10 @@
-"""A dataset folder, read and validated: :func:`load`, :class:`Dataset` and :func:`check`.
+"""A dataset folder, read and validated: :func:`load` and the :class:`Dataset` it returns.
 
 The room above reading (:mod:`comparo.reading.tables`, which returns raw tables of text)
 and validation (:mod:`comparo.validation.tables`, which imports reading and builds the
-:class:`Dataset`); neither of them imports this module.
+:class:`Dataset`); neither of them imports this module. The check of a folder,
+``comparo.check``, is :func:`comparo.pipeline.check`: it adds to these tables' rules the
+checks of every later stage.
 """
 
 from __future__ import annotations
@@ -11,9 +13,9 @@ from pathlib import Path
 
 from comparo.base.errors import InputError, problems_frame
 from comparo.reading.folder import read_folder
-from comparo.validation.tables import CheckResult, Dataset, check, validate
+from comparo.validation.tables import CheckResult, Dataset, validate
 
-__all__ = ["CheckResult", "Dataset", "check", "load"]
+__all__ = ["CheckResult", "Dataset", "load"]
 
 
 def load(folder: str | Path, *, strict: bool = True) -> Dataset:

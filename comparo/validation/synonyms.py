@@ -86,8 +86,10 @@ def resolve_synonyms(taxa: RawTable) -> tuple[dict[str, str], list[Problem]]:
                     "accepted_name",
                     step[start],
                     "synonym-chain",
-                    f"synonym chain {shown} (rows {_rows(rows, depth[start])}): every name in it is mapped to {end[start]!r}",
-                    f"write {end[start]!r} as the accepted_name of each of these rows to silence this",
+                    f"synonym chain {shown} (rows {_rows(rows, depth[start])}): every name in it "
+                    f"is mapped to {end[start]!r}",
+                    f"write {end[start]!r} as the accepted_name of each of these rows to silence "
+                    "this",
                 )
             )
     return {t: a for t, a in end.items() if a is not None and t not in in_cycle}, probs

@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import difflib
 import math
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -192,6 +192,28 @@ def temperature_settings_problems(
             "for example [temperature] followed by fallback_c = 25.0",
         )
         return probs
+    _entry_problems(settings, table, bad)
+    rules = table.get("rule", [])
+    if not isinstance(rules, list) or not all(isinstance(r, dict) for r in rules):
+        bad(
+            "temperature.rule",
+            rules,
+            "rules are written [[temperature.rule]], one table per rule",
+            'for example [[temperature.rule]] followed by q10 = 2.5 and quantity = "attach_rate"',
+        )
+        return probs
+    columns = set(taxa.columns) if taxa is not None else set()
+    for i, r in enumerate(rules, start=1):
+        _rule_problems(i, r, catalog, bad)
+        _where_problems(i, r.get("where", {}), taxa, columns, bad)
+    return probs
+
+
+Report = Callable[..., None]  # bad(key, value, message, hint="", severity="error")
+
+
+def _entry_problems(settings: dict[str, Any], table: dict, bad: Report) -> None:
+    """The entries of ``[temperature]`` other than its rules."""
     for key in table:
         if key not in _TEMPERATURE_KEYS:
             close = difflib.get_close_matches(str(key), sorted(_TEMPERATURE_KEYS), n=1)
@@ -232,105 +254,99 @@ def temperature_settings_problems(
             tol,
             "heterotherm_tolerance_c must be a number of kelvin from 0 to 20",
         )
-    rules = table.get("rule", [])
-    if not isinstance(rules, list) or not all(isinstance(r, dict) for r in rules):
+
+
+def _rule_problems(i: int, r: dict, catalog: Any, bad: Report) -> None:
+    """One ``[[temperature.rule]]`` (number *i*): its keys, q10 and quantities."""
+    where_key = f"temperature.rule[{i}]"
+    if i > 1 and "quantity" not in r and "where" not in r:
         bad(
-            "temperature.rule",
-            rules,
-            "rules are written [[temperature.rule]], one table per rule",
-            'for example [[temperature.rule]] followed by q10 = 2.5 and quantity = "attach_rate"',
+            where_key,
+            "",
+            f"rule {i} applies to every value, so the {i - 1} rule(s) before it never apply "
+            "(the last matching rule wins)",
+            "put the general rule first, the specific ones after it",
+            "warning",
         )
-        return probs
-    columns = set(taxa.columns) if taxa is not None else set()
-    for i, r in enumerate(rules, start=1):
-        where_key = f"temperature.rule[{i}]"
-        if i > 1 and "quantity" not in r and "where" not in r:
+    for key in r:
+        if key not in _RULE_KEYS:
             bad(
-                where_key,
+                f"{where_key}.{key}",
+                r[key],
+                f"unknown entry {key!r} in rule {i}",
+                "a rule has q10, quantity and where",
+            )
+    q = r.get("q10")
+    if q is None:
+        bad(f"{where_key}.q10", "", f"rule {i} has no q10", "give q10 = a number, e.g. 2.5")
+    elif not _number(q) or not 0 < q <= 100:
+        bad(
+            f"{where_key}.q10",
+            q,
+            "q10 must be a number greater than 0 and at most 100",
+            "typical biological Q10 is 2-3 (rule of thumb)",
+        )
+    for k in _as_list(r.get("quantity", [])):
+        if not isinstance(k, str) or k not in catalog:
+            close = difflib.get_close_matches(str(k), list(catalog), n=1)
+            bad(
+                f"{where_key}.quantity",
+                k,
+                f"rule {i} names unknown quantity {k!r}",
+                f"did you mean {close[0]!r}?"
+                if close
+                else "use a catalogue key (comparo units lists them)",
+            )
+        elif not catalog[k].temperature_sensitive:
+            bad(
+                f"{where_key}.quantity",
+                k,
+                f"{k} is not temperature-sensitive; rule {i} does nothing for it",
                 "",
-                f"rule {i} applies to every value, so the {i - 1} rule(s) before it never apply "
-                "(the last matching rule wins)",
-                "put the general rule first, the specific ones after it",
                 "warning",
             )
-        for key in r:
-            if key not in _RULE_KEYS:
-                bad(
-                    f"{where_key}.{key}",
-                    r[key],
-                    f"unknown entry {key!r} in rule {i}",
-                    "a rule has q10, quantity and where",
-                )
-        q = r.get("q10")
-        if q is None:
-            bad(f"{where_key}.q10", "", f"rule {i} has no q10", "give q10 = a number, e.g. 2.5")
-        elif not _number(q) or not 0 < q <= 100:
+
+
+def _where_problems(i: int, where: Any, taxa: Any, columns: set[str], bad: Report) -> None:
+    """The ``where`` table of rule *i*: columns of taxa.csv and values found in them."""
+    where_key = f"temperature.rule[{i}]"
+    if not isinstance(where, dict):
+        bad(
+            f"{where_key}.where",
+            where,
+            "where must be a table of taxa.csv column = value",
+            'for example where = { clade = "Diptera" }',
+        )
+        return
+    for col, vals in where.items():
+        if not all(isinstance(v, str) for v in _as_list(vals)):
+            bad(f"{where_key}.where.{col}", vals, "a where value must be text or a list of text")
+        elif col not in columns:
             bad(
-                f"{where_key}.q10",
-                q,
-                "q10 must be a number greater than 0 and at most 100",
-                "typical biological Q10 is 2-3 (rule of thumb)",
+                f"{where_key}.where.{col}",
+                col,
+                f"rule {i} selects taxa by column {col!r}, which taxa.csv "
+                + (
+                    "does not have"
+                    if taxa is not None
+                    else "cannot give: the dataset has no taxa.csv"
+                ),
+                f"taxa.csv columns: {', '.join(sorted(columns))}"
+                if columns
+                else "add a taxa.csv with that column",
             )
-        for k in _as_list(r.get("quantity", [])):
-            if not isinstance(k, str) or k not in catalog:
-                close = difflib.get_close_matches(str(k), list(catalog), n=1)
-                bad(
-                    f"{where_key}.quantity",
-                    k,
-                    f"rule {i} names unknown quantity {k!r}",
-                    f"did you mean {close[0]!r}?"
-                    if close
-                    else "use a catalogue key (comparo units lists them)",
-                )
-            elif not catalog[k].temperature_sensitive:
-                bad(
-                    f"{where_key}.quantity",
-                    k,
-                    f"{k} is not temperature-sensitive; rule {i} does nothing for it",
-                    "",
-                    "warning",
-                )
-        where = r.get("where", {})
-        if not isinstance(where, dict):
-            bad(
-                f"{where_key}.where",
-                where,
-                "where must be a table of taxa.csv column = value",
-                'for example where = { clade = "Diptera" }',
-            )
-            continue
-        for col, vals in where.items():
-            if not all(isinstance(v, str) for v in _as_list(vals)):
-                bad(
-                    f"{where_key}.where.{col}", vals, "a where value must be text or a list of text"
-                )
-            elif col not in columns:
-                bad(
-                    f"{where_key}.where.{col}",
-                    col,
-                    f"rule {i} selects taxa by column {col!r}, which taxa.csv "
-                    + (
-                        "does not have"
-                        if taxa is not None
-                        else "cannot give: the dataset has no taxa.csv"
-                    ),
-                    f"taxa.csv columns: {', '.join(sorted(columns))}"
-                    if columns
-                    else "add a taxa.csv with that column",
-                )
-            else:
-                present = set(taxa[col].astype(str))
-                for v in _as_list(vals):
-                    if v not in present:
-                        close = difflib.get_close_matches(v, sorted(present), n=1)
-                        bad(
-                            f"{where_key}.where.{col}",
-                            v,
-                            f"no taxon has {col} = {v!r}; rule {i} matches no taxon for it",
-                            f"did you mean {close[0]!r}?" if close else "",
-                            "warning",
-                        )
-    return probs
+        else:
+            present = set(taxa[col].astype(str))
+            for v in _as_list(vals):
+                if v not in present:
+                    close = difflib.get_close_matches(v, sorted(present), n=1)
+                    bad(
+                        f"{where_key}.where.{col}",
+                        v,
+                        f"no taxon has {col} = {v!r}; rule {i} matches no taxon for it",
+                        f"did you mean {close[0]!r}?" if close else "",
+                        "warning",
+                    )
 
 
 def fit_temperature(
@@ -338,7 +354,7 @@ def fit_temperature(
 ) -> dict | None:
     """What the temperature harmonisation did to the values behind a fit.
 
-    *table* is a per-taxon table of :func:`comparo.curation.harmonise.per_taxon` (its
+    *table* is a per-taxon table of :func:`comparo.curation.aggregation.per_taxon` (its
     ``attrs["temperature"]`` holds what happened to the values of each quantity and
     taxon); *quantities* are the fitted columns and *labels* the taxa fitted.
 

@@ -22,7 +22,7 @@ from _bigtable import write_table  # noqa: E402
 
 
 def main(rows: int = 100_000) -> None:
-    from comparo.curation.provenance import audit
+    from comparo.pipeline import audit
     from comparo.validation.dataset import load
 
     with tempfile.TemporaryDirectory() as tmp:

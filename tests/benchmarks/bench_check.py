@@ -3,7 +3,7 @@
 Run: ``python tests/benchmarks/bench_check.py [rows]``. Generates the table (seeded,
 invented taxa and sources) in a temporary folder, then times, in this run:
 baseline ``pandas.read_csv`` of observations.csv (all columns as text);
-``comparo.curation.harmonise.review`` (what `comparo check` computes: read, validate, curation
+``comparo.pipeline.check`` (what `comparo check` computes: read, validate, curation
 diagnostics) in this process; and the CLI ``comparo check --format json`` and the
 default text output in a fresh interpreter (imports and printing included).
 """
@@ -29,11 +29,11 @@ def timed(fn) -> float:
 
 
 def main(rows: int = 100_000) -> None:
-    from comparo.curation.harmonise import review
+    from comparo.pipeline import check
 
     with tempfile.TemporaryDirectory() as tmp:
         folder = write_table(Path(tmp) / "big", rows)
-        review(write_table(Path(tmp) / "warm", 50))  # imports outside the timing
+        check(write_table(Path(tmp) / "warm", 50))  # imports outside the timing
         base = timed(
             lambda: pd.read_csv(folder / "observations.csv", dtype=str, keep_default_na=False)
         )
@@ -41,7 +41,7 @@ def main(rows: int = 100_000) -> None:
 
         def run():
             nonlocal res
-            res = review(folder)
+            res = check(folder)
 
         api = timed(run)
         cli_json = timed(
@@ -60,7 +60,7 @@ def main(rows: int = 100_000) -> None:
         )
     print(f"check, {rows} valid rows: {res.summary()}")
     print(f"  baseline pandas.read_csv (text): {base:.2f} s")
-    print(f"  comparo.curation.harmonise.review (API):     {api:.2f} s   ratio {api / base:.1f}x")
+    print(f"  comparo.pipeline.check (API):     {api:.2f} s   ratio {api / base:.1f}x")
     print(
         f"  comparo check --format json:     {cli_json:.2f} s   ratio {cli_json / base:.1f}x "
         "(fresh interpreter)"

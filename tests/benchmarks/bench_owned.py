@@ -154,7 +154,7 @@ def contrasts() -> None:
 def schema() -> None:
     import pandas as pd
 
-    from comparo.validation.tables import column_rules, pandera_schema, schema_failures
+    from comparo.validation.schema import column_rules, pandera_schema, schema_failures
 
     rng = np.random.default_rng(5)
     n = 100_000

@@ -13,7 +13,7 @@ Timed:
   taxon jackknife and ``--mc`` Monte Carlo draws (the target: under 10 s for 500
   taxa, 50 sources, 1000 draws);
 * baseline: the naive route to the leave-one-source-out part alone, rebuilding the
-  whole per-taxon table (:func:`comparo.curation.harmonise.per_taxon`) for each dropped source
+  whole per-taxon table (:func:`comparo.curation.aggregation.per_taxon`) for each dropped source
   and refitting; its slopes must equal the fast route's.
 
 Prints both timings, the ratio, and a plain fit's time for scale.
@@ -69,7 +69,8 @@ def write_compilation(folder: Path, n_taxa: int, n_src: int, seed: int = 2024060
 
 def naive_loso(ds, x: str, y: str, method: str) -> dict[str, float]:
     """Leave one source out by rebuilding the whole per-taxon table each time."""
-    from comparo.curation.harmonise import harmonise, per_taxon
+    from comparo.curation.aggregation import per_taxon
+    from comparo.curation.harmonise import harmonise
     from comparo.fitting import fit
 
     h = harmonise(ds)
@@ -91,7 +92,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--method", default="sma")
     args = ap.parse_args(argv)
 
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
     from comparo.fitting import fit
     from comparo.fitting.source_sensitivity import sensitivity
     from comparo.validation.dataset import load

@@ -139,7 +139,7 @@ def test_drift_removal_can_be_turned_off(drifting):
     interpolated at the bounds), which the drift opens; the default removes the drift and
     gives the exact value (pi sum k a_k b_k sin(dphi), mm x mN = 1e-6 J) within 0.1%."""
     import comparo
-    from comparo.traces.files import cycles
+    from comparo.curation.harmonise import cycles
 
     ds, t, x, y = drifting
     exact = 1e-6 * exact_loop_integral(*_loop_case(2))

@@ -8,7 +8,7 @@ from comparo.base.outputs import dumps, emit
 
 
 def run(args) -> int:
-    from comparo.curation.provenance import audit
+    from comparo.pipeline import audit
     from comparo.validation.dataset import load
 
     ds = load(args.dataset, strict=False)

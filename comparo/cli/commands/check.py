@@ -94,9 +94,9 @@ def render_problems(result, limit: int | None = 25) -> None:
 
 
 def run(args) -> int:
-    from comparo.curation.harmonise import review
+    from comparo.pipeline import check
 
-    result = review(args.dataset)
+    result = check(args.dataset)  # the same gate as comparo.check
     if args.format == "json":
         emit(dumps(result.to_dict()))
     elif args.format == "csv":

@@ -47,7 +47,7 @@ def render(traces, drift_removal: bool = True) -> str:
 
 
 def run(args) -> int:
-    from comparo.traces.files import cycles
+    from comparo.curation.harmonise import cycles
     from comparo.validation.dataset import load
 
     ds = load(args.dataset)

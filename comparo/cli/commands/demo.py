@@ -91,7 +91,7 @@ def copy_demo(out: Path) -> Path:
 
 
 def run(args) -> int:
-    from comparo.report import build_report
+    from comparo.pipeline import build_report
 
     out = Path(args.output)
     if os.path.islink(out) and not out.is_dir():

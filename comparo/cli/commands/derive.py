@@ -7,7 +7,7 @@ import sys
 
 def run(args) -> int:
     from comparo.base.arguments import check_mc
-    from comparo.curation.harmonise import per_taxon
+    from comparo.curation.aggregation import per_taxon
     from comparo.derivation import derive
     from comparo.validation.dataset import load
     from comparo.validation.settings import derive_settings
@@ -18,7 +18,7 @@ def run(args) -> int:
     check_mc(args.mc, len(table), "--mc")
     out = derive(table, settings, mc=args.mc, seed=args.seed, progress=sys.stderr.isatty())
     from comparo.cli.commands.table import write_table
-    from comparo.curation.harmonise import column_units
+    from comparo.curation.aggregation import column_units
 
     write_table(out, column_units(out, ds.catalog), args.output)
     return 0

@@ -97,7 +97,7 @@ def _against(given: list[str] | None) -> dict[str, float] | None:
 
 def run_multiple(args) -> int:
     """The multiple regression as text, JSON or CSV (the terms table)."""
-    from comparo.cli.commands.compare import _table, _tree_options
+    from comparo.cli.inputs import derived_table, tree_options
     from comparo.fitting.multiple import FIT_METHODS, _check, multiple_fit
 
     xs = list(dict.fromkeys(args.x))
@@ -128,8 +128,8 @@ def run_multiple(args) -> int:
         raise UsageError("--tree and --lambda apply only to --method pgls")
     against = _against(args.against)
     needed = [args.y, *xs] + ([args.factor] if args.factor else [])
-    table = _table(args, needed)
-    opts = _tree_options(args) if args.method == "pgls" else {}
+    table = derived_table(args, needed)
+    opts = tree_options(args) if args.method == "pgls" else {}
     result = multiple_fit(
         table,
         args.y,
@@ -219,7 +219,7 @@ def _extras(args, table, xs: list[str], result, against, opts: dict) -> tuple[di
 def _sensitivity(args, xs: list[str], against, opts: dict):
     """Leave one source out of the multiple regression (a dataset folder; a plain table says
     it records no sources). --mc does not apply: no Monte Carlo with several predictors."""
-    from comparo.cli.commands.fit import is_dataset, read_table
+    from comparo.cli.inputs import is_dataset, read_table
     from comparo.fitting.multiple_sensitivity import multiple_sensitivity
 
     if is_dataset(args.data):

@@ -8,7 +8,7 @@ import sys
 
 def run(args) -> int:
     """Build the report; exit 2 when validation found errors (the report then lists them)."""
-    from comparo.report import build_report
+    from comparo.pipeline import build_report
 
     result = build_report(
         args.dataset,

@@ -10,7 +10,7 @@ if TYPE_CHECKING:
 
 
 def run(args) -> int:
-    from comparo.curation.harmonise import column_units, per_taxon
+    from comparo.curation.aggregation import column_units, per_taxon
     from comparo.validation.dataset import load
 
     ds = load(args.dataset)
