@@ -104,7 +104,7 @@ def check_table(value: object, name: str = "table") -> Any:
         pd.DataFrame,
         name,
         "a pandas DataFrame with one row per taxon, such as "
-        "comparo.per_taxon(comparo.load(FOLDER))",
+        "comparo.tabulate(FOLDER)",
     )
 
 

@@ -14,12 +14,13 @@ from typing import Any
 
 import pandas as pd
 
+from comparo.base.results import Result
 from comparo.curation.harmonise import Harmonised, harmonise, per_taxon
 from comparo.validation.tables import BASIS_ORDER, Dataset, map_distinct
 
 
 @dataclass(frozen=True)
-class AuditReport:
+class AuditReport(Result):
     """Provenance audit of a dataset (the ``comparo audit --format json`` object).
 
     ``rows_used + rows_merged + len(rows_excluded) == rows_read`` always.

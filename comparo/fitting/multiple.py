@@ -16,6 +16,7 @@ import numpy as np
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
+from comparo.base.results import Result
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -38,7 +39,7 @@ def aicc(loglik: float, k: int, n: int) -> float:
 
 
 @dataclass(frozen=True)
-class MultipleFit:
+class MultipleFit(Result):
     """One fitted model y ~ predictors (+ factor) on the fitted (log) scale.
 
     ``terms`` rows: term (``intercept``, a predictor name, ``COLUMN[level]``), estimate,
@@ -95,6 +96,17 @@ class MultipleFit:
             "excluded": [dict(e) for e in self.excluded],
             "sensitivity": self.sensitivity,
         }
+
+    def to_frame(self):
+        """The terms: ``term``, ``estimate``, ``se``, ``ci_low``, ``ci_high``, ``t``, ``p``."""
+        import pandas as pd
+
+        cols = ["term", "estimate", "se", "ci_low", "ci_high", "t", "p"]
+        rows = [
+            {**{k: t.get(k) for k in cols}, "ci_low": t["ci"][0], "ci_high": t["ci"][1]}
+            for t in self.terms
+        ]
+        return pd.DataFrame(rows, columns=cols)
 
     def summary(self) -> str:
         """The fit as text: terms, log-likelihood, AICc, lambda and the joint test."""

@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from comparo.base.jsonsafe import json_safe as _json
+from comparo.base.results import Result
 from comparo.fitting.cautions import caution_lines
 from comparo.fitting.numbers import _NAN, _f, _nan, _num, _p, _pair
 
@@ -14,7 +15,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
 
 @dataclass(frozen=True)
-class FitResult:
+class FitResult(Result):
     """A fitted scaling line Y = intercept + slope X on the fitted (log) scale.
 
     Attributes
@@ -55,7 +56,7 @@ class FitResult:
     sensitivity : dict or None
         Filled by the sensitivity analysis (not by :func:`fit`).
     phylo : dict or None
-        PGLS only: the further results of :func:`comparo.phylo.phylo_fit`
+        PGLS only: the further results of :func:`comparo.phylo.pgls`
         (likelihood-ratio tests of lambda = 0 and 1, pruned tips, taxa without
         tips, sigma2, likelihood convention, measurement error).
     points : tuple of dict
@@ -100,6 +101,30 @@ class FitResult:
     refit_without_flagged: FlaggedRefit | None = None
     cautions: tuple[dict, ...] = ()
     temperature: dict | None = None
+
+    __iter__ = None  # indexing by key (deprecated) does not make a fit a sequence
+
+    def __getitem__(self, key: str) -> Any:
+        """Deprecated: the dict that ``phylo_fit`` returned, read by key. Each key is an
+        attribute (``slope``, ``lambda_``) or an entry of ``phylo`` (``sigma2``, ``df``); the
+        warning names it. Values are as in :meth:`to_dict` (intervals as lists)."""
+        import warnings
+
+        phylo = self.phylo or {}
+        if key in phylo:
+            value, where = phylo[key], f"result.phylo[{key!r}]"
+        else:
+            d = self.to_dict()
+            if key == "terms" or key not in d and key not in self.__dataclass_fields__:
+                raise KeyError(key)
+            value = d[key] if key in d else _json(getattr(self, key))
+            where = "result." + ("lambda_" if key == "lambda" else key)
+        warnings.warn(
+            f"result[{key!r}] is deprecated: fits are FitResult objects, use {where}",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        return value
 
     def to_dict(self) -> dict:
         """JSON-safe dict with the keys of the ``fit --format json`` contract.

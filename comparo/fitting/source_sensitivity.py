@@ -18,6 +18,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
+import os
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -26,6 +27,7 @@ import numpy as np
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import json_safe as _json
+from comparo.base.results import Result
 from comparo.fitting.core import slope_from_moments
 from comparo.fitting.resampling import _jackknife_moments, _progress_bar
 from comparo.fitting.result import FitResult
@@ -53,7 +55,7 @@ def _loso_lines(
 
 
 @dataclass(frozen=True)
-class SensitivityResult:
+class SensitivityResult(Result):
     """How much the fitted slope depends on single sources, bases, taxa and measurement error.
 
     Attributes
@@ -362,7 +364,7 @@ def _draw_slopes(
     if method == "pgls":
         import pandas as pd
 
-        from comparo.phylo import phylo_fit, read_tree
+        from comparo.phylo import pgls, read_tree
 
         opts = {k: v for k, v in fit_options.items() if k in ("tree", "tree_labels", "reml")}
         if isinstance(opts.get("tree"), str):
@@ -370,7 +372,7 @@ def _draw_slopes(
         lam = result.lambda_ if result.lambda_ is not None else "ml"
         for k in np.flatnonzero(ok):
             t = pd.DataFrame({"taxon": labels, "x": X[k], "y": Y[k]})
-            out[k] = phylo_fit(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
+            out[k] = pgls(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
         return out
     raise UsageError(f"measurement-error Monte Carlo: unknown method {method!r}")
 
@@ -709,12 +711,16 @@ def sensitivity(
 
     from comparo.base.arguments import check_count, check_draws, check_kind, check_level, check_seed
     from comparo.validation.dataset import Dataset
+    from comparo.validation.tables import require_dataset
 
+    if isinstance(dataset_or_table, str | os.PathLike):  # a dataset folder
+        dataset_or_table = require_dataset(dataset_or_table, "dataset_or_table")
     check_kind(
         dataset_or_table,
         (Dataset, pd.DataFrame),
         "dataset_or_table",
-        "a Dataset (comparo.load(FOLDER)) or a per-taxon DataFrame (comparo.per_taxon)",
+        "a Dataset (comparo.load(FOLDER)), a dataset folder or a per-taxon DataFrame "
+        "(comparo.tabulate)",
     )
     mc = check_count(mc, "mc")
     seed = check_seed(seed, "seed")
@@ -1056,7 +1062,7 @@ def sensitivity_by_group(
 
 
 @dataclass(frozen=True)
-class MultipleSensitivity:
+class MultipleSensitivity(Result):
     """How much the coefficients of a multiple regression depend on single sources.
 
     Attributes
@@ -1094,6 +1100,15 @@ class MultipleSensitivity:
                 "unavailable": list(self.unavailable),
             }
         )
+
+    def to_frame(self):
+        """One row per source left out (most influential first): ``source_id``, ``n``,
+        ``term`` moved most and its ``shift_se``, ``p`` and ``flips``; empty for a table."""
+        import pandas as pd
+
+        cols = ["source_id", "n", "term", "shift_se", "p", "flips", "note"]
+        rows = [{c: r.get(c) for c in cols} for r in self.leave_one_source_out or []]
+        return pd.DataFrame(rows, columns=cols)
 
     def summary(self, top: int = 5) -> str:
         """Plain-text account for people."""
@@ -1151,12 +1166,16 @@ def multiple_sensitivity(
     from comparo.base.arguments import check_kind, check_level
     from comparo.fitting.multiple import multiple_fit
     from comparo.validation.dataset import Dataset
+    from comparo.validation.tables import require_dataset
 
+    if isinstance(dataset_or_table, str | os.PathLike):  # a dataset folder
+        dataset_or_table = require_dataset(dataset_or_table, "dataset_or_table")
     check_kind(
         dataset_or_table,
         (Dataset, pd.DataFrame),
         "dataset_or_table",
-        "a Dataset (comparo.load(FOLDER)) or a per-taxon DataFrame (comparo.per_taxon)",
+        "a Dataset (comparo.load(FOLDER)), a dataset folder or a per-taxon DataFrame "
+        "(comparo.tabulate)",
     )
     ci = check_level(ci)
     predictors = list(predictors)

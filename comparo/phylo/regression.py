@@ -44,7 +44,7 @@ def _se_on_scale(u: np.ndarray, v: np.ndarray, log: str) -> np.ndarray:
     return u
 
 
-def phylo_fit(
+def pgls(
     table: pd.DataFrame,
     x: str,
     y: str,
@@ -60,7 +60,9 @@ def phylo_fit(
     tip_se: str | bool | Mapping[str, float] | None = None,
     by: str | None = None,
 ) -> dict:
-    """Phylogenetic generalised least squares of y on x with Pagel's lambda.
+    """Phylogenetic generalised least squares of y on x with Pagel's lambda: the engine
+    behind ``comparo.fit(..., method="pgls")``, which turns this record into a
+    :class:`comparo.FitResult` (use that; this is for the fitting room and the reference tests).
 
     Model: Y = alpha + beta·X + e, e ~ N(0, V), V = sigma²·C(lambda) [+ diag(se²)],
     with X, Y the (log) values, C the BM covariance of the tree pruned to the
@@ -154,6 +156,16 @@ def phylo_fit(
         groups, group_tests = _group_fit(
             ft, X1, Y, [groups_of[i] for i in keep], lambda_, se2, reml, ci
         )
+    return _record(x, y, log, n, line, extras, groups, group_tests, excluded, reml, lf) | {
+        "measurement_error": me_info,
+        "tips_pruned": pruned,
+        "taxa_without_tips": list(match.taxa_without_tips),
+    }
+
+
+def _record(x, y, log, n, line, extras, groups, group_tests, excluded, reml, lf) -> dict:
+    """The record of :func:`pgls` (the ``fit --format json`` keys and the PGLS extras), in
+    the order of docs/cli.md; :func:`pgls` adds the measurement error and the tip lists."""
     return {
         "method": "pgls",
         "x": x,
@@ -172,10 +184,24 @@ def phylo_fit(
         "r2_kind": "generalised: 1 - RSS/RSS_null under the fitted phylogenetic covariance",
         "lambda_tests": _lambda_tests(lf),
         "group_tests": group_tests,
-        "measurement_error": me_info,
-        "tips_pruned": pruned,
-        "taxa_without_tips": list(match.taxa_without_tips),
     }
+
+
+def phylo_fit(table: pd.DataFrame, x: str, y: str, **options: Any) -> dict:
+    """Deprecated name of :func:`pgls` (the same record, with a :class:`DeprecationWarning`).
+
+    The public fit is ``comparo.fit(table, x, y, method="pgls", tree=...)``, a
+    :class:`comparo.FitResult`; ``comparo.phylo_fit`` is that same fit.
+    """
+    import warnings
+
+    warnings.warn(
+        "comparo.phylo.phylo_fit is deprecated: use comparo.fit(table, x, y, method='pgls', "
+        "tree=...) for the FitResult, or comparo.phylo.pgls for this record",
+        DeprecationWarning,
+        stacklevel=2,
+    )
+    return pgls(table, x, y, **options)
 
 
 def _pruned_tree(topo, keep: list[int], tips: list[str]):

@@ -179,8 +179,9 @@ def build_report(
     from comparo.base.arguments import check_count, check_path, check_seed
     from comparo.base.errors import UsageError
     from comparo.base.outputs import protecting, resolve_output
+    from comparo.validation.tables import folder_of
 
-    folder, out = check_path(folder, "folder"), check_path(out_dir, "out_dir")
+    folder, out = check_path(folder_of(folder), "folder"), check_path(out_dir, "out_dir")
     seed = check_seed(seed, "seed")
     sensitivity_draws = check_count(sensitivity_draws, "sensitivity_draws")
     old = None
