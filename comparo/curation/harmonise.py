@@ -1126,7 +1126,7 @@ def per_taxon(
     """
     from comparo.validation.tables import require_dataset
 
-    require_dataset(ds)
+    ds = require_dataset(ds)
     how = aggregate or ds.settings.get("aggregate", "mean")
     if how not in ("mean", "median"):
         from comparo.base.errors import UsageError

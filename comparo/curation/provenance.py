@@ -220,7 +220,7 @@ def audit(
     """
     from comparo.validation.tables import require_dataset
 
-    require_dataset(ds)
+    ds = require_dataset(ds)
     h = harmonised or harmonise(ds, temperature=temperature)
     rows = h.rows
     used = rows[rows["status"] == "used"]

@@ -801,7 +801,7 @@ def cycles(ds, *, temperature: bool = True, drift_removal: bool = True) -> Trace
     from comparo.curation.harmonise import harmonise
     from comparo.validation.tables import require_dataset
 
-    require_dataset(ds)
+    ds = require_dataset(ds)
     ts = read_traces(ds)
     if not ts.ok:
         raise InputError([p for p in ts.problems if p.severity == "error"])
