@@ -323,7 +323,8 @@ class FitResult(Result):
         return frame
 
     def _repr_html_(self) -> str:
-        """Compact table for notebooks: the estimates of :meth:`to_frame`, the slope test and the flags."""
+        """Compact table for notebooks: the estimates of :meth:`to_frame`, the slope test and
+        the flags."""
         from comparo.base.display import frame_html
 
         scale = {"10": "log10", "e": "ln", "none": "untransformed"}[self.log]
@@ -333,7 +334,10 @@ class FitResult(Result):
             notes += [line.strip() for line in _group_comparison_lines(self.group_tests)]
         notes.append(f"flags: {len(self.outliers)}; excluded rows: {len(self.excluded)}")
         notes += list(self.notes)
-        title = f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}, CI {100 * self.ci_level:g}%"
+        title = (
+            f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}, "
+            f"CI {100 * self.ci_level:g}%"
+        )
         return frame_html(title, self.to_frame().drop(columns=["method"]), notes)
 
     def plot(
@@ -399,21 +403,21 @@ class FitResult(Result):
             f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}",
             *(
                 [
-                    "  the groups differ in slope: the line below pools all taxa and is the exponent of "
-                    "no group"
+                    "  the groups differ in slope: the line below pools all taxa and is the "
+                    "exponent of no group"
                 ]
                 if differ
                 else []
             ),
             *[f"  CAUTION: {line}" for line in caution_lines(self.cautions)],
-            f"  slope      {_f(self.slope)}   {pct} CI {_f(self.slope_ci[0])} .. {_f(self.slope_ci[1])}",
-            f"  intercept  {_f(self.intercept)}   {pct} CI {_f(self.intercept_ci[0])} .. {_f(self.intercept_ci[1])}",
+            f"  slope      {_f(self.slope)}   {pct} CI {_span(self.slope_ci)}",
+            f"  intercept  {_f(self.intercept)}   {pct} CI {_span(self.intercept_ci)}",
             f"  r2         {_f(self.r2)}",
         ]
         if self.lambda_ is not None:
             lam_ci = self.lambda_ci or (_NAN, _NAN)
             lines.append(
-                f"  lambda     {_f(self.lambda_)}   CI {_f(lam_ci[0])} .. {_f(lam_ci[1])}   loglik {_f(self.loglik)}"
+                f"  lambda     {_f(self.lambda_)}   CI {_span(lam_ci)}   loglik {_f(self.loglik)}"
             )
         if self.against:
             lines.append(f"  {_against_text(self.against)}")
@@ -422,24 +426,24 @@ class FitResult(Result):
             lines.append(f"  bootstrap ({b['resamples']} resamples, seed {b['seed']}):")
             for term in ("slope", "intercept"):
                 per, bca = b[term]["percentile"], b[term]["bca"]
-                lines.append(
-                    f"    {term:<9}  percentile {_f(per[0])} .. {_f(per[1])}   BCa {_f(bca[0])} .. {_f(bca[1])}"
-                )
+                lines.append(f"    {term:<9}  percentile {_span(per)}   BCa {_span(bca)}")
         if self.groups:
             lines.append("  groups:")
             for g in self.groups:
                 lo, hi = g.get("slope_ci") or (_NAN, _NAN)
                 lines.append(
-                    f"    {str(g['group']):<16} n {g['n']:>4}  slope {_f(g.get('slope'))}  CI {_f(lo)} .. {_f(hi)}"
+                    f"    {str(g['group']):<16} n {g['n']:>4}  slope {_f(g.get('slope'))}  "
+                    f"CI {_span((lo, hi))}"
                 )
         if self.group_tests:
             lines += _group_comparison_lines(self.group_tests)
         if self.breakpoint:
             bp = self.breakpoint
             lines.append(
-                f"  breakpoint at x = {_f(bp['x'])} (CI {_f(bp['x_ci'][0])} .. {_f(bp['x_ci'][1])}) of the least-squares "
+                f"  breakpoint at x = {_f(bp['x'])} (CI {_span(bp['x_ci'])}) of the least-squares "
                 f"broken line{'' if self.method == 'ols' else f' (not {self.method.upper()})'}; "
-                f"slopes {_f(bp['slope_left'])} | {_f(bp['slope_right'])}; single line? p = {_p(bp['p_single_line'])}"
+                f"slopes {_f(bp['slope_left'])} | {_f(bp['slope_right'])}; "
+                f"single line? p = {_p(bp['p_single_line'])}"
             )
         if self.outliers:
             lines.append("  flags:")
@@ -498,7 +502,8 @@ class FlaggedRefit:
     note: str | None = None
 
     def to_dict(self) -> dict:
-        """``{"rules", "dropped", "n_dropped", "slope_change", "fit", "note"}``; ``fit`` is a fit object."""
+        """``{"rules", "dropped", "n_dropped", "slope_change", "fit", "note"}``; ``fit`` is a fit
+        object."""
         return {
             "rules": list(self.rules),
             "dropped": _json([dict(d) for d in self.dropped]),
@@ -509,7 +514,8 @@ class FlaggedRefit:
         }
 
     def frame_rows(self) -> list[dict]:
-        """Rows for :meth:`FitResult.to_frame`: the refit's estimates, then one row per dropped point."""
+        """Rows for :meth:`FitResult.to_frame`: the refit's estimates, then one row per dropped
+        point."""
         rows = []
         r = self.fit
         if r is not None:
@@ -556,17 +562,17 @@ class FlaggedRefit:
                 if original is not None
                 else ""
             )
+            lines.append(f"    n = {r.n}  slope {_f(r.slope)}   {pct} CI {_span(r.slope_ci)}{was}")
             lines.append(
-                f"    n = {r.n}  slope {_f(r.slope)}   {pct} CI {_f(r.slope_ci[0])} .. {_f(r.slope_ci[1])}{was}"
-            )
-            lines.append(
-                f"    intercept {_f(r.intercept)}   {pct} CI {_f(r.intercept_ci[0])} .. {_f(r.intercept_ci[1])}   r2 {_f(r.r2)}"
+                f"    intercept {_f(r.intercept)}   {pct} CI {_span(r.intercept_ci)}   "
+                f"r2 {_f(r.r2)}"
             )
             if r.against:
                 lines.append(f"    {_against_text(r.against)}")
             if r.outliers:
                 lines.append(
-                    f"    flags of the refit (not dropped): {', '.join(dict.fromkeys(o['label'] for o in r.outliers))}"
+                    "    flags of the refit (not dropped): "
+                    + ", ".join(dict.fromkeys(o["label"] for o in r.outliers))
                 )
         if self.note:
             lines.append(f"    note: {self.note}")
@@ -582,8 +588,14 @@ GROUP_QUESTIONS = {
 }
 
 
+def _span(pair) -> str:
+    """An interval as summaries print it: ``lo .. hi``."""
+    return f"{_f(pair[0])} .. {_f(pair[1])}"
+
+
 def _against_text(t: dict) -> str:
-    """``slope = 1?  t = 2.31 (df 10), p = 0.04`` or ``F(1, 10) = ...`` (the statistic named as the test is)."""
+    """``slope = 1?  t = 2.31 (df 10), p = 0.04`` or ``F(1, 10) = ...`` (the statistic named as
+    the test is)."""
     name = t.get("test") or "statistic"
     df = t.get("df")
     if name.startswith("F(") and isinstance(df, list | tuple) and len(df) == 2:

@@ -141,7 +141,8 @@ def pgls(
     if n < need:
         raise UsageError(
             f"PGLS needs at least {need} taxa with x, y and a tip in the tree; {n} remain "
-            f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in all)"
+            f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in "
+            "all)"
         )
     ft, keep, pruned = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     keep_labels = [labels[i] for i in keep]
@@ -353,7 +354,8 @@ def _measurement_error(
     se_col: str | None,
     se_map: Mapping[str, float] | None,
 ) -> tuple[np.ndarray | None, dict | None]:
-    """Tip variances on the fitted scale (se²) and their account, or (None, None) without tip errors."""
+    """Tip variances on the fitted scale (se²) and their account, or (None, None) without tip
+    errors."""
     if se_col is None and se_map is None:
         return None, None
     if se_col is not None:
@@ -396,7 +398,8 @@ def _lambda_tests(lf) -> dict | None:
         "search_interval": [0.0, lf.top],
         "note": None
         if lf.top == 1.0
-        else "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is evaluated there",
+        else "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is "
+        "evaluated there",
     }
 
 
@@ -483,6 +486,7 @@ def _group_fit(
         "lambda": _f(lam),
         "lambda_ci": None if lf.ci is None else [_f(lf.ci[0]), _f(lf.ci[1])],
         "loglik": _f(lf.loglik),
-        "note": "F tests at the lambda of the interaction model (separate slopes and intercepts per group)",
+        "note": "F tests at the lambda of the interaction model (separate slopes and intercepts "
+        "per group)",
     }
     return rows, tests
