@@ -24,16 +24,6 @@ DOCS = Path(__file__).resolve().parents[1] / "docs" / "api.md"
 
 
 @pytest.fixture(scope="module")
-def ds():
-    return comparo.load(DEMO)
-
-
-@pytest.fixture(scope="module")
-def table(ds):
-    return comparo.tabulate(ds)
-
-
-@pytest.fixture(scope="module")
 def values():
     """Four tips, the worked example's values of tests/test_phylo.py."""
     return "((A:1,B:1):1,(C:1.5,D:0.5):0.5);", {"A": 0.0, "B": 1.0, "C": 2.0, "D": 3.5}
@@ -82,8 +72,8 @@ def test_the_functions_are_verbs_and_the_results_nouns():
     ],
     ids=["tabulate", "audit", "cycles", "check", "assess_sensitivity"],
 )
-def test_a_folder_and_a_dataset_give_the_same_answer(call, ds):
-    by_folder, by_dataset = call(DEMO), call(ds)
+def test_a_folder_and_a_dataset_give_the_same_answer(call, demo_dataset):
+    by_folder, by_dataset = call(DEMO), call(demo_dataset)
     if isinstance(by_folder, pd.DataFrame):
         pd.testing.assert_frame_equal(by_folder, by_dataset)
     else:
@@ -109,10 +99,11 @@ def test_a_folder_that_does_not_pass_is_an_input_error(tmp_path):
         ("tree_signal", "measure_signal", lambda f, ds, t, v: f(*v, permutations=9).to_dict()),
     ],
 )
-def test_an_old_name_warns_and_answers_as_the_new(old, new, call, ds, table, values):
+def test_an_old_name_warns_and_answers_as_the_new(old, new, call, demo_dataset, demo_table, values):
+    args = demo_dataset, demo_table, values
     with pytest.warns(DeprecationWarning, match=f"comparo.{old} is renamed comparo.{new}"):
-        got = call(getattr(comparo, old), ds, table, values)
-    want = call(getattr(comparo, new), ds, table, values)
+        got = call(getattr(comparo, old), *args)
+    want = call(getattr(comparo, new), *args)
     if isinstance(want, pd.DataFrame):
         pd.testing.assert_frame_equal(got, want)
     else:
@@ -120,7 +111,8 @@ def test_an_old_name_warns_and_answers_as_the_new(old, new, call, ds, table, val
     assert getattr(comparo, old).__name__ == old
 
 
-def test_phylo_fit_is_fit_pgls_with_a_warning(table):
+def test_phylo_fit_is_fit_pgls_with_a_warning(demo_table):
+    table = demo_table
     with pytest.warns(DeprecationWarning, match=r"fit\(table, x, y, method='pgls'"):
         old = comparo.phylo_fit(table, X, Y, tree=TREE, against=-0.25)
     new = comparo.fit(table, X, Y, "pgls", tree=TREE, against=-0.25)
@@ -128,8 +120,9 @@ def test_phylo_fit_is_fit_pgls_with_a_warning(table):
     assert old.to_dict() == new.to_dict()
 
 
-def test_the_old_keys_still_read_with_a_warning_naming_the_attribute(table):
+def test_the_old_keys_still_read_with_a_warning_naming_the_attribute(demo_table):
     """Every key of the dict phylo_fit returned (comparo.phylo.pgls) reads as before."""
+    table = demo_table
     record = phylo.pgls(table, X, Y, tree=TREE, lambda_=0.8, tip_se=True)
     r = comparo.fit(table, X, Y, "pgls", tree=TREE, lambda_=0.8, tip_se=True)
     assert len(record) == 32

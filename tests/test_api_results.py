@@ -22,22 +22,12 @@ X, Y = "body_mass", "frequency_observed"
 
 
 @pytest.fixture(scope="module")
-def ds():
-    return comparo.load(DEMO)
-
-
-@pytest.fixture(scope="module")
-def table(ds):
-    return comparo.tabulate(ds)
-
-
-@pytest.fixture(scope="module")
-def values(table):
+def values(demo_dataset, demo_table):
     """log body mass per tree tip (the demo's taxa.csv tree labels)."""
     import numpy as np
 
-    labels = comparo.load(DEMO).taxa.set_index("taxon")["tree_label"]
-    t = table.dropna(subset=[X])
+    labels = demo_dataset.taxa.set_index("taxon")["tree_label"]
+    t = demo_table.dropna(subset=[X])
     return {labels[n]: float(np.log10(v)) for n, v in zip(t["taxon"], t[X], strict=True)}
 
 
@@ -95,8 +85,8 @@ def _check_protocol(result) -> None:
 
 
 @pytest.mark.parametrize("kind", sorted(MAKERS))
-def test_every_public_result_follows_the_protocol(kind, ds, table, values, tmp_path):
-    result = MAKERS[kind](ds, table, values, tmp_path)
+def test_every_public_result_follows_the_protocol(kind, demo_dataset, demo_table, values, tmp_path):
+    result = MAKERS[kind](demo_dataset, demo_table, values, tmp_path)
     assert type(result).__name__ == kind.split("-")[0]
     _check_protocol(result)
 
