@@ -218,9 +218,9 @@ def audit(
     Load with ``comparo.load(folder, strict=False)`` to audit a table that still
     has errors: rows with errors are then listed as excluded with their rule.
     """
-    from comparo.validation.tables import require_dataset
+    from comparo.validation.dataset import as_dataset
 
-    ds = require_dataset(ds)
+    ds = as_dataset(ds)
     h = harmonised or harmonise(ds, temperature=temperature)
     rows = h.rows
     used = rows[rows["status"] == "used"]

@@ -710,11 +710,10 @@ def sensitivity(
     import pandas as pd
 
     from comparo.base.arguments import check_count, check_draws, check_kind, check_level, check_seed
-    from comparo.validation.dataset import Dataset
-    from comparo.validation.tables import require_dataset
+    from comparo.validation.dataset import Dataset, as_dataset
 
     if isinstance(dataset_or_table, str | os.PathLike):  # a dataset folder
-        dataset_or_table = require_dataset(dataset_or_table, "dataset_or_table")
+        dataset_or_table = as_dataset(dataset_or_table, "dataset_or_table")
     check_kind(
         dataset_or_table,
         (Dataset, pd.DataFrame),
@@ -1165,11 +1164,10 @@ def multiple_sensitivity(
 
     from comparo.base.arguments import check_kind, check_level
     from comparo.fitting.multiple import multiple_fit
-    from comparo.validation.dataset import Dataset
-    from comparo.validation.tables import require_dataset
+    from comparo.validation.dataset import Dataset, as_dataset
 
     if isinstance(dataset_or_table, str | os.PathLike):  # a dataset folder
-        dataset_or_table = require_dataset(dataset_or_table, "dataset_or_table")
+        dataset_or_table = as_dataset(dataset_or_table, "dataset_or_table")
     check_kind(
         dataset_or_table,
         (Dataset, pd.DataFrame),

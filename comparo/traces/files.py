@@ -799,9 +799,9 @@ def cycles(ds, *, temperature: bool = True, drift_removal: bool = True) -> Trace
         When traces.csv or a trace file has an error.
     """
     from comparo.curation.harmonise import harmonise
-    from comparo.validation.tables import require_dataset
+    from comparo.validation.dataset import as_dataset
 
-    ds = require_dataset(ds)
+    ds = as_dataset(ds)
     ts = read_traces(ds)
     if not ts.ok:
         raise InputError([p for p in ts.problems if p.severity == "error"])

@@ -7,13 +7,15 @@ and validation (:mod:`comparo.validation.tables`, which imports reading and buil
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
+from typing import Any
 
 from comparo.base.errors import InputError, problems_frame
 from comparo.reading.tables import read_folder
-from comparo.validation.tables import CheckResult, Dataset, check, validate
+from comparo.validation.tables import CheckResult, Dataset, check, require_dataset, validate
 
-__all__ = ["CheckResult", "Dataset", "check", "load"]
+__all__ = ["CheckResult", "Dataset", "as_dataset", "check", "load"]
 
 
 def load(folder: str | Path, *, strict: bool = True) -> Dataset:
@@ -41,3 +43,12 @@ def load(folder: str | Path, *, strict: bool = True) -> Dataset:
         raise InputError(frame)
     ds.problems = frame
     return ds
+
+
+def as_dataset(ds: Any, name: str = "ds") -> Dataset:
+    """*ds* when it is a :class:`Dataset`; a dataset folder (text or path) read with
+    :func:`load`; else a UsageError saying what is accepted. The functions that take a dataset
+    first take either (docs/api.md)."""
+    if isinstance(ds, str | os.PathLike):
+        return load(ds)
+    return require_dataset(ds, name)

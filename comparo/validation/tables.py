@@ -1307,16 +1307,10 @@ class CheckResult(Result):
 
 
 def require_dataset(ds: Any, name: str = "ds") -> Dataset:
-    """*ds* when it is a :class:`Dataset`; a dataset folder (text or path) is read and validated
-    as ``comparo.load`` does; else a UsageError saying what is accepted (docs/api.md)."""
-    from os import PathLike
-
+    """*ds* when it is a :class:`Dataset`; else a UsageError saying what is accepted
+    (:func:`comparo.validation.dataset.as_dataset` also reads a folder)."""
     from comparo.base.arguments import check_kind
 
-    if isinstance(ds, str | PathLike):
-        from comparo.validation.dataset import load  # same room: builds on this module
-
-        return load(ds)
     return check_kind(
         ds, Dataset, name, "a Dataset or a dataset folder, such as comparo.load(FOLDER) reads"
     )
