@@ -15,7 +15,10 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "demo_tables" / "synthetic_cyclers"
 
-OBS_HEADER = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,inputs,proxy_taxon,temperature_c"
+OBS_HEADER = (
+    "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,"
+    "basis,inputs,proxy_taxon,temperature_c"
+)
 VALID_ROWS = [
     "o1,Apis mellifera,body_mass,100,mg,,,,s1,Table 1,reported,,,",
     "o2,Apis mellifera,fiber_radius,12,um,1,sd,10,s1,Table 2,reported,,,",
@@ -24,7 +27,10 @@ VALID_ROWS = [
     "o5,Bombus terrestris,attach_rate,120,1/s,,,,s2,p. 4,reported,,,25",
     "o6,Bombus terrestris,kinetic_time,5,ms,,,,s2,p. 4,computed,o5,,25",
 ]
-SOURCES = "source_id,citation,year,doi\ns1,Invented A. (2001) Test source one,2001,10.1000/abc\ns2,Invented B. (2002) Test source two,2002,\n"
+SOURCES = (
+    "source_id,citation,year,doi\ns1,Invented A. (2001) Test source one,2001,10.1000/abc\n"
+    "s2,Invented B. (2002) Test source two,2002,\n"
+)
 
 
 def demo_taxa() -> int:

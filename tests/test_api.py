@@ -16,8 +16,8 @@ def test_every_public_name_resolves():
 
 
 def test_no_module_shares_a_public_function_name():
-    """``comparo.fit(...)`` as README.md and docs/notebook.md write it: no module of the API layer is named like
-    a public function, so importing every module cannot turn a function into a module.
+    """``comparo.fit(...)`` as README.md and docs/notebook.md write it: no module of the API layer
+    is named like a public function, so importing every module cannot turn a function into a module.
     (comparo.cli.commands holds one module per CLI verb, reached only by its full name.)"""
     import pkgutil
 
@@ -38,13 +38,17 @@ def test_no_module_shares_a_public_function_name():
 
 
 def test_fresh_interpreter_submodule_first():
-    """In a new process, importing the defining packages first still leaves the functions on the package."""
+    """In a new process, importing the defining packages first still leaves the functions on the
+    package."""
     code = (
-        "import comparo.report, comparo.fitting, comparo.derivation, comparo.fitting.source_sensitivity\n"
+        "import comparo.report, comparo.fitting, comparo.derivation, "
+        "comparo.fitting.source_sensitivity\n"
         "import comparo, types\n"
-        "bad = [n for n in ('fit', 'derive', 'sensitivity') if isinstance(getattr(comparo, n), types.ModuleType)]\n"
+        "bad = [n for n in ('fit', 'derive', 'sensitivity') if isinstance(getattr(comparo, n), "
+        "types.ModuleType)]\n"
         "assert not bad, bad\n"
-        "assert comparo.fit is comparo.fitting.fit and comparo.derive is comparo.derivation.derive\n"
+        "assert comparo.fit is comparo.fitting.fit and comparo.derive is "
+        "comparo.derivation.derive\n"
         "assert comparo.assess_sensitivity is comparo.fitting.source_sensitivity.sensitivity\n"
     )
     subprocess.run([sys.executable, "-c", code], check=True)

@@ -16,6 +16,7 @@ from support import DEMO
 
 import comparo
 from comparo.base.results import Result, ResultLike
+from comparo.fitting.multiple_sensitivity import multiple_sensitivity
 
 TREE = str(DEMO / "tree.nwk")
 X, Y = "body_mass", "frequency_observed"
@@ -48,9 +49,7 @@ MAKERS = {
     "MultipleFit": lambda ds, t, v, tmp: comparo.fit_multiple(t, Y, [X], factor="clade"),
     "Comparison": lambda ds, t, v, tmp: comparo.compare(t, Y, [X, [X, "fiber_radius"]]),
     "SensitivityResult": lambda ds, t, v, tmp: comparo.assess_sensitivity(ds, X, Y, "ols", mc=20),
-    "MultipleSensitivity": lambda ds, t, v, tmp: (
-        __import__("comparo.fitting.source_sensitivity").fitting.source_sensitivity
-    ).multiple_sensitivity(ds, Y, [X, "fiber_radius"]),
+    "MultipleSensitivity": lambda ds, t, v, tmp: multiple_sensitivity(ds, Y, [X, "fiber_radius"]),
     "Contrasts": lambda ds, t, v, tmp: comparo.contrast(TREE, v),
     "SignalResult": lambda ds, t, v, tmp: comparo.measure_signal(TREE, v, permutations=19),
     "TraceSet": lambda ds, t, v, tmp: comparo.cycles(ds),

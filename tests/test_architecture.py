@@ -124,7 +124,8 @@ def test_only_the_cli_reaches_the_commands():
 
 
 def test_the_command_line_starts_without_heavy_libraries():
-    """``comparo --help`` stays fast: importing the package and the CLI loads no numerical library."""
+    """``comparo --help`` stays fast: importing the package and the CLI loads no numerical
+    library."""
     heavy = ("numpy", "pandas", "scipy", "matplotlib", "statsmodels", "dendropy", "pint")
     code = (
         "import sys, comparo, comparo.cli\n"

@@ -34,7 +34,8 @@ DRIVER = next(
 pytestmark = [
     pytest.mark.skipif(
         CHROMIUM is None or DRIVER is None,
-        reason=f"headless browser check needs /usr/bin/chromium and /usr/bin/chromedriver (Debian packages chromium, "
+        reason="headless browser check needs /usr/bin/chromium and /usr/bin/chromedriver (Debian "
+        "packages chromium, "
         f"chromium-driver); found chromium={CHROMIUM}, chromedriver={DRIVER}",
     ),
 ]
@@ -108,7 +109,8 @@ def test_demo_report_renders_without_console_error_and_every_figure_has_a_size(b
 
 
 def test_the_check_sees_a_broken_figure_and_a_script_error(browser, report, tmp_path):
-    """The same checks fail on a copy with one image corrupted and a failing script (so they can fail)."""
+    """The same checks fail on a copy with one image corrupted and a failing script (so they can
+    fail)."""
     text = report.read_text(encoding="utf-8")
     bad = re.sub(
         r'src="data:image/png;base64,[^"]{0,12}',

@@ -213,7 +213,8 @@ def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
 
 @pytest.fixture
 def outlier_csv(tmp_path):
-    """Invented: 30 points on freq = 10 mass^-0.3 (sd 0.03 in log10), two planted 10-fold outliers (seed 21)."""
+    """Invented: 30 points on freq = 10 mass^-0.3 (sd 0.03 in log10), two planted 10-fold outliers
+    (seed 21)."""
     rng = np.random.default_rng(21)
     lx = rng.uniform(-1, 3, 30)
     ly = 1.0 - 0.3 * lx + rng.normal(0, 0.03, 30)
@@ -351,7 +352,8 @@ def test_against_names_its_statistic(csv, capsys, method, test, df):
 
 
 def test_old_test_slope_flag_still_works_with_a_note(csv, capsys):
-    """The old flag gives the same numbers, says on stderr that it was renamed, and is not in --help."""
+    """The old flag gives the same numbers, says on stderr that it was renamed, and is not in
+    --help."""
     args = ["fit", str(csv), "--x", "mass", "--y", "freq", "--method", "sma", "--format", "json"]
     assert main(args + ["--against", "-0.3"]) == 0
     new = json.loads(capsys.readouterr().out)

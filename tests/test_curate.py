@@ -15,7 +15,10 @@ import comparo
 from comparo.curation.harmonise import harmonise, per_taxon
 from comparo.curation.provenance import audit
 
-HDR = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,inputs,proxy_taxon,temperature_c"
+HDR = (
+    "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,"
+    "inputs,proxy_taxon,temperature_c"
+)
 
 
 def _ds(tmp_path, rows, taxa=None, settings_text=None):
@@ -28,7 +31,8 @@ def _ds(tmp_path, rows, taxa=None, settings_text=None):
 
 
 def test_inverse_variance_mean_and_uncertainty(tmp_path):
-    """Weighted mean sum(v/u^2)/sum(1/u^2) and u = 1/sqrt(sum 1/u^2) (numpy as the independent route)."""
+    """Weighted mean sum(v/u^2)/sum(1/u^2) and u = 1/sqrt(sum 1/u^2) (numpy as the independent
+    route)."""
     rows = [
         "a,Apis mellifera,fiber_radius,10,um,1,se,,s1,T1,reported,,,",
         "b,Apis mellifera,fiber_radius,11,um,2,se,,s2,T2,reported,,,",
@@ -83,9 +87,10 @@ def test_temperature_normalised_or_left_alone(tmp_path):
 
 
 def test_q10_and_activation_energy_used_are_recorded_per_row_and_per_quantity(tmp_path):
-    """Each normalised row records the Q10 or activation energy applied; the factors equal the textbook forms
-    Q10^((T_ref - T)/10) and exp(-Ea/R (1/T_ref - 1/T)) with T in kelvin and R = 8.314462618 J/(mol K)
-    (CODATA 2018 molar gas constant), written here independently; temperature_rules groups them per quantity."""
+    """Each normalised row records the Q10 or activation energy applied; the factors equal the
+    textbook forms Q10^((T_ref - T)/10) and exp(-Ea/R (1/T_ref - 1/T)) with T in kelvin and R =
+    8.314462618 J/(mol K) (CODATA 2018 molar gas constant), written here independently;
+    temperature_rules groups them per quantity."""
     from comparo.curation.provenance import lineage, temperature_rules
 
     rows = [

@@ -286,7 +286,8 @@ def test_demo_traces_recover_their_generating_loops():
     and 0.5% (clockwise) around the isochoric curve, which encloses no area, so the signed areas
     are +pi 0.03 0.002 and -pi 0.03 0.005; work loops with force lagging length by the phase
     in their notes. Independent route for the work: a least-squares sinusoid fitted here to
-    the raw file at comparo's frequency gives the amplitudes and the lag, and W = pi dL dF sin(phi)."""
+    the raw file at comparo's frequency gives the amplitudes and the lag, and W = pi dL dF
+    sin(phi)."""
     import math
     import re
 

@@ -1,5 +1,5 @@
-"""Behaviour of comparo.derivation (comparo.derive) and ``comparo derive``: why a value is missing, lineage,
-inputs untouched, clear errors for bad settings and ratio expressions (never
+"""Behaviour of comparo.derivation (comparo.derive) and ``comparo derive``: why a value is missing,
+lineage, inputs untouched, clear errors for bad settings and ratio expressions (never
 evaluated as code), seeded Monte Carlo, and the CSV the command writes.
 
 Reference checks (IAPWS, GUM, permeability models, pint dimensions) live in

@@ -1,4 +1,5 @@
-"""Behaviour of comparo.fitting.flags: planted outliers, rule bookkeeping, robust and LTS evidence."""
+"""Behaviour of comparo.fitting.flags: planted outliers, rule bookkeeping, robust and LTS
+evidence."""
 
 from __future__ import annotations
 
@@ -20,9 +21,9 @@ def _planted(seed: int, n: int = 100):
 
 
 def test_planted_outliers_are_flagged_and_few_clean_points_are():
-    """Common practice check: 20 seeded data sets (default_rng(100 + k)) of 100 points with 3 planted vertical
-    outliers (10-15 residual sd): every planted point is flagged by the Bonferroni rule, and at most 5% of the
-    clean points across all sets are flagged as outliers."""
+    """Common practice check: 20 seeded data sets (default_rng(100 + k)) of 100 points with 3
+    planted vertical outliers (10-15 residual sd): every planted point is flagged by the Bonferroni
+    rule, and at most 5% of the clean points across all sets are flagged as outliers."""
     clean_flagged = clean_total = 0
     for k in range(20):
         x, y, labels, planted = _planted(100 + k)
@@ -77,9 +78,9 @@ def test_weight_and_lts_rules():
 
 
 def test_drop_flagged_drops_planted_and_refit_is_closer_to_true_slope():
-    """Planted vertical outliers (as above; invented data, seed 5, true slope 0.75): the refit without the
-    points breaking a misfit rule drops exactly the planted points, lists each with its rule, moves the OLS
-    slope toward 0.75 and leaves the original fit untouched."""
+    """Planted vertical outliers (as above; invented data, seed 5, true slope 0.75): the refit
+    without the points breaking a misfit rule drops exactly the planted points, lists each with its
+    rule, moves the OLS slope toward 0.75 and leaves the original fit untouched."""
     rng = np.random.default_rng(5)
     n = 60
     x = rng.normal(0, 1, n)
@@ -153,9 +154,9 @@ def test_drop_rule_selection_and_clean_case():
 
 
 def test_drop_flagged_lts_exposes_and_drops_a_masked_cluster():
-    """A cluster of 5 bad leverage points (invented, seed 8) masks itself under OLS diagnostics; the LTS
-    residual rule flags it (Rousseeuw & Leroy 1987 describe this masking) and the LTS refit without it keeps
-    the slope of the clean points."""
+    """A cluster of 5 bad leverage points (invented, seed 8) masks itself under OLS diagnostics; the
+    LTS residual rule flags it (Rousseeuw & Leroy 1987 describe this masking) and the LTS refit
+    without it keeps the slope of the clean points."""
     rng = np.random.default_rng(8)
     x = np.r_[rng.uniform(0, 2, 35), rng.normal(4, 0.05, 5)]
     y = np.r_[1 + 0.5 * x[:35] + rng.normal(0, 0.05, 35), rng.normal(0.5, 0.05, 5)]
@@ -174,8 +175,8 @@ def test_drop_flagged_lts_exposes_and_drops_a_masked_cluster():
 
 
 def test_closed_form_influence_matches_statsmodels():
-    """The closed-form leverages, externally studentized residuals and Cook's distances equal statsmodels'
-    OLSInfluence (an independent library that refits without each point)."""
+    """The closed-form leverages, externally studentized residuals and Cook's distances equal
+    statsmodels' OLSInfluence (an independent library that refits without each point)."""
     from statsmodels.api import OLS, add_constant
     from statsmodels.stats.outliers_influence import OLSInfluence
 
@@ -189,15 +190,16 @@ def test_closed_form_influence_matches_statsmodels():
     assert cooks == pytest.approx(np.asarray(ref.cooks_distance[0]), rel=1e-9)
 
 
-# --------------------------------------------------------------------------- PGLS: whitened residuals
+# ------------------------------------------------------------------------- PGLS: whitened residuals
 
 
 def test_whitened_flags_equal_an_independent_gls_route():
-    """Flags of a PGLS fit use the regression whitened by C(lambda)^(-1/2). Independent route: the BM covariance
-    of a hand-drawn 7-tip tree written out by hand (C_ij = root-to-MRCA distance, Grafen 1989), Pagel's transform
-    lambda C + (1 - lambda) diag(C) (Pagel 1999), scipy.linalg.sqrtm for the inverse root, and statsmodels'
-    OLSInfluence on the whitened data (leverage, external studentized residual, Cook's distance); the whitened least
-    squares slope equals comparo's PGLS slope at the same fixed lambda (Aitken's theorem: GLS = OLS on whitened data)."""
+    """Flags of a PGLS fit use the regression whitened by C(lambda)^(-1/2). Independent route: the
+    BM covariance of a hand-drawn 7-tip tree written out by hand (C_ij = root-to-MRCA distance,
+    Grafen 1989), Pagel's transform lambda C + (1 - lambda) diag(C) (Pagel 1999), scipy.linalg.sqrtm
+    for the inverse root, and statsmodels' OLSInfluence on the whitened data (leverage, external
+    studentized residual, Cook's distance); the whitened least squares slope equals comparo's PGLS
+    slope at the same fixed lambda (Aitken's theorem: GLS = OLS on whitened data)."""
     from scipy.linalg import sqrtm
     from statsmodels.regression.linear_model import OLS
     from statsmodels.stats.outliers_influence import OLSInfluence
@@ -245,8 +247,9 @@ def test_whitened_flags_equal_an_independent_gls_route():
 
 
 def test_whitening_refuses_a_singular_covariance():
-    """Two tips with zero-length edges to the same parent have identical rows of C: at lambda = 1 the covariance
-    is singular and no whitened residual exists (a clear ValueError, not a wrong number)."""
+    """Two tips with zero-length edges to the same parent have identical rows of C: at lambda = 1
+    the covariance is singular and no whitened residual exists (a clear ValueError, not a wrong
+    number)."""
     from comparo.fitting.flags import phylo_whitener
     from comparo.phylo import flat_tree
 

@@ -12,7 +12,10 @@ from hostile_tools import changed_outside, snapshot
 from support import run_main, write_dataset
 
 WIDE = "Species,Body mass (g),Source\nApis mellifera,0.1,s1\nBombus terrestris,0.2,s1\n"
-WIDE_TAXA = "Species,Clade,Body mass (g),Source\nApis mellifera,bees,0.1,s1\nBombus terrestris,bees,0.2,s1\n"
+WIDE_TAXA = (
+    "Species,Clade,Body mass (g),Source\nApis mellifera,bees,0.1,s1\nBombus terrestris,"
+    "bees,0.2,s1\n"
+)
 UNCLEAR = "Species,Length (mm),Source\nApis mellifera,1.5,s1\n"  # fiber or sarcomere length?
 
 

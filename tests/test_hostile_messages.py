@@ -61,7 +61,10 @@ def _home_after(tmp_path, env_extra: dict[str, str]) -> list[str]:
         if k not in ("MPLCONFIGDIR", "XDG_CACHE_HOME", "XDG_CONFIG_HOME")
     }
     env.update(HOME=str(home), **env_extra)
-    code = "from comparo.report import figures as plots; plots._plt().figure(); import matplotlib; print(matplotlib.get_cachedir())"
+    code = (
+        "from comparo.report import figures as plots; plots._plt().figure(); import "
+        "matplotlib; print(matplotlib.get_cachedir())"
+    )
     proc = subprocess.run(
         [sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120
     )

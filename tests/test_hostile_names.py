@@ -94,7 +94,10 @@ def test_units_keys_and_ids_are_read_as_they_look(tmp_path):
 def test_free_text_keeps_its_characters(tmp_path):
     """Notes are not names: a joiner in text (as Indic scripts use it) is kept."""
     rows = _rows("Apis mellifera")
-    header = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,inputs,proxy_taxon,temperature_c,notes"
+    header = (
+        "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,"
+        "basis,inputs,proxy_taxon,temperature_c,notes"
+    )
     rows = [r + ("," + "\u0915\u094d\u200d\u0937" if i == 0 else ",") for i, r in enumerate(rows)]
     ds = write_dataset(tmp_path / "DS", rows, header=header)
     from comparo.validation.dataset import load
@@ -153,7 +156,10 @@ def test_a_tree_tip_with_an_invisible_character_still_matches_its_taxon(tmp_path
     ]
     ds = write_dataset(tmp_path / "DS", rows)
     (ds / "tree.nwk").write_text(
-        "((Apis_mellifera\u200b:1,Bombus\u200e_terrestris:1):1,(Vespa_crabro:1,Musca_domestica:1):1);",
+        (
+            "((Apis_mellifera\u200b:1,Bombus\u200e_terrestris:1):1,(Vespa_crabro:1,"
+            "Musca_domestica:1):1);"
+        ),
         encoding="utf-8",
     )
     before = snapshot(tmp_path)
@@ -161,7 +167,8 @@ def test_a_tree_tip_with_an_invisible_character_still_matches_its_taxon(tmp_path
     assert proc.returncode == 0, proc.stderr
     assert "taxon-without-tip" not in proc.stdout
     assert (
-        "tip label(s) 'Apis_mellifera\\u200b', 'Bombus\\u200e_terrestris' hold U+200B ZERO WIDTH SPACE, "
+        "tip label(s) 'Apis_mellifera\\u200b', 'Bombus\\u200e_terrestris' hold U+200B ZERO WIDTH "
+        "SPACE, "
         "U+200E LEFT-TO-RIGHT MARK" in proc.stdout
     )
     proc = run_main(

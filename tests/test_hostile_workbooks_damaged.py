@@ -180,7 +180,8 @@ def test_a_row_beyond_the_declared_dimension_is_not_dropped(tmp_path):
         lambda s: s.replace(
             "</sheetData>",
             '<row r="100000"><c r="A100000" t="inlineStr"><is><t>Apis cerana</t></is></c>'
-            '<c r="B100000" t="n"><v>0.07</v></c><c r="C100000" t="inlineStr"><is><t>S1</t></is></c></row></sheetData>',
+            '<c r="B100000" t="n"><v>0.07</v></c><c r="C100000" '
+            't="inlineStr"><is><t>S1</t></is></c></row></sheetData>',
         ),
     )
     proc = run_main("import", str(wide), "-o", str(tmp_path / "out"))

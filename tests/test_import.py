@@ -137,7 +137,8 @@ def expected_canonical() -> dict[tuple[str, str], float]:
         for h, (key, unit, factor) in cols.items():
             cell = r[HEADER.index(h)]
             if cell:
-                # radius = diameter / 2 (the catalogue's fiber_diameter rule); the rest: unit change only
+                # radius = diameter / 2 (the catalogue's fiber_diameter rule); the rest: unit change
+                # only
                 out[(r[0], key)] = (
                     factor * UREG.Quantity(float(cell), unit).to(CANONICAL[key]).magnitude
                 )

@@ -254,7 +254,7 @@ def test_a_header_without_a_decision_never_prints_an_empty_message(tmp_path, cap
     assert ":  [" not in err
 
 
-# ----------------------------------------------------------------------------- columns in the wrong unit
+# ------------------------------------------------------------------------ columns in the wrong unit
 
 
 def test_a_column_off_by_ten_to_the_third_is_one_message_with_the_likely_unit(

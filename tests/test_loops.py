@@ -83,8 +83,8 @@ def test_strain_loop_area_of_an_ellipse_with_offset_drift_and_noise():
 
 
 def test_drift_would_bias_the_area_without_its_removal():
-    # a radial drift adds a spurious area of drift rate x T x mean(axial) per cycle (Green's theorem);
-    # the fitted drift removal takes it out
+    # a radial drift adds a spurious area of drift rate x T x mean(axial) per cycle (Green's
+    # theorem); the fitted drift removal takes it out
     a, b, f = 0.02, 0.004, 10.0
     t = np.arange(0, 1.0, 1 / 4000)
     ea = 0.05 + a * np.cos(2 * math.pi * f * t)
@@ -109,8 +109,9 @@ def _sine_work_loop(f, dL, dF, phi, *, rate=5000.0, t_end=0.8, noise=0.0, drift=
 
 @pytest.mark.parametrize("phi", [0.3, 1.0, math.pi / 2, 2.5, -0.8, -math.pi / 2])
 def test_sinusoidal_work_loop_matches_pi_dl_df_sin_phi(phi):
-    # W = closed integral of F (-dL) = pi dL dF sin(phi) for sinusoids with force lagging length by phi
-    # (analytic; the work-loop technique, Josephson 1985): positive when force is high during shortening
+    # W = closed integral of F (-dL) = pi dL dF sin(phi) for sinusoids with force lagging length by
+    # phi (analytic; the work-loop technique, Josephson 1985): positive when force is high during
+    # shortening
     rng = np.random.default_rng(int(1000 * (phi + 4)))
     dL, dF, f = 0.4e-3, 0.12, 25.0
     t, L, F = _sine_work_loop(f, dL, dF, phi, noise=0.02, drift=1.0, rng=rng)
@@ -150,7 +151,8 @@ def test_cycles_start_at_one_phase_and_partial_cycles_are_dropped():
 
 
 def test_volume_strain_and_isochoric_curve():
-    # independent route: volume of a cylinder of length L0(1+e_a) and radius r0(1+e_r) over pi r0^2 L0
+    # independent route: volume of a cylinder of length L0(1+e_a) and radius r0(1+e_r) over pi r0^2
+    # L0
     ea, er = np.array([0.1, -0.05, 0.0]), np.array([-0.02, 0.03, 0.01])
     L0, r0 = 2.0, 0.3
     direct = (math.pi * (r0 * (1 + er)) ** 2 * (L0 * (1 + ea))) / (math.pi * r0**2 * L0) - 1
@@ -167,7 +169,8 @@ def test_isochoric_trace_has_no_volume_change_and_no_departure():
     res = loops.strain_loop(t, ea, er, detrend=False)
     assert res.volume_strain_amplitude.mean < 1e-12
     assert res.isochoric_departure.mean < 1e-12
-    # radial strain held at zero: e_v = e_a, amplitude 0.08; departure RMS = RMS of the isochoric curve
+    # radial strain held at zero: e_v = e_a, amplitude 0.08; departure RMS = RMS of the isochoric
+    # curve
     flat = loops.strain_loop(
         t, ea, np.zeros_like(ea) + 1e-9 * np.cos(2 * math.pi * 20 * t), detrend=False
     )

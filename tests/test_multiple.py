@@ -131,7 +131,8 @@ def test_python_api_answers_as_the_cli(csv, capsys):
 
 
 def test_derived_bounds_are_predictors_of_a_dataset_folder(capsys):
-    """frequency_kinetic_bound is not a per-taxon column: compare derives it as `comparo derive` does."""
+    """frequency_kinetic_bound is not a per-taxon column: compare derives it as `comparo derive`
+    does."""
     assert (
         main(
             [

@@ -19,7 +19,7 @@ from support import write_dataset
 
 from comparo.cli.main import main
 from comparo.fitting.multiple import multiple_fit
-from comparo.fitting.source_sensitivity import multiple_sensitivity
+from comparo.fitting.multiple_sensitivity import multiple_sensitivity
 from comparo.validation.dataset import load
 
 N_SRC = 5
@@ -45,7 +45,8 @@ def _compilation(folder, n_taxa: int = 30, seed: int = 3):
             f *= 10 ** (0.15 * lm)
         rows.append(f"m{i},{taxon},body_mass,{10**lm:.6g},g,,,,{sf},Table 1,reported,,,")
         rows.append(
-            f"r{i},{taxon},fiber_radius,{10**lr:.6g},um,,,,{'SRC4' if i == 0 else sf},Table 2,reported,,,"
+            f"r{i},{taxon},fiber_radius,{10**lr:.6g},um,,,,{'SRC4' if i == 0 else sf},Table 2,"
+            "reported,,,"
         )
         rows.append(f"f{i},{taxon},frequency_observed,{f:.6g},Hz,,,,{sf},Table 3,reported,,,25")
     write_dataset(folder, rows, sources="\n".join(srcs) + "\n")

@@ -44,15 +44,15 @@ def test_check_and_audit_explain_the_rows_computed_from_traces(demo_copy, capsys
     run("check", demo_copy)
     text = " ".join(capsys.readouterr().out.split())
     assert (
-        f"{table_rows} observation row(s) read, and {traces} computed from the traces of traces.csv ({table_rows + traces} rows in all"
-        in text
-    )
+        f"{table_rows} observation row(s) read, and {traces} computed from the traces of "
+        f"traces.csv ({table_rows + traces} rows in all"
+    ) in text
     run("audit", demo_copy)
     text = " ".join(capsys.readouterr().out.split())
     assert (
-        f"rows read {table_rows + traces} ({table_rows} from the observations table, {traces} computed from the traces"
-        in text
-    )
+        f"rows read {table_rows + traces} ({table_rows} from the observations table, {traces} "
+        "computed from the traces"
+    ) in text
 
 
 def test_units_lists_every_synonym_of_the_catalogue(capsys) -> None:

@@ -331,7 +331,6 @@ def test_accepts_dendropy_tree_with_taxa_and_checks_it():
 
 def test_cli_fit_pgls_bad_tree_exits_2(tmp_path, capsys):
     """Through the command line: a malformed tree is exit 2 with a message, no traceback."""
-    pytest.importorskip("comparo.cli.commands.fit")
     from comparo.cli.main import main
 
     nw, df = small_table()

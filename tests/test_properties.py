@@ -244,7 +244,8 @@ def scaling_data(draw):
 @settings(max_examples=30, deadline=None)
 @given(xy=scaling_data())
 def test_property_sma_swap_inverts_slope(xy):
-    """SMA slope of x on y is 1/(slope of y on x): sign(s_xy) sqrt(s_xx/s_yy) (Warton et al. 2006)."""
+    """SMA slope of x on y is 1/(slope of y on x): sign(s_xy) sqrt(s_xx/s_yy) (Warton et al.
+    2006)."""
     x, y = xy
     t = _table(x, y)
     b_xy = fit(t, "x", "y", method="sma").slope

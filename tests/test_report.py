@@ -17,7 +17,8 @@ from comparo.report import build_report
 
 
 class _Collect(HTMLParser):
-    """Collects img sources, every cell's data-value and the appendix table's taxa; checks tag balance."""
+    """Collects img sources, every cell's data-value and the appendix table's taxa; checks tag
+    balance."""
 
     VOID = {"meta", "img", "br", "hr", "link", "input", "wbr"}
 
@@ -101,7 +102,8 @@ def _png_size(path: Path) -> tuple[int, int]:
 
 
 def test_report_renders_every_figure_as_png_and_embeds_it(runs, parsed):
-    """Each figure is a PNG of print-readable size (width 400-3000 px) and appears base64-embedded in the HTML."""
+    """Each figure is a PNG of print-readable size (width 400-3000 px) and appears base64-embedded
+    in the HTML."""
     _, out, _, res, _ = runs
     assert res.ok
     pngs = sorted((out / "figures").glob("*.png"))
@@ -155,7 +157,8 @@ def test_every_plotted_taxon_is_in_the_appendix(runs, parsed):
 
 
 def test_numbers_in_html_equal_the_tables(runs, parsed):
-    """Every slope, intercept and CI of tables/fits.csv is a data-value of a cell in the HTML, exactly."""
+    """Every slope, intercept and CI of tables/fits.csv is a data-value of a cell in the HTML,
+    exactly."""
     fits = pd.read_csv(runs[1] / "tables" / "fits.csv")
     values = set(parsed.values)
     for col in ("estimate", "ci_low", "ci_high"):
@@ -178,7 +181,8 @@ def _sens_csv(out: Path, aid: str) -> pd.DataFrame:
 
 
 def test_sensitivity_numbers_in_html_equal_the_tables(runs, parsed):
-    """Each sensitivity table of the HTML holds exactly the numbers of tables/sensitivity_*.csv (both ways)."""
+    """Each sensitivity table of the HTML holds exactly the numbers of tables/sensitivity_*.csv
+    (both ways)."""
     out = runs[1]
     entries = json.loads((out / "tables" / "sensitivity.json").read_text())
     done = [e for e in entries if "result" in e]
@@ -226,7 +230,8 @@ def test_sensitivity_numbers_in_html_equal_the_tables(runs, parsed):
 
 
 def test_report_sensitivity_equals_the_fit_command(runs, capsys):
-    """``comparo fit --sensitivity --format json`` gives the report's leave-one-source-out, basis and jackknife parts."""
+    """``comparo fit --sensitivity --format json`` gives the report's leave-one-source-out, basis
+    and jackknife parts."""
     data, out = runs[0], runs[1]
     entry = next(
         e
@@ -315,12 +320,13 @@ def test_invalid_dataset_renders_an_error_page_and_exits_2(tmp_path, capsys):
 
 
 def test_diagnostics_figure_marks_exactly_the_flagged_taxa_at_the_cuts_used(runs):
-    """For every fit (SMA with groups, SMA, PGLS): the taxa named in the drawn diagnostics figure (its SVG,
-    gid "flag-label:...") are exactly the taxa of tables/flags.csv flagged for that fit; the cut-off lines drawn
-    (gid "cut:NAME:VALUE") are the cut-offs written in the flags' reasons and equal the textbook values recomputed
-    here from n: 4/n and 2p/n (common practice; Hoaglin & Welsch 1978), t(1 - 0.05/(2n); n - 3) (Bonferroni,
-    Cook & Weisberg 1982) and F(0.5; 2, n - 2) (Cook 1977), via scipy.stats. The HTML caption names the same taxa
-    and the fit's summary never says "flags: none" beside a figure that marks taxa."""
+    """For every fit (SMA with groups, SMA, PGLS): the taxa named in the drawn diagnostics figure
+    (its SVG, gid "flag-label:...") are exactly the taxa of tables/flags.csv flagged for that fit;
+    the cut-off lines drawn (gid "cut:NAME:VALUE") are the cut-offs written in the flags' reasons
+    and equal the textbook values recomputed here from n: 4/n and 2p/n (common practice; Hoaglin &
+    Welsch 1978), t(1 - 0.05/(2n); n - 3) (Bonferroni, Cook & Weisberg 1982) and F(0.5; 2, n - 2)
+    (Cook 1977), via scipy.stats. The HTML caption names the same taxa and the fit's summary never
+    says "flags: none" beside a figure that marks taxa."""
     import re
 
     from scipy import stats
@@ -365,9 +371,9 @@ def test_diagnostics_figure_marks_exactly_the_flagged_taxa_at_the_cuts_used(runs
 
 
 def test_tree_with_zero_length_tip_edges_reports_without_the_lambda_1_point(tmp_path):
-    """Two sister tips with zero-length edges make the covariance singular at lambda = 1 (identical rows of C):
-    the report still runs, the lambda profile is drawn without lambda = 1 and says why, and the PGLS fit keeps
-    its whitened flags (lambda is estimated below 1)."""
+    """Two sister tips with zero-length edges make the covariance singular at lambda = 1 (identical
+    rows of C): the report still runs, the lambda profile is drawn without lambda = 1 and says why,
+    and the PGLS fit keeps its whitened flags (lambda is estimated below 1)."""
     import re
 
     data = tmp_path / "demo"
@@ -392,7 +398,8 @@ def test_tree_with_zero_length_tip_edges_reports_without_the_lambda_1_point(tmp_
 
 
 def test_report_package_imports_nothing_from_the_command_layer():
-    """The report is a core module: no file of comparo/report imports comparo.cli.commands (read with ast)."""
+    """The report is a core module: no file of comparo/report imports comparo.cli.commands (read
+    with ast)."""
     import ast
 
     import comparo.report
@@ -416,10 +423,10 @@ def test_report_package_imports_nothing_from_the_command_layer():
 def test_appendix_shows_each_value_from_as_reported_to_used_with_the_temperature_factor(
     runs, parsed
 ):
-    """Every plotted frequency in Hz: value used = value reported x Q10^((T_ref - T)/10), the textbook Q10 rule
-    written here, with T_ref and Q10 read from the demo's comparo.toml (25 °C, 2.0); the summary states both.
-    The in-vivo frequencies of the taxa that taxa.csv calls endotherms are used as reported (the temperature
-    policy of docs/methods/temperature.md)."""
+    """Every plotted frequency in Hz: value used = value reported x Q10^((T_ref - T)/10), the
+    textbook Q10 rule written here, with T_ref and Q10 read from the demo's comparo.toml (25 °C,
+    2.0); the summary states both. The in-vivo frequencies of the taxa that taxa.csv calls
+    endotherms are used as reported (the temperature policy of docs/methods/temperature.md)."""
     import csv
     import tomllib
 
@@ -447,8 +454,8 @@ def test_appendix_shows_each_value_from_as_reported_to_used_with_the_temperature
 
 
 def test_without_settings_the_report_runs_the_default_fits_and_names_the_defaults(tmp_path):
-    """No comparo.toml: the default SMA fits run, and the summary says which defaults were used (the fits,
-    the reference temperature 25 °C and the catalogue's Q10 values)."""
+    """No comparo.toml: the default SMA fits run, and the summary says which defaults were used (the
+    fits, the reference temperature 25 °C and the catalogue's Q10 values)."""
     data = tmp_path / "demo"
     shutil.copytree(DEMO, data)
     (data / "comparo.toml").unlink()
@@ -472,8 +479,9 @@ def test_without_settings_the_report_runs_the_default_fits_and_names_the_default
 
 
 def test_numbers_read_as_people_write_them():
-    """4 significant figures without an exponent between 1e-4 and 1e6; integers (a seed, a count) in full;
-    booleans as yes/no; a full-precision data-value stays in the cell (common practice for tables)."""
+    """4 significant figures without an exponent between 1e-4 and 1e6; integers (a seed, a count) in
+    full; booleans as yes/no; a full-precision data-value stays in the cell (common practice for
+    tables)."""
     import numpy as np
 
     from comparo.report.fmt import cell, num

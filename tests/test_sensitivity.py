@@ -1,4 +1,5 @@
-"""Behaviour of comparo.fitting.source_sensitivity (comparo.sensitivity): source influence, basis steps, jackknife, Monte Carlo."""
+"""Behaviour of comparo.fitting.source_sensitivity (comparo.sensitivity): source influence, basis
+steps, jackknife, Monte Carlo."""
 
 from __future__ import annotations
 
@@ -11,13 +12,8 @@ import pytest
 from support import DEMO, run_main, write_dataset
 
 from comparo.fitting import fit
-from comparo.fitting.source_sensitivity import (
-    jackknife_se,
-    lognormal_draws,
-    measurement_error_mc,
-    sensitivity,
-    with_sensitivity,
-)
+from comparo.fitting.slope_spread import jackknife_se, lognormal_draws, measurement_error_mc
+from comparo.fitting.source_sensitivity import sensitivity, with_sensitivity
 from comparo.validation.dataset import load
 
 TRUE_SLOPE = -0.25
@@ -63,7 +59,8 @@ def clean(tmp_path_factory):
 
 
 def test_biased_source_ranked_first_and_flips_test(biased):
-    """The planted source moves the slope most and its removal reverses the test of slope = -0.25."""
+    """The planted source moves the slope most and its removal reverses the test of slope =
+    -0.25."""
     top = biased.leave_one_source_out[0]
     assert top["source_id"] == "SRC1"
     assert biased.test["p"] < 0.05  # the biased compilation rejects the true exponent
@@ -152,8 +149,8 @@ def test_mc_zero_uncertainty_reproduces_fit(method):
 
 def test_mc_attenuation_matches_reliability_ratio():
     """Classical error in x attenuates the OLS slope by the reliability ratio
-    lambda = var(x)/(var(x) + var(u)) (Fuller 1987, Measurement Error Models, ch. 1; section from memory).
-    A constant relative uncertainty c is, on log10 axes, an additive error of variance
+    lambda = var(x)/(var(x) + var(u)) (Fuller 1987, Measurement Error Models, ch. 1; section from
+    memory). A constant relative uncertainty c is, on log10 axes, an additive error of variance
     ln(1 + c^2)/ln(10)^2. Tolerance: 4 Monte Carlo standard errors plus the O(1/n) bias
     of the ratio estimator."""
     c = 0.4
@@ -168,7 +165,8 @@ def test_mc_attenuation_matches_reliability_ratio():
 
 
 def test_lognormal_draws_moments():
-    """Draws keep the stated mean and standard deviation (log-normal moment matching, as stated in JCGM 101:2008; clause not checked, from memory)."""
+    """Draws keep the stated mean and standard deviation (log-normal moment matching, as stated in
+    JCGM 101:2008; clause not checked, from memory)."""
     d = lognormal_draws(
         np.array([10.0, 0.0]), np.array([3.0, 2.0]), 200_000, np.random.default_rng(2)
     )
@@ -213,16 +211,18 @@ def test_with_sensitivity_fills_fit_result(clean, tmp_path):
 
 
 def _planted_demo_sources(x: str, y: str) -> set[str]:
-    """Sources of the demo rows the generator marks as planted faults (obs_id DEMO-...) on the fitted quantities."""
+    """Sources of the demo rows the generator marks as planted faults (obs_id DEMO-...) on the
+    fitted quantities."""
     obs = pd.read_csv(DEMO / "observations.csv", dtype=str)
     planted = obs[obs["obs_id"].str.startswith("DEMO-") & obs["quantity"].isin([x, y])]
     return set(planted["source_id"])
 
 
 def test_cli_sensitivity_on_demo():
-    """Done-when check: on the demo, ``fit --method sma --sensitivity`` names a source carrying a planted fault
-    (any row the generator marks DEMO-... on mass or frequency: the conflicting and the duplicated values)
-    among the three most influential sources; 1000 Monte Carlo draws by default."""
+    """Done-when check: on the demo, ``fit --method sma --sensitivity`` names a source carrying a
+    planted fault (any row the generator marks DEMO-... on mass or frequency: the conflicting and
+    the duplicated values) among the three most influential sources; 1000 Monte Carlo draws by
+    default."""
     planted = _planted_demo_sources("body_mass", "frequency_observed")
     assert planted
     out = run_main(
@@ -268,12 +268,13 @@ def test_loso_matches_full_rebuild(tmp_path):
     assert rec["n"] == full.n
 
 
-# --------------------------------------------------------------------------- every fit method, groups, layering
+# --------------------------------------------------------------- every fit method, groups, layering
 
 
 @pytest.mark.parametrize("method", ["robust", "lts"])
 def test_mc_zero_uncertainty_reproduces_fit_robust_and_lts(method):
-    """Zero uncertainties: every draw is the data, so the spread is 0 and the mean slope is the plain fit's."""
+    """Zero uncertainties: every draw is the data, so the spread is 0 and the mean slope is the
+    plain fit's."""
     t = _line_table(n=60)
     t["y"] = t["y"] * np.exp(np.random.default_rng(1).normal(0, 0.05, len(t)))
     r = fit(t, "x", "y", method)
@@ -283,9 +284,10 @@ def test_mc_zero_uncertainty_reproduces_fit_robust_and_lts(method):
 
 
 def test_huber_slopes_match_statsmodels_rlm():
-    """The vectorised IRLS gives the slope of statsmodels RLM (HuberT, MAD scale) on each data set."""
+    """The vectorised IRLS gives the slope of statsmodels RLM (HuberT, MAD scale) on each data
+    set."""
     from comparo.fitting import huber_line
-    from comparo.fitting.source_sensitivity import huber_slopes
+    from comparo.fitting.robust import huber_slopes
 
     rng = np.random.default_rng(6)
     X = rng.uniform(0, 2, (6, 40))
@@ -296,8 +298,9 @@ def test_huber_slopes_match_statsmodels_rlm():
 
 @pytest.mark.parametrize("method", ["robust", "lts"])
 def test_mc_robust_and_lts_attenuate_like_ols_on_clean_data(method):
-    """Without outliers the robust and LTS lines estimate the OLS line, so classical x-error attenuates them by
-    the same reliability ratio (Fuller 1987, ch. 1; from memory); looser tolerance for the capped LTS draws."""
+    """Without outliers the robust and LTS lines estimate the OLS line, so classical x-error
+    attenuates them by the same reliability ratio (Fuller 1987, ch. 1; from memory); looser
+    tolerance for the capped LTS draws."""
     c = 0.4
     t = _line_table(n=200 if method == "robust" else 60, u_x=c)  # LTS refits one draw at a time
     t["y"] = t["y"] * np.exp(np.random.default_rng(2).normal(0, 0.02, len(t)))
@@ -427,7 +430,8 @@ def test_cli_sensitivity_by_group(tmp_path, capsys):
 
 
 def test_api_layer_does_not_import_the_cli():
-    """comparo.fitting.source_sensitivity sits below the command layer (DEVELOPERS.md module order)."""
+    """comparo.fitting.source_sensitivity sits below the command layer (docs/architecture.md,
+    'Who may import whom')."""
     import ast
     import importlib
     import inspect

@@ -265,7 +265,8 @@ def test_template_bad_requests_exit_2(tmp_path: Path, case: str, capsys) -> None
 
 
 def test_fit_reads_a_filled_template(template: Path, tmp_path: Path, capsys) -> None:
-    """OLS slope on log10 axes from the workbook equals numpy's least-squares polyfit of the same numbers."""
+    """OLS slope on log10 axes from the workbook equals numpy's least-squares polyfit of the same
+    numbers."""
     import json
 
     import numpy as np

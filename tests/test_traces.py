@@ -11,7 +11,10 @@ import numpy as np
 import pytest
 from support import VALID_ROWS, run_main, tree_hash, write_dataset
 
-HEADER = "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,y_column,y_unit,temperature_c,muscle"
+HEADER = (
+    "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,"
+    "y_column,y_unit,temperature_c,muscle"
+)
 DL_MM, DF_MN, PHI, F_HZ = (
     0.3,
     40.0,
@@ -69,9 +72,18 @@ def traced(tmp_path):
         "\n".join(
             [
                 HEADER,
-                "W1,loops/w1.csv,Apis mellifera,s1,Fig. 5A,work_loop,time_ms,ms,len_mm,mm,force_mN,mN,30,flight",
-                "W2,loops/w2.csv,Apis mellifera,s1,Fig. 5B,work_loop,time_ms,ms,len_mm,mm,force_mN,mN,30,flight",
-                "S1,s1.csv,Bombus terrestris,s2,Fig. 2,strain_cycle,t_s,s,axial_pct,%,radial_pct,%,25,",
+                (
+                    "W1,loops/w1.csv,Apis mellifera,s1,Fig. 5A,work_loop,time_ms,ms,len_mm,mm,"
+                    "force_mN,mN,30,flight"
+                ),
+                (
+                    "W2,loops/w2.csv,Apis mellifera,s1,Fig. 5B,work_loop,time_ms,ms,len_mm,mm,"
+                    "force_mN,mN,30,flight"
+                ),
+                (
+                    "S1,s1.csv,Bombus terrestris,s2,Fig. 2,strain_cycle,t_s,s,axial_pct,%,"
+                    "radial_pct,%,25,"
+                ),
             ]
         )
         + "\n"

@@ -28,7 +28,10 @@ def test_one_accepted_taxon_on_two_tips_is_an_error_naming_both(tmp_path):
     """Bombus terrestris is the accepted name of the synonym 'Musca domestica' here (a
     curation slip): the tree holds the species on two tips. Check exits 2 naming both
     tips; a PGLS fit refuses too instead of silently pruning one tip."""
-    taxa = "taxon,accepted_name,tree_label\nBombus terrestris,,Bombus_terrestris\nMusca domestica,Bombus terrestris,\n"
+    taxa = (
+        "taxon,accepted_name,tree_label\nBombus terrestris,,Bombus_terrestris\nMusca domestica,"
+        "Bombus terrestris,\n"
+    )
     ds = _ds(tmp_path, taxa)
     before = tree_hash(ds)
     proc, probs = _problems(ds)

@@ -325,7 +325,7 @@ def test_regime_legend_does_not_call_a_taxon_above_its_bound_limited(tmp_path) -
     assert f"above its smaller bound: limited by neither (n = {above.sum()})" in labels
 
 
-# ----------------------------------------------------------------------------- report sensitivity table
+# ------------------------------------------------------------------------- report sensitivity table
 
 
 def test_a_source_that_cannot_be_left_out_says_why_in_the_refit_table(tmp_path) -> None:

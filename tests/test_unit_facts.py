@@ -200,8 +200,8 @@ _EVERYDAY = """
 import sys
 from comparo.cli.main import main
 ds, out = sys.argv[1], sys.argv[2]
-codes = [main(["check", ds]), main(["table", ds, "-o", out]),
-         main(["fit", ds, "--x", "body_mass", "--y", "frequency_observed", "--method", "sma", "--format", "json"])]
+fit = ["fit", ds, "--x", "body_mass", "--y", "frequency_observed", "--method", "sma"]
+codes = [main(["check", ds]), main(["table", ds, "-o", out]), main(fit + ["--format", "json"])]
 print("RESULT", codes, "pint" in sys.modules)
 """
 

@@ -262,7 +262,8 @@ def test_bibtex_sources(tmp_path):
     folder = write_dataset(tmp_path / "bib")
     (folder / "sources.csv").unlink()
     (folder / "sources.bib").write_text(
-        "@article{s1, author={Invented, A.}, title={One}, journal={J}, year={2001}, doi={10.1000/xyz}}\n@book{s2, title={Two}, year=2002}\n"
+        "@article{s1, author={Invented, A.}, title={One}, journal={J}, year={2001}, "
+        "doi={10.1000/xyz}}\n@book{s2, title={Two}, year=2002}\n"
     )
     res = check(folder)
     assert res.ok, res.problems.to_string()
@@ -341,7 +342,8 @@ def test_property_any_cell_text_never_crashes(tmp_path_factory, text):
 
 
 def test_text_view_caps_rows_per_rule_and_all_lists_them(tmp_path, capsys):
-    """30 digitized rows: text shows 25 of that rule and counts the rest; --all and csv show all 30."""
+    """30 digitized rows: text shows 25 of that rule and counts the rest; --all and csv show all
+    30."""
     from comparo.cli.main import main
 
     rows = [
@@ -515,7 +517,7 @@ def test_schema_failures_of_a_known_bad_table_match_pandera():
     assert sorted(_ours("observations", frame), key=repr) == sorted(theirs, key=repr)
 
 
-# --- the whole-file shortcuts of the text reader skip only passes that cannot change a cell --------
+# --- the whole-file shortcuts of the text reader skip only passes that cannot change a cell ---
 
 
 @pytest.mark.parametrize(

@@ -172,8 +172,9 @@ def _demo_units() -> list[str]:
 
 def covered_units() -> list[str]:
     """Every unit string the table answers for, as written (before normalising): the
-    catalogue's canonical units (quantities.toml, derived.toml), :data:`comparo.base.units.USUAL_UNITS`,
-    the SI units of the derivation and of the traces, the demo's units and :data:`SPELLINGS`."""
+    catalogue's canonical units (quantities.toml, derived.toml),
+    :data:`comparo.base.units.USUAL_UNITS`, the SI units of the derivation and of the traces,
+    the demo's units and :data:`SPELLINGS`."""
     from comparo.derivation.compute import _SI
     from comparo.traces.files import SI_UNITS
 

@@ -103,8 +103,7 @@ def check_table(value: object, name: str = "table") -> Any:
         value,
         pd.DataFrame,
         name,
-        "a pandas DataFrame with one row per taxon, such as "
-        "comparo.tabulate(FOLDER)",
+        "a pandas DataFrame with one row per taxon, such as comparo.tabulate(FOLDER)",
     )
 
 
@@ -202,8 +201,9 @@ def check_bootstrap(n_boot: int, n_points: int, method: str) -> int:
         return 0
     if n_boot < MIN_BOOTSTRAP:
         raise UsageError(
-            f"--bootstrap {n_boot} is too few resamples for a percentile or BCa interval: use at least "
-            f"{MIN_BOOTSTRAP} ({ADVISED_BOOTSTRAP} or more advised; Efron & Tibshirani 1993), or 0 for none"
+            f"--bootstrap {n_boot} is too few resamples for a percentile or BCa interval: use at "
+            f"least {MIN_BOOTSTRAP} ({ADVISED_BOOTSTRAP} or more advised; Efron & Tibshirani "
+            f"1993), or 0 for none"
         )
     by_memory = int(MEMORY_SHARE * memory_bytes() // 16)
     if method in ("ols", "sma", "ma"):
@@ -215,8 +215,9 @@ def check_bootstrap(n_boot: int, n_points: int, method: str) -> int:
     cap = min(by_memory, by_time)
     if n_boot > cap:
         raise UsageError(
-            f"--bootstrap {n_boot} exceeds this machine's cap of {cap} resamples for {n_points} points "
-            f"(time: {TIME_BUDGET_S:.0f} s at about {how}; memory: half of the {memory_bytes() / 2**30:.1f} GiB "
+            f"--bootstrap {n_boot} exceeds this machine's cap of {cap} resamples for {n_points} "
+            f"points (time: {TIME_BUDGET_S:.0f} s at about {how}; memory: half of the "
+            f"{memory_bytes() / 2**30:.1f} GiB "
             "this process may use, at 16 bytes a resample)"
         )
     return n_boot
@@ -234,9 +235,10 @@ def check_refits(
     if refits * seconds > TIME_BUDGET_S:
         cap = max(int(TIME_BUDGET_S / max(seconds, 1e-9)) - n_points, 0)
         raise UsageError(
-            f"{option} {n_boot} would take about {refits * seconds / 60:,.0f} min here: one {method} fit of these "
-            f"{n_points} points took {seconds:.3g} s on this machine, and the bootstrap refits each resample "
-            f"(and each point once more for BCa); at most {cap} resamples fit in {TIME_BUDGET_S:.0f} s "
+            f"{option} {n_boot} would take about {refits * seconds / 60:,.0f} min here: one "
+            f"{method} fit of these {n_points} points took {seconds:.3g} s on this machine, and "
+            f"the bootstrap refits each resample (and each point once more for BCa); at most {cap} "
+            f"resamples fit in {TIME_BUDGET_S:.0f} s "
             "(use method ols, sma or ma for large resample counts)"
         )
     return n_boot
@@ -271,9 +273,10 @@ def check_draws(n_draws: int, n_points: int, method: str, option: str = "--mc") 
     cap = min(by_time, by_memory)
     if n_draws > cap:
         raise UsageError(
-            f"{option} {n_draws} exceeds this machine's cap of {cap} draws for {n_points} taxa (time: "
-            f"{TIME_BUDGET_S:.0f} s at about {how}; memory: half of the {memory_bytes() / 2**30:.1f} GiB this "
-            f"process may use, at {SENSITIVITY_BYTES_PER_POINT_DRAW:.0f} bytes per point and draw)"
+            f"{option} {n_draws} exceeds this machine's cap of {cap} draws for {n_points} taxa "
+            f"(time: {TIME_BUDGET_S:.0f} s at about {how}; memory: half of the "
+            f"{memory_bytes() / 2**30:.1f} GiB this process may use, at "
+            f"{SENSITIVITY_BYTES_PER_POINT_DRAW:.0f} bytes per point and draw)"
         )
     return n_draws
 
@@ -306,8 +309,9 @@ def check_mc(mc: int, n_taxa: int, option: str = "--mc") -> int:
     if mc > cap:
         raise UsageError(
             f"{option} {mc} exceeds this machine's cap of {cap} draws for {n_taxa} taxa (time: "
-            f"{TIME_BUDGET_S:.0f} s at about {MC_TAXON_DRAWS_PER_S:.0e} taxon-draws per second; memory: half of the "
-            f"{memory_bytes() / 2**30:.1f} GiB this process may use, at about {MC_BYTES_PER_DRAW:.0f} bytes a draw, "
+            f"{TIME_BUDGET_S:.0f} s at about {MC_TAXON_DRAWS_PER_S:.0e} taxon-draws per second; "
+            f"memory: half of the {memory_bytes() / 2**30:.1f} GiB this process may use, at about "
+            f"{MC_BYTES_PER_DRAW:.0f} bytes a draw, "
             "two blocks in flight)"
         )
     return mc
@@ -329,7 +333,8 @@ def check_permutations(permutations: int, n_tips: int, option: str = "permutatio
     cap = int(TIME_BUDGET_S * PERMUTATION_TIPS_PER_S / max(n_tips, 1))
     if permutations > cap:
         raise UsageError(
-            f"{option} {permutations} exceeds this machine's cap of {cap} permutations for {n_tips} tips "
-            f"(time: {TIME_BUDGET_S:.0f} s at about {PERMUTATION_TIPS_PER_S:.0e} tip-permutations per second)"
+            f"{option} {permutations} exceeds this machine's cap of {cap} permutations for "
+            f"{n_tips} tips (time: {TIME_BUDGET_S:.0f} s at about {PERMUTATION_TIPS_PER_S:.0e} "
+            f"tip-permutations per second)"
         )
     return permutations

@@ -104,7 +104,8 @@ def restore_frame(frame: pd.DataFrame) -> pd.DataFrame:
 
 
 def to_csv(frame: pd.DataFrame, **kwargs) -> str:
-    """``frame.to_csv`` (no index, full float precision by default) after :func:`neutralise_frame`."""
+    """``frame.to_csv`` (no index, full float precision by default) after
+    :func:`neutralise_frame`."""
     kwargs.setdefault("index", False)
     kwargs.setdefault("lineterminator", "\n")
     return neutralise_frame(frame).to_csv(**kwargs)

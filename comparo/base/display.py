@@ -7,9 +7,10 @@ Standard library only; values are escaped, so labels from a data file cannot inj
 from __future__ import annotations
 
 import html
-import math
 from collections.abc import Iterable, Sequence
 from typing import Any
+
+from comparo.base.numbers import number
 
 
 def cell(v: Any) -> str:
@@ -20,13 +21,11 @@ def cell(v: Any) -> str:
         return "yes" if v else "no"
     if isinstance(v, int):
         return str(v)
-    if isinstance(v, float):
-        return "–" if not math.isfinite(v) else f"{v:.5g}"
     try:
-        f = float(v)
+        float(v)
     except (TypeError, ValueError):
         return str(v)
-    return "–" if not math.isfinite(f) else f"{f:.5g}"
+    return number(v, 5, "–")
 
 
 def html_table(

@@ -168,10 +168,14 @@ def _check_name_length(out: Path, shown: str) -> None:
         last = i == len(out.parts) - 1
         size = len(os.fsencode(part))
         if size > name_max - (_TMP_EXTRA if last else 0):
-            room = f" ({name_max - _TMP_EXTRA} for an output file, which needs room for a temporary file)"
+            room = (
+                f" ({name_max - _TMP_EXTRA} for an output file, which needs room for a temporary "
+                f"file)"
+            )
             raise UsageError(
                 f"cannot write {shown}: the name {part[:30]}... is {size} bytes; this file system "
-                f"takes names of at most {name_max} bytes{room if last else ''}: choose a shorter name"
+                f"takes names of at most {name_max} bytes{room if last else ''}: choose a shorter "
+                f"name"
             )
     if len(os.fsencode(str(out))) + _TMP_EXTRA >= path_max:
         raise UsageError(

@@ -372,7 +372,8 @@ def unit_dimensions(text: str) -> tuple[tuple[str, float], ...]:
 
 
 def kind_dimensions(kind: str) -> tuple[tuple[str, float], ...]:
-    """The dimensionality a quantity of this *kind* must have, as :func:`unit_dimensions` gives it."""
+    """The dimensionality a quantity of this *kind* must have, as :func:`unit_dimensions` gives
+    it."""
     t = _table()
     if t is not None and kind in t[1]:
         return t[1][kind]

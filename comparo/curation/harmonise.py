@@ -106,14 +106,6 @@ def standard_uncertainty(u: pd.Series, kind: pd.Series, n: pd.Series) -> pd.Seri
 # --------------------------------------------------------------------------- temperature
 
 
-@dataclass(frozen=True)
-class TemperatureRule:
-    """How one quantity is brought to the reference temperature."""
-
-    q10: float | None = None
-    activation_energy_kj_mol: float | None = None
-
-
 def temperature_factor(
     t_meas: np.ndarray, t_ref: float, q10: np.ndarray, ea_kj: np.ndarray, is_time: np.ndarray
 ) -> np.ndarray:

@@ -11,10 +11,10 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from comparo.base.errors import InputError, Problem
+from comparo.base.numbers import number
 from comparo.derivation.lattice import effective_radius, filament_spacing, filament_volume_fraction
 from comparo.derivation.lineage import (
     _column,
-    _fmt,
     _join,
     _lineage_columns,
     _mc_columns,
@@ -197,7 +197,8 @@ class _Leaves:
 
 
 def _table_leaves(table: pd.DataFrame, catalog, names: dict[str, str]) -> _Leaves:
-    """The leaves read from the table, in SI units (non-positive values set to NaN with a reason)."""
+    """The leaves read from the table, in SI units (non-positive values set to NaN with a
+    reason)."""
     from comparo.base.units import conversion_factor
 
     lv = _Leaves()
@@ -374,7 +375,8 @@ def _missing_reasons(
     fallback = s["modulus_fallback"]
     phi_out = np.array(
         [
-            f"filament_volume_fraction {_fmt(p)} outside ({spec.phi_min:g}, {spec.phi_max:.4g}] of {model}"
+            f"filament_volume_fraction {number(p)} outside ({spec.phi_min:g}, {spec.phi_max:.4g}] "
+            f"of {model}"
             if np.isfinite(p) and not (spec.phi_min < p <= spec.phi_max)
             else ""
             for p in vals["filament_volume_fraction"]
@@ -468,13 +470,13 @@ def _routes(
     methods = {
         "filament_spacing": "hexagonal lattice d = 2 d10/sqrt(3)",
         "filament_volume_fraction": [
-            f"hexagonal lattice, r_thick {s['thick_filament_radius_nm']:g} nm, "
-            f"r_thin {s['thin_filament_radius_nm']:g} nm, {_fmt(t)} thin per thick"
+            f"hexagonal lattice, r_thick {s['thick_filament_radius_nm']:g} nm, r_thin "
+            f"{s['thin_filament_radius_nm']:g} nm, {number(t)} thin per thick"
             for t in thin_per_thick
         ],
         "permeability_est": f"{model}, a = {s['effective_radius']} radius",
         "fluid_viscosity_est": [
-            f"IAPWS R12-08 water at {_fmt(t)} C and 0.1 MPa, x {f_cyto:g}" for t in temperature
+            f"IAPWS R12-08 water at {number(t)} C and 0.1 MPa, x {f_cyto:g}" for t in temperature
         ],
         "drained_modulus": m_route,
         "poroelastic_diffusivity": d_route,
@@ -556,8 +558,8 @@ def _assemble(
     regime[~np.isfinite(score)] = None
     route = "Monte Carlo 95% interval" if mc > 0 else "first-order 95% interval"
     how = (
-        f"the smaller frequency bound limits; undetermined when the {route} of "
-        f"poro_kinetic_ratio holds {mode:g}"
+        f"the smaller frequency bound limits; undetermined when the {route} of poro_kinetic_ratio "
+        f"holds {mode:g}"
     )
     no_u = np.isfinite(score) & ~np.isfinite(prop.u["poro_kinetic_ratio"])
     reg_method = np.where(no_u, how + " (no uncertainty of poro_kinetic_ratio: undetermined)", how)

@@ -34,7 +34,8 @@ class Ratio:
 
 class _Parser:
     """expr := term (('*' | '/') term)* ; term := atom ['^' exponent] ;
-    atom := NAME | NUMBER | '(' expr ')' ; exponent := ['-'] NUMBER | '(' ['-'] NUMBER ['/' NUMBER] ')'."""
+    atom := NAME | NUMBER | '(' expr ')' ; exponent := ['-'] NUMBER | '(' ['-'] NUMBER ['/' NUMBER]
+    ')'."""
 
     def __init__(self, text: str):
         self.tokens: list[tuple[str, str]] = []
@@ -168,7 +169,8 @@ def ratio_overflow(ratio: Ratio, catalog) -> str:
     if hi <= DOUBLE_DECADES and lo >= -DOUBLE_DECADES:
         return ""
     return (
-        f"ratio {ratio.name!r} would span 1e{lo:.0f} to 1e{hi:.0f} (SI) over the plausible ranges of its "
+        f"ratio {ratio.name!r} would span 1e{lo:.0f} to 1e{hi:.0f} (SI) over the plausible ranges "
+        f"of its "
         "quantities, beyond what a double holds (1e-307 to 1e307)"
     )
 

@@ -48,10 +48,6 @@ def _weakest(bases: list[str]) -> str:
     return max(bases, key=lambda b: rank.get(b, len(BASIS_ORDER) - 1)) if bases else ""
 
 
-def _fmt(x: float) -> str:
-    return f"{x:.4g}"
-
-
 def pd_concat(frame: pd.DataFrame, columns: Mapping[str, Any]) -> pd.DataFrame:
     """*frame* with *columns* appended (one concat, no fragmentation)."""
     import pandas as pd

@@ -25,7 +25,8 @@ _CHOICES = {
 def _settings(
     given: Mapping[str, Any] | None,
 ) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any]]:
-    """Defaults of schema/derived.toml overridden by *given*; returns (settings, ratios, quantities)."""
+    """Defaults of schema/derived.toml overridden by *given*; returns (settings, ratios,
+    quantities)."""
     from comparo.base.catalog import read_schema
 
     defaults = dict(read_schema("derived.toml")["settings"])

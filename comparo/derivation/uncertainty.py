@@ -13,6 +13,8 @@ from typing import Any
 
 import numpy as np
 
+from comparo.base.progress import ProgressBar
+
 
 def gum_relative(exponents: Mapping[str, float], relative_u: Mapping[str, Any]):
     """First-order relative standard uncertainty of y = c·Π xᵢ^pᵢ, inputs uncorrelated.
@@ -183,9 +185,9 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None, progres
     drawn = [k for k, r in rel_u.items() if np.any(np.isfinite(r) & (r > 0))]
     res = {k: {s: np.full(n, np.nan) for s in (*_MC_SUFFIXES, "_mc_u")} for k in outputs}
     in_flight: list[Any] = []
-    bar = _mc_bar(progress and n * mc >= 2_000_000, -(-n // block))
+    blocks = -(-n // block)
+    bar = ProgressBar(progress and n * mc >= 2_000_000, f"Monte Carlo, {mc} draws", blocks, 2)
     with bar, ThreadPoolExecutor(max_workers=min(2, os.cpu_count() or 1)) as pool:
-        task = bar.add_task(f"Monte Carlo, {mc} draws", total=-(-n // block))
         for start in range(0, n, block):
             stop = min(n, start + block)
             vals = {k: v[start:stop] for k, v in leaves.items()}
@@ -207,41 +209,11 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None, progres
             del args
             if len(in_flight) > 1:  # at most two blocks drawn and not yet summarised
                 in_flight.pop(0).result()
-                bar.advance(task)
+                bar.advance()
         for f in in_flight:
             f.result()
-            bar.advance(task)
+            bar.advance()
     return res
-
-
-class _NoBar:
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc) -> bool:
-        return False
-
-    def add_task(self, *args, **kwargs) -> int:
-        return 0
-
-    def advance(self, *args) -> None:
-        return None
-
-
-def _mc_bar(enabled: bool, total: int):
-    """A transient rich progress bar on standard error (for a terminal), else a no-op."""
-    if not enabled or total < 2:
-        return _NoBar()
-    from rich.console import Console
-    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
-
-    return Progress(
-        TextColumn("{task.description}"),
-        BarColumn(),
-        TimeRemainingColumn(),
-        console=Console(stderr=True),
-        transient=True,
-    )
 
 
 def _mc_block(compute, args, sl, mc, outputs, mirrors, res) -> None:
@@ -289,7 +261,8 @@ def _summarise(key, y, mc, mirrors, res, sl) -> None:
 
 
 def _order_stats(ys: np.ndarray, m: np.ndarray, target: dict[str, np.ndarray], sl: slice) -> None:
-    """Median and 68%/95% intervals from rows sorted ascending whose first m entries are the draws."""
+    """Median and 68%/95% intervals from rows sorted ascending whose first m entries are the
+    draws."""
     ok = m > 1
     mm = np.maximum(m, 2)
     picks = {}

@@ -1,4 +1,5 @@
-"""From a table to fitted-scale arrays: the log transform, labels, groups and excluded rows with reasons."""
+"""From a table to fitted-scale arrays: the log transform, labels, groups and excluded rows with
+reasons."""
 
 from __future__ import annotations
 
@@ -7,25 +8,10 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from comparo.base.errors import UsageError
+from comparo.base.scales import to_scale
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
-
-
-def _transform(log: str):
-    if log == "10":
-        return np.log10
-    if log == "e":
-        return np.log
-    return lambda v: np.asarray(v, dtype=float)
-
-
-def _inverse(log: str):
-    if log == "10":
-        return lambda v: 10.0**v
-    if log == "e":
-        return np.exp
-    return lambda v: v
 
 
 def _prepare(table: pd.DataFrame, x: str, y: str, log: str, taxon_col: str, by: str | None):
@@ -68,9 +54,8 @@ def _prepare(table: pd.DataFrame, x: str, y: str, log: str, taxon_col: str, by: 
         else:
             keep.append(i)
     keep_arr = np.asarray(keep, dtype=int)
-    tf = _transform(log)
-    X = tf(values[x][1][keep_arr])
-    Y = tf(values[y][1][keep_arr])
+    X = to_scale(values[x][1][keep_arr], log)
+    Y = to_scale(values[y][1][keep_arr], log)
     labs = [labels[i] for i in keep]
     groups = table[by].iloc[keep_arr].astype(str).to_numpy() if by else None
     return X, Y, labs, groups, excluded, keep_arr

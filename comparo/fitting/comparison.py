@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
+from comparo.base.numbers import number
 from comparo.base.results import Result
 from comparo.fitting.multiple import MultipleFit, _check, design, fit_design
 
@@ -136,7 +137,7 @@ class Comparison(Result):
         lines.append("Coefficients (log scale):")
         for s, f in zip(names, self.fits, strict=True):
             parts = [
-                f"{t['term']} {_num(t['estimate'])} [{_num(t['ci'][0])}, {_num(t['ci'][1])}]"
+                f"{t['term']} {number(t['estimate'])} [{number(t['ci'][0])}, {number(t['ci'][1])}]"
                 for t in f.terms
             ]
             extra = f"; lambda {f.lambda_:.3f}" if f.lambda_ is not None else ""
@@ -146,16 +147,12 @@ class Comparison(Result):
             lines.append("Likelihood-ratio tests of nested models (chi-squared):")
             for t in self.tests:
                 lines.append(
-                    f"  {t['smaller']} within {t['larger']}: LR = {_num(t['statistic'])}, "
-                    f"df = {t['df']}, p = {_num(t['p'])}"
+                    f"  {t['smaller']} within {t['larger']}: LR = {number(t['statistic'])}, "
+                    f"df = {t['df']}, p = {number(t['p'])}"
                 )
         lines.append("")
         lines += textwrap.wrap(WEIGHT_CAUTION, 100)
         return "\n".join(lines)
-
-
-def _num(v: Any) -> str:
-    return "n/a" if v is None else f"{v:.4g}"
 
 
 def _label(predictors: Sequence[str]) -> str:

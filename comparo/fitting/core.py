@@ -6,8 +6,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from comparo.base.scales import LOG_SCALES
+
 METHODS = ("ols", "sma", "ma", "robust", "lts", "pgls")
-LOGS = ("10", "e", "none")
+LOGS = LOG_SCALES  # the values of a fit's log option (comparo.base.scales)
 
 
 def _moments(X: np.ndarray, Y: np.ndarray, axis: int = -1):

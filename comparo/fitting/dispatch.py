@@ -1,4 +1,5 @@
-"""One line by method name: the single place that maps ols/sma/ma/robust/lts to its fitting function."""
+"""One line by method name: the single place that maps ols/sma/ma/robust/lts to its fitting
+function."""
 
 from __future__ import annotations
 

@@ -177,8 +177,8 @@ def drop_rules(spec: bool | str | list[str] | tuple[str, ...] | None) -> tuple[s
     for name in names:
         if name not in _RULE_NAMES:
             raise UsageError(
-                f"--drop-flagged: unknown rule {name!r}; choose from "
-                f"{', '.join(ALL_RULES)}, or the groups outlier, cook, all"
+                f"--drop-flagged: unknown rule {name!r}; choose from {', '.join(ALL_RULES)}, or "
+                f"the groups outlier, cook, all"
             )
         out += [r for r in _RULE_NAMES[name] if r not in out]
     return tuple(r for r in ALL_RULES if r in out)
@@ -263,7 +263,8 @@ def phylo_whitener(ft, lam: float, *, max_tips: int = 2000) -> np.ndarray:
     n = ft.n_tips
     if n > max_tips:
         raise ValueError(
-            f"whitened diagnostics need a dense {n} x {n} covariance; computed up to {max_tips} taxa"
+            f"whitened diagnostics need a dense {n} x {n} covariance; computed up to {max_tips} "
+            f"taxa"
         )
     m = ft.n_nodes
     below = np.zeros((m, n))
@@ -320,7 +321,8 @@ def flag_points(
     -------
     FlagReport
         ``table`` holds per point: label, fitted (a + b x of the line the rules refer
-        to, fitted scale), residual (y - fitted; the whitened residual with *whiten*), leverage, studentized (external), cooks_d, and
+        to, fitted scale), residual (y - fitted; the whitened residual with *whiten*), leverage,
+        studentized (external), cooks_d, and
         weight / lts_std when given.
 
     Notes
@@ -395,7 +397,8 @@ def flag_points(
 def _point_flags(
     i: int, lab: str, t: float, h: float, d: float, cuts: dict, p: int, n: int
 ) -> list[Flag]:
-    """The Bonferroni, leverage and Cook's distance flags of point *i* (the stronger Cook cut once)."""
+    """The Bonferroni, leverage and Cook's distance flags of point *i* (the stronger Cook cut
+    once)."""
     out = []
     if abs(t) > cuts["bonferroni"]:
         out.append(

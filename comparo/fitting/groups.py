@@ -139,7 +139,8 @@ def _common_slope_variance(
 
 
 def _group_tests_ols(X: np.ndarray, Y: np.ndarray, codes: np.ndarray, g: int, ci: float) -> dict:
-    """OLS: interaction F test of equal slopes, common slope (parallel lines), F test of elevation."""
+    """OLS: interaction F test of equal slopes, common slope (parallel lines), F test of
+    elevation."""
     import statsmodels.api as sm
 
     dummies = np.eye(g)[codes][:, 1:]
@@ -195,7 +196,8 @@ def group_fits(
                 slope=None, slope_ci=None, intercept=None, intercept_ci=None, r2=None, against=None
             )
             notes.append(
-                f"group {name!r} has fewer than 3 distinct x values: no per-group line, left out of group tests"
+                f"group {name!r} has fewer than 3 distinct x values: no per-group line, left out "
+                f"of group tests"
             )
         else:
             c = _core(method, X[m], Y[m], ci, against, seed)
@@ -274,8 +276,8 @@ def judge_slopes(tests: dict | None, ci: float) -> dict | None:
             )
             verb = "are" if len(dropped) > 1 else "is"
             out["omitted"] = (
-                f"equal slopes rejected (p = {p:.3g} < {alpha:g}): the groups differ in "
-                f"slope, so {tests_word} one common slope, {verb} not given"
+                f"equal slopes rejected (p = {p:.3g} < {alpha:g}): the groups differ in slope, so "
+                f"{tests_word} one common slope, {verb} not given"
             )
     else:
         out["assumes"] = (

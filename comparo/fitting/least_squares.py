@@ -1,4 +1,5 @@
-"""Ordinary least squares of Y on X (model I), with t-based intervals and the t test of the slope."""
+"""Ordinary least squares of Y on X (model I), with t-based intervals and the t test of the
+slope."""
 
 from __future__ import annotations
 

@@ -11,8 +11,9 @@ import math
 
 import numpy as np
 
+from comparo.base.numbers import number
 from comparo.fitting.core import _Core, _moments, slope_from_moments
-from comparo.fitting.numbers import _NAN, _f
+from comparo.fitting.numbers import _NAN
 
 
 def model2_test(X: np.ndarray, Y: np.ndarray, b0: float, method: str) -> tuple[float, float]:
@@ -113,8 +114,9 @@ def model2_line(
             lims = [math.tan(lo_t), math.tan(hi_t)]
             if lo_t <= -math.pi / 2 or hi_t >= math.pi / 2:
                 ci_note = (
-                    f"MA slope interval passes through vertical: slopes from {_f(lims[0])} up to +infinity "
-                    f"and from -infinity up to {_f(lims[1])} (reported low > high)"
+                    f"MA slope interval passes through vertical: slopes from "
+                    f"{number(lims[0], 5, '-')} up to +infinity and from -infinity up to "
+                    f"{number(lims[1], 5, '-')} (reported low > high)"
                 )
         l1, l2 = 0.5 * (sxx + syy + D), max(0.0, 0.5 * (sxx + syy - D))
         var_b = (1 + b * b) ** 2 * l1 * l2 / ((n - 2) * (l1 - l2) ** 2) if l1 > l2 else math.inf

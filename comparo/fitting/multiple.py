@@ -16,7 +16,9 @@ import numpy as np
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
+from comparo.base.numbers import number
 from comparo.base.results import Result
+from comparo.base.scales import LOG_SCALES, to_scale
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -26,7 +28,6 @@ MULTIPLE_METHODS = ("ols", "pgls")
 #: Methods that fit several predictors; model II lines (sma, ma) are for one predictor, and
 #: robust (Huber) has no likelihood, so it fits but does not enter a model comparison.
 FIT_METHODS = ("ols", "robust", "pgls")
-_LOGS = ("10", "e", "none")
 _WEIGHT_CUT = 0.5  # low Huber weight, as the flags of a one-predictor robust line (common practice)
 
 
@@ -68,9 +69,7 @@ class MultipleFit(Result):
     against: dict | None = None
     outliers: tuple[dict, ...] = field(default_factory=tuple)
     flags_note: str | None = None
-    sensitivity: dict | None = (
-        None  # leave one source out (comparo.fitting.source_sensitivity.multiple_sensitivity)
-    )
+    sensitivity: dict | None = None  # leave one source out (comparo.fitting.multiple_sensitivity)
 
     def to_dict(self) -> dict:
         return {
@@ -126,10 +125,10 @@ class MultipleFit(Result):
         w = max(len("term"), *(len(t["term"]) for t in self.terms))
         lines.append(f"{'term':<{w}}  {'estimate':>10}  {'SE':>9}  {lvl:>23}  {'t':>8}  {'p':>9}")
         for t in self.terms:
-            ci = f"[{_num(t['ci'][0])}, {_num(t['ci'][1])}]"
+            ci = f"[{number(t['ci'][0])}, {number(t['ci'][1])}]"
             lines.append(
-                f"{t['term']:<{w}}  {_num(t['estimate']):>10}  {_num(t['se']):>9}  {ci:>23}  "
-                f"{_num(t['t']):>8}  {_num(t['p']):>9}"
+                f"{t['term']:<{w}}  {number(t['estimate']):>10}  {number(t['se']):>9}  {ci:>23}  "
+                f"{number(t['t']):>8}  {number(t['p']):>9}"
             )
         if self.method == "robust":
             lines.append(
@@ -138,7 +137,7 @@ class MultipleFit(Result):
             )
         else:
             lines.append(
-                f"log-likelihood (ML) {self.loglik:.4f}, k = {self.k}, AICc {_num(self.aicc)}"
+                f"log-likelihood (ML) {self.loglik:.4f}, k = {self.k}, AICc {number(self.aicc)}"
             )
         if self.lambda_ is not None:
             how = "by ML" if self.lambda_estimated else "fixed"
@@ -157,8 +156,8 @@ class MultipleFit(Result):
                 else f"chi-square({a['df'][0]})"
             )
             lines.append(
-                f"joint test of {vals}: {dist} = {_num(a['statistic'])}, "
-                f"p = {_num(a['p'])}" + (f" ({a['note']})" if a.get("note") else "")
+                f"joint test of {vals}: {dist} = {number(a['statistic'])}, "
+                f"p = {number(a['p'])}" + (f" ({a['note']})" if a.get("note") else "")
             )
         if self.outliers:
             lines.append("flags:")
@@ -168,10 +167,6 @@ class MultipleFit(Result):
         if self.flags_note:
             lines.append(self.flags_note)
         return "\n".join(lines)
-
-
-def _num(v: Any) -> str:
-    return "n/a" if v is None or (isinstance(v, float) and not math.isfinite(v)) else f"{v:.4g}"
 
 
 @dataclass(frozen=True, eq=False)
@@ -199,7 +194,7 @@ def _check(
     log: Any, ci: float, method: str, n_predictors: int, methods: Sequence[str] = MULTIPLE_METHODS
 ) -> str:
     log = "none" if log is None else str(log)
-    if log not in _LOGS:
+    if log not in LOG_SCALES:
         raise UsageError(f"log must be one of 10, e, none; got {log!r}")
     if not 0.0 < ci < 1.0:
         raise UsageError(f"ci must be in (0, 1), got {ci}")
@@ -286,8 +281,7 @@ def design(
 
         ft, keep, _ = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     idx = np.asarray(keep, dtype=int)
-    tf = {"10": np.log10, "e": np.log, "none": np.asarray}[log]
-    cols = {c: tf(numeric[c][idx]) for c in numeric}
+    cols = {c: to_scale(numeric[c][idx], log) for c in numeric}
     reference, dummies = None, {}
     if factor:
         values = table[factor].astype(str).to_numpy()[idx]

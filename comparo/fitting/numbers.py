@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-import math
 from typing import Any
 
 from comparo.base.jsonsafe import finite_or_none as _num
+from comparo.base.numbers import number
 
 _NAN = float("nan")
 
@@ -21,12 +21,8 @@ def _pair(p: Any) -> list | None:
 
 
 def _f(v: Any) -> str:
-    if v is None or (isinstance(v, float) and not math.isfinite(v)):
-        return "-"
-    return f"{v:.5g}"
+    return number(v, 5, "-")
 
 
 def _p(p: Any) -> str:
-    if p is None or not math.isfinite(p):
-        return "-"
-    return f"{p:.3g}"
+    return number(p, 3, "-")

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from comparo.base.progress import ProgressBar
 from comparo.fitting.core import slope_from_moments
 from comparo.fitting.dispatch import _core
 from comparo.fitting.numbers import _NAN
@@ -32,7 +33,7 @@ def _bca(theta_hat: float, boots: np.ndarray, jack: np.ndarray, ci: float) -> tu
     return (float(lo), float(hi))
 
 
-def _jackknife_moments(method: str, X: np.ndarray, Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def jackknife_moments(method: str, X: np.ndarray, Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Leave-one-out slopes and intercepts from running sums (no loop)."""
     n = len(X)
     sx, sy = X.sum() - X, Y.sum() - Y
@@ -101,9 +102,7 @@ def bootstrap_line(
     xc, yc = X - x0, Y - y0
     cross = np.column_stack([xc, yc, xc * xc, yc * yc, xc * yc])
     step = max(1, chunk_elems // n) if vector else max(1, n_boot // 50)
-    bar = _progress_bar(progress, n_boot)
-    with bar as pb:
-        task = pb.add_task(f"bootstrap {method}", total=n_boot) if pb else None
+    with ProgressBar(progress, f"bootstrap {method}", n_boot) as bar:
         for start in range(0, n_boot, step):
             stop = min(n_boot, start + step)
             idx = rng.integers(0, n, size=(stop - start, n), dtype=np.int32)
@@ -118,10 +117,9 @@ def bootstrap_line(
                         continue
                     c = _core(method, xb, yb, ci, None, seed)
                     slopes[start + k], ints[start + k] = c.slope, c.intercept
-            if pb:
-                pb.update(task, completed=stop)
+            bar.advance(stop - start)
     if vector:
-        jb, ja = _jackknife_moments(method, X, Y)
+        jb, ja = jackknife_moments(method, X, Y)
     else:
         jb, ja = np.empty(n), np.empty(n)
         for i in range(n):
@@ -141,27 +139,3 @@ def bootstrap_line(
             "bca": list(_bca(hat, reps, jack, ci)),
         }
     return out
-
-
-class _NoBar:
-    def __enter__(self):
-        return None
-
-    def __exit__(self, *exc):
-        return False
-
-
-def _progress_bar(progress: bool, total: int):
-    if not progress:
-        return _NoBar()
-    from rich.console import Console
-    from rich.progress import BarColumn, Progress, TextColumn, TimeRemainingColumn
-
-    return Progress(
-        TextColumn("{task.description}"),
-        BarColumn(),
-        TextColumn("{task.completed}/{task.total}"),
-        TimeRemainingColumn(),
-        console=Console(stderr=True),
-        transient=True,
-    )

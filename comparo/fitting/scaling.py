@@ -11,7 +11,8 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from comparo.base.errors import UsageError
-from comparo.fitting.arrays import _inverse, _prepare
+from comparo.base.scales import from_scale
+from comparo.fitting.arrays import _prepare
 from comparo.fitting.breakpoint import segmented_line
 from comparo.fitting.cautions import fit_cautions
 from comparo.fitting.core import LOGS, METHODS
@@ -122,27 +123,34 @@ def fit(
     against = check_finite(renamed_against(pgls_options, against), "the slope to test against")
     log = _check_options(method, log, ci, bootstrap)
     if method == "pgls":
-        return _with_temperature(
-            _pgls(
-                table,
-                x,
-                y,
-                log,
-                ci,
-                against,
-                taxon_col,
-                by,
-                bootstrap,
-                breakpoint,
-                drop_flagged,
-                pgls_options,
-            ),
-            table,
-            taxon_col,
-        )
-    if pgls_options:
+        opts = (by, bootstrap, breakpoint, drop_flagged, pgls_options)
+        res = _pgls(table, x, y, log, ci, against, taxon_col, *opts)
+    elif pgls_options:
         raise UsageError(f"options {', '.join(sorted(pgls_options))} apply only to method pgls")
+    else:
+        opts = (bootstrap, seed, taxon_col, breakpoint, progress, drop_flagged)
+        res = _line(table, x, y, method, by, against, ci, log, *opts)
+    return _with_temperature(res, table, taxon_col)
 
+
+def _line(
+    table: pd.DataFrame,
+    x: str,
+    y: str,
+    method: str,
+    by: str | None,
+    against: float | None,
+    ci: float,
+    log: str,
+    bootstrap: int,
+    seed: int,
+    taxon_col: str,
+    breakpoint: bool,
+    progress: bool,
+    drop_flagged: Any,
+) -> FitResult:
+    """:func:`fit` of every method but pgls, on checked arguments (without the temperature
+    account, which :func:`fit` adds)."""
     from comparo.base.arguments import check_bootstrap
     from comparo.fitting.flags import drop_rules, flag_points
 
@@ -205,33 +213,29 @@ def fit(
                 progress=progress,
             ),
         )
-    return _with_temperature(
-        FitResult(
-            method=method,
-            x=x,
-            y=y,
-            log=log,
-            n=len(X),
-            slope=core.slope,
-            slope_ci=core.slope_ci,
-            intercept=core.intercept,
-            intercept_ci=core.intercept_ci,
-            r2=core.r2,
-            ci_level=float(ci),
-            against=core.test,
-            groups=group_rows,
-            group_tests=group_tests,
-            outliers=[f.to_dict() for f in flags.flags],
-            excluded=excluded,
-            breakpoint=bp,
-            bootstrap=boot,
-            points=_points(X, Y, labels, groups if by else None, core),
-            notes=tuple(notes),
-            refit_without_flagged=refit,
-            cautions=fit_cautions(method, len(X), X, Y, group_rows),
-        ),
-        table,
-        taxon_col,
+    return FitResult(
+        method=method,
+        x=x,
+        y=y,
+        log=log,
+        n=len(X),
+        slope=core.slope,
+        slope_ci=core.slope_ci,
+        intercept=core.intercept,
+        intercept_ci=core.intercept_ci,
+        r2=core.r2,
+        ci_level=float(ci),
+        against=core.test,
+        groups=group_rows,
+        group_tests=group_tests,
+        outliers=[f.to_dict() for f in flags.flags],
+        excluded=excluded,
+        breakpoint=bp,
+        bootstrap=boot,
+        points=_points(X, Y, labels, groups if by else None, core),
+        notes=tuple(notes),
+        refit_without_flagged=refit,
+        cautions=fit_cautions(method, len(X), X, Y, group_rows),
     )
 
 
@@ -256,7 +260,8 @@ def phylo_fit(table: pd.DataFrame, x: str, y: str, *, tree: Any, **options: Any)
 
 def _with_temperature(res: FitResult, table: pd.DataFrame, taxon_col: str) -> FitResult:
     """*res* with ``temperature``: what the harmonisation did to the temperature-sensitive
-    values behind the fitted taxa (:func:`comparo.validation.temperature.fit_temperature`; None for a
+    values behind the fitted taxa (:func:`comparo.validation.temperature.fit_temperature`; None for
+    a
     table that is not a comparo per-taxon table)."""
     from dataclasses import replace
 
@@ -333,7 +338,10 @@ def _pgls(
                 drop_rules(drop_flagged),
                 (),
                 None,
-                note="pgls fits carry no outlier or influence flags here; nothing was dropped and no refit was made",
+                note=(
+                    "pgls fits carry no outlier or influence flags here; nothing was dropped and "
+                    "no refit was made"
+                ),
             ),
         )
     return res
@@ -346,7 +354,8 @@ def _check_points(
     n = len(X)
     if n < 3:
         raise UsageError(
-            f"{method} needs at least 3 usable points; {n} remain after excluding {len(excluded)} row(s)"
+            f"{method} needs at least 3 usable points; {n} remain after excluding {len(excluded)} "
+            f"row(s)"
             + (f" ({excluded[0]['label']}: {excluded[0]['reason']}, ...)" if excluded else "")
         )
     if np.ptp(X) == 0:
@@ -364,11 +373,10 @@ def _breakpoint(X: np.ndarray, Y: np.ndarray, ci: float, log: str) -> dict:
     if len(X) < 8:
         raise UsageError(f"a breakpoint fit needs at least 8 usable points; {len(X)} remain")
     bp = segmented_line(X, Y, ci)
-    inv = _inverse(log)
     return {
         "x_log": bp["x_log"],
-        "x": float(inv(bp["x_log"])),
-        "x_ci": [float(inv(v)) for v in bp["x_log_ci"]],
+        "x": float(from_scale(bp["x_log"], log)),
+        "x_ci": [float(from_scale(v, log)) for v in bp["x_log_ci"]],
         **{k: v for k, v in bp.items() if k not in ("x_log",)},
     }
 

@@ -27,19 +27,19 @@ import numpy as np
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import json_safe as _json
+from comparo.base.numbers import number
+from comparo.base.progress import ProgressBar
 from comparo.base.results import Result
-from comparo.fitting.core import slope_from_moments
-from comparo.fitting.resampling import _jackknife_moments, _progress_bar
 from comparo.fitting.result import FitResult
 from comparo.fitting.scaling import fit, renamed_against
+from comparo.fitting.slope_spread import analytic_se, measurement_error_mc, taxon_jackknife
 
 BASIS_STEPS = ("reported", "computed", "digitized", "proxy", "assumed")
 #: A refit that moves the slope by at least this many analytic SEs counts as influential.
 SHIFT_THRESHOLD = 1.0
-_MOMENT_METHODS = ("ols", "sma", "ma")
 
 
-def _loso_lines(
+def loso_lines(
     rows: list[dict], total: int, fitted: str, refit: Callable[[dict], str]
 ) -> list[str]:
     """The leave-one-source-out lines of a summary: a heading for *total* sources, then one
@@ -158,22 +158,28 @@ class SensitivityResult(Result):
 
         j, m = self.jackknife_se, self.measurement_error
         notes = [
-            f"jackknife SE {_fmt(j.get('slope_jackknife'))}; analytic SE {_fmt(j.get('slope_analytic'))}"
+            f"jackknife SE {number(j.get('slope_jackknife'), 4, '-')}; analytic SE "
+            f"{number(j.get('slope_analytic'), 4, '-')}"
         ]
         if m.get("spread") is not None:
             notes.append(
-                f"measurement error ({m['draws']} draws): spread {_fmt(m['spread'])}, total SE {_fmt(m['total_se'])}"
+                f"measurement error ({m['draws']} draws): spread {number(m['spread'], 4, '-')}, "
+                f"total SE {number(m['total_se'], 4, '-')}"
             )
         notes += [f"not available: {u}" for u in self.unavailable]
         notes.append(f"verdict: {self.verdict}")
-        title = f"sensitivity of the {self.method.upper()} slope {_fmt(self.slope)} (SE {_fmt(self.slope_se)})"
+        title = (
+            f"sensitivity of the {self.method.upper()} slope {number(self.slope, 4, '-')} (SE "
+            f"{number(self.slope_se, 4, '-')})"
+        )
         return frame_html(title, self.to_frame(), notes)
 
     def summary(self, top: int = 5) -> str:
         """Plain-text account for people."""
-        f = _fmt
+        f = functools.partial(number, digits=4, missing="-")
         lines = [
-            f"sensitivity of the {self.method.upper()} slope {f(self.slope)} (SE {f(self.slope_se)})"
+            f"sensitivity of the {self.method.upper()} slope {f(self.slope)} (SE "
+            f"{f(self.slope_se)})"
         ]
         if self.leave_one_source_out is not None:
 
@@ -181,11 +187,11 @@ class SensitivityResult(Result):
                 lo, hi = r["slope_ci"]
                 flip = "  flips the test" if r["flips"] else ""
                 return (
-                    f"slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}  p {f(r['p'])}  "
-                    f"shift {f(r['shift_se'])} SE{flip}"
+                    f"slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}  p {f(r['p'])}  shift "
+                    f"{f(r['shift_se'])} SE{flip}"
                 )
 
-            lines += _loso_lines(
+            lines += loso_lines(
                 self.leave_one_source_out[:top], len(self.leave_one_source_out), "slope", refit
             )
         if self.by_basis is not None:
@@ -193,381 +199,27 @@ class SensitivityResult(Result):
             for r in self.by_basis:
                 lo, hi = r["slope_ci"]
                 lines.append(
-                    f"    {'+'.join(r['bases']):<40} n {r['n']:>4}  slope {f(r['slope'])}  CI {f(lo)} .. {f(hi)}"
+                    f"    {'+'.join(r['bases']):<40} n {r['n']:>4}  slope {f(r['slope'])}  CI "
+                    f"{f(lo)} .. {f(hi)}"
                 )
         j = self.jackknife_se
         lines.append(
-            f"  jackknife SE (leave one taxon out) {f(j['slope_jackknife'])}; analytic SE {f(j['slope_analytic'])}"
+            f"  jackknife SE (leave one taxon out) {f(j['slope_jackknife'])}; analytic SE "
+            f"{f(j['slope_analytic'])}"
         )
         if j.get("note"):
             lines.append(f"    note: {j['note']}")
         m = self.measurement_error
         if m.get("spread") is not None:
             lines.append(
-                f"  measurement error ({m['draws']} draws, seed {m['seed']}): spread {f(m['spread'])}, "
-                f"sampling SE {f(m['sampling_se'])}, total {f(m['total_se'])}"
+                f"  measurement error ({m['draws']} draws, seed {m['seed']}): spread "
+                f"{f(m['spread'])}, sampling SE {f(m['sampling_se'])}, total {f(m['total_se'])}"
             )
         if m.get("note"):
             lines.append(f"    note: {m['note']}")
         lines += [f"  not available: {u}" for u in self.unavailable]
         lines.append(f"  verdict: {self.verdict}")
         return "\n".join(lines)
-
-
-def _fmt(v: Any) -> str:
-    if v is None or (isinstance(v, float) and not math.isfinite(v)):
-        return "-"
-    return f"{v:.4g}"
-
-
-# --------------------------------------------------------------------------- pieces
-
-
-def analytic_se(result: FitResult) -> float:
-    """Analytic standard error of the slope of a fit.
-
-    OLS: s_e / (s_X sqrt(n - 1)), i.e. |b| sqrt((1 - r^2) / ((n - 2) r^2));
-    SMA: |b| sqrt((1 - r^2)/(n - 2)) (Warton et al. 2006, Biol. Rev. 81, 259-291);
-    other methods: CI width / (2 t(n - 2)), the normal-theory reading of the interval.
-    """
-    from scipy import stats
-
-    n, b, r2 = result.n, result.slope, result.r2
-    if result.method == "ols" and 0 < r2 <= 1 and n > 2:
-        return abs(b) * math.sqrt((1 - r2) / ((n - 2) * r2)) if r2 < 1 else 0.0
-    if result.method == "sma" and 0 <= r2 <= 1 and n > 2:
-        return abs(b) * math.sqrt((1 - r2) / (n - 2))
-    lo, hi = result.slope_ci
-    if not (math.isfinite(lo) and math.isfinite(hi)) or n < 3:
-        return float("nan")
-    return (hi - lo) / (2 * stats.t.ppf(0.5 + result.ci_level / 2, n - 2))
-
-
-def jackknife_se(values: np.ndarray) -> float:
-    """Jackknife standard error from leave-one-out estimates theta_(i).
-
-    SE = sqrt((n - 1)/n * sum_i (theta_(i) - theta_bar)^2)  (Quenouille 1956; Efron 1982, ch. 2).
-    """
-    v = np.asarray(values, dtype=float)
-    n = len(v)
-    return float(math.sqrt((n - 1) / n * np.sum((v - v.mean()) ** 2)))
-
-
-def lognormal_draws(
-    value: np.ndarray, u: np.ndarray, draws: int, rng: np.random.Generator
-) -> np.ndarray:
-    """Draws (draws x n) with mean ``value`` and standard deviation ``u``.
-
-    Positive values: log-normal with sigma^2 = ln(1 + (u/v)^2), mu = ln v - sigma^2/2, the
-    log-normal of given mean and standard deviation (moment matching); zero or
-    non-positive values: normal. u = 0 returns v exactly.
-    """
-    v = np.asarray(value, dtype=float)
-    s = np.nan_to_num(np.asarray(u, dtype=float), nan=0.0)
-    z = rng.standard_normal((draws, len(v)))
-    pos = v > 0
-    with np.errstate(divide="ignore", invalid="ignore"):
-        sig2 = np.where(pos, np.log1p((s / np.where(pos, v, 1.0)) ** 2), 0.0)
-        logn = np.where(pos, v, 1.0) * np.exp(np.sqrt(sig2) * z - sig2 / 2)
-    return np.where(pos, np.where(s > 0, logn, v), v + s * z)
-
-
-def _transform(log: str, a: np.ndarray) -> np.ndarray:
-    if log == "10":
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.log10(a)
-    if log == "e":
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.log(a)
-    return a
-
-
-#: Monte Carlo draws are capped for methods refitted one draw at a time (seconds per 100 draws at n = 60 here).
-MC_CAP = {"lts": 200, "pgls": 200}
-#: LTS starts per Monte Carlo draw (random two-point starts; the full fit uses all pairs up to 3000).
-MC_LTS_STARTS = 300
-
-
-def huber_slopes(
-    X: np.ndarray, Y: np.ndarray, c: float = 1.345, max_iter: int = 50, tol: float = 1e-10
-) -> np.ndarray:
-    """Huber M-estimate slopes of many data sets at once (rows of X and Y).
-
-    The IRLS of statsmodels RLM (HuberT, scale = median|r|/0.6745 re-estimated
-    each step, OLS start), run for all rows together until no coefficient moves
-    more than *tol* (or *max_iter* steps); matches :func:`comparo.fitting.huber_line`
-    to about 1e-8.
-    """
-
-    def wls(w):
-        sw = w.sum(1, keepdims=True)
-        xm, ym = (w * X).sum(1, keepdims=True) / sw, (w * Y).sum(1, keepdims=True) / sw
-        b = (w * (X - xm) * (Y - ym)).sum(1) / (w * (X - xm) ** 2).sum(1)
-        return ym[:, 0] - b * xm[:, 0], b
-
-    a, b = wls(np.ones_like(X))
-    for _ in range(max_iter):
-        r = Y - a[:, None] - b[:, None] * X
-        scale = np.median(np.abs(r), axis=1) / 0.6744897501960817
-        with np.errstate(divide="ignore", invalid="ignore"):
-            u = np.abs(r) / np.where(scale > 0, scale, 1.0)[:, None]
-            w = np.where(u > c, c / u, 1.0)
-        w[scale <= 0] = 1.0
-        a2, b2 = wls(w)
-        done = np.nanmax(np.abs(b2 - b)) <= tol and np.nanmax(np.abs(a2 - a)) <= tol
-        a, b = a2, b2
-        if done:
-            break
-    return b
-
-
-def _draw_slopes(
-    method: str,
-    X: np.ndarray,
-    Y: np.ndarray,
-    labels: list[str],
-    result: FitResult,
-    fit_options: dict,
-    seed: int,
-) -> np.ndarray:
-    """Slopes of the fit *method* on each row of X, Y (fitted scale)."""
-    if method in _MOMENT_METHODS:
-        n = X.shape[1]
-        xc, yc = X - X.mean(axis=1, keepdims=True), Y - Y.mean(axis=1, keepdims=True)
-        sxx, syy, sxy = (
-            (xc * xc).sum(1) / (n - 1),
-            (yc * yc).sum(1) / (n - 1),
-            (xc * yc).sum(1) / (n - 1),
-        )
-        return slope_from_moments(method, sxx, syy, sxy)
-    out = np.full(X.shape[0], np.nan)
-    ok = np.isfinite(X).all(1) & np.isfinite(Y).all(1)
-    if method == "robust":
-        if ok.any():
-            out[ok] = huber_slopes(X[ok], Y[ok])
-        return out
-    if method == "lts":
-        from comparo.fitting import LTS_CUT, lts_fit, ols_line
-
-        for k in np.flatnonzero(ok):
-            raw = lts_fit(X[k], Y[k], max_starts=MC_LTS_STARTS, seed=seed + k)
-            std = (
-                (Y[k] - raw.intercept - raw.slope * X[k]) / raw.scale
-                if raw.scale > 0
-                else np.zeros(X.shape[1])
-            )
-            kept = np.abs(std) <= LTS_CUT
-            if kept.sum() < 3 or np.ptp(X[k][kept]) == 0:
-                kept = raw.subset
-            out[k] = ols_line(X[k][kept], Y[k][kept]).slope
-        return out
-    if method == "pgls":
-        import pandas as pd
-
-        from comparo.phylo import pgls, read_tree
-
-        opts = {k: v for k, v in fit_options.items() if k in ("tree", "tree_labels", "reml")}
-        if isinstance(opts.get("tree"), str):
-            opts["tree"] = read_tree(opts["tree"])
-        lam = result.lambda_ if result.lambda_ is not None else "ml"
-        for k in np.flatnonzero(ok):
-            t = pd.DataFrame({"taxon": labels, "x": X[k], "y": Y[k]})
-            out[k] = pgls(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
-        return out
-    raise UsageError(f"measurement-error Monte Carlo: unknown method {method!r}")
-
-
-def measurement_error_mc(
-    table,
-    result: FitResult,
-    *,
-    log: str,
-    mc: int,
-    seed: int,
-    taxon_col: str = "taxon",
-    progress: bool = False,
-    fit_options: dict | None = None,
-) -> dict:
-    """Monte Carlo propagation of the per-taxon uncertainties ``Q_u`` into the slope.
-
-    Each draw replaces every used x and y value by a draw of mean value, sd ``Q_u``
-    (:func:`lognormal_draws`), refits on the same taxa and keeps the slope.
-    ``spread`` is the sd of those slopes, ``sampling_se`` the fit's analytic SE,
-    ``total_se`` = sqrt(spread^2 + sampling_se^2) (the two treated as
-    independent; the propagation of distributions of JCGM 101:2008).
-
-    Every fit method is supported: ols, sma and ma from moments and robust by a
-    vectorised IRLS, all draws at once; lts and pgls one draw at a time, capped at
-    ``MC_CAP`` draws (``draws`` reports the number made, ``draws_asked`` the
-    number asked, ``note`` says so). LTS draws use ``MC_LTS_STARTS`` random
-    starts; PGLS draws hold Pagel's lambda at the full-data estimate (the spread
-    is that of the slope given lambda).
-    """
-    x, y, method = result.x, result.y, result.method
-    fit_options = dict(fit_options or {})
-    out = {
-        "draws": int(mc),
-        "seed": int(seed),
-        "slope_mean": None,
-        "spread": None,
-        "sampling_se": analytic_se(result),
-        "total_se": None,
-        "share": None,
-        "fixed_x": 0,
-        "fixed_y": 0,
-        "note": None,
-    }
-    notes = []
-    if method in MC_CAP and mc > MC_CAP[method]:
-        notes.append(
-            f"{method} is refitted one draw at a time: {MC_CAP[method]} of the {mc} draws asked were made"
-        )
-        out["draws_asked"] = int(mc)
-        mc = MC_CAP[method]
-        out["draws"] = int(mc)
-    if method == "lts":
-        notes.append(f"each LTS draw starts from {MC_LTS_STARTS} random point pairs")
-    if method == "pgls":
-        notes.append("PGLS draws hold Pagel's lambda at the full-data estimate")
-    if mc < 2:
-        out["note"] = "fewer than 2 draws asked"
-        return out
-    labels = [p["label"] for p in result.points]
-    if method == "pgls":
-        labels = _pgls_labels(table, result, taxon_col)
-        if len(labels) != result.n:
-            out["note"] = "; ".join(
-                notes
-                + ["the PGLS taxa could not be matched to the table; Monte Carlo not computed"]
-            )
-            return out
-    t = table.set_index(table[taxon_col].astype(str)) if taxon_col in table.columns else table
-    idx = t.index.get_indexer(labels) if taxon_col in table.columns else np.arange(len(labels))
-    if not labels or (idx < 0).any() or t.index.has_duplicates:
-        out["note"] = "; ".join(
-            notes + ["taxon labels do not match the table one to one; Monte Carlo not computed"]
-        )
-        return out
-    rows = t.iloc[idx]
-    out["points"] = len(labels)
-    vals, us = {}, {}
-    for q in (x, y):
-        vals[q] = np.asarray(rows[q], dtype=float)
-        us[q] = (
-            np.asarray(rows[f"{q}_u"], dtype=float)
-            if f"{q}_u" in rows.columns
-            else np.full(len(rows), np.nan)
-        )
-        out[f"fixed_{'x' if q == x else 'y'}"] = int(np.sum(~(np.nan_to_num(us[q], nan=0.0) > 0)))
-    rng = np.random.default_rng(seed)
-    slopes = np.empty(mc)
-    chunk = max(1, min(mc, 2_000_000 // max(1, len(labels))))
-    with _progress_bar(progress, mc) as bar:
-        task = bar.add_task("measurement error", total=mc) if bar is not None else None
-        for start in range(0, mc, chunk):
-            k = min(chunk, mc - start)
-            X = _transform(log, lognormal_draws(vals[x], us[x], k, rng))
-            Y = _transform(log, lognormal_draws(vals[y], us[y], k, rng))
-            slopes[start : start + k] = _draw_slopes(
-                method, X, Y, labels, result, fit_options, seed
-            )
-            if bar is not None:
-                bar.update(task, advance=k)
-    ok = np.isfinite(slopes)
-    if ok.sum() < 2:
-        out["note"] = "; ".join(notes + ["no finite slopes among the draws"])
-        return out
-    good = slopes[ok]
-    spread = float(
-        np.std(good - good[0], ddof=1)
-    )  # centred on one draw: identical draws give exactly 0
-    se = out["sampling_se"]
-    total = math.sqrt(spread**2 + se**2) if math.isfinite(se) else float("nan")
-    out.update(
-        slope_mean=float(np.mean(slopes[ok])),
-        spread=spread,
-        total_se=total,
-        share=(spread**2 / total**2) if total > 0 else 0.0,
-    )
-    if ok.sum() < mc:
-        notes.append(
-            f"{mc - int(ok.sum())} draw(s) gave no finite slope (non-positive draws on log axes) and were left out"
-        )
-    out["note"] = "; ".join(notes) or None
-    return out
-
-
-def _pgls_labels(table, result: FitResult, taxon_col: str) -> list[str]:
-    """The taxa a PGLS fit used (a PGLS result keeps no per-point table)."""
-    if taxon_col not in table.columns:
-        return []
-    gone = {e["label"] for e in result.excluded} | set(
-        (result.phylo or {}).get("taxa_without_tips") or []
-    )
-    return [lab for lab in table[taxon_col].astype(str) if lab not in gone]
-
-
-def taxon_jackknife(result: FitResult, fit_kwargs: dict, table=None) -> dict:
-    """Leave-one-taxon-out slopes and their jackknife SE beside the analytic SE.
-
-    PGLS (needs *table*): each taxon is left out of the table and the PGLS line
-    refitted on the pruned tree with Pagel's lambda held at the full-data estimate.
-    """
-    if result.method == "pgls" and table is not None:
-        taxon_col = fit_kwargs.get("taxon_col", "taxon")
-        labels = _pgls_labels(table, result, taxon_col)
-        if len(labels) == result.n and result.n >= 4:
-            kw = dict(fit_kwargs)
-            kw["lambda_"] = (
-                result.lambda_ if result.lambda_ is not None else kw.get("lambda_", "ml")
-            )
-            if isinstance(kw.get("tree"), str):
-                from comparo.phylo import read_tree
-
-                kw["tree"] = read_tree(kw["tree"])
-            names = table[taxon_col].astype(str)
-            b = np.array(
-                [fit(table[names != lab], result.x, result.y, "pgls", **kw).slope for lab in labels]
-            )
-            se_a = analytic_se(result)
-            se_j = jackknife_se(b)
-            return {
-                "slope_jackknife": se_j,
-                "slope_analytic": se_a,
-                "ratio": se_j / se_a if se_a > 0 else None,
-                "n": int(result.n),
-                "note": "PGLS leave-one-out refits hold Pagel's lambda at the full-data estimate",
-            }
-    pts = result.points_frame()
-    if pts.empty:
-        return {
-            "slope_jackknife": None,
-            "slope_analytic": analytic_se(result),
-            "ratio": None,
-            "n": int(result.n),
-            "note": f"leave-one-taxon-out jackknife is not computed for {result.method}",
-        }
-    X, Y = pts["x_fit"].to_numpy(float), pts["y_fit"].to_numpy(float)
-    n = len(X)
-    if result.method in _MOMENT_METHODS:
-        b, _ = _jackknife_moments(result.method, X, Y)
-    else:
-        import pandas as pd
-
-        b = np.empty(n)
-        kw = {k: v for k, v in fit_kwargs.items() if k not in ("log", "taxon_col", "against")}
-        for i in range(n):
-            keep = np.arange(n) != i
-            t = pd.DataFrame({"taxon": pts["label"][keep], "x": X[keep], "y": Y[keep]})
-            b[i] = fit(t, "x", "y", log="none", **kw).slope
-    se_a = analytic_se(result)
-    se_j = jackknife_se(b)
-    return {
-        "slope_jackknife": se_j,
-        "slope_analytic": se_a,
-        "ratio": se_j / se_a if se_a > 0 else None,
-        "n": int(n),
-    }
 
 
 def _refit(
@@ -579,7 +231,7 @@ def _refit(
     (:func:`comparo.curation.harmonise.per_taxon` on their rows); the others keep their
     per-taxon values from ``base_table``.
     """
-    table = _rebuilt(ds, h, rows, changed, base_table)
+    table = rebuilt_table(ds, h, rows, changed, base_table)
     if x not in table.columns or y not in table.columns:
         return None, 0, f"no {x if x not in table.columns else y} values remain"
     n_left = _points(table, x, y)
@@ -589,7 +241,7 @@ def _refit(
         return None, n_left, str(exc)
 
 
-def _rebuilt(ds, h, rows, changed, base_table, keep_cols: tuple[str, ...] = ()):
+def rebuilt_table(ds, h, rows, changed, base_table, keep_cols: tuple[str, ...] = ()):
     """The per-taxon table after a change of the rows flagged ``changed``: the taxa with a
     changed row rebuilt from their rows, the others as in ``base_table``; *keep_cols* (e.g. a
     factor) are carried over from ``base_table`` for the rebuilt taxa."""
@@ -644,7 +296,7 @@ def _record(
     }
 
 
-def _flips(p_full: float | None, p: float | None, alpha: float) -> bool:
+def flips(p_full: float | None, p: float | None, alpha: float) -> bool:
     return p_full is not None and p is not None and (p_full < alpha) != (p < alpha)
 
 
@@ -730,14 +382,7 @@ def sensitivity(
     unavailable = []
     ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
     if ds is not None:
-        from comparo.curation.harmonise import harmonise, per_taxon
-
-        h = harmonise(ds, temperature=temperature)
-        if taxa is not None:
-            h = dataclasses.replace(
-                h, rows=h.rows[h.rows["accepted"].astype(str).isin(set(map(str, taxa)))]
-            )
-        table = per_taxon(ds, harmonised=h)
+        h, table = _harmonised(ds, temperature, taxa)
     else:
         table = dataset_or_table
         why = no_sources or "a plain table does not record the source and basis of each value"
@@ -750,40 +395,12 @@ def sensitivity(
     p_full = _p(base)
     loso = by_basis = None
     if ds is not None:
-        if x not in table.columns or y not in table.columns:
-            raise UsageError(
-                f"{x!r} and {y!r} must both be quantities of the dataset for the source-level parts"
-            )
-        rows = h.rows[h.rows["quantity_key"].isin([x, y])].copy()
-        cols = [taxon_col] + [
-            c for c in table.columns if c.startswith((f"{x}", f"{y}")) and c != taxon_col
-        ]
-        xy_table = table[[c for c in dict.fromkeys(["taxon", *cols]) if c in table.columns]]
-        used = rows[rows["status"] == "used"]
-        refit = functools.partial(
-            _refit, ds, h, base_table=xy_table, x=x, y=y, method=method, kwargs=kw
-        )
-        loso = _leave_one_source_out(rows, used, refit, base, se, p_full, alpha, progress)
-        by_basis = _basis_steps(rows, used, refit, base, alpha)
+        loso, by_basis = _source_parts(ds, h, table, base, kw, alpha, progress)
     jack = taxon_jackknife(base, kw, table=table)
-    me = measurement_error_mc(
-        table,
-        base,
-        log=str(log),
-        mc=mc,
-        seed=seed,
-        taxon_col=taxon_col,
-        progress=progress,
-        fit_options=fit_options,
-    )
-    verdict = make_verdict(
-        loso,
-        by_basis,
-        jack,
-        me,
-        against=against,
-        unavailable=(no_sources or "a plain table") if unavailable else False,
-    )
+    me_options = dict(taxon_col=taxon_col, progress=progress, fit_options=fit_options)
+    me = measurement_error_mc(table, base, log=str(log), mc=mc, seed=seed, **me_options)
+    plain = (no_sources or "a plain table") if unavailable else False
+    verdict = make_verdict(loso, by_basis, jack, me, against=against, unavailable=plain)
     test = {"value": against, "p": p_full} if against is not None else None
     return SensitivityResult(
         method=method,
@@ -802,15 +419,48 @@ def sensitivity(
     )
 
 
+def _harmonised(ds, temperature: bool, taxa: list[str] | None):
+    """The harmonised rows of *ds* (only those of *taxa* when given) and its per-taxon table."""
+    from comparo.curation.harmonise import harmonise, per_taxon
+
+    h = harmonise(ds, temperature=temperature)
+    if taxa is not None:
+        h = dataclasses.replace(
+            h, rows=h.rows[h.rows["accepted"].astype(str).isin(set(map(str, taxa)))]
+        )
+    return h, per_taxon(ds, harmonised=h)
+
+
+def _source_parts(ds, h, table, base: FitResult, kw: dict, alpha: float, progress: bool):
+    """Leave-one-source-out and the basis steps of the fit *base* (its options *kw*)."""
+    x, y, taxon_col = base.x, base.y, kw["taxon_col"]
+    if x not in table.columns or y not in table.columns:
+        raise UsageError(
+            f"{x!r} and {y!r} must both be quantities of the dataset for the source-level parts"
+        )
+    rows = h.rows[h.rows["quantity_key"].isin([x, y])].copy()
+    cols = [taxon_col] + [
+        c for c in table.columns if c.startswith((f"{x}", f"{y}")) and c != taxon_col
+    ]
+    xy_table = table[[c for c in dict.fromkeys(["taxon", *cols]) if c in table.columns]]
+    used = rows[rows["status"] == "used"]
+    refit = functools.partial(
+        _refit, ds, h, base_table=xy_table, x=x, y=y, method=base.method, kwargs=kw
+    )
+    se, p_full = analytic_se(base), _p(base)
+    loso = _leave_one_source_out(rows, used, refit, base, se, p_full, alpha, progress)
+    return loso, _basis_steps(rows, used, refit, base, alpha)
+
+
 def _leave_one_source_out(
     rows, used, refit, base: FitResult, se: float, p_full, alpha: float, progress: bool
 ) -> list[dict]:
     """Refit without each source in turn; most influential (largest |shift_se|) first."""
     loso = []
-    for sid, r, changed in _without_each_source(rows, used, progress):
+    for sid, r, changed in without_each_source(rows, used, progress):
         res, n_left, why = refit(rows=r, changed=changed)
         rec = {"source_id": sid, **_record(res, base.slope, se, n_left, why)}
-        rec["flips"] = _flips(p_full, rec["p"], alpha)
+        rec["flips"] = flips(p_full, rec["p"], alpha)
         loso.append(rec)
     loso.sort(
         key=lambda d: (
@@ -822,19 +472,17 @@ def _leave_one_source_out(
     return loso
 
 
-def _without_each_source(rows, used, progress: bool):
+def without_each_source(rows, used, progress: bool):
     """For each source of the *used* rows, in order of its id: ``(source_id, rows with that
     source's rows excluded, mask of those rows)``, with a progress bar when asked."""
     sources = sorted(used["source_id"].astype(str).unique())
-    with _progress_bar(progress, len(sources)) as bar:
-        task = bar.add_task("leave one source out", total=len(sources)) if bar is not None else None
+    with ProgressBar(progress, "leave one source out", len(sources)) as bar:
         for sid in sources:
             r = rows.copy()
             changed = (r["source_id"].astype(str) == sid).to_numpy()
             r.loc[changed, "status"] = "excluded"
             yield sid, r, changed
-            if bar is not None:
-                bar.update(task, advance=1)
+            bar.advance()
 
 
 def _basis_steps(rows, used, refit, base: FitResult, alpha: float) -> list[dict]:
@@ -862,7 +510,7 @@ def _basis_steps(rows, used, refit, base: FitResult, alpha: float) -> list[dict]
         width = (res.slope_ci[1] - res.slope_ci[0]) if res is not None else float("nan")
         pw = (prev.slope_ci[1] - prev.slope_ci[0]) if prev is not None else float("nan")
         rec["ci_change"] = width / pw - 1 if prev is not None and pw > 0 else None
-        rec["flips"] = _flips(_p(prev), rec["p"], alpha) if prev is not None else False
+        rec["flips"] = flips(_p(prev), rec["p"], alpha) if prev is not None else False
         by_basis.append(rec)
         if res is not None:
             prev = res
@@ -934,7 +582,8 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool | 
                 bits.append("flips the test")
             if r["ci_change"] is not None:
                 bits.append(
-                    f"CI {'widens' if r['ci_change'] >= 0 else 'narrows'} {abs(100 * r['ci_change']):.0f}%"
+                    f"CI {'widens' if r['ci_change'] >= 0 else 'narrows'} "
+                    f"{abs(100 * r['ci_change']):.0f}%"
                 )
             parts.append(f"sensitive to {added} values ({', '.join(bits)})")
     if jack.get("ratio") is not None and math.isfinite(jack["ratio"]) and jack["ratio"] > 1.5:
@@ -947,8 +596,8 @@ def make_verdict(loso, by_basis, jack, me, *, against=None, unavailable: bool | 
         where = " where known" if fixed else ""
         if share >= 0.5:  # one measure throughout: the share of the slope variance
             parts.append(
-                f"measurement error{where} dominates the slope uncertainty "
-                f"({100 * share:.0f}% of the slope variance)"
+                f"measurement error{where} dominates the slope uncertainty ({100 * share:.0f}% of "
+                f"the slope variance)"
             )
         elif share >= 0.1:
             parts.append(
@@ -1055,266 +704,3 @@ def sensitivity_by_group(
         except UsageError as exc:
             out[g] = f"not computed for group {g}: {exc}"
     return out
-
-
-# --------------------------------------------------------------------------- several predictors
-
-
-@dataclass(frozen=True)
-class MultipleSensitivity(Result):
-    """How much the coefficients of a multiple regression depend on single sources.
-
-    Attributes
-    ----------
-    method, y : str
-    predictors : tuple of str
-    terms : dict
-        term -> ``{"estimate", "se"}`` of the fit on all data (fitted log scale).
-    leave_one_source_out : list of dict or None
-        ``{"source_id", "n", "terms": {term: {"estimate", "shift_se"}}, "shift_se", "term",
-        "p", "flips", "note"}``, most influential first; ``shift_se`` of a term is
-        (b_without - b) / SE(b); the record's ``shift_se`` and ``term`` are those of the
-        predictor or factor term moved most (the intercept is reported, not ranked). ``p`` is
-        the joint ``against`` test's p without the source (None without ``against``).
-        None for a plain table.
-    verdict : str
-    unavailable : tuple of str
-    """
-
-    method: str
-    y: str
-    predictors: tuple[str, ...]
-    terms: dict
-    leave_one_source_out: list[dict] | None
-    verdict: str
-    unavailable: tuple[str, ...] = ()
-
-    def to_dict(self) -> dict:
-        """JSON-safe dict: ``leave_one_source_out``, ``terms``, ``verdict``, ``unavailable``."""
-        return _json(
-            {
-                "leave_one_source_out": self.leave_one_source_out,
-                "terms": self.terms,
-                "verdict": self.verdict,
-                "unavailable": list(self.unavailable),
-            }
-        )
-
-    def to_frame(self):
-        """One row per source left out (most influential first): ``source_id``, ``n``,
-        ``term`` moved most and its ``shift_se``, ``p`` and ``flips``; empty for a table."""
-        import pandas as pd
-
-        cols = ["source_id", "n", "term", "shift_se", "p", "flips", "note"]
-        rows = [{c: r.get(c) for c in cols} for r in self.leave_one_source_out or []]
-        return pd.DataFrame(rows, columns=cols)
-
-    def summary(self, top: int = 5) -> str:
-        """Plain-text account for people."""
-        f = _fmt
-        named = ", ".join(
-            f"{t} {f(v['estimate'])} (SE {f(v['se'])})"
-            for t, v in self.terms.items()
-            if t != "intercept"
-        )
-        lines = [f"sensitivity of the {self.method.upper()} coefficients: {named}"]
-        if self.leave_one_source_out is not None:
-
-            def refit(r: dict) -> str:
-                shifts = "  ".join(
-                    f"{t} {f(v['estimate'])} ({f(v['shift_se'])} SE)"
-                    for t, v in r["terms"].items()
-                    if t != "intercept"
-                )
-                return shifts + ("  flips the joint test" if r["flips"] else "")
-
-            lines += _loso_lines(
-                self.leave_one_source_out[:top], len(self.leave_one_source_out), "terms", refit
-            )
-        lines += [f"  not available: {u}" for u in self.unavailable]
-        lines.append(f"  verdict: {self.verdict}")
-        return "\n".join(lines)
-
-
-def multiple_sensitivity(
-    dataset_or_table: Any,
-    y: str,
-    predictors: list[str],
-    method: str = "ols",
-    *,
-    factor: str | None = None,
-    against: dict[str, float] | None = None,
-    ci: float = 0.95,
-    log: str = "10",
-    temperature: bool = True,
-    taxon_col: str = "taxon",
-    progress: bool = False,
-    **fit_options: Any,
-) -> MultipleSensitivity:
-    """Leave-one-source-out for a multiple regression (:func:`comparo.fitting.multiple_fit`).
-
-    Each source's rows are set aside in turn and the per-taxon table rebuilt as for the
-    one-predictor :func:`sensitivity` (a taxon measured by two sources keeps the other's
-    value); the model is refitted on it. ``shift_se`` = (b_without - b) / SE(b) for every
-    term. A plain table records no source per value, so the part is then unavailable.
-    *fit_options*: ``tree``, ``lambda_``, ``tree_labels`` for pgls. The jackknife and the
-    measurement-error Monte Carlo of the one-predictor sensitivity are not computed here.
-    """
-    import pandas as pd
-
-    from comparo.base.arguments import check_kind, check_level
-    from comparo.fitting.multiple import multiple_fit
-    from comparo.validation.dataset import Dataset, as_dataset
-
-    if isinstance(dataset_or_table, str | os.PathLike):  # a dataset folder
-        dataset_or_table = as_dataset(dataset_or_table, "dataset_or_table")
-    check_kind(
-        dataset_or_table,
-        (Dataset, pd.DataFrame),
-        "dataset_or_table",
-        "a Dataset (comparo.load(FOLDER)), a dataset folder or a per-taxon DataFrame "
-        "(comparo.tabulate)",
-    )
-    ci = check_level(ci)
-    predictors = list(predictors)
-    kw = dict(
-        factor=factor,
-        method=method,
-        log=str(log),
-        ci=ci,
-        taxon_col=taxon_col,
-        against=against,
-        **fit_options,
-    )
-    ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
-    unavailable = []
-    if ds is not None:
-        from comparo.curation.harmonise import harmonise, per_taxon
-
-        h = harmonise(ds, temperature=temperature)
-        table = per_taxon(ds, harmonised=h)
-    else:
-        table = dataset_or_table
-        unavailable.append(
-            "leave-one-source-out needs values with one source each (a plain table does "
-            "not record the source of each value)"
-        )
-    missing = [c for c in [y, *predictors] if c not in table.columns]
-    if ds is not None and missing:
-        raise UsageError(
-            f"{', '.join(map(repr, missing))} {'is not a quantity' if len(missing) == 1 else 'are not quantities'}"
-            " of the dataset; leave-one-source-out needs measured quantities (a derived column "
-            "rests on several sources per taxon)"
-        )
-    base = multiple_fit(table, y, predictors, **kw)
-    terms = {t["term"]: {"estimate": t["estimate"], "se": t["se"]} for t in base.terms}
-    p_full = None if base.against is None else base.against["p"]
-    loso = None
-    if ds is not None:
-        rows = h.rows[h.rows["quantity_key"].isin([y, *predictors])].copy()
-        stems = (y, *predictors)
-        cols = [c for c in table.columns if c == "taxon" or c.startswith(stems) or c == factor]
-        base_table = table[list(dict.fromkeys(["taxon", *cols]))]
-        used = rows[rows["status"] == "used"]
-        loso = []
-        for sid, r, changed in _without_each_source(rows, used, progress):
-            sub = _rebuilt(ds, h, r, changed, base_table, keep_cols=(factor,) if factor else ())
-            loso.append(_multiple_record(sid, sub, y, predictors, kw, terms, p_full, 1 - ci))
-        loso.sort(key=lambda d: -abs(d["shift_se"]) if d["shift_se"] is not None else 0.0)
-    verdict = _multiple_verdict(loso, against is not None)
-    return MultipleSensitivity(
-        method, y, tuple(predictors), terms, loso, verdict, tuple(unavailable)
-    )
-
-
-def _multiple_record(
-    sid: str, table, y: str, predictors: list[str], kw: dict, terms: dict, p_full, alpha: float
-) -> dict:
-    """One source left out: the refit's terms and shifts, or why there is none."""
-    import pandas as pd
-
-    from comparo.fitting.multiple import design, fit_design
-
-    cols = [y, *predictors]
-    n_left = 0
-    if all(c in table.columns for c in cols):
-        n_left = int(table[cols].apply(pd.to_numeric, errors="coerce").notna().all(axis=1).sum())
-    pgls = kw["method"] == "pgls"
-    try:  # multiple_fit without the flags (the refits need only the terms)
-        d = design(
-            table,
-            y,
-            predictors,
-            factor=kw["factor"],
-            log=kw["log"],
-            taxon_col=kw["taxon_col"],
-            tree=kw.get("tree") if pgls else None,
-            tree_labels=kw.get("tree_labels"),
-        )
-        res = fit_design(
-            d,
-            y,
-            predictors,
-            method=kw["method"],
-            lambda_=kw.get("lambda_", "ml"),
-            ci=kw["ci"],
-            log=kw["log"],
-            against=kw["against"],
-        )
-    except UsageError as exc:
-        return {
-            "source_id": sid,
-            "n": n_left,
-            "terms": None,
-            "shift_se": None,
-            "term": None,
-            "p": None,
-            "flips": False,
-            "note": str(exc),
-        }
-    out, best = {}, (None, None)
-    for t in res.terms:
-        ref = terms[t["term"]]
-        shift = (t["estimate"] - ref["estimate"]) / ref["se"] if ref["se"] else None
-        shift = shift if shift is not None and math.isfinite(shift) else None
-        out[t["term"]] = {"estimate": t["estimate"], "shift_se": shift}
-        if (
-            t["term"] != "intercept"
-            and shift is not None
-            and (best[1] is None or abs(shift) > abs(best[1]))
-        ):
-            best = (t["term"], shift)
-    p = None if res.against is None else res.against["p"]
-    return {
-        "source_id": sid,
-        "n": int(res.n),
-        "terms": out,
-        "shift_se": best[1],
-        "term": best[0],
-        "p": p,
-        "flips": _flips(p_full, p, alpha),
-        "note": None,
-    }
-
-
-def _multiple_verdict(loso: list[dict] | None, tested: bool) -> str:
-    """One line from the leave-one-source-out numbers of a multiple regression."""
-    if loso is None:
-        return "source-level checks not available for a plain table"
-    if not loso:
-        return "no sources to leave out"
-    mark = f"{SHIFT_THRESHOLD:g} SE or more" + (" or flips the joint test" if tested else "")
-    hit = [
-        r
-        for r in loso
-        if r["flips"] or (r["shift_se"] is not None and abs(r["shift_se"]) >= SHIFT_THRESHOLD)
-    ]
-    if not hit:
-        return f"no single source moves a coefficient by {mark}"
-    words = []
-    for r in hit[:3]:
-        bits = [f"{r['term']} {r['shift_se']:+.1f} SE"] if r["shift_se"] is not None else []
-        bits += ["flips the joint test"] if r["flips"] else []
-        words.append(f"{r['source_id']} ({', '.join(bits)})")
-    more = f" and {len(hit) - 3} more" if len(hit) > 3 else ""
-    return f"leaving out one source moves a coefficient by {mark}: {', '.join(words)}{more}"

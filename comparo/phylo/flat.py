@@ -65,12 +65,6 @@ class FlatTree:
         return int(self.parent.size)
 
     @property
-    def is_tip(self) -> np.ndarray:
-        out = np.zeros(self.n_nodes, dtype=bool)
-        out[: self.n_tips] = True
-        return out
-
-    @property
     def tip_dist(self) -> np.ndarray:
         """Root-to-tip distances, the diagonal of the BM covariance C."""
         return self.root_dist[: self.n_tips]

@@ -14,6 +14,7 @@ import numpy as np
 
 from comparo.base.errors import InputError, Problem, UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
+from comparo.base.scales import LOG_SCALES, se_on_scale, to_scale
 from comparo.phylo.flat import FlatTree, _flat
 from comparo.phylo.likelihood import _fit_lambda, _Gls, _gls, _lr
 from comparo.phylo.tips import _match
@@ -23,25 +24,10 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
 
-_LOGS = {"10": np.log10, "e": np.log, "none": None}
 _CONVENTION = {  # REML? -> how the reported log-likelihood is defined
     True: "REML: -1/2[(n-p)ln(2*pi*s2) + ln|V| + ln|X'V^-1X| + (n-p)], no +1/2 ln|X'X| term",
     False: "ML: -1/2[n ln(2*pi*RSS/n) + ln|V| + n]",
 }
-
-
-def _transform(v: np.ndarray, log: str) -> np.ndarray:
-    f = _LOGS[log]
-    return v if f is None else f(v)
-
-
-def _se_on_scale(u: np.ndarray, v: np.ndarray, log: str) -> np.ndarray:
-    """Standard uncertainty of a value moved to the fitted scale (first order)."""
-    if log == "10":
-        return u / (v * math.log(10.0))
-    if log == "e":
-        return u / v
-    return u
 
 
 def pgls(
@@ -146,8 +132,8 @@ def pgls(
         )
     ft, keep, pruned = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     keep_labels = [labels[i] for i in keep]
-    X1 = _transform(xv[keep], log)
-    Y = _transform(yv[keep], log)
+    X1 = to_scale(xv[keep], log)
+    Y = to_scale(yv[keep], log)
     se2, me_info = _measurement_error(table, keep, keep_labels, yv, log, se_col, se_map)
 
     lf = _fit_lambda(ft, np.column_stack([np.ones(n), X1]), Y, lambda_, se2, reml, ci)
@@ -267,7 +253,7 @@ def _check_options(
     check_name(by, "by", optional=True)
     check_level(ci)
     log = "none" if log is None else str(log)
-    if log not in _LOGS:
+    if log not in LOG_SCALES:
         raise UsageError(f"log must be one of 10, e, none; got {log!r}")
     if not 0.0 < ci < 1.0:
         raise UsageError(f"ci must be in (0, 1), got {ci}")
@@ -379,7 +365,7 @@ def _measurement_error(
         )
     missing_se = [keep_labels[i] for i in np.flatnonzero(~np.isfinite(u))]
     u = np.where(np.isfinite(u), u, 0.0)
-    se2 = _se_on_scale(u, yv[keep], log) ** 2
+    se2 = se_on_scale(u, yv[keep], log) ** 2
     return se2, {
         "source": se_col if se_col else "mapping",
         "tips_with_error": int(np.sum(se2 > 0)),

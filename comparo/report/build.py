@@ -10,6 +10,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+from comparo.base.progress import ProgressBar
 from comparo.report import per_fit as pieces
 from comparo.report import render
 from comparo.report.result import SENSITIVITY_DRAWS, ReportResult
@@ -53,7 +54,8 @@ def package_versions() -> dict[str, str]:
 def analyses(
     settings: dict, table, catalog=None, taxa_columns: set[str] | None = None
 ) -> tuple[list[dict], str, list[str]]:
-    """The fits to run (:func:`comparo.validation.settings.analyses`), where they come from, and the defaults used in words.
+    """The fits to run (:func:`comparo.validation.settings.analyses`), where they come from, and the
+    defaults used in words.
 
     Without ``[[analysis]]`` in comparo.toml: :data:`DEFAULT_ANALYSES` whose columns exist.
     """
@@ -127,28 +129,6 @@ def _write_run(
     atomic_write_text(out / "run.json", dumps(record) + "\n")
 
 
-class _Steps:
-    """A rich progress bar on standard error when asked (a terminal), else nothing."""
-
-    def __init__(self, on: bool, total: int):
-        self.bar = None
-        if on:
-            from rich.console import Console
-            from rich.progress import Progress
-
-            self.bar = Progress(console=Console(stderr=True), transient=True)
-            self.bar.start()
-            self.task = self.bar.add_task("report", total=total)
-
-    def step(self, what: str) -> None:
-        if self.bar is not None:
-            self.bar.update(self.task, advance=1, description=what)
-
-    def close(self) -> None:
-        if self.bar is not None:
-            self.bar.stop()
-
-
 def build_report(
     folder: str | Path,
     out_dir: str | Path,
@@ -198,11 +178,8 @@ def build_report(
         if since is not None:
             old = _load_old(since)
         out.mkdir(parents=True, exist_ok=True)
-        steps = _Steps(progress, 7 if since is None else 8)
-        try:
+        with ProgressBar(progress, "report", 7 if since is None else 8) as steps:
             return _build(folder, out, seed, temperature, steps, int(sensitivity_draws), old, since)
-        finally:
-            steps.close()
 
 
 def _load_old(since: Path):
@@ -255,7 +232,7 @@ def _build(
     out: Path,
     seed: int,
     temperature: bool,
-    steps: _Steps,
+    steps: ProgressBar,
     draws: int,
     old: Any = None,
     since: Path | None = None,
@@ -263,31 +240,31 @@ def _build(
     from comparo.curation.harmonise import harmonise, per_taxon, review
     from comparo.curation.provenance import audit
 
-    steps.step("checking")
+    steps.advance(description="checking")
     checked = review(folder)
     if not checked.ok or checked.dataset is None:
         return _write_error_page(out, folder, checked, seed, temperature, draws)
     run = _Run(folder, checked.dataset, seed, temperature, draws, checked=checked)
-    steps.step("harmonising and auditing")
+    steps.advance(description="harmonising and auditing")
     run.h = harmonise(run.ds, temperature=temperature)
     run.table = per_taxon(run.ds, temperature=temperature, harmonised=run.h)
     run.aud = audit(run.ds, temperature=temperature, harmonised=run.h)
-    steps.step("deriving time scales")
+    steps.advance(description="deriving time scales")
     _derive(run)
-    steps.step("fitting and drawing")
+    steps.advance(description="fitting and drawing")
     _fit_all(run)
     _compare_all(run)
-    steps.step("sensitivity: sources, bases, taxa, measurement error")
+    steps.advance(description="sensitivity: sources, bases, taxa, measurement error")
     _sensitivity_all(run)
     if old is not None:
         from comparo.history.versions import diff
 
-        steps.step("comparing with the older version")
+        steps.advance(description="comparing with the older version")
         run.since, run.since_path = diff(old, run.ds, temperature=temperature, seed=seed), since
-    steps.step("drawing the regime, coverage and cycles")
+    steps.advance(description="drawing the regime, coverage and cycles")
     _overview_figures(run)
     _cycles(run)
-    steps.step("writing")
+    steps.advance(description="writing")
     return _write(run, out)
 
 
@@ -320,7 +297,8 @@ def _derive(run: _Run) -> None:
         run.tables["derived.units"] = to_csv(column_units(run.derived, run.ds.catalog))
     if not settings:
         run.defaults.append(
-            f"the reference temperature ({run.ds.reference_temperature_c:g} °C) and the Q10 of each "
+            f"the reference temperature ({run.ds.reference_temperature_c:g} °C) and the Q10 of "
+            f"each "
             "temperature-sensitive quantity from the catalogue"
         )
 

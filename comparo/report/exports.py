@@ -148,135 +148,108 @@ def _observations_for_export(ds: Dataset) -> pd.DataFrame:
     return obs
 
 
+def _csv_resource(name: str, schema: dict, description: str | None = None) -> dict:
+    """A tabular data resource ``NAME.csv`` (Frictionless Data Package, CSV in UTF-8)."""
+    res = {
+        "name": name,
+        "path": f"{name}.csv",
+        "profile": "tabular-data-resource",
+        "format": "csv",
+        "mediatype": "text/csv",
+        "encoding": "utf-8",
+    }
+    if description is not None:
+        res["description"] = description
+    res["schema"] = schema
+    return res
+
+
+_SUFFIX_FIELDS = {  # per-taxon columns KEY_SUFFIX: type, description, unit of KEY or none
+    "u": ("number", "Standard uncertainty of {key}, in {unit}.", True),
+    "n": ("integer", "Number of values behind {key}.", False),
+    "nsrc": ("integer", "Number of sources behind {key}.", False),
+    "basis": ("string", "Weakest basis among the values behind {key}.", False),
+    "obs": ("string", "';'-joined obs_ids behind {key}.", False),
+}
+
+
+def _per_taxon_field(col: str, cat) -> dict:
+    """The Table Schema field of one column of the per-taxon table."""
+    key, _, suffix = col.rpartition("_") if col not in cat else (col, "", "")
+    if col in cat:
+        q = cat[col]
+        return {
+            "name": col,
+            "type": "number",
+            "unit": q.unit,
+            "title": q.label,
+            "description": f"{q.description} Value in {q.unit}.",
+        }
+    if key in cat and suffix in _SUFFIX_FIELDS:
+        kind, text, with_unit = _SUFFIX_FIELDS[suffix]
+        unit = cat[key].unit
+        f = {"name": col, "type": kind, "description": text.format(key=key, unit=unit)}
+        if with_unit and unit:
+            f["unit"] = unit
+        return f
+    if col.endswith("_temp_c") and col[: -len("_temp_c")] in cat:
+        return {
+            "name": col,
+            "type": "number",
+            "unit": "degC",
+            "description": f"Temperature the value of {col[: -len('_temp_c')]} refers to "
+            "(the target where normalised, else as measured).",
+        }
+    if col == "temperature_c":
+        return {
+            "name": col,
+            "type": "number",
+            "unit": "degC",
+            "description": "Temperature the temperature-sensitive values refer to.",
+        }
+    return {"name": col, "type": "string"}
+
+
 def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True) -> ExportResult:
     """Write a Frictionless Data Package: observations, sources, taxa (if any) and the
     per-taxon table, each a CSV resource with a Table Schema."""
     out = Path(out_dir)
     tmp = _staging(out)
     try:
-        cat = ds.catalog
-        resources = []
         obs = _observations_for_export(ds)
         (tmp / "observations.csv").write_text(to_csv(obs), encoding="utf-8")
-        resources.append(
-            {
-                "name": "observations",
-                "path": "observations.csv",
-                "profile": "tabular-data-resource",
-                "format": "csv",
-                "mediatype": "text/csv",
-                "encoding": "utf-8",
-                "description": "One reported value per row, as typed, with comparo's canonical conversion.",
-                "schema": {"fields": _obs_fields(obs), "primaryKey": ["obs_id"]},
-            }
-        )
+        obs_text = "One reported value per row, as typed, with comparo's canonical conversion."
+        obs_schema = {"fields": _obs_fields(obs), "primaryKey": ["obs_id"]}
+        resources = [_csv_resource("observations", obs_schema, obs_text)]
         src = ds.sources.copy()
         (tmp / "sources.csv").write_text(to_csv(src), encoding="utf-8")
         sspec = read_schema("tables.toml")["sources"]["columns"]
+        src_fields = [
+            {"name": c, "type": "string", "description": sspec.get(c, {}).get("description", "")}
+            for c in src.columns
+        ]
         resources.append(
-            {
-                "name": "sources",
-                "path": "sources.csv",
-                "profile": "tabular-data-resource",
-                "format": "csv",
-                "mediatype": "text/csv",
-                "encoding": "utf-8",
-                "schema": {
-                    "fields": [
-                        {
-                            "name": c,
-                            "type": "string",
-                            "description": sspec.get(c, {}).get("description", ""),
-                        }
-                        for c in src.columns
-                    ],
-                    "primaryKey": ["source_id"],
-                },
-            }
+            _csv_resource("sources", {"fields": src_fields, "primaryKey": ["source_id"]})
         )
         if ds.taxa is not None:
             (tmp / "taxa.csv").write_text(to_csv(ds.taxa), encoding="utf-8")
-            resources.append(
-                {
-                    "name": "taxa",
-                    "path": "taxa.csv",
-                    "profile": "tabular-data-resource",
-                    "format": "csv",
-                    "mediatype": "text/csv",
-                    "encoding": "utf-8",
-                    "schema": {"fields": [{"name": c, "type": "string"} for c in ds.taxa.columns]},
-                }
-            )
+            taxa_fields = [{"name": c, "type": "string"} for c in ds.taxa.columns]
+            resources.append(_csv_resource("taxa", {"fields": taxa_fields}))
         tab = per_taxon(ds, temperature=temperature)
         (tmp / "per_taxon.csv").write_text(to_csv(tab), encoding="utf-8")
-        fields = []
-        for col in tab.columns:
-            key, _, suffix = col.rpartition("_") if col not in cat else (col, "", "")
-            if col in cat:
-                q = cat[col]
-                fields.append(
-                    {
-                        "name": col,
-                        "type": "number",
-                        "unit": q.unit,
-                        "title": q.label,
-                        "description": f"{q.description} Value in {q.unit}.",
-                    }
-                )
-            elif key in cat and suffix in ("u", "n", "nsrc", "basis", "obs"):
-                q = cat[key]
-                meta = {
-                    "u": ("number", f"Standard uncertainty of {key}, in {q.unit}.", q.unit),
-                    "n": ("integer", f"Number of values behind {key}.", None),
-                    "nsrc": ("integer", f"Number of sources behind {key}.", None),
-                    "basis": ("string", f"Weakest basis among the values behind {key}.", None),
-                    "obs": ("string", f"';'-joined obs_ids behind {key}.", None),
-                }[suffix]
-                f = {"name": col, "type": meta[0], "description": meta[1]}
-                if meta[2]:
-                    f["unit"] = meta[2]
-                fields.append(f)
-            elif col.endswith("_temp_c") and col[: -len("_temp_c")] in cat:
-                key = col[: -len("_temp_c")]
-                fields.append(
-                    {
-                        "name": col,
-                        "type": "number",
-                        "unit": "degC",
-                        "description": f"Temperature the value of {key} refers to "
-                        "(the target where normalised, else as measured).",
-                    }
-                )
-            elif col == "temperature_c":
-                fields.append(
-                    {
-                        "name": col,
-                        "type": "number",
-                        "unit": "degC",
-                        "description": "Temperature the temperature-sensitive values refer to.",
-                    }
-                )
-            else:
-                fields.append({"name": col, "type": "string"})
-        resources.append(
-            {
-                "name": "per_taxon",
-                "path": "per_taxon.csv",
-                "profile": "tabular-data-resource",
-                "format": "csv",
-                "mediatype": "text/csv",
-                "encoding": "utf-8",
-                "description": "One row per accepted taxon, harmonised (comparo per-taxon table).",
-                "schema": {"fields": fields, "primaryKey": ["taxon"]},
-            }
-        )
+        fields = [_per_taxon_field(col, ds.catalog) for col in tab.columns]
+        tab_text = "One row per accepted taxon, harmonised (comparo per-taxon table)."
+        tab_schema = {"fields": fields, "primaryKey": ["taxon"]}
+        resources.append(_csv_resource("per_taxon", tab_schema, tab_text))
         if ds.traces is not None:
             resources.append(_cycles_resource(ds, tmp, temperature))
+        title = str(ds.settings.get("title") or ds.folder.name)
         package = {
             "profile": "tabular-data-package",
             "name": _slug(ds.settings.get("title") or ds.folder.name),
-            "title": str(ds.settings.get("title") or ds.folder.name),
-            "description": "Compilation exported by comparo. Values keep their source (sources resource) and locator.",
+            "title": title,
+            "description": "Compilation exported by comparo. Values keep their source "
+            "(sources resource) and locator.",
             "resources": resources,
         }
         (tmp / "datapackage.json").write_text(
@@ -289,7 +262,8 @@ def to_datapackage(ds: Dataset, out_dir: str | Path, *, temperature: bool = True
 
 
 def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool) -> dict:
-    """``cycles.csv``: one row per trace reduced by comparo cycles (SI units, KEY_sd = SD over cycles)."""
+    """``cycles.csv``: one row per trace reduced by comparo cycles (SI units, KEY_sd = SD over
+    cycles)."""
     from comparo.traces.files import SI_UNITS, cycles
 
     frame = cycles(ds, temperature=temperature).to_frame()
@@ -311,8 +285,8 @@ def _cycles_resource(ds: Dataset, tmp: Path, temperature: bool) -> dict:
         "format": "csv",
         "mediatype": "text/csv",
         "encoding": "utf-8",
-        "description": "One row per oscillation trace of traces.csv reduced to whole cycles (comparo cycles): "
-        "means over cycles in SI units, KEY_sd the SD over cycles.",
+        "description": "One row per oscillation trace of traces.csv reduced to whole cycles "
+        "(comparo cycles): means over cycles in SI units, KEY_sd the SD over cycles.",
         "schema": {"fields": fields, "primaryKey": ["trace_id"]},
     }
 
@@ -326,7 +300,8 @@ def _slug(text: str) -> str:
 
 def dwc_frame(ds: Dataset) -> pd.DataFrame:
     """Darwin Core MeasurementOrFact rows: one per observation (values as reported), then one
-    per computed result of the dataset's traces (``TRACE_ID:quantity``, see comparo.traces.files)."""
+    per computed result of the dataset's traces (``TRACE_ID:quantity``, see
+    comparo.traces.files)."""
     from comparo.curation.harmonise import accepted_names
 
     obs = ds.observations
@@ -413,7 +388,8 @@ def to_dwc(ds: Dataset, out_dir: str | Path) -> ExportResult:
 def table_workbook(table: pd.DataFrame, units: pd.DataFrame) -> bytes:
     """A per-taxon (or derived) table as an ``.xlsx`` workbook: sheet ``table`` with one row
     per taxon and the unit in each header (``body_mass (kg)``; columns without a unit keep
-    their name), and sheet ``columns`` with what each column holds (:func:`comparo.curation.harmonise.column_units`).
+    their name), and sheet ``columns`` with what each column holds
+    (:func:`comparo.curation.harmonise.column_units`).
     Every text cell is stored as a plain string, never as a formula (a cell ``=1+1`` stays
     the text ``=1+1``); numbers are numbers, missing values empty cells."""
     import io

@@ -29,6 +29,9 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from comparo.base.numbers import number
+from comparo.base.scales import from_scale
+
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
     from matplotlib.figure import Figure
@@ -244,10 +247,6 @@ def plain_log_ticks(ax: Any, axis: str = "both") -> None:
         )
 
 
-def _inverse(log: str):
-    return {"10": lambda v: np.power(10.0, v), "e": np.exp, "none": lambda v: v}[log]
-
-
 def line_band(
     X: np.ndarray,
     Y: np.ndarray,
@@ -279,10 +278,6 @@ def line_band(
     lines = my[ok, None] + b[ok, None] * (grid[None, :] - mx[ok, None])
     a = (1 - ci) / 2
     return np.quantile(lines, a, axis=0), np.quantile(lines, 1 - a, axis=0)
-
-
-def _fmt(v: Any, digits: int = 3) -> str:
-    return "n/a" if v is None or not np.isfinite(v) else f"{v:.{digits}g}"
 
 
 def scaling_plot(
@@ -331,7 +326,10 @@ def draw_scaling(
     """
     if "basis" not in points:
         points = points.assign(basis="")
-    inv = _inverse(fit.log)
+
+    def inv(v):
+        return from_scale(v, fit.log)
+
     groups = list(dict.fromkeys(points["group"])) if by and "group" in points else [None]
     colour = {g: PALETTE[i % len(PALETTE)] for i, g in enumerate(groups)}
     for g in groups:
@@ -355,11 +353,11 @@ def draw_scaling(
     differ = bool(getattr(fit, "group_tests", None) and fit.group_tests.get("slopes_differ"))
     who = "all taxa pooled (the groups differ in slope)" if differ else "all"
     eq = (
-        f"{who}: b = {_fmt(fit.slope)} ({pct} CI {_fmt(lo)} to {_fmt(hi)}), "
-        f"a = {_fmt(fit.intercept)}"
+        f"{who}: b = {number(fit.slope, 3)} ({pct} CI {number(lo, 3)} to {number(hi, 3)}), "
+        f"a = {number(fit.intercept, 3)}"
     )
     if fit.lambda_ is not None:
-        eq += f", λ = {_fmt(fit.lambda_)}"
+        eq += f", λ = {number(fit.lambda_, 3)}"
     ax.plot(inv(grid), inv(fit.intercept + fit.slope * grid), color="#000000", lw=1.6, label=eq)
     band = line_band(X, Y, fit.method, grid, ci=fit.ci_level, seed=seed)
     if band is not None:
@@ -385,7 +383,7 @@ def draw_scaling(
             color=colour[g],
             lw=1.2,
             ls="--",
-            label=f"{g}: b = {_fmt(gr['slope'])} ({_fmt(glo)} to {_fmt(ghi)})",
+            label=f"{g}: b = {number(gr['slope'], 3)} ({number(glo, 3)} to {number(ghi, 3)})",
         )
     from matplotlib.lines import Line2D
 
@@ -774,7 +772,7 @@ def lambda_profile(
         marker="D",
         color=PALETTE[3],
         ls="",
-        label=f"maximum: λ = {_fmt(lam_hat)}",
+        label=f"maximum: λ = {number(lam_hat, 3)}",
     )
     if lam_ci is not None and all(v is not None and np.isfinite(v) for v in lam_ci):
         ax.axvspan(
@@ -783,7 +781,7 @@ def lambda_profile(
             color=PALETTE[3],
             alpha=0.12,
             lw=0,
-            label=f"interval {_fmt(lam_ci[0])} to {_fmt(lam_ci[1])}",
+            label=f"interval {number(lam_ci[0], 3)} to {number(lam_ci[1], 3)}",
         )
     ax.set_xlabel("Pagel's λ (dimensionless)")
     ax.set_ylabel("log-likelihood (dimensionless)")
@@ -1007,9 +1005,9 @@ def forest_plot(
             color="#000000",
             alpha=0.10,
             lw=0,
-            label=f"all data: {pct} CI {_fmt(lo)} to {_fmt(hi)}",
+            label=f"all data: {pct} CI {number(lo, 3)} to {number(hi, 3)}",
         )
-    ax.axvline(slope, color="#000000", lw=1.3, label=f"all data: slope {_fmt(slope)}")
+    ax.axvline(slope, color="#000000", lw=1.3, label=f"all data: slope {number(slope, 3)}")
     yy = np.arange(n)
     names = []
     drawn = {False: False, True: False}

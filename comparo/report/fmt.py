@@ -8,39 +8,17 @@ in full, booleans as yes/no; every numeric cell keeps the full value in ``data-v
 from __future__ import annotations
 
 import html
-import math
 from typing import Any
 
 from markupsafe import Markup
 
-
-def _is_int(v: Any) -> bool:
-    return isinstance(v, int) or (hasattr(v, "dtype") and getattr(v.dtype, "kind", "") in "iu")
+from comparo.base.numbers import number
 
 
 def num(v: Any, digits: int = 4) -> str:
-    """*v* to *digits* significant figures; integers in full; ``n/a`` when not a finite number."""
-    if isinstance(v, bool) or (hasattr(v, "dtype") and getattr(v.dtype, "kind", "") == "b"):
-        return "yes" if v else "no"
-    if _is_int(v):
-        return str(int(v))
-    try:
-        f = float(v)
-    except (TypeError, ValueError):
-        return "n/a"
-    if not math.isfinite(f):
-        return "n/a"
-    if f == 0:
-        return "0"
-    if f.is_integer() and abs(f) < 1e15 and abs(f) >= 10 ** (digits - 1):
-        return str(int(f))
-    e = math.floor(math.log10(abs(f)))
-    if -4 <= e < 6:
-        text = f"{f:.{max(digits - 1 - e, 0)}f}"
-        return text.rstrip("0").rstrip(".") if "." in text else text
-    mant, exp = f"{f:.{digits - 1}e}".split("e")
-    mant = mant.rstrip("0").rstrip(".") if "." in mant else mant
-    return f"{mant}e{int(exp)}"
+    """*v* to *digits* significant figures in the report's plain style; ``n/a`` when not a finite
+    number (:func:`comparo.base.numbers.number` with ``plain=True``)."""
+    return number(v, digits, plain=True)
 
 
 def esc(v: Any) -> str:
@@ -48,7 +26,8 @@ def esc(v: Any) -> str:
 
 
 def cell(v: Any) -> Markup:
-    """A ``<td>``: numbers right-aligned with their full value in ``data-value``; yes/no for booleans."""
+    """A ``<td>``: numbers right-aligned with their full value in ``data-value``; yes/no for
+    booleans."""
     if v is None:
         return Markup("<td></td>")
     if isinstance(v, bool) or (hasattr(v, "dtype") and getattr(v.dtype, "kind", "") == "b"):

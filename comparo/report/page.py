@@ -37,7 +37,8 @@ def _analysis_view(run, sec: dict) -> dict:
     tree_caption = ""
     if f"{aid}_tree" in figs:
         tree_caption = (
-            f"{sec['tree_caption']} Colour map cividis (readable with colour-vision deficiency); the colours "
+            f"{sec['tree_caption']} Colour map cividis (readable with colour-vision deficiency); "
+            f"the colours "
             "show the values as compiled, not a reconstruction of ancestral states."
         )
     return {
@@ -101,7 +102,8 @@ def _sensitivity_view(run, sec: dict) -> dict:
 
 
 def _comparison_views(run) -> list[dict]:
-    """Each ``[[comparison]]``: its table of models, the taxa used and left out, or why it did not run."""
+    """Each ``[[comparison]]``: its table of models, the taxa used and left out, or why it did not
+    run."""
     views = []
     for c in getattr(run, "comparisons", []):
         v = {
@@ -121,7 +123,8 @@ def _comparison_views(run) -> list[dict]:
                     else f"; Pagel's lambda fixed at {r['lambda']}"
                 )
             factor = (
-                f"; every model includes the factor {r['factor']} (reference level {r['reference_level']!r})"
+                f"; every model includes the factor {r['factor']} (reference level "
+                f"{r['reference_level']!r})"
                 if r["factor"]
                 else ""
             )
@@ -130,7 +133,8 @@ def _comparison_views(run) -> list[dict]:
                 "summary": c["summary"],
                 "n": r["n"],
                 "excluded": r["excluded"],
-                "how": f"{r['method'].upper()} by maximum likelihood on log{r['log']} values{lam}{factor}",
+                "how": f"{r['method'].upper()} by maximum likelihood on log{r['log']} values"
+                f"{lam}{factor}",
             }
         views.append(v)
     return views
@@ -215,7 +219,8 @@ def _cycles_view(run) -> dict | None:
                 "fig": render.fig(
                     run.figures, f"cycle_{t.trace_id}", f"{what} {t.trace_id} of {t.taxon}"
                 ),
-                "caption": f"{t.trace_id}: {what} of {t.taxon} ({t.cycles} whole cycles; source {t.source_id}, "
+                "caption": f"{t.trace_id}: {what} of {t.taxon} ({t.cycles} whole cycles; "
+                f"source {t.source_id}, "
                 f"{t.locator}; file {t.file})",
             }
         )

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 
+from comparo.base.scales import to_scale
 from comparo.report.fmt import num
 from comparo.report.result import LAMBDA_GRID
 
@@ -66,9 +67,7 @@ def fit_points(result, table, x: str, y: str, by: str | None, taxon_col: str = "
         if result.log != "none":
             ok &= (xs > 0) & (ys > 0)
         ok &= ~table[taxon_col].astype(str).isin(drop).to_numpy()
-        tf = {"10": np.log10, "e": np.log, "none": lambda v: v}[result.log]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            X, Y = tf(xs[ok]), tf(ys[ok])
+        X, Y = to_scale(xs[ok], result.log), to_scale(ys[ok], result.log)
         fitted = result.intercept + result.slope * X
         pts = pd.DataFrame(
             {

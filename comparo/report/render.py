@@ -85,15 +85,16 @@ def summary_rows(fits: list[dict], titles: dict[str, str]) -> list[dict]:
                     if g.get("slope") is not None
                 )
                 test = (
-                    f"the groups differ in slope (equal slopes rejected: "
-                    f"p = {fmt.num(cs.get('p'), 3)}); group slopes: {slopes}; no common slope, "
+                    f"the groups differ in slope (equal slopes rejected: p = "
+                    f"{fmt.num(cs.get('p'), 3)}); group slopes: {slopes}; no common slope, "
                     "and no elevation test (it assumes one)"
                 )
             elif cs:
                 lo, hi = cs.get("slope_ci") or (None, None)
                 test = (
-                    f"common slope of the {len(r.get('groups') or [])} groups {fmt.num(cs.get('slope'))} "
-                    f"(CI {fmt.num(lo)} to {fmt.num(hi)}); equal slopes across groups: p = {fmt.num(cs.get('p'), 3)}"
+                    f"common slope of the {len(r.get('groups') or [])} groups "
+                    f"{fmt.num(cs.get('slope'))} (CI {fmt.num(lo)} to {fmt.num(hi)}); equal slopes "
+                    f"across groups: p = {fmt.num(cs.get('p'), 3)}"
                 )
                 if el:
                     test += (
@@ -160,7 +161,8 @@ def regime_lines(derived, by: str | None) -> list[dict]:
             out.append(
                 {
                     "group": g,
-                    "text": f"not determined: none of its {missing} taxa has the inputs of a regime",
+                    "text": f"not determined: none of its {missing} taxa has the inputs of a "
+                    "regime",
                 }
             )
             continue
@@ -180,7 +182,8 @@ def regime_lines(derived, by: str | None) -> list[dict]:
 
 
 def temperature_view(h, ds, temperature: bool) -> dict:
-    """The Summary's temperature table: per quantity the reference temperature and the Q10 or Ea used."""
+    """The Summary's temperature table: per quantity the reference temperature and the Q10 or Ea
+    used."""
     from comparo.curation.provenance import temperature_rules
 
     if not temperature:
@@ -212,7 +215,8 @@ def _rule_words(r) -> str:
 
 
 def problems_view(problems) -> dict:
-    """Errors and warnings in full; notes grouped by rule with a count, their rows and one example."""
+    """Errors and warnings in full; notes grouped by rule with a count, their rows and one
+    example."""
     if problems is None or not len(problems):
         return {"main": problems if problems is not None else [], "groups": []}
     main = problems[problems["severity"] != "note"]
@@ -236,6 +240,6 @@ def problems_view(problems) -> dict:
 def lambda_caption(res) -> str:
     grid = ", ".join(f"{v:g}" for v in LAMBDA_GRID)
     return (
-        f"Profile log-likelihood of Pagel's λ: the same PGLS refitted at fixed λ = {grid}; maximum at "
-        f"λ = {fmt.num(res.lambda_, 3)}."
+        f"Profile log-likelihood of Pagel's λ: the same PGLS refitted at fixed λ = {grid}; maximum "
+        f"at λ = {fmt.num(res.lambda_, 3)}."
     )

@@ -17,8 +17,8 @@ SENSITIVITY_DRAWS = 200
 LAMBDA_GRID = tuple(i / 10 for i in range(11))
 
 DISCLAIMER = (
-    "This report is a research aid: it summarises a compilation and the fits run on it. "
-    "Check every value against its source before relying on it."
+    "This report is a research aid: it summarises a compilation and the fits run on it. Check "
+    "every value against its source before relying on it."
 )
 
 
@@ -73,12 +73,15 @@ class ReportResult(Result):
 
     def summary(self) -> str:
         if not self.ok:
-            return f"validation found {self.n_errors} error(s); the report lists them: {self.out_dir}/report.html"
+            return (
+                f"validation found {self.n_errors} error(s); the report lists them: "
+                f"{self.out_dir}/report.html"
+            )
         from comparo.fitting.cautions import caution_lines
 
         lines = [
-            f"report written to {self.out_dir}/report.html ({self.n_figures} figures, each as PNG and SVG; "
-            f"{len(self.tables)} tables)"
+            f"report written to {self.out_dir}/report.html ({self.n_figures} figures, each as PNG "
+            f"and SVG; {len(self.tables)} tables)"
         ]
         for f in self.fits:
             if "error" in f:
@@ -95,13 +98,13 @@ class ReportResult(Result):
                     )
                     p = num(gt["common_slope"]["p"], 3)
                     lines.append(
-                        f"  {f['id']}: the groups differ in slope (equal slopes rejected: "
-                        f"p = {p}); group slopes {slopes}; n = {r['n']}"
+                        f"  {f['id']}: the groups differ in slope (equal slopes rejected: p = "
+                        f"{p}); group slopes {slopes}; n = {r['n']}"
                     )
                 else:
                     lines.append(
-                        f"  {f['id']}: slope {num(r['slope'])} (CI {num(lo)} to {num(hi)}), "
-                        f"n = {r['n']}"
+                        f"  {f['id']}: slope {num(r['slope'])} (CI {num(lo)} to {num(hi)}), n = "
+                        f"{r['n']}"
                     )
                 lines += [f"    caution: {line}" for line in caution_lines(r.get("cautions") or [])]
         lines += [f"  {s['id']} sensitivity: {s['verdict']}" for s in self.sensitivity]

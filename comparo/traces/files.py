@@ -36,7 +36,6 @@ MAX_LISTED = 20  # problems listed per column of one trace file before a count
 # 1.1 GB and 4 min on 2 loaded cores), so 32 MB (about a million samples) needs about 0.6 GB;
 # a 10-million-sample trace (230 MB) once needed 3.3 GB and failed under a smaller limit.
 MAX_TRACE_BYTES = 32 * 2**20
-KINDS = ("strain_cycle", "work_loop")
 # quantity keys a trace contributes to the table, per kind. The cycle frequency is not one: it is
 # a condition the experimenter imposed (or the preparation ran at), not a trait of the taxon, and
 # two traces of one taxon would "conflict" in it at the precision of a fit.

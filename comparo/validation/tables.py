@@ -122,12 +122,6 @@ def _number_hint(value: str) -> str:
     return "enter a plain number such as 12.5 or 1.2e-3"
 
 
-@dataclass(frozen=True)
-class _Rule:
-    rule: str
-    message: str
-
-
 # --------------------------------------------------------------------------- column rules
 
 
@@ -1116,12 +1110,6 @@ class Dataset(Result):
         ``reference_temperature_c = "operating"``, the fallback for taxa without an
         operating temperature, ``[temperature] fallback_c``)."""
         return temperature_policy(self.settings).reference_c
-
-    @property
-    def temperature_target(self) -> str:
-        """What temperature-sensitive values are brought to: ``"25 °C"`` or
-        ``"operating temperature"``."""
-        return temperature_policy(self.settings).target_text
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe account: folder, files, rows, sources, taxa, tree tips, problems."""

@@ -46,16 +46,20 @@ def main(rows: int = 100_000) -> None:
         t_cli = time.perf_counter() - t0
     assert rep.balanced
     print(
-        f"audit, {rows} rows: read {rep.rows_read}, used {rep.rows_used}, merged {rep.rows_merged}, excluded {len(rep.rows_excluded)}; {len(rep.coverage)} taxa, {len(rep.conflicts)} conflicts"
+        f"audit, {rows} rows: read {rep.rows_read}, used {rep.rows_used}, merged "
+        f"{rep.rows_merged}, excluded {len(rep.rows_excluded)}; {len(rep.coverage)} taxa, "
+        f"{len(rep.conflicts)} conflicts"
     )
     print(f"  baseline pandas.read_csv (text): {base:.2f} s")
     print(f"  comparo.load (read + validate):  {t_load:.2f} s   ratio {t_load / base:.1f}x")
     print(f"  comparo.audit (after load):      {t_audit:.2f} s   ratio {t_audit / base:.1f}x")
     print(
-        f"  load + audit:                    {t_load + t_audit:.2f} s   ratio {(t_load + t_audit) / base:.1f}x"
+        f"  load + audit:                    {t_load + t_audit:.2f} s   ratio "
+        f"{(t_load + t_audit) / base:.1f}x"
     )
     print(
-        f"  comparo audit --format json:     {t_cli:.2f} s   ratio {t_cli / base:.1f}x (fresh interpreter)"
+        f"  comparo audit --format json:     {t_cli:.2f} s   ratio {t_cli / base:.1f}x (fresh "
+        "interpreter)"
     )
 
 

@@ -17,7 +17,8 @@ from comparo.fitting import bootstrap_line
 def naive_sma_bootstrap(
     x: np.ndarray, y: np.ndarray, n_boot: int, seed: int, chunk_elems: int = 2_000_000
 ) -> np.ndarray:
-    """One resample at a time (the same index draws as the vectorised route): SMA slope via np.cov."""
+    """One resample at a time (the same index draws as the vectorised route): SMA slope via
+    np.cov."""
     rng = np.random.default_rng(seed)
     n = len(x)
     step = max(1, chunk_elems // n)

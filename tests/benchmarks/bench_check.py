@@ -62,10 +62,12 @@ def main(rows: int = 100_000) -> None:
     print(f"  baseline pandas.read_csv (text): {base:.2f} s")
     print(f"  comparo.curation.harmonise.review (API):     {api:.2f} s   ratio {api / base:.1f}x")
     print(
-        f"  comparo check --format json:     {cli_json:.2f} s   ratio {cli_json / base:.1f}x (fresh interpreter)"
+        f"  comparo check --format json:     {cli_json:.2f} s   ratio {cli_json / base:.1f}x "
+        "(fresh interpreter)"
     )
     print(
-        f"  comparo check (text table):      {cli_text:.2f} s   ratio {cli_text / base:.1f}x (fresh interpreter)"
+        f"  comparo check (text table):      {cli_text:.2f} s   ratio {cli_text / base:.1f}x "
+        "(fresh interpreter)"
     )
 
 

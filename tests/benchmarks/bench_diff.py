@@ -87,7 +87,8 @@ def main(rows: int = 100_000) -> None:
     )
     print(f"  comparo table (one version):   {t_table:.2f} s (exit {rc_table})")
     print(
-        f"  comparo diff --format json:    {t_diff:.2f} s (exit {rc_diff})   ratio {t_diff / t_table:.2f}x"
+        f"  comparo diff --format json:    {t_diff:.2f} s (exit {rc_diff})   ratio "
+        f"{t_diff / t_table:.2f}x"
         " (target <= 3x)"
     )
 

@@ -114,8 +114,9 @@ def main(rounds: int = 11) -> None:
     finally:
         shutil.rmtree(work, ignore_errors=True)
     print(
-        f"whole-process wall time, {rounds} rounds, each command paired with a baseline run just before it "
-        f"(byte-code cached, as installed; python {sys.version.split()[0]}; comparo from {comparo_origin()})"
+        f"whole-process wall time, {rounds} rounds, each command paired with a baseline run just "
+        f"before it (byte-code cached, as installed; python {sys.version.split()[0]}; comparo from "
+        f"{comparo_origin()})"
     )
     print(
         f"load average (1, 5, 15 min) before {load0[0]:.2f} {load0[1]:.2f} {load0[2]:.2f}, "
@@ -132,7 +133,8 @@ def main(rounds: int = 11) -> None:
         cpu = statistics.median(CPU[name]) / statistics.median(CPU["baseline"])
         print(
             f"  comparo {name:<15} median {med:.3f} s   ratio {r:.2f}x  "
-            f"(paired ratios {min(ratios[name]):.2f}-{max(ratios[name]):.2f}; {target}; CPU-time ratio {cpu:.2f}x)"
+            f"(paired ratios {min(ratios[name]):.2f}-{max(ratios[name]):.2f}; {target}; CPU-time "
+            f"ratio {cpu:.2f}x)"
         )
 
 

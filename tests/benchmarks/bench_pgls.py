@@ -1,7 +1,7 @@
 """Benchmark: linear-time PGLS (comparo.phylo) vs dense statsmodels GLS.
 
 For random trees (seeded) of n tips, the same data are fitted with
-``comparo.phylo.phylo_fit`` (lambda fixed at 1, including tip matching and
+``comparo.phylo.pgls`` (lambda fixed at 1, including tip matching and
 pruning; and by ML), with one pass of ``gls_quantities`` on the prepared tree, and with statsmodels
 GLS on the dense Brownian covariance C (built outside the timing, from the tree's
 ancestor sets). Printed: seconds per fit, the ratio dense / linear, and the
@@ -70,9 +70,7 @@ def one(n: int, seed: int = 1) -> None:
     df = pd.DataFrame({"taxon": list(ft.tips), "x": x, "y": y})
     X = sm.add_constant(x)
     t_dense, ref = timed(lambda: sm.GLS(y, X, sigma=C).fit(), repeat=1)
-    t_lin, r = timed(
-        lambda: phylo.pgls(df, "x", "y", tree=tree, log="none", lambda_=1.0), repeat=3
-    )
+    t_lin, r = timed(lambda: phylo.pgls(df, "x", "y", tree=tree, log="none", lambda_=1.0), repeat=3)
     Z = np.column_stack([X, y])
     t_eng, gq = timed(lambda: phylo.gls_quantities(ft, Z), repeat=3)
     t_ml, rml = timed(
@@ -84,9 +82,11 @@ def one(n: int, seed: int = 1) -> None:
     beta = np.linalg.solve(gq.W[:2, :2], gq.W[:2, 2])
     diff = max(diff, np.max(np.abs(beta - ref.params) / np.abs(ref.params)))
     print(
-        f"n {n:>6}: dense GLS {t_dense:7.3f} s | phylo_fit {t_lin:7.4f} s (ratio {t_dense / t_lin:6.1f} x)"
+        f"n {n:>6}: dense GLS {t_dense:7.3f} s | phylo_fit {t_lin:7.4f} s (ratio "
+        f"{t_dense / t_lin:6.1f} x)"
         f" | engine pass on the prepared tree {t_eng:7.4f} s (ratio {t_dense / t_eng:7.1f} x)"
-        f" | max rel diff {diff:.1e} | lambda-ML phylo_fit {t_ml:6.3f} s (lambda {rml['lambda']:.3f})"
+        f" | max rel diff {diff:.1e} | lambda-ML phylo_fit {t_ml:6.3f} s (lambda "
+        f"{rml['lambda']:.3f})"
     )
 
 
@@ -99,8 +99,8 @@ def big(n: int = 100_000, seed: int = 7) -> None:
     df = pd.DataFrame({"taxon": [f"t{i + 1}" for i in range(n)], "x": x, "y": y})
     t_fit, r = timed(lambda: phylo.pgls(df, "x", "y", tree=tree, log="none", lambda_="ml"))
     print(
-        f"n {n}: read Newick {t_read:.2f} s; lambda-ML PGLS (match, prune, search, CI, LR tests) {t_fit:.2f} s;"
-        f" lambda {r['lambda']:.4f} CI {r['lambda_ci']}"
+        f"n {n}: read Newick {t_read:.2f} s; lambda-ML PGLS (match, prune, search, CI, LR tests) "
+        f"{t_fit:.2f} s; lambda {r['lambda']:.4f} CI {r['lambda_ci']}"
     )
 
 
@@ -155,9 +155,12 @@ def whole(n: int = 100_000, seed: int = 7) -> None:
                 raise SystemExit(out.stderr[-2000:])
     load = os.getloadavg()
     print(
-        f"n {n}: whole process 'comparo fit ... --method pgls --tree' median of 3 {np.median(cli):.2f} s wall, "
-        f"{np.median(cpu):.2f} s CPU (user + system) (wall runs {', '.join(f'{t:.2f}' for t in cli)}; target < 6 s); "
-        f"python -c 'import pandas' {np.median(base):.2f} s; load average before {load0[0]:.2f}, after {load[0]:.2f}"
+        f"n {n}: whole process 'comparo fit ... --method pgls --tree' median of 3 "
+        f"{np.median(cli):.2f} s wall, "
+        f"{np.median(cpu):.2f} s CPU (user + system) (wall runs "
+        f"{', '.join(f'{t:.2f}' for t in cli)}; target < 6 s); "
+        f"python -c 'import pandas' {np.median(base):.2f} s; load average before {load0[0]:.2f}, "
+        f"after {load[0]:.2f}"
     )
 
 

@@ -31,7 +31,10 @@ from pathlib import Path
 
 import numpy as np
 
-HEADER = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,inputs,proxy_taxon,temperature_c"
+HEADER = (
+    "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,"
+    "inputs,proxy_taxon,temperature_c"
+)
 
 
 def write_compilation(folder: Path, n_taxa: int, n_src: int, seed: int = 20240601) -> None:
@@ -49,10 +52,12 @@ def write_compilation(folder: Path, n_taxa: int, n_src: int, seed: int = 2024060
             f = f_true * math.exp(rng.normal(0, 0.05))
             basis = "digitized" if rng.random() < 0.2 else "reported"
             rows.append(
-                f"m{k},{taxon},body_mass,{m:.6g},g,{0.03 * m:.3g},sd,5,S{src:02d},Table 1,reported,,,"
+                f"m{k},{taxon},body_mass,{m:.6g},g,{0.03 * m:.3g},sd,5,S{src:02d},Table 1,"
+                "reported,,,"
             )
             rows.append(
-                f"f{k},{taxon},frequency_observed,{f:.6g},Hz,{0.05 * f:.3g},sd,5,S{src:02d},Table 2,{basis},,,25"
+                f"f{k},{taxon},frequency_observed,{f:.6g},Hz,{0.05 * f:.3g},sd,5,S{src:02d},Table "
+                f"2,{basis},,,25"
             )
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "observations.csv").write_text("\n".join(rows) + "\n")
@@ -124,13 +129,16 @@ def main(argv: list[str] | None = None) -> int:
         f"{s.measurement_error['draws']} Monte Carlo draws, {len(s.by_basis)} basis steps"
     )
     print(
-        f"  full sensitivity run:                 {t_full:.2f} s  (target < 10 s for 500 taxa, 50 sources, 1000 draws)"
+        f"  full sensitivity run:                 {t_full:.2f} s  (target < 10 s for 500 taxa, 50 "
+        "sources, 1000 draws)"
     )
     print(
-        f"  naive leave-one-source-out only:      {t_naive:.2f} s  (whole per-taxon table rebuilt per source)"
+        f"  naive leave-one-source-out only:      {t_naive:.2f} s  (whole per-taxon table rebuilt "
+        "per source)"
     )
     print(
-        f"  plain fit: {t_plain * 1e3:.1f} ms; x {n_refits} source/basis refits = {t_plain * n_refits:.2f} s"
+        f"  plain fit: {t_plain * 1e3:.1f} ms; x {n_refits} source/basis refits = "
+        f"{t_plain * n_refits:.2f} s"
     )
     print(f"  same leave-one-source-out slopes from both routes: {same}")
     print(f"  ratio naive leave-one-source-out / full run: {t_naive / t_full:.2f}x")

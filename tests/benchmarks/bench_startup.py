@@ -28,7 +28,8 @@ def main(repeats: int = 15) -> None:
     print(f"start-up, median of {repeats} runs")
     print(f"  python -c pass:       {base:.3f} s")
     print(
-        f"  python -m comparo --help: {cli:.3f} s   (+{cli - base:.3f} s, ratio {cli / base:.1f}x; target < 0.5 s)"
+        f"  python -m comparo --help: {cli:.3f} s   (+{cli - base:.3f} s, ratio "
+        f"{cli / base:.1f}x; target < 0.5 s)"
     )
 
 

@@ -1,4 +1,5 @@
-"""Coverage of comparo's 95% slope intervals for SMA at small n (simulation, not collected by pytest).
+"""Coverage of comparo's 95% slope intervals for SMA at small n (simulation, not collected by
+pytest).
 
 Bivariate normal data with a known SMA slope (sd_y/sd_x = 0.75, correlation 0.8),
 n = 30, REPS data sets (seed 20261202); for each, the exact (Warton et al. 2006)
@@ -35,7 +36,8 @@ def main(reps: int = 1000, n: int = 30, n_boot: int = 1000) -> None:
     for kind, h in hits.items():
         p = h / reps
         print(
-            f"{kind:10s} coverage {p:.3f} (binomial se {math.sqrt(p * (1 - p) / reps):.3f}), n = {n}, {reps} sets"
+            f"{kind:10s} coverage {p:.3f} (binomial se {math.sqrt(p * (1 - p) / reps):.3f}), n = "
+            f"{n}, {reps} sets"
         )
 
 

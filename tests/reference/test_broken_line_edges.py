@@ -122,10 +122,10 @@ def stackloss() -> pd.DataFrame:
 
 def test_stack_loss_open_data(stackloss):
     """Brownlee's stack-loss data (21 runs; Brownlee 1965, Statistical Theory and Methodology in
-    Science and Engineering, 2nd ed., Wiley), shipped by statsmodels (statsmodels.datasets.stackloss).
-    Air flow has five ties at its smallest value (50): stack loss on air flow, on the data scale
-    and on natural logs. Before the fix comparo returned the degenerate psi = 50 (the single
-    line). On logs the optimum is the data value ln 62."""
+    Science and Engineering, 2nd ed., Wiley), shipped by statsmodels
+    (statsmodels.datasets.stackloss). Air flow has five ties at its smallest value (50): stack loss
+    on air flow, on the data scale and on natural logs. Before the fix comparo returned the
+    degenerate psi = 50 (the single line). On logs the optimum is the data value ln 62."""
     x = stackloss["AIRFLOW"].to_numpy(float)
     y = stackloss["STACKLOSS"].to_numpy(float)
     for X, Y in ((x, y), (np.log(x), np.log(y))):

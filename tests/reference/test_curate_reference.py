@@ -57,7 +57,8 @@ def test_q10_2_equals_activation_energy_51_2_kj():
 
 def test_standard_uncertainty_conversions():
     """GUM (JCGM 100:2008): se = sd/sqrt(n); a 95% CI half-width over t(0.975, n-1)
-    (scipy.stats as the independent quantile); a rectangular half-range a -> a/sqrt(3) (GUM 4.3.7)."""
+    (scipy.stats as the independent quantile); a rectangular half-range a -> a/sqrt(3) (GUM
+    4.3.7)."""
     u = pd.Series([2.0, 2.0, 1.5, 3.0, 1.0])
     kind = pd.Series(["sd", "sd", "se", "ci95", "range_half"])
     n = pd.Series([4.0, np.nan, 9.0, 11.0, np.nan])
@@ -83,7 +84,10 @@ def test_inverse_variance_mean_equals_intercept_only_wls(tmp_path):
 
     v = np.array([10.0, 11.0, 10.4])
     u = np.array([0.5, 0.8, 0.6])
-    hdr = "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,inputs,proxy_taxon,temperature_c"
+    hdr = (
+        "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,"
+        "basis,inputs,proxy_taxon,temperature_c"
+    )
     rows = [
         f"o{i},Apis mellifera,fiber_radius,{a},um,{b},se,,s1,T{i},reported,,,"
         for i, (a, b) in enumerate(zip(v, u, strict=True))

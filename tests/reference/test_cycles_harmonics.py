@@ -124,8 +124,10 @@ def drifting(tmp_path):
         + "\n"
     )
     (ds / "traces.csv").write_text(
-        "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,y_column,y_unit,"
-        "temperature_c,muscle\nW1,w.csv,Apis mellifera,s1,Fig. 1,work_loop,time_s,s,len_mm,mm,force_mN,mN,30,flight\n"
+        "trace_id,file,taxon,source_id,locator,kind,time_column,time_unit,x_column,x_unit,"
+        "y_column,y_unit,"
+        "temperature_c,muscle\nW1,w.csv,Apis mellifera,s1,Fig. 1,work_loop,time_s,s,len_mm,mm,"
+        "force_mN,mN,30,flight\n"
     )
     return ds, t, x, y
 

@@ -285,7 +285,8 @@ def test_happel_parallel_from_cell_model_integration(phi):
 def test_permeability_limits():
     """Limiting behaviour: the cell models vanish as phi -> 1 (Happel 1959), Gebart's
     transverse relation at hexagonal close packing phi = pi/(2 sqrt 3) (Gebart 1992, J
-    Compos Mater 26:1100-1133, from memory); dilute Happel parallel k/a^2 -> (-ln phi - 3/2)/(4 phi)."""
+    Compos Mater 26:1100-1133, from memory); dilute Happel parallel k/a^2 -> (-ln phi - 3/2)/(4
+    phi)."""
     near = 1 - 1e-6
     for model in ("happel_parallel", "happel_transverse", "kuwabara_transverse"):
         spec = dv.PERMEABILITY_MODELS[model]

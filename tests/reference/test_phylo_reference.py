@@ -61,7 +61,8 @@ def pagel(C: np.ndarray, lam: float) -> np.ndarray:
 
 
 def dense_loglik(C, X, y, reml=False):
-    """Profile (RE)ML log-likelihood of GLS with V = sigma² C (formulas: docs/methods/phylogenetics.md)."""
+    """Profile (RE)ML log-likelihood of GLS with V = sigma² C (formulas:
+    docs/methods/phylogenetics.md)."""
     n, p = X.shape
     Ci = np.linalg.inv(C)
     XtX = X.T @ Ci @ X
@@ -120,8 +121,8 @@ def test_four_tip_worked_example_covariance_and_gls():
 
 
 def test_four_tip_worked_example_pgls():
-    """Four-tip worked example, from memory: beta = (0.369110, 1.143455), l_ML -0.432041, l_REML -2.299894,
-    se(slope) 0.164279, 95% CI (0.436618, 1.850293) with t(2)."""
+    """Four-tip worked example, from memory: beta = (0.369110, 1.143455), l_ML -0.432041, l_REML
+    -2.299894, se(slope) 0.164279, 95% CI (0.436618, 1.850293) with t(2)."""
     df = pd.DataFrame({"taxon": list("ABCD"), "x": X4, "y": Y4})
     r = phylo.pgls(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
     assert r["intercept"] == pytest.approx(0.369110, abs=1e-6)
@@ -136,8 +137,9 @@ def test_four_tip_worked_example_pgls():
 
 
 def test_four_tip_worked_example_lambda_tree():
-    """Four-tip worked example, from memory: the lambda = 0.5 tree is ((A:1.5,B:2.5):0.5,(C:1.75,D:0.75):0.25);
-    l_ML = -0.225777, -0.362228, -0.432041 at lambda 0, 0.5, 1; the ML lambda is 0."""
+    """Four-tip worked example, from memory: the lambda = 0.5 tree is
+    ((A:1.5,B:2.5):0.5,(C:1.75,D:0.75):0.25); l_ML = -0.225777, -0.362228, -0.432041 at lambda 0,
+    0.5, 1; the ML lambda is 0."""
     ft = phylo.flat_tree(phylo.read_tree(FOUR))
     half = phylo.flat_tree(phylo.read_tree("((A:1.5,B:2.5):0.5,(C:1.75,D:0.75):0.25);"))
     np.testing.assert_allclose(
@@ -157,9 +159,9 @@ def test_four_tip_worked_example_lambda_tree():
 
 
 def test_four_tip_worked_example_contrasts_and_k():
-    """Four-tip worked example, from memory: contrasts (first child - second) x -0.577350, -0.707107, -1.515854;
-    y -0.808290, -1.131371, -1.526308; slope through the origin 1.143455 = GLS slope;
-    root y 2.562295 = GLS mean; K(y) 0.783913, K(x) 0.957122."""
+    """Four-tip worked example, from memory: contrasts (first child - second) x -0.577350,
+    -0.707107, -1.515854; y -0.808290, -1.131371, -1.526308; slope through the origin 1.143455 = GLS
+    slope; root y 2.562295 = GLS mean; K(y) 0.783913, K(x) 0.957122."""
     tree = phylo.read_tree(FOUR)
     cx = phylo.contrasts(tree, dict(zip("ABCD", X4, strict=True)))
     cy = phylo.contrasts(tree, dict(zip("ABCD", Y4, strict=True)))
@@ -183,8 +185,8 @@ def test_four_tip_worked_example_contrasts_and_k():
 
 
 def test_four_tip_worked_example_measurement_error():
-    """Four-tip worked example, from memory (Ives, Midford & Garland 2007, Syst Biol 56:252-270 model):
-    se² = (0.1, 0.2, 0, 0.3), sigma² = 1: ln|V| 2.598384, beta = (0.375853, 1.128912)."""
+    """Four-tip worked example, from memory (Ives, Midford & Garland 2007, Syst Biol 56:252-270
+    model): se² = (0.1, 0.2, 0, 0.3), sigma² = 1: ln|V| 2.598384, beta = (0.375853, 1.128912)."""
     ft = phylo.flat_tree(phylo.read_tree(FOUR))
     idx = ft.index(list("ABCD"))
     Z = np.empty((4, 3))
@@ -200,7 +202,7 @@ def test_four_tip_worked_example_measurement_error():
     )
 
 
-# --------------------------------------------------------------------------- random trees vs statsmodels
+# ---------------------------------------------------------------------- random trees vs statsmodels
 
 
 CASES = [
@@ -234,8 +236,8 @@ def test_pgls_matches_statsmodels_gls(n, seed, ultra, poly):
 
 
 def test_polytomy_tree_counted_correctly():
-    """A polytomy check by hand: ((A:1,B:1,C:1):1,D:2); has C = [[2,1,1,0],[1,2,1,0],[1,1,2,0],[0,0,0,2]]
-    (root-to-MRCA lengths); ln|C| = ln(det) by numpy."""
+    """A polytomy check by hand: ((A:1,B:1,C:1):1,D:2); has C =
+    [[2,1,1,0],[1,2,1,0],[1,1,2,0],[0,0,0,2]] (root-to-MRCA lengths); ln|C| = ln(det) by numpy."""
     C = np.array([[2, 1, 1, 0], [1, 2, 1, 0], [1, 1, 2, 0], [0, 0, 0, 2.0]])
     ft = phylo.flat_tree(phylo.read_tree("((A:1,B:1,C:1):1,D:2);"))
     idx = ft.index(list("ABCD"))
@@ -403,7 +405,8 @@ def test_groups_interaction_f_matches_statsmodels():
 def test_contrast_slope_equals_gls_slope(seed, poly, ultra):
     """The regression through the origin of standardised y-contrasts on x-contrasts equals the
     BM-GLS slope (Garland & Ives 2000, Am Nat 155:346-364; Blomberg et al. 2012, Syst Biol
-    61:382-391), and the PIC root value equals the GLS mean (statsmodels GLS), polytomies included."""
+    61:382-391), and the PIC root value equals the GLS mean (statsmodels GLS), polytomies
+    included."""
     nw = phylo.random_newick(70, seed, ultrametric=ultra, polytomy=poly)
     names, C, x, y = simulate(nw, seed + 1)
     cx = phylo.contrasts(nw, dict(zip(names, x, strict=True)))

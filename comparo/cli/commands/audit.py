@@ -48,7 +48,8 @@ def run(args) -> int:
     errors = (ds.problems["severity"] == "error").sum() if len(ds.problems) else 0
     if errors:
         print(
-            f"{errors} row-level error(s): those rows are excluded (run 'comparo check' for details)",
+            f"{errors} row-level error(s): those rows are excluded "
+            "(run 'comparo check' for details)",
             file=sys.stderr,
         )
         return 2

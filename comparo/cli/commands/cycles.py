@@ -23,7 +23,10 @@ def render(traces, drift_removal: bool = True) -> str:
     lines = []
     for r in traces.results:
         d = r.to_dict()
-        head = f"{r.trace_id}  {r.taxon}  {r.kind}  {r.file}: {r.cycles} whole cycle(s) of {r.samples} samples"
+        head = (
+            f"{r.trace_id}  {r.taxon}  {r.kind}  {r.file}: "
+            f"{r.cycles} whole cycle(s) of {r.samples} samples"
+        )
         lines.append(head)
         for key, label, f, unit in _TEXT_COLUMNS:
             if d.get(key) is None:

@@ -17,7 +17,7 @@ def run(args) -> int:
     settings = derive_settings(ds.settings)
     check_mc(args.mc, len(table), "--mc")
     out = derive(table, settings, mc=args.mc, seed=args.seed, progress=sys.stderr.isatty())
-    from comparo.cli.commands._common import write_table
+    from comparo.cli.commands.table import write_table
     from comparo.curation.harmonise import column_units
 
     write_table(out, column_units(out, ds.catalog), args.output)

@@ -54,10 +54,14 @@ def read_table(data: str, taxon_col: str = "taxon", temperature: bool = True, sa
         note = f"points are named by its first column {first!r}"
     else:
         frame[taxon_col] = [f"row {i + 2}" for i in range(len(frame))]
-        note = "its first column is not a column of distinct names, so points are named by CSV line (row N)"
+        note = (
+            "its first column is not a column of distinct names, "
+            "so points are named by CSV line (row N)"
+        )
     if say:
         sys.stderr.write(
-            f"note: {path.name} has no {taxon_col!r} column: {note} (--taxon-col chooses the label column)\n"
+            f"note: {path.name} has no {taxon_col!r} column: {note} "
+            "(--taxon-col chooses the label column)\n"
         )
     return frame
 
@@ -103,7 +107,8 @@ def _pgls_options(args) -> dict:
         tree = str(own_tree)
     if tree is None:
         raise UsageError(
-            "method pgls needs a tree: give --tree FILE or put tree.nwk in the dataset folder (or beside the dataset workbook)"
+            "method pgls needs a tree: give --tree FILE or put tree.nwk in the dataset folder "
+            "(or beside the dataset workbook)"
         )
     opts["tree"] = checked_tree(tree)
     taxa = companion_file(args.data, TAXA_NAMES) if Path(args.data).is_dir() else None
@@ -174,7 +179,8 @@ def _fit(args, table, pgls: dict, progress: bool):
 
 
 def _renamed_options(args) -> None:
-    """``--test-slope`` is the old name of ``--against``: a note on standard error, then the value is used."""
+    """``--test-slope`` is the old name of ``--against``: a note on standard error, then the
+    value is used."""
     old = getattr(args, "test_slope_renamed", None)
     if old is None:
         return

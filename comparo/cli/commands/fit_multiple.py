@@ -64,7 +64,8 @@ def _against(given: list[str] | None) -> dict[str, float] | None:
         name, eq, value = str(item).partition("=")
         if not eq or not name.strip():
             raise UsageError(
-                f"--against {item!r}: with several --x each test is TERM=VALUE (e.g. --against body_mass=-0.25)"
+                f"--against {item!r}: with several --x each test is TERM=VALUE "
+                "(e.g. --against body_mass=-0.25)"
             )
         try:
             out[name.strip()] = float(value)
@@ -146,7 +147,7 @@ def _sensitivity(args, xs: list[str], against, opts: dict):
     """Leave one source out of the multiple regression (a dataset folder; a plain table says
     it records no sources). --mc does not apply: no Monte Carlo with several predictors."""
     from comparo.cli.commands.fit import is_dataset, read_table
-    from comparo.fitting.source_sensitivity import multiple_sensitivity
+    from comparo.fitting.multiple_sensitivity import multiple_sensitivity
 
     if is_dataset(args.data):
         from comparo.validation.dataset import load

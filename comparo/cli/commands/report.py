@@ -1,4 +1,5 @@
-"""``comparo report DATASET -o DIR [--since OLD]``: the whole analysis as one HTML report with figures and tables."""
+"""``comparo report DATASET -o DIR [--since OLD]``: the whole analysis as one HTML report with
+figures and tables."""
 
 from __future__ import annotations
 
