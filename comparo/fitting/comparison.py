@@ -27,10 +27,11 @@ if TYPE_CHECKING:  # pragma: no cover
 
 #: What an Akaike weight is not, said wherever weights are shown.
 WEIGHT_CAUTION = (
-    "An Akaike weight is the relative support for a model among the candidates given, on these taxa; "
-    "it is not the probability that the model is true, and it changes when candidates are added or removed. "
-    "Models within 2 AICc units of the best are not distinguished by the data (a difference below 2 is "
-    "not a preference). A well-supported model may still be a poor description: check its residuals."
+    "An Akaike weight is the relative support for a model among the candidates given, on these "
+    "taxa; it is not the probability that the model is true, and it changes when candidates are "
+    "added or removed. Models within 2 AICc units of the best are not distinguished by the data "
+    "(a difference below 2 is not a preference). A well-supported model may still be a poor "
+    "description: check its residuals."
 )
 
 
@@ -111,7 +112,8 @@ class Comparison(Result):
                 else f", Pagel's lambda fixed at {float(self.lambda_):g}"
             )
         lines = [
-            f"Model comparison for {self.y} (log {self.log}), method {self.method}{lam}, maximum likelihood",
+            f"Model comparison for {self.y} (log {self.log}), method {self.method}{lam}, "
+            "maximum likelihood",
             f"n = {self.n} taxa with every variable of every model",
         ]
         if self.excluded:
@@ -121,7 +123,8 @@ class Comparison(Result):
                 lines.append(f"  ... and {len(self.excluded) - 20} more (JSON key 'excluded')")
         if self.factor:
             lines.append(
-                f"every model includes the factor {self.factor} (reference level {self.reference!r})"
+                f"every model includes the factor {self.factor} "
+                f"(reference level {self.reference!r})"
             )
         lines.append("")
         names = [" + ".join(f.predictors) or "1 (intercept only)" for f in self.fits]

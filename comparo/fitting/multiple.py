@@ -132,8 +132,8 @@ class MultipleFit(Result):
             )
         if self.method == "robust":
             lines.append(
-                "Huber M-estimate (c = 1.345, MAD scale): t is the Wald z, p and CIs from the normal; "
-                "no likelihood, so no AICc"
+                "Huber M-estimate (c = 1.345, MAD scale): t is the Wald z, p and CIs from the "
+                "normal; no likelihood, so no AICc"
             )
         else:
             lines.append(
