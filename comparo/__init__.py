@@ -88,7 +88,7 @@ def _renamed(old: str, new: str) -> Any:
         )
         return target(*args, **kwargs)
 
-    call.__name__ = call.__qualname__ = old
+    call.__name__ = old
     return call
 
 
