@@ -180,9 +180,9 @@ def audit(ds: Any, *, temperature: bool = True, harmonised: Any = None) -> Any:
     ``comparo.load(folder, strict=False)`` to audit a table that still has errors."""
     from comparo.curation import provenance
     from comparo.phylo.outliers import phylo_outliers
-    from comparo.validation.tables import require_dataset
+    from comparo.validation.dataset import as_dataset
 
-    require_dataset(ds)
+    ds = as_dataset(ds)
     run = Run(ds, temperature=temperature, harmonised=harmonised)
     phylo = phylo_outliers(ds, run.table)
     return provenance.audit(

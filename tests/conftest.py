@@ -42,6 +42,22 @@ def demo_report(tmp_path_factory) -> tuple[Path, Path, object]:
     return data, base / "out", result
 
 
+@pytest.fixture(scope="module")
+def demo_dataset():
+    """The demo dataset loaded (comparo.load), read-only for the tests of a module."""
+    import comparo
+
+    return comparo.load(DEMO)
+
+
+@pytest.fixture(scope="module")
+def demo_table(demo_dataset):
+    """The demo's per-taxon table (comparo.tabulate), read-only for the tests of a module."""
+    import comparo
+
+    return comparo.tabulate(demo_dataset)
+
+
 # Session fixtures that are costly to build (seconds each), and the xdist group of the
 # tests that use them: with ``--dist loadgroup`` each group runs on one worker, so the
 # fixture is built once per run instead of once per worker.

@@ -47,7 +47,7 @@ CASES = {
     ),
     "fit-table-folder": (
         lambda t, d: comparo.fit(str(DEMO), "m", "f"),
-        ["table must be a pandas DataFrame", "comparo.per_taxon"],
+        ["table must be a pandas DataFrame", "comparo.tabulate"],
     ),
     "fit-ci-text": (
         lambda t, d: comparo.fit(t, "m", "f", ci="0.95"),
@@ -100,15 +100,11 @@ CASES = {
     "load-number": (lambda t, d: comparo.load(3), ["folder must be a path"]),
     "load-empty": (lambda t, d: comparo.load(""), ["folder must be a path, not empty text"]),
     "check-none": (lambda t, d: comparo.check(None), ["folder must be a path"]),
-    "per-taxon-folder": (
-        lambda t, d: comparo.per_taxon(str(DEMO)),
-        ["ds must be a Dataset", "comparo.load(FOLDER)"],
-    ),
-    "per-taxon-table": (lambda t, d: comparo.per_taxon(t), ["ds must be a Dataset", "DataFrame"]),
+    "per-taxon-table": (lambda t, d: comparo.tabulate(t), ["ds must be a Dataset", "DataFrame"]),
     "audit-none": (lambda t, d: comparo.audit(None), ["ds must be a Dataset"]),
-    "cycles-folder": (lambda t, d: comparo.cycles(str(DEMO)), ["ds must be a Dataset"]),
+    "cycles-number": (lambda t, d: comparo.cycles(3), ["ds must be a Dataset or a dataset folder"]),
     "derive-settings-text": (
-        lambda t, d: comparo.derive(comparo.per_taxon(d), settings="x"),
+        lambda t, d: comparo.derive(comparo.tabulate(d), settings="x"),
         ["settings must be a mapping", "str 'x'"],
     ),
     "derive-table-none": (lambda t, d: comparo.derive(None), ["table must be a pandas DataFrame"]),
@@ -117,27 +113,27 @@ CASES = {
         ["table must be a pandas DataFrame", "Dataset"],
     ),
     "derive-mc-float": (
-        lambda t, d: comparo.derive(comparo.per_taxon(d), mc=1e12),
+        lambda t, d: comparo.derive(comparo.tabulate(d), mc=1e12),
         ["mc must be a whole number"],
     ),
     "derive-mc-cap": (
-        lambda t, d: comparo.derive(comparo.per_taxon(d), mc=10**12),
+        lambda t, d: comparo.derive(comparo.tabulate(d), mc=10**12),
         ["mc 1000000000000 exceeds this machine's cap"],
     ),
     "derive-seed-negative": (
-        lambda t, d: comparo.derive(comparo.per_taxon(d), seed=-1),
+        lambda t, d: comparo.derive(comparo.tabulate(d), seed=-1),
         ["seed must be >= 0"],
     ),
     "phylo-tree-none": (
-        lambda t, d: comparo.phylo_fit(t, "m", "f", tree=None),
+        lambda t, d: comparo.fit(t, "m", "f", "pgls", tree=None),
         ["tree must be a Newick file name", "NoneType"],
     ),
     "phylo-tree-number": (
-        lambda t, d: comparo.phylo_fit(t, "m", "f", tree=3),
+        lambda t, d: comparo.fit(t, "m", "f", "pgls", tree=3),
         ["tree must be a Newick file name"],
     ),
     "phylo-table-none": (
-        lambda t, d: comparo.phylo_fit(None, "m", "f", tree=TREE),
+        lambda t, d: comparo.fit(None, "m", "f", "pgls", tree=TREE),
         ["table must be a pandas DataFrame"],
     ),
     "fit-pgls-tree-none": (
@@ -145,43 +141,43 @@ CASES = {
         ["tree must be a Newick file name"],
     ),
     "sensitivity-mc-float": (
-        lambda t, d: comparo.sensitivity(t, "m", "f", mc=1e12),
+        lambda t, d: comparo.assess_sensitivity(t, "m", "f", mc=1e12),
         ["mc must be a whole number", "float"],
     ),
     "sensitivity-mc-cap": (
-        lambda t, d: comparo.sensitivity(t, "m", "f", mc=10**12),
+        lambda t, d: comparo.assess_sensitivity(t, "m", "f", mc=10**12),
         ["mc 1000000000000 exceeds this machine's cap", "point-draws per second"],
     ),
     "sensitivity-none": (
-        lambda t, d: comparo.sensitivity(None, "m", "f"),
+        lambda t, d: comparo.assess_sensitivity(None, "m", "f"),
         ["dataset_or_table must be a Dataset", "DataFrame"],
     ),
     "sensitivity-ci": (
-        lambda t, d: comparo.sensitivity(t, "m", "f", ci=95),
+        lambda t, d: comparo.assess_sensitivity(t, "m", "f", ci=95),
         ["ci must be a number strictly between 0 and 1"],
     ),
     "signal-tree-none": (
-        lambda t, d: comparo.tree_signal(None, {"a": 1.0}),
+        lambda t, d: comparo.measure_signal(None, {"a": 1.0}),
         ["tree must be a Newick file name"],
     ),
     "signal-values-none": (
-        lambda t, d: comparo.tree_signal(TREE, None),
+        lambda t, d: comparo.measure_signal(TREE, None),
         ["values must be a mapping of tip label to value"],
     ),
     "signal-permutations-float": (
-        lambda t, d: comparo.tree_signal(TREE, {"a": 1.0}, permutations=99.0),
+        lambda t, d: comparo.measure_signal(TREE, {"a": 1.0}, permutations=99.0),
         ["permutations must be a whole number"],
     ),
     "signal-permutations-negative": (
-        lambda t, d: comparo.tree_signal(TREE, {"a": 1.0}, permutations=-1),
+        lambda t, d: comparo.measure_signal(TREE, {"a": 1.0}, permutations=-1),
         ["permutations must be 0 or a positive number"],
     ),
     "contrasts-tree-none": (
-        lambda t, d: comparo.contrasts(None, {}),
+        lambda t, d: comparo.contrast(None, {}),
         ["tree must be a Newick file name"],
     ),
     "contrasts-values-list": (
-        lambda t, d: comparo.contrasts(TREE, [1.0, 2.0]),
+        lambda t, d: comparo.contrast(TREE, [1.0, 2.0]),
         ["values must be a mapping"],
     ),
     "read-tree-none": (

@@ -152,17 +152,17 @@ def test_missing_file_and_too_few_points(tmp_path, capsys):
 
 
 def test_pgls_through_fit_matches_phylo_and_uses_tree_labels(tmp_path):
-    """The fit front end returns what comparo.phylo.phylo_fit computes (one source of
+    """The fit front end returns what comparo.phylo.pgls computes (one source of
     truth), with the demo's taxa.csv tree labels, and the extra PGLS keys kept."""
     import json
 
     from support import DEMO, run_main
 
     import comparo
-    from comparo.phylo import phylo_fit
+    from comparo.phylo import pgls
 
-    tab = comparo.per_taxon(comparo.load(DEMO))
-    direct = phylo_fit(
+    tab = comparo.tabulate(comparo.load(DEMO))
+    direct = pgls(
         table=tab,
         x="body_mass",
         y="frequency_observed",

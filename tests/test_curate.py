@@ -288,7 +288,7 @@ def test_demo_audit_finds_every_planted_fault():
     assert rep.basis_shares["lattice_spacing_d10"].get("proxy", 0) > 0
     assert rep.basis_shares["frequency_observed"].get("digitized", 0) > 0
     assert "DEMO-NOTEMP" in rep.rows_missing_temperature
-    assert len(comparo.per_taxon(comparo.load(DEMO))) == len(rep.coverage) == demo_taxa()
+    assert len(comparo.tabulate(comparo.load(DEMO))) == len(rep.coverage) == demo_taxa()
     assert set(rep.trust.values()) <= {"firm", "read-off", "borrowed", "contested", "sparse"}
 
 

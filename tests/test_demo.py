@@ -115,7 +115,7 @@ def test_sma_exponent_ci_covers_the_generating_exponent():
     from comparo.fitting import fit
 
     res = fit(
-        comparo.per_taxon(comparo.load(DEMO)), x="body_mass", y="frequency_observed", method="sma"
+        comparo.tabulate(comparo.load(DEMO)), x="body_mass", y="frequency_observed", method="sma"
     )
     lo, hi = res.slope_ci
     assert lo < -0.2 < hi
@@ -240,7 +240,7 @@ def test_demo_has_gaps_like_a_real_compilation():
     and unevenly among clades; every taxon still appears in the per-taxon table."""
     import comparo
 
-    tab = comparo.per_taxon(comparo.load(DEMO))
+    tab = comparo.tabulate(comparo.load(DEMO))
     have = tab.notna()
     assert len(tab) == demo_taxa()
     for q in ("attach_rate", "transverse_modulus", "lattice_spacing_d10"):

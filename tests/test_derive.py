@@ -34,7 +34,7 @@ def _q(
     basis: str = "reported",
     obs: str | None = None,
 ) -> None:
-    """Put quantity *key* into a per-taxon row the way comparo.per_taxon writes it."""
+    """Put quantity *key* into a per-taxon row the way comparo.tabulate writes it."""
     row[key] = value
     row[f"{key}_u"] = np.nan if u is None else u
     row[f"{key}_basis"] = basis
@@ -499,7 +499,7 @@ def test_demo_derived_values_recover_the_generating_parameters():
     import comparo
 
     ds = comparo.load(DEMO)
-    out = dv.derive(comparo.per_taxon(ds), ds.settings.get("derive", {})).set_index("taxon")
+    out = dv.derive(comparo.tabulate(ds), ds.settings.get("derive", {})).set_index("taxon")
     truth = pd.read_csv(DEMO / "truth.csv").set_index("taxon").add_prefix("true_")
     pairs = {
         "poro_kinetic_ratio": "poro_kinetic_ratio",

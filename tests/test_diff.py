@@ -176,7 +176,7 @@ def test_analysis_slopes_agree_with_the_fit_and_with_statsmodels(versions, resul
     (a,) = result.analyses
     assert a["name"] == "ols_frequency_observed_vs_body_mass"
     for side, folder in zip(("old", "new"), versions, strict=True):
-        table = comparo.per_taxon(comparo.load(folder))
+        table = comparo.tabulate(comparo.load(folder))
         direct = comparo.fit(table, "body_mass", "frequency_observed", "ols", against=-0.1)
         assert a[f"slope_{side}"] == pytest.approx(direct.slope, rel=1e-12)
         rows = table.dropna(subset=["body_mass", "frequency_observed"])
@@ -203,7 +203,7 @@ def test_a_verdict_that_flips_is_reported(tmp_path):
     rows = [r.replace(",220,Hz,", ",1000,Hz,").replace(",55,Hz,", ",160,Hz,") for r in ROWS]
     new = _write(tmp_path / "new", rows)
     (a,) = comparo.diff(old, new).analyses
-    t = comparo.per_taxon(comparo.load(new)).dropna(subset=["body_mass", "frequency_observed"])
+    t = comparo.tabulate(comparo.load(new)).dropna(subset=["body_mass", "frequency_observed"])
     ols = sm.OLS(
         np.log10(t["frequency_observed"].to_numpy(float)),
         sm.add_constant(np.log10(t["body_mass"].to_numpy(float))),

@@ -44,7 +44,7 @@ def test_round_trip_preserves_values_to_12_digits(demo_ds, tmp_path):
         both = np.isfinite(a)
         assert (np.isfinite(b) == both).all()
         np.testing.assert_allclose(b[both], a[both], rtol=1e-12)
-    tab = comparo.per_taxon(demo_ds)
+    tab = comparo.tabulate(demo_ds)
     tb = pd.read_csv(tmp_path / "dp" / "per_taxon.csv")
     np.testing.assert_allclose(tb["frequency_observed"], tab["frequency_observed"], rtol=1e-12)
 

@@ -42,7 +42,7 @@ def test_api_refuses_the_same_values():
     from comparo.base.errors import UsageError
     from comparo.fitting import fit
 
-    tab = comparo.per_taxon(comparo.load(DEMO))
+    tab = comparo.tabulate(comparo.load(DEMO))
     for kw in ({"seed": -1}, {"against": float("nan")}, {"bootstrap": 10}, {"bootstrap": 10**12}):
         with pytest.raises(UsageError):
             fit(tab, "body_mass", "frequency_observed", "sma", **kw)

@@ -237,7 +237,7 @@ def test_model_ii_with_several_predictors_is_refused():
     )
     for method in ("sma", "ma"):
         with pytest.raises(UsageError, match="one predictor.*use --method ols or pgls"):
-            comparo.multiple_fit(t, "y", ["x", "z"], method=method)
+            comparo.fit_multiple(t, "y", ["x", "z"], method=method)
 
 
 def test_collinear_predictors_exit_2(tmp_path, capsys):

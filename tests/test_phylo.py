@@ -151,7 +151,7 @@ def test_match_ambiguous_tips_and_duplicate_taxa():
 
 def test_pgls_contract_keys_and_json():
     nw, df = small_table()
-    r = phylo.phylo_fit(df, "mass", "freq", tree=nw, against=-0.25)
+    r = phylo.pgls(df, "mass", "freq", tree=nw, against=-0.25)
     assert CONTRACT_KEYS <= set(r)
     assert r["method"] == "pgls" and r["log"] == "10" and r["n"] == 30
     assert r["outliers"] == [] and r["breakpoint"] is None and r["sensitivity"] is None
@@ -171,7 +171,7 @@ def test_pgls_exclusions_listed_with_reasons():
     df.loc[1, "freq"] = np.nan
     extra = pd.DataFrame({"taxon": ["Homo sapiens"], "mass": [70.0], "freq": [10.0]})
     df = pd.concat([df, extra], ignore_index=True)
-    r = phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_=1.0)
+    r = phylo.pgls(df, "mass", "freq", tree=nw, lambda_=1.0)
     reasons = {e["label"]: e["reason"] for e in r["excluded"]}
     assert reasons["t1"] == "non-positive mass under log 10"
     assert reasons["t2"] == "missing value of freq"
@@ -185,8 +185,8 @@ def test_pgls_exclusions_listed_with_reasons():
 def test_pgls_log_scales_relate():
     """Slope does not depend on the log base; the intercept scales by ln 10."""
     nw, df = small_table(seed=3)
-    a = phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_=0.8, log="10")
-    b = phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_=0.8, log="e")
+    a = phylo.pgls(df, "mass", "freq", tree=nw, lambda_=0.8, log="10")
+    b = phylo.pgls(df, "mass", "freq", tree=nw, lambda_=0.8, log="e")
     assert a["slope"] == pytest.approx(b["slope"], rel=1e-10)
     assert b["intercept"] == pytest.approx(a["intercept"] * np.log(10), rel=1e-10)
 
@@ -194,8 +194,8 @@ def test_pgls_log_scales_relate():
 def test_pgls_zero_measurement_error_equals_none():
     nw, df = small_table(seed=4)
     df = df.assign(freq_u=0.0)
-    a = phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_=1.0)
-    b = phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_=1.0, tip_se=True)
+    a = phylo.pgls(df, "mass", "freq", tree=nw, lambda_=1.0)
+    b = phylo.pgls(df, "mass", "freq", tree=nw, lambda_=1.0, tip_se=True)
     assert a["slope"] == pytest.approx(b["slope"], rel=1e-12)
     assert b["measurement_error"]["tips_with_error"] == 0
 
@@ -203,8 +203,8 @@ def test_pgls_zero_measurement_error_equals_none():
 def test_pgls_measurement_error_lowers_rate():
     nw, df = small_table(seed=5)
     df = df.assign(freq_u=0.05 * df["freq"])
-    a = phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_=1.0)
-    b = phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_=1.0, tip_se="freq_u")
+    a = phylo.pgls(df, "mass", "freq", tree=nw, lambda_=1.0)
+    b = phylo.pgls(df, "mass", "freq", tree=nw, lambda_=1.0, tip_se="freq_u")
     assert b["measurement_error"]["tips_with_error"] == 30
     assert b["sigma2"] < a["sigma2"] * (30 - 2) / 30 + 1e-12
 
@@ -212,20 +212,20 @@ def test_pgls_measurement_error_lowers_rate():
 def test_pgls_usage_errors():
     nw, df = small_table()
     with pytest.raises(UsageError):
-        phylo.phylo_fit(df, "mass", "nope", tree=nw)
+        phylo.pgls(df, "mass", "nope", tree=nw)
     with pytest.raises(UsageError):
-        phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_=1.5)
+        phylo.pgls(df, "mass", "freq", tree=nw, lambda_=1.5)
     with pytest.raises(UsageError):
-        phylo.phylo_fit(df, "mass", "freq", tree=nw, lambda_="high")
+        phylo.pgls(df, "mass", "freq", tree=nw, lambda_="high")
     with pytest.raises(UsageError):
-        phylo.phylo_fit(df.iloc[:2], "mass", "freq", tree=nw)
+        phylo.pgls(df.iloc[:2], "mass", "freq", tree=nw)
 
 
 def test_pgls_groups():
     nw, df = small_table(seed=6, n=45)
     df = df.assign(clade=np.array(["a", "b", "c"])[np.arange(45) % 3])
     df.loc[44, "clade"] = "lonely"
-    r = phylo.phylo_fit(df, "mass", "freq", tree=nw, by="clade")
+    r = phylo.pgls(df, "mass", "freq", tree=nw, by="clade")
     assert [g["group"] for g in r["groups"]] == ["a", "b", "c"]
     assert sum(g["n"] for g in r["groups"]) == r["n"] == 44
     assert any("only taxon of group" in e["reason"] for e in r["excluded"])
@@ -238,13 +238,13 @@ def test_pgls_groups():
 def test_zero_tip_edge_is_clear_error():
     df = pd.DataFrame({"taxon": list("ABCD"), "x": [1.0, 2, 3, 4], "y": [1.0, 3, 2, 5]})
     with pytest.raises(InputError) as exc:
-        phylo.phylo_fit(df, "x", "y", tree="((A:0,B:1):1,(C:1,D:1):1);", log="none", lambda_=1.0)
+        phylo.pgls(df, "x", "y", tree="((A:0,B:1):1,(C:1,D:1):1);", log="none", lambda_=1.0)
     assert exc.value.problems.iloc[0]["rule"] == "tree-zero-tip"
     # lambda < 1 gives the tip a positive variance
-    r = phylo.phylo_fit(df, "x", "y", tree="((A:0,B:1):1,(C:1,D:1):1);", log="none", lambda_=0.5)
+    r = phylo.pgls(df, "x", "y", tree="((A:0,B:1):1,(C:1,D:1):1);", log="none", lambda_=0.5)
     assert np.isfinite(r["slope"])
     # the ML search stops short of 1 and says so
-    r = phylo.phylo_fit(df, "x", "y", tree="((A:0,B:1):1,(C:1,D:1):1);", log="none", lambda_="ml")
+    r = phylo.pgls(df, "x", "y", tree="((A:0,B:1):1,(C:1,D:1):1);", log="none", lambda_="ml")
     assert r["lambda_tests"]["search_interval"] == [0.0, 1.0 - 1e-6]
     assert r["lambda_ci"][1] <= 1.0 - 1e-6 and r["lambda_tests"]["note"]
 
@@ -319,12 +319,12 @@ def test_accepts_dendropy_tree_with_taxa_and_checks_it():
         data=FOUR, schema="newick", preserve_underscores=True, rooting="force-rooted"
     )
     df = pd.DataFrame({"taxon": list("ABCD"), "x": [0.0, 1, 2, 3], "y": [0.5, 1.9, 2.2, 3.8]})
-    a = phylo.phylo_fit(df, "x", "y", tree=t, log="none", lambda_=1.0)
-    b = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
+    a = phylo.pgls(df, "x", "y", tree=t, log="none", lambda_=1.0)
+    b = phylo.pgls(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
     assert a["slope"] == b["slope"]
     bad = dendropy.Tree.get(data="((A,B),(C:1,D:1));", schema="newick", rooting="force-rooted")
     with pytest.raises(InputError):
-        phylo.phylo_fit(df, "x", "y", tree=bad, log="none")
+        phylo.pgls(df, "x", "y", tree=bad, log="none")
     with pytest.raises(InputError):
         phylo.check_tree(bad)
 

@@ -88,7 +88,7 @@ def test_slopes_equal_the_diff_and_the_fit_on_each_version(run):
     table = re.search(r'<table[^>]*id="since-analyses".*?</table>', _section(run["out"]), re.S)
     values = [float(v) for v in re.findall(r'data-value="([^"]+)"', table.group(0))]
     for side in ("old", "new"):
-        per_taxon = comparo.per_taxon(comparo.load(run[side]))
+        per_taxon = comparo.tabulate(comparo.load(run[side]))
         direct = comparo.fit(per_taxon, "body_mass", "frequency_observed", "ols", against=-0.1)
         assert a[f"slope_{side}"] == pytest.approx(direct.slope, rel=1e-12)
         assert direct.slope in values  # the HTML carries the full value of each slope

@@ -358,7 +358,7 @@ def test_sensitivity_by_group_dataset_uses_only_group_rows(tmp_path):
     from comparo.fitting.source_sensitivity import sensitivity_by_group
 
     ds = _compilation(tmp_path / "d", biased=True)
-    table = __import__("comparo").per_taxon(ds)
+    table = __import__("comparo").tabulate(ds)
     half = set(table["taxon"][:24])
     g = sensitivity(ds, "body_mass", "frequency_observed", "ols", mc=0, taxa=sorted(half))
     assert g.jackknife_se["n"] == 24 and all(r["n"] <= 24 for r in g.leave_one_source_out)

@@ -165,7 +165,7 @@ def test_a_folder_is_never_called_a_plain_table():
     from comparo.report.per_fit import run_sensitivity
 
     ds = comparo.load(DEMO)
-    table = comparo.per_taxon(ds)
+    table = comparo.tabulate(ds)
     data = comparo.derive(table, ds.settings.get("derive", {}))
     a = {"x": "frequency_hydraulic_bound", "y": "frequency_observed"}
     res = fit(data, a["x"], a["y"], "ols")

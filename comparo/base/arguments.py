@@ -103,8 +103,7 @@ def check_table(value: object, name: str = "table") -> Any:
         value,
         pd.DataFrame,
         name,
-        "a pandas DataFrame with one row per taxon, such as "
-        "comparo.per_taxon(comparo.load(FOLDER))",
+        "a pandas DataFrame with one row per taxon, such as comparo.tabulate(FOLDER)",
     )
 
 

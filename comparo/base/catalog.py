@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from comparo.base.errors import InputError, Problem
+from comparo.base.results import Result
 
 
 def package_folder(name: str) -> Path:
@@ -177,7 +178,7 @@ def _entry(
 
 
 @dataclass(frozen=True)
-class Catalog(Mapping[str, Quantity]):
+class Catalog(Result, Mapping[str, Quantity]):
     """Mapping ``key -> Quantity`` (read-only)."""
 
     entries: dict[str, Quantity] = field(default_factory=dict)
@@ -200,9 +201,20 @@ class Catalog(Mapping[str, Quantity]):
         return self.entries[q.converts_to] if q.converts_to else q
 
     def to_frame(self):
+        """One row per quantity, the columns of :meth:`Quantity.to_dict`."""
         import pandas as pd
 
         return pd.DataFrame([q.to_dict() for q in self.entries.values()])
+
+    def to_dict(self) -> dict[str, Any]:
+        """``key -> Quantity.to_dict()`` (JSON-safe)."""
+        from comparo.base.jsonsafe import json_safe
+
+        return json_safe({k: q.to_dict() for k, q in self.entries.items()})
+
+    def summary(self) -> str:
+        """Plain text: how many quantities, and their keys."""
+        return f"catalogue of {len(self)} quantities: " + ", ".join(self.entries)
 
 
 def load_catalog(extra: Mapping[str, Any] | None = None, file: str = "comparo.toml") -> Catalog:

@@ -41,9 +41,9 @@ def per_taxon(
     values scatter more than their uncertainties allow), else the n-weighted
     mean (uncertainty: sd of the values / sqrt(k)); ``median`` the median.
     """
-    from comparo.validation.tables import require_dataset
+    from comparo.validation.dataset import as_dataset
 
-    require_dataset(ds)
+    ds = as_dataset(ds)
     how = aggregate or ds.settings.get("aggregate", "mean")
     if how not in ("mean", "median"):
         from comparo.base.errors import UsageError

@@ -736,9 +736,9 @@ def cycles(
     from comparo.curation.combine import taxon_values
     from comparo.traces.files import TraceSet, read_traces
     from comparo.traces.rows import TAXON_INPUTS, with_taxon_values
-    from comparo.validation.tables import require_dataset
+    from comparo.validation.dataset import as_dataset
 
-    require_dataset(ds)
+    ds = as_dataset(ds)
     if ds.traces is None:
         return TraceSet()
     h = harmonised

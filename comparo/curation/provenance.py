@@ -14,6 +14,7 @@ from typing import Any
 
 import pandas as pd
 
+from comparo.base.results import Result
 from comparo.curation.aggregation import per_taxon
 from comparo.curation.harmonise import Harmonised, harmonise
 from comparo.validation.numbers import map_distinct
@@ -22,7 +23,7 @@ from comparo.validation.tables import Dataset
 
 
 @dataclass(frozen=True)
-class AuditReport:
+class AuditReport(Result):
     """Provenance audit of a dataset (the ``comparo audit --format json`` object).
 
     ``rows_used + rows_merged + len(rows_excluded) == rows_read`` always.
@@ -239,9 +240,9 @@ def audit(
     Load with ``comparo.load(folder, strict=False)`` to audit a table that still
     has errors: rows with errors are then listed as excluded with their rule.
     """
-    from comparo.validation.tables import require_dataset
+    from comparo.validation.dataset import as_dataset
 
-    require_dataset(ds)
+    ds = as_dataset(ds)
     h = harmonised or harmonise(ds, temperature=temperature)
     rows = h.rows
     used = rows[rows["status"] == "used"]

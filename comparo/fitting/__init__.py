@@ -60,7 +60,7 @@ from comparo.fitting.multiple import MultipleFit, multiple_fit
 from comparo.fitting.resampling import bootstrap_line
 from comparo.fitting.result import FitResult, FlaggedRefit
 from comparo.fitting.robust import HUBER_C, LTS_CUT, LTSLine, huber_line, lts_fit, lts_line
-from comparo.fitting.scaling import fit
+from comparo.fitting.scaling import fit, phylo_fit
 
 __all__ = [
     "HUBER_C",
@@ -76,6 +76,7 @@ __all__ = [
     "common_slope_model2",
     "compare",
     "fit",
+    "phylo_fit",
     "group_fits",
     "huber_line",
     "lts_fit",

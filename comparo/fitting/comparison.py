@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING, Any
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.numbers import number
+from comparo.base.results import Result
 from comparo.fitting.multiple import MultipleFit, _check, design, fit_design, linear_predictors
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -86,7 +87,7 @@ def akaike_weights(values: Sequence[float]) -> list[float]:
 
 
 @dataclass(frozen=True)
-class Comparison:
+class Comparison(Result):
     """Candidate models of one y on the same n taxa, sorted by AICc (best first)."""
 
     y: str
@@ -134,6 +135,18 @@ class Comparison:
             "linear": sorted({c for f in self.fits for c in f.linear}),
             "averaging_caution": AVERAGING_CAUTION,
         }
+
+    def to_frame(self):
+        """One row per model, best first: ``predictors``, ``k``, ``loglik``, ``aicc``,
+        ``delta_aicc``, ``weight``, ``lambda``."""
+        import pandas as pd
+
+        keys = ["k", "loglik", "aicc", "delta_aicc", "weight", "lambda"]
+        rows = [
+            {"predictors": " + ".join(m["predictors"]), **{k: m[k] for k in keys}}
+            for m in self.to_dict()["models"]
+        ]
+        return pd.DataFrame(rows, columns=["predictors", *keys])
 
     def summary(self) -> str:
         lam = ""

@@ -17,6 +17,7 @@ import numpy as np
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.numbers import number
+from comparo.base.results import Result
 from comparo.base.scales import LOG_SCALES, to_scale
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -63,7 +64,7 @@ def aicc(loglik: float, k: int, n: int) -> float:
 
 
 @dataclass(frozen=True)
-class MultipleFit:
+class MultipleFit(Result):
     """One fitted model y ~ predictors (+ factor) on the fitted (log) scale.
 
     ``terms`` rows: term (``intercept``, a predictor name, ``COLUMN[level]``), estimate,
@@ -131,6 +132,17 @@ class MultipleFit:
             **({} if self.resampling is None else {"resampling": self.resampling}),
             **({} if self.by is None else {"by": self.by}),
         }
+
+    def to_frame(self):
+        """The terms: ``term``, ``estimate``, ``se``, ``ci_low``, ``ci_high``, ``t``, ``p``."""
+        import pandas as pd
+
+        cols = ["term", "estimate", "se", "ci_low", "ci_high", "t", "p"]
+        rows = [
+            {**{k: t.get(k) for k in cols}, "ci_low": t["ci"][0], "ci_high": t["ci"][1]}
+            for t in self.terms
+        ]
+        return pd.DataFrame(rows, columns=cols)
 
     def summary(self) -> str:
         """The fit as text: terms, log-likelihood, AICc, lambda and the joint test."""

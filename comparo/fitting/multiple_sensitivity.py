@@ -6,12 +6,14 @@ from __future__ import annotations
 
 import functools
 import math
+import os
 from dataclasses import dataclass
 from typing import Any
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import json_safe as _json
 from comparo.base.numbers import number
+from comparo.base.results import Result
 from comparo.fitting.source_sensitivity import (
     SHIFT_THRESHOLD,
     flips,
@@ -22,7 +24,7 @@ from comparo.fitting.source_sensitivity import (
 
 
 @dataclass(frozen=True)
-class MultipleSensitivity:
+class MultipleSensitivity(Result):
     """How much the coefficients of a multiple regression depend on single sources.
 
     Attributes
@@ -60,6 +62,15 @@ class MultipleSensitivity:
                 "unavailable": list(self.unavailable),
             }
         )
+
+    def to_frame(self):
+        """One row per source left out (most influential first): ``source_id``, ``n``,
+        ``term`` moved most and its ``shift_se``, ``p`` and ``flips``; empty for a table."""
+        import pandas as pd
+
+        cols = ["source_id", "n", "term", "shift_se", "p", "flips", "note"]
+        rows = [{c: r.get(c) for c in cols} for r in self.leave_one_source_out or []]
+        return pd.DataFrame(rows, columns=cols)
 
     def summary(self, top: int = 5) -> str:
         """Plain-text account for people."""
@@ -116,13 +127,16 @@ def multiple_sensitivity(
 
     from comparo.base.arguments import check_kind, check_level
     from comparo.fitting.multiple import multiple_fit
-    from comparo.validation.dataset import Dataset
+    from comparo.validation.dataset import Dataset, as_dataset
 
+    if isinstance(dataset_or_table, str | os.PathLike):  # a dataset folder
+        dataset_or_table = as_dataset(dataset_or_table, "dataset_or_table")
     check_kind(
         dataset_or_table,
         (Dataset, pd.DataFrame),
         "dataset_or_table",
-        "a Dataset (comparo.load(FOLDER)) or a per-taxon DataFrame (comparo.per_taxon)",
+        "a Dataset (comparo.load(FOLDER)), a dataset folder or a per-taxon DataFrame "
+        "(comparo.tabulate)",
     )
     ci = check_level(ci)
     predictors = list(predictors)

@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from comparo.base.jsonsafe import json_safe as _json
+from comparo.base.results import Result
 from comparo.fitting.cautions import caution_lines
 from comparo.fitting.numbers import _NAN, _f, _nan, _num, _p, _pair
 
@@ -14,7 +15,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
 
 @dataclass(frozen=True)
-class FitResult:
+class FitResult(Result):
     """A fitted scaling line Y = intercept + slope X on the fitted (log) scale.
 
     Attributes
@@ -55,7 +56,7 @@ class FitResult:
     sensitivity : dict or None
         Filled by the sensitivity analysis (not by :func:`fit`).
     phylo : dict or None
-        PGLS only: the further results of :func:`comparo.phylo.phylo_fit`
+        PGLS only: the further results of :func:`comparo.phylo.pgls`
         (likelihood-ratio tests of lambda = 0 and 1, pruned tips, taxa without
         tips, sigma2, likelihood convention, measurement error).
     points : tuple of dict
@@ -100,6 +101,30 @@ class FitResult:
     refit_without_flagged: FlaggedRefit | None = None
     cautions: tuple[dict, ...] = ()
     temperature: dict | None = None
+
+    __iter__ = None  # indexing by key (deprecated) does not make a fit a sequence
+
+    def __getitem__(self, key: str) -> Any:
+        """Deprecated: the dict that ``phylo_fit`` returned, read by key. Each key is an
+        attribute (``slope``, ``lambda_``) or an entry of ``phylo`` (``sigma2``, ``df``); the
+        warning names it. Values are as in :meth:`to_dict` (intervals as lists)."""
+        import warnings
+
+        phylo = self.phylo or {}
+        if key in phylo:
+            value, where = phylo[key], f"result.phylo[{key!r}]"
+        else:
+            d = self.to_dict()
+            if key == "terms" or key not in d and key not in self.__dataclass_fields__:
+                raise KeyError(key)
+            value = d[key] if key in d else _json(getattr(self, key))
+            where = "result." + ("lambda_" if key == "lambda" else key)
+        warnings.warn(
+            f"result[{key!r}] is deprecated: fits are FitResult objects, use {where}",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        return value
 
     def to_dict(self) -> dict:
         """JSON-safe dict with the keys of the ``fit --format json`` contract.
@@ -298,7 +323,8 @@ class FitResult:
         return frame
 
     def _repr_html_(self) -> str:
-        """Compact table for notebooks: the estimates of :meth:`to_frame`, the slope test and the flags."""
+        """Compact table for notebooks: the estimates of :meth:`to_frame`, the slope test and
+        the flags."""
         from comparo.base.display import frame_html
 
         scale = {"10": "log10", "e": "ln", "none": "untransformed"}[self.log]
@@ -308,7 +334,10 @@ class FitResult:
             notes += [line.strip() for line in _group_comparison_lines(self.group_tests)]
         notes.append(f"flags: {len(self.outliers)}; excluded rows: {len(self.excluded)}")
         notes += list(self.notes)
-        title = f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}, CI {100 * self.ci_level:g}%"
+        title = (
+            f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}, "
+            f"CI {100 * self.ci_level:g}%"
+        )
         return frame_html(title, self.to_frame().drop(columns=["method"]), notes)
 
     def plot(
@@ -374,21 +403,21 @@ class FitResult:
             f"{self.method.upper()} fit of {self.y} on {self.x} ({scale} axes), n = {self.n}",
             *(
                 [
-                    "  the groups differ in slope: the line below pools all taxa and is the exponent of "
-                    "no group"
+                    "  the groups differ in slope: the line below pools all taxa and is the "
+                    "exponent of no group"
                 ]
                 if differ
                 else []
             ),
             *[f"  CAUTION: {line}" for line in caution_lines(self.cautions)],
-            f"  slope      {_f(self.slope)}   {pct} CI {_f(self.slope_ci[0])} .. {_f(self.slope_ci[1])}",
-            f"  intercept  {_f(self.intercept)}   {pct} CI {_f(self.intercept_ci[0])} .. {_f(self.intercept_ci[1])}",
+            f"  slope      {_f(self.slope)}   {pct} CI {_span(self.slope_ci)}",
+            f"  intercept  {_f(self.intercept)}   {pct} CI {_span(self.intercept_ci)}",
             f"  r2         {_f(self.r2)}",
         ]
         if self.lambda_ is not None:
             lam_ci = self.lambda_ci or (_NAN, _NAN)
             lines.append(
-                f"  lambda     {_f(self.lambda_)}   CI {_f(lam_ci[0])} .. {_f(lam_ci[1])}   loglik {_f(self.loglik)}"
+                f"  lambda     {_f(self.lambda_)}   CI {_span(lam_ci)}   loglik {_f(self.loglik)}"
             )
         if self.against:
             lines.append(f"  {_against_text(self.against)}")
@@ -397,24 +426,24 @@ class FitResult:
             lines.append(f"  bootstrap ({b['resamples']} resamples, seed {b['seed']}):")
             for term in ("slope", "intercept"):
                 per, bca = b[term]["percentile"], b[term]["bca"]
-                lines.append(
-                    f"    {term:<9}  percentile {_f(per[0])} .. {_f(per[1])}   BCa {_f(bca[0])} .. {_f(bca[1])}"
-                )
+                lines.append(f"    {term:<9}  percentile {_span(per)}   BCa {_span(bca)}")
         if self.groups:
             lines.append("  groups:")
             for g in self.groups:
                 lo, hi = g.get("slope_ci") or (_NAN, _NAN)
                 lines.append(
-                    f"    {str(g['group']):<16} n {g['n']:>4}  slope {_f(g.get('slope'))}  CI {_f(lo)} .. {_f(hi)}"
+                    f"    {str(g['group']):<16} n {g['n']:>4}  slope {_f(g.get('slope'))}  "
+                    f"CI {_span((lo, hi))}"
                 )
         if self.group_tests:
             lines += _group_comparison_lines(self.group_tests)
         if self.breakpoint:
             bp = self.breakpoint
             lines.append(
-                f"  breakpoint at x = {_f(bp['x'])} (CI {_f(bp['x_ci'][0])} .. {_f(bp['x_ci'][1])}) of the least-squares "
+                f"  breakpoint at x = {_f(bp['x'])} (CI {_span(bp['x_ci'])}) of the least-squares "
                 f"broken line{'' if self.method == 'ols' else f' (not {self.method.upper()})'}; "
-                f"slopes {_f(bp['slope_left'])} | {_f(bp['slope_right'])}; single line? p = {_p(bp['p_single_line'])}"
+                f"slopes {_f(bp['slope_left'])} | {_f(bp['slope_right'])}; "
+                f"single line? p = {_p(bp['p_single_line'])}"
             )
         if self.outliers:
             lines.append("  flags:")
@@ -473,7 +502,8 @@ class FlaggedRefit:
     note: str | None = None
 
     def to_dict(self) -> dict:
-        """``{"rules", "dropped", "n_dropped", "slope_change", "fit", "note"}``; ``fit`` is a fit object."""
+        """``{"rules", "dropped", "n_dropped", "slope_change", "fit", "note"}``; ``fit`` is a fit
+        object."""
         return {
             "rules": list(self.rules),
             "dropped": _json([dict(d) for d in self.dropped]),
@@ -484,7 +514,8 @@ class FlaggedRefit:
         }
 
     def frame_rows(self) -> list[dict]:
-        """Rows for :meth:`FitResult.to_frame`: the refit's estimates, then one row per dropped point."""
+        """Rows for :meth:`FitResult.to_frame`: the refit's estimates, then one row per dropped
+        point."""
         rows = []
         r = self.fit
         if r is not None:
@@ -531,17 +562,17 @@ class FlaggedRefit:
                 if original is not None
                 else ""
             )
+            lines.append(f"    n = {r.n}  slope {_f(r.slope)}   {pct} CI {_span(r.slope_ci)}{was}")
             lines.append(
-                f"    n = {r.n}  slope {_f(r.slope)}   {pct} CI {_f(r.slope_ci[0])} .. {_f(r.slope_ci[1])}{was}"
-            )
-            lines.append(
-                f"    intercept {_f(r.intercept)}   {pct} CI {_f(r.intercept_ci[0])} .. {_f(r.intercept_ci[1])}   r2 {_f(r.r2)}"
+                f"    intercept {_f(r.intercept)}   {pct} CI {_span(r.intercept_ci)}   "
+                f"r2 {_f(r.r2)}"
             )
             if r.against:
                 lines.append(f"    {_against_text(r.against)}")
             if r.outliers:
                 lines.append(
-                    f"    flags of the refit (not dropped): {', '.join(dict.fromkeys(o['label'] for o in r.outliers))}"
+                    "    flags of the refit (not dropped): "
+                    + ", ".join(dict.fromkeys(o["label"] for o in r.outliers))
                 )
         if self.note:
             lines.append(f"    note: {self.note}")
@@ -557,8 +588,14 @@ GROUP_QUESTIONS = {
 }
 
 
+def _span(pair) -> str:
+    """An interval as summaries print it: ``lo .. hi``."""
+    return f"{_f(pair[0])} .. {_f(pair[1])}"
+
+
 def _against_text(t: dict) -> str:
-    """``slope = 1?  t = 2.31 (df 10), p = 0.04`` or ``F(1, 10) = ...`` (the statistic named as the test is)."""
+    """``slope = 1?  t = 2.31 (df 10), p = 0.04`` or ``F(1, 10) = ...`` (the statistic named as
+    the test is)."""
     name = t.get("test") or "statistic"
     df = t.get("df")
     if name.startswith("F(") and isinstance(df, list | tuple) and len(df) == 2:

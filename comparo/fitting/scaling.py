@@ -96,7 +96,7 @@ def fit(
         rules and groups (:func:`comparo.fitting.flags.drop_rules`). Default: no refit,
         nothing is ever dropped.
     **pgls_options
-        Passed to :func:`comparo.phylo.phylo_fit` (tree, lambda, REML...).
+        Passed to :func:`comparo.phylo.pgls` (tree, lambda_, reml, tree_labels, tip_se).
 
     Returns
     -------
@@ -239,6 +239,25 @@ def _line(
     )
 
 
+def phylo_fit(table: pd.DataFrame, x: str, y: str, *, tree: Any, **options: Any) -> FitResult:
+    """Deprecated: ``fit(table, x, y, method="pgls", tree=tree, **options)``, which it calls.
+
+    The same :class:`FitResult` as :func:`fit` with ``method="pgls"`` (the options are those of
+    :func:`fit` and of :func:`comparo.phylo.pgls`: ``lambda_``, ``reml``, ``tree_labels``,
+    ``tip_se``). Reading it by key as the old dict (``result["slope"]``) still works, with a
+    :class:`DeprecationWarning` naming the attribute.
+    """
+    import warnings
+
+    warnings.warn(
+        "phylo_fit(table, x, y, tree=...) is deprecated: use "
+        "fit(table, x, y, method='pgls', tree=...), which returns the same FitResult",
+        DeprecationWarning,
+        stacklevel=2,
+    )
+    return fit(table, x, y, "pgls", tree=tree, **options)
+
+
 def _with_temperature(res: FitResult, table: pd.DataFrame, taxon_col: str) -> FitResult:
     """*res* with ``temperature``: what the harmonisation did to the temperature-sensitive
     values behind the fitted taxa (:func:`comparo.validation.temperature.fit_temperature`; None for
@@ -298,16 +317,14 @@ def _check_options(method: str, log: Any, ci: float, bootstrap: int) -> str:
 def _pgls(
     table, x, y, log, ci, against, taxon_col, by, bootstrap, breakpoint, drop_flagged, options
 ) -> FitResult:
-    """The PGLS fit, computed by :func:`comparo.phylo.phylo_fit`, as a :class:`FitResult`."""
-    from comparo.phylo import phylo_fit
+    """The PGLS fit, computed by :func:`comparo.phylo.pgls`, as a :class:`FitResult`."""
+    from comparo.phylo import pgls
 
     if bootstrap or breakpoint:
         raise UsageError("--bootstrap and --breakpoint are not available for method pgls")
     if by is not None:
         options["by"] = by
-    d = phylo_fit(
-        table=table, x=x, y=y, log=log, ci=ci, against=against, taxon_col=taxon_col, **options
-    )
+    d = pgls(table=table, x=x, y=y, log=log, ci=ci, against=against, taxon_col=taxon_col, **options)
     if d.get("group_tests"):
         d["group_tests"] = judge_slopes(d["group_tests"], ci)
     res = FitResult.from_dict(d)

@@ -130,7 +130,7 @@ def _draw_slopes(
     if method == "pgls":
         import pandas as pd
 
-        from comparo.phylo import phylo_fit, read_tree
+        from comparo.phylo import pgls, read_tree
 
         opts = {k: v for k, v in fit_options.items() if k in ("tree", "tree_labels", "reml")}
         if isinstance(opts.get("tree"), str):
@@ -138,7 +138,7 @@ def _draw_slopes(
         lam = result.lambda_ if result.lambda_ is not None else "ml"
         for k in np.flatnonzero(ok):
             t = pd.DataFrame({"taxon": labels, "x": X[k], "y": Y[k]})
-            out[k] = phylo_fit(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
+            out[k] = pgls(table=t, x="x", y="y", log="none", lambda_=lam, **opts)["slope"]
         return out
     raise UsageError(f"measurement-error Monte Carlo: unknown method {method!r}")
 

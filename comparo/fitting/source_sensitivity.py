@@ -18,6 +18,7 @@ from __future__ import annotations
 import dataclasses
 import functools
 import math
+import os
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -28,6 +29,7 @@ from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import json_safe as _json
 from comparo.base.numbers import number
 from comparo.base.progress import ProgressBar
+from comparo.base.results import Result
 from comparo.fitting.result import FitResult
 from comparo.fitting.scaling import fit, renamed_against
 from comparo.fitting.slope_spread import analytic_se, measurement_error_mc, taxon_jackknife
@@ -53,7 +55,7 @@ def loso_lines(
 
 
 @dataclass(frozen=True)
-class SensitivityResult:
+class SensitivityResult(Result):
     """How much the fitted slope depends on single sources, bases, taxa and measurement error.
 
     Attributes
@@ -360,13 +362,16 @@ def sensitivity(
     import pandas as pd
 
     from comparo.base.arguments import check_count, check_draws, check_kind, check_level, check_seed
-    from comparo.validation.dataset import Dataset
+    from comparo.validation.dataset import Dataset, as_dataset
 
+    if isinstance(dataset_or_table, str | os.PathLike):  # a dataset folder
+        dataset_or_table = as_dataset(dataset_or_table, "dataset_or_table")
     check_kind(
         dataset_or_table,
         (Dataset, pd.DataFrame),
         "dataset_or_table",
-        "a Dataset (comparo.load(FOLDER)) or a per-taxon DataFrame (comparo.per_taxon)",
+        "a Dataset (comparo.load(FOLDER)), a dataset folder or a per-taxon DataFrame "
+        "(comparo.tabulate)",
     )
     mc = check_count(mc, "mc")
     seed = check_seed(seed, "seed")

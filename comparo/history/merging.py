@@ -20,6 +20,7 @@ from pathlib import Path
 from typing import Any
 
 from comparo.base.errors import InputError, UsageError
+from comparo.base.results import Result
 
 #: Columns merged as one: a side that changed any of them changed the value as written.
 VALUE_GROUP = ("value", "unit", "uncertainty", "uncertainty_kind")
@@ -41,7 +42,7 @@ SIDES = ("base", "a", "b")
 
 
 @dataclass(frozen=True)
-class MergeResult:
+class MergeResult(Result):
     """What :func:`merge` did. ``conflicts`` (each a dict of :data:`CONFLICT_COLUMNS` plus
     ``resolved``) lists every conflict met, resolved or not; ``out`` is the folder written (None
     while conflicts remain), ``conflicts_file`` the file listing them (None when none remain);
@@ -445,8 +446,9 @@ def merge(
     """
     from comparo.base.errors import problems_frame
     from comparo.reading.folder import read_folder
-    from comparo.validation.tables import validate
+    from comparo.validation.tables import folder_of, validate
 
+    a, b, base = folder_of(a), folder_of(b), folder_of(base)
     out = Path(out)
     inputs = [p for p in (a, b, base, resolve) if p is not None]
     _guard(out, inputs)

@@ -15,6 +15,7 @@ from typing import Any
 
 from comparo.base.display import html_table
 from comparo.base.jsonsafe import finite_or_none, json_safe
+from comparo.base.results import Result
 
 #: Relative tolerance under which two values in canonical units count as the same (a unit
 #: change such as 12 um -> 0.012 mm leaves rounding of this order).
@@ -483,7 +484,7 @@ def regime_changes(data_old, data_new, renamed: dict[str, str]) -> list[dict]:
 
 
 @dataclass(frozen=True)
-class VersionDiff:
+class VersionDiff(Result):
     """What changed between two versions of a compilation (:func:`diff`).
 
     Attributes mirror the JSON of ``comparo diff --format json`` (docs/versions.md): ``rows``,

@@ -11,8 +11,10 @@ ever building the n x n covariance matrix:
   height above the tips;
 * :func:`gls_quantities` -- one post-order pass giving ln|V|, 1'V⁻¹1, 1'V⁻¹Z and
   Z'V⁻¹Z (Ho & Ané 2014), vectorised by tree level;
-* :func:`phylo_fit` -- phylogenetic generalised least squares with Pagel's lambda,
-  measurement error, ML or REML, and group (interaction) tests;
+* :func:`pgls` -- phylogenetic generalised least squares with Pagel's lambda,
+  measurement error, ML or REML, and group (interaction) tests: the record that
+  ``comparo.fit(..., method="pgls")`` turns into a ``FitResult`` (``phylo_fit`` is its
+  deprecated old name here);
 * :func:`contrasts` -- Felsenstein's independent contrasts with diagnostics;
 * :func:`signal` -- Pagel's lambda and Blomberg's K with a permutation test.
 
@@ -46,7 +48,7 @@ from __future__ import annotations
 from comparo.phylo.engine import GLSQuantities, gls_quantities
 from comparo.phylo.flat import FlatTree, flat_tree, pagel_edges
 from comparo.phylo.independent import Contrasts, contrasts
-from comparo.phylo.regression import phylo_fit
+from comparo.phylo.regression import pgls, phylo_fit
 from comparo.phylo.signal import SignalResult, blomberg_k, tree_signal
 from comparo.phylo.simulate import random_newick
 from comparo.phylo.tips import (
@@ -73,6 +75,7 @@ __all__ = [
     "GLSQuantities",
     "gls_quantities",
     "pagel_edges",
+    "pgls",
     "phylo_fit",
     "Contrasts",
     "contrasts",

@@ -23,6 +23,7 @@ import numpy as np
 
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
+from comparo.base.results import Result
 from comparo.phylo.flat import FlatTree, _flat, pagel_edges
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -151,7 +152,7 @@ def _observed_tree(topo: Any, ft: FlatTree, observed: list[str]) -> FlatTree:
 
 
 @dataclass(frozen=True, eq=False)
-class Imputation:
+class Imputation(Result):
     """Phylogenetic imputation of one quantity (on log10 of its per-taxon values).
 
     Attributes

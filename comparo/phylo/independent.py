@@ -15,6 +15,7 @@ import numpy as np
 from comparo.base.errors import InputError, Problem, UsageError
 from comparo.base.jsonsafe import finite_list as _fl
 from comparo.base.jsonsafe import finite_or_none as _f
+from comparo.base.results import Result
 from comparo.phylo.flat import FlatTree, _flat
 from comparo.phylo.tips import TipMatch, _match
 from comparo.phylo.trees import _as_topo
@@ -54,7 +55,7 @@ def _values_on_tree(
 
 
 @dataclass(frozen=True, eq=False)
-class Contrasts:
+class Contrasts(Result):
     """Standardised independent contrasts (Felsenstein 1985) and their diagnostics.
 
     Attributes
@@ -93,6 +94,7 @@ class Contrasts:
     tips_pruned: tuple[str, ...] = field(default=())
 
     def to_frame(self) -> pd.DataFrame:
+        """One row per contrast: ``contrast``, ``sd`` and ``node_height``."""
         import pandas as pd
 
         return pd.DataFrame(
@@ -100,6 +102,7 @@ class Contrasts:
         )
 
     def to_dict(self) -> dict:
+        """JSON-safe dict: the three arrays as lists, the root and the diagnostics."""
         return {
             "contrasts": _fl(self.contrasts),
             "sd": _fl(self.sd),
@@ -116,6 +119,7 @@ class Contrasts:
         }
 
     def summary(self) -> str:
+        """Plain text: the count, the root value and the two diagnostic correlations."""
         lines = [
             f"{self.contrasts.size} standardised contrasts; root value {self.root_value:.6g}",
             f"|contrast| vs sd: r = {self.r_abs_sd:.3f} (p = {self.p_abs_sd:.3g})"

@@ -192,7 +192,7 @@ def phylo_outliers(
     ds : Dataset
         A loaded dataset; without a tree nothing is checked (the note says so).
     table : DataFrame, optional
-        Its per-taxon table (:func:`comparo.per_taxon`). When not given, computed (from
+        Its per-taxon table (:func:`comparo.tabulate`). When not given, computed (from
         *harmonised*, with *temperature*) for the quantities with at least
         :data:`MIN_CHECKED` taxa only.
     alpha : float

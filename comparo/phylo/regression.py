@@ -30,7 +30,7 @@ _CONVENTION = {  # REML? -> how the reported log-likelihood is defined
 }
 
 
-def phylo_fit(
+def pgls(
     table: pd.DataFrame,
     x: str,
     y: str,
@@ -46,7 +46,9 @@ def phylo_fit(
     tip_se: str | bool | Mapping[str, float] | None = None,
     by: str | None = None,
 ) -> dict:
-    """Phylogenetic generalised least squares of y on x with Pagel's lambda.
+    """Phylogenetic generalised least squares of y on x with Pagel's lambda: the engine
+    behind ``comparo.fit(..., method="pgls")``, which turns this record into a
+    :class:`comparo.FitResult` (use that; this is for the fitting room and the reference tests).
 
     Model: Y = alpha + beta·X + e, e ~ N(0, V), V = sigma²·C(lambda) [+ diag(se²)],
     with X, Y the (log) values, C the BM covariance of the tree pruned to the
@@ -125,7 +127,8 @@ def phylo_fit(
     if n < need:
         raise UsageError(
             f"PGLS needs at least {need} taxa with x, y and a tip in the tree; {n} remain "
-            f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in all)"
+            f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in "
+            "all)"
         )
     ft, keep, pruned = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     keep_labels = [labels[i] for i in keep]
@@ -140,6 +143,16 @@ def phylo_fit(
         groups, group_tests = _group_fit(
             ft, X1, Y, [groups_of[i] for i in keep], lambda_, se2, reml, ci
         )
+    return _record(x, y, log, n, line, extras, groups, group_tests, excluded, reml, lf) | {
+        "measurement_error": me_info,
+        "tips_pruned": pruned,
+        "taxa_without_tips": list(match.taxa_without_tips),
+    }
+
+
+def _record(x, y, log, n, line, extras, groups, group_tests, excluded, reml, lf) -> dict:
+    """The record of :func:`pgls` (the ``fit --format json`` keys and the PGLS extras), in
+    the order of docs/cli.md; :func:`pgls` adds the measurement error and the tip lists."""
     return {
         "method": "pgls",
         "x": x,
@@ -158,10 +171,24 @@ def phylo_fit(
         "r2_kind": "generalised: 1 - RSS/RSS_null under the fitted phylogenetic covariance",
         "lambda_tests": _lambda_tests(lf),
         "group_tests": group_tests,
-        "measurement_error": me_info,
-        "tips_pruned": pruned,
-        "taxa_without_tips": list(match.taxa_without_tips),
     }
+
+
+def phylo_fit(table: pd.DataFrame, x: str, y: str, **options: Any) -> dict:
+    """Deprecated name of :func:`pgls` (the same record, with a :class:`DeprecationWarning`).
+
+    The public fit is ``comparo.fit(table, x, y, method="pgls", tree=...)``, a
+    :class:`comparo.FitResult`; ``comparo.phylo_fit`` is that same fit.
+    """
+    import warnings
+
+    warnings.warn(
+        "comparo.phylo.phylo_fit is deprecated: use comparo.fit(table, x, y, method='pgls', "
+        "tree=...) for the FitResult, or comparo.phylo.pgls for this record",
+        DeprecationWarning,
+        stacklevel=2,
+    )
+    return pgls(table, x, y, **options)
 
 
 def _pruned_tree(topo, keep: list[int], tips: list[str]):
@@ -313,7 +340,8 @@ def _measurement_error(
     se_col: str | None,
     se_map: Mapping[str, float] | None,
 ) -> tuple[np.ndarray | None, dict | None]:
-    """Tip variances on the fitted scale (se²) and their account, or (None, None) without tip errors."""
+    """Tip variances on the fitted scale (se²) and their account, or (None, None) without tip
+    errors."""
     if se_col is None and se_map is None:
         return None, None
     if se_col is not None:
@@ -356,7 +384,8 @@ def _lambda_tests(lf) -> dict | None:
         "search_interval": [0.0, lf.top],
         "note": None
         if lf.top == 1.0
-        else "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is evaluated there",
+        else "tips with zero-length edges: lambda searched on [0, 1 - 1e-6]; 'lambda_1' is "
+        "evaluated there",
     }
 
 
@@ -443,6 +472,7 @@ def _group_fit(
         "lambda": _f(lam),
         "lambda_ci": None if lf.ci is None else [_f(lf.ci[0]), _f(lf.ci[1])],
         "loglik": _f(lf.loglik),
-        "note": "F tests at the lambda of the interaction model (separate slopes and intercepts per group)",
+        "note": "F tests at the lambda of the interaction model (separate slopes and intercepts "
+        "per group)",
     }
     return rows, tests

@@ -9,20 +9,24 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from comparo.base.jsonsafe import finite_list as _fl
 from comparo.base.jsonsafe import finite_or_none as _f
+from comparo.base.results import Result
 from comparo.phylo.engine import gls_quantities
 from comparo.phylo.flat import FlatTree
 from comparo.phylo.independent import _values_on_tree
 from comparo.phylo.likelihood import _fit_lambda, _lr
 
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
 
 @dataclass(frozen=True)
-class SignalResult:
+class SignalResult(Result):
     """Phylogenetic signal of one trait.
 
     Attributes
@@ -81,13 +85,33 @@ class SignalResult:
         }
 
     def summary(self) -> str:
+        """Plain text: K with its permutation p, lambda with its interval and LR tests."""
+        lo, hi = self.lambda_ci
         return "\n".join(
             [
                 f"phylogenetic signal, n = {self.n}",
-                f"Blomberg's K = {self.K:.4g} (permutation p = {self.K_p:.3g}, {self.permutations} permutations, seed {self.seed})",
-                f"Pagel's lambda = {self.lambda_:.4g} [{self.lambda_ci[0]:.3g}, {self.lambda_ci[1]:.3g}];"
-                f" LR vs 0: {self.lr_lambda0:.3g} (p = {self.p_lambda0:.3g}); vs 1: {self.lr_lambda1:.3g} (p = {self.p_lambda1:.3g})",
+                f"Blomberg's K = {self.K:.4g} (permutation p = {self.K_p:.3g}, "
+                f"{self.permutations} permutations, seed {self.seed})",
+                f"Pagel's lambda = {self.lambda_:.4g} [{lo:.3g}, {hi:.3g}];"
+                f" LR vs 0: {self.lr_lambda0:.3g} (p = {self.p_lambda0:.3g});"
+                f" vs 1: {self.lr_lambda1:.3g} (p = {self.p_lambda1:.3g})",
             ]
+        )
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per statistic: ``statistic``, ``estimate``, ``ci_low``, ``ci_high``,
+        ``test`` (what the p tests) and ``p``."""
+        import pandas as pd
+
+        nan = math.nan
+        lo, hi = self.lambda_ci
+        return pd.DataFrame(
+            [
+                ("K", self.K, nan, nan, "permutation, K >= observed", self.K_p),
+                ("lambda", self.lambda_, lo, hi, "LR, lambda = 0", self.p_lambda0),
+                ("lambda", self.lambda_, lo, hi, "LR, lambda = 1", self.p_lambda1),
+            ],
+            columns=["statistic", "estimate", "ci_low", "ci_high", "test", "p"],
         )
 
 

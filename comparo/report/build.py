@@ -163,8 +163,9 @@ def build_report(
     from comparo.base.arguments import check_count, check_path, check_seed
     from comparo.base.errors import UsageError
     from comparo.base.outputs import protecting, resolve_output
+    from comparo.validation.tables import folder_of
 
-    folder, out = check_path(folder, "folder"), check_path(out_dir, "out_dir")
+    folder, out = check_path(folder_of(folder), "folder"), check_path(out_dir, "out_dir")
     if gate is None:
         raise UsageError("gate: give the dataset check (comparo.build_report passes it)")
     seed = check_seed(seed, "seed")
@@ -458,8 +459,8 @@ def comparison_id(i: int, c: dict) -> str:
 
 def _added_variable(run: _Run, rec: dict, res: Any, opts: dict) -> None:
     """The added-variable plots of a comparison (:mod:`comparo.report.added_variable`)."""
-    from comparo.base.errors import ComparoError
     import comparo.report.figures as plots
+    from comparo.base.errors import ComparoError
     from comparo.report.added_variable import comparison_figure
 
     cols = {c for f in res.fits for c in f.predictors} | {res.y}

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from comparo.base.results import Result
 from comparo.report.fmt import num
 from comparo.validation.settings import DEFAULT_ANALYSES  # noqa: F401  (the default fits, kept importable here)
 
@@ -22,7 +23,7 @@ DISCLAIMER = (
 
 
 @dataclass(frozen=True)
-class ReportResult:
+class ReportResult(Result):
     """What :func:`build_report` wrote.
 
     Attributes

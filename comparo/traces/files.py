@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from comparo.base.errors import Problem
+from comparo.base.results import Result
 from comparo.validation.numbers import WORKING_RANGE
 
 TRACES_FILE = "traces.csv"
@@ -142,7 +143,7 @@ def _num(v: Any) -> float | None:
 
 
 @dataclass(frozen=True)
-class TraceSet:
+class TraceSet(Result):
     """Every trace of a dataset: results of the good ones, problems of all (errors and warnings)."""
 
     results: tuple[TraceResult, ...] = ()
@@ -154,6 +155,16 @@ class TraceSet:
 
     def to_dict(self) -> dict[str, Any]:
         return {"traces": [r.to_dict() for r in self.results]}
+
+    def summary(self) -> str:
+        """Plain text: traces reduced, problems by severity, the first errors."""
+        errors = [p for p in self.problems if p.severity == "error"]
+        lines = [
+            f"{len(self.results)} trace(s) reduced; {len(errors)} error(s), "
+            f"{len(self.problems) - len(errors)} warning(s)"
+        ]
+        lines += [f"  error: {p.message}" for p in errors[:5]]
+        return "\n".join(lines)
 
     def to_frame(self):
         """One row per trace, SI columns (``KEY`` and ``KEY_sd``), for ``--format csv``."""

@@ -9,13 +9,15 @@ checks of every later stage.
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
+from typing import Any
 
 from comparo.base.errors import InputError, problems_frame
 from comparo.reading.folder import read_folder
-from comparo.validation.tables import CheckResult, Dataset, validate
+from comparo.validation.tables import CheckResult, Dataset, require_dataset, validate
 
-__all__ = ["CheckResult", "Dataset", "load"]
+__all__ = ["CheckResult", "Dataset", "as_dataset", "load"]
 
 
 def load(folder: str | Path, *, strict: bool = True) -> Dataset:
@@ -43,3 +45,12 @@ def load(folder: str | Path, *, strict: bool = True) -> Dataset:
         raise InputError(frame)
     ds.problems = frame
     return ds
+
+
+def as_dataset(ds: Any, name: str = "ds") -> Dataset:
+    """*ds* when it is a :class:`Dataset`; a dataset folder (text or path) read with
+    :func:`load`; else a UsageError saying what is accepted. The functions that take a dataset
+    first take either (docs/api.md)."""
+    if isinstance(ds, str | os.PathLike):
+        return load(ds)
+    return require_dataset(ds, name)

@@ -23,6 +23,7 @@ import pandas as pd
 
 from comparo.base.catalog import Catalog, load_catalog, read_schema
 from comparo.base.errors import InputError, Problem, problems_frame, problems_from_frame
+from comparo.base.results import Result
 from comparo.reading.folder import RawDataset, cell_coordinates, read_folder
 from comparo.reading.tables import RawTable
 from comparo.validation.numbers import map_distinct
@@ -244,7 +245,7 @@ def reserved_column_problems(raw: RawDataset, catalog: Catalog) -> list[Problem]
 
 
 @dataclass
-class Dataset:
+class Dataset(Result):
     """A validated dataset folder.
 
     Attributes
@@ -293,6 +294,34 @@ class Dataset:
         ``reference_temperature_c = "operating"``, the fallback for taxa without an
         operating temperature, ``[temperature] fallback_c``)."""
         return temperature_policy(self.settings).reference_c
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-safe account: folder, files, rows, sources, taxa, tree tips, problems."""
+        sev = self.problems["severity"] if self.problems is not None else pd.Series([], dtype=str)
+        return {
+            "folder": str(self.folder),
+            "files": {k: str(v) for k, v in self.files.items()},
+            "rows_read": int(self.rows_read),
+            "sources": int(len(self.sources)),
+            "taxa": None if self.taxa is None else int(len(self.taxa)),
+            "tree": self.tree is not None or self.tree_text is not None,
+            "errors": int((sev == "error").sum()),
+            "warnings": int((sev == "warning").sum()),
+        }
+
+    def to_frame(self) -> pd.DataFrame:
+        """The observation rows (:attr:`observations`)."""
+        return self.observations
+
+    def summary(self) -> str:
+        """Plain text: the folder and the counts of :meth:`to_dict`."""
+        d = self.to_dict()
+        taxa = "no taxa table" if d["taxa"] is None else f"{d['taxa']} taxa"
+        return (
+            f"dataset {d['folder']}\n  {d['rows_read']} observation rows, {d['sources']} sources,"
+            f" {taxa}, {'a' if d['tree'] else 'no'} tree; {d['errors']} error(s),"
+            f" {d['warnings']} warning(s)"
+        )
 
 
 def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
@@ -373,7 +402,7 @@ def validate(raw: RawDataset) -> tuple[Dataset | None, list[Problem]]:
 
 
 @dataclass(frozen=True)
-class CheckResult:
+class CheckResult(Result):
     """Outcome of checking a dataset folder.
 
     Attributes
@@ -454,15 +483,26 @@ class CheckResult:
 
 
 def require_dataset(ds: Any, name: str = "ds") -> Dataset:
-    """*ds* when it is a :class:`Dataset`; else a UsageError saying how to make one."""
+    """*ds* when it is a :class:`Dataset`; else a UsageError saying what is accepted
+    (:func:`comparo.validation.dataset.as_dataset` also reads a folder)."""
     from comparo.base.arguments import check_kind
 
-    return check_kind(ds, Dataset, name, "a Dataset, such as comparo.load(FOLDER) returns")
+    return check_kind(
+        ds, Dataset, name, "a Dataset or a dataset folder, such as comparo.load(FOLDER) reads"
+    )
+
+
+def folder_of(ds: Any) -> Any:
+    """The folder of a :class:`Dataset`; anything else as given (a path, checked where used).
+    For the functions that read the folder again themselves (check, report, merge)."""
+    return ds.folder if isinstance(ds, Dataset) else ds
 
 
 def check(folder) -> CheckResult:
     """Validate a dataset folder and return every problem found (never raises for
-    bad cells; raises :class:`~comparo.InputError` only when the folder itself is missing)."""
+    bad cells; raises :class:`~comparo.InputError` only when the folder itself is missing).
+    A loaded :class:`Dataset` is checked again from its folder."""
+    folder = folder_of(folder)
     raw = read_folder(folder)
     ds, problems = validate(raw)
     rows = len(raw.observations) if raw.observations is not None else 0

@@ -1,5 +1,5 @@
 """Benchmark: a three-predictor PGLS with Pagel's lambda by ML on a 100,000-tip tree
-(:func:`comparo.multiple_fit`, tip matching and pruning included; the Newick read apart),
+(:func:`comparo.fit_multiple`, tip matching and pruning included; the Newick read apart),
 and a four-model :func:`comparo.compare` on the same tree and table.
 
 Data: a seeded random ultrametric tree (:func:`comparo.phylo.random_newick`), three log-normal

@@ -1,7 +1,7 @@
 """Benchmark: linear-time PGLS (comparo.phylo) vs dense statsmodels GLS.
 
 For random trees (seeded) of n tips, the same data are fitted with
-``comparo.phylo.phylo_fit`` (lambda fixed at 1, including tip matching and
+``comparo.phylo.pgls`` (lambda fixed at 1, including tip matching and
 pruning; and by ML), with one pass of ``gls_quantities`` on the prepared tree, and with statsmodels
 GLS on the dense Brownian covariance C (built outside the timing, from the tree's
 ancestor sets). Printed: seconds per fit, the ratio dense / linear, and the
@@ -70,13 +70,11 @@ def one(n: int, seed: int = 1) -> None:
     df = pd.DataFrame({"taxon": list(ft.tips), "x": x, "y": y})
     X = sm.add_constant(x)
     t_dense, ref = timed(lambda: sm.GLS(y, X, sigma=C).fit(), repeat=1)
-    t_lin, r = timed(
-        lambda: phylo.phylo_fit(df, "x", "y", tree=tree, log="none", lambda_=1.0), repeat=3
-    )
+    t_lin, r = timed(lambda: phylo.pgls(df, "x", "y", tree=tree, log="none", lambda_=1.0), repeat=3)
     Z = np.column_stack([X, y])
     t_eng, gq = timed(lambda: phylo.gls_quantities(ft, Z), repeat=3)
     t_ml, rml = timed(
-        lambda: phylo.phylo_fit(df, "x", "y", tree=tree, log="none", lambda_="ml"), repeat=1
+        lambda: phylo.pgls(df, "x", "y", tree=tree, log="none", lambda_="ml"), repeat=1
     )
     ours = np.array([r["intercept"], r["slope"], r["intercept_se"], r["slope_se"], r["loglik"]])
     theirs = np.array([*ref.params, *ref.bse, ref.llf])
@@ -99,7 +97,7 @@ def big(n: int = 100_000, seed: int = 7) -> None:
     x = rng.normal(size=n)
     y = 0.5 * x + rng.normal(size=n)
     df = pd.DataFrame({"taxon": [f"t{i + 1}" for i in range(n)], "x": x, "y": y})
-    t_fit, r = timed(lambda: phylo.phylo_fit(df, "x", "y", tree=tree, log="none", lambda_="ml"))
+    t_fit, r = timed(lambda: phylo.pgls(df, "x", "y", tree=tree, log="none", lambda_="ml"))
     print(
         f"n {n}: read Newick {t_read:.2f} s; lambda-ML PGLS (match, prune, search, CI, LR tests) "
         f"{t_fit:.2f} s; lambda {r['lambda']:.4f} CI {r['lambda_ci']}"

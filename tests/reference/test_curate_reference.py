@@ -92,7 +92,7 @@ def test_inverse_variance_mean_equals_intercept_only_wls(tmp_path):
         f"o{i},Apis mellifera,fiber_radius,{a},um,{b},se,,s1,T{i},reported,,,"
         for i, (a, b) in enumerate(zip(v, u, strict=True))
     ]
-    tab = comparo.per_taxon(comparo.load(write_dataset(tmp_path / "w", rows, header=hdr)))
+    tab = comparo.tabulate(comparo.load(write_dataset(tmp_path / "w", rows, header=hdr)))
     wls = sm.WLS(v, np.ones((3, 1)), weights=1 / u**2).fit(
         cov_type="fixed scale", cov_kwds={"scale": 1.0}
     )

@@ -148,7 +148,7 @@ def test_lambda_ml_fit_equals_the_same_search_done_with_scipy(k, n, lam_true, re
     their SEs and the log-likelihood then agree to 1e-6 relative (the likelihood is flat
     at its maximum, and the estimates move by O(1) per unit of lambda)."""
     nw, ft, df = _data(k, n, lam_true)
-    r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_="ml", reml=reml)
+    r = phylo.pgls(df, "x", "y", tree=nw, log="none", lambda_="ml", reml=reml)
     tips = list(df["taxon"])
     order = ft.index(tips)
     X = np.column_stack([np.ones(n), df["x"].to_numpy()[np.argsort(order)]])

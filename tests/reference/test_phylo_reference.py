@@ -124,14 +124,14 @@ def test_four_tip_worked_example_pgls():
     """Four-tip worked example, from memory: beta = (0.369110, 1.143455), l_ML -0.432041, l_REML
     -2.299894, se(slope) 0.164279, 95% CI (0.436618, 1.850293) with t(2)."""
     df = pd.DataFrame({"taxon": list("ABCD"), "x": X4, "y": Y4})
-    r = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
+    r = phylo.pgls(df, "x", "y", tree=FOUR, log="none", lambda_=1.0)
     assert r["intercept"] == pytest.approx(0.369110, abs=1e-6)
     assert r["slope"] == pytest.approx(1.143455, abs=1e-6)
     assert r["loglik"] == pytest.approx(-0.432041, abs=1e-6)
     assert r["slope_se"] == pytest.approx(0.164279, abs=1e-6)
     assert r["slope_ci"] == pytest.approx([0.436618, 1.850293], abs=1e-6)
     assert r["sigma2"] == pytest.approx(0.084503, abs=1e-6)
-    rr = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=1.0, reml=True)
+    rr = phylo.pgls(df, "x", "y", tree=FOUR, log="none", lambda_=1.0, reml=True)
     assert rr["loglik"] == pytest.approx(-2.299894, abs=1e-6)
     assert rr["likelihood"] == "REML"
 
@@ -148,10 +148,10 @@ def test_four_tip_worked_example_lambda_tree():
     np.testing.assert_allclose(np.sort(phylo.pagel_edges(ft, 0.5)), np.sort(half.length))
     df = pd.DataFrame({"taxon": list("ABCD"), "x": X4, "y": Y4})
     for lam, want in [(0.0, -0.225777), (0.5, -0.362228), (1.0, -0.432041)]:
-        assert phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_=lam)[
+        assert phylo.pgls(df, "x", "y", tree=FOUR, log="none", lambda_=lam)[
             "loglik"
         ] == pytest.approx(want, abs=1e-6)
-    r = phylo.phylo_fit(df, "x", "y", tree=FOUR, log="none", lambda_="ml")
+    r = phylo.pgls(df, "x", "y", tree=FOUR, log="none", lambda_="ml")
     assert r["lambda"] == pytest.approx(0.0, abs=1e-4)
     assert r["lambda_tests"]["lambda_1"]["statistic"] == pytest.approx(
         2 * (-0.225777 + 0.432041), abs=1e-5
@@ -225,13 +225,13 @@ def test_pgls_matches_statsmodels_gls(n, seed, ultra, poly):
     X = sm.add_constant(x)
     for lam in (0.0, 0.5, 1.0):
         ref = sm.GLS(y, X, sigma=pagel(C, lam)).fit()
-        r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam)
+        r = phylo.pgls(df, "x", "y", tree=nw, log="none", lambda_=lam)
         np.testing.assert_allclose([r["intercept"], r["slope"]], ref.params, rtol=1e-8)
         np.testing.assert_allclose([r["intercept_se"], r["slope_se"]], ref.bse, rtol=1e-8)
         assert r["loglik"] == pytest.approx(ref.llf, rel=1e-8)
         lo, hi = ref.conf_int(0.05)[1]
         assert r["slope_ci"] == pytest.approx([lo, hi], rel=1e-8)
-        rr = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam, reml=True)
+        rr = phylo.pgls(df, "x", "y", tree=nw, log="none", lambda_=lam, reml=True)
         assert rr["loglik"] == pytest.approx(dense_loglik(pagel(C, lam), X, y, reml=True), rel=1e-8)
 
 
@@ -258,7 +258,7 @@ def test_pruning_matches_dendropy_pruned_tree():
     _, Ck = dense_cov(nw, keep)
     for lam in (0.3, 1.0):
         ref = sm.GLS(y[sub], sm.add_constant(x[sub]), sigma=pagel(Ck, lam)).fit()
-        r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam)
+        r = phylo.pgls(df, "x", "y", tree=nw, log="none", lambda_=lam)
         np.testing.assert_allclose([r["intercept"], r["slope"]], ref.params, rtol=1e-8)
         assert r["loglik"] == pytest.approx(ref.llf, rel=1e-8)
         assert len(r["tips_pruned"]) == 60 - len(keep)
@@ -278,7 +278,7 @@ def test_lambda_ml_matches_dense_grid():
         fine = grid[max(0, i - 10) : i + 11]
         llf = [dense_loglik(pagel(C, g), X, y, reml=reml) for g in fine]
         lam_grid = fine[int(np.argmax(llf))]
-        r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_="ml", reml=reml)
+        r = phylo.pgls(df, "x", "y", tree=nw, log="none", lambda_="ml", reml=reml)
         assert abs(r["lambda"] - lam_grid) < 1e-3
         assert r["loglik"] == pytest.approx(max(llf), abs=1e-6)
         # profile CI ends satisfy 2(lmax - l) = chi2_1(0.95) = 3.8415 or sit on a bound
@@ -301,7 +301,7 @@ def test_star_tree_and_lambda_zero_give_ols():
     df = pd.DataFrame({"taxon": names, "x": x, "y": y})
     star = "(" + ",".join(f"{s}:2.5" for s in names) + ");"
     ols = sm.OLS(y, sm.add_constant(x)).fit()
-    r = phylo.phylo_fit(df, "x", "y", tree=star, log="none", lambda_=1.0)
+    r = phylo.pgls(df, "x", "y", tree=star, log="none", lambda_=1.0)
     np.testing.assert_allclose([r["intercept"], r["slope"]], ols.params, rtol=1e-10)
     np.testing.assert_allclose([r["intercept_se"], r["slope_se"]], ols.bse, rtol=1e-10)
     assert r["loglik"] == pytest.approx(ols.llf, rel=1e-10)
@@ -310,13 +310,13 @@ def test_star_tree_and_lambda_zero_give_ols():
     tn, C, x2, y2 = simulate(nw, 43)
     d2 = pd.DataFrame({"taxon": tn, "x": x2, "y": y2})
     ols2 = sm.OLS(y2, sm.add_constant(x2)).fit()
-    r0 = phylo.phylo_fit(d2, "x", "y", tree=nw, log="none", lambda_=0.0)
+    r0 = phylo.pgls(d2, "x", "y", tree=nw, log="none", lambda_=0.0)
     np.testing.assert_allclose([r0["intercept"], r0["slope"]], ols2.params, rtol=1e-8)
     np.testing.assert_allclose([r0["intercept_se"], r0["slope_se"]], ols2.bse, rtol=1e-8)
     nw3 = phylo.random_newick(30, 44, ultrametric=False)
     tn3, C3, x3, y3 = simulate(nw3, 45)
     wls = sm.WLS(y3, sm.add_constant(x3), weights=1 / np.diag(C3)).fit()
-    r3 = phylo.phylo_fit(
+    r3 = phylo.pgls(
         pd.DataFrame({"taxon": tn3, "x": x3, "y": y3}), "x", "y", tree=nw3, log="none", lambda_=0.0
     )
     np.testing.assert_allclose([r3["intercept"], r3["slope"]], wls.params, rtol=1e-8)
@@ -367,7 +367,7 @@ def test_pgls_measurement_error_fit_matches_dense_ml():
         lambda v: -dense(v)[0], bounds=(-12, 4), method="bounded", options={"xatol": 1e-10}
     )
     ll_ref, b_ref = dense(opt.x)
-    r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=lam, tip_se="y_u")
+    r = phylo.pgls(df, "x", "y", tree=nw, log="none", lambda_=lam, tip_se="y_u")
     assert r["loglik"] == pytest.approx(ll_ref, abs=1e-6)
     np.testing.assert_allclose([r["intercept"], r["slope"]], b_ref, rtol=1e-5)
     assert r["sigma2"] == pytest.approx(math.exp(opt.x), rel=1e-3)
@@ -381,7 +381,7 @@ def test_groups_interaction_f_matches_statsmodels():
     g = np.array(["a", "b", "c"])[np.arange(len(names)) % 3]
     y = y + np.where(g == "b", 0.8 * x, 0.0)
     df = pd.DataFrame({"taxon": names, "x": x, "y": y, "clade": g})
-    r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_=0.7, by="clade")
+    r = phylo.pgls(df, "x", "y", tree=nw, log="none", lambda_=0.7, by="clade")
     D = np.column_stack([(g == k).astype(float) for k in "abc"])
     S = pagel(C, 0.7)
     full = sm.GLS(y, np.column_stack([D, D * x[:, None]]), sigma=S).fit()
@@ -465,7 +465,7 @@ def test_ladder_tree_depth_50000_bounded_time():
     names = [f"t{i}" for i in range(n)]
     x = rng.normal(size=n)
     y = 0.5 * x + rng.normal(size=n)
-    r = phylo.phylo_fit(
+    r = phylo.pgls(
         pd.DataFrame({"taxon": names, "x": x, "y": y}), "x", "y", tree=tree, log="none", lambda_=1.0
     )
     cx = phylo.contrasts(tree, dict(zip(names, x, strict=True)))
@@ -501,7 +501,7 @@ def test_lambda_ml_with_measurement_error_matches_dense_profile():
 
     grid = np.linspace(0, 1, 201)
     ll = np.array([prof(g) for g in grid])
-    r = phylo.phylo_fit(df, "x", "y", tree=nw, log="none", lambda_="ml", tip_se="y_u")
+    r = phylo.pgls(df, "x", "y", tree=nw, log="none", lambda_="ml", tip_se="y_u")
     assert r["loglik"] >= ll.max() - 1e-6
     assert abs(r["lambda"] - grid[int(np.argmax(ll))]) <= 0.005 + 1e-9
     assert r["loglik"] == pytest.approx(prof(r["lambda"]), abs=1e-6)
