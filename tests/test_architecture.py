@@ -36,7 +36,6 @@ ORDER = (
 KNOWN: set[tuple[str, str]] = {
     ("comparo.curation.harmonise", "phylo"),
     ("comparo.curation.provenance", "phylo"),
-    ("comparo.fitting.result", "report"),
     ("comparo.traces.files", "curation"),
     ("comparo.validation.settings", "derivation"),
     ("comparo.validation.settings", "fitting"),

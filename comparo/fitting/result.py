@@ -334,7 +334,7 @@ class FitResult:
         seed : int
             Seed of the bootstrap band of the line.
         """
-        from comparo.report import figures as plots
+        from comparo.fitting import plot as plots
 
         points = self.points_frame()
         if (
