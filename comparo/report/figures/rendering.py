@@ -3,8 +3,9 @@
 :func:`render_later` forks a child that renders the figure it inherits (the same
 :func:`comparo.base.figure_style.render`, on the same objects, so the bytes are the ones the
 parent would have made) and sends its PNG and SVG bytes back through a pipe; the parent
-carries on and collects them when it reads the result. At most as many children run at once
-as the process may use cores (``os.sched_getaffinity``); with one core, or where ``fork`` is
+carries on and collects them when it reads the result. At most :data:`CHILDREN_PER_CORE`
+children per core the process may use (``os.sched_getaffinity``) run at once, each at a
+lower priority (:data:`CHILD_NICENESS`) than the caller; with one core, or where ``fork`` is
 not the way to start processes (anything but Linux), the figure is rendered at once in the
 calling process. A child that fails is replaced by rendering in the parent, whose error (if
 any) is then raised where the result is read.
@@ -22,6 +23,11 @@ if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.figure import Figure
 
 _running: list[Pending] = []
+#: Children rendering at once per usable core: enough that the caller rarely waits for one.
+CHILDREN_PER_CORE = 4
+#: Children run this much nicer than the caller, whose analyses make the next figures: the
+#: caller keeps a core, the children share what is left and every core once it is done.
+CHILD_NICENESS = 5
 
 
 def render_jobs() -> int:
@@ -81,6 +87,7 @@ class Pending:
 def _child(fig: Figure, write: int) -> None:  # pragma: no cover - runs in the forked child
     code = 1
     try:
+        os.nice(CHILD_NICENESS)
         png, svg = render(fig)
         view = memoryview(len(png).to_bytes(8, "big") + png + svg)
         while view:
@@ -93,11 +100,11 @@ def _child(fig: Figure, write: int) -> None:  # pragma: no cover - runs in the f
 def render_later(fig: Figure, jobs: int | None = None) -> Pending | tuple[bytes, bytes]:
     """PNG and SVG bytes of *fig* (closed when they are read), rendered in a forked child when
     *jobs* (default :func:`render_jobs`) is above 1; else rendered now, as :func:`render`.
-    With *jobs* children running, the oldest is waited for first."""
+    With :data:`CHILDREN_PER_CORE` x *jobs* children running, the oldest is waited for first."""
     jobs = render_jobs() if jobs is None else jobs
     if jobs < 2:
         return render(fig)
-    while len(_running) >= jobs:
+    while len(_running) >= CHILDREN_PER_CORE * jobs:
         _running[0].result()
     read, write = os.pipe()
     pid = os.fork()
