@@ -665,6 +665,7 @@ def sensitivity(
     taxon_col: str = "taxon",
     taxa: list[str] | None = None,
     no_sources: str | None = None,
+    harmonised: Any = None,
     **fit_options: Any,
 ) -> SensitivityResult:
     """Source-level sensitivity and measurement-error propagation of a scaling fit.
@@ -689,6 +690,10 @@ def sensitivity(
         For a table: why it records no source or basis per value (default: it is a
         plain table). Said in ``unavailable`` and the verdict; e.g. a table derived
         from a dataset folder, whose derived values rest on several sources each.
+    harmonised : comparo.curation.harmonise.Harmonised, optional
+        The dataset already harmonised with the same *temperature* (as
+        :func:`comparo.curation.harmonise.harmonise` returned it), so that it is not
+        harmonised again (the report passes the one it made).
     **fit_options
         Further options of :func:`comparo.fitting.fit` (e.g. ``tree`` for pgls).
 
@@ -727,7 +732,7 @@ def sensitivity(
     if ds is not None:
         from comparo.curation.harmonise import harmonise, per_taxon
 
-        h = harmonise(ds, temperature=temperature)
+        h = harmonised if harmonised is not None else harmonise(ds, temperature=temperature)
         if taxa is not None:
             h = dataclasses.replace(
                 h, rows=h.rows[h.rows["accepted"].astype(str).isin(set(map(str, taxa)))]

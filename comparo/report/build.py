@@ -530,7 +530,16 @@ def _sensitivity_all(run: _Run) -> None:
     for sec in run.sections:
         aid, res, a = sec["id"], sec["res"], sec["a"]
         s, snotes = pieces.run_sensitivity(
-            run.ds, run.table, run.data, a, res, sec["opts"], run.seed, run.draws, run.temperature
+            run.ds,
+            run.table,
+            run.data,
+            a,
+            res,
+            sec["opts"],
+            run.seed,
+            run.draws,
+            run.temperature,
+            harmonised=run.h,
         )
         entry = {
             "id": aid,

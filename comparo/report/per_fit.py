@@ -233,7 +233,16 @@ def _floats(values) -> list[float]:
 
 
 def run_sensitivity(
-    ds, table, data, a: dict, res, opts: dict, seed: int, draws: int, temperature: bool
+    ds,
+    table,
+    data,
+    a: dict,
+    res,
+    opts: dict,
+    seed: int,
+    draws: int,
+    temperature: bool,
+    harmonised=None,
 ):
     """Run :func:`comparo.fitting.source_sensitivity.sensitivity` for one report fit: (result
     or None, notes).
@@ -241,6 +250,7 @@ def run_sensitivity(
     Source-level parts need x and y recorded in the dataset; a derived x or y gets the
     jackknife and the Monte Carlo only (on the derived table). A grouped fit is checked on
     its pooled line; a PGLS fit keeps lambda at its full-data estimate in every refit.
+    *harmonised*: the report's harmonised dataset, not harmonised again for the source parts.
     """
     from comparo.fitting.source_sensitivity import sensitivity
 
@@ -259,6 +269,7 @@ def run_sensitivity(
         )
     if x in table.columns and y in table.columns:
         source = ds
+        kw["harmonised"] = harmonised
     else:
         source = data
         derived = ", ".join(q for q in (x, y) if q not in table.columns)
