@@ -38,12 +38,20 @@ def run(argv: list[str], env: dict[str, str]) -> tuple[float, float]:
     """Wall and CPU time (user + system, waited-for children included) of one process."""
     r0 = resource.getrusage(resource.RUSAGE_CHILDREN)
     t0 = time.perf_counter()
-    proc = subprocess.run(argv, capture_output=True, env=env)
+    # from a neutral folder: ``python -m`` puts the working folder first on sys.path
+    proc = subprocess.run(argv, capture_output=True, env=env, cwd=tempfile.gettempdir())
     dt = time.perf_counter() - t0
     r1 = resource.getrusage(resource.RUSAGE_CHILDREN)
     if proc.returncode != 0:
         raise SystemExit(f"{' '.join(argv)} exited {proc.returncode}:\n{proc.stderr.decode()}")
     return dt, r1.ru_utime - r0.ru_utime + r1.ru_stime - r0.ru_stime
+
+
+def origin(env: dict[str, str]) -> str:
+    """The folder comparo is imported from with *env*, from the same neutral folder."""
+    argv = [PY, "-c", "import comparo; print(comparo.__file__)"]
+    out = subprocess.run(argv, capture_output=True, text=True, env=env, cwd=tempfile.gettempdir())
+    return str(Path(out.stdout.strip()).parent)
 
 
 def checkout(rev: str, where: Path) -> Path:
@@ -79,6 +87,7 @@ def main(rounds: int = 3, rev: str | None = None) -> None:
             check=True,
             capture_output=True,
             env=ENV,
+            cwd=work,
         )
         ds = str(work / "demo" / "synthetic_cyclers")
         cmds = {"this tree": ([PY, "-m", "comparo", "report", ds, "-o"], ENV)}
@@ -118,6 +127,8 @@ def main(rounds: int = 3, rev: str | None = None) -> None:
                     f"(CPU {cpu / base_cpu:.1f}x); walls {', '.join(f'{r[0]:.2f}' for r in rs)}"
                 )
             print(line)
+            if name in cmds:
+                print(f"{'':15}comparo from {origin(cmds[name][1])}")
         if rev:
             print(
                 f"  outputs of the last round: {same_outputs(work / 'out-0-0', work / 'out-1-0')}"
