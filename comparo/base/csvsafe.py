@@ -78,7 +78,8 @@ def restore(value: object) -> object:
 
 
 def neutralise_frame(frame: pd.DataFrame) -> pd.DataFrame:
-    """A copy of *frame* with every dangerous text cell neutralised (numbers untouched)."""
+    """A copy of *frame* with every dangerous text cell neutralised (numbers untouched), for
+    writing: without the table's ``attrs`` (metadata a CSV does not hold)."""
     out = frame.copy()
     out.attrs = {}  # each column read below would deep-copy the table's metadata otherwise
     for col in out.columns:
@@ -105,7 +106,8 @@ def restore_frame(frame: pd.DataFrame) -> pd.DataFrame:
 
 
 def to_csv(frame: pd.DataFrame, **kwargs) -> str:
-    """``frame.to_csv`` (no index, full float precision by default) after :func:`neutralise_frame`."""
+    """``frame.to_csv`` (no index, full float precision by default) after
+    :func:`neutralise_frame`."""
     kwargs.setdefault("index", False)
     kwargs.setdefault("lineterminator", "\n")
     return neutralise_frame(frame).to_csv(**kwargs)
