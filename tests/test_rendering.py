@@ -21,9 +21,13 @@ forking = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="fork 
 
 @forking
 def test_a_forked_render_gives_the_bytes_of_savefig_here():
+    import matplotlib.pyplot as plt
+
     direct = render(source_chart(SOURCES))
+    open_before = set(plt.get_fignums())
     pending = [rendering.render_later(source_chart(SOURCES), jobs=2) for _ in range(3)]
     assert all(isinstance(p, rendering.Pending) for p in pending)
+    assert set(plt.get_fignums()) == open_before  # many figures do not pile up in pyplot
     for p in pending:
         png, svg = p
         assert (png, svg) == direct

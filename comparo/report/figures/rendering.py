@@ -56,7 +56,6 @@ class Pending:
             if ok and len(data) >= 8:
                 n = int.from_bytes(data[:8], "big")
                 self._value = (data[8 : 8 + n], data[8 + n :])
-                pyplot().close(self._fig)
             else:  # the child failed: render here, where an error reaches the caller
                 self._value = render(self._fig)
             self._fig = None
@@ -98,7 +97,7 @@ def _child(fig: Figure, write: int) -> None:  # pragma: no cover - runs in the f
 
 
 def render_later(fig: Figure, jobs: int | None = None) -> Pending | tuple[bytes, bytes]:
-    """PNG and SVG bytes of *fig* (closed when they are read), rendered in a forked child when
+    """PNG and SVG bytes of *fig* (closed in pyplot at once), rendered in a forked child when
     *jobs* (default :func:`render_jobs`) is above 1; else rendered now, as :func:`render`.
     With :data:`CHILDREN_PER_CORE` x *jobs* children running, the oldest is waited for first."""
     jobs = render_jobs() if jobs is None else jobs
@@ -112,6 +111,7 @@ def render_later(fig: Figure, jobs: int | None = None) -> Pending | tuple[bytes,
         os.close(read)
         _child(fig, write)
     os.close(write)
+    pyplot().close(fig)  # out of pyplot's list of open figures; still drawable if the child fails
     pending = Pending(fig, pid, read)
     _running.append(pending)
     return pending
