@@ -78,8 +78,10 @@ def restore(value: object) -> object:
 
 
 def neutralise_frame(frame: pd.DataFrame) -> pd.DataFrame:
-    """A copy of *frame* with every dangerous text cell neutralised (numbers untouched)."""
+    """A copy of *frame* with every dangerous text cell neutralised (numbers untouched), for
+    writing: without the table's ``attrs`` (metadata a CSV does not hold)."""
     out = frame.copy()
+    out.attrs = {}  # each column read below would deep-copy the table's metadata otherwise
     for col in out.columns:
         if not (pd.api.types.is_numeric_dtype(out[col]) or pd.api.types.is_bool_dtype(out[col])):
             out[col] = out[col].map(neutralise)

@@ -18,6 +18,7 @@ All quantities are dimensionless.
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 EXACT_DF_MAX = 1000  # above this, the sums (df / 2 terms and more) are left to scipy.special
 
@@ -76,6 +77,7 @@ def _density(t: float, df: int) -> float:
     return math.exp(logc - (df + 1) / 2 * math.log1p(t * t / df))
 
 
+@lru_cache(maxsize=4096)  # a pure function; fits of one table ask again and again for a few
 def _exact(df: int, q: float) -> float:
     """t quantile for whole df and 0.5 < q < 1 by Newton's method, kept inside a bracket:
     on A(t) = 2q - 1 while that is at most 1/2, else on Q(t) = 2(1 - q) (both sides exact

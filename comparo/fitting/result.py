@@ -363,7 +363,7 @@ class FitResult(Result):
         seed : int
             Seed of the bootstrap band of the line.
         """
-        import comparo.report.figures as plots
+        import comparo.fitting.plot as plots
 
         points = self.points_frame()
         if (

@@ -319,6 +319,7 @@ def sensitivity(
     taxon_col: str = "taxon",
     taxa: list[str] | None = None,
     no_sources: str | None = None,
+    harmonised: Any = None,
     **fit_options: Any,
 ) -> SensitivityResult:
     """Source-level sensitivity and measurement-error propagation of a scaling fit.
@@ -343,6 +344,10 @@ def sensitivity(
         For a table: why it records no source or basis per value (default: it is a
         plain table). Said in ``unavailable`` and the verdict; e.g. a table derived
         from a dataset folder, whose derived values rest on several sources each.
+    harmonised : comparo.curation.harmonise.Harmonised, optional
+        The dataset already harmonised with the same *temperature* (as
+        :func:`comparo.curation.harmonise.harmonise` returned it), so that it is not
+        harmonised again (the report passes the one it made).
     **fit_options
         Further options of :func:`comparo.fitting.fit` (e.g. ``tree`` for pgls).
 
@@ -382,7 +387,7 @@ def sensitivity(
     unavailable = []
     ds = dataset_or_table if isinstance(dataset_or_table, Dataset) else None
     if ds is not None:
-        h, table = _harmonised(ds, temperature, taxa)
+        h, table = _harmonised(ds, temperature, taxa, harmonised)
     else:
         table = dataset_or_table
         why = no_sources or "a plain table does not record the source and basis of each value"
@@ -419,12 +424,13 @@ def sensitivity(
     )
 
 
-def _harmonised(ds, temperature: bool, taxa: list[str] | None):
-    """The harmonised rows of *ds* (only those of *taxa* when given) and its per-taxon table."""
+def _harmonised(ds, temperature: bool, taxa: list[str] | None, harmonised=None):
+    """The harmonised rows of *ds* (*harmonised* when given; only those of *taxa* when given)
+    and its per-taxon table."""
     from comparo.curation.aggregation import per_taxon
     from comparo.curation.harmonise import harmonise
 
-    h = harmonise(ds, temperature=temperature)
+    h = harmonised if harmonised is not None else harmonise(ds, temperature=temperature)
     if taxa is not None:
         h = dataclasses.replace(
             h, rows=h.rows[h.rows["accepted"].astype(str).isin(set(map(str, taxa)))]

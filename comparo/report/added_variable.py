@@ -60,7 +60,7 @@ def added_variable_data(d: Design, fit: MultipleFit) -> list[dict]:
 
 def _axis(name: str, fit: MultipleFit, labels: Mapping[str, str] | None, whitened: bool) -> str:
     """``residual of log10 Body mass (kg) | others``: the scale, the quantity and its unit."""
-    from comparo.report.figures import short
+    from comparo.base.figure_style import short
 
     shown = short((labels or {}).get(name, f"{name} (unit as in the table)").split("\n")[0], 44)
     scale = "" if name in fit.linear else _LOG_NAME[fit.log]
@@ -78,7 +78,7 @@ def added_variable_plot(
     """The added-variable plots of *fit* side by side: taxa as points, the line through the
     origin with slope = the coefficient (its value and CI in the legend). *labels* maps a
     column to ``Label (unit)`` for the axes (else ``name (unit as in the table)``)."""
-    from comparo.report.figures import PALETTE, STYLE, matplotlib_cache
+    from comparo.base.figure_style import PALETTE, STYLE, matplotlib_cache
 
     matplotlib_cache()
     import matplotlib

@@ -415,7 +415,7 @@ def _fit_one(run: _Run, i: int, a: dict, labels, any_pgls: bool, state: dict) ->
         for e in res.excluded
     ]
     figs = run.figures
-    figs[f"{aid}_scaling"] = plots.render(
+    figs[f"{aid}_scaling"] = plots.render_later(
         plots.scaling_plot(
             res, pts, catalog=ds.catalog, by=by, seed=run.seed, title=f"{title}, n = {res.n}"
         )
@@ -425,7 +425,7 @@ def _fit_one(run: _Run, i: int, a: dict, labels, any_pgls: bool, state: dict) ->
         diag = frep.to_frame()
         diag.insert(0, "analysis", aid)
         diag.insert(1, "residuals", kind)
-        figs[f"{aid}_diagnostics"] = plots.render(plots.diagnostics(frep, title=title))
+        figs[f"{aid}_diagnostics"] = plots.render_later(plots.diagnostics(frep, title=title))
     sec = {
         "id": aid,
         "title": title,
@@ -442,11 +442,11 @@ def _fit_one(run: _Run, i: int, a: dict, labels, any_pgls: bool, state: dict) ->
     if method == "pgls" and res.lambda_ is not None and res.loglik is not None:
         lf, sec["lambda_note"] = pieces.lambda_figure(res, run.data, a, by, opts)
         if lf is not None:
-            figs[f"{aid}_lambda"] = plots.render(lf)
+            figs[f"{aid}_lambda"] = plots.render_later(lf)
     if ds.tree is not None and (method == "pgls" or (not state["tree_drawn"] and not any_pgls)):
         drawn = pieces.tree_figure(ds, pts, a, labels, aid, run.notes, res.log, res.temperature)
         if drawn is not None:
-            figs[f"{aid}_tree"] = plots.render(drawn[0])
+            figs[f"{aid}_tree"] = plots.render_later(drawn[0])
             sec["tree_caption"] = drawn[1]
             state["tree_drawn"] = True
     return sec
@@ -539,7 +539,16 @@ def _sensitivity_all(run: _Run) -> None:
     for sec in run.sections:
         aid, res, a = sec["id"], sec["res"], sec["a"]
         s, snotes = pieces.run_sensitivity(
-            run.ds, run.table, run.data, a, res, sec["opts"], run.seed, run.draws, run.temperature
+            run.ds,
+            run.table,
+            run.data,
+            a,
+            res,
+            sec["opts"],
+            run.seed,
+            run.draws,
+            run.temperature,
+            harmonised=run.h,
         )
         entry = {
             "id": aid,
@@ -567,7 +576,7 @@ def _sensitivity_all(run: _Run) -> None:
             "notes": snotes,
         }
         if s.leave_one_source_out:
-            run.figures[f"{aid}_sensitivity"] = plots.render(
+            run.figures[f"{aid}_sensitivity"] = plots.render_later(
                 plots.forest_plot(
                     s.leave_one_source_out,
                     slope=res.slope,
@@ -587,14 +596,14 @@ def _overview_figures(run: _Run) -> None:
     if run.derived is not None:
         fig = plots.regime_plot(run.derived)
         if fig is not None:
-            run.figures["regime"] = plots.render(fig)
+            run.figures["regime"] = plots.render_later(fig)
         else:
             run.notes.append(
                 "regime plot not drawn: no taxon has the observed frequency, both bounds and the "
                 "poro-kinetic ratio"
             )
-    run.figures["coverage"] = plots.render(plots.coverage_map(run.aud.to_dict()["coverage"]))
-    run.figures["sources"] = plots.render(plots.source_chart(run.aud.sources_frame()))
+    run.figures["coverage"] = plots.render_later(plots.coverage_map(run.aud.to_dict()["coverage"]))
+    run.figures["sources"] = plots.render_later(plots.source_chart(run.aud.sources_frame()))
 
 
 def _cycles(run: _Run) -> None:
@@ -613,7 +622,7 @@ def _cycles(run: _Run) -> None:
         run.notes.append(f"cycles unavailable: {exc}")
         return
     for t in run.cycles.results:
-        run.figures[f"cycle_{t.trace_id}"] = plots.render(plots.loop_plot(t))
+        run.figures[f"cycle_{t.trace_id}"] = plots.render_later(plots.loop_plot(t))
     run.tables["cycles"] = to_csv(run.cycles.to_frame())
     run.tables["cycles_by_taxon"] = to_csv(run.cycles.by_taxon())
 

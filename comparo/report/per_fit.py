@@ -26,7 +26,8 @@ def analysis_id(i: int, a: dict) -> str:
 
 
 def quantity_name(key: str, catalog) -> str:
-    """The catalogue label of *key* in lower case (``observed cycle frequency``), or the key in words."""
+    """The catalogue label of *key* in lower case (``observed cycle frequency``), or the key
+    in words."""
     q = catalog.get(key) if catalog is not None else None
     if q is None:
         return key.replace("_", " ")
@@ -35,7 +36,8 @@ def quantity_name(key: str, catalog) -> str:
 
 
 def fit_title(a: dict, catalog) -> str:
-    """A fit's title in words from the catalogue labels: ``Observed cycle frequency against body mass (SMA, by clade)``."""
+    """A fit's title in words from the catalogue labels: ``Observed cycle frequency against
+    body mass (SMA, by clade)``."""
     y, x = quantity_name(a["y"], catalog), quantity_name(a["x"], catalog)
     by = f", by {a['by']}" if a.get("by") else ""
     return f"{y[0].upper() + y[1:]} against {x} ({str(a.get('method', 'sma')).upper()}{by})"
@@ -124,25 +126,30 @@ def flag_report(res, pts, opts: dict, aid: str, notes: list[str]):
 
 
 def diagnostics_caption(res, flags_frame, aid: str) -> str:
-    """The words under a diagnostics figure: which residuals, which cut-offs, which taxa are marked."""
+    """The words under a diagnostics figure: which residuals, which cut-offs, which taxa are
+    marked."""
     fl = flags_frame[(flags_frame["analysis"] == aid) & (flags_frame["kind"] == "flag")]
     marked = list(dict.fromkeys(fl["label"]))
     if res.method == "pgls":
         what = (
-            "Phylogenetically whitened residuals: the PGLS regression multiplied on both sides by C(λ)^(-1/2) at "
+            "Phylogenetically whitened residuals: the PGLS regression multiplied on both sides "
+            "by C(λ)^(-1/2) at "
             f"λ = {num(res.lambda_, 3)}; its least-squares fit is the PGLS line."
         )
     else:
         what = (
-            "Residuals, leverage and Cook's distance of the least-squares line of y on x on the fitted scale"
+            "Residuals, leverage and Cook's distance of the least-squares line of y on x on the "
+            "fitted scale"
             + (
-                f" (the {res.method.upper()} line of the scaling plot is not the line these statistics refer to)."
+                f" (the {res.method.upper()} line of the scaling plot is not the line these "
+                "statistics refer to)."
                 if res.method != "ols"
                 else "."
             )
         )
     cuts = (
-        "Dashed: Bonferroni cut of the studentized residual and leverage 2p/n; dotted: Cook's distance 4/n and "
+        "Dashed: Bonferroni cut of the studentized residual and leverage 2p/n; dotted: Cook's "
+        "distance 4/n and "
         "F(0.5; 2, n - 2)."
     )
     who = (
@@ -172,7 +179,8 @@ def tree_figure(
     log: str,
     temperature: dict | None = None,
 ):
-    """The tree with the fit's y value of each fitted taxon at its tip, or None (with a note) if it cannot be drawn.
+    """The tree with the fit's y value of each fitted taxon at its tip, or None (with a note)
+    if it cannot be drawn.
 
     *temperature*: the fit's temperature summary (``FitResult.temperature``), so that the
     colour bar of a temperature-sensitive y says the temperature its values refer to, as
@@ -205,11 +213,15 @@ def tree_figure(
         title=f"{str(a.get('method', 'sma')).upper()} fit: {y} of each fitted taxon at its tip",
     )
     text = (
-        f"Tips coloured by {y} of the {len(values)} fitted taxa ({label.replace(chr(10), ' ')}); open tiles: "
+        f"Tips coloured by {y} of the {len(values)} fitted taxa "
+        f"({label.replace(chr(10), ' ')}); open tiles: "
         f"{len(m.tips_without_data)} tips without a fitted value."
     )
     if m.taxa_without_tips:
-        text += f" Fitted taxa not in the tree ({len(m.taxa_without_tips)}): {', '.join(m.taxa_without_tips)}."
+        text += (
+            f" Fitted taxa not in the tree ({len(m.taxa_without_tips)}): "
+            f"{', '.join(m.taxa_without_tips)}."
+        )
     return fig, text
 
 
@@ -220,13 +232,24 @@ def _floats(values) -> list[float]:
 
 
 def run_sensitivity(
-    ds, table, data, a: dict, res, opts: dict, seed: int, draws: int, temperature: bool
+    ds,
+    table,
+    data,
+    a: dict,
+    res,
+    opts: dict,
+    seed: int,
+    draws: int,
+    temperature: bool,
+    harmonised=None,
 ):
-    """Run :func:`comparo.fitting.source_sensitivity.sensitivity` for one report fit: (result or None, notes).
+    """Run :func:`comparo.fitting.source_sensitivity.sensitivity` for one report fit: (result
+    or None, notes).
 
     Source-level parts need x and y recorded in the dataset; a derived x or y gets the
     jackknife and the Monte Carlo only (on the derived table). A grouped fit is checked on
     its pooled line; a PGLS fit keeps lambda at its full-data estimate in every refit.
+    *harmonised*: the report's harmonised dataset, not harmonised again for the source parts.
     """
     from comparo.fitting.source_sensitivity import sensitivity
 
@@ -235,7 +258,8 @@ def run_sensitivity(
     kw = dict(opts)
     if a.get("by"):
         notes.append(
-            f"checked on the line of all taxa pooled; the groups by {a['by']} are not refitted one by one"
+            f"checked on the line of all taxa pooled; the groups by {a['by']} are not refitted "
+            "one by one"
         )
     if res.method == "pgls" and res.lambda_ is not None:
         kw["lambda_"] = res.lambda_
@@ -244,6 +268,7 @@ def run_sensitivity(
         )
     if x in table.columns and y in table.columns:
         source = ds
+        kw["harmonised"] = harmonised
     else:
         source = data
         derived = ", ".join(q for q in (x, y) if q not in table.columns)
@@ -270,7 +295,8 @@ def run_sensitivity(
         return None, notes + [f"sensitivity could not run: {type(exc).__name__}: {exc}"]
     if not math.isclose(s.slope, res.slope, rel_tol=1e-9, abs_tol=1e-12):
         notes.append(
-            f"the sensitivity's fit on all data has slope {s.slope!r}, the report's fit {res.slope!r}"
+            f"the sensitivity's fit on all data has slope {s.slope!r}, "
+            f"the report's fit {res.slope!r}"
         )
     return s, notes
 
@@ -287,7 +313,8 @@ def sensitivity_frame(s):
 
 
 def sensitivity_summary_row(aid: str, s, notes: list[str]) -> dict:
-    """One row of tables/sensitivity_summary.csv: jackknife and measurement-error parts and the verdict."""
+    """One row of tables/sensitivity_summary.csv: jackknife and measurement-error parts and the
+    verdict."""
     j, m = s.jackknife_se, s.measurement_error
     return {
         "analysis": aid,
@@ -316,10 +343,12 @@ def sensitivity_summary_row(aid: str, s, notes: list[str]) -> dict:
 
 
 def lambda_figure(res, data, a: dict, by: str | None, opts: dict):
-    """Profile log-likelihood of lambda: the PGLS of *res* refitted at each lambda of :data:`LAMBDA_GRID`.
+    """Profile log-likelihood of lambda: the PGLS of *res* refitted at each lambda of
+    :data:`LAMBDA_GRID`.
 
-    Returns (figure, note). A lambda at which the fit cannot be made (at lambda = 1 a tree with
-    zero-length tip edges has a singular covariance) is left out of the figure and named in the note.
+    Returns (figure, note). A lambda at which the fit cannot be made (at lambda = 1 a tree
+    with zero-length tip edges has a singular covariance) is left out of the figure and named
+    in the note.
     """
     import comparo.report.figures as plots
     from comparo.base.errors import ComparoError
@@ -336,7 +365,10 @@ def lambda_figure(res, data, a: dict, by: str | None, opts: dict):
                     lam,
                     str(exc).split(";")[-1].strip()
                     if "tree-zero-tip" not in str(exc)
-                    else "the tree has tip edges of length 0, so the covariance at this lambda is singular",
+                    else (
+                        "the tree has tip edges of length 0, so the covariance at this lambda "
+                        "is singular"
+                    ),
                 )
             )
     note = "; ".join(f"λ = {lam:g} not drawn: {why}" for lam, why in skipped)

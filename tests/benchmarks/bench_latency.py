@@ -15,6 +15,8 @@ Commands timed (the dataset is the demo's ``synthetic_cyclers`` folder):
 - ``comparo fit DS --x body_mass --y frequency_observed --method sma --format json``
 - ``comparo check DS``
 - ``comparo table DS -o t.csv``
+- ``comparo derive DS -o d.csv``
+- ``comparo audit DS``
 - ``comparo --help`` (absolute time; target < 0.5 s)
 """
 
@@ -95,6 +97,8 @@ def main(rounds: int = 11) -> None:
             ),
             "check": comparo("check", ds),
             "table -o t.csv": comparo("table", ds, "-o", str(work / "t.csv")),
+            "derive -o d.csv": comparo("derive", ds, "-o", str(work / "d.csv")),
+            "audit": comparo("audit", ds),
             "--help": comparo("--help"),
         }
         for argv in [BASELINE, *commands.values()]:  # warm the file cache and byte-code
