@@ -264,6 +264,14 @@ def build_parser() -> argparse.ArgumentParser:
         help="catalogue key of a positive quantity (imputed on log10)",
     )
     p.add_argument(
+        "--with",
+        dest="with_",
+        default=None,
+        metavar="Q1,Q2",
+        help="correlated positive quantities: predict under multivariate Brownian motion "
+        "(trait covariance by REML, missing values integrated out)",
+    )
+    p.add_argument(
         "--lambda",
         dest="lambda_",
         default="ml",
