@@ -240,6 +240,22 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--sensitivity", action="store_true", help="source-level sensitivity of the fit")
     p.add_argument(
+        "--impute",
+        nargs="?",
+        const="",
+        default=None,
+        metavar="Q1,Q2",
+        help="also fit with phylogenetically imputed taxa by multiple imputation (Rubin's rules); "
+        "Q1,Q2: quantities to impute (default: [impute] of comparo.toml, else x and y)",
+    )
+    p.add_argument(
+        "--impute-m",
+        type=int,
+        default=None,
+        metavar="M",
+        help="--impute: completed tables drawn (default: [impute] m, else 20)",
+    )
+    p.add_argument(
         "--mc",
         type=int,
         default=1000,

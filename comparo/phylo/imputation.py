@@ -15,7 +15,7 @@ Pagel M (1999) Inferring the historical patterns of biological evolution. Nature
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -188,6 +188,9 @@ class Imputation:
     trait_cov : numpy array (p, p) or None
         With correlated quantities: the trait covariance R per branch-length unit (REML,
         log10 units², this quantity first, then ``with_`` in order).
+    engine : dict or None
+        The engine's state (tree, edges, tip values, rates, the row order of
+        :attr:`taxa`) that :meth:`draws` needs; not part of the output.
     """
 
     quantity: str
@@ -211,6 +214,7 @@ class Imputation:
     taxa_without_tips: tuple[str, ...] = ()
     with_: tuple[str, ...] = ()
     trait_cov: np.ndarray | None = None
+    engine: dict | None = field(default=None, repr=False, compare=False)
 
     @property
     def n_observed(self) -> int:
@@ -219,6 +223,14 @@ class Imputation:
     @property
     def n_imputed(self) -> int:
         return int((~self.observed).sum())
+
+    def draws(self, m: int, seed: int = 20261205) -> np.ndarray:
+        """*m* joint draws of the imputed taxa's log10 values from their predictive
+        distribution (array m x n_imputed, columns in the order of the imputed taxa in
+        :attr:`taxa`): :func:`comparo.phylo.completion.predictive_draws`."""
+        from comparo.phylo.completion import predictive_draws
+
+        return predictive_draws(self, m, seed)
 
     def to_dict(self) -> dict:
         """The JSON of ``comparo impute --format json`` (units: ``value`` and ``pi`` in the
@@ -394,7 +406,8 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
     lf = _lambda_fit(topo, ft, y, lam_arg)
     lam = float(lf.lam)
     mu, s2 = float(lf.fit.beta[0]), float(lf.fit.sigma2)
-    pred = predict_tips(ft, y, pagel_edges(ft, lam))
+    edges = pagel_edges(ft, lam)
+    pred = predict_tips(ft, y, edges)
     se = np.sqrt(s2 * pred.var)
     log_value = np.where(obs, y, pred.mean)
     return {
@@ -411,6 +424,10 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
         "root": mu,
         "root_passes": pred.root_mean,
         "t": t_quantile(n_o - 1, 0.5 + PI_LEVEL / 2),
+        "flat": ft,
+        "edges": edges,
+        "Y": y[:, None],
+        "R": None,
     }
 
 
@@ -472,6 +489,9 @@ def impute_tree_with(
         "root": float(tc.root_mean[0]),
         "root_passes": float(tc.root_mean[0]),
         "t": t_quantile(n_o - 1, 0.5 + PI_LEVEL / 2),
+        "flat": ft,
+        "edges": edges,
+        "Y": Y,
         "R": R,
     }
 
@@ -631,4 +651,5 @@ def _assemble(y, unit, r, name_of, value_of, u_of, without, withs) -> Imputation
         without,
         tuple(withs),
         r.get("R"),
+        {**r, "order": idx},
     )
