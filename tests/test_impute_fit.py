@@ -154,3 +154,76 @@ def test_impute_refuses_a_plain_csv(tmp_path):
     csv.write_text("taxon,a,b\nx,1,2\ny,2,3\nz,3,5\nw,4,4\n", encoding="utf-8")
     r = run_main("fit", str(csv), "--x", "a", "--y", "b", "--impute")
     assert r.returncode == 2 and "dataset folder" in r.stderr
+
+
+def _lattice(d):
+    """The simulated dataset with body masses renamed lattice spacings (nm, ~10^1.5): an
+    input of the derived filament spacing."""
+    _write(d)
+    path = d / "observations.csv"
+    text = path.read_text(encoding="utf-8").replace(",body_mass,", ",lattice_spacing_d10,")
+    lines = [text.splitlines()[0]]
+    for line in text.splitlines()[1:]:
+        parts = line.split(",")
+        if parts[2] == "lattice_spacing_d10":
+            parts[3] = f"{float(parts[3]) ** 0.1 * 30:.8g}"
+            parts[4] = "nm"
+        lines.append(",".join(parts))
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return d
+
+
+def test_table_and_derive_with_impute_mark_and_propagate(tmp_path):
+    """table --impute Q: imputed rows carry basis 'imputed', a lineage naming the method and
+    the closest observed relatives, and the prediction SE as uncertainty (value·ln 10·SE of
+    log10, first order; the SE is the one `comparo impute` reports); without --impute the
+    table is what it was. derive --impute: filament spacing, proportional to d10, inherits
+    the basis 'imputed' and the same relative uncertainty (first-order propagation of a
+    proportional relation: u_y/y = u_x/x, any textbook on error propagation, e.g. Taylor JR
+    1997, An introduction to error analysis, 2nd ed., University Science Books, §3.8)."""
+    import pandas as pd
+
+    d = _lattice(tmp_path / "lat")
+    plain = run_main("table", str(d)).stdout
+    r = run_main("table", str(d), "--impute", "lattice_spacing_d10")
+    assert r.returncode == 0, r.stderr
+    import io
+
+    t = pd.read_csv(io.StringIO(r.stdout))
+    imp = comparo.impute(d, "lattice_spacing_d10")
+    rows = t[t["lattice_spacing_d10_basis"] == "imputed"]
+    assert len(rows) == imp.n_imputed > 0
+    se = dict(zip(imp.taxa, imp.log_se, strict=True))
+    for _, row in rows.iterrows():
+        assert row["lattice_spacing_d10_u"] == pytest.approx(
+            row["lattice_spacing_d10"] * np.log(10) * se[row["taxon"]], rel=1e-6
+        )
+        assert row["lattice_spacing_d10_lineage"].startswith("imputed: phylogenetic BLUP")
+        assert "closest observed relatives: " in row["lattice_spacing_d10_lineage"]
+        assert row["lattice_spacing_d10_n"] == 0
+    observed = t[t["lattice_spacing_d10_basis"] == "reported"]
+    assert observed["lattice_spacing_d10_lineage"].isna().all()
+    assert run_main("table", str(d)).stdout == plain  # nothing enters unless asked
+    assert "imputed" not in plain
+    r = run_main("derive", str(d), "--impute", "lattice_spacing_d10")
+    assert r.returncode == 0, r.stderr
+    dv = pd.read_csv(io.StringIO(r.stdout))
+    rows = dv[dv["lattice_spacing_d10_basis"] == "imputed"]
+    assert (rows["filament_spacing_basis"] == "imputed").all()
+    np.testing.assert_allclose(
+        rows["filament_spacing_u"] / rows["filament_spacing"],
+        rows["lattice_spacing_d10_u"] / rows["lattice_spacing_d10"],
+        rtol=1e-9,
+    )
+    (d / "comparo.toml").write_text(
+        '[impute]\nquantities = ["lattice_spacing_d10"]\n', encoding="utf-8"
+    )
+    assert (
+        run_main("table", str(d)).stdout
+        == run_main("table", str(d), "--impute", "lattice_spacing_d10").stdout
+    )
+    r = run_main("table", str(tmp_path / "lat"), "--impute")
+    assert r.returncode == 0
+    (d / "comparo.toml").unlink()
+    r = run_main("table", str(d), "--impute")
+    assert r.returncode == 2 and "names no quantity" in r.stderr

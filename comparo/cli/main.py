@@ -129,6 +129,15 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="how repeated values combine (default: settings, else weighted mean)",
     )
+    p.add_argument(
+        "--impute",
+        nargs="?",
+        const="",
+        default=None,
+        metavar="Q1,Q2",
+        help="add phylogenetically imputed values (basis 'imputed', lineage, prediction SE as "
+        "uncertainty) of Q1,Q2 (default: [impute] of comparo.toml)",
+    )
 
     p = sub.add_parser("derive", help="per-taxon table plus derived time scales and ratios (CSV)")
     _dataset_arg(p)
@@ -142,6 +151,15 @@ def build_parser() -> argparse.ArgumentParser:
         help="Monte Carlo draws for uncertainty (0: first-order only)",
     )
     p.add_argument("--seed", type=int, default=20240601, help="random seed for Monte Carlo")
+    p.add_argument(
+        "--impute",
+        nargs="?",
+        const="",
+        default=None,
+        metavar="Q1,Q2",
+        help="add phylogenetically imputed values (basis 'imputed', lineage, prediction SE as "
+        "uncertainty) of Q1,Q2 (default: [impute] of comparo.toml)",
+    )
 
     p = sub.add_parser("fit", help="scaling fit of y on x with confidence intervals and tests")
     p.add_argument(

@@ -30,6 +30,9 @@ from comparo.validation.synonyms import resolve_synonyms
 from comparo.validation.temperature import temperature_policy, temperature_settings_problems
 
 BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
+#: The basis of a per-taxon value predicted from relatives on the tree (``--impute``,
+#: ``[impute]``), weaker than every basis above; never a basis of observations.csv.
+IMPUTED_BASIS = "imputed"
 _MISSING_WORDS = {"na", "n/a", "nan", "n.d.", "nd", "none", "null", "-", "?", "—", "–"}
 _DOI = re.compile(r"^10\.\d{4,9}/\S+$")
 _BINOMIAL = re.compile(r"^[A-Z][a-z]+(?:\s[a-z][a-z-]+){1,2}$")
