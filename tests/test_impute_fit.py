@@ -227,3 +227,23 @@ def test_table_and_derive_with_impute_mark_and_propagate(tmp_path):
     (d / "comparo.toml").unlink()
     r = run_main("table", str(d), "--impute")
     assert r.returncode == 2 and "names no quantity" in r.stderr
+
+
+def test_audit_counts_imputed_values_and_check_reports_bad_settings(sim):
+    """audit: per quantity of [impute], observed and imputed counts and the leave-one-out
+    figures, equal to those of `comparo impute`; an empty dict without [impute]. check: a
+    bad [impute] is an error naming comparo.toml and the key."""
+    d = json.loads(run_main("audit", str(sim), "--format", "json").stdout)
+    assert d["imputed"] == {}
+    (sim / "comparo.toml").write_text('[impute]\nquantities = ["body_mass"]\n', encoding="utf-8")
+    d = json.loads(run_main("audit", str(sim), "--format", "json").stdout)
+    imp = comparo.impute(sim, "body_mass")
+    got = d["imputed"]["body_mass"]
+    assert (got["n_observed"], got["n_imputed"]) == (imp.n_observed, imp.n_imputed)
+    assert got["rmse_log"] == pytest.approx(imp.rmse_log)
+    assert "imputed values per quantity" in run_main("audit", str(sim)).stdout
+    (sim / "comparo.toml").write_text('[impute]\nquantities = ["body_mass"]\nm = 1\n', "utf-8")
+    r = run_main("check", str(sim), "--format", "json")
+    probs = [p for p in json.loads(r.stdout)["problems"] if p["rule"] == "impute-settings"]
+    assert [(p["file"], p["column"]) for p in probs] == [("comparo.toml", "impute.m")]
+    assert r.returncode == 2

@@ -51,6 +51,8 @@ class AuditReport:
     phylo_skipped: dict[str, str] = field(default_factory=dict)
     phylo_note: str = ""
     phylo_flagged: list[dict[str, Any]] = field(default_factory=list)  # per taxon, with the range
+    # per quantity of [impute]: values imputed into the table (comparo.phylo.completion)
+    imputed: dict[str, dict[str, Any]] = field(default_factory=dict)
 
     @property
     def balanced(self) -> bool:
@@ -83,6 +85,7 @@ class AuditReport:
             "phylo_checked": self.phylo_checked,
             "phylo_skipped": self.phylo_skipped,
             "phylo_note": self.phylo_note,
+            "imputed": self.imputed,
         }
 
     def to_frame(self) -> pd.DataFrame:
@@ -283,6 +286,8 @@ def audit(
     from comparo.phylo.outliers import phylo_outliers  # a later room's check, lazily
 
     phylo = phylo_outliers(ds, tab)
+    from comparo.phylo.completion import imputation_audit  # a later room, lazily
+
     return AuditReport(
         rows_read=len(rows),
         rows_from_traces=int((rows["_origin"] != "").sum()) if "_origin" in rows else 0,
@@ -314,6 +319,7 @@ def audit(
         phylo_skipped=phylo.skipped,
         phylo_note=phylo.note,
         phylo_flagged=phylo.flagged,
+        imputed=imputation_audit(ds),
     )
 
 

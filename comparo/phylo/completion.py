@@ -20,10 +20,9 @@ from typing import Any
 
 import numpy as np
 
-from comparo.base.errors import InputError, Problem
+from comparo.validation.imputing import DEFAULT_M, impute_settings
 
-#: Draws of a multiple imputation unless ``m`` is given.
-DEFAULT_M = 20
+__all__ = ["DEFAULT_M", "impute_settings", "predictive_draws", "add_imputed", "imputed_table"]
 
 #: Seed of the draws unless given (fixed, so a rerun gives the same numbers).
 DEFAULT_SEED = 20261205
@@ -79,78 +78,6 @@ def predictive_draws(imp: Any, m: int, seed: int = DEFAULT_SEED) -> np.ndarray:
         err = Z[:, 0] - _predict_target(ft, edges, Zo, R)
         out[k] = pred[imputed_rows] + err[imputed_rows]
     return out
-
-
-def _problem(column: str, value: Any, message: str, hint: str = "") -> Problem:
-    shown = None if value is None else str(value)
-    return Problem("error", "comparo.toml", None, column, shown, "impute-settings", message, hint)
-
-
-def impute_settings(settings: Mapping[str, Any] | None, catalog: Any = None) -> dict | None:
-    """The ``[impute]`` table of comparo.toml, checked: ``quantities`` (list of catalogue
-    keys to impute), ``with`` (list of correlated quantities, optional), ``lambda`` ("ml"
-    or a number in [0, 1], default "ml"), ``m`` (draws for fits, default
-    :data:`DEFAULT_M`). None when the table is absent (nothing is imputed).
-
-    Raises
-    ------
-    InputError
-        Every problem at once: not a table, unknown key, quantities missing or unknown,
-        lambda or m out of range.
-    """
-    settings = settings or {}
-    if "impute" not in settings:
-        return None
-    t = settings["impute"]
-    if not isinstance(t, Mapping):
-        raise InputError(
-            [_problem("impute", t, "impute must be a table ([impute] section)", "[impute]")]
-        )
-    probs = []
-    for key in t:
-        if key not in ("quantities", "with", "lambda", "m"):
-            probs.append(
-                _problem(
-                    f"impute.{key}",
-                    t[key],
-                    f"unknown key {key!r} in [impute]",
-                    "keys: quantities, with, lambda, m",
-                )
-            )
-    lists = {}
-    for key in ("quantities", "with"):
-        v = t.get(key, [])
-        if isinstance(v, str):
-            v = [v]
-        if not isinstance(v, list) or not all(isinstance(q, str) for q in v):
-            probs.append(_problem(f"impute.{key}", v, f"{key} must be a list of quantity keys"))
-            v = []
-        if catalog is not None:
-            for q in v:
-                if q not in catalog:
-                    probs.append(_problem(f"impute.{key}", q, f"unknown quantity {q!r}"))
-        lists[key] = list(dict.fromkeys(v))
-    if not lists["quantities"]:
-        probs.append(
-            _problem(
-                "impute.quantities",
-                t.get("quantities"),
-                "[impute] names no quantity",
-                'quantities = ["fiber_radius"]',
-            )
-        )
-    lam = t.get("lambda", "ml")
-    ok = (isinstance(lam, str) and lam.lower() == "ml") or (
-        isinstance(lam, int | float) and not isinstance(lam, bool) and 0 <= lam <= 1
-    )
-    if not ok:
-        probs.append(_problem("impute.lambda", lam, "lambda must be 'ml' or a number in [0, 1]"))
-    m = t.get("m", DEFAULT_M)
-    if not isinstance(m, int) or isinstance(m, bool) or m < 2:
-        probs.append(_problem("impute.m", m, "m must be a whole number >= 2"))
-    if probs:
-        raise InputError(probs)
-    return {"quantities": lists["quantities"], "with": lists["with"], "lambda": lam, "m": m}
 
 
 def closest_observed(ft: Any, observed: np.ndarray, k: int = 3) -> dict[int, tuple[list[int], int]]:
@@ -310,3 +237,37 @@ def imputed_table(table: Any, ds: Any, asked: str | None = None) -> Any:
         )
     base = settings or {"with": [], "lambda": "ml", "m": DEFAULT_M}
     return add_imputed(table, ds, {**base, "quantities": chosen or base["quantities"]})
+
+
+def imputation_audit(ds: Any) -> dict[str, dict[str, Any]]:
+    """What ``[impute]`` of comparo.toml would add to the per-taxon table, per quantity:
+    ``n_observed``, ``n_imputed``, ``lambda``, ``with``, ``rmse_log`` and ``coverage``
+    (leave-one-out), or ``refused`` (the reason) when the imputation cannot run. Empty
+    without ``[impute]`` or without a tree."""
+    from comparo.base.errors import UsageError
+    from comparo.phylo.imputation import impute
+
+    settings = impute_settings(ds.settings, ds.catalog)
+    if settings is None or ds.tree is None:
+        return {}
+    out: dict[str, dict[str, Any]] = {}
+    for q in settings["quantities"]:
+        try:
+            imp = impute(
+                ds,
+                q,
+                lambda_=settings["lambda"],
+                with_=[w for w in settings["with"] if w != q],
+            )
+        except UsageError as exc:
+            out[q] = {"refused": str(exc)}
+            continue
+        out[q] = {
+            "n_observed": imp.n_observed,
+            "n_imputed": imp.n_imputed,
+            "lambda": imp.lambda_,
+            "with": list(imp.with_),
+            "rmse_log": imp.rmse_log,
+            "coverage": imp.coverage,
+        }
+    return out

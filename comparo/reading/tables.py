@@ -45,6 +45,7 @@ SETTINGS_KEYS = {
     "ratios",
     "analysis",
     "comparison",
+    "impute",
     "aggregate",
     "conflict_factor",
     "temperature_model",

@@ -477,4 +477,7 @@ def settings_problems(ds) -> list[Problem]:
     taxa_columns = set(ds.taxa.columns) if ds.taxa is not None else set()
     probs += analysis_problems(settings, ds.catalog, taxa_columns)
     probs += comparison_problems(settings, ds.catalog, taxa_columns)
+    from comparo.validation.imputing import impute_problems
+
+    probs += impute_problems(settings, ds.catalog)
     return probs
