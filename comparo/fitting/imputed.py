@@ -101,6 +101,57 @@ def _completed(table: pd.DataFrame, taxon_col: str, fills: dict[str, tuple[list,
     return out
 
 
+def _n_imputed_points(table: Any, done: Any, x: str, y: str, taxon_col: str) -> int:
+    """Fitted taxa with an imputed value: rows of the completed table with x and y where
+    the observed table lacks one of them."""
+    import numpy as np
+
+    obs_tab = table.set_index(table[taxon_col].astype(str))
+    both = done[np.isfinite(done[x].astype(float)) & np.isfinite(done[y].astype(float))]
+    n_imp = 0
+    for t in both[taxon_col].astype(str):
+        row = obs_tab.loc[t] if t in obs_tab.index else None
+        ok = row is not None and all(
+            q in obs_tab.columns and math.isfinite(float(row[q])) for q in (x, y)
+        )
+        n_imp += 0 if ok else 1
+    return n_imp
+
+
+def _draw_fills(dataset, table, x, y, qs, with_, lambda_, m, seed, taxon_col):
+    """Per quantity imputed: (taxa, m x taxa draws of log10 values) and its
+    cross-validation; each imputed with the other variable of the fit as a correlated
+    trait, and only at taxa whose other variable is observed."""
+    import numpy as np
+
+    from comparo.phylo.imputation import impute
+
+    fills, cv = {}, {}
+    has = {
+        q: set(table.loc[np.isfinite(table[q].astype(float)), taxon_col].astype(str))
+        if q in table
+        else set()
+        for q in (x, y)
+    }
+    for j, q in enumerate(qs):
+        other = y if q == x else x
+        # the other variable of the fit is always a correlated trait of the imputation
+        # (a congenial imputation model: imputing y without x would flatten the slope)
+        withs = list(dict.fromkeys([w for w in with_ if w != q] + [other]))
+        imp = impute(dataset, q, lambda_=lambda_, with_=withs)
+        cols = [i for i, o in enumerate(imp.observed) if not o]
+        keep = [i for i, c in enumerate(cols) if imp.taxa[c] in has[other]]
+        draws = imp.draws(m, seed + j)[:, keep]
+        fills[q] = ([imp.taxa[cols[i]] for i in keep], draws)
+        cv[q] = {
+            "rmse_log": imp.rmse_log,
+            "coverage": imp.coverage,
+            "lambda": imp.lambda_,
+            "with": withs,
+        }
+    return fills, cv
+
+
 def fit_with_imputation(
     dataset: Any,
     table: pd.DataFrame,
@@ -152,7 +203,6 @@ def fit_with_imputation(
 
     from comparo.fitting.pooling import rubin_pool
     from comparo.fitting.scaling import fit
-    from comparo.phylo.imputation import impute
 
     if m < 2:
         raise UsageError(f"multiple imputation needs m >= 2 draws (got {m})")
@@ -163,29 +213,8 @@ def fit_with_imputation(
         raise UsageError(
             f"the quantities to impute ({', '.join(asked)}) include neither {x} nor {y}"
         )
-    fills, cv, by_q = {}, {}, {}
-    has = {
-        q: set(table.loc[np.isfinite(table[q].astype(float)), taxon_col].astype(str))
-        if q in table
-        else set()
-        for q in (x, y)
-    }
-    for j, q in enumerate(qs):
-        other = y if q == x else x
-        # the other variable of the fit is always a correlated trait of the imputation
-        # (a congenial imputation model: imputing y without x would flatten the slope)
-        withs = list(dict.fromkeys([w for w in with_ if w != q] + [other]))
-        imp = impute(dataset, q, lambda_=lambda_, with_=withs)
-        cols = [i for i, o in enumerate(imp.observed) if not o]
-        keep = [i for i, c in enumerate(cols) if imp.taxa[c] in has[other]]
-        draws = imp.draws(m, seed + j)[:, keep]
-        fills[q] = ([imp.taxa[cols[i]] for i in keep], draws)
-        cv[q] = {
-            "rmse_log": imp.rmse_log,
-            "coverage": imp.coverage,
-            "lambda": imp.lambda_,
-            "with": withs,
-        }
+    fills, cv = _draw_fills(dataset, table, x, y, qs, with_, lambda_, m, seed, taxon_col)
+    by_q: dict[str, int] = {}
     light = {
         k: v for k, v in fit_options.items() if k not in ("bootstrap", "breakpoint", "drop_flagged")
     }
@@ -196,18 +225,7 @@ def fit_with_imputation(
         slopes.append(_estimate_and_variance(f, 1))
         intercepts.append(_estimate_and_variance(f, 0))
         ns.append(f.n)
-    # fitted taxa with an imputed value: in a completed table, rows with x and y where
-    # the observed table lacks one of them
-    done = _completed(table, taxon_col, fills, 0)
-    obs_tab = table.set_index(table[taxon_col].astype(str))
-    both = done[np.isfinite(done[x].astype(float)) & np.isfinite(done[y].astype(float))]
-    n_imp = 0
-    for t in both[taxon_col].astype(str):
-        row = obs_tab.loc[t] if t in obs_tab.index else None
-        ok = row is not None and all(
-            q in obs_tab.columns and math.isfinite(float(row[q])) for q in (x, y)
-        )
-        n_imp += 0 if ok else 1
+    n_imp = _n_imputed_points(table, _completed(table, taxon_col, fills, 0), x, y, taxon_col)
     for q, (taxa, _) in fills.items():
         by_q[q] = len(taxa)
     df_c = float(np.median(ns)) - 2

@@ -6,8 +6,8 @@ taxa; the other 30% are tips without a value, to impute. Each command runs as a 
 (``python -m comparo ...``, output to a file) three times, alternating; printed: the median
 wall time and the CPU time of each, and their ratio (both measured in the same run, so a
 loaded machine slows both); also ``comparo table --impute body_mass`` (the imputed values
-added to the per-taxon table, with their lineage). The issue asks for impute <= 3x table at 20,000 tips and
-< 10 s at 100,000 tips.
+added to the per-taxon table, with their lineage). The issue asks for impute <= 3x table
+at 20,000 tips and < 10 s at 100,000 tips.
 
 Run: ``python tests/benchmarks/bench_impute.py [n ...]`` (default 20000 100000).
 """
