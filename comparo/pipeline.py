@@ -91,10 +91,11 @@ class Run:
     def settings_problems(self) -> list[Problem]:
         """Every problem of ``comparo.toml``'s later settings, each room checking its own:
         the sections' types (validation), ``[derive]`` and ``[ratios]`` (derivation),
-        ``[[analysis]]`` and ``[[comparison]]`` (fitting)."""
+        ``[[analysis]]`` and ``[[comparison]]`` (fitting), ``[impute]`` (validation.imputing)."""
         from comparo.derivation import settings as derivation
         from comparo.fitting import declared
         from comparo.validation import settings as validation
+        from comparo.validation.imputing import impute_problems
 
         ds = self.ds
         settings = ds.settings or {}
@@ -103,7 +104,8 @@ class Run:
             return probs
         probs += derivation.settings_problems(settings, ds.catalog)
         columns = set(ds.taxa.columns) if ds.taxa is not None else set()
-        return probs + declared.settings_problems(settings, ds.catalog, columns)
+        probs += declared.settings_problems(settings, ds.catalog, columns)
+        return probs + impute_problems(settings, ds.catalog)
 
     def tree_problems(self) -> list[Problem]:
         """What a tree-based fit would reject or drop (:func:`comparo.phylo.tips.tree_problems`,
@@ -179,6 +181,7 @@ def audit(ds: Any, *, temperature: bool = True, harmonised: Any = None) -> Any:
     predict (:func:`comparo.phylo.outliers.phylo_outliers`). Load with
     ``comparo.load(folder, strict=False)`` to audit a table that still has errors."""
     from comparo.curation import provenance
+    from comparo.phylo.completion import imputation_audit
     from comparo.phylo.outliers import phylo_outliers
     from comparo.validation.dataset import as_dataset
 
@@ -186,7 +189,12 @@ def audit(ds: Any, *, temperature: bool = True, harmonised: Any = None) -> Any:
     run = Run(ds, temperature=temperature, harmonised=harmonised)
     phylo = phylo_outliers(ds, run.table)
     return provenance.audit(
-        ds, temperature=temperature, harmonised=run.harmonised, table=run.table, phylo=phylo
+        ds,
+        temperature=temperature,
+        harmonised=run.harmonised,
+        table=run.table,
+        phylo=phylo,
+        imputed=imputation_audit(ds),
     )
 
 

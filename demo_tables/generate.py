@@ -489,6 +489,14 @@ length = "fiber_radius"
 permeability_model = "happel_parallel"
 cytosol_viscosity_factor = 1.0
 
+# phylogenetic imputation (docs/methods/imputation.md): table and derive add predicted lattice
+# spacings (basis "imputed", with lineage and prediction SE) for the taxa on the tree without
+# one; fits use them only by multiple imputation (comparo fit ... --impute)
+[impute]
+quantities = ["lattice_spacing_d10"]
+lambda = "ml"
+m = 20
+
 [[analysis]]
 x = "body_mass"
 y = "frequency_observed"

@@ -122,7 +122,9 @@ def test_numbers_beyond_a_double_in_a_dataset_table(tmp_path):
         _observations(tmp_path / "DS"),
         lambda s: re.sub(r'(<c r="D3"[^>]*>)<v>[^<]*</v>', r"\1<v>1e400</v>", s),
     )
-    refused(tmp_path, ["check", "{tmp}/DS"], "observations.xlsx", "not a finite number", "non-finite")
+    refused(
+        tmp_path, ["check", "{tmp}/DS"], "observations.xlsx", "not a finite number", "non-finite"
+    )
 
 
 def _far_cell(s: str) -> str:

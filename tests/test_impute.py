@@ -177,3 +177,47 @@ def test_a_tip_without_observations_is_named_by_its_taxa_row(insects):
     d = json.loads(run_main("impute", str(insects), "--y", "body_mass", "--format", "json").stdout)
     imputed = {row["taxon"] for row in d["taxa"] if not row["observed"]}
     assert imputed == {"Culex pipiens", "Anax junius", "Manduca sexta"}
+
+
+def test_with_a_correlated_quantity_json_lists_it_and_the_api_answers_alike(insects):
+    """--with: the contract keys unchanged, "with" lists the quantity used; the API answers
+    as the CLI; the numbers themselves are checked against a dense conditional Gaussian in
+    tests/reference/test_impute_with.py."""
+    extra = [  # invented muscle masses for the test, one on a tip without body mass
+        "m1,Apis mellifera,muscle_mass,30,mg,,,,s1,Table 4,reported,,,",
+        "m2,Bombus terrestris,muscle_mass,70,mg,,,,s1,Table 4,reported,,,",
+        "m3,Vespa crabro,muscle_mass,140,mg,,,,s1,Table 4,reported,,,",
+        "m4,Musca domestica,muscle_mass,6,mg,,,,s1,Table 4,reported,,,",
+        "m5,Delia radicum,muscle_mass,0.4,mg,,,,s1,Table 4,reported,,,",
+        "m6,Manduca sexta,muscle_mass,400,mg,,,,s1,Table 4,reported,,,",
+    ]
+    path = insects / "observations.csv"
+    path.write_text(path.read_text(encoding="utf-8") + "\n".join(extra) + "\n", encoding="utf-8")
+    r = run_main(
+        "impute", str(insects), "--y", "body_mass", "--with", "muscle_mass", "--format", "json"
+    )
+    assert r.returncode == 0, r.stderr
+    d = json.loads(r.stdout)
+    assert d["with"] == ["muscle_mass"]
+    assert list(d) == [
+        "quantity",
+        "lambda",
+        "with",
+        "n_observed",
+        "n_imputed",
+        "taxa",
+        "cross_validation",
+    ]
+    assert (d["n_observed"], d["n_imputed"]) == (8, 3)
+    api = comparo.impute(insects, "body_mass", with_=["muscle_mass"])
+    assert json.loads(json.dumps(api.to_dict())) == d
+    alone = comparo.impute(insects, "body_mass")
+    by = {row["taxon"]: row for row in d["taxa"]}
+    # Manduca's own muscle mass moves its prediction away from the relatives-only one
+    i = alone.taxa.index("Manduca sexta")
+    assert by["Manduca sexta"]["log_value"] != pytest.approx(alone.log_value[i], abs=1e-3)
+    assert "evolutionary correlation muscle_mass" in api.summary()
+    r = run_main("impute", str(insects), "--y", "body_mass", "--with", "body_mass")
+    assert r.returncode == 2 and "--with lists body_mass" in r.stderr
+    r = run_main("impute", str(insects), "--y", "body_mass", "--with", "nonesuch")
+    assert r.returncode == 2 and "unknown quantity 'nonesuch'" in r.stderr

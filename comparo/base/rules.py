@@ -56,6 +56,11 @@ _TABLE = (
         ERROR,
         "a [[comparison]] entry of comparo.toml holds an unknown key or value",
     ),
+    (
+        "impute-settings",
+        ERROR,
+        "the [impute] table of comparo.toml holds an unknown key or value",
+    ),
     ("computed-inputs", ERROR, "a computed value does not list the rows it was computed from"),
     (
         "conflict",

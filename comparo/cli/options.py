@@ -148,6 +148,15 @@ def add_table(sub: Sub) -> None:
         default=None,
         help="how repeated values combine (default: settings, else weighted mean)",
     )
+    p.add_argument(
+        "--impute",
+        nargs="?",
+        const="",
+        default=None,
+        metavar="Q1,Q2",
+        help="add phylogenetically imputed values (basis 'imputed', lineage, prediction SE as "
+        "uncertainty) of Q1,Q2 (default: [impute] of comparo.toml)",
+    )
 
 
 def add_derive(sub: Sub) -> None:
@@ -163,6 +172,15 @@ def add_derive(sub: Sub) -> None:
         help="Monte Carlo draws for uncertainty (0: first-order only)",
     )
     _seed_arg(p, "random seed for Monte Carlo")
+    p.add_argument(
+        "--impute",
+        nargs="?",
+        const="",
+        default=None,
+        metavar="Q1,Q2",
+        help="add phylogenetically imputed values (basis 'imputed', lineage, prediction SE as "
+        "uncertainty) of Q1,Q2 (default: [impute] of comparo.toml)",
+    )
 
 
 def _fit_model_args(p: argparse.ArgumentParser) -> None:
@@ -263,6 +281,22 @@ def add_fit(sub: Sub) -> None:
     )
     p.add_argument("--sensitivity", action="store_true", help="source-level sensitivity of the fit")
     p.add_argument(
+        "--impute",
+        nargs="?",
+        const="",
+        default=None,
+        metavar="Q1,Q2",
+        help="also fit with phylogenetically imputed taxa by multiple imputation (Rubin's rules); "
+        "Q1,Q2: quantities to impute (default: [impute] of comparo.toml, else x and y)",
+    )
+    p.add_argument(
+        "--impute-m",
+        type=int,
+        default=None,
+        metavar="M",
+        help="--impute: completed tables drawn (default: [impute] m, else 20)",
+    )
+    p.add_argument(
         "--mc",
         type=int,
         default=1000,
@@ -285,6 +319,14 @@ def add_impute(sub: Sub) -> None:
         required=True,
         metavar="QUANTITY",
         help="catalogue key of a positive quantity (imputed on log10)",
+    )
+    p.add_argument(
+        "--with",
+        dest="with_",
+        default=None,
+        metavar="Q1,Q2",
+        help="correlated positive quantities: predict under multivariate Brownian motion "
+        "(trait covariance by REML, missing values integrated out)",
     )
     _lambda_arg(p, "Pagel's lambda: 'ml' (default) or a value in [0, 1]", default="ml")
     _format_arg(p, ["text", "csv", "json"], "output format (default text)")

@@ -55,6 +55,8 @@ class AuditReport(Result):
     phylo_skipped: dict[str, str] = field(default_factory=dict)
     phylo_note: str = ""
     phylo_flagged: list[dict[str, Any]] = field(default_factory=list)  # per taxon, with the range
+    # per quantity of [impute]: values imputed into the table (comparo.phylo.completion)
+    imputed: dict[str, dict[str, Any]] = field(default_factory=dict)
 
     @property
     def balanced(self) -> bool:
@@ -87,6 +89,7 @@ class AuditReport(Result):
             "phylo_checked": self.phylo_checked,
             "phylo_skipped": self.phylo_skipped,
             "phylo_note": self.phylo_note,
+            "imputed": self.imputed,
         }
 
     def to_frame(self) -> pd.DataFrame:
@@ -227,6 +230,7 @@ def audit(
     harmonised: Harmonised | None = None,
     table: pd.DataFrame | None = None,
     phylo: Any = None,
+    imputed: dict[str, dict[str, Any]] | None = None,
 ) -> AuditReport:
     """Provenance audit of a loaded dataset (see :class:`AuditReport`).
 
@@ -330,6 +334,7 @@ def audit(
         sources_missing=sorted(cited - listed),
         trust=trust,
         **_phylo_keys(phylo),
+        imputed=dict(imputed or {}),
     )
 
 

@@ -15,8 +15,10 @@ from comparo.derivation.uncertainty import _MC_SUFFIXES, _Propagation
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
-#: Bases from strongest to weakest (the weakest one among a value's inputs is its basis).
-BASIS_ORDER = ("reported", "computed", "digitized", "proxy", "assumed")
+#: Bases from strongest to weakest (the weakest one among a value's inputs is its basis);
+#: ``imputed`` (predicted from relatives on the tree, docs/methods/imputation.md) is weaker
+#: than ``assumed`` and exists only in per-taxon tables comparo builds.
+BASIS_ORDER = ("reported", "computed", "digitized", "proxy", "assumed", "imputed")
 
 
 def _column(table: pd.DataFrame, name: str, factor: float = 1.0) -> np.ndarray:

@@ -15,7 +15,7 @@ Pagel M (1999) Inferring the historical patterns of biological evolution. Nature
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -184,6 +184,14 @@ class Imputation(Result):
         leave-one-out 95% interval.
     taxa_without_tips : tuple of str
         Taxa with a value but no tip: not used, not imputed.
+    with_ : tuple of str
+        Correlated quantities used (empty: relatives only).
+    trait_cov : numpy array (p, p) or None
+        With correlated quantities: the trait covariance R per branch-length unit (REML,
+        log10 units², this quantity first, then ``with_`` in order).
+    engine : dict or None
+        The engine's state (tree, edges, tip values, rates, the row order of
+        :attr:`taxa`) that :meth:`draws` needs; not part of the output.
     """
 
     quantity: str
@@ -205,6 +213,9 @@ class Imputation(Result):
     rmse_log: float
     coverage: float
     taxa_without_tips: tuple[str, ...] = ()
+    with_: tuple[str, ...] = ()
+    trait_cov: np.ndarray | None = None
+    engine: dict | None = field(default=None, repr=False, compare=False)
 
     @property
     def n_observed(self) -> int:
@@ -234,7 +245,7 @@ class Imputation(Result):
         return {
             "quantity": self.quantity,
             "lambda": _f(self.lambda_),
-            "with": [],
+            "with": list(self.with_),
             "n_observed": self.n_observed,
             "n_imputed": self.n_imputed,
             "taxa": rows,
@@ -266,6 +277,18 @@ class Imputation(Result):
         notes = [
             f"Pagel's lambda = {self.lambda_:.4g} ({how})",
             f"BM rate sigma² = {self.sigma2:.4g} (REML, log10 units² per branch-length unit)",
+        ]
+        if self.with_ and self.trait_cov is not None:
+            R = self.trait_cov
+            d = np.sqrt(np.diag(R))
+            cors = ", ".join(
+                f"{q} {R[0, j + 1] / (d[0] * d[j + 1]):+.3f}" for j, q in enumerate(self.with_)
+            )
+            notes.append(
+                "with correlated quantities (multivariate BM, trait covariance by REML, "
+                f"missing values integrated out): evolutionary correlation {cors}"
+            )
+        notes += [
             f"root (GLS) = {self.root_log_value:.4g} log10 {self.unit}",
             f"leave-one-out check over {self.n_observed} observed taxa: RMSE = {self.rmse_log:.3g} "
             f"log10 units (a factor {10**self.rmse_log:.3g}),",
@@ -328,6 +351,32 @@ def _lambda_arg(lambda_: Any) -> Any:
     return lam
 
 
+def _tip_vector(ft: FlatTree, log_values: dict[str, float]) -> np.ndarray:
+    y = np.full(ft.n_tips, np.nan)
+    where = {tip: i for i, tip in enumerate(ft.tips)}
+    for tip, v in log_values.items():
+        if tip in where and math.isfinite(v):
+            y[where[tip]] = v
+    return y
+
+
+def _lambda_fit(topo: Any, ft: FlatTree, y: np.ndarray, lam_arg: Any) -> Any:
+    """Pagel's lambda of the values *y* (NaN: none) of the tips of *ft*, by ML or given,
+    on the observed tips with the edge up to the whole tree's root kept."""
+    from comparo.phylo.likelihood import _fit_lambda
+
+    obs = np.isfinite(y)
+    n_o = int(obs.sum())
+    if n_o < MIN_OBSERVED:
+        raise UsageError(
+            f"{n_o} taxa with a value are on the tree; imputation needs at least {MIN_OBSERVED}"
+        )
+    observed = [ft.tips[i] for i in np.flatnonzero(obs)]
+    fo = _observed_tree(topo, ft, observed)
+    yo = y[ft.index(fo.tips)]
+    return _fit_lambda(fo, np.ones((n_o, 1)), yo, lam_arg, None, False, PI_LEVEL)
+
+
 def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") -> dict:
     """The imputation on a tree from log10 values keyed by tip label (the engine of
     :func:`impute`, for any tree and values).
@@ -339,30 +388,19 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
     Student t quantile of the 95% intervals, n_observed - 1 degrees of freedom).
     """
     from comparo.base.quantiles import t_quantile
-    from comparo.phylo.likelihood import _fit_lambda
     from comparo.phylo.trees import _as_topo
 
     lam_arg = _lambda_arg(lambda_)
     topo = _as_topo(tree)
     ft = _flat(topo, None)
-    y = np.full(ft.n_tips, np.nan)
-    where = {tip: i for i, tip in enumerate(ft.tips)}
-    for tip, v in log_values.items():
-        if tip in where and math.isfinite(v):
-            y[where[tip]] = v
+    y = _tip_vector(ft, log_values)
     obs = np.isfinite(y)
     n_o = int(obs.sum())
-    if n_o < MIN_OBSERVED:
-        raise UsageError(
-            f"{n_o} taxa with a value are on the tree; imputation needs at least {MIN_OBSERVED}"
-        )
-    observed = [ft.tips[i] for i in np.flatnonzero(obs)]
-    fo = _observed_tree(topo, ft, observed)
-    yo = y[ft.index(fo.tips)]
-    lf = _fit_lambda(fo, np.ones((n_o, 1)), yo, lam_arg, None, False, PI_LEVEL)
+    lf = _lambda_fit(topo, ft, y, lam_arg)
     lam = float(lf.lam)
     mu, s2 = float(lf.fit.beta[0]), float(lf.fit.sigma2)
-    pred = predict_tips(ft, y, pagel_edges(ft, lam))
+    edges = pagel_edges(ft, lam)
+    pred = predict_tips(ft, y, edges)
     se = np.sqrt(s2 * pred.var)
     log_value = np.where(obs, y, pred.mean)
     return {
@@ -379,10 +417,127 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
         "root": mu,
         "root_passes": pred.root_mean,
         "t": t_quantile(n_o - 1, 0.5 + PI_LEVEL / 2),
+        "flat": ft,
+        "edges": edges,
+        "Y": y[:, None],
+        "R": None,
     }
 
 
-def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
+def impute_tree_with(
+    tree: Any,
+    log_values: dict[str, float],
+    with_values: list[dict[str, float]],
+    lambda_: Any = "ml",
+) -> dict:
+    """:func:`impute_tree` with correlated traits: the conditional expectation of the
+    target under multivariate Brownian motion, given every observed value of every trait.
+
+    *log_values* holds the target (log10, keyed by tip label), *with_values* one dict per
+    correlated trait. Pagel's lambda is that of the target alone (ML or given) and
+    transforms the tree for all traits; the trait covariance R (per unit branch length)
+    is estimated by REML on all traits at once, missing values integrated out
+    (:func:`comparo.phylo.multitrait.fit_trait_covariance`). The prediction of a tip is
+    the Gaussian of its target given all the other tips' values and its own values of
+    the other traits (the root by GLS, its uncertainty included); for an observed tip
+    that is its leave-one-out prediction (lambda and R held). Returns the keys of
+    :func:`impute_tree` with ``sigma2`` = R[0, 0], plus ``R`` (p x p, target first).
+    """
+    from comparo.base.quantiles import t_quantile
+    from comparo.phylo.multitrait import (
+        condition_on_own,
+        fit_trait_covariance,
+        tip_conditionals,
+    )
+    from comparo.phylo.trees import _as_topo
+
+    lam_arg = _lambda_arg(lambda_)
+    topo = _as_topo(tree)
+    ft = _flat(topo, None)
+    y = _tip_vector(ft, log_values)
+    Y = np.column_stack([y] + [_tip_vector(ft, w) for w in with_values])
+    obs = np.isfinite(y)
+    n_o = int(obs.sum())
+    lf = _lambda_fit(topo, ft, y, lam_arg)
+    lam = float(lf.lam)
+    edges = pagel_edges(ft, lam)
+    keep = np.isfinite(Y).any(axis=1)
+    if lam == 1.0 and np.any(keep & ~(edges[: ft.n_tips] > 0)):
+        edges = pagel_edges(ft, 1.0 - 1e-6)
+    R, _ = fit_trait_covariance(ft, Y, edges)
+    tc = tip_conditionals(ft, Y, R, edges)
+    mean, var = condition_on_own(tc.mean, tc.cov, Y, 0)
+    se = np.sqrt(np.maximum(var, 0.0))
+    return {
+        "tips": ft.tips,
+        "observed": obs,
+        "log_value": np.where(obs, y, mean),
+        "log_se": np.where(obs, np.nan, se),
+        "loo_log_value": np.where(obs, mean, np.nan),
+        "loo_log_se": np.where(obs, se, np.nan),
+        "lambda": lam,
+        "lambda_estimated": lam_arg == "ml",
+        "lambda_ci": lf.ci,
+        "sigma2": float(R[0, 0]),
+        "root": float(tc.root_mean[0]),
+        "root_passes": float(tc.root_mean[0]),
+        "t": t_quantile(n_o - 1, 0.5 + PI_LEVEL / 2),
+        "flat": ft,
+        "edges": edges,
+        "Y": Y,
+        "R": R,
+    }
+
+
+def _checked_entry(ds: Any, q: str) -> Any:
+    """The catalogue entry of *q*; refuses unknown or possibly negative quantities."""
+    cat = ds.catalog
+    if q not in cat:
+        raise UsageError(
+            f"unknown quantity {q!r}: not in the catalogue (schema/quantities.toml "
+            "or the dataset's comparo.toml)"
+        )
+    entry = cat[q]
+    if entry.range is not None and entry.range[0] < 0:
+        raise UsageError(
+            f"{q} can be negative (catalogue range {list(entry.range)}): "
+            "imputation works on log10 values and needs a positive quantity"
+        )
+    return entry
+
+
+def _quantity_values(ds: Any, table: Any, q: str) -> tuple[dict, dict, str]:
+    """Per-taxon values of a positive quantity *q* and their uncertainties (canonical
+    unit), keyed by taxon; the unit."""
+    entry = _checked_entry(ds, q)
+    if q not in table.columns:
+        raise UsageError(f"no taxon has a value of {q}: nothing to impute from")
+    vals = table[["taxon", q] + ([f"{q}_u"] if f"{q}_u" in table.columns else [])].copy()
+    vals = vals[np.isfinite(vals[q].to_numpy(dtype=float))]
+    bad = vals[vals[q] <= 0]
+    if len(bad):
+        shown = ", ".join(f"{t} ({v:g})" for t, v in zip(bad["taxon"][:5], bad[q][:5], strict=True))
+        raise UsageError(
+            f"{q} has values <= 0 ({shown}): imputation works on log10 values "
+            "and needs positive values"
+        )
+    taxa = vals["taxon"].astype(str).tolist()
+    value_of = dict(zip(taxa, vals[q].to_numpy(dtype=float).tolist(), strict=True))
+    u_col = vals[f"{q}_u"].to_numpy(dtype=float) if f"{q}_u" in vals else np.full(len(vals), np.nan)
+    return value_of, dict(zip(taxa, u_col.tolist(), strict=True)), entry.unit
+
+
+def _with_list(y: str, with_: Any) -> tuple[str, ...]:
+    if with_ is None:
+        return ()
+    items = with_.split(",") if isinstance(with_, str) else list(with_)
+    out = tuple(dict.fromkeys(str(q).strip() for q in items if str(q).strip()))
+    if y in out:
+        raise UsageError(f"--with lists {y}, the quantity imputed: list other quantities")
+    return out
+
+
+def impute(dataset: Any, y: str, lambda_: Any = "ml", with_: Any = None) -> Imputation:
     """Impute quantity *y* for every tip of the dataset's tree that has no value of it.
 
     Parameters
@@ -394,6 +549,10 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
         :func:`comparo.per_taxon`) are modelled on the log10 scale.
     lambda_ : 'ml' or float
         Pagel's lambda: estimated by ML (default) or fixed in [0, 1].
+    with_ : list of str or comma-separated str, optional
+        Correlated positive quantities (log10 too): the prediction is the conditional
+        expectation under multivariate Brownian motion given every observed value of
+        every trait (:func:`impute_tree_with`). None or empty: relatives only.
 
     Returns
     -------
@@ -413,45 +572,35 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
     from comparo.validation.dataset import load
 
     ds = load(dataset) if isinstance(dataset, str | Path) else dataset
-    cat = ds.catalog
-    if y not in cat:
-        raise UsageError(
-            f"unknown quantity {y!r}: not in the catalogue (schema/quantities.toml "
-            "or the dataset's comparo.toml)"
-        )
-    entry = cat[y]
-    if entry.range is not None and entry.range[0] < 0:
-        raise UsageError(
-            f"{y} can be negative (catalogue range {list(entry.range)}): "
-            "imputation works on log10 values and needs a positive quantity"
-        )
+    withs = _with_list(y, with_)
+    for q in (y, *withs):
+        _checked_entry(ds, q)
     if ds.tree is None:
         raise UsageError("imputation needs a tree: put tree.nwk in the dataset folder")
     table = per_taxon(ds)
-    if y not in table.columns:
-        raise UsageError(f"no taxon has a value of {y}: nothing to impute from")
-    vals = table[["taxon", y] + ([f"{y}_u"] if f"{y}_u" in table.columns else [])].copy()
-    vals = vals[np.isfinite(vals[y].to_numpy(dtype=float))]
-    bad = vals[vals[y] <= 0]
-    if len(bad):
-        shown = ", ".join(f"{t} ({v:g})" for t, v in zip(bad["taxon"][:5], bad[y][:5], strict=True))
-        raise UsageError(
-            f"{y} has values <= 0 ({shown}): imputation works on log10 values "
-            "and needs positive values"
-        )
+    value_of, u_of, unit = _quantity_values(ds, table, y)
+    others = [_quantity_values(ds, table, q)[0] for q in withs]
     topo = _as_topo(ds.tree)
     labels = dataset_tree_labels(ds.taxa, topo.tips)
     match = _match(topo, sorted(set(table["taxon"].astype(str).tolist())), labels)
     tip_of = match.tip_of
     name_of = {tip: acc for acc, tip in labels.items()}  # taxa.csv rows naming tips
     name_of.update({tip: lab for lab, tip in tip_of.items()})
-    taxa = vals["taxon"].astype(str).tolist()
-    value_of = dict(zip(taxa, vals[y].to_numpy(dtype=float).tolist(), strict=True))
-    u_col = vals[f"{y}_u"].to_numpy(dtype=float) if f"{y}_u" in vals else np.full(len(vals), np.nan)
-    u_of = dict(zip(taxa, u_col.tolist(), strict=True))
-    logs = {tip_of[t]: math.log10(v) for t, v in value_of.items() if t in tip_of}
+
+    def logs_of(values: dict) -> dict:
+        return {tip_of[t]: math.log10(v) for t, v in values.items() if t in tip_of}
+
     without = tuple(sorted(t for t in value_of if t not in tip_of))
-    r = impute_tree(topo, logs, lambda_)
+    if withs:
+        r = impute_tree_with(topo, logs_of(value_of), [logs_of(o) for o in others], lambda_)
+    else:
+        r = impute_tree(topo, logs_of(value_of), lambda_)
+    return _assemble(y, unit, r, name_of, value_of, u_of, without, withs)
+
+
+def _assemble(y, unit, r, name_of, value_of, u_of, without, withs) -> Imputation:
+    """The result from the engine's tip arrays: taxon names, observed values as given
+    (with their uncertainty on log10 to first order), intervals, the leave-one-out check."""
     all_names = [name_of.get(tip, tip) for tip in r["tips"]]
     idx = np.lexsort((np.array(all_names, dtype=str), ~r["observed"]))  # observed first, by name
     names = [all_names[i] for i in idx]
@@ -475,7 +624,7 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
     coverage = float(np.mean(np.abs(resid) <= tq * loo_se[obs]))
     return Imputation(
         y,
-        entry.unit,
+        unit,
         r["lambda"],
         r["lambda_estimated"],
         r["lambda_ci"],
@@ -493,4 +642,7 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml") -> Imputation:
         rmse,
         coverage,
         without,
+        tuple(withs),
+        r.get("R"),
+        {**r, "order": idx},
     )

@@ -20,6 +20,7 @@ SETTINGS_KEYS = {
     "ratios",
     "analysis",
     "comparison",
+    "impute",
     "aggregate",
     "conflict_factor",
     "temperature_model",

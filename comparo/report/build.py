@@ -248,6 +248,7 @@ def _build(
     from comparo.curation.aggregation import per_taxon
     from comparo.curation.harmonise import harmonise
     from comparo.curation.provenance import audit
+    from comparo.phylo.completion import imputation_audit
     from comparo.phylo.outliers import phylo_outliers
 
     steps.advance(description="checking")
@@ -259,7 +260,14 @@ def _build(
     run.h = harmonise(run.ds, temperature=temperature)
     run.table = per_taxon(run.ds, temperature=temperature, harmonised=run.h)
     phylo = phylo_outliers(run.ds, run.table)
-    run.aud = audit(run.ds, temperature=temperature, harmonised=run.h, table=run.table, phylo=phylo)
+    run.aud = audit(
+        run.ds,
+        temperature=temperature,
+        harmonised=run.h,
+        table=run.table,
+        phylo=phylo,
+        imputed=imputation_audit(run.ds),
+    )
     steps.advance(description="deriving time scales")
     _derive(run)
     steps.advance(description="fitting and drawing")

@@ -16,6 +16,9 @@ from comparo.reading.tables import RawTable
 from comparo.validation.numbers import map_distinct, parse_numbers
 
 BASIS_ORDER = ["reported", "computed", "digitized", "proxy", "assumed"]
+#: The basis of a per-taxon value predicted from relatives on the tree (``--impute``,
+#: ``[impute]``), weaker than every basis above; never a basis of observations.csv.
+IMPUTED_BASIS = "imputed"
 
 _BINOMIAL = re.compile(r"^[A-Z][a-z]+(?:\s[a-z][a-z-]+){1,2}$")
 

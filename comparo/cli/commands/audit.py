@@ -88,6 +88,20 @@ def _render(report) -> None:
 
     console = Console(width=None if sys.stdout.isatty() else 120)
     console.print(Text(report.summary()))
+    if getattr(report, "imputed", None):
+        t = Table(
+            title="imputed values per quantity (the impute table of comparo.toml)",
+            title_justify="left",
+        )
+        for c in ("quantity", "observed", "imputed", "LOO RMSE log10", "LOO coverage"):
+            t.add_column(c)
+        for q, v in report.imputed.items():
+            if "refused" in v:
+                _row(t, q, "", "", v["refused"], "")
+            else:
+                cov = f"{100 * v['coverage']:.1f}%"
+                _row(t, q, v["n_observed"], v["n_imputed"], f"{v['rmse_log']:.3g}", cov)
+        console.print(t)
     if report.rows_excluded:
         t = Table(title="excluded rows", title_justify="left")
         for c in ("obs_id", "row", "reason"):

@@ -14,6 +14,9 @@ def run(args) -> int:
 
     ds = load(args.dataset)
     table = per_taxon(ds, temperature=not args.no_temperature)
+    from comparo.phylo.completion import imputed_table
+
+    table = imputed_table(table, ds, getattr(args, "impute", None))
     settings = derive_settings(ds.settings)
     check_mc(args.mc, len(table), "--mc")
     out = derive(table, settings, mc=args.mc, seed=args.seed, progress=sys.stderr.isatty())

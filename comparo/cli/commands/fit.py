@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sys
+from pathlib import Path
 
 from comparo.base.errors import UsageError
 from comparo.base.outputs import dumps, emit
@@ -76,6 +77,8 @@ def run(args) -> int:
     _phylo_only_options(args)
     if args.sensitivity:
         return run_sensitivity(args)
+    if _wants_imputation(args):
+        return run_imputed(args)
     table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
     pgls = pgls_options(args) if args.method == "pgls" else {}
     result = _fit(args, table, pgls, sys.stderr.isatty())
@@ -158,4 +161,83 @@ def run_sensitivity(args) -> int:
         for g, s in (groups or {}).items():
             text.append(f"group {args.by} = {g}:\n" + s.summary())
         emit("\n".join(text))
+    return 0
+
+
+def _impute_table(args) -> dict | None:
+    """The checked ``[impute]`` of the dataset's comparo.toml (None: absent or not a dataset
+    folder). The dataset is loaded only when the file has an ``[impute]`` table."""
+    import tomllib
+
+    toml = Path(args.data) / "comparo.toml"
+    if not toml.is_file():
+        return None
+    try:
+        if "impute" not in tomllib.loads(toml.read_text(encoding="utf-8-sig")):
+            return None
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return None  # refused with its message when the dataset is loaded
+    from comparo.phylo.completion import impute_settings
+    from comparo.validation.dataset import load
+
+    ds = load(args.data)
+    return impute_settings(ds.settings, ds.catalog)
+
+
+def _wants_imputation(args) -> bool:
+    """``--impute`` given, or ``[impute]`` in comparo.toml naming x or y."""
+    if getattr(args, "impute", None) is not None:
+        return True
+    settings = _impute_table(args)
+    return bool(settings) and bool({args.x, args.y} & set(settings["quantities"]))
+
+
+def run_imputed(args) -> int:
+    """``comparo fit ... --impute``: the fit on observed taxa and the same fit with imputed
+    taxa by multiple imputation (docs/methods/imputation.md); JSON adds ``"imputation"``."""
+    from comparo.fitting.imputed import fit_with_imputation
+    from comparo.phylo.completion import DEFAULT_M
+    from comparo.validation.dataset import load
+
+    if not is_dataset(args.data):
+        raise UsageError("--impute needs a dataset folder with a tree (not a plain CSV)")
+    settings = _impute_table(args) or {}
+    asked = [q.strip() for q in (args.impute or "").split(",") if q.strip()]
+    quantities = asked or settings.get("quantities") or None
+    m = (
+        args.impute_m
+        if getattr(args, "impute_m", None) is not None
+        else settings.get("m", DEFAULT_M)
+    )
+    table = read_table(args.data, args.taxon_col, temperature=not args.no_temperature)
+    pgls = pgls_options(args) if args.method == "pgls" else {}
+    result = fit_with_imputation(
+        load(args.data),
+        table,
+        args.x,
+        args.y,
+        args.method,
+        quantities=quantities,
+        with_=settings.get("with", []),
+        lambda_=settings.get("lambda", "ml"),
+        m=int(m),
+        seed=args.seed,
+        taxon_col=args.taxon_col,
+        by=args.by,
+        against=args.against,
+        ci=args.ci,
+        log=args.log,
+        bootstrap=args.bootstrap,
+        breakpoint=args.breakpoint,
+        drop_flagged=getattr(args, "drop_flagged", None),
+        **pgls,
+    )
+    if args.format == "json":
+        emit(dumps(result.to_dict()))
+    elif args.format == "csv":
+        from comparo.base.csvsafe import to_csv
+
+        sys.stdout.write(to_csv(result.to_frame()))
+    else:
+        emit(result.summary())
     return 0

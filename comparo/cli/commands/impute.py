@@ -29,7 +29,9 @@ def run(args) -> int:
     from comparo.phylo.imputation import impute
     from comparo.validation.dataset import load
 
-    result = impute(load(args.dataset), args.y, lambda_=args.lambda_)
+    result = impute(
+        load(args.dataset), args.y, lambda_=args.lambda_, with_=getattr(args, "with_", None)
+    )
     if args.format == "json":
         emit(json_text(result.to_dict()), args.output)
     elif args.format == "csv":

@@ -15,6 +15,9 @@ def run(args) -> int:
 
     ds = load(args.dataset)
     table = per_taxon(ds, temperature=not args.no_temperature, aggregate=args.aggregate)
+    from comparo.phylo.completion import imputed_table
+
+    table = imputed_table(table, ds, getattr(args, "impute", None))
     write_table(table, column_units(table, ds.catalog), args.output)
     return 0
 
