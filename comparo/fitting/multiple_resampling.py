@@ -268,7 +268,8 @@ def resampling_lines(res: Mapping[str, Any]) -> list[str]:
             + f"), {100 * b['ci_level']:g}% intervals:"
         )
         lines += [
-            f"  {t['term']}: SE {number(t['bootstrap_se'])}, [{number(t['ci'][0])}, {number(t['ci'][1])}]"
+            f"  {t['term']}: SE {number(t['bootstrap_se'])}, "
+            f"[{number(t['ci'][0])}, {number(t['ci'][1])}]"
             for t in b["terms"]
         ]
     j = res.get("jackknife")

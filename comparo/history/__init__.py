@@ -1,1 +1,2 @@
-"""Versions of a compilation: two versions compared (versions) and two curators' copies merged (merging)."""
+"""Versions of a compilation: two versions compared (versions) and two curators' copies
+merged (merging)."""

@@ -414,7 +414,8 @@ def _run_fit(ds, data, a: dict, seed: int) -> tuple[Any, str | None]:
 
 def analysis_changes(old, new, data_old, data_new, seed: int) -> list[dict]:
     """Every analysis declared in either comparo.toml (else the default set of
-    :data:`comparo.validation.settings.DEFAULT_ANALYSES` whose columns exist), fitted on both versions."""
+    :data:`comparo.validation.settings.DEFAULT_ANALYSES` whose columns exist), fitted on both
+    versions."""
     from comparo.validation.settings import DEFAULT_ANALYSES
 
     todo = {_analysis_name(a): a for a in [*_declared(old), *_declared(new)]}

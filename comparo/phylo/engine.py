@@ -86,7 +86,8 @@ def gls_quantities(
                     None,
                     bad[0],
                     "tree-zero-tip",
-                    f"tip edge(s) of length 0 ({', '.join(bad)}): the tip variance is 0 and the covariance cannot be inverted this way",
+                    f"tip edge(s) of length 0 ({', '.join(bad)}): the tip variance is 0 and the "
+                    "covariance cannot be inverted this way",
                     "give tip edges a positive length, use lambda < 1, or add measurement error",
                 )
             ]

@@ -7,7 +7,8 @@ writes, under the output folder::
 
     report.html        self-contained (figures as base64 PNG, inline sorting script)
     figures/*.png|svg  every figure, byte-identical across runs
-    tables/*.csv       per_taxon, derived, fits, flags, diagnostics, points, audit, sources, problems
+    tables/*.csv       per_taxon, derived, fits, flags, diagnostics, points, audit, sources,
+                       problems
     tables/fits.json   each fit's ``to_dict()`` (the ``comparo fit --format json`` object; a PGLS
                        fit here also carries the flags of its whitened residuals)
     tables/sensitivity_*.csv, sensitivity.json

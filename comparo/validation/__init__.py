@@ -1,1 +1,2 @@
-"""Validation: the table schema and cross-column rules, synonyms, the temperature policy, the settings of later steps, and the validated Dataset."""
+"""Validation: the table schema and cross-column rules, synonyms, the temperature policy, the
+settings of later steps, and the validated Dataset."""
