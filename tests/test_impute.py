@@ -87,15 +87,15 @@ def test_json_contract_and_the_api_answer_alike(insects):
 
 def test_an_imputed_value_equals_the_dense_blup_at_lambda_1(insects):
     """Goldberger (1962) BLUP with C from the tree, written out densely here (lambda = 1)."""
-    from comparo.phylo.flat import _flat
-    from comparo.phylo.trees import _as_topo
+    from comparo.phylo.flat import flat
+    from comparo.phylo.trees import as_topo
 
     d = json.loads(
         run_main(
             "impute", str(insects), "--y", "body_mass", "--lambda", "1", "--format", "json"
         ).stdout
     )
-    ft = _flat(_as_topo(TREE), None)
+    ft = flat(as_topo(TREE), None)
     C = ft.covariance()
     by = {row["taxon"].replace(" ", "_"): row for row in d["taxa"]}
     y = np.array([by[t]["log_value"] if by[t]["observed"] else np.nan for t in ft.tips])

@@ -17,8 +17,8 @@ from support import run_main
 
 import comparo
 from comparo.phylo import random_newick
-from comparo.phylo.flat import _flat
-from comparo.phylo.trees import _as_topo
+from comparo.phylo.flat import flat
+from comparo.phylo.trees import as_topo
 
 HEADER = (
     "obs_id,taxon,quantity,value,unit,uncertainty,uncertainty_kind,n,source_id,locator,basis,"
@@ -32,7 +32,7 @@ def _write(d, seed: int = 7):
     on a 40-tip random tree, about a quarter of body masses and a tenth of frequencies
     missing. Invented for the test, not real animals."""
     nwk = random_newick(N_TIPS, seed=seed, ultrametric=True)
-    ft = _flat(_as_topo(nwk), None)
+    ft = flat(as_topo(nwk), None)
     rng = np.random.default_rng(seed)
     L = np.linalg.cholesky(np.array([[1.0, 0.8], [0.8, 1.0]]) * 0.3)
     X = np.zeros((ft.n_nodes, 2))
@@ -78,7 +78,7 @@ def test_draws_have_the_dense_conditional_covariance(sim):
     assert D.shape == (4000, int(miss.sum()))
     sd = D.std(axis=0)
     assert np.all(np.abs(D.mean(axis=0) - imp.log_value[miss]) < 5 * sd / np.sqrt(4000))
-    ft = _flat(_as_topo((sim / "tree.nwk").read_text()), None)
+    ft = flat(as_topo((sim / "tree.nwk").read_text()), None)
     C = ft.covariance()
     idx = ft.index([t for t in imp.taxa])
     C = C[np.ix_(idx, idx)]

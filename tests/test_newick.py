@@ -11,7 +11,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from comparo import phylo
-from comparo.phylo.trees import _topology
+from comparo.phylo.trees import topology_of
 from comparo.reading import newick
 from comparo.reading.newick import DeferredTree, parse_newick, read_newick
 
@@ -19,7 +19,7 @@ from comparo.reading.newick import DeferredTree, parse_newick, read_newick
 def _dendropy_topology(text: str):
     trees = parse_newick(text if text.rstrip().endswith(";") else text.rstrip() + ";")
     assert len(trees) == 1
-    return _topology(trees[0])
+    return topology_of(trees[0])
 
 
 def _same(text: str) -> None:
@@ -244,6 +244,6 @@ def test_check_on_the_demo_does_not_import_dendropy(demo_copy):
 def test_folding_many_labels_at_once_equals_folding_each(labels):
     """Tip matching folds all labels in one pass over a joined string; the keys equal
     those of folding each label alone (str.split, str.casefold: Python's own rules)."""
-    from comparo.phylo.trees import _norm, _norm_all
+    from comparo.phylo.trees import norm, norm_all
 
-    assert _norm_all(labels) == [_norm(v) for v in labels]
+    assert norm_all(labels) == [norm(v) for v in labels]

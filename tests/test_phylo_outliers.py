@@ -23,15 +23,15 @@ from support import run_main
 import comparo
 from comparo.base.quantiles import t_quantile
 from comparo.phylo import random_newick
-from comparo.phylo.flat import _flat
+from comparo.phylo.flat import flat
 from comparo.phylo.outliers import ALPHA, loo_z, threshold
-from comparo.phylo.trees import _as_topo
+from comparo.phylo.trees import as_topo
 
 
 def _bm(newick: str, seed: int, sd: float = 0.3, missing: float = 0.0):
     """BM values (log10 scale, root 1.0) on the tree, simulated densely from C; a share
     *missing* of tips without a value. Returns (C, tips, y with NaN)."""
-    ft = _flat(_as_topo(newick), None)
+    ft = flat(as_topo(newick), None)
     C = ft.covariance()
     rng = np.random.default_rng(seed)
     y = 1.0 + sd * (np.linalg.cholesky(C + 1e-12 * np.eye(ft.n_tips)) @ rng.normal(size=ft.n_tips))

@@ -200,7 +200,9 @@ def _check_kind(raw: Path, out: Path, kind: str, shown: str) -> None:
         raise UsageError(f"cannot write {shown}: the folder {target_dir} is not writable")
 
 
-def _write_error(path: str | os.PathLike, exc: OSError) -> UsageError:
+def write_error(path: str | os.PathLike, exc: OSError) -> UsageError:
+    """The UsageError saying why *path* could not be written (full device, read-only, permission, a
+    folder)."""
     reason = {
         errno.ENOSPC: "the device is full",
         errno.EROFS: "the file system is read-only",
@@ -242,7 +244,7 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
         target.parent.mkdir(parents=True, exist_ok=True)
         _replace_atomically(target, data)
     except OSError as exc:
-        raise _write_error(path, exc) from None
+        raise write_error(path, exc) from None
 
 
 def _write_in_place(target: Path, mode: int, data: bytes) -> None:

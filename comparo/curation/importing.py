@@ -395,7 +395,7 @@ def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> list[P
     input (:func:`comparo.base.outputs.resolve_output`), and a table of another name that no
     import wrote (``observations.xlsx`` beside the new ``observations.csv``) is refused.
     Returns notes about tables kept."""
-    from comparo.base.outputs import _write_error, atomic_write_bytes, resolve_output
+    from comparo.base.outputs import atomic_write_bytes, resolve_output, write_error
 
     try:
         resolve_output(out)  # the folder itself (and, below, each file) never lands in an input
@@ -419,7 +419,7 @@ def _write_folder(out: Path, files: dict[str, bytes], overwrite: bool) -> list[P
         for name in remove:
             (out / name).unlink()
     except OSError as exc:
-        raise _write_error(out, exc) from None
+        raise write_error(out, exc) from None
     return [
         Problem(
             "warning",

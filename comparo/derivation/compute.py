@@ -14,18 +14,18 @@ from comparo.base.errors import InputError, Problem
 from comparo.base.numbers import number
 from comparo.derivation.lattice import effective_radius, filament_spacing, filament_volume_fraction
 from comparo.derivation.lineage import (
-    _column,
-    _join,
-    _lineage_columns,
-    _mc_columns,
-    _text_column,
+    column,
+    join_reasons,
+    lineage_columns,
+    mc_columns,
     pd_concat,
+    text_column,
 )
 from comparo.derivation.permeability_models import PERMEABILITY_MODELS, permeability
-from comparo.derivation.ratios import _ratios
+from comparo.derivation.ratios import ratios
 from comparo.derivation.regime import frequency_vs_bound
 from comparo.derivation.regime import regime as classify_regime
-from comparo.derivation.settings import _settings
+from comparo.derivation.settings import settings_with_defaults
 from comparo.derivation.timescales import (
     constrained_modulus,
     frequency_bound,
@@ -33,7 +33,7 @@ from comparo.derivation.timescales import (
     poroelastic_diffusivity,
     poroelastic_time,
 )
-from comparo.derivation.uncertainty import _propagate
+from comparo.derivation.uncertainty import propagate
 from comparo.derivation.water import WATER_RANGE_C, water_viscosity_at
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -140,7 +140,7 @@ def derive(
     if isinstance(mc, np.integer):
         mc = int(mc)
     mc = check_mc(mc, len(table), option="mc")
-    s, ratio_settings, user_quantities = _settings(settings)
+    s, ratio_settings, user_quantities = settings_with_defaults(settings)
     catalog = load_catalog(user_quantities)
     keys = read_schema("derived.toml")["keys"]
     rng = np.random.default_rng(seed)
@@ -165,7 +165,7 @@ def derive(
     lv = _table_leaves(table, catalog, names)
     thin_per_thick, temperature, t_reason = _assumed_leaves(table, s, lv)
     compute, mirrors = _physics(s)
-    prop = _propagate(
+    prop = propagate(
         compute, lv.values, lv.rel_u, ignore_unknown, mc, rng, list(_SI), mirrors, progress=progress
     )
     reasons = _missing_reasons(s, prop.values, lv.absent, t_reason)
@@ -175,7 +175,7 @@ def derive(
     out = table.drop(columns=[c for c in new if c in table.columns])
     out = pd_concat(out, new)
     if ratio_settings:
-        ratio_cols, ratio_units = _ratios(
+        ratio_cols, ratio_units = ratios(
             out, ratio_settings, catalog, keys, mc, rng, ignore_unknown
         )
         out = pd_concat(out, ratio_cols)
@@ -206,8 +206,8 @@ def _table_leaves(table: pd.DataFrame, catalog, names: dict[str, str]) -> _Leave
     for leaf, si in {**_TABLE_LEAVES, "length": "m"}.items():
         key = names[leaf]
         f = conversion_factor(catalog[key].unit, si)
-        x = _column(table, key, f)
-        u = _column(table, f"{key}_u", f)
+        x = column(table, key, f)
+        u = column(table, f"{key}_u", f)
         ok = np.isfinite(x) & (x > 0)
         absent[leaf] = np.where(
             np.isnan(x), f"no {key}", np.where(ok, "", f"{key} not positive")
@@ -216,8 +216,8 @@ def _table_leaves(table: pd.DataFrame, catalog, names: dict[str, str]) -> _Leave
         with np.errstate(divide="ignore", invalid="ignore"):
             rel_u[leaf] = np.where(np.isfinite(u) & (u >= 0), u / x, np.nan)
         leaves[leaf] = x
-        basis[leaf] = _text_column(table, f"{key}_basis")
-        obs[leaf] = _text_column(table, f"{key}_obs")
+        basis[leaf] = text_column(table, f"{key}_basis")
+        obs[leaf] = text_column(table, f"{key}_obs")
 
     return lv
 
@@ -247,10 +247,10 @@ def _assumed_leaves(
                     )
                 ]
             )
-        thin_per_thick = _column(table, tpt)
+        thin_per_thick = column(table, tpt)
     else:
         thin_per_thick = np.full(n, float(tpt))
-    temperature = _column(table, "temperature_c")
+    temperature = column(table, "temperature_c")
     if "fallback_temperature_c" in s:
         temperature = np.where(
             np.isnan(temperature), float(s["fallback_temperature_c"]), temperature
@@ -384,7 +384,7 @@ def _missing_reasons(
         dtype=object,
     )
     r_d10 = absent["lattice_spacing_d10"]
-    r_kest = _join(r_d10, phi_out)
+    r_kest = join_reasons(r_d10, phi_out)
     r_k = np.where(
         (absent["permeability"] == "") | (r_kest == ""),
         "",
@@ -407,9 +407,9 @@ def _missing_reasons(
             "",
             "no transverse_modulus or elastic_modulus",
         )
-    r_d = _join(r_k, r_m, r_eta)
-    r_tp = _join(absent["length"], r_d)
-    rates = _join(absent["attach_rate"], absent["detach_rate"])
+    r_d = join_reasons(r_k, r_m, r_eta)
+    r_tp = join_reasons(absent["length"], r_d)
+    rates = join_reasons(absent["attach_rate"], absent["detach_rate"])
     r_tx = np.where(
         (absent["kinetic_time"] == "") | (rates == ""),
         "",
@@ -424,11 +424,11 @@ def _missing_reasons(
         "poroelastic_diffusivity": r_d,
         "poroelastic_time": r_tp,
         "kinetic_time": r_tx,
-        "poro_kinetic_ratio": _join(r_tp, r_tx),
+        "poro_kinetic_ratio": join_reasons(r_tp, r_tx),
         "frequency_kinetic_bound": r_tx,
         "frequency_hydraulic_bound": r_tp,
-        "frequency_ratio": _join(absent["frequency_observed"], r_tx, r_tp),
-        "regime": _join(r_tx, r_tp),
+        "frequency_ratio": join_reasons(absent["frequency_observed"], r_tx, r_tp),
+        "regime": join_reasons(r_tx, r_tp),
     }
 
     return reasons
@@ -529,7 +529,7 @@ def _assemble(
             rep = ~np.isnan(leaves["kinetic_time"])
             u = np.where(rep, leaves["kinetic_time"] * rel_u["kinetic_time"], u)
         through = {"kinetic_time": "kinetic_time", "drained_modulus": "transverse_modulus"}.get(key)
-        cols = _lineage_columns(
+        cols = lineage_columns(
             key,
             y,
             prop,
@@ -543,7 +543,7 @@ def _assemble(
         )
         cols = {key: y * f, f"{key}_u": u * f, **cols}
         if mc > 0:
-            cols.update(_mc_columns(key, prop.mc[key], cols[f"{key}_u"], f))
+            cols.update(mc_columns(key, prop.mc[key], cols[f"{key}_u"], f))
         new.update(cols)
     score = vals["_regime_score"]
     mcs = prop.mc if mc > 0 else {}
@@ -563,7 +563,7 @@ def _assemble(
     )
     no_u = np.isfinite(score) & ~np.isfinite(prop.u["poro_kinetic_ratio"])
     reg_method = np.where(no_u, how + " (no uncertainty of poro_kinetic_ratio: undetermined)", how)
-    reg = _lineage_columns(
+    reg = lineage_columns(
         "_regime_score",
         score,
         prop,

@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from comparo.derivation.uncertainty import _MC_SUFFIXES, _Propagation
+from comparo.derivation.uncertainty import MC_SUFFIXES, Propagation
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -21,7 +21,8 @@ if TYPE_CHECKING:  # pragma: no cover
 BASIS_ORDER = ("reported", "computed", "digitized", "proxy", "assumed", "imputed")
 
 
-def _column(table: pd.DataFrame, name: str, factor: float = 1.0) -> np.ndarray:
+def column(table: pd.DataFrame, name: str, factor: float = 1.0) -> np.ndarray:
+    """The numeric column *name* of *table* times *factor* (NaN where absent or not a number)."""
     if name not in table.columns:
         return np.full(len(table), np.nan)
     import pandas as pd
@@ -29,7 +30,8 @@ def _column(table: pd.DataFrame, name: str, factor: float = 1.0) -> np.ndarray:
     return pd.to_numeric(table[name], errors="coerce").to_numpy(dtype=float) * factor
 
 
-def _text_column(table: pd.DataFrame, name: str) -> list[str]:
+def text_column(table: pd.DataFrame, name: str) -> list[str]:
+    """The text column *name* of *table* ('' where absent or missing)."""
     if name not in table.columns:
         return [""] * len(table)
     return [
@@ -38,7 +40,8 @@ def _text_column(table: pd.DataFrame, name: str) -> list[str]:
     ]
 
 
-def _join(*reasons: np.ndarray) -> np.ndarray:
+def join_reasons(*reasons: np.ndarray) -> np.ndarray:
+    """Row-wise '; '-joined non-empty reasons of several text arrays."""
     out = np.full(len(reasons[0]), "", dtype=object)
     for r in reasons:
         out = np.where(r == "", out, np.where(out == "", r, out + "; " + r))
@@ -58,10 +61,10 @@ def pd_concat(frame: pd.DataFrame, columns: Mapping[str, Any]) -> pd.DataFrame:
     return pd.concat([frame, extra], axis=1)
 
 
-def _lineage_columns(
+def lineage_columns(
     key: str,
     y: np.ndarray,
-    prop: _Propagation,
+    prop: Propagation,
     basis,
     obs,
     display,
@@ -121,10 +124,12 @@ def _lineage_columns(
     }
 
 
-def _mc_columns(
+def mc_columns(
     key: str, summ: dict[str, np.ndarray], gum_u: np.ndarray, factor: float
 ) -> dict[str, Any]:
-    cols = {f"{key}{sfx}": summ[sfx] * factor for sfx in (*_MC_SUFFIXES, "_mc_u")}
+    """The Monte Carlo columns of derived quantity *key* (percentiles, MC SE, nonlinearity) in its
+    unit."""
+    cols = {f"{key}{sfx}": summ[sfx] * factor for sfx in (*MC_SUFFIXES, "_mc_u")}
     mcu = cols[f"{key}_mc_u"]
     with np.errstate(divide="ignore", invalid="ignore"):
         cols[f"{key}_nonlinear"] = np.where(

@@ -12,8 +12,14 @@ import numpy as np
 
 from comparo.base.errors import InputError, Problem
 from comparo.derivation.expressions import Ratio, parse_ratio, ratio_overflow
-from comparo.derivation.lineage import _column, _join, _lineage_columns, _mc_columns, _text_column
-from comparo.derivation.uncertainty import _propagate
+from comparo.derivation.lineage import (
+    column,
+    join_reasons,
+    lineage_columns,
+    mc_columns,
+    text_column,
+)
+from comparo.derivation.uncertainty import propagate
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -21,7 +27,7 @@ if TYPE_CHECKING:  # pragma: no cover
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
 
 
-def _ratios(
+def ratios(
     out: pd.DataFrame,
     ratio_settings: Mapping[str, Any],
     catalog,
@@ -37,7 +43,7 @@ def _ratios(
     for ratio, _op_units, factor, unit_out in parsed:
         leaves, rel_u, basis, obs, reasons = {}, {}, {}, {}, []
         for k, _p in ratio.exponents:
-            x = _column(out, k)
+            x = column(out, k)
             ok = np.isfinite(x) & (x > 0)
             reasons.append(
                 np.where(np.isnan(x), f"no {k}", np.where(ok, "", f"{k} not positive")).astype(
@@ -45,12 +51,12 @@ def _ratios(
                 )
             )
             x = np.where(ok, x, np.nan)
-            u = _column(out, f"{k}_u")
+            u = column(out, f"{k}_u")
             with np.errstate(divide="ignore", invalid="ignore"):
                 rel_u[k] = np.where(np.isfinite(u) & (u >= 0), u / x, np.nan)
             leaves[k] = x
-            basis[k] = _text_column(out, f"{k}_basis")
-            obs[k] = _text_column(out, f"{k}_obs")
+            basis[k] = text_column(out, f"{k}_basis")
+            obs[k] = text_column(out, f"{k}_obs")
         const = ratio.constant * factor
 
         def compute(L, _ratio=ratio, _const=const):
@@ -59,25 +65,25 @@ def _ratios(
                 y = y * L[k] ** p
             return {_ratio.name: y}
 
-        prop = _propagate(compute, leaves, rel_u, ignore_unknown, mc, rng)
+        prop = propagate(compute, leaves, rel_u, ignore_unknown, mc, rng)
         name = ratio.name
         y = prop.values[name]
         cols[name] = y
         cols[f"{name}_u"] = prop.u[name]
         cols.update(
-            _lineage_columns(
+            lineage_columns(
                 name,
                 y,
                 prop,
                 basis,
                 obs,
                 {k: k for k in leaves},
-                _join(*reasons),
+                join_reasons(*reasons),
                 f"{ratio.expression} [{unit_out}]",
             )
         )
         if mc > 0:
-            cols.update(_mc_columns(name, prop.mc[name], prop.u[name], 1.0))
+            cols.update(mc_columns(name, prop.mc[name], prop.u[name], 1.0))
         units[name] = unit_out
     return cols, units
 

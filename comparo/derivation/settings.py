@@ -29,7 +29,7 @@ _CHOICES = {
 }
 
 
-def _settings(
+def settings_with_defaults(
     given: Mapping[str, Any] | None,
 ) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any]]:
     """Defaults of schema/derived.toml overridden by *given*; returns (settings, ratios,
@@ -124,7 +124,7 @@ def settings_problems(settings: Mapping[str, Any], catalog) -> list[Problem]:
 
     probs: list[Problem] = []
     try:
-        _settings(derive_settings(settings))
+        settings_with_defaults(derive_settings(settings))
     except InputError as exc:
         probs += problems_from_frame(exc.problems)
     return probs + ratio_problems(settings.get("ratios", {}), catalog)

@@ -90,14 +90,14 @@ def coverage_ranks(m, p: float):
     return np.maximum(r, 1), np.minimum(r + q, m)
 
 
-_MC_SUFFIXES = ("_mc_lo95", "_mc_lo68", "_mc_median", "_mc_hi68", "_mc_hi95")
+MC_SUFFIXES = ("_mc_lo95", "_mc_lo68", "_mc_median", "_mc_hi68", "_mc_hi95")
 
 
 _STEP = 1.0e-5  # log-scale step of the numerical sensitivities
 
 
 @dataclass(frozen=True)
-class _Propagation:
+class Propagation:
     values: dict[str, np.ndarray]
     u: dict[str, np.ndarray]
     deps: dict[str, dict[str, np.ndarray]]  # output -> leaf -> bool per row
@@ -105,7 +105,7 @@ class _Propagation:
     mc: dict[str, dict[str, np.ndarray]]  # output -> suffix -> array
 
 
-def _propagate(
+def propagate(
     compute: Callable[[dict[str, Any]], dict[str, Any]],
     leaves: dict[str, np.ndarray],
     rel_u: dict[str, np.ndarray],
@@ -115,7 +115,7 @@ def _propagate(
     mc_outputs: list[str] | None = None,
     mirrors: dict[str, tuple[str, Callable[[Any], Any]]] | None = None,
     progress: bool = False,
-) -> _Propagation:
+) -> Propagation:
     """Values, GUM uncertainties, lineage and Monte Carlo summaries of compute(leaves).
 
     First order on the log scale: cᵢ = ∂ln y/∂ln xᵢ by central differences of step
@@ -162,7 +162,7 @@ def _propagate(
             bad = np.isnan(u[key])
             for arr in s.values():
                 arr[bad] = np.nan
-    return _Propagation(base, u, deps, unknown_names, summaries)
+    return Propagation(base, u, deps, unknown_names, summaries)
 
 
 def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None, progress: bool = False):
@@ -183,7 +183,7 @@ def _monte_carlo(compute, leaves, rel_u, mc, rng, outputs, mirrors=None, progres
     n = len(next(iter(leaves.values())))
     block = max(1, 1_000_000 // mc)
     drawn = [k for k, r in rel_u.items() if np.any(np.isfinite(r) & (r > 0))]
-    res = {k: {s: np.full(n, np.nan) for s in (*_MC_SUFFIXES, "_mc_u")} for k in outputs}
+    res = {k: {s: np.full(n, np.nan) for s in (*MC_SUFFIXES, "_mc_u")} for k in outputs}
     in_flight: list[Any] = []
     blocks = -(-n // block)
     bar = ProgressBar(progress and n * mc >= 2_000_000, f"Monte Carlo, {mc} draws", blocks, 2)

@@ -14,7 +14,7 @@ if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
 
-def _prepare(table: pd.DataFrame, x: str, y: str, log: str, taxon_col: str, by: str | None):
+def prepare(table: pd.DataFrame, x: str, y: str, log: str, taxon_col: str, by: str | None):
     """Numeric fitted-scale arrays, labels, groups and the excluded rows with reasons."""
     import pandas as pd
 

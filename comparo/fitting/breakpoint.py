@@ -14,7 +14,7 @@ from collections.abc import Callable
 import numpy as np
 
 from comparo.base.errors import UsageError
-from comparo.fitting.numbers import _NAN
+from comparo.fitting.numbers import NAN
 
 
 def segmented_line(
@@ -64,7 +64,7 @@ def segmented_line(
         Y, np.column_stack([np.ones(n), X, U, V])
     ).fit()  # Muggeo's linearisation: SEs only
     cov = np.asarray(res.cov_params())
-    se_psi = float(res.bse[3] / abs(res.params[2])) if res.params[2] != 0 else _NAN
+    se_psi = float(res.bse[3] / abs(res.params[2])) if res.params[2] != 0 else NAN
     tq = stats.t.ppf(0.5 + ci / 2, n - 4)
     se_right = math.sqrt(cov[1, 1] + cov[2, 2] + 2 * cov[1, 2])
     # Davies' test

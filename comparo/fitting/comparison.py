@@ -20,7 +20,13 @@ from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.numbers import number
 from comparo.base.results import Result
-from comparo.fitting.multiple import MultipleFit, _check, design, fit_design, linear_predictors
+from comparo.fitting.multiple import (
+    MultipleFit,
+    check_options,
+    design,
+    fit_design,
+    linear_predictors,
+)
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -264,7 +270,7 @@ def compare(
     in *linear* and ``temperature_c`` (degrees Celsius), which enter untransformed
     (:func:`comparo.fitting.multiple.linear_predictors`).
     """
-    sets = [_parse(m) for m in models]
+    sets = [parse_model(m) for m in models]
     if len(sets) < 2:
         raise UsageError("a comparison needs at least two models (give --model more than once)")
     seen: dict[tuple[str, ...], int] = {}
@@ -273,7 +279,7 @@ def compare(
         if key in seen:
             raise UsageError(f"model {i + 1} ({_label(s)}) repeats model {seen[key] + 1}")
         seen[key] = i
-    log = _check(log, ci, method, max(len(s) for s in sets))
+    log = check_options(log, ci, method, max(len(s) for s in sets))
     if method == "pgls" and tree is None:
         raise UsageError("method pgls needs a tree")
     columns = list(dict.fromkeys(c for s in sets for c in s))
@@ -308,7 +314,9 @@ def compare(
     )
 
 
-def _parse(model: Sequence[str] | str) -> list[str]:
+def parse_model(model: Sequence[str] | str) -> list[str]:
+    """A model given as 'X1,X2' (or a list) to its predictor names; '1' is the intercept-only
+    model."""
     parts = model.split(",") if isinstance(model, str) else list(model)
     names = [p.strip() for p in parts if p.strip() and p.strip() != "1"]
     if len(set(names)) != len(names):

@@ -12,7 +12,7 @@ METHODS = ("ols", "sma", "ma", "robust", "lts", "pgls")
 LOGS = LOG_SCALES  # the values of a fit's log option (comparo.base.scales)
 
 
-def _moments(X: np.ndarray, Y: np.ndarray, axis: int = -1):
+def moments(X: np.ndarray, Y: np.ndarray, axis: int = -1):
     """Means, variances and covariance (divisor n - 1) along *axis*."""
     n = X.shape[axis]
     xm = X.mean(axis=axis, keepdims=True)
@@ -42,7 +42,7 @@ def slope_from_moments(method: str, sxx, syy, sxy):
 
 
 @dataclass(frozen=True)
-class _Core:
+class Core:
     slope: float
     slope_ci: tuple[float, float]
     intercept: float

@@ -6,15 +6,17 @@ from __future__ import annotations
 import numpy as np
 
 from comparo.base.errors import UsageError
-from comparo.fitting.core import METHODS, _Core
+from comparo.fitting.core import METHODS, Core
 from comparo.fitting.least_squares import ols_line
 from comparo.fitting.model2 import model2_line
 from comparo.fitting.robust import huber_line, lts_line
 
 
-def _core(
+def line_core(
     method: str, X: np.ndarray, Y: np.ndarray, ci: float, against: float | None, seed: int
-) -> _Core:
+) -> Core:
+    """The fitted-line record of *method* on arrays X, Y (fitted scale) at level *ci*, testing
+    slope *against*."""
     if method == "ols":
         return ols_line(X, Y, ci, against)
     if method in ("sma", "ma"):

@@ -360,7 +360,7 @@ def flag_points(
             "studentized": float(t_ext[i]),
             "cooks_d": float(cooks[i]),
         }
-        flags += _point_flags(i, lab, t_ext[i], lev[i], cooks[i], cuts, p, n)
+        flags += point_flags(i, lab, t_ext[i], lev[i], cooks[i], cuts, p, n)
         if weights is not None:
             rec["weight"] = float(weights[i])
             if weights[i] < weight_cut:
@@ -394,7 +394,7 @@ def flag_points(
     )
 
 
-def _point_flags(
+def point_flags(
     i: int, lab: str, t: float, h: float, d: float, cuts: dict, p: int, n: int
 ) -> list[Flag]:
     """The Bonferroni, leverage and Cook's distance flags of point *i* (the stronger Cook cut

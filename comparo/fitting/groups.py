@@ -13,9 +13,9 @@ import math
 
 import numpy as np
 
-from comparo.fitting.core import _moments, slope_from_moments
-from comparo.fitting.dispatch import _core
-from comparo.fitting.numbers import _NAN
+from comparo.fitting.core import moments, slope_from_moments
+from comparo.fitting.dispatch import line_core
+from comparo.fitting.numbers import NAN
 
 
 def _lr_terms(b: float, groups: list[tuple[np.ndarray, np.ndarray]], method: str) -> float:
@@ -49,7 +49,7 @@ def common_slope_model2(
 
     slopes = []
     for X, Y in groups:
-        _, _, sxx, syy, sxy = _moments(X, Y)
+        _, _, sxx, syy, sxy = moments(X, Y)
         slopes.append(float(slope_from_moments(method, sxx, syy, sxy)))
     slopes_arr = np.array(slopes)
     sign = np.sign(np.median(slopes_arr)) or 1.0
@@ -81,9 +81,9 @@ def common_slope_model2(
                 break
             step *= 1.6
         else:
-            return _NAN
+            return NAN
         if excess(far) <= 0:
-            return _NAN
+            return NAN
         return float(optimize.brentq(excess, min(b_c, far), max(b_c, far), xtol=1e-10))
 
     return {
@@ -200,7 +200,7 @@ def group_fits(
                 f"of group tests"
             )
         else:
-            c = _core(method, X[m], Y[m], ci, against, seed)
+            c = line_core(method, X[m], Y[m], ci, against, seed)
             row.update(
                 slope=c.slope,
                 slope_ci=list(c.slope_ci),

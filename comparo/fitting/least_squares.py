@@ -5,10 +5,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from comparo.fitting.core import _Core
+from comparo.fitting.core import Core
 
 
-def ols_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, against: float | None = None) -> _Core:
+def ols_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, against: float | None = None) -> Core:
     """OLS of Y on X with t-based CIs and the t test of slope = against.
 
     se(b) = s_e / (s_X sqrt(n - 1)), s_e^2 = RSS/(n - 2); t = (b - b0)/se(b) ~ t(n - 2).
@@ -29,7 +29,7 @@ def ols_line(X: np.ndarray, Y: np.ndarray, ci: float = 0.95, against: float | No
             "df": int(res.df_resid),
             "p": float(2 * stats.t.sf(abs(t), res.df_resid)),
         }
-    return _Core(
+    return Core(
         float(b),
         (float(lo[1]), float(hi[1])),
         float(a),

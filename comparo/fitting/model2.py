@@ -12,8 +12,8 @@ import math
 import numpy as np
 
 from comparo.base.numbers import number
-from comparo.fitting.core import _Core, _moments, slope_from_moments
-from comparo.fitting.numbers import _NAN
+from comparo.fitting.core import Core, moments, slope_from_moments
+from comparo.fitting.numbers import NAN
 
 
 def model2_test(X: np.ndarray, Y: np.ndarray, b0: float, method: str) -> tuple[float, float]:
@@ -48,7 +48,7 @@ def model2_test(X: np.ndarray, Y: np.ndarray, b0: float, method: str) -> tuple[f
             return math.inf, 0.0
         rho, f = Y - b0 * X, Y + b0 * X
     else:
-        _, _, sxx, syy, sxy = _moments(X, Y)
+        _, _, sxx, syy, sxy = moments(X, Y)
         theta_hat = 0.5 * math.atan2(2.0 * sxy, sxx - syy)  # angle of the major axis
         t0 = math.atan(b0) if math.isfinite(b0) else math.pi / 2
         phi = (t0 - theta_hat + math.pi / 2) % math.pi - math.pi / 2  # in [-pi/2, pi/2)
@@ -65,7 +65,7 @@ def model2_test(X: np.ndarray, Y: np.ndarray, b0: float, method: str) -> tuple[f
 
 def model2_line(
     X: np.ndarray, Y: np.ndarray, method: str, ci: float = 0.95, against: float | None = None
-) -> _Core:
+) -> Core:
     """SMA or MA line with the exact (bivariate-normal) CIs of Warton et al. (2006).
 
     Notes
@@ -85,7 +85,7 @@ def model2_line(
 
     n = len(X)
     ci_note = None
-    xm, ym, sxx, syy, sxy = _moments(X, Y)
+    xm, ym, sxx, syy, sxy = moments(X, Y)
     r = max(
         -1.0, min(1.0, sxy / math.sqrt(sxx * syy))
     )  # rounding can push |r| past 1 on a perfect line
@@ -103,7 +103,7 @@ def model2_line(
         D = math.sqrt((syy - sxx) ** 2 + 4 * sxy * sxy)
         ratio = 2 * math.sqrt(Q) / D if D > 0 else math.inf
         if ratio >= 1:
-            lims = [_NAN, _NAN]
+            lims = [NAN, NAN]
             ci_note = (
                 "MA slope interval unbounded: at this level every direction is consistent with the "
                 "data (the major axis is not determined); reported as missing"
@@ -134,7 +134,7 @@ def model2_line(
             "p": p,
         }
     note = ci_note  # the weak-correlation caution is the fit's (comparo.fitting.cautions)
-    return _Core(
+    return Core(
         b,
         (float(lims[0]), float(lims[1])),
         a,

@@ -229,9 +229,11 @@ class Design:
         return np.column_stack(cols), ["intercept", *predictors, *self.dummies]
 
 
-def _check(
+def check_options(
     log: Any, ci: float, method: str, n_predictors: int, methods: Sequence[str] = MULTIPLE_METHODS
 ) -> str:
+    """Check the options of a multiple fit (log, ci, method, number of predictors); returns the log
+    name."""
     log = "none" if log is None else str(log)
     if log not in LOG_SCALES:
         raise UsageError(f"log must be one of 10, e, none; got {log!r}")
@@ -294,11 +296,11 @@ def design(
         numeric[c] = num
     tip_of = None
     if tree is not None:
-        from comparo.phylo.tips import _match
-        from comparo.phylo.trees import _as_topo
+        from comparo.phylo.tips import match_labels
+        from comparo.phylo.trees import as_topo
 
-        topo = _as_topo(tree)
-        tip_of = _match(topo, labels, tree_labels).tip_of
+        topo = as_topo(tree)
+        tip_of = match_labels(topo, labels, tree_labels).tip_of
     bad = np.zeros(len(labels), dtype=bool)  # rows with any problem, found with numpy first
     logged = {c: log != "none" and c not in linear for c in numeric}
     for c, v in numeric.items():
@@ -325,9 +327,9 @@ def design(
     keep = np.flatnonzero(~bad).tolist()
     ft = None
     if tree is not None and keep:
-        from comparo.phylo.regression import _pruned_tree
+        from comparo.phylo.regression import pruned_tree
 
-        ft, keep, _ = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
+        ft, keep, _ = pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     idx = np.asarray(keep, dtype=int)
     cols = {c: to_scale(numeric[c][idx], log) if logged[c] else numeric[c][idx] for c in numeric}
     reference, dummies = None, {}
@@ -383,9 +385,9 @@ def fit_design(
         )
     lam = lam_ci = None
     if method == "pgls":
-        from comparo.phylo.likelihood import _fit_lambda
+        from comparo.phylo.likelihood import fit_lambda
 
-        lf = _fit_lambda(d.tree, X, d.y, lambda_, None, False, ci)
+        lf = fit_lambda(d.tree, X, d.y, lambda_, None, False, ci)
         beta, cov, rss, loglik = lf.fit.beta, lf.fit.cov, lf.fit.rss, lf.loglik
         lam, lam_ci = lf.lam, lf.ci
     elif method == "robust":
@@ -453,7 +455,7 @@ def point_flags(
     W = C(lambda)^(-1/2). Returns the flags ``{"label", "reason", "statistic"}`` and a note
     when they could not be computed (a PGLS on more taxa than the dense whitener takes)."""
     from comparo.base.quantiles import f_quantile
-    from comparo.fitting.flags import _point_flags, bonferroni_cut, influence_design, phylo_whitener
+    from comparo.fitting.flags import bonferroni_cut, influence_design, phylo_whitener, point_flags
 
     n, p = X.shape
     if n - p - 1 <= 0:
@@ -474,7 +476,7 @@ def point_flags(
     }
     out = []
     for i, lab in enumerate(labels):
-        out += [f.to_dict() for f in _point_flags(i, lab, t[i], h[i], dcook[i], cuts, p, n)]
+        out += [f.to_dict() for f in point_flags(i, lab, t[i], h[i], dcook[i], cuts, p, n)]
     return out, ("flags on the phylogenetically whitened regression" if tree is not None else None)
 
 
@@ -633,7 +635,7 @@ def multiple_fit(
     F test of those values (key ``against``).
     """
     predictors = list(predictors)
-    log = _check(log, ci, method, len(predictors), FIT_METHODS)
+    log = check_options(log, ci, method, len(predictors), FIT_METHODS)
     if method == "pgls" and tree is None:
         raise UsageError("method pgls needs a tree")
     d = design(

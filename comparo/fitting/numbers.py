@@ -4,25 +4,29 @@ from __future__ import annotations
 
 from typing import Any
 
-from comparo.base.jsonsafe import finite_or_none as _num
+from comparo.base.jsonsafe import finite_or_none as num
 from comparo.base.numbers import number
 
-_NAN = float("nan")
+NAN = float("nan")
 
 
-def _nan(v: Any) -> float:
-    return _NAN if v is None else float(v)
+def as_float(v: Any) -> float:
+    """*v* as a float (NaN for None)."""
+    return NAN if v is None else float(v)
 
 
-def _pair(p: Any) -> list | None:
+def pair(p: Any) -> list | None:
+    """A JSON-safe [lo, hi] pair (None for None)."""
     if p is None:
         return None
-    return [_num(p[0]), _num(p[1])]
+    return [num(p[0]), num(p[1])]
 
 
-def _f(v: Any) -> str:
+def show(v: Any) -> str:
+    """An estimate in printed summaries: 5 significant digits, '-' when missing."""
     return number(v, 5, "-")
 
 
-def _p(p: Any) -> str:
+def show_p(p: Any) -> str:
+    """A p-value in printed summaries: 3 significant digits, '-' when missing."""
     return number(p, 3, "-")

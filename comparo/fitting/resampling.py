@@ -10,8 +10,8 @@ import numpy as np
 
 from comparo.base.progress import ProgressBar
 from comparo.fitting.core import slope_from_moments
-from comparo.fitting.dispatch import _core
-from comparo.fitting.numbers import _NAN
+from comparo.fitting.dispatch import line_core
+from comparo.fitting.numbers import NAN
 
 
 def _bca(theta_hat: float, boots: np.ndarray, jack: np.ndarray, ci: float) -> tuple[float, float]:
@@ -20,7 +20,7 @@ def _bca(theta_hat: float, boots: np.ndarray, jack: np.ndarray, ci: float) -> tu
 
     boots = boots[np.isfinite(boots)]
     if len(boots) == 0:
-        return (_NAN, _NAN)
+        return (NAN, NAN)
     prop = (np.sum(boots < theta_hat) + 0.5 * np.sum(boots == theta_hat)) / len(boots)
     prop = min(max(prop, 1.0 / (2 * len(boots))), 1 - 1.0 / (2 * len(boots)))
     z0 = stats.norm.ppf(prop)
@@ -63,7 +63,7 @@ def _resample_lines(
     syy = (sums[:, 3] - n * ym * ym) / (n - 1)
     sxy = (sums[:, 4] - n * xm * ym) / (n - 1)
     tiny = 1e-12 * max(float(np.mean(cross[:, 2])), 1e-300)
-    b = np.where(sxx > tiny, slope_from_moments(method, sxx, syy, sxy), _NAN)
+    b = np.where(sxx > tiny, slope_from_moments(method, sxx, syy, sxy), NAN)
     return b, ym - b * xm
 
 
@@ -93,7 +93,7 @@ def bootstrap_line(
     """
     n = len(X)
     rng = np.random.default_rng(seed)
-    est = _core(method, X, Y, ci, None, seed)
+    est = line_core(method, X, Y, ci, None, seed)
     slopes = np.empty(n_boot)
     ints = np.empty(n_boot)
     vector = method in ("ols", "sma", "ma")
@@ -113,9 +113,9 @@ def bootstrap_line(
                 for k, row in enumerate(idx):
                     xb, yb = X[row], Y[row]
                     if np.ptp(xb) == 0 or len(np.unique(xb)) < 3:
-                        slopes[start + k] = ints[start + k] = _NAN
+                        slopes[start + k] = ints[start + k] = NAN
                         continue
-                    c = _core(method, xb, yb, ci, None, seed)
+                    c = line_core(method, xb, yb, ci, None, seed)
                     slopes[start + k], ints[start + k] = c.slope, c.intercept
             bar.advance(stop - start)
     if vector:
@@ -124,7 +124,7 @@ def bootstrap_line(
         jb, ja = np.empty(n), np.empty(n)
         for i in range(n):
             m = np.arange(n) != i
-            c = _core(method, X[m], Y[m], ci, None, seed)
+            c = line_core(method, X[m], Y[m], ci, None, seed)
             jb[i], ja[i] = c.slope, c.intercept
     ok = np.isfinite(slopes)
     lo_q, hi_q = (1 - ci) / 2, (1 + ci) / 2
@@ -133,7 +133,7 @@ def bootstrap_line(
         ("slope", slopes[ok], jb, est.slope),
         ("intercept", ints[ok], ja, est.intercept),
     ):
-        per = np.quantile(reps, [lo_q, hi_q]) if len(reps) else [_NAN, _NAN]
+        per = np.quantile(reps, [lo_q, hi_q]) if len(reps) else [NAN, NAN]
         out[name] = {
             "percentile": [float(per[0]), float(per[1])],
             "bca": list(_bca(hat, reps, jack, ci)),

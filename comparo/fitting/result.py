@@ -8,7 +8,7 @@ from typing import TYPE_CHECKING, Any
 from comparo.base.jsonsafe import json_safe as _json
 from comparo.base.results import Result
 from comparo.fitting.cautions import caution_lines
-from comparo.fitting.numbers import _NAN, _f, _nan, _num, _p, _pair
+from comparo.fitting.numbers import NAN, as_float, num, pair, show, show_p
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -139,16 +139,16 @@ class FitResult(Result):
             "y": self.y,
             "log": self.log,
             "n": int(self.n),
-            "slope": _num(self.slope),
-            "slope_ci": _pair(self.slope_ci),
-            "intercept": _num(self.intercept),
-            "intercept_ci": _pair(self.intercept_ci),
-            "r2": _num(self.r2),
+            "slope": num(self.slope),
+            "slope_ci": pair(self.slope_ci),
+            "intercept": num(self.intercept),
+            "intercept_ci": pair(self.intercept_ci),
+            "r2": num(self.r2),
             "ci_level": float(self.ci_level),
             "against": _json(self.against),
-            "lambda": _num(self.lambda_) if self.lambda_ is not None else None,
-            "lambda_ci": _pair(self.lambda_ci) if self.lambda_ci is not None else None,
-            "loglik": _num(self.loglik) if self.loglik is not None else None,
+            "lambda": num(self.lambda_) if self.lambda_ is not None else None,
+            "lambda_ci": pair(self.lambda_ci) if self.lambda_ci is not None else None,
+            "loglik": num(self.loglik) if self.loglik is not None else None,
             "groups": _json(self.groups),
             "outliers": _json(list(self.outliers)),
             "excluded": _json(list(self.excluded)),
@@ -190,9 +190,9 @@ class FitResult(Result):
         for term, est, ci in pairs:
             row = {
                 "term": term,
-                "estimate": _num(est),
+                "estimate": num(est),
                 "se": None,
-                "ci": _pair(ci),
+                "ci": pair(ci),
                 "t": None,
                 "p": None,
             }
@@ -216,7 +216,7 @@ class FitResult(Result):
             if se is not None and se > 0 and est is not None:
                 t = float(est) / float(se)
                 p = 2.0 * (float(ndtr(-abs(t))) if df is None else float(stdtr(df, -abs(t))))
-                row.update(se=_num(se), t=_num(t), p=_num(p))
+                row.update(se=num(se), t=num(t), p=num(p))
             rows.append(row)
         return rows
 
@@ -232,7 +232,7 @@ class FitResult(Result):
         }
         for k in ("slope_ci", "intercept_ci", "lambda_ci"):
             if kw.get(k) is not None:
-                kw[k] = tuple(_nan(v) for v in kw[k])
+                kw[k] = tuple(as_float(v) for v in kw[k])
         for k in ("outliers", "excluded"):
             kw[k] = list(kw.get(k) or [])
         kw["cautions"] = tuple(kw.get("cautions") or ())
@@ -266,14 +266,14 @@ class FitResult(Result):
                 "group": None,
                 "term": "r2",
                 "estimate": self.r2,
-                "ci_low": _NAN,
-                "ci_high": _NAN,
+                "ci_low": NAN,
+                "ci_high": NAN,
                 "n": self.n,
             },
         ]
         for g in self.groups or []:
             for term in ("slope", "intercept"):
-                lo, hi = g.get(f"{term}_ci") or (_NAN, _NAN)
+                lo, hi = g.get(f"{term}_ci") or (NAN, NAN)
                 rows.append(
                     {
                         "group": g["group"],
@@ -287,7 +287,7 @@ class FitResult(Result):
         gt = self.group_tests or {}
         if gt.get("common_slope") and not gt.get("slopes_differ"):
             cs = gt["common_slope"]
-            lo, hi = cs.get("slope_ci") or (_NAN, _NAN)
+            lo, hi = cs.get("slope_ci") or (NAN, NAN)
             rows.append(
                 {
                     "group": "(common)",
@@ -305,7 +305,7 @@ class FitResult(Result):
                 ("slope_left", "slope_left"),
                 ("slope_right", "slope_right"),
             ):
-                lo, hi = bp.get(f"{key}_ci") or (_NAN, _NAN)
+                lo, hi = bp.get(f"{key}_ci") or (NAN, NAN)
                 rows.append(
                     {
                         "group": "(segmented)",
@@ -410,14 +410,15 @@ class FitResult(Result):
                 else []
             ),
             *[f"  CAUTION: {line}" for line in caution_lines(self.cautions)],
-            f"  slope      {_f(self.slope)}   {pct} CI {_span(self.slope_ci)}",
-            f"  intercept  {_f(self.intercept)}   {pct} CI {_span(self.intercept_ci)}",
-            f"  r2         {_f(self.r2)}",
+            f"  slope      {show(self.slope)}   {pct} CI {_span(self.slope_ci)}",
+            f"  intercept  {show(self.intercept)}   {pct} CI {_span(self.intercept_ci)}",
+            f"  r2         {show(self.r2)}",
         ]
         if self.lambda_ is not None:
-            lam_ci = self.lambda_ci or (_NAN, _NAN)
+            lam_ci = self.lambda_ci or (NAN, NAN)
             lines.append(
-                f"  lambda     {_f(self.lambda_)}   CI {_span(lam_ci)}   loglik {_f(self.loglik)}"
+                f"  lambda     {show(self.lambda_)}   CI {_span(lam_ci)}   "
+                f"loglik {show(self.loglik)}"
             )
         if self.against:
             lines.append(f"  {_against_text(self.against)}")
@@ -430,9 +431,9 @@ class FitResult(Result):
         if self.groups:
             lines.append("  groups:")
             for g in self.groups:
-                lo, hi = g.get("slope_ci") or (_NAN, _NAN)
+                lo, hi = g.get("slope_ci") or (NAN, NAN)
                 lines.append(
-                    f"    {str(g['group']):<16} n {g['n']:>4}  slope {_f(g.get('slope'))}  "
+                    f"    {str(g['group']):<16} n {g['n']:>4}  slope {show(g.get('slope'))}  "
                     f"CI {_span((lo, hi))}"
                 )
         if self.group_tests:
@@ -440,15 +441,16 @@ class FitResult(Result):
         if self.breakpoint:
             bp = self.breakpoint
             lines.append(
-                f"  breakpoint at x = {_f(bp['x'])} (CI {_span(bp['x_ci'])}) of the least-squares "
+                f"  breakpoint at x = {show(bp['x'])} (CI {_span(bp['x_ci'])}) "
+                "of the least-squares "
                 f"broken line{'' if self.method == 'ols' else f' (not {self.method.upper()})'}; "
-                f"slopes {_f(bp['slope_left'])} | {_f(bp['slope_right'])}; "
-                f"single line? p = {_p(bp['p_single_line'])}"
+                f"slopes {show(bp['slope_left'])} | {show(bp['slope_right'])}; "
+                f"single line? p = {show_p(bp['p_single_line'])}"
             )
         if self.outliers:
             lines.append("  flags:")
             lines += [
-                f"    {o['label']}: {o['reason']} ({_f(o['statistic'])})" for o in self.outliers
+                f"    {o['label']}: {o['reason']} ({show(o['statistic'])})" for o in self.outliers
             ]
         elif (
             self.method == "pgls"
@@ -508,7 +510,7 @@ class FlaggedRefit:
             "rules": list(self.rules),
             "dropped": _json([dict(d) for d in self.dropped]),
             "n_dropped": len(self.dropped),
-            "slope_change": _num(self.slope_change),
+            "slope_change": num(self.slope_change),
             "fit": self.fit.to_dict() if self.fit is not None else None,
             "note": self.note,
         }
@@ -522,7 +524,7 @@ class FlaggedRefit:
             for term, est, ci in (
                 ("slope", r.slope, r.slope_ci),
                 ("intercept", r.intercept, r.intercept_ci),
-                ("r2", r.r2, (_NAN, _NAN)),
+                ("r2", r.r2, (NAN, NAN)),
             ):
                 rows.append(
                     {
@@ -539,10 +541,10 @@ class FlaggedRefit:
                 {
                     "group": "(dropped)",
                     "term": d["label"],
-                    "estimate": _NAN,
-                    "ci_low": _NAN,
-                    "ci_high": _NAN,
-                    "n": _NAN,
+                    "estimate": NAN,
+                    "ci_low": NAN,
+                    "ci_high": NAN,
+                    "n": NAN,
                     "flags": "; ".join(d["rules"]),
                 }
             )
@@ -558,14 +560,16 @@ class FlaggedRefit:
         r = self.fit
         if r is not None:
             was = (
-                f" (was {_f(original.slope)}, change {_f(self.slope_change)})"
+                f" (was {show(original.slope)}, change {show(self.slope_change)})"
                 if original is not None
                 else ""
             )
-            lines.append(f"    n = {r.n}  slope {_f(r.slope)}   {pct} CI {_span(r.slope_ci)}{was}")
             lines.append(
-                f"    intercept {_f(r.intercept)}   {pct} CI {_span(r.intercept_ci)}   "
-                f"r2 {_f(r.r2)}"
+                f"    n = {r.n}  slope {show(r.slope)}   {pct} CI {_span(r.slope_ci)}{was}"
+            )
+            lines.append(
+                f"    intercept {show(r.intercept)}   {pct} CI {_span(r.intercept_ci)}   "
+                f"r2 {show(r.r2)}"
             )
             if r.against:
                 lines.append(f"    {_against_text(r.against)}")
@@ -590,7 +594,7 @@ GROUP_QUESTIONS = {
 
 def _span(pair) -> str:
     """An interval as summaries print it: ``lo .. hi``."""
-    return f"{_f(pair[0])} .. {_f(pair[1])}"
+    return f"{show(pair[0])} .. {show(pair[1])}"
 
 
 def _against_text(t: dict) -> str:
@@ -601,7 +605,7 @@ def _against_text(t: dict) -> str:
     if name.startswith("F(") and isinstance(df, list | tuple) and len(df) == 2:
         name, df = f"F({df[0]}, {df[1]})", None
     dft = "" if df is None else f" (df {df})"
-    return f"slope = {t['value']:g}?  {name} = {_f(t['statistic'])}{dft}, p = {_p(t['p'])}"
+    return f"slope = {t['value']:g}?  {name} = {show(t['statistic'])}{dft}, p = {show_p(t['p'])}"
 
 
 def _group_comparison_lines(gt: dict) -> list[str]:
@@ -615,21 +619,21 @@ def _group_comparison_lines(gt: dict) -> list[str]:
     cs = gt.get("common_slope")
     differ = bool(gt.get("slopes_differ"))
     if differ:
-        alpha = _f(gt.get("alpha"))
+        alpha = show(gt.get("alpha"))
         lines.append(
             f"  the groups differ in slope (equal slopes rejected at {alpha}): no exponent "
             "shared by the groups; see the group slopes"
         )
     elif cs:
-        lo, hi = cs.get("slope_ci") or (_NAN, _NAN)
-        lines.append(f"  common exponent {_f(cs.get('slope'))}  CI {_f(lo)} .. {_f(hi)}")
+        lo, hi = cs.get("slope_ci") or (NAN, NAN)
+        lines.append(f"  common exponent {show(cs.get('slope'))}  CI {show(lo)} .. {show(hi)}")
     for key, question in GROUP_QUESTIONS.items():
         t = gt.get(key)
         if t:
             assumed = " (assuming the common slope)" if key != "common_slope" else ""
             lines.append(
-                f"  {question}{assumed} {t['test']} {_f(t['statistic'])}, df {t['df']}, "
-                f"p = {_p(t['p'])}"
+                f"  {question}{assumed} {t['test']} {show(t['statistic'])}, df {t['df']}, "
+                f"p = {show_p(t['p'])}"
             )
     if gt.get("omitted"):
         lines.append(f"  {gt['omitted']}")

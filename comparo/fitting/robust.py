@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from comparo.fitting.core import _Core
+from comparo.fitting.core import Core
 from comparo.fitting.least_squares import ols_line
 
 HUBER_C = 1.345
@@ -18,7 +18,7 @@ LTS_CUT = 2.5
 
 def huber_line(
     X: np.ndarray, Y: np.ndarray, ci: float = 0.95, against: float | None = None, c: float = HUBER_C
-) -> _Core:
+) -> Core:
     """Huber M-estimate (statsmodels RLM, MAD scale) with normal-theory CIs and weights.
 
     psi(u) = clip(u, -c, c); IRLS weights min(1, c/|u|). The test of slope = b0
@@ -47,7 +47,7 @@ def huber_line(
             "df": None,
             "p": float(2 * stats.norm.sf(abs(z))),
         }
-    return _Core(
+    return Core(
         b,
         (float(lo[1]), float(hi[1])),
         a,
@@ -188,7 +188,7 @@ def lts_line(
     ci: float = 0.95,
     against: float | None = None,
     seed: int = 20240601,
-) -> _Core:
+) -> Core:
     """Reweighted LTS: raw LTS, then OLS on the points with |r/s| <= 2.5 (Rousseeuw & Leroy 1987).
 
     The reported line, CIs and test are those of the reweighted least-squares
@@ -205,7 +205,7 @@ def lts_line(
         f"LTS raw line (h = {raw.h}): intercept {raw.intercept:.5g}, slope {raw.slope:.5g}, scale "
         f"{raw.scale:.4g}; reweighted fit on {int(kept.sum())} of {len(X)} points"
     )
-    return _Core(
+    return Core(
         b,
         core.slope_ci,
         a,

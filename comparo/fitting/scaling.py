@@ -12,11 +12,11 @@ import numpy as np
 
 from comparo.base.errors import UsageError
 from comparo.base.scales import from_scale
-from comparo.fitting.arrays import _prepare
+from comparo.fitting.arrays import prepare
 from comparo.fitting.breakpoint import segmented_line
 from comparo.fitting.cautions import fit_cautions
 from comparo.fitting.core import LOGS, METHODS
-from comparo.fitting.dispatch import _core
+from comparo.fitting.dispatch import line_core
 from comparo.fitting.groups import group_fits, judge_slopes
 from comparo.fitting.resampling import bootstrap_line
 from comparo.fitting.result import FitResult, FlaggedRefit
@@ -155,15 +155,15 @@ def _line(
     from comparo.fitting.flags import drop_rules, flag_points
 
     rules = drop_rules(drop_flagged)
-    X, Y, labels, groups, excluded, rows_used = _prepare(table, x, y, log, taxon_col, by)
+    X, Y, labels, groups, excluded, rows_used = prepare(table, x, y, log, taxon_col, by)
     bootstrap = check_bootstrap(bootstrap, len(X), method)
     _check_points(method, X, Y, x, y, excluded)
-    core = _core(method, X, Y, ci, against, seed)
+    core = line_core(method, X, Y, ci, against, seed)
     if bootstrap and method in ("robust", "lts"):  # refitted per resample: bound by the time of one
         from comparo.base.arguments import check_refits  # more fit (the first one pays for imports)
 
         started = time.perf_counter()
-        _core(method, X, Y, ci, None, seed)
+        line_core(method, X, Y, ci, None, seed)
         check_refits(bootstrap, len(X), time.perf_counter() - started, method)
     notes = [core.note] if core.note else []
     flags = flag_points(

@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from comparo.base.errors import UsageError
-from comparo.phylo.trees import _as_topo, _Topo
+from comparo.phylo.trees import Topo, as_topo
 
 
 @dataclass(frozen=True, eq=False)
@@ -105,7 +105,7 @@ def flat_tree(tree: Any, tips: Sequence[str] | None = None) -> FlatTree:
     UsageError
         A requested tip is not in the tree, or fewer than 2 tips are kept.
     """
-    return _flat(_as_topo(tree), tips)
+    return flat(as_topo(tree), tips)
 
 
 def _up(
@@ -160,7 +160,7 @@ def _range_max(a: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
     return out
 
 
-def _flat(topo: _Topo, tips: Sequence[str] | None) -> FlatTree:
+def flat(topo: Topo, tips: Sequence[str] | None) -> FlatTree:
     """Prune and flatten in numpy over the pre-order arrays (pointer jumping for the
     root-ward sums, pre-order ranges for the subtrees): no loop over nodes in Python."""
     par = np.asarray(topo.parent, dtype=np.int64)

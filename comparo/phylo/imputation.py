@@ -24,7 +24,7 @@ import numpy as np
 from comparo.base.errors import UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.results import Result
-from comparo.phylo.flat import FlatTree, _flat, pagel_edges
+from comparo.phylo.flat import FlatTree, flat, pagel_edges
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -141,7 +141,7 @@ def _observed_tree(topo: Any, ft: FlatTree, observed: list[str]) -> FlatTree:
     to the root of the whole tree *ft* (root distances as in *ft*), so that Pagel's
     lambda transforms the covariance of the observed tips exactly as it does on the
     whole tree: C_oo(lambda) = lambda·C_oo + (1 - lambda)·diag(C_oo)."""
-    fo = _flat(topo, observed)
+    fo = flat(topo, observed)
     full_depth = ft.root_dist[ft.index(fo.tips[:1])][0]
     d = float(full_depth - fo.root_dist[0])
     if d <= 0:
@@ -363,7 +363,7 @@ def _tip_vector(ft: FlatTree, log_values: dict[str, float]) -> np.ndarray:
 def _lambda_fit(topo: Any, ft: FlatTree, y: np.ndarray, lam_arg: Any) -> Any:
     """Pagel's lambda of the values *y* (NaN: none) of the tips of *ft*, by ML or given,
     on the observed tips with the edge up to the whole tree's root kept."""
-    from comparo.phylo.likelihood import _fit_lambda
+    from comparo.phylo.likelihood import fit_lambda
 
     obs = np.isfinite(y)
     n_o = int(obs.sum())
@@ -374,7 +374,7 @@ def _lambda_fit(topo: Any, ft: FlatTree, y: np.ndarray, lam_arg: Any) -> Any:
     observed = [ft.tips[i] for i in np.flatnonzero(obs)]
     fo = _observed_tree(topo, ft, observed)
     yo = y[ft.index(fo.tips)]
-    return _fit_lambda(fo, np.ones((n_o, 1)), yo, lam_arg, None, False, PI_LEVEL)
+    return fit_lambda(fo, np.ones((n_o, 1)), yo, lam_arg, None, False, PI_LEVEL)
 
 
 def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") -> dict:
@@ -388,11 +388,11 @@ def impute_tree(tree: Any, log_values: dict[str, float], lambda_: Any = "ml") ->
     Student t quantile of the 95% intervals, n_observed - 1 degrees of freedom).
     """
     from comparo.base.quantiles import t_quantile
-    from comparo.phylo.trees import _as_topo
+    from comparo.phylo.trees import as_topo
 
     lam_arg = _lambda_arg(lambda_)
-    topo = _as_topo(tree)
-    ft = _flat(topo, None)
+    topo = as_topo(tree)
+    ft = flat(topo, None)
     y = _tip_vector(ft, log_values)
     obs = np.isfinite(y)
     n_o = int(obs.sum())
@@ -449,11 +449,11 @@ def impute_tree_with(
         fit_trait_covariance,
         tip_conditionals,
     )
-    from comparo.phylo.trees import _as_topo
+    from comparo.phylo.trees import as_topo
 
     lam_arg = _lambda_arg(lambda_)
-    topo = _as_topo(tree)
-    ft = _flat(topo, None)
+    topo = as_topo(tree)
+    ft = flat(topo, None)
     y = _tip_vector(ft, log_values)
     Y = np.column_stack([y] + [_tip_vector(ft, w) for w in with_values])
     obs = np.isfinite(y)
@@ -567,8 +567,8 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml", with_: Any = None) -> Impu
         observed taxa on the tree.
     """
     from comparo.curation.aggregation import per_taxon
-    from comparo.phylo.tips import _match, dataset_tree_labels
-    from comparo.phylo.trees import _as_topo
+    from comparo.phylo.tips import dataset_tree_labels, match_labels
+    from comparo.phylo.trees import as_topo
     from comparo.validation.dataset import load
 
     ds = load(dataset) if isinstance(dataset, str | Path) else dataset
@@ -580,9 +580,9 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml", with_: Any = None) -> Impu
     table = per_taxon(ds)
     value_of, u_of, unit = _quantity_values(ds, table, y)
     others = [_quantity_values(ds, table, q)[0] for q in withs]
-    topo = _as_topo(ds.tree)
+    topo = as_topo(ds.tree)
     labels = dataset_tree_labels(ds.taxa, topo.tips)
-    match = _match(topo, sorted(set(table["taxon"].astype(str).tolist())), labels)
+    match = match_labels(topo, sorted(set(table["taxon"].astype(str).tolist())), labels)
     tip_of = match.tip_of
     name_of = {tip: acc for acc, tip in labels.items()}  # taxa.csv rows naming tips
     name_of.update({tip: lab for lab, tip in tip_of.items()})

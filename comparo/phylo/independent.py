@@ -16,15 +16,15 @@ from comparo.base.errors import InputError, Problem, UsageError
 from comparo.base.jsonsafe import finite_list as _fl
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.results import Result
-from comparo.phylo.flat import FlatTree, _flat
-from comparo.phylo.tips import TipMatch, _match
-from comparo.phylo.trees import _as_topo
+from comparo.phylo.flat import FlatTree, flat
+from comparo.phylo.tips import TipMatch, match_labels
+from comparo.phylo.trees import as_topo
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
 
-def _values_on_tree(
+def values_on_tree(
     tree: Any, values: Mapping[str, float]
 ) -> tuple[FlatTree, np.ndarray, TipMatch, list[str], list[str]]:
     """Flat tree pruned to the tips with finite values; the values in tip order; the
@@ -39,15 +39,15 @@ def _values_on_tree(
         "values",
         "a mapping of tip label to value (a dict or a pandas Series)",
     )
-    topo = _as_topo(tree)
+    topo = as_topo(tree)
     labels = [str(k) for k in values]
     vals = {str(k): float(v) for k, v in values.items()}
-    match = _match(topo, labels, None)
+    match = match_labels(topo, labels, None)
     pairs = [(a, b) for a, b, _ in match.pairs if math.isfinite(vals[a])]
     missing = [a for a, _, _ in match.pairs if not math.isfinite(vals[a])]
     if len(pairs) < 3:
         raise UsageError(f"{len(pairs)} values match tips of the tree; at least 3 are needed")
-    ft = _flat(topo, [b for _, b in pairs])
+    ft = flat(topo, [b for _, b in pairs])
     used = set(ft.tips)
     pruned = [t for t in topo.tips if t not in used]
     label_of = {b: a for a, b in pairs}
@@ -171,7 +171,7 @@ def contrasts(tree: Any, values: Mapping[str, float]) -> Contrasts:
     BM-GLS slope (Garland & Ives 2000, Am Nat 155:346-364), and the root value is
     the GLS mean.
     """
-    ft, yv, match, missing, pruned = _values_on_tree(tree, values)
+    ft, yv, match, missing, pruned = values_on_tree(tree, values)
     n, N = ft.n_tips, ft.n_nodes
     children: list[list[int]] = [[] for _ in range(N)]
     for c in np.argsort(ft.order, kind="stable").tolist():  # pre-order = the source's child order

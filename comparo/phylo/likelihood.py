@@ -22,7 +22,7 @@ from comparo.phylo.flat import FlatTree, pagel_edges
 
 
 @dataclass(frozen=True, eq=False)
-class _Gls:
+class Gls:
     beta: np.ndarray
     cov: np.ndarray  # covariance of beta
     rss: float  # generalised RSS (y-Xb)'V⁻¹(y-Xb), V as scaled (= C(λ) without ME)
@@ -46,7 +46,7 @@ def _solve_from(gq: GLSQuantities, p: int) -> tuple[np.ndarray, np.ndarray, floa
     return beta, XtX, rss, rss_null, float(logdet_x)
 
 
-def _gls_fixed(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float) -> _Gls:
+def _gls_fixed(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float) -> Gls:
     """GLS with V = sigma²·C(lambda), sigma² profiled out (no measurement error)."""
     n, p = X.shape
     gq = gls_quantities(ft, np.column_stack([X, y]), pagel_edges(ft, lam))
@@ -61,12 +61,12 @@ def _gls_fixed(ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float) -> _Gls:
         else math.nan
     )
     cov = s2_r * np.linalg.inv(XtX)
-    return _Gls(beta, cov, rss, rss_null, s2_r, ll_ml, ll_r, gq.logdet)
+    return Gls(beta, cov, rss, rss_null, s2_r, ll_ml, ll_r, gq.logdet)
 
 
 def _gls_me(
     ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, s2: float, se2: np.ndarray
-) -> _Gls:
+) -> Gls:
     """GLS with V = sigma²·C(lambda) + diag(se²) at a given sigma² (Ives et al. 2007)."""
     n, p = X.shape
     e = s2 * pagel_edges(ft, lam)
@@ -75,12 +75,12 @@ def _gls_me(
     beta, XtX, rss, rss_null, ldx = _solve_from(gq, p)
     ll_ml = -0.5 * (n * math.log(2 * math.pi) + gq.logdet + rss)
     ll_r = -0.5 * ((n - p) * math.log(2 * math.pi) + gq.logdet + ldx + rss)
-    return _Gls(beta, np.linalg.inv(XtX), rss, rss_null, s2, ll_ml, ll_r, gq.logdet)
+    return Gls(beta, np.linalg.inv(XtX), rss, rss_null, s2, ll_ml, ll_r, gq.logdet)
 
 
-def _gls(
+def gls(
     ft: FlatTree, X: np.ndarray, y: np.ndarray, lam: float, se2: np.ndarray | None, reml: bool
-) -> _Gls:
+) -> Gls:
     """GLS at lambda; with measurement error, sigma² maximises the (RE)ML likelihood."""
     if se2 is None or not np.any(se2 > 0):
         return _gls_fixed(ft, X, y, lam)
@@ -98,7 +98,7 @@ def _gls(
     return _gls_me(ft, X, y, lam, math.exp(u), se2)
 
 
-def _ll(g: _Gls, reml: bool) -> float:
+def _ll(g: Gls, reml: bool) -> float:
     return g.loglik_reml if reml else g.loglik_ml
 
 
@@ -109,7 +109,7 @@ class _LambdaFit:
     loglik: float
     ll0: float | None
     ll1: float | None
-    fit: _Gls
+    fit: Gls
     top: float | None  # upper end of the search (1, or 1 - 1e-6 with zero-length tip edges)
 
 
@@ -117,7 +117,7 @@ class _LambdaFit:
 LAMBDA_XTOL = 1e-6
 
 
-def _fit_lambda(
+def fit_lambda(
     ft: FlatTree,
     X: np.ndarray,
     y: np.ndarray,
@@ -141,7 +141,7 @@ def _fit_lambda(
             ) from None
         if not 0.0 <= lam <= 1.0:
             raise UsageError(f"--lambda must be in [0, 1], got {lam}")
-        g = _gls(ft, X, y, lam, se2, reml)
+        g = gls(ft, X, y, lam, se2, reml)
         return _LambdaFit(lam, None, _ll(g, reml), None, None, g, None)
 
     # a zero-length tip edge has zero variance at lambda = 1 (no measurement error):
@@ -150,12 +150,12 @@ def _fit_lambda(
     if se2 is not None:
         zero &= se2 <= 0
     top = 1.0 - 1e-6 if np.any(zero) else 1.0
-    cache: dict[float, _Gls] = {}
+    cache: dict[float, Gls] = {}
 
-    def fit_at(lam: float) -> _Gls:
+    def fit_at(lam: float) -> Gls:
         lam = float(min(top, max(0.0, lam)))
         if lam not in cache:
-            cache[lam] = _gls(ft, X, y, lam, se2, reml)
+            cache[lam] = gls(ft, X, y, lam, se2, reml)
         return cache[lam]
 
     def ll(lam: float) -> float:
@@ -238,7 +238,7 @@ def _profile_limits(
     return lower, upper
 
 
-def _lr(ll_max: float, ll_h: float | None) -> dict | None:
+def lr(ll_max: float, ll_h: float | None) -> dict | None:
     """Likelihood-ratio test of a fixed lambda; p from chi²_1. On the boundary of
     [0, 1] the null distribution is the 50:50 mixture of chi²_0 and chi²_1 (Self &
     Liang 1987, JASA 82:605-610), so this p is conservative (twice the mixture's)."""

@@ -202,8 +202,8 @@ def phylo_outliers(
         return PhyloCheck(note="no tree (tree.nwk): values are not checked against relatives")
     from comparo.base.quantiles import t_quantile
     from comparo.curation.aggregation import per_taxon
-    from comparo.phylo.tips import _match, dataset_tree_labels
-    from comparo.phylo.trees import _as_topo
+    from comparo.phylo.tips import dataset_tree_labels, match_labels
+    from comparo.phylo.trees import as_topo
 
     skipped: dict[str, str] = {}
     if table is None:
@@ -221,9 +221,9 @@ def phylo_outliers(
     tab = table.copy(deep=False)
     tab.attrs = {}  # each column read would deep-copy the table's lineage otherwise
     try:
-        topo = _as_topo(ds.tree)
+        topo = as_topo(ds.tree)
         labels = dataset_tree_labels(ds.taxa, topo.tips)
-        tip_of = _match(topo, sorted(set(tab["taxon"].astype(str).tolist())), labels).tip_of
+        tip_of = match_labels(topo, sorted(set(tab["taxon"].astype(str).tolist())), labels).tip_of
     except (UsageError, ValueError) as exc:
         return PhyloCheck(note=f"the tree could not be matched to the taxa ({exc}): not checked")
     cat = ds.catalog

@@ -15,10 +15,10 @@ import numpy as np
 from comparo.base.errors import InputError, Problem, UsageError
 from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.scales import LOG_SCALES, se_on_scale, to_scale
-from comparo.phylo.flat import FlatTree, _flat
-from comparo.phylo.likelihood import _fit_lambda, _Gls, _gls, _lr
-from comparo.phylo.tips import _match
-from comparo.phylo.trees import _as_topo
+from comparo.phylo.flat import FlatTree, flat
+from comparo.phylo.likelihood import Gls, fit_lambda, gls, lr
+from comparo.phylo.tips import match_labels
+from comparo.phylo.trees import as_topo
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -115,9 +115,9 @@ def pgls(
     """
     log = _check_options(table, x, y, log, ci, taxon_col, by)
     se_col, se_map = _tip_se_source(table, y, tip_se)
-    topo = _as_topo(tree)
+    topo = as_topo(tree)
     labels = [str(v) for v in table[taxon_col].tolist()]
-    match = _match(topo, labels, tree_labels)
+    match = match_labels(topo, labels, tree_labels)
     xv = np.asarray(table[x], dtype=float)
     yv = np.asarray(table[y], dtype=float)
     tip_of = match.tip_of  # built on each access: once here
@@ -130,13 +130,13 @@ def pgls(
             f"({len(match.taxa_without_tips)} taxa not in the tree, {len(excluded)} excluded in "
             "all)"
         )
-    ft, keep, pruned = _pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
+    ft, keep, pruned = pruned_tree(topo, keep, [tip_of[labels[i]] for i in keep])
     keep_labels = [labels[i] for i in keep]
     X1 = to_scale(xv[keep], log)
     Y = to_scale(yv[keep], log)
     se2, me_info = _measurement_error(table, keep, keep_labels, yv, log, se_col, se_map)
 
-    lf = _fit_lambda(ft, np.column_stack([np.ones(n), X1]), Y, lambda_, se2, reml, ci)
+    lf = fit_lambda(ft, np.column_stack([np.ones(n), X1]), Y, lambda_, se2, reml, ci)
     line, extras = _line_keys(lf, n, ci, against)
     groups = group_tests = None
     if by is not None:
@@ -191,10 +191,10 @@ def phylo_fit(table: pd.DataFrame, x: str, y: str, **options: Any) -> dict:
     return pgls(table, x, y, **options)
 
 
-def _pruned_tree(topo, keep: list[int], tips: list[str]):
+def pruned_tree(topo, keep: list[int], tips: list[str]):
     """The tree pruned to *tips* as a :class:`FlatTree`, the table rows in its tip order,
     and the tips pruned away."""
-    ft = _flat(topo, tips)
+    ft = flat(topo, tips)
     row_of = {t: i for i, t in zip(keep, tips, strict=True)}
     used = set(tips)
     return ft, [row_of[t] for t in ft.tips], [t for t in topo.tips if t not in used]
@@ -378,8 +378,8 @@ def _lambda_tests(lf) -> dict | None:
     if lf.ll0 is None:
         return None
     return {
-        "lambda_0": _lr(lf.loglik, lf.ll0),
-        "lambda_1": _lr(lf.loglik, lf.ll1),
+        "lambda_0": lr(lf.loglik, lf.ll0),
+        "lambda_1": lr(lf.loglik, lf.ll1),
         "null_distribution": "chi2(1); conservative on the boundary of [0, 1]",
         "search_interval": [0.0, lf.top],
         "note": None
@@ -409,17 +409,17 @@ def _group_fit(
     n = len(Y)
     D = np.column_stack([np.asarray([g == lv for g in grp], dtype=float) for lv in levels])
     Xint = np.column_stack([D, D * X1[:, None]])  # per-group intercepts and slopes
-    lf = _fit_lambda(ft, Xint, Y, lambda_, se2, reml, ci)
+    lf = fit_lambda(ft, Xint, Y, lambda_, se2, reml, ci)
     lam = lf.lam
     full = lf.fit
     Xadd = np.column_stack([D, X1])
-    add = _gls(ft, Xadd, Y, lam, se2, reml)
+    add = gls(ft, Xadd, Y, lam, se2, reml)
     ones = np.column_stack([np.ones(n), X1])
-    pooled = _gls(ft, ones, Y, lam, se2, reml)
+    pooled = gls(ft, ones, Y, lam, se2, reml)
     df_full = n - 2 * G
     me = se2 is not None and np.any(se2 > 0)
 
-    def ftest(small: _Gls, big: _Gls, q: int, df2: int, beta_idx: list[int] | None = None) -> dict:
+    def ftest(small: Gls, big: Gls, q: int, df2: int, beta_idx: list[int] | None = None) -> dict:
         if me:  # Wald test on the contrasts of the big model (covariance not rescaled)
             Cm = np.zeros((q, big.beta.size))
             for j, (a, b) in enumerate(beta_idx or []):

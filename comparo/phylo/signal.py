@@ -18,8 +18,8 @@ from comparo.base.jsonsafe import finite_or_none as _f
 from comparo.base.results import Result
 from comparo.phylo.engine import gls_quantities
 from comparo.phylo.flat import FlatTree
-from comparo.phylo.independent import _values_on_tree
-from comparo.phylo.likelihood import _fit_lambda, _lr
+from comparo.phylo.independent import values_on_tree
+from comparo.phylo.likelihood import fit_lambda, lr
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -165,7 +165,7 @@ def tree_signal(
 
     permutations = check_count(permutations, "permutations")
     ci = check_level(ci)
-    ft, yv, match, missing, pruned = _values_on_tree(tree, values)
+    ft, yv, match, missing, pruned = values_on_tree(tree, values)
     n = ft.n_tips
     permutations = check_permutations(permutations, n)
     K = float(blomberg_k(ft, yv)[0])
@@ -181,8 +181,8 @@ def tree_signal(
             hits += int(np.sum(blomberg_k(ft, Yp) >= K - 1e-12 * abs(K)))
             done += m
         pval = (1 + hits) / (permutations + 1)
-    lf = _fit_lambda(ft, np.ones((n, 1)), yv, "ml", None, False, ci)
-    t0, t1 = _lr(lf.loglik, lf.ll0), _lr(lf.loglik, lf.ll1)
+    lf = fit_lambda(ft, np.ones((n, 1)), yv, "ml", None, False, ci)
+    t0, t1 = lr(lf.loglik, lf.ll0), lr(lf.loglik, lf.ll1)
     return SignalResult(
         n,
         K,

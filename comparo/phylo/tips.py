@@ -7,7 +7,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from comparo.base.errors import InputError, Problem, problems_from_frame
-from comparo.phylo.trees import _as_topo, _check, _norm, _norm_all, _Topo, _topology
+from comparo.phylo.trees import Topo, as_topo, check_topology, norm, norm_all, topology_of
 
 
 @dataclass(frozen=True)
@@ -89,13 +89,16 @@ def match_tips(
     >>> m.pairs[0], m.taxa_without_tips, m.tips_without_data
     (('apis mellifera', 'Apis_mellifera', 'name'), ('Homo',), ('Bombus',))
     """
-    return _match(_as_topo(tree), labels, tree_labels)
+    return match_labels(as_topo(tree), labels, tree_labels)
 
 
-def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | None) -> TipMatch:
+def match_labels(
+    topo: Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | None
+) -> TipMatch:
+    """Tips of *topo* matched to table *labels* (through *tree_labels* when given): a TipMatch."""
     tips = topo.tips
     tip_set = topo.node_of
-    tip_keys = _norm_all(tips)
+    tip_keys = norm_all(tips)
     by_key = dict(
         zip(tip_keys, tips, strict=True)
     )  # folded name -> tip, when no two tips share one
@@ -148,11 +151,11 @@ def _match(topo: _Topo, labels: Sequence[str], tree_labels: Mapping[str, str] | 
     pairs: list[tuple[str, str, str]] = []
     used: dict[str, str] = {}
     unmatched: list[str] = []
-    for lab, key in zip(labels, _norm_all(labels), strict=True):
+    for lab, key in zip(labels, norm_all(labels), strict=True):
         how = "name"
         if lab in explicit:
             want, how = explicit[lab], "tree_label"
-            tip = want if want in tip_set else by_key.get(_norm(want))
+            tip = want if want in tip_set else by_key.get(norm(want))
         else:
             tip = by_key.get(key)
         if tip is None:
@@ -203,7 +206,7 @@ def dataset_tree_labels(taxa: Any, tips: Sequence[str], file: str = "taxa.csv") 
     tip_set = set(tips)
     by_key: dict[str, list[str]] = {}
     for tip in tips:
-        by_key.setdefault(_norm(tip), []).append(tip)
+        by_key.setdefault(norm(tip), []).append(tip)
     acc_col = taxa["accepted_name"] if "accepted_name" in taxa else taxa["taxon"]
     lab_col = taxa["tree_label"] if "tree_label" in taxa else [None] * len(taxa)
     found: dict[str, dict[str, list[int]]] = {}  # accepted -> tip -> rows (spreadsheet numbering)
@@ -217,12 +220,12 @@ def dataset_tree_labels(taxa: Any, tips: Sequence[str], file: str = "taxa.csv") 
             tip = (
                 lab
                 if lab in tip_set
-                else (by_key[_norm(lab)][0] if len(by_key.get(_norm(lab), [])) == 1 else None)
+                else (by_key[norm(lab)][0] if len(by_key.get(norm(lab), [])) == 1 else None)
             )
             if tip is not None:
                 explicit[acc] = tip
-        elif len(by_key.get(_norm(name), [])) == 1:
-            tip = by_key[_norm(name)][0]
+        elif len(by_key.get(norm(name), [])) == 1:
+            tip = by_key[norm(name)][0]
         if tip is not None:
             found.setdefault(acc, {}).setdefault(tip, []).append(row)
     problems = []
@@ -254,15 +257,15 @@ def dataset_tree_labels(taxa: Any, tips: Sequence[str], file: str = "taxa.csv") 
 
 def tip_labels(tree: Any) -> tuple[str, ...]:
     """The tip labels of a tree (dendropy tree, Newick file or text), in pre-order."""
-    return tuple(_as_topo(tree).tips)
+    return tuple(as_topo(tree).tips)
 
 
 def nearest_tip(label: str, tips: Sequence[str]) -> str | None:
     """The tip label most like *label* (difflib ratio >= 0.6 on folded names), or None."""
     import difflib
 
-    keys = {_norm(t): t for t in tips}
-    hit = difflib.get_close_matches(_norm(label), list(keys), n=1, cutoff=0.6)
+    keys = {norm(t): t for t in tips}
+    hit = difflib.get_close_matches(norm(label), list(keys), n=1, cutoff=0.6)
     return keys[hit[0]] if hit else None
 
 
@@ -282,8 +285,8 @@ def tree_problems(ds: Any, accepted: Iterable[str] | None = None) -> list[Proble
         return []
     file = "tree.nwk"
     try:
-        topo = _topology(tree)
-        _check(topo, file)
+        topo = topology_of(tree)
+        check_topology(topo, file)
     except InputError as exc:
         return problems_from_frame(exc.problems)
     try:
@@ -294,7 +297,7 @@ def tree_problems(ds: Any, accepted: Iterable[str] | None = None) -> list[Proble
         accepted = ds.observations["taxon"]
     names = sorted({str(a) for a in accepted if a is not None and a == a})
     try:
-        m = _match(topo, names, labels_map)
+        m = match_labels(topo, names, labels_map)
     except InputError as exc:
         return problems_from_frame(exc.problems)
     out = []

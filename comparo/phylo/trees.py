@@ -24,7 +24,7 @@ def _tree_problem(
     return InputError([Problem("error", file, None, None, value, rule, message, hint)])
 
 
-def _norm(label: str) -> str:
+def norm(label: str) -> str:
     """Matching key: read as it looks (:func:`comparo.reading.text.visible`: a zero-width space or a
     direction mark removed), underscores as spaces, runs of white space collapsed, case folded."""
     from comparo.reading.text import visible
@@ -36,13 +36,13 @@ _WHITE = re.compile(r"\s+")  # the same characters as str.split() splits on
 _EDGE_WHITE = re.compile(r" ?\x00 ?")
 
 
-def _norm_all(labels: Sequence[str]) -> list[str]:
-    """:func:`_norm` of every label, in a few passes over one joined string (case folding
+def norm_all(labels: Sequence[str]) -> list[str]:
+    """:func:`norm` of every label, in a few passes over one joined string (case folding
     and white space are per character, so the joined text folds as its parts do)."""
     labels = [str(v) for v in labels]
     text = "\x00".join(labels)
     if not labels or text.count("\x00") != len(labels) - 1:  # a label holding the separator
-        return [_norm(v) for v in labels]
+        return [norm(v) for v in labels]
     if not text.isascii():
         from comparo.reading.text import visible
 
@@ -137,13 +137,13 @@ def _checked(path_or_newick: str | Path) -> Any:
     """:func:`_read`, then the checks of :func:`check_tree` (InputError on a fault)."""
     tree = _read(path_or_newick)
     deferred = isinstance(tree, DeferredTree)
-    _check(tree.topology if deferred else _topology(tree), tree_name(path_or_newick))
+    check_topology(tree.topology if deferred else topology_of(tree), tree_name(path_or_newick))
     return tree
 
 
 #: One pre-order pass over a tree: parent index, edge length (None if absent), leaf labels
 #: and inner-node labels; the same record the plain-Newick reader builds.
-_Topo = Topology
+Topo = Topology
 
 
 def _preorder(tree: Any) -> list:
@@ -159,15 +159,15 @@ def _preorder(tree: Any) -> list:
     return out
 
 
-def _topology(tree: Any) -> _Topo:
+def topology_of(tree: Any) -> Topo:
     """The pre-order record of a tree: a :class:`Topology` as it is, the one a
     :class:`comparo.reading.newick.DeferredTree` already holds (read by
     :mod:`comparo.reading.newick`, so
     dendropy is neither imported nor walked), else one pass over the dendropy tree."""
-    if isinstance(tree, _Topo):
+    if isinstance(tree, Topo):
         return tree
     held = tree.__dict__.get("topology") if hasattr(tree, "__dict__") else None
-    if isinstance(held, _Topo):
+    if isinstance(held, Topo):
         return held
     nodes = _preorder(tree)
     index = {id(nd): i for i, nd in enumerate(nodes)}
@@ -189,17 +189,19 @@ def _topology(tree: Any) -> _Topo:
                 else (nd.taxon.label if nd.taxon is not None else None)
             )
             leaf[i] = None if lab is None else str(lab)
-    return _Topo(parent, length, leaf, inner)
+    return Topo(parent, length, leaf, inner)
 
 
 def check_tree(tree: Any, name: str = "tree") -> None:
     """Raise :class:`InputError` unless every tip has a unique label and every edge
     (except the root's) a finite, non-negative length. *name* is the file named in
     the problem."""
-    _check(_topology(tree), name)
+    check_topology(topology_of(tree), name)
 
 
-def _check(topo: _Topo, name: str) -> None:
+def check_topology(topo: Topo, name: str) -> None:
+    """Raise the tree problem of *topo* (file *name*): tips without labels, duplicate labels,
+    missing or negative branch lengths."""
     labels = list(topo.leaf.values())
     if any(lab is None or str(lab).strip() == "" for lab in labels):
         raise _tree_problem(
@@ -248,17 +250,17 @@ def _check(topo: _Topo, name: str) -> None:
         )
 
 
-def _as_topo(tree: Any) -> _Topo:
+def as_topo(tree: Any) -> Topo:
     """The checked topology of a tree, a Newick file name or Newick text."""
-    if isinstance(tree, _Topo):
+    if isinstance(tree, Topo):
         return tree
     if isinstance(tree, str | Path):
         tree = read_tree(tree)
-    elif not (isinstance(getattr(tree, "topology", None), _Topo) or hasattr(tree, "seed_node")):
+    elif not (isinstance(getattr(tree, "topology", None), Topo) or hasattr(tree, "seed_node")):
         raise UsageError(
             f"tree must be a Newick file name, Newick text or a tree from comparo.read_tree "
             f"(got {type(tree).__name__} {repr(tree)[:40]})"
         )
-    topo = _topology(tree)
-    _check(topo, "tree")
+    topo = topology_of(tree)
+    check_topology(topo, "tree")
     return topo

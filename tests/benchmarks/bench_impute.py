@@ -27,13 +27,13 @@ from pathlib import Path
 import numpy as np
 
 from comparo.phylo import random_newick
-from comparo.phylo.flat import _flat
-from comparo.phylo.trees import _as_topo
+from comparo.phylo.flat import flat
+from comparo.phylo.trees import as_topo
 
 
 def write_dataset(folder: Path, n: int, seed: int = 28) -> None:
     nw = random_newick(n, seed, ultrametric=True)
-    ft = _flat(_as_topo(nw), None)
+    ft = flat(as_topo(nw), None)
     rng = np.random.default_rng(seed)
     x = np.zeros(ft.n_nodes)  # BM from the root down, level by level
     for k in range(len(ft.bounds) - 3, -1, -1):

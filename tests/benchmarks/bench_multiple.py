@@ -49,9 +49,9 @@ def main(n: int = 100_000) -> None:
         topo = checked_tree(str(path))
         print(f"read and check the Newick ({n} tips): {time.perf_counter() - t0:.2f} s")
     rng = np.random.default_rng(5)
-    from comparo.phylo.flat import _flat, pagel_edges
+    from comparo.phylo.flat import flat, pagel_edges
 
-    ft = _flat(topo, None)
+    ft = flat(topo, None)
     noise = _brownian(ft, pagel_edges(ft, 0.6), rng)  # covariance C(0.6), simulated down the edges
     la, lb, lc = rng.normal(size=(3, n))
     ly = 1.0 + 0.5 * la - 0.3 * lb + 0.2 * lc + 0.1 * noise

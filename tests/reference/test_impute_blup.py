@@ -15,17 +15,17 @@ import numpy as np
 import pytest
 
 from comparo.phylo import random_newick
-from comparo.phylo.flat import _flat, pagel_edges
+from comparo.phylo.flat import flat, pagel_edges
 from comparo.phylo.imputation import impute_tree, predict_tips
-from comparo.phylo.trees import _as_topo
+from comparo.phylo.trees import as_topo
 
 
 def _setup(n: int, seed: int, ultrametric: bool, drop_clade: bool = False):
     """A seeded random tree, BM values on it, about 30% of the tips without a value
     (with *drop_clade*, also every tip below one child of the root, so the observed tips'
     common ancestor is below the root)."""
-    topo = _as_topo(random_newick(n, seed=seed, ultrametric=ultrametric))
-    ft = _flat(topo, None)
+    topo = as_topo(random_newick(n, seed=seed, ultrametric=ultrametric))
+    ft = flat(topo, None)
     rng = np.random.default_rng(seed + 100)
     C = ft.covariance()
     y = np.linalg.cholesky(C + 1e-12 * np.eye(n)) @ rng.normal(size=n) * 0.3 + 2.0
@@ -150,8 +150,8 @@ def test_prediction_intervals_cover_95_percent_of_simulated_values():
     intervals is 0.3 points and intervals of one replicate are correlated (common
     practice: a band a few times the Monte Carlo error, as the issue asks)."""
     n, hide, reps = 60, 15, 300
-    topo = _as_topo(random_newick(n, seed=11, ultrametric=True))
-    ft = _flat(topo, None)
+    topo = as_topo(random_newick(n, seed=11, ultrametric=True))
+    ft = flat(topo, None)
     L = np.linalg.cholesky(ft.covariance())
     rng = np.random.default_rng(20261205)
     inside = total = 0

@@ -17,10 +17,10 @@ import numpy as np
 import pytest
 
 from comparo.phylo import random_newick
-from comparo.phylo.flat import _flat, pagel_edges
+from comparo.phylo.flat import flat, pagel_edges
 from comparo.phylo.imputation import impute_tree, impute_tree_with
 from comparo.phylo.multitrait import restricted_loglik
-from comparo.phylo.trees import _as_topo
+from comparo.phylo.trees import as_topo
 
 
 def _simulate(ft, R: np.ndarray, seed: int) -> np.ndarray:
@@ -81,8 +81,8 @@ def test_with_traits_equals_the_dense_conditional_gaussian(n, seed, ultrametric,
     on the dense function (an independent optimiser)."""
     from scipy.optimize import minimize
 
-    topo = _as_topo(random_newick(n, seed=seed, ultrametric=ultrametric))
-    ft = _flat(topo, None)
+    topo = as_topo(random_newick(n, seed=seed, ultrametric=ultrametric))
+    ft = flat(topo, None)
     C = ft.covariance()
     Rt = np.array([[1.0, 0.6, 0.2], [0.6, 2.0, 0.3], [0.2, 0.3, 0.5]]) * 0.2
     Y = _simulate(ft, Rt, seed) + np.array([1.0, 2.0, 0.5])
@@ -130,8 +130,8 @@ def test_a_correlated_trait_improves_leave_one_out_as_theory_says():
     Rt = np.array([[1.0, rho], [rho, 1.0]]) * 0.1
     e1 = e2 = 0.0
     for seed in range(20261205, 20261210):
-        topo = _as_topo(random_newick(300, seed=seed, ultrametric=True))
-        ft = _flat(topo, None)
+        topo = as_topo(random_newick(300, seed=seed, ultrametric=True))
+        ft = flat(topo, None)
         Y = _simulate(ft, Rt, seed)
         y = {t: float(v) for t, v in zip(ft.tips, Y[:, 0], strict=True)}
         x = {t: float(v) for t, v in zip(ft.tips, Y[:, 1], strict=True)}

@@ -17,7 +17,7 @@ from scipy.optimize import brentq, minimize_scalar
 from scipy.stats import chi2
 
 from comparo import phylo
-from comparo.phylo.likelihood import LAMBDA_XTOL, _gls, _ll
+from comparo.phylo.likelihood import LAMBDA_XTOL, _ll, gls
 from comparo.phylo.search import minimize_bounded, root_bracketed
 
 FUNCS = [
@@ -74,7 +74,7 @@ def _scipy_search(ft, X, y, reml, ci=0.95):
     def ll(v):
         v = float(min(1.0, max(0.0, v)))
         if v not in cache:
-            cache[v] = _ll(_gls(ft, X, y, v, None, reml), reml)
+            cache[v] = _ll(gls(ft, X, y, v, None, reml), reml)
         return cache[v]
 
     grid = np.linspace(0.0, 1.0, 11)
@@ -105,7 +105,7 @@ def _scipy_search(ft, X, y, reml, ci=0.95):
             left = above[k - 1] if k > 0 else lam
             upper = brentq(g, left, v, xtol=1e-6) if g(left) < 0 else left
             break
-    fit = _gls(ft, X, y, lam, None, reml)
+    fit = gls(ft, X, y, lam, None, reml)
     return lam, lmax, (lower, upper), fit
 
 
@@ -167,5 +167,5 @@ def test_lambda_ml_fit_equals_the_same_search_done_with_scipy(k, n, lam_true, re
         assert r[key] == pytest.approx(want, rel=1e-6, abs=1e-12), key
     assert abs(r["lambda_ci"][0] - ci[0]) <= 2e-6 and abs(r["lambda_ci"][1] - ci[1]) <= 2e-6
     assert r["lambda_tests"]["lambda_0"]["p"] == pytest.approx(
-        chi2.sf(2 * (lmax - _ll(_gls(ft, X, y, 0.0, None, reml), reml)), 1), rel=1e-6, abs=1e-12
+        chi2.sf(2 * (lmax - _ll(gls(ft, X, y, 0.0, None, reml), reml)), 1), rel=1e-6, abs=1e-12
     )

@@ -9,14 +9,14 @@ from comparo.cli.inputs import derived_table, tree_options
 
 def run(args) -> int:
     from comparo.base.errors import UsageError
-    from comparo.fitting.comparison import _parse, compare
+    from comparo.fitting.comparison import compare, parse_model
 
     if args.method != "pgls" and (args.tree is not None or args.lambda_ is not None):
         given = [f for f, v in (("--tree", args.tree), ("--lambda", args.lambda_)) if v is not None]
         raise UsageError(
             f"{', '.join(given)} applies only to --method pgls (the method here is {args.method})"
         )
-    needed = [args.y, *{c for m in args.model for c in _parse(m)}] + (
+    needed = [args.y, *{c for m in args.model for c in parse_model(m)}] + (
         [args.factor] if args.factor else []
     )
     table = derived_table(args, needed)

@@ -98,12 +98,12 @@ def _against(given: list[str] | None) -> dict[str, float] | None:
 def run_multiple(args) -> int:
     """The multiple regression as text, JSON or CSV (the terms table)."""
     from comparo.cli.inputs import derived_table, tree_options
-    from comparo.fitting.multiple import FIT_METHODS, _check, multiple_fit
+    from comparo.fitting.multiple import FIT_METHODS, check_options, multiple_fit
 
     xs = list(dict.fromkeys(args.x))
     if len(xs) < len(args.x):
         raise UsageError("an --x is given twice")
-    _check(
+    check_options(
         args.log, args.ci, args.method, len(xs), FIT_METHODS
     )  # sma/ma, lts with several predictors: exit 2
     off = [
