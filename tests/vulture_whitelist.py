@@ -44,3 +44,5 @@ pandera_schema  # tests/test_validate.py compares it with schema_failures
 _.covariance  # FlatTree.covariance: the dense C for checks (tests/reference)
 _.objective  # LTSLine.objective: the trimmed sum of squares (tests/reference)
 _.root_var  # Imputation.root_var: a result field (read by users and asdict)
+_.clear  # SharedRecord: dict methods made read-only (called by code that would mutate it)
+_.popitem  # SharedRecord: as clear

@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from comparo.base.shared import SharedRecord
 from comparo.curation.combine import aggregate_quantity
 from comparo.curation.harmonise import Harmonised, harmonise, taxon_groups, thermal_columns
 from comparo.validation.numbers import map_distinct
@@ -91,7 +92,7 @@ def per_taxon(
             elif c.endswith(("_basis", "_obs")):
                 out[c] = out[c].fillna("")
     out.attrs["reference_temperature_c"] = h.reference_temperature_c
-    out.attrs["temperature"] = _temperature_record(used, cat, h)
+    out.attrs["temperature"] = SharedRecord(_temperature_record(used, cat, h))
     return out
 
 

@@ -12,6 +12,7 @@ import numpy as np
 
 from comparo.base.errors import InputError, Problem
 from comparo.base.numbers import number
+from comparo.base.shared import SharedRecord
 from comparo.derivation.lattice import effective_radius, filament_spacing, filament_volume_fraction
 from comparo.derivation.lineage import (
     column,
@@ -180,7 +181,7 @@ def derive(
         )
         out = pd_concat(out, ratio_cols)
         units.update(ratio_units)
-    out.attrs = {**table.attrs, "units": {**table.attrs.get("units", {}), **units}}
+    out.attrs = {**table.attrs, "units": SharedRecord({**table.attrs.get("units", {}), **units})}
     return out
 
 

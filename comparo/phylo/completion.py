@@ -20,6 +20,7 @@ from typing import Any
 
 import numpy as np
 
+from comparo.base.shared import SharedRecord
 from comparo.validation.imputing import DEFAULT_M, impute_settings
 
 __all__ = ["DEFAULT_M", "impute_settings", "predictive_draws", "add_imputed", "imputed_table"]
@@ -208,7 +209,7 @@ def add_imputed(table: Any, ds: Any, settings: Mapping[str, Any]) -> Any:
     for q in summary:  # the lineage column right after the quantity's obs_ids
         order.insert(order.index(f"{q}_obs") + 1, f"{q}_lineage")
     out = out[order]
-    out.attrs["imputed"] = summary
+    out.attrs["imputed"] = SharedRecord(summary)
     return out
 
 
