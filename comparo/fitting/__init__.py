@@ -56,7 +56,8 @@ from comparo.fitting.core import LOGS, METHODS, slope_from_moments
 from comparo.fitting.groups import common_slope_model2, group_fits
 from comparo.fitting.least_squares import ols_line
 from comparo.fitting.model2 import model2_line, model2_test
-from comparo.fitting.multiple import MultipleFit, multiple_fit
+from comparo.fitting.multiple import MultipleFit
+from comparo.fitting.multiple_extras import multiple_fit
 from comparo.fitting.resampling import bootstrap_line
 from comparo.fitting.result import FitResult, FlaggedRefit
 from comparo.fitting.robust import HUBER_C, LTS_CUT, LTSLine, huber_line, lts_fit, lts_line
