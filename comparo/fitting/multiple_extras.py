@@ -39,8 +39,8 @@ def multiple_fit(
     *bootstrap* resamples of the taxa (OLS and robust,
     :func:`comparo.fitting.multiple_resampling.bootstrap_terms`, ``comparo fit --bootstrap
     N --seed S``). ``by`` and ``factor`` together are refused, as on the command line."""
-    from comparo.base.errors import UsageError
     import comparo.fitting.multiple as m
+    from comparo.base.errors import UsageError
 
     if by is not None and factor is not None:
         raise UsageError(

@@ -113,7 +113,8 @@ def _draw_slopes(
             out[ok] = huber_slopes(X[ok], Y[ok])
         return out
     if method == "lts":
-        from comparo.fitting import LTS_CUT, lts_fit, ols_line
+        from comparo.fitting.least_squares import ols_line
+        from comparo.fitting.robust import LTS_CUT, lts_fit
 
         for k in np.flatnonzero(ok):
             raw = lts_fit(X[k], Y[k], max_starts=MC_LTS_STARTS, seed=seed + k)
