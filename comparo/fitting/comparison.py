@@ -168,7 +168,10 @@ class Comparison(Result):
             f"n = {self.n} taxa with every variable of every model",
         ]
         if self.excluded:
-            lines.append(f"{len(self.excluded)} taxa left out (the same for every model):")
+            n = len(self.excluded)
+            lines.append(
+                f"{n} {'taxon' if n == 1 else 'taxa'} left out (the same for every model):"
+            )
             lines += [f"  {e['label']}: {e['reason']}" for e in self.excluded[:20]]
             if len(self.excluded) > 20:
                 lines.append(f"  ... and {len(self.excluded) - 20} more (JSON key 'excluded')")
