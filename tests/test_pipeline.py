@@ -39,7 +39,7 @@ def broken(tmp_path):
     """A valid table beside three later-stage problems: a tree with a tip without a branch
     length, a trace file that does not exist, and a ``[derive]`` setting that is not one."""
     ds = write_dataset(tmp_path / "ds")
-    # Newick (Felsenstein, PHYLIP documentation, "The Newick tree format"): a branch length
+    # the Newick format (Felsenstein 1986, "The Newick tree format"; from memory): a branch length
     # follows its node after a colon; Bombus_terrestris has none, which a PGLS fit refuses
     (ds / "tree.nwk").write_text("((Apis_mellifera:1.0,Bombus_terrestris):1.0);\n")
     (ds / "traces.csv").write_text(
