@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import difflib
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -279,9 +279,6 @@ class Dataset(Result):
     tree_text: str | None = None
     # comparo.reading.tables.RawTable of traces.csv, or None (reduced by comparo.traces.files)
     traces: Any = None
-    cache: dict[str, Any] = field(
-        default_factory=dict, repr=False, compare=False
-    )  # results computed once per load
 
     @property
     def rows_read(self) -> int:
