@@ -125,7 +125,7 @@ def test_fit_with_impute_keeps_the_fit_and_adds_the_imputation(sim):
 
     ds = comparo.load(sim)
     api = fit_with_imputation(
-        ds, comparo.per_taxon(ds), "body_mass", "frequency_observed", "ols", m=8, seed=20240601
+        ds, comparo.tabulate(ds), "body_mass", "frequency_observed", "ols", m=8, seed=20240601
     )
     assert json.loads(json.dumps(api.to_dict(), default=float)) == d
     text = run_main(*args, "--impute", "--impute-m", "8").stdout

@@ -266,7 +266,7 @@ def compare(
     sorted by AICc with Delta AICc, Akaike weights and the likelihood-ratio tests of every
     nested pair (chi-squared with the difference in k as df).
 
-    *table* is one row per taxon: a per-taxon table (:func:`comparo.per_taxon`) or, for the
+    *table* is one row per taxon: a per-taxon table (:func:`comparo.tabulate`) or, for the
     derived bounds and ratios as predictors, the derived table (:func:`comparo.derive`),
     which ``comparo compare`` builds itself from a dataset folder. Values in the table's
     canonical units; coefficients are on the log scale of *log*, except for predictors named

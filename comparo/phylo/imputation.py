@@ -546,7 +546,7 @@ def impute(dataset: Any, y: str, lambda_: Any = "ml", with_: Any = None) -> Impu
         A loaded dataset (:func:`comparo.load`) or its folder; it needs a tree.
     y : str
         Catalogue key of a positive quantity; the per-taxon values (canonical unit,
-        :func:`comparo.per_taxon`) are modelled on the log10 scale.
+        :func:`comparo.tabulate`) are modelled on the log10 scale.
     lambda_ : 'ml' or float
         Pagel's lambda: estimated by ML (default) or fixed in [0, 1].
     with_ : list of str or comma-separated str, optional
