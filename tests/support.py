@@ -33,6 +33,16 @@ SOURCES = (
 )
 
 
+# the keys of ``comparo fit --format json`` with one x (the contract of docs/cli.md)
+FIT_JSON_KEYS = frozenset(
+    {
+        "method", "x", "y", "log", "n", "slope", "slope_ci", "intercept", "intercept_ci", "r2",
+        "ci_level", "against", "lambda", "lambda_ci", "loglik", "groups", "outliers",
+        "excluded", "breakpoint", "sensitivity", "terms",
+    }
+)  # fmt: skip
+
+
 def demo_taxa() -> int:
     """Accepted taxa of the demo compilation, counted from its taxa.csv (a row whose
     accepted_name is blank is an accepted taxon; a filled one is a synonym)."""

@@ -8,6 +8,7 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
+from support import FIT_JSON_KEYS
 
 from comparo.cli.main import main
 
@@ -51,29 +52,7 @@ def test_json_output_keys_and_excluded_rows(csv, capsys):
     )
     assert code == 0
     d = json.loads(capsys.readouterr().out)
-    assert {
-        "method",
-        "x",
-        "y",
-        "log",
-        "n",
-        "slope",
-        "slope_ci",
-        "intercept",
-        "intercept_ci",
-        "r2",
-        "ci_level",
-        "against",
-        "lambda",
-        "lambda_ci",
-        "loglik",
-        "groups",
-        "outliers",
-        "excluded",
-        "breakpoint",
-        "sensitivity",
-        "terms",
-    } == set(d)
+    assert set(d) == FIT_JSON_KEYS
     assert d["n"] == 22
     assert {e["label"] for e in d["excluded"]} == {"sp0", "sp1"}
     assert d["slope_ci"][0] < -0.3 < d["slope_ci"][1]

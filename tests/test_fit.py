@@ -9,33 +9,12 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from support import FIT_JSON_KEYS
 
 from comparo.base.errors import UsageError
 from comparo.fitting import FitResult, common_slope_model2, fit, model2_line, ols_line
 
-CONTRACT_KEYS = {
-    "method",
-    "x",
-    "y",
-    "log",
-    "n",
-    "slope",
-    "slope_ci",
-    "intercept",
-    "intercept_ci",
-    "r2",
-    "ci_level",
-    "against",
-    "lambda",
-    "lambda_ci",
-    "loglik",
-    "groups",
-    "outliers",
-    "excluded",
-    "breakpoint",
-    "sensitivity",
-    "terms",
-}
+CONTRACT_KEYS = FIT_JSON_KEYS
 
 
 def _table(n: int = 30, slope: float = 0.75, seed: int = 1, sd: float = 0.1) -> pd.DataFrame:

@@ -7,34 +7,14 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
+from support import FIT_JSON_KEYS
 
 from comparo import phylo
 from comparo.base.errors import InputError, UsageError
 
 FOUR = "((A:1,B:2):1,(C:1.5,D:0.5):0.5);"
 
-CONTRACT_KEYS = {
-    "method",
-    "x",
-    "y",
-    "log",
-    "n",
-    "slope",
-    "slope_ci",
-    "intercept",
-    "intercept_ci",
-    "r2",
-    "ci_level",
-    "against",
-    "lambda",
-    "lambda_ci",
-    "loglik",
-    "groups",
-    "outliers",
-    "excluded",
-    "breakpoint",
-    "sensitivity",
-}
+CONTRACT_KEYS = FIT_JSON_KEYS - {"terms"}  # the pgls record: terms come with the FitResult
 
 
 def small_table(seed=1, n=30):
