@@ -63,6 +63,31 @@ def _output_dir_arg(
     p.set_defaults(output_kind="dir")
 
 
+def _x_linear_arg(p: argparse.ArgumentParser) -> None:
+    """fit and compare: predictors entered untransformed."""
+    p.add_argument(
+        "--x-linear",
+        action="append",
+        default=None,
+        metavar="NAME",
+        help="enter this predictor untransformed (not logged); repeat for several. "
+        "temperature_c (degrees C, an interval scale) always enters untransformed",
+    )
+
+
+def _impute_arg(p: argparse.ArgumentParser) -> None:
+    """table and derive: imputed values added to the per-taxon table."""
+    p.add_argument(
+        "--impute",
+        nargs="?",
+        const="",
+        default=None,
+        metavar="Q1,Q2",
+        help="add phylogenetically imputed values (basis 'imputed', lineage, prediction SE as "
+        "uncertainty) of Q1,Q2 (default: [impute] of comparo.toml)",
+    )
+
+
 def _temperature_arg(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--no-temperature",
@@ -148,15 +173,7 @@ def add_table(sub: Sub) -> None:
         default=None,
         help="how repeated values combine (default: settings, else weighted mean)",
     )
-    p.add_argument(
-        "--impute",
-        nargs="?",
-        const="",
-        default=None,
-        metavar="Q1,Q2",
-        help="add phylogenetically imputed values (basis 'imputed', lineage, prediction SE as "
-        "uncertainty) of Q1,Q2 (default: [impute] of comparo.toml)",
-    )
+    _impute_arg(p)
 
 
 def add_derive(sub: Sub) -> None:
@@ -172,15 +189,7 @@ def add_derive(sub: Sub) -> None:
         help="Monte Carlo draws for uncertainty (0: first-order only)",
     )
     _seed_arg(p, "random seed for Monte Carlo")
-    p.add_argument(
-        "--impute",
-        nargs="?",
-        const="",
-        default=None,
-        metavar="Q1,Q2",
-        help="add phylogenetically imputed values (basis 'imputed', lineage, prediction SE as "
-        "uncertainty) of Q1,Q2 (default: [impute] of comparo.toml)",
-    )
+    _impute_arg(p)
 
 
 def _fit_model_args(p: argparse.ArgumentParser) -> None:
@@ -201,14 +210,7 @@ def _fit_model_args(p: argparse.ArgumentParser) -> None:
         help="add a categorical predictor "
         "(treatment coding, first level in sorted order the reference)",
     )
-    p.add_argument(
-        "--x-linear",
-        action="append",
-        default=None,
-        metavar="NAME",
-        help="enter this predictor untransformed (not logged); repeat for several. "
-        "temperature_c (degrees C, an interval scale) always enters untransformed",
-    )
+    _x_linear_arg(p)
     p.add_argument(
         "--method",
         choices=["ols", "sma", "ma", "robust", "lts", "pgls"],
@@ -355,14 +357,7 @@ def add_compare(sub: Sub) -> None:
         help="categorical column in every model "
         "(treatment coding, first level in sorted order the reference)",
     )
-    p.add_argument(
-        "--x-linear",
-        action="append",
-        default=None,
-        metavar="NAME",
-        help="enter this predictor untransformed (not logged); repeat for several. "
-        "temperature_c (degrees C, an interval scale) always enters untransformed",
-    )
+    _x_linear_arg(p)
     p.add_argument(
         "--method",
         choices=["ols", "pgls"],
