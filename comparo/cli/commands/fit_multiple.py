@@ -98,7 +98,8 @@ def _against(given: list[str] | None) -> dict[str, float] | None:
 def run_multiple(args) -> int:
     """The multiple regression as text, JSON or CSV (the terms table)."""
     from comparo.cli.inputs import derived_table, tree_options
-    from comparo.fitting.multiple import FIT_METHODS, check_options, multiple_fit
+    from comparo.fitting.multiple import FIT_METHODS, check_options
+    from comparo.fitting.multiple_extras import multiple_fit
 
     xs = list(dict.fromkeys(args.x))
     if len(xs) < len(args.x):
@@ -141,6 +142,9 @@ def run_multiple(args) -> int:
         taxon_col=args.taxon_col,
         against=against,
         linear=args.x_linear,
+        by=args.by,
+        bootstrap=args.bootstrap,
+        seed=args.seed,
         **opts,
     )
     extra, text = _extras(args, table, xs, result, against, opts)
@@ -174,32 +178,28 @@ def run_multiple(args) -> int:
 
 
 def _extras(args, table, xs: list[str], result, against, opts: dict) -> tuple[dict, list[str]]:
-    """The parts asked beside the fit, as fields of the result and lines of text: the
-    bootstrap (key ``resampling``), leave one source out with the taxon jackknife and the
-    measurement-error draws (key ``sensitivity``), the group-wise fits (key ``by``)."""
+    """The parts asked beside the fit, as fields of the result and lines of text: leave one
+    source out with the taxon jackknife and the measurement-error draws (key
+    ``sensitivity``); the text of the group-wise fits and the bootstrap, which the fit itself
+    made (:func:`comparo.fitting.multiple_extras.multiple_fit`, keys ``by``, ``resampling``)."""
     from comparo.fitting import multiple_resampling as mr
     from comparo.fitting.multiple import design, linear_predictors
 
     out: dict = {}
     text: list[str] = []
     d = None
-    if args.bootstrap or (args.sensitivity and args.mc):
+    if args.sensitivity and args.mc:
         d = design(
             table, args.y, xs, factor=args.factor, log=result.log, taxon_col=args.taxon_col,
             tree=opts.get("tree"), tree_labels=opts.get("tree_labels"),
             linear=linear_predictors(xs, args.x_linear, args.y),
         )  # fmt: skip
-    if args.by:
-        from comparo.fitting.multiple_groups import by_lines, multiple_by
+    if result.by is not None:  # the fits within each group, made by the fit itself
+        from comparo.fitting.multiple_groups import by_lines
 
-        out["by"] = multiple_by(
-            table, args.y, xs, args.by, method=args.method, log=result.log, ci=args.ci,
-            taxon_col=args.taxon_col, linear=args.x_linear, **opts,
-        )  # fmt: skip
-        text += by_lines(out["by"])
-    if args.bootstrap:
-        out["resampling"] = {"bootstrap": mr.bootstrap_terms(d, result, args.bootstrap, args.seed)}
-        text += mr.resampling_lines(out["resampling"])
+        text += by_lines(result.by)
+    if result.resampling is not None:  # the bootstrap, likewise
+        text += mr.resampling_lines(result.resampling)
     if args.sensitivity:
         sens = _sensitivity(args, xs, against, {**opts, "linear": args.x_linear})
         kw = {k: v for k, v in opts.items() if k != "lambda_"}
